@@ -1,0 +1,63 @@
+"""``blotter bench``: time the engine, store, risk and app paths on this machine."""
+
+from __future__ import annotations
+
+import importlib
+
+import click
+
+from blotter.benchmarks import BENCH_MODULES, Result
+from blotter.commands.common import print_json, print_table
+
+
+def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
+    """Results of every benchmark module present (or those named in ``only``), in order."""
+    results: list[Result] = []
+    for name in BENCH_MODULES:
+        if only and name not in only:
+            continue
+        try:
+            module = importlib.import_module(f"blotter.benchmarks.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"blotter.benchmarks.{name}":
+                continue
+            raise
+        click.echo(f"bench: {name} ...", err=True)
+        results.extend(module.run(quick))
+    return results
+
+
+def _fmt_ns(ns: float) -> str:
+    if ns >= 1e6:
+        return f"{ns / 1e6:,.1f} ms"
+    if ns >= 1e3:
+        return f"{ns / 1e3:,.2f} µs"
+    return f"{ns:,.1f} ns"
+
+
+@click.command()
+@click.option("--json", "as_json", is_flag=True, help="Print {\"results\": [...]} as JSON.")
+@click.option("--quick", is_flag=True, help="Small sizes and few repetitions (a smoke test).")
+@click.option("--only", multiple=True, type=click.Choice(BENCH_MODULES),
+              help="Run only these groups (repeatable).")
+def bench(as_json: bool, quick: bool, only: tuple[str, ...]) -> None:
+    """Time valuation, loading, what-if and ladder on random books; medians of one run.
+
+    Each row gives the median time per position (min and max beside it), the target where one is
+    set, and where QuantLib is installed the ratio of its per-option loop to ours.
+    """
+    results = run_all(quick, only)
+    if as_json:
+        print_json({"results": [r.as_dict() for r in results]})
+        return
+    rows = [
+        (r.case, f"{r.positions:,}", _fmt_ns(r.ns_per_position), _fmt_ns(r.min), _fmt_ns(r.max),
+         _fmt_ns(r.target_ns) if r.target_ns else "",
+         f"{r.ratio:,.0f}× vs {r.reference}" if r.ratio else "", r.note)
+        for r in results
+    ]
+    print_table(["case", "positions", "median/pos", "min", "max", "target", "reference", "note"],
+                rows, right=[False, True, True, True, True, True, False, False])
+
+
+COMMANDS = [bench]

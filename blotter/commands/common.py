@@ -1,0 +1,125 @@
+"""What every command shares: the group's context, the ``--db`` option, and table/JSON/CSV output."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import sys
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from typing import Any, TypeVar
+
+import click
+
+F = TypeVar("F", bound=Callable[..., Any])
+
+FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
+"""A CSV cell starting with one of these is run as a formula by spreadsheets unless neutralised."""
+
+
+@dataclass
+class AppContext:
+    """Options given to the group itself (``blotter --db X --read-only CMD``)."""
+
+    db_path: str | None = None
+    read_only: bool = False
+    no_mouse: bool = False
+
+
+def db_option(func: F) -> F:
+    """Add ``--db PATH`` to a command; the command's value wins over the group's."""
+    return click.option(
+        "--db", "db_path", type=click.Path(dir_okay=False), default=None,
+        help="Book file (SQLite); overrides the group's --db and $BLOTTER_DB.",
+    )(func)
+
+
+def resolve_db(db_path: str | None) -> tuple[str, bool]:
+    """The book file to use and whether it was given explicitly; the default is the user's demo copy.
+
+    Returns (path, explicit). When no path was given anywhere, the per-user copy of the shipped
+    demo book is made on first use and its path returned; a note saying which file goes to stderr.
+    """
+    ctx = click.get_current_context(silent=True)
+    group: AppContext | None = ctx.find_object(AppContext) if ctx else None
+    path = db_path or (group.db_path if group else None)
+    if path:
+        return path, True
+    from blotter.store import user_demo_copy
+
+    demo = user_demo_copy()
+    click.echo(f"blotter: no --db given; using your demo book {demo}", err=True)
+    return str(demo), False
+
+
+def read_only_requested() -> bool:
+    """True when the group was given ``--read-only``."""
+    ctx = click.get_current_context(silent=True)
+    group: AppContext | None = ctx.find_object(AppContext) if ctx else None
+    return bool(group and group.read_only)
+
+
+def output_options(func: F) -> F:
+    """Add ``--json`` and ``--csv`` (mutually exclusive) to a command that prints rows."""
+    func = click.option("--csv", "as_csv", is_flag=True, help="Print CSV for scripts.")(func)
+    func = click.option("--json", "as_json", is_flag=True, help="Print JSON for scripts.")(func)
+    return func
+
+
+def check_output_flags(as_json: bool, as_csv: bool) -> None:
+    """Refuse ``--json`` together with ``--csv``."""
+    if as_json and as_csv:
+        raise click.UsageError("choose one of --json and --csv")
+
+
+def neutralise(cell: Any) -> Any:
+    """A CSV cell made safe for spreadsheets: text starting like a formula gets a leading quote.
+
+    Numbers (including negative ones) are left alone, so exported files import back unchanged.
+    """
+    if isinstance(cell, str) and cell.startswith(FORMULA_PREFIXES):
+        try:
+            float(cell)
+        except ValueError:
+            return "'" + cell
+    return cell
+
+
+def _jsonable(value: Any) -> Any:
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if hasattr(value, "item") and callable(value.item):  # NumPy scalar
+        return _jsonable(value.item())
+    if isinstance(value, dict):
+        return {k: _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    return value
+
+
+def print_json(obj: Any) -> None:
+    """Print ``obj`` as JSON (NaN and infinity become null) to stdout."""
+    click.echo(json.dumps(_jsonable(obj), indent=2, default=str))
+
+
+def print_csv(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> None:
+    """Print a header and rows as CSV to stdout, neutralising formula-like text cells."""
+    writer = csv.writer(sys.stdout, lineterminator="\n")
+    writer.writerow(columns)
+    for row in rows:
+        writer.writerow([neutralise("" if c is None else c) for c in row])
+
+
+def print_table(columns: Sequence[str], rows: Iterable[Sequence[Any]], title: str | None = None,
+                right: Sequence[bool] | None = None) -> None:
+    """Print an aligned table for people; ``right`` marks numeric columns to right-align."""
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title=title, box=None, header_style="bold", pad_edge=False)
+    for i, col in enumerate(columns):
+        table.add_column(col, justify="right" if right and right[i] else "left", no_wrap=True)
+    for row in rows:
+        table.add_row(*["" if c is None else str(c) for c in row])
+    Console(soft_wrap=True).print(table)
