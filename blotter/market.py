@@ -6,10 +6,15 @@ higher ``version``. The store builds one with ``store.load_market``; the risk la
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import datetime
 
 import numpy as np
+
+from blotter.calendar import SECONDS_PER_YEAR
+
+VOL_FLOOR = 1e-4
+"""Smallest vol a shock can leave (0.01 vol point), so a large negative vol move stays priceable."""
 
 
 def _frozen(a: np.ndarray) -> np.ndarray:
@@ -37,6 +42,69 @@ class VolSurface:
         m = self.expiries.shape
         if self.strikes.shape != m or self.vols.shape != m:
             raise ValueError("VolSurface arrays must have the same length")
+        if len(m) != 1:
+            raise ValueError("VolSurface arrays must be one-dimensional")
+
+    def slice_dates(self) -> np.ndarray:
+        """The distinct expiry dates of the surface, ascending, ``datetime64[D]`` (k,)."""
+        return np.unique(self.expiries)
+
+    def slice_vols(self, slice_date: np.datetime64, strikes: np.ndarray) -> np.ndarray:
+        """Vols of one expiry slice at ``strikes`` (n,): linear in strike, flat beyond the end points.
+
+        A slice with no strike points uses its ATM (NaN-strike) vol at every strike.
+        """
+        strikes = np.asarray(strikes, dtype=np.float64)
+        rows = self.expiries == slice_date
+        ks, vs = self.strikes[rows], self.vols[rows]
+        has_k = np.isfinite(ks)
+        if has_k.any():
+            order = np.argsort(ks[has_k], kind="stable")
+            return np.interp(strikes, ks[has_k][order], vs[has_k][order])
+        return np.full(strikes.shape, float(vs.mean()))
+
+    def vols_at(self, expiry_days: np.ndarray, years: np.ndarray, strikes: np.ndarray,
+                today: np.datetime64) -> np.ndarray:
+        """Vols (n,) for options expiring on dates ``expiry_days`` in ``years`` at ``strikes``.
+
+        Across expiries the surface is linear in total variance σ²T at equal strike (sticky strike:
+        a strike keeps its vol whatever spot does). A slice's T is the option's own T moved by the
+        calendar days between the two expiry dates, so an option on a slice's date gets that
+        slice's vol exactly. Slices dated before ``today`` are ignored; before the first live slice
+        or after the last, the vol is flat (the end slice's vol at the strike).
+        """
+        expiry_days = np.asarray(expiry_days, dtype="datetime64[D]")
+        years = np.asarray(years, dtype=np.float64)
+        strikes = np.asarray(strikes, dtype=np.float64)
+        n = strikes.shape[0]
+        dates = self.slice_dates()
+        dates = dates[dates >= today] if (dates >= today).any() else dates[-1:]
+        if n == 0:
+            return np.zeros(0)
+        if dates.size == 0:
+            raise ValueError("vol surface has no points")
+        grid = np.stack([self.slice_vols(d, strikes) for d in dates])          # (k, n)
+        if dates.size == 1:
+            return grid[0].copy()
+        hi = np.clip(np.searchsorted(dates, expiry_days, side="left"), 1, dates.size - 1)
+        lo = hi - 1
+        cols = np.arange(n)
+        d_opt = expiry_days.astype(np.int64)
+        t_lo = years + (dates[lo].astype(np.int64) - d_opt) * (86400.0 / SECONDS_PER_YEAR)
+        t_hi = years + (dates[hi].astype(np.int64) - d_opt) * (86400.0 / SECONDS_PER_YEAR)
+        v_lo, v_hi = grid[lo, cols], grid[hi, cols]
+        w_lo, w_hi = v_lo**2 * t_lo, v_hi**2 * t_hi
+        span = np.where(t_hi > t_lo, t_hi - t_lo, 1.0)
+        frac = np.clip((years - t_lo) / span, 0.0, 1.0)
+        w = w_lo + (w_hi - w_lo) * frac
+        with np.errstate(invalid="ignore", divide="ignore"):
+            inner = np.sqrt(np.maximum(w, 0.0) / years)
+        out = np.where(expiry_days <= dates[0], grid[0, cols],
+                       np.where(expiry_days >= dates[-1], grid[-1, cols], inner))
+        exact = dates[lo] == expiry_days
+        out = np.where(exact, v_lo, out)
+        out = np.where(dates[hi] == expiry_days, v_hi, out)
+        return np.where(np.isfinite(out), out, v_lo)
 
 
 @dataclass(frozen=True, eq=False)
@@ -55,6 +123,14 @@ class RateCurve:
         object.__setattr__(self, "tenor_days", _frozen(days[order]))
         object.__setattr__(self, "zero_rates", _frozen(rates[order]))
 
+    def rate_at(self, years: np.ndarray | float) -> np.ndarray:
+        """Zero rate (decimal, continuous) at ``years`` (ACT/365F), linear in tenor, flat beyond the ends."""
+        return np.interp(np.asarray(years, dtype=np.float64) * 365.0, self.tenor_days, self.zero_rates)
+
+    def shifted(self, rate_bp: float) -> RateCurve:
+        """A copy with every zero rate moved by ``rate_bp`` basis points (1 bp = 0.0001)."""
+        return RateCurve(self.tenor_days, self.zero_rates + rate_bp * 1e-4)
+
 
 @dataclass(frozen=True, eq=False)
 class Market:
@@ -72,3 +148,62 @@ class Market:
     div_yields: dict[str, float] = field(default_factory=dict)  # overrides of Underlyings.div_yields
     mark_set_id: int | None = None
     mark_kind: str = "intraday"   # "close" or "intraday"
+
+    def spot(self, symbol: str) -> float:
+        """Spot (or futures price) of ``symbol``; KeyError naming it when there is no mark."""
+        try:
+            return float(self.spots[symbol])
+        except KeyError:
+            raise KeyError(f"no spot mark for {symbol!r}") from None
+
+    def curve(self, currency: str) -> RateCurve:
+        """The rate curve of ``currency``; KeyError naming it when there is no curve."""
+        try:
+            return self.curves[currency]
+        except KeyError:
+            raise KeyError(f"no rate curve for {currency!r}") from None
+
+    def vols_for(self, symbol: str, expiries: np.ndarray, strikes: np.ndarray,
+                 valuation_time: np.datetime64) -> np.ndarray:
+        """Vols (n,) of ``symbol``'s options expiring at the UTC instants ``expiries`` at ``strikes``.
+
+        Interpolation is ``VolSurface.vols_at``: total variance across expiries at equal strike,
+        linear in strike within an expiry, flat beyond the ends. KeyError when ``symbol`` has no surface.
+        """
+        try:
+            surface = self.surfaces[symbol]
+        except KeyError:
+            raise KeyError(f"no vol surface for {symbol!r}") from None
+        exp = np.asarray(expiries, dtype="datetime64[s]")
+        t = np.datetime64(valuation_time, "s")
+        years = (exp - t).astype(np.float64) / SECONDS_PER_YEAR
+        return surface.vols_at(exp.astype("datetime64[D]"), years, strikes, t.astype("datetime64[D]"))
+
+    def shocked(self, *, spot_pct: dict[str, float] | None = None,
+                spot_abs: dict[str, float] | None = None, vol_pts: float = 0.0,
+                vol_rel_pct: float = 0.0, rate_bp: float = 0.0) -> Market:
+        """A new market (``version`` + 1) with the given moves; this one is left unchanged.
+
+        ``spot_pct`` / ``spot_abs`` move named spots by a percentage or by currency units;
+        ``vol_pts`` adds vol points (0.01) to every surface point, ``vol_rel_pct`` scales them
+        (−10 → × 0.9), floored at ``VOL_FLOOR``; ``rate_bp`` shifts every curve.
+        """
+        spots = dict(self.spots)
+        for sym, pct in (spot_pct or {}).items():
+            spots[sym] = self.spot(sym) * (1.0 + pct / 100.0)
+        for sym, amount in (spot_abs or {}).items():
+            spots[sym] = self.spot(sym) + amount
+        bad = [s for s, v in spots.items() if not v > 0]
+        if bad:
+            raise ValueError(f"the move leaves a non-positive spot for {', '.join(bad)}")
+        surfaces = self.surfaces
+        if vol_pts or vol_rel_pct:
+            surfaces = {
+                sym: VolSurface(sf.expiries, sf.strikes,
+                                np.maximum(sf.vols * (1.0 + vol_rel_pct / 100.0) + vol_pts / 100.0, VOL_FLOOR))
+                for sym, sf in self.surfaces.items()
+            }
+        curves = self.curves
+        if rate_bp:
+            curves = {ccy: c.shifted(rate_bp) for ccy, c in self.curves.items()}
+        return replace(self, version=self.version + 1, spots=spots, surfaces=surfaces, curves=curves)

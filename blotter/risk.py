@@ -1,0 +1,381 @@
+"""Value a book on a market and aggregate its exposures in desk units.
+
+``value_book`` turns a ``Book`` and a ``Market`` into engine inputs (spot, years, rate, carry, vol
+per position), calls the engine once, and keeps per-position arrays in desk units:
+
+- ``delta_shares`` Δ × quantity × multiplier (shares of the underlying); stock and futures hedges
+  count 1 per unit and carry no other greek;
+- ``delta_cash`` Δ sh × spot (currency); ``beta_delta_cash`` Δ $ × the underlying's beta to the
+  book's reference index;
+- ``gamma_1pct`` change in Δ sh for a 1% rise in spot (Γ × S / 100);
+- ``vega_pt`` P&L for +1 vol point (engine vega / 100); ``weighted_vega_pt`` vega_pt × √(T_ref/T)
+  with T floored at ``WEIGHT_FLOOR_DAYS``;
+- ``theta_day`` P&L for one calendar day (engine theta / 365);
+- ``rho_pct`` P&L for +1 percentage point of rate. For stock, index and FX underlyings the carry
+  b = r − q (or r − r_foreign) moves with the rate, so ρ = engine rho + carry_rho; for options on
+  futures b = 0 whatever the rate, so ρ = engine rho alone;
+- ``vanna_pt`` change in Δ sh for +1 vol point (engine vanna / 100); ``volga_pt`` change in
+  vega_pt for +1 vol point (engine volga / 10 000).
+
+The base valuation is computed once per (book, market, time) and reused by every what-if.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import date
+from typing import Literal
+
+import numpy as np
+
+from blotter import calendar as cal
+from blotter import engine
+from blotter.book import Book
+from blotter.market import Market
+
+DEFAULT_T_REF_DAYS = 30.0
+"""Reference tenor of term-weighted vega and weighted vol moves, calendar days."""
+
+WEIGHT_FLOOR_DAYS = 7.0
+"""Expiries shorter than this are weighted as if this long, so √(T_ref/T) stays bounded (≤ 2.07)."""
+
+EXPOSURE_FIELDS = ("value", "delta_shares", "delta_cash", "gamma_1pct", "vega_pt", "theta_day",
+                   "rho_pct", "vanna_pt", "volga_pt", "beta_delta_cash", "weighted_vega_pt")
+"""Additive per-position desk-unit arrays of a ``BookValuation``, in ``ExposureRow`` order."""
+
+VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
+"""Vega display units: per vol point (0.01 of vol), or per 1.00 of vol."""
+
+Grouping = Literal["underlying", "expiry", "position"]
+
+
+@dataclass(frozen=True, eq=False)
+class UnitGreeks:
+    """Raw engine greeks per one unit of underlying, one row per position (n,).
+
+    Engine units: vega and volga per 1.00 of vol, theta per year, rho per 1.00 of rate (carry b
+    held fixed), carry_rho = dV/db, charm per year. Hedge rows hold price = spot, delta = 1, zeros
+    elsewhere; rows of options already past expiry hold intrinsic value and zero greeks.
+    """
+
+    price: np.ndarray
+    delta: np.ndarray
+    gamma: np.ndarray
+    vega: np.ndarray
+    theta: np.ndarray
+    rho: np.ndarray
+    carry_rho: np.ndarray
+    vanna: np.ndarray
+    volga: np.ndarray
+    charm: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class BookValuation:
+    """A book valued on one market at one instant; per-position arrays have shape (n,).
+
+    Inputs: ``spot`` (currency), ``years`` (ACT/365F to expiry, NaN for hedges), ``rate`` and
+    ``carry`` (decimal, continuous; NaN for hedges), ``vol`` (decimal; NaN for hedges). Exposures in
+    desk units as in the module docstring; ``value`` is quantity × multiplier × unit price (zero
+    for a futures hedge, whose P&L settles daily). ``greeks`` holds the raw per-unit greeks used.
+    """
+
+    book: Book
+    market: Market
+    valuation_time: np.datetime64
+    spot: np.ndarray
+    years: np.ndarray
+    rate: np.ndarray
+    carry: np.ndarray
+    vol: np.ndarray
+    value: np.ndarray
+    delta_shares: np.ndarray
+    delta_cash: np.ndarray
+    gamma_1pct: np.ndarray
+    vega_pt: np.ndarray
+    theta_day: np.ndarray
+    rho_pct: np.ndarray
+    vanna_pt: np.ndarray
+    volga_pt: np.ndarray
+    beta_delta_cash: np.ndarray
+    weighted_vega_pt: np.ndarray
+    greeks: UnitGreeks
+    units: np.ndarray             # quantity × multiplier, units of underlying per position (n,)
+    beta: np.ndarray              # beta of each position's underlying (n,)
+    vega_weight: np.ndarray       # √(T_ref/max(T, floor)) (n,), 0 for hedges
+    rho_unit: np.ndarray          # rho per unit per 1.00 of rate as composed for the desk (n,)
+    rate_moves_carry: np.ndarray  # bool (n,): carry b moves one for one with the rate
+    live: np.ndarray              # bool (n,): option with years > 0
+    settles_daily: np.ndarray     # bool (n,): futures hedge, value 0, P&L = units × Δprice
+    underlying_spots: np.ndarray  # spot per underlying (n_u,), NaN when unmarked and unused
+    bucket_codes: np.ndarray      # int64 (n,) into ``bucket_labels``
+    bucket_labels: tuple[str, ...]
+    t_ref_days: float = DEFAULT_T_REF_DAYS
+    vega_unit: str = "pt"
+    notes: tuple[str, ...] = field(default=())
+
+    def __len__(self) -> int:
+        return len(self.book)
+
+    @property
+    def vega_scale(self) -> float:
+        """Multiply ``vega_pt`` by this to show vega in ``vega_unit``."""
+        return VEGA_UNITS[self.vega_unit]
+
+    def index_spot(self) -> float | None:
+        """Spot of the book's reference index, or None when there is none or it is unmarked."""
+        ref = self.book.reference_index
+        if ref is None or ref not in self.market.spots:
+            return None
+        return float(self.market.spots[ref])
+
+
+@dataclass(frozen=True)
+class ExposureRow:
+    """Summed desk-unit exposures of a group of positions (one underlying, expiry bucket, position
+    or the whole book). ``spot`` is set for an underlying or a position row, else None.
+
+    Share-unit sums (delta_shares, gamma_1pct, vanna_pt) over several underlyings add share counts
+    of different names; compare across underlyings with delta_cash or beta_delta_cash.
+    """
+
+    key: str
+    label: str
+    n_positions: int
+    value: float
+    delta_shares: float
+    delta_cash: float
+    gamma_1pct: float
+    vega_pt: float
+    theta_day: float
+    rho_pct: float
+    vanna_pt: float
+    volga_pt: float
+    beta_delta_cash: float
+    weighted_vega_pt: float
+    underlying: str | None = None
+    spot: float | None = None
+    index: int | None = None
+
+    def exposures(self) -> dict[str, float]:
+        """The exposure fields by name (``EXPOSURE_FIELDS`` less ``weighted_vega_pt`` first)."""
+        return {name: getattr(self, name) for name in EXPOSURE_FIELDS}
+
+
+def _carry_and_rate(book: Book, market: Market, years: np.ndarray,
+                    options: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Rate (n,), carry (n,) and the rate-moves-carry mask (n,) from curves, kinds and yields."""
+    und = book.underlyings
+    n = len(book)
+    rate = np.full(n, np.nan)
+    carry = np.full(n, np.nan)
+    moves = np.zeros(n, dtype=bool)
+    uidx = book.underlying_idx
+    t = np.where(options, np.maximum(np.nan_to_num(years), 0.0), 0.0)
+    for ccy in sorted(set(und.currencies[i] for i in np.unique(uidx))):
+        rows = np.array([und.currencies[i] == ccy for i in range(len(und))])[uidx]
+        rate[rows] = market.curve(ccy).rate_at(t[rows])
+    for i in np.unique(uidx):
+        rows = uidx == i
+        kind, sym = und.kinds[i], und.symbols[i]
+        q = float(market.div_yields.get(sym, und.div_yields[i]))
+        if kind == "future":
+            carry[rows] = 0.0
+        elif kind in ("stock", "index", "fx"):
+            carry[rows] = rate[rows] - q
+            moves[rows] = True
+        else:
+            raise ValueError(f"underlying {sym!r} has unknown kind {kind!r}")
+    return rate, carry, moves
+
+
+def expiry_buckets(expiries: np.ndarray, is_option: np.ndarray, valuation_time: np.datetime64,
+                   tz: object | None = None) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Expiry bucket of each position: codes (n,) into ordered labels.
+
+    Buckets, by the expiry's desk-local date: "expired", "this week" (to the coming Sunday),
+    "this month" (rest of the calendar month), then each of the next 12 months ("2027-01"), then
+    each later calendar year ("2028"), and "hedges" for stock and futures positions.
+    """
+    zone = tz if tz is not None else cal.desk_tz()
+    today = cal.to_datetime(valuation_time, zone).date()  # type: ignore[arg-type]
+    week_end = today.toordinal() + (6 - today.weekday())
+    month0 = today.year * 12 + today.month - 1
+
+    def key_of(d: date | None, expired: bool) -> tuple[tuple[int, int], str]:
+        if d is None:
+            return (9, 0), "hedges"
+        if expired:
+            return (0, 0), "expired"
+        if d.toordinal() <= week_end:
+            return (1, 0), "this week"
+        m = d.year * 12 + d.month - 1
+        if m == month0:
+            return (2, 0), "this month"
+        if m - month0 <= 12:
+            return (3, m), f"{d.year:04d}-{d.month:02d}"
+        return (4, d.year), f"{d.year:04d}"
+
+    names: dict[tuple[int, int], str] = {}
+    uniq, inverse = np.unique(np.where(is_option, expiries, np.datetime64("NaT")), return_inverse=True)
+    per_unique: list[tuple[int, int]] = []
+    for e in uniq:
+        if np.isnat(e):
+            k, name = key_of(None, False)
+        else:
+            k, name = key_of(cal.to_datetime(e, zone).date(), bool(e <= valuation_time))  # type: ignore[arg-type]
+        names[k] = name
+        per_unique.append(k)
+    keys = sorted(set(per_unique))
+    order = {k: i for i, k in enumerate(keys)}
+    labels = [names[k] for k in keys]
+    lookup = np.array([order[k] for k in per_unique], dtype=np.int64)
+    codes = lookup[inverse.reshape(-1)] if len(expiries) else np.zeros(0, dtype=np.int64)
+    return codes, tuple(labels)
+
+
+def value_book(book: Book, market: Market, valuation_time: np.datetime64 | None = None, *,
+               vega_unit: str = "pt", t_ref_days: float = DEFAULT_T_REF_DAYS) -> BookValuation:
+    """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
+
+    Returns per-position arrays (n,) in desk units (see the module docstring). KeyError naming the
+    symbol or currency when a needed spot, surface or curve is missing.
+    """
+    if vega_unit not in VEGA_UNITS:
+        raise ValueError(f"vega_unit must be one of {', '.join(VEGA_UNITS)}, not {vega_unit!r}")
+    t = cal.valuation_time(valuation_time)
+    und = book.underlyings
+    n = len(book)
+    uidx = book.underlying_idx
+    opt = book.is_option
+
+    used = np.unique(uidx)
+    u_spots = np.full(len(und), np.nan)
+    for i in used:
+        u_spots[i] = market.spot(und.symbols[i])
+    spot = u_spots[uidx] if n else np.zeros(0)
+
+    years = np.where(opt, cal.year_fraction(t, book.expiries), np.nan) if n else np.zeros(0)
+    live = opt & (np.nan_to_num(years, nan=0.0) > 0)
+    rate, carry, moves = _carry_and_rate(book, market, years, opt)
+
+    vol = np.full(n, np.nan)
+    for i in np.unique(uidx[opt]):
+        rows = opt & (uidx == i)
+        vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
+
+    g = {name: np.zeros(n) for name in ("price", "delta", "gamma", "vega", "theta", "rho",
+                                        "carry_rho", "vanna", "volga", "charm")}
+    hedge = ~opt
+    g["price"][hedge] = spot[hedge]
+    g["delta"][hedge] = 1.0
+    expired = opt & ~live
+    if expired.any():
+        sign = np.where(book.is_call[expired], 1.0, -1.0)
+        g["price"][expired] = np.maximum(sign * (spot[expired] - book.strikes[expired]), 0.0)
+    if live.any():
+        res = engine.price_greeks(book.is_call[live], spot[live], book.strikes[live], years[live],
+                                  rate[live], carry[live], vol[live], american=book.american[live])
+        for name in g:
+            g[name][live] = np.asarray(getattr(res, name), dtype=np.float64)
+    greeks = UnitGreeks(**{k: _ro(v) for k, v in g.items()})
+
+    units = book.quantities * book.multipliers
+    beta = und.betas[uidx] if n else np.zeros(0)
+    is_future_hedge = hedge & np.array([und.kinds[i] == "future" for i in range(len(und))],
+                                       dtype=bool)[uidx] if n else np.zeros(0, dtype=bool)
+    floor_years = WEIGHT_FLOOR_DAYS / 365.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weight = np.where(live, np.sqrt((t_ref_days / 365.0) / np.maximum(np.nan_to_num(years), floor_years)), 0.0)
+    rho_unit = g["rho"] + np.where(moves, g["carry_rho"], 0.0)
+
+    delta_shares = g["delta"] * units
+    vega_pt = g["vega"] / 100.0 * units
+    arrays = {
+        "value": np.where(is_future_hedge, 0.0, g["price"] * units),
+        "delta_shares": delta_shares,
+        "delta_cash": delta_shares * spot,
+        "gamma_1pct": g["gamma"] * spot * 0.01 * units,
+        "vega_pt": vega_pt,
+        "theta_day": g["theta"] / 365.0 * units,
+        "rho_pct": rho_unit / 100.0 * units,
+        "vanna_pt": g["vanna"] / 100.0 * units,
+        "volga_pt": g["volga"] / 1e4 * units,
+        "beta_delta_cash": delta_shares * spot * beta,
+        "weighted_vega_pt": vega_pt * weight,
+    }
+    codes, labels = expiry_buckets(book.expiries, opt, t)
+    notes: list[str] = []
+    if expired.any():
+        notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
+    return BookValuation(
+        book=book, market=market, valuation_time=t,
+        spot=_ro(spot), years=_ro(years), rate=_ro(rate), carry=_ro(carry), vol=_ro(vol),
+        **{k: _ro(v) for k, v in arrays.items()},
+        greeks=greeks, units=_ro(units), beta=_ro(beta), vega_weight=_ro(weight),
+        rho_unit=_ro(rho_unit), rate_moves_carry=_ro(moves), live=_ro(live),
+        settles_daily=_ro(is_future_hedge),
+        underlying_spots=_ro(u_spots), bucket_codes=_ro(codes), bucket_labels=labels,
+        t_ref_days=float(t_ref_days), vega_unit=vega_unit, notes=tuple(notes),
+    )
+
+
+def _ro(a: np.ndarray) -> np.ndarray:
+    a = np.ascontiguousarray(a)
+    a.setflags(write=False)
+    return a
+
+
+def _sums(valuation: BookValuation, codes: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
+    """Each exposure array summed per group code, (n_groups,) per field."""
+    return {name: np.bincount(codes, weights=getattr(valuation, name), minlength=n_groups)
+            for name in EXPOSURE_FIELDS}
+
+
+def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[ExposureRow]:
+    """Exposure rows grouped ``by`` underlying (book order, those with positions), expiry bucket
+    (nearest first) or position (book order)."""
+    book = valuation.book
+    und = book.underlyings
+    if by == "position":
+        return [
+            ExposureRow(key=str(int(book.contract_ids[i])), label=book.labels[i], n_positions=1,
+                        **{name: float(getattr(valuation, name)[i]) for name in EXPOSURE_FIELDS},
+                        underlying=und.symbols[book.underlying_idx[i]], spot=float(valuation.spot[i]),
+                        index=i)
+            for i in range(len(book))
+        ]
+    if by == "underlying":
+        codes, n_groups = book.underlying_idx, len(und)
+        names = und.symbols
+    elif by == "expiry":
+        codes, n_groups = valuation.bucket_codes, len(valuation.bucket_labels)
+        names = valuation.bucket_labels
+    else:
+        raise ValueError(f"by must be underlying, expiry or position, not {by!r}")
+    sums = _sums(valuation, codes, n_groups)
+    counts = np.bincount(codes, minlength=n_groups)
+    rows = []
+    for j in range(n_groups):
+        if counts[j] == 0:
+            continue
+        extra: dict[str, object] = {}
+        if by == "underlying":
+            extra = {"underlying": names[j], "spot": float(valuation.underlying_spots[j])}
+        rows.append(ExposureRow(key=names[j], label=names[j], n_positions=int(counts[j]),
+                                **{k: float(v[j]) for k, v in sums.items()}, index=j, **extra))  # type: ignore[arg-type]
+    return rows
+
+
+def total(valuation: BookValuation) -> ExposureRow:
+    """The whole book's exposures in one row (label "total")."""
+    return ExposureRow(key="total", label="total", n_positions=len(valuation),
+                       **{name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS})
+
+
+def beta_delta_index_units(valuation: BookValuation) -> float | None:
+    """Beta-weighted delta in units of the reference index (Σ Δ $ × β / S_index), or None."""
+    s_idx = valuation.index_spot()
+    if s_idx is None:
+        return None
+    return float(np.sum(valuation.beta_delta_cash)) / s_idx

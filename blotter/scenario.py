@@ -1,0 +1,999 @@
+"""What-if moves, the greeks' Taylor estimate against full revaluation, ladders and P&L explain.
+
+A move is one line of text (``parse_move``), applied to a base ``BookValuation`` (``apply_move``):
+every position is revalued on the shocked inputs with the engine, and the change is set beside
+the Taylor estimate built from the base greeks, term by term, with the error of each order.
+
+Grammar (keywords are case-insensitive, symbols are the book's own, parts combine in any order
+and apply together)::
+
+    spot -3%            every underlying's spot down 3%
+    spot +2.5           every spot up 2.5 currency units
+    IDX spot -5%        one underlying; a named part overrides an every-underlying part for it
+    IDX spot =4480      one underlying's spot set to a level
+    spot -3% beta       each underlying moves beta × 3% (an index-equivalent move)
+    vol +2              every vol up 2 vol points (0.30 → 0.32)
+    vol -10%            every vol times 0.9
+    vol +2 weighted     each expiry's vol up 2 × √(T_ref/T) points (T floored at 7 days)
+    IDX vol +3          one underlying's vols
+    days 3              three calendar days pass (fractions allowed: days 0.5)
+    bdays 1             to the next business day at the same time of day (Friday → Monday)
+    rate +25bp          every rate up 25 basis points (rate +0.25% is the same)
+    spot -3% vol +2 days 1
+
+Vol is sticky strike: under a spot move each option keeps the vol of its strike and expiry, and a
+day roll keeps each contract's vol (and its rate). Options that expire inside a roll settle at
+intrinsic value on the moved spot; they are listed as expiring, flagged as pin risk when the moved
+spot is within ``PIN_BAND_PCT`` of the strike, and their Taylor estimate is kept but flagged.
+"""
+
+from __future__ import annotations
+
+import re
+import weakref
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from blotter import calendar as cal
+from blotter import engine
+from blotter.market import VOL_FLOOR
+from blotter.risk import BookValuation, value_book
+
+TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
+"""Taylor terms, in the order they are shown."""
+
+FIRST_ORDER = ("delta", "vega", "theta", "rho")
+"""Terms of the first-order estimate; the second order adds gamma, volga and vanna."""
+
+PIN_BAND_PCT = 1.0
+"""An expiring option whose moved spot is within this % of its strike is flagged as pin risk."""
+
+STICKY_RULE = "sticky strike"
+"""How vols follow spot in every move and ladder: each strike keeps its vol."""
+
+DEFAULT_SPOT_PCTS = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
+"""Ladder rows: spot moves in % of every underlying's spot."""
+
+DEFAULT_VOL_PTS = (-5.0, -2.0, 0.0, 2.0, 5.0)
+"""Ladder columns: parallel vol moves in vol points."""
+
+LADDER_CHUNK_CELLS = 1 << 19
+"""Ladder memory bound: (scenarios × positions) cells priced per engine call."""
+
+EXAMPLES = (
+    ("spot -3%", "every underlying's spot down 3%"),
+    ("spot +2.5", "every spot up 2.5 currency units"),
+    ("IDX spot -5%", "one underlying (any symbol of the book)"),
+    ("IDX spot =4480", "one underlying's spot set to a level"),
+    ("spot -3% beta", "each underlying moves beta × 3% (index-equivalent move)"),
+    ("vol +2", "every vol up 2 vol points (0.30 → 0.32)"),
+    ("vol -10%", "every vol times 0.9"),
+    ("vol +2 weighted", "each expiry's vol up 2 × √(30d/T) points, T floored at 7 days"),
+    ("IDX vol +3", "one underlying's vols up 3 points"),
+    ("days 3", "three calendar days pass"),
+    ("bdays 1", "to the next business day (a Friday rolls over the weekend)"),
+    ("rate +25bp", "every rate up 25 basis points (rate +0.25% is the same)"),
+    ("spot -3% vol +2 days 1", "parts combine and apply together"),
+)
+"""Move examples with their meaning, for help screens."""
+
+
+class MoveSyntaxError(ValueError):
+    """A malformed move: ``message`` says what is wrong; ``start``/``end`` index the offending word."""
+
+    def __init__(self, message: str, start: int, end: int, text: str = "") -> None:
+        super().__init__(message)
+        self.message = message
+        self.start = start
+        self.end = end
+        self.text = text
+
+    def pointer(self) -> str:
+        """Two lines: the move text and a caret line under the offending word."""
+        width = max(self.end - self.start, 1)
+        return f"{self.text}\n{' ' * self.start}{'^' * width}"
+
+
+@dataclass(frozen=True)
+class SpotShift:
+    """One spot part: ``unit`` "%" (relative), "abs" (currency units) or "level" (set to)."""
+
+    symbol: str | None
+    amount: float
+    unit: str
+    beta: bool = False
+
+
+@dataclass(frozen=True)
+class VolShift:
+    """One vol part: ``unit`` "pts" (vol points, 0.01) or "%" (relative); ``weighted`` by √(T_ref/T)."""
+
+    symbol: str | None
+    amount: float
+    unit: str
+    weighted: bool = False
+
+
+@dataclass(frozen=True)
+class Move:
+    """A parsed what-if move; every part optional, all applied together."""
+
+    text: str
+    spot: tuple[SpotShift, ...] = ()
+    vol: tuple[VolShift, ...] = ()
+    days: float = 0.0
+    bdays: int = 0
+    rate_bp: float = 0.0
+
+    @property
+    def is_empty(self) -> bool:
+        """True when the move changes nothing."""
+        return not (self.spot or self.vol or self.days or self.bdays or self.rate_bp)
+
+    def describe(self) -> str:
+        """The move in canonical text, e.g. ``spot -3% vol +2 days 1``."""
+        words: list[str] = []
+        for s in self.spot:
+            amt = f"={s.amount:g}" if s.unit == "level" else f"{s.amount:+g}{'%' if s.unit == '%' else ''}"
+            words.append(" ".join(w for w in (s.symbol, "spot", amt, "beta" if s.beta else None) if w))
+        for v in self.vol:
+            amt = f"{v.amount:+g}{'%' if v.unit == '%' else ''}"
+            words.append(" ".join(w for w in (v.symbol, "vol", amt, "weighted" if v.weighted else None) if w))
+        if self.days:
+            words.append(f"days {self.days:g}")
+        if self.bdays:
+            words.append(f"bdays {self.bdays}")
+        if self.rate_bp:
+            words.append(f"rate {self.rate_bp:+g}bp")
+        return " ".join(words) or "no move"
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain-data form (JSON output): text, spot and vol parts, days, bdays, rate_bp, vol rule."""
+        return {
+            "text": self.text,
+            "spot": [{"underlying": s.symbol, "amount": s.amount, "unit": s.unit, "beta": s.beta}
+                     for s in self.spot],
+            "vol": [{"underlying": v.symbol, "amount": v.amount, "unit": v.unit, "weighted": v.weighted}
+                    for v in self.vol],
+            "days": self.days,
+            "bdays": self.bdays,
+            "rate_bp": self.rate_bp,
+            "vol_rule": STICKY_RULE,
+        }
+
+
+_NUMBER = re.compile(r"^(?P<sign>[+-])?(?P<num>\d+(?:\.\d*)?|\.\d+)(?P<unit>%|bp)?$", re.IGNORECASE)
+_LEVEL = re.compile(r"^=(?P<num>\d+(?:\.\d*)?|\.\d+)$")
+_SYMBOL = re.compile(r"^[A-Za-z][A-Za-z0-9._/-]*$")
+_KEYWORDS = ("spot", "vol", "days", "bdays", "rate")
+
+
+def _tokens(text: str) -> list[tuple[str, int, int]]:
+    return [(m.group(), m.start(), m.end()) for m in re.finditer(r"\S+", text)]
+
+
+def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
+    """Parse one move line (grammar in the module docstring).
+
+    With ``symbols`` (the book's underlyings) a named part must name one of them; a unique
+    case-insensitive match is accepted and spelled as the book spells it. Raises
+    ``MoveSyntaxError`` pointing at the first offending word.
+    """
+    toks = _tokens(text)
+    if not toks:
+        raise MoveSyntaxError("empty move: type e.g. spot -3% vol +2 days 1", 0, 0, text)
+
+    def fail(msg: str, k: int) -> MoveSyntaxError:
+        if k >= len(toks):
+            end = len(text.rstrip())
+            return MoveSyntaxError(msg, end, end + 1, text)
+        return MoveSyntaxError(msg, toks[k][1], toks[k][2], text)
+
+    spots: dict[str | None, SpotShift] = {}
+    vols: dict[str | None, VolShift] = {}
+    days: float | None = None
+    bdays: int | None = None
+    rate: float | None = None
+    k = 0
+    while k < len(toks):
+        word = toks[k][0]
+        low = word.lower()
+        symbol: str | None = None
+        if low not in _KEYWORDS:
+            nxt = toks[k + 1][0].lower() if k + 1 < len(toks) else ""
+            if nxt in ("spot", "vol") and _SYMBOL.match(word):
+                symbol = _resolve_symbol(word, symbols, fail, k)
+                k += 1
+                low = nxt
+            elif low in ("beta", "weighted"):
+                where = "a spot % move (spot -3% beta)" if low == "beta" else "a vol points move (vol +2 weighted)"
+                raise fail(f"'{word}' must follow {where}", k)
+            elif _NUMBER.match(word) or _LEVEL.match(word):
+                raise fail(f"'{word}' needs a part before it: spot, vol, days, bdays or rate", k)
+            elif nxt and (_NUMBER.match(nxt) or _LEVEL.match(nxt)):
+                raise fail(f"unknown part '{word}': expected spot, vol, days, bdays or rate", k)
+            else:
+                raise fail(f"unknown word '{word}': expected spot, vol, days, bdays, rate, "
+                           "or an underlying before spot or vol", k)
+        kw_at = k
+        k += 1
+        if k >= len(toks):
+            raise fail(f"'{toks[kw_at][0]}' needs an amount, e.g. {_example(low)}", k)
+        amount_word = toks[k][0]
+        if low == "spot":
+            if (symbol in spots):
+                raise fail(f"spot given twice for {symbol or 'every underlying'}", kw_at)
+            lvl = _LEVEL.match(amount_word)
+            if lvl:
+                if symbol is None:
+                    raise fail("a spot level (=4480) needs an underlying before 'spot'", k)
+                shift = SpotShift(symbol, float(lvl.group("num")), "level")
+                if shift.amount <= 0:
+                    raise fail("a spot level must be positive", k)
+                k += 1
+            else:
+                sign, num, unit = _amount(amount_word, fail, k, "spot", allow=("%", ""))
+                value = sign * num
+                if unit == "%" and value <= -100:
+                    raise fail("spot cannot fall 100% or more", k)
+                k += 1
+                beta = k < len(toks) and toks[k][0].lower() == "beta"
+                if beta:
+                    if unit != "%":
+                        raise fail("'beta' needs a % spot move (spot -3% beta)", k)
+                    if symbol is not None:
+                        raise fail("'beta' applies to a move of every spot; drop the underlying", k)
+                    k += 1
+                shift = SpotShift(symbol, value, "%" if unit == "%" else "abs", beta)
+            spots[symbol] = shift
+        elif low == "vol":
+            if symbol in vols:
+                raise fail(f"vol given twice for {symbol or 'every underlying'}", kw_at)
+            sign, num, unit = _amount(amount_word, fail, k, "vol", allow=("%", ""))
+            value = sign * num
+            if unit == "%" and value <= -100:
+                raise fail("vol cannot fall 100% or more", k)
+            k += 1
+            weighted = k < len(toks) and toks[k][0].lower() == "weighted"
+            if weighted:
+                if unit == "%":
+                    raise fail("'weighted' needs a vol move in points (vol +2 weighted)", k)
+                k += 1
+            vols[symbol] = VolShift(symbol, value, "%" if unit == "%" else "pts", weighted)
+        elif low in ("days", "bdays"):
+            if days is not None or bdays is not None:
+                raise fail("one day roll per move: give days or bdays once", kw_at)
+            m = _NUMBER.match(amount_word)
+            if not m or m.group("unit"):
+                raise fail(f"'{amount_word}' is not a number of days, e.g. {_example(low)}", k)
+            value = float(m.group("num")) * (-1.0 if m.group("sign") == "-" else 1.0)
+            if value < 0:
+                raise fail("days only move forward", k)
+            if low == "bdays":
+                if value != int(value):
+                    raise fail("bdays needs a whole number of business days", k)
+                bdays = int(value)
+            else:
+                if value > 3660:
+                    raise fail("days is limited to 3660 (ten years)", k)
+                days = value
+            k += 1
+        else:  # rate
+            if rate is not None:
+                raise fail("rate given twice", kw_at)
+            sign, num, unit = _amount(amount_word, fail, k, "rate", allow=("bp", "%"))
+            rate = sign * num * (100.0 if unit == "%" else 1.0)
+            k += 1
+    return Move(text=text, spot=tuple(spots.values()), vol=tuple(vols.values()),
+                days=days or 0.0, bdays=bdays or 0, rate_bp=rate or 0.0)
+
+
+def _example(keyword: str) -> str:
+    return {"spot": "spot -3%", "vol": "vol +2", "days": "days 3", "bdays": "bdays 1",
+            "rate": "rate +25bp"}[keyword]
+
+
+def _amount(word: str, fail: Any, k: int, part: str, allow: tuple[str, ...]) -> tuple[float, float, str]:
+    """(sign, magnitude, unit) of a signed amount such as ``-3%``, ``+2.5`` or ``+25bp``."""
+    m = _NUMBER.match(word)
+    if not m:
+        raise fail(f"'{word}' is not an amount for {part}, e.g. {_example(part)}", k)
+    unit = (m.group("unit") or "").lower()
+    if not m.group("sign"):
+        raise fail(f"give a sign: {part} +{word} or {part} -{word}", k)
+    if unit not in allow:
+        if part == "rate":
+            raise fail(f"give rate moves in bp or %: rate {m.group('sign')}{m.group('num')}bp", k)
+        raise fail(f"'{unit}' is not a unit for {part}: use {m.group('sign')}{m.group('num')}% "
+                   f"or {m.group('sign')}{m.group('num')}", k)
+    return (-1.0 if m.group("sign") == "-" else 1.0), float(m.group("num")), unit
+
+
+def _resolve_symbol(word: str, symbols: Sequence[str] | None, fail: Any, k: int) -> str:
+    if symbols is None or word in symbols:
+        return word
+    matches = [s for s in symbols if s.lower() == word.lower()]
+    if len(matches) == 1:
+        return matches[0]
+    known = ", ".join(symbols) if len(symbols) <= 8 else ", ".join(symbols[:8]) + ", ..."
+    raise fail(f"unknown underlying '{word}' (the book has {known})", k)
+
+
+# ---------------------------------------------------------------------------------------------
+# Applying a move
+
+
+@dataclass(frozen=True)
+class MoveRow:
+    """Full revaluation change against the Taylor estimate for a group of positions (currency).
+
+    ``error_n = full − estimate_n``; ``error_n_pct`` is that as % of |full| (NaN when full is 0).
+    ``n_through_expiry`` counts positions that expire inside the roll, whose estimate means
+    nothing; ``terms`` holds the estimate term by term (``TERM_NAMES``).
+    """
+
+    label: str
+    full: float
+    estimate_1: float
+    estimate_2: float
+    error_1: float
+    error_2: float
+    error_1_pct: float
+    error_2_pct: float
+    terms: dict[str, float]
+    n_through_expiry: int = 0
+    underlying: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON form: full, estimate_1, estimate_2, error_1, error_2, the % errors, terms."""
+        out: dict[str, Any] = {
+            "full": self.full, "estimate_1": self.estimate_1, "estimate_2": self.estimate_2,
+            "error_1": self.error_1, "error_2": self.error_2,
+            "error_1_pct": self.error_1_pct, "error_2_pct": self.error_2_pct,
+            "terms": dict(self.terms), "through_expiry": self.n_through_expiry,
+        }
+        if self.underlying is not None:
+            out = {"underlying": self.underlying, **out}
+        return out
+
+
+@dataclass(frozen=True)
+class ExpiringPosition:
+    """An option that expires inside the move's day roll and settles at intrinsic on the moved spot.
+
+    ``intrinsic`` per unit of underlying; ``settlement`` = intrinsic × quantity × multiplier;
+    ``distance_pct`` = (moved spot / strike − 1) × 100; ``pin_risk`` when |distance| ≤ PIN_BAND_PCT;
+    ``delivered_units`` the underlying units delivered on exercise or assignment of a physically
+    settled in-the-money option (signed, + = received), 0 when cash-settled or out of the money.
+    """
+
+    label: str
+    index: int
+    underlying: str
+    is_call: bool
+    strike: float
+    spot_after: float
+    quantity: float
+    multiplier: float
+    intrinsic: float
+    settlement: float
+    distance_pct: float
+    in_the_money: bool
+    pin_risk: bool
+    cash_settled: bool
+    delivered_units: float
+    full: float
+    estimate_2: float
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON form of every field."""
+        return dict(self.__dict__)
+
+
+@dataclass(frozen=True, eq=False)
+class MoveResult:
+    """A move applied to a base valuation: rows per underlying and in total, per-position arrays.
+
+    Arrays (n,): ``full`` change, ``estimate_1``/``estimate_2``, ``terms`` by name, moved inputs
+    ``spot_after``/``vol_after``/``rate_after``/``years_after``; ``through_expiry`` marks options
+    expiring inside the roll (settled at intrinsic, estimate flagged).
+    """
+
+    move: Move
+    valuation: BookValuation
+    time_after: np.datetime64
+    roll_years: float
+    total: MoveRow
+    by_underlying: list[MoveRow]
+    expiring: list[ExpiringPosition]
+    full: np.ndarray
+    estimate_1: np.ndarray
+    estimate_2: np.ndarray
+    terms: dict[str, np.ndarray]
+    spot_after: np.ndarray
+    vol_after: np.ndarray
+    rate_after: np.ndarray
+    years_after: np.ndarray
+    through_expiry: np.ndarray
+    notes: tuple[str, ...] = field(default=())
+
+    def position_rows(self) -> list[MoveRow]:
+        """One ``MoveRow`` per position (book order)."""
+        labels = self.valuation.book.labels
+        return [_row(labels[i], float(self.full[i]), {k: float(v[i]) for k, v in self.terms.items()},
+                     int(self.through_expiry[i]))
+                for i in range(len(labels))]
+
+
+class MoveError(ValueError):
+    """A well-formed move that cannot apply to this book (unknown symbol, non-positive spot)."""
+
+
+def _pct(err: float, full: float) -> float:
+    return 100.0 * err / abs(full) if full != 0.0 else float("nan")
+
+
+def _row(label: str, full: float, terms: dict[str, float], n_through: int = 0,
+         underlying: str | None = None) -> MoveRow:
+    e1 = float(sum(terms[t] for t in FIRST_ORDER))
+    e2 = float(sum(terms[t] for t in TERM_NAMES))
+    return MoveRow(label=label, full=full, estimate_1=e1, estimate_2=e2, error_1=full - e1,
+                   error_2=full - e2, error_1_pct=_pct(full - e1, full), error_2_pct=_pct(full - e2, full),
+                   terms=terms, n_through_expiry=n_through, underlying=underlying)
+
+
+@dataclass(frozen=True, eq=False)
+class _Prep:
+    """Everything of a base valuation that no move changes, kept for the hot paths."""
+
+    live_idx: np.ndarray        # int64 (m,) option rows with years > 0
+    is_call: np.ndarray         # per live row
+    strike: np.ndarray
+    years: np.ndarray
+    american: np.ndarray
+    any_american: bool
+    base_price: np.ndarray      # engine.price at the base inputs, per unit (m,)
+    dead_idx: np.ndarray        # option rows already past expiry
+    hedge_idx: np.ndarray
+    units: np.ndarray           # (n,)
+    delta_u: np.ndarray         # raw greeks × units (n,)
+    gamma_u: np.ndarray
+    vega_u: np.ndarray
+    volga_u: np.ndarray
+    vanna_u: np.ndarray
+    theta_u: np.ndarray
+    rho_u: np.ndarray
+    carry_moves: np.ndarray     # float (m,): 1 where carry moves with the rate
+    uidx: np.ndarray
+    n_u: int
+    calendar: str
+
+
+_PREP: weakref.WeakKeyDictionary[BookValuation, _Prep] = weakref.WeakKeyDictionary()
+
+
+def desk_calendar(valuation: BookValuation) -> str:
+    """Holiday calendar of the day roll: the reference index's, else the most common in the book."""
+    book = valuation.book
+    und = book.underlyings
+    ref = book.reference_index
+    if ref is not None and ref in und.symbols:
+        return und.calendars[und.index_of(ref)] or cal.DEFAULT_CALENDAR
+    if len(book) == 0:
+        return cal.DEFAULT_CALENDAR
+    counts = np.bincount(book.underlying_idx, minlength=len(und))
+    return und.calendars[int(np.argmax(counts))] or cal.DEFAULT_CALENDAR
+
+
+def prepare(valuation: BookValuation) -> _Prep:
+    """The move-independent arrays of ``valuation`` (computed once, cached per valuation)."""
+    prep = _PREP.get(valuation)
+    if prep is not None:
+        return prep
+    v, book, g = valuation, valuation.book, valuation.greeks
+    live_idx = np.flatnonzero(v.live)
+    units = v.units
+    am = book.american[live_idx]
+    if live_idx.size:
+        base = np.asarray(engine.price(book.is_call[live_idx], v.spot[live_idx], book.strikes[live_idx],
+                                       v.years[live_idx], v.rate[live_idx], v.carry[live_idx],
+                                       v.vol[live_idx], american=am if am.any() else False), dtype=np.float64)
+    else:
+        base = np.zeros(0)
+    prep = _Prep(
+        live_idx=live_idx, is_call=book.is_call[live_idx], strike=book.strikes[live_idx],
+        years=v.years[live_idx], american=am, any_american=bool(am.any()), base_price=base,
+        dead_idx=np.flatnonzero(book.is_option & ~v.live), hedge_idx=np.flatnonzero(~book.is_option),
+        units=units, delta_u=g.delta * units, gamma_u=g.gamma * units, vega_u=g.vega * units,
+        volga_u=g.volga * units, vanna_u=g.vanna * units, theta_u=g.theta * units,
+        rho_u=v.rho_unit * units, carry_moves=v.rate_moves_carry[live_idx].astype(np.float64),
+        uidx=book.underlying_idx, n_u=len(book.underlyings), calendar=desk_calendar(valuation),
+    )
+    _PREP[valuation] = prep
+    return prep
+
+
+def roll_time(valuation: BookValuation, move: Move) -> np.datetime64:
+    """The valuation instant after the move's day roll (calendar days or business days)."""
+    t = valuation.valuation_time
+    if move.bdays:
+        return cal.roll_business_days(t, move.bdays, desk_calendar(valuation))
+    if move.days:
+        return cal.roll_calendar_days(t, move.days)
+    return t
+
+
+def _spot_moves(valuation: BookValuation, move: Move) -> np.ndarray:
+    """New spot per underlying (n_u,) after the move's spot parts."""
+    und = valuation.book.underlyings
+    s0 = valuation.underlying_spots
+    s1 = s0.copy()
+    general = next((s for s in move.spot if s.symbol is None), None)
+    if general is not None:
+        if general.unit == "%":
+            pct = general.amount * (und.betas if general.beta else 1.0)
+            s1 = s0 * (1.0 + pct / 100.0)
+        else:
+            s1 = s0 + general.amount
+    for s in move.spot:
+        if s.symbol is None:
+            continue
+        try:
+            i = und.index_of(s.symbol)
+        except KeyError:
+            raise MoveError(f"unknown underlying {s.symbol!r}") from None
+        s1[i] = s0[i] * (1.0 + s.amount / 100.0) if s.unit == "%" else (
+            s0[i] + s.amount if s.unit == "abs" else s.amount)
+    used = np.zeros(len(und), dtype=bool)
+    used[valuation.book.underlying_idx] = True
+    bad = used & ~(s1 > 0)
+    if bad.any():
+        names = ", ".join(und.symbols[i] for i in np.flatnonzero(bad))
+        raise MoveError(f"the move leaves a spot at or below zero for {names}")
+    return s1
+
+
+def _vol_moves(valuation: BookValuation, move: Move, rows: np.ndarray) -> np.ndarray:
+    """Vol change (decimal) of the option rows ``rows`` (m,) after the move's vol parts."""
+    if not move.vol:
+        return np.zeros(rows.size)
+    und = valuation.book.underlyings
+    uidx = valuation.book.underlying_idx[rows]
+    vol = valuation.vol[rows]
+    weight = valuation.vega_weight[rows]
+    out = np.zeros(rows.size)
+    done = np.zeros(rows.size, dtype=bool)
+    ordered = sorted(move.vol, key=lambda p: p.symbol is None)   # named parts first
+    for part in ordered:
+        if part.symbol is None:
+            mask = ~done
+        else:
+            try:
+                mask = uidx == und.index_of(part.symbol)
+            except KeyError:
+                raise MoveError(f"unknown underlying {part.symbol!r}") from None
+            mask &= ~done
+        if part.unit == "%":
+            out = np.where(mask, vol * (part.amount / 100.0), out)
+        else:
+            w = weight if part.weighted else 1.0
+            out = np.where(mask, part.amount / 100.0 * w, out)
+        done |= mask
+    return np.maximum(vol + out, VOL_FLOOR) - vol
+
+
+def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
+    """Revalue the book under ``move`` and set the Taylor estimate beside the full change.
+
+    Full revaluation: every live option is repriced with ``engine.price`` on the moved spot, vol
+    (sticky strike), rate and time; an option that expires inside the roll is worth its intrinsic
+    value on the moved spot; a hedge changes by units × Δspot. The estimate uses the base greeks:
+    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt (the roll's year fraction), ρ·dr.
+    MoveError when the move cannot apply (unknown symbol, spot at or below zero).
+    """
+    v = valuation
+    p = prepare(v)
+    n = len(v)
+    t1 = roll_time(v, move)
+    dt = float(cal.year_fraction(v.valuation_time, t1))
+    s1_u = _spot_moves(v, move)
+    ds_u = s1_u - v.underlying_spots
+    ds = ds_u[p.uidx]
+    spot_after = v.spot + ds
+    dr = move.rate_bp * 1e-4
+
+    li = p.live_idx
+    dvol_live = _vol_moves(v, move, li)
+    vol_after = v.vol.copy()
+    vol_after[li] = v.vol[li] + dvol_live
+    dvol = np.zeros(n)
+    dvol[li] = dvol_live
+    years_live = p.years - dt
+    alive = years_live > 0
+    s_live = spot_after[li]
+
+    new_price = np.empty(li.size)
+    if alive.all():
+        new_price[:] = engine.price(p.is_call, s_live, p.strike, years_live, v.rate[li] + dr,
+                                    v.carry[li] + dr * p.carry_moves, v.vol[li] + dvol_live,
+                                    american=p.american if p.any_american else False)
+    else:
+        a = np.flatnonzero(alive)
+        if a.size:
+            new_price[a] = engine.price(p.is_call[a], s_live[a], p.strike[a], years_live[a],
+                                        v.rate[li][a] + dr, v.carry[li][a] + dr * p.carry_moves[a],
+                                        (v.vol[li] + dvol_live)[a],
+                                        american=p.american[a] if p.american[a].any() else False)
+        e = np.flatnonzero(~alive)
+        sign = np.where(p.is_call[e], 1.0, -1.0)
+        new_price[e] = np.maximum(sign * (s_live[e] - p.strike[e]), 0.0)
+
+    full = ds * p.units                                   # hedges: units × dS
+    full[li] = (new_price - p.base_price) * p.units[li]
+    if p.dead_idx.size:
+        d = p.dead_idx
+        sign = np.where(v.book.is_call[d], 1.0, -1.0)
+        k = v.book.strikes[d]
+        full[d] = (np.maximum(sign * (spot_after[d] - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)) * p.units[d]
+
+    terms = {
+        "delta": p.delta_u * ds,
+        "gamma": 0.5 * p.gamma_u * ds * ds,
+        "vega": p.vega_u * dvol,
+        "volga": 0.5 * p.volga_u * dvol * dvol,
+        "vanna": p.vanna_u * ds * dvol,
+        "theta": p.theta_u * dt,
+        "rho": p.rho_u * dr,
+    }
+    est1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
+    est2 = est1 + terms["gamma"] + terms["volga"] + terms["vanna"]
+    through = np.zeros(n, dtype=bool)
+    through[li] = ~alive
+
+    # Per underlying: one bincount over (field, underlying) codes of the stacked arrays.
+    stack = np.stack([full, *(terms[t] for t in TERM_NAMES), through.astype(np.float64)])
+    n_f = stack.shape[0]
+    codes = (np.arange(n_f)[:, None] * p.n_u + p.uidx[None, :]).ravel()
+    sums = np.bincount(codes, weights=stack.ravel(), minlength=n_f * p.n_u).reshape(n_f, p.n_u)
+    present = np.bincount(p.uidx, minlength=p.n_u) > 0
+    symbols = v.book.underlyings.symbols
+    by_u = [
+        _row(symbols[j], float(sums[0, j]), {t: float(sums[1 + m, j]) for m, t in enumerate(TERM_NAMES)},
+             int(round(sums[-1, j])), underlying=symbols[j])
+        for j in np.flatnonzero(present)
+    ]
+    tot = sums.sum(axis=1)
+    total_row = _row("total", float(tot[0]), {t: float(tot[1 + m]) for m, t in enumerate(TERM_NAMES)},
+                     int(round(tot[-1])))
+
+    expiring = _expiring(v, p, np.flatnonzero(through), spot_after, full, est2)
+    notes: list[str] = []
+    if expiring:
+        notes.append(f"{len(expiring)} option position(s) expire inside the roll: settled at intrinsic,"
+                     " their estimate is not meaningful")
+    clipped = int(np.count_nonzero(vol_after[li] <= VOL_FLOOR))
+    if clipped:
+        notes.append(f"{clipped} vol(s) floored at {VOL_FLOOR * 100:g} vol points")
+    rate_after = v.rate + dr
+    years_after = v.years - dt
+    return MoveResult(
+        move=move, valuation=v, time_after=t1, roll_years=dt, total=total_row, by_underlying=by_u,
+        expiring=expiring, full=full, estimate_1=est1, estimate_2=est2, terms=terms,
+        spot_after=spot_after, vol_after=vol_after, rate_after=rate_after, years_after=years_after,
+        through_expiry=through, notes=tuple(notes),
+    )
+
+
+def _expiring(v: BookValuation, p: _Prep, rows: np.ndarray, spot_after: np.ndarray,
+              full: np.ndarray, est2: np.ndarray) -> list[ExpiringPosition]:
+    book = v.book
+    out = []
+    for i in rows:
+        i = int(i)
+        call = bool(book.is_call[i])
+        k = float(book.strikes[i])
+        s = float(spot_after[i])
+        intrinsic = max((s - k) if call else (k - s), 0.0)
+        units = float(p.units[i])
+        dist = (s / k - 1.0) * 100.0
+        itm = intrinsic > 0
+        cash = bool(book.cash_settled[i])
+        delivered = 0.0 if (cash or not itm) else (units if call else -units)
+        out.append(ExpiringPosition(
+            label=book.labels[i], index=i, underlying=book.underlyings.symbols[book.underlying_idx[i]],
+            is_call=call, strike=k, spot_after=s, quantity=float(book.quantities[i]),
+            multiplier=float(book.multipliers[i]), intrinsic=intrinsic, settlement=intrinsic * units,
+            distance_pct=dist, in_the_money=itm, pin_risk=abs(dist) <= PIN_BAND_PCT, cash_settled=cash,
+            delivered_units=delivered, full=float(full[i]), estimate_2=float(est2[i]),
+        ))
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Ladder
+
+
+@dataclass(frozen=True, eq=False)
+class Ladder:
+    """Spot × vol grid of the book's P&L (currency), full revaluation against the estimate.
+
+    ``full``, ``estimate`` (second order), ``estimate_1`` and ``error`` = full − estimate have shape
+    (n_spot, n_vol); row i is ``spot_pcts[i]`` (% of every spot), column j ``vol_pts[j]`` (vol
+    points, parallel). ``worst`` is the (i, j) of the lowest full P&L. Vols are sticky strike.
+    """
+
+    spot_pcts: np.ndarray
+    vol_pts: np.ndarray
+    days: float
+    full: np.ndarray
+    estimate: np.ndarray
+    estimate_1: np.ndarray
+    error: np.ndarray
+    worst: tuple[int, int]
+    time_after: np.datetime64
+    n_through_expiry: int
+    rule: str = STICKY_RULE
+
+
+def ladder(valuation: BookValuation, spot_pcts: Sequence[float] = DEFAULT_SPOT_PCTS,
+           vol_pts: Sequence[float] = DEFAULT_VOL_PTS, days: float = 0.0,
+           chunk: int | None = None) -> Ladder:
+    """Full revaluation P&L of every (spot %, vol pts) cell in one broadcast pass, chunked.
+
+    Each cell moves every spot by the same % and every vol by the same points (sticky strike),
+    after ``days`` calendar days; options expiring inside the roll settle at intrinsic. ``chunk``
+    bounds positions per engine call (default: ``LADDER_CHUNK_CELLS`` / cells). The estimate is
+    the second-order Taylor sum from the base greeks (first order beside it).
+    """
+    sp = np.asarray(spot_pcts, dtype=np.float64).ravel()
+    vp = np.asarray(vol_pts, dtype=np.float64).ravel()
+    if sp.size == 0 or vp.size == 0:
+        raise ValueError("a ladder needs at least one spot move and one vol move")
+    if np.any(sp <= -100):
+        raise ValueError("a spot move must be above -100%")
+    if days < 0:
+        raise ValueError("days only move forward")
+    v = valuation
+    p = prepare(v)
+    t1 = cal.roll_calendar_days(v.valuation_time, days) if days else v.valuation_time
+    dt = float(cal.year_fraction(v.valuation_time, t1))
+    n_s, n_v = sp.size, vp.size
+    n_cells = n_s * n_v
+    rel = sp / 100.0
+    dvol = vp / 100.0
+
+    # Hedges and options already past expiry: exact, vol-free, per spot row.
+    full = np.zeros((n_s, n_v))
+    h = p.hedge_idx
+    if h.size:
+        full += (rel * float(np.dot(p.units[h], v.spot[h])))[:, None]
+    if p.dead_idx.size:
+        d = p.dead_idx
+        sign = np.where(v.book.is_call[d], 1.0, -1.0)
+        k = v.book.strikes[d]
+        s = v.spot[d]
+        intr0 = np.maximum(sign * (s - k), 0.0)
+        intr1 = np.maximum(sign[None, :] * (s[None, :] * (1 + rel[:, None]) - k[None, :]), 0.0)
+        full += ((intr1 - intr0[None, :]) @ p.units[d])[:, None]
+
+    li = p.live_idx
+    m = li.size
+    step = chunk or max(256, LADDER_CHUNK_CELLS // n_cells)
+    years1 = p.years - dt
+    n_through = int(np.count_nonzero(years1 <= 0))
+    spot_l, rate_l, carry_l, vol_l, units_l = v.spot[li], v.rate[li], v.carry[li], v.vol[li], p.units[li]
+    shock_s = (1.0 + rel)[:, None, None]
+    shock_v = dvol[None, :, None]
+    for a in range(0, m, step):
+        b = min(a + step, m)
+        sl = slice(a, b)
+        t_c = years1[sl]
+        u_c = units_l[sl]
+        alive = t_c > 0
+        if not alive.all():
+            e = np.flatnonzero(~alive)
+            sign = np.where(p.is_call[sl][e], 1.0, -1.0)
+            k = p.strike[sl][e]
+            s1 = spot_l[sl][e][None, :] * (1.0 + rel[:, None])
+            intr = np.maximum(sign[None, :] * (s1 - k[None, :]), 0.0)
+            full += ((intr - p.base_price[sl][e][None, :]) @ u_c[e])[:, None]
+            keep = np.flatnonzero(alive)
+        else:
+            keep = slice(None)
+        am = p.american[sl][keep]
+        prices = engine.price(
+            p.is_call[sl][keep][None, None, :], spot_l[sl][keep][None, None, :] * shock_s,
+            p.strike[sl][keep][None, None, :], t_c[keep][None, None, :],
+            rate_l[sl][keep][None, None, :], carry_l[sl][keep][None, None, :],
+            np.maximum(vol_l[sl][keep][None, None, :] + shock_v, VOL_FLOOR),
+            american=am[None, None, :] if am.any() else False,
+        )
+        cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
+        full += ((cells @ u_c[keep]) - float(np.dot(p.base_price[sl][keep], u_c[keep]))).reshape(n_s, n_v)
+
+    # Estimate from summed greeks: the moves are the same for every position in a cell.
+    s_all = v.spot
+    d1 = float(np.dot(p.delta_u, s_all))
+    g2 = float(np.dot(p.gamma_u, s_all * s_all))
+    vg = float(p.vega_u.sum())
+    vo = float(p.volga_u.sum())
+    va = float(np.dot(p.vanna_u, s_all))
+    th = float(p.theta_u.sum())
+    r_, dv_ = rel[:, None], dvol[None, :]
+    est1 = np.broadcast_to(r_ * d1 + dv_ * vg + th * dt, (n_s, n_v)).copy()
+    est2 = est1 + 0.5 * g2 * r_ * r_ + 0.5 * vo * dv_ * dv_ + va * r_ * dv_
+    worst = np.unravel_index(int(np.argmin(full)), full.shape)
+    return Ladder(spot_pcts=sp, vol_pts=vp, days=float(days), full=full, estimate=est2,
+                  estimate_1=est1, error=full - est2, worst=(int(worst[0]), int(worst[1])),
+                  time_after=t1, n_through_expiry=n_through)
+
+
+# ---------------------------------------------------------------------------------------------
+# P&L explain
+
+
+@dataclass(frozen=True)
+class ExplainRow:
+    """P&L of the positions held over the period (currency) against the start's greeks.
+
+    ``actual`` = value at the end − value at the start of the positions held at the start;
+    ``terms`` by ``TERM_NAMES``; ``explained`` their sum; ``unexplained`` = actual − explained;
+    ``new_trades`` the P&L of trades done in the period (end value − trade price), shown apart;
+    ``total`` = actual + new_trades.
+    """
+
+    label: str
+    actual: float
+    terms: dict[str, float]
+    explained: float
+    unexplained: float
+    new_trades: float
+    total: float
+    underlying: str | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON form."""
+        out: dict[str, Any] = {"actual": self.actual, "terms": dict(self.terms),
+                               "explained": self.explained, "unexplained": self.unexplained,
+                               "new_trades": self.new_trades, "total": self.total}
+        if self.underlying is not None:
+            out = {"underlying": self.underlying, **out}
+        return out
+
+
+@dataclass(frozen=True, eq=False)
+class Explain:
+    """P&L explain between two mark sets: rows per underlying and the total."""
+
+    from_set: Any
+    to_set: Any
+    from_time: np.datetime64
+    to_time: np.datetime64
+    by_underlying: list[ExplainRow]
+    total: ExplainRow
+    start: BookValuation
+    end: BookValuation
+    notes: tuple[str, ...] = ()
+
+
+def _pick_sets(store: Any, from_set: int | None, to_set: int | str | None) -> tuple[Any, Any]:
+    closes = sorted(store.mark_sets(kind="close"), key=lambda s: (s.marked_at, s.id))
+    everything = {s.id: s for s in store.mark_sets()}
+    if to_set is None:
+        if from_set is None:
+            if len(closes) < 2:
+                raise ValueError("explain needs two close mark sets; the book has "
+                                 f"{len(closes)} (give --from and --to)")
+            return closes[-2], closes[-1]
+        to: Any = "now"
+    elif isinstance(to_set, str) and to_set.lower() in ("now", "live", "latest"):
+        to = "now"
+    else:
+        try:
+            to = everything[int(to_set)]
+        except (KeyError, ValueError):
+            raise ValueError(f"no mark set {to_set!r}") from None
+    if from_set is None:
+        before = [s for s in closes if to == "now" or (s.marked_at, s.id) < (to.marked_at, to.id)]
+        if not before:
+            raise ValueError("no close mark set before the end set (give --from)")
+        frm = before[-1]
+    else:
+        try:
+            frm = everything[int(from_set)]
+        except (KeyError, ValueError):
+            raise ValueError(f"no mark set {from_set!r}") from None
+    return frm, to
+
+
+def _instant(x: Any) -> np.datetime64:
+    return cal.to_instant(x) if not isinstance(x, np.datetime64) else np.datetime64(x, "s")
+
+
+def explain(store: Any, from_set: int | None = None, to_set: int | str | None = None) -> Explain:
+    """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
+    marks in force now) with the start's greeks, new trades' P&L split out.
+
+    Positions held at the start are valued at the start marks and time and at the end marks and
+    time; the change is explained by Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
+    ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets.
+    """
+    frm, to = _pick_sets(store, from_set, to_set)
+    t0 = _instant(frm.marked_at)
+    if to == "now":
+        m1 = store.load_market()
+        t1 = max(cal.now(), _instant(m1.marks_as_of))
+    else:
+        m1 = store.load_market(to.id)
+        t1 = _instant(to.marked_at)
+    if t1 < t0:
+        raise ValueError("the end mark set is older than the start set")
+    m0 = store.load_market(frm.id)
+    held = store.load_book(as_of=cal.to_datetime(t0))
+    start = value_book(held, m0, t0)
+    end = value_book(held, m1, t1)
+    dt = float(cal.year_fraction(t0, t1))
+    ds = end.spot - start.spot
+    opt = held.is_option & start.live
+    dvol = np.where(opt, np.nan_to_num(end.vol - start.vol), 0.0)
+    drate = np.where(opt, np.nan_to_num(end.rate - start.rate), 0.0)
+    g, u = start.greeks, start.units
+    terms = {
+        "delta": g.delta * u * ds,
+        "gamma": 0.5 * g.gamma * u * ds * ds,
+        "vega": g.vega * u * dvol,
+        "volga": 0.5 * g.volga * u * dvol * dvol,
+        "vanna": g.vanna * u * ds * dvol,
+        "theta": g.theta * u * dt,
+        "rho": start.rho_unit * u * drate,
+    }
+    # Hedges (stock and futures) change by units × Δprice; a futures hedge's value is zero.
+    actual = np.where(held.is_option, end.value - start.value, u * ds)
+
+    n_u = len(held.underlyings)
+    sym = held.underlyings.symbols
+    new_pnl_u = np.zeros(n_u)
+    notes: list[str] = []
+    trades, trade_prices = store.new_trades(cal.to_datetime(t0), cal.to_datetime(t1))
+    if len(trades):
+        tv = value_book(trades, m1, t1)
+        tp = np.asarray(trade_prices, dtype=np.float64)
+        pnl = np.where(tv.settles_daily, (tv.spot - tp) * tv.units, tv.value - tp * tv.units)
+        for j, s in enumerate(trades.underlyings.symbols):
+            rows = trades.underlying_idx == j
+            if not rows.any():
+                continue
+            if s in sym:
+                new_pnl_u[sym.index(s)] += float(pnl[rows].sum())
+            else:
+                notes.append(f"new trades in {s} (not held at the start): {float(pnl[rows].sum()):.2f}")
+                new_pnl_u = np.append(new_pnl_u, float(pnl[rows].sum()))
+                sym = sym + (s,)
+    expired = held.is_option & start.live & ~end.live
+    if expired.any():
+        notes.append(f"{int(expired.sum())} option position(s) expired in the period: valued at "
+                     "intrinsic at the end, their estimate is not meaningful")
+
+    rows: list[ExplainRow] = []
+    idx = held.underlying_idx
+    for j, s in enumerate(sym):
+        mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
+        if not mask.any() and new_pnl_u[j] == 0:
+            continue
+        rows.append(_explain_row(s, float(actual[mask].sum()),
+                                 {k: float(v[mask].sum()) for k, v in terms.items()}, float(new_pnl_u[j]), s))
+    tot = _explain_row("total", float(actual.sum()), {k: float(v.sum()) for k, v in terms.items()},
+                       float(new_pnl_u.sum()))
+    return Explain(from_set=frm, to_set=to, from_time=t0, to_time=t1, by_underlying=rows, total=tot,
+                   start=start, end=end, notes=tuple(notes))
+
+
+def _explain_row(label: str, actual: float, terms: dict[str, float], new: float,
+                 underlying: str | None = None) -> ExplainRow:
+    explained = float(sum(terms.values()))
+    return ExplainRow(label=label, actual=actual, terms=terms, explained=explained,
+                      unexplained=actual - explained, new_trades=new, total=actual + new,
+                      underlying=underlying)
