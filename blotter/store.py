@@ -1,0 +1,1768 @@
+"""The SQLite book: trades and marks in one file that loses nothing, read into ``Book`` and ``Market``.
+
+``schema.sql`` is the only definition of the database. Every connection runs with
+``isolation_level=None`` (no implicit transactions), a busy timeout, foreign keys on,
+``synchronous=FULL`` and ``trusted_schema=OFF``; every write goes through one helper that runs
+``BEGIN IMMEDIATE`` ... ``COMMIT`` and rolls back on any error, so no call leaves a transaction
+open. Read-only stores open the file by URI ``mode=ro`` with ``query_only`` on and ATTACH
+disabled. Each thread that uses a ``Store`` gets its own connection.
+
+Units: prices are per unit of underlying as quoted (a trade's cash is quantity x multiplier x
+price); vols, rates and dividend yields are decimals (0.25 = 25%); rates are continuously
+compounded zero rates by tenor in calendar days; instants are UTC.
+"""
+
+from __future__ import annotations
+
+import csv
+import getpass
+import hashlib
+import io
+import math
+import os
+import re
+import sqlite3
+import threading
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import date, datetime, time, timezone
+from importlib import resources
+from pathlib import Path
+from typing import Any
+from urllib.parse import quote
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+import numpy as np
+
+from blotter.book import UNDERLYING_KINDS, Book, Underlyings
+from blotter.market import Market, RateCurve, VolSurface
+
+APPLICATION_ID = 0x426C7472
+"""``PRAGMA application_id`` of a blotter book ("Bltr"), so a foreign SQLite file is recognised."""
+
+BUSY_TIMEOUT_MS = 5000
+"""How long a write waits for another writer before giving up with ``BusyError``, milliseconds."""
+
+DEFAULT_BOOK = "main"
+"""Book a trade goes to when none is named."""
+
+FILE_MODE = 0o660
+"""Permissions a new book is created with (before the umask): owner and group, never others."""
+
+MAX_PROBLEMS = 20
+"""How many problems an import lists at once."""
+
+PROGRESS_EVERY = 1000
+"""An import calls its ``progress`` callback after this many rows are written."""
+
+MARK_KINDS = ("spot", "vol", "rate", "div_yield")
+"""Kinds of mark point; see ``schema.sql`` for what each holds."""
+
+TRADE_COLUMNS = ("book", "symbol", "type", "expiry", "strike", "quantity", "price", "trade_time",
+                 "style", "multiplier", "settlement", "note")
+"""Columns of the trade CSV format, in the order ``trade list --csv`` prints them."""
+
+TRADE_INFO_COLUMNS = ("trade_id", "state", "who", "source", "booked_at", "contract")
+"""Columns ``trade list --csv`` adds after the import columns; an import ignores them, except that
+``state`` must be ``live``."""
+
+TRADE_REQUIRED = ("book", "symbol", "type", "quantity", "price", "trade_time")
+"""Trade CSV columns that must be present (the others may be left out)."""
+
+MARK_COLUMNS = ("kind", "symbol", "currency", "expiry", "strike", "tenor_days", "value")
+"""Columns of the mark CSV format, in the order ``mark list --csv`` prints them."""
+
+MARK_INFO_COLUMNS = ("mark_id", "mark_set_id", "set_kind", "marked_at", "who")
+"""Columns ``mark list --csv`` adds after the import columns; an import ignores them."""
+
+MARK_REQUIRED = ("kind", "value")
+"""Mark CSV columns that must be present."""
+
+_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+_TS_FORMAT = "%Y-%m-%dT%H:%M:%S.%fZ"
+_SECTION = re.compile(r"^-- @version (\d+)\b", re.MULTILINE)
+
+
+class StoreError(Exception):
+    """A problem the user can fix (bad input, missing or foreign file); nothing was written."""
+
+
+class ReadOnlyError(StoreError):
+    """A write was attempted on a book opened read-only."""
+
+    def __init__(self, message: str = "the book is open read-only: nothing can be written") -> None:
+        super().__init__(message)
+
+
+class BusyError(StoreError):
+    """Another process held the write lock longer than the busy timeout; nothing was written."""
+
+
+# --------------------------------------------------------------------------------------------
+# Records returned to callers (plain values; never cursors or row dicts)
+
+
+@dataclass(frozen=True)
+class MarkSetInfo:
+    """One mark set: ``marked_at`` is a UTC datetime; ``corrects`` the close set it corrects."""
+
+    id: int
+    kind: str                    # 'close' or 'intraday'
+    marked_at: datetime
+    who: str
+    note: str
+    corrects: int | None
+    source: str = ""
+    marks: int = 0               # number of mark points in the set
+    superseded_by: int | None = None   # the close set that corrects this one, if any
+
+
+@dataclass(frozen=True)
+class TradeRecord:
+    """One trade row with its contract and state. Price per unit of underlying; times UTC."""
+
+    trade_id: int
+    book: str
+    contract_id: int
+    contract: str                # label, e.g. "DEMOA 2027-03-19 105 C"
+    symbol: str
+    option_type: str             # 'C', 'P' or 'U' (the underlying itself)
+    expiry: date | None
+    strike: float | None
+    american: bool
+    multiplier: float
+    cash_settled: bool
+    quantity: int
+    price: float
+    trade_time: datetime
+    booked_at: datetime
+    who: str
+    source: str
+    note: str
+    state: str                   # 'live', 'cancelled' or 'amended'
+    replaces: int | None = None
+    replaced_by: int | None = None
+    cancel_reason: str | None = None
+    cancelled_at: datetime | None = None
+    cancelled_by: str | None = None
+
+
+@dataclass(frozen=True)
+class ContractRecord:
+    """One contract: ``option_type`` 'C', 'P' or 'U'; ``cutoff_utc`` the expiry instant (None for 'U')."""
+
+    contract_id: int
+    symbol: str
+    option_type: str
+    expiry: date | None
+    strike: float | None
+    cutoff_time: str | None      # local exchange time 'HH:MM'
+    american: bool
+    multiplier: float
+    cash_settled: bool
+    label: str
+    cutoff_utc: datetime | None
+
+
+@dataclass(frozen=True)
+class MarkRecord:
+    """One mark point as stored; ``value`` is a price for spot, else a decimal."""
+
+    mark_id: int
+    mark_set_id: int
+    set_kind: str
+    marked_at: datetime
+    who: str
+    kind: str
+    symbol: str | None
+    currency: str | None
+    expiry: date | None
+    strike: float | None
+    tenor_days: int | None
+    value: float
+
+
+@dataclass(frozen=True)
+class ImportReport:
+    """What an import wrote: ``first_id``..``last_id`` are trade ids, or the mark set id twice."""
+
+    path: Path
+    kind: str                    # 'trades' or 'marks'
+    rows: int
+    import_id: int
+    first_id: int
+    last_id: int
+
+
+@dataclass(frozen=True)
+class _Problem:
+    line: int
+    column: str
+    message: str
+
+    def __str__(self) -> str:
+        where = f"line {self.line}" + (f", column {self.column!r}" if self.column else "")
+        return f"{where}: {self.message}"
+
+
+class CsvImportError(StoreError):
+    """An import refused: ``problems`` lists (line, column, message) for up to ``MAX_PROBLEMS``."""
+
+    def __init__(self, path: Path, problems: Sequence[_Problem], total: int) -> None:
+        self.path = path
+        self.problems = list(problems)
+        self.total = total
+        lines = [f"{path.name}: nothing imported; {total} problem{'s' if total != 1 else ''}:"]
+        lines += [f"  {p}" for p in self.problems]
+        if total > len(self.problems):
+            lines.append(f"  ... and {total - len(self.problems)} more")
+        super().__init__("\n".join(lines))
+
+
+# --------------------------------------------------------------------------------------------
+# Schema sections and connections
+
+
+def schema_path() -> Path:
+    """``schema.sql``: inside the installed package, else at the top of a source checkout."""
+    packaged = resources.files("blotter") / "schema.sql"
+    if packaged.is_file():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parent.parent / "schema.sql"
+
+
+def schema_sections(text: str | None = None) -> dict[int, list[str]]:
+    """The statements of each ``-- @version N`` section of ``schema.sql``, by version."""
+    if text is None:
+        text = schema_path().read_text(encoding="utf-8")
+    marks = list(_SECTION.finditer(text))
+    out: dict[int, list[str]] = {}
+    for i, m in enumerate(marks):
+        end = marks[i + 1].start() if i + 1 < len(marks) else len(text)
+        out[int(m.group(1))] = _split_statements(text[m.end():end])
+    if not out:
+        raise StoreError(f"{schema_path()} has no '-- @version N' sections")
+    return out
+
+
+def _split_statements(sql: str) -> list[str]:
+    """SQL text split into complete statements (trigger bodies kept whole), comments dropped."""
+    statements: list[str] = []
+    buf: list[str] = []
+    for line in sql.splitlines():
+        stripped = line.strip()
+        if not buf and (not stripped or stripped.startswith("--")):
+            continue
+        buf.append(line)
+        joined = "\n".join(buf)
+        if sqlite3.complete_statement(joined):
+            statements.append(joined.strip())
+            buf = []
+    if "\n".join(buf).strip():
+        raise StoreError("schema.sql ends inside a statement")
+    return statements
+
+
+SCHEMA_VERSION = max(schema_sections())
+"""The schema version this code writes (the last section of ``schema.sql``)."""
+
+
+def _uri(path: Path, mode: str) -> str:
+    return f"file:{quote(str(path.absolute()))}?mode={mode}"
+
+
+def _connect(path: Path, read_only: bool, mode: str | None = None) -> sqlite3.Connection:
+    """A configured connection (see the module docstring); ``mode`` overrides the URI mode."""
+    uri = _uri(path, mode or ("ro" if read_only else "rw"))
+    conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None,
+                           check_same_thread=False)
+    try:
+        conn.setlimit(sqlite3.SQLITE_LIMIT_ATTACHED, 0)
+        conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS:d}")
+        conn.execute("PRAGMA foreign_keys = ON")
+        conn.execute("PRAGMA trusted_schema = OFF")
+        conn.execute("PRAGMA mmap_size = 0")
+        if read_only:
+            conn.execute("PRAGMA query_only = ON")
+        else:
+            conn.execute("PRAGMA synchronous = FULL")
+    except BaseException:
+        conn.close()
+        raise
+    return conn
+
+
+def _map_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
+    """A ``StoreError`` saying in plain words what an ``sqlite3`` error means for the user."""
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    text = str(exc)
+    where = f"{path}: " if path else ""
+    if name.startswith("SQLITE_BUSY") or "database is locked" in text:
+        return BusyError(f"{where}the book is busy (another process is writing to it); "
+                         "nothing was written, try again")
+    if name.startswith("SQLITE_READONLY") or "readonly database" in text:
+        return ReadOnlyError()
+    if isinstance(exc, sqlite3.IntegrityError):
+        return StoreError(f"{where}refused by the book: {text}")
+    if name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR"):
+        return StoreError(f"{where}could not write the book ({name}: {text}); nothing was "
+                          "written. Check free disk space and file permissions, then retry")
+    if name.startswith("SQLITE_CORRUPT") or name == "SQLITE_NOTADB" or "not a database" in text:
+        return StoreError(f"{where}the file is not a readable blotter book ({text}); "
+                          "restore it from a backup")
+    if name.startswith("SQLITE_CANTOPEN"):
+        return StoreError(f"{where}cannot open the book ({text})")
+    return StoreError(f"{where}{text}")
+
+
+def _now() -> datetime:
+    return datetime.now(timezone.utc)
+
+
+def _ts(t: datetime) -> str:
+    """UTC ISO-8601 text with microseconds and Z, the store's instant format."""
+    if t.tzinfo is None:
+        raise StoreError(f"time {t.isoformat()} has no time zone: give Z for UTC or an offset")
+    return t.astimezone(timezone.utc).strftime(_TS_FORMAT)
+
+
+def _from_ts(text: str) -> datetime:
+    return datetime.strptime(text, _TS_FORMAT).replace(tzinfo=timezone.utc)
+
+
+def parse_time(value: datetime | str) -> datetime:
+    """An aware UTC datetime from ISO-8601 text with ``Z`` or an offset (naive times are refused)."""
+    if isinstance(value, datetime):
+        t = value
+    else:
+        text = value.strip()
+        if text[-1:] in ("Z", "z"):
+            text = text[:-1] + "+00:00"
+        try:
+            t = datetime.fromisoformat(text)
+        except ValueError:
+            raise StoreError(f"{value!r} is not an ISO-8601 time like 2026-12-01T15:30:00Z") from None
+    if t.tzinfo is None:
+        raise StoreError(f"time {value!s} has no time zone: add Z for UTC or an offset like -05:00")
+    return t.astimezone(timezone.utc)
+
+
+def parse_date(value: date | str) -> date:
+    """A date from ISO text ``YYYY-MM-DD``."""
+    if isinstance(value, datetime):
+        raise StoreError(f"expected a date, got the time {value.isoformat()}")
+    if isinstance(value, date):
+        return value
+    try:
+        if not re.fullmatch(r"\d{4}-\d{2}-\d{2}", value.strip()):
+            raise ValueError
+        return date.fromisoformat(value.strip())
+    except ValueError:
+        raise StoreError(f"{value!r} is not an ISO date like 2027-03-19") from None
+
+
+def who_am_i() -> str:
+    """The OS user, recorded as ``who`` on every row this process writes."""
+    try:
+        return getpass.getuser() or "unknown"
+    except Exception:  # getpass raises when no user name can be found (e.g. no passwd entry)
+        return f"uid{os.getuid()}"
+
+
+def contract_label(symbol: str, option_type: str, expiry: str | date | None,
+                   strike: float | None) -> str:
+    """Human label of a contract, e.g. ``DEMOA 2027-03-19 105 C``; the underlying alone for 'U'."""
+    if option_type == "U":
+        return symbol
+    return f"{symbol} {expiry} {strike:.10g} {option_type}"
+
+
+def _cutoff_utc(expiry: str, cutoff: str, tz_name: str) -> datetime:
+    hh, mm = (int(x) for x in cutoff.split(":"))
+    local = datetime.combine(date.fromisoformat(expiry), time(hh, mm), tzinfo=ZoneInfo(tz_name))
+    return local.astimezone(timezone.utc)
+
+
+def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
+    """Refuse a foreign, empty, damaged or too-new file; return its schema version."""
+    try:
+        app_id = conn.execute("PRAGMA application_id").fetchone()[0]
+        version = conn.execute("PRAGMA user_version").fetchone()[0]
+        tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    except sqlite3.DatabaseError as exc:
+        raise StoreError(f"{path} is not a blotter book: {exc}") from None
+    if app_id != APPLICATION_ID:
+        if not tables and version == 0:
+            raise StoreError(f"{path} is not a blotter book (it is empty); make one with "
+                             f"`blotter demo --out {path.name}`")
+        raise StoreError(f"{path} is an SQLite file but not a blotter book")
+    if version > SCHEMA_VERSION:
+        raise StoreError(f"{path} was written by a newer blotter (schema {version}; this one "
+                         f"knows {SCHEMA_VERSION}): upgrade blotter")
+    if not {"trade", "contract", "mark", "mark_set", "underlying"} <= tables:
+        raise StoreError(f"{path} is missing blotter tables; restore it from a backup")
+    if verify:
+        try:
+            problems = [r[0] for r in conn.execute("PRAGMA quick_check")]
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"{path} is damaged ({exc}); restore it from a backup") from None
+        if problems != ["ok"]:
+            raise StoreError(f"{path} is damaged ({'; '.join(problems[:3])}); restore it from "
+                             "a backup")
+    return int(version)
+
+
+def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bool = False,
+               verify: bool = True) -> Store:
+    """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
+
+    ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
+    migrated on a read-write open. ``verify`` runs ``PRAGMA quick_check`` first. Raises
+    ``StoreError`` with a plain message for a missing, empty, foreign or damaged file.
+    """
+    p = Path(path)
+    if create and not p.exists():
+        return create_store(p)
+    if not p.exists():
+        raise StoreError(f"no book at {p} (check the path, or make one with "
+                         f"`blotter demo --out {p}`)")
+    if p.is_dir():
+        raise StoreError(f"{p} is a directory, not a book file")
+    try:
+        conn = _connect(p, read_only)
+    except sqlite3.Error as exc:
+        if read_only:
+            raise StoreError(f"cannot open {p} read-only ({exc}): the file and its -wal/-shm files "
+                             "must be readable, or the directory writable") from None
+        raise _map_error(exc, p) from None
+    try:
+        version = _open_checks(conn, p, verify)
+        if version < SCHEMA_VERSION:
+            if read_only:
+                raise StoreError(f"{p} uses an older schema ({version}); open it once without "
+                                 "--read-only to upgrade it")
+            _migrate(conn, p)
+        if not read_only:
+            mode = conn.execute("PRAGMA journal_mode").fetchone()[0]
+            if mode != "wal":
+                conn.execute("PRAGMA journal_mode = WAL")
+    except sqlite3.Error as exc:
+        conn.close()
+        raise _map_error(exc, p) from None
+    except BaseException:
+        conn.close()
+        raise
+    return Store(p, read_only, conn)
+
+
+def _migrate(conn: sqlite3.Connection, path: Path) -> None:
+    """Run each schema section above the file's version, each in one transaction with its version."""
+    sections = schema_sections()
+    for version in sorted(sections):
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            current = conn.execute("PRAGMA user_version").fetchone()[0]
+            if current < version:
+                for statement in sections[version]:
+                    conn.execute(statement)
+                conn.execute(f"PRAGMA user_version = {int(version):d}")
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
+
+
+def create_store(path: str | os.PathLike[str]) -> Store:
+    """A new, empty book at ``path`` (refused if anything is there): schema applied, WAL mode.
+
+    The file is created with mode ``FILE_MODE`` (0o660) less the umask, so it is never readable
+    or writable by other users; SQLite gives its -wal and -shm files the same permissions.
+    """
+    p = Path(path)
+    if p.exists() or p.is_symlink():
+        raise StoreError(f"{p} already exists; choose another path")
+    try:
+        fd = os.open(p, os.O_WRONLY | os.O_CREAT | os.O_EXCL, FILE_MODE)
+    except FileNotFoundError:
+        raise StoreError(f"cannot create {p}: the directory {p.parent} does not exist") from None
+    except OSError as exc:
+        raise StoreError(f"cannot create {p}: {exc.strerror}") from None
+    os.close(fd)
+    try:
+        conn = _connect(p, read_only=False)
+        try:
+            conn.execute("PRAGMA journal_mode = WAL")
+            conn.execute("BEGIN IMMEDIATE")
+            conn.execute(f"PRAGMA application_id = {APPLICATION_ID:d}")
+            for version, statements in sorted(schema_sections().items()):
+                for statement in statements:
+                    conn.execute(statement)
+            conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION:d}")
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            conn.close()
+            raise
+    except sqlite3.Error as exc:
+        _remove_book_files(p)
+        raise _map_error(exc, p) from None
+    except BaseException:
+        _remove_book_files(p)
+        raise
+    return Store(p, False, conn)
+
+
+def _remove_book_files(p: Path) -> None:
+    for suffix in ("", "-wal", "-shm"):
+        try:
+            os.unlink(f"{p}{suffix}")
+        except FileNotFoundError:
+            pass
+
+
+def shipped_demo_path() -> Path:
+    """The demo book shipped with the package (inside the wheel, or at the top of a checkout)."""
+    packaged = resources.files("blotter") / "data" / "demo.db"
+    if packaged.is_file():
+        return Path(str(packaged))
+    return Path(__file__).resolve().parent.parent / "demo.db"
+
+
+def user_data_dir() -> Path:
+    """``$XDG_DATA_HOME/blotter``, else ``~/.local/share/blotter``."""
+    base = os.environ.get("XDG_DATA_HOME") or os.path.join(os.path.expanduser("~"), ".local", "share")
+    return Path(base) / "blotter"
+
+
+def user_demo_copy() -> Path:
+    """The user's own copy of the shipped demo book, copied on first use (never the package's file).
+
+    The copy goes to a temporary name in the user's data directory (mode 0o700) and is renamed
+    into place, so a half-written copy is never opened.
+    """
+    target = user_data_dir() / "demo.db"
+    if target.exists():
+        return target
+    source = shipped_demo_path()
+    if not source.is_file() or source.stat().st_size == 0:
+        raise StoreError(f"the shipped demo book {source} is missing; run `blotter demo --out "
+                         f"{target}` to make one")
+    target.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
+    tmp = target.with_name(f".demo.db.{os.getpid()}.tmp")
+    try:
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, FILE_MODE)
+        with os.fdopen(fd, "wb") as out, open(source, "rb") as src:
+            while chunk := src.read(1 << 20):
+                out.write(chunk)
+            out.flush()
+            os.fsync(out.fileno())
+        os.replace(tmp, target)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+    return target
+
+
+# --------------------------------------------------------------------------------------------
+# The store
+
+
+class Store:
+    """An open book. Each thread that calls it uses its own connection; ``close()`` closes all.
+
+    Reads run as one short read transaction each, so a viewer never pins a snapshot; writes run
+    in ``BEGIN IMMEDIATE`` transactions. ``path`` is the book file; ``read_only`` refuses writes.
+    """
+
+    def __init__(self, path: Path, read_only: bool, conn: sqlite3.Connection) -> None:
+        self.path = path
+        self.read_only = read_only
+        self._local = threading.local()
+        self._local.conn = conn
+        self._lock = threading.Lock()
+        self._conns: list[sqlite3.Connection] = [conn]
+        self._closed = False
+        self.who = who_am_i()
+
+    # ---- connections and transactions
+
+    def _conn(self) -> sqlite3.Connection:
+        if self._closed:
+            raise StoreError("the book is closed")
+        conn: sqlite3.Connection | None = getattr(self._local, "conn", None)
+        if conn is None:
+            try:
+                conn = _connect(self.path, self.read_only)
+            except sqlite3.Error as exc:
+                raise _map_error(exc, self.path) from None
+            self._local.conn = conn
+            with self._lock:
+                self._conns.append(conn)
+        return conn
+
+    @property
+    def connection(self) -> sqlite3.Connection:
+        """This thread's connection (for tests and diagnostics; write through the methods)."""
+        return self._conn()
+
+    def close(self) -> None:
+        """Close every connection this store opened; the store cannot be used afterwards."""
+        with self._lock:
+            for conn in self._conns:
+                conn.close()
+            self._conns.clear()
+            self._closed = True
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    def in_transaction(self) -> bool:
+        """Whether this thread's connection has a transaction open (never, between calls)."""
+        return self._conn().in_transaction
+
+    @contextmanager
+    def _write(self) -> Iterator[sqlite3.Connection]:
+        """One ``BEGIN IMMEDIATE`` ... ``COMMIT``; rolled back (if still open) on any error."""
+        if self.read_only:
+            raise ReadOnlyError()
+        conn = self._conn()
+        try:
+            conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.Error as exc:
+            raise _map_error(exc, self.path) from None
+        try:
+            yield conn
+            conn.execute("COMMIT")
+        except BaseException as exc:
+            if conn.in_transaction:
+                try:
+                    conn.execute("ROLLBACK")
+                except sqlite3.Error:
+                    pass
+            if isinstance(exc, sqlite3.Error):
+                raise _map_error(exc, self.path) from None
+            raise
+
+    @contextmanager
+    def _read(self) -> Iterator[sqlite3.Connection]:
+        """One short read transaction, so several queries see one snapshot; always ended."""
+        conn = self._conn()
+        try:
+            conn.execute("BEGIN")
+        except sqlite3.Error as exc:
+            raise _map_error(exc, self.path) from None
+        try:
+            yield conn
+        except sqlite3.Error as exc:
+            raise _map_error(exc, self.path) from None
+        finally:
+            if conn.in_transaction:
+                conn.execute("COMMIT")
+
+    def data_version(self) -> int:
+        """``PRAGMA data_version`` of this thread's connection: changes when another connection commits."""
+        try:
+            return int(self._conn().execute("PRAGMA data_version").fetchone()[0])
+        except sqlite3.Error as exc:
+            raise _map_error(exc, self.path) from None
+
+    def schema_version(self) -> int:
+        """The file's ``PRAGMA user_version``."""
+        return int(self._conn().execute("PRAGMA user_version").fetchone()[0])
+
+    def integrity_ok(self) -> bool:
+        """Full ``integrity_check``, ``foreign_key_check`` and every mark set holding all its marks."""
+        with self._read() as conn:
+            if [r[0] for r in conn.execute("PRAGMA integrity_check")] != ["ok"]:
+                return False
+            if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
+                return False
+            broken = conn.execute(
+                "SELECT count(*) FROM mark_set s WHERE s.mark_count <> "
+                "(SELECT count(*) FROM mark m WHERE m.mark_set_id = s.mark_set_id)").fetchone()[0]
+            return broken == 0
+
+    def backup(self, dest: str | os.PathLike[str]) -> Path:
+        """A consistent copy of the book at ``dest`` (new file, mode 0o660), synced and checked."""
+        d = Path(dest)
+        if d.exists():
+            raise StoreError(f"{d} already exists; choose another path")
+        fd = os.open(d, os.O_WRONLY | os.O_CREAT | os.O_EXCL, FILE_MODE)
+        os.close(fd)
+        try:
+            target = sqlite3.connect(_uri(d, "rw"), uri=True, isolation_level=None)
+            try:
+                self._conn().backup(target)
+                target.execute("PRAGMA journal_mode = DELETE")
+                ok = [r[0] for r in target.execute("PRAGMA integrity_check")] == ["ok"]
+            finally:
+                target.close()
+            with open(d, "rb+") as f:
+                os.fsync(f.fileno())
+            if not ok:
+                raise StoreError(f"the backup {d} failed its integrity check")
+        except sqlite3.Error as exc:
+            _remove_book_files(d)
+            raise _map_error(exc, d) from None
+        except BaseException:
+            _remove_book_files(d)
+            raise
+        return d
+
+    # ---- reference data
+
+    def _underlying_rows(self, conn: sqlite3.Connection) -> list[tuple[Any, ...]]:
+        return conn.execute(
+            "SELECT underlying_id, symbol, kind, currency, beta, div_yield, calendar, description, "
+            "is_reference, multiplier, american, cash_settled, time_zone, cutoff_time "
+            "FROM underlying ORDER BY underlying_id").fetchall()
+
+    def load_underlyings(self) -> Underlyings:
+        """Every underlying of the book, in id order (the index the ``Book`` rows point into)."""
+        with self._read() as conn:
+            return self._underlyings_from(self._underlying_rows(conn))
+
+    @staticmethod
+    def _underlyings_from(rows: list[tuple[Any, ...]]) -> Underlyings:
+        return Underlyings(
+            symbols=tuple(r[1] for r in rows), kinds=tuple(r[2] for r in rows),
+            currencies=tuple(r[3] for r in rows),
+            betas=np.array([r[4] for r in rows], dtype=np.float64),
+            div_yields=np.array([r[5] for r in rows], dtype=np.float64),
+            calendars=tuple(r[6] for r in rows), descriptions=tuple(r[7] for r in rows))
+
+    def add_underlying(self, symbol: str, kind: str, currency: str, multiplier: float, *,
+                       description: str = "", american: bool = True, cash_settled: bool = False,
+                       div_yield: float = 0.0, beta: float = 1.0, is_reference: bool = False,
+                       calendar: str = "NYSE", time_zone: str = "America/New_York",
+                       cutoff_time: str = "16:00") -> int:
+        """Add an underlying (its defaults for contracts) and return its id; symbols are unique."""
+        if kind not in UNDERLYING_KINDS:
+            raise StoreError(f"kind {kind!r} is not one of {', '.join(UNDERLYING_KINDS)}")
+        try:
+            ZoneInfo(time_zone)
+        except (ZoneInfoNotFoundError, ValueError):
+            raise StoreError(f"unknown time zone {time_zone!r}") from None
+        _check_symbol(symbol)
+        with self._write() as conn:
+            if conn.execute("SELECT 1 FROM underlying WHERE symbol = ?", (symbol,)).fetchone():
+                raise StoreError(f"underlying {symbol!r} already exists")
+            cur = conn.execute(
+                "INSERT INTO underlying (symbol, description, kind, currency, multiplier, american, "
+                "cash_settled, div_yield, beta, is_reference, calendar, time_zone, cutoff_time) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (symbol, description, kind, currency, float(multiplier), int(american),
+                 int(cash_settled), float(div_yield), float(beta), int(is_reference), calendar,
+                 time_zone, cutoff_time))
+            return int(cur.lastrowid or 0)
+
+    def add_note(self, text: str, written_at: datetime | None = None, who: str | None = None) -> int:
+        """Append a free note about the desk or the file; returns its id."""
+        with self._write() as conn:
+            cur = conn.execute("INSERT INTO desk_note (written_at, who, text) VALUES (?, ?, ?)",
+                               (_ts(written_at or _now()), who or self.who, text))
+            return int(cur.lastrowid or 0)
+
+    def notes(self) -> list[str]:
+        """The desk notes, oldest first."""
+        with self._read() as conn:
+            return [r[0] for r in conn.execute("SELECT text FROM desk_note ORDER BY note_id")]
+
+    def book_names(self) -> list[str]:
+        """Names of the books (desk accounts), alphabetically."""
+        with self._read() as conn:
+            return [r[0] for r in conn.execute("SELECT name FROM book ORDER BY name")]
+
+    def _book_id(self, conn: sqlite3.Connection, name: str, create: bool) -> int | None:
+        row = conn.execute("SELECT book_id FROM book WHERE name = ?", (name,)).fetchone()
+        if row:
+            return int(row[0])
+        if not create:
+            return None
+        if not name or len(name) > 64:
+            raise StoreError(f"book name {name!r} must be 1 to 64 characters")
+        return int(conn.execute("INSERT INTO book (name) VALUES (?)", (name,)).lastrowid or 0)
+
+    def _underlying(self, conn: sqlite3.Connection, symbol: str) -> tuple[Any, ...]:
+        row = conn.execute(
+            "SELECT underlying_id, multiplier, american, cash_settled, cutoff_time, kind "
+            "FROM underlying WHERE symbol = ?", (symbol,)).fetchone()
+        if row is None:
+            raise StoreError(f"unknown underlying {symbol!r}")
+        return tuple(row)
+
+    def find_or_create_contract(self, symbol: str, expiry: date | str | None, strike: float | None,
+                                is_call: bool | None, american: bool | None = None,
+                                multiplier: float | None = None,
+                                cash_settled: bool | None = None) -> int:
+        """The id of the contract with these terms, created when new; defaults from the underlying.
+
+        ``expiry``, ``strike`` and ``is_call`` all None means the underlying itself (a hedge).
+        """
+        with self._write() as conn:
+            return self._contract_id(conn, symbol, expiry, strike, is_call, american, multiplier,
+                                     cash_settled)
+
+    def _contract_id(self, conn: sqlite3.Connection, symbol: str, expiry: date | str | None,
+                     strike: float | None, is_call: bool | None, american: bool | None,
+                     multiplier: float | None, cash_settled: bool | None) -> int:
+        uid, u_mult, u_am, u_cash, u_cut, _kind = self._underlying(conn, symbol)
+        terms = _contract_terms(expiry, strike, is_call)
+        opt_type, exp_text, k = terms
+        am = int(u_am if american is None else bool(american))
+        mult = float(u_mult if multiplier is None else multiplier)
+        if not (math.isfinite(mult) and mult > 0):
+            raise StoreError(f"multiplier must be positive, got {multiplier!r}")
+        cash = int(u_cash if cash_settled is None else bool(cash_settled))
+        if opt_type == "U":
+            row = conn.execute(
+                "SELECT contract_id FROM contract WHERE underlying_id = ? AND option_type = 'U' "
+                "AND american = ? AND multiplier = ? AND cash_settled = ?",
+                (uid, am, mult, cash)).fetchone()
+            cutoff = None
+        else:
+            row = conn.execute(
+                "SELECT contract_id FROM contract WHERE underlying_id = ? AND option_type = ? "
+                "AND expiry = ? AND strike = ? AND american = ? AND multiplier = ? "
+                "AND cash_settled = ?", (uid, opt_type, exp_text, k, am, mult, cash)).fetchone()
+            cutoff = u_cut
+        if row:
+            return int(row[0])
+        cur = conn.execute(
+            "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, american, "
+            "multiplier, cash_settled) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            (uid, opt_type, k, exp_text, cutoff, am, mult, cash))
+        return int(cur.lastrowid or 0)
+
+    def contracts(self) -> list[ContractRecord]:
+        """Every contract, in id order, with its label and UTC cut-off instant."""
+        with self._read() as conn:
+            rows = conn.execute(
+                "SELECT c.contract_id, u.symbol, c.option_type, c.expiry, c.strike, c.cutoff_time, "
+                "c.american, c.multiplier, c.cash_settled, u.time_zone FROM contract c "
+                "JOIN underlying u USING (underlying_id) ORDER BY c.contract_id").fetchall()
+        return [ContractRecord(
+            contract_id=r[0], symbol=r[1], option_type=r[2],
+            expiry=date.fromisoformat(r[3]) if r[3] else None, strike=r[4], cutoff_time=r[5],
+            american=bool(r[6]), multiplier=r[7], cash_settled=bool(r[8]),
+            label=contract_label(r[1], r[2], r[3], r[4]),
+            cutoff_utc=_cutoff_utc(r[3], r[5], r[9]) if r[3] else None) for r in rows]
+
+    # ---- trades
+
+    def add_trade(self, book: str, symbol: str, quantity: int, price: float,
+                  expiry: date | str | None = None, strike: float | None = None,
+                  is_call: bool | None = None, *, trade_time: datetime | str | None = None,
+                  note: str = "", source: str = "typed", american: bool | None = None,
+                  multiplier: float | None = None, cash_settled: bool | None = None,
+                  contract_id: int | None = None) -> int:
+        """Book a trade and return its id. ``quantity`` signed contracts (shares for a hedge).
+
+        The contract is ``contract_id`` when given, else found or created from ``symbol``,
+        ``expiry``, ``strike``, ``is_call`` (all three None for the underlying itself).
+        ``price`` per unit of underlying; ``trade_time`` defaults to now and may not be later.
+        """
+        qty = _check_quantity(quantity)
+        px = _check_price(price)
+        booked = _now()
+        t = booked if trade_time is None else parse_time(trade_time)
+        if t > booked:
+            raise StoreError(f"trade time {t.isoformat()} is in the future")
+        _check_source(source)
+        with self._write() as conn:
+            book_id = self._book_id(conn, book, create=True)
+            if contract_id is None:
+                cid = self._contract_id(conn, symbol, expiry, strike, is_call, american, multiplier,
+                                        cash_settled)
+            else:
+                cid = self._existing_contract(conn, contract_id)
+            self._check_not_expired(conn, cid, t)
+            cur = conn.execute(
+                "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
+                "who, source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (book_id, cid, qty, px, _ts(t), _ts(booked), self.who, source, note))
+            return int(cur.lastrowid or 0)
+
+    @staticmethod
+    def _existing_contract(conn: sqlite3.Connection, contract_id: int) -> int:
+        if conn.execute("SELECT 1 FROM contract WHERE contract_id = ?", (int(contract_id),)).fetchone():
+            return int(contract_id)
+        raise StoreError(f"no contract {contract_id}")
+
+    @staticmethod
+    def _check_not_expired(conn: sqlite3.Connection, contract_id: int, t: datetime) -> None:
+        row = conn.execute("SELECT expiry FROM contract WHERE contract_id = ?", (contract_id,)).fetchone()
+        if row and row[0] and row[0] < t.date().isoformat():
+            raise StoreError(f"the contract expired on {row[0]}, before the trade date "
+                             f"{t.date().isoformat()}")
+
+    def cancel_trade(self, trade_id: int, reason: str) -> int:
+        """Cancel a live trade (a new row naming it and why); returns the cancel's id."""
+        if not reason or not reason.strip():
+            raise StoreError("a cancel needs a reason")
+        with self._write() as conn:
+            self._check_cancellable(conn, trade_id)
+            cur = conn.execute(
+                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)",
+                (int(trade_id), reason.strip(), _ts(_now()), self.who))
+            return int(cur.lastrowid or 0)
+
+    @staticmethod
+    def _check_cancellable(conn: sqlite3.Connection, trade_id: int) -> tuple[Any, ...]:
+        row = conn.execute(
+            "SELECT t.trade_id, b.name, t.contract_id, t.quantity, t.price, t.trade_time, t.note "
+            "FROM trade t JOIN book b USING (book_id) WHERE t.trade_id = ?",
+            (int(trade_id),)).fetchone()
+        if row is None:
+            raise StoreError(f"no trade {trade_id}")
+        done = conn.execute("SELECT cancelled_at, who FROM trade_cancel WHERE trade_id = ?",
+                            (int(trade_id),)).fetchone()
+        if done:
+            raise StoreError(f"trade {trade_id} was already cancelled at {done[0]} by {done[1]}")
+        return tuple(row)
+
+    def amend_trade(self, trade_id: int, *, reason: str, quantity: int | None = None,
+                    price: float | None = None, trade_time: datetime | str | None = None,
+                    note: str | None = None, book: str | None = None,
+                    contract_id: int | None = None) -> int:
+        """Cancel ``trade_id`` and book its replacement with the changed fields; returns the new id.
+
+        Fields left None keep the original's value (including its trade time).
+        """
+        if not reason or not reason.strip():
+            raise StoreError("an amend needs a reason")
+        now = _now()
+        with self._write() as conn:
+            _, old_book, old_cid, old_qty, old_px, old_time, old_note = self._check_cancellable(
+                conn, trade_id)
+            qty = _check_quantity(old_qty if quantity is None else quantity)
+            px = _check_price(old_px if price is None else price)
+            t = _from_ts(old_time) if trade_time is None else parse_time(trade_time)
+            if t > now:
+                raise StoreError(f"trade time {t.isoformat()} is in the future")
+            cid = old_cid if contract_id is None else self._existing_contract(conn, contract_id)
+            self._check_not_expired(conn, cid, t)
+            book_id = self._book_id(conn, old_book if book is None else book, create=True)
+            conn.execute(
+                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)",
+                (int(trade_id), f"amended: {reason.strip()}", _ts(now), self.who))
+            cur = conn.execute(
+                "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
+                "who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, 'typed', ?, ?)",
+                (book_id, cid, qty, px, _ts(t), _ts(now), self.who,
+                 old_note if note is None else note, int(trade_id)))
+            return int(cur.lastrowid or 0)
+
+    _POSITION_SQL = """
+        SELECT c.contract_id, c.underlying_id, c.option_type, c.strike, c.expiry, c.cutoff_time,
+               c.american, c.multiplier, c.cash_settled, u.symbol, u.time_zone, p.quantity
+        FROM (SELECT t.contract_id, sum(t.quantity) AS quantity FROM trade t
+              {book_join}
+              WHERE {time_filter} NOT EXISTS (
+                  SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id {cancel_filter})
+              {book_filter}
+              GROUP BY t.contract_id HAVING sum(t.quantity) <> 0) p
+        JOIN contract c ON c.contract_id = p.contract_id
+        JOIN underlying u ON u.underlying_id = c.underlying_id
+        ORDER BY c.underlying_id, c.option_type = 'U' DESC, c.expiry, c.strike, c.option_type,
+                 c.contract_id
+    """
+
+    def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
+        """Net positions of live trades (all books when ``book`` is None) as they stood at ``as_of``.
+
+        A trade counts once it was both dealt and booked at or before ``as_of``; a cancel counts
+        from the instant it was entered. None means now. Rows with zero net quantity are left out.
+        """
+        params: list[Any] = []
+        time_filter = cancel_filter = book_join = book_filter = ""
+        if as_of is not None:
+            t = _ts(parse_time(as_of))
+            time_filter = "t.booked_at <= ? AND t.trade_time <= ? AND"
+            cancel_filter = "AND x.cancelled_at <= ?"
+            params += [t, t, t]
+        if book is not None:
+            book_join = "JOIN book b ON b.book_id = t.book_id"
+            book_filter = "AND b.name = ?"
+            params.append(book)
+        sql = self._POSITION_SQL.format(time_filter=time_filter, cancel_filter=cancel_filter,
+                                        book_join=book_join, book_filter=book_filter)
+        with self._read() as conn:
+            urows = self._underlying_rows(conn)
+            if book is not None and self._book_id(conn, book, create=False) is None:
+                raise StoreError(f"no book named {book!r} (books: {', '.join(self.book_names_in(conn))})")
+            rows = conn.execute(sql, params).fetchall()
+        return self._book_from(book or "all books", urows, rows,
+                               quantities=[r[11] for r in rows])
+
+    @staticmethod
+    def book_names_in(conn: sqlite3.Connection) -> list[str]:
+        return [r[0] for r in conn.execute("SELECT name FROM book ORDER BY name")]
+
+    def _book_from(self, name: str, urows: list[tuple[Any, ...]], rows: list[tuple[Any, ...]],
+                   quantities: Sequence[float]) -> Book:
+        """A ``Book`` from contract rows (contract_id, underlying_id, type, strike, expiry,
+        cutoff, american, multiplier, cash_settled, symbol, time_zone, ...)."""
+        underlyings = self._underlyings_from(urows)
+        index_of = {r[0]: i for i, r in enumerate(urows)}
+        reference = next((r[1] for r in urows if r[8]), None)
+        n = len(rows)
+        if n:
+            cols = list(zip(*rows))
+            contract_ids = np.array(cols[0], dtype=np.int64)
+            underlying_idx = np.array([index_of[u] for u in cols[1]], dtype=np.int64)
+            types = np.array(cols[2], dtype="<U1")
+            strikes = np.array([np.nan if k is None else k for k in cols[3]], dtype=np.float64)
+            cut_cache: dict[tuple[str, str, str], np.datetime64] = {}
+            expiries = np.empty(n, dtype="datetime64[s]")
+            for i, (e, c, z) in enumerate(zip(cols[4], cols[5], cols[10])):
+                if e is None:
+                    expiries[i] = np.datetime64("NaT")
+                    continue
+                key = (e, c, z)
+                v = cut_cache.get(key)
+                if v is None:
+                    v = np.datetime64(_cutoff_utc(e, c, z).replace(tzinfo=None), "s")
+                    cut_cache[key] = v
+                expiries[i] = v
+            american = np.array(cols[6], dtype=bool)
+            multipliers = np.array(cols[7], dtype=np.float64)
+            cash = np.array(cols[8], dtype=bool)
+            labels = tuple(
+                sym if t == "U" else f"{sym} {e} {k:.10g} {t}"
+                for sym, t, e, k in zip(cols[9], cols[2], cols[4], cols[3]))
+        else:
+            contract_ids = underlying_idx = np.zeros(0, dtype=np.int64)
+            types = np.zeros(0, dtype="<U1")
+            strikes = multipliers = np.zeros(0)
+            expiries = np.zeros(0, dtype="datetime64[s]")
+            american = cash = np.zeros(0, dtype=bool)
+            labels = ()
+        return Book(
+            name=name, underlyings=underlyings, reference_index=reference,
+            contract_ids=contract_ids, labels=labels, underlying_idx=underlying_idx,
+            is_option=types != "U", is_call=types == "C", american=american, strikes=strikes,
+            expiries=expiries, multipliers=multipliers,
+            quantities=np.asarray(quantities, dtype=np.float64), cash_settled=cash)
+
+    def new_trades(self, since: datetime, until: datetime | None = None,
+                   book: str | None = None) -> tuple[Book, np.ndarray]:
+        """One ``Book`` row per trade booked in (``since``, ``until``] and live at ``until``.
+
+        These are exactly the trades in ``load_book(as_of=until)`` that are not in
+        ``load_book(as_of=since)``. Returns the rows (quantity = the trade's) and each trade's
+        price per unit of underlying, float64 (n,).
+        """
+        lo = _ts(parse_time(since))
+        hi = _ts(parse_time(until) if until is not None else _now())
+        params: list[Any] = [lo, hi, hi]
+        book_filter = ""
+        if book is not None:
+            book_filter = "AND b.name = ?"
+            params.append(book)
+        with self._read() as conn:
+            urows = self._underlying_rows(conn)
+            rows = conn.execute(
+                "SELECT c.contract_id, c.underlying_id, c.option_type, c.strike, c.expiry, "
+                "c.cutoff_time, c.american, c.multiplier, c.cash_settled, u.symbol, u.time_zone, "
+                "t.quantity, t.price FROM trade t JOIN book b ON b.book_id = t.book_id "
+                "JOIN contract c ON c.contract_id = t.contract_id "
+                "JOIN underlying u ON u.underlying_id = c.underlying_id "
+                "WHERE t.booked_at > ? AND t.booked_at <= ? AND NOT EXISTS ("
+                "SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id AND x.cancelled_at <= ?) "
+                f"{book_filter} ORDER BY t.trade_id", params).fetchall()
+        result = self._book_from(book or "all books", urows, rows, [r[11] for r in rows])
+        return result, np.array([r[12] for r in rows], dtype=np.float64)
+
+    def trades(self, book: str | None = None, since: datetime | None = None,
+               until: datetime | None = None, live_only: bool = False) -> list[TradeRecord]:
+        """Trades dealt in (``since``, ``until``] (all when None), oldest first, with their state now."""
+        where = ["1"]
+        params: list[Any] = []
+        if book is not None:
+            where.append("b.name = ?")
+            params.append(book)
+        if since is not None:
+            where.append("t.trade_time > ?")
+            params.append(_ts(parse_time(since)))
+        if until is not None:
+            where.append("t.trade_time <= ?")
+            params.append(_ts(parse_time(until)))
+        if live_only:
+            where.append("x.trade_id IS NULL")
+        with self._read() as conn:
+            rows = conn.execute(
+                "SELECT t.trade_id, b.name, t.contract_id, u.symbol, c.option_type, c.expiry, "
+                "c.strike, c.american, c.multiplier, c.cash_settled, t.quantity, t.price, "
+                "t.trade_time, t.booked_at, t.who, t.source, t.note, t.replaces, r.trade_id, "
+                "x.reason, x.cancelled_at, x.who FROM trade t "
+                "JOIN book b ON b.book_id = t.book_id "
+                "JOIN contract c ON c.contract_id = t.contract_id "
+                "JOIN underlying u ON u.underlying_id = c.underlying_id "
+                "LEFT JOIN trade_cancel x ON x.trade_id = t.trade_id "
+                "LEFT JOIN trade r ON r.replaces = t.trade_id "
+                f"WHERE {' AND '.join(where)} ORDER BY t.trade_time, t.trade_id", params).fetchall()
+        out = []
+        for r in rows:
+            state = "live" if r[20] is None else ("amended" if r[18] is not None else "cancelled")
+            out.append(TradeRecord(
+                trade_id=r[0], book=r[1], contract_id=r[2],
+                contract=contract_label(r[3], r[4], r[5], r[6]), symbol=r[3], option_type=r[4],
+                expiry=date.fromisoformat(r[5]) if r[5] else None, strike=r[6],
+                american=bool(r[7]), multiplier=r[8], cash_settled=bool(r[9]), quantity=r[10],
+                price=r[11], trade_time=_from_ts(r[12]), booked_at=_from_ts(r[13]), who=r[14],
+                source=r[15], note=r[16], state=state, replaces=r[17], replaced_by=r[18],
+                cancel_reason=r[19], cancelled_at=_from_ts(r[20]) if r[20] else None,
+                cancelled_by=r[21]))
+        return out
+
+    # ---- marks
+
+    def _new_mark_set(self, conn: sqlite3.Connection, kind: str, count: int, *, note: str = "",
+                      source: str = "typed", corrects: int | None = None,
+                      marked_at: datetime | None = None, who: str | None = None) -> int:
+        cur = conn.execute(
+            "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?)",
+            (kind, _ts(marked_at or _now()), who or self.who, note or "", source, corrects, count))
+        return int(cur.lastrowid or 0)
+
+    def _insert_marks(self, conn: sqlite3.Connection, set_id: int,
+                      points: Sequence[tuple[str, int | None, str | None, str | None, float | None,
+                                            int | None, float]]) -> tuple[int, int]:
+        """Insert points (kind, underlying_id, currency, expiry, strike, tenor_days, value)."""
+        first = last = 0
+        for seq, p in enumerate(points, start=1):
+            cur = conn.execute(
+                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, strike, "
+                "tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", (set_id, seq, *p))
+            last = int(cur.lastrowid or 0)
+            first = first or last
+        return first, last
+
+    def _log_one(self, point_of: Callable[[sqlite3.Connection], tuple[Any, ...]],
+                 note: str | None) -> int:
+        with self._write() as conn:
+            point = point_of(conn)
+            set_id = self._new_mark_set(conn, "intraday", 1, note=note or "")
+            return self._insert_marks(conn, set_id, [point])[1]
+
+    def log_spot(self, symbol: str, price: float, note: str | None = None) -> int:
+        """Log a spot mark (price per unit, > 0) as its own intraday set; returns the mark id."""
+        px = _finite(price, "spot")
+        if px <= 0:
+            raise StoreError(f"spot must be positive, got {price!r}")
+        return self._log_one(lambda c: ("spot", self._underlying(c, symbol)[0], None, None, None,
+                                        None, px), note)
+
+    def log_vol(self, symbol: str, expiry: date | str, vol: float, strike: float | None = None,
+                note: str | None = None) -> int:
+        """Log an implied vol (decimal, 0 < vol <= 10) at an expiry and strike (None = ATM)."""
+        v = _check_vol(vol)
+        e = parse_date(expiry).isoformat()
+        k = None if strike is None else _check_strike(strike)
+        return self._log_one(lambda c: ("vol", self._underlying(c, symbol)[0], None, e, k, None, v),
+                             note)
+
+    def log_rate(self, currency: str, tenor_days: int, rate: float, note: str | None = None) -> int:
+        """Log a continuously compounded zero rate (decimal) of ``currency`` at ``tenor_days``."""
+        ccy = _check_currency(currency)
+        days = _check_tenor(tenor_days)
+        r = _check_decimal(rate, "rate")
+        return self._log_one(lambda c: ("rate", None, ccy, None, None, days, r), note)
+
+    def log_div_yield(self, symbol: str, q: float, note: str | None = None) -> int:
+        """Log a dividend yield (decimal; the foreign rate for fx) overriding the underlying's default."""
+        v = _check_decimal(q, "dividend yield")
+        return self._log_one(lambda c: ("div_yield", self._underlying(c, symbol)[0], None, None,
+                                        None, None, v), note)
+
+    _IN_FORCE_SQL = """
+        SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
+               m.tenor_days, m.value
+        FROM mark m JOIN (
+            SELECT max(m2.mark_id) AS mark_id FROM mark m2
+            JOIN mark_set s ON s.mark_set_id = m2.mark_set_id
+            {where}
+            GROUP BY m2.kind, m2.underlying_id, m2.currency, m2.expiry, m2.strike, m2.tenor_days
+        ) latest ON latest.mark_id = m.mark_id
+        ORDER BY m.kind, m.underlying_id, m.currency, m.expiry, m.strike, m.tenor_days
+    """
+
+    def _mark_rows(self, conn: sqlite3.Connection, mark_set_id: int | None,
+                   as_of: datetime | None) -> list[tuple[Any, ...]]:
+        if mark_set_id is not None:
+            if conn.execute("SELECT 1 FROM mark_set WHERE mark_set_id = ?",
+                            (int(mark_set_id),)).fetchone() is None:
+                raise StoreError(f"no mark set {mark_set_id}")
+            return conn.execute(
+                "SELECT mark_id, mark_set_id, kind, underlying_id, currency, expiry, strike, "
+                "tenor_days, value FROM mark WHERE mark_set_id = ? ORDER BY seq",
+                (int(mark_set_id),)).fetchall()
+        if as_of is None:
+            return conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
+        return conn.execute(self._IN_FORCE_SQL.format(where="WHERE s.marked_at <= ?"),
+                            (_ts(parse_time(as_of)),)).fetchall()
+
+    def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
+        """The marks in force (latest value of each point across sets, at ``as_of`` or now), or
+        exactly the set ``mark_set_id`` as recorded.
+
+        ``version`` is the newest mark id used (0 when there are none), ``marks_as_of`` the
+        newest set's time (1970-01-01 UTC when there are none).
+        """
+        if mark_set_id is not None and as_of is not None:
+            raise ValueError("give mark_set_id or as_of, not both")
+        with self._read() as conn:
+            rows = self._mark_rows(conn, mark_set_id, as_of)
+            symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
+            set_ids = sorted({r[1] for r in rows})
+            sets = {}
+            if set_ids:
+                marks = ",".join("?" * len(set_ids)) if len(set_ids) < 900 else None
+                if marks:
+                    sets = {r[0]: (r[1], r[2]) for r in conn.execute(
+                        f"SELECT mark_set_id, kind, marked_at FROM mark_set WHERE mark_set_id IN "
+                        f"({marks})", set_ids)}
+                else:
+                    sets = {r[0]: (r[1], r[2]) for r in conn.execute(
+                        "SELECT mark_set_id, kind, marked_at FROM mark_set")}
+        spots: dict[str, float] = {}
+        divs: dict[str, float] = {}
+        vols: dict[str, list[tuple[str, float, float]]] = {}
+        rates: dict[str, list[tuple[int, float]]] = {}
+        for _id, _set, kind, uid, ccy, expiry, strike, tenor, value in rows:
+            if kind == "spot":
+                spots[symbols[uid]] = value
+            elif kind == "div_yield":
+                divs[symbols[uid]] = value
+            elif kind == "vol":
+                vols.setdefault(symbols[uid], []).append(
+                    (expiry, np.nan if strike is None else strike, value))
+            else:
+                rates.setdefault(ccy, []).append((tenor, value))
+        surfaces = {}
+        for sym, pts in vols.items():
+            pts.sort(key=lambda p: (p[0], -np.inf if np.isnan(p[1]) else p[1]))
+            surfaces[sym] = VolSurface(expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
+                                       strikes=np.array([p[1] for p in pts], dtype=np.float64),
+                                       vols=np.array([p[2] for p in pts], dtype=np.float64))
+        curves = {ccy: RateCurve(tenor_days=np.array([p[0] for p in pts], dtype=np.float64),
+                                 zero_rates=np.array([p[1] for p in pts], dtype=np.float64))
+                  for ccy, pts in rates.items()}
+        version = max((r[0] for r in rows), default=0)
+        newest = max((sets[s][1] for s in set_ids), default=None)
+        if mark_set_id is not None:
+            set_id, kind = int(mark_set_id), sets[int(mark_set_id)][0] if set_ids else "intraday"
+        elif len(set_ids) == 1:
+            set_id, kind = set_ids[0], sets[set_ids[0]][0]
+        else:
+            set_id, kind = None, "intraday"
+        return Market(version=int(version),
+                      marks_as_of=_from_ts(newest) if newest else _EPOCH,
+                      spots=spots, surfaces=surfaces, curves=curves, div_yields=divs,
+                      mark_set_id=set_id, mark_kind=kind)
+
+    def marks(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> list[MarkRecord]:
+        """Mark points: those in force (at ``as_of`` or now), or exactly the set ``mark_set_id``."""
+        with self._read() as conn:
+            rows = self._mark_rows(conn, mark_set_id, as_of)
+            symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
+            sets = {r[0]: r[1:] for r in conn.execute(
+                "SELECT mark_set_id, kind, marked_at, who FROM mark_set")}
+        return [MarkRecord(
+            mark_id=r[0], mark_set_id=r[1], set_kind=sets[r[1]][0],
+            marked_at=_from_ts(sets[r[1]][1]), who=sets[r[1]][2], kind=r[2],
+            symbol=symbols.get(r[3]) if r[3] is not None else None, currency=r[4],
+            expiry=date.fromisoformat(r[5]) if r[5] else None, strike=r[6], tenor_days=r[7],
+            value=r[8]) for r in rows]
+
+    def commit_close(self, note: str | None = None, corrects: int | None = None,
+                     marked_at: datetime | None = None, who: str | None = None,
+                     source: str = "close") -> int:
+        """Write the marks in force now as one immutable close set; returns its id.
+
+        ``corrects`` names an earlier close set this one replaces (it stays on record).
+        ``marked_at`` and ``who`` default to now and the OS user (the demo sets them).
+        """
+        with self._write() as conn:
+            if corrects is not None:
+                row = conn.execute("SELECT kind FROM mark_set WHERE mark_set_id = ?",
+                                   (int(corrects),)).fetchone()
+                if row is None or row[0] != "close":
+                    raise StoreError(f"mark set {corrects} is not a close set")
+                done = conn.execute("SELECT mark_set_id FROM mark_set WHERE corrects = ?",
+                                    (int(corrects),)).fetchone()
+                if done:
+                    raise StoreError(f"close set {corrects} was already corrected by set {done[0]}")
+            rows = conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
+            if not rows:
+                raise StoreError("there are no marks to commit as a close")
+            set_id = self._new_mark_set(conn, "close", len(rows), note=note or "", source=source,
+                                        corrects=corrects, marked_at=marked_at, who=who)
+            self._insert_marks(conn, set_id, [tuple(r[2:]) for r in rows])
+            return set_id
+
+    def mark_sets(self, kind: str | None = None) -> list[MarkSetInfo]:
+        """Mark sets, oldest first (only ``kind`` 'close' or 'intraday' when given)."""
+        if kind is not None and kind not in ("close", "intraday"):
+            raise StoreError(f"mark set kind must be 'close' or 'intraday', got {kind!r}")
+        with self._read() as conn:
+            rows = conn.execute(
+                "SELECT s.mark_set_id, s.kind, s.marked_at, s.who, s.note, s.corrects, s.source, "
+                "s.mark_count, (SELECT c.mark_set_id FROM mark_set c WHERE c.corrects = s.mark_set_id) "
+                "FROM mark_set s WHERE ? IS NULL OR s.kind = ? ORDER BY s.mark_set_id",
+                (kind, kind)).fetchall()
+        return [MarkSetInfo(id=r[0], kind=r[1], marked_at=_from_ts(r[2]), who=r[3], note=r[4],
+                            corrects=r[5], source=r[6], marks=r[7], superseded_by=r[8])
+                for r in rows]
+
+    # ---- CSV imports
+
+    def import_trades_csv(self, path: str | os.PathLike[str],
+                          progress: Callable[[int], None] | None = None) -> ImportReport:
+        """Import a trade CSV (``TRADE_COLUMNS``) as one transaction: all rows or none.
+
+        Every row is checked before anything is written; problems name the line and column
+        (up to ``MAX_PROBLEMS`` at once). A file already imported (same content) is refused.
+        ``progress(rows_written)`` is called every ``PROGRESS_EVERY`` rows.
+        """
+        p, data, digest, header, rows = _read_csv(path, TRADE_COLUMNS + TRADE_INFO_COLUMNS,
+                                                  TRADE_REQUIRED)
+        with self._read() as conn:
+            unders = {r[1]: r for r in self._underlying_rows(conn)}
+        problems: list[_Problem] = []
+        parsed: list[tuple[Any, ...]] = []
+        now = _now()
+        for line, rec in rows:
+            item = _parse_trade_row(line, rec, unders, now, problems)
+            if item is not None:
+                parsed.append(item)
+        _raise_if(p, problems)
+        if not parsed:
+            raise StoreError(f"{p.name}: nothing imported; the file has no trade rows")
+        source = f"file:{p.name}"
+        with self._write() as conn:
+            self._check_not_imported(conn, "trades", digest, p)
+            booked = _ts(now)
+            ids: list[int] = []
+            contract_cache: dict[tuple[Any, ...], int] = {}
+            for i, (book, symbol, expiry, strike, is_call, qty, px, t, am, mult, cash, note) in \
+                    enumerate(parsed, start=1):
+                key = (symbol, expiry, strike, is_call, am, mult, cash)
+                cid = contract_cache.get(key)
+                if cid is None:
+                    cid = self._contract_id(conn, symbol, expiry, strike, is_call, am, mult, cash)
+                    contract_cache[key] = cid
+                book_id = self._book_id(conn, book, create=True)
+                cur = conn.execute(
+                    "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
+                    "booked_at, who, source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    (book_id, cid, qty, px, _ts(t), booked, self.who, source, note))
+                ids.append(int(cur.lastrowid or 0))
+                if progress is not None and i % PROGRESS_EVERY == 0:
+                    progress(i)
+            import_id = self._record_import(conn, "trades", p, digest, len(ids), ids[0], ids[-1])
+        return ImportReport(path=p, kind="trades", rows=len(ids), import_id=import_id,
+                            first_id=ids[0], last_id=ids[-1])
+
+    def import_marks_csv(self, path: str | os.PathLike[str],
+                         progress: Callable[[int], None] | None = None) -> ImportReport:
+        """Import a mark CSV (``MARK_COLUMNS``) as one intraday mark set: all points or none."""
+        p, data, digest, header, rows = _read_csv(path, MARK_COLUMNS + MARK_INFO_COLUMNS,
+                                                  MARK_REQUIRED)
+        with self._read() as conn:
+            unders = {r[1]: r[0] for r in self._underlying_rows(conn)}
+        problems: list[_Problem] = []
+        points: list[tuple[Any, ...]] = []
+        seen: dict[tuple[Any, ...], int] = {}
+        for line, rec in rows:
+            point = _parse_mark_row(line, rec, unders, problems)
+            if point is None:
+                continue
+            key = point[:6]
+            if key in seen:
+                problems.append(_Problem(line, "", f"the same point as line {seen[key]}"))
+                continue
+            seen[key] = line
+            points.append(point)
+        _raise_if(p, problems)
+        if not points:
+            raise StoreError(f"{p.name}: nothing imported; the file has no mark rows")
+        with self._write() as conn:
+            self._check_not_imported(conn, "marks", digest, p)
+            set_id = self._new_mark_set(conn, "intraday", len(points), note=f"import of {p.name}",
+                                        source=f"file:{p.name}")
+            for start in range(0, len(points), PROGRESS_EVERY):
+                chunk = points[start:start + PROGRESS_EVERY]
+                conn.executemany(
+                    "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
+                    "strike, tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    [(set_id, start + j + 1, *pt) for j, pt in enumerate(chunk)])
+                if progress is not None and start + len(chunk) < len(points):
+                    progress(start + len(chunk))
+            import_id = self._record_import(conn, "marks", p, digest, len(points), set_id, set_id)
+        return ImportReport(path=p, kind="marks", rows=len(points), import_id=import_id,
+                            first_id=set_id, last_id=set_id)
+
+    @staticmethod
+    def _check_not_imported(conn: sqlite3.Connection, kind: str, digest: str, p: Path) -> None:
+        row = conn.execute("SELECT import_id, file_name, imported_at, who FROM import_file "
+                           "WHERE kind = ? AND sha256 = ?", (kind, digest)).fetchone()
+        if row:
+            raise StoreError(f"{p.name}: nothing imported; the same content was already imported "
+                             f"as import {row[0]} ({row[1]}, at {row[2]} by {row[3]})")
+
+    def _record_import(self, conn: sqlite3.Connection, kind: str, p: Path, digest: str, rows: int,
+                       first: int, last: int) -> int:
+        cur = conn.execute(
+            "INSERT INTO import_file (kind, file_name, sha256, rows, imported_at, who, first_id, "
+            "last_id) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            (kind, p.name, digest, rows, _ts(_now()), self.who, first, last))
+        return int(cur.lastrowid or 0)
+
+
+# --------------------------------------------------------------------------------------------
+# Validation helpers (raise StoreError with a plain message)
+
+
+def _check_symbol(symbol: str) -> None:
+    if not isinstance(symbol, str) or not symbol.strip() or len(symbol) > 64:
+        raise StoreError(f"symbol {symbol!r} must be 1 to 64 characters")
+
+
+def _finite(value: Any, what: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise StoreError(f"{what} {value!r} is not a number") from None
+    if not math.isfinite(v):
+        raise StoreError(f"{what} must be a finite number, got {value!r}")
+    return v
+
+
+def _check_quantity(quantity: Any) -> int:
+    q = _finite(quantity, "quantity")
+    if q != int(q):
+        raise StoreError(f"quantity must be a whole number of contracts or shares, got {quantity!r}")
+    if q == 0:
+        raise StoreError("quantity must not be zero")
+    if abs(q) >= 2**53:
+        raise StoreError(f"quantity {quantity!r} is too large")
+    return int(q)
+
+
+def _check_price(price: Any) -> float:
+    px = _finite(price, "price")
+    if px < 0:
+        raise StoreError(f"price must not be negative, got {price!r}")
+    if px >= 1e12:
+        raise StoreError(f"price {price!r} is too large")
+    return px
+
+
+def _check_strike(strike: Any) -> float:
+    k = _finite(strike, "strike")
+    if k <= 0:
+        raise StoreError(f"strike must be positive, got {strike!r}")
+    return round(k, 8)
+
+
+def _check_vol(vol: Any) -> float:
+    v = _finite(vol, "vol")
+    if not 0 < v <= 10:
+        raise StoreError(f"vol must be a decimal above 0 and at most 10 (0.25 = 25%), got {vol!r}")
+    return v
+
+
+def _check_decimal(value: Any, what: str) -> float:
+    v = _finite(value, what)
+    if not -1 <= v <= 1:
+        raise StoreError(f"{what} must be a decimal between -1 and 1 (0.04 = 4%), got {value!r}")
+    return v
+
+
+def _check_currency(currency: Any) -> str:
+    if not isinstance(currency, str) or not re.fullmatch(r"[A-Z]{3}", currency):
+        raise StoreError(f"currency {currency!r} must be an ISO 4217 code like USD")
+    return currency
+
+
+def _check_tenor(tenor_days: Any) -> int:
+    d = _finite(tenor_days, "tenor")
+    if d != int(d) or not 1 <= d <= 36500:
+        raise StoreError(f"tenor must be a whole number of days from 1 to 36500, got {tenor_days!r}")
+    return int(d)
+
+
+def _check_source(source: str) -> None:
+    if source not in ("typed", "exercise", "demo") and not (source.startswith("file:") and len(source) > 5):
+        raise StoreError(f"source {source!r} must be typed, exercise, demo or file:NAME")
+
+
+def _contract_terms(expiry: date | str | None, strike: float | None,
+                    is_call: bool | None) -> tuple[str, str | None, float | None]:
+    """(option_type, expiry text, strike) from user terms; all None = the underlying itself."""
+    if expiry is None and strike is None and is_call is None:
+        return "U", None, None
+    if expiry is None or strike is None or is_call is None:
+        raise StoreError("an option needs an expiry, a strike and call or put "
+                         "(leave all three out for the underlying itself)")
+    return ("C" if is_call else "P"), parse_date(expiry).isoformat(), _check_strike(strike)
+
+
+# --------------------------------------------------------------------------------------------
+# CSV reading and row parsing
+
+
+def _read_csv(path: str | os.PathLike[str], known: Sequence[str], required: Sequence[str]
+              ) -> tuple[Path, bytes, str, list[str], list[tuple[int, dict[str, str]]]]:
+    """(path, bytes, sha256, header, [(line, {column: text})]) of a UTF-8 CSV (BOM, CRLF or LF)."""
+    p = Path(path)
+    try:
+        data = p.read_bytes()
+    except FileNotFoundError:
+        raise StoreError(f"no file {p}") from None
+    except OSError as exc:
+        raise StoreError(f"cannot read {p}: {exc.strerror}") from None
+    digest = hashlib.sha256(data).hexdigest()
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        raise StoreError(f"{p.name}: nothing imported; line {line} is not UTF-8 "
+                         f"(byte {exc.start + 1})") from None
+    if "\x00" in text:
+        line = text[:text.index("\x00")].count("\n") + 1
+        raise StoreError(f"{p.name}: nothing imported; line {line} holds a NUL character")
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    try:
+        header = next(reader)
+    except StopIteration:
+        raise StoreError(f"{p.name}: nothing imported; the file is empty") from None
+    except csv.Error as exc:
+        raise StoreError(f"{p.name}: nothing imported; line 1: {exc}") from None
+    header = [h.strip() for h in header]
+    problems: list[_Problem] = []
+    for i, h in enumerate(header):
+        if h not in known:
+            problems.append(_Problem(1, h, f"unknown column (known: {', '.join(known)})"))
+        elif header.index(h) != i:
+            problems.append(_Problem(1, h, "column given twice"))
+    for col in required:
+        if col not in header:
+            problems.append(_Problem(1, col, "required column is missing"))
+    _raise_if(p, problems)
+    rows: list[tuple[int, dict[str, str]]] = []
+    start = reader.line_num + 1
+    while True:
+        try:
+            rec = next(reader)
+        except StopIteration:
+            break
+        except csv.Error as exc:
+            problems.append(_Problem(start, "", f"cannot read the CSV: {exc}"))
+            _raise_if(p, problems)
+        if rec and any(c.strip() for c in rec):
+            if len(rec) != len(header):
+                problems.append(_Problem(start, "", f"{len(rec)} cells where the header has "
+                                                    f"{len(header)}"))
+            else:
+                rows.append((start, dict(zip(header, rec))))
+        start = reader.line_num + 1
+    _raise_if(p, problems)
+    return p, data, digest, header, rows
+
+
+def _raise_if(p: Path, problems: list[_Problem]) -> None:
+    if problems:
+        raise CsvImportError(p, problems[:MAX_PROBLEMS], len(problems))
+
+
+def _unneutralise(text: str) -> str:
+    """Undo the leading quote ``neutralise`` puts before formula-like text on export."""
+    if len(text) >= 2 and text[0] == "'" and text[1] in "=+-@\t\r":
+        return text[1:]
+    return text
+
+
+def _cell(rec: dict[str, str], col: str) -> str:
+    return _unneutralise(rec.get(col, "").strip())
+
+
+def _parse_trade_row(line: int, rec: dict[str, str], unders: dict[str, tuple[Any, ...]],
+                     now: datetime, problems: list[_Problem]) -> tuple[Any, ...] | None:
+    """One checked trade row, or None after appending its problems."""
+    before = len(problems)
+
+    def bad(col: str, msg: str) -> None:
+        problems.append(_Problem(line, col, msg))
+
+    book = _cell(rec, "book")
+    if not 1 <= len(book) <= 64:
+        bad("book", "must be 1 to 64 characters")
+    symbol = _cell(rec, "symbol")
+    if symbol not in unders:
+        bad("symbol", f"unknown underlying {symbol!r}")
+    typ = _cell(rec, "type").upper()
+    expiry_text, strike_text = _cell(rec, "expiry"), _cell(rec, "strike")
+    expiry: str | None = None
+    strike: float | None = None
+    is_call: bool | None = None
+    if typ in ("C", "P"):
+        is_call = typ == "C"
+        try:
+            expiry = parse_date(expiry_text).isoformat()
+        except StoreError:
+            bad("expiry", f"{expiry_text!r} is not an ISO date like 2027-03-19")
+        try:
+            strike = _check_strike(strike_text)
+        except StoreError as exc:
+            bad("strike", str(exc) if strike_text else "an option needs a strike")
+    elif typ == "U":
+        if expiry_text or strike_text:
+            bad("expiry" if expiry_text else "strike", "the underlying itself (type U) has no "
+                                                       "expiry or strike")
+    else:
+        bad("type", f"{typ!r} is not C (call), P (put) or U (the underlying itself)")
+    qty = price = None
+    try:
+        qty = _check_quantity(_cell(rec, "quantity"))
+    except StoreError as exc:
+        bad("quantity", str(exc))
+    try:
+        price = _check_price(_cell(rec, "price"))
+    except StoreError as exc:
+        bad("price", str(exc))
+    t = None
+    try:
+        t = parse_time(_cell(rec, "trade_time"))
+        if t > now:
+            bad("trade_time", f"{t.isoformat()} is in the future")
+        elif expiry is not None and t.date().isoformat() > expiry:
+            bad("trade_time", f"trade date {t.date().isoformat()} is after the expiry {expiry}")
+    except StoreError as exc:
+        bad("trade_time", str(exc))
+    style = _cell(rec, "style").lower()
+    american = {"": None, "american": True, "european": False}.get(style, "bad")
+    if american == "bad":
+        bad("style", f"{style!r} is not american or european")
+    mult_text = _cell(rec, "multiplier")
+    mult = None
+    if mult_text:
+        try:
+            mult = _finite(mult_text, "multiplier")
+            if mult <= 0:
+                bad("multiplier", f"must be positive, got {mult_text!r}")
+        except StoreError as exc:
+            bad("multiplier", str(exc))
+    settlement = _cell(rec, "settlement").lower()
+    cash = {"": None, "cash": True, "physical": False}.get(settlement, "bad")
+    if cash == "bad":
+        bad("settlement", f"{settlement!r} is not cash or physical")
+    state = _cell(rec, "state")
+    if state and state != "live":
+        bad("state", f"only live trades can be imported, this one is {state!r}")
+    if len(problems) > before:
+        return None
+    return (book, symbol, expiry, strike, is_call, qty, price, t, american, mult, cash,
+            _cell(rec, "note"))
+
+
+def _parse_mark_row(line: int, rec: dict[str, str], unders: dict[str, int],
+                    problems: list[_Problem]) -> tuple[Any, ...] | None:
+    """One checked mark point (kind, underlying_id, currency, expiry, strike, tenor, value)."""
+    before = len(problems)
+
+    def bad(col: str, msg: str) -> None:
+        problems.append(_Problem(line, col, msg))
+
+    kind = _cell(rec, "kind").lower()
+    symbol, ccy = _cell(rec, "symbol"), _cell(rec, "currency")
+    expiry_text, strike_text, tenor_text = _cell(rec, "expiry"), _cell(rec, "strike"), _cell(rec, "tenor_days")
+    value_text = _cell(rec, "value")
+    if kind not in MARK_KINDS:
+        bad("kind", f"{kind!r} is not one of {', '.join(MARK_KINDS)}")
+        return None
+    uid = None
+    if kind == "rate":
+        for col, text in (("symbol", symbol), ("expiry", expiry_text), ("strike", strike_text)):
+            if text:
+                bad(col, "a rate mark has no " + col)
+    else:
+        if symbol not in unders:
+            bad("symbol", f"unknown underlying {symbol!r}")
+        else:
+            uid = unders[symbol]
+        for col, text in (("currency", ccy), ("tenor_days", tenor_text)):
+            if text:
+                bad(col, f"a {kind} mark has no {col}")
+    expiry = strike = tenor = None
+    currency = None
+    if kind == "vol":
+        try:
+            expiry = parse_date(expiry_text).isoformat()
+        except StoreError:
+            bad("expiry", f"{expiry_text!r} is not an ISO date like 2027-03-19")
+        if strike_text:
+            try:
+                strike = _check_strike(strike_text)
+            except StoreError as exc:
+                bad("strike", str(exc))
+    elif kind in ("spot", "div_yield"):
+        for col, text in (("expiry", expiry_text), ("strike", strike_text)):
+            if text:
+                bad(col, f"a {kind} mark has no {col}")
+    if kind == "rate":
+        try:
+            currency = _check_currency(ccy)
+        except StoreError as exc:
+            bad("currency", str(exc))
+        try:
+            tenor = _check_tenor(tenor_text)
+        except StoreError as exc:
+            bad("tenor_days", str(exc))
+    value = None
+    try:
+        if kind == "spot":
+            value = _finite(value_text, "spot")
+            if value <= 0 or value >= 1e12:
+                bad("value", f"spot must be a positive price, got {value_text!r}")
+        elif kind == "vol":
+            value = _check_vol(value_text)
+        else:
+            value = _check_decimal(value_text, "rate" if kind == "rate" else "dividend yield")
+    except StoreError as exc:
+        bad("value", str(exc))
+    if len(problems) > before:
+        return None
+    return (kind, uid, currency, expiry, strike, tenor, value)
+
+
+def trade_csv_row(t: TradeRecord) -> list[Any]:
+    """The CSV cells of a trade, ``TRADE_COLUMNS`` then ``TRADE_INFO_COLUMNS`` (the import format)."""
+    return [t.book, t.symbol, t.option_type, t.expiry.isoformat() if t.expiry else "",
+            "" if t.strike is None else repr(float(t.strike)).removesuffix(".0"),
+            t.quantity, repr(float(t.price)), _ts(t.trade_time),
+            "american" if t.american else "european", repr(float(t.multiplier)).removesuffix(".0"),
+            "cash" if t.cash_settled else "physical", t.note,
+            t.trade_id, t.state, t.who, t.source, _ts(t.booked_at), t.contract]
+
+
+def mark_csv_row(m: MarkRecord) -> list[Any]:
+    """The CSV cells of a mark point, ``MARK_COLUMNS`` then ``MARK_INFO_COLUMNS``."""
+    return [m.kind, m.symbol or "", m.currency or "", m.expiry.isoformat() if m.expiry else "",
+            "" if m.strike is None else repr(float(m.strike)).removesuffix(".0"),
+            "" if m.tenor_days is None else m.tenor_days, repr(float(m.value)),
+            m.mark_id, m.mark_set_id, m.set_kind, _ts(m.marked_at), m.who]
+
+
+def timestamp_text(t: datetime) -> str:
+    """The store's text for an instant (UTC, microseconds, Z)."""
+    return _ts(t)
