@@ -1,0 +1,232 @@
+"""American options by Bjerksund–Stensland (2002), vectorized, with finite-difference greeks.
+
+P. Bjerksund and G. Stensland, "Closed Form Valuation of American Options", discussion paper,
+NHH 2002: the call is valued as the strategy "exercise when the spot reaches a flat boundary I1
+before t1 = ½(√5 − 1) T, or I2 after it", which needs the bivariate normal at ρ = ±√(t1/T)
+(``bivariate``). Puts use the put–call transformation P(S, K, T, r, b, σ) = C(K, S, T, r − b, −b, σ).
+
+Rules applied on top of the formula, per row:
+
+- a call with b >= r (a put with r <= 0) is never exercised early: the European value;
+- the value is floored at the European value and at intrinsic (the 2002 formula can dip below
+  the European value when b is near 0 and r is small);
+- rows where the 2002 exponent β is not real (possible only with a negative call-form rate:
+  r for calls, r − b for puts) take max(European, intrinsic), a lower bound;
+- vols below ``VOL_FLOOR`` are valued at ``VOL_FLOOR`` by the 2002 formula (the European floor
+  still uses the true vol).
+
+Greeks are central differences of this price with the steps in ``STEPS``; vanna and charm use
+the seven-point mixed-difference formula, which reuses the one-dimensional bumps.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from scipy.special import ndtr
+
+from blotter.engine import black
+from blotter.engine.bivariate import GOLDEN, bvn_quadrature
+
+VOL_FLOOR = 1e-3
+"""Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
+_EXP_CAP = 700.0
+"""Cap on exponents of products e^L·N(d): where e^L would overflow, N(d) is 0 in float64."""
+
+STEPS = {
+    "spot_rel": 1e-4,
+    "vol": 1e-4,
+    "rate": 1e-5,
+    "carry": 1e-5,
+    "years_rel": 1e-4,
+}
+"""Central-difference steps: spot 1e-4 × S, vol 1e-4 (0.01 vol point), rate and carry 1e-5
+(0.1 bp), years 1e-4 × T. Vol differences are centred at max(σ, 1e-4), so greeks of rows with
+vols below 1e-4 are those at 1e-4 (their price uses the true vol)."""
+
+
+def _cexp(x: np.ndarray) -> np.ndarray:
+    return np.exp(np.minimum(x, _EXP_CAP, out=x), out=x)
+
+
+def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
+                v: np.ndarray) -> np.ndarray:
+    """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), where b < r and β is real.
+
+    Values of rows outside that domain are finite but meaningless; callers select them away.
+    """
+    v2 = v * v
+    t1 = GOLDEN * t
+    vs1 = v * np.sqrt(t1)
+    vst = v * np.sqrt(t)
+    bv = b / v2
+    beta = (0.5 - bv) + np.sqrt(np.square(bv - 0.5) + 2.0 * r / v2)
+    b_inf = beta / (beta - 1.0) * k
+    b_0 = np.maximum(k, r / (r - b) * k)
+    scale = k * k / ((b_inf - b_0) * b_0)
+    gap = b_inf - b_0
+    i1 = b_0 - gap * np.expm1(-(b * t1 + 2.0 * vs1) * scale)
+    i2 = b_0 - gap * np.expm1(-(b * t + 2.0 * vst) * scale)
+    ls, lk, l1, l2 = np.log(s), np.log(k), np.log(i1), np.log(i2)
+
+    gammas = {"beta": beta, 1: 1.0, 0: 0.0}
+    mu = {g: b + (gv - 0.5) * v2 for g, gv in gammas.items()}
+    lam = {g: -r + gv * b + 0.5 * gv * (gv - 1.0) * v2 for g, gv in gammas.items()}
+    kap = {g: 2.0 * bv + (2.0 * gv - 1.0) for g, gv in gammas.items()}
+
+    # Log-prefactors e^L (coefficient sign and size kept apart): α_j S^β = (I_j − K) e^{β ln(S/I_j)}.
+    def log_pref(g: str | int, tt: np.ndarray, l_i: np.ndarray | None) -> np.ndarray:
+        lp = lam[g] * tt
+        if g == "beta":
+            assert l_i is not None
+            return lp + beta * (ls - l_i)
+        if g == 1:
+            return lp + ls
+        return lp
+
+    # φ(S, t1, γ, H, I2) terms: (coefficient, γ, ln H, ln I_j of the α_j prefactor)
+    phi_terms = [
+        (-(i2 - k), "beta", l2, l2),
+        (1.0, 1, l2, None),
+        (-1.0, 1, l1, None),
+        (-k, 0, l2, None),
+        (k, 0, l1, None),
+        (i1 - k, "beta", l1, l1),
+    ]
+    x2 = l2 - ls                                       # ln(I2/S)
+    coefs, logs, args = [], [], []
+    for coef, g, lh, li in phi_terms:
+        lp = log_pref(g, t1, li)
+        d = -(ls - lh + mu[g] * t1) / vs1
+        coefs += [coef, -coef]
+        logs += [lp, lp + kap[g] * x2]
+        args += [d, d - 2.0 * x2 / vs1]
+    value = (i2 - k) * np.exp(np.minimum(beta * (ls - l2), _EXP_CAP))
+    cf = np.broadcast_arrays(*coefs)
+    value += np.sum(np.stack(cf) * _cexp(np.stack(logs)) * ndtr(np.stack(args)), axis=0)
+
+    # ψ(S, T, γ, H, I2, I1, t1) terms
+    psi_terms = [
+        (-(i1 - k), "beta", l1, l1),
+        (1.0, 1, l1, None),
+        (-1.0, 1, lk, None),
+        (-k, 0, l1, None),
+        (k, 0, lk, None),
+    ]
+    pos_h, pos_k, pos_c, pos_l = [], [], [], []
+    neg_h, neg_k, neg_c, neg_l = [], [], [], []
+    for coef, g, lh, li in psi_terms:
+        lp = log_pref(g, t, li)
+        m1 = mu[g] * t1
+        mt = mu[g] * t
+        e1 = (ls - l1 + m1) / vs1
+        e2 = (2.0 * l2 - ls - l1 + m1) / vs1
+        e3 = (ls - l1 - m1) / vs1
+        e4 = (2.0 * l2 - ls - l1 - m1) / vs1
+        f1 = (ls - lh + mt) / vst
+        f2 = (2.0 * l2 - ls - lh + mt) / vst
+        f3 = (2.0 * l1 - ls - lh + mt) / vst
+        f4 = (ls + 2.0 * l1 - lh - 2.0 * l2 + mt) / vst
+        pos_h += [-e1, -e2]
+        pos_k += [-f1, -f2]
+        pos_c += [coef, -coef]
+        pos_l += [lp, lp + kap[g] * x2]
+        neg_h += [-e3, -e4]
+        neg_k += [-f3, -f4]
+        neg_c += [-coef, coef]
+        neg_l += [lp + kap[g] * (l1 - ls), lp + kap[g] * (l1 - l2)]
+    for hh, kk, cc, ll, sign in ((pos_h, pos_k, pos_c, pos_l, +1),
+                                 (neg_h, neg_k, neg_c, neg_l, -1)):
+        h_arr = np.stack(hh)
+        k_arr = np.stack(kk)
+        mvals = bvn_quadrature(h_arr, k_arr, sign)
+        mvals += ndtr(h_arr) * ndtr(k_arr)
+        value += np.sum(np.stack(np.broadcast_arrays(*cc)) * _cexp(np.stack(ll)) * mvals, axis=0)
+    return np.where(s >= i2, s - k, value)
+
+
+def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
+                   b: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """American value by the 2002 formula with the module's rules, arrays of one shape (m,)."""
+    euro = np.empty(s.shape)
+    black.price_kernel((w, s, k, t, r, b, v), (euro,))
+    put = w < 0
+    s_c = np.where(put, k, s)
+    k_c = np.where(put, s, k)
+    r_c = np.where(put, r - b, r)
+    b_c = np.where(put, -b, b)
+    v_c = np.maximum(v, VOL_FLOOR)
+    bv = b_c / (v_c * v_c)
+    disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
+    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0)
+    intrinsic = np.maximum(w * (s - k), 0.0)
+    out = np.maximum(euro, intrinsic)
+    if live.any():
+        idx = np.flatnonzero(live)
+        bs = bs2002_call(s_c[idx], k_c[idx], t[idx], r_c[idx], b_c[idx], v_c[idx])
+        out[idx] = np.maximum(out[idx], bs)
+    return out
+
+
+def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+    """Fill American prices for one chunk; ``ins`` = (ω, S, K, T, r, b, σ), ``outs`` = (price,)."""
+    (price,) = outs
+    cols = np.broadcast_arrays(*ins, price)[:-1]
+    price[:] = american_value(*cols)
+
+
+def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+    """Fill American price and nine greeks by central differences, for one chunk.
+
+    One call of ``american_value`` evaluates all 15 bumped copies of the chunk together.
+    """
+    w, s, k, t, r, b, v = np.broadcast_arrays(*ins, outs[0])[:-1]
+    price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
+    hs = STEPS["spot_rel"] * s
+    hv = STEPS["vol"]
+    hr = STEPS["rate"]
+    hb = STEPS["carry"]
+    ht = STEPS["years_rel"] * np.maximum(t, 0.0)
+    # Bumps: (dS, dσ, dr, db, dT) per copy, in units of the steps above.
+    bumps = np.array([
+        [0, 0, 0, 0, 0],
+        [1, 0, 0, 0, 0], [-1, 0, 0, 0, 0],
+        [0, 1, 0, 0, 0], [0, -1, 0, 0, 0],
+        [0, 0, 1, 0, 0], [0, 0, -1, 0, 0],
+        [0, 0, 0, 1, 0], [0, 0, 0, -1, 0],
+        [0, 0, 0, 0, 1], [0, 0, 0, 0, -1],
+        [1, 1, 0, 0, 0], [-1, -1, 0, 0, 0],
+        [1, 0, 0, 0, 1], [-1, 0, 0, 0, -1],
+    ], dtype=np.float64)
+    n_b = bumps.shape[0]
+    vg = np.maximum(v, hv)                    # centre of the vol differences, so σ − h >= 0
+    sv = s + bumps[:, 0:1] * hs
+    vv = vg + bumps[:, 1:2] * hv
+    rv = r + bumps[:, 2:3] * hr
+    bv = b + bumps[:, 3:4] * hb
+    tv = t + bumps[:, 4:5] * ht
+    vals = american_value(np.broadcast_to(w, sv.shape).ravel(), sv.ravel(),
+                          np.broadcast_to(k, sv.shape).ravel(), tv.ravel(), rv.ravel(),
+                          bv.ravel(), vv.ravel()).reshape(n_b, -1)
+    f0 = vals[0]
+    fs_p, fs_m, fv_p, fv_m, fr_p, fr_m, fb_p, fb_m, ft_p, ft_m, fsv_p, fsv_m, fst_p, fst_m = vals[1:]
+    low_vol = v < hv
+    if low_vol.any():
+        price[:] = np.where(low_vol, american_value(w, s, k, t, r, b, v), f0)
+    else:
+        price[:] = f0
+    delta[:] = (fs_p - fs_m) / (2.0 * hs)
+    gamma[:] = (fs_p - 2.0 * f0 + fs_m) / (hs * hs)
+    vega[:] = (fv_p - fv_m) / (2.0 * hv)
+    volga[:] = (fv_p - 2.0 * f0 + fv_m) / (hv * hv)
+    rho[:] = (fr_p - fr_m) / (2.0 * hr)
+    crho[:] = (fb_p - fb_m) / (2.0 * hb)
+    safe_ht = np.where(ht > 0, ht, 1.0)
+    theta[:] = -(ft_p - ft_m) / (2.0 * safe_ht)
+    # Seven-point mixed differences: f_xy ≈ (f++ − f+0 − f0+ + 2 f00 − f−0 − f0− + f−−) / (2 hx hy)
+    vanna[:] = (fsv_p - fs_p - fv_p + 2.0 * f0 - fs_m - fv_m + fsv_m) / (2.0 * hs * hv)
+    charm[:] = -(fst_p - fs_p - ft_p + 2.0 * f0 - fs_m - ft_m + fst_m) / (2.0 * hs * safe_ht)
+    dead = t <= 0.0
+    if dead.any():
+        black.expired_fill(w, s, k, t, outs)

@@ -1,0 +1,63 @@
+"""Vectorized bivariate normal CDF at the one correlation Bjerksund–Stensland (2002) needs.
+
+M(h, k; ρ) = P(X < h, Y < k) for standard normals with correlation ρ, by the Drezner–Wesolowsky
+(1990) form as arranged by Genz (2004, Statistics and Computing 14, 251–260):
+
+    M(h, k; ρ) = N(h) N(k) + (1/2π) ∫_0^{asin ρ} exp(−(h² − 2 h k sin θ + k²) / (2 cos² θ)) dθ
+
+evaluated by Gauss–Legendre quadrature in θ. The 2002 approximation only uses ρ = ±√(t1/T) with
+t1/T = (√5 − 1)/2, so the nodes, sin θ and 1/cos² θ are constants computed once here. With
+``NODES`` = 10 the absolute error is below 3e-13 over h, k in [−8, 8] (tests check it against
+SciPy's multivariate normal).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy.special import ndtr
+
+GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0
+"""t1 / T of the 2002 two-step boundary: t1 = ½(√5 − 1) T."""
+RHO = math.sqrt(GOLDEN)
+"""The correlation √(t1/T) ≈ 0.786 of the bivariate normals in the 2002 formula."""
+NODES = 10
+"""Gauss–Legendre nodes in θ; 10 gives an absolute error below 3e-13 at |ρ| = RHO."""
+
+
+def _rule(rho: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    x, w = np.polynomial.legendre.leggauss(NODES)
+    asr = math.asin(rho)
+    sn = np.sin(asr * (x + 1.0) / 2.0)
+    inv_cos2 = 1.0 / (1.0 - sn * sn)
+    return sn * inv_cos2, 0.5 * inv_cos2, np.log(w), asr / (4.0 * math.pi)
+
+
+_RULES = {+1: _rule(RHO), -1: _rule(-RHO)}
+
+
+def bvn_quadrature(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
+    """M(h, k; sign·RHO) − N(h) N(k), elementwise for arrays of one shape (any shape)."""
+    a_coef, b_coef, log_w, scale = _RULES[sign]
+    hk = h * k
+    hs = np.square(h)
+    hs += np.square(k)
+    acc = np.zeros_like(hk)
+    tmp = np.empty_like(hk)
+    tmp2 = np.empty_like(hk)
+    for i in range(NODES):
+        # exp(sinθ hk / cos²θ − (h² + k²) / (2 cos²θ) + ln w_i)
+        np.multiply(hk, a_coef[i], out=tmp)
+        np.multiply(hs, b_coef[i], out=tmp2)
+        tmp -= tmp2
+        tmp += log_w[i]
+        np.exp(tmp, out=tmp)
+        acc += tmp
+    acc *= scale
+    return acc
+
+
+def bvn_cdf(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
+    """M(h, k; sign·RHO) = P(X < h, Y < k), correlation ±RHO, for arrays of one shape."""
+    return bvn_quadrature(h, k, sign) + ndtr(h) * ndtr(k)
