@@ -204,13 +204,13 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
         symbol: str | None = None
         if low not in _KEYWORDS:
             nxt = toks[k + 1][0].lower() if k + 1 < len(toks) else ""
-            if nxt in ("spot", "vol") and _SYMBOL.match(word):
+            if low in ("beta", "weighted"):
+                where = "a spot % move (spot -3% beta)" if low == "beta" else "a vol points move (vol +2 weighted)"
+                raise fail(f"'{word}' must follow {where}", k)
+            elif nxt in ("spot", "vol") and _SYMBOL.match(word):
                 symbol = _resolve_symbol(word, symbols, fail, k)
                 k += 1
                 low = nxt
-            elif low in ("beta", "weighted"):
-                where = "a spot % move (spot -3% beta)" if low == "beta" else "a vol points move (vol +2 weighted)"
-                raise fail(f"'{word}' must follow {where}", k)
             elif _NUMBER.match(word) or _LEVEL.match(word):
                 raise fail(f"'{word}' needs a part before it: spot, vol, days, bdays or rate", k)
             elif nxt and (_NUMBER.match(nxt) or _LEVEL.match(nxt)):

@@ -1,0 +1,14 @@
+"""Fixtures of the risk-layer tests; the books and the QuantLib pricer live in ``scenario_books``."""
+
+from __future__ import annotations
+
+import pytest
+from scenario_books import make_book, mixed_rows
+
+from blotter.book import Book
+
+
+@pytest.fixture
+def mixed_book() -> Book:
+    """Options on all four kinds of underlying plus a stock and a futures hedge."""
+    return make_book(mixed_rows())

@@ -1,0 +1,205 @@
+"""Book exposures in desk units: scaling, units, rho composition, hedges, beta and weighted vega.
+
+Sources: J. C. Hull, Options, Futures, and Other Derivatives (9th ed. 2015), Ch. 19 running example
+(S0 = 49, K = 50, r = 5%, σ = 20%, 20 weeks; 100,000 calls) — from memory, as listed in
+/work/shared/REFERENCES.md (hull-greeks-49-50); QuantLib 1.44 AnalyticEuropeanEngine for the same
+numbers at full precision; desk units of DESIGN.md (vega / 100, theta / 365, rho / 100, Γ × S / 100)
+are common practice (PRACTICE.md §1).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
+
+from blotter.book import Underlyings
+from blotter.market import Market, RateCurve
+from blotter.risk import (
+    DEFAULT_T_REF_DAYS,
+    WEIGHT_FLOOR_DAYS,
+    aggregate,
+    beta_delta_index_units,
+    total,
+    value_book,
+)
+
+HULL = Underlyings(symbols=("HUL",), kinds=("stock",), currencies=("USD",), betas=np.array([1.0]),
+                   div_yields=np.array([0.0]), calendars=("NYSE",))
+HULL_T = 20 / 52
+
+
+def _hull_market(spot: float = 49.0) -> Market:
+    m = make_market(spots={"HUL": spot}, vols={"HUL": 0.20})
+    return Market(version=1, marks_as_of=m.marks_as_of, spots=m.spots, surfaces=m.surfaces,
+                  curves={"USD": RateCurve(np.array([1.0, 3650.0]), np.array([0.05, 0.05]))})
+
+
+def _hull_valuation(qty: float = 1.0, mult: float = 1.0):
+    book = make_book([Row("HUL", qty, 50.0, call=True, mult=mult, years=HULL_T)], HULL, ref=None)
+    return value_book(book, _hull_market(), T0)
+
+
+def _ql_greeks(call: bool, s: float, k: float, t_days: float, r: float, q: float, vol: float) -> dict[str, float]:
+    import QuantLib as ql
+
+    today = ql.Date(4, 12, 2026)
+    ql.Settings.instance().evaluationDate = today
+    dc = ql.Actual365Fixed()
+    payoff = ql.PlainVanillaPayoff(ql.Option.Call if call else ql.Option.Put, k)
+    opt = ql.VanillaOption(payoff, ql.EuropeanExercise(today + int(t_days)))
+    proc = ql.BlackScholesMertonProcess(
+        ql.QuoteHandle(ql.SimpleQuote(s)), ql.YieldTermStructureHandle(ql.FlatForward(today, q, dc)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc)),
+        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), vol, dc)))
+    opt.setPricingEngine(ql.AnalyticEuropeanEngine(proc))
+    return {"price": opt.NPV(), "delta": opt.delta(), "gamma": opt.gamma(), "vega": opt.vega(),
+            "theta": opt.theta(), "rho": opt.rho(), "div_rho": opt.dividendRho()}
+
+
+def test_hull_example_in_desk_units() -> None:
+    """Hull Ch. 19 (from memory): Δ 0.522, Γ 0.066, vega 12.1 (0.121 per point), θ −4.31/yr
+    (−0.0118 per calendar day), ρ 8.91 (0.0891 per 1%)."""
+    v = _hull_valuation()
+    assert v.value[0] == pytest.approx(2.40, abs=0.005)
+    assert v.delta_shares[0] == pytest.approx(0.522, abs=0.0005)
+    assert v.gamma_1pct[0] / (49.0 * 0.01) == pytest.approx(0.066, abs=0.0005)
+    assert v.vega_pt[0] == pytest.approx(0.121, abs=0.0005)
+    assert v.theta_day[0] == pytest.approx(-0.0118, abs=0.00005)
+    assert v.rho_pct[0] == pytest.approx(0.0891, abs=0.00005)
+    assert v.delta_cash[0] == pytest.approx(v.delta_shares[0] * 49.0)
+
+
+def test_position_scaling_hull_100000_calls() -> None:
+    """Hull's bank is short 100,000 calls: position delta about −52,200 shares (from memory)."""
+    v = _hull_valuation(qty=-1000, mult=100)
+    assert v.delta_shares[0] == pytest.approx(-52_200, abs=50)
+    one = _hull_valuation()
+    for name in ("value", "gamma_1pct", "vega_pt", "theta_day", "rho_pct", "vanna_pt", "volga_pt"):
+        assert getattr(v, name)[0] == pytest.approx(-100_000 * getattr(one, name)[0], rel=1e-12)
+
+
+def test_desk_units_match_quantlib_at_full_precision() -> None:
+    book = make_book([Row("STK", 1, 125.0, 60, call=False, mult=1)])
+    v = value_book(book, make_market(), T0)
+    ql_g = _ql_greeks(False, SPOTS["STK"], 125.0, 60, RATE, 0.02, 0.35)
+    assert v.value[0] == pytest.approx(ql_g["price"], rel=1e-9)
+    assert v.delta_shares[0] == pytest.approx(ql_g["delta"], rel=1e-9)
+    assert v.gamma_1pct[0] == pytest.approx(ql_g["gamma"] * SPOTS["STK"] / 100, rel=1e-9)
+    assert v.vega_pt[0] == pytest.approx(ql_g["vega"] / 100, rel=1e-9)
+    assert v.theta_day[0] == pytest.approx(ql_g["theta"] / 365, rel=1e-7)
+    # Stock: carry b = r − q moves with r, so the desk rho is QuantLib's rho (q held fixed).
+    assert v.rho_pct[0] == pytest.approx(ql_g["rho"] / 100, rel=1e-9)
+
+
+def test_fx_rho_is_domestic_rate_rho_with_the_foreign_rate_fixed() -> None:
+    book = make_book([Row("FXA", 1, 1.12, 40, call=True, mult=1)])
+    v = value_book(book, make_market(), T0)
+    ql_g = _ql_greeks(True, SPOTS["FXA"], 1.12, 40, RATE, 0.045, 0.10)
+    assert v.value[0] == pytest.approx(ql_g["price"], rel=1e-9)
+    assert v.rho_pct[0] == pytest.approx(ql_g["rho"] / 100, rel=1e-9)
+
+
+def test_futures_option_rho_is_minus_t_times_value() -> None:
+    """Black-76: with b = 0 the only rate effect is discounting, ∂V/∂r = −T·V (analytic)."""
+    book = make_book([Row("FUT", 1, 75.0, 90, call=False, mult=1)])
+    v = value_book(book, make_market(), T0)
+    assert v.carry[0] == 0.0
+    assert v.rho_pct[0] == pytest.approx(-(90 / 365) * v.value[0] / 100, rel=1e-9)
+    ql_g = _ql_greeks(False, SPOTS["FUT"], 75.0, 90, RATE, RATE, 0.30)
+    assert v.value[0] == pytest.approx(ql_g["price"], rel=1e-9)
+
+
+def test_hedges_count_delta_one_and_nothing_else() -> None:
+    book = make_book([Row("STK", 1500, mult=1), Row("FUT", 3, mult=1000)])
+    v = value_book(book, make_market(), T0)
+    assert v.delta_shares.tolist() == [1500.0, 3000.0]
+    assert v.delta_cash.tolist() == [1500 * 120.0, 3000 * 80.0]
+    for name in ("gamma_1pct", "vega_pt", "theta_day", "rho_pct", "vanna_pt", "volga_pt", "weighted_vega_pt"):
+        assert getattr(v, name).tolist() == [0.0, 0.0]
+    assert v.value[0] == 1500 * 120.0
+    assert v.value[1] == 0.0          # a future's value settles daily: zero after the mark
+    assert v.settles_daily.tolist() == [False, True]
+
+
+def test_beta_weighted_delta(mixed_book) -> None:
+    v = value_book(mixed_book, make_market(), T0)
+    betas = mixed_book.underlyings.betas[mixed_book.underlying_idx]
+    assert v.beta_delta_cash == pytest.approx(v.delta_cash * betas)
+    tot = total(v)
+    assert tot.beta_delta_cash == pytest.approx(float(np.sum(v.delta_cash * betas)))
+    assert beta_delta_index_units(v) == pytest.approx(tot.beta_delta_cash / SPOTS["IDX"])
+
+
+def test_weighted_vega_scales_by_root_of_reference_over_expiry() -> None:
+    book = make_book([Row("IDX", 1, 4500, d) for d in (3, 7, 30, 120, 365)])
+    v = value_book(book, make_market(), T0)
+    days = np.array([3, 7, 30, 120, 365], dtype=float)
+    w = np.sqrt(DEFAULT_T_REF_DAYS / np.maximum(days, WEIGHT_FLOOR_DAYS))
+    assert v.weighted_vega_pt == pytest.approx(v.vega_pt * w, rel=1e-12)
+    assert total(v).weighted_vega_pt == pytest.approx(float(np.sum(v.vega_pt * w)))
+
+
+def test_vanna_and_volga_in_desk_units() -> None:
+    """Haug 2007 ch. 2 (from memory): vanna = −e^{(b−r)T} n(d1) d2/σ, volga = vega·d1·d2/σ."""
+    v = _hull_valuation()
+    s, k, t, r, sig = 49.0, 50.0, float(v.years[0]), 0.05, 0.20   # T to the second
+    d1 = (math.log(s / k) + (r + sig**2 / 2) * t) / (sig * math.sqrt(t))
+    d2 = d1 - sig * math.sqrt(t)
+    n1 = math.exp(-d1 * d1 / 2) / math.sqrt(2 * math.pi)
+    vega = s * n1 * math.sqrt(t)
+    assert v.vanna_pt[0] == pytest.approx(-n1 * d2 / sig / 100, rel=1e-9)
+    assert v.volga_pt[0] == pytest.approx(vega * d1 * d2 / sig / 1e4, rel=1e-9)
+
+
+def test_aggregation_by_underlying_and_expiry_adds_to_the_total(mixed_book) -> None:
+    v = value_book(mixed_book, make_market(), T0)
+    tot = total(v)
+    for by in ("underlying", "expiry", "position"):
+        rows = aggregate(v, by)
+        for name in ("value", "delta_cash", "vega_pt", "theta_day", "rho_pct", "beta_delta_cash"):
+            assert sum(getattr(r, name) for r in rows) == pytest.approx(getattr(tot, name), rel=1e-12)
+    under = aggregate(v, "underlying")
+    assert [r.underlying for r in under] == ["IDX", "STK", "FUT", "FXA"]
+    assert [r.spot for r in under] == [4500.0, 120.0, 80.0, 1.10]
+    assert sum(r.n_positions for r in under) == len(mixed_book)
+    with pytest.raises(ValueError, match="by must be"):
+        aggregate(v, "strike")  # type: ignore[arg-type]
+
+
+def test_expiry_buckets() -> None:
+    # T0 is Friday 2026-12-04 15:00 New York: the week ends Sunday 12-06.
+    book = make_book([Row("IDX", 1, 4500, d) for d in (2, 10, 30, 75, 370, 400, -1)] + [Row("STK", 10, mult=1)])
+    v = value_book(book, make_market(), T0)
+    labels = [v.bucket_labels[c] for c in v.bucket_codes]
+    assert labels == ["this week", "this month", "2027-01", "2027-02", "2027-12", "2028", "expired", "hedges"]
+    rows = aggregate(v, "expiry")
+    assert [r.label for r in rows] == ["expired", "this week", "this month", "2027-01", "2027-02",
+                                       "2027-12", "2028", "hedges"]
+
+
+def test_expired_option_is_worth_intrinsic_with_no_greeks() -> None:
+    book = make_book([Row("STK", 2, 100.0, -1, call=True, mult=100)])
+    v = value_book(book, make_market(), T0)
+    assert v.value[0] == pytest.approx(2 * 100 * 20.0)
+    assert v.delta_shares[0] == 0.0 and not v.live[0]
+    assert v.notes
+
+
+def test_vega_unit_and_bad_inputs(mixed_book) -> None:
+    v = value_book(mixed_book, make_market(), T0, vega_unit="vol")
+    assert v.vega_scale == 100.0
+    with pytest.raises(ValueError, match="vega_unit"):
+        value_book(mixed_book, make_market(), T0, vega_unit="bp")
+    m = make_market()
+    del m.spots["FUT"]
+    with pytest.raises(KeyError, match="FUT"):
+        value_book(mixed_book, m, T0)
+
+
+def test_arrays_are_read_only(mixed_book) -> None:
+    v = value_book(mixed_book, make_market(), T0)
+    with pytest.raises(ValueError):
+        v.delta_shares[0] = 1.0
