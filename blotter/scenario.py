@@ -879,41 +879,63 @@ class Explain:
     notes: tuple[str, ...] = ()
 
 
-def _pick_sets(store: Any, from_set: int | None, to_set: int | str | None) -> tuple[Any, Any]:
-    closes = sorted(store.mark_sets(kind="close"), key=lambda s: (s.marked_at, s.id))
+def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
+    """The close a set stands for: a correction takes the time of the set it corrects (its root)."""
+    seen = 0
+    while getattr(s, "corrects", None) is not None and s.corrects in by_id and seen < 1000:
+        s = by_id[s.corrects]
+        seen += 1
+    return s.marked_at
+
+
+def _pick_sets(store: Any, from_set: int | str | None,
+               to_set: int | str | None) -> tuple[Any, Any, Any, Any]:
+    """(start set, end set or "now", start time, end time or None) of an explain.
+
+    Defaults: the last two closes in force (a corrected close is replaced by its correction, which
+    keeps the original close's time); with only ``to_set`` given, the close before it.
+    """
     everything = {s.id: s for s in store.mark_sets()}
-    if to_set is None:
+    closes = sorted((s for s in everything.values()
+                     if s.kind == "close" and getattr(s, "superseded_by", None) is None),
+                    key=lambda s: (_instant(_close_time(s, everything)), s.id))
+
+    def get(x: int | str, name: str) -> Any:
+        try:
+            return everything[int(x)]
+        except (KeyError, ValueError):
+            raise ValueError(f"no mark set {x!r} ({name})") from None
+
+    to: Any
+    if to_set is None and from_set is None:
+        if len(closes) < 2:
+            raise ValueError(f"explain needs two close mark sets; the book has {len(closes)} "
+                             "(give --from, and --to now for the marks in force)")
+        frm, to = closes[-2], closes[-1]
+    else:
+        if to_set is None or (isinstance(to_set, str) and to_set.lower() in ("now", "live")):
+            to = "now"
+        else:
+            to = get(to_set, "--to")
         if from_set is None:
-            if len(closes) < 2:
-                raise ValueError("explain needs two close mark sets; the book has "
-                                 f"{len(closes)} (give --from and --to)")
-            return closes[-2], closes[-1]
-        to: Any = "now"
-    elif isinstance(to_set, str) and to_set.lower() in ("now", "live", "latest"):
-        to = "now"
-    else:
-        try:
-            to = everything[int(to_set)]
-        except (KeyError, ValueError):
-            raise ValueError(f"no mark set {to_set!r}") from None
-    if from_set is None:
-        before = [s for s in closes if to == "now" or (s.marked_at, s.id) < (to.marked_at, to.id)]
-        if not before:
-            raise ValueError("no close mark set before the end set (give --from)")
-        frm = before[-1]
-    else:
-        try:
-            frm = everything[int(from_set)]
-        except (KeyError, ValueError):
-            raise ValueError(f"no mark set {from_set!r}") from None
-    return frm, to
+            end_t = None if to == "now" else _instant(_close_time(to, everything))
+            before = [s for s in closes if s is not to
+                      and (end_t is None or _instant(_close_time(s, everything)) < end_t)]
+            if not before:
+                raise ValueError("no close mark set before the end set (give --from)")
+            frm = before[-1]
+        else:
+            frm = get(from_set, "--from")
+    t0 = _close_time(frm, everything)
+    t1 = None if to == "now" else _close_time(to, everything)
+    return frm, to, t0, t1
 
 
 def _instant(x: Any) -> np.datetime64:
     return cal.to_instant(x) if not isinstance(x, np.datetime64) else np.datetime64(x, "s")
 
 
-def explain(store: Any, from_set: int | None = None, to_set: int | str | None = None) -> Explain:
+def explain(store: Any, from_set: int | str | None = None, to_set: int | str | None = None) -> Explain:
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
 
@@ -921,16 +943,16 @@ def explain(store: Any, from_set: int | None = None, to_set: int | str | None = 
     time; the change is explained by Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
     ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets.
     """
-    frm, to = _pick_sets(store, from_set, to_set)
-    t0 = _instant(frm.marked_at)
+    frm, to, t0_raw, t1_raw = _pick_sets(store, from_set, to_set)
+    t0 = _instant(t0_raw)
     if to == "now":
         m1 = store.load_market()
         t1 = max(cal.now(), _instant(m1.marks_as_of))
     else:
         m1 = store.load_market(to.id)
-        t1 = _instant(to.marked_at)
+        t1 = _instant(t1_raw)
     if t1 < t0:
-        raise ValueError("the end mark set is older than the start set")
+        raise ValueError(f"the end mark set is older than the start set {frm.id}")
     m0 = store.load_market(frm.id)
     held = store.load_book(as_of=cal.to_datetime(t0))
     start = value_book(held, m0, t0)

@@ -1,0 +1,75 @@
+"""The spot × vol ladder: each cell is the same full revaluation as the what-if of that move.
+
+The what-if path is itself checked against QuantLib (test_whatif.py); here the broadcast, chunked
+ladder must agree with it cell by cell, and the worst cell must be the lowest P&L.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scenario_books import T0, Row, make_book, make_market, mixed_rows
+
+from blotter.risk import value_book
+from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, STICKY_RULE, apply_move, ladder, parse_move
+
+
+def _book_with_american():
+    rows = mixed_rows() + [Row("STK", 7, 115, 50, False, american=True), Row("STK", -3, 118, 20, True, american=True)]
+    return make_book(rows)
+
+
+@pytest.mark.parametrize("days", [0.0, 3.0, 12.0])
+def test_each_cell_matches_the_what_if_of_that_move(days: float) -> None:
+    book = _book_with_american()
+    v = value_book(book, make_market(), T0)
+    lad = ladder(v, days=days)
+    assert lad.full.shape == (len(DEFAULT_SPOT_PCTS), len(DEFAULT_VOL_PTS))
+    for i, s in enumerate(DEFAULT_SPOT_PCTS):
+        for j, dv in enumerate(DEFAULT_VOL_PTS):
+            text = f"spot {s:+g}% vol {dv:+g}" + (f" days {days:g}" if days else "")
+            res = apply_move(v, parse_move(text)).total
+            assert lad.full[i, j] == pytest.approx(res.full, rel=1e-9, abs=1e-6), text
+            assert lad.estimate[i, j] == pytest.approx(res.estimate_2, rel=1e-9, abs=1e-6), text
+            assert lad.estimate_1[i, j] == pytest.approx(res.estimate_1, rel=1e-9, abs=1e-6), text
+    assert lad.error == pytest.approx(lad.full - lad.estimate)
+    assert lad.n_through_expiry == (1 if days == 12.0 else 0)
+
+
+def test_chunking_does_not_change_the_grid() -> None:
+    v = value_book(_book_with_american(), make_market(), T0)
+    whole = ladder(v, days=1)
+    for chunk in (1, 3, 5):
+        part = ladder(v, days=1, chunk=chunk)
+        assert part.full == pytest.approx(whole.full, rel=1e-12, abs=1e-9)
+
+
+def test_worst_cell_and_rule() -> None:
+    v = value_book(_book_with_american(), make_market(), T0)
+    lad = ladder(v, spot_pcts=[-20, 0, 20], vol_pts=[-10, 10])
+    i, j = lad.worst
+    assert lad.full[i, j] == lad.full.min()
+    assert lad.rule == STICKY_RULE == "sticky strike"
+    assert lad.full.shape == (3, 2)
+
+
+def test_centre_cell_is_zero_without_a_roll() -> None:
+    v = value_book(_book_with_american(), make_market(), T0)
+    lad = ladder(v)
+    assert lad.full[4, 2] == pytest.approx(0.0, abs=1e-9) and lad.estimate[4, 2] == 0.0
+
+
+def test_bad_ladders_are_refused() -> None:
+    v = value_book(make_book(mixed_rows()), make_market(), T0)
+    with pytest.raises(ValueError, match="-100%"):
+        ladder(v, spot_pcts=[-100])
+    with pytest.raises(ValueError, match="at least one"):
+        ladder(v, spot_pcts=[])
+    with pytest.raises(ValueError, match="forward"):
+        ladder(v, days=-1)
+
+
+def test_empty_book() -> None:
+    v = value_book(make_book([]), make_market(), T0)
+    lad = ladder(v)
+    assert np.all(lad.full == 0.0)
