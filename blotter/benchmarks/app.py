@@ -1,0 +1,161 @@
+"""``blotter bench`` cases for the app, measured through the app itself with Textual's Pilot.
+
+- ``app keystroke→move pane``: from a key pressed in the what-if bar to the Move pane repainted
+  with that keystroke's result (the app stamps each repaint), on random 10k and 100k books.
+  Targets 50 ms and 150 ms. The time includes the bar's debounce.
+- ``app start→first screen``: from building the app on the demo book to the first full screen
+  (book, ladder and profile shown). Target 1.5 s.
+- ``app resident memory``: peak resident set size of this process after the 100k-book app has
+  shown its book and a move, in MB (target 400 MB); reported in the note and as ``positions``-free
+  bytes per position.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import resource
+import sys
+import tempfile
+import time
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from blotter.benchmarks import Result, result_from
+
+FIXED_NOW = datetime(2026, 12, 1, 15, 0, tzinfo=timezone.utc)
+"""Valuation time of the random books (a Tuesday, 10:00 in New York)."""
+
+MOVES = ("spot -1%", "spot -2%", "spot -3%", "spot -3% vol +1", "spot -3% vol +2",
+         "spot -2% vol +2", "spot -1% vol +2", "spot +1% vol +2", "spot +2% vol +2",
+         "spot +2% vol +1", "spot +2%")
+"""Lines typed into the bar, one keystroke apart where possible (same day roll throughout)."""
+
+
+def random_book(n: int, n_underlyings: int = 40, seed: int = 7) -> tuple[Any, Any]:
+    """An invented book of ``n`` option positions on ``n_underlyings`` fictitious names, and its marks."""
+    from blotter.book import Book, Underlyings
+    from blotter.market import Market, RateCurve, VolSurface
+
+    rng = np.random.default_rng(seed)
+    symbols = tuple(f"RND{i:02d}" for i in range(n_underlyings))
+    und = Underlyings(symbols=symbols, kinds=("stock",) * n_underlyings, currencies=("USD",) * n_underlyings,
+                      betas=rng.uniform(0.5, 1.5, n_underlyings), div_yields=rng.uniform(0, 0.03, n_underlyings),
+                      calendars=("NYSE",) * n_underlyings)
+    spots = rng.uniform(20, 500, n_underlyings)
+    uidx = rng.integers(0, n_underlyings, n)
+    expiry_days = np.array([7, 14, 30, 60, 90, 180, 365, 730])
+    start = np.datetime64(FIXED_NOW.replace(tzinfo=None), "D")
+    exp_dates = start + rng.choice(expiry_days, n).astype("timedelta64[D]")
+    expiries = exp_dates.astype("datetime64[s]") + np.timedelta64(21, "h")
+    strikes = np.round(spots[uidx] * rng.uniform(0.7, 1.3, n), 0)
+    book = Book(name="RANDOM", underlyings=und, reference_index=None,
+                contract_ids=np.arange(1, n + 1), labels=tuple(f"pos{i}" for i in range(n)),
+                underlying_idx=uidx, is_option=np.ones(n, dtype=bool), is_call=rng.random(n) < 0.5,
+                american=np.zeros(n, dtype=bool), strikes=strikes, expiries=expiries,
+                multipliers=np.full(n, 100.0), quantities=rng.integers(-50, 51, n).astype(float) + 0.5)
+    surfaces = {}
+    for i, sym in enumerate(symbols):
+        dates = start + expiry_days.astype("timedelta64[D]")
+        ks = spots[i] * np.array([0.7, 1.0, 1.3])
+        e = np.repeat(dates, 3)
+        k = np.tile(ks, len(dates))
+        v = np.tile([0.32, 0.25, 0.22], len(dates))
+        surfaces[sym] = VolSurface(e, k, v)
+    market = Market(version=1, marks_as_of=FIXED_NOW - timedelta(hours=1),
+                    spots={s: float(spots[i]) for i, s in enumerate(symbols)}, surfaces=surfaces,
+                    curves={"USD": RateCurve(np.array([1.0, 365.0, 3650.0]), np.array([0.04, 0.04, 0.04]))},
+                    mark_kind="intraday")
+    return book, market
+
+
+def _rss_mb() -> float:
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    return peak / (1024 * 1024) if sys.platform == "darwin" else peak / 1024
+
+
+async def _keystrokes(n: int, repeat: int) -> tuple[np.ndarray, float]:
+    from blotter.config import Settings
+    from blotter.ui.app import BlotterApp
+    from blotter.ui.widgets.whatif_bar import MoveInput
+
+    book, market = random_book(n)
+    app = BlotterApp(":memory:", Settings(watch_interval_s=0), clock=lambda: FIXED_NOW,
+                     loader=lambda: (book, market, 0))
+    seconds: list[float] = []
+    async with app.run_test(size=(120, 40)) as pilot:
+        await _settle(app, pilot)
+        bar = app.query_one(MoveInput)
+        bar.focus()
+        await pilot.pause()
+        for k in range(repeat + 1):
+            line = MOVES[k % len(MOVES)]
+            bar.value = line[:-1]
+            await _settle(app, pilot)
+            before = len(app.move_painted)
+            t0 = time.perf_counter()
+            await pilot.press(line[-1])
+            while len(app.move_painted) == before or app.move_painted[-1][0] != app.move_seq:
+                await pilot.pause()
+            if k:  # the first keystroke warms caches
+                seconds.append(app.move_painted[-1][1] - t0)
+            await _settle(app, pilot)
+        rss = _rss_mb()
+    return np.array(seconds), rss
+
+
+async def _settle(app: Any, pilot: Any) -> None:
+    for _ in range(50):
+        await app.settle()
+        await pilot.pause()
+        if all(w.is_finished or w.group == "watch" for w in app.workers):
+            return
+
+
+async def _first_screen(db_path: str) -> float:
+    from blotter.config import Settings
+    from blotter.ui.app import make_app
+
+    t0 = time.perf_counter()
+    app = make_app(db_path, Settings(watch_interval_s=0), clock=lambda: FIXED_NOW)
+    async with app.run_test(size=(80, 24)) as pilot:
+        while app.first_paint is None or app.query_one("#ladder-pane").ladder is None:
+            await pilot.pause()
+            if time.perf_counter() - t0 > 30:
+                raise RuntimeError("the app did not show its first screen within 30 s")
+        return max(app.first_paint, time.perf_counter()) - t0
+
+
+def run(quick: bool) -> list[Result]:
+    """Time the app's cases (see the module docstring)."""
+    results: list[Result] = []
+    repeat = 3 if quick else 9
+    sizes = (2_000,) if quick else (10_000, 100_000)
+    rss = 0.0
+    for n in sizes:
+        secs, rss = asyncio.run(_keystrokes(n, repeat))
+        target = 50e-3 if n <= 10_000 else 150e-3
+        results.append(result_from("app keystroke→move pane", n, secs, target_ns=target * 1e9 / n,
+                                   note=f"median {np.median(secs) * 1e3:.1f} ms per keystroke "
+                                        f"(target {target * 1e3:.0f} ms)"))
+    if not quick:
+        results.append(Result(case="app resident memory", positions=sizes[-1],
+                              ns_per_position=float("nan"), min=float("nan"), max=float("nan"),
+                              note=f"peak RSS {rss:.0f} MB with the {sizes[-1]:,}-position app "
+                                   "(target 400 MB)"))
+    with tempfile.TemporaryDirectory() as tmp:
+        db = Path(tmp) / "demo.db"
+        _write_demo(db)
+        starts = np.array([asyncio.run(_first_screen(str(db))) for _ in range(2 if quick else 5)])
+    results.append(result_from("app start→first screen", 1, starts, target_ns=1.5e9,
+                               note=f"median {np.median(starts):.2f} s on the demo book (target 1.5 s)"))
+    return results
+
+
+def _write_demo(path: Path) -> None:
+    """Write the demo book to ``path`` with the demo module's writer."""
+    from blotter import demo
+
+    demo.build_demo(path)

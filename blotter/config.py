@@ -1,0 +1,216 @@
+"""Settings of the app: defaults < TOML file < ``BLOTTER_*`` environment < typed flags.
+
+The file is ``$BLOTTER_CONFIG``, else ``$XDG_CONFIG_HOME/blotter/config.toml`` (``~/.config``
+when unset); a missing file is fine, a malformed one is an error naming the file and the key.
+Nothing here imports Textual, so report commands can read the desk time zone too.
+
+Example file::
+
+    desk_tz = "America/New_York"
+    estimate_order = 2          # what the Move pane shows first: 1 or 2
+    watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
+
+    [alerts]
+    error_pct = 10.0            # flag an estimate whose |error| exceeds this % of |full change|
+    error_abs = 1000.0          # ... and exceeds this much currency
+    delta_cash = 5000000.0      # book limit on |Δ $|; 0 = none
+    vega_pt = 50000.0           # book limit on |vega| per vol point; 0 = none
+
+    [keys]                      # binding id = comma-separated keys (see the help screen)
+    help = "question_mark,f1"
+    quit = "q,f10"
+"""
+
+from __future__ import annotations
+
+import os
+import tomllib
+from collections.abc import Mapping
+from dataclasses import dataclass, field, fields, replace
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+
+class ConfigError(ValueError):
+    """A setting that cannot be used; the message names where it came from."""
+
+
+@dataclass(frozen=True)
+class Alerts:
+    """Thresholds the app marks with a symbol as well as colour. Money in the book's currency."""
+
+    error_pct: float = 10.0     # |full − estimate| above this % of |full| is flagged
+    error_abs: float = 100.0    # ... and only when |full − estimate| is above this amount
+    delta_cash: float = 0.0     # book |Δ $| limit; 0 = no limit
+    vega_pt: float = 0.0        # book |vega| limit per vol point; 0 = no limit
+
+
+@dataclass(frozen=True)
+class Settings:
+    """Everything the app reads at start. ``keymap`` maps binding ids to comma-separated keys."""
+
+    desk_tz: str = "America/New_York"
+    estimate_order: int = 2
+    watch_interval_s: float = 1.0
+    debounce_ms: float = 15.0
+    ladder_spot_pcts: tuple[float, ...] = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
+    ladder_vol_pts: tuple[float, ...] = (-5.0, -2.0, 0.0, 2.0, 5.0)
+    profile_spot_pct: float = 15.0      # the profile's spot axis runs ± this many %
+    profile_points: int = 31            # spot steps across the profile
+    profile_days: int = 30              # the profile's days-forward axis runs 0..this
+    alerts: Alerts = field(default_factory=Alerts)
+    keymap: dict[str, str] = field(default_factory=dict)
+    read_only: bool = False
+    no_mouse: bool = False
+
+    @property
+    def tz(self) -> ZoneInfo:
+        """The desk's time zone."""
+        return ZoneInfo(self.desk_tz)
+
+
+ENV_PREFIX = "BLOTTER_"
+"""Environment variables ``BLOTTER_<FIELD>`` set top-level settings; ``BLOTTER_ALERT_<FIELD>`` alerts;
+``BLOTTER_KEYS="help=f1,question_mark;quit=q"`` the keymap."""
+
+
+def config_path(env: Mapping[str, str] | None = None) -> Path:
+    """Where the settings file is looked for."""
+    env = os.environ if env is None else env
+    if env.get("BLOTTER_CONFIG"):
+        return Path(env["BLOTTER_CONFIG"])
+    base = Path(env["XDG_CONFIG_HOME"]) if env.get("XDG_CONFIG_HOME") else Path.home() / ".config"
+    return base / "blotter" / "config.toml"
+
+
+def _coerce(where: str, name: str, default: Any, value: Any) -> Any:
+    try:
+        if isinstance(default, bool):
+            if isinstance(value, str):
+                if value.lower() in {"1", "true", "yes", "on"}:
+                    return True
+                if value.lower() in {"0", "false", "no", "off"}:
+                    return False
+                raise ValueError(value)
+            return bool(value)
+        if isinstance(default, int):
+            if isinstance(value, float) and not value.is_integer():
+                raise ValueError(value)
+            return int(value)
+        if isinstance(default, float):
+            return float(value)
+        if isinstance(default, str):
+            if not isinstance(value, str):
+                raise ValueError(value)
+            return value
+        if isinstance(default, tuple):
+            items = value.split(",") if isinstance(value, str) else list(value)
+            return tuple(float(v) for v in items)
+    except (TypeError, ValueError):
+        raise ConfigError(f"{where}: {name} = {value!r} is not a valid {type(default).__name__}") from None
+    raise ConfigError(f"{where}: {name} cannot be set here")
+
+
+def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Settings:
+    plain = {f.name: f for f in fields(Settings)} .keys() - {"alerts", "keymap"}
+    changes: dict[str, Any] = {}
+    alerts = settings.alerts
+    keymap = dict(settings.keymap)
+    for name, value in values.items():
+        if name == "alerts":
+            if not isinstance(value, Mapping):
+                raise ConfigError(f"{where}: [alerts] must be a table")
+            alert_names = {f.name for f in fields(Alerts)}
+            alert_changes = {}
+            for a_name, a_value in value.items():
+                if a_name not in alert_names:
+                    raise ConfigError(f"{where}: unknown alert {a_name!r} (known: {', '.join(sorted(alert_names))})")
+                alert_changes[a_name] = _coerce(where, f"alerts.{a_name}", getattr(alerts, a_name), a_value)
+            alerts = replace(alerts, **alert_changes)
+        elif name == "keys":
+            if not isinstance(value, Mapping):
+                raise ConfigError(f"{where}: [keys] must be a table")
+            keymap.update({str(k): str(v) for k, v in value.items()})
+        elif name in plain:
+            changes[name] = _coerce(where, name, getattr(settings, name), value)
+        else:
+            raise ConfigError(f"{where}: unknown setting {name!r}")
+    return replace(settings, alerts=alerts, keymap=keymap, **changes)
+
+
+def _from_env(env: Mapping[str, str]) -> dict[str, Any]:
+    plain = {f.name for f in fields(Settings)} - {"alerts", "keymap"}
+    out: dict[str, Any] = {}
+    alerts: dict[str, str] = {}
+    for var, value in env.items():
+        if not var.startswith(ENV_PREFIX) or var in {"BLOTTER_DB", "BLOTTER_CONFIG"}:
+            continue
+        name = var[len(ENV_PREFIX):].lower()
+        if name == "keys":
+            keys: dict[str, str] = {}
+            for part in value.split(";"):
+                if part.strip():
+                    binding_id, sep, keylist = part.partition("=")
+                    if not sep:
+                        raise ConfigError(f"{var}: expected id=keys;id=keys, got {part!r}")
+                    keys[binding_id.strip()] = keylist.strip()
+            out["keys"] = keys
+        elif name == "tz":        # the calendar module's own variable names the same setting
+            out.setdefault("desk_tz", value)
+        elif name.startswith("alert_"):
+            alerts[name[len("alert_"):]] = value
+        elif name in plain:
+            out[name] = value
+    if "BLOTTER_DESK_TZ" in env:
+        out["desk_tz"] = env["BLOTTER_DESK_TZ"]
+    if alerts:
+        out["alerts"] = alerts
+    return out
+
+
+def _validate(settings: Settings) -> Settings:
+    from blotter.ui.keys import check_keymap
+
+    try:
+        ZoneInfo(settings.desk_tz)
+    except (ZoneInfoNotFoundError, ValueError):
+        raise ConfigError(f"desk_tz {settings.desk_tz!r} is not a known time zone (e.g. America/New_York)") from None
+    if settings.estimate_order not in (1, 2):
+        raise ConfigError(f"estimate_order must be 1 or 2, not {settings.estimate_order}")
+    if settings.watch_interval_s < 0 or settings.debounce_ms < 0:
+        raise ConfigError("watch_interval_s and debounce_ms must not be negative")
+    if not settings.ladder_spot_pcts or not settings.ladder_vol_pts:
+        raise ConfigError("ladder_spot_pcts and ladder_vol_pts need at least one value each")
+    if settings.profile_points < 3 or settings.profile_spot_pct <= 0 or settings.profile_days < 1:
+        raise ConfigError("profile_points >= 3, profile_spot_pct > 0 and profile_days >= 1 are needed")
+    problems = check_keymap(settings.keymap)
+    if problems:
+        raise ConfigError("keymap: " + "; ".join(problems))
+    return settings
+
+
+def load_settings(flags: Mapping[str, Any] | None = None, env: Mapping[str, str] | None = None,
+                  path: Path | None = None) -> Settings:
+    """Settings from defaults, then the TOML file, then ``BLOTTER_*`` variables, then ``flags``.
+
+    ``flags`` holds typed values given on the command line (e.g. ``{"read_only": True}``); a flag
+    that was not given should be left out rather than passed as False. Raises ``ConfigError``.
+    """
+    env = os.environ if env is None else env
+    settings = Settings()
+    file = path if path is not None else config_path(env)
+    if file.is_file():
+        try:
+            data = tomllib.loads(file.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+            raise ConfigError(f"{file}: {exc}") from None
+        settings = _apply(settings, data, str(file))
+    elif path is not None:
+        raise ConfigError(f"{file}: no such settings file")
+    env_values = _from_env(env)
+    if env_values:
+        settings = _apply(settings, env_values, "environment")
+    if flags:
+        settings = _apply(settings, dict(flags), "command line")
+    return _validate(settings)

@@ -1,0 +1,460 @@
+"""The blotter terminal app: header, Book pane, Move/Ladder/Profile panes, what-if bar, footer.
+
+``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
+All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
+messages back; handlers on the event loop only format and lay out what they receive. The only
+timer-like activity when idle is the store's change check (``Settings.watch_interval_s``).
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Callable
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+from textual import on, work
+from textual.app import App, ComposeResult
+from textual.binding import BindingType
+from textual.containers import Container
+from textual.events import Resize
+from textual.widgets import Footer, Input, Static
+from textual.worker import get_current_worker
+
+from blotter.config import Settings
+from blotter.ui import data
+from blotter.ui.keys import KEYS, app_bindings
+from blotter.ui.messages import (BookLoaded, LadderReady, LoadFailed, MoveApplied, MoveFailed,
+                                 ProfileReady, StoreChanged)
+from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.header_line import HeaderLine
+from blotter.ui.widgets.ladder_pane import LadderPane
+from blotter.ui.widgets.move_pane import MovePane
+from blotter.ui.widgets.profile_pane import ProfilePane
+from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
+
+Clock = Callable[[], datetime]
+Loader = Callable[[], tuple[Any, Any, int]]
+"""Gives (book, market, data_version) instead of the file: the bench's random books use it."""
+
+MIN_WIDTH, MIN_HEIGHT = 60, 18
+"""Below this size the app shows one line saying what size it needs."""
+
+WIDE_WIDTH = 140
+"""From this width the Ladder and Profile panes sit beside the Book and Move panes."""
+
+PANES = ("move", "ladder", "profile")
+"""Panes the pane key cycles through on narrow terminals."""
+
+GREEKS = (("pnl", "P&L", "value"), ("delta", "Δ sh", "delta_shares"), ("gamma", "Γ 1%", "gamma_1pct"),
+          ("vega", "vega", "vega_pt"), ("theta", "θ day", "theta_day"))
+"""Profile choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+
+
+def _utc_now() -> datetime:
+    return datetime.now(timezone.utc)
+
+
+class BlotterApp(App[None]):
+    """The app; see the module docstring. ``clock`` gives the valuation time (UTC, aware)."""
+
+    CSS_PATH = "app.tcss"
+    TITLE = "blotter"
+    ENABLE_COMMAND_PALETTE = False
+    HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (WIDE_WIDTH, "-wide")]
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("app"))
+
+    def __init__(self, db_path: str, settings: Settings | None = None, clock: Clock | None = None,
+                 read_only: bool | None = None, loader: Loader | None = None) -> None:
+        super().__init__()
+        self.loader = loader
+        self.settings = settings or Settings()
+        self.db_path = str(db_path)
+        self.read_only = self.settings.read_only if read_only is None else read_only
+        self.clock: Clock = clock or _utc_now
+        self.tz = self.settings.tz
+        self.animation_level = "none"
+        self.state: data.BookState | None = None
+        self.book_seq = 0
+        self.move_seq = 0
+        self.move_text = ""          # the text of the last move that parsed
+        self.move: Any = None        # its scenario.Move
+        self.result: Any = None      # its scenario.MoveResult (the last good result)
+        self.pane = "move"
+        self.greek = "pnl"
+        self.axis = "spot"
+        self.scope = "book"
+        self.data_version: int | None = None
+        self.move_painted: list[tuple[int, float]] = []   # (seq, perf_counter) after each repaint
+        self.first_paint: float | None = None
+        self._stop_watch = threading.Event()
+        if self.settings.keymap:
+            self.set_keymap(self.settings.keymap)
+
+    # -- layout ---------------------------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield HeaderLine()
+        yield Static("", id="too-small")
+        with Container(id="body"):
+            with Container(id="book-pane", classes="pane"):
+                yield BookTable()
+            yield LadderPane()
+            yield MovePane(self.settings.alerts, self.settings.estimate_order)
+            yield ProfilePane()
+        yield WhatIfBar()
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#book-pane").border_title = "Book"
+        self._show_pane()
+        self.query_one(BookTable).focus()
+        self.load_book()
+        if self.settings.watch_interval_s > 0:
+            self.watch_store(self.settings.watch_interval_s)
+
+    def on_unmount(self) -> None:
+        self._stop_watch.set()
+
+    def on_resize(self, event: Resize) -> None:
+        small = event.size.width < MIN_WIDTH or event.size.height < MIN_HEIGHT
+        self.screen.set_class(small, "-too-small")
+        if small:
+            self.query_one("#too-small", Static).update(
+                f"blotter needs at least {MIN_WIDTH}×{MIN_HEIGHT}; this terminal is "
+                f"{event.size.width}×{event.size.height}.")
+
+    def _show_pane(self) -> None:
+        for name in PANES:
+            self.query_one(f"#{name}-pane").set_class(name == self.pane, "-current")
+
+    # -- loading --------------------------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="load", exit_on_error=False)
+    def load_book(self) -> None:
+        """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``."""
+        from blotter import risk
+
+        worker = get_current_worker()
+        t0 = time.perf_counter()
+        try:
+            if self.loader is not None:
+                book, market, version = self.loader()
+            else:
+                from blotter import store
+
+                st = store.open_store(self.db_path, read_only=self.read_only)
+                try:
+                    book = st.load_book()
+                    market = st.load_market()
+                    version = int(st.data_version())
+                finally:
+                    close = getattr(st, "close", None)
+                    if close is not None:
+                        close()
+            now = self.clock()
+            valuation = risk.value_book(book, market, np.datetime64(
+                now.astimezone(timezone.utc).replace(tzinfo=None), "s"))
+            tree = data.BookTree(valuation, self.tz, self._row_alert)
+        except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
+            if not worker.is_cancelled:
+                self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
+            return
+        marks_as_of = market.marks_as_of
+        if marks_as_of.tzinfo is None:
+            marks_as_of = marks_as_of.replace(tzinfo=timezone.utc)
+        state = data.BookState(
+            book_seq=0, db_path=self.db_path, read_only=self.read_only, book_name=book.name,
+            valuation=valuation, tree=tree, data_version=version, valuation_time=now,
+            marks_as_of=marks_as_of, mark_set_id=market.mark_set_id, mark_kind=market.mark_kind,
+            seconds=time.perf_counter() - t0, notes=tuple(valuation.notes))
+        if not worker.is_cancelled:
+            self.post_message(BookLoaded(state))
+
+    def _row_alert(self, row: Any) -> str:
+        alerts = self.settings.alerts
+        words = []
+        if alerts.delta_cash and abs(row.delta_cash) > alerts.delta_cash:
+            words.append(f"|Δ $| over {alerts.delta_cash:,.0f}")
+        if alerts.vega_pt and abs(row.vega_pt) > alerts.vega_pt:
+            words.append(f"|vega| over {alerts.vega_pt:,.0f}")
+        return "; ".join(words)
+
+    def on_book_loaded(self, message: BookLoaded) -> None:
+        self.book_seq += 1
+        state = message.state
+        state.book_seq = self.book_seq
+        self.state = state
+        self.data_version = state.data_version
+        self.query_one(BookTable).show(state.tree)
+        self._refresh_header()
+        text = self.query_one(MoveInput).value
+        if text.strip():
+            self._submit_move(text)
+        else:
+            self.start_ladder(state, 0.0)
+        self.start_profile()
+        if self.first_paint is None:
+            self.call_after_refresh(self._mark_first_paint)
+
+    def _mark_first_paint(self) -> None:
+        self.first_paint = time.perf_counter()
+
+    def _refresh_header(self) -> None:
+        if self.state is None:
+            return
+        total = self.state.tree.total()
+        alerts = [f"book {total.alert}"] if total.alert else []
+        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
+
+    def on_load_failed(self, message: LoadFailed) -> None:
+        self.query_one(HeaderLine).show_error(message.reason)
+        self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
+
+    # -- the store's change check ---------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="watch", exit_on_error=False)
+    def watch_store(self, interval_s: float) -> None:
+        """Every ``interval_s`` ask SQLite's data version through this thread's own Store."""
+        from blotter import store
+
+        worker = get_current_worker()
+        try:
+            st = store.open_store(self.db_path, read_only=True)
+        except Exception:  # noqa: BLE001 - no watching without a readable file; loading says why
+            return
+        last: int | None = None
+        try:
+            while not worker.is_cancelled and not self._stop_watch.wait(interval_s):
+                try:
+                    version = int(st.data_version())
+                except Exception:  # noqa: BLE001 - a busy or vanished file: try again next time
+                    continue
+                if last is not None and version != last:
+                    self.post_message(StoreChanged(version))
+                last = version
+        finally:
+            close = getattr(st, "close", None)
+            if close is not None:
+                close()
+
+    def on_store_changed(self, message: StoreChanged) -> None:
+        self.load_book()
+
+    # -- the what-if bar ------------------------------------------------------------------------
+    @on(Input.Changed, "#whatif-input")
+    def _bar_changed(self, event: Input.Changed) -> None:
+        self._submit_move(event.value)
+
+    @on(Input.Submitted, "#whatif-input")
+    def _bar_submitted(self, event: Input.Submitted) -> None:
+        if self.move_text:
+            self.query_one(MoveInput).remember(self.move_text)
+
+    def _submit_move(self, text: str) -> None:
+        """Parse ``text`` here (cheap) and apply it in a worker; a bad line keeps the last result."""
+        from blotter import scenario
+
+        bar = self.query_one(WhatIfBar)
+        self.move_seq += 1
+        if not text.strip():
+            bar.clear_message()
+            return
+        symbols = self.state.valuation.book.underlyings.symbols if self.state else None
+        try:
+            move = scenario.parse_move(text, symbols)
+        except scenario.MoveSyntaxError as exc:
+            bar.show_error(text, exc.message, exc.start, exc.end)
+            return
+        if self.state is None:
+            bar.show_ok(move.describe() + " (waiting for the book)")
+            return
+        self.apply_move(self.move_seq, self.state, text, move)
+
+    @work(thread=True, exclusive=True, group="move", exit_on_error=False)
+    def apply_move(self, seq: int, state: data.BookState, text: str, move: Any) -> None:
+        """Wait out the debounce, then revalue under ``move`` unless a newer keystroke came."""
+        from blotter import scenario
+
+        worker = get_current_worker()
+        if self.settings.debounce_ms:
+            time.sleep(self.settings.debounce_ms / 1000.0)
+        if worker.is_cancelled:
+            return
+        t0 = time.perf_counter()
+        try:
+            result = scenario.apply_move(state.valuation, move)
+        except (scenario.MoveError, ValueError, KeyError) as exc:
+            if not worker.is_cancelled:
+                self.post_message(MoveFailed(seq, str(exc)))
+            return
+        if not worker.is_cancelled:
+            self.post_message(MoveApplied(seq, state.book_seq, text, move, result,
+                                          time.perf_counter() - t0))
+
+    def on_move_applied(self, message: MoveApplied) -> None:
+        if message.seq != self.move_seq or self.state is None or message.book_seq != self.book_seq:
+            return
+        previous_days = self._roll_days(self.move)
+        self.move_text, self.move, self.result = message.text, message.move, message.result
+        self.query_one(MovePane).show(message.text, message.move.describe(), message.result)
+        self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
+        seq = message.seq
+        self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+        days = self._roll_days(message.move)
+        if days != previous_days or self.query_one(LadderPane).ladder is None:
+            self.start_ladder(self.state, days)
+            self.start_profile()
+
+    def on_move_failed(self, message: MoveFailed) -> None:
+        if message.seq != self.move_seq:
+            return
+        text = self.query_one(MoveInput).value
+        self.query_one(WhatIfBar).show_error(text, message.reason, 0, len(text))
+
+    def _roll_days(self, move: Any) -> float:
+        """Calendar days of the move's roll (business days counted through ``scenario.roll_time``)."""
+        if move is None or self.state is None:
+            return 0.0
+        if not getattr(move, "bdays", 0):
+            return float(getattr(move, "days", 0.0))
+        from blotter import scenario
+
+        t0 = self.state.valuation.valuation_time
+        t1 = scenario.roll_time(self.state.valuation, move)
+        return float((t1 - t0) / np.timedelta64(1, "s")) / 86400.0
+
+    # -- ladder and profile ---------------------------------------------------------------------
+    def start_ladder(self, state: data.BookState, days: float) -> None:
+        self.compute_ladder(state, days)
+
+    @work(thread=True, exclusive=True, group="ladder", exit_on_error=False)
+    def compute_ladder(self, state: data.BookState, days: float) -> None:
+        """The spot × vol ladder with the bar's day roll."""
+        from blotter import scenario
+
+        worker = get_current_worker()
+        try:
+            grid = scenario.ladder(state.valuation, self.settings.ladder_spot_pcts,
+                                   self.settings.ladder_vol_pts, days=days)
+        except (ValueError, KeyError) as exc:
+            if not worker.is_cancelled:
+                self.post_message(LoadFailed(f"ladder: {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(LadderReady(state.book_seq, days, grid))
+
+    def on_ladder_ready(self, message: LadderReady) -> None:
+        if message.book_seq == self.book_seq:
+            self.query_one(LadderPane).show(message.ladder, message.days)
+
+    def start_profile(self) -> None:
+        if self.state is None:
+            return
+        rows = None
+        label = "book"
+        if self.scope == "row":
+            key = self.query_one(BookTable).cursor_row_key()
+            if key and key != "total":
+                rows = self.state.tree.rows_of(key)
+                row = self.query_one(BookTable).row(key)
+                label = row.label if row else key
+        self.compute_profile(self.state, self._roll_days(self.move), self.greek, self.axis,
+                             rows, label)
+
+    @work(thread=True, exclusive=True, group="profile", exit_on_error=False)
+    def compute_profile(self, state: data.BookState, days: float, greek: str, axis: str,
+                        rows: np.ndarray | None, label: str) -> None:
+        """Curves for the Profile pane (see ``data.profile``)."""
+        worker = get_current_worker()
+        try:
+            profile = data.profile(state.valuation, self.settings, greek, axis, days, rows, label)
+        except (ValueError, KeyError) as exc:
+            if not worker.is_cancelled:
+                self.post_message(LoadFailed(f"profile: {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(ProfileReady(state.book_seq, profile))
+
+    def on_profile_ready(self, message: ProfileReady) -> None:
+        if message.book_seq == self.book_seq:
+            self.query_one(ProfilePane).show(message.profile)
+
+    # -- actions ---------------------------------------------------------------------------------
+    def action_help(self) -> None:
+        from blotter.ui.screens.help import HelpScreen
+
+        if isinstance(self.screen, HelpScreen):
+            return
+        bound = {k.id: self._keymap.get(k.id, k.keys) for k in KEYS}
+        self.push_screen(HelpScreen(bound))
+
+    def action_focus_bar(self) -> None:
+        self.query_one(MoveInput).focus()
+
+    def action_focus_book(self) -> None:
+        self.query_one(BookTable).focus()
+
+    def action_next_pane(self) -> None:
+        self.pane = PANES[(PANES.index(self.pane) + 1) % len(PANES)]
+        self._show_pane()
+
+    def action_toggle_row(self) -> None:
+        self.query_one(BookTable).toggle()
+
+    def action_toggle_group(self) -> None:
+        table = self.query_one(BookTable)
+        table.set_group("expiry" if table.group == "underlying" else "underlying")
+        self.notify(f"Book grouped by {'expiry bucket' if table.group == 'expiry' else 'underlying'}",
+                    timeout=2)
+
+    def action_sort_column(self) -> None:
+        column, reverse = self.query_one(BookTable).sort_by_cursor()
+        if column is None:
+            self.notify("Book in its natural order", timeout=2)
+        else:
+            name = "label" if column == "label" else dict(data.BOOK_COLUMNS)[column]
+            self.notify(f"Sorted by {name}, {'largest' if reverse else 'smallest'} first"
+                        if column != "label" else f"Sorted by name{' (reversed)' if reverse else ''}",
+                        timeout=2)
+
+    def action_toggle_order(self) -> None:
+        self.query_one(MovePane).toggle_order()
+        if self.result is not None:
+            seq = self.move_seq
+            self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+
+    def action_next_grid(self) -> None:
+        self.query_one(LadderPane).next_grid()
+
+    def action_next_greek(self) -> None:
+        ids = [g[0] for g in GREEKS]
+        self.greek = ids[(ids.index(self.greek) + 1) % len(ids)]
+        self.start_profile()
+
+    def action_toggle_axis(self) -> None:
+        self.axis = "days" if self.axis == "spot" else "spot"
+        self.start_profile()
+
+    def action_toggle_scope(self) -> None:
+        self.scope = "row" if self.scope == "book" else "book"
+        self.start_profile()
+
+    def action_reload(self) -> None:
+        self.load_book()
+
+    async def action_quit(self) -> None:
+        self._stop_watch.set()
+        self.exit()
+
+    # -- for tests and the bench ----------------------------------------------------------------
+    async def settle(self) -> None:
+        """Wait until every worker but the store watcher is done (tests and the bench)."""
+        busy = [w for w in self.workers if w.group != "watch" and not w.is_finished]
+        for w in busy:
+            await w.wait()
+
+
+def make_app(db_path: str | Path, settings: Settings | None = None, clock: Clock | None = None) -> BlotterApp:
+    """The app on ``db_path`` with ``settings`` (defaults when None); ``clock`` fixes "now"."""
+    return BlotterApp(str(db_path), settings, clock)

@@ -1,0 +1,63 @@
+"""Fixed-width text for numbers: every sign written, thousands grouped, no colour needed.
+
+Only formatting lives here; the numbers come from ``blotter.risk`` and ``blotter.scenario``.
+"""
+
+from __future__ import annotations
+
+import math
+from datetime import timedelta
+
+MISSING = "n/a"
+"""Shown for a value that cannot be computed (NaN), so a blank never hides a problem."""
+
+
+def money(value: float, width: int = 0) -> str:
+    """Whole currency units with a sign and thousands separators; ``M`` beyond 10 significant chars."""
+    if value is None or not math.isfinite(value):
+        text = MISSING
+    elif abs(value) >= 1e10:
+        text = f"{value / 1e6:+,.0f}M"
+    else:
+        text = f"{value:+,.0f}"
+        if text in ("+0", "-0"):
+            text = "0"
+    return text.rjust(width) if width else text
+
+
+def number(value: float, decimals: int = 2, width: int = 0, signed: bool = False) -> str:
+    """A plain number with ``decimals`` places (a sign when ``signed``)."""
+    if value is None or not math.isfinite(value):
+        text = MISSING
+    else:
+        text = f"{value:{'+' if signed else ''},.{decimals}f}"
+    return text.rjust(width) if width else text
+
+
+def pct(value: float, width: int = 0) -> str:
+    """A signed percentage with one decimal."""
+    if value is None or not math.isfinite(value):
+        text = MISSING
+    else:
+        text = f"{value:+.1f}%"
+    return text.rjust(width) if width else text
+
+
+def spot_text(value: float) -> str:
+    """A spot or price: two decimals, no sign."""
+    return number(value, 2)
+
+
+def age_words(age: timedelta) -> str:
+    """How old something is, in words: ``"35 min"``, ``"3 h 10 min"``, ``"2 days 4 h"``."""
+    seconds = int(age.total_seconds())
+    if seconds < 0:
+        return "dated after the valuation time:"
+    minutes, _ = divmod(seconds, 60)
+    hours, minutes = divmod(minutes, 60)
+    days, hours = divmod(hours, 24)
+    if days:
+        return f"{days} day{'s' if days != 1 else ''} {hours} h"
+    if hours:
+        return f"{hours} h {minutes} min"
+    return f"{minutes} min"

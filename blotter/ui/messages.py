@@ -1,0 +1,87 @@
+"""Messages the app's thread workers post back; each keeps only the newest of its kind in the queue.
+
+Workers never touch widgets or reactives: they compute, then post one of these to the app.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from textual.message import Message
+
+if TYPE_CHECKING:
+    from blotter.ui.data import BookState, ProfileData
+
+
+@dataclass
+class BookLoaded(Message):
+    """The book, marks and base valuation, read and computed in a worker."""
+
+    state: BookState
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, BookLoaded)
+
+
+@dataclass
+class LoadFailed(Message):
+    """Reading or valuing the book failed; ``reason`` is for people."""
+
+    reason: str
+
+
+@dataclass
+class MoveApplied(Message):
+    """The result of the bar's move; ``seq`` counts the bar's edits, ``book_seq`` the loads."""
+
+    seq: int
+    book_seq: int
+    text: str
+    move: Any
+    result: Any
+    seconds: float          # time spent in apply_move, for the bench
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, MoveApplied)
+
+
+@dataclass
+class MoveFailed(Message):
+    """Applying a parsed move failed in the worker (a move that parses but cannot be applied)."""
+
+    seq: int
+    reason: str
+
+
+@dataclass
+class LadderReady(Message):
+    """The spot × vol ladder for the bar's day roll."""
+
+    book_seq: int
+    days: float
+    ladder: Any
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, LadderReady)
+
+
+@dataclass
+class ProfileReady(Message):
+    """Curves for the Profile pane."""
+
+    book_seq: int
+    profile: ProfileData
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, ProfileReady)
+
+
+@dataclass
+class StoreChanged(Message):
+    """Another process committed to the book file; ``data_version`` is SQLite's counter."""
+
+    data_version: int
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, StoreChanged)

@@ -1,0 +1,1 @@
+"""One screen per file, each with its .tcss beside it."""

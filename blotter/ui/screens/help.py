@@ -1,0 +1,118 @@
+"""The Help screen: every key (as bound now, after the user's keymap), every unit, the what-if
+grammar with examples, and the cautions."""
+
+from __future__ import annotations
+
+import inspect
+from typing import ClassVar
+
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.containers import VerticalScroll
+from textual.screen import Screen
+from textual.widgets import Footer, Static
+
+from blotter.ui.keys import KEYS, app_bindings, key_label
+
+UNITS: tuple[tuple[str, str], ...] = (
+    ("Spot", "price of the underlying, in its currency"),
+    ("Value", "quantity × multiplier × price (futures hedges: 0, they settle daily)"),
+    ("Δ $", "delta × spot: currency exposure to the underlying"),
+    ("Γ 1%", "change in Δ sh for a 1% rise in spot (Γ × S × 0.01)"),
+    ("vega", "P&L for +1 vol point (0.01 of annualised vol, 30% → 31%)"),
+    ("θ day", "P&L for one calendar day passing, nothing else moving"),
+    ("Δ sh", "delta in shares (units) of the underlying"),
+    ("ρ 1%", "P&L for +1 percentage point (100 bp) of rate"),
+    ("vanna", "change in Δ sh for +1 vol point"),
+    ("volga", "change in vega for +1 vol point"),
+    ("βΔ $", "Δ $ × the underlying's beta to the book's reference index"),
+    ("full", "Move pane: change in book value by full revaluation under the move"),
+    ("est 1 / est 2", "greeks' (Taylor) estimate, first order (Δ, vega, θ, ρ) or with Γ, volga, vanna"),
+    ("error", "full − estimate, in currency; err % = error as a share of |full|"),
+    ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
+    ("Ladder", "spot shocks in %, vol shocks in points, cells in the book's currency"),
+)
+"""Column headers and symbols with what they mean, as the help screen lists them."""
+
+CAUTIONS = (
+    "These figures are model estimates, not advice.",
+    "Check every figure against your firm's official risk and P&L before acting on it.",
+    "Follow your local rules and licensed practice.",
+    "The demo book is invented, with fictitious underlyings.",
+)
+
+FALLBACK_GRAMMAR = """\
+spot -3%          every underlying's spot down 3%
+spot +2.5         every spot up 2.5 currency units
+IDX spot -5%      one underlying (any symbol)
+spot -3% beta     each underlying moves beta × 3% (index-equivalent move)
+vol +2            every vol up 2 vol points (0.30 → 0.32)
+vol -10%          every vol times 0.9
+vol +2 weighted   each expiry's vol up 2 × √(T_ref/T) points
+days 3            three calendar days pass
+bdays 1           to the next business day (a Friday rolls over the weekend)
+rate +25bp        every rate up 25 basis points
+spot -3% vol +2 days 1      parts combine and apply together"""
+"""The forms every move parser accepts, used when ``blotter.scenario`` documents none."""
+
+
+def grammar_text() -> str:
+    """The what-if grammar with examples, as ``blotter.scenario`` documents it."""
+    try:
+        from blotter import scenario
+    except ImportError:
+        return FALLBACK_GRAMMAR
+    for name in ("MOVE_GRAMMAR", "GRAMMAR", "MOVE_HELP"):
+        text = getattr(scenario, name, None)
+        if isinstance(text, str) and text.strip():
+            return inspect.cleandoc(text)
+    doc = inspect.getdoc(getattr(scenario, "parse_move", None))
+    return doc or FALLBACK_GRAMMAR
+
+
+def keys_table(bound: dict[str, str]) -> Table:
+    """Every binding: the keys in force (``bound`` maps binding id -> keys), id and what it does."""
+    table = Table(box=None, pad_edge=False, show_header=True, header_style="bold")
+    table.add_column("keys", no_wrap=True)
+    table.add_column("id", no_wrap=True)
+    table.add_column("does")
+    for spec in KEYS:
+        keys = bound.get(spec.id, spec.keys)
+        table.add_row(" ".join(key_label(k.strip()) for k in keys.split(",")), spec.id,
+                      spec.description)
+    table.add_row("Tab", "", "Next field (book ↔ bar); Shift+Tab back")
+    table.add_row("Enter", "", "Book: expand or collapse the row under the cursor")
+    return table
+
+
+class HelpScreen(Screen[None]):
+    """Keys, units, grammar, cautions; any of its close keys goes back."""
+
+    CSS_PATH = "help.tcss"
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("help"))
+
+    def __init__(self, bound: dict[str, str]) -> None:
+        super().__init__(id="help")
+        self.bound = bound
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="help-body"):
+            yield Static(Text("blotter help — keys", style="bold"), classes="help-heading")
+            yield Static(keys_table(self.bound), id="help-keys")
+            yield Static("Units", classes="help-heading")
+            units = Table(box=None, pad_edge=False, show_header=False)
+            units.add_column(no_wrap=True)
+            units.add_column()
+            for name, meaning in UNITS:
+                units.add_row(name, meaning)
+            yield Static(units, id="help-units")
+            yield Static("What-if grammar (the bar; also `blotter whatif`)", classes="help-heading")
+            yield Static(Text(grammar_text()), id="help-grammar")
+            yield Static("Cautions", classes="help-heading")
+            yield Static(Text("\n".join(CAUTIONS)), id="help-cautions")
+        yield Footer()
+
+    def action_close(self) -> None:
+        self.dismiss()

@@ -1,0 +1,202 @@
+"""The Book pane: one DataTable with a total row, underlyings (or expiry buckets) that expand.
+
+Rows have stable keys (``BookRow.key``). A new valuation with the same visible rows updates the
+cells in place; expanding, collapsing, regrouping and sorting lay the rows out again and keep the
+cursor on the same key.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import ClassVar
+
+from rich.text import Text
+from textual.binding import BindingType
+from textual.coordinate import Coordinate
+from textual.widgets import DataTable
+
+from blotter.ui import fmt
+from blotter.ui.data import BOOK_COLUMNS, BookRow, BookTree
+from blotter.ui.keys import app_bindings
+
+COLUMN_WIDTHS = {"spot": 8, "delta_cash": 11, "gamma_1pct": 8, "vega_pt": 9, "theta_day": 8,
+                 "delta_shares": 10, "value": 12, "rho_pct": 8, "vanna_pt": 8, "volga_pt": 8,
+                 "beta_delta_cash": 11}
+"""Fixed widths in cells so in-place updates never reflow the table."""
+
+LABEL_WIDTH = 16
+"""Width of the row-label column (tree glyphs + name)."""
+
+
+def _cell(column: str, value: float) -> str:
+    width = COLUMN_WIDTHS[column]
+    if column == "spot":
+        return fmt.number(value, 2, width) if value == value else "".rjust(width)
+
+    if column == "delta_shares":
+        return fmt.number(value, 0, width, signed=True)
+    return fmt.money(value, width)
+
+
+class BookTable(DataTable[str | Text]):
+    """The book grid; ``group`` is ``"underlying"`` or ``"expiry"``."""
+
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("book"))
+
+    def __init__(self) -> None:
+        super().__init__(id="book-table", cursor_type="cell", zebra_stripes=False,
+                         fixed_columns=1, fixed_rows=0)
+        self.source: BookTree | None = None
+        self.group = "underlying"
+        self.expanded: set[str] = set()
+        self.sort_column: str | None = None      # None = the natural order (symbol or expiry)
+        self.sort_reverse = False
+        self._visible: list[BookRow] = []
+        self.expandable_keys: set[str] = set()
+
+    def on_mount(self) -> None:
+        self.add_column(Text("Book".ljust(LABEL_WIDTH)), key="label", width=LABEL_WIDTH)
+        for key, header in BOOK_COLUMNS:
+            self.add_column(Text(header, justify="right"), key=key, width=COLUMN_WIDTHS[key])
+
+    # -- layout ---------------------------------------------------------------------------------
+    def _sorted(self, rows: Sequence[BookRow]) -> list[BookRow]:
+        if self.sort_column is None:
+            return list(rows)
+        if self.sort_column == "label":
+            return sorted(rows, key=lambda r: r.label, reverse=self.sort_reverse)
+        i = [k for k, _ in BOOK_COLUMNS].index(self.sort_column)
+
+        def value(r: BookRow) -> float:
+            v = r.values[i]
+            return v if v == v else float("-inf")
+
+        return sorted(rows, key=value, reverse=self.sort_reverse)
+
+    def _layout(self) -> list[BookRow]:
+        assert self.source is not None
+        out = [self.source.total()]
+
+        def walk(rows: Sequence[BookRow]) -> None:
+            for row in self._sorted(rows):
+                out.append(row)
+                if row.expandable and row.key in self.expanded:
+                    walk(self.source.children(row.key))  # type: ignore[union-attr]
+
+        walk(self.source.top(self.group))
+        return out
+
+    def _label(self, row: BookRow) -> Text:
+        if row.level == 0:
+            glyph = "Σ "
+        elif row.expandable:
+            glyph = "▾ " if row.key in self.expanded else "▸ "
+        else:
+            glyph = "· "
+        text = Text("  " * max(row.level - 1, 0) + glyph + row.label, no_wrap=True,
+                    overflow="ellipsis")
+        if row.alert:
+            text.append(" !", style="bold")
+        if row.level == 0:
+            text.stylize("bold")
+        return text
+
+    def show(self, source: BookTree | None = None) -> None:
+        """Show ``source`` (or re-lay the current one): in place when the rows are the same."""
+        if source is not None:
+            self.source = source
+        if self.source is None:
+            return
+        rows = self._layout()
+        if [r.key for r in rows] == [r.key for r in self._visible] and self.row_count == len(rows):
+            for old, new in zip(self._visible, rows, strict=True):
+                if old.values != new.values or old.label != new.label or old.alert != new.alert:
+                    for i, (col, _) in enumerate(BOOK_COLUMNS):
+                        if old.values[i] != new.values[i]:
+                            self.update_cell(new.key, col, _cell(col, new.values[i]),
+                                             update_width=False)
+                    self.update_cell(new.key, "label", self._label(new), update_width=False)
+            self._visible = rows
+            return
+        cursor_key = self.cursor_row_key()
+        column = self.cursor_coordinate.column
+        self.clear()
+        for row in rows:
+            self.add_row(self._label(row),
+                         *[_cell(col, row.values[i]) for i, (col, _) in enumerate(BOOK_COLUMNS)],
+                         key=row.key)
+        self._visible = rows
+        self.fixed_rows = 1 if rows else 0   # the total row stays in view
+        self.expandable_keys = {r.key for r in rows if r.expandable}
+        if cursor_key is not None and cursor_key in {r.key for r in rows}:
+            self.move_cursor(row=self.get_row_index(cursor_key), column=column, animate=False)
+        elif rows:
+            self.move_cursor(row=0, column=column, animate=False)
+
+    def relabel(self) -> None:
+        """Redraw the label column only (after a toggle changed a glyph)."""
+        for row in self._visible:
+            self.update_cell(row.key, "label", self._label(row), update_width=False)
+
+    # -- queries --------------------------------------------------------------------------------
+    def cursor_row_key(self) -> str | None:
+        """Key of the row under the cursor, or None for an empty table."""
+        if not self.row_count:
+            return None
+        try:
+            row_key, _ = self.coordinate_to_cell_key(Coordinate(self.cursor_coordinate.row, 0))
+        except Exception:  # noqa: BLE001 - cursor outside a table being rebuilt
+            return None
+        return str(row_key.value)
+
+    def visible_rows(self) -> list[BookRow]:
+        """The rows as laid out, top to bottom."""
+        return list(self._visible)
+
+    def row(self, key: str) -> BookRow | None:
+        """The visible row with ``key``."""
+        for r in self._visible:
+            if r.key == key:
+                return r
+        return None
+
+    # -- actions --------------------------------------------------------------------------------
+    def toggle(self, key: str | None = None) -> bool:
+        """Expand or collapse the row ``key`` (the cursor's row by default); False if a leaf."""
+        key = key or self.cursor_row_key()
+        if key is None or key not in self.expandable_keys:
+            return False
+        if key in self.expanded:
+            self.expanded = {k for k in self.expanded if not k.startswith(key)}
+        else:
+            self.expanded.add(key)
+        self.show()
+        return True
+
+    def set_group(self, group: str) -> None:
+        """Regroup by ``"underlying"`` or ``"expiry"``; expansions are per grouping."""
+        self.group = group
+        self.expanded = set()
+        self.show()
+
+    def sort_by_cursor(self) -> tuple[str | None, bool]:
+        """Sort by the cursor's column; the same column again reverses, a third time restores."""
+        col_index = self.cursor_coordinate.column
+        column = "label" if col_index == 0 else BOOK_COLUMNS[col_index - 1][0]
+        if self.sort_column != column:
+            self.sort_column, self.sort_reverse = column, column != "label"
+        elif self.sort_reverse == (column != "label"):
+            self.sort_reverse = not self.sort_reverse
+        else:
+            self.sort_column, self.sort_reverse = None, False
+        self.show()
+        return self.sort_column, self.sort_reverse
+
+    def on_data_table_cell_selected(self, event: DataTable.CellSelected) -> None:
+        """Enter on a row expands or collapses it."""
+        event.stop()
+        self.toggle(str(event.cell_key.row_key.value))
+
+    def action_toggle_row(self) -> None:
+        self.toggle()
+

@@ -1,0 +1,47 @@
+"""The header line: book, valuation time, marks as of and their age in words, file, read-only."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+from rich.text import Text
+from textual.widgets import Static
+
+from blotter.ui.data import BookState, marks_age
+
+
+class HeaderLine(Static):
+    """One or two lines at the top (it wraps on narrow terminals)."""
+
+    def __init__(self) -> None:
+        super().__init__("blotter: opening the book…", id="header-line")
+
+    def show(self, state: BookState, now: datetime, tz: Any, alerts: list[str]) -> None:
+        """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words."""
+        age = marks_age(state.marks_as_of, now, tz)
+        text = Text()
+        text.append(f"Book: {state.book_name}", style="bold")
+        text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
+        when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
+        if age.words.startswith("dated after"):
+            text.append(f" │ {state.mark_kind} marks {when}, ")
+            text.append("AFTER the valuation time", style="bold")
+        else:
+            text.append(f" │ {state.mark_kind} marks {when} ({age.words} old)")
+        if age.stale:
+            text.append(" STALE: before the last close", style="bold reverse")
+        text.append(f" │ {Path(state.db_path).name}")
+        if state.read_only:
+            text.append(" │ ")
+            text.append("READ-ONLY", style="bold reverse")
+        for alert in alerts:
+            text.append(" │ ")
+            text.append(f"! {alert}", style="bold")
+        self.update(text)
+        self.tooltip = state.db_path
+
+    def show_error(self, reason: str) -> None:
+        """Loading failed: say why in the header."""
+        self.update(Text(f"✗ {reason}", style="bold"))

@@ -1,0 +1,97 @@
+"""The Ladder pane: the spot × vol grid of the book's full P&L, or its estimate or error.
+
+The grid is ``blotter.scenario.ladder``'s; the worst cell of the full P&L is marked ``▼`` (and in
+reverse video), the vol rule is stated under the grid, and the bar's day roll is applied.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.containers import VerticalScroll
+from textual.widgets import Static
+
+from blotter.ui import fmt
+
+GRIDS = ("full", "estimate", "error")
+"""What the grid can show, in the order the grid key cycles through them."""
+
+GRID_TITLES = {"full": "full revaluation P&L", "estimate": "greeks' estimate (2nd order)",
+               "error": "error = full − estimate"}
+
+WORST = "▼"
+"""Marks the worst cell (largest loss of the full revaluation)."""
+
+
+def worst_cell(ladder: Any) -> tuple[int, int] | None:
+    """(spot row, vol column) of the ladder's worst cell as ``scenario.ladder`` reports it."""
+    worst = getattr(ladder, "worst", None)
+    if worst is None:
+        return None
+    if isinstance(worst, tuple) and len(worst) == 2 and all(isinstance(v, (int, np.integer)) for v in worst):
+        return int(worst[0]), int(worst[1])
+    for a, b in (("spot_index", "vol_index"), ("i", "j"), ("row", "col")):
+        if hasattr(worst, a) and hasattr(worst, b):
+            return int(getattr(worst, a)), int(getattr(worst, b))
+    return None
+
+
+class LadderPane(VerticalScroll):
+    """Title, grid and the rule line."""
+
+    def __init__(self) -> None:
+        super().__init__(id="ladder-pane", classes="pane")
+        self.border_title = "Ladder"
+        self.grid = "full"
+        self.ladder: Any = None
+        self.days = 0.0
+
+    def compose(self) -> ComposeResult:
+        yield Static("waiting for the book…", id="ladder-grid")
+        yield Static("", id="ladder-rule")
+
+    def show(self, ladder: Any, days: float) -> None:
+        """Show a ladder computed with a ``days`` roll."""
+        self.ladder, self.days = ladder, days
+        self.repaint()
+
+    def next_grid(self) -> str:
+        """Cycle full → estimate → error; returns the grid now shown."""
+        self.grid = GRIDS[(GRIDS.index(self.grid) + 1) % len(GRIDS)]
+        self.repaint()
+        return self.grid
+
+    def repaint(self) -> None:
+        ladder = self.ladder
+        if ladder is None:
+            return
+        cells = np.asarray(getattr(ladder, self.grid))
+        spot_pcts = list(ladder.spot_pcts)
+        vol_pts = list(ladder.vol_pts)
+        worst = worst_cell(ladder)
+        roll = f", after {self.days:g} day{'s' if self.days != 1 else ''}" if self.days else ""
+        rule = str(getattr(ladder, "rule", "") or "")
+        self.border_title = (f"Ladder: {GRID_TITLES[self.grid]}{roll} ─ {rule}"
+                             + (f" ─ {WORST} worst" if worst else ""))
+        table = Table(box=None, pad_edge=False, padding=(0, 1))
+        table.add_column("spot \\ vol", justify="right", no_wrap=True)
+        for v in vol_pts:
+            table.add_column(f"{v:+g} pt", justify="right", no_wrap=True)
+        for i, s in enumerate(spot_pcts):
+            row: list[Text | str] = [f"{s:+g}%"]
+            for j in range(len(vol_pts)):
+                text = Text(fmt.money(float(cells[i, j])))
+                if worst == (i, j):
+                    text = Text(WORST) + text
+                    text.stylize("reverse")
+                row.append(text)
+            table.add_row(*row)
+        self.query_one("#ladder-grid", Static).update(table)
+        legend = f"{WORST} worst cell of the full P&L. " if worst else ""
+        self.query_one("#ladder-rule", Static).update(
+            Text(f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
+                 "in points; cells: P&L in the book's currency."))

@@ -1,0 +1,78 @@
+"""The what-if bar: one input line for a move, its history, and the parser's message beside it."""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.containers import Horizontal
+from textual.widgets import Input, Static
+
+from blotter.ui.keys import app_bindings
+
+HISTORY_SIZE = 50
+"""Moves kept for up/down recall in one session."""
+
+
+class MoveInput(Input):
+    """The bar's input line, with up/down recalling earlier moves."""
+
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("bar"))
+
+    def __init__(self) -> None:
+        super().__init__(placeholder="what-if: spot -3% vol +2 days 1   (? help)",
+                         id="whatif-input", select_on_focus=False)
+        self.cursor_blink = False   # a blinking cursor is a timer; idle means none
+        self.history: list[str] = []
+        self._recall: int | None = None
+
+    def remember(self, text: str) -> None:
+        """Put a move that parsed at the end of the history (no repeats back to back)."""
+        text = text.strip()
+        if text and (not self.history or self.history[-1] != text):
+            self.history.append(text)
+            del self.history[:-HISTORY_SIZE]
+        self._recall = None
+
+    def action_history(self, step: int) -> None:
+        """Recall the previous (``step`` −1) or next (+1) move from the history."""
+        if not self.history:
+            return
+        if self._recall is None:
+            self._recall = len(self.history)
+        self._recall = max(0, min(len(self.history), self._recall + step))
+        self.value = self.history[self._recall] if self._recall < len(self.history) else ""
+        self.cursor_position = len(self.value)
+
+
+class WhatIfBar(Horizontal):
+    """Input and message side by side; the message says what is wrong with a bad line."""
+
+    def compose(self) -> ComposeResult:
+        yield MoveInput()
+        yield Static("", id="whatif-message")
+
+    def show_ok(self, summary: str, text: str = "") -> None:
+        """A move parsed and applied: say what it was read as when that differs from ``text``."""
+        same = " ".join(text.split()).lower() == summary.lower()
+        self.query_one("#whatif-message", Static).update(Text("✓ applied" if same else "✓ read as " + summary))
+        self.remove_class("-bad")
+
+    def show_error(self, text: str, message: str, start: int, end: int) -> None:
+        """A bad line: the message, and the offending word picked out by ``^`` marks."""
+        word = text[start:end] if 0 <= start < end <= len(text) else ""
+        out = Text("✗ ")
+        out.append(message)
+        if word:
+            out.append(" at ")
+            out.append(f"«{word}»", style="reverse")
+        out.append(" (last good result kept)")
+        self.query_one("#whatif-message", Static).update(out)
+        self.add_class("-bad")
+
+    def clear_message(self) -> None:
+        """An empty bar: no message."""
+        self.query_one("#whatif-message", Static).update("")
+        self.remove_class("-bad")
