@@ -577,6 +577,9 @@ class Store:
     in ``BEGIN IMMEDIATE`` transactions. ``path`` is the book file; ``read_only`` refuses writes.
     """
 
+    _BEGIN = "BEGIN IMMEDIATE"
+    """How a write transaction starts; IMMEDIATE takes the write lock before the first read."""
+
     def __init__(self, path: Path, read_only: bool, conn: sqlite3.Connection) -> None:
         self.path = path
         self.read_only = read_only
@@ -633,7 +636,7 @@ class Store:
             raise ReadOnlyError()
         conn = self._conn()
         try:
-            conn.execute("BEGIN IMMEDIATE")
+            conn.execute(self._BEGIN)
         except sqlite3.Error as exc:
             raise _map_error(exc, self.path) from None
         try:
@@ -1586,10 +1589,15 @@ def _raise_if(p: Path, problems: list[_Problem]) -> None:
 
 
 def _unneutralise(text: str) -> str:
-    """Undo the leading quote ``neutralise`` puts before formula-like text on export."""
-    if len(text) >= 2 and text[0] == "'" and text[1] in "=+-@\t\r":
+    """Undo the leading quote that export puts before formula-like text or text starting with a quote."""
+    if len(text) >= 2 and text[0] == "'" and text[1] in "'=+-@\t\r":
         return text[1:]
     return text
+
+
+def _escape_quote(text: str) -> str:
+    """Text for export: a leading quote is doubled, so the importer's ``_unneutralise`` is exact."""
+    return "'" + text if text.startswith("'") else text
 
 
 def _cell(rec: dict[str, str], col: str) -> str:
@@ -1747,17 +1755,17 @@ def _parse_mark_row(line: int, rec: dict[str, str], unders: dict[str, int],
 
 def trade_csv_row(t: TradeRecord) -> list[Any]:
     """The CSV cells of a trade, ``TRADE_COLUMNS`` then ``TRADE_INFO_COLUMNS`` (the import format)."""
-    return [t.book, t.symbol, t.option_type, t.expiry.isoformat() if t.expiry else "",
+    return [_escape_quote(t.book), _escape_quote(t.symbol), t.option_type, t.expiry.isoformat() if t.expiry else "",
             "" if t.strike is None else repr(float(t.strike)).removesuffix(".0"),
             t.quantity, repr(float(t.price)), _ts(t.trade_time),
             "american" if t.american else "european", repr(float(t.multiplier)).removesuffix(".0"),
-            "cash" if t.cash_settled else "physical", t.note,
+            "cash" if t.cash_settled else "physical", _escape_quote(t.note),
             t.trade_id, t.state, t.who, t.source, _ts(t.booked_at), t.contract]
 
 
 def mark_csv_row(m: MarkRecord) -> list[Any]:
     """The CSV cells of a mark point, ``MARK_COLUMNS`` then ``MARK_INFO_COLUMNS``."""
-    return [m.kind, m.symbol or "", m.currency or "", m.expiry.isoformat() if m.expiry else "",
+    return [m.kind, _escape_quote(m.symbol or ""), m.currency or "", m.expiry.isoformat() if m.expiry else "",
             "" if m.strike is None else repr(float(m.strike)).removesuffix(".0"),
             "" if m.tenor_days is None else m.tenor_days, repr(float(m.value)),
             m.mark_id, m.mark_set_id, m.set_kind, _ts(m.marked_at), m.who]

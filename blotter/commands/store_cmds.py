@@ -1,0 +1,355 @@
+"""``blotter trade ...`` and ``blotter mark ...``: book trades and log marks in the store.
+
+Every command takes ``--db PATH`` (or the group's ``--db`` / ``$BLOTTER_DB``), exits 0 only on
+success, and turns a ``StoreError`` into a one-line (or, for imports, a per-problem) message.
+Commands that print rows take ``--json`` or ``--csv``; the CSV of ``trade list`` and
+``mark list`` is the import format, so it imports back unchanged.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from datetime import datetime
+from typing import Any
+
+import click
+
+from blotter.commands.common import (check_output_flags, db_option, output_options, print_csv,
+                                     print_json, print_table, read_only_requested, resolve_db)
+
+
+@contextmanager
+def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
+    """The book for a command, closed afterwards; ``StoreError`` becomes a ``ClickException``."""
+    from blotter.store import StoreError, open_store
+
+    path, _explicit = resolve_db(db_path)
+    try:
+        store = open_store(path, read_only=read_only or read_only_requested())
+    except StoreError as exc:
+        raise click.ClickException(str(exc)) from None
+    try:
+        yield store
+    except StoreError as exc:
+        raise click.ClickException(str(exc)) from None
+    finally:
+        store.close()
+
+
+def _time_option(value: str | None) -> datetime | None:
+    from blotter.store import StoreError, parse_time
+
+    if value is None:
+        return None
+    try:
+        return parse_time(value)
+    except StoreError as exc:
+        raise click.BadParameter(str(exc)) from None
+
+
+def parse_vol(text: str) -> float:
+    """A vol from ``0.25`` (decimal) or ``25%``; a bare number above 3 is refused as ambiguous."""
+    t = text.strip()
+    try:
+        if t.endswith("%"):
+            return float(t[:-1]) / 100.0
+        v = float(t)
+    except ValueError:
+        raise click.BadParameter(f"{text!r} is not a vol: write 0.25 or 25%") from None
+    if v > 3.0:
+        raise click.BadParameter(f"{text!r} looks like a percentage: write {t}% or {v / 100:g}")
+    return v
+
+
+def parse_decimal_or_percent(text: str, what: str) -> float:
+    """A decimal (``0.04``) or a percentage (``4%``)."""
+    t = text.strip()
+    try:
+        return float(t[:-1]) / 100.0 if t.endswith("%") else float(t)
+    except ValueError:
+        raise click.BadParameter(f"{text!r} is not a {what}: write 0.04 or 4%") from None
+
+
+def _emit(as_json: bool, payload: dict[str, Any], text: str) -> None:
+    if as_json:
+        print_json(payload)
+    else:
+        click.echo(text)
+
+
+# ---------------------------------------------------------------------------------------------
+# trade
+
+
+@click.group()
+def trade() -> None:
+    """Book, cancel, amend, import and list trades (never edited or deleted: every change is a row)."""
+
+
+@trade.command("add")
+@click.argument("symbol")
+@click.option("--qty", "quantity", type=int, required=True,
+              help="Signed quantity: contracts for an option, shares (units) for the underlying.")
+@click.option("--price", type=float, required=True,
+              help="Price per unit of underlying as quoted (option premium per share).")
+@click.option("--expiry", help="Option expiry date, YYYY-MM-DD (leave out for the underlying).")
+@click.option("--strike", type=float, help="Option strike, in the underlying's price units.")
+@click.option("--call/--put", "is_call", default=None, help="Call or put (options only).")
+@click.option("--book", default="main", show_default=True, help="Book (desk account).")
+@click.option("--time", "trade_time", help="When it was dealt, ISO-8601 with Z or offset; default now.")
+@click.option("--note", default="", help="Free note kept with the trade.")
+@click.option("--american/--european", default=None, help="Exercise style (default: the underlying's).")
+@click.option("--multiplier", type=float, help="Units per contract (default: the underlying's).")
+@click.option("--cash-settled/--physical", "cash_settled", default=None,
+              help="Settlement (default: the underlying's).")
+@click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
+@db_option
+def trade_add(symbol: str, quantity: int, price: float, expiry: str | None, strike: float | None,
+              is_call: bool | None, book: str, trade_time: str | None, note: str,
+              american: bool | None, multiplier: float | None, cash_settled: bool | None,
+              as_json: bool, db_path: str | None) -> None:
+    """Book a trade in SYMBOL: an option (--expiry, --strike, --call/--put) or the underlying itself."""
+    when = _time_option(trade_time)
+    with _store(db_path) as store:
+        tid = store.add_trade(book, symbol, quantity, price, expiry, strike, is_call,
+                              trade_time=when, note=note, american=american, multiplier=multiplier,
+                              cash_settled=cash_settled)
+    _emit(as_json, {"trade_id": tid}, f"booked trade {tid}")
+
+
+@trade.command("cancel")
+@click.argument("trade_id", type=int)
+@click.option("--reason", required=True, help="Why it is cancelled (kept on record).")
+@click.option("--json", "as_json", is_flag=True, help="Print the cancel's id as JSON.")
+@db_option
+def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None) -> None:
+    """Cancel trade TRADE_ID: a new row naming it and the reason; the trade stays on record."""
+    with _store(db_path) as store:
+        cid = store.cancel_trade(trade_id, reason)
+    _emit(as_json, {"cancel_id": cid, "trade_id": trade_id}, f"cancelled trade {trade_id}")
+
+
+@trade.command("amend")
+@click.argument("trade_id", type=int)
+@click.option("--reason", required=True, help="Why it is amended (kept on record).")
+@click.option("--qty", "quantity", type=int, help="New signed quantity.")
+@click.option("--price", type=float, help="New price per unit of underlying.")
+@click.option("--time", "trade_time", help="New deal time, ISO-8601 with Z or offset.")
+@click.option("--note", help="New note.")
+@click.option("--book", help="Move to this book.")
+@click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
+@db_option
+def trade_amend(trade_id: int, reason: str, quantity: int | None, price: float | None,
+                trade_time: str | None, note: str | None, book: str | None, as_json: bool,
+                db_path: str | None) -> None:
+    """Amend trade TRADE_ID: cancel it and book a replacement that names it."""
+    when = _time_option(trade_time)
+    with _store(db_path) as store:
+        new_id = store.amend_trade(trade_id, reason=reason, quantity=quantity, price=price,
+                                   trade_time=when, note=note, book=book)
+    _emit(as_json, {"trade_id": new_id, "replaces": trade_id},
+          f"amended trade {trade_id}: replaced by trade {new_id}")
+
+
+@trade.command("import")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print what was imported as JSON.")
+@db_option
+def trade_import(file: str, as_json: bool, db_path: str | None) -> None:
+    """Import trades from a CSV FILE (the `trade list --csv` format): every row or none."""
+    with _store(db_path) as store:
+        rep = store.import_trades_csv(file)
+    _emit(as_json, {"rows": rep.rows, "import_id": rep.import_id, "first_trade_id": rep.first_id,
+                    "last_trade_id": rep.last_id},
+          f"imported {rep.rows} trades from {rep.path.name} (trades {rep.first_id}-{rep.last_id})")
+
+
+TRADE_TABLE = ("id", "book", "contract", "qty", "price", "traded (UTC)", "state", "who", "source",
+               "note")
+"""Columns of the ``trade list`` table (price per unit of underlying)."""
+
+
+@trade.command("list")
+@click.option("--book", help="Only this book.")
+@click.option("--since", help="Only trades dealt after this instant (ISO-8601 with Z or offset).")
+@click.option("--until", help="Only trades dealt at or before this instant.")
+@click.option("--all", "show_all", is_flag=True,
+              help="Include cancelled and amended trades (the CSV then cannot be re-imported).")
+@output_options
+@db_option
+def trade_list(book: str | None, since: str | None, until: str | None, show_all: bool,
+               as_json: bool, as_csv: bool, db_path: str | None) -> None:
+    """List trades, oldest first: live ones, or every row with --all."""
+    from blotter.store import TRADE_COLUMNS, TRADE_INFO_COLUMNS, trade_csv_row
+
+    check_output_flags(as_json, as_csv)
+    lo, hi = _time_option(since), _time_option(until)
+    with _store(db_path, read_only=True) as store:
+        rows = store.trades(book=book, since=lo, until=hi, live_only=not show_all)
+    if as_csv:
+        print_csv(TRADE_COLUMNS + TRADE_INFO_COLUMNS, (trade_csv_row(t) for t in rows))
+    elif as_json:
+        print_json([dict(zip(TRADE_COLUMNS + TRADE_INFO_COLUMNS, trade_csv_row(t))) | {
+            "quantity": t.quantity, "price": t.price, "strike": t.strike,
+            "multiplier": t.multiplier, "replaces": t.replaces, "replaced_by": t.replaced_by,
+            "cancel_reason": t.cancel_reason} for t in rows])
+    else:
+        print_table(TRADE_TABLE, [
+            (t.trade_id, t.book, t.contract, f"{t.quantity:+,d}", f"{t.price:,.4g}",
+             t.trade_time.strftime("%Y-%m-%d %H:%M:%S"), t.state, t.who, t.source, t.note)
+            for t in rows], title=f"{len(rows)} trades (price per unit of underlying)",
+            right=[True, False, False, True, True, False, False, False, False, False])
+
+
+# ---------------------------------------------------------------------------------------------
+# mark
+
+
+@click.group()
+def mark() -> None:
+    """Log marks (spot, vol, rate, dividend yield), import them, commit the close and list them."""
+
+
+def _log(db_path: str | None, as_json: bool, action: Callable[[Any], int], what: str) -> None:
+    with _store(db_path) as store:
+        mark_id = action(store)
+    _emit(as_json, {"mark_id": mark_id}, f"logged {what} (mark {mark_id})")
+
+
+@mark.command("spot")
+@click.argument("symbol")
+@click.argument("price", type=float)
+@click.option("--note", help="Free note kept with the mark.")
+@click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
+@db_option
+def mark_spot(symbol: str, price: float, note: str | None, as_json: bool,
+              db_path: str | None) -> None:
+    """Log the spot PRICE of SYMBOL (in its currency, per unit)."""
+    _log(db_path, as_json, lambda s: s.log_spot(symbol, price, note=note),
+         f"spot {symbol} {price:g}")
+
+
+@mark.command("vol")
+@click.argument("symbol")
+@click.argument("expiry")
+@click.argument("vol")
+@click.option("--strike", type=float, help="Strike of the point; leave out for the ATM vol.")
+@click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
+@db_option
+def mark_vol(symbol: str, expiry: str, vol: str, strike: float | None, as_json: bool,
+             db_path: str | None) -> None:
+    """Log the implied VOL (0.25 or 25%) of SYMBOL at EXPIRY (YYYY-MM-DD) and --strike (or ATM)."""
+    v = parse_vol(vol)
+    where = f" K={strike:g}" if strike is not None else " ATM"
+    _log(db_path, as_json, lambda s: s.log_vol(symbol, expiry, v, strike=strike),
+         f"vol {symbol} {expiry}{where} {v:.2%}")
+
+
+@mark.command("rate")
+@click.argument("currency")
+@click.argument("tenor_days", type=int)
+@click.argument("rate")
+@click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
+@db_option
+def mark_rate(currency: str, tenor_days: int, rate: str, as_json: bool, db_path: str | None) -> None:
+    """Log the zero RATE (0.04 or 4%, continuously compounded) of CURRENCY at TENOR_DAYS."""
+    r = parse_decimal_or_percent(rate, "rate")
+    _log(db_path, as_json, lambda s: s.log_rate(currency, tenor_days, r),
+         f"rate {currency} {tenor_days} d {r:.4%}")
+
+
+@mark.command("divyield")
+@click.argument("symbol")
+@click.argument("q")
+@click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
+@db_option
+def mark_divyield(symbol: str, q: str, as_json: bool, db_path: str | None) -> None:
+    """Log the dividend yield Q (0.02 or 2%, continuous) of SYMBOL, overriding its default."""
+    v = parse_decimal_or_percent(q, "dividend yield")
+    _log(db_path, as_json, lambda s: s.log_div_yield(symbol, v), f"dividend yield {symbol} {v:.4%}")
+
+
+@mark.command("import")
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.option("--json", "as_json", is_flag=True, help="Print what was imported as JSON.")
+@db_option
+def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
+    """Import marks from a CSV FILE (the `mark list --csv` format) as one set: every row or none."""
+    with _store(db_path) as store:
+        rep = store.import_marks_csv(file)
+    _emit(as_json, {"rows": rep.rows, "import_id": rep.import_id, "mark_set_id": rep.first_id},
+          f"imported {rep.rows} marks from {rep.path.name} (mark set {rep.first_id})")
+
+
+@mark.command("close")
+@click.option("--note", help="Free note kept with the close set.")
+@click.option("--corrects", type=int, help="Id of an earlier close set this one corrects.")
+@click.option("--json", "as_json", is_flag=True, help="Print the close set id as JSON.")
+@db_option
+def mark_close(note: str | None, corrects: int | None, as_json: bool, db_path: str | None) -> None:
+    """Commit the marks in force now as today's close set (immutable once written)."""
+    with _store(db_path) as store:
+        set_id = store.commit_close(note=note, corrects=corrects)
+        count = store.mark_sets()[-1].marks
+    _emit(as_json, {"mark_set_id": set_id, "marks": count},
+          f"committed close set {set_id} ({count} marks)")
+
+
+MARK_TABLE = ("id", "set", "set kind", "marked (UTC)", "kind", "symbol/ccy", "expiry", "strike",
+              "tenor d", "value", "unit")
+"""Columns of the ``mark list`` table."""
+
+_UNITS = {"spot": "price", "vol": "vol, decimal", "rate": "zero rate, cont., decimal",
+          "div_yield": "yield, cont., decimal"}
+
+
+@mark.command("list")
+@click.option("--set", "mark_set_id", type=int, help="Exactly this mark set, as recorded.")
+@click.option("--as-of", "as_of", help="Marks in force at this instant (ISO-8601 with Z or offset).")
+@click.option("--sets", "list_sets", is_flag=True, help="List the mark sets instead of marks.")
+@output_options
+@db_option
+def mark_list(mark_set_id: int | None, as_of: str | None, list_sets: bool, as_json: bool,
+              as_csv: bool, db_path: str | None) -> None:
+    """List the marks in force (latest of each point), one set (--set), or the sets (--sets)."""
+    from blotter.store import MARK_COLUMNS, MARK_INFO_COLUMNS, mark_csv_row, timestamp_text
+
+    check_output_flags(as_json, as_csv)
+    if mark_set_id is not None and as_of is not None:
+        raise click.UsageError("choose one of --set and --as-of")
+    when = _time_option(as_of)
+    with _store(db_path, read_only=True) as store:
+        if list_sets:
+            sets = store.mark_sets()
+        else:
+            marks = store.marks(mark_set_id=mark_set_id, as_of=when)
+    if list_sets:
+        cols = ("id", "kind", "marked_at", "who", "marks", "corrects", "superseded_by", "source",
+                "note")
+        rows = [(s.id, s.kind, timestamp_text(s.marked_at), s.who, s.marks, s.corrects,
+                 s.superseded_by, s.source, s.note) for s in sets]
+        if as_csv:
+            print_csv(cols, rows)
+        elif as_json:
+            print_json([dict(zip(cols, r)) for r in rows])
+        else:
+            print_table(cols, rows, title=f"{len(rows)} mark sets (times UTC)")
+        return
+    if as_csv:
+        print_csv(MARK_COLUMNS + MARK_INFO_COLUMNS, (mark_csv_row(m) for m in marks))
+    elif as_json:
+        print_json([dict(zip(MARK_COLUMNS + MARK_INFO_COLUMNS, mark_csv_row(m))) | {
+            "value": m.value, "strike": m.strike} for m in marks])
+    else:
+        print_table(MARK_TABLE, [
+            (m.mark_id, m.mark_set_id, m.set_kind, m.marked_at.strftime("%Y-%m-%d %H:%M:%S"),
+             m.kind, m.symbol or m.currency, m.expiry or "",
+             "ATM" if m.kind == "vol" and m.strike is None else ("" if m.strike is None else
+                                                                 f"{m.strike:g}"),
+             m.tenor_days or "", f"{m.value:.6g}", _UNITS[m.kind]) for m in marks],
+            title=f"{len(marks)} marks", right=[True, True, False, False, False, False, False,
+                                                 True, True, True, False])
+
+
+COMMANDS = [trade, mark]
