@@ -1,0 +1,205 @@
+-- Frozen copy of schema.sql's version-1 section, as released: the migration test builds an
+-- old book from it. Never edit this file.
+
+-- @version 1 ------------------------------------------------------------------------------------
+
+CREATE TABLE underlying (
+    underlying_id INTEGER PRIMARY KEY,
+    symbol        TEXT    NOT NULL UNIQUE CHECK (length(symbol) BETWEEN 1 AND 64),
+    description   TEXT    NOT NULL DEFAULT '',
+    kind          TEXT    NOT NULL CHECK (kind IN ('stock', 'index', 'future', 'fx')),
+    currency      TEXT    NOT NULL CHECK (length(currency) = 3 AND upper(currency) = currency),
+    multiplier    REAL    NOT NULL CHECK (multiplier > 0),             -- default units per contract
+    american      INTEGER NOT NULL CHECK (american IN (0, 1)),         -- default exercise style
+    cash_settled  INTEGER NOT NULL CHECK (cash_settled IN (0, 1)),     -- default settlement
+    div_yield     REAL    NOT NULL DEFAULT 0 CHECK (div_yield BETWEEN -1 AND 1),  -- decimal, cont.
+    beta          REAL    NOT NULL DEFAULT 1 CHECK (beta BETWEEN -20 AND 20),     -- to reference
+    is_reference  INTEGER NOT NULL DEFAULT 0 CHECK (is_reference IN (0, 1)),      -- the book's index
+    calendar      TEXT    NOT NULL DEFAULT 'NYSE' CHECK (length(calendar) > 0),   -- holiday calendar
+    time_zone     TEXT    NOT NULL DEFAULT 'America/New_York' CHECK (length(time_zone) > 0),
+    cutoff_time   TEXT    NOT NULL DEFAULT '16:00'
+                  CHECK (length(cutoff_time) = 5 AND time(cutoff_time || ':00', '+0 days') IS cutoff_time || ':00')
+) STRICT;
+
+CREATE UNIQUE INDEX underlying_one_reference ON underlying (is_reference) WHERE is_reference = 1;
+
+-- A contract is a call or put ('C', 'P') or the underlying itself ('U', for stock or futures
+-- hedges, which have no strike and no expiry).
+CREATE TABLE contract (
+    contract_id   INTEGER PRIMARY KEY,
+    underlying_id INTEGER NOT NULL REFERENCES underlying (underlying_id),
+    option_type   TEXT    NOT NULL CHECK (option_type IN ('C', 'P', 'U')),
+    strike        REAL    CHECK (strike > 0),
+    expiry        TEXT    CHECK (date(expiry, '+0 days') IS expiry),
+    cutoff_time   TEXT    CHECK (length(cutoff_time) = 5 AND time(cutoff_time || ':00', '+0 days') IS cutoff_time || ':00'),
+    american      INTEGER NOT NULL CHECK (american IN (0, 1)),
+    multiplier    REAL    NOT NULL CHECK (multiplier > 0),
+    cash_settled  INTEGER NOT NULL CHECK (cash_settled IN (0, 1)),
+    CHECK ((option_type = 'U' AND strike IS NULL AND expiry IS NULL AND cutoff_time IS NULL)
+        OR (option_type IN ('C', 'P') AND strike IS NOT NULL AND expiry IS NOT NULL
+            AND cutoff_time IS NOT NULL))
+) STRICT;
+
+CREATE UNIQUE INDEX contract_terms ON contract (
+    underlying_id, option_type, coalesce(expiry, ''), coalesce(strike, 0), american, multiplier,
+    cash_settled);
+
+CREATE TABLE book (
+    book_id     INTEGER PRIMARY KEY,
+    name        TEXT    NOT NULL UNIQUE CHECK (length(name) BETWEEN 1 AND 64),
+    description TEXT    NOT NULL DEFAULT ''
+) STRICT;
+
+-- price: per unit of underlying, as quoted (an option's premium per share); the trade's cash is
+-- quantity x multiplier x price. trade_time: when it was dealt; booked_at: when it was entered.
+-- source: 'typed', 'exercise', 'demo', or 'file:<name>' for an import.
+CREATE TABLE trade (
+    trade_id    INTEGER PRIMARY KEY,
+    book_id     INTEGER NOT NULL REFERENCES book (book_id),
+    contract_id INTEGER NOT NULL REFERENCES contract (contract_id),
+    quantity    INTEGER NOT NULL CHECK (quantity <> 0),
+    price       REAL    NOT NULL CHECK (price >= 0 AND price < 1e12),
+    trade_time  TEXT    NOT NULL CHECK (
+        trade_time GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(trade_time, 1, 19), '+0 days') IS replace(substr(trade_time, 1, 19), 'T', ' ')),
+    booked_at   TEXT    NOT NULL CHECK (
+        booked_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(booked_at, 1, 19), '+0 days') IS replace(substr(booked_at, 1, 19), 'T', ' ')),
+    who         TEXT    NOT NULL CHECK (length(who) > 0),
+    source      TEXT    NOT NULL CHECK (source IN ('typed', 'exercise', 'demo') OR source GLOB 'file:?*'),
+    note        TEXT    NOT NULL DEFAULT '',
+    replaces    INTEGER REFERENCES trade (trade_id),
+    CHECK (trade_time <= booked_at),
+    CHECK (replaces IS NULL OR replaces < trade_id)
+) STRICT;
+
+CREATE INDEX trade_contract ON trade (contract_id);
+CREATE INDEX trade_booked ON trade (booked_at);
+CREATE UNIQUE INDEX trade_replaced_once ON trade (replaces) WHERE replaces IS NOT NULL;
+
+CREATE TABLE trade_cancel (
+    cancel_id    INTEGER PRIMARY KEY,
+    trade_id     INTEGER NOT NULL UNIQUE REFERENCES trade (trade_id),
+    reason       TEXT    NOT NULL CHECK (length(trim(reason)) > 0),
+    cancelled_at TEXT    NOT NULL CHECK (
+        cancelled_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(cancelled_at, 1, 19), '+0 days') IS replace(substr(cancelled_at, 1, 19), 'T', ' ')),
+    who          TEXT    NOT NULL CHECK (length(who) > 0)
+) STRICT;
+
+-- A mark set is written whole in one transaction: mark_count is the number of its marks, and a
+-- trigger refuses a mark beyond it, so a committed set can never gain or lose a point.
+CREATE TABLE mark_set (
+    mark_set_id INTEGER PRIMARY KEY,
+    kind        TEXT    NOT NULL CHECK (kind IN ('close', 'intraday')),
+    marked_at   TEXT    NOT NULL CHECK (
+        marked_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(marked_at, 1, 19), '+0 days') IS replace(substr(marked_at, 1, 19), 'T', ' ')),
+    who         TEXT    NOT NULL CHECK (length(who) > 0),
+    note        TEXT    NOT NULL DEFAULT '',
+    source      TEXT    NOT NULL CHECK (source IN ('typed', 'close', 'demo') OR source GLOB 'file:?*'),
+    corrects    INTEGER REFERENCES mark_set (mark_set_id),
+    mark_count  INTEGER NOT NULL CHECK (mark_count >= 1),
+    CHECK (corrects IS NULL OR (kind = 'close' AND corrects < mark_set_id))
+) STRICT;
+
+CREATE UNIQUE INDEX mark_set_corrected_once ON mark_set (corrects) WHERE corrects IS NOT NULL;
+
+-- One marked point. kind 'spot': underlying price; 'vol': implied vol (decimal) of an underlying
+-- at an expiry and a strike (NULL strike = the ATM vol of that expiry); 'rate': continuously
+-- compounded zero rate (decimal) of a currency at a tenor in calendar days; 'div_yield':
+-- dividend yield or foreign rate (decimal) overriding the underlying's default.
+CREATE TABLE mark (
+    mark_id       INTEGER PRIMARY KEY,
+    mark_set_id   INTEGER NOT NULL REFERENCES mark_set (mark_set_id),
+    seq           INTEGER NOT NULL CHECK (seq >= 1),
+    kind          TEXT    NOT NULL CHECK (kind IN ('spot', 'vol', 'rate', 'div_yield')),
+    underlying_id INTEGER REFERENCES underlying (underlying_id),
+    currency      TEXT,
+    expiry        TEXT    CHECK (date(expiry, '+0 days') IS expiry),
+    strike        REAL    CHECK (strike > 0),
+    tenor_days    INTEGER CHECK (tenor_days BETWEEN 1 AND 36500),
+    value         REAL    NOT NULL,
+    CHECK (
+        (kind = 'spot' AND underlying_id IS NOT NULL AND currency IS NULL AND expiry IS NULL
+            AND strike IS NULL AND tenor_days IS NULL AND value > 0 AND value < 1e12)
+        OR (kind = 'vol' AND underlying_id IS NOT NULL AND currency IS NULL AND expiry IS NOT NULL
+            AND tenor_days IS NULL AND value > 0 AND value <= 10)
+        OR (kind = 'rate' AND underlying_id IS NULL AND length(currency) = 3
+            AND upper(currency) = currency AND expiry IS NULL AND strike IS NULL
+            AND tenor_days IS NOT NULL AND value BETWEEN -1 AND 1)
+        OR (kind = 'div_yield' AND underlying_id IS NOT NULL AND currency IS NULL
+            AND expiry IS NULL AND strike IS NULL AND tenor_days IS NULL AND value BETWEEN -1 AND 1))
+) STRICT;
+
+CREATE UNIQUE INDEX mark_seq ON mark (mark_set_id, seq);
+CREATE UNIQUE INDEX mark_point ON mark (
+    mark_set_id, kind, coalesce(underlying_id, 0), coalesce(currency, ''), coalesce(expiry, ''),
+    coalesce(strike, 0), coalesce(tenor_days, 0));
+
+-- Free notes about the desk or the file (the demo book says here that it is invented).
+CREATE TABLE desk_note (
+    note_id    INTEGER PRIMARY KEY,
+    written_at TEXT    NOT NULL CHECK (
+        written_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(written_at, 1, 19), '+0 days') IS replace(substr(written_at, 1, 19), 'T', ' ')),
+    who        TEXT    NOT NULL CHECK (length(who) > 0),
+    text       TEXT    NOT NULL CHECK (length(text) > 0)
+) STRICT;
+
+-- Append-only history.
+CREATE TRIGGER underlying_no_update BEFORE UPDATE ON underlying
+BEGIN SELECT RAISE(ABORT, 'underlyings are never changed once written'); END;
+CREATE TRIGGER underlying_no_delete BEFORE DELETE ON underlying
+BEGIN SELECT RAISE(ABORT, 'underlyings are never deleted'); END;
+CREATE TRIGGER contract_no_update BEFORE UPDATE ON contract
+BEGIN SELECT RAISE(ABORT, 'contracts are never changed once written'); END;
+CREATE TRIGGER contract_no_delete BEFORE DELETE ON contract
+BEGIN SELECT RAISE(ABORT, 'contracts are never deleted'); END;
+CREATE TRIGGER book_no_delete BEFORE DELETE ON book
+BEGIN SELECT RAISE(ABORT, 'books are never deleted'); END;
+CREATE TRIGGER book_no_rename BEFORE UPDATE OF name ON book
+BEGIN SELECT RAISE(ABORT, 'books are never renamed'); END;
+CREATE TRIGGER trade_no_update BEFORE UPDATE ON trade
+BEGIN SELECT RAISE(ABORT, 'trades are never changed: cancel or amend instead'); END;
+CREATE TRIGGER trade_no_delete BEFORE DELETE ON trade
+BEGIN SELECT RAISE(ABORT, 'trades are never deleted: cancel instead'); END;
+CREATE TRIGGER trade_cancel_no_update BEFORE UPDATE ON trade_cancel
+BEGIN SELECT RAISE(ABORT, 'cancels are never changed'); END;
+CREATE TRIGGER trade_cancel_no_delete BEFORE DELETE ON trade_cancel
+BEGIN SELECT RAISE(ABORT, 'cancels are never deleted'); END;
+CREATE TRIGGER mark_set_no_update BEFORE UPDATE ON mark_set
+BEGIN SELECT RAISE(ABORT, 'mark sets are never changed: commit a correcting set'); END;
+CREATE TRIGGER mark_set_no_delete BEFORE DELETE ON mark_set
+BEGIN SELECT RAISE(ABORT, 'mark sets are never deleted'); END;
+CREATE TRIGGER mark_no_update BEFORE UPDATE ON mark
+BEGIN SELECT RAISE(ABORT, 'marks are never changed: log a new mark'); END;
+CREATE TRIGGER mark_no_delete BEFORE DELETE ON mark
+BEGIN SELECT RAISE(ABORT, 'marks are never deleted'); END;
+CREATE TRIGGER desk_note_no_update BEFORE UPDATE ON desk_note
+BEGIN SELECT RAISE(ABORT, 'notes are never changed'); END;
+CREATE TRIGGER desk_note_no_delete BEFORE DELETE ON desk_note
+BEGIN SELECT RAISE(ABORT, 'notes are never deleted'); END;
+
+-- Rules that span tables.
+CREATE TRIGGER trade_before_expiry BEFORE INSERT ON trade
+WHEN (SELECT expiry FROM contract WHERE contract_id = NEW.contract_id) < substr(NEW.trade_time, 1, 10)
+BEGIN SELECT RAISE(ABORT, 'trade date is after the contract''s expiry date'); END;
+
+CREATE TRIGGER trade_replaces_cancelled BEFORE INSERT ON trade
+WHEN NEW.replaces IS NOT NULL
+ AND NOT EXISTS (SELECT 1 FROM trade_cancel WHERE trade_id = NEW.replaces)
+BEGIN SELECT RAISE(ABORT, 'an amending trade must replace a cancelled trade'); END;
+
+CREATE TRIGGER trade_cancel_after_booking BEFORE INSERT ON trade_cancel
+WHEN NEW.cancelled_at < (SELECT booked_at FROM trade WHERE trade_id = NEW.trade_id)
+BEGIN SELECT RAISE(ABORT, 'a cancel cannot come before the trade was booked'); END;
+
+CREATE TRIGGER mark_set_corrects_close BEFORE INSERT ON mark_set
+WHEN NEW.corrects IS NOT NULL
+ AND (SELECT kind FROM mark_set WHERE mark_set_id = NEW.corrects) IS NOT 'close'
+BEGIN SELECT RAISE(ABORT, 'a correcting set must name a close set'); END;
+
+CREATE TRIGGER mark_within_set BEFORE INSERT ON mark
+WHEN NEW.seq > (SELECT mark_count FROM mark_set WHERE mark_set_id = NEW.mark_set_id)
+BEGIN SELECT RAISE(ABORT, 'the mark set is complete: marks cannot be added to it'); END;
