@@ -32,7 +32,8 @@ from __future__ import annotations
 import re
 import weakref
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -394,12 +395,26 @@ class ExpiringPosition:
 
 
 @dataclass(frozen=True, eq=False)
+class _VolPlan:
+    """A move's vol parts resolved per underlying: dσ_i = add + rel·σ_i + wadd·w_i (decimal)."""
+
+    add_u: np.ndarray     # (n_u,) unweighted points / 100
+    rel_u: np.ndarray     # (n_u,) relative change (−0.1 for −10%)
+    wadd_u: np.ndarray    # (n_u,) weighted points / 100, times √(T_ref/T)
+
+    @property
+    def is_zero(self) -> bool:
+        return not (self.add_u.any() or self.rel_u.any() or self.wadd_u.any())
+
+
+@dataclass(frozen=True, eq=False)
 class MoveResult:
     """A move applied to a base valuation: rows per underlying and in total, per-position arrays.
 
-    Arrays (n,): ``full`` change, ``estimate_1``/``estimate_2``, ``terms`` by name, moved inputs
-    ``spot_after``/``vol_after``/``rate_after``/``years_after``; ``through_expiry`` marks options
-    expiring inside the roll (settled at intrinsic, estimate flagged).
+    Arrays (n,): ``full`` change (currency); ``through_expiry`` marks options expiring inside the
+    roll (settled at intrinsic, estimate flagged). Computed on first use: ``terms`` by name,
+    ``estimate_1``/``estimate_2``, moved inputs ``spot_after``/``vol_after``/``rate_after``/
+    ``years_after``.
     """
 
     move: Move
@@ -410,20 +425,70 @@ class MoveResult:
     by_underlying: list[MoveRow]
     expiring: list[ExpiringPosition]
     full: np.ndarray
-    estimate_1: np.ndarray
-    estimate_2: np.ndarray
-    terms: dict[str, np.ndarray]
-    spot_after: np.ndarray
-    vol_after: np.ndarray
-    rate_after: np.ndarray
-    years_after: np.ndarray
     through_expiry: np.ndarray
-    notes: tuple[str, ...] = field(default=())
+    notes: tuple[str, ...]
+    spot_move_u: np.ndarray       # Δspot per underlying (n_u,), currency
+    vol_plan: _VolPlan
+    rate_move: float              # decimal
+
+    @cached_property
+    def dvol(self) -> np.ndarray:
+        """Vol change per position (n,), decimal; 0 for hedges and options past expiry."""
+        return _dvol_all(self.valuation, prepare(self.valuation), self.vol_plan)
+
+    @cached_property
+    def spot_after(self) -> np.ndarray:
+        """Moved spot per position (n,)."""
+        return self.valuation.spot + self.spot_move_u[self.valuation.book.underlying_idx]
+
+    @cached_property
+    def vol_after(self) -> np.ndarray:
+        """Moved vol per position (n,), NaN for hedges; sticky strike (each contract's own vol)."""
+        return self.valuation.vol + self.dvol
+
+    @cached_property
+    def rate_after(self) -> np.ndarray:
+        """Moved rate per position (n,), decimal."""
+        return self.valuation.rate + self.rate_move
+
+    @cached_property
+    def years_after(self) -> np.ndarray:
+        """Years to expiry after the roll (n,), ≤ 0 for options expiring inside it."""
+        return self.valuation.years - self.roll_years
+
+    @cached_property
+    def terms(self) -> dict[str, np.ndarray]:
+        """The Taylor estimate term by term per position (n,), currency."""
+        p = prepare(self.valuation)
+        ds = self.spot_move_u[p.uidx]
+        dv = self.dvol
+        return {
+            "delta": p.delta_u * ds,
+            "gamma": 0.5 * p.gamma_u * ds * ds,
+            "vega": p.vega_u * dv,
+            "volga": 0.5 * p.volga_u * dv * dv,
+            "vanna": p.vanna_u * ds * dv,
+            "theta": p.theta_u * self.roll_years,
+            "rho": p.rho_u * self.rate_move,
+        }
+
+    @cached_property
+    def estimate_1(self) -> np.ndarray:
+        """First-order estimate per position (n,): delta + vega + theta + rho terms."""
+        t = self.terms
+        return t["delta"] + t["vega"] + t["theta"] + t["rho"]
+
+    @cached_property
+    def estimate_2(self) -> np.ndarray:
+        """Second-order estimate per position (n,): first order + gamma + volga + vanna terms."""
+        t = self.terms
+        return self.estimate_1 + t["gamma"] + t["volga"] + t["vanna"]
 
     def position_rows(self) -> list[MoveRow]:
         """One ``MoveRow`` per position (book order)."""
         labels = self.valuation.book.labels
-        return [_row(labels[i], float(self.full[i]), {k: float(v[i]) for k, v in self.terms.items()},
+        terms = self.terms
+        return [_row(labels[i], float(self.full[i]), {k: float(v[i]) for k, v in terms.items()},
                      int(self.through_expiry[i]))
                 for i in range(len(labels))]
 
@@ -438,8 +503,8 @@ def _pct(err: float, full: float) -> float:
 
 def _row(label: str, full: float, terms: dict[str, float], n_through: int = 0,
          underlying: str | None = None) -> MoveRow:
-    e1 = float(sum(terms[t] for t in FIRST_ORDER))
-    e2 = float(sum(terms[t] for t in TERM_NAMES))
+    e1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
+    e2 = e1 + terms["gamma"] + terms["volga"] + terms["vanna"]
     return MoveRow(label=label, full=full, estimate_1=e1, estimate_2=e2, error_1=full - e1,
                    error_2=full - e2, error_1_pct=_pct(full - e1, full), error_2_pct=_pct(full - e2, full),
                    terms=terms, n_through_expiry=n_through, underlying=underlying)
@@ -447,16 +512,29 @@ def _row(label: str, full: float, terms: dict[str, float], n_through: int = 0,
 
 @dataclass(frozen=True, eq=False)
 class _Prep:
-    """Everything of a base valuation that no move changes, kept for the hot paths."""
+    """Everything of a base valuation that no move changes, kept for the hot paths.
+
+    Arrays named ``*_l`` and the unsuffixed live arrays hold the m live options only; ``*_u``
+    arrays of length n hold raw greeks × units per position; ``sum_*`` are per underlying (n_u,).
+    """
 
     live_idx: np.ndarray        # int64 (m,) option rows with years > 0
-    is_call: np.ndarray         # per live row
+    all_live: bool              # every position is a live option (no gathers needed)
+    is_call: np.ndarray         # (m,)
     strike: np.ndarray
     years: np.ndarray
     american: np.ndarray
     any_american: bool
     base_price: np.ndarray      # engine.price at the base inputs, per unit (m,)
-    dead_idx: np.ndarray        # option rows already past expiry
+    spot_l: np.ndarray
+    rate_l: np.ndarray
+    carry_l: np.ndarray
+    vol_l: np.ndarray
+    weight_l: np.ndarray
+    units_l: np.ndarray
+    uidx_l: np.ndarray
+    carry_moves: np.ndarray     # float (m,): 1 where carry moves with the rate
+    dead_idx: np.ndarray
     hedge_idx: np.ndarray
     units: np.ndarray           # (n,)
     delta_u: np.ndarray         # raw greeks × units (n,)
@@ -466,9 +544,10 @@ class _Prep:
     vanna_u: np.ndarray
     theta_u: np.ndarray
     rho_u: np.ndarray
-    carry_moves: np.ndarray     # float (m,): 1 where carry moves with the rate
     uidx: np.ndarray
     n_u: int
+    present: np.ndarray         # bool (n_u,): underlying has positions
+    sums: dict[str, np.ndarray]  # per-underlying greek sums for the Taylor rows
     calendar: str
 
 
@@ -494,23 +573,51 @@ def prepare(valuation: BookValuation) -> _Prep:
     if prep is not None:
         return prep
     v, book, g = valuation, valuation.book, valuation.greeks
+    n, n_u = len(book), len(book.underlyings)
     live_idx = np.flatnonzero(v.live)
+    all_live = live_idx.size == n
+    take = (lambda a: np.ascontiguousarray(a)) if all_live else (lambda a: a[live_idx])
     units = v.units
-    am = book.american[live_idx]
+    am = take(book.american)
+    spot_l, rate_l, carry_l, vol_l = take(v.spot), take(v.rate), take(v.carry), take(v.vol)
     if live_idx.size:
-        base = np.asarray(engine.price(book.is_call[live_idx], v.spot[live_idx], book.strikes[live_idx],
-                                       v.years[live_idx], v.rate[live_idx], v.carry[live_idx],
-                                       v.vol[live_idx], american=am if am.any() else False), dtype=np.float64)
+        base = np.asarray(engine.price(take(book.is_call), spot_l, take(book.strikes), take(v.years),
+                                       rate_l, carry_l, vol_l, american=am if am.any() else False),
+                          dtype=np.float64)
     else:
         base = np.zeros(0)
+    uidx = book.underlying_idx
+    arrays = {"delta": g.delta * units, "gamma": g.gamma * units, "vega": g.vega * units,
+              "volga": g.volga * units, "vanna": g.vanna * units, "theta": g.theta * units,
+              "rho": v.rho_unit * units}
+    sig = np.nan_to_num(v.vol)
+    w = v.vega_weight
+
+    def per_u(a: np.ndarray) -> np.ndarray:
+        return np.bincount(uidx, weights=a, minlength=n_u)
+
+    sums = {
+        "delta": per_u(arrays["delta"]), "gamma": per_u(arrays["gamma"]),
+        "theta": per_u(arrays["theta"]), "rho": per_u(arrays["rho"]),
+        "vega": per_u(arrays["vega"]), "vega_s": per_u(arrays["vega"] * sig),
+        "vega_w": per_u(arrays["vega"] * w),
+        "volga": per_u(arrays["volga"]), "volga_s": per_u(arrays["volga"] * sig * sig),
+        "volga_w": per_u(arrays["volga"] * w * w),
+        "vanna": per_u(arrays["vanna"]), "vanna_s": per_u(arrays["vanna"] * sig),
+        "vanna_w": per_u(arrays["vanna"] * w),
+        "hedge_units": per_u(np.where(book.is_option, 0.0, units)),
+    }
     prep = _Prep(
-        live_idx=live_idx, is_call=book.is_call[live_idx], strike=book.strikes[live_idx],
-        years=v.years[live_idx], american=am, any_american=bool(am.any()), base_price=base,
+        live_idx=live_idx, all_live=all_live, is_call=take(book.is_call), strike=take(book.strikes),
+        years=take(v.years), american=am, any_american=bool(am.any()), base_price=base,
+        spot_l=spot_l, rate_l=rate_l, carry_l=carry_l, vol_l=vol_l, weight_l=take(w),
+        units_l=take(units), uidx_l=take(uidx),
+        carry_moves=take(v.rate_moves_carry).astype(np.float64),
         dead_idx=np.flatnonzero(book.is_option & ~v.live), hedge_idx=np.flatnonzero(~book.is_option),
-        units=units, delta_u=g.delta * units, gamma_u=g.gamma * units, vega_u=g.vega * units,
-        volga_u=g.volga * units, vanna_u=g.vanna * units, theta_u=g.theta * units,
-        rho_u=v.rho_unit * units, carry_moves=v.rate_moves_carry[live_idx].astype(np.float64),
-        uidx=book.underlying_idx, n_u=len(book.underlyings), calendar=desk_calendar(valuation),
+        units=units, delta_u=arrays["delta"], gamma_u=arrays["gamma"], vega_u=arrays["vega"],
+        volga_u=arrays["volga"], vanna_u=arrays["vanna"], theta_u=arrays["theta"], rho_u=arrays["rho"],
+        uidx=uidx, n_u=n_u, present=np.bincount(uidx, minlength=n_u) > 0, sums=sums,
+        calendar=desk_calendar(valuation),
     )
     _PREP[valuation] = prep
     return prep
@@ -520,7 +627,7 @@ def roll_time(valuation: BookValuation, move: Move) -> np.datetime64:
     """The valuation instant after the move's day roll (calendar days or business days)."""
     t = valuation.valuation_time
     if move.bdays:
-        return cal.roll_business_days(t, move.bdays, desk_calendar(valuation))
+        return cal.roll_business_days(t, move.bdays, prepare(valuation).calendar)
     if move.days:
         return cal.roll_calendar_days(t, move.days)
     return t
@@ -547,8 +654,7 @@ def _spot_moves(valuation: BookValuation, move: Move) -> np.ndarray:
             raise MoveError(f"unknown underlying {s.symbol!r}") from None
         s1[i] = s0[i] * (1.0 + s.amount / 100.0) if s.unit == "%" else (
             s0[i] + s.amount if s.unit == "abs" else s.amount)
-    used = np.zeros(len(und), dtype=bool)
-    used[valuation.book.underlying_idx] = True
+    used = prepare(valuation).present
     bad = used & ~(s1 > 0)
     if bad.any():
         names = ", ".join(und.symbols[i] for i in np.flatnonzero(bad))
@@ -556,33 +662,55 @@ def _spot_moves(valuation: BookValuation, move: Move) -> np.ndarray:
     return s1
 
 
-def _vol_moves(valuation: BookValuation, move: Move, rows: np.ndarray) -> np.ndarray:
-    """Vol change (decimal) of the option rows ``rows`` (m,) after the move's vol parts."""
-    if not move.vol:
-        return np.zeros(rows.size)
+def _vol_plan(valuation: BookValuation, move: Move) -> _VolPlan:
+    """The move's vol parts per underlying; a named part replaces the every-underlying part."""
     und = valuation.book.underlyings
-    uidx = valuation.book.underlying_idx[rows]
-    vol = valuation.vol[rows]
-    weight = valuation.vega_weight[rows]
-    out = np.zeros(rows.size)
-    done = np.zeros(rows.size, dtype=bool)
-    ordered = sorted(move.vol, key=lambda p: p.symbol is None)   # named parts first
+    n_u = len(und)
+    add, rel, wadd = np.zeros(n_u), np.zeros(n_u), np.zeros(n_u)
+    ordered = sorted(move.vol, key=lambda part: part.symbol is not None)   # general first
     for part in ordered:
         if part.symbol is None:
-            mask = ~done
+            sel: slice | int = slice(None)
         else:
             try:
-                mask = uidx == und.index_of(part.symbol)
+                sel = und.index_of(part.symbol)
             except KeyError:
                 raise MoveError(f"unknown underlying {part.symbol!r}") from None
-            mask &= ~done
+        add[sel], rel[sel], wadd[sel] = 0.0, 0.0, 0.0
         if part.unit == "%":
-            out = np.where(mask, vol * (part.amount / 100.0), out)
+            rel[sel] = part.amount / 100.0
+        elif part.weighted:
+            wadd[sel] = part.amount / 100.0
         else:
-            w = weight if part.weighted else 1.0
-            out = np.where(mask, part.amount / 100.0 * w, out)
-        done |= mask
-    return np.maximum(vol + out, VOL_FLOOR) - vol
+            add[sel] = part.amount / 100.0
+    return _VolPlan(add, rel, wadd)
+
+
+def _dvol_live(p: _Prep, plan: _VolPlan) -> np.ndarray | float:
+    """Vol change of the live options (m,) or a scalar when it is one parallel shift."""
+    if plan.is_zero:
+        return 0.0
+    a, r, w = plan.add_u, plan.rel_u, plan.wadd_u
+    if np.all(a == a[0]) and not r.any() and not w.any():
+        return float(a[0])
+    out = np.zeros(p.vol_l.size)
+    if a.any():
+        out += a[p.uidx_l]
+    if r.any():
+        out += r[p.uidx_l] * p.vol_l
+    if w.any():
+        out += w[p.uidx_l] * p.weight_l
+    return out
+
+
+def _dvol_all(v: BookValuation, p: _Prep, plan: _VolPlan) -> np.ndarray:
+    out = np.zeros(len(v))
+    d = _dvol_live(p, plan)
+    if p.all_live:
+        out += d
+    else:
+        out[p.live_idx] = d
+    return out
 
 
 def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
@@ -591,113 +719,147 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     Full revaluation: every live option is repriced with ``engine.price`` on the moved spot, vol
     (sticky strike), rate and time; an option that expires inside the roll is worth its intrinsic
     value on the moved spot; a hedge changes by units × Δspot. The estimate uses the base greeks:
-    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt (the roll's year fraction), ρ·dr.
-    MoveError when the move cannot apply (unknown symbol, spot at or below zero).
+    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt (the roll's year fraction), ρ·dr; the
+    spot and vol moves are the same within an underlying, so its rows come from per-underlying
+    sums of the greeks. MoveError when the move cannot apply (unknown symbol, spot at or below 0).
     """
     v = valuation
     p = prepare(v)
     n = len(v)
     t1 = roll_time(v, move)
     dt = float(cal.year_fraction(v.valuation_time, t1))
-    s1_u = _spot_moves(v, move)
-    ds_u = s1_u - v.underlying_spots
-    ds = ds_u[p.uidx]
-    spot_after = v.spot + ds
+    ds_u = _spot_moves(v, move) - v.underlying_spots
+    ds_u = np.where(p.present, ds_u, 0.0)
     dr = move.rate_bp * 1e-4
+    plan = _vol_plan(v, move)
 
-    li = p.live_idx
-    dvol_live = _vol_moves(v, move, li)
-    vol_after = v.vol.copy()
-    vol_after[li] = v.vol[li] + dvol_live
-    dvol = np.zeros(n)
-    dvol[li] = dvol_live
-    years_live = p.years - dt
-    alive = years_live > 0
-    s_live = spot_after[li]
-
-    new_price = np.empty(li.size)
-    if alive.all():
-        new_price[:] = engine.price(p.is_call, s_live, p.strike, years_live, v.rate[li] + dr,
-                                    v.carry[li] + dr * p.carry_moves, v.vol[li] + dvol_live,
-                                    american=p.american if p.any_american else False)
-    else:
-        a = np.flatnonzero(alive)
+    # Full revaluation of the live options.
+    s1 = p.spot_l + ds_u[p.uidx_l] if ds_u.any() else p.spot_l
+    dvol = _dvol_live(p, plan)
+    vol1 = p.vol_l + dvol if not (isinstance(dvol, float) and dvol == 0.0) else p.vol_l
+    floored = False
+    if not isinstance(dvol, float) or dvol < 0:
+        low = vol1 < VOL_FLOOR
+        if np.any(low):
+            vol1 = np.maximum(vol1, VOL_FLOOR)
+            floored = True
+    t_after = p.years - dt if dt else p.years
+    r1 = p.rate_l + dr if dr else p.rate_l
+    b1 = p.carry_l + dr * p.carry_moves if dr else p.carry_l
+    m = p.live_idx.size
+    through_l = t_after <= 0 if dt else np.zeros(m, dtype=bool)
+    am = p.american if p.any_american else False
+    if m and not through_l.any():
+        new_price = np.asarray(engine.price(p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am))
+    elif m:
+        new_price = np.empty(m)
+        a = np.flatnonzero(~through_l)
         if a.size:
-            new_price[a] = engine.price(p.is_call[a], s_live[a], p.strike[a], years_live[a],
-                                        v.rate[li][a] + dr, v.carry[li][a] + dr * p.carry_moves[a],
-                                        (v.vol[li] + dvol_live)[a],
-                                        american=p.american[a] if p.american[a].any() else False)
-        e = np.flatnonzero(~alive)
+            s1a = np.broadcast_to(s1, (m,))[a]
+            new_price[a] = engine.price(
+                p.is_call[a], s1a, p.strike[a], t_after[a], np.broadcast_to(r1, (m,))[a],
+                np.broadcast_to(b1, (m,))[a], np.broadcast_to(vol1, (m,))[a],
+                american=p.american[a] if p.american[a].any() else False)
+        e = np.flatnonzero(through_l)
         sign = np.where(p.is_call[e], 1.0, -1.0)
-        new_price[e] = np.maximum(sign * (s_live[e] - p.strike[e]), 0.0)
+        new_price[e] = np.maximum(sign * (np.broadcast_to(s1, (m,))[e] - p.strike[e]), 0.0)
+    else:
+        new_price = np.zeros(0)
+    full_l = (new_price - p.base_price) * p.units_l
+    if p.all_live:
+        full = full_l
+        full_u = np.bincount(p.uidx, weights=full, minlength=p.n_u)
+    else:
+        full = ds_u[p.uidx] * p.units                   # hedges: units × dS
+        full[p.live_idx] = full_l
+        if p.dead_idx.size:
+            d = p.dead_idx
+            sign = np.where(v.book.is_call[d], 1.0, -1.0)
+            k = v.book.strikes[d]
+            s_new = v.spot[d] + ds_u[p.uidx[d]]
+            full[d] = (np.maximum(sign * (s_new - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)) * p.units[d]
+        full_u = np.bincount(p.uidx, weights=full, minlength=p.n_u)
 
-    full = ds * p.units                                   # hedges: units × dS
-    full[li] = (new_price - p.base_price) * p.units[li]
-    if p.dead_idx.size:
-        d = p.dead_idx
-        sign = np.where(v.book.is_call[d], 1.0, -1.0)
-        k = v.book.strikes[d]
-        full[d] = (np.maximum(sign * (spot_after[d] - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)) * p.units[d]
-
-    terms = {
-        "delta": p.delta_u * ds,
-        "gamma": 0.5 * p.gamma_u * ds * ds,
-        "vega": p.vega_u * dvol,
-        "volga": 0.5 * p.volga_u * dvol * dvol,
-        "vanna": p.vanna_u * ds * dvol,
-        "theta": p.theta_u * dt,
-        "rho": p.rho_u * dr,
-    }
-    est1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
-    est2 = est1 + terms["gamma"] + terms["volga"] + terms["vanna"]
     through = np.zeros(n, dtype=bool)
-    through[li] = ~alive
+    if through_l.any():
+        through[p.live_idx[through_l]] = True
+        n_through_u = np.bincount(p.uidx[through], minlength=p.n_u)
+    else:
+        n_through_u = np.zeros(p.n_u, dtype=np.int64)
 
-    # Per underlying: one bincount over (field, underlying) codes of the stacked arrays.
-    stack = np.stack([full, *(terms[t] for t in TERM_NAMES), through.astype(np.float64)])
-    n_f = stack.shape[0]
-    codes = (np.arange(n_f)[:, None] * p.n_u + p.uidx[None, :]).ravel()
-    sums = np.bincount(codes, weights=stack.ravel(), minlength=n_f * p.n_u).reshape(n_f, p.n_u)
-    present = np.bincount(p.uidx, minlength=p.n_u) > 0
+    # Taylor terms per underlying from the greek sums.
+    if floored:
+        res_terms = _terms_per_underlying_exact(v, p, ds_u, plan, dt, dr)
+    else:
+        sm = p.sums
+        a, rl, w = plan.add_u, plan.rel_u, plan.wadd_u
+        res_terms = {
+            "delta": sm["delta"] * ds_u,
+            "gamma": 0.5 * sm["gamma"] * ds_u * ds_u,
+            "vega": a * sm["vega"] + rl * sm["vega_s"] + w * sm["vega_w"],
+            "volga": 0.5 * (a * a * sm["volga"] + rl * rl * sm["volga_s"] + w * w * sm["volga_w"]),
+            "vanna": ds_u * (a * sm["vanna"] + rl * sm["vanna_s"] + w * sm["vanna_w"]),
+            "theta": sm["theta"] * dt,
+            "rho": sm["rho"] * dr,
+        }
     symbols = v.book.underlyings.symbols
+    present = np.flatnonzero(p.present)
     by_u = [
-        _row(symbols[j], float(sums[0, j]), {t: float(sums[1 + m, j]) for m, t in enumerate(TERM_NAMES)},
-             int(round(sums[-1, j])), underlying=symbols[j])
-        for j in np.flatnonzero(present)
+        _row(symbols[j], float(full_u[j]), {t: float(res_terms[t][j]) for t in TERM_NAMES},
+             int(n_through_u[j]), underlying=symbols[j])
+        for j in present
     ]
-    tot = sums.sum(axis=1)
-    total_row = _row("total", float(tot[0]), {t: float(tot[1 + m]) for m, t in enumerate(TERM_NAMES)},
-                     int(round(tot[-1])))
+    total_row = _row("total", float(full_u.sum()), {t: float(res_terms[t].sum()) for t in TERM_NAMES},
+                     int(n_through_u.sum()))
 
-    expiring = _expiring(v, p, np.flatnonzero(through), spot_after, full, est2)
+    result = MoveResult(
+        move=move, valuation=v, time_after=t1, roll_years=dt, total=total_row, by_underlying=by_u,
+        expiring=[], full=full, through_expiry=through, notes=(), spot_move_u=ds_u, vol_plan=plan,
+        rate_move=dr,
+    )
     notes: list[str] = []
-    if expiring:
+    if through.any():
+        expiring = _expiring(result, np.flatnonzero(through))
+        object.__setattr__(result, "expiring", expiring)
         notes.append(f"{len(expiring)} option position(s) expire inside the roll: settled at intrinsic,"
                      " their estimate is not meaningful")
-    clipped = int(np.count_nonzero(vol_after[li] <= VOL_FLOOR))
-    if clipped:
-        notes.append(f"{clipped} vol(s) floored at {VOL_FLOOR * 100:g} vol points")
-    rate_after = v.rate + dr
-    years_after = v.years - dt
-    return MoveResult(
-        move=move, valuation=v, time_after=t1, roll_years=dt, total=total_row, by_underlying=by_u,
-        expiring=expiring, full=full, estimate_1=est1, estimate_2=est2, terms=terms,
-        spot_after=spot_after, vol_after=vol_after, rate_after=rate_after, years_after=years_after,
-        through_expiry=through, notes=tuple(notes),
-    )
+    if floored:
+        notes.append(f"some vols floored at {VOL_FLOOR * 100:g} vol points")
+    object.__setattr__(result, "notes", tuple(notes))
+    return result
 
 
-def _expiring(v: BookValuation, p: _Prep, rows: np.ndarray, spot_after: np.ndarray,
-              full: np.ndarray, est2: np.ndarray) -> list[ExpiringPosition]:
+def _terms_per_underlying_exact(v: BookValuation, p: _Prep, ds_u: np.ndarray, plan: _VolPlan,
+                                dt: float, dr: float) -> dict[str, np.ndarray]:
+    """Per-underlying terms from per-position arrays (used when the vol floor bites)."""
+    dv = _dvol_all(v, p, plan)
+    vol1 = np.where(v.live, np.maximum(np.nan_to_num(v.vol) + dv, VOL_FLOOR), 0.0)
+    dv = np.where(v.live, vol1 - np.nan_to_num(v.vol), 0.0)
+    ds = ds_u[p.uidx]
+
+    def per_u(a: np.ndarray) -> np.ndarray:
+        return np.bincount(p.uidx, weights=a, minlength=p.n_u)
+
+    return {
+        "delta": per_u(p.delta_u * ds), "gamma": per_u(0.5 * p.gamma_u * ds * ds),
+        "vega": per_u(p.vega_u * dv), "volga": per_u(0.5 * p.volga_u * dv * dv),
+        "vanna": per_u(p.vanna_u * ds * dv), "theta": per_u(p.theta_u * dt), "rho": per_u(p.rho_u * dr),
+    }
+
+
+def _expiring(res: MoveResult, rows: np.ndarray) -> list[ExpiringPosition]:
+    v = res.valuation
     book = v.book
+    units_all = v.units
+    est2 = res.estimate_2
     out = []
     for i in rows:
         i = int(i)
         call = bool(book.is_call[i])
         k = float(book.strikes[i])
-        s = float(spot_after[i])
+        s = float(v.spot[i] + res.spot_move_u[book.underlying_idx[i]])
         intrinsic = max((s - k) if call else (k - s), 0.0)
-        units = float(p.units[i])
+        units = float(units_all[i])
         dist = (s / k - 1.0) * 100.0
         itm = intrinsic > 0
         cash = bool(book.cash_settled[i])
@@ -707,7 +869,7 @@ def _expiring(v: BookValuation, p: _Prep, rows: np.ndarray, spot_after: np.ndarr
             is_call=call, strike=k, spot_after=s, quantity=float(book.quantities[i]),
             multiplier=float(book.multipliers[i]), intrinsic=intrinsic, settlement=intrinsic * units,
             distance_pct=dist, in_the_money=itm, pin_risk=abs(dist) <= PIN_BAND_PCT, cash_settled=cash,
-            delivered_units=delivered, full=float(full[i]), estimate_2=float(est2[i]),
+            delivered_units=delivered, full=float(res.full[i]), estimate_2=float(est2[i]),
         ))
     return out
 
