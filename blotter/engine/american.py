@@ -27,7 +27,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from blotter.engine import black
-from blotter.engine.bivariate import GOLDEN, bvn_quadrature
+from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_quadrature
 
 VOL_FLOOR = 1e-3
 """Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
@@ -47,7 +47,8 @@ vols below 1e-4 are those at 1e-4 (their price uses the true vol)."""
 
 
 def _cexp(x: np.ndarray) -> np.ndarray:
-    return np.exp(np.minimum(x, _EXP_CAP, out=x), out=x)
+    """e^x in place, with x clipped to [EXP_FLOOR, _EXP_CAP] (no overflow, no slow underflow)."""
+    return np.exp(np.clip(x, EXP_FLOOR, _EXP_CAP, out=x), out=x)
 
 
 def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
@@ -55,6 +56,8 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), where b < r and β is real.
 
     Values of rows outside that domain are finite but meaningless; callers select them away.
+    Terms are evaluated in log space, e.g. α_j S^β = (I_j − K) e^{β ln(S/I_j)}, with exponents
+    capped at ``_EXP_CAP``, so small vols (large β) neither overflow nor lose the product.
     """
     v2 = v * v
     t1 = GOLDEN * t
@@ -64,85 +67,76 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     beta = (0.5 - bv) + np.sqrt(np.square(bv - 0.5) + 2.0 * r / v2)
     b_inf = beta / (beta - 1.0) * k
     b_0 = np.maximum(k, r / (r - b) * k)
-    scale = k * k / ((b_inf - b_0) * b_0)
     gap = b_inf - b_0
+    scale = k * k / (gap * b_0)
     i1 = b_0 - gap * np.expm1(-(b * t1 + 2.0 * vs1) * scale)
     i2 = b_0 - gap * np.expm1(-(b * t + 2.0 * vst) * scale)
     ls, lk, l1, l2 = np.log(s), np.log(k), np.log(i1), np.log(i2)
+    m = s.shape[0]
+    zero = np.zeros(m)
+    one = np.ones(m)
 
-    gammas = {"beta": beta, 1: 1.0, 0: 0.0}
-    mu = {g: b + (gv - 0.5) * v2 for g, gv in gammas.items()}
-    lam = {g: -r + gv * b + 0.5 * gv * (gv - 1.0) * v2 for g, gv in gammas.items()}
-    kap = {g: 2.0 * bv + (2.0 * gv - 1.0) for g, gv in gammas.items()}
+    # Rows γ = β, 1, 0 of the exponents μ, λ, κ and of the prefactor's γ and β-part.
+    gam = np.stack([beta, one, zero])
+    bet = np.stack([beta, zero, zero])
+    mu = b + (gam - 0.5) * v2
+    lam = -r + gam * b + 0.5 * gam * (gam - 1.0) * v2
+    kap = 2.0 * bv + (2.0 * gam - 1.0)
+    x2 = l2 - ls                                          # ln(I2/S)
+    inv1 = 1.0 / vs1
+    invt = 1.0 / vst
 
-    # Log-prefactors e^L (coefficient sign and size kept apart): α_j S^β = (I_j − K) e^{β ln(S/I_j)}.
-    def log_pref(g: str | int, tt: np.ndarray, l_i: np.ndarray | None) -> np.ndarray:
-        lp = lam[g] * tt
-        if g == "beta":
-            assert l_i is not None
-            return lp + beta * (ls - l_i)
-        if g == 1:
-            return lp + ls
-        return lp
+    # φ(S, t1, γ, H, I2) for γ in (β, 1, 0) × H in (I2, I1): coefficient, log-prefactor, args.
+    lh = np.stack([l2, l1])                               # (2, m)
+    d = -(ls - lh[None] + (mu * t1)[:, None]) * inv1      # (3, 2, m)
+    d_ref = d - 2.0 * x2 * inv1
+    l_phi = ((lam * t1 + gam * ls)[:, None] - bet[:, None] * lh[None])
+    c_phi = np.stack([np.stack([-(i2 - k), i1 - k]), np.stack([one, -one]),
+                      np.stack([-k, k])])
+    n_d = ndtr(d)
+    n_dref = ndtr(d_ref)
+    value = (i2 - k) * _cexp(beta * (ls - l2))
+    value += np.sum(c_phi * (_cexp(l_phi.copy()) * n_d
+                             - _cexp(l_phi + (kap * x2)[:, None]) * n_dref), axis=(0, 1))
 
-    # φ(S, t1, γ, H, I2) terms: (coefficient, γ, ln H, ln I_j of the α_j prefactor)
-    phi_terms = [
-        (-(i2 - k), "beta", l2, l2),
-        (1.0, 1, l2, None),
-        (-1.0, 1, l1, None),
-        (-k, 0, l2, None),
-        (k, 0, l1, None),
-        (i1 - k, "beta", l1, l1),
-    ]
-    x2 = l2 - ls                                       # ln(I2/S)
-    coefs, logs, args = [], [], []
-    for coef, g, lh, li in phi_terms:
-        lp = log_pref(g, t1, li)
-        d = -(ls - lh + mu[g] * t1) / vs1
-        coefs += [coef, -coef]
-        logs += [lp, lp + kap[g] * x2]
-        args += [d, d - 2.0 * x2 / vs1]
-    value = (i2 - k) * np.exp(np.minimum(beta * (ls - l2), _EXP_CAP))
-    cf = np.broadcast_arrays(*coefs)
-    value += np.sum(np.stack(cf) * _cexp(np.stack(logs)) * ndtr(np.stack(args)), axis=0)
-
-    # ψ(S, T, γ, H, I2, I1, t1) terms
-    psi_terms = [
-        (-(i1 - k), "beta", l1, l1),
-        (1.0, 1, l1, None),
-        (-1.0, 1, lk, None),
-        (-k, 0, l1, None),
-        (k, 0, lk, None),
-    ]
-    pos_h, pos_k, pos_c, pos_l = [], [], [], []
-    neg_h, neg_k, neg_c, neg_l = [], [], [], []
-    for coef, g, lh, li in psi_terms:
-        lp = log_pref(g, t, li)
-        m1 = mu[g] * t1
-        mt = mu[g] * t
-        e1 = (ls - l1 + m1) / vs1
-        e2 = (2.0 * l2 - ls - l1 + m1) / vs1
-        e3 = (ls - l1 - m1) / vs1
-        e4 = (2.0 * l2 - ls - l1 - m1) / vs1
-        f1 = (ls - lh + mt) / vst
-        f2 = (2.0 * l2 - ls - lh + mt) / vst
-        f3 = (2.0 * l1 - ls - lh + mt) / vst
-        f4 = (ls + 2.0 * l1 - lh - 2.0 * l2 + mt) / vst
-        pos_h += [-e1, -e2]
-        pos_k += [-f1, -f2]
-        pos_c += [coef, -coef]
-        pos_l += [lp, lp + kap[g] * x2]
-        neg_h += [-e3, -e4]
-        neg_k += [-f3, -f4]
-        neg_c += [-coef, coef]
-        neg_l += [lp + kap[g] * (l1 - ls), lp + kap[g] * (l1 - l2)]
-    for hh, kk, cc, ll, sign in ((pos_h, pos_k, pos_c, pos_l, +1),
-                                 (neg_h, neg_k, neg_c, neg_l, -1)):
-        h_arr = np.stack(hh)
-        k_arr = np.stack(kk)
-        mvals = bvn_quadrature(h_arr, k_arr, sign)
-        mvals += ndtr(h_arr) * ndtr(k_arr)
-        value += np.sum(np.stack(np.broadcast_arrays(*cc)) * _cexp(np.stack(ll)) * mvals, axis=0)
+    # ψ(S, T, γ, H, I2, I1, t1) for (γ, H) in (β, I1), (1, I1), (1, K), (0, I1), (0, K).
+    g_idx = np.array([0, 1, 1, 2, 2])
+    h_is_k = np.array([False, False, True, False, True])
+    lh5 = np.where(h_is_k[:, None], lk, l1)              # (5, m)
+    mu5 = mu[g_idx]
+    mt = mu5 * t
+    # −e1 and −e2 equal the φ arguments d and d_ref at H = I1, so their N values are shared.
+    neg_e1 = d[g_idx, 1]
+    neg_e2 = d_ref[g_idx, 1]
+    n_e1 = n_d[g_idx, 1]
+    n_e2 = n_dref[g_idx, 1]
+    m1 = (mu * t1)[g_idx]
+    neg_e3 = -(ls - l1 - m1) * inv1
+    neg_e4 = -(2.0 * l2 - ls - l1 - m1) * inv1
+    neg_f1 = -(ls - lh5 + mt) * invt
+    neg_f2 = -(2.0 * l2 - ls - lh5 + mt) * invt
+    neg_f3 = -(2.0 * l1 - ls - lh5 + mt) * invt
+    neg_f4 = -(ls + 2.0 * l1 - lh5 - 2.0 * l2 + mt) * invt
+    l_psi = (lam * t + gam * ls - bet * l1)[g_idx]
+    kap5 = kap[g_idx]
+    c_psi = np.stack([-(i1 - k), one, -one, -k, k])
+    # Positive correlation: M(−e1, −f1) and M(−e2, −f2); negative: M(−e3, −f3), M(−e4, −f4).
+    h_pos = np.concatenate([neg_e1, neg_e2])
+    k_pos = np.concatenate([neg_f1, neg_f2])
+    n_h_pos = np.concatenate([n_e1, n_e2])
+    h_neg = np.concatenate([neg_e3, neg_e4])
+    k_neg = np.concatenate([neg_f3, neg_f4])
+    n_h_neg = ndtr(h_neg)
+    m_pos = bvn_quadrature(h_pos, k_pos, +1)
+    m_pos += n_h_pos * ndtr(k_pos)
+    m_neg = bvn_quadrature(h_neg, k_neg, -1)
+    m_neg += n_h_neg * ndtr(k_neg)
+    logs = np.concatenate([l_psi, l_psi + kap5 * x2, l_psi + kap5 * (l1 - ls),
+                           l_psi + kap5 * (l1 - l2)])
+    weights = _cexp(logs)
+    weights *= np.concatenate([c_psi, -c_psi, -c_psi, c_psi])
+    value += np.sum(weights[:10] * m_pos, axis=0)
+    value += np.sum(weights[10:] * m_neg, axis=0)
     return np.where(s >= i2, s - k, value)
 
 

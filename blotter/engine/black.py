@@ -23,6 +23,8 @@ YEARS_FLOOR = 1e-20
 """Years to expiry below which a live option is evaluated at this time (about 3e-13 s)."""
 VOL_SQRT_T_FLOOR = 1e-30
 """Smallest σ√T used in d1 and d2, so zero vol gives the limit values without dividing by 0."""
+EXP_FLOOR = -700.0
+"""Floor on exponents of e^{−d1²/2}: e^-700 is negligible next to any greek it scales."""
 _INV_SQRT_2PI = 0.3989422804014327
 
 
@@ -92,6 +94,7 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
     np.subtract(a, bb, out=price)
     cpdf = np.square(d1, out=np.empty(m))
     cpdf *= -0.5
+    np.maximum(cpdf, EXP_FLOOR, out=cpdf)       # NumPy's exp is slow where results underflow
     np.exp(cpdf, out=cpdf)
     cpdf *= _INV_SQRT_2PI
     cpdf *= cf                                                   # e^{(b−r)T} n(d1)

@@ -43,7 +43,7 @@ def _euro_price_vega(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
     sf = s * np.exp((b - r) * t)
     kd = k * np.exp(-r * t)
     p = w * (sf * ndtr(w * d1) - kd * ndtr(w * (d1 - vs)))
-    vega = sf * np.exp(-0.5 * d1 * d1) * (_INV_SQRT_2PI * sqrt_t)
+    vega = sf * np.exp(np.maximum(-0.5 * d1 * d1, black.EXP_FLOOR)) * (_INV_SQRT_2PI * sqrt_t)
     return p, vega
 
 
