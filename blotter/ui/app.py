@@ -191,7 +191,7 @@ class BlotterApp(App[None]):
         self._refresh_header()
         text = self.query_one(MoveInput).value
         if text.strip():
-            self._submit_move(text)
+            self._submit_move(text, force=True)
         else:
             self.start_ladder(state, 0.0)
         self.start_profile()
@@ -248,10 +248,17 @@ class BlotterApp(App[None]):
 
     @on(Input.Submitted, "#whatif-input")
     def _bar_submitted(self, event: Input.Submitted) -> None:
-        if self.move_text:
-            self.query_one(MoveInput).remember(self.move_text)
+        """Enter keeps a line that parses in the bar's history."""
+        from blotter import scenario
 
-    def _submit_move(self, text: str) -> None:
+        symbols = self.state.valuation.book.underlyings.symbols if self.state else None
+        try:
+            scenario.parse_move(event.value, symbols)
+        except scenario.MoveSyntaxError:
+            return
+        self.query_one(MoveInput).remember(event.value)
+
+    def _submit_move(self, text: str, force: bool = False) -> None:
         """Parse ``text`` here (cheap) and apply it in a worker; a bad line keeps the last result."""
         from blotter import scenario
 
@@ -268,6 +275,10 @@ class BlotterApp(App[None]):
             return
         if self.state is None:
             bar.show_ok(move.describe() + " (waiting for the book)")
+            return
+        if (not force and self.move is not None and self.result is not None
+                and move.describe() == self.move.describe()):
+            bar.show_ok(move.describe(), text)   # same move as shown (spacing, case): keep it
             return
         self.apply_move(self.move_seq, self.state, text, move)
 

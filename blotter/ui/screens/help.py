@@ -59,17 +59,24 @@ spot -3% vol +2 days 1      parts combine and apply together"""
 
 
 def grammar_text() -> str:
-    """The what-if grammar with examples, as ``blotter.scenario`` documents it."""
+    """The what-if grammar with examples, as ``blotter.scenario`` documents it (``EXAMPLES`` and
+    the closing paragraph of its module docstring on the vol rule and expiries)."""
     try:
         from blotter import scenario
     except ImportError:
         return FALLBACK_GRAMMAR
-    for name in ("MOVE_GRAMMAR", "GRAMMAR", "MOVE_HELP"):
-        text = getattr(scenario, name, None)
-        if isinstance(text, str) and text.strip():
-            return inspect.cleandoc(text)
-    doc = inspect.getdoc(getattr(scenario, "parse_move", None))
-    return doc or FALLBACK_GRAMMAR
+    examples = getattr(scenario, "EXAMPLES", None)
+    if not examples:
+        return FALLBACK_GRAMMAR
+    width = max(len(e) for e, _ in examples) + 3
+    lines = [f"{example:<{width}}{meaning}" for example, meaning in examples]
+    doc = inspect.getdoc(scenario) or ""
+    rule = doc.rsplit("\n\n", 1)[-1] if "sticky" in doc.rsplit("\n\n", 1)[-1] else ""
+    if rule:
+        lines += ["", " ".join(rule.split())]
+    lines += ["", "Keywords are case-insensitive; parts combine in any order and apply together. "
+              "A line that does not parse leaves the last good result on screen."]
+    return "\n".join(lines)
 
 
 def keys_table(bound: dict[str, str]) -> Table:

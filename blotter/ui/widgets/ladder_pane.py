@@ -49,6 +49,7 @@ class LadderPane(VerticalScroll):
         self.grid = "full"
         self.ladder: Any = None
         self.days = 0.0
+        self.table: Table | None = None
 
     def compose(self) -> ComposeResult:
         yield Static("waiting for the book…", id="ladder-grid")
@@ -90,6 +91,7 @@ class LadderPane(VerticalScroll):
                     text.stylize("reverse")
                 row.append(text)
             table.add_row(*row)
+        self.table = table
         self.query_one("#ladder-grid", Static).update(table)
         legend = f"{WORST} worst cell of the full P&L. " if worst else ""
         self.query_one("#ladder-rule", Static).update(

@@ -1,0 +1,255 @@
+"""Pilot tests of the app on the demo book: the bar's numbers against ``blotter.scenario`` for the
+same move, a bad line keeping the last result, expanding, regrouping and sorting the Book pane,
+the panes and the minimum-size message."""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+import pytest
+from rich.console import Console
+from textual.widgets import DataTable
+
+from blotter import risk, scenario, store
+from blotter.ui.app import BlotterApp, make_app
+from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.move_pane import TERMS
+from blotter.ui.widgets.whatif_bar import MoveInput
+
+from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
+
+MOVE = "spot -3% vol +2 days 1"
+
+
+def shown_number(cell: object) -> float:
+    """A number as the screen shows it ("+1,234", "-56!", "+0.5%") read back as a float."""
+    text = str(cell).strip().rstrip("!%").replace(",", "").strip()
+    return float(text)
+
+
+def expected_result(db: Path, text: str) -> scenario.MoveResult:
+    """The move applied by ``blotter.scenario`` directly, outside the app, at the frozen time."""
+    st = store.open_store(db, read_only=True)
+    try:
+        book, market = st.load_book(), st.load_market()
+    finally:
+        st.close()
+    valuation = risk.value_book(book, market, np.datetime64(FROZEN_NOW.replace(tzinfo=None), "s"))
+    return scenario.apply_move(valuation, scenario.parse_move(text, book.underlyings.symbols))
+
+
+async def type_move(app: BlotterApp, pilot: object, text: str) -> None:
+    await pilot.press("f2")  # type: ignore[attr-defined]  # F2 focuses the bar from anywhere
+    await pilot.press(*text)  # type: ignore[attr-defined]
+    await settle(app, pilot)
+
+
+@pytest.mark.parametrize("size", [(80, 24), (160, 48)])
+async def test_bar_shows_scenario_numbers(demo_db: Path, size: tuple[int, int]) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    expected = expected_result(demo_db, MOVE)
+    async with app.run_test(size=size) as pilot:
+        await settle(app, pilot)
+        await type_move(app, pilot, MOVE)
+        table = app.query_one("#move-table", DataTable)
+        rows = {"total": expected.total} | {f"u|{r.label}": r for r in expected.by_underlying}
+        assert [str(k.value) for k in table.rows] == list(rows)
+        for key, row in rows.items():
+            assert shown_number(table.get_cell(key, "full")) == pytest.approx(row.full, abs=0.5)
+            assert shown_number(table.get_cell(key, "estimate")) == pytest.approx(row.estimate_2, abs=0.5)
+            assert shown_number(table.get_cell(key, "error")) == pytest.approx(row.error_2, abs=0.5)
+            if np.isfinite(row.error_2_pct):
+                assert shown_number(table.get_cell(key, "error_pct")) == pytest.approx(row.error_2_pct, abs=0.05)
+            for term, _ in TERMS:
+                assert shown_number(table.get_cell(key, term)) == pytest.approx(row.terms[term], abs=0.5)
+        # The first-order view shows scenario's first-order estimate and error.
+        await pilot.press("f6")
+        await pilot.pause()
+        assert shown_number(table.get_cell("total", "estimate")) == pytest.approx(expected.total.estimate_1, abs=0.5)
+        assert shown_number(table.get_cell("total", "error")) == pytest.approx(expected.total.error_1, abs=0.5)
+        assert "1st-order" in str(app.query_one("#move-pane").border_title)
+
+
+async def test_bad_line_keeps_last_result(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        await type_move(demo_app, pilot, "spot -2%")
+        table = demo_app.query_one("#move-table", DataTable)
+        good = str(table.get_cell("total", "full"))
+        result = demo_app.result
+        await pilot.press(*" vol +x")
+        await settle(demo_app, pilot)
+        message = str(demo_app.query_one("#whatif-message").render())
+        assert message.startswith("✗") and "«+x»" in message and "last good result kept" in message
+        assert demo_app.result is result
+        assert str(table.get_cell("total", "full")) == good
+        assert demo_app.query_one("WhatIfBar").has_class("-bad")
+
+
+async def test_history_recalls_moves(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        bar = demo_app.query_one(MoveInput)
+        for text in ("spot -1%", "vol +2"):
+            await type_move(demo_app, pilot, text)
+            await pilot.press("enter")
+            bar.value = ""
+            await settle(demo_app, pilot)
+        await pilot.press("up")
+        assert bar.value == "vol +2"
+        await pilot.press("up")
+        assert bar.value == "spot -1%"
+        await pilot.press("down", "down")
+        assert bar.value == ""
+
+
+async def test_expand_group_and_sort(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        table = demo_app.query_one(BookTable)
+        state = demo_app.state
+        assert state is not None
+        symbols = [r.label for r in risk.aggregate(state.valuation, by="underlying")]
+        keys = [r.key for r in table.visible_rows()]
+        assert keys == ["total"] + [f"u|{s}" for s in symbols]
+
+        # Expand the first underlying, then its first expiry: rows appear under it, in place.
+        await pilot.press("down", "e")
+        first = f"u|{symbols[0]}"
+        children = [r for r in table.visible_rows() if r.key.startswith(first + "|")]
+        assert children and all(r.level == 2 for r in children)
+        book = state.valuation.book
+        rows = np.flatnonzero(book.underlying_idx == book.underlyings.index_of(symbols[0]))
+        assert sum(r.values[1] for r in children) == pytest.approx(
+            float(state.valuation.delta_cash[rows].sum()), rel=1e-9)
+        await pilot.press("down", "enter")
+        positions = [r for r in table.visible_rows() if r.level == 3]
+        assert positions and all(r.position is not None for r in positions)
+        assert table.cursor_row_key() == children[0].key
+        # Collapsing the underlying hides everything under it.
+        await pilot.press("up", "e")
+        assert [r.key for r in table.visible_rows()] == keys
+
+        # Sort by Δ $ (column 2): largest first, then reversed, then back to the book's order.
+        await pilot.press("right", "right", "s")
+        top = [r for r in table.visible_rows() if r.level == 1]
+        assert [r.values[1] for r in top] == sorted((r.values[1] for r in top), reverse=True)
+        await pilot.press("s")
+        top = [r for r in table.visible_rows() if r.level == 1]
+        assert [r.values[1] for r in top] == sorted(r.values[1] for r in top)
+        await pilot.press("s")
+        assert [r.key for r in table.visible_rows()] == keys
+        assert table.visible_rows()[0].key == "total"
+
+        # Regroup by expiry bucket: the buckets of risk.aggregate(by="expiry"), in its order.
+        await pilot.press("g")
+        buckets = [r.label for r in risk.aggregate(state.valuation, by="expiry")]
+        assert [r.label for r in table.visible_rows() if r.level == 1] == buckets
+        await pilot.press("g")
+        assert [r.key for r in table.visible_rows()] == keys
+
+
+async def test_reload_updates_cells_in_place(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        table = demo_app.query_one(BookTable)
+        rows_before = list(table.rows)
+        await pilot.press("r")
+        await settle(demo_app, pilot)
+        assert demo_app.book_seq == 2
+        assert list(table.rows) == rows_before
+
+
+async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        shown = lambda: [p for p in ("move", "ladder", "profile")  # noqa: E731
+                         if demo_app.query_one(f"#{p}-pane").display
+                         and demo_app.query_one(f"#{p}-pane").region.height > 0]
+        assert shown() == ["move"]
+        await pilot.press("v")
+        await pilot.pause()
+        assert shown() == ["ladder"]
+        await pilot.press("f7")
+        await pilot.pause()
+        assert shown() == ["profile"]
+        await pilot.resize_terminal(160, 48)
+        await pilot.pause()
+        assert demo_app.screen.has_class("-wide")
+        assert sorted(shown()) == ["ladder", "move", "profile"]
+
+
+async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        await type_move(app, pilot, "days 2")
+        ladder_pane = app.query_one("#ladder-pane")
+        state = app.state
+        assert state is not None
+        expected = scenario.ladder(state.valuation, TEST_SETTINGS.ladder_spot_pcts,
+                                   TEST_SETTINGS.ladder_vol_pts, days=2.0)
+        assert ladder_pane.days == 2.0  # type: ignore[attr-defined]
+        np.testing.assert_allclose(ladder_pane.ladder.full, expected.full)  # type: ignore[attr-defined]
+        assert "after 2 days" in str(ladder_pane.border_title)
+        i, j = expected.worst
+        console = Console(width=120, record=True, file=io.StringIO())
+        console.print(ladder_pane.table)  # type: ignore[attr-defined]
+        lines = console.export_text().splitlines()
+        worst_line = next(line for line in lines if line.strip().startswith(f"{expected.spot_pcts[i]:+g}%"))
+        assert worst_line.split()[1 + j].startswith("▼")
+        assert sum(line.count("▼") for line in lines) == 1
+        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        spot_pcts = np.array(profile.xs)
+        np.testing.assert_allclose(
+            profile.series["today"], scenario.ladder(state.valuation, spot_pcts, (0.0,)).full[:, 0])
+        np.testing.assert_allclose(
+            profile.series["after 2 days"],
+            scenario.ladder(state.valuation, spot_pcts, (0.0,), days=2.0).full[:, 0])
+        # The greek view: Δ sh of the book at the base spot is risk's total.
+        await pilot.press("f9")
+        await settle(app, pilot)
+        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        mid = len(profile.xs) // 2
+        assert profile.xs[mid] == 0.0
+        assert profile.series["today"][mid] == pytest.approx(risk.total(state.valuation).delta_shares)
+
+
+async def test_too_small_says_what_size_is_needed(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(50, 15)) as pilot:
+        await settle(demo_app, pilot)
+        notice = str(demo_app.query_one("#too-small").render())
+        assert "at least 60×18" in notice and "50×15" in notice
+        assert demo_app.screen.has_class("-too-small")
+        await pilot.resize_terminal(80, 24)
+        await pilot.pause()
+        assert not demo_app.screen.has_class("-too-small")
+
+
+async def test_header_says_book_marks_age_and_read_only(demo_db: Path) -> None:
+    app = BlotterApp(str(demo_db), TEST_SETTINGS, clock=frozen_clock, read_only=True)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        header = str(app.query_one("#header-line").render())
+        assert "READ-ONLY" in header and "demo.db" in header
+        assert "valued 2026-12-02 10:00 EST" in header
+        assert " old)" in header and "STALE" not in header
+
+
+async def test_stale_marks_flagged_in_words(demo_db: Path) -> None:
+    from datetime import timedelta
+
+    later = FROZEN_NOW + timedelta(days=6)   # a week later, several closes have passed
+    app = make_app(demo_db, TEST_SETTINGS, clock=lambda: later)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        assert "STALE: before the last close" in str(app.query_one("#header-line").render())
+
+
+async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:
+    app = make_app(tmp_path / "nothing.db", TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        assert "no book at" in str(app.query_one("#header-line").render())

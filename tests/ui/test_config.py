@@ -1,0 +1,84 @@
+"""Settings: defaults < TOML file < BLOTTER_* environment < flags, and clear errors for bad ones."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from blotter.config import ConfigError, Settings, config_path, load_settings
+
+FILE = """
+desk_tz = "Europe/London"
+estimate_order = 1
+watch_interval_s = 0.5
+ladder_vol_pts = [-3, 0, 3]
+
+[alerts]
+error_pct = 5
+delta_cash = 1000000
+
+[keys]
+help = "h,f1"
+"""
+
+
+def test_defaults_without_a_file(tmp_path: Path) -> None:
+    settings = load_settings(env={"XDG_CONFIG_HOME": str(tmp_path)})
+    assert settings == Settings()
+    assert config_path({"XDG_CONFIG_HOME": str(tmp_path)}) == tmp_path / "blotter" / "config.toml"
+
+
+def test_file_then_environment_then_flags(tmp_path: Path) -> None:
+    path = tmp_path / "config.toml"
+    path.write_text(FILE, encoding="utf-8")
+    env = {"BLOTTER_CONFIG": str(path)}
+    settings = load_settings(env=env)
+    assert settings.desk_tz == "Europe/London" and settings.estimate_order == 1
+    assert settings.ladder_vol_pts == (-3.0, 0.0, 3.0)
+    assert settings.alerts.error_pct == 5.0 and settings.alerts.delta_cash == 1e6
+    assert settings.alerts.error_abs == Settings().alerts.error_abs
+    assert settings.keymap == {"help": "h,f1"}
+
+    env |= {"BLOTTER_ESTIMATE_ORDER": "2", "BLOTTER_ALERT_ERROR_PCT": "7.5",
+            "BLOTTER_KEYS": "quit=x,f10;group=y,f4", "BLOTTER_TZ": "Asia/Tokyo"}
+    settings = load_settings(env=env)
+    assert settings.estimate_order == 2 and settings.alerts.error_pct == 7.5
+    assert settings.keymap == {"help": "h,f1", "quit": "x,f10", "group": "y,f4"}
+    assert settings.desk_tz == "Asia/Tokyo"
+    assert load_settings(env=env | {"BLOTTER_DESK_TZ": "UTC"}).desk_tz == "UTC"
+
+    settings = load_settings({"read_only": True, "estimate_order": 1}, env=env)
+    assert settings.read_only and settings.estimate_order == 1
+
+
+@pytest.mark.parametrize("text,words", [
+    ("estimate_order = 3", "estimate_order must be 1 or 2"),
+    ("desk_tz = \"Mars/Base\"", "not a known time zone"),
+    ("colour = \"red\"", "unknown setting 'colour'"),
+    ("[alerts]\nerror_pc = 5", "unknown alert 'error_pc'"),
+    ("[keys]\nquit = \"ctrl+q\"", "does not arrive reliably"),
+    ("[keys]\nnothing = \"x\"", "unknown binding id 'nothing'"),
+    ("watch_interval_s = \"soon\"", "is not a valid float"),
+    ("estimate_order = ", "config.toml"),
+])
+def test_bad_settings_are_refused_with_the_reason(tmp_path: Path, text: str, words: str) -> None:
+    path = tmp_path / "config.toml"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(ConfigError, match=words.replace("(", r"\(")):
+        load_settings(env={"BLOTTER_CONFIG": str(path)})
+
+
+def test_environment_errors_name_the_variable() -> None:
+    with pytest.raises(ConfigError, match="BLOTTER_KEYS"):
+        load_settings(env={"BLOTTER_KEYS": "help"})
+    with pytest.raises(ConfigError, match="environment: estimate_order"):
+        load_settings(env={"BLOTTER_ESTIMATE_ORDER": "two"})
+
+
+def test_config_does_not_load_textual() -> None:
+    code = "import sys, blotter.config as c; c.load_settings(env={}); print('textual' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"

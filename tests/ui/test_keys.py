@@ -1,0 +1,140 @@
+"""Every binding on the help screen exists in the running app, with the keys the help shows;
+a user's keymap (by binding id) changes the keys; no binding uses a key that SSH/tmux eat."""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import pytest
+from rich.console import Console
+
+from blotter.config import Settings
+from blotter.ui.app import make_app
+from blotter.ui.keys import FORBIDDEN_KEYS, KEYS, check_keymap, key_label
+from blotter.ui.screens.help import HelpScreen
+from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.whatif_bar import MoveInput
+
+from .conftest import TEST_SETTINGS, frozen_clock, settle
+
+
+def screen_text(renderable: object) -> str:
+    console = Console(width=200, record=True, file=io.StringIO())
+    console.print(renderable)
+    return console.export_text()
+
+
+def test_each_action_has_a_plain_key_and_an_alias() -> None:
+    ids = [k.id for k in KEYS]
+    assert len(ids) == len(set(ids))
+    actions = [(k.where, k.action) for k in KEYS]
+    assert len(actions) == len(set(actions)), "each action is declared once"
+    for spec in KEYS:
+        keys = spec.keys.split(",")
+        assert len(keys) >= 2, spec.id
+        assert not set(keys) & FORBIDDEN_KEYS, spec.id
+        assert any(k.startswith(("f", "ctrl+")) and k not in {"f"} for k in keys[1:]), spec.id
+
+
+def test_keymap_check_refuses_unknown_ids_and_bad_keys() -> None:
+    assert check_keymap({"help": "h,f1"}) == []
+    assert "unknown binding id" in check_keymap({"nope": "x"})[0]
+    assert "does not arrive reliably" in check_keymap({"quit": "ctrl+q"})[0]
+    assert "does not arrive reliably" in check_keymap({"quit": "alt+x"})[0]
+    assert "does not arrive reliably" in check_keymap({"help": "escape"})[0]
+
+
+async def test_every_binding_on_the_help_screen_exists(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await settle(app, pilot)
+        # Book focused: app and book bindings are live, each key mapped to its binding id.
+        book_keys = app.screen.active_bindings
+        app.query_one(MoveInput).focus()
+        await pilot.pause()
+        bar_keys = app.screen.active_bindings
+        app.query_one(BookTable).focus()
+        await pilot.press("question_mark")
+        await pilot.pause()
+        assert isinstance(app.screen, HelpScreen)
+        help_keys = app.screen.active_bindings
+        text = screen_text(app.screen.query_one("#help-keys").visual._renderable)  # type: ignore[attr-defined]
+        for spec in KEYS:
+            live = {"app": book_keys, "book": book_keys, "bar": bar_keys, "help": help_keys}[spec.where]
+            shown = " ".join(key_label(k) for k in spec.keys.split(","))
+            line = next((ln for ln in text.splitlines()
+                         if ln.startswith(shown + " ") and f" {spec.id} " in ln), None)
+            assert line is not None, f"{spec.id} ({shown}) missing from help"
+            assert spec.description in line
+            for key in spec.keys.split(","):
+                assert key in live, f"{key} ({spec.id}) is not bound"
+                assert live[key].binding.id == spec.id
+                assert live[key].binding.action == spec.action
+        await pilot.press("q")
+        await pilot.pause()
+        assert not isinstance(app.screen, HelpScreen)
+
+
+async def test_help_shows_units_grammar_and_cautions(demo_app: object) -> None:
+    from blotter import scenario
+
+    app = demo_app
+    async with app.run_test(size=(100, 40)) as pilot:  # type: ignore[attr-defined]
+        await settle(app, pilot)  # type: ignore[arg-type]
+        await pilot.press("f1")
+        await pilot.pause()
+        screen = app.screen  # type: ignore[attr-defined]
+        units = screen_text(screen.query_one("#help-units").visual._renderable)
+        for header in ("Δ $", "Γ 1%", "vega", "θ day", "ρ 1%", "vanna", "volga", "Δ sh"):
+            assert header in units
+        grammar = str(screen.query_one("#help-grammar").render())
+        for example, _meaning in scenario.EXAMPLES:
+            assert example in grammar
+        cautions = str(screen.query_one("#help-cautions").render())
+        assert "not advice" in cautions and "official risk and P&L" in cautions
+        assert "local rules and licensed practice" in cautions
+        await pilot.press("f1")
+        await pilot.pause()
+        assert not isinstance(app.screen, HelpScreen)  # type: ignore[attr-defined]
+
+
+async def test_user_keymap_rebinds_by_id(demo_db: Path) -> None:
+    settings = Settings(watch_interval_s=0.0, debounce_ms=0.0, keymap={"group": "y,f4", "help": "h,f1"})
+    app = make_app(demo_db, settings, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        table = app.query_one(BookTable)
+        await pilot.press("g")
+        assert table.group == "underlying"
+        await pilot.press("y")
+        assert table.group == "expiry"
+        await pilot.press("question_mark")
+        await pilot.pause()
+        assert not isinstance(app.screen, HelpScreen)
+        await pilot.press("h")
+        await pilot.pause()
+        assert isinstance(app.screen, HelpScreen)
+        text = screen_text(app.screen.query_one("#help-keys").visual._renderable)  # type: ignore[attr-defined]
+        assert any(" group " in f" {ln} " and ln.lstrip().startswith("y F4") for ln in text.splitlines())
+
+
+@pytest.mark.parametrize("key,check", [
+    ("f4", lambda app: app.query_one(BookTable).group == "expiry"),
+    ("f6", lambda app: app.query_one("#move-pane").order == 1),
+    ("f7", lambda app: app.pane == "ladder"),
+    ("f8", lambda app: app.query_one("#ladder-pane").grid == "estimate"),
+    ("f9", lambda app: app.greek == "delta"),
+    ("ctrl+t", lambda app: app.axis == "days"),
+    ("ctrl+g", lambda app: app.scope == "row"),
+])
+async def test_aliases_work_while_typing_in_the_bar(demo_db: Path, key: str, check: object) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("f2", *"spot -1%")
+        await settle(app, pilot)
+        await pilot.press(key)
+        await settle(app, pilot)
+        assert check(app)  # type: ignore[operator]
+        assert app.query_one(MoveInput).value == "spot -1%"
