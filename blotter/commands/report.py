@@ -19,8 +19,6 @@ from blotter.commands.common import (
     output_options,
     print_csv,
     print_json,
-    print_table,
-    read_only_requested,
     resolve_db,
 )
 
@@ -34,6 +32,9 @@ EXPOSURE_KEYS = ("value", "delta_shares", "delta_cash", "gamma_1pct", "vega_pt",
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` and ``explain --json``."""
 
+STICKY_RULE_SHORT = "vols sticky strike"
+"""The vol rule, short form for titles."""
+
 STICKY_NOTE = "vols sticky strike: each option keeps the vol of its strike and expiry"
 """Said under every ladder and what-if output."""
 
@@ -44,6 +45,20 @@ def _money(x: float, places: int = 0) -> str:
     if abs(x) < 0.5 * 10**-places:
         x = 0.0
     return f"{x:,.{places}f}"
+
+
+def print_table(columns: Sequence[str], rows: Sequence[Sequence[Any]], title: str | None = None,
+                right: Sequence[bool] | None = None) -> None:
+    """Print an aligned plain-text table; cells are never cut, numbers right-aligned per ``right``."""
+    cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
+    if title:
+        click.echo(title)
+    for k, r in enumerate(cells):
+        parts = [c.rjust(w) if (right and right[i]) else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))]
+        click.echo("  ".join(parts).rstrip())
+        if k == 0:
+            click.echo("  ".join("-" * w for w in widths))
 
 
 def _pct(x: float) -> str:
@@ -75,11 +90,13 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
         t = cal.valuation_time(at)
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--at") from exc
+    from blotter.store import StoreError
+
     try:
         book = store.load_book()
         market = store.load_market()
         return value_book(book, market, t, vega_unit=vega_unit)
-    except (KeyError, ValueError) as exc:
+    except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
 
 
@@ -191,26 +208,36 @@ def risk(db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: 
         print_csv(cols, data)
         return
     scale = v.vega_scale
-    cols = _RISK_COLUMNS if vega_unit == "pt" else tuple(
-        "vega $/1.00 vol" if c == "vega $/pt" else c for c in _RISK_COLUMNS)
     if by == "underlying":
-        table = [[r.label, _money(r.spot or float("nan"), 2), *_risk_cells(r, scale)] for r in under]
+        groups = [(r.label, _money(r.spot or float("nan"), 2), r) for r in under]
         first = ["underlying", "spot"]
     elif by == "expiry":
-        table = [[r.label, str(r.n_positions), *_risk_cells(r, scale)] for r in aggregate(v, "expiry")]
-        first = ["expiry", "pos"]
+        groups = [(r.label, str(r.n_positions), r) for r in aggregate(v, "expiry")]
+        first = ["expiry", "positions"]
     else:
-        table = [[r.label, _money(r.spot or float("nan"), 2), *_risk_cells(r, scale)]
-                 for r in aggregate(v, "position")]
+        groups = [(r.label, _money(r.spot or float("nan"), 2), r) for r in aggregate(v, "position")]
         first = ["position", "spot"]
     multi = len(under) > 1
-    cells = _risk_cells(tot, scale)
+    tot_cells = _risk_cells(tot, scale)
     if multi:  # share counts of different underlyings do not add
-        cells[1] = cells[3] = cells[7] = ""
-    table.append(["total", "", *cells])
-    print_table([*first, *cols], table, right=[False, True] + [True] * len(cols),
-                title=f"risk at {_iso(v.valuation_time)} · marks {_iso(v.market.marks_as_of)}")
-    lines = [f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt"]
+        tot_cells[1] = tot_cells[3] = tot_cells[7] = ""
+    cols = list(_RISK_COLUMNS)
+    if vega_unit == "vol":
+        cols[4] = "vega $/1.00 vol"
+    click.echo(f"risk at {_iso(v.valuation_time)} · marks {_iso(v.market.marks_as_of)}"
+               f" · money in book currency")
+    for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
+        table = [[a, b, *(_risk_cells(r, scale)[i] for i in block)] for a, b, r in groups]
+        table.append(["total", "", *(tot_cells[i] for i in block)])
+        click.echo("")
+        print_table([*first, *(cols[i] for i in block)], table, right=[False, True] + [True] * len(block))
+    click.echo("")
+    from blotter.scenario import apply_move, parse_move
+
+    roll = apply_move(v, parse_move("bdays 1"))
+    lines = [f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt",
+             f"roll to the next business day ({roll.roll_years * 365:g} calendar days, nothing else "
+             f"moving): full revaluation {_money(roll.total.full)} $, θ × days {_money(roll.total.terms['theta'])} $"]
     bw = beta_delta_index_units(v)
     if bw is not None:
         lines.append(f"beta-weighted delta: {_money(tot.beta_delta_cash)} $ = {bw:,.1f} "
@@ -296,13 +323,17 @@ def whatif(db_path: str | None, move: tuple[str, ...], at: str | None, as_json: 
         print_csv(cols, rows)
         return
     rows = [[r.label, *_move_row_cells(r)] for r in [*res.by_underlying, res.total]]
+    click.echo(f"what-if: {mv.describe()} · money in book currency · {STICKY_RULE_SHORT}")
+    click.echo("")
     print_table(["underlying", "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"], rows,
-                right=[False] + [True] * 7, title=f"what-if: {mv.describe()} (money in book currency)")
+                right=[False] + [True] * 7)
+    click.echo("")
     terms = [[r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]]
     print_table(["estimate terms", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
     if res.expiring:
         ex = [[e.label, _money(e.spot_after, 2), _pct(e.distance_pct), _money(e.settlement),
                _money(e.delivered_units, 0), "PIN RISK" if e.pin_risk else ""] for e in res.expiring]
+        click.echo("")
         print_table(["expiring in the roll", "spot after", "vs strike", "settles at", "delivers", ""], ex,
                     right=[False, True, True, True, True, False])
     click.echo(f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}, after the move {cal.iso(res.time_after)}")
@@ -380,8 +411,9 @@ def ladder(db_path: str | None, spot_list: str | None, vol_list: str | None, day
                         ("error = full − estimate", lad.error)):
         rows = [[f"{sp[a]:+g}%", *(_money(grid[a, b]) + ("◀" if (a, b) == (i, j) and grid is lad.full else "")
                                   for b in range(len(vp)))] for a in range(len(sp))]
-        print_table(heads, rows, title=f"{title} · {lad.rule}" + (f" · {days:g} days" if days else ""),
-                    right=[True] * len(heads))
+        click.echo(f"{title} · {lad.rule}" + (f" · {days:g} days" if days else "") + " · book currency")
+        print_table(heads, rows, right=[True] * len(heads))
+        click.echo("")
     click.echo(f"worst cell: spot {sp[i]:+g}% vol {vp[j]:+g} pts: {_money(worst['full'])} "
                f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀")
     click.echo(f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}")
@@ -409,6 +441,7 @@ def explain(db_path: str | None, from_set: int | None, to_set: str | None, as_js
     are shown apart as new-trade P&L (end mark against trade price). Money in the book's currency.
     """
     from blotter.scenario import explain as run_explain
+    from blotter.store import StoreError
 
     check_output_flags(as_json, as_csv)
     if to_set is not None and to_set.lower() != "now":
@@ -419,7 +452,7 @@ def explain(db_path: str | None, from_set: int | None, to_set: str | None, as_js
     store = _open(db_path)
     try:
         ex = run_explain(store, from_set, to_set)
-    except (KeyError, ValueError) as exc:
+    except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
     if as_json:
         print_json({"from": _set_dict(ex.from_set), "to": _set_dict(ex.to_set),
@@ -433,12 +466,20 @@ def explain(db_path: str | None, from_set: int | None, to_set: str | None, as_js
     if as_csv:
         print_csv(cols, data)
         return
-    rows = [[d[0], *(_money(x) for x in d[1:])] for d in data]
     frm = ex.from_set
     to = ex.to_set
-    title = (f"P&L explain: set {frm.id} ({_iso(frm.marked_at)}) → "
-             + ("marks now" if to == "now" else f"set {to.id} ({_iso(to.marked_at)})"))
-    print_table(cols, rows, right=[False] + [True] * (len(cols) - 1), title=title)
+    click.echo(f"P&L explain: set {frm.id} ({_iso(ex.from_time)}) → "
+               + ("marks now" if to == "now" else f"set {to.id} ({_iso(ex.to_time)})")
+               + " · money in book currency · greeks of the start set")
+    click.echo("")
+    summary = [[r.label, _money(r.actual), _money(r.explained), _money(r.unexplained),
+                _pct(100 * r.unexplained / abs(r.actual)) if r.actual else "—",
+                _money(r.new_trades), _money(r.total)] for r in [*ex.by_underlying, ex.total]]
+    print_table(["underlying", "actual", "explained", "unexplained", "unexpl %", "new trades", "total"],
+                summary, right=[False] + [True] * 6)
+    click.echo("")
+    terms = [[r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*ex.by_underlying, ex.total]]
+    print_table(["explained by", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
     for note in ex.notes:
         click.echo(note)
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import pytest
-from scenario_books import make_book, mixed_rows
+from .scenario_books import make_book, mixed_rows
 
 from blotter.book import Book
 

@@ -12,7 +12,7 @@ from datetime import datetime, timedelta, timezone
 
 import numpy as np
 import pytest
-from scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
+from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
 from blotter import calendar as cal
 from blotter.book import Book

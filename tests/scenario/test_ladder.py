@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from scenario_books import T0, Row, make_book, make_market, mixed_rows
+from .scenario_books import T0, Row, make_book, make_market, mixed_rows
 
 from blotter.risk import value_book
 from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, STICKY_RULE, apply_move, ladder, parse_move

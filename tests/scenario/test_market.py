@@ -12,7 +12,7 @@ import pytest
 
 from blotter.market import VOL_FLOOR, RateCurve, VolSurface
 
-from scenario_books import T0, make_market
+from .scenario_books import T0, make_market
 
 SURF = VolSurface(
     expiries=np.array(["2026-12-18"] * 3 + ["2027-03-19"] * 3, dtype="datetime64[D]"),

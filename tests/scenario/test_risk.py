@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
+from .scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
 
 from blotter.book import Underlyings
 from blotter.market import Market, RateCurve

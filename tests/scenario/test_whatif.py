@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from scenario_books import RATE, SPOTS, T0, UNDERLYINGS, Row, make_book, make_market, mixed_rows, ql_price
+from .scenario_books import RATE, SPOTS, T0, UNDERLYINGS, Row, make_book, make_market, mixed_rows, ql_price
 
 from blotter.risk import value_book
 from blotter.scenario import MoveError, apply_move, parse_move
