@@ -15,6 +15,7 @@ compounded zero rates by tenor in calendar days; instants are UTC.
 from __future__ import annotations
 
 import csv
+import functools
 import getpass
 import hashlib
 import io
@@ -29,7 +30,7 @@ from dataclasses import dataclass
 from datetime import date, datetime, time, timezone
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 from urllib.parse import quote
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
@@ -390,8 +391,11 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
         app_id = conn.execute("PRAGMA application_id").fetchone()[0]
         version = conn.execute("PRAGMA user_version").fetchone()[0]
         tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-    except sqlite3.DatabaseError as exc:
-        raise StoreError(f"{path} is not a blotter book: {exc}") from None
+    except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
+        if "not a database" in str(exc):
+            raise StoreError(f"{path} is not a blotter book (SQLite: {exc})") from None
+        raise StoreError(f"{path} is not a readable blotter book ({exc}); restore it from a "
+                         "backup") from None
     if app_id != APPLICATION_ID:
         if not tables and version == 0:
             raise StoreError(f"{path} is not a blotter book (it is empty); make one with "
@@ -405,7 +409,7 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     if verify:
         try:
             problems = [r[0] for r in conn.execute("PRAGMA quick_check")]
-        except sqlite3.DatabaseError as exc:
+        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
             raise StoreError(f"{path} is damaged ({exc}); restore it from a backup") from None
         if problems != ["ok"]:
             raise StoreError(f"{path} is damaged ({'; '.join(problems[:3])}); restore it from "
@@ -432,6 +436,8 @@ def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bo
     try:
         conn = _connect(p, read_only)
     except sqlite3.Error as exc:
+        if "not a database" in str(exc):
+            raise StoreError(f"{p} is not a blotter book (SQLite: {exc})") from None
         if read_only:
             raise StoreError(f"cannot open {p} read-only ({exc}): the file and its -wal/-shm files "
                              "must be readable, or the directory writable") from None
@@ -570,6 +576,35 @@ def user_demo_copy() -> Path:
 # The store
 
 
+_F = TypeVar("_F", bound=Callable[..., Any])
+
+
+def _guard_damage(method: _F) -> _F:
+    """A read method whose conversion errors become ``StoreError`` when the file is damaged.
+
+    SQLite keeps no checksums, so a damaged byte can reach Python as text that is not a valid
+    date or not UTF-8. Such an error is checked against ``PRAGMA integrity_check``: a damaged
+    file gives a plain ``StoreError``; a sound file lets the original error through (a bug).
+    """
+
+    @functools.wraps(method)
+    def wrapper(self: Store, *args: Any, **kwargs: Any) -> Any:
+        try:
+            return method(self, *args, **kwargs)
+        except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
+            try:
+                sound = [r[0] for r in self._conn().execute("PRAGMA integrity_check")] == ["ok"]
+            except (sqlite3.Error, UnicodeDecodeError):
+                sound = False
+            if sound:
+                raise
+            raise StoreError(f"{self.path} is damaged (it holds values its schema forbids: "
+                             f"{exc}); restore it from a backup") from None
+
+    return wrapper  # type: ignore[return-value]
+
+
+
 class Store:
     """An open book. Each thread that calls it uses its own connection; ``close()`` closes all.
 
@@ -662,11 +697,19 @@ class Store:
             raise _map_error(exc, self.path) from None
         try:
             yield conn
-        except sqlite3.Error as exc:
-            raise _map_error(exc, self.path) from None
-        finally:
+            conn.execute("COMMIT")
+        except BaseException as exc:
             if conn.in_transaction:
-                conn.execute("COMMIT")
+                try:
+                    conn.execute("ROLLBACK")
+                except sqlite3.Error:
+                    pass
+            if isinstance(exc, sqlite3.Error):
+                raise _map_error(exc, self.path) from None
+            if isinstance(exc, UnicodeDecodeError):
+                raise StoreError(f"{self.path}: the book holds text that is not UTF-8, so it is "
+                                 "damaged; restore it from a backup") from None
+            raise
 
     def data_version(self) -> int:
         """``PRAGMA data_version`` of this thread's connection: changes when another connection commits."""
@@ -726,6 +769,7 @@ class Store:
             "is_reference, multiplier, american, cash_settled, time_zone, cutoff_time "
             "FROM underlying ORDER BY underlying_id").fetchall()
 
+    @_guard_damage
     def load_underlyings(self) -> Underlyings:
         """Every underlying of the book, in id order (the index the ``Book`` rows point into)."""
         with self._read() as conn:
@@ -772,11 +816,13 @@ class Store:
                                (_ts(written_at or _now()), who or self.who, text))
             return int(cur.lastrowid or 0)
 
+    @_guard_damage
     def notes(self) -> list[str]:
         """The desk notes, oldest first."""
         with self._read() as conn:
             return [r[0] for r in conn.execute("SELECT text FROM desk_note ORDER BY note_id")]
 
+    @_guard_damage
     def book_names(self) -> list[str]:
         """Names of the books (desk accounts), alphabetically."""
         with self._read() as conn:
@@ -843,6 +889,7 @@ class Store:
             (uid, opt_type, k, exp_text, cutoff, am, mult, cash))
         return int(cur.lastrowid or 0)
 
+    @_guard_damage
     def contracts(self) -> list[ContractRecord]:
         """Every contract, in id order, with its label and UTC cut-off instant."""
         with self._read() as conn:
@@ -977,6 +1024,7 @@ class Store:
                  c.contract_id
     """
 
+    @_guard_damage
     def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
         """Net positions of live trades (all books when ``book`` is None) as they stood at ``as_of``.
 
@@ -1054,6 +1102,7 @@ class Store:
             expiries=expiries, multipliers=multipliers,
             quantities=np.asarray(quantities, dtype=np.float64), cash_settled=cash)
 
+    @_guard_damage
     def new_trades(self, since: datetime, until: datetime | None = None,
                    book: str | None = None) -> tuple[Book, np.ndarray]:
         """One ``Book`` row per trade booked in (``since``, ``until``] and live at ``until``.
@@ -1083,6 +1132,7 @@ class Store:
         result = self._book_from(book or "all books", urows, rows, [r[11] for r in rows])
         return result, np.array([r[12] for r in rows], dtype=np.float64)
 
+    @_guard_damage
     def trades(self, book: str | None = None, since: datetime | None = None,
                until: datetime | None = None, live_only: bool = False) -> list[TradeRecord]:
         """Trades dealt in (``since``, ``until``] (all when None), oldest first, with their state now."""
@@ -1213,6 +1263,7 @@ class Store:
         return conn.execute(self._IN_FORCE_SQL.format(where="WHERE s.marked_at <= ?"),
                             (_ts(parse_time(as_of)),)).fetchall()
 
+    @_guard_damage
     def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
         """The marks in force (latest value of each point across sets, at ``as_of`` or now), or
         exactly the set ``mark_set_id`` as recorded.
@@ -1272,6 +1323,7 @@ class Store:
                       spots=spots, surfaces=surfaces, curves=curves, div_yields=divs,
                       mark_set_id=set_id, mark_kind=kind)
 
+    @_guard_damage
     def marks(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> list[MarkRecord]:
         """Mark points: those in force (at ``as_of`` or now), or exactly the set ``mark_set_id``."""
         with self._read() as conn:
@@ -1312,6 +1364,7 @@ class Store:
             self._insert_marks(conn, set_id, [tuple(r[2:]) for r in rows])
             return set_id
 
+    @_guard_damage
     def mark_sets(self, kind: str | None = None) -> list[MarkSetInfo]:
         """Mark sets, oldest first (only ``kind`` 'close' or 'intraday' when given)."""
         if kind is not None and kind not in ("close", "intraday"):
