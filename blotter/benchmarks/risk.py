@@ -16,6 +16,7 @@ Where QuantLib is installed, the reference is its per-option loop (AnalyticEurop
 
 from __future__ import annotations
 
+import tracemalloc
 from datetime import datetime, timezone
 from typing import Any
 
@@ -142,8 +143,13 @@ def run(quick: bool) -> list[Result]:
         prepare(v)
         secs = timed(lambda v=v: ladder(v), repeat=max(3, repeat // 2))
         med_ns = float(np.median(secs)) * 1e9 / n
+        tracemalloc.start()
+        ladder(v)
+        peak_mb = tracemalloc.get_traced_memory()[1] / 2**20
+        tracemalloc.stop()
         results.append(result_from(
             "ladder", n, secs, reference=ref, ratio=(ql_ns * cells / med_ns) if ql_ns else None,
             target_ns=target_ms * 1e6 / n if not quick else None,
-            note=f"{len(DEFAULT_SPOT_PCTS)}×{len(DEFAULT_VOL_PTS)} sticky strike, chunked"))
+            note=f"{len(DEFAULT_SPOT_PCTS)}×{len(DEFAULT_VOL_PTS)} sticky strike, chunked, "
+                 f"peak {peak_mb:.0f} MB allocated"))
     return results
