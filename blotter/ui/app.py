@@ -108,7 +108,7 @@ class BlotterApp(App[None]):
         yield Footer()
 
     def on_mount(self) -> None:
-        self.query_one("#book-pane").border_title = "Book"
+        self._book_title()
         self._show_pane()
         self.query_one(BookTable).focus()
         self.load_book()
@@ -266,13 +266,16 @@ class BlotterApp(App[None]):
         self.move_seq += 1
         if not text.strip():
             bar.clear_message()
+            self.query_one(MovePane).mark_stale(False)
             return
         symbols = self.state.valuation.book.underlyings.symbols if self.state else None
         try:
             move = scenario.parse_move(text, symbols)
         except scenario.MoveSyntaxError as exc:
             bar.show_error(text, exc.message, exc.start, exc.end)
+            self.query_one(MovePane).mark_stale(True)
             return
+        self.query_one(MovePane).mark_stale(False)
         if self.state is None:
             bar.show_ok(move.describe() + " (waiting for the book)")
             return
@@ -416,18 +419,22 @@ class BlotterApp(App[None]):
     def action_toggle_group(self) -> None:
         table = self.query_one(BookTable)
         table.set_group("expiry" if table.group == "underlying" else "underlying")
-        self.notify(f"Book grouped by {'expiry bucket' if table.group == 'expiry' else 'underlying'}",
-                    timeout=2)
+        self._book_title()
 
     def action_sort_column(self) -> None:
-        column, reverse = self.query_one(BookTable).sort_by_cursor()
-        if column is None:
-            self.notify("Book in its natural order", timeout=2)
-        else:
-            name = "label" if column == "label" else dict(data.BOOK_COLUMNS)[column]
-            self.notify(f"Sorted by {name}, {'largest' if reverse else 'smallest'} first"
-                        if column != "label" else f"Sorted by name{' (reversed)' if reverse else ''}",
-                        timeout=2)
+        self.query_one(BookTable).sort_by_cursor()
+        self._book_title()
+
+    def _book_title(self) -> None:
+        """The Book pane's title says how it is grouped and sorted."""
+        table = self.query_one(BookTable)
+        title = "Book by " + ("expiry bucket" if table.group == "expiry" else "underlying")
+        column, reverse = table.sort_column, table.sort_reverse
+        if column == "label":
+            title += " ─ sorted by name" + (" (Z→A)" if reverse else "")
+        elif column is not None:
+            title += f" ─ sorted by {dict(data.BOOK_COLUMNS)[column]} " + ("↓ largest first" if reverse else "↑ smallest first")
+        self.query_one("#book-pane").border_title = title
 
     def action_toggle_order(self) -> None:
         self.query_one(MovePane).toggle_order()

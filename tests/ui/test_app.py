@@ -82,7 +82,8 @@ async def test_bad_line_keeps_last_result(demo_app: BlotterApp) -> None:
         await pilot.press(*" vol +x")
         await settle(demo_app, pilot)
         message = str(demo_app.query_one("#whatif-message").render())
-        assert message.startswith("✗") and "«+x»" in message and "last good result kept" in message
+        assert message.startswith("✗") and "'+x'" in message
+        assert "last good line" in str(demo_app.query_one("#move-pane").border_title)
         assert demo_app.result is result
         assert str(table.get_cell("total", "full")) == good
         assert demo_app.query_one("WhatIfBar").has_class("-bad")

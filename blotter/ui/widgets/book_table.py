@@ -55,7 +55,7 @@ class BookTable(DataTable[str | Text]):
         self.expandable_keys: set[str] = set()
 
     def on_mount(self) -> None:
-        self.add_column(Text("Book".ljust(LABEL_WIDTH)), key="label", width=LABEL_WIDTH)
+        self.add_column(Text("underlying"), key="label", width=LABEL_WIDTH)
         for key, header in BOOK_COLUMNS:
             self.add_column(Text(header, justify="right"), key=key, width=COLUMN_WIDTHS[key])
 
@@ -176,6 +176,7 @@ class BookTable(DataTable[str | Text]):
     def set_group(self, group: str) -> None:
         """Regroup by ``"underlying"`` or ``"expiry"``; expansions are per grouping."""
         self.group = group
+        self.columns["label"].label = Text("expiry bucket" if group == "expiry" else "underlying")  # type: ignore[index]
         self.expanded = set()
         self.show()
 

@@ -49,6 +49,7 @@ class MovePane(Vertical):
         self.order = order
         self.result: Any = None
         self.text = ""
+        self.stale_line = False   # the bar holds a line that does not parse
         self.border_title = "Move: type a move in the bar, e.g. spot -3% vol +2 days 1"
 
     def compose(self) -> ComposeResult:
@@ -102,6 +103,7 @@ class MovePane(Vertical):
         """Show the result of ``text`` (parsed as ``summary``)."""
         self.result, self.text = result, text
         self._summary = summary
+        self.stale_line = False
         self.repaint()
 
     def repaint(self) -> None:
@@ -131,6 +133,8 @@ class MovePane(Vertical):
                  f"{self.alerts.error_pct:g}% & > {self.alerts.error_abs:,.0f}")
         if flagged:
             title += f" ─ {flagged} {FLAG}"
+        if self.stale_line:
+            title = f"Move (last good line): {self._summary} ─ the bar's line has an error"
         self.border_title = title
         expiring = self.query_one("#move-expiring", Static)
         expiring.update(self._expiring_text(result))
@@ -150,6 +154,12 @@ class MovePane(Vertical):
         if len(expiring) > 6:
             out.append(f", … {len(expiring) - 6} more")
         return out
+
+    def mark_stale(self, stale: bool) -> None:
+        """Say in the title whether the result shown is the last good line's, not the bar's."""
+        if stale != self.stale_line:
+            self.stale_line = stale
+            self.repaint()
 
     def toggle_order(self) -> int:
         """Switch between first- and second-order estimates; returns the new order."""

@@ -65,10 +65,9 @@ class WhatIfBar(Horizontal):
         word = text[start:end] if 0 <= start < end <= len(text) else ""
         out = Text("✗ ")
         out.append(message)
-        if word:
+        if word and word not in message:
             out.append(" at ")
             out.append(f"«{word}»", style="reverse")
-        out.append(" (last good result kept)")
         self.query_one("#whatif-message", Static).update(out)
         self.add_class("-bad")
 

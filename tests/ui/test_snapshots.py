@@ -1,0 +1,60 @@
+"""Snapshots of each pane at 80×24 on the demo book, clock frozen (pytest-textual-snapshot).
+
+Accept new pictures with ``--snapshot-update`` only after looking at the report.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from blotter.ui.app import make_app
+
+from .conftest import TEST_SETTINGS, frozen_clock, settle
+
+SIZE = (80, 24)
+
+
+def _app(db: Path) -> Any:
+    return make_app(db, TEST_SETTINGS, clock=frozen_clock)
+
+
+def _steps(*keys: str, move: str | None = None) -> Any:
+    async def run_before(pilot: Any) -> None:
+        app = pilot.app
+        await settle(app, pilot)
+        if move is not None:
+            await pilot.press("f2", *move)
+            await settle(app, pilot)
+        for key in keys:
+            await pilot.press(key)
+            await settle(app, pilot)
+    return run_before
+
+
+def test_book_pane(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("down", "e", "down", "e"))
+
+
+def test_move_pane(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +2 days 1"))
+
+
+def test_move_pane_bad_line(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +x"))
+
+
+def test_ladder_pane(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f7", move="days 1"))
+
+
+def test_profile_pane(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f7", "f7", move="days 1"))
+
+
+def test_help_screen(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f1"))
+
+
+def test_grouped_by_expiry(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("g"))
