@@ -27,7 +27,7 @@ DEMO_SEED = 20261201
 DEMO_POSITIONS = 150
 """Number of option positions in the shipped demo book."""
 
-DEMO_AS_OF = date(2026, 12, 1)
+DEMO_AS_OF = date(2026, 11, 24)
 """Date of the demo's second (latest) close; the first close is the business day before."""
 
 DEMO_TZ = ZoneInfo("America/New_York")
@@ -181,7 +181,7 @@ def build_demo(path: str | os.PathLike[str], positions: int | None = None,
 
     The book is built in a temporary file beside ``path`` and renamed into place, so ``path`` is
     never half-written. An existing ``path`` is refused unless ``force``; a book in use (its
-    ``-wal`` file exists) is always refused.
+    ``-wal`` file holds data) is always refused.
     """
     from blotter.engine import price
 
@@ -191,8 +191,10 @@ def build_demo(path: str | os.PathLike[str], positions: int | None = None,
         raise StoreError("--positions must not be negative")
     if out.exists() and not force:
         raise StoreError(f"{out} already exists; pass --force to replace it")
-    if Path(f"{out}-wal").exists():
-        raise StoreError(f"{out} is in use ({out}-wal exists); close it before replacing it")
+    wal = Path(f"{out}-wal")
+    if wal.exists() and wal.stat().st_size > 0:
+        raise StoreError(f"{out} is in use or was not closed cleanly ({wal} holds data); close "
+                         "every program using it before replacing it")
     tmp = out.with_name(f".{out.name}.{os.getpid()}.building")
     _remove_book_files(tmp)
     store = create_store(tmp)
@@ -204,10 +206,10 @@ def build_demo(path: str | os.PathLike[str], positions: int | None = None,
         _remove_book_files(tmp)
         raise
     store.close()
-    _remove_book_files(Path(f"{tmp}-wal"))
     os.replace(tmp, out)
-    for suffix in ("-wal", "-shm"):
-        _remove_book_files(Path(f"{tmp}{suffix}"))
+    for side in (tmp, out):            # empty side files left by readers of the old file
+        for suffix in ("-wal", "-shm"):
+            _remove_book_files(Path(f"{side}{suffix}"))
     return out
 
 
@@ -431,7 +433,7 @@ def describe(path: str | os.PathLike[str]) -> dict[str, int]:
     """Counts of what a book holds (positions, trades, cancels, mark sets, marks, underlyings)."""
     from blotter.store import open_store
 
-    with open_store(path, read_only=True) as s:
+    with open_store(path) as s:       # read-write, so closing leaves no -wal/-shm behind
         conn = s.connection
         book = s.load_book()
         return {
