@@ -7,7 +7,9 @@ before t1 = ½(√5 − 1) T, or I2 after it", which needs the bivariate normal 
 
 Rules applied on top of the formula, per row:
 
-- a call with b >= r (a put with r <= 0) is never exercised early: the European value;
+- where the call form has b >= r (calls with b >= r, puts with r <= 0) the value is the
+  European one floored at intrinsic; that is exact (no early exercise) for calls when r >= 0
+  and for puts when b <= r, and a lower bound otherwise;
 - the value is floored at the European value and at intrinsic (the 2002 formula can dip below
   the European value when b is near 0 and r is small);
 - rows where the 2002 exponent β is not real (possible only with a negative call-form rate:
@@ -31,8 +33,9 @@ from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_quadrature
 
 VOL_FLOOR = 1e-3
 """Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
-_EXP_CAP = 700.0
-"""Cap on exponents of products e^L·N(d): where e^L would overflow, N(d) is 0 in float64."""
+_EXP_CAP = 600.0
+"""Cap on exponents of products c·e^L·N(d): e^600 leaves room for coefficients up to 1e47;
+where e^L is that large the N(d) it multiplies is 0 in float64."""
 
 STEPS = {
     "spot_rel": 1e-4,
@@ -69,8 +72,10 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     b_0 = np.maximum(k, r / (r - b) * k)
     gap = b_inf - b_0
     scale = k * k / (gap * b_0)
-    i1 = b_0 - gap * np.expm1(-(b * t1 + 2.0 * vs1) * scale)
-    i2 = b_0 - gap * np.expm1(-(b * t + 2.0 * vst) * scale)
+    # h(t) = −(b t + 2σ√t) K² / ((B∞ − B0) B0), capped at 0 so that B0 <= I <= B∞ (the cap binds
+    # only for strongly negative carry with a small vol, where the boundary is B0).
+    i1 = b_0 - gap * np.expm1(np.minimum(-(b * t1 + 2.0 * vs1) * scale, 0.0))
+    i2 = b_0 - gap * np.expm1(np.minimum(-(b * t + 2.0 * vst) * scale, 0.0))
     ls, lk, l1, l2 = np.log(s), np.log(k), np.log(i1), np.log(i2)
     m = s.shape[0]
     zero = np.zeros(m)

@@ -92,6 +92,7 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
     bb *= kd
     bb *= w                                                      # ω K e^{−rT} N(ω d2)
     np.subtract(a, bb, out=price)
+    np.maximum(price, 0.0, out=price)                            # rounding can leave −1e-17
     cpdf = np.square(d1, out=np.empty(m))
     cpdf *= -0.5
     np.maximum(cpdf, EXP_FLOOR, out=cpdf)       # NumPy's exp is slow where results underflow
@@ -156,4 +157,5 @@ def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
     np.exp(e, out=e)
     price *= e
     price *= w
+    np.maximum(price, 0.0, out=price)
     expired_fill(w, s, k, t, outs)
