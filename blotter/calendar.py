@@ -9,8 +9,9 @@ other exchange calendars it ships), so there is no hand-written holiday table he
 from __future__ import annotations
 
 import os
-from datetime import date, datetime, time, timedelta, timezone
+from datetime import UTC, date, datetime, time, timedelta
 from functools import lru_cache
+from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -37,12 +38,12 @@ def desk_tz(name: str | None = None) -> ZoneInfo:
 
 
 def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
-    """One UTC instant as ``datetime64[s]``; naive datetimes and strings are read as desk-local time.
+    """One UTC instant as ``datetime64[s]``; naive datetimes and strings are desk-local time.
 
     Strings are ISO-8601 (``2026-12-01T15:30``, ``2026-12-01``, or with an offset / ``Z``).
     """
     if isinstance(t, np.datetime64):
-        return t.astype("datetime64[s]")
+        return cast(np.datetime64, np.asarray(t).astype("datetime64[s]")[()])
     if isinstance(t, str):
         text = t.strip()
         if text.endswith(("Z", "z")):
@@ -55,14 +56,14 @@ def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
         t = datetime.combine(t, time(0, 0))
     if t.tzinfo is None:
         t = t.replace(tzinfo=desk_tz())
-    utc = t.astimezone(timezone.utc).replace(tzinfo=None)
+    utc = t.astimezone(UTC).replace(tzinfo=None)
     return np.datetime64(utc, "s")
 
 
 def to_datetime(t: np.datetime64, tz: ZoneInfo | None = None) -> datetime:
     """An aware ``datetime`` for the UTC instant ``t``, in ``tz`` (UTC when None)."""
-    seconds = int(np.datetime64(t, "s").astype(np.int64))
-    out = datetime(1970, 1, 1, tzinfo=timezone.utc) + timedelta(seconds=seconds)
+    seconds = int(np.asarray(t, dtype="datetime64[s]").astype(np.int64))
+    out = datetime(1970, 1, 1, tzinfo=UTC) + timedelta(seconds=seconds)
     return out.astimezone(tz) if tz is not None else out
 
 
@@ -73,7 +74,7 @@ def iso(t: np.datetime64, tz: ZoneInfo | None = None) -> str:
 
 def now() -> np.datetime64:
     """The current instant, UTC ``datetime64[s]``."""
-    return to_instant(datetime.now(timezone.utc))
+    return to_instant(datetime.now(UTC))
 
 
 def valuation_time(t: datetime | np.datetime64 | str | None = None) -> np.datetime64:
@@ -93,9 +94,10 @@ def year_fraction(t0: np.datetime64 | np.ndarray, t1: np.datetime64 | np.ndarray
     return seconds / SECONDS_PER_YEAR
 
 
-def expiry_instant(expiry_date: date | str, cutoff: time = DEFAULT_CUTOFF,
-                   tz: str | ZoneInfo | None = None) -> np.datetime64:
-    """The UTC instant an option expiring on ``expiry_date`` stops, at ``cutoff`` local exchange time."""
+def expiry_instant(
+    expiry_date: date | str, cutoff: time = DEFAULT_CUTOFF, tz: str | ZoneInfo | None = None
+) -> np.datetime64:
+    """The UTC instant an option expiring on ``expiry_date`` stops: ``cutoff`` local time."""
     if isinstance(expiry_date, str):
         expiry_date = date.fromisoformat(expiry_date)
     zone = tz if isinstance(tz, ZoneInfo) else desk_tz(tz)
@@ -124,38 +126,52 @@ def business_calendar(name: str = DEFAULT_CALENDAR) -> np.busdaycalendar:
     return np.busdaycalendar(weekmask="1111100", holidays=dates)
 
 
-def is_business_day(d: np.datetime64 | np.ndarray | date,
-                    calendar: str = DEFAULT_CALENDAR) -> np.ndarray:
+def is_business_day(
+    d: np.datetime64 | np.ndarray | date, calendar: str = DEFAULT_CALENDAR
+) -> np.ndarray:
     """True where the date ``d`` is a trading day of ``calendar``; shape of ``d``."""
     return np.is_busday(np.asarray(d, dtype="datetime64[D]"), busdaycal=business_calendar(calendar))
 
 
-def add_business_days(d: np.datetime64 | np.ndarray | date, n: int | np.ndarray,
-                      calendar: str = DEFAULT_CALENDAR) -> np.ndarray:
+def add_business_days(
+    d: np.datetime64 | np.ndarray | date, n: int | np.ndarray, calendar: str = DEFAULT_CALENDAR
+) -> np.ndarray:
     """The date ``n`` trading days after ``d`` (before it for negative ``n``).
 
     A ``d`` that is not itself a trading day counts from the trading day before it, so one
     business day after a Saturday is the Monday.
     """
     days = np.asarray(d, dtype="datetime64[D]")
-    return np.busday_offset(days, n, roll="backward" if np.all(np.asarray(n) >= 0) else "forward",
-                            busdaycal=business_calendar(calendar))
+    return np.busday_offset(
+        days,
+        n,
+        roll="backward" if np.all(np.asarray(n) >= 0) else "forward",
+        busdaycal=business_calendar(calendar),
+    )
 
 
-def business_days_between(d0: np.datetime64 | np.ndarray | date, d1: np.datetime64 | np.ndarray | date,
-                          calendar: str = DEFAULT_CALENDAR) -> np.ndarray:
+def business_days_between(
+    d0: np.datetime64 | np.ndarray | date,
+    d1: np.datetime64 | np.ndarray | date,
+    calendar: str = DEFAULT_CALENDAR,
+) -> np.ndarray:
     """Trading days in [d0, d1) of ``calendar`` (negative when d1 is before d0)."""
-    return np.busday_count(np.asarray(d0, dtype="datetime64[D]"), np.asarray(d1, dtype="datetime64[D]"),
-                           busdaycal=business_calendar(calendar))
+    return np.busday_count(
+        np.asarray(d0, dtype="datetime64[D]"),
+        np.asarray(d1, dtype="datetime64[D]"),
+        busdaycal=business_calendar(calendar),
+    )
 
 
 def roll_calendar_days(t: np.datetime64, days: float) -> np.datetime64:
     """The instant ``days`` calendar days (24 h each, fractions allowed) after ``t``."""
-    return np.datetime64(t, "s") + np.timedelta64(int(round(days * 86400.0)), "s")
+    base = np.asarray(t, dtype="datetime64[s]")
+    return cast(np.datetime64, (base + np.timedelta64(int(round(days * 86400.0)), "s"))[()])
 
 
-def roll_business_days(t: np.datetime64, n: int, calendar: str = DEFAULT_CALENDAR,
-                       tz: ZoneInfo | None = None) -> np.datetime64:
+def roll_business_days(
+    t: np.datetime64, n: int, calendar: str = DEFAULT_CALENDAR, tz: ZoneInfo | None = None
+) -> np.datetime64:
     """The instant at the same desk-local time of day ``n`` trading days after ``t``.
 
     A Friday afternoon rolled one business day lands on Monday afternoon (three calendar days);

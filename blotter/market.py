@@ -31,12 +31,14 @@ class VolSurface:
     expiry, used flat across strikes when the expiry has no strike points. Vols are decimals.
     """
 
-    expiries: np.ndarray   # datetime64[D] (m,)
-    strikes: np.ndarray    # float64 (m,), NaN = ATM vol for the expiry
-    vols: np.ndarray       # float64 (m,), annualised decimal
+    expiries: np.ndarray  # datetime64[D] (m,)
+    strikes: np.ndarray  # float64 (m,), NaN = ATM vol for the expiry
+    vols: np.ndarray  # float64 (m,), annualised decimal
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "expiries", _frozen(np.asarray(self.expiries, dtype="datetime64[D]")))
+        object.__setattr__(
+            self, "expiries", _frozen(np.asarray(self.expiries, dtype="datetime64[D]"))
+        )
         object.__setattr__(self, "strikes", _frozen(np.asarray(self.strikes, dtype=np.float64)))
         object.__setattr__(self, "vols", _frozen(np.asarray(self.vols, dtype=np.float64)))
         m = self.expiries.shape
@@ -50,7 +52,7 @@ class VolSurface:
         return np.unique(self.expiries)
 
     def slice_vols(self, slice_date: np.datetime64, strikes: np.ndarray) -> np.ndarray:
-        """Vols of one expiry slice at ``strikes`` (n,): linear in strike, flat beyond the end points.
+        """Vols of one expiry slice at ``strikes`` (n,): linear in strike, flat beyond the ends.
 
         A slice with no strike points uses its ATM (NaN-strike) vol at every strike.
         """
@@ -60,11 +62,16 @@ class VolSurface:
         has_k = np.isfinite(ks)
         if has_k.any():
             order = np.argsort(ks[has_k], kind="stable")
-            return np.interp(strikes, ks[has_k][order], vs[has_k][order])
+            return np.asarray(np.interp(strikes, ks[has_k][order], vs[has_k][order]))
         return np.full(strikes.shape, float(vs.mean()))
 
-    def vols_at(self, expiry_days: np.ndarray, years: np.ndarray, strikes: np.ndarray,
-                today: np.datetime64) -> np.ndarray:
+    def vols_at(
+        self,
+        expiry_days: np.ndarray,
+        years: np.ndarray,
+        strikes: np.ndarray,
+        today: np.datetime64 | np.ndarray,
+    ) -> np.ndarray:
         """Vols (n,) for options expiring on dates ``expiry_days`` in ``years`` at ``strikes``.
 
         Across expiries the surface is linear in total variance σ²T at equal strike (sticky strike:
@@ -83,9 +90,9 @@ class VolSurface:
             return np.zeros(0)
         if dates.size == 0:
             raise ValueError("vol surface has no points")
-        grid = np.stack([self.slice_vols(d, strikes) for d in dates])          # (k, n)
+        grid = np.stack([self.slice_vols(d, strikes) for d in dates])  # (k, n)
         if dates.size == 1:
-            return grid[0].copy()
+            return np.array(grid[0])
         hi = np.clip(np.searchsorted(dates, expiry_days, side="left"), 1, dates.size - 1)
         lo = hi - 1
         cols = np.arange(n)
@@ -99,8 +106,11 @@ class VolSurface:
         w = w_lo + (w_hi - w_lo) * frac
         with np.errstate(invalid="ignore", divide="ignore"):
             inner = np.sqrt(np.maximum(w, 0.0) / years)
-        out = np.where(expiry_days <= dates[0], grid[0, cols],
-                       np.where(expiry_days >= dates[-1], grid[-1, cols], inner))
+        out = np.where(
+            expiry_days <= dates[0],
+            grid[0, cols],
+            np.where(expiry_days >= dates[-1], grid[-1, cols], inner),
+        )
         exact = dates[lo] == expiry_days
         out = np.where(exact, v_lo, out)
         out = np.where(dates[hi] == expiry_days, v_hi, out)
@@ -124,8 +134,10 @@ class RateCurve:
         object.__setattr__(self, "zero_rates", _frozen(rates[order]))
 
     def rate_at(self, years: np.ndarray | float) -> np.ndarray:
-        """Zero rate (decimal, continuous) at ``years`` (ACT/365F), linear in tenor, flat beyond the ends."""
-        return np.interp(np.asarray(years, dtype=np.float64) * 365.0, self.tenor_days, self.zero_rates)
+        """Zero rate (decimal, continuous) at ``years``: linear in tenor, flat beyond the ends."""
+        return np.asarray(
+            np.interp(np.asarray(years, dtype=np.float64) * 365.0, self.tenor_days, self.zero_rates)
+        )
 
     def shifted(self, rate_bp: float) -> RateCurve:
         """A copy with every zero rate moved by ``rate_bp`` basis points (1 bp = 0.0001)."""
@@ -145,9 +157,11 @@ class Market:
     spots: dict[str, float]
     surfaces: dict[str, VolSurface]
     curves: dict[str, RateCurve]
-    div_yields: dict[str, float] = field(default_factory=dict)  # overrides of Underlyings.div_yields
+    div_yields: dict[str, float] = field(
+        default_factory=dict
+    )  # overrides of Underlyings.div_yields
     mark_set_id: int | None = None
-    mark_kind: str = "intraday"   # "close" or "intraday"
+    mark_kind: str = "intraday"  # "close" or "intraday"
 
     def spot(self, symbol: str) -> float:
         """Spot (or futures price) of ``symbol``; KeyError naming it when there is no mark."""
@@ -163,25 +177,34 @@ class Market:
         except KeyError:
             raise KeyError(f"no rate curve for {currency!r}") from None
 
-    def vols_for(self, symbol: str, expiries: np.ndarray, strikes: np.ndarray,
-                 valuation_time: np.datetime64) -> np.ndarray:
-        """Vols (n,) of ``symbol``'s options expiring at the UTC instants ``expiries`` at ``strikes``.
+    def vols_for(
+        self, symbol: str, expiries: np.ndarray, strikes: np.ndarray, valuation_time: np.datetime64
+    ) -> np.ndarray:
+        """Vols (n,) of ``symbol``'s options expiring at UTC instants ``expiries``, at ``strikes``.
 
         Interpolation is ``VolSurface.vols_at``: total variance across expiries at equal strike,
-        linear in strike within an expiry, flat beyond the ends. KeyError when ``symbol`` has no surface.
+        linear in strike within an expiry, flat beyond the ends. KeyError when there is no surface.
         """
         try:
             surface = self.surfaces[symbol]
         except KeyError:
             raise KeyError(f"no vol surface for {symbol!r}") from None
         exp = np.asarray(expiries, dtype="datetime64[s]")
-        t = np.datetime64(valuation_time, "s")
+        t = np.asarray(valuation_time, dtype="datetime64[s]")
         years = (exp - t).astype(np.float64) / SECONDS_PER_YEAR
-        return surface.vols_at(exp.astype("datetime64[D]"), years, strikes, t.astype("datetime64[D]"))
+        return surface.vols_at(
+            exp.astype("datetime64[D]"), years, strikes, t.astype("datetime64[D]")
+        )
 
-    def shocked(self, *, spot_pct: dict[str, float] | None = None,
-                spot_abs: dict[str, float] | None = None, vol_pts: float = 0.0,
-                vol_rel_pct: float = 0.0, rate_bp: float = 0.0) -> Market:
+    def shocked(
+        self,
+        *,
+        spot_pct: dict[str, float] | None = None,
+        spot_abs: dict[str, float] | None = None,
+        vol_pts: float = 0.0,
+        vol_rel_pct: float = 0.0,
+        rate_bp: float = 0.0,
+    ) -> Market:
         """A new market (``version`` + 1) with the given moves; this one is left unchanged.
 
         ``spot_pct`` / ``spot_abs`` move named spots by a percentage or by currency units;
@@ -199,11 +222,16 @@ class Market:
         surfaces = self.surfaces
         if vol_pts or vol_rel_pct:
             surfaces = {
-                sym: VolSurface(sf.expiries, sf.strikes,
-                                np.maximum(sf.vols * (1.0 + vol_rel_pct / 100.0) + vol_pts / 100.0, VOL_FLOOR))
+                sym: VolSurface(
+                    sf.expiries,
+                    sf.strikes,
+                    np.maximum(sf.vols * (1.0 + vol_rel_pct / 100.0) + vol_pts / 100.0, VOL_FLOOR),
+                )
                 for sym, sf in self.surfaces.items()
             }
         curves = self.curves
         if rate_bp:
             curves = {ccy: c.shifted(rate_bp) for ccy, c in self.curves.items()}
-        return replace(self, version=self.version + 1, spots=spots, surfaces=surfaces, curves=curves)
+        return replace(
+            self, version=self.version + 1, spots=spots, surfaces=surfaces, curves=curves
+        )

@@ -39,8 +39,19 @@ DEFAULT_T_REF_DAYS = 30.0
 WEIGHT_FLOOR_DAYS = 7.0
 """Expiries shorter than this are weighted as if this long, so √(T_ref/T) stays bounded (≤ 2.07)."""
 
-EXPOSURE_FIELDS = ("value", "delta_shares", "delta_cash", "gamma_1pct", "vega_pt", "theta_day",
-                   "rho_pct", "vanna_pt", "volga_pt", "beta_delta_cash", "weighted_vega_pt")
+EXPOSURE_FIELDS = (
+    "value",
+    "delta_shares",
+    "delta_cash",
+    "gamma_1pct",
+    "vega_pt",
+    "theta_day",
+    "rho_pct",
+    "vanna_pt",
+    "volga_pt",
+    "beta_delta_cash",
+    "weighted_vega_pt",
+)
 """Additive per-position desk-unit arrays of a ``BookValuation``, in ``ExposureRow`` order."""
 
 VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
@@ -100,15 +111,15 @@ class BookValuation:
     beta_delta_cash: np.ndarray
     weighted_vega_pt: np.ndarray
     greeks: UnitGreeks
-    units: np.ndarray             # quantity × multiplier, units of underlying per position (n,)
-    beta: np.ndarray              # beta of each position's underlying (n,)
-    vega_weight: np.ndarray       # √(T_ref/max(T, floor)) (n,), 0 for hedges
-    rho_unit: np.ndarray          # rho per unit per 1.00 of rate as composed for the desk (n,)
+    units: np.ndarray  # quantity × multiplier, units of underlying per position (n,)
+    beta: np.ndarray  # beta of each position's underlying (n,)
+    vega_weight: np.ndarray  # √(T_ref/max(T, floor)) (n,), 0 for hedges
+    rho_unit: np.ndarray  # rho per unit per 1.00 of rate as composed for the desk (n,)
     rate_moves_carry: np.ndarray  # bool (n,): carry b moves one for one with the rate
-    live: np.ndarray              # bool (n,): option with years > 0
-    settles_daily: np.ndarray     # bool (n,): futures hedge, value 0, P&L = units × Δprice
+    live: np.ndarray  # bool (n,): option with years > 0
+    settles_daily: np.ndarray  # bool (n,): futures hedge, value 0, P&L = units × Δprice
     underlying_spots: np.ndarray  # spot per underlying (n_u,), NaN when unmarked and unused
-    bucket_codes: np.ndarray      # int64 (n,) into ``bucket_labels``
+    bucket_codes: np.ndarray  # int64 (n,) into ``bucket_labels``
     bucket_labels: tuple[str, ...]
     t_ref_days: float = DEFAULT_T_REF_DAYS
     vega_unit: str = "pt"
@@ -162,8 +173,9 @@ class ExposureRow:
         return {name: getattr(self, name) for name in EXPOSURE_FIELDS}
 
 
-def _carry_and_rate(book: Book, market: Market, years: np.ndarray,
-                    options: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _carry_and_rate(
+    book: Book, market: Market, years: np.ndarray, options: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Rate (n,), carry (n,) and the rate-moves-carry mask (n,) from curves, kinds and yields."""
     und = book.underlyings
     n = len(book)
@@ -189,8 +201,12 @@ def _carry_and_rate(book: Book, market: Market, years: np.ndarray,
     return rate, carry, moves
 
 
-def expiry_buckets(expiries: np.ndarray, is_option: np.ndarray, valuation_time: np.datetime64,
-                   tz: object | None = None) -> tuple[np.ndarray, tuple[str, ...]]:
+def expiry_buckets(
+    expiries: np.ndarray,
+    is_option: np.ndarray,
+    valuation_time: np.datetime64,
+    tz: object | None = None,
+) -> tuple[np.ndarray, tuple[str, ...]]:
     """Expiry bucket of each position: codes (n,) into ordered labels.
 
     Buckets, by the expiry's desk-local date: "expired", "this week" (to the coming Sunday),
@@ -217,7 +233,9 @@ def expiry_buckets(expiries: np.ndarray, is_option: np.ndarray, valuation_time: 
         return (4, d.year), f"{d.year:04d}"
 
     names: dict[tuple[int, int], str] = {}
-    uniq, inverse = np.unique(np.where(is_option, expiries, np.datetime64("NaT")), return_inverse=True)
+    uniq, inverse = np.unique(
+        np.where(is_option, expiries, np.datetime64("NaT")), return_inverse=True
+    )
     per_unique: list[tuple[int, int]] = []
     for e in uniq:
         if np.isnat(e):
@@ -234,8 +252,14 @@ def expiry_buckets(expiries: np.ndarray, is_option: np.ndarray, valuation_time: 
     return codes, tuple(labels)
 
 
-def value_book(book: Book, market: Market, valuation_time: np.datetime64 | None = None, *,
-               vega_unit: str = "pt", t_ref_days: float = DEFAULT_T_REF_DAYS) -> BookValuation:
+def value_book(
+    book: Book,
+    market: Market,
+    valuation_time: np.datetime64 | None = None,
+    *,
+    vega_unit: str = "pt",
+    t_ref_days: float = DEFAULT_T_REF_DAYS,
+) -> BookValuation:
     """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
 
     Returns per-position arrays (n,) in desk units (see the module docstring). KeyError naming the
@@ -264,8 +288,21 @@ def value_book(book: Book, market: Market, valuation_time: np.datetime64 | None 
         rows = opt & (uidx == i)
         vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
 
-    g = {name: np.zeros(n) for name in ("price", "delta", "gamma", "vega", "theta", "rho",
-                                        "carry_rho", "vanna", "volga", "charm")}
+    g = {
+        name: np.zeros(n)
+        for name in (
+            "price",
+            "delta",
+            "gamma",
+            "vega",
+            "theta",
+            "rho",
+            "carry_rho",
+            "vanna",
+            "volga",
+            "charm",
+        )
+    }
     hedge = ~opt
     g["price"][hedge] = spot[hedge]
     g["delta"][hedge] = 1.0
@@ -274,19 +311,32 @@ def value_book(book: Book, market: Market, valuation_time: np.datetime64 | None 
         sign = np.where(book.is_call[expired], 1.0, -1.0)
         g["price"][expired] = np.maximum(sign * (spot[expired] - book.strikes[expired]), 0.0)
     if live.any():
-        res = engine.price_greeks(book.is_call[live], spot[live], book.strikes[live], years[live],
-                                  rate[live], carry[live], vol[live], american=book.american[live])
+        res = engine.price_greeks(
+            book.is_call[live],
+            spot[live],
+            book.strikes[live],
+            years[live],
+            rate[live],
+            carry[live],
+            vol[live],
+            american=book.american[live],
+        )
         for name in g:
             g[name][live] = np.asarray(getattr(res, name), dtype=np.float64)
     greeks = UnitGreeks(**{k: _ro(v) for k, v in g.items()})
 
     units = book.quantities * book.multipliers
     beta = und.betas[uidx] if n else np.zeros(0)
-    is_future_hedge = hedge & np.array([und.kinds[i] == "future" for i in range(len(und))],
-                                       dtype=bool)[uidx] if n else np.zeros(0, dtype=bool)
+    is_future_hedge = (
+        hedge & np.array([und.kinds[i] == "future" for i in range(len(und))], dtype=bool)[uidx]
+        if n
+        else np.zeros(0, dtype=bool)
+    )
     floor_years = WEIGHT_FLOOR_DAYS / 365.0
     with np.errstate(invalid="ignore", divide="ignore"):
-        weight = np.where(live, np.sqrt((t_ref_days / 365.0) / np.maximum(np.nan_to_num(years), floor_years)), 0.0)
+        weight = np.where(
+            live, np.sqrt((t_ref_days / 365.0) / np.maximum(np.nan_to_num(years), floor_years)), 0.0
+        )
     rho_unit = g["rho"] + np.where(moves, g["carry_rho"], 0.0)
 
     delta_shares = g["delta"] * units
@@ -309,14 +359,29 @@ def value_book(book: Book, market: Market, valuation_time: np.datetime64 | None 
     if expired.any():
         notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
     return BookValuation(
-        book=book, market=market, valuation_time=t,
-        spot=_ro(spot), years=_ro(years), rate=_ro(rate), carry=_ro(carry), vol=_ro(vol),
+        book=book,
+        market=market,
+        valuation_time=t,
+        spot=_ro(spot),
+        years=_ro(years),
+        rate=_ro(rate),
+        carry=_ro(carry),
+        vol=_ro(vol),
         **{k: _ro(v) for k, v in arrays.items()},
-        greeks=greeks, units=_ro(units), beta=_ro(beta), vega_weight=_ro(weight),
-        rho_unit=_ro(rho_unit), rate_moves_carry=_ro(moves), live=_ro(live),
+        greeks=greeks,
+        units=_ro(units),
+        beta=_ro(beta),
+        vega_weight=_ro(weight),
+        rho_unit=_ro(rho_unit),
+        rate_moves_carry=_ro(moves),
+        live=_ro(live),
         settles_daily=_ro(is_future_hedge),
-        underlying_spots=_ro(u_spots), bucket_codes=_ro(codes), bucket_labels=labels,
-        t_ref_days=float(t_ref_days), vega_unit=vega_unit, notes=tuple(notes),
+        underlying_spots=_ro(u_spots),
+        bucket_codes=_ro(codes),
+        bucket_labels=labels,
+        t_ref_days=float(t_ref_days),
+        vega_unit=vega_unit,
+        notes=tuple(notes),
     )
 
 
@@ -328,8 +393,40 @@ def _ro(a: np.ndarray) -> np.ndarray:
 
 def _sums(valuation: BookValuation, codes: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:
     """Each exposure array summed per group code, (n_groups,) per field."""
-    return {name: np.bincount(codes, weights=getattr(valuation, name), minlength=n_groups)
-            for name in EXPOSURE_FIELDS}
+    return {
+        name: np.bincount(codes, weights=getattr(valuation, name), minlength=n_groups)
+        for name in EXPOSURE_FIELDS
+    }
+
+
+def _exposure_row(
+    key: str,
+    label: str,
+    n_positions: int,
+    values: dict[str, float],
+    underlying: str | None = None,
+    spot: float | None = None,
+    index: int | None = None,
+) -> ExposureRow:
+    return ExposureRow(
+        key=key,
+        label=label,
+        n_positions=n_positions,
+        value=values["value"],
+        delta_shares=values["delta_shares"],
+        delta_cash=values["delta_cash"],
+        gamma_1pct=values["gamma_1pct"],
+        vega_pt=values["vega_pt"],
+        theta_day=values["theta_day"],
+        rho_pct=values["rho_pct"],
+        vanna_pt=values["vanna_pt"],
+        volga_pt=values["volga_pt"],
+        beta_delta_cash=values["beta_delta_cash"],
+        weighted_vega_pt=values["weighted_vega_pt"],
+        underlying=underlying,
+        spot=spot,
+        index=index,
+    )
 
 
 def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[ExposureRow]:
@@ -338,11 +435,20 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
     book = valuation.book
     und = book.underlyings
     if by == "position":
+        cols = {name: getattr(valuation, name).tolist() for name in EXPOSURE_FIELDS}
+        ids = book.contract_ids.tolist()
+        uidx = book.underlying_idx.tolist()
+        spots = valuation.spot.tolist()
         return [
-            ExposureRow(key=str(int(book.contract_ids[i])), label=book.labels[i], n_positions=1,
-                        **{name: float(getattr(valuation, name)[i]) for name in EXPOSURE_FIELDS},
-                        underlying=und.symbols[book.underlying_idx[i]], spot=float(valuation.spot[i]),
-                        index=i)
+            _exposure_row(
+                str(ids[i]),
+                book.labels[i],
+                1,
+                {k: c[i] for k, c in cols.items()},
+                underlying=und.symbols[uidx[i]],
+                spot=spots[i],
+                index=i,
+            )
             for i in range(len(book))
         ]
     if by == "underlying":
@@ -359,18 +465,28 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
     for j in range(n_groups):
         if counts[j] == 0:
             continue
-        extra: dict[str, object] = {}
+        values = {k: float(v[j]) for k, v in sums.items()}
         if by == "underlying":
-            extra = {"underlying": names[j], "spot": float(valuation.underlying_spots[j])}
-        rows.append(ExposureRow(key=names[j], label=names[j], n_positions=int(counts[j]),
-                                **{k: float(v[j]) for k, v in sums.items()}, index=j, **extra))  # type: ignore[arg-type]
+            rows.append(
+                _exposure_row(
+                    names[j],
+                    names[j],
+                    int(counts[j]),
+                    values,
+                    underlying=names[j],
+                    spot=float(valuation.underlying_spots[j]),
+                    index=j,
+                )
+            )
+        else:
+            rows.append(_exposure_row(names[j], names[j], int(counts[j]), values, index=j))
     return rows
 
 
 def total(valuation: BookValuation) -> ExposureRow:
     """The whole book's exposures in one row (label "total")."""
-    return ExposureRow(key="total", label="total", n_positions=len(valuation),
-                       **{name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS})
+    values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
+    return _exposure_row("total", "total", len(valuation), values)
 
 
 def beta_delta_index_units(valuation: BookValuation) -> float | None:

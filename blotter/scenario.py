@@ -85,7 +85,7 @@ EXAMPLES = (
 
 
 class MoveSyntaxError(ValueError):
-    """A malformed move: ``message`` says what is wrong; ``start``/``end`` index the offending word."""
+    """A malformed move: ``message`` says what is wrong; ``start``/``end`` index the bad word."""
 
     def __init__(self, message: str, start: int, end: int, text: str = "") -> None:
         super().__init__(message)
@@ -112,7 +112,7 @@ class SpotShift:
 
 @dataclass(frozen=True)
 class VolShift:
-    """One vol part: ``unit`` "pts" (vol points, 0.01) or "%" (relative); ``weighted`` by √(T_ref/T)."""
+    """One vol part: ``unit`` "pts" (0.01 each) or "%" (relative); ``weighted`` by √(T_ref/T)."""
 
     symbol: str | None
     amount: float
@@ -140,11 +140,19 @@ class Move:
         """The move in canonical text, e.g. ``spot -3% vol +2 days 1``."""
         words: list[str] = []
         for s in self.spot:
-            amt = f"={s.amount:g}" if s.unit == "level" else f"{s.amount:+g}{'%' if s.unit == '%' else ''}"
-            words.append(" ".join(w for w in (s.symbol, "spot", amt, "beta" if s.beta else None) if w))
+            amt = (
+                f"={s.amount:g}"
+                if s.unit == "level"
+                else f"{s.amount:+g}{'%' if s.unit == '%' else ''}"
+            )
+            words.append(
+                " ".join(w for w in (s.symbol, "spot", amt, "beta" if s.beta else None) if w)
+            )
         for v in self.vol:
             amt = f"{v.amount:+g}{'%' if v.unit == '%' else ''}"
-            words.append(" ".join(w for w in (v.symbol, "vol", amt, "weighted" if v.weighted else None) if w))
+            words.append(
+                " ".join(w for w in (v.symbol, "vol", amt, "weighted" if v.weighted else None) if w)
+            )
         if self.days:
             words.append(f"days {self.days:g}")
         if self.bdays:
@@ -154,13 +162,17 @@ class Move:
         return " ".join(words) or "no move"
 
     def as_dict(self) -> dict[str, Any]:
-        """Plain-data form (JSON output): text, spot and vol parts, days, bdays, rate_bp, vol rule."""
+        """Plain-data form (JSON): text, spot and vol parts, days, bdays, rate_bp, vol rule."""
         return {
             "text": self.text,
-            "spot": [{"underlying": s.symbol, "amount": s.amount, "unit": s.unit, "beta": s.beta}
-                     for s in self.spot],
-            "vol": [{"underlying": v.symbol, "amount": v.amount, "unit": v.unit, "weighted": v.weighted}
-                    for v in self.vol],
+            "spot": [
+                {"underlying": s.symbol, "amount": s.amount, "unit": s.unit, "beta": s.beta}
+                for s in self.spot
+            ],
+            "vol": [
+                {"underlying": v.symbol, "amount": v.amount, "unit": v.unit, "weighted": v.weighted}
+                for v in self.vol
+            ],
             "days": self.days,
             "bdays": self.bdays,
             "rate_bp": self.rate_bp,
@@ -208,7 +220,11 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
         if low not in _KEYWORDS:
             nxt = toks[k + 1][0].lower() if k + 1 < len(toks) else ""
             if low in ("beta", "weighted"):
-                where = "a spot % move (spot -3% beta)" if low == "beta" else "a vol points move (vol +2 weighted)"
+                where = (
+                    "a spot % move (spot -3% beta)"
+                    if low == "beta"
+                    else "a vol points move (vol +2 weighted)"
+                )
                 raise fail(f"'{word}' must follow {where}", k)
             elif nxt in ("spot", "vol") and _SYMBOL.match(word):
                 symbol = _resolve_symbol(word, symbols, fail, k)
@@ -219,15 +235,18 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
             elif nxt and (_NUMBER.match(nxt) or _LEVEL.match(nxt)):
                 raise fail(f"unknown part '{word}': expected spot, vol, days, bdays or rate", k)
             else:
-                raise fail(f"unknown word '{word}': expected spot, vol, days, bdays, rate, "
-                           "or an underlying before spot or vol", k)
+                raise fail(
+                    f"unknown word '{word}': expected spot, vol, days, bdays, rate, "
+                    "or an underlying before spot or vol",
+                    k,
+                )
         kw_at = k
         k += 1
         if k >= len(toks):
             raise fail(f"'{toks[kw_at][0]}' needs an amount, e.g. {_example(low)}", k)
         amount_word = toks[k][0]
         if low == "spot":
-            if (symbol in spots):
+            if symbol in spots:
                 raise fail(f"spot given twice for {symbol or 'every underlying'}", kw_at)
             lvl = _LEVEL.match(amount_word)
             if lvl:
@@ -290,16 +309,29 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
             sign, num, unit = _amount(amount_word, fail, k, "rate", allow=("bp", "%"))
             rate = sign * num * (100.0 if unit == "%" else 1.0)
             k += 1
-    return Move(text=text, spot=tuple(spots.values()), vol=tuple(vols.values()),
-                days=days or 0.0, bdays=bdays or 0, rate_bp=rate or 0.0)
+    return Move(
+        text=text,
+        spot=tuple(spots.values()),
+        vol=tuple(vols.values()),
+        days=days or 0.0,
+        bdays=bdays or 0,
+        rate_bp=rate or 0.0,
+    )
 
 
 def _example(keyword: str) -> str:
-    return {"spot": "spot -3%", "vol": "vol +2", "days": "days 3", "bdays": "bdays 1",
-            "rate": "rate +25bp"}[keyword]
+    return {
+        "spot": "spot -3%",
+        "vol": "vol +2",
+        "days": "days 3",
+        "bdays": "bdays 1",
+        "rate": "rate +25bp",
+    }[keyword]
 
 
-def _amount(word: str, fail: Any, k: int, part: str, allow: tuple[str, ...]) -> tuple[float, float, str]:
+def _amount(
+    word: str, fail: Any, k: int, part: str, allow: tuple[str, ...]
+) -> tuple[float, float, str]:
     """(sign, magnitude, unit) of a signed amount such as ``-3%``, ``+2.5`` or ``+25bp``."""
     m = _NUMBER.match(word)
     if not m:
@@ -310,8 +342,11 @@ def _amount(word: str, fail: Any, k: int, part: str, allow: tuple[str, ...]) -> 
     if unit not in allow:
         if part == "rate":
             raise fail(f"give rate moves in bp or %: rate {m.group('sign')}{m.group('num')}bp", k)
-        raise fail(f"'{unit}' is not a unit for {part}: use {m.group('sign')}{m.group('num')}% "
-                   f"or {m.group('sign')}{m.group('num')}", k)
+        raise fail(
+            f"'{unit}' is not a unit for {part}: use {m.group('sign')}{m.group('num')}% "
+            f"or {m.group('sign')}{m.group('num')}",
+            k,
+        )
     return (-1.0 if m.group("sign") == "-" else 1.0), float(m.group("num")), unit
 
 
@@ -353,10 +388,15 @@ class MoveRow:
     def as_dict(self) -> dict[str, Any]:
         """JSON form: full, estimate_1, estimate_2, error_1, error_2, the % errors, terms."""
         out: dict[str, Any] = {
-            "full": self.full, "estimate_1": self.estimate_1, "estimate_2": self.estimate_2,
-            "error_1": self.error_1, "error_2": self.error_2,
-            "error_1_pct": self.error_1_pct, "error_2_pct": self.error_2_pct,
-            "terms": dict(self.terms), "through_expiry": self.n_through_expiry,
+            "full": self.full,
+            "estimate_1": self.estimate_1,
+            "estimate_2": self.estimate_2,
+            "error_1": self.error_1,
+            "error_2": self.error_2,
+            "error_1_pct": self.error_1_pct,
+            "error_2_pct": self.error_2_pct,
+            "terms": dict(self.terms),
+            "through_expiry": self.n_through_expiry,
         }
         if self.underlying is not None:
             out = {"underlying": self.underlying, **out}
@@ -400,9 +440,9 @@ class ExpiringPosition:
 class _VolPlan:
     """A move's vol parts resolved per underlying: dσ_i = add + rel·σ_i + wadd·w_i (decimal)."""
 
-    add_u: np.ndarray     # (n_u,) unweighted points / 100
-    rel_u: np.ndarray     # (n_u,) relative change (−0.1 for −10%)
-    wadd_u: np.ndarray    # (n_u,) weighted points / 100, times √(T_ref/T)
+    add_u: np.ndarray  # (n_u,) unweighted points / 100
+    rel_u: np.ndarray  # (n_u,) relative change (−0.1 for −10%)
+    wadd_u: np.ndarray  # (n_u,) weighted points / 100, times √(T_ref/T)
 
     @property
     def is_zero(self) -> bool:
@@ -429,9 +469,9 @@ class MoveResult:
     full: np.ndarray
     through_expiry: np.ndarray
     notes: tuple[str, ...]
-    spot_move_u: np.ndarray       # Δspot per underlying (n_u,), currency
+    spot_move_u: np.ndarray  # Δspot per underlying (n_u,), currency
     vol_plan: _VolPlan
-    rate_move: float              # decimal
+    rate_move: float  # decimal
 
     @cached_property
     def dvol(self) -> np.ndarray:
@@ -441,12 +481,14 @@ class MoveResult:
     @cached_property
     def spot_after(self) -> np.ndarray:
         """Moved spot per position (n,)."""
-        return self.valuation.spot + self.spot_move_u[self.valuation.book.underlying_idx]
+        return np.asarray(
+            self.valuation.spot + self.spot_move_u[self.valuation.book.underlying_idx]
+        )
 
     @cached_property
     def vol_after(self) -> np.ndarray:
         """Moved vol per position (n,), NaN for hedges; sticky strike (each contract's own vol)."""
-        return self.valuation.vol + self.dvol
+        return np.asarray(self.valuation.vol + self.dvol)
 
     @cached_property
     def rate_after(self) -> np.ndarray:
@@ -478,21 +520,27 @@ class MoveResult:
     def estimate_1(self) -> np.ndarray:
         """First-order estimate per position (n,): delta + vega + theta + rho terms."""
         t = self.terms
-        return t["delta"] + t["vega"] + t["theta"] + t["rho"]
+        return np.asarray(t["delta"] + t["vega"] + t["theta"] + t["rho"])
 
     @cached_property
     def estimate_2(self) -> np.ndarray:
         """Second-order estimate per position (n,): first order + gamma + volga + vanna terms."""
         t = self.terms
-        return self.estimate_1 + t["gamma"] + t["volga"] + t["vanna"]
+        return np.asarray(self.estimate_1 + t["gamma"] + t["volga"] + t["vanna"])
 
     def position_rows(self) -> list[MoveRow]:
         """One ``MoveRow`` per position (book order)."""
         labels = self.valuation.book.labels
         terms = self.terms
-        return [_row(labels[i], float(self.full[i]), {k: float(v[i]) for k, v in terms.items()},
-                     int(self.through_expiry[i]))
-                for i in range(len(labels))]
+        return [
+            _row(
+                labels[i],
+                float(self.full[i]),
+                {k: float(v[i]) for k, v in terms.items()},
+                int(self.through_expiry[i]),
+            )
+            for i in range(len(labels))
+        ]
 
 
 class MoveError(ValueError):
@@ -503,13 +551,28 @@ def _pct(err: float, full: float) -> float:
     return 100.0 * err / abs(full) if full != 0.0 else float("nan")
 
 
-def _row(label: str, full: float, terms: dict[str, float], n_through: int = 0,
-         underlying: str | None = None) -> MoveRow:
+def _row(
+    label: str,
+    full: float,
+    terms: dict[str, float],
+    n_through: int = 0,
+    underlying: str | None = None,
+) -> MoveRow:
     e1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
     e2 = e1 + terms["gamma"] + terms["volga"] + terms["vanna"]
-    return MoveRow(label=label, full=full, estimate_1=e1, estimate_2=e2, error_1=full - e1,
-                   error_2=full - e2, error_1_pct=_pct(full - e1, full), error_2_pct=_pct(full - e2, full),
-                   terms=terms, n_through_expiry=n_through, underlying=underlying)
+    return MoveRow(
+        label=label,
+        full=full,
+        estimate_1=e1,
+        estimate_2=e2,
+        error_1=full - e1,
+        error_2=full - e2,
+        error_1_pct=_pct(full - e1, full),
+        error_2_pct=_pct(full - e2, full),
+        terms=terms,
+        n_through_expiry=n_through,
+        underlying=underlying,
+    )
 
 
 @dataclass(frozen=True, eq=False)
@@ -520,14 +583,14 @@ class _Prep:
     arrays of length n hold raw greeks × units per position; ``sum_*`` are per underlying (n_u,).
     """
 
-    live_idx: np.ndarray        # int64 (m,) option rows with years > 0
-    all_live: bool              # every position is a live option (no gathers needed)
-    is_call: np.ndarray         # (m,)
+    live_idx: np.ndarray  # int64 (m,) option rows with years > 0
+    all_live: bool  # every position is a live option (no gathers needed)
+    is_call: np.ndarray  # (m,)
     strike: np.ndarray
     years: np.ndarray
     american: np.ndarray
     any_american: bool
-    base_price: np.ndarray      # engine.price at the base inputs, per unit (m,)
+    base_price: np.ndarray  # engine.price at the base inputs, per unit (m,)
     spot_l: np.ndarray
     rate_l: np.ndarray
     carry_l: np.ndarray
@@ -535,11 +598,11 @@ class _Prep:
     weight_l: np.ndarray
     units_l: np.ndarray
     uidx_l: np.ndarray
-    carry_moves: np.ndarray     # float (m,): 1 where carry moves with the rate
+    carry_moves: np.ndarray  # float (m,): 1 where carry moves with the rate
     dead_idx: np.ndarray
     hedge_idx: np.ndarray
-    units: np.ndarray           # (n,)
-    delta_u: np.ndarray         # raw greeks × units (n,)
+    units: np.ndarray  # (n,)
+    delta_u: np.ndarray  # raw greeks × units (n,)
     gamma_u: np.ndarray
     vega_u: np.ndarray
     volga_u: np.ndarray
@@ -548,7 +611,7 @@ class _Prep:
     rho_u: np.ndarray
     uidx: np.ndarray
     n_u: int
-    present: np.ndarray         # bool (n_u,): underlying has positions
+    present: np.ndarray  # bool (n_u,): underlying has positions
     sums: dict[str, np.ndarray]  # per-underlying greek sums for the Taylor rows
     calendar: str
 
@@ -583,15 +646,31 @@ def prepare(valuation: BookValuation) -> _Prep:
     am = take(book.american)
     spot_l, rate_l, carry_l, vol_l = take(v.spot), take(v.rate), take(v.carry), take(v.vol)
     if live_idx.size:
-        base = np.asarray(engine.price(take(book.is_call), spot_l, take(book.strikes), take(v.years),
-                                       rate_l, carry_l, vol_l, american=am if am.any() else False),
-                          dtype=np.float64)
+        base = np.asarray(
+            engine.price(
+                take(book.is_call),
+                spot_l,
+                take(book.strikes),
+                take(v.years),
+                rate_l,
+                carry_l,
+                vol_l,
+                american=am if am.any() else False,
+            ),
+            dtype=np.float64,
+        )
     else:
         base = np.zeros(0)
     uidx = book.underlying_idx
-    arrays = {"delta": g.delta * units, "gamma": g.gamma * units, "vega": g.vega * units,
-              "volga": g.volga * units, "vanna": g.vanna * units, "theta": g.theta * units,
-              "rho": v.rho_unit * units}
+    arrays = {
+        "delta": g.delta * units,
+        "gamma": g.gamma * units,
+        "vega": g.vega * units,
+        "volga": g.volga * units,
+        "vanna": g.vanna * units,
+        "theta": g.theta * units,
+        "rho": v.rho_unit * units,
+    }
     sig = np.nan_to_num(v.vol)
     w = v.vega_weight
 
@@ -599,26 +678,52 @@ def prepare(valuation: BookValuation) -> _Prep:
         return np.bincount(uidx, weights=a, minlength=n_u)
 
     sums = {
-        "delta": per_u(arrays["delta"]), "gamma": per_u(arrays["gamma"]),
-        "theta": per_u(arrays["theta"]), "rho": per_u(arrays["rho"]),
-        "vega": per_u(arrays["vega"]), "vega_s": per_u(arrays["vega"] * sig),
+        "delta": per_u(arrays["delta"]),
+        "gamma": per_u(arrays["gamma"]),
+        "theta": per_u(arrays["theta"]),
+        "rho": per_u(arrays["rho"]),
+        "vega": per_u(arrays["vega"]),
+        "vega_s": per_u(arrays["vega"] * sig),
         "vega_w": per_u(arrays["vega"] * w),
-        "volga": per_u(arrays["volga"]), "volga_s": per_u(arrays["volga"] * sig * sig),
+        "volga": per_u(arrays["volga"]),
+        "volga_s": per_u(arrays["volga"] * sig * sig),
         "volga_w": per_u(arrays["volga"] * w * w),
-        "vanna": per_u(arrays["vanna"]), "vanna_s": per_u(arrays["vanna"] * sig),
+        "vanna": per_u(arrays["vanna"]),
+        "vanna_s": per_u(arrays["vanna"] * sig),
         "vanna_w": per_u(arrays["vanna"] * w),
         "hedge_units": per_u(np.where(book.is_option, 0.0, units)),
     }
     prep = _Prep(
-        live_idx=live_idx, all_live=all_live, is_call=take(book.is_call), strike=take(book.strikes),
-        years=take(v.years), american=am, any_american=bool(am.any()), base_price=base,
-        spot_l=spot_l, rate_l=rate_l, carry_l=carry_l, vol_l=vol_l, weight_l=take(w),
-        units_l=take(units), uidx_l=take(uidx),
+        live_idx=live_idx,
+        all_live=all_live,
+        is_call=take(book.is_call),
+        strike=take(book.strikes),
+        years=take(v.years),
+        american=am,
+        any_american=bool(am.any()),
+        base_price=base,
+        spot_l=spot_l,
+        rate_l=rate_l,
+        carry_l=carry_l,
+        vol_l=vol_l,
+        weight_l=take(w),
+        units_l=take(units),
+        uidx_l=take(uidx),
         carry_moves=take(v.rate_moves_carry).astype(np.float64),
-        dead_idx=np.flatnonzero(book.is_option & ~v.live), hedge_idx=np.flatnonzero(~book.is_option),
-        units=units, delta_u=arrays["delta"], gamma_u=arrays["gamma"], vega_u=arrays["vega"],
-        volga_u=arrays["volga"], vanna_u=arrays["vanna"], theta_u=arrays["theta"], rho_u=arrays["rho"],
-        uidx=uidx, n_u=n_u, present=np.bincount(uidx, minlength=n_u) > 0, sums=sums,
+        dead_idx=np.flatnonzero(book.is_option & ~v.live),
+        hedge_idx=np.flatnonzero(~book.is_option),
+        units=units,
+        delta_u=arrays["delta"],
+        gamma_u=arrays["gamma"],
+        vega_u=arrays["vega"],
+        volga_u=arrays["volga"],
+        vanna_u=arrays["vanna"],
+        theta_u=arrays["theta"],
+        rho_u=arrays["rho"],
+        uidx=uidx,
+        n_u=n_u,
+        present=np.bincount(uidx, minlength=n_u) > 0,
+        sums=sums,
         calendar=desk_calendar(valuation),
     )
     _PREP[valuation] = prep
@@ -654,8 +759,11 @@ def _spot_moves(valuation: BookValuation, move: Move) -> np.ndarray:
             i = und.index_of(s.symbol)
         except KeyError:
             raise MoveError(f"unknown underlying {s.symbol!r}") from None
-        s1[i] = s0[i] * (1.0 + s.amount / 100.0) if s.unit == "%" else (
-            s0[i] + s.amount if s.unit == "abs" else s.amount)
+        s1[i] = (
+            s0[i] * (1.0 + s.amount / 100.0)
+            if s.unit == "%"
+            else (s0[i] + s.amount if s.unit == "abs" else s.amount)
+        )
     used = prepare(valuation).present
     bad = used & ~(s1 > 0)
     if bad.any():
@@ -669,7 +777,7 @@ def _vol_plan(valuation: BookValuation, move: Move) -> _VolPlan:
     und = valuation.book.underlyings
     n_u = len(und)
     add, rel, wadd = np.zeros(n_u), np.zeros(n_u), np.zeros(n_u)
-    ordered = sorted(move.vol, key=lambda part: part.symbol is not None)   # general first
+    ordered = sorted(move.vol, key=lambda part: part.symbol is not None)  # general first
     for part in ordered:
         if part.symbol is None:
             sel: slice | int = slice(None)
@@ -752,16 +860,24 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     through_l = t_after <= 0 if dt else np.zeros(m, dtype=bool)
     am = p.american if p.any_american else False
     if m and not through_l.any():
-        new_price = np.asarray(engine.price(p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am))
+        new_price = np.asarray(
+            engine.price(p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am)
+        )
     elif m:
         new_price = np.empty(m)
         a = np.flatnonzero(~through_l)
         if a.size:
             s1a = np.broadcast_to(s1, (m,))[a]
             new_price[a] = engine.price(
-                p.is_call[a], s1a, p.strike[a], t_after[a], np.broadcast_to(r1, (m,))[a],
-                np.broadcast_to(b1, (m,))[a], np.broadcast_to(vol1, (m,))[a],
-                american=p.american[a] if p.american[a].any() else False)
+                p.is_call[a],
+                s1a,
+                p.strike[a],
+                t_after[a],
+                np.broadcast_to(r1, (m,))[a],
+                np.broadcast_to(b1, (m,))[a],
+                np.broadcast_to(vol1, (m,))[a],
+                american=p.american[a] if p.american[a].any() else False,
+            )
         e = np.flatnonzero(through_l)
         sign = np.where(p.is_call[e], 1.0, -1.0)
         new_price[e] = np.maximum(sign * (np.broadcast_to(s1, (m,))[e] - p.strike[e]), 0.0)
@@ -772,14 +888,16 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         full = full_l
         full_u = np.bincount(p.uidx, weights=full, minlength=p.n_u)
     else:
-        full = ds_u[p.uidx] * p.units                   # hedges: units × dS
+        full = ds_u[p.uidx] * p.units  # hedges: units × dS
         full[p.live_idx] = full_l
         if p.dead_idx.size:
             d = p.dead_idx
             sign = np.where(v.book.is_call[d], 1.0, -1.0)
             k = v.book.strikes[d]
             s_new = v.spot[d] + ds_u[p.uidx[d]]
-            full[d] = (np.maximum(sign * (s_new - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)) * p.units[d]
+            full[d] = (
+                np.maximum(sign * (s_new - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)
+            ) * p.units[d]
         full_u = np.bincount(p.uidx, weights=full, minlength=p.n_u)
 
     through = np.zeros(n, dtype=bool)
@@ -807,32 +925,54 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     symbols = v.book.underlyings.symbols
     present = np.flatnonzero(p.present)
     by_u = [
-        _row(symbols[j], float(full_u[j]), {t: float(res_terms[t][j]) for t in TERM_NAMES},
-             int(n_through_u[j]), underlying=symbols[j])
+        _row(
+            symbols[j],
+            float(full_u[j]),
+            {t: float(res_terms[t][j]) for t in TERM_NAMES},
+            int(n_through_u[j]),
+            underlying=symbols[j],
+        )
         for j in present
     ]
-    total_row = _row("total", float(full_u.sum()), {t: float(res_terms[t].sum()) for t in TERM_NAMES},
-                     int(n_through_u.sum()))
+    total_row = _row(
+        "total",
+        float(full_u.sum()),
+        {t: float(res_terms[t].sum()) for t in TERM_NAMES},
+        int(n_through_u.sum()),
+    )
 
     result = MoveResult(
-        move=move, valuation=v, time_after=t1, roll_years=dt, total=total_row, by_underlying=by_u,
-        expiring=[], full=full, through_expiry=through, notes=(), spot_move_u=ds_u, vol_plan=plan,
+        move=move,
+        valuation=v,
+        time_after=t1,
+        roll_years=dt,
+        total=total_row,
+        by_underlying=by_u,
+        expiring=[],
+        full=full,
+        through_expiry=through,
+        notes=(),
+        spot_move_u=ds_u,
+        vol_plan=plan,
         rate_move=dr,
     )
     notes: list[str] = []
     if through.any():
         expiring = _expiring(result, np.flatnonzero(through))
         object.__setattr__(result, "expiring", expiring)
-        notes.append(f"{len(expiring)} option position(s) expire inside the roll: settled at intrinsic,"
-                     " their estimate is not meaningful")
+        notes.append(
+            f"{len(expiring)} option position(s) expire inside the roll: settled at intrinsic,"
+            " their estimate is not meaningful"
+        )
     if floored:
         notes.append(f"some vols floored at {VOL_FLOOR * 100:g} vol points")
     object.__setattr__(result, "notes", tuple(notes))
     return result
 
 
-def _terms_per_underlying_exact(v: BookValuation, p: _Prep, ds_u: np.ndarray, plan: _VolPlan,
-                                dt: float, dr: float) -> dict[str, np.ndarray]:
+def _terms_per_underlying_exact(
+    v: BookValuation, p: _Prep, ds_u: np.ndarray, plan: _VolPlan, dt: float, dr: float
+) -> dict[str, np.ndarray]:
     """Per-underlying terms from per-position arrays (used when the vol floor bites)."""
     dv = _dvol_all(v, p, plan)
     vol1 = np.where(v.live, np.maximum(np.nan_to_num(v.vol) + dv, VOL_FLOOR), 0.0)
@@ -843,9 +983,13 @@ def _terms_per_underlying_exact(v: BookValuation, p: _Prep, ds_u: np.ndarray, pl
         return np.bincount(p.uidx, weights=a, minlength=p.n_u)
 
     return {
-        "delta": per_u(p.delta_u * ds), "gamma": per_u(0.5 * p.gamma_u * ds * ds),
-        "vega": per_u(p.vega_u * dv), "volga": per_u(0.5 * p.volga_u * dv * dv),
-        "vanna": per_u(p.vanna_u * ds * dv), "theta": per_u(p.theta_u * dt), "rho": per_u(p.rho_u * dr),
+        "delta": per_u(p.delta_u * ds),
+        "gamma": per_u(0.5 * p.gamma_u * ds * ds),
+        "vega": per_u(p.vega_u * dv),
+        "volga": per_u(0.5 * p.volga_u * dv * dv),
+        "vanna": per_u(p.vanna_u * ds * dv),
+        "theta": per_u(p.theta_u * dt),
+        "rho": per_u(p.rho_u * dr),
     }
 
 
@@ -866,13 +1010,27 @@ def _expiring(res: MoveResult, rows: np.ndarray) -> list[ExpiringPosition]:
         itm = intrinsic > 0
         cash = bool(book.cash_settled[i])
         delivered = 0.0 if (cash or not itm) else (units if call else -units)
-        out.append(ExpiringPosition(
-            label=book.labels[i], index=i, underlying=book.underlyings.symbols[book.underlying_idx[i]],
-            is_call=call, strike=k, spot_after=s, quantity=float(book.quantities[i]),
-            multiplier=float(book.multipliers[i]), intrinsic=intrinsic, settlement=intrinsic * units,
-            distance_pct=dist, in_the_money=itm, pin_risk=abs(dist) <= PIN_BAND_PCT, cash_settled=cash,
-            delivered_units=delivered, full=float(res.full[i]), estimate_2=float(est2[i]),
-        ))
+        out.append(
+            ExpiringPosition(
+                label=book.labels[i],
+                index=i,
+                underlying=book.underlyings.symbols[book.underlying_idx[i]],
+                is_call=call,
+                strike=k,
+                spot_after=s,
+                quantity=float(book.quantities[i]),
+                multiplier=float(book.multipliers[i]),
+                intrinsic=intrinsic,
+                settlement=intrinsic * units,
+                distance_pct=dist,
+                in_the_money=itm,
+                pin_risk=abs(dist) <= PIN_BAND_PCT,
+                cash_settled=cash,
+                delivered_units=delivered,
+                full=float(res.full[i]),
+                estimate_2=float(est2[i]),
+            )
+        )
     return out
 
 
@@ -902,9 +1060,13 @@ class Ladder:
     rule: str = STICKY_RULE
 
 
-def ladder(valuation: BookValuation, spot_pcts: Sequence[float] = DEFAULT_SPOT_PCTS,
-           vol_pts: Sequence[float] = DEFAULT_VOL_PTS, days: float = 0.0,
-           chunk: int | None = None) -> Ladder:
+def ladder(
+    valuation: BookValuation,
+    spot_pcts: Sequence[float] = DEFAULT_SPOT_PCTS,
+    vol_pts: Sequence[float] = DEFAULT_VOL_PTS,
+    days: float = 0.0,
+    chunk: int | None = None,
+) -> Ladder:
     """Full revaluation P&L of every (spot %, vol pts) cell in one broadcast pass, chunked.
 
     Each cell moves every spot by the same % and every vol by the same points (sticky strike),
@@ -948,7 +1110,13 @@ def ladder(valuation: BookValuation, spot_pcts: Sequence[float] = DEFAULT_SPOT_P
     step = chunk or max(256, LADDER_CHUNK_CELLS // n_cells)
     years1 = p.years - dt
     n_through = int(np.count_nonzero(years1 <= 0))
-    spot_l, rate_l, carry_l, vol_l, units_l = v.spot[li], v.rate[li], v.carry[li], v.vol[li], p.units[li]
+    spot_l, rate_l, carry_l, vol_l, units_l = (
+        v.spot[li],
+        v.rate[li],
+        v.carry[li],
+        v.vol[li],
+        p.units[li],
+    )
     shock_s = (1.0 + rel)[:, None, None]
     shock_v = dvol[None, :, None]
     for a in range(0, m, step):
@@ -964,19 +1132,24 @@ def ladder(valuation: BookValuation, spot_pcts: Sequence[float] = DEFAULT_SPOT_P
             s1 = spot_l[sl][e][None, :] * (1.0 + rel[:, None])
             intr = np.maximum(sign[None, :] * (s1 - k[None, :]), 0.0)
             full += ((intr - p.base_price[sl][e][None, :]) @ u_c[e])[:, None]
-            keep = np.flatnonzero(alive)
+            keep: np.ndarray | slice = np.flatnonzero(alive)
         else:
             keep = slice(None)
         am = p.american[sl][keep]
         prices = engine.price(
-            p.is_call[sl][keep][None, None, :], spot_l[sl][keep][None, None, :] * shock_s,
-            p.strike[sl][keep][None, None, :], t_c[keep][None, None, :],
-            rate_l[sl][keep][None, None, :], carry_l[sl][keep][None, None, :],
+            p.is_call[sl][keep][None, None, :],
+            spot_l[sl][keep][None, None, :] * shock_s,
+            p.strike[sl][keep][None, None, :],
+            t_c[keep][None, None, :],
+            rate_l[sl][keep][None, None, :],
+            carry_l[sl][keep][None, None, :],
             np.maximum(vol_l[sl][keep][None, None, :] + shock_v, VOL_FLOOR),
             american=am[None, None, :] if am.any() else False,
         )
         cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
-        full += ((cells @ u_c[keep]) - float(np.dot(p.base_price[sl][keep], u_c[keep]))).reshape(n_s, n_v)
+        full += ((cells @ u_c[keep]) - float(np.dot(p.base_price[sl][keep], u_c[keep]))).reshape(
+            n_s, n_v
+        )
 
     # Estimate from summed greeks: the moves are the same for every position in a cell.
     s_all = v.spot
@@ -990,9 +1163,18 @@ def ladder(valuation: BookValuation, spot_pcts: Sequence[float] = DEFAULT_SPOT_P
     est1 = np.broadcast_to(r_ * d1 + dv_ * vg + th * dt, (n_s, n_v)).copy()
     est2 = est1 + 0.5 * g2 * r_ * r_ + 0.5 * vo * dv_ * dv_ + va * r_ * dv_
     worst = np.unravel_index(int(np.argmin(full)), full.shape)
-    return Ladder(spot_pcts=sp, vol_pts=vp, days=float(days), full=full, estimate=est2,
-                  estimate_1=est1, error=full - est2, worst=(int(worst[0]), int(worst[1])),
-                  time_after=t1, n_through_expiry=n_through)
+    return Ladder(
+        spot_pcts=sp,
+        vol_pts=vp,
+        days=float(days),
+        full=full,
+        estimate=est2,
+        estimate_1=est1,
+        error=full - est2,
+        worst=(int(worst[0]), int(worst[1])),
+        time_after=t1,
+        n_through_expiry=n_through,
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1020,9 +1202,14 @@ class ExplainRow:
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form."""
-        out: dict[str, Any] = {"actual": self.actual, "terms": dict(self.terms),
-                               "explained": self.explained, "unexplained": self.unexplained,
-                               "new_trades": self.new_trades, "total": self.total}
+        out: dict[str, Any] = {
+            "actual": self.actual,
+            "terms": dict(self.terms),
+            "explained": self.explained,
+            "unexplained": self.unexplained,
+            "new_trades": self.new_trades,
+            "total": self.total,
+        }
         if self.underlying is not None:
             out = {"underlying": self.underlying, **out}
         return out
@@ -1052,17 +1239,23 @@ def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
     return s.marked_at
 
 
-def _pick_sets(store: Any, from_set: int | str | None,
-               to_set: int | str | None) -> tuple[Any, Any, Any, Any]:
+def _pick_sets(
+    store: Any, from_set: int | str | None, to_set: int | str | None
+) -> tuple[Any, Any, Any, Any]:
     """(start set, end set or "now", start time, end time or None) of an explain.
 
     Defaults: the last two closes in force (a corrected close is replaced by its correction, which
     keeps the original close's time); with only ``to_set`` given, the close before it.
     """
     everything = {s.id: s for s in store.mark_sets()}
-    closes = sorted((s for s in everything.values()
-                     if s.kind == "close" and getattr(s, "superseded_by", None) is None),
-                    key=lambda s: (_instant(_close_time(s, everything)), s.id))
+    closes = sorted(
+        (
+            s
+            for s in everything.values()
+            if s.kind == "close" and getattr(s, "superseded_by", None) is None
+        ),
+        key=lambda s: (_instant(_close_time(s, everything)), s.id),
+    )
 
     def get(x: int | str, name: str) -> Any:
         try:
@@ -1073,8 +1266,10 @@ def _pick_sets(store: Any, from_set: int | str | None,
     to: Any
     if to_set is None and from_set is None:
         if len(closes) < 2:
-            raise ValueError(f"explain needs two close mark sets; the book has {len(closes)} "
-                             "(give --from, and --to now for the marks in force)")
+            raise ValueError(
+                f"explain needs two close mark sets; the book has {len(closes)} "
+                "(give --from, and --to now for the marks in force)"
+            )
         frm, to = closes[-2], closes[-1]
     else:
         if to_set is None or (isinstance(to_set, str) and to_set.lower() in ("now", "live")):
@@ -1083,8 +1278,11 @@ def _pick_sets(store: Any, from_set: int | str | None,
             to = get(to_set, "--to")
         if from_set is None:
             end_t = None if to == "now" else _instant(_close_time(to, everything))
-            before = [s for s in closes if s is not to
-                      and (end_t is None or _instant(_close_time(s, everything)) < end_t)]
+            before = [
+                s
+                for s in closes
+                if s is not to and (end_t is None or _instant(_close_time(s, everything)) < end_t)
+            ]
             if not before:
                 raise ValueError("no close mark set before the end set (give --from)")
             frm = before[-1]
@@ -1096,10 +1294,12 @@ def _pick_sets(store: Any, from_set: int | str | None,
 
 
 def _instant(x: Any) -> np.datetime64:
-    return cal.to_instant(x) if not isinstance(x, np.datetime64) else np.datetime64(x, "s")
+    return cal.to_instant(x)
 
 
-def explain(store: Any, from_set: int | str | None = None, to_set: int | str | None = None) -> Explain:
+def explain(
+    store: Any, from_set: int | str | None = None, to_set: int | str | None = None
+) -> Explain:
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
 
@@ -1149,19 +1349,23 @@ def explain(store: Any, from_set: int | str | None = None, to_set: int | str | N
         tp = np.asarray(trade_prices, dtype=np.float64)
         pnl = np.where(tv.settles_daily, (tv.spot - tp) * tv.units, tv.value - tp * tv.units)
         for j, s in enumerate(trades.underlyings.symbols):
-            rows = trades.underlying_idx == j
-            if not rows.any():
+            in_u = trades.underlying_idx == j
+            if not in_u.any():
                 continue
             if s in sym:
-                new_pnl_u[sym.index(s)] += float(pnl[rows].sum())
+                new_pnl_u[sym.index(s)] += float(pnl[in_u].sum())
             else:
-                notes.append(f"new trades in {s} (not held at the start): {float(pnl[rows].sum()):.2f}")
-                new_pnl_u = np.append(new_pnl_u, float(pnl[rows].sum()))
+                notes.append(
+                    f"new trades in {s} (not held at the start): {float(pnl[in_u].sum()):.2f}"
+                )
+                new_pnl_u = np.append(new_pnl_u, float(pnl[in_u].sum()))
                 sym = sym + (s,)
     expired = held.is_option & start.live & ~end.live
     if expired.any():
-        notes.append(f"{int(expired.sum())} option position(s) expired in the period: valued at "
-                     "intrinsic at the end, their estimate is not meaningful")
+        notes.append(
+            f"{int(expired.sum())} option position(s) expired in the period: valued at "
+            "intrinsic at the end, their estimate is not meaningful"
+        )
 
     rows: list[ExplainRow] = []
     idx = held.underlying_idx
@@ -1169,17 +1373,45 @@ def explain(store: Any, from_set: int | str | None = None, to_set: int | str | N
         mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
         if not mask.any() and new_pnl_u[j] == 0:
             continue
-        rows.append(_explain_row(s, float(actual[mask].sum()),
-                                 {k: float(v[mask].sum()) for k, v in terms.items()}, float(new_pnl_u[j]), s))
-    tot = _explain_row("total", float(actual.sum()), {k: float(v.sum()) for k, v in terms.items()},
-                       float(new_pnl_u.sum()))
-    return Explain(from_set=frm, to_set=to, from_time=t0, to_time=t1, by_underlying=rows, total=tot,
-                   start=start, end=end, notes=tuple(notes))
+        rows.append(
+            _explain_row(
+                s,
+                float(actual[mask].sum()),
+                {k: float(v[mask].sum()) for k, v in terms.items()},
+                float(new_pnl_u[j]),
+                s,
+            )
+        )
+    tot = _explain_row(
+        "total",
+        float(actual.sum()),
+        {k: float(v.sum()) for k, v in terms.items()},
+        float(new_pnl_u.sum()),
+    )
+    return Explain(
+        from_set=frm,
+        to_set=to,
+        from_time=t0,
+        to_time=t1,
+        by_underlying=rows,
+        total=tot,
+        start=start,
+        end=end,
+        notes=tuple(notes),
+    )
 
 
-def _explain_row(label: str, actual: float, terms: dict[str, float], new: float,
-                 underlying: str | None = None) -> ExplainRow:
+def _explain_row(
+    label: str, actual: float, terms: dict[str, float], new: float, underlying: str | None = None
+) -> ExplainRow:
     explained = float(sum(terms.values()))
-    return ExplainRow(label=label, actual=actual, terms=terms, explained=explained,
-                      unexplained=actual - explained, new_trades=new, total=actual + new,
-                      underlying=underlying)
+    return ExplainRow(
+        label=label,
+        actual=actual,
+        terms=terms,
+        explained=explained,
+        unexplained=actual - explained,
+        new_trades=new,
+        total=actual + new,
+        underlying=underlying,
+    )

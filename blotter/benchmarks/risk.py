@@ -17,7 +17,8 @@ Where QuantLib is installed, the reference is its per-option loop (AnalyticEurop
 from __future__ import annotations
 
 import tracemalloc
-from datetime import datetime, timezone
+from datetime import UTC, datetime
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -31,18 +32,24 @@ MOVE = "spot -3% vol +2 days 1"
 """The what-if timed."""
 
 
-def synthetic_book(n: int, n_underlyings: int = 50, american_share: float = 0.0,
-                   seed: int = 11) -> tuple[Any, Any]:
-    """A (Book, Market) of ``n`` positions on fictitious underlyings: options plus one hedge per name."""
+def synthetic_book(
+    n: int, n_underlyings: int = 50, american_share: float = 0.0, seed: int = 11
+) -> tuple[Any, Any]:
+    """A (Book, Market) of ``n`` positions on fictitious names: options, one hedge per name."""
     from blotter.book import Book, Underlyings
     from blotter.market import Market, RateCurve, VolSurface
 
     rng = np.random.default_rng(seed)
     symbols = ("SYNIDX",) + tuple(f"SYN{i:02d}" for i in range(n_underlyings - 1))
     kinds = ("index",) + ("stock",) * (n_underlyings - 1)
-    und = Underlyings(symbols=symbols, kinds=kinds, currencies=("USD",) * n_underlyings,
-                      betas=np.concatenate([[1.0], rng.uniform(0.5, 1.6, n_underlyings - 1)]),
-                      div_yields=rng.uniform(0.0, 0.03, n_underlyings), calendars=("NYSE",) * n_underlyings)
+    und = Underlyings(
+        symbols=symbols,
+        kinds=kinds,
+        currencies=("USD",) * n_underlyings,
+        betas=np.concatenate([[1.0], rng.uniform(0.5, 1.6, n_underlyings - 1)]),
+        div_yields=rng.uniform(0.0, 0.03, n_underlyings),
+        calendars=("NYSE",) * n_underlyings,
+    )
     spots = np.concatenate([[4500.0], rng.uniform(20, 500, n_underlyings - 1)])
     n_hedge = min(n_underlyings, n)
     n_opt = n - n_hedge
@@ -54,10 +61,16 @@ def synthetic_book(n: int, n_underlyings: int = 50, american_share: float = 0.0,
     strikes = np.where(is_opt, np.round(spots[uidx] * rng.uniform(0.7, 1.3, n), 1), np.nan)
     american = is_opt & (rng.random(n) < american_share)
     book = Book(
-        name="SYNTHETIC", underlyings=und, reference_index="SYNIDX",
-        contract_ids=np.arange(1, n + 1), labels=tuple(f"syn{i}" for i in range(n)),
-        underlying_idx=uidx, is_option=is_opt, is_call=is_opt & (rng.random(n) < 0.5),
-        american=american, strikes=strikes,
+        name="SYNTHETIC",
+        underlyings=und,
+        reference_index="SYNIDX",
+        contract_ids=np.arange(1, n + 1),
+        labels=tuple(f"syn{i}" for i in range(n)),
+        underlying_idx=uidx,
+        is_option=is_opt,
+        is_call=is_opt & (rng.random(n) < 0.5),
+        american=american,
+        strikes=strikes,
         expiries=np.where(is_opt, expiries, np.datetime64("NaT")),
         multipliers=np.where(is_opt, 100.0, 1.0),
         quantities=np.where(is_opt, rng.integers(-50, 51, n) + 0.5, 1000.0),
@@ -69,12 +82,23 @@ def synthetic_book(n: int, n_underlyings: int = 50, american_share: float = 0.0,
         atm = rng.uniform(0.15, 0.45)
         e = np.repeat(slice_dates, ks.size)
         k = np.tile(ks, slice_dates.size)
-        vols = atm * (1.0 - 0.4 * (k / spots[i] - 1.0)) * np.repeat(np.linspace(1.1, 0.9, slice_dates.size), ks.size)
+        vols = (
+            atm
+            * (1.0 - 0.4 * (k / spots[i] - 1.0))
+            * np.repeat(np.linspace(1.1, 0.9, slice_dates.size), ks.size)
+        )
         surfaces[sym] = VolSurface(e, k, vols)
-    market = Market(version=1, marks_as_of=datetime(2026, 12, 1, 15, 0, tzinfo=timezone.utc),
-                    spots=dict(zip(symbols, spots.tolist(), strict=True)), surfaces=surfaces,
-                    curves={"USD": RateCurve(np.array([1.0, 90.0, 365.0, 730.0]),
-                                             np.array([0.030, 0.031, 0.033, 0.035]))})
+    market = Market(
+        version=1,
+        marks_as_of=datetime(2026, 12, 1, 15, 0, tzinfo=UTC),
+        spots=dict(zip(symbols, spots.tolist(), strict=True)),
+        surfaces=surfaces,
+        curves={
+            "USD": RateCurve(
+                np.array([1.0, 90.0, 365.0, 730.0]), np.array([0.030, 0.031, 0.033, 0.035])
+            )
+        },
+    )
     return book, market
 
 
@@ -93,11 +117,15 @@ def _quantlib_ns_per_option(sample: int = 2000) -> float | None:
     for _ in range(sample):
         s = ql.SimpleQuote(float(rng.uniform(50, 150)))
         proc = ql.BlackScholesMertonProcess(
-            ql.QuoteHandle(s), ql.YieldTermStructureHandle(ql.FlatForward(today, 0.01, dc)),
+            ql.QuoteHandle(s),
+            ql.YieldTermStructureHandle(ql.FlatForward(today, 0.01, dc)),
             ql.YieldTermStructureHandle(ql.FlatForward(today, 0.03, dc)),
-            ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), 0.25, dc)))
-        opt = ql.VanillaOption(ql.PlainVanillaPayoff(ql.Option.Call, 100.0),
-                               ql.EuropeanExercise(today + int(rng.integers(7, 730))))
+            ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), 0.25, dc)),
+        )
+        opt = ql.VanillaOption(
+            ql.PlainVanillaPayoff(ql.Option.Call, 100.0),
+            ql.EuropeanExercise(today + int(rng.integers(7, 730))),
+        )
         opt.setPricingEngine(ql.AnalyticEuropeanEngine(proc))
         options.append(opt)
         quotes.append(s)
@@ -114,7 +142,14 @@ def _quantlib_ns_per_option(sample: int = 2000) -> float | None:
 def run(quick: bool) -> list[Result]:
     """Time the what-if and the ladder; ``quick`` uses small books and few repetitions."""
     from blotter.risk import value_book
-    from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, apply_move, ladder, parse_move, prepare
+    from blotter.scenario import (
+        DEFAULT_SPOT_PCTS,
+        DEFAULT_VOL_PTS,
+        apply_move,
+        ladder,
+        parse_move,
+        prepare,
+    )
 
     repeat = 3 if quick else 11
     ql_ns = _quantlib_ns_per_option(200 if quick else 2000)
@@ -123,33 +158,49 @@ def run(quick: bool) -> list[Result]:
     results: list[Result] = []
 
     move = parse_move(MOVE)
-    for label, share, n, target_ms in (("whatif", 0.0, 100_000, 10.0),
-                                       ("whatif american", 0.2, 100_000, None)):
+    for label, share, n, target_ms in (
+        ("whatif", 0.0, 100_000, 10.0),
+        ("whatif american", 0.2, 100_000, None),
+    ):
         n = 5_000 if quick else n
         book, market = synthetic_book(n, american_share=share)
         v = value_book(book, market, VALUATION)
         prepare(v)
-        secs = timed(lambda v=v: apply_move(v, move), repeat=repeat)
+        secs = timed(partial(apply_move, v, move), repeat=repeat)
         med_ns = float(np.median(secs)) * 1e9 / n
-        results.append(result_from(
-            label, n, secs, reference=ref, ratio=(ql_ns / med_ns) if ql_ns else None,
-            target_ns=target_ms * 1e6 / n if target_ms and not quick else None,
-            note=f"'{MOVE}', {share:.0%} American, incl. aggregation"))
+        results.append(
+            result_from(
+                label,
+                n,
+                secs,
+                reference=ref,
+                ratio=(ql_ns / med_ns) if ql_ns else None,
+                target_ns=target_ms * 1e6 / n if target_ms and not quick else None,
+                note=f"'{MOVE}', {share:.0%} American, incl. aggregation",
+            )
+        )
 
     for n, target_ms in ((10_000, 35.0), (100_000, 350.0)):
         n = n // 20 if quick else n
         book, market = synthetic_book(n)
         v = value_book(book, market, VALUATION)
         prepare(v)
-        secs = timed(lambda v=v: ladder(v), repeat=max(3, repeat // 2))
+        secs = timed(partial(ladder, v), repeat=max(3, repeat // 2))
         med_ns = float(np.median(secs)) * 1e9 / n
         tracemalloc.start()
         ladder(v)
         peak_mb = tracemalloc.get_traced_memory()[1] / 2**20
         tracemalloc.stop()
-        results.append(result_from(
-            "ladder", n, secs, reference=ref, ratio=(ql_ns * cells / med_ns) if ql_ns else None,
-            target_ns=target_ms * 1e6 / n if not quick else None,
-            note=f"{len(DEFAULT_SPOT_PCTS)}×{len(DEFAULT_VOL_PTS)} sticky strike, chunked, "
-                 f"peak {peak_mb:.0f} MB allocated"))
+        results.append(
+            result_from(
+                "ladder",
+                n,
+                secs,
+                reference=ref,
+                ratio=(ql_ns * cells / med_ns) if ql_ns else None,
+                target_ns=target_ms * 1e6 / n if not quick else None,
+                note=f"{len(DEFAULT_SPOT_PCTS)}×{len(DEFAULT_VOL_PTS)} sticky strike, chunked, "
+                f"peak {peak_mb:.0f} MB allocated",
+            )
+        )
     return results

@@ -1,4 +1,4 @@
-"""``blotter risk``, ``whatif``, ``ladder`` and ``explain``: the risk layer's reports for people and scripts.
+"""``blotter risk``, ``whatif``, ``ladder``, ``explain``: risk reports for people and scripts.
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
 now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in the book's currency,
@@ -25,8 +25,18 @@ from blotter.commands.common import (
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow
 
-EXPOSURE_KEYS = ("value", "delta_shares", "delta_cash", "gamma_1pct", "vega_pt", "theta_day",
-                 "rho_pct", "vanna_pt", "volga_pt", "beta_delta_cash")
+EXPOSURE_KEYS = (
+    "value",
+    "delta_shares",
+    "delta_cash",
+    "gamma_1pct",
+    "vega_pt",
+    "theta_day",
+    "rho_pct",
+    "vanna_pt",
+    "volga_pt",
+    "beta_delta_cash",
+)
 """Exposure keys of ``blotter risk --json`` rows, in order (outside checks read these)."""
 
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
@@ -47,15 +57,22 @@ def _money(x: float, places: int = 0) -> str:
     return f"{x:,.{places}f}"
 
 
-def print_table(columns: Sequence[str], rows: Sequence[Sequence[Any]], title: str | None = None,
-                right: Sequence[bool] | None = None) -> None:
-    """Print an aligned plain-text table; cells are never cut, numbers right-aligned per ``right``."""
+def print_table(
+    columns: Sequence[str],
+    rows: Sequence[Sequence[Any]],
+    title: str | None = None,
+    right: Sequence[bool] | None = None,
+) -> None:
+    """Print an aligned plain-text table; cells are never cut; ``right`` marks numeric columns."""
     cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
     widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
     if title:
         click.echo(title)
     for k, r in enumerate(cells):
-        parts = [c.rjust(w) if (right and right[i]) else c.ljust(w) for i, (c, w) in enumerate(zip(r, widths))]
+        parts = [
+            c.rjust(w) if (right and right[i]) else c.ljust(w)
+            for i, (c, w) in enumerate(zip(r, widths, strict=True))
+        ]
         click.echo("  ".join(parts).rstrip())
         if k == 0:
             click.echo("  ".join("-" * w for w in widths))
@@ -67,7 +84,10 @@ def _pct(x: float) -> str:
 
 def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
     return click.option(
-        "--at", "at", default=None, metavar="TIME",
+        "--at",
+        "at",
+        default=None,
+        metavar="TIME",
         help="Valuation time, ISO-8601 (desk-local unless it has an offset). Default: now.",
     )(func)
 
@@ -124,45 +144,80 @@ def _position_dicts(v: BookValuation) -> list[dict[str, Any]]:
         i = row.index
         assert i is not None
         opt = bool(book.is_option[i])
-        out.append({
-            "underlying": row.underlying, "spot": row.spot, "contract": book.labels[i],
-            "contract_id": int(book.contract_ids[i]),
-            "is_call": bool(book.is_call[i]) if opt else None,
-            "american": bool(book.american[i]) if opt else None,
-            "strike": float(book.strikes[i]) if opt else None,
-            "expiry": cal.iso(book.expiries[i]) if opt else None,
-            "years": float(v.years[i]) if opt else None,
-            "rate": float(v.rate[i]) if opt else None,
-            "carry": float(v.carry[i]) if opt else None,
-            "vol": float(v.vol[i]) if opt else None,
-            "quantity": float(book.quantities[i]), "multiplier": float(book.multipliers[i]),
-            "is_trial": bool(book.is_trial[i]),
-            **_row_dict(row),
-        })
+        out.append(
+            {
+                "underlying": row.underlying,
+                "spot": row.spot,
+                "contract": book.labels[i],
+                "contract_id": int(book.contract_ids[i]),
+                "is_call": bool(book.is_call[i]) if opt else None,
+                "american": bool(book.american[i]) if opt else None,
+                "strike": float(book.strikes[i]) if opt else None,
+                "expiry": cal.iso(book.expiries[i]) if opt else None,
+                "years": float(v.years[i]) if opt else None,
+                "rate": float(v.rate[i]) if opt else None,
+                "carry": float(v.carry[i]) if opt else None,
+                "vol": float(v.vol[i]) if opt else None,
+                "quantity": float(book.quantities[i]),
+                "multiplier": float(book.multipliers[i]),
+                "is_trial": bool(book.is_trial[i]),
+                **_row_dict(row),
+            }
+        )
     return out
 
 
-_RISK_COLUMNS = ("value", "Δ sh", "Δ $", "Γ 1% (Δ sh)", "vega $/pt", "θ $/day", "ρ $/1%",
-                 "vanna Δ sh/pt", "volga vega/pt", "βΔ $")
+_RISK_COLUMNS = (
+    "value",
+    "Δ sh",
+    "Δ $",
+    "Γ 1% (Δ sh)",
+    "vega $/pt",
+    "θ $/day",
+    "ρ $/1%",
+    "vanna Δ sh/pt",
+    "volga vega/pt",
+    "βΔ $",
+)
 
 
 def _risk_cells(row: ExposureRow, vega_scale: float) -> list[str]:
-    return [_money(row.value), _money(row.delta_shares, 1), _money(row.delta_cash),
-            _money(row.gamma_1pct, 1), _money(row.vega_pt * vega_scale), _money(row.theta_day),
-            _money(row.rho_pct), _money(row.vanna_pt, 1), _money(row.volga_pt, 1),
-            _money(row.beta_delta_cash)]
+    return [
+        _money(row.value),
+        _money(row.delta_shares, 1),
+        _money(row.delta_cash),
+        _money(row.gamma_1pct, 1),
+        _money(row.vega_pt * vega_scale),
+        _money(row.theta_day),
+        _money(row.rho_pct),
+        _money(row.vanna_pt, 1),
+        _money(row.volga_pt, 1),
+        _money(row.beta_delta_cash),
+    ]
 
 
 @click.command()
 @db_option
-@click.option("--by", "by", type=click.Choice(["underlying", "expiry", "position"]),
-              default="underlying", show_default=True, help="Group the rows by this.")
-@click.option("--vega-unit", type=click.Choice(["pt", "vol"]), default="pt", show_default=True,
-              help="Table vega per vol point (pt) or per 1.00 of vol; JSON is always per point.")
+@click.option(
+    "--by",
+    "by",
+    type=click.Choice(["underlying", "expiry", "position"]),
+    default="underlying",
+    show_default=True,
+    help="Group the rows by this.",
+)
+@click.option(
+    "--vega-unit",
+    type=click.Choice(["pt", "vol"]),
+    default="pt",
+    show_default=True,
+    help="Table vega per vol point (pt) or per 1.00 of vol; JSON is always per point.",
+)
 @_at_option
 @output_options
-def risk(db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: bool,
-         as_csv: bool) -> None:
+def risk(
+    db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: bool, as_csv: bool
+) -> None:
     """The book's exposures in desk units, per underlying and in total.
 
     Units: value and Δ $ in currency; Δ sh in shares (units) of the underlying; Γ 1% the change
@@ -182,14 +237,18 @@ def risk(db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: 
     tot = total(v)
     if as_json:
         out: dict[str, Any] = _header(v)
-        out["by_underlying"] = [{"underlying": r.underlying, "spot": r.spot, **_row_dict(r)} for r in under]
+        out["by_underlying"] = [
+            {"underlying": r.underlying, "spot": r.spot, **_row_dict(r)} for r in under
+        ]
         out["total"] = _row_dict(tot)
         out["reference_index"] = v.book.reference_index
         out["beta_delta_index_units"] = beta_delta_index_units(v)
         out["t_ref_days"] = v.t_ref_days
         if by == "expiry":
-            out["by_expiry"] = [{"bucket": r.label, "positions": r.n_positions, **_row_dict(r)}
-                                for r in aggregate(v, "expiry")]
+            out["by_expiry"] = [
+                {"bucket": r.label, "positions": r.n_positions, **_row_dict(r)}
+                for r in aggregate(v, "expiry")
+            ]
         if by == "position":
             out["by_position"] = _position_dicts(v)
         out["notes"] = list(v.notes)
@@ -224,47 +283,62 @@ def risk(db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: 
     cols = list(_RISK_COLUMNS)
     if vega_unit == "vol":
         cols[4] = "vega $/1.00 vol"
-    click.echo(f"risk at {_iso(v.valuation_time)} · marks {_iso(v.market.marks_as_of)}"
-               f" · money in book currency")
+    click.echo(
+        f"risk at {_iso(v.valuation_time)} · marks {_iso(v.market.marks_as_of)}"
+        f" · money in book currency"
+    )
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
         table = [[a, b, *(_risk_cells(r, scale)[i] for i in block)] for a, b, r in groups]
         table.append(["total", "", *(tot_cells[i] for i in block)])
         click.echo("")
-        print_table([*first, *(cols[i] for i in block)], table, right=[False, True] + [True] * len(block))
+        print_table(
+            [*first, *(cols[i] for i in block)], table, right=[False, True] + [True] * len(block)
+        )
     click.echo("")
     from blotter.scenario import apply_move, parse_move
 
     roll = apply_move(v, parse_move("bdays 1"))
-    lines = [f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt",
-             f"roll to the next business day ({roll.roll_years * 365:g} calendar days, nothing else "
-             f"moving): full revaluation {_money(roll.total.full)} $, θ × days {_money(roll.total.terms['theta'])} $"]
+    lines = [
+        f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt",
+        f"roll to the next business day ({roll.roll_years * 365:g} calendar days, nothing else "
+        f"moving): full revaluation {_money(roll.total.full)} $, "
+        f"θ × days {_money(roll.total.terms['theta'])} $",
+    ]
     bw = beta_delta_index_units(v)
     if bw is not None:
-        lines.append(f"beta-weighted delta: {_money(tot.beta_delta_cash)} $ = {bw:,.1f} "
-                     f"{v.book.reference_index} units")
+        lines.append(
+            f"beta-weighted delta: {_money(tot.beta_delta_cash)} $ = {bw:,.1f} "
+            f"{v.book.reference_index} units"
+        )
     for line in [*lines, *v.notes]:
         click.echo(line)
 
 
-_WHATIF_HELP = """Revalue the book under one what-if MOVE: full revaluation against the greeks' estimate.
+_WHATIF_HELP = (
+    """Revalue the book under one what-if MOVE: full revaluation against the greeks' estimate.
 
 \b
 MOVE is one line of parts, combined and applied together:
-""" + "\n".join(f"  {ex:<24} {what}" for ex, what in (
-    ("spot -3%", "every underlying's spot down 3%"),
-    ("spot +2.5", "every spot up 2.5 currency units"),
-    ("IDX spot -5%", "one underlying (any symbol of the book)"),
-    ("IDX spot =4480", "one underlying's spot set to a level"),
-    ("spot -3% beta", "each underlying moves beta x 3% (index-equivalent)"),
-    ("vol +2", "every vol up 2 vol points (0.30 -> 0.32)"),
-    ("vol -10%", "every vol times 0.9"),
-    ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) points"),
-    ("IDX vol +3", "one underlying's vols up 3 points"),
-    ("days 3", "three calendar days pass"),
-    ("bdays 1", "to the next business day (Friday -> Monday)"),
-    ("rate +25bp", "every rate up 25 basis points"),
-    ("spot -3% vol +2 days 1", "parts combine"),
-)) + """
+"""
+    + "\n".join(
+        f"  {ex:<24} {what}"
+        for ex, what in (
+            ("spot -3%", "every underlying's spot down 3%"),
+            ("spot +2.5", "every spot up 2.5 currency units"),
+            ("IDX spot -5%", "one underlying (any symbol of the book)"),
+            ("IDX spot =4480", "one underlying's spot set to a level"),
+            ("spot -3% beta", "each underlying moves beta x 3% (index-equivalent)"),
+            ("vol +2", "every vol up 2 vol points (0.30 -> 0.32)"),
+            ("vol -10%", "every vol times 0.9"),
+            ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) points"),
+            ("IDX vol +3", "one underlying's vols up 3 points"),
+            ("days 3", "three calendar days pass"),
+            ("bdays 1", "to the next business day (Friday -> Monday)"),
+            ("rate +25bp", "every rate up 25 basis points"),
+            ("spot -3% vol +2 days 1", "parts combine"),
+        )
+    )
+    + """
 
 Keywords are case-insensitive; a named part overrides an every-underlying part for that name.
 Vols are sticky strike; a day roll keeps each contract's vol and rate. Options expiring inside the
@@ -273,12 +347,20 @@ strike. Columns: full revaluation change, estimate 1st order (delta, vega, theta
 order (+ gamma, volga, vanna), error = full - estimate in currency and as % of |full|.
 Quote the move so the shell passes it as one argument: blotter whatif "spot -3% vol +2".
 """
+)
 
 
 def _move_row_cells(r: Any) -> list[str]:
     flag = " *" if r.n_through_expiry else ""
-    return [_money(r.full), _money(r.estimate_1), _money(r.error_1), _pct(r.error_1_pct),
-            _money(r.estimate_2), _money(r.error_2) + flag, _pct(r.error_2_pct)]
+    return [
+        _money(r.full),
+        _money(r.estimate_1),
+        _money(r.error_1),
+        _pct(r.error_1_pct),
+        _money(r.estimate_2),
+        _money(r.error_2) + flag,
+        _pct(r.error_2_pct),
+    ]
 
 
 @click.command(help=_WHATIF_HELP, context_settings={"ignore_unknown_options": True})
@@ -286,7 +368,9 @@ def _move_row_cells(r: Any) -> list[str]:
 @click.argument("move", nargs=-1, required=True)
 @_at_option
 @output_options
-def whatif(db_path: str | None, move: tuple[str, ...], at: str | None, as_json: bool, as_csv: bool) -> None:
+def whatif(
+    db_path: str | None, move: tuple[str, ...], at: str | None, as_json: bool, as_csv: bool
+) -> None:
     from blotter import calendar as cal
     from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
 
@@ -295,48 +379,98 @@ def whatif(db_path: str | None, move: tuple[str, ...], at: str | None, as_json: 
     try:
         parse_move(text)
     except MoveSyntaxError as exc:
-        raise click.UsageError(f"{exc.message}\n  {exc.pointer().replace(chr(10), chr(10) + '  ')}") from exc
+        raise click.UsageError(
+            f"{exc.message}\n  {exc.pointer().replace(chr(10), chr(10) + '  ')}"
+        ) from exc
     store = _open(db_path)
     v = _value(store, at)
     try:
         mv = parse_move(text, symbols=v.book.underlyings.symbols)
         res = apply_move(v, mv)
     except MoveSyntaxError as exc:
-        raise click.UsageError(f"{exc.message}\n  {exc.pointer().replace(chr(10), chr(10) + '  ')}") from exc
+        raise click.UsageError(
+            f"{exc.message}\n  {exc.pointer().replace(chr(10), chr(10) + '  ')}"
+        ) from exc
     except MoveError as exc:
         raise click.ClickException(str(exc)) from exc
     if as_json:
         out = _header(v) | {
-            "after": cal.iso(res.time_after), "roll_years": res.roll_years, "move": mv.as_dict(),
-            "total": res.total.as_dict(), "by_underlying": [r.as_dict() for r in res.by_underlying],
-            "expiring": [e.as_dict() for e in res.expiring], "vol_rule": "sticky strike",
+            "after": cal.iso(res.time_after),
+            "roll_years": res.roll_years,
+            "move": mv.as_dict(),
+            "total": res.total.as_dict(),
+            "by_underlying": [r.as_dict() for r in res.by_underlying],
+            "expiring": [e.as_dict() for e in res.expiring],
+            "vol_rule": "sticky strike",
             "notes": list(res.notes),
         }
         print_json(out)
         return
     if as_csv:
-        cols = ["underlying", "full", "estimate_1", "estimate_2", "error_1", "error_2",
-                "error_1_pct", "error_2_pct", *TERM_KEYS, "through_expiry"]
-        rows = [[r.label, r.full, r.estimate_1, r.estimate_2, r.error_1, r.error_2, r.error_1_pct,
-                 r.error_2_pct, *(r.terms[t] for t in TERM_KEYS), r.n_through_expiry]
-                for r in [*res.by_underlying, res.total]]
+        cols = [
+            "underlying",
+            "full",
+            "estimate_1",
+            "estimate_2",
+            "error_1",
+            "error_2",
+            "error_1_pct",
+            "error_2_pct",
+            *TERM_KEYS,
+            "through_expiry",
+        ]
+        rows = [
+            [
+                r.label,
+                r.full,
+                r.estimate_1,
+                r.estimate_2,
+                r.error_1,
+                r.error_2,
+                r.error_1_pct,
+                r.error_2_pct,
+                *(r.terms[t] for t in TERM_KEYS),
+                r.n_through_expiry,
+            ]
+            for r in [*res.by_underlying, res.total]
+        ]
         print_csv(cols, rows)
         return
     rows = [[r.label, *_move_row_cells(r)] for r in [*res.by_underlying, res.total]]
     click.echo(f"what-if: {mv.describe()} · money in book currency · {STICKY_RULE_SHORT}")
     click.echo("")
-    print_table(["underlying", "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"], rows,
-                right=[False] + [True] * 7)
+    print_table(
+        ["underlying", "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"],
+        rows,
+        right=[False] + [True] * 7,
+    )
     click.echo("")
-    terms = [[r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]]
+    terms = [
+        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]
+    ]
     print_table(["estimate terms", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
     if res.expiring:
-        ex = [[e.label, _money(e.spot_after, 2), _pct(e.distance_pct), _money(e.settlement),
-               _money(e.delivered_units, 0), "PIN RISK" if e.pin_risk else ""] for e in res.expiring]
+        ex = [
+            [
+                e.label,
+                _money(e.spot_after, 2),
+                _pct(e.distance_pct),
+                _money(e.settlement),
+                _money(e.delivered_units, 0),
+                "PIN RISK" if e.pin_risk else "",
+            ]
+            for e in res.expiring
+        ]
         click.echo("")
-        print_table(["expiring in the roll", "spot after", "vs strike", "settles at", "delivers", ""], ex,
-                    right=[False, True, True, True, True, False])
-    click.echo(f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}, after the move {cal.iso(res.time_after)}")
+        print_table(
+            ["expiring in the roll", "spot after", "vs strike", "settles at", "delivers", ""],
+            ex,
+            right=[False, True, True, True, True, False],
+        )
+    click.echo(
+        f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}, "
+        f"after the move {cal.iso(res.time_after)}"
+    )
     if any(r.n_through_expiry for r in res.by_underlying):
         click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
     for note in res.notes:
@@ -353,8 +487,9 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
         try:
             out.append(float(part.rstrip("%")))
         except ValueError:
-            raise click.BadParameter(f"{part!r} is not a number (give e.g. -5,-2,0,2,5)",
-                                     param_hint=name) from None
+            raise click.BadParameter(
+                f"{part!r} is not a number (give e.g. -5,-2,0,2,5)", param_hint=name
+            ) from None
     if not out:
         raise click.BadParameter("give at least one number", param_hint=name)
     return out
@@ -362,16 +497,38 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
 
 @click.command()
 @db_option
-@click.option("--spot", "spot_list", metavar="LIST", default=None,
-              help="Spot moves in % of every spot, comma-separated. Default -10,-5,-2,-1,0,1,2,5,10.")
-@click.option("--vol", "vol_list", metavar="LIST", default=None,
-              help="Vol moves in vol points, comma-separated. Default -5,-2,0,2,5.")
-@click.option("--days", type=click.FloatRange(min=0, max=3660), default=0.0, show_default=True,
-              help="Calendar days to roll forward in every cell.")
+@click.option(
+    "--spot",
+    "spot_list",
+    metavar="LIST",
+    default=None,
+    help="Spot moves in % of every spot, comma-separated. Default -10,-5,-2,-1,0,1,2,5,10.",
+)
+@click.option(
+    "--vol",
+    "vol_list",
+    metavar="LIST",
+    default=None,
+    help="Vol moves in vol points, comma-separated. Default -5,-2,0,2,5.",
+)
+@click.option(
+    "--days",
+    type=click.FloatRange(min=0, max=3660),
+    default=0.0,
+    show_default=True,
+    help="Calendar days to roll forward in every cell.",
+)
 @_at_option
 @output_options
-def ladder(db_path: str | None, spot_list: str | None, vol_list: str | None, days: float,
-           at: str | None, as_json: bool, as_csv: bool) -> None:
+def ladder(
+    db_path: str | None,
+    spot_list: str | None,
+    vol_list: str | None,
+    days: float,
+    at: str | None,
+    as_json: bool,
+    as_csv: bool,
+) -> None:
     """Spot × vol ladder of the book's P&L: full revaluation, the greeks' estimate and the error.
 
     Rows move every spot by the same %, columns every vol by the same points; vols are sticky
@@ -391,49 +548,102 @@ def ladder(db_path: str | None, spot_list: str | None, vol_list: str | None, day
     v = _value(store, at)
     lad = run_ladder(v, sp, vp, days=days)
     i, j = lad.worst
-    worst = {"spot_pct": sp[i], "vol_pts": vp[j], "full": float(lad.full[i, j]),
-             "estimate": float(lad.estimate[i, j]), "error": float(lad.error[i, j])}
+    worst = {
+        "spot_pct": sp[i],
+        "vol_pts": vp[j],
+        "full": float(lad.full[i, j]),
+        "estimate": float(lad.estimate[i, j]),
+        "error": float(lad.error[i, j]),
+    }
     if as_json:
-        print_json(_header(v) | {
-            "rule": lad.rule, "days": lad.days, "after": cal.iso(lad.time_after),
-            "spot_pcts": sp, "vol_pts": vp, "full": lad.full.tolist(), "estimate": lad.estimate.tolist(),
-            "estimate_1": lad.estimate_1.tolist(), "error": lad.error.tolist(), "worst": worst,
-            "through_expiry": lad.n_through_expiry,
-        })
+        print_json(
+            _header(v)
+            | {
+                "rule": lad.rule,
+                "days": lad.days,
+                "after": cal.iso(lad.time_after),
+                "spot_pcts": sp,
+                "vol_pts": vp,
+                "full": lad.full.tolist(),
+                "estimate": lad.estimate.tolist(),
+                "estimate_1": lad.estimate_1.tolist(),
+                "error": lad.error.tolist(),
+                "worst": worst,
+                "through_expiry": lad.n_through_expiry,
+            }
+        )
         return
     if as_csv:
-        print_csv(["spot_pct", "vol_pts", "full", "estimate", "error", "rule"],
-                  ([sp[a], vp[b], lad.full[a, b], lad.estimate[a, b], lad.error[a, b], lad.rule]
-                   for a in range(len(sp)) for b in range(len(vp))))
+        print_csv(
+            ["spot_pct", "vol_pts", "full", "estimate", "error", "rule"],
+            (
+                [sp[a], vp[b], lad.full[a, b], lad.estimate[a, b], lad.error[a, b], lad.rule]
+                for a in range(len(sp))
+                for b in range(len(vp))
+            ),
+        )
         return
     heads = ["spot % \\ vol pts", *(f"{x:+g}" for x in vp)]
-    for title, grid in (("full revaluation P&L", lad.full), ("estimate (2nd order)", lad.estimate),
-                        ("error = full − estimate", lad.error)):
-        rows = [[f"{sp[a]:+g}%", *(_money(grid[a, b]) + ("◀" if (a, b) == (i, j) and grid is lad.full else "")
-                                  for b in range(len(vp)))] for a in range(len(sp))]
-        click.echo(f"{title} · {lad.rule}" + (f" · {days:g} days" if days else "") + " · book currency")
+    for title, grid in (
+        ("full revaluation P&L", lad.full),
+        ("estimate (2nd order)", lad.estimate),
+        ("error = full − estimate", lad.error),
+    ):
+        rows = [
+            [
+                f"{sp[a]:+g}%",
+                *(
+                    _money(grid[a, b]) + ("◀" if (a, b) == (i, j) and grid is lad.full else "")
+                    for b in range(len(vp))
+                ),
+            ]
+            for a in range(len(sp))
+        ]
+        click.echo(
+            f"{title} · {lad.rule}" + (f" · {days:g} days" if days else "") + " · book currency"
+        )
         print_table(heads, rows, right=[True] * len(heads))
         click.echo("")
-    click.echo(f"worst cell: spot {sp[i]:+g}% vol {vp[j]:+g} pts: {_money(worst['full'])} "
-               f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀")
+    click.echo(
+        f"worst cell: spot {sp[i]:+g}% vol {vp[j]:+g} pts: {_money(worst['full'])} "
+        f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀"
+    )
     click.echo(f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}")
 
 
 def _set_dict(s: Any) -> Any:
     if s == "now":
         return "now"
-    return {"id": s.id, "kind": s.kind, "marked_at": _iso(s.marked_at), "who": s.who, "note": s.note}
+    return {
+        "id": s.id,
+        "kind": s.kind,
+        "marked_at": _iso(s.marked_at),
+        "who": s.who,
+        "note": s.note,
+    }
 
 
 @click.command()
 @db_option
-@click.option("--from", "from_set", type=int, default=None, metavar="SET",
-              help="Start mark set id. Default: the close before the end set.")
-@click.option("--to", "to_set", default=None, metavar="SET",
-              help="End mark set id, or 'now' for the marks in force now. Default: the last close.")
+@click.option(
+    "--from",
+    "from_set",
+    type=int,
+    default=None,
+    metavar="SET",
+    help="Start mark set id. Default: the close before the end set.",
+)
+@click.option(
+    "--to",
+    "to_set",
+    default=None,
+    metavar="SET",
+    help="End mark set id, or 'now' for the marks in force now. Default: the last close.",
+)
 @output_options
-def explain(db_path: str | None, from_set: int | None, to_set: str | None, as_json: bool,
-            as_csv: bool) -> None:
+def explain(
+    db_path: str | None, from_set: int | None, to_set: str | None, as_json: bool, as_csv: bool
+) -> None:
     """P&L explain between two mark sets (default: the last two closes) against the start's greeks.
 
     For the positions held at the start: actual P&L (full revaluation) split into delta, gamma,
@@ -448,37 +658,72 @@ def explain(db_path: str | None, from_set: int | None, to_set: str | None, as_js
         try:
             int(to_set)
         except ValueError:
-            raise click.BadParameter(f"{to_set!r}: give a mark set id or 'now'", param_hint="--to") from None
+            raise click.BadParameter(
+                f"{to_set!r}: give a mark set id or 'now'", param_hint="--to"
+            ) from None
     store = _open(db_path)
     try:
         ex = run_explain(store, from_set, to_set)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
     if as_json:
-        print_json({"from": _set_dict(ex.from_set), "to": _set_dict(ex.to_set),
-                    "from_time": _iso(ex.from_time), "to_time": _iso(ex.to_time),
-                    "by_underlying": [r.as_dict() for r in ex.by_underlying],
-                    "total": ex.total.as_dict(), "notes": list(ex.notes)})
+        print_json(
+            {
+                "from": _set_dict(ex.from_set),
+                "to": _set_dict(ex.to_set),
+                "from_time": _iso(ex.from_time),
+                "to_time": _iso(ex.to_time),
+                "by_underlying": [r.as_dict() for r in ex.by_underlying],
+                "total": ex.total.as_dict(),
+                "notes": list(ex.notes),
+            }
+        )
         return
     cols = ["underlying", "actual", *TERM_KEYS, "explained", "unexplained", "new_trades", "total"]
-    data = [[r.label, r.actual, *(r.terms[t] for t in TERM_KEYS), r.explained, r.unexplained,
-             r.new_trades, r.total] for r in [*ex.by_underlying, ex.total]]
+    data = [
+        [
+            r.label,
+            r.actual,
+            *(r.terms[t] for t in TERM_KEYS),
+            r.explained,
+            r.unexplained,
+            r.new_trades,
+            r.total,
+        ]
+        for r in [*ex.by_underlying, ex.total]
+    ]
     if as_csv:
         print_csv(cols, data)
         return
     frm = ex.from_set
     to = ex.to_set
-    click.echo(f"P&L explain: set {frm.id} ({_iso(ex.from_time)}) → "
-               + ("marks now" if to == "now" else f"set {to.id} ({_iso(ex.to_time)})")
-               + " · money in book currency · greeks of the start set")
+    click.echo(
+        f"P&L explain: set {frm.id} ({_iso(ex.from_time)}) → "
+        + ("marks now" if to == "now" else f"set {to.id} ({_iso(ex.to_time)})")
+        + " · money in book currency · greeks of the start set"
+    )
     click.echo("")
-    summary = [[r.label, _money(r.actual), _money(r.explained), _money(r.unexplained),
-                _pct(100 * r.unexplained / abs(r.actual)) if r.actual else "—",
-                _money(r.new_trades), _money(r.total)] for r in [*ex.by_underlying, ex.total]]
-    print_table(["underlying", "actual", "explained", "unexplained", "unexpl %", "new trades", "total"],
-                summary, right=[False] + [True] * 6)
+    summary = [
+        [
+            r.label,
+            _money(r.actual),
+            _money(r.explained),
+            _money(r.unexplained),
+            _pct(100 * r.unexplained / abs(r.actual)) if r.actual else "—",
+            _money(r.new_trades),
+            _money(r.total),
+        ]
+        for r in [*ex.by_underlying, ex.total]
+    ]
+    print_table(
+        ["underlying", "actual", "explained", "unexplained", "unexpl %", "new trades", "total"],
+        summary,
+        right=[False] + [True] * 6,
+    )
     click.echo("")
-    terms = [[r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*ex.by_underlying, ex.total]]
+    terms = [
+        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*ex.by_underlying, ex.total]
+    ]
     print_table(["explained by", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
     for note in ex.notes:
         click.echo(note)

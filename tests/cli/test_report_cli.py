@@ -28,10 +28,32 @@ from blotter.store import open_store
 AT = "2026-12-01T16:45"
 """Valuation time of the checks (desk-local): just after the demo's 2026-12-01 close."""
 
-EXPOSURE_KEYS = {"value", "delta_shares", "delta_cash", "gamma_1pct", "vega_pt", "theta_day", "rho_pct",
-                 "vanna_pt", "volga_pt", "beta_delta_cash"}
-POSITION_KEYS = {"underlying", "spot", "contract", "is_call", "american", "strike", "years", "rate",
-                 "carry", "vol", "quantity", "multiplier"}
+EXPOSURE_KEYS = {
+    "value",
+    "delta_shares",
+    "delta_cash",
+    "gamma_1pct",
+    "vega_pt",
+    "theta_day",
+    "rho_pct",
+    "vanna_pt",
+    "volga_pt",
+    "beta_delta_cash",
+}
+POSITION_KEYS = {
+    "underlying",
+    "spot",
+    "contract",
+    "is_call",
+    "american",
+    "strike",
+    "years",
+    "rate",
+    "carry",
+    "vol",
+    "quantity",
+    "multiplier",
+}
 ROW_KEYS = {"full", "estimate_1", "estimate_2", "error_1", "error_2", "terms"}
 TERMS = {"delta", "gamma", "vega", "volga", "vanna", "theta", "rho"}
 
@@ -71,7 +93,9 @@ def test_risk_json_keys_and_totals(demo_db: Path) -> None:
     assert EXPOSURE_KEYS <= set(out["total"])
     assert "underlying" not in out["total"] and "spot" not in out["total"]
     for key in EXPOSURE_KEYS:
-        assert sum(r[key] for r in out["by_underlying"]) == pytest.approx(out["total"][key], rel=1e-9, abs=1e-6)
+        assert sum(r[key] for r in out["by_underlying"]) == pytest.approx(
+            out["total"][key], rel=1e-9, abs=1e-6
+        )
     assert _all_finite(out)
 
 
@@ -80,7 +104,9 @@ def test_risk_json_numbers_are_the_librarys(demo_db: Path) -> None:
     v = _valuation(demo_db)
     assert out["total"]["value"] == pytest.approx(float(v.value.sum()), rel=1e-12)
     assert out["total"]["vega_pt"] == pytest.approx(float(v.vega_pt.sum()), rel=1e-12)
-    assert out["total"]["beta_delta_cash"] == pytest.approx(float(v.beta_delta_cash.sum()), rel=1e-12)
+    assert out["total"]["beta_delta_cash"] == pytest.approx(
+        float(v.beta_delta_cash.sum()), rel=1e-12
+    )
 
 
 def test_risk_by_position_and_expiry(demo_db: Path) -> None:
@@ -91,12 +117,14 @@ def test_risk_by_position_and_expiry(demo_db: Path) -> None:
         assert POSITION_KEYS | EXPOSURE_KEYS <= set(row)
     hedges = [r for r in rows if r["is_call"] is None]
     assert hedges, "the demo book holds hedges"
-    for h in hedges:                                # delta 1 per unit, nothing else
+    for h in hedges:  # delta 1 per unit, nothing else
         assert h["delta_shares"] == pytest.approx(h["quantity"] * h["multiplier"])
         assert h["vega_pt"] == 0.0 and h["gamma_1pct"] == 0.0
     assert sum(r["value"] for r in rows) == pytest.approx(out["total"]["value"], rel=1e-9)
     exp = _json(["risk", "--db", str(demo_db), "--at", AT, "--by", "expiry"])
-    assert sum(r["vega_pt"] for r in exp["by_expiry"]) == pytest.approx(exp["total"]["vega_pt"], rel=1e-9)
+    assert sum(r["vega_pt"] for r in exp["by_expiry"]) == pytest.approx(
+        exp["total"]["vega_pt"], rel=1e-9
+    )
     assert "by_position" not in exp
 
 
@@ -104,15 +132,33 @@ def test_risk_table_and_csv(demo_db: Path) -> None:
     table = _run(["risk", "--db", str(demo_db), "--at", AT]).stdout
     for label in ("Δ sh", "Δ $", "Γ 1%", "vega $/pt", "θ $/day", "ρ $/1%", "βΔ $", "total"):
         assert label in table
-    assert "vega $/1.00 vol" in _run(["risk", "--db", str(demo_db), "--at", AT, "--vega-unit", "vol"]).stdout
-    rows = list(csv.DictReader(io.StringIO(_run(["risk", "--db", str(demo_db), "--at", AT, "--csv"]).stdout)))
+    assert (
+        "vega $/1.00 vol"
+        in _run(["risk", "--db", str(demo_db), "--at", AT, "--vega-unit", "vol"]).stdout
+    )
+    rows = list(
+        csv.DictReader(
+            io.StringIO(_run(["risk", "--db", str(demo_db), "--at", AT, "--csv"]).stdout)
+        )
+    )
     assert rows[-1]["underlying"] == "total"
     assert EXPOSURE_KEYS <= set(rows[0])
     _run(["risk", "--db", str(demo_db), "--json", "--csv"], code=2)
 
 
-FORMS = ["spot -3%", "spot +2.5", "DEMOA spot -5%", "spot -3% beta", "vol +2", "vol -10%",
-         "vol +2 weighted", "days 3", "bdays 1", "rate +25bp", "spot -3% vol +2 days 1"]
+FORMS = [
+    "spot -3%",
+    "spot +2.5",
+    "DEMOA spot -5%",
+    "spot -3% beta",
+    "vol +2",
+    "vol -10%",
+    "vol +2 weighted",
+    "days 3",
+    "bdays 1",
+    "rate +25bp",
+    "spot -3% vol +2 days 1",
+]
 
 
 @pytest.mark.parametrize("move", FORMS)
@@ -126,7 +172,9 @@ def test_whatif_json_for_each_form(demo_db: Path, move: str) -> None:
     assert t["error_1"] == pytest.approx(t["full"] - t["estimate_1"])
     assert t["error_2"] == pytest.approx(t["full"] - t["estimate_2"])
     assert t["estimate_2"] == pytest.approx(sum(t["terms"].values()))
-    assert sum(r["full"] for r in out["by_underlying"]) == pytest.approx(t["full"], rel=1e-9, abs=1e-6)
+    assert sum(r["full"] for r in out["by_underlying"]) == pytest.approx(
+        t["full"], rel=1e-9, abs=1e-6
+    )
     assert out["move"]["text"] == move
 
 
@@ -141,8 +189,13 @@ def test_whatif_matches_the_library(demo_db: Path) -> None:
 def test_whatif_unquoted_words_table_and_csv(demo_db: Path) -> None:
     table = _run(["whatif", "--db", str(demo_db), "--at", AT, "spot", "-3%", "vol", "+2"]).stdout
     assert "sticky strike" in table and "err 2 %" in table and "total" in table
-    rows = list(csv.DictReader(io.StringIO(
-        _run(["whatif", "--db", str(demo_db), "--at", AT, "spot -1%", "--csv"]).stdout)))
+    rows = list(
+        csv.DictReader(
+            io.StringIO(
+                _run(["whatif", "--db", str(demo_db), "--at", AT, "spot -1%", "--csv"]).stdout
+            )
+        )
+    )
     assert rows[-1]["underlying"] == "total" and TERMS <= set(rows[0])
 
 
@@ -154,21 +207,32 @@ def test_whatif_lists_expiring_positions(demo_db: Path) -> None:
         assert e["intrinsic"] >= 0 and isinstance(e["pin_risk"], bool)
 
 
-@pytest.mark.parametrize(("move", "word"), [("spot -3% foo", "foo"), ("spot 3%", "3%"),
-                                            ("NOPE spot -1%", "NOPE"), ("", "")])
-def test_whatif_malformed_move_points_at_the_word_and_changes_nothing(demo_db: Path, move: str, word: str) -> None:
+@pytest.mark.parametrize(
+    ("move", "word"),
+    [("spot -3% foo", "foo"), ("spot 3%", "3%"), ("NOPE spot -1%", "NOPE"), ("", "")],
+)
+def test_whatif_malformed_move_points_at_the_word_and_changes_nothing(
+    demo_db: Path, move: str, word: str
+) -> None:
     before = demo_db.read_bytes()
     result = _run(["whatif", "--db", str(demo_db), move], code=2)
     if word:
         line, caret = [ln for ln in result.output.splitlines() if ln.strip()][-2:]
         start = caret.index("^")
-        assert line[start:start + len(word)] == word
+        assert line[start : start + len(word)] == word
     assert demo_db.read_bytes() == before
 
 
 def test_whatif_help_documents_the_grammar() -> None:
     text = _run(["whatif", "--help"]).stdout
-    for form in ("spot -3%", "spot +2.5", "spot -3% beta", "vol +2 weighted", "bdays 1", "rate +25bp"):
+    for form in (
+        "spot -3%",
+        "spot +2.5",
+        "spot -3% beta",
+        "vol +2 weighted",
+        "bdays 1",
+        "rate +25bp",
+    ):
         assert form in text
 
 
@@ -178,7 +242,13 @@ def test_ladder_json(demo_db: Path) -> None:
     full, est, err = (np.array(out[k]) for k in ("full", "estimate", "error"))
     assert full.shape == (9, 5) and est.shape == (9, 5)
     assert err == pytest.approx(full - est)
-    assert out["spot_pcts"] == [-10, -5, -2, -1, 0, 1, 2, 5, 10] and out["vol_pts"] == [-5, -2, 0, 2, 5]
+    assert out["spot_pcts"] == [-10, -5, -2, -1, 0, 1, 2, 5, 10] and out["vol_pts"] == [
+        -5,
+        -2,
+        0,
+        2,
+        5,
+    ]
     assert full[4, 2] == pytest.approx(0.0, abs=1e-6)
     assert out["worst"]["full"] == pytest.approx(full.min())
     v = _valuation(demo_db)
@@ -187,7 +257,21 @@ def test_ladder_json(demo_db: Path) -> None:
 
 
 def test_ladder_options_table_and_errors(demo_db: Path) -> None:
-    out = _json(["ladder", "--db", str(demo_db), "--at", AT, "--spot", "-4,0,4", "--vol", "-1,1", "--days", "2"])
+    out = _json(
+        [
+            "ladder",
+            "--db",
+            str(demo_db),
+            "--at",
+            AT,
+            "--spot",
+            "-4,0,4",
+            "--vol",
+            "-1,1",
+            "--days",
+            "2",
+        ]
+    )
     assert np.array(out["full"]).shape == (3, 2) and out["days"] == 2
     table = _run(["ladder", "--db", str(demo_db), "--at", AT]).stdout
     assert table.count("sticky strike") >= 3 and "worst cell" in table
@@ -204,7 +288,9 @@ def test_explain_json_default_sets(demo_db: Path) -> None:
     assert t["unexplained"] == pytest.approx(t["actual"] - sum(t["terms"].values()))
     assert t["total"] == pytest.approx(t["actual"] + t["new_trades"])
     assert sum(r["actual"] for r in out["by_underlying"]) == pytest.approx(t["actual"], rel=1e-9)
-    assert sum(r["new_trades"] for r in out["by_underlying"]) == pytest.approx(t["new_trades"], rel=1e-9, abs=1e-9)
+    assert sum(r["new_trades"] for r in out["by_underlying"]) == pytest.approx(
+        t["new_trades"], rel=1e-9, abs=1e-9
+    )
 
 
 def test_explain_to_now_table_and_bad_set(demo_db: Path) -> None:

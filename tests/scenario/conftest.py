@@ -1,11 +1,12 @@
-"""Fixtures of the risk-layer tests; the books and the QuantLib pricer live in ``scenario_books``."""
+"""Fixtures of the risk-layer tests; books and the QuantLib pricer are in ``scenario_books``."""
 
 from __future__ import annotations
 
 import pytest
-from .scenario_books import make_book, mixed_rows
 
 from blotter.book import Book
+
+from .scenario_books import make_book, mixed_rows
 
 
 @pytest.fixture

@@ -7,7 +7,7 @@ Year's Day). ACT/365F is the definition: days between the dates over 365, whatev
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import numpy as np
 import pytest
@@ -18,9 +18,15 @@ from blotter import calendar as cal
 def test_act365f_counts_calendar_seconds_over_365_days() -> None:
     t0 = np.datetime64("2027-12-31T21:00:00", "s")
     # 2028 is a leap year: 366 days is 366/365 under ACT/365F.
-    assert cal.year_fraction(t0, np.datetime64("2028-12-31T21:00:00", "s")) == pytest.approx(366 / 365, abs=1e-15)
-    assert cal.year_fraction(t0, t0 + np.timedelta64(12 * 3600, "s")) == pytest.approx(0.5 / 365, abs=1e-15)
-    assert cal.year_fraction(t0 + np.timedelta64(86400, "s"), t0) == pytest.approx(-1 / 365, abs=1e-15)
+    assert cal.year_fraction(t0, np.datetime64("2028-12-31T21:00:00", "s")) == pytest.approx(
+        366 / 365, abs=1e-15
+    )
+    assert cal.year_fraction(t0, t0 + np.timedelta64(12 * 3600, "s")) == pytest.approx(
+        0.5 / 365, abs=1e-15
+    )
+    assert cal.year_fraction(t0 + np.timedelta64(86400, "s"), t0) == pytest.approx(
+        -1 / 365, abs=1e-15
+    )
 
 
 def test_year_fraction_broadcasts_and_maps_nat_to_nan() -> None:
@@ -35,7 +41,9 @@ def test_instants_read_naive_times_in_the_desk_zone() -> None:
     assert cal.to_instant("2026-12-04T15:00") == np.datetime64("2026-12-04T20:00:00", "s")
     assert cal.to_instant("2026-07-02T15:00") == np.datetime64("2026-07-02T19:00:00", "s")
     assert cal.to_instant("2026-12-04T15:00Z") == np.datetime64("2026-12-04T15:00:00", "s")
-    assert cal.to_instant(datetime(2026, 12, 4, 15, tzinfo=timezone.utc)) == np.datetime64("2026-12-04T15:00:00")
+    assert cal.to_instant(datetime(2026, 12, 4, 15, tzinfo=UTC)) == np.datetime64(
+        "2026-12-04T15:00:00"
+    )
     with pytest.raises(ValueError, match="ISO-8601"):
         cal.to_instant("next tuesday")
 
@@ -44,24 +52,34 @@ def test_expiry_instant_is_the_local_cutoff() -> None:
     assert cal.expiry_instant("2026-12-18") == np.datetime64("2026-12-18T21:00:00", "s")
 
 
-@pytest.mark.parametrize(("day", "open_"), [
-    ("2026-11-26", False),   # Thanksgiving
-    ("2026-12-25", False),   # Christmas Day
-    ("2026-04-03", False),   # Good Friday
-    ("2026-12-05", False),   # Saturday
-    ("2026-12-04", True),    # an ordinary Friday
-    ("2026-11-27", True),    # the day after Thanksgiving trades (early close)
-])
+@pytest.mark.parametrize(
+    ("day", "open_"),
+    [
+        ("2026-11-26", False),  # Thanksgiving
+        ("2026-12-25", False),  # Christmas Day
+        ("2026-04-03", False),  # Good Friday
+        ("2026-12-05", False),  # Saturday
+        ("2026-12-04", True),  # an ordinary Friday
+        ("2026-11-27", True),  # the day after Thanksgiving trades (early close)
+    ],
+)
 def test_nyse_business_days(day: str, open_: bool) -> None:
     assert bool(cal.is_business_day(np.datetime64(day), "NYSE")) is open_
 
 
 def test_add_business_days_skips_weekends_and_holidays() -> None:
     d = cal.add_business_days(np.datetime64("2026-12-24"), 1, "NYSE")
-    assert d == np.datetime64("2026-12-28")      # Christmas Friday, then the weekend
-    assert cal.add_business_days(np.datetime64("2026-12-05"), 1, "NYSE") == np.datetime64("2026-12-07")
-    assert cal.add_business_days(np.datetime64("2026-12-07"), -1, "NYSE") == np.datetime64("2026-12-04")
-    assert cal.business_days_between(np.datetime64("2026-11-23"), np.datetime64("2026-11-30"), "NYSE") == 4
+    assert d == np.datetime64("2026-12-28")  # Christmas Friday, then the weekend
+    assert cal.add_business_days(np.datetime64("2026-12-05"), 1, "NYSE") == np.datetime64(
+        "2026-12-07"
+    )
+    assert cal.add_business_days(np.datetime64("2026-12-07"), -1, "NYSE") == np.datetime64(
+        "2026-12-04"
+    )
+    assert (
+        cal.business_days_between(np.datetime64("2026-11-23"), np.datetime64("2026-11-30"), "NYSE")
+        == 4
+    )
 
 
 def test_unknown_exchange_is_refused_by_name() -> None:

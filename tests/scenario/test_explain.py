@@ -8,18 +8,19 @@ practice); new trades' P&L = (end mark − trade price) × quantity × multiplie
 from __future__ import annotations
 
 from dataclasses import dataclass
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pytest
-from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
 from blotter import calendar as cal
 from blotter.book import Book
 from blotter.market import Market
 from blotter.scenario import explain
 
-FRI = datetime(2026, 12, 4, 21, 0, tzinfo=timezone.utc)
+from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
+
+FRI = datetime(2026, 12, 4, 21, 0, tzinfo=UTC)
 MON = FRI + timedelta(days=3)
 
 
@@ -37,9 +38,22 @@ class SetInfo:
 class FakeStore:
     """The four store calls explain makes, over fixed books and markets."""
 
-    def __init__(self, sets: list[SetInfo], markets: dict[int, Market], held: Book,
-                 trades: Book, prices: np.ndarray, now_market: Market | None = None) -> None:
-        self.sets, self.markets, self.held, self.trades, self.prices = sets, markets, held, trades, prices
+    def __init__(
+        self,
+        sets: list[SetInfo],
+        markets: dict[int, Market],
+        held: Book,
+        trades: Book,
+        prices: np.ndarray,
+        now_market: Market | None = None,
+    ) -> None:
+        self.sets, self.markets, self.held, self.trades, self.prices = (
+            sets,
+            markets,
+            held,
+            trades,
+            prices,
+        )
         self.now_market = now_market
         self.asked: list[tuple[str, object]] = []
 
@@ -54,15 +68,18 @@ class FakeStore:
         self.asked.append(("book", as_of))
         return self.held
 
-    def new_trades(self, since: datetime, until: datetime | None = None,
-                   book: str | None = None) -> tuple[Book, np.ndarray]:
+    def new_trades(
+        self, since: datetime, until: datetime | None = None, book: str | None = None
+    ) -> tuple[Book, np.ndarray]:
         self.asked.append(("trades", (since, until)))
         return self.trades, self.prices
 
 
 def _market(spots: dict[str, float], vols: dict[str, float], marked: datetime) -> Market:
     m = make_market(spots=spots, vols=vols)
-    return Market(version=1, marks_as_of=marked, spots=m.spots, surfaces=m.surfaces, curves=m.curves)
+    return Market(
+        version=1, marks_as_of=marked, spots=m.spots, surfaces=m.surfaces, curves=m.curves
+    )
 
 
 VOL0 = {"IDX": 0.20, "STK": 0.35, "FUT": 0.30, "FXA": 0.10}
@@ -72,15 +89,25 @@ SPOT1 = dict(SPOTS, IDX=4455.0, STK=121.2)
 
 def _store(**kw: object) -> FakeStore:
     # Expiries count from the Friday close: the IDX call has 30 days, the STK put 60.
-    held = _book_at(FRI, [Row("IDX", 10, 4500, 30, True), Row("STK", -20, 115, 60, False),
-                          Row("STK", 500, mult=1)])
+    held = _book_at(
+        FRI,
+        [Row("IDX", 10, 4500, 30, True), Row("STK", -20, 115, 60, False), Row("STK", 500, mult=1)],
+    )
     trades = _book_at(FRI, [Row("IDX", 2, 4400, 30, False)])
-    sets = [SetInfo(1, "close", FRI - timedelta(days=1)), SetInfo(2, "close", FRI),
-            SetInfo(3, "intraday", FRI + timedelta(days=1)), SetInfo(4, "close", MON)]
-    markets = {1: _market(SPOTS, VOL0, sets[0].marked_at), 2: _market(SPOTS, VOL0, FRI),
-               4: _market(SPOT1, VOL1, MON)}
-    args: dict[str, object] = dict(sets=sets, markets=markets, held=held, trades=trades,
-                                   prices=np.array([60.0]))
+    sets = [
+        SetInfo(1, "close", FRI - timedelta(days=1)),
+        SetInfo(2, "close", FRI),
+        SetInfo(3, "intraday", FRI + timedelta(days=1)),
+        SetInfo(4, "close", MON),
+    ]
+    markets = {
+        1: _market(SPOTS, VOL0, sets[0].marked_at),
+        2: _market(SPOTS, VOL0, FRI),
+        4: _market(SPOT1, VOL1, MON),
+    }
+    args: dict[str, object] = dict(
+        sets=sets, markets=markets, held=held, trades=trades, prices=np.array([60.0])
+    )
     args.update(kw)
     return FakeStore(**args)  # type: ignore[arg-type]
 
@@ -88,10 +115,21 @@ def _store(**kw: object) -> FakeStore:
 def _book_at(t: datetime, rows: list[Row]) -> Book:
     b = make_book(rows)
     shift = cal.to_instant(t) - np.datetime64("2026-12-04T20:00:00", "s")
-    return Book(name=b.name, underlyings=b.underlyings, reference_index=b.reference_index,
-                contract_ids=b.contract_ids, labels=b.labels, underlying_idx=b.underlying_idx,
-                is_option=b.is_option, is_call=b.is_call, american=b.american, strikes=b.strikes,
-                expiries=b.expiries + shift, multipliers=b.multipliers, quantities=b.quantities)
+    return Book(
+        name=b.name,
+        underlyings=b.underlyings,
+        reference_index=b.reference_index,
+        contract_ids=b.contract_ids,
+        labels=b.labels,
+        underlying_idx=b.underlying_idx,
+        is_option=b.is_option,
+        is_call=b.is_call,
+        american=b.american,
+        strikes=b.strikes,
+        expiries=b.expiries + shift,
+        multipliers=b.multipliers,
+        quantities=b.quantities,
+    )
 
 
 def test_default_is_the_last_two_closes_and_actual_matches_quantlib() -> None:
@@ -146,8 +184,12 @@ def test_explicit_sets_now_and_corrections() -> None:
     ex = explain(store, to_set="now")
     assert ex.to_set == "now" and ex.from_set.id == 4
     # Close 2 corrected by close 5 (marked later, standing for Friday's close).
-    sets = store.sets[:1] + [SetInfo(2, "close", FRI, superseded_by=5)] + store.sets[2:] + [
-        SetInfo(5, "close", MON + timedelta(hours=2), corrects=2)]
+    sets = (
+        store.sets[:1]
+        + [SetInfo(2, "close", FRI, superseded_by=5)]
+        + store.sets[2:]
+        + [SetInfo(5, "close", MON + timedelta(hours=2), corrects=2)]
+    )
     store = _store(sets=sets, markets={**store.markets, 5: store.markets[2]})
     ex = explain(store)
     assert (ex.from_set.id, ex.to_set.id) == (5, 4)

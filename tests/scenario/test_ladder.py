@@ -8,14 +8,25 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from .scenario_books import T0, Row, make_book, make_market, mixed_rows
 
 from blotter.risk import value_book
-from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, STICKY_RULE, apply_move, ladder, parse_move
+from blotter.scenario import (
+    DEFAULT_SPOT_PCTS,
+    DEFAULT_VOL_PTS,
+    STICKY_RULE,
+    apply_move,
+    ladder,
+    parse_move,
+)
+
+from .scenario_books import T0, Row, make_book, make_market, mixed_rows
 
 
 def _book_with_american():
-    rows = mixed_rows() + [Row("STK", 7, 115, 50, False, american=True), Row("STK", -3, 118, 20, True, american=True)]
+    rows = mixed_rows() + [
+        Row("STK", 7, 115, 50, False, american=True),
+        Row("STK", -3, 118, 20, True, american=True),
+    ]
     return make_book(rows)
 
 

@@ -38,8 +38,8 @@ def test_flat_beyond_the_end_strikes() -> None:
 def test_between_expiries_total_variance_is_linear_at_equal_strike() -> None:
     # Option 2027-01-29 21:00 UTC; T0 = 2026-12-04 20:00 UTC. Slices at the same time of day.
     t = (np.datetime64("2027-01-29T21:00:00") - T0).astype(float) / (365 * 86400)
-    t1 = t - 42 / 365          # 2026-12-18 is 42 days earlier
-    t2 = t + 49 / 365          # 2027-03-19 is 49 days later
+    t1 = t - 42 / 365  # 2026-12-18 is 42 days earlier
+    t2 = t + 49 / 365  # 2027-03-19 is 49 days later
     w1, w2 = 0.25**2 * t1, 0.24**2 * t2
     w = w1 + (w2 - w1) * (t - t1) / (t2 - t1)
     assert _vols("2027-01-29", [100])[0] == pytest.approx(np.sqrt(w / t), rel=1e-12)
@@ -52,13 +52,15 @@ def test_flat_in_vol_before_the_first_and_after_the_last_expiry() -> None:
 
 def test_expired_slices_are_ignored() -> None:
     m = make_market(surfaces={"STK": SURF})
-    later = np.datetime64("2027-01-04T20:00:00", "s")   # after the December slice
+    later = np.datetime64("2027-01-04T20:00:00", "s")  # after the December slice
     exp = np.array(["2027-02-19T21:00:00"], dtype="datetime64[s]")
     assert m.vols_for("STK", exp, np.array([110.0]), later)[0] == pytest.approx(0.23)
 
 
 def test_atm_only_slice_is_flat_across_strikes() -> None:
-    s = VolSurface(np.array(["2027-01-15"], dtype="datetime64[D]"), np.array([np.nan]), np.array([0.19]))
+    s = VolSurface(
+        np.array(["2027-01-15"], dtype="datetime64[D]"), np.array([np.nan]), np.array([0.19])
+    )
     m = make_market(surfaces={"STK": s})
     exp = np.array(["2027-01-15T21:00:00"] * 2, dtype="datetime64[s]")
     assert m.vols_for("STK", exp, np.array([50.0, 500.0]), T0) == pytest.approx([0.19, 0.19])
@@ -72,7 +74,8 @@ def test_missing_surface_is_named() -> None:
 def test_rate_curve_linear_in_tenor_and_flat_beyond() -> None:
     c = RateCurve(np.array([30.0, 365.0]), np.array([0.02, 0.04]))
     assert c.rate_at(np.array([0.0, 30 / 365, 197.5 / 365, 1.0, 5.0])) == pytest.approx(
-        [0.02, 0.02, 0.03, 0.04, 0.04])
+        [0.02, 0.02, 0.03, 0.04, 0.04]
+    )
     assert c.shifted(25).rate_at(1.0) == pytest.approx(0.0425)
     assert c.rate_at(1.0) == pytest.approx(0.04)
 

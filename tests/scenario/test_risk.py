@@ -13,7 +13,6 @@ import math
 
 import numpy as np
 import pytest
-from .scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
 
 from blotter.book import Underlyings
 from blotter.market import Market, RateCurve
@@ -26,15 +25,28 @@ from blotter.risk import (
     value_book,
 )
 
-HULL = Underlyings(symbols=("HUL",), kinds=("stock",), currencies=("USD",), betas=np.array([1.0]),
-                   div_yields=np.array([0.0]), calendars=("NYSE",))
+from .scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
+
+HULL = Underlyings(
+    symbols=("HUL",),
+    kinds=("stock",),
+    currencies=("USD",),
+    betas=np.array([1.0]),
+    div_yields=np.array([0.0]),
+    calendars=("NYSE",),
+)
 HULL_T = 20 / 52
 
 
 def _hull_market(spot: float = 49.0) -> Market:
     m = make_market(spots={"HUL": spot}, vols={"HUL": 0.20})
-    return Market(version=1, marks_as_of=m.marks_as_of, spots=m.spots, surfaces=m.surfaces,
-                  curves={"USD": RateCurve(np.array([1.0, 3650.0]), np.array([0.05, 0.05]))})
+    return Market(
+        version=1,
+        marks_as_of=m.marks_as_of,
+        spots=m.spots,
+        surfaces=m.surfaces,
+        curves={"USD": RateCurve(np.array([1.0, 3650.0]), np.array([0.05, 0.05]))},
+    )
 
 
 def _hull_valuation(qty: float = 1.0, mult: float = 1.0):
@@ -42,7 +54,9 @@ def _hull_valuation(qty: float = 1.0, mult: float = 1.0):
     return value_book(book, _hull_market(), T0)
 
 
-def _ql_greeks(call: bool, s: float, k: float, t_days: float, r: float, q: float, vol: float) -> dict[str, float]:
+def _ql_greeks(
+    call: bool, s: float, k: float, t_days: float, r: float, q: float, vol: float
+) -> dict[str, float]:
     import QuantLib as ql
 
     today = ql.Date(4, 12, 2026)
@@ -51,12 +65,21 @@ def _ql_greeks(call: bool, s: float, k: float, t_days: float, r: float, q: float
     payoff = ql.PlainVanillaPayoff(ql.Option.Call if call else ql.Option.Put, k)
     opt = ql.VanillaOption(payoff, ql.EuropeanExercise(today + int(t_days)))
     proc = ql.BlackScholesMertonProcess(
-        ql.QuoteHandle(ql.SimpleQuote(s)), ql.YieldTermStructureHandle(ql.FlatForward(today, q, dc)),
+        ql.QuoteHandle(ql.SimpleQuote(s)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, q, dc)),
         ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc)),
-        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), vol, dc)))
+        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), vol, dc)),
+    )
     opt.setPricingEngine(ql.AnalyticEuropeanEngine(proc))
-    return {"price": opt.NPV(), "delta": opt.delta(), "gamma": opt.gamma(), "vega": opt.vega(),
-            "theta": opt.theta(), "rho": opt.rho(), "div_rho": opt.dividendRho()}
+    return {
+        "price": opt.NPV(),
+        "delta": opt.delta(),
+        "gamma": opt.gamma(),
+        "vega": opt.vega(),
+        "theta": opt.theta(),
+        "rho": opt.rho(),
+        "div_rho": opt.dividendRho(),
+    }
 
 
 def test_hull_example_in_desk_units() -> None:
@@ -117,10 +140,18 @@ def test_hedges_count_delta_one_and_nothing_else() -> None:
     v = value_book(book, make_market(), T0)
     assert v.delta_shares.tolist() == [1500.0, 3000.0]
     assert v.delta_cash.tolist() == [1500 * 120.0, 3000 * 80.0]
-    for name in ("gamma_1pct", "vega_pt", "theta_day", "rho_pct", "vanna_pt", "volga_pt", "weighted_vega_pt"):
+    for name in (
+        "gamma_1pct",
+        "vega_pt",
+        "theta_day",
+        "rho_pct",
+        "vanna_pt",
+        "volga_pt",
+        "weighted_vega_pt",
+    ):
         assert getattr(v, name).tolist() == [0.0, 0.0]
     assert v.value[0] == 1500 * 120.0
-    assert v.value[1] == 0.0          # a future's value settles daily: zero after the mark
+    assert v.value[1] == 0.0  # a future's value settles daily: zero after the mark
     assert v.settles_daily.tolist() == [False, True]
 
 
@@ -145,7 +176,7 @@ def test_weighted_vega_scales_by_root_of_reference_over_expiry() -> None:
 def test_vanna_and_volga_in_desk_units() -> None:
     """Haug 2007 ch. 2 (from memory): vanna = −e^{(b−r)T} n(d1) d2/σ, volga = vega·d1·d2/σ."""
     v = _hull_valuation()
-    s, k, t, r, sig = 49.0, 50.0, float(v.years[0]), 0.05, 0.20   # T to the second
+    s, k, t, r, sig = 49.0, 50.0, float(v.years[0]), 0.05, 0.20  # T to the second
     d1 = (math.log(s / k) + (r + sig**2 / 2) * t) / (sig * math.sqrt(t))
     d2 = d1 - sig * math.sqrt(t)
     n1 = math.exp(-d1 * d1 / 2) / math.sqrt(2 * math.pi)
@@ -160,7 +191,9 @@ def test_aggregation_by_underlying_and_expiry_adds_to_the_total(mixed_book) -> N
     for by in ("underlying", "expiry", "position"):
         rows = aggregate(v, by)
         for name in ("value", "delta_cash", "vega_pt", "theta_day", "rho_pct", "beta_delta_cash"):
-            assert sum(getattr(r, name) for r in rows) == pytest.approx(getattr(tot, name), rel=1e-12)
+            assert sum(getattr(r, name) for r in rows) == pytest.approx(
+                getattr(tot, name), rel=1e-12
+            )
     under = aggregate(v, "underlying")
     assert [r.underlying for r in under] == ["IDX", "STK", "FUT", "FXA"]
     assert [r.spot for r in under] == [4500.0, 120.0, 80.0, 1.10]
@@ -171,13 +204,32 @@ def test_aggregation_by_underlying_and_expiry_adds_to_the_total(mixed_book) -> N
 
 def test_expiry_buckets() -> None:
     # T0 is Friday 2026-12-04 15:00 New York: the week ends Sunday 12-06.
-    book = make_book([Row("IDX", 1, 4500, d) for d in (2, 10, 30, 75, 370, 400, -1)] + [Row("STK", 10, mult=1)])
+    book = make_book(
+        [Row("IDX", 1, 4500, d) for d in (2, 10, 30, 75, 370, 400, -1)] + [Row("STK", 10, mult=1)]
+    )
     v = value_book(book, make_market(), T0)
     labels = [v.bucket_labels[c] for c in v.bucket_codes]
-    assert labels == ["this week", "this month", "2027-01", "2027-02", "2027-12", "2028", "expired", "hedges"]
+    assert labels == [
+        "this week",
+        "this month",
+        "2027-01",
+        "2027-02",
+        "2027-12",
+        "2028",
+        "expired",
+        "hedges",
+    ]
     rows = aggregate(v, "expiry")
-    assert [r.label for r in rows] == ["expired", "this week", "this month", "2027-01", "2027-02",
-                                       "2027-12", "2028", "hedges"]
+    assert [r.label for r in rows] == [
+        "expired",
+        "this week",
+        "this month",
+        "2027-01",
+        "2027-02",
+        "2027-12",
+        "2028",
+        "hedges",
+    ]
 
 
 def test_expired_option_is_worth_intrinsic_with_no_greeks() -> None:

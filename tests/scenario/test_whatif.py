@@ -13,18 +13,34 @@ import math
 
 import numpy as np
 import pytest
-from .scenario_books import RATE, SPOTS, T0, UNDERLYINGS, Row, make_book, make_market, mixed_rows, ql_price
 
 from blotter.risk import value_book
 from blotter.scenario import MoveError, apply_move, parse_move
+
+from .scenario_books import (
+    RATE,
+    SPOTS,
+    T0,
+    UNDERLYINGS,
+    Row,
+    make_book,
+    make_market,
+    mixed_rows,
+    ql_price,
+)
 
 VOLS = {"IDX": 0.20, "STK": 0.35, "FUT": 0.30, "FXA": 0.10}
 DIVS = dict(zip(UNDERLYINGS.symbols, UNDERLYINGS.div_yields, strict=True))
 BETAS = dict(zip(UNDERLYINGS.symbols, UNDERLYINGS.betas, strict=True))
 
 
-def _ql_full(rows: list[Row], spots1: dict[str, float], vol_shift: dict[str, float],
-             days_passed: int, dr: float) -> np.ndarray:
+def _ql_full(
+    rows: list[Row],
+    spots1: dict[str, float],
+    vol_shift: dict[str, float],
+    days_passed: int,
+    dr: float,
+) -> np.ndarray:
     """Each position's change valued by QuantLib on its own: shocked value − base value."""
     out = []
     for r in rows:
@@ -34,27 +50,40 @@ def _ql_full(rows: list[Row], spots1: dict[str, float], vol_shift: dict[str, flo
             continue
         kind = dict(zip(UNDERLYINGS.symbols, UNDERLYINGS.kinds, strict=True))[r.sym]
         div0 = RATE if kind == "future" else DIVS[r.sym]
-        div1 = RATE + dr if kind == "future" else DIVS[r.sym]   # futures keep b = 0
+        div1 = RATE + dr if kind == "future" else DIVS[r.sym]  # futures keep b = 0
         base = ql_price(r.call, SPOTS[r.sym], r.strike, r.days, RATE, div0, VOLS[r.sym])
-        moved = ql_price(r.call, spots1[r.sym], r.strike, r.days - days_passed, RATE + dr, div1,
-                         VOLS[r.sym] + vol_shift.get(r.sym, 0.0))
+        moved = ql_price(
+            r.call,
+            spots1[r.sym],
+            r.strike,
+            r.days - days_passed,
+            RATE + dr,
+            div1,
+            VOLS[r.sym] + vol_shift.get(r.sym, 0.0),
+        )
         out.append(units * (moved - base))
     return np.array(out)
 
 
 CASES = [
     ("spot -3% vol +2 days 1", {s: -3.0 for s in SPOTS}, {s: 0.02 for s in SPOTS}, 1, 0.0),
-    ("spot +5% beta vol -10% rate +25bp", {s: 5.0 * BETAS[s] for s in SPOTS},
-     {s: -0.1 * VOLS[s] for s in SPOTS}, 0, 0.0025),
+    (
+        "spot +5% beta vol -10% rate +25bp",
+        {s: 5.0 * BETAS[s] for s in SPOTS},
+        {s: -0.1 * VOLS[s] for s in SPOTS},
+        0,
+        0.0025,
+    ),
     ("IDX spot -5% FUT vol +3 days 7", {"IDX": -5.0}, {"FUT": 0.03}, 7, 0.0),
-    ("bdays 1 rate -50bp", {}, {}, 3, -0.005),             # Friday → Monday: 3 calendar days
+    ("bdays 1 rate -50bp", {}, {}, 3, -0.005),  # Friday → Monday: 3 calendar days
     ("spot -8% days 12 vol +4", {s: -8.0 for s in SPOTS}, {s: 0.04 for s in SPOTS}, 12, 0.0),
 ]
 
 
 @pytest.mark.parametrize(("text", "spot_pct", "vol_shift", "days", "dr"), CASES)
 def test_full_revaluation_matches_quantlib_position_by_position(
-        text: str, spot_pct: dict[str, float], vol_shift: dict[str, float], days: int, dr: float) -> None:
+    text: str, spot_pct: dict[str, float], vol_shift: dict[str, float], days: int, dr: float
+) -> None:
     rows = mixed_rows()
     book = make_book(rows)
     v = value_book(book, make_market(), T0)
@@ -95,7 +124,7 @@ def test_expiring_option_settles_at_intrinsic_and_is_flagged() -> None:
 def test_pin_risk_near_the_strike() -> None:
     book = make_book(mixed_rows())
     v = value_book(book, make_market(), T0)
-    res = apply_move(v, parse_move("STK spot +4% days 12"))       # 124.8 against the 125 strike
+    res = apply_move(v, parse_move("STK spot +4% days 12"))  # 124.8 against the 125 strike
     (e,) = res.expiring
     assert e.pin_risk and not e.in_the_money and e.delivered_units == 0.0
     assert e.distance_pct == pytest.approx((124.8 / 125 - 1) * 100)
@@ -109,7 +138,9 @@ def test_cash_settled_expiry_delivers_nothing() -> None:
     assert e.settlement == pytest.approx(100.0 * 300)
 
 
-def _bs(call: bool, s: float, k: float, t: float, r: float, q: float, sig: float) -> dict[str, float]:
+def _bs(
+    call: bool, s: float, k: float, t: float, r: float, q: float, sig: float
+) -> dict[str, float]:
     """Closed-form Black–Scholes–Merton greeks (Hull Ch. 19 formulas), raw units."""
     st = math.sqrt(t)
     d1 = (math.log(s / k) + (r - q + sig * sig / 2) * t) / (sig * st)
@@ -120,9 +151,13 @@ def _bs(call: bool, s: float, k: float, t: float, r: float, q: float, sig: float
     assert call
     vega = s * eq * n1 * st
     return {
-        "delta": eq * big_n(d1), "gamma": eq * n1 / (s * sig * st), "vega": vega,
+        "delta": eq * big_n(d1),
+        "gamma": eq * n1 / (s * sig * st),
+        "vega": vega,
         "theta": -s * eq * n1 * sig / (2 * st) - r * k * er * big_n(d2) + q * s * eq * big_n(d1),
-        "rho": k * t * er * big_n(d2), "vanna": -eq * n1 * d2 / sig, "volga": vega * d1 * d2 / sig,
+        "rho": k * t * er * big_n(d2),
+        "vanna": -eq * n1 * d2 / sig,
+        "volga": vega * d1 * d2 / sig,
     }
 
 
@@ -130,12 +165,23 @@ def _hull():
     from blotter.book import Underlyings
     from blotter.market import Market, RateCurve
 
-    und = Underlyings(symbols=("HUL",), kinds=("stock",), currencies=("USD",), betas=np.array([1.0]),
-                      div_yields=np.array([0.0]), calendars=("NYSE",))
+    und = Underlyings(
+        symbols=("HUL",),
+        kinds=("stock",),
+        currencies=("USD",),
+        betas=np.array([1.0]),
+        div_yields=np.array([0.0]),
+        calendars=("NYSE",),
+    )
     book = make_book([Row("HUL", 1, 50.0, call=True, mult=1, years=20 / 52)], und, ref=None)
     m = make_market(spots={"HUL": 49.0}, vols={"HUL": 0.20})
-    m = Market(version=1, marks_as_of=m.marks_as_of, spots=m.spots, surfaces=m.surfaces,
-               curves={"USD": RateCurve(np.array([1.0]), np.array([0.05]))})
+    m = Market(
+        version=1,
+        marks_as_of=m.marks_as_of,
+        spots=m.spots,
+        surfaces=m.surfaces,
+        curves={"USD": RateCurve(np.array([1.0]), np.array([0.05]))},
+    )
     return value_book(book, m, T0)
 
 
@@ -145,9 +191,15 @@ def test_taylor_terms_for_one_option_match_hand_derived_values() -> None:
     g = _bs(True, 49.0, 50.0, t, 0.05, 0.0, 0.20)
     res = apply_move(v, parse_move("spot +1 vol +1 days 1 rate +100bp"))
     ds, dv, dt, dr = 1.0, 0.01, 1 / 365, 0.01
-    expected = {"delta": g["delta"] * ds, "gamma": 0.5 * g["gamma"] * ds**2, "vega": g["vega"] * dv,
-                "volga": 0.5 * g["volga"] * dv**2, "vanna": g["vanna"] * ds * dv,
-                "theta": g["theta"] * dt, "rho": g["rho"] * dr}
+    expected = {
+        "delta": g["delta"] * ds,
+        "gamma": 0.5 * g["gamma"] * ds**2,
+        "vega": g["vega"] * dv,
+        "volga": 0.5 * g["volga"] * dv**2,
+        "vanna": g["vanna"] * ds * dv,
+        "theta": g["theta"] * dt,
+        "rho": g["rho"] * dr,
+    }
     for name, value in expected.items():
         assert res.total.terms[name] == pytest.approx(value, rel=1e-7), name
     # The same terms against Hull's printed greeks (from memory), at their printed precision.
@@ -227,7 +279,9 @@ def test_beta_relative_and_weighted_vol_moves(mixed_book) -> None:
     assert res.vol_after[opt] == pytest.approx(v.vol[opt] * 0.9)
     res = apply_move(v, parse_move("vol +2 weighted"))
     days = v.years[opt] * 365
-    assert res.vol_after[opt] - v.vol[opt] == pytest.approx(0.02 * np.sqrt(30 / np.maximum(days, 7)))
+    assert res.vol_after[opt] - v.vol[opt] == pytest.approx(
+        0.02 * np.sqrt(30 / np.maximum(days, 7))
+    )
     res = apply_move(v, parse_move("vol +1 IDX vol +3"))
     idx = mixed_book.underlying_idx == 0
     assert res.vol_after[opt & idx] - v.vol[opt & idx] == pytest.approx(0.03)
@@ -237,7 +291,9 @@ def test_beta_relative_and_weighted_vol_moves(mixed_book) -> None:
 def test_named_spot_part_overrides_the_general_one(mixed_book) -> None:
     v = value_book(mixed_book, make_market(), T0)
     res = apply_move(v, parse_move("spot -2% IDX spot =4400 STK spot +1.5"))
-    s1 = dict(zip(mixed_book.underlyings.symbols, [4400.0, 121.5, 80 * 0.98, 1.10 * 0.98], strict=True))
+    s1 = dict(
+        zip(mixed_book.underlyings.symbols, [4400.0, 121.5, 80 * 0.98, 1.10 * 0.98], strict=True)
+    )
     expected = np.array([s1[mixed_book.underlyings.symbols[i]] for i in mixed_book.underlying_idx])
     assert res.spot_after == pytest.approx(expected)
 
@@ -255,7 +311,9 @@ def test_by_underlying_rows_add_to_the_total(mixed_book) -> None:
     v = value_book(mixed_book, make_market(), T0)
     res = apply_move(v, parse_move("spot -3% vol +2 days 1 rate +10bp"))
     for name in ("full", "estimate_1", "estimate_2", "error_1", "error_2"):
-        assert sum(getattr(r, name) for r in res.by_underlying) == pytest.approx(getattr(res.total, name))
+        assert sum(getattr(r, name) for r in res.by_underlying) == pytest.approx(
+            getattr(res.total, name)
+        )
     for term in res.total.terms:
         assert sum(r.terms[term] for r in res.by_underlying) == pytest.approx(res.total.terms[term])
     assert res.total.full == pytest.approx(float(res.full.sum()))
