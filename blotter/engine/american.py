@@ -70,7 +70,7 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     beta = (0.5 - bv) + np.sqrt(np.square(bv - 0.5) + 2.0 * r / v2)
     b_inf = beta / (beta - 1.0) * k
     b_0 = np.maximum(k, r / (r - b) * k)
-    gap = b_inf - b_0
+    gap = np.maximum(b_inf - b_0, 1e-12 * k)
     scale = k * k / (gap * b_0)
     # h(t) = −(b t + 2σ√t) K² / ((B∞ − B0) B0), capped at 0 so that B0 <= I <= B∞ (the cap binds
     # only for strongly negative carry with a small vol, where the boundary is B0).
@@ -158,12 +158,15 @@ def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r
     v_c = np.maximum(v, VOL_FLOOR)
     bv = b_c / (v_c * v_c)
     disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
-    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0)
+    beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
+    # β → 1 as b → r, where the early-exercise premium vanishes; β <= 1 + 1e-9 is European.
+    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
     intrinsic = np.maximum(w * (s - k), 0.0)
     out = np.maximum(euro, intrinsic)
     if live.any():
         idx = np.flatnonzero(live)
-        bs = bs2002_call(s_c[idx], k_c[idx], t[idx], r_c[idx], b_c[idx], v_c[idx])
+        t_c = np.maximum(t[idx], black.YEARS_FLOOR)
+        bs = bs2002_call(s_c[idx], k_c[idx], t_c, r_c[idx], b_c[idx], v_c[idx])
         out[idx] = np.maximum(out[idx], bs)
     return out
 
