@@ -25,8 +25,8 @@ from blotter.risk import value_book
 from blotter.scenario import apply_move, parse_move
 from blotter.store import open_store
 
-AT = "2026-12-01T16:45"
-"""Valuation time of the checks (desk-local): just after the demo's 2026-12-01 close."""
+AT = "2026-11-24T16:45"
+"""Valuation time of the checks (desk-local): a quarter hour after the demo's last close."""
 
 EXPOSURE_KEYS = {
     "value",
@@ -81,6 +81,11 @@ def _all_finite(obj: Any) -> bool:
 def _valuation(db: Path):
     store = open_store(db, read_only=True)
     return value_book(store.load_book(), store.load_market(), cal.to_instant(AT))
+
+
+def test_valuation_time_follows_the_demo_close(demo_db: Path) -> None:
+    last = open_store(demo_db, read_only=True).mark_sets("close")[-1]
+    assert cal.to_instant(AT) - cal.to_instant(last.marked_at) == np.timedelta64(15 * 60, "s")
 
 
 def test_risk_json_keys_and_totals(demo_db: Path) -> None:
