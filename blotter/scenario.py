@@ -53,7 +53,13 @@ PIN_BAND_PCT = 1.0
 """An expiring option whose moved spot is within this % of its strike is flagged as pin risk."""
 
 STICKY_RULE = "sticky strike"
-"""How vols follow spot in every move and ladder: each strike keeps its vol."""
+"""The default rule for how vols follow spot: each strike keeps its vol."""
+
+MONEYNESS_RULE = "sticky moneyness"
+"""The other rule: each option takes the marked vol at its moneyness K/S after the spot move."""
+
+VOL_RULES = (STICKY_RULE, MONEYNESS_RULE)
+"""Rules a move or a ladder may use."""
 
 DEFAULT_SPOT_PCTS = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
 """Ladder rows: spot moves in % of every underlying's spot."""
@@ -130,6 +136,7 @@ class Move:
     days: float = 0.0
     bdays: int = 0
     rate_bp: float = 0.0
+    vol_rule: str = STICKY_RULE
 
     @property
     def is_empty(self) -> bool:
@@ -159,6 +166,8 @@ class Move:
             words.append(f"bdays {self.bdays}")
         if self.rate_bp:
             words.append(f"rate {self.rate_bp:+g}bp")
+        if self.vol_rule == MONEYNESS_RULE:
+            words.append("moneyness")
         return " ".join(words) or "no move"
 
     def as_dict(self) -> dict[str, Any]:
@@ -176,7 +185,7 @@ class Move:
             "days": self.days,
             "bdays": self.bdays,
             "rate_bp": self.rate_bp,
-            "vol_rule": STICKY_RULE,
+            "vol_rule": self.vol_rule,
         }
 
 
@@ -212,11 +221,18 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
     days: float | None = None
     bdays: int | None = None
     rate: float | None = None
+    rule = STICKY_RULE
     k = 0
     while k < len(toks):
         word = toks[k][0]
         low = word.lower()
         symbol: str | None = None
+        if low in ("moneyness", "sticky-moneyness"):
+            if rule == MONEYNESS_RULE:
+                raise fail("'moneyness' given twice", k)
+            rule = MONEYNESS_RULE
+            k += 1
+            continue
         if low not in _KEYWORDS:
             nxt = toks[k + 1][0].lower() if k + 1 < len(toks) else ""
             if low in ("beta", "weighted"):
@@ -316,6 +332,7 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
         days=days or 0.0,
         bdays=bdays or 0,
         rate_bp=rate or 0.0,
+        vol_rule=rule,
     )
 
 
@@ -472,10 +489,13 @@ class MoveResult:
     spot_move_u: np.ndarray  # Δspot per underlying (n_u,), currency
     vol_plan: _VolPlan
     rate_move: float  # decimal
+    dvol_applied: np.ndarray | None = None  # (n,) when not the plan's (moneyness, vol floor)
 
     @cached_property
     def dvol(self) -> np.ndarray:
         """Vol change per position (n,), decimal; 0 for hedges and options past expiry."""
+        if self.dvol_applied is not None:
+            return self.dvol_applied
         return _dvol_all(self.valuation, prepare(self.valuation), self.vol_plan)
 
     @cached_property
@@ -813,6 +833,21 @@ def _dvol_live(p: _Prep, plan: _VolPlan) -> np.ndarray | float:
     return out
 
 
+def _smile_vols(v: BookValuation, p: _Prep, spots_after_u: np.ndarray) -> np.ndarray:
+    """Vols (m,) of the live options at their moneyness after the spot move (sticky moneyness):
+    the marked vol at strike K × S / S', same expiry, read at the valuation time."""
+    out = p.vol_l.copy()
+    s0 = v.underlying_spots
+    symbols = v.book.underlyings.symbols
+    expiries = v.book.expiries[p.live_idx]
+    for j in np.flatnonzero(p.present & (spots_after_u != s0)):
+        rows = np.flatnonzero(p.uidx_l == j)
+        if rows.size:
+            scaled = p.strike[rows] * (s0[j] / spots_after_u[j])
+            out[rows] = v.market.vols_for(symbols[j], expiries[rows], scaled, v.valuation_time)
+    return out
+
+
 def _dvol_all(v: BookValuation, p: _Prep, plan: _VolPlan) -> np.ndarray:
     out = np.zeros(len(v))
     d = _dvol_live(p, plan)
@@ -846,6 +881,15 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     # Full revaluation of the live options.
     s1 = p.spot_l + ds_u[p.uidx_l] if ds_u.any() else p.spot_l
     dvol = _dvol_live(p, plan)
+    moneyness = move.vol_rule == MONEYNESS_RULE and bool(ds_u.any())
+    if moneyness:
+        smile = _smile_vols(v, p, v.underlying_spots + ds_u)
+        dvol = (
+            smile * (1.0 + plan.rel_u[p.uidx_l])
+            + plan.add_u[p.uidx_l]
+            + plan.wadd_u[p.uidx_l] * p.weight_l
+            - p.vol_l
+        )
     vol1 = p.vol_l + dvol if not (isinstance(dvol, float) and dvol == 0.0) else p.vol_l
     floored = False
     if not isinstance(dvol, float) or dvol < 0:
@@ -853,6 +897,10 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         if np.any(low):
             vol1 = np.maximum(vol1, VOL_FLOOR)
             floored = True
+    dvol_applied: np.ndarray | None = None
+    if floored or moneyness:
+        dvol_applied = np.zeros(n)
+        dvol_applied[p.live_idx] = vol1 - p.vol_l
     t_after = p.years - dt if dt else p.years
     r1 = p.rate_l + dr if dr else p.rate_l
     b1 = p.carry_l + dr * p.carry_moves if dr else p.carry_l
@@ -908,8 +956,8 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         n_through_u = np.zeros(p.n_u, dtype=np.int64)
 
     # Taylor terms per underlying from the greek sums.
-    if floored:
-        res_terms = _terms_per_underlying_exact(v, p, ds_u, plan, dt, dr)
+    if dvol_applied is not None:
+        res_terms = _terms_per_underlying_exact(p, ds_u, dvol_applied, dt, dr)
     else:
         sm = p.sums
         a, rl, w = plan.add_u, plan.rel_u, plan.wadd_u
@@ -955,6 +1003,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         spot_move_u=ds_u,
         vol_plan=plan,
         rate_move=dr,
+        dvol_applied=dvol_applied,
     )
     notes: list[str] = []
     if through.any():
@@ -971,12 +1020,10 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
 
 
 def _terms_per_underlying_exact(
-    v: BookValuation, p: _Prep, ds_u: np.ndarray, plan: _VolPlan, dt: float, dr: float
+    p: _Prep, ds_u: np.ndarray, dv: np.ndarray, dt: float, dr: float
 ) -> dict[str, np.ndarray]:
-    """Per-underlying terms from per-position arrays (used when the vol floor bites)."""
-    dv = _dvol_all(v, p, plan)
-    vol1 = np.where(v.live, np.maximum(np.nan_to_num(v.vol) + dv, VOL_FLOOR), 0.0)
-    dv = np.where(v.live, vol1 - np.nan_to_num(v.vol), 0.0)
+    """Per-underlying terms from per-position vol changes ``dv`` (n,): sticky moneyness, or
+    when the vol floor bites."""
     ds = ds_u[p.uidx]
 
     def per_u(a: np.ndarray) -> np.ndarray:
@@ -1066,14 +1113,19 @@ def ladder(
     vol_pts: Sequence[float] = DEFAULT_VOL_PTS,
     days: float = 0.0,
     chunk: int | None = None,
+    rule: str = STICKY_RULE,
 ) -> Ladder:
     """Full revaluation P&L of every (spot %, vol pts) cell in one broadcast pass, chunked.
 
-    Each cell moves every spot by the same % and every vol by the same points (sticky strike),
-    after ``days`` calendar days; options expiring inside the roll settle at intrinsic. ``chunk``
-    bounds positions per engine call (default: ``LADDER_CHUNK_CELLS`` / cells). The estimate is
-    the second-order Taylor sum from the base greeks (first order beside it).
+    Each cell moves every spot by the same % and every vol by the same points, after ``days``
+    calendar days; options expiring inside the roll settle at intrinsic. Vols are sticky strike
+    unless ``rule`` is ``MONEYNESS_RULE`` (each option then takes the marked vol at its moneyness
+    on the moved spot, before the vol shift). ``chunk`` bounds positions per engine call (default
+    ``LADDER_CHUNK_CELLS`` / cells). The estimate is the second-order Taylor sum from the base
+    greeks (first order beside it).
     """
+    if rule not in VOL_RULES:
+        raise ValueError(f"rule must be one of {', '.join(VOL_RULES)}, not {rule!r}")
     sp = np.asarray(spot_pcts, dtype=np.float64).ravel()
     vp = np.asarray(vol_pts, dtype=np.float64).ravel()
     if sp.size == 0 or vp.size == 0:
@@ -1119,6 +1171,10 @@ def ladder(
     )
     shock_s = (1.0 + rel)[:, None, None]
     shock_v = dvol[None, :, None]
+    smile: np.ndarray | None = None
+    if rule == MONEYNESS_RULE and m:
+        s0 = v.underlying_spots
+        smile = np.stack([_smile_vols(v, p, s0 * (1.0 + x)) for x in rel])  # (n_s, m)
     for a in range(0, m, step):
         b = min(a + step, m)
         sl = slice(a, b)
@@ -1143,7 +1199,15 @@ def ladder(
             t_c[keep][None, None, :],
             rate_l[sl][keep][None, None, :],
             carry_l[sl][keep][None, None, :],
-            np.maximum(vol_l[sl][keep][None, None, :] + shock_v, VOL_FLOOR),
+            np.maximum(
+                (
+                    vol_l[sl][keep][None, None, :]
+                    if smile is None
+                    else smile[:, sl][:, keep][:, None, :]
+                )
+                + shock_v,
+                VOL_FLOOR,
+            ),
             american=am[None, None, :] if am.any() else False,
         )
         cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
@@ -1162,6 +1226,18 @@ def ladder(
     r_, dv_ = rel[:, None], dvol[None, :]
     est1 = np.broadcast_to(r_ * d1 + dv_ * vg + th * dt, (n_s, n_v)).copy()
     est2 = est1 + 0.5 * g2 * r_ * r_ + 0.5 * vo * dv_ * dv_ + va * r_ * dv_
+    if smile is not None:
+        # Each option's vol also moves by its smile change e_i(s) = σ_i(K S/S') − σ_i.
+        e = smile - vol_l[None, :]
+        vega_l, volga_l, vanna_l = p.vega_u[li], p.volga_u[li], p.vanna_u[li]
+        a_s = (e @ vega_l)[:, None]
+        est1 += a_s
+        est2 += (
+            a_s
+            + 0.5 * ((e * e) @ volga_l)[:, None]
+            + dv_ * (e @ volga_l)[:, None]
+            + r_ * (e @ (vanna_l * spot_l))[:, None]
+        )
     worst = np.unravel_index(int(np.argmin(full)), full.shape)
     return Ladder(
         spot_pcts=sp,
@@ -1174,6 +1250,7 @@ def ladder(
         worst=(int(worst[0]), int(worst[1])),
         time_after=t1,
         n_through_expiry=n_through,
+        rule=rule,
     )
 
 

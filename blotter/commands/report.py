@@ -42,11 +42,16 @@ EXPOSURE_KEYS = (
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` and ``explain --json``."""
 
-STICKY_RULE_SHORT = "vols sticky strike"
-"""The vol rule, short form for titles."""
+RULE_NOTES = {
+    "sticky strike": "vols sticky strike: each option keeps the vol of its strike and expiry",
+    "sticky moneyness": "vols sticky moneyness: each option takes the marked vol at its K/S "
+    "on the moved spot",
+}
+"""Said under every ladder and what-if output, by vol rule."""
 
-STICKY_NOTE = "vols sticky strike: each option keeps the vol of its strike and expiry"
-"""Said under every ladder and what-if output."""
+
+def _rule_note(rule: str) -> str:
+    return RULE_NOTES.get(rule, f"vols {rule}")
 
 
 def _money(x: float, places: int = 0) -> str:
@@ -336,12 +341,15 @@ MOVE is one line of parts, combined and applied together:
             ("bdays 1", "to the next business day (Friday -> Monday)"),
             ("rate +25bp", "every rate up 25 basis points"),
             ("spot -3% vol +2 days 1", "parts combine"),
+            ("spot -5% moneyness", "vols sticky moneyness instead of sticky strike"),
         )
     )
     + """
 
 Keywords are case-insensitive; a named part overrides an every-underlying part for that name.
-Vols are sticky strike; a day roll keeps each contract's vol and rate. Options expiring inside the
+Vols are sticky strike (each option keeps its strike's vol) unless the line says moneyness (each
+option takes the marked vol at its K/S on the moved spot); a day roll keeps each contract's vol
+and rate. Options expiring inside the
 roll settle at intrinsic on the moved spot, are listed, and flagged as pin risk within 1% of the
 strike. Columns: full revaluation change, estimate 1st order (delta, vega, theta, rho) and 2nd
 order (+ gamma, volga, vanna), error = full - estimate in currency and as % of |full|.
@@ -401,7 +409,7 @@ def whatif(
             "total": res.total.as_dict(),
             "by_underlying": [r.as_dict() for r in res.by_underlying],
             "expiring": [e.as_dict() for e in res.expiring],
-            "vol_rule": "sticky strike",
+            "vol_rule": mv.vol_rule,
             "notes": list(res.notes),
         }
         print_json(out)
@@ -437,7 +445,7 @@ def whatif(
         print_csv(cols, rows)
         return
     rows = [[r.label, *_move_row_cells(r)] for r in [*res.by_underlying, res.total]]
-    click.echo(f"what-if: {mv.describe()} · money in book currency · {STICKY_RULE_SHORT}")
+    click.echo(f"what-if: {mv.describe()} · money in book currency · vols {mv.vol_rule}")
     click.echo("")
     print_table(
         ["underlying", "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"],
@@ -468,7 +476,7 @@ def whatif(
             right=[False, True, True, True, True, False],
         )
     click.echo(
-        f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}, "
+        f"{_rule_note(mv.vol_rule)}; valued at {_iso(v.valuation_time)}, "
         f"after the move {cal.iso(res.time_after)}"
     )
     if any(r.n_through_expiry for r in res.by_underlying):
@@ -518,6 +526,13 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     show_default=True,
     help="Calendar days to roll forward in every cell.",
 )
+@click.option(
+    "--rule",
+    type=click.Choice(["strike", "moneyness"]),
+    default="strike",
+    show_default=True,
+    help="How vols follow spot: sticky strike, or sticky moneyness (the smile moves with spot).",
+)
 @_at_option
 @output_options
 def ladder(
@@ -525,6 +540,7 @@ def ladder(
     spot_list: str | None,
     vol_list: str | None,
     days: float,
+    rule: str,
     at: str | None,
     as_json: bool,
     as_csv: bool,
@@ -532,8 +548,9 @@ def ladder(
     """Spot × vol ladder of the book's P&L: full revaluation, the greeks' estimate and the error.
 
     Rows move every spot by the same %, columns every vol by the same points; vols are sticky
-    strike (each option keeps its strike's vol). The estimate is second order (delta, gamma, vega,
-    volga, vanna, theta). The worst cell is the lowest full P&L. Money in the book's currency.
+    strike (each option keeps its strike's vol) unless --rule moneyness. The estimate is second
+    order (delta, gamma, vega, volga, vanna, theta). The worst cell is the lowest full P&L. Money
+    in the book's currency.
     """
     from blotter import calendar as cal
     from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS
@@ -546,7 +563,7 @@ def ladder(
         raise click.BadParameter("a spot move must be above -100%", param_hint="--spot")
     store = _open(db_path)
     v = _value(store, at)
-    lad = run_ladder(v, sp, vp, days=days)
+    lad = run_ladder(v, sp, vp, days=days, rule=f"sticky {rule}")
     i, j = lad.worst
     worst = {
         "spot_pct": sp[i],
@@ -608,7 +625,7 @@ def ladder(
         f"worst cell: spot {sp[i]:+g}% vol {vp[j]:+g} pts: {_money(worst['full'])} "
         f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀"
     )
-    click.echo(f"{STICKY_NOTE}; valued at {_iso(v.valuation_time)}")
+    click.echo(f"{_rule_note(lad.rule)}; valued at {_iso(v.valuation_time)}")
 
 
 def _set_dict(s: Any) -> Any:

@@ -306,3 +306,34 @@ def test_explain_to_now_table_and_bad_set(demo_db: Path) -> None:
     result = _run(["explain", "--db", str(demo_db), "--from", "999"], code=1)
     assert "999" in result.output
     _run(["explain", "--db", str(demo_db), "--to", "yesterday"], code=2)
+
+
+def test_moneyness_rule_reaches_the_outputs(demo_db: Path) -> None:
+    out = _json(
+        [
+            "ladder",
+            "--db",
+            str(demo_db),
+            "--at",
+            AT,
+            "--rule",
+            "moneyness",
+            "--spot",
+            "-5,5",
+            "--vol",
+            "0",
+        ]
+    )
+    assert out["rule"] == "sticky moneyness"
+    v = _valuation(demo_db)
+    from blotter.scenario import MONEYNESS_RULE, ladder
+
+    lad = ladder(v, [-5, 5], [0], rule=MONEYNESS_RULE)
+    assert np.array(out["full"]) == pytest.approx(lad.full, rel=1e-12)
+    w = _json(["whatif", "--db", str(demo_db), "--at", AT, "spot -5% moneyness"])
+    assert w["move"]["vol_rule"] == "sticky moneyness" and w["vol_rule"] == "sticky moneyness"
+    assert w["total"]["full"] == pytest.approx(lad.full[0, 0], rel=1e-9)
+    assert (
+        "sticky moneyness"
+        in _run(["ladder", "--db", str(demo_db), "--at", AT, "--rule", "moneyness"]).stdout
+    )

@@ -84,3 +84,26 @@ def test_empty_book() -> None:
     v = value_book(make_book([]), make_market(), T0)
     lad = ladder(v)
     assert np.all(lad.full == 0.0)
+
+
+def test_moneyness_ladder_matches_the_what_if() -> None:
+    from blotter.market import VolSurface
+    from blotter.scenario import MONEYNESS_RULE
+
+    skew = VolSurface(
+        np.array(["2026-12-18"] * 3, dtype="datetime64[D]"),
+        np.array([100.0, 120.0, 140.0]),
+        np.array([0.45, 0.35, 0.30]),
+    )
+    market = make_market(surfaces={**make_market().surfaces, "STK": skew})
+    v = value_book(_book_with_american(), market, T0)
+    lad = ladder(v, spot_pcts=[-8, 0, 6], vol_pts=[-2, 3], days=2, rule=MONEYNESS_RULE)
+    assert lad.rule == "sticky moneyness"
+    for i, s in enumerate((-8, 0, 6)):
+        for j, dv in enumerate((-2, 3)):
+            res = apply_move(v, parse_move(f"spot {s:+g}% vol {dv:+g} days 2 moneyness")).total
+            assert lad.full[i, j] == pytest.approx(res.full, rel=1e-9, abs=1e-6)
+            assert lad.estimate[i, j] == pytest.approx(res.estimate_2, rel=1e-9, abs=1e-6)
+            assert lad.estimate_1[i, j] == pytest.approx(res.estimate_1, rel=1e-9, abs=1e-6)
+    with pytest.raises(ValueError, match="rule"):
+        ladder(v, rule="sticky delta")

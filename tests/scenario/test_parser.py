@@ -144,3 +144,12 @@ def test_malformed_lines_point_at_the_word(text: str, word: str | None, fragment
 
 def test_error_is_a_value_error() -> None:
     assert issubclass(MoveSyntaxError, ValueError)
+
+
+def test_moneyness_rule_word() -> None:
+    move = parse_move("spot -5% moneyness vol +1", SYMBOLS)
+    assert move.vol_rule == "sticky moneyness" and move.vol == (VolShift(None, 1.0, "pts"),)
+    assert parse_move("spot -5%").vol_rule == "sticky strike"
+    assert "moneyness" in move.describe()
+    with pytest.raises(MoveSyntaxError, match="twice"):
+        parse_move("moneyness spot -1% moneyness")

@@ -334,3 +334,52 @@ def test_the_base_valuation_is_not_changed_by_a_move(mixed_book) -> None:
     apply_move(v, parse_move("spot -30% vol +20 days 30"))
     assert np.array_equal(before[0], v.value) and np.array_equal(before[1], v.vol, equal_nan=True)
     assert np.array_equal(before[2], v.spot)
+
+
+def _skew_market():
+    from blotter.market import VolSurface
+
+    skew = VolSurface(
+        expiries=np.array(["2026-12-18"] * 3 + ["2027-02-05"] * 3, dtype="datetime64[D]"),
+        strikes=np.array([100.0, 120.0, 140.0] * 2),
+        vols=np.array([0.45, 0.35, 0.30, 0.40, 0.33, 0.29]),
+    )
+    return make_market(surfaces={**make_market().surfaces, "STK": skew})
+
+
+def test_sticky_moneyness_reads_the_smile_at_the_moved_moneyness() -> None:
+    """Under sticky moneyness an option keeps the vol of its K/S (Derman, "Regimes of
+    Volatility", 1999): after STK −10% (120 → 108) the 125 strike is read at 125 × 120/108."""
+    rows = [
+        Row("STK", 10, 125.0, 14, False),
+        Row("STK", -5, 110.0, 63, True),
+        Row("IDX", 1, 4500, 30),
+    ]
+    book = make_book(rows)
+    v = value_book(book, _skew_market(), T0)
+    assert v.vol[0] == pytest.approx(0.35 + (0.30 - 0.35) * 5 / 20)  # linear in strike
+    res = apply_move(v, parse_move("STK spot -10% moneyness"))
+    k_eq = 125.0 * 120.0 / 108.0  # 138.89
+    assert res.vol_after[0] == pytest.approx(0.35 + (0.30 - 0.35) * (k_eq - 120) / 20)
+    assert res.vol_after[2] == v.vol[2]  # IDX did not move
+    expected = 1000 * (
+        ql_price(False, 108.0, 125.0, 14, RATE, 0.02, float(res.vol_after[0]))
+        - ql_price(False, 120.0, 125.0, 14, RATE, 0.02, float(v.vol[0]))
+    )
+    assert res.full[0] == pytest.approx(expected, rel=1e-7)
+    # The vega term carries the smile's vol change; the rows still add up.
+    assert res.terms["vega"][0] == pytest.approx(
+        v.greeks.vega[0] * 1000 * (res.vol_after[0] - v.vol[0])
+    )
+    assert res.total.terms["vega"] == pytest.approx(float(res.terms["vega"].sum()))
+    sticky = apply_move(v, parse_move("STK spot -10%"))
+    assert sticky.vol_after[0] == v.vol[0] and sticky.total.full != pytest.approx(res.total.full)
+
+
+def test_sticky_moneyness_on_a_flat_smile_is_sticky_strike(mixed_book) -> None:
+    v = value_book(mixed_book, make_market(), T0)
+    a = apply_move(v, parse_move("spot -4% vol +1 moneyness"))
+    b = apply_move(v, parse_move("spot -4% vol +1"))
+    assert a.full == pytest.approx(b.full, rel=1e-12, abs=1e-9)
+    assert a.total.estimate_2 == pytest.approx(b.total.estimate_2, rel=1e-12)
+    assert a.move.as_dict()["vol_rule"] == "sticky moneyness"
