@@ -173,23 +173,31 @@ class ExposureRow:
         return {name: getattr(self, name) for name in EXPOSURE_FIELDS}
 
 
+def group_rows(codes: np.ndarray, n_groups: int) -> list[np.ndarray]:
+    """Row indices (ascending) of each group code 0..n_groups-1, from one stable sort."""
+    order = np.argsort(codes, kind="stable")
+    bounds = np.concatenate([[0], np.cumsum(np.bincount(codes, minlength=n_groups))])
+    return [order[bounds[j] : bounds[j + 1]] for j in range(n_groups)]
+
+
 def _carry_and_rate(
-    book: Book, market: Market, years: np.ndarray, options: np.ndarray
+    book: Book, market: Market, years: np.ndarray, groups: list[np.ndarray]
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Rate (n,), carry (n,) and the rate-moves-carry mask (n,) from curves, kinds and yields."""
+    """Rate (n,), carry (n,) and the rate-moves-carry mask (n,) from curves, kinds and yields.
+
+    Options take their currency's zero rate at their expiry, hedges the rate at tenor zero.
+    """
     und = book.underlyings
     n = len(book)
     rate = np.full(n, np.nan)
     carry = np.full(n, np.nan)
     moves = np.zeros(n, dtype=bool)
-    uidx = book.underlying_idx
-    t = np.where(options, np.maximum(np.nan_to_num(years), 0.0), 0.0)
-    for ccy in sorted(set(und.currencies[i] for i in np.unique(uidx))):
-        rows = np.array([und.currencies[i] == ccy for i in range(len(und))])[uidx]
-        rate[rows] = market.curve(ccy).rate_at(t[rows])
-    for i in np.unique(uidx):
-        rows = uidx == i
+    t = np.where(book.is_option, np.maximum(np.nan_to_num(years), 0.0), 0.0)
+    for i, rows in enumerate(groups):
+        if not rows.size:
+            continue
         kind, sym = und.kinds[i], und.symbols[i]
+        rate[rows] = market.curve(und.currencies[i]).rate_at(t[rows])
         q = float(market.div_yields.get(sym, und.div_yields[i]))
         if kind == "future":
             carry[rows] = 0.0
@@ -273,20 +281,22 @@ def value_book(
     uidx = book.underlying_idx
     opt = book.is_option
 
-    used = np.unique(uidx)
+    groups = group_rows(uidx, len(und))
     u_spots = np.full(len(und), np.nan)
-    for i in used:
-        u_spots[i] = market.spot(und.symbols[i])
+    for i, rows in enumerate(groups):
+        if rows.size:
+            u_spots[i] = market.spot(und.symbols[i])
     spot = u_spots[uidx] if n else np.zeros(0)
 
     years = np.where(opt, cal.year_fraction(t, book.expiries), np.nan) if n else np.zeros(0)
     live = opt & (np.nan_to_num(years, nan=0.0) > 0)
-    rate, carry, moves = _carry_and_rate(book, market, years, opt)
+    rate, carry, moves = _carry_and_rate(book, market, years, groups)
 
     vol = np.full(n, np.nan)
-    for i in np.unique(uidx[opt]):
-        rows = opt & (uidx == i)
-        vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
+    for i, rows in enumerate(groups):
+        rows = rows[opt[rows]]
+        if rows.size:
+            vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
 
     g = {
         name: np.zeros(n)
