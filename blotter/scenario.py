@@ -20,9 +20,11 @@ and apply together)::
     bdays 1             to the next business day at the same time of day (Friday → Monday)
     rate +25bp          every rate up 25 basis points (rate +0.25% is the same)
     spot -3% vol +2 days 1
+    spot -5% moneyness  vols sticky moneyness for this move (the default is sticky strike)
 
-Vol is sticky strike: under a spot move each option keeps the vol of its strike and expiry, and a
-day roll keeps each contract's vol (and its rate). Options that expire inside a roll settle at
+Vol is sticky strike by default: under a spot move each option keeps the vol of its strike and
+expiry, and a day roll keeps each contract's vol (and its rate). With ``moneyness`` each option
+instead takes the marked vol at its moneyness on the moved spot (strike K read at K × S / S'). Options that expire inside a roll settle at
 intrinsic value on the moved spot; they are listed as expiring, flagged as pin risk when the moved
 spot is within ``PIN_BAND_PCT`` of the strike, and their Taylor estimate is kept but flagged.
 """

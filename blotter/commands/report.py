@@ -120,9 +120,36 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     try:
         book = store.load_book()
         market = store.load_market()
-        return value_book(book, market, t, vega_unit=vega_unit)
+        valuation = value_book(book, market, t, vega_unit=vega_unit)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
+    _warn_stale(valuation)
+    return valuation
+
+
+STALE_MARKS_DAYS = 1.0
+"""Marks older than this (calendar days) at the valuation time get a warning on stderr."""
+
+
+def _warn_stale(v: BookValuation) -> None:
+    """Warn on stderr when the marks are far from the valuation time (stdout stays clean)."""
+    from blotter import calendar as cal
+
+    age_days = (
+        float(cal.year_fraction(cal.to_instant(v.market.marks_as_of), v.valuation_time)) * 365
+    )
+    if age_days > STALE_MARKS_DAYS:
+        click.echo(
+            f"blotter: the marks are {age_days:.1f} days older than the valuation time "
+            f"{_iso(v.valuation_time)}; --at {_iso(v.market.marks_as_of)} values at the marks",
+            err=True,
+        )
+    elif age_days < -1 / 24:
+        click.echo(
+            f"blotter: the marks ({_iso(v.market.marks_as_of)}) are later than the "
+            f"valuation time {_iso(v.valuation_time)}",
+            err=True,
+        )
 
 
 def _iso(t: Any) -> str:
