@@ -88,6 +88,7 @@ EXAMPLES = (
     ("bdays 1", "to the next business day (a Friday rolls over the weekend)"),
     ("rate +25bp", "every rate up 25 basis points (rate +0.25% is the same)"),
     ("spot -3% vol +2 days 1", "parts combine and apply together"),
+    ("spot -5% moneyness", "vols sticky moneyness for this move instead of sticky strike"),
 )
 """Move examples with their meaning, for help screens."""
 

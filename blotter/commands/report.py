@@ -362,7 +362,7 @@ MOVE is one line of parts, combined and applied together:
             ("spot -3% beta", "each underlying moves beta x 3% (index-equivalent)"),
             ("vol +2", "every vol up 2 vol points (0.30 -> 0.32)"),
             ("vol -10%", "every vol times 0.9"),
-            ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) points"),
+            ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) pts, T >= 7d"),
             ("IDX vol +3", "one underlying's vols up 3 points"),
             ("days 3", "three calendar days pass"),
             ("bdays 1", "to the next business day (Friday -> Monday)"),
