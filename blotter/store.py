@@ -576,6 +576,60 @@ def user_demo_copy() -> Path:
 # The store
 
 
+@dataclass(frozen=True)
+class _ContractArrays:
+    """Every contract read so far, as arrays sorted by id (the store's cache; contracts never
+    change). ``expiries`` are UTC cut-off instants, NaT for the underlying itself."""
+
+    ids: np.ndarray              # int64 (m,), ascending
+    underlying_ids: np.ndarray   # int64 (m,), the store's underlying ids
+    types: np.ndarray            # '<U1' (m,): 'C', 'P' or 'U'
+    strikes: np.ndarray          # float64 (m,), NaN for 'U'
+    expiries: np.ndarray         # datetime64[s] (m,)
+    american: np.ndarray         # bool (m,)
+    multipliers: np.ndarray      # float64 (m,)
+    cash_settled: np.ndarray     # bool (m,)
+    labels: np.ndarray           # object (m,) of str
+
+    @property
+    def last_id(self) -> int:
+        return int(self.ids[-1]) if len(self.ids) else 0
+
+    @classmethod
+    def empty(cls) -> _ContractArrays:
+        z = np.zeros(0)
+        return cls(z.astype(np.int64), z.astype(np.int64), z.astype("<U1"), z, z.astype("datetime64[s]"),
+                   z.astype(bool), z, z.astype(bool), z.astype(object))
+
+    def extended(self, rows: list[tuple[Any, ...]],
+                 underlyings: dict[int, tuple[str, str]]) -> _ContractArrays:
+        """These arrays followed by ``rows`` (contract_id, underlying_id, type, strike, expiry,
+        cutoff, american, multiplier, cash_settled) with ids above ``last_id``; ``underlyings``
+        maps an underlying id to (symbol, time zone)."""
+        cols = list(zip(*rows))
+        zones = [underlyings[u][1] for u in cols[1]]
+        keys = list(zip(cols[4], cols[5], zones))
+        instants = {k: (np.datetime64("NaT", "s") if k[0] is None else
+                        np.datetime64(_cutoff_utc(*k).replace(tzinfo=None), "s"))
+                    for k in set(keys)}
+        expiries = np.array([instants[k] for k in keys], dtype="datetime64[s]")
+        symbols = [underlyings[u][0] for u in cols[1]]
+        labels = np.empty(len(rows), dtype=object)
+        labels[:] = [sym if t == "U" else f"{sym} {e} {k:.10g} {t}"
+                     for sym, t, e, k in zip(symbols, cols[2], cols[4], cols[3])]
+        cat = np.concatenate
+        return _ContractArrays(
+            ids=cat([self.ids, np.array(cols[0], dtype=np.int64)]),
+            underlying_ids=cat([self.underlying_ids, np.array(cols[1], dtype=np.int64)]),
+            types=cat([self.types, np.array(cols[2], dtype="<U1")]),
+            strikes=cat([self.strikes, np.array(cols[3], dtype=np.float64)]),   # None -> NaN
+            expiries=cat([self.expiries, expiries]),
+            american=cat([self.american, np.array(cols[6], dtype=bool)]),
+            multipliers=cat([self.multipliers, np.array(cols[7], dtype=np.float64)]),
+            cash_settled=cat([self.cash_settled, np.array(cols[8], dtype=bool)]),
+            labels=cat([self.labels, labels]))
+
+
 _F = TypeVar("_F", bound=Callable[..., Any])
 
 
@@ -623,6 +677,7 @@ class Store:
         self._lock = threading.Lock()
         self._conns: list[sqlite3.Connection] = [conn]
         self._closed = False
+        self._contracts = _ContractArrays.empty()
         self.who = who_am_i()
 
     # ---- connections and transactions
@@ -1009,98 +1064,96 @@ class Store:
                  old_note if note is None else note, int(trade_id)))
             return int(cur.lastrowid or 0)
 
-    _POSITION_SQL = """
-        SELECT c.contract_id, c.underlying_id, c.option_type, c.strike, c.expiry, c.cutoff_time,
-               c.american, c.multiplier, c.cash_settled, u.symbol, u.time_zone, p.quantity
-        FROM (SELECT t.contract_id, sum(t.quantity) AS quantity FROM trade t
-              {book_join}
-              WHERE {time_filter} NOT EXISTS (
-                  SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id {cancel_filter})
-              {book_filter}
-              GROUP BY t.contract_id HAVING sum(t.quantity) <> 0) p
-        JOIN contract c ON c.contract_id = p.contract_id
-        JOIN underlying u ON u.underlying_id = c.underlying_id
-        ORDER BY c.underlying_id, c.option_type = 'U' DESC, c.expiry, c.strike, c.option_type,
-                 c.contract_id
-    """
+    def _contract_arrays(self, conn: sqlite3.Connection) -> _ContractArrays:
+        """Every contract as arrays by id, read once and then extended by the new ones only.
+
+        Contracts are never changed or deleted (``schema.sql`` refuses it), and ids only grow,
+        so the rows read before stay right and only ``contract_id > last`` needs reading.
+        """
+        with self._lock:
+            cache = self._contracts
+        rows = conn.execute(
+            "SELECT contract_id, underlying_id, option_type, strike, expiry, cutoff_time, american, "
+            "multiplier, cash_settled FROM contract WHERE contract_id > ? ORDER BY contract_id",
+            (cache.last_id,)).fetchall()
+        if not rows:
+            return cache
+        unders = {r[0]: (r[1], r[2]) for r in conn.execute(
+            "SELECT underlying_id, symbol, time_zone FROM underlying")}
+        grown = cache.extended(rows, unders)
+        with self._lock:
+            if grown.last_id > self._contracts.last_id:
+                self._contracts = grown
+        return grown
+
+    def _book_of(self, conn: sqlite3.Connection, name: str, contract_ids: np.ndarray,
+                 quantities: np.ndarray, sort: bool) -> Book:
+        """A ``Book`` of the given contracts and quantities, grouped by underlying, then hedges
+        first, expiry, strike and type when ``sort``; in the given order otherwise."""
+        urows = self._underlying_rows(conn)
+        underlyings = self._underlyings_from(urows)
+        reference = next((r[1] for r in urows if r[8]), None)
+        table = self._contract_arrays(conn)
+        at = np.searchsorted(table.ids, contract_ids)
+        if len(at) and (at.max() >= len(table.ids) or (table.ids[at] != contract_ids).any()):
+            raise StoreError("a trade names a contract the book does not hold; restore it from a "
+                             "backup")
+        index_of = np.full(max((r[0] for r in urows), default=0) + 1, -1, dtype=np.int64)
+        index_of[[r[0] for r in urows]] = np.arange(len(urows))
+        uidx = index_of[table.underlying_ids[at]]
+        types = table.types[at]
+        strikes = table.strikes[at]
+        expiries = table.expiries[at]
+        if sort and len(at):
+            order = np.lexsort((contract_ids, types, np.nan_to_num(strikes, nan=0.0),
+                                expiries.astype(np.int64), types != "U", uidx))
+        else:
+            order = np.arange(len(at))
+        at, uidx, types = at[order], uidx[order], types[order]
+        return Book(
+            name=name, underlyings=underlyings, reference_index=reference,
+            contract_ids=contract_ids[order], labels=tuple(table.labels[at].tolist()),
+            underlying_idx=uidx, is_option=types != "U", is_call=types == "C",
+            american=table.american[at], strikes=strikes[order], expiries=expiries[order],
+            multipliers=table.multipliers[at], quantities=quantities[order],
+            cash_settled=table.cash_settled[at])
 
     @_guard_damage
     def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
         """Net positions of live trades (all books when ``book`` is None) as they stood at ``as_of``.
 
         A trade counts once it was both dealt and booked at or before ``as_of``; a cancel counts
-        from the instant it was entered. None means now. Rows with zero net quantity are left out.
+        from the instant it was entered. None means now. Contracts whose trades net to zero are
+        left out. Rows are grouped by underlying, then hedges, expiry, strike and type.
         """
-        params: list[Any] = []
-        time_filter = cancel_filter = book_join = book_filter = ""
+        where, params = ["NOT EXISTS (SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id"
+                         + (" AND x.cancelled_at <= ?)" if as_of is not None else ")")], []
         if as_of is not None:
             t = _ts(parse_time(as_of))
-            time_filter = "t.booked_at <= ? AND t.trade_time <= ? AND"
-            cancel_filter = "AND x.cancelled_at <= ?"
-            params += [t, t, t]
+            params.append(t)
+            where.append("t.booked_at <= ? AND t.trade_time <= ?")
+            params += [t, t]
         if book is not None:
-            book_join = "JOIN book b ON b.book_id = t.book_id"
-            book_filter = "AND b.name = ?"
-            params.append(book)
-        sql = self._POSITION_SQL.format(time_filter=time_filter, cancel_filter=cancel_filter,
-                                        book_join=book_join, book_filter=book_filter)
+            where.append("t.book_id = ?")
         with self._read() as conn:
-            urows = self._underlying_rows(conn)
-            if book is not None and self._book_id(conn, book, create=False) is None:
-                raise StoreError(f"no book named {book!r} (books: {', '.join(self.book_names_in(conn))})")
-            rows = conn.execute(sql, params).fetchall()
-        return self._book_from(book or "all books", urows, rows,
-                               quantities=[r[11] for r in rows])
+            if book is not None:
+                book_id = self._book_id(conn, book, create=False)
+                if book_id is None:
+                    raise StoreError(f"no book named {book!r} (books: "
+                                     f"{', '.join(self.book_names_in(conn))})")
+                params.append(book_id)
+            rows = conn.execute(f"SELECT contract_id, quantity FROM trade t WHERE "
+                                f"{' AND '.join(where)}", params).fetchall()
+            pairs = np.array(rows, dtype=np.int64).reshape(-1, 2)
+            ids, inverse = np.unique(pairs[:, 0], return_inverse=True)
+            net = np.bincount(inverse.ravel(), weights=pairs[:, 1], minlength=len(ids))
+            keep = net != 0
+            return self._book_of(conn, book or "all books", ids[keep], net[keep], sort=True)
 
     @staticmethod
     def book_names_in(conn: sqlite3.Connection) -> list[str]:
+        """Names of the books, read on ``conn``."""
         return [r[0] for r in conn.execute("SELECT name FROM book ORDER BY name")]
-
-    def _book_from(self, name: str, urows: list[tuple[Any, ...]], rows: list[tuple[Any, ...]],
-                   quantities: Sequence[float]) -> Book:
-        """A ``Book`` from contract rows (contract_id, underlying_id, type, strike, expiry,
-        cutoff, american, multiplier, cash_settled, symbol, time_zone, ...)."""
-        underlyings = self._underlyings_from(urows)
-        index_of = {r[0]: i for i, r in enumerate(urows)}
-        reference = next((r[1] for r in urows if r[8]), None)
-        n = len(rows)
-        if n:
-            cols = list(zip(*rows))
-            contract_ids = np.array(cols[0], dtype=np.int64)
-            underlying_idx = np.array([index_of[u] for u in cols[1]], dtype=np.int64)
-            types = np.array(cols[2], dtype="<U1")
-            strikes = np.array([np.nan if k is None else k for k in cols[3]], dtype=np.float64)
-            cut_cache: dict[tuple[str, str, str], np.datetime64] = {}
-            expiries = np.empty(n, dtype="datetime64[s]")
-            for i, (e, c, z) in enumerate(zip(cols[4], cols[5], cols[10])):
-                if e is None:
-                    expiries[i] = np.datetime64("NaT")
-                    continue
-                key = (e, c, z)
-                v = cut_cache.get(key)
-                if v is None:
-                    v = np.datetime64(_cutoff_utc(e, c, z).replace(tzinfo=None), "s")
-                    cut_cache[key] = v
-                expiries[i] = v
-            american = np.array(cols[6], dtype=bool)
-            multipliers = np.array(cols[7], dtype=np.float64)
-            cash = np.array(cols[8], dtype=bool)
-            labels = tuple(
-                sym if t == "U" else f"{sym} {e} {k:.10g} {t}"
-                for sym, t, e, k in zip(cols[9], cols[2], cols[4], cols[3]))
-        else:
-            contract_ids = underlying_idx = np.zeros(0, dtype=np.int64)
-            types = np.zeros(0, dtype="<U1")
-            strikes = multipliers = np.zeros(0)
-            expiries = np.zeros(0, dtype="datetime64[s]")
-            american = cash = np.zeros(0, dtype=bool)
-            labels = ()
-        return Book(
-            name=name, underlyings=underlyings, reference_index=reference,
-            contract_ids=contract_ids, labels=labels, underlying_idx=underlying_idx,
-            is_option=types != "U", is_call=types == "C", american=american, strikes=strikes,
-            expiries=expiries, multipliers=multipliers,
-            quantities=np.asarray(quantities, dtype=np.float64), cash_settled=cash)
 
     @_guard_damage
     def new_trades(self, since: datetime, until: datetime | None = None,
@@ -1108,8 +1161,8 @@ class Store:
         """One ``Book`` row per trade booked in (``since``, ``until``] and live at ``until``.
 
         These are exactly the trades in ``load_book(as_of=until)`` that are not in
-        ``load_book(as_of=since)``. Returns the rows (quantity = the trade's) and each trade's
-        price per unit of underlying, float64 (n,).
+        ``load_book(as_of=since)``. Returns the rows in booking order (quantity = the trade's)
+        and each trade's price per unit of underlying, float64 (n,).
         """
         lo = _ts(parse_time(since))
         hi = _ts(parse_time(until) if until is not None else _now())
@@ -1119,18 +1172,17 @@ class Store:
             book_filter = "AND b.name = ?"
             params.append(book)
         with self._read() as conn:
-            urows = self._underlying_rows(conn)
             rows = conn.execute(
-                "SELECT c.contract_id, c.underlying_id, c.option_type, c.strike, c.expiry, "
-                "c.cutoff_time, c.american, c.multiplier, c.cash_settled, u.symbol, u.time_zone, "
-                "t.quantity, t.price FROM trade t JOIN book b ON b.book_id = t.book_id "
-                "JOIN contract c ON c.contract_id = t.contract_id "
-                "JOIN underlying u ON u.underlying_id = c.underlying_id "
-                "WHERE t.booked_at > ? AND t.booked_at <= ? AND NOT EXISTS ("
+                "SELECT t.contract_id, t.quantity, t.price FROM trade t "
+                "JOIN book b ON b.book_id = t.book_id "
+                "WHERE t.booked_at > ? AND t.booked_at <= ? AND t.trade_time <= ? AND NOT EXISTS ("
                 "SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id AND x.cancelled_at <= ?) "
-                f"{book_filter} ORDER BY t.trade_id", params).fetchall()
-        result = self._book_from(book or "all books", urows, rows, [r[11] for r in rows])
-        return result, np.array([r[12] for r in rows], dtype=np.float64)
+                f"{book_filter} ORDER BY t.booked_at, t.trade_id",
+                [lo, hi, hi, hi] + params[3:]).fetchall()
+            ids = np.array([r[0] for r in rows], dtype=np.int64)
+            result = self._book_of(conn, book or "all books", ids,
+                                   np.array([r[1] for r in rows], dtype=np.float64), sort=False)
+        return result, np.array([r[2] for r in rows], dtype=np.float64)
 
     @_guard_damage
     def trades(self, book: str | None = None, since: datetime | None = None,

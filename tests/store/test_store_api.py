@@ -285,3 +285,18 @@ def test_user_input_is_stored_literally_never_run_as_sql(tmp_book: Path) -> None
         assert (rec.trade_id, rec.symbol, rec.book, rec.note) == (tid, evil, evil, evil)
         assert s.load_market().spots == {evil: 10.0}
         assert s.integrity_ok()
+
+
+def test_a_cached_store_sees_contracts_added_by_another_connection(tmp_book: Path) -> None:
+    with open_store(tmp_book) as s:
+        add_underlyings(s)
+        s.add_trade("main", "TSTA", 1, 1.0, "2030-06-21", 100, True)
+    viewer = open_store(tmp_book, read_only=True)
+    assert viewer.load_book().labels == ("TSTA 2030-06-21 100 C",)
+    with open_store(tmp_book) as other:
+        other.add_trade("main", "TSTA", -2, 1.0, "2030-06-21", 90, False)
+        other.add_trade("main", "TSTA", 50, 99.0)
+    book = viewer.load_book()
+    assert book.labels == ("TSTA", "TSTA 2030-06-21 90 P", "TSTA 2030-06-21 100 C")
+    assert list(book.quantities) == [50.0, -2.0, 1.0]
+    viewer.close()
