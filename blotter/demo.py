@@ -11,10 +11,11 @@ from __future__ import annotations
 
 import math
 import os
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from datetime import date, datetime, time, timedelta, timezone
+from datetime import UTC, date, datetime, time, timedelta
 from pathlib import Path
+from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -42,7 +43,8 @@ DEMO_WHO = "demo"
 FICTITIOUS_NOTE = (
     "This book is invented for demonstration. The desk, its books, the underlyings (every symbol "
     "starting DEMO), their prices, vols, rates and all trades are fictitious and describe no real "
-    "company, index, market or person.")
+    "company, index, market or person."
+)
 """Desk note written into every demo book."""
 
 HISTORY_DAYS = 90
@@ -63,23 +65,85 @@ class _Und:
     base_vol: float
     strike_step: float
     is_reference: bool = False
-    last_expiry: date | None = None       # options on a future expire no later than the future
+    last_expiry: date | None = None  # options on a future expire no later than the future
     book: str = "equity-vol"
-    hedge: int = 0                        # hedge position in the underlying itself
+    hedge: int = 0  # hedge position in the underlying itself
 
 
 UNDERLYINGS: tuple[_Und, ...] = (
-    _Und("DEMOIX", "Demo 500 index (fictitious, invented for the demo)", "index", 100.0, False,
-         True, 0.014, 1.0, 4812.0, 0.17, 25.0, is_reference=True, book="index-vol"),
-    _Und("DEMOA", "Demo Alpha Motors (fictitious company, invented for the demo)", "stock", 100.0,
-         True, False, 0.005, 1.15, 182.40, 0.31, 2.5, hedge=-3000),
-    _Und("DEMOB", "Demo Bravo Foods (fictitious company, invented for the demo)", "stock", 100.0,
-         True, False, 0.028, 0.75, 64.25, 0.22, 1.0, hedge=1500),
-    _Und("DEMOC", "Demo Charlie Software (fictitious company, invented for the demo)", "stock",
-         100.0, True, False, 0.0, 1.6, 23.10, 0.46, 0.5, hedge=-2000),
-    _Und("DEMOFU", "Demo 500 index future, March 2027 (fictitious, invented for the demo)",
-         "future", 50.0, True, False, 0.0, 1.0, 4838.0, 0.175, 25.0,
-         last_expiry=date(2027, 3, 19), book="index-vol", hedge=-4),
+    _Und(
+        "DEMOIX",
+        "Demo 500 index (fictitious, invented for the demo)",
+        "index",
+        100.0,
+        False,
+        True,
+        0.014,
+        1.0,
+        4812.0,
+        0.17,
+        25.0,
+        is_reference=True,
+        book="index-vol",
+    ),
+    _Und(
+        "DEMOA",
+        "Demo Alpha Motors (fictitious company, invented for the demo)",
+        "stock",
+        100.0,
+        True,
+        False,
+        0.005,
+        1.15,
+        182.40,
+        0.31,
+        2.5,
+        hedge=-3000,
+    ),
+    _Und(
+        "DEMOB",
+        "Demo Bravo Foods (fictitious company, invented for the demo)",
+        "stock",
+        100.0,
+        True,
+        False,
+        0.028,
+        0.75,
+        64.25,
+        0.22,
+        1.0,
+        hedge=1500,
+    ),
+    _Und(
+        "DEMOC",
+        "Demo Charlie Software (fictitious company, invented for the demo)",
+        "stock",
+        100.0,
+        True,
+        False,
+        0.0,
+        1.6,
+        23.10,
+        0.46,
+        0.5,
+        hedge=-2000,
+    ),
+    _Und(
+        "DEMOFU",
+        "Demo 500 index future, March 2027 (fictitious, invented for the demo)",
+        "future",
+        50.0,
+        True,
+        False,
+        0.0,
+        1.0,
+        4838.0,
+        0.175,
+        25.0,
+        last_expiry=date(2027, 3, 19),
+        book="index-vol",
+        hedge=-4,
+    ),
 )
 """The demo's underlyings (spot is the first close)."""
 
@@ -140,8 +204,16 @@ def demo_expiries(as_of: date, weekly: bool, hol: set[date]) -> list[date]:
         d += timedelta(days=7)
     if weekly:
         return sorted({_expiry_on(f, hol) for f in fridays})
-    monthly = [(2026, 12), (2027, 1), (2027, 2), (2027, 3), (2027, 6), (2027, 9), (2027, 12),
-               (2028, 6)]
+    monthly = [
+        (2026, 12),
+        (2027, 1),
+        (2027, 2),
+        (2027, 3),
+        (2027, 6),
+        (2027, 9),
+        (2027, 12),
+        (2028, 6),
+    ]
     out = {_expiry_on(fridays[0], hol)}
     out |= {_expiry_on(_third_friday(y, m), hol) for y, m in monthly}
     last = _third_friday(end.year, end.month)
@@ -149,16 +221,18 @@ def demo_expiries(as_of: date, weekly: bool, hol: set[date]) -> list[date]:
     return sorted(e for e in out if start <= e <= end)
 
 
-def _atm_vol(base: float, t_years: np.ndarray) -> np.ndarray:
+def _atm_vol(base: float | np.ndarray, t_years: np.ndarray) -> np.ndarray:
     """Demo ATM vol term structure: a little higher at the short end, decimal."""
     return base * (0.93 + 0.14 * np.exp(-np.asarray(t_years) / 0.35))
 
 
-def _smile(base: float, t_years: np.ndarray, log_moneyness: np.ndarray) -> np.ndarray:
+def _smile(base: float | np.ndarray, t_years: np.ndarray, log_moneyness: np.ndarray) -> np.ndarray:
     """Demo smile: ATM vol plus a downward skew and some curvature, both easing with expiry."""
     t = np.maximum(np.asarray(t_years, dtype=np.float64), 1.0 / 12.0)
     k = np.asarray(log_moneyness, dtype=np.float64)
-    vol = _atm_vol(base, t_years) - 0.09 / np.sqrt(t) * k * (base / 0.25) + 0.20 / np.sqrt(t) * k * k
+    vol = (
+        _atm_vol(base, t_years) - 0.09 / np.sqrt(t) * k * (base / 0.25) + 0.20 / np.sqrt(t) * k * k
+    )
     return np.clip(vol, 0.05, 2.0)
 
 
@@ -171,11 +245,15 @@ def _round_to(x: np.ndarray, step: float) -> np.ndarray:
 
 
 def _local(d: date, t: time) -> datetime:
-    return datetime.combine(d, t, tzinfo=DEMO_TZ).astimezone(timezone.utc)
+    return datetime.combine(d, t, tzinfo=DEMO_TZ).astimezone(UTC)
 
 
-def build_demo(path: str | os.PathLike[str], positions: int | None = None,
-               seed: int = DEMO_SEED, force: bool = False) -> Path:
+def build_demo(
+    path: str | os.PathLike[str],
+    positions: int | None = None,
+    seed: int = DEMO_SEED,
+    force: bool = False,
+) -> Path:
     """Write the invented demo book to ``path`` and return it; ``positions`` option positions
     (``DEMO_POSITIONS`` when None; a larger number builds a synthetic book of the same kind).
 
@@ -193,8 +271,10 @@ def build_demo(path: str | os.PathLike[str], positions: int | None = None,
         raise StoreError(f"{out} already exists; pass --force to replace it")
     wal = Path(f"{out}-wal")
     if wal.exists() and wal.stat().st_size > 0:
-        raise StoreError(f"{out} is in use or was not closed cleanly ({wal} holds data); close "
-                         "every program using it before replacing it")
+        raise StoreError(
+            f"{out} is in use or was not closed cleanly ({wal} holds data); close "
+            "every program using it before replacing it"
+        )
     tmp = out.with_name(f".{out.name}.{os.getpid()}.building")
     _remove_book_files(tmp)
     store = create_store(tmp)
@@ -207,13 +287,13 @@ def build_demo(path: str | os.PathLike[str], positions: int | None = None,
         raise
     store.close()
     os.replace(tmp, out)
-    for side in (tmp, out):            # empty side files left by readers of the old file
+    for side in (tmp, out):  # empty side files left by readers of the old file
         for suffix in ("-wal", "-shm"):
             _remove_book_files(Path(f"{side}{suffix}"))
     return out
 
 
-def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
+def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) -> None:
     rng = np.random.default_rng(seed)
     hol = _nyse_holidays(range(DEMO_AS_OF.year - 1, DEMO_AS_OF.year + 4))
     close2 = DEMO_AS_OF
@@ -223,13 +303,27 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
     expiries = demo_expiries(close2, weekly, hol)
     history = _business_days(close1 - timedelta(days=HISTORY_DAYS), close1, hol)
 
-    store.add_note(FICTITIOUS_NOTE, written_at=t_close1 - timedelta(days=HISTORY_DAYS + 1),
-                   who=DEMO_WHO)
-    uids = [store.add_underlying(
-        u.symbol, u.kind, "USD", u.multiplier, description=u.description, american=u.american,
-        cash_settled=u.cash_settled, div_yield=u.div_yield, beta=u.beta,
-        is_reference=u.is_reference, calendar="NYSE", time_zone="America/New_York",
-        cutoff_time="16:00") for u in UNDERLYINGS]
+    store.add_note(
+        FICTITIOUS_NOTE, written_at=t_close1 - timedelta(days=HISTORY_DAYS + 1), who=DEMO_WHO
+    )
+    uids = [
+        store.add_underlying(
+            u.symbol,
+            u.kind,
+            "USD",
+            u.multiplier,
+            description=u.description,
+            american=u.american,
+            cash_settled=u.cash_settled,
+            div_yield=u.div_yield,
+            beta=u.beta,
+            is_reference=u.is_reference,
+            calendar="NYSE",
+            time_zone="America/New_York",
+            cutoff_time="16:00",
+        )
+        for u in UNDERLYINGS
+    ]
 
     # Daily spot paths ending at the first close; the second close moves one more day.
     n_days = len(history)
@@ -252,8 +346,8 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
         for e in expiries:
             if u.last_expiry is not None and e > u.last_expiry:
                 continue
-            t = (cut[e] - t_close1).total_seconds() / (365.0 * 86400.0)
-            sd = u.base_vol * math.sqrt(t)
+            t_years = (cut[e] - t_close1).total_seconds() / (365.0 * 86400.0)
+            sd = u.base_vol * math.sqrt(t_years)
             step = u.strike_step * (0.02 if weekly else 1.0)
             ks = np.unique(_round_to(u.spot * np.exp(z_grid * sd), step))
             for k in ks:
@@ -263,21 +357,43 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
                     universe.append((i, e, float(k), is_call))
                     weights.append(math.exp(-0.5 * z * z) * (3.0 if otm else 1.0))
     if n_options > len(universe):
-        raise StoreError(f"cannot draw {n_options} distinct positions from {len(universe)} contracts")
+        raise StoreError(
+            f"cannot draw {n_options} distinct positions from {len(universe)} contracts"
+        )
     w = np.asarray(weights)
-    keys = np.log(rng.random(len(universe))) / w          # weighted sampling without replacement
+    keys = np.log(rng.random(len(universe))) / w  # weighted sampling without replacement
     chosen = np.sort(np.argsort(-keys, kind="stable")[:n_options])
 
     contracts: list[tuple[int, str, float | None, str | None, str | None, int, float, int]] = []
     for idx in chosen:
         i, e, k, is_call = universe[int(idx)]
         u = UNDERLYINGS[i]
-        contracts.append((uids[i], "C" if is_call else "P", k, e.isoformat(), "16:00",
-                          int(u.american), u.multiplier, int(u.cash_settled)))
+        contracts.append(
+            (
+                uids[i],
+                "C" if is_call else "P",
+                k,
+                e.isoformat(),
+                "16:00",
+                int(u.american),
+                u.multiplier,
+                int(u.cash_settled),
+            )
+        )
     for i, u in enumerate(UNDERLYINGS):
         if u.hedge:
-            contracts.append((uids[i], "U", None, None, None, int(u.american),
-                              1.0 if u.kind == "stock" else u.multiplier, 0))
+            contracts.append(
+                (
+                    uids[i],
+                    "U",
+                    None,
+                    None,
+                    None,
+                    int(u.american),
+                    1.0 if u.kind == "stock" else u.multiplier,
+                    0,
+                )
+            )
 
     # Trades: an opening trade per position, some adds and reductions, a few cancels and amends,
     # and a handful of trades on the second day.
@@ -287,12 +403,15 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
     size = np.where([UNDERLYINGS[j].kind in ("index", "future") for j in und_of], 8, 40)
     target = np.maximum(1, np.round(rng.lognormal(0.0, 0.8, n_c) * size / 4)).astype(np.int64)
     target = np.where(rng.random(n_c) < 0.45, -target, target)
-    for j, c in enumerate(contracts):
-        if c[1] == "U":
+    for j, con in enumerate(contracts):
+        if con[1] == "U":
             target[j] = UNDERLYINGS[und_of[j]].hedge
-    trades: list[tuple[int, int, float, datetime]] = []   # (contract row, qty, day index, time)
+    trades: list[tuple[int, int, float, datetime]] = []  # (contract row, qty, day index, time)
     day2_open = _local(close2, time(9, 45))
-    minutes = lambda: timedelta(minutes=int(rng.integers(0, 360)))  # noqa: E731
+
+    def minutes() -> timedelta:
+        return timedelta(minutes=int(rng.integers(0, 360)))
+
     for j in range(n_c):
         if is_opt[j] and rng.random() < 0.06:
             trades.append((j, int(target[j]), float(n_days), day2_open + minutes()))
@@ -302,7 +421,9 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
         if is_opt[j] and abs(target[j]) >= 4 and rng.random() < 0.3:
             first = int(round(target[j] * 1.5))
             later = int(rng.integers(day, n_days))
-            then = max(when + timedelta(minutes=30), _local(history[later], time(9, 45)) + minutes())
+            then = max(
+                when + timedelta(minutes=30), _local(history[later], time(9, 45)) + minutes()
+            )
             trades.append((j, first, float(day), when))
             trades.append((j, int(target[j]) - first, float(later), then))
         else:
@@ -310,25 +431,37 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
     trades.sort(key=lambda x: (x[3], x[0]))
     n_cancel = min(3, len(trades) // 20)
     n_amend = min(2, len(trades) // 20)
-    picks = rng.choice(len(trades), size=n_cancel + n_amend, replace=False) if trades else []
+    picks: list[int] = (
+        [int(x) for x in rng.choice(len(trades), size=n_cancel + n_amend, replace=False)]
+        if trades
+        else []
+    )
 
     # Prices from the engine on the day-1 smile at the trade's spot.
     rows = np.array([t[0] for t in trades], dtype=np.int64)
-    qtys = np.array([t[1] for t in trades], dtype=np.int64)
     day_idx = np.array([t[2] for t in trades])
-    when = [t[3] for t in trades]
+    trade_times = [t[3] for t in trades]
     u_idx = und_of[rows] if len(rows) else np.zeros(0, dtype=np.int64)
-    spot_now = np.where(day_idx >= n_days, spot2[u_idx] if len(rows) else 0.0,
-                        paths[u_idx, np.minimum(day_idx, n_days - 1).astype(np.int64)]
-                        if len(rows) else 0.0)
+    spot_now = np.where(
+        day_idx >= n_days,
+        spot2[u_idx] if len(rows) else 0.0,
+        paths[u_idx, np.minimum(day_idx, n_days - 1).astype(np.int64)] if len(rows) else 0.0,
+    )
     prices = np.round(spot_now, 2)
     opt_rows = is_opt[rows] if len(rows) else np.zeros(0, dtype=bool)
     if opt_rows.any():
         sel = np.flatnonzero(opt_rows)
         strikes = np.array([contracts[rows[s]][2] for s in sel], dtype=np.float64)
         calls = np.array([contracts[rows[s]][1] == "C" for s in sel])
-        years = np.array([(cut[date.fromisoformat(str(contracts[rows[s]][3]))] - when[s])
-                          .total_seconds() / (365.0 * 86400.0) for s in sel])
+        years = np.array(
+            [
+                (
+                    cut[date.fromisoformat(str(contracts[rows[s]][3]))] - trade_times[s]
+                ).total_seconds()
+                / (365.0 * 86400.0)
+                for s in sel
+            ]
+        )
         us = u_idx[sel]
         base = np.array([UNDERLYINGS[j].base_vol for j in us])
         s0 = spot_now[sel]
@@ -342,102 +475,189 @@ def _fill(store: Store, n_options: int, seed: int, price: object) -> None:
         px = np.asarray(price(calls, s0, strikes, years, r, carry, vol, american=american))
         prices[sel] = np.maximum(np.round(px, 2), 0.01)
 
-    with store._write() as c:
-        c.executemany(
+    with store._write() as conn:
+        conn.executemany(
             "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, "
-            "american, multiplier, cash_settled) VALUES (?, ?, ?, ?, ?, ?, ?, ?)", contracts)
-        first_cid = c.execute("SELECT min(contract_id) FROM contract").fetchone()[0]
+            "american, multiplier, cash_settled) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            contracts,
+        )
+        first_cid = conn.execute("SELECT min(contract_id) FROM contract").fetchone()[0]
         for name in sorted({u.book for u in UNDERLYINGS}):
-            c.execute("INSERT INTO book (name, description) VALUES (?, ?)",
-                      (name, "fictitious demo desk account"))
-        book_ids = dict(c.execute("SELECT name, book_id FROM book").fetchall())
+            conn.execute(
+                "INSERT INTO book (name, description) VALUES (?, ?)",
+                (name, "fictitious demo desk account"),
+            )
+        book_ids = dict(conn.execute("SELECT name, book_id FROM book").fetchall())
         trade_rows = []
         for n, (j, qty, _d, t) in enumerate(trades):
             b = book_ids[UNDERLYINGS[und_of[j]].book]
-            trade_rows.append([b, first_cid + j, qty, float(prices[n]), _ts(t),
-                               _ts(t + timedelta(minutes=2)), DEMO_WHO, "demo", ""])
+            trade_rows.append(
+                [
+                    b,
+                    first_cid + j,
+                    qty,
+                    float(prices[n]),
+                    _ts(t),
+                    _ts(t + timedelta(minutes=2)),
+                    DEMO_WHO,
+                    "demo",
+                    "",
+                ]
+            )
         # A few mistakes and their corrections, as they happen on a desk: tickets booked twice
         # (then cancelled) and tickets booked at a wrong price (then amended).
         amends = {int(p): round(trade_rows[int(p)][3] * 1.1 + 0.05, 2) for p in picks[n_cancel:]}
         for p, wrong_px in amends.items():
             trade_rows[p][3], trade_rows[p][8] = wrong_px, "price typo"
-        c.executemany(
+        conn.executemany(
             "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, who, "
-            "source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", trade_rows)
-        first_tid = c.execute("SELECT min(trade_id) FROM trade").fetchone()[0] if trade_rows else 0
-        insert = ("INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
-                  "who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, 'demo', ?, ?)")
-        cancel = "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)"
+            "source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            trade_rows,
+        )
+        first_tid = (
+            conn.execute("SELECT min(trade_id) FROM trade").fetchone()[0] if trade_rows else 0
+        )
+        insert = (
+            "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
+            "who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, 'demo', ?, ?)"
+        )
+        cancel = (
+            "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)"
+        )
         for p in picks[:n_cancel]:
             b, cid, qty, px, tt, booked, *_ = trade_rows[int(p)]
             at = _from_ts(booked)
-            cur = c.execute(insert, (b, cid, qty * 10, px, tt, _ts(at + timedelta(minutes=1)),
-                                     DEMO_WHO, "", None))
-            c.execute(cancel, (cur.lastrowid, "ticket booked twice at ten times the size",
-                               _ts(at + timedelta(minutes=9)), DEMO_WHO))
+            cur = conn.execute(
+                insert,
+                (b, cid, qty * 10, px, tt, _ts(at + timedelta(minutes=1)), DEMO_WHO, "", None),
+            )
+            conn.execute(
+                cancel,
+                (
+                    cur.lastrowid,
+                    "ticket booked twice at ten times the size",
+                    _ts(at + timedelta(minutes=9)),
+                    DEMO_WHO,
+                ),
+            )
         for p, wrong_px in amends.items():
             b, cid, qty, _px, tt, booked, *_ = trade_rows[p]
             right_px = float(prices[p])
             at = _from_ts(booked) + timedelta(minutes=15)
-            c.execute(cancel, (first_tid + p, f"amended: price {wrong_px} should be {right_px}",
-                               _ts(at), DEMO_WHO))
-            c.execute(insert, (b, cid, qty, right_px, tt, _ts(at), DEMO_WHO,
-                               "price corrected", first_tid + p))
+            conn.execute(
+                cancel,
+                (
+                    first_tid + p,
+                    f"amended: price {wrong_px} should be {right_px}",
+                    _ts(at),
+                    DEMO_WHO,
+                ),
+            )
+            conn.execute(
+                insert,
+                (b, cid, qty, right_px, tt, _ts(at), DEMO_WHO, "price corrected", first_tid + p),
+            )
 
         # Close marks: spot, a smile per expiry, the rate curve and dividend yields, two days.
         for day, (t_close, spots, shift) in enumerate(
-                ((t_close1, np.array([u.spot for u in UNDERLYINGS]), np.zeros(len(UNDERLYINGS))),
-                 (t_close2, spot2, vol_shift2))):
+            (
+                (t_close1, np.array([u.spot for u in UNDERLYINGS]), np.zeros(len(UNDERLYINGS))),
+                (t_close2, spot2, vol_shift2),
+            )
+        ):
             if day == 1:
-                for i in (1, 3):   # two intraday spot checks during the second day
-                    sid = store._new_mark_set(c, "intraday", 1, note="desk spot check",
-                                              source="demo", marked_at=t_close2 - timedelta(hours=4 - i),
-                                              who=DEMO_WHO)
-                    store._insert_marks(c, sid, [("spot", uids[i], None, None, None, None,
-                                                  float(round(spots[i] * 0.998, 2)))])
-            points: list[tuple[str, int | None, str | None, str | None, float | None, int | None,
-                               float]] = []
-            for i, u in enumerate(UNDERLYINGS):
+                for i in (1, 3):  # two intraday spot checks during the second day
+                    sid = store._new_mark_set(
+                        conn,
+                        "intraday",
+                        1,
+                        note="desk spot check",
+                        source="demo",
+                        marked_at=t_close2 - timedelta(hours=4 - i),
+                        who=DEMO_WHO,
+                    )
+                    store._insert_marks(
+                        conn,
+                        sid,
+                        [
+                            (
+                                "spot",
+                                uids[i],
+                                None,
+                                None,
+                                None,
+                                None,
+                                float(round(spots[i] * 0.998, 2)),
+                            )
+                        ],
+                    )
+            points: list[
+                tuple[str, int | None, str | None, str | None, float | None, int | None, float]
+            ] = []
+            for i in range(len(UNDERLYINGS)):
                 points.append(("spot", uids[i], None, None, None, None, float(spots[i])))
             for i, u in enumerate(UNDERLYINGS):
                 for e in expiries:
                     if u.last_expiry is not None and e > u.last_expiry:
                         continue
-                    t = (cut[e] - t_close1).total_seconds() / (365.0 * 86400.0)
-                    sd = u.base_vol * math.sqrt(t)
-                    ks = np.unique(_round_to(u.spot * np.exp(np.array(SMILE_Z) * sd),
-                                             u.strike_step))
+                    t_years = (cut[e] - t_close1).total_seconds() / (365.0 * 86400.0)
+                    sd = u.base_vol * math.sqrt(t_years)
+                    ks = np.unique(
+                        _round_to(u.spot * np.exp(np.array(SMILE_Z) * sd), u.strike_step)
+                    )
                     te = (cut[e] - t_close).total_seconds() / (365.0 * 86400.0)
-                    carry = 0.0 if u.kind == "future" else float(_rate(np.array(te))) - u.div_yield
-                    fwd = spots[i] * math.exp(carry * te)
+                    carry_e = (
+                        0.0 if u.kind == "future" else float(_rate(np.array(te))) - u.div_yield
+                    )
+                    fwd = spots[i] * math.exp(carry_e * te)
                     vols = _smile(u.base_vol, np.full(len(ks), te), np.log(ks / fwd)) + shift[i]
-                    for k, v in zip(ks, vols):
-                        points.append(("vol", uids[i], None, e.isoformat(), float(k), None,
-                                       float(round(v, 4))))
-            for tenor, r in zip(RATE_TENORS_DAYS, RATES):
-                points.append(("rate", None, "USD", None, None, tenor,
-                               round(r + 0.0005 * day, 6)))
+                    for k, v in zip(ks, vols, strict=False):
+                        points.append(
+                            (
+                                "vol",
+                                uids[i],
+                                None,
+                                e.isoformat(),
+                                float(k),
+                                None,
+                                round(float(v), 4),
+                            )
+                        )
+            for tenor, rate0 in zip(RATE_TENORS_DAYS, RATES, strict=True):
+                points.append(
+                    ("rate", None, "USD", None, None, tenor, round(rate0 + 0.0005 * day, 6))
+                )
             for i, u in enumerate(UNDERLYINGS):
                 if u.kind == "stock":
-                    q = u.div_yield + (0.001 if day == 1 and u.symbol == "DEMOB" else 0.0)
-                    points.append(("div_yield", uids[i], None, None, None, None, round(q, 6)))
-            sid = store._new_mark_set(c, "close", len(points), note=f"close {t_close.date()}",
-                                      source="demo", marked_at=t_close, who=DEMO_WHO)
-            c.executemany(
-                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, strike, "
+                    q_day = u.div_yield + (0.001 if day == 1 and u.symbol == "DEMOB" else 0.0)
+                    points.append(("div_yield", uids[i], None, None, None, None, round(q_day, 6)))
+            sid = store._new_mark_set(
+                conn,
+                "close",
+                len(points),
+                note=f"close {t_close.date()}",
+                source="demo",
+                marked_at=t_close,
+                who=DEMO_WHO,
+            )
+            conn.executemany(
+                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
+                "strike, "
                 "tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [(sid, n + 1, *p) for n, p in enumerate(points)])
+                [(sid, n + 1, *p) for n, p in enumerate(points)],
+            )
 
 
 def describe(path: str | os.PathLike[str]) -> dict[str, int]:
     """Counts of what a book holds (positions, trades, cancels, mark sets, marks, underlyings)."""
     from blotter.store import open_store
 
-    with open_store(path) as s:       # read-write, so closing leaves no -wal/-shm behind
+    with open_store(path) as s:  # read-write, so closing leaves no -wal/-shm behind
         conn = s.connection
         book = s.load_book()
         return {
-            "positions": len(book), "option_positions": int(book.is_option.sum()),
+            "positions": len(book),
+            "option_positions": int(book.is_option.sum()),
             "trades": conn.execute("SELECT count(*) FROM trade").fetchone()[0],
             "cancels": conn.execute("SELECT count(*) FROM trade_cancel").fetchone()[0],
             "mark_sets": conn.execute("SELECT count(*) FROM mark_set").fetchone()[0],
@@ -448,7 +668,12 @@ def describe(path: str | os.PathLike[str]) -> dict[str, int]:
 
 def demo_close_times(hol: Sequence[date] | None = None) -> tuple[datetime, datetime]:
     """UTC instants of the demo's two close sets (first, second)."""
-    h = set(hol) if hol is not None else _nyse_holidays(range(DEMO_AS_OF.year - 1,
-                                                              DEMO_AS_OF.year + 1))
-    return (_local(_prev_business_day(DEMO_AS_OF, h), DEMO_CLOSE_TIME),
-            _local(DEMO_AS_OF, DEMO_CLOSE_TIME))
+    h = (
+        set(hol)
+        if hol is not None
+        else _nyse_holidays(range(DEMO_AS_OF.year - 1, DEMO_AS_OF.year + 1))
+    )
+    return (
+        _local(_prev_business_day(DEMO_AS_OF, h), DEMO_CLOSE_TIME),
+        _local(DEMO_AS_OF, DEMO_CLOSE_TIME),
+    )

@@ -1,4 +1,4 @@
-"""The SQLite book: trades and marks in one file that loses nothing, read into ``Book`` and ``Market``.
+"""The SQLite book: trades and marks in one file that loses nothing, read as ``Book``/``Market``.
 
 ``schema.sql`` is the only definition of the database. Every connection runs with
 ``isolation_level=None`` (no implicit transactions), a busy timeout, foreign keys on,
@@ -27,7 +27,7 @@ import threading
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import date, datetime, time, timezone
+from datetime import UTC, date, datetime, time
 from importlib import resources
 from pathlib import Path
 from typing import Any, TypeVar
@@ -60,8 +60,20 @@ PROGRESS_EVERY = 1000
 MARK_KINDS = ("spot", "vol", "rate", "div_yield")
 """Kinds of mark point; see ``schema.sql`` for what each holds."""
 
-TRADE_COLUMNS = ("book", "symbol", "type", "expiry", "strike", "quantity", "price", "trade_time",
-                 "style", "multiplier", "settlement", "note")
+TRADE_COLUMNS = (
+    "book",
+    "symbol",
+    "type",
+    "expiry",
+    "strike",
+    "quantity",
+    "price",
+    "trade_time",
+    "style",
+    "multiplier",
+    "settlement",
+    "note",
+)
 """Columns of the trade CSV format, in the order ``trade list --csv`` prints them."""
 
 TRADE_INFO_COLUMNS = ("trade_id", "state", "who", "source", "booked_at", "contract")
@@ -80,7 +92,7 @@ MARK_INFO_COLUMNS = ("mark_id", "mark_set_id", "set_kind", "marked_at", "who")
 MARK_REQUIRED = ("kind", "value")
 """Mark CSV columns that must be present."""
 
-_EPOCH = datetime(1970, 1, 1, tzinfo=timezone.utc)
+_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 _TS_FORMAT = "%Y-%m-%dT%H:%M:%S.%fZ"
 _SECTION = re.compile(r"^-- @version (\d+)\b", re.MULTILINE)
 
@@ -109,14 +121,14 @@ class MarkSetInfo:
     """One mark set: ``marked_at`` is a UTC datetime; ``corrects`` the close set it corrects."""
 
     id: int
-    kind: str                    # 'close' or 'intraday'
+    kind: str  # 'close' or 'intraday'
     marked_at: datetime
     who: str
     note: str
     corrects: int | None
     source: str = ""
-    marks: int = 0               # number of mark points in the set
-    superseded_by: int | None = None   # the close set that corrects this one, if any
+    marks: int = 0  # number of mark points in the set
+    superseded_by: int | None = None  # the close set that corrects this one, if any
 
 
 @dataclass(frozen=True)
@@ -126,9 +138,9 @@ class TradeRecord:
     trade_id: int
     book: str
     contract_id: int
-    contract: str                # label, e.g. "DEMOA 2027-03-19 105 C"
+    contract: str  # label, e.g. "DEMOA 2027-03-19 105 C"
     symbol: str
-    option_type: str             # 'C', 'P' or 'U' (the underlying itself)
+    option_type: str  # 'C', 'P' or 'U' (the underlying itself)
     expiry: date | None
     strike: float | None
     american: bool
@@ -141,7 +153,7 @@ class TradeRecord:
     who: str
     source: str
     note: str
-    state: str                   # 'live', 'cancelled' or 'amended'
+    state: str  # 'live', 'cancelled' or 'amended'
     replaces: int | None = None
     replaced_by: int | None = None
     cancel_reason: str | None = None
@@ -151,14 +163,14 @@ class TradeRecord:
 
 @dataclass(frozen=True)
 class ContractRecord:
-    """One contract: ``option_type`` 'C', 'P' or 'U'; ``cutoff_utc`` the expiry instant (None for 'U')."""
+    """One contract: ``option_type`` 'C', 'P' or 'U'; ``cutoff_utc`` the expiry instant or None."""
 
     contract_id: int
     symbol: str
     option_type: str
     expiry: date | None
     strike: float | None
-    cutoff_time: str | None      # local exchange time 'HH:MM'
+    cutoff_time: str | None  # local exchange time 'HH:MM'
     american: bool
     multiplier: float
     cash_settled: bool
@@ -189,7 +201,7 @@ class ImportReport:
     """What an import wrote: ``first_id``..``last_id`` are trade ids, or the mark set id twice."""
 
     path: Path
-    kind: str                    # 'trades' or 'marks'
+    kind: str  # 'trades' or 'marks'
     rows: int
     import_id: int
     first_id: int
@@ -241,7 +253,7 @@ def schema_sections(text: str | None = None) -> dict[int, list[str]]:
     out: dict[int, list[str]] = {}
     for i, m in enumerate(marks):
         end = marks[i + 1].start() if i + 1 < len(marks) else len(text)
-        out[int(m.group(1))] = _split_statements(text[m.end():end])
+        out[int(m.group(1))] = _split_statements(text[m.end() : end])
     if not out:
         raise StoreError(f"{schema_path()} has no '-- @version N' sections")
     return out
@@ -276,8 +288,9 @@ def _uri(path: Path, mode: str) -> str:
 def _connect(path: Path, read_only: bool, mode: str | None = None) -> sqlite3.Connection:
     """A configured connection (see the module docstring); ``mode`` overrides the URI mode."""
     uri = _uri(path, mode or ("ro" if read_only else "rw"))
-    conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None,
-                           check_same_thread=False)
+    conn = sqlite3.connect(
+        uri, uri=True, timeout=BUSY_TIMEOUT_MS / 1000, isolation_level=None, check_same_thread=False
+    )
     try:
         conn.setlimit(sqlite3.SQLITE_LIMIT_ATTACHED, 0)
         conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS:d}")
@@ -300,40 +313,45 @@ def _map_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
     text = str(exc)
     where = f"{path}: " if path else ""
     if name.startswith("SQLITE_BUSY") or "database is locked" in text:
-        return BusyError(f"{where}the book is busy (another process is writing to it); "
-                         "nothing was written, try again")
+        return BusyError(
+            f"{where}the book is busy (another process is writing to it); "
+            "nothing was written, try again"
+        )
     if name.startswith("SQLITE_READONLY") or "readonly database" in text:
         return ReadOnlyError()
     if isinstance(exc, sqlite3.IntegrityError):
         return StoreError(f"{where}refused by the book: {text}")
     if name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR"):
-        return StoreError(f"{where}could not write the book ({name}: {text}); nothing was "
-                          "written. Check free disk space and file permissions, then retry")
+        return StoreError(
+            f"{where}could not write the book ({name}: {text}); nothing was "
+            "written. Check free disk space and file permissions, then retry"
+        )
     if name.startswith("SQLITE_CORRUPT") or name == "SQLITE_NOTADB" or "not a database" in text:
-        return StoreError(f"{where}the file is not a readable blotter book ({text}); "
-                          "restore it from a backup")
+        return StoreError(
+            f"{where}the file is not a readable blotter book ({text}); restore it from a backup"
+        )
     if name.startswith("SQLITE_CANTOPEN"):
         return StoreError(f"{where}cannot open the book ({text})")
     return StoreError(f"{where}{text}")
 
 
 def _now() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 def _ts(t: datetime) -> str:
     """UTC ISO-8601 text with microseconds and Z, the store's instant format."""
     if t.tzinfo is None:
         raise StoreError(f"time {t.isoformat()} has no time zone: give Z for UTC or an offset")
-    return t.astimezone(timezone.utc).strftime(_TS_FORMAT)
+    return t.astimezone(UTC).strftime(_TS_FORMAT)
 
 
 def _from_ts(text: str) -> datetime:
-    return datetime.strptime(text, _TS_FORMAT).replace(tzinfo=timezone.utc)
+    return datetime.strptime(text, _TS_FORMAT).replace(tzinfo=UTC)
 
 
 def parse_time(value: datetime | str) -> datetime:
-    """An aware UTC datetime from ISO-8601 text with ``Z`` or an offset (naive times are refused)."""
+    """An aware UTC datetime from ISO-8601 text with ``Z`` or an offset (naive time refused)."""
     if isinstance(value, datetime):
         t = value
     else:
@@ -343,10 +361,12 @@ def parse_time(value: datetime | str) -> datetime:
         try:
             t = datetime.fromisoformat(text)
         except ValueError:
-            raise StoreError(f"{value!r} is not an ISO-8601 time like 2026-12-01T15:30:00Z") from None
+            raise StoreError(
+                f"{value!r} is not an ISO-8601 time like 2026-12-01T15:30:00Z"
+            ) from None
     if t.tzinfo is None:
         raise StoreError(f"time {value!s} has no time zone: add Z for UTC or an offset like -05:00")
-    return t.astimezone(timezone.utc)
+    return t.astimezone(UTC)
 
 
 def parse_date(value: date | str) -> date:
@@ -371,8 +391,9 @@ def who_am_i() -> str:
         return f"uid{os.getuid()}"
 
 
-def contract_label(symbol: str, option_type: str, expiry: str | date | None,
-                   strike: float | None) -> str:
+def contract_label(
+    symbol: str, option_type: str, expiry: str | date | None, strike: float | None
+) -> str:
     """Human label of a contract, e.g. ``DEMOA 2027-03-19 105 C``; the underlying alone for 'U'."""
     if option_type == "U":
         return symbol
@@ -382,7 +403,7 @@ def contract_label(symbol: str, option_type: str, expiry: str | date | None,
 def _cutoff_utc(expiry: str, cutoff: str, tz_name: str) -> datetime:
     hh, mm = (int(x) for x in cutoff.split(":"))
     local = datetime.combine(date.fromisoformat(expiry), time(hh, mm), tzinfo=ZoneInfo(tz_name))
-    return local.astimezone(timezone.utc)
+    return local.astimezone(UTC)
 
 
 def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
@@ -394,16 +415,21 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
         if "not a database" in str(exc):
             raise StoreError(f"{path} is not a blotter book (SQLite: {exc})") from None
-        raise StoreError(f"{path} is not a readable blotter book ({exc}); restore it from a "
-                         "backup") from None
+        raise StoreError(
+            f"{path} is not a readable blotter book ({exc}); restore it from a backup"
+        ) from None
     if app_id != APPLICATION_ID:
         if not tables and version == 0:
-            raise StoreError(f"{path} is not a blotter book (it is empty); make one with "
-                             f"`blotter demo --out {path.name}`")
+            raise StoreError(
+                f"{path} is not a blotter book (it is empty); make one with "
+                f"`blotter demo --out {path.name}`"
+            )
         raise StoreError(f"{path} is an SQLite file but not a blotter book")
     if version > SCHEMA_VERSION:
-        raise StoreError(f"{path} was written by a newer blotter (schema {version}; this one "
-                         f"knows {SCHEMA_VERSION}): upgrade blotter")
+        raise StoreError(
+            f"{path} was written by a newer blotter (schema {version}; this one "
+            f"knows {SCHEMA_VERSION}): upgrade blotter"
+        )
     if not {"trade", "contract", "mark", "mark_set", "underlying"} <= tables:
         raise StoreError(f"{path} is missing blotter tables; restore it from a backup")
     if verify:
@@ -412,13 +438,15 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
         except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
             raise StoreError(f"{path} is damaged ({exc}); restore it from a backup") from None
         if problems != ["ok"]:
-            raise StoreError(f"{path} is damaged ({'; '.join(problems[:3])}); restore it from "
-                             "a backup")
+            raise StoreError(
+                f"{path} is damaged ({'; '.join(problems[:3])}); restore it from a backup"
+            )
     return int(version)
 
 
-def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bool = False,
-               verify: bool = True) -> Store:
+def open_store(
+    path: str | os.PathLike[str], read_only: bool = False, create: bool = False, verify: bool = True
+) -> Store:
     """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
 
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
@@ -429,8 +457,9 @@ def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bo
     if create and not p.exists():
         return create_store(p)
     if not p.exists():
-        raise StoreError(f"no book at {p} (check the path, or make one with "
-                         f"`blotter demo --out {p}`)")
+        raise StoreError(
+            f"no book at {p} (check the path, or make one with `blotter demo --out {p}`)"
+        )
     if p.is_dir():
         raise StoreError(f"{p} is a directory, not a book file")
     try:
@@ -439,15 +468,19 @@ def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bo
         if "not a database" in str(exc):
             raise StoreError(f"{p} is not a blotter book (SQLite: {exc})") from None
         if read_only:
-            raise StoreError(f"cannot open {p} read-only ({exc}): the file and its -wal/-shm files "
-                             "must be readable, or the directory writable") from None
+            raise StoreError(
+                f"cannot open {p} read-only ({exc}): the file and its -wal/-shm files "
+                "must be readable, or the directory writable"
+            ) from None
         raise _map_error(exc, p) from None
     try:
         version = _open_checks(conn, p, verify)
         if version < SCHEMA_VERSION:
             if read_only:
-                raise StoreError(f"{p} uses an older schema ({version}); open it once without "
-                                 "--read-only to upgrade it")
+                raise StoreError(
+                    f"{p} uses an older schema ({version}); open it once without "
+                    "--read-only to upgrade it"
+                )
             _migrate(conn, p)
         if not read_only:
             mode = conn.execute("PRAGMA journal_mode").fetchone()[0]
@@ -463,7 +496,7 @@ def open_store(path: str | os.PathLike[str], read_only: bool = False, create: bo
 
 
 def _migrate(conn: sqlite3.Connection, path: Path) -> None:
-    """Run each schema section above the file's version, each in one transaction with its version."""
+    """Run each schema section above the file's version, each in one transaction."""
     sections = schema_sections()
     for version in sorted(sections):
         conn.execute("BEGIN IMMEDIATE")
@@ -502,7 +535,7 @@ def create_store(path: str | os.PathLike[str]) -> Store:
             conn.execute("PRAGMA journal_mode = WAL")
             conn.execute("BEGIN IMMEDIATE")
             conn.execute(f"PRAGMA application_id = {APPLICATION_ID:d}")
-            for version, statements in sorted(schema_sections().items()):
+            for _version, statements in sorted(schema_sections().items()):
                 for statement in statements:
                     conn.execute(statement)
             conn.execute(f"PRAGMA user_version = {SCHEMA_VERSION:d}")
@@ -539,7 +572,9 @@ def shipped_demo_path() -> Path:
 
 def user_data_dir() -> Path:
     """``$XDG_DATA_HOME/blotter``, else ``~/.local/share/blotter``."""
-    base = os.environ.get("XDG_DATA_HOME") or os.path.join(os.path.expanduser("~"), ".local", "share")
+    base = os.environ.get("XDG_DATA_HOME") or os.path.join(
+        os.path.expanduser("~"), ".local", "share"
+    )
     return Path(base) / "blotter"
 
 
@@ -554,8 +589,10 @@ def user_demo_copy() -> Path:
         return target
     source = shipped_demo_path()
     if not source.is_file() or source.stat().st_size == 0:
-        raise StoreError(f"the shipped demo book {source} is missing; run `blotter demo --out "
-                         f"{target}` to make one")
+        raise StoreError(
+            f"the shipped demo book {source} is missing; run `blotter demo --out "
+            f"{target}` to make one"
+        )
     target.parent.mkdir(parents=True, exist_ok=True, mode=0o700)
     tmp = target.with_name(f".demo.db.{os.getpid()}.tmp")
     try:
@@ -581,15 +618,15 @@ class _ContractArrays:
     """Every contract read so far, as arrays sorted by id (the store's cache; contracts never
     change). ``expiries`` are UTC cut-off instants, NaT for the underlying itself."""
 
-    ids: np.ndarray              # int64 (m,), ascending
-    underlying_ids: np.ndarray   # int64 (m,), the store's underlying ids
-    types: np.ndarray            # '<U1' (m,): 'C', 'P' or 'U'
-    strikes: np.ndarray          # float64 (m,), NaN for 'U'
-    expiries: np.ndarray         # datetime64[s] (m,)
-    american: np.ndarray         # bool (m,)
-    multipliers: np.ndarray      # float64 (m,)
-    cash_settled: np.ndarray     # bool (m,)
-    labels: np.ndarray           # object (m,) of str
+    ids: np.ndarray  # int64 (m,), ascending
+    underlying_ids: np.ndarray  # int64 (m,), the store's underlying ids
+    types: np.ndarray  # '<U1' (m,): 'C', 'P' or 'U'
+    strikes: np.ndarray  # float64 (m,), NaN for 'U'
+    expiries: np.ndarray  # datetime64[s] (m,)
+    american: np.ndarray  # bool (m,)
+    multipliers: np.ndarray  # float64 (m,)
+    cash_settled: np.ndarray  # bool (m,)
+    labels: np.ndarray  # object (m,) of str
 
     @property
     def last_id(self) -> int:
@@ -598,36 +635,54 @@ class _ContractArrays:
     @classmethod
     def empty(cls) -> _ContractArrays:
         z = np.zeros(0)
-        return cls(z.astype(np.int64), z.astype(np.int64), z.astype("<U1"), z, z.astype("datetime64[s]"),
-                   z.astype(bool), z, z.astype(bool), z.astype(object))
+        return cls(
+            z.astype(np.int64),
+            z.astype(np.int64),
+            z.astype("<U1"),
+            z,
+            z.astype("datetime64[s]"),
+            z.astype(bool),
+            z,
+            z.astype(bool),
+            z.astype(object),
+        )
 
-    def extended(self, rows: list[tuple[Any, ...]],
-                 underlyings: dict[int, tuple[str, str]]) -> _ContractArrays:
+    def extended(
+        self, rows: list[tuple[Any, ...]], underlyings: dict[int, tuple[str, str]]
+    ) -> _ContractArrays:
         """These arrays followed by ``rows`` (contract_id, underlying_id, type, strike, expiry,
         cutoff, american, multiplier, cash_settled) with ids above ``last_id``; ``underlyings``
         maps an underlying id to (symbol, time zone)."""
-        cols = list(zip(*rows))
+        cols = list(zip(*rows, strict=False))
         zones = [underlyings[u][1] for u in cols[1]]
-        keys = list(zip(cols[4], cols[5], zones))
-        instants = {k: (np.datetime64("NaT", "s") if k[0] is None else
-                        np.datetime64(_cutoff_utc(*k).replace(tzinfo=None), "s"))
-                    for k in set(keys)}
+        keys = list(zip(cols[4], cols[5], zones, strict=False))
+        instants = {
+            k: (
+                np.datetime64("NaT", "s")
+                if k[0] is None
+                else np.datetime64(_cutoff_utc(*k).replace(tzinfo=None), "s")
+            )
+            for k in set(keys)
+        }
         expiries = np.array([instants[k] for k in keys], dtype="datetime64[s]")
         symbols = [underlyings[u][0] for u in cols[1]]
         labels = np.empty(len(rows), dtype=object)
-        labels[:] = [sym if t == "U" else f"{sym} {e} {k:.10g} {t}"
-                     for sym, t, e, k in zip(symbols, cols[2], cols[4], cols[3])]
+        labels[:] = [
+            sym if t == "U" else f"{sym} {e} {k:.10g} {t}"
+            for sym, t, e, k in zip(symbols, cols[2], cols[4], cols[3], strict=False)
+        ]
         cat = np.concatenate
         return _ContractArrays(
             ids=cat([self.ids, np.array(cols[0], dtype=np.int64)]),
             underlying_ids=cat([self.underlying_ids, np.array(cols[1], dtype=np.int64)]),
             types=cat([self.types, np.array(cols[2], dtype="<U1")]),
-            strikes=cat([self.strikes, np.array(cols[3], dtype=np.float64)]),   # None -> NaN
+            strikes=cat([self.strikes, np.array(cols[3], dtype=np.float64)]),  # None -> NaN
             expiries=cat([self.expiries, expiries]),
             american=cat([self.american, np.array(cols[6], dtype=bool)]),
             multipliers=cat([self.multipliers, np.array(cols[7], dtype=np.float64)]),
             cash_settled=cat([self.cash_settled, np.array(cols[8], dtype=bool)]),
-            labels=cat([self.labels, labels]))
+            labels=cat([self.labels, labels]),
+        )
 
 
 _F = TypeVar("_F", bound=Callable[..., Any])
@@ -652,11 +707,12 @@ def _guard_damage(method: _F) -> _F:
                 sound = False
             if sound:
                 raise
-            raise StoreError(f"{self.path} is damaged (it holds values its schema forbids: "
-                             f"{exc}); restore it from a backup") from None
+            raise StoreError(
+                f"{self.path} is damaged (it holds values its schema forbids: "
+                f"{exc}); restore it from a backup"
+            ) from None
 
     return wrapper  # type: ignore[return-value]
-
 
 
 class Store:
@@ -762,12 +818,14 @@ class Store:
             if isinstance(exc, sqlite3.Error):
                 raise _map_error(exc, self.path) from None
             if isinstance(exc, UnicodeDecodeError):
-                raise StoreError(f"{self.path}: the book holds text that is not UTF-8, so it is "
-                                 "damaged; restore it from a backup") from None
+                raise StoreError(
+                    f"{self.path}: the book holds text that is not UTF-8, so it is "
+                    "damaged; restore it from a backup"
+                ) from None
             raise
 
     def data_version(self) -> int:
-        """``PRAGMA data_version`` of this thread's connection: changes when another connection commits."""
+        """``PRAGMA data_version`` of this thread's connection: changes on others' commits."""
         try:
             return int(self._conn().execute("PRAGMA data_version").fetchone()[0])
         except sqlite3.Error as exc:
@@ -778,7 +836,7 @@ class Store:
         return int(self._conn().execute("PRAGMA user_version").fetchone()[0])
 
     def integrity_ok(self) -> bool:
-        """Full ``integrity_check``, ``foreign_key_check`` and every mark set holding all its marks."""
+        """``integrity_check``, ``foreign_key_check`` and every mark set holding all its marks."""
         with self._read() as conn:
             if [r[0] for r in conn.execute("PRAGMA integrity_check")] != ["ok"]:
                 return False
@@ -786,8 +844,9 @@ class Store:
                 return False
             broken = conn.execute(
                 "SELECT count(*) FROM mark_set s WHERE s.mark_count <> "
-                "(SELECT count(*) FROM mark m WHERE m.mark_set_id = s.mark_set_id)").fetchone()[0]
-            return broken == 0
+                "(SELECT count(*) FROM mark m WHERE m.mark_set_id = s.mark_set_id)"
+            ).fetchone()[0]
+            return bool(broken == 0)
 
     def backup(self, dest: str | os.PathLike[str]) -> Path:
         """A consistent copy of the book at ``dest`` (new file, mode 0o660), synced and checked."""
@@ -822,7 +881,8 @@ class Store:
         return conn.execute(
             "SELECT underlying_id, symbol, kind, currency, beta, div_yield, calendar, description, "
             "is_reference, multiplier, american, cash_settled, time_zone, cutoff_time "
-            "FROM underlying ORDER BY underlying_id").fetchall()
+            "FROM underlying ORDER BY underlying_id"
+        ).fetchall()
 
     @_guard_damage
     def load_underlyings(self) -> Underlyings:
@@ -833,17 +893,32 @@ class Store:
     @staticmethod
     def _underlyings_from(rows: list[tuple[Any, ...]]) -> Underlyings:
         return Underlyings(
-            symbols=tuple(r[1] for r in rows), kinds=tuple(r[2] for r in rows),
+            symbols=tuple(r[1] for r in rows),
+            kinds=tuple(r[2] for r in rows),
             currencies=tuple(r[3] for r in rows),
             betas=np.array([r[4] for r in rows], dtype=np.float64),
             div_yields=np.array([r[5] for r in rows], dtype=np.float64),
-            calendars=tuple(r[6] for r in rows), descriptions=tuple(r[7] for r in rows))
+            calendars=tuple(r[6] for r in rows),
+            descriptions=tuple(r[7] for r in rows),
+        )
 
-    def add_underlying(self, symbol: str, kind: str, currency: str, multiplier: float, *,
-                       description: str = "", american: bool = True, cash_settled: bool = False,
-                       div_yield: float = 0.0, beta: float = 1.0, is_reference: bool = False,
-                       calendar: str = "NYSE", time_zone: str = "America/New_York",
-                       cutoff_time: str = "16:00") -> int:
+    def add_underlying(
+        self,
+        symbol: str,
+        kind: str,
+        currency: str,
+        multiplier: float,
+        *,
+        description: str = "",
+        american: bool = True,
+        cash_settled: bool = False,
+        div_yield: float = 0.0,
+        beta: float = 1.0,
+        is_reference: bool = False,
+        calendar: str = "NYSE",
+        time_zone: str = "America/New_York",
+        cutoff_time: str = "16:00",
+    ) -> int:
         """Add an underlying (its defaults for contracts) and return its id; symbols are unique."""
         if kind not in UNDERLYING_KINDS:
             raise StoreError(f"kind {kind!r} is not one of {', '.join(UNDERLYING_KINDS)}")
@@ -856,19 +931,37 @@ class Store:
             if conn.execute("SELECT 1 FROM underlying WHERE symbol = ?", (symbol,)).fetchone():
                 raise StoreError(f"underlying {symbol!r} already exists")
             cur = conn.execute(
-                "INSERT INTO underlying (symbol, description, kind, currency, multiplier, american, "
+                "INSERT INTO underlying (symbol, description, kind, currency, multiplier, "
+                "american, "
                 "cash_settled, div_yield, beta, is_reference, calendar, time_zone, cutoff_time) "
                 "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (symbol, description, kind, currency, float(multiplier), int(american),
-                 int(cash_settled), float(div_yield), float(beta), int(is_reference), calendar,
-                 time_zone, cutoff_time))
+                (
+                    symbol,
+                    description,
+                    kind,
+                    currency,
+                    float(multiplier),
+                    int(american),
+                    int(cash_settled),
+                    float(div_yield),
+                    float(beta),
+                    int(is_reference),
+                    calendar,
+                    time_zone,
+                    cutoff_time,
+                ),
+            )
             return int(cur.lastrowid or 0)
 
-    def add_note(self, text: str, written_at: datetime | None = None, who: str | None = None) -> int:
+    def add_note(
+        self, text: str, written_at: datetime | None = None, who: str | None = None
+    ) -> int:
         """Append a free note about the desk or the file; returns its id."""
         with self._write() as conn:
-            cur = conn.execute("INSERT INTO desk_note (written_at, who, text) VALUES (?, ?, ?)",
-                               (_ts(written_at or _now()), who or self.who, text))
+            cur = conn.execute(
+                "INSERT INTO desk_note (written_at, who, text) VALUES (?, ?, ?)",
+                (_ts(written_at or _now()), who or self.who, text),
+            )
             return int(cur.lastrowid or 0)
 
     @_guard_damage
@@ -896,26 +989,43 @@ class Store:
     def _underlying(self, conn: sqlite3.Connection, symbol: str) -> tuple[Any, ...]:
         row = conn.execute(
             "SELECT underlying_id, multiplier, american, cash_settled, cutoff_time, kind "
-            "FROM underlying WHERE symbol = ?", (symbol,)).fetchone()
+            "FROM underlying WHERE symbol = ?",
+            (symbol,),
+        ).fetchone()
         if row is None:
             raise StoreError(f"unknown underlying {symbol!r}")
         return tuple(row)
 
-    def find_or_create_contract(self, symbol: str, expiry: date | str | None, strike: float | None,
-                                is_call: bool | None, american: bool | None = None,
-                                multiplier: float | None = None,
-                                cash_settled: bool | None = None) -> int:
+    def find_or_create_contract(
+        self,
+        symbol: str,
+        expiry: date | str | None,
+        strike: float | None,
+        is_call: bool | None,
+        american: bool | None = None,
+        multiplier: float | None = None,
+        cash_settled: bool | None = None,
+    ) -> int:
         """The id of the contract with these terms, created when new; defaults from the underlying.
 
         ``expiry``, ``strike`` and ``is_call`` all None means the underlying itself (a hedge).
         """
         with self._write() as conn:
-            return self._contract_id(conn, symbol, expiry, strike, is_call, american, multiplier,
-                                     cash_settled)
+            return self._contract_id(
+                conn, symbol, expiry, strike, is_call, american, multiplier, cash_settled
+            )
 
-    def _contract_id(self, conn: sqlite3.Connection, symbol: str, expiry: date | str | None,
-                     strike: float | None, is_call: bool | None, american: bool | None,
-                     multiplier: float | None, cash_settled: bool | None) -> int:
+    def _contract_id(
+        self,
+        conn: sqlite3.Connection,
+        symbol: str,
+        expiry: date | str | None,
+        strike: float | None,
+        is_call: bool | None,
+        american: bool | None,
+        multiplier: float | None,
+        cash_settled: bool | None,
+    ) -> int:
         uid, u_mult, u_am, u_cash, u_cut, _kind = self._underlying(conn, symbol)
         terms = _contract_terms(expiry, strike, is_call)
         opt_type, exp_text, k = terms
@@ -928,20 +1038,25 @@ class Store:
             row = conn.execute(
                 "SELECT contract_id FROM contract WHERE underlying_id = ? AND option_type = 'U' "
                 "AND american = ? AND multiplier = ? AND cash_settled = ?",
-                (uid, am, mult, cash)).fetchone()
+                (uid, am, mult, cash),
+            ).fetchone()
             cutoff = None
         else:
             row = conn.execute(
                 "SELECT contract_id FROM contract WHERE underlying_id = ? AND option_type = ? "
                 "AND expiry = ? AND strike = ? AND american = ? AND multiplier = ? "
-                "AND cash_settled = ?", (uid, opt_type, exp_text, k, am, mult, cash)).fetchone()
+                "AND cash_settled = ?",
+                (uid, opt_type, exp_text, k, am, mult, cash),
+            ).fetchone()
             cutoff = u_cut
         if row:
             return int(row[0])
         cur = conn.execute(
-            "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, american, "
+            "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, "
+            "american, "
             "multiplier, cash_settled) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-            (uid, opt_type, k, exp_text, cutoff, am, mult, cash))
+            (uid, opt_type, k, exp_text, cutoff, am, mult, cash),
+        )
         return int(cur.lastrowid or 0)
 
     @_guard_damage
@@ -951,22 +1066,45 @@ class Store:
             rows = conn.execute(
                 "SELECT c.contract_id, u.symbol, c.option_type, c.expiry, c.strike, c.cutoff_time, "
                 "c.american, c.multiplier, c.cash_settled, u.time_zone FROM contract c "
-                "JOIN underlying u USING (underlying_id) ORDER BY c.contract_id").fetchall()
-        return [ContractRecord(
-            contract_id=r[0], symbol=r[1], option_type=r[2],
-            expiry=date.fromisoformat(r[3]) if r[3] else None, strike=r[4], cutoff_time=r[5],
-            american=bool(r[6]), multiplier=r[7], cash_settled=bool(r[8]),
-            label=contract_label(r[1], r[2], r[3], r[4]),
-            cutoff_utc=_cutoff_utc(r[3], r[5], r[9]) if r[3] else None) for r in rows]
+                "JOIN underlying u USING (underlying_id) ORDER BY c.contract_id"
+            ).fetchall()
+        return [
+            ContractRecord(
+                contract_id=r[0],
+                symbol=r[1],
+                option_type=r[2],
+                expiry=date.fromisoformat(r[3]) if r[3] else None,
+                strike=r[4],
+                cutoff_time=r[5],
+                american=bool(r[6]),
+                multiplier=r[7],
+                cash_settled=bool(r[8]),
+                label=contract_label(r[1], r[2], r[3], r[4]),
+                cutoff_utc=_cutoff_utc(r[3], r[5], r[9]) if r[3] else None,
+            )
+            for r in rows
+        ]
 
     # ---- trades
 
-    def add_trade(self, book: str, symbol: str, quantity: int, price: float,
-                  expiry: date | str | None = None, strike: float | None = None,
-                  is_call: bool | None = None, *, trade_time: datetime | str | None = None,
-                  note: str = "", source: str = "typed", american: bool | None = None,
-                  multiplier: float | None = None, cash_settled: bool | None = None,
-                  contract_id: int | None = None) -> int:
+    def add_trade(
+        self,
+        book: str,
+        symbol: str,
+        quantity: int,
+        price: float,
+        expiry: date | str | None = None,
+        strike: float | None = None,
+        is_call: bool | None = None,
+        *,
+        trade_time: datetime | str | None = None,
+        note: str = "",
+        source: str = "typed",
+        american: bool | None = None,
+        multiplier: float | None = None,
+        cash_settled: bool | None = None,
+        contract_id: int | None = None,
+    ) -> int:
         """Book a trade and return its id. ``quantity`` signed contracts (shares for a hedge).
 
         The contract is ``contract_id`` when given, else found or created from ``symbol``,
@@ -983,29 +1121,36 @@ class Store:
         with self._write() as conn:
             book_id = self._book_id(conn, book, create=True)
             if contract_id is None:
-                cid = self._contract_id(conn, symbol, expiry, strike, is_call, american, multiplier,
-                                        cash_settled)
+                cid = self._contract_id(
+                    conn, symbol, expiry, strike, is_call, american, multiplier, cash_settled
+                )
             else:
                 cid = self._existing_contract(conn, contract_id)
             self._check_not_expired(conn, cid, t)
             cur = conn.execute(
                 "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
                 "who, source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (book_id, cid, qty, px, _ts(t), _ts(booked), self.who, source, note))
+                (book_id, cid, qty, px, _ts(t), _ts(booked), self.who, source, note),
+            )
             return int(cur.lastrowid or 0)
 
     @staticmethod
     def _existing_contract(conn: sqlite3.Connection, contract_id: int) -> int:
-        if conn.execute("SELECT 1 FROM contract WHERE contract_id = ?", (int(contract_id),)).fetchone():
+        if conn.execute(
+            "SELECT 1 FROM contract WHERE contract_id = ?", (int(contract_id),)
+        ).fetchone():
             return int(contract_id)
         raise StoreError(f"no contract {contract_id}")
 
     @staticmethod
     def _check_not_expired(conn: sqlite3.Connection, contract_id: int, t: datetime) -> None:
-        row = conn.execute("SELECT expiry FROM contract WHERE contract_id = ?", (contract_id,)).fetchone()
+        row = conn.execute(
+            "SELECT expiry FROM contract WHERE contract_id = ?", (contract_id,)
+        ).fetchone()
         if row and row[0] and row[0] < t.date().isoformat():
-            raise StoreError(f"the contract expired on {row[0]}, before the trade date "
-                             f"{t.date().isoformat()}")
+            raise StoreError(
+                f"the contract expired on {row[0]}, before the trade date {t.date().isoformat()}"
+            )
 
     def cancel_trade(self, trade_id: int, reason: str) -> int:
         """Cancel a live trade (a new row naming it and why); returns the cancel's id."""
@@ -1014,8 +1159,10 @@ class Store:
         with self._write() as conn:
             self._check_cancellable(conn, trade_id)
             cur = conn.execute(
-                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)",
-                (int(trade_id), reason.strip(), _ts(_now()), self.who))
+                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, "
+                "?, ?)",
+                (int(trade_id), reason.strip(), _ts(_now()), self.who),
+            )
             return int(cur.lastrowid or 0)
 
     @staticmethod
@@ -1023,19 +1170,29 @@ class Store:
         row = conn.execute(
             "SELECT t.trade_id, b.name, t.contract_id, t.quantity, t.price, t.trade_time, t.note "
             "FROM trade t JOIN book b USING (book_id) WHERE t.trade_id = ?",
-            (int(trade_id),)).fetchone()
+            (int(trade_id),),
+        ).fetchone()
         if row is None:
             raise StoreError(f"no trade {trade_id}")
-        done = conn.execute("SELECT cancelled_at, who FROM trade_cancel WHERE trade_id = ?",
-                            (int(trade_id),)).fetchone()
+        done = conn.execute(
+            "SELECT cancelled_at, who FROM trade_cancel WHERE trade_id = ?", (int(trade_id),)
+        ).fetchone()
         if done:
             raise StoreError(f"trade {trade_id} was already cancelled at {done[0]} by {done[1]}")
         return tuple(row)
 
-    def amend_trade(self, trade_id: int, *, reason: str, quantity: int | None = None,
-                    price: float | None = None, trade_time: datetime | str | None = None,
-                    note: str | None = None, book: str | None = None,
-                    contract_id: int | None = None) -> int:
+    def amend_trade(
+        self,
+        trade_id: int,
+        *,
+        reason: str,
+        quantity: int | None = None,
+        price: float | None = None,
+        trade_time: datetime | str | None = None,
+        note: str | None = None,
+        book: str | None = None,
+        contract_id: int | None = None,
+    ) -> int:
         """Cancel ``trade_id`` and book its replacement with the changed fields; returns the new id.
 
         Fields left None keep the original's value (including its trade time).
@@ -1045,7 +1202,8 @@ class Store:
         now = _now()
         with self._write() as conn:
             _, old_book, old_cid, old_qty, old_px, old_time, old_note = self._check_cancellable(
-                conn, trade_id)
+                conn, trade_id
+            )
             qty = _check_quantity(old_qty if quantity is None else quantity)
             px = _check_price(old_px if price is None else price)
             t = _from_ts(old_time) if trade_time is None else parse_time(trade_time)
@@ -1055,13 +1213,25 @@ class Store:
             self._check_not_expired(conn, cid, t)
             book_id = self._book_id(conn, old_book if book is None else book, create=True)
             conn.execute(
-                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)",
-                (int(trade_id), f"amended: {reason.strip()}", _ts(now), self.who))
+                "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, "
+                "?, ?)",
+                (int(trade_id), f"amended: {reason.strip()}", _ts(now), self.who),
+            )
             cur = conn.execute(
                 "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
                 "who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, 'typed', ?, ?)",
-                (book_id, cid, qty, px, _ts(t), _ts(now), self.who,
-                 old_note if note is None else note, int(trade_id)))
+                (
+                    book_id,
+                    cid,
+                    qty,
+                    px,
+                    _ts(t),
+                    _ts(now),
+                    self.who,
+                    old_note if note is None else note,
+                    int(trade_id),
+                ),
+            )
             return int(cur.lastrowid or 0)
 
     def _contract_arrays(self, conn: sqlite3.Connection) -> _ContractArrays:
@@ -1073,21 +1243,31 @@ class Store:
         with self._lock:
             cache = self._contracts
         rows = conn.execute(
-            "SELECT contract_id, underlying_id, option_type, strike, expiry, cutoff_time, american, "
+            "SELECT contract_id, underlying_id, option_type, strike, expiry, cutoff_time, "
+            "american, "
             "multiplier, cash_settled FROM contract WHERE contract_id > ? ORDER BY contract_id",
-            (cache.last_id,)).fetchall()
+            (cache.last_id,),
+        ).fetchall()
         if not rows:
             return cache
-        unders = {r[0]: (r[1], r[2]) for r in conn.execute(
-            "SELECT underlying_id, symbol, time_zone FROM underlying")}
+        unders = {
+            r[0]: (r[1], r[2])
+            for r in conn.execute("SELECT underlying_id, symbol, time_zone FROM underlying")
+        }
         grown = cache.extended(rows, unders)
         with self._lock:
             if grown.last_id > self._contracts.last_id:
                 self._contracts = grown
         return grown
 
-    def _book_of(self, conn: sqlite3.Connection, name: str, contract_ids: np.ndarray,
-                 quantities: np.ndarray, sort: bool) -> Book:
+    def _book_of(
+        self,
+        conn: sqlite3.Connection,
+        name: str,
+        contract_ids: np.ndarray,
+        quantities: np.ndarray,
+        sort: bool,
+    ) -> Book:
         """A ``Book`` of the given contracts and quantities, grouped by underlying, then hedges
         first, expiry, strike and type when ``sort``; in the given order otherwise."""
         urows = self._underlying_rows(conn)
@@ -1096,8 +1276,9 @@ class Store:
         table = self._contract_arrays(conn)
         at = np.searchsorted(table.ids, contract_ids)
         if len(at) and (at.max() >= len(table.ids) or (table.ids[at] != contract_ids).any()):
-            raise StoreError("a trade names a contract the book does not hold; restore it from a "
-                             "backup")
+            raise StoreError(
+                "a trade names a contract the book does not hold; restore it from a backup"
+            )
         index_of = np.full(max((r[0] for r in urows), default=0) + 1, -1, dtype=np.int64)
         index_of[[r[0] for r in urows]] = np.arange(len(urows))
         uidx = index_of[table.underlying_ids[at]]
@@ -1105,29 +1286,49 @@ class Store:
         strikes = table.strikes[at]
         expiries = table.expiries[at]
         if sort and len(at):
-            order = np.lexsort((contract_ids, types, np.nan_to_num(strikes, nan=0.0),
-                                expiries.astype(np.int64), types != "U", uidx))
+            order = np.lexsort(
+                (
+                    contract_ids,
+                    types,
+                    np.nan_to_num(strikes, nan=0.0),
+                    expiries.astype(np.int64),
+                    types != "U",
+                    uidx,
+                )
+            )
         else:
             order = np.arange(len(at))
         at, uidx, types = at[order], uidx[order], types[order]
         return Book(
-            name=name, underlyings=underlyings, reference_index=reference,
-            contract_ids=contract_ids[order], labels=tuple(table.labels[at].tolist()),
-            underlying_idx=uidx, is_option=types != "U", is_call=types == "C",
-            american=table.american[at], strikes=strikes[order], expiries=expiries[order],
-            multipliers=table.multipliers[at], quantities=quantities[order],
-            cash_settled=table.cash_settled[at])
+            name=name,
+            underlyings=underlyings,
+            reference_index=reference,
+            contract_ids=contract_ids[order],
+            labels=tuple(table.labels[at].tolist()),
+            underlying_idx=uidx,
+            is_option=types != "U",
+            is_call=types == "C",
+            american=table.american[at],
+            strikes=strikes[order],
+            expiries=expiries[order],
+            multipliers=table.multipliers[at],
+            quantities=quantities[order],
+            cash_settled=table.cash_settled[at],
+        )
 
     @_guard_damage
     def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
-        """Net positions of live trades (all books when ``book`` is None) as they stood at ``as_of``.
+        """Net positions of live trades (all books when ``book`` is None) as at ``as_of``.
 
         A trade counts once it was both dealt and booked at or before ``as_of``; a cancel counts
         from the instant it was entered. None means now. Contracts whose trades net to zero are
         left out. Rows are grouped by underlying, then hedges, expiry, strike and type.
         """
-        where, params = ["NOT EXISTS (SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id"
-                         + (" AND x.cancelled_at <= ?)" if as_of is not None else ")")], []
+        where = [
+            "NOT EXISTS (SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id"
+            + (" AND x.cancelled_at <= ?)" if as_of is not None else ")")
+        ]
+        params: list[Any] = []
         if as_of is not None:
             t = _ts(parse_time(as_of))
             params.append(t)
@@ -1139,11 +1340,13 @@ class Store:
             if book is not None:
                 book_id = self._book_id(conn, book, create=False)
                 if book_id is None:
-                    raise StoreError(f"no book named {book!r} (books: "
-                                     f"{', '.join(self.book_names_in(conn))})")
+                    raise StoreError(
+                        f"no book named {book!r} (books: {', '.join(self.book_names_in(conn))})"
+                    )
                 params.append(book_id)
-            rows = conn.execute(f"SELECT contract_id, quantity FROM trade t WHERE "
-                                f"{' AND '.join(where)}", params).fetchall()
+            rows = conn.execute(
+                f"SELECT contract_id, quantity FROM trade t WHERE {' AND '.join(where)}", params
+            ).fetchall()
             pairs = np.array(rows, dtype=np.int64).reshape(-1, 2)
             ids, inverse = np.unique(pairs[:, 0], return_inverse=True)
             net = np.bincount(inverse.ravel(), weights=pairs[:, 1], minlength=len(ids))
@@ -1156,8 +1359,9 @@ class Store:
         return [r[0] for r in conn.execute("SELECT name FROM book ORDER BY name")]
 
     @_guard_damage
-    def new_trades(self, since: datetime, until: datetime | None = None,
-                   book: str | None = None) -> tuple[Book, np.ndarray]:
+    def new_trades(
+        self, since: datetime, until: datetime | None = None, book: str | None = None
+    ) -> tuple[Book, np.ndarray]:
         """One ``Book`` row per trade booked in (``since``, ``until``] and live at ``until``.
 
         These are exactly the trades in ``load_book(as_of=until)`` that are not in
@@ -1176,18 +1380,30 @@ class Store:
                 "SELECT t.contract_id, t.quantity, t.price FROM trade t "
                 "JOIN book b ON b.book_id = t.book_id "
                 "WHERE t.booked_at > ? AND t.booked_at <= ? AND t.trade_time <= ? AND NOT EXISTS ("
-                "SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id AND x.cancelled_at <= ?) "
+                "SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id AND x.cancelled_at "
+                "<= ?) "
                 f"{book_filter} ORDER BY t.booked_at, t.trade_id",
-                [lo, hi, hi, hi] + params[3:]).fetchall()
+                [lo, hi, hi, hi] + params[3:],
+            ).fetchall()
             ids = np.array([r[0] for r in rows], dtype=np.int64)
-            result = self._book_of(conn, book or "all books", ids,
-                                   np.array([r[1] for r in rows], dtype=np.float64), sort=False)
+            result = self._book_of(
+                conn,
+                book or "all books",
+                ids,
+                np.array([r[1] for r in rows], dtype=np.float64),
+                sort=False,
+            )
         return result, np.array([r[2] for r in rows], dtype=np.float64)
 
     @_guard_damage
-    def trades(self, book: str | None = None, since: datetime | None = None,
-               until: datetime | None = None, live_only: bool = False) -> list[TradeRecord]:
-        """Trades dealt in (``since``, ``until``] (all when None), oldest first, with their state now."""
+    def trades(
+        self,
+        book: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+        live_only: bool = False,
+    ) -> list[TradeRecord]:
+        """Trades dealt in (``since``, ``until``] (all when None), oldest first, with state."""
         where = ["1"]
         params: list[Any] = []
         if book is not None:
@@ -1212,47 +1428,87 @@ class Store:
                 "JOIN underlying u ON u.underlying_id = c.underlying_id "
                 "LEFT JOIN trade_cancel x ON x.trade_id = t.trade_id "
                 "LEFT JOIN trade r ON r.replaces = t.trade_id "
-                f"WHERE {' AND '.join(where)} ORDER BY t.trade_time, t.trade_id", params).fetchall()
+                f"WHERE {' AND '.join(where)} ORDER BY t.trade_time, t.trade_id",
+                params,
+            ).fetchall()
         out = []
         for r in rows:
             state = "live" if r[20] is None else ("amended" if r[18] is not None else "cancelled")
-            out.append(TradeRecord(
-                trade_id=r[0], book=r[1], contract_id=r[2],
-                contract=contract_label(r[3], r[4], r[5], r[6]), symbol=r[3], option_type=r[4],
-                expiry=date.fromisoformat(r[5]) if r[5] else None, strike=r[6],
-                american=bool(r[7]), multiplier=r[8], cash_settled=bool(r[9]), quantity=r[10],
-                price=r[11], trade_time=_from_ts(r[12]), booked_at=_from_ts(r[13]), who=r[14],
-                source=r[15], note=r[16], state=state, replaces=r[17], replaced_by=r[18],
-                cancel_reason=r[19], cancelled_at=_from_ts(r[20]) if r[20] else None,
-                cancelled_by=r[21]))
+            out.append(
+                TradeRecord(
+                    trade_id=r[0],
+                    book=r[1],
+                    contract_id=r[2],
+                    contract=contract_label(r[3], r[4], r[5], r[6]),
+                    symbol=r[3],
+                    option_type=r[4],
+                    expiry=date.fromisoformat(r[5]) if r[5] else None,
+                    strike=r[6],
+                    american=bool(r[7]),
+                    multiplier=r[8],
+                    cash_settled=bool(r[9]),
+                    quantity=r[10],
+                    price=r[11],
+                    trade_time=_from_ts(r[12]),
+                    booked_at=_from_ts(r[13]),
+                    who=r[14],
+                    source=r[15],
+                    note=r[16],
+                    state=state,
+                    replaces=r[17],
+                    replaced_by=r[18],
+                    cancel_reason=r[19],
+                    cancelled_at=_from_ts(r[20]) if r[20] else None,
+                    cancelled_by=r[21],
+                )
+            )
         return out
 
     # ---- marks
 
-    def _new_mark_set(self, conn: sqlite3.Connection, kind: str, count: int, *, note: str = "",
-                      source: str = "typed", corrects: int | None = None,
-                      marked_at: datetime | None = None, who: str | None = None) -> int:
+    def _new_mark_set(
+        self,
+        conn: sqlite3.Connection,
+        kind: str,
+        count: int,
+        *,
+        note: str = "",
+        source: str = "typed",
+        corrects: int | None = None,
+        marked_at: datetime | None = None,
+        who: str | None = None,
+    ) -> int:
         cur = conn.execute(
             "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count) "
             "VALUES (?, ?, ?, ?, ?, ?, ?)",
-            (kind, _ts(marked_at or _now()), who or self.who, note or "", source, corrects, count))
+            (kind, _ts(marked_at or _now()), who or self.who, note or "", source, corrects, count),
+        )
         return int(cur.lastrowid or 0)
 
-    def _insert_marks(self, conn: sqlite3.Connection, set_id: int,
-                      points: Sequence[tuple[str, int | None, str | None, str | None, float | None,
-                                            int | None, float]]) -> tuple[int, int]:
+    def _insert_marks(
+        self,
+        conn: sqlite3.Connection,
+        set_id: int,
+        points: Sequence[
+            tuple[str, int | None, str | None, str | None, float | None, int | None, float]
+        ],
+    ) -> tuple[int, int]:
         """Insert points (kind, underlying_id, currency, expiry, strike, tenor_days, value)."""
         first = last = 0
         for seq, p in enumerate(points, start=1):
             cur = conn.execute(
-                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, strike, "
-                "tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)", (set_id, seq, *p))
+                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
+                "strike, "
+                "tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (set_id, seq, *p),
+            )
             last = int(cur.lastrowid or 0)
             first = first or last
         return first, last
 
-    def _log_one(self, point_of: Callable[[sqlite3.Connection], tuple[Any, ...]],
-                 note: str | None) -> int:
+    def _log_one(
+        self, point_of: Callable[[sqlite3.Connection], tuple[Any, ...]], note: str | None
+    ) -> int:
         with self._write() as conn:
             point = point_of(conn)
             set_id = self._new_mark_set(conn, "intraday", 1, note=note or "")
@@ -1263,17 +1519,25 @@ class Store:
         px = _finite(price, "spot")
         if px <= 0:
             raise StoreError(f"spot must be positive, got {price!r}")
-        return self._log_one(lambda c: ("spot", self._underlying(c, symbol)[0], None, None, None,
-                                        None, px), note)
+        return self._log_one(
+            lambda c: ("spot", self._underlying(c, symbol)[0], None, None, None, None, px), note
+        )
 
-    def log_vol(self, symbol: str, expiry: date | str, vol: float, strike: float | None = None,
-                note: str | None = None) -> int:
+    def log_vol(
+        self,
+        symbol: str,
+        expiry: date | str,
+        vol: float,
+        strike: float | None = None,
+        note: str | None = None,
+    ) -> int:
         """Log an implied vol (decimal, 0 < vol <= 10) at an expiry and strike (None = ATM)."""
         v = _check_vol(vol)
         e = parse_date(expiry).isoformat()
         k = None if strike is None else _check_strike(strike)
-        return self._log_one(lambda c: ("vol", self._underlying(c, symbol)[0], None, e, k, None, v),
-                             note)
+        return self._log_one(
+            lambda c: ("vol", self._underlying(c, symbol)[0], None, e, k, None, v), note
+        )
 
     def log_rate(self, currency: str, tenor_days: int, rate: float, note: str | None = None) -> int:
         """Log a continuously compounded zero rate (decimal) of ``currency`` at ``tenor_days``."""
@@ -1283,10 +1547,11 @@ class Store:
         return self._log_one(lambda c: ("rate", None, ccy, None, None, days, r), note)
 
     def log_div_yield(self, symbol: str, q: float, note: str | None = None) -> int:
-        """Log a dividend yield (decimal; the foreign rate for fx) overriding the underlying's default."""
+        """Log a dividend yield (decimal; foreign rate for fx), overriding the default."""
         v = _check_decimal(q, "dividend yield")
-        return self._log_one(lambda c: ("div_yield", self._underlying(c, symbol)[0], None, None,
-                                        None, None, v), note)
+        return self._log_one(
+            lambda c: ("div_yield", self._underlying(c, symbol)[0], None, None, None, None, v), note
+        )
 
     _IN_FORCE_SQL = """
         SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
@@ -1300,20 +1565,27 @@ class Store:
         ORDER BY m.kind, m.underlying_id, m.currency, m.expiry, m.strike, m.tenor_days
     """
 
-    def _mark_rows(self, conn: sqlite3.Connection, mark_set_id: int | None,
-                   as_of: datetime | None) -> list[tuple[Any, ...]]:
+    def _mark_rows(
+        self, conn: sqlite3.Connection, mark_set_id: int | None, as_of: datetime | None
+    ) -> list[tuple[Any, ...]]:
         if mark_set_id is not None:
-            if conn.execute("SELECT 1 FROM mark_set WHERE mark_set_id = ?",
-                            (int(mark_set_id),)).fetchone() is None:
+            if (
+                conn.execute(
+                    "SELECT 1 FROM mark_set WHERE mark_set_id = ?", (int(mark_set_id),)
+                ).fetchone()
+                is None
+            ):
                 raise StoreError(f"no mark set {mark_set_id}")
             return conn.execute(
                 "SELECT mark_id, mark_set_id, kind, underlying_id, currency, expiry, strike, "
                 "tenor_days, value FROM mark WHERE mark_set_id = ? ORDER BY seq",
-                (int(mark_set_id),)).fetchall()
+                (int(mark_set_id),),
+            ).fetchall()
         if as_of is None:
             return conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
-        return conn.execute(self._IN_FORCE_SQL.format(where="WHERE s.marked_at <= ?"),
-                            (_ts(parse_time(as_of)),)).fetchall()
+        return conn.execute(
+            self._IN_FORCE_SQL.format(where="WHERE s.marked_at <= ?"), (_ts(parse_time(as_of)),)
+        ).fetchall()
 
     @_guard_damage
     def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
@@ -1333,12 +1605,20 @@ class Store:
             if set_ids:
                 marks = ",".join("?" * len(set_ids)) if len(set_ids) < 900 else None
                 if marks:
-                    sets = {r[0]: (r[1], r[2]) for r in conn.execute(
-                        f"SELECT mark_set_id, kind, marked_at FROM mark_set WHERE mark_set_id IN "
-                        f"({marks})", set_ids)}
+                    sets = {
+                        r[0]: (r[1], r[2])
+                        for r in conn.execute(
+                            f"SELECT mark_set_id, kind, marked_at FROM mark_set WHERE "
+                            f"mark_set_id IN "
+                            f"({marks})",
+                            set_ids,
+                        )
+                    }
                 else:
-                    sets = {r[0]: (r[1], r[2]) for r in conn.execute(
-                        "SELECT mark_set_id, kind, marked_at FROM mark_set")}
+                    sets = {
+                        r[0]: (r[1], r[2])
+                        for r in conn.execute("SELECT mark_set_id, kind, marked_at FROM mark_set")
+                    }
         spots: dict[str, float] = {}
         divs: dict[str, float] = {}
         vols: dict[str, list[tuple[str, float, float]]] = {}
@@ -1350,18 +1630,25 @@ class Store:
                 divs[symbols[uid]] = value
             elif kind == "vol":
                 vols.setdefault(symbols[uid], []).append(
-                    (expiry, np.nan if strike is None else strike, value))
+                    (expiry, np.nan if strike is None else strike, value)
+                )
             else:
                 rates.setdefault(ccy, []).append((tenor, value))
         surfaces = {}
         for sym, pts in vols.items():
             pts.sort(key=lambda p: (p[0], -np.inf if np.isnan(p[1]) else p[1]))
-            surfaces[sym] = VolSurface(expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
-                                       strikes=np.array([p[1] for p in pts], dtype=np.float64),
-                                       vols=np.array([p[2] for p in pts], dtype=np.float64))
-        curves = {ccy: RateCurve(tenor_days=np.array([p[0] for p in pts], dtype=np.float64),
-                                 zero_rates=np.array([p[1] for p in pts], dtype=np.float64))
-                  for ccy, pts in rates.items()}
+            surfaces[sym] = VolSurface(
+                expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
+                strikes=np.array([p[1] for p in pts], dtype=np.float64),
+                vols=np.array([p[2] for p in pts], dtype=np.float64),
+            )
+        curves = {
+            ccy: RateCurve(
+                tenor_days=np.array([p[0] for p in pts], dtype=np.float64),
+                zero_rates=np.array([p[1] for p in pts], dtype=np.float64),
+            )
+            for ccy, pts in rates.items()
+        }
         version = max((r[0] for r in rows), default=0)
         newest = max((sets[s][1] for s in set_ids), default=None)
         if mark_set_id is not None:
@@ -1370,29 +1657,55 @@ class Store:
             set_id, kind = set_ids[0], sets[set_ids[0]][0]
         else:
             set_id, kind = None, "intraday"
-        return Market(version=int(version),
-                      marks_as_of=_from_ts(newest) if newest else _EPOCH,
-                      spots=spots, surfaces=surfaces, curves=curves, div_yields=divs,
-                      mark_set_id=set_id, mark_kind=kind)
+        return Market(
+            version=int(version),
+            marks_as_of=_from_ts(newest) if newest else _EPOCH,
+            spots=spots,
+            surfaces=surfaces,
+            curves=curves,
+            div_yields=divs,
+            mark_set_id=set_id,
+            mark_kind=kind,
+        )
 
     @_guard_damage
-    def marks(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> list[MarkRecord]:
+    def marks(
+        self, mark_set_id: int | None = None, as_of: datetime | None = None
+    ) -> list[MarkRecord]:
         """Mark points: those in force (at ``as_of`` or now), or exactly the set ``mark_set_id``."""
         with self._read() as conn:
             rows = self._mark_rows(conn, mark_set_id, as_of)
             symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
-            sets = {r[0]: r[1:] for r in conn.execute(
-                "SELECT mark_set_id, kind, marked_at, who FROM mark_set")}
-        return [MarkRecord(
-            mark_id=r[0], mark_set_id=r[1], set_kind=sets[r[1]][0],
-            marked_at=_from_ts(sets[r[1]][1]), who=sets[r[1]][2], kind=r[2],
-            symbol=symbols.get(r[3]) if r[3] is not None else None, currency=r[4],
-            expiry=date.fromisoformat(r[5]) if r[5] else None, strike=r[6], tenor_days=r[7],
-            value=r[8]) for r in rows]
+            sets = {
+                r[0]: r[1:]
+                for r in conn.execute("SELECT mark_set_id, kind, marked_at, who FROM mark_set")
+            }
+        return [
+            MarkRecord(
+                mark_id=r[0],
+                mark_set_id=r[1],
+                set_kind=sets[r[1]][0],
+                marked_at=_from_ts(sets[r[1]][1]),
+                who=sets[r[1]][2],
+                kind=r[2],
+                symbol=symbols.get(r[3]) if r[3] is not None else None,
+                currency=r[4],
+                expiry=date.fromisoformat(r[5]) if r[5] else None,
+                strike=r[6],
+                tenor_days=r[7],
+                value=r[8],
+            )
+            for r in rows
+        ]
 
-    def commit_close(self, note: str | None = None, corrects: int | None = None,
-                     marked_at: datetime | None = None, who: str | None = None,
-                     source: str = "close") -> int:
+    def commit_close(
+        self,
+        note: str | None = None,
+        corrects: int | None = None,
+        marked_at: datetime | None = None,
+        who: str | None = None,
+        source: str = "close",
+    ) -> int:
         """Write the marks in force now as one immutable close set; returns its id.
 
         ``corrects`` names an earlier close set this one replaces (it stays on record).
@@ -1400,19 +1713,29 @@ class Store:
         """
         with self._write() as conn:
             if corrects is not None:
-                row = conn.execute("SELECT kind FROM mark_set WHERE mark_set_id = ?",
-                                   (int(corrects),)).fetchone()
+                row = conn.execute(
+                    "SELECT kind FROM mark_set WHERE mark_set_id = ?", (int(corrects),)
+                ).fetchone()
                 if row is None or row[0] != "close":
                     raise StoreError(f"mark set {corrects} is not a close set")
-                done = conn.execute("SELECT mark_set_id FROM mark_set WHERE corrects = ?",
-                                    (int(corrects),)).fetchone()
+                done = conn.execute(
+                    "SELECT mark_set_id FROM mark_set WHERE corrects = ?", (int(corrects),)
+                ).fetchone()
                 if done:
                     raise StoreError(f"close set {corrects} was already corrected by set {done[0]}")
             rows = conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
             if not rows:
                 raise StoreError("there are no marks to commit as a close")
-            set_id = self._new_mark_set(conn, "close", len(rows), note=note or "", source=source,
-                                        corrects=corrects, marked_at=marked_at, who=who)
+            set_id = self._new_mark_set(
+                conn,
+                "close",
+                len(rows),
+                note=note or "",
+                source=source,
+                corrects=corrects,
+                marked_at=marked_at,
+                who=who,
+            )
             self._insert_marks(conn, set_id, [tuple(r[2:]) for r in rows])
             return set_id
 
@@ -1424,25 +1747,40 @@ class Store:
         with self._read() as conn:
             rows = conn.execute(
                 "SELECT s.mark_set_id, s.kind, s.marked_at, s.who, s.note, s.corrects, s.source, "
-                "s.mark_count, (SELECT c.mark_set_id FROM mark_set c WHERE c.corrects = s.mark_set_id) "
+                "s.mark_count, (SELECT c.mark_set_id FROM mark_set c WHERE c.corrects = "
+                "s.mark_set_id) "
                 "FROM mark_set s WHERE ? IS NULL OR s.kind = ? ORDER BY s.mark_set_id",
-                (kind, kind)).fetchall()
-        return [MarkSetInfo(id=r[0], kind=r[1], marked_at=_from_ts(r[2]), who=r[3], note=r[4],
-                            corrects=r[5], source=r[6], marks=r[7], superseded_by=r[8])
-                for r in rows]
+                (kind, kind),
+            ).fetchall()
+        return [
+            MarkSetInfo(
+                id=r[0],
+                kind=r[1],
+                marked_at=_from_ts(r[2]),
+                who=r[3],
+                note=r[4],
+                corrects=r[5],
+                source=r[6],
+                marks=r[7],
+                superseded_by=r[8],
+            )
+            for r in rows
+        ]
 
     # ---- CSV imports
 
-    def import_trades_csv(self, path: str | os.PathLike[str],
-                          progress: Callable[[int], None] | None = None) -> ImportReport:
+    def import_trades_csv(
+        self, path: str | os.PathLike[str], progress: Callable[[int], None] | None = None
+    ) -> ImportReport:
         """Import a trade CSV (``TRADE_COLUMNS``) as one transaction: all rows or none.
 
         Every row is checked before anything is written; problems name the line and column
         (up to ``MAX_PROBLEMS`` at once). A file already imported (same content) is refused.
         ``progress(rows_written)`` is called every ``PROGRESS_EVERY`` rows.
         """
-        p, data, digest, header, rows = _read_csv(path, TRADE_COLUMNS + TRADE_INFO_COLUMNS,
-                                                  TRADE_REQUIRED)
+        p, data, digest, header, rows = _read_csv(
+            path, TRADE_COLUMNS + TRADE_INFO_COLUMNS, TRADE_REQUIRED
+        )
         with self._read() as conn:
             unders = {r[1]: r for r in self._underlying_rows(conn)}
         problems: list[_Problem] = []
@@ -1461,8 +1799,20 @@ class Store:
             booked = _ts(now)
             ids: list[int] = []
             contract_cache: dict[tuple[Any, ...], int] = {}
-            for i, (book, symbol, expiry, strike, is_call, qty, px, t, am, mult, cash, note) in \
-                    enumerate(parsed, start=1):
+            for i, (
+                book,
+                symbol,
+                expiry,
+                strike,
+                is_call,
+                qty,
+                px,
+                t,
+                am,
+                mult,
+                cash,
+                note,
+            ) in enumerate(parsed, start=1):
                 key = (symbol, expiry, strike, is_call, am, mult, cash)
                 cid = contract_cache.get(key)
                 if cid is None:
@@ -1472,19 +1822,28 @@ class Store:
                 cur = conn.execute(
                     "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
                     "booked_at, who, source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                    (book_id, cid, qty, px, _ts(t), booked, self.who, source, note))
+                    (book_id, cid, qty, px, _ts(t), booked, self.who, source, note),
+                )
                 ids.append(int(cur.lastrowid or 0))
                 if progress is not None and i % PROGRESS_EVERY == 0:
                     progress(i)
             import_id = self._record_import(conn, "trades", p, digest, len(ids), ids[0], ids[-1])
-        return ImportReport(path=p, kind="trades", rows=len(ids), import_id=import_id,
-                            first_id=ids[0], last_id=ids[-1])
+        return ImportReport(
+            path=p,
+            kind="trades",
+            rows=len(ids),
+            import_id=import_id,
+            first_id=ids[0],
+            last_id=ids[-1],
+        )
 
-    def import_marks_csv(self, path: str | os.PathLike[str],
-                         progress: Callable[[int], None] | None = None) -> ImportReport:
+    def import_marks_csv(
+        self, path: str | os.PathLike[str], progress: Callable[[int], None] | None = None
+    ) -> ImportReport:
         """Import a mark CSV (``MARK_COLUMNS``) as one intraday mark set: all points or none."""
-        p, data, digest, header, rows = _read_csv(path, MARK_COLUMNS + MARK_INFO_COLUMNS,
-                                                  MARK_REQUIRED)
+        p, data, digest, header, rows = _read_csv(
+            path, MARK_COLUMNS + MARK_INFO_COLUMNS, MARK_REQUIRED
+        )
         with self._read() as conn:
             unders = {r[1]: r[0] for r in self._underlying_rows(conn)}
         problems: list[_Problem] = []
@@ -1505,34 +1864,56 @@ class Store:
             raise StoreError(f"{p.name}: nothing imported; the file has no mark rows")
         with self._write() as conn:
             self._check_not_imported(conn, "marks", digest, p)
-            set_id = self._new_mark_set(conn, "intraday", len(points), note=f"import of {p.name}",
-                                        source=f"file:{p.name}")
+            set_id = self._new_mark_set(
+                conn, "intraday", len(points), note=f"import of {p.name}", source=f"file:{p.name}"
+            )
             for start in range(0, len(points), PROGRESS_EVERY):
-                chunk = points[start:start + PROGRESS_EVERY]
+                chunk = points[start : start + PROGRESS_EVERY]
                 conn.executemany(
                     "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
                     "strike, tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                    [(set_id, start + j + 1, *pt) for j, pt in enumerate(chunk)])
+                    [(set_id, start + j + 1, *pt) for j, pt in enumerate(chunk)],
+                )
                 if progress is not None and start + len(chunk) < len(points):
                     progress(start + len(chunk))
             import_id = self._record_import(conn, "marks", p, digest, len(points), set_id, set_id)
-        return ImportReport(path=p, kind="marks", rows=len(points), import_id=import_id,
-                            first_id=set_id, last_id=set_id)
+        return ImportReport(
+            path=p,
+            kind="marks",
+            rows=len(points),
+            import_id=import_id,
+            first_id=set_id,
+            last_id=set_id,
+        )
 
     @staticmethod
     def _check_not_imported(conn: sqlite3.Connection, kind: str, digest: str, p: Path) -> None:
-        row = conn.execute("SELECT import_id, file_name, imported_at, who FROM import_file "
-                           "WHERE kind = ? AND sha256 = ?", (kind, digest)).fetchone()
+        row = conn.execute(
+            "SELECT import_id, file_name, imported_at, who FROM import_file "
+            "WHERE kind = ? AND sha256 = ?",
+            (kind, digest),
+        ).fetchone()
         if row:
-            raise StoreError(f"{p.name}: nothing imported; the same content was already imported "
-                             f"as import {row[0]} ({row[1]}, at {row[2]} by {row[3]})")
+            raise StoreError(
+                f"{p.name}: nothing imported; the same content was already imported "
+                f"as import {row[0]} ({row[1]}, at {row[2]} by {row[3]})"
+            )
 
-    def _record_import(self, conn: sqlite3.Connection, kind: str, p: Path, digest: str, rows: int,
-                       first: int, last: int) -> int:
+    def _record_import(
+        self,
+        conn: sqlite3.Connection,
+        kind: str,
+        p: Path,
+        digest: str,
+        rows: int,
+        first: int,
+        last: int,
+    ) -> int:
         cur = conn.execute(
             "INSERT INTO import_file (kind, file_name, sha256, rows, imported_at, who, first_id, "
             "last_id) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-            (kind, p.name, digest, rows, _ts(_now()), self.who, first, last))
+            (kind, p.name, digest, rows, _ts(_now()), self.who, first, last),
+        )
         return int(cur.lastrowid or 0)
 
 
@@ -1558,7 +1939,9 @@ def _finite(value: Any, what: str) -> float:
 def _check_quantity(quantity: Any) -> int:
     q = _finite(quantity, "quantity")
     if q != int(q):
-        raise StoreError(f"quantity must be a whole number of contracts or shares, got {quantity!r}")
+        raise StoreError(
+            f"quantity must be a whole number of contracts or shares, got {quantity!r}"
+        )
     if q == 0:
         raise StoreError("quantity must not be zero")
     if abs(q) >= 2**53:
@@ -1605,23 +1988,30 @@ def _check_currency(currency: Any) -> str:
 def _check_tenor(tenor_days: Any) -> int:
     d = _finite(tenor_days, "tenor")
     if d != int(d) or not 1 <= d <= 36500:
-        raise StoreError(f"tenor must be a whole number of days from 1 to 36500, got {tenor_days!r}")
+        raise StoreError(
+            f"tenor must be a whole number of days from 1 to 36500, got {tenor_days!r}"
+        )
     return int(d)
 
 
 def _check_source(source: str) -> None:
-    if source not in ("typed", "exercise", "demo") and not (source.startswith("file:") and len(source) > 5):
+    if source not in ("typed", "exercise", "demo") and not (
+        source.startswith("file:") and len(source) > 5
+    ):
         raise StoreError(f"source {source!r} must be typed, exercise, demo or file:NAME")
 
 
-def _contract_terms(expiry: date | str | None, strike: float | None,
-                    is_call: bool | None) -> tuple[str, str | None, float | None]:
+def _contract_terms(
+    expiry: date | str | None, strike: float | None, is_call: bool | None
+) -> tuple[str, str | None, float | None]:
     """(option_type, expiry text, strike) from user terms; all None = the underlying itself."""
     if expiry is None and strike is None and is_call is None:
         return "U", None, None
     if expiry is None or strike is None or is_call is None:
-        raise StoreError("an option needs an expiry, a strike and call or put "
-                         "(leave all three out for the underlying itself)")
+        raise StoreError(
+            "an option needs an expiry, a strike and call or put "
+            "(leave all three out for the underlying itself)"
+        )
     return ("C" if is_call else "P"), parse_date(expiry).isoformat(), _check_strike(strike)
 
 
@@ -1629,8 +2019,9 @@ def _contract_terms(expiry: date | str | None, strike: float | None,
 # CSV reading and row parsing
 
 
-def _read_csv(path: str | os.PathLike[str], known: Sequence[str], required: Sequence[str]
-              ) -> tuple[Path, bytes, str, list[str], list[tuple[int, dict[str, str]]]]:
+def _read_csv(
+    path: str | os.PathLike[str], known: Sequence[str], required: Sequence[str]
+) -> tuple[Path, bytes, str, list[str], list[tuple[int, dict[str, str]]]]:
     """(path, bytes, sha256, header, [(line, {column: text})]) of a UTF-8 CSV (BOM, CRLF or LF)."""
     p = Path(path)
     try:
@@ -1643,11 +2034,12 @@ def _read_csv(path: str | os.PathLike[str], known: Sequence[str], required: Sequ
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        line = data[:exc.start].count(b"\n") + 1
-        raise StoreError(f"{p.name}: nothing imported; line {line} is not UTF-8 "
-                         f"(byte {exc.start + 1})") from None
+        line = data[: exc.start].count(b"\n") + 1
+        raise StoreError(
+            f"{p.name}: nothing imported; line {line} is not UTF-8 (byte {exc.start + 1})"
+        ) from None
     if "\x00" in text:
-        line = text[:text.index("\x00")].count("\n") + 1
+        line = text[: text.index("\x00")].count("\n") + 1
         raise StoreError(f"{p.name}: nothing imported; line {line} holds a NUL character")
     reader = csv.reader(io.StringIO(text, newline=""), strict=True)
     try:
@@ -1679,10 +2071,11 @@ def _read_csv(path: str | os.PathLike[str], known: Sequence[str], required: Sequ
             _raise_if(p, problems)
         if rec and any(c.strip() for c in rec):
             if len(rec) != len(header):
-                problems.append(_Problem(start, "", f"{len(rec)} cells where the header has "
-                                                    f"{len(header)}"))
+                problems.append(
+                    _Problem(start, "", f"{len(rec)} cells where the header has {len(header)}")
+                )
             else:
-                rows.append((start, dict(zip(header, rec))))
+                rows.append((start, dict(zip(header, rec, strict=False))))
         start = reader.line_num + 1
     _raise_if(p, problems)
     return p, data, digest, header, rows
@@ -1694,7 +2087,7 @@ def _raise_if(p: Path, problems: list[_Problem]) -> None:
 
 
 def _unneutralise(text: str) -> str:
-    """Undo the leading quote that export puts before formula-like text or text starting with a quote."""
+    """Undo the leading quote export puts before formula-like text or text starting with a quote."""
     if len(text) >= 2 and text[0] == "'" and text[1] in "'=+-@\t\r":
         return text[1:]
     return text
@@ -1709,8 +2102,13 @@ def _cell(rec: dict[str, str], col: str) -> str:
     return _unneutralise(rec.get(col, "").strip())
 
 
-def _parse_trade_row(line: int, rec: dict[str, str], unders: dict[str, tuple[Any, ...]],
-                     now: datetime, problems: list[_Problem]) -> tuple[Any, ...] | None:
+def _parse_trade_row(
+    line: int,
+    rec: dict[str, str],
+    unders: dict[str, tuple[Any, ...]],
+    now: datetime,
+    problems: list[_Problem],
+) -> tuple[Any, ...] | None:
     """One checked trade row, or None after appending its problems."""
     before = len(problems)
 
@@ -1740,8 +2138,10 @@ def _parse_trade_row(line: int, rec: dict[str, str], unders: dict[str, tuple[Any
             bad("strike", str(exc) if strike_text else "an option needs a strike")
     elif typ == "U":
         if expiry_text or strike_text:
-            bad("expiry" if expiry_text else "strike", "the underlying itself (type U) has no "
-                                                       "expiry or strike")
+            bad(
+                "expiry" if expiry_text else "strike",
+                "the underlying itself (type U) has no expiry or strike",
+            )
     else:
         bad("type", f"{typ!r} is not C (call), P (put) or U (the underlying itself)")
     qty = price = None
@@ -1784,12 +2184,25 @@ def _parse_trade_row(line: int, rec: dict[str, str], unders: dict[str, tuple[Any
         bad("state", f"only live trades can be imported, this one is {state!r}")
     if len(problems) > before:
         return None
-    return (book, symbol, expiry, strike, is_call, qty, price, t, american, mult, cash,
-            _cell(rec, "note"))
+    return (
+        book,
+        symbol,
+        expiry,
+        strike,
+        is_call,
+        qty,
+        price,
+        t,
+        american,
+        mult,
+        cash,
+        _cell(rec, "note"),
+    )
 
 
-def _parse_mark_row(line: int, rec: dict[str, str], unders: dict[str, int],
-                    problems: list[_Problem]) -> tuple[Any, ...] | None:
+def _parse_mark_row(
+    line: int, rec: dict[str, str], unders: dict[str, int], problems: list[_Problem]
+) -> tuple[Any, ...] | None:
     """One checked mark point (kind, underlying_id, currency, expiry, strike, tenor, value)."""
     before = len(problems)
 
@@ -1798,7 +2211,11 @@ def _parse_mark_row(line: int, rec: dict[str, str], unders: dict[str, int],
 
     kind = _cell(rec, "kind").lower()
     symbol, ccy = _cell(rec, "symbol"), _cell(rec, "currency")
-    expiry_text, strike_text, tenor_text = _cell(rec, "expiry"), _cell(rec, "strike"), _cell(rec, "tenor_days")
+    expiry_text, strike_text, tenor_text = (
+        _cell(rec, "expiry"),
+        _cell(rec, "strike"),
+        _cell(rec, "tenor_days"),
+    )
     value_text = _cell(rec, "value")
     if kind not in MARK_KINDS:
         bad("kind", f"{kind!r} is not one of {', '.join(MARK_KINDS)}")
@@ -1859,21 +2276,45 @@ def _parse_mark_row(line: int, rec: dict[str, str], unders: dict[str, int],
 
 
 def trade_csv_row(t: TradeRecord) -> list[Any]:
-    """The CSV cells of a trade, ``TRADE_COLUMNS`` then ``TRADE_INFO_COLUMNS`` (the import format)."""
-    return [_escape_quote(t.book), _escape_quote(t.symbol), t.option_type, t.expiry.isoformat() if t.expiry else "",
-            "" if t.strike is None else repr(float(t.strike)).removesuffix(".0"),
-            t.quantity, repr(float(t.price)), _ts(t.trade_time),
-            "american" if t.american else "european", repr(float(t.multiplier)).removesuffix(".0"),
-            "cash" if t.cash_settled else "physical", _escape_quote(t.note),
-            t.trade_id, t.state, t.who, t.source, _ts(t.booked_at), t.contract]
+    """The CSV cells of a trade: ``TRADE_COLUMNS`` then ``TRADE_INFO_COLUMNS`` (import format)."""
+    return [
+        _escape_quote(t.book),
+        _escape_quote(t.symbol),
+        t.option_type,
+        t.expiry.isoformat() if t.expiry else "",
+        "" if t.strike is None else repr(float(t.strike)).removesuffix(".0"),
+        t.quantity,
+        repr(float(t.price)),
+        _ts(t.trade_time),
+        "american" if t.american else "european",
+        repr(float(t.multiplier)).removesuffix(".0"),
+        "cash" if t.cash_settled else "physical",
+        _escape_quote(t.note),
+        t.trade_id,
+        t.state,
+        t.who,
+        t.source,
+        _ts(t.booked_at),
+        t.contract,
+    ]
 
 
 def mark_csv_row(m: MarkRecord) -> list[Any]:
     """The CSV cells of a mark point, ``MARK_COLUMNS`` then ``MARK_INFO_COLUMNS``."""
-    return [m.kind, _escape_quote(m.symbol or ""), m.currency or "", m.expiry.isoformat() if m.expiry else "",
-            "" if m.strike is None else repr(float(m.strike)).removesuffix(".0"),
-            "" if m.tenor_days is None else m.tenor_days, repr(float(m.value)),
-            m.mark_id, m.mark_set_id, m.set_kind, _ts(m.marked_at), m.who]
+    return [
+        m.kind,
+        _escape_quote(m.symbol or ""),
+        m.currency or "",
+        m.expiry.isoformat() if m.expiry else "",
+        "" if m.strike is None else repr(float(m.strike)).removesuffix(".0"),
+        "" if m.tenor_days is None else m.tenor_days,
+        repr(float(m.value)),
+        m.mark_id,
+        m.mark_set_id,
+        m.set_kind,
+        _ts(m.marked_at),
+        m.who,
+    ]
 
 
 def timestamp_text(t: datetime) -> str:

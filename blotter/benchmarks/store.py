@@ -63,15 +63,27 @@ def run(quick: bool) -> list[Result]:
         for s in stores:
             s.close()
         points = sum(s.vols.size for s in market.surfaces.values())
-        results.append(result_from(
-            "store load_book", len(book), cold, target_ns=LOAD_TARGET_S * 1e9 / 100_000,
-            note=f"first load of book + market ({points:,} vol points) on a new Store, median "
-                 f"{np.median(cold) * 1e3:,.0f} ms; target 1 s per 100k; opening the file "
-                 f"(quick_check) {np.median(opened) * 1e3:,.0f} ms more"))
-        results.append(result_from(
-            "store load_book (reload)", len(book), warm, target_ns=LOAD_TARGET_S * 1e9 / 100_000,
-            note=f"reload on the same Store (contracts cached: they never change), median "
-                 f"{np.median(warm) * 1e3:,.0f} ms"))
+        results.append(
+            result_from(
+                "store load_book",
+                len(book),
+                cold,
+                target_ns=LOAD_TARGET_S * 1e9 / 100_000,
+                note=f"first load of book + market ({points:,} vol points) on a new Store, median "
+                f"{np.median(cold) * 1e3:,.0f} ms; target 1 s per 100k; opening the file "
+                f"(quick_check) {np.median(opened) * 1e3:,.0f} ms more",
+            )
+        )
+        results.append(
+            result_from(
+                "store load_book (reload)",
+                len(book),
+                warm,
+                target_ns=LOAD_TARGET_S * 1e9 / 100_000,
+                note=f"reload on the same Store (contracts cached: they never change), median "
+                f"{np.median(warm) * 1e3:,.0f} ms",
+            )
+        )
         results.append(_mark_visible(path, repeat=5 if quick else 21))
     return results
 
@@ -84,8 +96,9 @@ def _mark_visible(path: Path, repeat: int) -> Result:
     from blotter.store import open_store
 
     writer = open_store(path)
-    viewer = subprocess.Popen([sys.executable, "-c", _VIEWER, str(path)], stdout=subprocess.PIPE,
-                              text=True)
+    viewer = subprocess.Popen(
+        [sys.executable, "-c", _VIEWER, str(path)], stdout=subprocess.PIPE, text=True
+    )
     try:
         assert viewer.stdout is not None
         if viewer.stdout.readline().strip() != "ready":
@@ -104,6 +117,11 @@ def _mark_visible(path: Path, repeat: int) -> Result:
         viewer.kill()
         viewer.wait()
         writer.close()
-    return result_from("store mark_visible", 1, seconds, target_ns=VISIBLE_TARGET_S * 1e9,
-                       note="log_spot (synchronous=FULL) -> other process polls data_version "
-                            "every 1 ms and reloads the market; per mark")
+    return result_from(
+        "store mark_visible",
+        1,
+        seconds,
+        target_ns=VISIBLE_TARGET_S * 1e9,
+        note="log_spot (synchronous=FULL) -> other process polls data_version "
+        "every 1 ms and reloads the market; per mark",
+    )

@@ -6,10 +6,20 @@ import click
 
 
 @click.command()
-@click.option("--out", "out", default="demo.db", show_default=True, type=click.Path(dir_okay=False),
-              help="File to write.")
-@click.option("--positions", type=click.IntRange(min=0), default=None,
-              help="Option positions (default 150, the shipped demo); e.g. 100000 for benchmarks.")
+@click.option(
+    "--out",
+    "out",
+    default="demo.db",
+    show_default=True,
+    type=click.Path(dir_okay=False),
+    help="File to write.",
+)
+@click.option(
+    "--positions",
+    type=click.IntRange(min=0),
+    default=None,
+    help="Option positions (default 150, the shipped demo); e.g. 100000 for benchmarks.",
+)
 @click.option("--seed", type=int, default=None, help="Random seed (default: the shipped demo's).")
 @click.option("--force", is_flag=True, help="Replace OUT if it exists (not while it is in use).")
 def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None:
@@ -22,14 +32,17 @@ def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None
     from blotter.store import StoreError
 
     try:
-        path = build_demo(out, positions=positions, seed=DEMO_SEED if seed is None else seed,
-                          force=force)
+        path = build_demo(
+            out, positions=positions, seed=DEMO_SEED if seed is None else seed, force=force
+        )
         counts = describe(path)
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
-    click.echo(f"wrote {path}: fictitious demo book, {counts['option_positions']:,} option positions "
-               f"and {counts['positions'] - counts['option_positions']} hedges from "
-               f"{counts['trades']:,} trades, {counts['mark_sets']} mark sets")
+    click.echo(
+        f"wrote {path}: fictitious demo book, {counts['option_positions']:,} option positions "
+        f"and {counts['positions'] - counts['option_positions']} hedges from "
+        f"{counts['trades']:,} trades, {counts['mark_sets']} mark sets"
+    )
 
 
 COMMANDS = [demo]

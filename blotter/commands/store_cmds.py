@@ -15,8 +15,16 @@ from typing import Any
 
 import click
 
-from blotter.commands.common import (check_output_flags, db_option, output_options, print_csv,
-                                     print_json, print_table, read_only_requested, resolve_db)
+from blotter.commands.common import (
+    check_output_flags,
+    db_option,
+    output_options,
+    print_csv,
+    print_json,
+    print_table,
+    read_only_requested,
+    resolve_db,
+)
 
 
 @contextmanager
@@ -84,37 +92,77 @@ def _emit(as_json: bool, payload: dict[str, Any], text: str) -> None:
 
 @click.group()
 def trade() -> None:
-    """Book, cancel, amend, import and list trades (never edited or deleted: every change is a row)."""
+    """Book, cancel, amend, import and list trades (every change is a new row)."""
 
 
 @trade.command("add")
 @click.argument("symbol")
-@click.option("--qty", "quantity", type=int, required=True,
-              help="Signed quantity: contracts for an option, shares (units) for the underlying.")
-@click.option("--price", type=float, required=True,
-              help="Price per unit of underlying as quoted (option premium per share).")
+@click.option(
+    "--qty",
+    "quantity",
+    type=int,
+    required=True,
+    help="Signed quantity: contracts for an option, shares (units) for the underlying.",
+)
+@click.option(
+    "--price",
+    type=float,
+    required=True,
+    help="Price per unit of underlying as quoted (option premium per share).",
+)
 @click.option("--expiry", help="Option expiry date, YYYY-MM-DD (leave out for the underlying).")
 @click.option("--strike", type=float, help="Option strike, in the underlying's price units.")
 @click.option("--call/--put", "is_call", default=None, help="Call or put (options only).")
 @click.option("--book", default="main", show_default=True, help="Book (desk account).")
-@click.option("--time", "trade_time", help="When it was dealt, ISO-8601 with Z or offset; default now.")
+@click.option(
+    "--time", "trade_time", help="When it was dealt, ISO-8601 with Z or offset; default now."
+)
 @click.option("--note", default="", help="Free note kept with the trade.")
-@click.option("--american/--european", default=None, help="Exercise style (default: the underlying's).")
+@click.option(
+    "--american/--european", default=None, help="Exercise style (default: the underlying's)."
+)
 @click.option("--multiplier", type=float, help="Units per contract (default: the underlying's).")
-@click.option("--cash-settled/--physical", "cash_settled", default=None,
-              help="Settlement (default: the underlying's).")
+@click.option(
+    "--cash-settled/--physical",
+    "cash_settled",
+    default=None,
+    help="Settlement (default: the underlying's).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
-def trade_add(symbol: str, quantity: int, price: float, expiry: str | None, strike: float | None,
-              is_call: bool | None, book: str, trade_time: str | None, note: str,
-              american: bool | None, multiplier: float | None, cash_settled: bool | None,
-              as_json: bool, db_path: str | None) -> None:
-    """Book a trade in SYMBOL: an option (--expiry, --strike, --call/--put) or the underlying itself."""
+def trade_add(
+    symbol: str,
+    quantity: int,
+    price: float,
+    expiry: str | None,
+    strike: float | None,
+    is_call: bool | None,
+    book: str,
+    trade_time: str | None,
+    note: str,
+    american: bool | None,
+    multiplier: float | None,
+    cash_settled: bool | None,
+    as_json: bool,
+    db_path: str | None,
+) -> None:
+    """Book a trade in SYMBOL: an option (--expiry, --strike, --call/--put) or SYMBOL itself."""
     when = _time_option(trade_time)
     with _store(db_path) as store:
-        tid = store.add_trade(book, symbol, quantity, price, expiry, strike, is_call,
-                              trade_time=when, note=note, american=american, multiplier=multiplier,
-                              cash_settled=cash_settled)
+        tid = store.add_trade(
+            book,
+            symbol,
+            quantity,
+            price,
+            expiry,
+            strike,
+            is_call,
+            trade_time=when,
+            note=note,
+            american=american,
+            multiplier=multiplier,
+            cash_settled=cash_settled,
+        )
     _emit(as_json, {"trade_id": tid}, f"booked trade {tid}")
 
 
@@ -140,16 +188,34 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.option("--book", help="Move to this book.")
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
-def trade_amend(trade_id: int, reason: str, quantity: int | None, price: float | None,
-                trade_time: str | None, note: str | None, book: str | None, as_json: bool,
-                db_path: str | None) -> None:
+def trade_amend(
+    trade_id: int,
+    reason: str,
+    quantity: int | None,
+    price: float | None,
+    trade_time: str | None,
+    note: str | None,
+    book: str | None,
+    as_json: bool,
+    db_path: str | None,
+) -> None:
     """Amend trade TRADE_ID: cancel it and book a replacement that names it."""
     when = _time_option(trade_time)
     with _store(db_path) as store:
-        new_id = store.amend_trade(trade_id, reason=reason, quantity=quantity, price=price,
-                                   trade_time=when, note=note, book=book)
-    _emit(as_json, {"trade_id": new_id, "replaces": trade_id},
-          f"amended trade {trade_id}: replaced by trade {new_id}")
+        new_id = store.amend_trade(
+            trade_id,
+            reason=reason,
+            quantity=quantity,
+            price=price,
+            trade_time=when,
+            note=note,
+            book=book,
+        )
+    _emit(
+        as_json,
+        {"trade_id": new_id, "replaces": trade_id},
+        f"amended trade {trade_id}: replaced by trade {new_id}",
+    )
 
 
 @trade.command("import")
@@ -160,13 +226,30 @@ def trade_import(file: str, as_json: bool, db_path: str | None) -> None:
     """Import trades from a CSV FILE (the `trade list --csv` format): every row or none."""
     with _store(db_path) as store:
         rep = store.import_trades_csv(file)
-    _emit(as_json, {"rows": rep.rows, "import_id": rep.import_id, "first_trade_id": rep.first_id,
-                    "last_trade_id": rep.last_id},
-          f"imported {rep.rows} trades from {rep.path.name} (trades {rep.first_id}-{rep.last_id})")
+    _emit(
+        as_json,
+        {
+            "rows": rep.rows,
+            "import_id": rep.import_id,
+            "first_trade_id": rep.first_id,
+            "last_trade_id": rep.last_id,
+        },
+        f"imported {rep.rows} trades from {rep.path.name} (trades {rep.first_id}-{rep.last_id})",
+    )
 
 
-TRADE_TABLE = ("id", "book", "contract", "qty", "price", "traded (UTC)", "state", "who", "source",
-               "note")
+TRADE_TABLE = (
+    "id",
+    "book",
+    "contract",
+    "qty",
+    "price",
+    "traded (UTC)",
+    "state",
+    "who",
+    "source",
+    "note",
+)
 """Columns of the ``trade list`` table (price per unit of underlying)."""
 
 
@@ -174,12 +257,23 @@ TRADE_TABLE = ("id", "book", "contract", "qty", "price", "traded (UTC)", "state"
 @click.option("--book", help="Only this book.")
 @click.option("--since", help="Only trades dealt after this instant (ISO-8601 with Z or offset).")
 @click.option("--until", help="Only trades dealt at or before this instant.")
-@click.option("--all", "show_all", is_flag=True,
-              help="Include cancelled and amended trades (the CSV then cannot be re-imported).")
+@click.option(
+    "--all",
+    "show_all",
+    is_flag=True,
+    help="Include cancelled and amended trades (the CSV then cannot be re-imported).",
+)
 @output_options
 @db_option
-def trade_list(book: str | None, since: str | None, until: str | None, show_all: bool,
-               as_json: bool, as_csv: bool, db_path: str | None) -> None:
+def trade_list(
+    book: str | None,
+    since: str | None,
+    until: str | None,
+    show_all: bool,
+    as_json: bool,
+    as_csv: bool,
+    db_path: str | None,
+) -> None:
     """List trades, oldest first: live ones, or every row with --all."""
     from blotter.store import TRADE_COLUMNS, TRADE_INFO_COLUMNS, trade_csv_row
 
@@ -190,16 +284,42 @@ def trade_list(book: str | None, since: str | None, until: str | None, show_all:
     if as_csv:
         print_csv(TRADE_COLUMNS + TRADE_INFO_COLUMNS, (trade_csv_row(t) for t in rows))
     elif as_json:
-        print_json([dict(zip(TRADE_COLUMNS + TRADE_INFO_COLUMNS, trade_csv_row(t))) | {
-            "quantity": t.quantity, "price": t.price, "strike": t.strike,
-            "multiplier": t.multiplier, "replaces": t.replaces, "replaced_by": t.replaced_by,
-            "cancel_reason": t.cancel_reason} for t in rows])
+        print_json(
+            [
+                dict(zip(TRADE_COLUMNS + TRADE_INFO_COLUMNS, trade_csv_row(t), strict=False))
+                | {
+                    "quantity": t.quantity,
+                    "price": t.price,
+                    "strike": t.strike,
+                    "multiplier": t.multiplier,
+                    "replaces": t.replaces,
+                    "replaced_by": t.replaced_by,
+                    "cancel_reason": t.cancel_reason,
+                }
+                for t in rows
+            ]
+        )
     else:
-        print_table(TRADE_TABLE, [
-            (t.trade_id, t.book, t.contract, f"{t.quantity:+,d}", f"{t.price:,.4g}",
-             t.trade_time.strftime("%Y-%m-%d %H:%M:%S"), t.state, t.who, t.source, t.note)
-            for t in rows], title=f"{len(rows)} trades (price per unit of underlying)",
-            right=[True, False, False, True, True, False, False, False, False, False])
+        print_table(
+            TRADE_TABLE,
+            [
+                (
+                    t.trade_id,
+                    t.book,
+                    t.contract,
+                    f"{t.quantity:+,d}",
+                    f"{t.price:,.4g}",
+                    t.trade_time.strftime("%Y-%m-%d %H:%M:%S"),
+                    t.state,
+                    t.who,
+                    t.source,
+                    t.note,
+                )
+                for t in rows
+            ],
+            title=f"{len(rows)} trades (price per unit of underlying)",
+            right=[True, False, False, True, True, False, False, False, False, False],
+        )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -223,11 +343,13 @@ def _log(db_path: str | None, as_json: bool, action: Callable[[Any], int], what:
 @click.option("--note", help="Free note kept with the mark.")
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
-def mark_spot(symbol: str, price: float, note: str | None, as_json: bool,
-              db_path: str | None) -> None:
+def mark_spot(
+    symbol: str, price: float, note: str | None, as_json: bool, db_path: str | None
+) -> None:
     """Log the spot PRICE of SYMBOL (in its currency, per unit)."""
-    _log(db_path, as_json, lambda s: s.log_spot(symbol, price, note=note),
-         f"spot {symbol} {price:g}")
+    _log(
+        db_path, as_json, lambda s: s.log_spot(symbol, price, note=note), f"spot {symbol} {price:g}"
+    )
 
 
 @mark.command("vol")
@@ -237,13 +359,18 @@ def mark_spot(symbol: str, price: float, note: str | None, as_json: bool,
 @click.option("--strike", type=float, help="Strike of the point; leave out for the ATM vol.")
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
-def mark_vol(symbol: str, expiry: str, vol: str, strike: float | None, as_json: bool,
-             db_path: str | None) -> None:
+def mark_vol(
+    symbol: str, expiry: str, vol: str, strike: float | None, as_json: bool, db_path: str | None
+) -> None:
     """Log the implied VOL (0.25 or 25%) of SYMBOL at EXPIRY (YYYY-MM-DD) and --strike (or ATM)."""
     v = parse_vol(vol)
     where = f" K={strike:g}" if strike is not None else " ATM"
-    _log(db_path, as_json, lambda s: s.log_vol(symbol, expiry, v, strike=strike),
-         f"vol {symbol} {expiry}{where} {v:.2%}")
+    _log(
+        db_path,
+        as_json,
+        lambda s: s.log_vol(symbol, expiry, v, strike=strike),
+        f"vol {symbol} {expiry}{where} {v:.2%}",
+    )
 
 
 @mark.command("rate")
@@ -252,11 +379,17 @@ def mark_vol(symbol: str, expiry: str, vol: str, strike: float | None, as_json: 
 @click.argument("rate")
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
-def mark_rate(currency: str, tenor_days: int, rate: str, as_json: bool, db_path: str | None) -> None:
+def mark_rate(
+    currency: str, tenor_days: int, rate: str, as_json: bool, db_path: str | None
+) -> None:
     """Log the zero RATE (0.04 or 4%, continuously compounded) of CURRENCY at TENOR_DAYS."""
     r = parse_decimal_or_percent(rate, "rate")
-    _log(db_path, as_json, lambda s: s.log_rate(currency, tenor_days, r),
-         f"rate {currency} {tenor_days} d {r:.4%}")
+    _log(
+        db_path,
+        as_json,
+        lambda s: s.log_rate(currency, tenor_days, r),
+        f"rate {currency} {tenor_days} d {r:.4%}",
+    )
 
 
 @mark.command("divyield")
@@ -278,8 +411,11 @@ def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
     """Import marks from a CSV FILE (the `mark list --csv` format) as one set: every row or none."""
     with _store(db_path) as store:
         rep = store.import_marks_csv(file)
-    _emit(as_json, {"rows": rep.rows, "import_id": rep.import_id, "mark_set_id": rep.first_id},
-          f"imported {rep.rows} marks from {rep.path.name} (mark set {rep.first_id})")
+    _emit(
+        as_json,
+        {"rows": rep.rows, "import_id": rep.import_id, "mark_set_id": rep.first_id},
+        f"imported {rep.rows} marks from {rep.path.name} (mark set {rep.first_id})",
+    )
 
 
 @mark.command("close")
@@ -292,26 +428,52 @@ def mark_close(note: str | None, corrects: int | None, as_json: bool, db_path: s
     with _store(db_path) as store:
         set_id = store.commit_close(note=note, corrects=corrects)
         count = store.mark_sets()[-1].marks
-    _emit(as_json, {"mark_set_id": set_id, "marks": count},
-          f"committed close set {set_id} ({count} marks)")
+    _emit(
+        as_json,
+        {"mark_set_id": set_id, "marks": count},
+        f"committed close set {set_id} ({count} marks)",
+    )
 
 
-MARK_TABLE = ("id", "set", "set kind", "marked (UTC)", "kind", "symbol/ccy", "expiry", "strike",
-              "tenor d", "value", "unit")
+MARK_TABLE = (
+    "id",
+    "set",
+    "set kind",
+    "marked (UTC)",
+    "kind",
+    "symbol/ccy",
+    "expiry",
+    "strike",
+    "tenor d",
+    "value",
+    "unit",
+)
 """Columns of the ``mark list`` table."""
 
-_UNITS = {"spot": "price", "vol": "vol, decimal", "rate": "zero rate, cont., decimal",
-          "div_yield": "yield, cont., decimal"}
+_UNITS = {
+    "spot": "price",
+    "vol": "vol, decimal",
+    "rate": "zero rate, cont., decimal",
+    "div_yield": "yield, cont., decimal",
+}
 
 
 @mark.command("list")
 @click.option("--set", "mark_set_id", type=int, help="Exactly this mark set, as recorded.")
-@click.option("--as-of", "as_of", help="Marks in force at this instant (ISO-8601 with Z or offset).")
+@click.option(
+    "--as-of", "as_of", help="Marks in force at this instant (ISO-8601 with Z or offset)."
+)
 @click.option("--sets", "list_sets", is_flag=True, help="List the mark sets instead of marks.")
 @output_options
 @db_option
-def mark_list(mark_set_id: int | None, as_of: str | None, list_sets: bool, as_json: bool,
-              as_csv: bool, db_path: str | None) -> None:
+def mark_list(
+    mark_set_id: int | None,
+    as_of: str | None,
+    list_sets: bool,
+    as_json: bool,
+    as_csv: bool,
+    db_path: str | None,
+) -> None:
     """List the marks in force (latest of each point), one set (--set), or the sets (--sets)."""
     from blotter.store import MARK_COLUMNS, MARK_INFO_COLUMNS, mark_csv_row, timestamp_text
 
@@ -325,31 +487,72 @@ def mark_list(mark_set_id: int | None, as_of: str | None, list_sets: bool, as_js
         else:
             marks = store.marks(mark_set_id=mark_set_id, as_of=when)
     if list_sets:
-        cols = ("id", "kind", "marked_at", "who", "marks", "corrects", "superseded_by", "source",
-                "note")
-        rows = [(s.id, s.kind, timestamp_text(s.marked_at), s.who, s.marks, s.corrects,
-                 s.superseded_by, s.source, s.note) for s in sets]
+        cols = (
+            "id",
+            "kind",
+            "marked_at",
+            "who",
+            "marks",
+            "corrects",
+            "superseded_by",
+            "source",
+            "note",
+        )
+        rows = [
+            (
+                s.id,
+                s.kind,
+                timestamp_text(s.marked_at),
+                s.who,
+                s.marks,
+                s.corrects,
+                s.superseded_by,
+                s.source,
+                s.note,
+            )
+            for s in sets
+        ]
         if as_csv:
             print_csv(cols, rows)
         elif as_json:
-            print_json([dict(zip(cols, r)) for r in rows])
+            print_json([dict(zip(cols, r, strict=False)) for r in rows])
         else:
             print_table(cols, rows, title=f"{len(rows)} mark sets (times UTC)")
         return
     if as_csv:
         print_csv(MARK_COLUMNS + MARK_INFO_COLUMNS, (mark_csv_row(m) for m in marks))
     elif as_json:
-        print_json([dict(zip(MARK_COLUMNS + MARK_INFO_COLUMNS, mark_csv_row(m))) | {
-            "value": m.value, "strike": m.strike} for m in marks])
+        print_json(
+            [
+                dict(zip(MARK_COLUMNS + MARK_INFO_COLUMNS, mark_csv_row(m), strict=False))
+                | {"value": m.value, "strike": m.strike}
+                for m in marks
+            ]
+        )
     else:
-        print_table(MARK_TABLE, [
-            (m.mark_id, m.mark_set_id, m.set_kind, m.marked_at.strftime("%Y-%m-%d %H:%M:%S"),
-             m.kind, m.symbol or m.currency, m.expiry or "",
-             "ATM" if m.kind == "vol" and m.strike is None else ("" if m.strike is None else
-                                                                 f"{m.strike:g}"),
-             m.tenor_days or "", f"{m.value:.6g}", _UNITS[m.kind]) for m in marks],
-            title=f"{len(marks)} marks", right=[True, True, False, False, False, False, False,
-                                                 True, True, True, False])
+        print_table(
+            MARK_TABLE,
+            [
+                (
+                    m.mark_id,
+                    m.mark_set_id,
+                    m.set_kind,
+                    m.marked_at.strftime("%Y-%m-%d %H:%M:%S"),
+                    m.kind,
+                    m.symbol or m.currency,
+                    m.expiry or "",
+                    "ATM"
+                    if m.kind == "vol" and m.strike is None
+                    else ("" if m.strike is None else f"{m.strike:g}"),
+                    m.tenor_days or "",
+                    f"{m.value:.6g}",
+                    _UNITS[m.kind],
+                )
+                for m in marks
+            ],
+            title=f"{len(marks)} marks",
+            right=[True, True, False, False, False, False, False, True, True, True, False],
+        )
 
 
 COMMANDS = [trade, mark]

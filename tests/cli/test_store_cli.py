@@ -1,5 +1,5 @@
-"""``blotter trade ...``, ``blotter mark ...`` and ``blotter demo``: exit codes, --db on the group and
-the command, --read-only, --json and --csv, and the CSV round trip through the commands."""
+"""``blotter trade ...``, ``blotter mark ...`` and ``blotter demo``: exit codes, --db on the group
+and the command, --read-only, --json and --csv, and the CSV round trip through the commands."""
 
 from __future__ import annotations
 
@@ -29,13 +29,47 @@ def _own_data_dir(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
 
 def test_trade_add_cancel_amend_and_list(demo_db: Path) -> None:
     db = str(demo_db)
-    out = run("trade", "add", "DEMOA", "--qty", "-5", "--price", "3.20", "--expiry", "2027-03-19",
-              "--strike", "190", "--call", "--note", "opening", "--db", db, "--json")
+    out = run(
+        "trade",
+        "add",
+        "DEMOA",
+        "--qty",
+        "-5",
+        "--price",
+        "3.20",
+        "--expiry",
+        "2027-03-19",
+        "--strike",
+        "190",
+        "--call",
+        "--note",
+        "opening",
+        "--db",
+        db,
+        "--json",
+    )
     tid = json.loads(out.stdout)["trade_id"]
-    hedge = json.loads(run("--db", db, "trade", "add", "DEMOA", "--qty", "250", "--price",
-                           "181.5", "--book", "hedges", "--json").stdout)["trade_id"]
-    new = json.loads(run("trade", "amend", str(tid), "--qty", "-6", "--reason", "size",
-                         "--db", db, "--json").stdout)["trade_id"]
+    hedge = json.loads(
+        run(
+            "--db",
+            db,
+            "trade",
+            "add",
+            "DEMOA",
+            "--qty",
+            "250",
+            "--price",
+            "181.5",
+            "--book",
+            "hedges",
+            "--json",
+        ).stdout
+    )["trade_id"]
+    new = json.loads(
+        run(
+            "trade", "amend", str(tid), "--qty", "-6", "--reason", "size", "--db", db, "--json"
+        ).stdout
+    )["trade_id"]
     run("trade", "cancel", str(hedge), "--reason", "wrong book", "--db", db)
     listed = json.loads(run("trade", "list", "--all", "--json", "--db", db).stdout)
     by_id = {r["trade_id"]: r for r in listed}
@@ -54,17 +88,31 @@ def test_errors_exit_non_zero_with_a_message_and_change_nothing(demo_db: Path) -
     for args, message in [
         (("trade", "add", "NOPE", "--qty", "1", "--price", "1"), "unknown underlying"),
         (("trade", "add", "DEMOA", "--qty", "0", "--price", "1"), "must not be zero"),
-        (("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--expiry", "2027-03-19"),
-         "needs an expiry, a strike and call or put"),
+        (
+            ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--expiry", "2027-03-19"),
+            "needs an expiry, a strike and call or put",
+        ),
         (("trade", "cancel", "99999", "--reason", "x"), "no trade 99999"),
         (("mark", "spot", "DEMOA", "0"), "positive"),
         (("mark", "close", "--corrects", "2"), "not a close set"),
     ]:
         r = run(*args, "--db", db, code=1)
         assert message in r.stderr and "Traceback" not in r.output
-    run("mark", "vol", "DEMOA", "2027-03-19", "25", "--db", db, code=2)     # ambiguous: 25 or 25%?
-    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--time", "2026-11-20T10:00",
-        "--db", db, code=2)                                                # no time zone
+    run("mark", "vol", "DEMOA", "2027-03-19", "25", "--db", db, code=2)  # ambiguous: 25 or 25%?
+    run(
+        "trade",
+        "add",
+        "DEMOA",
+        "--qty",
+        "1",
+        "--price",
+        "1",
+        "--time",
+        "2026-11-20T10:00",
+        "--db",
+        db,
+        code=2,
+    )  # no time zone
     assert run("trade", "list", "--csv", "--all", "--db", db).stdout == before
     r = run("trade", "list", "--db", str(demo_db.parent / "typo.db"), code=1)
     assert "no book at" in r.stderr and not (demo_db.parent / "typo.db").exists()
@@ -75,10 +123,14 @@ def test_read_only_group_option_refuses_every_write(demo_db: Path, tmp_path: Pat
     db = str(demo_db)
     csv_file = tmp_path / "m.csv"
     csv_file.write_text("kind,symbol,value\nspot,DEMOA,1\n")
-    for args in [("mark", "spot", "DEMOA", "181"), ("mark", "close"),
-                 ("mark", "vol", "DEMOA", "2027-03-19", "0.3"), ("mark", "import", str(csv_file)),
-                 ("trade", "add", "DEMOA", "--qty", "1", "--price", "1"),
-                 ("trade", "cancel", "1", "--reason", "x")]:
+    for args in [
+        ("mark", "spot", "DEMOA", "181"),
+        ("mark", "close"),
+        ("mark", "vol", "DEMOA", "2027-03-19", "0.3"),
+        ("mark", "import", str(csv_file)),
+        ("trade", "add", "DEMOA", "--qty", "1", "--price", "1"),
+        ("trade", "cancel", "1", "--reason", "x"),
+    ]:
         r = run("--read-only", "--db", db, *args, code=1)
         assert "the book is open read-only" in r.stderr
     assert run("--read-only", "--db", db, "mark", "list", "--sets").exit_code == 0
@@ -95,37 +147,65 @@ def test_marks_logged_closed_and_listed(demo_db: Path) -> None:
     marks = json.loads(run("mark", "list", "--json", "--db", db).stdout)
     assert {m["mark_set_id"] for m in marks} == {closed["mark_set_id"]}
     assert len(marks) == closed["marks"]
-    point = [m for m in marks if m["kind"] == "vol" and m["symbol"] == "DEMOA"
-             and m["expiry"] == "2027-03-19" and m["strike"] == 190]
+    point = [
+        m
+        for m in marks
+        if m["kind"] == "vol"
+        and m["symbol"] == "DEMOA"
+        and m["expiry"] == "2027-03-19"
+        and m["strike"] == 190
+    ]
     assert point[0]["value"] == pytest.approx(0.31)
     spot = [m for m in marks if m["kind"] == "spot" and m["symbol"] == "DEMOA"]
     assert spot[0]["value"] == 185.25
     sets = json.loads(run("mark", "list", "--sets", "--json", "--db", db).stdout)
     assert sets[-1]["kind"] == "close" and sets[-1]["note"] == "today"
     first_close = [s["id"] for s in sets if s["kind"] == "close"][0]
-    recalled = json.loads(run("mark", "list", "--set", str(first_close), "--json", "--db", db).stdout)
+    recalled = json.loads(
+        run("mark", "list", "--set", str(first_close), "--json", "--db", db).stdout
+    )
     assert {m["mark_set_id"] for m in recalled} == {first_close}
     assert "vol, decimal" in run("mark", "list", "--db", db).stdout
 
 
-def test_list_csv_imports_back_unchanged_through_the_commands(demo_db: Path, tmp_path: Path,
-                                                             demo_master: Path) -> None:
+def test_list_csv_imports_back_unchanged_through_the_commands(
+    demo_db: Path, tmp_path: Path, demo_master: Path
+) -> None:
     db = str(demo_db)
-    run("trade", "add", "DEMOC", "--qty", "3", "--price", "0.5", "--expiry", "2027-01-15",
-        "--strike", "25", "--put", "--note", "=SUM(A1:A9)", "--db", db)
+    run(
+        "trade",
+        "add",
+        "DEMOC",
+        "--qty",
+        "3",
+        "--price",
+        "0.5",
+        "--expiry",
+        "2027-01-15",
+        "--strike",
+        "25",
+        "--put",
+        "--note",
+        "=SUM(A1:A9)",
+        "--db",
+        db,
+    )
     exported = run("trade", "list", "--csv", "--db", db).stdout
-    assert ",'=SUM(A1:A9)," in exported                       # neutralised for spreadsheets
+    assert ",'=SUM(A1:A9)," in exported  # neutralised for spreadsheets
     path = tmp_path / "trades.csv"
     path.write_text(exported)
     other = tmp_path / "other.db"
-    other.write_bytes(demo_master.read_bytes())              # the same underlyings
+    other.write_bytes(demo_master.read_bytes())  # the same underlyings
     out = run("trade", "import", str(path), "--db", str(other), "--json").stdout
     mine = list(csv.reader(io.StringIO(exported)))
     assert json.loads(out)["rows"] == len(mine) - 1
     header = mine[0]
     width, source = header.index("note") + 1, header.index("source")
-    theirs = [r for r in csv.reader(io.StringIO(
-        run("trade", "list", "--csv", "--db", str(other)).stdout)) if r[source] == "file:trades.csv"]
+    theirs = [
+        r
+        for r in csv.reader(io.StringIO(run("trade", "list", "--csv", "--db", str(other)).stdout))
+        if r[source] == "file:trades.csv"
+    ]
     assert [r[:width] for r in theirs] == [r[:width] for r in mine[1:]]
     again = run("trade", "import", str(path), "--db", str(other), code=1)
     assert "already imported" in again.stderr
@@ -141,9 +221,11 @@ def test_list_csv_imports_back_unchanged_through_the_commands(demo_db: Path, tmp
 
 def test_bad_import_names_line_and_column_and_exits_1(demo_db: Path, tmp_path: Path) -> None:
     path = tmp_path / "bad.csv"
-    path.write_text("book,symbol,type,expiry,strike,quantity,price,trade_time\n"
-                    "main,DEMOA,C,2027-03-19,190,1,2.5,2026-11-20T15:00:00Z\n"
-                    "main,DEMOA,C,2027-03-19,190,1,-2.5,2026-11-20T15:00:00Z\n")
+    path.write_text(
+        "book,symbol,type,expiry,strike,quantity,price,trade_time\n"
+        "main,DEMOA,C,2027-03-19,190,1,2.5,2026-11-20T15:00:00Z\n"
+        "main,DEMOA,C,2027-03-19,190,1,-2.5,2026-11-20T15:00:00Z\n"
+    )
     r = run("trade", "import", str(path), "--db", str(demo_db), code=1)
     assert "bad.csv: nothing imported; 1 problem:" in r.stderr
     assert "line 3, column 'price'" in r.stderr

@@ -17,15 +17,28 @@ HERE = Path(__file__).resolve()
 
 def spawn(*args: str, **kw: object) -> subprocess.Popen[str]:
     """Start ``store_children.py`` with ``args`` in a new Python process (text pipes)."""
-    return subprocess.Popen([sys.executable, str(HERE), *args], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, **kw)  # type: ignore[call-overload]
+    return subprocess.Popen(
+        [sys.executable, str(HERE), *args],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        **kw,
+    )  # type: ignore[call-overload]
 
 
 def add_underlyings(store: object) -> None:
     """Two invented underlyings for tests on an empty book."""
     store.add_underlying("TSTA", "stock", "USD", 100, description="test stock (invented)")  # type: ignore[attr-defined]
-    store.add_underlying("TSTX", "index", "USD", 100, american=False, cash_settled=True,  # type: ignore[attr-defined]
-                         is_reference=True, description="test index (invented)")
+    store.add_underlying(
+        "TSTX",
+        "index",
+        "USD",
+        100,
+        american=False,
+        cash_settled=True,  # type: ignore[attr-defined]
+        is_reference=True,
+        description="test index (invented)",
+    )
 
 
 def trade_csv(path: Path, n: int, bad_line: int | None = None, symbol: str = "TSTA") -> Path:
@@ -33,8 +46,10 @@ def trade_csv(path: Path, n: int, bad_line: int | None = None, symbol: str = "TS
     lines = ["book,symbol,type,expiry,strike,quantity,price,trade_time"]
     for i in range(n):
         price = "-1.5" if bad_line is not None and i + 2 == bad_line else f"{1 + (i % 50) / 10:.2f}"
-        lines.append(f"imp,{symbol},{'C' if i % 2 else 'P'},2030-06-21,{100 + i % 40},"
-                     f"{1 + i % 9},{price},2026-01-05T15:{i % 60:02d}:00Z")
+        lines.append(
+            f"imp,{symbol},{'C' if i % 2 else 'P'},2030-06-21,{100 + i % 40},"
+            f"{1 + i % 9},{price},2026-01-05T15:{i % 60:02d}:00Z"
+        )
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return path
 
@@ -44,7 +59,7 @@ def _mark_logger(db: str, writer: str, n: str, begin: str) -> None:
     from blotter.store import Store, StoreError, open_store
 
     if begin != "immediate":
-        Store._BEGIN = "BEGIN"       # the control: a plain deferred transaction
+        Store._BEGIN = "BEGIN"  # the control: a plain deferred transaction
     store = open_store(db)
     errors = 0
     for seq in range(int(n)):
@@ -145,9 +160,15 @@ def _migrate_paused(db: str) -> None:
 
 def main(argv: list[str]) -> None:
     sys.path.insert(0, str(HERE.parents[2]))
-    commands = {"mark_logger": _mark_logger, "importer": _importer, "close_writer": _close_writer,
-                "hold_lock": _hold_lock, "fsize_import": _fsize_import, "spot_once": _spot_once,
-                "migrate_paused": _migrate_paused}
+    commands = {
+        "mark_logger": _mark_logger,
+        "importer": _importer,
+        "close_writer": _close_writer,
+        "hold_lock": _hold_lock,
+        "fsize_import": _fsize_import,
+        "spot_once": _spot_once,
+        "migrate_paused": _migrate_paused,
+    }
     commands[argv[0]](*argv[1:])
 
 

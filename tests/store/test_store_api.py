@@ -4,7 +4,7 @@ closes, expiry cut-offs, and that no call leaves a transaction open."""
 from __future__ import annotations
 
 import threading
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -13,7 +13,7 @@ from store_children import add_underlyings
 
 from blotter.store import ReadOnlyError, Store, StoreError, open_store
 
-UTC = timezone.utc
+UTC = UTC
 
 
 @pytest.fixture
@@ -32,14 +32,14 @@ def test_trades_net_into_positions_and_cancels_and_amends_stay_on_record(store: 
     store.cancel_trade(x, "wrong underlying")
     new_b = store.amend_trade(b, quantity=-5, reason="quantity was 5")
     book = store.load_book()
-    got = dict(zip(book.labels, book.quantities))
+    got = dict(zip(book.labels, book.quantities, strict=False))
     assert got == {"TSTA": -500.0, "TSTA 2030-06-21 100 C": 5.0}
     assert store.load_book("hedge").labels == ("TSTA",)
     states = {t.trade_id: t.state for t in store.trades()}
     assert states == {a: "live", b: "amended", h: "live", x: "cancelled", new_b: "live"}
     rec = {t.trade_id: t for t in store.trades()}
     assert rec[new_b].replaces == b and rec[b].replaced_by == new_b
-    assert rec[new_b].trade_time == rec[b].trade_time           # an amend keeps the deal time
+    assert rec[new_b].trade_time == rec[b].trade_time  # an amend keeps the deal time
     assert rec[x].cancel_reason == "wrong underlying" and rec[x].cancelled_by == store.who
     with pytest.raises(StoreError, match="already cancelled"):
         store.cancel_trade(x, "again")
@@ -56,7 +56,7 @@ def test_book_rows_carry_contract_terms(store: Store) -> None:
     assert not book.is_call[i] and book.is_option[i] and not book.american[i]
     assert book.cash_settled[i] and book.multipliers[i] == 100.0 and book.strikes[i] == 4000.0
     j = book.labels.index("TSTA 2030-01-18 95 P")
-    assert book.multipliers[j] == 150.0 and book.american[j]        # an adjusted contract
+    assert book.multipliers[j] == 150.0 and book.american[j]  # an adjusted contract
     assert book.underlyings.symbols[book.underlying_idx[j]] == "TSTA"
 
 
@@ -66,7 +66,7 @@ def test_expiry_is_the_cutoff_instant_in_utc(store: Store) -> None:
     store.add_trade("main", "TSTA", 1, 1.0, "2030-01-18", 100, True)
     store.add_trade("main", "TSTA", 1, 1.0, "2030-06-21", 100, True)
     book = store.load_book()
-    got = {lab: str(e) for lab, e in zip(book.labels, book.expiries)}
+    got = {lab: str(e) for lab, e in zip(book.labels, book.expiries, strict=False)}
     assert got["TSTA 2030-01-18 100 C"] == "2030-01-18T21:00:00"
     assert got["TSTA 2030-06-21 100 C"] == "2030-06-21T20:00:00"
     assert book.expiries.dtype == np.dtype("datetime64[s]")
@@ -78,11 +78,12 @@ def test_book_as_of_counts_trades_and_cancels_by_when_they_were_booked(store: St
     t1 = datetime.now(UTC)
     new_a = store.amend_trade(a, quantity=12, reason="size")
     t2 = datetime.now(UTC)
-    store.add_trade("main", "TSTA", 3, 2.0, "2030-06-21", 100, True,
-                    trade_time=t0 - timedelta(days=1))  # dealt yesterday, booked now
+    store.add_trade(
+        "main", "TSTA", 3, 2.0, "2030-06-21", 100, True, trade_time=t0 - timedelta(days=1)
+    )  # dealt yesterday, booked now
     assert len(store.load_book(as_of=t0)) == 0
     assert list(store.load_book(as_of=t1).quantities) == [10.0]
-    assert list(store.load_book(as_of=t2).quantities) == [12.0]    # never 22: no double count
+    assert list(store.load_book(as_of=t2).quantities) == [12.0]  # never 22: no double count
     assert list(store.load_book().quantities) == [15.0]
     rows, prices = store.new_trades(t1, None)
     assert sorted(rows.quantities) == [3.0, 12.0] and sorted(prices) == [2.0, 2.5]
@@ -105,18 +106,35 @@ def test_bad_trades_are_refused_with_a_clear_message(store: Store) -> None:
         (dict(trade_time=datetime.now(UTC) + timedelta(hours=1)), "in the future"),
         (dict(expiry="2020-01-17", trade_time="2021-01-04T15:00:00Z"), "expired"),
     ]
-    base = dict(book="main", symbol="TSTA", quantity=1, price=1.0, expiry="2030-06-21",
-                strike=100.0, is_call=True)
+    base = dict(
+        book="main",
+        symbol="TSTA",
+        quantity=1,
+        price=1.0,
+        expiry="2030-06-21",
+        strike=100.0,
+        is_call=True,
+    )
     for change, message in cases:
         kw = base | change
         with pytest.raises(StoreError, match=message):
-            store.add_trade(kw.pop("book"), kw.pop("symbol"), kw.pop("quantity"), kw.pop("price"),
-                            kw.pop("expiry"), kw.pop("strike"), kw.pop("is_call"), **kw)
+            store.add_trade(
+                kw.pop("book"),
+                kw.pop("symbol"),
+                kw.pop("quantity"),
+                kw.pop("price"),
+                kw.pop("expiry"),
+                kw.pop("strike"),
+                kw.pop("is_call"),
+                **kw,
+            )
         assert not store.in_transaction()
     assert store.trades() == []
 
 
-def test_marks_in_force_are_the_latest_of_each_point_and_closes_recall_exactly(store: Store) -> None:
+def test_marks_in_force_are_the_latest_of_each_point_and_closes_recall_exactly(
+    store: Store,
+) -> None:
     store.log_spot("TSTA", 100.0)
     store.log_vol("TSTA", "2030-06-21", 0.25)
     store.log_vol("TSTA", "2030-06-21", 0.30, strike=80)
@@ -130,7 +148,7 @@ def test_marks_in_force_are_the_latest_of_each_point_and_closes_recall_exactly(s
     assert live.spots == {"TSTA": 103.0} and live.mark_set_id is None
     surf = live.surfaces["TSTA"]
     assert list(surf.expiries.astype(str)) == ["2030-06-21", "2030-06-21"]
-    assert np.isnan(surf.strikes[0]) and surf.vols[0] == 0.24          # ATM point first
+    assert np.isnan(surf.strikes[0]) and surf.vols[0] == 0.24  # ATM point first
     assert surf.strikes[1] == 80 and surf.vols[1] == 0.30
     assert list(live.curves["USD"].tenor_days) == [30, 365]
     assert live.div_yields == {"TSTA": 0.01}
@@ -146,11 +164,11 @@ def test_correction_keeps_history_and_as_of_rebuilds_past_marks(store: Store) ->
     store.log_spot("TSTA", 100.0)
     close1 = store.commit_close(note="day 1")
     when_close1 = store.mark_sets("close")[0].marked_at
-    store.log_spot("TSTA", 101.0)                 # the close was wrong: correct it
+    store.log_spot("TSTA", 101.0)  # the close was wrong: correct it
     fixed = store.commit_close(note="day 1, corrected", corrects=close1)
     sets = {s.id: s for s in store.mark_sets()}
     assert sets[close1].superseded_by == fixed and sets[fixed].corrects == close1
-    assert store.load_market(close1).spots == {"TSTA": 100.0}     # the original is kept exactly
+    assert store.load_market(close1).spots == {"TSTA": 100.0}  # the original is kept exactly
     assert store.load_market(as_of=when_close1).spots == {"TSTA": 100.0}
     assert store.load_market().spots == {"TSTA": 101.0}
     with pytest.raises(StoreError, match="already corrected"):
@@ -189,7 +207,7 @@ def test_every_public_write_leaves_no_transaction_open(store: Store, tmp_path: P
         lambda: store.add_trade("main", "TSTA", 2, 1.0),
         lambda: store.add_trade("main", "TSTA", 0, 1.0),
         lambda: store.cancel_trade(tid, "x"),
-        lambda: store.cancel_trade(tid, "twice"),           # refused inside the transaction
+        lambda: store.cancel_trade(tid, "twice"),  # refused inside the transaction
         lambda: store.amend_trade(tid, reason="cancelled already"),
         lambda: store.find_or_create_contract("TSTA", "2030-06-21", 90, False),
         lambda: store.log_spot("TSTA", 99.0),
@@ -200,7 +218,7 @@ def test_every_public_write_leaves_no_transaction_open(store: Store, tmp_path: P
         lambda: store.commit_close(corrects=12345),
         lambda: store.import_marks_csv(bad_csv),
         lambda: store.import_marks_csv(good_csv),
-        lambda: store.import_marks_csv(good_csv),           # refused: already imported
+        lambda: store.import_marks_csv(good_csv),  # refused: already imported
         lambda: store.add_underlying("TSTA", "stock", "USD", 100),
         lambda: store.add_note("a note"),
     ]
@@ -232,7 +250,7 @@ def test_busy_database_fails_clearly_and_keeps_nothing(store: Store, tmp_book: P
         assert not quick.in_transaction()
         holder.execute("ROLLBACK")
         assert quick.load_market().version == before
-        quick.log_spot("TSTA", 50.0)                       # the same mark, retried, lands
+        quick.log_spot("TSTA", 50.0)  # the same mark, retried, lands
         assert quick.load_market().spots == {"TSTA": 50.0}
     finally:
         holder.close()
@@ -261,12 +279,19 @@ def test_read_only_store_refuses_every_write_method(tmp_book: Path) -> None:
         s.log_spot("TSTA", 100.0)
         tid = s.add_trade("main", "TSTA", 1, 1.0)
     ro = open_store(tmp_book, read_only=True)
-    for call in [lambda: ro.add_trade("main", "TSTA", 1, 1.0), lambda: ro.cancel_trade(tid, "x"),
-                 lambda: ro.amend_trade(tid, reason="x"), lambda: ro.log_spot("TSTA", 1.0),
-                 lambda: ro.log_vol("TSTA", "2030-06-21", 0.2), lambda: ro.log_rate("USD", 1, 0.01),
-                 lambda: ro.log_div_yield("TSTA", 0.0), lambda: ro.commit_close(),
-                 lambda: ro.find_or_create_contract("TSTA", None, None, None),
-                 lambda: ro.add_note("x"), lambda: ro.add_underlying("Q", "stock", "USD", 1)]:
+    for call in [
+        lambda: ro.add_trade("main", "TSTA", 1, 1.0),
+        lambda: ro.cancel_trade(tid, "x"),
+        lambda: ro.amend_trade(tid, reason="x"),
+        lambda: ro.log_spot("TSTA", 1.0),
+        lambda: ro.log_vol("TSTA", "2030-06-21", 0.2),
+        lambda: ro.log_rate("USD", 1, 0.01),
+        lambda: ro.log_div_yield("TSTA", 0.0),
+        lambda: ro.commit_close(),
+        lambda: ro.find_or_create_contract("TSTA", None, None, None),
+        lambda: ro.add_note("x"),
+        lambda: ro.add_underlying("Q", "stock", "USD", 1),
+    ]:
         with pytest.raises(ReadOnlyError, match="the book is open read-only"):
             call()
     assert len(ro.load_book()) == 1 and ro.load_market().spots == {"TSTA": 100.0}

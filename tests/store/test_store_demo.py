@@ -17,13 +17,17 @@ from blotter.store import StoreError, open_store, shipped_demo_path
 def _contents(path: Path) -> list[object]:
     """Everything that matters in a book: pragmas, schema and every row of every table."""
     conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
-    out: list[object] = [conn.execute(f"PRAGMA {p}").fetchone()[0]
-                         for p in ("user_version", "application_id", "journal_mode")]
-    tables = [r[0] for r in conn.execute(
-        "SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+    out: list[object] = [
+        conn.execute(f"PRAGMA {p}").fetchone()[0]
+        for p in ("user_version", "application_id", "journal_mode")
+    ]
+    tables = [
+        r[0]
+        for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")
+    ]
     out.append(sorted(conn.execute("SELECT type, name, sql FROM sqlite_master")))
     for t in tables:
-        out.append((t, conn.execute(f"SELECT * FROM \"{t}\" ORDER BY rowid").fetchall()))
+        out.append((t, conn.execute(f'SELECT * FROM "{t}" ORDER BY rowid').fetchall()))
     conn.close()
     return out
 
@@ -32,8 +36,9 @@ def test_shipped_demo_db_is_what_build_demo_writes(tmp_path: Path) -> None:
     shipped = shipped_demo_path()
     assert shipped.stat().st_size > 0
     rebuilt = build_demo(tmp_path / "demo.db")
-    assert _contents(rebuilt) == _contents(shipped), \
+    assert _contents(rebuilt) == _contents(shipped), (
         "demo.db is stale: regenerate it with `blotter demo --out demo.db --force`"
+    )
 
 
 def test_same_seed_same_book_other_seed_other_book(tmp_path: Path) -> None:
@@ -67,7 +72,7 @@ def test_the_demo_book_holds_what_the_issue_asks_for(demo_db: Path) -> None:
     assert set(hedges) >= {"DEMOA", "DEMOB", "DEMOC", "DEMOFU"}
     as_of = np.datetime64(DEMO_AS_OF)
     days = (book.expiries[book.is_option].astype("datetime64[D]") - as_of).astype(int)
-    assert days.min() >= 7 and days.max() >= 700 and days.max() <= 740    # a week to two years
+    assert days.min() >= 7 and days.max() >= 700 and days.max() <= 740  # a week to two years
     assert len(np.unique(book.expiries[book.is_option])) >= 8
     assert len(closes) == 2 and market.mark_set_id == closes[-1].id and market.mark_kind == "close"
     assert [c.marked_at for c in closes] == list(demo_close_times())
@@ -77,7 +82,7 @@ def test_the_demo_book_holds_what_the_issue_asks_for(demo_db: Path) -> None:
             ks, vs = surf.strikes[rows], surf.vols[rows]
             assert rows.sum() >= 5, (sym, e)
             low, atm = vs[np.argmin(ks)], vs[np.argmin(np.abs(ks - market.spots[sym]))]
-            assert low > atm, f"{sym} {e}: no downside skew"                # a smile per expiry
+            assert low > atm, f"{sym} {e}: no downside skew"  # a smile per expiry
     assert set(market.spots) == set(book.underlyings.symbols)
     assert market.curves["USD"].tenor_days.size >= 6
     states = {t.state for t in trades}
@@ -92,18 +97,22 @@ def test_the_trade_history_builds_the_book(demo_db: Path) -> None:
         net: dict[int, int] = {}
         for t in s.trades(live_only=True):
             net[t.contract_id] = net.get(t.contract_id, 0) + t.quantity
-        assert dict(zip(book.contract_ids.tolist(), book.quantities.tolist())) == \
-            {c: float(q) for c, q in net.items() if q}
+        assert dict(zip(book.contract_ids.tolist(), book.quantities.tolist(), strict=False)) == {
+            c: float(q) for c, q in net.items() if q
+        }
         first = s.load_book(as_of=close1)
         new, prices = s.new_trades(close1, close2)
         assert 0 < len(new) < 30 and (prices > 0).all()
-        total = dict(zip(first.contract_ids.tolist(), first.quantities.tolist()))
-        for c, q in zip(new.contract_ids.tolist(), new.quantities.tolist()):
+        total = dict(zip(first.contract_ids.tolist(), first.quantities.tolist(), strict=False))
+        for c, q in zip(new.contract_ids.tolist(), new.quantities.tolist(), strict=False):
             total[c] = total.get(c, 0.0) + q
-        assert {c: q for c, q in total.items() if q} == \
-            dict(zip(book.contract_ids.tolist(), book.quantities.tolist()))
-        assert s.load_market(as_of=close1 + timedelta(minutes=1)).mark_set_id == \
-            s.mark_sets("close")[0].id
+        assert {c: q for c, q in total.items() if q} == dict(
+            zip(book.contract_ids.tolist(), book.quantities.tolist(), strict=False)
+        )
+        assert (
+            s.load_market(as_of=close1 + timedelta(minutes=1)).mark_set_id
+            == s.mark_sets("close")[0].id
+        )
 
 
 def test_a_large_synthetic_book_has_exactly_the_positions_asked(tmp_path: Path) -> None:
@@ -112,7 +121,7 @@ def test_a_large_synthetic_book_has_exactly_the_positions_asked(tmp_path: Path) 
         book = s.load_book()
         assert int(book.is_option.sum()) == 3000
         assert len(set(book.labels)) == len(book)
-        assert len(np.unique(book.expiries[book.is_option])) > 50           # weekly expiries
+        assert len(np.unique(book.expiries[book.is_option])) > 50  # weekly expiries
         assert s.integrity_ok()
 
 

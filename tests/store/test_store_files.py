@@ -40,7 +40,7 @@ def test_a_read_only_viewer_cannot_write_or_create_a_file(demo_db: Path, sql: st
     version = sqlite3.connect(demo_db).execute("PRAGMA user_version").fetchone()[0]
     ro = open_store(demo_db, read_only=True)
     ro.load_book()
-    before = _files(demo_db.parent)                # the book and its -wal/-shm side files
+    before = _files(demo_db.parent)  # the book and its -wal/-shm side files
     with pytest.raises(sqlite3.Error):
         ro.connection.execute(sql.format(dir=demo_db.parent))
     assert not ro.in_transaction()
@@ -60,7 +60,7 @@ def test_mode_ro_alone_lets_attach_create_a_file(demo_db: Path) -> None:
 
 def test_viewer_reads_a_0444_book_whose_side_files_exist(demo_db: Path) -> None:
     writer = open_store(demo_db)
-    writer.log_spot("DEMOA", 181.0)              # keeps -wal/-shm while the writer is open
+    writer.log_spot("DEMOA", 181.0)  # keeps -wal/-shm while the writer is open
     demo_db.chmod(0o444)
     try:
         ro = open_store(demo_db, read_only=True)
@@ -90,8 +90,9 @@ def test_a_mistyped_path_is_refused_and_never_created(tmp_path: Path) -> None:
         open_store(tmp_path)
 
 
-def test_foreign_empty_and_newer_files_are_refused_with_a_message(tmp_path: Path,
-                                                                  demo_db: Path) -> None:
+def test_foreign_empty_and_newer_files_are_refused_with_a_message(
+    tmp_path: Path, demo_db: Path
+) -> None:
     text = tmp_path / "notes.db"
     text.write_text("these are not the books\n" * 100)
     empty = tmp_path / "empty.db"
@@ -106,8 +107,12 @@ def test_foreign_empty_and_newer_files_are_refused_with_a_message(tmp_path: Path
     conn = sqlite3.connect(newer)
     conn.execute(f"PRAGMA user_version = {st.SCHEMA_VERSION + 1}")
     conn.close()
-    for path, message in [(text, "not a blotter book"), (empty, "it is empty"),
-                          (other, "not a blotter book"), (newer, "newer blotter")]:
+    for path, message in [
+        (text, "not a blotter book"),
+        (empty, "it is empty"),
+        (other, "not a blotter book"),
+        (newer, "newer blotter"),
+    ]:
         for read_only in (False, True):
             with pytest.raises(StoreError, match=message):
                 open_store(path, read_only=read_only)
@@ -121,7 +126,7 @@ def test_damaged_files_are_refused_never_a_traceback(demo_db: Path, tmp_path: Pa
     header = tmp_path / "header.db"
     shutil.copyfile(demo_db, header)
     with open(header, "r+b") as f:
-        f.write(b"\x00" * 16)                      # the SQLite magic string
+        f.write(b"\x00" * 16)  # the SQLite magic string
     with pytest.raises(StoreError, match="not a"):
         open_store(header)
     btree = tmp_path / "btree.db"
@@ -129,7 +134,7 @@ def test_damaged_files_are_refused_never_a_traceback(demo_db: Path, tmp_path: Pa
     with open(btree, "r+b") as f:
         for p in range(2, size // page):
             f.seek((p - 1) * page)
-            f.write(b"\xff\xff\xff\xff\xff\xff\xff\xff")   # each page's b-tree header
+            f.write(b"\xff\xff\xff\xff\xff\xff\xff\xff")  # each page's b-tree header
     with pytest.raises(StoreError):
         s = open_store(btree)
         s.load_book()
@@ -154,7 +159,7 @@ def test_damaged_files_are_refused_never_a_traceback(demo_db: Path, tmp_path: Pa
 
 
 def test_new_book_and_its_side_files_are_not_open_to_other_users(tmp_path: Path) -> None:
-    old = os.umask(0o000)                          # the most permissive umask there is
+    old = os.umask(0o000)  # the most permissive umask there is
     try:
         s = create_store(tmp_path / "new.db")
         s.add_underlying("TSTA", "stock", "USD", 100)
@@ -170,15 +175,16 @@ def test_new_book_and_its_side_files_are_not_open_to_other_users(tmp_path: Path)
         create_store(tmp_path / "new.db")
 
 
-def test_demo_copy_goes_to_the_users_data_dir_once(tmp_path: Path,
-                                                   monkeypatch: pytest.MonkeyPatch) -> None:
+def test_demo_copy_goes_to_the_users_data_dir_once(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "data"))
     first = user_demo_copy()
     assert first == tmp_path / "data" / "blotter" / "demo.db"
     assert stat.S_IMODE(first.stat().st_mode) & 0o007 == 0
     with open_store(first) as s:
         s.log_spot("DEMOA", 1.0)
-    assert user_demo_copy() == first                       # not copied over again
+    assert user_demo_copy() == first  # not copied over again
     with open_store(first, read_only=True) as s:
         assert s.load_market().spots["DEMOA"] == 1.0
     shipped = st.shipped_demo_path()
@@ -209,9 +215,13 @@ def test_backup_while_a_writer_commits_is_consistent(tmp_book: Path, tmp_path: P
             again = src.load_market(as_of=market.marks_as_of)
             assert market.spots == again.spots and market.version == again.version
             for info in b.mark_sets("close"):
-                assert b.load_market(info.id).surfaces["TSTA"].vols.tolist() == \
-                    src.load_market(info.id).surfaces["TSTA"].vols.tolist()
+                assert (
+                    b.load_market(info.id).surfaces["TSTA"].vols.tolist()
+                    == src.load_market(info.id).surfaces["TSTA"].vols.tolist()
+                )
             book = b.load_book()
             same = src.load_book(as_of=max(t.booked_at for t in b.trades()))
-            assert dict(zip(book.labels, book.quantities)) == dict(zip(same.labels, same.quantities))
+            assert dict(zip(book.labels, book.quantities, strict=False)) == dict(
+                zip(same.labels, same.quantities, strict=False)
+            )
     src.close()

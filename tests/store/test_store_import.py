@@ -14,9 +14,19 @@ from hypothesis import strategies as hs
 from store_children import add_underlyings, trade_csv
 
 from blotter.commands.common import neutralise
-from blotter.store import (MARK_COLUMNS, MARK_INFO_COLUMNS, TRADE_COLUMNS, TRADE_INFO_COLUMNS,
-                           CsvImportError, Store, StoreError, create_store, mark_csv_row,
-                           open_store, trade_csv_row)
+from blotter.store import (
+    MARK_COLUMNS,
+    MARK_INFO_COLUMNS,
+    TRADE_COLUMNS,
+    TRADE_INFO_COLUMNS,
+    CsvImportError,
+    Store,
+    StoreError,
+    create_store,
+    mark_csv_row,
+    open_store,
+    trade_csv_row,
+)
 
 
 @pytest.fixture
@@ -29,8 +39,10 @@ def store(tmp_book: Path) -> Store:
 
 def _count(s: Store) -> tuple[int, int, int]:
     c = s.connection
-    return tuple(c.execute(f"SELECT count(*) FROM {t}").fetchone()[0]
-                 for t in ("trade", "mark", "import_file"))  # type: ignore[return-value]
+    return tuple(
+        c.execute(f"SELECT count(*) FROM {t}").fetchone()[0]
+        for t in ("trade", "mark", "import_file")
+    )  # type: ignore[return-value]
 
 
 def test_a_good_file_lands_whole(store: Store, tmp_path: Path) -> None:
@@ -53,21 +65,27 @@ def _single_problem(store: Store, path: Path) -> CsvImportError:
 def test_negative_price_on_line_181_of_250_imports_nothing(store: Store, tmp_path: Path) -> None:
     err = _single_problem(store, trade_csv(tmp_path / "t.csv", 250, bad_line=181))
     assert err.total == 1
-    assert str(err.problems[0]) == "line 181, column 'price': price must not be negative, got '-1.5'"
+    assert (
+        str(err.problems[0]) == "line 181, column 'price': price must not be negative, got '-1.5'"
+    )
     assert str(err).startswith("t.csv: nothing imported; 1 problem:")
 
 
-@pytest.mark.parametrize(("edit", "line", "column", "message"), [
-    (lambda r: r.replace("TSTA", "NOPE"), 3, "symbol", "unknown underlying 'NOPE'"),
-    (lambda r: r.replace("2030-06-21", "2030-13-01"), 3, "expiry", "not an ISO date"),
-    (lambda r: r.replace(",2,", ",two,"), 3, "quantity", "'two' is not a number"),
-    (lambda r: r.replace(",2,", ",0,"), 3, "quantity", "must not be zero"),
-    (lambda r: r.replace(",C,", ",X,"), 3, "type", "is not C (call), P (put) or U"),
-    (lambda r: r.replace("Z", ""), 3, "trade_time", "no time zone"),
-    (lambda r: r.replace("2030-06-21", "2025-06-20"), 3, "trade_time", "after the expiry"),
-])
-def test_each_bad_cell_is_named(store: Store, tmp_path: Path, edit, line: int, column: str,
-                                message: str) -> None:
+@pytest.mark.parametrize(
+    ("edit", "line", "column", "message"),
+    [
+        (lambda r: r.replace("TSTA", "NOPE"), 3, "symbol", "unknown underlying 'NOPE'"),
+        (lambda r: r.replace("2030-06-21", "2030-13-01"), 3, "expiry", "not an ISO date"),
+        (lambda r: r.replace(",2,", ",two,"), 3, "quantity", "'two' is not a number"),
+        (lambda r: r.replace(",2,", ",0,"), 3, "quantity", "must not be zero"),
+        (lambda r: r.replace(",C,", ",X,"), 3, "type", "is not C (call), P (put) or U"),
+        (lambda r: r.replace("Z", ""), 3, "trade_time", "no time zone"),
+        (lambda r: r.replace("2030-06-21", "2025-06-20"), 3, "trade_time", "after the expiry"),
+    ],
+)
+def test_each_bad_cell_is_named(
+    store: Store, tmp_path: Path, edit, line: int, column: str, message: str
+) -> None:
     path = trade_csv(tmp_path / "t.csv", 5)
     lines = path.read_text().splitlines()
     lines[line - 1] = edit(lines[line - 1])
@@ -104,8 +122,10 @@ def test_a_row_with_a_missing_cell_is_named(store: Store, tmp_path: Path) -> Non
 
 def test_duplicate_mark_points_are_refused(store: Store, tmp_path: Path) -> None:
     path = tmp_path / "m.csv"
-    path.write_text("kind,symbol,expiry,strike,value\nvol,TSTA,2030-06-21,100,0.2\n"
-                    "spot,TSTA,,,100\nvol,TSTA,2030-06-21,100.0,0.21\n")
+    path.write_text(
+        "kind,symbol,expiry,strike,value\nvol,TSTA,2030-06-21,100,0.2\n"
+        "spot,TSTA,,,100\nvol,TSTA,2030-06-21,100.0,0.21\n"
+    )
     with pytest.raises(CsvImportError, match="line 4: the same point as line 2"):
         store.import_marks_csv(path)
     assert _count(store) == (0, 0, 0)
@@ -121,7 +141,7 @@ def test_bom_and_crlf_read_the_same_as_plain_utf8(tmp_path: Path) -> None:
         s = create_store(tmp_path / f"b{i}.db")
         add_underlyings(s)
         s.import_trades_csv(path)
-        results.append([trade_csv_row(t)[:len(TRADE_COLUMNS)] for t in s.trades()])
+        results.append([trade_csv_row(t)[: len(TRADE_COLUMNS)] for t in s.trades()])
         s.close()
     assert results[0] == results[1] and len(results[0]) == 20
 
@@ -163,8 +183,8 @@ def test_trade_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) ->
     for sym, kind, ccy, mult, am, cash in unders:
         dst.add_underlying(sym, kind, ccy, mult, american=bool(am), cash_settled=bool(cash))
     dst.import_trades_csv(out)
-    again = [trade_csv_row(t)[:len(TRADE_COLUMNS)] for t in dst.trades()]
-    assert again == [trade_csv_row(t)[:len(TRADE_COLUMNS)] for t in trades]
+    again = [trade_csv_row(t)[: len(TRADE_COLUMNS)] for t in dst.trades()]
+    assert again == [trade_csv_row(t)[: len(TRADE_COLUMNS)] for t in trades]
     assert len(again) > 150
     dst.close()
 
@@ -178,16 +198,18 @@ def test_mark_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) -> 
         rep = src.import_marks_csv(out)
         after = src.load_market()
         assert rep.rows == len(marks) > 400
-        assert [mark_csv_row(m)[:len(MARK_COLUMNS)] for m in src.marks(rep.first_id)] == \
-            [mark_csv_row(m)[:len(MARK_COLUMNS)] for m in marks]
+        assert [mark_csv_row(m)[: len(MARK_COLUMNS)] for m in src.marks(rep.first_id)] == [
+            mark_csv_row(m)[: len(MARK_COLUMNS)] for m in marks
+        ]
         assert after.spots == before.spots and after.mark_set_id == rep.first_id
         for sym, surf in before.surfaces.items():
             assert after.surfaces[sym].vols.tolist() == surf.vols.tolist()
 
 
 def test_formula_like_text_is_neutralised_on_export_and_restored_on_import(
-        store: Store, tmp_path: Path) -> None:
-    notes = ["=HYPERLINK(\"http://x\")", "+1+1", "@SUM(A1)", "-x", "'=quoted", "'plain", "ok"]
+    store: Store, tmp_path: Path
+) -> None:
+    notes = ['=HYPERLINK("http://x")', "+1+1", "@SUM(A1)", "-x", "'=quoted", "'plain", "ok"]
     for n in notes:
         store.add_trade("main", "TSTA", 1, 1.0, note=n)
     text = _export([trade_csv_row(t) for t in store.trades()], TRADE_COLUMNS + TRADE_INFO_COLUMNS)
@@ -203,7 +225,8 @@ def test_formula_like_text_is_neutralised_on_export_and_restored_on_import(
 
 
 def test_sqlite_utils_without_atomic_keeps_a_partial_batch_ours_keeps_nothing(
-        tmp_book: Path, tmp_path: Path) -> None:
+    tmp_book: Path, tmp_path: Path
+) -> None:
     """The pitfall of RELIABILITY 3 reproduced (control), next to our importer on the same rows."""
     import sqlite_utils
 
@@ -211,8 +234,19 @@ def test_sqlite_utils_without_atomic_keeps_a_partial_batch_ours_keeps_nothing(
         add_underlyings(s)
         s.add_trade("main", "TSTA", 1, 1.0, "2030-06-21", 100, True)
     ts = "2026-01-05T15:00:00.000000Z"
-    rows = [dict(book_id=1, contract_id=1, quantity=1, price=-1.0 if i == 180 else 1.0,
-                 trade_time=ts, booked_at=ts, who="me", source="typed") for i in range(250)]
+    rows = [
+        dict(
+            book_id=1,
+            contract_id=1,
+            quantity=1,
+            price=-1.0 if i == 180 else 1.0,
+            trade_time=ts,
+            booked_at=ts,
+            who="me",
+            source="typed",
+        )
+        for i in range(250)
+    ]
     db = sqlite_utils.Database(sqlite3.connect(tmp_book))
     with pytest.raises(sqlite3.IntegrityError):
         db["trade"].insert_all(rows)
@@ -227,19 +261,31 @@ def test_sqlite_utils_without_atomic_keeps_a_partial_batch_ours_keeps_nothing(
 _cell = hs.text(alphabet=hs.characters(blacklist_categories=("Cs",)), max_size=30)
 
 
-@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(rows=hs.lists(hs.tuples(hs.sampled_from(["spot", "vol", "rate", "div_yield", "x", ""]),
-                               hs.sampled_from(["TSTA", "TSTX", "", "NOPE", "x'); DROP TABLE mark;--"]),
-                               hs.sampled_from(["", "USD", "usd", "EURO"]),
-                               hs.sampled_from(["", "2030-06-21", "2030-02-30", "soon"]),
-                               hs.one_of(hs.just(""), hs.floats(allow_nan=True).map(repr), _cell),
-                               hs.sampled_from(["", "30", "0", "3.5"]),
-                               hs.one_of(hs.floats(allow_nan=True, allow_infinity=True).map(repr),
-                                         _cell, hs.just("0.2"))),
-                     min_size=1, max_size=25),
-       bom=hs.booleans(), crlf=hs.booleans())
-def test_fuzzed_mark_files_import_whole_or_raise_our_error(tmp_path: Path, rows: list[tuple[str, ...]],
-                                                           bom: bool, crlf: bool) -> None:
+@settings(
+    max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(
+    rows=hs.lists(
+        hs.tuples(
+            hs.sampled_from(["spot", "vol", "rate", "div_yield", "x", ""]),
+            hs.sampled_from(["TSTA", "TSTX", "", "NOPE", "x'); DROP TABLE mark;--"]),
+            hs.sampled_from(["", "USD", "usd", "EURO"]),
+            hs.sampled_from(["", "2030-06-21", "2030-02-30", "soon"]),
+            hs.one_of(hs.just(""), hs.floats(allow_nan=True).map(repr), _cell),
+            hs.sampled_from(["", "30", "0", "3.5"]),
+            hs.one_of(
+                hs.floats(allow_nan=True, allow_infinity=True).map(repr), _cell, hs.just("0.2")
+            ),
+        ),
+        min_size=1,
+        max_size=25,
+    ),
+    bom=hs.booleans(),
+    crlf=hs.booleans(),
+)
+def test_fuzzed_mark_files_import_whole_or_raise_our_error(
+    tmp_path: Path, rows: list[tuple[str, ...]], bom: bool, crlf: bool
+) -> None:
     """RELIABILITY 5: random cells, BOM, CRLF, quotes: the whole file lands or StoreError, never
     another exception and never part of the file."""
     db = tmp_path / f"fuzz{abs(hash((tuple(rows), bom, crlf)))}.db"

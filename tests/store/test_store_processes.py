@@ -31,8 +31,9 @@ def book(tmp_book: Path) -> Path:
 
 
 def _run_loggers(book: Path, begin: str) -> tuple[list[str], int, int]:
-    kids = [spawn("mark_logger", str(book), f"w{i}", str(MARKS_EACH), begin)
-            for i in range(WRITERS)]
+    kids = [
+        spawn("mark_logger", str(book), f"w{i}", str(MARKS_EACH), begin) for i in range(WRITERS)
+    ]
     outs = []
     for k in kids:
         out, err = k.communicate(timeout=240)
@@ -66,8 +67,9 @@ def _assert_sound(path: Path) -> None:
     conn.close()
 
 
-def test_kill_9_in_the_middle_of_an_import_leaves_none_of_the_file(book: Path,
-                                                                   tmp_path: Path) -> None:
+def test_kill_9_in_the_middle_of_an_import_leaves_none_of_the_file(
+    book: Path, tmp_path: Path
+) -> None:
     """RELIABILITY 2: SIGKILL at a progress line inside the import's transaction; then re-run."""
     path = trade_csv(tmp_path / "big.csv", 30_000)
     with open_store(book) as s:
@@ -83,14 +85,15 @@ def test_kill_9_in_the_middle_of_an_import_leaves_none_of_the_file(book: Path,
         c = s.connection
         assert c.execute("SELECT count(*) FROM trade").fetchone()[0] == 1
         assert c.execute("SELECT count(*) FROM import_file").fetchone()[0] == 0
-        rep = s.import_trades_csv(path)                 # the same file, once, whole
+        rep = s.import_trades_csv(path)  # the same file, once, whole
         assert rep.rows == 30_000
         assert c.execute("SELECT count(*) FROM trade").fetchone()[0] == 30_001
         assert s.integrity_ok()
 
 
-def test_snapshots_at_random_instants_hold_only_whole_transactions(book: Path,
-                                                                   tmp_path: Path) -> None:
+def test_snapshots_at_random_instants_hold_only_whole_transactions(
+    book: Path, tmp_path: Path
+) -> None:
     """RELIABILITY 3: SIGSTOP the writer at random moments, copy the book and its WAL, go on;
     every copy is sound and every mark set in it holds all its marks."""
     child = spawn("close_writer", str(book), "100000")
@@ -115,18 +118,18 @@ def test_snapshots_at_random_instants_hold_only_whole_transactions(book: Path,
         child.wait(10)
     sets_seen = set()
     for copy in copies:
-        with open_store(copy) as s:                    # read-write: recovers the copied WAL
+        with open_store(copy) as s:  # read-write: recovers the copied WAL
             assert s.integrity_ok(), copy
             c = s.connection
             sets_seen.add(c.execute("SELECT count(*) FROM mark_set").fetchone()[0])
             trades = c.execute("SELECT count(*) FROM trade").fetchone()[0]
             closes = c.execute("SELECT count(*) FROM mark_set WHERE kind = 'close'").fetchone()[0]
-            assert closes - 1 <= trades <= closes            # each round: close, then a trade
-    assert len(sets_seen) > 10                               # the snapshots caught many states
+            assert closes - 1 <= trades <= closes  # each round: close, then a trade
+    assert len(sets_seen) > 10  # the snapshots caught many states
 
 
 def test_a_viewer_sees_another_process_commit_within_a_second(book: Path) -> None:
-    """RELIABILITY 7: poll data_version; no change while idle; never a read transaction left open."""
+    """RELIABILITY 7: poll data_version; no change while idle; no read transaction left open."""
     viewer = open_store(book, read_only=True)
     seen = viewer.data_version()
     market = viewer.load_market()
@@ -165,8 +168,9 @@ def test_the_wal_stays_bounded_while_a_viewer_polls(book: Path) -> None:
     viewer.close()
 
 
-def test_a_writer_held_off_past_the_timeout_fails_cleanly(book: Path,
-                                                         monkeypatch: pytest.MonkeyPatch) -> None:
+def test_a_writer_held_off_past_the_timeout_fails_cleanly(
+    book: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     """RELIABILITY 9 across processes: another process holds BEGIN IMMEDIATE; we get BusyError,
     nothing changes, and the same write succeeds once the lock is released."""
     import blotter.store as st
@@ -187,8 +191,9 @@ def test_a_writer_held_off_past_the_timeout_fails_cleanly(book: Path,
     s.close()
 
 
-def test_a_full_disk_gives_a_clear_error_and_a_later_retry_lands(book: Path,
-                                                                 tmp_path: Path) -> None:
+def test_a_full_disk_gives_a_clear_error_and_a_later_retry_lands(
+    book: Path, tmp_path: Path
+) -> None:
     """RELIABILITY 10: RLIMIT_FSIZE makes the WAL write fail (SQLITE_IOERR or SQLITE_FULL)."""
     rows = ["kind,symbol,expiry,strike,value"]
     rows += [f"vol,TSTA,2030-06-21,{50 + i * 0.01:.2f},0.2" for i in range(20_000)]

@@ -42,57 +42,118 @@ def populated(tmp_book: Path) -> Path:
 
 def test_every_table_is_strict(tmp_book: Path) -> None:
     conn = _raw(tmp_book)
-    tables = conn.execute("SELECT name, strict FROM pragma_table_list WHERE schema = 'main' "
-                          "AND name NOT LIKE 'sqlite_%'").fetchall()
+    tables = conn.execute(
+        "SELECT name, strict FROM pragma_table_list WHERE schema = 'main' "
+        "AND name NOT LIKE 'sqlite_%'"
+    ).fetchall()
     assert len(tables) >= 9 and all(strict == 1 for _, strict in tables), tables
     with pytest.raises(sqlite3.IntegrityError, match="cannot store TEXT value in REAL column"):
-        conn.execute("INSERT INTO underlying (symbol, kind, currency, multiplier, american, "
-                     "cash_settled) VALUES ('Q', 'stock', 'USD', 'ten', 1, 0)")
+        conn.execute(
+            "INSERT INTO underlying (symbol, kind, currency, multiplier, american, "
+            "cash_settled) VALUES ('Q', 'stock', 'USD', 'ten', 1, 0)"
+        )
 
 
 BAD_ROWS = [
-    ("strike <= 0", "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, "
-     "american, multiplier, cash_settled) VALUES (1, 'C', 0, '2030-06-21', '16:00', 1, 100, 0)"),
-    ("unknown option type", "INSERT INTO contract (underlying_id, option_type, strike, expiry, "
-     "cutoff_time, american, multiplier, cash_settled) VALUES (1, 'X', 100, '2030-06-21', '16:00', "
-     "1, 100, 0)"),
-    ("impossible date", "INSERT INTO contract (underlying_id, option_type, strike, expiry, "
-     "cutoff_time, american, multiplier, cash_settled) VALUES (1, 'C', 100, '2030-02-30', '16:00', "
-     "1, 100, 0)"),
-    ("option without expiry", "INSERT INTO contract (underlying_id, option_type, strike, american, "
-     "multiplier, cash_settled) VALUES (1, 'C', 100, 1, 100, 0)"),
-    ("multiplier <= 0", "INSERT INTO contract (underlying_id, option_type, american, multiplier, "
-     "cash_settled) VALUES (1, 'U', 1, 0, 0)"),
-    ("unknown underlying kind", "INSERT INTO underlying (symbol, kind, currency, multiplier, "
-     "american, cash_settled) VALUES ('Q', 'bond', 'USD', 1, 1, 0)"),
-    ("zero quantity", f"INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
-     f"booked_at, who, source) VALUES (1, 1, 0, 1.0, '{TS}', '{TS}', 'me', 'typed')"),
-    ("negative price", f"INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
-     f"booked_at, who, source) VALUES (1, 1, 1, -1.0, '{TS}', '{TS}', 'me', 'typed')"),
-    ("time not UTC ISO", "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
-     f"booked_at, who, source) VALUES (1, 1, 1, 1.0, '2026-01-05 15:00', '{TS}', 'me', 'typed')"),
-    ("dealt after booked", "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
-     f"booked_at, who, source) VALUES (1, 1, 1, 1.0, '2026-01-06T15:00:00.000000Z', '{TS}', 'me', "
-     "'typed')"),
-    ("unknown contract (foreign key)", "INSERT INTO trade (book_id, contract_id, quantity, price, "
-     f"trade_time, booked_at, who, source) VALUES (1, 999, 1, 1.0, '{TS}', '{TS}', 'me', 'typed')"),
-    ("expiry before trade date", "INSERT INTO trade (book_id, contract_id, quantity, price, "
-     "trade_time, booked_at, who, source) VALUES (1, 1, 1, 1.0, '2031-01-06T15:00:00.000000Z', "
-     "'2031-01-06T15:00:00.000000Z', 'me', 'typed')"),
-    ("vol <= 0", f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
-     f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-     "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', 0)"),
-    ("vol > 10", f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
-     f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-     "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', 10.5)"),
-    ("unknown mark kind", f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
-     f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-     "underlying_id, value) VALUES (last_insert_rowid(), 1, 'price', 1, 5)"),
-    ("mark beyond its set's count", "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, "
-     "value) VALUES (1, 2, 'spot', 1, 5)"),
-    ("amend of a live trade", "INSERT INTO trade (book_id, contract_id, quantity, price, "
-     f"trade_time, booked_at, who, source, replaces) VALUES (1, 1, 1, 1.0, '{TS}', '{TS}', 'me', "
-     "'typed', 1)"),
+    (
+        "strike <= 0",
+        "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, "
+        "american, multiplier, cash_settled) VALUES (1, 'C', 0, '2030-06-21', '16:00', 1, 100, 0)",
+    ),
+    (
+        "unknown option type",
+        "INSERT INTO contract (underlying_id, option_type, strike, expiry, "
+        "cutoff_time, american, multiplier, cash_settled) VALUES (1, 'X', 100, '2030-06-21', "
+        "'16:00', "
+        "1, 100, 0)",
+    ),
+    (
+        "impossible date",
+        "INSERT INTO contract (underlying_id, option_type, strike, expiry, "
+        "cutoff_time, american, multiplier, cash_settled) VALUES (1, 'C', 100, '2030-02-30', "
+        "'16:00', "
+        "1, 100, 0)",
+    ),
+    (
+        "option without expiry",
+        "INSERT INTO contract (underlying_id, option_type, strike, american, "
+        "multiplier, cash_settled) VALUES (1, 'C', 100, 1, 100, 0)",
+    ),
+    (
+        "multiplier <= 0",
+        "INSERT INTO contract (underlying_id, option_type, american, multiplier, "
+        "cash_settled) VALUES (1, 'U', 1, 0, 0)",
+    ),
+    (
+        "unknown underlying kind",
+        "INSERT INTO underlying (symbol, kind, currency, multiplier, "
+        "american, cash_settled) VALUES ('Q', 'bond', 'USD', 1, 1, 0)",
+    ),
+    (
+        "zero quantity",
+        f"INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
+        f"booked_at, who, source) VALUES (1, 1, 0, 1.0, '{TS}', '{TS}', 'me', 'typed')",
+    ),
+    (
+        "negative price",
+        f"INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
+        f"booked_at, who, source) VALUES (1, 1, 1, -1.0, '{TS}', '{TS}', 'me', 'typed')",
+    ),
+    (
+        "time not UTC ISO",
+        "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
+        f"booked_at, who, source) VALUES (1, 1, 1, 1.0, '2026-01-05 15:00', '{TS}', 'me', 'typed')",
+    ),
+    (
+        "dealt after booked",
+        "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
+        f"booked_at, who, source) VALUES (1, 1, 1, 1.0, '2026-01-06T15:00:00.000000Z', '{TS}', "
+        f"'me', "
+        "'typed')",
+    ),
+    (
+        "unknown contract (foreign key)",
+        "INSERT INTO trade (book_id, contract_id, quantity, price, "
+        f"trade_time, booked_at, who, source) VALUES (1, 999, 1, 1.0, '{TS}', '{TS}', 'me', "
+        f"'typed')",
+    ),
+    (
+        "expiry before trade date",
+        "INSERT INTO trade (book_id, contract_id, quantity, price, "
+        "trade_time, booked_at, who, source) VALUES (1, 1, 1, 1.0, '2031-01-06T15:00:00.000000Z', "
+        "'2031-01-06T15:00:00.000000Z', 'me', 'typed')",
+    ),
+    (
+        "vol <= 0",
+        f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
+        f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
+        "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', 0)",
+    ),
+    (
+        "vol > 10",
+        f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
+        f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
+        "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', "
+        "10.5)",
+    ),
+    (
+        "unknown mark kind",
+        f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
+        f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
+        "underlying_id, value) VALUES (last_insert_rowid(), 1, 'price', 1, 5)",
+    ),
+    (
+        "mark beyond its set's count",
+        "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, "
+        "value) VALUES (1, 2, 'spot', 1, 5)",
+    ),
+    (
+        "amend of a live trade",
+        "INSERT INTO trade (book_id, contract_id, quantity, price, "
+        f"trade_time, booked_at, who, source, replaces) VALUES (1, 1, 1, 1.0, '{TS}', '{TS}', "
+        f"'me', "
+        "'typed', 1)",
+    ),
 ]
 
 
@@ -106,18 +167,21 @@ def test_impossible_rows_are_refused_by_sqlite(populated: Path, what: str, sql: 
     conn.execute("ROLLBACK")
 
 
-@pytest.mark.parametrize("sql", [
-    "UPDATE trade SET quantity = 50 WHERE trade_id = 1",
-    "DELETE FROM trade WHERE trade_id = 1",
-    "UPDATE trade_cancel SET reason = 'other'",
-    "DELETE FROM trade_cancel",
-    "UPDATE mark SET value = 1 WHERE mark_set_id = 2",
-    "DELETE FROM mark WHERE mark_set_id = 2",
-    "UPDATE mark_set SET note = 'edited' WHERE kind = 'close'",
-    "DELETE FROM mark_set WHERE kind = 'close'",
-    "UPDATE contract SET strike = 1",
-    "DELETE FROM underlying",
-])
+@pytest.mark.parametrize(
+    "sql",
+    [
+        "UPDATE trade SET quantity = 50 WHERE trade_id = 1",
+        "DELETE FROM trade WHERE trade_id = 1",
+        "UPDATE trade_cancel SET reason = 'other'",
+        "DELETE FROM trade_cancel",
+        "UPDATE mark SET value = 1 WHERE mark_set_id = 2",
+        "DELETE FROM mark WHERE mark_set_id = 2",
+        "UPDATE mark_set SET note = 'edited' WHERE kind = 'close'",
+        "DELETE FROM mark_set WHERE kind = 'close'",
+        "UPDATE contract SET strike = 1",
+        "DELETE FROM underlying",
+    ],
+)
 def test_history_cannot_be_updated_or_deleted(populated: Path, sql: str) -> None:
     conn = _raw(populated)
     before = conn.execute("SELECT count(*), total(quantity) FROM trade").fetchone()
@@ -132,7 +196,7 @@ def test_every_store_connection_enforces_foreign_keys_and_settings(populated: Pa
     for read_only in (False, True):
         s = open_store(populated, read_only=read_only)
         conns = [s.connection]
-        t = threading.Thread(target=lambda: conns.append(s.connection))
+        t = threading.Thread(target=lambda s=s, conns=conns: conns.append(s.connection))
         t.start()
         t.join()
         for c in conns:
@@ -143,18 +207,29 @@ def test_every_store_connection_enforces_foreign_keys_and_settings(populated: Pa
             if read_only:
                 assert c.execute("PRAGMA query_only").fetchone()[0] == 1
             else:
-                assert c.execute("PRAGMA synchronous").fetchone()[0] == 2   # FULL
+                assert c.execute("PRAGMA synchronous").fetchone()[0] == 2  # FULL
         s.close()
 
 
 def _schema_of(path: Path) -> tuple[int, int, list[tuple[str, str, str]], dict[str, list[tuple]]]:
     conn = sqlite3.connect(path)
-    objects = sorted((t, n, " ".join(sql.split())) for t, n, sql in conn.execute(
-        "SELECT type, name, sql FROM sqlite_master WHERE sql IS NOT NULL"))
-    columns = {n: conn.execute(f"PRAGMA table_xinfo('{n}')").fetchall()
-               for t, n, _ in objects if t == "table"}
-    out = (conn.execute("PRAGMA user_version").fetchone()[0],
-           conn.execute("PRAGMA application_id").fetchone()[0], objects, columns)
+    objects = sorted(
+        (t, n, " ".join(sql.split()))
+        for t, n, sql in conn.execute(
+            "SELECT type, name, sql FROM sqlite_master WHERE sql IS NOT NULL"
+        )
+    )
+    columns = {
+        n: conn.execute(f"PRAGMA table_xinfo('{n}')").fetchall()
+        for t, n, _ in objects
+        if t == "table"
+    }
+    out = (
+        conn.execute("PRAGMA user_version").fetchone()[0],
+        conn.execute("PRAGMA application_id").fetchone()[0],
+        objects,
+        columns,
+    )
     conn.close()
     return out
 
@@ -175,7 +250,8 @@ def _make_v1_book(path: Path) -> None:
             source) VALUES (1, 1, 7, 2.5, '{TS}', '{TS}', 'old', 'typed');
         INSERT INTO mark_set (kind, marked_at, who, source, mark_count)
             VALUES ('close', '{TS}', 'old', 'close', 1);
-        INSERT INTO mark (mark_set_id, seq, kind, underlying_id, value) VALUES (1, 1, 'spot', 1, 99);
+        INSERT INTO mark (mark_set_id, seq, kind, underlying_id, value)
+            VALUES (1, 1, 'spot', 1, 99);
     """)
     conn.close()
 
@@ -215,8 +291,10 @@ def test_kill_during_migration_leaves_the_old_book_and_a_rerun_finishes(tmp_path
     child.wait(10)
     conn = sqlite3.connect(old)
     assert conn.execute("PRAGMA user_version").fetchone()[0] == 1
-    assert conn.execute("SELECT count(*) FROM sqlite_master WHERE name = 'import_file'"
-                        ).fetchone()[0] == 0
+    assert (
+        conn.execute("SELECT count(*) FROM sqlite_master WHERE name = 'import_file'").fetchone()[0]
+        == 0
+    )
     assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     conn.close()
     with open_store(old) as s:
