@@ -29,7 +29,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from blotter.engine import black
-from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_quadrature
+from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_weighted_sum
 
 VOL_FLOOR = 1e-3
 """Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
@@ -54,14 +54,148 @@ def _cexp(x: np.ndarray) -> np.ndarray:
     return np.exp(np.clip(x, EXP_FLOOR, _EXP_CAP, out=x), out=x)
 
 
+def _matrices() -> dict[str, np.ndarray]:
+    """Constant matrices mapping per-row bases to the 2002 formula's arguments and exponents.
+
+    Bases: B1 = [ln S, ln I1, ln I2, μβ t1, μ1 t1, μ0 t1] (t1 arguments, × 1/(σ√t1));
+    B2 = [ln S, ln I1, ln I2, ln K, μβ T, μ1 T, μ0 T] (T arguments, × 1/(σ√T));
+    B3 = [ln S, ln I1, ln I2, ln K, β ln S, β ln I1, β ln I2, (b/σ²) ln S, (b/σ²) ln I1,
+    (b/σ²) ln I2, λβ t1, λ1 t1, λ0 t1, λβ T, λ1 T, λ0 T, ln(I2 − K), ln(I1 − K)] (exponents).
+    """
+    S, I1, I2, K = 0, 1, 2, 3
+    # t1 arguments: d(γ, H) and d_ref(γ, H) of φ for γ = β, 1, 0 and H = I2, I1; then −e3, −e4.
+    a1 = []
+    for g in range(3):
+        for lh in (I2, I1):
+            row = np.zeros(6)
+            row[S] -= 1.0
+            row[lh] += 1.0
+            row[3 + g] -= 1.0
+            a1.append(row)                     # d = −(ln S − ln H + μ t1)
+    for g in range(3):
+        for lh in (I2, I1):
+            row = np.zeros(6)
+            row[S] += 1.0
+            row[lh] += 1.0
+            row[I2] -= 2.0
+            row[3 + g] -= 1.0
+            a1.append(row)                     # d_ref = d − 2 ln(I2/S)
+    for g in range(3):
+        row = np.zeros(6)
+        row[[S, I1, 3 + g]] = [-1.0, 1.0, 1.0]
+        a1.append(row)                         # −e3 = −(ln S − ln I1 − μ t1)
+    for g in range(3):
+        row = np.zeros(6)
+        row[[S, I1, I2, 3 + g]] = [1.0, 1.0, -2.0, 1.0]
+        a1.append(row)                         # −e4 = −(2 ln I2 − ln S − ln I1 − μ t1)
+    # T arguments: −f1..−f4 for the ψ combinations (γ, H).
+    a2 = []
+    for g, lh in PSI_TERMS:
+        hcol = I1 if lh == "I1" else K
+        rows = np.zeros((4, 7))
+        # np.add.at, because H can be I1, which other terms of the same row also use.
+        np.add.at(rows[0], [S, hcol, 4 + g], [-1.0, 1.0, -1.0])
+        np.add.at(rows[1], [I2, S, hcol, 4 + g], [-2.0, 1.0, 1.0, -1.0])
+        np.add.at(rows[2], [I1, S, hcol, 4 + g], [-2.0, 1.0, 1.0, -1.0])
+        np.add.at(rows[3], [S, I1, hcol, I2, 4 + g], [-1.0, -2.0, 1.0, 2.0, -1.0])
+        a2.extend(rows)
+    # Exponents. Column helpers: β·x at 4 + x, (b/σ²)·x at 7 + x (x in S, I1, I2).
+    def lam(g: int, at_t1: bool) -> int:
+        return (10 if at_t1 else 13) + g
+
+    def kap_times(row: np.ndarray, g: int, x: int, sign: float) -> None:
+        # κγ x = 2 (b/σ²) x + (2γ − 1) x, with γ = β (g = 0), 1 (g = 1) or 0 (g = 2)
+        row[7 + x] += 2.0 * sign
+        if g == 0:
+            row[4 + x] += 2.0 * sign
+            row[x] -= sign
+        elif g == 1:
+            row[x] += sign
+        else:
+            row[x] -= sign
+
+    LN_I2K, LN_I1K = 16, 17
+    a3, signs = [], []
+    # φ main and reflected, in the order of the t1 arguments above.
+    phi_coef = {(0, I2): (LN_I2K, -1.0), (0, I1): (LN_I1K, 1.0), (1, I2): (None, 1.0),
+                (1, I1): (None, -1.0), (2, I2): (K, -1.0), (2, I1): (K, 1.0)}
+    mains = []
+    for g in range(3):
+        for lh in (I2, I1):
+            row = np.zeros(18)
+            row[lam(g, True)] = 1.0
+            if g == 0:
+                row[4 + S] += 1.0
+                row[4 + lh] -= 1.0
+            elif g == 1:
+                row[S] += 1.0
+            col, sign = phi_coef[(g, lh)]
+            if col is not None:
+                row[col] += 1.0
+            mains.append((row, sign, g))
+    for row, sign, _ in mains:
+        a3.append(row)
+        signs.append(sign)
+    for row, sign, g in mains:
+        refl = row.copy()
+        kap_times(refl, g, I2, 1.0)
+        kap_times(refl, g, S, -1.0)            # κ ln(I2/S)
+        a3.append(refl)
+        signs.append(-sign)
+    row = np.zeros(18)
+    row[[LN_I2K, 4 + S, 4 + I2]] = [1.0, 1.0, -1.0]
+    a3.append(row)                             # α2 S^β = (I2 − K) e^{β ln(S/I2)}
+    signs.append(1.0)
+    psi_coef = {(0, "I1"): (LN_I1K, -1.0), (1, "I1"): (None, 1.0), (1, "K"): (None, -1.0),
+                (2, "I1"): (K, -1.0), (2, "K"): (K, 1.0)}
+    for g, lh in PSI_TERMS:
+        base = np.zeros(18)
+        base[lam(g, False)] = 1.0
+        if g == 0:
+            base[4 + S] += 1.0
+            base[4 + I1] -= 1.0
+        elif g == 1:
+            base[S] += 1.0
+        col, sign = psi_coef[(g, lh)]
+        if col is not None:
+            base[col] += 1.0
+        r2 = base.copy()
+        kap_times(r2, g, I2, 1.0)
+        kap_times(r2, g, S, -1.0)              # (I2/S)^κ
+        r3 = base.copy()
+        kap_times(r3, g, I1, 1.0)
+        kap_times(r3, g, S, -1.0)              # (I1/S)^κ
+        r4 = base.copy()
+        kap_times(r4, g, I1, 1.0)
+        kap_times(r4, g, I2, -1.0)             # (I1/I2)^κ
+        a3.extend([base, r2, r3, r4])
+        signs.extend([sign, -sign, -sign, sign])
+    # Rows of the t1 arguments giving h of each bivariate term (M1..M4 per ψ combination).
+    h_rows = []
+    for g, _ in PSI_TERMS:
+        h_rows += [2 * g + 1, 6 + 2 * g + 1, 12 + g, 15 + g]   # d(γ,I1), d_ref(γ,I1), −e3, −e4
+    return {"a1": np.array(a1), "a2": np.array(a2), "a3": np.array(a3),
+            "signs": np.array(signs), "h_rows": np.array(h_rows)}
+
+
+PSI_TERMS = ((0, "I1"), (1, "I1"), (1, "K"), (2, "I1"), (2, "K"))
+"""(γ index in β, 1, 0; H) of the five ψ terms of the 2002 formula."""
+_M = _matrices()
+_POS = np.array([j for j in range(20) if j % 4 < 2])     # M1, M2 use +ρ
+_NEG = np.array([j for j in range(20) if j % 4 >= 2])    # M3, M4 use −ρ
+
+
 def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
                 v: np.ndarray) -> np.ndarray:
     """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), where b < r and β is real.
 
     Values of rows outside that domain are finite but meaningless; callers select them away.
-    Terms are evaluated in log space, e.g. α_j S^β = (I_j − K) e^{β ln(S/I_j)}, with exponents
-    capped at ``_EXP_CAP``, so small vols (large β) neither overflow nor lose the product.
+    The formula is Σ_j ±e^{L_j} G_j with G_j a normal or bivariate normal CDF; every argument
+    and exponent L_j is a fixed linear combination of a few per-row logs, so they come from
+    three small matrix products (see ``_matrices``). Exponents are clipped to
+    [``EXP_FLOOR``, ``_EXP_CAP``] so that small vols (large β) neither overflow nor lose terms.
     """
+    m = s.shape[0]
     v2 = v * v
     t1 = GOLDEN * t
     vs1 = v * np.sqrt(t1)
@@ -77,71 +211,40 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     i1 = b_0 - gap * np.expm1(np.minimum(-(b * t1 + 2.0 * vs1) * scale, 0.0))
     i2 = b_0 - gap * np.expm1(np.minimum(-(b * t + 2.0 * vst) * scale, 0.0))
     ls, lk, l1, l2 = np.log(s), np.log(k), np.log(i1), np.log(i2)
-    m = s.shape[0]
-    zero = np.zeros(m)
-    one = np.ones(m)
-
-    # Rows γ = β, 1, 0 of the exponents μ, λ, κ and of the prefactor's γ and β-part.
-    gam = np.stack([beta, one, zero])
-    bet = np.stack([beta, zero, zero])
-    mu = b + (gam - 0.5) * v2
-    lam = -r + gam * b + 0.5 * gam * (gam - 1.0) * v2
-    kap = 2.0 * bv + (2.0 * gam - 1.0)
-    x2 = l2 - ls                                          # ln(I2/S)
-    inv1 = 1.0 / vs1
-    invt = 1.0 / vst
-
-    # φ(S, t1, γ, H, I2) for γ in (β, 1, 0) × H in (I2, I1): coefficient, log-prefactor, args.
-    lh = np.stack([l2, l1])                               # (2, m)
-    d = -(ls - lh[None] + (mu * t1)[:, None]) * inv1      # (3, 2, m)
-    d_ref = d - 2.0 * x2 * inv1
-    l_phi = ((lam * t1 + gam * ls)[:, None] - bet[:, None] * lh[None])
-    c_phi = np.stack([np.stack([-(i2 - k), i1 - k]), np.stack([one, -one]),
-                      np.stack([-k, k])])
-    n_d = ndtr(d)
-    n_dref = ndtr(d_ref)
-    value = (i2 - k) * _cexp(beta * (ls - l2))
-    value += np.sum(c_phi * (_cexp(l_phi.copy()) * n_d
-                             - _cexp(l_phi + (kap * x2)[:, None]) * n_dref), axis=(0, 1))
-
-    # ψ(S, T, γ, H, I2, I1, t1) for (γ, H) in (β, I1), (1, I1), (1, K), (0, I1), (0, K).
-    g_idx = np.array([0, 1, 1, 2, 2])
-    h_is_k = np.array([False, False, True, False, True])
-    lh5 = np.where(h_is_k[:, None], lk, l1)              # (5, m)
-    mu5 = mu[g_idx]
-    mt = mu5 * t
-    # −e1 and −e2 equal the φ arguments d and d_ref at H = I1, so their N values are shared.
-    neg_e1 = d[g_idx, 1]
-    neg_e2 = d_ref[g_idx, 1]
-    n_e1 = n_d[g_idx, 1]
-    n_e2 = n_dref[g_idx, 1]
-    m1 = (mu * t1)[g_idx]
-    neg_e3 = -(ls - l1 - m1) * inv1
-    neg_e4 = -(2.0 * l2 - ls - l1 - m1) * inv1
-    neg_f1 = -(ls - lh5 + mt) * invt
-    neg_f2 = -(2.0 * l2 - ls - lh5 + mt) * invt
-    neg_f3 = -(2.0 * l1 - ls - lh5 + mt) * invt
-    neg_f4 = -(ls + 2.0 * l1 - lh5 - 2.0 * l2 + mt) * invt
-    l_psi = (lam * t + gam * ls - bet * l1)[g_idx]
-    kap5 = kap[g_idx]
-    c_psi = np.stack([-(i1 - k), one, -one, -k, k])
-    # Positive correlation: M(−e1, −f1) and M(−e2, −f2); negative: M(−e3, −f3), M(−e4, −f4).
-    h_pos = np.concatenate([neg_e1, neg_e2])
-    k_pos = np.concatenate([neg_f1, neg_f2])
-    n_h_pos = np.concatenate([n_e1, n_e2])
-    h_neg = np.concatenate([neg_e3, neg_e4])
-    k_neg = np.concatenate([neg_f3, neg_f4])
-    n_h_neg = ndtr(h_neg)
-    m_pos = bvn_quadrature(h_pos, k_pos, +1)
-    m_pos += n_h_pos * ndtr(k_pos)
-    m_neg = bvn_quadrature(h_neg, k_neg, -1)
-    m_neg += n_h_neg * ndtr(k_neg)
-    logs = np.concatenate([l_psi, l_psi + kap5 * x2, l_psi + kap5 * (l1 - ls),
-                           l_psi + kap5 * (l1 - l2)])
-    weights = _cexp(logs)
-    weights *= np.concatenate([c_psi, -c_psi, -c_psi, c_psi])
-    value += np.sum(weights[:10] * m_pos, axis=0)
-    value += np.sum(weights[10:] * m_neg, axis=0)
+    half_v2 = 0.5 * v2
+    mu = np.stack([b + (beta - 0.5) * v2, b + half_v2, b - half_v2])
+    lam = np.stack([-r + beta * b + half_v2 * beta * (beta - 1.0), b - r, -r])
+    basis1 = np.concatenate([np.stack([ls, l1, l2]), mu * t1])
+    basis2 = np.concatenate([np.stack([ls, l1, l2, lk]), mu * t])
+    logs3 = np.stack([ls, l1, l2])
+    basis3 = np.concatenate([
+        logs3[:, :], lk[None], beta * logs3, bv * logs3, lam * t1, lam * t,
+        np.log(np.maximum(np.stack([i2 - k, i1 - k]), 1e-300)),
+    ])
+    args1 = _M["a1"] @ basis1
+    args1 /= vs1
+    args2 = _M["a2"] @ basis2
+    args2 /= vst
+    expo = _M["a3"] @ basis3
+    n1 = ndtr(args1)
+    n2 = ndtr(args2)
+    # Univariate part: φ rows (12), α2 S^β row, and N(h) N(k) of the 20 bivariate rows.
+    h_rows = _M["h_rows"]
+    g = np.empty((33, m))
+    g[:12] = n1[:12]
+    g[12] = 1.0
+    np.multiply(n1[h_rows], n2, out=g[13:])
+    weights = _cexp(expo.copy())
+    weights *= g
+    value = _M["signs"] @ weights
+    # Quadrature part of the bivariate rows: Σ_i e^{L_j + ln w_i + a_i h k − b_i (h² + k²)}.
+    h = args1[h_rows]
+    hk = h * args2
+    hs = np.square(h, out=h)
+    hs += np.square(args2)
+    signs = _M["signs"][13:]
+    for rows, sign in ((_POS, +1), (_NEG, -1)):
+        value += bvn_weighted_sum(hk[rows], hs[rows], expo[13:][rows], signs[rows], sign)
     return np.where(s >= i2, s - k, value)
 
 

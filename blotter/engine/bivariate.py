@@ -7,8 +7,9 @@ M(h, k; ρ) = P(X < h, Y < k) for standard normals with correlation ρ, by the D
 
 evaluated by Gauss–Legendre quadrature in θ. The 2002 approximation only uses ρ = ±√(t1/T) with
 t1/T = (√5 − 1)/2, so the nodes, sin θ and 1/cos² θ are constants computed once here. With
-``NODES`` = 10 the absolute error is below 3e-13 over h, k in [−8, 8] (tests check it against
-SciPy's multivariate normal).
+``NODES`` = 8 the absolute error is below 4e-11 over h, k in [−8, 8] (tests check it against
+SciPy's multivariate normal); in a BS2002 price that is below 2e-11 of the strike, far under the
+approximation's own error.
 """
 
 from __future__ import annotations
@@ -25,8 +26,8 @@ RHO = math.sqrt(GOLDEN)
 EXP_FLOOR = -700.0
 """Exponents are raised to this before ``np.exp``: e^-700 is already negligible, and NumPy's exp
 is about 20 times slower on arguments whose results underflow."""
-NODES = 10
-"""Gauss–Legendre nodes in θ; 10 gives an absolute error below 3e-13 at |ρ| = RHO."""
+NODES = 8
+"""Gauss–Legendre nodes in θ; 8 give an absolute error below 4e-11 at |ρ| = RHO (10: 3e-13)."""
 
 
 def _rule(rho: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
@@ -65,3 +66,27 @@ def bvn_quadrature(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
 def bvn_cdf(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
     """M(h, k; sign·RHO) = P(X < h, Y < k), correlation ±RHO, for arrays of one shape."""
     return bvn_quadrature(h, k, sign) + ndtr(h) * ndtr(k)
+
+
+def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: np.ndarray,
+                     sign: int) -> np.ndarray:
+    """Σ_j signs_j e^{log_coef_j} (M(h_j, k_j; sign·RHO) − N(h_j) N(k_j)), summed over rows j.
+
+    ``hk`` = h·k and ``hs`` = h² + k², shape (J, m); ``log_coef`` (J, m); ``signs`` (J,).
+    Folding each row's coefficient into the exponent leaves one exp per node and row.
+    """
+    a_coef, b_coef, log_w, scale = _RULES[sign]
+    shift = log_coef + math.log(abs(scale))
+    acc = np.zeros(hk.shape)
+    tmp = np.empty(hk.shape)
+    tmp2 = np.empty(hk.shape)
+    for i in range(NODES):
+        np.multiply(hk, a_coef[i], out=tmp)
+        np.multiply(hs, b_coef[i], out=tmp2)
+        tmp -= tmp2
+        tmp += shift
+        tmp += log_w[i]
+        np.clip(tmp, EXP_FLOOR, 600.0, out=tmp)
+        np.exp(tmp, out=tmp)
+        acc += tmp
+    return (np.sign(scale) * signs) @ acc

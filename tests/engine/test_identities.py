@@ -141,12 +141,12 @@ def test_mixed_book_equals_separate_models() -> None:
     mixed = price_greeks(**kw, american=mask)
     euro = price_greeks(**kw)
     amer = price_greeks(**kw, american=True)
-    # Vectorized exp and log may differ in the last bit between a chunk's body and its tail, and
-    # difference greeks magnify that to ~1e-10, hence the bound.
+    # Vectorized exp and log may differ in the last bit between a chunk's body and its tail;
+    # difference greeks divide that by products of steps (charm: 2e-4 S × 1e-4 T), hence 1e-6.
     for name in ("price", "delta", "gamma", "vega", "theta", "rho", "carry_rho", "vanna",
                  "volga", "charm"):
         want = np.where(mask, getattr(amer, name), getattr(euro, name))
-        assert np.allclose(getattr(mixed, name), want, rtol=1e-8, atol=1e-8), name
+        assert np.allclose(getattr(mixed, name), want, rtol=1e-6, atol=1e-6), name
     assert np.allclose(price(**kw, american=mask), np.where(mask, amer.price, euro.price),
                        rtol=1e-13, atol=1e-12)
 
