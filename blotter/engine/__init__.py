@@ -53,9 +53,10 @@ __all__ = [
     "price_greeks",
 ]
 
-_AMERICAN_CHUNK = 512
-"""Chunk for American greeks: 15 bumped copies and ~40 stacked terms per element stay in L2."""
-_AMERICAN_PRICE_CHUNK = 2048
+_AMERICAN_CHUNK = 128
+"""Chunk for American greeks: 15 bumped copies of 128 rows and their ~40 stacked terms per
+element stay in L2."""
+_AMERICAN_PRICE_CHUNK = 1024
 """Chunk for American prices and implied vols."""
 _IV_CHUNK = 16384
 """Chunk for European implied vols: large, so the few slow elements cost few Python loops."""

@@ -221,11 +221,13 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
         logs3[:, :], lk[None], beta * logs3, bv * logs3, lam * t1, lam * t,
         np.log(np.maximum(np.stack([i2 - k, i1 - k]), 1e-300)),
     ])
-    args1 = _M["a1"] @ basis1
+    # einsum without BLAS: OpenBLAS threads these small products and, on a busy machine, its
+    # threads stall each other for far longer than the single-threaded loop takes.
+    args1 = np.einsum("ij,jm->im", _M["a1"], basis1, optimize=False)
     args1 /= vs1
-    args2 = _M["a2"] @ basis2
+    args2 = np.einsum("ij,jm->im", _M["a2"], basis2, optimize=False)
     args2 /= vst
-    expo = _M["a3"] @ basis3
+    expo = np.einsum("ij,jm->im", _M["a3"], basis3, optimize=False)
     n1 = ndtr(args1)
     n2 = ndtr(args2)
     # Univariate part: φ rows (12), α2 S^β row, and N(h) N(k) of the 20 bivariate rows.
@@ -236,7 +238,7 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     np.multiply(n1[h_rows], n2, out=g[13:])
     weights = _cexp(expo.copy())
     weights *= g
-    value = _M["signs"] @ weights
+    value = np.einsum("j,jm->m", _M["signs"], weights, optimize=False)
     # Quadrature part of the bivariate rows: Σ_i e^{L_j + ln w_i + a_i h k − b_i (h² + k²)}.
     h = args1[h_rows]
     hk = h * args2
