@@ -20,7 +20,7 @@ from textual import on, work
 from textual.app import App, ComposeResult
 from textual.binding import BindingType
 from textual.containers import Container
-from textual.events import Resize
+from textual.events import Paste, Resize
 from textual.widgets import Footer, Input, Static
 from textual.worker import get_current_worker
 
@@ -404,10 +404,21 @@ class BlotterApp(App[None]):
         self.push_screen(HelpScreen(bound))
 
     def action_focus_bar(self) -> None:
-        self.query_one(MoveInput).focus()
+        # A priority binding, handled as the key reaches the app and focusing at once, so that
+        # "/spot -3%" arriving in one burst (fast typing, SSH, tmux) all lands in the bar.
+        self.screen.set_focus(self.query_one(MoveInput))
+
+    def on_paste(self, event: Paste) -> None:
+        """Text pasted anywhere but the bar goes into the bar (a leading "/" dropped)."""
+        bar = self.query_one(MoveInput)
+        if self.focused is bar:
+            return
+        event.stop()
+        self.screen.set_focus(bar)
+        bar.insert_text_at_cursor(event.text.lstrip("/").replace("\n", " ").strip())
 
     def action_focus_book(self) -> None:
-        self.query_one(BookTable).focus()
+        self.screen.set_focus(self.query_one(BookTable))
 
     def action_next_pane(self) -> None:
         self.pane = PANES[(PANES.index(self.pane) + 1) % len(PANES)]

@@ -25,11 +25,13 @@ class KeySpec:
     description: str
     short: str = ""       # footer label; empty keeps the action out of the footer
     where: str = "app"   # "app", "bar" (what-if bar), "book" (book pane) or "help" (help screen)
+    priority: bool = False  # handled when the key reaches the app, before the focused widget
 
 
 KEYS: tuple[KeySpec, ...] = (
     KeySpec("help", "help", "question_mark,f1", "Help: keys, units, what-if grammar", short="Help"),
-    KeySpec("what-if", "focus_bar", "slash,f2", "Type a what-if move in the bar", short="What-if"),
+    KeySpec("what-if", "focus_bar", "slash,f2", "Type a what-if move in the bar", short="What-if",
+            priority=True),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec("pane", "next_pane", "v,f7", "Show the next pane (Move, Ladder, Profile)", short="Pane"),
     KeySpec("expand", "toggle_row", "e,ctrl+o", "Expand or collapse the row (Enter too)", short="Expand",
@@ -108,6 +110,7 @@ def app_bindings(where: str) -> list[Binding]:
 
     return [
         Binding(k.keys, k.action, k.short or k.description, show=bool(k.short), id=k.id,
-                key_display=key_label(k.keys.split(",")[0]), tooltip=k.description)
+                key_display=key_label(k.keys.split(",")[0]), tooltip=k.description,
+                priority=k.priority)
         for k in KEYS if k.where == where
     ]

@@ -8,17 +8,20 @@ from __future__ import annotations
 
 import asyncio
 import inspect
-from datetime import datetime, timezone
+from datetime import datetime, time, timedelta, timezone
 from pathlib import Path
 from typing import Any
 
 import pytest
 
 from blotter.config import Settings
+from blotter.demo import DEMO_AS_OF, DEMO_TZ
 from blotter.ui.app import BlotterApp, make_app
 
-FROZEN_NOW = datetime(2026, 12, 2, 15, 0, tzinfo=timezone.utc)
-"""The tests' "now": 10:00 New York on the morning after the demo book's last close."""
+FROZEN_NOW = datetime.combine(DEMO_AS_OF + timedelta(days=1), time(10, 0), tzinfo=DEMO_TZ
+                              ).astimezone(timezone.utc)
+"""The tests' "now": 10:00 New York on the day after the demo book's last close (a business day
+for the demo's date, a Tuesday)."""
 
 TEST_SETTINGS = Settings(watch_interval_s=0.0, debounce_ms=0.0)
 """No store watcher and no debounce, so every worker finishes and tests stay quick."""

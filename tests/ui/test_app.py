@@ -235,7 +235,8 @@ async def test_header_says_book_marks_age_and_read_only(demo_db: Path) -> None:
         await settle(app, pilot)
         header = str(app.query_one("#header-line").render())
         assert "READ-ONLY" in header and "demo.db" in header
-        assert "valued 2026-12-02 10:00 EST" in header
+        local = FROZEN_NOW.astimezone(app.tz)
+        assert f"valued {local:%Y-%m-%d %H:%M %Z}" in header
         assert " old)" in header and "STALE" not in header
 
 
@@ -254,3 +255,28 @@ async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
         assert "no book at" in str(app.query_one("#header-line").render())
+
+
+async def test_keys_arriving_in_one_burst_all_reach_the_bar(demo_app: BlotterApp) -> None:
+    """"/spot -2%" arriving in one read (fast typing over SSH) lands whole in the bar."""
+    from textual import events
+
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        for ch in "/spot -2%":
+            name = {"/": "slash", " ": "space", "-": "minus", "%": "percent_sign"}.get(ch, ch)
+            demo_app.post_message(events.Key(name, ch))   # queued together, none handled yet
+        await settle(demo_app, pilot)
+        assert demo_app.query_one(MoveInput).value == "spot -2%"
+        assert demo_app.query_one(BookTable).sort_column is None   # no "s" reached the book
+
+
+async def test_paste_into_the_book_goes_to_the_bar(demo_app: BlotterApp) -> None:
+    from textual import events
+
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        demo_app.post_message(events.Paste("/vol +2\n"))   # as the driver delivers it
+        await settle(demo_app, pilot)
+        assert demo_app.query_one(MoveInput).value == "vol +2"
+        assert demo_app.move is not None and demo_app.move.describe() == "vol +2"
