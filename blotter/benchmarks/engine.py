@@ -93,8 +93,10 @@ def _greeks_case(case: str, sizes: list[int], american: bool, repeat: int) -> li
         book = random_book(n)
         # A million American positions take tens of seconds per call: no untimed warm-up there.
         warmup = 0 if american and n >= 1_000_000 else 1
-        seconds = timed(lambda b=book: price_greeks(**b, american=american), repeat=repeat,
-                        warmup=warmup)
+        def call(b: dict[str, np.ndarray] = book) -> None:
+            price_greeks(**b, american=american)
+
+        seconds = timed(call, repeat=repeat, warmup=warmup)
         res = result_from(case, n, seconds, target_ns=TARGET_NS[case],
                           note="price + 9 greeks" + (", BS2002, FD greeks" if american else ""))
         if ref_ns is not None:

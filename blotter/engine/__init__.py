@@ -97,7 +97,7 @@ def _run_models(flat: Flat, mask: np.ndarray, euro: Kernel, amer: Kernel, amer_c
     if len(set(dtypes)) == 1:
         # One block for all outputs: large enough for transparent huge pages, so first touch
         # costs far fewer page faults than ten separate arrays.
-        block = np.empty((n_out, flat.size), dtype=dtypes[0])
+        block: np.ndarray = np.empty((n_out, flat.size), dtype=dtypes[0])
         outs = list(block)
     else:
         outs = [np.empty(flat.size, dtype=dt) for dt in dtypes[:n_out]]

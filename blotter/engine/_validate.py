@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+
 def _quick_ok(arr: np.ndarray, rule: str) -> bool:
     """True when every element passes ``rule``, by two reductions (NaN makes min and max NaN)."""
     lo = float(arr.min())

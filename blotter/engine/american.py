@@ -3,7 +3,8 @@
 P. Bjerksund and G. Stensland, "Closed Form Valuation of American Options", discussion paper,
 NHH 2002: the call is valued as the strategy "exercise when the spot reaches a flat boundary I1
 before t1 = ½(√5 − 1) T, or I2 after it", which needs the bivariate normal at ρ = ±√(t1/T)
-(``bivariate``). Puts use the put–call transformation P(S, K, T, r, b, σ) = C(K, S, T, r − b, −b, σ).
+(``bivariate``). Puts use the put–call transformation
+P(S, K, T, r, b, σ) = C(K, S, T, r − b, −b, σ).
 
 Rules applied on top of the formula, per row:
 
@@ -51,7 +52,9 @@ vols below 1e-4 are those at 1e-4 (their price uses the true vol)."""
 
 def _cexp(x: np.ndarray) -> np.ndarray:
     """e^x in place, with x clipped to [EXP_FLOOR, _EXP_CAP] (no overflow, no slow underflow)."""
-    return np.exp(np.clip(x, EXP_FLOOR, _EXP_CAP, out=x), out=x)
+    np.clip(x, EXP_FLOOR, _EXP_CAP, out=x)
+    np.exp(x, out=x)
+    return x
 
 
 def _matrices() -> dict[str, np.ndarray]:
@@ -89,9 +92,9 @@ def _matrices() -> dict[str, np.ndarray]:
         row[[S, I1, I2, 3 + g]] = [1.0, 1.0, -2.0, 1.0]
         a1.append(row)                         # −e4 = −(2 ln I2 − ln S − ln I1 − μ t1)
     # T arguments: −f1..−f4 for the ψ combinations (γ, H).
-    a2 = []
-    for g, lh in PSI_TERMS:
-        hcol = I1 if lh == "I1" else K
+    a2: list[np.ndarray] = []
+    for g, h_name in PSI_TERMS:
+        hcol = I1 if h_name == "I1" else K
         rows = np.zeros((4, 7))
         # np.add.at, because H can be I1, which other terms of the same row also use.
         np.add.at(rows[0], [S, hcol, 4 + g], [-1.0, 1.0, -1.0])
@@ -148,7 +151,7 @@ def _matrices() -> dict[str, np.ndarray]:
     signs.append(1.0)
     psi_coef = {(0, "I1"): (LN_I1K, -1.0), (1, "I1"): (None, 1.0), (1, "K"): (None, -1.0),
                 (2, "I1"): (K, -1.0), (2, "K"): (K, 1.0)}
-    for g, lh in PSI_TERMS:
+    for g, h_name in PSI_TERMS:
         base = np.zeros(18)
         base[lam(g, False)] = 1.0
         if g == 0:
@@ -156,7 +159,7 @@ def _matrices() -> dict[str, np.ndarray]:
             base[4 + I1] -= 1.0
         elif g == 1:
             base[S] += 1.0
-        col, sign = psi_coef[(g, lh)]
+        col, sign = psi_coef[(g, h_name)]
         if col is not None:
             base[col] += 1.0
         r2 = base.copy()
@@ -187,7 +190,7 @@ _NEG = np.array([j for j in range(20) if j % 4 >= 2])    # M3, M4 use −ρ
 
 def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
                 v: np.ndarray) -> np.ndarray:
-    """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), where b < r and β is real.
+    """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), b < r and β real.
 
     Values of rows outside that domain are finite but meaningless; callers select them away.
     The formula is Σ_j ±e^{L_j} G_j with G_j a normal or bivariate normal CDF; every argument
@@ -247,7 +250,8 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     signs = _M["signs"][13:]
     for rows, sign in ((_POS, +1), (_NEG, -1)):
         value += bvn_weighted_sum(hk[rows], hs[rows], expo[13:][rows], signs[rows], sign)
-    return np.where(s >= i2, s - k, value)
+    out: np.ndarray = np.where(s >= i2, s - k, value)
+    return out
 
 
 def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
@@ -267,7 +271,7 @@ def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r
     # β → 1 as b → r, where the early-exercise premium vanishes; β <= 1 + 1e-9 is European.
     live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
     intrinsic = np.maximum(w * (s - k), 0.0)
-    out = np.maximum(euro, intrinsic)
+    out: np.ndarray = np.maximum(euro, intrinsic)
     if live.any():
         idx = np.flatnonzero(live)
         t_c = np.maximum(t[idx], black.YEARS_FLOOR)
@@ -317,7 +321,8 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
                           np.broadcast_to(k, sv.shape).ravel(), tv.ravel(), rv.ravel(),
                           bv.ravel(), vv.ravel()).reshape(n_b, -1)
     f0 = vals[0]
-    fs_p, fs_m, fv_p, fv_m, fr_p, fr_m, fb_p, fb_m, ft_p, ft_m, fsv_p, fsv_m, fst_p, fst_m = vals[1:]
+    fs_p, fs_m, fv_p, fv_m, fr_p, fr_m, fb_p, fb_m, ft_p, ft_m = vals[1:11]
+    fsv_p, fsv_m, fst_p, fst_m = vals[11:]
     low_vol = v < hv
     if low_vol.any():
         price[:] = np.where(low_vol, american_value(w, s, k, t, r, b, v), f0)

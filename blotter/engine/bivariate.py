@@ -61,12 +61,14 @@ def bvn_quadrature(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
         np.exp(tmp, out=tmp)
         acc += tmp
     acc *= scale
-    return acc
+    out: np.ndarray = acc
+    return out
 
 
 def bvn_cdf(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
     """M(h, k; sign·RHO) = P(X < h, Y < k), correlation ±RHO, for arrays of one shape."""
-    return bvn_quadrature(h, k, sign) + ndtr(h) * ndtr(k)
+    out: np.ndarray = bvn_quadrature(h, k, sign) + ndtr(h) * ndtr(k)
+    return out
 
 
 def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: np.ndarray,
@@ -91,4 +93,5 @@ def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs
         np.exp(tmp, out=tmp)
         tmp *= math.exp(log_w[i])
         acc += tmp
-    return np.einsum("j,jm->m", np.sign(scale) * signs, acc, optimize=False)
+    total: np.ndarray = np.einsum("j,jm->m", np.sign(scale) * signs, acc, optimize=False)
+    return total

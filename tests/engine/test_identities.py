@@ -110,7 +110,7 @@ def test_time_scaling_identity_holds_for_both_models() -> None:
 
 
 def test_implied_vol_round_trip_european() -> None:
-    """Implied vol of the engine's own prices returns the vol to 1e-10 where vega is not negligible."""
+    """Implied vols of the engine's own prices return the vol to 1e-10 where vega matters."""
     kw = random_inputs(20000, seed=6, wide=True)
     g = price_greeks(**kw)
     args = {k: v for k, v in kw.items() if k != "vol"}

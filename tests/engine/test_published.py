@@ -13,7 +13,8 @@ import pytest
 
 from blotter.engine import IV_OK, implied_vol, price, price_greeks
 
-HAUG98_CH1 = "E. G. Haug, The Complete Guide to Option Pricing Formulas, McGraw-Hill, 1st ed. 1998, ch. 1"
+HAUG98_CH1 = ("E. G. Haug, The Complete Guide to Option Pricing Formulas, McGraw-Hill, 1st ed. "
+              "1998, ch. 1")
 HAUG98 = "E. G. Haug, The Complete Guide to Option Pricing Formulas, McGraw-Hill, 1st ed. 1998"
 HULL = ("memory of J. C. Hull, Options, Futures, and Other Derivatives (9th ed. 2015 chapter "
         "numbering; the same examples appear one chapter earlier in the 8th ed.)")
@@ -92,7 +93,8 @@ CASES = [
          {"price": "51.83"},
          f"{HULL}, Ch. 17 (Options on stock indices and currencies), index example — from memory"),
     Case("hull-futures-put-20", False, 20.0, 20.0, 0.3333333333333333, 0.09, 0.0, 0.25,
-         {"price": "1.12"}, f"{HULL}, Ch. 18 (Futures options), Black's model example — from memory"),
+         {"price": "1.12"},
+         f"{HULL}, Ch. 18 (Futures options), Black's model example — from memory"),
     Case("hull-sm-call-52-50", True, 52.0, 50.0, 0.25, 0.12, 0.12, 0.3, {"price": "5.06"},
          f"{HULL_SM} (Ch. 15: S=52, K=50, r=12%, sigma=30%, 3 months) — from memory"),
     Case("hull-sm-put-69-70", False, 69.0, 70.0, 0.5, 0.05, 0.05, 0.35, {"price": "6.4"},
@@ -173,7 +175,8 @@ def _quantity(case: Case, name: str) -> float:
 
 
 @pytest.mark.parametrize(
-    ("case", "name"), [(c, q) for c in CASES for q in c.published], ids=lambda x: getattr(x, "id", x)
+    ("case", "name"), [(c, q) for c in CASES for q in c.published],
+    ids=lambda x: getattr(x, "id", x),
 )
 def test_published_value(case: Case, name: str) -> None:
     """Source: ``case.source`` (named beside each case above)."""
@@ -209,7 +212,7 @@ def test_published_implied_vol(case_id: str, call_price: float, spot: float, str
 
 
 def test_bs2002_table_as_one_array() -> None:
-    """The same 2002 rows (Haug 2007, from memory) valued in one call agree with the scalar calls."""
+    """The 2002 rows (Haug 2007, from memory) valued in one call agree with the printed values."""
     s, t, v, printed = zip(*BS2002_ROWS, strict=True)
     got = price(True, np.array(s), 100.0, np.array(t), 0.10, 0.0, np.array(v), american=True)
     want = np.array([float(p) for p in printed])
