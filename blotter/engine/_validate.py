@@ -7,7 +7,14 @@ from dataclasses import dataclass
 import numpy as np
 
 
-def _quick_ok(arr: np.ndarray, rule: str) -> bool:
+def omega(is_call: np.ndarray) -> np.ndarray:
+    """+1.0 for calls and −1.0 for puts (bool input), or the input when already ±1 floats."""
+    if is_call.dtype == np.bool_:
+        return np.where(is_call, 1.0, -1.0)
+    return is_call
+
+
+def quick_ok(arr: np.ndarray, rule: str) -> bool:
     """True when every element passes ``rule``, by two reductions (NaN makes min and max NaN)."""
     lo = float(arr.min())
     hi = float(arr.max())
@@ -30,7 +37,7 @@ def as_float_array(name: str, value: object, rule: str) -> np.ndarray:
         arr = np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError) as exc:
         raise ValueError(f"{name} must be numeric: {exc}") from None
-    if arr.size and _quick_ok(arr, rule):
+    if arr.size and quick_ok(arr, rule):
         return arr
     if rule == "positive":
         ok = arr > 0.0

@@ -30,6 +30,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from blotter.engine import black
+from blotter.engine._validate import omega
 from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_weighted_sum
 
 VOL_FLOOR = 1e-3
@@ -283,7 +284,7 @@ def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r
 def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
     """Fill American prices for one chunk; ``ins`` = (ω, S, K, T, r, b, σ), ``outs`` = (price,)."""
     (price,) = outs
-    cols = np.broadcast_arrays(*ins, price)[:-1]
+    cols = np.broadcast_arrays(omega(ins[0]), *ins[1:], price)[:-1]
     price[:] = american_value(*cols)
 
 
@@ -292,7 +293,7 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
 
     One call of ``american_value`` evaluates all 15 bumped copies of the chunk together.
     """
-    w, s, k, t, r, b, v = np.broadcast_arrays(*ins, outs[0])[:-1]
+    w, s, k, t, r, b, v = np.broadcast_arrays(omega(ins[0]), *ins[1:], outs[0])[:-1]
     price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
     hs = STEPS["spot_rel"] * s
     hv = STEPS["vol"]

@@ -19,6 +19,8 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.special import ndtr
 
+from blotter.engine._validate import omega
+
 YEARS_FLOOR = 1e-20
 """Years to expiry below which a live option is evaluated at this time (about 3e-13 s)."""
 VOL_SQRT_T_FLOOR = 1e-30
@@ -64,9 +66,11 @@ def _d1_d2(s: np.ndarray, k: np.ndarray, te: np.ndarray, b: np.ndarray,
 def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
     """Fill price and nine greeks (``results.GREEK_NAMES`` order) for one chunk.
 
-    ``ins`` = (ω, S, K, T, r, b, σ), each length m or 0-d; ``outs`` = ten length-m buffers.
+    ``ins`` = (is_call or ω, S, K, T, r, b, σ), each length m or 0-d; ``outs`` = ten length-m
+    buffers.
     """
     w, s, k, t, r, b, vol = ins
+    w = omega(w)
     price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
     m = price.shape[0]
     te = np.maximum(t, YEARS_FLOOR, out=np.empty(m))
@@ -134,6 +138,7 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
 def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
     """Fill the price only for one chunk; ``ins`` as in ``greeks_kernel``, ``outs`` = (price,)."""
     w, s, k, t, r, b, vol = ins
+    w = omega(w)
     (price,) = outs
     m = price.shape[0]
     te = np.maximum(t, YEARS_FLOOR, out=np.empty(m))

@@ -17,6 +17,7 @@ from scipy.special import ndtr
 
 from blotter.engine import american, black
 from blotter.engine._chunks import Kernel
+from blotter.engine._validate import omega
 from blotter.engine.results import (
     IV_ABOVE_UPPER_BOUND,
     IV_BELOW_INTRINSIC,
@@ -66,7 +67,8 @@ def make_kernel(is_american: bool) -> Kernel:
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         vol_out, status_out = outs
         m = vol_out.shape[0]
-        target, w, s, k, t, r, b = (np.broadcast_to(a, (m,)) for a in ins)
+        target, w, s, k, t, r, b = (np.broadcast_to(a, (m,)) for a in
+                                    (ins[0], omega(ins[1]), *ins[2:]))
         vol_out[:] = np.nan
         status_out[:] = IV_NOT_CONVERGED
         live = t > 0.0

@@ -160,3 +160,28 @@ def test_bivariate_normal_matches_scipy() -> None:
         want = mvn.cdf(np.column_stack([h, k]))
         got = bvn_cdf(h, k, sign)
         assert np.max(np.abs(got - want)) <= 1e-8
+
+
+def test_large_inputs_are_checked_inside_the_chunks() -> None:
+    """Books large enough for in-chunk checks report the same first bad field and index."""
+    n = 200_000
+    spot = np.full(n, 100.0)
+    strike = np.full(n, 100.0)
+    strike[150_001] = -2.0
+    for fn in (price_greeks, price):
+        with pytest.raises(ValueError) as err:
+            fn(True, spot, strike, 1.0, 0.05, 0.05, 0.2)
+        assert str(err.value) == "strike must be > 0: strike[150001] = -2.0"
+    spot[190_000] = np.nan          # an earlier field wins, as for small inputs
+    with pytest.raises(ValueError) as err:
+        price(True, spot, strike, 1.0, 0.05, 0.05, 0.2)
+    assert str(err.value) == "spot must be > 0: spot[190000] = nan"
+    vols = np.full((2, n // 2), 0.2)
+    vols[1, 7] = -0.5
+    with pytest.raises(ValueError) as err:
+        price(True, 100.0, 100.0, 1.0, 0.05, 0.05, vols)
+    assert str(err.value) == "vol must be >= 0: vol[1, 7] = -0.5"
+    prices = np.full(n, 5.0)
+    prices[-1] = np.inf
+    with pytest.raises(ValueError, match=r"price must be finite: price\[199999\] = inf"):
+        implied_vol(prices, True, 100.0, 100.0, 1.0, 0.05, 0.05)
