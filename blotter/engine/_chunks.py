@@ -46,13 +46,19 @@ def run_chunked(kernel: Kernel, size: int, inputs: Sequence[np.ndarray],
 
     0-d inputs are passed whole to every chunk. Chunks run on the thread pool when there are
     two or more of them; inputs of at least ``2 × min_split`` elements but fewer than one chunk
-    per worker are cut into one chunk per worker. ``check(start, stop)``, when given, vets
+    per worker are cut into one chunk per worker, and larger ones into equal chunks whose number
+    is a multiple of the workers. ``check(start, stop)``, when given, vets
     each chunk's inputs while they are in cache; a chunk that fails is skipped and the call
     returns False (True otherwise), so the caller can report the bad input.
     """
     failed: list[int] = []
     if size < chunk * _WORKERS and size >= 2 * min_split:
         chunk = max(min_split, -(-size // _WORKERS))
+    elif size > chunk and _WORKERS > 1:
+        # Equal chunks, as many as a multiple of the workers, so no core idles at the end.
+        n_chunks = -(-size // chunk)
+        n_chunks += -n_chunks % _WORKERS
+        chunk = -(-size // n_chunks)
 
     def one(start: int) -> None:
         if failed:
