@@ -74,14 +74,14 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
     price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
     m = price.shape[0]
     te = np.maximum(t, YEARS_FLOOR, out=np.empty(m))
+    neg_te = np.negative(te, out=np.empty(m))
     sqrt_t = np.sqrt(te)
     vs = np.multiply(vol, sqrt_t, out=np.empty(m))
     np.maximum(vs, VOL_SQRT_T_FLOOR, out=vs)
-    br = np.subtract(b, r)
-    cf = np.multiply(br, te, out=np.empty(m))
+    rb = np.subtract(r, b)
+    cf = np.multiply(rb, neg_te, out=np.empty(m))
     np.exp(cf, out=cf)                                           # e^{(b−r)T}
-    kd = np.multiply(r, te, out=np.empty(m))
-    np.negative(kd, out=kd)
+    kd = np.multiply(r, neg_te, out=np.empty(m))
     np.exp(kd, out=kd)
     kd *= k                                                      # K e^{−rT}
     d1, d2 = _d1_d2(s, k, te, b, vs, m)
@@ -107,24 +107,21 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
     gamma /= s
     np.multiply(cpdf, s, out=vega)
     vega *= sqrt_t
-    # theta = −vega σ / (2T) − (b−r) ω S e^{(b−r)T} N(ω d1) − r ω K e^{−rT} N(ω d2)
+    # theta = −vega σ / (2T) + (r−b) ω S e^{(b−r)T} N(ω d1) − r ω K e^{−rT} N(ω d2)
+    neg_half_t = np.divide(0.5, neg_te, out=neg_te)              # −1 / (2T)
     np.multiply(vega, vol, out=theta)
-    theta /= te
-    theta *= -0.5
-    theta -= np.multiply(br, a, out=cf)
+    theta *= neg_half_t
+    theta += np.multiply(rb, a, out=cf)
     theta -= np.multiply(r, bb, out=cf)
     np.multiply(price, te, out=rho)
     np.negative(rho, out=rho)
     np.multiply(a, te, out=crho)
-    # charm = −(b−r) delta − e^{(b−r)T} n(d1) (b/(σ√T) − d2/(2T))
+    # charm = (r−b) delta − e^{(b−r)T} n(d1) (b/(σ√T) − d2/(2T))
     u = np.divide(b, vs, out=bb)
-    half_d2_t = np.divide(d2, te, out=kd)
-    half_d2_t *= 0.5
-    u -= half_d2_t
+    u += np.multiply(d2, neg_half_t, out=kd)
     u *= cpdf
-    np.multiply(br, delta, out=charm)
-    charm += u
-    np.negative(charm, out=charm)
+    np.multiply(rb, delta, out=charm)
+    charm -= u
     # vanna = −e^{(b−r)T} n(d1) d2 / σ,  volga = vega d1 d2 / σ, with 1/σ = √T / (σ√T)
     d2_vol = np.divide(sqrt_t, vs, out=vs)
     d2_vol *= d2
