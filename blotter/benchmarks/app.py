@@ -28,10 +28,8 @@ from blotter.benchmarks import Result, result_from
 FIXED_NOW = datetime(2026, 12, 1, 15, 0, tzinfo=timezone.utc)
 """Valuation time of the random books (a Tuesday, 10:00 in New York)."""
 
-MOVES = ("spot -1%", "spot -2%", "spot -3%", "spot -3% vol +1", "spot -3% vol +2",
-         "spot -2% vol +2", "spot -1% vol +2", "spot +1% vol +2", "spot +2% vol +2",
-         "spot +2% vol +1", "spot +2%")
-"""Lines typed into the bar, one keystroke apart where possible (same day roll throughout)."""
+MOVES = tuple(f"spot {s:+d}% vol +{v}" for s in (-3, -2, -1, 1, 2, 3) for v in (1, 2, 3))
+"""Lines typed into the bar; the timed keystroke is the last digit, so each gives a new move."""
 
 
 def random_book(n: int, n_underlyings: int = 40, seed: int = 7) -> tuple[Any, Any]:
@@ -99,6 +97,8 @@ async def _keystrokes(n: int, repeat: int) -> tuple[np.ndarray, float]:
             await pilot.press(line[-1])
             while len(app.move_painted) == before or app.move_painted[-1][0] != app.move_seq:
                 await pilot.pause()
+                if time.perf_counter() - t0 > 30:
+                    raise RuntimeError(f"no repaint for {line!r} within 30 s")
             if k:  # the first keystroke warms caches
                 seconds.append(app.move_painted[-1][1] - t0)
             await _settle(app, pilot)

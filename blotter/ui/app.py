@@ -131,7 +131,8 @@ class BlotterApp(App[None]):
             self.query_one(f"#{name}-pane").set_class(name == self.pane, "-current")
 
     # -- loading --------------------------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="load", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="load", exit_on_error=False,
+          description="read and value the book")
     def load_book(self) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``."""
         from blotter import risk
@@ -213,7 +214,8 @@ class BlotterApp(App[None]):
         self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
 
     # -- the store's change check ---------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="watch", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="watch", exit_on_error=False,
+          description="watch the book file for commits")
     def watch_store(self, interval_s: float) -> None:
         """Every ``interval_s`` ask SQLite's data version through this thread's own Store."""
         from blotter import store
@@ -283,16 +285,22 @@ class BlotterApp(App[None]):
                 and move.describe() == self.move.describe()):
             bar.show_ok(move.describe(), text)   # same move as shown (spacing, case): keep it
             return
-        self.apply_move(self.move_seq, self.state, text, move)
+        # Debounce on the trailing edge only: a keystroke with no revaluation in flight is
+        # applied at once; one that arrives mid-revaluation waits, so a burst collapses to one.
+        busy = any(w.group == "move" and not w.is_finished for w in self.workers)
+        self.apply_move(self.move_seq, self.state, text, move,
+                        self.settings.debounce_ms / 1000.0 if busy else 0.0)
 
-    @work(thread=True, exclusive=True, group="move", exit_on_error=False)
-    def apply_move(self, seq: int, state: data.BookState, text: str, move: Any) -> None:
-        """Wait out the debounce, then revalue under ``move`` unless a newer keystroke came."""
+    @work(thread=True, exclusive=True, group="move", exit_on_error=False,
+          description="revalue under the bar's move")
+    def apply_move(self, seq: int, state: data.BookState, text: str, move: Any,
+                   wait_s: float) -> None:
+        """Wait ``wait_s`` (the debounce), then revalue under ``move`` unless a newer keystroke came."""
         from blotter import scenario
 
         worker = get_current_worker()
-        if self.settings.debounce_ms:
-            time.sleep(self.settings.debounce_ms / 1000.0)
+        if wait_s:
+            time.sleep(wait_s)
         if worker.is_cancelled:
             return
         t0 = time.perf_counter()
@@ -342,7 +350,8 @@ class BlotterApp(App[None]):
     def start_ladder(self, state: data.BookState, days: float) -> None:
         self.compute_ladder(state, days)
 
-    @work(thread=True, exclusive=True, group="ladder", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="ladder", exit_on_error=False,
+          description="spot × vol ladder")
     def compute_ladder(self, state: data.BookState, days: float) -> None:
         """The spot × vol ladder with the bar's day roll."""
         from blotter import scenario
@@ -376,7 +385,8 @@ class BlotterApp(App[None]):
         self.compute_profile(self.state, self._roll_days(self.move), self.greek, self.axis,
                              rows, label)
 
-    @work(thread=True, exclusive=True, group="profile", exit_on_error=False)
+    @work(thread=True, exclusive=True, group="profile", exit_on_error=False,
+          description="profile curves")
     def compute_profile(self, state: data.BookState, days: float, greek: str, axis: str,
                         rows: np.ndarray | None, label: str) -> None:
         """Curves for the Profile pane (see ``data.profile``)."""

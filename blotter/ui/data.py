@@ -212,7 +212,7 @@ def marks_age(marks_as_of: datetime, now: datetime, tz: Any, calendar_name: str 
     return MarksAge(words=fmt.age_words(age), stale=bool(stale), last_close=last_close)
 
 
-@dataclass
+@dataclass(repr=False)
 class BookState:
     """One load of the book: what it is, where from, the base valuation and the pane's rows."""
 
@@ -229,6 +229,10 @@ class BookState:
     mark_kind: str
     seconds: float = 0.0
     notes: tuple[str, ...] = field(default=())
+
+    def __repr__(self) -> str:   # short: the arrays inside are large
+        return (f"BookState(book_seq={self.book_seq}, db_path={self.db_path!r}, "
+                f"positions={len(self.valuation)}, data_version={self.data_version})")
 
 
 @dataclass(frozen=True)

@@ -31,7 +31,7 @@ class LoadFailed(Message):
     reason: str
 
 
-@dataclass
+@dataclass(repr=False)
 class MoveApplied(Message):
     """The result of the bar's move; ``seq`` counts the bar's edits, ``book_seq`` the loads."""
 
@@ -45,6 +45,9 @@ class MoveApplied(Message):
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, MoveApplied)
 
+    def __repr__(self) -> str:   # short: the result holds per-position arrays
+        return f"MoveApplied(seq={self.seq}, text={self.text!r})"
+
 
 @dataclass
 class MoveFailed(Message):
@@ -54,7 +57,7 @@ class MoveFailed(Message):
     reason: str
 
 
-@dataclass
+@dataclass(repr=False)
 class LadderReady(Message):
     """The spot × vol ladder for the bar's day roll."""
 
@@ -64,6 +67,9 @@ class LadderReady(Message):
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)
+
+    def __repr__(self) -> str:
+        return f"LadderReady(book_seq={self.book_seq}, days={self.days})"
 
 
 @dataclass

@@ -84,19 +84,17 @@ class MovePane(Vertical):
         err = getattr(row, f"error_{n}")
         err_pct = getattr(row, f"error_{n}_pct")
         flagged = error_flagged(row.full, err, self.alerts)
-        err_text = Text(fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " "))
+        err_text: str | Text = fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " ")
         if flagged:
-            err_text.stylize("bold")
+            err_text = Text(err_text, style="bold")
         cells: list[str | Text] = [
             fmt.money(row.full, MONEY_WIDTH), fmt.money(est, MONEY_WIDTH), err_text,
             fmt.pct(err_pct, 7),
         ]
         for key, _ in TERMS:
             value = row.terms.get(key, float("nan"))
-            text = Text(fmt.money(value, TERM_WIDTH))
-            if n == 1 and key in SECOND_ORDER_TERMS:
-                text.stylize("dim")
-            cells.append(text)
+            text = fmt.money(value, TERM_WIDTH)
+            cells.append(Text(text, style="dim") if n == 1 and key in SECOND_ORDER_TERMS else text)
         return cells
 
     def show(self, text: str, summary: str, result: Any) -> None:
