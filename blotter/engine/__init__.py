@@ -15,7 +15,11 @@ otherwise generalized Black–Scholes–Merton. Greeks: ``rho`` = ∂V/∂r hold
 option's usual rho is ``rho + carry_rho`` and a futures option's is ``rho``.
 
 Invalid inputs (spot or strike <= 0, vol < 0, any NaN or infinity) raise one ``ValueError`` that
-names the field and its first bad index, and compute nothing.
+names the field and its first bad index (e.g. ``strike must be > 0: strike[17] = -5.0``); no
+output is returned and the inputs are not modified.
+
+Books are evaluated in chunks on a pool of one thread per core (``_chunks``); the functions are
+safe to call from several threads at once. Accuracy by model: ``ACCURACY.md`` beside this file.
 """
 
 from __future__ import annotations
@@ -64,7 +68,7 @@ __all__ = [
 _AMERICAN_CHUNK = 256
 """Chunk for American greeks (15 bumped copies of 256 rows are evaluated together); measured
 fastest of 64–512 on the 2-core machine."""
-_AMERICAN_PRICE_CHUNK = 1024
+_AMERICAN_PRICE_CHUNK = 4096
 """Chunk for American prices and implied vols."""
 _IV_CHUNK = 16384
 """Chunk for European implied vols: large, so the few slow elements cost few Python loops."""
