@@ -289,11 +289,46 @@ def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
 
 
 def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-    """Fill American price and nine greeks by central differences, for one chunk.
+    """Fill American price and nine greeks for one chunk.
 
-    One call of ``american_value`` evaluates all 15 bumped copies of the chunk together.
+    Rows never exercised early (call form b > r with r >= 0 for calls, r < 0 with b <= r for
+    puts; no floor at intrinsic binding) are European in a neighbourhood of their inputs, so
+    they take the analytic European greeks. The others take central differences, with one call
+    of ``american_value`` evaluating all 15 bumped copies together.
     """
     w, s, k, t, r, b, v = np.broadcast_arrays(omega(ins[0]), *ins[1:], outs[0])[:-1]
+    euro_rows = _european_rows(w, s, k, t, r, b, v)
+    if euro_rows.any():
+        black.greeks_kernel((w, s, k, t, r, b, v), outs)
+        fd = np.flatnonzero(~euro_rows)
+        if fd.size:
+            sub = [np.empty(fd.size) for _ in outs]
+            _difference_greeks([a[fd] for a in (w, s, k, t, r, b, v)], sub)
+            for o, so in zip(outs, sub, strict=True):
+                o[fd] = so
+        return
+    _difference_greeks([w, s, k, t, r, b, v], outs)
+
+
+def _european_rows(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
+                   b: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """Live rows whose American value is the European one for all nearby inputs."""
+    calls = w > 0
+    no_early = np.where(calls, (b > r) & (r >= 0.0), (r < 0.0) & (b <= r))
+    live = (t > 0.0) & no_early
+    if not live.any():
+        return live
+    # The European value must also stay clear of intrinsic, where the floor takes over.
+    euro = np.empty(s.shape)
+    black.price_kernel((w, s, k, t, r, b, v), (euro,))
+    clear = euro > np.maximum(w * (s - k), 0.0) + 1e-6 * k
+    out: np.ndarray = live & clear
+    return out
+
+
+def _difference_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+    """Central-difference greeks of ``american_value`` (steps ``STEPS``), arrays of one shape."""
+    w, s, k, t, r, b, v = ins
     price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
     hs = STEPS["spot_rel"] * s
     hv = STEPS["vol"]
