@@ -19,7 +19,8 @@ Rules applied on top of the formula, per row:
   still uses the true vol).
 
 Greeks are central differences of this price with the steps in ``STEPS``; vanna and charm use
-the seven-point mixed-difference formula, which reuses the one-dimensional bumps.
+the seven-point mixed-difference formula, which reuses the one-dimensional bumps. Rows that are
+never exercised early near their inputs take the analytic European greeks instead.
 """
 
 from __future__ import annotations
