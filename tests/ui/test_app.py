@@ -10,12 +10,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 from rich.console import Console
-from textual.widgets import DataTable
 
 from blotter import risk, scenario, store
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.widgets.book_table import BookTable
-from blotter.ui.widgets.move_pane import TERMS
+from blotter.ui.widgets.move_pane import COLUMNS, TERMS, MovePane
 from blotter.ui.widgets.whatif_bar import MoveInput
 
 from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
@@ -53,22 +52,25 @@ async def test_bar_shows_scenario_numbers(demo_db: Path, size: tuple[int, int]) 
     async with app.run_test(size=size) as pilot:
         await settle(app, pilot)
         await type_move(app, pilot, MOVE)
-        table = app.query_one("#move-table", DataTable)
+        pane = app.query_one(MovePane)
         rows = {"total": expected.total} | {f"u|{r.label}": r for r in expected.by_underlying}
-        assert [str(k.value) for k in table.rows] == list(rows)
+        assert pane.row_keys == list(rows)
+        grid = str(app.query_one("#move-grid").render())
         for key, row in rows.items():
-            assert shown_number(table.get_cell(key, "full")) == pytest.approx(row.full, abs=0.5)
-            assert shown_number(table.get_cell(key, "estimate")) == pytest.approx(row.estimate_2, abs=0.5)
-            assert shown_number(table.get_cell(key, "error")) == pytest.approx(row.error_2, abs=0.5)
+            cells = {c: pane.cells[(key, c)] for c in COLUMNS}
+            assert "".join(cells.values()) in grid       # what is drawn is these cells
+            assert shown_number(cells["full"]) == pytest.approx(row.full, abs=0.5)
+            assert shown_number(cells["estimate"]) == pytest.approx(row.estimate_2, abs=0.5)
+            assert shown_number(cells["error"]) == pytest.approx(row.error_2, abs=0.5)
             if np.isfinite(row.error_2_pct):
-                assert shown_number(table.get_cell(key, "error_pct")) == pytest.approx(row.error_2_pct, abs=0.05)
+                assert shown_number(cells["error_pct"]) == pytest.approx(row.error_2_pct, abs=0.05)
             for term, _ in TERMS:
-                assert shown_number(table.get_cell(key, term)) == pytest.approx(row.terms[term], abs=0.5)
+                assert shown_number(cells[term]) == pytest.approx(row.terms[term], abs=0.5)
         # The first-order view shows scenario's first-order estimate and error.
         await pilot.press("f6")
         await pilot.pause()
-        assert shown_number(table.get_cell("total", "estimate")) == pytest.approx(expected.total.estimate_1, abs=0.5)
-        assert shown_number(table.get_cell("total", "error")) == pytest.approx(expected.total.error_1, abs=0.5)
+        assert shown_number(pane.cells[("total", "estimate")]) == pytest.approx(expected.total.estimate_1, abs=0.5)
+        assert shown_number(pane.cells[("total", "error")]) == pytest.approx(expected.total.error_1, abs=0.5)
         assert "1st-order" in str(app.query_one("#move-pane").border_title)
 
 
@@ -76,8 +78,8 @@ async def test_bad_line_keeps_last_result(demo_app: BlotterApp) -> None:
     async with demo_app.run_test(size=(80, 24)) as pilot:
         await settle(demo_app, pilot)
         await type_move(demo_app, pilot, "spot -2%")
-        table = demo_app.query_one("#move-table", DataTable)
-        good = str(table.get_cell("total", "full"))
+        pane = demo_app.query_one(MovePane)
+        good = pane.cells[("total", "full")]
         result = demo_app.result
         await pilot.press(*" vol +x")
         await settle(demo_app, pilot)
@@ -85,7 +87,7 @@ async def test_bad_line_keeps_last_result(demo_app: BlotterApp) -> None:
         assert message.startswith("✗") and "'+x'" in message
         assert "last good line" in str(demo_app.query_one("#move-pane").border_title)
         assert demo_app.result is result
-        assert str(table.get_cell("total", "full")) == good
+        assert pane.cells[("total", "full")] == good
         assert demo_app.query_one("WhatIfBar").has_class("-bad")
 
 

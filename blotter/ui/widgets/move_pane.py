@@ -1,7 +1,9 @@
 """The Move pane: for the bar's move, per underlying and in total, full change, estimate, error.
 
 Numbers are shown as ``blotter.scenario.apply_move`` returns them; the pane only formats them and
-marks an error beyond the alert threshold with ``!`` beside the number (colour is extra).
+marks an error beyond the alert threshold with ``!`` beside the number (bold as well). The grid is
+one block of text rather than a cell-per-widget table, so a keystroke repaints it in a few
+milliseconds even with many underlyings; it scrolls sideways when the terms do not fit.
 """
 
 from __future__ import annotations
@@ -11,8 +13,8 @@ from typing import Any
 
 from rich.text import Text
 from textual.app import ComposeResult
-from textual.containers import Vertical
-from textual.widgets import DataTable, Static
+from textual.containers import ScrollableContainer, Vertical
+from textual.widgets import Static
 
 from blotter.config import Alerts
 from blotter.ui import fmt
@@ -27,10 +29,15 @@ SECOND_ORDER_TERMS = frozenset({"gamma", "volga", "vanna"})
 """Terms that only the second-order estimate includes."""
 
 FLAG = "!"
-"""Marks an estimate whose error is beyond the alert threshold (shown with colour as well)."""
+"""Marks an estimate whose error is beyond the alert threshold (shown bold as well)."""
 
-MONEY_WIDTH = 10
-TERM_WIDTH = 9
+LABEL_WIDTH = 10
+MONEY_WIDTH = 11
+PCT_WIDTH = 8
+TERM_WIDTH = 10
+
+COLUMNS = ("label", "full", "estimate", "error", "error_pct") + tuple(k for k, _ in TERMS)
+"""Column keys of the grid, left to right."""
 
 
 def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
@@ -41,7 +48,7 @@ def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
 
 
 class MovePane(Vertical):
-    """Title line, the table of rows, and a line listing expiring positions and pin risk."""
+    """The grid of rows (total first, then each underlying) and a line listing expiring positions."""
 
     def __init__(self, alerts: Alerts, order: int) -> None:
         super().__init__(id="move-pane", classes="pane")
@@ -49,53 +56,53 @@ class MovePane(Vertical):
         self.order = order
         self.result: Any = None
         self.text = ""
+        self._summary = ""
         self.stale_line = False   # the bar holds a line that does not parse
+        self.cells: dict[tuple[str, str], str] = {}   # (row key, column) -> text shown
+        self.row_keys: list[str] = []
         self.border_title = "Move: type a move in the bar, e.g. spot -3% vol +2 days 1"
 
     def compose(self) -> ComposeResult:
-        yield DataTable(id="move-table", cursor_type="row", fixed_columns=1, show_cursor=False)
+        with ScrollableContainer(id="move-scroll"):
+            yield Static(self._header(), id="move-grid")
         yield Static("", id="move-expiring")
 
     def on_mount(self) -> None:
         self.query_one("#move-expiring", Static).display = False
-        self._setup()
 
-    def _setup(self) -> None:
-        table = self.query_one("#move-table", DataTable)
-        table.add_column("underlying", key="label", width=10)
-        table.add_column(Text("full", justify="right"), key="full", width=MONEY_WIDTH)
-        table.add_column(Text("est", justify="right"), key="estimate", width=MONEY_WIDTH)
-        table.add_column(Text("error", justify="right"), key="error", width=MONEY_WIDTH + 1)
-        table.add_column(Text("err %", justify="right"), key="error_pct", width=7)
-        for key, header in TERMS:
-            table.add_column(Text(header, justify="right"), key=key, width=TERM_WIDTH)
-        self._set_headers()
-
-    def _set_headers(self) -> None:
-        table = self.query_one("#move-table", DataTable)
+    def _header(self) -> Text:
         n = self.order
-        for key, label in (("estimate", f"est {n}"), ("error", f"error {n}"), ("error_pct", "err %")):
-            table.columns[key].label = Text(label, justify="right")  # type: ignore[index]
-        table.refresh()
+        head = (f"{'underlying':<{LABEL_WIDTH}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
+                f"{f'error {n}':>{MONEY_WIDTH + 1}}{'err %':>{PCT_WIDTH}}"
+                + "".join(f"{h:>{TERM_WIDTH}}" for _, h in TERMS))
+        return Text(head, style="bold")
 
-    def _cells(self, row: Any) -> list[str | Text]:
+    def _row(self, key: str, row: Any) -> Text:
         n = self.order
         est = getattr(row, f"estimate_{n}")
         err = getattr(row, f"error_{n}")
         err_pct = getattr(row, f"error_{n}_pct")
         flagged = error_flagged(row.full, err, self.alerts)
-        err_text: str | Text = fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " ")
-        if flagged:
-            err_text = Text(err_text, style="bold")
-        cells: list[str | Text] = [
-            fmt.money(row.full, MONEY_WIDTH), fmt.money(est, MONEY_WIDTH), err_text,
-            fmt.pct(err_pct, 7),
-        ]
-        for key, _ in TERMS:
-            value = row.terms.get(key, float("nan"))
-            text = fmt.money(value, TERM_WIDTH)
-            cells.append(Text(text, style="dim") if n == 1 and key in SECOND_ORDER_TERMS else text)
-        return cells
+        label = "Σ total" if key == "total" else str(row.label)
+        values = {
+            "label": label[:LABEL_WIDTH].ljust(LABEL_WIDTH),
+            "full": fmt.money(row.full, MONEY_WIDTH),
+            "estimate": fmt.money(est, MONEY_WIDTH),
+            "error": fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " "),
+            "error_pct": fmt.pct(err_pct, PCT_WIDTH),
+        }
+        for term, _ in TERMS:
+            values[term] = fmt.money(row.terms.get(term, float("nan")), TERM_WIDTH)
+        line = Text(style="bold" if key == "total" else "")
+        for column in COLUMNS:
+            self.cells[(key, column)] = values[column]
+            style = ""
+            if column == "error" and flagged:
+                style = "bold reverse"
+            elif n == 1 and column in SECOND_ORDER_TERMS:
+                style = "dim"
+            line.append(values[column], style=style)
+        return line
 
     def show(self, text: str, summary: str, result: Any) -> None:
         """Show the result of ``text`` (parsed as ``summary``)."""
@@ -105,27 +112,20 @@ class MovePane(Vertical):
         self.repaint()
 
     def repaint(self) -> None:
-        """Lay out the current result again (after the order toggle)."""
+        """Lay out the current result again (after the order toggle or a bad line)."""
         if self.result is None:
             return
         result = self.result
-        table = self.query_one("#move-table", DataTable)
-        self._set_headers()
-        keys = ["total"] + [f"u|{r.label}" for r in result.by_underlying]
-        rows = [result.total] + list(result.by_underlying)
-        current = [str(k.value) for k in table.rows]
-        if current == keys:
-            for key, row in zip(keys, rows, strict=True):
-                for col, value in zip(["full", "estimate", "error", "error_pct"] + [k for k, _ in TERMS],
-                                      self._cells(row), strict=True):
-                    table.update_cell(key, col, value, update_width=False)
-        else:
-            table.clear()
-            for key, row in zip(keys, rows, strict=True):
-                label = Text("Σ total", style="bold") if key == "total" else Text(row.label)
-                table.add_row(label, *self._cells(row), key=key)
+        rows = [("total", result.total)] + [(f"u|{r.label}", r) for r in result.by_underlying]
+        self.cells = {}
+        same_shape = self.row_keys == [k for k, _ in rows]
+        self.row_keys = [k for k, _ in rows]
+        grid = Text("\n").join([self._header()] + [self._row(k, r) for k, r in rows])
+        grid.no_wrap = True
+        # Same rows, fixed-width columns: the size is unchanged, so skip the layout pass.
+        self.query_one("#move-grid", Static).update(grid, layout=not same_shape)
         flagged = sum(error_flagged(r.full, getattr(r, f"error_{self.order}"), self.alerts)
-                      for r in rows)
+                      for _, r in rows)
         order = "1st" if self.order == 1 else "2nd"
         title = (f"Move: {self._summary} ─ {order}-order estimate ─ {FLAG} |error| > "
                  f"{self.alerts.error_pct:g}% & > {self.alerts.error_abs:,.0f}")
@@ -163,4 +163,6 @@ class MovePane(Vertical):
         """Switch between first- and second-order estimates; returns the new order."""
         self.order = 1 if self.order == 2 else 2
         self.repaint()
+        if self.result is None:
+            self.query_one("#move-grid", Static).update(self._header())
         return self.order
