@@ -40,10 +40,10 @@ class ConfigError(ValueError):
 class Alerts:
     """Thresholds the app marks with a symbol as well as colour. Money in the book's currency."""
 
-    error_pct: float = 10.0     # |full − estimate| above this % of |full| is flagged
-    error_abs: float = 100.0    # ... and only when |full − estimate| is above this amount
-    delta_cash: float = 0.0     # book |Δ $| limit; 0 = no limit
-    vega_pt: float = 0.0        # book |vega| limit per vol point; 0 = no limit
+    error_pct: float = 10.0  # |full − estimate| above this % of |full| is flagged
+    error_abs: float = 100.0  # ... and only when |full − estimate| is above this amount
+    delta_cash: float = 0.0  # book |Δ $| limit; 0 = no limit
+    vega_pt: float = 0.0  # book |vega| limit per vol point; 0 = no limit
 
 
 @dataclass(frozen=True)
@@ -56,9 +56,9 @@ class Settings:
     debounce_ms: float = 15.0
     ladder_spot_pcts: tuple[float, ...] = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
     ladder_vol_pts: tuple[float, ...] = (-5.0, -2.0, 0.0, 2.0, 5.0)
-    profile_spot_pct: float = 15.0      # the profile's spot axis runs ± this many %
-    profile_points: int = 31            # spot steps across the profile
-    profile_days: int = 30              # the profile's days-forward axis runs 0..this
+    profile_spot_pct: float = 15.0  # the profile's spot axis runs ± this many %
+    profile_points: int = 31  # spot steps across the profile
+    profile_days: int = 30  # the profile's days-forward axis runs 0..this
     alerts: Alerts = field(default_factory=Alerts)
     keymap: dict[str, str] = field(default_factory=dict)
     read_only: bool = False
@@ -71,7 +71,7 @@ class Settings:
 
 
 ENV_PREFIX = "BLOTTER_"
-"""Environment variables ``BLOTTER_<FIELD>`` set top-level settings; ``BLOTTER_ALERT_<FIELD>`` alerts;
+"""Variables ``BLOTTER_<FIELD>`` set top-level settings; ``BLOTTER_ALERT_<FIELD>`` alerts;
 ``BLOTTER_KEYS="help=f1,question_mark;quit=q"`` the keymap."""
 
 
@@ -108,12 +108,14 @@ def _coerce(where: str, name: str, default: Any, value: Any) -> Any:
             items = value.split(",") if isinstance(value, str) else list(value)
             return tuple(float(v) for v in items)
     except (TypeError, ValueError):
-        raise ConfigError(f"{where}: {name} = {value!r} is not a valid {type(default).__name__}") from None
+        raise ConfigError(
+            f"{where}: {name} = {value!r} is not a valid {type(default).__name__}"
+        ) from None
     raise ConfigError(f"{where}: {name} cannot be set here")
 
 
 def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Settings:
-    plain = {f.name: f for f in fields(Settings)} .keys() - {"alerts", "keymap"}
+    plain = {f.name: f for f in fields(Settings)}.keys() - {"alerts", "keymap"}
     changes: dict[str, Any] = {}
     alerts = settings.alerts
     keymap = dict(settings.keymap)
@@ -125,8 +127,13 @@ def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Setting
             alert_changes = {}
             for a_name, a_value in value.items():
                 if a_name not in alert_names:
-                    raise ConfigError(f"{where}: unknown alert {a_name!r} (known: {', '.join(sorted(alert_names))})")
-                alert_changes[a_name] = _coerce(where, f"alerts.{a_name}", getattr(alerts, a_name), a_value)
+                    raise ConfigError(
+                        f"{where}: unknown alert {a_name!r} "
+                        f"(known: {', '.join(sorted(alert_names))})"
+                    )
+                alert_changes[a_name] = _coerce(
+                    where, f"alerts.{a_name}", getattr(alerts, a_name), a_value
+                )
             alerts = replace(alerts, **alert_changes)
         elif name == "keys":
             if not isinstance(value, Mapping):
@@ -146,7 +153,7 @@ def _from_env(env: Mapping[str, str]) -> dict[str, Any]:
     for var, value in env.items():
         if not var.startswith(ENV_PREFIX) or var in {"BLOTTER_DB", "BLOTTER_CONFIG"}:
             continue
-        name = var[len(ENV_PREFIX):].lower()
+        name = var[len(ENV_PREFIX) :].lower()
         if name == "keys":
             keys: dict[str, str] = {}
             for part in value.split(";"):
@@ -156,10 +163,10 @@ def _from_env(env: Mapping[str, str]) -> dict[str, Any]:
                         raise ConfigError(f"{var}: expected id=keys;id=keys, got {part!r}")
                     keys[binding_id.strip()] = keylist.strip()
             out["keys"] = keys
-        elif name == "tz":        # the calendar module's own variable names the same setting
+        elif name == "tz":  # the calendar module's own variable names the same setting
             out.setdefault("desk_tz", value)
         elif name.startswith("alert_"):
-            alerts[name[len("alert_"):]] = value
+            alerts[name[len("alert_") :]] = value
         elif name in plain:
             out[name] = value
     if "BLOTTER_DESK_TZ" in env:
@@ -175,7 +182,9 @@ def _validate(settings: Settings) -> Settings:
     try:
         ZoneInfo(settings.desk_tz)
     except (ZoneInfoNotFoundError, ValueError):
-        raise ConfigError(f"desk_tz {settings.desk_tz!r} is not a known time zone (e.g. America/New_York)") from None
+        raise ConfigError(
+            f"desk_tz {settings.desk_tz!r} is not a known time zone (e.g. America/New_York)"
+        ) from None
     if settings.estimate_order not in (1, 2):
         raise ConfigError(f"estimate_order must be 1 or 2, not {settings.estimate_order}")
     if settings.watch_interval_s < 0 or settings.debounce_ms < 0:
@@ -183,15 +192,20 @@ def _validate(settings: Settings) -> Settings:
     if not settings.ladder_spot_pcts or not settings.ladder_vol_pts:
         raise ConfigError("ladder_spot_pcts and ladder_vol_pts need at least one value each")
     if settings.profile_points < 3 or settings.profile_spot_pct <= 0 or settings.profile_days < 1:
-        raise ConfigError("profile_points >= 3, profile_spot_pct > 0 and profile_days >= 1 are needed")
+        raise ConfigError(
+            "profile_points >= 3, profile_spot_pct > 0 and profile_days >= 1 are needed"
+        )
     problems = check_keymap(settings.keymap)
     if problems:
         raise ConfigError("keymap: " + "; ".join(problems))
     return settings
 
 
-def load_settings(flags: Mapping[str, Any] | None = None, env: Mapping[str, str] | None = None,
-                  path: Path | None = None) -> Settings:
+def load_settings(
+    flags: Mapping[str, Any] | None = None,
+    env: Mapping[str, str] | None = None,
+    path: Path | None = None,
+) -> Settings:
     """Settings from defaults, then the TOML file, then ``BLOTTER_*`` variables, then ``flags``.
 
     ``flags`` holds typed values given on the command line (e.g. ``{"read_only": True}``); a flag

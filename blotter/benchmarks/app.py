@@ -17,7 +17,7 @@ import resource
 import sys
 import tempfile
 import time
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -25,7 +25,7 @@ import numpy as np
 
 from blotter.benchmarks import Result, result_from
 
-FIXED_NOW = datetime(2026, 12, 1, 15, 0, tzinfo=timezone.utc)
+FIXED_NOW = datetime(2026, 12, 1, 15, 0, tzinfo=UTC)
 """Valuation time of the random books (a Tuesday, 10:00 in New York)."""
 
 MOVES = tuple(f"spot {s:+d}% vol +{v}" for s in (-3, -2, -1, 1, 2, 3) for v in (1, 2, 3))
@@ -33,15 +33,20 @@ MOVES = tuple(f"spot {s:+d}% vol +{v}" for s in (-3, -2, -1, 1, 2, 3) for v in (
 
 
 def random_book(n: int, n_underlyings: int = 40, seed: int = 7) -> tuple[Any, Any]:
-    """An invented book of ``n`` option positions on ``n_underlyings`` fictitious names, and its marks."""
+    """An invented book of ``n`` options on ``n_underlyings`` fictitious names, and its marks."""
     from blotter.book import Book, Underlyings
     from blotter.market import Market, RateCurve, VolSurface
 
     rng = np.random.default_rng(seed)
     symbols = tuple(f"RND{i:02d}" for i in range(n_underlyings))
-    und = Underlyings(symbols=symbols, kinds=("stock",) * n_underlyings, currencies=("USD",) * n_underlyings,
-                      betas=rng.uniform(0.5, 1.5, n_underlyings), div_yields=rng.uniform(0, 0.03, n_underlyings),
-                      calendars=("NYSE",) * n_underlyings)
+    und = Underlyings(
+        symbols=symbols,
+        kinds=("stock",) * n_underlyings,
+        currencies=("USD",) * n_underlyings,
+        betas=rng.uniform(0.5, 1.5, n_underlyings),
+        div_yields=rng.uniform(0, 0.03, n_underlyings),
+        calendars=("NYSE",) * n_underlyings,
+    )
     spots = rng.uniform(20, 500, n_underlyings)
     uidx = rng.integers(0, n_underlyings, n)
     expiry_days = np.array([7, 14, 30, 60, 90, 180, 365, 730])
@@ -49,11 +54,21 @@ def random_book(n: int, n_underlyings: int = 40, seed: int = 7) -> tuple[Any, An
     exp_dates = start + rng.choice(expiry_days, n).astype("timedelta64[D]")
     expiries = exp_dates.astype("datetime64[s]") + np.timedelta64(21, "h")
     strikes = np.round(spots[uidx] * rng.uniform(0.7, 1.3, n), 0)
-    book = Book(name="RANDOM", underlyings=und, reference_index=None,
-                contract_ids=np.arange(1, n + 1), labels=tuple(f"pos{i}" for i in range(n)),
-                underlying_idx=uidx, is_option=np.ones(n, dtype=bool), is_call=rng.random(n) < 0.5,
-                american=np.zeros(n, dtype=bool), strikes=strikes, expiries=expiries,
-                multipliers=np.full(n, 100.0), quantities=rng.integers(-50, 51, n).astype(float) + 0.5)
+    book = Book(
+        name="RANDOM",
+        underlyings=und,
+        reference_index=None,
+        contract_ids=np.arange(1, n + 1),
+        labels=tuple(f"pos{i}" for i in range(n)),
+        underlying_idx=uidx,
+        is_option=np.ones(n, dtype=bool),
+        is_call=rng.random(n) < 0.5,
+        american=np.zeros(n, dtype=bool),
+        strikes=strikes,
+        expiries=expiries,
+        multipliers=np.full(n, 100.0),
+        quantities=rng.integers(-50, 51, n).astype(float) + 0.5,
+    )
     surfaces = {}
     for i, sym in enumerate(symbols):
         dates = start + expiry_days.astype("timedelta64[D]")
@@ -62,10 +77,14 @@ def random_book(n: int, n_underlyings: int = 40, seed: int = 7) -> tuple[Any, An
         k = np.tile(ks, len(dates))
         v = np.tile([0.32, 0.25, 0.22], len(dates))
         surfaces[sym] = VolSurface(e, k, v)
-    market = Market(version=1, marks_as_of=FIXED_NOW - timedelta(hours=1),
-                    spots={s: float(spots[i]) for i, s in enumerate(symbols)}, surfaces=surfaces,
-                    curves={"USD": RateCurve(np.array([1.0, 365.0, 3650.0]), np.array([0.04, 0.04, 0.04]))},
-                    mark_kind="intraday")
+    market = Market(
+        version=1,
+        marks_as_of=FIXED_NOW - timedelta(hours=1),
+        spots={s: float(spots[i]) for i, s in enumerate(symbols)},
+        surfaces=surfaces,
+        curves={"USD": RateCurve(np.array([1.0, 365.0, 3650.0]), np.array([0.04, 0.04, 0.04]))},
+        mark_kind="intraday",
+    )
     return book, market
 
 
@@ -80,8 +99,12 @@ async def _keystrokes(n: int, repeat: int) -> tuple[np.ndarray, float]:
     from blotter.ui.widgets.whatif_bar import MoveInput
 
     book, market = random_book(n)
-    app = BlotterApp(":memory:", Settings(watch_interval_s=0), clock=lambda: FIXED_NOW,
-                     loader=lambda: (book, market, 0))
+    app = BlotterApp(
+        ":memory:",
+        Settings(watch_interval_s=0),
+        clock=lambda: FIXED_NOW,
+        loader=lambda: (book, market, 0),
+    )
     seconds: list[float] = []
     async with app.run_test(size=(120, 40)) as pilot:
         await _settle(app, pilot)
@@ -121,7 +144,9 @@ async def _first_screen(db_path: str) -> float:
     t0 = time.perf_counter()
     app = make_app(db_path, Settings(watch_interval_s=0), clock=lambda: FIXED_NOW)
     async with app.run_test(size=(80, 24)) as pilot:
-        while app.first_paint is None or app.query_one("#ladder-pane").ladder is None:
+        from blotter.ui.widgets.ladder_pane import LadderPane
+
+        while app.first_paint is None or app.query_one(LadderPane).ladder is None:
             await pilot.pause()
             if time.perf_counter() - t0 > 30:
                 raise RuntimeError("the app did not show its first screen within 30 s")
@@ -137,20 +162,40 @@ def run(quick: bool) -> list[Result]:
     for n in sizes:
         secs, rss = asyncio.run(_keystrokes(n, repeat))
         target = 50e-3 if n <= 10_000 else 150e-3
-        results.append(result_from("app keystroke→move pane", n, secs, target_ns=target * 1e9 / n,
-                                   note=f"median {np.median(secs) * 1e3:.1f} ms per keystroke "
-                                        f"(target {target * 1e3:.0f} ms)"))
+        results.append(
+            result_from(
+                "app keystroke→move pane",
+                n,
+                secs,
+                target_ns=target * 1e9 / n,
+                note=f"median {np.median(secs) * 1e3:.1f} ms per keystroke "
+                f"(target {target * 1e3:.0f} ms)",
+            )
+        )
     if not quick:
-        results.append(Result(case="app resident memory", positions=sizes[-1],
-                              ns_per_position=float("nan"), min=float("nan"), max=float("nan"),
-                              note=f"peak RSS {rss:.0f} MB with the {sizes[-1]:,}-position app "
-                                   "(target 400 MB)"))
+        results.append(
+            Result(
+                case="app resident memory",
+                positions=sizes[-1],
+                ns_per_position=float("nan"),
+                min=float("nan"),
+                max=float("nan"),
+                note=f"peak RSS {rss:.0f} MB with the {sizes[-1]:,}-position app (target 400 MB)",
+            )
+        )
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(tmp) / "demo.db"
         _write_demo(db)
         starts = np.array([asyncio.run(_first_screen(str(db))) for _ in range(2 if quick else 5)])
-    results.append(result_from("app start→first screen", 1, starts, target_ns=1.5e9,
-                               note=f"median {np.median(starts):.2f} s on the demo book (target 1.5 s)"))
+    results.append(
+        result_from(
+            "app start→first screen",
+            1,
+            starts,
+            target_ns=1.5e9,
+            note=f"median {np.median(starts):.2f} s on the demo book (target 1.5 s)",
+        )
+    )
     return results
 
 

@@ -25,7 +25,7 @@ def open_app(ctx: AppContext) -> None:
         raise click.ClickException(f"settings: {exc}") from None
     from blotter import store
 
-    try:   # a clear message for a missing or foreign file before the screen is taken over
+    try:  # a clear message for a missing or foreign file before the screen is taken over
         store.open_store(db_path, read_only=True).close()
     except store.StoreError as exc:
         raise click.ClickException(str(exc)) from None

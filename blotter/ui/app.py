@@ -11,7 +11,7 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, ClassVar
 
@@ -27,8 +27,15 @@ from textual.worker import get_current_worker
 from blotter.config import Settings
 from blotter.ui import data
 from blotter.ui.keys import KEYS, app_bindings
-from blotter.ui.messages import (BookLoaded, LadderReady, LoadFailed, MoveApplied, MoveFailed,
-                                 ProfileReady, StoreChanged)
+from blotter.ui.messages import (
+    BookLoaded,
+    LadderReady,
+    LoadFailed,
+    MoveApplied,
+    MoveFailed,
+    ProfileReady,
+    StoreChanged,
+)
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.header_line import HeaderLine
 from blotter.ui.widgets.ladder_pane import LadderPane
@@ -49,13 +56,18 @@ WIDE_WIDTH = 140
 PANES = ("move", "ladder", "profile")
 """Panes the pane key cycles through on narrow terminals."""
 
-GREEKS = (("pnl", "P&L", "value"), ("delta", "Δ sh", "delta_shares"), ("gamma", "Γ 1%", "gamma_1pct"),
-          ("vega", "vega", "vega_pt"), ("theta", "θ day", "theta_day"))
+GREEKS = (
+    ("pnl", "P&L", "value"),
+    ("delta", "Δ sh", "delta_shares"),
+    ("gamma", "Γ 1%", "gamma_1pct"),
+    ("vega", "vega", "vega_pt"),
+    ("theta", "θ day", "theta_day"),
+)
 """Profile choices: (id, label, risk field); P&L is the change in value by full revaluation."""
 
 
 def _utc_now() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 class BlotterApp(App[None]):
@@ -64,11 +76,20 @@ class BlotterApp(App[None]):
     CSS_PATH = "app.tcss"
     TITLE = "blotter"
     ENABLE_COMMAND_PALETTE = False
-    HORIZONTAL_BREAKPOINTS: ClassVar[list[tuple[int, str]]] = [(0, "-narrow"), (WIDE_WIDTH, "-wide")]
+    HORIZONTAL_BREAKPOINTS = [  # noqa: RUF012 - Textual's own class attribute
+        (0, "-narrow"),
+        (WIDE_WIDTH, "-wide"),
+    ]
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("app"))
 
-    def __init__(self, db_path: str, settings: Settings | None = None, clock: Clock | None = None,
-                 read_only: bool | None = None, loader: Loader | None = None) -> None:
+    def __init__(
+        self,
+        db_path: str,
+        settings: Settings | None = None,
+        clock: Clock | None = None,
+        read_only: bool | None = None,
+        loader: Loader | None = None,
+    ) -> None:
         super().__init__()
         self.loader = loader
         self.settings = settings or Settings()
@@ -80,15 +101,15 @@ class BlotterApp(App[None]):
         self.state: data.BookState | None = None
         self.book_seq = 0
         self.move_seq = 0
-        self.move_text = ""          # the text of the last move that parsed
-        self.move: Any = None        # its scenario.Move
-        self.result: Any = None      # its scenario.MoveResult (the last good result)
+        self.move_text = ""  # the text of the last move that parsed
+        self.move: Any = None  # its scenario.Move
+        self.result: Any = None  # its scenario.MoveResult (the last good result)
         self.pane = "move"
         self.greek = "pnl"
         self.axis = "spot"
         self.scope = "book"
         self.data_version: int | None = None
-        self.move_painted: list[tuple[int, float]] = []   # (seq, perf_counter) after each repaint
+        self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
         self.first_paint: float | None = None
         self._stop_watch = threading.Event()
         if self.settings.keymap:
@@ -124,15 +145,21 @@ class BlotterApp(App[None]):
         if small:
             self.query_one("#too-small", Static).update(
                 f"blotter needs at least {MIN_WIDTH}×{MIN_HEIGHT}; this terminal is "
-                f"{event.size.width}×{event.size.height}.")
+                f"{event.size.width}×{event.size.height}."
+            )
 
     def _show_pane(self) -> None:
         for name in PANES:
             self.query_one(f"#{name}-pane").set_class(name == self.pane, "-current")
 
     # -- loading --------------------------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="load", exit_on_error=False,
-          description="read and value the book")
+    @work(
+        thread=True,
+        exclusive=True,
+        group="load",
+        exit_on_error=False,
+        description="read and value the book",
+    )
     def load_book(self) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``."""
         from blotter import risk
@@ -155,8 +182,9 @@ class BlotterApp(App[None]):
                     if close is not None:
                         close()
             now = self.clock()
-            valuation = risk.value_book(book, market, np.datetime64(
-                now.astimezone(timezone.utc).replace(tzinfo=None), "s"))
+            valuation = risk.value_book(
+                book, market, np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s")
+            )
             tree = data.BookTree(valuation, self.tz, self._row_alert)
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
@@ -164,12 +192,22 @@ class BlotterApp(App[None]):
             return
         marks_as_of = market.marks_as_of
         if marks_as_of.tzinfo is None:
-            marks_as_of = marks_as_of.replace(tzinfo=timezone.utc)
+            marks_as_of = marks_as_of.replace(tzinfo=UTC)
         state = data.BookState(
-            book_seq=0, db_path=self.db_path, read_only=self.read_only, book_name=book.name,
-            valuation=valuation, tree=tree, data_version=version, valuation_time=now,
-            marks_as_of=marks_as_of, mark_set_id=market.mark_set_id, mark_kind=market.mark_kind,
-            seconds=time.perf_counter() - t0, notes=tuple(valuation.notes))
+            book_seq=0,
+            db_path=self.db_path,
+            read_only=self.read_only,
+            book_name=book.name,
+            valuation=valuation,
+            tree=tree,
+            data_version=version,
+            valuation_time=now,
+            marks_as_of=marks_as_of,
+            mark_set_id=market.mark_set_id,
+            mark_kind=market.mark_kind,
+            seconds=time.perf_counter() - t0,
+            notes=tuple(valuation.notes),
+        )
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
 
@@ -214,8 +252,13 @@ class BlotterApp(App[None]):
         self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
 
     # -- the store's change check ---------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="watch", exit_on_error=False,
-          description="watch the book file for commits")
+    @work(
+        thread=True,
+        exclusive=True,
+        group="watch",
+        exit_on_error=False,
+        description="watch the book file for commits",
+    )
     def watch_store(self, interval_s: float) -> None:
         """Every ``interval_s`` ask SQLite's data version through this thread's own Store."""
         from blotter import store
@@ -261,7 +304,7 @@ class BlotterApp(App[None]):
         self.query_one(MoveInput).remember(event.value)
 
     def _submit_move(self, text: str, force: bool = False) -> None:
-        """Parse ``text`` here (cheap) and apply it in a worker; a bad line keeps the last result."""
+        """Parse ``text`` here (cheap), apply it in a worker; a bad line keeps the last result."""
         from blotter import scenario
 
         bar = self.query_one(WhatIfBar)
@@ -281,21 +324,36 @@ class BlotterApp(App[None]):
         if self.state is None:
             bar.show_ok(move.describe() + " (waiting for the book)")
             return
-        if (not force and self.move is not None and self.result is not None
-                and move.describe() == self.move.describe()):
-            bar.show_ok(move.describe(), text)   # same move as shown (spacing, case): keep it
+        if (
+            not force
+            and self.move is not None
+            and self.result is not None
+            and move.describe() == self.move.describe()
+        ):
+            bar.show_ok(move.describe(), text)  # same move as shown (spacing, case): keep it
             return
         # Debounce on the trailing edge only: a keystroke with no revaluation in flight is
         # applied at once; one that arrives mid-revaluation waits, so a burst collapses to one.
         busy = any(w.group == "move" and not w.is_finished for w in self.workers)
-        self.apply_move(self.move_seq, self.state, text, move,
-                        self.settings.debounce_ms / 1000.0 if busy else 0.0)
+        self.apply_move(
+            self.move_seq,
+            self.state,
+            text,
+            move,
+            self.settings.debounce_ms / 1000.0 if busy else 0.0,
+        )
 
-    @work(thread=True, exclusive=True, group="move", exit_on_error=False,
-          description="revalue under the bar's move")
-    def apply_move(self, seq: int, state: data.BookState, text: str, move: Any,
-                   wait_s: float) -> None:
-        """Wait ``wait_s`` (the debounce), then revalue under ``move`` unless a newer keystroke came."""
+    @work(
+        thread=True,
+        exclusive=True,
+        group="move",
+        exit_on_error=False,
+        description="revalue under the bar's move",
+    )
+    def apply_move(
+        self, seq: int, state: data.BookState, text: str, move: Any, wait_s: float
+    ) -> None:
+        """Wait ``wait_s`` (debounce), then revalue under ``move`` unless a newer key came."""
         from blotter import scenario
 
         worker = get_current_worker()
@@ -311,8 +369,9 @@ class BlotterApp(App[None]):
                 self.post_message(MoveFailed(seq, str(exc)))
             return
         if not worker.is_cancelled:
-            self.post_message(MoveApplied(seq, state.book_seq, text, move, result,
-                                          time.perf_counter() - t0))
+            self.post_message(
+                MoveApplied(seq, state.book_seq, text, move, result, time.perf_counter() - t0)
+            )
 
     def on_move_applied(self, message: MoveApplied) -> None:
         if message.seq != self.move_seq or self.state is None or message.book_seq != self.book_seq:
@@ -335,7 +394,7 @@ class BlotterApp(App[None]):
         self.query_one(WhatIfBar).show_error(text, message.reason, 0, len(text))
 
     def _roll_days(self, move: Any) -> float:
-        """Calendar days of the move's roll (business days counted through ``scenario.roll_time``)."""
+        """Calendar days of the move's roll (business days via ``scenario.roll_time``)."""
         if move is None or self.state is None:
             return 0.0
         if not getattr(move, "bdays", 0):
@@ -350,16 +409,25 @@ class BlotterApp(App[None]):
     def start_ladder(self, state: data.BookState, days: float) -> None:
         self.compute_ladder(state, days)
 
-    @work(thread=True, exclusive=True, group="ladder", exit_on_error=False,
-          description="spot × vol ladder")
+    @work(
+        thread=True,
+        exclusive=True,
+        group="ladder",
+        exit_on_error=False,
+        description="spot × vol ladder",
+    )
     def compute_ladder(self, state: data.BookState, days: float) -> None:
         """The spot × vol ladder with the bar's day roll."""
         from blotter import scenario
 
         worker = get_current_worker()
         try:
-            grid = scenario.ladder(state.valuation, self.settings.ladder_spot_pcts,
-                                   self.settings.ladder_vol_pts, days=days)
+            grid = scenario.ladder(
+                state.valuation,
+                self.settings.ladder_spot_pcts,
+                self.settings.ladder_vol_pts,
+                days=days,
+            )
         except (ValueError, KeyError) as exc:
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"ladder: {exc}"))
@@ -382,13 +450,26 @@ class BlotterApp(App[None]):
                 rows = self.state.tree.rows_of(key)
                 row = self.query_one(BookTable).row(key)
                 label = row.label if row else key
-        self.compute_profile(self.state, self._roll_days(self.move), self.greek, self.axis,
-                             rows, label)
+        self.compute_profile(
+            self.state, self._roll_days(self.move), self.greek, self.axis, rows, label
+        )
 
-    @work(thread=True, exclusive=True, group="profile", exit_on_error=False,
-          description="profile curves")
-    def compute_profile(self, state: data.BookState, days: float, greek: str, axis: str,
-                        rows: np.ndarray | None, label: str) -> None:
+    @work(
+        thread=True,
+        exclusive=True,
+        group="profile",
+        exit_on_error=False,
+        description="profile curves",
+    )
+    def compute_profile(
+        self,
+        state: data.BookState,
+        days: float,
+        greek: str,
+        axis: str,
+        rows: np.ndarray | None,
+        label: str,
+    ) -> None:
         """Curves for the Profile pane (see ``data.profile``)."""
         worker = get_current_worker()
         try:
@@ -454,7 +535,9 @@ class BlotterApp(App[None]):
         if column == "label":
             title += " ─ sorted by name" + (" (Z→A)" if reverse else "")
         elif column is not None:
-            title += f" ─ sorted by {dict(data.BOOK_COLUMNS)[column]} " + ("↓ largest first" if reverse else "↑ smallest first")
+            title += f" ─ sorted by {dict(data.BOOK_COLUMNS)[column]} " + (
+                "↓ largest first" if reverse else "↑ smallest first"
+            )
         self.query_one("#book-pane").border_title = title
 
     def action_toggle_order(self) -> None:
@@ -494,6 +577,8 @@ class BlotterApp(App[None]):
             await w.wait()
 
 
-def make_app(db_path: str | Path, settings: Settings | None = None, clock: Clock | None = None) -> BlotterApp:
+def make_app(
+    db_path: str | Path, settings: Settings | None = None, clock: Clock | None = None
+) -> BlotterApp:
     """The app on ``db_path`` with ``settings`` (defaults when None); ``clock`` fixes "now"."""
     return BlotterApp(str(db_path), settings, clock)

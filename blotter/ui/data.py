@@ -47,18 +47,19 @@ class BookRow:
     """One row of the Book pane. ``values`` follow ``BOOK_COLUMNS``; NaN shows as n/a or blank."""
 
     key: str
-    level: int                 # 0 total, 1 group, 2 sub-group, 3 position
+    level: int  # 0 total, 1 group, 2 sub-group, 3 position
     label: str
     values: tuple[float, ...]
     expandable: bool = False
-    alert: str = ""            # words for a breached limit; the row shows "!"
+    alert: str = ""  # words for a breached limit; the row shows "!"
     position: int | None = None  # row index into the book for a position row
 
 
 def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[float, ...]:
     s = exposure.spot if exposure.spot is not None else spot
     return (float(s) if s is not None else math.nan,) + tuple(
-        float(getattr(exposure, k)) for k in SUM_FIELDS)
+        float(getattr(exposure, k)) for k in SUM_FIELDS
+    )
 
 
 def position_label(book: Any, i: int) -> str:
@@ -77,8 +78,12 @@ def expiry_text(expiry: np.datetime64, tz: Any) -> str:
 class BookTree:
     """The Book pane's rows for one valuation; children are worked out when a row is expanded."""
 
-    def __init__(self, valuation: risk.BookValuation, tz: Any,
-                 alert: Callable[[risk.ExposureRow], str] | None = None) -> None:
+    def __init__(
+        self,
+        valuation: risk.BookValuation,
+        tz: Any,
+        alert: Callable[[risk.ExposureRow], str] | None = None,
+    ) -> None:
         self.valuation = valuation
         self.book = valuation.book
         self.tz = tz
@@ -87,12 +92,18 @@ class BookTree:
         n = len(self.book)
         # Expiry day per position as desk-local dates (NaT for hedges), for sub-grouping.
         if n:
-            local = np.array([cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT")
-                              for e in np.unique(self.book.expiries)], dtype="datetime64[D]")
+            local = np.array(
+                [
+                    cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT")
+                    for e in np.unique(self.book.expiries)
+                ],
+                dtype="datetime64[D]",
+            )
             uniq, inverse = np.unique(self.book.expiries, return_inverse=True)
             mapping = dict(zip(uniq.tolist(), local.tolist(), strict=True))
-            self.expiry_days = np.array([mapping[u] for u in uniq.tolist()],
-                                        dtype="datetime64[D]")[inverse.reshape(-1)]
+            self.expiry_days = np.array([mapping[u] for u in uniq.tolist()], dtype="datetime64[D]")[
+                inverse.reshape(-1)
+            ]
         else:
             self.expiry_days = np.zeros(0, dtype="datetime64[D]")
         self._total = risk.total(valuation)
@@ -109,16 +120,25 @@ class BookTree:
         book = self.book
         order = rows[np.lexsort((book.strikes[rows], ~book.is_call[rows]))]
         out = [
-            BookRow(key=f"p|{int(book.contract_ids[i])}|{i}", level=level,
-                    label=position_label(book, int(i)),
-                    values=(math.nan,) + tuple(float(self._sums[k][i]) for k in SUM_FIELDS),
-                    position=int(i))
+            BookRow(
+                key=f"p|{int(book.contract_ids[i])}|{i}",
+                level=level,
+                label=position_label(book, int(i)),
+                values=(math.nan,) + tuple(float(self._sums[k][i]) for k in SUM_FIELDS),
+                position=int(i),
+            )
             for i in order[:MAX_CHILD_ROWS]
         ]
         if len(order) > MAX_CHILD_ROWS:
             rest = order[MAX_CHILD_ROWS:]
-            out.append(BookRow(key=f"{parent}|more", level=level,
-                               label=f"… {len(rest):,} more", values=(math.nan,) + self._subtotal(rest)))
+            out.append(
+                BookRow(
+                    key=f"{parent}|more",
+                    level=level,
+                    label=f"… {len(rest):,} more",
+                    values=(math.nan,) + self._subtotal(rest),
+                )
+            )
         return out
 
     def _by_day(self, parent: str, rows: np.ndarray, level: int) -> list[BookRow]:
@@ -127,24 +147,56 @@ class BookTree:
         hedges = rows[np.isnat(days)]
         for day in np.unique(days[~np.isnat(days)]):
             sel = rows[days == day]
-            out.append(BookRow(key=f"{parent}|d|{day}", level=level, label=str(day),
-                               values=(math.nan,) + self._subtotal(sel), expandable=True))
+            out.append(
+                BookRow(
+                    key=f"{parent}|d|{day}",
+                    level=level,
+                    label=str(day),
+                    values=(math.nan,) + self._subtotal(sel),
+                    expandable=True,
+                )
+            )
         if len(hedges):
-            out.append(BookRow(key=f"{parent}|d|hedge", level=level, label="hedges",
-                               values=(math.nan,) + self._subtotal(hedges), expandable=True))
+            out.append(
+                BookRow(
+                    key=f"{parent}|d|hedge",
+                    level=level,
+                    label="hedges",
+                    values=(math.nan,) + self._subtotal(hedges),
+                    expandable=True,
+                )
+            )
         return out
 
     # -- BookSource ------------------------------------------------------------------------------
     def total(self) -> BookRow:
-        return BookRow(key="total", level=0, label="total", values=_row_values(self._total),
-                       alert=self._alert(self._total))
+        return BookRow(
+            key="total",
+            level=0,
+            label="total",
+            values=_row_values(self._total),
+            alert=self._alert(self._total),
+        )
 
     def top(self, group: str) -> Sequence[BookRow]:
         if group == "underlying":
-            return [BookRow(key=f"u|{r.label}", level=1, label=r.label, values=_row_values(r),
-                            expandable=True, alert=self._alert(r)) for r in self._by_underlying]
-        return [BookRow(key=f"b|{r.label}", level=1, label=r.label, values=_row_values(r),
-                        expandable=True) for r in self._by_bucket]
+            return [
+                BookRow(
+                    key=f"u|{r.label}",
+                    level=1,
+                    label=r.label,
+                    values=_row_values(r),
+                    expandable=True,
+                    alert=self._alert(r),
+                )
+                for r in self._by_underlying
+            ]
+        return [
+            BookRow(
+                key=f"b|{r.label}", level=1, label=r.label, values=_row_values(r), expandable=True
+            )
+            for r in self._by_bucket
+        ]
 
     def rows_of(self, key: str) -> np.ndarray:
         """Book row indices under the tree row ``key`` (all rows for the total)."""
@@ -160,8 +212,11 @@ class BookTree:
             elif kind == "b":
                 sel &= self.valuation.bucket_codes == self.valuation.bucket_labels.index(name)
             elif kind == "d":
-                sel &= (np.isnat(self.expiry_days) if name == "hedge"
-                        else self.expiry_days == np.datetime64(name))
+                sel &= (
+                    np.isnat(self.expiry_days)
+                    if name == "hedge"
+                    else self.expiry_days == np.datetime64(name)
+                )
             elif kind == "p":
                 return np.array([int(parts[i + 2])])
             i += 2
@@ -173,18 +228,25 @@ class BookTree:
         rows = self.rows_of(key)
         parts = key.split("|")
         level = len(parts) // 2 + 1
-        if parts[-2] == "u":                       # underlying -> expiry days
+        if parts[-2] == "u":  # underlying -> expiry days
             out = self._by_day(key, rows, level)
-        elif parts[-2] == "b":                     # bucket -> underlyings in it
+        elif parts[-2] == "b":  # bucket -> underlyings in it
             uidx = self.book.underlying_idx[rows]
             out = []
             for j in np.unique(uidx):
                 sel = rows[uidx == j]
                 sym = self.book.underlyings.symbols[int(j)]
-                out.append(BookRow(key=f"{key}|u|{sym}", level=level, label=sym,
-                                   values=(float(self.valuation.underlying_spots[int(j)]),)
-                                   + self._subtotal(sel), expandable=True))
-        else:                                      # expiry day, or underlying within a bucket
+                out.append(
+                    BookRow(
+                        key=f"{key}|u|{sym}",
+                        level=level,
+                        label=sym,
+                        values=(float(self.valuation.underlying_spots[int(j)]),)
+                        + self._subtotal(sel),
+                        expandable=True,
+                    )
+                )
+        else:  # expiry day, or underlying within a bucket
             out = self._positions(key, rows, level)
         self._cache[key] = out
         return out
@@ -199,14 +261,16 @@ class MarksAge:
     last_close: datetime | None
 
 
-def marks_age(marks_as_of: datetime, now: datetime, tz: Any, calendar_name: str = "NYSE") -> MarksAge:
-    """Age of the mark set at ``now``; stale when older than the last completed business-day close."""
+def marks_age(
+    marks_as_of: datetime, now: datetime, tz: Any, calendar_name: str = "NYSE"
+) -> MarksAge:
+    """Age of the marks at ``now``; stale when older than the last business-day close."""
     age = now - marks_as_of
     local_now = now.astimezone(tz)
-    day = np.datetime64(local_now.date(), "D")
+    day: np.datetime64 = np.datetime64(local_now.date(), "D")
     close_today = datetime.combine(local_now.date(), cal.DEFAULT_CUTOFF, tzinfo=tz)
     if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
-        day = np.datetime64(cal.add_business_days(day, -1, calendar_name), "D")
+        day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
     last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
     stale = marks_as_of < last_close - timedelta(minutes=1)
     return MarksAge(words=fmt.age_words(age), stale=bool(stale), last_close=last_close)
@@ -230,9 +294,11 @@ class BookState:
     seconds: float = 0.0
     notes: tuple[str, ...] = field(default=())
 
-    def __repr__(self) -> str:   # short: the arrays inside are large
-        return (f"BookState(book_seq={self.book_seq}, db_path={self.db_path!r}, "
-                f"positions={len(self.valuation)}, data_version={self.data_version})")
+    def __repr__(self) -> str:  # short: the arrays inside are large
+        return (
+            f"BookState(book_seq={self.book_seq}, db_path={self.db_path!r}, "
+            f"positions={len(self.valuation)}, data_version={self.data_version})"
+        )
 
 
 @dataclass(frozen=True)
@@ -247,8 +313,12 @@ class ProfileData:
     note: str = ""
 
 
-PROFILE_FIELDS = {"delta": ("delta_shares", "Δ sh (shares)"), "gamma": ("gamma_1pct", "Γ 1% (shares)"),
-                  "vega": ("vega_pt", "vega (per vol pt)"), "theta": ("theta_day", "θ day (per day)")}
+PROFILE_FIELDS = {
+    "delta": ("delta_shares", "Δ sh (shares)"),
+    "gamma": ("gamma_1pct", "Γ 1% (shares)"),
+    "vega": ("vega_pt", "vega (per vol pt)"),
+    "theta": ("theta_day", "θ day (per day)"),
+}
 """Profile greeks: risk field and the axis label with its unit."""
 
 
@@ -256,18 +326,33 @@ def sub_book(book: Book, rows: np.ndarray) -> Book:
     """The positions ``rows`` of ``book`` as a book of their own (same underlyings)."""
     rows = np.asarray(rows, dtype=np.int64)
     return Book(
-        name=book.name, underlyings=book.underlyings, reference_index=book.reference_index,
-        contract_ids=book.contract_ids[rows], labels=tuple(book.labels[int(i)] for i in rows),
-        underlying_idx=book.underlying_idx[rows], is_option=book.is_option[rows],
-        is_call=book.is_call[rows], american=book.american[rows], strikes=book.strikes[rows],
-        expiries=book.expiries[rows], multipliers=book.multipliers[rows],
-        quantities=book.quantities[rows], cash_settled=book.cash_settled[rows],
+        name=book.name,
+        underlyings=book.underlyings,
+        reference_index=book.reference_index,
+        contract_ids=book.contract_ids[rows],
+        labels=tuple(book.labels[int(i)] for i in rows),
+        underlying_idx=book.underlying_idx[rows],
+        is_option=book.is_option[rows],
+        is_call=book.is_call[rows],
+        american=book.american[rows],
+        strikes=book.strikes[rows],
+        expiries=book.expiries[rows],
+        multipliers=book.multipliers[rows],
+        quantities=book.quantities[rows],
+        cash_settled=book.cash_settled[rows],
         is_trial=book.is_trial[rows],
     )
 
 
-def profile(valuation: risk.BookValuation, settings: Any, greek: str, axis: str, days: float,
-            rows: np.ndarray | None = None, label: str = "book") -> ProfileData:
+def profile(
+    valuation: risk.BookValuation,
+    settings: Any,
+    greek: str,
+    axis: str,
+    days: float,
+    rows: np.ndarray | None = None,
+    label: str = "book",
+) -> ProfileData:
     """Curves of the book (or of ``rows`` only): P&L or a greek, against spot % or days forward.
 
     Against spot every underlying moves by the same %, vols sticky strike, today and after the
@@ -278,7 +363,9 @@ def profile(valuation: risk.BookValuation, settings: Any, greek: str, axis: str,
 
     v = valuation
     if rows is not None:
-        v = risk.value_book(sub_book(valuation.book, rows), valuation.market, valuation.valuation_time)
+        v = risk.value_book(
+            sub_book(valuation.book, rows), valuation.market, valuation.valuation_time
+        )
     t0 = v.valuation_time
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
     series: dict[str, tuple[float, ...]] = {}
@@ -288,9 +375,12 @@ def profile(valuation: risk.BookValuation, settings: Any, greek: str, axis: str,
         xs = np.linspace(-half, half, int(settings.profile_points))
         x_label = "spot move, % of every spot"
         if greek == "pnl":
-            series["today"] = tuple(scenario.ladder(v, xs, (0.0,), days=0.0).full[:, 0].tolist())
+            pcts = xs.tolist()
+            series["today"] = tuple(scenario.ladder(v, pcts, (0.0,), days=0.0).full[:, 0].tolist())
             if days:
-                series[roll] = tuple(scenario.ladder(v, xs, (0.0,), days=days).full[:, 0].tolist())
+                series[roll] = tuple(
+                    scenario.ladder(v, pcts, (0.0,), days=days).full[:, 0].tolist()
+                )
             y_label = "P&L (currency)"
         else:
             field_name, y_label = PROFILE_FIELDS[greek]
@@ -298,8 +388,14 @@ def profile(valuation: risk.BookValuation, settings: Any, greek: str, axis: str,
             for name, t in times:
                 values = []
                 for pct in xs:
-                    market = v.market.shocked(spot_pct={s: float(pct) for s in symbols}) if pct else v.market
-                    values.append(getattr(risk.total(risk.value_book(v.book, market, t)), field_name))
+                    market = (
+                        v.market.shocked(spot_pct={s: float(pct) for s in symbols})
+                        if pct
+                        else v.market
+                    )
+                    values.append(
+                        getattr(risk.total(risk.value_book(v.book, market, t)), field_name)
+                    )
                 series[name] = tuple(float(x) for x in values)
     else:
         n_days = int(settings.profile_days)
@@ -308,15 +404,38 @@ def profile(valuation: risk.BookValuation, settings: Any, greek: str, axis: str,
         if greek == "pnl":
             y_label = "P&L (currency)"
             series["P&L"] = tuple(
-                float(scenario.apply_move(v, scenario.Move(text=f"days {d:g}", days=float(d))).total.full)
-                if d else 0.0 for d in xs)
+                float(
+                    scenario.apply_move(
+                        v, scenario.Move(text=f"days {d:g}", days=float(d))
+                    ).total.full
+                )
+                if d
+                else 0.0
+                for d in xs
+            )
         else:
             field_name, y_label = PROFILE_FIELDS[greek]
             series[y_label.split(" (")[0]] = tuple(
-                float(getattr(risk.total(risk.value_book(v.book, v.market, cal.roll_calendar_days(t0, float(d)))),
-                              field_name)) for d in xs)
+                float(
+                    getattr(
+                        risk.total(
+                            risk.value_book(v.book, v.market, cal.roll_calendar_days(t0, float(d)))
+                        ),
+                        field_name,
+                    )
+                )
+                for d in xs
+            )
     names = {"pnl": "P&L", "delta": "Δ sh", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
-    title = f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
+    title = (
+        f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
+    )
     note = "sticky-strike vols" if axis == "spot" else "spot and vols held"
-    return ProfileData(title=title, x_label=x_label, xs=tuple(xs.tolist()), series=series,
-                       y_label=y_label, note=note)
+    return ProfileData(
+        title=title,
+        x_label=x_label,
+        xs=tuple(xs.tolist()),
+        series=series,
+        y_label=y_label,
+        note=note,
+    )

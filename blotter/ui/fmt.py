@@ -13,7 +13,7 @@ MISSING = "n/a"
 
 
 def money(value: float, width: int = 0) -> str:
-    """Whole currency units with a sign and thousands separators; ``M`` beyond 10 significant chars."""
+    """Whole currency units, signed, thousands grouped; millions (``M``) beyond 10 digits."""
     if value is None or not math.isfinite(value):
         text = MISSING
     elif abs(value) >= 1e10:

@@ -40,12 +40,12 @@ class MoveApplied(Message):
     text: str
     move: Any
     result: Any
-    seconds: float          # time spent in apply_move, for the bench
+    seconds: float  # time spent in apply_move, for the bench
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, MoveApplied)
 
-    def __repr__(self) -> str:   # short: the result holds per-position arrays
+    def __repr__(self) -> str:  # short: the result holds per-position arrays
         return f"MoveApplied(seq={self.seq}, text={self.text!r})"
 
 

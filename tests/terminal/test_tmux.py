@@ -36,11 +36,16 @@ class Tmux:
 
     def __init__(self, name: str) -> None:
         self.name = name
-        self.socket = name   # a server of our own, so no one else's sessions are touched
+        self.socket = name  # a server of our own, so no one else's sessions are touched
 
     def tmux(self, *args: str, check: bool = True) -> subprocess.CompletedProcess[str]:
-        return subprocess.run(["tmux", "-L", self.socket, *args], capture_output=True, text=True,
-                              check=check, env={**os.environ, "TERM": "xterm"})
+        return subprocess.run(
+            ["tmux", "-L", self.socket, *args],
+            capture_output=True,
+            text=True,
+            check=check,
+            env={**os.environ, "TERM": "xterm"},
+        )
 
     def send(self, *keys: str, literal: bool = False) -> None:
         self.tmux("send-keys", "-t", self.name, *(["-l"] if literal else []), *keys)
@@ -56,10 +61,12 @@ class Tmux:
             if check(screen):
                 return screen
             time.sleep(0.1)
-        self.send("F7")   # is the app still answering keys? (shown in the failure message)
+        self.send("F7")  # is the app still answering keys? (shown in the failure message)
         time.sleep(2.0)
-        raise AssertionError(f"timed out waiting for {what}; the screen was:\n{screen}\n"
-                             f"and after F7:\n{self.screen()}")
+        raise AssertionError(
+            f"timed out waiting for {what}; the screen was:\n{screen}\n"
+            f"and after F7:\n{self.screen()}"
+        )
 
     def until_keys_arrive(self) -> None:
         """Press the group key until the app answers, so no keystroke is lost at start-up."""
@@ -81,17 +88,23 @@ class Tmux:
 @pytest.fixture(params=["screen-256color", "xterm", "xterm-16color"])
 def session(request: pytest.FixtureRequest, demo_db: Path, tmp_path: Path) -> Iterator[Tmux]:
     name = f"blotter-test-{uuid.uuid4().hex[:8]}"
-    env = {"TERM": request.param, "XDG_CONFIG_HOME": str(tmp_path), "BLOTTER_CONFIG": "",
-           "NO_COLOR": "1" if request.param == "xterm" else ""}
+    env = {
+        "TERM": request.param,
+        "XDG_CONFIG_HOME": str(tmp_path),
+        "BLOTTER_CONFIG": "",
+        "NO_COLOR": "1" if request.param == "xterm" else "",
+    }
     exports = " ".join(f"{k}={v!s}" for k, v in env.items() if v) + " "
-    unset = "unset NO_COLOR BLOTTER_CONFIG; " if request.param != "xterm" else "unset BLOTTER_CONFIG; "
+    unset = (
+        "unset NO_COLOR BLOTTER_CONFIG; " if request.param != "xterm" else "unset BLOTTER_CONFIG; "
+    )
     command = f"{unset}env {exports}{_blotter()} --db {demo_db}; sleep 5"
     tmux = Tmux(name)
     tmux.tmux("new-session", "-d", "-s", name, "-x", "80", "-y", "24", command)
     try:
         yield tmux
     finally:
-        tmux.tmux("kill-server", check=False)   # our own server only (-L)
+        tmux.tmux("kill-server", check=False)  # our own server only (-L)
 
 
 def test_app_in_tmux_80x24(session: Tmux) -> None:
@@ -102,15 +115,18 @@ def test_app_in_tmux_80x24(session: Tmux) -> None:
 
     session.send("/")
     session.send("spot -3% vol +2 days 1", literal=True)
-    screen = session.wait_for(lambda s: "✓ applied" in s and "Move: spot -3% vol +2 days 1" in s,
-                              "the move's result")
-    total = next(line for line in screen.splitlines() if line.lstrip().startswith("Σ total")
-                 and "%" in line)
-    assert total.split()[2].startswith(("+", "-"))   # the full change carries its sign
+    screen = session.wait_for(
+        lambda s: "✓ applied" in s and "Move: spot -3% vol +2 days 1" in s, "the move's result"
+    )
+    total = next(
+        line for line in screen.splitlines() if line.lstrip().startswith("Σ total") and "%" in line
+    )
+    assert total.split()[2].startswith(("+", "-"))  # the full change carries its sign
 
     session.send(" nonsense", literal=True)
-    session.wait_for(lambda s: "✗ unknown word 'nonsense'" in s and "last good line" in s,
-                     "the bad-line message")
+    session.wait_for(
+        lambda s: "✗ unknown word 'nonsense'" in s and "last good line" in s, "the bad-line message"
+    )
 
     session.send("F7")
     session.wait_for(lambda s: "Ladder: full revaluation P&L" in s and "▼" in s, "the ladder")

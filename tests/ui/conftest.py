@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import asyncio
 import inspect
-from datetime import datetime, time, timedelta, timezone
+from datetime import UTC, datetime, time, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -18,8 +18,9 @@ from blotter.config import Settings
 from blotter.demo import DEMO_AS_OF, DEMO_TZ
 from blotter.ui.app import BlotterApp, make_app
 
-FROZEN_NOW = datetime.combine(DEMO_AS_OF + timedelta(days=1), time(10, 0), tzinfo=DEMO_TZ
-                              ).astimezone(timezone.utc)
+FROZEN_NOW = datetime.combine(
+    DEMO_AS_OF + timedelta(days=1), time(10, 0), tzinfo=DEMO_TZ
+).astimezone(UTC)
 """The tests' "now": 10:00 New York on the day after the demo book's last close (a business day
 for the demo's date, a Tuesday)."""
 

@@ -58,7 +58,7 @@ async def test_bar_shows_scenario_numbers(demo_db: Path, size: tuple[int, int]) 
         grid = str(app.query_one("#move-grid").render())
         for key, row in rows.items():
             cells = {c: pane.cells[(key, c)] for c in COLUMNS}
-            assert "".join(cells.values()) in grid       # what is drawn is these cells
+            assert "".join(cells.values()) in grid  # what is drawn is these cells
             assert shown_number(cells["full"]) == pytest.approx(row.full, abs=0.5)
             assert shown_number(cells["estimate"]) == pytest.approx(row.estimate_2, abs=0.5)
             assert shown_number(cells["error"]) == pytest.approx(row.error_2, abs=0.5)
@@ -69,8 +69,12 @@ async def test_bar_shows_scenario_numbers(demo_db: Path, size: tuple[int, int]) 
         # The first-order view shows scenario's first-order estimate and error.
         await pilot.press("f6")
         await pilot.pause()
-        assert shown_number(pane.cells[("total", "estimate")]) == pytest.approx(expected.total.estimate_1, abs=0.5)
-        assert shown_number(pane.cells[("total", "error")]) == pytest.approx(expected.total.error_1, abs=0.5)
+        assert shown_number(pane.cells[("total", "estimate")]) == pytest.approx(
+            expected.total.estimate_1, abs=0.5
+        )
+        assert shown_number(pane.cells[("total", "error")]) == pytest.approx(
+            expected.total.error_1, abs=0.5
+        )
         assert "1st-order" in str(app.query_one("#move-pane").border_title)
 
 
@@ -126,7 +130,8 @@ async def test_expand_group_and_sort(demo_app: BlotterApp) -> None:
         book = state.valuation.book
         rows = np.flatnonzero(book.underlying_idx == book.underlyings.index_of(symbols[0]))
         assert sum(r.values[1] for r in children) == pytest.approx(
-            float(state.valuation.delta_cash[rows].sum()), rel=1e-9)
+            float(state.valuation.delta_cash[rows].sum()), rel=1e-9
+        )
         await pilot.press("down", "enter")
         positions = [r for r in table.visible_rows() if r.level == 3]
         assert positions and all(r.position is not None for r in positions)
@@ -168,9 +173,15 @@ async def test_reload_updates_cells_in_place(demo_app: BlotterApp) -> None:
 async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterApp) -> None:
     async with demo_app.run_test(size=(80, 24)) as pilot:
         await settle(demo_app, pilot)
-        shown = lambda: [p for p in ("move", "ladder", "profile")  # noqa: E731
-                         if demo_app.query_one(f"#{p}-pane").display
-                         and demo_app.query_one(f"#{p}-pane").region.height > 0]
+
+        def shown() -> list[str]:
+            return [
+                p
+                for p in ("move", "ladder", "profile")
+                if demo_app.query_one(f"#{p}-pane").display
+                and demo_app.query_one(f"#{p}-pane").region.height > 0
+            ]
+
         assert shown() == ["move"]
         await pilot.press("v")
         await pilot.pause()
@@ -192,8 +203,9 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
         ladder_pane = app.query_one("#ladder-pane")
         state = app.state
         assert state is not None
-        expected = scenario.ladder(state.valuation, TEST_SETTINGS.ladder_spot_pcts,
-                                   TEST_SETTINGS.ladder_vol_pts, days=2.0)
+        expected = scenario.ladder(
+            state.valuation, TEST_SETTINGS.ladder_spot_pcts, TEST_SETTINGS.ladder_vol_pts, days=2.0
+        )
         assert ladder_pane.days == 2.0  # type: ignore[attr-defined]
         np.testing.assert_allclose(ladder_pane.ladder.full, expected.full)  # type: ignore[attr-defined]
         assert "after 2 days" in str(ladder_pane.border_title)
@@ -201,23 +213,29 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
         console = Console(width=120, record=True, file=io.StringIO())
         console.print(ladder_pane.table)  # type: ignore[attr-defined]
         lines = console.export_text().splitlines()
-        worst_line = next(line for line in lines if line.strip().startswith(f"{expected.spot_pcts[i]:+g}%"))
+        worst_line = next(
+            line for line in lines if line.strip().startswith(f"{expected.spot_pcts[i]:+g}%")
+        )
         assert worst_line.split()[1 + j].startswith("▼")
         assert sum(line.count("▼") for line in lines) == 1
         profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
         spot_pcts = np.array(profile.xs)
         np.testing.assert_allclose(
-            profile.series["today"], scenario.ladder(state.valuation, spot_pcts, (0.0,)).full[:, 0])
+            profile.series["today"], scenario.ladder(state.valuation, spot_pcts, (0.0,)).full[:, 0]
+        )
         np.testing.assert_allclose(
             profile.series["after 2 days"],
-            scenario.ladder(state.valuation, spot_pcts, (0.0,), days=2.0).full[:, 0])
+            scenario.ladder(state.valuation, spot_pcts, (0.0,), days=2.0).full[:, 0],
+        )
         # The greek view: Δ sh of the book at the base spot is risk's total.
         await pilot.press("f9")
         await settle(app, pilot)
         profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
         mid = len(profile.xs) // 2
         assert profile.xs[mid] == 0.0
-        assert profile.series["today"][mid] == pytest.approx(risk.total(state.valuation).delta_shares)
+        assert profile.series["today"][mid] == pytest.approx(
+            risk.total(state.valuation).delta_shares
+        )
 
 
 async def test_too_small_says_what_size_is_needed(demo_app: BlotterApp) -> None:
@@ -245,7 +263,7 @@ async def test_header_says_book_marks_age_and_read_only(demo_db: Path) -> None:
 async def test_stale_marks_flagged_in_words(demo_db: Path) -> None:
     from datetime import timedelta
 
-    later = FROZEN_NOW + timedelta(days=6)   # a week later, several closes have passed
+    later = FROZEN_NOW + timedelta(days=6)  # a week later, several closes have passed
     app = make_app(demo_db, TEST_SETTINGS, clock=lambda: later)
     async with app.run_test(size=(160, 48)) as pilot:
         await settle(app, pilot)
@@ -260,17 +278,17 @@ async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:
 
 
 async def test_keys_arriving_in_one_burst_all_reach_the_bar(demo_app: BlotterApp) -> None:
-    """"/spot -2%" arriving in one read (fast typing over SSH) lands whole in the bar."""
+    """ "/spot -2%" arriving in one read (fast typing over SSH) lands whole in the bar."""
     from textual import events
 
     async with demo_app.run_test(size=(80, 24)) as pilot:
         await settle(demo_app, pilot)
         for ch in "/spot -2%":
             name = {"/": "slash", " ": "space", "-": "minus", "%": "percent_sign"}.get(ch, ch)
-            demo_app.post_message(events.Key(name, ch))   # queued together, none handled yet
+            demo_app.post_message(events.Key(name, ch))  # queued together, none handled yet
         await settle(demo_app, pilot)
         assert demo_app.query_one(MoveInput).value == "spot -2%"
-        assert demo_app.query_one(BookTable).sort_column is None   # no "s" reached the book
+        assert demo_app.query_one(BookTable).sort_column is None  # no "s" reached the book
 
 
 async def test_paste_into_the_book_goes_to_the_bar(demo_app: BlotterApp) -> None:
@@ -278,7 +296,33 @@ async def test_paste_into_the_book_goes_to_the_bar(demo_app: BlotterApp) -> None
 
     async with demo_app.run_test(size=(80, 24)) as pilot:
         await settle(demo_app, pilot)
-        demo_app.post_message(events.Paste("/vol +2\n"))   # as the driver delivers it
+        demo_app.post_message(events.Paste("/vol +2\n"))  # as the driver delivers it
         await settle(demo_app, pilot)
         assert demo_app.query_one(MoveInput).value == "vol +2"
         assert demo_app.move is not None and demo_app.move.describe() == "vol +2"
+
+
+async def test_a_commit_by_another_connection_reloads_the_book(demo_db: Path) -> None:
+    """The store's change check (the app's only timer-like work) sees another writer's commit."""
+    from dataclasses import replace
+
+    app = make_app(demo_db, replace(TEST_SETTINGS, watch_interval_s=0.05), clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        assert app.book_seq == 1
+        await pilot.press("f2", *"spot -1%")
+        await settle(app, pilot)
+        writer = store.open_store(demo_db)
+        try:
+            writer.add_note("a note from another terminal")
+        finally:
+            writer.close()
+        for _ in range(5000):
+            if app.book_seq == 2:
+                break
+            await pilot.pause()
+        await settle(app, pilot)
+        assert app.book_seq == 2
+        # The bar's move is applied again to the reloaded book; the cursor and bar are kept.
+        assert app.query_one(MoveInput).value == "spot -1%"
+        assert app.result is not None and app.result.valuation is app.state.valuation  # type: ignore[union-attr]

@@ -42,8 +42,12 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
     assert settings.alerts.error_abs == Settings().alerts.error_abs
     assert settings.keymap == {"help": "h,f1"}
 
-    env |= {"BLOTTER_ESTIMATE_ORDER": "2", "BLOTTER_ALERT_ERROR_PCT": "7.5",
-            "BLOTTER_KEYS": "quit=x,f10;group=y,f4", "BLOTTER_TZ": "Asia/Tokyo"}
+    env |= {
+        "BLOTTER_ESTIMATE_ORDER": "2",
+        "BLOTTER_ALERT_ERROR_PCT": "7.5",
+        "BLOTTER_KEYS": "quit=x,f10;group=y,f4",
+        "BLOTTER_TZ": "Asia/Tokyo",
+    }
     settings = load_settings(env=env)
     assert settings.estimate_order == 2 and settings.alerts.error_pct == 7.5
     assert settings.keymap == {"help": "h,f1", "quit": "x,f10", "group": "y,f4"}
@@ -54,16 +58,19 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
     assert settings.read_only and settings.estimate_order == 1
 
 
-@pytest.mark.parametrize("text,words", [
-    ("estimate_order = 3", "estimate_order must be 1 or 2"),
-    ("desk_tz = \"Mars/Base\"", "not a known time zone"),
-    ("colour = \"red\"", "unknown setting 'colour'"),
-    ("[alerts]\nerror_pc = 5", "unknown alert 'error_pc'"),
-    ("[keys]\nquit = \"ctrl+q\"", "does not arrive reliably"),
-    ("[keys]\nnothing = \"x\"", "unknown binding id 'nothing'"),
-    ("watch_interval_s = \"soon\"", "is not a valid float"),
-    ("estimate_order = ", "config.toml"),
-])
+@pytest.mark.parametrize(
+    "text,words",
+    [
+        ("estimate_order = 3", "estimate_order must be 1 or 2"),
+        ('desk_tz = "Mars/Base"', "not a known time zone"),
+        ('colour = "red"', "unknown setting 'colour'"),
+        ("[alerts]\nerror_pc = 5", "unknown alert 'error_pc'"),
+        ('[keys]\nquit = "ctrl+q"', "does not arrive reliably"),
+        ('[keys]\nnothing = "x"', "unknown binding id 'nothing'"),
+        ('watch_interval_s = "soon"', "is not a valid float"),
+        ("estimate_order = ", "config.toml"),
+    ],
+)
 def test_bad_settings_are_refused_with_the_reason(tmp_path: Path, text: str, words: str) -> None:
     path = tmp_path / "config.toml"
     path.write_text(text, encoding="utf-8")
@@ -79,6 +86,8 @@ def test_environment_errors_name_the_variable() -> None:
 
 
 def test_config_does_not_load_textual() -> None:
-    code = "import sys, blotter.config as c; c.load_settings(env={}); print('textual' in sys.modules)"
+    code = (
+        "import sys, blotter.config as c; c.load_settings(env={}); print('textual' in sys.modules)"
+    )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"

@@ -61,10 +61,18 @@ async def test_every_binding_on_the_help_screen_exists(demo_db: Path) -> None:
         help_keys = app.screen.active_bindings
         text = screen_text(app.screen.query_one("#help-keys").visual._renderable)  # type: ignore[attr-defined]
         for spec in KEYS:
-            live = {"app": book_keys, "book": book_keys, "bar": bar_keys, "help": help_keys}[spec.where]
+            live = {"app": book_keys, "book": book_keys, "bar": bar_keys, "help": help_keys}[
+                spec.where
+            ]
             shown = " ".join(key_label(k) for k in spec.keys.split(","))
-            line = next((ln for ln in text.splitlines()
-                         if ln.startswith(shown + " ") and f" {spec.id} " in ln), None)
+            line = next(
+                (
+                    ln
+                    for ln in text.splitlines()
+                    if ln.startswith(shown + " ") and f" {spec.id} " in ln
+                ),
+                None,
+            )
             assert line is not None, f"{spec.id} ({shown}) missing from help"
             assert spec.description in line
             for key in spec.keys.split(","):
@@ -100,7 +108,9 @@ async def test_help_shows_units_grammar_and_cautions(demo_app: object) -> None:
 
 
 async def test_user_keymap_rebinds_by_id(demo_db: Path) -> None:
-    settings = Settings(watch_interval_s=0.0, debounce_ms=0.0, keymap={"group": "y,f4", "help": "h,f1"})
+    settings = Settings(
+        watch_interval_s=0.0, debounce_ms=0.0, keymap={"group": "y,f4", "help": "h,f1"}
+    )
     app = make_app(demo_db, settings, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
@@ -116,18 +126,23 @@ async def test_user_keymap_rebinds_by_id(demo_db: Path) -> None:
         await pilot.pause()
         assert isinstance(app.screen, HelpScreen)
         text = screen_text(app.screen.query_one("#help-keys").visual._renderable)  # type: ignore[attr-defined]
-        assert any(" group " in f" {ln} " and ln.lstrip().startswith("y F4") for ln in text.splitlines())
+        assert any(
+            " group " in f" {ln} " and ln.lstrip().startswith("y F4") for ln in text.splitlines()
+        )
 
 
-@pytest.mark.parametrize("key,check", [
-    ("f4", lambda app: app.query_one(BookTable).group == "expiry"),
-    ("f6", lambda app: app.query_one("#move-pane").order == 1),
-    ("f7", lambda app: app.pane == "ladder"),
-    ("f8", lambda app: app.query_one("#ladder-pane").grid == "estimate"),
-    ("f9", lambda app: app.greek == "delta"),
-    ("ctrl+t", lambda app: app.axis == "days"),
-    ("ctrl+g", lambda app: app.scope == "row"),
-])
+@pytest.mark.parametrize(
+    "key,check",
+    [
+        ("f4", lambda app: app.query_one(BookTable).group == "expiry"),
+        ("f6", lambda app: app.query_one("#move-pane").order == 1),
+        ("f7", lambda app: app.pane == "ladder"),
+        ("f8", lambda app: app.query_one("#ladder-pane").grid == "estimate"),
+        ("f9", lambda app: app.greek == "delta"),
+        ("ctrl+t", lambda app: app.axis == "days"),
+        ("ctrl+g", lambda app: app.scope == "row"),
+    ],
+)
 async def test_aliases_work_while_typing_in_the_bar(demo_db: Path, key: str, check: object) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:

@@ -29,19 +29,26 @@ def _steps(*keys: str, move: str | None = None) -> Any:
         for key in keys:
             await pilot.press(key)
             await settle(app, pilot)
+
     return run_before
 
 
 def test_book_pane(snap_compare: Any, demo_db: Path) -> None:
-    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("down", "e", "down", "e"))
+    assert snap_compare(
+        _app(demo_db), terminal_size=SIZE, run_before=_steps("down", "e", "down", "e")
+    )
 
 
 def test_move_pane(snap_compare: Any, demo_db: Path) -> None:
-    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +2 days 1"))
+    assert snap_compare(
+        _app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +2 days 1")
+    )
 
 
 def test_move_pane_bad_line(snap_compare: Any, demo_db: Path) -> None:
-    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +x"))
+    assert snap_compare(
+        _app(demo_db), terminal_size=SIZE, run_before=_steps(move="spot -3% vol +x")
+    )
 
 
 def test_ladder_pane(snap_compare: Any, demo_db: Path) -> None:
@@ -49,7 +56,9 @@ def test_ladder_pane(snap_compare: Any, demo_db: Path) -> None:
 
 
 def test_profile_pane(snap_compare: Any, demo_db: Path) -> None:
-    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f7", "f7", move="days 1"))
+    assert snap_compare(
+        _app(demo_db), terminal_size=SIZE, run_before=_steps("f7", "f7", move="days 1")
+    )
 
 
 def test_help_screen(snap_compare: Any, demo_db: Path) -> None:

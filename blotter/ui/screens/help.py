@@ -29,7 +29,10 @@ UNITS: tuple[tuple[str, str], ...] = (
     ("volga", "change in vega for +1 vol point"),
     ("βΔ $", "Δ $ × the underlying's beta to the book's reference index"),
     ("full", "Move pane: change in book value by full revaluation under the move"),
-    ("est 1 / est 2", "greeks' (Taylor) estimate, first order (Δ, vega, θ, ρ) or with Γ, volga, vanna"),
+    (
+        "est 1 / est 2",
+        "greeks' (Taylor) estimate, first order (Δ, vega, θ, ρ) or with Γ, volga, vanna",
+    ),
     ("error", "full − estimate, in currency; err % = error as a share of |full|"),
     ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
     ("Ladder", "spot shocks in %, vol shocks in points, cells in the book's currency"),
@@ -74,8 +77,11 @@ def grammar_text() -> str:
     rule = doc.rsplit("\n\n", 1)[-1] if "sticky" in doc.rsplit("\n\n", 1)[-1] else ""
     if rule:
         lines += ["", " ".join(rule.split())]
-    lines += ["", "Keywords are case-insensitive; parts combine in any order and apply together. "
-              "A line that does not parse leaves the last good result on screen."]
+    lines += [
+        "",
+        "Keywords are case-insensitive; parts combine in any order and apply together. "
+        "A line that does not parse leaves the last good result on screen.",
+    ]
     return "\n".join(lines)
 
 
@@ -87,8 +93,9 @@ def keys_table(bound: dict[str, str]) -> Table:
     table.add_column("does")
     for spec in KEYS:
         keys = bound.get(spec.id, spec.keys)
-        table.add_row(" ".join(key_label(k.strip()) for k in keys.split(",")), spec.id,
-                      spec.description)
+        table.add_row(
+            " ".join(key_label(k.strip()) for k in keys.split(",")), spec.id, spec.description
+        )
     table.add_row("Tab", "", "Next field (book ↔ bar); Shift+Tab back")
     table.add_row("Enter", "", "Book: expand or collapse the row under the cursor")
     return table

@@ -19,9 +19,19 @@ from blotter.ui import fmt
 from blotter.ui.data import BOOK_COLUMNS, BookRow, BookTree
 from blotter.ui.keys import app_bindings
 
-COLUMN_WIDTHS = {"spot": 8, "delta_cash": 11, "gamma_1pct": 8, "vega_pt": 9, "theta_day": 8,
-                 "delta_shares": 10, "value": 12, "rho_pct": 8, "vanna_pt": 8, "volga_pt": 8,
-                 "beta_delta_cash": 11}
+COLUMN_WIDTHS = {
+    "spot": 8,
+    "delta_cash": 11,
+    "gamma_1pct": 8,
+    "vega_pt": 9,
+    "theta_day": 8,
+    "delta_shares": 10,
+    "value": 12,
+    "rho_pct": 8,
+    "vanna_pt": 8,
+    "volga_pt": 8,
+    "beta_delta_cash": 11,
+}
 """Fixed widths in cells so in-place updates never reflow the table."""
 
 LABEL_WIDTH = 16
@@ -44,12 +54,13 @@ class BookTable(DataTable[str | Text]):
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("book"))
 
     def __init__(self) -> None:
-        super().__init__(id="book-table", cursor_type="cell", zebra_stripes=False,
-                         fixed_columns=1, fixed_rows=0)
+        super().__init__(
+            id="book-table", cursor_type="cell", zebra_stripes=False, fixed_columns=1, fixed_rows=0
+        )
         self.source: BookTree | None = None
         self.group = "underlying"
         self.expanded: set[str] = set()
-        self.sort_column: str | None = None      # None = the natural order (symbol or expiry)
+        self.sort_column: str | None = None  # None = the natural order (symbol or expiry)
         self.sort_reverse = False
         self._visible: list[BookRow] = []
         self.expandable_keys: set[str] = set()
@@ -93,8 +104,9 @@ class BookTable(DataTable[str | Text]):
             glyph = "▾ " if row.key in self.expanded else "▸ "
         else:
             glyph = "· "
-        text = Text("  " * max(row.level - 1, 0) + glyph + row.label, no_wrap=True,
-                    overflow="ellipsis")
+        text = Text(
+            "  " * max(row.level - 1, 0) + glyph + row.label, no_wrap=True, overflow="ellipsis"
+        )
         if row.alert:
             text.append(" !", style="bold")
         if row.level == 0:
@@ -113,8 +125,9 @@ class BookTable(DataTable[str | Text]):
                 if old.values != new.values or old.label != new.label or old.alert != new.alert:
                     for i, (col, _) in enumerate(BOOK_COLUMNS):
                         if old.values[i] != new.values[i]:
-                            self.update_cell(new.key, col, _cell(col, new.values[i]),
-                                             update_width=False)
+                            self.update_cell(
+                                new.key, col, _cell(col, new.values[i]), update_width=False
+                            )
                     self.update_cell(new.key, "label", self._label(new), update_width=False)
             self._visible = rows
             return
@@ -122,11 +135,13 @@ class BookTable(DataTable[str | Text]):
         column = self.cursor_coordinate.column
         self.clear()
         for row in rows:
-            self.add_row(self._label(row),
-                         *[_cell(col, row.values[i]) for i, (col, _) in enumerate(BOOK_COLUMNS)],
-                         key=row.key)
+            self.add_row(
+                self._label(row),
+                *[_cell(col, row.values[i]) for i, (col, _) in enumerate(BOOK_COLUMNS)],
+                key=row.key,
+            )
         self._visible = rows
-        self.fixed_rows = 1 if rows else 0   # the total row stays in view
+        self.fixed_rows = 1 if rows else 0  # the total row stays in view
         self.expandable_keys = {r.key for r in rows if r.expandable}
         if cursor_key is not None and cursor_key in {r.key for r in rows}:
             self.move_cursor(row=self.get_row_index(cursor_key), column=column, animate=False)
@@ -200,4 +215,3 @@ class BookTable(DataTable[str | Text]):
 
     def action_toggle_row(self) -> None:
         self.toggle()
-

@@ -20,8 +20,11 @@ from blotter.ui import fmt
 GRIDS = ("full", "estimate", "error")
 """What the grid can show, in the order the grid key cycles through them."""
 
-GRID_TITLES = {"full": "full revaluation P&L", "estimate": "greeks' estimate (2nd order)",
-               "error": "error = full − estimate"}
+GRID_TITLES = {
+    "full": "full revaluation P&L",
+    "estimate": "greeks' estimate (2nd order)",
+    "error": "error = full − estimate",
+}
 
 WORST = "▼"
 """Marks the worst cell (largest loss of the full revaluation)."""
@@ -32,7 +35,11 @@ def worst_cell(ladder: Any) -> tuple[int, int] | None:
     worst = getattr(ladder, "worst", None)
     if worst is None:
         return None
-    if isinstance(worst, tuple) and len(worst) == 2 and all(isinstance(v, (int, np.integer)) for v in worst):
+    if (
+        isinstance(worst, tuple)
+        and len(worst) == 2
+        and all(isinstance(v, (int, np.integer)) for v in worst)
+    ):
         return int(worst[0]), int(worst[1])
     for a, b in (("spot_index", "vol_index"), ("i", "j"), ("row", "col")):
         if hasattr(worst, a) and hasattr(worst, b):
@@ -76,8 +83,9 @@ class LadderPane(VerticalScroll):
         worst = worst_cell(ladder)
         roll = f", after {self.days:g} day{'s' if self.days != 1 else ''}" if self.days else ""
         rule = str(getattr(ladder, "rule", "") or "")
-        self.border_title = (f"Ladder: {GRID_TITLES[self.grid]}{roll} ─ {rule}"
-                             + (f" ─ {WORST} worst" if worst else ""))
+        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{roll} ─ {rule}" + (
+            f" ─ {WORST} worst" if worst else ""
+        )
         table = Table(box=None, pad_edge=False, padding=(0, 1))
         table.add_column("spot \\ vol", justify="right", no_wrap=True)
         for v in vol_pts:
@@ -95,5 +103,8 @@ class LadderPane(VerticalScroll):
         self.query_one("#ladder-grid", Static).update(table)
         legend = f"{WORST} worst cell of the full P&L. " if worst else ""
         self.query_one("#ladder-rule", Static).update(
-            Text(f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
-                 "in points; cells: P&L in the book's currency."))
+            Text(
+                f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
+                "in points; cells: P&L in the book's currency."
+            )
+        )

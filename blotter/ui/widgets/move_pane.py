@@ -20,8 +20,13 @@ from blotter.config import Alerts
 from blotter.ui import fmt
 
 TERMS: tuple[tuple[str, str], ...] = (
-    ("delta", "Δ"), ("gamma", "Γ"), ("vega", "vega"), ("volga", "volga"), ("vanna", "vanna"),
-    ("theta", "θ"), ("rho", "ρ"),
+    ("delta", "Δ"),
+    ("gamma", "Γ"),
+    ("vega", "vega"),
+    ("volga", "volga"),
+    ("vanna", "vanna"),
+    ("theta", "θ"),
+    ("rho", "ρ"),
 )
 """Taylor terms of the estimate, in column order, with their headers."""
 
@@ -48,7 +53,7 @@ def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
 
 
 class MovePane(Vertical):
-    """The grid of rows (total first, then each underlying) and a line listing expiring positions."""
+    """The grid (total first, then each underlying) and a line listing expiring positions."""
 
     def __init__(self, alerts: Alerts, order: int) -> None:
         super().__init__(id="move-pane", classes="pane")
@@ -57,8 +62,8 @@ class MovePane(Vertical):
         self.result: Any = None
         self.text = ""
         self._summary = ""
-        self.stale_line = False   # the bar holds a line that does not parse
-        self.cells: dict[tuple[str, str], str] = {}   # (row key, column) -> text shown
+        self.stale_line = False  # the bar holds a line that does not parse
+        self.cells: dict[tuple[str, str], str] = {}  # (row key, column) -> text shown
         self.row_keys: list[str] = []
         self.border_title = "Move: type a move in the bar, e.g. spot -3% vol +2 days 1"
 
@@ -72,9 +77,11 @@ class MovePane(Vertical):
 
     def _header(self) -> Text:
         n = self.order
-        head = (f"{'underlying':<{LABEL_WIDTH}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
-                f"{f'error {n}':>{MONEY_WIDTH + 1}}{'err %':>{PCT_WIDTH}}"
-                + "".join(f"{h:>{TERM_WIDTH}}" for _, h in TERMS))
+        head = (
+            f"{'underlying':<{LABEL_WIDTH}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
+            f"{f'error {n}':>{MONEY_WIDTH + 1}}{'err %':>{PCT_WIDTH}}"
+            + "".join(f"{h:>{TERM_WIDTH}}" for _, h in TERMS)
+        )
         return Text(head, style="bold")
 
     def _row(self, key: str, row: Any) -> Text:
@@ -124,11 +131,14 @@ class MovePane(Vertical):
         grid.no_wrap = True
         # Same rows, fixed-width columns: the size is unchanged, so skip the layout pass.
         self.query_one("#move-grid", Static).update(grid, layout=not same_shape)
-        flagged = sum(error_flagged(r.full, getattr(r, f"error_{self.order}"), self.alerts)
-                      for _, r in rows)
+        flagged = sum(
+            error_flagged(r.full, getattr(r, f"error_{self.order}"), self.alerts) for _, r in rows
+        )
         order = "1st" if self.order == 1 else "2nd"
-        title = (f"Move: {self._summary} ─ {order}-order estimate ─ {FLAG} |error| > "
-                 f"{self.alerts.error_pct:g}% & > {self.alerts.error_abs:,.0f}")
+        title = (
+            f"Move: {self._summary} ─ {order}-order estimate ─ {FLAG} |error| > "
+            f"{self.alerts.error_pct:g}% & > {self.alerts.error_abs:,.0f}"
+        )
         if flagged:
             title += f" ─ {flagged} {FLAG}"
         if self.stale_line:

@@ -37,15 +37,22 @@ class ProfilePane(Vertical):
         plt = plot.plt
         plt.clear_figure()
         plt.xlabel(profile.x_label)
-        peak = max((abs(y) for ys in profile.series.values() for y in ys if math.isfinite(y)),
-                   default=0.0)
-        scale, suffix = (1e6, " millions") if peak >= 1e7 else (1e3, " thousands") if peak >= 1e4 \
-            else (1.0, "")
+        peak = max(
+            (abs(y) for ys in profile.series.values() for y in ys if math.isfinite(y)), default=0.0
+        )
+        scale, suffix = (
+            (1e6, " millions") if peak >= 1e7 else (1e3, " thousands") if peak >= 1e4 else (1.0, "")
+        )
         for i, (name, ys) in enumerate(profile.series.items()):
             xs = [x for x, y in zip(profile.xs, ys, strict=True) if math.isfinite(y)]
             clean = [y / scale for y in ys if math.isfinite(y)]
             if xs:
-                plt.plot(xs, clean, marker=MARKERS[i % len(MARKERS)], label=f"{MARKERS[i % len(MARKERS)]} {name}")
+                plt.plot(
+                    xs,
+                    clean,
+                    marker=MARKERS[i % len(MARKERS)],
+                    label=f"{MARKERS[i % len(MARKERS)]} {name}",
+                )
         plt.ylabel(profile.y_label + suffix)
         plot.refresh()
         self.border_title = profile.title + (f" ─ {profile.note}" if profile.note else "")

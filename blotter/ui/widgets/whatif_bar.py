@@ -22,9 +22,12 @@ class MoveInput(Input):
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("bar"))
 
     def __init__(self) -> None:
-        super().__init__(placeholder="what-if: spot -3% vol +2 days 1   (? help)",
-                         id="whatif-input", select_on_focus=False)
-        self.cursor_blink = False   # a blinking cursor is a timer; idle means none
+        super().__init__(
+            placeholder="what-if: spot -3% vol +2 days 1   (? help)",
+            id="whatif-input",
+            select_on_focus=False,
+        )
+        self.cursor_blink = False  # a blinking cursor is a timer; idle means none
         self.history: list[str] = []
         self._recall: int | None = None
 
@@ -57,7 +60,9 @@ class WhatIfBar(Horizontal):
     def show_ok(self, summary: str, text: str = "") -> None:
         """A move parsed and applied: say what it was read as when that differs from ``text``."""
         same = " ".join(text.split()).lower() == summary.lower()
-        self.query_one("#whatif-message", Static).update(Text("✓ applied" if same else "✓ read as " + summary))
+        self.query_one("#whatif-message", Static).update(
+            Text("✓ applied" if same else "✓ read as " + summary)
+        )
         self.remove_class("-bad")
 
     def show_error(self, text: str, message: str, start: int, end: int) -> None:
