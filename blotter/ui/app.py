@@ -21,7 +21,7 @@ from textual.app import App, ComposeResult
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
-from textual.widgets import Footer, Input, Static
+from textual.widgets import DataTable, Footer, Input, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
@@ -108,6 +108,7 @@ class BlotterApp(App[None]):
         self.greek = "pnl"
         self.axis = "spot"
         self.scope = "book"
+        self._profile_row = -1
         self.data_version: int | None = None
         self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
         self.first_paint: float | None = None
@@ -561,6 +562,13 @@ class BlotterApp(App[None]):
     def action_toggle_scope(self) -> None:
         self.scope = "row" if self.scope == "book" else "book"
         self.start_profile()
+
+    @on(DataTable.CellHighlighted, "#book-table")
+    def _book_cursor_moved(self, event: DataTable.CellHighlighted) -> None:
+        """With the profile on the selected row, it follows the cursor to another row."""
+        if self.scope == "row" and event.coordinate.row != self._profile_row:
+            self._profile_row = event.coordinate.row
+            self.start_profile()
 
     def action_reload(self) -> None:
         self.load_book()

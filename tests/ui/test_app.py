@@ -326,3 +326,64 @@ async def test_a_commit_by_another_connection_reloads_the_book(demo_db: Path) ->
         # The bar's move is applied again to the reloaded book; the cursor and bar are kept.
         assert app.query_one(MoveInput).value == "spot -1%"
         assert app.result is not None and app.result.valuation is app.state.valuation  # type: ignore[union-attr]
+
+
+async def test_expiring_positions_and_pin_risk_listed(demo_app: BlotterApp) -> None:
+    async with demo_app.run_test(size=(160, 48)) as pilot:
+        await settle(demo_app, pilot)
+        await type_move(demo_app, pilot, "days 30")
+        result = demo_app.result
+        assert result is not None and result.expiring, "the demo book has options within 30 days"
+        line = str(demo_app.query_one("#move-expiring").render())
+        assert f"Expiring inside the move ({len(result.expiring)})" in line
+        pins = [e for e in result.expiring[:6] if e.pin_risk]
+        assert line.count("PIN RISK") == len(pins)
+
+
+async def test_limit_breach_shown_in_words_and_by_symbol(demo_db: Path) -> None:
+    from dataclasses import replace
+
+    from blotter.config import Alerts
+
+    settings = replace(TEST_SETTINGS, alerts=Alerts(delta_cash=1.0))
+    app = make_app(demo_db, settings, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        header = str(app.query_one("#header-line").render())
+        assert "! book |Δ $| over 1" in header
+        rows = app.query_one(BookTable).visible_rows()
+        assert all(r.alert for r in rows if r.level <= 1)
+        assert str(app.query_one(BookTable).get_cell("total", "label")).endswith(" !")
+
+
+async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
+    from blotter.ui.data import sub_book
+
+    async with demo_app.run_test(size=(160, 48)) as pilot:
+        await settle(demo_app, pilot)
+        await pilot.press("down")  # the first underlying
+        await pilot.press("p")  # profile scope: the selected row
+        await settle(demo_app, pilot)
+        state = demo_app.state
+        assert state is not None
+        table = demo_app.query_one(BookTable)
+        key = table.cursor_row_key()
+        assert key is not None and key.startswith("u|")
+        profile = demo_app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        assert profile.title.startswith(f"Profile: P&L of {key[2:]} ")
+        rows = state.tree.rows_of(key)
+        alone = risk.value_book(
+            sub_book(state.valuation.book, rows),
+            state.valuation.market,
+            state.valuation.valuation_time,
+        )
+        np.testing.assert_allclose(
+            profile.series["today"], scenario.ladder(alone, list(profile.xs), (0.0,)).full[:, 0]
+        )
+        # Days-forward axis: P&L is scenario's full change for each roll.
+        await pilot.press("a")
+        await settle(demo_app, pilot)
+        profile = demo_app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        d = profile.xs[3]
+        expected = scenario.apply_move(alone, scenario.parse_move(f"days {d:g}")).total.full
+        assert profile.series["P&L"][3] == pytest.approx(expected)
