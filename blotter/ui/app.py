@@ -487,6 +487,14 @@ class BlotterApp(App[None]):
             self.query_one(ProfilePane).show(message.profile)
 
     # -- actions ---------------------------------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """On the help screen only its own keys (and help, quit) apply; the footer shows them."""
+        from blotter.ui.screens.help import HelpScreen
+
+        if isinstance(self.screen, HelpScreen) and action not in ("help", "quit", "close"):
+            return False
+        return True
+
     def action_help(self) -> None:
         from blotter.ui.screens.help import HelpScreen
 

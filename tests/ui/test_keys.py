@@ -96,7 +96,8 @@ async def test_help_shows_units_grammar_and_cautions(demo_app: object) -> None:
         units = screen_text(screen.query_one("#help-units").visual._renderable)
         for header in ("Δ $", "Γ 1%", "vega", "θ day", "ρ 1%", "vanna", "volga", "Δ sh"):
             assert header in units
-        grammar = str(screen.query_one("#help-grammar").render())
+        assert "[alerts] error_pct" in units
+        grammar = screen_text(screen.query_one("#help-grammar").visual._renderable)
         for example, _meaning in scenario.EXAMPLES:
             assert example in grammar
         cautions = str(screen.query_one("#help-cautions").render())

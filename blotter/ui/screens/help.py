@@ -85,6 +85,23 @@ def grammar_text() -> str:
     return "\n".join(lines)
 
 
+def grammar_table() -> Table:
+    """The grammar as two columns (example, meaning), then the notes under it."""
+    table = Table(box=None, pad_edge=False, show_header=False)
+    table.add_column(no_wrap=True)
+    table.add_column()
+    notes: list[str] = []
+    for line in grammar_text().splitlines():
+        example, sep, meaning = line.partition("   ")
+        if sep and example.strip():
+            table.add_row(Text(example.strip()), Text(meaning.strip()))
+        elif line.strip():
+            notes.append(line.strip())
+    for note in notes:
+        table.add_row(Text(""), Text(note))
+    return table
+
+
 def keys_table(bound: dict[str, str]) -> Table:
     """Every binding: the keys in force (``bound`` maps binding id -> keys), id and what it does."""
     table = Table(box=None, pad_edge=False, show_header=True, header_style="bold")
@@ -120,10 +137,10 @@ class HelpScreen(Screen[None]):
             units.add_column(no_wrap=True)
             units.add_column()
             for name, meaning in UNITS:
-                units.add_row(name, meaning)
+                units.add_row(Text(name), Text(meaning))
             yield Static(units, id="help-units")
             yield Static("What-if grammar (the bar; also `blotter whatif`)", classes="help-heading")
-            yield Static(Text(grammar_text()), id="help-grammar")
+            yield Static(grammar_table(), id="help-grammar")
             yield Static("Cautions", classes="help-heading")
             yield Static(Text("\n".join(CAUTIONS)), id="help-cautions")
         yield Footer()
