@@ -24,13 +24,13 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
     ("spot", "Spot"),
     ("delta_cash", "Δ $"),
     ("gamma_1pct", "Γ 1%"),
-    ("vega_pt", "vega"),
+    ("vega_pt", "vega pt"),
     ("theta_day", "θ day"),
     ("delta_shares", "Δ sh"),
     ("value", "Value"),
     ("rho_pct", "ρ 1%"),
-    ("vanna_pt", "vanna"),
-    ("volga_pt", "volga"),
+    ("vanna_pt", "vanna pt"),
+    ("volga_pt", "volga pt"),
     ("beta_delta_cash", "βΔ $"),
 )
 """(risk field, header) of the Book pane in screen order; the units are on the help screen."""
