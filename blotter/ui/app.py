@@ -58,7 +58,7 @@ PANES = ("move", "ladder", "profile")
 
 GREEKS = (
     ("pnl", "P&L", "value"),
-    ("delta", "Δ sh", "delta_shares"),
+    ("delta", "Δ $", "delta_cash"),
     ("gamma", "Γ 1%", "gamma_1pct"),
     ("vega", "vega", "vega_pt"),
     ("theta", "θ day", "theta_day"),

@@ -314,7 +314,7 @@ class ProfileData:
 
 
 PROFILE_FIELDS = {
-    "delta": ("delta_shares", "Δ sh (shares)"),
+    "delta": ("delta_cash", "Δ $ (currency)"),
     "gamma": ("gamma_1pct", "Γ 1% (shares)"),
     "vega": ("vega_pt", "vega (per vol pt)"),
     "theta": ("theta_day", "θ day (per day)"),
@@ -426,11 +426,13 @@ def profile(
                 )
                 for d in xs
             )
-    names = {"pnl": "P&L", "delta": "Δ sh", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
+    names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
     title = (
         f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
     )
     note = "sticky-strike vols" if axis == "spot" else "spot and vols held"
+    if greek == "gamma" and len(symbols) > 1:
+        note += "; Γ 1% adds share counts of different names"
     return ProfileData(
         title=title,
         x_label=x_label,

@@ -64,7 +64,7 @@ KEYS: tuple[KeySpec, ...] = (
         "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate", short="Order"
     ),
     KeySpec("grid", "next_grid", "x,f8", "Ladder: full P&L, estimate or error grid"),
-    KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ sh, Γ 1%, vega or θ day"),
+    KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ $, Γ 1%, vega or θ day"),
     KeySpec("axis", "toggle_axis", "a,ctrl+t", "Profile: against spot or days forward"),
     KeySpec("scope", "toggle_scope", "p,ctrl+g", "Profile: whole book or the selected row"),
     KeySpec("reload", "reload", "r,ctrl+r", "Reload the book and marks from the file"),

@@ -227,15 +227,13 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
             profile.series["after 2 days"],
             scenario.ladder(state.valuation, spot_pcts, (0.0,), days=2.0).full[:, 0],
         )
-        # The greek view: Δ sh of the book at the base spot is risk's total.
+        # The greek view: Δ $ of the book at the base spot is risk's total.
         await pilot.press("f9")
         await settle(app, pilot)
         profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
         mid = len(profile.xs) // 2
         assert profile.xs[mid] == 0.0
-        assert profile.series["today"][mid] == pytest.approx(
-            risk.total(state.valuation).delta_shares
-        )
+        assert profile.series["today"][mid] == pytest.approx(risk.total(state.valuation).delta_cash)
 
 
 async def test_too_small_says_what_size_is_needed(demo_app: BlotterApp) -> None:
