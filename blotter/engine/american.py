@@ -31,6 +31,7 @@ import numpy as np
 from scipy.special import ndtr
 
 from blotter.engine import black
+from blotter.engine._bs2002_grad import bs2002_call_grad
 from blotter.engine._validate import omega
 from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_weighted_sum
 
@@ -298,84 +299,128 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
     of ``american_value`` evaluating all 15 bumped copies together.
     """
     w, s, k, t, r, b, v = np.broadcast_arrays(omega(ins[0]), *ins[1:], outs[0])[:-1]
-    euro_rows = _european_rows(w, s, k, t, r, b, v)
+    euro_rows, euro = _european_rows(w, s, k, t, r, b, v)
     if euro_rows.any():
         black.greeks_kernel((w, s, k, t, r, b, v), outs)
+        # The price kernel's value, so that prices equal ``price_kernel``'s to the last bit.
+        np.copyto(outs[0], euro, where=euro_rows)
         fd = np.flatnonzero(~euro_rows)
         if fd.size:
             sub = [np.empty(fd.size) for _ in outs]
-            _difference_greeks([a[fd] for a in (w, s, k, t, r, b, v)], sub)
+            _analytic_greeks([a[fd] for a in (w, s, k, t, r, b, v)], sub)
             for o, so in zip(outs, sub, strict=True):
                 o[fd] = so
         return
-    _difference_greeks([w, s, k, t, r, b, v], outs)
+    _analytic_greeks([w, s, k, t, r, b, v], outs)
 
 
 def _european_rows(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
-                   b: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """Live rows whose American value is the European one for all nearby inputs."""
+                   b: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Live rows whose American value is the European one for all nearby inputs, and the
+    European prices (``black.price_kernel``) where that mask is set."""
     calls = w > 0
     no_early = np.where(calls, (b > r) & (r >= 0.0), (r < 0.0) & (b <= r))
     live = (t > 0.0) & no_early
     if not live.any():
-        return live
+        return live, np.zeros(s.shape)
     # The European value must also stay clear of intrinsic, where the floor takes over.
     euro = np.empty(s.shape)
     black.price_kernel((w, s, k, t, r, b, v), (euro,))
     clear = euro > np.maximum(w * (s - k), 0.0) + 1e-6 * k
     out: np.ndarray = live & clear
-    return out
+    return out, euro
 
 
-def _difference_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-    """Central-difference greeks of ``american_value`` (steps ``STEPS``), arrays of one shape."""
+def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
+                        r: np.ndarray, b: np.ndarray, v: np.ndarray
+                        ) -> tuple[np.ndarray, np.ndarray]:
+    """``american_value`` (the same numbers) and its gradient (5, m) in (S, σ, T, r, b).
+
+    Each row's gradient is that of the term that sets its value: the 2002 formula (exact
+    derivatives, ``_bs2002_grad``), the European floor (analytic) or intrinsic (delta 0 or ±1,
+    the rest 0). Puts map back from the call form: ∂P/∂S = ∂C/∂K_c, found from the formula's
+    homogeneity C = S_c ∂C/∂S_c + K_c ∂C/∂K_c; ∂P/∂b = −∂C/∂r_c − ∂C/∂b_c.
+    """
+    m = s.shape[0]
+    euro = np.empty(m)
+    black.price_kernel((w, s, k, t, r, b, v), (euro,))
+    eg = [np.empty(m) for _ in range(10)]
+    black.greeks_kernel((w, s, k, t, r, b, v), eg)
+    intrinsic = np.maximum(w * (s - k), 0.0)
+    out: np.ndarray = np.maximum(euro, intrinsic)
+    grad = np.zeros((5, m))
+    use_euro = euro >= intrinsic
+    grad[0] = np.where(use_euro, eg[1], np.where(w * (s - k) > 0.0, w, 0.0))
+    grad[1] = np.where(use_euro, eg[3], 0.0)
+    grad[2] = np.where(use_euro, -eg[4], 0.0)
+    grad[3] = np.where(use_euro, eg[5], 0.0)
+    grad[4] = np.where(use_euro, eg[6], 0.0)
+    put = w < 0
+    s_c = np.where(put, k, s)
+    k_c = np.where(put, s, k)
+    r_c = np.where(put, r - b, r)
+    b_c = np.where(put, -b, b)
+    v_c = np.maximum(v, VOL_FLOOR)
+    bv = b_c / (v_c * v_c)
+    disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
+    beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
+    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
+    if live.any():
+        idx = np.flatnonzero(live)
+        t_c = np.maximum(t[idx], black.YEARS_FLOOR)
+        bs, gc = bs2002_call_grad(s_c[idx], k_c[idx], t_c, r_c[idx], b_c[idx], v_c[idx])
+        win = bs > out[idx]
+        out[idx] = np.maximum(out[idx], bs)
+        sel = idx[win]
+        gc = gc[:, win]
+        bs = bs[win]
+        pw = put[sel]
+        d_kc = (bs - s_c[sel] * gc[0]) / k_c[sel]
+        grad[0, sel] = np.where(pw, d_kc, gc[0])
+        grad[1, sel] = np.where(v[sel] >= VOL_FLOOR, gc[1], 0.0)
+        grad[2, sel] = np.where(t[sel] >= black.YEARS_FLOOR, gc[2], 0.0)
+        grad[3, sel] = gc[3]
+        grad[4, sel] = np.where(pw, -gc[3] - gc[4], gc[4])
+    return out, grad
+
+
+def _analytic_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+    """Greeks of ``american_value``, arrays of one shape (m,).
+
+    First-order greeks are exact derivatives (``american_value_grad``) at the inputs; gamma,
+    vanna and charm are central differences of delta, vega and theta over spot ± ``STEPS``
+    ["spot_rel"] × S, and volga the second difference of the price over vol ± ``STEPS["vol"]``.
+    One call evaluates the three spot copies together, one more the two vol copies.
+    """
     w, s, k, t, r, b, v = ins
     price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
+    m = s.shape[0]
     hs = STEPS["spot_rel"] * s
     hv = STEPS["vol"]
-    hr = STEPS["rate"]
-    hb = STEPS["carry"]
-    ht = STEPS["years_rel"] * np.maximum(t, 0.0)
-    # Bumps: (dS, dσ, dr, db, dT) per copy, in units of the steps above.
-    bumps = np.array([
-        [0, 0, 0, 0, 0],
-        [1, 0, 0, 0, 0], [-1, 0, 0, 0, 0],
-        [0, 1, 0, 0, 0], [0, -1, 0, 0, 0],
-        [0, 0, 1, 0, 0], [0, 0, -1, 0, 0],
-        [0, 0, 0, 1, 0], [0, 0, 0, -1, 0],
-        [0, 0, 0, 0, 1], [0, 0, 0, 0, -1],
-        [1, 1, 0, 0, 0], [-1, -1, 0, 0, 0],
-        [1, 0, 0, 0, 1], [-1, 0, 0, 0, -1],
-    ], dtype=np.float64)
-    n_b = bumps.shape[0]
     vg = np.maximum(v, hv)                    # centre of the vol differences, so σ − h >= 0
-    sv = s + bumps[:, 0:1] * hs
-    vv = vg + bumps[:, 1:2] * hv
-    rv = r + bumps[:, 2:3] * hr
-    bv = b + bumps[:, 3:4] * hb
-    tv = t + bumps[:, 4:5] * ht
-    vals = american_value(np.broadcast_to(w, sv.shape).ravel(), sv.ravel(),
-                          np.broadcast_to(k, sv.shape).ravel(), tv.ravel(), rv.ravel(),
-                          bv.ravel(), vv.ravel()).reshape(n_b, -1)
-    f0 = vals[0]
-    fs_p, fs_m, fv_p, fv_m, fr_p, fr_m, fb_p, fb_m, ft_p, ft_m = vals[1:11]
-    fsv_p, fsv_m, fst_p, fst_m = vals[11:]
+    f, g = american_value_grad(np.tile(w, 3), np.concatenate([s, s + hs, s - hs]),
+                               np.tile(k, 3), np.tile(t, 3), np.tile(r, 3), np.tile(b, 3),
+                               np.tile(vg, 3))
+    f0 = f[:m]
+    g = g.reshape(5, 3, m)
+    fv = american_value(np.tile(w, 2), np.tile(s, 2), np.tile(k, 2), np.tile(t, 2),
+                        np.tile(r, 2), np.tile(b, 2),
+                        np.concatenate([vg + hv, vg - hv])).reshape(2, m)
     low_vol = v < hv
     if low_vol.any():
         price[:] = np.where(low_vol, american_value(w, s, k, t, r, b, v), f0)
     else:
         price[:] = f0
-    delta[:] = (fs_p - fs_m) / (2.0 * hs)
-    gamma[:] = (fs_p - 2.0 * f0 + fs_m) / (hs * hs)
-    vega[:] = (fv_p - fv_m) / (2.0 * hv)
-    volga[:] = (fv_p - 2.0 * f0 + fv_m) / (hv * hv)
-    rho[:] = (fr_p - fr_m) / (2.0 * hr)
-    crho[:] = (fb_p - fb_m) / (2.0 * hb)
-    safe_ht = np.where(ht > 0, ht, 1.0)
-    theta[:] = -(ft_p - ft_m) / (2.0 * safe_ht)
-    # Seven-point mixed differences: f_xy ≈ (f++ − f+0 − f0+ + 2 f00 − f−0 − f0− + f−−) / (2 hx hy)
-    vanna[:] = (fsv_p - fs_p - fv_p + 2.0 * f0 - fs_m - fv_m + fsv_m) / (2.0 * hs * hv)
-    charm[:] = -(fst_p - fs_p - ft_p + 2.0 * f0 - fs_m - ft_m + fst_m) / (2.0 * hs * safe_ht)
+    delta[:] = g[0, 0]
+    vega[:] = g[1, 0]
+    theta[:] = -g[2, 0]
+    rho[:] = g[3, 0]
+    crho[:] = g[4, 0]
+    two_hs = 2.0 * hs
+    gamma[:] = (g[0, 1] - g[0, 2]) / two_hs
+    vanna[:] = (g[1, 1] - g[1, 2]) / two_hs
+    charm[:] = -(g[2, 1] - g[2, 2]) / two_hs
+    volga[:] = (fv[0] - 2.0 * f0 + fv[1]) / (hv * hv)
     dead = t <= 0.0
     if dead.any():
         black.expired_fill(w, s, k, t, outs)

@@ -95,3 +95,47 @@ def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs
         acc += tmp
     total: np.ndarray = np.einsum("j,jm->m", np.sign(scale) * signs, acc, optimize=False)
     return total
+
+
+def bvn_weighted_sum_grad(hk: np.ndarray, hs: np.ndarray, h: np.ndarray, k: np.ndarray,
+                          log_coef: np.ndarray, signs: np.ndarray, sign: int
+                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """``bvn_weighted_sum`` (same operations, same total) with the parts its derivatives need.
+
+    ``h``, ``k`` (J, m) are the arguments behind ``hk`` and ``hs``. Returns (total (m,),
+    terms (J, m), d/dh (J, m), d/dk (J, m)): ``terms`` are the signed rows of the sum (each is
+    also its derivative in its own ``log_coef``), and d/dh, d/dk the derivatives of those rows
+    in h and k, from the quadrature sum itself: d/dh e^{a hk − b hs} = (a k − 2 b h) e^{...}.
+    """
+    a_coef, b_coef, log_w, scale = _RULES[sign]
+    shift = np.minimum(log_coef + math.log(abs(scale)), 600.0)
+    acc = np.zeros(hk.shape)
+    acc_a = np.zeros(hk.shape)
+    acc_b = np.zeros(hk.shape)
+    tmp = np.empty(hk.shape)
+    tmp2 = np.empty(hk.shape)
+    for i in range(NODES):
+        np.multiply(hk, a_coef[i], out=tmp)
+        np.multiply(hs, b_coef[i], out=tmp2)
+        tmp -= tmp2
+        tmp += shift
+        np.maximum(tmp, EXP_FLOOR, out=tmp)
+        np.exp(tmp, out=tmp)
+        tmp *= math.exp(log_w[i])
+        acc += tmp
+        np.multiply(tmp, a_coef[i], out=tmp2)
+        acc_a += tmp2
+        np.multiply(tmp, b_coef[i], out=tmp2)
+        acc_b += tmp2
+    coef = np.sign(scale) * signs
+    total: np.ndarray = np.einsum("j,jm->m", coef, acc, optimize=False)
+    col = coef[:, None]
+    acc *= col
+    acc_a *= col
+    acc_b *= col
+    acc_b *= 2.0
+    d_h = k * acc_a
+    d_h -= h * acc_b
+    d_k = h * acc_a
+    d_k -= k * acc_b
+    return total, acc, d_h, d_k
