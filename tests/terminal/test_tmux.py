@@ -105,6 +105,8 @@ def session(request: pytest.FixtureRequest, demo_db: Path, tmp_path: Path) -> It
         yield tmux
     finally:
         tmux.tmux("kill-server", check=False)  # our own server only (-L)
+        socket_dir = Path(os.environ.get("TMUX_TMPDIR") or "/tmp") / f"tmux-{os.getuid()}"
+        (socket_dir / tmux.socket).unlink(missing_ok=True)
 
 
 def test_app_in_tmux_80x24(session: Tmux) -> None:
