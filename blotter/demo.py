@@ -28,7 +28,7 @@ DEMO_SEED = 20261201
 DEMO_POSITIONS = 150
 """Number of option positions in the shipped demo book."""
 
-DEMO_AS_OF = date(2026, 11, 24)
+DEMO_AS_OF = date(2026, 11, 30)
 """Date of the demo's second (latest) close; the first close is the business day before."""
 
 DEMO_TZ = ZoneInfo("America/New_York")

@@ -25,7 +25,7 @@ from blotter.risk import value_book
 from blotter.scenario import apply_move, parse_move
 from blotter.store import open_store
 
-AT = "2026-11-24T16:45"
+AT = "2026-11-30T16:45"
 """Valuation time of the checks (desk-local): a quarter hour after the demo's last close."""
 
 EXPOSURE_KEYS = {
