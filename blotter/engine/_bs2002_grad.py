@@ -14,8 +14,9 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import ndtr
 
-from blotter.engine.bivariate import GOLDEN, bvn_weighted_sum_grad
+from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum
 
+_A1_EXT_T = _A2_T = _A3_T = RHO_SIGN = None
 N_DIR = 5
 """Directions of the gradient, in order: S, σ, T, r, b (call form)."""
 _INV_SQRT_2PI = 0.3989422804014327
@@ -88,7 +89,7 @@ def _const(val: np.ndarray, m: int) -> _Fwd:
 def _npdf(x: np.ndarray) -> np.ndarray:
     y = np.square(x)
     y *= -0.5
-    np.maximum(y, -700.0, out=y)
+    np.maximum(y, TERM_FLOOR, out=y)
     np.exp(y, out=y)
     y *= _INV_SQRT_2PI
     return y
@@ -96,17 +97,24 @@ def _npdf(x: np.ndarray) -> np.ndarray:
 
 def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
                      b: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Value (m,) and gradient (5, m) in (S, σ, T, r, b) of the 2002 call, domain as
-    ``american.bs2002_call`` (arrays of one shape (m,), b < r, β real).
+    """Value (n·m,) and gradient (5, n·m) in (S, σ, T, r, b) of the 2002 call, domain as
+    ``american.bs2002_call`` (b < r, β real), for n spots per row: ``s`` has shape (n·m,)
+    (n copies of the m rows, one after another) and ``k, t, r, b, v`` shape (m,).
 
-    Rows with S >= I2 (immediate exercise) have value S − K and gradient (1, 0, 0, 0, 0).
+    Spot enters only through ln S, so the boundaries I1, I2, β and the other per-row terms
+    (with their derivatives) are computed once per row and shared by the n spots. Values equal
+    ``american.bs2002_call`` on the tiled inputs to the bit. Rows with S >= I2 (immediate
+    exercise) have value S − K and gradient (1, 0, 0, 0, 0).
     """
     from blotter.engine.american import _M  # the shared matrices (american imports this module)
+    global _A1_EXT_T, _A2_T, _A3_T, RHO_SIGN
+    if _A1_EXT_T is None:
+        _A1_EXT_T, _A2_T, _A3_T, RHO_SIGN = _transposes()
 
-    m = s.shape[0]
+    m = t.shape[0]
+    n = s.shape[0] // m
     # Forward pass of the per-row quantities with their derivatives (same operations as
     # american.bs2002_call for the values).
-    S = _unit(s, 0, m)
     V = _unit(v, 1, m)
     T = _unit(t, 2, m)
     R = _unit(r, 3, m)
@@ -135,85 +143,128 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
 
     i1 = boundary(t1, vs1)
     i2 = boundary(T, vst)
-    ls, l1, l2 = _log(S), _log(i1), _log(i2)
+    l1, l2 = _log(i1), _log(i2)
     lk = _const(np.log(k), m)
     half_v2 = v2 * 0.5
     mu = [B + (beta - 0.5) * v2, B + half_v2, B - half_v2]
     lam = [-R + beta * B + half_v2 * beta * (beta - 1.0), B - R, -R]
-    logs3 = [ls, l1, l2]
 
     def log_pos(x: _Fwd) -> _Fwd:
         ok = x.val > 1e-300
         safe = np.where(ok, x.val, 1.0)
         return _Fwd(np.log(np.maximum(x.val, 1e-300)), np.where(ok, x.grad / safe, 0.0))
 
-    basis1 = [ls, l1, l2] + [u * t1 for u in mu]
-    basis2 = [ls, l1, l2, lk] + [u * T for u in mu]
-    basis3 = (logs3 + [lk] + [beta * x for x in logs3] + [bv * x for x in logs3]
-              + [u * t1 for u in lam] + [u * T for u in lam]
-              + [log_pos(i2 - k), log_pos(i1 - k)])
-    b1 = np.array([x.val for x in basis1])
-    b2 = np.array([x.val for x in basis2])
-    b3 = np.array([x.val for x in basis3])
+    # Spot-free per-row quantities (values (Q, m), derivatives (Q, 4, m) in σ, T, r, b),
+    # shared by the n spots; ``q`` names their rows.
+    row = {"l1": l1, "l2": l2, "lk": lk, "mu0t1": mu[0] * t1, "mu1t1": mu[1] * t1,
+           "mu2t1": mu[2] * t1, "mu0T": mu[0] * T, "mu1T": mu[1] * T, "mu2T": mu[2] * T,
+           "bl1": beta * l1, "bl2": beta * l2, "vl1": bv * l1, "vl2": bv * l2,
+           "lam0t1": lam[0] * t1, "lam1t1": lam[1] * t1, "lam2t1": lam[2] * t1,
+           "lam0T": lam[0] * T, "lam1T": lam[1] * T, "lam2T": lam[2] * T,
+           "lp2": log_pos(i2 - k), "lp1": log_pos(i1 - k), "beta": beta, "bv": bv,
+           "vs1": vs1, "vst": vst, "i2": i2}
+    q = {name: j for j, name in enumerate(row)}
+    rv = np.array([x.val for x in row.values()])
+    rg = np.array([x.grad[1:] for x in row.values()])
+    rvn = np.tile(rv, (1, n)) if n > 1 else rv
+    mm = n * m
+    x = s
+    ls = np.log(x)
+    beta_n, bv_n = rvn[q["beta"]], rvn[q["bv"]]
+    vs1_n, vst_n = rvn[q["vs1"]], rvn[q["vst"]]
+    sel1 = [q[c] for c in ("l1", "l2", "mu0t1", "mu1t1", "mu2t1")]
+    sel2 = [q[c] for c in ("l1", "l2", "lk", "mu0T", "mu1T", "mu2T")]
+    sel3a = [q[c] for c in ("l1", "l2", "lk")]
+    sel3b = [q[c] for c in ("bl1", "bl2")]
+    sel3c = [q[c] for c in ("vl1", "vl2", "lam0t1", "lam1t1", "lam2t1", "lam0T", "lam1T",
+                            "lam2T", "lp2", "lp1")]
+    b1 = np.empty((6, mm))
+    b1[0] = ls
+    b1[1:] = rvn[sel1]
+    b2 = np.empty((7, mm))
+    b2[0] = ls
+    b2[1:] = rvn[sel2]
+    b3 = np.empty((18, mm))
+    b3[0] = ls
+    b3[1:4] = rvn[sel3a]
+    np.multiply(beta_n, ls, out=b3[4])
+    b3[5:7] = rvn[sel3b]
+    np.multiply(bv_n, ls, out=b3[7])
+    b3[8:] = rvn[sel3c]
     # Values: as american.bs2002_call.
     args1 = np.einsum("ij,jm->im", _M["a1"], b1, optimize=False)
-    args1 /= vs1.val
+    args1 /= vs1_n
     args2 = np.einsum("ij,jm->im", _M["a2"], b2, optimize=False)
-    args2 /= vst.val
+    args2 /= vst_n
     expo = np.einsum("ij,jm->im", _M["a3"], b3, optimize=False)
     n1 = ndtr(args1)
     n2 = ndtr(args2)
     h_rows = _M["h_rows"]
-    g = np.empty((33, m))
+    g = np.empty((33, mm))
     g[:12] = n1[:12]
     g[12] = 1.0
     nh = n1[h_rows]
     np.multiply(nh, n2, out=g[13:])
-    weights = np.clip(expo, -700.0, 600.0)
+    weights = np.clip(expo, TERM_FLOOR, 600.0)
     np.exp(weights, out=weights)                    # e^{L_j}
     signs = _M["signs"]
     sw = weights * signs[:, None]                   # ±e^{L_j}
-    terms = sw * g                                  # adjoint of L_j from the CDF parts
+    lbar = sw * g                                   # adjoint of L_j from the CDF parts
     value = np.einsum("j,jm->m", signs, weights * g, optimize=False)
     h = args1[h_rows]
-    kq = args2
-    hk = h * kq
+    hk = h * args2
     hs = np.square(h)
-    hs += np.square(kq)
-    pos, neg = _POS, _NEG
-    lbar = terms
-    dh = np.empty((20, m))
-    dk = np.empty((20, m))
-    for rows, sign in ((pos, +1), (neg, -1)):
-        total, acc, qh, qk = bvn_weighted_sum_grad(hk[rows], hs[rows], h[rows], kq[rows],
-                                                   expo[13:][rows], signs[13:][rows], sign)
-        value += total
-        lbar[13 + rows] += acc
-        dh[rows] = qh
-        dk[rows] = qk
+    hs += np.square(args2)
+    total, acc, dh, dk = bvn_signed_sum(hk, hs, expo[13:], signs[13:], RHO_SIGN, h, args2)
+    assert dh is not None and dk is not None
+    value += total
+    lbar[13:] += acc
     # Adjoints of the arguments: n(u) for the φ rows; n(h) N(k) and N(h) n(k) for the
     # bivariate rows (plus the quadrature's derivatives).
     p1 = _npdf(args1)
     p2 = _npdf(args2)
     sw_b = sw[13:]
-    u1 = np.empty((38, m))
-    u1[:12] = sw[:12] * p1[:12]
+    u1 = np.empty((38, mm))
+    np.multiply(sw[:12], p1[:12], out=u1[:12])
     u1[12:18] = 0.0
-    u1[18:] = sw_b * p1[h_rows] * n2 + dh
-    u2 = sw_b * nh * p2 + dk
-    x1 = np.concatenate([args1, h])
-    a1_ext_t = np.concatenate([_M["a1"], _M["a1"][h_rows]]).T
-    bar1 = np.einsum("ij,jm->im", a1_ext_t, u1, optimize=False) / vs1.val
-    bar_vs1 = -np.einsum("jm,jm->m", u1, x1, optimize=False) / vs1.val
-    bar2 = np.einsum("ij,jm->im", _M["a2"].T, u2, optimize=False) / vst.val
-    bar_vst = -np.einsum("jm,jm->m", u2, args2, optimize=False) / vst.val
-    bar3 = np.einsum("ij,jm->im", _M["a3"].T, lbar, optimize=False)
-    grad = np.einsum("cm,cdm->dm", bar1, np.array([x.grad for x in basis1]), optimize=False)
-    grad += np.einsum("cm,cdm->dm", bar2, np.array([x.grad for x in basis2]), optimize=False)
-    grad += np.einsum("cm,cdm->dm", bar3, np.array([x.grad for x in basis3]), optimize=False)
-    grad += bar_vs1 * vs1.grad
-    grad += bar_vst * vst.grad
-    ex = s >= i2.val
+    np.multiply(sw_b, p1[h_rows], out=u1[18:])
+    u1[18:] *= n2
+    u1[18:] += dh
+    u2 = sw_b * nh
+    u2 *= p2
+    u2 += dk
+    bar1 = np.einsum("ij,jm->im", _A1_EXT_T, u1, optimize=False)
+    bar1 /= vs1_n
+    bar_vs1 = np.einsum("jm,jm->m", u1[:18], args1, optimize=False)
+    bar_vs1 += np.einsum("jm,jm->m", u1[18:], h, optimize=False)
+    bar_vs1 /= -vs1_n
+    bar2 = np.einsum("ij,jm->im", _A2_T, u2, optimize=False)
+    bar2 /= vst_n
+    bar_vst = np.einsum("jm,jm->m", u2, args2, optimize=False)
+    bar_vst /= -vst_n
+    bar3 = np.einsum("ij,jm->im", _A3_T, lbar, optimize=False)
+    # Adjoints of the per-row quantities; ln S enters bases 0 of each map and β ln S, (b/σ²) ln S.
+    barq = np.zeros((len(row), mm))
+    barq[sel1] += bar1[1:]
+    barq[sel2] += bar2[1:]
+    barq[sel3a] += bar3[1:4]
+    barq[sel3b] += bar3[5:7]
+    barq[sel3c] += bar3[8:]
+    barq[q["beta"]] += bar3[4] * ls
+    barq[q["bv"]] += bar3[7] * ls
+    barq[q["vs1"]] += bar_vs1
+    barq[q["vst"]] += bar_vst
+    grad = np.empty((5, mm))
+    d_ls = bar1[0] + bar2[0]
+    d_ls += bar3[0]
+    d_ls += beta_n * bar3[4]
+    d_ls += bv_n * bar3[7]
+    np.divide(d_ls, x, out=grad[0])
+    grad[1:] = np.einsum("qnm,qdm->dnm", barq.reshape(len(row), n, m), rg,
+                         optimize=False).reshape(4, mm)
+    i2_val = rvn[q["i2"]]
+    k = np.tile(k, n) if n > 1 else k
+    ex = s >= i2_val
     value = np.where(ex, s - k, value)
     if ex.any():
         grad[:, ex] = 0.0
@@ -221,5 +272,8 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     return value, grad
 
 
-_POS = np.arange(20)[np.arange(20) % 4 < 2]
-_NEG = np.arange(20)[np.arange(20) % 4 >= 2]
+def _transposes() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    from blotter.engine.american import _M, RHO_SIGN
+    a1 = _M["a1"]
+    return (np.ascontiguousarray(np.concatenate([a1, a1[_M["h_rows"]]]).T),
+            np.ascontiguousarray(_M["a2"].T), np.ascontiguousarray(_M["a3"].T), RHO_SIGN)

@@ -18,9 +18,12 @@ Rules applied on top of the formula, per row:
 - vols below ``VOL_FLOOR`` are valued at ``VOL_FLOOR`` by the 2002 formula (the European floor
   still uses the true vol).
 
-Greeks are central differences of this price with the steps in ``STEPS``; vanna and charm use
-the seven-point mixed-difference formula, which reuses the one-dimensional bumps. Rows that are
-never exercised early near their inputs take the analytic European greeks instead.
+Greeks: delta, vega, theta, rho and carry rho are exact derivatives of this price
+(``american_value_grad``, ``_bs2002_grad``); gamma, vanna and charm are central differences of
+delta, vega and theta over spot ± ``STEPS["spot_rel"]`` × S, and volga the second difference
+of the price over vol ± ``STEPS["vol"]``: five evaluations per row, three of them with
+derivatives. Rows that are never exercised early near their inputs take the analytic European
+greeks instead.
 """
 
 from __future__ import annotations
@@ -33,7 +36,7 @@ from scipy.special import ndtr
 from blotter.engine import black
 from blotter.engine._bs2002_grad import bs2002_call_grad
 from blotter.engine._validate import omega
-from blotter.engine.bivariate import EXP_FLOOR, GOLDEN, bvn_weighted_sum
+from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum
 
 VOL_FLOOR = 1e-3
 """Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
@@ -44,18 +47,16 @@ where e^L is that large the N(d) it multiplies is 0 in float64."""
 STEPS = {
     "spot_rel": 1e-4,
     "vol": 1e-4,
-    "rate": 1e-5,
-    "carry": 1e-5,
-    "years_rel": 1e-4,
 }
-"""Central-difference steps: spot 1e-4 × S, vol 1e-4 (0.01 vol point), rate and carry 1e-5
-(0.1 bp), years 1e-4 × T. Vol differences are centred at max(σ, 1e-4), so greeks of rows with
-vols below 1e-4 are those at 1e-4 (their price uses the true vol)."""
+"""Central-difference steps of the second-order greeks: spot 1e-4 × S (gamma, vanna, charm from
+the exact delta, vega and theta at S ± step), vol 1e-4 = 0.01 vol point (volga). Greeks are
+taken at max(σ, 1e-4), so those of rows with vols below 1e-4 are the ones at 1e-4 (their price
+uses the true vol)."""
 
 
 def _cexp(x: np.ndarray) -> np.ndarray:
-    """e^x in place, with x clipped to [EXP_FLOOR, _EXP_CAP] (no overflow, no slow underflow)."""
-    np.clip(x, EXP_FLOOR, _EXP_CAP, out=x)
+    """e^x in place, with x clipped to [TERM_FLOOR, _EXP_CAP] (no overflow, no slow underflow)."""
+    np.clip(x, TERM_FLOOR, _EXP_CAP, out=x)
     np.exp(x, out=x)
     return x
 
@@ -187,8 +188,8 @@ def _matrices() -> dict[str, np.ndarray]:
 PSI_TERMS = ((0, "I1"), (1, "I1"), (1, "K"), (2, "I1"), (2, "K"))
 """(γ index in β, 1, 0; H) of the five ψ terms of the 2002 formula."""
 _M = _matrices()
-_POS = np.array([j for j in range(20) if j % 4 < 2])     # M1, M2 use +ρ
-_NEG = np.array([j for j in range(20) if j % 4 >= 2])    # M3, M4 use −ρ
+RHO_SIGN = np.array([1.0 if j % 4 < 2 else -1.0 for j in range(20)])
+"""Sign of the correlation of each bivariate row: M1, M2 of a ψ term use +ρ, M3, M4 −ρ."""
 
 
 def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
@@ -199,7 +200,7 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     The formula is Σ_j ±e^{L_j} G_j with G_j a normal or bivariate normal CDF; every argument
     and exponent L_j is a fixed linear combination of a few per-row logs, so they come from
     three small matrix products (see ``_matrices``). Exponents are clipped to
-    [``EXP_FLOOR``, ``_EXP_CAP``] so that small vols (large β) neither overflow nor lose terms.
+    [``TERM_FLOOR``, ``_EXP_CAP``] so that small vols (large β) neither overflow nor lose terms.
     """
     m = s.shape[0]
     v2 = v * v
@@ -250,9 +251,7 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
     hk = h * args2
     hs = np.square(h, out=h)
     hs += np.square(args2)
-    signs = _M["signs"][13:]
-    for rows, sign in ((_POS, +1), (_NEG, -1)):
-        value += bvn_weighted_sum(hk[rows], hs[rows], expo[13:][rows], signs[rows], sign)
+    value += bvn_signed_sum(hk, hs, expo[13:], _M["signs"][13:], RHO_SIGN)[0]
     out: np.ndarray = np.where(s >= i2, s - k, value)
     return out
 
@@ -278,7 +277,11 @@ def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r
     if live.any():
         idx = np.flatnonzero(live)
         t_c = np.maximum(t[idx], black.YEARS_FLOOR)
-        bs = bs2002_call(s_c[idx], k_c[idx], t_c, r_c[idx], b_c[idx], v_c[idx])
+        # In units of the call-form strike (the formula is homogeneous of degree one in S, K),
+        # as ``american_value_grad`` evaluates it, so the two agree to the bit.
+        kc = k_c[idx]
+        bs = bs2002_call(s_c[idx] / kc, np.ones(idx.size), t_c, r_c[idx], b_c[idx], v_c[idx])
+        bs *= kc
         out[idx] = np.maximum(out[idx], bs)
     return out
 
@@ -295,8 +298,7 @@ def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None
 
     Rows never exercised early (call form b > r with r >= 0 for calls, r < 0 with b <= r for
     puts; no floor at intrinsic binding) are European in a neighbourhood of their inputs, so
-    they take the analytic European greeks. The others take central differences, with one call
-    of ``american_value`` evaluating all 15 bumped copies together.
+    they take the analytic European greeks. The others take ``_analytic_greeks``.
     """
     w, s, k, t, r, b, v = np.broadcast_arrays(omega(ins[0]), *ins[1:], outs[0])[:-1]
     euro_rows, euro = _european_rows(w, s, k, t, r, b, v)
@@ -334,30 +336,33 @@ def _european_rows(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r
 def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
                         r: np.ndarray, b: np.ndarray, v: np.ndarray
                         ) -> tuple[np.ndarray, np.ndarray]:
-    """``american_value`` (the same numbers) and its gradient (5, m) in (S, σ, T, r, b).
+    """``american_value`` (the same numbers) and its gradient in (S, σ, T, r, b), for n spots
+    per row: ``s`` (n·m,) holds n copies of the m rows one after another, the other inputs are
+    (m,); returns values (n·m,) and gradients (5, n·m).
 
-    Each row's gradient is that of the term that sets its value: the 2002 formula (exact
+    Each value's gradient is that of the term that sets it: the 2002 formula (exact
     derivatives, ``_bs2002_grad``), the European floor (analytic) or intrinsic (delta 0 or ±1,
-    the rest 0). Puts map back from the call form: ∂P/∂S = ∂C/∂K_c, found from the formula's
-    homogeneity C = S_c ∂C/∂S_c + K_c ∂C/∂K_c; ∂P/∂b = −∂C/∂r_c − ∂C/∂b_c.
+    the rest 0). The formula is evaluated in units of the call-form strike K_c, at
+    x = S_c / K_c; then ∂C/∂S_c = ∂c/∂x and ∂C/∂K_c = c − x ∂c/∂x. Puts map back from the call
+    form: ∂P/∂S = ∂C/∂K_c, ∂P/∂r = ∂C/∂r_c, ∂P/∂b = −∂C/∂r_c − ∂C/∂b_c.
     """
-    m = s.shape[0]
-    euro = np.empty(m)
-    black.price_kernel((w, s, k, t, r, b, v), (euro,))
-    eg = [np.empty(m) for _ in range(10)]
-    black.greeks_kernel((w, s, k, t, r, b, v), eg)
-    intrinsic = np.maximum(w * (s - k), 0.0)
+    m = t.shape[0]
+    n = s.shape[0] // m
+    w_n, k_n, t_n, r_n, b_n, v_n = (np.tile(a, n) for a in (w, k, t, r, b, v))
+    ins = (w_n, s, k_n, t_n, r_n, b_n, v_n)
+    euro = np.empty(n * m)
+    black.price_kernel(ins, (euro,))
+    eg = [np.empty(n * m) for _ in range(10)]
+    black.greeks_kernel(ins, eg)
+    payoff = w_n * (s - k_n)
+    intrinsic = np.maximum(payoff, 0.0)
     out: np.ndarray = np.maximum(euro, intrinsic)
-    grad = np.zeros((5, m))
     use_euro = euro >= intrinsic
-    grad[0] = np.where(use_euro, eg[1], np.where(w * (s - k) > 0.0, w, 0.0))
-    grad[1] = np.where(use_euro, eg[3], 0.0)
-    grad[2] = np.where(use_euro, -eg[4], 0.0)
-    grad[3] = np.where(use_euro, eg[5], 0.0)
-    grad[4] = np.where(use_euro, eg[6], 0.0)
+    grad = np.empty((5, n * m))
+    grad[0] = np.where(use_euro, eg[1], np.where(payoff > 0.0, w_n, 0.0))
+    for d, e in ((1, eg[3]), (2, -eg[4]), (3, eg[5]), (4, eg[6])):
+        grad[d] = np.where(use_euro, e, 0.0)
     put = w < 0
-    s_c = np.where(put, k, s)
-    k_c = np.where(put, s, k)
     r_c = np.where(put, r - b, r)
     b_c = np.where(put, -b, b)
     v_c = np.maximum(v, VOL_FLOOR)
@@ -365,22 +370,29 @@ def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarr
     disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
     beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
     live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
-    if live.any():
-        idx = np.flatnonzero(live)
-        t_c = np.maximum(t[idx], black.YEARS_FLOOR)
-        bs, gc = bs2002_call_grad(s_c[idx], k_c[idx], t_c, r_c[idx], b_c[idx], v_c[idx])
-        win = bs > out[idx]
-        out[idx] = np.maximum(out[idx], bs)
-        sel = idx[win]
-        gc = gc[:, win]
-        bs = bs[win]
-        pw = put[sel]
-        d_kc = (bs - s_c[sel] * gc[0]) / k_c[sel]
-        grad[0, sel] = np.where(pw, d_kc, gc[0])
-        grad[1, sel] = np.where(v[sel] >= VOL_FLOOR, gc[1], 0.0)
-        grad[2, sel] = np.where(t[sel] >= black.YEARS_FLOOR, gc[2], 0.0)
-        grad[3, sel] = gc[3]
-        grad[4, sel] = np.where(pw, -gc[3] - gc[4], gc[4])
+    if not live.any():
+        return out, grad
+    idx = np.flatnonzero(live)
+    n_live = idx.size
+    cols = (idx[None, :] + m * np.arange(n)[:, None]).ravel()    # live rows of every copy
+    put_n = np.tile(put[idx], n)
+    s_l, k_l = s[cols], k_n[cols]
+    s_c = np.where(put_n, k_l, s_l)
+    k_c = np.where(put_n, s_l, k_l)
+    x = s_c / k_c
+    t_c = np.maximum(t[idx], black.YEARS_FLOOR)
+    c, gc = bs2002_call_grad(x, np.ones(n_live), t_c, r_c[idx], b_c[idx], v_c[idx])
+    bs = c * k_c
+    win = bs > out[cols]
+    out[cols] = np.maximum(out[cols], bs)
+    sel = cols[win]
+    gc = gc[:, win]
+    c, x, k_c, pw = c[win], x[win], k_c[win], put_n[win]
+    grad[0, sel] = np.where(pw, c - x * gc[0], gc[0])
+    grad[1, sel] = np.where(v_n[sel] >= VOL_FLOOR, gc[1] * k_c, 0.0)
+    grad[2, sel] = np.where(t_n[sel] >= black.YEARS_FLOOR, gc[2] * k_c, 0.0)
+    grad[3, sel] = gc[3] * k_c
+    grad[4, sel] = np.where(pw, -gc[3] - gc[4], gc[4]) * k_c
     return out, grad
 
 
@@ -398,9 +410,7 @@ def _analytic_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> N
     hs = STEPS["spot_rel"] * s
     hv = STEPS["vol"]
     vg = np.maximum(v, hv)                    # centre of the vol differences, so σ − h >= 0
-    f, g = american_value_grad(np.tile(w, 3), np.concatenate([s, s + hs, s - hs]),
-                               np.tile(k, 3), np.tile(t, 3), np.tile(r, 3), np.tile(b, 3),
-                               np.tile(vg, 3))
+    f, g = american_value_grad(w, np.concatenate([s, s + hs, s - hs]), k, t, r, b, vg)
     f0 = f[:m]
     g = g.reshape(5, 3, m)
     fv = american_value(np.tile(w, 2), np.tile(s, 2), np.tile(k, 2), np.tile(t, 2),

@@ -26,6 +26,11 @@ RHO = math.sqrt(GOLDEN)
 EXP_FLOOR = -700.0
 """Exponents are raised to this before ``np.exp``: e^-700 is already negligible, and NumPy's exp
 is about 20 times slower on arguments whose results underflow."""
+TERM_FLOOR = -300.0
+"""Floor on the exponents of the weighted sums of the 2002 formula (each term then is at least
+e^-300 ≈ 5e-131 in units of the strike, so the error it adds is nil). Higher than
+``EXP_FLOOR`` so that products of such terms in the derivatives stay normal floats: subnormal
+results cost about a hundred times a normal multiply."""
 NODES = 6
 """Gauss–Legendre nodes in θ: 6 give an absolute error below 7e-9 at |ρ| = RHO (8: 4e-11,
 10: 3e-13); the quadrature is about a third of a BS2002 evaluation's time."""
@@ -97,45 +102,57 @@ def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs
     return total
 
 
-def bvn_weighted_sum_grad(hk: np.ndarray, hs: np.ndarray, h: np.ndarray, k: np.ndarray,
-                          log_coef: np.ndarray, signs: np.ndarray, sign: int
-                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """``bvn_weighted_sum`` (same operations, same total) with the parts its derivatives need.
+def bvn_signed_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: np.ndarray,
+                   rho_sign: np.ndarray, h: np.ndarray | None = None,
+                   k: np.ndarray | None = None
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """Σ_j signs_j e^{log_coef_j} (M(h_j, k_j; ρ_j) − N(h_j) N(k_j)), ρ_j = rho_sign_j · RHO.
 
-    ``h``, ``k`` (J, m) are the arguments behind ``hk`` and ``hs``. Returns (total (m,),
-    terms (J, m), d/dh (J, m), d/dk (J, m)): ``terms`` are the signed rows of the sum (each is
-    also its derivative in its own ``log_coef``), and d/dh, d/dk the derivatives of those rows
-    in h and k, from the quadrature sum itself: d/dh e^{a hk − b hs} = (a k − 2 b h) e^{...}.
+    ``hk`` = h·k and ``hs`` = h² + k², shape (J, m); ``log_coef`` (J, m); ``signs`` and
+    ``rho_sign`` (±1) (J,). All rows go through one loop over the nodes (the two correlations
+    share the nodes' 1/cos² θ and differ in the sign of sin θ). Returns (total (m,), terms
+    (J, m), d/dh (J, m), d/dk (J, m)): ``terms`` are the signed rows of the sum (each also its
+    own derivative in ``log_coef``); d/dh and d/dk, returned when ``h`` and ``k`` are given,
+    are those rows' derivatives from the quadrature itself, d/dh e^{a hk − b hs} =
+    (a k − 2 b h) e^{a hk − b hs}, so they need no further CDFs.
     """
-    a_coef, b_coef, log_w, scale = _RULES[sign]
+    a_coef, b_coef, log_w, scale = _RULES[+1]
+    col = rho_sign[:, None].astype(np.float64)
+    hk_s = hk * col                                 # the sign of sin θ, exact
     shift = np.minimum(log_coef + math.log(abs(scale)), 600.0)
     acc = np.zeros(hk.shape)
-    acc_a = np.zeros(hk.shape)
-    acc_b = np.zeros(hk.shape)
     tmp = np.empty(hk.shape)
     tmp2 = np.empty(hk.shape)
+    grad = h is not None and k is not None
+    if grad:
+        acc_a = np.zeros(hk.shape)
+        acc_b = np.zeros(hk.shape)
     for i in range(NODES):
-        np.multiply(hk, a_coef[i], out=tmp)
+        np.multiply(hk_s, a_coef[i], out=tmp)
         np.multiply(hs, b_coef[i], out=tmp2)
         tmp -= tmp2
         tmp += shift
-        np.maximum(tmp, EXP_FLOOR, out=tmp)
+        np.maximum(tmp, TERM_FLOOR, out=tmp)
         np.exp(tmp, out=tmp)
         tmp *= math.exp(log_w[i])
         acc += tmp
-        np.multiply(tmp, a_coef[i], out=tmp2)
-        acc_a += tmp2
-        np.multiply(tmp, b_coef[i], out=tmp2)
-        acc_b += tmp2
-    coef = np.sign(scale) * signs
+        if grad:
+            tmp *= a_coef[i]
+            acc_a += tmp
+            tmp *= b_coef[i] / a_coef[i]
+            acc_b += tmp
+    coef = rho_sign * signs                         # the sign of the θ range's end, asin ρ
     total: np.ndarray = np.einsum("j,jm->m", coef, acc, optimize=False)
-    col = coef[:, None]
-    acc *= col
-    acc_a *= col
-    acc_b *= col
-    acc_b *= 2.0
-    d_h = k * acc_a
-    d_h -= h * acc_b
-    d_k = h * acc_a
-    d_k -= k * acc_b
+    if not grad:
+        return total, acc, None, None
+    assert h is not None and k is not None
+    c = coef[:, None]
+    acc *= c
+    acc_a *= c * col
+    acc_b *= 2.0 * c
+    # In place, into the loop's buffers: d/dh = k A − h B, d/dk = h A − k B.
+    d_h = np.multiply(k, acc_a, out=tmp)
+    d_h -= np.multiply(h, acc_b, out=tmp2)
+    d_k = np.multiply(h, acc_a, out=acc_a)
+    d_k -= np.multiply(k, acc_b, out=acc_b)
     return total, acc, d_h, d_k
