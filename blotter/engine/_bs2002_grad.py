@@ -11,12 +11,13 @@ node sums and no further normal CDFs.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy.special import ndtr
 
 from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum
 
-_A1_EXT_T = _A2_T = _A3_T = RHO_SIGN = None
 N_DIR = 5
 """Directions of the gradient, in order: S, σ, T, r, b (call form)."""
 _INV_SQRT_2PI = 0.3989422804014327
@@ -87,7 +88,8 @@ def _const(val: np.ndarray, m: int) -> _Fwd:
 
 
 def _npdf(x: np.ndarray) -> np.ndarray:
-    y = np.square(x)
+    """Standard normal density, with the exponent floored at ``TERM_FLOOR``."""
+    y: np.ndarray = np.square(x)
     y *= -0.5
     np.maximum(y, TERM_FLOOR, out=y)
     np.exp(y, out=y)
@@ -107,9 +109,7 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     exercise) have value S − K and gradient (1, 0, 0, 0, 0).
     """
     from blotter.engine.american import _M  # the shared matrices (american imports this module)
-    global _A1_EXT_T, _A2_T, _A3_T, RHO_SIGN
-    if _A1_EXT_T is None:
-        _A1_EXT_T, _A2_T, _A3_T, RHO_SIGN = _transposes()
+    a1_ext_t, a2_t, a3_t, rho_sign = _transposes()
 
     m = t.shape[0]
     n = s.shape[0] // m
@@ -215,7 +215,7 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     hk = h * args2
     hs = np.square(h)
     hs += np.square(args2)
-    total, acc, dh, dk = bvn_signed_sum(hk, hs, expo[13:], signs[13:], RHO_SIGN, h, args2)
+    total, acc, dh, dk = bvn_signed_sum(hk, hs, expo[13:], signs[13:], rho_sign, h, args2)
     assert dh is not None and dk is not None
     value += total
     lbar[13:] += acc
@@ -233,16 +233,16 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     u2 = sw_b * nh
     u2 *= p2
     u2 += dk
-    bar1 = np.einsum("ij,jm->im", _A1_EXT_T, u1, optimize=False)
+    bar1 = np.einsum("ij,jm->im", a1_ext_t, u1, optimize=False)
     bar1 /= vs1_n
     bar_vs1 = np.einsum("jm,jm->m", u1[:18], args1, optimize=False)
     bar_vs1 += np.einsum("jm,jm->m", u1[18:], h, optimize=False)
     bar_vs1 /= -vs1_n
-    bar2 = np.einsum("ij,jm->im", _A2_T, u2, optimize=False)
+    bar2 = np.einsum("ij,jm->im", a2_t, u2, optimize=False)
     bar2 /= vst_n
     bar_vst = np.einsum("jm,jm->m", u2, args2, optimize=False)
     bar_vst /= -vst_n
-    bar3 = np.einsum("ij,jm->im", _A3_T, lbar, optimize=False)
+    bar3 = np.einsum("ij,jm->im", a3_t, lbar, optimize=False)
     # Adjoints of the per-row quantities; ln S enters bases 0 of each map and β ln S, (b/σ²) ln S.
     barq = np.zeros((len(row), mm))
     barq[sel1] += bar1[1:]
@@ -272,7 +272,11 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     return value, grad
 
 
+@functools.cache
 def _transposes() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Transposed maps of ``american._matrices`` for the adjoints (built once), and the
+    correlation sign of each bivariate row. The first maps the argument adjoints of the 18 t1
+    arguments and of the 20 h arguments of the bivariate rows back to the 6 t1 bases."""
     from blotter.engine.american import _M, RHO_SIGN
     a1 = _M["a1"]
     return (np.ascontiguousarray(np.concatenate([a1, a1[_M["h_rows"]]]).T),

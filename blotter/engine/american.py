@@ -352,16 +352,12 @@ def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarr
     ins = (w_n, s, k_n, t_n, r_n, b_n, v_n)
     euro = np.empty(n * m)
     black.price_kernel(ins, (euro,))
-    eg = [np.empty(n * m) for _ in range(10)]
-    black.greeks_kernel(ins, eg)
     payoff = w_n * (s - k_n)
     intrinsic = np.maximum(payoff, 0.0)
     out: np.ndarray = np.maximum(euro, intrinsic)
     use_euro = euro >= intrinsic
-    grad = np.empty((5, n * m))
-    grad[0] = np.where(use_euro, eg[1], np.where(payoff > 0.0, w_n, 0.0))
-    for d, e in ((1, eg[3]), (2, -eg[4]), (3, eg[5]), (4, eg[6])):
-        grad[d] = np.where(use_euro, e, 0.0)
+    grad = np.zeros((5, n * m))
+    grad[0] = np.where(payoff > 0.0, w_n, 0.0)
     put = w < 0
     r_c = np.where(put, r - b, r)
     b_c = np.where(put, -b, b)
@@ -370,8 +366,26 @@ def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarr
     disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
     beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
     live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
-    if not live.any():
-        return out, grad
+    if live.any():
+        use_euro[_live_grad(live, put, s, k_n, t, r_c, b_c, v_c, v_n, t_n, out, grad)] = False
+    rows = np.flatnonzero(use_euro)
+    if rows.size:
+        # European greeks only where the European floor sets the value.
+        eg = [np.empty(rows.size) for _ in range(10)]
+        black.greeks_kernel(tuple(a[rows] for a in ins), eg)
+        for d, e in ((0, eg[1]), (1, eg[3]), (2, -eg[4]), (3, eg[5]), (4, eg[6])):
+            grad[d, rows] = e
+    return out, grad
+
+
+def _live_grad(live: np.ndarray, put: np.ndarray, s: np.ndarray, k_n: np.ndarray,
+               t: np.ndarray, r_c: np.ndarray, b_c: np.ndarray, v_c: np.ndarray,
+               v_n: np.ndarray, t_n: np.ndarray, out: np.ndarray, grad: np.ndarray
+               ) -> np.ndarray:
+    """The 2002 formula on the rows ``live`` (m,) of every copy: raises ``out`` (n·m,) to it
+    and sets ``grad`` (5, n·m) where it wins; returns the indices (into n·m) where it won."""
+    m = live.shape[0]
+    n = s.shape[0] // m
     idx = np.flatnonzero(live)
     n_live = idx.size
     cols = (idx[None, :] + m * np.arange(n)[:, None]).ravel()    # live rows of every copy
@@ -393,7 +407,8 @@ def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarr
     grad[2, sel] = np.where(t_n[sel] >= black.YEARS_FLOOR, gc[2] * k_c, 0.0)
     grad[3, sel] = gc[3] * k_c
     grad[4, sel] = np.where(pw, -gc[3] - gc[4], gc[4]) * k_c
-    return out, grad
+    out_sel: np.ndarray = sel
+    return out_sel
 
 
 def _analytic_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:

@@ -76,32 +76,6 @@ def bvn_cdf(h: np.ndarray, k: np.ndarray, sign: int) -> np.ndarray:
     return out
 
 
-def bvn_weighted_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: np.ndarray,
-                     sign: int) -> np.ndarray:
-    """Σ_j signs_j e^{log_coef_j} (M(h_j, k_j; sign·RHO) − N(h_j) N(k_j)), summed over rows j.
-
-    ``hk`` = h·k and ``hs`` = h² + k², shape (J, m); ``log_coef`` (J, m); ``signs`` (J,).
-    Folding each row's coefficient into the exponent leaves one exp per node and row.
-    """
-    a_coef, b_coef, log_w, scale = _RULES[sign]
-    # The node exponent a hk − b hs is <= 0, so capping the shift caps every exponent.
-    shift = np.minimum(log_coef + math.log(abs(scale)), 600.0)
-    acc = np.zeros(hk.shape)
-    tmp = np.empty(hk.shape)
-    tmp2 = np.empty(hk.shape)
-    for i in range(NODES):
-        np.multiply(hk, a_coef[i], out=tmp)
-        np.multiply(hs, b_coef[i], out=tmp2)
-        tmp -= tmp2
-        tmp += shift
-        np.maximum(tmp, EXP_FLOOR, out=tmp)
-        np.exp(tmp, out=tmp)
-        tmp *= math.exp(log_w[i])
-        acc += tmp
-    total: np.ndarray = np.einsum("j,jm->m", np.sign(scale) * signs, acc, optimize=False)
-    return total
-
-
 def bvn_signed_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: np.ndarray,
                    rho_sign: np.ndarray, h: np.ndarray | None = None,
                    k: np.ndarray | None = None
