@@ -16,7 +16,7 @@ import functools
 import numpy as np
 from scipy.special import ndtr
 
-from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum
+from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum, small_matmul
 
 N_DIR = 5
 """Directions of the gradient, in order: S, σ, T, r, b (call form)."""
@@ -192,11 +192,11 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     np.multiply(bv_n, ls, out=b3[7])
     b3[8:] = rvn[sel3c]
     # Values: as american.bs2002_call.
-    args1 = np.einsum("ij,jm->im", _M["a1"], b1, optimize=False)
+    args1 = small_matmul(_M["a1"], b1)
     args1 /= vs1_n
-    args2 = np.einsum("ij,jm->im", _M["a2"], b2, optimize=False)
+    args2 = small_matmul(_M["a2"], b2)
     args2 /= vst_n
-    expo = np.einsum("ij,jm->im", _M["a3"], b3, optimize=False)
+    expo = small_matmul(_M["a3"], b3)
     n1 = ndtr(args1)
     n2 = ndtr(args2)
     h_rows = _M["h_rows"]
@@ -233,16 +233,16 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     u2 = sw_b * nh
     u2 *= p2
     u2 += dk
-    bar1 = np.einsum("ij,jm->im", a1_ext_t, u1, optimize=False)
+    bar1 = small_matmul(a1_ext_t, u1)
     bar1 /= vs1_n
     bar_vs1 = np.einsum("jm,jm->m", u1[:18], args1, optimize=False)
     bar_vs1 += np.einsum("jm,jm->m", u1[18:], h, optimize=False)
     bar_vs1 /= -vs1_n
-    bar2 = np.einsum("ij,jm->im", a2_t, u2, optimize=False)
+    bar2 = small_matmul(a2_t, u2)
     bar2 /= vst_n
     bar_vst = np.einsum("jm,jm->m", u2, args2, optimize=False)
     bar_vst /= -vst_n
-    bar3 = np.einsum("ij,jm->im", a3_t, lbar, optimize=False)
+    bar3 = small_matmul(a3_t, lbar)
     # Adjoints of the per-row quantities; ln S enters bases 0 of each map and β ln S, (b/σ²) ln S.
     barq = np.zeros((len(row), mm))
     barq[sel1] += bar1[1:]

@@ -36,7 +36,7 @@ from scipy.special import ndtr
 from blotter.engine import black
 from blotter.engine._bs2002_grad import bs2002_call_grad
 from blotter.engine._validate import omega
-from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum
+from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum, small_matmul
 
 VOL_FLOOR = 1e-3
 """Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
@@ -228,13 +228,13 @@ def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: n
         logs3[:, :], lk[None], beta * logs3, bv * logs3, lam * t1, lam * t,
         np.log(np.maximum(np.stack([i2 - k, i1 - k]), 1e-300)),
     ])
-    # einsum without BLAS: OpenBLAS threads these small products and, on a busy machine, its
-    # threads stall each other for far longer than the single-threaded loop takes.
-    args1 = np.einsum("ij,jm->im", _M["a1"], basis1, optimize=False)
+    # BLAS in blocks small enough to stay on this thread (OpenBLAS's own threads, beside the
+    # engine's workers, stall each other on this machine).
+    args1 = small_matmul(_M["a1"], basis1)
     args1 /= vs1
-    args2 = np.einsum("ij,jm->im", _M["a2"], basis2, optimize=False)
+    args2 = small_matmul(_M["a2"], basis2)
     args2 /= vst
-    expo = np.einsum("ij,jm->im", _M["a3"], basis3, optimize=False)
+    expo = small_matmul(_M["a3"], basis3)
     n1 = ndtr(args1)
     n2 = ndtr(args2)
     # Univariate part: φ rows (12), α2 S^β row, and N(h) N(k) of the 20 bivariate rows.

@@ -130,3 +130,25 @@ def bvn_signed_sum(hk: np.ndarray, hs: np.ndarray, log_coef: np.ndarray, signs: 
     d_k = np.multiply(h, acc_a, out=acc_a)
     d_k -= np.multiply(k, acc_b, out=acc_b)
     return total, acc, d_h, d_k
+
+
+_ONE_THREAD_MNK = 200_000
+"""Largest m·n·k of one matrix product handed to BLAS: OpenBLAS runs products below 4 × 65,536
+on the calling thread, and on this shared machine its own threads, started beside the engine's
+workers, stall each other (measured much slower than one thread)."""
+
+
+def small_matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """a @ b for a small constant a (i, j) and b (j, m), in column blocks small enough that
+    BLAS stays on the calling thread (``_ONE_THREAD_MNK``); about five times faster than the
+    equivalent ``np.einsum`` loop."""
+    rows, inner = a.shape
+    m = b.shape[1]
+    block = max(8, _ONE_THREAD_MNK // max(rows * inner, 1))
+    if m <= block:
+        out: np.ndarray = a @ b
+        return out
+    out = np.empty((rows, m))
+    for j in range(0, m, block):
+        np.matmul(a, b[:, j:j + block], out=out[:, j:j + block])
+    return out
