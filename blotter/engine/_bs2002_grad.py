@@ -166,7 +166,7 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     q = {name: j for j, name in enumerate(row)}
     rv = np.array([x.val for x in row.values()])
     rg = np.array([x.grad[1:] for x in row.values()])
-    rvn = np.tile(rv, (1, n)) if n > 1 else rv
+    rvn = np.concatenate((rv,) * n, axis=1) if n > 1 else rv
     mm = n * m
     x = s
     ls = np.log(x)
@@ -263,7 +263,7 @@ def bs2002_call_grad(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
     grad[1:] = np.einsum("qnm,qdm->dnm", barq.reshape(len(row), n, m), rg,
                          optimize=False).reshape(4, mm)
     i2_val = rvn[q["i2"]]
-    k = np.tile(k, n) if n > 1 else k
+    k = np.concatenate((k,) * n) if n > 1 else k
     ex = s >= i2_val
     value = np.where(ex, s - k, value)
     if ex.any():

@@ -348,7 +348,7 @@ def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarr
     """
     m = t.shape[0]
     n = s.shape[0] // m
-    w_n, k_n, t_n, r_n, b_n, v_n = (np.tile(a, n) for a in (w, k, t, r, b, v))
+    w_n, k_n, t_n, r_n, b_n, v_n = (np.concatenate((a,) * n) for a in (w, k, t, r, b, v))
     ins = (w_n, s, k_n, t_n, r_n, b_n, v_n)
     euro = np.empty(n * m)
     black.price_kernel(ins, (euro,))
@@ -389,7 +389,7 @@ def _live_grad(live: np.ndarray, put: np.ndarray, s: np.ndarray, k_n: np.ndarray
     idx = np.flatnonzero(live)
     n_live = idx.size
     cols = (idx[None, :] + m * np.arange(n)[:, None]).ravel()    # live rows of every copy
-    put_n = np.tile(put[idx], n)
+    put_n = np.concatenate((put[idx],) * n)
     s_l, k_l = s[cols], k_n[cols]
     s_c = np.where(put_n, k_l, s_l)
     k_c = np.where(put_n, s_l, k_l)
@@ -428,8 +428,8 @@ def _analytic_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> N
     f, g = american_value_grad(w, np.concatenate([s, s + hs, s - hs]), k, t, r, b, vg)
     f0 = f[:m]
     g = g.reshape(5, 3, m)
-    fv = american_value(np.tile(w, 2), np.tile(s, 2), np.tile(k, 2), np.tile(t, 2),
-                        np.tile(r, 2), np.tile(b, 2),
+    w2, s2, k2, t2, r2, b2 = (np.concatenate((a, a)) for a in (w, s, k, t, r, b))
+    fv = american_value(w2, s2, k2, t2, r2, b2,
                         np.concatenate([vg + hv, vg - hv])).reshape(2, m)
     low_vol = v < hv
     if low_vol.any():
