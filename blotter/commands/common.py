@@ -111,15 +111,26 @@ def print_csv(columns: Sequence[str], rows: Iterable[Sequence[Any]]) -> None:
         writer.writerow([neutralise("" if c is None else c) for c in row])
 
 
-def print_table(columns: Sequence[str], rows: Iterable[Sequence[Any]], title: str | None = None,
-                right: Sequence[bool] | None = None) -> None:
-    """Print an aligned table for people; ``right`` marks numeric columns to right-align."""
-    from rich.console import Console
-    from rich.table import Table
+def print_table(
+    columns: Sequence[str],
+    rows: Iterable[Sequence[Any]],
+    title: str | None = None,
+    right: Sequence[bool] | None = None,
+) -> None:
+    """Print an aligned plain-text table for people; cells are never cut and no column is dropped,
+    whatever the terminal width (a wide table runs past the edge rather than losing data).
 
-    table = Table(title=title, box=None, header_style="bold", pad_edge=False)
-    for i, col in enumerate(columns):
-        table.add_column(col, justify="right" if right and right[i] else "left", no_wrap=True)
-    for row in rows:
-        table.add_row(*["" if c is None else str(c) for c in row])
-    Console(soft_wrap=True).print(table)
+    ``right`` marks numeric columns to right-align; None cells print empty.
+    """
+    cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
+    if title:
+        click.echo(title)
+    for k, r in enumerate(cells):
+        parts = [
+            c.rjust(w) if (right and right[i]) else c.ljust(w)
+            for i, (c, w) in enumerate(zip(r, widths, strict=True))
+        ]
+        click.echo("  ".join(parts).rstrip())
+        if k == 0:
+            click.echo("  ".join("-" * w for w in widths))

@@ -19,6 +19,7 @@ from blotter.commands.common import (
     output_options,
     print_csv,
     print_json,
+    print_table,
     resolve_db,
 )
 
@@ -60,27 +61,6 @@ def _money(x: float, places: int = 0) -> str:
     if abs(x) < 0.5 * 10**-places:
         x = 0.0
     return f"{x:,.{places}f}"
-
-
-def print_table(
-    columns: Sequence[str],
-    rows: Sequence[Sequence[Any]],
-    title: str | None = None,
-    right: Sequence[bool] | None = None,
-) -> None:
-    """Print an aligned plain-text table; cells are never cut; ``right`` marks numeric columns."""
-    cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
-    widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
-    if title:
-        click.echo(title)
-    for k, r in enumerate(cells):
-        parts = [
-            c.rjust(w) if (right and right[i]) else c.ljust(w)
-            for i, (c, w) in enumerate(zip(r, widths, strict=True))
-        ]
-        click.echo("  ".join(parts).rstrip())
-        if k == 0:
-            click.echo("  ".join("-" * w for w in widths))
 
 
 def _pct(x: float) -> str:

@@ -337,3 +337,32 @@ def test_moneyness_rule_reaches_the_outputs(demo_db: Path) -> None:
         "sticky moneyness"
         in _run(["ladder", "--db", str(demo_db), "--at", AT, "--rule", "moneyness"]).stdout
     )
+
+
+@pytest.mark.parametrize(
+    ("args", "columns_module_name"),
+    [(["trade", "list"], "TRADE_TABLE"), (["mark", "list"], "MARK_TABLE")],
+)
+def test_tables_keep_every_column_and_id_at_80_columns(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch, args: list[str], columns_module_name: str
+) -> None:
+    """At an 80-column terminal every header and every row's id is printed whole (no cut cells,
+    no dropped columns): the ids are what ``trade cancel`` and ``mark list --set`` take."""
+    from blotter.commands import store_cmds
+
+    monkeypatch.setenv("COLUMNS", "80")
+    out = _run([*args, "--db", str(demo_db)]).stdout
+    lines = out.splitlines()
+    header = lines[1]
+    for col in getattr(store_cmds, columns_module_name):
+        assert col in header, (col, header)
+    assert "…" not in out
+    store = open_store(demo_db, read_only=True)
+    ids = (
+        [t.trade_id for t in store.trades(live_only=True)]
+        if args[0] == "trade"
+        else [m.mark_id for m in store.marks()]
+    )
+    body = lines[3:]
+    assert len(body) == len(ids)
+    assert [int(line.split()[0]) for line in body] == ids
