@@ -142,8 +142,27 @@ def _header(v: BookValuation) -> dict[str, Any]:
     return {"as_of": _iso(v.valuation_time), "marks_as_of": _iso(v.market.marks_as_of)}
 
 
-def _row_dict(row: ExposureRow) -> dict[str, float]:
-    return {k: getattr(row, k) for k in EXPOSURE_KEYS} | {"weighted_vega_pt": row.weighted_vega_pt}
+SHARE_KEYS = ("delta_shares", "gamma_1pct", "vanna_pt")
+"""Exposures in shares of one underlying: a sum over several names means nothing, so a group
+holding more than one underlying shows them blank (null in JSON)."""
+
+
+def _row_dict(row: ExposureRow, mixed: bool = False) -> dict[str, float | None]:
+    """A row's exposure keys; with ``mixed`` (several underlyings) the share-unit keys are None."""
+    out: dict[str, float | None] = {k: getattr(row, k) for k in EXPOSURE_KEYS}
+    out["weighted_vega_pt"] = row.weighted_vega_pt
+    if mixed:
+        out.update(dict.fromkeys(SHARE_KEYS))
+    return out
+
+
+def _mixed_buckets(v: BookValuation) -> set[int]:
+    """Expiry bucket codes whose positions have more than one underlying."""
+    import numpy as np
+
+    pairs = np.unique(np.stack([v.bucket_codes, v.book.underlying_idx]), axis=1)
+    codes, counts = np.unique(pairs[0], return_counts=True)
+    return {int(c) for c, k in zip(codes, counts, strict=True) if k > 1}
 
 
 def _position_dicts(v: BookValuation) -> list[dict[str, Any]]:
@@ -238,7 +257,9 @@ def risk(
     options: rho alone); vanna the change in Δ sh per vol point; volga the change in vega per vol
     point; βΔ $ the delta in currency times the underlying's beta to the reference index. Stock and
     futures hedges count with delta 1 per unit and no other greek. --by expiry groups into this
-    week, this month, then months, then years.
+    week, this month, then months, then years; Δ sh, Γ 1% and vanna are share counts of one
+    name, so they are left blank in any bucket holding more than one underlying (null in JSON,
+    empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum).
     """
     from blotter.risk import aggregate, beta_delta_index_units, total
 
@@ -257,8 +278,13 @@ def risk(
         out["beta_delta_index_units"] = beta_delta_index_units(v)
         out["t_ref_days"] = v.t_ref_days
         if by == "expiry":
+            mixed = _mixed_buckets(v)
             out["by_expiry"] = [
-                {"bucket": r.label, "positions": r.n_positions, **_row_dict(r)}
+                {
+                    "bucket": r.label,
+                    "positions": r.n_positions,
+                    **_row_dict(r, r.index in mixed),
+                }
                 for r in aggregate(v, "expiry")
             ]
         if by == "position":
@@ -273,8 +299,9 @@ def risk(
             print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
             return
         rows = under if by == "underlying" else aggregate(v, "expiry")
+        mixed = _mixed_buckets(v) if by == "expiry" else set()
         cols = [by, "spot", *EXPOSURE_KEYS, "weighted_vega_pt"]
-        data = [[r.label, r.spot, *(_row_dict(r).values())] for r in rows]
+        data = [[r.label, r.spot, *(_row_dict(r, r.index in mixed).values())] for r in rows]
         data.append(["total", None, *_row_dict(tot).values()])
         print_csv(cols, data)
         return
@@ -292,6 +319,13 @@ def risk(
     tot_cells = _risk_cells(tot, scale)
     if multi:  # share counts of different underlyings do not add
         tot_cells[1] = tot_cells[3] = tot_cells[7] = ""
+    mixed_rows = _mixed_buckets(v) if by == "expiry" else set()
+
+    def cells_of(r: ExposureRow) -> list[str]:
+        out = _risk_cells(r, scale)
+        if r.index in mixed_rows:  # a bucket of several names: share counts do not add
+            out[1] = out[3] = out[7] = ""
+        return out
     cols = list(_RISK_COLUMNS)
     if vega_unit == "vol":
         cols[4] = "vega $/1.00 vol"
@@ -300,7 +334,7 @@ def risk(
         f" · money in book currency"
     )
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
-        table = [[a, b, *(_risk_cells(r, scale)[i] for i in block)] for a, b, r in groups]
+        table = [[a, b, *(cells_of(r)[i] for i in block)] for a, b, r in groups]
         table.append(["total", "", *(tot_cells[i] for i in block)])
         click.echo("")
         print_table(

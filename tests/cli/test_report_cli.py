@@ -12,6 +12,7 @@ import csv
 import io
 import json
 import math
+import re
 from pathlib import Path
 from typing import Any
 
@@ -366,3 +367,38 @@ def test_tables_keep_every_column_and_id_at_80_columns(
     body = lines[3:]
     assert len(body) == len(ids)
     assert [int(line.split()[0]) for line in body] == ids
+
+
+def test_risk_by_expiry_blanks_share_counts_of_several_names(demo_db: Path) -> None:
+    """Δ sh, Γ 1% and vanna are shares of one name: a bucket holding several underlyings shows
+    them null (JSON), empty (CSV) and blank (table); a one-name bucket keeps the library's sum."""
+    v = _valuation(demo_db)
+    out = _json(["risk", "--db", str(demo_db), "--at", AT, "--by", "expiry"])
+    names_of = {
+        label: set(v.book.underlying_idx[v.bucket_codes == j].tolist())
+        for j, label in enumerate(v.bucket_labels)
+    }
+    mixed = [r for r in out["by_expiry"] if len(names_of[r["bucket"]]) > 1]
+    single = [r for r in out["by_expiry"] if len(names_of[r["bucket"]]) == 1]
+    assert mixed, "the demo book has buckets of several underlyings"
+    for r in mixed:
+        assert r["delta_shares"] is None and r["gamma_1pct"] is None and r["vanna_pt"] is None
+        assert r["delta_cash"] is not None and r["vega_pt"] is not None
+    for r in single:
+        rows = v.bucket_codes == v.bucket_labels.index(r["bucket"])
+        assert r["delta_shares"] == pytest.approx(float(v.delta_shares[rows].sum()), rel=1e-12)
+    text = _run(["risk", "--db", str(demo_db), "--at", AT, "--by", "expiry", "--csv"]).stdout
+    by_label = {row["expiry"]: row for row in csv.DictReader(io.StringIO(text))}
+    for r in mixed:
+        assert by_label[r["bucket"]]["delta_shares"] == ""
+    table = _run(["risk", "--db", str(demo_db), "--at", AT, "--by", "expiry"]).stdout
+    first = table.split("\n\n")[1].splitlines()  # expiry, positions, value, Δ sh, Δ $, Γ 1%, βΔ $
+    spans = [m.span() for m in re.finditer(r"-+", first[1])]  # column extents from the rule
+    at = [c.strip() for c in (first[0][a:b] for a, b in spans)].index("Δ sh")
+    blanked = 0
+    for line in first[2:]:
+        cells = [line[a:b].strip() for a, b in spans]
+        if cells[0] in {r["bucket"] for r in mixed}:
+            assert cells[at] == "" and cells[at + 1] != "", line  # Δ sh blank, Δ $ shown
+            blanked += 1
+    assert blanked == len(mixed)
