@@ -7,6 +7,10 @@
 open. Read-only stores open the file by URI ``mode=ro`` with ``query_only`` on and ATTACH
 disabled. Each thread that uses a ``Store`` gets its own connection.
 
+A read-only viewer writes nothing and creates no file, with one exception SQLite imposes: a WAL
+reader needs the ``-shm`` index, so when the book's ``-wal``/``-shm`` files are absent and the
+directory is writable, SQLite creates them (empty of data; the book file's bytes are unchanged).
+
 Durability: ``synchronous=FULL`` on every write, so a committed trade or close mark survives a
 power cut as well as a crash (WAL with NORMAL may lose the last commits on power loss). Writes
 are human-paced and an import is one transaction, so the extra sync per commit (a fraction of a
