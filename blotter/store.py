@@ -1221,6 +1221,19 @@ class Store:
             cid = old_cid if contract_id is None else self._existing_contract(conn, contract_id)
             self._check_not_expired(conn, cid, t)
             book_id = self._book_id(conn, old_book if book is None else book, create=True)
+            new_note = old_note if note is None else note
+            same_book = book is None or book == old_book
+            if same_book and (qty, px, _ts(t), cid, new_note) == (
+                old_qty,
+                old_px,
+                old_time,
+                old_cid,
+                old_note,
+            ):
+                raise StoreError(
+                    f"nothing to amend: the new terms of trade {trade_id} are the same as the "
+                    "old ones (give --qty, --price, --time, --note or --book)"
+                )
             conn.execute(
                 "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, "
                 "?, ?)",
@@ -1237,7 +1250,7 @@ class Store:
                     _ts(t),
                     _ts(now),
                     self.who,
-                    old_note if note is None else note,
+                    new_note,
                     int(trade_id),
                 ),
             )

@@ -248,3 +248,12 @@ def test_demo_command_writes_the_invented_book(tmp_path: Path) -> None:
     run("demo", "--out", str(out), "--force")
     with open_store(out, read_only=True) as s:
         assert int(s.load_book().is_option.sum()) == 150
+
+
+def test_amend_with_no_field_changed_is_refused(demo_db: Path) -> None:
+    db = str(demo_db)
+    before = run("trade", "list", "--csv", "--all", "--db", db).stdout
+    tid = next(csv.DictReader(io.StringIO(before)))["trade_id"]
+    r = run("trade", "amend", tid, "--reason", "x", "--db", db, code=1)
+    assert "nothing to amend" in r.stderr
+    assert run("trade", "list", "--csv", "--all", "--db", db).stdout == before

@@ -325,3 +325,18 @@ def test_a_cached_store_sees_contracts_added_by_another_connection(tmp_book: Pat
     assert book.labels == ("TSTA", "TSTA 2030-06-21 90 P", "TSTA 2030-06-21 100 C")
     assert list(book.quantities) == [50.0, -2.0, 1.0]
     viewer.close()
+
+
+def test_an_amend_that_changes_nothing_is_refused(store: Store) -> None:
+    tid = store.add_trade("main", "TSTA", 10, 2.5, "2030-06-21", 100, True, note="n")
+    before = store.trades()
+    for same in [
+        {},
+        {"quantity": 10, "price": 2.5, "note": "n", "book": "main"},
+        {"trade_time": before[0].trade_time},
+    ]:
+        with pytest.raises(StoreError, match="nothing to amend"):
+            store.amend_trade(tid, reason="typo", **same)
+        assert not store.in_transaction()
+    assert store.trades() == before
+    assert store.amend_trade(tid, reason="size", quantity=11) > tid
