@@ -1732,7 +1732,21 @@ class Store:
 
         ``corrects`` names an earlier close set this one replaces (it stays on record).
         ``marked_at`` and ``who`` default to now and the OS user (the demo sets them).
+        ``commit_close_info`` takes the same arguments and returns the set's record.
         """
+        return self.commit_close_info(note, corrects, marked_at, who, source).id
+
+    def commit_close_info(
+        self,
+        note: str | None = None,
+        corrects: int | None = None,
+        marked_at: datetime | None = None,
+        who: str | None = None,
+        source: str = "close",
+    ) -> MarkSetInfo:
+        """As ``commit_close``, returning the record of the set written (its id, time and mark
+        count as committed), read in the same transaction so no later commit can be mistaken
+        for it."""
         with self._write() as conn:
             if corrects is not None:
                 row = conn.execute(
@@ -1759,7 +1773,21 @@ class Store:
                 who=who,
             )
             self._insert_marks(conn, set_id, [tuple(r[2:]) for r in rows])
-            return set_id
+            row = conn.execute(
+                "SELECT kind, marked_at, who, note, corrects, source, mark_count FROM mark_set "
+                "WHERE mark_set_id = ?",
+                (set_id,),
+            ).fetchone()
+        return MarkSetInfo(
+            id=set_id,
+            kind=row[0],
+            marked_at=_from_ts(row[1]),
+            who=row[2],
+            note=row[3],
+            corrects=row[4],
+            source=row[5],
+            marks=row[6],
+        )
 
     @_guard_damage
     def mark_sets(self, kind: str | None = None) -> list[MarkSetInfo]:

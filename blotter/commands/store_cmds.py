@@ -426,8 +426,8 @@ def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
 def mark_close(note: str | None, corrects: int | None, as_json: bool, db_path: str | None) -> None:
     """Commit the marks in force now as today's close set (immutable once written)."""
     with _store(db_path) as store:
-        set_id = store.commit_close(note=note, corrects=corrects)
-        count = store.mark_sets()[-1].marks
+        written = store.commit_close_info(note=note, corrects=corrects)
+        set_id, count = written.id, written.marks
     _emit(
         as_json,
         {"mark_set_id": set_id, "marks": count},

@@ -257,3 +257,33 @@ def test_amend_with_no_field_changed_is_refused(demo_db: Path) -> None:
     r = run("trade", "amend", tid, "--reason", "x", "--db", db, code=1)
     assert "nothing to amend" in r.stderr
     assert run("trade", "list", "--csv", "--all", "--db", db).stdout == before
+
+
+def test_mark_close_reports_the_count_of_the_set_it_wrote(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Another process commits a bigger close right after ours: the count printed is ours."""
+    from contextlib import contextmanager
+
+    from blotter.store import Store
+
+    original = Store._write
+    busy = {"done": False}
+
+    @contextmanager
+    def write_then_other_process_closes(self: Store):  # type: ignore[no-untyped-def]
+        with original(self) as conn:
+            yield conn
+        if not busy["done"] and self.path == demo_db:
+            busy["done"] = True
+            with open_store(demo_db) as other:
+                other.log_rate("USD", 9999, 0.01)  # a new point: the other close is one bigger
+                other.commit_close(note="other process")
+
+    monkeypatch.setattr(Store, "_write", write_then_other_process_closes)
+    out = json.loads(run("mark", "close", "--json", "--db", str(demo_db)).stdout)
+    monkeypatch.setattr(Store, "_write", original)
+    with open_store(demo_db, read_only=True) as s:
+        sets = {m.id: m.marks for m in s.mark_sets()}
+        assert max(sets) != out["mark_set_id"]  # the other close came after ours
+        assert out["marks"] == sets[out["mark_set_id"]] == len(s.marks(out["mark_set_id"]))
