@@ -42,6 +42,7 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
+from blotter.book import Book
 from blotter.market import VOL_FLOOR
 from blotter.risk import BookValuation, value_book
 
@@ -1267,8 +1268,10 @@ class ExplainRow:
 
     ``actual`` = value at the end − value at the start of the positions held at the start;
     ``terms`` by ``TERM_NAMES``; ``explained`` their sum; ``unexplained`` = actual − explained;
-    ``new_trades`` the P&L of trades done in the period (end value − trade price), shown apart;
-    ``total`` = actual + new_trades.
+    ``new_trades`` the P&L of trades dealt in the period (end value − trade price), shown apart;
+    ``total`` = actual + new_trades. ``corrections`` is the part of ``actual`` that comes from
+    positions the book did not show at the start: trades dealt before the start but booked in
+    the period, and trades dealt before the start that were cancelled or amended in the period.
     """
 
     label: str
@@ -1279,6 +1282,7 @@ class ExplainRow:
     new_trades: float
     total: float
     underlying: str | None = None
+    corrections: float = 0.0
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form."""
@@ -1289,6 +1293,7 @@ class ExplainRow:
             "unexplained": self.unexplained,
             "new_trades": self.new_trades,
             "total": self.total,
+            "corrections": self.corrections,
         }
         if self.underlying is not None:
             out = {"underlying": self.underlying, **out}
@@ -1308,6 +1313,8 @@ class Explain:
     start: BookValuation
     end: BookValuation
     notes: tuple[str, ...] = ()
+    late_trades: tuple[int, ...] = ()  # ids of trades dealt before the start, booked in the period
+    corrected_trades: tuple[int, ...] = ()  # ids dealt before the start, cancelled in the period
 
 
 def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
@@ -1383,7 +1390,12 @@ def explain(
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
 
-    Positions held at the start are valued at the start marks and time and at the end marks and
+    The positions held over the period are the trades dealt by the start close and live as the
+    store knows them at the end (a trade cancelled or amended in the period is held as it now
+    stands, its replacement included; a late booking of a trade dealt before the start counts
+    as held); the trades dealt in the period are the new trades. ``corrections`` on each row says
+    how much of ``actual`` those late bookings and corrections changed against the book as shown
+    at the start. Held positions are valued at the start marks and time and at the end marks and
     time; the change is explained by Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
     ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets.
     """
@@ -1398,7 +1410,10 @@ def explain(
     if t1 < t0:
         raise ValueError(f"the end mark set is older than the start set {frm.id}")
     m0 = store.load_market(frm.id)
-    held = store.load_book(as_of=cal.to_datetime(t0))
+    t0d, t1d = cal.to_datetime(t0), cal.to_datetime(t1)
+    period = _period_trades(store, t0d, t1d)
+    known_start = store.load_book(as_of=t0d)
+    held = _net_books([(store.load_book(as_of=t1d), 1.0), (period.new, -1.0)])
     start = value_book(held, m0, t0)
     end = value_book(held, m1, t1)
     dt = float(cal.year_fraction(t0, t1))
@@ -1416,14 +1431,29 @@ def explain(
         "theta": g.theta * u * dt,
         "rho": start.rho_unit * u * drate,
     }
-    # Hedges (stock and futures) change by units × Δprice; a futures hedge's value is zero.
-    actual = np.where(held.is_option, end.value - start.value, u * ds)
+    actual = _held_pnl(start, end)
 
     n_u = len(held.underlyings)
     sym = held.underlyings.symbols
     new_pnl_u = np.zeros(n_u)
+    corr_u = np.zeros(n_u)
     notes: list[str] = []
-    trades, trade_prices = store.new_trades(cal.to_datetime(t0), cal.to_datetime(t1))
+    # Late bookings and corrections: actual of the held positions less that of the book as the
+    # store showed it at the start (positions added count with their P&L, removed ones against).
+    diff = _net_books([(held, 1.0), (known_start, -1.0)])
+    if len(diff):
+        corr = _held_pnl(value_book(diff, m0, t0), value_book(diff, m1, t1))
+        for j, s in enumerate(diff.underlyings.symbols):
+            in_u = diff.underlying_idx == j
+            if in_u.any():
+                corr_u[sym.index(s)] += float(corr[in_u].sum())
+    if period.late or period.corrected:
+        notes.append(
+            f"{len(period.late)} trade(s) dealt before the start were booked in the period and "
+            f"{len(period.corrected)} cancelled or amended in it: the positions held are as known "
+            "at the end; the corrections column is what that changed in actual"
+        )
+    trades, trade_prices = period.new, period.prices
     if len(trades):
         tv = value_book(trades, m1, t1)
         tp = np.asarray(trade_prices, dtype=np.float64)
@@ -1439,6 +1469,7 @@ def explain(
                     f"new trades in {s} (not held at the start): {float(pnl[in_u].sum()):.2f}"
                 )
                 new_pnl_u = np.append(new_pnl_u, float(pnl[in_u].sum()))
+                corr_u = np.append(corr_u, 0.0)
                 sym = sym + (s,)
     expired = held.is_option & start.live & ~end.live
     if expired.any():
@@ -1451,7 +1482,7 @@ def explain(
     idx = held.underlying_idx
     for j, s in enumerate(sym):
         mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
-        if not mask.any() and new_pnl_u[j] == 0:
+        if not mask.any() and new_pnl_u[j] == 0 and corr_u[j] == 0:
             continue
         rows.append(
             _explain_row(
@@ -1460,6 +1491,7 @@ def explain(
                 {k: float(v[mask].sum()) for k, v in terms.items()},
                 float(new_pnl_u[j]),
                 s,
+                float(corr_u[j]),
             )
         )
     tot = _explain_row(
@@ -1467,6 +1499,7 @@ def explain(
         float(actual.sum()),
         {k: float(v.sum()) for k, v in terms.items()},
         float(new_pnl_u.sum()),
+        corrections=float(corr_u.sum()),
     )
     return Explain(
         from_set=frm,
@@ -1478,11 +1511,139 @@ def explain(
         start=start,
         end=end,
         notes=tuple(notes),
+        late_trades=period.late,
+        corrected_trades=period.corrected,
+    )
+
+
+def _held_pnl(start: BookValuation, end: BookValuation) -> np.ndarray:
+    """P&L (n,) of the same positions between two valuations: options end value − start value,
+    hedges units × Δprice (a futures hedge's value is zero; its P&L settles daily)."""
+    return np.where(
+        start.book.is_option, end.value - start.value, start.units * (end.spot - start.spot)
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class _PeriodTrades:
+    """Trades of an explain period: ``new`` one row per live trade dealt in the period (``prices``
+    per unit, (n,)); ids of trades dealt before the start that were booked late (``late``) or
+    cancelled or amended (``corrected``) in the period."""
+
+    new: Book
+    prices: np.ndarray
+    late: tuple[int, ...]
+    corrected: tuple[int, ...]
+
+
+def _period_trades(store: Any, t0: Any, t1: Any) -> _PeriodTrades:
+    """Split the trades booked in (t0, t1] and live at t1 into those dealt in the period (new
+    trades) and those dealt by t0 (late bookings, amend replacements); list the trades dealt and
+    booked by t0 and cancelled in (t0, t1]. ``t0``, ``t1`` are aware UTC datetimes.
+
+    ``store.new_trades`` gives the per-trade rows (in booking order, trade id within a time);
+    ``store.trades`` gives each row's deal time, matched to them in the same order.
+    """
+    booked, prices = store.new_trades(t0, t1)
+    records = store.trades(until=t1)
+
+    def live_at_end(r: Any) -> bool:
+        return r.cancelled_at is None or r.cancelled_at > t1
+
+    in_period = sorted(
+        (r for r in records if t0 < r.booked_at <= t1 and live_at_end(r)),
+        key=lambda r: (r.booked_at, r.trade_id),
+    )
+    ids = np.array([r.contract_id for r in in_period], dtype=np.int64)
+    if ids.shape != booked.contract_ids.shape or (ids != booked.contract_ids).any():
+        raise RuntimeError("the store's trade list and its new trades disagree; explain stopped")
+    dealt_in = np.array([r.trade_time > t0 for r in in_period], dtype=bool)
+    corrected = tuple(
+        r.trade_id
+        for r in records
+        if r.trade_time <= t0
+        and r.booked_at <= t0
+        and r.cancelled_at is not None
+        and t0 < r.cancelled_at <= t1
+    )
+    rows = np.flatnonzero(dealt_in)
+    return _PeriodTrades(
+        new=_take_rows(booked, rows),
+        prices=np.asarray(prices, dtype=np.float64)[rows],
+        late=tuple(r.trade_id for r in in_period if r.trade_time <= t0),
+        corrected=corrected,
+    )
+
+
+_BOOK_ROW_FIELDS = (
+    "contract_ids",
+    "underlying_idx",
+    "is_option",
+    "is_call",
+    "american",
+    "strikes",
+    "expiries",
+    "multipliers",
+    "quantities",
+    "cash_settled",
+    "is_trial",
+)
+
+
+def _take_rows(book: Book, rows: np.ndarray) -> Book:
+    """Rows ``rows`` (index array) of ``book``, in that order."""
+    return Book(
+        name=book.name,
+        underlyings=book.underlyings,
+        reference_index=book.reference_index,
+        labels=tuple(book.labels[int(i)] for i in rows),
+        **{f: getattr(book, f)[rows] for f in _BOOK_ROW_FIELDS},
+    )
+
+
+def _net_books(parts: Sequence[tuple[Book, float]]) -> Book:
+    """Net positions of the books' signed sum (Σ sign × quantity per contract id): one row per
+    contract with a non-zero net, in order of first appearance. The books come from one store, so
+    a contract id has the same terms in each; underlyings are matched by symbol, on the longest
+    list (the store only adds underlyings)."""
+    base = max((b for b, _ in parts), key=lambda b: len(b.underlyings))
+    und = base.underlyings
+    cols: dict[str, list[np.ndarray]] = {f: [] for f in _BOOK_ROW_FIELDS}
+    labels: list[str] = []
+    for book, sign in parts:
+        remap = np.array([und.index_of(s) for s in book.underlyings.symbols], dtype=np.int64)
+        for f in _BOOK_ROW_FIELDS:
+            a = getattr(book, f)
+            if f == "underlying_idx":
+                a = remap[a] if len(a) else a
+            elif f == "quantities":
+                a = a * sign
+            cols[f].append(a)
+        labels.extend(book.labels)
+    cat = {f: np.concatenate(v) for f, v in cols.items()}
+    ids, first, inverse = np.unique(cat["contract_ids"], return_index=True, return_inverse=True)
+    net = np.bincount(inverse.reshape(-1), weights=cat["quantities"], minlength=len(ids))
+    keep = np.flatnonzero(np.abs(net) > 1e-9)
+    order = np.argsort(first[keep], kind="stable")
+    rows = first[keep][order]
+    out = {f: cat[f][rows] for f in _BOOK_ROW_FIELDS}
+    out["quantities"] = net[keep][order]
+    return Book(
+        name=base.name,
+        underlyings=und,
+        reference_index=base.reference_index,
+        labels=tuple(labels[int(i)] for i in rows),
+        **out,
     )
 
 
 def _explain_row(
-    label: str, actual: float, terms: dict[str, float], new: float, underlying: str | None = None
+    label: str,
+    actual: float,
+    terms: dict[str, float],
+    new: float,
+    underlying: str | None = None,
+    corrections: float = 0.0,
 ) -> ExplainRow:
     explained = float(sum(terms.values()))
     return ExplainRow(
@@ -1494,4 +1655,5 @@ def _explain_row(
         new_trades=new,
         total=actual + new,
         underlying=underlying,
+        corrections=corrections,
     )

@@ -704,9 +704,12 @@ def explain(
 ) -> None:
     """P&L explain between two mark sets (default: the last two closes) against the start's greeks.
 
-    For the positions held at the start: actual P&L (full revaluation) split into delta, gamma,
-    vega, volga, vanna, theta and rho terms, and the unexplained rest. Trades done in the period
-    are shown apart as new-trade P&L (end mark against trade price). Money in the book's currency.
+    For the positions held over the period (trades dealt by the start close, as the book stands
+    at the end: cancels and amends entered in the period count, late bookings too): actual P&L
+    (full revaluation) split into delta, gamma, vega, volga, vanna, theta and rho terms, and the
+    unexplained rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
+    against trade price). When late bookings or corrections changed the held book, a line shows
+    how much of actual they account for ("corrections"). Money in the book's currency.
     """
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
@@ -733,11 +736,22 @@ def explain(
                 "to_time": _iso(ex.to_time),
                 "by_underlying": [r.as_dict() for r in ex.by_underlying],
                 "total": ex.total.as_dict(),
+                "late_trades": list(ex.late_trades),
+                "corrected_trades": list(ex.corrected_trades),
                 "notes": list(ex.notes),
             }
         )
         return
-    cols = ["underlying", "actual", *TERM_KEYS, "explained", "unexplained", "new_trades", "total"]
+    cols = [
+        "underlying",
+        "actual",
+        *TERM_KEYS,
+        "explained",
+        "unexplained",
+        "new_trades",
+        "total",
+        "corrections",
+    ]
     data = [
         [
             r.label,
@@ -747,6 +761,7 @@ def explain(
             r.unexplained,
             r.new_trades,
             r.total,
+            r.corrections,
         ]
         for r in [*ex.by_underlying, ex.total]
     ]
@@ -783,6 +798,18 @@ def explain(
         [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*ex.by_underlying, ex.total]
     ]
     print_table(["explained by", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
+    if ex.late_trades or ex.corrected_trades:
+        click.echo("")
+        print_table(
+            ["late bookings and corrections (in actual)", "P&L"],
+            [[r.label, _money(r.corrections)] for r in [*ex.by_underlying, ex.total]],
+            right=[False, True],
+        )
+        click.echo(
+            f"late-booked trade ids: {', '.join(map(str, ex.late_trades)) or 'none'}; "
+            f"cancelled or amended in the period: "
+            f"{', '.join(map(str, ex.corrected_trades)) or 'none'}"
+        )
     for note in ex.notes:
         click.echo(note)
 

@@ -17,6 +17,7 @@ from blotter import calendar as cal
 from blotter.book import Book
 from blotter.market import Market
 from blotter.scenario import explain
+from blotter.store import TradeRecord
 
 from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
@@ -36,7 +37,8 @@ class SetInfo:
 
 
 class FakeStore:
-    """The four store calls explain makes, over fixed books and markets."""
+    """The store calls explain makes, over fixed books and markets: ``held`` was dealt and booked
+    before every set; each row of ``trades`` is one trade dealt and booked at ``trade_time``."""
 
     def __init__(
         self,
@@ -46,8 +48,9 @@ class FakeStore:
         trades: Book,
         prices: np.ndarray,
         now_market: Market | None = None,
+        trade_time: datetime = FRI + timedelta(days=1),
     ) -> None:
-        self.sets, self.markets, self.held, self.trades, self.prices = (
+        self.sets, self.markets, self.held, self.trade_book, self.prices = (
             sets,
             markets,
             held,
@@ -55,6 +58,7 @@ class FakeStore:
             prices,
         )
         self.now_market = now_market
+        self.trade_time = trade_time
         self.asked: list[tuple[str, object]] = []
 
     def mark_sets(self, kind: str | None = None) -> list[SetInfo]:
@@ -66,13 +70,65 @@ class FakeStore:
 
     def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
         self.asked.append(("book", as_of))
-        return self.held
+        if as_of is not None and as_of < self.trade_time:
+            return self.held
+        return self.held.with_trials(self.trade_book)  # distinct contract ids, one row each
 
     def new_trades(
         self, since: datetime, until: datetime | None = None, book: str | None = None
     ) -> tuple[Book, np.ndarray]:
         self.asked.append(("trades", (since, until)))
-        return self.trades, self.prices
+        if since < self.trade_time <= (until or datetime.now(UTC)):
+            return self.trade_book, self.prices
+        return _take(self.trade_book, []), self.prices[:0]
+
+    def trades(self, until: datetime | None = None) -> list[TradeRecord]:
+        if until is not None and self.trade_time > until:
+            return []
+        b = self.trade_book
+        return [
+            TradeRecord(
+                trade_id=100 + i,
+                book="test",
+                contract_id=int(b.contract_ids[i]),
+                contract=b.labels[i],
+                symbol="",
+                option_type="C",
+                expiry=None,
+                strike=None,
+                american=False,
+                multiplier=float(b.multipliers[i]),
+                cash_settled=False,
+                quantity=int(b.quantities[i]),
+                price=float(self.prices[i]),
+                trade_time=self.trade_time,
+                booked_at=self.trade_time,
+                who="test",
+                source="typed",
+                note="",
+                state="live",
+            )
+            for i in range(len(b))
+        ]
+
+
+def _take(b: Book, rows: list[int]) -> Book:
+    idx = np.array(rows, dtype=np.int64)
+    return Book(
+        name=b.name,
+        underlyings=b.underlyings,
+        reference_index=b.reference_index,
+        contract_ids=b.contract_ids[idx],
+        labels=tuple(b.labels[i] for i in rows),
+        underlying_idx=b.underlying_idx[idx],
+        is_option=b.is_option[idx],
+        is_call=b.is_call[idx],
+        american=b.american[idx],
+        strikes=b.strikes[idx],
+        expiries=b.expiries[idx],
+        multipliers=b.multipliers[idx],
+        quantities=b.quantities[idx],
+    )
 
 
 def _market(spots: dict[str, float], vols: dict[str, float], marked: datetime) -> Market:
@@ -93,7 +149,7 @@ def _store(**kw: object) -> FakeStore:
         FRI,
         [Row("IDX", 10, 4500, 30, True), Row("STK", -20, 115, 60, False), Row("STK", 500, mult=1)],
     )
-    trades = _book_at(FRI, [Row("IDX", 2, 4400, 30, False)])
+    trades = _book_at(FRI, [Row("IDX", 2, 4400, 30, False)], first_id=100)
     sets = [
         SetInfo(1, "close", FRI - timedelta(days=1)),
         SetInfo(2, "close", FRI),
@@ -112,14 +168,14 @@ def _store(**kw: object) -> FakeStore:
     return FakeStore(**args)  # type: ignore[arg-type]
 
 
-def _book_at(t: datetime, rows: list[Row]) -> Book:
+def _book_at(t: datetime, rows: list[Row], first_id: int = 1) -> Book:
     b = make_book(rows)
     shift = cal.to_instant(t) - np.datetime64("2026-12-04T20:00:00", "s")
     return Book(
         name=b.name,
         underlyings=b.underlyings,
         reference_index=b.reference_index,
-        contract_ids=b.contract_ids,
+        contract_ids=b.contract_ids + (first_id - 1),
         labels=b.labels,
         underlying_idx=b.underlying_idx,
         is_option=b.is_option,

@@ -1,0 +1,120 @@
+"""P&L explain on a real store, with a cancel, an amend and a new trade inside the period.
+
+The held positions are the trades dealt by the start close as the store knows them at the end:
+a trade cancelled in the period is not held, an amended one is held as amended (its replacement
+keeps the original deal time, so it is not a new trade), and a trade dealt in the period is a new
+trade. Sources: QuantLib 1.44 values every option at both closes (actual, new-trade and
+correction P&L); held + new = the end book is bookkeeping (common practice).
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from blotter import store as store_mod
+from blotter.scenario import explain
+from blotter.store import create_store
+
+from .scenario_books import ql_price
+
+T0 = datetime(2026, 11, 23, 21, 0, tzinfo=UTC)  # Monday close, 16:00 New York
+T1 = datetime(2026, 11, 24, 21, 0, tzinfo=UTC)  # Tuesday close
+EXPIRY = "2027-01-15"  # cut-off 16:00 New York = 21:00 UTC: 53 days after T0, 52 after T1
+RATE, DIV = 0.04, 0.02
+S0, S1, V0, V1 = 100.0, 103.0, 0.30, 0.32
+
+
+def _price(call: bool, strike: float, spot: float, days: int, vol: float) -> float:
+    return ql_price(call, spot, strike, days, RATE, DIV, vol)
+
+
+@pytest.fixture
+def period_store(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[object, dict[str, int]]:
+    clock = {"now": T0.replace(hour=15)}
+    monkeypatch.setattr(store_mod, "_now", lambda: clock["now"])
+    st = create_store(tmp_path / "book.sqlite")
+    st.add_underlying("STKX", "stock", "USD", 100.0, american=False, div_yield=DIV)
+    for tenor in (1, 3650):
+        st.log_rate("USD", tenor, RATE)
+    st.log_spot("STKX", S0)
+    st.log_vol("STKX", EXPIRY, V0)
+    ids = {
+        "long": st.add_trade("main", "STKX", 10, 5.0, EXPIRY, 100.0, True),
+        "cancelled": st.add_trade("main", "STKX", 5, 3.0, EXPIRY, 95.0, False),
+        "amended": st.add_trade("main", "STKX", -3, 1.0, EXPIRY, 110.0, True),
+    }
+    clock["now"] = T0
+    st.commit_close(marked_at=T0)
+    clock["now"] = datetime(2026, 11, 24, 15, 0, tzinfo=UTC)
+    st.cancel_trade(ids["cancelled"], "booked in error")
+    ids["replacement"] = st.amend_trade(ids["amended"], reason="four, not three", quantity=-4)
+    ids["new"] = st.add_trade(
+        "main",
+        "STKX",
+        2,
+        4.0,
+        EXPIRY,
+        105.0,
+        True,
+        trade_time=datetime(2026, 11, 24, 14, 0, tzinfo=UTC),
+    )
+    gone = st.add_trade("main", "STKX", 7, 2.0, EXPIRY, 90.0, False)
+    st.cancel_trade(gone, "dealt and cancelled inside the period")
+    st.log_spot("STKX", S1)
+    st.log_vol("STKX", EXPIRY, V1)
+    clock["now"] = T1
+    st.commit_close(marked_at=T1)
+    return st, ids
+
+
+def test_held_and_new_add_to_the_end_book(period_store: tuple[object, dict[str, int]]) -> None:
+    st, ids = period_store
+    ex = explain(st)
+    held = {
+        int(c): float(q)
+        for c, q in zip(ex.start.book.contract_ids, ex.start.book.quantities, strict=True)
+    }
+    end = st.load_book(as_of=T1)
+    new = {}
+    for t in st.trades(live_only=True):
+        if t.trade_time > T0:
+            new[t.contract_id] = new.get(t.contract_id, 0.0) + t.quantity
+    combined = dict(held)
+    for c, q in new.items():
+        combined[c] = combined.get(c, 0.0) + q
+    combined = {c: q for c, q in combined.items() if q}
+    assert combined == {
+        int(c): float(q) for c, q in zip(end.contract_ids, end.quantities, strict=True)
+    }
+    by_trade = {t.trade_id: t for t in st.trades()}
+    c_long, c_amend = by_trade[ids["long"]].contract_id, by_trade[ids["amended"]].contract_id
+    assert held == {c_long: 10.0, c_amend: -4.0}  # the cancelled put is not held
+    assert set(ex.late_trades) == {ids["replacement"]}
+    assert set(ex.corrected_trades) == {ids["cancelled"], ids["amended"]}
+
+
+def test_actual_new_and_corrections_match_quantlib(
+    period_store: tuple[object, dict[str, int]],
+) -> None:
+    st, _ = period_store
+    ex = explain(st)
+    c100 = _price(True, 100, S1, 52, V1) - _price(True, 100, S0, 53, V0)
+    c110 = _price(True, 110, S1, 52, V1) - _price(True, 110, S0, 53, V0)
+    p95 = _price(False, 95, S1, 52, V1) - _price(False, 95, S0, 53, V0)
+    actual = 100 * (10 * c100 - 4 * c110)
+    assert ex.total.actual == pytest.approx(actual, rel=1e-9)
+    # The new 105 call only: its end mark against its trade price of 4.00.
+    assert ex.total.new_trades == pytest.approx(
+        2 * 100 * (_price(True, 105, S1, 52, V1) - 4.0), rel=1e-9
+    )
+    # Against the book shown at the start: one more 110 call short, the 95 put gone.
+    assert ex.total.corrections == pytest.approx(100 * (-1 * c110 - 5 * p95), rel=1e-9)
+    assert ex.total.total == pytest.approx(ex.total.actual + ex.total.new_trades)
+    assert any("cancelled or amended" in n for n in ex.notes)
+    (row,) = ex.by_underlying
+    assert row.underlying == "STKX" and row.corrections == pytest.approx(ex.total.corrections)
+    assert np.isfinite(ex.total.unexplained)
