@@ -15,6 +15,10 @@ Example file::
     error_abs = 1000.0          # ... and exceeds this much currency
     delta_cash = 5000000.0      # book limit on |Δ $|; 0 = none
     vega_pt = 50000.0           # book limit on |vega| per vol point; 0 = none
+    ladder_loss = 2000000.0     # book limit on the worst ladder cell's loss; 0 = none
+    underlying_delta_cash = 2000000.0   # the same limits for each underlying
+    underlying_vega_pt = 20000.0
+    underlying_ladder_loss = 1000000.0
 
     [keys]                      # binding id = comma-separated keys (see the help screen)
     help = "question_mark,f1"
@@ -44,6 +48,10 @@ class Alerts:
     error_abs: float = 100.0  # ... and only when |full − estimate| is above this amount
     delta_cash: float = 0.0  # book |Δ $| limit; 0 = no limit
     vega_pt: float = 0.0  # book |vega| limit per vol point; 0 = no limit
+    ladder_loss: float = 0.0  # book limit on the worst ladder cell's loss (a positive amount)
+    underlying_delta_cash: float = 0.0  # |Δ $| limit of each underlying; 0 = no limit
+    underlying_vega_pt: float = 0.0  # |vega| per vol point limit of each underlying
+    underlying_ladder_loss: float = 0.0  # worst ladder cell's loss limit of each underlying
 
 
 @dataclass(frozen=True)

@@ -493,10 +493,23 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
     return rows
 
 
-def total(valuation: BookValuation) -> ExposureRow:
-    """The whole book's exposures in one row (label "total")."""
-    values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
-    return _exposure_row("total", "total", len(valuation), values)
+def total(
+    valuation: BookValuation, rows: np.ndarray | None = None, label: str = "total"
+) -> ExposureRow:
+    """The exposures of the whole book, or of the positions ``rows`` (index array), in one row.
+
+    With ``rows``, ``underlying`` is set when every position summed has the same underlying, so a
+    caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything.
+    """
+    if rows is None:
+        values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
+        return _exposure_row(label, label, len(valuation), values)
+    rows = np.asarray(rows, dtype=np.int64)
+    values = {name: float(np.sum(getattr(valuation, name)[rows])) for name in EXPOSURE_FIELDS}
+    n = len(rows)
+    names = np.unique(valuation.book.underlying_idx[rows])
+    underlying = valuation.book.underlyings.symbols[int(names[0])] if len(names) == 1 else None
+    return _exposure_row(label, label, n, values, underlying=underlying)
 
 
 def beta_delta_index_units(valuation: BookValuation) -> float | None:

@@ -113,6 +113,10 @@ class BlotterApp(App[None]):
         self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
         self.first_paint: float | None = None
         self._stop_watch = threading.Event()
+        self.trials: list[data.TrialTrade] = []
+        self._trial_seq = 0
+        self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
+        self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
 
@@ -162,10 +166,14 @@ class BlotterApp(App[None]):
         description="read and value the book",
     )
     def load_book(self) -> None:
-        """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``."""
+        """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``.
+
+        The trial trades held in memory are layered on the live book (``Book.with_trials``).
+        """
         from blotter import risk
 
         worker = get_current_worker()
+        trials = list(self.trials)
         t0 = time.perf_counter()
         try:
             if self.loader is not None:
@@ -178,6 +186,8 @@ class BlotterApp(App[None]):
                     book = st.load_book()
                     market = st.load_market()
                     version = int(st.data_version())
+                    if trials:
+                        book = data.trial_book(book, trials)
                 finally:
                     close = getattr(st, "close", None)
                     if close is not None:
@@ -213,13 +223,38 @@ class BlotterApp(App[None]):
             self.post_message(BookLoaded(state))
 
     def _row_alert(self, row: Any) -> str:
+        """Limit breaches of a Book row in words: book limits on the total, per-underlying ones
+        on each underlying (``[alerts]`` in the config file)."""
         alerts = self.settings.alerts
         words = []
-        if alerts.delta_cash and abs(row.delta_cash) > alerts.delta_cash:
-            words.append(f"|Δ $| over {alerts.delta_cash:,.0f}")
-        if alerts.vega_pt and abs(row.vega_pt) > alerts.vega_pt:
-            words.append(f"|vega| over {alerts.vega_pt:,.0f}")
+        if row.key == "total":
+            delta_limit, vega_limit = alerts.delta_cash, alerts.vega_pt
+        elif row.underlying is not None:
+            delta_limit, vega_limit = alerts.underlying_delta_cash, alerts.underlying_vega_pt
+        else:
+            return ""
+        if delta_limit and abs(row.delta_cash) > delta_limit:
+            words.append(f"|Δ $| over {delta_limit:,.0f}")
+        if vega_limit and abs(row.vega_pt) > vega_limit:
+            words.append(f"|vega| over {vega_limit:,.0f}")
+        ladder = self.ladder_row_alerts.get(row.label) if row.key != "total" else None
+        if ladder:
+            words.append(ladder)
         return "; ".join(words)
+
+    def breaches(self) -> list[str]:
+        """Every limit breach in words: the book's, then each underlying's."""
+        if self.state is None:
+            return []
+        out = []
+        total = self.state.tree.total()
+        if total.alert:
+            out.append(f"book {total.alert}")
+        out += self.ladder_alerts
+        for row in self.state.tree.top("underlying"):
+            if row.alert:
+                out.append(f"{row.label} {row.alert}")
+        return out
 
     def on_book_loaded(self, message: BookLoaded) -> None:
         self.book_seq += 1
@@ -244,8 +279,12 @@ class BlotterApp(App[None]):
     def _refresh_header(self) -> None:
         if self.state is None:
             return
-        total = self.state.tree.total()
-        alerts = [f"book {total.alert}"] if total.alert else []
+        alerts = self.breaches()
+        if len(alerts) > 2:
+            alerts = [*alerts[:1], f"{len(alerts) - 1} more limit breaches (w lists them)"]
+        n_trials = int(np.count_nonzero(self.state.valuation.book.is_trial))
+        if n_trials:
+            alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
     def on_load_failed(self, message: LoadFailed) -> None:
@@ -286,6 +325,11 @@ class BlotterApp(App[None]):
 
     def on_store_changed(self, message: StoreChanged) -> None:
         self.load_book()
+        from blotter.ui.screens.base import DeskScreen
+
+        for screen in self.screen_stack:
+            if isinstance(screen, DeskScreen):
+                screen.store_changed()
 
     # -- the what-if bar ------------------------------------------------------------------------
     @on(Input.Changed, "#whatif-input")
@@ -433,12 +477,45 @@ class BlotterApp(App[None]):
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"ladder: {exc}"))
             return
+        alerts = self.settings.alerts
+        book_alert = ""
+        row_alerts: dict[str, str] = {}
+        worst = float(grid.full[grid.worst])
+        if alerts.ladder_loss and -worst > alerts.ladder_loss:
+            book_alert = f"book worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+        if alerts.underlying_ladder_loss:
+            from blotter import risk
+
+            book = state.valuation.book
+            for j in np.unique(book.underlying_idx):
+                if worker.is_cancelled:
+                    return
+                rows = np.flatnonzero(book.underlying_idx == j)
+                alone = risk.value_book(
+                    data.sub_book(book, rows),
+                    state.valuation.market,
+                    state.valuation.valuation_time,
+                )
+                g = scenario.ladder(
+                    alone, self.settings.ladder_spot_pcts, self.settings.ladder_vol_pts, days=days
+                )
+                w = float(g.full[g.worst])
+                if -w > alerts.underlying_ladder_loss:
+                    row_alerts[book.underlyings.symbols[int(j)]] = (
+                        f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
+                    )
         if not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grid))
+            self.post_message(LadderReady(state.book_seq, days, grid, book_alert, row_alerts))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             self.query_one(LadderPane).show(message.ladder, message.days)
+            self.ladder_alerts = [message.book_alert] if message.book_alert else []
+            rows = message.row_alerts or {}
+            if rows != self.ladder_row_alerts or message.book_alert:
+                self.ladder_row_alerts = rows
+                self.query_one(BookTable).show()
+            self._refresh_header()
 
     def start_profile(self) -> None:
         if self.state is None:
@@ -488,12 +565,72 @@ class BlotterApp(App[None]):
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        """On the help screen only its own keys (and help, quit) apply; the footer shows them."""
+        """On the help screen only its own keys (and help, quit) apply; on the other screens only
+        their own keys and help; the footer shows what applies."""
         from blotter.ui.screens.help import HelpScreen
 
         if isinstance(self.screen, HelpScreen) and action not in ("help", "quit", "close"):
             return False
+        if self.screen is not self.screen_stack[0] and action not in ("help",):
+            return not any(k.action == action and k.where == "app" for k in KEYS)
         return True
+
+    # -- the desk screens ------------------------------------------------------------------------
+    def action_marks(self) -> None:
+        from blotter.ui.screens.marks import MarksScreen
+
+        self.push_screen(MarksScreen())
+
+    def action_trades(self) -> None:
+        from blotter.ui.screens.trades import TradesScreen
+
+        self.push_screen(TradesScreen())
+
+    def action_explain(self) -> None:
+        from blotter.ui.screens.explain import ExplainScreen
+
+        self.push_screen(ExplainScreen())
+
+    def action_watch_list(self) -> None:
+        from blotter.ui.screens.watch import WatchScreen
+
+        self.push_screen(WatchScreen(id="watch-list"))
+
+    def action_vega_unit(self) -> None:
+        table = self.query_one(BookTable)
+        table.set_vega_unit("vol" if table.vega_unit == "pt" else "pt")
+        self.notify(
+            "vega per 1.00 of vol (100 vol points)"
+            if table.vega_unit == "vol"
+            else "vega per vol point (0.01 of vol)",
+            timeout=3,
+        )
+
+    # -- trial trades ----------------------------------------------------------------------------
+    def add_trial(self, contract: Any, quantity: int, price: float, book: str) -> None:
+        """Layer a trial trade of ``contract`` (a ``store.ContractRecord``) on the live book."""
+        self._trial_seq += 1
+        self.trials.append(data.TrialTrade(self._trial_seq, contract, quantity, price, book))
+        self.load_book()
+
+    def remove_trial(self, trial_id: int) -> None:
+        self.trials = [t for t in self.trials if t.trial_id != trial_id]
+        self.load_book()
+
+    def clear_trials(self, reload: bool = True) -> None:
+        """Drop every trial trade (nothing was written for them)."""
+        n = len(self.trials)
+        self.trials = []
+        if reload:
+            self.load_book()
+            if n:
+                self.notify(f"{n} trial trade(s) cleared; the store is untouched", timeout=3)
+
+    def action_clear_trials(self) -> None:
+        if not self.trials:
+            self.notify("no trial trades to clear", timeout=3)
+            return
+        self.clear_trials()
 
     def action_help(self) -> None:
         from blotter.ui.screens.help import HelpScreen

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -38,6 +38,9 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 SUM_FIELDS = tuple(k for k, _ in BOOK_COLUMNS if k != "spot")
 """Columns that add up over positions (risk's additive arrays)."""
 
+SHARE_FIELDS = frozenset({"delta_shares", "gamma_1pct", "vanna_pt"})
+"""Columns in shares of one underlying: a row spanning several names shows them as "—"."""
+
 MAX_CHILD_ROWS = 2000
 """Positions listed under one expanded row; the rest are summarised in one line."""
 
@@ -53,6 +56,8 @@ class BookRow:
     expandable: bool = False
     alert: str = ""  # words for a breached limit; the row shows "!"
     position: int | None = None  # row index into the book for a position row
+    mixed: bool = False  # spans several underlyings: share-unit columns do not add
+    trial: bool = False  # a trial position (not in the store)
 
 
 def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[float, ...]:
@@ -113,8 +118,13 @@ class BookTree:
 
     # -- pieces ---------------------------------------------------------------------------------
     def _subtotal(self, rows: np.ndarray) -> tuple[float, ...]:
-        """Risk's additive arrays summed over ``rows`` (an index array), in ``SUM_FIELDS`` order."""
-        return tuple(float(self._sums[k][rows].sum()) for k in SUM_FIELDS)
+        """``risk.total`` over ``rows`` (an index array), in ``SUM_FIELDS`` order."""
+        row = risk.total(self.valuation, rows)
+        return tuple(float(getattr(row, k)) for k in SUM_FIELDS)
+
+    def _mixed(self, rows: np.ndarray) -> bool:
+        """Whether ``rows`` hold positions of more than one underlying."""
+        return len(np.unique(self.book.underlying_idx[rows])) > 1
 
     def _positions(self, parent: str, rows: np.ndarray, level: int) -> list[BookRow]:
         book = self.book
@@ -126,6 +136,7 @@ class BookTree:
                 label=position_label(book, int(i)),
                 values=(math.nan,) + tuple(float(self._sums[k][i]) for k in SUM_FIELDS),
                 position=int(i),
+                trial=bool(book.is_trial[i]),
             )
             for i in order[:MAX_CHILD_ROWS]
         ]
@@ -137,6 +148,7 @@ class BookTree:
                     level=level,
                     label=f"… {len(rest):,} more",
                     values=(math.nan,) + self._subtotal(rest),
+                    mixed=self._mixed(rest),
                 )
             )
         return out
@@ -176,6 +188,21 @@ class BookTree:
             label="total",
             values=_row_values(self._total),
             alert=self._alert(self._total),
+            mixed=self._mixed(np.arange(len(self.book))),
+        )
+
+    def total_without_trials(self) -> BookRow | None:
+        """The total of the live positions only, when the book holds trial rows (else None)."""
+        trial = np.asarray(self.book.is_trial, dtype=bool)
+        if not trial.any():
+            return None
+        live = np.flatnonzero(~trial)
+        return BookRow(
+            key="total-live",
+            level=0,
+            label="live only",
+            values=(math.nan,) + self._subtotal(live),
+            mixed=self._mixed(live),
         )
 
     def top(self, group: str) -> Sequence[BookRow]:
@@ -191,9 +218,17 @@ class BookTree:
                 )
                 for r in self._by_underlying
             ]
+        codes = self.valuation.bucket_codes
         return [
             BookRow(
-                key=f"b|{r.label}", level=1, label=r.label, values=_row_values(r), expandable=True
+                key=f"b|{r.label}",
+                level=1,
+                label=r.label,
+                values=_row_values(r),
+                expandable=True,
+                mixed=self._mixed(
+                    np.flatnonzero(codes == self.valuation.bucket_labels.index(r.label))
+                ),
             )
             for r in self._by_bucket
         ]
@@ -441,3 +476,389 @@ def profile(
         y_label=y_label,
         note=note,
     )
+
+
+# -- Marks screen -----------------------------------------------------------------------------
+MARK_KINDS = ("spot", "vol", "div_yield", "rate")
+"""Kinds of mark point the Marks screen lists, in screen order."""
+
+STALE_AFTER = timedelta(days=1)
+"""A mark in force unchanged for longer than this is listed as stale at the close."""
+
+
+@dataclass(frozen=True)
+class MarkPoint:
+    """One mark point: the value in force, the last close's and when it was last marked.
+
+    ``value`` and ``close_value`` are as stored (spot in currency, vol/rate/yield decimal); None
+    when there is no such mark. ``needed`` is True when a position depends on a missing point.
+    """
+
+    key: str
+    kind: str
+    symbol: str | None
+    currency: str | None
+    expiry: Any  # datetime.date | None
+    strike: float | None
+    tenor_days: int | None
+    value: float | None
+    close_value: float | None
+    marked_at: datetime | None
+    needed: bool = False
+
+    @property
+    def label(self) -> str:
+        """How the point reads on screen: ``DEMOA spot``, ``DEMOA 2027-03-19 190`` (a vol at that
+        strike; ``ATM`` without one), ``USD rate 90d``."""
+        if self.kind == "spot":
+            return f"{self.symbol} spot"
+        if self.kind == "div_yield":
+            return f"{self.symbol} div yield"
+        if self.kind == "rate":
+            return f"{self.currency} rate {self.tenor_days}d"
+        where = "ATM" if self.strike is None else f"{self.strike:g}"
+        return f"{self.symbol} {self.expiry} {where}"
+
+    def shown(self, value: float | None) -> str:
+        """``value`` in the screen's unit: spot as a price, vol/rate/yield in %."""
+        if value is None:
+            return "missing"
+        if self.kind == "spot":
+            return fmt.number(value, 2)
+        return f"{value * 100:.2f}%"
+
+    def change(self) -> str:
+        """In force − last close, in the screen's unit (vol in points, rate/yield in bp)."""
+        if self.value is None or self.close_value is None:
+            return ""
+        d = self.value - self.close_value
+        if self.kind == "spot":
+            return fmt.number(d, 2, signed=True) if d else "0"
+        if self.kind == "vol":
+            return f"{d * 100:+.2f} pt" if d else "0"
+        return f"{d * 1e4:+.1f} bp" if d else "0"
+
+    def unit(self) -> str:
+        """What a typed number means in this cell."""
+        if self.kind == "spot":
+            return "price in the underlying's currency"
+        if self.kind == "vol":
+            return "vol in % (24.5 = 24.5%), or $price of the option to solve its vol"
+        return "% (4.1 = 4.1%)"
+
+
+def _point_key(kind: str, symbol: Any, currency: Any, expiry: Any, strike: Any, tenor: Any) -> str:
+    return f"{kind}|{symbol or ''}|{currency or ''}|{expiry or ''}|{strike or ''}|{tenor or ''}"
+
+
+@dataclass(frozen=True)
+class MarksView:
+    """The Marks screen's rows and what a close now would record."""
+
+    points: tuple[MarkPoint, ...]
+    last_close_id: int | None
+    last_close_at: datetime | None
+    data_version: int
+
+
+def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
+    """Mark points in force beside the last close, plus points the book needs but nobody marked.
+
+    ``st`` is a ``store.Store``; ``book`` (the live book) says which spots and expiries are
+    needed. Vol points sort under their underlying, nearest expiry first.
+    """
+    in_force = st.marks()
+    closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
+    last = closes[-1] if closes else None
+    at_close = st.marks(last.id) if last is not None else []
+
+    def key_of(m: Any) -> str:
+        return _point_key(m.kind, m.symbol, m.currency, m.expiry, m.strike, m.tenor_days)
+
+    close_by_key = {key_of(m): m.value for m in at_close}
+    points: dict[str, MarkPoint] = {}
+    for m in in_force:
+        if m.kind not in MARK_KINDS:
+            continue
+        k = key_of(m)
+        points[k] = MarkPoint(
+            k,
+            m.kind,
+            m.symbol,
+            m.currency,
+            m.expiry,
+            m.strike,
+            m.tenor_days,
+            m.value,
+            close_by_key.get(k),
+            m.marked_at,
+        )
+    if book is not None and len(book):
+        syms = book.underlyings.symbols
+        for j in np.unique(book.underlying_idx):
+            sym = syms[int(j)]
+            k = _point_key("spot", sym, None, None, None, None)
+            if k not in points:
+                points[k] = MarkPoint(
+                    k, "spot", sym, None, None, None, None, None, None, None, True
+                )
+            rows = np.flatnonzero((book.underlying_idx == j) & book.is_option)
+            marked = {p.expiry for p in points.values() if p.kind == "vol" and p.symbol == sym}
+            for e in np.unique(book.expiries[rows]):
+                day = cal.local_date(e, tz)
+                d = day.astype(object) if hasattr(day, "astype") else day
+                if d not in marked:
+                    k = _point_key("vol", sym, None, d, None, None)
+                    points[k] = MarkPoint(
+                        k, "vol", sym, None, d, None, None, None, None, None, True
+                    )
+
+    def order(p: MarkPoint) -> tuple[Any, ...]:
+        if p.kind in ("spot", "vol", "div_yield"):
+            sub = {"spot": 0, "div_yield": 1, "vol": 2}[p.kind]
+            return (
+                0,
+                p.symbol or "",
+                sub,
+                str(p.expiry or ""),
+                -1 if p.strike is None else p.strike,
+            )
+        return (1, p.currency or "", 0, "", p.tenor_days or 0)
+
+    return MarksView(
+        points=tuple(sorted(points.values(), key=order)),
+        last_close_id=last.id if last else None,
+        last_close_at=last.marked_at if last else None,
+        data_version=int(st.data_version()),
+    )
+
+
+@dataclass(frozen=True)
+class CloseReview:
+    """What a close written now would record, against the last close."""
+
+    changed: tuple[str, ...]  # "DEMOA spot 187.50 → 188.10 (+0.60)"
+    missing: tuple[str, ...]  # points a position needs and nobody marked
+    stale: tuple[str, ...]  # marks unchanged for more than STALE_AFTER
+    n_points: int
+
+
+def close_review(view: MarksView, now: datetime) -> CloseReview:
+    """Sort the points of ``view`` into changed since the last close, missing and stale."""
+    changed, missing, stale = [], [], []
+    n = 0
+    for p in view.points:
+        name = p.label if p.kind != "vol" else p.label.replace(" ", " vol ", 1)
+        if p.value is None:
+            if p.needed:
+                missing.append(name)
+            continue
+        n += 1
+        if p.close_value is None:
+            changed.append(f"{name} new {p.shown(p.value)}")
+        elif p.value != p.close_value:
+            changed.append(f"{name} {p.shown(p.close_value)} → {p.shown(p.value)} ({p.change()})")
+        if p.marked_at is not None and now - p.marked_at > STALE_AFTER:
+            stale.append(f"{name} marked {fmt.age_words(now - p.marked_at)} ago")
+    return CloseReview(tuple(changed), tuple(missing), tuple(stale), n)
+
+
+def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
+    """A typed cell: ``("value", stored value)`` or ``("price", option price)`` for ``$12.3``.
+
+    ValueError with a reason for text that is not a number. Vol, rate and yield are typed in %.
+    """
+    t = text.strip().replace(",", "")
+    if not t:
+        raise ValueError("type a number")
+    if t[0] in "$pP" and point.kind == "vol":
+        try:
+            return "price", float(t[1:].strip())
+        except ValueError:
+            raise ValueError(f"{t[1:]!r} is not a price") from None
+    try:
+        x = float(t.rstrip("%"))
+    except ValueError:
+        raise ValueError(f"{t!r} is not a number ({point.unit()})") from None
+    return "value", x if point.kind == "spot" else x / 100.0
+
+
+def solve_vol(
+    valuation: risk.BookValuation, point: MarkPoint, price: float, tz: Any
+) -> tuple[float | None, str, bool]:
+    """Implied vol of ``price`` for the point's option, via ``engine.implied_vol``.
+
+    Time, rate and carry come from a position of the same underlying and expiry; the option is the
+    out-of-the-money one at the point's strike (ATM: the spot). Returns (vol or None, words,
+    is_call).
+    """
+    from blotter import engine
+    from blotter.engine.results import IV_STATUS
+
+    book = valuation.book
+    sym = point.symbol or ""
+    try:
+        j = book.underlyings.index_of(sym)
+    except KeyError:
+        return None, f"{sym} is not in the book", True
+    candidates = np.flatnonzero((book.underlying_idx == j) & book.is_option & valuation.live)
+    rows = [
+        int(i)
+        for i in candidates
+        if cal.local_date(book.expiries[i], tz).astype(object) == point.expiry
+    ]
+    if not rows:
+        return None, "no live position at this expiry to take time, rate and carry from", True
+    i = rows[0]
+    spot = float(valuation.spot[i])
+    strike = spot if point.strike is None else float(point.strike)
+    is_call = strike >= spot
+    iv = engine.implied_vol(
+        price,
+        is_call,
+        spot,
+        strike,
+        float(valuation.years[i]),
+        float(valuation.rate[i]),
+        float(valuation.carry[i]),
+        bool(book.american[i]),
+    )
+    status = int(np.asarray(iv.status).reshape(-1)[0])
+    kind = "call" if is_call else "put"
+    if status != 0:
+        return None, f"{kind} price {price:g} refused: {IV_STATUS.get(status, status)}", is_call
+    vol = float(np.asarray(iv.vol).reshape(-1)[0])
+    return vol, f"{kind} price {price:g} → implied vol {vol * 100:.2f}%", is_call
+
+
+# -- Trades screen and trial trades -----------------------------------------------------------
+@dataclass(frozen=True)
+class TrialTrade:
+    """A trade layered on the live book in memory only; ``contract`` is a store ContractRecord."""
+
+    trial_id: int
+    contract: Any
+    quantity: int
+    price: float
+    book: str
+
+
+def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
+    """The live book with the trials appended as ``is_trial`` rows (``Book.with_trials``)."""
+    if not trials:
+        return live
+    und = live.underlyings
+    cs = [t.contract for t in trials]
+    opt = [c.option_type != "U" for c in cs]
+    rows = Book(
+        name=live.name,
+        underlyings=und,
+        reference_index=live.reference_index,
+        contract_ids=np.array([c.contract_id for c in cs], dtype=np.int64),
+        labels=tuple(c.label for c in cs),
+        underlying_idx=np.array([und.index_of(c.symbol) for c in cs], dtype=np.int64),
+        is_option=np.array(opt, dtype=bool),
+        is_call=np.array([c.option_type == "C" for c in cs], dtype=bool),
+        american=np.array([bool(c.american) for c in cs], dtype=bool),
+        strikes=np.array([c.strike if c.strike is not None else np.nan for c in cs]),
+        expiries=np.array(
+            [
+                np.datetime64(c.cutoff_utc.astimezone(UTC).replace(tzinfo=None), "s")
+                if c.cutoff_utc is not None
+                else np.datetime64("NaT")
+                for c in cs
+            ],
+            dtype="datetime64[s]",
+        ),
+        multipliers=np.array([c.multiplier for c in cs], dtype=np.float64),
+        quantities=np.array([t.quantity for t in trials], dtype=np.float64),
+        cash_settled=np.array([bool(c.cash_settled) for c in cs], dtype=bool),
+    )
+    return live.with_trials(rows)
+
+
+def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
+    """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
+    clock), contract, quantity, price, state, book, who, source."""
+    return (
+        str(t.trade_id),
+        f"{t.trade_time.astimezone(tz):%m-%d %H:%M}",
+        t.contract,
+        f"{t.quantity:+,d}",
+        f"{t.price:,.4f}".rstrip("0").rstrip("."),
+        t.state,
+        t.book,
+        t.who,
+        t.source,
+    )
+
+
+def matches(cells: Sequence[str], query: str) -> bool:
+    """Whether every word of ``query`` occurs in the row's cells (case-insensitive)."""
+    text = " ".join(cells).lower()
+    return all(w in text for w in query.lower().split())
+
+
+@dataclass(frozen=True)
+class ContractTerms:
+    """A contract as typed in the trade form; ``expiry`` None with strike None is the underlying."""
+
+    symbol: str
+    expiry: Any  # datetime.date | None
+    strike: float | None
+    is_call: bool | None
+
+    def label(self) -> str:
+        if self.expiry is None:
+            return f"{self.symbol} (the underlying)"
+        return f"{self.symbol} {self.expiry} {self.strike:g} {'C' if self.is_call else 'P'}"
+
+
+def parse_terms(symbol: str, expiry: str, strike: str, call_put: str) -> ContractTerms:
+    """Contract terms from the form's fields; ValueError naming the field that is wrong."""
+    from datetime import date
+
+    sym = symbol.strip().upper()
+    if not sym:
+        raise ValueError("symbol: type the underlying's symbol")
+    if not expiry.strip() and not strike.strip() and not call_put.strip():
+        return ContractTerms(sym, None, None, None)
+    try:
+        day = date.fromisoformat(expiry.strip())
+    except ValueError:
+        raise ValueError(f"expiry: {expiry.strip()!r} is not an ISO date (2027-03-19)") from None
+    try:
+        k = float(strike.replace(",", ""))
+    except ValueError:
+        raise ValueError(f"strike: {strike.strip()!r} is not a number") from None
+    if not (k > 0 and math.isfinite(k)):
+        raise ValueError("strike: must be positive")
+    cp = call_put.strip().upper()[:1]
+    if cp not in ("C", "P"):
+        raise ValueError("call/put: type C or P")
+    return ContractTerms(sym, day, k, cp == "C")
+
+
+def find_contract(contracts: Sequence[Any], terms: ContractTerms) -> Any | None:
+    """The ``store.ContractRecord`` with ``terms``, or None when the store has none yet."""
+    for c in contracts:
+        if c.symbol != terms.symbol:
+            continue
+        if terms.expiry is None:
+            if c.option_type == "U":
+                return c
+            continue
+        if (
+            c.option_type == ("C" if terms.is_call else "P")
+            and c.expiry == terms.expiry
+            and c.strike is not None
+            and abs(c.strike - float(terms.strike or 0)) < 1e-9
+        ):
+            return c
+    return None
+
+
+# -- Watch list -------------------------------------------------------------------------------
+def days_to_week_end(now: datetime, tz: Any) -> int:
+    """Calendar days from ``now`` to the end of the coming Sunday (desk time), at least 1."""
+    return max(1, 7 - now.astimezone(tz).weekday())

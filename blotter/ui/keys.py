@@ -24,7 +24,8 @@ class KeySpec:
     keys: str
     description: str
     short: str = ""  # footer label; empty keeps the action out of the footer
-    where: str = "app"  # "app", "bar" (what-if bar), "book" (book pane) or "help" (help screen)
+    where: str = "app"  # "app", "bar", "book", "help", or a screen: "marks", "review", "trades",
+    # "form", "explain", "list"
     priority: bool = False  # handled when the key reaches the app, before the focused widget
 
 
@@ -68,9 +69,175 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec("axis", "toggle_axis", "a,ctrl+t", "Profile: against spot or days forward"),
     KeySpec("scope", "toggle_scope", "p,ctrl+g", "Profile: whole book or the selected row"),
     KeySpec("reload", "reload", "r,ctrl+r", "Reload the book and marks from the file"),
+    KeySpec(
+        "marks",
+        "marks",
+        "m,ctrl+f",
+        "Marks: spot and vols in force, edit, commit close",
+        short="Marks",
+    ),
+    KeySpec(
+        "trades",
+        "trades",
+        "t,ctrl+y",
+        "Trades: the blotter; add, cancel, amend, trials",
+        short="Trades",
+    ),
+    KeySpec(
+        "explain",
+        "explain",
+        "l,ctrl+l",
+        "Explain: P&L since the last close, term by term",
+        short="Explain",
+    ),
+    KeySpec("vega-unit", "vega_unit", "u,ctrl+j", "Book: vega per vol point or per 1.00 of vol"),
+    KeySpec(
+        "clear-trials",
+        "clear_trials",
+        "c,ctrl+x",
+        "Clear every trial trade (the store is untouched)",
+    ),
+    KeySpec(
+        "watch-list",
+        "watch_list",
+        "w,ctrl+backslash",
+        "List options expiring this week, pin risk and limit breaches",
+    ),
     KeySpec("quit", "quit", "q,f10", "Quit", short="Quit"),
     KeySpec("history-back", "history(-1)", "up,ctrl+p", "Bar: previous move", where="bar"),
     KeySpec("history-forward", "history(1)", "down,ctrl+n", "Bar: next move", where="bar"),
+    KeySpec(
+        "marks-edit",
+        "edit",
+        "e,f2",
+        "Marks: edit the cell (Enter too, or just type the number; $price solves the vol)",
+        short="Edit",
+        where="marks",
+    ),
+    KeySpec(
+        "marks-close",
+        "commit_close",
+        "c,f5",
+        "Marks: review and commit the close set",
+        short="Close",
+        where="marks",
+    ),
+    KeySpec(
+        "marks-back", "back", "q,m,f10", "Marks: back to the book", short="Back", where="marks"
+    ),
+    KeySpec(
+        "close-confirm",
+        "confirm",
+        "y,f5",
+        "Close review: write the close set",
+        short="Write",
+        where="review",
+    ),
+    KeySpec(
+        "close-cancel",
+        "back",
+        "n,q,f10",
+        "Close review: back without writing",
+        short="Back",
+        where="review",
+    ),
+    KeySpec(
+        "trades-filter",
+        "filter",
+        "slash,f2",
+        "Trades: filter by typing (any words of the row)",
+        short="Filter",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-add",
+        "add",
+        "a,f3",
+        "Trades: add a trade from the form",
+        short="Add",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-trial",
+        "add_trial",
+        "i,f4",
+        "Trades: add a trial trade from the form",
+        short="Trial",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-amend",
+        "amend",
+        "e,f6",
+        "Trades: amend the trade under the cursor",
+        short="Amend",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-cancel",
+        "cancel_trade",
+        "x,f8",
+        "Trades: cancel the trade under the cursor (asks why)",
+        short="Cancel",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-promote",
+        "promote",
+        "p,f7",
+        "Trades: book every trial as a real trade",
+        short="Promote",
+        where="trades",
+    ),
+    KeySpec(
+        "trades-back", "back", "q,t,f10", "Trades: back to the book", short="Back", where="trades"
+    ),
+    KeySpec(
+        "form-submit",
+        "submit",
+        "f5,ctrl+y",
+        "Form: book it (Enter on the last field too)",
+        short="Book",
+        where="form",
+    ),
+    KeySpec(
+        "form-kind",
+        "toggle_kind",
+        "f6,ctrl+l",
+        "Form: switch between a trade and a trial",
+        short="Trade/trial",
+        where="form",
+    ),
+    KeySpec(
+        "form-back", "back", "f10,ctrl+j", "Form: back without booking", short="Back", where="form"
+    ),
+    KeySpec(
+        "explain-from",
+        "earlier_start",
+        "f,f3",
+        "Explain: start at the close before",
+        short="Start",
+        where="explain",
+    ),
+    KeySpec(
+        "explain-to",
+        "next_end",
+        "o,f4",
+        "Explain: end now or at a close",
+        short="End",
+        where="explain",
+    ),
+    KeySpec(
+        "explain-back",
+        "back",
+        "q,l,f10",
+        "Explain: back to the book",
+        short="Back",
+        where="explain",
+    ),
+    KeySpec(
+        "list-back", "back", "q,w,f10", "Watch list: back to the book", short="Back", where="list"
+    ),
     KeySpec(
         "help-close",
         "close",
@@ -108,6 +275,7 @@ KEY_NAMES = {
     "up": "↑",
     "down": "↓",
     "enter": "Enter",
+    "backslash": "\\",
 }
 """How the help screen and footer write Textual key names."""
 

@@ -64,6 +64,8 @@ class LadderReady(Message):
     book_seq: int
     days: float
     ladder: Any
+    book_alert: str = ""  # the worst cell beyond the book's ladder limit, in words
+    row_alerts: dict[str, str] | None = None  # underlying -> its ladder breach in words
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)
@@ -81,6 +83,19 @@ class ProfileReady(Message):
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, ProfileReady)
+
+
+@dataclass(repr=False)
+class Done(Message):
+    """A screen's worker finished: ``ok`` with words for people, ``payload`` what it produced."""
+
+    what: str
+    ok: bool
+    words: str
+    payload: Any = None
+
+    def __repr__(self) -> str:
+        return f"Done({self.what!r}, ok={self.ok}, words={self.words!r})"
 
 
 @dataclass

@@ -343,7 +343,7 @@ async def test_limit_breach_shown_in_words_and_by_symbol(demo_db: Path) -> None:
 
     from blotter.config import Alerts
 
-    settings = replace(TEST_SETTINGS, alerts=Alerts(delta_cash=1.0))
+    settings = replace(TEST_SETTINGS, alerts=Alerts(delta_cash=1.0, underlying_delta_cash=1.0))
     app = make_app(demo_db, settings, clock=frozen_clock)
     async with app.run_test(size=(160, 48)) as pilot:
         await settle(app, pilot)
@@ -351,6 +351,7 @@ async def test_limit_breach_shown_in_words_and_by_symbol(demo_db: Path) -> None:
         assert "! book |Δ $| over 1" in header
         rows = app.query_one(BookTable).visible_rows()
         assert all(r.alert for r in rows if r.level <= 1)
+        assert "! DEMOIX |Δ $| over 1" in header or "more limit breaches" in header
         assert str(app.query_one(BookTable).get_cell("total", "label")).endswith(" !")
 
 

@@ -67,3 +67,19 @@ def test_help_screen(snap_compare: Any, demo_db: Path) -> None:
 
 def test_grouped_by_expiry(snap_compare: Any, demo_db: Path) -> None:
     assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("g"))
+
+
+def test_marks_screen(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("m", "down"))
+
+
+def test_trades_screen(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("t"))
+
+
+def test_trade_form(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("t", "a"))
+
+
+def test_explain_screen(snap_compare: Any, demo_db: Path) -> None:
+    assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("l", "o"))

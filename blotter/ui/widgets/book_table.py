@@ -15,8 +15,9 @@ from textual.binding import BindingType
 from textual.coordinate import Coordinate
 from textual.widgets import DataTable
 
+from blotter import risk
 from blotter.ui import fmt
-from blotter.ui.data import BOOK_COLUMNS, BookRow, BookTree
+from blotter.ui.data import BOOK_COLUMNS, SHARE_FIELDS, BookRow, BookTree
 from blotter.ui.keys import app_bindings
 
 COLUMN_WIDTHS = {
@@ -38,8 +39,19 @@ LABEL_WIDTH = 16
 """Width of the row-label column (tree glyphs + name)."""
 
 
-def _cell(column: str, value: float) -> str:
+NOT_ADDITIVE = "—"
+"""Shown in a share-unit column of a row spanning several underlyings (shares do not add)."""
+
+VEGA_HEADERS = {"pt": "vega pt", "vol": "vega 1.00"}
+"""Vega column header per ``risk.VEGA_UNITS`` key."""
+
+
+def _cell(column: str, value: float, mixed: bool = False, vega_scale: float = 1.0) -> str:
     width = COLUMN_WIDTHS[column]
+    if mixed and column in SHARE_FIELDS:
+        return NOT_ADDITIVE.rjust(width)
+    if column == "vega_pt":
+        value = value * vega_scale
     if column == "spot":
         return fmt.number(value, 2, width) if value == value else "".rjust(width)
 
@@ -64,6 +76,20 @@ class BookTable(DataTable[str | Text]):
         self.sort_reverse = False
         self._visible: list[BookRow] = []
         self.expandable_keys: set[str] = set()
+        self.vega_unit = "pt"  # a key of risk.VEGA_UNITS
+
+    def _cells(self, row: BookRow) -> list[str]:
+        scale = risk.VEGA_UNITS[self.vega_unit]
+        return [
+            _cell(col, row.values[i], row.mixed, scale) for i, (col, _) in enumerate(BOOK_COLUMNS)
+        ]
+
+    def set_vega_unit(self, unit: str) -> None:
+        """Show vega per vol point (``"pt"``) or per 1.00 of vol (``"vol"``)."""
+        self.vega_unit = unit
+        self.columns["vega_pt"].label = Text(VEGA_HEADERS[unit], justify="right")  # type: ignore[index]
+        self._visible = []
+        self.show()
 
     def on_mount(self) -> None:
         self.add_column(Text("underlying"), key="label", width=LABEL_WIDTH)
@@ -87,6 +113,9 @@ class BookTable(DataTable[str | Text]):
     def _layout(self) -> list[BookRow]:
         assert self.source is not None
         out = [self.source.total()]
+        live = self.source.total_without_trials()
+        if live is not None:
+            out.append(live)
 
         def walk(rows: Sequence[BookRow]) -> None:
             for row in self._sorted(rows):
@@ -107,6 +136,8 @@ class BookTable(DataTable[str | Text]):
         text = Text(
             "  " * max(row.level - 1, 0) + glyph + row.label, no_wrap=True, overflow="ellipsis"
         )
+        if row.trial:
+            text.append(" T", style="bold reverse")
         if row.alert:
             text.append(" !", style="bold")
         if row.level == 0:
@@ -122,12 +153,16 @@ class BookTable(DataTable[str | Text]):
         rows = self._layout()
         if [r.key for r in rows] == [r.key for r in self._visible] and self.row_count == len(rows):
             for old, new in zip(self._visible, rows, strict=True):
-                if old.values != new.values or old.label != new.label or old.alert != new.alert:
+                if (
+                    old.values != new.values
+                    or old.label != new.label
+                    or old.alert != new.alert
+                    or old.mixed != new.mixed
+                ):
+                    cells = self._cells(new)
                     for i, (col, _) in enumerate(BOOK_COLUMNS):
-                        if old.values[i] != new.values[i]:
-                            self.update_cell(
-                                new.key, col, _cell(col, new.values[i]), update_width=False
-                            )
+                        if old.values[i] != new.values[i] or old.mixed != new.mixed:
+                            self.update_cell(new.key, col, cells[i], update_width=False)
                     self.update_cell(new.key, "label", self._label(new), update_width=False)
             self._visible = rows
             return
@@ -137,11 +172,12 @@ class BookTable(DataTable[str | Text]):
         for row in rows:
             self.add_row(
                 self._label(row),
-                *[_cell(col, row.values[i]) for i, (col, _) in enumerate(BOOK_COLUMNS)],
+                *self._cells(row),
                 key=row.key,
             )
         self._visible = rows
-        self.fixed_rows = 1 if rows else 0  # the total row stays in view
+        # The total row (and the live-only total under trials) stays in view.
+        self.fixed_rows = (2 if len(rows) > 1 and rows[1].key == "total-live" else 1) if rows else 0
         self.expandable_keys = {r.key for r in rows if r.expandable}
         if cursor_key is not None and cursor_key in {r.key for r in rows}:
             self.move_cursor(row=self.get_row_index(cursor_key), column=column, animate=False)

@@ -1,0 +1,143 @@
+"""The Explain screen: P&L since the last close (or between two closes), per underlying and in
+total, term by term (``scenario.explain``) with the unexplained rest and new trades apart."""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+from rich.text import Text
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.widgets import DataTable, Footer, Static
+from textual.worker import get_current_worker
+
+from blotter.ui import fmt
+from blotter.ui.keys import app_bindings
+from blotter.ui.messages import Done
+from blotter.ui.screens.base import DeskScreen, open_store
+
+TERM_LABELS = {
+    "delta": "Δ · dS",
+    "gamma": "½Γ · dS²",
+    "vega": "vega · dσ",
+    "volga": "½volga · dσ²",
+    "vanna": "vanna · dS·dσ",
+    "theta": "θ · dt",
+    "rho": "ρ · dr",
+}
+"""Row labels of the Taylor terms (each in currency)."""
+
+
+class ExplainScreen(DeskScreen):
+    """Rows are the terms, columns the total and each underlying (fits 80 columns)."""
+
+    CSS_PATH = "desk.tcss"
+    WHERE = "explain"
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("explain"))
+
+    def __init__(self) -> None:
+        super().__init__(id="explain")
+        self.closes: list[Any] = []
+        self.start_back = 0  # 0 = the last close before the end, 1 = the one before, ...
+        self.end: int | str = "now"  # "now" or a close set id
+        self.result: Any = None
+
+    def compose(self) -> ComposeResult:
+        yield self.title_line("Explain")
+        yield DataTable(id="explain-table", classes="desk-table", cursor_type="row")
+        yield Static("", classes="desk-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#explain-table", DataTable).focus()
+        self.say("working out the explain…")
+        self.compute(self.start_back, self.end)
+
+    def store_changed(self) -> None:
+        self.compute(self.start_back, self.end)
+
+    @work(thread=True, exclusive=True, group="explain", exit_on_error=False)
+    def compute(self, start_back: int, end: int | str) -> None:
+        """``scenario.explain`` from the chosen close to ``end`` in this thread's own store."""
+        from blotter import scenario
+
+        worker = get_current_worker()
+        try:
+            st = open_store(self.app, read_only=True)
+            try:
+                closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
+                end_id = None if end == "now" else int(end)
+                before = [s for s in closes if end_id is None or s.id < end_id]
+                if not before:
+                    raise ValueError("no close before the end: commit a close first")
+                start = before[max(0, len(before) - 1 - start_back)]
+                result = scenario.explain(st, start.id, "now" if end == "now" else end_id)
+            finally:
+                st.close()
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            if not worker.is_cancelled:
+                self.post_message(Done("explain", False, f"✗ cannot explain: {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(Done("explain", True, "", (closes, result)))
+
+    def on_done(self, message: Done) -> None:
+        message.stop()
+        if not message.ok:
+            self.say(message.words, bad=True)
+            return
+        self.closes, self.result = message.payload
+        self.show(self.result)
+
+    def show(self, result: Any) -> None:
+        table = self.query_one("#explain-table", DataTable)
+        table.clear(columns=True)
+        cols = [result.total, *result.by_underlying]
+        table.add_column("currency", key="label", width=13)
+        for i, row in enumerate(cols):
+            table.add_column(Text(row.label, justify="right"), key=f"c{i}", width=10)
+
+        def add(label: str, values: list[float]) -> None:
+            table.add_row(label, *[fmt.money(v, 10) for v in values])
+
+        from blotter import scenario
+
+        for name in scenario.TERM_NAMES:
+            add(TERM_LABELS.get(name, name), [r.terms.get(name, 0.0) for r in cols])
+        add("= explained", [r.explained for r in cols])
+        add("unexplained", [r.unexplained for r in cols])
+        add("= held P&L", [r.actual for r in cols])
+        add("new trades", [r.new_trades for r in cols])
+        add("= total P&L", [r.total for r in cols])
+        tz = self.blotter.tz
+        frm = result.from_set
+        to = result.to_set
+        start = f"close {frm.id} ({frm.marked_at.astimezone(tz):%Y-%m-%d %H:%M})"
+        end = (
+            "marks in force now"
+            if to == "now"
+            else f"close {to.id} ({to.marked_at.astimezone(tz):%Y-%m-%d %H:%M})"
+        )
+        self.query_one(".desk-title", Static).update(
+            Text(f"Explain: P&L from {start} to {end}", style="bold")
+        )
+        notes = "; ".join(result.notes) if result.notes else ""
+        self.say(
+            "Start greeks on the positions held at the start; new trades: end value − trade "
+            "price. f: start earlier, o: end now / at a close." + (f" {notes}" if notes else "")
+        )
+
+    def action_earlier_start(self) -> None:
+        end_id = None if self.end == "now" else int(self.end)
+        n_before = len([s for s in self.closes if end_id is None or s.id < end_id])
+        self.start_back = (self.start_back + 1) % max(1, n_before)
+        self.compute(self.start_back, self.end)
+
+    def action_next_end(self) -> None:
+        """End cycles: now, the latest close, the one before, ... (always after some close)."""
+        ends: list[int | str] = ["now", *[s.id for s in reversed(self.closes[1:])]]
+        i = ends.index(self.end) if self.end in ends else 0
+        self.end = ends[(i + 1) % len(ends)]
+        self.start_back = 0
+        self.compute(self.start_back, self.end)

@@ -1,0 +1,331 @@
+"""The Marks screen: each mark point in force beside the last close, edited by typing; the close.
+
+Spot per underlying, then its dividend yield and vol points by expiry (ATM and smile strikes),
+then rates. Enter (or typing a digit) edits the cell under the cursor: a number is the new mark;
+in a vol cell ``$12.35`` is an option price whose implied vol (``engine.implied_vol``) becomes
+the mark. The store checks every value; a refusal is shown beside the cell and the typed text
+stays. A typed mark is written at once as an intraday mark; "close" reviews what changed since
+the last close, what is missing and what has not moved for over a day, then writes one close set.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import ClassVar
+
+from rich.text import Text
+from textual import events, on, work
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.containers import VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import DataTable, Footer, Input, Static
+from textual.worker import get_current_worker
+
+from blotter.ui import data
+from blotter.ui.keys import app_bindings
+from blotter.ui.messages import Done
+from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen, open_store
+
+COLUMNS = (
+    ("point", "mark point", 24),
+    ("value", "in force", 11),
+    ("close", "last close", 11),
+    ("change", "change", 11),
+    ("when", "marked", 11),
+)
+"""(key, header, width) of the marks table."""
+
+
+class MarksScreen(DeskScreen):
+    """See the module docstring."""
+
+    CSS_PATH = "desk.tcss"
+    WHERE = "marks"
+    WRITE_ACTIONS = frozenset({"edit", "commit_close"})
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("marks"))
+
+    def __init__(self) -> None:
+        super().__init__(id="marks")
+        self.view: data.MarksView | None = None
+        self.editing: data.MarkPoint | None = None
+        self.last_write_s: float | None = None
+        self.last_close_s: float | None = None
+
+    def compose(self) -> ComposeResult:
+        yield self.title_line("Marks: in force beside the last close")
+        table: DataTable[str | Text] = DataTable(
+            id="marks-table", classes="desk-table", cursor_type="row", zebra_stripes=True
+        )
+        yield table
+        yield Input(id="marks-edit", classes="desk-input -hidden", select_on_focus=False)
+        yield Static("", classes="desk-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        table = self.query_one("#marks-table", DataTable)
+        for key, header, width in COLUMNS:
+            table.add_column(header, key=key, width=width)
+        table.focus()
+        self.say("Enter or a digit edits the cell; $price in a vol cell solves its vol.")
+        self.load()
+
+    # -- reading ---------------------------------------------------------------------------------
+    @work(thread=True, exclusive=True, group="marks-load", exit_on_error=False)
+    def load(self) -> None:
+        """Read the marks in force and the last close in this thread's own store."""
+        worker = get_current_worker()
+        try:
+            st = open_store(self.app, read_only=True)
+            try:
+                book = st.load_book()
+                view = data.marks_view(st, book, self.blotter.tz)
+            finally:
+                st.close()
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            if not worker.is_cancelled:
+                self.post_message(Done("marks-load", False, f"cannot read the marks: {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(Done("marks-load", True, "", view))
+
+    def show(self, view: data.MarksView) -> None:
+        """Fill the table with ``view`` keeping the cursor on the same point."""
+        table = self.query_one("#marks-table", DataTable)
+        tz = self.blotter.tz
+        cursor = self.cursor_point()
+        table.clear()
+        for p in view.points:
+            when = f"{p.marked_at.astimezone(tz):%m-%d %H:%M}" if p.marked_at else ""
+            value = Text(p.shown(p.value), justify="right")
+            if p.value is None:
+                value.stylize("bold reverse")
+            table.add_row(
+                p.label,
+                value,
+                Text(p.shown(p.close_value) if p.close_value is not None else "—", justify="right"),
+                Text(p.change(), justify="right"),
+                when,
+                key=p.key,
+            )
+        self.view = view
+        close = (
+            f"last close: set {view.last_close_id}, "
+            f"{view.last_close_at.astimezone(tz):%Y-%m-%d %H:%M}"
+            if view.last_close_id is not None and view.last_close_at is not None
+            else "no close yet"
+        )
+        self.query_one(".desk-title", Static).update(
+            Text(f"Marks: {len(view.points)} points in force │ {close}", style="bold")
+        )
+        keys = [p.key for p in view.points]
+        if cursor is not None and cursor.key in keys:
+            table.move_cursor(row=keys.index(cursor.key), animate=False)
+
+    def cursor_point(self) -> data.MarkPoint | None:
+        """The mark point under the cursor."""
+        if self.view is None or not self.view.points:
+            return None
+        row = self.query_one("#marks-table", DataTable).cursor_row
+        return self.view.points[row] if 0 <= row < len(self.view.points) else None
+
+    def store_changed(self) -> None:
+        self.load()
+
+    # -- editing ---------------------------------------------------------------------------------
+    def action_edit(self, first: str = "") -> None:
+        point = self.cursor_point()
+        if point is None:
+            return
+        self.editing = point
+        box = self.query_one("#marks-edit", Input)
+        box.remove_class("-hidden")
+        box.border_title = f"{point.label.strip()} ({point.unit()}); Enter writes, F10 leaves"
+        box.value = first
+        box.cursor_position = len(first)
+        box.focus()
+
+    def on_key(self, event: events.Key) -> None:
+        """A digit, ".", "-" or "$" typed on the table starts editing the cell with it."""
+        if not event.character or self.blotter.read_only:
+            return
+        table = self.query_one("#marks-table", DataTable)
+        if self.focused is table and (event.character.isdigit() or event.character in ".-$"):
+            event.stop()
+            self.action_edit(event.character)
+
+    @on(DataTable.RowSelected, "#marks-table")
+    def _enter_on_row(self, event: DataTable.RowSelected) -> None:
+        """Enter on the table edits the cell (the table takes Enter before the screen's keys)."""
+        event.stop()
+        if self.blotter.read_only:
+            self.say(READ_ONLY_WORDS, bad=True)
+            return
+        self.action_edit()
+
+    def action_back(self) -> None:
+        box = self.query_one("#marks-edit", Input)
+        if not box.has_class("-hidden"):
+            self._close_editor()
+            return
+        self.dismiss()
+
+    def _close_editor(self) -> None:
+        box = self.query_one("#marks-edit", Input)
+        box.add_class("-hidden")
+        self.editing = None
+        self.query_one("#marks-table", DataTable).focus()
+
+    @on(Input.Submitted, "#marks-edit")
+    def _typed(self, event: Input.Submitted) -> None:
+        point = self.editing
+        if point is None:
+            return
+        try:
+            what, x = data.parse_mark(point, event.value)
+        except ValueError as exc:
+            self.say(f"✗ refused: {exc}; nothing written", bad=True)
+            return
+        words = ""
+        if what == "price":
+            state = self.blotter.state
+            if state is None:
+                self.say("✗ the book is still loading", bad=True)
+                return
+            vol, words, _ = data.solve_vol(state.valuation, point, x, self.blotter.tz)
+            if vol is None:
+                self.say(f"✗ {words}; nothing written", bad=True)
+                return
+            x = vol
+        self.write_mark(point, x, words)
+
+    @work(thread=True, exclusive=True, group="marks-write", exit_on_error=False)
+    def write_mark(self, point: data.MarkPoint, value: float, words: str) -> None:
+        """Log ``value`` at ``point`` as an intraday mark through the store, which checks it."""
+        from blotter import store
+
+        t0 = time.perf_counter()
+        try:
+            st = open_store(self.app)
+            try:
+                if point.kind == "spot":
+                    st.log_spot(point.symbol, value, note="typed in the app")
+                elif point.kind == "vol":
+                    st.log_vol(
+                        point.symbol, point.expiry, value, point.strike, note="typed in the app"
+                    )
+                elif point.kind == "div_yield":
+                    st.log_div_yield(point.symbol, value, note="typed in the app")
+                else:
+                    st.log_rate(point.currency, point.tenor_days, value, note="typed in the app")
+            finally:
+                st.close()
+        except (store.StoreError, ValueError, KeyError) as exc:
+            self.post_message(Done("mark", False, f"✗ refused: {exc}; what you typed is kept"))
+            return
+        self.last_write_s = time.perf_counter() - t0
+        shown = point.shown(value)
+        self.post_message(
+            Done(
+                "mark",
+                True,
+                f"✓ {point.label.strip()} marked {shown}" + (f" ({words})" if words else ""),
+            )
+        )
+
+    # -- the close ---------------------------------------------------------------------------------
+    def action_commit_close(self) -> None:
+        if self.view is None:
+            return
+        review = data.close_review(self.view, self.blotter.clock())
+        self.app.push_screen(CloseReviewScreen(review, self))
+
+    @work(thread=True, exclusive=True, group="marks-close", exit_on_error=False)
+    def write_close(self, note: str) -> None:
+        """Write the marks in force as one close set; ``Done`` says which set or why not."""
+        from blotter import store
+
+        t0 = time.perf_counter()
+        try:
+            st = open_store(self.app)
+            try:
+                set_id = st.commit_close(note=note)
+            finally:
+                st.close()
+        except (store.StoreError, ValueError) as exc:
+            self.post_message(Done("close", False, f"✗ close not written: {exc}"))
+            return
+        self.last_close_s = time.perf_counter() - t0
+        self.post_message(Done("close", True, f"✓ close set {set_id} written", set_id))
+
+    def on_done(self, message: Done) -> None:
+        message.stop()
+        if message.what == "marks-load":
+            if message.ok:
+                self.show(message.payload)
+            else:
+                self.say(message.words, bad=True)
+            return
+        self.say(message.words, bad=not message.ok)
+        if message.what == "mark" and message.ok:
+            self._close_editor()
+        if message.what == "close":
+            review = self.app.screen
+            if isinstance(review, CloseReviewScreen):
+                if message.ok:
+                    review.dismiss()
+                else:
+                    review.say(message.words)
+        if message.ok:
+            self.load()
+            self.blotter.load_book()
+
+
+class CloseReviewScreen(ModalScreen[None]):
+    """What the close will record: changes since the last close, missing and stale marks."""
+
+    CSS_PATH = "desk.tcss"
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("review"))
+
+    def __init__(self, review: data.CloseReview, marks: MarksScreen) -> None:
+        super().__init__(id="close-review")
+        self.review = review
+        self.marks = marks
+
+    def compose(self) -> ComposeResult:
+        r = self.review
+        text = Text()
+        text.append(
+            f"Commit close: {r.n_points} mark points in force become one close set.\n", style="bold"
+        )
+
+        def part(title: str, lines: tuple[str, ...], limit: int = 12) -> None:
+            text.append(f"\n{title} ({len(lines)})\n", style="bold")
+            for line in lines[:limit]:
+                text.append(f"  {line}\n")
+            if len(lines) > limit:
+                text.append(f"  … {len(lines) - limit} more\n")
+            if not lines:
+                text.append("  none\n")
+
+        part("Changed since the last close", r.changed)
+        part("MISSING: a position needs these and nobody marked them", r.missing)
+        part("Unchanged for more than a day", r.stale)
+        text.append("\ny or F5 writes the close set; n, q or F10 goes back without writing.")
+        with VerticalScroll(classes="desk-body"):
+            yield Static(text, id="review-text")
+        yield Static("", classes="desk-message", id="review-message")
+        yield Footer()
+
+    def say(self, words: str) -> None:
+        self.query_one("#review-message", Static).update(Text(words, style="bold reverse"))
+
+    def action_confirm(self) -> None:
+        self.say("writing the close set…")
+        self.marks.write_close("close from the app")
+
+    def action_back(self) -> None:
+        self.dismiss()
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        return not (action == "confirm" and getattr(self.app, "read_only", False))

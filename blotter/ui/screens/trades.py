@@ -1,0 +1,449 @@
+"""The Trades screen (the blotter proper): every trade with its state, filtered by typing.
+
+Add a trade or a trial from one keyboard form (the contract picked by symbol, expiry, strike and
+call/put; a contract the store does not know is created after a confirmation), cancel with a
+reason, amend. Each change is a new row in the store. Trials live in the app's memory only: they
+are layered on the live book everywhere, marked ``T``, and written only when promoted.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Any, ClassVar
+
+from rich.text import Text
+from textual import on, work
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.containers import Horizontal, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import DataTable, Footer, Input, Label, Static
+from textual.worker import get_current_worker
+
+from blotter.ui import data
+from blotter.ui.keys import app_bindings
+from blotter.ui.messages import Done
+from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen, open_store
+
+COLUMNS = (
+    ("id", "id", 4),
+    ("time", "time", 11),
+    ("contract", "contract", 25),
+    ("qty", "qty", 5),
+    ("price", "price", 9),
+    ("state", "state", 9),
+    ("book", "book", 11),
+    ("who", "who", 8),
+    ("source", "source", 7),
+)
+"""(key, header, width) of the trades table; at 80 columns the last ones scroll into view."""
+
+
+class TradesScreen(DeskScreen):
+    """See the module docstring."""
+
+    CSS_PATH = "desk.tcss"
+    WHERE = "trades"
+    WRITE_ACTIONS = frozenset({"add", "amend", "cancel_trade", "promote"})
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("trades"))
+
+    def __init__(self) -> None:
+        super().__init__(id="trades")
+        self.records: list[Any] = []
+        self.contracts: list[Any] = []
+        self.books: list[str] = []
+        self.symbols: list[str] = []
+        self.shown_ids: list[str] = []
+
+    def compose(self) -> ComposeResult:
+        yield self.title_line("Trades")
+        yield Input(placeholder="filter: type words of the row (/ or F2)", id="trades-filter")
+        yield DataTable(
+            id="trades-table", classes="desk-table", cursor_type="row", zebra_stripes=True
+        )
+        yield Static("", classes="desk-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        table = self.query_one("#trades-table", DataTable)
+        for key, header, width in COLUMNS:
+            right = key in ("qty", "price")
+            table.add_column(
+                Text(header, justify="right" if right else "left"), key=key, width=width
+            )
+        table.focus()
+        self.load()
+
+    @work(thread=True, exclusive=True, group="trades-load", exit_on_error=False)
+    def load(self) -> None:
+        """Every trade, the contracts and the book names, read in this thread's own store."""
+        worker = get_current_worker()
+        try:
+            st = open_store(self.app, read_only=True)
+            try:
+                payload = (
+                    st.trades(),
+                    st.contracts(),
+                    st.book_names(),
+                    list(st.load_underlyings().symbols),
+                )
+            finally:
+                st.close()
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            if not worker.is_cancelled:
+                self.post_message(Done("trades-load", False, f"cannot read the trades: {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(Done("trades-load", True, "", payload))
+
+    def store_changed(self) -> None:
+        self.load()
+
+    def show(self) -> None:
+        """Trials first, then the store's trades newest first, filtered by the filter line."""
+        table = self.query_one("#trades-table", DataTable)
+        query = self.query_one("#trades-filter", Input).value
+        tz = self.blotter.tz
+        cursor = self.cursor_key()
+        table.clear()
+        self.shown_ids = []
+        for t in self.blotter.trials:
+            c = t.contract
+            cells: tuple[str, ...] = (
+                f"T{t.trial_id}",
+                "",
+                c.label,
+                f"{t.quantity:+,d}",
+                f"{t.price:g}",
+                "TRIAL",
+                t.book,
+                "",
+                "trial",
+            )
+            if data.matches(cells, query):
+                table.add_row(*self._cells(cells, "bold"), key=cells[0])
+                self.shown_ids.append(cells[0])
+        for r in reversed(self.records):
+            cells = data.trade_text(r, tz)
+            if data.matches(cells, query):
+                table.add_row(*self._cells(cells), key=cells[0])
+                self.shown_ids.append(cells[0])
+        n_live = sum(r.state == "live" for r in self.records)
+        self.query_one(".desk-title", Static).update(
+            Text(
+                f"Trades: {len(self.shown_ids)} shown of {len(self.records)} "
+                f"({n_live} live) │ trials {len(self.blotter.trials)}"
+                + (" │ READ-ONLY" if self.blotter.read_only else ""),
+                style="bold",
+            )
+        )
+        if cursor in self.shown_ids:
+            table.move_cursor(row=self.shown_ids.index(cursor), animate=False)
+
+    @staticmethod
+    def _cells(cells: tuple[str, ...], style: str = "") -> list[Text]:
+        """Quantity and price right-aligned (columns 3 and 4)."""
+        return [
+            Text(x, style=style, justify="right" if i in (3, 4) else "left")
+            for i, x in enumerate(cells)
+        ]
+
+    def cursor_key(self) -> str | None:
+        table = self.query_one("#trades-table", DataTable)
+        if not self.shown_ids or not 0 <= table.cursor_row < len(self.shown_ids):
+            return None
+        return self.shown_ids[table.cursor_row]
+
+    def cursor_trade(self) -> Any | None:
+        key = self.cursor_key()
+        if key is None or key.startswith("T"):
+            return None
+        return next((r for r in self.records if str(r.trade_id) == key), None)
+
+    @on(Input.Changed, "#trades-filter")
+    def _filter(self, event: Input.Changed) -> None:
+        self.show()
+
+    @on(Input.Submitted, "#trades-filter")
+    def _filter_done(self, event: Input.Submitted) -> None:
+        self.query_one("#trades-table", DataTable).focus()
+
+    def action_filter(self) -> None:
+        self.query_one("#trades-filter", Input).focus()
+
+    def action_add(self) -> None:
+        self.app.push_screen(TradeForm(self, "trade"))
+
+    def action_add_trial(self) -> None:
+        self.app.push_screen(TradeForm(self, "trial"))
+
+    def action_amend(self) -> None:
+        trade = self.cursor_trade()
+        if trade is None or trade.state != "live":
+            self.say("✗ put the cursor on a live trade to amend it", bad=True)
+            return
+        self.app.push_screen(TradeForm(self, "amend", trade))
+
+    def action_cancel_trade(self) -> None:
+        key = self.cursor_key()
+        if key is not None and key.startswith("T"):
+            self.blotter.remove_trial(int(key[1:]))
+            self.say(f"trial {key} removed (the store is untouched)")
+            self.show()
+            return
+        trade = self.cursor_trade()
+        if trade is None or trade.state != "live":
+            self.say("✗ put the cursor on a live trade to cancel it", bad=True)
+            return
+        self.app.push_screen(TradeForm(self, "cancel", trade))
+
+    def action_promote(self) -> None:
+        if not self.blotter.trials:
+            self.say("no trials to promote")
+            return
+        self.write("promote", list(self.blotter.trials))
+
+    @work(thread=True, exclusive=True, group="trades-write", exit_on_error=False)
+    def write(self, what: str, arg: Any, **kw: Any) -> None:
+        """One change through the store (each a new row): add, cancel, amend or promote trials."""
+        from blotter import store
+
+        t0 = time.perf_counter()
+        try:
+            st = open_store(self.app)
+            try:
+                if what == "add":
+                    terms: data.ContractTerms = arg
+                    new_id = st.add_trade(
+                        kw["book"],
+                        terms.symbol,
+                        kw["quantity"],
+                        kw["price"],
+                        terms.expiry,
+                        terms.strike,
+                        terms.is_call,
+                        note=kw.get("note", ""),
+                        source="typed",
+                    )
+                    words = (
+                        f"✓ trade {new_id} booked: {terms.label()} ×{kw['quantity']:+d} "
+                        f"at {kw['price']:g}"
+                    )
+                elif what == "cancel":
+                    st.cancel_trade(arg.trade_id, kw["reason"])
+                    words = f"✓ trade {arg.trade_id} cancelled: {kw['reason']}"
+                elif what == "amend":
+                    new_id = st.amend_trade(
+                        arg.trade_id,
+                        reason=kw["reason"],
+                        quantity=kw.get("quantity"),
+                        price=kw.get("price"),
+                    )
+                    words = f"✓ trade {arg.trade_id} amended: now trade {new_id}"
+                else:  # promote
+                    ids = [
+                        st.add_trade(
+                            t.book,
+                            t.contract.symbol,
+                            t.quantity,
+                            t.price,
+                            t.contract.expiry,
+                            t.contract.strike,
+                            None
+                            if t.contract.option_type == "U"
+                            else t.contract.option_type == "C",
+                            note="promoted trial",
+                            source="typed",
+                        )
+                        for t in arg
+                    ]
+                    words = f"✓ {len(ids)} trial(s) booked as trades {', '.join(map(str, ids))}"
+            finally:
+                st.close()
+        except (store.StoreError, ValueError, KeyError) as exc:
+            self.post_message(Done(what, False, f"✗ not written: {exc}"))
+            return
+        self.post_message(Done(what, True, words, time.perf_counter() - t0))
+
+    def on_done(self, message: Done) -> None:
+        message.stop()
+        if message.what == "trades-load":
+            if message.ok:
+                self.records, self.contracts, self.books, self.symbols = message.payload
+                self.show()
+            else:
+                self.say(message.words, bad=True)
+            return
+        form = self.app.screen
+        if isinstance(form, TradeForm):
+            if message.ok:
+                form.dismiss()
+            else:
+                form.say(message.words)
+        self.say(message.words, bad=not message.ok)
+        if message.ok:
+            if message.what == "promote":
+                self.blotter.clear_trials(reload=False)
+            self.load()
+            self.blotter.load_book()
+
+
+FIELDS = {
+    "trade": (
+        ("book", "book"),
+        ("symbol", "symbol"),
+        ("expiry", "expiry"),
+        ("strike", "strike"),
+        ("cp", "call/put"),
+        ("qty", "quantity"),
+        ("price", "price"),
+        ("note", "note"),
+    ),
+    "amend": (("qty", "quantity"), ("price", "price"), ("reason", "reason")),
+    "cancel": (("reason", "reason"),),
+}
+"""Fields of the form per kind (a trial uses the trade's fields)."""
+
+
+class TradeForm(ModalScreen[None]):
+    """The keyboard form: Tab between fields, Enter on the last (or F5) books it."""
+
+    CSS_PATH = "desk.tcss"
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("form"))
+
+    def __init__(self, trades: TradesScreen, kind: str, trade: Any = None) -> None:
+        super().__init__(id="trade-form")
+        self.trades = trades
+        self.kind = kind  # trade, trial, amend or cancel
+        self.trade = trade
+        self.confirm_new: data.ContractTerms | None = None
+
+    def _fields(self) -> tuple[tuple[str, str], ...]:
+        return FIELDS["trade" if self.kind in ("trade", "trial") else self.kind]
+
+    def compose(self) -> ComposeResult:
+        yield Static("", classes="desk-title", id="form-title")
+        with VerticalScroll(classes="desk-body"):
+            for key, label in self._fields():
+                with Horizontal(classes="form-row"):
+                    yield Label(label)
+                    yield Input(id=f"form-{key}")
+        yield Static("", classes="desk-message", id="form-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self._title()
+        t = self.trade
+        if self.kind in ("trade", "trial"):
+            books = self.trades.books
+            self.query_one("#form-book", Input).value = books[0] if books else "main"
+            self.query_one("#form-book", Input).placeholder = ", ".join(books)
+            self.query_one("#form-symbol", Input).placeholder = " ".join(self.trades.symbols)
+            self.query_one("#form-expiry", Input).placeholder = "2027-03-19 (blank: the underlying)"
+            self.query_one("#form-cp", Input).placeholder = "C or P"
+            self.query_one("#form-symbol", Input).focus()
+        elif self.kind == "amend":
+            self.query_one("#form-qty", Input).value = str(t.quantity)
+            self.query_one("#form-price", Input).value = f"{t.price:g}"
+            self.query_one("#form-qty", Input).focus()
+        else:
+            self.query_one("#form-reason", Input).focus()
+
+    def _title(self) -> None:
+        t = self.trade
+        title = {
+            "trade": "Add a trade (written to the store)",
+            "trial": "Add a TRIAL trade (in memory only; F6 makes it a real trade)",
+            "amend": f"Amend trade {t.trade_id if t else ''}: {t.contract if t else ''}",
+            "cancel": (
+                f"Cancel trade {t.trade_id if t else ''}: {t.contract if t else ''} "
+                f"×{t.quantity if t else ''}"
+            ),
+        }[self.kind]
+        self.query_one("#form-title", Static).update(Text(title, style="bold"))
+
+    def say(self, words: str) -> None:
+        self.query_one("#form-message", Static).update(Text(words, style="bold reverse"))
+
+    def value(self, key: str) -> str:
+        return self.query_one(f"#form-{key}", Input).value
+
+    def action_toggle_kind(self) -> None:
+        if self.kind in ("trade", "trial"):
+            if self.kind == "trial" and getattr(self.app, "read_only", False):
+                self.say(READ_ONLY_WORDS)
+                return
+            self.kind = "trial" if self.kind == "trade" else "trade"
+            self._title()
+
+    def action_back(self) -> None:
+        self.dismiss()
+
+    @on(Input.Submitted)
+    def _enter(self, event: Input.Submitted) -> None:
+        ids = [f"form-{k}" for k, _ in self._fields()]
+        required = ids[:-1] if self.kind in ("trade", "trial") else ids  # the note is optional
+        if event.input.id in ids[len(required) - 1 :]:
+            self.action_submit()
+        else:
+            self.focus_next()
+
+    def action_submit(self) -> None:
+        """Check the fields here, then book it through the store in a worker (or add the trial)."""
+        app: Any = self.app
+        if app.read_only and self.kind != "trial":
+            self.say(READ_ONLY_WORDS)
+            return
+        try:
+            if self.kind == "cancel":
+                reason = self.value("reason").strip()
+                if not reason:
+                    raise ValueError("reason: a cancel needs a reason")
+                self.trades.write("cancel", self.trade, reason=reason)
+                return
+            qty_text = self.value("qty").replace(",", "").strip()
+            try:
+                qty = int(qty_text)
+            except ValueError:
+                raise ValueError(f"quantity: {qty_text!r} is not a whole number") from None
+            if qty == 0:
+                raise ValueError("quantity: must not be zero (+ buys, - sells)")
+            price_text = self.value("price").replace(",", "").strip()
+            try:
+                price = float(price_text)
+            except ValueError:
+                raise ValueError(f"price: {price_text!r} is not a number") from None
+            if self.kind == "amend":
+                reason = self.value("reason").strip()
+                if not reason:
+                    raise ValueError("reason: an amend needs a reason")
+                self.trades.write("amend", self.trade, reason=reason, quantity=qty, price=price)
+                return
+            terms = data.parse_terms(
+                self.value("symbol"), self.value("expiry"), self.value("strike"), self.value("cp")
+            )
+            if self.trades.symbols and terms.symbol not in self.trades.symbols:
+                raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
+            book = self.value("book").strip() or "main"
+        except ValueError as exc:
+            self.say(f"✗ {exc}")
+            return
+        contract = data.find_contract(self.trades.contracts, terms)
+        if self.kind == "trial":
+            if contract is None:
+                self.say(f"✗ {terms.label()} is not a contract yet: book a trade to create it")
+                return
+            app.add_trial(contract, qty, price, book)
+            self.trades.say(f"trial {contract.label} ×{qty:+d} added (not in the store)")
+            self.trades.show()
+            self.dismiss()
+            return
+        if contract is None and self.confirm_new != terms:
+            self.confirm_new = terms
+            self.say(
+                f"New contract {terms.label()} will be created: F5 (or Enter) again to confirm"
+            )
+            return
+        self.trades.write(
+            "add", terms, book=book, quantity=qty, price=price, note=self.value("note")
+        )

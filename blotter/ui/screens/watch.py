@@ -1,0 +1,83 @@
+"""The watch list: options expiring this week (pin risk flagged), and every limit breach."""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+from rich.text import Text
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import BindingType
+from textual.containers import VerticalScroll
+from textual.widgets import Footer, Static
+from textual.worker import get_current_worker
+
+from blotter.ui import data, fmt
+from blotter.ui.keys import app_bindings
+from blotter.ui.messages import Done
+from blotter.ui.screens.base import DeskScreen
+
+
+class WatchScreen(DeskScreen):
+    """Expiring options come from ``scenario.apply_move`` rolled to the end of the week."""
+
+    CSS_PATH = "desk.tcss"
+    WHERE = "list"
+    BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("list"))
+
+    def compose(self) -> ComposeResult:
+        yield self.title_line("Watch list: expiring this week, pin risk, limit breaches")
+        with VerticalScroll(classes="desk-body"):
+            yield Static("working it out…", id="watch-text")
+        yield Static("", classes="desk-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        state = self.blotter.state
+        if state is not None:
+            days = data.days_to_week_end(self.blotter.clock(), self.blotter.tz)
+            self.compute(state, days)
+
+    def store_changed(self) -> None:
+        self.on_mount()
+
+    @work(thread=True, exclusive=True, group="watch-list", exit_on_error=False)
+    def compute(self, state: Any, days: int) -> None:
+        from blotter import scenario
+
+        worker = get_current_worker()
+        try:
+            result = scenario.apply_move(state.valuation, scenario.parse_move(f"days {days}"))
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            self.post_message(Done("watch", False, f"✗ {exc}"))
+            return
+        if not worker.is_cancelled:
+            self.post_message(Done("watch", True, "", (days, list(result.expiring or []))))
+
+    def on_done(self, message: Done) -> None:
+        message.stop()
+        if not message.ok:
+            self.say(message.words, bad=True)
+            return
+        days, expiring = message.payload
+        text = Text()
+        breaches = self.blotter.breaches()
+        text.append(f"Limit breaches ({len(breaches)})\n", style="bold")
+        for b in breaches:
+            text.append(f"  ! {b}\n")
+        if not breaches:
+            text.append("  none (limits: [alerts] in the config file)\n")
+        pins = [e for e in expiring if e.pin_risk]
+        text.append(
+            f"\nOptions expiring within {days} day{'s' if days != 1 else ''} (this week) "
+            f"({len(expiring)}), pin risk ({len(pins)})\n",
+            style="bold",
+        )
+        for e in expiring:
+            label = getattr(e, "label", "")
+            dist = getattr(e, "distance_pct", float("nan"))
+            flag = "  PIN RISK" if e.pin_risk else ""
+            text.append(f"  {label:<28} spot {fmt.pct(dist)} from strike{flag}\n")
+        if not expiring:
+            text.append("  none\n")
+        self.query_one("#watch-text", Static).update(text)

@@ -1,0 +1,560 @@
+"""Pilot tests of the desk screens on a demo copy: typing marks (a number, an option price, a
+refused value), the close (written, and refused by a busy file with nothing typed lost), adding,
+cancelling and amending trades, trial trades, the Explain screen, the watch list, read-only,
+and another process's commit showing in the running app."""
+
+from __future__ import annotations
+
+import math
+import sqlite3
+import subprocess
+import sys
+import time
+from dataclasses import replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from blotter import engine, scenario, store
+from blotter.config import Alerts
+from blotter.ui.app import BlotterApp, make_app
+from blotter.ui.screens.base import READ_ONLY_WORDS
+from blotter.ui.screens.explain import ExplainScreen
+from blotter.ui.screens.marks import CloseReviewScreen, MarksScreen
+from blotter.ui.screens.trades import TradeForm, TradesScreen
+from blotter.ui.widgets.book_table import NOT_ADDITIVE, BookTable
+
+from .conftest import TEST_SETTINGS, frozen_clock, settle
+
+
+def message(app: BlotterApp) -> str:
+    return str(app.screen.query_one(".desk-message").render())
+
+
+def open_ro(db: Path) -> store.Store:
+    return store.open_store(db, read_only=True)
+
+
+def spot_mark(db: Path, symbol: str) -> float:
+    st = open_ro(db)
+    try:
+        return next(m.value for m in st.marks() if m.kind == "spot" and m.symbol == symbol)
+    finally:
+        st.close()
+
+
+def counts(db: Path) -> tuple[int, int, int]:
+    """(trades, mark sets, marks) in the file."""
+    con = sqlite3.connect(db)
+    try:
+        return tuple(  # type: ignore[return-value]
+            con.execute(f"SELECT count(*) FROM {t}").fetchone()[0]
+            for t in ("trade", "mark_set", "mark")
+        )
+    finally:
+        con.close()
+
+
+async def open_marks(app: BlotterApp, pilot: Any) -> MarksScreen:
+    await settle(app, pilot)
+    await pilot.press("m")
+    await settle(app, pilot)
+    assert isinstance(app.screen, MarksScreen)
+    return app.screen
+
+
+async def test_typing_a_spot_mark_writes_it_and_reloads_the_book(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        point = screen.cursor_point()
+        assert point is not None and point.kind == "spot" and point.symbol == "DEMOA"
+        assert point.close_value == pytest.approx(point.value)
+        await pilot.press(*"182.5", "enter")
+        await settle(app, pilot)
+        assert "✓ DEMOA spot marked 182.50" in message(app)
+        assert spot_mark(demo_db, "DEMOA") == pytest.approx(182.5)
+        row = screen.view.points[0]  # type: ignore[union-attr]
+        assert row.value == pytest.approx(182.5)
+        assert row.change() == f"{182.5 - row.close_value:+,.2f}"  # type: ignore[operator]
+        assert app.state is not None
+        i = app.state.valuation.book.underlyings.index_of("DEMOA")
+        assert app.state.valuation.underlying_spots[i] == pytest.approx(182.5)
+        await pilot.press("q")
+        await pilot.pause()
+        assert not isinstance(app.screen, MarksScreen)
+
+
+async def test_a_refused_value_keeps_what_was_typed(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    before = counts(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        await pilot.press("enter", *"-5", "enter")
+        await settle(app, pilot)
+        assert "refused" in message(app) and "spot must be positive" in message(app)
+        box = screen.query_one("#marks-edit")
+        assert box.value == "-5" and not box.has_class("-hidden")  # type: ignore[attr-defined]
+        await pilot.press("backspace", "backspace", *"abc", "enter")
+        await settle(app, pilot)
+        assert "is not a number" in message(app)
+        assert box.value == "abc"  # type: ignore[attr-defined]
+    assert counts(demo_db) == before
+
+
+async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        assert screen.view is not None and app.state is not None
+        row = next(
+            i for i, p in enumerate(screen.view.points) if p.kind == "vol" and p.strike is not None
+        )
+        point = screen.view.points[row]
+        screen.query_one("#marks-table").move_cursor(row=row)  # type: ignore[attr-defined]
+        v = app.state.valuation
+        vol, words, is_call = __import__("blotter.ui.data", fromlist=["x"]).solve_vol(
+            v, point, 1.0, app.tz
+        )
+        # A price from the engine at 30% vol solves back to 30% and is written as the mark.
+        book = v.book
+        i = next(
+            j
+            for j in range(len(book))
+            if book.is_option[j]
+            and book.underlyings.symbols[book.underlying_idx[j]] == point.symbol
+            and str(np.datetime64(book.expiries[j], "D")) <= str(point.expiry)
+            and v.live[j]
+            and __import__("blotter.calendar", fromlist=["x"]).local_date(book.expiries[j], app.tz)
+            == np.datetime64(point.expiry)
+        )
+        price = float(
+            engine.price(
+                is_call,
+                v.spot[i],
+                point.strike,
+                v.years[i],
+                v.rate[i],
+                v.carry[i],
+                0.30,
+                bool(book.american[i]),
+            )
+        )
+        await pilot.press(*f"${price:.6f}", "enter")
+        await settle(app, pilot)
+        assert "implied vol 30.00%" in message(app)
+        st = open_ro(demo_db)
+        try:
+            marked = next(
+                m.value
+                for m in st.marks()
+                if m.kind == "vol"
+                and m.symbol == point.symbol
+                and m.expiry == point.expiry
+                and m.strike == point.strike
+            )
+        finally:
+            st.close()
+        assert marked == pytest.approx(0.30, abs=1e-6)
+        # Below intrinsic: refused with the engine's status, nothing written, text kept.
+        before = counts(demo_db)
+        intrinsic = max(0.0, (v.spot[i] - point.strike) if is_call else (point.strike - v.spot[i]))
+        await pilot.press("enter", *f"${max(intrinsic - 5.0, 0.0) if intrinsic > 5 else 0.0:g}")
+        await pilot.press("enter")
+        await settle(app, pilot)
+        text = message(app)
+        assert "refused" in text
+        assert counts(demo_db) == before
+        del vol, words
+
+
+async def test_commit_close_reviews_then_writes_one_close_set(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_marks(app, pilot)
+        await pilot.press(*"190", "enter")
+        await settle(app, pilot)
+        await pilot.press("c")
+        await settle(app, pilot)
+        assert isinstance(app.screen, CloseReviewScreen)
+        review = app.screen.review
+        assert any(line.startswith("DEMOA spot 180.67 → 190.00") for line in review.changed)
+        st = open_ro(demo_db)
+        closes_before = len(st.mark_sets(kind="close"))
+        st.close()
+        await pilot.press("y")
+        await settle(app, pilot)
+        assert isinstance(app.screen, MarksScreen)
+        assert "close set" in message(app) and "written" in message(app)
+        st = open_ro(demo_db)
+        try:
+            closes = st.mark_sets(kind="close")
+            assert len(closes) == closes_before + 1
+            at_close = {(m.kind, m.symbol): m.value for m in st.marks(closes[-1].id)}
+        finally:
+            st.close()
+        assert at_close[("spot", "DEMOA")] == pytest.approx(190.0)
+
+
+async def test_a_busy_file_refuses_the_close_and_nothing_typed_is_lost(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setattr(store, "BUSY_TIMEOUT_MS", 50)
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        await pilot.press(*"191", "enter")
+        await settle(app, pilot)
+        sets_before = counts(demo_db)[1]
+        blocker = sqlite3.connect(demo_db, isolation_level=None)
+        blocker.execute("BEGIN IMMEDIATE")  # another writer holds the file
+        try:
+            await pilot.press("c")
+            await settle(app, pilot)
+            await pilot.press("y")
+            await settle(app, pilot)
+            assert isinstance(app.screen, CloseReviewScreen), "the review stays up"
+            words = str(app.screen.query_one("#review-message").render())
+            assert "close not written" in words
+        finally:
+            blocker.execute("ROLLBACK")
+            blocker.close()
+        assert counts(demo_db)[1] == sets_before
+        assert spot_mark(demo_db, "DEMOA") == pytest.approx(191.0)  # the typed mark is kept
+        await pilot.press("y")  # the file is free again: the same review writes the close
+        await settle(app, pilot)
+        assert isinstance(app.screen, MarksScreen) and "written" in message(app)
+        assert counts(demo_db)[1] == sets_before + 1
+        assert screen.view is not None
+
+
+async def open_trades(app: BlotterApp, pilot: Any) -> TradesScreen:
+    await settle(app, pilot)
+    await pilot.press("t")
+    await settle(app, pilot)
+    assert isinstance(app.screen, TradesScreen)
+    return app.screen
+
+
+async def fill(pilot: Any, *fields: str) -> None:
+    for i, text in enumerate(fields):
+        if i:
+            await pilot.press("tab")
+        await pilot.press(*text) if text else None
+
+
+async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_trades(app, pilot)
+        n = len(screen.records)
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, TradeForm)
+        await fill(pilot, "DEMOA", "2027-01-15", "201", "c", "5", "3.25")
+        await pilot.press("enter")
+        await pilot.pause()
+        assert "New contract DEMOA 2027-01-15 201 C will be created" in str(
+            app.screen.query_one("#form-message").render()
+        )
+        assert counts(demo_db)[0] == n
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen)
+        assert "booked" in message(app)
+        st = open_ro(demo_db)
+        try:
+            last = st.trades()[-1]
+        finally:
+            st.close()
+        assert (last.contract, last.quantity, last.price, last.state) == (
+            "DEMOA 2027-01-15 201 C",
+            5,
+            3.25,
+            "live",
+        )
+        assert len(screen.records) == n + 1
+        # Filter by typing: only rows holding every word.
+        await pilot.press("slash", *"2027-01-15 201")
+        await pilot.pause()
+        assert screen.shown_ids == [str(last.trade_id)]
+
+
+async def test_a_bad_field_is_refused_in_the_form(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    before = counts(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        await fill(pilot, "DEMOA", "2027-13-40", "201", "c", "5", "3.25")
+        await pilot.press("f5")
+        await pilot.pause()
+        assert isinstance(app.screen, TradeForm)
+        assert "expiry" in str(app.screen.query_one("#form-message").render())
+        assert app.screen.value("expiry") == "2027-13-40"
+    assert counts(demo_db) == before
+
+
+async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_trades(app, pilot)
+        first = screen.cursor_trade()
+        assert first is not None and first.state == "live"
+        await pilot.press("x")
+        await pilot.pause()
+        await pilot.press("enter")  # no reason: refused
+        await pilot.pause()
+        assert "needs a reason" in str(app.screen.query_one("#form-message").render())
+        await pilot.press(*"duplicate ticket", "enter")
+        await settle(app, pilot)
+        assert f"trade {first.trade_id} cancelled" in message(app)
+        st = open_ro(demo_db)
+        try:
+            rec = {t.trade_id: t for t in st.trades()}
+        finally:
+            st.close()
+        assert rec[first.trade_id].state == "cancelled"
+        assert rec[first.trade_id].cancel_reason == "duplicate ticket"
+        # Amend the next live trade's price.
+        await pilot.press("down")
+        second = screen.cursor_trade()
+        assert second is not None and second.state == "live"
+        await pilot.press("e")
+        await pilot.pause()
+        form = app.screen
+        assert isinstance(form, TradeForm) and form.value("qty") == str(second.quantity)
+        await pilot.press("tab", *["backspace"] * 12, *"9.99", "tab", *"wrong price", "enter")
+        await settle(app, pilot)
+        assert "amended" in message(app)
+        st = open_ro(demo_db)
+        try:
+            rec = {t.trade_id: t for t in st.trades()}
+        finally:
+            st.close()
+        assert rec[second.trade_id].state == "amended"
+        new = rec[rec[second.trade_id].replaced_by]  # type: ignore[index]
+        assert (new.price, new.quantity, new.state) == (9.99, second.quantity, "live")
+
+
+async def test_a_trial_changes_the_totals_and_leaves_the_store_untouched(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    before = counts(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        assert app.state is not None
+        live_total = app.state.tree.total().values
+        live_move = None
+        await pilot.press("slash", *"spot -3%")
+        await settle(app, pilot)
+        live_move = app.result.total.full  # type: ignore[union-attr]
+        await pilot.press("f3")  # back to the book (b would type in the bar)
+        await open_trades(app, pilot)
+        await pilot.press("i")
+        await pilot.pause()
+        await fill(pilot, "DEMOA", "2026-12-18", "177.5", "c", "100", "6.1")
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen)
+        assert app.screen.shown_ids[0] == "T1"
+        await pilot.press("q")
+        await settle(app, pilot)
+        state = app.state
+        assert state is not None and int(state.valuation.book.is_trial.sum()) == 1
+        rows = app.query_one(BookTable).visible_rows()
+        assert [r.key for r in rows[:2]] == ["total", "total-live"]
+        with_trial, without = rows[0].values, rows[1].values
+        delta_col = 1
+        assert with_trial[delta_col] != pytest.approx(live_total[delta_col])
+        assert without[delta_col] == pytest.approx(live_total[delta_col])
+        # The trial is layered on the move too: the bar's move re-applied on the trial book.
+        assert app.result.total.full != pytest.approx(live_move)  # type: ignore[union-attr]
+        expected = scenario.apply_move(state.valuation, scenario.parse_move("spot -3%"))
+        assert app.result.total.full == pytest.approx(expected.total.full)  # type: ignore[union-attr]
+        assert "TRIALS 1" in str(app.query_one("#header-line").render())
+        trial_rows = [r for k in ("u|DEMOA",) for r in [*app.query_one(BookTable).visible_rows()]]
+        assert trial_rows
+        assert counts(demo_db) == before  # nothing written
+        await pilot.press("c")  # clear trials
+        await settle(app, pilot)
+        assert app.trials == [] and not app.state.valuation.book.is_trial.any()  # type: ignore[union-attr]
+        assert app.state.tree.total().values[delta_col] == pytest.approx(live_total[delta_col])  # type: ignore[union-attr]
+    assert counts(demo_db) == before
+
+
+async def test_promoting_a_trial_books_it(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    before = counts(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("i")
+        await pilot.pause()
+        await fill(pilot, "DEMOA", "2026-12-18", "177.5", "c", "-3", "6.1")
+        await pilot.press("enter")
+        await settle(app, pilot)
+        await pilot.press("p")
+        await settle(app, pilot)
+        assert "booked as trades" in message(app)
+        assert app.trials == []
+    assert counts(demo_db)[0] == before[0] + 1
+
+
+async def test_book_total_leaves_share_columns_blank_and_vega_switches_unit(
+    demo_app: BlotterApp,
+) -> None:
+    async with demo_app.run_test(size=(160, 48)) as pilot:
+        await settle(demo_app, pilot)
+        table = demo_app.query_one(BookTable)
+        for col in ("delta_shares", "gamma_1pct", "vanna_pt"):
+            assert str(table.get_cell("total", col)).strip() == NOT_ADDITIVE
+            assert str(table.get_cell("u|DEMOA", col)).strip() != NOT_ADDITIVE
+        assert str(table.get_cell("total", "delta_cash")).strip() != NOT_ADDITIVE
+        per_pt = float(str(table.get_cell("total", "vega_pt")).replace(",", ""))
+        await pilot.press("u")
+        await pilot.pause()
+        per_vol = float(str(table.get_cell("total", "vega_pt")).replace(",", ""))
+        assert per_vol == pytest.approx(per_pt * 100, abs=100)
+        assert "1.00" in str(table.columns["vega_pt"].label)  # type: ignore[index]
+        await pilot.press("ctrl+j")
+        await pilot.pause()
+        assert float(str(table.get_cell("total", "vega_pt")).replace(",", "")) == per_pt
+
+
+async def test_explain_screen_shows_scenario_explain(demo_db: Path) -> None:
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("l")
+        await settle(app, pilot)
+        screen = app.screen
+        assert isinstance(screen, ExplainScreen) and screen.result is not None
+        st = open_ro(demo_db)
+        try:
+            closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
+        finally:
+            st.close()
+        assert screen.result.from_set.id == closes[-1].id and screen.result.to_set == "now"
+        await pilot.press("o")  # end at the last close: the last two closes
+        await settle(app, pilot)
+        st = open_ro(demo_db)
+        try:
+            expected = scenario.explain(st)
+        finally:
+            st.close()
+        got = screen.result
+        assert (got.from_set.id, got.to_set.id) == (expected.from_set.id, expected.to_set.id)
+        table = screen.query_one("#explain-table")
+        labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
+        total_col = [str(table.get_row_at(i)[1]) for i in range(table.row_count)]  # type: ignore[attr-defined]
+        for name, value in (
+            ("unexplained", expected.total.unexplained),
+            ("new trades", expected.total.new_trades),
+            ("= total P&L", expected.total.total),
+            ("Δ · dS", expected.total.terms["delta"]),
+        ):
+            shown = float(total_col[labels.index(name)].replace(",", ""))
+            assert shown == pytest.approx(value, abs=0.5)
+        assert [str(c.label) for c in table.columns.values()][1] == "total"  # type: ignore[attr-defined]
+        await pilot.press("q")
+        await pilot.pause()
+        assert not isinstance(app.screen, ExplainScreen)
+
+
+async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
+    settings = replace(
+        TEST_SETTINGS,
+        alerts=Alerts(underlying_vega_pt=1.0, ladder_loss=1.0, underlying_ladder_loss=1.0),
+    )
+    app = make_app(demo_db, settings, clock=frozen_clock)
+    async with app.run_test(size=(120, 30)) as pilot:
+        await settle(app, pilot)
+        header = str(app.query_one("#header-line").render())
+        assert "limit breaches" in header or "worst ladder cell" in header
+        rows = app.query_one(BookTable).visible_rows()
+        assert all("|vega| over 1" in r.alert for r in rows if r.level == 1)
+        assert any("worst ladder cell" in r.alert for r in rows if r.level == 1)
+        assert not rows[0].alert or "ladder" not in rows[0].alert
+        await pilot.press("w")
+        await settle(app, pilot)
+        text = str(app.screen.query_one("#watch-text").render())
+        assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
+        assert "Options expiring within" in text
+
+
+async def test_read_only_app_cannot_write(demo_db: Path) -> None:
+    settings = replace(TEST_SETTINGS, read_only=True)
+    app = make_app(demo_db, settings, clock=frozen_clock)
+    before = counts(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        assert "READ-ONLY" in str(app.query_one("#header-line").render())
+        screen = await open_marks(app, pilot)
+        assert screen.check_action("edit", ()) is False
+        assert screen.check_action("commit_close", ()) is False
+        for key in ("enter", "1", "c", "f5"):
+            await pilot.press(key)
+            await settle(app, pilot)
+            assert isinstance(app.screen, MarksScreen)
+            assert READ_ONLY_WORDS in message(app), key
+        assert screen.query_one("#marks-edit").has_class("-hidden")
+        await pilot.press("q")
+        trades = await open_trades(app, pilot)
+        for action in ("add", "amend", "cancel_trade", "promote"):
+            assert trades.check_action(action, ()) is False
+        for key in ("a", "x", "e", "p"):
+            await pilot.press(key)
+            await pilot.pause()
+            assert isinstance(app.screen, TradesScreen)
+            assert READ_ONLY_WORDS in message(app), key
+        # A trial is not a write: it is offered on a read-only book.
+        await pilot.press("i")
+        await pilot.pause()
+        assert isinstance(app.screen, TradeForm)
+    assert counts(demo_db) == before
+
+
+async def test_another_process_commits_a_mark_and_the_app_shows_it(demo_db: Path) -> None:
+    settings = replace(TEST_SETTINGS, watch_interval_s=0.1)
+    app = make_app(demo_db, settings, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_marks(app, pilot)
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "blotter",
+                "mark",
+                "spot",
+                "DEMOA",
+                "177.25",
+                "--db",
+                str(demo_db),
+            ],
+            check=True,
+            capture_output=True,
+        )
+        deadline = time.monotonic() + 10
+        screen = app.screen
+        assert isinstance(screen, MarksScreen)
+        while time.monotonic() < deadline:
+            await pilot.pause(0.05)
+            view = screen.view
+            state = app.state
+            if (
+                view is not None
+                and view.points[0].value == pytest.approx(177.25)
+                and state is not None
+                and math.isclose(
+                    state.valuation.underlying_spots[
+                        state.valuation.book.underlyings.index_of("DEMOA")
+                    ],
+                    177.25,
+                )
+            ):
+                break
+        else:
+            raise AssertionError("the other process's mark did not show")
+        assert isinstance(app.screen, MarksScreen), "the open screen stays"
