@@ -614,7 +614,7 @@ class _Prep:
     years: np.ndarray
     american: np.ndarray
     any_american: bool
-    base_price: np.ndarray  # engine.price at the base inputs, per unit (m,)
+    base_price: np.ndarray  # the valuation's price per unit at the base inputs (m,)
     spot_l: np.ndarray
     rate_l: np.ndarray
     carry_l: np.ndarray
@@ -669,22 +669,8 @@ def prepare(valuation: BookValuation) -> _Prep:
     units = v.units
     am = take(book.american)
     spot_l, rate_l, carry_l, vol_l = take(v.spot), take(v.rate), take(v.carry), take(v.vol)
-    if live_idx.size:
-        base = np.asarray(
-            engine.price(
-                take(book.is_call),
-                spot_l,
-                take(book.strikes),
-                take(v.years),
-                rate_l,
-                carry_l,
-                vol_l,
-                american=am if am.any() else False,
-            ),
-            dtype=np.float64,
-        )
-    else:
-        base = np.zeros(0)
+    # The valuation's per-unit prices are the engine's at these same inputs: no second pricing.
+    base = np.ascontiguousarray(take(g.price), dtype=np.float64)
     uidx = book.underlying_idx
     arrays = {
         "delta": g.delta * units,
@@ -911,28 +897,31 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     m = p.live_idx.size
     through_l = t_after <= 0 if dt else np.zeros(m, dtype=bool)
     am = p.american if p.any_american else False
-    if m and not through_l.any():
+    moving = _moving_rows(p, ds_u, vol1, dt, dr)
+    if m and moving is None and not through_l.any():
         new_price = np.asarray(
             engine.price(p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am)
         )
     elif m:
-        new_price = np.empty(m)
-        a = np.flatnonzero(~through_l)
+        # Rows whose inputs do not move keep their base price; the rest are repriced, and those
+        # expiring inside the roll settle at intrinsic on the moved spot.
+        new_price = p.base_price.copy()
+        reprice = ~through_l if moving is None else moving & ~through_l
+        a = np.flatnonzero(reprice)
         if a.size:
-            s1a = np.broadcast_to(s1, (m,))[a]
             new_price[a] = engine.price(
                 p.is_call[a],
-                s1a,
+                np.broadcast_to(s1, (m,))[a],
                 p.strike[a],
-                t_after[a],
+                np.broadcast_to(t_after, (m,))[a],
                 np.broadcast_to(r1, (m,))[a],
                 np.broadcast_to(b1, (m,))[a],
                 np.broadcast_to(vol1, (m,))[a],
                 american=p.american[a] if p.american[a].any() else False,
             )
         e = np.flatnonzero(through_l)
-        sign = np.where(p.is_call[e], 1.0, -1.0)
-        new_price[e] = np.maximum(sign * (np.broadcast_to(s1, (m,))[e] - p.strike[e]), 0.0)
+        if e.size:
+            new_price[e] = intrinsic(p.is_call[e], np.broadcast_to(s1, (m,))[e], p.strike[e])
     else:
         new_price = np.zeros(0)
     full_l = (new_price - p.base_price) * p.units_l
@@ -1021,6 +1010,26 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         notes.append(f"some vols floored at {VOL_FLOOR * 100:g} vol points")
     object.__setattr__(result, "notes", tuple(notes))
     return result
+
+
+def _moving_rows(
+    p: _Prep, ds_u: np.ndarray, vol1: np.ndarray, dt: float, dr: float
+) -> np.ndarray | None:
+    """Live rows (bool (m,)) whose spot or vol the move changes, or None when every row moves
+    (time passes or the rate moves, which reach every option)."""
+    if dt or dr:
+        return None
+    moving = np.zeros(p.live_idx.size, dtype=bool)
+    if ds_u.any():
+        moving |= ds_u[p.uidx_l] != 0
+    if vol1 is not p.vol_l:
+        moving |= np.broadcast_to(vol1, moving.shape) != p.vol_l
+    return None if moving.all() else moving
+
+
+def intrinsic(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray) -> np.ndarray:
+    """Intrinsic value per unit (n,): max(S − K, 0) for calls, max(K − S, 0) for puts."""
+    return np.maximum(np.where(is_call, 1.0, -1.0) * (spot - strike), 0.0)
 
 
 def _terms_per_underlying_exact(

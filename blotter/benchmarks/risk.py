@@ -5,6 +5,9 @@
   valuation is built once beforehand, as the app does.
 - ``whatif american``: the same with 20% of the options American (Bjerksund–Stensland 2002), no
   target; it shows the cost of the closed-form American approximation.
+- ``whatif american-heavy``: the same move on a book with 75% American options (like the demo);
+  ``whatif american-heavy one name``: "SYN00 spot -3%" on it, where only that name's options are
+  repriced.
 - ``ladder``: the default 9 × 5 spot × vol ladder on 10k and 100k positions (targets 35 ms and
   350 ms), one broadcast pass chunked to ``LADDER_CHUNK_CELLS`` cells.
 
@@ -30,6 +33,9 @@ VALUATION = np.datetime64("2026-12-01T15:00:00", "s")
 
 MOVE = "spot -3% vol +2 days 1"
 """The what-if timed."""
+
+ONE_NAME_MOVE = "SYN00 spot -3%"
+"""A one-name what-if: one of the 50 names moves, the others keep their prices."""
 
 
 def synthetic_book(
@@ -157,15 +163,17 @@ def run(quick: bool) -> list[Result]:
     cells = len(DEFAULT_SPOT_PCTS) * len(DEFAULT_VOL_PTS)
     results: list[Result] = []
 
-    move = parse_move(MOVE)
-    for label, share, n, target_ms in (
-        ("whatif", 0.0, 100_000, 10.0),
-        ("whatif american", 0.2, 100_000, None),
+    for label, share, n, target_ms, text in (
+        ("whatif", 0.0, 100_000, 10.0, MOVE),
+        ("whatif american", 0.2, 100_000, None, MOVE),
+        ("whatif american-heavy", 0.75, 100_000, None, MOVE),
+        ("whatif american-heavy one name", 0.75, 100_000, None, ONE_NAME_MOVE),
     ):
         n = 5_000 if quick else n
         book, market = synthetic_book(n, american_share=share)
         v = value_book(book, market, VALUATION)
         prepare(v)
+        move = parse_move(text)
         secs = timed(partial(apply_move, v, move), repeat=repeat)
         med_ns = float(np.median(secs)) * 1e9 / n
         results.append(
@@ -176,7 +184,7 @@ def run(quick: bool) -> list[Result]:
                 reference=ref,
                 ratio=(ql_ns / med_ns) if ql_ns else None,
                 target_ns=target_ms * 1e6 / n if target_ms and not quick else None,
-                note=f"'{MOVE}', {share:.0%} American, incl. aggregation",
+                note=f"'{text}', {share:.0%} American, incl. aggregation",
             )
         )
 

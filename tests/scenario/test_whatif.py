@@ -14,6 +14,7 @@ import math
 import numpy as np
 import pytest
 
+from blotter import engine
 from blotter.risk import value_book
 from blotter.scenario import MoveError, apply_move, parse_move
 
@@ -77,6 +78,9 @@ CASES = [
     ("IDX spot -5% FUT vol +3 days 7", {"IDX": -5.0}, {"FUT": 0.03}, 7, 0.0),
     ("bdays 1 rate -50bp", {}, {}, 3, -0.005),  # Friday → Monday: 3 calendar days
     ("spot -8% days 12 vol +4", {s: -8.0 for s in SPOTS}, {s: 0.04 for s in SPOTS}, 12, 0.0),
+    # One name moves, nothing else: only that name's options are repriced.
+    ("STK spot -4%", {"STK": -4.0}, {}, 0, 0.0),
+    ("FUT vol +3", {}, {"FUT": 0.03}, 0, 0.0),
 ]
 
 
@@ -249,6 +253,43 @@ def test_zero_move_changes_nothing(mixed_book) -> None:
     res = apply_move(v, parse_move("spot +0% vol +0"))
     assert np.all(res.full == 0.0) and res.total.estimate_2 == 0.0
     assert math.isnan(res.total.error_1_pct)
+
+
+def test_a_one_name_move_leaves_the_other_names_untouched() -> None:
+    """Rows of names the move does not reach keep their base price exactly (P&L 0.0, not a
+    repricing's rounding); the moved name's American rows are repriced with the engine."""
+    rows = [
+        Row(
+            r.sym,
+            r.qty,
+            r.strike,
+            r.days,
+            r.call,
+            american=r.strike is not None and i % 2 == 0,
+            mult=r.mult,
+            cash=r.cash,
+        )
+        for i, r in enumerate(mixed_rows())
+    ]
+    book = make_book(rows)
+    v = value_book(book, make_market(), T0)
+    res = apply_move(v, parse_move("STK spot -4%"))
+    stk = book.underlying_idx == book.underlyings.index_of("STK")
+    assert np.all(res.full[~stk] == 0.0)
+    opt = stk & book.is_option
+    moved = engine.price(
+        book.is_call[opt],
+        v.spot[opt] * 0.96,
+        book.strikes[opt],
+        v.years[opt],
+        v.rate[opt],
+        v.carry[opt],
+        v.vol[opt],
+        american=book.american[opt],
+    )
+    expected = (np.asarray(moved) - v.greeks.price[opt]) * v.units[opt]
+    assert res.full[opt] == pytest.approx(expected, rel=1e-12, abs=1e-9)
+    assert book.american[opt].any() and (res.full[opt] != 0).all()
 
 
 def test_hedges_move_exactly_with_spot(mixed_book) -> None:
