@@ -1587,6 +1587,12 @@ class Store:
         ORDER BY m.kind, m.underlying_id, m.currency, m.expiry, m.strike, m.tenor_days
     """
 
+    _IN_FORCE_WHERE = "WHERE s.corrects IS NULL"
+    """Sets that make the marks in force: every set but corrections. A correction holds its close's
+    points overlaid with points logged since, all of which are in force by their own rows (or,
+    for an older close, superseded by later marks), so leaving it out changes nothing for the
+    latest close and keeps a correction of an older day from rolling today's marks back."""
+
     def _mark_rows(
         self, conn: sqlite3.Connection, mark_set_id: int | None, as_of: datetime | None
     ) -> list[tuple[Any, ...]]:
@@ -1604,9 +1610,10 @@ class Store:
                 (int(mark_set_id),),
             ).fetchall()
         if as_of is None:
-            return conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
+            return conn.execute(self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE)).fetchall()
         return conn.execute(
-            self._IN_FORCE_SQL.format(where="WHERE s.marked_at <= ?"), (_ts(parse_time(as_of)),)
+            self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE + " AND s.marked_at <= ?"),
+            (_ts(parse_time(as_of)),),
         ).fetchall()
 
     @_guard_damage
@@ -1730,7 +1737,10 @@ class Store:
     ) -> int:
         """Write the marks in force now as one immutable close set; returns its id.
 
-        ``corrects`` names an earlier close set this one replaces (it stays on record).
+        ``corrects`` names an earlier close set this one replaces (it stays on record); the
+        correction holds that set's own points overlaid with the intraday points logged since
+        the newest close set (log the fixed points, then commit the correction). Corrections are
+        left out of the marks in force, so correcting an older day leaves today's marks as they are.
         ``marked_at`` and ``who`` default to now and the OS user (the demo sets them).
         ``commit_close_info`` takes the same arguments and returns the set's record.
         """
@@ -1759,7 +1769,22 @@ class Store:
                 ).fetchone()
                 if done:
                     raise StoreError(f"close set {corrects} was already corrected by set {done[0]}")
-            rows = conn.execute(self._IN_FORCE_SQL.format(where="")).fetchall()
+            if corrects is None:
+                rows = conn.execute(self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE))
+            else:
+                # the corrected set's own points, overlaid with the intraday points logged since
+                # the newest close (the fixes): never the marks other closes copied
+                since = conn.execute(
+                    "SELECT max(mark_set_id) FROM mark_set WHERE kind = 'close'"
+                ).fetchone()[0]
+                rows = conn.execute(
+                    self._IN_FORCE_SQL.format(
+                        where="WHERE s.mark_set_id = ? OR (s.kind = 'intraday' "
+                        "AND s.mark_set_id > ?)"
+                    ),
+                    (int(corrects), int(since)),
+                )
+            rows = rows.fetchall()
             if not rows:
                 raise StoreError("there are no marks to commit as a close")
             set_id = self._new_mark_set(

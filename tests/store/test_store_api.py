@@ -340,3 +340,24 @@ def test_an_amend_that_changes_nothing_is_refused(store: Store) -> None:
         assert not store.in_transaction()
     assert store.trades() == before
     assert store.amend_trade(tid, reason="size", quantity=11) > tid
+
+
+def test_correcting_an_older_close_keeps_its_own_points_not_todays_marks(store: Store) -> None:
+    store.log_spot("TSTA", 100.0)
+    store.log_spot("TSTX", 4000.0)
+    store.log_vol("TSTA", "2030-06-21", 0.25)
+    close1 = store.commit_close(note="day 1")
+    store.log_spot("TSTX", 4100.0)  # day 2's marks
+    store.log_vol("TSTA", "2030-06-21", 0.27)
+    close2 = store.commit_close(note="day 2")
+    store.log_spot("TSTA", 99.5)  # day 1's TSTA close was wrong: the fixed value
+    fixed = store.commit_close_info(note="day 1, TSTA fixed", corrects=close1)
+    recalled = store.load_market(fixed.id)
+    assert recalled.spots == {"TSTA": 99.5, "TSTX": 4000.0}  # not day 2's 4100
+    assert list(recalled.surfaces["TSTA"].vols) == [0.25]  # not day 2's 0.27
+    assert fixed.marks == 3 and fixed.corrects == close1
+    assert store.load_market(close1).spots == {"TSTA": 100.0, "TSTX": 4000.0}  # kept exactly
+    assert store.load_market(close2).spots == {"TSTA": 100.0, "TSTX": 4100.0}
+    live = store.load_market()  # the correction of an old day does not roll today's marks back
+    assert live.spots == {"TSTA": 99.5, "TSTX": 4100.0}
+    assert list(live.surfaces["TSTA"].vols) == [0.27]
