@@ -17,8 +17,6 @@ import pytest
 from blotter.book import Underlyings
 from blotter.market import Market, RateCurve
 from blotter.risk import (
-    DEFAULT_T_REF_DAYS,
-    WEIGHT_FLOOR_DAYS,
     aggregate,
     beta_delta_index_units,
     total,
@@ -155,22 +153,43 @@ def test_hedges_count_delta_one_and_nothing_else() -> None:
     assert v.settles_daily.tolist() == [False, True]
 
 
-def test_beta_weighted_delta(mixed_book) -> None:
+def test_beta_weighted_delta_worked_by_hand() -> None:
+    """PRACTICE.md §3 (common practice): βΔ $ = Σ Δ $_i × β_i, and in index units
+    Σ Δ sh_i × S_i × β_i / S_index. Hedges have Δ = 1 per unit, so the numbers are exact:
+
+    STK 1,500 shares × 120 × β 1.5 = 270,000; IDX 2 units × 4,500 × β 1.0 = 9,000;
+    FUT 3 × 1,000 × 80 × β 0.8 = 192,000; sum 471,000 $ = 471,000 / 4,500 = 104.667 IDX units.
+    """
+    book = make_book([Row("STK", 1500, mult=1), Row("IDX", 2, mult=1), Row("FUT", 3, mult=1000)])
+    v = value_book(book, make_market(), T0)
+    assert v.beta_delta_cash.tolist() == pytest.approx([270_000.0, 9_000.0, 192_000.0])
+    assert total(v).beta_delta_cash == pytest.approx(471_000.0)
+    assert beta_delta_index_units(v) == pytest.approx(104.666_666_7, rel=1e-9)
+
+
+def test_beta_weighted_delta_of_options(mixed_book) -> None:
     v = value_book(mixed_book, make_market(), T0)
     betas = mixed_book.underlyings.betas[mixed_book.underlying_idx]
     assert v.beta_delta_cash == pytest.approx(v.delta_cash * betas)
-    tot = total(v)
-    assert tot.beta_delta_cash == pytest.approx(float(np.sum(v.delta_cash * betas)))
-    assert beta_delta_index_units(v) == pytest.approx(tot.beta_delta_cash / SPOTS["IDX"])
+    assert beta_delta_index_units(v) == pytest.approx(total(v).beta_delta_cash / SPOTS["IDX"])
 
 
-def test_weighted_vega_scales_by_root_of_reference_over_expiry() -> None:
-    book = make_book([Row("IDX", 1, 4500, d) for d in (3, 7, 30, 120, 365)])
+def test_weighted_vega_worked_by_hand() -> None:
+    """PRACTICE.md §3 (common practice): weighted vega = Σ vega_i × √(T_ref/T_i), T_ref 30 days,
+    short expiries floored (here at 7 days). By hand: √(30/7) = 2.070197 for 3 and 7 days,
+    √(30/30) = 1, √(30/120) = 0.5, √(30/365) = 0.286691."""
+    days = (3, 7, 30, 120, 365)
+    book = make_book([Row("IDX", 1, 4500, d) for d in days])
     v = value_book(book, make_market(), T0)
-    days = np.array([3, 7, 30, 120, 365], dtype=float)
-    w = np.sqrt(DEFAULT_T_REF_DAYS / np.maximum(days, WEIGHT_FLOOR_DAYS))
-    assert v.weighted_vega_pt == pytest.approx(v.vega_pt * w, rel=1e-12)
-    assert total(v).weighted_vega_pt == pytest.approx(float(np.sum(v.vega_pt * w)))
+    by_hand = [2.070197, 2.070197, 1.0, 0.5, 0.286691]
+    assert (v.weighted_vega_pt / v.vega_pt).tolist() == pytest.approx(by_hand, rel=1e-6)
+    # A 30-day and a 120-day option: the book's weighted vega is v30 + v120 / 2.
+    two = value_book(
+        make_book([Row("IDX", 1, 4500, 30), Row("IDX", 1, 4500, 120)]), make_market(), T0
+    )
+    assert total(two).weighted_vega_pt == pytest.approx(
+        float(two.vega_pt[0] + 0.5 * two.vega_pt[1]), rel=1e-12
+    )
 
 
 def test_vanna_and_volga_in_desk_units() -> None:

@@ -302,12 +302,33 @@ def test_hedges_move_exactly_with_spot(mixed_book) -> None:
     assert res.estimate_2[hedge] == pytest.approx(res.full[hedge], rel=1e-15)
 
 
-def test_sticky_strike_keeps_each_contracts_vol(mixed_book) -> None:
-    v = value_book(mixed_book, make_market(), T0)
+def test_sticky_strike_prices_at_the_strikes_marked_vol() -> None:
+    """Sticky strike (PRACTICE.md §3, common practice): after "spot -10% days 5" each option is
+    worth QuantLib's price at the moved spot and 5 days less, at the vol marked for its strike.
+    The STK smile is one slice, 0.40 at 100 and 0.30 at 140, linear between: by hand 0.375 at the
+    110 strike and 0.3375 at 125 (sticky moneyness would read 125 × 120/108 = 138.9 instead)."""
+    from blotter.market import VolSurface
+
+    skew = VolSurface(
+        expiries=np.array(["2027-06-18"] * 2, dtype="datetime64[D]"),
+        strikes=np.array([100.0, 140.0]),
+        vols=np.array([0.40, 0.30]),
+    )
+    market = make_market(surfaces={**make_market().surfaces, "STK": skew})
+    rows = [Row("STK", 3, 125, 60, True), Row("STK", -2, 110, 60, False)]
+    v = value_book(make_book(rows), market, T0)
     res = apply_move(v, parse_move("spot -10% days 5"))
-    opt = mixed_book.is_option
-    assert res.vol_after[opt] == pytest.approx(v.vol[opt], rel=0, abs=0)
-    assert res.rate_after[opt] == pytest.approx(v.rate[opt], rel=0, abs=0)
+    div = DIVS["STK"]
+    expected = [
+        r.qty
+        * r.mult
+        * (
+            ql_price(r.call, 108.0, r.strike, 55, RATE, div, vol)
+            - ql_price(r.call, 120.0, r.strike, 60, RATE, div, vol)
+        )
+        for r, vol in zip(rows, (0.3375, 0.375), strict=True)
+    ]
+    assert res.full == pytest.approx(expected, rel=1e-9)
 
 
 def test_beta_relative_and_weighted_vol_moves(mixed_book) -> None:
