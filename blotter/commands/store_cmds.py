@@ -45,14 +45,27 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
         store.close()
 
 
+TIME_HELP = "ISO-8601; with Z or an offset, else desk-local time ($BLOTTER_TZ, default New York)"
+"""How every time option of these commands is read (as ``risk --at`` reads it)."""
+
+
 def _time_option(value: str | None) -> datetime | None:
+    """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
+    one as desk-local time through ``blotter.calendar.to_instant`` (to the second)."""
+    from blotter.calendar import to_datetime, to_instant
     from blotter.store import StoreError, parse_time
 
     if value is None:
         return None
     try:
+        zoneless = datetime.fromisoformat(value.strip()).tzinfo is None
+    except ValueError:
+        zoneless = False  # not ISO-8601: parse_time says so below
+    try:
+        if zoneless:
+            return to_datetime(to_instant(value))
         return parse_time(value)
-    except StoreError as exc:
+    except (StoreError, ValueError) as exc:
         raise click.BadParameter(str(exc)) from None
 
 
@@ -115,7 +128,7 @@ def trade() -> None:
 @click.option("--call/--put", "is_call", default=None, help="Call or put (options only).")
 @click.option("--book", default="main", show_default=True, help="Book (desk account).")
 @click.option(
-    "--time", "trade_time", help="When it was dealt, ISO-8601 with Z or offset; default now."
+    "--time", "trade_time", help=f"When it was dealt, {TIME_HELP}; default now."
 )
 @click.option("--note", default="", help="Free note kept with the trade.")
 @click.option(
@@ -183,7 +196,7 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.option("--reason", required=True, help="Why it is amended (kept on record).")
 @click.option("--qty", "quantity", type=int, help="New signed quantity.")
 @click.option("--price", type=float, help="New price per unit of underlying.")
-@click.option("--time", "trade_time", help="New deal time, ISO-8601 with Z or offset.")
+@click.option("--time", "trade_time", help=f"New deal time, {TIME_HELP}.")
 @click.option("--note", help="New note.")
 @click.option("--book", help="Move to this book.")
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
@@ -255,7 +268,7 @@ TRADE_TABLE = (
 
 @trade.command("list")
 @click.option("--book", help="Only this book.")
-@click.option("--since", help="Only trades dealt after this instant (ISO-8601 with Z or offset).")
+@click.option("--since", help=f"Only trades dealt after this instant ({TIME_HELP}).")
 @click.option("--until", help="Only trades dealt at or before this instant.")
 @click.option(
     "--all",
@@ -461,7 +474,7 @@ _UNITS = {
 @mark.command("list")
 @click.option("--set", "mark_set_id", type=int, help="Exactly this mark set, as recorded.")
 @click.option(
-    "--as-of", "as_of", help="Marks in force at this instant (ISO-8601 with Z or offset)."
+    "--as-of", "as_of", help=f"Marks in force at this instant ({TIME_HELP})."
 )
 @click.option("--sets", "list_sets", is_flag=True, help="List the mark sets instead of marks.")
 @output_options

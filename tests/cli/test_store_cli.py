@@ -108,11 +108,11 @@ def test_errors_exit_non_zero_with_a_message_and_change_nothing(demo_db: Path) -
         "--price",
         "1",
         "--time",
-        "2026-11-20T10:00",
+        "20/11/2026 10:00",
         "--db",
         db,
         code=2,
-    )  # no time zone
+    )  # not ISO-8601
     assert run("trade", "list", "--csv", "--all", "--db", db).stdout == before
     r = run("trade", "list", "--db", str(demo_db.parent / "typo.db"), code=1)
     assert "no book at" in r.stderr and not (demo_db.parent / "typo.db").exists()
@@ -287,3 +287,24 @@ def test_mark_close_reports_the_count_of_the_set_it_wrote(
         sets = {m.id: m.marks for m in s.mark_sets()}
         assert max(sets) != out["mark_set_id"]  # the other close came after ours
         assert out["marks"] == sets[out["mark_set_id"]] == len(s.marks(out["mark_set_id"]))
+
+
+@pytest.mark.parametrize("tz", ["America/New_York", "Europe/London"])
+def test_trade_add_time_without_a_zone_is_desk_local_time(
+    demo_db: Path, tz: str, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """As ``risk --at``: a zoneless time is the desk's ($BLOTTER_TZ) local time."""
+    from datetime import datetime
+    from zoneinfo import ZoneInfo
+
+    monkeypatch.setenv("BLOTTER_TZ", tz)
+    db = str(demo_db)
+    args = ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--db", db, "--json")
+    tid = json.loads(run(*args, "--time", "2026-11-20T10:00").stdout)["trade_id"]
+    zoned = json.loads(run(*args, "--time", "2026-11-20T10:00:00-05:00").stdout)["trade_id"]
+    with open_store(demo_db, read_only=True) as s:
+        times = {t.trade_id: t.trade_time for t in s.trades()}
+    expected = datetime(2026, 11, 20, 10, 0, tzinfo=ZoneInfo(tz))
+    assert times[tid] == expected  # 15:00Z in New York (EST), 10:00Z in London (GMT)
+    assert times[zoned] == datetime.fromisoformat("2026-11-20T15:00:00+00:00")
+    assert "desk" in run("trade", "add", "--help").stdout
