@@ -14,7 +14,11 @@ UNDERLYING_KINDS = ("stock", "index", "future", "fx")
 """Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
 
 
-def _frozen(a: np.ndarray) -> np.ndarray:
+def read_only(a: np.ndarray) -> np.ndarray:
+    """``a`` as a contiguous array that refuses writes (a copy only when ``a`` is not contiguous).
+
+    Books, markets and valuations hold their arrays this way, so a shared array cannot be changed
+    behind a cached result."""
     a = np.ascontiguousarray(a)
     a.setflags(write=False)
     return a
@@ -37,8 +41,8 @@ class Underlyings:
         for name in ("kinds", "currencies", "calendars"):
             if len(getattr(self, name)) != n:
                 raise ValueError(f"Underlyings.{name} has {len(getattr(self, name))} entries, expected {n}")
-        object.__setattr__(self, "betas", _frozen(np.asarray(self.betas, dtype=np.float64)))
-        object.__setattr__(self, "div_yields", _frozen(np.asarray(self.div_yields, dtype=np.float64)))
+        object.__setattr__(self, "betas", read_only(np.asarray(self.betas, dtype=np.float64)))
+        object.__setattr__(self, "div_yields", read_only(np.asarray(self.div_yields, dtype=np.float64)))
         if self.betas.shape != (n,) or self.div_yields.shape != (n,):
             raise ValueError("Underlyings.betas and div_yields must have one entry per symbol")
         if not self.descriptions:
@@ -90,14 +94,14 @@ class Book:
             arr = np.asarray(getattr(self, name), dtype=dtype)
             if arr.shape != (n,):
                 raise ValueError(f"Book.{name} has shape {arr.shape}, expected ({n},)")
-            object.__setattr__(self, name, _frozen(arr))
+            object.__setattr__(self, name, read_only(arr))
         for name in ("cash_settled", "is_trial"):
             arr = np.asarray(getattr(self, name), dtype=bool)
             if arr.shape == (0,) and n:
                 arr = np.zeros(n, dtype=bool)
             if arr.shape != (n,):
                 raise ValueError(f"Book.{name} has shape {arr.shape}, expected ({n},)")
-            object.__setattr__(self, name, _frozen(arr))
+            object.__setattr__(self, name, read_only(arr))
         if len(self.labels) != n:
             raise ValueError(f"Book.labels has {len(self.labels)} entries, expected {n}")
         if n and (self.underlying_idx.min() < 0 or self.underlying_idx.max() >= len(self.underlyings)):

@@ -94,16 +94,6 @@ def year_fraction(t0: np.datetime64 | np.ndarray, t1: np.datetime64 | np.ndarray
     return seconds / SECONDS_PER_YEAR
 
 
-def expiry_instant(
-    expiry_date: date | str, cutoff: time = DEFAULT_CUTOFF, tz: str | ZoneInfo | None = None
-) -> np.datetime64:
-    """The UTC instant an option expiring on ``expiry_date`` stops: ``cutoff`` local time."""
-    if isinstance(expiry_date, str):
-        expiry_date = date.fromisoformat(expiry_date)
-    zone = tz if isinstance(tz, ZoneInfo) else desk_tz(tz)
-    return to_instant(datetime.combine(expiry_date, cutoff, tzinfo=zone))
-
-
 def local_date(t: np.datetime64, tz: ZoneInfo | None = None) -> np.datetime64:
     """The calendar date (``datetime64[D]``) of instant ``t`` in the desk's time zone."""
     return np.datetime64(to_datetime(t, tz or desk_tz()).date(), "D")
@@ -146,19 +136,6 @@ def add_business_days(
         days,
         n,
         roll="backward" if np.all(np.asarray(n) >= 0) else "forward",
-        busdaycal=business_calendar(calendar),
-    )
-
-
-def business_days_between(
-    d0: np.datetime64 | np.ndarray | date,
-    d1: np.datetime64 | np.ndarray | date,
-    calendar: str = DEFAULT_CALENDAR,
-) -> np.ndarray:
-    """Trading days in [d0, d1) of ``calendar`` (negative when d1 is before d0)."""
-    return np.busday_count(
-        np.asarray(d0, dtype="datetime64[D]"),
-        np.asarray(d1, dtype="datetime64[D]"),
         busdaycal=business_calendar(calendar),
     )
 

@@ -11,16 +11,11 @@ from datetime import datetime
 
 import numpy as np
 
+from blotter.book import read_only
 from blotter.calendar import SECONDS_PER_YEAR
 
 VOL_FLOOR = 1e-4
 """Smallest vol a shock can leave (0.01 vol point), so a large negative vol move stays priceable."""
-
-
-def _frozen(a: np.ndarray) -> np.ndarray:
-    a = np.ascontiguousarray(a)
-    a.setflags(write=False)
-    return a
 
 
 @dataclass(frozen=True, eq=False)
@@ -37,10 +32,10 @@ class VolSurface:
 
     def __post_init__(self) -> None:
         object.__setattr__(
-            self, "expiries", _frozen(np.asarray(self.expiries, dtype="datetime64[D]"))
+            self, "expiries", read_only(np.asarray(self.expiries, dtype="datetime64[D]"))
         )
-        object.__setattr__(self, "strikes", _frozen(np.asarray(self.strikes, dtype=np.float64)))
-        object.__setattr__(self, "vols", _frozen(np.asarray(self.vols, dtype=np.float64)))
+        object.__setattr__(self, "strikes", read_only(np.asarray(self.strikes, dtype=np.float64)))
+        object.__setattr__(self, "vols", read_only(np.asarray(self.vols, dtype=np.float64)))
         m = self.expiries.shape
         if self.strikes.shape != m or self.vols.shape != m:
             raise ValueError("VolSurface arrays must have the same length")
@@ -130,8 +125,8 @@ class RateCurve:
         if days.shape != rates.shape or days.ndim != 1 or days.size == 0:
             raise ValueError("RateCurve needs matching, non-empty tenor and rate arrays")
         order = np.argsort(days, kind="stable")
-        object.__setattr__(self, "tenor_days", _frozen(days[order]))
-        object.__setattr__(self, "zero_rates", _frozen(rates[order]))
+        object.__setattr__(self, "tenor_days", read_only(days[order]))
+        object.__setattr__(self, "zero_rates", read_only(rates[order]))
 
     def rate_at(self, years: np.ndarray | float) -> np.ndarray:
         """Zero rate (decimal, continuous) at ``years``: linear in tenor, flat beyond the ends."""

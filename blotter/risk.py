@@ -30,7 +30,7 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
-from blotter.book import Book
+from blotter.book import Book, read_only
 from blotter.market import Market
 
 DEFAULT_T_REF_DAYS = 30.0
@@ -318,8 +318,7 @@ def value_book(
     g["delta"][hedge] = 1.0
     expired = opt & ~live
     if expired.any():
-        sign = np.where(book.is_call[expired], 1.0, -1.0)
-        g["price"][expired] = np.maximum(sign * (spot[expired] - book.strikes[expired]), 0.0)
+        g["price"][expired] = intrinsic(book.is_call[expired], spot[expired], book.strikes[expired])
     if live.any():
         res = engine.price_greeks(
             book.is_call[live],
@@ -333,7 +332,7 @@ def value_book(
         )
         for name in g:
             g[name][live] = np.asarray(getattr(res, name), dtype=np.float64)
-    greeks = UnitGreeks(**{k: _ro(v) for k, v in g.items()})
+    greeks = UnitGreeks(**{k: read_only(v) for k, v in g.items()})
 
     units = book.quantities * book.multipliers
     beta = und.betas[uidx] if n else np.zeros(0)
@@ -372,22 +371,22 @@ def value_book(
         book=book,
         market=market,
         valuation_time=t,
-        spot=_ro(spot),
-        years=_ro(years),
-        rate=_ro(rate),
-        carry=_ro(carry),
-        vol=_ro(vol),
-        **{k: _ro(v) for k, v in arrays.items()},
+        spot=read_only(spot),
+        years=read_only(years),
+        rate=read_only(rate),
+        carry=read_only(carry),
+        vol=read_only(vol),
+        **{k: read_only(v) for k, v in arrays.items()},
         greeks=greeks,
-        units=_ro(units),
-        beta=_ro(beta),
-        vega_weight=_ro(weight),
-        rho_unit=_ro(rho_unit),
-        rate_moves_carry=_ro(moves),
-        live=_ro(live),
-        settles_daily=_ro(is_future_hedge),
-        underlying_spots=_ro(u_spots),
-        bucket_codes=_ro(codes),
+        units=read_only(units),
+        beta=read_only(beta),
+        vega_weight=read_only(weight),
+        rho_unit=read_only(rho_unit),
+        rate_moves_carry=read_only(moves),
+        live=read_only(live),
+        settles_daily=read_only(is_future_hedge),
+        underlying_spots=read_only(u_spots),
+        bucket_codes=read_only(codes),
         bucket_labels=labels,
         t_ref_days=float(t_ref_days),
         vega_unit=vega_unit,
@@ -395,10 +394,12 @@ def value_book(
     )
 
 
-def _ro(a: np.ndarray) -> np.ndarray:
-    a = np.ascontiguousarray(a)
-    a.setflags(write=False)
-    return a
+def intrinsic(
+    is_call: np.ndarray | bool, spot: np.ndarray | float, strike: np.ndarray | float
+) -> np.ndarray:
+    """Intrinsic value per unit, broadcast shapes: max(S − K, 0) for calls, max(K − S, 0) for
+    puts (currency per unit of underlying)."""
+    return np.maximum(np.where(is_call, 1.0, -1.0) * (np.asarray(spot) - strike), 0.0)
 
 
 def _sums(valuation: BookValuation, codes: np.ndarray, n_groups: int) -> dict[str, np.ndarray]:

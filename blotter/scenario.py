@@ -24,9 +24,10 @@ and apply together)::
 
 Vol is sticky strike by default: under a spot move each option keeps the vol of its strike and
 expiry, and a day roll keeps each contract's vol (and its rate). With ``moneyness`` each option
-instead takes the marked vol at its moneyness on the moved spot (strike K read at K × S / S'). Options that expire inside a roll settle at
-intrinsic value on the moved spot; they are listed as expiring, flagged as pin risk when the moved
-spot is within ``PIN_BAND_PCT`` of the strike, and their Taylor estimate is kept but flagged.
+instead takes the marked vol at its moneyness on the moved spot (strike K read at K × S / S').
+Options that expire inside a roll settle at intrinsic value on the moved spot; they are listed as
+expiring, flagged as pin risk when the moved spot is within ``PIN_BAND_PCT`` of the strike, and
+their Taylor estimate is kept but flagged.
 """
 
 from __future__ import annotations
@@ -44,7 +45,7 @@ from blotter import calendar as cal
 from blotter import engine
 from blotter.book import Book
 from blotter.market import VOL_FLOOR
-from blotter.risk import BookValuation, value_book
+from blotter.risk import BookValuation, intrinsic, value_book
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor terms, in the order they are shown."""
@@ -552,20 +553,6 @@ class MoveResult:
         t = self.terms
         return np.asarray(self.estimate_1 + t["gamma"] + t["volga"] + t["vanna"])
 
-    def position_rows(self) -> list[MoveRow]:
-        """One ``MoveRow`` per position (book order)."""
-        labels = self.valuation.book.labels
-        terms = self.terms
-        return [
-            _row(
-                labels[i],
-                float(self.full[i]),
-                {k: float(v[i]) for k, v in terms.items()},
-                int(self.through_expiry[i]),
-            )
-            for i in range(len(labels))
-        ]
-
 
 class MoveError(ValueError):
     """A well-formed move that cannot apply to this book (unknown symbol, non-positive spot)."""
@@ -933,12 +920,9 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         full[p.live_idx] = full_l
         if p.dead_idx.size:
             d = p.dead_idx
-            sign = np.where(v.book.is_call[d], 1.0, -1.0)
-            k = v.book.strikes[d]
+            call, k = v.book.is_call[d], v.book.strikes[d]
             s_new = v.spot[d] + ds_u[p.uidx[d]]
-            full[d] = (
-                np.maximum(sign * (s_new - k), 0.0) - np.maximum(sign * (v.spot[d] - k), 0.0)
-            ) * p.units[d]
+            full[d] = (intrinsic(call, s_new, k) - intrinsic(call, v.spot[d], k)) * p.units[d]
         full_u = np.bincount(p.uidx, weights=full, minlength=p.n_u)
 
     through = np.zeros(n, dtype=bool)
@@ -1027,11 +1011,6 @@ def _moving_rows(
     return None if moving.all() else moving
 
 
-def intrinsic(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray) -> np.ndarray:
-    """Intrinsic value per unit (n,): max(S − K, 0) for calls, max(K − S, 0) for puts."""
-    return np.maximum(np.where(is_call, 1.0, -1.0) * (spot - strike), 0.0)
-
-
 def _terms_per_underlying_exact(
     p: _Prep, ds_u: np.ndarray, dv: np.ndarray, dt: float, dr: float
 ) -> dict[str, np.ndarray]:
@@ -1064,10 +1043,10 @@ def _expiring(res: MoveResult, rows: np.ndarray) -> list[ExpiringPosition]:
         call = bool(book.is_call[i])
         k = float(book.strikes[i])
         s = float(v.spot[i] + res.spot_move_u[book.underlying_idx[i]])
-        intrinsic = max((s - k) if call else (k - s), 0.0)
+        value = float(intrinsic(call, s, k))
         units = float(units_all[i])
         dist = (s / k - 1.0) * 100.0
-        itm = intrinsic > 0
+        itm = value > 0
         cash = bool(book.cash_settled[i])
         delivered = 0.0 if (cash or not itm) else (units if call else -units)
         out.append(
@@ -1080,8 +1059,8 @@ def _expiring(res: MoveResult, rows: np.ndarray) -> list[ExpiringPosition]:
                 spot_after=s,
                 quantity=float(book.quantities[i]),
                 multiplier=float(book.multipliers[i]),
-                intrinsic=intrinsic,
-                settlement=intrinsic * units,
+                intrinsic=value,
+                settlement=value * units,
                 distance_pct=dist,
                 in_the_money=itm,
                 pin_risk=abs(dist) <= PIN_BAND_PCT,
@@ -1163,11 +1142,9 @@ def ladder(
         full += (rel * float(np.dot(p.units[h], v.spot[h])))[:, None]
     if p.dead_idx.size:
         d = p.dead_idx
-        sign = np.where(v.book.is_call[d], 1.0, -1.0)
-        k = v.book.strikes[d]
-        s = v.spot[d]
-        intr0 = np.maximum(sign * (s - k), 0.0)
-        intr1 = np.maximum(sign[None, :] * (s[None, :] * (1 + rel[:, None]) - k[None, :]), 0.0)
+        call, k, s = v.book.is_call[d], v.book.strikes[d], v.spot[d]
+        intr0 = intrinsic(call, s, k)
+        intr1 = intrinsic(call[None, :], s[None, :] * (1 + rel[:, None]), k[None, :])
         full += ((intr1 - intr0[None, :]) @ p.units[d])[:, None]
 
     li = p.live_idx
@@ -1196,10 +1173,9 @@ def ladder(
         alive = t_c > 0
         if not alive.all():
             e = np.flatnonzero(~alive)
-            sign = np.where(p.is_call[sl][e], 1.0, -1.0)
             k = p.strike[sl][e]
             s1 = spot_l[sl][e][None, :] * (1.0 + rel[:, None])
-            intr = np.maximum(sign[None, :] * (s1 - k[None, :]), 0.0)
+            intr = intrinsic(p.is_call[sl][e][None, :], s1, k[None, :])
             full += ((intr - p.base_price[sl][e][None, :]) @ u_c[e])[:, None]
             keep: np.ndarray | slice = np.flatnonzero(alive)
         else:
@@ -1528,8 +1504,10 @@ def explain(
 def _held_pnl(start: BookValuation, end: BookValuation) -> np.ndarray:
     """P&L (n,) of the same positions between two valuations: options end value − start value,
     hedges units × Δprice (a futures hedge's value is zero; its P&L settles daily)."""
-    return np.where(
-        start.book.is_option, end.value - start.value, start.units * (end.spot - start.spot)
+    return np.asarray(
+        np.where(
+            start.book.is_option, end.value - start.value, start.units * (end.spot - start.spot)
+        )
     )
 
 

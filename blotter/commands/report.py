@@ -26,20 +26,6 @@ from blotter.commands.common import (
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow
 
-EXPOSURE_KEYS = (
-    "value",
-    "delta_shares",
-    "delta_cash",
-    "gamma_1pct",
-    "vega_pt",
-    "theta_day",
-    "rho_pct",
-    "vanna_pt",
-    "volga_pt",
-    "beta_delta_cash",
-)
-"""Exposure keys of ``blotter risk --json`` rows, in order (outside checks read these)."""
-
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` and ``explain --json``."""
 
@@ -148,9 +134,11 @@ holding more than one underlying shows them blank (null in JSON)."""
 
 
 def _row_dict(row: ExposureRow, mixed: bool = False) -> dict[str, float | None]:
-    """A row's exposure keys; with ``mixed`` (several underlyings) the share-unit keys are None."""
-    out: dict[str, float | None] = {k: getattr(row, k) for k in EXPOSURE_KEYS}
-    out["weighted_vega_pt"] = row.weighted_vega_pt
+    """A row's exposure keys (``risk.EXPOSURE_FIELDS``, the JSON keys outside checks read, then
+    ``weighted_vega_pt``); with ``mixed`` (several underlyings) the share-unit keys are None."""
+    from blotter.risk import EXPOSURE_FIELDS
+
+    out: dict[str, float | None] = {k: getattr(row, k) for k in EXPOSURE_FIELDS}
     if mixed:
         out.update(dict.fromkeys(SHARE_KEYS))
     return out
@@ -261,7 +249,7 @@ def risk(
     name, so they are left blank in any bucket holding more than one underlying (null in JSON,
     empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum).
     """
-    from blotter.risk import aggregate, beta_delta_index_units, total
+    from blotter.risk import EXPOSURE_FIELDS, aggregate, beta_delta_index_units, total
 
     check_output_flags(as_json, as_csv)
     store = _open(db_path)
@@ -295,12 +283,12 @@ def risk(
     if as_csv:
         if by == "position":
             dicts = _position_dicts(v)
-            cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_KEYS]
+            cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS]
             print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
             return
         rows = under if by == "underlying" else aggregate(v, "expiry")
         mixed = _mixed_buckets(v) if by == "expiry" else set()
-        cols = [by, "spot", *EXPOSURE_KEYS, "weighted_vega_pt"]
+        cols = [by, "spot", *EXPOSURE_FIELDS]
         data = [[r.label, r.spot, *(_row_dict(r, r.index in mixed).values())] for r in rows]
         data.append(["total", None, *_row_dict(tot).values()])
         print_csv(cols, data)
@@ -326,6 +314,7 @@ def risk(
         if r.index in mixed_rows:  # a bucket of several names: share counts do not add
             out[1] = out[3] = out[7] = ""
         return out
+
     cols = list(_RISK_COLUMNS)
     if vega_unit == "vol":
         cols[4] = "vega $/1.00 vol"
