@@ -471,8 +471,9 @@ def open_store(
         )
     if p.is_dir():
         raise StoreError(f"{p} is a directory, not a book file")
+    mode = _IMMUTABLE if read_only and _is_shipped_demo(p) else None
     try:
-        conn = _connect(p, read_only)
+        conn = _connect(p, read_only, mode)
     except sqlite3.Error as exc:
         if "not a database" in str(exc):
             raise StoreError(f"{p} is not a blotter book (SQLite: {exc})") from None
@@ -492,8 +493,8 @@ def open_store(
                 )
             _migrate(conn, p)
         if not read_only:
-            mode = conn.execute("PRAGMA journal_mode").fetchone()[0]
-            if mode != "wal":
+            journal = conn.execute("PRAGMA journal_mode").fetchone()[0]
+            if journal != "wal":
                 conn.execute("PRAGMA journal_mode = WAL")
     except sqlite3.Error as exc:
         conn.close()
@@ -501,7 +502,19 @@ def open_store(
     except BaseException:
         conn.close()
         raise
-    return Store(p, read_only, conn)
+    return Store(p, read_only, conn, mode)
+
+
+_IMMUTABLE = "ro&immutable=1"
+"""URI mode of the shipped demo file opened read-only: nothing ever writes it, so SQLite reads
+it without locks or -wal/-shm side files (none are created next to the installed package)."""
+
+
+def _is_shipped_demo(p: Path) -> bool:
+    try:
+        return p.resolve() == shipped_demo_path().resolve()
+    except OSError:
+        return False
 
 
 def _migrate(conn: sqlite3.Connection, path: Path) -> None:
@@ -734,9 +747,12 @@ class Store:
     _BEGIN = "BEGIN IMMEDIATE"
     """How a write transaction starts; IMMEDIATE takes the write lock before the first read."""
 
-    def __init__(self, path: Path, read_only: bool, conn: sqlite3.Connection) -> None:
+    def __init__(
+        self, path: Path, read_only: bool, conn: sqlite3.Connection, mode: str | None = None
+    ) -> None:
         self.path = path
         self.read_only = read_only
+        self._mode = mode  # URI mode override for every thread's connection (see _connect)
         self._local = threading.local()
         self._local.conn = conn
         self._lock = threading.Lock()
@@ -753,7 +769,7 @@ class Store:
         conn: sqlite3.Connection | None = getattr(self._local, "conn", None)
         if conn is None:
             try:
-                conn = _connect(self.path, self.read_only)
+                conn = _connect(self.path, self.read_only, self._mode)
             except sqlite3.Error as exc:
                 raise _map_error(exc, self.path) from None
             self._local.conn = conn

@@ -36,18 +36,32 @@ def db_option(func: F) -> F:
 
 
 def resolve_db(db_path: str | None) -> tuple[str, bool]:
-    """The book file to use and whether it was given explicitly; the default is the user's demo copy.
+    """The book file to use and whether it was given explicitly; by default the user's demo copy.
 
     Returns (path, explicit). When no path was given anywhere, the per-user copy of the shipped
     demo book is made on first use and its path returned; a note saying which file goes to stderr.
+    Under the group's ``--read-only`` nothing is copied: the existing per-user copy is returned,
+    else the shipped demo file itself (which ``open_store`` opens read-only without side files).
     """
     ctx = click.get_current_context(silent=True)
     group: AppContext | None = ctx.find_object(AppContext) if ctx else None
     path = db_path or (group.db_path if group else None)
     if path:
         return path, True
-    from blotter.store import user_demo_copy
+    from blotter.store import shipped_demo_path, user_data_dir, user_demo_copy
 
+    if group is not None and group.read_only:
+        copy = user_data_dir() / "demo.db"
+        if copy.exists():
+            click.echo(f"blotter: no --db given; opening your demo book {copy} read-only", err=True)
+            return str(copy), False
+        shipped = shipped_demo_path()
+        click.echo(
+            f"blotter: no --db given; opening the shipped demo book {shipped} read-only "
+            "(no copy made)",
+            err=True,
+        )
+        return str(shipped), False
     demo = user_demo_copy()
     click.echo(f"blotter: no --db given; using your demo book {demo}", err=True)
     return str(demo), False

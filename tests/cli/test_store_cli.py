@@ -308,3 +308,46 @@ def test_trade_add_time_without_a_zone_is_desk_local_time(
     assert times[tid] == expected  # 15:00Z in New York (EST), 10:00Z in London (GMT)
     assert times[zoned] == datetime.fromisoformat("2026-11-20T15:00:00+00:00")
     assert "desk" in run("trade", "add", "--help").stdout
+
+
+def test_read_only_refuses_the_demo_command(tmp_path: Path) -> None:
+    out = tmp_path / "d.db"
+    r = run("--read-only", "demo", "--out", str(out), code=1)
+    assert "read-only" in r.stderr and not out.exists()
+
+
+@pytest.fixture
+def shipped(tmp_path: Path, demo_master: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
+    """A stand-in for the shipped demo file, alone in its own directory."""
+    import blotter.store as st
+
+    d = tmp_path / "package"
+    d.mkdir()
+    path = d / "demo.db"
+    path.write_bytes(demo_master.read_bytes())
+    monkeypatch.setattr(st, "shipped_demo_path", lambda: path)
+    return path
+
+
+def test_read_only_without_db_opens_the_shipped_demo_and_copies_nothing(
+    tmp_path: Path, shipped: Path
+) -> None:
+    content = shipped.read_bytes()
+    r = run("--read-only", "mark", "list", "--sets", "--json")
+    assert str(shipped) in r.stderr and "read-only" in r.stderr
+    assert json.loads(r.stdout)  # the demo's mark sets were read
+    run("--read-only", "trade", "list", "--json")
+    assert not (tmp_path / "xdg").exists()  # no per-user copy made
+    assert {p.name for p in shipped.parent.iterdir()} == {"demo.db"}  # nor any side file
+    assert shipped.read_bytes() == content
+    r = run("--read-only", "mark", "spot", "DEMOA", "1", code=1)
+    assert "the book is open read-only" in r.stderr
+
+
+def test_read_only_without_db_opens_the_existing_users_copy(tmp_path: Path, shipped: Path) -> None:
+    run("mark", "spot", "DEMOA", "190")  # makes the per-user copy and writes to it
+    copy = tmp_path / "xdg" / "blotter" / "demo.db"
+    r = run("--read-only", "mark", "list", "--json")
+    assert str(copy) in r.stderr and str(shipped) not in r.stderr
+    spots = [m for m in json.loads(r.stdout) if m["kind"] == "spot" and m["symbol"] == "DEMOA"]
+    assert spots[0]["value"] == 190.0
