@@ -1436,7 +1436,7 @@ def explain(
         notes.append(
             f"{len(period.late)} trade(s) dealt before the start were booked in the period and "
             f"{len(period.corrected)} cancelled or amended in it: the positions held are as known "
-            "at the end; the corrections column is what that changed in actual"
+            "at the end; 'corrections' is how much that changed actual"
         )
     trades, trade_prices = period.new, period.prices
     if len(trades):

@@ -118,3 +118,27 @@ def test_actual_new_and_corrections_match_quantlib(
     (row,) = ex.by_underlying
     assert row.underlying == "STKX" and row.corrections == pytest.approx(ex.total.corrections)
     assert np.isfinite(ex.total.unexplained)
+
+
+def test_cli_shows_corrections_on_their_own_line(
+    period_store: tuple[object, dict[str, int]],
+) -> None:
+    """``blotter explain`` prints the late bookings and corrections line, with the trade ids, and
+    its JSON carries ``corrections`` per row; the numbers are the library's."""
+    import json
+
+    from click.testing import CliRunner
+
+    from blotter.cli import main
+
+    st, ids = period_store
+    ex = explain(st)
+    db = str(st.path)  # type: ignore[attr-defined]
+    text = CliRunner().invoke(main, ["explain", "--db", db], catch_exceptions=False).stdout
+    assert "late bookings and corrections (in actual)" in text
+    assert f"late-booked trade ids: {ids['replacement']}" in text
+    out = json.loads(
+        CliRunner().invoke(main, ["explain", "--db", db, "--json"], catch_exceptions=False).stdout
+    )
+    assert out["total"]["corrections"] == pytest.approx(ex.total.corrections, rel=1e-12)
+    assert sorted(out["corrected_trades"]) == sorted([ids["cancelled"], ids["amended"]])
