@@ -87,7 +87,8 @@ TRADE_COLUMNS = (
 
 TRADE_INFO_COLUMNS = ("trade_id", "state", "who", "source", "booked_at", "contract")
 """Columns ``trade list --csv`` adds after the import columns; an import ignores them, except that
-``state`` must be ``live``."""
+``state`` must be ``live`` and a ``trade_id`` must not be a trade already in the book (that row
+is an export of it: importing it again would double the position)."""
 
 TRADE_REQUIRED = ("book", "symbol", "type", "quantity", "price", "trade_time")
 """Trade CSV columns that must be present (the others may be left out)."""
@@ -1874,19 +1875,22 @@ class Store:
         )
         with self._read() as conn:
             unders = {r[1]: r for r in self._underlying_rows(conn)}
-        problems: list[_Problem] = []
+            self._check_not_imported(conn, "trades", digest, p)  # the clearer message first
+            problems = self._trade_id_problems(conn, rows)
         parsed: list[tuple[Any, ...]] = []
         now = _now()
         for line, rec in rows:
             item = _parse_trade_row(line, rec, unders, now, problems)
             if item is not None:
                 parsed.append(item)
+        problems.sort(key=lambda q: q.line)
         _raise_if(p, problems)
         if not parsed:
             raise StoreError(f"{p.name}: nothing imported; the file has no trade rows")
         source = f"file:{p.name}"
         with self._write() as conn:
             self._check_not_imported(conn, "trades", digest, p)
+            _raise_if(p, self._trade_id_problems(conn, rows))  # again, under the write lock
             booked = _ts(now)
             ids: list[int] = []
             contract_cache: dict[tuple[Any, ...], int] = {}
@@ -1976,6 +1980,46 @@ class Store:
             first_id=set_id,
             last_id=set_id,
         )
+
+    @staticmethod
+    def _trade_id_problems(
+        conn: sqlite3.Connection, rows: list[tuple[int, dict[str, str]]]
+    ) -> list[_Problem]:
+        """Problems of the ``trade_id`` cells (an export's): a row naming a trade already in this
+        book is that trade again, and importing it would double the position; an id given twice
+        or not a whole number is named too. Empty cells (and no column) are new trades."""
+        problems: list[_Problem] = []
+        first_line: dict[int, int] = {}
+        for line, rec in rows:
+            text = _cell(rec, "trade_id")
+            if not text:
+                continue
+            if not re.fullmatch(r"[0-9]{1,18}", text):
+                problems.append(_Problem(line, "trade_id", f"{text!r} is not a trade id"))
+            elif int(text) in first_line:
+                problems.append(
+                    _Problem(line, "trade_id", f"the same trade as line {first_line[int(text)]}")
+                )
+            else:
+                first_line[int(text)] = line
+        ids = sorted(first_line)
+        for start in range(0, len(ids), 500):
+            chunk = ids[start : start + 500]
+            found = conn.execute(
+                f"SELECT trade_id FROM trade WHERE trade_id IN ({','.join('?' * len(chunk))})",
+                chunk,
+            ).fetchall()
+            for (tid,) in found:
+                problems.append(
+                    _Problem(
+                        first_line[tid],
+                        "trade_id",
+                        f"trade {tid} is already in this book (the row is an export of it; "
+                        "importing it again would double the position). To book the rows as "
+                        "new trades, leave the trade_id column out",
+                    )
+                )
+        return sorted(problems, key=lambda q: q.line)
 
     @staticmethod
     def _check_not_imported(conn: sqlite3.Connection, kind: str, digest: str, p: Path) -> None:

@@ -168,6 +168,20 @@ def test_marks_logged_closed_and_listed(demo_db: Path) -> None:
     assert "vol, decimal" in run("mark", "list", "--db", db).stdout
 
 
+def _fresh_book_with_underlyings_of(source: Path, path: Path) -> None:
+    """A new book at ``path`` holding only the underlyings of ``source`` (no trades or marks)."""
+    import sqlite3
+
+    from blotter.store import create_store
+
+    create_store(path).close()
+    raw = sqlite3.connect(path)
+    raw.execute("ATTACH DATABASE ? AS src", (str(source),))
+    raw.execute("INSERT INTO underlying SELECT * FROM src.underlying")
+    raw.commit()
+    raw.close()
+
+
 def test_list_csv_imports_back_unchanged_through_the_commands(
     demo_db: Path, tmp_path: Path, demo_master: Path
 ) -> None:
@@ -194,8 +208,11 @@ def test_list_csv_imports_back_unchanged_through_the_commands(
     assert ",'=SUM(A1:A9)," in exported  # neutralised for spreadsheets
     path = tmp_path / "trades.csv"
     path.write_text(exported)
+    same = run("trade", "import", str(path), "--db", db, code=1)  # into its own book: refused
+    assert "line 2, column 'trade_id': trade" in same.stderr and "already in this book" in same.stderr
+    assert run("trade", "list", "--csv", "--db", db).stdout == exported
     other = tmp_path / "other.db"
-    other.write_bytes(demo_master.read_bytes())  # the same underlyings
+    _fresh_book_with_underlyings_of(demo_master, other)
     out = run("trade", "import", str(path), "--db", str(other), "--json").stdout
     mine = list(csv.reader(io.StringIO(exported)))
     assert json.loads(out)["rows"] == len(mine) - 1

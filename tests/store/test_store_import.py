@@ -306,3 +306,40 @@ def test_fuzzed_mark_files_import_whole_or_raise_our_error(
         assert _count(s) == (0, 0, 0)
     assert not s.in_transaction() and s.integrity_ok()
     s.close()
+
+
+def test_an_export_imported_into_its_own_book_is_refused_by_trade_id(
+    demo_db: Path, tmp_path: Path
+) -> None:
+    with open_store(demo_db) as s:
+        trades = s.trades(live_only=True)
+        out = tmp_path / "trades.csv"
+        out.write_text(
+            _export([trade_csv_row(t) for t in trades], TRADE_COLUMNS + TRADE_INFO_COLUMNS)
+        )
+        before = _count(s), s.load_book().quantities.tolist()
+        with pytest.raises(CsvImportError) as info:
+            s.import_trades_csv(out)
+        assert info.value.total == len(trades)  # every row is already in the book
+        first = info.value.problems[0]
+        assert (first.line, first.column) == (2, "trade_id")
+        assert f"trade {trades[0].trade_id} is already in this book" in first.message
+        assert "line 2, column 'trade_id'" in str(info.value)
+        assert (_count(s), s.load_book().quantities.tolist()) == before  # nothing landed
+
+
+def test_a_trade_id_given_twice_or_not_a_number_is_named(store: Store, tmp_path: Path) -> None:
+    path = tmp_path / "t.csv"
+    path.write_text(
+        "book,symbol,type,quantity,price,trade_time,trade_id\n"
+        "main,TSTA,U,1,100,2026-01-05T15:00:00Z,7\n"
+        "main,TSTA,U,1,100,2026-01-05T15:00:00Z,7\n"
+        "main,TSTA,U,1,100,2026-01-05T15:00:00Z,x\n"
+        "main,TSTA,U,1,100,2026-01-05T15:00:00Z,\n"
+    )
+    with pytest.raises(CsvImportError) as info:
+        store.import_trades_csv(path)
+    got = [(p.line, p.column) for p in info.value.problems]
+    assert got == [(3, "trade_id"), (4, "trade_id")]
+    assert "line 2" in info.value.problems[0].message
+    assert _count(store) == (0, 0, 0)
