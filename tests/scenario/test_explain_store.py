@@ -10,6 +10,7 @@ correction P&L); held + new = the end book is bookkeeping (common practice).
 from __future__ import annotations
 
 from datetime import UTC, datetime
+from inspect import signature
 from pathlib import Path
 
 import numpy as np
@@ -42,8 +43,10 @@ def period_store(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[objec
         st.log_rate("USD", tenor, RATE)
     st.log_spot("STKX", S0)
     st.log_vol("STKX", EXPIRY, V0)
+    # The first trade starts the book (explicitly where the store asks for it).
+    first = {"create_book": True} if "create_book" in signature(st.add_trade).parameters else {}
     ids = {
-        "long": st.add_trade("main", "STKX", 10, 5.0, EXPIRY, 100.0, True),
+        "long": st.add_trade("main", "STKX", 10, 5.0, EXPIRY, 100.0, True, **first),
         "cancelled": st.add_trade("main", "STKX", 5, 3.0, EXPIRY, 95.0, False),
         "amended": st.add_trade("main", "STKX", -3, 1.0, EXPIRY, 110.0, True),
     }
