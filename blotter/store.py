@@ -1012,6 +1012,30 @@ class Store:
             raise StoreError(f"book name {name!r} must be 1 to 64 characters")
         return int(conn.execute("INSERT INTO book (name) VALUES (?)", (name,)).lastrowid or 0)
 
+    def _known_book_id(self, conn: sqlite3.Connection, name: str, create: bool, hint: str) -> int:
+        """The id of book ``name``; a new book only when ``create``, else ``StoreError`` naming
+        the books there are and ``hint`` (how to start a new one on purpose)."""
+        book_id = self._book_id(conn, name, create=create)
+        if book_id is None:
+            books = self.book_names_in(conn)
+            raise StoreError(
+                f"no book named {name!r} (books: {', '.join(books) if books else 'none yet'}); "
+                f"{hint}"
+            )
+        return book_id
+
+    def add_book(self, name: str, description: str = "") -> int:
+        """Start a new book (desk account) and return its id; refused if it exists."""
+        with self._write() as conn:
+            if self._book_id(conn, name, create=False) is not None:
+                raise StoreError(f"book {name!r} already exists")
+            if not name or len(name) > 64:
+                raise StoreError(f"book name {name!r} must be 1 to 64 characters")
+            cur = conn.execute(
+                "INSERT INTO book (name, description) VALUES (?, ?)", (name, description)
+            )
+            return int(cur.lastrowid or 0)
+
     def _underlying(self, conn: sqlite3.Connection, symbol: str) -> tuple[Any, ...]:
         row = conn.execute(
             "SELECT underlying_id, multiplier, american, cash_settled, cutoff_time, kind "
@@ -1130,12 +1154,14 @@ class Store:
         multiplier: float | None = None,
         cash_settled: bool | None = None,
         contract_id: int | None = None,
+        create_book: bool = False,
     ) -> int:
         """Book a trade and return its id. ``quantity`` signed contracts (shares for a hedge).
 
         The contract is ``contract_id`` when given, else found or created from ``symbol``,
         ``expiry``, ``strike``, ``is_call`` (all three None for the underlying itself).
         ``price`` per unit of underlying; ``trade_time`` defaults to now and may not be later.
+        ``book`` must exist unless ``create_book`` (so a mistyped name never starts a book).
         """
         qty = _check_quantity(quantity)
         px = _check_price(price)
@@ -1145,7 +1171,9 @@ class Store:
             raise StoreError(f"trade time {t.isoformat()} is in the future")
         _check_source(source)
         with self._write() as conn:
-            book_id = self._book_id(conn, book, create=True)
+            book_id = self._known_book_id(
+                conn, book, create_book, "to start a new book give create_book=True (--new-book)"
+            )
             if contract_id is None:
                 cid = self._contract_id(
                     conn, symbol, expiry, strike, is_call, american, multiplier, cash_settled
@@ -1237,7 +1265,10 @@ class Store:
                 raise StoreError(f"trade time {t.isoformat()} is in the future")
             cid = old_cid if contract_id is None else self._existing_contract(conn, contract_id)
             self._check_not_expired(conn, cid, t)
-            book_id = self._book_id(conn, old_book if book is None else book, create=True)
+            book_id = self._known_book_id(
+                conn, old_book if book is None else book, False, "an amend moves a trade only "
+                "to a book that exists"
+            )
             new_note = old_note if note is None else note
             same_book = book is None or book == old_book
             if same_book and (qty, px, _ts(t), cid, new_note) == (
@@ -1862,12 +1893,17 @@ class Store:
     # ---- CSV imports
 
     def import_trades_csv(
-        self, path: str | os.PathLike[str], progress: Callable[[int], None] | None = None
+        self,
+        path: str | os.PathLike[str],
+        progress: Callable[[int], None] | None = None,
+        *,
+        new_books: bool = False,
     ) -> ImportReport:
         """Import a trade CSV (``TRADE_COLUMNS``) as one transaction: all rows or none.
 
         Every row is checked before anything is written; problems name the line and column
         (up to ``MAX_PROBLEMS`` at once). A file already imported (same content) is refused.
+        A row's book must exist unless ``new_books`` (then the file may start new books).
         ``progress(rows_written)`` is called every ``PROGRESS_EVERY`` rows.
         """
         p, data, digest, header, rows = _read_csv(
@@ -1877,6 +1913,21 @@ class Store:
             unders = {r[1]: r for r in self._underlying_rows(conn)}
             self._check_not_imported(conn, "trades", digest, p)  # the clearer message first
             problems = self._trade_id_problems(conn, rows)
+            books = self.book_names_in(conn)
+        if not new_books:
+            known = set(books)
+            for line, rec in rows:
+                name = _cell(rec, "book")
+                if name and name not in known:
+                    problems.append(
+                        _Problem(
+                            line,
+                            "book",
+                            f"no book named {name!r} (books: "
+                            f"{', '.join(books) if books else 'none yet'}); import with "
+                            "--new-books to start new books",
+                        )
+                    )
         parsed: list[tuple[Any, ...]] = []
         now = _now()
         for line, rec in rows:
@@ -1913,7 +1964,9 @@ class Store:
                 if cid is None:
                     cid = self._contract_id(conn, symbol, expiry, strike, is_call, am, mult, cash)
                     contract_cache[key] = cid
-                book_id = self._book_id(conn, book, create=True)
+                book_id = self._known_book_id(
+                    conn, book, new_books, "import with --new-books to start new books"
+                )
                 cur = conn.execute(
                     "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, "
                     "booked_at, who, source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",

@@ -126,7 +126,14 @@ def trade() -> None:
 @click.option("--expiry", help="Option expiry date, YYYY-MM-DD (leave out for the underlying).")
 @click.option("--strike", type=float, help="Option strike, in the underlying's price units.")
 @click.option("--call/--put", "is_call", default=None, help="Call or put (options only).")
-@click.option("--book", default="main", show_default=True, help="Book (desk account).")
+@click.option(
+    "--book",
+    help="Book (desk account); it must exist. Default: the file's only book (required when the "
+    "file has several).",
+)
+@click.option(
+    "--new-book", is_flag=True, help="Start --book as a new book (else an unknown book is refused)."
+)
 @click.option(
     "--time", "trade_time", help=f"When it was dealt, {TIME_HELP}; default now."
 )
@@ -150,7 +157,8 @@ def trade_add(
     expiry: str | None,
     strike: float | None,
     is_call: bool | None,
-    book: str,
+    book: str | None,
+    new_book: bool,
     trade_time: str | None,
     note: str,
     american: bool | None,
@@ -159,9 +167,26 @@ def trade_add(
     as_json: bool,
     db_path: str | None,
 ) -> None:
-    """Book a trade in SYMBOL: an option (--expiry, --strike, --call/--put) or SYMBOL itself."""
+    """Book a trade in SYMBOL: an option (--expiry, --strike, --call/--put) or SYMBOL itself.
+
+    The book must exist (--new-book starts one); with no --book, the file's only book is used.
+    """
+    from blotter.store import ReadOnlyError
+
     when = _time_option(trade_time)
+    if new_book and book is None:
+        raise click.UsageError("--new-book needs --book NAME (the book to start)")
     with _store(db_path) as store:
+        if store.read_only:
+            raise ReadOnlyError()
+        if book is None:
+            books = store.book_names()
+            if len(books) != 1:
+                raise click.UsageError(
+                    f"give --book: this file has {len(books)} books "
+                    f"({', '.join(books) if books else 'none yet; start one with --new-book'})"
+                )
+            book = books[0]
         tid = store.add_trade(
             book,
             symbol,
@@ -175,8 +200,9 @@ def trade_add(
             american=american,
             multiplier=multiplier,
             cash_settled=cash_settled,
+            create_book=new_book,
         )
-    _emit(as_json, {"trade_id": tid}, f"booked trade {tid}")
+    _emit(as_json, {"trade_id": tid, "book": book}, f"booked trade {tid} in book {book}")
 
 
 @trade.command("cancel")
@@ -198,7 +224,7 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.option("--price", type=float, help="New price per unit of underlying.")
 @click.option("--time", "trade_time", help=f"New deal time, {TIME_HELP}.")
 @click.option("--note", help="New note.")
-@click.option("--book", help="Move to this book.")
+@click.option("--book", help="Move to this book (it must exist).")
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
 def trade_amend(
@@ -233,12 +259,21 @@ def trade_amend(
 
 @trade.command("import")
 @click.argument("file", type=click.Path(dir_okay=False))
+@click.option(
+    "--new-books",
+    is_flag=True,
+    help="Let the file start books it names (else a row naming an unknown book is a problem).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print what was imported as JSON.")
 @db_option
-def trade_import(file: str, as_json: bool, db_path: str | None) -> None:
-    """Import trades from a CSV FILE (the `trade list --csv` format): every row or none."""
+def trade_import(file: str, new_books: bool, as_json: bool, db_path: str | None) -> None:
+    """Import trades from a CSV FILE (the `trade list --csv` format): every row or none.
+
+    Each row's book must exist unless --new-books; a row whose trade_id is already in the book
+    (an export of this book) is refused, since importing it again would double the position.
+    """
     with _store(db_path) as store:
-        rep = store.import_trades_csv(file)
+        rep = store.import_trades_csv(file, new_books=new_books)
     _emit(
         as_json,
         {
@@ -293,6 +328,10 @@ def trade_list(
     check_output_flags(as_json, as_csv)
     lo, hi = _time_option(since), _time_option(until)
     with _store(db_path, read_only=True) as store:
+        if book is not None and book not in (books := store.book_names()):
+            raise click.ClickException(
+                f"no book named {book!r} (books: {', '.join(books) if books else 'none yet'})"
+            )
         rows = store.trades(book=book, since=lo, until=hi, live_only=not show_all)
     if as_csv:
         print_csv(TRADE_COLUMNS + TRADE_INFO_COLUMNS, (trade_csv_row(t) for t in rows))

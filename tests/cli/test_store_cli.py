@@ -44,6 +44,8 @@ def test_trade_add_cancel_amend_and_list(demo_db: Path) -> None:
         "--call",
         "--note",
         "opening",
+        "--book",
+        "equity-vol",
         "--db",
         db,
         "--json",
@@ -62,6 +64,7 @@ def test_trade_add_cancel_amend_and_list(demo_db: Path) -> None:
             "181.5",
             "--book",
             "hedges",
+            "--new-book",
             "--json",
         ).stdout
     )["trade_id"]
@@ -85,11 +88,13 @@ def test_trade_add_cancel_amend_and_list(demo_db: Path) -> None:
 def test_errors_exit_non_zero_with_a_message_and_change_nothing(demo_db: Path) -> None:
     db = str(demo_db)
     before = run("trade", "list", "--csv", "--all", "--db", db).stdout
+    book = ("--book", "equity-vol")
     for args, message in [
-        (("trade", "add", "NOPE", "--qty", "1", "--price", "1"), "unknown underlying"),
-        (("trade", "add", "DEMOA", "--qty", "0", "--price", "1"), "must not be zero"),
+        (("trade", "add", "NOPE", "--qty", "1", "--price", "1", *book), "unknown underlying"),
+        (("trade", "add", "DEMOA", "--qty", "0", "--price", "1", *book), "must not be zero"),
         (
-            ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--expiry", "2027-03-19"),
+            ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", *book)
+            + ("--expiry", "2027-03-19"),
             "needs an expiry, a strike and call or put",
         ),
         (("trade", "cancel", "99999", "--reason", "x"), "no trade 99999"),
@@ -109,6 +114,7 @@ def test_errors_exit_non_zero_with_a_message_and_change_nothing(demo_db: Path) -
         "1",
         "--time",
         "20/11/2026 10:00",
+        *book,
         "--db",
         db,
         code=2,
@@ -201,6 +207,8 @@ def test_list_csv_imports_back_unchanged_through_the_commands(
         "--put",
         "--note",
         "=SUM(A1:A9)",
+        "--book",
+        "equity-vol",
         "--db",
         db,
     )
@@ -209,11 +217,14 @@ def test_list_csv_imports_back_unchanged_through_the_commands(
     path = tmp_path / "trades.csv"
     path.write_text(exported)
     same = run("trade", "import", str(path), "--db", db, code=1)  # into its own book: refused
-    assert "line 2, column 'trade_id': trade" in same.stderr and "already in this book" in same.stderr
+    assert "line 2, column 'trade_id': trade" in same.stderr
+    assert "already in this book" in same.stderr
     assert run("trade", "list", "--csv", "--db", db).stdout == exported
     other = tmp_path / "other.db"
     _fresh_book_with_underlyings_of(demo_master, other)
-    out = run("trade", "import", str(path), "--db", str(other), "--json").stdout
+    unknown = run("trade", "import", str(path), "--db", str(other), code=1)  # a file of no books
+    assert "line 2, column 'book': no book named 'equity-vol' (books: none yet)" in unknown.stderr
+    out = run("trade", "import", str(path), "--new-books", "--db", str(other), "--json").stdout
     mine = list(csv.reader(io.StringIO(exported)))
     assert json.loads(out)["rows"] == len(mine) - 1
     header = mine[0]
@@ -240,8 +251,8 @@ def test_bad_import_names_line_and_column_and_exits_1(demo_db: Path, tmp_path: P
     path = tmp_path / "bad.csv"
     path.write_text(
         "book,symbol,type,expiry,strike,quantity,price,trade_time\n"
-        "main,DEMOA,C,2027-03-19,190,1,2.5,2026-11-20T15:00:00Z\n"
-        "main,DEMOA,C,2027-03-19,190,1,-2.5,2026-11-20T15:00:00Z\n"
+        "equity-vol,DEMOA,C,2027-03-19,190,1,2.5,2026-11-20T15:00:00Z\n"
+        "equity-vol,DEMOA,C,2027-03-19,190,1,-2.5,2026-11-20T15:00:00Z\n"
     )
     r = run("trade", "import", str(path), "--db", str(demo_db), code=1)
     assert "bad.csv: nothing imported; 1 problem:" in r.stderr
@@ -316,7 +327,8 @@ def test_trade_add_time_without_a_zone_is_desk_local_time(
 
     monkeypatch.setenv("BLOTTER_TZ", tz)
     db = str(demo_db)
-    args = ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--db", db, "--json")
+    args = ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "index-vol")
+    args += ("--db", db, "--json")
     tid = json.loads(run(*args, "--time", "2026-11-20T10:00").stdout)["trade_id"]
     zoned = json.loads(run(*args, "--time", "2026-11-20T10:00:00-05:00").stdout)["trade_id"]
     with open_store(demo_db, read_only=True) as s:
@@ -368,3 +380,31 @@ def test_read_only_without_db_opens_the_existing_users_copy(tmp_path: Path, ship
     assert str(copy) in r.stderr and str(shipped) not in r.stderr
     spots = [m for m in json.loads(r.stdout) if m["kind"] == "spot" and m["symbol"] == "DEMOA"]
     assert spots[0]["value"] == 190.0
+
+
+def test_trade_add_books_only_into_a_book_that_exists(
+    demo_db: Path, tmp_path: Path, demo_master: Path
+) -> None:
+    db = str(demo_db)
+    add = ("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--db", db)
+    before = run("trade", "list", "--csv", "--all", "--db", db).stdout
+    r = run(*add, "--book", "equity-voll", code=1)  # mistyped
+    assert "no book named 'equity-voll' (books: equity-vol, index-vol)" in r.stderr
+    r = run(*add, code=2)  # two books: which one?
+    assert "give --book: this file has 2 books (equity-vol, index-vol)" in r.stderr
+    assert run(*add, "--new-book", code=2).exit_code == 2  # --new-book names no book
+    assert run("trade", "list", "--csv", "--all", "--db", db).stdout == before
+    r = run("trade", "list", "--book", "equity-voll", "--db", db, code=1)
+    assert "no book named 'equity-voll'" in r.stderr
+    made = json.loads(run(*add, "--book", "rates", "--new-book", "--json").stdout)
+    assert made["book"] == "rates"
+    with open_store(demo_db, read_only=True) as s:
+        assert s.book_names() == ["equity-vol", "index-vol", "rates"]
+
+    one = tmp_path / "one.db"
+    _fresh_book_with_underlyings_of(demo_master, one)
+    add_one = ("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--db", str(one))
+    assert "none yet; start one with --new-book" in run(*add_one, code=2).stderr
+    run(*add_one, "--book", "solo", "--new-book")
+    again = json.loads(run(*add_one, "--json").stdout)  # the file's only book is the default
+    assert again["book"] == "solo"

@@ -26,8 +26,14 @@ def spawn(*args: str, **kw: object) -> subprocess.Popen[str]:
     )  # type: ignore[call-overload]
 
 
+TEST_BOOKS = ("main", "hedge", "imp")
+"""Books ``add_underlyings`` starts (a trade goes only to a book that exists)."""
+
+
 def add_underlyings(store: object) -> None:
-    """Two invented underlyings for tests on an empty book."""
+    """Two invented underlyings and the books ``TEST_BOOKS`` for tests on an empty book."""
+    for name in TEST_BOOKS:
+        store.add_book(name)  # type: ignore[attr-defined]
     store.add_underlying("TSTA", "stock", "USD", 100, description="test stock (invented)")  # type: ignore[attr-defined]
     store.add_underlying(
         "TSTX",

@@ -303,7 +303,7 @@ def test_user_input_is_stored_literally_never_run_as_sql(tmp_book: Path) -> None
     evil = "x'); DROP TABLE trade;--"
     with open_store(tmp_book) as s:
         s.add_underlying(evil, "stock", "USD", 100)
-        tid = s.add_trade(evil, evil, 1, 1.0, note=evil)
+        tid = s.add_trade(evil, evil, 1, 1.0, note=evil, create_book=True)
         s.log_spot(evil, 10.0)
         assert s.load_book(evil).labels == (evil,)
         rec = s.trades()[0]
@@ -361,3 +361,18 @@ def test_correcting_an_older_close_keeps_its_own_points_not_todays_marks(store: 
     live = store.load_market()  # the correction of an old day does not roll today's marks back
     assert live.spots == {"TSTA": 99.5, "TSTX": 4100.0}
     assert list(live.surfaces["TSTA"].vols) == [0.27]
+
+
+def test_a_mistyped_book_is_refused_and_names_the_books(store: Store) -> None:
+    before = store.book_names()
+    with pytest.raises(StoreError, match=r"no book named 'mian' \(books: hedge, imp, main\)"):
+        store.add_trade("mian", "TSTA", 1, 100.0)
+    tid = store.add_trade("main", "TSTA", 1, 100.0)  # an existing book, as the trade form calls it
+    with pytest.raises(StoreError, match="no book named 'hegde'"):
+        store.amend_trade(tid, reason="move", book="hegde")
+    assert store.book_names() == before and [t.trade_id for t in store.trades()] == [tid]
+    new = store.add_trade("fx-hedges", "TSTA", 1, 100.0, create_book=True)  # on purpose
+    assert store.book_names() == sorted([*before, "fx-hedges"])
+    assert store.trades(book="fx-hedges")[0].trade_id == new
+    with pytest.raises(StoreError, match="already exists"):
+        store.add_book("main")

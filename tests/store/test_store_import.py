@@ -183,7 +183,7 @@ def test_trade_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) ->
     dst = create_store(tmp_path / "copy.db")
     for sym, kind, ccy, mult, am, cash in unders:
         dst.add_underlying(sym, kind, ccy, mult, american=bool(am), cash_settled=bool(cash))
-    dst.import_trades_csv(out)
+    dst.import_trades_csv(out, new_books=True)  # a fresh file has no books: the file starts them
     again = [trade_csv_row(t)[: len(TRADE_COLUMNS)] for t in dst.trades()]
     assert again == [trade_csv_row(t)[: len(TRADE_COLUMNS)] for t in trades]
     assert len(again) > 150
@@ -343,3 +343,20 @@ def test_a_trade_id_given_twice_or_not_a_number_is_named(store: Store, tmp_path:
     assert got == [(3, "trade_id"), (4, "trade_id")]
     assert "line 2" in info.value.problems[0].message
     assert _count(store) == (0, 0, 0)
+
+
+def test_an_unknown_book_is_a_row_problem_unless_new_books(store: Store, tmp_path: Path) -> None:
+    path = tmp_path / "t.csv"
+    path.write_text(
+        "book,symbol,type,quantity,price,trade_time\n"
+        "main,TSTA,U,1,100,2026-01-05T15:00:00Z\n"
+        "mian,TSTA,U,1,100,2026-01-05T15:00:00Z\n"
+    )
+    with pytest.raises(CsvImportError) as info:
+        store.import_trades_csv(path)
+    [problem] = info.value.problems
+    assert (problem.line, problem.column) == (3, "book")
+    assert "no book named 'mian' (books: hedge, imp, main)" in problem.message
+    assert _count(store) == (0, 0, 0) and "mian" not in store.book_names()
+    rep = store.import_trades_csv(path, new_books=True)
+    assert rep.rows == 2 and "mian" in store.book_names()
