@@ -1198,13 +1198,17 @@ class Store:
 
     @staticmethod
     def _check_not_expired(conn: sqlite3.Connection, contract_id: int, t: datetime) -> None:
+        """Refuse a trade dealt after the contract's cut-off instant (its expiry date at its
+        cut-off time in the exchange's time zone); ``schema.sql`` keeps only a coarse backstop."""
         row = conn.execute(
-            "SELECT expiry FROM contract WHERE contract_id = ?", (contract_id,)
+            "SELECT c.expiry, c.cutoff_time, u.time_zone FROM contract c "
+            "JOIN underlying u USING (underlying_id) WHERE c.contract_id = ?",
+            (contract_id,),
         ).fetchone()
-        if row and row[0] and row[0] < t.date().isoformat():
-            raise StoreError(
-                f"the contract expired on {row[0]}, before the trade date {t.date().isoformat()}"
-            )
+        if row and row[0]:
+            problem = _after_cutoff(t, row[0], row[1], row[2])
+            if problem:
+                raise StoreError(problem)
 
     def cancel_trade(self, trade_id: int, reason: str) -> int:
         """Cancel a live trade (a new row naming it and why); returns the cancel's id."""
@@ -2109,6 +2113,18 @@ class Store:
 # Validation helpers (raise StoreError with a plain message)
 
 
+def _after_cutoff(t: datetime, expiry: str, cutoff: str, tz_name: str) -> str | None:
+    """Why a trade dealt at ``t`` (aware) is too late for a contract expiring on ``expiry`` at
+    local ``cutoff`` in ``tz_name``, or None when it was dealt at or before that instant."""
+    end = _cutoff_utc(expiry, cutoff, tz_name)
+    if t <= end:
+        return None
+    return (
+        f"the contract expired at {expiry} {cutoff} {tz_name} ({_ts(end)}): the trade time "
+        f"{_ts(t)} is after the contract's cut-off"
+    )
+
+
 def _check_symbol(symbol: str) -> None:
     if not isinstance(symbol, str) or not symbol.strip() or len(symbol) > 64:
         raise StoreError(f"symbol {symbol!r} must be 1 to 64 characters")
@@ -2346,8 +2362,10 @@ def _parse_trade_row(
         t = parse_time(_cell(rec, "trade_time"))
         if t > now:
             bad("trade_time", f"{t.isoformat()} is in the future")
-        elif expiry is not None and t.date().isoformat() > expiry:
-            bad("trade_time", f"trade date {t.date().isoformat()} is after the expiry {expiry}")
+        elif expiry is not None and symbol in unders:
+            late = _after_cutoff(t, expiry, unders[symbol][13], unders[symbol][12])
+            if late:
+                bad("trade_time", late)
     except StoreError as exc:
         bad("trade_time", str(exc))
     style = _cell(rec, "style").lower()

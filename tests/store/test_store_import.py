@@ -81,7 +81,7 @@ def test_negative_price_on_line_181_of_250_imports_nothing(store: Store, tmp_pat
         (lambda r: r.replace(",2,", ",0,"), 3, "quantity", "must not be zero"),
         (lambda r: r.replace(",C,", ",X,"), 3, "type", "is not C (call), P (put) or U"),
         (lambda r: r.replace("Z", ""), 3, "trade_time", "no time zone"),
-        (lambda r: r.replace("2030-06-21", "2025-06-20"), 3, "trade_time", "after the expiry"),
+        (lambda r: r.replace("2030-06-21", "2025-06-20"), 3, "trade_time", "after the contract's"),
     ],
 )
 def test_each_bad_cell_is_named(
