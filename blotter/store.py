@@ -1822,21 +1822,21 @@ class Store:
                 if done:
                     raise StoreError(f"close set {corrects} was already corrected by set {done[0]}")
             if corrects is None:
-                rows = conn.execute(self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE))
+                cur = conn.execute(self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE))
             else:
                 # the corrected set's own points, overlaid with the intraday points logged since
                 # the newest close (the fixes): never the marks other closes copied
                 since = conn.execute(
                     "SELECT max(mark_set_id) FROM mark_set WHERE kind = 'close'"
                 ).fetchone()[0]
-                rows = conn.execute(
+                cur = conn.execute(
                     self._IN_FORCE_SQL.format(
                         where="WHERE s.mark_set_id = ? OR (s.kind = 'intraday' "
                         "AND s.mark_set_id > ?)"
                     ),
                     (int(corrects), int(since)),
                 )
-            rows = rows.fetchall()
+            rows = cur.fetchall()
             if not rows:
                 raise StoreError("there are no marks to commit as a close")
             set_id = self._new_mark_set(
