@@ -304,7 +304,7 @@ TRADE_TABLE = (
 @trade.command("list")
 @click.option("--book", help="Only this book.")
 @click.option("--since", help=f"Only trades dealt after this instant ({TIME_HELP}).")
-@click.option("--until", help="Only trades dealt at or before this instant.")
+@click.option("--until", help=f"Only trades dealt at or before this instant ({TIME_HELP}).")
 @click.option(
     "--all",
     "show_all",
