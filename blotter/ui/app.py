@@ -310,6 +310,11 @@ class BlotterApp(App[None]):
             return
         last: int | None = None
         try:
+            # The baseline is taken at once, so a commit before the first tick is still seen.
+            last = int(st.data_version())
+        except Exception:  # noqa: BLE001 - a busy file: the first tick takes the baseline
+            last = None
+        try:
             while not worker.is_cancelled and not self._stop_watch.wait(interval_s):
                 try:
                     version = int(st.data_version())

@@ -133,8 +133,52 @@ def test_app_in_tmux_80x24(session: Tmux) -> None:
     session.send("F7")
     session.wait_for(lambda s: "Ladder: full revaluation P&L" in s and "▼" in s, "the ladder")
     session.send("F1")
-    session.wait_for(lambda s: "blotter help" in s and "history-back" in s, "the help screen")
+    session.wait_for(lambda s: "blotter help" in s and "what-if" in s, "the help screen")
     session.send("F1")
     session.wait_for(lambda s: "Σ total" in s, "the book again")
     session.send("F10")
     session.wait_for(lambda s: "Σ total" not in s, "the app to quit")
+
+
+def test_close_flow_in_tmux_80x24(demo_db: Path, tmp_path: Path) -> None:
+    """Type a spot mark on the Marks screen, review the close, write it; the file has the set."""
+    from blotter import store
+
+    name = f"blotter-close-{uuid.uuid4().hex[:8]}"
+    command = (
+        f"unset BLOTTER_CONFIG; env TERM=screen-256color XDG_CONFIG_HOME={tmp_path} "
+        f"{_blotter()} --db {demo_db}; sleep 5"
+    )
+    session = Tmux(name)
+    session.tmux("new-session", "-d", "-s", name, "-x", "80", "-y", "24", command)
+    try:
+        session.wait_for(lambda s: "Σ total" in s, "the book")
+        session.until_keys_arrive()
+        session.send("m")
+        screen = session.wait_for(lambda s: "Marks: " in s and "DEMOA spot" in s, "the marks")
+        assert all(len(line) <= 80 for line in screen.splitlines())
+        session.send("183.25", literal=True)
+        session.send("Enter")
+        session.wait_for(lambda s: "✓ DEMOA spot marked 183.25" in s, "the typed mark written")
+        session.send("c")
+        screen = session.wait_for(lambda s: "Commit close:" in s, "the close review")
+        assert "DEMOA spot 180.67 → 183.25" in screen
+        session.send("y")
+        session.wait_for(lambda s: "✓ close set" in s and "written" in s, "the close written")
+        st = store.open_store(demo_db, read_only=True)
+        try:
+            last = st.mark_sets(kind="close")[-1]
+            spot = next(
+                m.value for m in st.marks(last.id) if m.kind == "spot" and m.symbol == "DEMOA"
+            )
+        finally:
+            st.close()
+        assert spot == 183.25
+        session.send("q")
+        session.wait_for(lambda s: "Σ total" in s and "Marks: " not in s, "the book again")
+        session.send("F10")
+        session.wait_for(lambda s: "Σ total" not in s, "the app to quit")
+    finally:
+        session.tmux("kill-server", check=False)  # our own server only (-L)
+        socket_dir = Path(os.environ.get("TMUX_TMPDIR") or "/tmp") / f"tmux-{os.getuid()}"
+        (socket_dir / session.socket).unlink(missing_ok=True)

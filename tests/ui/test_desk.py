@@ -96,7 +96,7 @@ async def test_a_refused_value_keeps_what_was_typed(demo_db: Path) -> None:
         await settle(app, pilot)
         assert "refused" in message(app) and "spot must be positive" in message(app)
         box = screen.query_one("#marks-edit")
-        assert box.value == "-5" and not box.has_class("-hidden")  # type: ignore[attr-defined]
+        assert box.value == "-5" and app.focused is box  # type: ignore[attr-defined]
         await pilot.press("backspace", "backspace", *"abc", "enter")
         await settle(app, pilot)
         assert "is not a number" in message(app)
@@ -499,7 +499,7 @@ async def test_read_only_app_cannot_write(demo_db: Path) -> None:
             await settle(app, pilot)
             assert isinstance(app.screen, MarksScreen)
             assert READ_ONLY_WORDS in message(app), key
-        assert screen.query_one("#marks-edit").has_class("-hidden")
+        assert screen.query_one("#marks-edit").disabled and screen.editing is None
         await pilot.press("q")
         trades = await open_trades(app, pilot)
         for action in ("add", "amend", "cancel_trade", "promote"):

@@ -51,6 +51,8 @@ class MarksScreen(DeskScreen):
         self.editing: data.MarkPoint | None = None
         self.last_write_s: float | None = None
         self.last_close_s: float | None = None
+        self.close_timing: list[tuple[float, float, float]] = []  # (key, worker start, painted)
+        self._close_started = (0.0, 0.0)
 
     def compose(self) -> ComposeResult:
         yield self.title_line("Marks: in force beside the last close")
@@ -58,7 +60,13 @@ class MarksScreen(DeskScreen):
             id="marks-table", classes="desk-table", cursor_type="row", zebra_stripes=True
         )
         yield table
-        yield Input(id="marks-edit", classes="desk-input -hidden", select_on_focus=False)
+        yield Input(
+            id="marks-edit",
+            classes="desk-input",
+            select_on_focus=False,
+            placeholder="type a number on a row to edit its mark",
+            disabled=self.blotter.read_only,
+        )
         yield Static("", classes="desk-message")
         yield Footer()
 
@@ -72,8 +80,9 @@ class MarksScreen(DeskScreen):
 
     # -- reading ---------------------------------------------------------------------------------
     @work(thread=True, exclusive=True, group="marks-load", exit_on_error=False)
-    def load(self) -> None:
-        """Read the marks in force and the last close in this thread's own store."""
+    def load(self, review: bool = False) -> None:
+        """Read the marks in force and the last close in this thread's own store; with
+        ``review`` the close review follows."""
         worker = get_current_worker()
         try:
             st = open_store(self.app, read_only=True)
@@ -87,7 +96,7 @@ class MarksScreen(DeskScreen):
                 self.post_message(Done("marks-load", False, f"cannot read the marks: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("marks-load", True, "", view))
+            self.post_message(Done("marks-review" if review else "marks-load", True, "", view))
 
     def show(self, view: data.MarksView) -> None:
         """Fill the table with ``view`` keeping the cursor on the same point."""
@@ -139,42 +148,52 @@ class MarksScreen(DeskScreen):
             return
         self.editing = point
         box = self.query_one("#marks-edit", Input)
-        box.remove_class("-hidden")
         box.border_title = f"{point.label.strip()} ({point.unit()}); Enter writes, F10 leaves"
         box.value = first
         box.cursor_position = len(first)
-        box.focus()
+        self.set_focus(box)  # at once, so the rest of a typed burst lands in the box
 
     def on_key(self, event: events.Key) -> None:
         """A digit, ".", "-" or "$" typed on the table starts editing the cell with it."""
         if not event.character or self.blotter.read_only:
             return
         table = self.query_one("#marks-table", DataTable)
+        box = self.query_one("#marks-edit", Input)
         if self.focused is table and (event.character.isdigit() or event.character in ".-$"):
             event.stop()
             self.action_edit(event.character)
+        elif self.focused is box and self.editing is not None and event.is_printable:
+            # Keys of a fast burst were queued for the table before the focus moved (the box
+            # handles its own keys, so a printable key reaching here came that way).
+            event.stop()
+            box.insert_text_at_cursor(event.character)
 
     @on(DataTable.RowSelected, "#marks-table")
-    def _enter_on_row(self, event: DataTable.RowSelected) -> None:
+    async def _enter_on_row(self, event: DataTable.RowSelected) -> None:
         """Enter on the table edits the cell (the table takes Enter before the screen's keys)."""
         event.stop()
         if self.blotter.read_only:
             self.say(READ_ONLY_WORDS, bad=True)
             return
+        box = self.query_one("#marks-edit", Input)
+        if self.focused is box and self.editing is not None:
+            await box.action_submit()  # Enter at the end of a burst that was queued for the table
+            return
         self.action_edit()
 
     def action_back(self) -> None:
-        box = self.query_one("#marks-edit", Input)
-        if not box.has_class("-hidden"):
+        """From the edit line back to the table (what was typed is dropped), else to the book."""
+        if self.focused is self.query_one("#marks-edit", Input):
             self._close_editor()
             return
         self.dismiss()
 
     def _close_editor(self) -> None:
         box = self.query_one("#marks-edit", Input)
-        box.add_class("-hidden")
+        box.value = ""
+        box.border_title = ""
         self.editing = None
-        self.query_one("#marks-table", DataTable).focus()
+        self.set_focus(self.query_one("#marks-table", DataTable))
 
     @on(Input.Submitted, "#marks-edit")
     def _typed(self, event: Input.Submitted) -> None:
@@ -235,10 +254,9 @@ class MarksScreen(DeskScreen):
 
     # -- the close ---------------------------------------------------------------------------------
     def action_commit_close(self) -> None:
-        if self.view is None:
-            return
-        review = data.close_review(self.view, self.blotter.clock())
-        self.app.push_screen(CloseReviewScreen(review, self))
+        """Read the marks afresh (the last typed one may still be on its way), then review."""
+        self.say("reading the marks for the close…")
+        self.load(review=True)
 
     @work(thread=True, exclusive=True, group="marks-close", exit_on_error=False)
     def write_close(self, note: str) -> None:
@@ -246,6 +264,7 @@ class MarksScreen(DeskScreen):
         from blotter import store
 
         t0 = time.perf_counter()
+        self._close_started = (self._close_started[0], t0)
         try:
             st = open_store(self.app)
             try:
@@ -260,9 +279,13 @@ class MarksScreen(DeskScreen):
 
     def on_done(self, message: Done) -> None:
         message.stop()
-        if message.what == "marks-load":
+        if message.what in ("marks-load", "marks-review"):
             if message.ok:
                 self.show(message.payload)
+                if message.what == "marks-review":
+                    self.say("")
+                    review = data.close_review(message.payload, self.blotter.clock())
+                    self.app.push_screen(CloseReviewScreen(review, self))
             else:
                 self.say(message.words, bad=True)
             return
@@ -270,12 +293,16 @@ class MarksScreen(DeskScreen):
         if message.what == "mark" and message.ok:
             self._close_editor()
         if message.what == "close":
-            review = self.app.screen
-            if isinstance(review, CloseReviewScreen):
+            started = self._close_started
+            self.call_after_refresh(
+                lambda: self.close_timing.append((*started, time.perf_counter()))
+            )
+            top = self.app.screen
+            if isinstance(top, CloseReviewScreen):
                 if message.ok:
-                    review.dismiss()
+                    top.dismiss()
                 else:
-                    review.say(message.words)
+                    top.say(message.words)
         if message.ok:
             self.load()
             self.blotter.load_book()
@@ -322,6 +349,7 @@ class CloseReviewScreen(ModalScreen[None]):
 
     def action_confirm(self) -> None:
         self.say("writing the close set…")
+        self.marks._close_started = (time.perf_counter(), 0.0)
         self.marks.write_close("close from the app")
 
     def action_back(self) -> None:
