@@ -241,3 +241,14 @@ CREATE TRIGGER import_file_no_update BEFORE UPDATE ON import_file
 BEGIN SELECT RAISE(ABORT, 'import records are never changed'); END;
 CREATE TRIGGER import_file_no_delete BEFORE DELETE ON import_file
 BEGIN SELECT RAISE(ABORT, 'import records are never deleted'); END;
+
+-- @version 3 ------------------------------------------------------------------------------------
+
+-- The exact rule (no trade after the contract's cut-off instant in its exchange's time zone) is
+-- checked in Python, which knows the time zone. This backstop compares dates only, so it allows a
+-- day's slack: a legal trade dealt before the cut-off on expiry day can carry the next UTC date.
+DROP TRIGGER trade_before_expiry;
+CREATE TRIGGER trade_before_expiry BEFORE INSERT ON trade
+WHEN date((SELECT expiry FROM contract WHERE contract_id = NEW.contract_id), '+1 day')
+     < substr(NEW.trade_time, 1, 10)
+BEGIN SELECT RAISE(ABORT, 'trade date is more than a day after the contract''s expiry date'); END;
