@@ -79,10 +79,24 @@ class MarksScreen(DeskScreen):
         self.load()
 
     # -- reading ---------------------------------------------------------------------------------
-    @work(thread=True, exclusive=True, group="marks-load", exit_on_error=False)
     def load(self, review: bool = False) -> None:
-        """Read the marks in force and the last close in this thread's own store; with
-        ``review`` the close review follows."""
+        """Read the marks in force and the last close in a worker; with ``review`` the close
+        review follows (its own worker group, so a refresh cannot cancel it)."""
+        if review:
+            self._read_review()
+        else:
+            self._read()
+
+    @work(thread=True, exclusive=True, group="marks-load", exit_on_error=False)
+    def _read(self) -> None:
+        self._read_marks(False)
+
+    @work(thread=True, exclusive=True, group="marks-review", exit_on_error=False)
+    def _read_review(self) -> None:
+        self._read_marks(True)
+
+    def _read_marks(self, review: bool) -> None:
+        """In a worker thread: read the marks in this thread's own store and post them."""
         worker = get_current_worker()
         try:
             st = open_store(self.app, read_only=True)
