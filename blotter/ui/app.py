@@ -21,7 +21,7 @@ from textual.app import App, ComposeResult
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
-from textual.widgets import DataTable, Footer, Input, Static
+from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
@@ -31,6 +31,7 @@ from blotter.ui.messages import (
     BookLoaded,
     LadderReady,
     LoadFailed,
+    LoadProgress,
     MoveApplied,
     MoveFailed,
     ProfileReady,
@@ -46,6 +47,12 @@ from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 Clock = Callable[[], datetime]
 Loader = Callable[[], tuple[Any, Any, int]]
 """Gives (book, market, data_version) instead of the file: the bench's random books use it."""
+
+PROGRESS_AFTER_S = 0.5
+"""A load still running after this long shows a progress bar (steps: read, value, lay out)."""
+
+LOAD_STEPS = ("reading the book and marks", "valuing the book", "laying out the book")
+"""The load's steps, as the progress bar names them."""
 
 MIN_WIDTH, MIN_HEIGHT = 60, 18
 """Below this size the app shows one line saying what size it needs."""
@@ -112,6 +119,7 @@ class BlotterApp(App[None]):
         self.data_version: int | None = None
         self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
         self.first_paint: float | None = None
+        self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
         self.trials: list[data.TrialTrade] = []
         self._trial_seq = 0
@@ -123,6 +131,7 @@ class BlotterApp(App[None]):
     # -- layout ---------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
         yield HeaderLine()
+        yield ProgressBar(total=len(LOAD_STEPS), show_eta=False, id="load-progress")
         yield Static("", id="too-small")
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
@@ -134,6 +143,7 @@ class BlotterApp(App[None]):
         yield Footer()
 
     def on_mount(self) -> None:
+        self.query_one("#load-progress", ProgressBar).display = False
         self._book_title()
         self._show_pane()
         self.query_one(BookTable).focus()
@@ -158,6 +168,32 @@ class BlotterApp(App[None]):
             self.query_one(f"#{name}-pane").set_class(name == self.pane, "-current")
 
     # -- loading --------------------------------------------------------------------------------
+    def load_book(self) -> None:
+        """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s."""
+        self._load_seq += 1
+        seq = self._load_seq
+        self._load_worker()
+        self.set_timer(PROGRESS_AFTER_S, lambda: self._show_progress(seq))
+
+    def _show_progress(self, seq: int) -> None:
+        if seq == self._load_seq and any(
+            w.group == "load" and not w.is_finished for w in self.workers
+        ):
+            bar = self.query_one("#load-progress", ProgressBar)
+            bar.add_class("-shown")
+            bar.display = True
+
+    def on_load_progress(self, message: LoadProgress) -> None:
+        bar = self.query_one("#load-progress", ProgressBar)
+        bar.update(progress=message.step)
+        bar.tooltip = LOAD_STEPS[min(message.step, len(LOAD_STEPS) - 1)]
+
+    def _hide_progress(self) -> None:
+        bar = self.query_one("#load-progress", ProgressBar)
+        bar.remove_class("-shown")
+        bar.display = False
+        bar.update(progress=0)
+
     @work(
         thread=True,
         exclusive=True,
@@ -165,7 +201,7 @@ class BlotterApp(App[None]):
         exit_on_error=False,
         description="read and value the book",
     )
-    def load_book(self) -> None:
+    def _load_worker(self) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``.
 
         The trial trades held in memory are layered on the live book (``Book.with_trials``).
@@ -192,10 +228,12 @@ class BlotterApp(App[None]):
                     close = getattr(st, "close", None)
                     if close is not None:
                         close()
+            self.post_message(LoadProgress(1))
             now = self.clock()
             valuation = risk.value_book(
                 book, market, np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s")
             )
+            self.post_message(LoadProgress(2))
             tree = data.BookTree(valuation, self.tz, self._row_alert)
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
@@ -257,6 +295,7 @@ class BlotterApp(App[None]):
         return out
 
     def on_book_loaded(self, message: BookLoaded) -> None:
+        self._hide_progress()
         self.book_seq += 1
         state = message.state
         state.book_seq = self.book_seq
@@ -288,6 +327,7 @@ class BlotterApp(App[None]):
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
     def on_load_failed(self, message: LoadFailed) -> None:
+        self._hide_progress()
         self.query_one(HeaderLine).show_error(message.reason)
         self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
 

@@ -25,6 +25,16 @@ class BookLoaded(Message):
 
 
 @dataclass
+class LoadProgress(Message):
+    """The load finished step ``step`` of ``app.LOAD_STEPS`` (1-based count of steps done)."""
+
+    step: int
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, LoadProgress)
+
+
+@dataclass
 class LoadFailed(Message):
     """Reading or valuing the book failed; ``reason`` is for people."""
 

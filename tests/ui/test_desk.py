@@ -558,3 +558,33 @@ async def test_another_process_commits_a_mark_and_the_app_shows_it(demo_db: Path
         else:
             raise AssertionError("the other process's mark did not show")
         assert isinstance(app.screen, MarksScreen), "the open screen stays"
+
+
+async def test_a_slow_load_shows_a_progress_bar(demo_db: Path) -> None:
+    """A loader that takes longer than half a second: the bar shows, then goes with the book."""
+    import threading
+
+    from blotter.ui.app import BlotterApp
+
+    st = open_ro(demo_db)
+    try:
+        book, market = st.load_book(), st.load_market()
+    finally:
+        st.close()
+    release = threading.Event()
+
+    def slow() -> tuple[Any, Any, int]:
+        release.wait(10)
+        return book, market, 0
+
+    app = BlotterApp(str(demo_db), TEST_SETTINGS, clock=frozen_clock, loader=slow)
+    async with app.run_test(size=(80, 24)) as pilot:
+        bar = app.query_one("#load-progress")
+        for _ in range(200):
+            await pilot.pause(0.01)
+            if bar.has_class("-shown"):
+                break
+        assert bar.has_class("-shown") and bar.display
+        release.set()
+        await settle(app, pilot)
+        assert not bar.has_class("-shown") and app.state is not None
