@@ -185,7 +185,7 @@ class BookTree:
         return BookRow(
             key="total",
             level=0,
-            label="total",
+            label="total + trials" if np.asarray(self.book.is_trial).any() else "total",
             values=_row_values(self._total),
             alert=self._alert(self._total),
             mixed=self._mixed(np.arange(len(self.book))),
@@ -859,6 +859,10 @@ def find_contract(contracts: Sequence[Any], terms: ContractTerms) -> Any | None:
 
 
 # -- Watch list -------------------------------------------------------------------------------
-def days_to_week_end(now: datetime, tz: Any) -> int:
-    """Calendar days from ``now`` to the end of the coming Sunday (desk time), at least 1."""
-    return max(1, 7 - now.astimezone(tz).weekday())
+def days_to_week_end(now: datetime, tz: Any) -> float:
+    """Calendar days (fractional) from ``now`` to the end of the coming Sunday, desk time."""
+    local = now.astimezone(tz)
+    monday = datetime.combine(
+        local.date() + timedelta(days=7 - local.weekday()), datetime.min.time(), tzinfo=tz
+    )
+    return (monday - local).total_seconds() / 86400.0

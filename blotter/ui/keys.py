@@ -193,6 +193,22 @@ KEYS: tuple[KeySpec, ...] = (
         "trades-back", "back", "q,t,f10", "Trades: back to the book", short="Back", where="trades"
     ),
     KeySpec(
+        "form-next",
+        "next_field",
+        "tab,ctrl+n",
+        "Form: next field (at once, so fast typing lands in the right field)",
+        where="form",
+        priority=True,
+    ),
+    KeySpec(
+        "form-previous",
+        "previous_field",
+        "shift+tab,ctrl+p",
+        "Form: previous field",
+        where="form",
+        priority=True,
+    ),
+    KeySpec(
         "form-submit",
         "submit",
         "f5,ctrl+y",

@@ -481,7 +481,17 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
         assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
-        assert "Options expiring within" in text
+        from blotter.ui.data import days_to_week_end
+
+        days = days_to_week_end(frozen_clock(), app.tz)
+        assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
+        state = app.state
+        assert state is not None
+        expected = scenario.apply_move(
+            state.valuation, scenario.Move(text="week", days=days)
+        ).expiring
+        assert f"Options expiring this week, by the end of Sunday ({days:.1f} days) " in text
+        assert f"({len(expected)}), pin risk" in text
 
 
 async def test_read_only_app_cannot_write(demo_db: Path) -> None:

@@ -131,7 +131,7 @@ class TradesScreen(DeskScreen):
         n_live = sum(r.state == "live" for r in self.records)
         self.query_one(".desk-title", Static).update(
             Text(
-                f"Trades: {len(self.shown_ids)} shown of {len(self.records)} "
+                f"Trades: {len(self.shown_ids)} shown │ {len(self.records)} in the store "
                 f"({n_live} live) │ trials {len(self.blotter.trials)}"
                 + (" │ READ-ONLY" if self.blotter.read_only else ""),
                 style="bold",
@@ -378,6 +378,12 @@ class TradeForm(ModalScreen[None]):
 
     def action_back(self) -> None:
         self.dismiss()
+
+    def action_next_field(self) -> None:
+        self.focus_next()
+
+    def action_previous_field(self) -> None:
+        self.focus_previous()
 
     @on(Input.Submitted)
     def _enter(self, event: Input.Submitted) -> None:

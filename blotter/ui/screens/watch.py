@@ -42,12 +42,14 @@ class WatchScreen(DeskScreen):
         self.on_mount()
 
     @work(thread=True, exclusive=True, group="watch-list", exit_on_error=False)
-    def compute(self, state: Any, days: int) -> None:
+    def compute(self, state: Any, days: float) -> None:
+        """Roll the book to the end of Sunday (``scenario.apply_move``); list what expires."""
         from blotter import scenario
 
         worker = get_current_worker()
         try:
-            result = scenario.apply_move(state.valuation, scenario.parse_move(f"days {days}"))
+            move = scenario.Move(text=f"days {days:.2f}", days=days)
+            result = scenario.apply_move(state.valuation, move)
         except Exception as exc:  # noqa: BLE001 - shown to the user
             self.post_message(Done("watch", False, f"✗ {exc}"))
             return
@@ -55,6 +57,8 @@ class WatchScreen(DeskScreen):
             self.post_message(Done("watch", True, "", (days, list(result.expiring or []))))
 
     def on_done(self, message: Done) -> None:
+        from blotter import scenario
+
         message.stop()
         if not message.ok:
             self.say(message.words, bad=True)
@@ -69,8 +73,9 @@ class WatchScreen(DeskScreen):
             text.append("  none (limits: [alerts] in the config file)\n")
         pins = [e for e in expiring if e.pin_risk]
         text.append(
-            f"\nOptions expiring within {days} day{'s' if days != 1 else ''} (this week) "
-            f"({len(expiring)}), pin risk ({len(pins)})\n",
+            f"\nOptions expiring this week, by the end of Sunday ({days:.1f} days) "
+            f"({len(expiring)}), pin risk within {scenario.PIN_BAND_PCT:g}% of the strike "
+            f"({len(pins)})\n",
             style="bold",
         )
         for e in expiring:
