@@ -267,7 +267,7 @@ def _marks_book(path: Path, n_marks: int = 200) -> None:
         n_vols = n_marks - 2
         for k in range(n_vols):
             st.log_vol("BENCHU", expiries[k % 4], 0.2 + 0.0005 * k, strike=60.0 + k // 4)
-        st.add_trade("main", "BENCHU", 1, 5.0, expiries[0], 100.0, True)
+        st.add_trade("main", "BENCHU", 1, 5.0, expiries[0], 100.0, True, create_book=True)
     finally:
         st.close()
 

@@ -504,7 +504,8 @@ async def test_read_only_app_cannot_write(demo_db: Path) -> None:
         screen = await open_marks(app, pilot)
         assert screen.check_action("edit", ()) is False
         assert screen.check_action("commit_close", ()) is False
-        for key in ("enter", "1", "c", "f5"):
+        for key in ("enter", "1", "e", "f2", "c", "f5"):
+            screen.say("")
             await pilot.press(key)
             await settle(app, pilot)
             assert isinstance(app.screen, MarksScreen)
@@ -514,7 +515,8 @@ async def test_read_only_app_cannot_write(demo_db: Path) -> None:
         trades = await open_trades(app, pilot)
         for action in ("add", "amend", "cancel_trade", "promote"):
             assert trades.check_action(action, ()) is False
-        for key in ("a", "x", "e", "p"):
+        for key in ("a", "x", "e", "p", "f3", "f8", "f6", "f7"):
+            trades.say("")
             await pilot.press(key)
             await pilot.pause()
             assert isinstance(app.screen, TradesScreen)

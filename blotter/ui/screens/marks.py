@@ -64,7 +64,11 @@ class MarksScreen(DeskScreen):
             id="marks-edit",
             classes="desk-input",
             select_on_focus=False,
-            placeholder="type a number on a row to edit its mark",
+            placeholder=(
+                "read-only: marks cannot be typed"
+                if self.blotter.read_only
+                else "type a number on a row to edit its mark"
+            ),
             disabled=self.blotter.read_only,
         )
         yield Static("", classes="desk-message")
@@ -75,7 +79,11 @@ class MarksScreen(DeskScreen):
         for key, header, width in COLUMNS:
             table.add_column(header, key=key, width=width)
         table.focus()
-        self.say("Enter or a digit edits the cell; $price in a vol cell solves its vol.")
+        self.say(
+            "Read-only: marks are shown, not typed."
+            if self.blotter.read_only
+            else "Enter or a digit edits the cell; $price in a vol cell solves its vol."
+        )
         self.load()
 
     # -- reading ---------------------------------------------------------------------------------
@@ -169,9 +177,14 @@ class MarksScreen(DeskScreen):
 
     def on_key(self, event: events.Key) -> None:
         """A digit, ".", "-" or "$" typed on the table starts editing the cell with it."""
-        if not event.character or self.blotter.read_only:
+        if not event.character:
             return
         table = self.query_one("#marks-table", DataTable)
+        if self.blotter.read_only:
+            if self.focused is table and (event.character.isdigit() or event.character in ".-$"):
+                event.stop()
+                self.say(READ_ONLY_WORDS, bad=True)
+            return
         box = self.query_one("#marks-edit", Input)
         if self.focused is table and (event.character.isdigit() or event.character in ".-$"):
             event.stop()
