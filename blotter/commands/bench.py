@@ -28,11 +28,20 @@ def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
 
 
 def _fmt_ns(ns: float) -> str:
+    if ns != ns:  # NaN: a case that measures something other than time (e.g. memory)
+        return ""
     if ns >= 1e6:
         return f"{ns / 1e6:,.1f} ms"
     if ns >= 1e3:
         return f"{ns / 1e3:,.2f} µs"
     return f"{ns:,.1f} ns"
+
+
+def _fmt_ratio(ratio: float | None, reference: str | None) -> str:
+    """'52× vs X' when we are faster; '0.24× vs X' (two digits) when the reference is faster."""
+    if not ratio:
+        return ""
+    return f"{ratio:,.0f}× vs {reference}" if ratio >= 10 else f"{ratio:.2g}× vs {reference}"
 
 
 @click.command()
@@ -53,7 +62,7 @@ def bench(as_json: bool, quick: bool, only: tuple[str, ...]) -> None:
     rows = [
         (r.case, f"{r.positions:,}", _fmt_ns(r.ns_per_position), _fmt_ns(r.min), _fmt_ns(r.max),
          _fmt_ns(r.target_ns) if r.target_ns else "",
-         f"{r.ratio:,.0f}× vs {r.reference}" if r.ratio else "", r.note)
+         _fmt_ratio(r.ratio, r.reference), r.note)
         for r in results
     ]
     print_table(["case", "positions", "median/pos", "min", "max", "target", "reference", "note"],
