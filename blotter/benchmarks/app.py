@@ -346,6 +346,7 @@ async def _other_process(db_path: str, repeat: int) -> np.ndarray:
                 if time.time() - committed > 30:
                     raise RuntimeError("the other process's mark did not show within 30 s")
             out.append(time.time() - committed)
+            await _settle(app, pilot)
     return np.array(out)
 
 

@@ -553,7 +553,7 @@ class BlotterApp(App[None]):
             self.post_message(LadderReady(state.book_seq, days, grid, book_alert, row_alerts))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
-        if message.book_seq == self.book_seq:
+        if message.book_seq == self.book_seq and not self._blotter_closing():
             self.query_one(LadderPane).show(message.ladder, message.days)
             self.ladder_alerts = [message.book_alert] if message.book_alert else []
             rows = message.row_alerts or {}
@@ -605,8 +605,12 @@ class BlotterApp(App[None]):
             self.post_message(ProfileReady(state.book_seq, profile))
 
     def on_profile_ready(self, message: ProfileReady) -> None:
-        if message.book_seq == self.book_seq:
+        if message.book_seq == self.book_seq and not self._blotter_closing():
             self.query_one(ProfilePane).show(message.profile)
+
+    def _blotter_closing(self) -> bool:
+        """True while the app is closing: a late worker's message finds no widgets then."""
+        return self._stop_watch.is_set()
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:

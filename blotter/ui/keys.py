@@ -291,6 +291,8 @@ KEY_NAMES = {
     "up": "↑",
     "down": "↓",
     "enter": "Enter",
+    "tab": "Tab",
+    "shift+tab": "Shift+Tab",
     "backslash": "\\",
 }
 """How the help screen and footer write Textual key names."""
