@@ -11,6 +11,7 @@ from collections.abc import Sequence
 from typing import ClassVar
 
 from rich.text import Text
+from textual import events
 from textual.binding import BindingType
 from textual.coordinate import Coordinate
 from textual.widgets import DataTable
@@ -95,6 +96,33 @@ class BookTable(DataTable[str | Text]):
         self.add_column(Text("underlying"), key="label", width=LABEL_WIDTH)
         for key, header in BOOK_COLUMNS:
             self.add_column(Text(header, justify="right"), key=key, width=COLUMN_WIDTHS[key])
+
+    def on_resize(self, event: events.Resize) -> None:
+        # Leave room for the vertical scrollbar whether or not it is showing yet: it appears
+        # when rows arrive, without a resize.
+        self.fit_label_column(event.size.width - self.styles.scrollbar_size_vertical)
+
+    def fit_label_column(self, width: int) -> None:
+        """Widen the label column so the last column on screen is whole, not cut part-way.
+
+        A number cut at the pane's edge (``-5,`` of ``-5,489``) reads as another number; the
+        columns past the edge stay one scroll away.
+        """
+        pad = 2 * self.cell_padding
+        used = LABEL_WIDTH + pad
+        for key, _ in BOOK_COLUMNS:
+            if used + COLUMN_WIDTHS[key] + pad > width:
+                break
+            used += COLUMN_WIDTHS[key] + pad
+        else:
+            used = width  # everything fits: no padding needed
+        label = self.columns.get("label")  # type: ignore[call-overload]
+        target = LABEL_WIDTH + max(0, width - used)
+        if label is not None and label.width != target:
+            label.width = target
+            self._require_update_dimensions = True
+            self._clear_caches()
+            self.refresh()
 
     # -- layout ---------------------------------------------------------------------------------
     def _sorted(self, rows: Sequence[BookRow]) -> list[BookRow]:
