@@ -806,30 +806,25 @@ class Store:
         """One ``BEGIN IMMEDIATE`` ... ``COMMIT``; rolled back (if still open) on any error."""
         if self.read_only:
             raise ReadOnlyError()
-        conn = self._conn()
-        try:
-            conn.execute(self._BEGIN)
-        except sqlite3.Error as exc:
-            raise _map_error(exc, self.path) from None
-        try:
+        with self._transaction(self._BEGIN) as conn:
             yield conn
-            conn.execute("COMMIT")
-        except BaseException as exc:
-            if conn.in_transaction:
-                try:
-                    conn.execute("ROLLBACK")
-                except sqlite3.Error:
-                    pass
-            if isinstance(exc, sqlite3.Error):
-                raise _map_error(exc, self.path) from None
-            raise
 
     @contextmanager
     def _read(self) -> Iterator[sqlite3.Connection]:
         """One short read transaction, so several queries see one snapshot; always ended."""
+        with self._transaction("BEGIN") as conn:
+            yield conn
+
+    @contextmanager
+    def _transaction(self, begin: str) -> Iterator[sqlite3.Connection]:
+        """``begin`` ... ``COMMIT`` on this thread's connection, never left open.
+
+        On any error the transaction is rolled back if SQLite has not already done so (after an
+        I/O error it has), and SQLite's errors become ``StoreError`` with a message for people.
+        """
         conn = self._conn()
         try:
-            conn.execute("BEGIN")
+            conn.execute(begin)
         except sqlite3.Error as exc:
             raise _map_error(exc, self.path) from None
         try:
