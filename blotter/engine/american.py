@@ -122,6 +122,19 @@ def _matrices() -> dict[str, np.ndarray]:
             row[x] -= sign
 
     LN_I2K, LN_I1K = 16, 17
+
+    def exponent_row(g: int, at_t1: bool, level: int, coef_col: int | None) -> np.ndarray:
+        # λγ(t) + γ ln(S / level) (γ = β, 1 or 0) plus the term's coefficient column, if any
+        row = np.zeros(18)
+        row[lam(g, at_t1)] = 1.0
+        if g == 0:
+            row[4 + S] += 1.0
+            row[4 + level] -= 1.0
+        elif g == 1:
+            row[S] += 1.0
+        if coef_col is not None:
+            row[coef_col] += 1.0
+        return row
     a3, signs = [], []
     # φ main and reflected, in the order of the t1 arguments above.
     phi_coef = {(0, I2): (LN_I2K, -1.0), (0, I1): (LN_I1K, 1.0), (1, I2): (None, 1.0),
@@ -129,17 +142,8 @@ def _matrices() -> dict[str, np.ndarray]:
     mains = []
     for g in range(3):
         for lh in (I2, I1):
-            row = np.zeros(18)
-            row[lam(g, True)] = 1.0
-            if g == 0:
-                row[4 + S] += 1.0
-                row[4 + lh] -= 1.0
-            elif g == 1:
-                row[S] += 1.0
             col, sign = phi_coef[(g, lh)]
-            if col is not None:
-                row[col] += 1.0
-            mains.append((row, sign, g))
+            mains.append((exponent_row(g, True, lh, col), sign, g))
     for row, sign, _ in mains:
         a3.append(row)
         signs.append(sign)
@@ -156,16 +160,8 @@ def _matrices() -> dict[str, np.ndarray]:
     psi_coef = {(0, "I1"): (LN_I1K, -1.0), (1, "I1"): (None, 1.0), (1, "K"): (None, -1.0),
                 (2, "I1"): (K, -1.0), (2, "K"): (K, 1.0)}
     for g, h_name in PSI_TERMS:
-        base = np.zeros(18)
-        base[lam(g, False)] = 1.0
-        if g == 0:
-            base[4 + S] += 1.0
-            base[4 + I1] -= 1.0
-        elif g == 1:
-            base[S] += 1.0
         col, sign = psi_coef[(g, h_name)]
-        if col is not None:
-            base[col] += 1.0
+        base = exponent_row(g, False, I1, col)
         r2 = base.copy()
         kap_times(r2, g, I2, 1.0)
         kap_times(r2, g, S, -1.0)              # (I2/S)^κ
