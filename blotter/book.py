@@ -110,6 +110,25 @@ class Book:
     def __len__(self) -> int:
         return len(self.contract_ids)
 
+    def take(self, rows: np.ndarray | list[int]) -> Book:
+        """The positions ``rows`` (indices, in that order) as a book of their own."""
+        idx = np.asarray(rows, dtype=np.int64)
+        return Book(
+            name=self.name, underlyings=self.underlyings, reference_index=self.reference_index,
+            contract_ids=self.contract_ids[idx],
+            labels=tuple(self.labels[int(i)] for i in idx),
+            underlying_idx=self.underlying_idx[idx],
+            is_option=self.is_option[idx],
+            is_call=self.is_call[idx],
+            american=self.american[idx],
+            strikes=self.strikes[idx],
+            expiries=self.expiries[idx],
+            multipliers=self.multipliers[idx],
+            quantities=self.quantities[idx],
+            cash_settled=self.cash_settled[idx],
+            is_trial=self.is_trial[idx],
+        )
+
     def with_trials(self, trials: Book) -> Book:
         """This book with ``trials`` appended as rows marked ``is_trial`` (same underlyings)."""
         if trials.underlyings.symbols != self.underlyings.symbols:

@@ -537,7 +537,7 @@ class BlotterApp(App[None]):
                     return
                 rows = np.flatnonzero(book.underlying_idx == j)
                 alone = risk.value_book(
-                    data.sub_book(book, rows),
+                    book.take(rows),
                     state.valuation.market,
                     state.valuation.valuation_time,
                 )

@@ -357,28 +357,6 @@ PROFILE_FIELDS = {
 """Profile greeks: risk field and the axis label with its unit."""
 
 
-def sub_book(book: Book, rows: np.ndarray) -> Book:
-    """The positions ``rows`` of ``book`` as a book of their own (same underlyings)."""
-    rows = np.asarray(rows, dtype=np.int64)
-    return Book(
-        name=book.name,
-        underlyings=book.underlyings,
-        reference_index=book.reference_index,
-        contract_ids=book.contract_ids[rows],
-        labels=tuple(book.labels[int(i)] for i in rows),
-        underlying_idx=book.underlying_idx[rows],
-        is_option=book.is_option[rows],
-        is_call=book.is_call[rows],
-        american=book.american[rows],
-        strikes=book.strikes[rows],
-        expiries=book.expiries[rows],
-        multipliers=book.multipliers[rows],
-        quantities=book.quantities[rows],
-        cash_settled=book.cash_settled[rows],
-        is_trial=book.is_trial[rows],
-    )
-
-
 def profile(
     valuation: risk.BookValuation,
     settings: Any,
@@ -399,7 +377,7 @@ def profile(
     v = valuation
     if rows is not None:
         v = risk.value_book(
-            sub_book(valuation.book, rows), valuation.market, valuation.valuation_time
+            valuation.book.take(rows), valuation.market, valuation.valuation_time
         )
     t0 = v.valuation_time
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})

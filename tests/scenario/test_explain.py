@@ -80,7 +80,7 @@ class FakeStore:
         self.asked.append(("trades", (since, until)))
         if since < self.trade_time <= (until or datetime.now(UTC)):
             return self.trade_book, self.prices
-        return _take(self.trade_book, []), self.prices[:0]
+        return self.trade_book.take([]), self.prices[:0]
 
     def trades(self, until: datetime | None = None) -> list[TradeRecord]:
         if until is not None and self.trade_time > until:
@@ -110,25 +110,6 @@ class FakeStore:
             )
             for i in range(len(b))
         ]
-
-
-def _take(b: Book, rows: list[int]) -> Book:
-    idx = np.array(rows, dtype=np.int64)
-    return Book(
-        name=b.name,
-        underlyings=b.underlyings,
-        reference_index=b.reference_index,
-        contract_ids=b.contract_ids[idx],
-        labels=tuple(b.labels[i] for i in rows),
-        underlying_idx=b.underlying_idx[idx],
-        is_option=b.is_option[idx],
-        is_call=b.is_call[idx],
-        american=b.american[idx],
-        strikes=b.strikes[idx],
-        expiries=b.expiries[idx],
-        multipliers=b.multipliers[idx],
-        quantities=b.quantities[idx],
-    )
 
 
 def _market(spots: dict[str, float], vols: dict[str, float], marked: datetime) -> Market:

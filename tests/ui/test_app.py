@@ -356,7 +356,6 @@ async def test_limit_breach_shown_in_words_and_by_symbol(demo_db: Path) -> None:
 
 
 async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
-    from blotter.ui.data import sub_book
 
     async with demo_app.run_test(size=(160, 48)) as pilot:
         await settle(demo_app, pilot)
@@ -372,7 +371,7 @@ async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
         assert profile.title.startswith(f"Profile: P&L of {key[2:]} ")
         rows = state.tree.rows_of(key)
         alone = risk.value_book(
-            sub_book(state.valuation.book, rows),
+            state.valuation.book.take(rows),
             state.valuation.market,
             state.valuation.valuation_time,
         )
