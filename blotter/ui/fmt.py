@@ -34,10 +34,17 @@ def number(value: float, decimals: int = 2, width: int = 0, signed: bool = False
     return text.rjust(width) if width else text
 
 
+PCT_CAP = 999.0
+"""Percentages beyond ± this show as ``>+999%``: a share of a near-zero change is no guide, and
+the text must still fit its column."""
+
+
 def pct(value: float, width: int = 0) -> str:
-    """A signed percentage with one decimal."""
+    """A signed percentage with one decimal, capped at ``PCT_CAP`` so it keeps its width."""
     if value is None or not math.isfinite(value):
         text = MISSING
+    elif abs(value) > PCT_CAP:
+        text = f">{'+' if value > 0 else '-'}{PCT_CAP:.0f}%"
     else:
         text = f"{value:+.1f}%"
     return text.rjust(width) if width else text
