@@ -48,6 +48,9 @@ from blotter.market import VOL_FLOOR
 from blotter.risk import BookValuation, intrinsic, value_book
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
+EXPLAIN_TERMS = TERM_NAMES + ("carry",)
+"""Explain's terms: the what-if's, and ``carry`` for a change of the cost of carry b that the rate
+does not account for (a dividend yield mark, a foreign rate)."""
 """Taylor terms, in the order they are shown."""
 
 FIRST_ORDER = ("delta", "vega", "theta", "rho")
@@ -1382,7 +1385,9 @@ def explain(
     how much of ``actual`` those late bookings and corrections changed against the book as shown
     at the start. Held positions are valued at the start marks and time and at the end marks and
     time; the change is explained by Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
-    ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets.
+    ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets,
+    and carry ρ·(db − dr) for stock, index and FX options (b = r − q: a dividend yield or foreign
+    rate mark change; ρ already holds the rate's share of db); futures options have b = 0.
     """
     frm, to, t0_raw, t1_raw = _pick_sets(store, from_set, to_set)
     t0 = _instant(t0_raw)
@@ -1406,6 +1411,8 @@ def explain(
     opt = held.is_option & start.live
     dvol = np.where(opt, np.nan_to_num(end.vol - start.vol), 0.0)
     drate = np.where(opt, np.nan_to_num(end.rate - start.rate), 0.0)
+    dcarry = np.where(opt, np.nan_to_num(end.carry - start.carry), 0.0)
+    dcarry_other = dcarry - np.where(start.rate_moves_carry, drate, 0.0)
     g, u = start.greeks, start.units
     terms = {
         "delta": g.delta * u * ds,
@@ -1415,6 +1422,7 @@ def explain(
         "vanna": g.vanna * u * ds * dvol,
         "theta": g.theta * u * dt,
         "rho": start.rho_unit * u * drate,
+        "carry": g.carry_rho * u * dcarry_other,
     }
     actual = _held_pnl(start, end)
 

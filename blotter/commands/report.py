@@ -28,6 +28,8 @@ if TYPE_CHECKING:
 
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` and ``explain --json``."""
+EXPLAIN_KEYS = (*TERM_KEYS, "carry")
+"""Explain's terms: the what-if's and ``carry`` (a dividend yield or foreign rate change)."""
 
 RULE_NOTES = {
     "sticky strike": "vols sticky strike: each option keeps the vol of its strike and expiry",
@@ -695,8 +697,9 @@ def explain(
 
     For the positions held over the period (trades dealt by the start close, as the book stands
     at the end: cancels and amends entered in the period count, late bookings too): actual P&L
-    (full revaluation) split into delta, gamma, vega, volga, vanna, theta and rho terms, and the
-    unexplained rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
+    (full revaluation) split into delta, gamma, vega, volga, vanna, theta, rho and carry terms
+    (carry: a dividend yield or foreign rate mark change times carry rho), and the unexplained
+    rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
     against trade price). When late bookings or corrections changed the held book, a line shows
     how much of actual they account for ("corrections"). Money in the book's currency.
     """
@@ -734,7 +737,7 @@ def explain(
     cols = [
         "underlying",
         "actual",
-        *TERM_KEYS,
+        *EXPLAIN_KEYS,
         "explained",
         "unexplained",
         "new_trades",
@@ -745,7 +748,7 @@ def explain(
         [
             r.label,
             r.actual,
-            *(r.terms[t] for t in TERM_KEYS),
+            *(r.terms[t] for t in EXPLAIN_KEYS),
             r.explained,
             r.unexplained,
             r.new_trades,
@@ -784,9 +787,12 @@ def explain(
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*ex.by_underlying, ex.total]
+        [r.label, *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
+        for r in [*ex.by_underlying, ex.total]
     ]
-    print_table(["explained by", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
+    print_table(
+        ["explained by", *EXPLAIN_KEYS], terms, right=[False] + [True] * len(EXPLAIN_KEYS)
+    )
     if ex.late_trades or ex.corrected_trades:
         click.echo("")
         print_table(

@@ -290,7 +290,7 @@ def test_explain_json_default_sets(demo_db: Path) -> None:
     closes = [s for s in open_store(demo_db, read_only=True).mark_sets("close")]
     assert out["from"]["id"] == closes[-2].id and out["to"]["id"] == closes[-1].id
     t = out["total"]
-    assert set(t["terms"]) == TERMS
+    assert set(t["terms"]) == TERMS | {"carry"}
     assert t["unexplained"] == pytest.approx(t["actual"] - sum(t["terms"].values()))
     assert t["total"] == pytest.approx(t["actual"] + t["new_trades"])
     assert sum(r["actual"] for r in out["by_underlying"]) == pytest.approx(t["actual"], rel=1e-9)

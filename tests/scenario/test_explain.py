@@ -242,3 +242,30 @@ def test_refusals() -> None:
     one = _store(sets=[SetInfo(2, "close", FRI)])
     with pytest.raises(ValueError, match="two close"):
         explain(one)
+
+
+def test_a_dividend_yield_mark_change_is_the_carry_term() -> None:
+    # The STK dividend yield mark goes from 2% (the underlying's default) to 3% over the weekend;
+    # spots and vols stay. A higher yield lowers the carry b = r − q and raises the put's value,
+    # so the desk, short 20 puts, loses: the start's carry rho times db = −1% is the carry term,
+    # and it, not "unexplained", takes that P&L. Actual from
+    # QuantLib 1.44 (BSM process, flat curves) at both marks.
+    store = _store()
+    m2, m4 = store.markets[2], store.markets[4]
+    store.markets[4] = Market(
+        version=1, marks_as_of=MON, spots=m2.spots, surfaces=m2.surfaces, curves=m4.curves,
+        div_yields={"STK": 0.03},
+    )
+    ex = explain(store)
+    rows = {r.underlying: r for r in ex.by_underlying}
+    stk0 = ql_price(False, 120.0, 115, 60, RATE, 0.02, 0.35)
+    stk1 = ql_price(False, 120.0, 115, 57, RATE, 0.03, 0.35)
+    assert rows["STK"].actual == pytest.approx(-2000 * (stk1 - stk0), rel=1e-8)
+    g, u = ex.start.greeks, ex.start.units
+    stk = ex.start.book.underlying_idx == ex.start.book.underlyings.index_of("STK")
+    want = float(np.sum((g.carry_rho * u * -0.01)[stk & ex.start.book.is_option]))
+    assert rows["STK"].terms["carry"] == pytest.approx(want, rel=1e-12)
+    assert rows["STK"].terms["carry"] < 0.0        # theta over the weekend outweighs it in actual
+    assert rows["STK"].terms["rho"] == 0.0 and rows["IDX"].terms["carry"] == 0.0
+    # What is left unexplained is theta's and the second-order carry's share, small next to it.
+    assert abs(rows["STK"].unexplained) < 0.1 * abs(rows["STK"].terms["carry"])

@@ -25,6 +25,7 @@ TERM_LABELS = {
     "vanna": "vanna · dS·dσ",
     "theta": "θ · dt",
     "rho": "ρ · dr",
+    "carry": "carry ρ · dq",
 }
 """Row labels of the Taylor terms (each in currency)."""
 
@@ -103,7 +104,7 @@ class ExplainScreen(DeskScreen):
 
         from blotter import scenario
 
-        for name in scenario.TERM_NAMES:
+        for name in scenario.EXPLAIN_TERMS:
             add(TERM_LABELS.get(name, name), [r.terms.get(name, 0.0) for r in cols])
         add("= explained", [r.explained for r in cols])
         add("unexplained", [r.unexplained for r in cols])
