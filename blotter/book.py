@@ -6,12 +6,18 @@ knows about SQL or terminals; the risk layer turns a ``Book`` plus a ``Market`` 
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 import numpy as np
 
 UNDERLYING_KINDS = ("stock", "index", "future", "fx")
 """Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
+SYMBOL_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9._/-]*$")
+"""What a symbol looks like: a letter, then letters, digits and . _ / - (one word of a move)."""
+MOVE_WORDS = ("spot", "vol", "days", "bdays", "rate", "moneyness", "sticky-moneyness", "beta",
+              "weighted")
+"""Words of the what-if grammar, which a new underlying's symbol may not be."""
 
 
 def read_only(a: np.ndarray) -> np.ndarray:

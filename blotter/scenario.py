@@ -43,7 +43,7 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
-from blotter.book import Book
+from blotter.book import SYMBOL_PATTERN, Book
 from blotter.market import VOL_FLOOR
 from blotter.risk import BookValuation, intrinsic, value_book
 
@@ -199,7 +199,7 @@ class Move:
 
 _NUMBER = re.compile(r"^(?P<sign>[+-])?(?P<num>\d+(?:\.\d*)?|\.\d+)(?P<unit>%|bp)?$", re.IGNORECASE)
 _LEVEL = re.compile(r"^=(?P<num>\d+(?:\.\d*)?|\.\d+)$")
-_SYMBOL = re.compile(r"^[A-Za-z][A-Za-z0-9._/-]*$")
+_SYMBOL = SYMBOL_PATTERN
 _KEYWORDS = ("spot", "vol", "days", "bdays", "rate")
 
 

@@ -45,7 +45,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import numpy as np
 
-from blotter.book import UNDERLYING_KINDS, Book, Underlyings
+from blotter.book import MOVE_WORDS, SYMBOL_PATTERN, UNDERLYING_KINDS, Book, Underlyings
 from blotter.market import Market, RateCurve, VolSurface
 
 APPLICATION_ID = 0x426C7472
@@ -911,6 +911,21 @@ class Store:
         with self._read() as conn:
             return self._underlyings_from(self._underlying_rows(conn))
 
+    @_guard_damage
+    def underlying_records(self) -> list[dict[str, Any]]:
+        """Every underlying's row, in id order: symbol, kind, currency, multiplier, american,
+        cash_settled, div_yield, beta, is_reference (the last three and american as bools),
+        calendar, time_zone, cutoff_time, description and underlying_id."""
+        names = ("underlying_id", "symbol", "kind", "currency", "beta", "div_yield", "calendar",
+                 "description", "is_reference", "multiplier", "american", "cash_settled",
+                 "time_zone", "cutoff_time")
+        with self._read() as conn:
+            rows = [dict(zip(names, r, strict=True)) for r in self._underlying_rows(conn)]
+        for r in rows:
+            for flag in ("is_reference", "american", "cash_settled"):
+                r[flag] = bool(r[flag])
+        return rows
+
     @staticmethod
     def _underlyings_from(rows: list[tuple[Any, ...]]) -> Underlyings:
         return Underlyings(
@@ -948,6 +963,11 @@ class Store:
         except (ZoneInfoNotFoundError, ValueError):
             raise StoreError(f"unknown time zone {time_zone!r}") from None
         _check_symbol(symbol)
+        if not SYMBOL_PATTERN.match(symbol) or symbol.lower() in MOVE_WORDS:
+            raise StoreError(
+                f"symbol {symbol!r}: a letter, then letters, digits and . _ / - (no spaces), and "
+                f"not a word of the what-if ({', '.join(MOVE_WORDS)})"
+            )
         with self._write() as conn:
             if conn.execute("SELECT 1 FROM underlying WHERE symbol = ?", (symbol,)).fetchone():
                 raise StoreError(f"underlying {symbol!r} already exists")

@@ -90,9 +90,31 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
         market = store.load_market()
         valuation = value_book(book, market, t, vega_unit=vega_unit)
     except (KeyError, ValueError, StoreError) as exc:
-        raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
+        raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     _warn_stale(valuation)
     return valuation
+
+
+MARK_HINTS = {
+    "no spot mark for ": "blotter mark spot {sym} PRICE",
+    "no vol surface for ": "blotter mark vol {sym} YYYY-MM-DD VOL",
+    "no rate curve for ": "blotter mark rate {sym} DAYS RATE",
+}
+"""How to log the mark a valuation found missing, by the start of the engine's message."""
+
+
+def _with_hint(message: str) -> str:
+    """``message``, with the command that logs the missing mark when it names one."""
+    for start, command in MARK_HINTS.items():
+        if message.startswith(start):
+            sym = message[len(start):].strip("'\"")
+            return f"{message}; log it with: {command.format(sym=sym)}"
+    return message
+
+
+def _has_marks(v: BookValuation) -> bool:
+    m = v.market
+    return bool(m.spots or m.surfaces or m.curves)
 
 
 STALE_MARKS_DAYS = 1.0
@@ -103,6 +125,8 @@ def _warn_stale(v: BookValuation) -> None:
     """Warn on stderr when the marks are far from the valuation time (stdout stays clean)."""
     from blotter import calendar as cal
 
+    if not _has_marks(v):
+        return
     age_days = (
         float(cal.year_fraction(cal.to_instant(v.market.marks_as_of), v.valuation_time)) * 365
     )
@@ -127,7 +151,8 @@ def _iso(t: Any) -> str:
 
 
 def _header(v: BookValuation) -> dict[str, Any]:
-    return {"as_of": _iso(v.valuation_time), "marks_as_of": _iso(v.market.marks_as_of)}
+    marks = _iso(v.market.marks_as_of) if _has_marks(v) else None
+    return {"as_of": _iso(v.valuation_time), "marks_as_of": marks}
 
 
 SHARE_KEYS = ("delta_shares", "gamma_1pct", "vanna_pt")
@@ -321,8 +346,9 @@ def risk(
     if vega_unit == "vol":
         cols[4] = "vega $/1.00 vol"
     click.echo(
-        f"risk at {_iso(v.valuation_time)} · marks {_iso(v.market.marks_as_of)}"
-        f" · money in book currency"
+        f"risk at {_iso(v.valuation_time)} · marks "
+        + (_iso(v.market.marks_as_of) if _has_marks(v) else "none yet")
+        + " · money in book currency"
     )
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
         table = [[a, b, *(cells_of(r)[i] for i in block)] for a, b, r in groups]

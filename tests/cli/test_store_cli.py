@@ -9,16 +9,9 @@ import json
 from pathlib import Path
 
 import pytest
-from click.testing import CliRunner, Result
+from cli_helpers import run
 
-from blotter.cli import main
 from blotter.store import open_store
-
-
-def run(*args: str, code: int = 0) -> Result:
-    result = CliRunner().invoke(main, list(args), catch_exceptions=False)
-    assert result.exit_code == code, (args, result.output, result.stderr)
-    return result
 
 
 @pytest.fixture(autouse=True)

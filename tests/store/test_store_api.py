@@ -299,16 +299,20 @@ def test_read_only_store_refuses_every_write_method(tmp_book: Path) -> None:
 
 
 def test_user_input_is_stored_literally_never_run_as_sql(tmp_book: Path) -> None:
-    """RELIABILITY 15: a symbol, book and note made of SQL are stored and read back as text."""
+    """RELIABILITY 15: a description, book and note made of SQL are stored and read back as text;
+    a symbol made of SQL is refused (a symbol is one word of the what-if) and changes nothing."""
     evil = "x'); DROP TABLE trade;--"
     with open_store(tmp_book) as s:
-        s.add_underlying(evil, "stock", "USD", 100)
-        tid = s.add_trade(evil, evil, 1, 1.0, note=evil, create_book=True)
-        s.log_spot(evil, 10.0)
-        assert s.load_book(evil).labels == (evil,)
+        with pytest.raises(StoreError, match="no spaces"):
+            s.add_underlying(evil, "stock", "USD", 100)
+        s.add_underlying("EVL", "stock", "USD", 100, description=evil)
+        tid = s.add_trade(evil, "EVL", 1, 1.0, note=evil, create_book=True)
+        s.log_spot("EVL", 10.0)
+        assert s.load_book(evil).labels == ("EVL",)
         rec = s.trades()[0]
-        assert (rec.trade_id, rec.symbol, rec.book, rec.note) == (tid, evil, evil, evil)
-        assert s.load_market().spots == {evil: 10.0}
+        assert (rec.trade_id, rec.symbol, rec.book, rec.note) == (tid, "EVL", evil, evil)
+        assert [r["description"] for r in s.underlying_records()] == [evil]
+        assert s.load_market().spots == {"EVL": 10.0}
         assert s.integrity_ok()
 
 

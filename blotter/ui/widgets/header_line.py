@@ -25,12 +25,15 @@ class HeaderLine(Static):
         text.append(f"Book: {state.book_name}", style="bold")
         text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
         when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
-        if age.words.startswith("dated after"):
+        market = state.valuation.market
+        if not (market.spots or market.surfaces or market.curves):
+            text.append(" │ no marks yet: m opens Marks")
+        elif age.words.startswith("dated after"):
             text.append(f" │ {state.mark_kind} marks {when}, ")
             text.append("AFTER the valuation time", style="bold")
         else:
             text.append(f" │ {state.mark_kind} marks {when} ({age.words} old)")
-        if age.stale:
+        if age.stale and (market.spots or market.surfaces or market.curves):
             text.append(" STALE: before the last close", style="bold reverse")
         text.append(f" │ {Path(state.db_path).name}")
         if state.read_only:

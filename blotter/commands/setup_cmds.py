@@ -1,0 +1,222 @@
+"""``blotter create`` and ``blotter underlying ...``: start a book file of your own.
+
+A new file holds no underlyings, so no trade can be booked on it until ``underlying add`` has
+named them with the defaults their contracts take (multiplier, exercise style, settlement) and
+the facts the risk needs (kind, currency, dividend yield, beta, calendar, close time).
+Underlyings are reference data: added once, never changed or removed (the store refuses it).
+"""
+
+from __future__ import annotations
+
+import re
+
+import click
+
+from blotter.commands.common import (
+    check_output_flags,
+    db_option,
+    output_options,
+    print_csv,
+    print_json,
+    print_table,
+    read_only_requested,
+)
+from blotter.commands.store_cmds import _emit, _store, parse_decimal_or_percent
+
+_CURRENCY = re.compile(r"[A-Z]{3}\Z")
+_CUTOFF = re.compile(r"([01]\d|2[0-3]):[0-5]\d\Z")
+UNDERLYING_COLUMNS = (
+    "symbol",
+    "kind",
+    "currency",
+    "multiplier",
+    "american",
+    "cash_settled",
+    "div_yield",
+    "beta",
+    "is_reference",
+    "calendar",
+    "time_zone",
+    "cutoff_time",
+    "description",
+)
+"""Columns of ``underlying list --csv`` / ``--json``; div_yield and beta are decimals."""
+
+
+@click.command("create")
+@click.argument("path", type=click.Path(dir_okay=False))
+@click.option("--book", "book_name", help="Also start a first book (desk account) of this name.")
+@click.option("--json", "as_json", is_flag=True, help="Print the new file's path as JSON.")
+def create(path: str, book_name: str | None, as_json: bool) -> None:
+    """Create an empty book file at PATH (refused if anything is there).
+
+    Then add underlyings (``blotter --db PATH underlying add``), log marks and book trades.
+    """
+    from blotter.store import StoreError, create_store
+
+    if read_only_requested():
+        raise click.ClickException("--read-only is set: create writes a new file; nothing done")
+    try:
+        store = create_store(path)
+    except StoreError as exc:
+        raise click.ClickException(str(exc)) from None
+    try:
+        if book_name is not None:
+            store.add_book(book_name)
+    except StoreError as exc:
+        raise click.ClickException(f"{exc} (the file {path} was created, with no book)") from None
+    finally:
+        store.close()
+    extra = f" with book {book_name!r}" if book_name else ""
+    _emit(
+        as_json,
+        {"path": path, "book": book_name},
+        f"created {path}{extra}; next: blotter --db {path} underlying add SYMBOL --kind ...",
+    )
+
+
+@click.group()
+def underlying() -> None:
+    """Add and list underlyings (reference data: added once, never changed)."""
+
+
+@underlying.command("add")
+@click.argument("symbol")
+@click.option(
+    "--kind",
+    type=click.Choice(["stock", "index", "future", "fx"]),
+    required=True,
+    help="stock, index, future (options on it are Black-76, carry 0) or fx.",
+)
+@click.option("--currency", required=True, help="ISO 4217 code of its prices, e.g. USD.")
+@click.option(
+    "--multiplier",
+    type=float,
+    required=True,
+    help="Default units of underlying per option contract, e.g. 100.",
+)
+@click.option(
+    "--american/--european", default=True, help="Default exercise style of its options."
+)
+@click.option(
+    "--cash-settled/--physical", default=False, help="Default settlement of its options."
+)
+@click.option(
+    "--div-yield",
+    default="0",
+    help="Default dividend yield (stock, index) or foreign rate (fx), continuous: 0.015 or "
+    "1.5%. A `mark divyield` overrides it.",
+)
+@click.option("--beta", type=float, default=1.0, help="Beta to the reference index (beta delta).")
+@click.option(
+    "--reference", is_flag=True, help="It is the book's reference index (at most one)."
+)
+@click.option("--calendar", default="NYSE", help="Exchange holiday calendar, e.g. NYSE, CME, LSE.")
+@click.option("--zone", default="America/New_York", help="Time zone of its close, IANA name.")
+@click.option("--cutoff", default="16:00", help="Its close (expiry cut-off), HH:MM local time.")
+@click.option("--description", default="", help="Free text shown beside the symbol.")
+@click.option("--json", "as_json", is_flag=True, help="Print the new underlying id as JSON.")
+@db_option
+def underlying_add(
+    symbol: str,
+    kind: str,
+    currency: str,
+    multiplier: float,
+    american: bool,
+    cash_settled: bool,
+    div_yield: str,
+    beta: float,
+    reference: bool,
+    calendar: str,
+    zone: str,
+    cutoff: str,
+    description: str,
+    as_json: bool,
+    db_path: str | None,
+) -> None:
+    """Add underlying SYMBOL with the defaults its contracts take."""
+    from blotter.calendar import business_calendar
+
+    if not _CURRENCY.match(currency):
+        raise click.BadParameter(
+            f"{currency!r}: three capital letters, e.g. USD", param_hint="--currency"
+        )
+    if not multiplier > 0:
+        raise click.BadParameter(f"{multiplier:g}: must be above 0", param_hint="--multiplier")
+    q = parse_decimal_or_percent(div_yield, "dividend yield")
+    if not -1.0 <= q <= 1.0:
+        raise click.BadParameter(f"{div_yield!r}: between -100% and 100%", param_hint="--div-yield")
+    if not -20.0 <= beta <= 20.0:
+        raise click.BadParameter(f"{beta:g}: between -20 and 20", param_hint="--beta")
+    if not _CUTOFF.match(cutoff):
+        raise click.BadParameter(f"{cutoff!r}: HH:MM, e.g. 16:00", param_hint="--cutoff")
+    try:
+        business_calendar(calendar)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--calendar") from None
+    with _store(db_path) as store:
+        if reference and any(r["is_reference"] for r in store.underlying_records()):
+            raise click.ClickException("the book already has a reference index; nothing added")
+        uid = store.add_underlying(
+            symbol,
+            kind,
+            currency,
+            multiplier,
+            description=description,
+            american=american,
+            cash_settled=cash_settled,
+            div_yield=q,
+            beta=beta,
+            is_reference=reference,
+            calendar=calendar,
+            time_zone=zone,
+            cutoff_time=cutoff,
+        )
+    style = "American" if american else "European"
+    _emit(
+        as_json,
+        {"underlying_id": uid, "symbol": symbol},
+        f"underlying {symbol} added (id {uid}): {kind}, {currency}, {multiplier:g} per contract, "
+        f"{style}, {'cash' if cash_settled else 'physical'}",
+    )
+
+
+@underlying.command("list")
+@output_options
+@db_option
+def underlying_list(as_json: bool, as_csv: bool, db_path: str | None) -> None:
+    """List the underlyings with their contract defaults."""
+    check_output_flags(as_json, as_csv)
+    with _store(db_path, read_only=True) as store:
+        rows = store.underlying_records()
+    data = [[r[c] for c in UNDERLYING_COLUMNS] for r in rows]
+    if as_json:
+        print_json([dict(zip(UNDERLYING_COLUMNS, d, strict=True)) for d in data])
+    elif as_csv:
+        print_csv(UNDERLYING_COLUMNS, data)
+    else:
+        table = [
+            [
+                r["symbol"],
+                r["kind"],
+                r["currency"],
+                f"{r['multiplier']:g}",
+                "American" if r["american"] else "European",
+                "cash" if r["cash_settled"] else "physical",
+                f"{100 * r['div_yield']:.2f}",
+                f"{r['beta']:g}",
+                "yes" if r["is_reference"] else "",
+                r["calendar"],
+                f"{r['cutoff_time']} {r['time_zone']}",
+            ]
+            for r in rows
+        ]
+        print_table(
+            ["symbol", "kind", "ccy", "multiplier", "exercise", "settle", "q %", "beta", "ref",
+             "calendar", "close"],
+            table,
+            title=f"{len(rows)} underlyings",
+        )
+
+
+COMMANDS = [create, underlying]
