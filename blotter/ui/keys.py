@@ -90,7 +90,7 @@ KEYS: tuple[KeySpec, ...] = (
         "Explain: P&L since the last close, term by term",
         short="Explain",
     ),
-    KeySpec("vega-unit", "vega_unit", "u,ctrl+j", "Book: vega per vol point or per 1.00 of vol"),
+    KeySpec("vega-unit", "vega_unit", "u,ctrl+k", "Book: vega per vol point or per 1.00 of vol"),
     KeySpec(
         "clear-trials",
         "clear_trials",
@@ -225,7 +225,7 @@ KEYS: tuple[KeySpec, ...] = (
         where="form",
     ),
     KeySpec(
-        "form-back", "back", "f10,ctrl+j", "Form: back without booking", short="Back", where="form"
+        "form-back", "back", "f10,ctrl+o", "Form: back without booking", short="Back", where="form"
     ),
     KeySpec(
         "explain-from",
@@ -275,6 +275,7 @@ FORBIDDEN_KEYS = frozenset(
         "ctrl+h",
         "ctrl+i",
         "ctrl+m",
+        "ctrl+j",
         "f11",
         "f12",
         "ctrl+c",

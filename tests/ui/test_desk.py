@@ -418,7 +418,7 @@ async def test_book_total_leaves_share_columns_blank_and_vega_switches_unit(
         per_vol = float(str(table.get_cell("total", "vega_pt")).replace(",", ""))
         assert per_vol == pytest.approx(per_pt * 100, abs=100)
         assert "1.00" in str(table.columns["vega_pt"].label)  # type: ignore[index]
-        await pilot.press("ctrl+j")
+        await pilot.press("ctrl+k")
         await pilot.pause()
         assert float(str(table.get_cell("total", "vega_pt")).replace(",", "")) == per_pt
 
