@@ -118,6 +118,14 @@ class ReadOnlyError(StoreError):
         super().__init__(message)
 
 
+class SchemaUpgradeNeeded(StoreError):
+    """A read-only open found an older schema; a read-write open would migrate it."""
+
+    def __init__(self, message: str, version: int) -> None:
+        super().__init__(message)
+        self.version = version
+
+
 class BusyError(StoreError):
     """Another process held the write lock longer than the busy timeout; nothing was written."""
 
@@ -488,9 +496,10 @@ def open_store(
         version = _open_checks(conn, p, verify)
         if version < SCHEMA_VERSION:
             if read_only:
-                raise StoreError(
+                raise SchemaUpgradeNeeded(
                     f"{p} uses an older schema ({version}); open it once without "
-                    "--read-only to upgrade it"
+                    "--read-only to upgrade it",
+                    version,
                 )
             _migrate(conn, p)
         if not read_only:

@@ -25,8 +25,9 @@ def open_app(ctx: AppContext) -> None:
         raise click.ClickException(f"settings: {exc}") from None
     from blotter import store
 
-    try:  # a clear message for a missing or foreign file before the screen is taken over
-        store.open_store(db_path, read_only=True).close()
+    try:  # a clear message for a missing or foreign file before the screen is taken over; a
+        # read-write open also upgrades an older schema now, before the app's workers read it
+        store.open_store(db_path, read_only=settings.read_only).close()
     except store.StoreError as exc:
         raise click.ClickException(str(exc)) from None
 

@@ -35,6 +35,21 @@ def db_option(func: F) -> F:
     )(func)
 
 
+def open_for_reading(path: str) -> Any:
+    """``open_store(path, read_only=True)``; a file of an older schema is first upgraded by a
+    read-write open (saying so on stderr), unless the group's ``--read-only`` forbids writing."""
+    from blotter.store import SchemaUpgradeNeeded, open_store
+
+    try:
+        return open_store(path, read_only=True)
+    except SchemaUpgradeNeeded as exc:
+        if read_only_requested():
+            raise
+        open_store(path).close()
+        click.echo(f"blotter: upgraded {path} from schema {exc.version}", err=True)
+        return open_store(path, read_only=True)
+
+
 def resolve_db(db_path: str | None) -> tuple[str, bool]:
     """The book file to use and whether it was given explicitly; by default the user's demo copy.
 

@@ -16,6 +16,7 @@ import click
 from blotter.commands.common import (
     check_output_flags,
     db_option,
+    open_for_reading,
     output_options,
     print_csv,
     print_json,
@@ -66,11 +67,9 @@ def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
 
 
 def _open(db_path: str | None) -> Any:
-    from blotter.store import open_store
-
     path, _ = resolve_db(db_path)
     try:
-        return open_store(path, read_only=True)
+        return open_for_reading(path)
     except Exception as exc:  # the store's own errors name the file and the problem
         raise click.ClickException(f"cannot open {path}: {exc}") from exc
 

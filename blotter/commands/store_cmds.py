@@ -18,6 +18,7 @@ import click
 from blotter.commands.common import (
     check_output_flags,
     db_option,
+    open_for_reading,
     output_options,
     print_csv,
     print_json,
@@ -34,7 +35,10 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
 
     path, _explicit = resolve_db(db_path)
     try:
-        store = open_store(path, read_only=read_only or read_only_requested())
+        if read_only and not read_only_requested():
+            store = open_for_reading(path)
+        else:
+            store = open_store(path, read_only=read_only or read_only_requested())
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
     try:

@@ -299,3 +299,22 @@ def test_kill_during_migration_leaves_the_old_book_and_a_rerun_finishes(tmp_path
     conn.close()
     with open_store(old) as s:
         assert s.schema_version() == SCHEMA_VERSION and s.integrity_ok()
+
+
+def test_commands_upgrade_an_old_book_unless_read_only(tmp_path: Path) -> None:
+    """A report or list command on a book of an older schema upgrades it (saying so on stderr)
+    and answers; with the group's --read-only it is refused and the file stays as it was. (A
+    read-only open used to refuse it even without --read-only, asking for a flag not given.)"""
+    from click.testing import CliRunner
+
+    from blotter.cli import main
+
+    old = tmp_path / "old.db"
+    _make_v1_book(old)
+    refused = CliRunner().invoke(main, ["--read-only", "--db", str(old), "trade", "list"])
+    assert refused.exit_code == 1 and "older schema (1)" in refused.output
+    assert sqlite3.connect(old).execute("PRAGMA user_version").fetchone()[0] == 1
+    done = CliRunner().invoke(main, ["--db", str(old), "trade", "list", "--json"])
+    assert done.exit_code == 0, done.output
+    assert "upgraded" in done.stderr and '"quantity": 7' in done.stdout
+    assert sqlite3.connect(old).execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION

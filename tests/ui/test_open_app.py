@@ -66,3 +66,27 @@ def test_bad_settings_file_is_a_clear_error(
     result = CliRunner().invoke(main, ["--db", str(demo_db)])
     assert result.exit_code != 0 and "settings:" in result.output and "ctrl+q" in result.output
     assert not built
+
+
+def test_an_old_schema_book_is_upgraded_before_the_app_starts(
+    built: list[FakeApp], tmp_path: Path
+) -> None:
+    """Without --read-only the file is migrated before the app's workers open it (they open it
+    read-only, and a read-only open refuses an older schema); with it, a clear refusal."""
+    import sqlite3
+
+    from blotter.store import SCHEMA_VERSION, open_store
+
+    old = tmp_path / "old.db"
+    with open_store(old, create=True) as s:
+        s.add_book("main")
+    conn = sqlite3.connect(old)
+    conn.execute("PRAGMA user_version = 2")  # the v3 step only relaxes a trigger
+    conn.close()
+    refused = CliRunner().invoke(main, ["--db", str(old), "--read-only"])
+    assert refused.exit_code != 0 and "older schema (2)" in refused.output and not built
+    result = CliRunner().invoke(main, ["--db", str(old)], catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    assert len(built) == 1
+    with open_store(old, read_only=True) as s:
+        assert s.schema_version() == SCHEMA_VERSION
