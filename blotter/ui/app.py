@@ -140,7 +140,7 @@ class BlotterApp(App[None]):
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield ProfilePane()
         yield WhatIfBar()
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#load-progress", ProgressBar).display = False

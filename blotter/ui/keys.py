@@ -48,7 +48,6 @@ KEYS: tuple[KeySpec, ...] = (
         "toggle_row",
         "e,ctrl+o",
         "Expand or collapse the row (Enter too)",
-        short="Expand",
         where="book",
     ),
     KeySpec(
@@ -62,7 +61,7 @@ KEYS: tuple[KeySpec, ...] = (
         "sort", "sort_column", "s,f5", "Sort by the cursor's column; again to reverse", short="Sort"
     ),
     KeySpec(
-        "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate", short="Order"
+        "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate"
     ),
     KeySpec("grid", "next_grid", "x,f8", "Ladder: full P&L, estimate or error grid"),
     KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ $, Γ 1%, vega or θ day"),

@@ -48,7 +48,7 @@ class ExplainScreen(DeskScreen):
         yield self.title_line("Explain")
         yield DataTable(id="explain-table", classes="desk-table", cursor_type="row")
         yield Static("", classes="desk-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#explain-table", DataTable).focus()

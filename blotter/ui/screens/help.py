@@ -144,7 +144,7 @@ class HelpScreen(Screen[None]):
             yield Static(grammar_table(), id="help-grammar")
             yield Static("Cautions", classes="help-heading")
             yield Static(Text("\n".join(CAUTIONS)), id="help-cautions")
-        yield Footer()
+        yield Footer(compact=True)
 
     def action_close(self) -> None:
         self.dismiss()

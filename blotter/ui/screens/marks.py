@@ -72,7 +72,7 @@ class MarksScreen(DeskScreen):
             disabled=self.blotter.read_only,
         )
         yield Static("", classes="desk-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         table = self.query_one("#marks-table", DataTable)
@@ -369,7 +369,7 @@ class CloseReviewScreen(ModalScreen[None]):
         with VerticalScroll(classes="desk-body"):
             yield Static(text, id="review-text")
         yield Static("", classes="desk-message", id="review-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def say(self, words: str) -> None:
         self.query_one("#review-message", Static).update(Text(words, style="bold reverse"))

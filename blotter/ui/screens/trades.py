@@ -62,7 +62,7 @@ class TradesScreen(DeskScreen):
             id="trades-table", classes="desk-table", cursor_type="row", zebra_stripes=True
         )
         yield Static("", classes="desk-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         table = self.query_one("#trades-table", DataTable)
@@ -329,7 +329,7 @@ class TradeForm(ModalScreen[None]):
                     yield Label(label)
                     yield Input(id=f"form-{key}")
         yield Static("", classes="desk-message", id="form-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self._title()

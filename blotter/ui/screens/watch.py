@@ -30,7 +30,7 @@ class WatchScreen(DeskScreen):
         with VerticalScroll(classes="desk-body"):
             yield Static("working it out…", id="watch-text")
         yield Static("", classes="desk-message")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         state = self.blotter.state
