@@ -38,7 +38,7 @@ class Underlyings:
     kinds: tuple[str, ...]            # one of UNDERLYING_KINDS
     currencies: tuple[str, ...]       # ISO 4217 code of the instrument currency
     betas: np.ndarray                 # beta to the book's reference index, shape (n_u,)
-    div_yields: np.ndarray            # default dividend yield (stock/index) or foreign rate (fx), decimal
+    div_yields: np.ndarray            # default dividend yield (stock, index) or foreign rate (fx)
     calendars: tuple[str, ...]        # exchange holiday calendar name, e.g. "NYSE"
     descriptions: tuple[str, ...] = ()
 
@@ -46,9 +46,11 @@ class Underlyings:
         n = len(self.symbols)
         for name in ("kinds", "currencies", "calendars"):
             if len(getattr(self, name)) != n:
-                raise ValueError(f"Underlyings.{name} has {len(getattr(self, name))} entries, expected {n}")
+                got = len(getattr(self, name))
+                raise ValueError(f"Underlyings.{name} has {got} entries, expected {n}")
         object.__setattr__(self, "betas", read_only(np.asarray(self.betas, dtype=np.float64)))
-        object.__setattr__(self, "div_yields", read_only(np.asarray(self.div_yields, dtype=np.float64)))
+        divs = read_only(np.asarray(self.div_yields, dtype=np.float64))
+        object.__setattr__(self, "div_yields", divs)
         if self.betas.shape != (n,) or self.div_yields.shape != (n,):
             raise ValueError("Underlyings.betas and div_yields must have one entry per symbol")
         if not self.descriptions:
@@ -92,7 +94,8 @@ class Book:
     def __post_init__(self) -> None:
         n = len(self.contract_ids)
         casts = {
-            "contract_ids": np.int64, "underlying_idx": np.int64, "is_option": bool, "is_call": bool,
+            "contract_ids": np.int64, "underlying_idx": np.int64, "is_option": bool,
+            "is_call": bool,
             "american": bool, "strikes": np.float64, "expiries": "datetime64[s]",
             "multipliers": np.float64, "quantities": np.float64,
         }
@@ -110,7 +113,8 @@ class Book:
             object.__setattr__(self, name, read_only(arr))
         if len(self.labels) != n:
             raise ValueError(f"Book.labels has {len(self.labels)} entries, expected {n}")
-        if n and (self.underlying_idx.min() < 0 or self.underlying_idx.max() >= len(self.underlyings)):
+        idx = self.underlying_idx
+        if n and (idx.min() < 0 or idx.max() >= len(self.underlyings)):
             raise ValueError("Book.underlying_idx points outside the underlyings")
 
     def __len__(self) -> int:

@@ -16,7 +16,8 @@ from blotter.commands.common import AppContext
 @click.option("--db", "db_path", type=click.Path(dir_okay=False), envvar="BLOTTER_DB",
               help="Book file (SQLite). Default: $BLOTTER_DB, else your own copy of the demo book.")
 @click.option("--read-only", is_flag=True, help="Open the book read-only: nothing can be written.")
-@click.option("--no-mouse", is_flag=True, help="App: leave the mouse to the terminal (text selection).")
+@click.option("--no-mouse", is_flag=True,
+              help="App: leave the mouse to the terminal (text selection).")
 @click.version_option(package_name="blotter")
 @click.pass_context
 def main(ctx: click.Context, db_path: str | None, read_only: bool, no_mouse: bool) -> None:

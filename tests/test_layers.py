@@ -11,8 +11,9 @@ import pytest
 ROOT = Path(__file__).resolve().parents[1]
 
 
-@pytest.mark.parametrize("module", ["blotter.engine", "blotter.store", "blotter.cli", "blotter.risk",
-                                    "blotter.scenario"])
+@pytest.mark.parametrize(
+    "module", ["blotter.engine", "blotter.store", "blotter.cli", "blotter.risk", "blotter.scenario"]
+)
 def test_core_and_cli_import_without_textual(module: str) -> None:
     code = (
         "import importlib, sys\n"
@@ -30,7 +31,8 @@ def test_engine_imports_only_numpy_and_scipy() -> None:
         "import sys; before = set(sys.modules)\n"
         "import blotter.engine\n"
         "new = {m.split('.')[0] for m in set(sys.modules) - before}\n"
-        "bad = sorted(new & {'sqlite3', 'sqlite_utils', 'click', 'rich', 'textual', 'datetime_tz'})\n"
+        "bad = sorted(new & {'sqlite3', 'sqlite_utils', 'click', 'rich', 'textual',"
+        " 'datetime_tz'})\n"
         "bad += sorted(m for m in sys.modules if m.startswith('blotter.') and not"
         " m.startswith('blotter.engine'))\n"
         "print(','.join(bad))\n"

@@ -1,4 +1,4 @@
-"""What every command shares: the group's context, the ``--db`` option, and table/JSON/CSV output."""
+"""What every command shares: the group's context, ``--db``, and table, JSON and CSV output."""
 
 from __future__ import annotations
 
