@@ -418,6 +418,39 @@ def contract_label(
     return f"{symbol} {expiry} {strike:.10g} {option_type}"
 
 
+def preview_contract(
+    underlying: dict[str, Any],
+    expiry: date | str | None,
+    strike: float | None,
+    is_call: bool | None,
+    contract_id: int,
+) -> ContractRecord:
+    """The contract ``add_trade`` would create for these terms with the underlying's defaults,
+    built without touching the file (for a trial trade on a contract the store does not know).
+
+    ``underlying`` is a row of ``Store.underlying_records``; ``contract_id`` is the caller's own
+    (negative for trials, so it never meets a stored id). StoreError for terms ``add_trade``
+    would refuse."""
+    opt_type, exp_text, k = _contract_terms(expiry, strike, is_call)
+    cutoff = None if opt_type == "U" else str(underlying["cutoff_time"])
+    symbol = str(underlying["symbol"])
+    return ContractRecord(
+        contract_id=contract_id,
+        symbol=symbol,
+        option_type=opt_type,
+        expiry=date.fromisoformat(exp_text) if exp_text else None,
+        strike=k,
+        cutoff_time=cutoff,
+        american=bool(underlying["american"]),
+        multiplier=float(underlying["multiplier"]),
+        cash_settled=bool(underlying["cash_settled"]),
+        label=contract_label(symbol, opt_type, exp_text, k),
+        cutoff_utc=_cutoff_utc(exp_text, cutoff, str(underlying["time_zone"]))
+        if exp_text and cutoff
+        else None,
+    )
+
+
 def _cutoff_utc(expiry: str, cutoff: str, tz_name: str) -> datetime:
     hh, mm = (int(x) for x in cutoff.split(":"))
     local = datetime.combine(date.fromisoformat(expiry), time(hh, mm), tzinfo=ZoneInfo(tz_name))

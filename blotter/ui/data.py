@@ -721,6 +721,32 @@ class TrialTrade:
     book: str
 
 
+def trial_contract(
+    underlyings: dict[str, dict[str, Any]], terms: ContractTerms, trials: Sequence[TrialTrade]
+) -> Any:
+    """A ``store.ContractRecord`` for a trial on a contract the store does not have yet: the
+    underlying's defaults (``store.preview_contract``), with a negative id of its own (the same
+    id as an earlier trial of the same new contract). ValueError naming what is wrong."""
+    from blotter import store
+
+    und = underlyings.get(terms.symbol)
+    if und is None:
+        raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
+    label = store.contract_label(
+        terms.symbol,
+        "U" if terms.expiry is None else ("C" if terms.is_call else "P"),
+        terms.expiry,
+        terms.strike,
+    )
+    new_ids = [t.contract.contract_id for t in trials if t.contract.contract_id < 0]
+    same = [t.contract.contract_id for t in trials if t.contract.label == label]
+    cid = same[0] if same else min(new_ids, default=0) - 1
+    try:
+        return store.preview_contract(und, terms.expiry, terms.strike, terms.is_call, cid)
+    except store.StoreError as exc:
+        raise ValueError(str(exc)) from None
+
+
 def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
     """The live book with the trials appended as ``is_trial`` rows (``Book.with_trials``)."""
     if not trials:

@@ -402,6 +402,53 @@ async def test_promoting_a_trial_books_it(demo_db: Path) -> None:
     assert counts(demo_db)[0] == before[0] + 1
 
 
+def contract_count(db: Path) -> int:
+    con = sqlite3.connect(db)
+    try:
+        return int(con.execute("SELECT count(*) FROM contract").fetchone()[0])
+    finally:
+        con.close()
+
+
+async def test_a_trial_on_a_contract_the_store_lacks_is_layered_then_promoted(
+    demo_db: Path,
+) -> None:
+    """A what-if trade on a strike nobody has traded: the contract takes the underlying's
+    defaults in memory (American, 100 per contract, the 16:00 New York cut-off), nothing is
+    written, two trials of it share one contract, and promoting them creates it in the store."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    before, n_contracts = counts(demo_db), contract_count(demo_db)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        for qty in ("5", "-2"):
+            await pilot.press("i")
+            await pilot.pause()
+            await fill(pilot, "DEMOA", "2027-09-17", "215", "c", qty, "4.2")
+            await pilot.press("enter")
+            await settle(app, pilot)
+            assert isinstance(app.screen, TradesScreen), message(app)
+        assert "a new contract, not in the store" in message(app)
+        first, second = (t.contract for t in app.trials)
+        assert first.contract_id == second.contract_id < 0
+        assert first.label == "DEMOA 2027-09-17 215 C"
+        assert (first.american, first.multiplier) == (True, 100.0)
+        assert first.cutoff_utc is not None and first.cutoff_utc.hour == 20  # 16:00 New York, EDT
+        await pilot.press("q")
+        await settle(app, pilot)
+        book = app.state.valuation.book  # type: ignore[union-attr]
+        rows = np.flatnonzero(book.is_trial)
+        assert len(rows) >= 1 and all(book.labels[i] == first.label for i in rows)
+        assert float(book.quantities[rows].sum()) == 3.0
+        assert np.isfinite(app.state.valuation.value[rows]).all()  # type: ignore[union-attr]
+        assert counts(demo_db) == before and contract_count(demo_db) == n_contracts
+        await open_trades(app, pilot)
+        await pilot.press("p")
+        await settle(app, pilot)
+        assert "2 trial(s) booked as trades" in message(app)
+    assert counts(demo_db)[0] == before[0] + 2
+    assert contract_count(demo_db) == n_contracts + 1
+
+
 async def test_book_total_leaves_share_columns_blank_and_vega_switches_unit(
     demo_app: BlotterApp,
 ) -> None:

@@ -1,9 +1,10 @@
 """The Trades screen (the blotter proper): every trade with its state, filtered by typing.
 
 Add a trade or a trial from one keyboard form (the contract picked by symbol, expiry, strike and
-call/put; a contract the store does not know is created after a confirmation), cancel with a
-reason, amend. Each change is a new row in the store. Trials live in the app's memory only: they
-are layered on the live book everywhere, marked ``T``, and written only when promoted.
+call/put; a contract the store does not know is created after a confirmation, or for a trial
+built in memory with the underlying's defaults), cancel with a reason, amend. Each change is a
+new row in the store. Trials live in the app's memory only: they are layered on the live book
+everywhere, marked ``T``, and written only when promoted.
 """
 
 from __future__ import annotations
@@ -53,6 +54,7 @@ class TradesScreen(DeskScreen):
         self.contracts: list[Any] = []
         self.books: list[str] = []
         self.symbols: list[str] = []
+        self.underlyings: dict[str, dict[str, Any]] = {}  # store.underlying_records by symbol
         self.shown_ids: list[str] = []
 
     def compose(self) -> ComposeResult:
@@ -86,6 +88,7 @@ class TradesScreen(DeskScreen):
                     st.contracts(),
                     st.book_names(),
                     list(st.load_underlyings().symbols),
+                    {r["symbol"]: r for r in st.underlying_records()},
                 )
             finally:
                 st.close()
@@ -269,7 +272,8 @@ class TradesScreen(DeskScreen):
         message.stop()
         if message.what == "trades-load":
             if message.ok:
-                self.records, self.contracts, self.books, self.symbols = message.payload
+                (self.records, self.contracts, self.books, self.symbols,
+                 self.underlyings) = message.payload
                 self.show()
             else:
                 self.say(message.words, bad=True)
@@ -436,11 +440,16 @@ class TradeForm(ModalScreen[None]):
             return
         contract = data.find_contract(self.trades.contracts, terms)
         if self.kind == "trial":
-            if contract is None:
-                self.say(f"✗ {terms.label()} is not a contract yet: book a trade to create it")
-                return
+            new = contract is None
+            if new:
+                try:
+                    contract = data.trial_contract(self.trades.underlyings, terms, app.trials)
+                except (ValueError, KeyError) as exc:
+                    self.say(f"✗ {exc}")
+                    return
             app.add_trial(contract, qty, price, book)
-            self.trades.say(f"trial {contract.label} ×{qty:+d} added (not in the store)")
+            where = "a new contract, not in the store" if new else "not in the store"
+            self.trades.say(f"trial {contract.label} ×{qty:+d} added ({where})")
             self.trades.show()
             self.dismiss()
             return
