@@ -418,6 +418,12 @@ def contract_label(
     return f"{symbol} {expiry} {strike:.10g} {option_type}"
 
 
+def hedge_multiplier(kind: str, option_multiplier: float) -> float:
+    """Default units per contract of a trade in the underlying itself: a stock, index or FX
+    quantity counts units (1), a future's counts contracts (the underlying's multiplier)."""
+    return float(option_multiplier) if kind == "future" else 1.0
+
+
 def preview_contract(
     underlying: dict[str, Any],
     expiry: date | str | None,
@@ -442,7 +448,9 @@ def preview_contract(
         strike=k,
         cutoff_time=cutoff,
         american=bool(underlying["american"]),
-        multiplier=float(underlying["multiplier"]),
+        multiplier=hedge_multiplier(str(underlying["kind"]), float(underlying["multiplier"]))
+        if opt_type == "U"
+        else float(underlying["multiplier"]),
         cash_settled=bool(underlying["cash_settled"]),
         label=contract_label(symbol, opt_type, exp_text, k),
         cutoff_utc=_cutoff_utc(exp_text, cutoff, str(underlying["time_zone"]))
@@ -1133,11 +1141,12 @@ class Store:
         multiplier: float | None,
         cash_settled: bool | None,
     ) -> int:
-        uid, u_mult, u_am, u_cash, u_cut, _kind = self._underlying(conn, symbol)
+        uid, u_mult, u_am, u_cash, u_cut, kind = self._underlying(conn, symbol)
         terms = _contract_terms(expiry, strike, is_call)
         opt_type, exp_text, k = terms
         am = int(u_am if american is None else bool(american))
-        mult = float(u_mult if multiplier is None else multiplier)
+        default = hedge_multiplier(kind, u_mult) if opt_type == "U" else u_mult
+        mult = float(default if multiplier is None else multiplier)
         if not (math.isfinite(mult) and mult > 0):
             raise StoreError(f"multiplier must be positive, got {multiplier!r}")
         cash = int(u_cash if cash_settled is None else bool(cash_settled))

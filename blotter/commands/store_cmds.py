@@ -119,7 +119,8 @@ def trade() -> None:
     "quantity",
     type=int,
     required=True,
-    help="Signed quantity: contracts for an option, shares (units) for the underlying.",
+    help="Signed quantity: contracts for an option or a future, shares (units) for a stock, "
+    "index or FX underlying.",
 )
 @click.option(
     "--price",
@@ -145,7 +146,12 @@ def trade() -> None:
 @click.option(
     "--american/--european", default=None, help="Exercise style (default: the underlying's)."
 )
-@click.option("--multiplier", type=float, help="Units per contract (default: the underlying's).")
+@click.option(
+    "--multiplier",
+    type=float,
+    help="Units per contract (default: the underlying's for options and futures, 1 for a "
+    "stock, index or FX hedge).",
+)
 @click.option(
     "--cash-settled/--physical",
     "cash_settled",

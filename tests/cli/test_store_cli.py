@@ -401,3 +401,31 @@ def test_trade_add_books_only_into_a_book_that_exists(
     run(*add_one, "--book", "solo", "--new-book")
     again = json.loads(run(*add_one, "--json").stdout)  # the file's only book is the default
     assert again["book"] == "solo"
+
+
+def test_a_hedge_in_the_underlying_counts_shares_for_a_stock_and_contracts_for_a_future(
+    tmp_path: Path,
+) -> None:
+    """`trade add SYMBOL --qty N` with no option terms: N shares of a stock (delta 1 each, common
+    practice) and N futures contracts of the underlying's size. A stock hedge once took the
+    option multiplier and counted 100 shares a unit."""
+    import shutil
+
+    from blotter.store import shipped_demo_path
+
+    db = str(tmp_path / "hedge.db")
+    shutil.copy(shipped_demo_path(), db)
+
+    def delta_shares() -> dict[str, float]:
+        out = json.loads(run("--db", db, "risk", "--json").stdout)
+        return {r["underlying"]: r["delta_shares"] for r in out["by_underlying"]}
+
+    before = delta_shares()
+    run("--db", db, "trade", "add", "DEMOA", "--book", "equity-vol", "--qty", "-500",
+        "--price", "187.80")
+    run("--db", db, "trade", "add", "DEMOFU", "--book", "index-vol", "--qty", "2",
+        "--price", "4830")
+    after = delta_shares()
+    assert after["DEMOA"] - before["DEMOA"] == pytest.approx(-500.0, abs=1e-6)
+    assert after["DEMOFU"] - before["DEMOFU"] == pytest.approx(2 * 50.0, abs=1e-6)
+    assert after["DEMOB"] == before["DEMOB"]
