@@ -1343,7 +1343,7 @@ def _pick_sets(
         if len(closes) < 2:
             raise ValueError(
                 f"explain needs two close mark sets; the book has {len(closes)} "
-                "(give --from, and --to now for the marks in force)"
+                "(give --to now to explain against the marks in force)"
             )
         frm, to = closes[-2], closes[-1]
     else:

@@ -1108,7 +1108,10 @@ class Store:
             (symbol,),
         ).fetchone()
         if row is None:
-            raise StoreError(f"unknown underlying {symbol!r}")
+            raise StoreError(
+                f"unknown underlying {symbol!r} (`blotter underlying list` shows them; "
+                "`blotter underlying add` adds one)"
+            )
         return tuple(row)
 
     def find_or_create_contract(
@@ -1238,7 +1241,7 @@ class Store:
         _check_source(source)
         with self._write() as conn:
             book_id = self._known_book_id(
-                conn, book, create_book, "to start a new book give create_book=True (--new-book)"
+                conn, book, create_book, "--new-book starts a new one on purpose"
             )
             if contract_id is None:
                 cid = self._contract_id(

@@ -52,8 +52,15 @@ def _money(x: float, places: int = 0) -> str:
     return f"{x:,.{places}f}"
 
 
+def _days(n: float) -> str:
+    """``1 calendar day``, ``3 calendar days``, ``0.5 calendar days``."""
+    return f"{n:g} calendar day" + ("" if n == 1 else "s")
+
+
 def _pct(x: float) -> str:
-    return "—" if not math.isfinite(x) else f"{x:+.1f}%"
+    if not math.isfinite(x):
+        return "—"
+    return "0.0%" if abs(x) < 0.05 else f"{x:+.1f}%"
 
 
 def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
@@ -362,7 +369,7 @@ def risk(
     roll = apply_move(v, parse_move("bdays 1"))
     lines = [
         f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt",
-        f"roll to the next business day ({roll.roll_years * 365:g} calendar days, nothing else "
+        f"roll to the next business day ({_days(roll.roll_years * 365)}, nothing else "
         f"moving): full revaluation {_money(roll.total.full)} $, "
         f"θ × days {_money(roll.total.terms['theta'])} $",
     ]
@@ -673,9 +680,8 @@ def ladder(
             ]
             for a in range(len(sp))
         ]
-        click.echo(
-            f"{title} · {lad.rule}" + (f" · {days:g} days" if days else "") + " · book currency"
-        )
+        after = f" · after {_days(days)}" if days else ""
+        click.echo(f"{title} · {lad.rule}{after} · book currency")
         print_table(heads, rows, right=[True] * len(heads))
         click.echo("")
     click.echo(

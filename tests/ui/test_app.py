@@ -265,7 +265,9 @@ async def test_stale_marks_flagged_in_words(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=lambda: later)
     async with app.run_test(size=(160, 48)) as pilot:
         await settle(app, pilot)
-        assert "STALE: before the last close" in str(app.query_one("#header-line").render())
+        # Monday 10:00: the last close was Friday 2026-12-04 at 16:00 New York.
+        header = str(app.query_one("#header-line").render())
+        assert "STALE: older than the 12-04 16:00 close" in header
 
 
 async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:

@@ -537,8 +537,8 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
         expected = scenario.apply_move(
             state.valuation, scenario.Move(text="week", days=days)
         ).expiring
-        assert f"Options expiring this week, by the end of Sunday ({days:.1f} days) " in text
-        assert f"({len(expected)}), pin risk" in text
+        assert f"Options expiring by the end of Sunday (in {days:.1f} days): " in text
+        assert f"days): {len(expected)}; pin risk" in text
 
 
 async def test_read_only_app_cannot_write(demo_db: Path) -> None:

@@ -77,7 +77,10 @@ def grammar_text() -> str:
     doc = inspect.getdoc(scenario) or ""
     rule = doc.rsplit("\n\n", 1)[-1] if "sticky" in doc.rsplit("\n\n", 1)[-1] else ""
     if rule:
-        lines += ["", " ".join(rule.split())]
+        band = getattr(scenario, "PIN_BAND_PCT", None)
+        if band is not None:
+            rule = rule.replace("``PIN_BAND_PCT``", f"{band:g}%")
+        lines += ["", " ".join(rule.replace("``", "").split())]
     lines += [
         "",
         "Keywords are case-insensitive; parts combine in any order and apply together. "

@@ -73,9 +73,8 @@ class WatchScreen(DeskScreen):
             text.append("  none (limits: [alerts] in the config file)\n")
         pins = [e for e in expiring if e.pin_risk]
         text.append(
-            f"\nOptions expiring this week, by the end of Sunday ({days:.1f} days) "
-            f"({len(expiring)}), pin risk within {scenario.PIN_BAND_PCT:g}% of the strike "
-            f"({len(pins)})\n",
+            f"\nOptions expiring by the end of Sunday (in {days:.1f} days): {len(expiring)}; "
+            f"pin risk, within {scenario.PIN_BAND_PCT:g}% of the strike: {len(pins)}\n",
             style="bold",
         )
         for e in expiring:

@@ -34,7 +34,8 @@ class HeaderLine(Static):
         else:
             text.append(f" │ {state.mark_kind} marks {when} ({age.words} old)")
         if age.stale and (market.spots or market.surfaces or market.curves):
-            text.append(" STALE: before the last close", style="bold reverse")
+            closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
+            text.append(f" STALE: older than the {closed} close", style="bold reverse")
         text.append(f" │ {Path(state.db_path).name}")
         if state.read_only:
             text.append(" │ ")
