@@ -13,11 +13,12 @@ import numpy as np
 
 UNDERLYING_KINDS = ("stock", "index", "future", "fx")
 """Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
-SYMBOL_PATTERN = re.compile(r"^[A-Za-z][A-Za-z0-9._/-]*$")
+SYMBOL_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9._/-]*\Z")
 """What a symbol looks like: a letter, then letters, digits and . _ / - (one word of a move)."""
-MOVE_WORDS = ("spot", "vol", "days", "bdays", "rate", "moneyness", "sticky-moneyness", "beta",
-              "weighted")
-"""Words of the what-if grammar, which a new underlying's symbol may not be."""
+MOVE_PARTS = ("spot", "vol", "days", "bdays", "rate")
+"""The parts of a what-if move (``scenario`` parses them)."""
+MOVE_WORDS = (*MOVE_PARTS, "moneyness", "sticky-moneyness", "beta", "weighted")
+"""Every word of the what-if grammar, which a new underlying's symbol may not be."""
 
 
 def read_only(a: np.ndarray) -> np.ndarray:

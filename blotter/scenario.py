@@ -43,15 +43,15 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
-from blotter.book import SYMBOL_PATTERN, Book
+from blotter.book import MOVE_PARTS, SYMBOL_PATTERN, Book
 from blotter.market import VOL_FLOOR
 from blotter.risk import BookValuation, intrinsic, value_book
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
+"""Taylor terms, in the order they are shown."""
 EXPLAIN_TERMS = TERM_NAMES + ("carry",)
 """Explain's terms: the what-if's, and ``carry`` for a change of the cost of carry b that the rate
 does not account for (a dividend yield mark, a foreign rate)."""
-"""Taylor terms, in the order they are shown."""
 
 FIRST_ORDER = ("delta", "vega", "theta", "rho")
 """Terms of the first-order estimate; the second order adds gamma, volga and vanna."""
@@ -200,7 +200,7 @@ class Move:
 _NUMBER = re.compile(r"^(?P<sign>[+-])?(?P<num>\d+(?:\.\d*)?|\.\d+)(?P<unit>%|bp)?$", re.IGNORECASE)
 _LEVEL = re.compile(r"^=(?P<num>\d+(?:\.\d*)?|\.\d+)$")
 _SYMBOL = SYMBOL_PATTERN
-_KEYWORDS = ("spot", "vol", "days", "bdays", "rate")
+_KEYWORDS = MOVE_PARTS
 
 
 def _tokens(text: str) -> list[tuple[str, int, int]]:

@@ -1021,6 +1021,10 @@ class Store:
         with self._write() as conn:
             if conn.execute("SELECT 1 FROM underlying WHERE symbol = ?", (symbol,)).fetchone():
                 raise StoreError(f"underlying {symbol!r} already exists")
+            if is_reference and conn.execute(
+                "SELECT 1 FROM underlying WHERE is_reference = 1"
+            ).fetchone():
+                raise StoreError("the book already has a reference index; nothing added")
             cur = conn.execute(
                 "INSERT INTO underlying (symbol, description, kind, currency, multiplier, "
                 "american, "
@@ -1159,6 +1163,23 @@ class Store:
                 "AND american = ? AND multiplier = ? AND cash_settled = ?",
                 (uid, am, mult, cash),
             ).fetchone()
+            if row is None and multiplier is None:
+                # A file booked before hedges defaulted to one unit may hold them at the option
+                # multiplier: a new contract at the default would not net against them.
+                others = sorted(
+                    r[0]
+                    for r in conn.execute(
+                        "SELECT DISTINCT multiplier FROM contract WHERE underlying_id = ? "
+                        "AND option_type = 'U'",
+                        (uid,),
+                    )
+                )
+                if others:
+                    held = ", ".join(f"{m:g}" for m in others)
+                    raise StoreError(
+                        f"{symbol} trades in the underlying are held here at {held} units per "
+                        f"contract, not the default {mult:g}: give the multiplier (--multiplier)"
+                    )
             cutoff = None
         else:
             row = conn.execute(
@@ -1241,7 +1262,7 @@ class Store:
         _check_source(source)
         with self._write() as conn:
             book_id = self._known_book_id(
-                conn, book, create_book, "--new-book starts a new one on purpose"
+                conn, book, create_book, "start a new book on purpose (command line: --new-book)"
             )
             if contract_id is None:
                 cid = self._contract_id(

@@ -28,7 +28,7 @@ if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow
 
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
-"""Taylor term keys of ``blotter whatif --json`` and ``explain --json``."""
+"""Taylor term keys of ``blotter whatif --json`` (``explain --json`` adds ``carry``)."""
 EXPLAIN_KEYS = (*TERM_KEYS, "carry")
 """Explain's terms: the what-if's and ``carry`` (a dividend yield or foreign rate change)."""
 
@@ -749,7 +749,7 @@ def explain(
     try:
         ex = run_explain(store, from_set, to_set)
     except (KeyError, ValueError, StoreError) as exc:
-        raise click.ClickException(str(exc.args[0] if exc.args else exc)) from exc
+        raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     if as_json:
         print_json(
             {

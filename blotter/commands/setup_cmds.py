@@ -12,6 +12,7 @@ import re
 
 import click
 
+from blotter.book import UNDERLYING_KINDS
 from blotter.commands.common import (
     check_output_flags,
     db_option,
@@ -84,7 +85,7 @@ def underlying() -> None:
 @click.argument("symbol")
 @click.option(
     "--kind",
-    type=click.Choice(["stock", "index", "future", "fx"]),
+    type=click.Choice(UNDERLYING_KINDS),
     required=True,
     help="stock, index, future (options on it are Black-76, carry 0) or fx.",
 )
@@ -155,8 +156,6 @@ def underlying_add(
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--calendar") from None
     with _store(db_path) as store:
-        if reference and any(r["is_reference"] for r in store.underlying_records()):
-            raise click.ClickException("the book already has a reference index; nothing added")
         uid = store.add_underlying(
             symbol,
             kind,

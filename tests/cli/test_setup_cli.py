@@ -60,6 +60,7 @@ def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) 
     [
         (["QQZ"], "already exists"),
         (["Q Z"], "no spaces"),
+        (["QQY\n"], "no spaces"),
         (["spot"], "not a word of the what-if"),
         (["QQY", "--currency-x", "USD"], "No such option"),
         (["QQY", "--reference"], "already has a reference index"),

@@ -429,3 +429,19 @@ def test_a_hedge_in_the_underlying_counts_shares_for_a_stock_and_contracts_for_a
     assert after["DEMOA"] - before["DEMOA"] == pytest.approx(-500.0, abs=1e-6)
     assert after["DEMOFU"] - before["DEMOFU"] == pytest.approx(2 * 50.0, abs=1e-6)
     assert after["DEMOB"] == before["DEMOB"]
+
+
+def test_a_hedge_default_that_would_not_net_old_hedges_is_refused(tmp_path: Path) -> None:
+    """A file whose stock hedges were booked at 100 per contract (the old default): a hedge with
+    no --multiplier is refused, naming what is held, instead of opening a second hedge line."""
+    db = str(tmp_path / "old-hedges.db")
+    run("create", db, "--book", "desk")
+    run("--db", db, "underlying", "add", "QQZ", "--kind", "stock", "--currency", "USD",
+        "--multiplier", "100")
+    run("--db", db, "trade", "add", "QQZ", "--qty", "5", "--price", "50", "--multiplier", "100")
+    refused = run("--db", db, "trade", "add", "QQZ", "--qty", "-5", "--price", "51", code=1)
+    assert "held here at 100 units per contract" in refused.output
+    assert len(json.loads(run("--db", db, "trade", "list", "--json").stdout)) == 1
+    run("--db", db, "trade", "add", "QQZ", "--qty", "-5", "--price", "51", "--multiplier", "100")
+    book = open_store(db, read_only=True).load_book()
+    assert len(book) == 0  # the two trades net to nothing on one contract

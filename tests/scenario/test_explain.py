@@ -265,6 +265,10 @@ def test_a_dividend_yield_mark_change_is_the_carry_term() -> None:
     stk = ex.start.book.underlying_idx == ex.start.book.underlyings.index_of("STK")
     want = float(np.sum((g.carry_rho * u * -0.01)[stk & ex.start.book.is_option]))
     assert rows["STK"].terms["carry"] == pytest.approx(want, rel=1e-12)
+    # Against QuantLib: the P&L of the yield change alone (60 days both sides) is the carry
+    # term to first order in dq = 1%.
+    ql_q = -2000 * (ql_price(False, 120.0, 115, 60, RATE, 0.03, 0.35) - stk0)
+    assert rows["STK"].terms["carry"] == pytest.approx(ql_q, rel=0.03)
     assert rows["STK"].terms["carry"] < 0.0        # theta over the weekend outweighs it in actual
     assert rows["STK"].terms["rho"] == 0.0 and rows["IDX"].terms["carry"] == 0.0
     # What is left unexplained is theta's and the second-order carry's share, small next to it.
