@@ -12,6 +12,7 @@ import math
 from typing import Any
 
 from rich.text import Text
+from textual import events
 from textual.app import ComposeResult
 from textual.containers import ScrollableContainer, Vertical
 from textual.widgets import Static
@@ -45,6 +46,24 @@ COLUMNS = ("label", "full", "estimate", "error", "error_pct") + tuple(k for k, _
 """Column keys of the grid, left to right."""
 
 
+VALUE_WIDTHS = (MONEY_WIDTH, MONEY_WIDTH, MONEY_WIDTH + 1, PCT_WIDTH) + (TERM_WIDTH,) * len(TERMS)
+"""Widths of the columns after the label, left to right (the error cell holds the flag too)."""
+
+
+def fit_label_width(width: int) -> int:
+    """The label column's width that makes the last column shown in ``width`` whole.
+
+    A number cut at the pane's edge (``-14`` of ``-14,210``) reads as another number; the
+    columns past the edge stay one scroll away.
+    """
+    used = LABEL_WIDTH
+    for w in VALUE_WIDTHS:
+        if used + w > width:
+            return LABEL_WIDTH + max(0, width - used)
+        used += w
+    return LABEL_WIDTH
+
+
 def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
     """True when |error| is above both the absolute and the relative alert threshold."""
     if not (math.isfinite(full) and math.isfinite(error)):
@@ -65,6 +84,7 @@ class MovePane(Vertical):
         self.stale_line = False  # the bar holds a line that does not parse
         self.cells: dict[tuple[str, str], str] = {}  # (row key, column) -> text shown
         self.row_keys: list[str] = []
+        self.label_width = LABEL_WIDTH
         self.border_title = "Move: type a move in the bar, e.g. spot -3% vol +2 days 1"
 
     def compose(self) -> ComposeResult:
@@ -75,10 +95,16 @@ class MovePane(Vertical):
     def on_mount(self) -> None:
         self.query_one("#move-expiring", Static).display = False
 
+    def on_resize(self, event: events.Resize) -> None:
+        width = fit_label_width(event.size.width - 2)  # less the vertical scrollbar's room
+        if width != self.label_width:
+            self.label_width = width
+            self.repaint()
+
     def _header(self) -> Text:
         n = self.order
         head = (
-            f"{'underlying':<{LABEL_WIDTH}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
+            f"{'underlying':<{self.label_width}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
             f"{f'error {n}':>{MONEY_WIDTH + 1}}{'err %':>{PCT_WIDTH}}"
             + "".join(f"{h:>{TERM_WIDTH}}" for _, h in TERMS)
         )
@@ -92,7 +118,7 @@ class MovePane(Vertical):
         flagged = error_flagged(row.full, err, self.alerts)
         label = "Σ total" if key == "total" else str(row.label)
         values = {
-            "label": label[:LABEL_WIDTH].ljust(LABEL_WIDTH),
+            "label": label[: self.label_width].ljust(self.label_width),
             "full": fmt.money(row.full, MONEY_WIDTH),
             "estimate": fmt.money(est, MONEY_WIDTH),
             "error": fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " "),
