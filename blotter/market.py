@@ -165,6 +165,12 @@ class Market:
         except KeyError:
             raise KeyError(f"no spot mark for {symbol!r}") from None
 
+    @property
+    def has_marks(self) -> bool:
+        """False for a file where no spot, vol or rate has been logged yet (``marks_as_of`` is
+        then a placeholder, not a time to show)."""
+        return bool(self.spots or self.surfaces or self.curves)
+
     def curve(self, currency: str) -> RateCurve:
         """The rate curve of ``currency``; KeyError naming it when there is no curve."""
         try:

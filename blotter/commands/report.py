@@ -118,11 +118,6 @@ def _with_hint(message: str) -> str:
     return message
 
 
-def _has_marks(v: BookValuation) -> bool:
-    m = v.market
-    return bool(m.spots or m.surfaces or m.curves)
-
-
 STALE_MARKS_DAYS = 1.0
 """Marks older than this (calendar days) at the valuation time get a warning on stderr."""
 
@@ -131,7 +126,7 @@ def _warn_stale(v: BookValuation) -> None:
     """Warn on stderr when the marks are far from the valuation time (stdout stays clean)."""
     from blotter import calendar as cal
 
-    if not _has_marks(v):
+    if not v.market.has_marks:
         return
     age_days = (
         float(cal.year_fraction(cal.to_instant(v.market.marks_as_of), v.valuation_time)) * 365
@@ -157,7 +152,7 @@ def _iso(t: Any) -> str:
 
 
 def _header(v: BookValuation) -> dict[str, Any]:
-    marks = _iso(v.market.marks_as_of) if _has_marks(v) else None
+    marks = _iso(v.market.marks_as_of) if v.market.has_marks else None
     return {"as_of": _iso(v.valuation_time), "marks_as_of": marks}
 
 
@@ -353,7 +348,7 @@ def risk(
         cols[4] = "vega $/1.00 vol"
     click.echo(
         f"risk at {_iso(v.valuation_time)} · marks "
-        + (_iso(v.market.marks_as_of) if _has_marks(v) else "none yet")
+        + (_iso(v.market.marks_as_of) if v.market.has_marks else "none yet")
         + " · money in book currency"
     )
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):

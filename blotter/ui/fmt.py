@@ -6,6 +6,7 @@ Only formatting lives here; the numbers come from ``blotter.risk`` and ``blotter
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from datetime import timedelta
 
 MISSING = "n/a"
@@ -68,3 +69,18 @@ def age_words(age: timedelta) -> str:
     if hours:
         return f"{hours} h {minutes} min"
     return f"{minutes} min"
+
+
+def fill_first_column(first: int, widths: Sequence[int], width: int) -> int:
+    """Width of a first column of at least ``first`` so that it and the whole columns of
+    ``widths`` that fit after it fill ``width`` exactly; ``first`` when they all fit.
+
+    A number cut at a pane's edge (``-14`` of ``-14,338``) reads as another number, so the
+    first column takes the slack; the columns past the edge stay one scroll away.
+    """
+    used = first
+    for w in widths:
+        if used + w > width:
+            return first + max(0, width - used)
+        used += w
+    return first

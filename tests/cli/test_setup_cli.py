@@ -42,7 +42,7 @@ def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) 
         "--multiplier", "50", "--european", "--cash-settled", "--reference", "--cutoff", "16:15")
     rows = json.loads(run("--db", str(db), "underlying", "list", "--json").stdout)
     assert [r["symbol"] for r in rows] == ["QQZ", "QQIX"]
-    assert rows[0] | {} == {
+    assert rows[0] == {
         "symbol": "QQZ", "kind": "stock", "currency": "USD", "multiplier": 100.0,
         "american": True, "cash_settled": False, "div_yield": 0.015, "beta": 1.3,
         "is_reference": False, "calendar": "NYSE", "time_zone": "America/New_York",

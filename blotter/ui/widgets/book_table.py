@@ -109,15 +109,9 @@ class BookTable(DataTable[str | Text]):
         columns past the edge stay one scroll away.
         """
         pad = 2 * self.cell_padding
-        used = LABEL_WIDTH + pad
-        for key, _ in BOOK_COLUMNS:
-            if used + COLUMN_WIDTHS[key] + pad > width:
-                break
-            used += COLUMN_WIDTHS[key] + pad
-        else:
-            used = width  # everything fits: no padding needed
+        widths = [COLUMN_WIDTHS[key] + pad for key, _ in BOOK_COLUMNS]
+        target = fmt.fill_first_column(LABEL_WIDTH + pad, widths, width) - pad
         label = self.columns.get("label")  # type: ignore[call-overload]
-        target = LABEL_WIDTH + max(0, width - used)
         if label is not None and label.width != target:
             label.width = target
             self._require_update_dimensions = True

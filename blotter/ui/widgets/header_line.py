@@ -25,15 +25,15 @@ class HeaderLine(Static):
         text.append(f"Book: {state.book_name}", style="bold")
         text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
         when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
-        market = state.valuation.market
-        if not (market.spots or market.surfaces or market.curves):
+        marked = state.valuation.market.has_marks
+        if not marked:
             text.append(" │ no marks yet: m opens Marks")
         elif age.words.startswith("dated after"):
             text.append(f" │ {state.mark_kind} marks {when}, ")
             text.append("AFTER the valuation time", style="bold")
         else:
             text.append(f" │ {state.mark_kind} marks {when} ({age.words} old)")
-        if age.stale and (market.spots or market.surfaces or market.curves):
+        if age.stale and marked:
             closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
             text.append(f" STALE: older than the {closed} close", style="bold reverse")
         text.append(f" │ {Path(state.db_path).name}")

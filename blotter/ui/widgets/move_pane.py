@@ -51,17 +51,8 @@ VALUE_WIDTHS = (MONEY_WIDTH, MONEY_WIDTH, MONEY_WIDTH + 1, PCT_WIDTH) + (TERM_WI
 
 
 def fit_label_width(width: int) -> int:
-    """The label column's width that makes the last column shown in ``width`` whole.
-
-    A number cut at the pane's edge (``-14`` of ``-14,210``) reads as another number; the
-    columns past the edge stay one scroll away.
-    """
-    used = LABEL_WIDTH
-    for w in VALUE_WIDTHS:
-        if used + w > width:
-            return LABEL_WIDTH + max(0, width - used)
-        used += w
-    return LABEL_WIDTH
+    """The label column's width that makes the last column shown in ``width`` whole."""
+    return fmt.fill_first_column(LABEL_WIDTH, VALUE_WIDTHS, width)
 
 
 def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
