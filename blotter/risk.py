@@ -242,7 +242,7 @@ def expiry_buckets(
 
     names: dict[tuple[int, int], str] = {}
     uniq, inverse = np.unique(
-        np.where(is_option, expiries, np.datetime64("NaT")), return_inverse=True
+        np.where(is_option, expiries, np.datetime64("NaT", "s")), return_inverse=True
     )
     per_unique: list[tuple[int, int]] = []
     for e in uniq:

@@ -77,7 +77,7 @@ def synthetic_book(
         is_call=is_opt & (rng.random(n) < 0.5),
         american=american,
         strikes=strikes,
-        expiries=np.where(is_opt, expiries, np.datetime64("NaT")),
+        expiries=np.where(is_opt, expiries, np.datetime64("NaT", "s")),
         multipliers=np.where(is_opt, 100.0, 1.0),
         quantities=np.where(is_opt, rng.integers(-50, 51, n) + 0.5, 1000.0),
     )

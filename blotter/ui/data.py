@@ -99,7 +99,7 @@ class BookTree:
         if n:
             local = np.array(
                 [
-                    cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT")
+                    cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT", "D")
                     for e in np.unique(self.book.expiries)
                 ],
                 dtype="datetime64[D]",
@@ -769,7 +769,7 @@ def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
             [
                 np.datetime64(c.cutoff_utc.astimezone(UTC).replace(tzinfo=None), "s")
                 if c.cutoff_utc is not None
-                else np.datetime64("NaT")
+                else np.datetime64("NaT", "s")
                 for c in cs
             ],
             dtype="datetime64[s]",

@@ -5,14 +5,36 @@ Accept new pictures with ``--snapshot-update`` only after looking at the report.
 
 from __future__ import annotations
 
+import re
+from importlib.metadata import version
 from pathlib import Path
 from typing import Any
+
+import pytest
 
 from blotter.ui.app import make_app
 
 from .conftest import TEST_SETTINGS, frozen_clock, settle
 
 SIZE = (80, 24)
+
+_CONSTRAINTS = Path(__file__).resolve().parents[2] / ".ci" / "constraints.txt"
+
+
+def _drawn_with() -> str | None:
+    """The Textual version the snapshots were drawn with (``.ci/constraints.txt``)."""
+    if not _CONSTRAINTS.exists():
+        return None
+    found = re.search(r"^textual==(\S+)$", _CONSTRAINTS.read_text(), re.MULTILINE)
+    return found.group(1) if found else None
+
+
+_DRAWN_WITH = _drawn_with()
+pytestmark = pytest.mark.skipif(
+    _DRAWN_WITH is None or version("textual") != _DRAWN_WITH,
+    reason=f"snapshots were drawn with Textual {_DRAWN_WITH}; this is {version('textual')}, "
+    "whose rendering may differ (install with PIP_CONSTRAINT=.ci/constraints.txt to compare)",
+)
 
 
 def _app(db: Path) -> Any:
