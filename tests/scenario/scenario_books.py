@@ -62,7 +62,9 @@ def make_book(
     is_opt = np.array([r.strike is not None for r in rows], dtype=bool)
     exp = np.array(
         [
-            T0 + np.timedelta64(_seconds(r), "s") if r.strike is not None else np.datetime64("NaT", "s")
+            T0 + np.timedelta64(_seconds(r), "s")
+            if r.strike is not None
+            else np.datetime64("NaT", "s")
             for r in rows
         ],
         dtype="datetime64[s]",
