@@ -761,6 +761,24 @@ class _ContractArrays:
 _F = TypeVar("_F", bound=Callable[..., Any])
 
 
+def _integrity_problems(conn: sqlite3.Connection, read_only: bool) -> list[str]:
+    """``PRAGMA integrity_check``'s lines for the book on ``conn``.
+
+    SQLite checks CHECK constraints only on a database it could write, so a read-only book is
+    checked as an in-memory copy (its WAL flag cleared, as a copy has no WAL).
+    """
+    if read_only:
+        image = bytearray(conn.serialize())
+        image[18:20] = b"\x01\x01"
+        copy = sqlite3.connect(":memory:")
+        try:
+            copy.deserialize(bytes(image))
+            return [r[0] for r in copy.execute("PRAGMA integrity_check")]
+        finally:
+            copy.close()
+    return [r[0] for r in conn.execute("PRAGMA integrity_check")]
+
+
 def _guard_damage(method: _F) -> _F:
     """A read method whose conversion errors become ``StoreError`` when the file is damaged.
 
@@ -775,7 +793,7 @@ def _guard_damage(method: _F) -> _F:
             return method(self, *args, **kwargs)
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
             try:
-                sound = [r[0] for r in self._conn().execute("PRAGMA integrity_check")] == ["ok"]
+                sound = _integrity_problems(self._conn(), self.read_only) == ["ok"]
             except (sqlite3.Error, UnicodeDecodeError):
                 sound = False
             if sound:
