@@ -55,19 +55,19 @@ TIME_HELP = "ISO-8601; with Z or an offset, else desk-local time ($BLOTTER_TZ, d
 
 def _time_option(value: str | None) -> datetime | None:
     """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
-    one as desk-local time through ``blotter.calendar.to_instant`` (to the second)."""
-    from blotter.calendar import to_datetime, to_instant
+    one as desk-local time (``blotter.calendar.desk_tz``), at the store's precision (µs)."""
+    from blotter.calendar import desk_tz
     from blotter.store import StoreError, parse_time
 
     if value is None:
         return None
     try:
-        zoneless = datetime.fromisoformat(value.strip()).tzinfo is None
+        typed = datetime.fromisoformat(value.strip())
     except ValueError:
-        zoneless = False  # not ISO-8601: parse_time says so below
+        typed = None  # not ISO-8601: parse_time says so below
     try:
-        if zoneless:
-            return to_datetime(to_instant(value))
+        if typed is not None and typed.tzinfo is None:
+            return parse_time(typed.replace(tzinfo=desk_tz()))
         return parse_time(value)
     except (StoreError, ValueError) as exc:
         raise click.BadParameter(str(exc)) from None
