@@ -252,3 +252,78 @@ CREATE TRIGGER trade_before_expiry BEFORE INSERT ON trade
 WHEN date((SELECT expiry FROM contract WHERE contract_id = NEW.contract_id), '+1 day')
      < substr(NEW.trade_time, 1, 10)
 BEGIN SELECT RAISE(ABORT, 'trade date is more than a day after the contract''s expiry date'); END;
+
+-- @version 4 ------------------------------------------------------------------------------------
+
+-- The store's own order of history: every trade, cancel and mark set takes the next number here
+-- as it is written (AFTER INSERT triggers, so no writer can leave it out). Writes are serialised
+-- by BEGIN IMMEDIATE, so the numbers follow commit order whatever the writers' clocks say. Rules
+-- between history rows use this order (a cancel follows its trade, a close holds the trades
+-- written before it, explain's periods); the rows keep their clock times beside it.
+CREATE TABLE history (
+    seq    INTEGER PRIMARY KEY,
+    kind   TEXT    NOT NULL CHECK (kind IN ('trade', 'cancel', 'mark_set')),
+    row_id INTEGER NOT NULL,
+    UNIQUE (kind, row_id)
+) STRICT;
+
+-- Rows written before this section are numbered by their clock times (the only order they
+-- kept); at one instant a trade comes before a cancel, a cancel before the replacing trade of an
+-- amend, and those before a mark set (the order the store writes them in), then by id.
+INSERT INTO history (kind, row_id)
+SELECT kind, row_id FROM (
+    SELECT 'trade' AS kind, trade_id AS row_id, booked_at AS at,
+           CASE WHEN replaces IS NULL THEN 0 ELSE 2 END AS rank FROM trade
+    UNION ALL SELECT 'cancel', cancel_id, cancelled_at, 1 FROM trade_cancel
+    UNION ALL SELECT 'mark_set', mark_set_id, marked_at, 3 FROM mark_set)
+ORDER BY at, rank, row_id;
+
+CREATE TRIGGER trade_in_history AFTER INSERT ON trade
+BEGIN INSERT INTO history (kind, row_id) VALUES ('trade', NEW.trade_id); END;
+CREATE TRIGGER trade_cancel_in_history AFTER INSERT ON trade_cancel
+BEGIN INSERT INTO history (kind, row_id) VALUES ('cancel', NEW.cancel_id); END;
+CREATE TRIGGER mark_set_in_history AFTER INSERT ON mark_set
+BEGIN INSERT INTO history (kind, row_id) VALUES ('mark_set', NEW.mark_set_id); END;
+CREATE TRIGGER history_no_update BEFORE UPDATE ON history
+BEGIN SELECT RAISE(ABORT, 'the store''s order of history is never changed'); END;
+CREATE TRIGGER history_no_delete BEFORE DELETE ON history
+BEGIN SELECT RAISE(ABORT, 'the store''s order of history is never deleted'); END;
+
+-- A cancel can only be written once its trade is (the foreign key), so it follows the trade in
+-- the store's order; comparing the two terminals' clocks refused good cancels when they differ.
+DROP TRIGGER trade_cancel_after_booking;
+
+-- The business date a close set closes: the desk-local date of its close, the same for every
+-- correction of it. One close per date; a later one must be a correction naming it.
+ALTER TABLE mark_set ADD COLUMN business_date TEXT
+    CHECK (business_date IS NULL OR date(business_date, '+0 days') IS business_date);
+
+-- Closes written before this section take the desk-local date of the close they stand for (the
+-- original's time for a correction); desk_date() is the store's (blotter/store.py, desk time
+-- zone). Earlier dates that hold several closes keep them all: they were written before the rule.
+DROP TRIGGER mark_set_no_update;
+WITH RECURSIVE root (id, root_at) AS (
+    SELECT mark_set_id, marked_at FROM mark_set WHERE kind = 'close' AND corrects IS NULL
+    UNION ALL
+    SELECT m.mark_set_id, root.root_at FROM mark_set m JOIN root ON m.corrects = root.id)
+UPDATE mark_set SET business_date = desk_date(
+    (SELECT root_at FROM root WHERE root.id = mark_set.mark_set_id))
+WHERE kind = 'close';
+CREATE TRIGGER mark_set_no_update BEFORE UPDATE ON mark_set
+BEGIN SELECT RAISE(ABORT, 'mark sets are never changed: commit a correcting set'); END;
+
+CREATE INDEX mark_set_close_day ON mark_set (business_date) WHERE business_date IS NOT NULL;
+
+CREATE TRIGGER mark_set_business_date BEFORE INSERT ON mark_set
+WHEN (NEW.kind = 'close') IS NOT (NEW.business_date IS NOT NULL)
+BEGIN SELECT RAISE(ABORT, 'a close set names its business date and an intraday set none'); END;
+
+CREATE TRIGGER mark_set_one_close_a_day BEFORE INSERT ON mark_set
+WHEN NEW.kind = 'close' AND NEW.corrects IS NULL AND EXISTS (
+    SELECT 1 FROM mark_set WHERE kind = 'close' AND business_date = NEW.business_date)
+BEGIN SELECT RAISE(ABORT, 'that business date has a close already: write a correction of it'); END;
+
+CREATE TRIGGER mark_set_correction_same_day BEFORE INSERT ON mark_set
+WHEN NEW.corrects IS NOT NULL
+ AND NEW.business_date IS NOT (SELECT business_date FROM mark_set WHERE mark_set_id = NEW.corrects)
+BEGIN SELECT RAISE(ABORT, 'a correction closes the business date of the close it corrects'); END;

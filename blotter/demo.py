@@ -509,54 +509,67 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
         amends = {int(p): round(trade_rows[int(p)][3] * 1.1 + 0.05, 2) for p in picks[n_cancel:]}
         for p, wrong_px in amends.items():
             trade_rows[p][3], trade_rows[p][8] = wrong_px, "price typo"
-        conn.executemany(
-            "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, who, "
-            "source, note) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            trade_rows,
-        )
-        first_tid = (
-            conn.execute("SELECT min(trade_id) FROM trade").fetchone()[0] if trade_rows else 0
-        )
-        insert = (
-            "INSERT INTO trade (book_id, contract_id, quantity, price, trade_time, booked_at, "
-            "who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, 'demo', ?, ?)"
+        # Every history row is written in the order of its time (at one instant: a trade, a
+        # cancel, an amend's replacing trade, a mark set), so the store's own order of history
+        # tells the same story as the clocks; trade ids are given, numbering the tickets. A row
+        # is (sql, parameters), run in batches of the same sql; a mark set is a function.
+        events: list[tuple[str, int, int, tuple[str, Sequence[Any]] | Callable[[], None]]] = []
+
+        trade_sql = (
+            "INSERT INTO trade (trade_id, book_id, contract_id, quantity, price, trade_time, "
+            "booked_at, who, source, note, replaces) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"
         )
         cancel = (
             "INSERT INTO trade_cancel (trade_id, reason, cancelled_at, who) VALUES (?, ?, ?, ?)"
         )
+        for n, ticket in enumerate(trade_rows):
+            events.append((ticket[5], 0, n + 1, (trade_sql, [n + 1, *ticket, None])))
+        first_tid, next_tid = 1, len(trade_rows) + 1
         for p in picks[:n_cancel]:
             b, cid, qty, px, tt, booked, *_ = trade_rows[int(p)]
             at = _from_ts(booked)
-            cur = conn.execute(
-                insert,
-                (b, cid, qty * 10, px, tt, _ts(at + timedelta(minutes=1)), DEMO_WHO, "", None),
-            )
-            conn.execute(
-                cancel,
-                (
-                    cur.lastrowid,
-                    "ticket booked twice at ten times the size",
-                    _ts(at + timedelta(minutes=9)),
-                    DEMO_WHO,
-                ),
-            )
+            dup = (b, cid, qty * 10, px, tt, _ts(at + timedelta(minutes=1)), DEMO_WHO, "demo", "")
+            events.append((dup[5], 0, next_tid, (trade_sql, [next_tid, *dup, None])))
+            why = "ticket booked twice at ten times the size"
+            gone = _ts(at + timedelta(minutes=9))
+            events.append((gone, 1, next_tid, (cancel, (next_tid, why, gone, DEMO_WHO))))
+            next_tid += 1
         for p, wrong_px in amends.items():
             b, cid, qty, _px, tt, booked, *_ = trade_rows[p]
             right_px = float(prices[p])
-            at = _from_ts(booked) + timedelta(minutes=15)
-            conn.execute(
-                cancel,
-                (
-                    first_tid + p,
-                    f"amended: price {wrong_px} should be {right_px}",
-                    _ts(at),
-                    DEMO_WHO,
-                ),
-            )
-            conn.execute(
-                insert,
-                (b, cid, qty, right_px, tt, _ts(at), DEMO_WHO, "price corrected", first_tid + p),
-            )
+            fix = _ts(_from_ts(booked) + timedelta(minutes=15))
+            why = f"amended: price {wrong_px} should be {right_px}"
+            undo = (cancel, (first_tid + p, why, fix, DEMO_WHO))
+            events.append((fix, 1, first_tid + p, undo))
+            fixed = (b, cid, qty, right_px, tt, fix, DEMO_WHO, "demo", "price corrected")
+            events.append((fix, 2, next_tid, (trade_sql, [next_tid, *fixed, first_tid + p])))
+            next_tid += 1
+
+        def mark_set(
+            kind: str,
+            points: Sequence[tuple[Any, ...]],
+            note: str,
+            at: datetime,
+            day: date | None,
+        ) -> Callable[[], None]:
+            def run() -> None:
+                sid = store._new_mark_set(
+                    conn,
+                    kind,
+                    len(points),
+                    note=note,
+                    source="demo",
+                    marked_at=at,
+                    who=DEMO_WHO,
+                    day=day,
+                )
+                conn.executemany(
+                    "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
+                    "strike, tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    [(sid, n + 1, *p) for n, p in enumerate(points)],
+                )
+
+            return run
 
         # Close marks: spot, a smile per expiry, the rate curve and dividend yields, two days.
         for day, (t_close, spots, shift) in enumerate(
@@ -567,29 +580,11 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
         ):
             if day == 1:
                 for i in (1, 3):  # two intraday spot checks during the second day
-                    sid = store._new_mark_set(
-                        conn,
-                        "intraday",
-                        1,
-                        note="desk spot check",
-                        source="demo",
-                        marked_at=t_close2 - timedelta(hours=4 - i),
-                        who=DEMO_WHO,
-                    )
-                    store._insert_marks(
-                        conn,
-                        sid,
-                        [
-                            (
-                                "spot",
-                                uids[i],
-                                None,
-                                None,
-                                None,
-                                None,
-                                float(round(spots[i] * 0.998, 2)),
-                            )
-                        ],
+                    at = t_close2 - timedelta(hours=4 - i)
+                    seen = float(round(spots[i] * 0.998, 2))
+                    check = [("spot", uids[i], None, None, None, None, seen)]
+                    events.append(
+                        (_ts(at), 3, i, mark_set("intraday", check, "desk spot check", at, None))
                     )
             points: list[
                 tuple[str, int | None, str | None, str | None, float | None, int | None, float]
@@ -631,21 +626,23 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
                 if u.kind == "stock":
                     q_day = u.div_yield + (0.001 if day == 1 and u.symbol == "DEMOB" else 0.0)
                     points.append(("div_yield", uids[i], None, None, None, None, round(q_day, 6)))
-            sid = store._new_mark_set(
-                conn,
-                "close",
-                len(points),
-                note=f"close {t_close.date()}",
-                source="demo",
-                marked_at=t_close,
-                who=DEMO_WHO,
+            closes = (close1, close2)[day]
+            events.append(
+                (_ts(t_close), 3, 0, mark_set("close", points, f"close {closes}", t_close, closes))
             )
-            conn.executemany(
-                "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, currency, expiry, "
-                "strike, "
-                "tenor_days, value) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [(sid, n + 1, *p) for n, p in enumerate(points)],
-            )
+        batch: list[Sequence[Any]] = []
+        batch_sql = ""
+        for *_, event in sorted(events, key=lambda e: e[:3]):
+            if batch and (callable(event) or event[0] != batch_sql):
+                conn.executemany(batch_sql, batch)
+                batch = []
+            if callable(event):
+                event()
+            else:
+                batch_sql = event[0]
+                batch.append(event[1])
+        if batch:
+            conn.executemany(batch_sql, batch)
 
 
 def describe(path: str | os.PathLike[str]) -> dict[str, int]:

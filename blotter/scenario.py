@@ -1259,7 +1259,7 @@ class ExplainRow:
     ``new_trades`` the P&L of trades dealt in the period (end value − trade price), shown apart;
     ``total`` = actual + new_trades. ``corrections`` is the part of ``actual`` that comes from
     positions the book did not show at the start: trades dealt before the start but booked in
-    the period, and trades dealt before the start that were cancelled or amended in the period.
+    the period, and trades the start close held that were cancelled or amended in the period.
     """
 
     label: str
@@ -1302,41 +1302,65 @@ class Explain:
     end: BookValuation
     notes: tuple[str, ...] = ()
     late_trades: tuple[int, ...] = ()  # ids of trades dealt before the start, booked in the period
-    corrected_trades: tuple[int, ...] = ()  # ids dealt before the start, cancelled in the period
+    corrected_trades: tuple[int, ...] = ()  # ids the start close held, cancelled in the period
 
 
-def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
-    """The close a set stands for: a correction takes the time of the set it corrects (its root)."""
+def _chain(s: Any, by_id: dict[int, Any], link: str) -> Any:
+    """Follow ``link`` ('corrects' or 'superseded_by') from the set ``s`` to the end of its
+    chain of corrections."""
     seen = 0
-    while getattr(s, "corrects", None) is not None and s.corrects in by_id and seen < 1000:
-        s = by_id[s.corrects]
+    while getattr(s, link, None) is not None and getattr(s, link) in by_id and seen < 1000:
+        s = by_id[getattr(s, link)]
         seen += 1
-    return s.marked_at
+    return s
+
+
+def closes_in_force(sets: Sequence[Any]) -> list[Any]:
+    """The closes explain offers, oldest first, from ``sets`` (``store.mark_sets()``): one per
+    business date, each the close itself or the correction in force for it, in the order of the
+    closes they stand for (the last, for a date an upgraded book closed more than once)."""
+    everything = {s.id: s for s in sets}
+
+    def root(s: Any) -> Any:
+        return _chain(s, everything, "corrects")
+
+    by_day: dict[Any, Any] = {}
+    for s in sorted(sets, key=lambda s: getattr(s, "seq", s.id)):
+        if s.kind == "close" and getattr(s, "superseded_by", None) is None:
+            by_day[getattr(root(s), "business_date", None) or ("set", root(s).id)] = s
+    return sorted(
+        by_day.values(), key=lambda s: (_instant(root(s).marked_at), getattr(root(s), "seq", 0))
+    )
 
 
 def _pick_sets(
     store: Any, from_set: int | str | None, to_set: int | str | None
-) -> tuple[Any, Any, Any, Any]:
-    """(start set, end set or "now", start time, end time or None) of an explain.
+) -> tuple[Any, Any, Any, Any, list[str]]:
+    """(start set, end set or "now", the close each stands for, notes) of an explain.
 
-    Defaults: the last two closes in force (a corrected close is replaced by its correction, which
-    keeps the original close's time); with only ``to_set`` given, the close before it.
+    A correction stands for the close it corrects (its root): the root's time is the period's
+    boundary and the root's place in the store's order its cut of trades, the correction's marks
+    its market. A corrected close named by id is replaced by the correction in force for it.
+    Defaults: the last two of ``closes_in_force``; with only ``to_set`` given, the one before it.
     """
-    everything = {s.id: s for s in store.mark_sets()}
-    closes = sorted(
-        (
-            s
-            for s in everything.values()
-            if s.kind == "close" and getattr(s, "superseded_by", None) is None
-        ),
-        key=lambda s: (_instant(_close_time(s, everything)), s.id),
-    )
+    sets = store.mark_sets()
+    everything = {s.id: s for s in sets}
+    notes: list[str] = []
+
+    def root(s: Any) -> Any:
+        return _chain(s, everything, "corrects")
+
+    closes = closes_in_force(sets)
 
     def get(x: int | str, name: str) -> Any:
         try:
-            return everything[int(x)]
+            s = everything[int(x)]
         except (KeyError, ValueError):
             raise ValueError(f"no mark set {x!r} ({name})") from None
+        fixed = _chain(s, everything, "superseded_by")
+        if fixed is not s:
+            notes.append(f"close set {s.id} was corrected: set {fixed.id} is used in its place")
+        return fixed
 
     to: Any
     if to_set is None and from_set is None:
@@ -1352,20 +1376,18 @@ def _pick_sets(
         else:
             to = get(to_set, "--to")
         if from_set is None:
-            end_t = None if to == "now" else _instant(_close_time(to, everything))
+            end_t = None if to == "now" else _instant(root(to).marked_at)
             before = [
                 s
                 for s in closes
-                if s is not to and (end_t is None or _instant(_close_time(s, everything)) < end_t)
+                if s is not to and (end_t is None or _instant(root(s).marked_at) < end_t)
             ]
             if not before:
                 raise ValueError("no close mark set before the end set (give --from)")
             frm = before[-1]
         else:
             frm = get(from_set, "--from")
-    t0 = _close_time(frm, everything)
-    t1 = None if to == "now" else _close_time(to, everything)
-    return frm, to, t0, t1
+    return frm, to, root(frm), None if to == "now" else root(to), notes
 
 
 def _instant(x: Any) -> np.datetime64:
@@ -1378,32 +1400,38 @@ def explain(
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
 
-    The positions held over the period are the trades dealt by the start close and live as the
-    store knows them at the end (a trade cancelled or amended in the period is held as it now
-    stands, its replacement included; a late booking of a trade dealt before the start counts
-    as held); the trades dealt in the period are the new trades. ``corrections`` on each row says
-    how much of ``actual`` those late bookings and corrections changed against the book as shown
-    at the start. Held positions are valued at the start marks and time and at the end marks and
-    time; the change is explained by Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
+    A close holds the trades written to the store before it, in the store's own order whatever
+    the terminals' clocks said. The positions held over the period are the trades the start
+    close holds, live as the store knows them at the end (a trade cancelled or amended in the
+    period is held as it now stands, its replacement included), plus the trades written in the
+    period but dealt by the start close's time (late bookings); the other trades written in the
+    period are the new trades. ``corrections`` on each row says how much of ``actual`` those late
+    bookings and corrections changed against the book as shown at the start. Held positions are
+    valued at the start marks and time and at the end marks and time; the change is explained by
+    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
     ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets,
     and carry ρ·(db − dr) for stock, index and FX options (b = r − q: a dividend yield or foreign
     rate mark change; ρ already holds the rate's share of db); futures options have b = 0.
     """
-    frm, to, t0_raw, t1_raw = _pick_sets(store, from_set, to_set)
-    t0 = _instant(t0_raw)
+    frm, to, start_close, end_close, notes = _pick_sets(store, from_set, to_set)
+    t0 = _instant(start_close.marked_at)
+    cut0 = start_close.seq
     if to == "now":
+        cut1 = store.last_seq() + 1
         m1 = store.load_market()
         t1 = max(cal.now(), _instant(m1.marks_as_of))
     else:
+        cut1 = end_close.seq
         m1 = store.load_market(to.id)
-        t1 = _instant(t1_raw)
+        t1 = _instant(end_close.marked_at)
     if t1 < t0:
         raise ValueError(f"the end mark set is older than the start set {frm.id}")
+    if cut1 < cut0:
+        raise ValueError(f"the end mark set was written before the start set {frm.id}")
     m0 = store.load_market(frm.id)
-    t0d, t1d = cal.to_datetime(t0), cal.to_datetime(t1)
-    period = _period_trades(store, t0d, t1d)
-    known_start = store.load_book(as_of=t0d)
-    held = _net_books([(store.load_book(as_of=t1d), 1.0), (period.new, -1.0)])
+    period = _period_trades(store, cut0, cut1, start_close.marked_at)
+    known_start = store.load_book(before_seq=cut0)
+    held = _net_books([(store.load_book(before_seq=cut1), 1.0), (period.new, -1.0)])
     start = value_book(held, m0, t0)
     end = value_book(held, m1, t1)
     dt = float(cal.year_fraction(t0, t1))
@@ -1430,7 +1458,6 @@ def explain(
     sym = held.underlyings.symbols
     new_pnl_u = np.zeros(n_u)
     corr_u = np.zeros(n_u)
-    notes: list[str] = []
     # Late bookings and corrections: actual of the held positions less that of the book as the
     # store showed it at the start (positions added count with their P&L, removed ones against).
     diff = _net_books([(held, 1.0), (known_start, -1.0)])
@@ -1522,8 +1549,8 @@ def _held_pnl(start: BookValuation, end: BookValuation) -> np.ndarray:
 @dataclass(frozen=True, eq=False)
 class _PeriodTrades:
     """Trades of an explain period: ``new`` one row per live trade dealt in the period (``prices``
-    per unit, (n,)); ids of trades dealt before the start that were booked late (``late``) or
-    cancelled or amended (``corrected``) in the period."""
+    per unit, (n,)); ids of trades dealt before the start but booked in the period (``late``),
+    and of trades the start close held that were cancelled or amended in it (``corrected``)."""
 
     new: Book
     prices: np.ndarray
@@ -1531,23 +1558,25 @@ class _PeriodTrades:
     corrected: tuple[int, ...]
 
 
-def _period_trades(store: Any, t0: Any, t1: Any) -> _PeriodTrades:
-    """Split the trades booked in (t0, t1] and live at t1 into those dealt in the period (new
-    trades) and those dealt by t0 (late bookings, amend replacements); list the trades dealt and
-    booked by t0 and cancelled in (t0, t1]. ``t0``, ``t1`` are aware UTC datetimes.
+def _period_trades(store: Any, cut0: int, cut1: int, t0: Any) -> _PeriodTrades:
+    """Split the trades written between the store's history rows ``cut0`` and ``cut1`` and live
+    at ``cut1`` into those dealt after ``t0`` (new trades) and those dealt by it (late bookings,
+    amend replacements); list the trades written before ``cut0`` and cancelled between the two.
 
-    ``store.new_trades`` gives the per-trade rows (in booking order, trade id within a time);
-    ``store.trades`` gives each row's deal time, matched to them in the same order.
+    ``cut0``, ``cut1`` are places in the store's own order (a close holds what was written
+    before it, whatever the clocks said); ``t0`` is the start close's own time (an aware UTC
+    datetime at the store's precision), which a deal time is compared with.
+    ``store.new_trades`` gives the per-trade rows in the store's order; ``store.trades`` gives
+    each row's deal time, matched to them in the same order.
     """
-    booked, prices = store.new_trades(t0, t1)
-    records = store.trades(until=t1)
+    booked, prices = store.new_trades(cut0, cut1)
+    records = store.trades()
 
     def live_at_end(r: Any) -> bool:
-        return r.cancelled_at is None or r.cancelled_at > t1
+        return r.cancel_seq is None or r.cancel_seq > cut1
 
     in_period = sorted(
-        (r for r in records if t0 < r.booked_at <= t1 and live_at_end(r)),
-        key=lambda r: (r.booked_at, r.trade_id),
+        (r for r in records if cut0 < r.seq < cut1 and live_at_end(r)), key=lambda r: r.seq
     )
     ids = np.array([r.contract_id for r in in_period], dtype=np.int64)
     if ids.shape != booked.contract_ids.shape or (ids != booked.contract_ids).any():
@@ -1556,10 +1585,7 @@ def _period_trades(store: Any, t0: Any, t1: Any) -> _PeriodTrades:
     corrected = tuple(
         r.trade_id
         for r in records
-        if r.trade_time <= t0
-        and r.booked_at <= t0
-        and r.cancelled_at is not None
-        and t0 < r.cancelled_at <= t1
+        if r.seq < cut0 and r.cancel_seq is not None and cut0 < r.cancel_seq < cut1
     )
     rows = np.flatnonzero(dealt_in)
     return _PeriodTrades(

@@ -45,6 +45,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 import numpy as np
 
+from blotter import calendar as cal
 from blotter.book import MOVE_WORDS, SYMBOL_PATTERN, UNDERLYING_KINDS, Book, Underlyings
 from blotter.market import Market, RateCurve, VolSurface
 
@@ -147,6 +148,8 @@ class MarkSetInfo:
     source: str = ""
     marks: int = 0  # number of mark points in the set
     superseded_by: int | None = None  # the close set that corrects this one, if any
+    business_date: date | None = None  # the desk date a close set closes (None: intraday)
+    seq: int = 0  # the set's place in the store's own order of history
 
 
 @dataclass(frozen=True)
@@ -177,6 +180,8 @@ class TradeRecord:
     cancel_reason: str | None = None
     cancelled_at: datetime | None = None
     cancelled_by: str | None = None
+    seq: int = 0  # the trade's place in the store's own order of history
+    cancel_seq: int | None = None  # its cancel's place in that order, if cancelled
 
 
 @dataclass(frozen=True)
@@ -366,6 +371,25 @@ def _ts(t: datetime) -> str:
 
 def _from_ts(text: str) -> datetime:
     return datetime.strptime(text, _TS_FORMAT).replace(tzinfo=UTC)
+
+
+def business_date(t: datetime) -> date:
+    """The business date a close at instant ``t`` closes: its date in the desk's time zone.
+
+    A close at 16:30 New York on 2026-12-03 closes 2026-12-03, though it is 21:30 UTC.
+    """
+    return t.astimezone(cal.desk_tz()).date()
+
+
+def _desk_date_sql(text: str | None) -> str | None:
+    """``desk_date(instant)`` in SQL: the business date of a stored instant, as ISO text."""
+    return None if text is None else business_date(_from_ts(text)).isoformat()
+
+
+def _schema_functions(conn: sqlite3.Connection) -> None:
+    """Functions ``schema.sql``'s upgrade statements call (never its triggers, which any SQLite
+    client must be able to run)."""
+    conn.create_function("desk_date", 1, _desk_date_sql, deterministic=True)
 
 
 def parse_time(value: datetime | str) -> datetime:
@@ -571,6 +595,7 @@ def _is_shipped_demo(p: Path) -> bool:
 def _migrate(conn: sqlite3.Connection, path: Path) -> None:
     """Run each schema section above the file's version, each in one transaction."""
     sections = schema_sections()
+    _schema_functions(conn)
     for version in sorted(sections):
         conn.execute("BEGIN IMMEDIATE")
         try:
@@ -606,6 +631,7 @@ def create_store(path: str | os.PathLike[str]) -> Store:
         conn = _connect(p, read_only=False)
         try:
             conn.execute("PRAGMA journal_mode = WAL")
+            _schema_functions(conn)
             conn.execute("BEGIN IMMEDIATE")
             conn.execute(f"PRAGMA application_id = {APPLICATION_ID:d}")
             for _version, statements in sorted(schema_sections().items()):
@@ -761,6 +787,24 @@ class _ContractArrays:
 _F = TypeVar("_F", bound=Callable[..., Any])
 
 
+def _integrity_problems(conn: sqlite3.Connection, read_only: bool) -> list[str]:
+    """``PRAGMA integrity_check``'s lines for the book on ``conn``.
+
+    SQLite checks CHECK constraints only on a database it could write, so a read-only book is
+    checked as an in-memory copy (its WAL flag cleared, as a copy has no WAL).
+    """
+    if read_only:
+        image = bytearray(conn.serialize())
+        image[18:20] = b"\x01\x01"
+        copy = sqlite3.connect(":memory:")
+        try:
+            copy.deserialize(bytes(image))
+            return [r[0] for r in copy.execute("PRAGMA integrity_check")]
+        finally:
+            copy.close()
+    return [r[0] for r in conn.execute("PRAGMA integrity_check")]
+
+
 def _guard_damage(method: _F) -> _F:
     """A read method whose conversion errors become ``StoreError`` when the file is damaged.
 
@@ -775,7 +819,7 @@ def _guard_damage(method: _F) -> _F:
             return method(self, *args, **kwargs)
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
             try:
-                sound = [r[0] for r in self._conn().execute("PRAGMA integrity_check")] == ["ok"]
+                sound = _integrity_problems(self._conn(), self.read_only) == ["ok"]
             except (sqlite3.Error, UnicodeDecodeError):
                 sound = False
             if sound:
@@ -1355,6 +1399,14 @@ class Store:
             qty = _check_quantity(old_qty if quantity is None else quantity)
             px = _check_price(old_px if price is None else price)
             t = _from_ts(old_time) if trade_time is None else parse_time(trade_time)
+            if t > now and trade_time is None:
+                # the kept time came from another terminal's clock; the new row is booked by
+                # this one, and a trade cannot be dealt after it was booked
+                raise StoreError(
+                    f"trade {trade_id} was dealt at {old_time} by the clock of the terminal that "
+                    f"booked it, later than this terminal's clock ({_ts(now)}): one of the two "
+                    "clocks is wrong. Give the true deal time with the amend (--time)"
+                )
             if t > now:
                 raise StoreError(f"trade time {t.isoformat()} is in the future")
             cid = old_cid if contract_id is None else self._existing_contract(conn, contract_id)
@@ -1481,23 +1533,36 @@ class Store:
         )
 
     @_guard_damage
-    def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
-        """Net positions of live trades (all books when ``book`` is None) as at ``as_of``.
+    def load_book(
+        self, book: str | None = None, as_of: datetime | None = None, before_seq: int | None = None
+    ) -> Book:
+        """Net positions of live trades (all books when ``book`` is None) as at ``as_of``, or as
+        the store held them just before its history row ``before_seq`` (a close's ``seq``).
 
-        A trade counts once it was both dealt and booked at or before ``as_of``; a cancel counts
-        from the instant it was entered. None means now. Contracts whose trades net to zero are
-        left out. Rows are grouped by underlying, then hedges, expiry, strike and type.
+        With ``as_of`` (a clock instant someone gives) a trade counts once it was both dealt and
+        booked at or before it, and a cancel from the instant it was entered. With
+        ``before_seq`` the store's own order decides, whatever the clocks said: the trades and
+        cancels written before that row. Neither means now. Contracts whose trades net to zero
+        are left out. Rows are grouped by underlying, then hedges, expiry, strike and type.
         """
-        where = [
-            "NOT EXISTS (SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id"
-            + (" AND x.cancelled_at <= ?)" if as_of is not None else ")")
-        ]
+        if as_of is not None and before_seq is not None:
+            raise ValueError("give as_of or before_seq, not both")
+        cancel_at = ""
         params: list[Any] = []
+        where = []
         if as_of is not None:
             t = _ts(parse_time(as_of))
-            params.append(t)
+            cancel_at = " AND x.cancelled_at <= ?"
             where.append("t.booked_at <= ? AND t.trade_time <= ?")
-            params += [t, t]
+            params += [t, t, t]
+        elif before_seq is not None:
+            seq_of = "(SELECT seq FROM history WHERE kind = '{}' AND row_id = {}) < ?"
+            cancel_at = " AND " + seq_of.format("cancel", "x.cancel_id")
+            where.append(seq_of.format("trade", "t.trade_id"))
+            params += [int(before_seq), int(before_seq)]
+        where.insert(
+            0, f"NOT EXISTS (SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id{cancel_at})"
+        )
         if book is not None:
             where.append("t.book_id = ?")
         with self._read() as conn:
@@ -1517,6 +1582,11 @@ class Store:
             keep = net != 0
             return self._book_of(conn, book or "all books", ids[keep], net[keep], sort=True)
 
+    def last_seq(self) -> int:
+        """The newest place in the store's own order of history (0 for an empty book)."""
+        with self._read() as conn:
+            return int(conn.execute("SELECT coalesce(max(seq), 0) FROM history").fetchone()[0])
+
     @staticmethod
     def book_names_in(conn: sqlite3.Connection) -> list[str]:
         """Names of the books, read on ``conn``."""
@@ -1524,17 +1594,17 @@ class Store:
 
     @_guard_damage
     def new_trades(
-        self, since: datetime, until: datetime | None = None, book: str | None = None
+        self, after_seq: int, before_seq: int | None = None, book: str | None = None
     ) -> tuple[Book, np.ndarray]:
-        """One ``Book`` row per trade booked in (``since``, ``until``] and live at ``until``.
+        """One ``Book`` row per trade written between the history rows ``after_seq`` and
+        ``before_seq`` (None: up to now) and not cancelled before ``before_seq``.
 
-        These are exactly the trades in ``load_book(as_of=until)`` that are not in
-        ``load_book(as_of=since)``. Returns the rows in booking order (quantity = the trade's)
-        and each trade's price per unit of underlying, float64 (n,).
+        These are exactly the trades in ``load_book(before_seq=before_seq)`` that are not in
+        ``load_book(before_seq=after_seq)``. Returns the rows in the store's order (quantity =
+        the trade's) and each trade's price per unit of underlying, float64 (n,).
         """
-        lo = _ts(parse_time(since))
-        hi = _ts(parse_time(until) if until is not None else _now())
-        params: list[Any] = [lo, hi, hi]
+        hi = 2**63 - 1 if before_seq is None else int(before_seq)
+        params: list[Any] = [int(after_seq), hi, hi]
         book_filter = ""
         if book is not None:
             book_filter = "AND b.name = ?"
@@ -1543,11 +1613,12 @@ class Store:
             rows = conn.execute(
                 "SELECT t.contract_id, t.quantity, t.price FROM trade t "
                 "JOIN book b ON b.book_id = t.book_id "
-                "WHERE t.booked_at > ? AND t.booked_at <= ? AND t.trade_time <= ? AND NOT EXISTS ("
-                "SELECT 1 FROM trade_cancel x WHERE x.trade_id = t.trade_id AND x.cancelled_at "
-                "<= ?) "
-                f"{book_filter} ORDER BY t.booked_at, t.trade_id",
-                [lo, hi, hi, hi] + params[3:],
+                "JOIN history h ON h.kind = 'trade' AND h.row_id = t.trade_id "
+                "WHERE h.seq > ? AND h.seq < ? AND NOT EXISTS ("
+                "SELECT 1 FROM trade_cancel x JOIN history hx ON hx.kind = 'cancel' "
+                "AND hx.row_id = x.cancel_id WHERE x.trade_id = t.trade_id AND hx.seq < ?) "
+                f"{book_filter} ORDER BY h.seq",
+                params,
             ).fetchall()
             ids = np.array([r[0] for r in rows], dtype=np.int64)
             result = self._book_of(
@@ -1567,7 +1638,9 @@ class Store:
         until: datetime | None = None,
         live_only: bool = False,
     ) -> list[TradeRecord]:
-        """Trades dealt in (``since``, ``until``] (all when None), oldest first, with state."""
+        """Trades dealt in (``since``, ``until``] (all when None) with state, in order of deal
+        time (the trade's own time, as given or the booking terminal's clock), then of the
+        store's own order."""
         where = ["1"]
         params: list[Any] = []
         if book is not None:
@@ -1586,13 +1659,15 @@ class Store:
                 "SELECT t.trade_id, b.name, t.contract_id, u.symbol, c.option_type, c.expiry, "
                 "c.strike, c.american, c.multiplier, c.cash_settled, t.quantity, t.price, "
                 "t.trade_time, t.booked_at, t.who, t.source, t.note, t.replaces, r.trade_id, "
-                "x.reason, x.cancelled_at, x.who FROM trade t "
+                "x.reason, x.cancelled_at, x.who, h.seq, hx.seq FROM trade t "
                 "JOIN book b ON b.book_id = t.book_id "
                 "JOIN contract c ON c.contract_id = t.contract_id "
                 "JOIN underlying u ON u.underlying_id = c.underlying_id "
+                "JOIN history h ON h.kind = 'trade' AND h.row_id = t.trade_id "
                 "LEFT JOIN trade_cancel x ON x.trade_id = t.trade_id "
+                "LEFT JOIN history hx ON hx.kind = 'cancel' AND hx.row_id = x.cancel_id "
                 "LEFT JOIN trade r ON r.replaces = t.trade_id "
-                f"WHERE {' AND '.join(where)} ORDER BY t.trade_time, t.trade_id",
+                f"WHERE {' AND '.join(where)} ORDER BY t.trade_time, h.seq",
                 params,
             ).fetchall()
         out = []
@@ -1624,6 +1699,8 @@ class Store:
                     cancel_reason=r[19],
                     cancelled_at=_from_ts(r[20]) if r[20] else None,
                     cancelled_by=r[21],
+                    seq=r[22],
+                    cancel_seq=r[23],
                 )
             )
         return out
@@ -1641,11 +1718,21 @@ class Store:
         corrects: int | None = None,
         marked_at: datetime | None = None,
         who: str | None = None,
+        day: date | None = None,
     ) -> int:
         cur = conn.execute(
-            "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?)",
-            (kind, _ts(marked_at or _now()), who or self.who, note or "", source, corrects, count),
+            "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count, "
+            "business_date) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+            (
+                kind,
+                _ts(marked_at or _now()),
+                who or self.who,
+                note or "",
+                source,
+                corrects,
+                count,
+                day.isoformat() if day else None,
+            ),
         )
         return int(cur.lastrowid or 0)
 
@@ -1872,26 +1959,29 @@ class Store:
     def commit_close(
         self,
         note: str | None = None,
-        corrects: int | None = None,
+        corrects: int | str | date | None = None,
         marked_at: datetime | None = None,
         who: str | None = None,
         source: str = "close",
     ) -> int:
         """Write the marks in force now as one immutable close set; returns its id.
 
-        ``corrects`` names an earlier close set this one replaces (it stays on record); the
-        correction holds that set's own points overlaid with the intraday points logged since
-        the newest close set (log the fixed points, then commit the correction). Corrections are
-        left out of the marks in force, so correcting an older day leaves today's marks as they are.
-        ``marked_at`` and ``who`` default to now and the OS user (the demo sets them).
-        ``commit_close_info`` takes the same arguments and returns the set's record.
+        The set closes the business date of ``marked_at`` (``business_date``); a date closes
+        once, and a second close for it is refused unless it is a correction. ``corrects`` names
+        the close it replaces (it stays on record), by set id or by business date (the close in
+        force for that date); the correction closes the same date and holds that set's own points
+        overlaid with the intraday points logged since the newest close set (log the fixed
+        points, then commit the correction). Corrections are left out of the marks in force, so
+        correcting an older day leaves today's marks as they are. ``marked_at`` and ``who``
+        default to now and the OS user (the demo sets them). ``commit_close_info`` takes the same
+        arguments and returns the set's record.
         """
         return self.commit_close_info(note, corrects, marked_at, who, source).id
 
     def commit_close_info(
         self,
         note: str | None = None,
-        corrects: int | None = None,
+        corrects: int | str | date | None = None,
         marked_at: datetime | None = None,
         who: str | None = None,
         source: str = "close",
@@ -1899,18 +1989,19 @@ class Store:
         """As ``commit_close``, returning the record of the set written (its id, time and mark
         count as committed), read in the same transaction so no later commit can be mistaken
         for it."""
+        when = marked_at or _now()
         with self._write() as conn:
             if corrects is not None:
-                row = conn.execute(
-                    "SELECT kind FROM mark_set WHERE mark_set_id = ?", (int(corrects),)
-                ).fetchone()
-                if row is None or row[0] != "close":
-                    raise StoreError(f"mark set {corrects} is not a close set")
-                done = conn.execute(
-                    "SELECT mark_set_id FROM mark_set WHERE corrects = ?", (int(corrects),)
-                ).fetchone()
-                if done:
-                    raise StoreError(f"close set {corrects} was already corrected by set {done[0]}")
+                corrects, day = self._close_to_correct(conn, corrects)
+            else:
+                day = business_date(when)
+                taken = self._close_in_force(conn, day)
+                if taken is not None:
+                    raise StoreError(
+                        f"the close of {day} is already written (set {taken[0]}, {taken[1]} "
+                        f"by {taken[2]}): a date closes once. To change it, log the fixed "
+                        f"marks and write a correction (mark close --corrects {taken[0]})"
+                    )
             if corrects is None:
                 cur = conn.execute(self._IN_FORCE_SQL.format(where=self._IN_FORCE_WHERE))
             else:
@@ -1936,13 +2027,15 @@ class Store:
                 note=note or "",
                 source=source,
                 corrects=corrects,
-                marked_at=marked_at,
+                marked_at=when,
                 who=who,
+                day=day,
             )
             self._insert_marks(conn, set_id, [tuple(r[2:]) for r in rows])
             row = conn.execute(
-                "SELECT kind, marked_at, who, note, corrects, source, mark_count FROM mark_set "
-                "WHERE mark_set_id = ?",
+                "SELECT kind, marked_at, who, note, corrects, source, mark_count, business_date, "
+                "(SELECT seq FROM history WHERE kind = 'mark_set' AND row_id = mark_set_id) "
+                "FROM mark_set WHERE mark_set_id = ?",
                 (set_id,),
             ).fetchone()
         return MarkSetInfo(
@@ -1954,19 +2047,79 @@ class Store:
             corrects=row[4],
             source=row[5],
             marks=row[6],
+            business_date=date.fromisoformat(row[7]),
+            seq=row[8],
         )
+
+    def todays_close(self) -> tuple[date, int | None]:
+        """(the business date a close written now closes, the id of the close in force for it
+        or None), so a review can say whether a close now is the day's first or a correction."""
+        day = business_date(_now())
+        with self._read() as conn:
+            found = self._close_in_force(conn, day)
+        return day, None if found is None else found[0]
+
+    @staticmethod
+    def _close_in_force(conn: sqlite3.Connection, day: date) -> tuple[int, str, str] | None:
+        """(id, time, who) of the close in force for business date ``day``: the newest set of
+        that date that no correction replaces; None when the date has no close."""
+        row = conn.execute(
+            "SELECT s.mark_set_id, s.marked_at, s.who FROM mark_set s WHERE s.kind = 'close' "
+            "AND s.business_date = ? AND NOT EXISTS (SELECT 1 FROM mark_set c "
+            "WHERE c.corrects = s.mark_set_id) ORDER BY s.mark_set_id DESC LIMIT 1",
+            (day.isoformat(),),
+        ).fetchone()
+        return None if row is None else (int(row[0]), str(row[1]), str(row[2]))
+
+    def _close_to_correct(
+        self, conn: sqlite3.Connection, ref: int | str | date
+    ) -> tuple[int, date]:
+        """(id, business date) of the close a correction names: a set id, or a business date
+        (ISO text or ``date``) meaning the close in force for that date."""
+        text = ref.isoformat() if isinstance(ref, date) else str(ref).strip()
+        if re.fullmatch(r"\d{4}-\d{2}-\d{2}", text):
+            day = parse_date(text)
+            found = self._close_in_force(conn, day)
+            if found is None:
+                raise StoreError(f"no close for {day}: there is nothing to correct")
+            return found[0], day
+        try:
+            set_id = int(text)
+        except ValueError:
+            raise StoreError(
+                f"{ref!r} names no close: give a close set id or a business date like 2026-12-03"
+            ) from None
+        row = (
+            conn.execute(
+                "SELECT kind, business_date FROM mark_set WHERE mark_set_id = ?", (set_id,)
+            ).fetchone()
+            if 0 < set_id < 2**63
+            else None
+        )
+        if row is None or row[0] != "close":
+            raise StoreError(f"mark set {set_id} is not a close set")
+        done = conn.execute(
+            "SELECT mark_set_id FROM mark_set WHERE corrects = ?", (set_id,)
+        ).fetchone()
+        if done:
+            raise StoreError(
+                f"close set {set_id} was already corrected by set {done[0]}: correct set "
+                f"{done[0]} (or name the date, --corrects {row[1]})"
+            )
+        return set_id, date.fromisoformat(row[1])
 
     @_guard_damage
     def mark_sets(self, kind: str | None = None) -> list[MarkSetInfo]:
-        """Mark sets, oldest first (only ``kind`` 'close' or 'intraday' when given)."""
+        """Mark sets in the store's order (only ``kind`` 'close' or 'intraday' when given)."""
         if kind is not None and kind not in ("close", "intraday"):
             raise StoreError(f"mark set kind must be 'close' or 'intraday', got {kind!r}")
         with self._read() as conn:
             rows = conn.execute(
                 "SELECT s.mark_set_id, s.kind, s.marked_at, s.who, s.note, s.corrects, s.source, "
                 "s.mark_count, (SELECT c.mark_set_id FROM mark_set c WHERE c.corrects = "
-                "s.mark_set_id) "
-                "FROM mark_set s WHERE ? IS NULL OR s.kind = ? ORDER BY s.mark_set_id",
+                "s.mark_set_id), s.business_date, h.seq "
+                "FROM mark_set s JOIN history h ON h.kind = 'mark_set' AND h.row_id = "
+                "s.mark_set_id WHERE ? IS NULL OR s.kind = ? ORDER BY h.seq",
                 (kind, kind),
             ).fetchall()
         return [
@@ -1980,6 +2133,8 @@ class Store:
                 source=r[6],
                 marks=r[7],
                 superseded_by=r[8],
+                business_date=date.fromisoformat(r[9]) if r[9] else None,
+                seq=r[10],
             )
             for r in rows
         ]

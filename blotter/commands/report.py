@@ -689,13 +689,25 @@ def ladder(
 def _set_dict(s: Any) -> Any:
     if s == "now":
         return "now"
+    day = getattr(s, "business_date", None)
     return {
         "id": s.id,
         "kind": s.kind,
         "marked_at": _iso(s.marked_at),
+        "business_date": day.isoformat() if day else None,
+        "corrects": getattr(s, "corrects", None),
         "who": s.who,
         "note": s.note,
     }
+
+
+def _set_words(s: Any, t: Any) -> str:
+    """``set 7 (close of 2026-12-03, correcting set 5; 2026-12-03T21:30:00+00:00)``."""
+    day = getattr(s, "business_date", None)
+    fixes = getattr(s, "corrects", None)
+    words = [f"close of {day}"] if day else []
+    words += [f"correcting set {fixes}"] if fixes is not None else []
+    return f"set {s.id} ({', '.join(words) + '; ' if words else ''}{_iso(t)})"
 
 
 @click.command()
@@ -789,8 +801,8 @@ def explain(
     frm = ex.from_set
     to = ex.to_set
     click.echo(
-        f"P&L explain: set {frm.id} ({_iso(ex.from_time)}) → "
-        + ("marks now" if to == "now" else f"set {to.id} ({_iso(ex.to_time)})")
+        f"P&L explain: {_set_words(frm, ex.from_time)} → "
+        + ("marks now" if to == "now" else _set_words(to, ex.to_time))
         + " · money in book currency · greeks of the start set"
     )
     click.echo("")

@@ -55,19 +55,19 @@ TIME_HELP = "ISO-8601; with Z or an offset, else desk-local time ($BLOTTER_TZ, d
 
 def _time_option(value: str | None) -> datetime | None:
     """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
-    one as desk-local time through ``blotter.calendar.to_instant`` (to the second)."""
-    from blotter.calendar import to_datetime, to_instant
+    one as desk-local time (``blotter.calendar.desk_tz``), at the store's precision (µs)."""
+    from blotter.calendar import desk_tz
     from blotter.store import StoreError, parse_time
 
     if value is None:
         return None
     try:
-        zoneless = datetime.fromisoformat(value.strip()).tzinfo is None
+        typed = datetime.fromisoformat(value.strip())
     except ValueError:
-        zoneless = False  # not ISO-8601: parse_time says so below
+        typed = None  # not ISO-8601: parse_time says so below
     try:
-        if zoneless:
-            return to_datetime(to_instant(value))
+        if typed is not None and typed.tzinfo is None:
+            return parse_time(typed.replace(tzinfo=desk_tz()))
         return parse_time(value)
     except (StoreError, ValueError) as exc:
         raise click.BadParameter(str(exc)) from None
@@ -482,18 +482,29 @@ def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
 
 @mark.command("close")
 @click.option("--note", help="Free note kept with the close set.")
-@click.option("--corrects", type=int, help="Id of an earlier close set this one corrects.")
+@click.option(
+    "--corrects",
+    metavar="SET|DATE",
+    help="The close this one corrects: its set id, or its business date (YYYY-MM-DD).",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the close set id as JSON.")
 @db_option
-def mark_close(note: str | None, corrects: int | None, as_json: bool, db_path: str | None) -> None:
-    """Commit the marks in force now as today's close set (immutable once written)."""
+def mark_close(note: str | None, corrects: str | None, as_json: bool, db_path: str | None) -> None:
+    """Commit the marks in force now as today's close set (immutable once written).
+
+    The set closes today's business date in the desk's time zone. A date closes once: a second
+    close for it is refused unless it corrects the first (--corrects), and explain then uses the
+    correction in its place.
+    """
     with _store(db_path) as store:
         written = store.commit_close_info(note=note, corrects=corrects)
         set_id, count = written.id, written.marks
+    day = written.business_date.isoformat() if written.business_date else None
     _emit(
         as_json,
-        {"mark_set_id": set_id, "marks": count},
-        f"committed close set {set_id} ({count} marks)",
+        {"mark_set_id": set_id, "marks": count, "business_date": day, "corrects": written.corrects},
+        f"committed close set {set_id} ({count} marks), the close of {day}"
+        + (f", correcting set {written.corrects}" if written.corrects is not None else ""),
     )
 
 
@@ -553,6 +564,7 @@ def mark_list(
             "id",
             "kind",
             "marked_at",
+            "business_date",
             "who",
             "marks",
             "corrects",
@@ -565,6 +577,7 @@ def mark_list(
                 s.id,
                 s.kind,
                 timestamp_text(s.marked_at),
+                s.business_date.isoformat() if s.business_date else None,
                 s.who,
                 s.marks,
                 s.corrects,

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
 import numpy as np
@@ -537,6 +537,8 @@ class MarksView:
     last_close_id: int | None
     last_close_at: datetime | None
     data_version: int
+    close_day: date | None = None  # the business date a close written now closes
+    day_closed_by: int | None = None  # the close in force for that date: a close now corrects it
 
 
 def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
@@ -546,6 +548,7 @@ def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
     needed. Vol points sort under their underlying, nearest expiry first.
     """
     in_force = st.marks()
+    close_day, day_closed_by = st.todays_close()
     closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
     last = closes[-1] if closes else None
     at_close = st.marks(last.id) if last is not None else []
@@ -608,6 +611,8 @@ def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
         last_close_id=last.id if last else None,
         last_close_at=last.marked_at if last else None,
         data_version=int(st.data_version()),
+        close_day=close_day,
+        day_closed_by=day_closed_by,
     )
 
 
@@ -619,6 +624,8 @@ class CloseReview:
     missing: tuple[str, ...]  # points a position needs and nobody marked
     stale: tuple[str, ...]  # marks unchanged for more than STALE_AFTER
     n_points: int
+    close_day: date | None = None  # the business date the close closes
+    corrects: int | None = None  # the close of that date it corrects (a date closes once)
 
 
 def close_review(view: MarksView, now: datetime) -> CloseReview:
@@ -638,7 +645,9 @@ def close_review(view: MarksView, now: datetime) -> CloseReview:
             changed.append(f"{name} {p.shown(p.close_value)} → {p.shown(p.value)} ({p.change()})")
         if p.marked_at is not None and now - p.marked_at > STALE_AFTER:
             stale.append(f"{name} marked {fmt.age_words(now - p.marked_at)} ago")
-    return CloseReview(tuple(changed), tuple(missing), tuple(stale), n)
+    return CloseReview(
+        tuple(changed), tuple(missing), tuple(stale), n, view.close_day, view.day_closed_by
+    )
 
 
 def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:

@@ -299,7 +299,8 @@ def test_mark_close_reports_the_count_of_the_set_it_wrote(
             busy["done"] = True
             with open_store(demo_db) as other:
                 other.log_rate("USD", 9999, 0.01)  # a new point: the other close is one bigger
-                other.commit_close(note="other process")
+                _day, ours = other.todays_close()  # a date closes once: the other corrects ours
+                other.commit_close(note="other process", corrects=ours)
 
     monkeypatch.setattr(Store, "_write", write_then_other_process_closes)
     out = json.loads(run("mark", "close", "--json", "--db", str(demo_db)).stdout)

@@ -7,8 +7,8 @@ practice); new trades' P&L = (end mark − trade price) × quantity × multiplie
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from dataclasses import dataclass, replace
+from datetime import UTC, date, datetime, timedelta
 
 import numpy as np
 import pytest
@@ -34,11 +34,14 @@ class SetInfo:
     note: str = ""
     corrects: int | None = None
     superseded_by: int | None = None
+    business_date: date | None = None
+    seq: int = 0  # the set's place in the store's order: 10 × its id unless given
 
 
 class FakeStore:
-    """The store calls explain makes, over fixed books and markets: ``held`` was dealt and booked
-    before every set; each row of ``trades`` is one trade dealt and booked at ``trade_time``."""
+    """The store calls explain makes, over fixed books and markets: ``held`` was written before
+    every set; each row of ``trades`` is one trade dealt at ``trade_time`` and written at place
+    ``trade_seq`` of the store's order (between sets 2 and 3 unless given)."""
 
     def __init__(
         self,
@@ -49,42 +52,42 @@ class FakeStore:
         prices: np.ndarray,
         now_market: Market | None = None,
         trade_time: datetime = FRI + timedelta(days=1),
+        trade_seq: int = 25,
     ) -> None:
-        self.sets, self.markets, self.held, self.trade_book, self.prices = (
-            sets,
-            markets,
-            held,
-            trades,
-            prices,
-        )
+        self.sets = [s if s.seq else replace(s, seq=10 * s.id) for s in sets]
+        self.markets, self.held, self.trade_book, self.prices = markets, held, trades, prices
         self.now_market = now_market
         self.trade_time = trade_time
+        self.trade_seq = trade_seq
         self.asked: list[tuple[str, object]] = []
 
     def mark_sets(self, kind: str | None = None) -> list[SetInfo]:
         return [s for s in self.sets if kind is None or s.kind == kind]
 
+    def last_seq(self) -> int:
+        return max([self.trade_seq, *(s.seq for s in self.sets)])
+
     def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
         self.asked.append(("market", mark_set_id))
         return self.now_market if mark_set_id is None else self.markets[mark_set_id]
 
-    def load_book(self, book: str | None = None, as_of: datetime | None = None) -> Book:
-        self.asked.append(("book", as_of))
-        if as_of is not None and as_of < self.trade_time:
+    def load_book(
+        self, book: str | None = None, as_of: datetime | None = None, before_seq: int | None = None
+    ) -> Book:
+        self.asked.append(("book", before_seq))
+        if before_seq is not None and before_seq <= self.trade_seq:
             return self.held
         return self.held.with_trials(self.trade_book)  # distinct contract ids, one row each
 
     def new_trades(
-        self, since: datetime, until: datetime | None = None, book: str | None = None
+        self, after_seq: int, before_seq: int | None = None, book: str | None = None
     ) -> tuple[Book, np.ndarray]:
-        self.asked.append(("trades", (since, until)))
-        if since < self.trade_time <= (until or datetime.now(UTC)):
+        self.asked.append(("trades", (after_seq, before_seq)))
+        if after_seq < self.trade_seq < (before_seq or self.last_seq() + 1):
             return self.trade_book, self.prices
         return self.trade_book.take([]), self.prices[:0]
 
-    def trades(self, until: datetime | None = None) -> list[TradeRecord]:
-        if until is not None and self.trade_time > until:
-            return []
+    def trades(self) -> list[TradeRecord]:
         b = self.trade_book
         return [
             TradeRecord(
@@ -107,6 +110,7 @@ class FakeStore:
                 source="typed",
                 note="",
                 state="live",
+                seq=self.trade_seq,
             )
             for i in range(len(b))
         ]

@@ -89,15 +89,19 @@ def _importer(db: str, csv_path: str, kind: str) -> None:
 
 
 def _close_writer(db: str, rounds: str) -> None:
-    """Commit ``rounds`` close sets (a spot mark and a close each), printing 'ready' first."""
+    """Commit ``rounds`` close sets (a spot mark and a close each), printing 'ready' first.
+
+    A date closes once, so each round after the first writes a correction of the round before.
+    """
     from blotter.store import open_store
 
     store = open_store(db)
     print("ready", flush=True)
+    last = None
     for i in range(int(rounds)):
         store.log_spot("TSTA", 100 + (i % 100) * 0.1)
         store.log_vol("TSTA", "2030-06-21", 0.2 + (i % 10) / 100, strike=100 + i % 7)
-        store.commit_close(note=f"round {i}")
+        last = store.commit_close(note=f"round {i}", corrects=last)
         store.add_trade("main", "TSTA", 1 + i % 5, 2.0, "2030-06-21", 100, True)
     print("done", flush=True)
 
@@ -140,6 +144,20 @@ def _spot_once(db: str, price: str) -> None:
         store.log_spot("TSTA", float(price))
 
 
+def _close_racer(db: str, name: str) -> None:
+    """Open the book, print 'ready', wait for a line on stdin, then write today's close; print
+    'closed ID' or 'refused: MESSAGE'."""
+    from blotter.store import StoreError, open_store
+
+    store = open_store(db)
+    print("ready", flush=True)
+    sys.stdin.readline()
+    try:
+        print(f"closed {store.commit_close(note=name)}", flush=True)
+    except StoreError as exc:
+        print(f"refused: {exc}", flush=True)
+
+
 def _migrate_paused(db: str) -> None:
     """Open an old book (which migrates it), pausing inside the migration: the parent kills us."""
     import sqlite3
@@ -173,6 +191,7 @@ def main(argv: list[str]) -> None:
         "hold_lock": _hold_lock,
         "fsize_import": _fsize_import,
         "spot_once": _spot_once,
+        "close_racer": _close_racer,
         "migrate_paused": _migrate_paused,
     }
     commands[argv[0]](*argv[1:])

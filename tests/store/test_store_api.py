@@ -76,6 +76,7 @@ def test_book_as_of_counts_trades_and_cancels_by_when_they_were_booked(store: St
     t0 = datetime.now(UTC)
     a = store.add_trade("main", "TSTA", 10, 2.5, "2030-06-21", 100, True)
     t1 = datetime.now(UTC)
+    cut = store.last_seq()  # the store's own order: a is the newest row here
     new_a = store.amend_trade(a, quantity=12, reason="size")
     t2 = datetime.now(UTC)
     store.add_trade(
@@ -85,9 +86,10 @@ def test_book_as_of_counts_trades_and_cancels_by_when_they_were_booked(store: St
     assert list(store.load_book(as_of=t1).quantities) == [10.0]
     assert list(store.load_book(as_of=t2).quantities) == [12.0]  # never 22: no double count
     assert list(store.load_book().quantities) == [15.0]
-    rows, prices = store.new_trades(t1, None)
+    rows, prices = store.new_trades(cut, None)
     assert sorted(rows.quantities) == [3.0, 12.0] and sorted(prices) == [2.0, 2.5]
-    before, after = store.load_book(as_of=t1), store.load_book()
+    before, after = store.load_book(before_seq=cut + 1), store.load_book()
+    assert list(before.quantities) == [10.0]
     assert after.quantities.sum() == before.quantities.sum() - 10 + rows.quantities.sum()
     assert {t.trade_id for t in store.trades(since=t0 - timedelta(hours=1))} == {a, new_a}
 
@@ -350,7 +352,8 @@ def test_correcting_an_older_close_keeps_its_own_points_not_todays_marks(store: 
     store.log_spot("TSTA", 100.0)
     store.log_spot("TSTX", 4000.0)
     store.log_vol("TSTA", "2030-06-21", 0.25)
-    close1 = store.commit_close(note="day 1")
+    day1 = datetime.now(UTC) - timedelta(days=1)  # a date closes once: day 1 is yesterday
+    close1 = store.commit_close(note="day 1", marked_at=day1)
     store.log_spot("TSTX", 4100.0)  # day 2's marks
     store.log_vol("TSTA", "2030-06-21", 0.27)
     close2 = store.commit_close(note="day 2")

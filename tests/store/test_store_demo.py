@@ -100,8 +100,10 @@ def test_the_trade_history_builds_the_book(demo_db: Path) -> None:
         assert dict(zip(book.contract_ids.tolist(), book.quantities.tolist(), strict=False)) == {
             c: float(q) for c, q in net.items() if q
         }
-        first = s.load_book(as_of=close1)
-        new, prices = s.new_trades(close1, close2)
+        cut1, cut2 = (c.seq for c in s.mark_sets("close"))
+        first = s.load_book(before_seq=cut1)
+        assert first.quantities.tolist() == s.load_book(as_of=close1).quantities.tolist()
+        new, prices = s.new_trades(cut1, cut2)
         assert 0 < len(new) < 30 and (prices > 0).all()
         total = dict(zip(first.contract_ids.tolist(), first.quantities.tolist(), strict=False))
         for c, q in zip(new.contract_ids.tolist(), new.quantities.tolist(), strict=False):

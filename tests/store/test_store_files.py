@@ -170,6 +170,26 @@ def test_damaged_files_are_refused_never_a_traceback(demo_db: Path, tmp_path: Pa
     assert refused > 0
 
 
+def test_a_value_the_schema_forbids_is_damage_in_a_read_only_open_too(tmp_book: Path) -> None:
+    """SQLite's integrity_check skips CHECK constraints on a read-only database; the store
+    checks such a book as a writable copy in memory, so a bad value is damage, not a traceback."""
+    with open_store(tmp_book) as s:
+        s.add_underlying("TSTA", "stock", "USD", 100)
+        s.add_trade("main", "TSTA", 1, 2.0, "2030-06-21", 100, True, create_book=True)
+    conn = sqlite3.connect(tmp_book, isolation_level=None)
+    conn.execute("PRAGMA ignore_check_constraints = ON")  # as a flipped byte would leave it
+    conn.execute(
+        "INSERT INTO contract (underlying_id, option_type, strike, expiry, cutoff_time, american, "
+        "multiplier, cash_settled) VALUES (1, 'P', 90, '2030-06-21', '1;:00', 1, 100, 0)"
+    )
+    conn.close()
+    with pytest.raises(StoreError, match="is damaged"):
+        open_store(tmp_book)  # a writable open's quick_check sees the bad value
+    with open_store(tmp_book, read_only=True) as s:  # a read-only open's cannot
+        with pytest.raises(StoreError, match="is damaged"):
+            s.load_book()
+
+
 def test_new_book_and_its_side_files_are_not_open_to_other_users(tmp_path: Path) -> None:
     old = os.umask(0o000)  # the most permissive umask there is
     try:

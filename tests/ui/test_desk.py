@@ -170,16 +170,21 @@ async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo
         del vol, words
 
 
+async def review_a_close_after_marking_demoa(app: BlotterApp, pilot: Any) -> CloseReviewScreen:
+    """Open Marks, mark DEMOA's spot 190 and press c: the close review on screen."""
+    await open_marks(app, pilot)
+    await pilot.press(*"190", "enter")
+    await settle(app, pilot)
+    await pilot.press("c")
+    await settle(app, pilot)
+    assert isinstance(app.screen, CloseReviewScreen)
+    return app.screen
+
+
 async def test_commit_close_reviews_then_writes_one_close_set(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
-        await open_marks(app, pilot)
-        await pilot.press(*"190", "enter")
-        await settle(app, pilot)
-        await pilot.press("c")
-        await settle(app, pilot)
-        assert isinstance(app.screen, CloseReviewScreen)
-        review = app.screen.review
+        review = (await review_a_close_after_marking_demoa(app, pilot)).review
         assert any(line.startswith("DEMOA spot 180.67 → 190.00") for line in review.changed)
         st = open_ro(demo_db)
         closes_before = len(st.mark_sets(kind="close"))
@@ -196,6 +201,36 @@ async def test_commit_close_reviews_then_writes_one_close_set(demo_db: Path) -> 
         finally:
             st.close()
         assert at_close[("spot", "DEMOA")] == pytest.approx(190.0)
+
+
+async def test_a_close_when_the_date_is_closed_is_reviewed_and_written_as_its_correction(
+    demo_db: Path,
+) -> None:
+    """Another terminal closed today already: the review says so and names that close, and y
+    writes a correction of it (a date closes once), never a second close of the date."""
+    with store.open_store(demo_db) as other:
+        first = other.commit_close_info(note="another terminal")
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await review_a_close_after_marking_demoa(app, pilot)
+        assert (screen.review.corrects, screen.review.close_day) == (first.id, first.business_date)
+        shown = str(screen.query_one("#review-text").render())
+        assert f"{first.business_date} is closed already (set {first.id})" in shown
+        assert "y or F5 writes the correction" in shown
+        await pilot.press("y")
+        await settle(app, pilot)
+        assert isinstance(app.screen, MarksScreen)
+        assert f"written, correcting set {first.id}" in message(app)
+    st = open_ro(demo_db)
+    try:
+        closes = st.mark_sets(kind="close")
+        day = [c for c in closes if c.business_date == first.business_date]
+        assert [(c.id, c.corrects) for c in day] == [(first.id, None), (closes[-1].id, first.id)]
+        assert {(m.kind, m.symbol): m.value for m in st.marks(closes[-1].id)}[
+            ("spot", "DEMOA")
+        ] == pytest.approx(190.0)
+    finally:
+        st.close()
 
 
 async def test_a_busy_file_refuses_the_close_and_nothing_typed_is_lost(
@@ -470,14 +505,38 @@ async def test_book_total_leaves_share_columns_blank_and_vega_switches_unit(
         assert float(str(table.get_cell("total", "vega_pt")).replace(",", "")) == per_pt
 
 
+async def open_explain(app: BlotterApp, pilot: Any) -> ExplainScreen:
+    """The Explain screen (l) with its first result in."""
+    await settle(app, pilot)
+    await pilot.press("l")
+    await settle(app, pilot)
+    screen = app.screen
+    assert isinstance(screen, ExplainScreen) and screen.result is not None
+    return screen
+
+
+async def test_explain_screen_starts_at_the_last_close_not_a_later_correction_of_an_older_one(
+    demo_db: Path,
+) -> None:
+    """The demo's first close (11-27) corrected today: "since the last close" still starts at the
+    11-30 close, and ending there starts at the correction standing for 11-27."""
+    with store.open_store(demo_db) as st:
+        first, last = (c.id for c in st.mark_sets(kind="close"))
+        fixed = st.commit_close_info(corrects=first)
+    assert fixed.id > last
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_explain(app, pilot)
+        assert screen.result.from_set.id == last and screen.result.to_set == "now"
+        await pilot.press("o")  # end at the last close
+        await settle(app, pilot)
+        assert (screen.result.from_set.id, screen.result.to_set.id) == (fixed.id, last)
+
+
 async def test_explain_screen_shows_scenario_explain(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
-        await settle(app, pilot)
-        await pilot.press("l")
-        await settle(app, pilot)
-        screen = app.screen
-        assert isinstance(screen, ExplainScreen) and screen.result is not None
+        screen = await open_explain(app, pilot)
         st = open_ro(demo_db)
         try:
             closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]

@@ -75,13 +75,17 @@ def test_an_old_schema_book_is_upgraded_before_the_app_starts(
     read-only, and a read-only open refuses an older schema); with it, a clear refusal."""
     import sqlite3
 
-    from blotter.store import SCHEMA_VERSION, open_store
+    from blotter.store import APPLICATION_ID, SCHEMA_VERSION, open_store, schema_sections
 
     old = tmp_path / "old.db"
-    with open_store(old, create=True) as s:
-        s.add_book("main")
-    conn = sqlite3.connect(old)
-    conn.execute("PRAGMA user_version = 2")  # the v3 step only relaxes a trigger
+    conn = sqlite3.connect(old, isolation_level=None)  # a book of schema 2: its sections only
+    conn.execute("PRAGMA journal_mode = WAL")
+    for version in (1, 2):
+        for statement in schema_sections()[version]:
+            conn.execute(statement)
+    conn.execute("INSERT INTO book (name) VALUES ('main')")
+    conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    conn.execute("PRAGMA user_version = 2")
     conn.close()
     refused = CliRunner().invoke(main, ["--db", str(old), "--read-only"])
     assert refused.exit_code != 0 and "older schema (2)" in refused.output and not built

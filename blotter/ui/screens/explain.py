@@ -67,9 +67,9 @@ class ExplainScreen(DeskScreen):
         try:
             st = open_store(self.app, read_only=True)
             try:
-                closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
+                closes = scenario.closes_in_force(st.mark_sets())
                 end_id = None if end == "now" else int(end)
-                before = [s for s in closes if end_id is None or s.id < end_id]
+                before = _before(closes, end_id)
                 if not before:
                     raise ValueError("no close before the end: commit a close first")
                 start = before[max(0, len(before) - 1 - start_back)]
@@ -131,7 +131,7 @@ class ExplainScreen(DeskScreen):
 
     def action_earlier_start(self) -> None:
         end_id = None if self.end == "now" else int(self.end)
-        n_before = len([s for s in self.closes if end_id is None or s.id < end_id])
+        n_before = len(_before(self.closes, end_id))
         self.start_back = (self.start_back + 1) % max(1, n_before)
         self.compute(self.start_back, self.end)
 
@@ -142,3 +142,9 @@ class ExplainScreen(DeskScreen):
         self.end = ends[(i + 1) % len(ends)]
         self.start_back = 0
         self.compute(self.start_back, self.end)
+
+
+def _before(closes: list[Any], end_id: int | None) -> list[Any]:
+    """The closes of ``closes`` (oldest first) before the close ``end_id`` (all for None)."""
+    ids = [s.id for s in closes]
+    return closes if end_id is None else closes[: ids.index(end_id) if end_id in ids else 0]

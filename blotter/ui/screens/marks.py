@@ -286,8 +286,9 @@ class MarksScreen(DeskScreen):
         self.load(review=True)
 
     @work(thread=True, exclusive=True, group="marks-close", exit_on_error=False)
-    def write_close(self, note: str) -> None:
-        """Write the marks in force as one close set; ``Done`` says which set or why not."""
+    def write_close(self, note: str, corrects: int | None = None) -> None:
+        """Write the marks in force as one close set (a correction of the close ``corrects``
+        when the review found the date closed); ``Done`` says which set or why not."""
         from blotter import store
 
         t0 = time.perf_counter()
@@ -295,14 +296,15 @@ class MarksScreen(DeskScreen):
         try:
             st = open_store(self.app)
             try:
-                set_id = st.commit_close(note=note)
+                set_id = st.commit_close(note=note, corrects=corrects)
             finally:
                 st.close()
         except (store.StoreError, ValueError) as exc:
             self.post_message(Done("close", False, f"✗ close not written: {exc}"))
             return
         self.last_close_s = time.perf_counter() - t0
-        self.post_message(Done("close", True, f"✓ close set {set_id} written", set_id))
+        fixes = f", correcting set {corrects}" if corrects is not None else ""
+        self.post_message(Done("close", True, f"✓ close set {set_id} written{fixes}", set_id))
 
     def on_done(self, message: Done) -> None:
         message.stop()
@@ -352,6 +354,12 @@ class CloseReviewScreen(ModalScreen[None]):
         text.append(
             f"Commit close: {r.n_points} mark points in force become one close set.\n", style="bold"
         )
+        if r.corrects is not None:
+            text.append(
+                f"{r.close_day} is closed already (set {r.corrects}): this close corrects it, "
+                "and explain uses the correction in its place.\n",
+                style="bold",
+            )
 
         def part(title: str, lines: tuple[str, ...], limit: int = 12) -> None:
             text.append(f"\n{title} ({len(lines)})\n", style="bold")
@@ -365,7 +373,8 @@ class CloseReviewScreen(ModalScreen[None]):
         part("Changed since the last close", r.changed)
         part("MISSING: a position needs these and nobody marked them", r.missing)
         part("Unchanged for more than a day", r.stale)
-        text.append("\ny or F5 writes the close set; n, q or F10 goes back without writing.")
+        what = "the correction" if r.corrects is not None else "the close set"
+        text.append(f"\ny or F5 writes {what}; n, q or F10 goes back without writing.")
         with VerticalScroll(classes="desk-body"):
             yield Static(text, id="review-text")
         yield Static("", classes="desk-message", id="review-message")
@@ -377,7 +386,7 @@ class CloseReviewScreen(ModalScreen[None]):
     def action_confirm(self) -> None:
         self.say("writing the close set…")
         self.marks._close_started = (time.perf_counter(), 0.0)
-        self.marks.write_close("close from the app")
+        self.marks.write_close("close from the app", self.review.corrects)
 
     def action_back(self) -> None:
         self.dismiss()
