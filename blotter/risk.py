@@ -24,7 +24,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import date
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 
@@ -59,6 +59,120 @@ VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
 
 Grouping = Literal["underlying", "expiry", "position"]
 
+MARK_COMMANDS = {
+    "spot": "blotter mark spot {name} PRICE",
+    "vol": "blotter mark vol {name} YYYY-MM-DD VOL",
+    "rate": "blotter mark rate {name} DAYS RATE",
+}
+"""The command that logs each kind of mark, by ``MissingMark.kind``."""
+
+
+@dataclass(frozen=True)
+class MissingMark:
+    """A mark a position needs and the market lacks: ``kind`` spot, vol or rate, of ``name`` (the
+    underlying's symbol, or the currency for a rate)."""
+
+    kind: str
+    name: str
+
+    @property
+    def command(self) -> str:
+        """The command that logs this mark, e.g. ``blotter mark spot XYZ PRICE``."""
+        return MARK_COMMANDS[self.kind].format(name=self.name)
+
+    def words(self) -> str:
+        """The missing mark for people: ``no spot mark for XYZ``, ``no USD rate curve``."""
+        if self.kind == "rate":
+            return f"no {self.name} rate curve"
+        return f"no {'spot mark' if self.kind == 'spot' else 'vol surface'} for {self.name}"
+
+
+@dataclass(frozen=True)
+class UnvaluedPosition:
+    """A position left out of every value and total because its underlying lacks a mark it needs.
+
+    ``where`` names the market that lacks it when a report uses more than one (explain's start and
+    end), else it is empty.
+    """
+
+    label: str
+    contract_id: int
+    underlying: str
+    currency: str
+    is_trial: bool
+    missing: tuple[MissingMark, ...]
+    where: str = ""
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON form: the contract, its underlying and currency, and each missing mark with the
+        command that logs it."""
+        out: dict[str, Any] = {
+            "contract": self.label,
+            "contract_id": self.contract_id,
+            "underlying": self.underlying,
+            "currency": self.currency,
+            "is_trial": self.is_trial,
+            "missing": [
+                {"mark": m.kind, "of": m.name, "command": m.command} for m in self.missing
+            ],
+        }
+        if self.where:
+            out["where"] = self.where
+        return out
+
+
+def missing_marks(
+    book: Book, market: Market, valuation_time: np.datetime64, where: str = ""
+) -> tuple[tuple[UnvaluedPosition, ...], np.ndarray]:
+    """The positions ``market`` cannot value at ``valuation_time`` and a bool mask (n,) of those
+    it can.
+
+    Every position needs its underlying's spot; an option not yet expired also needs a vol surface
+    for the underlying and a rate curve for its currency (an expired option is worth its intrinsic
+    value, a hedge units × spot).
+    """
+    und = book.underlyings
+    n = len(book)
+    if not n:
+        return (), np.ones(0, dtype=bool)
+    has_spot = np.array([s in market.spots for s in und.symbols], dtype=bool)
+    has_vol = np.array([s in market.surfaces for s in und.symbols], dtype=bool)
+    has_rate = np.array([c in market.curves for c in und.currencies], dtype=bool)
+    uidx = book.underlying_idx
+    if has_spot.all() and has_vol.all() and has_rate.all():
+        return (), np.ones(n, dtype=bool)
+    years = np.where(book.is_option, cal.year_fraction(valuation_time, book.expiries), np.nan)
+    live = book.is_option & (np.nan_to_num(years, nan=0.0) > 0)
+    no_spot = ~has_spot[uidx]
+    no_vol = live & ~has_vol[uidx]
+    no_rate = live & ~has_rate[uidx]
+    bad = no_spot | no_vol | no_rate
+    out = []
+    for i in np.flatnonzero(bad).tolist():
+        j = int(uidx[i])
+        sym, ccy = und.symbols[j], und.currencies[j]
+        missing = [
+            MissingMark(kind, name)
+            for kind, name, lacks in (
+                ("spot", sym, no_spot[i]),
+                ("vol", sym, no_vol[i]),
+                ("rate", ccy, no_rate[i]),
+            )
+            if lacks
+        ]
+        out.append(
+            UnvaluedPosition(
+                label=book.labels[i],
+                contract_id=int(book.contract_ids[i]),
+                underlying=sym,
+                currency=ccy,
+                is_trial=bool(book.is_trial[i]),
+                missing=tuple(missing),
+                where=where,
+            )
+        )
+    return tuple(out), ~bad
+
 
 @dataclass(frozen=True, eq=False)
 class UnitGreeks:
@@ -89,6 +203,7 @@ class BookValuation:
     ``carry`` (decimal, continuous; NaN for hedges), ``vol`` (decimal; NaN for hedges). Exposures in
     desk units as in the module docstring; ``value`` is quantity × multiplier × unit price (zero
     for a futures hedge, whose P&L settles daily). ``greeks`` holds the raw per-unit greeks used.
+    ``book`` holds the valued positions only; ``unvalued`` lists those a missing mark left out.
     """
 
     book: Book
@@ -124,9 +239,15 @@ class BookValuation:
     t_ref_days: float = DEFAULT_T_REF_DAYS
     vega_unit: str = "pt"
     notes: tuple[str, ...] = field(default=())
+    unvalued: tuple[UnvaluedPosition, ...] = field(default=())
 
     def __len__(self) -> int:
         return len(self.book)
+
+    @property
+    def partial(self) -> bool:
+        """True when some positions were left out for want of a mark (``unvalued``)."""
+        return bool(self.unvalued)
 
     @property
     def vega_scale(self) -> float:
@@ -197,6 +318,8 @@ def _carry_and_rate(
         if not rows.size:
             continue
         kind, sym = und.kinds[i], und.symbols[i]
+        if und.currencies[i] not in market.curves:
+            continue  # only hedges and expired options here (``missing_marks``): they need no rate
         rate[rows] = market.curve(und.currencies[i]).rate_at(t[rows])
         q = float(market.div_yields.get(sym, und.div_yields[i]))
         if kind == "future":
@@ -270,12 +393,16 @@ def value_book(
 ) -> BookValuation:
     """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
 
-    Returns per-position arrays (n,) in desk units (see the module docstring). KeyError naming the
-    symbol or currency when a needed spot, surface or curve is missing.
+    Returns per-position arrays (n,) in desk units (see the module docstring). Positions whose
+    underlying lacks a mark they need (``missing_marks``) are left out and listed in ``unvalued``,
+    so one unmarked name never blanks the rest of the book.
     """
     if vega_unit not in VEGA_UNITS:
         raise ValueError(f"vega_unit must be one of {', '.join(VEGA_UNITS)}, not {vega_unit!r}")
     t = cal.valuation_time(valuation_time)
+    unvalued, valued = missing_marks(book, market, t)
+    if unvalued:
+        book = book.take(np.flatnonzero(valued))
     und = book.underlyings
     n = len(book)
     uidx = book.underlying_idx
@@ -295,7 +422,7 @@ def value_book(
     vol = np.full(n, np.nan)
     for i, rows in enumerate(groups):
         rows = rows[opt[rows]]
-        if rows.size:
+        if rows.size and und.symbols[i] in market.surfaces:  # else expired only: no vol needed
             vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
 
     g = {
@@ -391,6 +518,7 @@ def value_book(
         t_ref_days=float(t_ref_days),
         vega_unit=vega_unit,
         notes=tuple(notes),
+        unvalued=unvalued,
     )
 
 

@@ -35,7 +35,7 @@ from __future__ import annotations
 import re
 import weakref
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import Any
 
@@ -44,8 +44,15 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import engine
 from blotter.book import MOVE_PARTS, SYMBOL_PATTERN, Book
-from blotter.market import VOL_FLOOR
-from blotter.risk import BookValuation, intrinsic, value_book
+from blotter.market import VOL_FLOOR, Market
+from blotter.risk import (
+    BookValuation,
+    MissingMark,
+    UnvaluedPosition,
+    intrinsic,
+    missing_marks,
+    value_book,
+)
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor terms, in the order they are shown."""
@@ -1303,6 +1310,7 @@ class Explain:
     notes: tuple[str, ...] = ()
     late_trades: tuple[int, ...] = ()  # ids of trades dealt before the start, booked in the period
     corrected_trades: tuple[int, ...] = ()  # ids dealt before the start, cancelled in the period
+    unvalued: tuple[UnvaluedPosition, ...] = ()  # left out: a mark missing at the start or end
 
 
 def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
@@ -1404,6 +1412,10 @@ def explain(
     period = _period_trades(store, t0d, t1d)
     known_start = store.load_book(as_of=t0d)
     held = _net_books([(store.load_book(as_of=t1d), 1.0), (period.new, -1.0)])
+    end_name = "end (marks now)" if to == "now" else f"end (set {to.id})"
+    sides = ((m0, t0, f"start (set {frm.id})"), (m1, t1, end_name))
+    left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition] = {}
+    held = held.take(_valued_part(held, sides, left_out))
     start = value_book(held, m0, t0)
     end = value_book(held, m1, t1)
     dt = float(cal.year_fraction(t0, t1))
@@ -1434,6 +1446,7 @@ def explain(
     # Late bookings and corrections: actual of the held positions less that of the book as the
     # store showed it at the start (positions added count with their P&L, removed ones against).
     diff = _net_books([(held, 1.0), (known_start, -1.0)])
+    diff = diff.take(_valued_part(diff, sides, left_out))
     if len(diff):
         corr = _held_pnl(value_book(diff, m0, t0), value_book(diff, m1, t1))
         for j, s in enumerate(diff.underlyings.symbols):
@@ -1446,7 +1459,8 @@ def explain(
             f"{len(period.corrected)} cancelled or amended in it: the positions held are as known "
             "at the end; 'corrections' is how much that changed actual"
         )
-    trades, trade_prices = period.new, period.prices
+    kept = _valued_part(period.new, sides[1:], left_out)
+    trades, trade_prices = period.new.take(kept), period.prices[kept]
     if len(trades):
         tv = value_book(trades, m1, t1)
         tp = np.asarray(trade_prices, dtype=np.float64)
@@ -1506,7 +1520,29 @@ def explain(
         notes=tuple(notes),
         late_trades=period.late,
         corrected_trades=period.corrected,
+        unvalued=tuple(left_out.values()),
     )
+
+
+def _valued_part(
+    book: Book,
+    sides: Sequence[tuple[Market, np.datetime64, str]],
+    left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition],
+) -> np.ndarray:
+    """Rows of ``book`` that every (market, time, name) side can value; the rest are added to
+    ``left_out`` once per contract and set of missing marks, naming the sides that lack them."""
+    ok = np.ones(len(book), dtype=bool)
+    for market, t, name in sides:
+        unvalued, valued = missing_marks(book, market, t, where=name)
+        ok &= valued
+        for u in unvalued:
+            key = (u.contract_id, u.missing)
+            seen = left_out.get(key)
+            if seen is None:
+                left_out[key] = u
+            elif name not in seen.where:
+                left_out[key] = replace(seen, where=f"{seen.where} and {name}")
+    return np.flatnonzero(ok)
 
 
 def _held_pnl(start: BookValuation, end: BookValuation) -> np.ndarray:

@@ -25,7 +25,7 @@ from blotter.commands.common import (
 )
 
 if TYPE_CHECKING:
-    from blotter.risk import BookValuation, ExposureRow
+    from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
 
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` (``explain --json`` adds ``carry``)."""
@@ -154,6 +154,50 @@ def _iso(t: Any) -> str:
 def _header(v: BookValuation) -> dict[str, Any]:
     marks = _iso(v.market.marks_as_of) if v.market.has_marks else None
     return {"as_of": _iso(v.valuation_time), "marks_as_of": marks}
+
+
+UNVALUED_SHOWN = 20
+"""Positions listed by name under a table when marks are missing; JSON lists every one."""
+
+
+def _unvalued_json(unvalued: Sequence[UnvaluedPosition]) -> dict[str, Any]:
+    """``partial`` and the ``unvalued`` list of a report's JSON."""
+    return {"partial": bool(unvalued), "unvalued": [u.as_dict() for u in unvalued]}
+
+
+def _total_label(unvalued: Sequence[UnvaluedPosition]) -> str:
+    """The total row's label in a table: it says so when some positions are left out."""
+    return "total of valued" if unvalued else "total"
+
+
+def _say_unvalued(unvalued: Sequence[UnvaluedPosition], table: bool) -> None:
+    """List the positions left out for want of a mark, each with the command that logs it: under
+    the table on stdout, or on stderr when stdout carries CSV."""
+    if not unvalued:
+        return
+    n = len({u.contract_id for u in unvalued})
+    head = (
+        f"{n} position{'' if n == 1 else 's'} not valued for want of a mark: every total "
+        f"{'above ' if table else ''}is of the valued positions"
+    )
+    if not table:
+        click.echo(f"blotter: {head}", err=True)
+        for u in unvalued:
+            for m in u.missing:
+                where = f" at the {u.where}" if u.where else ""
+                click.echo(f"  {u.label}: {m.words()}{where}; log it with: {m.command}", err=True)
+        return
+    rows = []
+    for k, u in enumerate(unvalued[:UNVALUED_SHOWN]):
+        same = k > 0 and unvalued[k - 1].contract_id == u.contract_id
+        for j, m in enumerate(u.missing):
+            where = f"{u.where}: " if u.where else ""
+            rows.append([u.label if j == 0 and not same else "", where + m.words(), m.command])
+    click.echo("")
+    click.echo(head)
+    print_table(["not valued", "missing", "log it with"], rows)
+    if len(unvalued) > UNVALUED_SHOWN:
+        click.echo(f"… and {len(unvalued) - UNVALUED_SHOWN} more (--json lists them all)")
 
 
 SHARE_KEYS = ("delta_shares", "gamma_1pct", "vanna_pt")
@@ -306,9 +350,10 @@ def risk(
         if by == "position":
             out["by_position"] = _position_dicts(v)
         out["notes"] = list(v.notes)
-        print_json(out)
+        print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         if by == "position":
             dicts = _position_dicts(v)
             cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS]
@@ -353,7 +398,7 @@ def risk(
     )
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
         table = [[a, b, *(cells_of(r)[i] for i in block)] for a, b, r in groups]
-        table.append(["total", "", *(tot_cells[i] for i in block)])
+        table.append([_total_label(v.unvalued), "", *(tot_cells[i] for i in block)])
         click.echo("")
         print_table(
             [*first, *(cols[i] for i in block)], table, right=[False, True] + [True] * len(block)
@@ -376,6 +421,7 @@ def risk(
         )
     for line in [*lines, *v.notes]:
         click.echo(line)
+    _say_unvalued(v.unvalued, table=True)
 
 
 _WHATIF_HELP = (
@@ -471,9 +517,10 @@ def whatif(
             "vol_rule": mv.vol_rule,
             "notes": list(res.notes),
         }
-        print_json(out)
+        print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         cols = [
             "underlying",
             "full",
@@ -503,7 +550,9 @@ def whatif(
         ]
         print_csv(cols, rows)
         return
-    rows = [[r.label, *_move_row_cells(r)] for r in [*res.by_underlying, res.total]]
+    total_label = _total_label(v.unvalued)
+    rows = [[r.label, *_move_row_cells(r)] for r in res.by_underlying]
+    rows.append([total_label, *_move_row_cells(res.total)])
     click.echo(f"what-if: {mv.describe()} · money in book currency · vols {mv.vol_rule}")
     click.echo("")
     print_table(
@@ -512,9 +561,8 @@ def whatif(
         right=[False] + [True] * 7,
     )
     click.echo("")
-    terms = [
-        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]
-    ]
+    terms = [[r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in res.by_underlying]
+    terms.append([total_label, *(_money(res.total.terms[t]) for t in TERM_KEYS)])
     print_table(["estimate terms", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
     if res.expiring:
         ex = [
@@ -542,6 +590,7 @@ def whatif(
         click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
     for note in res.notes:
         click.echo(note)
+    _say_unvalued(v.unvalued, table=True)
 
 
 def _float_list(text: str | None, default: Sequence[float], name: str) -> list[float]:
@@ -647,9 +696,11 @@ def ladder(
                 "worst": worst,
                 "through_expiry": lad.n_through_expiry,
             }
+            | _unvalued_json(v.unvalued)
         )
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         print_csv(
             ["spot_pct", "vol_pts", "full", "estimate", "error", "rule"],
             (
@@ -676,7 +727,8 @@ def ladder(
             for a in range(len(sp))
         ]
         after = f" · after {_days(days)}" if days else ""
-        click.echo(f"{title} · {lad.rule}{after} · book currency")
+        of_valued = " of the valued positions" if v.unvalued else ""
+        click.echo(f"{title}{of_valued} · {lad.rule}{after} · book currency")
         print_table(heads, rows, right=[True] * len(heads))
         click.echo("")
     click.echo(
@@ -684,6 +736,7 @@ def ladder(
         f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀"
     )
     click.echo(f"{_rule_note(lad.rule)}; valued at {_iso(v.valuation_time)}")
+    _say_unvalued(v.unvalued, table=True)
 
 
 def _set_dict(s: Any) -> Any:
@@ -758,6 +811,7 @@ def explain(
                 "corrected_trades": list(ex.corrected_trades),
                 "notes": list(ex.notes),
             }
+            | _unvalued_json(ex.unvalued)
         )
         return
     cols = [
@@ -784,6 +838,7 @@ def explain(
         for r in [*ex.by_underlying, ex.total]
     ]
     if as_csv:
+        _say_unvalued(ex.unvalued, table=False)
         print_csv(cols, data)
         return
     frm = ex.from_set
@@ -796,7 +851,7 @@ def explain(
     click.echo("")
     summary = [
         [
-            r.label,
+            _total_label(ex.unvalued) if r is ex.total else r.label,
             _money(r.actual),
             _money(r.explained),
             _money(r.unexplained),
@@ -813,7 +868,10 @@ def explain(
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
+        [
+            _total_label(ex.unvalued) if r is ex.total else r.label,
+            *(_money(r.terms[t]) for t in EXPLAIN_KEYS),
+        ]
         for r in [*ex.by_underlying, ex.total]
     ]
     print_table(
@@ -833,6 +891,7 @@ def explain(
         )
     for note in ex.notes:
         click.echo(note)
+    _say_unvalued(ex.unvalued, table=True)
 
 
 COMMANDS = [risk, whatif, ladder, explain]
