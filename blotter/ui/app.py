@@ -324,6 +324,10 @@ class BlotterApp(App[None]):
         n_trials = int(np.count_nonzero(self.state.valuation.book.is_trial))
         if n_trials:
             alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
+        unvalued = self.state.valuation.unvalued
+        if unvalued:
+            n, names = data.unvalued_count(unvalued), data.missing_by_name(unvalued, most=2)
+            alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
     def on_load_failed(self, message: LoadFailed) -> None:
@@ -554,7 +558,8 @@ class BlotterApp(App[None]):
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq and not self._blotter_closing():
-            self.query_one(LadderPane).show(message.ladder, message.days)
+            partial = self.state is not None and self.state.valuation.partial
+            self.query_one(LadderPane).show(message.ladder, message.days, partial)
             self.ladder_alerts = [message.book_alert] if message.book_alert else []
             rows = message.row_alerts or {}
             if rows != self.ladder_row_alerts or message.book_alert:
@@ -566,7 +571,7 @@ class BlotterApp(App[None]):
         if self.state is None:
             return
         rows = None
-        label = "book"
+        label = "the valued book" if self.state.valuation.partial else "book"
         if self.scope == "row":
             key = self.query_one(BookTable).cursor_row_key()
             if key and key != "total":

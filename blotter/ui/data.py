@@ -182,10 +182,15 @@ class BookTree:
 
     # -- BookSource ------------------------------------------------------------------------------
     def total(self) -> BookRow:
+        trials = bool(np.asarray(self.book.is_trial).any())
+        if self.valuation.partial:
+            label = "valued + trials" if trials else "total of valued"
+        else:
+            label = "total + trials" if trials else "total"
         return BookRow(
             key="total",
             level=0,
-            label="total + trials" if np.asarray(self.book.is_trial).any() else "total",
+            label=label,
             values=_row_values(self._total),
             alert=self._alert(self._total),
             mixed=self._mixed(np.arange(len(self.book))),
@@ -285,6 +290,34 @@ class BookTree:
             out = self._positions(key, rows, level)
         self._cache[key] = out
         return out
+
+
+def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:
+    """The marks the left-out positions lack, by symbol or currency: ``CCC: spot, vol; EUR: rate``
+    (at most ``most`` names, then how many more)."""
+    kinds: dict[str, list[str]] = {}
+    for u in unvalued:
+        for m in u.missing:
+            seen = kinds.setdefault(m.name, [])
+            if m.kind not in seen:
+                seen.append(m.kind)
+    parts = [f"{name}: {', '.join(k)}" for name, k in kinds.items()]
+    more = f"; {len(parts) - most} more" if len(parts) > most else ""
+    return "; ".join(parts[:most]) + more
+
+
+def unvalued_count(unvalued: Sequence[risk.UnvaluedPosition]) -> int:
+    """How many positions (contracts) a valuation left out."""
+    return len({u.contract_id for u in unvalued})
+
+
+def unvalued_words(unvalued: Sequence[risk.UnvaluedPosition]) -> str:
+    """The positions a valuation left out, in a few words: ``2 positions not valued (CCC: spot,
+    vol; EUR: rate)``; empty when there are none."""
+    if not unvalued:
+        return ""
+    n = unvalued_count(unvalued)
+    return f"{n} position{'' if n == 1 else 's'} not valued ({missing_by_name(unvalued)})"
 
 
 @dataclass(frozen=True)

@@ -123,7 +123,10 @@ class ExplainScreen(DeskScreen):
         self.query_one(".desk-title", Static).update(
             Text(f"Explain: P&L from {start} to {end}", style="bold")
         )
-        notes = "; ".join(result.notes) if result.notes else ""
+        from blotter.ui import data
+
+        left_out = data.unvalued_words(getattr(result, "unvalued", ()))
+        notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])
         self.say(
             "Start greeks on the positions held at the start; new trades: end value − trade "
             "price. f: start earlier, o: end now / at a close." + (f" {notes}" if notes else "")

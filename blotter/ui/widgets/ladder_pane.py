@@ -56,15 +56,17 @@ class LadderPane(VerticalScroll):
         self.grid = "full"
         self.ladder: Any = None
         self.days = 0.0
+        self.partial = False  # some positions were left out for want of a mark
         self.table: Table | None = None
 
     def compose(self) -> ComposeResult:
         yield Static("waiting for the book…", id="ladder-grid")
         yield Static("", id="ladder-rule")
 
-    def show(self, ladder: Any, days: float) -> None:
-        """Show a ladder computed with a ``days`` roll."""
-        self.ladder, self.days = ladder, days
+    def show(self, ladder: Any, days: float, partial: bool = False) -> None:
+        """Show a ladder computed with a ``days`` roll; ``partial`` when it leaves out positions
+        that lack a mark."""
+        self.ladder, self.days, self.partial = ladder, days, partial
         self.repaint()
 
     def next_grid(self) -> str:
@@ -83,7 +85,8 @@ class LadderPane(VerticalScroll):
         worst = worst_cell(ladder)
         roll = f", after {self.days:g} day{'s' if self.days != 1 else ''}" if self.days else ""
         rule = str(getattr(ladder, "rule", "") or "")
-        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{roll} ─ {rule}" + (
+        of_valued = " of valued positions" if self.partial else ""
+        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{of_valued}{roll} ─ {rule}" + (
             f" ─ {WORST} worst" if worst else ""
         )
         table = Table(box=None, pad_edge=False, padding=(0, 1))

@@ -107,7 +107,8 @@ class MovePane(Vertical):
         err = getattr(row, f"error_{n}")
         err_pct = getattr(row, f"error_{n}_pct")
         flagged = error_flagged(row.full, err, self.alerts)
-        label = "Σ total" if key == "total" else str(row.label)
+        partial = bool(getattr(getattr(self.result, "valuation", None), "partial", False))
+        label = ("Σ valued" if partial else "Σ total") if key == "total" else str(row.label)
         values = {
             "label": label[: self.label_width].ljust(self.label_width),
             "full": fmt.money(row.full, MONEY_WIDTH),
