@@ -22,7 +22,8 @@ The base valuation is computed once per (book, market, time) and reused by every
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
 from datetime import date
 from typing import Any, Literal
 
@@ -53,6 +54,30 @@ EXPOSURE_FIELDS = (
     "weighted_vega_pt",
 )
 """Additive per-position desk-unit arrays of a ``BookValuation``, in ``ExposureRow`` order."""
+
+SHARE_FIELDS = ("delta_shares", "gamma_1pct", "vanna_pt")
+"""Exposures in shares of one underlying: they add only within one name."""
+
+MONEY_FIELDS = tuple(f for f in EXPOSURE_FIELDS if f not in SHARE_FIELDS)
+"""Exposures in the instrument's currency: they add only within one currency (no FX here)."""
+
+_PER_POSITION = (
+    "spot",
+    "years",
+    "rate",
+    "carry",
+    "vol",
+    *EXPOSURE_FIELDS,
+    "units",
+    "beta",
+    "vega_weight",
+    "rho_unit",
+    "rate_moves_carry",
+    "live",
+    "settles_daily",
+    "bucket_codes",
+)
+"""The (n,) arrays of a ``BookValuation``, which ``BookValuation.take`` slices."""
 
 VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
 """Vega display units: per vol point (0.01 of vol), or per 1.00 of vol."""
@@ -261,6 +286,35 @@ class BookValuation:
             return None
         return float(self.market.spots[ref])
 
+    @property
+    def position_currencies(self) -> np.ndarray:
+        """ISO code of each position's currency (its underlying's), str array (n,)."""
+        codes = np.asarray(self.book.underlyings.currencies, dtype=str)
+        return codes[self.book.underlying_idx] if len(self) else np.zeros(0, dtype=codes.dtype)
+
+    @property
+    def currencies(self) -> tuple[str, ...]:
+        """The currencies of the valued positions, in the order of the book's underlyings."""
+        und = self.book.underlyings
+        out: list[str] = []
+        for i in np.unique(self.book.underlying_idx).tolist():
+            if und.currencies[i] not in out:
+                out.append(und.currencies[i])
+        return tuple(out)
+
+    def take(self, rows: np.ndarray) -> BookValuation:
+        """The positions ``rows`` (index array) as a valuation of their own: arrays sliced, nothing
+        revalued, no notes or unvalued list carried over."""
+        idx = np.asarray(rows, dtype=np.int64)
+        sliced: dict[str, Any] = {n: read_only(getattr(self, n)[idx]) for n in _PER_POSITION}
+        g = self.greeks
+        greeks = UnitGreeks(
+            **{name: read_only(getattr(g, name)[idx]) for name in UnitGreeks.__dataclass_fields__}
+        )
+        return replace(
+            self, book=self.book.take(idx), greeks=greeks, notes=(), unvalued=(), **sliced
+        )
+
 
 @dataclass(frozen=True)
 class ExposureRow:
@@ -268,7 +322,8 @@ class ExposureRow:
     or the whole book). ``spot`` is set for an underlying or a position row, else None.
 
     Share-unit sums (delta_shares, gamma_1pct, vanna_pt) over several underlyings add share counts
-    of different names; compare across underlyings with delta_cash or beta_delta_cash.
+    of different names; compare across underlyings with delta_cash or beta_delta_cash. Money is
+    never added across currencies: a row spanning several has ``currency`` None and NaN money.
     """
 
     key: str
@@ -288,6 +343,7 @@ class ExposureRow:
     underlying: str | None = None
     spot: float | None = None
     index: int | None = None
+    currency: str | None = None  # None when the rows span several: money fields are then NaN
 
     def exposures(self) -> dict[str, float]:
         """The exposure fields by name (``EXPOSURE_FIELDS`` less ``weighted_vega_pt`` first)."""
@@ -546,7 +602,11 @@ def _exposure_row(
     underlying: str | None = None,
     spot: float | None = None,
     index: int | None = None,
+    currencies: Sequence[str] = (),
 ) -> ExposureRow:
+    """A row of ``values``; over more than one of ``currencies`` its money fields are NaN."""
+    if len(set(currencies)) > 1:
+        values = {**values, **dict.fromkeys(MONEY_FIELDS, float("nan"))}
     return ExposureRow(
         key=key,
         label=label,
@@ -565,6 +625,7 @@ def _exposure_row(
         underlying=underlying,
         spot=spot,
         index=index,
+        currency=currencies[0] if len(set(currencies)) == 1 else None,
     )
 
 
@@ -587,6 +648,7 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
                 underlying=und.symbols[uidx[i]],
                 spot=spots[i],
                 index=i,
+                currencies=(und.currencies[uidx[i]],),
             )
             for i in range(len(book))
         ]
@@ -600,6 +662,7 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
         raise ValueError(f"by must be underlying, expiry or position, not {by!r}")
     sums = _sums(valuation, codes, n_groups)
     counts = np.bincount(codes, minlength=n_groups)
+    ccy = valuation.position_currencies
     rows = []
     for j in range(n_groups):
         if counts[j] == 0:
@@ -615,10 +678,16 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
                     underlying=names[j],
                     spot=float(valuation.underlying_spots[j]),
                     index=j,
+                    currencies=(und.currencies[j],),
                 )
             )
         else:
-            rows.append(_exposure_row(names[j], names[j], int(counts[j]), values, index=j))
+            in_bucket = tuple(np.unique(ccy[codes == j]).tolist())
+            rows.append(
+                _exposure_row(
+                    names[j], names[j], int(counts[j]), values, index=j, currencies=in_bucket
+                )
+            )
     return rows
 
 
@@ -628,22 +697,46 @@ def total(
     """The exposures of the whole book, or of the positions ``rows`` (index array), in one row.
 
     With ``rows``, ``underlying`` is set when every position summed has the same underlying, so a
-    caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything.
+    caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything. Over several
+    currencies the money fields are NaN (``currency_totals`` gives each currency's).
     """
+    ccy = valuation.position_currencies
     if rows is None:
         values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
-        return _exposure_row(label, label, len(valuation), values)
+        return _exposure_row(
+            label, label, len(valuation), values, currencies=tuple(np.unique(ccy).tolist())
+        )
     rows = np.asarray(rows, dtype=np.int64)
     values = {name: float(np.sum(getattr(valuation, name)[rows])) for name in EXPOSURE_FIELDS}
     n = len(rows)
     names = np.unique(valuation.book.underlying_idx[rows])
     underlying = valuation.book.underlyings.symbols[int(names[0])] if len(names) == 1 else None
-    return _exposure_row(label, label, n, values, underlying=underlying)
+    in_rows = tuple(np.unique(ccy[rows]).tolist())
+    return _exposure_row(label, label, n, values, underlying=underlying, currencies=in_rows)
+
+
+def currency_totals(
+    valuation: BookValuation, rows: np.ndarray | None = None, label: str = "total"
+) -> list[ExposureRow]:
+    """``total`` of each currency's positions (of ``rows``, or of the whole book), one row per
+    currency in the order of the book's underlyings."""
+    ccy = valuation.position_currencies
+    picked = np.arange(len(valuation)) if rows is None else np.asarray(rows, dtype=np.int64)
+    return [
+        total(valuation, picked[ccy[picked] == c], label)
+        for c in valuation.currencies
+        if (ccy[picked] == c).any()
+    ]
 
 
 def beta_delta_index_units(valuation: BookValuation) -> float | None:
-    """Beta-weighted delta in units of the reference index (Σ Δ $ × β / S_index), or None."""
+    """Beta-weighted delta in units of the reference index (Σ Δ $ × β / S_index), or None; None
+    too when a position's currency is not the index's (no FX conversion here)."""
     s_idx = valuation.index_spot()
     if s_idx is None:
+        return None
+    und = valuation.book.underlyings
+    ref = valuation.book.reference_index
+    if ref in und.symbols and set(valuation.currencies) - {und.currencies[und.index_of(ref)]}:
         return None
     return float(np.sum(valuation.beta_delta_cash)) / s_idx

@@ -416,10 +416,13 @@ class MoveRow:
     terms: dict[str, float]
     n_through_expiry: int = 0
     underlying: str | None = None
+    currency: str | None = None  # None when the row spans several: its money is then NaN
 
     def as_dict(self) -> dict[str, Any]:
-        """JSON form: full, estimate_1, estimate_2, error_1, error_2, the % errors, terms."""
+        """JSON form: currency, full, estimate_1, estimate_2, error_1, error_2, the % errors,
+        terms."""
         out: dict[str, Any] = {
+            "currency": self.currency,
             "full": self.full,
             "estimate_1": self.estimate_1,
             "estimate_2": self.estimate_2,
@@ -505,6 +508,7 @@ class MoveResult:
     vol_plan: _VolPlan
     rate_move: float  # decimal
     dvol_applied: np.ndarray | None = None  # (n,) when not the plan's (moneyness, vol floor)
+    by_currency: tuple[MoveRow, ...] = ()  # the total of each currency, labelled by its code
 
     @cached_property
     def dvol(self) -> np.ndarray:
@@ -578,6 +582,7 @@ def _row(
     terms: dict[str, float],
     n_through: int = 0,
     underlying: str | None = None,
+    currency: str | None = None,
 ) -> MoveRow:
     e1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
     e2 = e1 + terms["gamma"] + terms["volga"] + terms["vanna"]
@@ -593,7 +598,38 @@ def _row(
         terms=terms,
         n_through_expiry=n_through,
         underlying=underlying,
+        currency=currency,
     )
+
+
+def _currency_rows(
+    label: str,
+    currency_u: np.ndarray,
+    full_u: np.ndarray,
+    terms_u: dict[str, np.ndarray],
+    n_through_u: np.ndarray,
+) -> tuple[MoveRow, tuple[MoveRow, ...]]:
+    """The total row and one row per currency from per-underlying sums (n_u,) of the underlyings
+    ``currency_u`` names (codes, "" for those without positions); the total's money is NaN when
+    there are several currencies."""
+    codes = list(dict.fromkeys(c for c in currency_u.tolist() if c))
+    per = tuple(
+        _row(
+            c,
+            float(full_u[currency_u == c].sum()),
+            {t: float(v[currency_u == c].sum()) for t, v in terms_u.items()},
+            int(n_through_u[currency_u == c].sum()),
+            currency=c,
+        )
+        for c in codes
+    )
+    n_through = int(n_through_u.sum())
+    if len(per) == 1:
+        return replace(per[0], label=label), per
+    if not per:
+        return _row(label, 0.0, dict.fromkeys(terms_u, 0.0), n_through), per
+    nan = float("nan")
+    return _row(label, nan, dict.fromkeys(terms_u, nan), n_through), per
 
 
 @dataclass(frozen=True, eq=False)
@@ -958,6 +994,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             "rho": sm["rho"] * dr,
         }
     symbols = v.book.underlyings.symbols
+    currencies = v.book.underlyings.currencies
     present = np.flatnonzero(p.present)
     by_u = [
         _row(
@@ -966,14 +1003,13 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             {t: float(res_terms[t][j]) for t in TERM_NAMES},
             int(n_through_u[j]),
             underlying=symbols[j],
+            currency=currencies[j],
         )
         for j in present
     ]
-    total_row = _row(
-        "total",
-        float(full_u.sum()),
-        {t: float(res_terms[t].sum()) for t in TERM_NAMES},
-        int(n_through_u.sum()),
+    currency_u = np.where(p.present, np.asarray(currencies, dtype=str), "")
+    total_row, by_ccy = _currency_rows(
+        "total", currency_u, full_u, {t: res_terms[t] for t in TERM_NAMES}, n_through_u
     )
 
     result = MoveResult(
@@ -991,6 +1027,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         vol_plan=plan,
         rate_move=dr,
         dvol_applied=dvol_applied,
+        by_currency=by_ccy,
     )
     notes: list[str] = []
     if through.any():
@@ -1107,6 +1144,26 @@ class Ladder:
     time_after: np.datetime64
     n_through_expiry: int
     rule: str = STICKY_RULE
+    currency: str | None = None  # of every position in it (None for an empty book)
+
+
+def ladders(
+    valuation: BookValuation,
+    spot_pcts: Sequence[float] = DEFAULT_SPOT_PCTS,
+    vol_pts: Sequence[float] = DEFAULT_VOL_PTS,
+    days: float = 0.0,
+    chunk: int | None = None,
+    rule: str = STICKY_RULE,
+) -> list[Ladder]:
+    """One ``ladder`` per currency of the book, in the order of its underlyings (one ladder for an
+    empty or single-currency book): P&L in different currencies is never added."""
+    if len(valuation.currencies) <= 1:
+        return [ladder(valuation, spot_pcts, vol_pts, days, chunk, rule)]
+    ccy = valuation.position_currencies
+    return [
+        ladder(valuation.take(np.flatnonzero(ccy == c)), spot_pcts, vol_pts, days, chunk, rule)
+        for c in valuation.currencies
+    ]
 
 
 def ladder(
@@ -1124,8 +1181,12 @@ def ladder(
     unless ``rule`` is ``MONEYNESS_RULE`` (each option then takes the marked vol at its moneyness
     on the moved spot, before the vol shift). ``chunk`` bounds positions per engine call (default
     ``LADDER_CHUNK_CELLS`` / cells). The estimate is the second-order Taylor sum from the base
-    greeks (first order beside it).
+    greeks (first order beside it). ValueError for a book of several currencies (``ladders``).
     """
+    if len(valuation.currencies) > 1:
+        raise ValueError(
+            f"the book holds {', '.join(valuation.currencies)}: ladder each currency apart"
+        )
     if rule not in VOL_RULES:
         raise ValueError(f"rule must be one of {', '.join(VOL_RULES)}, not {rule!r}")
     sp = np.asarray(spot_pcts, dtype=np.float64).ravel()
@@ -1250,6 +1311,7 @@ def ladder(
         time_after=t1,
         n_through_expiry=n_through,
         rule=rule,
+        currency=v.currencies[0] if v.currencies else None,
     )
 
 
@@ -1278,10 +1340,12 @@ class ExplainRow:
     total: float
     underlying: str | None = None
     corrections: float = 0.0
+    currency: str | None = None  # None when the row spans several: its money is then NaN
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form."""
         out: dict[str, Any] = {
+            "currency": self.currency,
             "actual": self.actual,
             "terms": dict(self.terms),
             "explained": self.explained,
@@ -1311,6 +1375,7 @@ class Explain:
     late_trades: tuple[int, ...] = ()  # ids of trades dealt before the start, booked in the period
     corrected_trades: tuple[int, ...] = ()  # ids dealt before the start, cancelled in the period
     unvalued: tuple[UnvaluedPosition, ...] = ()  # left out: a mark missing at the start or end
+    by_currency: tuple[ExplainRow, ...] = ()  # the total of each currency, labelled by its code
 
 
 def _close_time(s: Any, by_id: dict[int, Any]) -> Any:
@@ -1487,6 +1552,8 @@ def explain(
 
     rows: list[ExplainRow] = []
     idx = held.underlying_idx
+    ccy_of = dict(zip(trades.underlyings.symbols, trades.underlyings.currencies, strict=True))
+    ccy_of.update(zip(held.underlyings.symbols, held.underlyings.currencies, strict=True))
     for j, s in enumerate(sym):
         mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
         if not mask.any() and new_pnl_u[j] == 0 and corr_u[j] == 0:
@@ -1499,15 +1566,34 @@ def explain(
                 float(new_pnl_u[j]),
                 s,
                 float(corr_u[j]),
+                currency=ccy_of[s],
             )
         )
-    tot = _explain_row(
-        "total",
-        float(actual.sum()),
-        {k: float(v.sum()) for k, v in terms.items()},
-        float(new_pnl_u.sum()),
-        corrections=float(corr_u.sum()),
+    held_ccy = np.asarray([ccy_of[s] for s in sym], dtype=str)
+    pos_ccy = held_ccy[idx] if len(held) else np.zeros(0, dtype=str)
+    by_ccy = tuple(
+        _explain_row(
+            c,
+            float(actual[pos_ccy == c].sum()),
+            {k: float(v[pos_ccy == c].sum()) for k, v in terms.items()},
+            float(new_pnl_u[held_ccy == c].sum()),
+            corrections=float(corr_u[held_ccy == c].sum()),
+            currency=c,
+        )
+        for c in dict.fromkeys(r.currency for r in rows if r.currency)
     )
+    if len(by_ccy) > 1:
+        nan = float("nan")
+        tot = _explain_row("total", nan, dict.fromkeys(terms, nan), nan, corrections=nan)
+    else:
+        tot = _explain_row(
+            "total",
+            float(actual.sum()),
+            {k: float(v.sum()) for k, v in terms.items()},
+            float(new_pnl_u.sum()),
+            corrections=float(corr_u.sum()),
+            currency=by_ccy[0].currency if by_ccy else None,
+        )
     return Explain(
         from_set=frm,
         to_set=to,
@@ -1521,6 +1607,7 @@ def explain(
         late_trades=period.late,
         corrected_trades=period.corrected,
         unvalued=tuple(left_out.values()),
+        by_currency=by_ccy,
     )
 
 
@@ -1675,6 +1762,7 @@ def _explain_row(
     new: float,
     underlying: str | None = None,
     corrections: float = 0.0,
+    currency: str | None = None,
 ) -> ExplainRow:
     explained = float(sum(terms.values()))
     return ExplainRow(
@@ -1687,4 +1775,5 @@ def _explain_row(
         total=actual + new,
         underlying=underlying,
         corrections=corrections,
+        currency=currency,
     )

@@ -16,6 +16,7 @@ from typing import Any
 
 import pytest
 from cli_helpers import run
+from ql_reference import european
 
 from blotter import store as store_mod
 
@@ -23,25 +24,7 @@ T0 = "2026-12-01T20:00:00Z"
 
 
 def _ql_call(spot: float) -> float:
-    ql = pytest.importorskip("QuantLib")
-    today = ql.Date(1, 12, 2026)
-    ql.Settings.instance().evaluationDate = today
-    dc = ql.Actual365Fixed()
-
-    def flat(r: float) -> Any:
-        return ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc))
-
-    process = ql.BlackScholesMertonProcess(
-        ql.QuoteHandle(ql.SimpleQuote(spot)),
-        flat(0.0),
-        flat(0.04),
-        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), 0.25, dc)),
-    )
-    option = ql.VanillaOption(
-        ql.PlainVanillaPayoff(ql.Option.Call, 100.0), ql.EuropeanExercise(today + 199)
-    )
-    option.setPricingEngine(ql.AnalyticEuropeanEngine(process))
-    return float(option.NPV())
+    return european(True, spot, 100.0, 0.04, 0.25, 199)
 
 
 @pytest.fixture
