@@ -288,6 +288,9 @@ class BlotterApp(App[None]):
         total = self.state.tree.total()
         if total.alert:
             out.append(f"book {total.alert}")
+        for row in self.state.tree.currency_totals():
+            if row.alert:
+                out.append(f"book {row.currency} {row.alert}")
         out += self.ladder_alerts
         for row in self.state.tree.top("underlying"):
             if row.alert:
@@ -516,7 +519,7 @@ class BlotterApp(App[None]):
 
         worker = get_current_worker()
         try:
-            grid = scenario.ladder(
+            grids = scenario.ladders(
                 state.valuation,
                 self.settings.ladder_spot_pcts,
                 self.settings.ladder_vol_pts,
@@ -527,11 +530,16 @@ class BlotterApp(App[None]):
                 self.post_message(LoadFailed(f"ladder: {exc}"))
             return
         alerts = self.settings.alerts
-        book_alert = ""
+        breached = []
         row_alerts: dict[str, str] = {}
-        worst = float(grid.full[grid.worst])
-        if alerts.ladder_loss and -worst > alerts.ladder_loss:
-            book_alert = f"book worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+        for grid in grids:
+            worst = float(grid.full[grid.worst])
+            if alerts.ladder_loss and -worst > alerts.ladder_loss:
+                ccy = f" {grid.currency}" if len(grids) > 1 else ""
+                breached.append(
+                    f"book{ccy} worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+                )
+        book_alert = "; ".join(breached)
         if alerts.underlying_ladder_loss:
             from blotter import risk
 
@@ -554,7 +562,7 @@ class BlotterApp(App[None]):
                         f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
                     )
         if not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grid, book_alert, row_alerts))
+            self.post_message(LadderReady(state.book_seq, days, grids, book_alert, row_alerts))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq and not self._blotter_closing():

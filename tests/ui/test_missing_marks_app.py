@@ -26,12 +26,24 @@ def _blotter(db: Path, *args: str) -> None:
 
 
 async def _wait_for(app: BlotterApp, pilot: Any, ready: Any, what: str) -> None:
+    """Poll (the store watcher keeps reloading, so workers are not awaited) until ``ready()``."""
     deadline = time.monotonic() + 10
     while time.monotonic() < deadline:
         await pilot.pause(0.05)
-        if app.state is not None and ready(app.state):
-            return
+        try:
+            if app.state is not None and ready():
+                return
+        except Exception:  # noqa: BLE001 - a screen still being laid out: poll again
+            continue
     raise AssertionError(f"the app did not show {what}")
+
+
+def _header(app: BlotterApp) -> str:
+    return str(app.query_one("#header-line").render())
+
+
+def _watch_text(app: BlotterApp) -> str:
+    return str(app.screen.query_one("#watch-text").render())
 
 
 async def test_a_name_added_without_marks_is_listed_and_the_rest_stays_live(
@@ -47,27 +59,35 @@ async def test_a_name_added_without_marks_is_listed_and_the_rest_stays_live(
                  "--multiplier", "100")
         _blotter(demo_db, "trade", "add", "ZZQ", "--book", "equity-vol", "--expiry",
                  "2027-06-18", "--strike", "20", "--call", "--qty", "5", "--price", "2")
-        await _wait_for(app, pilot, lambda s: s.valuation.partial, "the unmarked name")
-        await settle(app, pilot)
-        header = str(app.query_one("#header-line").render())
-        assert "cannot open" not in header
-        assert "NOT VALUED 1 (ZZQ: spot, vol)" in header
+        await _wait_for(app, pilot, lambda: "NOT VALUED" in _header(app), "the unmarked name")
+        assert "cannot open" not in _header(app)
+        assert "NOT VALUED 1 (ZZQ: spot, vol)" in _header(app)
         v = app.state.valuation
         assert [u.underlying for u in v.unvalued] == ["ZZQ"]
         assert len(v) == len(before) and float(v.value.sum()) == pytest.approx(
             float(before.value.sum()), rel=1e-12
         )
-        total = app.query_one(BookTable).visible_rows()[0]
-        assert total.label == "total of valued"
+        await _wait_for(
+            app,
+            pilot,
+            lambda: app.query_one(BookTable).visible_rows()[0].label == "total of valued",
+            "the total of the valued positions",
+        )
         _blotter(demo_db, "mark", "spot", "DEMOA", "177.25")
         i = v.book.underlyings.index_of("DEMOA")
         await _wait_for(
-            app, pilot, lambda s: s.valuation.underlying_spots[i] == 177.25, "the new DEMOA spot"
+            app,
+            pilot,
+            lambda: app.state.valuation.underlying_spots[i] == 177.25,
+            "the new DEMOA spot",
         )
-        await settle(app, pilot)
         await pilot.press("w")
-        await settle(app, pilot)
-        text = str(app.screen.query_one("#watch-text").render())
+        await _wait_for(
+            app,
+            pilot,
+            lambda: "blotter mark spot ZZQ PRICE" in _watch_text(app),
+            "the watch list's missing marks",
+        )
+        text = _watch_text(app)
         assert "1 position not valued (ZZQ: spot, vol)" in text
-        assert "blotter mark spot ZZQ PRICE" in text
         assert "blotter mark vol ZZQ YYYY-MM-DD VOL" in text

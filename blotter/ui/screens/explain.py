@@ -94,13 +94,26 @@ class ExplainScreen(DeskScreen):
     def show(self, result: Any) -> None:
         table = self.query_one("#explain-table", DataTable)
         table.clear(columns=True)
-        cols = [result.total, *result.by_underlying]
+        per_ccy = list(getattr(result, "by_currency", ()) or ())
+        several = len(per_ccy) > 1
+        cols = [result.total, *(per_ccy if several else []), *result.by_underlying]
         table.add_column("currency", key="label", width=13)
         for i, row in enumerate(cols):
-            table.add_column(Text(row.label, justify="right"), key=f"c{i}", width=10)
+            head = str(row.label)
+            if several and row is not result.total:
+                head = f"{row.label} {row.currency}" if row.underlying else f"Σ {row.currency}"
+            table.add_column(Text(head, justify="right"), key=f"c{i}", width=10)
 
         def add(label: str, values: list[float]) -> None:
-            table.add_row(label, *[fmt.money(v, 10) for v in values])
+            table.add_row(
+                label,
+                *[
+                    fmt.NOT_ADDITIVE.rjust(10)
+                    if several and r.currency is None
+                    else fmt.money(v, 10)
+                    for r, v in zip(cols, values, strict=True)
+                ],
+            )
 
         from blotter import scenario
 
