@@ -25,6 +25,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from datetime import date
+from functools import cached_property
 from typing import Any, Literal
 
 import numpy as np
@@ -286,21 +287,26 @@ class BookValuation:
             return None
         return float(self.market.spots[ref])
 
+    @cached_property
+    def currency_codes(self) -> tuple[np.ndarray, tuple[str, ...]]:
+        """(int64 (n,) index of each position's currency into the names, the names): every
+        currency of the book's underlyings, in their order."""
+        names = tuple(dict.fromkeys(self.book.underlyings.currencies))
+        per_u = np.array(
+            [names.index(c) for c in self.book.underlyings.currencies], dtype=np.int64
+        )
+        return read_only(per_u[self.book.underlying_idx]), names
+
     @property
     def position_currencies(self) -> np.ndarray:
         """ISO code of each position's currency (its underlying's), str array (n,)."""
-        codes = np.asarray(self.book.underlyings.currencies, dtype=str)
-        return codes[self.book.underlying_idx] if len(self) else np.zeros(0, dtype=codes.dtype)
+        codes, names = self.currency_codes
+        return np.asarray(names, dtype=str)[codes] if len(self) else np.zeros(0, dtype=str)
 
-    @property
+    @cached_property
     def currencies(self) -> tuple[str, ...]:
         """The currencies of the valued positions, in the order of the book's underlyings."""
-        und = self.book.underlyings
-        out: list[str] = []
-        for i in np.unique(self.book.underlying_idx).tolist():
-            if und.currencies[i] not in out:
-                out.append(und.currencies[i])
-        return tuple(out)
+        return _present(*self.currency_codes)
 
     def take(self, rows: np.ndarray) -> BookValuation:
         """The positions ``rows`` (index array) as a valuation of their own: arrays sliced, nothing
@@ -594,6 +600,12 @@ def _sums(valuation: BookValuation, codes: np.ndarray, n_groups: int) -> dict[st
     }
 
 
+def _present(codes: np.ndarray, names: tuple[str, ...]) -> tuple[str, ...]:
+    """The names whose index appears in ``codes``, in the order of ``names``."""
+    seen = np.bincount(codes, minlength=len(names)) > 0
+    return tuple(n for n, there in zip(names, seen.tolist(), strict=True) if there)
+
+
 def _exposure_row(
     key: str,
     label: str,
@@ -662,7 +674,10 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
         raise ValueError(f"by must be underlying, expiry or position, not {by!r}")
     sums = _sums(valuation, codes, n_groups)
     counts = np.bincount(codes, minlength=n_groups)
-    ccy = valuation.position_currencies
+    ccy, ccy_names = valuation.currency_codes
+    # Which currencies each group holds: one pass over (group, currency) pairs.
+    held = np.bincount(codes * len(ccy_names) + ccy, minlength=n_groups * len(ccy_names)) > 0
+    held = held.reshape(n_groups, len(ccy_names))
     rows = []
     for j in range(n_groups):
         if counts[j] == 0:
@@ -682,7 +697,7 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
                 )
             )
         else:
-            in_bucket = tuple(np.unique(ccy[codes == j]).tolist())
+            in_bucket = tuple(c for c, there in zip(ccy_names, held[j], strict=True) if there)
             rows.append(
                 _exposure_row(
                     names[j], names[j], int(counts[j]), values, index=j, currencies=in_bucket
@@ -700,18 +715,18 @@ def total(
     caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything. Over several
     currencies the money fields are NaN (``currency_totals`` gives each currency's).
     """
-    ccy = valuation.position_currencies
     if rows is None:
         values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
         return _exposure_row(
-            label, label, len(valuation), values, currencies=tuple(np.unique(ccy).tolist())
+            label, label, len(valuation), values, currencies=valuation.currencies
         )
     rows = np.asarray(rows, dtype=np.int64)
     values = {name: float(np.sum(getattr(valuation, name)[rows])) for name in EXPOSURE_FIELDS}
     n = len(rows)
     names = np.unique(valuation.book.underlying_idx[rows])
     underlying = valuation.book.underlyings.symbols[int(names[0])] if len(names) == 1 else None
-    in_rows = tuple(np.unique(ccy[rows]).tolist())
+    ccy, ccy_names = valuation.currency_codes
+    in_rows = _present(ccy[rows], ccy_names)
     return _exposure_row(label, label, n, values, underlying=underlying, currencies=in_rows)
 
 
@@ -720,12 +735,12 @@ def currency_totals(
 ) -> list[ExposureRow]:
     """``total`` of each currency's positions (of ``rows``, or of the whole book), one row per
     currency in the order of the book's underlyings."""
-    ccy = valuation.position_currencies
+    ccy, names = valuation.currency_codes
     picked = np.arange(len(valuation)) if rows is None else np.asarray(rows, dtype=np.int64)
     return [
-        total(valuation, picked[ccy[picked] == c], label)
-        for c in valuation.currencies
-        if (ccy[picked] == c).any()
+        total(valuation, picked[ccy[picked] == k], label)
+        for k in range(len(names))
+        if (ccy[picked] == k).any()
     ]
 
 

@@ -283,7 +283,7 @@ def _ccy_cell(row: Any, several: bool) -> list[str]:
 def _per_ccy(rows: Sequence[Any], amount: Callable[[Any], float], unit: str = "") -> str:
     """One amount per currency in words: ``-5 USD/pt``, or ``-3 USD/pt, -2 EUR/pt``."""
     if not rows:
-        return f"{_money(0.0)}{unit}"
+        return _money(0.0)  # nothing valued: no currency to name
     return ", ".join(f"{_money(amount(r))} {r.currency}{unit}" for r in rows)
 
 
@@ -312,9 +312,12 @@ def _labelled(
     return out
 
 
-def _csv_labelled(rows: Sequence[Any], per_currency: Sequence[Any]) -> list[tuple[str, Any]]:
-    """(label, row) of a CSV: ``rows``, then one ``total`` row per currency."""
-    return [(str(r.label), r) for r in rows] + [("total", r) for r in per_currency]
+def _csv_labelled(
+    rows: Sequence[Any], per_currency: Sequence[Any], total: Any
+) -> list[tuple[str, Any]]:
+    """(label, row) of a CSV: ``rows``, then one ``total`` row per currency (the plain total
+    when nothing is valued)."""
+    return [(str(r.label), r) for r in rows] + [("total", r) for r in per_currency or [total]]
 
 
 def _bucket_rows(v: BookValuation, row: ExposureRow) -> Any:
@@ -466,7 +469,7 @@ def risk(
             [label, r.spot, *_row_dict(r, shares_blank).values(), r.currency]
             for label, _, r, shares_blank in _risk_groups(v, by)
         ]
-        data += [["total", None, *_row_dict(r).values(), r.currency] for r in per_ccy]
+        data += [["total", None, *_row_dict(r).values(), r.currency] for r in per_ccy or [tot]]
         print_csv(cols, data)
         return
     scale = v.vega_scale
@@ -664,7 +667,7 @@ def whatif(
                 r.n_through_expiry,
                 r.currency,
             ]
-            for label, r in _csv_labelled(res.by_underlying, res.by_currency)
+            for label, r in _csv_labelled(res.by_underlying, res.by_currency, res.total)
         ]
         print_csv(cols, rows)
         return
@@ -986,7 +989,7 @@ def explain(
                 r.corrections,
                 r.currency,
             ]
-            for label, r in _csv_labelled(ex.by_underlying, ex.by_currency)
+            for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
         ]
         _say_unvalued(ex.unvalued, table=False)
         print_csv(cols, data)

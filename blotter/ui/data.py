@@ -118,7 +118,7 @@ class BookTree:
             self.expiry_days = np.zeros(0, dtype="datetime64[D]")
         self._total = risk.total(valuation)
         self.currencies = valuation.currencies
-        self._ccy = valuation.position_currencies
+        self._ccy, self._ccy_names = valuation.currency_codes
         self._by_underlying = risk.aggregate(valuation, by="underlying")
         self._by_bucket = risk.aggregate(valuation, by="expiry")
         self._cache: dict[str, list[BookRow]] = {}
@@ -294,7 +294,7 @@ class BookTree:
             elif kind == "p":
                 return np.array([int(parts[i + 2])])
             elif kind == "c":
-                sel &= self._ccy == name
+                sel &= self._ccy == self._ccy_names.index(name)
             i += 2
         return np.flatnonzero(sel)
 
