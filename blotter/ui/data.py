@@ -38,7 +38,7 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 SUM_FIELDS = tuple(k for k, _ in BOOK_COLUMNS if k != "spot")
 """Columns that add up over positions (risk's additive arrays)."""
 
-SHARE_FIELDS = frozenset({"delta_shares", "gamma_1pct", "vanna_pt"})
+SHARE_FIELDS = frozenset(risk.SHARE_FIELDS)
 """Columns in shares of one underlying: a row spanning several names shows them as "—"."""
 
 MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS)
