@@ -22,9 +22,11 @@ The base valuation is computed once per (book, market, time) and reused by every
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
 from datetime import date
-from typing import Literal
+from functools import cached_property
+from typing import Any, Literal
 
 import numpy as np
 
@@ -54,10 +56,148 @@ EXPOSURE_FIELDS = (
 )
 """Additive per-position desk-unit arrays of a ``BookValuation``, in ``ExposureRow`` order."""
 
+SHARE_FIELDS = ("delta_shares", "gamma_1pct", "vanna_pt")
+"""Exposures in shares of one underlying: they add only within one name."""
+
+MONEY_FIELDS = tuple(f for f in EXPOSURE_FIELDS if f not in SHARE_FIELDS)
+"""Exposures in the instrument's currency: they add only within one currency (no FX here)."""
+
+_PER_POSITION = (
+    "spot",
+    "years",
+    "rate",
+    "carry",
+    "vol",
+    *EXPOSURE_FIELDS,
+    "units",
+    "beta",
+    "vega_weight",
+    "rho_unit",
+    "rate_moves_carry",
+    "live",
+    "settles_daily",
+    "bucket_codes",
+)
+"""The (n,) arrays of a ``BookValuation``, which ``BookValuation.take`` slices."""
+
 VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
 """Vega display units: per vol point (0.01 of vol), or per 1.00 of vol."""
 
 Grouping = Literal["underlying", "expiry", "position"]
+
+MARK_COMMANDS = {
+    "spot": "blotter mark spot {name} PRICE",
+    "vol": "blotter mark vol {name} YYYY-MM-DD VOL",
+    "rate": "blotter mark rate {name} DAYS RATE",
+}
+"""The command that logs each kind of mark, by ``MissingMark.kind``."""
+
+
+@dataclass(frozen=True)
+class MissingMark:
+    """A mark a position needs and the market lacks: ``kind`` spot, vol or rate, of ``name`` (the
+    underlying's symbol, or the currency for a rate)."""
+
+    kind: str
+    name: str
+
+    @property
+    def command(self) -> str:
+        """The command that logs this mark, e.g. ``blotter mark spot XYZ PRICE``."""
+        return MARK_COMMANDS[self.kind].format(name=self.name)
+
+    def words(self) -> str:
+        """The missing mark for people: ``no spot mark for XYZ``, ``no USD rate curve``."""
+        if self.kind == "rate":
+            return f"no {self.name} rate curve"
+        return f"no {'spot mark' if self.kind == 'spot' else 'vol surface'} for {self.name}"
+
+
+@dataclass(frozen=True)
+class UnvaluedPosition:
+    """A position left out of every value and total because its underlying lacks a mark it needs.
+
+    ``where`` names the market that lacks it when a report uses more than one (explain's start and
+    end), else it is empty.
+    """
+
+    label: str
+    contract_id: int
+    underlying: str
+    currency: str
+    is_trial: bool
+    missing: tuple[MissingMark, ...]
+    where: str = ""
+
+    def as_dict(self) -> dict[str, Any]:
+        """JSON form: the contract, its underlying and currency, and each missing mark with the
+        command that logs it."""
+        out: dict[str, Any] = {
+            "contract": self.label,
+            "contract_id": self.contract_id,
+            "underlying": self.underlying,
+            "currency": self.currency,
+            "is_trial": self.is_trial,
+            "missing": [
+                {"mark": m.kind, "of": m.name, "command": m.command} for m in self.missing
+            ],
+        }
+        if self.where:
+            out["where"] = self.where
+        return out
+
+
+def missing_marks(
+    book: Book, market: Market, valuation_time: np.datetime64, where: str = ""
+) -> tuple[tuple[UnvaluedPosition, ...], np.ndarray]:
+    """The positions ``market`` cannot value at ``valuation_time`` and a bool mask (n,) of those
+    it can.
+
+    Every position needs its underlying's spot; an option not yet expired also needs a vol surface
+    for the underlying and a rate curve for its currency (an expired option is worth its intrinsic
+    value, a hedge units × spot).
+    """
+    und = book.underlyings
+    n = len(book)
+    if not n:
+        return (), np.ones(0, dtype=bool)
+    has_spot = np.array([s in market.spots for s in und.symbols], dtype=bool)
+    has_vol = np.array([s in market.surfaces for s in und.symbols], dtype=bool)
+    has_rate = np.array([c in market.curves for c in und.currencies], dtype=bool)
+    uidx = book.underlying_idx
+    if has_spot.all() and has_vol.all() and has_rate.all():
+        return (), np.ones(n, dtype=bool)
+    years = np.where(book.is_option, cal.year_fraction(valuation_time, book.expiries), np.nan)
+    live = book.is_option & (np.nan_to_num(years, nan=0.0) > 0)
+    no_spot = ~has_spot[uidx]
+    no_vol = live & ~has_vol[uidx]
+    no_rate = live & ~has_rate[uidx]
+    bad = no_spot | no_vol | no_rate
+    out = []
+    for i in np.flatnonzero(bad).tolist():
+        j = int(uidx[i])
+        sym, ccy = und.symbols[j], und.currencies[j]
+        missing = [
+            MissingMark(kind, name)
+            for kind, name, lacks in (
+                ("spot", sym, no_spot[i]),
+                ("vol", sym, no_vol[i]),
+                ("rate", ccy, no_rate[i]),
+            )
+            if lacks
+        ]
+        out.append(
+            UnvaluedPosition(
+                label=book.labels[i],
+                contract_id=int(book.contract_ids[i]),
+                underlying=sym,
+                currency=ccy,
+                is_trial=bool(book.is_trial[i]),
+                missing=tuple(missing),
+                where=where,
+            )
+        )
+    return tuple(out), ~bad
 
 
 @dataclass(frozen=True, eq=False)
@@ -89,6 +229,7 @@ class BookValuation:
     ``carry`` (decimal, continuous; NaN for hedges), ``vol`` (decimal; NaN for hedges). Exposures in
     desk units as in the module docstring; ``value`` is quantity × multiplier × unit price (zero
     for a futures hedge, whose P&L settles daily). ``greeks`` holds the raw per-unit greeks used.
+    ``book`` holds the valued positions only; ``unvalued`` lists those a missing mark left out.
     """
 
     book: Book
@@ -124,9 +265,15 @@ class BookValuation:
     t_ref_days: float = DEFAULT_T_REF_DAYS
     vega_unit: str = "pt"
     notes: tuple[str, ...] = field(default=())
+    unvalued: tuple[UnvaluedPosition, ...] = field(default=())
 
     def __len__(self) -> int:
         return len(self.book)
+
+    @property
+    def partial(self) -> bool:
+        """True when some positions were left out for want of a mark (``unvalued``)."""
+        return bool(self.unvalued)
 
     @property
     def vega_scale(self) -> float:
@@ -140,6 +287,40 @@ class BookValuation:
             return None
         return float(self.market.spots[ref])
 
+    @cached_property
+    def currency_codes(self) -> tuple[np.ndarray, tuple[str, ...]]:
+        """(int64 (n,) index of each position's currency into the names, the names): every
+        currency of the book's underlyings, in their order."""
+        names = tuple(dict.fromkeys(self.book.underlyings.currencies))
+        per_u = np.array(
+            [names.index(c) for c in self.book.underlyings.currencies], dtype=np.int64
+        )
+        return read_only(per_u[self.book.underlying_idx]), names
+
+    @property
+    def position_currencies(self) -> np.ndarray:
+        """ISO code of each position's currency (its underlying's), str array (n,)."""
+        codes, names = self.currency_codes
+        return np.asarray(names, dtype=str)[codes] if len(self) else np.zeros(0, dtype=str)
+
+    @cached_property
+    def currencies(self) -> tuple[str, ...]:
+        """The currencies of the valued positions, in the order of the book's underlyings."""
+        return _present(*self.currency_codes)
+
+    def take(self, rows: np.ndarray) -> BookValuation:
+        """The positions ``rows`` (index array) as a valuation of their own: arrays sliced, nothing
+        revalued, no notes or unvalued list carried over."""
+        idx = np.asarray(rows, dtype=np.int64)
+        sliced: dict[str, Any] = {n: read_only(getattr(self, n)[idx]) for n in _PER_POSITION}
+        g = self.greeks
+        greeks = UnitGreeks(
+            **{name: read_only(getattr(g, name)[idx]) for name in UnitGreeks.__dataclass_fields__}
+        )
+        return replace(
+            self, book=self.book.take(idx), greeks=greeks, notes=(), unvalued=(), **sliced
+        )
+
 
 @dataclass(frozen=True)
 class ExposureRow:
@@ -147,7 +328,8 @@ class ExposureRow:
     or the whole book). ``spot`` is set for an underlying or a position row, else None.
 
     Share-unit sums (delta_shares, gamma_1pct, vanna_pt) over several underlyings add share counts
-    of different names; compare across underlyings with delta_cash or beta_delta_cash.
+    of different names; compare across underlyings with delta_cash or beta_delta_cash. Money is
+    never added across currencies: a row spanning several has ``currency`` None and NaN money.
     """
 
     key: str
@@ -167,6 +349,7 @@ class ExposureRow:
     underlying: str | None = None
     spot: float | None = None
     index: int | None = None
+    currency: str | None = None  # None when the rows span several: money fields are then NaN
 
     def exposures(self) -> dict[str, float]:
         """The exposure fields by name (``EXPOSURE_FIELDS`` less ``weighted_vega_pt`` first)."""
@@ -197,6 +380,8 @@ def _carry_and_rate(
         if not rows.size:
             continue
         kind, sym = und.kinds[i], und.symbols[i]
+        if und.currencies[i] not in market.curves:
+            continue  # only hedges and expired options here (``missing_marks``): they need no rate
         rate[rows] = market.curve(und.currencies[i]).rate_at(t[rows])
         q = float(market.div_yields.get(sym, und.div_yields[i]))
         if kind == "future":
@@ -270,12 +455,16 @@ def value_book(
 ) -> BookValuation:
     """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
 
-    Returns per-position arrays (n,) in desk units (see the module docstring). KeyError naming the
-    symbol or currency when a needed spot, surface or curve is missing.
+    Returns per-position arrays (n,) in desk units (see the module docstring). Positions whose
+    underlying lacks a mark they need (``missing_marks``) are left out and listed in ``unvalued``,
+    so one unmarked name never blanks the rest of the book.
     """
     if vega_unit not in VEGA_UNITS:
         raise ValueError(f"vega_unit must be one of {', '.join(VEGA_UNITS)}, not {vega_unit!r}")
     t = cal.valuation_time(valuation_time)
+    unvalued, valued = missing_marks(book, market, t)
+    if unvalued:
+        book = book.take(np.flatnonzero(valued))
     und = book.underlyings
     n = len(book)
     uidx = book.underlying_idx
@@ -295,7 +484,7 @@ def value_book(
     vol = np.full(n, np.nan)
     for i, rows in enumerate(groups):
         rows = rows[opt[rows]]
-        if rows.size:
+        if rows.size and und.symbols[i] in market.surfaces:  # else expired only: no vol needed
             vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
 
     g = {
@@ -391,6 +580,7 @@ def value_book(
         t_ref_days=float(t_ref_days),
         vega_unit=vega_unit,
         notes=tuple(notes),
+        unvalued=unvalued,
     )
 
 
@@ -410,6 +600,12 @@ def _sums(valuation: BookValuation, codes: np.ndarray, n_groups: int) -> dict[st
     }
 
 
+def _present(codes: np.ndarray, names: tuple[str, ...]) -> tuple[str, ...]:
+    """The names whose index appears in ``codes``, in the order of ``names``."""
+    seen = np.bincount(codes, minlength=len(names)) > 0
+    return tuple(n for n, there in zip(names, seen.tolist(), strict=True) if there)
+
+
 def _exposure_row(
     key: str,
     label: str,
@@ -418,7 +614,11 @@ def _exposure_row(
     underlying: str | None = None,
     spot: float | None = None,
     index: int | None = None,
+    currencies: Sequence[str] = (),
 ) -> ExposureRow:
+    """A row of ``values``; over more than one of ``currencies`` its money fields are NaN."""
+    if len(set(currencies)) > 1:
+        values = {**values, **dict.fromkeys(MONEY_FIELDS, float("nan"))}
     return ExposureRow(
         key=key,
         label=label,
@@ -437,6 +637,7 @@ def _exposure_row(
         underlying=underlying,
         spot=spot,
         index=index,
+        currency=currencies[0] if len(set(currencies)) == 1 else None,
     )
 
 
@@ -459,6 +660,7 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
                 underlying=und.symbols[uidx[i]],
                 spot=spots[i],
                 index=i,
+                currencies=(und.currencies[uidx[i]],),
             )
             for i in range(len(book))
         ]
@@ -472,6 +674,10 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
         raise ValueError(f"by must be underlying, expiry or position, not {by!r}")
     sums = _sums(valuation, codes, n_groups)
     counts = np.bincount(codes, minlength=n_groups)
+    ccy, ccy_names = valuation.currency_codes
+    # Which currencies each group holds: one pass over (group, currency) pairs.
+    held = np.bincount(codes * len(ccy_names) + ccy, minlength=n_groups * len(ccy_names)) > 0
+    held = held.reshape(n_groups, len(ccy_names))
     rows = []
     for j in range(n_groups):
         if counts[j] == 0:
@@ -487,10 +693,16 @@ def aggregate(valuation: BookValuation, by: Grouping = "underlying") -> list[Exp
                     underlying=names[j],
                     spot=float(valuation.underlying_spots[j]),
                     index=j,
+                    currencies=(und.currencies[j],),
                 )
             )
         else:
-            rows.append(_exposure_row(names[j], names[j], int(counts[j]), values, index=j))
+            in_bucket = tuple(c for c, there in zip(ccy_names, held[j], strict=True) if there)
+            rows.append(
+                _exposure_row(
+                    names[j], names[j], int(counts[j]), values, index=j, currencies=in_bucket
+                )
+            )
     return rows
 
 
@@ -500,22 +712,46 @@ def total(
     """The exposures of the whole book, or of the positions ``rows`` (index array), in one row.
 
     With ``rows``, ``underlying`` is set when every position summed has the same underlying, so a
-    caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything.
+    caller can tell whether the share-unit sums (Δ sh, Γ 1%, vanna) mean anything. Over several
+    currencies the money fields are NaN (``currency_totals`` gives each currency's).
     """
     if rows is None:
         values = {name: float(np.sum(getattr(valuation, name))) for name in EXPOSURE_FIELDS}
-        return _exposure_row(label, label, len(valuation), values)
+        return _exposure_row(
+            label, label, len(valuation), values, currencies=valuation.currencies
+        )
     rows = np.asarray(rows, dtype=np.int64)
     values = {name: float(np.sum(getattr(valuation, name)[rows])) for name in EXPOSURE_FIELDS}
     n = len(rows)
     names = np.unique(valuation.book.underlying_idx[rows])
     underlying = valuation.book.underlyings.symbols[int(names[0])] if len(names) == 1 else None
-    return _exposure_row(label, label, n, values, underlying=underlying)
+    ccy, ccy_names = valuation.currency_codes
+    in_rows = _present(ccy[rows], ccy_names)
+    return _exposure_row(label, label, n, values, underlying=underlying, currencies=in_rows)
+
+
+def currency_totals(
+    valuation: BookValuation, rows: np.ndarray | None = None, label: str = "total"
+) -> list[ExposureRow]:
+    """``total`` of each currency's positions (of ``rows``, or of the whole book), one row per
+    currency in the order of the book's underlyings."""
+    ccy, names = valuation.currency_codes
+    picked = np.arange(len(valuation)) if rows is None else np.asarray(rows, dtype=np.int64)
+    return [
+        total(valuation, picked[ccy[picked] == k], label)
+        for k in range(len(names))
+        if (ccy[picked] == k).any()
+    ]
 
 
 def beta_delta_index_units(valuation: BookValuation) -> float | None:
-    """Beta-weighted delta in units of the reference index (Σ Δ $ × β / S_index), or None."""
+    """Beta-weighted delta in units of the reference index (Σ Δ $ × β / S_index), or None; None
+    too when a position's currency is not the index's (no FX conversion here)."""
     s_idx = valuation.index_spot()
     if s_idx is None:
+        return None
+    und = valuation.book.underlyings
+    ref = valuation.book.reference_index
+    if ref in und.symbols and set(valuation.currencies) - {und.currencies[und.index_of(ref)]}:
         return None
     return float(np.sum(valuation.beta_delta_cash)) / s_idx

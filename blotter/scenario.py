@@ -35,7 +35,7 @@ from __future__ import annotations
 import re
 import weakref
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import Any
 
@@ -44,8 +44,15 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import engine
 from blotter.book import MOVE_PARTS, SYMBOL_PATTERN, Book
-from blotter.market import VOL_FLOOR
-from blotter.risk import BookValuation, intrinsic, value_book
+from blotter.market import VOL_FLOOR, Market
+from blotter.risk import (
+    BookValuation,
+    MissingMark,
+    UnvaluedPosition,
+    intrinsic,
+    missing_marks,
+    value_book,
+)
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor terms, in the order they are shown."""
@@ -409,10 +416,13 @@ class MoveRow:
     terms: dict[str, float]
     n_through_expiry: int = 0
     underlying: str | None = None
+    currency: str | None = None  # None when the row spans several: its money is then NaN
 
     def as_dict(self) -> dict[str, Any]:
-        """JSON form: full, estimate_1, estimate_2, error_1, error_2, the % errors, terms."""
+        """JSON form: currency, full, estimate_1, estimate_2, error_1, error_2, the % errors,
+        terms."""
         out: dict[str, Any] = {
+            "currency": self.currency,
             "full": self.full,
             "estimate_1": self.estimate_1,
             "estimate_2": self.estimate_2,
@@ -498,6 +508,7 @@ class MoveResult:
     vol_plan: _VolPlan
     rate_move: float  # decimal
     dvol_applied: np.ndarray | None = None  # (n,) when not the plan's (moneyness, vol floor)
+    by_currency: tuple[MoveRow, ...] = ()  # the total of each currency, labelled by its code
 
     @cached_property
     def dvol(self) -> np.ndarray:
@@ -571,6 +582,7 @@ def _row(
     terms: dict[str, float],
     n_through: int = 0,
     underlying: str | None = None,
+    currency: str | None = None,
 ) -> MoveRow:
     e1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
     e2 = e1 + terms["gamma"] + terms["volga"] + terms["vanna"]
@@ -586,7 +598,38 @@ def _row(
         terms=terms,
         n_through_expiry=n_through,
         underlying=underlying,
+        currency=currency,
     )
+
+
+def _currency_rows(
+    label: str,
+    currency_u: np.ndarray,
+    full_u: np.ndarray,
+    terms_u: dict[str, np.ndarray],
+    n_through_u: np.ndarray,
+) -> tuple[MoveRow, tuple[MoveRow, ...]]:
+    """The total row and one row per currency from per-underlying sums (n_u,) of the underlyings
+    ``currency_u`` names (codes, "" for those without positions); the total's money is NaN when
+    there are several currencies."""
+    codes = list(dict.fromkeys(c for c in currency_u.tolist() if c))
+    per = tuple(
+        _row(
+            c,
+            float(full_u[currency_u == c].sum()),
+            {t: float(v[currency_u == c].sum()) for t, v in terms_u.items()},
+            int(n_through_u[currency_u == c].sum()),
+            currency=c,
+        )
+        for c in codes
+    )
+    n_through = int(n_through_u.sum())
+    if len(per) == 1:
+        return replace(per[0], label=label), per
+    if not per:
+        return _row(label, 0.0, dict.fromkeys(terms_u, 0.0), n_through), per
+    nan = float("nan")
+    return _row(label, nan, dict.fromkeys(terms_u, nan), n_through), per
 
 
 @dataclass(frozen=True, eq=False)
@@ -951,6 +994,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             "rho": sm["rho"] * dr,
         }
     symbols = v.book.underlyings.symbols
+    currencies = v.book.underlyings.currencies
     present = np.flatnonzero(p.present)
     by_u = [
         _row(
@@ -959,14 +1003,13 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             {t: float(res_terms[t][j]) for t in TERM_NAMES},
             int(n_through_u[j]),
             underlying=symbols[j],
+            currency=currencies[j],
         )
         for j in present
     ]
-    total_row = _row(
-        "total",
-        float(full_u.sum()),
-        {t: float(res_terms[t].sum()) for t in TERM_NAMES},
-        int(n_through_u.sum()),
+    currency_u = np.where(p.present, np.asarray(currencies, dtype=str), "")
+    total_row, by_ccy = _currency_rows(
+        "total", currency_u, full_u, {t: res_terms[t] for t in TERM_NAMES}, n_through_u
     )
 
     result = MoveResult(
@@ -984,6 +1027,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         vol_plan=plan,
         rate_move=dr,
         dvol_applied=dvol_applied,
+        by_currency=by_ccy,
     )
     notes: list[str] = []
     if through.any():
@@ -1100,6 +1144,26 @@ class Ladder:
     time_after: np.datetime64
     n_through_expiry: int
     rule: str = STICKY_RULE
+    currency: str | None = None  # of every position in it (None for an empty book)
+
+
+def ladders(
+    valuation: BookValuation,
+    spot_pcts: Sequence[float] = DEFAULT_SPOT_PCTS,
+    vol_pts: Sequence[float] = DEFAULT_VOL_PTS,
+    days: float = 0.0,
+    chunk: int | None = None,
+    rule: str = STICKY_RULE,
+) -> list[Ladder]:
+    """One ``ladder`` per currency of the book, in the order of its underlyings (one ladder for an
+    empty or single-currency book): P&L in different currencies is never added."""
+    if len(valuation.currencies) <= 1:
+        return [ladder(valuation, spot_pcts, vol_pts, days, chunk, rule)]
+    ccy = valuation.position_currencies
+    return [
+        ladder(valuation.take(np.flatnonzero(ccy == c)), spot_pcts, vol_pts, days, chunk, rule)
+        for c in valuation.currencies
+    ]
 
 
 def ladder(
@@ -1117,8 +1181,12 @@ def ladder(
     unless ``rule`` is ``MONEYNESS_RULE`` (each option then takes the marked vol at its moneyness
     on the moved spot, before the vol shift). ``chunk`` bounds positions per engine call (default
     ``LADDER_CHUNK_CELLS`` / cells). The estimate is the second-order Taylor sum from the base
-    greeks (first order beside it).
+    greeks (first order beside it). ValueError for a book of several currencies (``ladders``).
     """
+    if len(valuation.currencies) > 1:
+        raise ValueError(
+            f"the book holds {', '.join(valuation.currencies)}: ladder each currency apart"
+        )
     if rule not in VOL_RULES:
         raise ValueError(f"rule must be one of {', '.join(VOL_RULES)}, not {rule!r}")
     sp = np.asarray(spot_pcts, dtype=np.float64).ravel()
@@ -1243,6 +1311,7 @@ def ladder(
         time_after=t1,
         n_through_expiry=n_through,
         rule=rule,
+        currency=v.currencies[0] if v.currencies else None,
     )
 
 
@@ -1271,10 +1340,12 @@ class ExplainRow:
     total: float
     underlying: str | None = None
     corrections: float = 0.0
+    currency: str | None = None  # None when the row spans several: its money is then NaN
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form."""
         out: dict[str, Any] = {
+            "currency": self.currency,
             "actual": self.actual,
             "terms": dict(self.terms),
             "explained": self.explained,
@@ -1303,6 +1374,8 @@ class Explain:
     notes: tuple[str, ...] = ()
     late_trades: tuple[int, ...] = ()  # ids of trades dealt before the start, booked in the period
     corrected_trades: tuple[int, ...] = ()  # ids the start close held, cancelled in the period
+    unvalued: tuple[UnvaluedPosition, ...] = ()  # left out: a mark missing at the start or end
+    by_currency: tuple[ExplainRow, ...] = ()  # the total of each currency, labelled by its code
 
 
 def _chain(s: Any, by_id: dict[int, Any], link: str) -> Any:
@@ -1432,6 +1505,10 @@ def explain(
     period = _period_trades(store, cut0, cut1, start_close.marked_at)
     known_start = store.load_book(before_seq=cut0)
     held = _net_books([(store.load_book(before_seq=cut1), 1.0), (period.new, -1.0)])
+    end_name = "end (marks now)" if to == "now" else f"end (set {to.id})"
+    sides = ((m0, t0, f"start (set {frm.id})"), (m1, t1, end_name))
+    left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition] = {}
+    held = held.take(_valued_part(held, sides, left_out))
     start = value_book(held, m0, t0)
     end = value_book(held, m1, t1)
     dt = float(cal.year_fraction(t0, t1))
@@ -1461,6 +1538,7 @@ def explain(
     # Late bookings and corrections: actual of the held positions less that of the book as the
     # store showed it at the start (positions added count with their P&L, removed ones against).
     diff = _net_books([(held, 1.0), (known_start, -1.0)])
+    diff = diff.take(_valued_part(diff, sides, left_out))
     if len(diff):
         corr = _held_pnl(value_book(diff, m0, t0), value_book(diff, m1, t1))
         for j, s in enumerate(diff.underlyings.symbols):
@@ -1473,7 +1551,8 @@ def explain(
             f"{len(period.corrected)} cancelled or amended in it: the positions held are as known "
             "at the end; 'corrections' is how much that changed actual"
         )
-    trades, trade_prices = period.new, period.prices
+    kept = _valued_part(period.new, sides[1:], left_out)
+    trades, trade_prices = period.new.take(kept), period.prices[kept]
     if len(trades):
         tv = value_book(trades, m1, t1)
         tp = np.asarray(trade_prices, dtype=np.float64)
@@ -1500,6 +1579,8 @@ def explain(
 
     rows: list[ExplainRow] = []
     idx = held.underlying_idx
+    ccy_of = dict(zip(trades.underlyings.symbols, trades.underlyings.currencies, strict=True))
+    ccy_of.update(zip(held.underlyings.symbols, held.underlyings.currencies, strict=True))
     for j, s in enumerate(sym):
         mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
         if not mask.any() and new_pnl_u[j] == 0 and corr_u[j] == 0:
@@ -1512,15 +1593,34 @@ def explain(
                 float(new_pnl_u[j]),
                 s,
                 float(corr_u[j]),
+                currency=ccy_of[s],
             )
         )
-    tot = _explain_row(
-        "total",
-        float(actual.sum()),
-        {k: float(v.sum()) for k, v in terms.items()},
-        float(new_pnl_u.sum()),
-        corrections=float(corr_u.sum()),
+    held_ccy = np.asarray([ccy_of[s] for s in sym], dtype=str)
+    pos_ccy = held_ccy[idx] if len(held) else np.zeros(0, dtype=str)
+    by_ccy = tuple(
+        _explain_row(
+            c,
+            float(actual[pos_ccy == c].sum()),
+            {k: float(v[pos_ccy == c].sum()) for k, v in terms.items()},
+            float(new_pnl_u[held_ccy == c].sum()),
+            corrections=float(corr_u[held_ccy == c].sum()),
+            currency=c,
+        )
+        for c in dict.fromkeys(r.currency for r in rows if r.currency)
     )
+    if len(by_ccy) > 1:
+        nan = float("nan")
+        tot = _explain_row("total", nan, dict.fromkeys(terms, nan), nan, corrections=nan)
+    else:
+        tot = _explain_row(
+            "total",
+            float(actual.sum()),
+            {k: float(v.sum()) for k, v in terms.items()},
+            float(new_pnl_u.sum()),
+            corrections=float(corr_u.sum()),
+            currency=by_ccy[0].currency if by_ccy else None,
+        )
     return Explain(
         from_set=frm,
         to_set=to,
@@ -1533,7 +1633,30 @@ def explain(
         notes=tuple(notes),
         late_trades=period.late,
         corrected_trades=period.corrected,
+        unvalued=tuple(left_out.values()),
+        by_currency=by_ccy,
     )
+
+
+def _valued_part(
+    book: Book,
+    sides: Sequence[tuple[Market, np.datetime64, str]],
+    left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition],
+) -> np.ndarray:
+    """Rows of ``book`` that every (market, time, name) side can value; the rest are added to
+    ``left_out`` once per contract and set of missing marks, naming the sides that lack them."""
+    ok = np.ones(len(book), dtype=bool)
+    for market, t, name in sides:
+        unvalued, valued = missing_marks(book, market, t, where=name)
+        ok &= valued
+        for u in unvalued:
+            key = (u.contract_id, u.missing)
+            seen = left_out.get(key)
+            if seen is None:
+                left_out[key] = u
+            elif name not in seen.where:
+                left_out[key] = replace(seen, where=f"{seen.where} and {name}")
+    return np.flatnonzero(ok)
 
 
 def _held_pnl(start: BookValuation, end: BookValuation) -> np.ndarray:
@@ -1665,6 +1788,7 @@ def _explain_row(
     new: float,
     underlying: str | None = None,
     corrections: float = 0.0,
+    currency: str | None = None,
 ) -> ExplainRow:
     explained = float(sum(terms.values()))
     return ExplainRow(
@@ -1677,4 +1801,5 @@ def _explain_row(
         total=actual + new,
         underlying=underlying,
         corrections=corrections,
+        currency=currency,
     )

@@ -1,8 +1,9 @@
 """``blotter risk``, ``whatif``, ``ladder``, ``explain``: risk reports for people and scripts.
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
-now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in the book's currency,
-unrounded in JSON and CSV, rounded in tables.
+now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in each underlying's
+currency and never added across currencies (totals are per currency), unrounded in JSON and CSV,
+rounded in tables. Positions a missing mark leaves out are listed with the command that logs it.
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ from blotter.commands.common import (
 )
 
 if TYPE_CHECKING:
-    from blotter.risk import BookValuation, ExposureRow
+    from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
 
 TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
 """Taylor term keys of ``blotter whatif --json`` (``explain --json`` adds ``carry``)."""
@@ -156,6 +157,50 @@ def _header(v: BookValuation) -> dict[str, Any]:
     return {"as_of": _iso(v.valuation_time), "marks_as_of": marks}
 
 
+UNVALUED_SHOWN = 20
+"""Positions listed by name under a table when marks are missing; JSON lists every one."""
+
+
+def _unvalued_json(unvalued: Sequence[UnvaluedPosition]) -> dict[str, Any]:
+    """``partial`` and the ``unvalued`` list of a report's JSON."""
+    return {"partial": bool(unvalued), "unvalued": [u.as_dict() for u in unvalued]}
+
+
+def _total_label(unvalued: Sequence[UnvaluedPosition]) -> str:
+    """The total row's label in a table: it says so when some positions are left out."""
+    return "total of valued" if unvalued else "total"
+
+
+def _say_unvalued(unvalued: Sequence[UnvaluedPosition], table: bool) -> None:
+    """List the positions left out for want of a mark, each with the command that logs it: under
+    the table on stdout, or on stderr when stdout carries CSV."""
+    if not unvalued:
+        return
+    n = len({u.contract_id for u in unvalued})
+    head = (
+        f"{n} position{'' if n == 1 else 's'} not valued for want of a mark: every total "
+        f"{'above ' if table else ''}is of the valued positions"
+    )
+    if not table:
+        click.echo(f"blotter: {head}", err=True)
+        for u in unvalued:
+            for m in u.missing:
+                where = f" at the {u.where}" if u.where else ""
+                click.echo(f"  {u.label}: {m.words()}{where}; log it with: {m.command}", err=True)
+        return
+    rows = []
+    for k, u in enumerate(unvalued[:UNVALUED_SHOWN]):
+        same = k > 0 and unvalued[k - 1].contract_id == u.contract_id
+        for j, m in enumerate(u.missing):
+            where = f"{u.where}: " if u.where else ""
+            rows.append([u.label if j == 0 and not same else "", where + m.words(), m.command])
+    click.echo("")
+    click.echo(head)
+    print_table(["not valued", "missing", "log it with"], rows)
+    if len(unvalued) > UNVALUED_SHOWN:
+        click.echo(f"… and {len(unvalued) - UNVALUED_SHOWN} more (--json lists them all)")
+
+
 SHARE_KEYS = ("delta_shares", "gamma_1pct", "vanna_pt")
 """Exposures in shares of one underlying: a sum over several names means nothing, so a group
 holding more than one underlying shows them blank (null in JSON)."""
@@ -209,8 +254,101 @@ def _position_dicts(v: BookValuation) -> list[dict[str, Any]]:
                 "multiplier": float(book.multipliers[i]),
                 "is_trial": bool(book.is_trial[i]),
                 **_row_dict(row),
+                "currency": row.currency,
             }
         )
+    return out
+
+
+def _money_note(currencies: Sequence[str]) -> str:
+    """A report's first line on money: ``money in USD``, or per currency when there are several."""
+    if len(currencies) == 1:
+        return f"money in {currencies[0]}"
+    if not currencies:
+        return "money in each underlying's currency"
+    return (
+        f"money in each underlying's currency ({', '.join(currencies)}): totals per currency, "
+        "never summed across them"
+    )
+
+
+def _ccy_cell(row: Any, several: bool) -> list[str]:
+    """The table's currency cell of ``row`` when the report holds several currencies (``all``
+    on a total across them), else nothing."""
+    if not several:
+        return []
+    return [row.currency or "all"]
+
+
+def _per_ccy(rows: Sequence[Any], amount: Callable[[Any], float], unit: str = "") -> str:
+    """One amount per currency in words: ``-5 USD/pt``, or ``-3 USD/pt, -2 EUR/pt``."""
+    if not rows:
+        return _money(0.0)  # nothing valued: no currency to name
+    return ", ".join(f"{_money(amount(r))} {r.currency}{unit}" for r in rows)
+
+
+def _currency_json(row: Any, per_currency: Sequence[Any]) -> dict[str, Any]:
+    """The currency keys of a total's JSON: its ``currency`` (null across several, when its money
+    keys are null too) and ``by_currency``, each currency's money keys by ISO code."""
+    from blotter.risk import MONEY_FIELDS
+
+    return {
+        "currency": row.currency,
+        "by_currency": {
+            r.currency: {k: getattr(r, k) for k in MONEY_FIELDS} for r in per_currency
+        },
+    }
+
+
+def _labelled(
+    rows: Sequence[Any], per_currency: Sequence[Any], total: Any, label: str
+) -> list[tuple[str, Any]]:
+    """(label, row) of a table's rows: ``rows``, then each currency's total when there are
+    several currencies, then the total (whose money is NaN, shown "—", across several)."""
+    out = [(str(r.label), r) for r in rows]
+    if len(per_currency) > 1:
+        out += [(label, r) for r in per_currency]
+    out.append((label, total))
+    return out
+
+
+def _csv_labelled(
+    rows: Sequence[Any], per_currency: Sequence[Any], total: Any
+) -> list[tuple[str, Any]]:
+    """(label, row) of a CSV: ``rows``, then one ``total`` row per currency (the plain total
+    when nothing is valued)."""
+    return [(str(r.label), r) for r in rows] + [("total", r) for r in per_currency or [total]]
+
+
+def _bucket_rows(v: BookValuation, row: ExposureRow) -> Any:
+    """Position rows (index array) of the expiry bucket ``row``."""
+    import numpy as np
+
+    return np.flatnonzero(v.bucket_codes == row.index)
+
+
+def _risk_groups(v: BookValuation, by: str) -> list[tuple[str, str, ExposureRow, bool]]:
+    """(label, second cell, row, share counts blank) of each row of ``risk --by``; a bucket of
+    several currencies comes as one row per currency."""
+    from blotter.risk import aggregate, currency_totals
+
+    if by == "underlying":
+        return [(r.label, _money(r.spot or float("nan"), 2), r, False) for r in aggregate(v)]
+    if by == "position":
+        return [
+            (r.label, _money(r.spot or float("nan"), 2), r, False)
+            for r in aggregate(v, "position")
+        ]
+    mixed = _mixed_buckets(v)
+    out = []
+    for r in aggregate(v, "expiry"):
+        if r.currency is None and r.n_positions:
+            out += [
+                (r.label, str(c.n_positions), c, c.underlying is None)
+                for c in currency_totals(v, _bucket_rows(v, r))
+            ]
+        else:
+            out.append((r.label, str(r.n_positions), r, r.index in mixed))
     return out
 
 
@@ -275,21 +413,31 @@ def risk(
     futures hedges count with delta 1 per unit and no other greek. --by expiry groups into this
     week, this month, then months, then years; Δ sh, Γ 1% and vanna are share counts of one
     name, so they are left blank in any bucket holding more than one underlying (null in JSON,
-    empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum).
+    empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum). Money is
+    in each underlying's currency: with several currencies the totals are per currency and the
+    total across them shows "—" (null in JSON, beside "by_currency"; CSV has a row per currency).
     """
-    from blotter.risk import EXPOSURE_FIELDS, aggregate, beta_delta_index_units, total
+    from blotter.risk import (
+        EXPOSURE_FIELDS,
+        aggregate,
+        beta_delta_index_units,
+        currency_totals,
+        total,
+    )
 
     check_output_flags(as_json, as_csv)
     store = _open(db_path)
     v = _value(store, at, vega_unit)
     under = aggregate(v, "underlying")
     tot = total(v)
+    per_ccy = currency_totals(v)
     if as_json:
         out: dict[str, Any] = _header(v)
         out["by_underlying"] = [
-            {"underlying": r.underlying, "spot": r.spot, **_row_dict(r)} for r in under
+            {"underlying": r.underlying, "spot": r.spot, "currency": r.currency, **_row_dict(r)}
+            for r in under
         ]
-        out["total"] = _row_dict(tot)
+        out["total"] = _row_dict(tot) | _currency_json(tot, per_ccy)
         out["reference_index"] = v.book.reference_index
         out["beta_delta_index_units"] = beta_delta_index_units(v)
         out["t_ref_days"] = v.t_ref_days
@@ -300,46 +448,46 @@ def risk(
                     "bucket": r.label,
                     "positions": r.n_positions,
                     **_row_dict(r, r.index in mixed),
+                    **_currency_json(r, currency_totals(v, _bucket_rows(v, r))),
                 }
                 for r in aggregate(v, "expiry")
             ]
         if by == "position":
             out["by_position"] = _position_dicts(v)
         out["notes"] = list(v.notes)
-        print_json(out)
+        print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         if by == "position":
             dicts = _position_dicts(v)
-            cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS]
+            cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS, "currency"]
             print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
             return
-        rows = under if by == "underlying" else aggregate(v, "expiry")
-        mixed = _mixed_buckets(v) if by == "expiry" else set()
-        cols = [by, "spot", *EXPOSURE_FIELDS]
-        data = [[r.label, r.spot, *(_row_dict(r, r.index in mixed).values())] for r in rows]
-        data.append(["total", None, *_row_dict(tot).values()])
+        cols = [by, "spot", *EXPOSURE_FIELDS, "currency"]
+        data = [
+            [label, r.spot, *_row_dict(r, shares_blank).values(), r.currency]
+            for label, _, r, shares_blank in _risk_groups(v, by)
+        ]
+        data += [["total", None, *_row_dict(r).values(), r.currency] for r in per_ccy or [tot]]
         print_csv(cols, data)
         return
     scale = v.vega_scale
-    if by == "underlying":
-        groups = [(r.label, _money(r.spot or float("nan"), 2), r) for r in under]
-        first = ["underlying", "spot"]
-    elif by == "expiry":
-        groups = [(r.label, str(r.n_positions), r) for r in aggregate(v, "expiry")]
-        first = ["expiry", "positions"]
-    else:
-        groups = [(r.label, _money(r.spot or float("nan"), 2), r) for r in aggregate(v, "position")]
-        first = ["position", "spot"]
-    multi = len(under) > 1
-    tot_cells = _risk_cells(tot, scale)
-    if multi:  # share counts of different underlyings do not add
-        tot_cells[1] = tot_cells[3] = tot_cells[7] = ""
-    mixed_rows = _mixed_buckets(v) if by == "expiry" else set()
+    first = {
+        "underlying": ["underlying", "spot"],
+        "expiry": ["expiry", "positions"],
+        "position": ["position", "spot"],
+    }[by]
+    several = len(v.currencies) > 1
+    groups = _risk_groups(v, by)
+    label = _total_label(v.unvalued)
+    if several:
+        groups += [(label, "", r, r.underlying is None) for r in per_ccy]
+    groups.append((label, "", tot, len(under) > 1))  # share counts of several names do not add
 
-    def cells_of(r: ExposureRow) -> list[str]:
+    def cells_of(r: ExposureRow, shares_blank: bool) -> list[str]:
         out = _risk_cells(r, scale)
-        if r.index in mixed_rows:  # a bucket of several names: share counts do not add
+        if shares_blank:  # several names: share counts do not add
             out[1] = out[3] = out[7] = ""
         return out
 
@@ -349,33 +497,46 @@ def risk(
     click.echo(
         f"risk at {_iso(v.valuation_time)} · marks "
         + (_iso(v.market.marks_as_of) if v.market.has_marks else "none yet")
-        + " · money in book currency"
+        + f" · {_money_note(v.currencies)}"
     )
+    ccy_head = ["ccy"] if several else []
     for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
-        table = [[a, b, *(cells_of(r)[i] for i in block)] for a, b, r in groups]
-        table.append(["total", "", *(tot_cells[i] for i in block)])
+        table = [
+            [a, *_ccy_cell(r, several), b, *(cells_of(r, blank)[i] for i in block)]
+            for a, b, r, blank in groups
+        ]
         click.echo("")
         print_table(
-            [*first, *(cols[i] for i in block)], table, right=[False, True] + [True] * len(block)
+            [first[0], *ccy_head, first[1], *(cols[i] for i in block)],
+            table,
+            right=[False, *([False] * len(ccy_head)), True] + [True] * len(block),
         )
     click.echo("")
     from blotter.scenario import apply_move, parse_move
 
     roll = apply_move(v, parse_move("bdays 1"))
     lines = [
-        f"weighted vega (√({v.t_ref_days:g}d/T)): {_money(tot.weighted_vega_pt)} $/pt",
+        f"weighted vega (√({v.t_ref_days:g}d/T)): "
+        + _per_ccy(per_ccy, lambda r: r.weighted_vega_pt, "/pt"),
         f"roll to the next business day ({_days(roll.roll_years * 365)}, nothing else "
-        f"moving): full revaluation {_money(roll.total.full)} $, "
-        f"θ × days {_money(roll.total.terms['theta'])} $",
+        f"moving): full revaluation {_per_ccy(roll.by_currency, lambda r: r.full)}"
+        f"{'; ' if several else ', '}"
+        f"θ × days {_per_ccy(roll.by_currency, lambda r: r.terms['theta'])}",
     ]
     bw = beta_delta_index_units(v)
     if bw is not None:
         lines.append(
-            f"beta-weighted delta: {_money(tot.beta_delta_cash)} $ = {bw:,.1f} "
-            f"{v.book.reference_index} units"
+            f"beta-weighted delta: {_per_ccy(per_ccy, lambda r: r.beta_delta_cash)} = "
+            f"{bw:,.1f} {v.book.reference_index} units"
+        )
+    elif several and v.index_spot() is not None:
+        lines.append(
+            f"beta-weighted delta: {_per_ccy(per_ccy, lambda r: r.beta_delta_cash)} (no index "
+            "units: they would add currencies)"
         )
     for line in [*lines, *v.notes]:
         click.echo(line)
+    _say_unvalued(v.unvalued, table=True)
 
 
 _WHATIF_HELP = (
@@ -460,20 +621,25 @@ def whatif(
         ) from exc
     except MoveError as exc:
         raise click.ClickException(str(exc)) from exc
+    und = v.book.underlyings
+    ccy_of = dict(zip(und.symbols, und.currencies, strict=True))
+    several = len(res.by_currency) > 1
     if as_json:
         out = _header(v) | {
             "after": cal.iso(res.time_after),
             "roll_years": res.roll_years,
             "move": mv.as_dict(),
-            "total": res.total.as_dict(),
+            "total": res.total.as_dict()
+            | {"by_currency": {r.currency: r.as_dict() for r in res.by_currency}},
             "by_underlying": [r.as_dict() for r in res.by_underlying],
-            "expiring": [e.as_dict() for e in res.expiring],
+            "expiring": [e.as_dict() | {"currency": ccy_of[e.underlying]} for e in res.expiring],
             "vol_rule": mv.vol_rule,
             "notes": list(res.notes),
         }
-        print_json(out)
+        print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         cols = [
             "underlying",
             "full",
@@ -485,10 +651,11 @@ def whatif(
             "error_2_pct",
             *TERM_KEYS,
             "through_expiry",
+            "currency",
         ]
         rows = [
             [
-                r.label,
+                label,
                 r.full,
                 r.estimate_1,
                 r.estimate_2,
@@ -498,31 +665,39 @@ def whatif(
                 r.error_2_pct,
                 *(r.terms[t] for t in TERM_KEYS),
                 r.n_through_expiry,
+                r.currency,
             ]
-            for r in [*res.by_underlying, res.total]
+            for label, r in _csv_labelled(res.by_underlying, res.by_currency, res.total)
         ]
         print_csv(cols, rows)
         return
-    rows = [[r.label, *_move_row_cells(r)] for r in [*res.by_underlying, res.total]]
-    click.echo(f"what-if: {mv.describe()} · money in book currency · vols {mv.vol_rule}")
+    shown = _labelled(res.by_underlying, res.by_currency, res.total, _total_label(v.unvalued))
+    ccy_head = ["ccy"] if several else []
+    rows = [[label, *_ccy_cell(r, several), *_move_row_cells(r)] for label, r in shown]
+    click.echo(f"what-if: {mv.describe()} · {_money_note(v.currencies)} · vols {mv.vol_rule}")
     click.echo("")
     print_table(
-        ["underlying", "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"],
+        ["underlying", *ccy_head, "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"],
         rows,
-        right=[False] + [True] * 7,
+        right=[False] * (1 + len(ccy_head)) + [True] * 7,
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]
+        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in TERM_KEYS)]
+        for label, r in shown
     ]
-    print_table(["estimate terms", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
+    print_table(
+        ["estimate terms", *ccy_head, *TERM_KEYS],
+        terms,
+        right=[False] * (1 + len(ccy_head)) + [True] * len(TERM_KEYS),
+    )
     if res.expiring:
         ex = [
             [
                 e.label,
                 _money(e.spot_after, 2),
                 _pct(e.distance_pct),
-                _money(e.settlement),
+                _money(e.settlement) + (f" {ccy_of[e.underlying]}" if several else ""),
                 _money(e.delivered_units, 0),
                 "PIN RISK" if e.pin_risk else "",
             ]
@@ -542,6 +717,7 @@ def whatif(
         click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
     for note in res.notes:
         click.echo(note)
+    _say_unvalued(v.unvalued, table=True)
 
 
 def _float_list(text: str | None, default: Sequence[float], name: str) -> list[float]:
@@ -609,11 +785,11 @@ def ladder(
     Rows move every spot by the same %, columns every vol by the same points; vols are sticky
     strike (each option keeps its strike's vol) unless --rule moneyness. The estimate is second
     order (delta, gamma, vega, volga, vanna, theta). The worst cell is the lowest full P&L. Money
-    in the book's currency.
+    in the underlyings' currency; a book of several currencies gets one ladder per currency.
     """
     from blotter import calendar as cal
     from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS
-    from blotter.scenario import ladder as run_ladder
+    from blotter.scenario import ladders as run_ladders
 
     check_output_flags(as_json, as_csv)
     sp = _float_list(spot_list, DEFAULT_SPOT_PCTS, "--spot")
@@ -622,16 +798,11 @@ def ladder(
         raise click.BadParameter("a spot move must be above -100%", param_hint="--spot")
     store = _open(db_path)
     v = _value(store, at)
-    lad = run_ladder(v, sp, vp, days=days, rule=f"sticky {rule}")
-    i, j = lad.worst
-    worst = {
-        "spot_pct": sp[i],
-        "vol_pts": vp[j],
-        "full": float(lad.full[i, j]),
-        "estimate": float(lad.estimate[i, j]),
-        "error": float(lad.error[i, j]),
-    }
+    lads = run_ladders(v, sp, vp, days=days, rule=f"sticky {rule}")
+    lad = lads[0]
     if as_json:
+        grids = {g.currency: _ladder_grids(g, sp, vp) for g in lads if g.currency}
+        one = _ladder_grids(lad, sp, vp) if len(lads) == 1 else dict.fromkeys(LADDER_GRIDS)
         print_json(
             _header(v)
             | {
@@ -640,50 +811,81 @@ def ladder(
                 "after": cal.iso(lad.time_after),
                 "spot_pcts": sp,
                 "vol_pts": vp,
-                "full": lad.full.tolist(),
-                "estimate": lad.estimate.tolist(),
-                "estimate_1": lad.estimate_1.tolist(),
-                "error": lad.error.tolist(),
-                "worst": worst,
-                "through_expiry": lad.n_through_expiry,
+                **one,
+                "through_expiry": sum(g.n_through_expiry for g in lads),
+                "currency": lad.currency if len(lads) == 1 else None,
+                "by_currency": grids,
             }
+            | _unvalued_json(v.unvalued)
         )
         return
     if as_csv:
+        _say_unvalued(v.unvalued, table=False)
         print_csv(
-            ["spot_pct", "vol_pts", "full", "estimate", "error", "rule"],
+            ["spot_pct", "vol_pts", "full", "estimate", "error", "rule", "currency"],
             (
-                [sp[a], vp[b], lad.full[a, b], lad.estimate[a, b], lad.error[a, b], lad.rule]
+                [sp[a], vp[b], g.full[a, b], g.estimate[a, b], g.error[a, b], g.rule, g.currency]
+                for g in lads
                 for a in range(len(sp))
                 for b in range(len(vp))
             ),
         )
         return
     heads = ["spot % \\ vol pts", *(f"{x:+g}" for x in vp)]
-    for title, grid in (
-        ("full revaluation P&L", lad.full),
-        ("estimate (2nd order)", lad.estimate),
-        ("error = full − estimate", lad.error),
-    ):
-        rows = [
-            [
-                f"{sp[a]:+g}%",
-                *(
-                    _money(grid[a, b]) + ("◀" if (a, b) == (i, j) and grid is lad.full else "")
-                    for b in range(len(vp))
-                ),
+    after = f" · after {_days(days)}" if days else ""
+    of_valued = " of the valued positions" if v.unvalued else ""
+    for g in lads:
+        i, j = g.worst
+        for title, grid in (
+            ("full revaluation P&L", g.full),
+            ("estimate (2nd order)", g.estimate),
+            ("error = full − estimate", g.error),
+        ):
+            rows = [
+                [
+                    f"{sp[a]:+g}%",
+                    *(
+                        _money(grid[a, b]) + ("◀" if (a, b) == (i, j) and grid is g.full else "")
+                        for b in range(len(vp))
+                    ),
+                ]
+                for a in range(len(sp))
             ]
-            for a in range(len(sp))
-        ]
-        after = f" · after {_days(days)}" if days else ""
-        click.echo(f"{title} · {lad.rule}{after} · book currency")
-        print_table(heads, rows, right=[True] * len(heads))
-        click.echo("")
-    click.echo(
-        f"worst cell: spot {sp[i]:+g}% vol {vp[j]:+g} pts: {_money(worst['full'])} "
-        f"(estimate {_money(worst['estimate'])}, error {_money(worst['error'])}) ◀"
-    )
+            click.echo(f"{title}{of_valued} · {g.rule}{after} · {g.currency or 'no positions'}")
+            print_table(heads, rows, right=[True] * len(heads))
+            click.echo("")
+    for g in lads:
+        worst = _ladder_grids(g, sp, vp)["worst"]
+        which = f" in {g.currency}" if len(lads) > 1 else ""
+        click.echo(
+            f"worst cell{which}: spot {worst['spot_pct']:+g}% vol {worst['vol_pts']:+g} pts: "
+            f"{_money(worst['full'])} (estimate {_money(worst['estimate'])}, error "
+            f"{_money(worst['error'])}) ◀"
+        )
     click.echo(f"{_rule_note(lad.rule)}; valued at {_iso(v.valuation_time)}")
+    _say_unvalued(v.unvalued, table=True)
+
+
+LADDER_GRIDS = ("full", "estimate", "estimate_1", "error", "worst")
+"""The JSON keys of one currency's ladder (null at the top level when there are several)."""
+
+
+def _ladder_grids(lad: Any, sp: Sequence[float], vp: Sequence[float]) -> dict[str, Any]:
+    """One ladder's ``LADDER_GRIDS`` keys: the grids as nested lists and its worst cell."""
+    i, j = lad.worst
+    return {
+        "full": lad.full.tolist(),
+        "estimate": lad.estimate.tolist(),
+        "estimate_1": lad.estimate_1.tolist(),
+        "error": lad.error.tolist(),
+        "worst": {
+            "spot_pct": sp[i],
+            "vol_pts": vp[j],
+            "full": float(lad.full[i, j]),
+            "estimate": float(lad.estimate[i, j]),
+            "error": float(lad.error[i, j]),
+        },
+    }
 
 
 def _set_dict(s: Any) -> Any:
@@ -739,7 +941,8 @@ def explain(
     (carry: a dividend yield or foreign rate mark change times carry rho), and the unexplained
     rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
     against trade price). When late bookings or corrections changed the held book, a line shows
-    how much of actual they account for ("corrections"). Money in the book's currency.
+    how much of actual they account for ("corrections"). Money in each underlying's currency;
+    totals per currency.
     """
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
@@ -765,11 +968,13 @@ def explain(
                 "from_time": _iso(ex.from_time),
                 "to_time": _iso(ex.to_time),
                 "by_underlying": [r.as_dict() for r in ex.by_underlying],
-                "total": ex.total.as_dict(),
+                "total": ex.total.as_dict()
+                | {"by_currency": {r.currency: r.as_dict() for r in ex.by_currency}},
                 "late_trades": list(ex.late_trades),
                 "corrected_trades": list(ex.corrected_trades),
                 "notes": list(ex.notes),
             }
+            | _unvalued_json(ex.unvalued)
         )
         return
     cols = [
@@ -781,34 +986,42 @@ def explain(
         "new_trades",
         "total",
         "corrections",
-    ]
-    data = [
-        [
-            r.label,
-            r.actual,
-            *(r.terms[t] for t in EXPLAIN_KEYS),
-            r.explained,
-            r.unexplained,
-            r.new_trades,
-            r.total,
-            r.corrections,
-        ]
-        for r in [*ex.by_underlying, ex.total]
+        "currency",
     ]
     if as_csv:
+        data = [
+            [
+                label,
+                r.actual,
+                *(r.terms[t] for t in EXPLAIN_KEYS),
+                r.explained,
+                r.unexplained,
+                r.new_trades,
+                r.total,
+                r.corrections,
+                r.currency,
+            ]
+            for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
+        ]
+        _say_unvalued(ex.unvalued, table=False)
         print_csv(cols, data)
         return
     frm = ex.from_set
     to = ex.to_set
+    currencies = [str(r.currency) for r in ex.by_currency]
+    several = len(currencies) > 1
+    ccy_head = ["ccy"] if several else []
+    shown = _labelled(ex.by_underlying, ex.by_currency, ex.total, _total_label(ex.unvalued))
     click.echo(
         f"P&L explain: {_set_words(frm, ex.from_time)} → "
         + ("marks now" if to == "now" else _set_words(to, ex.to_time))
-        + " · money in book currency · greeks of the start set"
+        + f" · {_money_note(currencies)} · greeks of the start set"
     )
     click.echo("")
     summary = [
         [
-            r.label,
+            label,
+            *_ccy_cell(r, several),
             _money(r.actual),
             _money(r.explained),
             _money(r.unexplained),
@@ -816,27 +1029,29 @@ def explain(
             _money(r.new_trades),
             _money(r.total),
         ]
-        for r in [*ex.by_underlying, ex.total]
+        for label, r in shown
     ]
+    left = [False] * (1 + len(ccy_head))
     print_table(
-        ["underlying", "actual", "explained", "unexplained", "unexpl %", "new trades", "total"],
+        ["underlying", *ccy_head, "actual", "explained", "unexplained", "unexpl %",
+         "new trades", "total"],
         summary,
-        right=[False] + [True] * 6,
+        right=left + [True] * 6,
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
-        for r in [*ex.by_underlying, ex.total]
+        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
+        for label, r in shown
     ]
     print_table(
-        ["explained by", *EXPLAIN_KEYS], terms, right=[False] + [True] * len(EXPLAIN_KEYS)
+        ["explained by", *ccy_head, *EXPLAIN_KEYS], terms, right=left + [True] * len(EXPLAIN_KEYS)
     )
     if ex.late_trades or ex.corrected_trades:
         click.echo("")
         print_table(
-            ["late bookings and corrections (in actual)", "P&L"],
-            [[r.label, _money(r.corrections)] for r in [*ex.by_underlying, ex.total]],
-            right=[False, True],
+            ["late bookings and corrections (in actual)", *ccy_head, "P&L"],
+            [[label, *_ccy_cell(r, several), _money(r.corrections)] for label, r in shown],
+            right=[*left, True],
         )
         click.echo(
             f"late-booked trade ids: {', '.join(map(str, ex.late_trades)) or 'none'}; "
@@ -845,6 +1060,7 @@ def explain(
         )
     for note in ex.notes:
         click.echo(note)
+    _say_unvalued(ex.unvalued, table=True)
 
 
 COMMANDS = [risk, whatif, ladder, explain]

@@ -288,6 +288,9 @@ class BlotterApp(App[None]):
         total = self.state.tree.total()
         if total.alert:
             out.append(f"book {total.alert}")
+        for row in self.state.tree.currency_totals():
+            if row.alert:
+                out.append(f"book {row.currency} {row.alert}")
         out += self.ladder_alerts
         for row in self.state.tree.top("underlying"):
             if row.alert:
@@ -324,6 +327,10 @@ class BlotterApp(App[None]):
         n_trials = int(np.count_nonzero(self.state.valuation.book.is_trial))
         if n_trials:
             alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
+        unvalued = self.state.valuation.unvalued
+        if unvalued:
+            n, names = data.unvalued_count(unvalued), data.missing_by_name(unvalued, most=2)
+            alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
     def on_load_failed(self, message: LoadFailed) -> None:
@@ -512,7 +519,7 @@ class BlotterApp(App[None]):
 
         worker = get_current_worker()
         try:
-            grid = scenario.ladder(
+            grids = scenario.ladders(
                 state.valuation,
                 self.settings.ladder_spot_pcts,
                 self.settings.ladder_vol_pts,
@@ -523,11 +530,16 @@ class BlotterApp(App[None]):
                 self.post_message(LoadFailed(f"ladder: {exc}"))
             return
         alerts = self.settings.alerts
-        book_alert = ""
+        breached = []
         row_alerts: dict[str, str] = {}
-        worst = float(grid.full[grid.worst])
-        if alerts.ladder_loss and -worst > alerts.ladder_loss:
-            book_alert = f"book worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+        for grid in grids:
+            worst = float(grid.full[grid.worst])
+            if alerts.ladder_loss and -worst > alerts.ladder_loss:
+                ccy = f" {grid.currency}" if len(grids) > 1 else ""
+                breached.append(
+                    f"book{ccy} worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+                )
+        book_alert = "; ".join(breached)
         if alerts.underlying_ladder_loss:
             from blotter import risk
 
@@ -550,11 +562,12 @@ class BlotterApp(App[None]):
                         f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
                     )
         if not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grid, book_alert, row_alerts))
+            self.post_message(LadderReady(state.book_seq, days, grids, book_alert, row_alerts))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq and not self._blotter_closing():
-            self.query_one(LadderPane).show(message.ladder, message.days)
+            partial = self.state is not None and self.state.valuation.partial
+            self.query_one(LadderPane).show(message.ladder, message.days, partial)
             self.ladder_alerts = [message.book_alert] if message.book_alert else []
             rows = message.row_alerts or {}
             if rows != self.ladder_row_alerts or message.book_alert:
@@ -566,7 +579,7 @@ class BlotterApp(App[None]):
         if self.state is None:
             return
         rows = None
-        label = "book"
+        label = "the valued book" if self.state.valuation.partial else "book"
         if self.scope == "row":
             key = self.query_one(BookTable).cursor_row_key()
             if key and key != "total":

@@ -38,8 +38,11 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 SUM_FIELDS = tuple(k for k, _ in BOOK_COLUMNS if k != "spot")
 """Columns that add up over positions (risk's additive arrays)."""
 
-SHARE_FIELDS = frozenset({"delta_shares", "gamma_1pct", "vanna_pt"})
+SHARE_FIELDS = frozenset(risk.SHARE_FIELDS)
 """Columns in shares of one underlying: a row spanning several names shows them as "—"."""
+
+MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS)
+"""Columns in currency: a row spanning several currencies shows them as "—"."""
 
 MAX_CHILD_ROWS = 2000
 """Positions listed under one expanded row; the rest are summarised in one line."""
@@ -58,6 +61,8 @@ class BookRow:
     position: int | None = None  # row index into the book for a position row
     mixed: bool = False  # spans several underlyings: share-unit columns do not add
     trial: bool = False  # a trial position (not in the store)
+    currency: str | None = None  # None when the row spans several currencies
+    mixed_currency: bool = False  # spans several currencies: money columns do not add
 
 
 def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[float, ...]:
@@ -112,6 +117,8 @@ class BookTree:
         else:
             self.expiry_days = np.zeros(0, dtype="datetime64[D]")
         self._total = risk.total(valuation)
+        self.currencies = valuation.currencies
+        self._ccy, self._ccy_names = valuation.currency_codes
         self._by_underlying = risk.aggregate(valuation, by="underlying")
         self._by_bucket = risk.aggregate(valuation, by="expiry")
         self._cache: dict[str, list[BookRow]] = {}
@@ -125,6 +132,10 @@ class BookTree:
     def _mixed(self, rows: np.ndarray) -> bool:
         """Whether ``rows`` hold positions of more than one underlying."""
         return len(np.unique(self.book.underlying_idx[rows])) > 1
+
+    def _mixed_currency(self, rows: np.ndarray) -> bool:
+        """Whether ``rows`` hold positions in more than one currency."""
+        return len(np.unique(self._ccy[rows])) > 1
 
     def _positions(self, parent: str, rows: np.ndarray, level: int) -> list[BookRow]:
         book = self.book
@@ -182,14 +193,38 @@ class BookTree:
 
     # -- BookSource ------------------------------------------------------------------------------
     def total(self) -> BookRow:
+        trials = bool(np.asarray(self.book.is_trial).any())
+        if self.valuation.partial:
+            label = "valued + trials" if trials else "total of valued"
+        else:
+            label = "total + trials" if trials else "total"
         return BookRow(
             key="total",
             level=0,
-            label="total + trials" if np.asarray(self.book.is_trial).any() else "total",
+            label=label,
             values=_row_values(self._total),
             alert=self._alert(self._total),
             mixed=self._mixed(np.arange(len(self.book))),
+            currency=self._total.currency,
+            mixed_currency=len(self.currencies) > 1,
         )
+
+    def currency_totals(self) -> list[BookRow]:
+        """One total row per currency when the book holds several (none otherwise)."""
+        if len(self.currencies) <= 1:
+            return []
+        return [
+            BookRow(
+                key=f"c|{r.currency}",
+                level=0,
+                label=f"{r.currency} total",
+                values=_row_values(r),
+                alert=self._alert(r),
+                mixed=r.underlying is None,
+                currency=r.currency,
+            )
+            for r in risk.currency_totals(self.valuation)
+        ]
 
     def total_without_trials(self) -> BookRow | None:
         """The total of the live positions only, when the book holds trial rows (else None)."""
@@ -203,6 +238,7 @@ class BookTree:
             label="live only",
             values=(math.nan,) + self._subtotal(live),
             mixed=self._mixed(live),
+            mixed_currency=self._mixed_currency(live),
         )
 
     def top(self, group: str) -> Sequence[BookRow]:
@@ -215,6 +251,7 @@ class BookTree:
                     values=_row_values(r),
                     expandable=True,
                     alert=self._alert(r),
+                    currency=r.currency,
                 )
                 for r in self._by_underlying
             ]
@@ -229,6 +266,8 @@ class BookTree:
                 mixed=self._mixed(
                     np.flatnonzero(codes == self.valuation.bucket_labels.index(r.label))
                 ),
+                currency=r.currency,
+                mixed_currency=r.currency is None,
             )
             for r in self._by_bucket
         ]
@@ -254,6 +293,8 @@ class BookTree:
                 )
             elif kind == "p":
                 return np.array([int(parts[i + 2])])
+            elif kind == "c":
+                sel &= self._ccy == self._ccy_names.index(name)
             i += 2
         return np.flatnonzero(sel)
 
@@ -279,12 +320,41 @@ class BookTree:
                         values=(float(self.valuation.underlying_spots[int(j)]),)
                         + self._subtotal(sel),
                         expandable=True,
+                        currency=self.book.underlyings.currencies[int(j)],
                     )
                 )
         else:  # expiry day, or underlying within a bucket
             out = self._positions(key, rows, level)
         self._cache[key] = out
         return out
+
+
+def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:
+    """The marks the left-out positions lack, by symbol or currency: ``CCC: spot, vol; EUR: rate``
+    (at most ``most`` names, then how many more)."""
+    kinds: dict[str, list[str]] = {}
+    for u in unvalued:
+        for m in u.missing:
+            seen = kinds.setdefault(m.name, [])
+            if m.kind not in seen:
+                seen.append(m.kind)
+    parts = [f"{name}: {', '.join(k)}" for name, k in kinds.items()]
+    more = f"; {len(parts) - most} more" if len(parts) > most else ""
+    return "; ".join(parts[:most]) + more
+
+
+def unvalued_count(unvalued: Sequence[risk.UnvaluedPosition]) -> int:
+    """How many positions (contracts) a valuation left out."""
+    return len({u.contract_id for u in unvalued})
+
+
+def unvalued_words(unvalued: Sequence[risk.UnvaluedPosition]) -> str:
+    """The positions a valuation left out, in a few words: ``2 positions not valued (CCC: spot,
+    vol; EUR: rate)``; empty when there are none."""
+    if not unvalued:
+        return ""
+    n = unvalued_count(unvalued)
+    return f"{n} position{'' if n == 1 else 's'} not valued ({missing_by_name(unvalued)})"
 
 
 @dataclass(frozen=True)
@@ -383,43 +453,51 @@ def profile(
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
     series: dict[str, tuple[float, ...]] = {}
     roll = f"after {days:g} day{'s' if days != 1 else ''}"
+    # Money of different currencies is never added: one curve per currency when there are several.
+    parts = [("", v)]
+    if len(v.currencies) > 1:
+        parts = [
+            (f" {c}", v.take(np.flatnonzero(v.position_currencies == c))) for c in v.currencies
+        ]
     if axis == "spot":
         half = float(settings.profile_spot_pct)
         xs = np.linspace(-half, half, int(settings.profile_points))
         x_label = "spot move, % of every spot"
-        if greek == "pnl":
+    else:
+        n_days = int(settings.profile_days)
+        xs = np.arange(0, n_days + 1, max(1, n_days // 30), dtype=np.float64)
+        x_label = "calendar days forward"
+    y_label = "P&L (currency)" if greek == "pnl" else PROFILE_FIELDS[greek][1]
+    for suffix, vc in parts:
+        if axis == "spot" and greek == "pnl":
             pcts = xs.tolist()
-            series["today"] = tuple(scenario.ladder(v, pcts, (0.0,), days=0.0).full[:, 0].tolist())
+            series["today" + suffix] = tuple(
+                scenario.ladder(vc, pcts, (0.0,), days=0.0).full[:, 0].tolist()
+            )
             if days:
-                series[roll] = tuple(
-                    scenario.ladder(v, pcts, (0.0,), days=days).full[:, 0].tolist()
+                series[roll + suffix] = tuple(
+                    scenario.ladder(vc, pcts, (0.0,), days=days).full[:, 0].tolist()
                 )
-            y_label = "P&L (currency)"
-        else:
-            field_name, y_label = PROFILE_FIELDS[greek]
+        elif axis == "spot":
+            field_name = PROFILE_FIELDS[greek][0]
             times = [("today", t0)] + ([(roll, cal.roll_calendar_days(t0, days))] if days else [])
             for name, t in times:
                 values = []
                 for pct in xs:
                     market = (
-                        v.market.shocked(spot_pct={s: float(pct) for s in symbols})
+                        vc.market.shocked(spot_pct={s: float(pct) for s in symbols})
                         if pct
-                        else v.market
+                        else vc.market
                     )
                     values.append(
-                        getattr(risk.total(risk.value_book(v.book, market, t)), field_name)
+                        getattr(risk.total(risk.value_book(vc.book, market, t)), field_name)
                     )
-                series[name] = tuple(float(x) for x in values)
-    else:
-        n_days = int(settings.profile_days)
-        xs = np.arange(0, n_days + 1, max(1, n_days // 30), dtype=np.float64)
-        x_label = "calendar days forward"
-        if greek == "pnl":
-            y_label = "P&L (currency)"
-            series["P&L"] = tuple(
+                series[name + suffix] = tuple(float(x) for x in values)
+        elif greek == "pnl":
+            series["P&L" + suffix] = tuple(
                 float(
                     scenario.apply_move(
-                        v, scenario.Move(text=f"days {d:g}", days=float(d))
+                        vc, scenario.Move(text=f"days {d:g}", days=float(d))
                     ).total.full
                 )
                 if d
@@ -427,17 +505,11 @@ def profile(
                 for d in xs
             )
         else:
-            field_name, y_label = PROFILE_FIELDS[greek]
-            series[y_label.split(" (")[0]] = tuple(
-                float(
-                    getattr(
-                        risk.total(
-                            risk.value_book(v.book, v.market, cal.roll_calendar_days(t0, float(d)))
-                        ),
-                        field_name,
-                    )
-                )
-                for d in xs
+            field_name = PROFILE_FIELDS[greek][0]
+            rolled = (cal.roll_calendar_days(t0, float(d)) for d in xs)
+            series[y_label.split(" (")[0] + suffix] = tuple(
+                float(getattr(risk.total(risk.value_book(vc.book, vc.market, t)), field_name))
+                for t in rolled
             )
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
     title = (

@@ -12,6 +12,10 @@ from datetime import timedelta
 MISSING = "n/a"
 """Shown for a value that cannot be computed (NaN), so a blank never hides a problem."""
 
+NOT_ADDITIVE = "—"
+"""Shown where a sum would add what does not add: share counts of several underlyings, money of
+several currencies (no FX conversion)."""
+
 
 def money(value: float, width: int = 0) -> str:
     """Whole currency units, signed, thousands grouped; millions (``M``) beyond 10 digits."""

@@ -69,11 +69,11 @@ class MoveFailed(Message):
 
 @dataclass(repr=False)
 class LadderReady(Message):
-    """The spot × vol ladder for the bar's day roll."""
+    """The spot × vol ladders for the bar's day roll, one per currency of the book."""
 
     book_seq: int
     days: float
-    ladder: Any
+    ladder: Any  # list of scenario.Ladder
     book_alert: str = ""  # the worst cell beyond the book's ladder limit, in words
     row_alerts: dict[str, str] | None = None  # underlying -> its ladder breach in words
 

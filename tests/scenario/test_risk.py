@@ -266,8 +266,9 @@ def test_vega_unit_and_bad_inputs(mixed_book) -> None:
         value_book(mixed_book, make_market(), T0, vega_unit="bp")
     m = make_market()
     del m.spots["FUT"]
-    with pytest.raises(KeyError, match="FUT"):
-        value_book(mixed_book, m, T0)
+    partial = value_book(mixed_book, m, T0)  # FUT is left out and listed, not an error
+    assert {u.underlying for u in partial.unvalued} == {"FUT"}
+    assert "FUT" not in {partial.book.underlyings.symbols[i] for i in partial.book.underlying_idx}
 
 
 def test_arrays_are_read_only(mixed_book) -> None:

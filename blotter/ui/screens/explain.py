@@ -94,13 +94,26 @@ class ExplainScreen(DeskScreen):
     def show(self, result: Any) -> None:
         table = self.query_one("#explain-table", DataTable)
         table.clear(columns=True)
-        cols = [result.total, *result.by_underlying]
+        per_ccy = list(getattr(result, "by_currency", ()) or ())
+        several = len(per_ccy) > 1
+        cols = [result.total, *(per_ccy if several else []), *result.by_underlying]
         table.add_column("currency", key="label", width=13)
         for i, row in enumerate(cols):
-            table.add_column(Text(row.label, justify="right"), key=f"c{i}", width=10)
+            head = str(row.label)
+            if several and row is not result.total:
+                head = f"{row.label} {row.currency}" if row.underlying else f"Σ {row.currency}"
+            table.add_column(Text(head, justify="right"), key=f"c{i}", width=10)
 
         def add(label: str, values: list[float]) -> None:
-            table.add_row(label, *[fmt.money(v, 10) for v in values])
+            table.add_row(
+                label,
+                *[
+                    fmt.NOT_ADDITIVE.rjust(10)
+                    if several and r.currency is None
+                    else fmt.money(v, 10)
+                    for r, v in zip(cols, values, strict=True)
+                ],
+            )
 
         from blotter import scenario
 
@@ -123,7 +136,10 @@ class ExplainScreen(DeskScreen):
         self.query_one(".desk-title", Static).update(
             Text(f"Explain: P&L from {start} to {end}", style="bold")
         )
-        notes = "; ".join(result.notes) if result.notes else ""
+        from blotter.ui import data
+
+        left_out = data.unvalued_words(getattr(result, "unvalued", ()))
+        notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])
         self.say(
             "Start greeks on the positions held at the start; new trades: end value − trade "
             "price. f: start earlier, o: end now / at a close." + (f" {notes}" if notes else "")

@@ -36,7 +36,9 @@ UNITS: tuple[tuple[str, str], ...] = (
     ),
     ("error", "full − estimate, in currency; err % = error as a share of |full|"),
     ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
-    ("Ladder", "spot shocks in %, vol shocks in points, cells in the book's currency"),
+    ("Ladder", "spot shocks in %, vol shocks in points, cells in currency; one grid per currency"),
+    ("—", "no sum: share counts of several names, or money of several currencies (never added)"),
+    ("NOT VALUED", "positions left out for want of a mark; totals are of the rest (w lists them)"),
 )
 """Column headers and symbols with what they mean, as the help screen lists them."""
 

@@ -65,6 +65,14 @@ class WatchScreen(DeskScreen):
             return
         days, expiring = message.payload
         text = Text()
+        state = self.blotter.state
+        unvalued = state.valuation.unvalued if state is not None else ()
+        if unvalued:
+            text.append(f"{data.unvalued_words(unvalued)}: left out of every total\n", style="bold")
+            for u in unvalued:
+                for m in u.missing:
+                    text.append(f"  {u.label}: {m.words()}\n    log it with: {m.command}\n")
+            text.append("\n")
         breaches = self.blotter.breaches()
         text.append(f"Limit breaches ({len(breaches)})\n", style="bold")
         for b in breaches:

@@ -18,7 +18,8 @@ from textual.widgets import DataTable
 
 from blotter import risk
 from blotter.ui import fmt
-from blotter.ui.data import BOOK_COLUMNS, SHARE_FIELDS, BookRow, BookTree
+from blotter.ui.data import BOOK_COLUMNS, MONEY_COLUMNS, SHARE_FIELDS, BookRow, BookTree
+from blotter.ui.fmt import NOT_ADDITIVE
 from blotter.ui.keys import app_bindings
 
 COLUMN_WIDTHS = {
@@ -40,16 +41,19 @@ LABEL_WIDTH = 16
 """Width of the row-label column (tree glyphs + name)."""
 
 
-NOT_ADDITIVE = "—"
-"""Shown in a share-unit column of a row spanning several underlyings (shares do not add)."""
-
 VEGA_HEADERS = {"pt": "vega pt", "vol": "vega 1.00"}
 """Vega column header per ``risk.VEGA_UNITS`` key."""
 
 
-def _cell(column: str, value: float, mixed: bool = False, vega_scale: float = 1.0) -> str:
+def _cell(
+    column: str,
+    value: float,
+    mixed: bool = False,
+    vega_scale: float = 1.0,
+    mixed_currency: bool = False,
+) -> str:
     width = COLUMN_WIDTHS[column]
-    if mixed and column in SHARE_FIELDS:
+    if (mixed and column in SHARE_FIELDS) or (mixed_currency and column in MONEY_COLUMNS):
         return NOT_ADDITIVE.rjust(width)
     if column == "vega_pt":
         value = value * vega_scale
@@ -82,7 +86,8 @@ class BookTable(DataTable[str | Text]):
     def _cells(self, row: BookRow) -> list[str]:
         scale = risk.VEGA_UNITS[self.vega_unit]
         return [
-            _cell(col, row.values[i], row.mixed, scale) for i, (col, _) in enumerate(BOOK_COLUMNS)
+            _cell(col, row.values[i], row.mixed, scale, row.mixed_currency)
+            for i, (col, _) in enumerate(BOOK_COLUMNS)
         ]
 
     def set_vega_unit(self, unit: str) -> None:
@@ -138,6 +143,7 @@ class BookTable(DataTable[str | Text]):
         live = self.source.total_without_trials()
         if live is not None:
             out.append(live)
+        out += self.source.currency_totals()
 
         def walk(rows: Sequence[BookRow]) -> None:
             for row in self._sorted(rows):
@@ -158,6 +164,9 @@ class BookTable(DataTable[str | Text]):
         text = Text(
             "  " * max(row.level - 1, 0) + glyph + row.label, no_wrap=True, overflow="ellipsis"
         )
+        several = self.source is not None and len(self.source.currencies) > 1
+        if several and row.level > 0 and row.currency and row.position is None:
+            text.append(f" {row.currency}", style="dim")
         if row.trial:
             text.append(" T", style="bold reverse")
         if row.alert:
@@ -180,6 +189,7 @@ class BookTable(DataTable[str | Text]):
                     or old.label != new.label
                     or old.alert != new.alert
                     or old.mixed != new.mixed
+                    or old.mixed_currency != new.mixed_currency
                 ):
                     cells = self._cells(new)
                     for i, (col, _) in enumerate(BOOK_COLUMNS):
@@ -198,8 +208,8 @@ class BookTable(DataTable[str | Text]):
                 key=row.key,
             )
         self._visible = rows
-        # The total row (and the live-only total under trials) stays in view.
-        self.fixed_rows = (2 if len(rows) > 1 and rows[1].key == "total-live" else 1) if rows else 0
+        # The total rows (book, live-only under trials, each currency's) stay in view.
+        self.fixed_rows = next((k for k, r in enumerate(rows) if r.level > 0), len(rows))
         self.expandable_keys = {r.key for r in rows if r.expandable}
         if cursor_key is not None and cursor_key in {r.key for r in rows}:
             self.move_cursor(row=self.get_row_index(cursor_key), column=column, animate=False)

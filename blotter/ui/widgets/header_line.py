@@ -1,4 +1,5 @@
-"""The header line: book, valuation time, marks as of and their age in words, file, read-only."""
+"""The header line: book, valuation time, marks as of and their age in words, file, read-only,
+alerts, and the currencies when there are several."""
 
 from __future__ import annotations
 
@@ -43,6 +44,9 @@ class HeaderLine(Static):
         for alert in alerts:
             text.append(" │ ")
             text.append(f"! {alert}", style="bold")
+        currencies = state.valuation.currencies
+        if len(currencies) > 1:  # money is never added across them
+            text.append(f" │ totals per currency: {', '.join(currencies)}")
         self.update(text)
         self.tooltip = state.db_path
 

@@ -6,9 +6,11 @@ reverse video), the vol rule is stated under the grid, and the bar's day roll is
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
+from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
@@ -54,17 +56,22 @@ class LadderPane(VerticalScroll):
         super().__init__(id="ladder-pane", classes="pane")
         self.border_title = "Ladder"
         self.grid = "full"
-        self.ladder: Any = None
+        self.ladder: Any = None  # the first (or only) currency's ladder
+        self.ladders: list[Any] = []  # one per currency, in the book's order
         self.days = 0.0
-        self.table: Table | None = None
+        self.partial = False  # some positions were left out for want of a mark
+        self.table: Table | None = None  # the first ladder's grid
 
     def compose(self) -> ComposeResult:
         yield Static("waiting for the book…", id="ladder-grid")
         yield Static("", id="ladder-rule")
 
-    def show(self, ladder: Any, days: float) -> None:
-        """Show a ladder computed with a ``days`` roll."""
-        self.ladder, self.days = ladder, days
+    def show(self, ladders: Sequence[Any], days: float, partial: bool = False) -> None:
+        """Show one ladder per currency (``scenario.ladders``) computed with a ``days`` roll;
+        ``partial`` when they leave out positions that lack a mark."""
+        self.ladders = list(ladders)
+        self.ladder = self.ladders[0] if self.ladders else None
+        self.days, self.partial = days, partial
         self.repaint()
 
     def next_grid(self) -> str:
@@ -77,20 +84,44 @@ class LadderPane(VerticalScroll):
         ladder = self.ladder
         if ladder is None:
             return
-        cells = np.asarray(getattr(ladder, self.grid))
-        spot_pcts = list(ladder.spot_pcts)
-        vol_pts = list(ladder.vol_pts)
-        worst = worst_cell(ladder)
+        several = len(self.ladders) > 1
         roll = f", after {self.days:g} day{'s' if self.days != 1 else ''}" if self.days else ""
         rule = str(getattr(ladder, "rule", "") or "")
-        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{roll} ─ {rule}" + (
-            f" ─ {WORST} worst" if worst else ""
+        of_valued = " of valued positions" if self.partial else ""
+        per = " per currency" if several else ""
+        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
+            f" ─ {WORST} worst" if worst_cell(ladder) else ""
         )
+        parts: list[Text | Table] = []
+        for k, one in enumerate(self.ladders):
+            if several:
+                parts.append(Text(("\n" if k else "") + str(one.currency), style="bold"))
+            parts.append(self._table(one))
+        self.table = next(p for p in parts if isinstance(p, Table))
+        self.query_one("#ladder-grid", Static).update(Group(*parts))
+        legend = f"{WORST} worst cell of the full P&L. " if worst_cell(ladder) else ""
+        money = (
+            "P&L in each currency, never added across them"
+            if several
+            else f"P&L in {ladder.currency or 'the book currency'}"
+        )
+        self.query_one("#ladder-rule", Static).update(
+            Text(
+                f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
+                f"in points; cells: {money}."
+            )
+        )
+
+    def _table(self, ladder: Any) -> Table:
+        """One ladder's grid, its worst cell marked."""
+        cells = np.asarray(getattr(ladder, self.grid))
+        vol_pts = list(ladder.vol_pts)
+        worst = worst_cell(ladder)
         table = Table(box=None, pad_edge=False, padding=(0, 1))
         table.add_column("spot \\ vol", justify="right", no_wrap=True)
         for v in vol_pts:
             table.add_column(f"{v:+g} pt", justify="right", no_wrap=True)
-        for i, s in enumerate(spot_pcts):
+        for i, s in enumerate(list(ladder.spot_pcts)):
             row: list[Text | str] = [f"{s:+g}%"]
             for j in range(len(vol_pts)):
                 text = Text(fmt.money(float(cells[i, j])))
@@ -99,12 +130,4 @@ class LadderPane(VerticalScroll):
                     text.stylize("reverse")
                 row.append(text)
             table.add_row(*row)
-        self.table = table
-        self.query_one("#ladder-grid", Static).update(table)
-        legend = f"{WORST} worst cell of the full P&L. " if worst else ""
-        self.query_one("#ladder-rule", Static).update(
-            Text(
-                f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
-                "in points; cells: P&L in the book's currency."
-            )
-        )
+        return table

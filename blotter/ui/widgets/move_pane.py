@@ -19,6 +19,7 @@ from textual.widgets import Static
 
 from blotter.config import Alerts
 from blotter.ui import fmt
+from blotter.ui.fmt import NOT_ADDITIVE
 
 TERMS: tuple[tuple[str, str], ...] = (
     ("delta", "Δ"),
@@ -36,6 +37,7 @@ SECOND_ORDER_TERMS = frozenset({"gamma", "volga", "vanna"})
 
 FLAG = "!"
 """Marks an estimate whose error is beyond the alert threshold (shown bold as well)."""
+
 
 LABEL_WIDTH = 10
 MONEY_WIDTH = 11
@@ -101,22 +103,43 @@ class MovePane(Vertical):
         )
         return Text(head, style="bold")
 
+    def _several(self) -> bool:
+        """Whether the result holds more than one currency (its total is then not a sum)."""
+        return len(getattr(self.result, "by_currency", ()) or ()) > 1
+
+    def _flagged(self, row: Any) -> bool:
+        """``error_flagged`` for a row of one currency; a total across several has no error."""
+        if self._several() and getattr(row, "currency", None) is None:
+            return False
+        return error_flagged(row.full, getattr(row, f"error_{self.order}"), self.alerts)
+
     def _row(self, key: str, row: Any) -> Text:
         n = self.order
         est = getattr(row, f"estimate_{n}")
         err = getattr(row, f"error_{n}")
         err_pct = getattr(row, f"error_{n}_pct")
-        flagged = error_flagged(row.full, err, self.alerts)
-        label = "Σ total" if key == "total" else str(row.label)
+        flagged = self._flagged(row)
+        partial = bool(getattr(getattr(self.result, "valuation", None), "partial", False))
+        label = ("Σ valued" if partial else "Σ total") if key == "total" else str(row.label)
+        several = self._several()
+        if several and key.startswith("c|"):
+            label = f"Σ {row.currency}"
+        elif several and key.startswith("u|"):
+            label = f"{row.label} {row.currency}"
+        no_sum = several and getattr(row, "currency", None) is None
+
+        def money(x: float, width: int) -> str:
+            return NOT_ADDITIVE.rjust(width) if no_sum else fmt.money(x, width)
+
         values = {
             "label": label[: self.label_width].ljust(self.label_width),
-            "full": fmt.money(row.full, MONEY_WIDTH),
-            "estimate": fmt.money(est, MONEY_WIDTH),
-            "error": fmt.money(err, MONEY_WIDTH) + (FLAG if flagged else " "),
-            "error_pct": fmt.pct(err_pct, PCT_WIDTH),
+            "full": money(row.full, MONEY_WIDTH),
+            "estimate": money(est, MONEY_WIDTH),
+            "error": money(err, MONEY_WIDTH) + (FLAG if flagged else " "),
+            "error_pct": NOT_ADDITIVE.rjust(PCT_WIDTH) if no_sum else fmt.pct(err_pct, PCT_WIDTH),
         }
         for term, _ in TERMS:
-            values[term] = fmt.money(row.terms.get(term, float("nan")), TERM_WIDTH)
+            values[term] = money(row.terms.get(term, float("nan")), TERM_WIDTH)
         line = Text(style="bold" if key == "total" else "")
         for column in COLUMNS:
             self.cells[(key, column)] = values[column]
@@ -140,7 +163,12 @@ class MovePane(Vertical):
         if self.result is None:
             return
         result = self.result
-        rows = [("total", result.total)] + [(f"u|{r.label}", r) for r in result.by_underlying]
+        per_ccy = list(getattr(result, "by_currency", ()) or ()) if self._several() else []
+        rows = (
+            [("total", result.total)]
+            + [(f"c|{r.currency}", r) for r in per_ccy]
+            + [(f"u|{r.label}", r) for r in result.by_underlying]
+        )
         self.cells = {}
         same_shape = self.row_keys == [k for k, _ in rows]
         self.row_keys = [k for k, _ in rows]
@@ -148,9 +176,7 @@ class MovePane(Vertical):
         grid.no_wrap = True
         # Same rows, fixed-width columns: the size is unchanged, so skip the layout pass.
         self.query_one("#move-grid", Static).update(grid, layout=not same_shape)
-        flagged = sum(
-            error_flagged(r.full, getattr(r, f"error_{self.order}"), self.alerts) for _, r in rows
-        )
+        flagged = sum(self._flagged(r) for _, r in rows)
         order = "1st" if self.order == 1 else "2nd"
         title = (
             f"Move: {self._summary} ─ {order}-order estimate ─ {FLAG} |error| > "

@@ -1,0 +1,130 @@
+"""The app on a book holding a USD and a EUR name: every total is per currency and the total across
+both shows "—"; the numbers on screen are ``blotter.risk``'s and ``blotter.scenario``'s."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from blotter import risk, scenario, store
+from blotter.ui.app import make_app
+from blotter.ui.fmt import NOT_ADDITIVE
+from blotter.ui.screens.explain import ExplainScreen
+from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.ladder_pane import LadderPane
+from blotter.ui.widgets.move_pane import MovePane
+
+from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
+
+
+def shown(cell: Any) -> float:
+    return float(str(cell).strip().rstrip("!").replace(",", ""))
+
+
+@pytest.fixture
+def two_currencies(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
+    """AAA in USD and BBB in EUR, fully marked, an option on each and a BBB hedge, all entered
+    before the 2026-11-30 close, which is committed."""
+    clock = {"now": datetime(2026, 11, 30, 20, 30, tzinfo=UTC)}
+    monkeypatch.setattr(store, "_now", lambda: clock["now"])
+    path = tmp_path / "fx.db"
+    st = store.create_store(path)
+    try:
+        for sym, ccy, spot, vol, rate in (
+            ("AAA", "USD", 100.0, 0.25, 0.04),
+            ("BBB", "EUR", 50.0, 0.30, 0.025),
+        ):
+            st.add_underlying(sym, "stock", ccy, 100.0, american=False)
+            st.log_spot(sym, spot)
+            st.log_vol(sym, "2027-06-18", vol)
+            st.log_rate(ccy, 90, rate)
+        when = datetime(2026, 11, 30, 20, 0, tzinfo=UTC)
+        st.add_trade("desk", "AAA", 10, 9.0, "2027-06-18", 100.0, True, trade_time=when,
+                     create_book=True)
+        st.add_trade("desk", "BBB", -20, 4.0, "2027-06-18", 50.0, False, trade_time=when)
+        st.add_trade("desk", "BBB", 500, 50.0, None, None, None, trade_time=when)
+        clock["now"] = datetime(2026, 11, 30, 21, 0, tzinfo=UTC)  # the 16:00 New York close
+        st.commit_close()
+    finally:
+        st.close()
+    return path
+
+
+def _valuation(path: Path) -> risk.BookValuation:
+    st = store.open_store(path, read_only=True)
+    try:
+        book, market = st.load_book(), st.load_market()
+    finally:
+        st.close()
+    return risk.value_book(book, market, np.datetime64(FROZEN_NOW.replace(tzinfo=None), "s"))
+
+
+async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: Path) -> None:
+    v = _valuation(two_currencies)
+    per_ccy = {r.currency: r for r in risk.currency_totals(v)}
+    app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        assert "totals per currency: USD, EUR" in str(app.query_one("#header-line").render())
+        table = app.query_one(BookTable)
+        keys = [r.key for r in table.visible_rows()]
+        assert keys[:3] == ["total", "c|USD", "c|EUR"] and table.fixed_rows == 3
+        assert str(table.get_cell("total", "delta_cash")).strip() == NOT_ADDITIVE
+        assert str(table.get_cell("total", "value")).strip() == NOT_ADDITIVE
+        for ccy in ("USD", "EUR"):
+            assert shown(table.get_cell(f"c|{ccy}", "delta_cash")) == pytest.approx(
+                per_ccy[ccy].delta_cash, abs=0.5
+            )
+        assert str(table.get_cell("u|BBB", "label")).endswith("BBB EUR")
+
+        await pilot.press("f2", *"spot -3%")
+        await settle(app, pilot)
+        expected = scenario.apply_move(v, scenario.parse_move("spot -3%"))
+        pane = app.query_one(MovePane)
+        assert pane.row_keys[:3] == ["total", "c|USD", "c|EUR"]
+        assert pane.cells[("total", "full")].strip() == NOT_ADDITIVE
+        assert not pane.cells[("total", "error")].endswith("!")
+        for row in expected.by_currency:
+            assert shown(pane.cells[(f"c|{row.currency}", "full")]) == pytest.approx(
+                row.full, abs=0.5
+            )
+
+        ladder = app.query_one(LadderPane)
+        grids = scenario.ladders(
+            v, TEST_SETTINGS.ladder_spot_pcts, TEST_SETTINGS.ladder_vol_pts
+        )
+        assert [g.currency for g in ladder.ladders] == ["USD", "EUR"]
+        for got, want in zip(ladder.ladders, grids, strict=True):
+            np.testing.assert_allclose(got.full, want.full)
+        assert "per currency" in str(ladder.border_title)
+
+        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        assert set(profile.series) == {"today USD", "today EUR"}
+        usd = v.take(np.flatnonzero(v.position_currencies == "USD"))
+        np.testing.assert_allclose(
+            profile.series["today USD"],
+            scenario.ladder(usd, list(profile.xs), (0.0,)).full[:, 0],
+        )
+
+
+async def test_explain_screen_totals_each_currency(two_currencies: Path) -> None:
+    app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(120, 30)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("l")
+        await settle(app, pilot)
+        screen = app.screen
+        assert isinstance(screen, ExplainScreen) and screen.result is not None
+        table = screen.query_one("#explain-table")
+        heads = [str(c.label) for c in table.columns.values()]  # type: ignore[attr-defined]
+        assert heads[1:4] == ["total", "Σ USD", "Σ EUR"]
+        assert {str(c).strip() for c in table.get_row_at(0)[1:2]} == {NOT_ADDITIVE}  # type: ignore[attr-defined]
+        totals = {r.currency: r for r in screen.result.by_currency}
+        labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
+        row = table.get_row_at(labels.index("= held P&L"))  # type: ignore[attr-defined]
+        assert shown(row[2]) == pytest.approx(totals["USD"].actual, abs=0.5)
+        assert shown(row[3]) == pytest.approx(totals["EUR"].actual, abs=0.5)
