@@ -16,6 +16,8 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 
+from blotter import limits
+
 DEFAULT_DESK_TZ = "America/New_York"
 """Desk time zone when neither ``$BLOTTER_TZ`` nor an argument names one."""
 
@@ -41,6 +43,7 @@ def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
     """One UTC instant as ``datetime64[s]``; naive datetimes and strings are desk-local time.
 
     Strings are ISO-8601 (``2026-12-01T15:30``, ``2026-12-01``, or with an offset / ``Z``).
+    A time outside ``limits`` (1900 to 2200) is a ``ValueError`` saying so.
     """
     if isinstance(t, np.datetime64):
         return cast(np.datetime64, np.asarray(t).astype("datetime64[s]")[()])
@@ -54,6 +57,7 @@ def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
             raise ValueError(f"not an ISO-8601 time: {t!r}") from None
     if isinstance(t, date) and not isinstance(t, datetime):
         t = datetime.combine(t, time(0, 0))
+    limits.check_time(t)
     if t.tzinfo is None:
         t = t.replace(tzinfo=desk_tz())
     utc = t.astimezone(UTC).replace(tzinfo=None)

@@ -42,7 +42,7 @@ from typing import Any
 import numpy as np
 
 from blotter import calendar as cal
-from blotter import engine
+from blotter import engine, limits
 from blotter.book import MOVE_PARTS, SYMBOL_PATTERN, Book
 from blotter.market import VOL_FLOOR, Market
 from blotter.risk import (
@@ -283,15 +283,13 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
             if lvl:
                 if symbol is None:
                     raise fail("a spot level (=4480) needs an underlying before 'spot'", k)
-                shift = SpotShift(symbol, float(lvl.group("num")), "level")
-                if shift.amount <= 0:
-                    raise fail("a spot level must be positive", k)
+                level = _within(limits.LEVEL, float(lvl.group("num")), "spot level", fail, k)
+                shift = SpotShift(symbol, level, "level")
                 k += 1
             else:
                 sign, num, unit = _amount(amount_word, fail, k, "spot", allow=("%", ""))
-                value = sign * num
-                if unit == "%" and value <= -100:
-                    raise fail("spot cannot fall 100% or more", k)
+                bound = limits.MOVE_SPOT_PCT if unit == "%" else limits.MOVE_SPOT_ABS
+                value = _within(bound, sign * num, "spot move", fail, k)
                 k += 1
                 beta = k < len(toks) and toks[k][0].lower() == "beta"
                 if beta:
@@ -306,9 +304,8 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
             if symbol in vols:
                 raise fail(f"vol given twice for {symbol or 'every underlying'}", kw_at)
             sign, num, unit = _amount(amount_word, fail, k, "vol", allow=("%", ""))
-            value = sign * num
-            if unit == "%" and value <= -100:
-                raise fail("vol cannot fall 100% or more", k)
+            bound = limits.MOVE_VOL_PCT if unit == "%" else limits.MOVE_VOL_PTS
+            value = _within(bound, sign * num, "vol move", fail, k)
             k += 1
             weighted = k < len(toks) and toks[k][0].lower() == "weighted"
             if weighted:
@@ -326,19 +323,21 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
             if value < 0:
                 raise fail("days only move forward", k)
             if low == "bdays":
-                if value != int(value):
+                value = _within(limits.MOVE_BDAYS, value, "bdays", fail, k)
+                if not value.is_integer():
                     raise fail("bdays needs a whole number of business days", k)
                 bdays = int(value)
             else:
-                if value > 3660:
-                    raise fail("days is limited to 3660 (ten years)", k)
-                days = value
+                days = _within(limits.MOVE_DAYS, value, "days", fail, k)
             k += 1
         else:  # rate
             if rate is not None:
                 raise fail("rate given twice", kw_at)
             sign, num, unit = _amount(amount_word, fail, k, "rate", allow=("bp", "%"))
-            rate = sign * num * (100.0 if unit == "%" else 1.0)
+            rate = _within(
+                limits.MOVE_RATE_BP, sign * num * (100.0 if unit == "%" else 1.0), "rate move",
+                fail, k,
+            )
             k += 1
     return Move(
         text=text,
@@ -380,6 +379,13 @@ def _amount(
             k,
         )
     return (-1.0 if m.group("sign") == "-" else 1.0), float(m.group("num")), unit
+
+
+def _within(bound: limits.Bound, value: float, what: str, fail: Any, k: int) -> float:
+    """``value`` when ``bound`` holds it, else the parser's error at word ``k`` naming the range."""
+    if not bound.contains(value):
+        raise fail(f"{what} must be {bound.describe(signed=what.endswith('move'))}", k)
+    return value
 
 
 def _resolve_symbol(word: str, symbols: Sequence[str] | None, fail: Any, k: int) -> str:

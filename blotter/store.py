@@ -28,7 +28,6 @@ import functools
 import getpass
 import hashlib
 import io
-import math
 import os
 import re
 import sqlite3
@@ -46,6 +45,7 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import numpy as np
 
 from blotter import calendar as cal
+from blotter import limits
 from blotter.book import MOVE_WORDS, SYMBOL_PATTERN, UNDERLYING_KINDS, Book, Underlyings
 from blotter.market import Market, RateCurve, VolSurface
 
@@ -408,21 +408,27 @@ def parse_time(value: datetime | str) -> datetime:
             ) from None
     if t.tzinfo is None:
         raise StoreError(f"time {value!s} has no time zone: add Z for UTC or an offset like -05:00")
+    _within_time(t)
     return t.astimezone(UTC)
 
 
-def parse_date(value: date | str) -> date:
-    """A date from ISO text ``YYYY-MM-DD``."""
+def parse_date(value: date | str, field: str = "date") -> date:
+    """A date from ISO text ``YYYY-MM-DD``, within ``limits`` (``field`` names it if not)."""
     if isinstance(value, datetime):
         raise StoreError(f"expected a date, got the time {value.isoformat()}")
     if isinstance(value, date):
-        return value
+        d = value
+    else:
+        try:
+            if not re.fullmatch(r"\d{4}-\d{2}-\d{2}", value.strip()):
+                raise ValueError
+            d = date.fromisoformat(value.strip())
+        except ValueError:
+            raise StoreError(f"{value!r} is not an ISO date like 2027-03-19") from None
     try:
-        if not re.fullmatch(r"\d{4}-\d{2}-\d{2}", value.strip()):
-            raise ValueError
-        return date.fromisoformat(value.strip())
-    except ValueError:
-        raise StoreError(f"{value!r} is not an ISO date like 2027-03-19") from None
+        return limits.check_date(d, field)
+    except limits.LimitError as exc:
+        raise StoreError(str(exc)) from None
 
 
 def who_am_i() -> str:
@@ -1057,6 +1063,9 @@ class Store:
         except (ZoneInfoNotFoundError, ValueError):
             raise StoreError(f"unknown time zone {time_zone!r}") from None
         _check_symbol(symbol)
+        multiplier = _within(limits.MULTIPLIER, multiplier)
+        div_yield = _within(limits.RATE, div_yield, "dividend yield")
+        beta = _within(limits.BETA, beta)
         if not SYMBOL_PATTERN.match(symbol) or symbol.lower() in MOVE_WORDS:
             raise StoreError(
                 f"symbol {symbol!r}: a letter, then letters, digits and . _ / - (no spaces), and "
@@ -1197,9 +1206,7 @@ class Store:
         opt_type, exp_text, k = terms
         am = int(u_am if american is None else bool(american))
         default = hedge_multiplier(kind, u_mult) if opt_type == "U" else u_mult
-        mult = float(default if multiplier is None else multiplier)
-        if not (math.isfinite(mult) and mult > 0):
-            raise StoreError(f"multiplier must be positive, got {multiplier!r}")
+        mult = float(default) if multiplier is None else _within(limits.MULTIPLIER, multiplier)
         cash = int(u_cash if cash_settled is None else bool(cash_settled))
         if opt_type == "U":
             row = conn.execute(
@@ -1324,6 +1331,7 @@ class Store:
 
     @staticmethod
     def _existing_contract(conn: sqlite3.Connection, contract_id: int) -> int:
+        contract_id = _check_id(contract_id, "contract id")
         if conn.execute(
             "SELECT 1 FROM contract WHERE contract_id = ?", (int(contract_id),)
         ).fetchone():
@@ -1346,6 +1354,7 @@ class Store:
 
     def cancel_trade(self, trade_id: int, reason: str) -> int:
         """Cancel a live trade (a new row naming it and why); returns the cancel's id."""
+        trade_id = _check_id(trade_id, "trade id")
         if not reason or not reason.strip():
             raise StoreError("a cancel needs a reason")
         with self._write() as conn:
@@ -1389,6 +1398,7 @@ class Store:
 
         Fields left None keep the original's value (including its trade time).
         """
+        trade_id = _check_id(trade_id, "trade id")
         if not reason or not reason.strip():
             raise StoreError("an amend needs a reason")
         now = _now()
@@ -1766,10 +1776,9 @@ class Store:
             return self._insert_marks(conn, set_id, [point])[1]
 
     def log_spot(self, symbol: str, price: float, note: str | None = None) -> int:
-        """Log a spot mark (price per unit, > 0) as its own intraday set; returns the mark id."""
-        px = _finite(price, "spot")
-        if px <= 0:
-            raise StoreError(f"spot must be positive, got {price!r}")
+        """Log a spot mark (price per unit, within ``limits.LEVEL``) as its own intraday set;
+        returns the mark id."""
+        px = _within(limits.LEVEL, price, "spot")
         return self._log_one(
             lambda c: ("spot", self._underlying(c, symbol)[0], None, None, None, None, px), note
         )
@@ -1784,7 +1793,7 @@ class Store:
     ) -> int:
         """Log an implied vol (decimal, 0 < vol <= 10) at an expiry and strike (None = ATM)."""
         v = _check_vol(vol)
-        e = parse_date(expiry).isoformat()
+        e = parse_date(expiry, "expiry").isoformat()
         k = None if strike is None else _check_strike(strike)
         return self._log_one(
             lambda c: ("vol", self._underlying(c, symbol)[0], None, e, k, None, v), note
@@ -1826,6 +1835,7 @@ class Store:
         self, conn: sqlite3.Connection, mark_set_id: int | None, as_of: datetime | None
     ) -> list[tuple[Any, ...]]:
         if mark_set_id is not None:
+            mark_set_id = _check_id(mark_set_id, "mark set id")
             if (
                 conn.execute(
                     "SELECT 1 FROM mark_set WHERE mark_set_id = ?", (int(mark_set_id),)
@@ -1990,6 +2000,8 @@ class Store:
         count as committed), read in the same transaction so no later commit can be mistaken
         for it."""
         when = marked_at or _now()
+        if isinstance(corrects, int):
+            corrects = _check_id(corrects, "the id of the close set corrected")
         with self._write() as conn:
             if corrects is not None:
                 corrects, day = self._close_to_correct(conn, corrects)
@@ -2375,57 +2387,50 @@ def _check_symbol(symbol: str) -> None:
         raise StoreError(f"symbol {symbol!r} must be 1 to 64 characters")
 
 
-def _finite(value: Any, what: str) -> float:
+def _within(bound: limits.Bound, value: Any, field: str | None = None) -> float:
+    """``value`` checked against ``bound`` (``limits``); else a ``StoreError`` naming the field."""
     try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise StoreError(f"{what} {value!r} is not a number") from None
-    if not math.isfinite(v):
-        raise StoreError(f"{what} must be a finite number, got {value!r}")
-    return v
+        return bound.check(value, field)
+    except limits.LimitError as exc:
+        raise StoreError(str(exc)) from None
+
+
+def _within_time(t: datetime, field: str = "time") -> None:
+    try:
+        limits.check_time(t, field)
+    except limits.LimitError as exc:
+        raise StoreError(str(exc)) from None
+
+
+def _check_id(value: Any, field: str) -> int:
+    """A row id as an exact int of SQLite's 64-bit range; a ``StoreError`` naming ``field``."""
+    try:
+        return limits.ID.check_whole(value, field)
+    except limits.LimitError as exc:
+        raise StoreError(str(exc)) from None
 
 
 def _check_quantity(quantity: Any) -> int:
-    q = _finite(quantity, "quantity")
-    if q != int(q):
-        raise StoreError(
-            f"quantity must be a whole number of contracts or shares, got {quantity!r}"
-        )
+    q = _within(limits.QUANTITY, quantity)
     if q == 0:
         raise StoreError("quantity must not be zero")
-    if abs(q) >= 2**53:
-        raise StoreError(f"quantity {quantity!r} is too large")
     return int(q)
 
 
 def _check_price(price: Any) -> float:
-    px = _finite(price, "price")
-    if px < 0:
-        raise StoreError(f"price must not be negative, got {price!r}")
-    if px >= 1e12:
-        raise StoreError(f"price {price!r} is too large")
-    return px
+    return _within(limits.PRICE, price)
 
 
 def _check_strike(strike: Any) -> float:
-    k = _finite(strike, "strike")
-    if k <= 0:
-        raise StoreError(f"strike must be positive, got {strike!r}")
-    return round(k, 8)
+    return round(_within(limits.LEVEL, strike, "strike"), 8)
 
 
 def _check_vol(vol: Any) -> float:
-    v = _finite(vol, "vol")
-    if not 0 < v <= 10:
-        raise StoreError(f"vol must be a decimal above 0 and at most 10 (0.25 = 25%), got {vol!r}")
-    return v
+    return _within(limits.VOL, vol)
 
 
 def _check_decimal(value: Any, what: str) -> float:
-    v = _finite(value, what)
-    if not -1 <= v <= 1:
-        raise StoreError(f"{what} must be a decimal between -1 and 1 (0.04 = 4%), got {value!r}")
-    return v
+    return _within(limits.RATE, value, what)
 
 
 def _check_currency(currency: Any) -> str:
@@ -2435,12 +2440,7 @@ def _check_currency(currency: Any) -> str:
 
 
 def _check_tenor(tenor_days: Any) -> int:
-    d = _finite(tenor_days, "tenor")
-    if d != int(d) or not 1 <= d <= 36500:
-        raise StoreError(
-            f"tenor must be a whole number of days from 1 to 36500, got {tenor_days!r}"
-        )
-    return int(d)
+    return int(_within(limits.TENOR, tenor_days))
 
 
 def _check_source(source: str) -> None:
@@ -2461,7 +2461,11 @@ def _contract_terms(
             "an option needs an expiry, a strike and call or put "
             "(leave all three out for the underlying itself)"
         )
-    return ("C" if is_call else "P"), parse_date(expiry).isoformat(), _check_strike(strike)
+    return (
+        ("C" if is_call else "P"),
+        parse_date(expiry, "expiry").isoformat(),
+        _check_strike(strike),
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -2578,9 +2582,9 @@ def _parse_trade_row(
     if typ in ("C", "P"):
         is_call = typ == "C"
         try:
-            expiry = parse_date(expiry_text).isoformat()
-        except StoreError:
-            bad("expiry", f"{expiry_text!r} is not an ISO date like 2027-03-19")
+            expiry = parse_date(expiry_text, "expiry").isoformat()
+        except StoreError as exc:
+            bad("expiry", str(exc))
         try:
             strike = _check_strike(strike_text)
         except StoreError as exc:
@@ -2621,9 +2625,7 @@ def _parse_trade_row(
     mult = None
     if mult_text:
         try:
-            mult = _finite(mult_text, "multiplier")
-            if mult <= 0:
-                bad("multiplier", f"must be positive, got {mult_text!r}")
+            mult = _within(limits.MULTIPLIER, mult_text)
         except StoreError as exc:
             bad("multiplier", str(exc))
     settlement = _cell(rec, "settlement").lower()
@@ -2688,9 +2690,9 @@ def _parse_mark_row(
     currency = None
     if kind == "vol":
         try:
-            expiry = parse_date(expiry_text).isoformat()
-        except StoreError:
-            bad("expiry", f"{expiry_text!r} is not an ISO date like 2027-03-19")
+            expiry = parse_date(expiry_text, "expiry").isoformat()
+        except StoreError as exc:
+            bad("expiry", str(exc))
         if strike_text:
             try:
                 strike = _check_strike(strike_text)
@@ -2712,9 +2714,7 @@ def _parse_mark_row(
     value = None
     try:
         if kind == "spot":
-            value = _finite(value_text, "spot")
-            if value <= 0 or value >= 1e12:
-                bad("value", f"spot must be a positive price, got {value_text!r}")
+            value = _within(limits.LEVEL, value_text, "spot")
         elif kind == "vol":
             value = _check_vol(value_text)
         else:

@@ -89,6 +89,19 @@ def read_only_requested() -> bool:
     return bool(group and group.read_only)
 
 
+def check_option(bound: Any, value: Any, option: str, signed: bool = False) -> float:
+    """``value`` of ``option`` inside ``bound`` (a ``blotter.limits.Bound``), as a float.
+
+    Out of range, or not a number, is a usage error naming the option and the range.
+    """
+    from blotter import limits
+
+    try:
+        return float(bound.check(value, option.lstrip("-").replace("-", " "), signed=signed))
+    except limits.LimitError as exc:
+        raise click.BadParameter(str(exc), param_hint=option) from None
+
+
 def output_options(func: F) -> F:
     """Add ``--json`` and ``--csv`` (mutually exclusive) to a command that prints rows."""
     func = click.option("--csv", "as_csv", is_flag=True, help="Print CSV for scripts.")(func)

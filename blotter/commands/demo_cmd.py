@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import click
 
+from blotter.limits import DEMO_POSITIONS
+
 
 @click.command()
 @click.option(
@@ -16,7 +18,7 @@ import click
 )
 @click.option(
     "--positions",
-    type=click.IntRange(min=0),
+    type=click.IntRange(min=0, max=int(DEMO_POSITIONS.high)),
     default=None,
     help="Option positions (default 150, the shipped demo); e.g. 100000 for benchmarks.",
 )

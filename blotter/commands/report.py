@@ -14,7 +14,9 @@ from typing import TYPE_CHECKING, Any
 
 import click
 
+from blotter import limits
 from blotter.commands.common import (
+    check_option,
     check_output_flags,
     db_option,
     open_for_reading,
@@ -794,8 +796,10 @@ def ladder(
     check_output_flags(as_json, as_csv)
     sp = _float_list(spot_list, DEFAULT_SPOT_PCTS, "--spot")
     vp = _float_list(vol_list, DEFAULT_VOL_PTS, "--vol")
-    if any(x <= -100 for x in sp):
-        raise click.BadParameter("a spot move must be above -100%", param_hint="--spot")
+    for x in sp:
+        check_option(limits.MOVE_SPOT_PCT, x, "--spot", signed=True)
+    for x in vp:
+        check_option(limits.MOVE_VOL_PTS, x, "--vol", signed=True)
     store = _open(db_path)
     v = _value(store, at)
     lads = run_ladders(v, sp, vp, days=days, rule=f"sticky {rule}")

@@ -12,8 +12,10 @@ import re
 
 import click
 
+from blotter import limits
 from blotter.book import UNDERLYING_KINDS
 from blotter.commands.common import (
+    check_option,
     check_output_flags,
     db_option,
     output_options,
@@ -142,13 +144,10 @@ def underlying_add(
         raise click.BadParameter(
             f"{currency!r}: three capital letters, e.g. USD", param_hint="--currency"
         )
-    if not multiplier > 0:
-        raise click.BadParameter(f"{multiplier:g}: must be above 0", param_hint="--multiplier")
+    check_option(limits.MULTIPLIER, multiplier, "--multiplier")
     q = parse_decimal_or_percent(div_yield, "dividend yield")
-    if not -1.0 <= q <= 1.0:
-        raise click.BadParameter(f"{div_yield!r}: between -100% and 100%", param_hint="--div-yield")
-    if not -20.0 <= beta <= 20.0:
-        raise click.BadParameter(f"{beta:g}: between -20 and 20", param_hint="--beta")
+    check_option(limits.RATE, q, "--div-yield")
+    check_option(limits.BETA, beta, "--beta")
     if not _CUTOFF.match(cutoff):
         raise click.BadParameter(f"{cutoff!r}: HH:MM, e.g. 16:00", param_hint="--cutoff")
     try:

@@ -34,6 +34,16 @@ def _pool() -> ThreadPoolExecutor:
         return _POOL
 
 
+def _forget_pool_in_child() -> None:
+    """Drop the parent's pool and lock in a forked child, whose copy has no worker threads."""
+    global _POOL, _POOL_LOCK
+    _POOL = None
+    _POOL_LOCK = threading.Lock()
+
+
+os.register_at_fork(after_in_child=_forget_pool_in_child)
+
+
 Kernel = Callable[[Sequence[np.ndarray], Sequence[np.ndarray]], None]
 """A kernel reads chunk inputs (length-m arrays or 0-d scalars) and fills length-m outputs."""
 

@@ -21,6 +21,7 @@ from textual.app import App, ComposeResult
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
+from textual.message import Message
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
@@ -36,6 +37,7 @@ from blotter.ui.messages import (
     MoveFailed,
     ProfileReady,
     StoreChanged,
+    WorkerResult,
 )
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.header_line import HeaderLine
@@ -153,6 +155,20 @@ class BlotterApp(App[None]):
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
+
+    def is_exiting(self) -> bool:
+        """True from the moment the app is asked to exit, by any path, until it is gone."""
+        return not self.is_running or self.return_code is not None or self._stop_watch.is_set()
+
+    async def _on_message(self, message: Message) -> None:
+        """Deliver ``message`` unless it is a worker's result arriving while the app exits.
+
+        Textual's one dispatch point for messages, so a late result of any kind is dropped here
+        rather than in each handler; while the app exits its panes are being unmounted.
+        """
+        if isinstance(message, WorkerResult) and self.is_exiting():
+            return
+        await super()._on_message(message)
 
     def on_resize(self, event: Resize) -> None:
         small = event.size.width < MIN_WIDTH or event.size.height < MIN_HEIGHT
@@ -565,7 +581,7 @@ class BlotterApp(App[None]):
             self.post_message(LadderReady(state.book_seq, days, grids, book_alert, row_alerts))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
-        if message.book_seq == self.book_seq and not self._blotter_closing():
+        if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
             self.query_one(LadderPane).show(message.ladder, message.days, partial)
             self.ladder_alerts = [message.book_alert] if message.book_alert else []
@@ -618,12 +634,8 @@ class BlotterApp(App[None]):
             self.post_message(ProfileReady(state.book_seq, profile))
 
     def on_profile_ready(self, message: ProfileReady) -> None:
-        if message.book_seq == self.book_seq and not self._blotter_closing():
+        if message.book_seq == self.book_seq:
             self.query_one(ProfilePane).show(message.profile)
-
-    def _blotter_closing(self) -> bool:
-        """True while the app is closing: a late worker's message finds no widgets then."""
-        return self._stop_watch.is_set()
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:

@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from blotter import calendar as cal
-from blotter import risk
+from blotter import limits, risk
 from blotter.book import Book
 from blotter.ui import fmt
 
@@ -732,9 +732,10 @@ def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
         raise ValueError("type a number")
     if t[0] in "$pP" and point.kind == "vol":
         try:
-            return "price", float(t[1:].strip())
+            price = float(t[1:].strip())
         except ValueError:
             raise ValueError(f"{t[1:]!r} is not a price") from None
+        return "price", limits.PRICE.check(price)
     try:
         x = float(t.rstrip("%"))
     except ValueError:
@@ -912,12 +913,12 @@ def parse_terms(symbol: str, expiry: str, strike: str, call_put: str) -> Contrac
         day = date.fromisoformat(expiry.strip())
     except ValueError:
         raise ValueError(f"expiry: {expiry.strip()!r} is not an ISO date (2027-03-19)") from None
+    limits.check_date(day, "expiry")
     try:
         k = float(strike.replace(",", ""))
     except ValueError:
         raise ValueError(f"strike: {strike.strip()!r} is not a number") from None
-    if not (k > 0 and math.isfinite(k)):
-        raise ValueError("strike: must be positive")
+    limits.LEVEL.check(k, "strike")
     cp = call_put.strip().upper()[:1]
     if cp not in ("C", "P"):
         raise ValueError("call/put: type C or P")

@@ -1,6 +1,7 @@
 """Messages the app's thread workers post back; each keeps only the newest of its kind in the queue.
 
-Workers never touch widgets or reactives: they compute, then post one of these to the app.
+Workers never touch widgets or reactives: they compute, then post one of these to the app. All
+are ``WorkerResult``s, which the app drops once it has begun to exit (its panes may be gone).
 """
 
 from __future__ import annotations
@@ -14,8 +15,15 @@ if TYPE_CHECKING:
     from blotter.ui.data import BookState, ProfileData
 
 
+class WorkerResult(Message):
+    """A thread worker's result for the app or a screen, dropped if it arrives as they close.
+
+    The app drops it from the moment it is asked to exit; a popped screen refuses new messages.
+    """
+
+
 @dataclass
-class BookLoaded(Message):
+class BookLoaded(WorkerResult):
     """The book, marks and base valuation, read and computed in a worker."""
 
     state: BookState
@@ -25,7 +33,7 @@ class BookLoaded(Message):
 
 
 @dataclass
-class LoadProgress(Message):
+class LoadProgress(WorkerResult):
     """The load finished step ``step`` of ``app.LOAD_STEPS`` (1-based count of steps done)."""
 
     step: int
@@ -35,14 +43,14 @@ class LoadProgress(Message):
 
 
 @dataclass
-class LoadFailed(Message):
+class LoadFailed(WorkerResult):
     """Reading or valuing the book failed; ``reason`` is for people."""
 
     reason: str
 
 
 @dataclass(repr=False)
-class MoveApplied(Message):
+class MoveApplied(WorkerResult):
     """The result of the bar's move; ``seq`` counts the bar's edits, ``book_seq`` the loads."""
 
     seq: int
@@ -60,7 +68,7 @@ class MoveApplied(Message):
 
 
 @dataclass
-class MoveFailed(Message):
+class MoveFailed(WorkerResult):
     """Applying a parsed move failed in the worker (a move that parses but cannot be applied)."""
 
     seq: int
@@ -68,7 +76,7 @@ class MoveFailed(Message):
 
 
 @dataclass(repr=False)
-class LadderReady(Message):
+class LadderReady(WorkerResult):
     """The spot × vol ladders for the bar's day roll, one per currency of the book."""
 
     book_seq: int
@@ -85,7 +93,7 @@ class LadderReady(Message):
 
 
 @dataclass
-class ProfileReady(Message):
+class ProfileReady(WorkerResult):
     """Curves for the Profile pane."""
 
     book_seq: int
@@ -96,7 +104,7 @@ class ProfileReady(Message):
 
 
 @dataclass(repr=False)
-class Done(Message):
+class Done(WorkerResult):
     """A screen's worker finished: ``ok`` with words for people, ``payload`` what it produced."""
 
     what: str
@@ -109,7 +117,7 @@ class Done(Message):
 
 
 @dataclass
-class StoreChanged(Message):
+class StoreChanged(WorkerResult):
     """Another process committed to the book file; ``data_version`` is SQLite's counter."""
 
     data_version: int

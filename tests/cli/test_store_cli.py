@@ -91,7 +91,7 @@ def test_errors_exit_non_zero_with_a_message_and_change_nothing(demo_db: Path) -
             "needs an expiry, a strike and call or put",
         ),
         (("trade", "cancel", "99999", "--reason", "x"), "no trade 99999"),
-        (("mark", "spot", "DEMOA", "0"), "positive"),
+        (("mark", "spot", "DEMOA", "0"), "spot must be from 1e-06"),
         (("mark", "close", "--corrects", "2"), "not a close set"),
     ]:
         r = run(*args, "--db", db, code=1)

@@ -98,9 +98,9 @@ def test_bad_trades_are_refused_with_a_clear_message(store: Store) -> None:
     cases = [
         (dict(quantity=0), "must not be zero"),
         (dict(quantity=1.5), "whole number"),
-        (dict(price=-1.0), "must not be negative"),
+        (dict(price=-1.0), "price must be from 0 to below 1e"),
         (dict(price=float("nan")), "finite"),
-        (dict(strike=-5.0), "strike must be positive"),
+        (dict(strike=-5.0), "strike must be from 1e-06"),
         (dict(expiry="2030-02-30"), "not an ISO date"),
         (dict(symbol="NOPE"), "unknown underlying"),
         (dict(is_call=None), "needs an expiry, a strike and call or put"),
@@ -182,14 +182,14 @@ def test_correction_keeps_history_and_as_of_rebuilds_past_marks(store: Store) ->
 
 def test_bad_marks_are_refused(store: Store) -> None:
     for call, message in [
-        (lambda: store.log_spot("TSTA", 0.0), "positive"),
+        (lambda: store.log_spot("TSTA", 0.0), "spot must be from 1e-06"),
         (lambda: store.log_spot("NOPE", 1.0), "unknown underlying"),
         (lambda: store.log_vol("TSTA", "2030-06-21", 0.0), "above 0"),
         (lambda: store.log_vol("TSTA", "2030-06-21", 12.0), "at most 10"),
         (lambda: store.log_vol("TSTA", "21/06/2030", 0.2), "ISO date"),
         (lambda: store.log_rate("usd", 30, 0.04), "ISO 4217"),
         (lambda: store.log_rate("USD", 0, 0.04), "tenor"),
-        (lambda: store.log_rate("USD", 30, 4.0), "between -1 and 1"),
+        (lambda: store.log_rate("USD", 30, 4.0), "rate must be from -1 to 1"),
         (lambda: store.commit_close(), "no marks"),
     ]:
         with pytest.raises(StoreError, match=message):

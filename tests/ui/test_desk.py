@@ -94,7 +94,7 @@ async def test_a_refused_value_keeps_what_was_typed(demo_db: Path) -> None:
         screen = await open_marks(app, pilot)
         await pilot.press("enter", *"-5", "enter")
         await settle(app, pilot)
-        assert "refused" in message(app) and "spot must be positive" in message(app)
+        assert "refused" in message(app) and "spot must be from 1e-06" in message(app)
         box = screen.query_one("#marks-edit")
         assert box.value == "-5" and app.focused is box  # type: ignore[attr-defined]
         await pilot.press("backspace", "backspace", *"abc", "enter")

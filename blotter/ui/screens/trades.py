@@ -21,6 +21,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.worker import get_current_worker
 
+from blotter import limits
 from blotter.ui import data
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
@@ -418,11 +419,13 @@ class TradeForm(ModalScreen[None]):
                 raise ValueError(f"quantity: {qty_text!r} is not a whole number") from None
             if qty == 0:
                 raise ValueError("quantity: must not be zero (+ buys, - sells)")
+            limits.QUANTITY.check(qty)
             price_text = self.value("price").replace(",", "").strip()
             try:
                 price = float(price_text)
             except ValueError:
                 raise ValueError(f"price: {price_text!r} is not a number") from None
+            limits.PRICE.check(price)
             if self.kind == "amend":
                 reason = self.value("reason").strip()
                 if not reason:

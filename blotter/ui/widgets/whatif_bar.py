@@ -5,6 +5,7 @@ from __future__ import annotations
 from typing import ClassVar
 
 from rich.text import Text
+from textual import events
 from textual.app import ComposeResult
 from textual.binding import BindingType
 from textual.containers import Horizontal
@@ -30,6 +31,24 @@ class MoveInput(Input):
         self.cursor_blink = False  # a blinking cursor is a timer; idle means none
         self.history: list[str] = []
         self._recall: int | None = None
+
+    async def on_key(self, event: events.Key) -> None:
+        """Run a key bound on the bar itself (editing, Enter, history) now, in order with typing.
+
+        Textual types a printable key where it lands but runs a bound key only once the key has
+        bubbled up to the app, so in a burst the text after an edit key would overtake it
+        (Textualize/textual#6605); a key bound elsewhere still bubbles as usual.
+        """
+        if event.is_printable:
+            return
+        active = self.screen.active_bindings.get(event.key)
+        if active is None or active.node is not self or active.binding.priority:
+            return
+        if not active.enabled:
+            return
+        event.stop()
+        event.prevent_default()
+        await self.app.run_action(active.binding.action, self)
 
     def remember(self, text: str) -> None:
         """Put a move that parsed at the end of the history (no repeats back to back)."""
