@@ -2000,8 +2000,6 @@ class Store:
         count as committed), read in the same transaction so no later commit can be mistaken
         for it."""
         when = marked_at or _now()
-        if isinstance(corrects, int):
-            corrects = _check_id(corrects, "the id of the close set corrected")
         with self._write() as conn:
             if corrects is not None:
                 corrects, day = self._close_to_correct(conn, corrects)
@@ -2101,13 +2099,10 @@ class Store:
             raise StoreError(
                 f"{ref!r} names no close: give a close set id or a business date like 2026-12-03"
             ) from None
-        row = (
-            conn.execute(
-                "SELECT kind, business_date FROM mark_set WHERE mark_set_id = ?", (set_id,)
-            ).fetchone()
-            if 0 < set_id < 2**63
-            else None
-        )
+        set_id = _check_id(set_id, "the id of the close set corrected")
+        row = conn.execute(
+            "SELECT kind, business_date FROM mark_set WHERE mark_set_id = ?", (set_id,)
+        ).fetchone()
         if row is None or row[0] != "close":
             raise StoreError(f"mark set {set_id} is not a close set")
         done = conn.execute(

@@ -130,7 +130,7 @@ def test_a_date_closes_once_and_a_correction_names_its_close(store: Store) -> No
         store.commit_close(corrects="2001-01-02")
     with pytest.raises(StoreError, match="names no close"):
         store.commit_close(corrects="yesterday")
-    with pytest.raises(StoreError, match="not a close set"):
+    with pytest.raises(StoreError, match="must be from 1 to 9,223,372,036,854,775,807"):
         store.commit_close(corrects=2**70)
     assert store.todays_close() == (day, store.mark_sets("close")[-1].id)
 
