@@ -27,10 +27,6 @@ from blotter.commands.common import (
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow
 
-TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
-"""Taylor term keys of ``blotter whatif --json`` (``explain --json`` adds ``carry``)."""
-EXPLAIN_KEYS = (*TERM_KEYS, "carry")
-"""Explain's terms: the what-if's and ``carry`` (a dividend yield or foreign rate change)."""
 
 RULE_NOTES = {
     "sticky strike": "vols sticky strike: each option keeps the vol of its strike and expiry",
@@ -439,7 +435,7 @@ def whatif(
     db_path: str | None, move: tuple[str, ...], at: str | None, as_json: bool, as_csv: bool
 ) -> None:
     from blotter import calendar as cal
-    from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
+    from blotter.scenario import TERM_NAMES, MoveError, MoveSyntaxError, apply_move, parse_move
 
     check_output_flags(as_json, as_csv)
     text = " ".join(move)
@@ -483,7 +479,7 @@ def whatif(
             "error_2",
             "error_1_pct",
             "error_2_pct",
-            *TERM_KEYS,
+            *TERM_NAMES,
             "through_expiry",
         ]
         rows = [
@@ -496,7 +492,7 @@ def whatif(
                 r.error_2,
                 r.error_1_pct,
                 r.error_2_pct,
-                *(r.terms[t] for t in TERM_KEYS),
+                *(r.terms[t] for t in TERM_NAMES),
                 r.n_through_expiry,
             ]
             for r in [*res.by_underlying, res.total]
@@ -513,9 +509,10 @@ def whatif(
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in TERM_KEYS)] for r in [*res.by_underlying, res.total]
+        [r.label, *(_money(r.terms[t]) for t in TERM_NAMES)]
+        for r in [*res.by_underlying, res.total]
     ]
-    print_table(["estimate terms", *TERM_KEYS], terms, right=[False] + [True] * len(TERM_KEYS))
+    print_table(["estimate terms", *TERM_NAMES], terms, right=[False] + [True] * len(TERM_NAMES))
     if res.expiring:
         ex = [
             [
@@ -729,6 +726,7 @@ def explain(
     against trade price). When late bookings or corrections changed the held book, a line shows
     how much of actual they account for ("corrections"). Money in the book's currency.
     """
+    from blotter.scenario import EXPLAIN_TERMS
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
 
@@ -763,7 +761,7 @@ def explain(
     cols = [
         "underlying",
         "actual",
-        *EXPLAIN_KEYS,
+        *EXPLAIN_TERMS,
         "explained",
         "unexplained",
         "new_trades",
@@ -774,7 +772,7 @@ def explain(
         [
             r.label,
             r.actual,
-            *(r.terms[t] for t in EXPLAIN_KEYS),
+            *(r.terms[t] for t in EXPLAIN_TERMS),
             r.explained,
             r.unexplained,
             r.new_trades,
@@ -813,11 +811,11 @@ def explain(
     )
     click.echo("")
     terms = [
-        [r.label, *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
+        [r.label, *(_money(r.terms[t]) for t in EXPLAIN_TERMS)]
         for r in [*ex.by_underlying, ex.total]
     ]
     print_table(
-        ["explained by", *EXPLAIN_KEYS], terms, right=[False] + [True] * len(EXPLAIN_KEYS)
+        ["explained by", *EXPLAIN_TERMS], terms, right=[False] + [True] * len(EXPLAIN_TERMS)
     )
     if ex.late_trades or ex.corrected_trades:
         click.echo("")
