@@ -72,8 +72,9 @@ class VolSurface:
         Across expiries the surface is linear in total variance σ²T at equal strike (sticky strike:
         a strike keeps its vol whatever spot does). A slice's T is the option's own T moved by the
         calendar days between the two expiry dates, so an option on a slice's date gets that
-        slice's vol exactly. Slices dated before ``today`` are ignored; before the first live slice
-        or after the last, the vol is flat (the end slice's vol at the strike).
+        slice's vol exactly. Slices dated before ``today`` (the first date whose slice is live)
+        are ignored; before the first live slice or after the last, the vol is flat (the end
+        slice's vol at the strike).
         """
         expiry_days = np.asarray(expiry_days, dtype="datetime64[D]")
         years = np.asarray(years, dtype=np.float64)
@@ -179,23 +180,38 @@ class Market:
             raise KeyError(f"no rate curve for {currency!r}") from None
 
     def vols_for(
-        self, symbol: str, expiries: np.ndarray, strikes: np.ndarray, valuation_time: np.datetime64
+        self,
+        symbol: str,
+        expiries: np.ndarray,
+        strikes: np.ndarray,
+        valuation_time: np.datetime64,
+        *,
+        expiry_dates: np.ndarray,
     ) -> np.ndarray:
-        """Vols (n,) of ``symbol``'s options expiring at UTC instants ``expiries``, at ``strikes``.
+        """Vols (n,) of ``symbol``'s options with cut-offs at UTC instants ``expiries`` and expiry
+        dates ``expiry_dates`` (the exchange's own dates, which the marks are keyed by).
 
         Interpolation is ``VolSurface.vols_at``: total variance across expiries at equal strike,
-        linear in strike within an expiry, flat beyond the ends. KeyError when there is no surface.
+        linear in strike within an expiry, flat beyond the ends. A slice counts while its cut-off
+        is ahead; that is read off the options themselves (an option's date less its time to
+        expiry is the valuation instant on the exchange's clock less the cut-off time of day, the
+        same for every option of one underlying). KeyError when there is no surface.
         """
         try:
             surface = self.surfaces[symbol]
         except KeyError:
             raise KeyError(f"no vol surface for {symbol!r}") from None
         exp = np.asarray(expiries, dtype="datetime64[s]")
+        dates = np.asarray(expiry_dates, dtype="datetime64[D]")
+        if dates.shape != exp.shape:
+            raise ValueError("expiry_dates must match expiries")
+        if exp.size == 0:
+            return np.zeros(0)
         t = np.asarray(valuation_time, dtype="datetime64[s]")
         years = (exp - t).astype(np.float64) / SECONDS_PER_YEAR
-        return surface.vols_at(
-            exp.astype("datetime64[D]"), years, strikes, t.astype("datetime64[D]")
-        )
+        days_left = years * (SECONDS_PER_YEAR / 86400.0)
+        first_live = int(np.floor(np.max(dates.astype(np.int64) - days_left))) + 1
+        return surface.vols_at(dates, years, strikes, np.datetime64(first_live, "D"))
 
     def shocked(
         self,

@@ -784,10 +784,11 @@ def prepare(valuation: BookValuation) -> _Prep:
 
 
 def roll_time(valuation: BookValuation, move: Move) -> np.datetime64:
-    """The valuation instant after the move's day roll (calendar days or business days)."""
+    """The valuation instant after the move's day roll (calendar days, or business days at the
+    same clock time in the desk's zone the valuation was made for)."""
     t = valuation.valuation_time
     if move.bdays:
-        return cal.roll_business_days(t, move.bdays, prepare(valuation).calendar)
+        return cal.roll_business_days(t, move.bdays, prepare(valuation).calendar, valuation.tz)
     if move.days:
         return cal.roll_calendar_days(t, move.days)
     return t
@@ -873,11 +874,14 @@ def _smile_vols(v: BookValuation, p: _Prep, spots_after_u: np.ndarray) -> np.nda
     s0 = v.underlying_spots
     symbols = v.book.underlyings.symbols
     expiries = v.book.expiries[p.live_idx]
+    dates = v.book.expiry_dates[p.live_idx]
     for j in np.flatnonzero(p.present & (spots_after_u != s0)):
         rows = np.flatnonzero(p.uidx_l == j)
         if rows.size:
             scaled = p.strike[rows] * (s0[j] / spots_after_u[j])
-            out[rows] = v.market.vols_for(symbols[j], expiries[rows], scaled, v.valuation_time)
+            out[rows] = v.market.vols_for(
+                symbols[j], expiries[rows], scaled, v.valuation_time, expiry_dates=dates[rows]
+            )
     return out
 
 

@@ -14,8 +14,10 @@ from typing import TYPE_CHECKING, Any
 import click
 
 from blotter.commands.common import (
+    DESK_ZONE_HELP,
     check_output_flags,
     db_option,
+    desk_zone,
     open_for_reading,
     output_options,
     print_csv,
@@ -65,7 +67,8 @@ def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
         "at",
         default=None,
         metavar="TIME",
-        help="Valuation time, ISO-8601 (desk-local unless it has an offset). Default: now.",
+        help=f"Valuation time, ISO-8601; without an offset, local time in {DESK_ZONE_HELP}. "
+        "Default: now.",
     )(func)
 
 
@@ -81,8 +84,9 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     from blotter import calendar as cal
     from blotter.risk import value_book
 
+    tz = desk_zone()
     try:
-        t = cal.valuation_time(at)
+        t = cal.valuation_time(at, tz)
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--at") from exc
     from blotter.store import StoreError
@@ -90,7 +94,7 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     try:
         book = store.load_book()
         market = store.load_market()
-        valuation = value_book(book, market, t, vega_unit=vega_unit)
+        valuation = value_book(book, market, t, vega_unit=vega_unit, tz=tz)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     _warn_stale(valuation)

@@ -16,8 +16,10 @@ from typing import Any
 import click
 
 from blotter.commands.common import (
+    DESK_ZONE_HELP,
     check_output_flags,
     db_option,
+    desk_zone,
     open_for_reading,
     output_options,
     print_csv,
@@ -49,13 +51,14 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
         store.close()
 
 
-TIME_HELP = "ISO-8601; with Z or an offset, else desk-local time ($BLOTTER_TZ, default New York)"
+TIME_HELP = f"ISO-8601; with Z or an offset, else local time in {DESK_ZONE_HELP}"
 """How every time option of these commands is read (as ``risk --at`` reads it)."""
 
 
 def _time_option(value: str | None) -> datetime | None:
     """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
-    one as desk-local time through ``blotter.calendar.to_instant`` (to the second)."""
+    one as local time in the desk's zone (``desk_zone``) through ``calendar.to_instant`` (to the
+    second)."""
     from blotter.calendar import to_datetime, to_instant
     from blotter.store import StoreError, parse_time
 
@@ -67,7 +70,7 @@ def _time_option(value: str | None) -> datetime | None:
         zoneless = False  # not ISO-8601: parse_time says so below
     try:
         if zoneless:
-            return to_datetime(to_instant(value))
+            return to_datetime(to_instant(value, desk_zone()))
         return parse_time(value)
     except (StoreError, ValueError) as exc:
         raise click.BadParameter(str(exc)) from None

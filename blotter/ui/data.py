@@ -75,11 +75,6 @@ def position_label(book: Any, i: int) -> str:
     return f"{book.strikes[i]:g} {'C' if book.is_call[i] else 'P'} {qty}"
 
 
-def expiry_text(expiry: np.datetime64, tz: Any) -> str:
-    """An expiry instant as the desk-local ISO date."""
-    return cal.to_datetime(expiry, tz).date().isoformat()
-
-
 class BookTree:
     """The Book pane's rows for one valuation; children are worked out when a row is expanded."""
 
@@ -94,23 +89,8 @@ class BookTree:
         self.tz = tz
         self._alert = alert or (lambda row: "")
         self._sums = {k: np.asarray(getattr(valuation, k)) for k in SUM_FIELDS}
-        n = len(self.book)
-        # Expiry day per position as desk-local dates (NaT for hedges), for sub-grouping.
-        if n:
-            local = np.array(
-                [
-                    cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT")
-                    for e in np.unique(self.book.expiries)
-                ],
-                dtype="datetime64[D]",
-            )
-            uniq, inverse = np.unique(self.book.expiries, return_inverse=True)
-            mapping = dict(zip(uniq.tolist(), local.tolist(), strict=True))
-            self.expiry_days = np.array([mapping[u] for u in uniq.tolist()], dtype="datetime64[D]")[
-                inverse.reshape(-1)
-            ]
-        else:
-            self.expiry_days = np.zeros(0, dtype="datetime64[D]")
+        # Expiry day per position as traded (NaT for hedges), for sub-grouping.
+        self.expiry_days = self.book.expiry_dates
         self._total = risk.total(valuation)
         self._by_underlying = risk.aggregate(valuation, by="underlying")
         self._by_bucket = risk.aggregate(valuation, by="expiry")
@@ -377,7 +357,7 @@ def profile(
     v = valuation
     if rows is not None:
         v = risk.value_book(
-            valuation.book.take(rows), valuation.market, valuation.valuation_time
+            valuation.book.take(rows), valuation.market, valuation.valuation_time, tz=valuation.tz
         )
     t0 = v.valuation_time
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
@@ -407,7 +387,7 @@ def profile(
                         else v.market
                     )
                     values.append(
-                        getattr(risk.total(risk.value_book(v.book, market, t)), field_name)
+                        getattr(risk.total(risk.value_book(v.book, market, t, tz=v.tz)), field_name)
                     )
                 series[name] = tuple(float(x) for x in values)
     else:
@@ -432,7 +412,9 @@ def profile(
                 float(
                     getattr(
                         risk.total(
-                            risk.value_book(v.book, v.market, cal.roll_calendar_days(t0, float(d)))
+                            risk.value_book(
+                                v.book, v.market, cal.roll_calendar_days(t0, float(d)), tz=v.tz
+                            )
                         ),
                         field_name,
                     )
@@ -539,7 +521,7 @@ class MarksView:
     data_version: int
 
 
-def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
+def marks_view(st: Any, book: Book | None) -> MarksView:
     """Mark points in force beside the last close, plus points the book needs but nobody marked.
 
     ``st`` is a ``store.Store``; ``book`` (the live book) says which spots and expiries are
@@ -582,9 +564,8 @@ def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
                 )
             rows = np.flatnonzero((book.underlying_idx == j) & book.is_option)
             marked = {p.expiry for p in points.values() if p.kind == "vol" and p.symbol == sym}
-            for e in np.unique(book.expiries[rows]):
-                day = cal.local_date(e, tz)
-                d = day.astype(object) if hasattr(day, "astype") else day
+            for day in np.unique(book.expiry_dates[rows]):
+                d = day.astype(object)
                 if d not in marked:
                     k = _point_key("vol", sym, None, d, None, None)
                     points[k] = MarkPoint(
@@ -662,7 +643,7 @@ def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
 
 
 def solve_vol(
-    valuation: risk.BookValuation, point: MarkPoint, price: float, tz: Any
+    valuation: risk.BookValuation, point: MarkPoint, price: float
 ) -> tuple[float | None, str, bool]:
     """Implied vol of ``price`` for the point's option, via ``engine.implied_vol``.
 
@@ -683,7 +664,7 @@ def solve_vol(
     rows = [
         int(i)
         for i in candidates
-        if cal.local_date(book.expiries[i], tz).astype(object) == point.expiry
+        if book.expiry_dates[i].astype(object) == point.expiry
     ]
     if not rows:
         return None, "no live position at this expiry to take time, rate and carry from", True
@@ -777,6 +758,7 @@ def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
         multipliers=np.array([c.multiplier for c in cs], dtype=np.float64),
         quantities=np.array([t.quantity for t in trials], dtype=np.float64),
         cash_settled=np.array([bool(c.cash_settled) for c in cs], dtype=bool),
+        expiry_dates=np.array([c.expiry or "NaT" for c in cs], dtype="datetime64[D]"),
     )
     return live.with_trials(rows)
 

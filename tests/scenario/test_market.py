@@ -24,7 +24,7 @@ SURF = VolSurface(
 def _vols(expiry: str, strikes: list[float]) -> np.ndarray:
     m = make_market(surfaces={"STK": SURF})
     exp = np.array([f"{expiry}T21:00:00"] * len(strikes), dtype="datetime64[s]")
-    return m.vols_for("STK", exp, np.array(strikes), T0)
+    return m.vols_for("STK", exp, np.array(strikes), T0, expiry_dates=exp.astype("datetime64[D]"))
 
 
 def test_on_a_slice_date_the_slice_is_used_exactly_linear_in_strike() -> None:
@@ -54,7 +54,10 @@ def test_expired_slices_are_ignored() -> None:
     m = make_market(surfaces={"STK": SURF})
     later = np.datetime64("2027-01-04T20:00:00", "s")  # after the December slice
     exp = np.array(["2027-02-19T21:00:00"], dtype="datetime64[s]")
-    assert m.vols_for("STK", exp, np.array([110.0]), later)[0] == pytest.approx(0.23)
+    dates = exp.astype("datetime64[D]")
+    assert m.vols_for("STK", exp, np.array([110.0]), later, expiry_dates=dates)[0] == pytest.approx(
+        0.23
+    )
 
 
 def test_atm_only_slice_is_flat_across_strikes() -> None:
@@ -63,12 +66,16 @@ def test_atm_only_slice_is_flat_across_strikes() -> None:
     )
     m = make_market(surfaces={"STK": s})
     exp = np.array(["2027-01-15T21:00:00"] * 2, dtype="datetime64[s]")
-    assert m.vols_for("STK", exp, np.array([50.0, 500.0]), T0) == pytest.approx([0.19, 0.19])
+    dates = exp.astype("datetime64[D]")
+    assert m.vols_for(
+        "STK", exp, np.array([50.0, 500.0]), T0, expiry_dates=dates
+    ) == pytest.approx([0.19, 0.19])
 
 
 def test_missing_surface_is_named() -> None:
     with pytest.raises(KeyError, match="NOPE"):
-        make_market().vols_for("NOPE", np.array([T0]), np.array([1.0]), T0)
+        day = np.array([T0], "datetime64[D]")
+        make_market().vols_for("NOPE", np.array([T0]), np.array([1.0]), T0, expiry_dates=day)
 
 
 def test_rate_curve_linear_in_tenor_and_flat_beyond() -> None:

@@ -14,6 +14,7 @@ from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
+from blotter.config import DESK_TZ_SOURCES
 from blotter.ui.keys import KEYS, app_bindings, key_label
 
 UNITS: tuple[tuple[str, str], ...] = (
@@ -37,6 +38,7 @@ UNITS: tuple[tuple[str, str], ...] = (
     ("error", "full − estimate, in currency; err % = error as a share of |full|"),
     ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
     ("Ladder", "spot shocks in %, vol shocks in points, cells in the book's currency"),
+    ("times", f"in the desk's time zone ({DESK_TZ_SOURCES}); expiries: the exchange's dates"),
 )
 """Column headers and symbols with what they mean, as the help screen lists them."""
 
