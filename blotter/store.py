@@ -1819,6 +1819,7 @@ class Store:
                 expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
                 strikes=np.array([p[1] for p in pts], dtype=np.float64),
                 vols=np.array([p[2] for p in pts], dtype=np.float64),
+                atm_strike=spots.get(sym, np.nan),
             )
         curves = {
             ccy: RateCurve(

@@ -421,7 +421,12 @@ def mark_spot(
 @click.argument("symbol")
 @click.argument("expiry")
 @click.argument("vol")
-@click.option("--strike", type=float, help="Strike of the point; leave out for the ATM vol.")
+@click.option(
+    "--strike",
+    type=float,
+    help="Strike of the point; leave out for the ATM vol: the vol at the strike equal to the "
+    "spot among the expiry's strike vols, or of every strike when it has none.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_vol(

@@ -502,6 +502,8 @@ class MarkPoint:
         """What a typed number means in this cell."""
         if self.kind == "spot":
             return "price in the underlying's currency"
+        if self.kind == "vol" and self.strike is None:
+            return "vol in % at the strike = spot, or $price to solve it"
         if self.kind == "vol":
             return "vol in % (24.5 = 24.5%), or $price of the option to solve its vol"
         return "% (4.1 = 4.1%)"

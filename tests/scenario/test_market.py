@@ -101,3 +101,22 @@ def test_shocked_market_is_a_new_object_and_the_old_one_is_unchanged() -> None:
     assert m.shocked(vol_pts=-50).surfaces["STK"].vols.min() == VOL_FLOOR
     with pytest.raises(ValueError, match="STK"):
         m.shocked(spot_abs={"STK": -200.0})
+
+
+def test_an_atm_point_beside_strike_points_sits_at_the_atm_strike() -> None:
+    """The ATM vol (NaN strike) of a slice with strike points is the point at ``atm_strike``;
+    the rule is ours (README, "mark vol"), the values worked by hand from it."""
+    s = VolSurface(
+        np.array(["2027-01-15"] * 3, dtype="datetime64[D]"),
+        np.array([90.0, np.nan, 110.0]),
+        np.array([0.30, 0.20, 0.24]),
+        atm_strike=105.0,
+    )
+    day = np.datetime64("2027-01-15", "D")
+    assert s.slice_vols(day, np.array([90.0, 97.5, 105.0, 107.5, 200.0])) == pytest.approx(
+        [0.30, 0.25, 0.20, 0.22, 0.24]
+    )
+    m = make_market(surfaces={"STK": s})
+    assert m.shocked(spot_pct={"STK": -10.0}, vol_pts=1.0).surfaces["STK"].atm_strike == 105.0
+    with pytest.raises(ValueError, match="ATM vol of 2027-01-15 has no spot"):
+        VolSurface(s.expiries, s.strikes, s.vols).slice_vols(day, np.array([100.0]))
