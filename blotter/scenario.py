@@ -1595,6 +1595,7 @@ _BOOK_ROW_FIELDS = (
     "quantities",
     "cash_settled",
     "is_trial",
+    "expiry_dates",
 )
 
 
