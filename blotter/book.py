@@ -8,8 +8,11 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
+from zoneinfo import ZoneInfo
 
 import numpy as np
+
+from blotter.calendar import DEFAULT_EXCHANGE_TZ, local_dates
 
 UNDERLYING_KINDS = ("stock", "index", "future", "fx")
 """Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
@@ -72,8 +75,10 @@ class Underlyings:
 class Book:
     """Net positions, row i = contract i. Hedges (stock or futures) have ``is_option`` False.
 
-    ``expiries`` are the cut-off instants as UTC ``datetime64[s]`` (NaT for hedges); ``strikes`` are
-    NaN for hedges. Quantities are signed contract counts (shares for a stock hedge).
+    ``expiries`` are the cut-off instants as UTC ``datetime64[s]`` (NaT for hedges) and
+    ``expiry_dates`` the contracts' expiry dates in their exchange's time zone (the date the vol
+    marks are keyed by); ``strikes`` are NaN for hedges. Quantities are signed contract counts
+    (shares for a stock hedge).
     """
 
     name: str
@@ -91,6 +96,9 @@ class Book:
     quantities: np.ndarray            # float64 (n,), signed net quantity
     cash_settled: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
     is_trial: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    expiry_dates: np.ndarray = field(
+        default_factory=lambda: np.zeros(0, dtype="datetime64[D]")
+    )  # datetime64[D] (n,); not given: each cut-off's date in DEFAULT_EXCHANGE_TZ
 
     def __post_init__(self) -> None:
         n = len(self.contract_ids)
@@ -112,6 +120,12 @@ class Book:
             if arr.shape != (n,):
                 raise ValueError(f"Book.{name} has shape {arr.shape}, expected ({n},)")
             object.__setattr__(self, name, read_only(arr))
+        dates = np.asarray(self.expiry_dates, dtype="datetime64[D]")
+        if dates.shape == (0,) and n:
+            dates = local_dates(self.expiries, ZoneInfo(DEFAULT_EXCHANGE_TZ))
+        if dates.shape != (n,):
+            raise ValueError(f"Book.expiry_dates has shape {dates.shape}, expected ({n},)")
+        object.__setattr__(self, "expiry_dates", read_only(dates))
         if len(self.labels) != n:
             raise ValueError(f"Book.labels has {len(self.labels)} entries, expected {n}")
         idx = self.underlying_idx
@@ -138,6 +152,7 @@ class Book:
             quantities=self.quantities[idx],
             cash_settled=self.cash_settled[idx],
             is_trial=self.is_trial[idx],
+            expiry_dates=self.expiry_dates[idx],
         )
 
     def with_trials(self, trials: Book) -> Book:
@@ -159,4 +174,5 @@ class Book:
             quantities=cat([self.quantities, trials.quantities]),
             cash_settled=cat([self.cash_settled, trials.cash_settled]),
             is_trial=cat([self.is_trial, np.ones(len(trials), dtype=bool)]),
+            expiry_dates=cat([self.expiry_dates, trials.expiry_dates]),
         )

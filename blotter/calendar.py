@@ -1,14 +1,15 @@
 """Valuation time, expiry cut-offs, ACT/365F year fractions, business days and the day roll.
 
 Instants are UTC ``numpy.datetime64[s]`` values (the store's expiries are the same); dates in the
-desk's time zone decide business days. Business days come from NumPy's busday functions with the
-exchange holidays of the ``holidays`` package (``holidays.financial_holidays("NYSE")`` and the
-other exchange calendars it ships), so there is no hand-written holiday table here.
+desk's time zone decide business days. The desk's zone is a setting (``blotter.config``): callers
+pass it in as ``tz``; nothing here reads the environment. Business days come from NumPy's busday
+functions with the exchange holidays of the ``holidays`` package
+(``holidays.financial_holidays("NYSE")`` and the other exchange calendars it ships), so there is
+no hand-written holiday table here.
 """
 
 from __future__ import annotations
 
-import os
 from datetime import UTC, date, datetime, time, timedelta
 from functools import lru_cache
 from typing import cast
@@ -19,13 +20,16 @@ import numpy as np
 from blotter import limits
 
 DEFAULT_DESK_TZ = "America/New_York"
-"""Desk time zone when neither ``$BLOTTER_TZ`` nor an argument names one."""
+"""Desk time zone when the caller passes none (the default of the ``desk_tz`` setting)."""
 
 DEFAULT_CALENDAR = "NYSE"
 """Exchange holiday calendar used when an underlying names none."""
 
 DEFAULT_CUTOFF = time(16, 0)
 """Default expiry cut-off, local exchange time (US equity options stop trading at 16:00 ET)."""
+
+DEFAULT_EXCHANGE_TZ = "America/New_York"
+"""Zone of an exchange's cut-off when none is named (an underlying's default ``--zone``)."""
 
 SECONDS_PER_YEAR = 365.0 * 86400.0
 """ACT/365F: a year is 365 days of 86 400 s, whatever the calendar year holds."""
@@ -35,12 +39,13 @@ _HOLIDAY_YEARS = range(1990, 2101)
 
 
 def desk_tz(name: str | None = None) -> ZoneInfo:
-    """The desk's time zone: ``name``, else ``$BLOTTER_TZ``, else New York."""
-    return ZoneInfo(name or os.environ.get("BLOTTER_TZ") or DEFAULT_DESK_TZ)
+    """The zone ``name`` (the resolved ``desk_tz`` setting), else ``DEFAULT_DESK_TZ``."""
+    return ZoneInfo(name or DEFAULT_DESK_TZ)
 
 
-def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
-    """One UTC instant as ``datetime64[s]``; naive datetimes and strings are desk-local time.
+def to_instant(t: datetime | np.datetime64 | str, tz: ZoneInfo | None = None) -> np.datetime64:
+    """One UTC instant as ``datetime64[s]``; naive datetimes and strings are local time in
+    ``tz`` (the desk's zone; ``desk_tz()`` when None).
 
     Strings are ISO-8601 (``2026-12-01T15:30``, ``2026-12-01``, or with an offset / ``Z``).
     A time outside ``limits`` (1900 to 2200) is a ``ValueError`` saying so.
@@ -59,7 +64,7 @@ def to_instant(t: datetime | np.datetime64 | str) -> np.datetime64:
         t = datetime.combine(t, time(0, 0))
     limits.check_time(t)
     if t.tzinfo is None:
-        t = t.replace(tzinfo=desk_tz())
+        t = t.replace(tzinfo=tz or desk_tz())
     utc = t.astimezone(UTC).replace(tzinfo=None)
     return np.datetime64(utc, "s")
 
@@ -81,9 +86,12 @@ def now() -> np.datetime64:
     return to_instant(datetime.now(UTC))
 
 
-def valuation_time(t: datetime | np.datetime64 | str | None = None) -> np.datetime64:
-    """The valuation instant: ``t`` read as in ``to_instant``, or now when None."""
-    return now() if t is None else to_instant(t)
+def valuation_time(
+    t: datetime | np.datetime64 | str | None = None, tz: ZoneInfo | None = None
+) -> np.datetime64:
+    """The valuation instant: ``t`` read as in ``to_instant`` (naive in ``tz``), or now when
+    None."""
+    return now() if t is None else to_instant(t, tz)
 
 
 def year_fraction(t0: np.datetime64 | np.ndarray, t1: np.datetime64 | np.ndarray) -> np.ndarray:
@@ -99,8 +107,20 @@ def year_fraction(t0: np.datetime64 | np.ndarray, t1: np.datetime64 | np.ndarray
 
 
 def local_date(t: np.datetime64, tz: ZoneInfo | None = None) -> np.datetime64:
-    """The calendar date (``datetime64[D]``) of instant ``t`` in the desk's time zone."""
+    """The calendar date (``datetime64[D]``) of instant ``t`` in ``tz`` (``desk_tz()`` if None)."""
     return np.datetime64(to_datetime(t, tz or desk_tz()).date(), "D")
+
+
+def local_dates(instants: np.ndarray, tz: ZoneInfo) -> np.ndarray:
+    """The calendar dates (``datetime64[D]``, shape of ``instants``) of UTC instants in ``tz``;
+    NaT stays NaT."""
+    flat = np.asarray(instants, dtype="datetime64[s]").reshape(-1)
+    uniq, inverse = np.unique(flat, return_inverse=True)
+    days = np.array(
+        [np.datetime64("NaT", "D") if np.isnat(u) else local_date(u, tz) for u in uniq],
+        dtype="datetime64[D]",
+    )
+    return days[inverse.reshape(-1)].reshape(np.shape(instants))
 
 
 @lru_cache(maxsize=32)
@@ -153,7 +173,8 @@ def roll_calendar_days(t: np.datetime64, days: float) -> np.datetime64:
 def roll_business_days(
     t: np.datetime64, n: int, calendar: str = DEFAULT_CALENDAR, tz: ZoneInfo | None = None
 ) -> np.datetime64:
-    """The instant at the same desk-local time of day ``n`` trading days after ``t``.
+    """The instant at the same local time of day in ``tz`` (the desk's zone) ``n`` trading days
+    after ``t``.
 
     A Friday afternoon rolled one business day lands on Monday afternoon (three calendar days);
     the local clock time is kept across a daylight-saving change.

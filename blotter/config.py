@@ -78,6 +78,12 @@ class Settings:
         return ZoneInfo(self.desk_tz)
 
 
+DESK_TZ_SOURCES = (
+    "desk_tz in the settings file, $BLOTTER_TZ or $BLOTTER_DESK_TZ over it, "
+    "default America/New_York"
+)
+"""Where the desk's time zone comes from, in words for help texts (``load_settings`` reads it)."""
+
 ENV_PREFIX = "BLOTTER_"
 """Variables ``BLOTTER_<FIELD>`` set top-level settings; ``BLOTTER_ALERT_<FIELD>`` alerts;
 ``BLOTTER_KEYS="help=f1,question_mark;quit=q"`` the keymap."""

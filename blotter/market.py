@@ -23,12 +23,15 @@ class VolSurface:
     """Implied-vol points of one underlying: row j is (expiry j, strike j, vol j).
 
     ``expiries`` are dates (``datetime64[D]``); a NaN strike marks an at-the-money vol for that
-    expiry, used flat across strikes when the expiry has no strike points. Vols are decimals.
+    expiry: alone, it is the vol at every strike; beside strike points, it is the point at
+    ``atm_strike`` (the spot of the same marks, fixed when the surface is built, so it stays put
+    under a what-if spot move like every strike point). Vols are decimals.
     """
 
     expiries: np.ndarray  # datetime64[D] (m,)
     strikes: np.ndarray  # float64 (m,), NaN = ATM vol for the expiry
     vols: np.ndarray  # float64 (m,), annualised decimal
+    atm_strike: float = float("nan")  # where an ATM point sits among strike points
 
     def __post_init__(self) -> None:
         object.__setattr__(
@@ -36,6 +39,7 @@ class VolSurface:
         )
         object.__setattr__(self, "strikes", read_only(np.asarray(self.strikes, dtype=np.float64)))
         object.__setattr__(self, "vols", read_only(np.asarray(self.vols, dtype=np.float64)))
+        object.__setattr__(self, "atm_strike", float(self.atm_strike))
         m = self.expiries.shape
         if self.strikes.shape != m or self.vols.shape != m:
             raise ValueError("VolSurface arrays must have the same length")
@@ -49,16 +53,25 @@ class VolSurface:
     def slice_vols(self, slice_date: np.datetime64, strikes: np.ndarray) -> np.ndarray:
         """Vols of one expiry slice at ``strikes`` (n,): linear in strike, flat beyond the ends.
 
-        A slice with no strike points uses its ATM (NaN-strike) vol at every strike.
+        A slice with no strike points uses its ATM (NaN-strike) vol at every strike; beside
+        strike points the ATM vol is the point at ``atm_strike``, averaged with a strike point
+        marked at that very strike. ValueError when an ATM point has no ``atm_strike`` to sit at.
         """
         strikes = np.asarray(strikes, dtype=np.float64)
         rows = self.expiries == slice_date
         ks, vs = self.strikes[rows], self.vols[rows]
-        has_k = np.isfinite(ks)
-        if has_k.any():
-            order = np.argsort(ks[has_k], kind="stable")
-            return np.asarray(np.interp(strikes, ks[has_k][order], vs[has_k][order]))
-        return np.full(strikes.shape, float(vs.mean()))
+        atm = np.isnan(ks)
+        if atm.all():
+            return np.full(strikes.shape, float(vs.mean()))
+        if atm.any():
+            if not np.isfinite(self.atm_strike):
+                raise ValueError(
+                    f"the ATM vol of {slice_date} has no spot to sit at among its strike vols"
+                )
+            ks = np.where(atm, self.atm_strike, ks)
+        points, where = np.unique(ks, return_inverse=True)
+        vols = np.bincount(where, weights=vs) / np.bincount(where)
+        return np.asarray(np.interp(strikes, points, vols))
 
     def vols_at(
         self,
@@ -72,8 +85,9 @@ class VolSurface:
         Across expiries the surface is linear in total variance σ²T at equal strike (sticky strike:
         a strike keeps its vol whatever spot does). A slice's T is the option's own T moved by the
         calendar days between the two expiry dates, so an option on a slice's date gets that
-        slice's vol exactly. Slices dated before ``today`` are ignored; before the first live slice
-        or after the last, the vol is flat (the end slice's vol at the strike).
+        slice's vol exactly. Slices dated before ``today`` (the first date whose slice is live)
+        are ignored; before the first live slice or after the last, the vol is flat (the end
+        slice's vol at the strike).
         """
         expiry_days = np.asarray(expiry_days, dtype="datetime64[D]")
         years = np.asarray(years, dtype=np.float64)
@@ -179,23 +193,38 @@ class Market:
             raise KeyError(f"no rate curve for {currency!r}") from None
 
     def vols_for(
-        self, symbol: str, expiries: np.ndarray, strikes: np.ndarray, valuation_time: np.datetime64
+        self,
+        symbol: str,
+        expiries: np.ndarray,
+        strikes: np.ndarray,
+        valuation_time: np.datetime64,
+        *,
+        expiry_dates: np.ndarray,
     ) -> np.ndarray:
-        """Vols (n,) of ``symbol``'s options expiring at UTC instants ``expiries``, at ``strikes``.
+        """Vols (n,) of ``symbol``'s options with cut-offs at UTC instants ``expiries`` and expiry
+        dates ``expiry_dates`` (the exchange's own dates, which the marks are keyed by).
 
         Interpolation is ``VolSurface.vols_at``: total variance across expiries at equal strike,
-        linear in strike within an expiry, flat beyond the ends. KeyError when there is no surface.
+        linear in strike within an expiry, flat beyond the ends. A slice counts while its cut-off
+        is ahead; that is read off the options themselves (an option's date less its time to
+        expiry is the valuation instant on the exchange's clock less the cut-off time of day, the
+        same for every option of one underlying). KeyError when there is no surface.
         """
         try:
             surface = self.surfaces[symbol]
         except KeyError:
             raise KeyError(f"no vol surface for {symbol!r}") from None
         exp = np.asarray(expiries, dtype="datetime64[s]")
+        dates = np.asarray(expiry_dates, dtype="datetime64[D]")
+        if dates.shape != exp.shape:
+            raise ValueError("expiry_dates must match expiries")
+        if exp.size == 0:
+            return np.zeros(0)
         t = np.asarray(valuation_time, dtype="datetime64[s]")
         years = (exp - t).astype(np.float64) / SECONDS_PER_YEAR
-        return surface.vols_at(
-            exp.astype("datetime64[D]"), years, strikes, t.astype("datetime64[D]")
-        )
+        days_left = years * (SECONDS_PER_YEAR / 86400.0)
+        first_live = int(np.floor(np.max(dates.astype(np.int64) - days_left))) + 1
+        return surface.vols_at(dates, years, strikes, np.datetime64(first_live, "D"))
 
     def shocked(
         self,
@@ -223,10 +252,11 @@ class Market:
         surfaces = self.surfaces
         if vol_pts or vol_rel_pct:
             surfaces = {
-                sym: VolSurface(
-                    sf.expiries,
-                    sf.strikes,
-                    np.maximum(sf.vols * (1.0 + vol_rel_pct / 100.0) + vol_pts / 100.0, VOL_FLOOR),
+                sym: replace(
+                    sf,
+                    vols=np.maximum(
+                        sf.vols * (1.0 + vol_rel_pct / 100.0) + vol_pts / 100.0, VOL_FLOOR
+                    ),
                 )
                 for sym, sf in self.surfaces.items()
             }

@@ -27,6 +27,7 @@ from dataclasses import dataclass, field, replace
 from datetime import date
 from functools import cached_property
 from typing import Any, Literal
+from zoneinfo import ZoneInfo
 
 import numpy as np
 
@@ -84,6 +85,10 @@ VEGA_UNITS = {"pt": 1.0, "vol": 100.0}
 """Vega display units: per vol point (0.01 of vol), or per 1.00 of vol."""
 
 Grouping = Literal["underlying", "expiry", "position"]
+
+EPOCH_ORDINAL = date(1970, 1, 1).toordinal()
+"""Proleptic ordinal of day 0 of ``datetime64[D]``."""
+
 
 MARK_COMMANDS = {
     "spot": "blotter mark spot {name} PRICE",
@@ -266,6 +271,7 @@ class BookValuation:
     vega_unit: str = "pt"
     notes: tuple[str, ...] = field(default=())
     unvalued: tuple[UnvaluedPosition, ...] = field(default=())
+    tz: ZoneInfo = field(default_factory=cal.desk_tz)  # the desk's zone: buckets, day rolls
 
     def __len__(self) -> int:
         return len(self.book)
@@ -398,16 +404,19 @@ def expiry_buckets(
     expiries: np.ndarray,
     is_option: np.ndarray,
     valuation_time: np.datetime64,
-    tz: object | None = None,
+    tz: ZoneInfo | None = None,
+    expiry_dates: np.ndarray | None = None,
 ) -> tuple[np.ndarray, tuple[str, ...]]:
     """Expiry bucket of each position: codes (n,) into ordered labels.
 
-    Buckets, by the expiry's desk-local date: "expired", "this week" (to the coming Sunday),
-    "this month" (rest of the calendar month), then each of the next 12 months ("2027-01"), then
-    each later calendar year ("2028"), and "hedges" for stock and futures positions.
+    Buckets, by the expiry date as traded (``expiry_dates``; else the cut-off's date in ``tz``)
+    against today in the desk's zone ``tz``: "expired" (cut-off instant passed), "this week" (to
+    the coming Sunday), "this month" (rest of the calendar month), then each of the next 12
+    months ("2027-01"), then each later calendar year ("2028"), and "hedges" for stock and
+    futures positions.
     """
     zone = tz if tz is not None else cal.desk_tz()
-    today = cal.to_datetime(valuation_time, zone).date()  # type: ignore[arg-type]
+    today = cal.to_datetime(valuation_time, zone).date()
     week_end = today.toordinal() + (6 - today.weekday())
     month0 = today.year * 12 + today.month - 1
 
@@ -426,15 +435,21 @@ def expiry_buckets(
         return (4, d.year), f"{d.year:04d}"
 
     names: dict[tuple[int, int], str] = {}
-    uniq, inverse = np.unique(
-        np.where(is_option, expiries, np.datetime64("NaT", "s")), return_inverse=True
-    )
+    days = cal.local_dates(expiries, zone) if expiry_dates is None else expiry_dates
+    # One int64 key per (cut-off, expiry date): the date is the cut-off's UTC date ± 1 day.
+    at = np.asarray(expiries, "datetime64[s]").astype(np.int64)
+    shift = np.asarray(days, "datetime64[D]").astype(np.int64) - np.floor_divide(at, 86400) + 1
+    hedge = np.iinfo(np.int64).min  # one key for every hedge (NaT never equals NaT)
+    uniq, inverse = np.unique(np.where(is_option, at * 4 + shift, hedge), return_inverse=True)
+    now_s = int(np.asarray(valuation_time, "datetime64[s]").astype(np.int64))
     per_unique: list[tuple[int, int]] = []
-    for e in uniq:
-        if np.isnat(e):
+    for key in uniq.tolist():
+        if key == hedge:
             k, name = key_of(None, False)
         else:
-            k, name = key_of(cal.to_datetime(e, zone).date(), bool(e <= valuation_time))  # type: ignore[arg-type]
+            at_s = key // 4
+            day = at_s // 86400 + key % 4 - 1
+            k, name = key_of(date.fromordinal(EPOCH_ORDINAL + day), at_s <= now_s)
         names[k] = name
         per_unique.append(k)
     keys = sorted(set(per_unique))
@@ -452,12 +467,15 @@ def value_book(
     *,
     vega_unit: str = "pt",
     t_ref_days: float = DEFAULT_T_REF_DAYS,
+    tz: ZoneInfo | None = None,
 ) -> BookValuation:
     """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
 
-    Returns per-position arrays (n,) in desk units (see the module docstring). Positions whose
-    underlying lacks a mark they need (``missing_marks``) are left out and listed in ``unvalued``,
-    so one unmarked name never blanks the rest of the book.
+    Returns per-position arrays (n,) in desk units (see the module docstring); ``tz`` is the
+    desk's zone (the ``desk_tz`` setting; ``calendar.desk_tz()`` when None), kept for expiry
+    buckets and day rolls. Positions whose underlying lacks a mark they need
+    (``missing_marks``) are left out and listed in ``unvalued``, so one unmarked name never
+    blanks the rest of the book.
     """
     if vega_unit not in VEGA_UNITS:
         raise ValueError(f"vega_unit must be one of {', '.join(VEGA_UNITS)}, not {vega_unit!r}")
@@ -465,6 +483,7 @@ def value_book(
     unvalued, valued = missing_marks(book, market, t)
     if unvalued:
         book = book.take(np.flatnonzero(valued))
+    zone = tz if tz is not None else cal.desk_tz()
     und = book.underlyings
     n = len(book)
     uidx = book.underlying_idx
@@ -485,7 +504,13 @@ def value_book(
     for i, rows in enumerate(groups):
         rows = rows[opt[rows]]
         if rows.size and und.symbols[i] in market.surfaces:  # else expired only: no vol needed
-            vol[rows] = market.vols_for(und.symbols[i], book.expiries[rows], book.strikes[rows], t)
+            vol[rows] = market.vols_for(
+                und.symbols[i],
+                book.expiries[rows],
+                book.strikes[rows],
+                t,
+                expiry_dates=book.expiry_dates[rows],
+            )
 
     g = {
         name: np.zeros(n)
@@ -552,7 +577,7 @@ def value_book(
         "beta_delta_cash": delta_shares * spot * beta,
         "weighted_vega_pt": vega_pt * weight,
     }
-    codes, labels = expiry_buckets(book.expiries, opt, t)
+    codes, labels = expiry_buckets(book.expiries, opt, t, zone, book.expiry_dates)
     notes: list[str] = []
     if expired.any():
         notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
@@ -581,6 +606,7 @@ def value_book(
         vega_unit=vega_unit,
         notes=tuple(notes),
         unvalued=unvalued,
+        tz=zone,
     )
 
 

@@ -34,7 +34,7 @@ from __future__ import annotations
 
 import re
 import weakref
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import Any
@@ -60,8 +60,11 @@ EXPLAIN_TERMS = TERM_NAMES + ("carry",)
 """Explain's terms: the what-if's, and ``carry`` for a change of the cost of carry b that the rate
 does not account for (a dividend yield mark, a foreign rate)."""
 
-FIRST_ORDER = ("delta", "vega", "theta", "rho")
-"""Terms of the first-order estimate; the second order adds gamma, volga and vanna."""
+FIRST_ORDER = ("delta", "vega", "theta", "rho", "carry")
+"""Terms of the first-order estimate (``carry`` in explain only)."""
+
+SECOND_ORDER = ("gamma", "volga", "vanna")
+"""Terms the second-order estimate adds to the first order."""
 
 PIN_BAND_PCT = 1.0
 """An expiring option whose moved spot is within this % of its strike is flagged as pin risk."""
@@ -399,6 +402,107 @@ def _resolve_symbol(word: str, symbols: Sequence[str] | None, fail: Any, k: int)
 
 
 # ---------------------------------------------------------------------------------------------
+# The Taylor estimate
+
+
+@dataclass(frozen=True, eq=False)
+class Sensitivities:
+    """Greeks × units of positions or groups, any shapes that broadcast with the moves.
+
+    Currency per unit of each move: ``delta`` per 1 of spot, ``gamma`` per (1 of spot)²,
+    ``vega`` per 1.00 of vol, ``volga`` per (1.00 of vol)², ``vanna`` per (1 of spot × 1.00 of
+    vol), ``theta`` per year, ``rho`` per 1.00 of rate (desk rho: with the carry where it moves
+    with the rate), ``carry`` per 1.00 of carry b beyond the rate's share (engine carry rho).
+    """
+
+    delta: np.ndarray
+    gamma: np.ndarray
+    vega: np.ndarray
+    volga: np.ndarray
+    vanna: np.ndarray
+    theta: np.ndarray
+    rho: np.ndarray
+    carry: np.ndarray
+
+    @classmethod
+    def of(cls, valuation: BookValuation) -> Sensitivities:
+        """Per-position sensitivities (n,) of a valuation: its raw greeks × units."""
+        g, u = valuation.greeks, valuation.units
+        return cls(
+            delta=g.delta * u,
+            gamma=g.gamma * u,
+            vega=g.vega * u,
+            volga=g.volga * u,
+            vanna=g.vanna * u,
+            theta=g.theta * u,
+            rho=valuation.rho_unit * u,
+            carry=g.carry_rho * u,
+        )
+
+    def take(self, rows: np.ndarray | slice) -> Sensitivities:
+        """The rows ``rows`` of every field."""
+        return Sensitivities(**{k: v[rows] for k, v in self.__dict__.items()})
+
+    def per_group(self, codes: np.ndarray, n_groups: int) -> Sensitivities:
+        """Each field summed per group code 0..n_groups-1, shape (n_groups,)."""
+        fields = self.__dict__.items()
+        return Sensitivities(
+            **{k: np.bincount(codes, weights=v, minlength=n_groups) for k, v in fields}
+        )
+
+
+def moved_vols(vols: np.ndarray, dvol: np.ndarray | float) -> np.ndarray:
+    """Vols after the change ``dvol`` (decimal), floored at ``VOL_FLOOR`` (or at the vol itself
+    when it is marked lower); broadcast shapes.
+
+    The what-if and the ladder both reprice on these vols and give the Taylor estimate the
+    change they make, so a floored vol counts in both the same way.
+    """
+    return np.asarray(np.maximum(vols + dvol, np.minimum(vols, VOL_FLOOR)))
+
+
+def taylor_terms(
+    sens: Sensitivities,
+    ds: np.ndarray | float,
+    dvol: np.ndarray | float,
+    dt: float,
+    dr: np.ndarray | float,
+    dcarry: np.ndarray | float | None = None,
+) -> dict[str, np.ndarray]:
+    """The Taylor estimate term by term (currency), in ``TERM_NAMES`` order plus ``carry`` when
+    ``dcarry`` is given; each term has the broadcast shape of its inputs.
+
+    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt, ρ·dr and carry ρ·db: ``ds`` spot
+    change (currency), ``dvol`` the vol change the full revaluation applied (after
+    ``moved_vols``), ``dt`` years, ``dr`` rate change, ``dcarry`` the change of carry b beyond
+    the rate's share (all decimal). Being linear in ``sens``, it applies to per-position
+    sensitivities and to sums over positions that share the same moves alike.
+    """
+    terms = {
+        "delta": sens.delta * ds,
+        "gamma": 0.5 * sens.gamma * ds * ds,
+        "vega": sens.vega * dvol,
+        "volga": 0.5 * sens.volga * dvol * dvol,
+        "vanna": sens.vanna * ds * dvol,
+        "theta": sens.theta * dt,
+        "rho": sens.rho * dr,
+    }
+    if dcarry is not None:
+        terms["carry"] = sens.carry * dcarry
+    return {k: np.asarray(v) for k, v in terms.items()}
+
+
+def first_order(terms: Mapping[str, Any]) -> Any:
+    """The first-order estimate: the sum of the ``FIRST_ORDER`` terms present in ``terms``."""
+    return sum((terms[k] for k in FIRST_ORDER if k in terms), 0.0)
+
+
+def second_order(terms: Mapping[str, Any]) -> Any:
+    """The second-order estimate: the first order plus the ``SECOND_ORDER`` terms."""
+    return first_order(terms) + sum((terms[k] for k in SECOND_ORDER), 0.0)
+
+
+# ---------------------------------------------------------------------------------------------
 # Applying a move
 
 
@@ -550,28 +654,17 @@ class MoveResult:
         """The Taylor estimate term by term per position (n,), currency."""
         p = prepare(self.valuation)
         ds = self.spot_move_u[p.uidx]
-        dv = self.dvol
-        return {
-            "delta": p.delta_u * ds,
-            "gamma": 0.5 * p.gamma_u * ds * ds,
-            "vega": p.vega_u * dv,
-            "volga": 0.5 * p.volga_u * dv * dv,
-            "vanna": p.vanna_u * ds * dv,
-            "theta": p.theta_u * self.roll_years,
-            "rho": p.rho_u * self.rate_move,
-        }
+        return taylor_terms(p.sens, ds, self.dvol, self.roll_years, self.rate_move)
 
     @cached_property
     def estimate_1(self) -> np.ndarray:
         """First-order estimate per position (n,): delta + vega + theta + rho terms."""
-        t = self.terms
-        return np.asarray(t["delta"] + t["vega"] + t["theta"] + t["rho"])
+        return np.asarray(first_order(self.terms))
 
     @cached_property
     def estimate_2(self) -> np.ndarray:
         """Second-order estimate per position (n,): first order + gamma + volga + vanna terms."""
-        t = self.terms
-        return np.asarray(self.estimate_1 + t["gamma"] + t["volga"] + t["vanna"])
+        return np.asarray(second_order(self.terms))
 
 
 class MoveError(ValueError):
@@ -590,8 +683,7 @@ def _row(
     underlying: str | None = None,
     currency: str | None = None,
 ) -> MoveRow:
-    e1 = terms["delta"] + terms["vega"] + terms["theta"] + terms["rho"]
-    e2 = e1 + terms["gamma"] + terms["volga"] + terms["vanna"]
+    e1, e2 = float(first_order(terms)), float(second_order(terms))
     return MoveRow(
         label=label,
         full=full,
@@ -642,8 +734,8 @@ def _currency_rows(
 class _Prep:
     """Everything of a base valuation that no move changes, kept for the hot paths.
 
-    Arrays named ``*_l`` and the unsuffixed live arrays hold the m live options only; ``*_u``
-    arrays of length n hold raw greeks × units per position; ``sum_*`` are per underlying (n_u,).
+    Arrays named ``*_l`` and the unsuffixed live arrays hold the m live options only; ``sens``
+    holds raw greeks × units per position (n,), ``sens_u`` their sums per underlying (n_u,).
     """
 
     live_idx: np.ndarray  # int64 (m,) option rows with years > 0
@@ -665,17 +757,12 @@ class _Prep:
     dead_idx: np.ndarray
     hedge_idx: np.ndarray
     units: np.ndarray  # (n,)
-    delta_u: np.ndarray  # raw greeks × units (n,)
-    gamma_u: np.ndarray
-    vega_u: np.ndarray
-    volga_u: np.ndarray
-    vanna_u: np.ndarray
-    theta_u: np.ndarray
-    rho_u: np.ndarray
+    sens: Sensitivities  # raw greeks × units (n,)
+    sens_u: Sensitivities  # the same summed per underlying (n_u,)
+    vol0: np.ndarray  # (n,) the valuation's vol, 0 for hedges and options past expiry
     uidx: np.ndarray
     n_u: int
     present: np.ndarray  # bool (n_u,): underlying has positions
-    sums: dict[str, np.ndarray]  # per-underlying greek sums for the Taylor rows
     calendar: str
 
 
@@ -711,37 +798,8 @@ def prepare(valuation: BookValuation) -> _Prep:
     # The valuation's per-unit prices are the engine's at these same inputs: no second pricing.
     base = np.ascontiguousarray(take(g.price), dtype=np.float64)
     uidx = book.underlying_idx
-    arrays = {
-        "delta": g.delta * units,
-        "gamma": g.gamma * units,
-        "vega": g.vega * units,
-        "volga": g.volga * units,
-        "vanna": g.vanna * units,
-        "theta": g.theta * units,
-        "rho": v.rho_unit * units,
-    }
-    sig = np.nan_to_num(v.vol)
+    sens = Sensitivities.of(v)
     w = v.vega_weight
-
-    def per_u(a: np.ndarray) -> np.ndarray:
-        return np.bincount(uidx, weights=a, minlength=n_u)
-
-    sums = {
-        "delta": per_u(arrays["delta"]),
-        "gamma": per_u(arrays["gamma"]),
-        "theta": per_u(arrays["theta"]),
-        "rho": per_u(arrays["rho"]),
-        "vega": per_u(arrays["vega"]),
-        "vega_s": per_u(arrays["vega"] * sig),
-        "vega_w": per_u(arrays["vega"] * w),
-        "volga": per_u(arrays["volga"]),
-        "volga_s": per_u(arrays["volga"] * sig * sig),
-        "volga_w": per_u(arrays["volga"] * w * w),
-        "vanna": per_u(arrays["vanna"]),
-        "vanna_s": per_u(arrays["vanna"] * sig),
-        "vanna_w": per_u(arrays["vanna"] * w),
-        "hedge_units": per_u(np.where(book.is_option, 0.0, units)),
-    }
     prep = _Prep(
         live_idx=live_idx,
         all_live=all_live,
@@ -762,17 +820,12 @@ def prepare(valuation: BookValuation) -> _Prep:
         dead_idx=np.flatnonzero(book.is_option & ~v.live),
         hedge_idx=np.flatnonzero(~book.is_option),
         units=units,
-        delta_u=arrays["delta"],
-        gamma_u=arrays["gamma"],
-        vega_u=arrays["vega"],
-        volga_u=arrays["volga"],
-        vanna_u=arrays["vanna"],
-        theta_u=arrays["theta"],
-        rho_u=arrays["rho"],
+        sens=sens,
+        sens_u=sens.per_group(uidx, n_u),
+        vol0=np.where(v.live, np.nan_to_num(v.vol), 0.0),
         uidx=uidx,
         n_u=n_u,
         present=np.bincount(uidx, minlength=n_u) > 0,
-        sums=sums,
         calendar=desk_calendar(valuation),
     )
     _PREP[valuation] = prep
@@ -780,10 +833,11 @@ def prepare(valuation: BookValuation) -> _Prep:
 
 
 def roll_time(valuation: BookValuation, move: Move) -> np.datetime64:
-    """The valuation instant after the move's day roll (calendar days or business days)."""
+    """The valuation instant after the move's day roll (calendar days, or business days at the
+    same clock time in the desk's zone the valuation was made for)."""
     t = valuation.valuation_time
     if move.bdays:
-        return cal.roll_business_days(t, move.bdays, prepare(valuation).calendar)
+        return cal.roll_business_days(t, move.bdays, prepare(valuation).calendar, valuation.tz)
     if move.days:
         return cal.roll_calendar_days(t, move.days)
     return t
@@ -869,11 +923,14 @@ def _smile_vols(v: BookValuation, p: _Prep, spots_after_u: np.ndarray) -> np.nda
     s0 = v.underlying_spots
     symbols = v.book.underlyings.symbols
     expiries = v.book.expiries[p.live_idx]
+    dates = v.book.expiry_dates[p.live_idx]
     for j in np.flatnonzero(p.present & (spots_after_u != s0)):
         rows = np.flatnonzero(p.uidx_l == j)
         if rows.size:
             scaled = p.strike[rows] * (s0[j] / spots_after_u[j])
-            out[rows] = v.market.vols_for(symbols[j], expiries[rows], scaled, v.valuation_time)
+            out[rows] = v.market.vols_for(
+                symbols[j], expiries[rows], scaled, v.valuation_time, expiry_dates=dates[rows]
+            )
     return out
 
 
@@ -919,13 +976,11 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             + plan.wadd_u[p.uidx_l] * p.weight_l
             - p.vol_l
         )
-    vol1 = p.vol_l + dvol if not (isinstance(dvol, float) and dvol == 0.0) else p.vol_l
+    vol1 = p.vol_l
     floored = False
-    if not isinstance(dvol, float) or dvol < 0:
-        low = vol1 < VOL_FLOOR
-        if np.any(low):
-            vol1 = np.maximum(vol1, VOL_FLOOR)
-            floored = True
+    if not (isinstance(dvol, float) and dvol == 0.0):
+        vol1 = moved_vols(p.vol_l, dvol)
+        floored = bool(np.any(vol1 > p.vol_l + dvol))
     dvol_applied: np.ndarray | None = None
     if floored or moneyness:
         dvol_applied = np.zeros(n)
@@ -984,20 +1039,16 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     else:
         n_through_u = np.zeros(p.n_u, dtype=np.int64)
 
-    # Taylor terms per underlying from the greek sums.
-    if dvol_applied is not None:
-        res_terms = _terms_per_underlying_exact(p, ds_u, dvol_applied, dt, dr)
+    # Taylor terms per underlying: from the greek sums when every option of an underlying has the
+    # same vol change, else per position and summed.
+    if dvol_applied is None and not (plan.rel_u.any() or plan.wadd_u.any()):
+        res_terms = taylor_terms(p.sens_u, ds_u, plan.add_u, dt, dr)
     else:
-        sm = p.sums
-        a, rl, w = plan.add_u, plan.rel_u, plan.wadd_u
+        dv = dvol_applied if dvol_applied is not None else _dvol_all(v, p, plan)
+        per_position = taylor_terms(p.sens, ds_u[p.uidx], dv, dt, dr)
         res_terms = {
-            "delta": sm["delta"] * ds_u,
-            "gamma": 0.5 * sm["gamma"] * ds_u * ds_u,
-            "vega": a * sm["vega"] + rl * sm["vega_s"] + w * sm["vega_w"],
-            "volga": 0.5 * (a * a * sm["volga"] + rl * rl * sm["volga_s"] + w * w * sm["volga_w"]),
-            "vanna": ds_u * (a * sm["vanna"] + rl * sm["vanna_s"] + w * sm["vanna_w"]),
-            "theta": sm["theta"] * dt,
-            "rho": sm["rho"] * dr,
+            k: np.bincount(p.uidx, weights=np.broadcast_to(t, (n,)), minlength=p.n_u)
+            for k, t in per_position.items()
         }
     symbols = v.book.underlyings.symbols
     currencies = v.book.underlyings.currencies
@@ -1062,27 +1113,6 @@ def _moving_rows(
     if vol1 is not p.vol_l:
         moving |= np.broadcast_to(vol1, moving.shape) != p.vol_l
     return None if moving.all() else moving
-
-
-def _terms_per_underlying_exact(
-    p: _Prep, ds_u: np.ndarray, dv: np.ndarray, dt: float, dr: float
-) -> dict[str, np.ndarray]:
-    """Per-underlying terms from per-position vol changes ``dv`` (n,): sticky moneyness, or
-    when the vol floor bites."""
-    ds = ds_u[p.uidx]
-
-    def per_u(a: np.ndarray) -> np.ndarray:
-        return np.bincount(p.uidx, weights=a, minlength=p.n_u)
-
-    return {
-        "delta": per_u(p.delta_u * ds),
-        "gamma": per_u(0.5 * p.gamma_u * ds * ds),
-        "vega": per_u(p.vega_u * dv),
-        "volga": per_u(0.5 * p.volga_u * dv * dv),
-        "vanna": per_u(p.vanna_u * ds * dv),
-        "theta": per_u(p.theta_u * dt),
-        "rho": per_u(p.rho_u * dr),
-    }
 
 
 def _expiring(res: MoveResult, rows: np.ndarray) -> list[ExpiringPosition]:
@@ -1238,10 +1268,12 @@ def ladder(
     )
     shock_s = (1.0 + rel)[:, None, None]
     shock_v = dvol[None, :, None]
-    smile: np.ndarray | None = None
+    # Sticky moneyness: each option's vol first moves to the smile at its moneyness, per spot row.
+    smile_shift: np.ndarray | None = None
     if rule == MONEYNESS_RULE and m:
         s0 = v.underlying_spots
         smile = np.stack([_smile_vols(v, p, s0 * (1.0 + x)) for x in rel])  # (n_s, m)
+        smile_shift = smile - vol_l[None, :]
     for a in range(0, m, step):
         b = min(a + step, m)
         sl = slice(a, b)
@@ -1258,6 +1290,9 @@ def ladder(
         else:
             keep = slice(None)
         am = p.american[sl][keep]
+        shift = shock_v
+        if smile_shift is not None:
+            shift = smile_shift[:, sl][:, keep][:, None, :] + shock_v
         prices = engine.price(
             p.is_call[sl][keep][None, None, :],
             spot_l[sl][keep][None, None, :] * shock_s,
@@ -1265,15 +1300,7 @@ def ladder(
             t_c[keep][None, None, :],
             rate_l[sl][keep][None, None, :],
             carry_l[sl][keep][None, None, :],
-            np.maximum(
-                (
-                    vol_l[sl][keep][None, None, :]
-                    if smile is None
-                    else smile[:, sl][:, keep][:, None, :]
-                )
-                + shock_v,
-                VOL_FLOOR,
-            ),
+            moved_vols(vol_l[sl][keep][None, None, :], shift),
             american=am[None, None, :] if am.any() else False,
         )
         cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
@@ -1281,29 +1308,25 @@ def ladder(
             n_s, n_v
         )
 
-    # Estimate from summed greeks: the moves are the same for every position in a cell.
-    s_all = v.spot
-    d1 = float(np.dot(p.delta_u, s_all))
-    g2 = float(np.dot(p.gamma_u, s_all * s_all))
-    vg = float(p.vega_u.sum())
-    vo = float(p.volga_u.sum())
-    va = float(np.dot(p.vanna_u, s_all))
-    th = float(p.theta_u.sum())
-    r_, dv_ = rel[:, None], dvol[None, :]
-    est1 = np.broadcast_to(r_ * d1 + dv_ * vg + th * dt, (n_s, n_v)).copy()
-    est2 = est1 + 0.5 * g2 * r_ * r_ + 0.5 * vo * dv_ * dv_ + va * r_ * dv_
-    if smile is not None:
-        # Each option's vol also moves by its smile change e_i(s) = σ_i(K S/S') − σ_i.
-        e = smile - vol_l[None, :]
-        vega_l, volga_l, vanna_l = p.vega_u[li], p.volga_u[li], p.vanna_u[li]
-        a_s = (e @ vega_l)[:, None]
-        est1 += a_s
-        est2 += (
-            a_s
-            + 0.5 * ((e * e) @ volga_l)[:, None]
-            + dv_ * (e @ volga_l)[:, None]
-            + r_ * (e @ (vanna_l * spot_l))[:, None]
-        )
+    # Estimate: every position's Taylor terms in every cell, on the vol change the full
+    # revaluation applied (floor included), summed over positions in chunks.
+    n = len(v)
+    smile_shift_n: np.ndarray | None = None
+    if smile_shift is not None:
+        smile_shift_n = np.zeros((n_s, 1, n))
+        smile_shift_n[:, 0, li] = smile_shift
+    sums: dict[str, np.ndarray] = {k: np.zeros((n_s, n_v)) for k in TERM_NAMES}
+    spot_move = rel[:, None, None] * v.spot[None, None, :]  # (n_s, 1, n)
+    for a in range(0, n, step):
+        sl = slice(a, min(a + step, n))
+        vol0 = p.vol0[sl]
+        shift = shock_v if smile_shift_n is None else smile_shift_n[..., sl] + shock_v
+        dv = np.where(v.live[sl], moved_vols(vol0, shift) - vol0, 0.0)
+        cell_terms = taylor_terms(p.sens.take(sl), spot_move[..., sl], dv, dt, 0.0)
+        for k, t in cell_terms.items():
+            sums[k] += np.sum(t, axis=-1)
+    est1 = np.asarray(first_order(sums))
+    est2 = np.asarray(second_order(sums))
     worst = np.unravel_index(int(np.argmin(full)), full.shape)
     return Ladder(
         spot_pcts=sp,
@@ -1524,17 +1547,7 @@ def explain(
     drate = np.where(opt, np.nan_to_num(end.rate - start.rate), 0.0)
     dcarry = np.where(opt, np.nan_to_num(end.carry - start.carry), 0.0)
     dcarry_other = dcarry - np.where(start.rate_moves_carry, drate, 0.0)
-    g, u = start.greeks, start.units
-    terms = {
-        "delta": g.delta * u * ds,
-        "gamma": 0.5 * g.gamma * u * ds * ds,
-        "vega": g.vega * u * dvol,
-        "volga": 0.5 * g.volga * u * dvol * dvol,
-        "vanna": g.vanna * u * ds * dvol,
-        "theta": g.theta * u * dt,
-        "rho": start.rho_unit * u * drate,
-        "carry": g.carry_rho * u * dcarry_other,
-    }
+    terms = taylor_terms(Sensitivities.of(start), ds, dvol, dt, drate, dcarry_other)
     actual = _held_pnl(start, end)
 
     n_u = len(held.underlyings)
@@ -1737,6 +1750,7 @@ _BOOK_ROW_FIELDS = (
     "quantities",
     "cash_settled",
     "is_trial",
+    "expiry_dates",
 )
 
 
@@ -1796,7 +1810,7 @@ def _explain_row(
     corrections: float = 0.0,
     currency: str | None = None,
 ) -> ExplainRow:
-    explained = float(sum(terms.values()))
+    explained = float(second_order(terms))
     return ExplainRow(
         label=label,
         actual=actual,

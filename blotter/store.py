@@ -721,7 +721,8 @@ def user_demo_copy() -> Path:
 @dataclass(frozen=True)
 class _ContractArrays:
     """Every contract read so far, as arrays sorted by id (the store's cache; contracts never
-    change). ``expiries`` are UTC cut-off instants, NaT for the underlying itself."""
+    change). ``expiries`` are UTC cut-off instants and ``expiry_dates`` the expiry dates as
+    traded (the exchange's local date), NaT for the underlying itself."""
 
     ids: np.ndarray  # int64 (m,), ascending
     underlying_ids: np.ndarray  # int64 (m,), the store's underlying ids
@@ -732,6 +733,7 @@ class _ContractArrays:
     multipliers: np.ndarray  # float64 (m,)
     cash_settled: np.ndarray  # bool (m,)
     labels: np.ndarray  # object (m,) of str
+    expiry_dates: np.ndarray  # datetime64[D] (m,)
 
     @property
     def last_id(self) -> int:
@@ -750,6 +752,7 @@ class _ContractArrays:
             z,
             z.astype(bool),
             z.astype(object),
+            z.astype("datetime64[D]"),
         )
 
     def extended(
@@ -787,6 +790,9 @@ class _ContractArrays:
             multipliers=cat([self.multipliers, np.array(cols[7], dtype=np.float64)]),
             cash_settled=cat([self.cash_settled, np.array(cols[8], dtype=bool)]),
             labels=cat([self.labels, labels]),
+            expiry_dates=cat(
+                [self.expiry_dates, np.array([e or "NaT" for e in cols[4]], dtype="datetime64[D]")]
+            ),
         )
 
 
@@ -1540,6 +1546,7 @@ class Store:
             multipliers=table.multipliers[at],
             quantities=quantities[order],
             cash_settled=table.cash_settled[at],
+            expiry_dates=table.expiry_dates[at],
         )
 
     @_guard_damage
@@ -1909,6 +1916,7 @@ class Store:
                 expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
                 strikes=np.array([p[1] for p in pts], dtype=np.float64),
                 vols=np.array([p[2] for p in pts], dtype=np.float64),
+                atm_strike=spots.get(sym, np.nan),
             )
         curves = {
             ccy: RateCurve(

@@ -16,6 +16,14 @@ from blotter.demo import build_demo
 from blotter.store import FILE_MODE, create_store
 
 
+@pytest.fixture(autouse=True)
+def _no_user_settings(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Every test starts from the default settings: no settings file, no desk zone variable."""
+    monkeypatch.setenv("BLOTTER_CONFIG", str(tmp_path / "no-settings.toml"))
+    for name in ("BLOTTER_TZ", "BLOTTER_DESK_TZ"):
+        monkeypatch.delenv(name, raising=False)
+
+
 @pytest.fixture(scope="session")
 def demo_master(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo book built once for the session; never write to it (use ``demo_db``)."""

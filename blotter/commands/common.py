@@ -9,10 +9,16 @@ import sys
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any, TypeVar
+from zoneinfo import ZoneInfo
 
 import click
 
+from blotter.config import DESK_TZ_SOURCES
+
 F = TypeVar("F", bound=Callable[..., Any])
+
+DESK_ZONE_HELP = f"the desk's time zone: {DESK_TZ_SOURCES}"
+"""Where a time without an offset takes its zone from, for help texts."""
 
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
 """A CSV cell starting with one of these is run as a formula by spreadsheets unless neutralised."""
@@ -25,6 +31,17 @@ class AppContext:
     db_path: str | None = None
     read_only: bool = False
     no_mouse: bool = False
+
+
+def desk_zone() -> ZoneInfo:
+    """The desk's time zone as the settings resolve it (``config.load_settings``), the one zone
+    of naive times, expiry buckets and business-day rolls; ClickException for a bad setting."""
+    from blotter.config import ConfigError, load_settings
+
+    try:
+        return load_settings().tz
+    except ConfigError as exc:
+        raise click.ClickException(f"settings: {exc}") from None
 
 
 def db_option(func: F) -> F:

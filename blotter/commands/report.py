@@ -16,9 +16,11 @@ import click
 
 from blotter import limits
 from blotter.commands.common import (
+    DESK_ZONE_HELP,
     check_option,
     check_output_flags,
     db_option,
+    desk_zone,
     open_for_reading,
     output_options,
     print_csv,
@@ -30,10 +32,6 @@ from blotter.commands.common import (
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
 
-TERM_KEYS = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
-"""Taylor term keys of ``blotter whatif --json`` (``explain --json`` adds ``carry``)."""
-EXPLAIN_KEYS = (*TERM_KEYS, "carry")
-"""Explain's terms: the what-if's and ``carry`` (a dividend yield or foreign rate change)."""
 
 RULE_NOTES = {
     "sticky strike": "vols sticky strike: each option keeps the vol of its strike and expiry",
@@ -72,7 +70,8 @@ def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
         "at",
         default=None,
         metavar="TIME",
-        help="Valuation time, ISO-8601 (desk-local unless it has an offset). Default: now.",
+        help=f"Valuation time, ISO-8601; without an offset, local time in {DESK_ZONE_HELP}. "
+        "Default: now.",
     )(func)
 
 
@@ -88,8 +87,9 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     from blotter import calendar as cal
     from blotter.risk import value_book
 
+    tz = desk_zone()
     try:
-        t = cal.valuation_time(at)
+        t = cal.valuation_time(at, tz)
     except ValueError as exc:
         raise click.BadParameter(str(exc), param_hint="--at") from exc
     from blotter.store import StoreError
@@ -97,7 +97,7 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     try:
         book = store.load_book()
         market = store.load_market()
-        valuation = value_book(book, market, t, vega_unit=vega_unit)
+        valuation = value_book(book, market, t, vega_unit=vega_unit, tz=tz)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     _warn_stale(valuation)
@@ -602,7 +602,7 @@ def whatif(
     db_path: str | None, move: tuple[str, ...], at: str | None, as_json: bool, as_csv: bool
 ) -> None:
     from blotter import calendar as cal
-    from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
+    from blotter.scenario import TERM_NAMES, MoveError, MoveSyntaxError, apply_move, parse_move
 
     check_output_flags(as_json, as_csv)
     text = " ".join(move)
@@ -651,7 +651,7 @@ def whatif(
             "error_2",
             "error_1_pct",
             "error_2_pct",
-            *TERM_KEYS,
+            *TERM_NAMES,
             "through_expiry",
             "currency",
         ]
@@ -665,7 +665,7 @@ def whatif(
                 r.error_2,
                 r.error_1_pct,
                 r.error_2_pct,
-                *(r.terms[t] for t in TERM_KEYS),
+                *(r.terms[t] for t in TERM_NAMES),
                 r.n_through_expiry,
                 r.currency,
             ]
@@ -685,13 +685,13 @@ def whatif(
     )
     click.echo("")
     terms = [
-        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in TERM_KEYS)]
+        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in TERM_NAMES)]
         for label, r in shown
     ]
     print_table(
-        ["estimate terms", *ccy_head, *TERM_KEYS],
+        ["estimate terms", *ccy_head, *TERM_NAMES],
         terms,
-        right=[False] * (1 + len(ccy_head)) + [True] * len(TERM_KEYS),
+        right=[False] * (1 + len(ccy_head)) + [True] * len(TERM_NAMES),
     )
     if res.expiring:
         ex = [
@@ -948,6 +948,7 @@ def explain(
     how much of actual they account for ("corrections"). Money in each underlying's currency;
     totals per currency.
     """
+    from blotter.scenario import EXPLAIN_TERMS
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
 
@@ -984,7 +985,7 @@ def explain(
     cols = [
         "underlying",
         "actual",
-        *EXPLAIN_KEYS,
+        *EXPLAIN_TERMS,
         "explained",
         "unexplained",
         "new_trades",
@@ -997,7 +998,7 @@ def explain(
             [
                 label,
                 r.actual,
-                *(r.terms[t] for t in EXPLAIN_KEYS),
+                *(r.terms[t] for t in EXPLAIN_TERMS),
                 r.explained,
                 r.unexplained,
                 r.new_trades,
@@ -1044,11 +1045,11 @@ def explain(
     )
     click.echo("")
     terms = [
-        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in EXPLAIN_KEYS)]
+        [label, *_ccy_cell(r, several), *(_money(r.terms[t]) for t in EXPLAIN_TERMS)]
         for label, r in shown
     ]
     print_table(
-        ["explained by", *ccy_head, *EXPLAIN_KEYS], terms, right=left + [True] * len(EXPLAIN_KEYS)
+        ["explained by", *ccy_head, *EXPLAIN_TERMS], terms, right=left + [True] * len(EXPLAIN_TERMS)
     )
     if ex.late_trades or ex.corrected_trades:
         click.echo("")

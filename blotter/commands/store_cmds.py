@@ -16,8 +16,10 @@ from typing import Any
 import click
 
 from blotter.commands.common import (
+    DESK_ZONE_HELP,
     check_output_flags,
     db_option,
+    desk_zone,
     open_for_reading,
     output_options,
     print_csv,
@@ -49,14 +51,13 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
         store.close()
 
 
-TIME_HELP = "ISO-8601; with Z or an offset, else desk-local time ($BLOTTER_TZ, default New York)"
+TIME_HELP = f"ISO-8601; with Z or an offset, else local time in {DESK_ZONE_HELP}"
 """How every time option of these commands is read (as ``risk --at`` reads it)."""
 
 
 def _time_option(value: str | None) -> datetime | None:
     """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
-    one as desk-local time (``blotter.calendar.desk_tz``), at the store's precision (µs)."""
-    from blotter.calendar import desk_tz
+    one as local time in the desk's zone (``desk_zone``), at the store's precision (µs)."""
     from blotter.store import StoreError, parse_time
 
     if value is None:
@@ -67,7 +68,7 @@ def _time_option(value: str | None) -> datetime | None:
         typed = None  # not ISO-8601: parse_time says so below
     try:
         if typed is not None and typed.tzinfo is None:
-            return parse_time(typed.replace(tzinfo=desk_tz()))
+            return parse_time(typed.replace(tzinfo=desk_zone()))
         return parse_time(value)
     except (StoreError, ValueError) as exc:
         raise click.BadParameter(str(exc)) from None
@@ -418,7 +419,12 @@ def mark_spot(
 @click.argument("symbol")
 @click.argument("expiry")
 @click.argument("vol")
-@click.option("--strike", type=float, help="Strike of the point; leave out for the ATM vol.")
+@click.option(
+    "--strike",
+    type=float,
+    help="Strike of the point; leave out for the ATM vol: the vol at the strike equal to the "
+    "spot among the expiry's strike vols, or of every strike when it has none.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_vol(

@@ -32,6 +32,10 @@ MAX_ITER = 60
 """Iterations per element before it is reported as not converged."""
 PRICE_RTOL = 2e-15
 """Relative price match (of the price, or of spot + strike for tiny prices) that ends a search."""
+BOUND_RTOL = 1e-9
+"""A price within this fraction of itself (or of spot + strike for tiny prices) of a no-arbitrage
+bound counts as at the bound. The bounds S e^{(b−r)T} − K e^{−rT} and intrinsic are differences
+of larger terms, so the same bound computed elsewhere differs by a few units in their last place."""
 _INV_SQRT_2PI = 0.3989422804014327
 
 
@@ -81,10 +85,12 @@ def make_kernel(is_american: bool) -> Kernel:
             lower = np.maximum(lower, np.maximum(w * (s - k), 0.0))
             upper = np.where(w > 0, np.maximum(sf, s), k)
         tol = PRICE_RTOL * np.maximum(np.abs(target), 1e-4 * (s + k))
-        # Prices within the tolerance of a bound are "no time value" / "above upper bound".
-        below = live & (target < lower - tol)
-        flat = live & ~below & (target <= lower + tol)
-        above = live & (target >= upper - tol)
+        # Prices within the bound tolerance of a bound are "no time value" / "above upper
+        # bound"; the test uses only the model-free bounds, so it is the same for American.
+        bound_tol = BOUND_RTOL * np.maximum(np.abs(target), 1e-4 * (s + k))
+        below = live & (target < lower - bound_tol)
+        flat = live & ~below & (target <= lower + bound_tol)
+        above = live & (target >= upper - bound_tol)
         status_out[~live] = IV_NO_TIME_VALUE
         status_out[below] = IV_BELOW_INTRINSIC
         status_out[flat & ~above] = IV_NO_TIME_VALUE

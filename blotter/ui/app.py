@@ -247,7 +247,10 @@ class BlotterApp(App[None]):
             self.post_message(LoadProgress(1))
             now = self.clock()
             valuation = risk.value_book(
-                book, market, np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s")
+                book,
+                market,
+                np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s"),
+                tz=self.tz,
             )
             self.post_message(LoadProgress(2))
             tree = data.BookTree(valuation, self.tz, self._row_alert)
@@ -568,6 +571,7 @@ class BlotterApp(App[None]):
                     book.take(rows),
                     state.valuation.market,
                     state.valuation.valuation_time,
+                    tz=state.valuation.tz,
                 )
                 g = scenario.ladder(
                     alone, self.settings.ladder_spot_pcts, self.settings.ladder_vol_pts, days=days

@@ -80,11 +80,6 @@ def position_label(book: Any, i: int) -> str:
     return f"{book.strikes[i]:g} {'C' if book.is_call[i] else 'P'} {qty}"
 
 
-def expiry_text(expiry: np.datetime64, tz: Any) -> str:
-    """An expiry instant as the desk-local ISO date."""
-    return cal.to_datetime(expiry, tz).date().isoformat()
-
-
 class BookTree:
     """The Book pane's rows for one valuation; children are worked out when a row is expanded."""
 
@@ -99,23 +94,8 @@ class BookTree:
         self.tz = tz
         self._alert = alert or (lambda row: "")
         self._sums = {k: np.asarray(getattr(valuation, k)) for k in SUM_FIELDS}
-        n = len(self.book)
-        # Expiry day per position as desk-local dates (NaT for hedges), for sub-grouping.
-        if n:
-            local = np.array(
-                [
-                    cal.local_date(e, tz) if not np.isnat(e) else np.datetime64("NaT", "D")
-                    for e in np.unique(self.book.expiries)
-                ],
-                dtype="datetime64[D]",
-            )
-            uniq, inverse = np.unique(self.book.expiries, return_inverse=True)
-            mapping = dict(zip(uniq.tolist(), local.tolist(), strict=True))
-            self.expiry_days = np.array([mapping[u] for u in uniq.tolist()], dtype="datetime64[D]")[
-                inverse.reshape(-1)
-            ]
-        else:
-            self.expiry_days = np.zeros(0, dtype="datetime64[D]")
+        # Expiry day per position as traded (NaT for hedges), for sub-grouping.
+        self.expiry_days = self.book.expiry_dates
         self._total = risk.total(valuation)
         self.currencies = valuation.currencies
         self._ccy, self._ccy_names = valuation.currency_codes
@@ -447,7 +427,7 @@ def profile(
     v = valuation
     if rows is not None:
         v = risk.value_book(
-            valuation.book.take(rows), valuation.market, valuation.valuation_time
+            valuation.book.take(rows), valuation.market, valuation.valuation_time, tz=valuation.tz
         )
     t0 = v.valuation_time
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
@@ -490,7 +470,9 @@ def profile(
                         else vc.market
                     )
                     values.append(
-                        getattr(risk.total(risk.value_book(vc.book, market, t)), field_name)
+                        getattr(
+                            risk.total(risk.value_book(vc.book, market, t, tz=v.tz)), field_name
+                        )
                     )
                 series[name + suffix] = tuple(float(x) for x in values)
         elif greek == "pnl":
@@ -508,7 +490,11 @@ def profile(
             field_name = PROFILE_FIELDS[greek][0]
             rolled = (cal.roll_calendar_days(t0, float(d)) for d in xs)
             series[y_label.split(" (")[0] + suffix] = tuple(
-                float(getattr(risk.total(risk.value_book(vc.book, vc.market, t)), field_name))
+                float(
+                    getattr(
+                        risk.total(risk.value_book(vc.book, vc.market, t, tz=v.tz)), field_name
+                    )
+                )
                 for t in rolled
             )
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
@@ -592,6 +578,8 @@ class MarkPoint:
         """What a typed number means in this cell."""
         if self.kind == "spot":
             return "price in the underlying's currency"
+        if self.kind == "vol" and self.strike is None:
+            return "vol in % at the strike = spot, or $price to solve it"
         if self.kind == "vol":
             return "vol in % (24.5 = 24.5%), or $price of the option to solve its vol"
         return "% (4.1 = 4.1%)"
@@ -613,7 +601,7 @@ class MarksView:
     day_closed_by: int | None = None  # the close in force for that date: a close now corrects it
 
 
-def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
+def marks_view(st: Any, book: Book | None) -> MarksView:
     """Mark points in force beside the last close, plus points the book needs but nobody marked.
 
     ``st`` is a ``store.Store``; ``book`` (the live book) says which spots and expiries are
@@ -657,9 +645,8 @@ def marks_view(st: Any, book: Book | None, tz: Any) -> MarksView:
                 )
             rows = np.flatnonzero((book.underlying_idx == j) & book.is_option)
             marked = {p.expiry for p in points.values() if p.kind == "vol" and p.symbol == sym}
-            for e in np.unique(book.expiries[rows]):
-                day = cal.local_date(e, tz)
-                d = day.astype(object) if hasattr(day, "astype") else day
+            for day in np.unique(book.expiry_dates[rows]):
+                d = day.astype(object)
                 if d not in marked:
                     k = _point_key("vol", sym, None, d, None, None)
                     points[k] = MarkPoint(
@@ -744,7 +731,7 @@ def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
 
 
 def solve_vol(
-    valuation: risk.BookValuation, point: MarkPoint, price: float, tz: Any
+    valuation: risk.BookValuation, point: MarkPoint, price: float
 ) -> tuple[float | None, str, bool]:
     """Implied vol of ``price`` for the point's option, via ``engine.implied_vol``.
 
@@ -765,7 +752,7 @@ def solve_vol(
     rows = [
         int(i)
         for i in candidates
-        if cal.local_date(book.expiries[i], tz).astype(object) == point.expiry
+        if book.expiry_dates[i].astype(object) == point.expiry
     ]
     if not rows:
         return None, "no live position at this expiry to take time, rate and carry from", True
@@ -859,6 +846,7 @@ def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
         multipliers=np.array([c.multiplier for c in cs], dtype=np.float64),
         quantities=np.array([t.quantity for t in trials], dtype=np.float64),
         cash_settled=np.array([bool(c.cash_settled) for c in cs], dtype=bool),
+        expiry_dates=np.array([c.expiry or "NaT" for c in cs], dtype="datetime64[D]"),
     )
     return live.with_trials(rows)
 

@@ -144,3 +144,71 @@ def test_from_an_empty_file_to_a_valued_position(tmp_path: Path) -> None:
     per_share = -value / (10 * 100)
     reference = option.NPV()
     assert reference - 8.27e-2 <= per_share <= reference + 1e-3
+
+
+def test_options_of_zoned_cut_offs_take_the_vol_marked_for_their_expiry(tmp_path: Path) -> None:
+    """Vol slices are keyed by the contract's expiry date in its exchange's zone. A Los Angeles
+    16:00 cut-off in January is past midnight UTC and a Sydney 10:00 cut-off is the evening
+    before in UTC; each option still takes exactly the vol marked for its expiry date. At 08:00
+    in Sydney (still the day before in UTC) the slice that expired yesterday in Sydney is not
+    used: an option before the first live slice takes its vol flat."""
+    db = tmp_path / "zones.db"
+    run("create", str(db), "--book", "desk")
+    g = ["--db", str(db)]
+    for sym, zone, cut in (("LAX", "America/Los_Angeles", "16:00"),
+                           ("SYD", "Australia/Sydney", "10:00")):
+        run(*g, "underlying", "add", sym, "--kind", "stock", "--currency", "USD",
+            "--multiplier", "100", "--european", "--zone", zone, "--cutoff", cut)
+    run(*g, "mark", "spot", "LAX", "100")
+    run(*g, "mark", "spot", "SYD", "50")
+    run(*g, "mark", "rate", "USD", "365", "4%")
+    for sym, expiry, vol in (("LAX", "2027-01-15", "20%"), ("LAX", "2027-02-19", "30%"),
+                             ("SYD", "2027-01-14", "25%"), ("SYD", "2027-03-18", "30%"),
+                             ("SYD", "2027-06-17", "22%")):
+        run(*g, "mark", "vol", sym, expiry, vol)
+    for sym, expiry, strike in (("LAX", "2027-01-15", "100"), ("SYD", "2027-03-18", "50"),
+                                ("SYD", "2027-02-18", "50")):
+        run(*g, "trade", "add", sym, "--expiry", expiry, "--strike", strike, "--put",
+            "--qty", "10", "--price", "3", "--time", "2026-12-01T15:00:00Z")
+
+    def vols(at: str) -> dict[str, float]:
+        out = json.loads(run(*g, "risk", "--by", "position", "--json", "--at", at).stdout)
+        return {p["contract"]: p["vol"] for p in out["by_position"]}
+
+    before = vols("2026-12-02T15:00:00Z")
+    assert before["LAX 2027-01-15 100 P"] == 0.20 and before["SYD 2027-03-18 50 P"] == 0.30
+    morning = vols("2027-01-14T21:00:00Z")  # 08:00 on 2027-01-15 in Sydney
+    assert morning["SYD 2027-02-18 50 P"] == 0.30
+    assert morning["LAX 2027-01-15 100 P"] == 0.20
+
+
+def test_an_atm_vol_beside_strike_vols_is_the_smile_point_at_the_spot(tmp_path: Path) -> None:
+    """An ATM vol mark of an expiry that also has strike marks is the vol at the strike equal to
+    the spot, between the strike points (linear in strike); where a strike mark sits exactly at
+    the spot, the two marks are averaged. Expected values are worked by hand from that rule."""
+    db = tmp_path / "atm.db"
+    run("create", str(db), "--book", "desk")
+    g = ["--db", str(db)]
+    run(*g, "underlying", "add", "QQV", "--kind", "stock", "--currency", "USD",
+        "--multiplier", "100", "--european")
+    run(*g, "mark", "spot", "QQV", "100")
+    run(*g, "mark", "rate", "USD", "365", "4%")
+    run(*g, "mark", "vol", "QQV", "2027-03-19", "8%", "--strike", "90")
+    run(*g, "mark", "vol", "QQV", "2027-03-19", "3%", "--strike", "110")
+    run(*g, "mark", "vol", "QQV", "2027-03-19", "4%")
+    for strike in ("95", "100", "105"):
+        run(*g, "trade", "add", "QQV", "--expiry", "2027-03-19", "--strike", strike, "--call",
+            "--qty", "1", "--price", "1", "--time", "2026-12-01T15:00:00Z")
+
+    def vols() -> dict[str, float]:
+        out = json.loads(run(*g, "risk", "--by", "position", "--json", "--at",
+                             "2026-12-02T15:00:00Z").stdout)
+        return {p["contract"]: p["vol"] for p in out["by_position"]}
+
+    assert vols() == pytest.approx({"QQV 2027-03-19 95 C": 0.06, "QQV 2027-03-19 100 C": 0.04,
+                                    "QQV 2027-03-19 105 C": 0.035}, rel=1e-12)
+    run(*g, "mark", "vol", "QQV", "2027-03-19", "5%", "--strike", "100")
+    assert vols()["QQV 2027-03-19 100 C"] == pytest.approx(0.045, rel=1e-12)
+    run(*g, "mark", "spot", "QQV", "102")
+    assert vols()["QQV 2027-03-19 100 C"] == pytest.approx(0.05, rel=1e-12)
+    assert vols()["QQV 2027-03-19 105 C"] == pytest.approx(0.04 - 0.01 * 3 / 8, rel=1e-12)

@@ -333,6 +333,38 @@ def test_trade_add_time_without_a_zone_is_desk_local_time(
     assert "desk" in run("trade", "add", "--help").stdout
 
 
+def test_desk_tz_of_the_settings_file_is_the_zone_of_every_command(
+    demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """One desk zone, from the settings: with ``desk_tz`` only in the file (no variable set), a
+    zoneless ``--time`` and ``--at``, the ``bdays`` roll and the expiry buckets all use it."""
+    settings = tmp_path / "settings.toml"
+    settings.write_text('desk_tz = "Asia/Tokyo"\n', encoding="utf-8")
+    monkeypatch.setenv("BLOTTER_CONFIG", str(settings))
+    monkeypatch.delenv("BLOTTER_TZ", raising=False)
+    monkeypatch.delenv("BLOTTER_DESK_TZ", raising=False)
+    db = ("--db", str(demo_db))
+    tid = json.loads(
+        run(*db, "trade", "add", "DEMOA", "--book", "equity-vol", "--expiry", "2026-12-11",
+            "--strike", "190", "--call", "--qty", "1", "--price", "2", "--time",
+            "2026-12-01T10:00", "--json").stdout
+    )["trade_id"]
+    with open_store(demo_db, read_only=True) as s:
+        booked = {t.trade_id: t.trade_time for t in s.trades()}[tid]
+    assert booked.isoformat() == "2026-12-01T01:00:00+00:00"  # 10:00 in Tokyo
+    # Saturday 05:00 in Tokyo (Friday 15:00 in New York): one business day is Monday 05:00.
+    out = json.loads(run(*db, "whatif", "bdays 1", "--at", "2026-12-05T05:00", "--json").stdout)
+    assert out["as_of"] == "2026-12-04T20:00:00+00:00"
+    assert out["after"] == "2026-12-06T20:00:00+00:00"  # New York's would be 12-07T20:00Z
+    # Monday 01:00 in Tokyo is still Sunday in New York: 2026-12-11 is this week in Tokyo.
+    out = json.loads(
+        run(*db, "risk", "--by", "expiry", "--at", "2026-12-07T01:00", "--json").stdout
+    )
+    assert out["as_of"] == "2026-12-06T16:00:00+00:00"
+    assert out["by_expiry"][0]["bucket"] == "this week"
+    assert "settings file" in run("risk", "--help").stdout
+
+
 def test_read_only_refuses_the_demo_command(tmp_path: Path) -> None:
     out = tmp_path / "d.db"
     r = run("--read-only", "demo", "--out", str(out), code=1)

@@ -145,3 +145,32 @@ def test_cli_shows_corrections_on_their_own_line(
     )
     assert out["total"]["corrections"] == pytest.approx(ex.total.corrections, rel=1e-12)
     assert sorted(out["corrected_trades"]) == sorted([ids["cancelled"], ids["amended"]])
+
+
+def test_explain_values_a_zoned_expiry_at_the_vol_marked_for_its_date(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A Sydney 10:00 cut-off is the evening before in UTC and in New York: the positions held
+    over the period keep their expiry date, so both closes value the option at the vol marked
+    for that date (30%, then 32%), and the vega term uses that 2-point change."""
+    clock = {"now": T0.replace(hour=15)}
+    monkeypatch.setattr(store_mod, "_now", lambda: clock["now"])
+    st = create_store(tmp_path / "syd.sqlite")
+    st.add_underlying("SYDX", "stock", "USD", 100.0, american=False, time_zone="Australia/Sydney",
+                      cutoff_time="10:00")
+    st.log_rate("USD", 365, RATE)
+    st.log_spot("SYDX", S0)
+    for day, vol in (("2027-01-14", 0.25), ("2027-03-18", V0)):
+        st.log_vol("SYDX", day, vol)
+    first = {"create_book": True} if "create_book" in signature(st.add_trade).parameters else {}
+    st.add_trade("main", "SYDX", 10, 5.0, "2027-03-18", 100.0, True, **first)
+    clock["now"] = T0
+    st.commit_close(marked_at=T0)
+    clock["now"] = T1.replace(hour=15)
+    st.log_vol("SYDX", "2027-03-18", V1)
+    clock["now"] = T1
+    st.commit_close(marked_at=T1)
+    ex = explain(st)
+    assert list(ex.start.vol) == [V0] and list(ex.end.vol) == [V1]
+    vega = ex.start.greeks.vega[0] * ex.start.units[0]
+    assert ex.total.terms["vega"] == pytest.approx(vega * (V1 - V0), rel=1e-12)

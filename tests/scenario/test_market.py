@@ -24,7 +24,7 @@ SURF = VolSurface(
 def _vols(expiry: str, strikes: list[float]) -> np.ndarray:
     m = make_market(surfaces={"STK": SURF})
     exp = np.array([f"{expiry}T21:00:00"] * len(strikes), dtype="datetime64[s]")
-    return m.vols_for("STK", exp, np.array(strikes), T0)
+    return m.vols_for("STK", exp, np.array(strikes), T0, expiry_dates=exp.astype("datetime64[D]"))
 
 
 def test_on_a_slice_date_the_slice_is_used_exactly_linear_in_strike() -> None:
@@ -54,7 +54,10 @@ def test_expired_slices_are_ignored() -> None:
     m = make_market(surfaces={"STK": SURF})
     later = np.datetime64("2027-01-04T20:00:00", "s")  # after the December slice
     exp = np.array(["2027-02-19T21:00:00"], dtype="datetime64[s]")
-    assert m.vols_for("STK", exp, np.array([110.0]), later)[0] == pytest.approx(0.23)
+    dates = exp.astype("datetime64[D]")
+    assert m.vols_for("STK", exp, np.array([110.0]), later, expiry_dates=dates)[0] == pytest.approx(
+        0.23
+    )
 
 
 def test_atm_only_slice_is_flat_across_strikes() -> None:
@@ -63,12 +66,16 @@ def test_atm_only_slice_is_flat_across_strikes() -> None:
     )
     m = make_market(surfaces={"STK": s})
     exp = np.array(["2027-01-15T21:00:00"] * 2, dtype="datetime64[s]")
-    assert m.vols_for("STK", exp, np.array([50.0, 500.0]), T0) == pytest.approx([0.19, 0.19])
+    dates = exp.astype("datetime64[D]")
+    assert m.vols_for(
+        "STK", exp, np.array([50.0, 500.0]), T0, expiry_dates=dates
+    ) == pytest.approx([0.19, 0.19])
 
 
 def test_missing_surface_is_named() -> None:
     with pytest.raises(KeyError, match="NOPE"):
-        make_market().vols_for("NOPE", np.array([T0]), np.array([1.0]), T0)
+        day = np.array([T0], "datetime64[D]")
+        make_market().vols_for("NOPE", np.array([T0]), np.array([1.0]), T0, expiry_dates=day)
 
 
 def test_rate_curve_linear_in_tenor_and_flat_beyond() -> None:
@@ -94,3 +101,22 @@ def test_shocked_market_is_a_new_object_and_the_old_one_is_unchanged() -> None:
     assert m.shocked(vol_pts=-50).surfaces["STK"].vols.min() == VOL_FLOOR
     with pytest.raises(ValueError, match="STK"):
         m.shocked(spot_abs={"STK": -200.0})
+
+
+def test_an_atm_point_beside_strike_points_sits_at_the_atm_strike() -> None:
+    """The ATM vol (NaN strike) of a slice with strike points is the point at ``atm_strike``;
+    the rule is ours (README, "mark vol"), the values worked by hand from it."""
+    s = VolSurface(
+        np.array(["2027-01-15"] * 3, dtype="datetime64[D]"),
+        np.array([90.0, np.nan, 110.0]),
+        np.array([0.30, 0.20, 0.24]),
+        atm_strike=105.0,
+    )
+    day = np.datetime64("2027-01-15", "D")
+    assert s.slice_vols(day, np.array([90.0, 97.5, 105.0, 107.5, 200.0])) == pytest.approx(
+        [0.30, 0.25, 0.20, 0.22, 0.24]
+    )
+    m = make_market(surfaces={"STK": s})
+    assert m.shocked(spot_pct={"STK": -10.0}, vol_pts=1.0).surfaces["STK"].atm_strike == 105.0
+    with pytest.raises(ValueError, match="ATM vol of 2027-01-15 has no spot"):
+        VolSurface(s.expiries, s.strikes, s.vols).slice_vols(day, np.array([100.0]))

@@ -387,3 +387,21 @@ async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
         d = profile.xs[3]
         expected = scenario.apply_move(alone, scenario.parse_move(f"days {d:g}")).total.full
         assert profile.series["P&L"][3] == pytest.approx(expected)
+
+
+async def test_the_desk_zone_setting_is_the_zone_of_the_day_roll(demo_db: Path) -> None:
+    """``desk_tz`` of the settings reaches the valuation: ``bdays 3`` from Tuesday 10:00 New York
+    (Wednesday 00:00 Tokyo) lands on Monday 00:00 Tokyo, not Friday 10:00 New York."""
+    from dataclasses import replace
+    from zoneinfo import ZoneInfo
+
+    tokyo = ZoneInfo("Asia/Tokyo")
+    app = make_app(demo_db, replace(TEST_SETTINGS, desk_tz="Asia/Tokyo"), clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        assert app.state is not None
+        v = app.state.valuation
+        assert v.tz == tokyo
+        rolled = scenario.roll_time(v, scenario.parse_move("bdays 3"))
+        assert str(rolled) == "2026-12-06T15:00:00"
+        assert app._roll_days(scenario.parse_move("bdays 3")) == pytest.approx(5.0)

@@ -116,7 +116,7 @@ async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo
         screen.query_one("#marks-table").move_cursor(row=row)  # type: ignore[attr-defined]
         v = app.state.valuation
         vol, words, is_call = __import__("blotter.ui.data", fromlist=["x"]).solve_vol(
-            v, point, 1.0, app.tz
+            v, point, 1.0
         )
         # A price from the engine at 30% vol solves back to 30% and is written as the mark.
         book = v.book

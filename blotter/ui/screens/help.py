@@ -14,6 +14,7 @@ from textual.containers import VerticalScroll
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
+from blotter.config import DESK_TZ_SOURCES
 from blotter.ui.keys import KEYS, app_bindings, key_label
 
 UNITS: tuple[tuple[str, str], ...] = (
@@ -39,6 +40,7 @@ UNITS: tuple[tuple[str, str], ...] = (
     ("Ladder", "spot shocks in %, vol shocks in points, cells in currency; one grid per currency"),
     ("—", "no sum: share counts of several names, or money of several currencies (never added)"),
     ("NOT VALUED", "positions left out for want of a mark; totals are of the rest (w lists them)"),
+    ("times", f"in the desk's time zone ({DESK_TZ_SOURCES}); expiries: the exchange's dates"),
 )
 """Column headers and symbols with what they mean, as the help screen lists them."""
 

@@ -110,7 +110,7 @@ class MarksScreen(DeskScreen):
             st = open_store(self.app, read_only=True)
             try:
                 book = st.load_book()
-                view = data.marks_view(st, book, self.blotter.tz)
+                view = data.marks_view(st, book)
             finally:
                 st.close()
         except Exception as exc:  # noqa: BLE001 - shown to the user
@@ -238,7 +238,7 @@ class MarksScreen(DeskScreen):
             if state is None:
                 self.say("✗ the book is still loading", bad=True)
                 return
-            vol, words, _ = data.solve_vol(state.valuation, point, x, self.blotter.tz)
+            vol, words, _ = data.solve_vol(state.valuation, point, x)
             if vol is None:
                 self.say(f"✗ {words}; nothing written", bad=True)
                 return

@@ -18,21 +18,17 @@ from textual.containers import ScrollableContainer, Vertical
 from textual.widgets import Static
 
 from blotter.config import Alerts
+from blotter.scenario import SECOND_ORDER, TERM_NAMES
 from blotter.ui import fmt
 from blotter.ui.fmt import NOT_ADDITIVE
 
-TERMS: tuple[tuple[str, str], ...] = (
-    ("delta", "Δ"),
-    ("gamma", "Γ"),
-    ("vega", "vega"),
-    ("volga", "volga"),
-    ("vanna", "vanna"),
-    ("theta", "θ"),
-    ("rho", "ρ"),
-)
+TERM_HEADERS = {"delta": "Δ", "gamma": "Γ", "theta": "θ", "rho": "ρ"}
+"""Column headers of the Taylor terms that are not their own names."""
+
+TERMS: tuple[tuple[str, str], ...] = tuple((k, TERM_HEADERS.get(k, k)) for k in TERM_NAMES)
 """Taylor terms of the estimate, in column order, with their headers."""
 
-SECOND_ORDER_TERMS = frozenset({"gamma", "volga", "vanna"})
+SECOND_ORDER_TERMS = frozenset(SECOND_ORDER)
 """Terms that only the second-order estimate includes."""
 
 FLAG = "!"
