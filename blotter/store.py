@@ -373,23 +373,22 @@ def _from_ts(text: str) -> datetime:
     return datetime.strptime(text, _TS_FORMAT).replace(tzinfo=UTC)
 
 
-def business_date(t: datetime) -> date:
-    """The business date a close at instant ``t`` closes: its date in the desk's time zone.
+def business_date(t: datetime, tz: ZoneInfo) -> date:
+    """The business date a close at instant ``t`` closes: its date in the desk's time zone ``tz``.
 
     A close at 16:30 New York on 2026-12-03 closes 2026-12-03, though it is 21:30 UTC.
     """
-    return t.astimezone(cal.desk_tz()).date()
+    return t.astimezone(tz).date()
 
 
-def _desk_date_sql(text: str | None) -> str | None:
-    """``desk_date(instant)`` in SQL: the business date of a stored instant, as ISO text."""
-    return None if text is None else business_date(_from_ts(text)).isoformat()
-
-
-def _schema_functions(conn: sqlite3.Connection) -> None:
+def _schema_functions(conn: sqlite3.Connection, tz: ZoneInfo) -> None:
     """Functions ``schema.sql``'s upgrade statements call (never its triggers, which any SQLite
-    client must be able to run)."""
-    conn.create_function("desk_date", 1, _desk_date_sql, deterministic=True)
+    client must be able to run): ``desk_date(instant)``, a stored instant's business date."""
+
+    def desk_date(text: str | None) -> str | None:
+        return None if text is None else business_date(_from_ts(text), tz).isoformat()
+
+    conn.create_function("desk_date", 1, desk_date, deterministic=True)
 
 
 def parse_time(value: datetime | str) -> datetime:
@@ -534,17 +533,23 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
 
 
 def open_store(
-    path: str | os.PathLike[str], read_only: bool = False, create: bool = False, verify: bool = True
+    path: str | os.PathLike[str],
+    read_only: bool = False,
+    create: bool = False,
+    verify: bool = True,
+    desk_tz: ZoneInfo | None = None,
 ) -> Store:
     """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
 
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
-    migrated on a read-write open. ``verify`` runs ``PRAGMA quick_check`` first. Raises
+    migrated on a read-write open. ``verify`` runs ``PRAGMA quick_check`` first. ``desk_tz`` is
+    the desk's time zone (the ``desk_tz`` setting; New York when None), which dates closes. Raises
     ``StoreError`` with a plain message for a missing, empty, foreign or damaged file.
     """
     p = Path(path)
+    zone = desk_tz or cal.desk_tz()
     if create and not p.exists():
-        return create_store(p)
+        return create_store(p, desk_tz=zone)
     if not p.exists():
         raise StoreError(
             f"no book at {p} (check the path, or make one with `blotter demo --out {p}`)"
@@ -572,7 +577,7 @@ def open_store(
                     "--read-only to upgrade it",
                     version,
                 )
-            _migrate(conn, p)
+            _migrate(conn, zone)
         if not read_only:
             journal = conn.execute("PRAGMA journal_mode").fetchone()[0]
             if journal != "wal":
@@ -583,7 +588,7 @@ def open_store(
     except BaseException:
         conn.close()
         raise
-    return Store(p, read_only, conn, mode)
+    return Store(p, read_only, conn, mode, desk_tz=zone)
 
 
 _IMMUTABLE = "ro&immutable=1"
@@ -598,10 +603,11 @@ def _is_shipped_demo(p: Path) -> bool:
         return False
 
 
-def _migrate(conn: sqlite3.Connection, path: Path) -> None:
-    """Run each schema section above the file's version, each in one transaction."""
+def _migrate(conn: sqlite3.Connection, tz: ZoneInfo) -> None:
+    """Run each schema section above the file's version, each in one transaction (closes are
+    dated in the desk's zone ``tz``)."""
     sections = schema_sections()
-    _schema_functions(conn)
+    _schema_functions(conn, tz)
     for version in sorted(sections):
         conn.execute("BEGIN IMMEDIATE")
         try:
@@ -617,8 +623,9 @@ def _migrate(conn: sqlite3.Connection, path: Path) -> None:
             raise
 
 
-def create_store(path: str | os.PathLike[str]) -> Store:
-    """A new, empty book at ``path`` (refused if anything is there): schema applied, WAL mode.
+def create_store(path: str | os.PathLike[str], desk_tz: ZoneInfo | None = None) -> Store:
+    """A new, empty book at ``path`` (refused if anything is there): schema applied, WAL mode;
+    ``desk_tz`` dates its closes (New York when None).
 
     The file is created with mode ``FILE_MODE`` (0o660) less the umask, so it is never readable
     or writable by other users; SQLite gives its -wal and -shm files the same permissions.
@@ -637,7 +644,7 @@ def create_store(path: str | os.PathLike[str]) -> Store:
         conn = _connect(p, read_only=False)
         try:
             conn.execute("PRAGMA journal_mode = WAL")
-            _schema_functions(conn)
+            _schema_functions(conn, desk_tz or cal.desk_tz())
             conn.execute("BEGIN IMMEDIATE")
             conn.execute(f"PRAGMA application_id = {APPLICATION_ID:d}")
             for _version, statements in sorted(schema_sections().items()):
@@ -656,7 +663,7 @@ def create_store(path: str | os.PathLike[str]) -> Store:
     except BaseException:
         _remove_book_files(p)
         raise
-    return Store(p, False, conn)
+    return Store(p, False, conn, desk_tz=desk_tz)
 
 
 def _remove_book_files(p: Path) -> None:
@@ -855,9 +862,15 @@ class Store:
     """How a write transaction starts; IMMEDIATE takes the write lock before the first read."""
 
     def __init__(
-        self, path: Path, read_only: bool, conn: sqlite3.Connection, mode: str | None = None
+        self,
+        path: Path,
+        read_only: bool,
+        conn: sqlite3.Connection,
+        mode: str | None = None,
+        desk_tz: ZoneInfo | None = None,
     ) -> None:
         self.path = path
+        self.desk_tz = desk_tz or cal.desk_tz()  # dates the closes written through this store
         self.read_only = read_only
         self._mode = mode  # URI mode override for every thread's connection (see _connect)
         self._local = threading.local()
@@ -2012,7 +2025,7 @@ class Store:
             if corrects is not None:
                 corrects, day = self._close_to_correct(conn, corrects)
             else:
-                day = business_date(when)
+                day = business_date(when, self.desk_tz)
                 taken = self._close_in_force(conn, day)
                 if taken is not None:
                     raise StoreError(
@@ -2072,7 +2085,7 @@ class Store:
     def todays_close(self) -> tuple[date, int | None]:
         """(the business date a close written now closes, the id of the close in force for it
         or None), so a review can say whether a close now is the day's first or a correction."""
-        day = business_date(_now())
+        day = business_date(_now(), self.desk_tz)
         with self._read() as conn:
             found = self._close_in_force(conn, day)
         return day, None if found is None else found[0]

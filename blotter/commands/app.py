@@ -27,7 +27,7 @@ def open_app(ctx: AppContext) -> None:
 
     try:  # a clear message for a missing or foreign file before the screen is taken over; a
         # read-write open also upgrades an older schema now, before the app's workers read it
-        store.open_store(db_path, read_only=settings.read_only).close()
+        store.open_store(db_path, read_only=settings.read_only, desk_tz=settings.tz).close()
     except store.StoreError as exc:
         raise click.ClickException(str(exc)) from None
 

@@ -57,14 +57,15 @@ def open_for_reading(path: str) -> Any:
     read-write open (saying so on stderr), unless the group's ``--read-only`` forbids writing."""
     from blotter.store import SchemaUpgradeNeeded, open_store
 
+    zone = desk_zone()
     try:
-        return open_store(path, read_only=True)
+        return open_store(path, read_only=True, desk_tz=zone)
     except SchemaUpgradeNeeded as exc:
         if read_only_requested():
             raise
-        open_store(path).close()
+        open_store(path, desk_tz=zone).close()
         click.echo(f"blotter: upgraded {path} from schema {exc.version}", err=True)
-        return open_store(path, read_only=True)
+        return open_store(path, read_only=True, desk_tz=zone)
 
 
 def resolve_db(db_path: str | None) -> tuple[str, bool]:

@@ -18,6 +18,7 @@ from blotter.commands.common import (
     check_option,
     check_output_flags,
     db_option,
+    desk_zone,
     output_options,
     print_csv,
     print_json,
@@ -60,7 +61,7 @@ def create(path: str, book_name: str | None, as_json: bool) -> None:
     if read_only_requested():
         raise click.ClickException("--read-only is set: create writes a new file; nothing done")
     try:
-        store = create_store(path)
+        store = create_store(path, desk_tz=desk_zone())
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
     try:

@@ -40,7 +40,9 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
         if read_only and not read_only_requested():
             store = open_for_reading(path)
         else:
-            store = open_store(path, read_only=read_only or read_only_requested())
+            store = open_store(
+                path, read_only=read_only or read_only_requested(), desk_tz=desk_zone()
+            )
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
     try:

@@ -233,7 +233,7 @@ class BlotterApp(App[None]):
             else:
                 from blotter import store
 
-                st = store.open_store(self.db_path, read_only=self.read_only)
+                st = store.open_store(self.db_path, read_only=self.read_only, desk_tz=self.tz)
                 try:
                     book = st.load_book()
                     market = st.load_market()

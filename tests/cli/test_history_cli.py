@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from zoneinfo import ZoneInfo
 
 import pytest
 from cli_helpers import run
@@ -24,7 +25,8 @@ def test_a_second_close_of_the_day_is_refused_and_corrected_by_date(demo_db: Pat
     db = str(demo_db)
     first = json.loads(run("mark", "close", "--json", "--db", db).stdout)
     day = first["business_date"]
-    assert day == st.business_date(datetime.now(UTC)).isoformat() and first["corrects"] is None
+    today = st.business_date(datetime.now(UTC), ZoneInfo("America/New_York")).isoformat()
+    assert day == today and first["corrects"] is None
     again = run("mark", "close", "--db", db, code=1)
     assert f"the close of {day} is already written" in again.stderr
     assert f"--corrects {first['mark_set_id']}" in again.stderr and "Traceback" not in again.output
@@ -77,3 +79,18 @@ def test_time_options_without_a_zone_keep_fractions_of_a_second(demo_db: Path) -
     assert not listed("--since", "2026-12-01T10:00:00.4")
     assert not listed("--until", "2026-12-01T10:00:00.2")
     assert listed("--until", "2026-12-01T10:00:00.4")
+
+
+def test_the_settings_file_zone_dates_a_close(
+    demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The desk zone of the settings file alone (no variable) dates the close, as it reads
+    every other time."""
+    monkeypatch.delenv("BLOTTER_TZ", raising=False)
+    monkeypatch.delenv("BLOTTER_DESK_TZ", raising=False)
+    config = tmp_path / "config.toml"
+    config.write_text('desk_tz = "Pacific/Kiritimati"\n')
+    monkeypatch.setenv("BLOTTER_CONFIG", str(config))
+    written = json.loads(run("mark", "close", "--json", "--db", str(demo_db)).stdout)
+    zone = ZoneInfo("Pacific/Kiritimati")  # UTC+14: its date is ahead of New York's all day
+    assert written["business_date"] == st.business_date(datetime.now(UTC), zone).isoformat()

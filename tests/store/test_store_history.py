@@ -13,6 +13,7 @@ import subprocess
 from collections.abc import Iterator
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
+from zoneinfo import ZoneInfo
 
 import pytest
 from store_children import add_underlyings, spawn
@@ -99,12 +100,12 @@ def test_the_store_numbers_every_history_row_in_the_order_it_was_written(
     ],
 )
 def test_a_close_closes_the_desk_date_of_its_time(
-    store: Store, monkeypatch: pytest.MonkeyPatch, zone: str, instant: str, closes: str
+    store: Store, zone: str, instant: str, closes: str
 ) -> None:
-    monkeypatch.setenv("BLOTTER_TZ", zone)
-    info = store.commit_close_info(marked_at=st.parse_time(instant))
-    assert info.business_date == date.fromisoformat(closes)
-    assert store.mark_sets("close")[-1].business_date == info.business_date
+    with st.open_store(store.path, desk_tz=ZoneInfo(zone)) as desk:
+        info = desk.commit_close_info(marked_at=st.parse_time(instant))
+        assert info.business_date == date.fromisoformat(closes)
+        assert desk.mark_sets("close")[-1].business_date == info.business_date
 
 
 def test_a_date_closes_once_and_a_correction_names_its_close(store: Store) -> None:

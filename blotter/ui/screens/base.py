@@ -69,4 +69,6 @@ def open_store(app: Any, read_only: bool = False) -> Any:
     """A ``store.Store`` of the app's file for this thread (workers open their own)."""
     from blotter import store
 
-    return store.open_store(app.db_path, read_only=read_only or app.read_only)
+    return store.open_store(
+        app.db_path, read_only=read_only or app.read_only, desk_tz=app.tz
+    )
