@@ -2,10 +2,10 @@
 
 ``schema.sql`` is the only definition of the database. Every connection runs with
 ``isolation_level=None`` (no implicit transactions), a busy timeout, foreign keys on,
-``synchronous=FULL`` and ``trusted_schema=OFF``; every write goes through one helper that runs
-``BEGIN IMMEDIATE`` ... ``COMMIT`` and rolls back on any error, so no call leaves a transaction
-open. Read-only stores open the file by URI ``mode=ro`` with ``query_only`` on and ATTACH
-disabled. Each thread that uses a ``Store`` gets its own connection.
+``recursive_triggers`` on, ``synchronous=FULL`` and ``trusted_schema=OFF``; every write goes
+through one helper that runs ``BEGIN IMMEDIATE`` ... ``COMMIT`` and rolls back on any error,
+so no call leaves a transaction open. Read-only stores open the file by URI ``mode=ro`` with
+``query_only`` on and ATTACH disabled. Each thread that uses a ``Store`` gets its own connection.
 
 A read-only viewer writes nothing and creates no file, with one exception SQLite imposes: a WAL
 reader needs the ``-shm`` index, so when the book's ``-wal``/``-shm`` files are absent and the
@@ -313,6 +313,7 @@ def _connect(path: Path, read_only: bool, mode: str | None = None) -> sqlite3.Co
         conn.setlimit(sqlite3.SQLITE_LIMIT_ATTACHED, 0)
         conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS:d}")
         conn.execute("PRAGMA foreign_keys = ON")
+        conn.execute("PRAGMA recursive_triggers = ON")  # REPLACE fires the no-delete triggers
         conn.execute("PRAGMA trusted_schema = OFF")
         conn.execute("PRAGMA mmap_size = 0")
         if read_only:
