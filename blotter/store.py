@@ -342,8 +342,9 @@ def _map_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
         return StoreError(f"{where}refused by the book: {text}")
     if name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR"):
         return StoreError(
-            f"{where}could not write the book ({name}: {text}); nothing was "
-            "written. Check free disk space and file permissions, then retry"
+            f"{where}the disk or file system refused SQLite ({name}: {text}): the disk may be "
+            "full, or a file may not be writable for you; nothing was written, and this is no "
+            "sign of damage to the book. Free some space or fix the permissions, then retry"
         )
     if name.startswith("SQLITE_CORRUPT") or name == "SQLITE_NOTADB" or "not a database" in text:
         return StoreError(
@@ -466,18 +467,103 @@ def _cutoff_utc(expiry: str, cutoff: str, tz_name: str) -> datetime:
     return local.astimezone(UTC)
 
 
+def _open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:
+    """What an error on a book's first reads means: damage only for SQLite's corruption codes."""
+    if isinstance(exc, UnicodeDecodeError):
+        return StoreError(f"{path} is damaged ({exc}); restore it from a backup")
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    if name == "SQLITE_NOTADB" or "not a database" in str(exc):
+        return StoreError(f"{path} is not a blotter book (SQLite: {exc})")
+    if name.startswith("SQLITE_CORRUPT"):
+        return StoreError(f"{path} is damaged ({exc}); restore it from a backup")
+    folder = path.absolute().parent
+    if (
+        name.startswith(("SQLITE_READONLY", "SQLITE_CANTOPEN"))
+        and not os.path.lexists(f"{path}-shm")
+        and not os.access(folder, os.W_OK)
+    ):
+        return StoreError(
+            f"cannot read {path}: SQLite reads a book through its shared-memory file "
+            f"{path.name}-shm, which does not exist, and you cannot create it because you "
+            f"cannot write to the folder {folder}. The book is not damaged: make the folder "
+            "writable for you, or read a copy kept in a folder you can write to"
+        )
+    return _map_error(exc, path)
+
+
+_CHECKED: dict[str, tuple[Any, ...]] = {}
+"""Per book path, the file state (``_file_state``) that last passed ``_check_file``."""
+
+_CHECK_LOCK = threading.Lock()
+"""Held while a book is checked, so threads opening one unchanged file check it once."""
+
+
+def _file_state(path: Path) -> tuple[Any, ...]:
+    """Device, inode, size and modification time of the book and of its -wal file (None when
+    absent), and the book's ctime: a commit changes the -wal, and a book replaced or rewritten
+    changes its inode or ctime (which no tool can set back). The -wal's ctime is left out: SQLite
+    changes its owner and mode when it opens it, which changes the ctime without a write."""
+    state: list[Any] = []
+    for name in (str(path), f"{path}-wal"):
+        try:
+            st = os.stat(name)
+        except FileNotFoundError:
+            state.append(None)
+            continue
+        ctime = st.st_ctime_ns if name == str(path) else None
+        state.append((st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, ctime))
+    return tuple(state)
+
+
+def integrity_problems(conn: sqlite3.Connection) -> list[str]:
+    """``PRAGMA integrity_check`` of a snapshot of ``conn``'s book, with CHECK constraints.
+
+    SQLite parses no CHECK constraint for a database it opened read-only, so a viewer's own
+    integrity_check cannot see a value its schema forbids; the snapshot (taken by the backup
+    API in one read transaction) is an in-memory database, where they are checked. Returns
+    ``["ok"]`` for a sound book. Costs about the file's size in memory while it runs.
+    """
+    mem = sqlite3.connect(":memory:", isolation_level=None)
+    try:
+        mem.execute("PRAGMA trusted_schema = OFF")
+        conn.backup(mem)
+        return [str(r[0]) for r in mem.execute("PRAGMA integrity_check")]
+    finally:
+        mem.close()
+
+
+def _check_file(conn: sqlite3.Connection, path: Path) -> None:
+    """Refuse a damaged book: ``integrity_problems`` on open, once per file state per process.
+
+    quick_check would miss the two kinds of damage that left a book readable with wrong totals:
+    index entries that no longer match their rows (a lookup then finds the wrong row) and
+    values outside their CHECK constraints (see DEVELOPERS.md, Decisions: the open check).
+    """
+    key = str(path.absolute())
+    with _CHECK_LOCK:
+        state = _file_state(path)
+        if _CHECKED.get(key) == state:
+            return
+        try:
+            problems = integrity_problems(conn)
+        except (sqlite3.Error, UnicodeDecodeError) as exc:
+            raise _open_error(exc, path) from None
+        if problems != ["ok"]:
+            raise StoreError(
+                f"{path} is damaged (SQLite's integrity check: {'; '.join(problems[:3])}); "
+                "restore it from a backup"
+            )
+        _CHECKED[key] = state
+
+
 def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     """Refuse a foreign, empty, damaged or too-new file; return its schema version."""
     try:
         app_id = conn.execute("PRAGMA application_id").fetchone()[0]
         version = conn.execute("PRAGMA user_version").fetchone()[0]
         tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-    except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
-        if "not a database" in str(exc):
-            raise StoreError(f"{path} is not a blotter book (SQLite: {exc})") from None
-        raise StoreError(
-            f"{path} is not a readable blotter book ({exc}); restore it from a backup"
-        ) from None
+    except (sqlite3.Error, UnicodeDecodeError) as exc:
+        raise _open_error(exc, path) from None
     if app_id != APPLICATION_ID:
         if not tables and version == 0:
             raise StoreError(
@@ -493,14 +579,7 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     if not {"trade", "contract", "mark", "mark_set", "underlying"} <= tables:
         raise StoreError(f"{path} is missing blotter tables; restore it from a backup")
     if verify:
-        try:
-            problems = [r[0] for r in conn.execute("PRAGMA quick_check")]
-        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
-            raise StoreError(f"{path} is damaged ({exc}); restore it from a backup") from None
-        if problems != ["ok"]:
-            raise StoreError(
-                f"{path} is damaged ({'; '.join(problems[:3])}); restore it from a backup"
-            )
+        _check_file(conn, path)
     return int(version)
 
 
@@ -510,8 +589,9 @@ def open_store(
     """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
 
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
-    migrated on a read-write open. ``verify`` runs ``PRAGMA quick_check`` first. Raises
-    ``StoreError`` with a plain message for a missing, empty, foreign or damaged file.
+    migrated on a read-write open. ``verify`` checks the file first (``integrity_problems``,
+    once per file state in a process). Raises ``StoreError`` with a plain message for a missing,
+    empty, foreign or damaged file.
     """
     p = Path(path)
     if create and not p.exists():
@@ -766,8 +846,9 @@ def _guard_damage(method: _F) -> _F:
     """A read method whose conversion errors become ``StoreError`` when the file is damaged.
 
     SQLite keeps no checksums, so a damaged byte can reach Python as text that is not a valid
-    date or not UTF-8. Such an error is checked against ``PRAGMA integrity_check``: a damaged
-    file gives a plain ``StoreError``; a sound file lets the original error through (a bug).
+    date or not UTF-8. Such an error is checked against ``integrity_problems`` (CHECK
+    constraints included): a damaged file gives a plain ``StoreError``; a sound file lets the
+    original error through (a bug).
     """
 
     @functools.wraps(method)
@@ -776,7 +857,7 @@ def _guard_damage(method: _F) -> _F:
             return method(self, *args, **kwargs)
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
             try:
-                sound = [r[0] for r in self._conn().execute("PRAGMA integrity_check")] == ["ok"]
+                sound = integrity_problems(self._conn()) == ["ok"]
             except (sqlite3.Error, UnicodeDecodeError):
                 sound = False
             if sound:
@@ -908,10 +989,11 @@ class Store:
         return int(self._conn().execute("PRAGMA user_version").fetchone()[0])
 
     def integrity_ok(self) -> bool:
-        """``integrity_check``, ``foreign_key_check`` and every mark set holding all its marks."""
+        """``integrity_problems`` (CHECKs included), ``foreign_key_check`` and every mark set
+        holding all its marks."""
+        if integrity_problems(self._conn()) != ["ok"]:
+            return False
         with self._read() as conn:
-            if [r[0] for r in conn.execute("PRAGMA integrity_check")] != ["ok"]:
-                return False
             if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
                 return False
             broken = conn.execute(
