@@ -32,6 +32,7 @@ import math
 import os
 import re
 import sqlite3
+import stat
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -116,6 +117,15 @@ class ReadOnlyError(StoreError):
 
     def __init__(self, message: str = "the book is open read-only: nothing can be written") -> None:
         super().__init__(message)
+
+
+class NotWritableError(ReadOnlyError):
+    """The user's permissions do not let them write the book (or the folder its -wal and -shm
+    files go in); nothing was written. ``why`` says which file, in words."""
+
+    def __init__(self, why: str) -> None:
+        super().__init__(f"{why}; nothing was written")
+        self.why = why
 
 
 class SchemaUpgradeNeeded(StoreError):
@@ -337,6 +347,9 @@ def _map_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
             "nothing was written, try again"
         )
     if name.startswith("SQLITE_READONLY") or "readonly database" in text:
+        why = _not_writable(path) if path is not None else None
+        if why is not None:
+            return NotWritableError(why)
         return ReadOnlyError()
     if isinstance(exc, sqlite3.IntegrityError):
         return StoreError(f"{where}refused by the book: {text}")
@@ -491,6 +504,60 @@ def _open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreErr
     return _map_error(exc, path)
 
 
+def _not_writable(path: Path) -> str | None:
+    """Words for the first of the book, its -wal and -shm files and (while those are absent) its
+    folder that this user cannot write; None when nothing stands in the way of a write."""
+    for name in (str(path), f"{path}-wal", f"{path}-shm"):
+        if os.path.lexists(name) and not os.access(name, os.W_OK):
+            return f"you cannot write to {name}"
+    folder = path.absolute().parent
+    sides = os.path.lexists(f"{path}-wal") and os.path.lexists(f"{path}-shm")
+    if not sides and not os.access(folder, os.W_OK):
+        return (
+            f"you cannot write to the folder {folder}, where SQLite keeps {path.name}-wal and "
+            f"{path.name}-shm while {path.name} is written"
+        )
+    return None
+
+
+_FILE_KINDS = (
+    (stat.S_ISFIFO, "a named pipe (FIFO)"),
+    (stat.S_ISCHR, "a character device"),
+    (stat.S_ISBLK, "a block device"),
+    (stat.S_ISSOCK, "a socket"),
+)
+"""File types that are never a book, with their names in words."""
+
+
+def _check_book_path(p: Path) -> bool:
+    """Whether ``p`` exists, refusing in words a path that cannot be a book: a folder, a FIFO or
+    other special file (SQLite would wait forever reading a FIFO), or one behind a folder this
+    user cannot search. Looks at the file type without opening the file."""
+    for name in (str(p), f"{p}-wal", f"{p}-shm"):
+        try:
+            mode = os.stat(name).st_mode
+        except FileNotFoundError:
+            if name == str(p):
+                return False
+            continue
+        except PermissionError:
+            raise StoreError(
+                f"cannot reach {name}: a folder on its path does not let you search it "
+                "(permission denied); you need execute (x) permission on every folder down to "
+                f"{p.absolute().parent}"
+            ) from None
+        except NotADirectoryError:
+            raise StoreError(f"no book at {p}: part of the path is a file, not a folder") from None
+        except OSError as exc:
+            raise StoreError(f"cannot look at {name}: {exc.strerror}") from None
+        if stat.S_ISDIR(mode):
+            raise StoreError(f"{name} is a directory, not a book file")
+        for test, words in _FILE_KINDS:
+            if test(mode):
+                raise StoreError(f"{name} is {words}, not a book file; nothing was read")
+    return True
+
+
 _CHECKED: dict[str, tuple[Any, ...]] = {}
 """Per book path, the file state (``_file_state``) that last passed ``_check_file``."""
 
@@ -591,17 +658,19 @@ def open_store(
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
     migrated on a read-write open. ``verify`` checks the file first (``integrity_problems``,
     once per file state in a process). Raises ``StoreError`` with a plain message for a missing,
-    empty, foreign or damaged file.
+    empty, foreign, damaged or special file; ``NotWritableError`` when a read-write open meets a
+    book this user cannot write.
     """
     p = Path(path)
-    if create and not p.exists():
+    exists = _check_book_path(p)
+    if create and not exists:
         return create_store(p)
-    if not p.exists():
+    if not exists:
         raise StoreError(
             f"no book at {p} (check the path, or make one with `blotter demo --out {p}`)"
         )
-    if p.is_dir():
-        raise StoreError(f"{p} is a directory, not a book file")
+    if not read_only and (why := _not_writable(p)) is not None:
+        raise NotWritableError(why)
     mode = _IMMUTABLE if read_only and _is_shipped_demo(p) else None
     try:
         conn = _connect(p, read_only, mode)
@@ -674,7 +743,13 @@ def create_store(path: str | os.PathLike[str]) -> Store:
     or writable by other users; SQLite gives its -wal and -shm files the same permissions.
     """
     p = Path(path)
-    if p.exists() or p.is_symlink():
+    try:
+        os.lstat(p)
+    except FileNotFoundError:
+        pass
+    except OSError as exc:  # e.g. a folder on the path that this user cannot search
+        raise StoreError(f"cannot create {p}: {exc.strerror}") from None
+    else:
         raise StoreError(f"{p} already exists; choose another path")
     try:
         fd = os.open(p, os.O_WRONLY | os.O_CREAT | os.O_EXCL, FILE_MODE)

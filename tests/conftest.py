@@ -22,6 +22,17 @@ from blotter.demo import build_demo
 from blotter.store import FILE_MODE, create_store
 
 
+@pytest.fixture(autouse=True)
+def _no_user_settings(
+    monkeypatch: pytest.MonkeyPatch, tmp_path_factory: pytest.TempPathFactory
+) -> None:
+    """No test reads the settings file or ``BLOTTER_READ_ONLY`` of the user running the tests:
+    the commands read the read-only setting as the app does."""
+    monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path_factory.getbasetemp() / "no-settings"))
+    monkeypatch.delenv("BLOTTER_CONFIG", raising=False)
+    monkeypatch.delenv("BLOTTER_READ_ONLY", raising=False)
+
+
 @pytest.fixture(scope="session")
 def demo_master(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The demo book built once for the session; never write to it (use ``demo_db``)."""
@@ -70,7 +81,8 @@ def shared_dir() -> Iterator[Path]:
 
 @pytest.fixture
 def as_other_user(shared_dir: Path) -> RunAs:
-    """Run ``blotter ARGS`` in a new process under a user whom file permissions bind.
+    """Run ``python ARGS`` (e.g. ``-m blotter ...``) in a new process under a user whom file
+    permissions bind.
 
     Root's permission bits never stop it, so as root the command runs as ``nobody`` (through
     util-linux ``setpriv``); as any other user it runs as that user, whom the bits do bind. The
@@ -94,7 +106,7 @@ def as_other_user(shared_dir: Path) -> RunAs:
 
     def run(*args: str, timeout: float = 60) -> subprocess.CompletedProcess[str]:
         return subprocess.run(
-            [*prefix, sys.executable, "-m", "blotter", *args],
+            [*prefix, sys.executable, *args],
             capture_output=True,
             text=True,
             env=env,

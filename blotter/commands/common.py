@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
 import sys
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -37,15 +38,26 @@ def db_option(func: F) -> F:
 
 def open_for_reading(path: str) -> Any:
     """``open_store(path, read_only=True)``; a file of an older schema is first upgraded by a
-    read-write open (saying so on stderr), unless the group's ``--read-only`` forbids writing."""
-    from blotter.store import SchemaUpgradeNeeded, open_store
+    read-write open (saying so on stderr), unless read-only is on or the user cannot write it."""
+    from blotter.store import NotWritableError, SchemaUpgradeNeeded, StoreError, open_store
 
     try:
         return open_store(path, read_only=True)
     except SchemaUpgradeNeeded as exc:
-        if read_only_requested():
-            raise
-        open_store(path).close()
+        source = read_only_source()
+        if source is not None:
+            raise SchemaUpgradeNeeded(
+                f"{path} uses an older schema ({exc.version}), and read-only is on ({source}), "
+                "so it was not upgraded; run once without read-only to upgrade it",
+                exc.version,
+            ) from None
+        try:
+            open_store(path).close()
+        except NotWritableError as denied:
+            raise StoreError(
+                f"{path} uses an older schema ({exc.version}), which this blotter upgrades on "
+                f"open, but {denied.why}: ask whoever can write it to open it once"
+            ) from None
         click.echo(f"blotter: upgraded {path} from schema {exc.version}", err=True)
         return open_store(path, read_only=True)
 
@@ -55,8 +67,9 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
 
     Returns (path, explicit). When no path was given anywhere, the per-user copy of the shipped
     demo book is made on first use and its path returned; a note saying which file goes to stderr.
-    Under the group's ``--read-only`` nothing is copied: the existing per-user copy is returned,
-    else the shipped demo file itself (which ``open_store`` opens read-only without side files).
+    Under read-only (``read_only_source``) nothing is copied: the existing per-user copy is
+    returned, else the shipped demo file itself (which ``open_store`` opens read-only without
+    side files).
     """
     ctx = click.get_current_context(silent=True)
     group: AppContext | None = ctx.find_object(AppContext) if ctx else None
@@ -65,7 +78,7 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
         return path, True
     from blotter.store import shipped_demo_path, user_data_dir, user_demo_copy
 
-    if group is not None and group.read_only:
+    if read_only_requested():
         copy = user_data_dir() / "demo.db"
         if copy.exists():
             click.echo(f"blotter: no --db given; opening your demo book {copy} read-only", err=True)
@@ -82,11 +95,30 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
     return str(demo), False
 
 
-def read_only_requested() -> bool:
-    """True when the group was given ``--read-only``."""
+def read_only_source() -> str | None:
+    """Where read-only was asked for, in words, or None: the group's ``--read-only``, else the
+    settings (``BLOTTER_READ_ONLY``, then ``read_only`` in the settings file), by the rule the
+    app's settings follow, so every command and the app agree. A bad settings file is an error."""
+    from blotter.config import ConfigError, config_path, load_settings
+
     ctx = click.get_current_context(silent=True)
     group: AppContext | None = ctx.find_object(AppContext) if ctx else None
-    return bool(group and group.read_only)
+    if group is not None and group.read_only:
+        return "--read-only"
+    try:
+        settings = load_settings()
+    except ConfigError as exc:
+        raise click.ClickException(f"settings: {exc}") from None
+    if not settings.read_only:
+        return None
+    if "BLOTTER_READ_ONLY" in os.environ:
+        return f"BLOTTER_READ_ONLY={os.environ['BLOTTER_READ_ONLY']}"
+    return f"read_only in {config_path()}"
+
+
+def read_only_requested() -> bool:
+    """True when read-only is on (see ``read_only_source``)."""
+    return read_only_source() is not None
 
 
 def output_options(func: F) -> F:

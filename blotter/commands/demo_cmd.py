@@ -28,13 +28,14 @@ def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None
     Every name and number in it is made up. With the defaults this writes exactly the shipped
     demo.db.
     """
-    from blotter.commands.common import read_only_requested
+    from blotter.commands.common import read_only_source
     from blotter.demo import DEMO_SEED, build_demo, describe
     from blotter.store import StoreError
 
-    if read_only_requested():
+    if (source := read_only_source()) is not None:
         raise click.ClickException(
-            f"blotter --read-only: `demo` writes a book file, so nothing was written to {out}"
+            f"read-only is on ({source}): `demo` writes a book file, so nothing was written "
+            f"to {out}"
         )
     try:
         path = build_demo(

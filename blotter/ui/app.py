@@ -123,6 +123,7 @@ class BlotterApp(App[None]):
         self._stop_watch = threading.Event()
         self.trials: list[data.TrialTrade] = []
         self._trial_seq = 0
+        self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
         self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
         if self.settings.keymap:
@@ -150,6 +151,8 @@ class BlotterApp(App[None]):
         self.load_book()
         if self.settings.watch_interval_s > 0:
             self.watch_store(self.settings.watch_interval_s)
+        if self.startup_notice:
+            self.notify(self.startup_notice, title="Read-only", severity="warning", markup=False)
 
     def on_unmount(self) -> None:
         self._stop_watch.set()

@@ -7,6 +7,7 @@ import csv
 import io
 import json
 from pathlib import Path
+from typing import Any
 
 import pytest
 from cli_helpers import run
@@ -131,8 +132,70 @@ def test_read_only_group_option_refuses_every_write(demo_db: Path, tmp_path: Pat
         ("trade", "cancel", "1", "--reason", "x"),
     ]:
         r = run("--read-only", "--db", db, *args, code=1)
-        assert "the book is open read-only" in r.stderr
+        assert f"read-only is on (--read-only): nothing was written to {db}" in r.stderr
     assert run("--read-only", "--db", db, "mark", "list", "--sets").exit_code == 0
+
+
+WRITE_COMMANDS = [
+    ("mark", "spot", "DEMOA", "181"),
+    ("mark", "vol", "DEMOA", "2027-03-19", "0.3"),
+    ("mark", "rate", "USD", "30", "4%"),
+    ("mark", "divyield", "DEMOA", "1%"),
+    ("mark", "close"),
+    ("mark", "import", "{csv}"),
+    ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "equity-vol"),
+    ("trade", "cancel", "1", "--reason", "x"),
+    ("trade", "amend", "1", "--price", "2", "--reason", "x"),
+    ("trade", "import", "{csv}"),
+    ("underlying", "add", "NEWU", "--kind", "stock", "--currency", "USD", "--multiplier", "100"),
+]
+"""Every command that writes to a book (arguments; ``{csv}`` is a file to import)."""
+
+
+@pytest.mark.parametrize("how", ["flag", "environment", "settings file"])
+def test_read_only_means_the_same_however_it_is_set(
+    demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch, how: str
+) -> None:
+    """--read-only, BLOTTER_READ_ONLY=1 and read_only = true in the settings file refuse every
+    write command, `demo` and `create`, and open the app read-only; BLOTTER_READ_ONLY stopped
+    only the app before."""
+    db = str(demo_db)
+    csv_file = tmp_path / "m.csv"
+    csv_file.write_text("kind,symbol,value\nspot,DEMOA,1\n")
+    group: tuple[str, ...] = ()
+    if how == "flag":
+        group, source = ("--read-only",), "--read-only"
+    elif how == "environment":
+        monkeypatch.setenv("BLOTTER_READ_ONLY", "1")
+        source = "BLOTTER_READ_ONLY=1"
+    else:
+        settings = tmp_path / "settings.toml"
+        settings.write_text("read_only = true\n", encoding="utf-8")
+        monkeypatch.setenv("BLOTTER_CONFIG", str(settings))
+        source = f"read_only in {settings}"
+    before = demo_db.read_bytes()
+    for args in WRITE_COMMANDS:
+        cmd = [a.format(csv=csv_file) for a in args]
+        r = run(*group, "--db", db, *cmd, code=1)
+        assert f"read-only is on ({source}): nothing was written to {db}" in r.stderr, cmd
+    for args in [("demo", "--out", str(tmp_path / "d.db")), ("create", str(tmp_path / "c.db"))]:
+        r = run(*group, *args, code=1)
+        assert f"read-only is on ({source})" in r.stderr and not Path(args[-1]).exists()
+    assert json.loads(run(*group, "--db", db, "trade", "list", "--json").stdout)
+    assert demo_db.read_bytes() == before
+
+    ran: list[Any] = []
+
+    class App:  # stands in for the app: keeps the settings it was built with
+        def __init__(self, path: str, settings: Any) -> None:
+            self.settings = settings
+
+        def run(self, mouse: bool = True) -> None:
+            ran.append(self.settings)
+
+    monkeypatch.setattr("blotter.ui.app.make_app", App)
+    run(*group, "--db", db)
+    assert ran[0].read_only
 
 
 def test_marks_logged_closed_and_listed(demo_db: Path) -> None:
@@ -363,7 +426,7 @@ def test_read_only_without_db_opens_the_shipped_demo_and_copies_nothing(
     assert {p.name for p in shipped.parent.iterdir()} == {"demo.db"}  # nor any side file
     assert shipped.read_bytes() == content
     r = run("--read-only", "mark", "spot", "DEMOA", "1", code=1)
-    assert "the book is open read-only" in r.stderr
+    assert "read-only is on (--read-only): nothing was written" in r.stderr
 
 
 def test_read_only_without_db_opens_the_existing_users_copy(tmp_path: Path, shipped: Path) -> None:
@@ -445,3 +508,4 @@ def test_a_hedge_default_that_would_not_net_old_hedges_is_refused(tmp_path: Path
     run("--db", db, "trade", "add", "QQZ", "--qty", "-5", "--price", "51", "--multiplier", "100")
     book = open_store(db, read_only=True).load_book()
     assert len(book) == 0  # the two trades net to nothing on one contract
+

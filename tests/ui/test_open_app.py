@@ -75,16 +75,20 @@ def test_an_old_schema_book_is_upgraded_before_the_app_starts(
     read-only, and a read-only open refuses an older schema); with it, a clear refusal."""
     import sqlite3
 
-    from blotter.store import SCHEMA_VERSION, open_store
+    from blotter.store import APPLICATION_ID, SCHEMA_VERSION, open_store
 
     old = tmp_path / "old.db"
-    with open_store(old, create=True) as s:
-        s.add_book("main")
+    v1 = Path(__file__).parents[1] / "store" / "data" / "schema_v1.sql"
     conn = sqlite3.connect(old)
-    conn.execute("PRAGMA user_version = 2")  # the v3 step only relaxes a trigger
+    conn.execute("PRAGMA journal_mode = WAL")
+    conn.executescript(v1.read_text(encoding="utf-8"))  # a book of the first schema
+    conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+    conn.execute("PRAGMA user_version = 1")
+    conn.execute("INSERT INTO book (name) VALUES ('main')")
+    conn.commit()
     conn.close()
     refused = CliRunner().invoke(main, ["--db", str(old), "--read-only"])
-    assert refused.exit_code != 0 and "older schema (2)" in refused.output and not built
+    assert refused.exit_code != 0 and "older schema (1)" in refused.output and not built
     result = CliRunner().invoke(main, ["--db", str(old)], catch_exceptions=False)
     assert result.exit_code == 0, result.output
     assert len(built) == 1
