@@ -21,7 +21,12 @@ import click
     help="Option positions (default 150, the shipped demo); e.g. 100000 for benchmarks.",
 )
 @click.option("--seed", type=int, default=None, help="Random seed (default: the shipped demo's).")
-@click.option("--force", is_flag=True, help="Replace OUT if it exists (not while it is in use).")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace OUT if it is a demo book (never a book holding other trades or marks, nor one "
+    "in use).",
+)
 def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None:
     """Write an invented demo book: a fictitious desk, five fictitious underlyings, trades, marks.
 

@@ -80,6 +80,7 @@ def test_a_book_behind_a_folder_the_user_cannot_search_is_named_not_a_traceback(
         ("--db", str(book), "mark", "spot", "DEMOA", "181"),
         ("--db", str(book), "risk"),
         ("create", str(book.parent / "new.db")),
+        ("demo", "--out", str(book.parent / "new.db")),
     ]:
         r = as_other_user("-m", "blotter", *args)
         assert r.returncode == 1, (args, r.stdout, r.stderr)

@@ -509,3 +509,57 @@ def test_a_hedge_default_that_would_not_net_old_hedges_is_refused(tmp_path: Path
     book = open_store(db, read_only=True).load_book()
     assert len(book) == 0  # the two trades net to nothing on one contract
 
+
+def test_demo_force_replaces_only_a_demo_book(tmp_path: Path, demo_db: Path) -> None:
+    """`demo --out BOOK --force` overwrote a book holding real trades, exit 0. A file that is not
+    a demo book is refused and left byte for byte; a demo book is still replaced."""
+    traded = tmp_path / "traded.db"
+    traded.write_bytes(demo_db.read_bytes())
+    db = str(traded)
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "equity-vol", "--db", db)
+    marked = tmp_path / "marked.db"
+    marked.write_bytes(demo_db.read_bytes())
+    run("mark", "spot", "DEMOA", "181", "--db", str(marked))
+    own = tmp_path / "own.db"
+    run("create", str(own), "--book", "desk")
+    text = tmp_path / "notes.txt"
+    text.write_text("not a book\n")
+    for path, words in [
+        (traded, "it holds 1 trades"),
+        (marked, "it holds 1 mark sets"),
+        (own, "books desk"),
+        (text, "cannot be read as a blotter book"),
+    ]:
+        before = path.read_bytes()
+        r = run("demo", "--out", str(path), "--force", code=1)
+        assert f"{path} is not a demo book" in r.stderr and words in r.stderr, r.stderr
+        assert "Nothing was written" in r.stderr
+        assert path.read_bytes() == before
+    demo = tmp_path / "demo.db"
+    demo.write_bytes(demo_db.read_bytes())
+    run("demo", "--out", str(demo), "--positions", "40", "--force")
+    with open_store(demo, read_only=True) as s:
+        assert int(s.load_book().is_option.sum()) == 40
+
+
+def test_demo_force_refuses_a_book_written_to_while_it_built(
+    tmp_path: Path, demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The book is looked at again just before the new one is renamed over it."""
+    import blotter.demo as demo_module
+
+    out = tmp_path / "demo.db"
+    out.write_bytes(demo_db.read_bytes())
+    real_fill = demo_module._fill
+
+    def fill_while_someone_trades(*args: object) -> None:
+        with open_store(out) as other:
+            other.add_trade("equity-vol", "DEMOA", 2, 1.0)
+        real_fill(*args)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(demo_module, "_fill", fill_while_someone_trades)
+    r = run("demo", "--out", str(out), "--force", code=1)
+    assert "it holds 1 trades" in r.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo.db"]  # no half-built file left
+    with open_store(out, read_only=True) as s:
+        assert [t.quantity for t in s.trades() if t.who != "demo"] == [2]
