@@ -13,6 +13,8 @@ from typing import Any, TypeVar
 
 import click
 
+from blotter.printable import printable
+
 F = TypeVar("F", bound=Callable[..., Any])
 
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
@@ -181,12 +183,15 @@ def print_table(
     """Print an aligned plain-text table for people; cells are never cut and no column is dropped,
     whatever the terminal width (a wide table runs past the edge rather than losing data).
 
-    ``right`` marks numeric columns to right-align; None cells print empty.
+    ``right`` marks numeric columns to right-align; None cells print empty. Control characters
+    in any cell print as escapes (``blotter.printable``), so a note cannot drive the terminal.
     """
-    cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
+    cells = [[printable(str(c)) for c in columns]] + [
+        ["" if c is None else printable(str(c)) for c in r] for r in rows
+    ]
     widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
     if title:
-        click.echo(title)
+        click.echo(printable(title))
     for k, r in enumerate(cells):
         parts = [
             c.rjust(w) if (right and right[i]) else c.ljust(w)

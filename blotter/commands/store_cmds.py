@@ -26,6 +26,7 @@ from blotter.commands.common import (
     read_only_source,
     resolve_db,
 )
+from blotter.printable import printable
 
 
 @contextmanager
@@ -103,10 +104,11 @@ def parse_decimal_or_percent(text: str, what: str) -> float:
 
 
 def _emit(as_json: bool, payload: dict[str, Any], text: str) -> None:
+    """``payload`` as JSON, or ``text`` for people with control characters escaped."""
     if as_json:
         print_json(payload)
     else:
-        click.echo(text)
+        click.echo(printable(text))
 
 
 # ---------------------------------------------------------------------------------------------

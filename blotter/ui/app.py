@@ -25,6 +25,7 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
+from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import KEYS, app_bindings
 from blotter.ui.messages import (
@@ -152,7 +153,8 @@ class BlotterApp(App[None]):
         if self.settings.watch_interval_s > 0:
             self.watch_store(self.settings.watch_interval_s)
         if self.startup_notice:
-            self.notify(self.startup_notice, title="Read-only", severity="warning", markup=False)
+            notice = printable(self.startup_notice)
+            self.notify(notice, title="Read-only", severity="warning", markup=False)
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -332,7 +334,13 @@ class BlotterApp(App[None]):
     def on_load_failed(self, message: LoadFailed) -> None:
         self._hide_progress()
         self.query_one(HeaderLine).show_error(message.reason)
-        self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
+        self.notify(
+            printable(message.reason),
+            title="Book not loaded",
+            severity="error",
+            timeout=10,
+            markup=False,
+        )
 
     # -- the store's change check ---------------------------------------------------------------
     @work(

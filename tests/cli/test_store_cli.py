@@ -563,3 +563,55 @@ def test_demo_force_refuses_a_book_written_to_while_it_built(
     assert sorted(p.name for p in tmp_path.iterdir()) == ["demo.db"]  # no half-built file left
     with open_store(out, read_only=True) as s:
         assert [t.quantity for t in s.trades() if t.who != "demo"] == [2]
+
+
+CONTROLS = (
+    "\x1b]2;TITLE\x07",  # set the window title (OSC 2 ... BEL)
+    "\x1b[2J",  # clear the screen (CSI 2 J)
+    "\x9b31m",  # the same as ESC [ through the one-byte C1 CSI
+    "\u202e",  # right-to-left override
+)
+"""Terminal control sequences a note or book name may carry (ECMA-48; Unicode UAX #9)."""
+
+
+def _raw_controls(text: str) -> list[str]:
+    import unicodedata
+
+    return [c for c in text if unicodedata.category(c) in ("Cc", "Cf") and c != "\n"]
+
+
+def test_notes_and_book_names_cannot_drive_the_terminal(demo_db: Path, tmp_path: Path) -> None:
+    """Table output prints control characters as escapes; CSV and JSON keep the text exactly
+    (JSON escapes it by itself), and CSV cells that start like a formula are neutralised."""
+    db = str(demo_db)
+    book = f"desk{CONTROLS[0]}"
+    note = "".join(CONTROLS) + "end"
+    r = run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--new-book",
+            "--note", note, "--db", db)
+    assert _raw_controls(r.stdout) == [] and "\\x1b]2;TITLE\\x07" in r.stdout
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--note",
+        "=HYPERLINK(\"http://x\")", "--db", db)
+    run("mark", "close", "--note", note, "--db", db)
+    run("underlying", "add", "ESCU", "--kind", "stock", "--currency", "USD", "--multiplier",
+        "100", "--description", note, "--db", db)
+    for args in [("trade", "list"), ("mark", "list", "--sets")]:
+        out = run(*args, "--db", db).stdout
+        assert _raw_controls(out) == [], args
+        assert "\\x1b]2;TITLE\\x07\\x1b[2J\\x9b31m\\u202eend" in out, args
+    assert _raw_controls(run("underlying", "list", "--db", db).stdout) == []
+    listed = json.loads(run("trade", "list", "--json", "--db", db).stdout)
+    assert {t["note"] for t in listed if t["book"] == book} == {note, '=HYPERLINK("http://x")'}
+    assert "\x1b" not in run("trade", "list", "--json", "--db", db).stdout
+    sets = json.loads(run("mark", "list", "--sets", "--json", "--db", db).stdout)
+    assert sets[-1]["note"] == note
+    exported = run("trade", "list", "--csv", "--db", db).stdout
+    rows = list(csv.DictReader(io.StringIO(exported)))
+    assert {r["note"] for r in rows if r["book"] == book} == {note, "'=HYPERLINK(\"http://x\")"}
+    again = tmp_path / "again.db"
+    _fresh_book_with_underlyings_of(demo_db, again)
+    mine = tmp_path / "mine.csv"
+    lines = exported.splitlines(keepends=True)
+    mine.write_text(lines[0] + "".join(x for x in lines[1:] if book in x), encoding="utf-8")
+    run("trade", "import", str(mine), "--new-books", "--db", str(again))
+    back = json.loads(run("trade", "list", "--json", "--db", str(again)).stdout)
+    assert sorted(t["note"] for t in back) == sorted([note, '=HYPERLINK("http://x")'])
