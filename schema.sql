@@ -327,3 +327,72 @@ CREATE TRIGGER mark_set_correction_same_day BEFORE INSERT ON mark_set
 WHEN NEW.corrects IS NOT NULL
  AND NEW.business_date IS NOT (SELECT business_date FROM mark_set WHERE mark_set_id = NEW.corrects)
 BEGIN SELECT RAISE(ABORT, 'a correction closes the business date of the close it corrects'); END;
+
+-- @version 5 ------------------------------------------------------------------------------------
+
+-- No row of history is replaced. INSERT OR REPLACE (and REPLACE INTO) deletes the rows a new row
+-- collides with without firing DELETE triggers unless the connection sets recursive_triggers, so
+-- each append-only table refuses an insert that collides with a row on its key or any unique
+-- index. The store also turns recursive_triggers on, so its own connections fire the no-delete
+-- triggers above as a second fence. (In a BEFORE INSERT trigger NEW holds the values after type
+-- affinity, and an unassigned INTEGER PRIMARY KEY reads as -1, which no row holds.)
+CREATE TRIGGER underlying_no_replace BEFORE INSERT ON underlying
+WHEN EXISTS (SELECT 1 FROM underlying WHERE underlying_id = NEW.underlying_id)
+  OR EXISTS (SELECT 1 FROM underlying WHERE symbol = NEW.symbol)
+  OR (NEW.is_reference = 1 AND EXISTS (SELECT 1 FROM underlying WHERE is_reference = 1))
+BEGIN SELECT RAISE(ABORT, 'underlyings are never replaced: one with this id, symbol or reference flag exists'); END;
+
+CREATE TRIGGER contract_no_replace BEFORE INSERT ON contract
+WHEN EXISTS (SELECT 1 FROM contract WHERE contract_id = NEW.contract_id)
+  OR EXISTS (SELECT 1 FROM contract
+             WHERE underlying_id = NEW.underlying_id AND option_type = NEW.option_type
+               AND coalesce(expiry, '') = coalesce(NEW.expiry, '')
+               AND coalesce(strike, 0) = coalesce(NEW.strike, 0) AND american = NEW.american
+               AND multiplier = NEW.multiplier AND cash_settled = NEW.cash_settled)
+BEGIN SELECT RAISE(ABORT, 'contracts are never replaced: one with this id or these terms exists'); END;
+
+CREATE TRIGGER book_no_replace BEFORE INSERT ON book
+WHEN EXISTS (SELECT 1 FROM book WHERE book_id = NEW.book_id)
+  OR EXISTS (SELECT 1 FROM book WHERE name = NEW.name)
+BEGIN SELECT RAISE(ABORT, 'books are never replaced: one with this id or name exists'); END;
+
+CREATE TRIGGER trade_no_replace BEFORE INSERT ON trade
+WHEN EXISTS (SELECT 1 FROM trade WHERE trade_id = NEW.trade_id)
+  OR (NEW.replaces IS NOT NULL AND EXISTS (SELECT 1 FROM trade WHERE replaces = NEW.replaces))
+BEGIN SELECT RAISE(ABORT, 'trades are never replaced: cancel or amend instead'); END;
+
+CREATE TRIGGER trade_cancel_no_replace BEFORE INSERT ON trade_cancel
+WHEN EXISTS (SELECT 1 FROM trade_cancel WHERE cancel_id = NEW.cancel_id)
+  OR EXISTS (SELECT 1 FROM trade_cancel WHERE trade_id = NEW.trade_id)
+BEGIN SELECT RAISE(ABORT, 'cancels are never replaced: this cancel or a cancel of this trade exists'); END;
+
+CREATE TRIGGER mark_set_no_replace BEFORE INSERT ON mark_set
+WHEN EXISTS (SELECT 1 FROM mark_set WHERE mark_set_id = NEW.mark_set_id)
+  OR (NEW.corrects IS NOT NULL AND EXISTS (SELECT 1 FROM mark_set WHERE corrects = NEW.corrects))
+BEGIN SELECT RAISE(ABORT, 'mark sets are never replaced: commit a correcting set'); END;
+
+CREATE TRIGGER mark_no_replace BEFORE INSERT ON mark
+WHEN EXISTS (SELECT 1 FROM mark WHERE mark_id = NEW.mark_id)
+  OR EXISTS (SELECT 1 FROM mark WHERE mark_set_id = NEW.mark_set_id AND seq = NEW.seq)
+  OR EXISTS (SELECT 1 FROM mark
+             WHERE mark_set_id = NEW.mark_set_id AND kind = NEW.kind
+               AND coalesce(underlying_id, 0) = coalesce(NEW.underlying_id, 0)
+               AND coalesce(currency, '') = coalesce(NEW.currency, '')
+               AND coalesce(expiry, '') = coalesce(NEW.expiry, '')
+               AND coalesce(strike, 0) = coalesce(NEW.strike, 0)
+               AND coalesce(tenor_days, 0) = coalesce(NEW.tenor_days, 0))
+BEGIN SELECT RAISE(ABORT, 'marks are never replaced: log a new mark'); END;
+
+CREATE TRIGGER desk_note_no_replace BEFORE INSERT ON desk_note
+WHEN EXISTS (SELECT 1 FROM desk_note WHERE note_id = NEW.note_id)
+BEGIN SELECT RAISE(ABORT, 'notes are never replaced'); END;
+
+CREATE TRIGGER import_file_no_replace BEFORE INSERT ON import_file
+WHEN EXISTS (SELECT 1 FROM import_file WHERE import_id = NEW.import_id)
+  OR EXISTS (SELECT 1 FROM import_file WHERE kind = NEW.kind AND sha256 = NEW.sha256)
+BEGIN SELECT RAISE(ABORT, 'import records are never replaced'); END;
+
+CREATE TRIGGER history_no_replace BEFORE INSERT ON history
+WHEN EXISTS (SELECT 1 FROM history WHERE seq = NEW.seq)
+  OR EXISTS (SELECT 1 FROM history WHERE kind = NEW.kind AND row_id = NEW.row_id)
+BEGIN SELECT RAISE(ABORT, 'the store''s order of history is never replaced'); END;

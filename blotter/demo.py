@@ -258,8 +258,9 @@ def build_demo(
     (``DEMO_POSITIONS`` when None; a larger number builds a synthetic book of the same kind).
 
     The book is built in a temporary file beside ``path`` and renamed into place, so ``path`` is
-    never half-written. An existing ``path`` is refused unless ``force``; a book in use (its
-    ``-wal`` file holds data) is always refused.
+    never half-written. An existing ``path`` is refused unless ``force``, and even then unless it
+    is a demo book (``_not_demo``); a book in use (its ``-wal`` file holds data) is always
+    refused.
     """
     from blotter.engine import price
 
@@ -267,8 +268,9 @@ def build_demo(
     n_options = DEMO_POSITIONS if positions is None else int(positions)
     if n_options < 0:
         raise StoreError("--positions must not be negative")
-    if out.exists() and not force:
+    if _exists(out) and not force:
         raise StoreError(f"{out} already exists; pass --force to replace it")
+    _refuse_unless_demo(out)
     wal = Path(f"{out}-wal")
     if wal.exists() and wal.stat().st_size > 0:
         raise StoreError(
@@ -286,11 +288,97 @@ def build_demo(
         _remove_book_files(tmp)
         raise
     store.close()
+    try:
+        _refuse_unless_demo(out)  # again: a book may have been written there while this built
+    except BaseException:
+        _remove_book_files(tmp)
+        raise
     os.replace(tmp, out)
     for side in (tmp, out):  # empty side files left by readers of the old file
         for suffix in ("-wal", "-shm"):
             _remove_book_files(Path(f"{side}{suffix}"))
     return out
+
+
+def _exists(path: Path) -> bool:
+    """Whether anything is at ``path``; a path this user cannot look at is refused in words."""
+    try:
+        os.lstat(path)
+    except FileNotFoundError:
+        return False
+    except OSError as exc:  # e.g. a folder on the path that this user cannot search
+        raise StoreError(f"cannot write {path}: {exc.strerror}") from None
+    return True
+
+
+def _refuse_unless_demo(path: Path) -> None:
+    """Refuse to replace ``path`` unless nothing is there or it is a book ``demo`` wrote.
+
+    A demo book holds only rows entered as ``DEMO_WHO`` from the demo's own sources, the demo's
+    underlyings and books, and no import; anything else is someone's data, which ``--force``
+    must not destroy."""
+    if not _exists(path):
+        return
+    why = _not_demo(path)
+    if why is not None:
+        raise StoreError(
+            f"{path} is not a demo book ({why}); --force replaces only a book that `blotter "
+            "demo` wrote. Nothing was written: choose another --out, or move the file away "
+            "yourself"
+        )
+
+
+def _not_demo(path: Path) -> str | None:
+    """Why the file at ``path`` is not a demo book, in words, or None when it is one."""
+    import sqlite3
+    from urllib.parse import quote
+
+    from blotter.store import APPLICATION_ID
+
+    if not path.is_file() or path.is_symlink():
+        return "it is not a regular file"
+    # With no -wal beside it no connection has the book open (a blotter book is always in WAL
+    # mode), so it is read as immutable: a read-only open would leave -wal and -shm behind.
+    idle = not os.path.lexists(f"{path}-wal")
+    mode = "ro&immutable=1" if idle else "ro"
+    try:
+        conn = sqlite3.connect(f"file:{quote(str(path.absolute()))}?mode={mode}", uri=True)
+    except sqlite3.Error as exc:
+        return f"SQLite cannot open it: {exc}"
+    try:
+        if conn.execute("PRAGMA application_id").fetchone()[0] != APPLICATION_ID:
+            return "it is not a blotter book"
+        tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+        demo = (DEMO_WHO,)
+        counts = {
+            "trades": "SELECT count(*) FROM trade WHERE who <> ? OR source <> 'demo'",
+            "cancels": "SELECT count(*) FROM trade_cancel WHERE who <> ?",
+            "mark sets": "SELECT count(*) FROM mark_set WHERE who <> ? OR source <> 'demo'",
+            "notes": "SELECT count(*) FROM desk_note WHERE who <> ?",
+        }
+        found = [
+            f"{n} {what}"
+            for what, sql in counts.items()
+            if (n := conn.execute(sql, demo).fetchone()[0])
+        ]
+        if (
+            "import_file" in tables
+            and conn.execute("SELECT count(*) FROM import_file").fetchone()[0]
+        ):
+            found.append("imported files")
+        symbols = {r[0] for r in conn.execute("SELECT symbol FROM underlying")}
+        if extra := sorted(symbols - {u.symbol for u in UNDERLYINGS}):
+            found.append(f"underlyings {', '.join(extra)}")
+        books = {r[0] for r in conn.execute("SELECT name FROM book")}
+        if extra := sorted(books - {u.book for u in UNDERLYINGS}):
+            found.append(f"books {', '.join(extra)}")
+    except (sqlite3.Error, UnicodeDecodeError) as exc:
+        return f"it cannot be read as a blotter book: {exc}"
+    finally:
+        conn.close()
+    if found:
+        return "it holds " + "; ".join(found) + " not written by `blotter demo`"
+    return None
 
 
 def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) -> None:

@@ -2,10 +2,10 @@
 
 ``schema.sql`` is the only definition of the database. Every connection runs with
 ``isolation_level=None`` (no implicit transactions), a busy timeout, foreign keys on,
-``synchronous=FULL`` and ``trusted_schema=OFF``; every write goes through one helper that runs
-``BEGIN IMMEDIATE`` ... ``COMMIT`` and rolls back on any error, so no call leaves a transaction
-open. Read-only stores open the file by URI ``mode=ro`` with ``query_only`` on and ATTACH
-disabled. Each thread that uses a ``Store`` gets its own connection.
+``recursive_triggers`` on, ``synchronous=FULL`` and ``trusted_schema=OFF``; every write goes
+through one helper that runs ``BEGIN IMMEDIATE`` ... ``COMMIT`` and rolls back on any error,
+so no call leaves a transaction open. Read-only stores open the file by URI ``mode=ro`` with
+``query_only`` on and ATTACH disabled. Each thread that uses a ``Store`` gets its own connection.
 
 A read-only viewer writes nothing and creates no file, with one exception SQLite imposes: a WAL
 reader needs the ``-shm`` index, so when the book's ``-wal``/``-shm`` files are absent and the
@@ -31,6 +31,7 @@ import io
 import os
 import re
 import sqlite3
+import stat
 import threading
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -117,6 +118,15 @@ class ReadOnlyError(StoreError):
 
     def __init__(self, message: str = "the book is open read-only: nothing can be written") -> None:
         super().__init__(message)
+
+
+class NotWritableError(ReadOnlyError):
+    """The user's permissions do not let them write the book (or the folder its -wal and -shm
+    files go in); nothing was written. ``why`` says which file, in words."""
+
+    def __init__(self, why: str) -> None:
+        super().__init__(f"{why}; nothing was written")
+        self.why = why
 
 
 class SchemaUpgradeNeeded(StoreError):
@@ -318,6 +328,7 @@ def _connect(path: Path, read_only: bool, mode: str | None = None) -> sqlite3.Co
         conn.setlimit(sqlite3.SQLITE_LIMIT_ATTACHED, 0)
         conn.execute(f"PRAGMA busy_timeout = {BUSY_TIMEOUT_MS:d}")
         conn.execute("PRAGMA foreign_keys = ON")
+        conn.execute("PRAGMA recursive_triggers = ON")  # REPLACE fires the no-delete triggers
         conn.execute("PRAGMA trusted_schema = OFF")
         conn.execute("PRAGMA mmap_size = 0")
         if read_only:
@@ -341,13 +352,17 @@ def _map_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
             "nothing was written, try again"
         )
     if name.startswith("SQLITE_READONLY") or "readonly database" in text:
+        why = _not_writable(path) if path is not None else None
+        if why is not None:
+            return NotWritableError(why)
         return ReadOnlyError()
     if isinstance(exc, sqlite3.IntegrityError):
         return StoreError(f"{where}refused by the book: {text}")
     if name == "SQLITE_FULL" or name.startswith("SQLITE_IOERR"):
         return StoreError(
-            f"{where}could not write the book ({name}: {text}); nothing was "
-            "written. Check free disk space and file permissions, then retry"
+            f"{where}the disk or file system refused SQLite ({name}: {text}): the disk may be "
+            "full, or a file may not be writable for you; nothing was written, and this is no "
+            "sign of damage to the book. Free some space or fix the permissions, then retry"
         )
     if name.startswith("SQLITE_CORRUPT") or name == "SQLITE_NOTADB" or "not a database" in text:
         return StoreError(
@@ -494,18 +509,157 @@ def _cutoff_utc(expiry: str, cutoff: str, tz_name: str) -> datetime:
     return local.astimezone(UTC)
 
 
+def _open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:
+    """What an error on a book's first reads means: damage only for SQLite's corruption codes."""
+    if isinstance(exc, UnicodeDecodeError):
+        return StoreError(f"{path} is damaged ({exc}); restore it from a backup")
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    if name == "SQLITE_NOTADB" or "not a database" in str(exc):
+        return StoreError(f"{path} is not a blotter book (SQLite: {exc})")
+    if name.startswith("SQLITE_CORRUPT"):
+        return StoreError(f"{path} is damaged ({exc}); restore it from a backup")
+    folder = path.absolute().parent
+    if (
+        name.startswith(("SQLITE_READONLY", "SQLITE_CANTOPEN"))
+        and not os.path.lexists(f"{path}-shm")
+        and not os.access(folder, os.W_OK)
+    ):
+        return StoreError(
+            f"cannot read {path}: SQLite reads a book through its shared-memory file "
+            f"{path.name}-shm, which does not exist, and you cannot create it because you "
+            f"cannot write to the folder {folder}. The book is not damaged: make the folder "
+            "writable for you, or read a copy kept in a folder you can write to"
+        )
+    return _map_error(exc, path)
+
+
+def _not_writable(path: Path) -> str | None:
+    """Words for the first of the book, its -wal and -shm files and (while those are absent) its
+    folder that this user cannot write; None when nothing stands in the way of a write."""
+    for name in (str(path), f"{path}-wal", f"{path}-shm"):
+        if os.path.lexists(name) and not os.access(name, os.W_OK):
+            return f"you cannot write to {name}"
+    folder = path.absolute().parent
+    sides = os.path.lexists(f"{path}-wal") and os.path.lexists(f"{path}-shm")
+    if not sides and not os.access(folder, os.W_OK):
+        return (
+            f"you cannot write to the folder {folder}, where SQLite keeps {path.name}-wal and "
+            f"{path.name}-shm while {path.name} is written"
+        )
+    return None
+
+
+_FILE_KINDS = (
+    (stat.S_ISFIFO, "a named pipe (FIFO)"),
+    (stat.S_ISCHR, "a character device"),
+    (stat.S_ISBLK, "a block device"),
+    (stat.S_ISSOCK, "a socket"),
+)
+"""File types that are never a book, with their names in words."""
+
+
+def _check_book_path(p: Path) -> bool:
+    """Whether ``p`` exists, refusing in words a path that cannot be a book: a folder, a FIFO or
+    other special file (SQLite would wait forever reading a FIFO), or one behind a folder this
+    user cannot search. Looks at the file type without opening the file."""
+    for name in (str(p), f"{p}-wal", f"{p}-shm"):
+        try:
+            mode = os.stat(name).st_mode
+        except FileNotFoundError:
+            if name == str(p):
+                return False
+            continue
+        except PermissionError:
+            raise StoreError(
+                f"cannot reach {name}: a folder on its path does not let you search it "
+                "(permission denied); you need execute (x) permission on every folder down to "
+                f"{p.absolute().parent}"
+            ) from None
+        except NotADirectoryError:
+            raise StoreError(f"no book at {p}: part of the path is a file, not a folder") from None
+        except OSError as exc:
+            raise StoreError(f"cannot look at {name}: {exc.strerror}") from None
+        if stat.S_ISDIR(mode):
+            raise StoreError(f"{name} is a directory, not a book file")
+        for test, words in _FILE_KINDS:
+            if test(mode):
+                raise StoreError(f"{name} is {words}, not a book file; nothing was read")
+    return True
+
+
+_CHECKED: dict[str, tuple[Any, ...]] = {}
+"""Per book path, the file state (``_file_state``) that last passed ``_check_file``."""
+
+_CHECK_LOCK = threading.Lock()
+"""Held while a book is checked, so threads opening one unchanged file check it once."""
+
+
+def _file_state(path: Path) -> tuple[Any, ...]:
+    """Device, inode, size and modification time of the book and of its -wal file (None when
+    absent), and the book's ctime: a commit changes the -wal, and a book replaced or rewritten
+    changes its inode or ctime (which no tool can set back). The -wal's ctime is left out: SQLite
+    changes its owner and mode when it opens it, which changes the ctime without a write."""
+    state: list[Any] = []
+    for name in (str(path), f"{path}-wal"):
+        try:
+            st = os.stat(name)
+        except FileNotFoundError:
+            state.append(None)
+            continue
+        ctime = st.st_ctime_ns if name == str(path) else None
+        state.append((st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, ctime))
+    return tuple(state)
+
+
+def integrity_problems(conn: sqlite3.Connection) -> list[str]:
+    """``PRAGMA integrity_check`` of a snapshot of ``conn``'s book, with CHECK constraints.
+
+    SQLite parses no CHECK constraint for a database it opened read-only, so a viewer's own
+    integrity_check cannot see a value its schema forbids; the snapshot (taken by the backup
+    API in one read transaction) is an in-memory database, where they are checked. Returns
+    ``["ok"]`` for a sound book. Costs about the file's size in memory while it runs.
+    """
+    mem = sqlite3.connect(":memory:", isolation_level=None)
+    try:
+        mem.execute("PRAGMA trusted_schema = OFF")
+        conn.backup(mem)
+        return [str(r[0]) for r in mem.execute("PRAGMA integrity_check")]
+    finally:
+        mem.close()
+
+
+def _check_file(conn: sqlite3.Connection, path: Path) -> None:
+    """Refuse a damaged book: ``integrity_problems`` on open, once per file state per process.
+
+    quick_check would miss the two kinds of damage that left a book readable with wrong totals:
+    index entries that no longer match their rows (a lookup then finds the wrong row) and
+    values outside their CHECK constraints (see DEVELOPERS.md, Decisions: the open check).
+    """
+    key = str(path.absolute())
+    with _CHECK_LOCK:
+        state = _file_state(path)
+        if _CHECKED.get(key) == state:
+            return
+        try:
+            problems = integrity_problems(conn)
+        except (sqlite3.Error, UnicodeDecodeError) as exc:
+            raise _open_error(exc, path) from None
+        if problems != ["ok"]:
+            raise StoreError(
+                f"{path} is damaged (SQLite's integrity check: {'; '.join(problems[:3])}); "
+                "restore it from a backup"
+            )
+        _CHECKED[key] = state
+
+
 def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     """Refuse a foreign, empty, damaged or too-new file; return its schema version."""
     try:
         app_id = conn.execute("PRAGMA application_id").fetchone()[0]
         version = conn.execute("PRAGMA user_version").fetchone()[0]
         tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-    except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
-        if "not a database" in str(exc):
-            raise StoreError(f"{path} is not a blotter book (SQLite: {exc})") from None
-        raise StoreError(
-            f"{path} is not a readable blotter book ({exc}); restore it from a backup"
-        ) from None
+    except (sqlite3.Error, UnicodeDecodeError) as exc:
+        raise _open_error(exc, path) from None
     if app_id != APPLICATION_ID:
         if not tables and version == 0:
             raise StoreError(
@@ -521,14 +675,7 @@ def _open_checks(conn: sqlite3.Connection, path: Path, verify: bool) -> int:
     if not {"trade", "contract", "mark", "mark_set", "underlying"} <= tables:
         raise StoreError(f"{path} is missing blotter tables; restore it from a backup")
     if verify:
-        try:
-            problems = [r[0] for r in conn.execute("PRAGMA quick_check")]
-        except (sqlite3.DatabaseError, UnicodeDecodeError) as exc:
-            raise StoreError(f"{path} is damaged ({exc}); restore it from a backup") from None
-        if problems != ["ok"]:
-            raise StoreError(
-                f"{path} is damaged ({'; '.join(problems[:3])}); restore it from a backup"
-            )
+        _check_file(conn, path)
     return int(version)
 
 
@@ -542,20 +689,23 @@ def open_store(
     """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
 
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
-    migrated on a read-write open. ``verify`` runs ``PRAGMA quick_check`` first. ``desk_tz`` is
-    the desk's time zone (the ``desk_tz`` setting; New York when None), which dates closes. Raises
-    ``StoreError`` with a plain message for a missing, empty, foreign or damaged file.
+    migrated on a read-write open. ``verify`` checks the file first (``integrity_problems``,
+    once per file state in a process). ``desk_tz`` is the desk's time zone (the ``desk_tz``
+    setting; New York when None), which dates closes. Raises ``StoreError`` with a plain message
+    for a missing, empty, foreign, damaged or special file; ``NotWritableError`` when a
+    read-write open meets a book this user cannot write.
     """
     p = Path(path)
     zone = desk_tz or cal.desk_tz()
-    if create and not p.exists():
+    exists = _check_book_path(p)
+    if create and not exists:
         return create_store(p, desk_tz=zone)
-    if not p.exists():
+    if not exists:
         raise StoreError(
             f"no book at {p} (check the path, or make one with `blotter demo --out {p}`)"
         )
-    if p.is_dir():
-        raise StoreError(f"{p} is a directory, not a book file")
+    if not read_only and (why := _not_writable(p)) is not None:
+        raise NotWritableError(why)
     mode = _IMMUTABLE if read_only and _is_shipped_demo(p) else None
     try:
         conn = _connect(p, read_only, mode)
@@ -631,7 +781,13 @@ def create_store(path: str | os.PathLike[str], desk_tz: ZoneInfo | None = None) 
     or writable by other users; SQLite gives its -wal and -shm files the same permissions.
     """
     p = Path(path)
-    if p.exists() or p.is_symlink():
+    try:
+        os.lstat(p)
+    except FileNotFoundError:
+        pass
+    except OSError as exc:  # e.g. a folder on the path that this user cannot search
+        raise StoreError(f"cannot create {p}: {exc.strerror}") from None
+    else:
         raise StoreError(f"{p} already exists; choose another path")
     try:
         fd = os.open(p, os.O_WRONLY | os.O_CREAT | os.O_EXCL, FILE_MODE)
@@ -806,30 +962,13 @@ class _ContractArrays:
 _F = TypeVar("_F", bound=Callable[..., Any])
 
 
-def _integrity_problems(conn: sqlite3.Connection, read_only: bool) -> list[str]:
-    """``PRAGMA integrity_check``'s lines for the book on ``conn``.
-
-    SQLite checks CHECK constraints only on a database it could write, so a read-only book is
-    checked as an in-memory copy (its WAL flag cleared, as a copy has no WAL).
-    """
-    if read_only:
-        image = bytearray(conn.serialize())
-        image[18:20] = b"\x01\x01"
-        copy = sqlite3.connect(":memory:")
-        try:
-            copy.deserialize(bytes(image))
-            return [r[0] for r in copy.execute("PRAGMA integrity_check")]
-        finally:
-            copy.close()
-    return [r[0] for r in conn.execute("PRAGMA integrity_check")]
-
-
 def _guard_damage(method: _F) -> _F:
     """A read method whose conversion errors become ``StoreError`` when the file is damaged.
 
     SQLite keeps no checksums, so a damaged byte can reach Python as text that is not a valid
-    date or not UTF-8. Such an error is checked against ``PRAGMA integrity_check``: a damaged
-    file gives a plain ``StoreError``; a sound file lets the original error through (a bug).
+    date or not UTF-8. Such an error is checked against ``integrity_problems`` (CHECK
+    constraints included): a damaged file gives a plain ``StoreError``; a sound file lets the
+    original error through (a bug).
     """
 
     @functools.wraps(method)
@@ -838,7 +977,7 @@ def _guard_damage(method: _F) -> _F:
             return method(self, *args, **kwargs)
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
             try:
-                sound = _integrity_problems(self._conn(), self.read_only) == ["ok"]
+                sound = integrity_problems(self._conn()) == ["ok"]
             except (sqlite3.Error, UnicodeDecodeError):
                 sound = False
             if sound:
@@ -976,10 +1115,11 @@ class Store:
         return int(self._conn().execute("PRAGMA user_version").fetchone()[0])
 
     def integrity_ok(self) -> bool:
-        """``integrity_check``, ``foreign_key_check`` and every mark set holding all its marks."""
+        """``integrity_problems`` (CHECKs included), ``foreign_key_check`` and every mark set
+        holding all its marks."""
+        if integrity_problems(self._conn()) != ["ok"]:
+            return False
         with self._read() as conn:
-            if [r[0] for r in conn.execute("PRAGMA integrity_check")] != ["ok"]:
-                return False
             if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
                 return False
             broken = conn.execute(

@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
-from typing import Any
+from dataclasses import replace
+from typing import TYPE_CHECKING, Any
 
 import click
 
 from blotter.commands.common import AppContext, resolve_db
+
+if TYPE_CHECKING:
+    from blotter.config import Settings
 
 
 def open_app(ctx: AppContext) -> None:
@@ -23,15 +27,31 @@ def open_app(ctx: AppContext) -> None:
         settings = load_settings(flags)
     except ConfigError as exc:
         raise click.ClickException(f"settings: {exc}") from None
-    from blotter import store
-
-    try:  # a clear message for a missing or foreign file before the screen is taken over; a
-        # read-write open also upgrades an older schema now, before the app's workers read it
-        store.open_store(db_path, read_only=settings.read_only, desk_tz=settings.tz).close()
-    except store.StoreError as exc:
-        raise click.ClickException(str(exc)) from None
+    settings, notice = check_book(db_path, settings)
 
     from blotter.ui.app import make_app
 
     app = make_app(db_path, settings)
+    app.startup_notice = notice
     app.run(mouse=not settings.no_mouse)
+
+
+def check_book(db_path: str, settings: Settings) -> tuple[Settings, str]:
+    """Open the book once before the screen is taken over: the settings to run with and a notice.
+
+    A missing, foreign or damaged file is a ``ClickException``; a read-write open also upgrades
+    an older schema now, before the app's workers read it. A book this user cannot write opens
+    read-only, and the notice says so (the user did not ask for read-only)."""
+    from blotter import store
+
+    try:
+        store.open_store(db_path, read_only=settings.read_only, desk_tz=settings.tz).close()
+    except store.NotWritableError as denied:
+        try:
+            store.open_store(db_path, read_only=True, desk_tz=settings.tz).close()
+        except store.StoreError as exc:
+            raise click.ClickException(str(exc)) from None
+        return replace(settings, read_only=True), f"{denied.why}; opened read-only"
+    except store.StoreError as exc:
+        raise click.ClickException(str(exc)) from None
+    return settings, ""

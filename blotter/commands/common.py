@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import os
 import sys
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
@@ -14,6 +15,7 @@ from zoneinfo import ZoneInfo
 import click
 
 from blotter.config import DESK_TZ_SOURCES
+from blotter.printable import printable
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -54,16 +56,27 @@ def db_option(func: F) -> F:
 
 def open_for_reading(path: str) -> Any:
     """``open_store(path, read_only=True)``; a file of an older schema is first upgraded by a
-    read-write open (saying so on stderr), unless the group's ``--read-only`` forbids writing."""
-    from blotter.store import SchemaUpgradeNeeded, open_store
+    read-write open (saying so on stderr), unless read-only is on or the user cannot write it."""
+    from blotter.store import NotWritableError, SchemaUpgradeNeeded, StoreError, open_store
 
     zone = desk_zone()
     try:
         return open_store(path, read_only=True, desk_tz=zone)
     except SchemaUpgradeNeeded as exc:
-        if read_only_requested():
-            raise
-        open_store(path, desk_tz=zone).close()
+        source = read_only_source()
+        if source is not None:
+            raise SchemaUpgradeNeeded(
+                f"{path} uses an older schema ({exc.version}), and read-only is on ({source}), "
+                "so it was not upgraded; run once without read-only to upgrade it",
+                exc.version,
+            ) from None
+        try:
+            open_store(path, desk_tz=zone).close()
+        except NotWritableError as denied:
+            raise StoreError(
+                f"{path} uses an older schema ({exc.version}), which this blotter upgrades on "
+                f"open, but {denied.why}: ask whoever can write it to open it once"
+            ) from None
         click.echo(f"blotter: upgraded {path} from schema {exc.version}", err=True)
         return open_store(path, read_only=True, desk_tz=zone)
 
@@ -73,8 +86,9 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
 
     Returns (path, explicit). When no path was given anywhere, the per-user copy of the shipped
     demo book is made on first use and its path returned; a note saying which file goes to stderr.
-    Under the group's ``--read-only`` nothing is copied: the existing per-user copy is returned,
-    else the shipped demo file itself (which ``open_store`` opens read-only without side files).
+    Under read-only (``read_only_source``) nothing is copied: the existing per-user copy is
+    returned, else the shipped demo file itself (which ``open_store`` opens read-only without
+    side files).
     """
     ctx = click.get_current_context(silent=True)
     group: AppContext | None = ctx.find_object(AppContext) if ctx else None
@@ -83,7 +97,7 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
         return path, True
     from blotter.store import shipped_demo_path, user_data_dir, user_demo_copy
 
-    if group is not None and group.read_only:
+    if read_only_requested():
         copy = user_data_dir() / "demo.db"
         if copy.exists():
             click.echo(f"blotter: no --db given; opening your demo book {copy} read-only", err=True)
@@ -100,11 +114,30 @@ def resolve_db(db_path: str | None) -> tuple[str, bool]:
     return str(demo), False
 
 
-def read_only_requested() -> bool:
-    """True when the group was given ``--read-only``."""
+def read_only_source() -> str | None:
+    """Where read-only was asked for, in words, or None: the group's ``--read-only``, else the
+    settings (``BLOTTER_READ_ONLY``, then ``read_only`` in the settings file), by the rule the
+    app's settings follow, so every command and the app agree. A bad settings file is an error."""
+    from blotter.config import ConfigError, config_path, load_settings
+
     ctx = click.get_current_context(silent=True)
     group: AppContext | None = ctx.find_object(AppContext) if ctx else None
-    return bool(group and group.read_only)
+    if group is not None and group.read_only:
+        return "--read-only"
+    try:
+        settings = load_settings()
+    except ConfigError as exc:
+        raise click.ClickException(f"settings: {exc}") from None
+    if not settings.read_only:
+        return None
+    if "BLOTTER_READ_ONLY" in os.environ:
+        return f"BLOTTER_READ_ONLY={os.environ['BLOTTER_READ_ONLY']}"
+    return f"read_only in {config_path()}"
+
+
+def read_only_requested() -> bool:
+    """True when read-only is on (see ``read_only_source``)."""
+    return read_only_source() is not None
 
 
 def check_option(bound: Any, value: Any, option: str, signed: bool = False) -> float:
@@ -180,12 +213,15 @@ def print_table(
     """Print an aligned plain-text table for people; cells are never cut and no column is dropped,
     whatever the terminal width (a wide table runs past the edge rather than losing data).
 
-    ``right`` marks numeric columns to right-align; None cells print empty.
+    ``right`` marks numeric columns to right-align; None cells print empty. Control characters
+    in any cell print as escapes (``blotter.printable``), so a note cannot drive the terminal.
     """
-    cells = [[str(c) for c in columns]] + [["" if c is None else str(c) for c in r] for r in rows]
+    cells = [[printable(str(c)) for c in columns]] + [
+        ["" if c is None else printable(str(c)) for c in r] for r in rows
+    ]
     widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
     if title:
-        click.echo(title)
+        click.echo(printable(title))
     for k, r in enumerate(cells):
         parts = [
             c.rjust(w) if (right and right[i]) else c.ljust(w)

@@ -23,20 +23,26 @@ from blotter.limits import DEMO_POSITIONS
     help="Option positions (default 150, the shipped demo); e.g. 100000 for benchmarks.",
 )
 @click.option("--seed", type=int, default=None, help="Random seed (default: the shipped demo's).")
-@click.option("--force", is_flag=True, help="Replace OUT if it exists (not while it is in use).")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Replace OUT if it is a demo book (never a book holding other trades or marks, nor one "
+    "in use).",
+)
 def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None:
     """Write an invented demo book: a fictitious desk, five fictitious underlyings, trades, marks.
 
     Every name and number in it is made up. With the defaults this writes exactly the shipped
     demo.db.
     """
-    from blotter.commands.common import read_only_requested
+    from blotter.commands.common import read_only_source
     from blotter.demo import DEMO_SEED, build_demo, describe
     from blotter.store import StoreError
 
-    if read_only_requested():
+    if (source := read_only_source()) is not None:
         raise click.ClickException(
-            f"blotter --read-only: `demo` writes a book file, so nothing was written to {out}"
+            f"read-only is on ({source}): `demo` writes a book file, so nothing was written "
+            f"to {out}"
         )
     try:
         path = build_demo(

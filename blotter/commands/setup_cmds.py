@@ -23,7 +23,7 @@ from blotter.commands.common import (
     print_csv,
     print_json,
     print_table,
-    read_only_requested,
+    read_only_source,
 )
 from blotter.commands.store_cmds import _emit, _store, parse_decimal_or_percent
 
@@ -58,8 +58,10 @@ def create(path: str, book_name: str | None, as_json: bool) -> None:
     """
     from blotter.store import StoreError, create_store
 
-    if read_only_requested():
-        raise click.ClickException("--read-only is set: create writes a new file; nothing done")
+    if (source := read_only_source()) is not None:
+        raise click.ClickException(
+            f"read-only is on ({source}): create writes a new file, so nothing was written"
+        )
     try:
         store = create_store(path, desk_tz=desk_zone())
     except StoreError as exc:

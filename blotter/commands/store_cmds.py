@@ -25,24 +25,29 @@ from blotter.commands.common import (
     print_csv,
     print_json,
     print_table,
-    read_only_requested,
+    read_only_source,
     resolve_db,
 )
+from blotter.printable import printable
 
 
 @contextmanager
 def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
-    """The book for a command, closed afterwards; ``StoreError`` becomes a ``ClickException``."""
+    """The book for a command, closed afterwards; ``StoreError`` becomes a ``ClickException``.
+
+    ``read_only=False`` is a command that writes: under read-only (``read_only_source``) it is
+    refused before the book is opened."""
     from blotter.store import StoreError, open_store
 
     path, _explicit = resolve_db(db_path)
+    source = read_only_source()
+    if not read_only and source is not None:
+        raise click.ClickException(f"read-only is on ({source}): nothing was written to {path}")
     try:
-        if read_only and not read_only_requested():
+        if read_only and source is None:
             store = open_for_reading(path)
         else:
-            store = open_store(
-                path, read_only=read_only or read_only_requested(), desk_tz=desk_zone()
-            )
+            store = open_store(path, read_only=read_only, desk_tz=desk_zone())
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
     try:
@@ -100,10 +105,11 @@ def parse_decimal_or_percent(text: str, what: str) -> float:
 
 
 def _emit(as_json: bool, payload: dict[str, Any], text: str) -> None:
+    """``payload`` as JSON, or ``text`` for people with control characters escaped."""
     if as_json:
         print_json(payload)
     else:
-        click.echo(text)
+        click.echo(printable(text))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -184,14 +190,10 @@ def trade_add(
 
     The book must exist (--new-book starts one); with no --book, the file's only book is used.
     """
-    from blotter.store import ReadOnlyError
-
     when = _time_option(trade_time)
     if new_book and book is None:
         raise click.UsageError("--new-book needs --book NAME (the book to start)")
     with _store(db_path) as store:
-        if store.read_only:
-            raise ReadOnlyError()
         if book is None:
             books = store.book_names()
             if len(books) != 1:

@@ -26,6 +26,7 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
+from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import KEYS, app_bindings
 from blotter.ui.messages import (
@@ -125,6 +126,7 @@ class BlotterApp(App[None]):
         self._stop_watch = threading.Event()
         self.trials: list[data.TrialTrade] = []
         self._trial_seq = 0
+        self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
         self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
         if self.settings.keymap:
@@ -152,6 +154,9 @@ class BlotterApp(App[None]):
         self.load_book()
         if self.settings.watch_interval_s > 0:
             self.watch_store(self.settings.watch_interval_s)
+        if self.startup_notice:
+            notice = printable(self.startup_notice)
+            self.notify(notice, title="Read-only", severity="warning", markup=False)
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -355,7 +360,13 @@ class BlotterApp(App[None]):
     def on_load_failed(self, message: LoadFailed) -> None:
         self._hide_progress()
         self.query_one(HeaderLine).show_error(message.reason)
-        self.notify(message.reason, title="Book not loaded", severity="error", timeout=10)
+        self.notify(
+            printable(message.reason),
+            title="Book not loaded",
+            severity="error",
+            timeout=10,
+            markup=False,
+        )
 
     # -- the store's change check ---------------------------------------------------------------
     @work(

@@ -18,6 +18,7 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import limits, risk
 from blotter.book import Book
+from blotter.printable import printable
 from blotter.ui import fmt
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
@@ -853,17 +854,18 @@ def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
 
 def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
     """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
-    clock), contract, quantity, price, state, book, who, source."""
+    clock), contract, quantity, price, state, book, who, source; text typed by people or read
+    from files with its control characters escaped (``blotter.printable``)."""
     return (
         str(t.trade_id),
         f"{t.trade_time.astimezone(tz):%m-%d %H:%M}",
-        t.contract,
+        printable(t.contract),
         f"{t.quantity:+,d}",
         f"{t.price:,.4f}".rstrip("0").rstrip("."),
         t.state,
-        t.book,
-        t.who,
-        t.source,
+        printable(t.book),
+        printable(t.who),
+        printable(t.source),
     )
 
 

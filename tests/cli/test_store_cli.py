@@ -7,6 +7,7 @@ import csv
 import io
 import json
 from pathlib import Path
+from typing import Any
 
 import pytest
 from cli_helpers import run
@@ -131,8 +132,70 @@ def test_read_only_group_option_refuses_every_write(demo_db: Path, tmp_path: Pat
         ("trade", "cancel", "1", "--reason", "x"),
     ]:
         r = run("--read-only", "--db", db, *args, code=1)
-        assert "the book is open read-only" in r.stderr
+        assert f"read-only is on (--read-only): nothing was written to {db}" in r.stderr
     assert run("--read-only", "--db", db, "mark", "list", "--sets").exit_code == 0
+
+
+WRITE_COMMANDS = [
+    ("mark", "spot", "DEMOA", "181"),
+    ("mark", "vol", "DEMOA", "2027-03-19", "0.3"),
+    ("mark", "rate", "USD", "30", "4%"),
+    ("mark", "divyield", "DEMOA", "1%"),
+    ("mark", "close"),
+    ("mark", "import", "{csv}"),
+    ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "equity-vol"),
+    ("trade", "cancel", "1", "--reason", "x"),
+    ("trade", "amend", "1", "--price", "2", "--reason", "x"),
+    ("trade", "import", "{csv}"),
+    ("underlying", "add", "NEWU", "--kind", "stock", "--currency", "USD", "--multiplier", "100"),
+]
+"""Every command that writes to a book (arguments; ``{csv}`` is a file to import)."""
+
+
+@pytest.mark.parametrize("how", ["flag", "environment", "settings file"])
+def test_read_only_means_the_same_however_it_is_set(
+    demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch, how: str
+) -> None:
+    """--read-only, BLOTTER_READ_ONLY=1 and read_only = true in the settings file refuse every
+    write command, `demo` and `create`, and open the app read-only; BLOTTER_READ_ONLY stopped
+    only the app before."""
+    db = str(demo_db)
+    csv_file = tmp_path / "m.csv"
+    csv_file.write_text("kind,symbol,value\nspot,DEMOA,1\n")
+    group: tuple[str, ...] = ()
+    if how == "flag":
+        group, source = ("--read-only",), "--read-only"
+    elif how == "environment":
+        monkeypatch.setenv("BLOTTER_READ_ONLY", "1")
+        source = "BLOTTER_READ_ONLY=1"
+    else:
+        settings = tmp_path / "settings.toml"
+        settings.write_text("read_only = true\n", encoding="utf-8")
+        monkeypatch.setenv("BLOTTER_CONFIG", str(settings))
+        source = f"read_only in {settings}"
+    before = demo_db.read_bytes()
+    for args in WRITE_COMMANDS:
+        cmd = [a.format(csv=csv_file) for a in args]
+        r = run(*group, "--db", db, *cmd, code=1)
+        assert f"read-only is on ({source}): nothing was written to {db}" in r.stderr, cmd
+    for args in [("demo", "--out", str(tmp_path / "d.db")), ("create", str(tmp_path / "c.db"))]:
+        r = run(*group, *args, code=1)
+        assert f"read-only is on ({source})" in r.stderr and not Path(args[-1]).exists()
+    assert json.loads(run(*group, "--db", db, "trade", "list", "--json").stdout)
+    assert demo_db.read_bytes() == before
+
+    ran: list[Any] = []
+
+    class App:  # stands in for the app: keeps the settings it was built with
+        def __init__(self, path: str, settings: Any) -> None:
+            self.settings = settings
+
+        def run(self, mouse: bool = True) -> None:
+            ran.append(self.settings)
+
+    monkeypatch.setattr("blotter.ui.app.make_app", App)
+    run(*group, "--db", db)
+    assert ran[0].read_only
 
 
 def test_marks_logged_closed_and_listed(demo_db: Path) -> None:
@@ -396,7 +459,7 @@ def test_read_only_without_db_opens_the_shipped_demo_and_copies_nothing(
     assert {p.name for p in shipped.parent.iterdir()} == {"demo.db"}  # nor any side file
     assert shipped.read_bytes() == content
     r = run("--read-only", "mark", "spot", "DEMOA", "1", code=1)
-    assert "the book is open read-only" in r.stderr
+    assert "read-only is on (--read-only): nothing was written" in r.stderr
 
 
 def test_read_only_without_db_opens_the_existing_users_copy(tmp_path: Path, shipped: Path) -> None:
@@ -478,3 +541,110 @@ def test_a_hedge_default_that_would_not_net_old_hedges_is_refused(tmp_path: Path
     run("--db", db, "trade", "add", "QQZ", "--qty", "-5", "--price", "51", "--multiplier", "100")
     book = open_store(db, read_only=True).load_book()
     assert len(book) == 0  # the two trades net to nothing on one contract
+
+
+def test_demo_force_replaces_only_a_demo_book(tmp_path: Path, demo_db: Path) -> None:
+    """`demo --out BOOK --force` overwrote a book holding real trades, exit 0. A file that is not
+    a demo book is refused and left byte for byte; a demo book is still replaced."""
+    traded = tmp_path / "traded.db"
+    traded.write_bytes(demo_db.read_bytes())
+    db = str(traded)
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "equity-vol", "--db", db)
+    marked = tmp_path / "marked.db"
+    marked.write_bytes(demo_db.read_bytes())
+    run("mark", "spot", "DEMOA", "181", "--db", str(marked))
+    own = tmp_path / "own.db"
+    run("create", str(own), "--book", "desk")
+    text = tmp_path / "notes.txt"
+    text.write_text("not a book\n")
+    for path, words in [
+        (traded, "it holds 1 trades"),
+        (marked, "it holds 1 mark sets"),
+        (own, "books desk"),
+        (text, "cannot be read as a blotter book"),
+    ]:
+        before = path.read_bytes()
+        r = run("demo", "--out", str(path), "--force", code=1)
+        assert f"{path} is not a demo book" in r.stderr and words in r.stderr, r.stderr
+        assert "Nothing was written" in r.stderr
+        assert path.read_bytes() == before
+    demo = tmp_path / "demo.db"
+    demo.write_bytes(demo_db.read_bytes())
+    run("demo", "--out", str(demo), "--positions", "40", "--force")
+    with open_store(demo, read_only=True) as s:
+        assert int(s.load_book().is_option.sum()) == 40
+
+
+def test_demo_force_refuses_a_book_written_to_while_it_built(
+    tmp_path: Path, demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The book is looked at again just before the new one is renamed over it."""
+    import blotter.demo as demo_module
+
+    out = tmp_path / "demo.db"
+    out.write_bytes(demo_db.read_bytes())
+    real_fill = demo_module._fill
+
+    def fill_while_someone_trades(*args: object) -> None:
+        with open_store(out) as other:
+            other.add_trade("equity-vol", "DEMOA", 2, 1.0)
+        real_fill(*args)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(demo_module, "_fill", fill_while_someone_trades)
+    r = run("demo", "--out", str(out), "--force", code=1)
+    assert "it holds 1 trades" in r.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo.db"]  # no half-built file left
+    with open_store(out, read_only=True) as s:
+        assert [t.quantity for t in s.trades() if t.who != "demo"] == [2]
+
+
+CONTROLS = (
+    "\x1b]2;TITLE\x07",  # set the window title (OSC 2 ... BEL)
+    "\x1b[2J",  # clear the screen (CSI 2 J)
+    "\x9b31m",  # the same as ESC [ through the one-byte C1 CSI
+    "\u202e",  # right-to-left override
+)
+"""Terminal control sequences a note or book name may carry (ECMA-48; Unicode UAX #9)."""
+
+
+def _raw_controls(text: str) -> list[str]:
+    import unicodedata
+
+    return [c for c in text if unicodedata.category(c) in ("Cc", "Cf") and c != "\n"]
+
+
+def test_notes_and_book_names_cannot_drive_the_terminal(demo_db: Path, tmp_path: Path) -> None:
+    """Table output prints control characters as escapes; CSV and JSON keep the text exactly
+    (JSON escapes it by itself), and CSV cells that start like a formula are neutralised."""
+    db = str(demo_db)
+    book = f"desk{CONTROLS[0]}"
+    note = "".join(CONTROLS) + "end"
+    r = run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--new-book",
+            "--note", note, "--db", db)
+    assert _raw_controls(r.stdout) == [] and "\\x1b]2;TITLE\\x07" in r.stdout
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--note",
+        "=HYPERLINK(\"http://x\")", "--db", db)
+    run("mark", "close", "--note", note, "--db", db)
+    run("underlying", "add", "ESCU", "--kind", "stock", "--currency", "USD", "--multiplier",
+        "100", "--description", note, "--db", db)
+    for args in [("trade", "list"), ("mark", "list", "--sets")]:
+        out = run(*args, "--db", db).stdout
+        assert _raw_controls(out) == [], args
+        assert "\\x1b]2;TITLE\\x07\\x1b[2J\\x9b31m\\u202eend" in out, args
+    assert _raw_controls(run("underlying", "list", "--db", db).stdout) == []
+    listed = json.loads(run("trade", "list", "--json", "--db", db).stdout)
+    assert {t["note"] for t in listed if t["book"] == book} == {note, '=HYPERLINK("http://x")'}
+    assert "\x1b" not in run("trade", "list", "--json", "--db", db).stdout
+    sets = json.loads(run("mark", "list", "--sets", "--json", "--db", db).stdout)
+    assert sets[-1]["note"] == note
+    exported = run("trade", "list", "--csv", "--db", db).stdout
+    rows = list(csv.DictReader(io.StringIO(exported)))
+    assert {r["note"] for r in rows if r["book"] == book} == {note, "'=HYPERLINK(\"http://x\")"}
+    again = tmp_path / "again.db"
+    _fresh_book_with_underlyings_of(demo_db, again)
+    mine = tmp_path / "mine.csv"
+    lines = exported.splitlines(keepends=True)
+    mine.write_text(lines[0] + "".join(x for x in lines[1:] if book in x), encoding="utf-8")
+    run("trade", "import", str(mine), "--new-books", "--db", str(again))
+    back = json.loads(run("trade", "list", "--json", "--db", str(again)).stdout)
+    assert sorted(t["note"] for t in back) == sorted([note, '=HYPERLINK("http://x")'])

@@ -136,6 +136,23 @@ def _fsize_import(db: str, csv_path: str, limit: str) -> None:
         print(f"in_transaction {store.in_transaction()}", flush=True)
 
 
+def _fsize_open(db: str, read_only: str) -> None:
+    """Open a book whose -shm does not exist yet with RLIMIT_FSIZE at 1 KiB (SIGXFSZ ignored), so
+    SQLite cannot create the -shm: the state of a full disk. Print what the store said."""
+    import resource
+
+    from blotter.store import StoreError, open_store
+
+    signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    resource.setrlimit(resource.RLIMIT_FSIZE, (1024, 1024))
+    try:
+        with open_store(db, read_only=read_only == "ro") as store:
+            store.load_book()
+        print("opened", flush=True)
+    except StoreError as exc:
+        print(f"refused {type(exc).__name__}: {exc}".replace("\n", " "), flush=True)
+
+
 def _spot_once(db: str, price: str) -> None:
     """Log one spot mark and exit."""
     from blotter.store import open_store
@@ -190,6 +207,7 @@ def main(argv: list[str]) -> None:
         "close_writer": _close_writer,
         "hold_lock": _hold_lock,
         "fsize_import": _fsize_import,
+        "fsize_open": _fsize_open,
         "spot_once": _spot_once,
         "close_racer": _close_racer,
         "migrate_paused": _migrate_paused,

@@ -127,12 +127,16 @@ def test_a_large_synthetic_book_has_exactly_the_positions_asked(tmp_path: Path) 
         assert s.integrity_ok()
 
 
-def test_an_existing_file_is_kept_unless_forced(tmp_path: Path) -> None:
+def test_an_existing_file_is_kept_unless_forced_and_a_demo_book(tmp_path: Path) -> None:
     path = tmp_path / "demo.db"
     path.write_text("precious")
     with pytest.raises(StoreError, match="--force"):
         build_demo(path)
+    with pytest.raises(StoreError, match="is not a demo book"):
+        build_demo(path, force=True)
     assert path.read_text() == "precious"
+    path.unlink()
+    build_demo(path, positions=40)
     build_demo(path, force=True)
     with open_store(path, read_only=True) as s:
         assert len(s.load_book()) > 150

@@ -184,10 +184,9 @@ def test_a_value_the_schema_forbids_is_damage_in_a_read_only_open_too(tmp_book: 
     )
     conn.close()
     with pytest.raises(StoreError, match="is damaged"):
-        open_store(tmp_book)  # a writable open's quick_check sees the bad value
-    with open_store(tmp_book, read_only=True) as s:  # a read-only open's cannot
-        with pytest.raises(StoreError, match="is damaged"):
-            s.load_book()
+        open_store(tmp_book)
+    with pytest.raises(StoreError, match="is damaged"):
+        open_store(tmp_book, read_only=True)  # checked as a copy: CHECKs hold there
 
 
 def test_new_book_and_its_side_files_are_not_open_to_other_users(tmp_path: Path) -> None:
@@ -257,3 +256,21 @@ def test_backup_while_a_writer_commits_is_consistent(tmp_book: Path, tmp_path: P
                 zip(same.labels, same.quantities, strict=False)
             )
     src.close()
+
+
+@pytest.mark.parametrize("mode", ["ro", "rw"])
+def test_a_full_disk_at_open_is_not_called_damage(demo_db: Path, mode: str) -> None:
+    """RELIABILITY 10 at open: SQLite must create the -shm to read a WAL book, and a full disk
+    (RLIMIT_FSIZE here, SQLITE_IOERR_SHMSIZE) refuses it. The book is sound, so the message
+    says what is wrong and never advises a restore, which would throw away good data."""
+    from store_children import spawn
+
+    with open_store(demo_db) as s:  # leave the book in WAL mode with no side files
+        s.load_book()
+    assert not Path(f"{demo_db}-shm").exists()
+    out, err = spawn("fsize_open", str(demo_db), mode).communicate(timeout=60)
+    assert out.startswith("refused StoreError"), (out, err)
+    assert "disk may be full" in out and "no sign of damage" in out
+    assert "restore" not in out and "damaged" not in out
+    with open_store(demo_db, read_only=True) as s:
+        assert s.integrity_ok()

@@ -201,6 +201,7 @@ def test_every_store_connection_enforces_foreign_keys_and_settings(populated: Pa
         t.join()
         for c in conns:
             assert c.execute("PRAGMA foreign_keys").fetchone()[0] == 1
+            assert c.execute("PRAGMA recursive_triggers").fetchone()[0] == 1
             assert c.execute("PRAGMA busy_timeout").fetchone()[0] == st.BUSY_TIMEOUT_MS
             assert c.execute("PRAGMA trusted_schema").fetchone()[0] == 0
             assert c.execute("PRAGMA journal_mode").fetchone()[0] == "wal"

@@ -6,6 +6,7 @@ and another process's commit showing in the running app."""
 from __future__ import annotations
 
 import math
+import re
 import sqlite3
 import subprocess
 import sys
@@ -16,6 +17,7 @@ from typing import Any
 
 import numpy as np
 import pytest
+from textual.widgets import DataTable
 
 from blotter import engine, scenario, store
 from blotter.config import Alerts
@@ -706,3 +708,46 @@ async def test_a_slow_load_shows_a_progress_bar(demo_db: Path) -> None:
         release.set()
         await settle(app, pilot)
         assert not bar.has_class("-shown") and app.state is not None
+
+
+RAW_CONTROLS = re.compile("[\x00-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+"""Characters that drive a terminal (C0, DEL, C1) or reorder text (bidirectional controls)."""
+
+
+async def test_text_from_the_book_cannot_drive_the_terminal(demo_db: Path, tmp_path: Path) -> None:
+    """A book name, a note and an imported file's name holding escape sequences (window title,
+    clear screen) and Rich markup are shown escaped and literal on the Trades screen."""
+    book = "desk\x1b]2;TITLE\x07[bold]x[/]"
+    csv_path = tmp_path / "t\x1b[2J.csv"
+    csv_path.write_text(
+        f"book,symbol,type,quantity,price,trade_time\n{book},DEMOA,U,1,1,2026-11-30T15:00:00Z\n",
+        encoding="utf-8",
+    )
+    with store.open_store(demo_db) as st:
+        st.add_trade(book, "DEMOA", 2, 1.0, create_book=True, note="\x1b[2J\u202e")
+        st.import_trades_csv(csv_path)
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        screen = await open_trades(app, pilot)
+        table = screen.query_one("#trades-table", DataTable)
+        rows = [[str(c) for c in table.get_row_at(i)] for i in range(table.row_count)]
+        assert not any(RAW_CONTROLS.search(c) for r in rows for c in r)
+        ours = [r for r in rows if "desk" in " ".join(r)]
+        assert len(ours) == 2
+        assert all("desk\\x1b]2;TITLE\\x07[bold]x[/]" in r for r in ours)
+        assert any("file:t\\x1b[2J.csv" in r for r in ours)
+
+
+async def test_a_failed_load_shows_the_path_as_text(tmp_path: Path) -> None:
+    """The reason a load failed names the file; markup or escapes in its name are shown as
+    written, in the header and in the notification."""
+    path = tmp_path / "x[/]y\x1b]2;T\x07.db"
+    app = make_app(path, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        header = str(app.query_one("#header-line").render())
+        assert "no book at" in header and "x[/]y\\x1b]2;T\\x07.db" in header
+        assert not RAW_CONTROLS.search(header)
+        shown = [n.message for n in app._notifications]
+        assert shown and not any(RAW_CONTROLS.search(m) for m in shown)
+        assert app.is_running

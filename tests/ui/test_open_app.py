@@ -75,20 +75,20 @@ def test_an_old_schema_book_is_upgraded_before_the_app_starts(
     read-only, and a read-only open refuses an older schema); with it, a clear refusal."""
     import sqlite3
 
-    from blotter.store import APPLICATION_ID, SCHEMA_VERSION, open_store, schema_sections
+    from blotter.store import APPLICATION_ID, SCHEMA_VERSION, open_store
 
     old = tmp_path / "old.db"
-    conn = sqlite3.connect(old, isolation_level=None)  # a book of schema 2: its sections only
+    v1 = Path(__file__).parents[1] / "store" / "data" / "schema_v1.sql"
+    conn = sqlite3.connect(old)
     conn.execute("PRAGMA journal_mode = WAL")
-    for version in (1, 2):
-        for statement in schema_sections()[version]:
-            conn.execute(statement)
-    conn.execute("INSERT INTO book (name) VALUES ('main')")
+    conn.executescript(v1.read_text(encoding="utf-8"))  # a book of the first schema
     conn.execute(f"PRAGMA application_id = {APPLICATION_ID}")
-    conn.execute("PRAGMA user_version = 2")
+    conn.execute("PRAGMA user_version = 1")
+    conn.execute("INSERT INTO book (name) VALUES ('main')")
+    conn.commit()
     conn.close()
     refused = CliRunner().invoke(main, ["--db", str(old), "--read-only"])
-    assert refused.exit_code != 0 and "older schema (2)" in refused.output and not built
+    assert refused.exit_code != 0 and "older schema (1)" in refused.output and not built
     result = CliRunner().invoke(main, ["--db", str(old)], catch_exceptions=False)
     assert result.exit_code == 0, result.output
     assert len(built) == 1

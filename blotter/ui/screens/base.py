@@ -10,6 +10,7 @@ from textual import events
 from textual.screen import Screen
 from textual.widgets import Static
 
+from blotter.printable import printable
 from blotter.ui.keys import KEYS
 
 if TYPE_CHECKING:
@@ -36,7 +37,7 @@ class DeskScreen(Screen[None]):
     def say(self, words: str, bad: bool = False) -> None:
         """Put ``words`` on the screen's message line (reverse video when it is a refusal)."""
         line = self.query_one(".desk-message", Static)
-        line.update(Text(words, style="bold reverse" if bad else ""))
+        line.update(Text(printable(words), style="bold reverse" if bad else ""))
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         if action in self.WRITE_ACTIONS and self.blotter.read_only:

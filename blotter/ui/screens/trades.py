@@ -22,6 +22,7 @@ from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.worker import get_current_worker
 
 from blotter import limits
+from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
@@ -120,7 +121,7 @@ class TradesScreen(DeskScreen):
                 f"{t.quantity:+,d}",
                 f"{t.price:g}",
                 "TRIAL",
-                t.book,
+                printable(t.book),
                 "",
                 "trial",
             )
@@ -341,8 +342,8 @@ class TradeForm(ModalScreen[None]):
         t = self.trade
         if self.kind in ("trade", "trial"):
             books = self.trades.books
-            self.query_one("#form-book", Input).value = books[0] if books else "main"
-            self.query_one("#form-book", Input).placeholder = ", ".join(books)
+            self.query_one("#form-book", Input).value = printable(books[0]) if books else "main"
+            self.query_one("#form-book", Input).placeholder = printable(", ".join(books))
             self.query_one("#form-symbol", Input).placeholder = " ".join(self.trades.symbols)
             self.query_one("#form-expiry", Input).placeholder = "2027-03-19 (blank: the underlying)"
             self.query_one("#form-cp", Input).placeholder = "C or P"

@@ -10,6 +10,7 @@ from typing import Any
 from rich.text import Text
 from textual.widgets import Static
 
+from blotter.printable import printable
 from blotter.ui.data import BookState, marks_age
 
 
@@ -23,7 +24,7 @@ class HeaderLine(Static):
         """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words."""
         age = marks_age(state.marks_as_of, now, tz)
         text = Text()
-        text.append(f"Book: {state.book_name}", style="bold")
+        text.append(f"Book: {printable(state.book_name)}", style="bold")
         text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
         when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
         marked = state.valuation.market.has_marks
@@ -37,7 +38,7 @@ class HeaderLine(Static):
         if age.stale and marked:
             closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
             text.append(f" STALE: older than the {closed} close", style="bold reverse")
-        text.append(f" │ {Path(state.db_path).name}")
+        text.append(f" │ {printable(Path(state.db_path).name)}")
         if state.read_only:
             text.append(" │ ")
             text.append("READ-ONLY", style="bold reverse")
@@ -48,8 +49,8 @@ class HeaderLine(Static):
         if len(currencies) > 1:  # money is never added across them
             text.append(f" │ totals per currency: {', '.join(currencies)}")
         self.update(text)
-        self.tooltip = state.db_path
+        self.tooltip = Text(printable(state.db_path))
 
     def show_error(self, reason: str) -> None:
         """Loading failed: say why in the header."""
-        self.update(Text(f"✗ {reason}", style="bold"))
+        self.update(Text(f"✗ {printable(reason)}", style="bold"))
