@@ -226,6 +226,17 @@ def solve_boundary(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_h
     dlx_r, dlx_b = exercise_slopes(r, q)
     if not warm:
         _start(r, q, v, tmax, t, lnx, lnb)
+    # iteration-invariant quantities at the quadrature points
+    pre = np.empty((4, n, m))
+    for i in range(n):
+        for j in range(m):
+            s = tmax * s_hat[i, j]
+            u = tmax * u_hat[i, j]
+            wt = tmax * w_hat[i, j]
+            pre[0, i, j] = s
+            pre[1, i, j] = math.sqrt(s)
+            pre[2, i, j] = wt * math.exp(r * u)
+            pre[3, i, j] = wt * math.exp(q * u)
     jac = np.empty((n, n))
     rhs = np.empty((n, 4))
     hn = np.empty(n)
@@ -263,9 +274,8 @@ def solve_boundary(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_h
                 cn[k] = 0.0
                 cd[k] = 0.0
             for j in range(m):
-                s = tmax * s_hat[i, j]
+                s = pre[0, i, j]
                 u = tmax * u_hat[i, j]
-                wt = tmax * w_hat[i, j]
                 h = 0.0
                 ph = 0.0
                 for k in range(n):
@@ -277,15 +287,16 @@ def solve_boundary(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_h
                 dlb_lx = 1.0 - ph / sh if sh > 1e-150 else 0.0
                 ell_r = -dlb_lx * dlx_r
                 ell_b = -dlb_lx * dlx_b
-                ss = math.sqrt(s)
+                ss = pre[1, i, j]
                 vs = v * ss
                 ap = (ell + mup * s) / vs
                 am = (ell + mum * s) / vs
                 ppa = npdf(ap)
-                pma = npdf(am)
+                # φ(a₋) = φ(a₊) e^{a₊ σ√s − σ² s / 2}
+                pma = ppa * math.exp(ap * vs - 0.5 * vs * vs)
                 cpa = ncdf(ap)
-                er = wt * math.exp(r * u)
-                eq = wt * math.exp(q * u)
+                er = pre[2, i, j]
+                eq = pre[3, i, j]
                 tn = er * pma / vs
                 td = eq * (ppa / vs + cpa)
                 num += r * tn
@@ -472,12 +483,13 @@ def european_put(x: float, tau: float, r: float, q: float, v: float, g: np.ndarr
 
 @njit(cache=True, nogil=True, error_model="numpy")
 def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndarray,
-              dlq: np.ndarray, d2lq: np.ndarray, ts_x: np.ndarray, ts_w: np.ndarray,
-              greeks: bool, eu: np.ndarray, out: np.ndarray) -> None:
+              dlq: np.ndarray, d2lq: np.ndarray, nodes: np.ndarray, greeks: bool,
+              eu: np.ndarray, out: np.ndarray) -> None:
     """Put (strike 1, spot e^lnxs) over the boundary ``lq`` (nq + 1,) with its derivatives
-    ``dlq`` (σ, r, b) and ``d2lq`` (σσ): out = price, delta, gamma, vega, theta, rho, carry rho,
-    vanna, volga, charm (out[0] only unless ``greeks``)."""
-    nq = ts_x.size
+    ``dlq`` (σ, r, b) and ``d2lq`` (σσ), price nodes ``nodes`` (5, nq: s, weight, √s, e^{−rs},
+    e^{−qs}): out = price, delta, gamma, vega, theta, rho, carry rho, vanna, volga, charm
+    (out[0] only unless ``greeks``)."""
+    nq = nodes.shape[1]
     xs = math.exp(lnxs)
     v = max(v, 1e-8)
     if lnxs <= lq[nq]:
@@ -501,16 +513,15 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
     rh = eu[7]
     cr = eu[8]
     for j in range(nq):
-        zj = ts_x[j]
-        s = tau * zj * zj
-        wt = tau * 2.0 * zj * ts_w[j]
-        ss = math.sqrt(s)
+        s = nodes[0, j]
+        wt = nodes[1, j]
+        ss = nodes[2, j]
+        er = nodes[3, j]
+        eq = nodes[4, j]
         vs = v * ss
         x = lnxs - lq[j]
         dp = (x + mup * s) / vs
         dm = dp - vs
-        er = math.exp(-r * s)
-        eq = math.exp(-q * s)
         cp = ncdf(-dp)
         cm = ncdf(-dm)
         p += wt * (r * er * cm - q * xs * eq * cp)
@@ -601,11 +612,13 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
     lq_k = np.empty((nsm, nq + 1))
     dlq_k = np.empty((nsm, 3, nq + 1))
     lq = np.empty(nq + 1)
-    dlq = np.empty((3, nq + 1))
-    d2lq = np.empty(nq + 1)
+    dlq = np.zeros((3, nq + 1))
+    d2lq = np.zeros(nq + 1)
     w0 = np.empty((3, nsm))
     w1 = np.empty((3, nsm))
     lag = np.empty(nsm)
+    sig = np.empty(nsm)
+    nodes = np.empty((5, nq))
     eu = np.empty(9)
     res = np.empty(10)
     for g in range(g_r.size):
@@ -613,34 +626,50 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         r = g_r[g]
         q = g_q[g]
         tau = g_tau[g]
+        for j in range(nq):
+            s = tau * ts_x[j] * ts_x[j]
+            nodes[0, j] = s
+            nodes[1, j] = tau * 2.0 * ts_x[j] * ts_w[j]
+            nodes[2, j] = math.sqrt(s)
+            nodes[3, j] = math.exp(-r * s)
+            nodes[4, j] = math.exp(-q * s)
         for k in range(ns):
+            sig[k] = math.exp(g_lnsig[g, k])
             boundary_table(r, q, tau, g_tmax[g], g_lnb[g, k], g_tan[g, k], cheb, ts_x,
                            lq_k[k], dlq_k[k])
+            for j in range(nq + 1):
+                dlq_k[k, 0, j] *= sig[k]              # per unit of ln σ
         for row in range(g_first[g], g_first[g + 1]):
             v = max(row_v[row], vol_min)
-            lv = math.log(v)
-            hermite_weights(lv, g_lnsig[g], ns, w0, w1, lag)
-            for j in range(nq + 1):
-                a0 = 0.0
-                a1 = 0.0
-                a2 = 0.0
-                ar = 0.0
-                ab = 0.0
-                for k in range(ns):
-                    fk = lq_k[k, j]
-                    dk = dlq_k[k, 0, j] * math.exp(g_lnsig[g, k])
-                    a0 += w0[0, k] * fk + w1[0, k] * dk
-                    a1 += w0[1, k] * fk + w1[1, k] * dk
-                    a2 += w0[2, k] * fk + w1[2, k] * dk
-                    ar += lag[k] * dlq_k[k, 1, j]
-                    ab += lag[k] * dlq_k[k, 2, j]
-                lq[j] = a0
-                dlq[0, j] = a1 / v
-                dlq[1, j] = ar
-                dlq[2, j] = ab
-                d2lq[j] = (a2 - a1) / (v * v)
-            value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, ts_x, ts_w, greeks,
-                      eu, res)
+            hermite_weights(math.log(v), g_lnsig[g], ns, w0, w1, lag)
+            if not greeks:
+                for j in range(nq + 1):
+                    a0 = 0.0
+                    for k in range(ns):
+                        a0 += w0[0, k] * lq_k[k, j] + w1[0, k] * dlq_k[k, 0, j]
+                    lq[j] = a0
+            else:
+                for j in range(nq + 1):
+                    a0 = 0.0
+                    a1 = 0.0
+                    a2 = 0.0
+                    ar = 0.0
+                    ab = 0.0
+                    for k in range(ns):
+                        fk = lq_k[k, j]
+                        dk = dlq_k[k, 0, j]
+                        a0 += w0[0, k] * fk + w1[0, k] * dk
+                        a1 += w0[1, k] * fk + w1[1, k] * dk
+                        a2 += w0[2, k] * fk + w1[2, k] * dk
+                        ar += lag[k] * dlq_k[k, 1, j]
+                        ab += lag[k] * dlq_k[k, 2, j]
+                    lq[j] = a0
+                    dlq[0, j] = a1 / v
+                    dlq[1, j] = ar
+                    dlq[2, j] = ab
+                    d2lq[j] = (a2 - a1) / (v * v)
+            value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks, eu,
+                      res)
             sc = row_scale[row]
             if not greeks:
                 out[0, row] = sc * res[0]
