@@ -48,7 +48,7 @@ N_GAUSS = 8
 GRADED = (14, 5, 6)
 """Price rule (``graded_rule``): panels halving towards s = 0, points per panel, points on the
 far half (81 points in all)."""
-NEWTON_MAX = 40
+NEWTON_MAX = 60
 """Newton steps before a boundary is reported as not converged."""
 NEWTON_TOL = 1e-12
 """Largest change of ln B at any node that ends the Newton iteration."""
@@ -215,7 +215,23 @@ def solve_boundary(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_h
                    tangents: np.ndarray, warm: bool) -> int:
     """Solve ln B at the nodes into ``lnb`` (n,) (which holds the start when ``warm``) and its
     derivatives in (σ, r, b) into ``tangents`` (3, n); returns the Newton steps taken, or −1
-    when the iteration did not converge. Put form: rate r > 0, dividend yield q, vol σ > 0."""
+    when the iteration did not converge. Put form: rate r >= 0, dividend yield q, vol σ > 0.
+
+    A start that does not converge is retried from the perpetual guess with steps capped at
+    a tenth of ``MAX_STEP`` (seen where X = r/q is just below 1, whose boundary drops steeply
+    near u = 0)."""
+    steps = _newton(r, q, v, tmax, t, s_hat, u_hat, w_hat, wmat, lnb, tangents, warm, MAX_STEP)
+    if steps < 0:
+        steps = _newton(r, q, v, tmax, t, s_hat, u_hat, w_hat, wmat, lnb, tangents, False,
+                        0.1 * MAX_STEP)
+    return steps
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _newton(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_hat: np.ndarray,
+            u_hat: np.ndarray, w_hat: np.ndarray, wmat: np.ndarray, lnb: np.ndarray,
+            tangents: np.ndarray, warm: bool, max_step: float) -> int:
+    """One Newton run of ``solve_boundary`` with steps capped at ``max_step`` in ln B."""
     n = t.size
     m = s_hat.shape[1]
     b = r - q
@@ -343,7 +359,7 @@ def solve_boundary(r: float, q: float, v: float, tmax: float, t: np.ndarray, s_h
             break
         if it == NEWTON_MAX:
             break
-        scale = 1.0 if biggest <= MAX_STEP else MAX_STEP / biggest
+        scale = 1.0 if biggest <= max_step else max_step / biggest
         for i in range(n):
             lnb[i] = min(lnb[i] - scale * rhs[i, 3], lnx)
     for i in range(n):
