@@ -187,6 +187,14 @@ def _run_models(prep: _Prepared, euro: Kernel, amer: Kernel, amer_chunk: int,
     return outs
 
 
+def _cache(boundaries: object) -> BoundaryCache | None:
+    """``boundaries`` checked: None or a ``BoundaryCache`` (typed ``object`` so that callers
+    passing a dict of arrays by ``**`` still type-check)."""
+    if boundaries is None or isinstance(boundaries, BoundaryCache):
+        return boundaries
+    raise ValueError(f"boundaries must be a BoundaryCache or None, not {type(boundaries).__name__}")
+
+
 def _american_kernel(greeks: bool, boundaries: BoundaryCache | None) -> Kernel:
     """A kernel valuing all the American rows it is given in one call (``american.evaluate``
     groups them by boundary and runs on the thread pool itself)."""
@@ -203,14 +211,14 @@ def _american_kernel(greeks: bool, boundaries: BoundaryCache | None) -> Kernel:
 
 def price_greeks(is_call: object, spot: object, strike: object, years: object, rate: object,
                  carry: object, vol: object, american: object = False,
-                 boundaries: BoundaryCache | None = None) -> Greeks:
+                 boundaries: object = None) -> Greeks:
     """Value and greeks of vanilla options, each of the broadcast shape of the inputs.
 
     Units per one unit of underlying: see ``Greeks``. European rows are closed form with analytic
     greeks; American rows take exact derivatives of the converged method (``american``).
     """
     prep = _inputs(is_call, spot, strike, years, rate, carry, vol, american)
-    outs = _run_models(prep, _black.greeks_kernel, _american_kernel(True, boundaries),
+    outs = _run_models(prep, _black.greeks_kernel, _american_kernel(True, _cache(boundaries)),
                        _AMERICAN_IV_CHUNK, len(GREEK_NAMES), prep.flat.columns,
                        (np.float64,) * len(GREEK_NAMES))
     return Greeks(*(o.reshape(prep.flat.shape) for o in outs))
@@ -218,14 +226,14 @@ def price_greeks(is_call: object, spot: object, strike: object, years: object, r
 
 def price(is_call: object, spot: object, strike: object, years: object, rate: object,
           carry: object, vol: object, american: object = False,
-          boundaries: BoundaryCache | None = None) -> np.ndarray:
+          boundaries: object = None) -> np.ndarray:
     """Values only (currency per unit of underlying), of the broadcast shape of the inputs.
 
     The fast path for scenario ladders, e.g. spots of shape (n_scen, 1) against (1, n) books;
     pass one ``boundaries`` cache to every call of a valuation so American rows reuse them.
     """
     prep = _inputs(is_call, spot, strike, years, rate, carry, vol, american)
-    (out,) = _run_models(prep, _black.price_kernel, _american_kernel(False, boundaries),
+    (out,) = _run_models(prep, _black.price_kernel, _american_kernel(False, _cache(boundaries)),
                          _AMERICAN_IV_CHUNK, 1, prep.flat.columns, (np.float64,))
     return out.reshape(prep.flat.shape)
 

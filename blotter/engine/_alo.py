@@ -382,7 +382,7 @@ def chebyshev_transform(n: int = N_NODES) -> np.ndarray:
 @njit(cache=True, nogil=True, error_model="numpy")
 def boundary_table(r: float, q: float, tau: float, tmax: float, lnb: np.ndarray,
                    tangents: np.ndarray, cheb: np.ndarray, ts_x: np.ndarray, lq: np.ndarray,
-                   dlq: np.ndarray) -> None:
+                   dlq: np.ndarray, greeks: bool) -> None:
     """ln B and its (σ, r, b) derivatives at the price nodes of a row with time ``tau`` <= the
     boundary's ``tmax``: u_j = τ (1 − ts_x_j²) into ``lq`` (nq + 1,), ``dlq`` (3, nq + 1); the
     last entry is u = τ (the boundary at the row's own time)."""
@@ -403,10 +403,11 @@ def boundary_table(r: float, q: float, tau: float, tmax: float, lnb: np.ndarray,
     # Chebyshev coefficients of H = gap² and of its tangents dH = 2 gap dgap
     a = np.zeros(n + 1)
     da = np.zeros((3, n + 1))
+    nd = 3 if greeks else 0
     for k in range(n + 1):
         for i in range(n + 1):
             a[k] += cheb[k, i] * gap[i] * gap[i]
-            for d in range(3):
+            for d in range(nd):
                 da[d, k] += cheb[k, i] * 2.0 * gap[i] * dgap[d, i]
     for j in range(nq + 1):
         u = tau if j == nq else tau * (1.0 - ts_x[j] * ts_x[j])
@@ -422,14 +423,14 @@ def boundary_table(r: float, q: float, tau: float, tmax: float, lnb: np.ndarray,
             bk = 2.0 * xi * b1 - b2 + a[k]
             b2 = b1
             b1 = bk
-            for d in range(3):
+            for d in range(nd):
                 ck = 2.0 * xi * c1[d] - c2[d] + da[d, k]
                 c2[d] = c1[d]
                 c1[d] = ck
         h = xi * b1 - b2 + a[0]
         sh = math.sqrt(h) if h > 0.0 else 0.0
         lq[j] = lnx - sh
-        for d in range(3):
+        for d in range(nd):
             dh = xi * c1[d] - c2[d] + da[d, 0]
             dlq[d, j] = dlx[d] - (0.5 * dh / sh if sh > 1e-150 else 0.0)
 
@@ -626,7 +627,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
     nq = ts_x.size
     nsm = g_lnsig.shape[1]
     lq_k = np.empty((nsm, nq + 1))
-    dlq_k = np.empty((nsm, 3, nq + 1))
+    dlq_k = np.zeros((nsm, 3, nq + 1))
     lq = np.empty(nq + 1)
     dlq = np.zeros((3, nq + 1))
     d2lq = np.zeros(nq + 1)
@@ -652,7 +653,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         for k in range(ns):
             sig[k] = math.exp(g_lnsig[g, k])
             boundary_table(r, q, tau, g_tmax[g], g_lnb[g, k], g_tan[g, k], cheb, ts_x,
-                           lq_k[k], dlq_k[k])
+                           lq_k[k], dlq_k[k], greeks or ns > 1)
             for j in range(nq + 1):
                 dlq_k[k, 0, j] *= sig[k]              # per unit of ln σ
         for row in range(g_first[g], g_first[g + 1]):
