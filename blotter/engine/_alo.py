@@ -52,6 +52,9 @@ NEWTON_MAX = 60
 """Newton steps before a boundary is reported as not converged."""
 NEWTON_TOL = 1e-12
 """Largest change of ln B at any node that ends the Newton iteration."""
+D_NEGLIGIBLE = 8.5
+"""Price nodes where d₋ (<= d₊) exceeds this add nothing: Φ(−8.5) ≈ 1e-17 and the greeks'
+terms carry φ(d₊) ≈ 1e-16 times powers of d/σ√s that stay below it."""
 MAX_STEP = 0.5
 """Largest change of ln B per Newton step (a guard far from the solution)."""
 
@@ -539,6 +542,8 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
         x = lnxs - lq[j]
         dp = (x + mup * s) / vs
         dm = dp - vs
+        if dm > D_NEGLIGIBLE:
+            continue
         cp = ncdf(-dp)
         cm = ncdf(-dm)
         p += wt * (r * er * cm - q * xs * eq * cp)
