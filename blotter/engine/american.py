@@ -26,7 +26,6 @@ to expiry uses the same boundary on [0, τ].
 
 from __future__ import annotations
 
-import math
 import threading
 from collections import OrderedDict
 from collections.abc import Sequence
@@ -205,9 +204,10 @@ class BoundaryCache:
         keep = (t > 0) & (status_of(r_p, q_p) == EXERCISE_BOUNDARY)
         both = np.concatenate([lo[keep], hi[keep]])
         n = int(keep.sum())
-        rows = _Rows(np.zeros(2 * n), np.tile(t[keep], 2), np.tile(r_p[keep], 2),
-                     np.tile(q_p[keep], 2), both, np.ones(2 * n), np.zeros(2 * n, bool))
-        _boundaries(rows, greeks=True, cache=self)
+        if n:
+            rows = _Rows(np.zeros(2 * n), np.tile(t[keep], 2), np.tile(r_p[keep], 2),
+                         np.tile(q_p[keep], 2), both, np.ones(2 * n), np.zeros(2 * n, bool))
+            _boundaries(rows, greeks=True, cache=self)
 
 
 def status_of(r_p: np.ndarray, q_p: np.ndarray) -> np.ndarray:
@@ -233,30 +233,47 @@ class _Rows:
 
 @dataclass(frozen=True)
 class _Groups:
-    """Rows sorted by group: ``order`` maps sorted position -> row; per group its put form,
-    τ, first sorted row and boundary."""
+    """Rows sorted by group (``order`` maps sorted position -> row, ``first`` (G + 1,) the
+    first sorted row of each group) and each group's put form, row time τ and boundary arrays
+    (vol nodes ``lnsig`` (G, NSM) of which the first ``ns`` are used; ``lnb`` (G, NSM, n);
+    ``tan`` (G, NSM, 3, n); ``steps``, −1 where a node failed)."""
 
     order: np.ndarray
     first: np.ndarray
-    items: list[Boundary]
+    rate: np.ndarray
+    div: np.ndarray
     tau: np.ndarray
+    tmax: np.ndarray
+    ns: np.ndarray
+    lnsig: np.ndarray
+    lnb: np.ndarray
+    tan: np.ndarray
+    steps: np.ndarray
 
 
-def _vol_nodes(lo: float, hi: float, greeks: bool) -> np.ndarray:
-    """Vol nodes (ln σ, ascending) for a group whose ln-vols span [lo, hi]."""
-    if hi - lo <= 1e-12:
-        if not greeks:
-            return np.array([lo])
-        return lo + SINGLE_HALF_WIDTH * np.array([-1.0, 0.0, 1.0])
+def _vol_nodes(lo: np.ndarray, hi: np.ndarray, greeks: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Vol nodes (ln σ, ascending; (G, NSM), the first ``ns`` (G,) used) for groups whose
+    ln-vols span [lo, hi]: Chebyshev–Lobatto points over the span widened by ``NODE_MARGIN``;
+    a group of one vol gets that vol alone (prices) or it and ± ``SINGLE_HALF_WIDTH`` (greeks)."""
+    single = hi - lo <= 1e-12
     a, c = lo - NODE_MARGIN, hi + NODE_MARGIN
-    ns = int(min(NODES_MAX, 3 + math.ceil((c - a) / NODE_SPAN)))
-    return 0.5 * (a + c) - 0.5 * (c - a) * np.cos(np.arange(ns) * np.pi / (ns - 1))
+    ns = np.minimum(NODES_MAX, 3 + np.ceil((c - a) / NODE_SPAN)).astype(np.int64)
+    ns[single] = 3 if greeks else 1
+    nsm = int(ns.max())
+    k = np.arange(nsm)[None, :]
+    denom = np.maximum(ns - 1, 1)[:, None]
+    nodes = 0.5 * (a + c)[:, None] - 0.5 * (c - a)[:, None] * np.cos(
+        np.minimum(k, denom) * np.pi / denom)
+    if single.any():
+        offs = (SINGLE_HALF_WIDTH * np.array([-1.0, 0.0, 1.0]) if greeks else np.zeros(1))
+        nodes[single, : offs.size] = lo[single, None] + offs[None, :]
+    return nodes, ns
 
 
 def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
                 scheme: Scheme = DEFAULT) -> _Groups:
-    """Group the rows by exact (τ, rate, dividend yield) and find or solve each group's
-    boundary (solves run on the engine's thread pool)."""
+    """Group the rows by exact (τ, rate, dividend yield) and find (in ``cache``) or solve each
+    group's boundary; solves run on the engine's thread pool, into arrays of all groups."""
     lnv = np.log(np.maximum(rows.vol, VOL_MIN))
     order = np.lexsort((lnv, rows.div, rows.rate, rows.tau))
     t, r, q = rows.tau[order], rows.rate[order], rows.div[order]
@@ -264,61 +281,71 @@ def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
     new[1:] = (t[1:] != t[:-1]) | (r[1:] != r[:-1]) | (q[1:] != q[:-1])
     first = np.append(np.flatnonzero(new), order.size)
     lv = lnv[order]
-    n_groups = first.size - 1
-    items: list[Boundary | None] = [None] * n_groups
-    todo: list[tuple[int, np.ndarray]] = []
-    for g in range(n_groups):
-        a, e = first[g], first[g + 1]
-        lo, hi = float(lv[a]), float(lv[e - 1])
-        found = None
-        if cache is not None and scheme is DEFAULT:
-            found = cache.find(float(r[a]), float(q[a]), float(t[a]), lo, hi)
-        if found is None:
-            todo.append((g, _vol_nodes(lo, hi, greeks)))
-        else:
-            items[g] = found
-    if todo:
-        solved = _solve([(float(r[first[g]]), float(q[first[g]]), float(t[first[g]]), nodes)
-                         for g, nodes in todo], scheme)
-        for (g, _), item in zip(todo, solved, strict=True):
-            items[g] = item
-            if cache is not None and scheme is DEFAULT:
-                cache.store(item)
-    done = [it for it in items if it is not None]
-    return _Groups(order, first, done, t[first[:-1]])
-
-
-def _solve(jobs: list[tuple[float, float, float, np.ndarray]], scheme: Scheme
-           ) -> list[Boundary]:
-    """Solve boundaries for (rate, div, τmax, vol nodes) jobs, in batches on the thread pool."""
+    g_r, g_q, g_tau = r[first[:-1]], q[first[:-1]], t[first[:-1]]
+    lo, hi = lv[first[:-1]], lv[first[1:] - 1]
+    nodes, ns = _vol_nodes(lo, hi, greeks)
+    g_tmax = g_tau.copy()
+    use_cache = cache is not None and scheme is DEFAULT
+    found: dict[int, Boundary] = {}
+    if use_cache:
+        assert cache is not None
+        for g in range(g_r.size):
+            item = cache.find(float(g_r[g]), float(g_q[g]), float(g_tau[g]), float(lo[g]),
+                              float(hi[g]))
+            if item is not None:
+                found[g] = item
+    nsm = max([int(ns.max())] + [it.lnsig.size for it in found.values()])
+    if nsm > nodes.shape[1]:
+        nodes = np.pad(nodes, ((0, 0), (0, nsm - nodes.shape[1])))
     n = scheme.nodes
+    grp = _Groups(order, first, g_r, g_q, g_tau, g_tmax, ns, nodes,
+                  np.zeros((g_r.size, nsm, n)), np.zeros((g_r.size, nsm, 3, n)),
+                  np.zeros(g_r.size, dtype=np.int64))
+    for g, item in found.items():
+        k = item.lnsig.size
+        grp.tmax[g] = item.tmax
+        grp.ns[g] = k
+        grp.lnsig[g, :k] = item.lnsig
+        grp.lnb[g, :k] = item.lnb
+        grp.tan[g, :k] = item.tangents
+        grp.steps[g] = item.steps
+    todo = np.setdiff1d(np.arange(g_r.size), np.fromiter(found, dtype=np.int64))
+    if todo.size:
+        _solve(grp, todo, scheme)
+        if use_cache:
+            assert cache is not None
+            for g in todo:
+                k = int(grp.ns[g])
+                cache.store(Boundary(float(g_r[g]), float(g_q[g]), float(g_tau[g]),
+                                     grp.lnsig[g, :k].copy(), grp.lnb[g, :k].copy(),
+                                     grp.tan[g, :k].copy(), int(grp.steps[g])))
+    return grp
+
+
+def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
+    """Solve the boundaries of groups ``todo`` into ``grp``'s arrays, in batches of groups on
+    the thread pool (in place when every group is to be solved, else through a copy)."""
     tabs: dict[str, np.ndarray] = scheme.tables  # type: ignore[attr-defined]
-    count = len(jobs)
-    ns = np.array([j[3].size for j in jobs], dtype=np.int64)
-    nsm = int(ns.max())
-    g_r = np.array([j[0] for j in jobs])
-    g_q = np.array([j[1] for j in jobs])
-    g_t = np.array([j[2] for j in jobs])
-    g_lnsig = np.zeros((count, nsm))
-    for i, j in enumerate(jobs):
-        g_lnsig[i, : j[3].size] = j[3]
-    g_lnb = np.zeros((count, nsm, n))
-    g_tan = np.zeros((count, nsm, 3, n))
-    g_steps = np.zeros(count, dtype=np.int64)
-    per = max(1, BATCH_ROWS // (4 * nsm))
+    whole = todo.size == grp.rate.size
+    sel = slice(None) if whole else todo
+    arrs = [a[sel] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
+                             grp.tan, grp.steps)]
+    count = todo.size
+    per = max(1, BATCH_ROWS // (4 * grp.lnsig.shape[1]))
     starts = np.arange(0, count, per)
 
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         for a in ins[0]:
             sl = slice(int(a), int(min(a + per, count)))
-            _alo.solve_groups(g_r[sl], g_q[sl], g_t[sl], ns[sl], g_lnsig[sl], tabs["t"],
-                              tabs["s"], tabs["u"], tabs["w"], tabs["W"], g_lnb[sl], g_tan[sl],
-                              g_steps[sl])
+            r, q, tmax, ns, lnsig, lnb, tan, steps = (x[sl] for x in arrs)
+            _alo.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
+                              tabs["w"], tabs["W"], lnb, tan, steps)
 
     run_chunked(kernel, starts.size, (starts,), (np.empty(starts.size),), chunk=1, min_split=1)
-    return [Boundary(float(g_r[i]), float(g_q[i]), float(g_t[i]), g_lnsig[i, : ns[i]].copy(),
-                     g_lnb[i, : ns[i]].copy(), g_tan[i, : ns[i]].copy(), int(g_steps[i]))
-            for i in range(count)]
+    if not whole:
+        grp.lnb[todo] = arrs[5]
+        grp.tan[todo] = arrs[6]
+        grp.steps[todo] = arrs[7]
 
 
 def _value(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
@@ -329,31 +356,15 @@ def _value(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
     m = rows.lnx.size
     n_out = 10 if greeks else 1
     out_sorted = np.empty((n_out, m))
-    items = grp.items
-    n_groups = len(items)
-    nsm = max(it.lnsig.size for it in items)
-    n = scheme.nodes
-    g_r = np.array([it.rate for it in items])
-    g_q = np.array([it.div for it in items])
-    g_tmax = np.array([it.tmax for it in items])
-    g_ns = np.array([it.lnsig.size for it in items], dtype=np.int64)
-    g_lnsig = np.zeros((n_groups, nsm))
-    g_lnb = np.zeros((n_groups, nsm, n))
-    g_tan = np.zeros((n_groups, nsm, 3, n))
-    for g, it in enumerate(items):
-        k = it.lnsig.size
-        g_lnsig[g, :k] = it.lnsig
-        g_lnb[g, :k] = it.lnb
-        g_tan[g, :k] = it.tangents
+    n_groups = grp.rate.size
     o = grp.order
     lnx, vol, scale, call = rows.lnx[o], rows.vol[o], rows.scale[o], rows.call[o]
     # batches of whole groups of about BATCH_ROWS rows
-    cuts = [0]
-    for g in range(1, n_groups):
-        if grp.first[g] - grp.first[cuts[-1]] >= BATCH_ROWS:
-            cuts.append(g)
-    cuts.append(n_groups)
-    bounds = np.array(cuts, dtype=np.int64)
+    sizes = np.diff(grp.first)
+    cum = np.cumsum(sizes)
+    cuts = np.unique(np.searchsorted(cum, np.arange(BATCH_ROWS, m, BATCH_ROWS), side="left"))
+    bounds = np.unique(np.concatenate([[0], cuts + 1, [n_groups]])).astype(np.int64)
+    bounds = bounds[bounds <= n_groups]
 
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         for c in ins[0]:
@@ -361,21 +372,21 @@ def _value(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
             base = int(grp.first[g0])
             sl = slice(g0, g1)
             rs = slice(base, int(grp.first[g1]))
-            _alo.value_groups(g_r[sl], g_q[sl], grp.tau[sl], g_tmax[sl], g_ns[sl], g_lnsig[sl],
-                              g_lnb[sl], g_tan[sl], grp.first[g0:g1 + 1] - base, lnx[rs],
-                              vol[rs], scale[rs], call[rs], scheme.cheb,  # type: ignore
-                              scheme.ts_x, scheme.ts_w, VOL_MIN,  # type: ignore[attr-defined]
-                              greeks, out_sorted[:, rs])
+            _alo.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
+                              grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
+                              grp.first[g0:g1 + 1] - base, lnx[rs], vol[rs], scale[rs],
+                              call[rs], scheme.cheb,  # type: ignore[attr-defined]
+                              scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
+                              VOL_MIN, greeks, out_sorted[:, rs])
 
     ids = np.arange(bounds.size - 1)
     run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)
     out = np.empty((n_out, m))
     out[:, o] = out_sorted
     status = np.zeros(m, dtype=np.int8)
-    failed = np.array([it.steps < 0 for it in items])
+    failed = grp.steps < 0
     if failed.any():
-        bad_rows = np.repeat(failed, np.diff(grp.first))
-        status[o[bad_rows]] = NOT_CONVERGED
+        status[o[np.repeat(failed, sizes)]] = NOT_CONVERGED
     return out, status
 
 
