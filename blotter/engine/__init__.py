@@ -3,16 +3,24 @@
 Public API (arguments broadcast NumPy-style; scalars work; raw units per one unit of
 underlying):
 
-- ``price_greeks(is_call, spot, strike, years, rate, carry, vol, american=False) -> Greeks``
-- ``price(is_call, spot, strike, years, rate, carry, vol, american=False) -> np.ndarray``
+- ``price_greeks(is_call, spot, strike, years, rate, carry, vol, american=False,
+  boundaries=None) -> Greeks``
+- ``price(is_call, spot, strike, years, rate, carry, vol, american=False, boundaries=None)
+  -> np.ndarray``
 - ``implied_vol(price, is_call, spot, strike, years, rate, carry, american=False) -> ImpliedVol``
+- ``american_status(is_call, years, rate, carry) -> np.ndarray`` (codes in ``AMERICAN_STATUS``)
+- ``BoundaryCache``: exercise boundaries kept between calls of one valuation
+- ``kernels_ready() -> bool``, ``warm_up(background=True)``: the compiled kernels' state
 
 ``years`` is the time to expiry in years (<= 0 means expired: intrinsic value); ``rate`` the
 continuously compounded risk-free rate r; ``carry`` the cost of carry b (stock with dividend
 yield q: b = r − q; future: b = 0, Black-76; FX: b = r − r_foreign); ``vol`` an annualised
-decimal. ``american`` (a bool or a bool array) selects Bjerksund–Stensland (2002) per row,
-otherwise generalized Black–Scholes–Merton. Greeks: ``rho`` = ∂V/∂r holding b fixed, so a stock
-option's usual rho is ``rho + carry_rho`` and a futures option's is ``rho``.
+decimal. ``american`` (a bool or a bool array) selects the converged American method per row
+(``american``: the early-exercise-boundary integral equation, Andersen–Lake–Offengenden 2016),
+otherwise generalized Black–Scholes–Merton. ``boundaries``, a ``BoundaryCache``, keeps the
+American rows' exercise boundaries for the next call (a what-if, a ladder, a profile).
+Greeks: ``rho`` = ∂V/∂r holding b fixed, so a stock option's usual rho is ``rho + carry_rho``
+and a futures option's is ``rho``.
 
 Invalid inputs (spot or strike <= 0, vol < 0, any NaN or infinity) raise one ``ValueError`` that
 names the field and its first bad index (e.g. ``strike must be > 0: strike[17] = -5.0``); no
@@ -24,6 +32,7 @@ safe to call from several threads at once. Accuracy by model: ``ACCURACY.md`` be
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -32,6 +41,7 @@ from blotter.engine import american as _american
 from blotter.engine import black as _black
 from blotter.engine import implied as _implied
 from blotter.engine._chunks import CHUNK, Kernel, run_chunked
+from blotter.engine._kernels import kernels_ready, warm_up
 from blotter.engine._validate import (
     Flat,
     as_bool_array,
@@ -39,6 +49,10 @@ from blotter.engine._validate import (
     broadcast_flat,
     quick_ok,
 )
+from blotter.engine._validate import (
+    omega as _omega,
+)
+from blotter.engine.american import AMERICAN_STATUS, BoundaryCache
 from blotter.engine.results import (
     GREEK_NAMES,
     IV_ABOVE_UPPER_BOUND,
@@ -52,6 +66,8 @@ from blotter.engine.results import (
 )
 
 __all__ = [
+    "AMERICAN_STATUS",
+    "BoundaryCache",
     "Greeks",
     "ImpliedVol",
     "IV_ABOVE_UPPER_BOUND",
@@ -60,17 +76,17 @@ __all__ = [
     "IV_NOT_CONVERGED",
     "IV_OK",
     "IV_STATUS",
+    "american_status",
     "implied_vol",
+    "kernels_ready",
     "price",
     "price_greeks",
+    "warm_up",
 ]
 
-_AMERICAN_CHUNK = 1024
-"""Rows per chunk for American greeks: large enough that two worker threads spend their time in
-NumPy's loops rather than queueing for the GIL between many short calls (measured faster than
-256, 512 and 2048 on the 2-core machine)."""
-_AMERICAN_PRICE_CHUNK = 4096
-"""Chunk for American prices and implied vols."""
+_AMERICAN_IV_CHUNK = 1 << 30
+"""American implied vols run as one kernel call (their pricer groups rows and uses the thread
+pool itself)."""
 _IV_CHUNK = 16384
 """Chunk for European implied vols: large, so the few slow elements cost few Python loops."""
 
@@ -149,16 +165,18 @@ def _run_models(prep: _Prepared, euro: Kernel, amer: Kernel, amer_chunk: int,
         outs = [np.empty(flat.size, dtype=dt) for dt in dtypes[:n_out]]
     check = prep.check if prep.deferred else None
     if mask.ndim == 0:
+        if bool(mask) and check is not None and not check(0, flat.size):
+            prep.raise_first_error()
         ok = run_chunked(amer if bool(mask) else euro, flat.size, ins, outs,
                          chunk=amer_chunk if bool(mask) else euro_chunk,
-                         min_split=64 if bool(mask) else 4096, check=check)
+                         min_split=amer_chunk if bool(mask) else 4096, check=check)
         if not ok:
             prep.raise_first_error()
         return outs
     idx_a = np.flatnonzero(mask)
     idx_e = np.flatnonzero(~mask)
     for idx, kern, chunk, split in ((idx_e, euro, euro_chunk, 4096),
-                                    (idx_a, amer, amer_chunk, 64)):
+                                    (idx_a, amer, amer_chunk, amer_chunk)):
         if idx.size == 0:
             continue
         sub_in = tuple(a if a.ndim == 0 else a[idx] for a in ins)
@@ -169,29 +187,54 @@ def _run_models(prep: _Prepared, euro: Kernel, amer: Kernel, amer_chunk: int,
     return outs
 
 
+def _cache(boundaries: object) -> BoundaryCache | None:
+    """``boundaries`` checked: None or a ``BoundaryCache`` (typed ``object`` so that callers
+    passing a dict of arrays by ``**`` still type-check)."""
+    if boundaries is None or isinstance(boundaries, BoundaryCache):
+        return boundaries
+    raise ValueError(f"boundaries must be a BoundaryCache or None, not {type(boundaries).__name__}")
+
+
+def _american_kernel(greeks: bool, boundaries: BoundaryCache | None) -> Kernel:
+    """A kernel valuing all the American rows it is given in one call (``american.evaluate``
+    groups them by boundary and runs on the thread pool itself)."""
+    def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        m = outs[0].shape[0]
+        w, s, k, t, r, b, v = (np.broadcast_to(a, (m,)) for a in
+                               (_omega(ins[0]), *ins[1:]))
+        vals, _ = _american.evaluate(w, s, k, t, r, b, v, greeks, boundaries)
+        for o, val in zip(outs, vals, strict=True):
+            o[:] = val
+
+    return kernel
+
+
 def price_greeks(is_call: object, spot: object, strike: object, years: object, rate: object,
-                 carry: object, vol: object, american: object = False) -> Greeks:
+                 carry: object, vol: object, american: object = False,
+                 boundaries: object = None) -> Greeks:
     """Value and greeks of vanilla options, each of the broadcast shape of the inputs.
 
     Units per one unit of underlying: see ``Greeks``. European rows are closed form with analytic
-    greeks; American rows use Bjerksund–Stensland (2002) with central-difference greeks.
+    greeks; American rows take exact derivatives of the converged method (``american``).
     """
     prep = _inputs(is_call, spot, strike, years, rate, carry, vol, american)
-    outs = _run_models(prep, _black.greeks_kernel, _american.greeks_kernel,
-                       _AMERICAN_CHUNK, len(GREEK_NAMES), prep.flat.columns,
+    outs = _run_models(prep, _black.greeks_kernel, _american_kernel(True, _cache(boundaries)),
+                       _AMERICAN_IV_CHUNK, len(GREEK_NAMES), prep.flat.columns,
                        (np.float64,) * len(GREEK_NAMES))
     return Greeks(*(o.reshape(prep.flat.shape) for o in outs))
 
 
 def price(is_call: object, spot: object, strike: object, years: object, rate: object,
-          carry: object, vol: object, american: object = False) -> np.ndarray:
+          carry: object, vol: object, american: object = False,
+          boundaries: object = None) -> np.ndarray:
     """Values only (currency per unit of underlying), of the broadcast shape of the inputs.
 
-    The fast path for scenario ladders, e.g. spots of shape (n_scen, 1) against (1, n) books.
+    The fast path for scenario ladders, e.g. spots of shape (n_scen, 1) against (1, n) books;
+    pass one ``boundaries`` cache to every call of a valuation so American rows reuse them.
     """
     prep = _inputs(is_call, spot, strike, years, rate, carry, vol, american)
-    (out,) = _run_models(prep, _black.price_kernel, _american.price_kernel,
-                         _AMERICAN_PRICE_CHUNK, 1, prep.flat.columns, (np.float64,))
+    (out,) = _run_models(prep, _black.price_kernel, _american_kernel(False, _cache(boundaries)),
+                         _AMERICAN_IV_CHUNK, 1, prep.flat.columns, (np.float64,))
     return out.reshape(prep.flat.shape)
 
 
@@ -204,7 +247,28 @@ def implied_vol(price: object, is_call: object, spot: object, strike: object, ye
     prep = _inputs(is_call, spot, strike, years, rate, carry, None, american, price=price)
     calls, s, k, t, r, b, p = prep.flat.columns
     outs = _run_models(prep, _implied.make_kernel(False), _implied.make_kernel(True),
-                       _AMERICAN_PRICE_CHUNK, 2, (p, calls, s, k, t, r, b),
+                       _AMERICAN_IV_CHUNK, 2, (p, calls, s, k, t, r, b),
                        (np.float64, np.int8), euro_chunk=_IV_CHUNK)
     return ImpliedVol(vol=outs[0].reshape(prep.flat.shape),
                       status=outs[1].astype(np.int64).reshape(prep.flat.shape))
+
+
+def american_status(is_call: object, years: object, rate: object, carry: object) -> np.ndarray:
+    """Per-row code (``AMERICAN_STATUS`` names them) saying how an American row is valued.
+
+    ``DOUBLE_BOUNDARY`` rows (negative rates on both sides) get a lower bound, not the converged
+    value; a screen can show ``AMERICAN_STATUS[code]`` beside them. Boundaries that fail to
+    converge are reported by ``price``'s rows only through their value (a lower bound); this
+    function classifies by inputs.
+    """
+    calls = as_bool_array("is_call", is_call)
+    cols = [as_float_array(n, v, "finite") for n, v in
+            (("years", years), ("rate", rate), ("carry", carry))]
+    flat = broadcast_flat(("is_call", "years", "rate", "carry"), (calls, *cols))
+    shape = flat.shape
+    c, t, r, b = (np.broadcast_to(a, shape).ravel() for a in flat.columns)
+    r_p = np.where(c, r - b, r)
+    q_p = np.where(c, r, r - b)
+    out = _american.status_of(r_p, q_p).astype(np.int64)
+    out[t <= 0.0] = _american.EXPIRED
+    return out.reshape(shape)

@@ -1,447 +1,458 @@
-"""American options by Bjerksund–Stensland (2002), vectorized, with finite-difference greeks.
+"""American options by the exercise-boundary integral equation, boundaries shared by the rows of
+one (time to expiry, rate, carry) and reused across calls through a ``BoundaryCache``.
 
-P. Bjerksund and G. Stensland, "Closed Form Valuation of American Options", discussion paper,
-NHH 2002: the call is valued as the strategy "exercise when the spot reaches a flat boundary I1
-before t1 = ½(√5 − 1) T, or I2 after it", which needs the bivariate normal at ρ = ±√(t1/T)
-(``bivariate``). Puts use the put–call transformation
-P(S, K, T, r, b, σ) = C(K, S, T, r − b, −b, σ).
+The method (``_alo``): Kim (1990)'s integral equation for the early-exercise boundary of a put,
+solved by Chebyshev collocation in √u with Newton's method, as Andersen, Lake & Offengenden
+(2016) set it out; a row's value is the European value plus one quadrature over the boundary.
+Calls are puts by the put–call symmetry C(S, K, r, b) = P(K, S, r − b, −b) (McDonald & Schroder
+1998), so every row is valued as a put in its "put form" (rate r_p, dividend yield q_p).
 
-Rules applied on top of the formula, per row:
+Rows by put form:
 
-- where the call form has b >= r (calls with b >= r, puts with r <= 0) the value is the
-  European one floored at intrinsic; that is exact (no early exercise) for calls when r >= 0
-  and for puts when b <= r, and a lower bound otherwise;
-- the value is floored at the European value and at intrinsic (the 2002 formula can dip below
-  the European value when b is near 0 and r is small);
-- rows where the 2002 exponent β is not real (possible only with a negative call-form rate:
-  r for calls, r − b for puts) take max(European, intrinsic), a lower bound;
-- vols below ``VOL_FLOOR`` are valued at ``VOL_FLOOR`` by the 2002 formula (the European floor
-  still uses the true vol).
+- r_p > 0, or r_p = 0 with q_p < 0: one exercise boundary, solved (``EXERCISE_BOUNDARY``);
+- r_p <= 0 with q_p >= r_p: never exercised early (for calls: b >= r with r >= 0, or
+  b >= r with r < 0 and r_p <= 0); the European value exactly (``NEVER_EARLY``);
+- q_p < r_p < 0 (a put with q < r < 0, a call with r < q < 0; negative rates on both sides
+  of an FX pair): two exercise boundaries, which this engine does not solve; valued as
+  max(European, intrinsic), a lower bound, and reported per row (``DOUBLE_BOUNDARY``).
 
-Greeks: delta, vega, theta, rho and carry rho are exact derivatives of this price
-(``american_value_grad``, ``_bs2002_grad``); gamma, vanna and charm are central differences of
-delta, vega and theta over spot ± ``STEPS["spot_rel"]`` × S, and volga the second difference
-of the price over vol ± ``STEPS["vol"]``: five evaluations per row, three of them with
-derivatives. Rows that are never exercised early near their inputs take the analytic European
-greeks instead.
+The boundary divided by the strike depends only on (τ, r_p, q_p, σ), so rows are grouped by
+exact (τ, r_p, q_p); each group's boundary is solved at a few vol nodes (Chebyshev–Lobatto in
+ln σ spanning the group's vols with a margin) and interpolated to each row's vol by Hermite
+interpolation in ln σ (values and the exact σ-derivatives of the nodes), which also gives the
+σ-derivatives that vega, vanna and volga need. A spot move changes no boundary; a shorter time
+to expiry uses the same boundary on [0, τ].
 """
 
 from __future__ import annotations
 
+import threading
+from collections import OrderedDict
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import ndtr
 
-from blotter.engine import black
-from blotter.engine._bs2002_grad import bs2002_call_grad
-from blotter.engine._validate import omega
-from blotter.engine.bivariate import GOLDEN, TERM_FLOOR, bvn_signed_sum, small_matmul
+from blotter.engine import _alo, black
+from blotter.engine._chunks import run_chunked
 
-VOL_FLOOR = 1e-3
-"""Smallest vol (annualised decimal) fed to the 2002 formula; below it terms lose precision."""
-_EXP_CAP = 600.0
-"""Cap on exponents of products c·e^L·N(d): e^600 leaves room for coefficients up to 1e47;
-where e^L is that large the N(d) it multiplies is 0 in float64."""
+EXERCISE_BOUNDARY = 0
+"""The row has one exercise boundary, solved by the converged method."""
+NEVER_EARLY = 1
+"""Early exercise never pays for the row: its value is the European one."""
+DOUBLE_BOUNDARY = 2
+"""Negative rates on both sides (put q < r < 0, call r < q < 0): two boundaries, not solved;
+the value is max(European, intrinsic), a lower bound."""
+NOT_CONVERGED = 3
+"""The boundary's Newton iteration did not converge; the value is max(European, intrinsic)."""
+EXPIRED = 4
+"""The row has expired: intrinsic value."""
+SHORT = 5
+"""Under ``YEARS_MIN`` to expiry: max(European, intrinsic), within r K τ of the value."""
 
-STEPS = {
-    "spot_rel": 1e-4,
-    "vol": 1e-4,
+AMERICAN_STATUS: dict[int, str] = {
+    EXERCISE_BOUNDARY: "converged exercise boundary",
+    NEVER_EARLY: "never exercised early: European value",
+    DOUBLE_BOUNDARY: "two exercise boundaries (negative rates): lower bound max(European, "
+                     "intrinsic)",
+    NOT_CONVERGED: "boundary did not converge: lower bound max(European, intrinsic)",
+    EXPIRED: "expired: intrinsic value",
+    SHORT: "under a minute to expiry: max(European, intrinsic)",
 }
-"""Central-difference steps of the second-order greeks: spot 1e-4 × S (gamma, vanna, charm from
-the exact delta, vega and theta at S ± step), vol 1e-4 = 0.01 vol point (volga). Greeks are
-taken at max(σ, 1e-4), so those of rows with vols below 1e-4 are the ones at 1e-4 (their price
-uses the true vol)."""
+"""Words for each American status code, for a screen that shows why a value is a bound."""
+
+YEARS_MIN = 1e-6
+"""Rows with less time than this (about 30 seconds) take max(European, intrinsic): the early
+exercise premium is below r K τ, 1e-7 of the strike at r = 10%."""
+VOL_MIN = 0.01
+"""Vols below this (annualised decimal) use the boundary at this vol (their quadrature uses the
+true vol); below it the boundary is within 1% of its σ = 0 limit and the solver's densities
+underflow."""
+NODE_MARGIN = 0.05
+"""Margin in ln σ added on each side of a group's vols before placing its vol nodes."""
+NODE_SPAN = 0.35
+"""Width in ln σ covered per vol node beyond the first three (a group spanning vols 15%–60%
+gets 3 + 5 nodes)."""
+NODES_MAX = 12
+"""Most vol nodes per group."""
+SINGLE_HALF_WIDTH = 0.05
+"""Half-width in ln σ of the three vol nodes of a group with one vol (greeks need the
+boundary's second σ-derivative, which three nodes with derivatives give to O(width⁴))."""
+BATCH_ROWS = 512
+"""Rows per unit of work on the thread pool (whole groups; a larger group is one unit)."""
 
 
-def _cexp(x: np.ndarray) -> np.ndarray:
-    """e^x in place, with x clipped to [TERM_FLOOR, _EXP_CAP] (no overflow, no slow underflow)."""
-    np.clip(x, TERM_FLOOR, _EXP_CAP, out=x)
-    np.exp(x, out=x)
-    return x
 
+@dataclass(frozen=True, eq=False)
+class Scheme:
+    """Discretization of the method: Chebyshev intervals, Gauss–Legendre points per half of a
+    boundary integral, and the tanh-sinh rule of the price integral, with their tables."""
 
-def _matrices() -> dict[str, np.ndarray]:
-    """Constant matrices mapping per-row bases to the 2002 formula's arguments and exponents.
+    nodes: int
+    gauss: int
+    ts_step: float
+    ts_half: int
+    graded: tuple[int, int, int] | None = None
 
-    Bases: B1 = [ln S, ln I1, ln I2, μβ t1, μ1 t1, μ0 t1] (t1 arguments, × 1/(σ√t1));
-    B2 = [ln S, ln I1, ln I2, ln K, μβ T, μ1 T, μ0 T] (T arguments, × 1/(σ√T));
-    B3 = [ln S, ln I1, ln I2, ln K, β ln S, β ln I1, β ln I2, (b/σ²) ln S, (b/σ²) ln I1,
-    (b/σ²) ln I2, λβ t1, λ1 t1, λ0 t1, λβ T, λ1 T, λ0 T, ln(I2 − K), ln(I1 − K)] (exponents).
-    """
-    S, I1, I2, K = 0, 1, 2, 3
-    # t1 arguments: d(γ, H) and d_ref(γ, H) of φ for γ = β, 1, 0 and H = I2, I1; then −e3, −e4.
-    a1 = []
-    for g in range(3):
-        for lh in (I2, I1):
-            row = np.zeros(6)
-            row[S] -= 1.0
-            row[lh] += 1.0
-            row[3 + g] -= 1.0
-            a1.append(row)                     # d = −(ln S − ln H + μ t1)
-    for g in range(3):
-        for lh in (I2, I1):
-            row = np.zeros(6)
-            row[S] += 1.0
-            row[lh] += 1.0
-            row[I2] -= 2.0
-            row[3 + g] -= 1.0
-            a1.append(row)                     # d_ref = d − 2 ln(I2/S)
-    for g in range(3):
-        row = np.zeros(6)
-        row[[S, I1, 3 + g]] = [-1.0, 1.0, 1.0]
-        a1.append(row)                         # −e3 = −(ln S − ln I1 − μ t1)
-    for g in range(3):
-        row = np.zeros(6)
-        row[[S, I1, I2, 3 + g]] = [1.0, 1.0, -2.0, 1.0]
-        a1.append(row)                         # −e4 = −(2 ln I2 − ln S − ln I1 − μ t1)
-    # T arguments: −f1..−f4 for the ψ combinations (γ, H).
-    a2: list[np.ndarray] = []
-    for g, h_name in PSI_TERMS:
-        hcol = I1 if h_name == "I1" else K
-        rows = np.zeros((4, 7))
-        # np.add.at, because H can be I1, which other terms of the same row also use.
-        np.add.at(rows[0], [S, hcol, 4 + g], [-1.0, 1.0, -1.0])
-        np.add.at(rows[1], [I2, S, hcol, 4 + g], [-2.0, 1.0, 1.0, -1.0])
-        np.add.at(rows[2], [I1, S, hcol, 4 + g], [-2.0, 1.0, 1.0, -1.0])
-        np.add.at(rows[3], [S, I1, hcol, I2, 4 + g], [-1.0, -2.0, 1.0, 2.0, -1.0])
-        a2.extend(rows)
-    # Exponents. Column helpers: β·x at 4 + x, (b/σ²)·x at 7 + x (x in S, I1, I2).
-    def lam(g: int, at_t1: bool) -> int:
-        return (10 if at_t1 else 13) + g
-
-    def kap_times(row: np.ndarray, g: int, x: int, sign: float) -> None:
-        # κγ x = 2 (b/σ²) x + (2γ − 1) x, with γ = β (g = 0), 1 (g = 1) or 0 (g = 2)
-        row[7 + x] += 2.0 * sign
-        if g == 0:
-            row[4 + x] += 2.0 * sign
-            row[x] -= sign
-        elif g == 1:
-            row[x] += sign
+    def __post_init__(self) -> None:
+        tabs = _alo.solver_tables(self.nodes, self.gauss)
+        if self.graded is None:
+            ts_x, ts_w = _alo.tanh_sinh(self.ts_step, self.ts_half)
         else:
-            row[x] -= sign
-
-    LN_I2K, LN_I1K = 16, 17
-
-    def exponent_row(g: int, at_t1: bool, level: int, coef_col: int | None) -> np.ndarray:
-        # λγ(t) + γ ln(S / level) (γ = β, 1 or 0) plus the term's coefficient column, if any
-        row = np.zeros(18)
-        row[lam(g, at_t1)] = 1.0
-        if g == 0:
-            row[4 + S] += 1.0
-            row[4 + level] -= 1.0
-        elif g == 1:
-            row[S] += 1.0
-        if coef_col is not None:
-            row[coef_col] += 1.0
-        return row
-    a3, signs = [], []
-    # φ main and reflected, in the order of the t1 arguments above.
-    phi_coef = {(0, I2): (LN_I2K, -1.0), (0, I1): (LN_I1K, 1.0), (1, I2): (None, 1.0),
-                (1, I1): (None, -1.0), (2, I2): (K, -1.0), (2, I1): (K, 1.0)}
-    mains = []
-    for g in range(3):
-        for lh in (I2, I1):
-            col, sign = phi_coef[(g, lh)]
-            mains.append((exponent_row(g, True, lh, col), sign, g))
-    for row, sign, _ in mains:
-        a3.append(row)
-        signs.append(sign)
-    for row, sign, g in mains:
-        refl = row.copy()
-        kap_times(refl, g, I2, 1.0)
-        kap_times(refl, g, S, -1.0)            # κ ln(I2/S)
-        a3.append(refl)
-        signs.append(-sign)
-    row = np.zeros(18)
-    row[[LN_I2K, 4 + S, 4 + I2]] = [1.0, 1.0, -1.0]
-    a3.append(row)                             # α2 S^β = (I2 − K) e^{β ln(S/I2)}
-    signs.append(1.0)
-    psi_coef = {(0, "I1"): (LN_I1K, -1.0), (1, "I1"): (None, 1.0), (1, "K"): (None, -1.0),
-                (2, "I1"): (K, -1.0), (2, "K"): (K, 1.0)}
-    for g, h_name in PSI_TERMS:
-        col, sign = psi_coef[(g, h_name)]
-        base = exponent_row(g, False, I1, col)
-        r2 = base.copy()
-        kap_times(r2, g, I2, 1.0)
-        kap_times(r2, g, S, -1.0)              # (I2/S)^κ
-        r3 = base.copy()
-        kap_times(r3, g, I1, 1.0)
-        kap_times(r3, g, S, -1.0)              # (I1/S)^κ
-        r4 = base.copy()
-        kap_times(r4, g, I1, 1.0)
-        kap_times(r4, g, I2, -1.0)             # (I1/I2)^κ
-        a3.extend([base, r2, r3, r4])
-        signs.extend([sign, -sign, -sign, sign])
-    # Rows of the t1 arguments giving h of each bivariate term (M1..M4 per ψ combination).
-    h_rows = []
-    for g, _ in PSI_TERMS:
-        h_rows += [2 * g + 1, 6 + 2 * g + 1, 12 + g, 15 + g]   # d(γ,I1), d_ref(γ,I1), −e3, −e4
-    return {"a1": np.array(a1), "a2": np.array(a2), "a3": np.array(a3),
-            "signs": np.array(signs), "h_rows": np.array(h_rows)}
+            ts_x, ts_w = _alo.graded_rule(*self.graded)
+        object.__setattr__(self, "tables", tabs)
+        object.__setattr__(self, "cheb", _alo.chebyshev_transform(self.nodes))
+        object.__setattr__(self, "ts_x", ts_x)
+        object.__setattr__(self, "ts_w", ts_w)
 
 
-PSI_TERMS = ((0, "I1"), (1, "I1"), (1, "K"), (2, "I1"), (2, "K"))
-"""(γ index in β, 1, 0; H) of the five ψ terms of the 2002 formula."""
-_M = _matrices()
-RHO_SIGN = np.array([1.0 if j % 4 < 2 else -1.0 for j in range(20)])
-"""Sign of the correlation of each bivariate row: M1, M2 of a ψ term use +ρ, M3, M4 −ρ."""
+DEFAULT = Scheme(_alo.N_NODES, _alo.N_GAUSS, 0.0, 0, _alo.GRADED)
+"""The engine's scheme (ACCURACY.md has its errors by region)."""
+FINE = Scheme(32, 24, 0.0, 0, (28, 8, 16))
+"""A much finer scheme, for reference runs (``tests.engine.american_reference``)."""
 
 
-def bs2002_call(s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray, b: np.ndarray,
-                v: np.ndarray) -> np.ndarray:
-    """Bjerksund–Stensland (2002) American call, arrays of one shape (m,), b < r and β real.
+@dataclass(frozen=True, eq=False)
+class Boundary:
+    """One solved group: put-form rate and dividend yield, the time τmax the boundary spans, vol
+    nodes (ln σ, ascending) and ln(B/K) with its (σ, r, b) derivatives at the Chebyshev nodes."""
 
-    Values of rows outside that domain are finite but meaningless; callers select them away.
-    The formula is Σ_j ±e^{L_j} G_j with G_j a normal or bivariate normal CDF; every argument
-    and exponent L_j is a fixed linear combination of a few per-row logs, so they come from
-    three small matrix products (see ``_matrices``). Exponents are clipped to
-    [``TERM_FLOOR``, ``_EXP_CAP``] so that small vols (large β) neither overflow nor lose terms.
+    rate: float
+    div: float
+    tmax: float
+    lnsig: np.ndarray        # (ns,)
+    lnb: np.ndarray          # (ns, n)
+    tangents: np.ndarray     # (ns, 3, n)
+    steps: int               # Newton steps of the slowest node, −1 when one failed
+
+    def covers(self, tau: float, lo: float, hi: float) -> bool:
+        """True when this boundary serves rows of time ``tau`` and ln-vols in [lo, hi]."""
+        return (ROLL_MIN * self.tmax <= tau <= self.tmax and self.lnsig[0] <= lo + 1e-12
+                and hi <= self.lnsig[-1] + 1e-12)
+
+    @property
+    def nbytes(self) -> int:
+        return int(self.lnsig.nbytes + self.lnb.nbytes + self.tangents.nbytes) + 200
+
+
+ROLL_MIN = 0.75
+"""A cached boundary spanning τmax serves rows with τ in [ROLL_MIN τmax, τmax] (day rolls);
+shorter ones get a boundary of their own (the Chebyshev nodes would thin out near u = 0)."""
+
+
+class BoundaryCache:
+    """Solved exercise boundaries kept between calls, at most ``max_bytes`` (least recently used
+    dropped first), safe to share between threads.
+
+    Key: the put form's (rate, dividend yield) as exact floats; each key holds boundaries by
+    τmax and vol range. Pass one cache to every call of one valuation (base, what-ifs, ladder,
+    profile): spot moves reuse every boundary, day rolls reuse them for τ >= 0.75 τmax, vol
+    moves within the solved range reuse them (``prepare`` widens the range ahead).
     """
-    m = s.shape[0]
-    v2 = v * v
-    t1 = GOLDEN * t
-    vs1 = v * np.sqrt(t1)
-    vst = v * np.sqrt(t)
-    bv = b / v2
-    beta = (0.5 - bv) + np.sqrt(np.square(bv - 0.5) + 2.0 * r / v2)
-    b_inf = beta / (beta - 1.0) * k
-    b_0 = np.maximum(k, r / (r - b) * k)
-    gap = np.maximum(b_inf - b_0, 1e-12 * k)
-    scale = k * k / (gap * b_0)
-    # h(t) = −(b t + 2σ√t) K² / ((B∞ − B0) B0), capped at 0 so that B0 <= I <= B∞ (the cap binds
-    # only for strongly negative carry with a small vol, where the boundary is B0).
-    i1 = b_0 - gap * np.expm1(np.minimum(-(b * t1 + 2.0 * vs1) * scale, 0.0))
-    i2 = b_0 - gap * np.expm1(np.minimum(-(b * t + 2.0 * vst) * scale, 0.0))
-    ls, lk, l1, l2 = np.log(s), np.log(k), np.log(i1), np.log(i2)
-    half_v2 = 0.5 * v2
-    mu = np.stack([b + (beta - 0.5) * v2, b + half_v2, b - half_v2])
-    lam = np.stack([-r + beta * b + half_v2 * beta * (beta - 1.0), b - r, -r])
-    basis1 = np.concatenate([np.stack([ls, l1, l2]), mu * t1])
-    basis2 = np.concatenate([np.stack([ls, l1, l2, lk]), mu * t])
-    logs3 = np.stack([ls, l1, l2])
-    basis3 = np.concatenate([
-        logs3[:, :], lk[None], beta * logs3, bv * logs3, lam * t1, lam * t,
-        np.log(np.maximum(np.stack([i2 - k, i1 - k]), 1e-300)),
-    ])
-    # BLAS in blocks small enough to stay on this thread (OpenBLAS's own threads, beside the
-    # engine's workers, stall each other on this machine).
-    args1 = small_matmul(_M["a1"], basis1)
-    args1 /= vs1
-    args2 = small_matmul(_M["a2"], basis2)
-    args2 /= vst
-    expo = small_matmul(_M["a3"], basis3)
-    n1 = ndtr(args1)
-    n2 = ndtr(args2)
-    # Univariate part: φ rows (12), α2 S^β row, and N(h) N(k) of the 20 bivariate rows.
-    h_rows = _M["h_rows"]
-    g = np.empty((33, m))
-    g[:12] = n1[:12]
-    g[12] = 1.0
-    np.multiply(n1[h_rows], n2, out=g[13:])
-    weights = _cexp(expo.copy())
-    weights *= g
-    value = np.einsum("j,jm->m", _M["signs"], weights, optimize=False)
-    # Quadrature part of the bivariate rows: Σ_i e^{L_j + ln w_i + a_i h k − b_i (h² + k²)}.
-    h = args1[h_rows]
-    hk = h * args2
-    hs = np.square(h, out=h)
-    hs += np.square(args2)
-    value += bvn_signed_sum(hk, hs, expo[13:], _M["signs"][13:], RHO_SIGN)[0]
-    out: np.ndarray = np.where(s >= i2, s - k, value)
+
+    def __init__(self, max_bytes: int = 64 << 20) -> None:
+        self.max_bytes = max_bytes
+        self._lock = threading.Lock()
+        self._items: OrderedDict[tuple[float, float, float], Boundary] = OrderedDict()
+        self._bytes = 0
+        self.hits = 0
+        self.misses = 0
+
+    def __len__(self) -> int:
+        with self._lock:
+            return len(self._items)
+
+    def find(self, rate: float, div: float, tau: float, lo: float, hi: float) -> Boundary | None:
+        """A boundary serving (rate, div, τ) for ln-vols [lo, hi], or None."""
+        with self._lock:
+            exact = self._items.get((rate, div, tau))
+            if exact is not None and exact.covers(tau, lo, hi):
+                self._items.move_to_end((rate, div, tau))
+                self.hits += 1
+                return exact
+            for key, item in self._items.items():
+                if key[0] == rate and key[1] == div and item.covers(tau, lo, hi):
+                    self._items.move_to_end(key)
+                    self.hits += 1
+                    return item
+            self.misses += 1
+            return None
+
+    def store(self, item: Boundary) -> None:
+        """Keep ``item`` (replacing one of the same key), dropping the oldest beyond the cap."""
+        key = (item.rate, item.div, item.tmax)
+        with self._lock:
+            old = self._items.pop(key, None)
+            if old is not None:
+                self._bytes -= old.nbytes
+            self._items[key] = item
+            self._bytes += item.nbytes
+            while self._bytes > self.max_bytes and len(self._items) > 1:
+                _, dropped = self._items.popitem(last=False)
+                self._bytes -= dropped.nbytes
+
+    def prepare(self, is_call: object, years: object, rate: object, carry: object,
+                vol_lo: object, vol_hi: object) -> None:
+        """Solve (or find) the boundaries that rows of these (years, rate, carry) need for any
+        vol in [vol_lo, vol_hi], e.g. a ladder's lowest and highest shocked vols."""
+        w, t, r, b, lo, hi = np.broadcast_arrays(
+            np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0), *(
+                np.asarray(a, dtype=np.float64) for a in (years, rate, carry, vol_lo, vol_hi)))
+        w, t, r, b, lo, hi = (np.ravel(a) for a in (w, t, r, b, lo, hi))
+        r_p = np.where(w > 0, r - b, r)
+        q_p = np.where(w > 0, r, r - b)
+        keep = (t > 0) & (status_of(r_p, q_p) == EXERCISE_BOUNDARY)
+        both = np.concatenate([lo[keep], hi[keep]])
+        n = int(keep.sum())
+        if n:
+            rows = _Rows(np.zeros(2 * n), np.tile(t[keep], 2), np.tile(r_p[keep], 2),
+                         np.tile(q_p[keep], 2), both, np.ones(2 * n), np.zeros(2 * n, bool))
+            _boundaries(rows, greeks=True, cache=self)
+
+
+def status_of(r_p: np.ndarray, q_p: np.ndarray) -> np.ndarray:
+    """Status by put form (``EXERCISE_BOUNDARY``, ``NEVER_EARLY`` or ``DOUBLE_BOUNDARY``)."""
+    out = np.full(r_p.shape, NEVER_EARLY, dtype=np.int8)
+    out[(r_p > 0.0) | ((r_p == 0.0) & (q_p < 0.0))] = EXERCISE_BOUNDARY
+    out[(q_p < r_p) & (r_p < 0.0)] = DOUBLE_BOUNDARY
     return out
 
 
-def american_value(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
-                   b: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """American value by the 2002 formula with the module's rules, arrays of one shape (m,)."""
-    euro = np.empty(s.shape)
-    black.price_kernel((w, s, k, t, r, b, v), (euro,))
-    put = w < 0
-    s_c = np.where(put, k, s)
-    k_c = np.where(put, s, k)
-    r_c = np.where(put, r - b, r)
-    b_c = np.where(put, -b, b)
-    v_c = np.maximum(v, VOL_FLOOR)
-    bv = b_c / (v_c * v_c)
-    disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
-    beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
-    # β → 1 as b → r, where the early-exercise premium vanishes; β <= 1 + 1e-9 is European.
-    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
+@dataclass(frozen=True)
+class _Rows:
+    """Rows in put form: ln(spot/strike), τ, rate, dividend yield, vol, scale, is_call."""
+
+    lnx: np.ndarray
+    tau: np.ndarray
+    rate: np.ndarray
+    div: np.ndarray
+    vol: np.ndarray
+    scale: np.ndarray
+    call: np.ndarray
+
+
+@dataclass(frozen=True)
+class _Groups:
+    """Rows sorted by group (``order`` maps sorted position -> row, ``first`` (G + 1,) the
+    first sorted row of each group) and each group's put form, row time τ and boundary arrays
+    (vol nodes ``lnsig`` (G, NSM) of which the first ``ns`` are used; ``lnb`` (G, NSM, n);
+    ``tan`` (G, NSM, 3, n); ``steps``, −1 where a node failed)."""
+
+    order: np.ndarray
+    first: np.ndarray
+    rate: np.ndarray
+    div: np.ndarray
+    tau: np.ndarray
+    tmax: np.ndarray
+    ns: np.ndarray
+    lnsig: np.ndarray
+    lnb: np.ndarray
+    tan: np.ndarray
+    steps: np.ndarray
+
+
+def _vol_nodes(lo: np.ndarray, hi: np.ndarray, greeks: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Vol nodes (ln σ, ascending; (G, NSM), the first ``ns`` (G,) used) for groups whose
+    ln-vols span [lo, hi]: Chebyshev–Lobatto points over the span widened by ``NODE_MARGIN``;
+    a group of one vol gets that vol alone (prices) or it and ± ``SINGLE_HALF_WIDTH`` (greeks)."""
+    single = hi - lo <= 1e-12
+    a, c = lo - NODE_MARGIN, hi + NODE_MARGIN
+    ns = np.minimum(NODES_MAX, 3 + np.ceil((c - a) / NODE_SPAN)).astype(np.int64)
+    ns[single] = 3 if greeks else 1
+    nsm = int(ns.max())
+    k = np.arange(nsm)[None, :]
+    denom = np.maximum(ns - 1, 1)[:, None]
+    nodes = 0.5 * (a + c)[:, None] - 0.5 * (c - a)[:, None] * np.cos(
+        np.minimum(k, denom) * np.pi / denom)
+    if single.any():
+        offs = (SINGLE_HALF_WIDTH * np.array([-1.0, 0.0, 1.0]) if greeks else np.zeros(1))
+        nodes[single, : offs.size] = lo[single, None] + offs[None, :]
+    return nodes, ns
+
+
+def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
+                scheme: Scheme = DEFAULT) -> _Groups:
+    """Group the rows by exact (τ, rate, dividend yield) and find (in ``cache``) or solve each
+    group's boundary; solves run on the engine's thread pool, into arrays of all groups."""
+    lnv = np.log(np.maximum(rows.vol, VOL_MIN))
+    order = np.lexsort((lnv, rows.div, rows.rate, rows.tau))
+    t, r, q = rows.tau[order], rows.rate[order], rows.div[order]
+    new = np.ones(order.size, dtype=bool)
+    new[1:] = (t[1:] != t[:-1]) | (r[1:] != r[:-1]) | (q[1:] != q[:-1])
+    first = np.append(np.flatnonzero(new), order.size)
+    lv = lnv[order]
+    g_r, g_q, g_tau = r[first[:-1]], q[first[:-1]], t[first[:-1]]
+    lo, hi = lv[first[:-1]], lv[first[1:] - 1]
+    nodes, ns = _vol_nodes(lo, hi, greeks)
+    g_tmax = g_tau.copy()
+    use_cache = cache is not None and scheme is DEFAULT
+    found: dict[int, Boundary] = {}
+    if use_cache:
+        assert cache is not None
+        for g in range(g_r.size):
+            item = cache.find(float(g_r[g]), float(g_q[g]), float(g_tau[g]), float(lo[g]),
+                              float(hi[g]))
+            if item is not None:
+                found[g] = item
+    nsm = max([int(ns.max())] + [it.lnsig.size for it in found.values()])
+    if nsm > nodes.shape[1]:
+        nodes = np.pad(nodes, ((0, 0), (0, nsm - nodes.shape[1])))
+    n = scheme.nodes
+    grp = _Groups(order, first, g_r, g_q, g_tau, g_tmax, ns, nodes,
+                  np.zeros((g_r.size, nsm, n)), np.zeros((g_r.size, nsm, 3, n)),
+                  np.zeros(g_r.size, dtype=np.int64))
+    for g, item in found.items():
+        k = item.lnsig.size
+        grp.tmax[g] = item.tmax
+        grp.ns[g] = k
+        grp.lnsig[g, :k] = item.lnsig
+        grp.lnb[g, :k] = item.lnb
+        grp.tan[g, :k] = item.tangents
+        grp.steps[g] = item.steps
+    todo = np.setdiff1d(np.arange(g_r.size), np.fromiter(found, dtype=np.int64))
+    if todo.size:
+        _solve(grp, todo, scheme)
+        if use_cache:
+            assert cache is not None
+            for g in todo:
+                k = int(grp.ns[g])
+                cache.store(Boundary(float(g_r[g]), float(g_q[g]), float(g_tau[g]),
+                                     grp.lnsig[g, :k].copy(), grp.lnb[g, :k].copy(),
+                                     grp.tan[g, :k].copy(), int(grp.steps[g])))
+    return grp
+
+
+def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
+    """Solve the boundaries of groups ``todo`` into ``grp``'s arrays, in batches of groups on
+    the thread pool (in place when every group is to be solved, else through a copy)."""
+    tabs: dict[str, np.ndarray] = scheme.tables  # type: ignore[attr-defined]
+    whole = todo.size == grp.rate.size
+    sel = slice(None) if whole else todo
+    arrs = [a[sel] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
+                             grp.tan, grp.steps)]
+    count = todo.size
+    per = max(1, BATCH_ROWS // (4 * grp.lnsig.shape[1]))
+    starts = np.arange(0, count, per)
+
+    def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        for a in ins[0]:
+            sl = slice(int(a), int(min(a + per, count)))
+            r, q, tmax, ns, lnsig, lnb, tan, steps = (x[sl] for x in arrs)
+            _alo.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
+                              tabs["w"], tabs["W"], lnb, tan, steps)
+
+    run_chunked(kernel, starts.size, (starts,), (np.empty(starts.size),), chunk=1, min_split=1)
+    if not whole:
+        grp.lnb[todo] = arrs[5]
+        grp.tan[todo] = arrs[6]
+        grp.steps[todo] = arrs[7]
+
+
+def _value(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
+           scheme: Scheme) -> tuple[np.ndarray, np.ndarray]:
+    """Values (1, m) or price and nine greeks (10, m) of rows with one exercise boundary, and
+    each row's status (``EXERCISE_BOUNDARY`` or ``NOT_CONVERGED``)."""
+    grp = _boundaries(rows, greeks, cache, scheme)
+    m = rows.lnx.size
+    n_out = 10 if greeks else 1
+    out_sorted = np.empty((n_out, m))
+    n_groups = grp.rate.size
+    o = grp.order
+    lnx, vol, scale, call = rows.lnx[o], rows.vol[o], rows.scale[o], rows.call[o]
+    # batches of whole groups of about BATCH_ROWS rows
+    sizes = np.diff(grp.first)
+    cum = np.cumsum(sizes)
+    cuts = np.unique(np.searchsorted(cum, np.arange(BATCH_ROWS, m, BATCH_ROWS), side="left"))
+    bounds = np.unique(np.concatenate([[0], cuts + 1, [n_groups]])).astype(np.int64)
+    bounds = bounds[bounds <= n_groups]
+
+    def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        for c in ins[0]:
+            g0, g1 = int(bounds[c]), int(bounds[c + 1])
+            base = int(grp.first[g0])
+            sl = slice(g0, g1)
+            rs = slice(base, int(grp.first[g1]))
+            _alo.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
+                              grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
+                              grp.first[g0:g1 + 1] - base, lnx[rs], vol[rs], scale[rs],
+                              call[rs], scheme.cheb,  # type: ignore[attr-defined]
+                              scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
+                              VOL_MIN, greeks, out_sorted[:, rs])
+
+    ids = np.arange(bounds.size - 1)
+    run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)
+    out = np.empty((n_out, m))
+    out[:, o] = out_sorted
+    status = np.zeros(m, dtype=np.int8)
+    failed = grp.steps < 0
+    if failed.any():
+        status[o[np.repeat(failed, sizes)]] = NOT_CONVERGED
+    return out, status
+
+
+def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
+             b: np.ndarray) -> tuple[np.ndarray, ...]:
+    """ln(spot/strike), rate, dividend yield and scale of each row's put form."""
+    call = w > 0
+    lnx = np.where(call, np.log(k / s), np.log(s / k))
+    r_p = np.where(call, r - b, r)
+    q_p = np.where(call, r, r - b)
+    scale = np.where(call, s, k)
+    return lnx, r_p, q_p, scale
+
+
+def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
+             b: np.ndarray, v: np.ndarray, greeks: bool, cache: BoundaryCache | None = None,
+             scheme: Scheme = DEFAULT) -> tuple[list[np.ndarray], np.ndarray]:
+    """American price (``greeks`` False) or price and nine greeks of rows given as flat arrays
+    of one shape (m,), ω = ±1; returns the outputs in ``results.GREEK_NAMES`` order and each
+    row's status code (``AMERICAN_STATUS``)."""
+    m = s.size
+    n_out = 10 if greeks else 1
+    outs = [np.empty(m) for _ in range(n_out)]
+    lnx, r_p, q_p, scale = put_form(w, s, k, r, b)
+    status = status_of(r_p, q_p)
+    status[(status == EXERCISE_BOUNDARY) & (t < YEARS_MIN)] = SHORT
+    status[t <= 0.0] = EXPIRED
+    solve = status == EXERCISE_BOUNDARY
+    if solve.any():
+        idx = np.flatnonzero(solve)
+        rows = _Rows(lnx[idx], t[idx], r_p[idx], q_p[idx], v[idx], scale[idx], w[idx] > 0)
+        vals, st = _value(rows, greeks, cache, scheme)
+        # The value is at least European and intrinsic; the floors only absorb rounding.
+        euro = np.empty(idx.size)
+        black.price_kernel(tuple(a[idx] for a in (w, s, k, t, r, b, v)), (euro,))
+        np.maximum(vals[0], euro, out=vals[0])
+        np.maximum(vals[0], np.maximum(w[idx] * (s[idx] - k[idx]), 0.0), out=vals[0])
+        for o, val in zip(outs, vals, strict=True):
+            o[idx] = val
+        status[idx] = np.maximum(status[idx], st)
+    european = status != EXERCISE_BOUNDARY
+    if european.any():
+        idx = np.flatnonzero(european)
+        sub = [np.empty(idx.size) for _ in range(n_out)]
+        ins = tuple(a[idx] for a in (w, s, k, t, r, b, v))
+        if greeks:
+            black.greeks_kernel(ins, sub)
+        # the price kernel's value, so that prices equal ``price``'s to the last bit
+        black.price_kernel(ins, sub[:1])
+        for o, so in zip(outs, sub, strict=True):
+            o[idx] = so
+    bound = (status == DOUBLE_BOUNDARY) | (status == NOT_CONVERGED) | (status == SHORT)
+    if bound.any():
+        _floor_at_intrinsic(w, s, k, outs, bound)
+    return outs, status
+
+
+def _floor_at_intrinsic(w: np.ndarray, s: np.ndarray, k: np.ndarray, outs: list[np.ndarray],
+                        rows: np.ndarray) -> None:
+    """Rows ``rows`` take max(European already in ``outs``, intrinsic), with intrinsic's greeks
+    (delta ±1, the rest 0) where intrinsic is larger."""
     intrinsic = np.maximum(w * (s - k), 0.0)
-    out: np.ndarray = np.maximum(euro, intrinsic)
-    if live.any():
-        idx = np.flatnonzero(live)
-        t_c = np.maximum(t[idx], black.YEARS_FLOOR)
-        # In units of the call-form strike (the formula is homogeneous of degree one in S, K),
-        # as ``american_value_grad`` evaluates it, so the two agree to the bit.
-        kc = k_c[idx]
-        bs = bs2002_call(s_c[idx] / kc, np.ones(idx.size), t_c, r_c[idx], b_c[idx], v_c[idx])
-        bs *= kc
-        out[idx] = np.maximum(out[idx], bs)
-    return out
-
-
-def price_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-    """Fill American prices for one chunk; ``ins`` = (ω, S, K, T, r, b, σ), ``outs`` = (price,)."""
-    (price,) = outs
-    cols = np.broadcast_arrays(omega(ins[0]), *ins[1:], price)[:-1]
-    price[:] = american_value(*cols)
-
-
-def greeks_kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-    """Fill American price and nine greeks for one chunk.
-
-    Rows never exercised early (call form b > r with r >= 0 for calls, r < 0 with b <= r for
-    puts; no floor at intrinsic binding) are European in a neighbourhood of their inputs, so
-    they take the analytic European greeks. The others take ``_analytic_greeks``.
-    """
-    w, s, k, t, r, b, v = np.broadcast_arrays(omega(ins[0]), *ins[1:], outs[0])[:-1]
-    euro_rows, euro = _european_rows(w, s, k, t, r, b, v)
-    if euro_rows.any():
-        black.greeks_kernel((w, s, k, t, r, b, v), outs)
-        # The price kernel's value, so that prices equal ``price_kernel``'s to the last bit.
-        np.copyto(outs[0], euro, where=euro_rows)
-        fd = np.flatnonzero(~euro_rows)
-        if fd.size:
-            sub = [np.empty(fd.size) for _ in outs]
-            _analytic_greeks([a[fd] for a in (w, s, k, t, r, b, v)], sub)
-            for o, so in zip(outs, sub, strict=True):
-                o[fd] = so
-        return
-    _analytic_greeks([w, s, k, t, r, b, v], outs)
-
-
-def _european_rows(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
-                   b: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Live rows whose American value is the European one for all nearby inputs, and the
-    European prices (``black.price_kernel``) where that mask is set."""
-    calls = w > 0
-    no_early = np.where(calls, (b > r) & (r >= 0.0), (r < 0.0) & (b <= r))
-    live = (t > 0.0) & no_early
-    if not live.any():
-        return live, np.zeros(s.shape)
-    # The European value must also stay clear of intrinsic, where the floor takes over.
-    euro = np.empty(s.shape)
-    black.price_kernel((w, s, k, t, r, b, v), (euro,))
-    clear = euro > np.maximum(w * (s - k), 0.0) + 1e-6 * k
-    out: np.ndarray = live & clear
-    return out, euro
-
-
-def american_value_grad(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
-                        r: np.ndarray, b: np.ndarray, v: np.ndarray
-                        ) -> tuple[np.ndarray, np.ndarray]:
-    """``american_value`` (the same numbers) and its gradient in (S, σ, T, r, b), for n spots
-    per row: ``s`` (n·m,) holds n copies of the m rows one after another, the other inputs are
-    (m,); returns values (n·m,) and gradients (5, n·m).
-
-    Each value's gradient is that of the term that sets it: the 2002 formula (exact
-    derivatives, ``_bs2002_grad``), the European floor (analytic) or intrinsic (delta 0 or ±1,
-    the rest 0). The formula is evaluated in units of the call-form strike K_c, at
-    x = S_c / K_c; then ∂C/∂S_c = ∂c/∂x and ∂C/∂K_c = c − x ∂c/∂x. Puts map back from the call
-    form: ∂P/∂S = ∂C/∂K_c, ∂P/∂r = ∂C/∂r_c, ∂P/∂b = −∂C/∂r_c − ∂C/∂b_c.
-    """
-    m = t.shape[0]
-    n = s.shape[0] // m
-    w_n, k_n, t_n, r_n, b_n, v_n = (np.concatenate((a,) * n) for a in (w, k, t, r, b, v))
-    ins = (w_n, s, k_n, t_n, r_n, b_n, v_n)
-    euro = np.empty(n * m)
-    black.price_kernel(ins, (euro,))
-    payoff = w_n * (s - k_n)
-    intrinsic = np.maximum(payoff, 0.0)
-    out: np.ndarray = np.maximum(euro, intrinsic)
-    use_euro = euro >= intrinsic
-    grad = np.zeros((5, n * m))
-    grad[0] = np.where(payoff > 0.0, w_n, 0.0)
-    put = w < 0
-    r_c = np.where(put, r - b, r)
-    b_c = np.where(put, -b, b)
-    v_c = np.maximum(v, VOL_FLOOR)
-    bv = b_c / (v_c * v_c)
-    disc = np.square(bv - 0.5) + 2.0 * r_c / (v_c * v_c)
-    beta = 0.5 - bv + np.sqrt(np.maximum(disc, 0.0))
-    live = (t > 0.0) & (b_c < r_c) & (disc > 0.0) & (beta > 1.0 + 1e-9)
-    if live.any():
-        use_euro[_live_grad(live, put, s, k_n, t, r_c, b_c, v_c, v_n, t_n, out, grad)] = False
-    rows = np.flatnonzero(use_euro)
-    if rows.size:
-        # European greeks only where the European floor sets the value.
-        eg = [np.empty(rows.size) for _ in range(10)]
-        black.greeks_kernel(tuple(a[rows] for a in ins), eg)
-        for d, e in ((0, eg[1]), (1, eg[3]), (2, -eg[4]), (3, eg[5]), (4, eg[6])):
-            grad[d, rows] = e
-    return out, grad
-
-
-def _live_grad(live: np.ndarray, put: np.ndarray, s: np.ndarray, k_n: np.ndarray,
-               t: np.ndarray, r_c: np.ndarray, b_c: np.ndarray, v_c: np.ndarray,
-               v_n: np.ndarray, t_n: np.ndarray, out: np.ndarray, grad: np.ndarray
-               ) -> np.ndarray:
-    """The 2002 formula on the rows ``live`` (m,) of every copy: raises ``out`` (n·m,) to it
-    and sets ``grad`` (5, n·m) where it wins; returns the indices (into n·m) where it won."""
-    m = live.shape[0]
-    n = s.shape[0] // m
-    idx = np.flatnonzero(live)
-    n_live = idx.size
-    cols = (idx[None, :] + m * np.arange(n)[:, None]).ravel()    # live rows of every copy
-    put_n = np.concatenate((put[idx],) * n)
-    s_l, k_l = s[cols], k_n[cols]
-    s_c = np.where(put_n, k_l, s_l)
-    k_c = np.where(put_n, s_l, k_l)
-    x = s_c / k_c
-    t_c = np.maximum(t[idx], black.YEARS_FLOOR)
-    c, gc = bs2002_call_grad(x, np.ones(n_live), t_c, r_c[idx], b_c[idx], v_c[idx])
-    bs = c * k_c
-    win = bs > out[cols]
-    out[cols] = np.maximum(out[cols], bs)
-    sel = cols[win]
-    gc = gc[:, win]
-    c, x, k_c, pw = c[win], x[win], k_c[win], put_n[win]
-    grad[0, sel] = np.where(pw, c - x * gc[0], gc[0])
-    grad[1, sel] = np.where(v_n[sel] >= VOL_FLOOR, gc[1] * k_c, 0.0)
-    grad[2, sel] = np.where(t_n[sel] >= black.YEARS_FLOOR, gc[2] * k_c, 0.0)
-    grad[3, sel] = gc[3] * k_c
-    grad[4, sel] = np.where(pw, -gc[3] - gc[4], gc[4]) * k_c
-    out_sel: np.ndarray = sel
-    return out_sel
-
-
-def _analytic_greeks(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-    """Greeks of ``american_value``, arrays of one shape (m,).
-
-    First-order greeks are exact derivatives (``american_value_grad``) at the inputs; gamma,
-    vanna and charm are central differences of delta, vega and theta over spot ± ``STEPS``
-    ["spot_rel"] × S, and volga the second difference of the price over vol ± ``STEPS["vol"]``.
-    One call evaluates the three spot copies together, one more the two vol copies.
-    """
-    w, s, k, t, r, b, v = ins
-    price, delta, gamma, vega, theta, rho, crho, vanna, volga, charm = outs
-    m = s.shape[0]
-    hs = STEPS["spot_rel"] * s
-    hv = STEPS["vol"]
-    vg = np.maximum(v, hv)                    # centre of the vol differences, so σ − h >= 0
-    f, g = american_value_grad(w, np.concatenate([s, s + hs, s - hs]), k, t, r, b, vg)
-    f0 = f[:m]
-    g = g.reshape(5, 3, m)
-    w2, s2, k2, t2, r2, b2 = (np.concatenate((a, a)) for a in (w, s, k, t, r, b))
-    fv = american_value(w2, s2, k2, t2, r2, b2,
-                        np.concatenate([vg + hv, vg - hv])).reshape(2, m)
-    low_vol = v < hv
-    if low_vol.any():
-        price[:] = np.where(low_vol, american_value(w, s, k, t, r, b, v), f0)
-    else:
-        price[:] = f0
-    delta[:] = g[0, 0]
-    vega[:] = g[1, 0]
-    theta[:] = -g[2, 0]
-    rho[:] = g[3, 0]
-    crho[:] = g[4, 0]
-    two_hs = 2.0 * hs
-    gamma[:] = (g[0, 1] - g[0, 2]) / two_hs
-    vanna[:] = (g[1, 1] - g[1, 2]) / two_hs
-    charm[:] = -(g[2, 1] - g[2, 2]) / two_hs
-    volga[:] = (fv[0] - 2.0 * f0 + fv[1]) / (hv * hv)
-    dead = t <= 0.0
-    if dead.any():
-        black.expired_fill(w, s, k, t, outs)
+    take = rows & (intrinsic > outs[0])
+    if take.any():
+        outs[0][take] = intrinsic[take]
+        if len(outs) > 1:
+            outs[1][take] = w[take]
+            for o in outs[2:]:
+                o[take] = 0.0

@@ -4,13 +4,14 @@ Each element keeps a bracket [lo, hi] on the vol; a Newton step that leaves the 
 meets a vega too small to trust) is replaced by bisection, so every element converges or is
 reported. The first guess is Corrado–Miller's (1996) quadratic approximation on the forward,
 else the inflection point √(2 |ln(F/K)| / T) from which Newton on a Black price is monotone.
-Only elements not yet converged are iterated. American prices use the Bjerksund–Stensland (2002)
-price of ``american`` and a forward-difference vega.
+Only elements not yet converged are iterated. American prices use the converged method of
+``american`` with its exact vega; one call's iterations share a ``BoundaryCache``, so an
+iterate within the vol nodes already solved for its (τ, r, b) group reuses that boundary.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 from scipy.special import ndtr
@@ -52,21 +53,24 @@ def _euro_price_vega(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
     return p, vega
 
 
-def _amer_price_vega(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
-                     r: np.ndarray, b: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """American price and a forward-difference vega (step 1e-6); the vega only steers Newton,
-    so its O(step) error changes the iteration count, not the root."""
-    h = 1e-6
-    m = s.shape[0]
-    vals = american.american_value(np.tile(w, 2), np.tile(s, 2), np.tile(k, 2), np.tile(t, 2),
-                                   np.tile(r, 2), np.tile(b, 2),
-                                   np.concatenate([v, v + h])).reshape(2, m)
-    return vals[0], (vals[1] - vals[0]) / h
+PriceVega = Callable[..., tuple[np.ndarray, np.ndarray]]
+"""(ω, S, K, T, r, b, σ) arrays of one shape -> (price, vega per 1.00 vol)."""
+
+
+def _amer_price_vega(cache: american.BoundaryCache) -> PriceVega:
+    """American price and exact vega, the iterations of one call sharing ``cache``."""
+    def price_vega(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
+                   b: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        vals, _ = american.evaluate(w, s, k, t, r, b, v, True, cache)
+        return vals[0], vals[3]
+
+    return price_vega
 
 
 def make_kernel(is_american: bool) -> Kernel:
     """Chunk kernel: ``ins`` = (price, ω, S, K, T, r, b), ``outs`` = (vol, status int8)."""
-    price_vega = _amer_price_vega if is_american else _euro_price_vega
+    price_vega = (_amer_price_vega(american.BoundaryCache()) if is_american
+                  else _euro_price_vega)
 
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         vol_out, status_out = outs

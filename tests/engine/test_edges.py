@@ -1,5 +1,5 @@
 """Edge cases (expiry, zero vol, extreme moneyness, negative rates, long expiries), input
-checks, shapes, and the bivariate normal the American formula relies on."""
+checks and shapes."""
 
 from __future__ import annotations
 
@@ -19,7 +19,6 @@ from blotter.engine import (
     price,
     price_greeks,
 )
-from blotter.engine.bivariate import RHO, bvn_cdf
 
 FIELDS = ("price", "delta", "gamma", "vega", "theta", "rho", "carry_rho", "vanna", "volga",
           "charm")
@@ -146,20 +145,6 @@ def test_implied_vol_statuses() -> None:
     assert IV_STATUS[IV_BELOW_INTRINSIC] == "below intrinsic"
     assert set(IV_STATUS.values()) == {"ok", "below intrinsic", "above upper bound",
                                        "no time value", "did not converge"}
-
-
-def test_bivariate_normal_matches_scipy() -> None:
-    """M(h, k; ±ρ) against SciPy's multivariate normal CDF (Genz's algorithm) to 1e-8."""
-    stats = pytest.importorskip("scipy.stats")
-    rng = np.random.default_rng(3)
-    h = rng.uniform(-6, 6, 300)
-    k = rng.uniform(-6, 6, 300)
-    for sign in (+1, -1):
-        cov = [[1.0, sign * RHO], [sign * RHO, 1.0]]
-        mvn = stats.multivariate_normal(mean=[0.0, 0.0], cov=cov)
-        want = mvn.cdf(np.column_stack([h, k]))
-        got = bvn_cdf(h, k, sign)
-        assert np.max(np.abs(got - want)) <= 1e-8
 
 
 def test_large_inputs_are_checked_inside_the_chunks() -> None:
