@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
+from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -102,7 +103,7 @@ class Book:
 
     def __post_init__(self) -> None:
         n = len(self.contract_ids)
-        casts = {
+        casts: dict[str, Any] = {
             "contract_ids": np.int64, "underlying_idx": np.int64, "is_option": bool,
             "is_call": bool,
             "american": bool, "strikes": np.float64, "expiries": "datetime64[s]",

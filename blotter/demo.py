@@ -253,9 +253,12 @@ def build_demo(
     positions: int | None = None,
     seed: int = DEMO_SEED,
     force: bool = False,
+    american_share: float | None = None,
 ) -> Path:
     """Write the invented demo book to ``path`` and return it; ``positions`` option positions
     (``DEMO_POSITIONS`` when None; a larger number builds a synthetic book of the same kind).
+    ``american_share`` (0 to 1) makes that share of the options American, drawn at random,
+    instead of each underlying's own style (the index European, the rest American).
 
     The book is built in a temporary file beside ``path`` and renamed into place, so ``path`` is
     never half-written. An existing ``path`` is refused unless ``force``, and even then unless it
@@ -281,7 +284,7 @@ def build_demo(
     _remove_book_files(tmp)
     store = create_store(tmp)
     try:
-        _fill(store, n_options, seed, price)
+        _fill(store, n_options, seed, price, american_share)
         store.connection.execute("PRAGMA wal_checkpoint(TRUNCATE)")
     except BaseException:
         store.close()
@@ -381,7 +384,13 @@ def _not_demo(path: Path) -> str | None:
     return None
 
 
-def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) -> None:
+def _fill(
+    store: Store,
+    n_options: int,
+    seed: int,
+    price: Callable[..., Any],
+    american_share: float | None = None,
+) -> None:
     rng = np.random.default_rng(seed)
     hol = _nyse_holidays(range(DEMO_AS_OF.year - 1, DEMO_AS_OF.year + 4))
     close2 = DEMO_AS_OF
@@ -453,7 +462,9 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
     chosen = np.sort(np.argsort(-keys, kind="stable")[:n_options])
 
     contracts: list[tuple[int, str, float | None, str | None, str | None, int, float, int]] = []
-    for idx in chosen:
+    # Its own generator, so the shipped demo's draws are the same with or without a share.
+    styles = np.random.default_rng(seed + 1).random(len(chosen))
+    for idx, style in zip(chosen, styles, strict=True):
         i, e, k, is_call = universe[int(idx)]
         u = UNDERLYINGS[i]
         contracts.append(
@@ -463,7 +474,7 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
                 k,
                 e.isoformat(),
                 "16:00",
-                int(u.american),
+                int(u.american if american_share is None else style < american_share),
                 u.multiplier,
                 int(u.cash_settled),
             )
@@ -559,7 +570,7 @@ def _fill(store: Store, n_options: int, seed: int, price: Callable[..., Any]) ->
         carry = np.where(fut, 0.0, r - q)
         fwd = s0 * np.exp(carry * years)
         vol = _smile(base, years, np.log(strikes / fwd)) + rng.normal(0.0, 0.003, len(sel))
-        american = np.array([UNDERLYINGS[j].american for j in us])
+        american = np.array([bool(contracts[rows[s]][5]) for s in sel])
         px = np.asarray(price(calls, s0, strikes, years, r, carry, vol, american=american))
         prices[sel] = np.maximum(np.round(px, 2), 0.01)
 

@@ -34,6 +34,7 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import engine
 from blotter.book import Book, read_only
+from blotter.engine.american import DOUBLE_BOUNDARY, NOT_CONVERGED
 from blotter.market import Market
 
 DEFAULT_T_REF_DAYS = 30.0
@@ -272,6 +273,11 @@ class BookValuation:
     notes: tuple[str, ...] = field(default=())
     unvalued: tuple[UnvaluedPosition, ...] = field(default=())
     tz: ZoneInfo = field(default_factory=cal.desk_tz)  # the desk's zone: buckets, day rolls
+    # American exercise boundaries solved for this valuation, reused by every repricing of it
+    # (what-ifs, ladders, profiles): a spot move or a day roll changes no boundary.
+    boundaries: engine.BoundaryCache = field(
+        default_factory=engine.BoundaryCache, repr=False, compare=False
+    )
 
     def __len__(self) -> int:
         return len(self.book)
@@ -468,6 +474,7 @@ def value_book(
     vega_unit: str = "pt",
     t_ref_days: float = DEFAULT_T_REF_DAYS,
     tz: ZoneInfo | None = None,
+    boundaries: engine.BoundaryCache | None = None,
 ) -> BookValuation:
     """Value every position of ``book`` on ``market`` at ``valuation_time`` (UTC; None = now).
 
@@ -475,7 +482,8 @@ def value_book(
     desk's zone (the ``desk_tz`` setting; ``calendar.desk_tz()`` when None), kept for expiry
     buckets and day rolls. Positions whose underlying lacks a mark they need
     (``missing_marks``) are left out and listed in ``unvalued``, so one unmarked name never
-    blanks the rest of the book.
+    blanks the rest of the book. ``boundaries`` shares solved American exercise boundaries with
+    another valuation of the same book (e.g. a profile's shocked spots); a new cache otherwise.
     """
     if vega_unit not in VEGA_UNITS:
         raise ValueError(f"vega_unit must be one of {', '.join(VEGA_UNITS)}, not {vega_unit!r}")
@@ -484,6 +492,7 @@ def value_book(
     if unvalued:
         book = book.take(np.flatnonzero(valued))
     zone = tz if tz is not None else cal.desk_tz()
+    cache = boundaries if boundaries is not None else engine.BoundaryCache()
     und = book.underlyings
     n = len(book)
     uidx = book.underlying_idx
@@ -543,6 +552,7 @@ def value_book(
             carry[live],
             vol[live],
             american=book.american[live],
+            boundaries=cache,
         )
         for name in g:
             g[name][live] = np.asarray(getattr(res, name), dtype=np.float64)
@@ -581,6 +591,7 @@ def value_book(
     notes: list[str] = []
     if expired.any():
         notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
+    notes += _american_notes(book, live, years, rate, carry)
     return BookValuation(
         book=book,
         market=market,
@@ -607,7 +618,34 @@ def value_book(
         notes=tuple(notes),
         unvalued=unvalued,
         tz=zone,
+        boundaries=cache,
     )
+
+
+LOWER_BOUND_CODES = (DOUBLE_BOUNDARY, NOT_CONVERGED)
+"""American status codes whose value is a lower bound, not the converged value."""
+
+
+def _american_notes(
+    book: Book, live: np.ndarray, years: np.ndarray, rate: np.ndarray, carry: np.ndarray
+) -> list[str]:
+    """Words for American positions the engine values at a lower bound (negative rates on both
+    sides give two exercise boundaries), naming the positions, so no such value passes unsaid."""
+    rows = np.flatnonzero(live & book.american)
+    if not rows.size:
+        return []
+    codes = engine.american_status(book.is_call[rows], years[rows], rate[rows], carry[rows])
+    out = []
+    for code in LOWER_BOUND_CODES:
+        hit = rows[codes == code]
+        if hit.size:
+            names = ", ".join(book.labels[i] for i in hit[:3].tolist())
+            more = f" and {hit.size - 3} more" if hit.size > 3 else ""
+            out.append(
+                f"{hit.size} American position(s) at a lower bound "
+                f"({engine.AMERICAN_STATUS[code]}): {names}{more}"
+            )
+    return out
 
 
 def intrinsic(

@@ -994,7 +994,10 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
     moving = _moving_rows(p, ds_u, vol1, dt, dr)
     if m and moving is None and not through_l.any():
         new_price = np.asarray(
-            engine.price(p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am)
+            engine.price(
+                p.is_call, s1, p.strike, t_after, r1, b1, vol1, american=am,
+                boundaries=v.boundaries,
+            )
         )
     elif m:
         # Rows whose inputs do not move keep their base price; the rest are repriced, and those
@@ -1012,6 +1015,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
                 np.broadcast_to(b1, (m,))[a],
                 np.broadcast_to(vol1, (m,))[a],
                 american=p.american[a] if p.american[a].any() else False,
+                boundaries=v.boundaries,
             )
         e = np.flatnonzero(through_l)
         if e.size:
@@ -1274,6 +1278,19 @@ def ladder(
         s0 = v.underlying_spots
         smile = np.stack([_smile_vols(v, p, s0 * (1.0 + x)) for x in rel])  # (n_s, m)
         smile_shift = smile - vol_l[None, :]
+    if p.any_american and m:
+        # One solve per exercise boundary for the whole grid, before the chunks ask for them.
+        lo_shift = dvol.min() + (0.0 if smile_shift is None else smile_shift.min(axis=0))
+        hi_shift = dvol.max() + (0.0 if smile_shift is None else smile_shift.max(axis=0))
+        alive_am = p.american & (years1 > 0)
+        v.boundaries.prepare(
+            p.is_call[alive_am],
+            years1[alive_am],
+            rate_l[alive_am],
+            carry_l[alive_am],
+            moved_vols(vol_l, lo_shift)[alive_am],
+            moved_vols(vol_l, hi_shift)[alive_am],
+        )
     for a in range(0, m, step):
         b = min(a + step, m)
         sl = slice(a, b)
@@ -1302,6 +1319,7 @@ def ladder(
             carry_l[sl][keep][None, None, :],
             moved_vols(vol_l[sl][keep][None, None, :], shift),
             american=am[None, None, :] if am.any() else False,
+            boundaries=v.boundaries,
         )
         cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
         full += ((cells @ u_c[keep]) - float(np.dot(p.base_price[sl][keep], u_c[keep]))).reshape(
@@ -1342,6 +1360,79 @@ def ladder(
         rule=rule,
         currency=v.currencies[0] if v.currencies else None,
     )
+
+
+PROFILE_EXPOSURES = ("delta_cash", "gamma_1pct", "vega_pt", "theta_day")
+"""Exposures ``greek_profile`` draws (``risk`` field names, desk units)."""
+
+
+def greek_profile(
+    valuation: BookValuation,
+    exposure: str,
+    spot_pcts: Sequence[float],
+    days: float = 0.0,
+    chunk: int | None = None,
+) -> np.ndarray:
+    """The book's total ``exposure`` (desk units) with every spot moved by each of ``spot_pcts``
+    (%) after ``days`` calendar days, shape (n_spots,).
+
+    One broadcast pass of the engine over (spot move, position), chunked like the ladder; vols
+    and rates stay each contract's (sticky strike); options expiring inside the roll count 0
+    (worth intrinsic, no greeks); hedges count delta 1 at the moved spot. American exercise
+    boundaries come from the valuation's cache, so no spot point solves one again.
+    """
+    if exposure not in PROFILE_EXPOSURES:
+        raise ValueError(f"exposure must be one of {', '.join(PROFILE_EXPOSURES)}")
+    if days < 0:
+        raise ValueError("days only move forward")
+    v = valuation
+    p = prepare(v)
+    rel = np.asarray(spot_pcts, dtype=np.float64).ravel() / 100.0
+    n_s = rel.size
+    out = np.zeros(n_s)
+    if exposure == "delta_cash" and p.hedge_idx.size:
+        h = p.hedge_idx
+        out += (1.0 + rel) * float(np.dot(p.units[h], v.spot[h]))
+    t1 = cal.roll_calendar_days(v.valuation_time, days) if days else v.valuation_time
+    years1 = p.years - float(cal.year_fraction(v.valuation_time, t1))
+    keep = np.flatnonzero(years1 > 0)
+    m = keep.size
+    if not m:
+        return out
+    if p.any_american:
+        am = keep[p.american[keep]]
+        if am.size:
+            v.boundaries.prepare(
+                p.is_call[am], years1[am], p.rate_l[am], p.carry_l[am], p.vol_l[am], p.vol_l[am]
+            )
+    step = chunk or max(256, LADDER_CHUNK_CELLS // n_s)
+    shock = (1.0 + rel)[:, None]
+    for a in range(0, m, step):
+        rows = keep[a : a + step]
+        s1 = p.spot_l[rows][None, :] * shock
+        am_rows = p.american[rows]
+        g = engine.price_greeks(
+            p.is_call[rows][None, :],
+            s1,
+            p.strike[rows][None, :],
+            years1[rows][None, :],
+            p.rate_l[rows][None, :],
+            p.carry_l[rows][None, :],
+            p.vol_l[rows][None, :],
+            american=am_rows[None, :] if am_rows.any() else False,
+            boundaries=v.boundaries,
+        )
+        units = p.units_l[rows]
+        if exposure == "delta_cash":
+            per = g.delta * s1
+        elif exposure == "gamma_1pct":
+            per = g.gamma * s1 * 0.01
+        elif exposure == "vega_pt":
+            per = g.vega / 100.0
+        else:
+            per = g.theta / 365.0
+        out += per @ units
+    return out
 
 
 # ---------------------------------------------------------------------------------------------

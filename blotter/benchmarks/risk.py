@@ -3,13 +3,15 @@
 - ``whatif``: ``apply_move`` of "spot -3% vol +2 days 1" on a 100k-position book, full
   revaluation, Taylor terms and aggregation per underlying included (target 10 ms). The base
   valuation is built once beforehand, as the app does.
-- ``whatif american``: the same with 20% of the options American (Bjerksund–Stensland 2002), no
-  target; it shows the cost of the closed-form American approximation.
-- ``whatif american-heavy``: the same move on a book with 75% American options (like the demo);
-  ``whatif american-heavy one name``: "SYN00 spot -3%" on it, where only that name's options are
-  repriced.
+- ``whatif american``: the same with 20% of the options American (the converged exercise-boundary
+  method), no target; ``whatif american-heavy``: the same move on a book with 75% American
+  options (like the demo); ``whatif american-heavy one name``: "SYN00 spot -3%" on it, where only
+  that name's options are repriced.
 - ``ladder``: the default 9 × 5 spot × vol ladder on 10k and 100k positions (targets 35 ms and
   350 ms), one broadcast pass chunked to ``LADDER_CHUNK_CELLS`` cells.
+- ``american book …``: on books 90% American at 10k and 100k positions, valuing the book (cold,
+  every exercise boundary solved), the what-if, the 9 × 5 ladder, the P&L profile (31 spot
+  points) and the Δ $ profile, against issue 11's targets.
 
 The book: fictitious names ``SYN00``… (stocks and one index), 8 expiries from a week to two years,
 strikes 70–130% of spot, European options (index and ETF style) plus one stock hedge per name.
@@ -20,6 +22,7 @@ Where QuantLib is installed, the reference is its per-option loop (AnalyticEurop
 from __future__ import annotations
 
 import tracemalloc
+from collections.abc import Callable
 from datetime import UTC, datetime
 from functools import partial
 from typing import Any
@@ -211,4 +214,61 @@ def run(quick: bool) -> list[Result]:
                 f"peak {peak_mb:.0f} MB allocated",
             )
         )
+    results += _american_book_cases(quick)
     return results
+
+
+AMERICAN_SHARE = 0.9
+"""Share of American options in the book of the American cases (a single-stock desk's book)."""
+
+AMERICAN_TARGETS_MS = {
+    "value": (100.0, 500.0),
+    "whatif": (100.0, 50.0),
+    "ladder": (100.0, 500.0),
+    "pnl profile": (100.0, 500.0),
+    "delta profile": (100.0, 1000.0),
+}
+"""Targets (ms at 10k, ms at 100k positions) of the American cases (issue 11)."""
+
+
+def _american_book_cases(quick: bool) -> list[Result]:
+    """Value, what-if, 9×5 ladder, P&L profile and Δ $ profile on books that are 90% American.
+
+    ``value`` is cold: a new valuation solves every exercise boundary. The others reuse the
+    valuation's boundaries as the app does (the first call, untimed, solves any a vol shift needs).
+    """
+    from blotter.risk import value_book
+    from blotter.scenario import apply_move, greek_profile, ladder, parse_move, prepare
+
+    repeat = 3 if quick else 7
+    spot_pcts = np.linspace(-15.0, 15.0, 31).tolist()
+    out: list[Result] = []
+    for n, which in ((10_000, 0), (100_000, 1)):
+        n = 2_000 if quick else n
+        book, market = synthetic_book(n, american_share=AMERICAN_SHARE)
+        v = value_book(book, market, VALUATION)
+        prepare(v)
+        move = parse_move(MOVE)
+        cases: dict[str, Callable[[], Any]] = {
+            "value": partial(value_book, book, market, VALUATION),
+            "whatif": partial(apply_move, v, move),
+            "ladder": partial(ladder, v),
+            "pnl profile": partial(ladder, v, spot_pcts, (0.0,)),
+            "delta profile": partial(greek_profile, v, "delta_cash", spot_pcts),
+        }
+        for name, fn in cases.items():
+            secs = timed(fn, repeat=repeat, warmup=1)
+            target_ms = AMERICAN_TARGETS_MS[name][which]
+            out.append(
+                result_from(
+                    f"american book {name}",
+                    n,
+                    secs,
+                    target_ns=None if quick else target_ms * 1e6 / n,
+                    note=f"{AMERICAN_SHARE:.0%} American; median {np.median(secs) * 1e3:.0f} ms"
+                    + ("; cold: boundaries solved" if name == "value" else "")
+                    + (f"; '{MOVE}'" if name == "whatif" else "")
+                    + ("; 31 spot points" if "profile" in name else ""),
+                )
+            )
+    return out

@@ -230,3 +230,28 @@ def print_table(
         click.echo("  ".join(parts).rstrip())
         if k == 0:
             click.echo("  ".join("-" * w for w in widths))
+
+
+COMPILE_NOTE_AFTER_S = 1.0
+"""Loading the compiled kernels from numba's cache takes a fraction of a second; a wait longer
+than this means they are being compiled, which is worth a line."""
+
+
+def note_first_compile() -> None:
+    """Load the American pricing kernels, saying on stderr when that means compiling them (the
+    first run after an install, some seconds), so the pause is not taken for a hang."""
+    from blotter import engine
+
+    if engine.kernels_ready():
+        return
+    worker = engine.warm_up(background=True)
+    if worker is None:
+        return
+    worker.join(COMPILE_NOTE_AFTER_S)
+    if worker.is_alive():
+        click.echo(
+            "blotter: compiling the American pricing kernels (the first run after an install "
+            "only; some seconds)",
+            err=True,
+        )
+        worker.join()

@@ -24,12 +24,22 @@ from blotter.limits import DEMO_POSITIONS
 )
 @click.option("--seed", type=int, default=None, help="Random seed (default: the shipped demo's).")
 @click.option(
+    "--american-share",
+    type=click.FloatRange(0.0, 1.0),
+    default=None,
+    metavar="SHARE",
+    help="Make this share (0 to 1) of the options American, drawn at random; default: each "
+    "underlying's style (the index European, the others American).",
+)
+@click.option(
     "--force",
     is_flag=True,
     help="Replace OUT if it is a demo book (never a book holding other trades or marks, nor one "
     "in use).",
 )
-def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None:
+def demo(
+    out: str, positions: int | None, seed: int | None, american_share: float | None, force: bool
+) -> None:
     """Write an invented demo book: a fictitious desk, five fictitious underlyings, trades, marks.
 
     Every name and number in it is made up. With the defaults this writes exactly the shipped
@@ -46,7 +56,11 @@ def demo(out: str, positions: int | None, seed: int | None, force: bool) -> None
         )
     try:
         path = build_demo(
-            out, positions=positions, seed=DEMO_SEED if seed is None else seed, force=force
+            out,
+            positions=positions,
+            seed=DEMO_SEED if seed is None else seed,
+            force=force,
+            american_share=american_share,
         )
         counts = describe(path)
     except StoreError as exc:

@@ -21,6 +21,7 @@ from blotter.commands.common import (
     check_output_flags,
     db_option,
     desk_zone,
+    note_first_compile,
     open_for_reading,
     output_options,
     print_csv,
@@ -97,6 +98,8 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     try:
         book = store.load_book()
         market = store.load_market()
+        if book.american.any():
+            note_first_compile()
         valuation = value_book(book, market, t, vega_unit=vega_unit, tz=tz)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc

@@ -51,6 +51,10 @@ Clock = Callable[[], datetime]
 Loader = Callable[[], tuple[Any, Any, int]]
 """Gives (book, market, data_version) instead of the file: the bench's random books use it."""
 
+COMPILE_NOTE_AFTER_S = 1.0
+"""Loading the compiled kernels from numba's cache takes a fraction of a second; still not ready
+after this, they are being compiled, and the header says so."""
+
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
 
@@ -151,12 +155,27 @@ class BlotterApp(App[None]):
         self._book_title()
         self._show_pane()
         self.query_one(BookTable).focus()
+        from blotter import engine
+
+        if not engine.kernels_ready():
+            engine.warm_up(background=True)
+            self.set_timer(COMPILE_NOTE_AFTER_S, self._note_compiling)
         self.load_book()
         if self.settings.watch_interval_s > 0:
             self.watch_store(self.settings.watch_interval_s)
         if self.startup_notice:
             notice = printable(self.startup_notice)
             self.notify(notice, title="Read-only", severity="warning", markup=False)
+
+    def _note_compiling(self) -> None:
+        """Say why the first valuation waits while the American kernels compile (cached after)."""
+        from blotter import engine
+
+        if self.state is None and not engine.kernels_ready():
+            self.query_one(HeaderLine).update(
+                "blotter: opening the book… compiling the American pricing kernels "
+                "(the first start after an install only; some seconds)"
+            )
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -251,11 +270,15 @@ class BlotterApp(App[None]):
                         close()
             self.post_message(LoadProgress(1))
             now = self.clock()
+            # The boundaries solved so far serve the reload too: they are keyed by exact
+            # inputs, so a mark that changed only misses.
+            previous = self.state.valuation.boundaries if self.state is not None else None
             valuation = risk.value_book(
                 book,
                 market,
                 np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s"),
                 tz=self.tz,
+                boundaries=previous,
             )
             self.post_message(LoadProgress(2))
             tree = data.BookTree(valuation, self.tz, self._row_alert)

@@ -428,9 +428,12 @@ def profile(
     v = valuation
     if rows is not None:
         v = risk.value_book(
-            valuation.book.take(rows), valuation.market, valuation.valuation_time, tz=valuation.tz
+            valuation.book.take(rows),
+            valuation.market,
+            valuation.valuation_time,
+            tz=valuation.tz,
+            boundaries=valuation.boundaries,
         )
-    t0 = v.valuation_time
     symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
     series: dict[str, tuple[float, ...]] = {}
     roll = f"after {days:g} day{'s' if days != 1 else ''}"
@@ -461,21 +464,9 @@ def profile(
                 )
         elif axis == "spot":
             field_name = PROFILE_FIELDS[greek][0]
-            times = [("today", t0)] + ([(roll, cal.roll_calendar_days(t0, days))] if days else [])
-            for name, t in times:
-                values = []
-                for pct in xs:
-                    market = (
-                        vc.market.shocked(spot_pct={s: float(pct) for s in symbols})
-                        if pct
-                        else vc.market
-                    )
-                    values.append(
-                        getattr(
-                            risk.total(risk.value_book(vc.book, market, t, tz=v.tz)), field_name
-                        )
-                    )
-                series[name + suffix] = tuple(float(x) for x in values)
+            for name, d in [("today", 0.0)] + ([(roll, float(days))] if days else []):
+                curve = scenario.greek_profile(vc, field_name, xs.tolist(), days=d)
+                series[name + suffix] = tuple(float(x) for x in curve)
         elif greek == "pnl":
             series["P&L" + suffix] = tuple(
                 float(
@@ -489,14 +480,9 @@ def profile(
             )
         else:
             field_name = PROFILE_FIELDS[greek][0]
-            rolled = (cal.roll_calendar_days(t0, float(d)) for d in xs)
             series[y_label.split(" (")[0] + suffix] = tuple(
-                float(
-                    getattr(
-                        risk.total(risk.value_book(vc.book, vc.market, t, tz=v.tz)), field_name
-                    )
-                )
-                for t in rolled
+                float(scenario.greek_profile(vc, field_name, (0.0,), days=float(d))[0])
+                for d in xs
             )
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
     title = (

@@ -138,12 +138,13 @@ def test_from_an_empty_file_to_a_valued_position(tmp_path: Path) -> None:
     )
     option = ql.VanillaOption(ql.PlainVanillaPayoff(ql.Option.Call, 100.0),
                               ql.AmericanExercise(today, expiry))
-    option.setPricingEngine(ql.FdBlackScholesVanillaEngine(process, 800, 800))
-    # Bjerksund–Stensland (2002) is a lower bound, and near the money within 8.27e-2 per 100 of
-    # strike of the converged value (blotter/engine/ACCURACY.md, measured against QuantLib).
+    option.setPricingEngine(
+        ql.QdFpAmericanEngine(process, ql.QdFpAmericanEngine.highPrecisionScheme())
+    )
+    # The engine's American value is converged: within 1e-6 of the strike of QuantLib 1.44's
+    # high-precision QdFp engine (blotter/engine/ACCURACY.md).
     per_share = -value / (10 * 100)
-    reference = option.NPV()
-    assert reference - 8.27e-2 <= per_share <= reference + 1e-3
+    assert per_share == pytest.approx(option.NPV(), abs=1e-6 * 100.0)
 
 
 def test_options_of_zoned_cut_offs_take_the_vol_marked_for_their_expiry(tmp_path: Path) -> None:

@@ -64,8 +64,10 @@ async def test_a_name_added_without_marks_is_listed_and_the_rest_stays_live(
         assert "NOT VALUED 1 (ZZQ: spot, vol)" in _header(app)
         v = app.state.valuation
         assert [u.underlying for u in v.unvalued] == ["ZZQ"]
+        # The reload reuses the solved American boundaries for wider vol ranges; their
+        # interpolation moves a value by far less than a cent.
         assert len(v) == len(before) and float(v.value.sum()) == pytest.approx(
-            float(before.value.sum()), rel=1e-12
+            float(before.value.sum()), rel=1e-10
         )
         await _wait_for(
             app,

@@ -451,6 +451,7 @@ class TradeForm(ModalScreen[None]):
                 except (ValueError, KeyError) as exc:
                     self.say(f"✗ {exc}")
                     return
+            assert contract is not None  # found, or built just above
             app.add_trial(contract, qty, price, book)
             where = "a new contract, not in the store" if new else "not in the store"
             self.trades.say(f"trial {contract.label} ×{qty:+d} added ({where})")
