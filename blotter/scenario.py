@@ -1659,23 +1659,35 @@ def explain(
         notes.append(
             f"{len(period.late)} trade(s) dealt before the start were booked in the period and "
             f"{len(period.corrected)} cancelled or amended in it: the positions held are as known "
-            "at the end; 'corrections' is how much that changed actual"
+            "at the end; 'corrections' is how much that changed actual, and 'new trades' holds "
+            "their P&L from the trade price to the start marks (a cancelled trade's taken back)"
         )
     kept = _valued_part(period.new, sides[1:], left_out)
     trades, trade_prices = period.new.take(kept), period.prices[kept]
-    if len(trades):
-        tv = value_book(trades, m1, t1)
-        tp = np.asarray(trade_prices, dtype=np.float64)
-        pnl = np.where(tv.settles_daily, (tv.spot - tp) * tv.units, tv.value - tp * tv.units)
-        for j, s in enumerate(trades.underlyings.symbols):
-            in_u = trades.underlying_idx == j
+    ccy_of = dict(zip(held.underlyings.symbols, held.underlyings.currencies, strict=True))
+    # Trade P&L from the trade price: new trades to the end marks; late bookings to the start
+    # marks (the rest is in actual); trades the start held and the period cancelled, taken back
+    # from the start marks (their P&L to there was reported before the start).
+    activity = [(trades, trade_prices, m1, t1, sides[1:], 1.0, "new trades")]
+    activity.append((period.late_book, period.late_prices, m0, t0, sides[:1], 1.0, "late"))
+    activity.append((period.gone_book, period.gone_prices, m0, t0, sides[:1], -1.0, "cancelled"))
+    for part, part_prices, market, at, part_sides, sign, what in activity:
+        ok = _valued_part(part, part_sides, left_out) if part is not trades else None
+        if ok is not None:
+            part, part_prices = part.take(ok), np.asarray(part_prices)[ok]
+        if not len(part):
+            continue
+        pnl = sign * _trade_pnl(part, part_prices, market, at)
+        ccy_of.update(zip(part.underlyings.symbols, part.underlyings.currencies, strict=True))
+        for j, s in enumerate(part.underlyings.symbols):
+            in_u = part.underlying_idx == j
             if not in_u.any():
                 continue
             if s in sym:
                 new_pnl_u[sym.index(s)] += float(pnl[in_u].sum())
             else:
                 notes.append(
-                    f"new trades in {s} (not held at the start): {float(pnl[in_u].sum()):.2f}"
+                    f"{what} in {s} (not held at the start): {float(pnl[in_u].sum()):.2f}"
                 )
                 new_pnl_u = np.append(new_pnl_u, float(pnl[in_u].sum()))
                 corr_u = np.append(corr_u, 0.0)
@@ -1689,8 +1701,6 @@ def explain(
 
     rows: list[ExplainRow] = []
     idx = held.underlying_idx
-    ccy_of = dict(zip(trades.underlyings.symbols, trades.underlyings.currencies, strict=True))
-    ccy_of.update(zip(held.underlyings.symbols, held.underlyings.currencies, strict=True))
     for j, s in enumerate(sym):
         mask = idx == j if j < n_u else np.zeros(len(held), dtype=bool)
         if not mask.any() and new_pnl_u[j] == 0 and corr_u[j] == 0:
@@ -1789,6 +1799,10 @@ class _PeriodTrades:
     prices: np.ndarray
     late: tuple[int, ...]
     corrected: tuple[int, ...]
+    late_book: Book  # one row per late booking (dealt by the start close's time)
+    late_prices: np.ndarray
+    gone_book: Book  # one row per trade the start close held, cancelled in the period
+    gone_prices: np.ndarray
 
 
 def _period_trades(store: Any, cut0: int, cut1: int, t0: Any) -> _PeriodTrades:
@@ -1821,11 +1835,45 @@ def _period_trades(store: Any, cut0: int, cut1: int, t0: Any) -> _PeriodTrades:
         if r.seq < cut0 and r.cancel_seq is not None and cut0 < r.cancel_seq < cut1
     )
     rows = np.flatnonzero(dealt_in)
+    late_rows = np.flatnonzero(~dealt_in)
+    gone = [
+        store.new_trades(r.seq - 1, r.seq + 1)
+        for r in records
+        if r.seq < cut0 and r.cancel_seq is not None and cut0 < r.cancel_seq < cut1
+    ]
+    gone_book = _concat_books([g[0] for g in gone], booked)
     return _PeriodTrades(
         new=_take_rows(booked, rows),
         prices=np.asarray(prices, dtype=np.float64)[rows],
         late=tuple(r.trade_id for r in in_period if r.trade_time <= t0),
         corrected=corrected,
+        late_book=_take_rows(booked, late_rows),
+        late_prices=np.asarray(prices, dtype=np.float64)[late_rows],
+        gone_book=gone_book,
+        gone_prices=np.concatenate([np.asarray(g[1], dtype=np.float64) for g in gone])
+        if gone
+        else np.zeros(0),
+    )
+
+
+def _concat_books(parts: Sequence[Book], empty_like: Book) -> Book:
+    """The rows of ``parts`` one after another, on their common underlyings (an empty take of
+    ``empty_like`` when there are none), each row kept as it is (no netting)."""
+    if not parts:
+        return _take_rows(empty_like, np.zeros(0, dtype=np.int64))
+    out = parts[0]
+    for b in parts[1:]:
+        out = out.with_trials(b)
+    return replace(out, is_trial=np.zeros(len(out), dtype=bool))
+
+
+def _trade_pnl(trades: Book, prices: np.ndarray, market: Market, t: np.datetime64) -> np.ndarray:
+    """Each trade's P&L (currency) from its price to its value on ``market`` at ``t``: value −
+    price × units, or (spot − price) × units for a futures hedge (settled daily), (n,)."""
+    tv = value_book(trades, market, t)
+    tp = np.asarray(prices, dtype=np.float64)
+    return np.asarray(
+        np.where(tv.settles_daily, (tv.spot - tp) * tv.units, tv.value - tp * tv.units)
     )
 
 

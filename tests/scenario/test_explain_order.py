@@ -147,3 +147,47 @@ def test_a_second_close_of_the_day_is_refused_and_a_correction_stands_in_its_pla
     named = explain(st, from_set=_close_id(st, 0), to_set=_close_id(st, 1))  # the original's id
     assert named.to_set.id == fixed.id and named.total.actual == pytest.approx(want, rel=1e-9)
     assert any("corrected" in note for note in named.notes)
+
+
+def test_a_late_booking_keeps_its_pnl_from_the_trade_price(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A 105 call dealt on Tuesday before the close but written after it (a terminal two hours
+    slow) is a late booking of the Tuesday→Wednesday period: its P&L from the trade price to the
+    Tuesday marks is in that period's new trades, the rest in actual, so none of it is lost."""
+    clock = Clock(monkeypatch)
+    st = _book(tmp_path, clock)
+    _close(st, clock, T1, 1)
+    clock.now = T1 + timedelta(minutes=5) - timedelta(hours=2)  # the slow terminal's clock
+    st.add_trade("main", "STKX", 2, PRICE, EXPIRY, 105.0, True)
+    _close(st, clock, T2, 2)
+    ex = explain(st)
+    assert ex.late_trades == (st.trades()[-1].trade_id,)
+    assert ex.total.new_trades == pytest.approx(2 * 100 * (_value(105, 1) - PRICE), rel=1e-9)
+    held_moves = 10 * (_value(100, 2) - _value(100, 1)) + 2 * (_value(105, 2) - _value(105, 1))
+    assert ex.total.actual == pytest.approx(100 * held_moves, rel=1e-9)
+    # Over both periods the trade counts once from its price: new trades + actual add up.
+    assert ex.total.total == pytest.approx(
+        100 * (10 * (_value(100, 2) - _value(100, 1)) + 2 * (_value(105, 2) - PRICE)), rel=1e-9
+    )
+
+
+def test_a_cancel_takes_back_the_pnl_reported_before_the_start(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The ten 100 calls, held at the Tuesday close, are cancelled on Wednesday: that period
+    takes back their P&L from the trade price to the Tuesday marks (reported up to Tuesday), so
+    the cancelled trade adds up to nothing over all periods."""
+    clock = Clock(monkeypatch)
+    st = _book(tmp_path, clock)
+    _close(st, clock, T1, 1)
+    clock.now = T1 + timedelta(hours=16)
+    st.cancel_trade(st.trades()[0].trade_id, reason="booked in error")
+    _close(st, clock, T2, 2)
+    ex = explain(st)
+    assert ex.corrected_trades == (st.trades()[0].trade_id,)
+    assert ex.total.actual == 0.0
+    assert ex.total.new_trades == pytest.approx(-10 * 100 * (_value(100, 1) - 5.0), rel=1e-9)
+    first = explain(st, from_set=_close_id(st, 0), to_set=_close_id(st, 1))
+    reported = first.total.total + 10 * 100 * (_value(100, 0) - 5.0)  # the first period's own
+    assert reported + ex.total.total == pytest.approx(0.0, abs=1e-6)

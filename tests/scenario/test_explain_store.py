@@ -110,9 +110,13 @@ def test_actual_new_and_corrections_match_quantlib(
     p95 = _price(False, 95, S1, 52, V1) - _price(False, 95, S0, 53, V0)
     actual = 100 * (10 * c100 - 4 * c110)
     assert ex.total.actual == pytest.approx(actual, rel=1e-9)
-    # The new 105 call only: its end mark against its trade price of 4.00.
+    # The new 105 call: its end mark against its trade price of 4.00. The amend (three 110
+    # calls sold at 1.00 cancelled, four booked late at 1.00) and the cancelled 95 puts (five
+    # at 3.00): their P&L from the trade price to the start marks, the cancelled ones' taken back.
+    v110, v95 = _price(True, 110, S0, 53, V0), _price(False, 95, S0, 53, V0)
+    activity = -4 * (v110 - 1.0) - (-3) * (v110 - 1.0) - 5 * (v95 - 3.0)
     assert ex.total.new_trades == pytest.approx(
-        2 * 100 * (_price(True, 105, S1, 52, V1) - 4.0), rel=1e-9
+        2 * 100 * (_price(True, 105, S1, 52, V1) - 4.0) + 100 * activity, rel=1e-9
     )
     # Against the book shown at the start: one more 110 call short, the 95 put gone.
     assert ex.total.corrections == pytest.approx(100 * (-1 * c110 - 5 * p95), rel=1e-9)
