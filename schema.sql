@@ -396,3 +396,22 @@ CREATE TRIGGER history_no_replace BEFORE INSERT ON history
 WHEN EXISTS (SELECT 1 FROM history WHERE seq = NEW.seq)
   OR EXISTS (SELECT 1 FROM history WHERE kind = NEW.kind AND row_id = NEW.row_id)
 BEGIN SELECT RAISE(ABORT, 'the store''s order of history is never replaced'); END;
+
+-- @version 6 ------------------------------------------------------------------------------------
+
+-- The desk time zone the book's closes are dated in: one for the book's life, written when the
+-- book is made (or by this upgrade) from the zone of the terminal doing it, never changed, so
+-- terminals with different desk_tz settings date a close alike. desk_zone() is the store's
+-- (blotter/store.py).
+CREATE TABLE book_zone (
+    only_row INTEGER PRIMARY KEY CHECK (only_row = 1),
+    zone     TEXT    NOT NULL CHECK (length(zone) BETWEEN 1 AND 64)
+) STRICT;
+INSERT INTO book_zone (only_row, zone) VALUES (1, desk_zone());
+CREATE TRIGGER book_zone_no_update BEFORE UPDATE ON book_zone
+BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never changed'); END;
+CREATE TRIGGER book_zone_no_delete BEFORE DELETE ON book_zone
+BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never deleted'); END;
+CREATE TRIGGER book_zone_no_replace BEFORE INSERT ON book_zone
+WHEN EXISTS (SELECT 1 FROM book_zone)
+BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never replaced'); END;

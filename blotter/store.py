@@ -398,12 +398,27 @@ def business_date(t: datetime, tz: ZoneInfo) -> date:
 
 def _schema_functions(conn: sqlite3.Connection, tz: ZoneInfo) -> None:
     """Functions ``schema.sql``'s upgrade statements call (never its triggers, which any SQLite
-    client must be able to run): ``desk_date(instant)``, a stored instant's business date."""
+    client must be able to run): ``desk_date(instant)``, a stored instant's business date, and
+    ``desk_zone()``, the zone the book's closes are dated in from now on."""
 
     def desk_date(text: str | None) -> str | None:
         return None if text is None else business_date(_from_ts(text), tz).isoformat()
 
     conn.create_function("desk_date", 1, desk_date, deterministic=True)
+    conn.create_function("desk_zone", 0, lambda: tz.key, deterministic=True)
+
+
+def _book_zone(conn: sqlite3.Connection, path: Path) -> ZoneInfo:
+    """The desk zone the book at ``path`` dates its closes in (``book_zone``, written with it)."""
+    row = conn.execute("SELECT zone FROM book_zone").fetchone()
+    if row is None:
+        raise StoreError(f"{path} names no desk time zone (its book_zone row is missing)")
+    try:
+        return ZoneInfo(str(row[0]))
+    except (ZoneInfoNotFoundError, ValueError):
+        raise StoreError(
+            f"{path} dates its closes in {row[0]!r}, a time zone this machine does not know"
+        ) from None
 
 
 def parse_time(value: datetime | str) -> datetime:
@@ -690,8 +705,9 @@ def open_store(
 
     ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
     migrated on a read-write open. ``verify`` checks the file first (``integrity_problems``,
-    once per file state in a process). ``desk_tz`` is the desk's time zone (the ``desk_tz``
-    setting; New York when None), which dates closes. Raises ``StoreError`` with a plain message
+    once per file state in a process). Closes are dated in the book's own desk zone
+    (``book_zone``); ``desk_tz`` (the ``desk_tz`` setting; New York when None) is the zone an
+    upgrade gives a book that has none yet. Raises ``StoreError`` with a plain message
     for a missing, empty, foreign, damaged or special file; ``NotWritableError`` when a
     read-write open meets a book this user cannot write.
     """
@@ -732,6 +748,7 @@ def open_store(
             journal = conn.execute("PRAGMA journal_mode").fetchone()[0]
             if journal != "wal":
                 conn.execute("PRAGMA journal_mode = WAL")
+        zone = _book_zone(conn, p)
     except sqlite3.Error as exc:
         conn.close()
         raise _map_error(exc, p) from None
@@ -819,7 +836,7 @@ def create_store(path: str | os.PathLike[str], desk_tz: ZoneInfo | None = None) 
     except BaseException:
         _remove_book_files(p)
         raise
-    return Store(p, False, conn, desk_tz=desk_tz)
+    return Store(p, False, conn, desk_tz=desk_tz or cal.desk_tz())
 
 
 def _remove_book_files(p: Path) -> None:
@@ -1009,7 +1026,7 @@ class Store:
         desk_tz: ZoneInfo | None = None,
     ) -> None:
         self.path = path
-        self.desk_tz = desk_tz or cal.desk_tz()  # dates the closes written through this store
+        self.desk_tz = desk_tz or cal.desk_tz()  # the book's zone: dates its closes
         self.read_only = read_only
         self._mode = mode  # URI mode override for every thread's connection (see _connect)
         self._local = threading.local()

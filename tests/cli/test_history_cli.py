@@ -81,16 +81,17 @@ def test_time_options_without_a_zone_keep_fractions_of_a_second(demo_db: Path) -
     assert listed("--until", "2026-12-01T10:00:00.4")
 
 
-def test_the_settings_file_zone_dates_a_close(
+def test_a_close_is_dated_in_the_books_zone_whatever_the_settings(
     demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    """The desk zone of the settings file alone (no variable) dates the close, as it reads
-    every other time."""
+    """The demo book was made in New York time; a terminal whose settings file names another desk
+    zone (Kiritimati, UTC+14, a day ahead of New York most of the day) still dates its close in
+    the book's zone, as every other terminal does."""
     monkeypatch.delenv("BLOTTER_TZ", raising=False)
     monkeypatch.delenv("BLOTTER_DESK_TZ", raising=False)
     config = tmp_path / "config.toml"
     config.write_text('desk_tz = "Pacific/Kiritimati"\n')
     monkeypatch.setenv("BLOTTER_CONFIG", str(config))
     written = json.loads(run("mark", "close", "--json", "--db", str(demo_db)).stdout)
-    zone = ZoneInfo("Pacific/Kiritimati")  # UTC+14: its date is ahead of New York's all day
-    assert written["business_date"] == st.business_date(datetime.now(UTC), zone).isoformat()
+    book_zone = ZoneInfo("America/New_York")
+    assert written["business_date"] == st.business_date(datetime.now(UTC), book_zone).isoformat()

@@ -513,7 +513,8 @@ def test_a_hedge_in_the_underlying_counts_shares_for_a_stock_and_contracts_for_a
     shutil.copy(shipped_demo_path(), db)
 
     def delta_shares() -> dict[str, float]:
-        out = json.loads(run("--db", db, "risk", "--json").stdout)
+        # One valuation time for both: the options' deltas move with the clock.
+        out = json.loads(run("--db", db, "risk", "--json", "--at", "2026-12-01T15:00Z").stdout)
         return {r["underlying"]: r["delta_shares"] for r in out["by_underlying"]}
 
     before = delta_shares()

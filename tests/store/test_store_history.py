@@ -100,12 +100,34 @@ def test_the_store_numbers_every_history_row_in_the_order_it_was_written(
     ],
 )
 def test_a_close_closes_the_desk_date_of_its_time(
-    store: Store, zone: str, instant: str, closes: str
+    tmp_path: Path, zone: str, instant: str, closes: str
 ) -> None:
-    with st.open_store(store.path, desk_tz=ZoneInfo(zone)) as desk:
+    """The book's own desk zone (the zone of the terminal that made it) dates its closes,
+    whatever the zone of the terminal that writes one."""
+    with st.create_store(tmp_path / "book.db", desk_tz=ZoneInfo(zone)) as made:
+        add_underlyings(made)
+        made.log_spot("TSTA", 100.0)
+    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("Pacific/Kiritimati")) as desk:
+        assert desk.desk_tz == ZoneInfo(zone)
         info = desk.commit_close_info(marked_at=st.parse_time(instant))
         assert info.business_date == date.fromisoformat(closes)
         assert desk.mark_sets("close")[-1].business_date == info.business_date
+
+
+def test_terminals_of_different_zones_date_one_close_alike(tmp_path: Path) -> None:
+    """A terminal set to Kiritimati (UTC+14) and one set to New York close the same book a
+    moment apart: both are dated in the book's zone, so the second is a second close of the
+    same date and is refused (two dates a day apart made explain run backwards)."""
+    with st.create_store(tmp_path / "book.db", desk_tz=ZoneInfo("America/New_York")) as made:
+        add_underlyings(made)
+        made.log_spot("TSTA", 100.0)
+    now = st.parse_time("2026-12-03T21:30:00Z")  # 16:30 New York, 11:30 on the 4th Kiritimati
+    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("Pacific/Kiritimati")) as far:
+        first = far.commit_close_info(marked_at=now)
+    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("America/New_York")) as near:
+        with pytest.raises(StoreError, match="the close of 2026-12-03 is already written"):
+            near.commit_close_info(marked_at=now + timedelta(seconds=1))
+    assert first.business_date == date(2026, 12, 3)
 
 
 def test_a_date_closes_once_and_a_correction_names_its_close(store: Store) -> None:
