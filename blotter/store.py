@@ -1118,6 +1118,14 @@ class Store:
                     f"{self.path}: the book holds text that is not UTF-8, so it is "
                     "damaged; restore it from a backup"
                 ) from None
+            if isinstance(exc, UnicodeEncodeError):
+                # Text from a terminal or file whose bytes were not UTF-8 reaches Python with
+                # stand-ins that no UTF-8 text may hold (a name, note or reason as typed).
+                bad = exc.object[max(0, exc.start - 20) : exc.end + 20]
+                raise StoreError(
+                    f"text that is not valid UTF-8 cannot be stored ({bad!r}); retype it in "
+                    "UTF-8: nothing was written"
+                ) from None
             raise
 
     def data_version(self) -> int:

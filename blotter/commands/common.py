@@ -140,6 +140,23 @@ def read_only_requested() -> bool:
     return read_only_source() is not None
 
 
+class FiniteRange(click.FloatRange):
+    """A float option within [min, max] that is a number: click's own range lets NaN through
+    (every comparison with NaN is false), and the core would then fail on it."""
+
+    name = "number"
+
+    def convert(self, value: Any, param: click.Parameter | None, ctx: click.Context | None) -> Any:
+        out = super().convert(value, param, ctx)
+        if not math.isfinite(out):
+            self.fail(f"{value!r} is not a finite number", param, ctx)
+        return out
+
+
+FINITE = FiniteRange()
+"""A float option that must be a finite number (NaN and infinities refused in words)."""
+
+
 def check_option(bound: Any, value: Any, option: str, signed: bool = False) -> float:
     """``value`` of ``option`` inside ``bound`` (a ``blotter.limits.Bound``), as a float.
 

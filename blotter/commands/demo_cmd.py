@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import click
 
+from blotter.commands.common import FiniteRange
 from blotter.limits import DEMO_POSITIONS
 
 
@@ -25,7 +26,7 @@ from blotter.limits import DEMO_POSITIONS
 @click.option("--seed", type=int, default=None, help="Random seed (default: the shipped demo's).")
 @click.option(
     "--american-share",
-    type=click.FloatRange(0.0, 1.0),
+    type=FiniteRange(0.0, 1.0),
     default=None,
     metavar="SHARE",
     help="Make this share (0 to 1) of the options American, drawn at random; default: each "

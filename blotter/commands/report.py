@@ -17,6 +17,7 @@ import click
 from blotter import limits
 from blotter.commands.common import (
     DESK_ZONE_HELP,
+    FiniteRange,
     check_option,
     check_output_flags,
     db_option,
@@ -761,7 +762,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
 )
 @click.option(
     "--days",
-    type=click.FloatRange(min=0, max=3660),
+    type=FiniteRange(min=0, max=3660),
     default=0.0,
     show_default=True,
     help="Calendar days to roll forward in every cell.",

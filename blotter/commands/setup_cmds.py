@@ -15,6 +15,7 @@ import click
 from blotter import limits
 from blotter.book import UNDERLYING_KINDS
 from blotter.commands.common import (
+    FINITE,
     check_option,
     check_output_flags,
     db_option,
@@ -97,7 +98,7 @@ def underlying() -> None:
 @click.option("--currency", required=True, help="ISO 4217 code of its prices, e.g. USD.")
 @click.option(
     "--multiplier",
-    type=float,
+    type=FINITE,
     required=True,
     help="Default units of underlying per option contract, e.g. 100.",
 )
@@ -113,7 +114,7 @@ def underlying() -> None:
     help="Default dividend yield (stock, index) or foreign rate (fx), continuous: 0.015 or "
     "1.5%. A `mark divyield` overrides it.",
 )
-@click.option("--beta", type=float, default=1.0, help="Beta to the reference index (beta delta).")
+@click.option("--beta", type=FINITE, default=1.0, help="Beta to the reference index (beta delta).")
 @click.option(
     "--reference", is_flag=True, help="It is the book's reference index (at most one)."
 )

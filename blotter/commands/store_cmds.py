@@ -17,6 +17,7 @@ import click
 
 from blotter.commands.common import (
     DESK_ZONE_HELP,
+    FINITE,
     check_output_flags,
     db_option,
     desk_zone,
@@ -133,12 +134,12 @@ def trade() -> None:
 )
 @click.option(
     "--price",
-    type=float,
+    type=FINITE,
     required=True,
     help="Price per unit of underlying as quoted (option premium per share).",
 )
 @click.option("--expiry", help="Option expiry date, YYYY-MM-DD (leave out for the underlying).")
-@click.option("--strike", type=float, help="Option strike, in the underlying's price units.")
+@click.option("--strike", type=FINITE, help="Option strike, in the underlying's price units.")
 @click.option("--call/--put", "is_call", default=None, help="Call or put (options only).")
 @click.option(
     "--book",
@@ -157,7 +158,7 @@ def trade() -> None:
 )
 @click.option(
     "--multiplier",
-    type=float,
+    type=FINITE,
     help="Units per contract (default: the underlying's for options and futures, 1 for a "
     "stock, index or FX hedge).",
 )
@@ -236,7 +237,7 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.argument("trade_id", type=int)
 @click.option("--reason", required=True, help="Why it is amended (kept on record).")
 @click.option("--qty", "quantity", type=int, help="New signed quantity.")
-@click.option("--price", type=float, help="New price per unit of underlying.")
+@click.option("--price", type=FINITE, help="New price per unit of underlying.")
 @click.option("--time", "trade_time", help=f"New deal time, {TIME_HELP}.")
 @click.option("--note", help="New note.")
 @click.option("--book", help="Move to this book (it must exist).")
@@ -406,7 +407,7 @@ def _log(db_path: str | None, as_json: bool, action: Callable[[Any], int], what:
 
 @mark.command("spot")
 @click.argument("symbol")
-@click.argument("price", type=float)
+@click.argument("price", type=FINITE)
 @click.option("--note", help="Free note kept with the mark.")
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
@@ -425,7 +426,7 @@ def mark_spot(
 @click.argument("vol")
 @click.option(
     "--strike",
-    type=float,
+    type=FINITE,
     help="Strike of the point; leave out for the ATM vol: the vol at the strike equal to the "
     "spot among the expiry's strike vols, or of every strike when it has none.",
 )

@@ -134,6 +134,10 @@ def invoke(args: list[str]) -> tuple[int, str, BaseException | None]:
     )
 
 
+NOT_UTF8 = b"x\xffy".decode("utf-8", "surrogateescape")
+"""A command-line word whose bytes were not UTF-8, as Python passes it on."""
+
+
 def check_refused_or_done(db: Path, args: list[str]) -> tuple[int, str]:
     """Run ``blotter --db DB ARGS``; assert no traceback, and an unchanged book on refusal."""
     before = book_rows(db)
@@ -234,6 +238,17 @@ def test_a_trade_import_refuses_any_cell_naming_its_line_and_column(
         (("risk", "--at", "0001-01-01T00:00:00Z"), "time must be from 1900-01-01"),
         (("ladder", "--spot", HUGE), "spot must be above -100% and at most +1,000%"),
         (("demo", "--out", "never.db", "--positions", HUGE), "not in the range"),
+        (("ladder", "--days", "nan"), "is not a finite number"),
+        (("trade", "add", "DEMOA", "--qty", "1", "--price", "nan", *BOOK), "not a finite number"),
+        # Text whose bytes were not UTF-8 (Python holds them as lone surrogates).
+        (("trade", "add", "DEMOA", "--qty", "1", "--price", "1", *BOOK, "--note", NOT_UTF8),
+         "not valid UTF-8"),
+        (("mark", "close", "--note", NOT_UTF8), "not valid UTF-8"),
+        (("trade", "cancel", "1", "--reason", NOT_UTF8), "not valid UTF-8"),
+        (("underlying", "add", "ZZQ", "--kind", "stock", "--currency", "USD", "--multiplier",
+          "100", "--description", NOT_UTF8), "not valid UTF-8"),
+        (("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--new-book", "--book",
+          NOT_UTF8), "not valid UTF-8"),
     ],
 )
 def test_the_reported_inputs_get_a_message_and_change_nothing(
