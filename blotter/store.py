@@ -29,6 +29,7 @@ import getpass
 import hashlib
 import io
 import os
+import pwd
 import re
 import sqlite3
 import stat
@@ -548,11 +549,30 @@ def _open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreErr
     return _map_error(exc, path)
 
 
+def _side_file_words(path: Path, side: str) -> str:
+    """Why a book this user may write cannot be written: its side file ``side`` (-wal or -shm)
+    belongs to another user, typically a read-only viewer that made it (SQLite creates them for
+    every reader, with the book's mode but the reader's owner)."""
+    try:
+        owner = pwd.getpwuid(os.stat(side).st_uid).pw_name
+    except (KeyError, OSError):
+        owner = "another user"
+    return (
+        f"you cannot write to {side}, which belongs to {owner} (SQLite makes it for whoever "
+        f"opens the book first, a read-only viewer too). Once nobody has {path.name} open, "
+        f"{owner} or an administrator can remove {path.name}-wal and {path.name}-shm (they hold "
+        "nothing then); to share a book, keep it in a folder owned by the desk's group with "
+        "the setgid bit, and the file group-writable"
+    )
+
+
 def _not_writable(path: Path) -> str | None:
     """Words for the first of the book, its -wal and -shm files and (while those are absent) its
     folder that this user cannot write; None when nothing stands in the way of a write."""
     for name in (str(path), f"{path}-wal", f"{path}-shm"):
         if os.path.lexists(name) and not os.access(name, os.W_OK):
+            if name != str(path) and os.access(str(path), os.W_OK):
+                return _side_file_words(path, name)
             return f"you cannot write to {name}"
     folder = path.absolute().parent
     sides = os.path.lexists(f"{path}-wal") and os.path.lexists(f"{path}-shm")

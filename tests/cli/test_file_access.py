@@ -110,3 +110,34 @@ def test_a_fifo_is_refused_without_being_read(tmp_path: Path, demo_db: Path) -> 
             )
             assert r.returncode == 1, (args, r.stderr)
             assert f"{named} is a named pipe (FIFO), not a book file" in r.stderr, r.stderr
+
+
+def test_side_files_another_user_left_are_named_with_their_owner(
+    demo_db: Path, shared_dir: Path, as_other_user: RunAs
+) -> None:
+    """A reader makes the book's -wal and -shm with the book's mode but its own owner, so the
+    book's owner may find them in the way of a write: the refusal names the owner of the file
+    and what to do, instead of calling the book read-only."""
+    import os
+    import pwd
+
+    import pytest
+
+    from tests.conftest import OTHER_UID
+
+    if os.geteuid() != 0:
+        pytest.skip("needs root to give the book and its side files different owners")
+    book = _book_in(shared_dir / "desk", demo_db)
+    book.parent.chmod(0o1777)
+    os.chown(book, OTHER_UID, OTHER_UID)  # the book's owner: the other user
+    for side in ("-wal", "-shm"):  # left by a viewer, root here: the book's mode, root's owner
+        Path(f"{book}{side}").write_bytes(b"")
+        Path(f"{book}{side}").chmod(0o644)
+    before = book.read_bytes()
+    r = as_other_user("-m", "blotter", "--db", str(book), "mark", "spot", "DEMOA", "181")
+    assert r.returncode == 1, (r.stdout, r.stderr)
+    assert "Traceback" not in r.stderr
+    viewer = pwd.getpwuid(0).pw_name
+    assert f"{book}-wal, which belongs to {viewer}" in r.stderr, r.stderr
+    assert "remove book.db-wal and book.db-shm" in r.stderr
+    assert book.read_bytes() == before
