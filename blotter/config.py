@@ -27,6 +27,7 @@ Example file::
 
 from __future__ import annotations
 
+import math
 import os
 import tomllib
 from collections.abc import Mapping
@@ -184,9 +185,34 @@ def _from_env(env: Mapping[str, str]) -> dict[str, Any]:
         elif name in plain:
             out[name] = value
     if "BLOTTER_DESK_TZ" in env:
+        if "BLOTTER_TZ" in env and env["BLOTTER_TZ"] != env["BLOTTER_DESK_TZ"]:
+            raise ConfigError(
+                f"BLOTTER_TZ ({env['BLOTTER_TZ']}) and BLOTTER_DESK_TZ "
+                f"({env['BLOTTER_DESK_TZ']}) name two desk zones; set one of them"
+            )
         out["desk_tz"] = env["BLOTTER_DESK_TZ"]
     if alerts:
         out["alerts"] = alerts
+    return out
+
+
+MAX_WATCH_INTERVAL_S = 3600.0
+"""Longest wait between two looks for other processes' commits (an hour)."""
+
+
+def _numbers(settings: Settings) -> list[tuple[str, float]]:
+    """Every number of ``settings`` (alerts and list items included), named for a message."""
+    out: list[tuple[str, float]] = []
+    for f in fields(Settings):
+        value = getattr(settings, f.name)
+        if isinstance(value, float):
+            out.append((f.name, value))
+        elif isinstance(value, tuple):
+            out += [(f"{f.name}[{i}]", float(v)) for i, v in enumerate(value)]
+    out += [
+        (f"[alerts] {f.name}", float(getattr(settings.alerts, f.name)))
+        for f in fields(Alerts)
+    ]
     return out
 
 
@@ -201,8 +227,16 @@ def _validate(settings: Settings) -> Settings:
         ) from None
     if settings.estimate_order not in (1, 2):
         raise ConfigError(f"estimate_order must be 1 or 2, not {settings.estimate_order}")
+    for name, value in _numbers(settings):
+        if not math.isfinite(value):
+            raise ConfigError(f"{name} must be a finite number, not {value!r}")
     if settings.watch_interval_s < 0 or settings.debounce_ms < 0:
         raise ConfigError("watch_interval_s and debounce_ms must not be negative")
+    if settings.watch_interval_s > MAX_WATCH_INTERVAL_S:
+        raise ConfigError(
+            f"watch_interval_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), or 0 to never "
+            f"look for others' commits; not {settings.watch_interval_s:g}"
+        )
     if not settings.ladder_spot_pcts or not settings.ladder_vol_pts:
         raise ConfigError("ladder_spot_pcts and ladder_vol_pts need at least one value each")
     if settings.profile_points < 3 or settings.profile_spot_pct <= 0 or settings.profile_days < 1:

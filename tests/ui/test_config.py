@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -52,7 +53,8 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
     assert settings.estimate_order == 2 and settings.alerts.error_pct == 7.5
     assert settings.keymap == {"help": "h,f1", "quit": "x,f10", "group": "y,f4"}
     assert settings.desk_tz == "Asia/Tokyo"
-    assert load_settings(env=env | {"BLOTTER_DESK_TZ": "UTC"}).desk_tz == "UTC"
+    desk = {k: v for k, v in env.items() if k != "BLOTTER_TZ"} | {"BLOTTER_DESK_TZ": "UTC"}
+    assert load_settings(env=desk).desk_tz == "UTC"
 
     settings = load_settings({"read_only": True, "estimate_order": 1}, env=env)
     assert settings.read_only and settings.estimate_order == 1
@@ -69,18 +71,25 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
         ('[keys]\nnothing = "x"', "unknown binding id 'nothing'"),
         ('watch_interval_s = "soon"', "is not a valid float"),
         ("estimate_order = ", "config.toml"),
+        ("watch_interval_s = nan", "watch_interval_s must be a finite number"),
+        ("watch_interval_s = inf", "watch_interval_s must be a finite number"),
+        ("watch_interval_s = 86400", "watch_interval_s must be at most 3600"),
+        ("ladder_vol_pts = [-5.0, nan]", "ladder_vol_pts[1] must be a finite number"),
+        ("[alerts]\nvega_pt = nan", "[alerts] vega_pt must be a finite number"),
     ],
 )
 def test_bad_settings_are_refused_with_the_reason(tmp_path: Path, text: str, words: str) -> None:
     path = tmp_path / "config.toml"
     path.write_text(text, encoding="utf-8")
-    with pytest.raises(ConfigError, match=words.replace("(", r"\(")):
+    with pytest.raises(ConfigError, match=re.escape(words)):
         load_settings(env={"BLOTTER_CONFIG": str(path)})
 
 
 def test_environment_errors_name_the_variable() -> None:
     with pytest.raises(ConfigError, match="BLOTTER_KEYS"):
         load_settings(env={"BLOTTER_KEYS": "help"})
+    with pytest.raises(ConfigError, match="name two desk zones"):
+        load_settings(env={"BLOTTER_TZ": "Asia/Tokyo", "BLOTTER_DESK_TZ": "UTC"})
     with pytest.raises(ConfigError, match="environment: estimate_order"):
         load_settings(env={"BLOTTER_ESTIMATE_ORDER": "two"})
 
