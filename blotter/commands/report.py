@@ -79,9 +79,15 @@ def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
 
 def _open(db_path: str | None) -> Any:
     path, _ = resolve_db(db_path)
+    from blotter.store import StoreError
+
     try:
         return open_for_reading(path)
-    except Exception as exc:  # the store's own errors name the file and the problem
+    except click.ClickException:
+        raise  # a settings error: the book is not at fault
+    except StoreError as exc:  # the store's own errors name the file and the problem
+        raise click.ClickException(str(exc)) from None
+    except Exception as exc:  # noqa: BLE001 - anything else is said, never a traceback
         raise click.ClickException(f"cannot open {path}: {exc}") from exc
 
 

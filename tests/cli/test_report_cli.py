@@ -402,3 +402,15 @@ def test_risk_by_expiry_blanks_share_counts_of_several_names(demo_db: Path) -> N
             assert cells[at] == "" and cells[at + 1] != "", line  # Δ sh blank, Δ $ shown
             blanked += 1
     assert blanked == len(mixed)
+
+
+def test_a_bad_settings_file_is_named_not_the_book(
+    demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The book is sound; the words must point at the settings, not say it cannot be opened."""
+    bad = tmp_path / "config.toml"
+    bad.write_text('desk_tz = "Mars/Base"\n', encoding="utf-8")
+    monkeypatch.setenv("BLOTTER_CONFIG", str(bad))
+    r = CliRunner().invoke(main, ["risk", "--db", str(demo_db)])
+    assert r.exit_code == 1 and "settings:" in r.output and "Mars/Base" in r.output
+    assert "cannot open" not in r.output
