@@ -449,7 +449,8 @@ def risk(
             {"underlying": r.underlying, "spot": r.spot, "currency": r.currency, **_row_dict(r)}
             for r in under
         ]
-        out["total"] = _row_dict(tot) | _currency_json(tot, per_ccy)
+        # Share counts of several names do not add: null in a total of more than one.
+        out["total"] = _row_dict(tot, len(under) > 1) | _currency_json(tot, per_ccy)
         out["reference_index"] = v.book.reference_index
         out["beta_delta_index_units"] = beta_delta_index_units(v)
         out["t_ref_days"] = v.t_ref_days
@@ -481,7 +482,11 @@ def risk(
             [label, r.spot, *_row_dict(r, shares_blank).values(), r.currency]
             for label, _, r, shares_blank in _risk_groups(v, by)
         ]
-        data += [["total", None, *_row_dict(r).values(), r.currency] for r in per_ccy or [tot]]
+        data += [
+            ["total", None, *_row_dict(r, r.underlying is None and len(under) > 1).values(),
+             r.currency]
+            for r in per_ccy or [tot]
+        ]
         print_csv(cols, data)
         return
     scale = v.vega_scale

@@ -98,11 +98,11 @@ def test_risk_json_keys_and_totals(demo_db: Path) -> None:
         assert EXPOSURE_KEYS | {"underlying", "spot"} <= set(row)
     assert EXPOSURE_KEYS <= set(out["total"])
     assert "underlying" not in out["total"] and "spot" not in out["total"]
-    for key in EXPOSURE_KEYS:
+    for key in EXPOSURE_KEYS - {"delta_shares", "gamma_1pct", "vanna_pt"}:
         assert sum(r[key] for r in out["by_underlying"]) == pytest.approx(
             out["total"][key], rel=1e-9, abs=1e-6
         )
-    assert _all_finite(out)
+    assert _all_finite(out)  # share counts of several names are null, not summed
 
 
 def test_risk_json_numbers_are_the_librarys(demo_db: Path) -> None:
@@ -414,3 +414,20 @@ def test_a_bad_settings_file_is_named_not_the_book(
     r = CliRunner().invoke(main, ["risk", "--db", str(demo_db)])
     assert r.exit_code == 1 and "settings:" in r.output and "Mars/Base" in r.output
     assert "cannot open" not in r.output
+
+
+def test_share_counts_of_several_names_are_not_added_in_json_or_csv(demo_db: Path) -> None:
+    """Δ sh, Γ 1% and vanna of the demo's total would add index units, shares and futures
+    contracts: null in JSON and blank in CSV, as the table shows "—"; money still adds."""
+    out = json.loads(
+        CliRunner().invoke(main, ["risk", "--db", str(demo_db), "--at", AT, "--json"]).stdout
+    )
+    assert all(out["total"][k] is None for k in ("delta_shares", "gamma_1pct", "vanna_pt"))
+    assert out["total"]["delta_cash"] == pytest.approx(
+        sum(r["delta_cash"] for r in out["by_underlying"]), rel=1e-12
+    )
+    text = CliRunner().invoke(main, ["risk", "--db", str(demo_db), "--at", AT, "--csv"]).stdout
+    rows = list(csv.DictReader(io.StringIO(text)))
+    total_row = next(r for r in rows if r["underlying"] == "total")
+    assert total_row["delta_shares"] == total_row["gamma_1pct"] == total_row["vanna_pt"] == ""
+    assert float(total_row["delta_cash"]) == pytest.approx(out["total"]["delta_cash"], rel=1e-12)
