@@ -588,6 +588,11 @@ class MarksView:
     day_closed_by: int | None = None  # the close in force for that date: a close now corrects it
 
 
+MISSING_CURVE_TENOR_DAYS = 365
+"""Tenor (days) of the point offered for a currency with no rate curve: one point is a flat curve,
+so any tenor serves; a year reads naturally."""
+
+
 def marks_view(st: Any, book: Book | None) -> MarksView:
     """Mark points in force beside the last close, plus points the book needs but nobody marked.
 
@@ -639,6 +644,16 @@ def marks_view(st: Any, book: Book | None) -> MarksView:
                     points[k] = MarkPoint(
                         k, "vol", sym, None, d, None, None, None, None, None, True
                     )
+        # A currency whose options have no rate curve at all: one point to type it at.
+        curves = {p.currency for p in points.values() if p.kind == "rate" and p.value is not None}
+        ccys = book.underlyings.currencies
+        for c in sorted({ccys[int(j)] for j in np.unique(book.underlying_idx[book.is_option])}):
+            if c not in curves:
+                k = _point_key("rate", None, c, None, None, MISSING_CURVE_TENOR_DAYS)
+                points[k] = MarkPoint(
+                    k, "rate", None, c, None, None, MISSING_CURVE_TENOR_DAYS, None, None, None,
+                    True,
+                )
 
     def order(p: MarkPoint) -> tuple[Any, ...]:
         if p.kind in ("spot", "vol", "div_yield"):

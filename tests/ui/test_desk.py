@@ -22,6 +22,7 @@ from textual.widgets import DataTable
 from blotter import engine, scenario, store
 from blotter.config import Alerts
 from blotter.ui.app import BlotterApp, make_app
+from blotter.ui.data import close_review
 from blotter.ui.screens.base import READ_ONLY_WORDS
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.marks import CloseReviewScreen, MarksScreen
@@ -758,3 +759,38 @@ async def test_a_failed_load_shows_the_path_as_text(tmp_path: Path) -> None:
         shown = [n.message for n in app._notifications]
         assert shown and not any(RAW_CONTROLS.search(m) for m in shown)
         assert app.is_running
+
+
+async def test_a_currency_without_a_rate_curve_is_listed_and_can_be_typed(demo_db: Path) -> None:
+    """A GBP name with a spot and a vol but no GBP rates: the Marks screen lists a GBP rate point
+    as missing (its count apart from the points in force), the close review names it, and typing
+    it writes the GBP curve."""
+    st = store.open_store(demo_db)
+    try:
+        st.add_underlying("ZZG", "stock", "GBP", 100, description="test stock (invented)")
+        st.log_spot("ZZG", 50.0)
+        st.log_vol("ZZG", "2027-06-18", 0.25)
+        st.add_trade("equity-vol", "ZZG", 3, 2.0, "2027-06-18", 50.0, True)
+        in_force = len(st.marks())
+    finally:
+        st.close()
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        assert screen.view is not None
+        missing = [p for p in screen.view.points if p.needed and p.value is None]
+        assert [(p.kind, p.currency) for p in missing] == [("rate", "GBP")]
+        title = str(screen.query_one(".desk-title").render())
+        assert f"{in_force} points in force, 1 missing" in title
+        review = close_review(screen.view, frozen_clock())
+        assert review.missing == ("GBP rate 365d",)
+        keys = [p.key for p in screen.view.points]
+        screen.query_one(DataTable).move_cursor(row=keys.index(missing[0].key))
+        await pilot.press(*"4.5", "enter")
+        await settle(app, pilot)
+    st = open_ro(demo_db)
+    try:
+        rate = [m for m in st.marks() if m.kind == "rate" and m.currency == "GBP"]
+    finally:
+        st.close()
+    assert [(m.tenor_days, m.value) for m in rate] == [(365, pytest.approx(0.045))]

@@ -147,11 +147,21 @@ class MarksScreen(DeskScreen):
             else "no close yet"
         )
         self.query_one(".desk-title", Static).update(
-            Text(f"Marks: {len(view.points)} points in force │ {close}", style="bold")
+            Text(
+                f"Marks: {sum(p.value is not None for p in view.points)} points in force"
+                f"{self._missing_words(view)} │ {close}",
+                style="bold",
+            )
         )
         keys = [p.key for p in view.points]
         if cursor is not None and cursor.key in keys:
             table.move_cursor(row=keys.index(cursor.key), animate=False)
+
+    @staticmethod
+    def _missing_words(view: data.MarksView) -> str:
+        """``, 3 missing`` when positions need points nobody marked, else nothing."""
+        missing = sum(p.needed and p.value is None for p in view.points)
+        return f", {missing} missing" if missing else ""
 
     def cursor_point(self) -> data.MarkPoint | None:
         """The mark point under the cursor."""
