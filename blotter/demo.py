@@ -248,6 +248,21 @@ def _local(d: date, t: time) -> datetime:
     return datetime.combine(d, t, tzinfo=DEMO_TZ).astimezone(UTC)
 
 
+def _remove_abandoned_builds(out: Path) -> None:
+    """Remove the half-built files of earlier builds of ``out`` whose process is gone (killed
+    mid-build), so they do not pile up beside the book."""
+    for tmp in out.parent.glob(f".{out.name}.*.building"):
+        pid_text = tmp.name[len(out.name) + 2 : -len(".building")]
+        if not pid_text.isdigit():
+            continue
+        try:
+            os.kill(int(pid_text), 0)
+        except ProcessLookupError:
+            _remove_book_files(tmp)
+        except PermissionError:
+            pass  # another user's live build
+
+
 def build_demo(
     path: str | os.PathLike[str],
     positions: int | None = None,
@@ -280,6 +295,7 @@ def build_demo(
             f"{out} is in use or was not closed cleanly ({wal} holds data); close "
             "every program using it before replacing it"
         )
+    _remove_abandoned_builds(out)
     tmp = out.with_name(f".{out.name}.{os.getpid()}.building")
     _remove_book_files(tmp)
     store = create_store(tmp)

@@ -134,6 +134,7 @@ class UnvaluedPosition:
     is_trial: bool
     missing: tuple[MissingMark, ...]
     where: str = ""
+    closes: tuple[int, ...] = ()  # written mark sets that lack the mark: a correction mends them
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form: the contract, its underlying and currency, and each missing mark with the
@@ -150,6 +151,8 @@ class UnvaluedPosition:
         }
         if self.where:
             out["where"] = self.where
+        if self.closes:
+            out["correct_closes"] = list(self.closes)
         return out
 
 

@@ -162,28 +162,29 @@ class Move:
         return not (self.spot or self.vol or self.days or self.bdays or self.rate_bp)
 
     def describe(self) -> str:
-        """The move in canonical text, e.g. ``spot -3% vol +2 days 1``."""
+        """The move in canonical text, e.g. ``spot -3% vol +2 days 1``, each amount as typed (to 15
+        significant digits, so -99.9999999% never reads as -100%)."""
         words: list[str] = []
         for s in self.spot:
             amt = (
-                f"={s.amount:g}"
+                f"={s.amount:.15g}"
                 if s.unit == "level"
-                else f"{s.amount:+g}{'%' if s.unit == '%' else ''}"
+                else f"{s.amount:+.15g}{'%' if s.unit == '%' else ''}"
             )
             words.append(
                 " ".join(w for w in (s.symbol, "spot", amt, "beta" if s.beta else None) if w)
             )
         for v in self.vol:
-            amt = f"{v.amount:+g}{'%' if v.unit == '%' else ''}"
+            amt = f"{v.amount:+.15g}{'%' if v.unit == '%' else ''}"
             words.append(
                 " ".join(w for w in (v.symbol, "vol", amt, "weighted" if v.weighted else None) if w)
             )
         if self.days:
-            words.append(f"days {self.days:g}")
+            words.append(f"days {self.days:.15g}")
         if self.bdays:
             words.append(f"bdays {self.bdays}")
         if self.rate_bp:
-            words.append(f"rate {self.rate_bp:+g}bp")
+            words.append(f"rate {self.rate_bp:+.15g}bp")
         if self.vol_rule == MONEYNESS_RULE:
             words.append("moneyness")
         return " ".join(words) or "no move"
@@ -1626,7 +1627,10 @@ def explain(
     known_start = store.load_book(before_seq=cut0)
     held = _net_books([(store.load_book(before_seq=cut1), 1.0), (period.new, -1.0)])
     end_name = "end (marks now)" if to == "now" else f"end (set {to.id})"
-    sides = ((m0, t0, f"start (set {frm.id})"), (m1, t1, end_name))
+    sides = (
+        (m0, t0, f"start (set {frm.id})", int(frm.id)),
+        (m1, t1, end_name, None if to == "now" else int(to.id)),
+    )
     left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition] = {}
     held = held.take(_valued_part(held, sides, left_out))
     start = value_book(held, m0, t0)
@@ -1760,22 +1764,26 @@ def explain(
 
 def _valued_part(
     book: Book,
-    sides: Sequence[tuple[Market, np.datetime64, str]],
+    sides: Sequence[tuple[Market, np.datetime64, str, int | None]],
     left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition],
 ) -> np.ndarray:
-    """Rows of ``book`` that every (market, time, name) side can value; the rest are added to
-    ``left_out`` once per contract and set of missing marks, naming the sides that lack them."""
+    """Rows of ``book`` that every (market, time, name, written set id) side can value; the rest
+    are added to ``left_out`` once per contract and set of missing marks, naming the sides that
+    lack them and the written mark sets a correction must mend."""
     ok = np.ones(len(book), dtype=bool)
-    for market, t, name in sides:
+    for market, t, name, set_id in sides:
         unvalued, valued = missing_marks(book, market, t, where=name)
         ok &= valued
+        mend = () if set_id is None else (set_id,)
         for u in unvalued:
             key = (u.contract_id, u.missing)
             seen = left_out.get(key)
             if seen is None:
-                left_out[key] = u
+                left_out[key] = replace(u, closes=mend)
             elif name not in seen.where:
-                left_out[key] = replace(seen, where=f"{seen.where} and {name}")
+                left_out[key] = replace(
+                    seen, where=f"{seen.where} and {name}", closes=seen.closes + mend
+                )
     return np.flatnonzero(ok)
 
 

@@ -183,6 +183,12 @@ def _total_label(unvalued: Sequence[UnvaluedPosition]) -> str:
     return "total of valued" if unvalued else "total"
 
 
+def _fix(u: UnvaluedPosition, command: str) -> str:
+    """``command``, and for a mark a written close lacks, the correction that mends that close."""
+    mend = "; ".join(f"blotter mark close --corrects {c}" for c in u.closes)
+    return f"{command}, then {mend}" if mend else command
+
+
 def _say_unvalued(unvalued: Sequence[UnvaluedPosition], table: bool) -> None:
     """List the positions left out for want of a mark, each with the command that logs it: under
     the table on stdout, or on stderr when stdout carries CSV."""
@@ -198,14 +204,18 @@ def _say_unvalued(unvalued: Sequence[UnvaluedPosition], table: bool) -> None:
         for u in unvalued:
             for m in u.missing:
                 where = f" at the {u.where}" if u.where else ""
-                click.echo(f"  {u.label}: {m.words()}{where}; log it with: {m.command}", err=True)
+                click.echo(
+                    f"  {u.label}: {m.words()}{where}; log it with: {_fix(u, m.command)}", err=True
+                )
         return
     rows = []
     for k, u in enumerate(unvalued[:UNVALUED_SHOWN]):
         same = k > 0 and unvalued[k - 1].contract_id == u.contract_id
         for j, m in enumerate(u.missing):
             where = f"{u.where}: " if u.where else ""
-            rows.append([u.label if j == 0 and not same else "", where + m.words(), m.command])
+            rows.append(
+                [u.label if j == 0 and not same else "", where + m.words(), _fix(u, m.command)]
+            )
     click.echo("")
     click.echo(head)
     print_table(["not valued", "missing", "log it with"], rows)
@@ -257,7 +267,11 @@ def _position_dicts(v: BookValuation) -> list[dict[str, Any]]:
                 "is_call": bool(book.is_call[i]) if opt else None,
                 "american": bool(book.american[i]) if opt else None,
                 "strike": float(book.strikes[i]) if opt else None,
-                "expiry": cal.iso(book.expiries[i]) if opt else None,
+                # The contract's expiry date as listed, and the instant it stops (its cut-off
+                # in its exchange's zone, as UTC): a Los Angeles 16:00 cut-off of 2027-01-15 is
+                # 2027-01-16T00:00Z.
+                "expiry": str(book.expiry_dates[i]) if opt else None,
+                "cutoff": cal.iso(book.expiries[i]) if opt else None,
                 "years": float(v.years[i]) if opt else None,
                 "rate": float(v.rate[i]) if opt else None,
                 "carry": float(v.carry[i]) if opt else None,

@@ -63,9 +63,10 @@ TIME_HELP = f"ISO-8601; with Z or an offset, else local time in {DESK_ZONE_HELP}
 """How every time option of these commands is read (as ``risk --at`` reads it)."""
 
 
-def _time_option(value: str | None) -> datetime | None:
-    """An aware UTC time from an option: ISO-8601 with ``Z`` or an offset as given, or without
+def _time_option(value: str | None, option: str = "--time") -> datetime | None:
+    """An aware UTC time from ``option``: ISO-8601 with ``Z`` or an offset as given, or without
     one as local time in the desk's zone (``desk_zone``), at the store's precision (µs)."""
+    from blotter import limits
     from blotter.store import StoreError, parse_time
 
     if value is None:
@@ -76,10 +77,17 @@ def _time_option(value: str | None) -> datetime | None:
         typed = None  # not ISO-8601: parse_time says so below
     try:
         if typed is not None and typed.tzinfo is None:
+            first, end = limits.FIRST_INSTANT, limits.END_INSTANT
+            if not first.year <= typed.year < end.year:
+                # Said before a zone is put on it: a year-1 New York time reads -04:56:02.
+                raise StoreError(
+                    f"time must be from {first:%Y-%m-%d} to before {end:%Y-%m-%d}, "
+                    f"got {value.strip()}"
+                )
             return parse_time(typed.replace(tzinfo=desk_zone()))
         return parse_time(value)
     except (StoreError, ValueError) as exc:
-        raise click.BadParameter(str(exc)) from None
+        raise click.BadParameter(str(exc), param_hint=option) from None
 
 
 def parse_vol(text: str) -> float:
@@ -298,7 +306,8 @@ def trade_import(file: str, new_books: bool, as_json: bool, db_path: str | None)
             "first_trade_id": rep.first_id,
             "last_trade_id": rep.last_id,
         },
-        f"imported {rep.rows} trades from {rep.path.name} (trades {rep.first_id}-{rep.last_id})",
+        f"imported {rep.rows} trade{'' if rep.rows == 1 else 's'} from {rep.path.name} "
+        f"(trades {rep.first_id}-{rep.last_id})",
     )
 
 
@@ -342,7 +351,7 @@ def trade_list(
     from blotter.store import TRADE_COLUMNS, TRADE_INFO_COLUMNS, trade_csv_row
 
     check_output_flags(as_json, as_csv)
-    lo, hi = _time_option(since), _time_option(until)
+    lo, hi = _time_option(since, "--since"), _time_option(until, "--until")
     with _store(db_path, read_only=True) as store:
         if book is not None and book not in (books := store.book_names()):
             raise click.ClickException(
@@ -385,7 +394,8 @@ def trade_list(
                 )
                 for t in rows
             ],
-            title=f"{len(rows)} trades (price per unit of underlying)",
+            title=f"{len(rows)} trade{'' if len(rows) == 1 else 's'} "
+            "(price per unit of underlying)",
             right=[True, False, False, True, True, False, False, False, False, False],
         )
 
@@ -564,7 +574,7 @@ def mark_list(
     check_output_flags(as_json, as_csv)
     if mark_set_id is not None and as_of is not None:
         raise click.UsageError("choose one of --set and --as-of")
-    when = _time_option(as_of)
+    when = _time_option(as_of, "--as-of")
     with _store(db_path, read_only=True) as store:
         if list_sets:
             sets = store.mark_sets()

@@ -239,6 +239,11 @@ def test_a_trade_import_refuses_any_cell_naming_its_line_and_column(
         (("ladder", "--spot", HUGE), "spot must be above -100% and at most +1,000%"),
         (("demo", "--out", "never.db", "--positions", HUGE), "not in the range"),
         (("ladder", "--days", "nan"), "is not a finite number"),
+        (("trade", "list", "--since", "0001-01-01"),
+         "Invalid value for --since: time must be from 1900-01-01 to before 2200-01-01, got "
+         "0001-01-01"),
+        (("trade", "add", "DEMOA", "--qty", "1", "--price", "1", *BOOK, "--time", "garbage"),
+         "Invalid value for --time"),
         (("trade", "add", "DEMOA", "--qty", "1", "--price", "nan", *BOOK), "not a finite number"),
         # Text whose bytes were not UTF-8 (Python holds them as lone surrogates).
         (("trade", "add", "DEMOA", "--qty", "1", "--price", "1", *BOOK, "--note", NOT_UTF8),

@@ -93,5 +93,9 @@ def test_whatif_ladder_and_explain_value_the_rest(half_marked: str) -> None:
     assert [r["underlying"] for r in ex["by_underlying"]] == ["AAA"]
     _unvalued_is_ccc(ex)
     assert ex["unvalued"][0]["where"].startswith("start (set")
+    # The start is a written close: logging the mark now does not mend it, its correction does.
+    close_id = ex["from"]["id"]
+    assert ex["unvalued"][0]["correct_closes"] == [close_id]
     text = run("--db", half_marked, "explain", "--to", "now").stdout
     assert "total of valued" in text and "blotter mark spot CCC PRICE" in text
+    assert f"then blotter mark close --corrects {close_id}" in text

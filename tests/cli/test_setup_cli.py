@@ -181,6 +181,10 @@ def test_options_of_zoned_cut_offs_take_the_vol_marked_for_their_expiry(tmp_path
     morning = vols("2027-01-14T21:00:00Z")  # 08:00 on 2027-01-15 in Sydney
     assert morning["SYD 2027-02-18 50 P"] == 0.30
     assert morning["LAX 2027-01-15 100 P"] == 0.20
+    # The position report gives the listed expiry date and, apart, the cut-off instant (UTC).
+    out = json.loads(run(*g, "risk", "--by", "position", "--json").stdout)
+    lax = next(p for p in out["by_position"] if p["contract"] == "LAX 2027-01-15 100 P")
+    assert (lax["expiry"], lax["cutoff"]) == ("2027-01-15", "2027-01-16T00:00:00+00:00")
 
 
 def test_an_atm_vol_beside_strike_vols_is_the_smile_point_at_the_spot(tmp_path: Path) -> None:

@@ -153,3 +153,13 @@ def test_moneyness_rule_word() -> None:
     assert "moneyness" in move.describe()
     with pytest.raises(MoveSyntaxError, match="twice"):
         parse_move("moneyness spot -1% moneyness")
+
+
+def test_describe_keeps_each_amount_as_typed() -> None:
+    """A move's words keep every digit typed: -99.9999999% is a legal move, -100% is not, so
+    the heading must not round one into the other."""
+    from blotter.scenario import parse_move
+
+    move = parse_move("spot -99.9999999% vol +2.5 days 3 rate +25bp")
+    assert move.describe() == "spot -99.9999999% vol +2.5 days 3 rate +25bp"
+    assert parse_move(move.describe()).spot[0].amount == move.spot[0].amount

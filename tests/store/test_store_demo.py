@@ -140,3 +140,12 @@ def test_an_existing_file_is_kept_unless_forced_and_a_demo_book(tmp_path: Path) 
     build_demo(path, force=True)
     with open_store(path, read_only=True) as s:
         assert len(s.load_book()) > 150
+
+
+def test_a_build_killed_midway_leaves_nothing_behind_the_next(tmp_path: Path) -> None:
+    """A ``demo --force`` killed mid-build leaves its half-built file; the next build of the same
+    book removes those of processes that are gone (no PID is above Linux's 2**22 limit)."""
+    for suffix in ("", "-wal", "-shm"):
+        (tmp_path / f".demo.db.999999999.building{suffix}").write_bytes(b"half")
+    build_demo(tmp_path / "demo.db")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo.db"]

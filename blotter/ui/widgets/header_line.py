@@ -25,6 +25,9 @@ class HeaderLine(Static):
         age = marks_age(state.marks_as_of, now, tz)
         text = Text()
         text.append(f"Book: {printable(state.book_name)}", style="bold")
+        if state.read_only:  # first, so a narrow terminal never cuts it off
+            text.append(" │ ")
+            text.append("READ-ONLY", style="bold reverse")
         text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
         when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
         marked = state.valuation.market.has_marks
@@ -39,9 +42,6 @@ class HeaderLine(Static):
             closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
             text.append(f" STALE: older than the {closed} close", style="bold reverse")
         text.append(f" │ {printable(Path(state.db_path).name)}")
-        if state.read_only:
-            text.append(" │ ")
-            text.append("READ-ONLY", style="bold reverse")
         for alert in alerts:
             text.append(" │ ")
             text.append(f"! {alert}", style="bold")
