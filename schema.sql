@@ -2,7 +2,7 @@
 --
 -- It is read in numbered sections. A new book runs every section in order; an older book runs
 -- the sections above its PRAGMA user_version, each in its own transaction together with the new
--- user_version (blotter/store.py). A section, once released, is never edited: a change to the
+-- user_version (blotter/store/db.py). A section, once released, is never edited: a change to the
 -- schema is a new section.
 --
 -- Conventions:

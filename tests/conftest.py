@@ -1,8 +1,8 @@
 """Fixtures shared by every test directory: a fresh copy of the demo book, and an empty book.
 
-``demo_db`` is built once per test session by ``blotter.demo.build_demo`` (the same contents as
-the shipped ``demo.db``; ``tests/store/test_store_demo.py`` checks that) and copied for each test,
-so a test may write to its copy freely. ``tmp_book`` is an empty book (schema only).
+``demo_db`` is built once per test session by ``blotter.store.demo.build_demo`` (the same
+contents as the shipped ``demo.db``; ``tests/store/test_store_demo.py`` checks that) and copied
+for each test, so a test may write to its copy freely. ``tmp_book`` is an empty book (schema only).
 ``as_other_user`` runs ``blotter`` where file permissions apply (see its docstring).
 """
 
@@ -18,8 +18,8 @@ from pathlib import Path
 
 import pytest
 
-from blotter.demo import build_demo
 from blotter.store import FILE_MODE, create_store
+from blotter.store.demo import build_demo
 
 
 @pytest.fixture(autouse=True)

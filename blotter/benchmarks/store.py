@@ -49,8 +49,8 @@ while True:
 
 def run(quick: bool) -> list[Result]:
     """The store cases on a temporary synthetic book (10k positions when ``quick``)."""
-    from blotter.demo import build_demo
     from blotter.store import open_store
+    from blotter.store.demo import build_demo
 
     n = 10_000 if quick else 100_000
     results: list[Result] = []

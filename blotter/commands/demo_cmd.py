@@ -47,8 +47,8 @@ def demo(
     demo.db.
     """
     from blotter.commands.common import read_only_source
-    from blotter.demo import DEMO_SEED, build_demo, describe
     from blotter.store import StoreError
+    from blotter.store.demo import DEMO_SEED, build_demo, describe
 
     if (source := read_only_source()) is not None:
         raise click.ClickException(

@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+from collections.abc import Iterator
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -34,9 +35,13 @@ def _eur(spot: float = 50.0) -> float:
 
 
 @pytest.fixture
-def two_currencies(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> str:
+def two_currencies(tmp_path: Path) -> Iterator[str]:
     """AAA in USD and BBB in EUR, fully marked, one option each, the same expiry."""
-    monkeypatch.setattr(store_mod, "_now", lambda: datetime(2026, 12, 1, 20, 30, tzinfo=UTC))
+    with store_mod.use_clock(lambda: datetime(2026, 12, 1, 20, 30, tzinfo=UTC)):
+        yield _two_currency_book(tmp_path)
+
+
+def _two_currency_book(tmp_path: Path) -> str:
     db = str(tmp_path / "fx.db")
     run("create", db, "--book", "desk")
     for sym, ccy, spot, vol, rate in (
@@ -88,9 +93,7 @@ def test_risk_totals_per_currency(two_currencies: str) -> None:
     assert "book currency" not in table and "$/pt" not in table.split("\n\n")[-1]
 
 
-def test_whatif_ladder_and_explain_never_add_currencies(
-    two_currencies: str, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_whatif_ladder_and_explain_never_add_currencies(two_currencies: str) -> None:
     moved = {"USD": _usd(97.0) - _usd(), "EUR": _eur(48.5) - _eur()}
     out = _json(two_currencies, "whatif", "spot -3%", "--at", T0)
     assert out["total"]["currency"] is None and out["total"]["full"] is None
@@ -111,8 +114,8 @@ def test_whatif_ladder_and_explain_never_add_currencies(
     assert {r["currency"]: float(r["full"]) for r in cells} == pytest.approx(moved, rel=1e-9)
     text = run("--db", two_currencies, "ladder", "--at", T0).stdout
     assert "worst cell in USD" in text and "worst cell in EUR" in text
-    monkeypatch.setattr(store_mod, "_now", lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC))
-    run("--db", two_currencies, "mark", "close")
+    with store_mod.use_clock(lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC)):
+        run("--db", two_currencies, "mark", "close")
     ex = _json(two_currencies, "explain", "--to", "now")
     assert ex["total"]["currency"] is None and ex["total"]["actual"] is None
     assert set(ex["total"]["by_currency"]) == {"USD", "EUR"}

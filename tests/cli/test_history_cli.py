@@ -47,11 +47,9 @@ def test_a_second_close_of_the_day_is_refused_and_corrected_by_date(demo_db: Pat
 def test_a_trade_booked_on_a_fast_clock_is_cancelled_from_the_command_line(
     demo_db: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    real = datetime.now
-    monkeypatch.setattr(st, "_now", lambda: real(UTC) + timedelta(hours=1))
-    with st.open_store(demo_db) as s:
+    fast = st.open_store(demo_db, clock=lambda: datetime.now(UTC) + timedelta(hours=1))
+    with fast as s:
         tid = s.add_trade("equity-vol", "DEMOA", 100, 180.0)
-    monkeypatch.undo()
     monkeypatch.setenv("BLOTTER_TZ", "America/New_York")
     db = str(demo_db)
     amend = run("trade", "amend", str(tid), "--price", "181", "--reason", "px", "--db", db, code=1)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+from collections.abc import Iterator
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -28,10 +29,14 @@ def _ql_call(spot: float) -> float:
 
 
 @pytest.fixture
-def half_marked(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> str:
+def half_marked(tmp_path: Path) -> Iterator[str]:
     """A book of two names: AAA fully marked, CCC with no mark at all; the store's clock reads
     half an hour after the trades, so a close written later falls well after their booking."""
-    monkeypatch.setattr(store_mod, "_now", lambda: datetime(2026, 12, 1, 20, 30, tzinfo=UTC))
+    with store_mod.use_clock(lambda: datetime(2026, 12, 1, 20, 30, tzinfo=UTC)):
+        yield _half_marked_book(tmp_path)
+
+
+def _half_marked_book(tmp_path: Path) -> str:
     db = str(tmp_path / "half.db")
     run("create", db, "--book", "desk")
     for sym in ("AAA", "CCC"):
@@ -86,8 +91,8 @@ def test_whatif_ladder_and_explain_value_the_rest(half_marked: str) -> None:
     assert lad["full"][0][0] == pytest.approx(change, rel=1e-9)
     _unvalued_is_ccc(lad)
     assert "of the valued positions" in run("--db", half_marked, "ladder", "--at", T0).stdout
-    with pytest.MonkeyPatch.context() as mp:  # the 16:00 New York close of 2026-12-01
-        mp.setattr(store_mod, "_now", lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC))
+    # the 16:00 New York close of 2026-12-01
+    with store_mod.use_clock(lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC)):
         run("--db", half_marked, "mark", "close")
     ex = json.loads(run("--db", half_marked, "explain", "--to", "now", "--json").stdout)
     assert [r["underlying"] for r in ex["by_underlying"]] == ["AAA"]

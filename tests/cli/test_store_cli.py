@@ -351,13 +351,13 @@ def test_mark_close_reports_the_count_of_the_set_it_wrote(
 
     from blotter.store import Store
 
-    original = Store._write
+    original = Store.atomic
     busy = {"done": False}
 
     @contextmanager
     def write_then_other_process_closes(self: Store):  # type: ignore[no-untyped-def]
-        with original(self) as conn:
-            yield conn
+        with original(self) as store:
+            yield store
         if not busy["done"] and self.path == demo_db:
             busy["done"] = True
             with open_store(demo_db) as other:
@@ -365,9 +365,9 @@ def test_mark_close_reports_the_count_of_the_set_it_wrote(
                 _day, ours = other.todays_close()  # a date closes once: the other corrects ours
                 other.commit_close(note="other process", corrects=ours)
 
-    monkeypatch.setattr(Store, "_write", write_then_other_process_closes)
+    monkeypatch.setattr(Store, "atomic", write_then_other_process_closes)
     out = json.loads(run("mark", "close", "--json", "--db", str(demo_db)).stdout)
-    monkeypatch.setattr(Store, "_write", original)
+    monkeypatch.setattr(Store, "atomic", original)
     with open_store(demo_db, read_only=True) as s:
         sets = {m.id: m.marks for m in s.mark_sets()}
         assert max(sets) != out["mark_set_id"]  # the other close came after ours
@@ -438,12 +438,15 @@ def test_read_only_refuses_the_demo_command(tmp_path: Path) -> None:
 def shipped(tmp_path: Path, demo_master: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     """A stand-in for the shipped demo file, alone in its own directory."""
     import blotter.store as st
+    from blotter.store import files
 
     d = tmp_path / "package"
     d.mkdir()
     path = d / "demo.db"
     path.write_bytes(demo_master.read_bytes())
+    # as the commands import it, and where the store looks for it when it opens a book
     monkeypatch.setattr(st, "shipped_demo_path", lambda: path)
+    monkeypatch.setattr(files, "shipped_demo_path", lambda: path)
     return path
 
 
@@ -580,18 +583,18 @@ def test_demo_force_refuses_a_book_written_to_while_it_built(
     tmp_path: Path, demo_db: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     """The book is looked at again just before the new one is renamed over it."""
-    import blotter.demo as demo_module
+    import blotter.store.demo as demo_module
 
     out = tmp_path / "demo.db"
     out.write_bytes(demo_db.read_bytes())
-    real_fill = demo_module._fill
+    real_fill = demo_module.fill_demo
 
     def fill_while_someone_trades(*args: object) -> None:
         with open_store(out) as other:
             other.add_trade("equity-vol", "DEMOA", 2, 1.0)
         real_fill(*args)  # type: ignore[arg-type]
 
-    monkeypatch.setattr(demo_module, "_fill", fill_while_someone_trades)
+    monkeypatch.setattr(demo_module, "fill_demo", fill_while_someone_trades)
     r = run("demo", "--out", str(out), "--force", code=1)
     assert "it holds 1 trades" in r.stderr
     assert sorted(p.name for p in tmp_path.iterdir()) == ["demo.db"]  # no half-built file left

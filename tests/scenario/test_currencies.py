@@ -147,10 +147,8 @@ def test_ladders_are_per_currency_and_one_ladder_refuses_two_currencies() -> Non
     assert [g.currency for g in ladders(one, (-4.0,), (0.0,))] == ["USD"]
 
 
-def test_explain_totals_each_currency_apart(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    st, clock = clocked_store(tmp_path, monkeypatch)
+def test_explain_totals_each_currency_apart(tmp_path: Path) -> None:
+    st, clock = clocked_store(tmp_path)
     st.add_underlying("USX", "stock", "USD", 100.0, american=False, div_yield=0.02)
     st.add_underlying("EUX", "stock", "EUR", 100.0, american=False, div_yield=0.01)
     for ccy, r in RATE.items():

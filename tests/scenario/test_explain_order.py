@@ -18,7 +18,6 @@ from typing import Any
 
 import pytest
 
-from blotter import store as store_mod
 from blotter.scenario import explain
 from blotter.store import StoreError, create_store
 
@@ -40,16 +39,18 @@ def _value(strike: float, close: int) -> float:
 
 
 class Clock:
-    """The store's clock (``store._now``), set by the test."""
+    """The store's clock (its ``clock``), set by the test."""
 
-    def __init__(self, monkeypatch: pytest.MonkeyPatch) -> None:
+    def __init__(self) -> None:
         self.now = T0 - timedelta(hours=6)
-        monkeypatch.setattr(store_mod, "_now", lambda: self.now)
+
+    def __call__(self) -> datetime:
+        return self.now
 
 
 def _book(tmp_path: Path, clock: Clock) -> Any:
     """A book long ten 100 calls before the Monday close, with marks and that close written."""
-    st = create_store(tmp_path / "book.sqlite")
+    st = create_store(tmp_path / "book.sqlite", clock=clock)
     st.add_underlying("STKX", "stock", "USD", 100.0, american=False, div_yield=DIV)
     for tenor in (1, 3650):
         st.log_rate("USD", tenor, RATE)
@@ -106,11 +107,11 @@ def _check_new_then_held(st: Any) -> None:
     ids=["same-second", "fast-terminal"],
 )
 def test_a_trade_written_before_a_close_is_in_it_whatever_its_clock_said(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, booked: datetime
+    tmp_path: Path, booked: datetime
 ) -> None:
     """The new 105 call is written to the store before the Tuesday close; its own times (kept as
     its terminal's clock gave them) may read the same second as the close or after it."""
-    clock = Clock(monkeypatch)
+    clock = Clock()
     st = _book(tmp_path, clock)
     clock.now = booked
     st.add_trade("main", "STKX", 2, PRICE, EXPIRY, 105.0, True)
@@ -122,11 +123,11 @@ def test_a_trade_written_before_a_close_is_in_it_whatever_its_clock_said(
 
 
 def test_a_second_close_of_the_day_is_refused_and_a_correction_stands_in_its_place(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    tmp_path: Path
 ) -> None:
     """A second Tuesday close is refused (two equal sets gave a default explain of no P&L); the
     correction of Tuesday's close is explained from Monday's, also when the original is named."""
-    clock = Clock(monkeypatch)
+    clock = Clock()
     st = _book(tmp_path, clock)
     _close(st, clock, T1, 1)
     sets_before = len(st.mark_sets())
@@ -150,12 +151,12 @@ def test_a_second_close_of_the_day_is_refused_and_a_correction_stands_in_its_pla
 
 
 def test_a_late_booking_keeps_its_pnl_from_the_trade_price(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    tmp_path: Path
 ) -> None:
     """A 105 call dealt on Tuesday before the close but written after it (a terminal two hours
     slow) is a late booking of the Tuesday→Wednesday period: its P&L from the trade price to the
     Tuesday marks is in that period's new trades, the rest in actual, so none of it is lost."""
-    clock = Clock(monkeypatch)
+    clock = Clock()
     st = _book(tmp_path, clock)
     _close(st, clock, T1, 1)
     clock.now = T1 + timedelta(minutes=5) - timedelta(hours=2)  # the slow terminal's clock
@@ -173,12 +174,12 @@ def test_a_late_booking_keeps_its_pnl_from_the_trade_price(
 
 
 def test_a_cancel_takes_back_the_pnl_reported_before_the_start(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    tmp_path: Path
 ) -> None:
     """The ten 100 calls, held at the Tuesday close, are cancelled on Wednesday: that period
     takes back their P&L from the trade price to the Tuesday marks (reported up to Tuesday), so
     the cancelled trade adds up to nothing over all periods."""
-    clock = Clock(monkeypatch)
+    clock = Clock()
     st = _book(tmp_path, clock)
     _close(st, clock, T1, 1)
     clock.now = T1 + timedelta(hours=16)

@@ -16,7 +16,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from blotter import store as store_mod
 from blotter.scenario import explain
 from blotter.store import create_store
 
@@ -34,10 +33,9 @@ def _price(call: bool, strike: float, spot: float, days: int, vol: float) -> flo
 
 
 @pytest.fixture
-def period_store(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[object, dict[str, int]]:
+def period_store(tmp_path: Path) -> tuple[object, dict[str, int]]:
     clock = {"now": T0.replace(hour=15)}
-    monkeypatch.setattr(store_mod, "_now", lambda: clock["now"])
-    st = create_store(tmp_path / "book.sqlite")
+    st = create_store(tmp_path / "book.sqlite", clock=lambda: clock["now"])
     st.add_underlying("STKX", "stock", "USD", 100.0, american=False, div_yield=DIV)
     for tenor in (1, 3650):
         st.log_rate("USD", tenor, RATE)
@@ -151,15 +149,12 @@ def test_cli_shows_corrections_on_their_own_line(
     assert sorted(out["corrected_trades"]) == sorted([ids["cancelled"], ids["amended"]])
 
 
-def test_explain_values_a_zoned_expiry_at_the_vol_marked_for_its_date(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_explain_values_a_zoned_expiry_at_the_vol_marked_for_its_date(tmp_path: Path) -> None:
     """A Sydney 10:00 cut-off is the evening before in UTC and in New York: the positions held
     over the period keep their expiry date, so both closes value the option at the vol marked
     for that date (30%, then 32%), and the vega term uses that 2-point change."""
     clock = {"now": T0.replace(hour=15)}
-    monkeypatch.setattr(store_mod, "_now", lambda: clock["now"])
-    st = create_store(tmp_path / "syd.sqlite")
+    st = create_store(tmp_path / "syd.sqlite", clock=lambda: clock["now"])
     st.add_underlying("SYDX", "stock", "USD", 100.0, american=False, time_zone="Australia/Sydney",
                       cutoff_time="10:00")
     st.log_rate("USD", 365, RATE)

@@ -16,7 +16,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from blotter import store as store_mod
 from blotter.book import Underlyings
 from blotter.market import Market
 from blotter.risk import missing_marks, total, value_book
@@ -132,21 +131,18 @@ T_END = datetime(2026, 11, 24, 21, 0, tzinfo=UTC)
 EXPIRY = "2027-01-15"  # 16:00 New York = 21:00 UTC: 53 days after the start, 52 after the end
 
 
-def clocked_store(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> tuple[Store, dict[str, datetime]]:
+def clocked_store(tmp_path: Path) -> tuple[Store, dict[str, datetime]]:
     """A new store whose clock reads ``clock["now"]`` (set to the start day, 15:00 UTC)."""
     clock = {"now": T_START.replace(hour=15)}
-    monkeypatch.setattr(store_mod, "_now", lambda: clock["now"])
-    return create_store(tmp_path / "book.sqlite"), clock
+    return create_store(tmp_path / "book.sqlite", clock=lambda: clock["now"]), clock
 
 
 def test_explain_values_what_both_closes_can_and_lists_the_rest(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+    tmp_path: Path,
 ) -> None:
     """A name added after the start close has no mark in it: explain values the other name and
     lists the newcomer with the set that lacks its marks."""
-    st, clock = clocked_store(tmp_path, monkeypatch)
+    st, clock = clocked_store(tmp_path)
     st.add_underlying("STKX", "stock", "USD", 100.0, american=False, div_yield=0.02)
     for tenor in (1, 3650):
         st.log_rate("USD", tenor, 0.04)

@@ -62,10 +62,10 @@ def trade_csv(path: Path, n: int, bad_line: int | None = None, symbol: str = "TS
 
 def _mark_logger(db: str, writer: str, n: str, begin: str) -> None:
     """Log ``n`` spot marks, reading the market before each write; print errors, then 'done'."""
-    from blotter.store import Store, StoreError, open_store
+    from blotter.store import StoreError, core, open_store
 
     if begin != "immediate":
-        Store._BEGIN = "BEGIN"  # the control: a plain deferred transaction
+        core.BEGIN_WRITE = "BEGIN"  # the control: a plain deferred transaction
     store = open_store(db)
     errors = 0
     for seq in range(int(n)):
@@ -180,8 +180,9 @@ def _migrate_paused(db: str) -> None:
     import sqlite3
 
     import blotter.store as st
+    from blotter.store import db as store_db
 
-    real = st._connect
+    real = store_db.connect
 
     def traced(*args: object, **kw: object) -> sqlite3.Connection:
         conn = real(*args, **kw)  # type: ignore[arg-type]
@@ -194,7 +195,7 @@ def _migrate_paused(db: str) -> None:
         conn.set_trace_callback(trace)
         return conn
 
-    st._connect = traced  # type: ignore[assignment]
+    store_db.connect = traced  # type: ignore[assignment]
     st.open_store(db)
     print("migrated", flush=True)
 

@@ -233,21 +233,20 @@ def test_every_public_write_leaves_no_transaction_open(store: Store, tmp_path: P
         assert not store.connection.in_transaction
 
 
-def test_busy_database_fails_clearly_and_keeps_nothing(store: Store, tmp_book: Path) -> None:
+def test_busy_database_fails_clearly_and_keeps_nothing(
+    store: Store, tmp_book: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     """RELIABILITY 9 (in one process): another connection holds the write lock past the timeout."""
-    import blotter.store as st
+    from blotter.store import BusyError, db
 
-    holder = st._connect(tmp_book, read_only=False)
+    holder = db.connect(tmp_book, read_only=False)
     holder.execute("BEGIN IMMEDIATE")
-    old = st.BUSY_TIMEOUT_MS
-    st.BUSY_TIMEOUT_MS = 300
-    try:
+    with monkeypatch.context() as patched:
+        patched.setattr(db, "BUSY_TIMEOUT_MS", 300)  # read as each connection is made
         quick = open_store(tmp_book)
-    finally:
-        st.BUSY_TIMEOUT_MS = old
     try:
         before = quick.load_market().version
-        with pytest.raises(st.BusyError, match="busy"):
+        with pytest.raises(BusyError, match="busy"):
             quick.log_spot("TSTA", 50.0)
         assert not quick.in_transaction()
         holder.execute("ROLLBACK")

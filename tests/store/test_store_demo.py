@@ -10,8 +10,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from blotter.demo import DEMO_AS_OF, build_demo, demo_close_times
 from blotter.store import StoreError, open_store, shipped_demo_path
+from blotter.store.demo import DEMO_AS_OF, build_demo, demo_close_times
 
 
 def _contents(path: Path) -> list[object]:

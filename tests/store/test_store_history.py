@@ -33,32 +33,26 @@ def store(tmp_book: Path) -> Iterator[Store]:
     s.close()
 
 
-def _fast_terminal(monkeypatch: pytest.MonkeyPatch, ahead: timedelta) -> None:
-    real = datetime.now
-    monkeypatch.setattr(st, "_now", lambda: real(UTC) + ahead)
+def _fast_terminal(ahead: timedelta) -> st.Clock:
+    """The clock of a terminal running ``ahead`` of the right time."""
+    return lambda: datetime.now(UTC) + ahead
 
 
-def test_a_trade_from_a_terminal_an_hour_fast_can_be_cancelled_at_once(
-    store: Store, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    _fast_terminal(monkeypatch, timedelta(hours=1))
-    tid = store.add_trade("main", "TSTA", 5, 2.0, EXPIRY, 100, True)
-    monkeypatch.undo()  # this terminal's clock is right
-    store.cancel_trade(tid, "booked in error")
+def test_a_trade_from_a_terminal_an_hour_fast_can_be_cancelled_at_once(store: Store) -> None:
+    with st.use_clock(_fast_terminal(timedelta(hours=1))):
+        tid = store.add_trade("main", "TSTA", 5, 2.0, EXPIRY, 100, True)
+    store.cancel_trade(tid, "booked in error")  # this terminal's clock is right
     t = store.trades()[0]
     assert t.state == "cancelled" and len(store.load_book()) == 0
     assert t.cancelled_at is not None and t.cancelled_at < t.booked_at  # both clocks kept
     assert t.cancel_seq is not None and t.cancel_seq > t.seq  # the store's order: cancel after
 
 
-def test_amending_a_fast_terminals_trade_asks_for_the_deal_time(
-    store: Store, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_amending_a_fast_terminals_trade_asks_for_the_deal_time(store: Store) -> None:
     """The replacement is booked on this terminal's clock, before the deal time the fast clock
     recorded: refused in words naming both clocks, nothing written; with a deal time it goes."""
-    _fast_terminal(monkeypatch, timedelta(hours=1))
-    tid = store.add_trade("main", "TSTA", 5, 2.0, EXPIRY, 100, True)
-    monkeypatch.undo()
+    with st.use_clock(_fast_terminal(timedelta(hours=1))):
+        tid = store.add_trade("main", "TSTA", 5, 2.0, EXPIRY, 100, True)
     before = store.trades()
     with pytest.raises(StoreError, match="one of the two clocks is wrong") as refused:
         store.amend_trade(tid, reason="price", price=2.1)
@@ -69,13 +63,10 @@ def test_amending_a_fast_terminals_trade_asks_for_the_deal_time(
     assert {t.trade_id: t.state for t in store.trades()} == {tid: "amended", new: "live"}
 
 
-def test_the_store_numbers_every_history_row_in_the_order_it_was_written(
-    store: Store, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_the_store_numbers_every_history_row_in_the_order_it_was_written(store: Store) -> None:
     a = store.add_trade("main", "TSTA", 1, 2.0, EXPIRY, 100, True)
-    _fast_terminal(monkeypatch, timedelta(hours=2))
-    b = store.add_trade("main", "TSTA", 2, 2.0, EXPIRY, 100, True)
-    monkeypatch.undo()
+    with st.use_clock(_fast_terminal(timedelta(hours=2))):
+        b = store.add_trade("main", "TSTA", 2, 2.0, EXPIRY, 100, True)
     close = store.commit_close_info()
     store.cancel_trade(a, "test")
     rows = {t.trade_id: t for t in store.trades()}

@@ -173,9 +173,9 @@ def test_a_writer_held_off_past_the_timeout_fails_cleanly(
 ) -> None:
     """RELIABILITY 9 across processes: another process holds BEGIN IMMEDIATE; we get BusyError,
     nothing changes, and the same write succeeds once the lock is released."""
-    import blotter.store as st
+    from blotter.store import db
 
-    monkeypatch.setattr(st, "BUSY_TIMEOUT_MS", 200)
+    monkeypatch.setattr(db, "BUSY_TIMEOUT_MS", 200)  # read as each connection is made
     s: Store = open_store(book)
     before = s.load_market().version
     holder = spawn("hold_lock", str(book), "1.5")

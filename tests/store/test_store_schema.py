@@ -269,7 +269,7 @@ def test_a_migrated_old_book_equals_a_fresh_one(tmp_path: Path, tmp_book: Path) 
 
 
 def test_the_frozen_first_section_is_still_the_first_section_of_schema_sql() -> None:
-    frozen = st._split_statements(V1_SQL.read_text(encoding="utf-8").split("\n", 3)[3])
+    frozen = st.db.split_statements(V1_SQL.read_text(encoding="utf-8").split("\n", 3)[3])
     assert st.schema_sections()[1] == frozen
 
 

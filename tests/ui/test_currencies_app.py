@@ -26,13 +26,12 @@ def shown(cell: Any) -> float:
 
 
 @pytest.fixture
-def two_currencies(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
+def two_currencies(tmp_path: Path) -> Path:
     """AAA in USD and BBB in EUR, fully marked, an option on each and a BBB hedge, all entered
     before the 2026-11-30 close, which is committed."""
     clock = {"now": datetime(2026, 11, 30, 20, 30, tzinfo=UTC)}
-    monkeypatch.setattr(store, "_now", lambda: clock["now"])
     path = tmp_path / "fx.db"
-    st = store.create_store(path)
+    st = store.create_store(path, clock=lambda: clock["now"])
     try:
         for sym, ccy, spot, vol, rate in (
             ("AAA", "USD", 100.0, 0.25, 0.04),

@@ -246,7 +246,7 @@ async def test_a_close_when_the_date_is_closed_is_reviewed_and_written_as_its_co
 async def test_a_busy_file_refuses_the_close_and_nothing_typed_is_lost(
     demo_db: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    monkeypatch.setattr(store, "BUSY_TIMEOUT_MS", 50)
+    monkeypatch.setattr(store.db, "BUSY_TIMEOUT_MS", 50)
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         screen = await open_marks(app, pilot)

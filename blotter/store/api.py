@@ -1,0 +1,119 @@
+"""Opening a book: ``open_store`` and ``create_store`` give a ``Store``, the one object every
+caller reads and writes a book through."""
+
+from __future__ import annotations
+
+import os
+import sqlite3
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+from blotter import calendar as cal
+from blotter.store import db
+from blotter.store.errors import (
+    NotWritableError,
+    SchemaUpgradeNeeded,
+    StoreError,
+    not_writable,
+    sql_error,
+)
+from blotter.store.files import check_book_path, create_empty, is_shipped_demo
+from blotter.store.imports import Imports
+from blotter.store.times import Clock
+
+
+class Store(Imports):
+    """An open book. Each thread that calls it uses its own connection; ``close()`` closes all.
+
+    Reads run as one short read transaction each, so a viewer never pins a snapshot; writes run
+    in ``atomic()`` transactions (``BEGIN IMMEDIATE``), which a caller may widen to group
+    writes. ``path`` is the book file; ``read_only`` refuses writes. What it holds is read and
+    written by concern: reference data (``blotter.store.reference``), contracts
+    (``contracts``), trades (``trades``), marks (``marks``) and CSV imports (``imports``).
+    """
+
+
+def open_store(
+    path: str | os.PathLike[str],
+    read_only: bool = False,
+    create: bool = False,
+    verify: bool = True,
+    desk_tz: ZoneInfo | None = None,
+    clock: Clock | None = None,
+) -> Store:
+    """Open the book at ``path``; never creates one unless ``create`` (then see ``create_store``).
+
+    ``read_only`` opens by URI ``mode=ro`` with ``query_only`` and no ATTACH. An older schema is
+    migrated on a read-write open. ``verify`` checks the file first (``integrity_problems``,
+    once per file state in a process). Closes are dated in the book's own desk zone
+    (``book_zone``); ``desk_tz`` (the ``desk_tz`` setting; New York when None) is the zone an
+    upgrade gives a book that has none yet. ``clock`` is the store's clock for the times it
+    writes (None: the process's, ``use_clock``). Raises ``StoreError`` with a plain message
+    for a missing, empty, foreign, damaged or special file; ``NotWritableError`` when a
+    read-write open meets a book this user cannot write.
+    """
+    p = Path(path)
+    zone = desk_tz or cal.desk_tz()
+    exists = check_book_path(p)
+    if create and not exists:
+        return create_store(p, desk_tz=zone, clock=clock)
+    if not exists:
+        raise StoreError(
+            f"no book at {p} (check the path, or make one with `blotter demo --out {p}`)"
+        )
+    if not read_only and (why := not_writable(p)) is not None:
+        raise NotWritableError(why)
+    mode = db.IMMUTABLE if read_only and is_shipped_demo(p) else None
+    try:
+        conn = db.connect(p, read_only, mode)
+    except sqlite3.Error as exc:
+        if "not a database" in str(exc):
+            raise StoreError(f"{p} is not a blotter book (SQLite: {exc})") from None
+        if read_only:
+            raise StoreError(
+                f"cannot open {p} read-only ({exc}): the file and its -wal/-shm files "
+                "must be readable, or the directory writable"
+            ) from None
+        raise sql_error(exc, p) from None
+    try:
+        version = db.open_checks(conn, p, verify)
+        if version < db.SCHEMA_VERSION:
+            if read_only:
+                raise SchemaUpgradeNeeded(
+                    f"{p} uses an older schema ({version}); open it once without "
+                    "--read-only to upgrade it",
+                    version,
+                )
+            db.migrate(conn, zone)
+        if not read_only and db.scalar(conn, "PRAGMA journal_mode") != "wal":
+            conn.execute("PRAGMA journal_mode = WAL")
+        zone = db.book_zone(conn, p)
+    except sqlite3.Error as exc:
+        conn.close()
+        raise sql_error(exc, p) from None
+    except BaseException:
+        conn.close()
+        raise
+    return Store(p, read_only, conn, mode, desk_tz=zone, clock=clock)
+
+
+def create_store(
+    path: str | os.PathLike[str], desk_tz: ZoneInfo | None = None, clock: Clock | None = None
+) -> Store:
+    """A new, empty book at ``path`` (refused if anything is there): schema applied, WAL mode;
+    ``desk_tz`` dates its closes (New York when None), ``clock`` as for ``open_store``.
+
+    The file is created with mode ``FILE_MODE`` (0o660) less the umask, so it is never readable
+    or writable by other users; SQLite gives its -wal and -shm files the same permissions.
+    """
+    p = Path(path)
+    zone = desk_tz or cal.desk_tz()
+    create_empty(p)
+    with db.removed_on_failure(p):
+        conn = db.connect(p, read_only=False)
+        try:
+            db.apply_schema(conn, zone)
+        except BaseException:
+            conn.close()
+            raise
+    return Store(p, False, conn, desk_tz=zone, clock=clock)

@@ -1,0 +1,533 @@
+"""Marks: points logged one by one or in sets, the close sets a desk writes once a business date
+(and their corrections), and the market they make.
+
+A mark set is written whole in one transaction (``mark_count`` and a trigger keep it whole). The
+marks in force are the latest value of each point across every set but corrections; a close set
+copies the marks in force when it is written, so any earlier close can be recalled exactly.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+from collections.abc import Callable, Sequence
+from datetime import date, datetime
+
+import numpy as np
+
+from blotter.market import Market, RateCurve, VolSurface
+from blotter.store import db
+from blotter.store.checks import check_id, check_mark_point
+from blotter.store.core import guard_damage
+from blotter.store.errors import StoreError
+from blotter.store.records import MarkPoint, MarkRecord, MarkSetInfo, StoredPoint
+from blotter.store.reference import ReferenceData, underlying_ids, underlying_terms
+from blotter.store.times import (
+    EPOCH,
+    business_date,
+    from_timestamp,
+    is_iso_date,
+    parse_date,
+    parse_time,
+    timestamp_text,
+)
+
+POINT_COLUMNS = ("kind", "underlying_id", "currency", "expiry", "strike", "tenor_days", "value")
+"""Columns of a mark point as stored (the underlying by its id)."""
+
+MARK_ROW_COLUMNS = ("mark_set_id", "seq", *POINT_COLUMNS)
+"""Columns of a mark's row, as the store writes them (ids are SQLite's)."""
+
+INSERT_CHUNK = 1000
+"""Points written between two calls of a mark set's ``progress`` callback."""
+
+_IN_FORCE_SQL = """
+    SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
+           m.tenor_days, m.value
+    FROM mark m JOIN (
+        SELECT max(m2.mark_id) AS mark_id FROM mark m2
+        JOIN mark_set s ON s.mark_set_id = m2.mark_set_id
+        {where}
+        GROUP BY m2.kind, m2.underlying_id, m2.currency, m2.expiry, m2.strike, m2.tenor_days
+    ) latest ON latest.mark_id = m.mark_id
+    ORDER BY m.kind, m.underlying_id, m.currency, m.expiry, m.strike, m.tenor_days
+"""
+
+_IN_FORCE_WHERE = "WHERE s.corrects IS NULL"
+"""Sets that make the marks in force: every set but corrections. A correction holds its close's
+points overlaid with points logged since, all of which are in force by their own rows (or,
+for an older close, superseded by later marks), so leaving it out changes nothing for the
+latest close and keeps a correction of an older day from rolling today's marks back."""
+
+
+def write_mark_set(
+    conn: sqlite3.Connection,
+    kind: str,
+    points: Sequence[StoredPoint],
+    *,
+    marked_at: datetime,
+    who: str,
+    note: str = "",
+    source: str = "typed",
+    corrects: int | None = None,
+    day: date | None = None,
+    progress: Callable[[int], None] | None = None,
+) -> tuple[int, int]:
+    """Write one mark set of ``points`` (checked already) in the transaction ``conn`` has open;
+    returns (set id, id of its last mark). ``progress(points_written)`` is called between
+    chunks of ``INSERT_CHUNK`` points."""
+    cur = conn.execute(
+        "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count, "
+        "business_date) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+        (
+            kind,
+            timestamp_text(marked_at),
+            who,
+            note,
+            source,
+            corrects,
+            len(points),
+            day.isoformat() if day else None,
+        ),
+    )
+    set_id = int(cur.lastrowid or 0)
+    for start in range(0, len(points), INSERT_CHUNK):
+        chunk = points[start : start + INSERT_CHUNK]
+        rows = [(set_id, start + j + 1, *p) for j, p in enumerate(chunk)]
+        db.insert_rows(conn, "mark", MARK_ROW_COLUMNS, rows)
+        if progress is not None and start + len(chunk) < len(points):
+            progress(start + len(chunk))
+    last = db.scalar(conn, "SELECT max(mark_id) FROM mark WHERE mark_set_id = ?", (set_id,))
+    return set_id, int(last or 0)
+
+
+class Marks(ReferenceData):
+    """The marks of a book: logged points, mark sets, closes and the market they make."""
+
+    # ---- writing marks
+
+    def add_mark_set(
+        self,
+        kind: str,
+        points: Sequence[MarkPoint],
+        *,
+        note: str = "",
+        source: str = "typed",
+        marked_at: datetime | None = None,
+        who: str | None = None,
+    ) -> int:
+        """Write ``points`` as one mark set of ``kind`` ('intraday' or 'close') and return its id.
+
+        Every point is checked first, then written whole or not at all. A close set closes the
+        business date of ``marked_at`` (a date closes once; a correction goes through
+        ``commit_close``). ``marked_at`` and ``who`` default to now and the OS user (a
+        generated book sets them).
+        """
+        return self._write_points(kind, points, note, source, marked_at, who)[0]
+
+    def _write_points(
+        self,
+        kind: str,
+        points: Sequence[MarkPoint],
+        note: str | None,
+        source: str,
+        marked_at: datetime | None,
+        who: str | None,
+    ) -> tuple[int, int]:
+        """Check ``points``, then write them as one set; returns (set id, its last mark's id)."""
+        if kind not in ("close", "intraday"):
+            raise StoreError(f"mark set kind must be 'close' or 'intraday', got {kind!r}")
+        if not points:
+            raise StoreError("a mark set holds at least one point")
+        checked = [
+            (
+                p.kind,
+                p.symbol,
+                *check_mark_point(
+                    p.kind,
+                    p.symbol is not None,
+                    p.currency,
+                    p.expiry,
+                    p.strike,
+                    p.tenor_days,
+                    p.value,
+                ),
+            )
+            for p in points
+        ]
+        with self._write() as conn:
+            when = marked_at or self.now()
+            day = business_date(when, self.desk_tz) if kind == "close" else None
+            if day is not None:
+                self._refuse_second_close(conn, day)
+            ids = underlying_ids(conn) if len(checked) > 1 else {}
+            stored: list[StoredPoint] = []
+            for k, symbol, ccy, expiry, strike, tenor, value in checked:
+                uid = None
+                if symbol is not None:
+                    uid = ids.get(symbol) or int(underlying_terms(conn, symbol)["underlying_id"])
+                stored.append((k, uid, ccy, expiry, strike, tenor, value))
+            return write_mark_set(
+                conn,
+                kind,
+                stored,
+                marked_at=when,
+                who=who or self.who,
+                note=note or "",
+                source=source,
+                day=day,
+            )
+
+    def log_spot(self, symbol: str, price: float, note: str | None = None) -> int:
+        """Log a spot mark (price per unit, within ``limits.LEVEL``) as its own intraday set;
+        returns the mark id."""
+        return self._log(MarkPoint("spot", price, symbol=symbol), note)
+
+    def log_vol(
+        self,
+        symbol: str,
+        expiry: date | str,
+        vol: float,
+        strike: float | None = None,
+        note: str | None = None,
+    ) -> int:
+        """Log an implied vol (decimal, 0 < vol <= 10) at an expiry and strike (None = ATM)."""
+        return self._log(MarkPoint("vol", vol, symbol=symbol, expiry=expiry, strike=strike), note)
+
+    def log_rate(self, currency: str, tenor_days: int, rate: float, note: str | None = None) -> int:
+        """Log a continuously compounded zero rate (decimal) of ``currency`` at ``tenor_days``."""
+        return self._log(MarkPoint("rate", rate, currency=currency, tenor_days=tenor_days), note)
+
+    def log_div_yield(self, symbol: str, q: float, note: str | None = None) -> int:
+        """Log a dividend yield (decimal; foreign rate for fx), overriding the default."""
+        return self._log(MarkPoint("div_yield", q, symbol=symbol), note)
+
+    def _log(self, point: MarkPoint, note: str | None) -> int:
+        """One point as its own intraday set; returns its mark id."""
+        return self._write_points("intraday", [point], note, "typed", None, None)[1]
+
+    # ---- reading marks
+
+    def _mark_rows(
+        self, conn: sqlite3.Connection, mark_set_id: int | None, as_of: datetime | None
+    ) -> list[sqlite3.Row]:
+        """The points of set ``mark_set_id``, or those in force (at ``as_of`` or now)."""
+        if mark_set_id is not None:
+            mark_set_id = check_id(mark_set_id, "mark set id")
+            if db.one(conn, "SELECT 1 FROM mark_set WHERE mark_set_id = ?", (mark_set_id,)) is None:
+                raise StoreError(f"no mark set {mark_set_id}")
+            return db.rows(
+                conn,
+                "SELECT mark_id, mark_set_id, kind, underlying_id, currency, expiry, strike, "
+                "tenor_days, value FROM mark WHERE mark_set_id = ? ORDER BY seq",
+                (mark_set_id,),
+            )
+        if as_of is None:
+            return db.rows(conn, _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE))
+        return db.rows(
+            conn,
+            _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE + " AND s.marked_at <= ?"),
+            (timestamp_text(parse_time(as_of)),),
+        )
+
+    @guard_damage
+    def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
+        """The marks in force (latest value of each point across sets, at ``as_of`` or now), or
+        exactly the set ``mark_set_id`` as recorded.
+
+        ``version`` is the newest mark id used (0 when there are none), ``marks_as_of`` the
+        newest set's time (1970-01-01 UTC when there are none).
+        """
+        if mark_set_id is not None and as_of is not None:
+            raise ValueError("give mark_set_id or as_of, not both")
+        with self._read() as conn:
+            rows = self._mark_rows(conn, mark_set_id, as_of)
+            symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
+            set_ids = sorted({r["mark_set_id"] for r in rows})
+            sets: dict[int, sqlite3.Row] = {}
+            if set_ids:
+                sql = "SELECT mark_set_id, kind, marked_at FROM mark_set"
+                few = len(set_ids) < 900
+                if few:
+                    sql += f" WHERE mark_set_id IN ({','.join('?' * len(set_ids))})"
+                sets = {s["mark_set_id"]: s for s in db.rows(conn, sql, set_ids if few else ())}
+        spots: dict[str, float] = {}
+        divs: dict[str, float] = {}
+        vols: dict[str, list[tuple[str, float, float]]] = {}
+        rates: dict[str, list[tuple[int, float]]] = {}
+        for r in rows:
+            kind, value = r["kind"], r["value"]
+            if kind == "spot":
+                spots[symbols[r["underlying_id"]]] = value
+            elif kind == "div_yield":
+                divs[symbols[r["underlying_id"]]] = value
+            elif kind == "vol":
+                strike = np.nan if r["strike"] is None else r["strike"]
+                vols.setdefault(symbols[r["underlying_id"]], []).append(
+                    (r["expiry"], strike, value)
+                )
+            else:
+                rates.setdefault(r["currency"], []).append((r["tenor_days"], value))
+        surfaces = {}
+        for sym, pts in vols.items():
+            pts.sort(key=lambda p: (p[0], -np.inf if np.isnan(p[1]) else p[1]))
+            surfaces[sym] = VolSurface(
+                expiries=np.array([p[0] for p in pts], dtype="datetime64[D]"),
+                strikes=np.array([p[1] for p in pts], dtype=np.float64),
+                vols=np.array([p[2] for p in pts], dtype=np.float64),
+                atm_strike=spots.get(sym, np.nan),
+            )
+        curves = {
+            ccy: RateCurve(
+                tenor_days=np.array([p[0] for p in pts], dtype=np.float64),
+                zero_rates=np.array([p[1] for p in pts], dtype=np.float64),
+            )
+            for ccy, pts in rates.items()
+        }
+        version = max((r["mark_id"] for r in rows), default=0)
+        newest = max((sets[s]["marked_at"] for s in set_ids), default=None)
+        if mark_set_id is not None:
+            set_id = int(mark_set_id)
+            kind = sets[set_id]["kind"] if set_ids else "intraday"
+        elif len(set_ids) == 1:
+            set_id, kind = set_ids[0], sets[set_ids[0]]["kind"]
+        else:
+            set_id, kind = None, "intraday"
+        return Market(
+            version=int(version),
+            marks_as_of=from_timestamp(newest) if newest else EPOCH,
+            spots=spots,
+            surfaces=surfaces,
+            curves=curves,
+            div_yields=divs,
+            mark_set_id=set_id,
+            mark_kind=kind,
+        )
+
+    @guard_damage
+    def marks(
+        self, mark_set_id: int | None = None, as_of: datetime | None = None
+    ) -> list[MarkRecord]:
+        """Mark points: those in force (at ``as_of`` or now), or exactly the set ``mark_set_id``."""
+        with self._read() as conn:
+            rows = self._mark_rows(conn, mark_set_id, as_of)
+            symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
+            sets = {
+                s["mark_set_id"]: s
+                for s in db.rows(conn, "SELECT mark_set_id, kind, marked_at, who FROM mark_set")
+            }
+        return [
+            MarkRecord(
+                mark_id=r["mark_id"],
+                mark_set_id=r["mark_set_id"],
+                set_kind=sets[r["mark_set_id"]]["kind"],
+                marked_at=from_timestamp(sets[r["mark_set_id"]]["marked_at"]),
+                who=sets[r["mark_set_id"]]["who"],
+                kind=r["kind"],
+                symbol=symbols.get(r["underlying_id"]) if r["underlying_id"] is not None else None,
+                currency=r["currency"],
+                expiry=date.fromisoformat(r["expiry"]) if r["expiry"] else None,
+                strike=r["strike"],
+                tenor_days=r["tenor_days"],
+                value=r["value"],
+            )
+            for r in rows
+        ]
+
+    # ---- closes
+
+    def commit_close(
+        self,
+        note: str | None = None,
+        corrects: int | str | date | None = None,
+        marked_at: datetime | None = None,
+        who: str | None = None,
+        source: str = "close",
+    ) -> int:
+        """Write the marks in force now as one immutable close set; returns its id.
+
+        The set closes the business date of ``marked_at`` (``business_date``); a date closes
+        once, and a second close for it is refused unless it is a correction. ``corrects`` names
+        the close it replaces (it stays on record), by set id or by business date (the close in
+        force for that date); the correction closes the same date and holds that set's own points
+        overlaid with the intraday points logged since the newest close set (log the fixed
+        points, then commit the correction). Corrections are left out of the marks in force, so
+        correcting an older day leaves today's marks as they are. ``marked_at`` and ``who``
+        default to now and the OS user (the demo sets them). ``commit_close_info`` takes the same
+        arguments and returns the set's record.
+        """
+        return self.commit_close_info(note, corrects, marked_at, who, source).id
+
+    def commit_close_info(
+        self,
+        note: str | None = None,
+        corrects: int | str | date | None = None,
+        marked_at: datetime | None = None,
+        who: str | None = None,
+        source: str = "close",
+    ) -> MarkSetInfo:
+        """As ``commit_close``, returning the record of the set written (its id, time and mark
+        count as committed), read in the same transaction so no later commit can be mistaken
+        for it."""
+        when = marked_at or self.now()
+        with self._write() as conn:
+            if corrects is not None:
+                corrects, day = self._close_to_correct(conn, corrects)
+                # the corrected set's own points, overlaid with the intraday points logged since
+                # the newest close (the fixes): never the marks other closes copied
+                since = db.scalar(
+                    conn, "SELECT max(mark_set_id) FROM mark_set WHERE kind = 'close'"
+                )
+                rows = db.rows(
+                    conn,
+                    _IN_FORCE_SQL.format(
+                        where="WHERE s.mark_set_id = ? OR (s.kind = 'intraday' "
+                        "AND s.mark_set_id > ?)"
+                    ),
+                    (int(corrects), int(since)),
+                )
+            else:
+                day = business_date(when, self.desk_tz)
+                self._refuse_second_close(conn, day)
+                rows = db.rows(conn, _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE))
+            if not rows:
+                raise StoreError("there are no marks to commit as a close")
+            points: list[StoredPoint] = [
+                (
+                    r["kind"],
+                    r["underlying_id"],
+                    r["currency"],
+                    r["expiry"],
+                    r["strike"],
+                    r["tenor_days"],
+                    r["value"],
+                )
+                for r in rows
+            ]
+            set_id, _ = write_mark_set(
+                conn,
+                "close",
+                points,
+                marked_at=when,
+                who=who or self.who,
+                note=note or "",
+                source=source,
+                corrects=corrects,
+                day=day,
+            )
+            row = db.one(
+                conn,
+                "SELECT kind, marked_at, who, note, corrects, source, mark_count, business_date, "
+                "(SELECT seq FROM history WHERE kind = 'mark_set' AND row_id = mark_set_id) "
+                "AS seq FROM mark_set WHERE mark_set_id = ?",
+                (set_id,),
+            )
+        assert row is not None
+        return MarkSetInfo(
+            id=set_id,
+            kind=row["kind"],
+            marked_at=from_timestamp(row["marked_at"]),
+            who=row["who"],
+            note=row["note"],
+            corrects=row["corrects"],
+            source=row["source"],
+            marks=row["mark_count"],
+            business_date=date.fromisoformat(row["business_date"]),
+            seq=row["seq"],
+        )
+
+    def todays_close(self) -> tuple[date, int | None]:
+        """(the business date a close written now closes, the id of the close in force for it
+        or None), so a review can say whether a close now is the day's first or a correction."""
+        day = business_date(self.now(), self.desk_tz)
+        with self._read() as conn:
+            found = self._close_in_force(conn, day)
+        return day, None if found is None else found["mark_set_id"]
+
+    @staticmethod
+    def _close_in_force(conn: sqlite3.Connection, day: date) -> sqlite3.Row | None:
+        """(mark_set_id, marked_at, who) of the close in force for business date ``day``: the
+        newest set of that date that no correction replaces; None when the date has no close."""
+        return db.one(
+            conn,
+            "SELECT s.mark_set_id, s.marked_at, s.who FROM mark_set s WHERE s.kind = 'close' "
+            "AND s.business_date = ? AND NOT EXISTS (SELECT 1 FROM mark_set c "
+            "WHERE c.corrects = s.mark_set_id) ORDER BY s.mark_set_id DESC LIMIT 1",
+            (day.isoformat(),),
+        )
+
+    def _refuse_second_close(self, conn: sqlite3.Connection, day: date) -> None:
+        """Refuse a close (not a correction) of ``day`` when the date has one already."""
+        taken = self._close_in_force(conn, day)
+        if taken is not None:
+            set_id = taken["mark_set_id"]
+            raise StoreError(
+                f"the close of {day} is already written (set {set_id}, {taken['marked_at']} "
+                f"by {taken['who']}): a date closes once. To change it, log the fixed "
+                f"marks and write a correction (mark close --corrects {set_id})"
+            )
+
+    def _close_to_correct(
+        self, conn: sqlite3.Connection, ref: int | str | date
+    ) -> tuple[int, date]:
+        """(id, business date) of the close a correction names: a set id, or a business date
+        (ISO text or ``date``) meaning the close in force for that date."""
+        text = ref.isoformat() if isinstance(ref, date) else str(ref).strip()
+        if is_iso_date(text):
+            day = parse_date(text)
+            found = self._close_in_force(conn, day)
+            if found is None:
+                raise StoreError(f"no close for {day}: there is nothing to correct")
+            return int(found["mark_set_id"]), day
+        try:
+            set_id = int(text)
+        except ValueError:
+            raise StoreError(
+                f"{ref!r} names no close: give a close set id or a business date like 2026-12-03"
+            ) from None
+        set_id = check_id(set_id, "the id of the close set corrected")
+        row = db.one(
+            conn, "SELECT kind, business_date FROM mark_set WHERE mark_set_id = ?", (set_id,)
+        )
+        if row is None or row["kind"] != "close":
+            raise StoreError(f"mark set {set_id} is not a close set")
+        done = db.one(conn, "SELECT mark_set_id FROM mark_set WHERE corrects = ?", (set_id,))
+        if done:
+            raise StoreError(
+                f"close set {set_id} was already corrected by set {done['mark_set_id']}: correct "
+                f"set {done['mark_set_id']} (or name the date, --corrects {row['business_date']})"
+            )
+        return set_id, date.fromisoformat(row["business_date"])
+
+    @guard_damage
+    def mark_sets(self, kind: str | None = None) -> list[MarkSetInfo]:
+        """Mark sets in the store's order (only ``kind`` 'close' or 'intraday' when given)."""
+        if kind is not None and kind not in ("close", "intraday"):
+            raise StoreError(f"mark set kind must be 'close' or 'intraday', got {kind!r}")
+        with self._read() as conn:
+            rows = db.rows(
+                conn,
+                "SELECT s.mark_set_id, s.kind, s.marked_at, s.who, s.note, s.corrects, s.source, "
+                "s.mark_count, (SELECT c.mark_set_id FROM mark_set c WHERE c.corrects = "
+                "s.mark_set_id) AS superseded_by, s.business_date, h.seq "
+                "FROM mark_set s JOIN history h ON h.kind = 'mark_set' AND h.row_id = "
+                "s.mark_set_id WHERE ? IS NULL OR s.kind = ? ORDER BY h.seq",
+                (kind, kind),
+            )
+        return [
+            MarkSetInfo(
+                id=r["mark_set_id"],
+                kind=r["kind"],
+                marked_at=from_timestamp(r["marked_at"]),
+                who=r["who"],
+                note=r["note"],
+                corrects=r["corrects"],
+                source=r["source"],
+                marks=r["mark_count"],
+                superseded_by=r["superseded_by"],
+                business_date=date.fromisoformat(r["business_date"])
+                if r["business_date"]
+                else None,
+                seq=r["seq"],
+            )
+            for r in rows
+        ]
