@@ -48,8 +48,9 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import limits
-from blotter.book import MOVE_WORDS, SYMBOL_PATTERN, UNDERLYING_KINDS, Book, Underlyings
+from blotter.book import UNDERLYING_KINDS, Book, Underlyings
 from blotter.market import Market, RateCurve, VolSurface
+from blotter.scenario.grammar import MOVE_WORDS, SYMBOL_PATTERN
 
 APPLICATION_ID = 0x426C7472
 """``PRAGMA application_id`` of a blotter book ("Bltr"), so a foreign SQLite file is recognised."""

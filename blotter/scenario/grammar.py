@@ -14,7 +14,23 @@ from dataclasses import dataclass
 from typing import Any
 
 from blotter import limits
-from blotter.book import MOVE_PARTS, SYMBOL_PATTERN
+
+MOVE_PARTS = ("spot", "vol", "days", "bdays", "rate")
+"""The parts of a move, each followed by its amount."""
+
+RULE_WORDS = ("moneyness", "sticky-moneyness")
+"""Words that make a move's vols sticky moneyness."""
+
+QUALIFIERS = ("beta", "weighted")
+"""Words after a part's amount: ``beta`` after a spot % move, ``weighted`` after vol points."""
+
+MOVE_WORDS = (*MOVE_PARTS, *RULE_WORDS, *QUALIFIERS)
+"""Every word of the grammar, which an underlying's symbol may not be."""
+
+SYMBOL_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9._/-]*\Z")
+"""What an underlying's symbol must look like to be typed in a move: one word, a letter, then
+letters, digits and . _ / - (the store refuses a new symbol that does not match, or that is one
+of ``MOVE_WORDS``)."""
 
 STICKY_RULE = "sticky strike"
 """The default rule for how vols follow spot: each strike keeps its vol."""
@@ -147,8 +163,6 @@ class Move:
 
 _NUMBER = re.compile(r"^(?P<sign>[+-])?(?P<num>\d+(?:\.\d*)?|\.\d+)(?P<unit>%|bp)?$", re.IGNORECASE)
 _LEVEL = re.compile(r"^=(?P<num>\d+(?:\.\d*)?|\.\d+)$")
-_SYMBOL = SYMBOL_PATTERN
-_KEYWORDS = MOVE_PARTS
 
 
 def _tokens(text: str) -> list[tuple[str, int, int]]:
@@ -183,22 +197,22 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
         word = toks[k][0]
         low = word.lower()
         symbol: str | None = None
-        if low in ("moneyness", "sticky-moneyness"):
+        if low in RULE_WORDS:
             if rule == MONEYNESS_RULE:
                 raise fail("'moneyness' given twice", k)
             rule = MONEYNESS_RULE
             k += 1
             continue
-        if low not in _KEYWORDS:
+        if low not in MOVE_PARTS:
             nxt = toks[k + 1][0].lower() if k + 1 < len(toks) else ""
-            if low in ("beta", "weighted"):
+            if low in QUALIFIERS:
                 where = (
                     "a spot % move (spot -3% beta)"
                     if low == "beta"
                     else "a vol points move (vol +2 weighted)"
                 )
                 raise fail(f"'{word}' must follow {where}", k)
-            elif nxt in ("spot", "vol") and _SYMBOL.match(word):
+            elif nxt in ("spot", "vol") and SYMBOL_PATTERN.match(word):
                 symbol = _resolve_symbol(word, symbols, fail, k)
                 k += 1
                 low = nxt

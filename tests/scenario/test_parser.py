@@ -9,6 +9,7 @@ from __future__ import annotations
 import pytest
 
 from blotter.scenario import Move, MoveSyntaxError, SpotShift, VolShift, parse_move
+from blotter.scenario.grammar import MOVE_WORDS, SYMBOL_PATTERN
 
 SYMBOLS = ("IDX", "STK", "FUT", "FXA")
 
@@ -163,3 +164,21 @@ def test_describe_keeps_each_amount_as_typed() -> None:
     move = parse_move("spot -99.9999999% vol +2.5 days 3 rate +25bp")
     assert move.describe() == "spot -99.9999999% vol +2.5 days 3 rate +25bp"
     assert parse_move(move.describe()).spot[0].amount == move.spot[0].amount
+
+
+@pytest.mark.parametrize("word", MOVE_WORDS)
+def test_a_grammar_word_is_never_read_as_a_symbol(word: str) -> None:
+    """Why the store refuses these words as symbols: typed before ``spot``, each is read as the
+    grammar's own word (or refused), never as the name of an underlying."""
+    try:
+        move = parse_move(f"{word} spot -3%", [word, *SYMBOLS])
+    except MoveSyntaxError:
+        return
+    assert all(part.symbol is None for part in move.spot)
+
+
+@pytest.mark.parametrize("symbol", [*SYMBOLS, "BRK.B", "EUR/USD", "ES_F", "X-1"])
+def test_symbols_of_the_pattern_name_an_underlying(symbol: str) -> None:
+    assert SYMBOL_PATTERN.match(symbol)
+    move = parse_move(f"{symbol} spot -3%", [symbol])
+    assert move.spot == (SpotShift(symbol, -3.0, "%"),)
