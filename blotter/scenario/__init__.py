@@ -37,7 +37,10 @@ if TYPE_CHECKING:
     from blotter.scenario.grammar import VolShift as VolShift
     from blotter.scenario.grammar import parse_move as parse_move
     from blotter.scenario.pnl_explain import Explain as Explain
+    from blotter.scenario.pnl_explain import ExplainMarkSet as ExplainMarkSet
     from blotter.scenario.pnl_explain import ExplainRow as ExplainRow
+    from blotter.scenario.pnl_explain import ExplainSource as ExplainSource
+    from blotter.scenario.pnl_explain import ExplainTrade as ExplainTrade
     from blotter.scenario.pnl_explain import closes_in_force as closes_in_force
     from blotter.scenario.pnl_explain import explain as explain
     from blotter.scenario.profile import PROFILE_EXPOSURES as PROFILE_EXPOSURES
@@ -80,7 +83,10 @@ HOMES: dict[str, tuple[str, ...]] = {
         "DEFAULT_SPOT_PCTS", "DEFAULT_VOL_PTS", "LADDER_CHUNK_CELLS", "Ladder", "ladder", "ladders",
     ),
     "profile": ("PROFILE_EXPOSURES", "greek_profile"),
-    "pnl_explain": ("Explain", "ExplainRow", "closes_in_force", "explain"),
+    "pnl_explain": (
+        "Explain", "ExplainMarkSet", "ExplainRow", "ExplainSource", "ExplainTrade",
+        "closes_in_force", "explain",
+    ),
 }
 """Module -> the public names the package root gives from it (the ``TYPE_CHECKING`` imports
 above say the same for the type checker; a test keeps the two alike)."""

@@ -3,9 +3,10 @@ greeks, term by term, with new trades, late bookings and corrections apart."""
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
-from typing import Any
+from datetime import date, datetime
+from typing import Any, Literal, Protocol, TypeVar, runtime_checkable
 
 import numpy as np
 
@@ -62,12 +63,81 @@ class ExplainRow:
         return out
 
 
+@runtime_checkable
+class ExplainMarkSet(Protocol):
+    """What explain reads of a mark set (``blotter.store.MarkSetInfo`` has it)."""
+
+    @property
+    def id(self) -> int: ...
+    @property
+    def kind(self) -> str: ...  # "close" or "intraday"
+    @property
+    def marked_at(self) -> datetime: ...
+    @property
+    def seq(self) -> int: ...  # its place in the store's own order of history
+    @property
+    def corrects(self) -> int | None: ...  # the close set this one corrects
+    @property
+    def superseded_by(self) -> int | None: ...  # the close set that corrects this one
+    @property
+    def business_date(self) -> date | None: ...  # the date a close closes
+
+
+@runtime_checkable
+class ExplainTrade(Protocol):
+    """What explain reads of a trade (``blotter.store.TradeRecord`` has it)."""
+
+    @property
+    def trade_id(self) -> int: ...
+    @property
+    def contract_id(self) -> int: ...
+    @property
+    def trade_time(self) -> datetime: ...  # its deal time, aware UTC
+    @property
+    def seq(self) -> int: ...
+    @property
+    def cancel_seq(self) -> int | None: ...  # its cancel's place in the store's order
+
+
+@runtime_checkable
+class ExplainSource(Protocol):
+    """Everything explain reads from a store: ``blotter.store.Store`` has these methods, and so
+    may any stand-in that keeps books and marks elsewhere."""
+
+    def mark_sets(self) -> Sequence[ExplainMarkSet]:
+        """Every mark set, in the store's order."""
+        ...
+
+    def last_seq(self) -> int:
+        """The newest place in the store's order of history."""
+        ...
+
+    def load_market(self, mark_set_id: int | None = None) -> Market:
+        """The marks in force now, or exactly the set ``mark_set_id``."""
+        ...
+
+    def load_book(self, *, before_seq: int) -> Book:
+        """Net positions of the trades written before ``before_seq``, as live at that place."""
+        ...
+
+    def new_trades(self, after_seq: int, before_seq: int | None = None) -> tuple[Book, np.ndarray]:
+        """One book row per live trade written between the two places, with its price per unit."""
+        ...
+
+    def trades(self) -> Sequence[ExplainTrade]:
+        """Every trade, with its deal time and places in the store's order."""
+        ...
+
+
+SetT = TypeVar("SetT", bound=ExplainMarkSet)
+
+
 @dataclass(frozen=True, eq=False)
 class Explain:
     """P&L explain between two mark sets: rows per underlying and the total."""
 
-    from_set: Any
-    to_set: Any
+    from_set: ExplainMarkSet
+    to_set: ExplainMarkSet | Literal["now"]
     from_time: np.datetime64
     to_time: np.datetime64
     by_underlying: list[ExplainRow]
@@ -81,37 +151,41 @@ class Explain:
     by_currency: tuple[ExplainRow, ...] = ()  # the total of each currency, labelled by its code
 
 
-def _chain(s: Any, by_id: dict[int, Any], link: str) -> Any:
+def _chain(s: SetT, by_id: Mapping[int, SetT], link: str) -> SetT:
     """Follow ``link`` ('corrects' or 'superseded_by') from the set ``s`` to the end of its
     chain of corrections."""
     seen = 0
-    while getattr(s, link, None) is not None and getattr(s, link) in by_id and seen < 1000:
-        s = by_id[getattr(s, link)]
+    while (nxt := getattr(s, link)) is not None and nxt in by_id and seen < 1000:
+        s = by_id[nxt]
         seen += 1
     return s
 
 
-def closes_in_force(sets: Sequence[Any]) -> list[Any]:
+def closes_in_force(sets: Sequence[SetT]) -> list[SetT]:
     """The closes explain offers, oldest first, from ``sets`` (``store.mark_sets()``): one per
     business date, each the close itself or the correction in force for it, in the order of the
     closes they stand for (the last, for a date an upgraded book closed more than once)."""
     everything = {s.id: s for s in sets}
 
-    def root(s: Any) -> Any:
+    def root(s: SetT) -> SetT:
         return _chain(s, everything, "corrects")
 
-    by_day: dict[Any, Any] = {}
-    for s in sorted(sets, key=lambda s: getattr(s, "seq", s.id)):
-        if s.kind == "close" and getattr(s, "superseded_by", None) is None:
-            by_day[getattr(root(s), "business_date", None) or ("set", root(s).id)] = s
-    return sorted(
-        by_day.values(), key=lambda s: (_instant(root(s).marked_at), getattr(root(s), "seq", 0))
-    )
+    by_day: dict[date | tuple[str, int], SetT] = {}
+    for s in sorted(sets, key=lambda s: s.seq):
+        if s.kind == "close" and s.superseded_by is None:
+            by_day[root(s).business_date or ("set", root(s).id)] = s
+    return sorted(by_day.values(), key=lambda s: (_instant(root(s).marked_at), root(s).seq))
 
 
 def _pick_sets(
-    store: Any, from_set: int | str | None, to_set: int | str | None
-) -> tuple[Any, Any, Any, Any, list[str]]:
+    store: ExplainSource, from_set: int | str | None, to_set: int | str | None
+) -> tuple[
+    ExplainMarkSet,
+    ExplainMarkSet | Literal["now"],
+    ExplainMarkSet,
+    ExplainMarkSet | None,
+    list[str],
+]:
     """(start set, end set or "now", the close each stands for, notes) of an explain.
 
     A correction stands for the close it corrects (its root): the root's time is the period's
@@ -123,12 +197,12 @@ def _pick_sets(
     everything = {s.id: s for s in sets}
     notes: list[str] = []
 
-    def root(s: Any) -> Any:
+    def root(s: ExplainMarkSet) -> ExplainMarkSet:
         return _chain(s, everything, "corrects")
 
     closes = closes_in_force(sets)
 
-    def get(x: int | str, name: str) -> Any:
+    def get(x: int | str, name: str) -> ExplainMarkSet:
         try:
             s = everything[int(x)]
         except (KeyError, ValueError):
@@ -138,7 +212,7 @@ def _pick_sets(
             notes.append(f"close set {s.id} was corrected: set {fixed.id} is used in its place")
         return fixed
 
-    to: Any
+    to: ExplainMarkSet | Literal["now"]
     if to_set is None and from_set is None:
         if len(closes) < 2:
             raise ValueError(
@@ -152,7 +226,7 @@ def _pick_sets(
         else:
             to = get(to_set, "--to")
         if from_set is None:
-            end_t = None if to == "now" else _instant(root(to).marked_at)
+            end_t = None if isinstance(to, str) else _instant(root(to).marked_at)
             before = [
                 s
                 for s in closes
@@ -163,15 +237,15 @@ def _pick_sets(
             frm = before[-1]
         else:
             frm = get(from_set, "--from")
-    return frm, to, root(frm), None if to == "now" else root(to), notes
+    return frm, to, root(frm), None if isinstance(to, str) else root(to), notes
 
 
-def _instant(x: Any) -> np.datetime64:
+def _instant(x: datetime | str) -> np.datetime64:
     return cal.to_instant(x)
 
 
 def explain(
-    store: Any, from_set: int | str | None = None, to_set: int | str | None = None
+    store: ExplainSource, from_set: int | str | None = None, to_set: int | str | None = None
 ) -> Explain:
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
@@ -192,11 +266,13 @@ def explain(
     frm, to, start_close, end_close, notes = _pick_sets(store, from_set, to_set)
     t0 = _instant(start_close.marked_at)
     cut0 = start_close.seq
-    if to == "now":
+    end_id: int | None = None  # the written end set; None for the marks in force now
+    if isinstance(to, str) or end_close is None:
         cut1 = store.last_seq() + 1
         m1 = store.load_market()
         t1 = max(cal.now(), _instant(m1.marks_as_of))
     else:
+        end_id = int(to.id)
         cut1 = end_close.seq
         m1 = store.load_market(to.id)
         t1 = _instant(end_close.marked_at)
@@ -208,10 +284,10 @@ def explain(
     period = _period_trades(store, cut0, cut1, start_close.marked_at)
     known_start = store.load_book(before_seq=cut0)
     held = _net_books([(store.load_book(before_seq=cut1), 1.0), (period.new, -1.0)])
-    end_name = "end (marks now)" if to == "now" else f"end (set {to.id})"
+    end_name = "end (marks now)" if end_id is None else f"end (set {end_id})"
     sides = (
         (m0, t0, f"start (set {frm.id})", int(frm.id)),
-        (m1, t1, end_name, None if to == "now" else int(to.id)),
+        (m1, t1, end_name, end_id),
     )
     left_out: dict[tuple[int, tuple[MissingMark, ...]], UnvaluedPosition] = {}
     held = held.take(_valued_part(held, sides, left_out))
@@ -395,7 +471,7 @@ class _PeriodTrades:
     gone_prices: np.ndarray
 
 
-def _period_trades(store: Any, cut0: int, cut1: int, t0: Any) -> _PeriodTrades:
+def _period_trades(store: ExplainSource, cut0: int, cut1: int, t0: datetime) -> _PeriodTrades:
     """Split the trades written between the store's history rows ``cut0`` and ``cut1`` and live
     at ``cut1`` into those dealt after ``t0`` (new trades) and those dealt by it (late bookings,
     amend replacements); list the trades written before ``cut0`` and cancelled between the two.
@@ -409,7 +485,7 @@ def _period_trades(store: Any, cut0: int, cut1: int, t0: Any) -> _PeriodTrades:
     booked, prices = store.new_trades(cut0, cut1)
     records = store.trades()
 
-    def live_at_end(r: Any) -> bool:
+    def live_at_end(r: ExplainTrade) -> bool:
         return r.cancel_seq is None or r.cancel_seq > cut1
 
     in_period = sorted(
