@@ -30,6 +30,7 @@ from blotter.commands.common import (
     print_table,
     resolve_db,
 )
+from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
@@ -602,10 +603,12 @@ Vols are sticky strike (each option keeps its strike's vol) unless the line says
 option takes the marked vol at its K/S on the moved spot); a day roll keeps each contract's vol
 and rate. Options expiring inside the
 roll settle at intrinsic on the moved spot, are listed, and flagged as pin risk within 1% of the
-strike. Columns: full revaluation change, estimate 1st order (delta, vega, theta, rho) and 2nd
-order (+ gamma, volga, vanna), error = full - estimate in currency and as % of |full|.
+strike. Columns: full revaluation change, estimate 1st order ({first}) and 2nd
+order (+ {second}), error = full - estimate in currency and as % of |full|.
 Quote the move so the shell passes it as one argument: blotter whatif "spot -3% vol +2".
-"""
+""".format(
+        first=", ".join(t for t in FIRST_ORDER if t in TERM_NAMES), second=", ".join(SECOND_ORDER)
+    )
 )
 
 

@@ -258,10 +258,10 @@ def explain(
     period are the new trades. ``corrections`` on each row says how much of ``actual`` those late
     bookings and corrections changed against the book as shown at the start. Held positions are
     valued at the start marks and time and at the end marks and time; the change is explained by
-    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt and
-    ρ·dr, where dσ and dr are each contract's own vol and rate change between the two markets,
-    and carry ρ·(db − dr) for stock, index and FX options (b = r − q: a dividend yield or foreign
-    rate mark change; ρ already holds the rate's share of db); futures options have b = 0.
+    ``taylor_terms`` of the start's greeks, where dσ and dr are each contract's own vol and rate
+    change between the two markets and the carry term's db − dr is the change of b = r − q that
+    the rate does not account for (a dividend yield or foreign rate mark change; futures options
+    have b = 0).
     """
     frm, to, start_close, end_close, notes = _pick_sets(store, from_set, to_set)
     t0 = _instant(start_close.marked_at)

@@ -17,16 +17,17 @@ if TYPE_CHECKING:
     from blotter.risk import BookValuation
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
-"""Taylor terms, in the order they are shown."""
-EXPLAIN_TERMS = TERM_NAMES + ("carry",)
+"""The what-if's Taylor terms, in the order they are shown."""
+
+EXPLAIN_TERMS = (*TERM_NAMES, "carry")
 """Explain's terms: the what-if's, and ``carry`` for a change of the cost of carry b that the rate
 does not account for (a dividend yield mark, a foreign rate)."""
 
-FIRST_ORDER = ("delta", "vega", "theta", "rho", "carry")
-"""Terms of the first-order estimate (``carry`` in explain only)."""
-
 SECOND_ORDER = ("gamma", "volga", "vanna")
 """Terms the second-order estimate adds to the first order."""
+
+FIRST_ORDER = tuple(t for t in EXPLAIN_TERMS if t not in SECOND_ORDER)
+"""Terms of the first-order estimate, in the order they are summed (``carry`` in explain only)."""
 
 
 @dataclass(frozen=True, eq=False)

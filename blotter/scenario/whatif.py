@@ -179,12 +179,12 @@ class MoveResult:
 
     @cached_property
     def estimate_1(self) -> np.ndarray:
-        """First-order estimate per position (n,): delta + vega + theta + rho terms."""
+        """First-order estimate per position (n,): the sum of the ``FIRST_ORDER`` terms."""
         return np.asarray(first_order(self.terms))
 
     @cached_property
     def estimate_2(self) -> np.ndarray:
-        """Second-order estimate per position (n,): first order + gamma + volga + vanna terms."""
+        """Second-order estimate per position (n,): first order + the ``SECOND_ORDER`` terms."""
         return np.asarray(second_order(self.terms))
 
 
@@ -339,10 +339,10 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
 
     Full revaluation: every live option is repriced with ``engine.price`` on the moved spot, vol
     (sticky strike), rate and time; an option that expires inside the roll is worth its intrinsic
-    value on the moved spot; a hedge changes by units × Δspot. The estimate uses the base greeks:
-    Δ·dS, ½Γ·dS², vega·dσ, ½volga·dσ², vanna·dS·dσ, θ·dt (the roll's year fraction), ρ·dr; the
-    spot and vol moves are the same within an underlying, so its rows come from per-underlying
-    sums of the greeks. MoveError when the move cannot apply (unknown symbol, spot at or below 0).
+    value on the moved spot; a hedge changes by units × Δspot. The estimate is ``taylor_terms`` of
+    the base greeks (dt the roll's year fraction); the spot and vol moves are the same within an
+    underlying, so its rows come from per-underlying sums of the greeks. MoveError when the move
+    cannot apply (unknown symbol, spot at or below 0).
     """
     v = valuation
     p = prepare(v)
