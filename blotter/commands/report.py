@@ -30,6 +30,7 @@ from blotter.commands.common import (
     print_table,
     resolve_db,
 )
+from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
 if TYPE_CHECKING:
@@ -577,25 +578,7 @@ _WHATIF_HELP = (
 \b
 MOVE is one line of parts, combined and applied together:
 """
-    + "\n".join(
-        f"  {ex:<24} {what}"
-        for ex, what in (
-            ("spot -3%", "every underlying's spot down 3%"),
-            ("spot +2.5", "every spot up 2.5 currency units"),
-            ("IDX spot -5%", "one underlying (any symbol of the book)"),
-            ("IDX spot =4480", "one underlying's spot set to a level"),
-            ("spot -3% beta", "each underlying moves beta x 3% (index-equivalent)"),
-            ("vol +2", "every vol up 2 vol points (0.30 -> 0.32)"),
-            ("vol -10%", "every vol times 0.9"),
-            ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) pts, T >= 7d"),
-            ("IDX vol +3", "one underlying's vols up 3 points"),
-            ("days 3", "three calendar days pass"),
-            ("bdays 1", "to the next business day (Friday -> Monday)"),
-            ("rate +25bp", "every rate up 25 basis points"),
-            ("spot -3% vol +2 days 1", "parts combine"),
-            ("spot -5% moneyness", "vols sticky moneyness instead of sticky strike"),
-        )
-    )
+    + "\n".join(f"  {ex:<24} {what}" for ex, what in EXAMPLES)
     + """
 
 Keywords are case-insensitive; a named part overrides an every-underlying part for that name.

@@ -45,20 +45,21 @@ VOL_RULES = (STICKY_RULE, MONEYNESS_RULE)
 EXAMPLES = (
     ("spot -3%", "every underlying's spot down 3%"),
     ("spot +2.5", "every spot up 2.5 currency units"),
-    ("IDX spot -5%", "one underlying (any symbol of the book)"),
-    ("IDX spot =4480", "one underlying's spot set to a level"),
-    ("spot -3% beta", "each underlying moves beta × 3% (index-equivalent move)"),
+    ("DEMOA spot -5%", "one underlying (any symbol of the book)"),
+    ("DEMOA spot =180", "one underlying's spot set to a level"),
+    ("spot -3% beta", "each spot moves beta × 3% (index-equivalent move)"),
     ("vol +2", "every vol up 2 vol points (0.30 → 0.32)"),
     ("vol -10%", "every vol times 0.9"),
-    ("vol +2 weighted", "each expiry's vol up 2 × √(30d/T) points, T floored at 7 days"),
-    ("IDX vol +3", "one underlying's vols up 3 points"),
+    ("vol +2 weighted", "each expiry's vol up 2 × √(30d/T) pts, T ≥ 7 days"),
+    ("DEMOA vol +3", "one underlying's vols up 3 points"),
     ("days 3", "three calendar days pass"),
-    ("bdays 1", "to the next business day (a Friday rolls over the weekend)"),
-    ("rate +25bp", "every rate up 25 basis points (rate +0.25% is the same)"),
+    ("bdays 1", "next business day, same clock time (Fri → Mon)"),
+    ("rate +25bp", "every rate up 25 basis points (or rate +0.25%)"),
     ("spot -3% vol +2 days 1", "parts combine and apply together"),
-    ("spot -5% moneyness", "vols sticky moneyness for this move instead of sticky strike"),
+    ("spot -5% moneyness", "vols sticky moneyness instead of sticky strike"),
 )
-"""Move examples with their meaning, for help screens."""
+"""Every form of a move with its meaning: the app's help, ``blotter whatif --help`` and the
+README's list (a test keeps the README alike) all show these. ``DEMOA`` is a demo book name."""
 
 
 class MoveSyntaxError(ValueError):
@@ -306,13 +307,8 @@ def parse_move(text: str, symbols: Sequence[str] | None = None) -> Move:
 
 
 def _example(keyword: str) -> str:
-    return {
-        "spot": "spot -3%",
-        "vol": "vol +2",
-        "days": "days 3",
-        "bdays": "bdays 1",
-        "rate": "rate +25bp",
-    }[keyword]
+    """The first of ``EXAMPLES`` that starts with the part ``keyword``, for an error's hint."""
+    return next(example for example, _ in EXAMPLES if example.split()[0] == keyword)
 
 
 def _amount(
