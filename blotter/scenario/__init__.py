@@ -43,8 +43,13 @@ if TYPE_CHECKING:
     from blotter.scenario.pnl_explain import ExplainTrade as ExplainTrade
     from blotter.scenario.pnl_explain import closes_in_force as closes_in_force
     from blotter.scenario.pnl_explain import explain as explain
+    from blotter.scenario.profile import PROFILE_AXES as PROFILE_AXES
     from blotter.scenario.profile import PROFILE_EXPOSURES as PROFILE_EXPOSURES
+    from blotter.scenario.profile import PROFILE_MEASURES as PROFILE_MEASURES
+    from blotter.scenario.profile import Profile as Profile
+    from blotter.scenario.profile import ProfileCurve as ProfileCurve
     from blotter.scenario.profile import greek_profile as greek_profile
+    from blotter.scenario.profile import profile_curves as profile_curves
     from blotter.scenario.spot_vol_ladder import DEFAULT_SPOT_PCTS as DEFAULT_SPOT_PCTS
     from blotter.scenario.spot_vol_ladder import DEFAULT_VOL_PTS as DEFAULT_VOL_PTS
     from blotter.scenario.spot_vol_ladder import LADDER_CHUNK_CELLS as LADDER_CHUNK_CELLS
@@ -82,7 +87,10 @@ HOMES: dict[str, tuple[str, ...]] = {
     "spot_vol_ladder": (
         "DEFAULT_SPOT_PCTS", "DEFAULT_VOL_PTS", "LADDER_CHUNK_CELLS", "Ladder", "ladder", "ladders",
     ),
-    "profile": ("PROFILE_EXPOSURES", "greek_profile"),
+    "profile": (
+        "PROFILE_AXES", "PROFILE_EXPOSURES", "PROFILE_MEASURES", "Profile", "ProfileCurve",
+        "greek_profile", "profile_curves",
+    ),
     "pnl_explain": (
         "Explain", "ExplainMarkSet", "ExplainRow", "ExplainSource", "ExplainTrade",
         "closes_in_force", "explain",

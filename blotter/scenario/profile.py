@@ -1,16 +1,19 @@
-"""Profiles: the book's total exposure along a line of spot moves or days forward."""
+"""Profiles: the book's P&L or total exposure along a line of spot moves or of days forward."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
-from blotter.risk import BookValuation
+from blotter.risk import BookValuation, value_book
 from blotter.scenario.base import prepare
-from blotter.scenario.spot_vol_ladder import LADDER_CHUNK_CELLS
+from blotter.scenario.grammar import Move
+from blotter.scenario.spot_vol_ladder import LADDER_CHUNK_CELLS, ladder
+from blotter.scenario.whatif import apply_move
 
 PROFILE_EXPOSURES = ("delta_cash", "gamma_1pct", "vega_pt", "theta_day")
 """Exposures ``greek_profile`` draws (``risk`` field names, desk units)."""
@@ -83,3 +86,107 @@ def greek_profile(
             per = g.theta / 365.0
         out += per @ units
     return out
+
+
+PROFILE_AXES = ("spot", "days")
+"""What a profile runs along: every spot moved by the same %, or calendar days forward."""
+
+PROFILE_MEASURES = ("pnl", *PROFILE_EXPOSURES)
+"""What a profile draws: P&L (currency), or one of ``PROFILE_EXPOSURES`` (desk units)."""
+
+DAY_STEPS = 30
+"""A days-forward profile takes every day up to this many, then whole steps of about this many."""
+
+
+@dataclass(frozen=True)
+class ProfileCurve:
+    """One curve of a profile: ``ys`` at each of the profile's ``xs``.
+
+    ``days`` is the day roll a spot curve is drawn after (0 for today), None on the days axis;
+    ``currency`` names the positions' currency when the book holds several (money of different
+    currencies is never added, so each gets its own curves), else None.
+    """
+
+    ys: tuple[float, ...]
+    days: float | None
+    currency: str | None
+
+
+@dataclass(frozen=True)
+class Profile:
+    """A book's ``measure`` along ``axis``: spot moves in % of every spot, or calendar days.
+
+    ``underlyings`` names the underlyings with positions (a Γ 1% curve over several adds share
+    counts of different names)."""
+
+    axis: str
+    measure: str
+    xs: tuple[float, ...]
+    curves: tuple[ProfileCurve, ...]
+    underlyings: tuple[str, ...]
+
+
+def profile_curves(
+    valuation: BookValuation,
+    measure: str,
+    axis: str,
+    days: float,
+    *,
+    spot_pct: float,
+    points: int,
+    horizon_days: int,
+    rows: np.ndarray | None = None,
+) -> Profile:
+    """Curves of the book (or of positions ``rows`` only): P&L or an exposure against spot or
+    days forward.
+
+    Against spot, ``points`` moves from −``spot_pct`` to +``spot_pct`` % of every spot, vols
+    sticky strike, today and (when ``days``) after a roll of ``days`` calendar days; against
+    days, 0..``horizon_days`` calendar days forward, nothing else moving. P&L comes from
+    ``ladder`` and ``apply_move``, exposures from ``greek_profile``.
+    """
+    if measure not in PROFILE_MEASURES:
+        raise ValueError(f"measure must be one of {', '.join(PROFILE_MEASURES)}, not {measure!r}")
+    if axis not in PROFILE_AXES:
+        raise ValueError(f"axis must be one of {', '.join(PROFILE_AXES)}, not {axis!r}")
+    v = valuation
+    if rows is not None:
+        v = value_book(
+            valuation.book.take(rows),
+            valuation.market,
+            valuation.valuation_time,
+            tz=valuation.tz,
+            boundaries=valuation.boundaries,
+        )
+    names = {v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)}
+    parts: list[tuple[str | None, BookValuation]] = [(None, v)]
+    if len(v.currencies) > 1:
+        parts = [(c, v.take(np.flatnonzero(v.position_currencies == c))) for c in v.currencies]
+    if axis == "spot":
+        xs = np.linspace(-spot_pct, spot_pct, points)
+    else:
+        xs = np.arange(0, horizon_days + 1, max(1, horizon_days // DAY_STEPS), dtype=np.float64)
+    rolls = [0.0] + ([float(days)] if days else [])
+    curves: list[ProfileCurve] = []
+    for ccy, vc in parts:
+        if axis == "spot" and measure == "pnl":
+            pcts = xs.tolist()
+            for d in rolls:
+                ys = ladder(vc, pcts, (0.0,), days=d).full[:, 0].tolist()
+                curves.append(ProfileCurve(tuple(ys), d, ccy))
+        elif axis == "spot":
+            for d in rolls:
+                curve = greek_profile(vc, measure, xs.tolist(), days=d)
+                curves.append(ProfileCurve(tuple(float(x) for x in curve), d, ccy))
+        elif measure == "pnl":
+            ys = tuple(
+                float(apply_move(vc, Move(text=f"days {d:g}", days=float(d))).total.full)
+                if d
+                else 0.0
+                for d in xs
+            )
+            curves.append(ProfileCurve(ys, None, ccy))
+        else:
+            ys = tuple(float(greek_profile(vc, measure, (0.0,), days=float(d))[0]) for d in xs)
+            curves.append(ProfileCurve(ys, None, ccy))
+    return Profile(axis, measure, tuple(xs.tolist()), tuple(curves), tuple(sorted(names)))
