@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
 from blotter import calendar as cal
 from blotter.book import Book
@@ -23,8 +24,6 @@ from blotter.market import Market
 from blotter.scenario import explain
 from blotter.scenario.pnl_explain import ExplainMarkSet, ExplainSource, ExplainTrade
 from blotter.store import open_store
-
-from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
 FRI = datetime(2026, 12, 4, 21, 0, tzinfo=UTC)
 MON = FRI + timedelta(days=3)

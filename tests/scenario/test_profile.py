@@ -12,18 +12,27 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from books import (
+    RATE,
+    SPOTS,
+    T0,
+    TWO_CCY,
+    TWO_CCY_ROWS,
+    TWO_CCY_SPOTS,
+    Row,
+    make_book,
+    make_market,
+    mixed_rows,
+    ql_price,
+    two_ccy_currency,
+    two_ccy_market,
+    two_ccy_ql,
+)
 
 from blotter import calendar as cal
 from blotter.risk import total, value_book
 from blotter.scenario import PROFILE_EXPOSURES, greek_profile
 from blotter.scenario.profile import profile_curves
-
-from .scenario_books import RATE, SPOTS, T0, Row, make_book, make_market, mixed_rows, ql_price
-from .test_currencies import ROWS as TWO_CURRENCY_ROWS
-from .test_currencies import SPOT as SPOT2
-from .test_currencies import UND as TWO_CURRENCY_UNDERLYINGS
-from .test_currencies import _market as two_currency_market
-from .test_currencies import _ql as ql_two
 
 SPOT_PCTS = (-15.0, -5.0, 0.0, 2.5, 12.0)
 
@@ -135,18 +144,17 @@ def test_an_exposure_curve_is_greek_profile_and_the_rows_their_own_book() -> Non
 
 def test_each_currency_gets_its_own_curves() -> None:
     """Money of different currencies is never added: one curve per currency and roll."""
-    book = make_book(TWO_CURRENCY_ROWS, TWO_CURRENCY_UNDERLYINGS, ref="USI")
-    v = value_book(book, two_currency_market(), T0)
+    v = value_book(make_book(TWO_CCY_ROWS, TWO_CCY, ref="USI"), two_ccy_market(), T0)
     p = profile_curves(v, "pnl", "spot", 2.0, spot_pct=5.0, points=3, horizon_days=10)
     assert [(c.currency, c.days) for c in p.curves] == [
         ("USD", 0.0), ("USD", 2.0), ("EUR", 0.0), ("EUR", 2.0)
     ]
     for curve in p.curves:
-        rows = [r for r in TWO_CURRENCY_ROWS if TWO_CURRENCY_UNDERLYINGS.currencies[
-            TWO_CURRENCY_UNDERLYINGS.index_of(r.sym)] == curve.currency]
+        rows = [r for r in TWO_CCY_ROWS if two_ccy_currency(r) == curve.currency]
         days = int(curve.days or 0)
         for x, y in zip(p.xs, curve.ys, strict=True):
-            want = sum(ql_two(r, SPOT2[r.sym] * (1 + x / 100), days) - ql_two(r) for r in rows)
+            moved = [two_ccy_ql(r, TWO_CCY_SPOTS[r.sym] * (1 + x / 100), days) for r in rows]
+            want = sum(moved) - sum(two_ccy_ql(r) for r in rows)
             assert y == pytest.approx(want, rel=1e-8, abs=1e-6), (curve.currency, days, x)
 
 
