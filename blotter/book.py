@@ -6,33 +6,17 @@ knows about SQL or terminals; the risk layer turns a ``Book`` plus a ``Market`` 
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
 from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
 
+from blotter.arrays import read_only as read_only
 from blotter.calendar import DEFAULT_EXCHANGE_TZ, local_dates
 
 UNDERLYING_KINDS = ("stock", "index", "future", "fx")
 """Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
-SYMBOL_PATTERN = re.compile(r"[A-Za-z][A-Za-z0-9._/-]*\Z")
-"""What a symbol looks like: a letter, then letters, digits and . _ / - (one word of a move)."""
-MOVE_PARTS = ("spot", "vol", "days", "bdays", "rate")
-"""The parts of a what-if move (``scenario`` parses them)."""
-MOVE_WORDS = (*MOVE_PARTS, "moneyness", "sticky-moneyness", "beta", "weighted")
-"""Every word of the what-if grammar, which a new underlying's symbol may not be."""
-
-
-def read_only(a: np.ndarray) -> np.ndarray:
-    """``a`` as a contiguous array that refuses writes (a copy only when ``a`` is not contiguous).
-
-    Books, markets and valuations hold their arrays this way, so a shared array cannot be changed
-    behind a cached result."""
-    a = np.ascontiguousarray(a)
-    a.setflags(write=False)
-    return a
 
 
 @dataclass(frozen=True, eq=False)

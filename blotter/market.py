@@ -11,7 +11,7 @@ from datetime import datetime
 
 import numpy as np
 
-from blotter.book import read_only
+from blotter.arrays import read_only
 from blotter.calendar import SECONDS_PER_YEAR
 
 VOL_FLOOR = 1e-4

@@ -33,7 +33,8 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import engine
-from blotter.book import Book, read_only
+from blotter.arrays import read_only
+from blotter.book import Book
 from blotter.engine.american import DOUBLE_BOUNDARY, NOT_CONVERGED
 from blotter.market import Market
 

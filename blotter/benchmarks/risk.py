@@ -151,14 +151,10 @@ def _quantlib_ns_per_option(sample: int = 2000) -> float | None:
 def run(quick: bool) -> list[Result]:
     """Time the what-if and the ladder; ``quick`` uses small books and few repetitions."""
     from blotter.risk import value_book
-    from blotter.scenario import (
-        DEFAULT_SPOT_PCTS,
-        DEFAULT_VOL_PTS,
-        apply_move,
-        ladder,
-        parse_move,
-        prepare,
-    )
+    from blotter.scenario.base import prepare
+    from blotter.scenario.grammar import parse_move
+    from blotter.scenario.spot_vol_ladder import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, ladder
+    from blotter.scenario.whatif import apply_move
 
     repeat = 3 if quick else 11
     ql_ns = _quantlib_ns_per_option(200 if quick else 2000)
@@ -238,7 +234,11 @@ def _american_book_cases(quick: bool) -> list[Result]:
     valuation's boundaries as the app does (the first call, untimed, solves any a vol shift needs).
     """
     from blotter.risk import value_book
-    from blotter.scenario import apply_move, greek_profile, ladder, parse_move, prepare
+    from blotter.scenario.base import prepare
+    from blotter.scenario.grammar import parse_move
+    from blotter.scenario.profile import greek_profile
+    from blotter.scenario.spot_vol_ladder import ladder
+    from blotter.scenario.whatif import apply_move
 
     repeat = 3 if quick else 7
     spot_pcts = np.linspace(-15.0, 15.0, 31).tolist()

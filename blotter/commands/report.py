@@ -30,6 +30,8 @@ from blotter.commands.common import (
     print_table,
     resolve_db,
 )
+from blotter.scenario.grammar import EXAMPLES
+from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
 if TYPE_CHECKING:
     from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
@@ -576,25 +578,7 @@ _WHATIF_HELP = (
 \b
 MOVE is one line of parts, combined and applied together:
 """
-    + "\n".join(
-        f"  {ex:<24} {what}"
-        for ex, what in (
-            ("spot -3%", "every underlying's spot down 3%"),
-            ("spot +2.5", "every spot up 2.5 currency units"),
-            ("IDX spot -5%", "one underlying (any symbol of the book)"),
-            ("IDX spot =4480", "one underlying's spot set to a level"),
-            ("spot -3% beta", "each underlying moves beta x 3% (index-equivalent)"),
-            ("vol +2", "every vol up 2 vol points (0.30 -> 0.32)"),
-            ("vol -10%", "every vol times 0.9"),
-            ("vol +2 weighted", "each expiry's vol up 2 x sqrt(30d/T) pts, T >= 7d"),
-            ("IDX vol +3", "one underlying's vols up 3 points"),
-            ("days 3", "three calendar days pass"),
-            ("bdays 1", "to the next business day (Friday -> Monday)"),
-            ("rate +25bp", "every rate up 25 basis points"),
-            ("spot -3% vol +2 days 1", "parts combine"),
-            ("spot -5% moneyness", "vols sticky moneyness instead of sticky strike"),
-        )
-    )
+    + "\n".join(f"  {ex:<24} {what}" for ex, what in EXAMPLES)
     + """
 
 Keywords are case-insensitive; a named part overrides an every-underlying part for that name.
@@ -602,10 +586,12 @@ Vols are sticky strike (each option keeps its strike's vol) unless the line says
 option takes the marked vol at its K/S on the moved spot); a day roll keeps each contract's vol
 and rate. Options expiring inside the
 roll settle at intrinsic on the moved spot, are listed, and flagged as pin risk within 1% of the
-strike. Columns: full revaluation change, estimate 1st order (delta, vega, theta, rho) and 2nd
-order (+ gamma, volga, vanna), error = full - estimate in currency and as % of |full|.
+strike. Columns: full revaluation change, estimate 1st order ({first}) and 2nd
+order (+ {second}), error = full - estimate in currency and as % of |full|.
 Quote the move so the shell passes it as one argument: blotter whatif "spot -3% vol +2".
-"""
+""".format(
+        first=", ".join(t for t in FIRST_ORDER if t in TERM_NAMES), second=", ".join(SECOND_ORDER)
+    )
 )
 
 

@@ -12,7 +12,7 @@ from datetime import date, datetime
 from typing import Any
 
 from blotter import limits
-from blotter.book import MOVE_WORDS, SYMBOL_PATTERN
+from blotter.scenario.grammar import MOVE_WORDS, SYMBOL_PATTERN
 from blotter.store.errors import StoreError
 from blotter.store.times import cutoff_utc, parse_date, timestamp_text
 

@@ -19,6 +19,7 @@ from blotter import calendar as cal
 from blotter import limits, risk
 from blotter.book import Book
 from blotter.printable import printable
+from blotter.scenario.profile import profile_curves
 from blotter.ui import fmt
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
@@ -417,84 +418,38 @@ def profile(
     rows: np.ndarray | None = None,
     label: str = "book",
 ) -> ProfileData:
-    """Curves of the book (or of ``rows`` only): P&L or a greek, against spot % or days forward.
-
-    Against spot every underlying moves by the same %, vols sticky strike, today and after the
-    bar's ``days`` roll; against days, calendar days 0..``settings.profile_days``, nothing else
-    moving. P&L comes from ``scenario.ladder``/``apply_move``, greeks from ``risk.value_book``.
-    """
-    from blotter import scenario
-
-    v = valuation
-    if rows is not None:
-        v = risk.value_book(
-            valuation.book.take(rows),
-            valuation.market,
-            valuation.valuation_time,
-            tz=valuation.tz,
-            boundaries=valuation.boundaries,
-        )
-    symbols = sorted({v.book.underlyings.symbols[int(i)] for i in np.unique(v.book.underlying_idx)})
-    series: dict[str, tuple[float, ...]] = {}
-    roll = f"after {days:g} day{'s' if days != 1 else ''}"
-    # Money of different currencies is never added: one curve per currency when there are several.
-    parts = [("", v)]
-    if len(v.currencies) > 1:
-        parts = [
-            (f" {c}", v.take(np.flatnonzero(v.position_currencies == c))) for c in v.currencies
-        ]
-    if axis == "spot":
-        half = float(settings.profile_spot_pct)
-        xs = np.linspace(-half, half, int(settings.profile_points))
-        x_label = "spot move, % of every spot"
-    else:
-        n_days = int(settings.profile_days)
-        xs = np.arange(0, n_days + 1, max(1, n_days // 30), dtype=np.float64)
-        x_label = "calendar days forward"
+    """The Profile pane's title, axis labels and curve names around ``profile_curves`` (P&L or a
+    greek of the book, or of ``rows`` only, against spot % or days forward)."""
     y_label = "P&L (currency)" if greek == "pnl" else PROFILE_FIELDS[greek][1]
-    for suffix, vc in parts:
-        if axis == "spot" and greek == "pnl":
-            pcts = xs.tolist()
-            series["today" + suffix] = tuple(
-                scenario.ladder(vc, pcts, (0.0,), days=0.0).full[:, 0].tolist()
-            )
-            if days:
-                series[roll + suffix] = tuple(
-                    scenario.ladder(vc, pcts, (0.0,), days=days).full[:, 0].tolist()
-                )
-        elif axis == "spot":
-            field_name = PROFILE_FIELDS[greek][0]
-            for name, d in [("today", 0.0)] + ([(roll, float(days))] if days else []):
-                curve = scenario.greek_profile(vc, field_name, xs.tolist(), days=d)
-                series[name + suffix] = tuple(float(x) for x in curve)
-        elif greek == "pnl":
-            series["P&L" + suffix] = tuple(
-                float(
-                    scenario.apply_move(
-                        vc, scenario.Move(text=f"days {d:g}", days=float(d))
-                    ).total.full
-                )
-                if d
-                else 0.0
-                for d in xs
-            )
+    curves = profile_curves(
+        valuation,
+        "pnl" if greek == "pnl" else PROFILE_FIELDS[greek][0],
+        axis,
+        days,
+        spot_pct=float(settings.profile_spot_pct),
+        points=int(settings.profile_points),
+        horizon_days=int(settings.profile_days),
+        rows=rows,
+    )
+    roll = f"after {days:g} day{'s' if days != 1 else ''}"
+    series: dict[str, tuple[float, ...]] = {}
+    for curve in curves.curves:
+        if curve.days is None:
+            name = "P&L" if greek == "pnl" else y_label.split(" (")[0]
         else:
-            field_name = PROFILE_FIELDS[greek][0]
-            series[y_label.split(" (")[0] + suffix] = tuple(
-                float(scenario.greek_profile(vc, field_name, (0.0,), days=float(d))[0])
-                for d in xs
-            )
+            name = "today" if curve.days == 0 else roll
+        series[name + (f" {curve.currency}" if curve.currency else "")] = curve.ys
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
     title = (
         f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
     )
     note = "sticky-strike vols" if axis == "spot" else "spot and vols held"
-    if greek == "gamma" and len(symbols) > 1:
+    if greek == "gamma" and len(curves.underlyings) > 1:
         note += "; Γ 1% adds share counts of different names"
     return ProfileData(
         title=title,
-        x_label=x_label,
-        xs=tuple(xs.tolist()),
+        x_label="spot move, % of every spot" if axis == "spot" else "calendar days forward",
+        xs=curves.xs,
         series=series,
         y_label=y_label,
         note=note,

@@ -1,15 +1,5 @@
-"""Fixtures of the risk-layer tests; books and the QuantLib pricer are in ``scenario_books``."""
+"""Fixtures of the scenario tests; the books and the QuantLib pricer are in ``tests/books.py``."""
 
 from __future__ import annotations
 
-import pytest
-
-from blotter.book import Book
-
-from .scenario_books import make_book, mixed_rows
-
-
-@pytest.fixture
-def mixed_book() -> Book:
-    """Options on all four kinds of underlying plus a stock and a futures hedge."""
-    return make_book(mixed_rows())
+from books import mixed_book  # noqa: F401  (a fixture: pytest finds it where it is imported)

@@ -1,4 +1,5 @@
-"""P&L explain between two mark sets, on an in-memory stand-in for the store.
+"""P&L explain between two mark sets, on an in-memory stand-in for the store (``FakeStore``: the
+members of ``ExplainSource`` and nothing more), and the store itself giving the same members.
 
 Sources: QuantLib 1.44 values the held option at both marks (actual P&L); the terms are the
 start's greeks times each input's change (the risk-based explain of PRACTICE.md §2, common
@@ -7,19 +8,22 @@ practice); new trades' P&L = (end mark − trade price) × quantity × multiplie
 
 from __future__ import annotations
 
+import inspect
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from datetime import UTC, date, datetime, timedelta
+from pathlib import Path
 
 import numpy as np
 import pytest
+from books import RATE, SPOTS, Row, make_book, make_market, ql_price
 
 from blotter import calendar as cal
 from blotter.book import Book
 from blotter.market import Market
 from blotter.scenario import explain
-from blotter.store import TradeRecord
-
-from .scenario_books import RATE, SPOTS, Row, make_book, make_market, ql_price
+from blotter.scenario.pnl_explain import ExplainMarkSet, ExplainSource, ExplainTrade
+from blotter.store import open_store
 
 FRI = datetime(2026, 12, 4, 21, 0, tzinfo=UTC)
 MON = FRI + timedelta(days=3)
@@ -38,9 +42,18 @@ class SetInfo:
     seq: int = 0  # the set's place in the store's order: 10 × its id unless given
 
 
+@dataclass(frozen=True)
+class TradeInfo:
+    trade_id: int
+    contract_id: int
+    trade_time: datetime
+    seq: int
+    cancel_seq: int | None = None
+
+
 class FakeStore:
-    """The store calls explain makes, over fixed books and markets: ``held`` was written before
-    every set; each row of ``trades`` is one trade dealt at ``trade_time`` and written at place
+    """``ExplainSource`` over fixed books and markets: ``held`` was written before every set;
+    each row of ``trades`` is one trade dealt at ``trade_time`` and written at place
     ``trade_seq`` of the store's order (between sets 2 and 3 unless given)."""
 
     def __init__(
@@ -61,57 +74,32 @@ class FakeStore:
         self.trade_seq = trade_seq
         self.asked: list[tuple[str, object]] = []
 
-    def mark_sets(self, kind: str | None = None) -> list[SetInfo]:
-        return [s for s in self.sets if kind is None or s.kind == kind]
+    def mark_sets(self) -> list[SetInfo]:
+        return list(self.sets)
 
     def last_seq(self) -> int:
         return max([self.trade_seq, *(s.seq for s in self.sets)])
 
-    def load_market(self, mark_set_id: int | None = None, as_of: datetime | None = None) -> Market:
+    def load_market(self, mark_set_id: int | None = None) -> Market:
         self.asked.append(("market", mark_set_id))
         return self.now_market if mark_set_id is None else self.markets[mark_set_id]
 
-    def load_book(
-        self, book: str | None = None, as_of: datetime | None = None, before_seq: int | None = None
-    ) -> Book:
+    def load_book(self, *, before_seq: int) -> Book:
         self.asked.append(("book", before_seq))
-        if before_seq is not None and before_seq <= self.trade_seq:
+        if before_seq <= self.trade_seq:
             return self.held
         return self.held.with_trials(self.trade_book)  # distinct contract ids, one row each
 
-    def new_trades(
-        self, after_seq: int, before_seq: int | None = None, book: str | None = None
-    ) -> tuple[Book, np.ndarray]:
+    def new_trades(self, after_seq: int, before_seq: int | None = None) -> tuple[Book, np.ndarray]:
         self.asked.append(("trades", (after_seq, before_seq)))
         if after_seq < self.trade_seq < (before_seq or self.last_seq() + 1):
             return self.trade_book, self.prices
         return self.trade_book.take([]), self.prices[:0]
 
-    def trades(self) -> list[TradeRecord]:
+    def trades(self) -> list[TradeInfo]:
         b = self.trade_book
         return [
-            TradeRecord(
-                trade_id=100 + i,
-                book="test",
-                contract_id=int(b.contract_ids[i]),
-                contract=b.labels[i],
-                symbol="",
-                option_type="C",
-                expiry=None,
-                strike=None,
-                american=False,
-                multiplier=float(b.multipliers[i]),
-                cash_settled=False,
-                quantity=int(b.quantities[i]),
-                price=float(self.prices[i]),
-                trade_time=self.trade_time,
-                booked_at=self.trade_time,
-                who="test",
-                source="typed",
-                note="",
-                state="live",
-                seq=self.trade_seq,
-            )
+            TradeInfo(100 + i, int(b.contract_ids[i]), self.trade_time, self.trade_seq)
             for i in range(len(b))
         ]
 
@@ -277,3 +265,37 @@ def test_a_dividend_yield_mark_change_is_the_carry_term() -> None:
     assert rows["STK"].terms["rho"] == 0.0 and rows["IDX"].terms["carry"] == 0.0
     # What is left unexplained is theta's and the second-order carry's share, small next to it.
     assert abs(rows["STK"].unexplained) < 0.1 * abs(rows["STK"].terms["carry"])
+
+
+def _accepts_the_calls_of(method: Callable[..., object], member: Callable[..., object]) -> None:
+    """``method`` takes every argument the protocol's ``member`` declares, by position or by
+    keyword as declared, and needs no other."""
+    params = [p for p in inspect.signature(member).parameters.values() if p.name != "self"]
+    positional = [p for p in params if p.kind is p.POSITIONAL_OR_KEYWORD]
+    keywords = [p for p in params if p.kind is p.KEYWORD_ONLY]
+    have = inspect.signature(method)
+    have.bind(*(0 for _ in positional), **{p.name: 0 for p in keywords})
+    have.bind(
+        *(0 for p in positional if p.default is p.empty),
+        **{p.name: 0 for p in keywords if p.default is p.empty},
+    )
+
+
+@pytest.mark.parametrize("which", ["stand-in", "store"])
+def test_the_stand_in_and_the_store_give_what_explain_reads(which: str, demo_db: Path) -> None:
+    source = _store() if which == "stand-in" else open_store(demo_db, read_only=True)
+    assert isinstance(source, ExplainSource)
+    members = [
+        n for n, v in vars(ExplainSource).items() if inspect.isfunction(v) and n[0] != "_"
+    ]
+    assert sorted(members) == [
+        "last_seq", "load_book", "load_market", "mark_sets", "new_trades", "trades"
+    ]
+    for name in members:
+        _accepts_the_calls_of(getattr(source, name), getattr(ExplainSource, name))
+    sets, trades = source.mark_sets(), source.trades()
+    assert sets and trades
+    assert all(isinstance(s, ExplainMarkSet) for s in sets)
+    assert all(isinstance(t, ExplainTrade) for t in trades)
+    ex = explain(source)
+    assert ex.total.total == pytest.approx(ex.total.actual + ex.total.new_trades)

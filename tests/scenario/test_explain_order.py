@@ -17,11 +17,10 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from books import ql_price
 
 from blotter.scenario import explain
 from blotter.store import StoreError, create_store
-
-from .scenario_books import ql_price
 
 T0 = datetime(2026, 11, 23, 21, 0, tzinfo=UTC)  # Monday close, 16:00 New York
 T1 = datetime(2026, 11, 24, 21, 0, 0, 700_000, tzinfo=UTC)  # Tuesday close, 0.7 s past 16:00

@@ -15,11 +15,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from books import ql_price
 
 from blotter.scenario import explain
 from blotter.store import create_store
-
-from .scenario_books import ql_price
 
 T0 = datetime(2026, 11, 23, 21, 0, tzinfo=UTC)  # Monday close, 16:00 New York
 T1 = datetime(2026, 11, 24, 21, 0, tzinfo=UTC)  # Tuesday close

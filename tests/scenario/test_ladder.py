@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from books import T0, Row, make_book, make_market, mixed_rows
 
 from blotter.risk import value_book
 from blotter.scenario import (
@@ -18,8 +19,6 @@ from blotter.scenario import (
     ladder,
     parse_move,
 )
-
-from .scenario_books import T0, Row, make_book, make_market, mixed_rows
 
 
 def _book_with_american():

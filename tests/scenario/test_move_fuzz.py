@@ -20,10 +20,10 @@ from hypothesis import strategies as st
 
 from blotter import calendar as cal
 from blotter import limits
-from blotter.book import MOVE_PARTS, MOVE_WORDS
 from blotter.demo import DEMO_AS_OF, DEMO_TZ
 from blotter.risk import BookValuation, value_book
 from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
+from blotter.scenario.grammar import MOVE_PARTS, MOVE_WORDS
 from blotter.store import open_store
 
 SYMBOLS = ("DEMOIX", "DEMOA", "DEMOB", "DEMOC", "DEMOFU")

@@ -9,14 +9,13 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from books import T0, make_book, make_market, mixed_rows
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from blotter import calendar as cal
 from blotter.risk import value_book
 from blotter.scenario import apply_move, ladder, parse_move
-
-from .scenario_books import T0, make_book, make_market, mixed_rows
 
 BOOK = make_book(mixed_rows())
 MARKET = make_market()

@@ -13,22 +13,23 @@ import math
 
 import numpy as np
 import pytest
-
-from blotter import engine
-from blotter.risk import value_book
-from blotter.scenario import MoveError, apply_move, parse_move
-
-from .scenario_books import (
+from books import (
     RATE,
     SPOTS,
     T0,
     UNDERLYINGS,
     Row,
+    hull_book,
+    hull_market,
     make_book,
     make_market,
     mixed_rows,
     ql_price,
 )
+
+from blotter import engine
+from blotter.risk import value_book
+from blotter.scenario import MoveError, apply_move, parse_move
 
 VOLS = {"IDX": 0.20, "STK": 0.35, "FUT": 0.30, "FXA": 0.10}
 DIVS = dict(zip(UNDERLYINGS.symbols, UNDERLYINGS.div_yields, strict=True))
@@ -166,27 +167,7 @@ def _bs(
 
 
 def _hull():
-    from blotter.book import Underlyings
-    from blotter.market import Market, RateCurve
-
-    und = Underlyings(
-        symbols=("HUL",),
-        kinds=("stock",),
-        currencies=("USD",),
-        betas=np.array([1.0]),
-        div_yields=np.array([0.0]),
-        calendars=("NYSE",),
-    )
-    book = make_book([Row("HUL", 1, 50.0, call=True, mult=1, years=20 / 52)], und, ref=None)
-    m = make_market(spots={"HUL": 49.0}, vols={"HUL": 0.20})
-    m = Market(
-        version=1,
-        marks_as_of=m.marks_as_of,
-        spots=m.spots,
-        surfaces=m.surfaces,
-        curves={"USD": RateCurve(np.array([1.0]), np.array([0.05]))},
-    )
-    return value_book(book, m, T0)
+    return value_book(hull_book(), hull_market(), T0)
 
 
 def test_taylor_terms_for_one_option_match_hand_derived_values() -> None:

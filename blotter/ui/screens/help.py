@@ -51,39 +51,18 @@ CAUTIONS = (
     "The demo book is invented, with fictitious underlyings.",
 )
 
-FALLBACK_GRAMMAR = """\
-spot -3%          every underlying's spot down 3%
-spot +2.5         every spot up 2.5 currency units
-IDX spot -5%      one underlying (any symbol)
-spot -3% beta     each underlying moves beta × 3% (index-equivalent move)
-vol +2            every vol up 2 vol points (0.30 → 0.32)
-vol -10%          every vol times 0.9
-vol +2 weighted   each expiry's vol up 2 × √(T_ref/T) points
-days 3            three calendar days pass
-bdays 1           to the next business day (a Friday rolls over the weekend)
-rate +25bp        every rate up 25 basis points
-spot -3% vol +2 days 1      parts combine and apply together"""
-"""The forms every move parser accepts, used when ``blotter.scenario`` documents none."""
-
-
 def grammar_text() -> str:
     """The what-if grammar with examples, as ``blotter.scenario`` documents it (``EXAMPLES`` and
-    the closing paragraph of its module docstring on the vol rule and expiries)."""
-    try:
-        from blotter import scenario
-    except ImportError:
-        return FALLBACK_GRAMMAR
-    examples = getattr(scenario, "EXAMPLES", None)
-    if not examples:
-        return FALLBACK_GRAMMAR
-    width = max(len(e) for e, _ in examples) + 3
-    lines = [f"{example:<{width}}{meaning}" for example, meaning in examples]
+    the closing paragraph of its package docstring on the vol rule and expiries)."""
+    from blotter import scenario
+    from blotter.scenario.grammar import EXAMPLES
+
+    width = max(len(e) for e, _ in EXAMPLES) + 3
+    lines = [f"{example:<{width}}{meaning}" for example, meaning in EXAMPLES]
     doc = inspect.getdoc(scenario) or ""
     rule = doc.rsplit("\n\n", 1)[-1] if "sticky" in doc.rsplit("\n\n", 1)[-1] else ""
     if rule:
-        band = getattr(scenario, "PIN_BAND_PCT", None)
-        if band is not None:
-            rule = rule.replace("``PIN_BAND_PCT``", f"{band:g}%")
+        rule = rule.replace("``PIN_BAND_PCT``", f"{scenario.PIN_BAND_PCT:g}%")
         lines += ["", " ".join(rule.replace("``", "").split())]
     lines += [
         "",

@@ -9,10 +9,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from books import T0, make_market
 
 from blotter.market import VOL_FLOOR, RateCurve, VolSurface
-
-from .scenario_books import T0, make_market
 
 SURF = VolSurface(
     expiries=np.array(["2026-12-18"] * 3 + ["2027-03-19"] * 3, dtype="datetime64[D]"),

@@ -6,9 +6,14 @@ The meanings checked (a 2-point vol move takes 0.30 to 0.32, -10% takes it to 0.
 
 from __future__ import annotations
 
-import pytest
+from pathlib import Path
 
+import pytest
+from click.testing import CliRunner
+
+from blotter.cli import main
 from blotter.scenario import Move, MoveSyntaxError, SpotShift, VolShift, parse_move
+from blotter.scenario.grammar import EXAMPLES, MOVE_WORDS, SYMBOL_PATTERN
 
 SYMBOLS = ("IDX", "STK", "FUT", "FXA")
 
@@ -163,3 +168,50 @@ def test_describe_keeps_each_amount_as_typed() -> None:
     move = parse_move("spot -99.9999999% vol +2.5 days 3 rate +25bp")
     assert move.describe() == "spot -99.9999999% vol +2.5 days 3 rate +25bp"
     assert parse_move(move.describe()).spot[0].amount == move.spot[0].amount
+
+
+@pytest.mark.parametrize("word", MOVE_WORDS)
+def test_a_grammar_word_is_never_read_as_a_symbol(word: str) -> None:
+    """Why the store refuses these words as symbols: typed before ``spot``, each is read as the
+    grammar's own word (or refused), never as the name of an underlying."""
+    try:
+        move = parse_move(f"{word} spot -3%", [word, *SYMBOLS])
+    except MoveSyntaxError:
+        return
+    assert all(part.symbol is None for part in move.spot)
+
+
+@pytest.mark.parametrize("symbol", [*SYMBOLS, "BRK.B", "EUR/USD", "ES_F", "X-1"])
+def test_symbols_of_the_pattern_name_an_underlying(symbol: str) -> None:
+    assert SYMBOL_PATTERN.match(symbol)
+    move = parse_move(f"{symbol} spot -3%", [symbol])
+    assert move.spot == (SpotShift(symbol, -3.0, "%"),)
+
+
+README = Path(__file__).resolve().parents[2] / "README.md"
+
+DEMO_SYMBOLS = ("DEMOIX", "DEMOA", "DEMOB", "DEMOC", "DEMOFU")
+"""The demo book's underlyings (invented), which the examples name."""
+
+
+def _example_lines() -> list[str]:
+    return [f"{example:<24} {meaning}" for example, meaning in EXAMPLES]
+
+
+def test_every_example_parses_on_the_demo_book() -> None:
+    for example, _meaning in EXAMPLES:
+        assert not parse_move(example, DEMO_SYMBOLS).is_empty
+
+
+def test_the_readme_lists_the_examples_as_the_grammar_gives_them() -> None:
+    """The README cannot import the list, so it holds a copy that must stay the same."""
+    section = README.read_text(encoding="utf-8").split("### What-if moves", 1)[1]
+    block = section.split("```\n", 2)[1]
+    assert block.splitlines() == _example_lines()
+
+
+def test_whatif_help_shows_every_example_within_80_columns() -> None:
+    out = CliRunner().invoke(main, ["whatif", "--help"], catch_exceptions=False).output
+    for line in _example_lines():
+        assert line in out
+    assert max(len(line) for line in out.splitlines()) <= 80

@@ -1,4 +1,6 @@
-"""Small books and markets built in memory, and a QuantLib pricer valuing one position at a time.
+"""Small books and markets built in memory, and a QuantLib pricer valuing one position at a time,
+shared by the market, risk and scenario tests (``from books import ...``: pytest puts ``tests/``
+on the import path for its top conftest).
 
 Valuation instant: Friday 2026-12-04 20:00 UTC (15:00 in New York). Every option expires a whole
 number of days after it, so T = days / 365 exactly and QuantLib (Actual365Fixed, integer days)
@@ -7,10 +9,11 @@ sees the same year fraction.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 
 import numpy as np
+import pytest
 
 from blotter.book import Book, Underlyings
 from blotter.market import Market, RateCurve, VolSurface
@@ -170,3 +173,97 @@ def mixed_rows() -> list[Row]:
         Row("FXA", 4, 1.12, 40, True, mult=100000),
         Row("FXA", -6, 1.05, 75, False, mult=100000),
     ]
+
+
+@pytest.fixture
+def mixed_book() -> Book:
+    """Options on all four kinds of underlying plus a stock and a futures hedge."""
+    return make_book(mixed_rows())
+
+
+HULL = Underlyings(
+    symbols=("HUL",),
+    kinds=("stock",),
+    currencies=("USD",),
+    betas=np.array([1.0]),
+    div_yields=np.array([0.0]),
+    calendars=("NYSE",),
+)
+"""The stock of J. C. Hull's running greeks example (Options, Futures, and Other Derivatives, 9th
+ed. 2015, Ch. 19): S0 = 49, no dividend."""
+
+HULL_YEARS = 20 / 52
+"""The example's call expires in 20 weeks."""
+
+
+def hull_market(spot: float = 49.0) -> Market:
+    """The example's market: spot 49, σ = 20%, r = 5% flat."""
+    m = make_market(spots={"HUL": spot}, vols={"HUL": 0.20})
+    return replace(m, curves={"USD": RateCurve(np.array([1.0, 3650.0]), np.array([0.05, 0.05]))})
+
+
+def hull_book(qty: float = 1.0, mult: float = 1.0) -> Book:
+    """``qty`` of the example's 50-strike call, ``mult`` units each."""
+    row = Row("HUL", qty, 50.0, call=True, mult=mult, years=HULL_YEARS)
+    return make_book([row], HULL, ref=None)
+
+
+def without(market: Market, spot: str | None = None, surface: str | None = None) -> Market:
+    """``market`` lacking the spot ``spot`` and the vol surface ``surface``."""
+    spots = {k: v for k, v in market.spots.items() if k != spot}
+    surfaces = {k: v for k, v in market.surfaces.items() if k != surface}
+    return replace(market, spots=spots, surfaces=surfaces)
+
+
+# A book in two currencies: a USD stock and index, a EUR stock (with a EUR hedge).
+
+TWO_CCY = Underlyings(
+    symbols=("USX", "EUX", "USI"),
+    kinds=("stock", "stock", "index"),
+    currencies=("USD", "EUR", "USD"),
+    betas=np.array([1.2, 0.9, 1.0]),
+    div_yields=np.array([0.02, 0.01, 0.015]),
+    calendars=("NYSE", "NYSE", "NYSE"),
+)
+TWO_CCY_SPOTS = {"USX": 100.0, "EUX": 50.0, "USI": 4000.0}
+TWO_CCY_VOLS = {"USX": 0.30, "EUX": 0.25, "USI": 0.18}
+TWO_CCY_RATES = {"USD": 0.03, "EUR": 0.02}
+TWO_CCY_ROWS = [
+    Row("USX", 10, 100.0, 30, True),
+    Row("EUX", -20, 50.0, 30, False),
+    Row("EUX", 400, mult=1),
+    Row("USI", 2, 4100.0, 90, True),
+]
+
+
+def two_ccy_market() -> Market:
+    """Flat surfaces and one flat curve per currency for ``TWO_CCY_ROWS``."""
+    m = make_market(spots=TWO_CCY_SPOTS, vols=TWO_CCY_VOLS)
+    curves = {
+        c: RateCurve(np.array([1.0, 3650.0]), np.array([r, r])) for c, r in TWO_CCY_RATES.items()
+    }
+    return replace(m, curves=curves)
+
+
+def two_ccy_currency(r: Row) -> str:
+    """The currency of a position of ``TWO_CCY_ROWS``."""
+    return TWO_CCY.currencies[TWO_CCY.index_of(r.sym)]
+
+
+def two_ccy_ql(r: Row, spot: float | None = None, days_passed: int = 0) -> float:
+    """QuantLib's value of one position of ``TWO_CCY_ROWS``, in its own currency."""
+    s = TWO_CCY_SPOTS[r.sym] if spot is None else spot
+    if r.strike is None:
+        return r.qty * r.mult * s
+    q = float(TWO_CCY.div_yields[TWO_CCY.index_of(r.sym)])
+    rate = TWO_CCY_RATES[two_ccy_currency(r)]
+    price = ql_price(r.call, s, r.strike, r.days - days_passed, rate, q, TWO_CCY_VOLS[r.sym])
+    return r.qty * r.mult * price
+
+
+def by_currency(values: list[float]) -> dict[str, float]:
+    """Per-position ``values`` of ``TWO_CCY_ROWS`` summed per currency."""
+    out: dict[str, float] = {}
+    for r, x in zip(TWO_CCY_ROWS, values, strict=True):
+        out[two_ccy_currency(r)] = out.get(two_ccy_currency(r), 0.0) + x
+    return out

@@ -11,11 +11,9 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import pytest
+from books import RATE, SPOTS, T0, Row, hull_book, hull_market, make_book, make_market
 
-from blotter.book import Underlyings
-from blotter.market import Market, RateCurve
 from blotter.risk import (
     aggregate,
     beta_delta_index_units,
@@ -23,33 +21,9 @@ from blotter.risk import (
     value_book,
 )
 
-from .scenario_books import RATE, SPOTS, T0, Row, make_book, make_market
-
-HULL = Underlyings(
-    symbols=("HUL",),
-    kinds=("stock",),
-    currencies=("USD",),
-    betas=np.array([1.0]),
-    div_yields=np.array([0.0]),
-    calendars=("NYSE",),
-)
-HULL_T = 20 / 52
-
-
-def _hull_market(spot: float = 49.0) -> Market:
-    m = make_market(spots={"HUL": spot}, vols={"HUL": 0.20})
-    return Market(
-        version=1,
-        marks_as_of=m.marks_as_of,
-        spots=m.spots,
-        surfaces=m.surfaces,
-        curves={"USD": RateCurve(np.array([1.0, 3650.0]), np.array([0.05, 0.05]))},
-    )
-
 
 def _hull_valuation(qty: float = 1.0, mult: float = 1.0):
-    book = make_book([Row("HUL", qty, 50.0, call=True, mult=mult, years=HULL_T)], HULL, ref=None)
-    return value_book(book, _hull_market(), T0)
+    return value_book(hull_book(qty, mult), hull_market(), T0)
 
 
 def _ql_greeks(
