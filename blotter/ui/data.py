@@ -16,8 +16,9 @@ from typing import Any
 import numpy as np
 
 from blotter import calendar as cal
-from blotter import limits, risk
+from blotter import risk
 from blotter.book import Book
+from blotter.desk.entry import ContractTerms, mark_unit
 from blotter.printable import printable
 from blotter.ui import fmt
 
@@ -562,14 +563,8 @@ class MarkPoint:
         return f"{d * 1e4:+.1f} bp" if d else "0"
 
     def unit(self) -> str:
-        """What a typed number means in this cell."""
-        if self.kind == "spot":
-            return "price in the underlying's currency"
-        if self.kind == "vol" and self.strike is None:
-            return "vol in % at the strike = spot, or $price to solve it"
-        if self.kind == "vol":
-            return "vol in % (24.5 = 24.5%), or $price of the option to solve its vol"
-        return "% (4.1 = 4.1%)"
+        """What a typed number means in this cell (``desk.entry.mark_unit``)."""
+        return mark_unit(self.kind, atm=self.strike is None)
 
 
 def _point_key(kind: str, symbol: Any, currency: Any, expiry: Any, strike: Any, tenor: Any) -> str:
@@ -711,75 +706,6 @@ def close_review(view: MarksView, now: datetime) -> CloseReview:
     )
 
 
-def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
-    """A typed cell: ``("value", stored value)`` or ``("price", option price)`` for ``$12.3``.
-
-    ValueError with a reason for text that is not a number. Vol, rate and yield are typed in %.
-    """
-    t = text.strip().replace(",", "")
-    if not t:
-        raise ValueError("type a number")
-    if t[0] in "$pP" and point.kind == "vol":
-        try:
-            price = float(t[1:].strip())
-        except ValueError:
-            raise ValueError(f"{t[1:]!r} is not a price") from None
-        return "price", limits.PRICE.check(price)
-    try:
-        x = float(t.rstrip("%"))
-    except ValueError:
-        raise ValueError(f"{t!r} is not a number ({point.unit()})") from None
-    return "value", x if point.kind == "spot" else x / 100.0
-
-
-def solve_vol(
-    valuation: risk.BookValuation, point: MarkPoint, price: float
-) -> tuple[float | None, str, bool]:
-    """Implied vol of ``price`` for the point's option, via ``engine.implied_vol``.
-
-    Time, rate and carry come from a position of the same underlying and expiry; the option is the
-    out-of-the-money one at the point's strike (ATM: the spot). Returns (vol or None, words,
-    is_call).
-    """
-    from blotter import engine
-    from blotter.engine.results import IV_STATUS
-
-    book = valuation.book
-    sym = point.symbol or ""
-    try:
-        j = book.underlyings.index_of(sym)
-    except KeyError:
-        return None, f"{sym} is not in the book", True
-    candidates = np.flatnonzero((book.underlying_idx == j) & book.is_option & valuation.live)
-    rows = [
-        int(i)
-        for i in candidates
-        if book.expiry_dates[i].astype(object) == point.expiry
-    ]
-    if not rows:
-        return None, "no live position at this expiry to take time, rate and carry from", True
-    i = rows[0]
-    spot = float(valuation.spot[i])
-    strike = spot if point.strike is None else float(point.strike)
-    is_call = strike >= spot
-    iv = engine.implied_vol(
-        price,
-        is_call,
-        spot,
-        strike,
-        float(valuation.years[i]),
-        float(valuation.rate[i]),
-        float(valuation.carry[i]),
-        bool(book.american[i]),
-    )
-    status = int(np.asarray(iv.status).reshape(-1)[0])
-    kind = "call" if is_call else "put"
-    if status != 0:
-        return None, f"{kind} price {price:g} refused: {IV_STATUS.get(status, status)}", is_call
-    vol = float(np.asarray(iv.vol).reshape(-1)[0])
-    return vol, f"{kind} price {price:g} → implied vol {vol * 100:.2f}%", is_call
-
-
 # -- Trades screen and trial trades -----------------------------------------------------------
 @dataclass(frozen=True)
 class TrialTrade:
@@ -874,65 +800,6 @@ def matches(cells: Sequence[str], query: str) -> bool:
     """Whether every word of ``query`` occurs in the row's cells (case-insensitive)."""
     text = " ".join(cells).lower()
     return all(w in text for w in query.lower().split())
-
-
-@dataclass(frozen=True)
-class ContractTerms:
-    """A contract as typed in the trade form; ``expiry`` None with strike None is the underlying."""
-
-    symbol: str
-    expiry: Any  # datetime.date | None
-    strike: float | None
-    is_call: bool | None
-
-    def label(self) -> str:
-        if self.expiry is None:
-            return f"{self.symbol} (the underlying)"
-        return f"{self.symbol} {self.expiry} {self.strike:g} {'C' if self.is_call else 'P'}"
-
-
-def parse_terms(symbol: str, expiry: str, strike: str, call_put: str) -> ContractTerms:
-    """Contract terms from the form's fields; ValueError naming the field that is wrong."""
-    from datetime import date
-
-    sym = symbol.strip().upper()
-    if not sym:
-        raise ValueError("symbol: type the underlying's symbol")
-    if not expiry.strip() and not strike.strip() and not call_put.strip():
-        return ContractTerms(sym, None, None, None)
-    try:
-        day = date.fromisoformat(expiry.strip())
-    except ValueError:
-        raise ValueError(f"expiry: {expiry.strip()!r} is not an ISO date (2027-03-19)") from None
-    limits.check_date(day, "expiry")
-    try:
-        k = float(strike.replace(",", ""))
-    except ValueError:
-        raise ValueError(f"strike: {strike.strip()!r} is not a number") from None
-    limits.LEVEL.check(k, "strike")
-    cp = call_put.strip().upper()[:1]
-    if cp not in ("C", "P"):
-        raise ValueError("call/put: type C or P")
-    return ContractTerms(sym, day, k, cp == "C")
-
-
-def find_contract(contracts: Sequence[Any], terms: ContractTerms) -> Any | None:
-    """The ``store.ContractRecord`` with ``terms``, or None when the store has none yet."""
-    for c in contracts:
-        if c.symbol != terms.symbol:
-            continue
-        if terms.expiry is None:
-            if c.option_type == "U":
-                return c
-            continue
-        if (
-            c.option_type == ("C" if terms.is_call else "P")
-            and c.expiry == terms.expiry
-            and c.strike is not None
-            and abs(c.strike - float(terms.strike or 0)) < 1e-9
-        ):
-            return c
-    return None
 
 
 # -- Watch list -------------------------------------------------------------------------------

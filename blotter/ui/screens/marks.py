@@ -22,6 +22,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Static
 from textual.worker import get_current_worker
 
+from blotter.desk import entry
 from blotter.ui import data
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
@@ -238,7 +239,7 @@ class MarksScreen(DeskScreen):
         if point is None:
             return
         try:
-            what, x = data.parse_mark(point, event.value)
+            what, x = entry.parse_mark(point.kind, event.value)
         except ValueError as exc:
             self.say(f"✗ refused: {exc}; nothing written", bad=True)
             return
@@ -248,7 +249,9 @@ class MarksScreen(DeskScreen):
             if state is None:
                 self.say("✗ the book is still loading", bad=True)
                 return
-            vol, words, _ = data.solve_vol(state.valuation, point, x)
+            vol, words, _ = entry.solve_vol(
+                state.valuation, point.symbol or "", point.expiry, point.strike, x
+            )
             if vol is None:
                 self.say(f"✗ {words}; nothing written", bad=True)
                 return
@@ -264,16 +267,16 @@ class MarksScreen(DeskScreen):
         try:
             st = open_store(self.app)
             try:
-                if point.kind == "spot":
-                    st.log_spot(point.symbol, value, note="typed in the app")
-                elif point.kind == "vol":
-                    st.log_vol(
-                        point.symbol, point.expiry, value, point.strike, note="typed in the app"
-                    )
-                elif point.kind == "div_yield":
-                    st.log_div_yield(point.symbol, value, note="typed in the app")
-                else:
-                    st.log_rate(point.currency, point.tenor_days, value, note="typed in the app")
+                entry.write_mark(
+                    st,
+                    point.kind,
+                    value,
+                    symbol=point.symbol,
+                    currency=point.currency,
+                    expiry=point.expiry,
+                    strike=point.strike,
+                    tenor_days=point.tenor_days,
+                )
             finally:
                 st.close()
         except (store.StoreError, ValueError, KeyError) as exc:

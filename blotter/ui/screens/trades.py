@@ -21,7 +21,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.worker import get_current_worker
 
-from blotter import limits
+from blotter.desk import entry
 from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import app_bindings
@@ -209,43 +209,15 @@ class TradesScreen(DeskScreen):
         self.write("promote", list(self.blotter.trials))
 
     @work(thread=True, exclusive=True, group="trades-write", exit_on_error=False)
-    def write(self, what: str, arg: Any, **kw: Any) -> None:
-        """One change through the store (each a new row): add, cancel, amend or promote trials."""
+    def write(self, what: str, arg: Any) -> None:
+        """One change through the store (each a new row): a typed ticket or the promoted trials."""
         from blotter import store
 
         t0 = time.perf_counter()
         try:
             st = open_store(self.app)
             try:
-                if what == "add":
-                    terms: data.ContractTerms = arg
-                    new_id = st.add_trade(
-                        kw["book"],
-                        terms.symbol,
-                        kw["quantity"],
-                        kw["price"],
-                        terms.expiry,
-                        terms.strike,
-                        terms.is_call,
-                        note=kw.get("note", ""),
-                        source="typed",
-                    )
-                    words = (
-                        f"✓ trade {new_id} booked: {terms.label()} ×{kw['quantity']:+d} "
-                        f"at {kw['price']:g}"
-                    )
-                elif what == "cancel":
-                    st.cancel_trade(arg.trade_id, kw["reason"])
-                    words = f"✓ trade {arg.trade_id} cancelled: {kw['reason']}"
-                elif what == "amend":
-                    new_id = st.amend_trade(
-                        arg.trade_id,
-                        reason=kw["reason"],
-                        quantity=kw.get("quantity"),
-                        price=kw.get("price"),
-                    )
-                    words = f"✓ trade {arg.trade_id} amended: now trade {new_id}"
-                else:  # promote
+                if what == "promote":
                     ids = [
                         st.add_trade(
                             t.book,
@@ -263,6 +235,8 @@ class TradesScreen(DeskScreen):
                         for t in arg
                     ]
                     words = f"✓ {len(ids)} trial(s) booked as trades {', '.join(map(str, ids))}"
+                else:
+                    words = "✓ " + entry.write_ticket(st, arg)
             finally:
                 st.close()
         except (store.StoreError, ValueError, KeyError) as exc:
@@ -322,7 +296,7 @@ class TradeForm(ModalScreen[None]):
         self.trades = trades
         self.kind = kind  # trade, trial, amend or cancel
         self.trade = trade
-        self.confirm_new: data.ContractTerms | None = None
+        self.confirm_new: entry.ContractTerms | None = None
 
     def _fields(self) -> tuple[tuple[str, str], ...]:
         return FIELDS["trade" if self.kind in ("trade", "trial") else self.kind]
@@ -406,43 +380,25 @@ class TradeForm(ModalScreen[None]):
         if app.read_only and self.kind != "trial":
             self.say(READ_ONLY_WORDS)
             return
+        fields = {key: self.value(key) for key, _ in self._fields()}
         try:
             if self.kind == "cancel":
-                reason = self.value("reason").strip()
-                if not reason:
-                    raise ValueError("reason: a cancel needs a reason")
-                self.trades.write("cancel", self.trade, reason=reason)
+                reason = entry.parse_reason(fields["reason"], "a cancel")
+                self.trades.write("cancel", entry.Cancel(self.trade.trade_id, reason))
                 return
-            qty_text = self.value("qty").replace(",", "").strip()
-            try:
-                qty = int(qty_text)
-            except ValueError:
-                raise ValueError(f"quantity: {qty_text!r} is not a whole number") from None
-            if qty == 0:
-                raise ValueError("quantity: must not be zero (+ buys, - sells)")
-            limits.QUANTITY.check(qty)
-            price_text = self.value("price").replace(",", "").strip()
-            try:
-                price = float(price_text)
-            except ValueError:
-                raise ValueError(f"price: {price_text!r} is not a number") from None
-            limits.PRICE.check(price)
             if self.kind == "amend":
-                reason = self.value("reason").strip()
-                if not reason:
-                    raise ValueError("reason: an amend needs a reason")
-                self.trades.write("amend", self.trade, reason=reason, quantity=qty, price=price)
+                qty = entry.parse_quantity(fields["qty"])
+                price = entry.parse_price(fields["price"])
+                reason = entry.parse_reason(fields["reason"], "an amend")
+                amend = entry.Amend(self.trade.trade_id, qty, price, reason)
+                self.trades.write("amend", amend)
                 return
-            terms = data.parse_terms(
-                self.value("symbol"), self.value("expiry"), self.value("strike"), self.value("cp")
-            )
-            if self.trades.symbols and terms.symbol not in self.trades.symbols:
-                raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
-            book = self.value("book").strip() or "main"
+            ticket = entry.parse_new_trade(fields, self.trades.symbols)
         except ValueError as exc:
             self.say(f"✗ {exc}")
             return
-        contract = data.find_contract(self.trades.contracts, terms)
+        terms, qty, price, book = ticket.terms, ticket.quantity, ticket.price, ticket.book
+        contract = entry.find_contract(self.trades.contracts, terms)
         if self.kind == "trial":
             new = contract is None
             if new:
@@ -464,6 +420,4 @@ class TradeForm(ModalScreen[None]):
                 f"New contract {terms.label()} will be created: F5 (or Enter) again to confirm"
             )
             return
-        self.trades.write(
-            "add", terms, book=book, quantity=qty, price=price, note=self.value("note")
-        )
+        self.trades.write("add", ticket)
