@@ -26,6 +26,8 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
+from blotter.desk import session
+from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import KEYS, app_bindings
@@ -128,8 +130,7 @@ class BlotterApp(App[None]):
         self.first_paint: float | None = None
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
-        self.trials: list[data.TrialTrade] = []
-        self._trial_seq = 0
+        self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
         self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
@@ -244,65 +245,34 @@ class BlotterApp(App[None]):
     def _load_worker(self) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``.
 
-        The trial trades held in memory are layered on the live book (``Book.with_trials``).
+        ``desk.session`` reads and values; the trial trades held in memory are layered on.
         """
-        from blotter import risk
-
         worker = get_current_worker()
-        trials = list(self.trials)
-        t0 = time.perf_counter()
+        trials = self.trial_trades.all()
         try:
             if self.loader is not None:
-                book, market, version = self.loader()
+                loaded = session.Loaded(*self.loader())
             else:
                 from blotter import store
 
                 st = store.open_store(self.db_path, read_only=self.read_only, desk_tz=self.tz)
                 try:
-                    book = st.load_book()
-                    market = st.load_market()
-                    version = int(st.data_version())
-                    if trials:
-                        book = data.trial_book(book, trials)
+                    loaded = session.read(st)
                 finally:
-                    close = getattr(st, "close", None)
-                    if close is not None:
-                        close()
+                    st.close()
             self.post_message(LoadProgress(1))
-            now = self.clock()
-            # The boundaries solved so far serve the reload too: they are keyed by exact
-            # inputs, so a mark that changed only misses.
             previous = self.state.valuation.boundaries if self.state is not None else None
-            valuation = risk.value_book(
-                book,
-                market,
-                np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s"),
-                tz=self.tz,
-                boundaries=previous,
+            valued = session.value(
+                loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valuation, self.tz, self._row_alert)
+            tree = data.BookTree(valued.valuation, self.tz, self._row_alert)
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
             return
-        marks_as_of = market.marks_as_of
-        if marks_as_of.tzinfo is None:
-            marks_as_of = marks_as_of.replace(tzinfo=UTC)
         state = data.BookState(
-            book_seq=0,
-            db_path=self.db_path,
-            read_only=self.read_only,
-            book_name=book.name,
-            valuation=valuation,
-            tree=tree,
-            data_version=version,
-            valuation_time=now,
-            marks_as_of=marks_as_of,
-            mark_set_id=market.mark_set_id,
-            mark_kind=market.mark_kind,
-            seconds=time.perf_counter() - t0,
-            notes=tuple(valuation.notes),
+            book_seq=0, db_path=self.db_path, read_only=self.read_only, session=valued, tree=tree
         )
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
@@ -376,7 +346,8 @@ class BlotterApp(App[None]):
             alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
         unvalued = self.state.valuation.unvalued
         if unvalued:
-            n, names = data.unvalued_count(unvalued), data.missing_by_name(unvalued, most=2)
+            n = session.unvalued_count(unvalued)
+            names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
@@ -544,16 +515,10 @@ class BlotterApp(App[None]):
         self.query_one(WhatIfBar).show_error(text, message.reason, 0, len(text))
 
     def _roll_days(self, move: Any) -> float:
-        """Calendar days of the move's roll (business days via ``scenario.roll_time``)."""
-        if move is None or self.state is None:
+        """Calendar days of the move's roll (``desk.session.roll_days``)."""
+        if self.state is None:
             return 0.0
-        if not getattr(move, "bdays", 0):
-            return float(getattr(move, "days", 0.0))
-        from blotter import scenario
-
-        t0 = self.state.valuation.valuation_time
-        t1 = scenario.roll_time(self.state.valuation, move)
-        return float((t1 - t0) / np.timedelta64(1, "s")) / 86400.0
+        return session.roll_days(self.state.valuation, move)
 
     # -- ladder and profile ---------------------------------------------------------------------
     def start_ladder(self, state: data.BookState, days: float) -> None:
@@ -721,25 +686,28 @@ class BlotterApp(App[None]):
     # -- trial trades ----------------------------------------------------------------------------
     def add_trial(self, contract: Any, quantity: int, price: float, book: str) -> None:
         """Layer a trial trade of ``contract`` (a ``store.ContractRecord``) on the live book."""
-        self._trial_seq += 1
-        self.trials.append(data.TrialTrade(self._trial_seq, contract, quantity, price, book))
+        self.trial_trades.add(contract, quantity, price, book)
         self.load_book()
 
     def remove_trial(self, trial_id: int) -> None:
-        self.trials = [t for t in self.trials if t.trial_id != trial_id]
+        self.trial_trades.remove(trial_id)
         self.load_book()
 
     def clear_trials(self, reload: bool = True) -> None:
         """Drop every trial trade (nothing was written for them)."""
-        n = len(self.trials)
-        self.trials = []
+        n = self.trial_trades.clear()
         if reload:
             self.load_book()
             if n:
                 self.notify(f"{n} trial trade(s) cleared; the store is untouched", timeout=3)
 
+    @property
+    def trials(self) -> list[TrialTrade]:
+        """The trial trades layered on the live book, oldest first (a copy)."""
+        return self.trial_trades.all()
+
     def action_clear_trials(self) -> None:
-        if not self.trials:
+        if not self.trial_trades:
             self.notify("no trial trades to clear", timeout=3)
             return
         self.clear_trials()

@@ -9,16 +9,16 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
-from datetime import UTC, date, datetime, timedelta
+from dataclasses import dataclass
+from datetime import date, datetime, timedelta
 from typing import Any
 
 import numpy as np
 
-from blotter import calendar as cal
 from blotter import risk
 from blotter.book import Book
-from blotter.desk.entry import ContractTerms, mark_unit
+from blotter.desk.entry import mark_unit
+from blotter.desk.session import Session, age_words
 from blotter.printable import printable
 from blotter.ui import fmt
 
@@ -311,75 +311,23 @@ class BookTree:
         return out
 
 
-def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:
-    """The marks the left-out positions lack, by symbol or currency: ``CCC: spot, vol; EUR: rate``
-    (at most ``most`` names, then how many more)."""
-    kinds: dict[str, list[str]] = {}
-    for u in unvalued:
-        for m in u.missing:
-            seen = kinds.setdefault(m.name, [])
-            if m.kind not in seen:
-                seen.append(m.kind)
-    parts = [f"{name}: {', '.join(k)}" for name, k in kinds.items()]
-    more = f"; {len(parts) - most} more" if len(parts) > most else ""
-    return "; ".join(parts[:most]) + more
-
-
-def unvalued_count(unvalued: Sequence[risk.UnvaluedPosition]) -> int:
-    """How many positions (contracts) a valuation left out."""
-    return len({u.contract_id for u in unvalued})
-
-
-def unvalued_words(unvalued: Sequence[risk.UnvaluedPosition]) -> str:
-    """The positions a valuation left out, in a few words: ``2 positions not valued (CCC: spot,
-    vol; EUR: rate)``; empty when there are none."""
-    if not unvalued:
-        return ""
-    n = unvalued_count(unvalued)
-    return f"{n} position{'' if n == 1 else 's'} not valued ({missing_by_name(unvalued)})"
-
-
-@dataclass(frozen=True)
-class MarksAge:
-    """How old the marks are, in words, and whether they predate the last business day's close."""
-
-    words: str
-    stale: bool
-    last_close: datetime | None
-
-
-def marks_age(
-    marks_as_of: datetime, now: datetime, tz: Any, calendar_name: str = "NYSE"
-) -> MarksAge:
-    """Age of the marks at ``now``; stale when older than the last business-day close."""
-    age = now - marks_as_of
-    local_now = now.astimezone(tz)
-    day: np.datetime64 = np.datetime64(local_now.date(), "D")
-    close_today = datetime.combine(local_now.date(), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
-        day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
-    last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    stale = marks_as_of < last_close - timedelta(minutes=1)
-    return MarksAge(words=fmt.age_words(age), stale=bool(stale), last_close=last_close)
-
-
 @dataclass(repr=False)
 class BookState:
-    """One load of the book: what it is, where from, the base valuation and the pane's rows."""
+    """One load of the book as the app shows it: the desk session and the Book pane's rows."""
 
     book_seq: int
     db_path: str
     read_only: bool
-    book_name: str
-    valuation: risk.BookValuation
+    session: Session
     tree: BookTree
-    data_version: int
-    valuation_time: datetime
-    marks_as_of: datetime
-    mark_set_id: int | None
-    mark_kind: str
-    seconds: float = 0.0
-    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def valuation(self) -> risk.BookValuation:
+        return self.session.valuation
+
+    @property
+    def data_version(self) -> int:
+        return self.session.data_version
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return (
@@ -700,85 +648,13 @@ def close_review(view: MarksView, now: datetime) -> CloseReview:
         elif p.value != p.close_value:
             changed.append(f"{name} {p.shown(p.close_value)} → {p.shown(p.value)} ({p.change()})")
         if p.marked_at is not None and now - p.marked_at > STALE_AFTER:
-            stale.append(f"{name} marked {fmt.age_words(now - p.marked_at)} ago")
+            stale.append(f"{name} marked {age_words(now - p.marked_at)} ago")
     return CloseReview(
         tuple(changed), tuple(missing), tuple(stale), n, view.close_day, view.day_closed_by
     )
 
 
 # -- Trades screen and trial trades -----------------------------------------------------------
-@dataclass(frozen=True)
-class TrialTrade:
-    """A trade layered on the live book in memory only; ``contract`` is a store ContractRecord."""
-
-    trial_id: int
-    contract: Any
-    quantity: int
-    price: float
-    book: str
-
-
-def trial_contract(
-    underlyings: dict[str, dict[str, Any]], terms: ContractTerms, trials: Sequence[TrialTrade]
-) -> Any:
-    """A ``store.ContractRecord`` for a trial on a contract the store does not have yet: the
-    underlying's defaults (``store.preview_contract``), with a negative id of its own (the same
-    id as an earlier trial of the same new contract). ValueError naming what is wrong."""
-    from blotter import store
-
-    und = underlyings.get(terms.symbol)
-    if und is None:
-        raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
-    label = store.contract_label(
-        terms.symbol,
-        "U" if terms.expiry is None else ("C" if terms.is_call else "P"),
-        terms.expiry,
-        terms.strike,
-    )
-    new_ids = [t.contract.contract_id for t in trials if t.contract.contract_id < 0]
-    same = [t.contract.contract_id for t in trials if t.contract.label == label]
-    cid = same[0] if same else min(new_ids, default=0) - 1
-    try:
-        return store.preview_contract(und, terms.expiry, terms.strike, terms.is_call, cid)
-    except store.StoreError as exc:
-        raise ValueError(str(exc)) from None
-
-
-def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
-    """The live book with the trials appended as ``is_trial`` rows (``Book.with_trials``)."""
-    if not trials:
-        return live
-    und = live.underlyings
-    cs = [t.contract for t in trials]
-    opt = [c.option_type != "U" for c in cs]
-    rows = Book(
-        name=live.name,
-        underlyings=und,
-        reference_index=live.reference_index,
-        contract_ids=np.array([c.contract_id for c in cs], dtype=np.int64),
-        labels=tuple(c.label for c in cs),
-        underlying_idx=np.array([und.index_of(c.symbol) for c in cs], dtype=np.int64),
-        is_option=np.array(opt, dtype=bool),
-        is_call=np.array([c.option_type == "C" for c in cs], dtype=bool),
-        american=np.array([bool(c.american) for c in cs], dtype=bool),
-        strikes=np.array([c.strike if c.strike is not None else np.nan for c in cs]),
-        expiries=np.array(
-            [
-                np.datetime64(c.cutoff_utc.astimezone(UTC).replace(tzinfo=None), "s")
-                if c.cutoff_utc is not None
-                else np.datetime64("NaT", "s")
-                for c in cs
-            ],
-            dtype="datetime64[s]",
-        ),
-        multipliers=np.array([c.multiplier for c in cs], dtype=np.float64),
-        quantities=np.array([t.quantity for t in trials], dtype=np.float64),
-        cash_settled=np.array([bool(c.cash_settled) for c in cs], dtype=bool),
-        expiry_dates=np.array([c.expiry or "NaT" for c in cs], dtype="datetime64[D]"),
-    )
-    return live.with_trials(rows)
-
-
 def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
     """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
     clock), contract, quantity, price, state, book, who, source; text typed by people or read

@@ -12,6 +12,7 @@ from textual.binding import BindingType
 from textual.widgets import DataTable, Footer, Static
 from textual.worker import get_current_worker
 
+from blotter.desk import session
 from blotter.ui import fmt
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
@@ -136,9 +137,7 @@ class ExplainScreen(DeskScreen):
         self.query_one(".desk-title", Static).update(
             Text(f"Explain: P&L from {start} to {end}", style="bold")
         )
-        from blotter.ui import data
-
-        left_out = data.unvalued_words(getattr(result, "unvalued", ()))
+        left_out = session.unvalued_words(getattr(result, "unvalued", ()))
         notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])
         self.say(
             "Start greeks on the positions held at the start; new trades: end value − trade "

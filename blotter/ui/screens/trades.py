@@ -21,7 +21,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.worker import get_current_worker
 
-from blotter.desk import entry
+from blotter.desk import entry, trials
 from blotter.printable import printable
 from blotter.ui import data
 from blotter.ui.keys import app_bindings
@@ -218,22 +218,7 @@ class TradesScreen(DeskScreen):
             st = open_store(self.app)
             try:
                 if what == "promote":
-                    ids = [
-                        st.add_trade(
-                            t.book,
-                            t.contract.symbol,
-                            t.quantity,
-                            t.price,
-                            t.contract.expiry,
-                            t.contract.strike,
-                            None
-                            if t.contract.option_type == "U"
-                            else t.contract.option_type == "C",
-                            note="promoted trial",
-                            source="typed",
-                        )
-                        for t in arg
-                    ]
+                    ids = trials.promote(st, arg)
                     words = f"✓ {len(ids)} trial(s) booked as trades {', '.join(map(str, ids))}"
                 else:
                     words = "✓ " + entry.write_ticket(st, arg)
@@ -403,7 +388,7 @@ class TradeForm(ModalScreen[None]):
             new = contract is None
             if new:
                 try:
-                    contract = data.trial_contract(self.trades.underlyings, terms, app.trials)
+                    contract = trials.trial_contract(self.trades.underlyings, terms, app.trials)
                 except (ValueError, KeyError) as exc:
                     self.say(f"✗ {exc}")
                     return

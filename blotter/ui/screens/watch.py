@@ -12,6 +12,7 @@ from textual.containers import VerticalScroll
 from textual.widgets import Footer, Static
 from textual.worker import get_current_worker
 
+from blotter.desk import session
 from blotter.ui import data, fmt
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
@@ -68,7 +69,8 @@ class WatchScreen(DeskScreen):
         state = self.blotter.state
         unvalued = state.valuation.unvalued if state is not None else ()
         if unvalued:
-            text.append(f"{data.unvalued_words(unvalued)}: left out of every total\n", style="bold")
+            left_out = session.unvalued_words(unvalued)
+            text.append(f"{left_out}: left out of every total\n", style="bold")
             for u in unvalued:
                 for m in u.missing:
                     text.append(f"  {u.label}: {m.words()}\n    log it with: {m.command}\n")
