@@ -26,7 +26,7 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
-from blotter.desk import session
+from blotter.desk import limits, session
 from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
 from blotter.ui import data
@@ -132,8 +132,7 @@ class BlotterApp(App[None]):
         self._stop_watch = threading.Event()
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
-        self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
-        self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
+        self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
 
@@ -278,41 +277,16 @@ class BlotterApp(App[None]):
             self.post_message(BookLoaded(state))
 
     def _row_alert(self, row: Any) -> str:
-        """Limit breaches of a Book row in words: book limits on the total, per-underlying ones
-        on each underlying (``[alerts]`` in the config file)."""
-        alerts = self.settings.alerts
-        words = []
-        if row.key == "total":
-            delta_limit, vega_limit = alerts.delta_cash, alerts.vega_pt
-        elif row.underlying is not None:
-            delta_limit, vega_limit = alerts.underlying_delta_cash, alerts.underlying_vega_pt
-        else:
-            return ""
-        if delta_limit and abs(row.delta_cash) > delta_limit:
-            words.append(f"|Δ $| over {delta_limit:,.0f}")
-        if vega_limit and abs(row.vega_pt) > vega_limit:
-            words.append(f"|vega| over {vega_limit:,.0f}")
-        ladder = self.ladder_row_alerts.get(row.label) if row.key != "total" else None
-        if ladder:
-            words.append(ladder)
-        return "; ".join(words)
+        """Limit breaches of a Book row in words (``desk.limits.exposure_breach``)."""
+        return limits.exposure_breach(
+            self.settings.alerts, row, self.ladder_breaches.by_underlying
+        )
 
     def breaches(self) -> list[str]:
         """Every limit breach in words: the book's, then each underlying's."""
         if self.state is None:
             return []
-        out = []
-        total = self.state.tree.total()
-        if total.alert:
-            out.append(f"book {total.alert}")
-        for row in self.state.tree.currency_totals():
-            if row.alert:
-                out.append(f"book {row.currency} {row.alert}")
-        out += self.ladder_alerts
-        for row in self.state.tree.top("underlying"):
-            if row.alert:
-                out.append(f"{row.label} {row.alert}")
-        return out
+        return limits.breaches(self.state.valuation, self.settings.alerts, self.ladder_breaches)
 
     def on_book_loaded(self, message: BookLoaded) -> None:
         self._hide_progress()
@@ -547,50 +521,24 @@ class BlotterApp(App[None]):
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"ladder: {exc}"))
             return
-        alerts = self.settings.alerts
-        breached = []
-        row_alerts: dict[str, str] = {}
-        for grid in grids:
-            worst = float(grid.full[grid.worst])
-            if alerts.ladder_loss and -worst > alerts.ladder_loss:
-                ccy = f" {grid.currency}" if len(grids) > 1 else ""
-                breached.append(
-                    f"book{ccy} worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
-                )
-        book_alert = "; ".join(breached)
-        if alerts.underlying_ladder_loss:
-            from blotter import risk
-
-            book = state.valuation.book
-            for j in np.unique(book.underlying_idx):
-                if worker.is_cancelled:
-                    return
-                rows = np.flatnonzero(book.underlying_idx == j)
-                alone = risk.value_book(
-                    book.take(rows),
-                    state.valuation.market,
-                    state.valuation.valuation_time,
-                    tz=state.valuation.tz,
-                )
-                g = scenario.ladder(
-                    alone, self.settings.ladder_spot_pcts, self.settings.ladder_vol_pts, days=days
-                )
-                w = float(g.full[g.worst])
-                if -w > alerts.underlying_ladder_loss:
-                    row_alerts[book.underlyings.symbols[int(j)]] = (
-                        f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
-                    )
-        if not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grids, book_alert, row_alerts))
+        breaches = limits.ladder_breaches(
+            state.valuation,
+            grids,
+            self.settings.alerts,
+            self.settings.ladder_spot_pcts,
+            self.settings.ladder_vol_pts,
+            days,
+            cancelled=lambda: worker.is_cancelled,
+        )
+        if breaches is not None and not worker.is_cancelled:
+            self.post_message(LadderReady(state.book_seq, days, grids, breaches))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
             self.query_one(LadderPane).show(message.ladder, message.days, partial)
-            self.ladder_alerts = [message.book_alert] if message.book_alert else []
-            rows = message.row_alerts or {}
-            if rows != self.ladder_row_alerts or message.book_alert:
-                self.ladder_row_alerts = rows
+            before, self.ladder_breaches = self.ladder_breaches, message.breaches
+            if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
             self._refresh_header()
 

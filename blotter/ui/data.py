@@ -676,13 +676,3 @@ def matches(cells: Sequence[str], query: str) -> bool:
     """Whether every word of ``query`` occurs in the row's cells (case-insensitive)."""
     text = " ".join(cells).lower()
     return all(w in text for w in query.lower().split())
-
-
-# -- Watch list -------------------------------------------------------------------------------
-def days_to_week_end(now: datetime, tz: Any) -> float:
-    """Calendar days (fractional) from ``now`` to the end of the coming Sunday, desk time."""
-    local = now.astimezone(tz)
-    monday = datetime.combine(
-        local.date() + timedelta(days=7 - local.weekday()), datetime.min.time(), tzinfo=tz
-    )
-    return (monday - local).total_seconds() / 86400.0

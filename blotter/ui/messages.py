@@ -6,12 +6,15 @@ are ``WorkerResult``s, which the app drops once it has begun to exit (its panes 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from textual.message import Message
 
+from blotter.desk.limits import LadderBreaches
+
 if TYPE_CHECKING:
+    from blotter.scenario import Ladder
     from blotter.ui.data import BookState, ProfileData
 
 
@@ -81,9 +84,8 @@ class LadderReady(WorkerResult):
 
     book_seq: int
     days: float
-    ladder: Any  # list of scenario.Ladder
-    book_alert: str = ""  # the worst cell beyond the book's ladder limit, in words
-    row_alerts: dict[str, str] | None = None  # underlying -> its ladder breach in words
+    ladder: list[Ladder]
+    breaches: LadderBreaches = field(default_factory=LadderBreaches)
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)

@@ -48,9 +48,9 @@ def xyz_db(tmp_path: Path) -> Path:
     return path
 
 
-def quantlib_european(call: bool, strike: float, vol: float = VOL) -> float:
-    """QuantLib's AnalyticEuropeanEngine value of one XYZ option per unit (flat rate and vol,
-    no dividend, Actual365Fixed, expiry 45 days after the valuation date)."""
+def _quantlib_option(call: bool, strike: float, vol: float, spot: float) -> Any:
+    """QuantLib's AnalyticEuropeanEngine on one XYZ option: flat rate and vol, no dividend,
+    Actual365Fixed, expiry 45 days after the valuation date."""
     ql: Any = pytest.importorskip("QuantLib")
     today = ql.Date(1, 12, 2026)
     ql.Settings.instance().evaluationDate = today
@@ -60,7 +60,7 @@ def quantlib_european(call: bool, strike: float, vol: float = VOL) -> float:
         return ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc))
 
     process = ql.BlackScholesMertonProcess(
-        ql.QuoteHandle(ql.SimpleQuote(SPOT)),
+        ql.QuoteHandle(ql.SimpleQuote(spot)),
         flat(0.0),
         flat(RATE),
         ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), vol, dc)),
@@ -70,4 +70,14 @@ def quantlib_european(call: bool, strike: float, vol: float = VOL) -> float:
         ql.EuropeanExercise(today + 45),
     )
     option.setPricingEngine(ql.AnalyticEuropeanEngine(process))
-    return float(option.NPV())
+    return option
+
+
+def quantlib_european(call: bool, strike: float, vol: float = VOL, spot: float = SPOT) -> float:
+    """QuantLib's value of one XYZ option per unit of underlying."""
+    return float(_quantlib_option(call, strike, vol, spot).NPV())
+
+
+def quantlib_delta(call: bool, strike: float) -> float:
+    """QuantLib's delta of one XYZ option per unit of underlying, at the marks."""
+    return float(_quantlib_option(call, strike, VOL, SPOT).delta())

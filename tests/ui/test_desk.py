@@ -21,7 +21,7 @@ from textual.widgets import DataTable, Input
 
 from blotter import engine, scenario, store
 from blotter.config import Alerts
-from blotter.desk import entry
+from blotter.desk import entry, limits
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.data import close_review
 from blotter.ui.screens.base import READ_ONLY_WORDS
@@ -625,9 +625,7 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
         assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
-        from blotter.ui.data import days_to_week_end
-
-        days = days_to_week_end(frozen_clock(), app.tz)
+        days = limits.days_to_week_end(frozen_clock(), app.tz)
         assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
         state = app.state
         assert state is not None

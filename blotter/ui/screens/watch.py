@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from datetime import datetime
 from typing import Any, ClassVar
 
 from rich.text import Text
@@ -12,8 +13,8 @@ from textual.containers import VerticalScroll
 from textual.widgets import Footer, Static
 from textual.worker import get_current_worker
 
-from blotter.desk import session
-from blotter.ui import data, fmt
+from blotter.desk import limits, session
+from blotter.ui import fmt
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
 from blotter.ui.screens.base import DeskScreen
@@ -36,26 +37,22 @@ class WatchScreen(DeskScreen):
     def on_mount(self) -> None:
         state = self.blotter.state
         if state is not None:
-            days = data.days_to_week_end(self.blotter.clock(), self.blotter.tz)
-            self.compute(state, days)
+            self.compute(state, self.blotter.clock())
 
     def store_changed(self) -> None:
         self.on_mount()
 
     @work(thread=True, exclusive=True, group="watch-list", exit_on_error=False)
-    def compute(self, state: Any, days: float) -> None:
-        """Roll the book to the end of Sunday (``scenario.apply_move``); list what expires."""
-        from blotter import scenario
-
+    def compute(self, state: Any, now: datetime) -> None:
+        """What expires by the end of Sunday (``desk.limits.week_expiries``)."""
         worker = get_current_worker()
         try:
-            move = scenario.Move(text=f"days {days:.2f}", days=days)
-            result = scenario.apply_move(state.valuation, move)
+            week = limits.week_expiries(state.valuation, now, self.blotter.tz)
         except Exception as exc:  # noqa: BLE001 - shown to the user
             self.post_message(Done("watch", False, f"✗ {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("watch", True, "", (days, list(result.expiring or []))))
+            self.post_message(Done("watch", True, "", week))
 
     def on_done(self, message: Done) -> None:
         from blotter import scenario
@@ -64,7 +61,8 @@ class WatchScreen(DeskScreen):
         if not message.ok:
             self.say(message.words, bad=True)
             return
-        days, expiring = message.payload
+        week: limits.WeekExpiries = message.payload
+        days, expiring, pins = week.days, week.expiring, week.pin_risk
         text = Text()
         state = self.blotter.state
         unvalued = state.valuation.unvalued if state is not None else ()
@@ -81,7 +79,6 @@ class WatchScreen(DeskScreen):
             text.append(f"  ! {b}\n")
         if not breaches:
             text.append("  none (limits: [alerts] in the config file)\n")
-        pins = [e for e in expiring if e.pin_risk]
         text.append(
             f"\nOptions expiring by the end of Sunday (in {days:.1f} days): {len(expiring)}; "
             f"pin risk, within {scenario.PIN_BAND_PCT:g}% of the strike: {len(pins)}\n",
