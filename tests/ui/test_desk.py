@@ -22,8 +22,8 @@ from textual.widgets import DataTable, Input
 from blotter import engine, scenario, store
 from blotter.config import Alerts
 from blotter.desk import entry, limits
+from blotter.desk.close_review import close_review
 from blotter.ui.app import BlotterApp, make_app
-from blotter.ui.data import close_review
 from blotter.ui.screens.base import READ_ONLY_WORDS
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.marks import CloseReviewScreen, MarksScreen

@@ -22,8 +22,7 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Static
 from textual.worker import get_current_worker
 
-from blotter.desk import entry
-from blotter.ui import data
+from blotter.desk import close_review, entry
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import Done
 from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen, open_store
@@ -48,8 +47,8 @@ class MarksScreen(DeskScreen):
 
     def __init__(self) -> None:
         super().__init__(id="marks")
-        self.view: data.MarksView | None = None
-        self.editing: data.MarkPoint | None = None
+        self.view: close_review.MarksView | None = None
+        self.editing: close_review.MarkPoint | None = None
         self.last_write_s: float | None = None
         self.last_close_s: float | None = None
         self.close_timing: list[tuple[float, float, float]] = []  # (key, worker start, painted)
@@ -111,7 +110,7 @@ class MarksScreen(DeskScreen):
             st = open_store(self.app, read_only=True)
             try:
                 book = st.load_book()
-                view = data.marks_view(st, book)
+                view = close_review.marks_view(st, book)
             finally:
                 st.close()
         except Exception as exc:  # noqa: BLE001 - shown to the user
@@ -121,7 +120,7 @@ class MarksScreen(DeskScreen):
         if not worker.is_cancelled:
             self.post_message(Done("marks-review" if review else "marks-load", True, "", view))
 
-    def show(self, view: data.MarksView) -> None:
+    def show(self, view: close_review.MarksView) -> None:
         """Fill the table with ``view`` keeping the cursor on the same point."""
         table = self.query_one("#marks-table", DataTable)
         tz = self.blotter.tz
@@ -159,12 +158,12 @@ class MarksScreen(DeskScreen):
             table.move_cursor(row=keys.index(cursor.key), animate=False)
 
     @staticmethod
-    def _missing_words(view: data.MarksView) -> str:
+    def _missing_words(view: close_review.MarksView) -> str:
         """``, 3 missing`` when positions need points nobody marked, else nothing."""
         missing = sum(p.needed and p.value is None for p in view.points)
         return f", {missing} missing" if missing else ""
 
-    def cursor_point(self) -> data.MarkPoint | None:
+    def cursor_point(self) -> close_review.MarkPoint | None:
         """The mark point under the cursor."""
         if self.view is None or not self.view.points:
             return None
@@ -259,7 +258,7 @@ class MarksScreen(DeskScreen):
         self.write_mark(point, x, words)
 
     @work(thread=True, exclusive=True, group="marks-write", exit_on_error=False)
-    def write_mark(self, point: data.MarkPoint, value: float, words: str) -> None:
+    def write_mark(self, point: close_review.MarkPoint, value: float, words: str) -> None:
         """Log ``value`` at ``point`` as an intraday mark through the store, which checks it."""
         from blotter import store
 
@@ -326,7 +325,7 @@ class MarksScreen(DeskScreen):
                 self.show(message.payload)
                 if message.what == "marks-review":
                     self.say("")
-                    review = data.close_review(message.payload, self.blotter.clock())
+                    review = close_review.close_review(message.payload, self.blotter.clock())
                     self.app.push_screen(CloseReviewScreen(review, self))
             else:
                 self.say(message.words, bad=True)
@@ -356,7 +355,7 @@ class CloseReviewScreen(ModalScreen[None]):
     CSS_PATH = "desk.tcss"
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("review"))
 
-    def __init__(self, review: data.CloseReview, marks: MarksScreen) -> None:
+    def __init__(self, review: close_review.CloseReview, marks: MarksScreen) -> None:
         super().__init__(id="close-review")
         self.review = review
         self.marks = marks
