@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date
-from typing import TYPE_CHECKING, Literal, NamedTuple
+from typing import TYPE_CHECKING, Any, Literal, NamedTuple
 
 import numpy as np
 
@@ -20,7 +20,7 @@ from blotter import limits
 
 if TYPE_CHECKING:
     from blotter.risk import BookValuation
-    from blotter.store import ContractRecord, Store
+    from blotter.store import ContractRecord, Store, TradeRecord
 
 VOL_BARE_MAX = 3.0
 """A vol typed without ``%`` above this (300%) reads as a percentage typed without its sign."""
@@ -181,6 +181,32 @@ def write_mark(
 
 
 # -- trade tickets ------------------------------------------------------------------------------
+@dataclass(frozen=True, repr=False)
+class TradeSheet:
+    """The file's trades, and what a typed trade is checked against: its contracts, book names,
+    underlyings (``store.underlying_records`` by symbol, for a trial's contract defaults)."""
+
+    trades: tuple[TradeRecord, ...]
+    contracts: tuple[ContractRecord, ...]
+    books: tuple[str, ...]
+    symbols: tuple[str, ...]
+    underlyings: Mapping[str, Mapping[str, Any]]
+
+    def __repr__(self) -> str:
+        return f"TradeSheet(trades={len(self.trades)}, contracts={len(self.contracts)})"
+
+
+def read_trade_sheet(st: Store) -> TradeSheet:
+    """Every trade of ``st`` with its contracts, book names and underlyings."""
+    return TradeSheet(
+        tuple(st.trades()),
+        tuple(st.contracts()),
+        tuple(st.book_names()),
+        tuple(st.load_underlyings().symbols),
+        {r["symbol"]: r for r in st.underlying_records()},
+    )
+
+
 @dataclass(frozen=True)
 class ContractTerms:
     """A contract as typed; ``expiry`` None with strike None is the underlying itself."""

@@ -13,7 +13,7 @@ import time
 from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 from textual import on, work
@@ -30,6 +30,7 @@ from blotter.desk import limits, session
 from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
 from blotter.ui import data
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import KEYS, app_bindings
 from blotter.ui.messages import (
     BookLoaded,
@@ -42,6 +43,13 @@ from blotter.ui.messages import (
     StoreChanged,
     WorkerResult,
 )
+from blotter.ui.screens.base import DeskScreen
+from blotter.ui.screens.explain import ExplainScreen
+from blotter.ui.screens.help import HelpScreen
+from blotter.ui.screens.marks import MarksScreen
+from blotter.ui.screens.trades import TradesScreen
+from blotter.ui.screens.watch import WatchScreen
+from blotter.ui.timings import Timing, Timings
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.header_line import HeaderLine
 from blotter.ui.widgets.ladder_pane import LadderPane
@@ -49,8 +57,15 @@ from blotter.ui.widgets.move_pane import MovePane
 from blotter.ui.widgets.profile_pane import ProfilePane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 
+if TYPE_CHECKING:
+    from blotter.book import Book
+    from blotter.market import Market
+    from blotter.risk import ExposureRow
+    from blotter.scenario import Move, MoveResult
+    from blotter.store import ContractRecord, Store
+
 Clock = Callable[[], datetime]
-Loader = Callable[[], tuple[Any, Any, int]]
+Loader = Callable[[], "tuple[Book, Market, int]"]
 """Gives (book, market, data_version) instead of the file: the bench's random books use it."""
 
 COMPILE_NOTE_AFTER_S = 1.0
@@ -118,16 +133,15 @@ class BlotterApp(App[None]):
         self.book_seq = 0
         self.move_seq = 0
         self.move_text = ""  # the text of the last move that parsed
-        self.move: Any = None  # its scenario.Move
-        self.result: Any = None  # its scenario.MoveResult (the last good result)
+        self.move: Move | None = None  # its parsed move
+        self.result: MoveResult | None = None  # its result (the last good one)
         self.pane = "move"
         self.greek = "pnl"
         self.axis = "spot"
         self.scope = "book"
         self._profile_row = -1
         self.data_version: int | None = None
-        self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
-        self.first_paint: float | None = None
+        self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
         self.trial_trades = Trials()
@@ -252,13 +266,8 @@ class BlotterApp(App[None]):
             if self.loader is not None:
                 loaded = session.Loaded(*self.loader())
             else:
-                from blotter import store
-
-                st = store.open_store(self.db_path, read_only=self.read_only, desk_tz=self.tz)
-                try:
+                with self.open_store() as st:
                     loaded = session.read(st)
-                finally:
-                    st.close()
             self.post_message(LoadProgress(1))
             previous = self.state.valuation.boundaries if self.state is not None else None
             valued = session.value(
@@ -276,7 +285,7 @@ class BlotterApp(App[None]):
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
 
-    def _row_alert(self, row: Any) -> str:
+    def _row_alert(self, row: ExposureRow) -> str:
         """Limit breaches of a Book row in words (``desk.limits.exposure_breach``)."""
         return limits.exposure_breach(
             self.settings.alerts, row, self.ladder_breaches.by_underlying
@@ -303,11 +312,8 @@ class BlotterApp(App[None]):
         else:
             self.start_ladder(state, 0.0)
         self.start_profile()
-        if self.first_paint is None:
-            self.call_after_refresh(self._mark_first_paint)
-
-    def _mark_first_paint(self) -> None:
-        self.first_paint = time.perf_counter()
+        if self.timings.count(Timing.FIRST_PAINT) == 0:
+            self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
 
     def _refresh_header(self) -> None:
         if self.state is None:
@@ -375,8 +381,6 @@ class BlotterApp(App[None]):
 
     def on_store_changed(self, message: StoreChanged) -> None:
         self.load_book()
-        from blotter.ui.screens.base import DeskScreen
-
         for screen in self.screen_stack:
             if isinstance(screen, DeskScreen):
                 screen.store_changed()
@@ -446,7 +450,7 @@ class BlotterApp(App[None]):
         description="revalue under the bar's move",
     )
     def apply_move(
-        self, seq: int, state: data.BookState, text: str, move: Any, wait_s: float
+        self, seq: int, state: data.BookState, text: str, move: Move, wait_s: float
     ) -> None:
         """Wait ``wait_s`` (debounce), then revalue under ``move`` unless a newer key came."""
         from blotter import scenario
@@ -456,7 +460,6 @@ class BlotterApp(App[None]):
             time.sleep(wait_s)
         if worker.is_cancelled:
             return
-        t0 = time.perf_counter()
         try:
             result = scenario.apply_move(state.valuation, move)
         except (scenario.MoveError, ValueError, KeyError) as exc:
@@ -464,9 +467,7 @@ class BlotterApp(App[None]):
                 self.post_message(MoveFailed(seq, str(exc)))
             return
         if not worker.is_cancelled:
-            self.post_message(
-                MoveApplied(seq, state.book_seq, text, move, result, time.perf_counter() - t0)
-            )
+            self.post_message(MoveApplied(seq, state.book_seq, text, move, result))
 
     def on_move_applied(self, message: MoveApplied) -> None:
         if message.seq != self.move_seq or self.state is None or message.book_seq != self.book_seq:
@@ -475,12 +476,16 @@ class BlotterApp(App[None]):
         self.move_text, self.move, self.result = message.text, message.move, message.result
         self.query_one(MovePane).show(message.text, message.move.describe(), message.result)
         self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
-        seq = message.seq
-        self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+        self._stamp_move_painted()
         days = self._roll_days(message.move)
         if days != previous_days or self.query_one(LadderPane).ladder is None:
             self.start_ladder(self.state, days)
             self.start_profile()
+
+    def _stamp_move_painted(self) -> None:
+        """Stamp the Move pane's repaint for the bench, once it is on screen."""
+        seq = self.move_seq
+        self.call_after_refresh(lambda: self.timings.stamp(Timing.MOVE_PAINTED, seq))
 
     def on_move_failed(self, message: MoveFailed) -> None:
         if message.seq != self.move_seq:
@@ -488,7 +493,7 @@ class BlotterApp(App[None]):
         text = self.query_one(MoveInput).value
         self.query_one(WhatIfBar).show_error(text, message.reason, 0, len(text))
 
-    def _roll_days(self, move: Any) -> float:
+    def _roll_days(self, move: Move | None) -> float:
         """Calendar days of the move's roll (``desk.session.roll_days``)."""
         if self.state is None:
             return 0.0
@@ -592,8 +597,6 @@ class BlotterApp(App[None]):
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """On the help screen only its own keys (and help, quit) apply; on the other screens only
         their own keys and help; the footer shows what applies."""
-        from blotter.ui.screens.help import HelpScreen
-
         if isinstance(self.screen, HelpScreen) and action not in ("help", "quit", "close"):
             return False
         if self.screen is not self.screen_stack[0] and action not in ("help",):
@@ -601,25 +604,29 @@ class BlotterApp(App[None]):
         return True
 
     # -- the desk screens ------------------------------------------------------------------------
-    def action_marks(self) -> None:
-        from blotter.ui.screens.marks import MarksScreen
+    def host(self) -> DeskHost:
+        """This app as the desk screens see it (``ui.host.DeskHost``)."""
+        return self
 
-        self.push_screen(MarksScreen())
+    def open_store(self, read_only: bool = False) -> Store:
+        """A store of the book file for the calling thread (read-only when the app is)."""
+        from blotter import store
+
+        return store.open_store(
+            self.db_path, read_only=read_only or self.read_only, desk_tz=self.tz
+        )
+
+    def action_marks(self) -> None:
+        self.push_screen(MarksScreen(self.host()))
 
     def action_trades(self) -> None:
-        from blotter.ui.screens.trades import TradesScreen
-
-        self.push_screen(TradesScreen())
+        self.push_screen(TradesScreen(self.host()))
 
     def action_explain(self) -> None:
-        from blotter.ui.screens.explain import ExplainScreen
-
-        self.push_screen(ExplainScreen())
+        self.push_screen(ExplainScreen(self.host()))
 
     def action_watch_list(self) -> None:
-        from blotter.ui.screens.watch import WatchScreen
-
-        self.push_screen(WatchScreen(id="watch-list"))
+        self.push_screen(WatchScreen(self.host(), id="watch-list"))
 
     def action_vega_unit(self) -> None:
         table = self.query_one(BookTable)
@@ -632,7 +639,9 @@ class BlotterApp(App[None]):
         )
 
     # -- trial trades ----------------------------------------------------------------------------
-    def add_trial(self, contract: Any, quantity: int, price: float, book: str) -> None:
+    def add_trial(
+        self, contract: ContractRecord, quantity: int, price: float, book: str
+    ) -> None:
         """Layer a trial trade of ``contract`` (a ``store.ContractRecord``) on the live book."""
         self.trial_trades.add(contract, quantity, price, book)
         self.load_book()
@@ -661,8 +670,6 @@ class BlotterApp(App[None]):
         self.clear_trials()
 
     def action_help(self) -> None:
-        from blotter.ui.screens.help import HelpScreen
-
         if isinstance(self.screen, HelpScreen):
             return
         bound = {k.id: self._keymap.get(k.id, k.keys) for k in KEYS}
@@ -717,8 +724,7 @@ class BlotterApp(App[None]):
     def action_toggle_order(self) -> None:
         self.query_one(MovePane).toggle_order()
         if self.result is not None:
-            seq = self.move_seq
-            self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+            self._stamp_move_painted()
 
     def action_next_grid(self) -> None:
         self.query_one(LadderPane).next_grid()

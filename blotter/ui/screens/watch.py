@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Any, ClassVar
+from typing import ClassVar
 
 from rich.text import Text
 from textual import work
@@ -15,8 +15,9 @@ from textual.worker import get_current_worker
 
 from blotter.desk import limits, session
 from blotter.ui import fmt
+from blotter.ui.data import BookState
 from blotter.ui.keys import app_bindings
-from blotter.ui.messages import Done
+from blotter.ui.messages import ScreenFailed, WeekReady
 from blotter.ui.screens.base import DeskScreen
 
 
@@ -35,36 +36,35 @@ class WatchScreen(DeskScreen):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
-        state = self.blotter.state
+        state = self.host.state
         if state is not None:
-            self.compute(state, self.blotter.clock())
+            self.compute(state, self.host.clock())
 
     def store_changed(self) -> None:
         self.on_mount()
 
     @work(thread=True, exclusive=True, group="watch-list", exit_on_error=False)
-    def compute(self, state: Any, now: datetime) -> None:
+    def compute(self, state: BookState, now: datetime) -> None:
         """What expires by the end of Sunday (``desk.limits.week_expiries``)."""
         worker = get_current_worker()
         try:
-            week = limits.week_expiries(state.valuation, now, self.blotter.tz)
+            week = limits.week_expiries(state.valuation, now, self.host.tz)
         except Exception as exc:  # noqa: BLE001 - shown to the user
-            self.post_message(Done("watch", False, f"✗ {exc}"))
+            self.post_message(ScreenFailed(f"✗ {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("watch", True, "", week))
+            self.post_message(WeekReady(week))
 
-    def on_done(self, message: Done) -> None:
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words, bad=True)
+
+    def on_week_ready(self, message: WeekReady) -> None:
         from blotter import scenario
 
-        message.stop()
-        if not message.ok:
-            self.say(message.words, bad=True)
-            return
-        week: limits.WeekExpiries = message.payload
+        week = message.week
         days, expiring, pins = week.days, week.expiring, week.pin_risk
         text = Text()
-        state = self.blotter.state
+        state = self.host.state
         unvalued = state.valuation.unvalued if state is not None else ()
         if unvalued:
             left_out = session.unvalued_words(unvalued)
@@ -73,7 +73,7 @@ class WatchScreen(DeskScreen):
                 for m in u.missing:
                     text.append(f"  {u.label}: {m.words()}\n    log it with: {m.command}\n")
             text.append("\n")
-        breaches = self.blotter.breaches()
+        breaches = self.host.breaches()
         text.append(f"Limit breaches ({len(breaches)})\n", style="bold")
         for b in breaches:
             text.append(f"  ! {b}\n")
