@@ -1,8 +1,9 @@
-"""What the app's workers compute, as plain objects: no Textual here, no formulas either.
+"""What the app's panes lay out, as plain objects: no Textual here, no formulas either.
 
-Every number comes from ``blotter.risk`` and ``blotter.scenario``; this module picks rows out of
-their arrays, arranges them for the Book pane's tree (underlying → expiry → position, or expiry
-bucket → underlying → position) and sums risk's additive desk-unit arrays over those rows.
+Every number comes from ``blotter.risk``, ``blotter.scenario`` and the desk's use cases
+(``blotter.desk``); this module picks rows out of their arrays, arranges them for the Book pane's
+tree (underlying → expiry → position, or expiry bucket → underlying → position), sums risk's
+additive desk-unit arrays over those rows, and writes a trade as the Trades screen's cells.
 """
 
 from __future__ import annotations

@@ -32,7 +32,7 @@ from blotter.ui.screens.marks import MarksScreen
 from blotter.ui.widgets.ladder_pane import LadderPane
 
 from .conftest import TEST_SETTINGS, frozen_clock, settle
-from .test_desk import open_marks
+from .test_screens import open_marks
 
 
 class Probe(Widget):
