@@ -2,7 +2,8 @@
 
 The file is ``$BLOTTER_CONFIG``, else ``$XDG_CONFIG_HOME/blotter/config.toml`` (``~/.config``
 when unset); a missing file is fine, a malformed one is an error naming the file and the key.
-Nothing here imports Textual, so report commands can read the desk time zone too.
+Nothing here imports the UI or Textual (a keymap is checked by ``blotter.keymap``), so report
+commands can read the desk time zone too.
 
 Example file::
 
@@ -35,6 +36,8 @@ from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from blotter.keymap import check_keymap
 
 
 class ConfigError(ValueError):
@@ -217,8 +220,6 @@ def _numbers(settings: Settings) -> list[tuple[str, float]]:
 
 
 def _validate(settings: Settings) -> Settings:
-    from blotter.ui.keys import check_keymap
-
     try:
         ZoneInfo(settings.desk_tz)
     except (ZoneInfoNotFoundError, ValueError):

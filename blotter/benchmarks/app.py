@@ -1,14 +1,16 @@
 """``blotter bench`` cases for the app, measured through the app itself with Textual's Pilot.
 
 - ``app keystroke→move pane``: from a key pressed in the what-if bar to the Move pane repainted
-  with that keystroke's result (the app stamps each repaint), on random 10k and 100k books.
+  with that keystroke's result (the app stamps each repaint in ``BlotterApp.timings``), on random
+  10k and 100k books.
   Targets 50 ms and 150 ms. The time includes the bar's debounce.
 - ``app start→first screen``: from launching a new Python process to the app's first full
   screen on the demo book (book drawn and the ladder computed), imports included. Target 1.5 s.
 - ``app resident memory``: peak resident set size of this process after the 100k-book app has
   shown its book and moves, in MB (target 400 MB), in the note.
 - ``app commit close``: on the Marks screen, from the key that confirms the close to the screen
-  saying the set was written, on a book with 200 mark points in force. Target 200 ms.
+  saying the set was written (both stamped in ``BlotterApp.timings``), on a book with 200 mark
+  points in force. Target 200 ms.
 - ``app other process's mark visible``: from another process's committed spot mark to the
   running app (change check every ``watch_interval_s`` = 1 s, the default) holding the new spot in
   its valued book. Target 1.5 s.
@@ -101,6 +103,7 @@ def _rss_mb() -> float:
 async def _keystrokes(n: int, repeat: int) -> tuple[np.ndarray, float]:
     from blotter.config import Settings
     from blotter.ui.app import BlotterApp
+    from blotter.ui.timings import Timing
     from blotter.ui.widgets.whatif_bar import MoveInput
 
     book, market = random_book(n)
@@ -120,18 +123,29 @@ async def _keystrokes(n: int, repeat: int) -> tuple[np.ndarray, float]:
             line = MOVES[k % len(MOVES)]
             bar.value = line[:-1]
             await _settle(app, pilot)
-            before = len(app.move_painted)
+            before = app.timings.count(Timing.MOVE_PAINTED)
             t0 = time.perf_counter()
             await pilot.press(line[-1])
-            while len(app.move_painted) == before or app.move_painted[-1][0] != app.move_seq:
+            while (painted := _painted_since(app, before)) is None:
                 await pilot.pause()
                 if time.perf_counter() - t0 > 30:
                     raise RuntimeError(f"no repaint for {line!r} within 30 s")
             if k:  # the first keystroke warms caches
-                seconds.append(app.move_painted[-1][1] - t0)
+                seconds.append(painted - t0)
             await _settle(app, pilot)
         rss = _rss_mb()
     return np.array(seconds), rss
+
+
+def _painted_since(app: Any, before: int) -> float | None:
+    """When the Move pane was repainted with the bar's latest edit, if it has been since the
+    ``before``-th repaint."""
+    from blotter.ui.timings import Timing
+
+    last = app.timings.last(Timing.MOVE_PAINTED)
+    if app.timings.count(Timing.MOVE_PAINTED) == before or last is None:
+        return None
+    return float(last.at) if last.tag == app.move_seq else None
 
 
 async def _settle(app: Any, pilot: Any) -> None:
@@ -146,16 +160,19 @@ async def _first_screen(db_path: str) -> float:
     """In this process: wall-clock seconds of the app's start on ``db_path`` to its first screen."""
     from blotter.config import Settings
     from blotter.ui.app import make_app
+    from blotter.ui.timings import Timing
     from blotter.ui.widgets.ladder_pane import LadderPane
 
     t0 = time.perf_counter()
     app = make_app(db_path, Settings(watch_interval_s=0), clock=lambda: FIXED_NOW)
     async with app.run_test(size=(80, 24)) as pilot:
-        while app.first_paint is None or app.query_one(LadderPane).ladder is None:
+        while (first := app.timings.last(Timing.FIRST_PAINT)) is None or (
+            app.query_one(LadderPane).ladder is None
+        ):
             await pilot.pause()
             if time.perf_counter() - t0 > 30:
                 raise RuntimeError("the app did not show its first screen within 30 s")
-        return max(app.first_paint, time.perf_counter()) - t0
+        return max(first.at, time.perf_counter()) - t0
 
 
 COLD_START = """
@@ -278,6 +295,7 @@ async def _commit_close(db_path: str, repeat: int) -> np.ndarray:
     from blotter.config import Settings
     from blotter.ui.app import make_app
     from blotter.ui.screens.marks import CloseReviewScreen, MarksScreen
+    from blotter.ui.timings import Timing
 
     app = make_app(db_path, Settings(watch_interval_s=0), clock=lambda: FIXED_NOW)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -286,21 +304,26 @@ async def _commit_close(db_path: str, repeat: int) -> np.ndarray:
         await _settle(app, pilot)
         screen = app.screen
         assert isinstance(screen, MarksScreen)
+        seconds = []
         for _ in range(repeat):
             await pilot.press("c")
             await _settle(app, pilot)
             assert isinstance(app.screen, CloseReviewScreen)
-            before = len(screen.close_timing)
+            before = app.timings.count(Timing.CLOSE_PAINTED)
             await pilot.press("y")
             t0 = time.perf_counter()
-            while len(screen.close_timing) == before:
+            while app.timings.count(Timing.CLOSE_PAINTED) == before:
                 await pilot.pause(0.001)
                 if time.perf_counter() - t0 > 30:
                     raise RuntimeError("the close was not written within 30 s")
             if "written" not in _said(screen):
                 raise RuntimeError(f"the close failed: {_said(screen)}")
+            key = app.timings.last(Timing.CLOSE_KEY)
+            painted = app.timings.last(Timing.CLOSE_PAINTED)
+            assert key is not None and painted is not None
+            seconds.append(painted.at - key.at)
             await _settle(app, pilot)
-    return np.array([painted - key for key, _, painted in screen.close_timing])
+    return np.array(seconds)
 
 
 def _said(screen: Any) -> str:

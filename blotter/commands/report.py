@@ -94,8 +94,9 @@ def _open(db_path: str | None) -> Any:
 
 
 def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
+    """The book of ``store`` valued at ``--at`` as a desk session (``desk.session``)."""
     from blotter import calendar as cal
-    from blotter.risk import value_book
+    from blotter.desk import session
 
     tz = desk_zone()
     try:
@@ -105,11 +106,10 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
     from blotter.store import StoreError
 
     try:
-        book = store.load_book()
-        market = store.load_market()
-        if book.american.any():
+        loaded = session.read(store)
+        if loaded.book.american.any():
             note_first_compile()
-        valuation = value_book(book, market, t, vega_unit=vega_unit, tz=tz)
+        valuation = session.value(loaded, t, tz, vega_unit=vega_unit).valuation
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     _warn_stale(valuation)

@@ -91,26 +91,23 @@ def _time_option(value: str | None, option: str = "--time") -> datetime | None:
 
 
 def parse_vol(text: str) -> float:
-    """A vol from ``0.25`` (decimal) or ``25%``; a bare number above 3 is refused as ambiguous."""
-    t = text.strip()
+    """A vol by the desk's one rule (``desk.entry.parse_vol``: ``0.25`` or ``25%``)."""
+    from blotter.desk import entry
+
     try:
-        if t.endswith("%"):
-            return float(t[:-1]) / 100.0
-        v = float(t)
-    except ValueError:
-        raise click.BadParameter(f"{text!r} is not a vol: write 0.25 or 25%") from None
-    if v > 3.0:
-        raise click.BadParameter(f"{text!r} looks like a percentage: write {t}% or {v / 100:g}")
-    return v
+        return entry.parse_vol(text)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc)) from None
 
 
 def parse_decimal_or_percent(text: str, what: str) -> float:
-    """A decimal (``0.04``) or a percentage (``4%``)."""
-    t = text.strip()
+    """A decimal (``0.04``) or a percentage (``4%``), by ``desk.entry``'s rule."""
+    from blotter.desk import entry
+
     try:
-        return float(t[:-1]) / 100.0 if t.endswith("%") else float(t)
-    except ValueError:
-        raise click.BadParameter(f"{text!r} is not a {what}: write 0.04 or 4%") from None
+        return entry.parse_decimal_or_percent(text, what)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc)) from None
 
 
 def _emit(as_json: bool, payload: dict[str, Any], text: str) -> None:

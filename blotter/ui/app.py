@@ -13,7 +13,7 @@ import time
 from collections.abc import Callable
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 from textual import on, work
@@ -26,8 +26,11 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
 from blotter.config import Settings
+from blotter.desk import limits, session
+from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
 from blotter.ui import data
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import KEYS, app_bindings
 from blotter.ui.messages import (
     BookLoaded,
@@ -40,6 +43,13 @@ from blotter.ui.messages import (
     StoreChanged,
     WorkerResult,
 )
+from blotter.ui.screens.base import DeskScreen
+from blotter.ui.screens.explain import ExplainScreen
+from blotter.ui.screens.help import HelpScreen
+from blotter.ui.screens.marks import MarksScreen
+from blotter.ui.screens.trades import TradesScreen
+from blotter.ui.screens.watch import WatchScreen
+from blotter.ui.timings import Timing, Timings
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.header_line import HeaderLine
 from blotter.ui.widgets.ladder_pane import LadderPane
@@ -47,8 +57,15 @@ from blotter.ui.widgets.move_pane import MovePane
 from blotter.ui.widgets.profile_pane import ProfilePane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 
+if TYPE_CHECKING:
+    from blotter.book import Book
+    from blotter.market import Market
+    from blotter.risk import ExposureRow
+    from blotter.scenario import Move, MoveResult
+    from blotter.store import ContractRecord, Store
+
 Clock = Callable[[], datetime]
-Loader = Callable[[], tuple[Any, Any, int]]
+Loader = Callable[[], "tuple[Book, Market, int]"]
 """Gives (book, market, data_version) instead of the file: the bench's random books use it."""
 
 COMPILE_NOTE_AFTER_S = 1.0
@@ -116,23 +133,20 @@ class BlotterApp(App[None]):
         self.book_seq = 0
         self.move_seq = 0
         self.move_text = ""  # the text of the last move that parsed
-        self.move: Any = None  # its scenario.Move
-        self.result: Any = None  # its scenario.MoveResult (the last good result)
+        self.move: Move | None = None  # its parsed move
+        self.result: MoveResult | None = None  # its result (the last good one)
         self.pane = "move"
         self.greek = "pnl"
         self.axis = "spot"
         self.scope = "book"
         self._profile_row = -1
         self.data_version: int | None = None
-        self.move_painted: list[tuple[int, float]] = []  # (seq, perf_counter) after each repaint
-        self.first_paint: float | None = None
+        self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
-        self.trials: list[data.TrialTrade] = []
-        self._trial_seq = 0
+        self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
-        self.ladder_alerts: list[str] = []  # worst-ladder-cell breaches, in words
-        self.ladder_row_alerts: dict[str, str] = {}  # underlying -> words
+        self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
 
@@ -244,105 +258,44 @@ class BlotterApp(App[None]):
     def _load_worker(self) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``.
 
-        The trial trades held in memory are layered on the live book (``Book.with_trials``).
+        ``desk.session`` reads and values; the trial trades held in memory are layered on.
         """
-        from blotter import risk
-
         worker = get_current_worker()
-        trials = list(self.trials)
-        t0 = time.perf_counter()
+        trials = self.trial_trades.all()
         try:
             if self.loader is not None:
-                book, market, version = self.loader()
+                loaded = session.Loaded(*self.loader())
             else:
-                from blotter import store
-
-                st = store.open_store(self.db_path, read_only=self.read_only, desk_tz=self.tz)
-                try:
-                    book = st.load_book()
-                    market = st.load_market()
-                    version = int(st.data_version())
-                    if trials:
-                        book = data.trial_book(book, trials)
-                finally:
-                    close = getattr(st, "close", None)
-                    if close is not None:
-                        close()
+                with self.open_store() as st:
+                    loaded = session.read(st)
             self.post_message(LoadProgress(1))
-            now = self.clock()
-            # The boundaries solved so far serve the reload too: they are keyed by exact
-            # inputs, so a mark that changed only misses.
             previous = self.state.valuation.boundaries if self.state is not None else None
-            valuation = risk.value_book(
-                book,
-                market,
-                np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "s"),
-                tz=self.tz,
-                boundaries=previous,
+            valued = session.value(
+                loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valuation, self.tz, self._row_alert)
+            tree = data.BookTree(valued.valuation, self.tz, self._row_alert)
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
             return
-        marks_as_of = market.marks_as_of
-        if marks_as_of.tzinfo is None:
-            marks_as_of = marks_as_of.replace(tzinfo=UTC)
         state = data.BookState(
-            book_seq=0,
-            db_path=self.db_path,
-            read_only=self.read_only,
-            book_name=book.name,
-            valuation=valuation,
-            tree=tree,
-            data_version=version,
-            valuation_time=now,
-            marks_as_of=marks_as_of,
-            mark_set_id=market.mark_set_id,
-            mark_kind=market.mark_kind,
-            seconds=time.perf_counter() - t0,
-            notes=tuple(valuation.notes),
+            book_seq=0, db_path=self.db_path, read_only=self.read_only, session=valued, tree=tree
         )
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
 
-    def _row_alert(self, row: Any) -> str:
-        """Limit breaches of a Book row in words: book limits on the total, per-underlying ones
-        on each underlying (``[alerts]`` in the config file)."""
-        alerts = self.settings.alerts
-        words = []
-        if row.key == "total":
-            delta_limit, vega_limit = alerts.delta_cash, alerts.vega_pt
-        elif row.underlying is not None:
-            delta_limit, vega_limit = alerts.underlying_delta_cash, alerts.underlying_vega_pt
-        else:
-            return ""
-        if delta_limit and abs(row.delta_cash) > delta_limit:
-            words.append(f"|Δ $| over {delta_limit:,.0f}")
-        if vega_limit and abs(row.vega_pt) > vega_limit:
-            words.append(f"|vega| over {vega_limit:,.0f}")
-        ladder = self.ladder_row_alerts.get(row.label) if row.key != "total" else None
-        if ladder:
-            words.append(ladder)
-        return "; ".join(words)
+    def _row_alert(self, row: ExposureRow) -> str:
+        """Limit breaches of a Book row in words (``desk.limits.exposure_breach``)."""
+        return limits.exposure_breach(
+            self.settings.alerts, row, self.ladder_breaches.by_underlying
+        )
 
     def breaches(self) -> list[str]:
         """Every limit breach in words: the book's, then each underlying's."""
         if self.state is None:
             return []
-        out = []
-        total = self.state.tree.total()
-        if total.alert:
-            out.append(f"book {total.alert}")
-        for row in self.state.tree.currency_totals():
-            if row.alert:
-                out.append(f"book {row.currency} {row.alert}")
-        out += self.ladder_alerts
-        for row in self.state.tree.top("underlying"):
-            if row.alert:
-                out.append(f"{row.label} {row.alert}")
-        return out
+        return limits.breaches(self.state.valuation, self.settings.alerts, self.ladder_breaches)
 
     def on_book_loaded(self, message: BookLoaded) -> None:
         self._hide_progress()
@@ -359,11 +312,8 @@ class BlotterApp(App[None]):
         else:
             self.start_ladder(state, 0.0)
         self.start_profile()
-        if self.first_paint is None:
-            self.call_after_refresh(self._mark_first_paint)
-
-    def _mark_first_paint(self) -> None:
-        self.first_paint = time.perf_counter()
+        if self.timings.count(Timing.FIRST_PAINT) == 0:
+            self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
 
     def _refresh_header(self) -> None:
         if self.state is None:
@@ -376,7 +326,8 @@ class BlotterApp(App[None]):
             alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
         unvalued = self.state.valuation.unvalued
         if unvalued:
-            n, names = data.unvalued_count(unvalued), data.missing_by_name(unvalued, most=2)
+            n = session.unvalued_count(unvalued)
+            names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
@@ -430,8 +381,6 @@ class BlotterApp(App[None]):
 
     def on_store_changed(self, message: StoreChanged) -> None:
         self.load_book()
-        from blotter.ui.screens.base import DeskScreen
-
         for screen in self.screen_stack:
             if isinstance(screen, DeskScreen):
                 screen.store_changed()
@@ -501,7 +450,7 @@ class BlotterApp(App[None]):
         description="revalue under the bar's move",
     )
     def apply_move(
-        self, seq: int, state: data.BookState, text: str, move: Any, wait_s: float
+        self, seq: int, state: data.BookState, text: str, move: Move, wait_s: float
     ) -> None:
         """Wait ``wait_s`` (debounce), then revalue under ``move`` unless a newer key came."""
         from blotter import scenario
@@ -511,7 +460,6 @@ class BlotterApp(App[None]):
             time.sleep(wait_s)
         if worker.is_cancelled:
             return
-        t0 = time.perf_counter()
         try:
             result = scenario.apply_move(state.valuation, move)
         except (scenario.MoveError, ValueError, KeyError) as exc:
@@ -519,9 +467,7 @@ class BlotterApp(App[None]):
                 self.post_message(MoveFailed(seq, str(exc)))
             return
         if not worker.is_cancelled:
-            self.post_message(
-                MoveApplied(seq, state.book_seq, text, move, result, time.perf_counter() - t0)
-            )
+            self.post_message(MoveApplied(seq, state.book_seq, text, move, result))
 
     def on_move_applied(self, message: MoveApplied) -> None:
         if message.seq != self.move_seq or self.state is None or message.book_seq != self.book_seq:
@@ -530,12 +476,16 @@ class BlotterApp(App[None]):
         self.move_text, self.move, self.result = message.text, message.move, message.result
         self.query_one(MovePane).show(message.text, message.move.describe(), message.result)
         self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
-        seq = message.seq
-        self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+        self._stamp_move_painted()
         days = self._roll_days(message.move)
         if days != previous_days or self.query_one(LadderPane).ladder is None:
             self.start_ladder(self.state, days)
             self.start_profile()
+
+    def _stamp_move_painted(self) -> None:
+        """Stamp the Move pane's repaint for the bench, once it is on screen."""
+        seq = self.move_seq
+        self.call_after_refresh(lambda: self.timings.stamp(Timing.MOVE_PAINTED, seq))
 
     def on_move_failed(self, message: MoveFailed) -> None:
         if message.seq != self.move_seq:
@@ -543,17 +493,11 @@ class BlotterApp(App[None]):
         text = self.query_one(MoveInput).value
         self.query_one(WhatIfBar).show_error(text, message.reason, 0, len(text))
 
-    def _roll_days(self, move: Any) -> float:
-        """Calendar days of the move's roll (business days via ``scenario.roll_time``)."""
-        if move is None or self.state is None:
+    def _roll_days(self, move: Move | None) -> float:
+        """Calendar days of the move's roll (``desk.session.roll_days``)."""
+        if self.state is None:
             return 0.0
-        if not getattr(move, "bdays", 0):
-            return float(getattr(move, "days", 0.0))
-        from blotter import scenario
-
-        t0 = self.state.valuation.valuation_time
-        t1 = scenario.roll_time(self.state.valuation, move)
-        return float((t1 - t0) / np.timedelta64(1, "s")) / 86400.0
+        return session.roll_days(self.state.valuation, move)
 
     # -- ladder and profile ---------------------------------------------------------------------
     def start_ladder(self, state: data.BookState, days: float) -> None:
@@ -582,50 +526,24 @@ class BlotterApp(App[None]):
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"ladder: {exc}"))
             return
-        alerts = self.settings.alerts
-        breached = []
-        row_alerts: dict[str, str] = {}
-        for grid in grids:
-            worst = float(grid.full[grid.worst])
-            if alerts.ladder_loss and -worst > alerts.ladder_loss:
-                ccy = f" {grid.currency}" if len(grids) > 1 else ""
-                breached.append(
-                    f"book{ccy} worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
-                )
-        book_alert = "; ".join(breached)
-        if alerts.underlying_ladder_loss:
-            from blotter import risk
-
-            book = state.valuation.book
-            for j in np.unique(book.underlying_idx):
-                if worker.is_cancelled:
-                    return
-                rows = np.flatnonzero(book.underlying_idx == j)
-                alone = risk.value_book(
-                    book.take(rows),
-                    state.valuation.market,
-                    state.valuation.valuation_time,
-                    tz=state.valuation.tz,
-                )
-                g = scenario.ladder(
-                    alone, self.settings.ladder_spot_pcts, self.settings.ladder_vol_pts, days=days
-                )
-                w = float(g.full[g.worst])
-                if -w > alerts.underlying_ladder_loss:
-                    row_alerts[book.underlyings.symbols[int(j)]] = (
-                        f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
-                    )
-        if not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grids, book_alert, row_alerts))
+        breaches = limits.ladder_breaches(
+            state.valuation,
+            grids,
+            self.settings.alerts,
+            self.settings.ladder_spot_pcts,
+            self.settings.ladder_vol_pts,
+            days,
+            cancelled=lambda: worker.is_cancelled,
+        )
+        if breaches is not None and not worker.is_cancelled:
+            self.post_message(LadderReady(state.book_seq, days, grids, breaches))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
             self.query_one(LadderPane).show(message.ladder, message.days, partial)
-            self.ladder_alerts = [message.book_alert] if message.book_alert else []
-            rows = message.row_alerts or {}
-            if rows != self.ladder_row_alerts or message.book_alert:
-                self.ladder_row_alerts = rows
+            before, self.ladder_breaches = self.ladder_breaches, message.breaches
+            if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
             self._refresh_header()
 
@@ -679,8 +597,6 @@ class BlotterApp(App[None]):
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """On the help screen only its own keys (and help, quit) apply; on the other screens only
         their own keys and help; the footer shows what applies."""
-        from blotter.ui.screens.help import HelpScreen
-
         if isinstance(self.screen, HelpScreen) and action not in ("help", "quit", "close"):
             return False
         if self.screen is not self.screen_stack[0] and action not in ("help",):
@@ -688,25 +604,29 @@ class BlotterApp(App[None]):
         return True
 
     # -- the desk screens ------------------------------------------------------------------------
-    def action_marks(self) -> None:
-        from blotter.ui.screens.marks import MarksScreen
+    def host(self) -> DeskHost:
+        """This app as the desk screens see it (``ui.host.DeskHost``)."""
+        return self
 
-        self.push_screen(MarksScreen())
+    def open_store(self, read_only: bool = False) -> Store:
+        """A store of the book file for the calling thread (read-only when the app is)."""
+        from blotter import store
+
+        return store.open_store(
+            self.db_path, read_only=read_only or self.read_only, desk_tz=self.tz
+        )
+
+    def action_marks(self) -> None:
+        self.push_screen(MarksScreen(self.host()))
 
     def action_trades(self) -> None:
-        from blotter.ui.screens.trades import TradesScreen
-
-        self.push_screen(TradesScreen())
+        self.push_screen(TradesScreen(self.host()))
 
     def action_explain(self) -> None:
-        from blotter.ui.screens.explain import ExplainScreen
-
-        self.push_screen(ExplainScreen())
+        self.push_screen(ExplainScreen(self.host()))
 
     def action_watch_list(self) -> None:
-        from blotter.ui.screens.watch import WatchScreen
-
-        self.push_screen(WatchScreen(id="watch-list"))
+        self.push_screen(WatchScreen(self.host(), id="watch-list"))
 
     def action_vega_unit(self) -> None:
         table = self.query_one(BookTable)
@@ -719,34 +639,37 @@ class BlotterApp(App[None]):
         )
 
     # -- trial trades ----------------------------------------------------------------------------
-    def add_trial(self, contract: Any, quantity: int, price: float, book: str) -> None:
+    def add_trial(
+        self, contract: ContractRecord, quantity: int, price: float, book: str
+    ) -> None:
         """Layer a trial trade of ``contract`` (a ``store.ContractRecord``) on the live book."""
-        self._trial_seq += 1
-        self.trials.append(data.TrialTrade(self._trial_seq, contract, quantity, price, book))
+        self.trial_trades.add(contract, quantity, price, book)
         self.load_book()
 
     def remove_trial(self, trial_id: int) -> None:
-        self.trials = [t for t in self.trials if t.trial_id != trial_id]
+        self.trial_trades.remove(trial_id)
         self.load_book()
 
     def clear_trials(self, reload: bool = True) -> None:
         """Drop every trial trade (nothing was written for them)."""
-        n = len(self.trials)
-        self.trials = []
+        n = self.trial_trades.clear()
         if reload:
             self.load_book()
             if n:
                 self.notify(f"{n} trial trade(s) cleared; the store is untouched", timeout=3)
 
+    @property
+    def trials(self) -> list[TrialTrade]:
+        """The trial trades layered on the live book, oldest first (a copy)."""
+        return self.trial_trades.all()
+
     def action_clear_trials(self) -> None:
-        if not self.trials:
+        if not self.trial_trades:
             self.notify("no trial trades to clear", timeout=3)
             return
         self.clear_trials()
 
     def action_help(self) -> None:
-        from blotter.ui.screens.help import HelpScreen
-
         if isinstance(self.screen, HelpScreen):
             return
         bound = {k.id: self._keymap.get(k.id, k.keys) for k in KEYS}
@@ -801,8 +724,7 @@ class BlotterApp(App[None]):
     def action_toggle_order(self) -> None:
         self.query_one(MovePane).toggle_order()
         if self.result is not None:
-            seq = self.move_seq
-            self.call_after_refresh(lambda: self.move_painted.append((seq, time.perf_counter())))
+            self._stamp_move_painted()
 
     def action_next_grid(self) -> None:
         self.query_one(LadderPane).next_grid()

@@ -1,26 +1,24 @@
-"""What the app's workers compute, as plain objects: no Textual here, no formulas either.
+"""What the app's panes lay out, as plain objects: no Textual here, no formulas either.
 
-Every number comes from ``blotter.risk`` and ``blotter.scenario``; this module picks rows out of
-their arrays, arranges them for the Book pane's tree (underlying → expiry → position, or expiry
-bucket → underlying → position) and sums risk's additive desk-unit arrays over those rows.
+Every number comes from ``blotter.risk``, ``blotter.scenario`` and the desk's use cases
+(``blotter.desk``); this module picks rows out of their arrays, arranges them for the Book pane's
+tree (underlying → expiry → position, or expiry bucket → underlying → position), sums risk's
+additive desk-unit arrays over those rows, and writes a trade as the Trades screen's cells.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
-from datetime import UTC, date, datetime, timedelta
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
-from blotter import calendar as cal
-from blotter import limits, risk
-from blotter.book import Book
+from blotter import risk
+from blotter.desk.session import Session
 from blotter.printable import printable
 from blotter.scenario.profile import profile_curves
-from blotter.ui import fmt
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
     ("spot", "Spot"),
@@ -311,75 +309,23 @@ class BookTree:
         return out
 
 
-def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:
-    """The marks the left-out positions lack, by symbol or currency: ``CCC: spot, vol; EUR: rate``
-    (at most ``most`` names, then how many more)."""
-    kinds: dict[str, list[str]] = {}
-    for u in unvalued:
-        for m in u.missing:
-            seen = kinds.setdefault(m.name, [])
-            if m.kind not in seen:
-                seen.append(m.kind)
-    parts = [f"{name}: {', '.join(k)}" for name, k in kinds.items()]
-    more = f"; {len(parts) - most} more" if len(parts) > most else ""
-    return "; ".join(parts[:most]) + more
-
-
-def unvalued_count(unvalued: Sequence[risk.UnvaluedPosition]) -> int:
-    """How many positions (contracts) a valuation left out."""
-    return len({u.contract_id for u in unvalued})
-
-
-def unvalued_words(unvalued: Sequence[risk.UnvaluedPosition]) -> str:
-    """The positions a valuation left out, in a few words: ``2 positions not valued (CCC: spot,
-    vol; EUR: rate)``; empty when there are none."""
-    if not unvalued:
-        return ""
-    n = unvalued_count(unvalued)
-    return f"{n} position{'' if n == 1 else 's'} not valued ({missing_by_name(unvalued)})"
-
-
-@dataclass(frozen=True)
-class MarksAge:
-    """How old the marks are, in words, and whether they predate the last business day's close."""
-
-    words: str
-    stale: bool
-    last_close: datetime | None
-
-
-def marks_age(
-    marks_as_of: datetime, now: datetime, tz: Any, calendar_name: str = "NYSE"
-) -> MarksAge:
-    """Age of the marks at ``now``; stale when older than the last business-day close."""
-    age = now - marks_as_of
-    local_now = now.astimezone(tz)
-    day: np.datetime64 = np.datetime64(local_now.date(), "D")
-    close_today = datetime.combine(local_now.date(), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
-        day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
-    last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    stale = marks_as_of < last_close - timedelta(minutes=1)
-    return MarksAge(words=fmt.age_words(age), stale=bool(stale), last_close=last_close)
-
-
 @dataclass(repr=False)
 class BookState:
-    """One load of the book: what it is, where from, the base valuation and the pane's rows."""
+    """One load of the book as the app shows it: the desk session and the Book pane's rows."""
 
     book_seq: int
     db_path: str
     read_only: bool
-    book_name: str
-    valuation: risk.BookValuation
+    session: Session
     tree: BookTree
-    data_version: int
-    valuation_time: datetime
-    marks_as_of: datetime
-    mark_set_id: int | None
-    mark_kind: str
-    seconds: float = 0.0
-    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def valuation(self) -> risk.BookValuation:
+        return self.session.valuation
+
+    @property
+    def data_version(self) -> int:
+        return self.session.data_version
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return (
@@ -456,358 +402,7 @@ def profile(
     )
 
 
-# -- Marks screen -----------------------------------------------------------------------------
-MARK_KINDS = ("spot", "vol", "div_yield", "rate")
-"""Kinds of mark point the Marks screen lists, in screen order."""
-
-STALE_AFTER = timedelta(days=1)
-"""A mark in force unchanged for longer than this is listed as stale at the close."""
-
-
-@dataclass(frozen=True)
-class MarkPoint:
-    """One mark point: the value in force, the last close's and when it was last marked.
-
-    ``value`` and ``close_value`` are as stored (spot in currency, vol/rate/yield decimal); None
-    when there is no such mark. ``needed`` is True when a position depends on a missing point.
-    """
-
-    key: str
-    kind: str
-    symbol: str | None
-    currency: str | None
-    expiry: Any  # datetime.date | None
-    strike: float | None
-    tenor_days: int | None
-    value: float | None
-    close_value: float | None
-    marked_at: datetime | None
-    needed: bool = False
-
-    @property
-    def label(self) -> str:
-        """How the point reads on screen: ``DEMOA spot``, ``DEMOA 2027-03-19 190`` (a vol at that
-        strike; ``ATM`` without one), ``USD rate 90d``."""
-        if self.kind == "spot":
-            return f"{self.symbol} spot"
-        if self.kind == "div_yield":
-            return f"{self.symbol} div yield"
-        if self.kind == "rate":
-            return f"{self.currency} rate {self.tenor_days}d"
-        where = "ATM" if self.strike is None else f"{self.strike:g}"
-        return f"{self.symbol} {self.expiry} {where}"
-
-    def shown(self, value: float | None) -> str:
-        """``value`` in the screen's unit: spot as a price, vol/rate/yield in %."""
-        if value is None:
-            return "missing"
-        if self.kind == "spot":
-            return fmt.number(value, 2)
-        return f"{value * 100:.2f}%"
-
-    def change(self) -> str:
-        """In force − last close, in the screen's unit (vol in points, rate/yield in bp)."""
-        if self.value is None or self.close_value is None:
-            return ""
-        d = self.value - self.close_value
-        if self.kind == "spot":
-            return fmt.number(d, 2, signed=True) if d else "0"
-        if self.kind == "vol":
-            return f"{d * 100:+.2f} pt" if d else "0"
-        return f"{d * 1e4:+.1f} bp" if d else "0"
-
-    def unit(self) -> str:
-        """What a typed number means in this cell."""
-        if self.kind == "spot":
-            return "price in the underlying's currency"
-        if self.kind == "vol" and self.strike is None:
-            return "vol in % at the strike = spot, or $price to solve it"
-        if self.kind == "vol":
-            return "vol in % (24.5 = 24.5%), or $price of the option to solve its vol"
-        return "% (4.1 = 4.1%)"
-
-
-def _point_key(kind: str, symbol: Any, currency: Any, expiry: Any, strike: Any, tenor: Any) -> str:
-    return f"{kind}|{symbol or ''}|{currency or ''}|{expiry or ''}|{strike or ''}|{tenor or ''}"
-
-
-@dataclass(frozen=True)
-class MarksView:
-    """The Marks screen's rows and what a close now would record."""
-
-    points: tuple[MarkPoint, ...]
-    last_close_id: int | None
-    last_close_at: datetime | None
-    data_version: int
-    close_day: date | None = None  # the business date a close written now closes
-    day_closed_by: int | None = None  # the close in force for that date: a close now corrects it
-
-
-MISSING_CURVE_TENOR_DAYS = 365
-"""Tenor (days) of the point offered for a currency with no rate curve: one point is a flat curve,
-so any tenor serves; a year reads naturally."""
-
-
-def marks_view(st: Any, book: Book | None) -> MarksView:
-    """Mark points in force beside the last close, plus points the book needs but nobody marked.
-
-    ``st`` is a ``store.Store``; ``book`` (the live book) says which spots and expiries are
-    needed. Vol points sort under their underlying, nearest expiry first.
-    """
-    in_force = st.marks()
-    close_day, day_closed_by = st.todays_close()
-    closes = [s for s in st.mark_sets(kind="close") if s.superseded_by is None]
-    last = closes[-1] if closes else None
-    at_close = st.marks(last.id) if last is not None else []
-
-    def key_of(m: Any) -> str:
-        return _point_key(m.kind, m.symbol, m.currency, m.expiry, m.strike, m.tenor_days)
-
-    close_by_key = {key_of(m): m.value for m in at_close}
-    points: dict[str, MarkPoint] = {}
-    for m in in_force:
-        if m.kind not in MARK_KINDS:
-            continue
-        k = key_of(m)
-        points[k] = MarkPoint(
-            k,
-            m.kind,
-            m.symbol,
-            m.currency,
-            m.expiry,
-            m.strike,
-            m.tenor_days,
-            m.value,
-            close_by_key.get(k),
-            m.marked_at,
-        )
-    if book is not None and len(book):
-        syms = book.underlyings.symbols
-        for j in np.unique(book.underlying_idx):
-            sym = syms[int(j)]
-            k = _point_key("spot", sym, None, None, None, None)
-            if k not in points:
-                points[k] = MarkPoint(
-                    k, "spot", sym, None, None, None, None, None, None, None, True
-                )
-            rows = np.flatnonzero((book.underlying_idx == j) & book.is_option)
-            marked = {p.expiry for p in points.values() if p.kind == "vol" and p.symbol == sym}
-            for day in np.unique(book.expiry_dates[rows]):
-                d = day.astype(object)
-                if d not in marked:
-                    k = _point_key("vol", sym, None, d, None, None)
-                    points[k] = MarkPoint(
-                        k, "vol", sym, None, d, None, None, None, None, None, True
-                    )
-        # A currency whose options have no rate curve at all: one point to type it at.
-        curves = {p.currency for p in points.values() if p.kind == "rate" and p.value is not None}
-        ccys = book.underlyings.currencies
-        for c in sorted({ccys[int(j)] for j in np.unique(book.underlying_idx[book.is_option])}):
-            if c not in curves:
-                k = _point_key("rate", None, c, None, None, MISSING_CURVE_TENOR_DAYS)
-                points[k] = MarkPoint(
-                    k, "rate", None, c, None, None, MISSING_CURVE_TENOR_DAYS, None, None, None,
-                    True,
-                )
-
-    def order(p: MarkPoint) -> tuple[Any, ...]:
-        if p.kind in ("spot", "vol", "div_yield"):
-            sub = {"spot": 0, "div_yield": 1, "vol": 2}[p.kind]
-            return (
-                0,
-                p.symbol or "",
-                sub,
-                str(p.expiry or ""),
-                -1 if p.strike is None else p.strike,
-            )
-        return (1, p.currency or "", 0, "", p.tenor_days or 0)
-
-    return MarksView(
-        points=tuple(sorted(points.values(), key=order)),
-        last_close_id=last.id if last else None,
-        last_close_at=last.marked_at if last else None,
-        data_version=int(st.data_version()),
-        close_day=close_day,
-        day_closed_by=day_closed_by,
-    )
-
-
-@dataclass(frozen=True)
-class CloseReview:
-    """What a close written now would record, against the last close."""
-
-    changed: tuple[str, ...]  # "DEMOA spot 187.50 → 188.10 (+0.60)"
-    missing: tuple[str, ...]  # points a position needs and nobody marked
-    stale: tuple[str, ...]  # marks unchanged for more than STALE_AFTER
-    n_points: int
-    close_day: date | None = None  # the business date the close closes
-    corrects: int | None = None  # the close of that date it corrects (a date closes once)
-
-
-def close_review(view: MarksView, now: datetime) -> CloseReview:
-    """Sort the points of ``view`` into changed since the last close, missing and stale."""
-    changed, missing, stale = [], [], []
-    n = 0
-    for p in view.points:
-        name = p.label if p.kind != "vol" else p.label.replace(" ", " vol ", 1)
-        if p.value is None:
-            if p.needed:
-                missing.append(name)
-            continue
-        n += 1
-        if p.close_value is None:
-            changed.append(f"{name} new {p.shown(p.value)}")
-        elif p.value != p.close_value:
-            changed.append(f"{name} {p.shown(p.close_value)} → {p.shown(p.value)} ({p.change()})")
-        if p.marked_at is not None and now - p.marked_at > STALE_AFTER:
-            stale.append(f"{name} marked {fmt.age_words(now - p.marked_at)} ago")
-    return CloseReview(
-        tuple(changed), tuple(missing), tuple(stale), n, view.close_day, view.day_closed_by
-    )
-
-
-def parse_mark(point: MarkPoint, text: str) -> tuple[str, float]:
-    """A typed cell: ``("value", stored value)`` or ``("price", option price)`` for ``$12.3``.
-
-    ValueError with a reason for text that is not a number. Vol, rate and yield are typed in %.
-    """
-    t = text.strip().replace(",", "")
-    if not t:
-        raise ValueError("type a number")
-    if t[0] in "$pP" and point.kind == "vol":
-        try:
-            price = float(t[1:].strip())
-        except ValueError:
-            raise ValueError(f"{t[1:]!r} is not a price") from None
-        return "price", limits.PRICE.check(price)
-    try:
-        x = float(t.rstrip("%"))
-    except ValueError:
-        raise ValueError(f"{t!r} is not a number ({point.unit()})") from None
-    return "value", x if point.kind == "spot" else x / 100.0
-
-
-def solve_vol(
-    valuation: risk.BookValuation, point: MarkPoint, price: float
-) -> tuple[float | None, str, bool]:
-    """Implied vol of ``price`` for the point's option, via ``engine.implied_vol``.
-
-    Time, rate and carry come from a position of the same underlying and expiry; the option is the
-    out-of-the-money one at the point's strike (ATM: the spot). Returns (vol or None, words,
-    is_call).
-    """
-    from blotter import engine
-    from blotter.engine.results import IV_STATUS
-
-    book = valuation.book
-    sym = point.symbol or ""
-    try:
-        j = book.underlyings.index_of(sym)
-    except KeyError:
-        return None, f"{sym} is not in the book", True
-    candidates = np.flatnonzero((book.underlying_idx == j) & book.is_option & valuation.live)
-    rows = [
-        int(i)
-        for i in candidates
-        if book.expiry_dates[i].astype(object) == point.expiry
-    ]
-    if not rows:
-        return None, "no live position at this expiry to take time, rate and carry from", True
-    i = rows[0]
-    spot = float(valuation.spot[i])
-    strike = spot if point.strike is None else float(point.strike)
-    is_call = strike >= spot
-    iv = engine.implied_vol(
-        price,
-        is_call,
-        spot,
-        strike,
-        float(valuation.years[i]),
-        float(valuation.rate[i]),
-        float(valuation.carry[i]),
-        bool(book.american[i]),
-    )
-    status = int(np.asarray(iv.status).reshape(-1)[0])
-    kind = "call" if is_call else "put"
-    if status != 0:
-        return None, f"{kind} price {price:g} refused: {IV_STATUS.get(status, status)}", is_call
-    vol = float(np.asarray(iv.vol).reshape(-1)[0])
-    return vol, f"{kind} price {price:g} → implied vol {vol * 100:.2f}%", is_call
-
-
-# -- Trades screen and trial trades -----------------------------------------------------------
-@dataclass(frozen=True)
-class TrialTrade:
-    """A trade layered on the live book in memory only; ``contract`` is a store ContractRecord."""
-
-    trial_id: int
-    contract: Any
-    quantity: int
-    price: float
-    book: str
-
-
-def trial_contract(
-    underlyings: dict[str, dict[str, Any]], terms: ContractTerms, trials: Sequence[TrialTrade]
-) -> Any:
-    """A ``store.ContractRecord`` for a trial on a contract the store does not have yet: the
-    underlying's defaults (``store.preview_contract``), with a negative id of its own (the same
-    id as an earlier trial of the same new contract). ValueError naming what is wrong."""
-    from blotter import store
-
-    und = underlyings.get(terms.symbol)
-    if und is None:
-        raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
-    label = store.contract_label(
-        terms.symbol,
-        "U" if terms.expiry is None else ("C" if terms.is_call else "P"),
-        terms.expiry,
-        terms.strike,
-    )
-    new_ids = [t.contract.contract_id for t in trials if t.contract.contract_id < 0]
-    same = [t.contract.contract_id for t in trials if t.contract.label == label]
-    cid = same[0] if same else min(new_ids, default=0) - 1
-    try:
-        return store.preview_contract(und, terms.expiry, terms.strike, terms.is_call, cid)
-    except store.StoreError as exc:
-        raise ValueError(str(exc)) from None
-
-
-def trial_book(live: Book, trials: Sequence[TrialTrade]) -> Book:
-    """The live book with the trials appended as ``is_trial`` rows (``Book.with_trials``)."""
-    if not trials:
-        return live
-    und = live.underlyings
-    cs = [t.contract for t in trials]
-    opt = [c.option_type != "U" for c in cs]
-    rows = Book(
-        name=live.name,
-        underlyings=und,
-        reference_index=live.reference_index,
-        contract_ids=np.array([c.contract_id for c in cs], dtype=np.int64),
-        labels=tuple(c.label for c in cs),
-        underlying_idx=np.array([und.index_of(c.symbol) for c in cs], dtype=np.int64),
-        is_option=np.array(opt, dtype=bool),
-        is_call=np.array([c.option_type == "C" for c in cs], dtype=bool),
-        american=np.array([bool(c.american) for c in cs], dtype=bool),
-        strikes=np.array([c.strike if c.strike is not None else np.nan for c in cs]),
-        expiries=np.array(
-            [
-                np.datetime64(c.cutoff_utc.astimezone(UTC).replace(tzinfo=None), "s")
-                if c.cutoff_utc is not None
-                else np.datetime64("NaT", "s")
-                for c in cs
-            ],
-            dtype="datetime64[s]",
-        ),
-        multipliers=np.array([c.multiplier for c in cs], dtype=np.float64),
-        quantities=np.array([t.quantity for t in trials], dtype=np.float64),
-        cash_settled=np.array([bool(c.cash_settled) for c in cs], dtype=bool),
-        expiry_dates=np.array([c.expiry or "NaT" for c in cs], dtype="datetime64[D]"),
-    )
-    return live.with_trials(rows)
-
-
+# -- Trades screen ---------------------------------------------------------------------------
 def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
     """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
     clock), contract, quantity, price, state, book, who, source; text typed by people or read
@@ -829,72 +424,3 @@ def matches(cells: Sequence[str], query: str) -> bool:
     """Whether every word of ``query`` occurs in the row's cells (case-insensitive)."""
     text = " ".join(cells).lower()
     return all(w in text for w in query.lower().split())
-
-
-@dataclass(frozen=True)
-class ContractTerms:
-    """A contract as typed in the trade form; ``expiry`` None with strike None is the underlying."""
-
-    symbol: str
-    expiry: Any  # datetime.date | None
-    strike: float | None
-    is_call: bool | None
-
-    def label(self) -> str:
-        if self.expiry is None:
-            return f"{self.symbol} (the underlying)"
-        return f"{self.symbol} {self.expiry} {self.strike:g} {'C' if self.is_call else 'P'}"
-
-
-def parse_terms(symbol: str, expiry: str, strike: str, call_put: str) -> ContractTerms:
-    """Contract terms from the form's fields; ValueError naming the field that is wrong."""
-    from datetime import date
-
-    sym = symbol.strip().upper()
-    if not sym:
-        raise ValueError("symbol: type the underlying's symbol")
-    if not expiry.strip() and not strike.strip() and not call_put.strip():
-        return ContractTerms(sym, None, None, None)
-    try:
-        day = date.fromisoformat(expiry.strip())
-    except ValueError:
-        raise ValueError(f"expiry: {expiry.strip()!r} is not an ISO date (2027-03-19)") from None
-    limits.check_date(day, "expiry")
-    try:
-        k = float(strike.replace(",", ""))
-    except ValueError:
-        raise ValueError(f"strike: {strike.strip()!r} is not a number") from None
-    limits.LEVEL.check(k, "strike")
-    cp = call_put.strip().upper()[:1]
-    if cp not in ("C", "P"):
-        raise ValueError("call/put: type C or P")
-    return ContractTerms(sym, day, k, cp == "C")
-
-
-def find_contract(contracts: Sequence[Any], terms: ContractTerms) -> Any | None:
-    """The ``store.ContractRecord`` with ``terms``, or None when the store has none yet."""
-    for c in contracts:
-        if c.symbol != terms.symbol:
-            continue
-        if terms.expiry is None:
-            if c.option_type == "U":
-                return c
-            continue
-        if (
-            c.option_type == ("C" if terms.is_call else "P")
-            and c.expiry == terms.expiry
-            and c.strike is not None
-            and abs(c.strike - float(terms.strike or 0)) < 1e-9
-        ):
-            return c
-    return None
-
-
-# -- Watch list -------------------------------------------------------------------------------
-def days_to_week_end(now: datetime, tz: Any) -> float:
-    """Calendar days (fractional) from ``now`` to the end of the coming Sunday, desk time."""
-    local = now.astimezone(tz)
-    monday = datetime.combine(
-        local.date() + timedelta(days=7 - local.weekday()), datetime.min.time(), tzinfo=tz
-    )
-    return (monday - local).total_seconds() / 86400.0

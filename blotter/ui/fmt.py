@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from datetime import timedelta
 
 MISSING = "n/a"
 """Shown for a value that cannot be computed (NaN), so a blank never hides a problem."""
@@ -58,21 +57,6 @@ def pct(value: float, width: int = 0) -> str:
 def spot_text(value: float) -> str:
     """A spot or price: two decimals, no sign."""
     return number(value, 2)
-
-
-def age_words(age: timedelta) -> str:
-    """How old something is, in words: ``"35 min"``, ``"3 h 10 min"``, ``"2 days 4 h"``."""
-    seconds = int(age.total_seconds())
-    if seconds < 0:
-        return "dated after the valuation time:"
-    minutes, _ = divmod(seconds, 60)
-    hours, minutes = divmod(minutes, 60)
-    days, hours = divmod(hours, 24)
-    if days:
-        return f"{days} day{'s' if days != 1 else ''} {hours} h"
-    if hours:
-        return f"{hours} h {minutes} min"
-    return f"{minutes} min"
 
 
 def fill_first_column(first: int, widths: Sequence[int], width: int) -> int:

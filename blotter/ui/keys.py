@@ -1,9 +1,10 @@
 """Every key of the app, declared once: binding id, action, plain key, alias, description.
 
-The table is plain data so ``blotter.config`` can check a user's keymap without loading Textual;
-``app_bindings`` turns it into Textual ``Binding`` objects. Each action has a plain key that
-arrives over SSH and inside tmux, plus a function-key or Ctrl alias that also works while the
-what-if bar has focus (printable keys type text there).
+The table is plain data; ``app_bindings`` turns it into Textual ``Binding`` objects. Each action
+has a plain key that arrives over SSH and inside tmux, plus a function-key or Ctrl alias that also
+works while the what-if bar has focus (printable keys type text there). The ids a keymap may name
+and the keys no binding may use live below the UI in ``blotter.keymap``, where the settings check
+a user's keymap.
 """
 
 from __future__ import annotations
@@ -11,8 +12,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
+from blotter.keymap import FORBIDDEN_KEYS, check_keymap
+
 if TYPE_CHECKING:
     from textual.binding import Binding
+
+__all__ = ["FORBIDDEN_KEYS", "KEYS", "KeySpec", "app_bindings", "check_keymap", "key_label", "spec"]
 
 
 @dataclass(frozen=True)
@@ -264,27 +269,6 @@ KEYS: tuple[KeySpec, ...] = (
 )
 """All bindings of the app, in the order the help screen lists them."""
 
-FORBIDDEN_KEYS = frozenset(
-    {
-        "ctrl+s",
-        "ctrl+q",
-        "ctrl+enter",
-        "shift+enter",
-        "escape",
-        "ctrl+h",
-        "ctrl+i",
-        "ctrl+m",
-        "ctrl+j",
-        "f11",
-        "f12",
-        "ctrl+c",
-        "ctrl+z",
-        "ctrl+left_square_bracket",
-    }
-)
-"""Keys a binding may not use: flow control, terminal aliases of Backspace/Tab/Enter, lone Escape,
-keys terminals or window managers keep, and Ctrl+C/Ctrl+Z (interrupt, suspend)."""
-
 KEY_NAMES = {
     "question_mark": "?",
     "slash": "/",
@@ -315,28 +299,6 @@ def key_label(key: str) -> str:
     if len(key) >= 2 and key[0] == "f" and key[1:].isdigit():
         return key.upper()
     return key
-
-
-def check_keymap(keymap: dict[str, str]) -> list[str]:
-    """Problems with a user's keymap (binding id -> comma-separated keys); empty when it is fine."""
-    known = {k.id for k in KEYS}
-    problems: list[str] = []
-    for binding_id, keys in keymap.items():
-        if binding_id not in known:
-            problems.append(
-                f"unknown binding id {binding_id!r} (known: {', '.join(sorted(known))})"
-            )
-            continue
-        names = [k.strip().lower() for k in str(keys).split(",") if k.strip()]
-        if not names:
-            problems.append(f"binding {binding_id!r} has no keys")
-        for name in names:
-            if name in FORBIDDEN_KEYS or name.startswith("alt+"):
-                problems.append(
-                    f"binding {binding_id!r}: key {name!r} does not arrive reliably "
-                    "over SSH/tmux or is kept by the terminal"
-                )
-    return problems
 
 
 def app_bindings(where: str) -> list[Binding]:

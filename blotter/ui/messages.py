@@ -1,17 +1,26 @@
-"""Messages the app's thread workers post back; each keeps only the newest of its kind in the queue.
+"""Messages the app's and the screens' thread workers post back, one class per kind of result.
 
-Workers never touch widgets or reactives: they compute, then post one of these to the app. All
-are ``WorkerResult``s, which the app drops once it has begun to exit (its panes may be gone).
+Workers never touch widgets or reactives: they compute, then post one of these to the app or to
+their own screen. All are ``WorkerResult``s, which the app drops once it has begun to exit (its
+panes may be gone); the app's results keep only the newest of their kind in the queue, and a
+screen's results (``ScreenResult``) stay with the screen that posted them.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, ClassVar
 
 from textual.message import Message
 
+from blotter.desk.limits import LadderBreaches
+
 if TYPE_CHECKING:
+    from blotter.desk.close_review import ClosedSet, MarksView
+    from blotter.desk.entry import TradeSheet
+    from blotter.desk.limits import WeekExpiries
+    from blotter.scenario import Explain, Ladder, Move, MoveResult
+    from blotter.store import MarkSetInfo
     from blotter.ui.data import BookState, ProfileData
 
 
@@ -56,9 +65,8 @@ class MoveApplied(WorkerResult):
     seq: int
     book_seq: int
     text: str
-    move: Any
-    result: Any
-    seconds: float  # time spent in apply_move, for the bench
+    move: Move
+    result: MoveResult
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, MoveApplied)
@@ -81,9 +89,8 @@ class LadderReady(WorkerResult):
 
     book_seq: int
     days: float
-    ladder: Any  # list of scenario.Ladder
-    book_alert: str = ""  # the worst cell beyond the book's ladder limit, in words
-    row_alerts: dict[str, str] | None = None  # underlying -> its ladder breach in words
+    ladder: list[Ladder]
+    breaches: LadderBreaches = field(default_factory=LadderBreaches)
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)
@@ -103,19 +110,6 @@ class ProfileReady(WorkerResult):
         return isinstance(message, ProfileReady)
 
 
-@dataclass(repr=False)
-class Done(WorkerResult):
-    """A screen's worker finished: ``ok`` with words for people, ``payload`` what it produced."""
-
-    what: str
-    ok: bool
-    words: str
-    payload: Any = None
-
-    def __repr__(self) -> str:
-        return f"Done({self.what!r}, ok={self.ok}, words={self.words!r})"
-
-
 @dataclass
 class StoreChanged(WorkerResult):
     """Another process committed to the book file; ``data_version`` is SQLite's counter."""
@@ -124,3 +118,80 @@ class StoreChanged(WorkerResult):
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, StoreChanged)
+
+
+class ScreenResult(WorkerResult):
+    """A desk screen's (or modal's) worker result, handled by the screen that posted it."""
+
+    bubble: ClassVar[bool] = False
+
+
+@dataclass
+class ScreenFailed(ScreenResult):
+    """A screen's read or write failed; ``words`` say why, for people."""
+
+    words: str
+
+
+@dataclass(repr=False)
+class MarksRead(ScreenResult):
+    """The mark points in force beside the last close; ``review`` when a close review asked."""
+
+    view: MarksView
+    review: bool = False
+
+    def __repr__(self) -> str:
+        return f"MarksRead(points={len(self.view.points)}, review={self.review})"
+
+
+@dataclass
+class MarkWritten(ScreenResult):
+    """A typed mark was written; ``words`` say what."""
+
+    words: str
+
+
+@dataclass
+class CloseWritten(ScreenResult):
+    """The close set was written."""
+
+    closed: ClosedSet
+
+
+@dataclass(repr=False)
+class TradesRead(ScreenResult):
+    """The file's trades and what a typed trade is checked against."""
+
+    sheet: TradeSheet
+
+    def __repr__(self) -> str:
+        return f"TradesRead(trades={len(self.sheet.trades)})"
+
+
+@dataclass
+class TradeWritten(ScreenResult):
+    """A trade ticket (or the promoted trials, ``promoted``) was written; ``words`` say what."""
+
+    words: str
+    promoted: bool = False
+
+
+@dataclass(repr=False)
+class ExplainReady(ScreenResult):
+    """P&L explained between two closes (or a close and now); ``closes`` in force, oldest first."""
+
+    closes: list[MarkSetInfo]
+    result: Explain
+
+    def __repr__(self) -> str:
+        return f"ExplainReady(closes={len(self.closes)})"
+
+
+@dataclass(repr=False)
+class WeekReady(ScreenResult):
+    """What expires by the end of Sunday."""
+
+    week: WeekExpiries
+
+    def __repr__(self) -> str:
+        return f"WeekReady(expiring={len(self.week.expiring)})"

@@ -12,6 +12,7 @@ import pytest
 from rich.console import Console
 
 from blotter import risk, scenario, store
+from blotter.desk import session
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.move_pane import COLUMNS, TERMS, MovePane
@@ -404,4 +405,4 @@ async def test_the_desk_zone_setting_is_the_zone_of_the_day_roll(demo_db: Path) 
         assert v.tz == tokyo
         rolled = scenario.roll_time(v, scenario.parse_move("bdays 3"))
         assert str(rolled) == "2026-12-06T15:00:00"
-        assert app._roll_days(scenario.parse_move("bdays 3")) == pytest.approx(5.0)
+        assert session.roll_days(v, scenario.parse_move("bdays 3")) == pytest.approx(5.0)

@@ -13,7 +13,7 @@ from blotter.ui.screens.trades import TradeForm, TradesScreen
 from blotter.ui.widgets.whatif_bar import MoveInput
 
 from .conftest import TEST_SETTINGS, frozen_clock, settle
-from .test_desk import counts, fill, message, open_trades
+from .test_screens import counts, fill, message, open_trades
 
 HUGE = "1" + "0" * 309
 """310 digits: past float64."""

@@ -19,10 +19,10 @@ from textual.widget import Widget
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.messages import (
     BookLoaded,
-    Done,
     LadderReady,
     LoadFailed,
     LoadProgress,
+    MarksRead,
     MoveApplied,
     MoveFailed,
     ProfileReady,
@@ -32,7 +32,7 @@ from blotter.ui.screens.marks import MarksScreen
 from blotter.ui.widgets.ladder_pane import LadderPane
 
 from .conftest import TEST_SETTINGS, frozen_clock, settle
-from .test_desk import open_marks
+from .test_screens import open_marks
 
 
 class Probe(Widget):
@@ -59,7 +59,7 @@ def app_results(app: BlotterApp) -> dict[str, Callable[[], Message]]:
         "LoadProgress": lambda: LoadProgress(1),
         "LoadFailed": lambda: LoadFailed("late failure"),
         "MoveApplied": lambda: MoveApplied(
-            app.move_seq, app.book_seq, app.move_text, app.move, result, 0.0
+            app.move_seq, app.book_seq, app.move_text, app.move, result
         ),
         "MoveFailed": lambda: MoveFailed(app.move_seq, "late failure"),
         "LadderReady": lambda: LadderReady(app.book_seq, 0.0, ladder),
@@ -127,7 +127,7 @@ async def test_a_screen_result_arriving_as_the_screen_closes_changes_nothing(
         screen = await open_marks(app, pilot)
         assert screen.view is not None
         view = screen.view
-        await screen.mount(Probe(screen, lambda: Done("marks-load", True, "", view)))
+        await screen.mount(Probe(screen, lambda: MarksRead(view)))
         if exit_by == "back":
             await pilot.press("q")
             await settle(app, pilot)

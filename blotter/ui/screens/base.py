@@ -1,9 +1,13 @@
 """What the app's own screens share: a title line, a message line, a footer, a way back, and
-write actions that are not offered on a read-only book (and say so when their key is pressed)."""
+write actions that are not offered on a read-only book (and say so when their key is pressed).
+
+A screen is given its host (``ui.host.DeskHost``, the app) when it is made and asks the app for
+nothing else; its workers report to it by typed messages (``ui.messages.ScreenResult``).
+"""
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any, ClassVar
+from typing import ClassVar
 
 from rich.text import Text
 from textual import events
@@ -11,10 +15,8 @@ from textual.screen import Screen
 from textual.widgets import Static
 
 from blotter.printable import printable
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import KEYS
-
-if TYPE_CHECKING:
-    from blotter.ui.app import BlotterApp
 
 READ_ONLY_WORDS = "the book is open read-only: nothing can be written"
 """What a write key says on a read-only book."""
@@ -27,9 +29,9 @@ class DeskScreen(Screen[None]):
     WRITE_ACTIONS: ClassVar[frozenset[str]] = frozenset()
     """Actions that write to the store: hidden, and refused in words, when read-only."""
 
-    @property
-    def blotter(self) -> BlotterApp:
-        return self.app  # type: ignore[return-value]
+    def __init__(self, host: DeskHost, id: str | None = None) -> None:
+        super().__init__(id=id)
+        self.host = host
 
     def title_line(self, text: str) -> Static:
         return Static(Text(text, style="bold"), classes="desk-title")
@@ -40,13 +42,13 @@ class DeskScreen(Screen[None]):
         line.update(Text(printable(words), style="bold reverse" if bad else ""))
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        if action in self.WRITE_ACTIONS and self.blotter.read_only:
+        if action in self.WRITE_ACTIONS and self.host.read_only:
             return False
         return True
 
     def on_key(self, event: events.Key) -> None:
         """A write key on a read-only book says why nothing happens."""
-        if not self.blotter.read_only:
+        if not self.host.read_only:
             return
         for spec in KEYS:
             if (
@@ -64,12 +66,3 @@ class DeskScreen(Screen[None]):
 
     def store_changed(self) -> None:
         """The book file changed (this app's write or another process's): refresh what is shown."""
-
-
-def open_store(app: Any, read_only: bool = False) -> Any:
-    """A ``store.Store`` of the app's file for this thread (workers open their own)."""
-    from blotter import store
-
-    return store.open_store(
-        app.db_path, read_only=read_only or app.read_only, desk_tz=app.tz
-    )

@@ -12,10 +12,12 @@ from textual.binding import BindingType
 from textual.widgets import DataTable, Footer, Static
 from textual.worker import get_current_worker
 
+from blotter.desk import session
 from blotter.ui import fmt
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import app_bindings
-from blotter.ui.messages import Done
-from blotter.ui.screens.base import DeskScreen, open_store
+from blotter.ui.messages import ExplainReady, ScreenFailed
+from blotter.ui.screens.base import DeskScreen
 
 TERM_LABELS = {
     "delta": "Δ · dS",
@@ -37,8 +39,8 @@ class ExplainScreen(DeskScreen):
     WHERE = "explain"
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("explain"))
 
-    def __init__(self) -> None:
-        super().__init__(id="explain")
+    def __init__(self, host: DeskHost) -> None:
+        super().__init__(host, id="explain")
         self.closes: list[Any] = []
         self.start_back = 0  # 0 = the last close before the end, 1 = the one before, ...
         self.end: int | str = "now"  # "now" or a close set id
@@ -65,8 +67,7 @@ class ExplainScreen(DeskScreen):
 
         worker = get_current_worker()
         try:
-            st = open_store(self.app, read_only=True)
-            try:
+            with self.host.open_store(read_only=True) as st:
                 closes = scenario.closes_in_force(st.mark_sets())
                 end_id = None if end == "now" else int(end)
                 before = _before(closes, end_id)
@@ -74,22 +75,19 @@ class ExplainScreen(DeskScreen):
                     raise ValueError("no close before the end: commit a close first")
                 start = before[max(0, len(before) - 1 - start_back)]
                 result = scenario.explain(st, start.id, "now" if end == "now" else end_id)
-            finally:
-                st.close()
         except Exception as exc:  # noqa: BLE001 - shown to the user
             if not worker.is_cancelled:
-                self.post_message(Done("explain", False, f"✗ cannot explain: {exc}"))
+                self.post_message(ScreenFailed(f"✗ cannot explain: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("explain", True, "", (closes, result)))
+            self.post_message(ExplainReady(closes, result))
 
-    def on_done(self, message: Done) -> None:
-        message.stop()
-        if not message.ok:
-            self.say(message.words, bad=True)
-            return
-        self.closes, self.result = message.payload
+    def on_explain_ready(self, message: ExplainReady) -> None:
+        self.closes, self.result = message.closes, message.result
         self.show(self.result)
+
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words, bad=True)
 
     def show(self, result: Any) -> None:
         table = self.query_one("#explain-table", DataTable)
@@ -124,7 +122,7 @@ class ExplainScreen(DeskScreen):
         add("= held P&L", [r.actual for r in cols])
         add("new trades", [r.new_trades for r in cols])
         add("= total P&L", [r.total for r in cols])
-        tz = self.blotter.tz
+        tz = self.host.tz
         frm = result.from_set
         to = result.to_set
         start = f"close {frm.id} ({frm.marked_at.astimezone(tz):%Y-%m-%d %H:%M})"
@@ -136,9 +134,7 @@ class ExplainScreen(DeskScreen):
         self.query_one(".desk-title", Static).update(
             Text(f"Explain: P&L from {start} to {end}", style="bold")
         )
-        from blotter.ui import data
-
-        left_out = data.unvalued_words(getattr(result, "unvalued", ()))
+        left_out = session.unvalued_words(getattr(result, "unvalued", ()))
         notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])
         self.say(
             "Start greeks on the positions held at the start; new trades: end value − trade "

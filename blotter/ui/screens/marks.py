@@ -5,12 +5,12 @@ then rates. Enter (or typing a digit) edits the cell under the cursor: a number 
 in a vol cell ``$12.35`` is an option price whose implied vol (``engine.implied_vol``) becomes
 the mark. The store checks every value; a refusal is shown beside the cell and the typed text
 stays. A typed mark is written at once as an intraday mark; "close" reviews what changed since
-the last close, what is missing and what has not moved for over a day, then writes one close set.
+the last close, what is missing and what has not moved for over a day (``desk.close_review``);
+the review writes the close itself and returns the set it wrote with ``dismiss``.
 """
 
 from __future__ import annotations
 
-import time
 from typing import ClassVar
 
 from rich.text import Text
@@ -22,10 +22,12 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Static
 from textual.worker import get_current_worker
 
-from blotter.ui import data
+from blotter.desk import close_review, entry
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import app_bindings
-from blotter.ui.messages import Done
-from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen, open_store
+from blotter.ui.messages import CloseWritten, MarksRead, MarkWritten, ScreenFailed
+from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen
+from blotter.ui.timings import Timing
 
 COLUMNS = (
     ("point", "mark point", 24),
@@ -45,14 +47,10 @@ class MarksScreen(DeskScreen):
     WRITE_ACTIONS = frozenset({"edit", "commit_close"})
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("marks"))
 
-    def __init__(self) -> None:
-        super().__init__(id="marks")
-        self.view: data.MarksView | None = None
-        self.editing: data.MarkPoint | None = None
-        self.last_write_s: float | None = None
-        self.last_close_s: float | None = None
-        self.close_timing: list[tuple[float, float, float]] = []  # (key, worker start, painted)
-        self._close_started = (0.0, 0.0)
+    def __init__(self, host: DeskHost) -> None:
+        super().__init__(host, id="marks")
+        self.view: close_review.MarksView | None = None
+        self.editing: close_review.MarkPoint | None = None
 
     def compose(self) -> ComposeResult:
         yield self.title_line("Marks: in force beside the last close")
@@ -66,10 +64,10 @@ class MarksScreen(DeskScreen):
             select_on_focus=False,
             placeholder=(
                 "read-only: marks cannot be typed"
-                if self.blotter.read_only
+                if self.host.read_only
                 else "type a number on a row to edit its mark"
             ),
-            disabled=self.blotter.read_only,
+            disabled=self.host.read_only,
         )
         yield Static("", classes="desk-message")
         yield Footer(compact=True)
@@ -81,7 +79,7 @@ class MarksScreen(DeskScreen):
         table.focus()
         self.say(
             "Read-only: marks are shown, not typed."
-            if self.blotter.read_only
+            if self.host.read_only
             else "Enter or a digit edits the cell; $price in a vol cell solves its vol."
         )
         self.load()
@@ -107,23 +105,29 @@ class MarksScreen(DeskScreen):
         """In a worker thread: read the marks in this thread's own store and post them."""
         worker = get_current_worker()
         try:
-            st = open_store(self.app, read_only=True)
-            try:
-                book = st.load_book()
-                view = data.marks_view(st, book)
-            finally:
-                st.close()
+            with self.host.open_store(read_only=True) as st:
+                view = close_review.marks_view(st, st.load_book())
         except Exception as exc:  # noqa: BLE001 - shown to the user
             if not worker.is_cancelled:
-                self.post_message(Done("marks-load", False, f"cannot read the marks: {exc}"))
+                self.post_message(ScreenFailed(f"cannot read the marks: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("marks-review" if review else "marks-load", True, "", view))
+            self.post_message(MarksRead(view, review))
 
-    def show(self, view: data.MarksView) -> None:
+    def on_marks_read(self, message: MarksRead) -> None:
+        self.show(message.view)
+        if message.review:
+            self.say("")
+            review = close_review.close_review(message.view, self.host.clock())
+            self.app.push_screen(CloseReviewScreen(self.host, review), self._close_reviewed)
+
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words, bad=True)
+
+    def show(self, view: close_review.MarksView) -> None:
         """Fill the table with ``view`` keeping the cursor on the same point."""
         table = self.query_one("#marks-table", DataTable)
-        tz = self.blotter.tz
+        tz = self.host.tz
         cursor = self.cursor_point()
         table.clear()
         for p in view.points:
@@ -158,12 +162,12 @@ class MarksScreen(DeskScreen):
             table.move_cursor(row=keys.index(cursor.key), animate=False)
 
     @staticmethod
-    def _missing_words(view: data.MarksView) -> str:
+    def _missing_words(view: close_review.MarksView) -> str:
         """``, 3 missing`` when positions need points nobody marked, else nothing."""
         missing = sum(p.needed and p.value is None for p in view.points)
         return f", {missing} missing" if missing else ""
 
-    def cursor_point(self) -> data.MarkPoint | None:
+    def cursor_point(self) -> close_review.MarkPoint | None:
         """The mark point under the cursor."""
         if self.view is None or not self.view.points:
             return None
@@ -190,7 +194,7 @@ class MarksScreen(DeskScreen):
         if not event.character:
             return
         table = self.query_one("#marks-table", DataTable)
-        if self.blotter.read_only:
+        if self.host.read_only:
             if self.focused is table and (event.character.isdigit() or event.character in ".-$"):
                 event.stop()
                 self.say(READ_ONLY_WORDS, bad=True)
@@ -209,7 +213,7 @@ class MarksScreen(DeskScreen):
     async def _enter_on_row(self, event: DataTable.RowSelected) -> None:
         """Enter on the table edits the cell (the table takes Enter before the screen's keys)."""
         event.stop()
-        if self.blotter.read_only:
+        if self.host.read_only:
             self.say(READ_ONLY_WORDS, bad=True)
             return
         box = self.query_one("#marks-edit", Input)
@@ -238,17 +242,19 @@ class MarksScreen(DeskScreen):
         if point is None:
             return
         try:
-            what, x = data.parse_mark(point, event.value)
+            what, x = entry.parse_mark(point.kind, event.value)
         except ValueError as exc:
             self.say(f"✗ refused: {exc}; nothing written", bad=True)
             return
         words = ""
         if what == "price":
-            state = self.blotter.state
+            state = self.host.state
             if state is None:
                 self.say("✗ the book is still loading", bad=True)
                 return
-            vol, words, _ = data.solve_vol(state.valuation, point, x)
+            vol, words, _ = entry.solve_vol(
+                state.valuation, point.symbol or "", point.expiry, point.strike, x
+            )
             if vol is None:
                 self.say(f"✗ {words}; nothing written", bad=True)
                 return
@@ -256,38 +262,41 @@ class MarksScreen(DeskScreen):
         self.write_mark(point, x, words)
 
     @work(thread=True, exclusive=True, group="marks-write", exit_on_error=False)
-    def write_mark(self, point: data.MarkPoint, value: float, words: str) -> None:
+    def write_mark(self, point: close_review.MarkPoint, value: float, words: str) -> None:
         """Log ``value`` at ``point`` as an intraday mark through the store, which checks it."""
         from blotter import store
 
-        t0 = time.perf_counter()
         try:
-            st = open_store(self.app)
-            try:
-                if point.kind == "spot":
-                    st.log_spot(point.symbol, value, note="typed in the app")
-                elif point.kind == "vol":
-                    st.log_vol(
-                        point.symbol, point.expiry, value, point.strike, note="typed in the app"
-                    )
-                elif point.kind == "div_yield":
-                    st.log_div_yield(point.symbol, value, note="typed in the app")
-                else:
-                    st.log_rate(point.currency, point.tenor_days, value, note="typed in the app")
-            finally:
-                st.close()
+            with self.host.open_store() as st:
+                entry.write_mark(
+                    st,
+                    point.kind,
+                    value,
+                    symbol=point.symbol,
+                    currency=point.currency,
+                    expiry=point.expiry,
+                    strike=point.strike,
+                    tenor_days=point.tenor_days,
+                )
         except (store.StoreError, ValueError, KeyError) as exc:
-            self.post_message(Done("mark", False, f"✗ refused: {exc}; what you typed is kept"))
+            self.post_message(ScreenFailed(f"✗ refused: {exc}; what you typed is kept"))
             return
-        self.last_write_s = time.perf_counter() - t0
         shown = point.shown(value)
         self.post_message(
-            Done(
-                "mark",
-                True,
-                f"✓ {point.label.strip()} marked {shown}" + (f" ({words})" if words else ""),
+            MarkWritten(
+                f"✓ {point.label.strip()} marked {shown}" + (f" ({words})" if words else "")
             )
         )
+
+    def on_mark_written(self, message: MarkWritten) -> None:
+        self.say(message.words)
+        self._close_editor()
+        self._written()
+
+    def _written(self) -> None:
+        """After a write: read the marks again, and the book (its valuation uses them)."""
+        self.load()
+        self.host.load_book()
 
     # -- the close ---------------------------------------------------------------------------------
     def action_commit_close(self) -> None:
@@ -295,68 +304,30 @@ class MarksScreen(DeskScreen):
         self.say("reading the marks for the close…")
         self.load(review=True)
 
-    @work(thread=True, exclusive=True, group="marks-close", exit_on_error=False)
-    def write_close(self, note: str, corrects: int | None = None) -> None:
-        """Write the marks in force as one close set (a correction of the close ``corrects``
-        when the review found the date closed); ``Done`` says which set or why not."""
-        from blotter import store
-
-        t0 = time.perf_counter()
-        self._close_started = (self._close_started[0], t0)
-        try:
-            st = open_store(self.app)
-            try:
-                set_id = st.commit_close(note=note, corrects=corrects)
-            finally:
-                st.close()
-        except (store.StoreError, ValueError) as exc:
-            self.post_message(Done("close", False, f"✗ close not written: {exc}"))
+    def _close_reviewed(self, closed: close_review.ClosedSet | None) -> None:
+        """The review is gone: say which close set it wrote (None: it wrote none)."""
+        if closed is None:
             return
-        self.last_close_s = time.perf_counter() - t0
-        fixes = f", correcting set {corrects}" if corrects is not None else ""
-        self.post_message(Done("close", True, f"✓ close set {set_id} written{fixes}", set_id))
-
-    def on_done(self, message: Done) -> None:
-        message.stop()
-        if message.what in ("marks-load", "marks-review"):
-            if message.ok:
-                self.show(message.payload)
-                if message.what == "marks-review":
-                    self.say("")
-                    review = data.close_review(message.payload, self.blotter.clock())
-                    self.app.push_screen(CloseReviewScreen(review, self))
-            else:
-                self.say(message.words, bad=True)
-            return
-        self.say(message.words, bad=not message.ok)
-        if message.what == "mark" and message.ok:
-            self._close_editor()
-        if message.what == "close":
-            started = self._close_started
-            self.call_after_refresh(
-                lambda: self.close_timing.append((*started, time.perf_counter()))
-            )
-            top = self.app.screen
-            if isinstance(top, CloseReviewScreen):
-                if message.ok:
-                    top.dismiss()
-                else:
-                    top.say(message.words)
-        if message.ok:
-            self.load()
-            self.blotter.load_book()
+        self.say(f"✓ {closed.words}")
+        timings = self.host.timings
+        self.call_after_refresh(lambda: timings.stamp(Timing.CLOSE_PAINTED))
+        self._written()
 
 
-class CloseReviewScreen(ModalScreen[None]):
-    """What the close will record: changes since the last close, missing and stale marks."""
+class CloseReviewScreen(ModalScreen[close_review.ClosedSet | None]):
+    """What the close will record: changes since the last close, missing and stale marks.
+
+    Confirming writes the close here (``desk.close_review.commit_close``); a refusal is said on
+    this screen, which stays, and a written close set is the screen's result.
+    """
 
     CSS_PATH = "desk.tcss"
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("review"))
 
-    def __init__(self, review: data.CloseReview, marks: MarksScreen) -> None:
+    def __init__(self, host: DeskHost, review: close_review.CloseReview) -> None:
         super().__init__(id="close-review")
+        self.host = host
         self.review = review
-        self.marks = marks
 
     def compose(self) -> ComposeResult:
         r = self.review
@@ -395,11 +366,30 @@ class CloseReviewScreen(ModalScreen[None]):
 
     def action_confirm(self) -> None:
         self.say("writing the close set…")
-        self.marks._close_started = (time.perf_counter(), 0.0)
-        self.marks.write_close("close from the app", self.review.corrects)
+        self.host.timings.stamp(Timing.CLOSE_KEY)
+        self.write_close()
+
+    @work(thread=True, exclusive=True, group="close-write", exit_on_error=False)
+    def write_close(self) -> None:
+        """Write the marks in force as one close set (a correction when the day is closed)."""
+        from blotter import store
+
+        try:
+            with self.host.open_store() as st:
+                closed = close_review.commit_close(st, self.review)
+        except (store.StoreError, ValueError) as exc:
+            self.post_message(ScreenFailed(f"✗ close not written: {exc}"))
+            return
+        self.post_message(CloseWritten(closed))
+
+    def on_close_written(self, message: CloseWritten) -> None:
+        self.dismiss(message.closed)
+
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words)
 
     def action_back(self) -> None:
-        self.dismiss()
+        self.dismiss(None)
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        return not (action == "confirm" and getattr(self.app, "read_only", False))
+        return not (action == "confirm" and self.host.read_only)

@@ -4,13 +4,15 @@ Add a trade or a trial from one keyboard form (the contract picked by symbol, ex
 call/put; a contract the store does not know is created after a confirmation, or for a trial
 built in memory with the underlying's defaults), cancel with a reason, amend. Each change is a
 new row in the store. Trials live in the app's memory only: they are layered on the live book
-everywhere, marked ``T``, and written only when promoted.
+everywhere, marked ``T``, and written only when promoted. The form checks what was typed
+(``desk.entry``), writes it itself and returns what it did with ``dismiss``: the words of a
+written change, or a trial for the app to layer on.
 """
 
 from __future__ import annotations
 
-import time
-from typing import Any, ClassVar
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from rich.text import Text
 from textual import on, work
@@ -21,12 +23,16 @@ from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.worker import get_current_worker
 
-from blotter import limits
+from blotter.desk import entry, trials
 from blotter.printable import printable
 from blotter.ui import data
+from blotter.ui.host import DeskHost
 from blotter.ui.keys import app_bindings
-from blotter.ui.messages import Done
-from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen, open_store
+from blotter.ui.messages import ScreenFailed, TradesRead, TradeWritten
+from blotter.ui.screens.base import READ_ONLY_WORDS, DeskScreen
+
+if TYPE_CHECKING:
+    from blotter.store import ContractRecord, TradeRecord
 
 COLUMNS = (
     ("id", "id", 4),
@@ -41,6 +47,36 @@ COLUMNS = (
 )
 """(key, header, width) of the trades table; at 80 columns the last ones scroll into view."""
 
+NO_TRADES = entry.TradeSheet((), (), (), (), {})
+"""The sheet until the first read: no trades, and any symbol passes the form (the store checks)."""
+
+
+@dataclass(frozen=True)
+class Booked:
+    """The form wrote its change to the store; ``words`` say what."""
+
+    words: str
+
+
+@dataclass(frozen=True)
+class NewTrial:
+    """The form's trial, for the app to layer on the live book (``new``: a contract the store
+    does not have, built from the underlying's defaults)."""
+
+    contract: ContractRecord
+    quantity: int
+    price: float
+    book: str
+    new: bool
+
+    def words(self) -> str:
+        where = "a new contract, not in the store" if self.new else "not in the store"
+        return f"trial {self.contract.label} ×{self.quantity:+d} added ({where})"
+
+
+FormResult = Booked | NewTrial
+"""What the trade form returns when it is done (None when left without booking)."""
+
 
 class TradesScreen(DeskScreen):
     """See the module docstring."""
@@ -50,14 +86,15 @@ class TradesScreen(DeskScreen):
     WRITE_ACTIONS = frozenset({"add", "amend", "cancel_trade", "promote"})
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("trades"))
 
-    def __init__(self) -> None:
-        super().__init__(id="trades")
-        self.records: list[Any] = []
-        self.contracts: list[Any] = []
-        self.books: list[str] = []
-        self.symbols: list[str] = []
-        self.underlyings: dict[str, dict[str, Any]] = {}  # store.underlying_records by symbol
+    def __init__(self, host: DeskHost) -> None:
+        super().__init__(host, id="trades")
+        self.sheet = NO_TRADES
         self.shown_ids: list[str] = []
+
+    @property
+    def records(self) -> tuple[TradeRecord, ...]:
+        """The store's trades as last read, in the store's listing order."""
+        return self.sheet.trades
 
     def compose(self) -> ComposeResult:
         yield self.title_line("Trades")
@@ -83,23 +120,21 @@ class TradesScreen(DeskScreen):
         """Every trade, the contracts and the book names, read in this thread's own store."""
         worker = get_current_worker()
         try:
-            st = open_store(self.app, read_only=True)
-            try:
-                payload = (
-                    st.trades(),
-                    st.contracts(),
-                    st.book_names(),
-                    list(st.load_underlyings().symbols),
-                    {r["symbol"]: r for r in st.underlying_records()},
-                )
-            finally:
-                st.close()
+            with self.host.open_store(read_only=True) as st:
+                sheet = entry.read_trade_sheet(st)
         except Exception as exc:  # noqa: BLE001 - shown to the user
             if not worker.is_cancelled:
-                self.post_message(Done("trades-load", False, f"cannot read the trades: {exc}"))
+                self.post_message(ScreenFailed(f"cannot read the trades: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("trades-load", True, "", payload))
+            self.post_message(TradesRead(sheet))
+
+    def on_trades_read(self, message: TradesRead) -> None:
+        self.sheet = message.sheet
+        self.show()
+
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words, bad=True)
 
     def store_changed(self) -> None:
         self.load()
@@ -108,11 +143,11 @@ class TradesScreen(DeskScreen):
         """Trials first, then the store's trades newest first, filtered by the filter line."""
         table = self.query_one("#trades-table", DataTable)
         query = self.query_one("#trades-filter", Input).value
-        tz = self.blotter.tz
+        tz = self.host.tz
         cursor = self.cursor_key()
         table.clear()
         self.shown_ids = []
-        for t in self.blotter.trials:
+        for t in self.host.trials:
             c = t.contract
             cells: tuple[str, ...] = (
                 f"T{t.trial_id}",
@@ -137,8 +172,8 @@ class TradesScreen(DeskScreen):
         self.query_one(".desk-title", Static).update(
             Text(
                 f"Trades: {len(self.shown_ids)} shown │ {len(self.records)} in the store "
-                f"({n_live} live) │ trials {len(self.blotter.trials)}"
-                + (" │ READ-ONLY" if self.blotter.read_only else ""),
+                f"({n_live} live) │ trials {len(self.host.trials)}"
+                + (" │ READ-ONLY" if self.host.read_only else ""),
                 style="bold",
             )
         )
@@ -177,22 +212,22 @@ class TradesScreen(DeskScreen):
         self.query_one("#trades-filter", Input).focus()
 
     def action_add(self) -> None:
-        self.app.push_screen(TradeForm(self, "trade"))
+        self._form("trade")
 
     def action_add_trial(self) -> None:
-        self.app.push_screen(TradeForm(self, "trial"))
+        self._form("trial")
 
     def action_amend(self) -> None:
         trade = self.cursor_trade()
         if trade is None or trade.state != "live":
             self.say("✗ put the cursor on a live trade to amend it", bad=True)
             return
-        self.app.push_screen(TradeForm(self, "amend", trade))
+        self._form("amend", trade)
 
     def action_cancel_trade(self) -> None:
         key = self.cursor_key()
         if key is not None and key.startswith("T"):
-            self.blotter.remove_trial(int(key[1:]))
+            self.host.remove_trial(int(key[1:]))
             self.say(f"trial {key} removed (the store is untouched)")
             self.show()
             return
@@ -200,98 +235,51 @@ class TradesScreen(DeskScreen):
         if trade is None or trade.state != "live":
             self.say("✗ put the cursor on a live trade to cancel it", bad=True)
             return
-        self.app.push_screen(TradeForm(self, "cancel", trade))
+        self._form("cancel", trade)
+
+    def _form(self, kind: str, trade: TradeRecord | None = None) -> None:
+        self.app.push_screen(TradeForm(self.host, self.sheet, kind, trade), self._form_done)
+
+    def _form_done(self, result: FormResult | None) -> None:
+        """The form is gone: say what it booked, or layer its trial on the book."""
+        if isinstance(result, Booked):
+            self.say(result.words)
+            self._written()
+        elif isinstance(result, NewTrial):
+            self.host.add_trial(result.contract, result.quantity, result.price, result.book)
+            self.say(result.words())
+            self.show()
 
     def action_promote(self) -> None:
-        if not self.blotter.trials:
+        if not self.host.trials:
             self.say("no trials to promote")
             return
-        self.write("promote", list(self.blotter.trials))
+        self.promote(self.host.trials)
 
     @work(thread=True, exclusive=True, group="trades-write", exit_on_error=False)
-    def write(self, what: str, arg: Any, **kw: Any) -> None:
-        """One change through the store (each a new row): add, cancel, amend or promote trials."""
+    def promote(self, trial_trades: list[trials.TrialTrade]) -> None:
+        """Book every trial as a real trade through the store (``desk.trials.promote``)."""
         from blotter import store
 
-        t0 = time.perf_counter()
         try:
-            st = open_store(self.app)
-            try:
-                if what == "add":
-                    terms: data.ContractTerms = arg
-                    new_id = st.add_trade(
-                        kw["book"],
-                        terms.symbol,
-                        kw["quantity"],
-                        kw["price"],
-                        terms.expiry,
-                        terms.strike,
-                        terms.is_call,
-                        note=kw.get("note", ""),
-                        source="typed",
-                    )
-                    words = (
-                        f"✓ trade {new_id} booked: {terms.label()} ×{kw['quantity']:+d} "
-                        f"at {kw['price']:g}"
-                    )
-                elif what == "cancel":
-                    st.cancel_trade(arg.trade_id, kw["reason"])
-                    words = f"✓ trade {arg.trade_id} cancelled: {kw['reason']}"
-                elif what == "amend":
-                    new_id = st.amend_trade(
-                        arg.trade_id,
-                        reason=kw["reason"],
-                        quantity=kw.get("quantity"),
-                        price=kw.get("price"),
-                    )
-                    words = f"✓ trade {arg.trade_id} amended: now trade {new_id}"
-                else:  # promote
-                    ids = [
-                        st.add_trade(
-                            t.book,
-                            t.contract.symbol,
-                            t.quantity,
-                            t.price,
-                            t.contract.expiry,
-                            t.contract.strike,
-                            None
-                            if t.contract.option_type == "U"
-                            else t.contract.option_type == "C",
-                            note="promoted trial",
-                            source="typed",
-                        )
-                        for t in arg
-                    ]
-                    words = f"✓ {len(ids)} trial(s) booked as trades {', '.join(map(str, ids))}"
-            finally:
-                st.close()
+            with self.host.open_store() as st:
+                ids = trials.promote(st, trial_trades)
         except (store.StoreError, ValueError, KeyError) as exc:
-            self.post_message(Done(what, False, f"✗ not written: {exc}"))
+            self.post_message(ScreenFailed(f"✗ not written: {exc}"))
             return
-        self.post_message(Done(what, True, words, time.perf_counter() - t0))
+        words = f"✓ {len(ids)} trial(s) booked as trades {', '.join(map(str, ids))}"
+        self.post_message(TradeWritten(words, promoted=True))
 
-    def on_done(self, message: Done) -> None:
-        message.stop()
-        if message.what == "trades-load":
-            if message.ok:
-                (self.records, self.contracts, self.books, self.symbols,
-                 self.underlyings) = message.payload
-                self.show()
-            else:
-                self.say(message.words, bad=True)
-            return
-        form = self.app.screen
-        if isinstance(form, TradeForm):
-            if message.ok:
-                form.dismiss()
-            else:
-                form.say(message.words)
-        self.say(message.words, bad=not message.ok)
-        if message.ok:
-            if message.what == "promote":
-                self.blotter.clear_trials(reload=False)
-            self.load()
-            self.blotter.load_book()
+    def on_trade_written(self, message: TradeWritten) -> None:
+        self.say(message.words)
+        if message.promoted:
+            self.host.clear_trials(reload=False)
+        self._written()
+
+    def _written(self) -> None:
+        """After a write: read the trades again, and the book (it holds them)."""
+        self.load()
+        self.host.load_book()
 
 
 FIELDS = {
@@ -311,18 +299,28 @@ FIELDS = {
 """Fields of the form per kind (a trial uses the trade's fields)."""
 
 
-class TradeForm(ModalScreen[None]):
-    """The keyboard form: Tab between fields, Enter on the last (or F5) books it."""
+class TradeForm(ModalScreen[FormResult | None]):
+    """The keyboard form: Tab between fields, Enter on the last (or F5) books it.
+
+    It writes what was typed itself and stays up, saying why, when the store refuses it.
+    """
 
     CSS_PATH = "desk.tcss"
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("form"))
 
-    def __init__(self, trades: TradesScreen, kind: str, trade: Any = None) -> None:
+    def __init__(
+        self,
+        host: DeskHost,
+        sheet: entry.TradeSheet,
+        kind: str,
+        trade: TradeRecord | None = None,
+    ) -> None:
         super().__init__(id="trade-form")
-        self.trades = trades
+        self.host = host
+        self.sheet = sheet
         self.kind = kind  # trade, trial, amend or cancel
         self.trade = trade
-        self.confirm_new: data.ContractTerms | None = None
+        self.confirm_new: entry.ContractTerms | None = None
 
     def _fields(self) -> tuple[tuple[str, str], ...]:
         return FIELDS["trade" if self.kind in ("trade", "trial") else self.kind]
@@ -341,14 +339,14 @@ class TradeForm(ModalScreen[None]):
         self._title()
         t = self.trade
         if self.kind in ("trade", "trial"):
-            books = self.trades.books
+            books = self.sheet.books
             self.query_one("#form-book", Input).value = printable(books[0]) if books else "main"
             self.query_one("#form-book", Input).placeholder = printable(", ".join(books))
-            self.query_one("#form-symbol", Input).placeholder = " ".join(self.trades.symbols)
+            self.query_one("#form-symbol", Input).placeholder = " ".join(self.sheet.symbols)
             self.query_one("#form-expiry", Input).placeholder = "2027-03-19 (blank: the underlying)"
             self.query_one("#form-cp", Input).placeholder = "C or P"
             self.query_one("#form-symbol", Input).focus()
-        elif self.kind == "amend":
+        elif self.kind == "amend" and t is not None:
             self.query_one("#form-qty", Input).value = str(t.quantity)
             self.query_one("#form-price", Input).value = f"{t.price:g}"
             self.query_one("#form-qty", Input).focus()
@@ -376,14 +374,14 @@ class TradeForm(ModalScreen[None]):
 
     def action_toggle_kind(self) -> None:
         if self.kind in ("trade", "trial"):
-            if self.kind == "trial" and getattr(self.app, "read_only", False):
+            if self.kind == "trial" and self.host.read_only:
                 self.say(READ_ONLY_WORDS)
                 return
             self.kind = "trial" if self.kind == "trade" else "trade"
             self._title()
 
     def action_back(self) -> None:
-        self.dismiss()
+        self.dismiss(None)
 
     def action_next_field(self) -> None:
         self.focus_next()
@@ -401,62 +399,39 @@ class TradeForm(ModalScreen[None]):
             self.focus_next()
 
     def action_submit(self) -> None:
-        """Check the fields here, then book it through the store in a worker (or add the trial)."""
-        app: Any = self.app
-        if app.read_only and self.kind != "trial":
+        """Check the fields here, then write it in a worker (or return the trial)."""
+        if self.host.read_only and self.kind != "trial":
             self.say(READ_ONLY_WORDS)
             return
+        fields = {key: self.value(key) for key, _ in self._fields()}
         try:
-            if self.kind == "cancel":
-                reason = self.value("reason").strip()
-                if not reason:
-                    raise ValueError("reason: a cancel needs a reason")
-                self.trades.write("cancel", self.trade, reason=reason)
+            if self.kind == "cancel" and self.trade is not None:
+                reason = entry.parse_reason(fields["reason"], "a cancel")
+                self.write(entry.Cancel(self.trade.trade_id, reason))
                 return
-            qty_text = self.value("qty").replace(",", "").strip()
-            try:
-                qty = int(qty_text)
-            except ValueError:
-                raise ValueError(f"quantity: {qty_text!r} is not a whole number") from None
-            if qty == 0:
-                raise ValueError("quantity: must not be zero (+ buys, - sells)")
-            limits.QUANTITY.check(qty)
-            price_text = self.value("price").replace(",", "").strip()
-            try:
-                price = float(price_text)
-            except ValueError:
-                raise ValueError(f"price: {price_text!r} is not a number") from None
-            limits.PRICE.check(price)
-            if self.kind == "amend":
-                reason = self.value("reason").strip()
-                if not reason:
-                    raise ValueError("reason: an amend needs a reason")
-                self.trades.write("amend", self.trade, reason=reason, quantity=qty, price=price)
+            if self.kind == "amend" and self.trade is not None:
+                qty = entry.parse_quantity(fields["qty"])
+                price = entry.parse_price(fields["price"])
+                reason = entry.parse_reason(fields["reason"], "an amend")
+                self.write(entry.Amend(self.trade.trade_id, qty, price, reason))
                 return
-            terms = data.parse_terms(
-                self.value("symbol"), self.value("expiry"), self.value("strike"), self.value("cp")
-            )
-            if self.trades.symbols and terms.symbol not in self.trades.symbols:
-                raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
-            book = self.value("book").strip() or "main"
+            ticket = entry.parse_new_trade(fields, self.sheet.symbols)
         except ValueError as exc:
             self.say(f"✗ {exc}")
             return
-        contract = data.find_contract(self.trades.contracts, terms)
+        terms = ticket.terms
+        contract = entry.find_contract(self.sheet.contracts, terms)
         if self.kind == "trial":
             new = contract is None
-            if new:
+            if contract is None:
                 try:
-                    contract = data.trial_contract(self.trades.underlyings, terms, app.trials)
+                    contract = trials.trial_contract(
+                        self.sheet.underlyings, terms, self.host.trials
+                    )
                 except (ValueError, KeyError) as exc:
                     self.say(f"✗ {exc}")
                     return
-            assert contract is not None  # found, or built just above
-            app.add_trial(contract, qty, price, book)
-            where = "a new contract, not in the store" if new else "not in the store"
-            self.trades.say(f"trial {contract.label} ×{qty:+d} added ({where})")
-            self.trades.show()
-            self.dismiss()
+            self.dismiss(NewTrial(contract, ticket.quantity, ticket.price, ticket.book, new))
             return
         if contract is None and self.confirm_new != terms:
             self.confirm_new = terms
@@ -464,6 +439,23 @@ class TradeForm(ModalScreen[None]):
                 f"New contract {terms.label()} will be created: F5 (or Enter) again to confirm"
             )
             return
-        self.trades.write(
-            "add", terms, book=book, quantity=qty, price=price, note=self.value("note")
-        )
+        self.write(ticket)
+
+    @work(thread=True, exclusive=True, group="form-write", exit_on_error=False)
+    def write(self, ticket: entry.Ticket) -> None:
+        """Write ``ticket`` through the store (``desk.entry.write_ticket``; each a new row)."""
+        from blotter import store
+
+        try:
+            with self.host.open_store() as st:
+                words = entry.write_ticket(st, ticket)
+        except (store.StoreError, ValueError, KeyError) as exc:
+            self.post_message(ScreenFailed(f"✗ not written: {exc}"))
+            return
+        self.post_message(TradeWritten(f"✓ {words}"))
+
+    def on_trade_written(self, message: TradeWritten) -> None:
+        self.dismiss(Booked(message.words))
+
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words)

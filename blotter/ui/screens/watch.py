@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from typing import Any, ClassVar
+from datetime import datetime
+from typing import ClassVar
 
 from rich.text import Text
 from textual import work
@@ -12,9 +13,11 @@ from textual.containers import VerticalScroll
 from textual.widgets import Footer, Static
 from textual.worker import get_current_worker
 
-from blotter.ui import data, fmt
+from blotter.desk import limits, session
+from blotter.ui import fmt
+from blotter.ui.data import BookState
 from blotter.ui.keys import app_bindings
-from blotter.ui.messages import Done
+from blotter.ui.messages import ScreenFailed, WeekReady
 from blotter.ui.screens.base import DeskScreen
 
 
@@ -33,53 +36,49 @@ class WatchScreen(DeskScreen):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
-        state = self.blotter.state
+        state = self.host.state
         if state is not None:
-            days = data.days_to_week_end(self.blotter.clock(), self.blotter.tz)
-            self.compute(state, days)
+            self.compute(state, self.host.clock())
 
     def store_changed(self) -> None:
         self.on_mount()
 
     @work(thread=True, exclusive=True, group="watch-list", exit_on_error=False)
-    def compute(self, state: Any, days: float) -> None:
-        """Roll the book to the end of Sunday (``scenario.apply_move``); list what expires."""
-        from blotter import scenario
-
+    def compute(self, state: BookState, now: datetime) -> None:
+        """What expires by the end of Sunday (``desk.limits.week_expiries``)."""
         worker = get_current_worker()
         try:
-            move = scenario.Move(text=f"days {days:.2f}", days=days)
-            result = scenario.apply_move(state.valuation, move)
+            week = limits.week_expiries(state.valuation, now, self.host.tz)
         except Exception as exc:  # noqa: BLE001 - shown to the user
-            self.post_message(Done("watch", False, f"✗ {exc}"))
+            self.post_message(ScreenFailed(f"✗ {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(Done("watch", True, "", (days, list(result.expiring or []))))
+            self.post_message(WeekReady(week))
 
-    def on_done(self, message: Done) -> None:
+    def on_screen_failed(self, message: ScreenFailed) -> None:
+        self.say(message.words, bad=True)
+
+    def on_week_ready(self, message: WeekReady) -> None:
         from blotter import scenario
 
-        message.stop()
-        if not message.ok:
-            self.say(message.words, bad=True)
-            return
-        days, expiring = message.payload
+        week = message.week
+        days, expiring, pins = week.days, week.expiring, week.pin_risk
         text = Text()
-        state = self.blotter.state
+        state = self.host.state
         unvalued = state.valuation.unvalued if state is not None else ()
         if unvalued:
-            text.append(f"{data.unvalued_words(unvalued)}: left out of every total\n", style="bold")
+            left_out = session.unvalued_words(unvalued)
+            text.append(f"{left_out}: left out of every total\n", style="bold")
             for u in unvalued:
                 for m in u.missing:
                     text.append(f"  {u.label}: {m.words()}\n    log it with: {m.command}\n")
             text.append("\n")
-        breaches = self.blotter.breaches()
+        breaches = self.host.breaches()
         text.append(f"Limit breaches ({len(breaches)})\n", style="bold")
         for b in breaches:
             text.append(f"  ! {b}\n")
         if not breaches:
             text.append("  none (limits: [alerts] in the config file)\n")
-        pins = [e for e in expiring if e.pin_risk]
         text.append(
             f"\nOptions expiring by the end of Sunday (in {days:.1f} days): {len(expiring)}; "
             f"pin risk, within {scenario.PIN_BAND_PCT:g}% of the strike: {len(pins)}\n",

@@ -10,8 +10,9 @@ from typing import Any
 from rich.text import Text
 from textual.widgets import Static
 
+from blotter.desk.session import marks_age
 from blotter.printable import printable
-from blotter.ui.data import BookState, marks_age
+from blotter.ui.data import BookState
 
 
 class HeaderLine(Static):
@@ -22,22 +23,23 @@ class HeaderLine(Static):
 
     def show(self, state: BookState, now: datetime, tz: Any, alerts: list[str]) -> None:
         """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words."""
-        age = marks_age(state.marks_as_of, now, tz)
+        desk = state.session
+        age = marks_age(desk.marks_as_of, now, tz)
         text = Text()
-        text.append(f"Book: {printable(state.book_name)}", style="bold")
+        text.append(f"Book: {printable(desk.book_name)}", style="bold")
         if state.read_only:  # first, so a narrow terminal never cuts it off
             text.append(" │ ")
             text.append("READ-ONLY", style="bold reverse")
-        text.append(f" │ valued {state.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
-        when = f"{state.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
+        text.append(f" │ valued {desk.valuation_time.astimezone(tz):%Y-%m-%d %H:%M %Z}")
+        when = f"{desk.marks_as_of.astimezone(tz):%Y-%m-%d %H:%M}"
         marked = state.valuation.market.has_marks
         if not marked:
             text.append(" │ no marks yet: m opens Marks")
         elif age.words.startswith("dated after"):
-            text.append(f" │ {state.mark_kind} marks {when}, ")
+            text.append(f" │ {desk.mark_kind} marks {when}, ")
             text.append("AFTER the valuation time", style="bold")
         else:
-            text.append(f" │ {state.mark_kind} marks {when} ({age.words} old)")
+            text.append(f" │ {desk.mark_kind} marks {when} ({age.words} old)")
         if age.stale and marked:
             closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
             text.append(f" STALE: older than the {closed} close", style="bold reverse")

@@ -94,9 +94,13 @@ def test_environment_errors_name_the_variable() -> None:
         load_settings(env={"BLOTTER_ESTIMATE_ORDER": "two"})
 
 
-def test_config_does_not_load_textual() -> None:
+def test_config_does_not_load_textual_or_the_ui() -> None:
+    """Settings sit below the UI: checking a keymap loads neither Textual nor ``blotter.ui``."""
     code = (
-        "import sys, blotter.config as c; c.load_settings(env={}); print('textual' in sys.modules)"
+        "import sys, blotter.config as c\n"
+        "c.load_settings(env={'BLOTTER_KEYS': 'quit=x,f10'})\n"
+        "print(sorted(m for m in sys.modules if m.split('.')[0] == 'textual'"
+        " or m.startswith('blotter.ui')))"
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "False"
+    assert out.stdout.strip() == "[]"

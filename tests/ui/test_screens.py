@@ -17,12 +17,13 @@ from typing import Any
 
 import numpy as np
 import pytest
-from textual.widgets import DataTable
+from textual.widgets import DataTable, Input
 
 from blotter import engine, scenario, store
 from blotter.config import Alerts
+from blotter.desk import entry, limits
+from blotter.desk.close_review import close_review
 from blotter.ui.app import BlotterApp, make_app
-from blotter.ui.data import close_review
 from blotter.ui.screens.base import READ_ONLY_WORDS
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.marks import CloseReviewScreen, MarksScreen
@@ -107,6 +108,35 @@ async def test_a_refused_value_keeps_what_was_typed(demo_db: Path) -> None:
     assert counts(demo_db) == before
 
 
+async def test_a_vol_is_typed_as_on_the_command_line(demo_db: Path) -> None:
+    """A vol cell reads ``0.245`` or ``24.5%`` (``desk.entry.parse_vol``); a bare 24.5 is refused
+    in the same words as ``blotter mark vol``, with nothing written and the text kept."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        assert screen.view is not None
+        row = next(i for i, p in enumerate(screen.view.points) if p.kind == "vol")
+        point = screen.view.points[row]
+        screen.query_one("#marks-table", DataTable).move_cursor(row=row)
+        before = counts(demo_db)
+        await pilot.press(*"24.5", "enter")
+        await settle(app, pilot)
+        assert "'24.5' looks like a percentage: write 24.5% or 0.245" in message(app)
+        assert counts(demo_db) == before
+        assert screen.query_one("#marks-edit", Input).value == "24.5"
+        await pilot.press("%", "enter")
+        await settle(app, pilot)
+        assert f"✓ {point.label} marked 24.50%" in message(app)
+    with store.open_store(demo_db, read_only=True) as st:
+        marked = [
+            m.value
+            for m in st.marks()
+            if (m.kind, m.symbol, m.expiry, m.strike)
+            == ("vol", point.symbol, point.expiry, point.strike)
+        ]
+    assert marked == [pytest.approx(0.245)]
+
+
 async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
@@ -118,9 +148,7 @@ async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo
         point = screen.view.points[row]
         screen.query_one("#marks-table").move_cursor(row=row)  # type: ignore[attr-defined]
         v = app.state.valuation
-        vol, words, is_call = __import__("blotter.ui.data", fromlist=["x"]).solve_vol(
-            v, point, 1.0
-        )
+        vol, words, is_call = entry.solve_vol(v, point.symbol, point.expiry, point.strike, 1.0)
         # A price from the engine at 30% vol solves back to 30% and is written as the mark.
         book = v.book
         i = next(
@@ -597,9 +625,7 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
         assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
-        from blotter.ui.data import days_to_week_end
-
-        days = days_to_week_end(frozen_clock(), app.tz)
+        days = limits.days_to_week_end(frozen_clock(), app.tz)
         assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
         state = app.state
         assert state is not None
@@ -786,7 +812,7 @@ async def test_a_currency_without_a_rate_curve_is_listed_and_can_be_typed(demo_d
         assert review.missing == ("GBP rate 365d",)
         keys = [p.key for p in screen.view.points]
         screen.query_one(DataTable).move_cursor(row=keys.index(missing[0].key))
-        await pilot.press(*"4.5", "enter")
+        await pilot.press(*"4.5%", "enter")  # a rate is 0.045 or 4.5%, as on the command line
         await settle(app, pilot)
     st = open_ro(demo_db)
     try:

@@ -1,0 +1,146 @@
+"""Typed entry: one rule for a typed vol, rate and yield (the command line's, in its help), the
+Marks screen's cells read by it, trade tickets checked field by field, and a typed option price
+solved back to the vol QuantLib priced it at."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from blotter import risk, store
+from blotter.calendar import desk_tz
+from blotter.cli import main
+from blotter.desk import entry
+
+from .conftest import EXPIRY, SPOT, T0, quantlib_european
+
+
+@pytest.mark.parametrize(
+    "text,vol",
+    [("0.25", 0.25), ("25%", 0.25), (" 24.5% ", 0.245), ("3", 3.0), ("300%", 3.0), ("0", 0.0)],
+)
+def test_a_vol_is_a_decimal_or_a_percentage(text: str, vol: float) -> None:
+    assert entry.parse_vol(text) == pytest.approx(vol)
+
+
+@pytest.mark.parametrize(
+    "text,words",
+    [
+        ("24.5", "'24.5' looks like a percentage: write 24.5% or 0.245"),
+        ("abc", "'abc' is not a vol: write 0.25 or 25%"),
+        ("", "'' is not a vol"),
+        ("25 %%", "is not a vol"),
+    ],
+)
+def test_an_ambiguous_or_bad_vol_is_refused_in_words(text: str, words: str) -> None:
+    with pytest.raises(ValueError, match=words):
+        entry.parse_vol(text)
+
+
+def test_a_rate_or_yield_is_a_decimal_or_a_percentage() -> None:
+    assert entry.parse_decimal_or_percent("0.04", "rate") == pytest.approx(0.04)
+    assert entry.parse_decimal_or_percent("4%", "rate") == pytest.approx(0.04)
+    assert entry.parse_decimal_or_percent("-0.5%", "rate") == pytest.approx(-0.005)
+    with pytest.raises(ValueError, match="'4,1' is not a dividend yield: write 0.04 or 4%"):
+        entry.parse_decimal_or_percent("4,1", "dividend yield")
+
+
+def test_the_command_line_reads_a_vol_by_the_same_rule(xyz_db: Path) -> None:
+    """``mark vol`` refuses what ``parse_vol`` refuses, in its words, and writes nothing."""
+    with pytest.raises(ValueError) as refused:
+        entry.parse_vol("24.5")
+    mark_vol = ["mark", "vol", "XYZ", str(EXPIRY), "--db", str(xyz_db)]
+    run = CliRunner().invoke(main, [*mark_vol, "24.5"])
+    assert run.exit_code == 2 and str(refused.value) in run.output
+    run = CliRunner().invoke(main, [*mark_vol, "24.5%"])
+    assert run.exit_code == 0, run.output
+    with store.open_store(xyz_db, read_only=True) as st:
+        assert [m.value for m in st.marks() if m.kind == "vol"] == [pytest.approx(0.245)]
+
+
+def test_a_mark_cell_is_read_by_its_kind() -> None:
+    assert entry.parse_mark("spot", " 1,234.5 ") == ("value", 1234.5)
+    assert entry.parse_mark("vol", "24.5%") == ("value", pytest.approx(0.245))
+    assert entry.parse_mark("vol", "$12.35") == ("price", 12.35)
+    assert entry.parse_mark("rate", "4.5%") == ("value", pytest.approx(0.045))
+    assert entry.parse_mark("div_yield", "0.012") == ("value", pytest.approx(0.012))
+    for kind, text, words in (
+        ("spot", "", "type a number"),
+        ("spot", "abc", "'abc' is not a number (price in the underlying's currency)"),
+        ("vol", "24.5", "looks like a percentage"),
+        ("vol", "$x", "'x' is not a price"),
+        ("vol", "$-1", "price must be from 0"),
+        ("rate", "4.5x", "is not a rate"),
+    ):
+        with pytest.raises(ValueError, match=re.escape(words)):
+            entry.parse_mark(kind, text)
+
+
+@pytest.mark.parametrize(
+    "fields,words",
+    [
+        ({"qty": "0"}, "quantity: must not be zero"),
+        ({"qty": "1.5"}, "quantity: '1.5' is not a whole number"),
+        ({"price": "x"}, "price: 'x' is not a number"),
+        ({"expiry": "2027-13-40"}, "expiry: '2027-13-40' is not an ISO date"),
+        ({"strike": "4e-9"}, "strike must be from 1e-06"),
+        ({"cp": "x"}, "call/put: type C or P"),
+        ({"symbol": "NOPE"}, "symbol: NOPE is not an underlying of this file"),
+    ],
+)
+def test_a_trade_ticket_names_its_first_wrong_field(fields: dict[str, str], words: str) -> None:
+    good = {"book": "desk", "symbol": "xyz", "expiry": "2027-01-15", "strike": "1,105",
+            "cp": "c", "qty": "-1,000", "price": "3.25", "note": "n"}
+    ticket = entry.parse_new_trade(good, ["XYZ"])
+    assert ticket == entry.NewTrade(
+        entry.ContractTerms("XYZ", EXPIRY, 1105.0, True), "desk", -1000, 3.25, "n"
+    )
+    with pytest.raises(ValueError, match=words):
+        entry.parse_new_trade(good | fields, ["XYZ"])
+    with pytest.raises(ValueError, match="reason: an amend needs a reason"):
+        entry.parse_reason("  ", "an amend")
+
+
+def test_tickets_write_through_the_store(xyz_db: Path) -> None:
+    with store.open_store(xyz_db) as st:
+        terms = entry.ContractTerms("XYZ", None, None, None)
+        said = entry.write_ticket(st, entry.NewTrade(terms, "desk", 200, 99.5))
+        new_id = st.trades()[-1].trade_id
+        assert said == f"trade {new_id} booked: XYZ (the underlying) ×+200 at 99.5"
+        said = entry.write_ticket(st, entry.Amend(new_id, 300, 99.5, "wrong size"))
+        amended = st.trades()[-1]
+        assert said == f"trade {new_id} amended: now trade {amended.trade_id}"
+        assert (amended.quantity, amended.price) == (300, 99.5)
+        said = entry.write_ticket(st, entry.Cancel(amended.trade_id, "test"))
+        assert said == f"trade {amended.trade_id} cancelled: test"
+        assert st.trades()[-1].state == "cancelled"
+        assert entry.find_contract(st.contracts(), terms) is not None
+        unknown = entry.ContractTerms("XYZ", EXPIRY, 96.0, False)
+        assert entry.find_contract(st.contracts(), unknown) is None
+
+
+@pytest.mark.parametrize("strike,call", [(105.0, True), (95.0, False), (None, True)])
+def test_a_typed_price_solves_to_the_vol_quantlib_priced_it_at(
+    xyz_db: Path, strike: float | None, call: bool
+) -> None:
+    """QuantLib values the out-of-the-money option at 27.5% vol; that price typed in the vol cell
+    solves back to 27.5% (ATM, no strike: the option struck at the spot, a call)."""
+    with store.open_store(xyz_db, read_only=True) as st:
+        valuation = risk.value_book(st.load_book(), st.load_market(), T0, tz=desk_tz())
+    price = quantlib_european(call, SPOT if strike is None else strike, vol=0.275)
+    solved = entry.solve_vol(valuation, "XYZ", EXPIRY, strike, price)
+    assert solved.is_call is call and solved.vol == pytest.approx(0.275, abs=1e-7)
+    assert solved.words.endswith("→ implied vol 27.50%")
+
+
+def test_a_price_with_no_vol_is_refused_in_words(xyz_db: Path) -> None:
+    with store.open_store(xyz_db, read_only=True) as st:
+        valuation = risk.value_book(st.load_book(), st.load_market(), T0, tz=desk_tz())
+    below = entry.solve_vol(valuation, "XYZ", EXPIRY, 95.0, 0.0)
+    assert below.vol is None and below.words.startswith("put price 0 refused: ")
+    assert entry.solve_vol(valuation, "ABC", EXPIRY, 95.0, 1.0).words == "ABC is not in the book"
+    other_day = entry.solve_vol(valuation, "XYZ", EXPIRY.replace(day=16), 95.0, 1.0)
+    assert other_day.vol is None and "no live position at this expiry" in other_day.words

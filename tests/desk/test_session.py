@@ -1,0 +1,125 @@
+"""A desk session: the book read once and valued at one instant, trial trades layered on; the
+values are QuantLib's for the same options, and the calendar arithmetic is the calendar's."""
+
+from __future__ import annotations
+
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+import pytest
+
+from blotter import risk, scenario, store
+from blotter.desk import session
+from blotter.desk.entry import ContractTerms
+from blotter.desk.trials import Trials, promote, trial_contract
+
+from .conftest import EXPIRY, NOW, T0, quantlib_european
+
+NEW_YORK = ZoneInfo("America/New_York")
+
+
+def test_a_session_values_the_book_as_quantlib_prices_it(xyz_db: Path) -> None:
+    """+10 calls at 105 and -5 puts at 95, 100 per contract: QuantLib's values times those."""
+    with store.open_store(xyz_db, read_only=True) as st:
+        loaded = session.read(st)
+        version = st.data_version()
+    desk = session.value(loaded, NOW, NEW_YORK)
+    expected = 100 * (10 * quantlib_european(True, 105.0) - 5 * quantlib_european(False, 95.0))
+    assert risk.total(desk.valuation).value == pytest.approx(expected, rel=1e-9)
+    assert desk.data_version == version and desk.book_name == loaded.book.name
+    assert desk.valuation_time == NOW and desk.valuation.valuation_time == T0
+    assert desk.marks_as_of.tzinfo is not None and desk.mark_kind == "intraday"
+
+
+def test_an_instant_and_an_aware_time_value_alike(xyz_db: Path) -> None:
+    """The command line passes a UTC ``datetime64``, the app an aware clock time."""
+    with store.open_store(xyz_db, read_only=True) as st:
+        loaded = session.read(st)
+    by_clock = session.value(loaded, NOW.astimezone(NEW_YORK), NEW_YORK)
+    by_instant = session.value(loaded, T0, NEW_YORK, vega_unit="vol")
+    assert by_instant.valuation_time == NOW == by_clock.valuation_time
+    np.testing.assert_array_equal(by_clock.valuation.value, by_instant.valuation.value)
+    assert (by_instant.valuation.vega_unit, by_instant.valuation.vega_scale) == ("vol", 100.0)
+
+
+def test_a_trial_on_a_new_contract_adds_its_quantlib_value_and_writes_nothing(
+    xyz_db: Path,
+) -> None:
+    with store.open_store(xyz_db, read_only=True) as st:
+        loaded = session.read(st)
+        unders = {r["symbol"]: r for r in st.underlying_records()}
+        n_trades = len(st.trades())
+    trials = Trials()
+    terms = ContractTerms("XYZ", EXPIRY, 100.0, True)
+    contract = trial_contract(unders, terms, trials.all())
+    assert contract.contract_id < 0 and (contract.american, contract.multiplier) == (False, 100.0)
+    first = trials.add(contract, 7, 4.0, "desk")
+    again = trial_contract(unders, terms, trials.all())
+    assert again.contract_id == contract.contract_id  # one new contract, one id
+    live = session.value(loaded, NOW, NEW_YORK)
+    with_trial = session.value(loaded, NOW, NEW_YORK, trials=trials.all())
+    added = risk.total(with_trial.valuation).value - risk.total(live.valuation).value
+    assert added == pytest.approx(7 * 100 * quantlib_european(True, 100.0), rel=1e-9)
+    assert int(with_trial.valuation.book.is_trial.sum()) == 1
+    assert (first.trial_id, trials.add(contract, -2, 4.1, "desk").trial_id) == (1, 2)
+    assert trials.remove(1) and not trials.remove(1)
+    assert [t.trial_id for t in trials] == [2] and trials.clear() == 1 and len(trials) == 0
+    with store.open_store(xyz_db, read_only=True) as st:
+        assert len(st.trades()) == n_trades
+
+
+def test_promoting_trials_books_them(xyz_db: Path) -> None:
+    with store.open_store(xyz_db) as st:
+        unders = {r["symbol"]: r for r in st.underlying_records()}
+        trials = Trials()
+        trials.add(trial_contract(unders, ContractTerms("XYZ", EXPIRY, 100.0, False), []), 3,
+                   2.5, "desk")
+        ids = promote(st, trials.all())
+        last = st.trades()[-1]
+    assert ids == [last.trade_id]
+    assert (last.contract, last.quantity, last.price) == ("XYZ 2027-01-15 100 P", 3, 2.5)
+
+
+@pytest.mark.parametrize(
+    "move,days",
+    [
+        ("bdays 3", 3.0),  # Tuesday 2026-12-01 16:00 New York to Friday 12-04 16:00
+        ("bdays 4", 6.0),  # ... to Monday 12-07 over the weekend
+        ("days 2.5", 2.5),
+        ("spot -3%", 0.0),
+    ],
+)
+def test_roll_days_are_calendar_days_of_the_roll(xyz_db: Path, move: str, days: float) -> None:
+    with store.open_store(xyz_db, read_only=True) as st:
+        valuation = session.value(session.read(st), NOW, NEW_YORK).valuation
+    assert session.roll_days(valuation, scenario.parse_move(move)) == pytest.approx(days)
+    assert session.roll_days(valuation, None) == 0.0
+
+
+def test_marks_age_is_stale_once_a_business_day_close_has_passed() -> None:
+    marked = datetime(2026, 11, 30, 21, 0, tzinfo=UTC)  # Monday 16:00 New York
+    morning = session.marks_age(marked, datetime(2026, 12, 1, 15, 0, tzinfo=UTC), NEW_YORK)
+    assert (morning.words, morning.stale) == ("18 h 0 min", False)
+    evening = session.marks_age(marked, datetime(2026, 12, 1, 21, 30, tzinfo=UTC), NEW_YORK)
+    assert evening.stale and evening.last_close == datetime(2026, 12, 1, 16, 0, tzinfo=NEW_YORK)
+    friday = datetime(2026, 12, 4, 21, 0, tzinfo=UTC)  # Friday's close, seen on Sunday
+    sunday = session.marks_age(friday, friday + timedelta(days=2), NEW_YORK)
+    assert (sunday.words, sunday.stale) == ("2 days 0 h", False)
+    assert session.age_words(timedelta(minutes=-1)) == "dated after the valuation time:"
+
+
+def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
+    with store.open_store(xyz_db) as st:
+        st.add_underlying("ABC", "stock", "EUR", 100.0, description="invented, never marked")
+        st.add_trade("desk", "ABC", 1, 1.0, EXPIRY, 50.0, True)
+        st.add_trade("desk", "ABC", 2, 1.0, EXPIRY, 55.0, True)
+        loaded = session.read(st)
+    unvalued = session.value(loaded, NOW, NEW_YORK).valuation.unvalued
+    assert session.unvalued_count(unvalued) == 2
+    assert session.unvalued_words(unvalued) == (
+        "2 positions not valued (ABC: spot, vol; EUR: rate)"
+    )
+    assert session.missing_by_name(unvalued, most=1) == "ABC: spot, vol; 1 more"
+    assert session.unvalued_words(()) == ""
