@@ -96,7 +96,15 @@ def as_other_user(shared_dir: Path) -> RunAs:
         if setpriv is None:
             pytest.skip("running as root and setpriv is not installed")
         prefix = [setpriv, f"--reuid={OTHER_UID}", f"--regid={OTHER_UID}", "--clear-groups"]
-        probe = subprocess.run([*prefix, sys.executable, "-c", "import blotter"], check=False)
+        # The probe runs where the command will run (not in the checkout, whose ``blotter/``
+        # folder the current directory would put on the path): the other user must reach the
+        # installed package itself, e.g. a virtual environment inside a private folder it cannot.
+        probe = subprocess.run(
+            [*prefix, sys.executable, "-c", "import blotter"],
+            cwd=shared_dir,
+            capture_output=True,
+            check=False,
+        )
         if probe.returncode != 0:
             pytest.skip(f"uid {OTHER_UID} cannot import blotter from {sys.executable}")
     home = shared_dir / "home"
