@@ -180,7 +180,7 @@ def instrument(record: Mapping[str, Any], lot_units: float | None = None) -> Ins
                 f"({per_contract:,g} units each)"
             )
         lot = float(lot_units)
-        words = f"{lot_units:,g} units (given)"
+        words = f"{lot_units:,g} unit{'' if lot_units == 1 else 's'} (given)"
     return Instrument(symbol, kind, str(record["currency"]), per_contract, lot, words)
 
 
