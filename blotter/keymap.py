@@ -15,6 +15,7 @@ BINDING_IDS: tuple[str, ...] = (
     "book",
     "pane",
     "expand",
+    "hedge",
     "group",
     "sort",
     "order",

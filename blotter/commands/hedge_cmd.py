@@ -45,15 +45,8 @@ class _OneBook:
         return int(self.st.data_version())
 
 
-def _signed(x: float, places: int = 1) -> str:
-    """``x`` with its sign, ``+0.0`` for what rounds to zero (never ``-0.0``)."""
-    if abs(x) < 0.5 * 10**-places:
-        x = 0.0
-    return f"{x:+,.{places}f}"
-
-
 def _table_row(h: Hedge | Refusal) -> list[str]:
-    from blotter.desk.hedge import TRADE_UNITS, Refusal
+    from blotter.desk.hedge import TRADE_UNITS, Refusal, signed
 
     if isinstance(h, Refusal):
         return [h.target, "", "", "", "not hedged: see below", "", "", "", ""]
@@ -63,12 +56,12 @@ def _table_row(h: Hedge | Refusal) -> list[str]:
     return [
         "book (β)" if h.beta_weighted else h.target,
         ins.symbol,
-        _signed(h.delta_units),
+        signed(h.delta_units),
         f"{ins.lot_units:,g}",
         lots,
         f"{h.quantity:+,d} {counts}",
-        _signed(h.residual_units),
-        _signed(h.residual_cash, 0),
+        signed(h.residual_units),
+        signed(h.residual_cash, 0),
         h.currency,
     ]
 

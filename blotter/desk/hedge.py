@@ -39,6 +39,13 @@ ROUNDING = "to the nearest whole lot (half a lot away from zero)"
 """How a hedge quantity is rounded, in words."""
 
 
+def signed(x: float, places: int = 1) -> str:
+    """``x`` with its sign and thousands commas, ``+0.0`` for what rounds to zero."""
+    if abs(x) < 0.5 * 10**-places:
+        x = 0.0
+    return f"{x:+,.{places}f}"
+
+
 class HedgeRefused(ValueError):
     """A hedge that cannot be worked out, with the reason in words."""
 
@@ -102,15 +109,32 @@ class Hedge:
         lot = "lot" if abs(self.lots) == 1 else "lots"
         beta = " β-weighted" if self.beta_weighted else ""
         if self.quantity == 0:
-            head = f"no trade: Δ{beta} {self.delta_units:+,.1f} units is within half a lot"
+            head = f"no trade: Δ{beta} {signed(self.delta_units)} units is within half a lot"
         else:
             head = (
                 f"{self.side} {abs(self.lots):,} {lot} {ins.symbol} "
                 f"({abs(self.quantity):,} {what})"
             )
         return (
-            f"{head}; after: Δ{beta} {self.residual_units:+,.1f} units, "
-            f"{self.residual_cash:+,.0f} {self.currency}"
+            f"{head}; after: Δ{beta} {signed(self.residual_units)} units, "
+            f"{signed(self.residual_cash, 0)} {self.currency}"
+        )
+
+    def short_words(self) -> str:
+        """The hedge in a short line: ``sell 800 DEMOA shares (8 lots) → Δ +45.8, +8,280 USD``."""
+        ins = self.instrument
+        lots = f" ({abs(self.lots):,} lot{'' if abs(self.lots) == 1 else 's'})"
+        if ins.lot_units == ins.units_per_contract:  # a lot is one: the count says it
+            lots = ""
+        what = TRADE_UNITS.get(ins.kind, "units")
+        trade = (
+            "none, within half a lot"
+            if self.quantity == 0
+            else f"{self.side} {abs(self.quantity):,} {ins.symbol} {what}{lots}"
+        )
+        return (
+            f"{trade} → Δ {signed(self.residual_units)}, {signed(self.residual_cash, 0)} "
+            f"{self.currency}"
         )
 
     def as_dict(self) -> dict[str, Any]:
@@ -264,6 +288,26 @@ def underlying_hedge(
         raise HedgeRefused(_no_spot(symbol))
     delta = float(np.sum(valuation.delta_shares[of]))
     return _hedge(symbol, instrument(records[symbol], lot_units), float(spot), delta)
+
+
+def rows_hedge(
+    valuation: BookValuation,
+    rows: np.ndarray,
+    records: Mapping[str, Mapping[str, Any]],
+    lot_units: float | None = None,
+) -> Hedge:
+    """The hedge of the positions ``rows`` (a group of the app's Book pane) when they are all of
+    one underlying; HedgeRefused in words when they span several or are none."""
+    idx = np.unique(valuation.book.underlying_idx[np.asarray(rows, dtype=np.int64)])
+    if len(idx) != 1:
+        raise HedgeRefused(
+            "no single hedge: this row holds no positions"
+            if not len(idx)
+            else "no single hedge: this row spans several underlyings (the book's total row "
+            "hedges the book, an underlying's row that underlying)"
+        )
+    symbol = valuation.book.underlyings.symbols[int(idx[0])]
+    return underlying_hedge(valuation, symbol, records, lot_units, rows)
 
 
 def book_hedge(

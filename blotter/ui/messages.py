@@ -18,9 +18,10 @@ from blotter.desk.limits import LadderBreaches
 if TYPE_CHECKING:
     from blotter.desk.close_review import ClosedSet, MarksView
     from blotter.desk.entry import TradeSheet
+    from blotter.desk.hedge import Refs
     from blotter.desk.limits import WeekExpiries
     from blotter.scenario import Explain, Ladder, Move, MoveResult
-    from blotter.store import MarkSetInfo
+    from blotter.store import ContractRecord, MarkSetInfo
     from blotter.ui.data import BookState, ProfileData
 
 
@@ -108,6 +109,37 @@ class ProfileReady(WorkerResult):
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, ProfileReady)
+
+
+@dataclass(repr=False)
+class HedgeRefsRead(WorkerResult):
+    """The file's underlyings and books, for the Book pane's hedge (``desk.hedge.read_refs``);
+    ``refs`` None with ``reason`` when they could not be read."""
+
+    data_version: int | None
+    refs: Refs | None
+    reason: str = ""
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, HedgeRefsRead)
+
+    def __repr__(self) -> str:
+        return f"HedgeRefsRead(data_version={self.data_version}, reason={self.reason!r})"
+
+
+@dataclass(repr=False)
+class HedgeStaged(WorkerResult):
+    """A hedge made a trial (``desk.hedge.stage``) in ``book``, or ``reason`` why not."""
+
+    words: str
+    contract: ContractRecord | None = None
+    quantity: int = 0
+    price: float = 0.0
+    book: str = ""
+    reason: str = ""
+
+    def __repr__(self) -> str:
+        return f"HedgeStaged(words={self.words!r}, reason={self.reason!r})"
 
 
 @dataclass
