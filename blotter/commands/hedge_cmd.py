@@ -49,17 +49,16 @@ def _table_row(h: Hedge | Refusal) -> list[str]:
     from blotter.desk.hedge import TRADE_UNITS, Refusal, signed
 
     if isinstance(h, Refusal):
-        return [h.target, "", "", "", "not hedged: see below", "", "", "", ""]
+        return [h.target, "", "", "not hedged: see below", "", "", "", ""]
     ins = h.instrument
     counts = TRADE_UNITS.get(ins.kind, "units")
     lots = "none" if h.lots == 0 else f"{h.side} {abs(h.lots):,}"
     return [
         "book (β)" if h.beta_weighted else h.target,
-        ins.symbol,
         signed(h.delta_units),
         f"{ins.lot_units:,g}",
         lots,
-        f"{h.quantity:+,d} {counts}",
+        f"{h.quantity:+,d} {ins.symbol + ' ' if h.beta_weighted else ''}{counts}",
         signed(h.residual_units),
         signed(h.residual_cash, 0),
         h.currency,
@@ -130,10 +129,9 @@ def hedge(
     )
     click.echo("")
     print_table(
-        ["hedge of", "with", "Δ units", "lot units", "lots", "trade", "Δ after units",
-         "Δ after cash", "ccy"],
+        ["hedge of", "Δ units", "lot", "lots", "trade", "left units", "left cash", "ccy"],
         [_table_row(r) for r in rows],
-        right=[False, False, True, True, False, True, True, True, False],
+        right=[False, True, True, False, True, True, True, False],
     )
     click.echo("")
     lots = {
@@ -143,7 +141,10 @@ def hedge(
     }
     for symbol, words in lots.items():
         click.echo(f"lot of {symbol}: {words}")
-    click.echo(f"rounded {desk_hedge.ROUNDING}; Δ in units of the hedge instrument")
+    click.echo(
+        f"rounded {desk_hedge.ROUNDING}; Δ in units of the hedge instrument, left: the Δ the "
+        "trade leaves, in units and in currency"
+    )
     for h in rows:
         if isinstance(h, desk_hedge.Hedge) and h.beta_weighted:
             click.echo(

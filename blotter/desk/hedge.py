@@ -121,7 +121,8 @@ class Hedge:
         )
 
     def short_words(self) -> str:
-        """The hedge in a short line: ``sell 800 DEMOA shares (8 lots) → Δ +45.8, +8,280 USD``."""
+        """The hedge in a short line: ``sell 800 DEMOA shares (8 lots) → Δ +45.8 sh, +8,280 USD``
+        (Δ sh: units of the underlying, as the Book pane's column; the book's in index units)."""
         ins = self.instrument
         lots = f" ({abs(self.lots):,} lot{'' if abs(self.lots) == 1 else 's'})"
         if ins.lot_units == ins.units_per_contract:  # a lot is one: the count says it
@@ -132,10 +133,10 @@ class Hedge:
             if self.quantity == 0
             else f"{self.side} {abs(self.quantity):,} {ins.symbol} {what}{lots}"
         )
-        return (
-            f"{trade} → Δ {signed(self.residual_units)}, {signed(self.residual_cash, 0)} "
-            f"{self.currency}"
-        )
+        left = f"Δ {signed(self.residual_units)} sh"
+        if self.beta_weighted:
+            left = f"βΔ {signed(self.residual_units)} units"
+        return f"{trade} → {left}, {signed(self.residual_cash, 0)} {self.currency}"
 
     def as_dict(self) -> dict[str, Any]:
         """JSON form: every field by name, the lot in units and in contracts."""

@@ -683,6 +683,10 @@ class BlotterApp(App[None]):
         self._hedge_staging = False
         self.call_later(self._refresh_hedge)
 
+    @on(LoadFailed)
+    def _hedge_after_failed_load(self, message: LoadFailed) -> None:
+        self._hedge_staging = False
+
     @on(DataTable.CellHighlighted, "#book-table")
     def _hedge_follows_cursor(self, event: DataTable.CellHighlighted) -> None:
         self._show_hedge()
@@ -807,7 +811,7 @@ class BlotterApp(App[None]):
             return
         self.add_trial(message.contract, message.quantity, message.price, message.book)
         self.notify(
-            f"trial: {message.words} at {message.price:,.2f} in book {message.book} "
+            f"trial in book {message.book} at {message.price:,.2f} per unit: {message.words} "
             "(not in the store; c clears, Trades p books it)",
             title="Hedge staged",
             timeout=6,
