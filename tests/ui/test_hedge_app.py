@@ -81,3 +81,21 @@ async def test_a_row_with_no_single_hedge_says_why(demo_db: Path) -> None:
         await pilot.press("d")
         await settle(app, pilot)
         assert app.trials == []
+
+
+async def test_a_failed_load_does_not_leave_staging_blocked(demo_db: Path) -> None:
+    """A hedge is staged once per load; when the load after it fails, the next key stages."""
+    from blotter.ui.messages import LoadFailed
+
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        app._hedge_staging = True  # a staged hedge whose reload has not arrived
+        await pilot.press("d")
+        await settle(app, pilot)
+        assert app.trials == []  # refused while one is being staged
+        app.post_message(LoadFailed("the file went away"))
+        await settle(app, pilot)
+        await pilot.press("d")
+        await settle(app, pilot)
+        assert [t.contract.symbol for t in app.trials] == ["DEMOIX"]
