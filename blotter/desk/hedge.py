@@ -379,22 +379,22 @@ def every_hedge(
 @dataclass(frozen=True)
 class Refs:
     """What a hedge needs from the file besides the valuation: each underlying's record
-    (``store.underlying_records`` by symbol) and the names of the books."""
+    (``store.underlying_records`` by symbol), for its kind, currency and multiplier."""
 
     underlyings: Mapping[str, Mapping[str, Any]]
-    books: tuple[str, ...]
 
 
 def read_refs(st: Store) -> Refs:
-    """The underlyings' records and the book names of ``st``."""
-    return Refs({str(r["symbol"]): r for r in st.underlying_records()}, tuple(st.book_names()))
+    """The underlyings' records of ``st``."""
+    return Refs({str(r["symbol"]): r for r in st.underlying_records()})
 
 
-def stage_book(st: Store, refs: Refs, symbol: str) -> str:
+def stage_book(st: Store, symbol: str) -> str:
     """The book a staged hedge in ``symbol`` goes to: the file's only book, else the book of the
     newest live trade in ``symbol``, else of the newest live trade; HedgeRefused when none."""
-    if len(refs.books) == 1:
-        return refs.books[0]
+    books = st.book_names()
+    if len(books) == 1:
+        return books[0]
     live = st.trades(live_only=True)
     for t in reversed(live):
         if t.symbol == symbol:

@@ -679,7 +679,7 @@ class BlotterApp(App[None]):
     @on(BookLoaded)
     def _hedge_after_load(self, message: BookLoaded) -> None:
         """After ``on_book_loaded`` has laid the book out: the hedge of the cursor's row, with the
-        file's underlyings read again when the file changed."""
+        file's underlyings read again when the book has others (not on every commit)."""
         self._hedge_staging = False
         self.call_later(self._refresh_hedge)
 
@@ -695,8 +695,9 @@ class BlotterApp(App[None]):
         if self.state is None:
             return
         refs = self.hedge_refs
-        if refs is None or refs.data_version != self.state.data_version:
-            self._read_hedge_refs(self.state.data_version)
+        symbols = self.state.valuation.book.underlyings.symbols
+        if refs is None or refs.symbols != symbols:
+            self._read_hedge_refs(symbols)
         self._show_hedge()
 
     @work(
@@ -706,8 +707,8 @@ class BlotterApp(App[None]):
         exit_on_error=False,
         description="read the underlyings for the hedge",
     )
-    def _read_hedge_refs(self, data_version: int) -> None:
-        """The file's underlyings and books (``desk.hedge.read_refs``) in this thread's store."""
+    def _read_hedge_refs(self, symbols: tuple[str, ...]) -> None:
+        """The file's underlyings (``desk.hedge.read_refs``) in this thread's store."""
         worker = get_current_worker()
         try:
             if self.loader is not None:
@@ -716,10 +717,10 @@ class BlotterApp(App[None]):
                 refs = desk_hedge.read_refs(st)
         except Exception as exc:  # noqa: BLE001 - said beside the book, never raised
             if not worker.is_cancelled:
-                self.post_message(HedgeRefsRead(data_version, None, str(exc)))
+                self.post_message(HedgeRefsRead(symbols, None, str(exc)))
             return
         if not worker.is_cancelled:
-            self.post_message(HedgeRefsRead(data_version, refs))
+            self.post_message(HedgeRefsRead(symbols, refs))
 
     def on_hedge_refs_read(self, message: HedgeRefsRead) -> None:
         self.hedge_refs = message
@@ -795,7 +796,7 @@ class BlotterApp(App[None]):
 
         try:
             with self.open_store(read_only=True) as st:
-                book = desk_hedge.stage_book(st, refs, h.instrument.symbol)
+                book = desk_hedge.stage_book(st, h.instrument.symbol)
             contract, quantity, price = desk_hedge.stage(h, refs, trials)
         except (desk_hedge.HedgeRefused, store.StoreError, ValueError) as exc:
             self.post_message(HedgeStaged(h.words(), reason=str(exc)))

@@ -113,10 +113,11 @@ class ProfileReady(WorkerResult):
 
 @dataclass(repr=False)
 class HedgeRefsRead(WorkerResult):
-    """The file's underlyings and books, for the Book pane's hedge (``desk.hedge.read_refs``);
-    ``refs`` None with ``reason`` when they could not be read."""
+    """The file's underlyings, for the Book pane's hedge (``desk.hedge.read_refs``),
+    read for a book of the underlyings ``symbols``; ``refs`` None with ``reason`` when they could
+    not be read."""
 
-    data_version: int | None
+    symbols: tuple[str, ...]
     refs: Refs | None
     reason: str = ""
 
@@ -124,7 +125,7 @@ class HedgeRefsRead(WorkerResult):
         return isinstance(message, HedgeRefsRead)
 
     def __repr__(self) -> str:
-        return f"HedgeRefsRead(data_version={self.data_version}, reason={self.reason!r})"
+        return f"HedgeRefsRead(symbols={len(self.symbols)}, reason={self.reason!r})"
 
 
 @dataclass(repr=False)

@@ -64,7 +64,7 @@ def staged(loaded: session.Loaded, refs: hedge.Refs, h: hedge.Hedge, at: datetim
     """The valuation with ``h`` layered on as a trial."""
     trials = Trials()
     contract, qty, price = hedge.stage(h, refs, trials.all())
-    trials.add(contract, qty, price, refs.books[0])
+    trials.add(contract, qty, price, "desk")
     return session.value(loaded, at, NEW_YORK, trials=trials.all()).valuation
 
 
@@ -207,3 +207,15 @@ def test_unvalued_positions_are_refused_and_a_bad_lot_too(xyz_db: Path) -> None:
             hedge.underlying_hedge(v, "XYZ", refs.underlyings, lot_units=lot)
     with pytest.raises(hedge.HedgeRefused, match="ABC is not an underlying"):
         hedge.underlying_hedge(v, "ABC", refs.underlyings)
+
+
+def test_a_staged_hedge_goes_to_the_only_book_else_the_newest_trade_in_the_instrument(
+    xyz_db: Path, demo_db: Path
+) -> None:
+    with store.open_store(xyz_db) as st:
+        assert hedge.stage_book(st, "XYZ") == "desk"
+    with store.open_store(demo_db) as st:
+        assert hedge.stage_book(st, "DEMOA") == "equity-vol"
+        assert hedge.stage_book(st, "DEMOIX") == "index-vol"
+        st.add_trade("equity-vol", "DEMOIX", 1, 4700.0)
+        assert hedge.stage_book(st, "DEMOIX") == "equity-vol"

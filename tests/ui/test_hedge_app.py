@@ -99,3 +99,29 @@ async def test_a_failed_load_does_not_leave_staging_blocked(demo_db: Path) -> No
         await pilot.press("d")
         await settle(app, pilot)
         assert [t.contract.symbol for t in app.trials] == ["DEMOIX"]
+
+
+async def test_the_underlyings_are_read_again_only_when_the_book_has_others(
+    demo_db: Path,
+) -> None:
+    """A commit of marks reloads the book but keeps the underlyings read for the hedge; a new
+    underlying held in the book has them read again."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        first = app.hedge_refs
+        assert first is not None and first.refs is not None
+        with store.open_store(demo_db) as st:
+            st.log_spot("DEMOA", 181.0)
+        app.load_book()
+        await settle(app, pilot)
+        assert app.hedge_refs is first
+        with store.open_store(demo_db) as st:
+            st.add_underlying("NEWCO", "stock", "USD", 100.0)
+            st.log_spot("NEWCO", 10.0)
+            st.add_trade("equity-vol", "NEWCO", 100, 10.0)
+        app.load_book()
+        await settle(app, pilot)
+        again = app.hedge_refs
+        assert again is not first and again is not None and again.refs is not None
+        assert "NEWCO" in again.refs.underlyings
