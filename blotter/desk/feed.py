@@ -5,9 +5,10 @@ A line is a JSON object (``{"symbol": "XYZ", "spot": 101.25, "time": "...", "vol
 (columns ``symbol`` and any of ``spot``, ``time``, ``expiry``, ``strike``, ``vol``). A bad line is
 counted and reported with its line number, writes nothing, and never stops the feed.
 
-Quotes wait in memory, the latest value of each point winning, and each underlying is written at
-most once per ``throttle_s``: every due underlying's points go into one mark set, so one
-transaction per batch. A writer killed between batches loses only the quotes still waiting.
+Quotes wait in memory, the latest value of each point winning, and are written at most once per
+``throttle_s``, every waiting point in one mark set: so each underlying is written at most once a
+throttle, in one transaction per batch. A writer killed between batches loses only the quotes
+still waiting.
 """
 
 from __future__ import annotations
@@ -217,7 +218,7 @@ _Key = tuple[str, str, str | None, float | None]
 
 
 class Feed:
-    """Takes quotes, keeps the latest of each point, writes due underlyings in one batch.
+    """Takes quotes, keeps the latest of each point, writes them all in one batch a throttle.
 
     ``clock`` gives monotonic seconds (``time.monotonic`` in use; tests pass their own);
     ``on_bad`` hears of each bad line as it is found."""
@@ -240,7 +241,7 @@ class Feed:
         self.report = FeedReport()
         self._known = set(store.load_underlyings().symbols)
         self._pending: dict[_Key, tuple[int, MarkPoint]] = {}
-        self._last_write: dict[str, float] = {}
+        self._last_write = -math.inf
 
     def bad_line(self, number: int, reason: str) -> None:
         """Count a bad line and keep its reason (the first ``MAX_REPORTED``)."""
@@ -275,35 +276,22 @@ class Feed:
             self._pending[key] = (number, p)
 
     def due_in(self) -> float | None:
-        """Seconds until the next underlying with waiting points may be written; None when
-        nothing waits."""
+        """Seconds until the waiting points may be written; None when nothing waits."""
         if not self._pending:
             return None
-        now = self.clock()
-        waits = [
-            self._last_write.get(sym, -math.inf) + self.throttle_s - now
-            for sym in {k[0] for k in self._pending}
-        ]
-        return max(0.0, min(waits))
+        return max(0.0, self._last_write + self.throttle_s - self.clock())
 
     def flush(self, everything: bool = False) -> int:
-        """Write the waiting points of every underlying that is due (or all, at the end) as one
-        mark set; returns the points written. A point the store refuses is reported with its
-        line and dropped, and the rest are written."""
+        """Write every waiting point as one mark set when a throttle has passed since the last
+        write (or at the end, ``everything``); returns the points written. A point the store
+        refuses is reported with its line and dropped, and the rest are written."""
         now = self.clock()
-        due = {
-            k: v
-            for k, v in self._pending.items()
-            if everything or now - self._last_write.get(k[0], -math.inf) >= self.throttle_s
-        }
-        if not due:
+        if not self._pending or (not everything and now - self._last_write < self.throttle_s):
             return 0
-        for k in due:
-            del self._pending[k]
-        written = self._write(list(due.values()))
-        for sym in {k[0] for k in due}:
-            self._last_write[sym] = now
-        return written
+        due = list(self._pending.values())
+        self._pending.clear()
+        self._last_write = now
+        return self._write(due)
 
     def _write(self, items: list[tuple[int, MarkPoint]]) -> int:
         """Write ``items`` as one set; when the store refuses the set, find the refused points
