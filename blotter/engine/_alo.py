@@ -48,19 +48,19 @@ from numba import njit
 from blotter.engine._special import bits as _bits
 from blotter.engine._special import fexp, ncdf, ncdf_and_pdf, npdf
 
-N_NODES = 12
+N_NODES = 24
 """Chebyshev intervals n of the boundary in √u (n + 1 nodes, one of them u = 0)."""
 POWER = 2.0
 """Power p of the node map u/τmax = ((1 + ξ)/2)^p: 2, Chebyshev in √u (3 and 4 resolve u -> 0
 better but put nodes so close to 0 that Newton's method fails on some boundaries)."""
-N_GAUSS = 8
+N_GAUSS = 6
 """Gauss–Legendre points on each half of a node's integral (2 × N_GAUSS per node)."""
 GRADED = (8, 6, 1, 12)
 """Price rule (``graded_rule``): panels halving towards s = 0 and points per panel, panels
 halving towards u = 0 and points per panel."""
 NEWTON_MAX = 60
 """Newton steps before a boundary is reported as not converged."""
-NEWTON_TOL = 1e-7
+NEWTON_TOL = 1e-8
 """Largest Newton step in ln B at any node that ends the iteration (the step is applied: the
 error left is of the order of its square)."""
 D_NEGLIGIBLE = 8.5
@@ -68,6 +68,8 @@ D_NEGLIGIBLE = 8.5
 greeks' terms carry φ(d₊) ≈ 1e-16 times powers of d/σ√s that stay below it."""
 MAX_STEP = 0.5
 """Largest change of ln B per Newton step (a guard far from the solution)."""
+BACKTRACKS = 6
+"""Halvings of a Newton step that does not lower the residual before it is kept anyway."""
 TANGENT_STEP = 1e-3
 """Step in ln σ of the central difference that gives a lone vol node's second σ-derivative."""
 
@@ -198,7 +200,7 @@ def _start(r: float, q: float, v: float, tmax: float, t: np.ndarray, lnx: float,
             guess = min(math.log(g), lnx)
             if lnx == 0.0 and b > 0.0:
                 arg = v2 / (8.0 * math.pi * b * b * ti)
-                near = -v * math.sqrt(ti * max(math.log(arg), 1.0)) if arg > 1.0 else ln_inf
+                near = -v * math.sqrt(ti * max(math.log(arg), 1.0)) if arg > 1.0 else 0.0
                 guess = max(min(guess, near), ln_inf)
             out[i] = guess
         else:
@@ -207,7 +209,8 @@ def _start(r: float, q: float, v: float, tmax: float, t: np.ndarray, lnx: float,
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def lu_factor(a: np.ndarray, piv: np.ndarray) -> None:
-    """LU factors of ``a`` (n, n) in place, partial pivoting (row swaps in ``piv``)."""
+    """LU factors of ``a`` (n, n) in place, partial pivoting (row swaps in ``piv``); rows are
+    eliminated four at a time, so each pivot-row element loaded feeds four updates."""
     n = a.shape[0]
     for c in range(n):
         p = c
@@ -221,11 +224,29 @@ def lu_factor(a: np.ndarray, piv: np.ndarray) -> None:
             for j in range(n):
                 a[c, j], a[p, j] = a[p, j], a[c, j]
         inv = 1.0 / a[c, c] if a[c, c] != 0.0 else 0.0
-        for i in range(c + 1, n):
+        i = c + 1
+        while i + 3 < n:
+            f0 = a[i, c] * inv
+            f1 = a[i + 1, c] * inv
+            f2 = a[i + 2, c] * inv
+            f3 = a[i + 3, c] * inv
+            a[i, c] = f0
+            a[i + 1, c] = f1
+            a[i + 2, c] = f2
+            a[i + 3, c] = f3
+            for j in range(c + 1, n):
+                pj = a[c, j]
+                a[i, j] -= f0 * pj
+                a[i + 1, j] -= f1 * pj
+                a[i + 2, j] -= f2 * pj
+                a[i + 3, j] -= f3 * pj
+            i += 4
+        while i < n:
             f = a[i, c] * inv
             a[i, c] = f
             for j in range(c + 1, n):
                 a[i, j] -= f * a[c, j]
+            i += 1
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -288,11 +309,12 @@ taken from there is the last or the one before it."""
 def residual(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.ndarray,
              wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray, lnb: np.ndarray,
              work: np.ndarray, nodes: np.ndarray, jac: np.ndarray, rhs: np.ndarray, col: int,
-             full: bool, partials_below: float) -> bool:
+             full: bool, partials_below: float, squares: bool) -> bool:
     """The boundary equation's residual R = L − ln f(L) at the nodes into ``rhs[:, col]``;
     when ``full``, its Jacobian ∂R/∂L into ``jac`` (n, n), and when moreover max |R| <=
     ``partials_below``, ∂ ln f/∂(σ, r, b) into ``rhs[:, 0:3]`` (returns whether it did).
-    ``work`` (WORK_ROWS, P) and ``nodes`` (16, n) are scratch."""
+    ``work`` (WORK_ROWS, P) and ``nodes`` (16, n) are scratch; ``squares``: the gap's square is
+    interpolated where X = 1 (else the gap itself everywhere)."""
     n = t.size
     npts = pre.shape[1]
     m = npts // n
@@ -301,7 +323,7 @@ def residual(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.n
     mup = b + 0.5 * v2
     lnx = exercise_level(r, q)
     dlx_r, dlx_b = exercise_slopes(r, q)
-    squared = lnx == 0.0
+    squared = squares and lnx == 0.0
     # the gap ln X − ln B at the points: interpolated itself, or as its square (``squared``)
     gp = work[0]
     qp = work[14]
@@ -496,23 +518,39 @@ def residual(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.n
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def newton(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.ndarray,
            wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray, lnb: np.ndarray,
-           tangents: np.ndarray,
-           warm: bool, max_step: float, work: np.ndarray, nodes: np.ndarray, jac: np.ndarray,
-           rhs: np.ndarray, piv: np.ndarray) -> int:
+           tangents: np.ndarray, warm: bool, work: np.ndarray, nodes: np.ndarray,
+           jac: np.ndarray, rhs: np.ndarray, piv: np.ndarray, back: np.ndarray,
+           squares: bool, max_steps: int) -> int:
     """Solve ln B at the nodes into ``lnb`` (n,) (which holds the start when ``warm``) and its
     derivatives in (σ, r, b) into ``tangents[0:3]`` (n each); returns the Newton steps taken,
-    or −1 when the iteration did not converge. ``jac`` keeps the last Jacobian's LU factors.
+    or −1 when the iteration did not converge within ``max_steps``. ``jac`` keeps the last
+    Jacobian's LU factors; ``back`` (2, n) is scratch.
 
-    The derivatives come from the Jacobian of the last iteration, whose point is within one
-    step (<= NEWTON_TOL) of the solution."""
+    A step that does not lower Σ R² is halved (up to ``BACKTRACKS`` times) before the next
+    Jacobian: the residual at the new point is computed with its Jacobian anyway, so a kept
+    step costs nothing more. The derivatives come from the Jacobian of the last iteration,
+    whose point is within one step (<= NEWTON_TOL) of the solution."""
     n = t.size
     lnx = exercise_level(r, q)
     if not warm:
         _start(r, q, v, tmax, t, lnx, lnb)
     steps = -1
-    for it in range(NEWTON_MAX + 1):
+    last = np.inf
+    alpha = 1.0
+    halved = 0
+    for it in range(max_steps + 1):
         have = residual(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, work, nodes, jac, rhs,
-                        3, True, PARTIALS_BELOW)
+                        3, True, PARTIALS_BELOW, squares)
+        size = 0.0
+        for i in range(n):
+            size += rhs[i, 3] * rhs[i, 3]
+        if not size < last and halved < BACKTRACKS and last < np.inf:
+            # back along the last step: lnb = start − α step
+            alpha *= 0.5
+            halved += 1
+            for i in range(n):
+                lnb[i] = min(back[0, i] - alpha * back[1, i], lnx)
+            continue
         if not have:
             for i in range(n):
                 rhs[i, 0] = 0.0
@@ -526,9 +564,14 @@ def newton(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.nda
                 biggest = abs(rhs[i, 3])
         if not math.isfinite(biggest):
             break
-        scale = 1.0 if biggest <= max_step else max_step / biggest
+        scale = 1.0 if biggest <= MAX_STEP else MAX_STEP / biggest
         for i in range(n):
-            lnb[i] = min(lnb[i] - scale * rhs[i, 3], lnx)
+            back[0, i] = lnb[i]
+            back[1, i] = scale * rhs[i, 3]
+            lnb[i] = min(lnb[i] - back[1, i], lnx)
+        last = size
+        alpha = 1.0
+        halved = 0
         if biggest <= NEWTON_TOL and have:
             steps = it + 1
             break
@@ -542,7 +585,7 @@ def newton(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.nda
 def second_tangent(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.ndarray,
                    wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray, lnb: np.ndarray,
                    tangents: np.ndarray, work: np.ndarray, nodes: np.ndarray, jac: np.ndarray,
-                   rhs: np.ndarray, piv: np.ndarray, trial: np.ndarray) -> None:
+                   rhs: np.ndarray, piv: np.ndarray, trial: np.ndarray, squares: bool) -> None:
     """∂²L/∂(ln σ)² into ``tangents[3]`` from the converged ``lnb`` and ``tangents[0]`` (per
     unit σ), with ``jac`` holding the LU factors: along the path (L + ε L', ln σ + ε) the
     residual's second difference gives −J L''."""
@@ -551,13 +594,13 @@ def second_tangent(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre
     for i in range(n):
         trial[i] = lnb[i] + h * v * tangents[0, i]
     residual(r, q, v * math.exp(h), tmax, t, pre, wmat, wmat_t, w0, trial, work, nodes, jac,
-             rhs, 0, False, 0.0)
+             rhs, 0, False, 0.0, squares)
     for i in range(n):
         trial[i] = lnb[i] - h * v * tangents[0, i]
     residual(r, q, v * math.exp(-h), tmax, t, pre, wmat, wmat_t, w0, trial, work, nodes, jac,
-             rhs, 1, False, 0.0)
+             rhs, 1, False, 0.0, squares)
     residual(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, work, nodes, jac, rhs, 2, False,
-             0.0)
+             0.0, squares)
     for i in range(n):
         rhs[i, 3] = -(rhs[i, 0] - 2.0 * rhs[i, 2] + rhs[i, 1]) / (h * h)
     lu_solve(jac, piv, rhs[:, 3:4])
@@ -565,18 +608,88 @@ def second_tangent(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre
         tangents[3, i] = rhs[i, 3]
 
 
+LOOKBACK = 8
+"""Groups solved just before a group that are tried as its start (``borrow_start``)."""
+BORROW_MAX = 0.01
+"""Largest difference of put-form rate or dividend yield between a group and the group whose
+boundary starts its Newton iteration."""
+BORROW_SPAN = 4.0
+"""Largest ratio of the lending group's τmax to the borrowing group's (a longer boundary has
+too few nodes in the borrower's span)."""
+WARM_MAX = 8
+"""Newton steps allowed from a start taken from another node or group before the start
+formula is tried instead."""
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def borrow_start(g: int, k: int, g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray,
+                 g_ns: np.ndarray, g_lnsig: np.ndarray, g_lnb: np.ndarray, g_tan: np.ndarray,
+                 g_steps: np.ndarray, t: np.ndarray, power: float, xk: np.ndarray,
+                 row: np.ndarray, out: np.ndarray) -> bool:
+    """A start for node ``k`` of group ``g`` from a group solved just before it (``LOOKBACK``)
+    whose boundary spans at least as long a time (and at most ``BORROW_SPAN`` times), in the
+    same form of X, with rate and dividend yield within ``BORROW_MAX``: its nearest vol node's
+    boundary read at this group's node times and moved along its σ-, r- and b-derivatives;
+    False (``out`` untouched) when none qualifies. Rows of one underlying and type at several
+    expiries are such groups."""
+    r = g_r[g]
+    q = g_q[g]
+    lnx = exercise_level(r, q)
+    lv = g_lnsig[g, k]
+    best = -1
+    bk = 0
+    score = np.inf
+    for h in range(max(0, g - LOOKBACK), g):
+        if g_steps[h] < 0 or g_tmax[h] < g_tmax[g] or g_tmax[h] > BORROW_SPAN * g_tmax[g]:
+            continue
+        if (exercise_level(g_r[h], g_q[h]) == 0.0) != (lnx == 0.0):
+            continue
+        dr = abs(g_r[h] - r)
+        dq = abs(g_q[h] - q)
+        if dr > BORROW_MAX or dq > BORROW_MAX:
+            continue
+        for kk in range(g_ns[h]):
+            sc = dr + dq + 0.05 * abs(g_lnsig[h, kk] - lv)
+            if sc < score:
+                score = sc
+                best = h
+                bk = kk
+    if best < 0:
+        return False
+    n = t.size
+    hx = exercise_level(g_r[best], g_q[best])
+    vh = math.exp(g_lnsig[best, bk])
+    dv = math.exp(lv) - vh
+    dr = r - g_r[best]
+    db = (r - q) - (g_r[best] - g_q[best])
+    ratio = g_tmax[g] / g_tmax[best]
+    for i in range(n):
+        chebyshev_row(ratio * t[i], power, xk, row)
+        acc = 0.0
+        for j in range(n):
+            acc += row[j] * (hx - g_lnb[best, bk, j])
+        lb = hx - acc
+        dl = 0.0
+        for j in range(n):
+            dl += row[j] * (dv * g_tan[best, bk, 0, j] + dr * g_tan[best, bk, 1, j]
+                            + db * g_tan[best, bk, 2, j])
+        out[i] = min(lb + dl, lnx)
+    return True
+
+
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.ndarray,
                  g_lnsig: np.ndarray, t: np.ndarray, s_hat: np.ndarray, u_hat: np.ndarray,
                  w_hat: np.ndarray, wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray,
                  g_lnb: np.ndarray, g_tan: np.ndarray, g_steps: np.ndarray,
-                 second: bool) -> None:
+                 second: bool, squares: bool, power: float) -> None:
     """Boundaries of groups (put form r, q, τmax) at their vol nodes ``g_lnsig`` (G, NSM) (ln σ,
     ascending, the first ``g_ns`` used) into ``g_lnb`` (G, NSM, n) and ``g_tan`` (G, NSM, 4, n)
     (∂/∂σ, ∂/∂r, ∂/∂b, and for a group of one node when ``second``, ∂²/∂(ln σ)²);
     ``g_steps`` (G,) gets the most Newton steps of a group's nodes, or −1 if one failed. The
-    middle node starts cold; each other starts from its inner neighbour moved along that
-    neighbour's σ-tangent."""
+    middle node starts from a group solved just before it (``borrow_start``) or else from the
+    start formula; each other node starts from its inner neighbour moved along that neighbour's
+    σ-derivative."""
     n = t.size
     npts = s_hat.size
     pre = np.empty((6, npts))
@@ -586,10 +699,14 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
     rhs = np.empty((n, 4))
     piv = np.empty(n, dtype=np.int64)
     trial = np.empty(n)
+    back = np.empty((2, n))
+    row = np.empty(n)
+    xk = np.cos(np.arange(n + 1) * (math.pi / n))
     for g in range(g_r.size):
         r = g_r[g]
         q = g_q[g]
         tmax = g_tmax[g]
+        lnx = exercise_level(r, q)
         group_points(r, q, tmax, s_hat, u_hat, w_hat, pre)
         ns = g_ns[g]
         mid = ns // 2
@@ -606,19 +723,20 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
                 src = k + 1 if k < mid else k - 1
                 dv = g_lnsig[g, k] - g_lnsig[g, src]
                 vsrc = math.exp(g_lnsig[g, src])
-                lnx = exercise_level(r, q)
                 for i in range(n):
                     lnb[i] = min(g_lnb[g, src, i] + dv * vsrc * g_tan[g, src, 0, i], lnx)
-            st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], warm, MAX_STEP,
-                        work, nodes, jac, rhs, piv)
-            if st < 0:
-                # retried from the perpetual guess with steps capped at a tenth (seen where
-                # X = r/q is just below 1, whose boundary drops steeply near u = 0)
+            else:
+                warm = borrow_start(g, k, g_r, g_q, g_tmax, g_ns, g_lnsig, g_lnb, g_tan,
+                                    g_steps, t, power, xk, row, lnb)
+            st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], warm, work,
+                        nodes, jac, rhs, piv, back, squares, WARM_MAX if warm else NEWTON_MAX)
+            if st < 0 and warm:
+                # retried from the start formula
                 st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], False,
-                            0.1 * MAX_STEP, work, nodes, jac, rhs, piv)
+                            work, nodes, jac, rhs, piv, back, squares, NEWTON_MAX)
             if st >= 0 and second and ns == 1:
                 second_tangent(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], work,
-                               nodes, jac, rhs, piv, trial)
+                               nodes, jac, rhs, piv, trial, squares)
             else:
                 for i in range(n):
                     g_tan[g, k, 3, i] = 0.0
@@ -630,35 +748,33 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
-def chebyshev_row(z: float, n: int, power: float, out: np.ndarray) -> None:
+def chebyshev_row(z: float, power: float, xk: np.ndarray, out: np.ndarray) -> None:
     """Weights ``out`` (n,) of the node values g_0..g_{n−1} (g_n = 0 at u = 0) in the
-    Chebyshev interpolant at u/τmax = ``z`` (barycentric form)."""
+    Chebyshev interpolant at u/τmax = ``z`` (barycentric form); ``xk`` (n + 1,) holds the
+    nodes cos(kπ/n)."""
+    n = xk.size - 1
     xi = min(2.0 * max(z, 0.0) ** (1.0 / power) - 1.0, 1.0)
+    for k in range(n + 1):
+        if xi == xk[k]:
+            for j in range(n):
+                out[j] = 1.0 if j == k else 0.0
+            return
     total = 0.0
-    exact = -1
     for k in range(n + 1):
-        xk = math.cos(k * math.pi / n)
-        if xi == xk:
-            exact = k
-    if exact >= 0:
-        for k in range(n):
-            out[k] = 1.0 if k == exact else 0.0
-        return
-    for k in range(n + 1):
-        xk = math.cos(k * math.pi / n)
         lam = (0.5 if (k == 0 or k == n) else 1.0) * (1.0 if k % 2 == 0 else -1.0)
-        c = lam / (xi - xk)
+        c = lam / (xi - xk[k])
         total += c
         if k < n:
             out[k] = c
+    inv = 1.0 / total
     for k in range(n):
-        out[k] /= total
+        out[k] *= inv
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def boundary_table(r: float, q: float, v: float, lnb: np.ndarray, tangents: np.ndarray,
                    wq_t: np.ndarray, lq: np.ndarray, dlq: np.ndarray, nd: int,
-                   work: np.ndarray) -> None:
+                   work: np.ndarray, squares: bool) -> None:
     """ln B at the price nodes into ``lq`` (nq + 1,) and, for the first ``nd`` of (ln σ, r, b,
     (ln σ)²), its derivatives into ``dlq`` (4, nq + 1); ``wq_t`` (n, nq + 1) maps node values of
     the gap g = ln X − ln B (or of g² where X = 1) to the price nodes. ``tangents`` (4, n)
@@ -668,7 +784,7 @@ def boundary_table(r: float, q: float, v: float, lnb: np.ndarray, tangents: np.n
     nq1 = lq.size
     lnx = exercise_level(r, q)
     dlx_r, dlx_b = exercise_slopes(r, q)
-    squared = lnx == 0.0
+    squared = squares and lnx == 0.0
     acc = work[0]
     dacc = work[1:5]
     for j in range(nq1):
@@ -953,7 +1069,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                  row_lnx: np.ndarray, row_v: np.ndarray, row_s: np.ndarray, row_k: np.ndarray,
                  row_w: np.ndarray, wq_t: np.ndarray, power: float, ts_x: np.ndarray,
                  ts_w: np.ndarray, vol_min: float, greeks: bool, out: np.ndarray,
-                 near: np.ndarray) -> None:
+                 near: np.ndarray, squares: bool) -> None:
     """Prices (and greeks) of the rows of each group into ``out`` (1 or 10, all rows): group g
     holds rows ``order[g_first[g]:g_first[g + 1]]``; groups whose boundary failed
     (``g_steps`` < 0) are left for the caller. Row inputs: ln of the put-form spot over strike,
@@ -976,6 +1092,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
     nodes = np.empty((6, nq))
     own = np.empty((n, nq + 1))
     wrow = np.empty(n)
+    xk = np.cos(np.arange(n + 1) * (math.pi / n))
     work = np.empty((5, nq + 1))
     terms = np.empty((VALUE_ROWS, nq))
     acc = np.empty((5, nq + 1))
@@ -1001,14 +1118,14 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         if tau != tmax:
             for j in range(nq + 1):
                 z = (tau / tmax) * ((1.0 - ts_x[j] * ts_x[j]) if j < nq else 1.0)
-                chebyshev_row(z, n, power, wrow)
+                chebyshev_row(z, power, xk, wrow)
                 for k in range(n):
                     own[k, j] = wrow[k]
             table = own
         nd = 4 if (greeks and ns == 1) else (3 if (greeks or ns > 1) else 0)
         for k in range(ns):
             boundary_table(r, q, math.exp(g_lnsig[g, k]), g_lnb[g, k], g_tan[g, k], table,
-                           lq_k[k], dlq_k[k], nd, work)
+                           lq_k[k], dlq_k[k], nd, work, squares)
         for pos in range(g_first[g], g_first[g + 1]):
             row = order[pos]
             v = max(row_v[row], vol_min)
