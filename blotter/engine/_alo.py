@@ -55,7 +55,7 @@ POWER = 2.0
 better but put nodes so close to 0 that Newton's method fails on some boundaries)."""
 N_GAUSS = 6
 """Gauss–Legendre points on each half of a node's integral (2 × N_GAUSS per node)."""
-GRADED = (8, 6, 1, 12)
+GRADED = (8, 6, 1, 10)
 """Price rule (``graded_rule``): panels halving towards s = 0 and points per panel, panels
 halving towards u = 0 and points per panel."""
 NEWTON_MAX = 60
@@ -251,25 +251,58 @@ def lu_factor(a: np.ndarray, piv: np.ndarray) -> None:
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def lu_solve(a: np.ndarray, piv: np.ndarray, rhs: np.ndarray) -> None:
-    """Solve with the factors of ``lu_factor``: ``rhs`` (n, k) becomes the solution."""
+    """Solve with the factors of ``lu_factor``: ``rhs`` (n, 4) becomes the solution (four
+    columns written out, so that each row update is one vector operation)."""
     n = a.shape[0]
-    k = rhs.shape[1]
     for c in range(n):
         p = piv[c]
         if p != c:
-            for j in range(k):
+            for j in range(4):
                 rhs[c, j], rhs[p, j] = rhs[p, j], rhs[c, j]
+        r0 = rhs[c, 0]
+        r1 = rhs[c, 1]
+        r2 = rhs[c, 2]
+        r3 = rhs[c, 3]
         for i in range(c + 1, n):
             f = a[i, c]
-            for j in range(k):
-                rhs[i, j] -= f * rhs[c, j]
+            rhs[i, 0] -= f * r0
+            rhs[i, 1] -= f * r1
+            rhs[i, 2] -= f * r2
+            rhs[i, 3] -= f * r3
     for c in range(n - 1, -1, -1):
         inv = 1.0 / a[c, c] if a[c, c] != 0.0 else 0.0
-        for j in range(k):
-            acc = rhs[c, j]
-            for i in range(c + 1, n):
-                acc -= a[c, i] * rhs[i, j]
-            rhs[c, j] = acc * inv
+        s0 = rhs[c, 0]
+        s1 = rhs[c, 1]
+        s2 = rhs[c, 2]
+        s3 = rhs[c, 3]
+        for i in range(c + 1, n):
+            f = a[c, i]
+            s0 -= f * rhs[i, 0]
+            s1 -= f * rhs[i, 1]
+            s2 -= f * rhs[i, 2]
+            s3 -= f * rhs[i, 3]
+        rhs[c, 0] = s0 * inv
+        rhs[c, 1] = s1 * inv
+        rhs[c, 2] = s2 * inv
+        rhs[c, 3] = s3 * inv
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def lu_solve1(a: np.ndarray, piv: np.ndarray, b: np.ndarray) -> None:
+    """Solve with the factors of ``lu_factor`` for one right-hand side ``b`` (n,), in place."""
+    n = a.shape[0]
+    for c in range(n):
+        p = piv[c]
+        if p != c:
+            b[c], b[p] = b[p], b[c]
+        bc = b[c]
+        for i in range(c + 1, n):
+            b[i] -= a[i, c] * bc
+    for c in range(n - 1, -1, -1):
+        acc = b[c]
+        for i in range(c + 1, n):
+            acc -= a[c, i] * b[i]
+        b[c] = acc / a[c, c] if a[c, c] != 0.0 else 0.0
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -551,13 +584,15 @@ def newton(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre: np.nda
             for i in range(n):
                 lnb[i] = min(back[0, i] - alpha * back[1, i], lnx)
             continue
-        if not have:
-            for i in range(n):
-                rhs[i, 0] = 0.0
-                rhs[i, 1] = 0.0
-                rhs[i, 2] = 0.0
         lu_factor(jac, piv)
-        lu_solve(jac, piv, rhs)
+        if have:
+            lu_solve(jac, piv, rhs)
+        else:
+            for i in range(n):
+                back[1, i] = rhs[i, 3]
+            lu_solve1(jac, piv, back[1])
+            for i in range(n):
+                rhs[i, 3] = back[1, i]
         biggest = 0.0
         for i in range(n):
             if not abs(rhs[i, 3]) <= biggest:      # NaN too
@@ -591,21 +626,17 @@ def second_tangent(r: float, q: float, v: float, tmax: float, t: np.ndarray, pre
     residual's second difference gives −J L''."""
     n = t.size
     h = TANGENT_STEP
+    # one call site for the three residuals (each call site of the large residual costs its
+    # own optimisation when the kernels compile)
+    for col in range(3):
+        sign = 1.0 if col == 0 else (-1.0 if col == 1 else 0.0)
+        for i in range(n):
+            trial[i] = lnb[i] + sign * h * v * tangents[0, i]
+        residual(r, q, v * math.exp(sign * h), tmax, t, pre, wmat, wmat_t, w0, trial, work,
+                 nodes, jac, rhs, col, False, 0.0, squares)
     for i in range(n):
-        trial[i] = lnb[i] + h * v * tangents[0, i]
-    residual(r, q, v * math.exp(h), tmax, t, pre, wmat, wmat_t, w0, trial, work, nodes, jac,
-             rhs, 0, False, 0.0, squares)
-    for i in range(n):
-        trial[i] = lnb[i] - h * v * tangents[0, i]
-    residual(r, q, v * math.exp(-h), tmax, t, pre, wmat, wmat_t, w0, trial, work, nodes, jac,
-             rhs, 1, False, 0.0, squares)
-    residual(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, work, nodes, jac, rhs, 2, False,
-             0.0, squares)
-    for i in range(n):
-        rhs[i, 3] = -(rhs[i, 0] - 2.0 * rhs[i, 2] + rhs[i, 1]) / (h * h)
-    lu_solve(jac, piv, rhs[:, 3:4])
-    for i in range(n):
-        tangents[3, i] = rhs[i, 3]
+        tangents[3, i] = -(rhs[i, 0] - 2.0 * rhs[i, 2] + rhs[i, 1]) / (h * h)
+    lu_solve1(jac, piv, tangents[3])
 
 
 LOOKBACK = 8
@@ -728,12 +759,15 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
             else:
                 warm = borrow_start(g, k, g_r, g_q, g_tmax, g_ns, g_lnsig, g_lnb, g_tan,
                                     g_steps, t, power, xk, row, lnb)
-            st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], warm, work,
-                        nodes, jac, rhs, piv, back, squares, WARM_MAX if warm else NEWTON_MAX)
-            if st < 0 and warm:
-                # retried from the start formula
-                st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], False,
-                            work, nodes, jac, rhs, piv, back, squares, NEWTON_MAX)
+            st = -1
+            for _attempt in range(2):
+                # a borrowed start that fails is retried from the start formula
+                st = newton(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], warm,
+                            work, nodes, jac, rhs, piv, back, squares,
+                            WARM_MAX if warm else NEWTON_MAX)
+                if st >= 0 or not warm:
+                    break
+                warm = False
             if st >= 0 and second and ns == 1:
                 second_tangent(r, q, v, tmax, t, pre, wmat, wmat_t, w0, lnb, g_tan[g, k], work,
                                nodes, jac, rhs, piv, trial, squares)
@@ -909,6 +943,9 @@ def european_put(x: float, tau: float, r: float, q: float, v: float, g: np.ndarr
     g[8] = -x * tau * dq * nd1
 
 
+WINDOW = 5
+"""Vol nodes, nearest a row's vol, that its boundary is interpolated from (a group spanning a
+wide smile has more; the far ones add nothing but cost)."""
 VALUE_ROWS = 10
 """Rows of the per-row scratch of ``value_put`` (one per accumulated term)."""
 
@@ -1141,14 +1178,21 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         dlq[2, j] = dlq_k[0, 2, j]
                         d2lq[j] = (dlq_k[0, 3, j] - a1) * iv * iv
             else:
-                hermite_weights(math.log(v), g_lnsig[g], ns, w0, w1, lag)
+                # the WINDOW nodes around the row's vol (all of them in smaller groups)
+                lv = math.log(v)
+                width = min(ns, WINDOW)
+                k0 = 0
+                while k0 + width < ns and g_lnsig[g, k0 + width // 2] < lv:
+                    k0 += 1
+                hermite_weights(lv, g_lnsig[g, k0:k0 + width], width, w0, w1, lag)
                 nacc = 5 if greeks else 1
                 for a in range(nacc):
                     for j in range(nq + 1):
                         acc[a, j] = 0.0
-                for k in range(ns):
-                    c00 = w0[0, k]
-                    c01 = w1[0, k]
+                for kw in range(width):
+                    k = k0 + kw
+                    c00 = w0[0, kw]
+                    c01 = w1[0, kw]
                     fk = lq_k[k]
                     dk = dlq_k[k, 0]
                     a0 = acc[0]
@@ -1156,11 +1200,11 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         a0[j] += c00 * fk[j] + c01 * dk[j]
                     if not greeks:
                         continue
-                    c10 = w0[1, k]
-                    c11 = w1[1, k]
-                    c20 = w0[2, k]
-                    c21 = w1[2, k]
-                    lk = lag[k]
+                    c10 = w0[1, kw]
+                    c11 = w1[1, kw]
+                    c20 = w0[2, kw]
+                    c21 = w1[2, kw]
+                    lk = lag[kw]
                     rk = dlq_k[k, 1]
                     bk = dlq_k[k, 2]
                     a1 = acc[1]
