@@ -33,10 +33,11 @@ import threading
 from collections import OrderedDict
 from collections.abc import Sequence
 from dataclasses import dataclass
+from types import ModuleType
 
 import numpy as np
 
-from blotter.engine import _alo, black
+from blotter.engine import _alo, _alo_np, _kernels, black
 from blotter.engine._chunks import run_chunked
 
 EXERCISE_BOUNDARY = 0
@@ -224,9 +225,10 @@ class BoundaryCache:
             tt, rr, qq = (np.tile(a[keep], 2) for a in (t, r_p, q_p))
             lnv = np.log(np.maximum(np.concatenate([lo[keep], hi[keep]]), VOL_MIN))
             key = np.empty(tt.size, dtype=np.uint64)
-            _alo.group_keys(tt, rr, qq, key)
+            kernels = _implementation(None)
+            kernels.group_keys(tt, rr, qq, key)
             order, first = _group(np.arange(tt.size), key, tt, rr, qq)
-            _boundaries(order, first, tt, rr, qq, lnv, True, self)
+            _boundaries(order, first, tt, rr, qq, lnv, True, self, kernels)
 
 
 def status_of(r_p: np.ndarray, q_p: np.ndarray) -> np.ndarray:
@@ -292,9 +294,18 @@ def _group(rows: np.ndarray, key: np.ndarray, tau: np.ndarray, rate: np.ndarray,
     return order, first
 
 
+def _implementation(kernels: ModuleType | None) -> ModuleType:
+    """``kernels`` when given, else the compiled kernels (``_alo``) when they are ready or no
+    warm-up is compiling them (they then compile or load here), else their NumPy mirror
+    (``_alo_np``), so that a caller never waits on a compilation running elsewhere."""
+    if kernels is not None:
+        return kernels
+    return _alo if _kernels.use_compiled() else _alo_np
+
+
 def _boundaries(order: np.ndarray, first: np.ndarray, tau: np.ndarray, rate: np.ndarray,
                 div: np.ndarray, lnv: np.ndarray, greeks: bool, cache: BoundaryCache | None,
-                scheme: Scheme = DEFAULT) -> _Groups:
+                kernels: ModuleType, scheme: Scheme = DEFAULT) -> _Groups:
     """Find (in ``cache``) or solve the boundary of each group of rows (``_group``); solves run
     on the engine's thread pool, into arrays of all groups."""
     starts = first[:-1]
@@ -330,7 +341,7 @@ def _boundaries(order: np.ndarray, first: np.ndarray, tau: np.ndarray, rate: np.
         grp.steps[g] = item.steps
     todo = np.setdiff1d(np.arange(g_r.size), np.fromiter(found, dtype=np.int64))
     if todo.size:
-        _solve(grp, todo, scheme)
+        _solve(grp, todo, scheme, kernels)
         if use_cache:
             assert cache is not None
             for g in todo:
@@ -341,7 +352,7 @@ def _boundaries(order: np.ndarray, first: np.ndarray, tau: np.ndarray, rate: np.
     return grp
 
 
-def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
+def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme, kernels: ModuleType) -> None:
     """Solve the boundaries of groups ``todo`` into ``grp``'s arrays, in batches of groups on
     the thread pool."""
     tabs: dict[str, np.ndarray] = scheme.tables  # type: ignore[attr-defined]
@@ -359,9 +370,9 @@ def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
         for a in ins[0]:
             sl = slice(int(a), int(min(a + per, count)))
             r, q, tmax, ns, lnsig, lnb, tan, steps = (x[sl] for x in arrs)
-            _alo.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
-                              tabs["w"], tabs["W"], tabs["WT"], tabs["W0"], lnb, tan, steps,
-                              grp.greeks, scheme.squares, scheme.power)
+            kernels.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
+                                 tabs["w"], tabs["W"], tabs["WT"], tabs["W0"], lnb, tan, steps,
+                                 grp.greeks, scheme.squares, scheme.power)
 
     run_chunked(kernel, starts.size, (starts,), (np.empty(starts.size),), chunk=1, min_split=1)
     grp.lnb[todo] = arrs[5]
@@ -371,7 +382,7 @@ def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
 
 def _value(grp: _Groups, lnx: np.ndarray, v: np.ndarray, s: np.ndarray, k: np.ndarray,
            w: np.ndarray, greeks: bool, scheme: Scheme, out: np.ndarray,
-           near: np.ndarray) -> None:
+           near: np.ndarray, kernels: ModuleType) -> None:
     """Values (or price and nine greeks) of the rows of ``grp`` into ``out`` (1 or 10, m), in
     batches of whole groups of about ``BATCH_ROWS`` rows on the thread pool; rows of groups
     whose boundary failed are left untouched; ``near`` marks rows at their European value."""
@@ -386,15 +397,33 @@ def _value(grp: _Groups, lnx: np.ndarray, v: np.ndarray, s: np.ndarray, k: np.nd
         for c in ins[0]:
             g0, g1 = int(bounds[c]), int(bounds[c + 1])
             sl = slice(g0, g1)
-            _alo.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
-                              grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
-                              grp.steps[sl], grp.first[g0:g1 + 1], grp.order, lnx, v, s, k, w,
-                              scheme.wq_t, scheme.power,  # type: ignore[attr-defined]
-                              scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
-                              VOL_MIN, greeks, out, near, scheme.squares)
+            kernels.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
+                                 grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
+                                 grp.steps[sl], grp.first[g0:g1 + 1], grp.order, lnx, v, s, k,
+                                 w, scheme.wq_t, scheme.power,  # type: ignore[attr-defined]
+                                 scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
+                                 VOL_MIN, greeks, out, near, scheme.squares)
 
     ids = np.arange(bounds.size - 1)
     run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)
+
+
+def _exercise() -> None:
+    """Value one American put and one call with greeks and prices, and key a group, through
+    the compiled kernels: that compiles (or loads) every entry point."""
+    one = np.ones(2)
+    for greeks in (True, False):
+        evaluate(np.array([-1.0, 1.0]), 100.0 * one, 100.0 * one, 0.5 * one, 0.05 * one,
+                 0.01 * one, np.array([0.25, 0.3]), greeks=greeks, kernels=_alo)
+    key = np.empty(2, dtype=np.uint64)
+    _alo.group_keys(0.5 * one, 0.05 * one, 0.04 * one, key)
+
+
+def warm_up(background: bool = True) -> threading.Thread | None:
+    """Compile (or load from numba's cache) the American kernels: in a daemon thread that is
+    returned (one per process; later calls return the same thread), or now when ``background``
+    is False; American valuations use the NumPy mirror while the thread runs."""
+    return _kernels.start_warm_up(_exercise, background)
 
 
 def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
@@ -410,10 +439,13 @@ def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
 
 def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
              b: np.ndarray, v: np.ndarray, greeks: bool, cache: BoundaryCache | None = None,
-             scheme: Scheme = DEFAULT) -> tuple[list[np.ndarray], np.ndarray]:
+             scheme: Scheme = DEFAULT, kernels: ModuleType | None = None
+             ) -> tuple[list[np.ndarray], np.ndarray]:
     """American price (``greeks`` False) or price and nine greeks of rows given as flat arrays
     of one shape (m,), ω = ±1; returns the outputs in ``results.GREEK_NAMES`` order and each
-    row's status code (``AMERICAN_STATUS``)."""
+    row's status code (``AMERICAN_STATUS``). ``kernels``: ``_alo`` or ``_alo_np`` (default:
+    ``_implementation``)."""
+    kernels = _implementation(kernels)
     w, s, k, t, r, b, v = (np.ascontiguousarray(a, dtype=np.float64) for a in
                            (w, s, k, t, r, b, v))
     m = s.size
@@ -422,13 +454,14 @@ def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.n
     status = np.empty(m, dtype=np.int8)
     lnx, r_p, q_p, lnv = (np.empty(m) for _ in range(4))
     key = np.empty(m, dtype=np.uint64)
-    _alo.prepare_rows(w, s, k, t, r, b, v, YEARS_MIN, VOL_MIN, status, lnx, r_p, q_p, lnv, key)
+    kernels.prepare_rows(w, s, k, t, r, b, v, YEARS_MIN, VOL_MIN, status, lnx, r_p, q_p, lnv,
+                         key)
     solve = np.flatnonzero(status == EXERCISE_BOUNDARY)
     if solve.size:
         order, first = _group(solve, key, t, r_p, q_p)
-        grp = _boundaries(order, first, t, r_p, q_p, lnv, greeks, cache, scheme)
+        grp = _boundaries(order, first, t, r_p, q_p, lnv, greeks, cache, kernels, scheme)
         near = np.zeros(m, dtype=np.bool_)
-        _value(grp, lnx, v, s, k, w, greeks, scheme, block, near)
+        _value(grp, lnx, v, s, k, w, greeks, scheme, block, near, kernels)
         failed = grp.steps < 0
         if failed.any():
             status[order[np.repeat(failed, np.diff(first))]] = NOT_CONVERGED

@@ -22,6 +22,7 @@ from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
+from textual.timer import Timer
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
@@ -71,6 +72,12 @@ Loader = Callable[[], "tuple[Book, Market, int]"]
 COMPILE_NOTE_AFTER_S = 1.0
 """Loading the compiled kernels from numba's cache takes a fraction of a second; still not ready
 after this, they are being compiled, and the header says so."""
+
+COMPILE_POLL_S = 0.5
+"""How often the app checks whether the kernels being compiled are ready."""
+
+COMPILING_ALERT = "compiling pricing kernels (first start only): slower meanwhile"
+"""Header alert while American valuations run on the NumPy mirror of the kernels."""
 
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
@@ -144,6 +151,8 @@ class BlotterApp(App[None]):
         self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
+        self._compiling = False
+        self._compile_poll: Timer | None = None
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
@@ -182,14 +191,33 @@ class BlotterApp(App[None]):
             self.notify(notice, title="Read-only", severity="warning", markup=False)
 
     def _note_compiling(self) -> None:
-        """Say why the first valuation waits while the American kernels compile (cached after)."""
+        """While the American kernels compile (the first start after an install), say so in the
+        header, since valuations run on their slower NumPy mirror meanwhile; clear it when ready."""
         from blotter import engine
 
-        if self.state is None and not engine.kernels_ready():
+        if engine.kernels_ready():
+            return
+        self._compiling = True
+        if self.state is None:
             self.query_one(HeaderLine).update(
                 "blotter: opening the book… compiling the American pricing kernels "
                 "(the first start after an install only; some seconds)"
             )
+        else:
+            self._refresh_header()
+        self._compile_poll = self.set_interval(COMPILE_POLL_S, self._check_compiled)
+
+    def _check_compiled(self) -> None:
+        """Drop the compiling note once the kernels are ready (later valuations use them)."""
+        from blotter import engine
+
+        if not engine.kernels_ready():
+            return
+        self._compiling = False
+        if self._compile_poll is not None:
+            self._compile_poll.stop()
+            self._compile_poll = None
+        self._refresh_header()
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -329,6 +357,8 @@ class BlotterApp(App[None]):
             n = session.unvalued_count(unvalued)
             names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
+        if self._compiling:
+            alerts.append(COMPILING_ALERT)
         self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
 
     def on_load_failed(self, message: LoadFailed) -> None:
