@@ -76,8 +76,8 @@ after this, they are being compiled, and the header says so."""
 COMPILE_POLL_S = 0.5
 """How often the app checks whether the kernels being compiled are ready."""
 
-COMPILING_ALERT = "compiling pricing kernels (first start only): slower meanwhile"
-"""Header alert while American valuations run on the NumPy mirror of the kernels."""
+COMPILING_ALERT = "compiling pricing kernels (first start only; slower meanwhile)"
+"""Leads the header while American valuations run on the NumPy mirror of the kernels."""
 
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
@@ -357,9 +357,8 @@ class BlotterApp(App[None]):
             n = session.unvalued_count(unvalued)
             names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
-        if self._compiling:
-            alerts.append(COMPILING_ALERT)
-        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
+        first = COMPILING_ALERT if self._compiling else ""
+        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts, first)
 
     def on_load_failed(self, message: LoadFailed) -> None:
         self._hide_progress()
