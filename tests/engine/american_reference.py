@@ -2,9 +2,9 @@
 
 Prices: QuantLib 1.44 ``QdFpAmericanEngine`` with its high-precision scheme (test-only).
 Greeks: Richardson-extrapolated central differences of a much finer run of the engine's own
-method (``american.FINE``: 32 Chebyshev intervals, 48 Gauss–Legendre points per boundary
-integral, 248 price nodes; vanna and charm: differences of that run's delta), whose prices are
-checked against QuantLib beside them.
+method (``american.FINE``: the gap on 64 Chebyshev intervals in (u/τ)^(1/3), 32 Gauss–Legendre
+points per half of each boundary integral, a finer price rule; vanna and charm: differences of
+that run's delta), whose prices are checked against QuantLib beside them.
 
 ``python -m tests.engine.american_reference [n_per_region]`` prints the accuracy table: price
 error against QuantLib as a share of the strike, and per greek the largest error measure of
