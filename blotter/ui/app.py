@@ -79,6 +79,9 @@ COMPILE_POLL_S = 0.5
 COMPILING_ALERT = "compiling pricing kernels (first start only; slower meanwhile)"
 """Leads the header while American valuations run on the NumPy mirror of the kernels."""
 
+LOWER_BOUND_NOTE_S = 20.0
+"""Seconds the note about American positions valued at a lower bound stays on screen."""
+
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
 
@@ -152,6 +155,7 @@ class BlotterApp(App[None]):
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._stop_watch = threading.Event()
         self._compiling = False
+        self._lower_notes: list[str] = []
         self._compile_poll: Timer | None = None
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
@@ -334,6 +338,7 @@ class BlotterApp(App[None]):
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
         self._refresh_header()
+        self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value
         if text.strip():
             self._submit_move(text, force=True)
@@ -342,6 +347,17 @@ class BlotterApp(App[None]):
         self.start_profile()
         if self.timings.count(Timing.FIRST_PAINT) == 0:
             self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
+
+    def _note_lower_bounds(self, notes: tuple[str, ...]) -> None:
+        """Tell the user, once per change, which American positions are valued at a lower bound
+        (negative rates on both sides, or a boundary that did not converge)."""
+        from blotter.risk import LOWER_BOUND_WORDS
+
+        lower = [n for n in notes if LOWER_BOUND_WORDS in n]
+        if lower and lower != self._lower_notes:
+            self.notify(printable("; ".join(lower)), title="Lower bounds", severity="warning",
+                        markup=False, timeout=LOWER_BOUND_NOTE_S)
+        self._lower_notes = lower
 
     def _refresh_header(self) -> None:
         if self.state is None:
