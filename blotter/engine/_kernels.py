@@ -12,6 +12,7 @@ use.
 
 from __future__ import annotations
 
+import os
 import threading
 from collections.abc import Callable
 
@@ -20,6 +21,27 @@ from blotter.engine import _alo
 _ENTRY_POINTS = (_alo.prepare_rows, _alo.group_keys, _alo.solve_groups, _alo.value_groups)
 _LOCK = threading.Lock()
 _THREAD: threading.Thread | None = None
+_WARMING_AT_FORK = False
+"""Set just before a fork: a warm-up was compiling the kernels."""
+_MIRROR_ONLY = False
+"""True in a process forked while a warm-up was compiling: the compiling thread did not follow
+it and numba's compiler lock stays held there, so a compile would never finish; valuations
+there use the NumPy mirror unless the kernels were ready."""
+
+
+def _before_fork() -> None:
+    global _WARMING_AT_FORK
+    thread = _THREAD
+    _WARMING_AT_FORK = thread is not None and thread.is_alive() and not kernels_ready()
+
+
+def _after_fork_in_child() -> None:
+    global _LOCK, _MIRROR_ONLY
+    _LOCK = threading.Lock()
+    _MIRROR_ONLY = _MIRROR_ONLY or _WARMING_AT_FORK
+
+
+os.register_at_fork(before=_before_fork, after_in_child=_after_fork_in_child)
 
 
 def kernels_ready() -> bool:
@@ -29,9 +51,12 @@ def kernels_ready() -> bool:
 
 def use_compiled() -> bool:
     """True when American valuations should call the compiled kernels: they are ready, or no
-    warm-up is compiling them (a call then compiles or loads them itself)."""
+    warm-up is compiling them (a call then compiles or loads them itself) and this process
+    was not forked while one was."""
     if kernels_ready():
         return True
+    if _MIRROR_ONLY:
+        return False
     thread = _THREAD
     return thread is None or not thread.is_alive()
 
