@@ -22,6 +22,7 @@ from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
+from textual.timer import Timer
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
@@ -71,6 +72,15 @@ Loader = Callable[[], "tuple[Book, Market, int]"]
 COMPILE_NOTE_AFTER_S = 1.0
 """Loading the compiled kernels from numba's cache takes a fraction of a second; still not ready
 after this, they are being compiled, and the header says so."""
+
+COMPILE_POLL_S = 0.5
+"""How often the app checks whether the kernels being compiled are ready."""
+
+COMPILING_ALERT = "compiling pricing kernels (first start only; slower meanwhile)"
+"""Leads the header while American valuations run on the NumPy mirror of the kernels."""
+
+LOWER_BOUND_NOTE_S = 20.0
+"""Seconds the note about American positions valued at a lower bound stays on screen."""
 
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
@@ -146,6 +156,9 @@ class BlotterApp(App[None]):
         self._loading = False  # a load runs: a new request waits for it (``load_book``)
         self._load_again = False  # a load was asked for while one ran
         self._stop_watch = threading.Event()
+        self._compiling = False
+        self._lower_notes: list[str] = []
+        self._compile_poll: Timer | None = None
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
@@ -184,14 +197,33 @@ class BlotterApp(App[None]):
             self.notify(notice, title="Read-only", severity="warning", markup=False)
 
     def _note_compiling(self) -> None:
-        """Say why the first valuation waits while the American kernels compile (cached after)."""
+        """While the American kernels compile (the first start after an install), say so in the
+        header, since valuations run on their slower NumPy mirror meanwhile; clear it when ready."""
         from blotter import engine
 
-        if self.state is None and not engine.kernels_ready():
+        if engine.kernels_ready():
+            return
+        self._compiling = True
+        if self.state is None:
             self.query_one(HeaderLine).update(
                 "blotter: opening the book… compiling the American pricing kernels "
                 "(the first start after an install only; some seconds)"
             )
+        else:
+            self._refresh_header()
+        self._compile_poll = self.set_interval(COMPILE_POLL_S, self._check_compiled)
+
+    def _check_compiled(self) -> None:
+        """Drop the compiling note once the kernels are ready (later valuations use them)."""
+        from blotter import engine
+
+        if not engine.kernels_ready():
+            return
+        self._compiling = False
+        if self._compile_poll is not None:
+            self._compile_poll.stop()
+            self._compile_poll = None
+        self._refresh_header()
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -333,6 +365,7 @@ class BlotterApp(App[None]):
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
         self._refresh_header()
+        self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value
         if text.strip():
             self._submit_move(text, force=True)
@@ -341,6 +374,17 @@ class BlotterApp(App[None]):
         self.start_profile()
         if self.timings.count(Timing.FIRST_PAINT) == 0:
             self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
+
+    def _note_lower_bounds(self, notes: tuple[str, ...]) -> None:
+        """Tell the user, once per change, which American positions are valued at a lower bound
+        (negative rates on both sides, or a boundary that did not converge)."""
+        from blotter.risk import LOWER_BOUND_WORDS
+
+        lower = [n for n in notes if LOWER_BOUND_WORDS in n]
+        if lower and lower != self._lower_notes:
+            self.notify(printable("; ".join(lower)), title="Lower bounds", severity="warning",
+                        markup=False, timeout=LOWER_BOUND_NOTE_S)
+        self._lower_notes = lower
 
     def _refresh_header(self) -> None:
         if self.state is None:
@@ -356,7 +400,8 @@ class BlotterApp(App[None]):
             n = session.unvalued_count(unvalued)
             names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
-        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
+        first = COMPILING_ALERT if self._compiling else ""
+        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts, first)
 
     def on_load_failed(self, message: LoadFailed) -> None:
         self._hide_progress()

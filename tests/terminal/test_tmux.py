@@ -110,7 +110,10 @@ def session(request: pytest.FixtureRequest, demo_db: Path, tmp_path: Path) -> It
 
 
 def test_app_in_tmux_80x24(session: Tmux) -> None:
-    screen = session.wait_for(lambda s: "Σ total" in s and "DEMOIX" in s, "the book")
+    # the header's file name waits for the note of kernels loading slowly (a loaded machine)
+    screen = session.wait_for(
+        lambda s: "Σ total" in s and "DEMOIX" in s and "compiling" not in s, "the book"
+    )
     assert "Book by underlying" in screen and "demo.db" in screen
     assert all(len(line) <= 80 for line in screen.splitlines())
     session.until_keys_arrive()
