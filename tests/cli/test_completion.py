@@ -1,0 +1,43 @@
+"""Shell completion (click's ``_BLOTTER_COMPLETE``) answers without loading the valuation stack."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+
+import pytest
+
+HEAVY = ("numpy", "scipy", "numba", "textual", "openpyxl")
+"""Packages a TAB must not wait for: each costs tens to hundreds of milliseconds to import."""
+
+PROBE = """
+import json, sys
+from blotter.cli import main
+try:
+    main(prog_name="blotter")
+except SystemExit:
+    pass
+print(json.dumps(sorted(m for m in {heavy!r} if m in sys.modules)), file=sys.stderr)
+"""
+
+
+@pytest.mark.parametrize(
+    ("words", "cword", "expected"),
+    [
+        ("blotter tr", "1", "plain,trade"),
+        ("blotter trade im", "2", "plain,import"),
+        ("blotter risk --v", "2", "plain,--vega-unit"),
+        ("blotter bench --only e", "3", "plain,engine"),
+        ("blotter underlying add X --kind s", "5", "plain,stock"),
+    ],
+)
+def test_a_completion_run_completes_without_numpy(words: str, cword: str, expected: str) -> None:
+    env = dict(os.environ, _BLOTTER_COMPLETE="bash_complete", COMP_WORDS=words, COMP_CWORD=cword)
+    r = subprocess.run(
+        [sys.executable, "-c", PROBE.format(heavy=HEAVY)],
+        env=env, capture_output=True, text=True, timeout=60, check=True,
+    )
+    assert expected in r.stdout.splitlines()
+    assert json.loads(r.stderr.strip().splitlines()[-1]) == []
