@@ -43,10 +43,11 @@ def _import_file(file: str) -> Iterator[str]:
     if file != "-":
         yield file
         return
+    import sys
     import tempfile
     from pathlib import Path
 
-    data = click.get_binary_stream("stdin").read()
+    data = sys.stdin.buffer.read()
     with tempfile.TemporaryDirectory(prefix="blotter-import-") as folder:
         path = Path(folder) / STDIN_NAME
         path.write_bytes(data)
