@@ -6,10 +6,18 @@ report commands stay quick to start and usable where no terminal exists.
 
 from __future__ import annotations
 
+import sys
+
 import click
 
 from blotter.commands import register
 from blotter.commands.common import AppContext
+
+NO_TERMINAL = (
+    "no terminal (standard input or output is not one), so the app does not start; "
+    "use a command, e.g. blotter risk (blotter --help lists them)"
+)
+"""Said when ``blotter`` with no command runs in a pipe, a cron job or a script."""
 
 
 @click.group(invoke_without_command=True, context_settings={"help_option_names": ["-h", "--help"]})
@@ -23,11 +31,13 @@ from blotter.commands.common import AppContext
 def main(ctx: click.Context, db_path: str | None, read_only: bool, no_mouse: bool) -> None:
     """Options position blotter: book greeks in desk units and a live what-if.
 
-    Run with no command to open the app. Model estimates, not advice: check every figure
-    against the firm's official risk and P&L.
+    Run with no command to open the app (in a terminal only). Model estimates, not advice:
+    check every figure against the firm's official risk and P&L.
     """
     ctx.obj = AppContext(db_path=db_path, read_only=read_only, no_mouse=no_mouse)
     if ctx.invoked_subcommand is None:
+        if not (sys.stdin.isatty() and sys.stdout.isatty()):
+            raise click.ClickException(NO_TERMINAL)
         from blotter.commands.app import open_app
 
         open_app(ctx.obj)
