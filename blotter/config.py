@@ -10,6 +10,7 @@ Example file::
     desk_tz = "America/New_York"
     estimate_order = 2          # what the Move pane shows first: 1 or 2
     watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
+    log_file = "~/blotter.log"  # warnings and errors of imports and the store, with UTC times
 
     [alerts]
     error_pct = 10.0            # flag an estimate whose |error| exceeds this % of |full change|
@@ -75,6 +76,7 @@ class Settings:
     keymap: dict[str, str] = field(default_factory=dict)
     read_only: bool = False
     no_mouse: bool = False
+    log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
 
     @property
     def tz(self) -> ZoneInfo:

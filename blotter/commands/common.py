@@ -35,6 +35,28 @@ class AppContext:
     no_mouse: bool = False
 
 
+def start_log(ctx: click.Context, log_file: str | None) -> None:
+    """Append the package's log to ``log_file``, else to the ``log_file`` setting's file, until
+    the command ends; with neither, nothing is logged anywhere (``blotter.logs``)."""
+    from blotter import logs
+    from blotter.config import ConfigError, load_settings
+
+    if not log_file:
+        try:
+            log_file = load_settings().log_file
+        except ConfigError:
+            return  # the commands that read the settings say what is wrong with them
+    if not log_file:
+        return
+    try:
+        handler = logs.start_file_log(log_file)
+    except OSError as exc:
+        raise click.ClickException(
+            f"cannot write the log file {log_file}: {exc.strerror}"
+        ) from None
+    ctx.call_on_close(lambda: logs.stop_file_log(handler))
+
+
 def desk_zone() -> ZoneInfo:
     """The desk's time zone as the settings resolve it (``config.load_settings``), the one zone
     of naive times, expiry buckets and business-day rolls; ClickException for a bad setting."""
