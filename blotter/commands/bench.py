@@ -11,19 +11,22 @@ from blotter.commands.common import print_json, print_table
 
 
 def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
-    """Results of every benchmark module present (or those named in ``only``), in order."""
+    """Results of every benchmark module present (or those named in ``only``), in order; a bar
+    on a terminal names the group running (``commands.progress``)."""
+    from blotter.commands.progress import progress
+
+    names = [name for name in BENCH_MODULES if not only or name in only]
     results: list[Result] = []
-    for name in BENCH_MODULES:
-        if only and name not in only:
-            continue
-        try:
-            module = importlib.import_module(f"blotter.benchmarks.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"blotter.benchmarks.{name}":
-                continue
-            raise
-        click.echo(f"bench: {name} ...", err=True)
-        results.extend(module.run(quick))
+    with progress("bench", len(names)) as bar:
+        for done, name in enumerate(names):
+            try:
+                module = importlib.import_module(f"blotter.benchmarks.{name}")
+            except ModuleNotFoundError as exc:
+                if exc.name == f"blotter.benchmarks.{name}":
+                    continue
+                raise
+            bar.update(done, f"bench: {name}")
+            results.extend(module.run(quick))
     return results
 
 

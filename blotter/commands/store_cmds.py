@@ -29,6 +29,7 @@ from blotter.commands.common import (
     read_only_source,
     resolve_db,
 )
+from blotter.commands.progress import Progress, progress
 from blotter.printable import printable
 
 STDIN_NAME = "stdin"
@@ -52,6 +53,20 @@ def _import_file(file: str) -> Iterator[str]:
         path = Path(folder) / STDIN_NAME
         path.write_bytes(data)
         yield str(path)
+
+
+@contextmanager
+def _import_bar(path: str) -> Iterator[Progress]:
+    """Progress of importing ``path``, in rows written of its lines (``commands.progress``)."""
+    from pathlib import Path
+
+    try:
+        with open(path, "rb") as f:
+            lines = sum(1 for line in f if line.strip())
+    except OSError:
+        lines = 0  # the import says why it cannot read the file
+    with progress(f"importing {Path(path).name}", max(lines - 1, 0)) as bar:
+        yield bar
 
 
 @contextmanager
@@ -316,8 +331,8 @@ def trade_import(file: str, new_books: bool, as_json: bool, db_path: str | None)
     Each row's book must exist unless --new-books; a row whose trade_id is already in the book
     (an export of this book) is refused, since importing it again would double the position.
     """
-    with _store(db_path) as store, _import_file(file) as path:
-        rep = store.import_trades_csv(path, new_books=new_books)
+    with _store(db_path) as store, _import_file(file) as path, _import_bar(path) as bar:
+        rep = store.import_trades_csv(path, bar.update, new_books=new_books)
     _emit(
         as_json,
         {
@@ -513,8 +528,8 @@ def mark_divyield(symbol: str, q: str, as_json: bool, db_path: str | None) -> No
 def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
     """Import marks from a CSV FILE (the `mark list --csv` format; - reads standard input) as one
     set: every row or none."""
-    with _store(db_path) as store, _import_file(file) as path:
-        rep = store.import_marks_csv(path)
+    with _store(db_path) as store, _import_file(file) as path, _import_bar(path) as bar:
+        rep = store.import_marks_csv(path, bar.update)
     _emit(
         as_json,
         {"rows": rep.rows, "import_id": rep.import_id, "mark_set_id": rep.first_id},
