@@ -2,11 +2,10 @@
 
 from __future__ import annotations
 
-import importlib
-
 import click
 
 from blotter.benchmarks import BENCH_MODULES, Result
+from blotter.commands import optional_module
 from blotter.commands.common import print_json, print_table
 
 
@@ -19,12 +18,9 @@ def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
     results: list[Result] = []
     with progress("bench", len(names)) as bar:
         for done, name in enumerate(names):
-            try:
-                module = importlib.import_module(f"blotter.benchmarks.{name}")
-            except ModuleNotFoundError as exc:
-                if exc.name == f"blotter.benchmarks.{name}":
-                    continue
-                raise
+            module = optional_module(f"blotter.benchmarks.{name}")
+            if module is None:
+                continue
             bar.update(done, f"bench: {name}")
             results.extend(module.run(quick))
     return results
