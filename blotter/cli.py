@@ -6,18 +6,10 @@ report commands stay quick to start and usable where no terminal exists.
 
 from __future__ import annotations
 
-import sys
-
 import click
 
 from blotter.commands import register
 from blotter.commands.common import AppContext, start_log
-
-NO_TERMINAL = (
-    "no terminal (standard input or output is not one), so the app does not start; "
-    "use a command, e.g. blotter risk (blotter --help lists them)"
-)
-"""Said when ``blotter`` with no command runs in a pipe, a cron job or a script."""
 
 
 @click.group(invoke_without_command=True, context_settings={"help_option_names": ["-h", "--help"]})
@@ -43,8 +35,6 @@ def main(
     ctx.obj = AppContext(db_path=db_path, read_only=read_only, no_mouse=no_mouse)
     start_log(ctx, log_file)
     if ctx.invoked_subcommand is None:
-        if not (sys.stdin.isatty() and sys.stdout.isatty()):
-            raise click.ClickException(NO_TERMINAL)
         from blotter.commands.app import open_app
 
         open_app(ctx.obj)
