@@ -4,8 +4,11 @@ from __future__ import annotations
 
 import json
 import os
+import re
+import shutil
 import subprocess
 import sys
+from pathlib import Path
 
 import pytest
 
@@ -41,3 +44,20 @@ def test_a_completion_run_completes_without_numpy(words: str, cword: str, expect
     )
     assert expected in r.stdout.splitlines()
     assert json.loads(r.stderr.strip().splitlines()[-1]) == []
+
+
+def test_the_readme_s_completion_lines_give_a_script_for_each_shell() -> None:
+    readme = (Path(__file__).parents[2] / "README.md").read_text()
+    shells = re.findall(r"_BLOTTER_COMPLETE=(\w+)_source blotter", readme)
+    assert sorted(shells) == ["bash", "fish", "zsh"]
+    here = Path(sys.executable).with_name("blotter")
+    command = str(here) if here.exists() else shutil.which("blotter")
+    if not command:
+        pytest.skip("the blotter command is not installed")
+    for shell in shells:
+        env = dict(os.environ, _BLOTTER_COMPLETE=f"{shell}_source")
+        r = subprocess.run(  # the installed command: click names the variable after it
+            [command], env=env, capture_output=True,
+            text=True, timeout=60, check=True,
+        )
+        assert "_blotter_completion" in r.stdout and f"{shell}_complete" in r.stdout
