@@ -14,15 +14,16 @@ if TYPE_CHECKING:
     from blotter.config import Settings
 
 NO_TERMINAL = (
-    "no terminal (standard input or output is not one), so the app does not start; "
+    "no terminal (standard input, output or error is not one), so the app does not start; "
     "use a command, e.g. blotter risk (blotter --help lists them)"
 )
 """Said when ``blotter`` with no command runs in a pipe, a cron job or a script."""
 
 
 def has_terminal() -> bool:
-    """Whether standard input and output are both a terminal, as the app needs."""
-    return sys.stdin.isatty() and sys.stdout.isatty()
+    """Whether standard input, output and error are all a terminal: the app reads keys from
+    stdin and Textual draws on stderr, so a redirected stderr would receive the screen."""
+    return all(s is not None and s.isatty() for s in (sys.stdin, sys.stdout, sys.stderr))
 
 
 def open_app(ctx: AppContext) -> None:
