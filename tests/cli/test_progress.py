@@ -63,3 +63,26 @@ def test_piped_commands_print_no_progress(demo_db: Path, tmp_path: Path) -> None
     r = _blotter("trade", "import", str(trades), "--db", str(demo_db))
     assert r.returncode == 0, r.stderr
     assert r.stderr == "" and r.stdout.startswith("imported 1500 trades")
+
+
+def test_a_demo_build_tells_each_step_in_order(tmp_path: Path) -> None:
+    from blotter.store.demo import DEMO_STEPS, build_demo
+
+    told: list[tuple[float, str | None]] = []
+    build_demo(tmp_path / "d.db", positions=20, progress=lambda n, what: told.append((n, what)))
+    assert told == list(enumerate(DEMO_STEPS))
+
+
+def test_an_import_tells_rows_written(demo_db: Path, tmp_path: Path) -> None:
+    from blotter.store import PROGRESS_EVERY, open_store
+
+    rows = "".join(
+        f"equity-vol,DEMOA,C,2027-03-19,{100 + k},1,2.5,2026-11-20T15:00:00Z\n"
+        for k in range(2 * PROGRESS_EVERY + 5)
+    )
+    trades = tmp_path / "t.csv"
+    trades.write_text("book,symbol,type,expiry,strike,quantity,price,trade_time\n" + rows)
+    told: list[int] = []
+    with open_store(demo_db) as store:
+        store.import_trades_csv(trades, told.append)
+    assert told == [PROGRESS_EVERY, 2 * PROGRESS_EVERY]
