@@ -11,6 +11,7 @@ Example file::
     estimate_order = 2          # what the Move pane shows first: 1 or 2
     watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
     feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
+    log_file = "~/blotter.log"  # warnings and errors of imports and the store, with UTC times
 
     [alerts]
     error_pct = 10.0            # flag an estimate whose |error| exceeds this % of |full change|
@@ -77,6 +78,7 @@ class Settings:
     read_only: bool = False
     no_mouse: bool = False
     feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
+    log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
 
     @property
     def tz(self) -> ZoneInfo:

@@ -2,29 +2,27 @@
 
 from __future__ import annotations
 
-import importlib
-
 import click
 
 from blotter.benchmarks import BENCH_MODULES, DEFAULT_MODULES, Result
+from blotter.commands import optional_module
 from blotter.commands.common import print_json, print_table
 
 
 def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
     """Results of the default benchmark modules present (or those named in ``only``), in
-    order."""
+    order; a bar on a terminal names the group running (``commands.progress``)."""
+    from blotter.commands.progress import progress
+
+    names = [name for name in BENCH_MODULES if name in (only or DEFAULT_MODULES)]
     results: list[Result] = []
-    for name in BENCH_MODULES:
-        if name not in (only or DEFAULT_MODULES):
-            continue
-        try:
-            module = importlib.import_module(f"blotter.benchmarks.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"blotter.benchmarks.{name}":
+    with progress("bench", len(names)) as bar:
+        for done, name in enumerate(names):
+            module = optional_module(f"blotter.benchmarks.{name}")
+            if module is None:
                 continue
-            raise
-        click.echo(f"bench: {name} ...", err=True)
-        results.extend(module.run(quick))
+            bar.update(done, f"bench: {name}")
+            results.extend(module.run(quick))
     return results
 
 

@@ -25,11 +25,11 @@ from blotter.commands.common import (
     note_first_compile,
     open_for_reading,
     output_options,
-    print_csv,
     print_json,
     print_table,
     resolve_db,
 )
+from blotter.commands.xlsx import table_out, wants_xlsx, xlsx_option
 from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
@@ -428,6 +428,7 @@ def _risk_cells(row: ExposureRow, vega_scale: float) -> list[str]:
 )
 @_at_option
 @output_options
+@xlsx_option
 def risk(
     db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: bool, as_csv: bool
 ) -> None:
@@ -486,12 +487,12 @@ def risk(
         out["notes"] = list(v.notes)
         print_json(out | _unvalued_json(v.unvalued))
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
         if by == "position":
             dicts = _position_dicts(v)
             cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS, "currency"]
-            print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
+            table_out(cols, ([d.get(c) for c in cols] for d in dicts), "risk by position")
             return
         cols = [by, "spot", *EXPOSURE_FIELDS, "currency"]
         data = [
@@ -503,7 +504,7 @@ def risk(
              r.currency]
             for r in per_ccy or [tot]
         ]
-        print_csv(cols, data)
+        table_out(cols, data, f"risk by {by}")
         return
     scale = v.vega_scale
     first = {
@@ -613,6 +614,7 @@ def _move_row_cells(r: Any) -> list[str]:
 @click.argument("move", nargs=-1, required=True)
 @_at_option
 @output_options
+@xlsx_option
 def whatif(
     db_path: str | None, move: tuple[str, ...], at: str | None, as_json: bool, as_csv: bool
 ) -> None:
@@ -655,7 +657,7 @@ def whatif(
         }
         print_json(out | _unvalued_json(v.unvalued))
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
         cols = [
             "underlying",
@@ -686,7 +688,7 @@ def whatif(
             ]
             for label, r in _csv_labelled(res.by_underlying, res.by_currency, res.total)
         ]
-        print_csv(cols, rows)
+        table_out(cols, rows, "whatif")
         return
     shown = _labelled(res.by_underlying, res.by_currency, res.total, _total_label(v.unvalued))
     ccy_head = ["ccy"] if several else []
@@ -802,6 +804,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
 )
 @_at_option
 @output_options
+@xlsx_option
 def ladder(
     db_path: str | None,
     spot_list: str | None,
@@ -854,9 +857,9 @@ def ladder(
             | _unvalued_json(v.unvalued)
         )
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
-        print_csv(
+        table_out(
             ["spot_pct", "vol_pts", "full", "estimate", "error", "rule", "currency"],
             (
                 [sp[a], vp[b], g.full[a, b], g.estimate[a, b], g.error[a, b], g.rule, g.currency]
@@ -864,6 +867,7 @@ def ladder(
                 for a in range(len(sp))
                 for b in range(len(vp))
             ),
+            "ladder",
         )
         return
     heads = ["spot % \\ vol pts", *(f"{x:+g}" for x in vp)]
@@ -965,6 +969,7 @@ def _set_words(s: Any, t: Any) -> str:
     help="End mark set id, or 'now' for the marks in force now. Default: the last close.",
 )
 @output_options
+@xlsx_option
 def explain(
     db_path: str | None, from_set: int | None, to_set: str | None, as_json: bool, as_csv: bool
 ) -> None:
@@ -1024,7 +1029,7 @@ def explain(
         "corrections",
         "currency",
     ]
-    if as_csv:
+    if as_csv or wants_xlsx():
         data = [
             [
                 label,
@@ -1040,7 +1045,7 @@ def explain(
             for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
         ]
         _say_unvalued(ex.unvalued, table=False)
-        print_csv(cols, data)
+        table_out(cols, data, "explain")
         return
     frm = ex.from_set
     to = ex.to_set
