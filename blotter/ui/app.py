@@ -1,4 +1,4 @@
-"""The blotter terminal app: header, Book pane, Move/Ladder/Profile panes, what-if bar, footer.
+"""The blotter terminal app: header, Book pane, Move/Grid/Profile panes, what-if bar, footer.
 
 ``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
 All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
@@ -51,8 +51,8 @@ from blotter.ui.screens.trades import TradesScreen
 from blotter.ui.screens.watch import WatchScreen
 from blotter.ui.timings import Timing, Timings
 from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.header_line import HeaderLine
-from blotter.ui.widgets.ladder_pane import LadderPane
 from blotter.ui.widgets.move_pane import MovePane
 from blotter.ui.widgets.profile_pane import ProfilePane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
@@ -82,9 +82,9 @@ MIN_WIDTH, MIN_HEIGHT = 60, 18
 """Below this size the app shows one line saying what size it needs."""
 
 WIDE_WIDTH = 140
-"""From this width the Ladder and Profile panes sit beside the Book and Move panes."""
+"""From this width the Grid and Profile panes sit beside the Book and Move panes."""
 
-PANES = ("move", "ladder", "profile")
+PANES = ("move", "grid", "profile")
 """Panes the pane key cycles through on narrow terminals."""
 
 GREEKS = (
@@ -158,7 +158,7 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
-            yield LadderPane()
+            yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield ProfilePane()
         yield WhatIfBar()
@@ -478,7 +478,7 @@ class BlotterApp(App[None]):
         self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
         self._stamp_move_painted()
         days = self._roll_days(message.move)
-        if days != previous_days or self.query_one(LadderPane).ladder is None:
+        if days != previous_days or self.query_one(GridPane).ladder is None:
             self.start_ladder(self.state, days)
             self.start_profile()
 
@@ -508,7 +508,7 @@ class BlotterApp(App[None]):
         exclusive=True,
         group="ladder",
         exit_on_error=False,
-        description="spot × vol ladder",
+        description="spot × vol grid",
     )
     def compute_ladder(self, state: data.BookState, days: float) -> None:
         """The spot × vol ladder with the bar's day roll."""
@@ -524,7 +524,7 @@ class BlotterApp(App[None]):
             )
         except (ValueError, KeyError) as exc:
             if not worker.is_cancelled:
-                self.post_message(LoadFailed(f"ladder: {exc}"))
+                self.post_message(LoadFailed(f"grid: {exc}"))
             return
         breaches = limits.ladder_breaches(
             state.valuation,
@@ -541,7 +541,7 @@ class BlotterApp(App[None]):
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
-            self.query_one(LadderPane).show(message.ladder, message.days, partial)
+            self.query_one(GridPane).show(message.ladder, message.days, partial)
             before, self.ladder_breaches = self.ladder_breaches, message.breaches
             if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
@@ -727,7 +727,7 @@ class BlotterApp(App[None]):
             self._stamp_move_painted()
 
     def action_next_grid(self) -> None:
-        self.query_one(LadderPane).next_grid()
+        self.query_one(GridPane).next_grid()
 
     def action_next_greek(self) -> None:
         ids = [g[0] for g in GREEKS]

@@ -46,7 +46,7 @@ KEYS: tuple[KeySpec, ...] = (
     ),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec(
-        "pane", "next_pane", "v,f7", "Show the next pane (Move, Ladder, Profile)", short="Pane"
+        "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Profile)", short="Pane"
     ),
     KeySpec(
         "expand",
@@ -68,7 +68,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate"
     ),
-    KeySpec("grid", "next_grid", "x,f8", "Ladder: full P&L, estimate or error grid"),
+    KeySpec("grid", "next_grid", "x,f8", "Grid: full P&L, greeks' estimate or error"),
     KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ $, Γ 1%, vega or θ day"),
     KeySpec("axis", "toggle_axis", "a,ctrl+t", "Profile: against spot or days forward"),
     KeySpec("scope", "toggle_scope", "p,ctrl+g", "Profile: whole book or the selected row"),

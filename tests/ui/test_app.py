@@ -178,7 +178,7 @@ async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterAp
         def shown() -> list[str]:
             return [
                 p
-                for p in ("move", "ladder", "profile")
+                for p in ("move", "grid", "profile")
                 if demo_app.query_one(f"#{p}-pane").display
                 and demo_app.query_one(f"#{p}-pane").region.height > 0
             ]
@@ -186,14 +186,14 @@ async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterAp
         assert shown() == ["move"]
         await pilot.press("v")
         await pilot.pause()
-        assert shown() == ["ladder"]
+        assert shown() == ["grid"]
         await pilot.press("f7")
         await pilot.pause()
         assert shown() == ["profile"]
         await pilot.resize_terminal(160, 48)
         await pilot.pause()
         assert demo_app.screen.has_class("-wide")
-        assert sorted(shown()) == ["ladder", "move", "profile"]
+        assert sorted(shown()) == ["grid", "move", "profile"]
 
 
 async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
@@ -201,7 +201,7 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
     async with app.run_test(size=(160, 48)) as pilot:
         await settle(app, pilot)
         await type_move(app, pilot, "days 2")
-        ladder_pane = app.query_one("#ladder-pane")
+        ladder_pane = app.query_one("#grid-pane")
         state = app.state
         assert state is not None
         expected = scenario.ladder(

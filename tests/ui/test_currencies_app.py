@@ -15,7 +15,7 @@ from blotter.ui.app import make_app
 from blotter.ui.fmt import NOT_ADDITIVE
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.widgets.book_table import BookTable
-from blotter.ui.widgets.ladder_pane import LadderPane
+from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.move_pane import MovePane
 
 from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
@@ -92,7 +92,7 @@ async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: 
                 row.full, abs=0.5
             )
 
-        ladder = app.query_one(LadderPane)
+        ladder = app.query_one(GridPane)
         grids = scenario.ladders(
             v, TEST_SETTINGS.ladder_spot_pcts, TEST_SETTINGS.ladder_vol_pts
         )

@@ -73,7 +73,7 @@ def test_move_pane_bad_line(snap_compare: Any, demo_db: Path) -> None:
     )
 
 
-def test_ladder_pane(snap_compare: Any, demo_db: Path) -> None:
+def test_grid_pane(snap_compare: Any, demo_db: Path) -> None:
     assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f7", move="days 1"))
 
 
