@@ -1,4 +1,4 @@
-"""The blotter terminal app: header, Book pane, Move/Grid/Profile panes, what-if bar, footer.
+"""The blotter terminal app: header, Book pane, Move/Grid/Reval panes, what-if bar, footer.
 
 ``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
 All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
@@ -54,7 +54,7 @@ from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.header_line import HeaderLine
 from blotter.ui.widgets.move_pane import MovePane
-from blotter.ui.widgets.profile_pane import ProfilePane
+from blotter.ui.widgets.reval_pane import RevalPane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 
 if TYPE_CHECKING:
@@ -82,9 +82,9 @@ MIN_WIDTH, MIN_HEIGHT = 60, 18
 """Below this size the app shows one line saying what size it needs."""
 
 WIDE_WIDTH = 140
-"""From this width the Grid and Profile panes sit beside the Book and Move panes."""
+"""From this width the Grid and Reval panes sit beside the Book and Move panes."""
 
-PANES = ("move", "grid", "profile")
+PANES = ("move", "grid", "reval")
 """Panes the pane key cycles through on narrow terminals."""
 
 GREEKS = (
@@ -94,7 +94,7 @@ GREEKS = (
     ("vega", "vega", "vega_pt"),
     ("theta", "θ day", "theta_day"),
 )
-"""Profile choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+"""Reval pane choices: (id, label, risk field); P&L is the change in value by full revaluation."""
 
 
 def _utc_now() -> datetime:
@@ -160,7 +160,7 @@ class BlotterApp(App[None]):
                 yield BookTable()
             yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
-            yield ProfilePane()
+            yield RevalPane()
         yield WhatIfBar()
         yield Footer(compact=True)
 
@@ -578,7 +578,7 @@ class BlotterApp(App[None]):
         rows: np.ndarray | None,
         label: str,
     ) -> None:
-        """Curves for the Profile pane (see ``data.profile``)."""
+        """Curves for the Reval pane (see ``data.profile``)."""
         worker = get_current_worker()
         try:
             profile = data.profile(state.valuation, self.settings, greek, axis, days, rows, label)
@@ -591,7 +591,7 @@ class BlotterApp(App[None]):
 
     def on_profile_ready(self, message: ProfileReady) -> None:
         if message.book_seq == self.book_seq:
-            self.query_one(ProfilePane).show(message.profile)
+            self.query_one(RevalPane).show(message.profile)
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:

@@ -46,7 +46,7 @@ KEYS: tuple[KeySpec, ...] = (
     ),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec(
-        "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Profile)", short="Pane"
+        "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Reval)", short="Pane"
     ),
     KeySpec(
         "expand",
@@ -69,9 +69,11 @@ KEYS: tuple[KeySpec, ...] = (
         "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate"
     ),
     KeySpec("grid", "next_grid", "x,f8", "Grid: full P&L, greeks' estimate or error"),
-    KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ $, Γ 1%, vega or θ day"),
-    KeySpec("axis", "toggle_axis", "a,ctrl+t", "Profile: against spot or days forward"),
-    KeySpec("scope", "toggle_scope", "p,ctrl+g", "Profile: whole book or the selected row"),
+    KeySpec(
+        "greek", "next_greek", "k,f9", "Reval: P&L (full vs estimate), Δ $, Γ 1%, vega or θ day"
+    ),
+    KeySpec("axis", "toggle_axis", "a,ctrl+t", "Reval: across spot or over days forward"),
+    KeySpec("scope", "toggle_scope", "p,ctrl+g", "Reval: whole book or the selected row"),
     KeySpec("reload", "reload", "r,ctrl+r", "Reload the book and marks from the file"),
     KeySpec(
         "marks",

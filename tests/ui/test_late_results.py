@@ -53,7 +53,7 @@ def app_results(app: BlotterApp) -> dict[str, Callable[[], Message]]:
     state, result = app.state, app.result
     assert state is not None and result is not None
     ladder = app.query_one(GridPane).ladder
-    profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+    profile = app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
     return {
         "BookLoaded": lambda: BookLoaded(state),
         "LoadProgress": lambda: LoadProgress(1),
