@@ -10,18 +10,19 @@ from __future__ import annotations
 
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 from textual import on, work
-from textual.app import App, ComposeResult
+from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
+from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import get_current_worker
 
@@ -47,6 +48,7 @@ from blotter.ui.screens.base import DeskScreen
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.screens.marks import MarksScreen
+from blotter.ui.screens.palette import ActionList, action_commands
 from blotter.ui.screens.trades import TradesScreen
 from blotter.ui.screens.watch import WatchScreen
 from blotter.ui.timings import Timing, Timings
@@ -106,7 +108,8 @@ class BlotterApp(App[None]):
 
     CSS_PATH = "app.tcss"
     TITLE = "blotter"
-    ENABLE_COMMAND_PALETTE = False
+    ENABLE_COMMAND_PALETTE = True  # the action list, on the "actions" keys of keys.KEYS
+    COMMAND_PALETTE_BINDING = "colon"
     HORIZONTAL_BREAKPOINTS = [  # noqa: RUF012 - Textual's own class attribute
         (0, "-narrow"),
         (WIDE_WIDTH, "-wide"),
@@ -147,6 +150,7 @@ class BlotterApp(App[None]):
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
+        self._actions: list[SystemCommand] = []  # the action list's entries as it opened
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
 
@@ -755,6 +759,18 @@ class BlotterApp(App[None]):
     async def action_quit(self) -> None:
         self._stop_watch.set()
         self.exit()
+
+    def get_system_commands(self, screen: Screen[Any]) -> Iterator[SystemCommand]:
+        """The action list's entries: every action bound where it was opened, by its words
+        (read as it opens: once it is up, the screen below no longer has the app's keys)."""
+        return iter(self._actions) if self._actions else action_commands(screen)
+
+    def action_command_palette(self) -> None:
+        """Open the action list (Textual's palette, F10 or Escape to close)."""
+        if not isinstance(self.screen, ActionList):
+            self._actions = list(action_commands(self.screen))
+            placeholder = "Type words of an action (F10 or Escape closes)…"
+            self.push_screen(ActionList(id="--command-palette", placeholder=placeholder))
 
     # -- for tests and the bench ----------------------------------------------------------------
     async def settle(self) -> None:

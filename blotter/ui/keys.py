@@ -109,6 +109,12 @@ KEYS: tuple[KeySpec, ...] = (
         "w,ctrl+backslash",
         "List options expiring this week, pin risk and limit breaches",
     ),
+    KeySpec(
+        "actions",
+        "command_palette",
+        "colon,ctrl+e",
+        "List every action by its words; type some to find one",
+    ),
     KeySpec("quit", "quit", "q,f10", "Quit", short="Quit"),
     KeySpec("history-back", "history(-1)", "up,ctrl+p", "Bar: previous move", where="bar"),
     KeySpec("history-forward", "history(1)", "down,ctrl+n", "Bar: next move", where="bar"),
@@ -280,6 +286,7 @@ KEY_NAMES = {
     "tab": "Tab",
     "shift+tab": "Shift+Tab",
     "backslash": "\\",
+    "colon": ":",
 }
 """How the help screen and footer write Textual key names."""
 
