@@ -99,6 +99,10 @@ GREEKS = (
 """Reval pane choices: (id, label, risk field); P&L is the change in value by full revaluation."""
 
 
+TEXTUAL_THEMES = {"dark": "textual-dark", "light": "textual-light"}
+"""The Textual theme drawing each of ``config.THEMES``."""
+
+
 def _utc_now() -> datetime:
     return datetime.now(UTC)
 
@@ -153,6 +157,7 @@ class BlotterApp(App[None]):
         self._actions: list[SystemCommand] = []  # the action list's entries as it opened
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
+        self.theme = TEXTUAL_THEMES[self.settings.theme]
 
     # -- layout ---------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:

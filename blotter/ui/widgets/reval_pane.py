@@ -27,12 +27,12 @@ PATTERNS = {
 """Dash pattern by (kind, after the day roll), so curves differ without colour."""
 
 COLOURS = {
-    ("full", False): "primary",
-    ("estimate", False): "warning",
-    ("full", True): "success",
-    ("estimate", True): "error",
+    ("full", False): "text-primary",
+    ("estimate", False): "text-warning",
+    ("full", True): "text-success",
+    ("estimate", True): "text-error",
 }
-"""Theme colour by (kind, after the day roll)."""
+"""Theme colour by (kind, after the day roll): the theme's text shades, legible on its ground."""
 
 
 class RevalChart(Widget):
@@ -66,7 +66,7 @@ class RevalChart(Widget):
             x_tick=_spot_tick if profile.axis == "spot" else _day_tick,
             gap=gap,
             gap_name="gap: the estimate's error",
-            gap_style=f"dim {theme.get('error', '')}",
+            gap_style=theme.get("text-error", ""),
             axis_style="dim",
         )
 
