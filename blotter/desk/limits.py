@@ -2,9 +2,9 @@
 
 Book limits apply to the book's total (and each currency's total when there are several),
 per-underlying limits to each underlying: |Δ $|, |vega| per vol point and the worst cell of the
-spot × vol ladder. A limit of 0 is no limit. Breaches come back in words, for the app's header,
-its Book rows and the watch list alike. The watch list also names the options expiring by the end
-of the coming Sunday, with pin risk flagged (``scenario.apply_move`` rolled that far).
+spot × vol grid. A limit of 0 is no limit. Breaches come back in words, for the app's header,
+its Book rows and the Flags screen alike. The Flags screen also names the options expiring by
+the end of the coming Sunday, with pin risk flagged (``scenario.apply_move`` rolled that far).
 """
 
 from __future__ import annotations

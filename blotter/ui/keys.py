@@ -107,7 +107,7 @@ KEYS: tuple[KeySpec, ...] = (
         "watch-list",
         "watch_list",
         "w,ctrl+backslash",
-        "List options expiring this week, pin risk and limit breaches",
+        "Flags: options expiring this week, pin risk and limit breaches",
     ),
     KeySpec(
         "actions",
@@ -264,7 +264,7 @@ KEYS: tuple[KeySpec, ...] = (
         where="explain",
     ),
     KeySpec(
-        "list-back", "back", "q,w,f10", "Watch list: back to the book", short="Back", where="list"
+        "list-back", "back", "q,w,f10", "Flags: back to the book", short="Back", where="list"
     ),
     KeySpec(
         "help-close",

@@ -1,6 +1,6 @@
 """Pilot tests of the desk screens on a demo copy: typing marks (a number, an option price, a
 refused value), the close (written, and refused by a busy file with nothing typed lost), adding,
-cancelling and amending trades, trial trades, the Explain screen, the watch list, read-only,
+cancelling and amending trades, trial trades, the Explain screen, the Flags screen, read-only,
 and another process's commit showing in the running app."""
 
 from __future__ import annotations
@@ -624,6 +624,8 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
         await pilot.press("w")
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
+        title = str(app.screen.query_one(".desk-title").render())
+        assert title.startswith("Flags: expiring this week")
         assert "book worst grid cell" in text and "DEMOA |vega| over 1" in text
         days = limits.days_to_week_end(frozen_clock(), app.tz)
         assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
