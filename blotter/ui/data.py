@@ -396,12 +396,12 @@ def profile(
     legend: dict[str, tuple[str, str]] = {}
     for curve in curves.curves:
         date = "" if curve.days is None else today if curve.days == 0 else later
-        short = curve.kind if greek == "pnl" else "" if date else y_label.split(" (")[0]
+        short = curve.kind if greek == "pnl" else y_label.split(" (")[0]
         short = " ".join(w for w in (short, curve.currency) if w)
         name = " ".join(w for w in (date, short) if w)
         series[name] = curve.ys
         kinds[name] = (curve.kind, bool(curve.days))
-        legend[name] = (date, short or "all positions")
+        legend[name] = (date, short)
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
     across = "across spot" if axis == "spot" else f"over days from {today}"
     title = f"Reval: {names[greek]} of {label} {across}"

@@ -237,7 +237,7 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
         mid = len(profile.xs) // 2
         assert profile.xs[mid] == 0.0
         delta_cash = risk.total(state.valuation).delta_cash
-        assert profile.series[str(FROZEN_DAY)][mid] == pytest.approx(delta_cash)
+        assert profile.series[f"{FROZEN_DAY} Δ $"][mid] == pytest.approx(delta_cash)
 
 
 async def test_too_small_says_what_size_is_needed(demo_app: BlotterApp) -> None:
