@@ -11,6 +11,7 @@ Example file::
     estimate_order = 2          # what the Move pane shows first: 1 or 2
     watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
     theme = "dark"              # the app's colours: "dark" or "light" (NO_COLOR is honoured too)
+    feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
 
     [alerts]
     error_pct = 10.0            # flag an estimate whose |error| exceeds this % of |full change|
@@ -77,6 +78,7 @@ class Settings:
     read_only: bool = False
     no_mouse: bool = False
     theme: str = "dark"  # one of THEMES
+    feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
 
     @property
     def tz(self) -> ZoneInfo:
@@ -241,6 +243,13 @@ def _validate(settings: Settings) -> Settings:
             raise ConfigError(f"{name} must be a finite number, not {value!r}")
     if settings.watch_interval_s < 0 or settings.debounce_ms < 0:
         raise ConfigError("watch_interval_s and debounce_ms must not be negative")
+    if settings.feed_throttle_s < 0:
+        raise ConfigError("feed_throttle_s must not be negative (seconds)")
+    if settings.feed_throttle_s > MAX_WATCH_INTERVAL_S:
+        raise ConfigError(
+            f"feed_throttle_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), "
+            f"not {settings.feed_throttle_s:g}"
+        )
     if settings.watch_interval_s > MAX_WATCH_INTERVAL_S:
         raise ConfigError(
             f"watch_interval_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), or 0 to never "

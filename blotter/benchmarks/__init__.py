@@ -14,8 +14,11 @@ from typing import Any
 
 import numpy as np
 
-BENCH_MODULES = ("engine", "store", "risk", "app")
-"""Modules of this package that provide cases, run in this order when present."""
+BENCH_MODULES = ("engine", "store", "risk", "app", "cluster")
+"""Modules of this package that provide cases, in this order when present."""
+
+DEFAULT_MODULES = ("engine", "store", "risk", "app")
+"""The groups a plain ``blotter bench`` runs; the others only when named with ``--only``."""
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,7 @@ import importlib
 
 import click
 
-COMMAND_MODULES = ("bench", "store_cmds", "setup_cmds", "report", "demo_cmd")
+COMMAND_MODULES = ("bench", "store_cmds", "setup_cmds", "report", "demo_cmd", "feed_cmd")
 """Modules that define ``COMMANDS``: a list of click commands or groups to add to the group."""
 
 

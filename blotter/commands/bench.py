@@ -6,15 +6,16 @@ import importlib
 
 import click
 
-from blotter.benchmarks import BENCH_MODULES, Result
+from blotter.benchmarks import BENCH_MODULES, DEFAULT_MODULES, Result
 from blotter.commands.common import print_json, print_table
 
 
 def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
-    """Results of every benchmark module present (or those named in ``only``), in order."""
+    """Results of the default benchmark modules present (or those named in ``only``), in
+    order."""
     results: list[Result] = []
     for name in BENCH_MODULES:
-        if only and name not in only:
+        if name not in (only or DEFAULT_MODULES):
             continue
         try:
             module = importlib.import_module(f"blotter.benchmarks.{name}")
@@ -48,7 +49,7 @@ def _fmt_ratio(ratio: float | None, reference: str | None) -> str:
 @click.option("--json", "as_json", is_flag=True, help="Print {\"results\": [...]} as JSON.")
 @click.option("--quick", is_flag=True, help="Small sizes and few repetitions (a smoke test).")
 @click.option("--only", multiple=True, type=click.Choice(BENCH_MODULES),
-              help="Run only these groups (repeatable).")
+              help="Run only these groups (repeatable); cluster (minutes) runs only when named.")
 def bench(as_json: bool, quick: bool, only: tuple[str, ...]) -> None:
     """Time valuation, loading, what-if and scenario grid on random books; medians of one run.
 

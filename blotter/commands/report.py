@@ -785,6 +785,21 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     show_default=True,
     help="How vols follow spot: sticky strike, or sticky moneyness (the smile moves with spot).",
 )
+@click.option(
+    "--workers",
+    type=click.IntRange(min=1, max=1024),
+    default=None,
+    help="Processes to share the grid (default: one per core from 1,000,000 positions, "
+    "else this process alone).",
+)
+@click.option(
+    "--cluster",
+    metavar="ADDRESS",
+    envvar="BLOTTER_CLUSTER",
+    default=None,
+    help="Run the grid on the Dask cluster at ADDRESS (tcp://host:port; $BLOTTER_CLUSTER); "
+    'needs pip install "blotter[cluster]".',
+)
 @_at_option
 @output_options
 def grid(
@@ -793,6 +808,8 @@ def grid(
     vol_list: str | None,
     days: float,
     rule: str,
+    workers: int | None,
+    cluster: str | None,
     at: str | None,
     as_json: bool,
     as_csv: bool,
@@ -806,7 +823,6 @@ def grid(
     """
     from blotter import calendar as cal
     from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS
-    from blotter.scenario import ladders as run_ladders
 
     check_output_flags(as_json, as_csv)
     sp = _float_list(spot_list, DEFAULT_SPOT_PCTS, "--spot")
@@ -817,7 +833,7 @@ def grid(
         check_option(limits.MOVE_VOL_PTS, x, "--vol", signed=True)
     store = _open(db_path)
     v = _value(store, at)
-    lads = run_ladders(v, sp, vp, days=days, rule=f"sticky {rule}")
+    lads = _run_grid(v, sp, vp, days, f"sticky {rule}", workers, cluster)
     lad = lads[0]
     if as_json:
         grids = {g.currency: _ladder_grids(g, sp, vp) for g in lads if g.currency}
@@ -1081,6 +1097,29 @@ def explain(
     for note in ex.notes:
         click.echo(note)
     _say_unvalued(ex.unvalued, table=True)
+
+
+def _run_grid(
+    v: Any,
+    sp: list[float],
+    vp: list[float],
+    days: float,
+    rule: str,
+    workers: int | None,
+    cluster: str | None,
+) -> list[Any]:
+    """The grids of valuation ``v``: in this process, or sharded over a local process pool or a
+    Dask cluster (``scenario.sharded.grid_executor``)."""
+    from blotter.scenario import ladders
+    from blotter.scenario.sharded import ClusterUnavailable, grid_executor, sharded_ladders
+
+    try:
+        with grid_executor(len(v), workers, cluster) as executor:
+            if executor is None:
+                return ladders(v, sp, vp, days=days, rule=rule)
+            return sharded_ladders(v, executor, sp, vp, days, rule)
+    except ClusterUnavailable as exc:
+        raise click.ClickException(str(exc)) from None
 
 
 def _old_name(command: click.Command, old: str, until: str) -> click.Command:

@@ -162,6 +162,19 @@ class BoundaryCache:
         with self._lock:
             return len(self._items)
 
+    def __getstate__(self) -> dict[str, object]:
+        """The cache without its lock: a process or a cluster worker unpickles its own copy of
+        the boundaries solved so far."""
+        with self._lock:
+            state = dict(self.__dict__)
+            state["_items"] = OrderedDict(self._items)
+        del state["_lock"]
+        return state
+
+    def __setstate__(self, state: dict[str, object]) -> None:
+        self.__dict__.update(state)
+        self._lock = threading.Lock()
+
     def find(self, rate: float, div: float, tau: float, lo: float, hi: float) -> Boundary | None:
         """A boundary serving (rate, div, τ) for ln-vols [lo, hi], or None."""
         with self._lock:

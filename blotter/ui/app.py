@@ -24,7 +24,7 @@ from textual.events import Paste, Resize
 from textual.message import Message
 from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
-from textual.worker import get_current_worker
+from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
 from blotter.config import Settings
 from blotter.desk import limits, session
@@ -150,6 +150,8 @@ class BlotterApp(App[None]):
         self.data_version: int | None = None
         self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
+        self._loading = False  # a load runs: a new request waits for it (``load_book``)
+        self._load_again = False  # a load was asked for while one ran
         self._stop_watch = threading.Event()
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
@@ -232,7 +234,16 @@ class BlotterApp(App[None]):
 
     # -- loading --------------------------------------------------------------------------------
     def load_book(self) -> None:
-        """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s."""
+        """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s.
+
+        While a load runs, a new request does not cancel it (under a feed committing every
+        second, a load slower than a second would never finish): the running load is shown
+        when done and one more load, of everything asked for meanwhile, follows it."""
+        if self._loading:
+            self._load_again = True
+            return
+        self._loading = True
+        self._load_again = False
         self._load_seq += 1
         seq = self._load_seq
         self._load_worker()
@@ -305,6 +316,22 @@ class BlotterApp(App[None]):
         if self.state is None:
             return []
         return limits.breaches(self.state.valuation, self.settings.alerts, self.ladder_breaches)
+
+    def _load_done(self) -> None:
+        """A load ended: start the one asked for while it ran, if any."""
+        self._loading = False
+        if self._load_again:
+            self.load_book()
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        """A load worker ended (done, failed or cancelled): after its result was shown, start
+        the load asked for while it ran (``load_book``)."""
+        if event.worker.group == "load" and event.state in (
+            WorkerState.SUCCESS,
+            WorkerState.ERROR,
+            WorkerState.CANCELLED,
+        ):
+            self._load_done()
 
     def on_book_loaded(self, message: BookLoaded) -> None:
         self._hide_progress()
@@ -782,7 +809,10 @@ class BlotterApp(App[None]):
         """Wait until every worker but the store watcher is done (tests and the bench)."""
         busy = [w for w in self.workers if w.group != "watch" and not w.is_finished]
         for w in busy:
-            await w.wait()
+            try:
+                await w.wait()
+            except WorkerCancelled:
+                continue  # replaced by a newer worker of its group, which is waited for next
 
 
 def make_app(

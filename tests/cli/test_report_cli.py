@@ -262,6 +262,21 @@ def test_ladder_json(demo_db: Path) -> None:
     assert full[1, 3] == pytest.approx(res.total.full, rel=1e-9)
 
 
+def test_ladder_on_worker_processes_equals_this_process(demo_db: Path) -> None:
+    """``--workers 2`` shards the positions over two processes; the grids sum to the same."""
+    here = _json(["grid", "--db", str(demo_db), "--at", AT])
+    pool = _json(["grid", "--db", str(demo_db), "--at", AT, "--workers", "2"])
+    for key in ("full", "estimate", "error"):
+        np.testing.assert_allclose(np.array(pool[key]), np.array(here[key]), rtol=1e-9, atol=1e-6)
+    assert pool["worst"] == here["worst"]
+
+
+def test_ladder_on_an_unreachable_cluster_is_refused_in_words(demo_db: Path) -> None:
+    pytest.importorskip("distributed", reason="the cluster extra is not installed")
+    out = _run(["grid", "--db", str(demo_db), "--at", AT, "--cluster", "tcp://127.0.0.1:9"], 1)
+    assert "cannot reach the cluster at tcp://127.0.0.1:9" in out.output
+
+
 def test_ladder_options_table_and_errors(demo_db: Path) -> None:
     out = _json(
         [

@@ -746,6 +746,48 @@ async def test_a_slow_load_shows_a_progress_bar(demo_db: Path) -> None:
         assert not bar.has_class("-shown") and app.state is not None
 
 
+async def test_commits_during_a_slow_load_do_not_cancel_it(demo_db: Path) -> None:
+    """Under a feed, commits arrive faster than a large book loads: each load runs to its end
+    and is shown, and every request made while it ran is served by one more load (before, each
+    commit cancelled the running load, and the pane froze until the commits stopped)."""
+    import threading
+
+    from blotter.ui.app import BlotterApp
+
+    st = open_ro(demo_db)
+    try:
+        book, market = st.load_book(), st.load_market()
+    finally:
+        st.close()
+    gate = threading.Semaphore(0)
+    calls: list[int] = []
+
+    def slow() -> tuple[Any, Any, int]:
+        calls.append(len(calls))
+        gate.acquire(timeout=10)
+        return book, market, len(calls)
+
+    app = BlotterApp(str(demo_db), TEST_SETTINGS, clock=frozen_clock, loader=slow)
+    async with app.run_test(size=(80, 24)) as pilot:
+        for _ in range(200):
+            await pilot.pause(0.01)
+            if calls:
+                break
+        for _ in range(5):  # five commits seen while the first load waits
+            app.load_book()
+            await pilot.pause(0.01)
+        assert len(calls) == 1, "a request while a load runs must not start another"
+        gate.release()  # the first load ends and is shown ...
+        for _ in range(300):
+            await pilot.pause(0.01)
+            if len(calls) == 2:
+                break
+        assert app.state is not None and app.state.data_version == 1
+        gate.release()  # ... then exactly one more load serves the five requests
+        await settle(app, pilot)
+        assert len(calls) == 2 and app.state.data_version == 2
+
+
 RAW_CONTROLS = re.compile("[\x00-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
 """Characters that drive a terminal (C0, DEL, C1) or reorder text (bidirectional controls)."""
 
