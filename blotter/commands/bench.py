@@ -49,7 +49,7 @@ def _fmt_ratio(ratio: float | None, reference: str | None) -> str:
 @click.option("--only", multiple=True, type=click.Choice(BENCH_MODULES),
               help="Run only these groups (repeatable); cluster (minutes) runs only when named.")
 def bench(as_json: bool, quick: bool, only: tuple[str, ...]) -> None:
-    """Time valuation, loading, what-if and ladder on random books; medians of one run.
+    """Time valuation, loading, what-if and scenario grid on random books; medians of one run.
 
     Each row gives the median time per position (min and max beside it), the target where one is
     set, and where QuantLib is installed the ratio of its per-option loop to ours.

@@ -1,4 +1,4 @@
-"""``blotter risk``, ``whatif``, ``ladder``, ``explain``: risk reports for people and scripts.
+"""``blotter risk``, ``whatif``, ``grid``, ``explain``: risk reports for people and scripts.
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
 now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in each underlying's
@@ -42,7 +42,7 @@ RULE_NOTES = {
     "sticky moneyness": "vols sticky moneyness: each option takes the marked vol at its K/S "
     "on the moved spot",
 }
-"""Said under every ladder and what-if output, by vol rule."""
+"""Said under every grid and what-if output, by vol rule."""
 
 
 def _rule_note(rule: str) -> str:
@@ -757,7 +757,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     return out
 
 
-@click.command()
+@click.command("grid")
 @db_option
 @click.option(
     "--spot",
@@ -805,7 +805,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
 @_at_option
 @output_options
 @xlsx_option
-def ladder(
+def grid(
     db_path: str | None,
     spot_list: str | None,
     vol_list: str | None,
@@ -817,12 +817,12 @@ def ladder(
     as_json: bool,
     as_csv: bool,
 ) -> None:
-    """Spot × vol ladder of the book's P&L: full revaluation, the greeks' estimate and the error.
+    """Scenario grid: spot × vol table of the book's P&L, full revaluation, greeks' estimate, error.
 
     Rows move every spot by the same %, columns every vol by the same points; vols are sticky
     strike (each option keeps its strike's vol) unless --rule moneyness. The estimate is second
     order (delta, gamma, vega, volga, vanna, theta). The worst cell is the lowest full P&L. Money
-    in the underlyings' currency; a book of several currencies gets one ladder per currency.
+    in the underlyings' currency; a book of several currencies gets one grid per currency.
     """
     from blotter import calendar as cal
     from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS
@@ -867,7 +867,7 @@ def ladder(
                 for a in range(len(sp))
                 for b in range(len(vp))
             ),
-            "ladder",
+            "grid",
         )
         return
     heads = ["spot % \\ vol pts", *(f"{x:+g}" for x in vp)]
@@ -1104,7 +1104,6 @@ def explain(
     _say_unvalued(ex.unvalued, table=True)
 
 
-
 def _run_grid(
     v: Any,
     sp: list[float],
@@ -1127,4 +1126,28 @@ def _run_grid(
     except ClusterUnavailable as exc:
         raise click.ClickException(str(exc)) from None
 
-COMMANDS = [risk, whatif, ladder, explain]
+
+def _old_name(command: click.Command, old: str, until: str) -> click.Command:
+    """``command`` under its ``old`` name, hidden from help, saying on stderr what it is now."""
+
+    def callback(**kwargs: Any) -> Any:
+        click.echo(
+            f"blotter {old} is now blotter {command.name}; the old name goes in {until}.", err=True
+        )
+        assert command.callback is not None
+        return command.callback(**kwargs)
+
+    return click.Command(
+        old,
+        params=command.params,
+        callback=callback,
+        help=f"Old name of `blotter {command.name}`, kept until {until}.",
+        hidden=True,
+        context_settings=command.context_settings,
+    )
+
+
+ladder = _old_name(grid, "ladder", "the next release")
+"""``blotter ladder``: the grid's old name, hidden, working for one more release."""
+
+COMMANDS = [risk, whatif, grid, ladder, explain]

@@ -1,4 +1,4 @@
-"""The blotter terminal app: header, Book pane, Move/Ladder/Profile panes, what-if bar, footer.
+"""The blotter terminal app: header, Book pane, Move/Grid/Reval panes, what-if bar, footer.
 
 ``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
 All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
@@ -10,19 +10,20 @@ from __future__ import annotations
 
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 from textual import on, work
-from textual.app import App, ComposeResult
+from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
 from textual.timer import Timer
+from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
@@ -48,14 +49,15 @@ from blotter.ui.screens.base import DeskScreen
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.screens.marks import MarksScreen
+from blotter.ui.screens.palette import ActionList, action_commands
 from blotter.ui.screens.trades import TradesScreen
 from blotter.ui.screens.watch import WatchScreen
 from blotter.ui.timings import Timing, Timings
 from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.header_line import HeaderLine
-from blotter.ui.widgets.ladder_pane import LadderPane
 from blotter.ui.widgets.move_pane import MovePane
-from blotter.ui.widgets.profile_pane import ProfilePane
+from blotter.ui.widgets.reval_pane import RevalPane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 
 if TYPE_CHECKING:
@@ -92,9 +94,9 @@ MIN_WIDTH, MIN_HEIGHT = 60, 18
 """Below this size the app shows one line saying what size it needs."""
 
 WIDE_WIDTH = 140
-"""From this width the Ladder and Profile panes sit beside the Book and Move panes."""
+"""From this width the Grid and Reval panes sit beside the Book and Move panes."""
 
-PANES = ("move", "ladder", "profile")
+PANES = ("move", "grid", "reval")
 """Panes the pane key cycles through on narrow terminals."""
 
 GREEKS = (
@@ -104,7 +106,11 @@ GREEKS = (
     ("vega", "vega", "vega_pt"),
     ("theta", "θ day", "theta_day"),
 )
-"""Profile choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+"""Reval pane choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+
+
+TEXTUAL_THEMES = {"dark": "textual-dark", "light": "textual-light"}
+"""The Textual theme drawing each of ``config.THEMES``."""
 
 
 def _utc_now() -> datetime:
@@ -116,7 +122,8 @@ class BlotterApp(App[None]):
 
     CSS_PATH = "app.tcss"
     TITLE = "blotter"
-    ENABLE_COMMAND_PALETTE = False
+    ENABLE_COMMAND_PALETTE = True  # the action list, on the "actions" keys of keys.KEYS
+    COMMAND_PALETTE_BINDING = "colon"
     HORIZONTAL_BREAKPOINTS = [  # noqa: RUF012 - Textual's own class attribute
         (0, "-narrow"),
         (WIDE_WIDTH, "-wide"),
@@ -162,8 +169,10 @@ class BlotterApp(App[None]):
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
+        self._actions: list[SystemCommand] = []  # the action list's entries as it opened
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
+        self.theme = TEXTUAL_THEMES[self.settings.theme]
 
     # -- layout ---------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -173,9 +182,9 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
-            yield LadderPane()
+            yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
-            yield ProfilePane()
+            yield RevalPane()
         yield WhatIfBar()
         yield Footer(compact=True)
 
@@ -550,7 +559,7 @@ class BlotterApp(App[None]):
         self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
         self._stamp_move_painted()
         days = self._roll_days(message.move)
-        if days != previous_days or self.query_one(LadderPane).ladder is None:
+        if days != previous_days or self.query_one(GridPane).ladder is None:
             self.start_ladder(self.state, days)
             self.start_profile()
 
@@ -580,7 +589,7 @@ class BlotterApp(App[None]):
         exclusive=True,
         group="ladder",
         exit_on_error=False,
-        description="spot × vol ladder",
+        description="spot × vol grid",
     )
     def compute_ladder(self, state: data.BookState, days: float) -> None:
         """The spot × vol ladder with the bar's day roll."""
@@ -596,7 +605,7 @@ class BlotterApp(App[None]):
             )
         except (ValueError, KeyError) as exc:
             if not worker.is_cancelled:
-                self.post_message(LoadFailed(f"ladder: {exc}"))
+                self.post_message(LoadFailed(f"grid: {exc}"))
             return
         breaches = limits.ladder_breaches(
             state.valuation,
@@ -613,7 +622,7 @@ class BlotterApp(App[None]):
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
-            self.query_one(LadderPane).show(message.ladder, message.days, partial)
+            self.query_one(GridPane).show(message.ladder, message.days, partial)
             before, self.ladder_breaches = self.ladder_breaches, message.breaches
             if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
@@ -650,7 +659,7 @@ class BlotterApp(App[None]):
         rows: np.ndarray | None,
         label: str,
     ) -> None:
-        """Curves for the Profile pane (see ``data.profile``)."""
+        """Curves for the Reval pane (see ``data.profile``)."""
         worker = get_current_worker()
         try:
             profile = data.profile(state.valuation, self.settings, greek, axis, days, rows, label)
@@ -663,7 +672,7 @@ class BlotterApp(App[None]):
 
     def on_profile_ready(self, message: ProfileReady) -> None:
         if message.book_seq == self.book_seq:
-            self.query_one(ProfilePane).show(message.profile)
+            self.query_one(RevalPane).show(message.profile)
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -799,7 +808,7 @@ class BlotterApp(App[None]):
             self._stamp_move_painted()
 
     def action_next_grid(self) -> None:
-        self.query_one(LadderPane).next_grid()
+        self.query_one(GridPane).next_grid()
 
     def action_next_greek(self) -> None:
         ids = [g[0] for g in GREEKS]
@@ -827,6 +836,18 @@ class BlotterApp(App[None]):
     async def action_quit(self) -> None:
         self._stop_watch.set()
         self.exit()
+
+    def get_system_commands(self, screen: Screen[Any]) -> Iterator[SystemCommand]:
+        """The action list's entries: every action bound where it was opened, by its words
+        (read as it opens: once it is up, the screen below no longer has the app's keys)."""
+        return iter(self._actions) if self._actions else action_commands(screen)
+
+    def action_command_palette(self) -> None:
+        """Open the action list (Textual's palette, F10 or Escape to close)."""
+        if not isinstance(self.screen, ActionList):
+            self._actions = list(action_commands(self.screen))
+            placeholder = "Type words of an action (F10 or Escape closes)…"
+            self.push_screen(ActionList(id="--command-palette", placeholder=placeholder))
 
     # -- for tests and the bench ----------------------------------------------------------------
     async def settle(self) -> None:

@@ -22,7 +22,7 @@ REPORTS = [
     (("risk", "--by", "expiry", *AT), "risk by expiry"),
     (("risk", "--by", "position", *AT), "risk by position"),
     (("whatif", *AT, "spot", "-3%", "vol", "+2"), "whatif"),
-    (("ladder", "--spot", "-5,0,5", "--vol", "-2,0,2", *AT), "ladder"),
+    (("grid", "--spot", "-5,0,5", "--vol", "-2,0,2", *AT), "grid"),
     (("explain",), "explain"),
 ]
 """Every report command (risk in each grouping) and the sheet its table becomes."""
@@ -90,7 +90,7 @@ def test_without_openpyxl_the_error_names_the_install_command(
 ) -> None:
     monkeypatch.setitem(sys.modules, "openpyxl", None)  # import openpyxl now raises ImportError
     out = tmp_path / "r.xlsx"
-    r = run("ladder", "--db", str(demo_db), "--xlsx", str(out), code=1)
+    r = run("grid", "--db", str(demo_db), "--xlsx", str(out), code=1)
     assert INSTALL in r.stderr and "openpyxl" in r.stderr and "Traceback" not in r.stderr
     assert not out.exists()
 

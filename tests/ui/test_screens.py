@@ -1,6 +1,6 @@
 """Pilot tests of the desk screens on a demo copy: typing marks (a number, an option price, a
 refused value), the close (written, and refused by a busy file with nothing typed lost), adding,
-cancelling and amending trades, trial trades, the Explain screen, the watch list, read-only,
+cancelling and amending trades, trial trades, the Explain screen, the Flags screen, read-only,
 and another process's commit showing in the running app."""
 
 from __future__ import annotations
@@ -616,15 +616,17 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
     async with app.run_test(size=(120, 30)) as pilot:
         await settle(app, pilot)
         header = str(app.query_one("#header-line").render())
-        assert "limit breaches" in header or "worst ladder cell" in header
+        assert "limit breaches" in header or "worst grid cell" in header
         rows = app.query_one(BookTable).visible_rows()
         assert all("|vega| over 1" in r.alert for r in rows if r.level == 1)
-        assert any("worst ladder cell" in r.alert for r in rows if r.level == 1)
-        assert not rows[0].alert or "ladder" not in rows[0].alert
+        assert any("worst grid cell" in r.alert for r in rows if r.level == 1)
+        assert not rows[0].alert or "grid" not in rows[0].alert
         await pilot.press("w")
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
-        assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
+        title = str(app.screen.query_one(".desk-title").render())
+        assert title.startswith("Flags: expiring this week")
+        assert "book worst grid cell" in text and "DEMOA |vega| over 1" in text
         days = limits.days_to_week_end(frozen_clock(), app.tz)
         assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
         state = app.state
