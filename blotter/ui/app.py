@@ -22,8 +22,8 @@ from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
-from textual.timer import Timer
 from textual.screen import Screen
+from textual.timer import Timer
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
