@@ -30,6 +30,7 @@ from blotter.commands.common import (
     resolve_db,
 )
 from blotter.printable import printable
+from blotter.ticks import price_text, tick_decimals
 
 
 @contextmanager
@@ -355,6 +356,7 @@ def trade_list(
                 f"no book named {book!r} (books: {', '.join(books) if books else 'none yet'})"
             )
         rows = store.trades(book=book, since=lo, until=hi, live_only=not show_all)
+        ticks = {r["symbol"]: float(r["tick"]) for r in store.underlying_records()}
     if as_csv:
         print_csv(TRADE_COLUMNS + TRADE_INFO_COLUMNS, (trade_csv_row(t) for t in rows))
     elif as_json:
@@ -382,7 +384,7 @@ def trade_list(
                     t.book,
                     t.contract,
                     f"{t.quantity:+,d}",
-                    f"{t.price:,.4g}",
+                    price_text(t.price, tick_decimals(ticks.get(t.symbol, 0.01))),
                     t.trade_time.strftime("%Y-%m-%d %H:%M:%S"),
                     t.state,
                     t.who,
