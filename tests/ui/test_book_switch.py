@@ -55,3 +55,25 @@ async def test_the_book_switch_cycles_and_the_form_follows(demo_db: Path) -> Non
         form = app.screen
         assert isinstance(form, TradeForm)
         assert form.query_one("#form-book", Input).value == names[1]
+
+
+async def test_the_explain_screen_explains_the_book_in_view(demo_db: Path) -> None:
+    from blotter import scenario
+    from blotter.desk.books import OneBook
+
+    names, _ = _books(demo_db)
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("n")
+        await settle(app, pilot)
+        await pilot.press("l")
+        await settle(app, pilot)
+        screen = app.screen
+        assert f"book {names[0]}" in str(screen.query_one(".desk-title").render())
+        result = screen.result  # type: ignore[attr-defined]
+        with store.open_store(demo_db, read_only=True) as st:
+            closes = scenario.closes_in_force(st.mark_sets())
+            alone = scenario.explain(OneBook(st, names[0]), closes[-1].id, "now")
+        assert {r.label for r in result.by_underlying} == {r.label for r in alone.by_underlying}
+        assert result.total.new_trades == alone.total.new_trades
