@@ -143,3 +143,34 @@ async def test_position_rows_and_pnl_day_are_the_desks(demo_db: Path) -> None:
             assert r.value("days") == pytest.approx(float(v.years[i]) * 365, rel=1e-12)
             cells = [str(c) for c in table.get_row(r.key)]
             assert f"{100 * float(v.vol[i]):.2f}" in cells
+
+
+@pytest.mark.parametrize("size", [(80, 24), (200, 50)])
+async def test_move_grid_and_trades_keep_every_digit(large_db: Path, size: tuple[int, int]) -> None:
+    """The Move pane's numbers are apart (a space before each), each whole in the grid's text;
+    the Trades screen's quantities and prices are whole in their columns."""
+    from textual.widgets import DataTable
+
+    from blotter.ui.widgets.move_pane import MovePane
+
+    app = _app(large_db)
+    async with app.run_test(size=size) as pilot:
+        await settle(app, pilot)
+        await pilot.press("f2", *"spot -3%", "enter")
+        await settle(app, pilot)
+        pane = app.query_one(MovePane)
+        grid = str(app.query_one("#move-grid").render())
+        for (_key, column), cell in pane.cells.items():
+            if column != "label":
+                assert cell.startswith(" "), (column, cell)  # never run into the one before
+                assert cell.strip() in grid
+        assert "+167," in grid  # the full change of a 3% fall, whole
+        await pilot.press("f3", "t")  # to the book (the bar has focus), then Trades
+        await settle(app, pilot)
+        table = app.screen.query_one("#trades-table", DataTable)
+        quantities = {str(table.get_cell_at((r, 3))) for r in range(table.row_count)}
+        prices = {str(table.get_cell_at((r, 4))) for r in range(table.row_count)}
+        assert {"-25,000", "+400,000", "-1,000", "+1,000", "-3,000"} == quantities
+        assert {"310.50", "5,123.25", "8.15", "100.05", "0.02130"} == prices
+        widths = [c.width for c in table.columns.values()]
+        assert widths[3] >= len("+400,000") and widths[4] >= len("5,123.25")
