@@ -46,6 +46,13 @@ KEYS: tuple[KeySpec, ...] = (
     ),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec(
+        "book-switch",
+        "next_book",
+        "n",
+        "Show the next book: all books, then each book by name",
+        short="Book",
+    ),
+    KeySpec(
         "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Reval)", short="Pane"
     ),
     KeySpec(
