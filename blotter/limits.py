@@ -16,6 +16,9 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime
 from typing import Any
 
+UNDERLYING_KINDS = ("stock", "index", "future", "fx")
+"""Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
+
 
 class LimitError(ValueError):
     """A value outside its field's range, or not a number; ``field`` names the field."""
@@ -185,6 +188,12 @@ TENOR = Bound(
     "tenor", 1, 36500, "days", "a rate curve point from one day to a hundred years", whole=True
 )
 """Tenor of a zero-rate mark, in calendar days."""
+
+TICK = Bound(
+    "tick", 1e-8, 1000.0, "per unit",
+    "the store keeps prices to eight decimals; a tick past a thousand per unit is a typo",
+)
+"""Price tick (precision) of an underlying, per unit."""
 
 BETA = Bound("beta", -20.0, 20.0, "", "a beta past ±20 to the reference index is a typo")
 """Beta of an underlying to the book's reference index."""

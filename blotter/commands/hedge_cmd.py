@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 import click
 
@@ -15,34 +15,16 @@ from blotter.commands.common import (
     print_json,
     print_table,
 )
-from blotter.commands.report import _at_option, _header, _iso, _open, _value
+from blotter.commands.report import _at_option, _book_option, _header, _iso, _open, _value
 
 if TYPE_CHECKING:
-    from blotter.book import Book
     from blotter.desk.hedge import Hedge, Refusal
-    from blotter.market import Market
 
 CSV_COLUMNS = (
     "target", "instrument", "kind", "currency", "spot", "beta_weighted", "delta_units",
     "lot_units", "side", "lots", "quantity", "units", "residual_units", "residual_cash", "refused",
 )
 """The CSV's columns: a hedge's fields (``Hedge.as_dict``), and the words of a refused one."""
-
-
-class _OneBook:
-    """A store read as one of its books (``--book``): the positions of that book only."""
-
-    def __init__(self, st: Any, name: str) -> None:
-        self.st, self.name = st, name
-
-    def load_book(self) -> Book:
-        return self.st.load_book(self.name)  # type: ignore[no-any-return]
-
-    def load_market(self) -> Market:
-        return self.st.load_market()  # type: ignore[no-any-return]
-
-    def data_version(self) -> int:
-        return int(self.st.data_version())
 
 
 def _table_row(h: Hedge | Refusal) -> list[str]:
@@ -67,10 +49,7 @@ def _table_row(h: Hedge | Refusal) -> list[str]:
 
 @click.command()
 @db_option
-@click.option(
-    "--book", "book_name", default=None, metavar="NAME",
-    help="Hedge the positions of this book only (default: every book of the file).",
-)
+@_book_option
 @click.option(
     "--lot", "lot_units", type=FiniteRange(min=0.0, min_open=True), default=None,
     metavar="UNITS",
@@ -81,7 +60,7 @@ def _table_row(h: Hedge | Refusal) -> list[str]:
 @output_options
 def hedge(
     db_path: str | None,
-    book_name: str | None,
+    book: str | None,
     lot_units: float | None,
     at: str | None,
     as_json: bool,
@@ -102,15 +81,14 @@ def hedge(
 
     check_output_flags(as_json, as_csv)
     st = _open(db_path)
-    source = st if book_name is None else _OneBook(st, book_name)
-    v = _value(source, at)
+    v = _value(st, at, book=book)
     refs = desk_hedge.read_refs(st)
     rows = desk_hedge.every_hedge(v, refs.underlyings, lot_units)
     if as_json:
         print_json(
             _header(v)
             | {
-                "book": book_name,
+                "book": book,
                 "reference_index": v.book.reference_index,
                 "lot_override_units": lot_units,
                 "rounding": desk_hedge.ROUNDING,
@@ -125,7 +103,7 @@ def hedge(
     click.echo(
         f"delta hedges at {_iso(v.valuation_time)} · marks "
         + (_iso(v.market.marks_as_of) if v.market.has_marks else "none yet")
-        + f" · {'book ' + book_name if book_name else 'every book'}"
+        + f" · {'book ' + book if book else 'every book'}"
     )
     click.echo("")
     print_table(

@@ -10,20 +10,24 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from blotter import calendar as cal
 from blotter import risk
+from blotter.desk.pnl_today import NO_CLOSE, PnlToday
 from blotter.desk.session import Session
 from blotter.printable import printable
 from blotter.scenario.profile import profile_curves
+from blotter.ticks import price_text, tick_decimals
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
     ("spot", "Spot"),
     ("delta_cash", "Δ $"),
     ("gamma_1pct", "Γ 1%"),
+    ("gamma_cash_1pct", "Γ$ 1%"),
     ("vega_pt", "vega pt"),
     ("theta_day", "θ day"),
     ("delta_shares", "Δ sh"),
@@ -35,13 +39,32 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 )
 """(risk field, header) of the Book pane in screen order; the units are on the help screen."""
 
+TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
+    BOOK_COLUMNS[0],
+    ("pnl_today", "P&L day"),
+    *BOOK_COLUMNS[1:],
+    ("qty", "qty"),
+    ("mark", "mark"),
+    ("vol", "vol %"),
+    ("days", "days"),
+)
+"""The Book pane's columns: ``BOOK_COLUMNS`` with P&L today (``desk.pnl_today``) after the spot,
+on the total, currency and underlying rows; then, on position rows, the quantity (contracts),
+the mark price (the model value per unit on the marks), the implied vol and days to expiry."""
+
+POSITION_COLUMNS = ("qty", "mark", "vol", "days")
+"""Columns only a position row fills (``BookRow.detail``)."""
+
+COLUMN_INDEX = {k: i for i, (k, _) in enumerate(BOOK_COLUMNS)}
+"""Where each of ``BOOK_COLUMNS`` is in ``BookRow.values``."""
+
 SUM_FIELDS = tuple(k for k, _ in BOOK_COLUMNS if k != "spot")
 """Columns that add up over positions (risk's additive arrays)."""
 
 SHARE_FIELDS = frozenset(risk.SHARE_FIELDS)
 """Columns in shares of one underlying: a row spanning several names shows them as "—"."""
 
-MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS)
+MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS) | {"pnl_today"}
 """Columns in currency: a row spanning several currencies shows them as "—"."""
 
 MAX_CHILD_ROWS = 2000
@@ -63,6 +86,18 @@ class BookRow:
     trial: bool = False  # a trial position (not in the store)
     currency: str | None = None  # None when the row spans several currencies
     mixed_currency: bool = False  # spans several currencies: money columns do not add
+    decimals: int = 2  # decimals of the spot (the underlying's tick, ``blotter.ticks``)
+    pnl_today: float = math.nan  # since the last close; NaN where it is not worked out
+    detail: tuple[float, ...] = ()  # a position's POSITION_COLUMNS values
+
+    def value(self, column: str) -> float:
+        """The row's number in ``column`` (a key of ``TABLE_COLUMNS``); NaN where it has none."""
+        if column == "pnl_today":
+            return self.pnl_today
+        if column in POSITION_COLUMNS:
+            i = POSITION_COLUMNS.index(column)
+            return self.detail[i] if i < len(self.detail) else math.nan
+        return self.values[COLUMN_INDEX[column]]
 
 
 def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[float, ...]:
@@ -74,7 +109,7 @@ def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[flo
 
 def position_label(book: Any, i: int) -> str:
     """Short label of position ``i`` under its underlying and expiry: ``4500 C ×-10``."""
-    qty = f"×{book.quantities[i]:+g}"
+    qty = f"×{book.quantities[i]:+,g}"
     if not book.is_option[i]:
         return f"hedge {qty}"
     return f"{book.strikes[i]:g} {'C' if book.is_call[i] else 'P'} {qty}"
@@ -88,8 +123,10 @@ class BookTree:
         valuation: risk.BookValuation,
         tz: Any,
         alert: Callable[[risk.ExposureRow], str] | None = None,
+        pnl: PnlToday = NO_CLOSE,
     ) -> None:
         self.valuation = valuation
+        self.pnl = pnl
         self.book = valuation.book
         self.tz = tz
         self._alert = alert or (lambda row: "")
@@ -104,6 +141,31 @@ class BookTree:
         self._cache: dict[str, list[BookRow]] = {}
 
     # -- pieces ---------------------------------------------------------------------------------
+    def _detail(self, i: int) -> tuple[float, ...]:
+        """Position ``i``'s quantity, mark price per unit (an option's model value, a hedge's
+        spot), implied vol and calendar days to expiry (NaN for a hedge)."""
+        v, book = self.valuation, self.book
+        if not book.is_option[i]:
+            return (float(book.quantities[i]), float(v.spot[i]), math.nan, math.nan)
+        return (
+            float(book.quantities[i]),
+            float(v.greeks.price[i]),
+            float(v.vol[i]),
+            float(v.years[i]) * 365.0,
+        )
+
+    def _pnl_total(self, currency: str | None) -> float:
+        """P&L today of the rows in ``currency``; NaN under trials (they are not in it)."""
+        if np.asarray(self.book.is_trial).any():
+            return math.nan
+        return self.pnl.total(currency)
+
+    def _decimals(self, underlying: int | None) -> int:
+        """Decimals of the spot of underlying number ``underlying`` (its tick's)."""
+        if underlying is None:
+            return 2
+        return tick_decimals(self.book.underlyings.ticks[underlying])
+
     def _subtotal(self, rows: np.ndarray) -> tuple[float, ...]:
         """``risk.total`` over ``rows`` (an index array), in ``SUM_FIELDS`` order."""
         row = risk.total(self.valuation, rows)
@@ -128,6 +190,8 @@ class BookTree:
                 values=(math.nan,) + tuple(float(self._sums[k][i]) for k in SUM_FIELDS),
                 position=int(i),
                 trial=bool(book.is_trial[i]),
+                decimals=self._decimals(int(book.underlying_idx[i])) + 2,
+                detail=self._detail(int(i)),
             )
             for i in order[:MAX_CHILD_ROWS]
         ]
@@ -187,6 +251,7 @@ class BookTree:
             mixed=self._mixed(np.arange(len(self.book))),
             currency=self._total.currency,
             mixed_currency=len(self.currencies) > 1,
+            pnl_today=self._pnl_total(self._total.currency),
         )
 
     def currency_totals(self) -> list[BookRow]:
@@ -202,6 +267,7 @@ class BookTree:
                 alert=self._alert(r),
                 mixed=r.underlying is None,
                 currency=r.currency,
+                pnl_today=self._pnl_total(r.currency),
             )
             for r in risk.currency_totals(self.valuation)
         ]
@@ -222,6 +288,7 @@ class BookTree:
         )
 
     def top(self, group: str) -> Sequence[BookRow]:
+        trials = bool(np.asarray(self.book.is_trial).any())
         if group == "underlying":
             return [
                 BookRow(
@@ -232,6 +299,8 @@ class BookTree:
                     expandable=True,
                     alert=self._alert(r),
                     currency=r.currency,
+                    decimals=self._decimals(r.index),
+                    pnl_today=self.pnl.of(r.label) if not trials else math.nan,
                 )
                 for r in self._by_underlying
             ]
@@ -301,6 +370,7 @@ class BookTree:
                         + self._subtotal(sel),
                         expandable=True,
                         currency=self.book.underlyings.currencies[int(j)],
+                        decimals=self._decimals(int(j)),
                     )
                 )
         else:  # expiry day, or underlying within a bucket
@@ -318,6 +388,7 @@ class BookState:
     read_only: bool
     session: Session
     tree: BookTree
+    books: tuple[str, ...] = ()  # every book of the file, for the book switch
 
     @property
     def valuation(self) -> risk.BookValuation:
@@ -336,7 +407,12 @@ class BookState:
 
 @dataclass(frozen=True)
 class ProfileData:
-    """Curves for the Profile pane: ``xs`` along the axis, one series per name, with units."""
+    """Curves for the Reval pane: ``xs`` along the axis, one series per name, with units.
+
+    ``kinds`` gives each series' kind (``"full"`` or ``"estimate"``) and whether it is drawn
+    after the bar's day roll, ``legend`` its date and its name under that date (the chart's
+    legend writes each date once); ``axis`` is ``"spot"`` or ``"days"``.
+    """
 
     title: str
     x_label: str
@@ -344,6 +420,9 @@ class ProfileData:
     series: dict[str, tuple[float, ...]]
     y_label: str
     note: str = ""
+    kinds: dict[str, tuple[str, bool]] = field(default_factory=dict)
+    legend: dict[str, tuple[str, str]] = field(default_factory=dict)
+    axis: str = "spot"
 
 
 PROFILE_FIELDS = {
@@ -352,7 +431,7 @@ PROFILE_FIELDS = {
     "vega": ("vega_pt", "vega (per vol pt)"),
     "theta": ("theta_day", "θ day (per day)"),
 }
-"""Profile greeks: risk field and the axis label with its unit."""
+"""Reval pane greeks: risk field and the axis label with its unit."""
 
 
 def profile(
@@ -364,9 +443,11 @@ def profile(
     rows: np.ndarray | None = None,
     label: str = "book",
 ) -> ProfileData:
-    """The Profile pane's title, axis labels and curve names around ``profile_curves`` (P&L or a
-    greek of the book, or of ``rows`` only, against spot % or days forward)."""
-    y_label = "P&L (currency)" if greek == "pnl" else PROFILE_FIELDS[greek][1]
+    """The Reval pane's title, axis labels and curve names around ``profile_curves`` (P&L or a
+    greek of the book, or of ``rows`` only, against spot % or days forward); spot curves are
+    named by the desk-local date they are valued on, with the roll in days beside a later one."""
+    one = valuation.currencies[0] if len(valuation.currencies) == 1 else "each currency"
+    y_label = f"P&L ({one})" if greek == "pnl" else PROFILE_FIELDS[greek][1]
     curves = profile_curves(
         valuation,
         "pnl" if greek == "pnl" else PROFILE_FIELDS[greek][0],
@@ -377,18 +458,25 @@ def profile(
         horizon_days=int(settings.profile_days),
         rows=rows,
     )
-    roll = f"after {days:g} day{'s' if days != 1 else ''}"
+    t0 = valuation.valuation_time
+    today = str(cal.local_date(t0, valuation.tz))
+    later = f"{cal.local_date(cal.roll_calendar_days(t0, days), valuation.tz)} (+{days:g}d)"
     series: dict[str, tuple[float, ...]] = {}
+    kinds: dict[str, tuple[str, bool]] = {}
+    legend: dict[str, tuple[str, str]] = {}
     for curve in curves.curves:
-        if curve.days is None:
-            name = "P&L" if greek == "pnl" else y_label.split(" (")[0]
-        else:
-            name = "today" if curve.days == 0 else roll
-        series[name + (f" {curve.currency}" if curve.currency else "")] = curve.ys
+        date = "" if curve.days is None else today if curve.days == 0 else later
+        short = curve.kind if greek == "pnl" else y_label.split(" (")[0]
+        short = " ".join(w for w in (short, curve.currency) if w)
+        name = " ".join(w for w in (date, short) if w)
+        series[name] = curve.ys
+        kinds[name] = (curve.kind, bool(curve.days))
+        legend[name] = (date, short)
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
-    title = (
-        f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
-    )
+    across = "across spot" if axis == "spot" else f"over days from {today}"
+    title = f"Reval: {names[greek]} of {label} {across}"
+    if greek == "pnl":
+        title += " ─ full vs greeks' estimate"
     note = "sticky-strike vols" if axis == "spot" else "spot and vols held"
     if greek == "gamma" and len(curves.underlyings) > 1:
         note += "; Γ 1% adds share counts of different names"
@@ -399,20 +487,24 @@ def profile(
         series=series,
         y_label=y_label,
         note=note,
+        kinds=kinds,
+        legend=legend,
+        axis=axis,
     )
 
 
 # -- Trades screen ---------------------------------------------------------------------------
-def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
+def trade_text(t: Any, tz: Any, decimals: int = 2) -> tuple[str, ...]:
     """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
-    clock), contract, quantity, price, state, book, who, source; text typed by people or read
-    from files with its control characters escaped (``blotter.printable``)."""
+    clock), contract, quantity, price (to ``decimals``, more when it carries more), state, book,
+    who, source; text typed by people or read from files with its control characters escaped
+    (``blotter.printable``)."""
     return (
         str(t.trade_id),
         f"{t.trade_time.astimezone(tz):%m-%d %H:%M}",
         printable(t.contract),
         f"{t.quantity:+,d}",
-        f"{t.price:,.4f}".rstrip("0").rstrip("."),
+        price_text(t.price, decimals),
         t.state,
         printable(t.book),
         printable(t.who),

@@ -57,7 +57,7 @@ async def test_the_hedge_key_stages_the_cursor_rows_hedge_as_a_trial(demo_db: Pa
 
         table.move_cursor(row=table.get_row_index("total"))
         await settle(app, pilot)
-        await pilot.press("ctrl+e")  # the alias stages the book's hedge in its reference index
+        await pilot.press("ctrl+d")  # the alias stages the book's hedge in its reference index
         await settle(app, pilot)
         assert [t.contract.symbol for t in app.trials] == ["DEMOA", "DEMOIX"]
         state = app.state

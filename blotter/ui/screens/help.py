@@ -18,10 +18,14 @@ from blotter.config import DESK_TZ_SOURCES
 from blotter.ui.keys import KEYS, app_bindings, key_label
 
 UNITS: tuple[tuple[str, str], ...] = (
-    ("Spot", "price of the underlying, in its currency"),
+    ("Spot", "price of the underlying, in its currency, to its tick (more if it carries more)"),
+    ("P&L day", "P&L since the last close (new trades from their trade price), per underlying"),
     ("Value", "quantity × multiplier × price (futures hedges: 0, they settle daily)"),
     ("Δ $", "delta × spot: currency exposure to the underlying"),
     ("Γ 1%", "change in Δ sh for a 1% rise in spot (Γ × S × 0.01)"),
+    ("Γ$ 1%", "change in Δ $ for a 1% rise in spot (Γ × S² × 0.01); adds across names"),
+    ("k m bn", "after a header: the column's numbers are in thousands, millions, billions"),
+    ("qty mark vol days", "a position's quantity, model value per unit, implied vol %, days left"),
     ("vega pt", "P&L for +1 vol point (0.01 of annualised vol, 30% → 31%)"),
     ("θ day", "P&L for one calendar day passing, nothing else moving"),
     ("Δ sh", "delta in shares (units) of the underlying"),
@@ -37,7 +41,11 @@ UNITS: tuple[tuple[str, str], ...] = (
     ),
     ("error", "full − estimate, in currency; err % = error as a share of |full|"),
     ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
-    ("Ladder", "spot shocks in %, vol shocks in points, cells in currency; one grid per currency"),
+    (
+        "Grid",
+        "scenario grid: rows spot shocks in %, columns vol shocks in points, cells P&L in "
+        "currency; one grid per currency",
+    ),
     ("—", "no sum: share counts of several names, or money of several currencies (never added)"),
     ("NOT VALUED", "positions left out for want of a mark; totals are of the rest (w lists them)"),
     ("times", f"in the desk's time zone ({DESK_TZ_SOURCES}); expiries: the exchange's dates"),

@@ -1,4 +1,4 @@
-"""The Ladder pane: the spot × vol grid of the book's full P&L, or its estimate or error.
+"""The Grid pane (the scenario grid): spot × vol table of the book's full P&L, estimate or error.
 
 The grid is ``blotter.scenario.ladder``'s; the worst cell of the full P&L is marked ``▼`` (and in
 reverse video), the vol rule is stated under the grid, and the bar's day roll is applied.
@@ -13,6 +13,7 @@ import numpy as np
 from rich.console import Group
 from rich.table import Table
 from rich.text import Text
+from textual import events
 from textual.app import ComposeResult
 from textual.containers import VerticalScroll
 from textual.widgets import Static
@@ -49,22 +50,34 @@ def worst_cell(ladder: Any) -> tuple[int, int] | None:
     return None
 
 
-class LadderPane(VerticalScroll):
+class GridPane(VerticalScroll):
     """Title, grid and the rule line."""
 
     def __init__(self) -> None:
-        super().__init__(id="ladder-pane", classes="pane")
-        self.border_title = "Ladder"
+        super().__init__(id="grid-pane", classes="pane")
+        self.border_title = "Grid"
         self.grid = "full"
         self.ladder: Any = None  # the first (or only) currency's ladder
         self.ladders: list[Any] = []  # one per currency, in the book's order
         self.days = 0.0
         self.partial = False  # some positions were left out for want of a mark
         self.table: Table | None = None  # the first ladder's grid
+        self.unit = ""  # the cells' unit of fmt.SCALES, so no number is cut to fit the pane
+
+    def on_resize(self, event: events.Resize) -> None:
+        self.repaint()
+
+    def _cell_cap(self, n_columns: int) -> int:
+        """Characters a cell may take so that every vol column fits the pane's width."""
+        width = self.size.width - 2  # less the vertical scrollbar's room
+        if width <= 0 or n_columns <= 0:
+            return fmt.CELL_CAP
+        first = len("spot \\ vol bn") + 1
+        return max(5, (width - first) // n_columns - 2)  # a space apart and the worst mark
 
     def compose(self) -> ComposeResult:
-        yield Static("waiting for the book…", id="ladder-grid")
-        yield Static("", id="ladder-rule")
+        yield Static("waiting for the book…", id="grid-cells")
+        yield Static("", id="grid-rule")
 
     def show(self, ladders: Sequence[Any], days: float, partial: bool = False) -> None:
         """Show one ladder per currency (``scenario.ladders``) computed with a ``days`` roll;
@@ -89,42 +102,46 @@ class LadderPane(VerticalScroll):
         rule = str(getattr(ladder, "rule", "") or "")
         of_valued = " of valued positions" if self.partial else ""
         per = " per currency" if several else ""
-        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
+        self.border_title = f"Grid: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
             f" ─ {WORST} worst" if worst_cell(ladder) else ""
         )
+        cells = [float(x) for one in self.ladders for x in np.ravel(getattr(one, self.grid))]
+        self.unit, factor = fmt.column_scale(cells, self._cell_cap(len(list(ladder.vol_pts))))
         parts: list[Text | Table] = []
         for k, one in enumerate(self.ladders):
             if several:
                 parts.append(Text(("\n" if k else "") + str(one.currency), style="bold"))
-            parts.append(self._table(one))
+            parts.append(self._table(one, factor))
         self.table = next(p for p in parts if isinstance(p, Table))
-        self.query_one("#ladder-grid", Static).update(Group(*parts))
+        self.query_one("#grid-cells", Static).update(Group(*parts))
         legend = f"{WORST} worst cell of the full P&L. " if worst_cell(ladder) else ""
+        scale = {"k": " thousands", "m": " millions", "bn": " billions"}.get(self.unit, "")
         money = (
-            "P&L in each currency, never added across them"
+            f"P&L in{scale} of each currency, never added across them"
             if several
-            else f"P&L in {ladder.currency or 'the book currency'}"
+            else f"P&L in{scale} {ladder.currency or 'of the book currency'}"
         )
-        self.query_one("#ladder-rule", Static).update(
+        self.query_one("#grid-rule", Static).update(
             Text(
                 f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
                 f"in points; cells: {money}."
             )
         )
 
-    def _table(self, ladder: Any) -> Table:
-        """One ladder's grid, its worst cell marked."""
+    def _table(self, ladder: Any, factor: float = 1.0) -> Table:
+        """One ladder's grid in whole units of ``factor``, its worst cell marked."""
         cells = np.asarray(getattr(ladder, self.grid))
         vol_pts = list(ladder.vol_pts)
         worst = worst_cell(ladder)
         table = Table(box=None, pad_edge=False, padding=(0, 1))
-        table.add_column("spot \\ vol", justify="right", no_wrap=True)
+        head = "spot \\ vol" + (f" {self.unit}" if self.unit else "")
+        table.add_column(head, justify="right", no_wrap=True)
         for v in vol_pts:
             table.add_column(f"{v:+g} pt", justify="right", no_wrap=True)
         for i, s in enumerate(list(ladder.spot_pcts)):
             row: list[Text | str] = [f"{s:+g}%"]
             for j in range(len(vol_pts)):
-                text = Text(fmt.money(float(cells[i, j])))
+                text = Text(fmt.whole(float(cells[i, j]), factor))
                 if worst == (i, j):
                     text = Text(WORST) + text
                     text.stylize("reverse")
