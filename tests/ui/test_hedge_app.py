@@ -125,3 +125,18 @@ async def test_the_underlyings_are_read_again_only_when_the_book_has_others(
         again = app.hedge_refs
         assert again is not first and again is not None and again.refs is not None
         assert "NEWCO" in again.refs.underlyings
+
+
+async def test_a_hedge_staged_with_one_book_in_view_goes_to_that_book(demo_db: Path) -> None:
+    """DEMOIX's newest trade is in index-vol; with equity-vol in view its hedge is equity-vol's."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        while app.book_in_view != "equity-vol":
+            await pilot.press("n")
+            await settle(app, pilot)
+        h = app.cursor_hedge()
+        assert isinstance(h, hedge.Hedge) and h.instrument.symbol == "DEMOIX" and h.quantity
+        await pilot.press("d")
+        await settle(app, pilot)
+        assert [(t.contract.symbol, t.book) for t in app.trials] == [("DEMOIX", "equity-vol")]
