@@ -48,7 +48,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "book-switch",
         "next_book",
-        "n",
+        "n,ctrl+u",
         "Show the next book: all books, then each book by name",
         short="Book",
     ),
