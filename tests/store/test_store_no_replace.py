@@ -32,6 +32,7 @@ PROTECTED = (
     "import_file",
     "history",
     "book_zone",
+    "base_currency",
 )
 """Every append-only table of the schema (each has a no-delete trigger)."""
 
@@ -103,6 +104,7 @@ CASES: list[tuple[str, str, str, dict[str, Any]]] = [
     ("history seq", "history", "kind = 'trade'", {"row_id": 999}),
     ("history row", "history", "kind = 'trade'", {"seq": None}),
     ("book zone", "book_zone", "1", {"zone": "Asia/Tokyo"}),
+    ("base currency", "base_currency", "base_id = 1", {"currency": "JPY"}),
 ]
 
 
@@ -191,6 +193,7 @@ def test_the_store_still_writes_every_protected_table(history: Path, tmp_path: P
         s.log_spot("TSTB", 50.0)
         s.commit_close(note="a correction", corrects=s.todays_close()[1])  # one close a day
         s.import_trades_csv(trade_csv(tmp_path / "u.csv", 2, symbol="TSTB"))
+        s.set_base_currency("EUR")
         after = {t: len(_table(s.connection, t)) for t in PROTECTED}
         grown = [t for t in PROTECTED if t != "book_zone"]  # written once, with the book
         assert all(after[t] > before[t] for t in grown), (before, after)
