@@ -2,14 +2,16 @@
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
 now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in each underlying's
-currency and never added across currencies (totals are per currency), unrounded in JSON and CSV,
-rounded in tables. Positions a missing mark leaves out are listed with the command that logs it.
+currency and never added across currencies without an FX spot (totals are per currency; ``risk``
+adds one in the base currency), unrounded in JSON and CSV, rounded in tables. Positions a
+missing mark leaves out are listed with the command that logs it.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import click
@@ -55,6 +57,11 @@ def _money(x: float, places: int = 0) -> str:
     if abs(x) < 0.5 * 10**-places:
         x = 0.0
     return f"{x:,.{places}f}"
+
+
+def _finite(x: float | None) -> float | None:
+    """``x``, or None when it is NaN or missing (an empty CSV cell)."""
+    return x if x is not None and math.isfinite(x) else None
 
 
 def _days(n: float) -> str:
@@ -380,6 +387,74 @@ def _risk_groups(v: BookValuation, by: str) -> list[tuple[str, str, ExposureRow,
     return out
 
 
+@dataclass(frozen=True)
+class _InBase:
+    """The base-currency side of ``risk``: the book's total and FX delta in the base currency,
+    and whether the book has anything outside the base (else the rows add nothing)."""
+
+    fx: Any
+    total: Any
+    delta: Any
+    shown: bool
+
+    def missing(self) -> tuple[Any, ...]:
+        """The FX spots the total or the FX delta lack, one per pair."""
+        return tuple(dict.fromkeys([*self.fx.missing_marks(), *self.delta.missing]))
+
+    def json(self) -> dict[str, Any]:
+        """``base_currency``, ``total_in_base`` and ``fx_delta`` of ``risk --json``."""
+        from blotter.risk import FX_PCT
+
+        def marks(found: Sequence[Any]) -> list[dict[str, str]]:
+            return [{"mark": m.kind, "of": m.name, "command": m.command} for m in found]
+
+        base = self.fx.base
+        return {
+            "base_currency": base,
+            "total_in_base": _row_dict(self.total, True)
+            | {
+                "currency": base,
+                "fx_rates": self.fx.rates,
+                "missing": marks(self.fx.missing_marks()),
+            },
+            "fx_delta": {
+                "currency": base,
+                "per_pct": FX_PCT,
+                "by_currency": self.delta.by_currency,
+                "missing": marks(self.delta.missing),
+                "unread_pairs": list(self.delta.unread),
+            },
+        }
+
+    def words(self) -> list[str]:
+        """The FX delta line and what the base-currency figures lack, for the table."""
+        base = self.fx.base
+        entries = ", ".join(
+            f"{c} {_money(x)}" for c, x in self.delta.by_currency.items()
+        ) or "none (nothing outside " + base + ")"
+        out = [f"FX delta ({base} per +1% of each currency against {base}): {entries}"]
+        out += [
+            f"{m.words()}: the {base} figures that need it show —; log it with: {m.command}"
+            for m in self.missing()
+        ]
+        out += [
+            f"fx underlying {sym}: its symbol is not the two legs' ISO codes with the quote its "
+            "currency (EURUSD in USD), so the FX delta shows —"
+            for sym in self.delta.unread
+        ]
+        return out
+
+
+def _in_base(store: Any, v: BookValuation) -> _InBase:
+    """The base-currency total and FX delta of ``v``, in the base currency ``store`` holds."""
+    from blotter.risk import base_total, fx_delta, valuation_fx_rates
+
+    fx = valuation_fx_rates(v, store.base_currency())
+    delta = fx_delta(v, fx)
+    shown = bool(set(v.currencies) - {fx.base} or delta.by_currency)
+    return _InBase(fx, base_total(v, fx, f"total in {fx.base}"), delta, shown)
+
+
 _RISK_COLUMNS = (
     "value",
     "Δ sh",
@@ -444,6 +519,9 @@ def risk(
     empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum). Money is
     in each underlying's currency: with several currencies the totals are per currency and the
     total across them shows "—" (null in JSON, beside "by_currency"; CSV has a row per currency).
+    Beside them, the total in the book's base currency (`blotter base-currency`), converted at
+    the marked FX spots ("—" and the missing pair named when one has no spot), and the FX delta:
+    the base-currency P&L for a 1% rise of each other currency against the base.
     """
     from blotter.risk import (
         EXPOSURE_FIELDS,
@@ -459,6 +537,7 @@ def risk(
     under = aggregate(v, "underlying")
     tot = total(v)
     per_ccy = currency_totals(v)
+    in_base = _in_base(store, v)
     if as_json:
         out: dict[str, Any] = _header(v)
         out["by_underlying"] = [
@@ -483,17 +562,20 @@ def risk(
             ]
         if by == "position":
             out["by_position"] = _position_dicts(v)
+        out |= in_base.json()
         out["notes"] = list(v.notes)
         print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv:
         _say_unvalued(v.unvalued, table=False)
+        for m in in_base.missing():
+            click.echo(f"blotter: {m.words()}; log it with: {m.command}", err=True)
         if by == "position":
             dicts = _position_dicts(v)
             cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS, "currency"]
             print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
             return
-        cols = [by, "spot", *EXPOSURE_FIELDS, "currency"]
+        cols = [by, "spot", *EXPOSURE_FIELDS, "currency", "fx_delta_1pct", "fx_of"]
         data = [
             [label, r.spot, *_row_dict(r, shares_blank).values(), r.currency]
             for label, _, r, shares_blank in _risk_groups(v, by)
@@ -503,6 +585,14 @@ def risk(
              r.currency]
             for r in per_ccy or [tot]
         ]
+        if in_base.shown:  # money in the base currency; NaN (no FX spot) printed empty
+            base = in_base.fx.base
+            money = [_finite(x) for x in _row_dict(in_base.total, True).values()]
+            data.append(["total in base", None, *money, base])
+            data += [
+                ["fx delta", None, *[None] * len(EXPOSURE_FIELDS), base, _finite(x), c]
+                for c, x in in_base.delta.by_currency.items()
+            ]
         print_csv(cols, data)
         return
     scale = v.vega_scale
@@ -511,12 +601,14 @@ def risk(
         "expiry": ["expiry", "positions"],
         "position": ["position", "spot"],
     }[by]
-    several = len(v.currencies) > 1
+    several = len(v.currencies) > 1 or in_base.shown
     groups = _risk_groups(v, by)
     label = _total_label(v.unvalued)
     if several:
         groups += [(label, "", r, r.underlying is None) for r in per_ccy]
     groups.append((label, "", tot, len(under) > 1))  # share counts of several names do not add
+    if in_base.shown:
+        groups.append((in_base.total.label, "", in_base.total, True))
 
     def cells_of(r: ExposureRow, shares_blank: bool) -> list[str]:
         out = _risk_cells(r, scale)
@@ -567,6 +659,8 @@ def risk(
             f"beta-weighted delta: {_per_ccy(per_ccy, lambda r: r.beta_delta_cash)} (no index "
             "units: they would add currencies)"
         )
+    if in_base.shown:
+        lines += in_base.words()
     for line in [*lines, *v.notes]:
         click.echo(line)
     _say_unvalued(v.unvalued, table=True)

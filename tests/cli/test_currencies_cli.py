@@ -83,9 +83,13 @@ def test_risk_totals_per_currency(two_currencies: str) -> None:
     assert set(bucket["by_currency"]) == {"USD", "EUR"}
     rows = _csv(two_currencies, "risk", "--at", T0)
     assert [(r["underlying"], r["currency"]) for r in rows] == [
-        ("AAA", "USD"), ("BBB", "EUR"), ("total", "USD"), ("total", "EUR")
+        ("AAA", "USD"), ("BBB", "EUR"), ("total", "USD"), ("total", "EUR"),
+        ("total in base", "USD"), ("fx delta", "USD"),
     ]
     assert float(rows[3]["value"]) == pytest.approx(_eur(), rel=1e-9)
+    # No EURUSD spot: the base total and the FX delta of EUR are empty, never a figure.
+    assert rows[4]["value"] == rows[4]["vega_pt"] == rows[5]["fx_delta_1pct"] == ""
+    assert rows[5]["fx_of"] == "EUR"
     table = run("--db", two_currencies, "risk", "--at", T0).stdout
     assert "money in each underlying's currency (USD, EUR)" in table
     all_row = next(line for line in table.splitlines() if line.split()[:2] == ["total", "all"])
@@ -135,3 +139,60 @@ def test_a_single_currency_book_adds_only_the_currency_fields(demo_db: Path) -> 
     assert move["total"]["by_currency"]["USD"]["full"] == move["total"]["full"]
     lad = _json(str(demo_db), "ladder", "--at", "2026-11-30T16:45")
     assert lad["currency"] == "USD" and lad["by_currency"]["USD"]["full"] == lad["full"]
+
+
+def test_risk_converts_totals_to_the_base_at_the_marked_fx_spot(two_currencies: str) -> None:
+    """With EURUSD marked at 1.25 the book converts: a EUR amount is 1.25 USD (base USD) and a
+    USD amount 1 / 1.25 EUR (base EUR); the FX delta is translation only (no pair positions)."""
+    db = two_currencies
+    run("--db", db, "underlying", "add", "EURUSD", "--kind", "fx", "--currency", "USD",
+        "--multiplier", "100000")
+    run("--db", db, "mark", "spot", "EURUSD", "1.25")
+    out = _json(db, "risk", "--at", T0)
+    usd_cash = out["total"]["by_currency"]["USD"]["delta_cash"]
+    eur_cash = out["total"]["by_currency"]["EUR"]["delta_cash"]
+    base = out["total_in_base"]
+    assert out["base_currency"] == "USD" and base["currency"] == "USD"
+    assert base["value"] == pytest.approx(_usd() + 1.25 * _eur(), rel=1e-9)
+    assert base["delta_cash"] == pytest.approx(usd_cash + 1.25 * eur_cash, rel=1e-12)
+    assert base["delta_shares"] is None and base["gamma_1pct"] is None
+    assert base["fx_rates"] == {"USD": 1.0, "EUR": 1.25} and base["missing"] == []
+    assert out["fx_delta"]["by_currency"] == pytest.approx({"EUR": 0.01 * _eur() * 1.25})
+    assert out["total"]["value"] is None  # the plain total still never adds currencies
+    rows = _csv(db, "risk", "--at", T0)
+    assert (rows[-2]["underlying"], rows[-2]["currency"]) == ("total in base", "USD")
+    assert float(rows[-2]["value"]) == pytest.approx(_usd() + 1.25 * _eur(), rel=1e-9)
+    assert (rows[-1]["underlying"], rows[-1]["fx_of"]) == ("fx delta", "EUR")
+    assert float(rows[-1]["fx_delta_1pct"]) == pytest.approx(0.0125 * _eur(), rel=1e-9)
+    table = run("--db", db, "risk", "--at", T0).stdout
+    in_usd = next(line for line in table.splitlines() if line.startswith("total in USD"))
+    assert f"{_usd() + 1.25 * _eur():,.0f}" in in_usd
+    head = "FX delta (USD per +1% of each currency against USD)"
+    assert f"{head}: EUR {0.0125 * _eur():,.0f}" in table
+    run("--db", db, "base-currency", "EUR")
+    out = _json(db, "risk", "--at", T0)
+    assert out["total_in_base"]["currency"] == "EUR"
+    assert out["total_in_base"]["value"] == pytest.approx(_usd() / 1.25 + _eur(), rel=1e-9)
+    assert out["fx_delta"]["by_currency"] == pytest.approx({"USD": 0.01 * _usd() / 1.25})
+
+
+def test_a_missing_fx_spot_shows_dashes_and_names_the_pair(two_currencies: str) -> None:
+    out = _json(two_currencies, "risk", "--at", T0)
+    assert out["total_in_base"]["value"] is None
+    assert out["fx_delta"]["by_currency"] == {"EUR": None}
+    (missing,) = out["total_in_base"]["missing"]
+    assert missing["of"] == "EURUSD"
+    table = run("--db", two_currencies, "risk", "--at", T0).stdout
+    in_usd = next(line for line in table.splitlines() if line.startswith("total in USD"))
+    assert set(in_usd.split()[4:]) == {"—"}
+    assert "no spot mark for EURUSD" in table and "blotter mark spot EURUSD PRICE" in table
+    assert "FX delta (USD per +1% of each currency against USD): EUR —" in table
+    csv_run = run("--db", two_currencies, "risk", "--at", T0, "--csv")
+    assert "no spot mark for EURUSD" in csv_run.stderr
+    # A pair the book holds but has not marked is named as that pair's spot mark.
+    run("--db", two_currencies, "underlying", "add", "EURUSD", "--kind", "fx", "--currency",
+        "USD", "--multiplier", "100000")
+    out = _json(two_currencies, "risk", "--at", T0)
+    assert out["total_in_base"]["missing"] == [
+        {"mark": "spot", "of": "EURUSD", "command": "blotter mark spot EURUSD PRICE"}
+    ]
