@@ -303,7 +303,7 @@ def _money_note(currencies: Sequence[str]) -> str:
         return "money in each underlying's currency"
     return (
         f"money in each underlying's currency ({', '.join(currencies)}): totals per currency, "
-        "never summed across them"
+        "never summed across them unconverted"
     )
 
 
@@ -1055,9 +1055,10 @@ def explain(
     rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
     against trade price). When late bookings or corrections changed the held book, a line shows
     how much of actual they account for ("corrections"). Money in each underlying's currency;
-    totals per currency.
+    totals per currency, then in the book's base currency: each currency's P&L at the start's FX
+    spots, and an "FX translation" line, (end spot − start spot) × the value held at the end.
     """
-    from blotter.scenario import EXPLAIN_TERMS
+    from blotter.scenario import EXPLAIN_TERMS, explain_in_base
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
 
@@ -1074,6 +1075,8 @@ def explain(
         ex = run_explain(store, from_set, to_set)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
+    base = explain_in_base(ex, store.base_currency())
+    base_shown = bool({str(r.currency) for r in ex.by_currency} - {base.base})
     if as_json:
         print_json(
             {
@@ -1087,6 +1090,8 @@ def explain(
                 "late_trades": list(ex.late_trades),
                 "corrected_trades": list(ex.corrected_trades),
                 "notes": list(ex.notes),
+                "base_currency": base.base,
+                "in_base": _explain_base_json(base, ex.end_values),
             }
             | _unvalued_json(ex.unvalued)
         )
@@ -1117,7 +1122,23 @@ def explain(
             ]
             for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
         ]
+        if base_shown:  # the base currency's rows; NaN (an FX spot missing) printed empty
+            r = base.at_start_rates
+            data.append(
+                [
+                    "total in base at start rates",
+                    *(_finite(x) for x in (r.actual, *(r.terms[t] for t in EXPLAIN_TERMS))),
+                    *(_finite(x) for x in (r.explained, r.unexplained, r.new_trades, r.total)),
+                    _finite(r.corrections),
+                    base.base,
+                ]
+            )
+            empty = [None] * (len(cols) - 4)  # every column before "total"
+            data.append(["fx translation", *empty, _finite(base.translation), None, base.base])
+            data.append(["total in base", *empty, _finite(base.pnl), None, base.base])
         _say_unvalued(ex.unvalued, table=False)
+        for where, m in base.missing:
+            click.echo(f"blotter: {m.words()} at the {where}; log it with: {m.command}", err=True)
         print_csv(cols, data)
         return
     frm = ex.from_set
@@ -1126,6 +1147,10 @@ def explain(
     several = len(currencies) > 1
     ccy_head = ["ccy"] if several else []
     shown = _labelled(ex.by_underlying, ex.by_currency, ex.total, _total_label(ex.unvalued))
+    if base_shown:
+        several = True
+        ccy_head = ["ccy"]
+        shown.append((f"{base.at_start_rates.label} at start rates", base.at_start_rates))
     click.echo(
         f"P&L explain: {_set_words(frm, ex.from_time)} → "
         + ("marks now" if to == "now" else _set_words(to, ex.to_time))
@@ -1145,6 +1170,10 @@ def explain(
         ]
         for label, r in shown
     ]
+    if base_shown:
+        blank = [""] * 5
+        summary.append(["FX translation", base.base, *blank, _money(base.translation)])
+        summary.append([f"P&L in {base.base}", base.base, *blank, _money(base.pnl)])
     left = [False] * (1 + len(ccy_head))
     print_table(
         ["underlying", *ccy_head, "actual", "explained", "unexplained", "unexpl %",
@@ -1172,9 +1201,38 @@ def explain(
             f"cancelled or amended in the period: "
             f"{', '.join(map(str, ex.corrected_trades)) or 'none'}"
         )
+    if base_shown:
+        click.echo("")
+        click.echo(
+            f"in {base.base}: each currency's P&L at the start's FX spots, then FX translation "
+            f"= (end spot − start spot) × what is held at the end"
+        )
+        for where, m in base.missing:
+            click.echo(
+                f"{m.words()} at the {where}: the {base.base} figures that need it show —; "
+                f"log it with: {m.command}"
+            )
     for note in ex.notes:
         click.echo(note)
     _say_unvalued(ex.unvalued, table=True)
+
+
+def _explain_base_json(base: Any, end_values: dict[str, float]) -> dict[str, Any]:
+    """The ``in_base`` key of ``explain --json``: the P&L at the start rates, the FX
+    translation, their sum, the rates and end values used and the FX spots missing."""
+    return {
+        "currency": base.base,
+        "at_start_rates": base.at_start_rates.as_dict(),
+        "fx_translation": base.translation,
+        "total": base.pnl,
+        "start_rates": base.start_rates.rates,
+        "end_rates": base.end_rates.rates,
+        "end_values": end_values,
+        "missing": [
+            {"mark": m.kind, "of": m.name, "command": m.command, "where": where}
+            for where, m in base.missing
+        ],
+    }
 
 
 COMMANDS = [risk, whatif, ladder, explain]
