@@ -158,6 +158,7 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
+                yield Static("", id="fx-delta", markup=False)
             yield LadderPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield ProfilePane()
@@ -274,7 +275,9 @@ class BlotterApp(App[None]):
                 loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valued.valuation, self.tz, self._row_alert)
+            tree = data.BookTree(
+                valued.valuation, self.tz, self._row_alert, base=loaded.base_currency
+            )
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
@@ -305,6 +308,10 @@ class BlotterApp(App[None]):
         self.state = state
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
+        fx_line = state.tree.fx_delta_words()
+        fx_delta = self.query_one("#fx-delta", Static)
+        fx_delta.update(fx_line)
+        fx_delta.display = bool(fx_line)
         self._refresh_header()
         text = self.query_one(MoveInput).value
         if text.strip():
