@@ -903,10 +903,9 @@ def fx_rates(
 
 
 def valuation_fx_rates(valuation: BookValuation, base: str) -> FxRates:
-    """``fx_rates`` of the valuation's currencies and its fx pairs' legs on its own market."""
-    und = valuation.book.underlyings
-    legs = [leg for _, pair in _fx_pair_deltas(valuation) for leg in pair]
-    return fx_rates(und, valuation.market, base, [*valuation.currencies, *legs])
+    """``fx_rates`` of the valuation's currencies on its own market (a pair's first leg needs no
+    rate: its FX delta is in the pair's own currency)."""
+    return fx_rates(valuation.book.underlyings, valuation.market, base, valuation.currencies)
 
 
 def base_total(valuation: BookValuation, fx: FxRates, label: str = "total") -> ExposureRow:

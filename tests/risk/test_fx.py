@@ -188,3 +188,17 @@ def test_a_pair_whose_legs_cannot_be_read_leaves_the_fx_delta_unknown() -> None:
     delta = fx_delta(v, valuation_fx_rates(v, "USD"))
     assert delta.unread == ("EUR/USD",)
     assert delta.by_currency and all(math.isnan(x) for x in delta.by_currency.values())
+
+
+def test_a_cross_pair_needs_no_rate_for_its_first_leg() -> None:
+    """A book holding only EURJPY options (priced in JPY) converts with the JPY rate alone: no
+    EUR rate is asked for, and EUR's FX delta is the pair's Δ $ at the JPY rate."""
+    rows = [r for r in ROWS if r.sym == "EURJPY"]
+    no_eurusd = {k: s for k, s in SPOTS.items() if k != "EURUSD"}
+    v = _value(rows, no_eurusd)
+    fx = valuation_fx_rates(v, "USD")
+    assert not fx.missing and set(fx.rates) == {"USD", "JPY"}
+    delta = fx_delta(v, fx)
+    cash = float(v.delta_cash.sum())
+    assert delta.by_currency["EUR"] == pytest.approx(0.01 * cash / SPOTS["USDJPY"], rel=1e-12)
+    assert not delta.missing
