@@ -445,3 +445,29 @@ BEGIN SELECT RAISE(ABORT, 'underlying corrections are never deleted: record a ne
 CREATE TRIGGER underlying_correction_no_replace BEFORE INSERT ON underlying_correction
 WHEN EXISTS (SELECT 1 FROM underlying_correction WHERE correction_id = NEW.correction_id)
 BEGIN SELECT RAISE(ABORT, 'underlying corrections are never replaced: record a new one'); END;
+
+-- @version 9 ------------------------------------------------------------------------------------
+
+-- The book's base currency, which totals are converted to at the marked FX spots. Append-only:
+-- a change is a new row, and the row with the highest id is in force. The first row is written
+-- with the book (or by this upgrade, which gives an older book USD) and carries no time or who;
+-- base_currency_default() is the store's (blotter/store/db.py): USD, or the currency
+-- `blotter create --base-currency` names.
+CREATE TABLE base_currency (
+    base_id  INTEGER PRIMARY KEY,
+    currency TEXT    NOT NULL CHECK (length(currency) = 3 AND currency GLOB '[A-Z][A-Z][A-Z]'),
+    set_at   TEXT    CHECK (
+        set_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(set_at, 1, 19), '+0 days') IS replace(substr(set_at, 1, 19), 'T', ' ')),
+    who      TEXT    CHECK (length(who) > 0),
+    CHECK ((set_at IS NULL) = (who IS NULL)),
+    CHECK ((base_id = 1) = (set_at IS NULL))
+) STRICT;
+INSERT INTO base_currency (base_id, currency) VALUES (1, base_currency_default());
+CREATE TRIGGER base_currency_no_update BEFORE UPDATE ON base_currency
+BEGIN SELECT RAISE(ABORT, 'the base currency is never changed in place: record a new one'); END;
+CREATE TRIGGER base_currency_no_delete BEFORE DELETE ON base_currency
+BEGIN SELECT RAISE(ABORT, 'base currency rows are never deleted: record a new one'); END;
+CREATE TRIGGER base_currency_no_replace BEFORE INSERT ON base_currency
+WHEN EXISTS (SELECT 1 FROM base_currency WHERE base_id = NEW.base_id)
+BEGIN SELECT RAISE(ABORT, 'base currency rows are never replaced: record a new one'); END;

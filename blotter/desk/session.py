@@ -29,7 +29,7 @@ if TYPE_CHECKING:
 
 
 class BookSource(Protocol):
-    """Where a session reads from: a ``store.Store`` (anything with these three reads)."""
+    """Where a session reads from: a ``store.Store`` (anything with these four reads)."""
 
     def load_book(self, book: str | None = None) -> Book: ...
 
@@ -37,23 +37,32 @@ class BookSource(Protocol):
 
     def data_version(self) -> int: ...
 
+    def base_currency(self) -> str: ...
+
 
 @dataclass(frozen=True, repr=False)
 class Loaded:
-    """The live book, the marks in force and the file's data version, as read together."""
+    """The live book, the marks in force, the file's data version and the book's base currency
+    (totals convert to it at the marked FX spots), as read together."""
 
     book: Book
     market: Market
     data_version: int
+    base_currency: str = "USD"
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
 
 
 def read(source: BookSource, book: str | None = None) -> Loaded:
-    """The book (``book`` alone, or every book when None), the marks in force and the data
-    version of ``source``."""
-    return Loaded(source.load_book(book), source.load_market(), int(source.data_version()))
+    """The book (``book`` alone, or every book when None), the marks in force, the data version
+    and the base currency of ``source``."""
+    return Loaded(
+        source.load_book(book),
+        source.load_market(),
+        int(source.data_version()),
+        str(source.base_currency()),
+    )
 
 
 @dataclass(frozen=True, repr=False)

@@ -192,6 +192,7 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
+                yield Static("", id="fx-delta", markup=False)
             yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield RevalPane()
@@ -341,7 +342,9 @@ class BlotterApp(App[None]):
                 loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valued.valuation, self.tz, self._row_alert, today)
+            tree = data.BookTree(
+                valued.valuation, self.tz, self._row_alert, today, base=loaded.base_currency
+            )
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
@@ -403,6 +406,10 @@ class BlotterApp(App[None]):
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
         self.query_one("#book-pane").border_subtitle = _pnl_note(state.tree)
+        fx_line = state.tree.fx_delta_words()
+        fx_delta = self.query_one("#fx-delta", Static)
+        fx_delta.update(fx_line)
+        fx_delta.display = bool(fx_line)
         self._refresh_header()
         self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value

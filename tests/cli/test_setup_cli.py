@@ -35,7 +35,7 @@ def _file_state(db: Path) -> tuple[object, ...]:
 def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) -> None:
     db = tmp_path / "own.db"
     out = json.loads(run("create", str(db), "--book", "vol-desk", "--json").stdout)
-    assert out == {"path": str(db), "book": "vol-desk"}
+    assert out == {"path": str(db), "book": "vol-desk", "base_currency": "USD"}
     run("--db", str(db), "underlying", "add", "QQZ", "--kind", "stock", "--currency", "USD",
         "--multiplier", "100", "--div-yield", "1.5%", "--beta", "1.3", "--description", "test")
     run("--db", str(db), "underlying", "add", "QQIX", "--kind", "index", "--currency", "USD",

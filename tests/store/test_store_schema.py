@@ -180,6 +180,8 @@ def test_impossible_rows_are_refused_by_sqlite(populated: Path, what: str, sql: 
         "DELETE FROM mark_set WHERE kind = 'close'",
         "UPDATE contract SET strike = 1",
         "DELETE FROM underlying",
+        "UPDATE base_currency SET currency = 'JPY'",
+        "DELETE FROM base_currency",
     ],
 )
 def test_history_cannot_be_updated_or_deleted(populated: Path, sql: str) -> None:
