@@ -81,6 +81,11 @@ class Session:
     def mark_kind(self) -> str:
         return self.valuation.market.mark_kind
 
+    def marks_age(self, now: datetime, tz: ZoneInfo) -> MarksAge:
+        """How old the marks in force are at ``now``, point by point (``marks_age``)."""
+        market = self.valuation.market
+        return marks_age(self.marks_as_of, now, tz, observed=market.observed_at)
+
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Session(positions={len(self.valuation)}, data_version={self.data_version})"
 
@@ -144,17 +149,47 @@ def age_words(age: timedelta) -> str:
 
 @dataclass(frozen=True)
 class MarksAge:
-    """How old the marks are, in words, and whether they predate the last business day's close."""
+    """How old the marks are, in words, and whether they predate the last business day's close.
+
+    ``points`` and ``stale_points`` count the mark points in force and those observed before that
+    close (both 0 when the points' own times are not known), so one fresh mark cannot make a
+    book of old marks look fresh.
+    """
 
     words: str
     stale: bool
     last_close: datetime | None
+    points: int = 0
+    stale_points: int = 0
+
+    def stale_words(self, tz: ZoneInfo) -> str:
+        """``STALE: 420 of 421 points older than the 12-02 16:00 close`` (empty when fresh)."""
+        if not self.stale:
+            return ""
+        closed = f"{self.last_close.astimezone(tz):%m-%d %H:%M}" if self.last_close else "last"
+        if self.points:
+            n = f"{self.stale_points} of {self.points} points"
+            return f"STALE: {n} older than the {closed} close"
+        return f"STALE: older than the {closed} close"
+
+
+STALE_SLACK = timedelta(minutes=1)
+"""A mark observed this close to the close still counts as of that close."""
 
 
 def marks_age(
-    marks_as_of: datetime, now: datetime, tz: ZoneInfo, calendar_name: str = "NYSE"
+    marks_as_of: datetime,
+    now: datetime,
+    tz: ZoneInfo,
+    calendar_name: str = "NYSE",
+    observed: np.ndarray | None = None,
 ) -> MarksAge:
-    """Age of the marks at ``now``; stale when older than the last business-day close."""
+    """Age of the marks at ``now``; stale when older than the last business-day close.
+
+    ``observed`` are the mark points' own observation instants (UTC ``datetime64``, as
+    ``Market.observed_at``): given, the marks are stale while any point predates that close and
+    the count says how many; else the newest mark (``marks_as_of``) decides.
+    """
     age = now - marks_as_of
     local_now = now.astimezone(tz)
     day: np.datetime64 = np.datetime64(local_now.date(), "D")
@@ -162,8 +197,12 @@ def marks_age(
     if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
         day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
     last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    stale = marks_as_of < last_close - timedelta(minutes=1)
-    return MarksAge(words=age_words(age), stale=bool(stale), last_close=last_close)
+    cut = last_close - STALE_SLACK
+    if observed is not None and len(observed):
+        cut_utc = np.datetime64(cut.astimezone(UTC).replace(tzinfo=None), "us")
+        n_stale = int(np.count_nonzero(np.asarray(observed, dtype="datetime64[us]") < cut_utc))
+        return MarksAge(age_words(age), n_stale > 0, last_close, len(observed), n_stale)
+    return MarksAge(words=age_words(age), stale=marks_as_of < cut, last_close=last_close)
 
 
 def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:

@@ -110,6 +110,50 @@ def test_marks_age_is_stale_once_a_business_day_close_has_passed() -> None:
     assert session.age_words(timedelta(minutes=-1)) == "dated after the valuation time:"
 
 
+def test_one_fresh_mark_does_not_make_old_points_fresh() -> None:
+    """Staleness is per point: 420 of 421 points marked Monday, one marked Wednesday morning,
+    seen Wednesday after Tuesday's close; the newest mark alone would say fresh."""
+    monday = np.datetime64("2026-11-30T21:00:00", "us")  # 16:00 New York
+    fresh = datetime(2026, 12, 2, 14, 30, tzinfo=UTC)  # Wednesday 09:30 New York
+    observed = np.array([monday] * 420 + [np.datetime64(fresh.replace(tzinfo=None), "us")])
+    now = fresh + timedelta(minutes=30)
+    newest_only = session.marks_age(fresh, now, NEW_YORK)
+    assert not newest_only.stale
+    age = session.marks_age(fresh, now, NEW_YORK, observed=observed)
+    assert (age.stale, age.points, age.stale_points) == (True, 421, 420)
+    assert age.stale_words(NEW_YORK) == "STALE: 420 of 421 points older than the 12-01 16:00 close"
+    observed[:] = np.datetime64(fresh.replace(tzinfo=None), "us")  # every point marked again
+    again = session.marks_age(fresh, now, NEW_YORK, observed=observed)
+    assert (again.stale, again.stale_points, again.stale_words(NEW_YORK)) == (False, 0, "")
+
+
+def test_a_close_carries_old_points_stale_into_the_session(tmp_path: Path) -> None:
+    """Marks made Monday, a close written Tuesday evening with only the spot marked again: the
+    session still counts the vol and rate as older than Tuesday's close (a close re-dates
+    nothing)."""
+    path = tmp_path / "book.db"
+    monday = datetime(2026, 11, 30, 20, 0, tzinfo=UTC)
+    clock = [monday]
+    st = store.create_store(path, clock=lambda: clock[0])
+    try:
+        st.add_underlying("XYZ", "stock", "USD", 100.0, description="invented for the tests")
+        st.log_spot("XYZ", 100.0)
+        st.log_vol("XYZ", EXPIRY, 0.30)
+        st.log_rate("USD", 365, 0.04)
+        st.add_trade("desk", "XYZ", 10, 3.0, EXPIRY, 105.0, True, create_book=True)
+        clock[0] = datetime(2026, 12, 1, 21, 10, tzinfo=UTC)  # Tuesday 16:10 New York
+        st.log_spot("XYZ", 101.0)
+        clock[0] = datetime(2026, 12, 1, 21, 30, tzinfo=UTC)  # 16:30: the close
+        st.commit_close()
+        desk = session.value(session.read(st), clock[0], NEW_YORK)
+    finally:
+        st.close()
+    assert desk.mark_kind == "close" and desk.marks_as_of == clock[0]
+    age = desk.marks_age(clock[0] + timedelta(hours=1), NEW_YORK)
+    assert (age.points, age.stale_points) == (3, 2)
+    assert age.stale_words(NEW_YORK) == "STALE: 2 of 3 points older than the 12-01 16:00 close"
+
+
 def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
     with store.open_store(xyz_db) as st:
         st.add_underlying("ABC", "stock", "EUR", 100.0, description="invented, never marked")

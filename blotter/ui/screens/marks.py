@@ -118,7 +118,7 @@ class MarksScreen(DeskScreen):
         self.show(message.view)
         if message.review:
             self.say("")
-            review = close_review.close_review(message.view, self.host.clock())
+            review = close_review.close_review(message.view, self.host.clock(), self.host.tz)
             self.app.push_screen(CloseReviewScreen(self.host, review), self._close_reviewed)
 
     def on_screen_failed(self, message: ScreenFailed) -> None:
@@ -131,7 +131,7 @@ class MarksScreen(DeskScreen):
         cursor = self.cursor_point()
         table.clear()
         for p in view.points:
-            when = f"{p.marked_at.astimezone(tz):%m-%d %H:%M}" if p.marked_at else ""
+            when = f"{p.observed_at.astimezone(tz):%m-%d %H:%M}" if p.observed_at else ""
             value = Text(p.shown(p.value), justify="right")
             if p.value is None:
                 value.stylize("bold reverse")

@@ -10,7 +10,6 @@ from typing import Any
 from rich.text import Text
 from textual.widgets import Static
 
-from blotter.desk.session import marks_age
 from blotter.printable import printable
 from blotter.ui.data import BookState
 
@@ -24,7 +23,7 @@ class HeaderLine(Static):
     def show(self, state: BookState, now: datetime, tz: Any, alerts: list[str]) -> None:
         """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words."""
         desk = state.session
-        age = marks_age(desk.marks_as_of, now, tz)
+        age = desk.marks_age(now, tz)
         text = Text()
         text.append(f"Book: {printable(desk.book_name)}", style="bold")
         if state.read_only:  # first, so a narrow terminal never cuts it off
@@ -41,8 +40,7 @@ class HeaderLine(Static):
         else:
             text.append(f" │ {desk.mark_kind} marks {when} ({age.words} old)")
         if age.stale and marked:
-            closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
-            text.append(f" STALE: older than the {closed} close", style="bold reverse")
+            text.append(f" {age.stale_words(tz)}", style="bold reverse")
         text.append(f" │ {printable(Path(state.db_path).name)}")
         for alert in alerts:
             text.append(" │ ")
