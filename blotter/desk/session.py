@@ -118,6 +118,17 @@ def value(
     return Session(valuation, loaded.data_version, when)
 
 
+REVALUE_EVERY = timedelta(minutes=1)
+"""How often an idle app values the book again at the clock's time, so "valued 10:04" is current."""
+
+
+def revalue_due(valued_at: datetime, now: datetime) -> bool:
+    """True when ``now`` is in a later minute than ``valued_at`` (the shown time is whole
+    minutes), so a watcher asks for one revaluation a minute and none in between."""
+    step = REVALUE_EVERY.total_seconds()
+    return int(now.timestamp() // step) > int(valued_at.timestamp() // step)
+
+
 def roll_days(valuation: risk.BookValuation, move: Move | None) -> float:
     """Calendar days of ``move``'s day roll from the valuation time (business days through
     ``scenario.roll_time``); 0 without a move."""
