@@ -437,20 +437,47 @@ def mark_spot(
     help="Strike of the point; leave out for the ATM vol: the vol at the strike equal to the "
     "spot among the expiry's strike vols, or of every strike when it has none.",
 )
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Write a vol more than 10 vol points from the one in force, or under 3%, "
+    "which is otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_vol(
-    symbol: str, expiry: str, vol: str, strike: float | None, as_json: bool, db_path: str | None
+    symbol: str,
+    expiry: str,
+    vol: str,
+    strike: float | None,
+    force: bool,
+    as_json: bool,
+    db_path: str | None,
 ) -> None:
     """Log the implied VOL (0.25 or 25%) of SYMBOL at EXPIRY (YYYY-MM-DD) and --strike (or ATM)."""
+    from blotter.desk import entry
+
     v = parse_vol(vol)
     where = f" K={strike:g}" if strike is not None else " ATM"
-    _log(
-        db_path,
-        as_json,
-        lambda s: s.log_vol(symbol, expiry, v, strike=strike),
-        f"vol {symbol} {expiry}{where} {v:.2%}",
-    )
+
+    def log(s: Any) -> int:
+        _refuse_point(s, "vol", symbol=symbol, expiry=expiry)
+        odd = entry.implausible_vol(entry.vol_in_force(s, symbol, expiry, strike), v)
+        if odd and not force:
+            raise click.ClickException(f"{odd}: nothing written (--force writes it)")
+        return int(s.log_vol(symbol, expiry, v, strike=strike))
+
+    _log(db_path, as_json, log, f"vol {symbol} {expiry}{where} {v:.2%}")
+
+
+def _refuse_point(st: Any, kind: str, **point: Any) -> None:
+    """A point no position can use (``desk.entry.refuse_mark_point``) as a ``ClickException``."""
+    from blotter.desk import entry
+
+    try:
+        entry.refuse_mark_point(st, kind, st.now(), **point)
+    except ValueError as exc:
+        raise click.ClickException(f"{exc}: nothing written") from None
 
 
 @mark.command("rate")
@@ -464,12 +491,12 @@ def mark_rate(
 ) -> None:
     """Log the zero RATE (0.04 or 4%, continuously compounded) of CURRENCY at TENOR_DAYS."""
     r = parse_decimal_or_percent(rate, "rate")
-    _log(
-        db_path,
-        as_json,
-        lambda s: s.log_rate(currency, tenor_days, r),
-        f"rate {currency} {tenor_days} d {r:.4%}",
-    )
+
+    def log(s: Any) -> int:
+        _refuse_point(s, "rate", currency=currency)
+        return int(s.log_rate(currency, tenor_days, r))
+
+    _log(db_path, as_json, log, f"rate {currency} {tenor_days} d {r:.4%}")
 
 
 @mark.command("divyield")
