@@ -416,15 +416,26 @@ def _log(db_path: str | None, as_json: bool, action: Callable[[Any], int], what:
 @click.argument("symbol")
 @click.argument("price", type=FINITE)
 @click.option("--note", help="Free note kept with the mark.")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Write a spot more than 20% from the one in force, otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_spot(
-    symbol: str, price: float, note: str | None, as_json: bool, db_path: str | None
+    symbol: str, price: float, note: str | None, force: bool, as_json: bool, db_path: str | None
 ) -> None:
     """Log the spot PRICE of SYMBOL (in its currency, per unit)."""
-    _log(
-        db_path, as_json, lambda s: s.log_spot(symbol, price, note=note), f"spot {symbol} {price:g}"
-    )
+    from blotter.desk import entry
+
+    def log(s: Any) -> int:
+        odd = entry.implausible_spot(entry.mark_in_force(s, "spot", symbol), price)
+        if odd and not force:
+            raise click.ClickException(f"{odd}: nothing written (--force writes it)")
+        return int(s.log_spot(symbol, price, note=note))
+
+    _log(db_path, as_json, log, f"spot {symbol} {price:g}")
 
 
 @mark.command("vol")
@@ -462,7 +473,7 @@ def mark_vol(
 
     def log(s: Any) -> int:
         _refuse_point(s, "vol", symbol=symbol, expiry=expiry)
-        odd = entry.implausible_vol(entry.vol_in_force(s, symbol, expiry, strike), v)
+        odd = entry.implausible_vol(entry.mark_in_force(s, "vol", symbol, expiry, strike), v)
         if odd and not force:
             raise click.ClickException(f"{odd}: nothing written (--force writes it)")
         return int(s.log_vol(symbol, expiry, v, strike=strike))

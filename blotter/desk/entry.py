@@ -299,16 +299,21 @@ def refuse_mark_point(
         )
 
 
-def vol_in_force(
-    st: Store, symbol: str, expiry: date | str, strike: float | None
+def mark_in_force(
+    st: Store,
+    kind: str,
+    symbol: str,
+    expiry: date | str | None = None,
+    strike: float | None = None,
 ) -> float | None:
-    """The vol mark in force at ``symbol``, ``expiry`` and ``strike`` (None: ATM), if any."""
-    day = str(expiry).strip()
+    """The ``kind`` mark in force of ``symbol`` (a vol: at ``expiry`` and ``strike``, None the
+    ATM point), if any."""
+    day = None if expiry is None else str(expiry).strip()
     for m in st.marks():
         if (
-            m.kind == "vol"
+            m.kind == kind
             and m.symbol == symbol
-            and str(m.expiry) == day
+            and (None if m.expiry is None else str(m.expiry)) == day
             and (m.strike is None if strike is None else m.strike == strike)
         ):
             return m.value

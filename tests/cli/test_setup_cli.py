@@ -67,7 +67,7 @@ def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) 
         (["QQY", "--calendar", "NOWHERE"], "unknown exchange calendar"),
         (["QQY", "--zone", "Mars/Olympus"], "unknown time zone"),
         (["QQY", "--cutoff", "4pm"], "HH:MM"),
-        (["QQY", "--div-yield", "150%"], "div yield must be from -1 to 1"),
+        (["QQY", "--div-yield", "150%"], "a dividend yield must be from -100% to 100%, got 150%"),
         (["QQY", "--multiplier", "0"], "multiplier must be from 1e-06 to 10,000,000"),
         (["QQY", "--beta", "40"], "beta must be from -20 to 20"),
     ],

@@ -228,7 +228,7 @@ def test_marks_no_position_can_use_are_refused_in_words(
 
 def test_the_command_line_refuses_the_same_marks_and_asks_for_force(xyz_db: Path) -> None:
     """``mark vol`` and ``mark rate`` refuse what the app refuses, in words, writing nothing;
-    a vol far from the one in force needs --force."""
+    a vol or a spot far from the one in force needs --force."""
     from blotter.store import use_clock
 
     def run(*args: str) -> Any:
@@ -243,6 +243,7 @@ def test_the_command_line_refuses_the_same_marks_and_asks_for_force(xyz_db: Path
             (("rate", "EUR", "365", "3%"), "EUR is not a currency of this file"),
             (("vol", "XYZ", str(EXPIRY), "45%"), "+15.00 vol points from the mark in force 30.00%"),
             (("vol", "XYZ", str(EXPIRY), "2%"), "2.00% is -28.00 vol points"),
+            (("spot", "XYZ", "10"), "10 is -90.0% from the spot in force 100 (more than 20%)"),
         ):
             result = run(*args)
             assert result.exit_code == 1 and words in result.output, result.output
@@ -252,4 +253,6 @@ def test_the_command_line_refuses_the_same_marks_and_asks_for_force(xyz_db: Path
         forced = run("vol", "XYZ", str(EXPIRY), "45%", "--force")
         assert forced.exit_code == 0, forced.output
         with store.open_store(xyz_db, read_only=True) as st:
-            assert entry.vol_in_force(st, "XYZ", EXPIRY, None) == pytest.approx(0.45)
+            assert entry.mark_in_force(st, "vol", "XYZ", EXPIRY) == pytest.approx(0.45)
+            assert entry.mark_in_force(st, "spot", "XYZ") == pytest.approx(100.0)
+            assert entry.mark_in_force(st, "vol", "XYZ", EXPIRY, 105.0) is None
