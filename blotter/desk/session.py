@@ -143,6 +143,74 @@ def roll_days(valuation: risk.BookValuation, move: Move | None) -> float:
     return float((t1 - t0) / np.timedelta64(1, "s")) / 86400.0
 
 
+ABS_SPOT_WARN = 0.10
+"""An absolute spot move larger than this fraction (10%) of a spot it moves is warned about: a
+slip for a relative move (``spot -3`` for ``spot -3%``) is the likely cause."""
+
+
+@dataclass(frozen=True)
+class MoveWords:
+    """A move in words with every amount's unit, and a warning (empty: none) about it."""
+
+    words: str
+    warning: str = ""
+
+
+def _amount(x: float) -> str:
+    """A signed amount to cents, or to six digits when smaller than a cent."""
+    return f"{x:+,.2f}" if x == 0 or abs(x) >= 0.01 else f"{x:+.6g}"
+
+
+def move_words(valuation: risk.BookValuation, move: Move) -> MoveWords:
+    """``move`` said with units (``every spot -3.00 USD``, ``DEMOA spot +2.50%``, ``vol +2.00
+    pts``) for the valuation's book, and a warning when an absolute spot move is more than
+    ``ABS_SPOT_WARN`` of a spot it moves."""
+    unders = valuation.book.underlyings
+    spots = valuation.market.spots
+    symbols = [s for s in unders.symbols if s in spots]
+    ccy = dict(zip(unders.symbols, unders.currencies, strict=True))
+    words: list[str] = []
+    large: list[tuple[float, str, float]] = []  # (fraction of spot, symbol, spot)
+    for shift in move.spot:
+        who = f"{shift.symbol} spot" if shift.symbol else "every spot"
+        moved = [shift.symbol] if shift.symbol else symbols
+        units = sorted({ccy[s] for s in moved if s in ccy})
+        money = units[0] if len(units) == 1 else "in its own currency"
+        if shift.unit == "%":
+            text = f"{who} {shift.amount:+.2f}%"
+        elif shift.unit == "level":
+            text = f"{who} set to {shift.amount:,.6g} {money}"
+        else:
+            text = f"{who} {_amount(shift.amount)} {money}"
+            for s in moved:
+                if s in spots and abs(shift.amount) > ABS_SPOT_WARN * spots[s]:
+                    large.append((shift.amount / spots[s], s, spots[s]))
+        words.append(text + (" × beta" if shift.beta else ""))
+    for v in move.vol:
+        where = f"{v.symbol} vol" if v.symbol else "vol"
+        amount = f"{v.amount:+.2f} pts" if v.unit == "pts" else f"{v.amount:+.2f}% of itself"
+        words.append(f"{where} {amount}" + (" weighted by √T" if v.weighted else ""))
+    if move.days:
+        words.append(f"{move.days:g} calendar day{'s' if move.days != 1 else ''} on")
+    if move.bdays:
+        words.append(f"{move.bdays} business day{'s' if move.bdays != 1 else ''} on")
+    if move.rate_bp:
+        words.append(f"rates {move.rate_bp:+g} bp")
+    from blotter.scenario.grammar import STICKY_RULE
+
+    if move.vol_rule != STICKY_RULE:
+        words.append(f"vols {move.vol_rule}")
+    warning = ""
+    if large:
+        frac, sym, spot = max(large, key=lambda t: abs(t[0]))
+        more = f" (and {len(large) - 1} more spots)" if len(large) > 1 else ""
+        warning = (
+            f"an absolute move of {_amount(frac * spot)} {ccy.get(sym, '')} is {frac * 100:+.1f}% "
+            f"of {sym}'s spot {spot:,.6g}{more}: for a relative move type %"
+        )
+    return MoveWords(", ".join(words) or "no move", warning)
+
+
 def age_words(age: timedelta) -> str:
     """How old something is, in words: ``"35 min"``, ``"3 h 10 min"``, ``"2 days 4 h"``."""
     seconds = int(age.total_seconds())

@@ -452,7 +452,8 @@ class BlotterApp(App[None]):
             and self.result is not None
             and move.describe() == self.move.describe()
         ):
-            bar.show_ok(move.describe(), text)  # same move as shown (spacing, case): keep it
+            # the same move as shown (spacing, case): keep it, and its warning
+            bar.show_ok(move.describe(), text, self.query_one(MovePane).warning)
             return
         # Debounce on the trailing edge only: a keystroke with no revaluation in flight is
         # applied at once; one that arrives mid-revaluation waits, so a burst collapses to one.
@@ -497,8 +498,9 @@ class BlotterApp(App[None]):
             return
         previous_days = self._roll_days(self.move)
         self.move_text, self.move, self.result = message.text, message.move, message.result
-        self.query_one(MovePane).show(message.text, message.move.describe(), message.result)
-        self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
+        said = session.move_words(self.state.valuation, message.move)
+        self.query_one(MovePane).show(message.text, said.words, message.result, said.warning)
+        self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text, said.warning)
         self._stamp_move_painted()
         days = self._roll_days(message.move)
         if days != previous_days or self.query_one(LadderPane).ladder is None:

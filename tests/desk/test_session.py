@@ -167,3 +167,36 @@ def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
     )
     assert session.missing_by_name(unvalued, most=1) == "ABC: spot, vol; 1 more"
     assert session.unvalued_words(()) == ""
+
+
+@pytest.mark.parametrize(
+    "text,words,warning",
+    [
+        ("spot -3%", "every spot -3.00%", ""),
+        ("spot -3", "every spot -3.00 USD", ""),  # 3% of XYZ's 100: no warning
+        (
+            "spot -12",
+            "every spot -12.00 USD",
+            "an absolute move of -12.00 USD is -12.0% of XYZ's spot 100: for a relative move "
+            "type %",
+        ),
+        ("XYZ spot =101", "XYZ spot set to 101 USD", ""),
+        ("spot -3% beta vol -10%", "every spot -3.00% × beta, vol -10.00% of itself", ""),
+        (
+            "vol +2 weighted days 1 rate +25bp moneyness",
+            "vol +2.00 pts weighted by √T, 1 calendar day on, rates +25 bp, vols sticky moneyness",
+            "",
+        ),
+        ("bdays 2", "2 business days on", ""),
+    ],
+)
+def test_a_move_is_said_with_its_units_and_a_large_absolute_spot_move_is_warned(
+    xyz_db: Path, text: str, words: str, warning: str
+) -> None:
+    """``spot -3`` (currency units) and ``spot -3%`` read apart in words; an absolute move over
+    10% of a spot it moves is warned about (the slip for a relative move)."""
+    with store.open_store(xyz_db, read_only=True) as st:
+        desk = session.value(session.read(st), NOW, NEW_YORK)
+    move = scenario.parse_move(text, ["XYZ"])
+    said = session.move_words(desk.valuation, move)
+    assert (said.words, said.warning) == (words, warning)

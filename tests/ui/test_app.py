@@ -108,7 +108,7 @@ async def test_history_recalls_moves(demo_app: BlotterApp) -> None:
             await pilot.press("enter")
             bar.value = ""
             await settle(demo_app, pilot)
-        await pilot.press("up")
+        await pilot.press("f2", "up")  # Enter went back to the book: F2 returns to the bar
         assert bar.value == "vol +2"
         await pilot.press("up")
         assert bar.value == "spot -1%"
@@ -361,6 +361,25 @@ async def test_the_valuation_time_moves_on_its_own_once_a_minute(demo_db: Path) 
         for _ in range(50):  # asked once for that minute
             await pilot.pause(0.01)
         assert app.book_seq == 2
+
+
+async def test_an_absolute_spot_move_reads_apart_from_a_relative_one(demo_app: BlotterApp) -> None:
+    """``spot -3`` is said as currency in the Move pane's title and, being more than 10% of a
+    demo spot, warned about in the title and the bar (not a plain "applied"); ``spot -3%`` is
+    said as percent with no warning."""
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        pane = demo_app.query_one(MovePane)
+        await type_move(demo_app, pilot, "spot -3")
+        title = str(pane.border_title)
+        assert title.startswith("Move: every spot -3.00 USD ─ CHECK: an absolute move of -3.00 USD")
+        assert "for a relative move type %" in title
+        bar = str(demo_app.query_one("#whatif-message").render())
+        assert bar.startswith("⚠ applied; check: an absolute move of -3.00 USD is")
+        await pilot.press("percent_sign")
+        await settle(demo_app, pilot)
+        assert str(pane.border_title).startswith("Move: every spot -3.00% ─ 2nd-order estimate")
+        assert str(demo_app.query_one("#whatif-message").render()) == "✓ applied"
 
 
 async def test_expiring_positions_and_pin_risk_listed(demo_app: BlotterApp) -> None:
