@@ -173,6 +173,12 @@ def trade() -> None:
     default=None,
     help="Settlement (default: the underlying's).",
 )
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Book a price more than half its model value (and over 0.05) away from it, which is "
+    "otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
 def trade_add(
@@ -189,6 +195,7 @@ def trade_add(
     american: bool | None,
     multiplier: float | None,
     cash_settled: bool | None,
+    force: bool,
     as_json: bool,
     db_path: str | None,
 ) -> None:
@@ -208,22 +215,56 @@ def trade_add(
                     f"({', '.join(books) if books else 'none yet; start one with --new-book'})"
                 )
             book = books[0]
-        tid = store.add_trade(
-            book,
-            symbol,
-            quantity,
-            price,
-            expiry,
-            strike,
-            is_call,
-            trade_time=when,
-            note=note,
-            american=american,
-            multiplier=multiplier,
-            cash_settled=cash_settled,
-            create_book=new_book,
-        )
+        with store.atomic():  # the store's checks first; a refused price writes nothing
+            tid = store.add_trade(
+                book,
+                symbol,
+                quantity,
+                price,
+                expiry,
+                strike,
+                is_call,
+                trade_time=when,
+                note=note,
+                american=american,
+                multiplier=multiplier,
+                cash_settled=cash_settled,
+                create_book=new_book,
+            )
+            if not force:
+                _refuse_far_price(store, _typed_terms(symbol, expiry, strike, is_call), price)
     _emit(as_json, {"trade_id": tid, "book": book}, f"booked trade {tid} in book {book}")
+
+
+def _refuse_far_price(st: Any, terms: Any, price: float) -> None:
+    """A price far from the model value (``desk.session.price_question``) as a refusal."""
+    from blotter.desk import session
+
+    if terms is None:
+        return
+    question = session.price_question(st, terms, price, st.now(), desk_zone())
+    if question:
+        raise click.ClickException(f"{question}: nothing written (--force books it)")
+
+
+def _typed_terms(
+    symbol: str, expiry: str | None, strike: float | None, is_call: bool | None
+) -> Any:
+    """``desk.entry.ContractTerms`` of a ``trade add``; None when they do not read (the store
+    then says what is wrong)."""
+    from blotter.desk import entry
+
+    if expiry is None and strike is None and is_call is None:
+        return entry.ContractTerms(symbol, None, None, None)
+    try:
+        return entry.parse_terms(
+            symbol,
+            expiry or "",
+            "" if strike is None else repr(strike),
+            "" if is_call is None else ("C" if is_call else "P"),
+        )
+    except ValueError:
+        return None
 
 
 @trade.command("cancel")
@@ -246,6 +287,9 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.option("--time", "trade_time", help=f"New deal time, {TIME_HELP}.")
 @click.option("--note", help="New note.")
 @click.option("--book", help="Move to this book (it must exist).")
+@click.option(
+    "--force", is_flag=True, help="Amend to a price far from the model value (see trade add)."
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
 def trade_amend(
@@ -256,12 +300,15 @@ def trade_amend(
     trade_time: str | None,
     note: str | None,
     book: str | None,
+    force: bool,
     as_json: bool,
     db_path: str | None,
 ) -> None:
     """Amend trade TRADE_ID: cancel it and book a replacement that names it."""
+    from blotter.desk import session
+
     when = _time_option(trade_time)
-    with _store(db_path) as store:
+    with _store(db_path) as store, store.atomic():
         new_id = store.amend_trade(
             trade_id,
             reason=reason,
@@ -271,6 +318,9 @@ def trade_amend(
             note=note,
             book=book,
         )
+        old = next((t for t in store.trades() if t.trade_id == trade_id), None)
+        if old is not None and price is not None and not force:
+            _refuse_far_price(store, session.terms_of(old), price)
     _emit(
         as_json,
         {"trade_id": new_id, "replaces": trade_id},

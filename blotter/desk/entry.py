@@ -516,6 +516,29 @@ def parse_new_trade(fields: Mapping[str, str], symbols: Sequence[str]) -> NewTra
     return NewTrade(terms, book, qty, price, fields.get("note", ""))
 
 
+FAR_PRICE_FRACTION = 0.5
+"""A trade price off the model value by more than this fraction of it (50%) asks first..."""
+
+FAR_PRICE_MIN = 0.05
+"""...when it is also off by more than this, in price units: five ticks of 0.01, a common
+option tick (common practice), so a cheap option's spread does not ask."""
+
+
+def price_question(price: float, model: float | None, label: str) -> str:
+    """Why booking ``label`` at ``price`` wants a confirmation, given the ``model`` value per
+    unit from the marks in force (None: not valued, nothing to compare); empty when it is near.
+    A slipped price (a future amended from 4,600 to 1.23) is the case it is for."""
+    if model is None or not math.isfinite(model):
+        return ""
+    off = price - model
+    if abs(off) <= FAR_PRICE_FRACTION * abs(model) or abs(off) <= FAR_PRICE_MIN:
+        return ""
+    return (
+        f"price {price:,.6g} for {label} is {off:+,.6g} from its model value {model:,.6g} "
+        f"on the marks in force (more than {FAR_PRICE_FRACTION * 100:g}% of it)"
+    )
+
+
 def write_ticket(st: Store, ticket: Ticket) -> str:
     """Write ``ticket`` through the store (each a new row) and say what was written."""
     if isinstance(ticket, Cancel):

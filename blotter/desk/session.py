@@ -23,9 +23,11 @@ from blotter.desk.trials import TrialTrade, trial_book
 
 if TYPE_CHECKING:
     from blotter.book import Book
+    from blotter.desk.entry import ContractTerms
     from blotter.engine import BoundaryCache
     from blotter.market import Market
     from blotter.scenario import Move
+    from blotter.store import ContractRecord, Store, TradeRecord
 
 
 class BookSource(Protocol):
@@ -127,6 +129,53 @@ def revalue_due(valued_at: datetime, now: datetime) -> bool:
     minutes), so a watcher asks for one revaluation a minute and none in between."""
     step = REVALUE_EVERY.total_seconds()
     return int(now.timestamp() // step) > int(valued_at.timestamp() // step)
+
+
+def model_price(
+    live: Book, market: Market, contract: ContractRecord, at: datetime, tz: ZoneInfo
+) -> float | None:
+    """The model value of one unit of ``contract`` on ``market`` at ``at`` (``risk.value_book``
+    on a one-row book; an underlying or a future: its spot), None when it cannot be valued."""
+    if contract.option_type == "U":
+        return market.spots.get(contract.symbol)
+    trial = TrialTrade(0, contract, 1, 0.0, live.name)
+    try:
+        one = trial_book(live.take([]), [trial])
+        t = np.datetime64(at.astimezone(UTC).replace(tzinfo=None), "s")
+        valued = risk.value_book(one, market, t, tz=tz)
+    except (ValueError, KeyError):
+        return None
+    if len(valued.book) != 1 or not bool(valued.live[0]):
+        return None  # left out for a missing mark, or expired
+    return float(valued.value[0] / valued.units[0])
+
+
+def price_question(
+    st: Store, terms: ContractTerms, price: float, at: datetime, tz: ZoneInfo
+) -> str:
+    """``entry.price_question`` for booking ``terms`` at ``price`` in the book file ``st``,
+    valued on its marks in force at ``at`` (a contract new to the file on its defaults)."""
+    from blotter.desk import entry
+    from blotter.desk.trials import trial_contract
+
+    contract = entry.find_contract(st.contracts(), terms)
+    if contract is None:
+        records = {r["symbol"]: r for r in st.underlying_records()}
+        try:
+            contract = trial_contract(records, terms, ())
+        except ValueError:
+            return ""  # the store refuses it in its own words
+    model = model_price(st.load_book(), st.load_market(), contract, at, tz)
+    return entry.price_question(price, model, contract.label)
+
+
+def terms_of(trade: TradeRecord) -> ContractTerms:
+    """The contract terms of a booked trade, as a typed ticket gives them."""
+    from blotter.desk.entry import ContractTerms
+
+    if trade.option_type == "U":
+        return ContractTerms(trade.symbol, None, None, None)
+    return ContractTerms(trade.symbol, trade.expiry, trade.strike, trade.option_type == "C")
 
 
 def roll_days(valuation: risk.BookValuation, move: Move | None) -> float:
@@ -242,13 +291,14 @@ class MarksAge:
     stale_points: int = 0
 
     def stale_words(self, tz: ZoneInfo) -> str:
-        """``STALE: 420 of 421 points older than the 12-02 16:00 close`` (empty when fresh)."""
+        """``STALE: 420 of 421 marked before 12-02 16:00 close`` (empty when fresh); short, so
+        the file name still fits the header at 80 columns."""
         if not self.stale:
             return ""
         closed = f"{self.last_close.astimezone(tz):%m-%d %H:%M}" if self.last_close else "last"
         if self.points:
-            n = f"{self.stale_points} of {self.points} points"
-            return f"STALE: {n} older than the {closed} close"
+            n = f"{self.stale_points} of {self.points}"
+            return f"STALE: {n} marked before {closed} close"
         return f"STALE: older than the {closed} close"
 
 

@@ -203,7 +203,7 @@ def test_an_atm_vol_beside_strike_vols_is_the_smile_point_at_the_spot(tmp_path: 
     run(*g, "mark", "vol", "QQV", "2027-03-19", "4%")
     for strike in ("95", "100", "105"):
         run(*g, "trade", "add", "QQV", "--expiry", "2027-03-19", "--strike", strike, "--call",
-            "--qty", "1", "--price", "1", "--time", "2026-12-01T15:00:00Z")
+            "--qty", "1", "--price", "1", "--time", "2026-12-01T15:00:00Z", "--force")
 
     def vols() -> dict[str, float]:
         out = json.loads(run(*g, "risk", "--by", "position", "--json", "--at",

@@ -121,7 +121,7 @@ def test_one_fresh_mark_does_not_make_old_points_fresh() -> None:
     assert not newest_only.stale
     age = session.marks_age(fresh, now, NEW_YORK, observed=observed)
     assert (age.stale, age.points, age.stale_points) == (True, 421, 420)
-    assert age.stale_words(NEW_YORK) == "STALE: 420 of 421 points older than the 12-01 16:00 close"
+    assert age.stale_words(NEW_YORK) == "STALE: 420 of 421 marked before 12-01 16:00 close"
     observed[:] = np.datetime64(fresh.replace(tzinfo=None), "us")  # every point marked again
     again = session.marks_age(fresh, now, NEW_YORK, observed=observed)
     assert (again.stale, again.stale_points, again.stale_words(NEW_YORK)) == (False, 0, "")
@@ -151,7 +151,7 @@ def test_a_close_carries_old_points_stale_into_the_session(tmp_path: Path) -> No
     assert desk.mark_kind == "close" and desk.marks_as_of == clock[0]
     age = desk.marks_age(clock[0] + timedelta(hours=1), NEW_YORK)
     assert (age.points, age.stale_points) == (3, 2)
-    assert age.stale_words(NEW_YORK) == "STALE: 2 of 3 points older than the 12-01 16:00 close"
+    assert age.stale_words(NEW_YORK) == "STALE: 2 of 3 marked before 12-01 16:00 close"
 
 
 def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
@@ -200,3 +200,63 @@ def test_a_move_is_said_with_its_units_and_a_large_absolute_spot_move_is_warned(
     move = scenario.parse_move(text, ["XYZ"])
     said = session.move_words(desk.valuation, move)
     assert (said.words, said.warning) == (words, warning)
+
+
+AT_T0 = datetime(2026, 12, 1, 21, 0, tzinfo=UTC)
+"""``T0`` as an aware time: 16:00 New York, 45 days before ``EXPIRY``'s cut-off."""
+
+
+@pytest.mark.parametrize("strike,call", [(105.0, True), (95.0, False), (110.0, False)])
+def test_the_model_value_of_a_contract_is_quantlibs(
+    xyz_db: Path, strike: float, call: bool
+) -> None:
+    """A contract booked or not (110 P is new to the file) is valued on the marks in force as
+    QuantLib's analytic European engine values it; the underlying at its spot."""
+    from blotter.desk import entry
+    from blotter.desk.trials import trial_contract
+
+    with store.open_store(xyz_db, read_only=True) as st:
+        terms = ContractTerms("XYZ", EXPIRY, strike, call)
+        contract = entry.find_contract(st.contracts(), terms) or trial_contract(
+            {r["symbol"]: r for r in st.underlying_records()}, terms, ()
+        )
+        live, market = st.load_book(), st.load_market()
+        assert session.model_price(live, market, contract, AT_T0, NEW_YORK) == pytest.approx(
+            quantlib_european(call, strike), rel=1e-9
+        )
+        under = trial_contract(
+            {"XYZ": st.underlying_records()[0]}, ContractTerms("XYZ", None, None, None), ()
+        )
+        assert session.model_price(live, market, under, AT_T0, NEW_YORK) == 100.0
+
+
+@pytest.mark.parametrize(
+    "price,asked",
+    [(3.0, False), (1.0, True), (9.0, True), (0.1, True)],
+)
+def test_a_price_far_from_the_model_value_is_questioned(
+    xyz_db: Path, price: float, asked: bool
+) -> None:
+    """The rule: off by more than half the model value and by more than 0.05 asks; the 105 C is
+    worth about 2.37 by QuantLib, so 3.00 passes and 1.00, 9.00 and 0.10 ask."""
+    model = quantlib_european(True, 105.0)
+    with store.open_store(xyz_db, read_only=True) as st:
+        terms = ContractTerms("XYZ", EXPIRY, 105.0, True)
+        question = session.price_question(st, terms, price, AT_T0, NEW_YORK)
+    assert bool(question) is asked
+    if asked:
+        assert question.startswith(f"price {price:g} for XYZ 2027-01-15 105 C is ")
+        assert f"from its model value {model:,.6g} on the marks in force" in question
+
+
+def test_the_price_rule_in_numbers() -> None:
+    """More than 50% of the model value and more than 0.05 (five 0.01 ticks, common practice)."""
+    from blotter.desk import entry
+
+    assert entry.price_question(0.09, 0.05, "X") == ""  # 80% off, but only 0.04
+    assert entry.price_question(0.11, 0.05, "X") != ""  # 120% off and 0.06
+    assert entry.price_question(1.23, 4600.0, "F") == (
+        "price 1.23 for F is -4,598.77 from its model value 4,600 on the marks in force "
+        "(more than 50% of it)"
+    )
+    assert entry.price_question(1.23, None, "F") == ""  # not valued: nothing to compare with

@@ -271,7 +271,7 @@ async def test_stale_marks_flagged_in_words(demo_db: Path) -> None:
         await settle(app, pilot)
         # Monday 10:00: the last close was Friday 2026-12-04 at 16:00 New York.
         header = str(app.query_one("#header-line").render())
-        assert "STALE: 421 of 421 points older than the 12-04 16:00 close" in header
+        assert "STALE: 421 of 421 marked before 12-04 16:00 close" in header
 
 
 async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:

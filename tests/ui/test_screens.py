@@ -396,7 +396,7 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         await pilot.press("a")
         await pilot.pause()
         assert isinstance(app.screen, TradeForm)
-        await fill(pilot, "DEMOA", "2027-01-15", "201", "c", "5", "3.25")
+        await fill(pilot, "DEMOA", "2027-01-15", "201", "c", "5", "1.75")
         await pilot.press("enter")
         await pilot.pause()
         assert "New contract DEMOA 2027-01-15 201 C will be created" in str(
@@ -415,7 +415,7 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         assert (last.contract, last.quantity, last.price, last.state) == (
             "DEMOA 2027-01-15 201 C",
             5,
-            3.25,
+            1.75,
             "live",
         )
         assert len(screen.records) == n + 1
@@ -423,6 +423,28 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         await pilot.press("slash", *"2027-01-15 201")
         await pilot.pause()
         assert screen.shown_ids == [str(last.trade_id)]
+
+
+async def test_a_trade_price_far_from_the_model_value_asks_before_booking(demo_db: Path) -> None:
+    """A DEMOFU hedge at 1.23 (the future marked at 4,826.96) asks in words beside the model
+    value and writes nothing; F5 again books it."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        before = counts(demo_db)
+        await fill(pilot, "DEMOFU", "", "", "", "1", "1.23")
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradeForm)
+        said = str(app.screen.query_one("#form-message").render())
+        assert "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96" in said
+        assert "F5 (or Enter) again to book it" in said and counts(demo_db) == before
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
+        assert counts(demo_db)[0] == before[0] + 1
 
 
 async def test_a_bad_field_is_refused_in_the_form(demo_db: Path) -> None:
@@ -470,7 +492,7 @@ async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
         await pilot.pause()
         form = app.screen
         assert isinstance(form, TradeForm) and form.value("qty") == str(second.quantity)
-        await pilot.press("tab", *["backspace"] * 12, *"9.99", "tab", *"wrong price", "enter")
+        await pilot.press("tab", *["backspace"] * 12, *"27.5", "tab", *"wrong price", "enter")
         await settle(app, pilot)
         assert "amended" in message(app)
         st = open_ro(demo_db)
@@ -480,7 +502,7 @@ async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
             st.close()
         assert rec[second.trade_id].state == "amended"
         new = rec[rec[second.trade_id].replaced_by]  # type: ignore[index]
-        assert (new.price, new.quantity, new.state) == (9.99, second.quantity, "live")
+        assert (new.price, new.quantity, new.state) == (27.5, second.quantity, "live")
 
 
 async def test_a_trial_changes_the_totals_and_leaves_the_store_untouched(demo_db: Path) -> None:
