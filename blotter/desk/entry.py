@@ -127,7 +127,10 @@ def mark_question(kind: str, old: float | None, new: float, solved: str = "") ->
         return odd
     beside = "no vol in force" if old is None else f"in force {old * 100:.2f}%"
     change = "" if old is None else f", {(new - old) * 100:+.2f} pt"
-    return f"{solved} ({beside}{change})" + (f"; {odd}" if odd else "")
+    far = old is not None and abs(new - old) * 100 > VOL_JUMP_PTS
+    check = [f"more than {VOL_JUMP_PTS:g} pt away"] if far else []
+    check += [f"under {VOL_LOW * 100:g}%"] if new < VOL_LOW else []
+    return f"{solved} ({beside}{change})" + (f", {' and '.join(check)}" if check else "")
 
 
 # -- mark cells ---------------------------------------------------------------------------------

@@ -81,6 +81,11 @@ def test_a_vol_far_from_the_one_in_force_or_under_3_percent_is_questioned(
     )
     solved = entry.mark_question("vol", 0.25, 0.2731, "put price 12.4 → implied vol 27.31%")
     assert solved == "put price 12.4 → implied vol 27.31% (in force 25.00%, +2.31 pt)"
+    far = entry.mark_question("vol", 0.25, 0.02, "call price 0.01 → implied vol 2.00%")
+    assert far == (
+        "call price 0.01 → implied vol 2.00% (in force 25.00%, -23.00 pt), more than 10 pt away "
+        "and under 3%"
+    )
 
 
 def test_the_command_line_reads_a_vol_by_the_same_rule(xyz_db: Path) -> None:

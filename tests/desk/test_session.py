@@ -177,8 +177,7 @@ def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
         (
             "spot -12",
             "every spot -12.00 USD",
-            "an absolute move of -12.00 USD is -12.0% of XYZ's spot 100: for a relative move "
-            "type %",
+            "-12.00 USD is -12.0% of XYZ 100",
         ),
         ("XYZ spot =101", "XYZ spot set to 101 USD", ""),
         ("spot -3% beta vol -10%", "every spot -3.00% × beta, vol -10.00% of itself", ""),

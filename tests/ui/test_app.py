@@ -372,10 +372,9 @@ async def test_an_absolute_spot_move_reads_apart_from_a_relative_one(demo_app: B
         pane = demo_app.query_one(MovePane)
         await type_move(demo_app, pilot, "spot -3")
         title = str(pane.border_title)
-        assert title.startswith("Move: every spot -3.00 USD ─ CHECK: an absolute move of -3.00 USD")
-        assert "for a relative move type %" in title
+        assert title.startswith("Move: every spot -3.00 USD ─ CHECK: -3.00 USD is -13.0% of DEMOC")
         bar = str(demo_app.query_one("#whatif-message").render())
-        assert bar.startswith("⚠ applied; check: an absolute move of -3.00 USD is")
+        assert bar == "⚠ check: -3.00 USD is -13.0% of DEMOC 23.14"
         await pilot.press("percent_sign")
         await settle(demo_app, pilot)
         assert str(pane.border_title).startswith("Move: every spot -3.00% ─ 2nd-order estimate")

@@ -81,7 +81,7 @@ class WhatIfBar(Horizontal):
         or ``warning`` (words) when there is one to check."""
         same = " ".join(text.split()).lower() == summary.lower()
         if warning:
-            self.query_one("#whatif-message", Static).update(Text("⚠ applied; check: " + warning))
+            self.query_one("#whatif-message", Static).update(Text("⚠ check: " + warning))
             self.add_class("-bad")
             return
         self.query_one("#whatif-message", Static).update(
