@@ -780,15 +780,10 @@ class BlotterApp(App[None]):
     async def action_quit(self) -> None:
         """Quit; with trial trades held (never written) ask first, so one key too many does
         not drop them."""
-        n = len(self.trial_trades)
-        if not n:
+        question = self.trial_trades.quit_question()
+        if not question:
             self._quit()
             return
-        question = (
-            f"{n} trial trade{'s are' if n > 1 else ' is'} not booked: quitting drops "
-            f"{'them' if n > 1 else 'it'} (the store never had {'them' if n > 1 else 'it'}). "
-            "Quit anyway?"
-        )
         self.push_screen(ConfirmScreen(question), self._quit_answered)
 
     def _quit_answered(self, yes: bool | None) -> None:

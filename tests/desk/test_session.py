@@ -82,6 +82,20 @@ def test_promoting_trials_books_them(xyz_db: Path) -> None:
     assert (last.contract, last.quantity, last.price) == ("XYZ 2027-01-15 100 P", 3, 2.5)
 
 
+def test_quitting_with_trials_held_is_a_question(xyz_db: Path) -> None:
+    with store.open_store(xyz_db, read_only=True) as st:
+        unders = {r["symbol"]: r for r in st.underlying_records()}
+    trials = Trials()
+    assert trials.quit_question() == ""
+    contract = trial_contract(unders, ContractTerms("XYZ", EXPIRY, 100.0, False), [])
+    trials.add(contract, 3, 2.5, "desk")
+    trials.add(contract, -1, 2.6, "desk")
+    assert trials.quit_question() == (
+        "2 trial trades are not booked: quitting drops them (the store never had them). "
+        "Quit anyway?"
+    )
+
+
 @pytest.mark.parametrize(
     "move,days",
     [
