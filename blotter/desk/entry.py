@@ -58,7 +58,7 @@ def parse_vol(text: str) -> float:
 
 
 VOL_JUMP_PTS = 10.0
-"""A typed vol this many vol points or more from the mark in force asks for a confirmation."""
+"""A typed vol more than this many vol points from the mark in force asks for a confirmation."""
 
 VOL_LOW = 0.03
 """A typed vol under this (3%) asks for a confirmation: listed options rarely trade below it."""
@@ -263,14 +263,14 @@ def refuse_mark_point(
 ) -> None:
     """``ValueError`` in words for a point no position can use, before anything is written: a
     vol of an expiry whose cut-off has passed or that falls on a weekend of the underlying's
-    calendar, a rate of a currency that no underlying of the file is quoted in (or, for FX, is
-    the foreign side of). Other mistakes (an unknown symbol, a malformed date) the store names."""
+    calendar, a rate of a currency that no underlying of the file is quoted in and no rate mark
+    names yet (an FX pair's foreign rate is its dividend-yield mark, not a curve). Other
+    mistakes (an unknown symbol, a malformed date) the store names."""
     from blotter import calendar as cal
 
     records = st.underlying_records()
     if kind == "rate":
         known = {r["currency"] for r in records}
-        known |= {r["symbol"][:3] for r in records if r["kind"] == "fx"}
         known |= {m.currency for m in st.marks() if m.kind == "rate" and m.currency}
         if currency not in known:
             raise ValueError(
