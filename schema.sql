@@ -416,6 +416,26 @@ CREATE TRIGGER book_zone_no_replace BEFORE INSERT ON book_zone
 WHEN EXISTS (SELECT 1 FROM book_zone)
 BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never replaced'); END;
 
+-- @version 7 ------------------------------------------------------------------------------------
+
+-- When each mark point was observed: the instant its value was marked. A point logged, imported
+-- or given in a set is observed when its set is marked; a close copies each point in force with
+-- the time that point was last marked, so a close never re-dates a carried mark and staleness is
+-- read per point. Points written before this section take their own set's time: for an old
+-- close that is the close's time, the only time it kept of its points.
+ALTER TABLE mark ADD COLUMN observed_at TEXT CHECK (observed_at IS NULL OR (
+    observed_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+    AND datetime(substr(observed_at, 1, 19), '+0 days') IS replace(substr(observed_at, 1, 19), 'T', ' ')));
+DROP TRIGGER mark_no_update;
+UPDATE mark SET observed_at = (
+    SELECT s.marked_at FROM mark_set s WHERE s.mark_set_id = mark.mark_set_id);
+CREATE TRIGGER mark_no_update BEFORE UPDATE ON mark
+BEGIN SELECT RAISE(ABORT, 'marks are never changed: log a new mark'); END;
+
+CREATE TRIGGER mark_observed BEFORE INSERT ON mark
+WHEN NEW.observed_at IS NULL
+BEGIN SELECT RAISE(ABORT, 'a mark names when it was observed'); END;
+
 -- @version 8 ------------------------------------------------------------------------------------
 
 -- A correction of an underlying's reference data: the underlying row is never changed, so a

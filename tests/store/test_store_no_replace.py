@@ -176,8 +176,8 @@ def test_a_replace_that_collides_with_nothing_is_an_ordinary_insert(
     marks = _table(conn, "mark")
     with pytest.raises(sqlite3.IntegrityError, match="the mark set is complete"):
         conn.execute(
-            "REPLACE INTO mark (mark_set_id, seq, kind, underlying_id, value) "
-            f"VALUES ({CLOSE}, 3, 'div_yield', 1, 0.01)"
+            "REPLACE INTO mark (mark_set_id, seq, kind, underlying_id, value, observed_at) "
+            f"VALUES ({CLOSE}, 3, 'div_yield', 1, 0.01, '2026-01-05T15:00:00.000000Z')"
         )
     assert _table(conn, "mark") == marks
 
