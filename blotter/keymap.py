@@ -57,6 +57,8 @@ BINDING_IDS: tuple[str, ...] = (
     "explain-back",
     "list-back",
     "help-close",
+    "confirm-yes",
+    "confirm-no",
 )
 """Every binding id of the app, in the order ``blotter.ui.keys.KEYS`` declares them."""
 
