@@ -824,7 +824,10 @@ class BlotterApp(App[None]):
         """After ``on_book_loaded`` has laid the book out: the hedge of the cursor's row, with the
         file's underlyings read again when the book has others (not on every commit)."""
         self._hedge_staging = False
-        self.call_later(self._refresh_hedge)
+        symbols = message.state.valuation.book.underlyings.symbols
+        if self.hedge_refs is None or self.hedge_refs.symbols != symbols:
+            self._read_hedge_refs(symbols)  # started here, so a wait for the workers sees it
+        self.call_later(self._show_hedge)
 
     @on(LoadFailed)
     def _hedge_after_failed_load(self, message: LoadFailed) -> None:
@@ -832,15 +835,6 @@ class BlotterApp(App[None]):
 
     @on(DataTable.CellHighlighted, "#book-table")
     def _hedge_follows_cursor(self, event: DataTable.CellHighlighted) -> None:
-        self._show_hedge()
-
-    def _refresh_hedge(self) -> None:
-        if self.state is None:
-            return
-        refs = self.hedge_refs
-        symbols = self.state.valuation.book.underlyings.symbols
-        if refs is None or refs.symbols != symbols:
-            self._read_hedge_refs(symbols)
         self._show_hedge()
 
     @work(
