@@ -144,7 +144,12 @@ KEYS: tuple[KeySpec, ...] = (
         where="marks",
     ),
     KeySpec(
-        "marks-back", "back", "q,m,f10,escape", "Marks: back to the book", short="Back", where="marks"
+        "marks-back",
+        "back",
+        "q,m,f10,escape",
+        "Marks: back to the book",
+        short="Back",
+        where="marks",
     ),
     KeySpec(
         "close-confirm",
@@ -211,7 +216,12 @@ KEYS: tuple[KeySpec, ...] = (
         where="trades",
     ),
     KeySpec(
-        "trades-back", "back", "q,t,f10,escape", "Trades: back to the book", short="Back", where="trades"
+        "trades-back",
+        "back",
+        "q,t,f10,escape",
+        "Trades: back to the book",
+        short="Back",
+        where="trades",
     ),
     KeySpec(
         "form-next",
