@@ -151,7 +151,12 @@ KEYS: tuple[KeySpec, ...] = (
         where="marks",
     ),
     KeySpec(
-        "marks-back", "back", "q,m,f10", "Marks: back to the book", short="Back", where="marks"
+        "marks-back",
+        "back",
+        "q,m,f10,escape",
+        "Marks: back to the book",
+        short="Back",
+        where="marks",
     ),
     KeySpec(
         "close-confirm",
@@ -218,7 +223,12 @@ KEYS: tuple[KeySpec, ...] = (
         where="trades",
     ),
     KeySpec(
-        "trades-back", "back", "q,t,f10", "Trades: back to the book", short="Back", where="trades"
+        "trades-back",
+        "back",
+        "q,t,f10,escape",
+        "Trades: back to the book",
+        short="Back",
+        where="trades",
     ),
     KeySpec(
         "form-next",
@@ -279,13 +289,13 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "explain-back",
         "back",
-        "q,l,f10",
+        "q,l,f10,escape",
         "Explain: back to the book",
         short="Back",
         where="explain",
     ),
     KeySpec(
-        "list-back", "back", "q,w,f10", "Flags: back to the book", short="Back", where="list"
+        "list-back", "back", "q,w,f10,escape", "Flags: back to the book", short="Back", where="list"
     ),
     KeySpec(
         "help-close",

@@ -27,8 +27,9 @@ def screen_text(renderable: object) -> str:
     return console.export_text()
 
 
-CLOSES_WITH_ESC = {"help", "review", "form", "confirm"}
-"""Help and the modals: Esc closes them (an extra key, never the only one)."""
+CLOSES_WITH_ESC = {"help", "review", "form", "confirm", "marks", "trades", "explain", "list"}
+"""Help, the modals and the screens over the book: Esc closes them (an extra key, never the
+only one), and on the Marks screen first leaves the edit line."""
 
 
 def test_each_action_has_a_plain_key_and_an_alias() -> None:
@@ -230,6 +231,29 @@ async def test_esc_closes_help_and_every_modal(demo_app: BlotterApp) -> None:
         await pilot.press("escape")
         await settle(demo_app, pilot)
         assert not isinstance(demo_app.screen, CloseReviewScreen)
+
+
+async def test_esc_leaves_the_marks_edit_line_then_the_screen(demo_app: BlotterApp) -> None:
+    """Esc drops what was typed in a mark's edit line (nothing is written), and again goes back
+    to the book, as q and F10 do."""
+    from textual.widgets import Input
+
+    from blotter.ui.screens.marks import MarksScreen
+
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        await pilot.press("m")
+        await settle(demo_app, pilot)
+        screen = demo_app.screen
+        assert isinstance(screen, MarksScreen)
+        before = screen.view
+        await pilot.press("down", *"0.6", "escape")
+        await settle(demo_app, pilot)
+        assert demo_app.screen is screen and not isinstance(screen.focused, Input)
+        assert screen.view == before  # nothing written
+        await pilot.press("escape")
+        await settle(demo_app, pilot)
+        assert demo_app.screen is demo_app.screen_stack[0]
 
 
 async def test_quitting_with_trial_trades_asks_first(demo_db: Path) -> None:

@@ -463,6 +463,23 @@ async def test_a_bad_field_is_refused_in_the_form(demo_db: Path) -> None:
     assert counts(demo_db) == before
 
 
+async def test_a_book_of_one_name_fills_the_forms_symbol(tmp_path: Path) -> None:
+    """With one underlying the form's symbol is filled and the cursor starts on the expiry; a
+    hint never reads as a value ("one of …", "e.g. …")."""
+    path = tmp_path / "one.db"
+    with store.create_store(path) as st:
+        st.add_underlying("ONE", "stock", "USD", 100.0, description="invented for the tests")
+    app = make_app(path, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, TradeForm)
+        assert app.screen.value("symbol") == "ONE"
+        assert app.screen.focused is app.screen.query_one("#form-expiry", Input)
+        assert app.screen.query_one("#form-expiry", Input).placeholder.startswith("e.g. ")
+
+
 async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:

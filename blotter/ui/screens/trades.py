@@ -380,10 +380,15 @@ class TradeForm(ModalScreen[FormResult | None]):
             default = shown if shown in books else (books[0] if books else "main")
             self.query_one("#form-book", Input).value = printable(default)
             self.query_one("#form-book", Input).placeholder = printable(", ".join(books))
-            self.query_one("#form-symbol", Input).placeholder = " ".join(self.sheet.symbols)
-            self.query_one("#form-expiry", Input).placeholder = "2027-03-19 (blank: the underlying)"
+            symbol = self.query_one("#form-symbol", Input)
+            # A hint never reads as a value: "one of …", "e.g. …"; a book of one name fills it.
+            symbol.placeholder = "one of " + " ".join(self.sheet.symbols)
+            if len(self.sheet.symbols) == 1:
+                symbol.value = self.sheet.symbols[0]
+            expiry = self.query_one("#form-expiry", Input)
+            expiry.placeholder = "e.g. 2027-03-19; blank: the underlying itself"
             self.query_one("#form-cp", Input).placeholder = "C or P"
-            self.query_one("#form-symbol", Input).focus()
+            (expiry if symbol.value else symbol).focus()
         elif self.kind == "amend" and t is not None:
             self.query_one("#form-qty", Input).value = str(t.quantity)
             self.query_one("#form-price", Input).value = f"{t.price:.12g}"
