@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -146,8 +146,13 @@ def run_set(
     cancelled: Callable[[], bool] = lambda: False,
 ) -> SetRun | None:
     """Every move of the set applied to ``valuation`` by ``scenario.apply_move``, or None when
-    ``cancelled`` says so. Each line is parsed against the book's symbols first, so a move
-    naming an unknown underlying is refused (SetError) before anything is valued."""
+    ``cancelled`` says so.
+
+    Each line is parsed against the book's symbols first, so a move naming an unknown underlying
+    is refused (SetError) before anything is valued. Each move starts from a copy of the
+    valuation's American boundaries as they stand, so a row is bit for bit that move applied
+    alone, whatever came before it in the set.
+    """
     from blotter.scenario.whatif import MoveError, apply_move
 
     symbols = valuation.book.underlyings.symbols
@@ -162,7 +167,8 @@ def run_set(
         if cancelled():
             return None
         try:
-            rows.append(SetRow(m.name, m.text, apply_move(valuation, move)))
+            alone = replace(valuation, boundaries=valuation.boundaries.copy())
+            rows.append(SetRow(m.name, m.text, apply_move(alone, move)))
         except MoveError as exc:
             raise SetError(f"{_where(scenario_set, m.name)}: {exc}") from None
     return SetRun(scenario_set, tuple(rows), worst_scenarios(rows))

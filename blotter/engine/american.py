@@ -162,6 +162,15 @@ class BoundaryCache:
         with self._lock:
             return len(self._items)
 
+    def copy(self) -> BoundaryCache:
+        """A new cache holding the same boundaries in the same order (a solved boundary is never
+        changed), so what is solved or reordered in one does not reach the other."""
+        out = BoundaryCache(self.max_bytes)
+        with self._lock:
+            out._items = OrderedDict(self._items)
+            out._bytes = self._bytes
+        return out
+
     def find(self, rate: float, div: float, tau: float, lo: float, hi: float) -> Boundary | None:
         """A boundary serving (rate, div, τ) for ln-vols [lo, hi], or None."""
         with self._lock:

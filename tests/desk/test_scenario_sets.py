@@ -10,6 +10,7 @@ units × spot (common practice).
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -137,15 +138,33 @@ def test_a_bad_scenario_file_is_refused_in_words(tmp_path: Path) -> None:
         read_sets(settings_with(config))
 
 
-def test_a_run_is_each_move_by_apply_move_to_the_bit(xyz_db: Path, tmp_path: Path) -> None:
-    crash = find_set(read_sets(settings_with(write(tmp_path, SETS))), "crash")
-    v = valued(xyz_db)
-    run = run_set(v, crash)
-    assert run is not None and [r.name for r in run.rows] == [m.name for m in crash.moves]
-    for row, m in zip(run.rows, crash.moves, strict=True):
+DEMO_SET = """
+[scenarios.mixed]
+"down 20, vol +15" = "spot -20% vol +15"
+"rally, moneyness" = "spot +5% vol -3 moneyness"
+"DEMOA alone" = "DEMOA spot -12%"
+"next day" = "bdays 1 vol +2"
+"""
+
+
+def test_a_run_is_each_move_applied_alone_to_the_bit(demo_db: Path, tmp_path: Path) -> None:
+    """Rows equal ``apply_move`` on a fresh valuation of the move alone, in either order: the
+    demo's American options share solved boundaries, which an earlier move must not change."""
+    mixed = find_set(read_sets(settings_with(write(tmp_path, DEMO_SET))), "mixed")
+    run = run_set(valued(demo_db), mixed)
+    backwards = replace(mixed, moves=mixed.moves[::-1])
+    run_back = run_set(valued(demo_db), backwards)
+    assert run is not None and run_back is not None
+    assert [r.name for r in run.rows] == [m.name for m in mixed.moves]
+    for row, back, m in zip(run.rows, run_back.rows[::-1], mixed.moves, strict=True):
+        v = valued(demo_db)
         alone = apply_move(v, parse_move(m.text, v.book.underlyings.symbols))
-        assert row.result.total.as_dict() == alone.total.as_dict()
-        assert np.array_equal(row.result.full, alone.full)
+        for r in (row, back):  # repr: every float to the bit, NaN equal to NaN
+            assert repr(r.result.total.as_dict()) == repr(alone.total.as_dict())
+            assert repr([u.as_dict() for u in r.result.by_underlying]) == repr(
+                [u.as_dict() for u in alone.by_underlying]
+            )
+            assert r.result.full.tobytes() == alone.full.tobytes()
 
 
 def test_the_worst_scenario_has_the_lowest_full_pnl(xyz_db: Path, tmp_path: Path) -> None:
