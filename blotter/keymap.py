@@ -29,6 +29,7 @@ BINDING_IDS: tuple[str, ...] = (
     "vega-unit",
     "clear-trials",
     "watch-list",
+    "scenario-sets",
     "quit",
     "history-back",
     "history-forward",
@@ -53,6 +54,8 @@ BINDING_IDS: tuple[str, ...] = (
     "explain-to",
     "explain-back",
     "list-back",
+    "sets-run",
+    "sets-back",
     "help-close",
 )
 """Every binding id of the app, in the order ``blotter.ui.keys.KEYS`` declares them."""

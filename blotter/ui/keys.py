@@ -30,7 +30,7 @@ class KeySpec:
     description: str
     short: str = ""  # footer label; empty keeps the action out of the footer
     where: str = "app"  # "app", "bar", "book", "help", or a screen: "marks", "review", "trades",
-    # "form", "explain", "list"
+    # "form", "explain", "list", "sets"
     priority: bool = False  # handled when the key reaches the app, before the focused widget
 
 
@@ -106,6 +106,12 @@ KEYS: tuple[KeySpec, ...] = (
         "watch_list",
         "w,ctrl+backslash",
         "List options expiring this week, pin risk and limit breaches",
+    ),
+    KeySpec(
+        "scenario-sets",
+        "scenario_sets",
+        "n,ctrl+underscore",
+        "Scenario sets: run a named set of moves as one table, worst marked",
     ),
     KeySpec("quit", "quit", "q,f10", "Quit", short="Quit"),
     KeySpec("history-back", "history(-1)", "up,ctrl+p", "Bar: previous move", where="bar"),
@@ -259,6 +265,22 @@ KEYS: tuple[KeySpec, ...] = (
         "list-back", "back", "q,w,f10", "Watch list: back to the book", short="Back", where="list"
     ),
     KeySpec(
+        "sets-run",
+        "run_set",
+        "r,f5",
+        "Scenario sets: run the set under the cursor (Enter on the list too)",
+        short="Run",
+        where="sets",
+    ),
+    KeySpec(
+        "sets-back",
+        "back",
+        "q,n,f10",
+        "Scenario sets: back to the book",
+        short="Back",
+        where="sets",
+    ),
+    KeySpec(
         "help-close",
         "close",
         "q,question_mark,f1,f10",
@@ -278,6 +300,7 @@ KEY_NAMES = {
     "tab": "Tab",
     "shift+tab": "Shift+Tab",
     "backslash": "\\",
+    "underscore": "_",
 }
 """How the help screen and footer write Textual key names."""
 
