@@ -924,7 +924,9 @@ def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) ->
         )
     for rule in dict.fromkeys(row.result.move.vol_rule for row in run.rows):
         click.echo(_rule_note(rule))
-    click.echo(f"valued at {_iso(v.valuation_time)}; each move from the book as it stands")
+    click.echo(
+        f"valued at {_iso(v.valuation_time)}; each move applied on its own to this valuation"
+    )
     if any(r.n_through_expiry for row in run.rows for r in row.money_rows):
         click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
     for row in run.rows:

@@ -11,11 +11,15 @@ from __future__ import annotations
 import csv
 import io
 import json
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
 import pytest
 from cli_helpers import run
+from test_currencies_cli import T0, _eur, _two_currency_book, _usd
+
+from blotter import store
 
 AT = "2026-11-30T16:45"
 """Valuation time of the checks (desk-local): a quarter hour after the demo's last close."""
@@ -156,3 +160,37 @@ def test_unknown_sets_and_files_and_mixed_arguments(
     result = run("whatif", "--db", str(demo_db), "spot -1%", "--set", "crash", code=2)
     assert "not both" in result.stderr
     assert "--set NAME" in run("whatif", "--db", str(demo_db), code=2).stderr
+
+
+TWO_CCY_SETS = """
+[scenarios.names]
+"AAA down" = "AAA spot -10%"
+"BBB down" = "BBB spot -10%"
+"all up" = "spot +10%"
+"""
+
+
+def test_each_currency_has_its_own_worst(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """USD and EUR P&L never add: each currency's worst is its own lowest full P&L, checked
+    against QuantLib's value of each option (``test_currencies_cli``)."""
+    with store.use_clock(lambda: datetime(2026, 12, 1, 20, 30, tzinfo=UTC)):
+        two_currencies = _two_currency_book(tmp_path)
+    path = tmp_path / "config.toml"
+    path.write_text(TWO_CCY_SETS, encoding="utf-8")
+    monkeypatch.setenv("BLOTTER_CONFIG", str(path))
+    args = ("whatif", "--db", two_currencies, "--at", T0, "--set", "names")
+    out = as_json(*args, "--json")
+    moved = {
+        "AAA down": {"USD": _usd(90.0) - _usd(), "EUR": 0.0},
+        "BBB down": {"USD": 0.0, "EUR": _eur(45.0) - _eur()},
+        "all up": {"USD": _usd(110.0) - _usd(), "EUR": _eur(55.0) - _eur()},
+    }
+    for s in out["scenarios"]:
+        got = {c: r["full"] for c, r in s["total"]["by_currency"].items()}
+        assert got == pytest.approx(moved[s["name"]], rel=1e-7, abs=1e-6)
+        assert s["total"]["full"] is None  # no sum across currencies
+    assert out["worst"] == {"USD": "AAA down", "EUR": "BBB down"}
+    text = run(*args).stdout
+    marked = [ln.split() for ln in text.splitlines() if ln.rstrip().endswith("▼ WORST")]
+    assert [(" ".join(w[:2]), w[5]) for w in marked] == [("AAA down", "USD"), ("BBB down", "EUR")]
+    assert "ccy" in text.splitlines()[2] and "▼ WORST in EUR: 'BBB down'" in text
