@@ -14,9 +14,7 @@ import numpy as np
 
 from blotter.arrays import read_only as read_only
 from blotter.calendar import DEFAULT_EXCHANGE_TZ, local_dates
-
-UNDERLYING_KINDS = ("stock", "index", "future", "fx")
-"""Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
+from blotter.limits import UNDERLYING_KINDS as UNDERLYING_KINDS
 
 
 @dataclass(frozen=True, eq=False)

@@ -10,6 +10,9 @@ Example file::
     desk_tz = "America/New_York"
     estimate_order = 2          # what the Move pane shows first: 1 or 2
     watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
+    theme = "dark"              # the app's colours: "dark" or "light" (NO_COLOR is honoured too)
+    feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
+    log_file = "~/blotter.log"  # warnings and errors of imports and the store, with UTC times
 
     [alerts]
     error_pct = 10.0            # flag an estimate whose |error| exceeds this % of |full change|
@@ -96,6 +99,9 @@ class Settings:
     keymap: dict[str, str] = field(default_factory=dict)
     read_only: bool = False
     no_mouse: bool = False
+    theme: str = "dark"  # one of THEMES
+    feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
+    log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
     scenarios: tuple[ScenarioSetText, ...] = ()  # the settings file's [scenarios] tables
     scenarios_file: str = ""  # a TOML file of more [scenarios.NAME] tables; "" = none
 
@@ -104,6 +110,10 @@ class Settings:
         """The desk's time zone."""
         return ZoneInfo(self.desk_tz)
 
+
+THEMES = ("dark", "light")
+"""The app's colour themes: light text on a dark ground, or dark text on a light one. With
+``NO_COLOR`` set either is drawn without colour (Textual's monochrome filter)."""
 
 DESK_TZ_SOURCES = (
     "desk_tz in the settings file, $BLOTTER_TZ or $BLOTTER_DESK_TZ over it, "
@@ -321,6 +331,8 @@ def _validate(settings: Settings) -> Settings:
         raise ConfigError(
             f"desk_tz {settings.desk_tz!r} is not a known time zone (e.g. America/New_York)"
         ) from None
+    if settings.theme not in THEMES:
+        raise ConfigError(f"theme must be {' or '.join(THEMES)}, not {settings.theme!r}")
     if settings.estimate_order not in (1, 2):
         raise ConfigError(f"estimate_order must be 1 or 2, not {settings.estimate_order}")
     for name, value in _numbers(settings):
@@ -328,6 +340,13 @@ def _validate(settings: Settings) -> Settings:
             raise ConfigError(f"{name} must be a finite number, not {value!r}")
     if settings.watch_interval_s < 0 or settings.debounce_ms < 0:
         raise ConfigError("watch_interval_s and debounce_ms must not be negative")
+    if settings.feed_throttle_s < 0:
+        raise ConfigError("feed_throttle_s must not be negative (seconds)")
+    if settings.feed_throttle_s > MAX_WATCH_INTERVAL_S:
+        raise ConfigError(
+            f"feed_throttle_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), "
+            f"not {settings.feed_throttle_s:g}"
+        )
     if settings.watch_interval_s > MAX_WATCH_INTERVAL_S:
         raise ConfigError(
             f"watch_interval_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), or 0 to never "

@@ -29,6 +29,7 @@ BINDING_IDS: tuple[str, ...] = (
     "vega-unit",
     "clear-trials",
     "watch-list",
+    "actions",
     "scenario-sets",
     "quit",
     "history-back",

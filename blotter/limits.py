@@ -16,6 +16,9 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime
 from typing import Any
 
+UNDERLYING_KINDS = ("stock", "index", "future", "fx")
+"""Kinds of underlying; the kind fixes the cost of carry (see ``risk``)."""
+
 
 class LimitError(ValueError):
     """A value outside its field's range, or not a number; ``field`` names the field."""

@@ -629,6 +629,9 @@ def value_book(
 LOWER_BOUND_CODES = (DOUBLE_BOUNDARY, NOT_CONVERGED)
 """American status codes whose value is a lower bound, not the converged value."""
 
+LOWER_BOUND_WORDS = "American position(s) at a lower bound"
+"""Words in every valuation note about American positions valued at a lower bound."""
+
 
 def _american_notes(
     book: Book, live: np.ndarray, years: np.ndarray, rate: np.ndarray, carry: np.ndarray
@@ -646,7 +649,7 @@ def _american_notes(
             names = ", ".join(book.labels[i] for i in hit[:3].tolist())
             more = f" and {hit.size - 3} more" if hit.size > 3 else ""
             out.append(
-                f"{hit.size} American position(s) at a lower bound "
+                f"{hit.size} {LOWER_BOUND_WORDS} "
                 f"({engine.AMERICAN_STATUS[code]}): {names}{more}"
             )
     return out

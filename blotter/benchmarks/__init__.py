@@ -10,12 +10,16 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import asdict, dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
+if TYPE_CHECKING:
+    import numpy as np
 
-BENCH_MODULES = ("engine", "store", "risk", "app")
-"""Modules of this package that provide cases, run in this order when present."""
+BENCH_MODULES = ("engine", "store", "risk", "app", "cluster")
+"""Modules of this package that provide cases, in this order when present."""
+
+DEFAULT_MODULES = ("engine", "store", "risk", "app")
+"""The groups a plain ``blotter bench`` runs; the others only when named with ``--only``."""
 
 
 @dataclass(frozen=True)
@@ -38,6 +42,8 @@ class Result:
 
 def timed(fn: Callable[[], Any], repeat: int = 7, warmup: int = 1) -> np.ndarray:
     """Wall-clock seconds of ``repeat`` calls of ``fn`` after ``warmup`` untimed calls."""
+    import numpy as np  # here, so the command line's help and completion never load NumPy
+
     for _ in range(warmup):
         fn()
     out = np.empty(repeat)
@@ -50,6 +56,8 @@ def timed(fn: Callable[[], Any], repeat: int = 7, warmup: int = 1) -> np.ndarray
 
 def result_from(case: str, positions: int, seconds: np.ndarray, **extra: Any) -> Result:
     """A ``Result`` whose ns-per-position figures are the median, min and max of ``seconds``."""
+    import numpy as np
+
     per = seconds * 1e9 / max(positions, 1)
     return Result(case=case, positions=positions, ns_per_position=float(np.median(per)),
                   min=float(per.min()), max=float(per.max()), **extra)

@@ -5,7 +5,7 @@
   10k and 100k books.
   Targets 50 ms and 150 ms. The time includes the bar's debounce.
 - ``app start→first screen``: from launching a new Python process to the app's first full
-  screen on the demo book (book drawn and the ladder computed), imports included. Target 1.5 s.
+  screen on the demo book (book drawn and the grid computed), imports included. Target 1.5 s.
 - ``app resident memory``: peak resident set size of this process after the 100k-book app has
   shown its book and moves, in MB (target 400 MB), in the note.
 - ``app commit close``: on the Marks screen, from the key that confirms the close to the screen
@@ -161,13 +161,13 @@ async def _first_screen(db_path: str) -> float:
     from blotter.config import Settings
     from blotter.ui.app import make_app
     from blotter.ui.timings import Timing
-    from blotter.ui.widgets.ladder_pane import LadderPane
+    from blotter.ui.widgets.grid_pane import GridPane
 
     t0 = time.perf_counter()
     app = make_app(db_path, Settings(watch_interval_s=0), clock=lambda: FIXED_NOW)
     async with app.run_test(size=(80, 24)) as pilot:
         while (first := app.timings.last(Timing.FIRST_PAINT)) is None or (
-            app.query_one(LadderPane).ladder is None
+            app.query_one(GridPane).ladder is None
         ):
             await pilot.pause()
             if time.perf_counter() - t0 > 30:
@@ -238,7 +238,7 @@ def run(quick: bool) -> list[Result]:
             starts,
             target_ns=1.5e9,
             note=f"median {np.median(starts):.2f} s from a new process to the book, Move pane "
-            "and ladder drawn, demo book (target 1.5 s)",
+            "and grid drawn, demo book (target 1.5 s)",
         )
     )
     with tempfile.TemporaryDirectory() as tmp:

@@ -7,16 +7,16 @@
   method), no target; ``whatif american-heavy``: the same move on a book with 75% American
   options (like the demo); ``whatif american-heavy one name``: "SYN00 spot -3%" on it, where only
   that name's options are repriced.
-- ``ladder``: the default 9 × 5 spot × vol ladder on 10k and 100k positions (targets 35 ms and
+- ``grid``: the default 9 × 5 spot × vol scenario grid on 10k and 100k positions (targets 35 ms and
   350 ms), one broadcast pass chunked to ``LADDER_CHUNK_CELLS`` cells.
 - ``american book …``: on books 90% American at 10k and 100k positions, valuing the book (cold,
-  every exercise boundary solved), the what-if, the 9 × 5 ladder, the P&L profile (31 spot
+  every exercise boundary solved), the what-if, the 9 × 5 grid, the P&L profile (31 spot
   points) and the Δ $ profile, against issue 11's targets.
 
 The book: fictitious names ``SYN00``… (stocks and one index), 8 expiries from a week to two years,
 strikes 70–130% of spot, European options (index and ETF style) plus one stock hedge per name.
 Where QuantLib is installed, the reference is its per-option loop (AnalyticEuropeanEngine,
-``NPV()`` after a quote change) timed on a sample, scaled to the case (× cells for a ladder).
+``NPV()`` after a quote change) timed on a sample, scaled to the case (× cells for a grid).
 """
 
 from __future__ import annotations
@@ -149,7 +149,7 @@ def _quantlib_ns_per_option(sample: int = 2000) -> float | None:
 
 
 def run(quick: bool) -> list[Result]:
-    """Time the what-if and the ladder; ``quick`` uses small books and few repetitions."""
+    """Time the what-if and the scenario grid; ``quick`` uses small books and few repetitions."""
     from blotter.risk import value_book
     from blotter.scenario.base import prepare
     from blotter.scenario.grammar import parse_move
@@ -200,7 +200,7 @@ def run(quick: bool) -> list[Result]:
         tracemalloc.stop()
         results.append(
             result_from(
-                "ladder",
+                "grid",
                 n,
                 secs,
                 reference=ref,
@@ -220,7 +220,7 @@ AMERICAN_SHARE = 0.9
 AMERICAN_TARGETS_MS = {
     "value": (100.0, 500.0),
     "whatif": (100.0, 50.0),
-    "ladder": (100.0, 500.0),
+    "grid": (100.0, 500.0),
     "pnl profile": (100.0, 500.0),
     "delta profile": (100.0, 1000.0),
 }
@@ -228,7 +228,7 @@ AMERICAN_TARGETS_MS = {
 
 
 def _american_book_cases(quick: bool) -> list[Result]:
-    """Value, what-if, 9×5 ladder, P&L profile and Δ $ profile on books that are 90% American.
+    """Value, what-if, 9×5 grid, P&L profile and Δ $ profile on books that are 90% American.
 
     ``value`` is cold: a new valuation solves every exercise boundary. The others reuse the
     valuation's boundaries as the app does (the first call, untimed, solves any a vol shift needs).
@@ -252,7 +252,7 @@ def _american_book_cases(quick: bool) -> list[Result]:
         cases: dict[str, Callable[[], Any]] = {
             "value": partial(value_book, book, market, VALUATION),
             "whatif": partial(apply_move, v, move),
-            "ladder": partial(ladder, v),
+            "grid": partial(ladder, v),
             "pnl profile": partial(ladder, v, spot_pcts, (0.0,)),
             "delta profile": partial(greek_profile, v, "delta_cash", spot_pcts),
         }

@@ -9,6 +9,10 @@
 - ``store mark_visible``: from calling ``log_spot`` in this process to a second *process*,
   polling ``PRAGMA data_version`` every millisecond, holding a ``Market`` with the new spot;
   target 100 ms. Times come from ``CLOCK_MONOTONIC``, which both processes share.
+- ``store feed``: one second's worth of a 1,000-quotes-a-second feed (1,000 JSON spot lines
+  spread over the book's underlyings) parsed, taken and written as the default throttle writes
+  it (one batch); the note gives the share of one core that rate costs, and the cost of one
+  unthrottled write (one transaction per quote) for comparison.
 """
 
 from __future__ import annotations
@@ -89,6 +93,7 @@ def run(quick: bool) -> list[Result]:
         )
         results.append(_open_check(path, len(book), repeat))
         results.append(_mark_visible(path, repeat=5 if quick else 21))
+        results.append(_feed(path, repeat))
     return results
 
 
@@ -146,4 +151,44 @@ def _mark_visible(path: Path, repeat: int) -> Result:
         target_ns=VISIBLE_TARGET_S * 1e9,
         note="log_spot (synchronous=FULL) -> other process polls data_version "
         "every 1 ms and reloads the market; per mark",
+    )
+
+
+FEED_RATE = 1_000
+"""Quotes a second the feed must sustain (issue target)."""
+
+
+def _feed(path: Path, repeat: int) -> Result:
+    """One second of a ``FEED_RATE`` feed, batched as the default throttle writes it."""
+    import io
+    import json
+
+    from blotter.desk.feed import Feed, run_feed
+    from blotter.store import open_store
+
+    with open_store(path) as store:
+        market = store.load_market()
+        symbols = sorted(market.spots)
+        lines = "".join(
+            json.dumps({"symbol": symbols[i % len(symbols)],
+                        "spot": market.spots[symbols[i % len(symbols)]] * (1 + 1e-4 * (i % 7))})
+            + "\n"
+            for i in range(FEED_RATE)
+        )
+        batched = timed(
+            lambda: run_feed(Feed(store, 3600.0, time.monotonic), io.StringIO(lines)),
+            repeat=repeat,
+        )
+        one = "".join(lines.splitlines(keepends=True)[:20])
+        single = timed(
+            lambda: run_feed(Feed(store, 0.0, time.monotonic), io.StringIO(one)), repeat=repeat
+        )
+    return result_from(
+        "store feed",
+        FEED_RATE,
+        batched,
+        note=f"{FEED_RATE:,} quotes over {len(symbols)} underlyings in one second's batch, "
+        f"median {np.median(batched) * 1e3:,.0f} ms: {np.median(batched) * 100:.1f}% of a core "
+        f"at {FEED_RATE:,} quotes/s; unthrottled, one write per quote costs "
+        f"{np.median(single) / 20 * 1e3:.2f} ms",
     )

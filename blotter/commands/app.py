@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
@@ -12,9 +13,24 @@ from blotter.commands.common import AppContext, resolve_db
 if TYPE_CHECKING:
     from blotter.config import Settings
 
+NO_TERMINAL = (
+    "no terminal (standard input, output or error is not one), so the app does not start; "
+    "use a command, e.g. blotter risk (blotter --help lists them)"
+)
+"""Said when ``blotter`` with no command runs in a pipe, a cron job or a script."""
+
+
+def has_terminal() -> bool:
+    """Whether standard input, output and error are all a terminal: the app reads keys from
+    stdin and Textual draws on stderr, so a redirected stderr would receive the screen."""
+    return all(s is not None and s.isatty() for s in (sys.stdin, sys.stdout, sys.stderr))
+
 
 def open_app(ctx: AppContext) -> None:
-    """Resolve the book file and the settings, build the app with ``make_app`` and run it."""
+    """Resolve the book file and the settings, build the app with ``make_app`` and run it; with
+    no terminal, refuse in one line (``NO_TERMINAL``) before anything else."""
+    if not has_terminal():
+        raise click.ClickException(NO_TERMINAL)
     from blotter.config import ConfigError, load_settings
 
     db_path, _explicit = resolve_db(ctx.db_path)

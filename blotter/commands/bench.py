@@ -2,28 +2,27 @@
 
 from __future__ import annotations
 
-import importlib
-
 import click
 
-from blotter.benchmarks import BENCH_MODULES, Result
+from blotter.benchmarks import BENCH_MODULES, DEFAULT_MODULES, Result
+from blotter.commands import optional_module
 from blotter.commands.common import print_json, print_table
 
 
 def run_all(quick: bool, only: tuple[str, ...]) -> list[Result]:
-    """Results of every benchmark module present (or those named in ``only``), in order."""
+    """Results of the default benchmark modules present (or those named in ``only``), in
+    order; a bar on a terminal names the group running (``commands.progress``)."""
+    from blotter.commands.progress import progress
+
+    names = [name for name in BENCH_MODULES if name in (only or DEFAULT_MODULES)]
     results: list[Result] = []
-    for name in BENCH_MODULES:
-        if only and name not in only:
-            continue
-        try:
-            module = importlib.import_module(f"blotter.benchmarks.{name}")
-        except ModuleNotFoundError as exc:
-            if exc.name == f"blotter.benchmarks.{name}":
+    with progress("bench", len(names)) as bar:
+        for done, name in enumerate(names):
+            module = optional_module(f"blotter.benchmarks.{name}")
+            if module is None:
                 continue
-            raise
-        click.echo(f"bench: {name} ...", err=True)
-        results.extend(module.run(quick))
+            bar.update(done, f"bench: {name}")
+            results.extend(module.run(quick))
     return results
 
 
@@ -48,9 +47,9 @@ def _fmt_ratio(ratio: float | None, reference: str | None) -> str:
 @click.option("--json", "as_json", is_flag=True, help="Print {\"results\": [...]} as JSON.")
 @click.option("--quick", is_flag=True, help="Small sizes and few repetitions (a smoke test).")
 @click.option("--only", multiple=True, type=click.Choice(BENCH_MODULES),
-              help="Run only these groups (repeatable).")
+              help="Run only these groups (repeatable); cluster (minutes) runs only when named.")
 def bench(as_json: bool, quick: bool, only: tuple[str, ...]) -> None:
-    """Time valuation, loading, what-if and ladder on random books; medians of one run.
+    """Time valuation, loading, what-if and scenario grid on random books; medians of one run.
 
     Each row gives the median time per position (min and max beside it), the target where one is
     set, and where QuantLib is installed the ratio of its per-option loop to ours.

@@ -22,6 +22,9 @@ F = TypeVar("F", bound=Callable[..., Any])
 DESK_ZONE_HELP = f"the desk's time zone: {DESK_TZ_SOURCES}"
 """Where a time without an offset takes its zone from, for help texts."""
 
+XLSX_META = "blotter.xlsx"
+"""Where ``--xlsx FILE`` keeps its path on a command's context (``commands.xlsx``)."""
+
 FORMULA_PREFIXES = ("=", "+", "-", "@", "\t", "\r")
 """A CSV cell starting with one of these is run as a formula by spreadsheets unless neutralised."""
 
@@ -33,6 +36,28 @@ class AppContext:
     db_path: str | None = None
     read_only: bool = False
     no_mouse: bool = False
+
+
+def start_log(ctx: click.Context, log_file: str | None) -> None:
+    """Append the package's log to ``log_file``, else to the ``log_file`` setting's file, until
+    the command ends; with neither, nothing is logged anywhere (``blotter.logs``)."""
+    from blotter import logs
+    from blotter.config import ConfigError, load_settings
+
+    if not log_file:
+        try:
+            log_file = load_settings().log_file
+        except ConfigError:
+            return  # the commands that read the settings say what is wrong with them
+    if not log_file:
+        return
+    try:
+        handler = logs.start_file_log(log_file)
+    except OSError as exc:
+        raise click.ClickException(
+            f"cannot write the log file {log_file}: {exc.strerror}"
+        ) from None
+    ctx.call_on_close(lambda: logs.stop_file_log(handler))
 
 
 def desk_zone() -> ZoneInfo:
@@ -178,9 +203,13 @@ def output_options(func: F) -> F:
 
 
 def check_output_flags(as_json: bool, as_csv: bool) -> None:
-    """Refuse ``--json`` together with ``--csv``."""
-    if as_json and as_csv:
-        raise click.UsageError("choose one of --json and --csv")
+    """Refuse ``--json`` together with ``--csv``, or either with a report's ``--xlsx``."""
+    ctx = click.get_current_context(silent=True)
+    xlsx = ctx is not None and XLSX_META in ctx.meta
+    if as_json + as_csv + xlsx > 1:
+        raise click.UsageError(
+            "choose one of --json, --csv and --xlsx" if xlsx else "choose one of --json and --csv"
+        )
 
 
 def neutralise(cell: Any) -> Any:

@@ -47,8 +47,9 @@ def demo(
     demo.db.
     """
     from blotter.commands.common import read_only_source
+    from blotter.commands.progress import progress
     from blotter.store import StoreError
-    from blotter.store.demo import DEMO_SEED, build_demo, describe
+    from blotter.store.demo import DEMO_SEED, DEMO_STEPS, build_demo, describe
 
     if (source := read_only_source()) is not None:
         raise click.ClickException(
@@ -56,13 +57,15 @@ def demo(
             f"to {out}"
         )
     try:
-        path = build_demo(
-            out,
-            positions=positions,
-            seed=DEMO_SEED if seed is None else seed,
-            force=force,
-            american_share=american_share,
-        )
+        with progress("building the demo book", len(DEMO_STEPS)) as bar:
+            path = build_demo(
+                out,
+                positions=positions,
+                seed=DEMO_SEED if seed is None else seed,
+                force=force,
+                american_share=american_share,
+                progress=bar.update,
+            )
         counts = describe(path)
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None

@@ -1,4 +1,4 @@
-"""``blotter risk``, ``whatif``, ``ladder``, ``explain``: risk reports for people and scripts.
+"""``blotter risk``, ``whatif``, ``grid``, ``explain``: risk reports for people and scripts.
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
 now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in each underlying's
@@ -26,11 +26,11 @@ from blotter.commands.common import (
     note_first_compile,
     open_for_reading,
     output_options,
-    print_csv,
     print_json,
     print_table,
     resolve_db,
 )
+from blotter.commands.xlsx import table_out, wants_xlsx, xlsx_option
 from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
@@ -45,7 +45,7 @@ RULE_NOTES = {
     "sticky moneyness": "vols sticky moneyness: each option takes the marked vol at its K/S "
     "on the moved spot",
 }
-"""Said under every ladder and what-if output, by vol rule."""
+"""Said under every grid and what-if output, by vol rule."""
 
 
 def _rule_note(rule: str) -> str:
@@ -431,6 +431,7 @@ def _risk_cells(row: ExposureRow, vega_scale: float) -> list[str]:
 )
 @_at_option
 @output_options
+@xlsx_option
 def risk(
     db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: bool, as_csv: bool
 ) -> None:
@@ -489,12 +490,12 @@ def risk(
         out["notes"] = list(v.notes)
         print_json(out | _unvalued_json(v.unvalued))
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
         if by == "position":
             dicts = _position_dicts(v)
             cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS, "currency"]
-            print_csv(cols, ([d.get(c) for c in cols] for d in dicts))
+            table_out(cols, ([d.get(c) for c in cols] for d in dicts), "risk by position")
             return
         cols = [by, "spot", *EXPOSURE_FIELDS, "currency"]
         data = [
@@ -506,7 +507,7 @@ def risk(
              r.currency]
             for r in per_ccy or [tot]
         ]
-        print_csv(cols, data)
+        table_out(cols, data, f"risk by {by}")
         return
     scale = v.vega_scale
     first = {
@@ -683,6 +684,7 @@ def _move_json(res: MoveResult, ccy_of: dict[str, str]) -> dict[str, Any]:
     "settings, then the scenarios_file setting's file).",
 )
 @output_options
+@xlsx_option
 def whatif(
     db_path: str | None,
     move: tuple[str, ...],
@@ -726,9 +728,9 @@ def whatif(
     if as_json:
         print_json(_header(v) | _move_json(res, ccy_of) | _unvalued_json(v.unvalued))
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
-        print_csv(["underlying", *MOVE_CSV_COLUMNS], _move_csv_rows(res))
+        table_out(["underlying", *MOVE_CSV_COLUMNS], _move_csv_rows(res), "whatif")
         return
     shown = _labelled(res.by_underlying, res.by_currency, res.total, _total_label(v.unvalued))
     ccy_head = ["ccy"] if several else []
@@ -845,10 +847,11 @@ def _list_sets(sets: Sequence[ScenarioSet], as_json: bool, as_csv: bool) -> None
         for s in sets
         for j, m in enumerate(s.moves)
     ]
-    if as_csv:
-        print_csv(
+    if as_csv or wants_xlsx():
+        table_out(
             ["set", "scenario", "move", "source"],
             [[s.name, m.name, m.text, s.source] for s in sets for m in s.moves],
+            "scenario sets",
         )
         return
     if not sets:
@@ -883,14 +886,14 @@ def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) ->
         }
         print_json(out | _unvalued_json(v.unvalued))
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
         rows = [
             [row.name, row.text, *cells, int(cells[0] == "total" and cells[-1] in run.worst_in(i))]
             for i, row in enumerate(run.rows)
             for cells in _move_csv_rows(row.result)
         ]
-        print_csv(["scenario", "move", "underlying", *MOVE_CSV_COLUMNS, "worst"], rows)
+        table_out(["scenario", "move", "underlying", *MOVE_CSV_COLUMNS, "worst"], rows, "whatif")
         return
     several = len(v.currencies) > 1
     table = []
@@ -953,7 +956,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     return out
 
 
-@click.command()
+@click.command("grid")
 @db_option
 @click.option(
     "--spot",
@@ -983,28 +986,45 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     show_default=True,
     help="How vols follow spot: sticky strike, or sticky moneyness (the smile moves with spot).",
 )
+@click.option(
+    "--workers",
+    type=click.IntRange(min=1, max=1024),
+    default=None,
+    help="Processes to share the grid (default: one per core from 1,000,000 positions, "
+    "else this process alone).",
+)
+@click.option(
+    "--cluster",
+    metavar="ADDRESS",
+    envvar="BLOTTER_CLUSTER",
+    default=None,
+    help="Run the grid on the Dask cluster at ADDRESS (tcp://host:port; $BLOTTER_CLUSTER); "
+    'needs pip install "blotter[cluster]".',
+)
 @_at_option
 @output_options
-def ladder(
+@xlsx_option
+def grid(
     db_path: str | None,
     spot_list: str | None,
     vol_list: str | None,
     days: float,
     rule: str,
+    workers: int | None,
+    cluster: str | None,
     at: str | None,
     as_json: bool,
     as_csv: bool,
 ) -> None:
-    """Spot × vol ladder of the book's P&L: full revaluation, the greeks' estimate and the error.
+    """Scenario grid: spot × vol table of the book's P&L, full revaluation, greeks' estimate, error.
 
     Rows move every spot by the same %, columns every vol by the same points; vols are sticky
     strike (each option keeps its strike's vol) unless --rule moneyness. The estimate is second
     order (delta, gamma, vega, volga, vanna, theta). The worst cell is the lowest full P&L. Money
-    in the underlyings' currency; a book of several currencies gets one ladder per currency.
+    in the underlyings' currency; a book of several currencies gets one grid per currency.
     """
     from blotter import calendar as cal
     from blotter.scenario import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS
-    from blotter.scenario import ladders as run_ladders
 
     check_output_flags(as_json, as_csv)
     sp = _float_list(spot_list, DEFAULT_SPOT_PCTS, "--spot")
@@ -1015,7 +1035,7 @@ def ladder(
         check_option(limits.MOVE_VOL_PTS, x, "--vol", signed=True)
     store = _open(db_path)
     v = _value(store, at)
-    lads = run_ladders(v, sp, vp, days=days, rule=f"sticky {rule}")
+    lads = _run_grid(v, sp, vp, days, f"sticky {rule}", workers, cluster)
     lad = lads[0]
     if as_json:
         grids = {g.currency: _ladder_grids(g, sp, vp) for g in lads if g.currency}
@@ -1036,9 +1056,9 @@ def ladder(
             | _unvalued_json(v.unvalued)
         )
         return
-    if as_csv:
+    if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
-        print_csv(
+        table_out(
             ["spot_pct", "vol_pts", "full", "estimate", "error", "rule", "currency"],
             (
                 [sp[a], vp[b], g.full[a, b], g.estimate[a, b], g.error[a, b], g.rule, g.currency]
@@ -1046,6 +1066,7 @@ def ladder(
                 for a in range(len(sp))
                 for b in range(len(vp))
             ),
+            "grid",
         )
         return
     heads = ["spot % \\ vol pts", *(f"{x:+g}" for x in vp)]
@@ -1147,6 +1168,7 @@ def _set_words(s: Any, t: Any) -> str:
     help="End mark set id, or 'now' for the marks in force now. Default: the last close.",
 )
 @output_options
+@xlsx_option
 def explain(
     db_path: str | None, from_set: int | None, to_set: str | None, as_json: bool, as_csv: bool
 ) -> None:
@@ -1206,7 +1228,7 @@ def explain(
         "corrections",
         "currency",
     ]
-    if as_csv:
+    if as_csv or wants_xlsx():
         data = [
             [
                 label,
@@ -1222,7 +1244,7 @@ def explain(
             for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
         ]
         _say_unvalued(ex.unvalued, table=False)
-        print_csv(cols, data)
+        table_out(cols, data, "explain")
         return
     frm = ex.from_set
     to = ex.to_set
@@ -1281,4 +1303,50 @@ def explain(
     _say_unvalued(ex.unvalued, table=True)
 
 
-COMMANDS = [risk, whatif, ladder, explain]
+def _run_grid(
+    v: Any,
+    sp: list[float],
+    vp: list[float],
+    days: float,
+    rule: str,
+    workers: int | None,
+    cluster: str | None,
+) -> list[Any]:
+    """The grids of valuation ``v``: in this process, or sharded over a local process pool or a
+    Dask cluster (``scenario.sharded.grid_executor``)."""
+    from blotter.scenario import ladders
+    from blotter.scenario.sharded import ClusterUnavailable, grid_executor, sharded_ladders
+
+    try:
+        with grid_executor(len(v), workers, cluster) as executor:
+            if executor is None:
+                return ladders(v, sp, vp, days=days, rule=rule)
+            return sharded_ladders(v, executor, sp, vp, days, rule)
+    except ClusterUnavailable as exc:
+        raise click.ClickException(str(exc)) from None
+
+
+def _old_name(command: click.Command, old: str, until: str) -> click.Command:
+    """``command`` under its ``old`` name, hidden from help, saying on stderr what it is now."""
+
+    def callback(**kwargs: Any) -> Any:
+        click.echo(
+            f"blotter {old} is now blotter {command.name}; the old name goes in {until}.", err=True
+        )
+        assert command.callback is not None
+        return command.callback(**kwargs)
+
+    return click.Command(
+        old,
+        params=command.params,
+        callback=callback,
+        help=f"Old name of `blotter {command.name}`, kept until {until}.",
+        hidden=True,
+        context_settings=command.context_settings,
+    )
+
+
+ladder = _old_name(grid, "ladder", "the next release")
+"""``blotter ladder``: the grid's old name, hidden, working for one more release."""
+
+COMMANDS = [risk, whatif, grid, ladder, explain]

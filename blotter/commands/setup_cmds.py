@@ -13,7 +13,6 @@ import re
 import click
 
 from blotter import limits
-from blotter.book import UNDERLYING_KINDS
 from blotter.commands.common import (
     FINITE,
     check_option,
@@ -27,6 +26,7 @@ from blotter.commands.common import (
     read_only_source,
 )
 from blotter.commands.store_cmds import _emit, _store, parse_decimal_or_percent
+from blotter.limits import UNDERLYING_KINDS
 
 _CURRENCY = re.compile(r"[A-Z]{3}\Z")
 _CUTOFF = re.compile(r"([01]\d|2[0-3]):[0-5]\d\Z")

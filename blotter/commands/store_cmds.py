@@ -29,7 +29,44 @@ from blotter.commands.common import (
     read_only_source,
     resolve_db,
 )
+from blotter.commands.progress import Progress, progress
 from blotter.printable import printable
+
+STDIN_NAME = "stdin"
+"""The name an import read from standard input (``-``) goes by in messages and the import log."""
+
+
+@contextmanager
+def _import_file(file: str) -> Iterator[str]:
+    """The path of the CSV to import: ``file`` itself, or for ``-`` standard input copied whole
+    into a private temporary file named ``STDIN_NAME`` (the store checks a file's every row
+    before writing, and records its content's digest, so it reads a file, not a stream)."""
+    if file != "-":
+        yield file
+        return
+    import sys
+    import tempfile
+    from pathlib import Path
+
+    data = sys.stdin.buffer.read()
+    with tempfile.TemporaryDirectory(prefix="blotter-import-") as folder:
+        path = Path(folder) / STDIN_NAME
+        path.write_bytes(data)
+        yield str(path)
+
+
+@contextmanager
+def _import_bar(path: str) -> Iterator[Progress]:
+    """Progress of importing ``path``, in rows written of its lines (``commands.progress``)."""
+    from pathlib import Path
+
+    try:
+        with open(path, "rb") as f:
+            lines = sum(1 for line in f if line.strip())
+    except OSError:
+        lines = 0  # the import says why it cannot read the file
+    with progress(f"importing {Path(path).name}", max(lines - 1, 0)) as bar:
+        yield bar
 
 
 @contextmanager
@@ -279,7 +316,7 @@ def trade_amend(
 
 
 @trade.command("import")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", type=click.Path(dir_okay=False, allow_dash=True))
 @click.option(
     "--new-books",
     is_flag=True,
@@ -288,13 +325,14 @@ def trade_amend(
 @click.option("--json", "as_json", is_flag=True, help="Print what was imported as JSON.")
 @db_option
 def trade_import(file: str, new_books: bool, as_json: bool, db_path: str | None) -> None:
-    """Import trades from a CSV FILE (the `trade list --csv` format): every row or none.
+    """Import trades from a CSV FILE (the `trade list --csv` format; - reads standard input):
+    every row or none.
 
     Each row's book must exist unless --new-books; a row whose trade_id is already in the book
     (an export of this book) is refused, since importing it again would double the position.
     """
-    with _store(db_path) as store:
-        rep = store.import_trades_csv(file, new_books=new_books)
+    with _store(db_path) as store, _import_file(file) as path, _import_bar(path) as bar:
+        rep = store.import_trades_csv(path, bar.update, new_books=new_books)
     _emit(
         as_json,
         {
@@ -484,13 +522,14 @@ def mark_divyield(symbol: str, q: str, as_json: bool, db_path: str | None) -> No
 
 
 @mark.command("import")
-@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("file", type=click.Path(dir_okay=False, allow_dash=True))
 @click.option("--json", "as_json", is_flag=True, help="Print what was imported as JSON.")
 @db_option
 def mark_import(file: str, as_json: bool, db_path: str | None) -> None:
-    """Import marks from a CSV FILE (the `mark list --csv` format) as one set: every row or none."""
-    with _store(db_path) as store:
-        rep = store.import_marks_csv(file)
+    """Import marks from a CSV FILE (the `mark list --csv` format; - reads standard input) as one
+    set: every row or none."""
+    with _store(db_path) as store, _import_file(file) as path, _import_bar(path) as bar:
+        rep = store.import_marks_csv(path, bar.update)
     _emit(
         as_json,
         {"rows": rep.rows, "import_id": rep.import_id, "mark_set_id": rep.first_id},

@@ -2,9 +2,9 @@
 
 Book limits apply to the book's total (and each currency's total when there are several),
 per-underlying limits to each underlying: |Δ $|, |vega| per vol point and the worst cell of the
-spot × vol ladder. A limit of 0 is no limit. Breaches come back in words, for the app's header,
-its Book rows and the watch list alike. The watch list also names the options expiring by the end
-of the coming Sunday, with pin risk flagged (``scenario.apply_move`` rolled that far).
+spot × vol grid. A limit of 0 is no limit. Breaches come back in words, for the app's header,
+its Book rows and the Flags screen alike. The Flags screen also names the options expiring by
+the end of the coming Sunday, with pin risk flagged (``scenario.apply_move`` rolled that far).
 """
 
 from __future__ import annotations
@@ -81,7 +81,7 @@ def ladder_breaches(
         if alerts.ladder_loss and -worst > alerts.ladder_loss:
             ccy = f" {grid.currency}" if len(grids) > 1 else ""
             breached.append(
-                f"book{ccy} worst ladder cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
+                f"book{ccy} worst grid cell {worst:+,.0f} beyond −{alerts.ladder_loss:,.0f}"
             )
     by_underlying: dict[str, str] = {}
     if alerts.underlying_ladder_loss:
@@ -97,7 +97,7 @@ def ladder_breaches(
             w = float(g.full[g.worst])
             if -w > alerts.underlying_ladder_loss:
                 by_underlying[book.underlyings.symbols[int(j)]] = (
-                    f"worst ladder cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
+                    f"worst grid cell {w:+,.0f} beyond −{alerts.underlying_ladder_loss:,.0f}"
                 )
     return LadderBreaches("; ".join(breached), by_underlying)
 

@@ -41,7 +41,7 @@ from blotter.engine import american as _american
 from blotter.engine import black as _black
 from blotter.engine import implied as _implied
 from blotter.engine._chunks import CHUNK, Kernel, run_chunked
-from blotter.engine._kernels import kernels_ready, warm_up
+from blotter.engine._kernels import kernels_ready
 from blotter.engine._validate import (
     Flat,
     as_bool_array,
@@ -52,7 +52,7 @@ from blotter.engine._validate import (
 from blotter.engine._validate import (
     omega as _omega,
 )
-from blotter.engine.american import AMERICAN_STATUS, BoundaryCache
+from blotter.engine.american import AMERICAN_STATUS, BoundaryCache, warm_up
 from blotter.engine.results import (
     GREEK_NAMES,
     IV_ABOVE_UPPER_BOUND,

@@ -17,11 +17,14 @@ Rows by put form:
   max(European, intrinsic), a lower bound, and reported per row (``DOUBLE_BOUNDARY``).
 
 The boundary divided by the strike depends only on (τ, r_p, q_p, σ), so rows are grouped by
-exact (τ, r_p, q_p); each group's boundary is solved at a few vol nodes (Chebyshev–Lobatto in
-ln σ spanning the group's vols with a margin) and interpolated to each row's vol by Hermite
-interpolation in ln σ (values and the exact σ-derivatives of the nodes), which also gives the
-σ-derivatives that vega, vanna and volga need. A spot move changes no boundary; a shorter time
-to expiry uses the same boundary on [0, τ].
+exact (τ, r_p, q_p) (sorted by a hash of the three, ``_group``); each group's boundary is solved
+at a few vol nodes (Chebyshev–Lobatto in ln σ spanning the group's vols with a margin; each
+node's Newton iteration starts from its neighbour's solution moved along that neighbour's
+σ-derivative) and interpolated to each row's vol by Hermite interpolation in ln σ (values and
+the exact σ-derivatives of the nodes), which also gives the σ-derivatives that vega, vanna and
+volga need. A group of one vol has one node, with its second σ-derivative when greeks are
+asked for. A spot move changes no boundary; a shorter time to expiry uses the same boundary on
+[0, τ].
 """
 
 from __future__ import annotations
@@ -30,10 +33,11 @@ import threading
 from collections import OrderedDict
 from collections.abc import Sequence
 from dataclasses import dataclass
+from types import ModuleType
 
 import numpy as np
 
-from blotter.engine import _alo, black
+from blotter.engine import _alo, _alo_np, _kernels, black
 from blotter.engine._chunks import run_chunked
 
 EXERCISE_BOUNDARY = 0
@@ -70,14 +74,16 @@ true vol); below it the boundary is within 1% of its σ = 0 limit and the solver
 underflow."""
 NODE_MARGIN = 0.05
 """Margin in ln σ added on each side of a group's vols before placing its vol nodes."""
-NODE_SPAN = 0.35
-"""Width in ln σ covered per vol node beyond the first three (a group spanning vols 15%–60%
-gets 3 + 5 nodes)."""
+NODE_SPAN_PRICE = 0.5
+"""Width in ln σ per vol node for prices: values and σ-derivatives at the nodes (Hermite)
+interpolate ln B to about 1e-8 of the strike in price."""
+NODE_SPAN_GREEKS = 0.06
+"""Width in ln σ per vol node for greeks: the boundary's r- and b-derivatives are interpolated
+from their values alone (Lagrange), which needs nodes this close for rho within 1e-4."""
+NODES_MIN = (3, 4)
+"""Fewest vol nodes of a group of several vols, for prices and for greeks."""
 NODES_MAX = 12
 """Most vol nodes per group."""
-SINGLE_HALF_WIDTH = 0.05
-"""Half-width in ln σ of the three vol nodes of a group with one vol (greeks need the
-boundary's second σ-derivative, which three nodes with derivatives give to O(width⁴))."""
 BATCH_ROWS = 512
 """Rows per unit of work on the thread pool (whole groups; a larger group is one unit)."""
 
@@ -85,50 +91,56 @@ BATCH_ROWS = 512
 
 @dataclass(frozen=True, eq=False)
 class Scheme:
-    """Discretization of the method: Chebyshev intervals, Gauss–Legendre points per half of a
-    boundary integral, and the tanh-sinh rule of the price integral, with their tables."""
+    """Discretization of the method: Chebyshev intervals of the boundary, Gauss–Legendre points
+    per half of a boundary integral, the graded price rule (``_alo.graded_rule``), the power of
+    the node map and whether the gap's square is interpolated where X = 1, with their
+    tables."""
 
     nodes: int
     gauss: int
-    ts_step: float
-    ts_half: int
-    graded: tuple[int, int, int] | None = None
+    graded: tuple[int, int, int, int]
+    power: float = _alo.POWER
+    squares: bool = True
 
     def __post_init__(self) -> None:
-        tabs = _alo.solver_tables(self.nodes, self.gauss)
-        if self.graded is None:
-            ts_x, ts_w = _alo.tanh_sinh(self.ts_step, self.ts_half)
-        else:
-            ts_x, ts_w = _alo.graded_rule(*self.graded)
-        object.__setattr__(self, "tables", tabs)
-        object.__setattr__(self, "cheb", _alo.chebyshev_transform(self.nodes))
+        ts_x, ts_w = _alo.graded_rule(*self.graded)
+        object.__setattr__(self, "tables",
+                           _alo.solver_tables(self.nodes, self.gauss, self.power))
         object.__setattr__(self, "ts_x", ts_x)
         object.__setattr__(self, "ts_w", ts_w)
+        object.__setattr__(self, "wq_t", np.ascontiguousarray(
+            _alo.price_table(self.nodes, ts_x, self.power).T))
 
 
-DEFAULT = Scheme(_alo.N_NODES, _alo.N_GAUSS, 0.0, 0, _alo.GRADED)
+DEFAULT = Scheme(_alo.N_NODES, _alo.N_GAUSS, _alo.GRADED)
 """The engine's scheme (ACCURACY.md has its errors by region)."""
-FINE = Scheme(32, 24, 0.0, 0, (28, 8, 16))
-"""A much finer scheme, for reference runs (``tests.engine.american_reference``)."""
+FINE = Scheme(64, 32, (16, 10, 2, 24), power=3.0, squares=False)
+"""A much finer scheme, for reference runs (``tests.engine.american_reference``): the gap
+interpolated in (u/τmax)^(1/3), which resolves u -> 0 better and, unlike the squared gap with
+this many nodes, converges on every boundary of the accuracy study."""
 
 
 @dataclass(frozen=True, eq=False)
 class Boundary:
     """One solved group: put-form rate and dividend yield, the time τmax the boundary spans, vol
-    nodes (ln σ, ascending) and ln(B/K) with its (σ, r, b) derivatives at the Chebyshev nodes."""
+    nodes (ln σ, ascending) and ln(B/K) at the Chebyshev nodes with its derivatives in σ, r, b
+    and, for a lone node solved for greeks, in (ln σ)²; ``greeks``: solved for greeks (vol nodes
+    close enough for the r- and b-derivatives)."""
 
     rate: float
     div: float
     tmax: float
     lnsig: np.ndarray        # (ns,)
     lnb: np.ndarray          # (ns, n)
-    tangents: np.ndarray     # (ns, 3, n)
+    tangents: np.ndarray     # (ns, 4, n)
     steps: int               # Newton steps of the slowest node, −1 when one failed
+    greeks: bool
 
-    def covers(self, tau: float, lo: float, hi: float) -> bool:
-        """True when this boundary serves rows of time ``tau`` and ln-vols in [lo, hi]."""
+    def covers(self, tau: float, lo: float, hi: float, greeks: bool) -> bool:
+        """True when this boundary serves rows of time ``tau`` and ln-vols in [lo, hi], for
+        greeks only when it was solved for them."""
         return (ROLL_MIN * self.tmax <= tau <= self.tmax and self.lnsig[0] <= lo + 1e-12
-                and hi <= self.lnsig[-1] + 1e-12)
+                and hi <= self.lnsig[-1] + 1e-12 and (self.greeks or not greeks))
 
     @property
     def nbytes(self) -> int:
@@ -154,6 +166,7 @@ class BoundaryCache:
         self.max_bytes = max_bytes
         self._lock = threading.Lock()
         self._items: OrderedDict[tuple[float, float, float], Boundary] = OrderedDict()
+        self._by_rates: dict[tuple[float, float], dict[float, Boundary]] = {}
         self._bytes = 0
         self.hits = 0
         self.misses = 0
@@ -168,20 +181,35 @@ class BoundaryCache:
         out = BoundaryCache(self.max_bytes)
         with self._lock:
             out._items = OrderedDict(self._items)
+            out._by_rates = {k: dict(v) for k, v in self._by_rates.items()}
             out._bytes = self._bytes
         return out
 
-    def find(self, rate: float, div: float, tau: float, lo: float, hi: float) -> Boundary | None:
-        """A boundary serving (rate, div, τ) for ln-vols [lo, hi], or None."""
+    def __getstate__(self) -> dict[str, object]:
+        """The cache without its lock: a process or a cluster worker unpickles its own copy of
+        the boundaries solved so far."""
+        with self._lock:
+            state = dict(self.__dict__)
+            state["_items"] = OrderedDict(self._items)
+        del state["_lock"]
+        return state
+
+    def __setstate__(self, state: dict[str, object]) -> None:
+        self.__dict__.update(state)
+        self._lock = threading.Lock()
+
+    def find(self, rate: float, div: float, tau: float, lo: float, hi: float,
+             greeks: bool = False) -> Boundary | None:
+        """A boundary serving (rate, div, τ) for ln-vols [lo, hi] (and greeks), or None."""
         with self._lock:
             exact = self._items.get((rate, div, tau))
-            if exact is not None and exact.covers(tau, lo, hi):
+            if exact is not None and exact.covers(tau, lo, hi, greeks):
                 self._items.move_to_end((rate, div, tau))
                 self.hits += 1
                 return exact
-            for key, item in self._items.items():
-                if key[0] == rate and key[1] == div and item.covers(tau, lo, hi):
-                    self._items.move_to_end(key)
+            for item in self._by_rates.get((rate, div), {}).values():
+                if item.covers(tau, lo, hi, greeks):
+                    self._items.move_to_end((rate, div, item.tmax))
                     self.hits += 1
                     return item
             self.misses += 1
@@ -195,9 +223,14 @@ class BoundaryCache:
             if old is not None:
                 self._bytes -= old.nbytes
             self._items[key] = item
+            self._by_rates.setdefault((item.rate, item.div), {})[item.tmax] = item
             self._bytes += item.nbytes
             while self._bytes > self.max_bytes and len(self._items) > 1:
-                _, dropped = self._items.popitem(last=False)
+                (r, q, tmax), dropped = self._items.popitem(last=False)
+                same = self._by_rates[(r, q)]
+                del same[tmax]
+                if not same:
+                    del self._by_rates[(r, q)]
                 self._bytes -= dropped.nbytes
 
     def prepare(self, is_call: object, years: object, rate: object, carry: object,
@@ -210,13 +243,15 @@ class BoundaryCache:
         w, t, r, b, lo, hi = (np.ravel(a) for a in (w, t, r, b, lo, hi))
         r_p = np.where(w > 0, r - b, r)
         q_p = np.where(w > 0, r, r - b)
-        keep = (t > 0) & (status_of(r_p, q_p) == EXERCISE_BOUNDARY)
-        both = np.concatenate([lo[keep], hi[keep]])
-        n = int(keep.sum())
-        if n:
-            rows = _Rows(np.zeros(2 * n), np.tile(t[keep], 2), np.tile(r_p[keep], 2),
-                         np.tile(q_p[keep], 2), both, np.ones(2 * n), np.zeros(2 * n, bool))
-            _boundaries(rows, greeks=True, cache=self)
+        keep = np.flatnonzero((t > 0) & (status_of(r_p, q_p) == EXERCISE_BOUNDARY))
+        if keep.size:
+            tt, rr, qq = (np.tile(a[keep], 2) for a in (t, r_p, q_p))
+            lnv = np.log(np.maximum(np.concatenate([lo[keep], hi[keep]]), VOL_MIN))
+            key = np.empty(tt.size, dtype=np.uint64)
+            kernels = _implementation(None)
+            kernels.group_keys(tt, rr, qq, key)
+            order, first = _group(np.arange(tt.size), key, tt, rr, qq)
+            _boundaries(order, first, tt, rr, qq, lnv, True, self, kernels)
 
 
 def status_of(r_p: np.ndarray, q_p: np.ndarray) -> np.ndarray:
@@ -228,24 +263,12 @@ def status_of(r_p: np.ndarray, q_p: np.ndarray) -> np.ndarray:
 
 
 @dataclass(frozen=True)
-class _Rows:
-    """Rows in put form: ln(spot/strike), τ, rate, dividend yield, vol, scale, is_call."""
-
-    lnx: np.ndarray
-    tau: np.ndarray
-    rate: np.ndarray
-    div: np.ndarray
-    vol: np.ndarray
-    scale: np.ndarray
-    call: np.ndarray
-
-
-@dataclass(frozen=True)
 class _Groups:
-    """Rows sorted by group (``order`` maps sorted position -> row, ``first`` (G + 1,) the
-    first sorted row of each group) and each group's put form, row time τ and boundary arrays
-    (vol nodes ``lnsig`` (G, NSM) of which the first ``ns`` are used; ``lnb`` (G, NSM, n);
-    ``tan`` (G, NSM, 3, n); ``steps``, −1 where a node failed)."""
+    """Rows by group (``order`` lists the rows of group g at ``first[g]:first[g + 1]``) and each
+    group's put form, row time τ and boundary arrays (vol nodes ``lnsig`` (G, NSM) of which the
+    first ``ns`` are used; ``lnb`` (G, NSM, n); ``tan`` (G, NSM, 4, n); ``steps``, −1 where a
+    node failed; ``greeks``: nodes placed for greeks, lone nodes with their second
+    σ-derivative)."""
 
     order: np.ndarray
     first: np.ndarray
@@ -258,40 +281,61 @@ class _Groups:
     lnb: np.ndarray
     tan: np.ndarray
     steps: np.ndarray
+    greeks: bool
 
 
 def _vol_nodes(lo: np.ndarray, hi: np.ndarray, greeks: bool) -> tuple[np.ndarray, np.ndarray]:
     """Vol nodes (ln σ, ascending; (G, NSM), the first ``ns`` (G,) used) for groups whose
-    ln-vols span [lo, hi]: Chebyshev–Lobatto points over the span widened by ``NODE_MARGIN``;
-    a group of one vol gets that vol alone (prices) or it and ± ``SINGLE_HALF_WIDTH`` (greeks)."""
+    ln-vols span [lo, hi]: Chebyshev–Lobatto points over the span widened by ``NODE_MARGIN``,
+    one per ``NODE_SPAN_GREEKS`` or ``NODE_SPAN_PRICE`` of it; a group of one vol gets that vol
+    alone (with its second σ-derivative for greeks)."""
     single = hi - lo <= 1e-12
     a, c = lo - NODE_MARGIN, hi + NODE_MARGIN
-    ns = np.minimum(NODES_MAX, 3 + np.ceil((c - a) / NODE_SPAN)).astype(np.int64)
-    ns[single] = 3 if greeks else 1
+    span = NODE_SPAN_GREEKS if greeks else NODE_SPAN_PRICE
+    ns = np.clip(1 + np.ceil((c - a) / span), NODES_MIN[int(greeks)],
+                 NODES_MAX).astype(np.int64)
+    ns[single] = 1
     nsm = int(ns.max())
     k = np.arange(nsm)[None, :]
     denom = np.maximum(ns - 1, 1)[:, None]
     nodes = 0.5 * (a + c)[:, None] - 0.5 * (c - a)[:, None] * np.cos(
         np.minimum(k, denom) * np.pi / denom)
-    if single.any():
-        offs = (SINGLE_HALF_WIDTH * np.array([-1.0, 0.0, 1.0]) if greeks else np.zeros(1))
-        nodes[single, : offs.size] = lo[single, None] + offs[None, :]
+    nodes[single, 0] = lo[single]
     return nodes, ns
 
 
-def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
-                scheme: Scheme = DEFAULT) -> _Groups:
-    """Group the rows by exact (τ, rate, dividend yield) and find (in ``cache``) or solve each
-    group's boundary; solves run on the engine's thread pool, into arrays of all groups."""
-    lnv = np.log(np.maximum(rows.vol, VOL_MIN))
-    order = np.lexsort((lnv, rows.div, rows.rate, rows.tau))
-    t, r, q = rows.tau[order], rows.rate[order], rows.div[order]
+def _group(rows: np.ndarray, key: np.ndarray, tau: np.ndarray, rate: np.ndarray,
+           div: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Rows ``rows`` ordered so that rows of one exact (τ, rate, dividend yield) are adjacent
+    (sorted by the hash ``key``), and the first position of each run of equal keys, with the
+    end appended. Two keys sharing a hash at worst split into several runs of one key each."""
+    order = rows[np.argsort(key[rows])]
+    t, r, q = tau[order], rate[order], div[order]
     new = np.ones(order.size, dtype=bool)
     new[1:] = (t[1:] != t[:-1]) | (r[1:] != r[:-1]) | (q[1:] != q[:-1])
     first = np.append(np.flatnonzero(new), order.size)
+    return order, first
+
+
+def _implementation(kernels: ModuleType | None) -> ModuleType:
+    """``kernels`` when given, else the compiled kernels (``_alo``) when they are ready or no
+    warm-up is compiling them (they then compile or load here), else their NumPy mirror
+    (``_alo_np``), so that a caller never waits on a compilation running elsewhere."""
+    if kernels is not None:
+        return kernels
+    return _alo if _kernels.use_compiled() else _alo_np
+
+
+def _boundaries(order: np.ndarray, first: np.ndarray, tau: np.ndarray, rate: np.ndarray,
+                div: np.ndarray, lnv: np.ndarray, greeks: bool, cache: BoundaryCache | None,
+                kernels: ModuleType, scheme: Scheme = DEFAULT) -> _Groups:
+    """Find (in ``cache``) or solve the boundary of each group of rows (``_group``); solves run
+    on the engine's thread pool, into arrays of all groups."""
+    starts = first[:-1]
+    g_r, g_q, g_tau = rate[order[starts]], div[order[starts]], tau[order[starts]]
     lv = lnv[order]
-    g_r, g_q, g_tau = r[first[:-1]], q[first[:-1]], t[first[:-1]]
-    lo, hi = lv[first[:-1]], lv[first[1:] - 1]
+    lo = np.minimum.reduceat(lv, starts)
+    hi = np.maximum.reduceat(lv, starts)
     nodes, ns = _vol_nodes(lo, hi, greeks)
     g_tmax = g_tau.copy()
     use_cache = cache is not None and scheme is DEFAULT
@@ -300,7 +344,7 @@ def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
         assert cache is not None
         for g in range(g_r.size):
             item = cache.find(float(g_r[g]), float(g_q[g]), float(g_tau[g]), float(lo[g]),
-                              float(hi[g]))
+                              float(hi[g]), greeks)
             if item is not None:
                 found[g] = item
     nsm = max([int(ns.max())] + [it.lnsig.size for it in found.values()])
@@ -308,8 +352,8 @@ def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
         nodes = np.pad(nodes, ((0, 0), (0, nsm - nodes.shape[1])))
     n = scheme.nodes
     grp = _Groups(order, first, g_r, g_q, g_tau, g_tmax, ns, nodes,
-                  np.zeros((g_r.size, nsm, n)), np.zeros((g_r.size, nsm, 3, n)),
-                  np.zeros(g_r.size, dtype=np.int64))
+                  np.zeros((g_r.size, nsm, n)), np.zeros((g_r.size, nsm, 4, n)),
+                  np.zeros(g_r.size, dtype=np.int64), greeks)
     for g, item in found.items():
         k = item.lnsig.size
         grp.tmax[g] = item.tmax
@@ -320,24 +364,26 @@ def _boundaries(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
         grp.steps[g] = item.steps
     todo = np.setdiff1d(np.arange(g_r.size), np.fromiter(found, dtype=np.int64))
     if todo.size:
-        _solve(grp, todo, scheme)
+        _solve(grp, todo, scheme, kernels)
         if use_cache:
             assert cache is not None
             for g in todo:
                 k = int(grp.ns[g])
                 cache.store(Boundary(float(g_r[g]), float(g_q[g]), float(g_tau[g]),
                                      grp.lnsig[g, :k].copy(), grp.lnb[g, :k].copy(),
-                                     grp.tan[g, :k].copy(), int(grp.steps[g])))
+                                     grp.tan[g, :k].copy(), int(grp.steps[g]), greeks))
     return grp
 
 
-def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
+def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme, kernels: ModuleType) -> None:
     """Solve the boundaries of groups ``todo`` into ``grp``'s arrays, in batches of groups on
-    the thread pool (in place when every group is to be solved, else through a copy)."""
+    the thread pool."""
     tabs: dict[str, np.ndarray] = scheme.tables  # type: ignore[attr-defined]
-    whole = todo.size == grp.rate.size
-    sel = slice(None) if whole else todo
-    arrs = [a[sel] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
+    # groups of one underlying and type sit together, longest first, so that each can start
+    # from the one before it (``_alo.borrow_start``): rate minus dividend yield in put form
+    # is nearly the same for them, while either alone is shared by unrelated groups
+    todo = todo[np.lexsort((-grp.tmax[todo], np.round(grp.div[todo] - grp.rate[todo], 3)))]
+    arrs = [a[todo] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
                              grp.tan, grp.steps)]
     count = todo.size
     per = max(1, BATCH_ROWS // (4 * grp.lnsig.shape[1]))
@@ -347,56 +393,60 @@ def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme) -> None:
         for a in ins[0]:
             sl = slice(int(a), int(min(a + per, count)))
             r, q, tmax, ns, lnsig, lnb, tan, steps = (x[sl] for x in arrs)
-            _alo.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
-                              tabs["w"], tabs["W"], lnb, tan, steps)
+            kernels.solve_groups(r, q, tmax, ns, lnsig, tabs["t"], tabs["s"], tabs["u"],
+                                 tabs["w"], tabs["W"], tabs["WT"], tabs["W0"], lnb, tan, steps,
+                                 grp.greeks, scheme.squares, scheme.power)
 
     run_chunked(kernel, starts.size, (starts,), (np.empty(starts.size),), chunk=1, min_split=1)
-    if not whole:
-        grp.lnb[todo] = arrs[5]
-        grp.tan[todo] = arrs[6]
-        grp.steps[todo] = arrs[7]
+    grp.lnb[todo] = arrs[5]
+    grp.tan[todo] = arrs[6]
+    grp.steps[todo] = arrs[7]
 
 
-def _value(rows: _Rows, greeks: bool, cache: BoundaryCache | None,
-           scheme: Scheme) -> tuple[np.ndarray, np.ndarray]:
-    """Values (1, m) or price and nine greeks (10, m) of rows with one exercise boundary, and
-    each row's status (``EXERCISE_BOUNDARY`` or ``NOT_CONVERGED``)."""
-    grp = _boundaries(rows, greeks, cache, scheme)
-    m = rows.lnx.size
-    n_out = 10 if greeks else 1
-    out_sorted = np.empty((n_out, m))
+def _value(grp: _Groups, lnx: np.ndarray, v: np.ndarray, s: np.ndarray, k: np.ndarray,
+           w: np.ndarray, greeks: bool, scheme: Scheme, out: np.ndarray,
+           near: np.ndarray, kernels: ModuleType) -> None:
+    """Values (or price and nine greeks) of the rows of ``grp`` into ``out`` (1 or 10, m), in
+    batches of whole groups of about ``BATCH_ROWS`` rows on the thread pool; rows of groups
+    whose boundary failed are left untouched; ``near`` marks rows at their European value."""
     n_groups = grp.rate.size
-    o = grp.order
-    lnx, vol, scale, call = rows.lnx[o], rows.vol[o], rows.scale[o], rows.call[o]
-    # batches of whole groups of about BATCH_ROWS rows
-    sizes = np.diff(grp.first)
-    cum = np.cumsum(sizes)
-    cuts = np.unique(np.searchsorted(cum, np.arange(BATCH_ROWS, m, BATCH_ROWS), side="left"))
+    m = grp.order.size
+    cum = grp.first[1:]
+    cuts = np.searchsorted(cum, np.arange(BATCH_ROWS, m, BATCH_ROWS), side="left")
     bounds = np.unique(np.concatenate([[0], cuts + 1, [n_groups]])).astype(np.int64)
     bounds = bounds[bounds <= n_groups]
 
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         for c in ins[0]:
             g0, g1 = int(bounds[c]), int(bounds[c + 1])
-            base = int(grp.first[g0])
             sl = slice(g0, g1)
-            rs = slice(base, int(grp.first[g1]))
-            _alo.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
-                              grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
-                              grp.first[g0:g1 + 1] - base, lnx[rs], vol[rs], scale[rs],
-                              call[rs], scheme.cheb,  # type: ignore[attr-defined]
-                              scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
-                              VOL_MIN, greeks, out_sorted[:, rs])
+            kernels.value_groups(grp.rate[sl], grp.div[sl], grp.tau[sl], grp.tmax[sl],
+                                 grp.ns[sl], grp.lnsig[sl], grp.lnb[sl], grp.tan[sl],
+                                 grp.steps[sl], grp.first[g0:g1 + 1], grp.order, lnx, v, s, k,
+                                 w, scheme.wq_t, scheme.power,  # type: ignore[attr-defined]
+                                 scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
+                                 VOL_MIN, greeks, out, near, scheme.squares)
 
     ids = np.arange(bounds.size - 1)
     run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)
-    out = np.empty((n_out, m))
-    out[:, o] = out_sorted
-    status = np.zeros(m, dtype=np.int8)
-    failed = grp.steps < 0
-    if failed.any():
-        status[o[np.repeat(failed, sizes)]] = NOT_CONVERGED
-    return out, status
+
+
+def _exercise() -> None:
+    """Value one American put and one call with greeks and prices, and key a group, through
+    the compiled kernels: that compiles (or loads) every entry point."""
+    one = np.ones(2)
+    for greeks in (True, False):
+        evaluate(np.array([-1.0, 1.0]), 100.0 * one, 100.0 * one, 0.5 * one, 0.05 * one,
+                 0.01 * one, np.array([0.25, 0.3]), greeks=greeks, kernels=_alo)
+    key = np.empty(2, dtype=np.uint64)
+    _alo.group_keys(0.5 * one, 0.05 * one, 0.04 * one, key)
+
+
+def warm_up(background: bool = True) -> threading.Thread | None:
+    """Compile (or load from numba's cache) the American kernels: in a daemon thread that is
+    returned (one per process; later calls return the same thread), or now when ``background``
+    is False; American valuations use the NumPy mirror while the thread runs."""
+    return _kernels.start_warm_up(_exercise, background)
 
 
 def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
@@ -412,30 +462,40 @@ def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
 
 def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
              b: np.ndarray, v: np.ndarray, greeks: bool, cache: BoundaryCache | None = None,
-             scheme: Scheme = DEFAULT) -> tuple[list[np.ndarray], np.ndarray]:
+             scheme: Scheme = DEFAULT, kernels: ModuleType | None = None
+             ) -> tuple[list[np.ndarray], np.ndarray]:
     """American price (``greeks`` False) or price and nine greeks of rows given as flat arrays
     of one shape (m,), ω = ±1; returns the outputs in ``results.GREEK_NAMES`` order and each
-    row's status code (``AMERICAN_STATUS``)."""
+    row's status code (``AMERICAN_STATUS``). ``kernels``: ``_alo`` or ``_alo_np`` (default:
+    ``_implementation``)."""
+    kernels = _implementation(kernels)
+    w, s, k, t, r, b, v = (np.ascontiguousarray(a, dtype=np.float64) for a in
+                           (w, s, k, t, r, b, v))
     m = s.size
     n_out = 10 if greeks else 1
-    outs = [np.empty(m) for _ in range(n_out)]
-    lnx, r_p, q_p, scale = put_form(w, s, k, r, b)
-    status = status_of(r_p, q_p)
-    status[(status == EXERCISE_BOUNDARY) & (t < YEARS_MIN)] = SHORT
-    status[t <= 0.0] = EXPIRED
-    solve = status == EXERCISE_BOUNDARY
-    if solve.any():
-        idx = np.flatnonzero(solve)
-        rows = _Rows(lnx[idx], t[idx], r_p[idx], q_p[idx], v[idx], scale[idx], w[idx] > 0)
-        vals, st = _value(rows, greeks, cache, scheme)
-        # The value is at least European and intrinsic; the floors only absorb rounding.
-        euro = np.empty(idx.size)
-        black.price_kernel(tuple(a[idx] for a in (w, s, k, t, r, b, v)), (euro,))
-        np.maximum(vals[0], euro, out=vals[0])
-        np.maximum(vals[0], np.maximum(w[idx] * (s[idx] - k[idx]), 0.0), out=vals[0])
-        for o, val in zip(outs, vals, strict=True):
-            o[idx] = val
-        status[idx] = np.maximum(status[idx], st)
+    block = np.empty((n_out, m))
+    status = np.empty(m, dtype=np.int8)
+    lnx, r_p, q_p, lnv = (np.empty(m) for _ in range(4))
+    key = np.empty(m, dtype=np.uint64)
+    kernels.prepare_rows(w, s, k, t, r, b, v, YEARS_MIN, VOL_MIN, status, lnx, r_p, q_p, lnv,
+                         key)
+    solve = np.flatnonzero(status == EXERCISE_BOUNDARY)
+    if solve.size:
+        order, first = _group(solve, key, t, r_p, q_p)
+        grp = _boundaries(order, first, t, r_p, q_p, lnv, greeks, cache, kernels, scheme)
+        near = np.zeros(m, dtype=np.bool_)
+        _value(grp, lnx, v, s, k, w, greeks, scheme, block, near, kernels)
+        failed = grp.steps < 0
+        if failed.any():
+            status[order[np.repeat(failed, np.diff(first))]] = NOT_CONVERGED
+            near[status == NOT_CONVERGED] = False
+        if near.any():
+            # at least ``price``'s European value to the last bit
+            idx = np.flatnonzero(near)
+            euro = np.empty(idx.size)
+            black.price_kernel(tuple(a[idx] for a in (w, s, k, t, r, b, v)), (euro,))
+            block[0, idx] = np.maximum(block[0, idx], euro)
+    outs = list(block)
     european = status != EXERCISE_BOUNDARY
     if european.any():
         idx = np.flatnonzero(european)

@@ -104,12 +104,14 @@ class ProfileCurve:
 
     ``days`` is the day roll a spot curve is drawn after (0 for today), None on the days axis;
     ``currency`` names the positions' currency when the book holds several (money of different
-    currencies is never added, so each gets its own curves), else None.
+    currencies is never added, so each gets its own curves), else None; ``kind`` is ``"full"``
+    (full revaluation) or, for P&L, ``"estimate"`` (the greeks' second-order Taylor estimate).
     """
 
     ys: tuple[float, ...]
     days: float | None
     currency: str | None
+    kind: str = "full"
 
 
 @dataclass(frozen=True)
@@ -143,7 +145,8 @@ def profile_curves(
     Against spot, ``points`` moves from −``spot_pct`` to +``spot_pct`` % of every spot, vols
     sticky strike, today and (when ``days``) after a roll of ``days`` calendar days; against
     days, 0..``horizon_days`` calendar days forward, nothing else moving. P&L comes from
-    ``ladder`` and ``apply_move``, exposures from ``greek_profile``.
+    ``ladder`` and ``apply_move``, each full curve followed by its greeks' second-order estimate;
+    exposures come from ``greek_profile``.
     """
     if measure not in PROFILE_MEASURES:
         raise ValueError(f"measure must be one of {', '.join(PROFILE_MEASURES)}, not {measure!r}")
@@ -172,20 +175,23 @@ def profile_curves(
         if axis == "spot" and measure == "pnl":
             pcts = xs.tolist()
             for d in rolls:
-                ys = ladder(vc, pcts, (0.0,), days=d).full[:, 0].tolist()
-                curves.append(ProfileCurve(tuple(ys), d, ccy))
+                grid = ladder(vc, pcts, (0.0,), days=d)
+                curves.append(ProfileCurve(tuple(grid.full[:, 0].tolist()), d, ccy))
+                est = tuple(grid.estimate[:, 0].tolist())
+                curves.append(ProfileCurve(est, d, ccy, "estimate"))
         elif axis == "spot":
             for d in rolls:
                 curve = greek_profile(vc, measure, xs.tolist(), days=d)
                 curves.append(ProfileCurve(tuple(float(x) for x in curve), d, ccy))
         elif measure == "pnl":
-            ys = tuple(
-                float(apply_move(vc, Move(text=f"days {d:g}", days=float(d))).total.full)
-                if d
-                else 0.0
+            totals = [
+                apply_move(vc, Move(text=f"days {d:g}", days=float(d))).total if d else None
                 for d in xs
-            )
+            ]
+            ys = tuple(float(t.full) if t else 0.0 for t in totals)
             curves.append(ProfileCurve(ys, None, ccy))
+            est = tuple(float(t.estimate_2) if t else 0.0 for t in totals)
+            curves.append(ProfileCurve(est, None, ccy, "estimate"))
         else:
             ys = tuple(float(greek_profile(vc, measure, (0.0,), days=float(d))[0]) for d in xs)
             curves.append(ProfileCurve(ys, None, ccy))

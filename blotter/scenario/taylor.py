@@ -11,9 +11,9 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-import numpy as np
-
 if TYPE_CHECKING:
+    import numpy as np
+
     from blotter.risk import BookValuation
 
 TERM_NAMES = ("delta", "gamma", "vega", "volga", "vanna", "theta", "rho")
@@ -70,6 +70,8 @@ class Sensitivities:
 
     def per_group(self, codes: np.ndarray, n_groups: int) -> Sensitivities:
         """Each field summed per group code 0..n_groups-1, shape (n_groups,)."""
+        import numpy as np  # here: the term lists load without NumPy (CLI help, completion)
+
         fields = self.__dict__.items()
         return Sensitivities(
             **{k: np.bincount(codes, weights=v, minlength=n_groups) for k, v in fields}
@@ -93,6 +95,8 @@ def taylor_terms(
     the rate's share (all decimal). Being linear in ``sens``, it applies to per-position
     sensitivities and to sums over positions that share the same moves alike.
     """
+    import numpy as np
+
     terms = {
         "delta": sens.delta * ds,
         "gamma": 0.5 * sens.gamma * ds * ds,

@@ -30,7 +30,7 @@ Everything a caller needs is importable from ``blotter.store`` itself.
 from __future__ import annotations
 
 from blotter.store.api import Store, create_store, open_store
-from blotter.store.checks import MARK_KINDS
+from blotter.store.checks import MARK_KINDS, check_mark_point
 from blotter.store.contracts import hedge_multiplier, preview_contract
 from blotter.store.core import who_am_i
 from blotter.store.csv_io import (
@@ -85,6 +85,7 @@ from blotter.store.times import (
 )
 
 __all__ = [
+    "check_mark_point",
     "APPLICATION_ID",
     "BUSY_TIMEOUT_MS",
     "DEFAULT_BOOK",

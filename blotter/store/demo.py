@@ -268,17 +268,26 @@ def _remove_abandoned_builds(out: Path) -> None:
             pass  # another user's live build
 
 
+DEMO_STEPS = ("drawing the book", "pricing the trades", "writing the book", "finishing the file")
+"""The steps of a demo build, as its ``progress`` callback names them."""
+
+StepProgress = Callable[[float, str | None], None]
+"""Told (steps done, the step now running) as a build goes."""
+
+
 def build_demo(
     path: str | os.PathLike[str],
     positions: int | None = None,
     seed: int = DEMO_SEED,
     force: bool = False,
     american_share: float | None = None,
+    progress: StepProgress | None = None,
 ) -> Path:
     """Write the invented demo book to ``path`` and return it; ``positions`` option positions
     (``DEMO_POSITIONS`` when None; a larger number builds a synthetic book of the same kind).
     ``american_share`` (0 to 1) makes that share of the options American, drawn at random,
     instead of each underlying's own style (the index European, the rest American).
+    ``progress`` is told each of ``DEMO_STEPS`` as it starts.
 
     The book is built in a temporary file beside ``path`` and renamed into place, so ``path`` is
     never half-written. An existing ``path`` is refused unless ``force``, and even then unless it
@@ -303,7 +312,9 @@ def build_demo(
     remove_book_files(tmp)
     store = create_store(tmp, desk_tz=DEMO_TZ)
     try:
-        fill_demo(store, n_options, seed, american_share)
+        fill_demo(store, n_options, seed, american_share, progress)
+        if progress is not None:
+            progress(3, DEMO_STEPS[3])
         store.checkpoint()
     except BaseException:
         store.close()
@@ -724,15 +735,19 @@ def fill_demo(
     positions: int = DEMO_POSITIONS,
     seed: int = DEMO_SEED,
     american_share: float | None = None,
+    progress: StepProgress | None = None,
 ) -> None:
     """Write the invented desk into the new, empty book ``store``: its note and underlyings, then
     its contracts, books, trade history and marks in one transaction (``Store.atomic``).
 
     ``positions``, ``seed`` and ``american_share`` as for ``build_demo``; every row is entered
-    through the store's public methods, as ``DEMO_WHO``.
+    through the store's public methods, as ``DEMO_WHO``; ``progress`` is told each of the
+    first three ``DEMO_STEPS`` as it starts.
     """
     from blotter.engine import price
 
+    if progress is not None:
+        progress(0, DEMO_STEPS[0])
     rng = np.random.default_rng(seed)
     hol = _nyse_holidays(range(DEMO_AS_OF.year - 1, DEMO_AS_OF.year + 4))
     close2 = DEMO_AS_OF
@@ -776,6 +791,8 @@ def fill_demo(
         if trades
         else []
     )
+    if progress is not None:
+        progress(1, DEMO_STEPS[1])
     prices = _trade_prices(rng, price, contracts, is_opt, und_of, trades, paths, spot2, cut)
 
     marks: list[tuple[datetime, int, int, _Write]] = []
@@ -794,6 +811,8 @@ def fill_demo(
         points = _close_points(day, t_close, spots, shift, expiries, cut, t_close1)
         marks.append((t_close, 3, 0, _MarkSet("close", points, f"close {closes}", t_close)))
 
+    if progress is not None:
+        progress(2, DEMO_STEPS[2])
     with store.atomic():
         contract_ids = store.add_contracts(contracts)
         for name in sorted({u.book for u in UNDERLYINGS}):

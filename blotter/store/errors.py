@@ -6,12 +6,17 @@ Every refusal leaves the book as it was: a write that fails is rolled back whole
 
 from __future__ import annotations
 
+import logging
 import os
 import pwd
 import sqlite3
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+
+from blotter.logs import STORE, logger
+
+log = logger(STORE)
 
 MAX_PROBLEMS = 20
 """How many problems an import lists at once."""
@@ -84,7 +89,23 @@ def raise_if(path: Path, problems: list[Problem]) -> None:
 
 
 def sql_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
-    """A ``StoreError`` saying in plain words what an ``sqlite3`` error means for the user."""
+    """A ``StoreError`` saying in plain words what an ``sqlite3`` error means for the user,
+    logged with SQLite's own code (a busy book as a warning, anything else as an error)."""
+    return _logged(_said(exc, path), exc)
+
+
+def _logged(error: StoreError, exc: BaseException) -> StoreError:
+    """``error``, logged with the words and code of ``exc`` (a busy book as a warning)."""
+    code = getattr(exc, "sqlite_errorname", "") or type(exc).__name__
+    log.log(
+        logging.WARNING if isinstance(error, BusyError) else logging.ERROR,
+        "%s [%s: %s]", error, code, exc,
+    )
+    return error
+
+
+def _said(exc: sqlite3.Error, path: Path | None) -> StoreError:
+    """``sql_error``'s words for ``exc``."""
     name = getattr(exc, "sqlite_errorname", "") or ""
     text = str(exc)
     where = f"{path}: " if path else ""
@@ -116,7 +137,13 @@ def sql_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
 
 
 def open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:
-    """What an error on a book's first reads means: damage only for SQLite's corruption codes."""
+    """What an error on a book's first reads means: damage only for SQLite's corruption codes;
+    logged as ``sql_error`` logs."""
+    return _logged(_open_said(exc, path), exc)
+
+
+def _open_said(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:
+    """``open_error``'s words for ``exc``."""
     if isinstance(exc, UnicodeDecodeError):
         return StoreError(f"{path} is damaged ({exc}); restore it from a backup")
     name = getattr(exc, "sqlite_errorname", "") or ""
@@ -136,7 +163,7 @@ def open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreErro
             f"cannot write to the folder {folder}. The book is not damaged: make the folder "
             "writable for you, or read a copy kept in a folder you can write to"
         )
-    return sql_error(exc, path)
+    return _said(exc, path)
 
 
 def _side_file_words(path: Path, side: str) -> str:

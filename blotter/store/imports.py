@@ -6,13 +6,15 @@ whose content was imported before is refused, so a killed import can simply be r
 
 from __future__ import annotations
 
+import functools
 import os
 import sqlite3
 from collections.abc import Callable
 from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar, cast
 
+from blotter.logs import IMPORTS, logger
 from blotter.store import db
 from blotter.store.contracts import resolve_contracts
 from blotter.store.csv_io import (
@@ -41,6 +43,33 @@ PROGRESS_EVERY = 1000
 
 NEW_BOOKS_HINT = "import with --new-books to start new books"
 """How to let an import start books, said when a row names one the file does not have."""
+
+log = logger(IMPORTS)
+
+ImportMethod = TypeVar("ImportMethod", bound=Callable[..., ImportReport])
+
+
+def _logged(kind: str, ids: str) -> Callable[[ImportMethod], ImportMethod]:
+    """Log each import of ``kind`` (trade or mark): refused as a warning with the store's words
+    (every problem it names), imported as info with the ``ids`` (what they number) it wrote."""
+
+    def wrap(method: ImportMethod) -> ImportMethod:
+        @functools.wraps(method)
+        def logged(self: Any, path: str | os.PathLike[str], *args: Any, **kwargs: Any) -> Any:
+            try:
+                rep = method(self, path, *args, **kwargs)
+            except StoreError as exc:
+                log.warning("%s import of %s refused: %s", kind, Path(path).name, exc)
+                raise
+            log.info(
+                "%s import %d of %s: %d rows written (%s %d-%d)",
+                kind, rep.import_id, rep.path.name, rep.rows, ids, rep.first_id, rep.last_id,
+            )
+            return rep
+
+        return cast(ImportMethod, logged)
+
+    return wrap
 
 
 def _known_trade_problems(conn: sqlite3.Connection, first_line: dict[int, int]) -> list[Problem]:
@@ -94,6 +123,7 @@ def _check_not_imported(conn: sqlite3.Connection, kind: str, digest: str, p: Pat
 class Imports(Trades, Marks):
     """Trade and mark CSV files imported whole."""
 
+    @_logged("trade", "trades")
     def import_trades_csv(
         self,
         path: str | os.PathLike[str],
@@ -189,6 +219,7 @@ class Imports(Trades, Marks):
                 progress(len(ids))
         return ids
 
+    @_logged("mark", "mark set")
     def import_marks_csv(
         self, path: str | os.PathLike[str], progress: Callable[[int], None] | None = None
     ) -> ImportReport:

@@ -1,4 +1,4 @@
-"""The blotter terminal app: header, Book pane, Move/Ladder/Profile panes, what-if bar, footer.
+"""The blotter terminal app: header, Book pane, Move/Grid/Reval panes, what-if bar, footer.
 
 ``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
 All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
@@ -10,20 +10,22 @@ from __future__ import annotations
 
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 from textual import on, work
-from textual.app import App, ComposeResult
+from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import BindingType
 from textual.containers import Container
 from textual.events import Paste, Resize
 from textual.message import Message
+from textual.screen import Screen
+from textual.timer import Timer
 from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
-from textual.worker import get_current_worker
+from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
 from blotter.config import Settings
 from blotter.desk import limits, session
@@ -47,15 +49,16 @@ from blotter.ui.screens.base import DeskScreen
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.screens.marks import MarksScreen
+from blotter.ui.screens.palette import ActionList, action_commands
 from blotter.ui.screens.scenario_sets import ScenarioSetsScreen
 from blotter.ui.screens.trades import TradesScreen
 from blotter.ui.screens.watch import WatchScreen
 from blotter.ui.timings import Timing, Timings
 from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.header_line import HeaderLine
-from blotter.ui.widgets.ladder_pane import LadderPane
 from blotter.ui.widgets.move_pane import MovePane
-from blotter.ui.widgets.profile_pane import ProfilePane
+from blotter.ui.widgets.reval_pane import RevalPane
 from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 
 if TYPE_CHECKING:
@@ -73,6 +76,15 @@ COMPILE_NOTE_AFTER_S = 1.0
 """Loading the compiled kernels from numba's cache takes a fraction of a second; still not ready
 after this, they are being compiled, and the header says so."""
 
+COMPILE_POLL_S = 0.5
+"""How often the app checks whether the kernels being compiled are ready."""
+
+COMPILING_ALERT = "compiling pricing kernels (first start only; slower meanwhile)"
+"""Leads the header while American valuations run on the NumPy mirror of the kernels."""
+
+LOWER_BOUND_NOTE_S = 20.0
+"""Seconds the note about American positions valued at a lower bound stays on screen."""
+
 PROGRESS_AFTER_S = 0.5
 """A load still running after this long shows a progress bar (steps: read, value, lay out)."""
 
@@ -83,9 +95,9 @@ MIN_WIDTH, MIN_HEIGHT = 60, 18
 """Below this size the app shows one line saying what size it needs."""
 
 WIDE_WIDTH = 140
-"""From this width the Ladder and Profile panes sit beside the Book and Move panes."""
+"""From this width the Grid and Reval panes sit beside the Book and Move panes."""
 
-PANES = ("move", "ladder", "profile")
+PANES = ("move", "grid", "reval")
 """Panes the pane key cycles through on narrow terminals."""
 
 GREEKS = (
@@ -95,7 +107,11 @@ GREEKS = (
     ("vega", "vega", "vega_pt"),
     ("theta", "θ day", "theta_day"),
 )
-"""Profile choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+"""Reval pane choices: (id, label, risk field); P&L is the change in value by full revaluation."""
+
+
+TEXTUAL_THEMES = {"dark": "textual-dark", "light": "textual-light"}
+"""The Textual theme drawing each of ``config.THEMES``."""
 
 
 def _utc_now() -> datetime:
@@ -107,7 +123,8 @@ class BlotterApp(App[None]):
 
     CSS_PATH = "app.tcss"
     TITLE = "blotter"
-    ENABLE_COMMAND_PALETTE = False
+    ENABLE_COMMAND_PALETTE = True  # the action list, on the "actions" keys of keys.KEYS
+    COMMAND_PALETTE_BINDING = "colon"
     HORIZONTAL_BREAKPOINTS = [  # noqa: RUF012 - Textual's own class attribute
         (0, "-narrow"),
         (WIDE_WIDTH, "-wide"),
@@ -144,12 +161,19 @@ class BlotterApp(App[None]):
         self.data_version: int | None = None
         self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
+        self._loading = False  # a load runs: a new request waits for it (``load_book``)
+        self._load_again = False  # a load was asked for while one ran
         self._stop_watch = threading.Event()
+        self._compiling = False
+        self._lower_notes: list[str] = []
+        self._compile_poll: Timer | None = None
         self.trial_trades = Trials()
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
+        self._actions: list[SystemCommand] = []  # the action list's entries as it opened
         if self.settings.keymap:
             self.set_keymap(self.settings.keymap)
+        self.theme = TEXTUAL_THEMES[self.settings.theme]
 
     # -- layout ---------------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -159,9 +183,9 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
-            yield LadderPane()
+            yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
-            yield ProfilePane()
+            yield RevalPane()
         yield WhatIfBar()
         yield Footer(compact=True)
 
@@ -183,14 +207,33 @@ class BlotterApp(App[None]):
             self.notify(notice, title="Read-only", severity="warning", markup=False)
 
     def _note_compiling(self) -> None:
-        """Say why the first valuation waits while the American kernels compile (cached after)."""
+        """While the American kernels compile (the first start after an install), say so in the
+        header, since valuations run on their slower NumPy mirror meanwhile; clear it when ready."""
         from blotter import engine
 
-        if self.state is None and not engine.kernels_ready():
+        if engine.kernels_ready():
+            return
+        self._compiling = True
+        if self.state is None:
             self.query_one(HeaderLine).update(
                 "blotter: opening the book… compiling the American pricing kernels "
                 "(the first start after an install only; some seconds)"
             )
+        else:
+            self._refresh_header()
+        self._compile_poll = self.set_interval(COMPILE_POLL_S, self._check_compiled)
+
+    def _check_compiled(self) -> None:
+        """Drop the compiling note once the kernels are ready (later valuations use them)."""
+        from blotter import engine
+
+        if not engine.kernels_ready():
+            return
+        self._compiling = False
+        if self._compile_poll is not None:
+            self._compile_poll.stop()
+            self._compile_poll = None
+        self._refresh_header()
 
     def on_unmount(self) -> None:
         self._stop_watch.set()
@@ -224,7 +267,16 @@ class BlotterApp(App[None]):
 
     # -- loading --------------------------------------------------------------------------------
     def load_book(self) -> None:
-        """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s."""
+        """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s.
+
+        While a load runs, a new request does not cancel it (under a feed committing every
+        second, a load slower than a second would never finish): the running load is shown
+        when done and one more load, of everything asked for meanwhile, follows it."""
+        if self._loading:
+            self._load_again = True
+            return
+        self._loading = True
+        self._load_again = False
         self._load_seq += 1
         seq = self._load_seq
         self._load_worker()
@@ -298,6 +350,22 @@ class BlotterApp(App[None]):
             return []
         return limits.breaches(self.state.valuation, self.settings.alerts, self.ladder_breaches)
 
+    def _load_done(self) -> None:
+        """A load ended: start the one asked for while it ran, if any."""
+        self._loading = False
+        if self._load_again:
+            self.load_book()
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        """A load worker ended (done, failed or cancelled): after its result was shown, start
+        the load asked for while it ran (``load_book``)."""
+        if event.worker.group == "load" and event.state in (
+            WorkerState.SUCCESS,
+            WorkerState.ERROR,
+            WorkerState.CANCELLED,
+        ):
+            self._load_done()
+
     def on_book_loaded(self, message: BookLoaded) -> None:
         self._hide_progress()
         self.book_seq += 1
@@ -307,6 +375,7 @@ class BlotterApp(App[None]):
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
         self._refresh_header()
+        self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value
         if text.strip():
             self._submit_move(text, force=True)
@@ -315,6 +384,17 @@ class BlotterApp(App[None]):
         self.start_profile()
         if self.timings.count(Timing.FIRST_PAINT) == 0:
             self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
+
+    def _note_lower_bounds(self, notes: tuple[str, ...]) -> None:
+        """Tell the user, once per change, which American positions are valued at a lower bound
+        (negative rates on both sides, or a boundary that did not converge)."""
+        from blotter.risk import LOWER_BOUND_WORDS
+
+        lower = [n for n in notes if LOWER_BOUND_WORDS in n]
+        if lower and lower != self._lower_notes:
+            self.notify(printable("; ".join(lower)), title="Lower bounds", severity="warning",
+                        markup=False, timeout=LOWER_BOUND_NOTE_S)
+        self._lower_notes = lower
 
     def _refresh_header(self) -> None:
         if self.state is None:
@@ -330,7 +410,8 @@ class BlotterApp(App[None]):
             n = session.unvalued_count(unvalued)
             names = session.missing_by_name(unvalued, most=2)
             alerts.insert(0, f"NOT VALUED {n} ({names}): w lists")
-        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts)
+        first = COMPILING_ALERT if self._compiling else ""
+        self.query_one(HeaderLine).show(self.state, self.clock(), self.tz, alerts, first)
 
     def on_load_failed(self, message: LoadFailed) -> None:
         self._hide_progress()
@@ -479,7 +560,7 @@ class BlotterApp(App[None]):
         self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
         self._stamp_move_painted()
         days = self._roll_days(message.move)
-        if days != previous_days or self.query_one(LadderPane).ladder is None:
+        if days != previous_days or self.query_one(GridPane).ladder is None:
             self.start_ladder(self.state, days)
             self.start_profile()
 
@@ -509,7 +590,7 @@ class BlotterApp(App[None]):
         exclusive=True,
         group="ladder",
         exit_on_error=False,
-        description="spot × vol ladder",
+        description="spot × vol grid",
     )
     def compute_ladder(self, state: data.BookState, days: float) -> None:
         """The spot × vol ladder with the bar's day roll."""
@@ -525,7 +606,7 @@ class BlotterApp(App[None]):
             )
         except (ValueError, KeyError) as exc:
             if not worker.is_cancelled:
-                self.post_message(LoadFailed(f"ladder: {exc}"))
+                self.post_message(LoadFailed(f"grid: {exc}"))
             return
         breaches = limits.ladder_breaches(
             state.valuation,
@@ -542,7 +623,7 @@ class BlotterApp(App[None]):
     def on_ladder_ready(self, message: LadderReady) -> None:
         if message.book_seq == self.book_seq:
             partial = self.state is not None and self.state.valuation.partial
-            self.query_one(LadderPane).show(message.ladder, message.days, partial)
+            self.query_one(GridPane).show(message.ladder, message.days, partial)
             before, self.ladder_breaches = self.ladder_breaches, message.breaches
             if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
@@ -579,7 +660,7 @@ class BlotterApp(App[None]):
         rows: np.ndarray | None,
         label: str,
     ) -> None:
-        """Curves for the Profile pane (see ``data.profile``)."""
+        """Curves for the Reval pane (see ``data.profile``)."""
         worker = get_current_worker()
         try:
             profile = data.profile(state.valuation, self.settings, greek, axis, days, rows, label)
@@ -592,7 +673,7 @@ class BlotterApp(App[None]):
 
     def on_profile_ready(self, message: ProfileReady) -> None:
         if message.book_seq == self.book_seq:
-            self.query_one(ProfilePane).show(message.profile)
+            self.query_one(RevalPane).show(message.profile)
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -731,7 +812,7 @@ class BlotterApp(App[None]):
             self._stamp_move_painted()
 
     def action_next_grid(self) -> None:
-        self.query_one(LadderPane).next_grid()
+        self.query_one(GridPane).next_grid()
 
     def action_next_greek(self) -> None:
         ids = [g[0] for g in GREEKS]
@@ -760,12 +841,27 @@ class BlotterApp(App[None]):
         self._stop_watch.set()
         self.exit()
 
+    def get_system_commands(self, screen: Screen[Any]) -> Iterator[SystemCommand]:
+        """The action list's entries: every action bound where it was opened, by its words
+        (read as it opens: once it is up, the screen below no longer has the app's keys)."""
+        return iter(self._actions) if self._actions else action_commands(screen)
+
+    def action_command_palette(self) -> None:
+        """Open the action list (Textual's palette, F10 or Escape to close)."""
+        if not isinstance(self.screen, ActionList):
+            self._actions = list(action_commands(self.screen))
+            placeholder = "Type words of an action (F10 or Escape closes)…"
+            self.push_screen(ActionList(id="--command-palette", placeholder=placeholder))
+
     # -- for tests and the bench ----------------------------------------------------------------
     async def settle(self) -> None:
         """Wait until every worker but the store watcher is done (tests and the bench)."""
         busy = [w for w in self.workers if w.group != "watch" and not w.is_finished]
         for w in busy:
-            await w.wait()
+            try:
+                await w.wait()
+            except WorkerCancelled:
+                continue  # replaced by a newer worker of its group, which is waited for next
 
 
 def make_app(

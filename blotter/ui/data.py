@@ -10,11 +10,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from blotter import calendar as cal
 from blotter import risk
 from blotter.desk.session import Session
 from blotter.printable import printable
@@ -336,7 +337,12 @@ class BookState:
 
 @dataclass(frozen=True)
 class ProfileData:
-    """Curves for the Profile pane: ``xs`` along the axis, one series per name, with units."""
+    """Curves for the Reval pane: ``xs`` along the axis, one series per name, with units.
+
+    ``kinds`` gives each series' kind (``"full"`` or ``"estimate"``) and whether it is drawn
+    after the bar's day roll, ``legend`` its date and its name under that date (the chart's
+    legend writes each date once); ``axis`` is ``"spot"`` or ``"days"``.
+    """
 
     title: str
     x_label: str
@@ -344,6 +350,9 @@ class ProfileData:
     series: dict[str, tuple[float, ...]]
     y_label: str
     note: str = ""
+    kinds: dict[str, tuple[str, bool]] = field(default_factory=dict)
+    legend: dict[str, tuple[str, str]] = field(default_factory=dict)
+    axis: str = "spot"
 
 
 PROFILE_FIELDS = {
@@ -352,7 +361,7 @@ PROFILE_FIELDS = {
     "vega": ("vega_pt", "vega (per vol pt)"),
     "theta": ("theta_day", "θ day (per day)"),
 }
-"""Profile greeks: risk field and the axis label with its unit."""
+"""Reval pane greeks: risk field and the axis label with its unit."""
 
 
 def profile(
@@ -364,9 +373,11 @@ def profile(
     rows: np.ndarray | None = None,
     label: str = "book",
 ) -> ProfileData:
-    """The Profile pane's title, axis labels and curve names around ``profile_curves`` (P&L or a
-    greek of the book, or of ``rows`` only, against spot % or days forward)."""
-    y_label = "P&L (currency)" if greek == "pnl" else PROFILE_FIELDS[greek][1]
+    """The Reval pane's title, axis labels and curve names around ``profile_curves`` (P&L or a
+    greek of the book, or of ``rows`` only, against spot % or days forward); spot curves are
+    named by the desk-local date they are valued on, with the roll in days beside a later one."""
+    one = valuation.currencies[0] if len(valuation.currencies) == 1 else "each currency"
+    y_label = f"P&L ({one})" if greek == "pnl" else PROFILE_FIELDS[greek][1]
     curves = profile_curves(
         valuation,
         "pnl" if greek == "pnl" else PROFILE_FIELDS[greek][0],
@@ -377,18 +388,25 @@ def profile(
         horizon_days=int(settings.profile_days),
         rows=rows,
     )
-    roll = f"after {days:g} day{'s' if days != 1 else ''}"
+    t0 = valuation.valuation_time
+    today = str(cal.local_date(t0, valuation.tz))
+    later = f"{cal.local_date(cal.roll_calendar_days(t0, days), valuation.tz)} (+{days:g}d)"
     series: dict[str, tuple[float, ...]] = {}
+    kinds: dict[str, tuple[str, bool]] = {}
+    legend: dict[str, tuple[str, str]] = {}
     for curve in curves.curves:
-        if curve.days is None:
-            name = "P&L" if greek == "pnl" else y_label.split(" (")[0]
-        else:
-            name = "today" if curve.days == 0 else roll
-        series[name + (f" {curve.currency}" if curve.currency else "")] = curve.ys
+        date = "" if curve.days is None else today if curve.days == 0 else later
+        short = curve.kind if greek == "pnl" else y_label.split(" (")[0]
+        short = " ".join(w for w in (short, curve.currency) if w)
+        name = " ".join(w for w in (date, short) if w)
+        series[name] = curve.ys
+        kinds[name] = (curve.kind, bool(curve.days))
+        legend[name] = (date, short)
     names = {"pnl": "P&L", "delta": "Δ $", "gamma": "Γ 1%", "vega": "vega", "theta": "θ day"}
-    title = (
-        f"Profile: {names[greek]} of {label} against {'spot' if axis == 'spot' else 'days forward'}"
-    )
+    across = "across spot" if axis == "spot" else f"over days from {today}"
+    title = f"Reval: {names[greek]} of {label} {across}"
+    if greek == "pnl":
+        title += " ─ full vs greeks' estimate"
     note = "sticky-strike vols" if axis == "spot" else "spot and vols held"
     if greek == "gamma" and len(curves.underlyings) > 1:
         note += "; Γ 1% adds share counts of different names"
@@ -399,6 +417,9 @@ def profile(
         series=series,
         y_label=y_label,
         note=note,
+        kinds=kinds,
+        legend=legend,
+        axis=axis,
     )
 
 

@@ -46,7 +46,7 @@ KEYS: tuple[KeySpec, ...] = (
     ),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec(
-        "pane", "next_pane", "v,f7", "Show the next pane (Move, Ladder, Profile)", short="Pane"
+        "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Reval)", short="Pane"
     ),
     KeySpec(
         "expand",
@@ -68,10 +68,12 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "order", "toggle_order", "o,f6", "Move pane: first- or second-order estimate"
     ),
-    KeySpec("grid", "next_grid", "x,f8", "Ladder: full P&L, estimate or error grid"),
-    KeySpec("greek", "next_greek", "k,f9", "Profile: P&L, Δ $, Γ 1%, vega or θ day"),
-    KeySpec("axis", "toggle_axis", "a,ctrl+t", "Profile: against spot or days forward"),
-    KeySpec("scope", "toggle_scope", "p,ctrl+g", "Profile: whole book or the selected row"),
+    KeySpec("grid", "next_grid", "x,f8", "Grid: full P&L, greeks' estimate or error"),
+    KeySpec(
+        "greek", "next_greek", "k,f9", "Reval: P&L (full vs estimate), Δ $, Γ 1%, vega or θ day"
+    ),
+    KeySpec("axis", "toggle_axis", "a,ctrl+t", "Reval: across spot or over days forward"),
+    KeySpec("scope", "toggle_scope", "p,ctrl+g", "Reval: whole book or the selected row"),
     KeySpec("reload", "reload", "r,ctrl+r", "Reload the book and marks from the file"),
     KeySpec(
         "marks",
@@ -105,7 +107,13 @@ KEYS: tuple[KeySpec, ...] = (
         "watch-list",
         "watch_list",
         "w,ctrl+backslash",
-        "List options expiring this week, pin risk and limit breaches",
+        "Flags: options expiring this week, pin risk and limit breaches",
+    ),
+    KeySpec(
+        "actions",
+        "command_palette",
+        "colon,ctrl+e",
+        "List every action by its words; type some to find one",
     ),
     KeySpec(
         "scenario-sets",
@@ -262,7 +270,7 @@ KEYS: tuple[KeySpec, ...] = (
         where="explain",
     ),
     KeySpec(
-        "list-back", "back", "q,w,f10", "Watch list: back to the book", short="Back", where="list"
+        "list-back", "back", "q,w,f10", "Flags: back to the book", short="Back", where="list"
     ),
     KeySpec(
         "sets-run",
@@ -300,6 +308,7 @@ KEY_NAMES = {
     "tab": "Tab",
     "shift+tab": "Shift+Tab",
     "backslash": "\\",
+    "colon": ":",
     "underscore": "_",
 }
 """How the help screen and footer write Textual key names."""

@@ -102,7 +102,7 @@ class LadderReady(WorkerResult):
 
 @dataclass
 class ProfileReady(WorkerResult):
-    """Curves for the Profile pane."""
+    """Curves for the Reval pane."""
 
     book_seq: int
     profile: ProfileData

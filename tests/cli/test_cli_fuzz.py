@@ -236,9 +236,9 @@ def test_a_trade_import_refuses_any_cell_naming_its_line_and_column(
         (("whatif", "bdays 99999999"), "bdays must be from 0 to 2,520"),
         (("whatif", "spot -1%", "--at", "0001-01-01T00:00:00Z"), "time must be from 1900-01-01"),
         (("risk", "--at", "0001-01-01T00:00:00Z"), "time must be from 1900-01-01"),
-        (("ladder", "--spot", HUGE), "spot must be above -100% and at most +1,000%"),
+        (("grid", "--spot", HUGE), "spot must be above -100% and at most +1,000%"),
         (("demo", "--out", "never.db", "--positions", HUGE), "not in the range"),
-        (("ladder", "--days", "nan"), "is not a finite number"),
+        (("grid", "--days", "nan"), "is not a finite number"),
         (("trade", "list", "--since", "0001-01-01"),
          "Invalid value for --since: time must be from 1900-01-01 to before 2200-01-01, got "
          "0001-01-01"),

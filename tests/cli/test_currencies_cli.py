@@ -105,14 +105,14 @@ def test_whatif_ladder_and_explain_never_add_currencies(two_currencies: str) -> 
     assert [(r["underlying"], r["currency"]) for r in rows][-2:] == [
         ("total", "USD"), ("total", "EUR")
     ]
-    lad = _json(two_currencies, "ladder", "--spot", "-3", "--vol", "0", "--at", T0)
+    lad = _json(two_currencies, "grid", "--spot", "-3", "--vol", "0", "--at", T0)
     assert lad["full"] is None and lad["worst"] is None and lad["currency"] is None
     assert {c: g["full"][0][0] for c, g in lad["by_currency"].items()} == pytest.approx(
         moved, rel=1e-9
     )
-    cells = _csv(two_currencies, "ladder", "--spot", "-3", "--vol", "0", "--at", T0)
+    cells = _csv(two_currencies, "grid", "--spot", "-3", "--vol", "0", "--at", T0)
     assert {r["currency"]: float(r["full"]) for r in cells} == pytest.approx(moved, rel=1e-9)
-    text = run("--db", two_currencies, "ladder", "--at", T0).stdout
+    text = run("--db", two_currencies, "grid", "--at", T0).stdout
     assert "worst cell in USD" in text and "worst cell in EUR" in text
     with store_mod.use_clock(lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC)):
         run("--db", two_currencies, "mark", "close")
@@ -133,5 +133,5 @@ def test_a_single_currency_book_adds_only_the_currency_fields(demo_db: Path) -> 
     assert all(r["currency"] == "USD" for r in out["by_underlying"])
     move = _json(str(demo_db), "whatif", "spot -3%", "--at", "2026-11-30T16:45")
     assert move["total"]["by_currency"]["USD"]["full"] == move["total"]["full"]
-    lad = _json(str(demo_db), "ladder", "--at", "2026-11-30T16:45")
+    lad = _json(str(demo_db), "grid", "--at", "2026-11-30T16:45")
     assert lad["currency"] == "USD" and lad["by_currency"]["USD"]["full"] == lad["full"]

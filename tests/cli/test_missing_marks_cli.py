@@ -85,12 +85,12 @@ def test_whatif_ladder_and_explain_value_the_rest(half_marked: str) -> None:
     _unvalued_is_ccc(out)
     assert "total of valued" in run("--db", half_marked, "whatif", "spot -3%", "--at", T0).stdout
     lad = json.loads(
-        run("--db", half_marked, "ladder", "--spot", "-3", "--vol", "0", "--at", T0,
+        run("--db", half_marked, "grid", "--spot", "-3", "--vol", "0", "--at", T0,
             "--json").stdout
     )
     assert lad["full"][0][0] == pytest.approx(change, rel=1e-9)
     _unvalued_is_ccc(lad)
-    assert "of the valued positions" in run("--db", half_marked, "ladder", "--at", T0).stdout
+    assert "of the valued positions" in run("--db", half_marked, "grid", "--at", T0).stdout
     # the 16:00 New York close of 2026-12-01
     with store_mod.use_clock(lambda: datetime(2026, 12, 1, 21, 0, tzinfo=UTC)):
         run("--db", half_marked, "mark", "close")

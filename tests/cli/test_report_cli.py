@@ -1,4 +1,4 @@
-"""``blotter risk``, ``whatif``, ``ladder`` and ``explain`` on a fresh copy of the demo book.
+"""``blotter risk``, ``whatif``, ``grid`` and ``explain`` on a fresh copy of the demo book.
 
 The JSON keys are the ones issue 4 fixes for outside checks; the numbers are checked against the
 library functions called directly on the same book and marks, and for internal consistency
@@ -243,7 +243,7 @@ def test_whatif_help_documents_the_grammar() -> None:
 
 
 def test_ladder_json(demo_db: Path) -> None:
-    out = _json(["ladder", "--db", str(demo_db), "--at", AT])
+    out = _json(["grid", "--db", str(demo_db), "--at", AT])
     assert out["rule"] == "sticky strike"
     full, est, err = (np.array(out[k]) for k in ("full", "estimate", "error"))
     assert full.shape == (9, 5) and est.shape == (9, 5)
@@ -262,10 +262,25 @@ def test_ladder_json(demo_db: Path) -> None:
     assert full[1, 3] == pytest.approx(res.total.full, rel=1e-9)
 
 
+def test_ladder_on_worker_processes_equals_this_process(demo_db: Path) -> None:
+    """``--workers 2`` shards the positions over two processes; the grids sum to the same."""
+    here = _json(["grid", "--db", str(demo_db), "--at", AT])
+    pool = _json(["grid", "--db", str(demo_db), "--at", AT, "--workers", "2"])
+    for key in ("full", "estimate", "error"):
+        np.testing.assert_allclose(np.array(pool[key]), np.array(here[key]), rtol=1e-9, atol=1e-6)
+    assert pool["worst"] == here["worst"]
+
+
+def test_ladder_on_an_unreachable_cluster_is_refused_in_words(demo_db: Path) -> None:
+    pytest.importorskip("distributed", reason="the cluster extra is not installed")
+    out = _run(["grid", "--db", str(demo_db), "--at", AT, "--cluster", "tcp://127.0.0.1:9"], 1)
+    assert "cannot reach the cluster at tcp://127.0.0.1:9" in out.output
+
+
 def test_ladder_options_table_and_errors(demo_db: Path) -> None:
     out = _json(
         [
-            "ladder",
+            "grid",
             "--db",
             str(demo_db),
             "--at",
@@ -279,10 +294,21 @@ def test_ladder_options_table_and_errors(demo_db: Path) -> None:
         ]
     )
     assert np.array(out["full"]).shape == (3, 2) and out["days"] == 2
-    table = _run(["ladder", "--db", str(demo_db), "--at", AT]).stdout
+    table = _run(["grid", "--db", str(demo_db), "--at", AT]).stdout
     assert table.count("sticky strike") >= 3 and "worst cell" in table
-    _run(["ladder", "--db", str(demo_db), "--spot", "-5,x"], code=2)
-    _run(["ladder", "--db", str(demo_db), "--spot", "-100"], code=2)
+    _run(["grid", "--db", str(demo_db), "--spot", "-5,x"], code=2)
+    _run(["grid", "--db", str(demo_db), "--spot", "-100"], code=2)
+
+
+def test_ladder_is_a_hidden_old_name_of_grid(demo_db: Path) -> None:
+    args = ["--db", str(demo_db), "--at", AT, "--spot", "-3,3", "--vol", "0"]
+    grid = _run(["grid", *args, "--json"]).stdout
+    old = CliRunner().invoke(main, ["ladder", *args, "--json"], catch_exceptions=False)
+    assert old.exit_code == 0, old.output
+    assert old.stdout == grid  # the same command, so scripts keep working for one release
+    assert "blotter ladder is now blotter grid" in old.stderr
+    listing = _run(["--help"]).stdout
+    assert re.search(r"^  grid ", listing, re.M) and not re.search(r"^  ladder ", listing, re.M)
 
 
 def test_explain_json_default_sets(demo_db: Path) -> None:
@@ -312,7 +338,7 @@ def test_explain_to_now_table_and_bad_set(demo_db: Path) -> None:
 def test_moneyness_rule_reaches_the_outputs(demo_db: Path) -> None:
     out = _json(
         [
-            "ladder",
+            "grid",
             "--db",
             str(demo_db),
             "--at",
@@ -336,7 +362,7 @@ def test_moneyness_rule_reaches_the_outputs(demo_db: Path) -> None:
     assert w["total"]["full"] == pytest.approx(lad.full[0, 0], rel=1e-9)
     assert (
         "sticky moneyness"
-        in _run(["ladder", "--db", str(demo_db), "--at", AT, "--rule", "moneyness"]).stdout
+        in _run(["grid", "--db", str(demo_db), "--at", AT, "--rule", "moneyness"]).stdout
     )
 
 

@@ -194,6 +194,7 @@ def test_read_only_means_the_same_however_it_is_set(
             ran.append(self.settings)
 
     monkeypatch.setattr("blotter.ui.app.make_app", App)
+    monkeypatch.setattr("blotter.commands.app.has_terminal", lambda: True)  # as in a shell
     run(*group, "--db", db)
     assert ran[0].read_only
 

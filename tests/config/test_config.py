@@ -56,6 +56,12 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
     desk = {k: v for k, v in env.items() if k != "BLOTTER_TZ"} | {"BLOTTER_DESK_TZ": "UTC"}
     assert load_settings(env=desk).desk_tz == "UTC"
 
+    assert settings.theme == "dark"
+    path.write_text(FILE.replace("estimate_order = 1", 'theme = "light"'), encoding="utf-8")
+    assert load_settings(env=env).theme == "light"
+    assert load_settings(env=env | {"BLOTTER_THEME": "dark"}).theme == "dark"
+    path.write_text(FILE, encoding="utf-8")
+
     settings = load_settings({"read_only": True, "estimate_order": 1}, env=env)
     assert settings.read_only and settings.estimate_order == 1
 
@@ -64,6 +70,7 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
     "text,words",
     [
         ("estimate_order = 3", "estimate_order must be 1 or 2"),
+        ('theme = "blue"', "theme must be dark or light, not 'blue'"),
         ('desk_tz = "Mars/Base"', "not a known time zone"),
         ('colour = "red"', "unknown setting 'colour'"),
         ("[alerts]\nerror_pc = 5", "unknown alert 'error_pc'"),
@@ -74,6 +81,8 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
         ("watch_interval_s = nan", "watch_interval_s must be a finite number"),
         ("watch_interval_s = inf", "watch_interval_s must be a finite number"),
         ("watch_interval_s = 86400", "watch_interval_s must be at most 3600"),
+        ("feed_throttle_s = -1", "feed_throttle_s must not be negative"),
+        ("feed_throttle_s = 7200", "feed_throttle_s must be at most 3600"),
         ("ladder_vol_pts = [-5.0, nan]", "ladder_vol_pts[1] must be a finite number"),
         ("[alerts]\nvega_pt = nan", "[alerts] vega_pt must be a finite number"),
     ],

@@ -48,8 +48,8 @@ def test_a_delta_limit_is_breached_just_past_quantlibs_delta_cash(xyz_db: Path) 
     assert limits.exposure_breach(Alerts(delta_cash=below), xyz) == ""  # a book limit
     both = Alerts(underlying_delta_cash=below, underlying_vega_pt=1.0)
     assert limits.exposure_breach(both, xyz) == f"|Δ $| over {below:,.0f}; |vega| over 1"
-    assert limits.exposure_breach(both, xyz, {"XYZ": "worst ladder cell -5"}).endswith(
-        "; worst ladder cell -5"
+    assert limits.exposure_breach(both, xyz, {"XYZ": "worst grid cell -5"}).endswith(
+        "; worst grid cell -5"
     )
     assert limits.breaches(v, Alerts(delta_cash=below, underlying_vega_pt=1.0)) == [
         f"book |Δ $| over {below:,.0f}",
@@ -72,9 +72,9 @@ def test_ladder_limits_hold_the_worst_cell_quantlib_gives(xyz_db: Path) -> None:
     found = limits.ladder_breaches(v, grids, tight, spots, vols)
     assert found is not None
     shown = f"{worst:+,.0f}"
-    assert found.book == f"book worst ladder cell {shown} beyond −{-worst * 0.999:,.0f}"
+    assert found.book == f"book worst grid cell {shown} beyond −{-worst * 0.999:,.0f}"
     assert found.by_underlying == {
-        "XYZ": f"worst ladder cell {shown} beyond −{-worst * 0.999:,.0f}"
+        "XYZ": f"worst grid cell {shown} beyond −{-worst * 0.999:,.0f}"
     }
     assert limits.breaches(v, tight, found) == [found.book, f"XYZ {found.by_underlying['XYZ']}"]
     stop = limits.ladder_breaches(v, grids, tight, spots, vols, cancelled=lambda: True)

@@ -2,9 +2,9 @@
 
 Prices: QuantLib 1.44 ``QdFpAmericanEngine`` with its high-precision scheme (test-only).
 Greeks: Richardson-extrapolated central differences of a much finer run of the engine's own
-method (``american.FINE``: 32 Chebyshev intervals, 48 Gauss–Legendre points per boundary
-integral, 248 price nodes; vanna and charm: differences of that run's delta), whose prices are
-checked against QuantLib beside them.
+method (``american.FINE``: the gap on 64 Chebyshev intervals in (u/τ)^(1/3), 32 Gauss–Legendre
+points per half of each boundary integral, a finer price rule; vanna and charm: differences of
+that run's delta), whose prices are checked against QuantLib beside them.
 
 ``python -m tests.engine.american_reference [n_per_region]`` prints the accuracy table: price
 error against QuantLib as a share of the strike, and per greek the largest error measure of
@@ -106,9 +106,11 @@ def _evaluate(c: dict[str, np.ndarray], greeks: bool,
 
 
 STEPS = {"spot": 2e-3, "vol": 4e-3, "rate": 1e-3, "carry": 1e-3, "years": 1e-3}
-"""Central-difference steps of the reference greeks (relative for spot and years), halved once
-for Richardson extrapolation; spot steps shrink to a quarter of the distance to the exercise
-boundary so that no difference straddles it."""
+"""Largest central-difference steps of the reference greeks (relative for spot and years),
+halved once for Richardson extrapolation. Spot steps shrink to a quarter of the distance to the
+exercise boundary so that no difference straddles it; vol steps to 5% of the vol; rate and
+carry steps to 5% of the smaller of |r_p| and |q_p − r_p| in put form (X = r_p/q_p makes the
+price vary on that scale where 0 < r_p < q_p), and no lower than 1e-6."""
 
 
 def reference_greeks(c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
@@ -137,7 +139,11 @@ def reference_greeks(c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         return out
 
     ht = STEPS["years"] * t
-    hv, hr = STEPS["vol"], STEPS["rate"]
+    hv = np.minimum(STEPS["vol"], 0.05 * v)
+    r_p = np.where(c["is_call"], r - b, r)
+    q_p = np.where(c["is_call"], r, r - b)
+    scale = np.minimum(np.abs(r_p), np.abs(q_p - r_p))
+    hr = np.clip(0.05 * scale, 1e-6, STEPS["rate"])
     # A difference is valid only if every bumped point is in the base point's regime: same
     # American status, same side of q = r (where X = min(1, r/q) changes form) and on the
     # same side of the exercise boundary.

@@ -51,19 +51,20 @@ def test_prices_match_quantlib_converged_engine(region: str) -> None:
     assert np.max(np.abs(ours - ref) / c["strike"]) <= PRICE_TOL
 
 
-@pytest.mark.parametrize("region", list(REGIONS)[:4])
+GREEK_TOL = 1e-4
+"""Greek error allowed: 1e-4 relative or 1e-6 per unit of underlying (the issue's target), in
+the measure of ``greek_errors``."""
+
+
+@pytest.mark.parametrize("region", list(REGIONS))
 def test_greeks_match_differences_of_a_fine_run(region: str) -> None:
     """Every greek within 1e-4 relative or 1e-6 per unit of underlying of Richardson central
-    differences of ``american.FINE`` (whose prices agree with QuantLib's QdFp), on 6 cases per
-    region; the low-vol long-dated region is in ACCURACY.md."""
-    c = region_cases(region, 6, seed=4000 + list(REGIONS).index(region))
+    differences of ``american.FINE`` (whose prices agree with QuantLib's QdFp), on 8 cases per
+    region of the grid."""
+    c = region_cases(region, 8, seed=4000 + list(REGIONS).index(region))
     errs = greek_errors(c)
     for g in GREEKS:
-        if g in ("vanna", "charm"):
-            # four-point mixed differences carry ~1e-4 of their own error
-            assert np.nanmax(errs[g]) <= 2e-3, g
-        else:
-            assert np.nanmax(errs[g]) <= 1e-3, g
+        assert np.nanmax(errs[g]) <= GREEK_TOL, g
 
 
 def test_delta_and_vega_match_quantlib_differences() -> None:

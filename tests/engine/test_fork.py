@@ -5,6 +5,9 @@ from __future__ import annotations
 import os
 import select
 import signal
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -46,3 +49,21 @@ def test_a_process_forked_after_the_engine_ran_prices_a_book() -> None:
         os.waitpid(pid, 0)
     assert got, f"the forked child did not price the book within {_CHILD_TIMEOUT_S:.0f} s"
     assert float(got) == want
+
+
+@pytest.mark.skipif(not hasattr(os, "fork"), reason="needs os.fork")
+def test_a_process_forked_while_the_kernels_compile_values_american_rows(
+    tmp_path: Path,
+) -> None:
+    """Forked while a warm-up compiles the kernels (empty numba cache), the child values
+    American rows within the timeout (on the NumPy mirror: the compiling thread and numba's
+    compiler lock it holds stay behind) and gets the parent's numbers."""
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "numba")}
+    done = subprocess.run([sys.executable, "-m", "tests.engine.fork_during_warm_up"],
+                          capture_output=True, text=True, timeout=180, env=env,
+                          cwd=Path(__file__).resolve().parents[2])
+    lines = done.stdout.split("\n")
+    assert "warming True" in lines, done.stdout + done.stderr
+    child = [x for x in lines if x.startswith("child ")]
+    assert child and child[0] != "child TIMEOUT", done.stdout + done.stderr
+    assert float(child[0].split()[1]) == 0.0

@@ -3,7 +3,7 @@
 A refactoring must leave every figure and every row as it was: record before (``python -m
 tests.golden record DIR``), change, then ``python -m tests.golden compare DIR``, which prints a
 unified diff of each report that moved and exits 1 if any did. The reports: ``risk --by
-position``, ``whatif``, ``ladder``, ``explain`` (JSON), ``trade list --all --csv`` and ``mark list
+position``, ``whatif``, ``grid``, ``explain`` (JSON), ``trade list --all --csv`` and ``mark list
 --csv``, all run by the installed ``blotter`` on a copy of ``demo.db``.
 """
 
@@ -25,7 +25,7 @@ REPORTS: dict[str, list[str]] = {
     "risk_expiry.json": ["risk", "--by", "expiry", "--at", AT, "--json"],
     "whatif.json": ["whatif", "spot -3% vol +2 days 3", "--at", AT, "--json"],
     "whatif_moneyness.json": ["whatif", "DEMOA spot -5% moneyness bdays 1", "--at", AT, "--json"],
-    "ladder.json": ["ladder", "--days", "1", "--at", AT, "--json"],
+    "grid.json": ["grid", "--days", "1", "--at", AT, "--json"],
     "explain.json": ["explain", "--json"],
     "trades.csv": ["trade", "list", "--all", "--csv"],
     "marks.csv": ["mark", "list", "--csv"],

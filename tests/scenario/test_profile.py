@@ -108,8 +108,10 @@ def test_pnl_against_spot_today_and_after_the_roll_is_quantlibs() -> None:
     v = value_book(make_book([Row("STK", 10, 125, 60, True)]), make_market(), T0)
     p = profile_curves(v, "pnl", "spot", 3.0, spot_pct=10.0, points=5, horizon_days=30)
     assert p.xs == (-10.0, -5.0, 0.0, 5.0, 10.0) and p.underlyings == ("STK",)
-    today, rolled = p.curves
+    today, today_est, rolled, rolled_est = p.curves
     assert (today.days, rolled.days, today.currency) == (0.0, 3.0, None)
+    assert [c.kind for c in p.curves] == ["full", "estimate", "full", "estimate"]
+    assert (today_est.days, rolled_est.days) == (0.0, 3.0)
     base = _stk_call(120.0, 60)
     for x, y0, y3 in zip(p.xs, today.ys, rolled.ys, strict=True):
         s = 120.0 * (1 + x / 100)
@@ -117,12 +119,54 @@ def test_pnl_against_spot_today_and_after_the_roll_is_quantlibs() -> None:
         assert y3 == pytest.approx(_stk_call(s, 57) - base, rel=1e-8, abs=1e-6)
 
 
+def _stk_call_greeks() -> tuple[float, float, float]:
+    """QuantLib's delta, gamma and theta (per year) of one STK 125 call, 60 days, spot 120
+    (AnalyticEuropeanEngine, flat curves, Actual365Fixed)."""
+    import QuantLib as ql
+
+    today = ql.Date(4, 12, 2026)
+    ql.Settings.instance().evaluationDate = today
+    dc = ql.Actual365Fixed()
+    option = ql.VanillaOption(
+        ql.PlainVanillaPayoff(ql.Option.Call, 125.0), ql.EuropeanExercise(today + 60)
+    )
+    process = ql.BlackScholesMertonProcess(
+        ql.QuoteHandle(ql.SimpleQuote(120.0)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, 0.02, dc)),
+        ql.YieldTermStructureHandle(ql.FlatForward(today, RATE, dc)),
+        ql.BlackVolTermStructureHandle(ql.BlackConstantVol(today, ql.NullCalendar(), 0.35, dc)),
+    )
+    option.setPricingEngine(ql.AnalyticEuropeanEngine(process))
+    return float(option.delta()), float(option.gamma()), float(option.theta())
+
+
+def test_the_estimate_curves_are_the_taylor_sum_of_quantlibs_greeks() -> None:
+    """Each estimate point is units × (Δ·dS + ½Γ·dS² + θ·dt) with QuantLib's greeks at the base
+    (Taylor's theorem to second order in spot, first in time), so the gap to the full curve is
+    the error the pane shades."""
+    v = value_book(make_book([Row("STK", 10, 125, 60, True)]), make_market(), T0)
+    p = profile_curves(v, "pnl", "spot", 3.0, spot_pct=10.0, points=5, horizon_days=30)
+    delta, gamma, theta = _stk_call_greeks()
+    units = 10 * 100
+    for curve in (c for c in p.curves if c.kind == "estimate"):
+        dt = (curve.days or 0.0) / 365.0
+        for x, y in zip(p.xs, curve.ys, strict=True):
+            ds = 120.0 * x / 100
+            want = units * (delta * ds + 0.5 * gamma * ds * ds + theta * dt)
+            assert y == pytest.approx(want, rel=1e-8, abs=1e-6), (curve.days, x)
+    full = next(c for c in p.curves if c.kind == "full")
+    assert full.ys[0] != pytest.approx(p.curves[1].ys[0], rel=1e-3)  # a 10% move: a real gap
+    days = profile_curves(v, "pnl", "days", 0.0, spot_pct=10.0, points=5, horizon_days=10)
+    (est,) = (c for c in days.curves if c.kind == "estimate")
+    assert est.ys == pytest.approx([units * theta * d / 365.0 for d in days.xs], rel=1e-8)
+
+
 def test_pnl_against_days_is_quantlibs() -> None:
     v = value_book(make_book([Row("STK", 10, 125, 60, True)]), make_market(), T0)
     p = profile_curves(v, "pnl", "days", 0.0, spot_pct=10.0, points=5, horizon_days=45)
     assert p.xs[:3] == (0.0, 1.0, 2.0) and p.xs[-1] == 45.0 and len(p.xs) == 46
-    (curve,) = p.curves
-    assert curve.days is None
+    curve, estimate = p.curves
+    assert curve.days is None and (curve.kind, estimate.kind) == ("full", "estimate")
     for d, y in zip(p.xs, curve.ys, strict=True):
         assert y == pytest.approx(_stk_call(120.0, 60 - int(d)) - _stk_call(120.0, 60), rel=1e-8)
     longer = profile_curves(v, "pnl", "days", 0.0, spot_pct=10.0, points=5, horizon_days=90)
@@ -146,10 +190,10 @@ def test_each_currency_gets_its_own_curves() -> None:
     """Money of different currencies is never added: one curve per currency and roll."""
     v = value_book(make_book(TWO_CCY_ROWS, TWO_CCY, ref="USI"), two_ccy_market(), T0)
     p = profile_curves(v, "pnl", "spot", 2.0, spot_pct=5.0, points=3, horizon_days=10)
-    assert [(c.currency, c.days) for c in p.curves] == [
+    assert [(c.currency, c.days) for c in p.curves if c.kind == "full"] == [
         ("USD", 0.0), ("USD", 2.0), ("EUR", 0.0), ("EUR", 2.0)
     ]
-    for curve in p.curves:
+    for curve in (c for c in p.curves if c.kind == "full"):
         rows = [r for r in TWO_CCY_ROWS if two_ccy_currency(r) == curve.currency]
         days = int(curve.days or 0)
         for x, y in zip(p.xs, curve.ys, strict=True):

@@ -110,7 +110,10 @@ def session(request: pytest.FixtureRequest, demo_db: Path, tmp_path: Path) -> It
 
 
 def test_app_in_tmux_80x24(session: Tmux) -> None:
-    screen = session.wait_for(lambda s: "Σ total" in s and "DEMOIX" in s, "the book")
+    # the header's file name waits for the note of kernels loading slowly (a loaded machine)
+    screen = session.wait_for(
+        lambda s: "Σ total" in s and "DEMOIX" in s and "compiling" not in s, "the book"
+    )
     assert "Book by underlying" in screen and "demo.db" in screen
     assert all(len(line) <= 80 for line in screen.splitlines())
     session.until_keys_arrive()
@@ -131,7 +134,7 @@ def test_app_in_tmux_80x24(session: Tmux) -> None:
     )
 
     session.send("F7")
-    session.wait_for(lambda s: "Ladder: full revaluation P&L" in s and "▼" in s, "the ladder")
+    session.wait_for(lambda s: "Grid: full revaluation P&L" in s and "▼" in s, "the grid")
     session.send("F1")
     session.wait_for(lambda s: "blotter help" in s and "what-if" in s, "the help screen")
     session.send("F1")

@@ -24,6 +24,9 @@ FROZEN_NOW = datetime.combine(
 """The tests' "now": 10:00 New York on the day after the demo book's last close (a business day
 for the demo's date, a Tuesday)."""
 
+FROZEN_DAY = FROZEN_NOW.astimezone(DEMO_TZ).date()
+"""The desk-local date of the frozen clock: the Reval pane names its curves by date."""
+
 TEST_SETTINGS = Settings(watch_interval_s=0.0, debounce_ms=0.0)
 """No store watcher and no debounce, so every worker finishes and tests stay quick."""
 

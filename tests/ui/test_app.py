@@ -5,6 +5,7 @@ the panes and the minimum-size message."""
 from __future__ import annotations
 
 import io
+from datetime import timedelta
 from pathlib import Path
 
 import numpy as np
@@ -18,7 +19,7 @@ from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.move_pane import COLUMNS, TERMS, MovePane
 from blotter.ui.widgets.whatif_bar import MoveInput
 
-from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
+from .conftest import FROZEN_DAY, FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
 
 MOVE = "spot -3% vol +2 days 1"
 
@@ -178,7 +179,7 @@ async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterAp
         def shown() -> list[str]:
             return [
                 p
-                for p in ("move", "ladder", "profile")
+                for p in ("move", "grid", "reval")
                 if demo_app.query_one(f"#{p}-pane").display
                 and demo_app.query_one(f"#{p}-pane").region.height > 0
             ]
@@ -186,14 +187,14 @@ async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterAp
         assert shown() == ["move"]
         await pilot.press("v")
         await pilot.pause()
-        assert shown() == ["ladder"]
+        assert shown() == ["grid"]
         await pilot.press("f7")
         await pilot.pause()
-        assert shown() == ["profile"]
+        assert shown() == ["reval"]
         await pilot.resize_terminal(160, 48)
         await pilot.pause()
         assert demo_app.screen.has_class("-wide")
-        assert sorted(shown()) == ["ladder", "move", "profile"]
+        assert sorted(shown()) == ["grid", "move", "reval"]
 
 
 async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
@@ -201,7 +202,7 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
     async with app.run_test(size=(160, 48)) as pilot:
         await settle(app, pilot)
         await type_move(app, pilot, "days 2")
-        ladder_pane = app.query_one("#ladder-pane")
+        ladder_pane = app.query_one("#grid-pane")
         state = app.state
         assert state is not None
         expected = scenario.ladder(
@@ -219,22 +220,24 @@ async def test_ladder_and_profile_come_from_scenario(demo_db: Path) -> None:
         )
         assert worst_line.split()[1 + j].startswith("▼")
         assert sum(line.count("▼") for line in lines) == 1
-        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        profile = app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
         spot_pcts = np.array(profile.xs)
+        today = scenario.ladder(state.valuation, spot_pcts, (0.0,))
+        np.testing.assert_allclose(profile.series[f"{FROZEN_DAY} full"], today.full[:, 0])
+        np.testing.assert_allclose(profile.series[f"{FROZEN_DAY} estimate"], today.estimate[:, 0])
         np.testing.assert_allclose(
-            profile.series["today"], scenario.ladder(state.valuation, spot_pcts, (0.0,)).full[:, 0]
-        )
-        np.testing.assert_allclose(
-            profile.series["after 2 days"],
+            profile.series[f"{FROZEN_DAY + timedelta(days=2)} (+2d) full"],
             scenario.ladder(state.valuation, spot_pcts, (0.0,), days=2.0).full[:, 0],
         )
+        assert "full vs greeks' estimate" in profile.title
         # The greek view: Δ $ of the book at the base spot is risk's total.
         await pilot.press("f9")
         await settle(app, pilot)
-        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        profile = app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
         mid = len(profile.xs) // 2
         assert profile.xs[mid] == 0.0
-        assert profile.series["today"][mid] == pytest.approx(risk.total(state.valuation).delta_cash)
+        delta_cash = risk.total(state.valuation).delta_cash
+        assert profile.series[f"{FROZEN_DAY} Δ $"][mid] == pytest.approx(delta_cash)
 
 
 async def test_too_small_says_what_size_is_needed(demo_app: BlotterApp) -> None:
@@ -370,8 +373,8 @@ async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
         table = demo_app.query_one(BookTable)
         key = table.cursor_row_key()
         assert key is not None and key.startswith("u|")
-        profile = demo_app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
-        assert profile.title.startswith(f"Profile: P&L of {key[2:]} ")
+        profile = demo_app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
+        assert profile.title.startswith(f"Reval: P&L of {key[2:]} ")
         rows = state.tree.rows_of(key)
         alone = risk.value_book(
             state.valuation.book.take(rows),
@@ -379,15 +382,16 @@ async def test_profile_of_the_selected_row(demo_app: BlotterApp) -> None:
             state.valuation.valuation_time,
         )
         np.testing.assert_allclose(
-            profile.series["today"], scenario.ladder(alone, list(profile.xs), (0.0,)).full[:, 0]
+            profile.series[f"{FROZEN_DAY} full"],
+            scenario.ladder(alone, list(profile.xs), (0.0,)).full[:, 0],
         )
         # Days-forward axis: P&L is scenario's full change for each roll.
         await pilot.press("a")
         await settle(demo_app, pilot)
-        profile = demo_app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+        profile = demo_app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
         d = profile.xs[3]
         expected = scenario.apply_move(alone, scenario.parse_move(f"days {d:g}")).total.full
-        assert profile.series["P&L"][3] == pytest.approx(expected)
+        assert profile.series["full"][3] == pytest.approx(expected)
 
 
 async def test_the_desk_zone_setting_is_the_zone_of_the_day_roll(demo_db: Path) -> None:

@@ -15,10 +15,10 @@ from blotter.ui.app import make_app
 from blotter.ui.fmt import NOT_ADDITIVE
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.widgets.book_table import BookTable
-from blotter.ui.widgets.ladder_pane import LadderPane
+from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.move_pane import MovePane
 
-from .conftest import FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
+from .conftest import FROZEN_DAY, FROZEN_NOW, TEST_SETTINGS, frozen_clock, settle
 
 
 def shown(cell: Any) -> float:
@@ -92,7 +92,7 @@ async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: 
                 row.full, abs=0.5
             )
 
-        ladder = app.query_one(LadderPane)
+        ladder = app.query_one(GridPane)
         grids = scenario.ladders(
             v, TEST_SETTINGS.ladder_spot_pcts, TEST_SETTINGS.ladder_vol_pts
         )
@@ -101,11 +101,13 @@ async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: 
             np.testing.assert_allclose(got.full, want.full)
         assert "per currency" in str(ladder.border_title)
 
-        profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
-        assert set(profile.series) == {"today USD", "today EUR"}
+        profile = app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
+        assert set(profile.series) == {
+            f"{FROZEN_DAY} {kind} {ccy}" for kind in ("full", "estimate") for ccy in ("USD", "EUR")
+        }
         usd = v.take(np.flatnonzero(v.position_currencies == "USD"))
         np.testing.assert_allclose(
-            profile.series["today USD"],
+            profile.series[f"{FROZEN_DAY} full USD"],
             scenario.ladder(usd, list(profile.xs), (0.0,)).full[:, 0],
         )
 

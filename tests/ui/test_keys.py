@@ -155,8 +155,8 @@ async def test_user_keymap_rebinds_by_id(demo_db: Path) -> None:
     [
         ("f4", lambda app: app.query_one(BookTable).group == "expiry"),
         ("f6", lambda app: app.query_one("#move-pane").order == 1),
-        ("f7", lambda app: app.pane == "ladder"),
-        ("f8", lambda app: app.query_one("#ladder-pane").grid == "estimate"),
+        ("f7", lambda app: app.pane == "grid"),
+        ("f8", lambda app: app.query_one("#grid-pane").grid == "estimate"),
         ("f9", lambda app: app.greek == "delta"),
         ("ctrl+t", lambda app: app.axis == "days"),
         ("ctrl+g", lambda app: app.scope == "row"),

@@ -29,7 +29,7 @@ from blotter.ui.messages import (
     StoreChanged,
 )
 from blotter.ui.screens.marks import MarksScreen
-from blotter.ui.widgets.ladder_pane import LadderPane
+from blotter.ui.widgets.grid_pane import GridPane
 
 from .conftest import TEST_SETTINGS, frozen_clock, settle
 from .test_screens import open_marks
@@ -52,8 +52,8 @@ def app_results(app: BlotterApp) -> dict[str, Callable[[], Message]]:
     """One message of each kind the app's workers post, built from what the app shows now."""
     state, result = app.state, app.result
     assert state is not None and result is not None
-    ladder = app.query_one(LadderPane).ladder
-    profile = app.query_one("#profile-pane").profile  # type: ignore[attr-defined]
+    ladder = app.query_one(GridPane).ladder
+    profile = app.query_one("#reval-pane").profile  # type: ignore[attr-defined]
     return {
         "BookLoaded": lambda: BookLoaded(state),
         "LoadProgress": lambda: LoadProgress(1),
@@ -95,7 +95,7 @@ async def test_a_result_arriving_as_the_app_exits_is_dropped(demo_db: Path, kind
     async with app.run_test(size=(80, 24)) as pilot:
         await ready_app(app, pilot)
         probe = Probe(app, app_results(app)[kind])
-        await app.query_one(LadderPane).mount(probe)
+        await app.query_one(GridPane).mount(probe)
     assert probe.posted, "the probe's message reached the app's queue"
     assert demo_db.read_bytes() == before
 
@@ -112,7 +112,7 @@ async def test_a_result_arriving_as_the_app_exits_from_a_desk_screen_is_dropped(
         app.action_focus_book()
         await open_marks(app, pilot)
         probe = Probe(app, results[kind])
-        await app.query_one(LadderPane).mount(probe)
+        await app.query_one(GridPane).mount(probe)
     assert probe.posted
 
 

@@ -88,7 +88,7 @@ async def test_a_name_added_without_marks_is_listed_and_the_rest_stays_live(
             app,
             pilot,
             lambda: "blotter mark spot ZZQ PRICE" in _watch_text(app),
-            "the watch list's missing marks",
+            "the Flags screen's missing marks",
         )
         text = _watch_text(app)
         assert "1 position not valued (ZZQ: spot, vol)" in text

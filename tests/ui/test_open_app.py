@@ -30,6 +30,7 @@ def built(monkeypatch: pytest.MonkeyPatch, tmp_path: Path) -> list[FakeApp]:
         return apps[-1]
 
     monkeypatch.setattr("blotter.ui.app.make_app", fake_make_app)
+    monkeypatch.setattr("blotter.commands.app.has_terminal", lambda: True)  # as in a shell
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path))
     monkeypatch.delenv("BLOTTER_CONFIG", raising=False)
     return apps

@@ -1,6 +1,6 @@
 """Pilot tests of the desk screens on a demo copy: typing marks (a number, an option price, a
 refused value), the close (written, and refused by a busy file with nothing typed lost), adding,
-cancelling and amending trades, trial trades, the Explain screen, the watch list, read-only,
+cancelling and amending trades, trial trades, the Explain screen, the Flags screen, read-only,
 and another process's commit showing in the running app."""
 
 from __future__ import annotations
@@ -616,15 +616,17 @@ async def test_watch_list_names_breaches_and_expiries(demo_db: Path) -> None:
     async with app.run_test(size=(120, 30)) as pilot:
         await settle(app, pilot)
         header = str(app.query_one("#header-line").render())
-        assert "limit breaches" in header or "worst ladder cell" in header
+        assert "limit breaches" in header or "worst grid cell" in header
         rows = app.query_one(BookTable).visible_rows()
         assert all("|vega| over 1" in r.alert for r in rows if r.level == 1)
-        assert any("worst ladder cell" in r.alert for r in rows if r.level == 1)
-        assert not rows[0].alert or "ladder" not in rows[0].alert
+        assert any("worst grid cell" in r.alert for r in rows if r.level == 1)
+        assert not rows[0].alert or "grid" not in rows[0].alert
         await pilot.press("w")
         await settle(app, pilot)
         text = str(app.screen.query_one("#watch-text").render())
-        assert "book worst ladder cell" in text and "DEMOA |vega| over 1" in text
+        title = str(app.screen.query_one(".desk-title").render())
+        assert title.startswith("Flags: expiring this week")
+        assert "book worst grid cell" in text and "DEMOA |vega| over 1" in text
         days = limits.days_to_week_end(frozen_clock(), app.tz)
         assert 5.5 < days < 6  # Tuesday 10:00 to the end of Sunday
         state = app.state
@@ -742,6 +744,48 @@ async def test_a_slow_load_shows_a_progress_bar(demo_db: Path) -> None:
         release.set()
         await settle(app, pilot)
         assert not bar.has_class("-shown") and app.state is not None
+
+
+async def test_commits_during_a_slow_load_do_not_cancel_it(demo_db: Path) -> None:
+    """Under a feed, commits arrive faster than a large book loads: each load runs to its end
+    and is shown, and every request made while it ran is served by one more load (before, each
+    commit cancelled the running load, and the pane froze until the commits stopped)."""
+    import threading
+
+    from blotter.ui.app import BlotterApp
+
+    st = open_ro(demo_db)
+    try:
+        book, market = st.load_book(), st.load_market()
+    finally:
+        st.close()
+    gate = threading.Semaphore(0)
+    calls: list[int] = []
+
+    def slow() -> tuple[Any, Any, int]:
+        calls.append(len(calls))
+        gate.acquire(timeout=10)
+        return book, market, len(calls)
+
+    app = BlotterApp(str(demo_db), TEST_SETTINGS, clock=frozen_clock, loader=slow)
+    async with app.run_test(size=(80, 24)) as pilot:
+        for _ in range(200):
+            await pilot.pause(0.01)
+            if calls:
+                break
+        for _ in range(5):  # five commits seen while the first load waits
+            app.load_book()
+            await pilot.pause(0.01)
+        assert len(calls) == 1, "a request while a load runs must not start another"
+        gate.release()  # the first load ends and is shown ...
+        for _ in range(300):
+            await pilot.pause(0.01)
+            if len(calls) == 2:
+                break
+        assert app.state is not None and app.state.data_version == 1
+        gate.release()  # ... then exactly one more load serves the five requests
+        await settle(app, pilot)
+        assert len(calls) == 2 and app.state.data_version == 2
 
 
 RAW_CONTROLS = re.compile("[\x00-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")

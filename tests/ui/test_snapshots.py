@@ -73,14 +73,19 @@ def test_move_pane_bad_line(snap_compare: Any, demo_db: Path) -> None:
     )
 
 
-def test_ladder_pane(snap_compare: Any, demo_db: Path) -> None:
+def test_grid_pane(snap_compare: Any, demo_db: Path) -> None:
     assert snap_compare(_app(demo_db), terminal_size=SIZE, run_before=_steps("f7", move="days 1"))
 
 
-def test_profile_pane(snap_compare: Any, demo_db: Path) -> None:
+def test_reval_pane(snap_compare: Any, demo_db: Path) -> None:
     assert snap_compare(
         _app(demo_db), terminal_size=SIZE, run_before=_steps("f7", "f7", move="days 1")
     )
+
+
+def test_reval_pane_wide(snap_compare: Any, demo_db: Path) -> None:
+    """At 200×50 every pane shows: the Reval chart with today's and the rolled date's curves."""
+    assert snap_compare(_app(demo_db), terminal_size=(200, 50), run_before=_steps(move="days 7"))
 
 
 def test_help_screen(snap_compare: Any, demo_db: Path) -> None:

@@ -37,7 +37,11 @@ UNITS: tuple[tuple[str, str], ...] = (
     ),
     ("error", "full − estimate, in currency; err % = error as a share of |full|"),
     ("!", "error beyond the alert threshold (config: [alerts] error_pct, error_abs)"),
-    ("Ladder", "spot shocks in %, vol shocks in points, cells in currency; one grid per currency"),
+    (
+        "Grid",
+        "scenario grid: rows spot shocks in %, columns vol shocks in points, cells P&L in "
+        "currency; one grid per currency",
+    ),
     ("—", "no sum: share counts of several names, or money of several currencies (never added)"),
     ("NOT VALUED", "positions left out for want of a mark; totals are of the rest (w lists them)"),
     ("times", f"in the desk's time zone ({DESK_TZ_SOURCES}); expiries: the exchange's dates"),

@@ -1,4 +1,4 @@
-"""The watch list: options expiring this week (pin risk flagged), and every limit breach."""
+"""The Flags screen: options expiring this week (pin risk flagged), and every limit breach."""
 
 from __future__ import annotations
 
@@ -29,7 +29,7 @@ class WatchScreen(DeskScreen):
     BINDINGS: ClassVar[list[BindingType]] = list(app_bindings("list"))
 
     def compose(self) -> ComposeResult:
-        yield self.title_line("Watch list: expiring this week, pin risk, limit breaches")
+        yield self.title_line("Flags: expiring this week, pin risk, limit breaches")
         with VerticalScroll(classes="desk-body"):
             yield Static("working it out…", id="watch-text")
         yield Static("", classes="desk-message")

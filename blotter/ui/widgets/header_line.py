@@ -21,11 +21,15 @@ class HeaderLine(Static):
     def __init__(self) -> None:
         super().__init__("blotter: opening the book…", id="header-line")
 
-    def show(self, state: BookState, now: datetime, tz: Any, alerts: list[str]) -> None:
-        """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words."""
+    def show(self, state: BookState, now: datetime, tz: Any, alerts: list[str],
+             first: str = "") -> None:
+        """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words;
+        ``first``, when given, leads the line (so a narrow terminal never cuts it off)."""
         desk = state.session
         age = marks_age(desk.marks_as_of, now, tz)
         text = Text()
+        if first:
+            text.append(f"{first} │ ", style="bold")
         text.append(f"Book: {printable(desk.book_name)}", style="bold")
         if state.read_only:  # first, so a narrow terminal never cuts it off
             text.append(" │ ")

@@ -1,4 +1,4 @@
-"""The Ladder pane: the spot × vol grid of the book's full P&L, or its estimate or error.
+"""The Grid pane (the scenario grid): spot × vol table of the book's full P&L, estimate or error.
 
 The grid is ``blotter.scenario.ladder``'s; the worst cell of the full P&L is marked ``▼`` (and in
 reverse video), the vol rule is stated under the grid, and the bar's day roll is applied.
@@ -49,12 +49,12 @@ def worst_cell(ladder: Any) -> tuple[int, int] | None:
     return None
 
 
-class LadderPane(VerticalScroll):
+class GridPane(VerticalScroll):
     """Title, grid and the rule line."""
 
     def __init__(self) -> None:
-        super().__init__(id="ladder-pane", classes="pane")
-        self.border_title = "Ladder"
+        super().__init__(id="grid-pane", classes="pane")
+        self.border_title = "Grid"
         self.grid = "full"
         self.ladder: Any = None  # the first (or only) currency's ladder
         self.ladders: list[Any] = []  # one per currency, in the book's order
@@ -63,8 +63,8 @@ class LadderPane(VerticalScroll):
         self.table: Table | None = None  # the first ladder's grid
 
     def compose(self) -> ComposeResult:
-        yield Static("waiting for the book…", id="ladder-grid")
-        yield Static("", id="ladder-rule")
+        yield Static("waiting for the book…", id="grid-cells")
+        yield Static("", id="grid-rule")
 
     def show(self, ladders: Sequence[Any], days: float, partial: bool = False) -> None:
         """Show one ladder per currency (``scenario.ladders``) computed with a ``days`` roll;
@@ -89,7 +89,7 @@ class LadderPane(VerticalScroll):
         rule = str(getattr(ladder, "rule", "") or "")
         of_valued = " of valued positions" if self.partial else ""
         per = " per currency" if several else ""
-        self.border_title = f"Ladder: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
+        self.border_title = f"Grid: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
             f" ─ {WORST} worst" if worst_cell(ladder) else ""
         )
         parts: list[Text | Table] = []
@@ -98,14 +98,14 @@ class LadderPane(VerticalScroll):
                 parts.append(Text(("\n" if k else "") + str(one.currency), style="bold"))
             parts.append(self._table(one))
         self.table = next(p for p in parts if isinstance(p, Table))
-        self.query_one("#ladder-grid", Static).update(Group(*parts))
+        self.query_one("#grid-cells", Static).update(Group(*parts))
         legend = f"{WORST} worst cell of the full P&L. " if worst_cell(ladder) else ""
         money = (
             "P&L in each currency, never added across them"
             if several
             else f"P&L in {ladder.currency or 'the book currency'}"
         )
-        self.query_one("#ladder-rule", Static).update(
+        self.query_one("#grid-rule", Static).update(
             Text(
                 f"{legend}Vol rule: {rule}. Rows: spot move in % of every spot; columns: vol move "
                 f"in points; cells: {money}."
