@@ -415,3 +415,33 @@ BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never deleted'); END;
 CREATE TRIGGER book_zone_no_replace BEFORE INSERT ON book_zone
 WHEN EXISTS (SELECT 1 FROM book_zone)
 BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never replaced'); END;
+
+-- @version 8 ------------------------------------------------------------------------------------
+
+-- A correction of an underlying's reference data: the underlying row is never changed, so a
+-- wrong description, contract multiplier default, beta, holiday calendar or price tick is put
+-- right by a row here. A NULL field keeps the value in force; for each field the latest
+-- correction that sets it wins (latest by correction_id, the order they were written in). The
+-- tick is the price precision the app and the reports show prices to; none set: the kind's.
+CREATE TABLE underlying_correction (
+    correction_id INTEGER PRIMARY KEY,
+    underlying_id INTEGER NOT NULL REFERENCES underlying (underlying_id),
+    corrected_at  TEXT    NOT NULL CHECK (length(corrected_at) = 27),
+    who           TEXT    NOT NULL CHECK (length(who) BETWEEN 1 AND 64),
+    reason        TEXT    NOT NULL CHECK (length(reason) BETWEEN 1 AND 500),
+    description   TEXT    CHECK (description IS NULL OR length(description) <= 200),
+    multiplier    REAL    CHECK (multiplier IS NULL OR multiplier > 0),
+    beta          REAL    CHECK (beta IS NULL OR beta BETWEEN -20 AND 20),
+    calendar      TEXT    CHECK (calendar IS NULL OR length(calendar) BETWEEN 1 AND 32),
+    tick          REAL    CHECK (tick IS NULL OR (tick > 0 AND tick <= 1000)),
+    CHECK (description IS NOT NULL OR multiplier IS NOT NULL OR beta IS NOT NULL
+           OR calendar IS NOT NULL OR tick IS NOT NULL)
+) STRICT;
+CREATE INDEX underlying_correction_by_underlying ON underlying_correction (underlying_id);
+CREATE TRIGGER underlying_correction_no_update BEFORE UPDATE ON underlying_correction
+BEGIN SELECT RAISE(ABORT, 'underlying corrections are never changed: record a new one'); END;
+CREATE TRIGGER underlying_correction_no_delete BEFORE DELETE ON underlying_correction
+BEGIN SELECT RAISE(ABORT, 'underlying corrections are never deleted: record a new one'); END;
+CREATE TRIGGER underlying_correction_no_replace BEFORE INSERT ON underlying_correction
+WHEN EXISTS (SELECT 1 FROM underlying_correction WHERE correction_id = NEW.correction_id)
+BEGIN SELECT RAISE(ABORT, 'underlying corrections are never replaced: record a new one'); END;

@@ -15,6 +15,7 @@ import numpy as np
 from blotter.arrays import read_only as read_only
 from blotter.calendar import DEFAULT_EXCHANGE_TZ, local_dates
 from blotter.limits import UNDERLYING_KINDS as UNDERLYING_KINDS
+from blotter.ticks import default_tick
 
 
 @dataclass(frozen=True, eq=False)
@@ -28,6 +29,7 @@ class Underlyings:
     div_yields: np.ndarray            # default dividend yield (stock, index) or foreign rate (fx)
     calendars: tuple[str, ...]        # exchange holiday calendar name, e.g. "NYSE"
     descriptions: tuple[str, ...] = ()
+    ticks: tuple[float, ...] = ()     # price tick; empty: each kind's default (``ticks``)
 
     def __post_init__(self) -> None:
         n = len(self.symbols)
@@ -42,6 +44,17 @@ class Underlyings:
             raise ValueError("Underlyings.betas and div_yields must have one entry per symbol")
         if not self.descriptions:
             object.__setattr__(self, "descriptions", ("",) * n)
+        if not self.ticks:
+            object.__setattr__(self, "ticks", tuple(default_tick(k) for k in self.kinds))
+        elif len(self.ticks) != n:
+            raise ValueError(f"Underlyings.ticks has {len(self.ticks)} entries, expected {n}")
+
+    def tick_of(self, symbol: str) -> float:
+        """The price tick of ``symbol`` (its kind's default for a symbol not here)."""
+        try:
+            return self.ticks[self.symbols.index(symbol)]
+        except ValueError:
+            return default_tick("")
 
     def index_of(self, symbol: str) -> int:
         """Position of ``symbol`` (case-sensitive); KeyError naming it when unknown."""

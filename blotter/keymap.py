@@ -13,6 +13,7 @@ BINDING_IDS: tuple[str, ...] = (
     "help",
     "what-if",
     "book",
+    "book-switch",
     "pane",
     "expand",
     "group",

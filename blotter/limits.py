@@ -189,6 +189,12 @@ TENOR = Bound(
 )
 """Tenor of a zero-rate mark, in calendar days."""
 
+TICK = Bound(
+    "tick", 1e-8, 1000.0, "per unit",
+    "the store keeps prices to eight decimals; a tick past a thousand per unit is a typo",
+)
+"""Price tick (precision) of an underlying, per unit."""
+
 BETA = Bound("beta", -20.0, 20.0, "", "a beta past ±20 to the reference index is a typo")
 """Beta of an underlying to the book's reference index."""
 

@@ -7,7 +7,8 @@ per position), calls the engine once, and keeps per-position arrays in desk unit
   count 1 per unit and carry no other greek;
 - ``delta_cash`` Δ sh × spot (currency); ``beta_delta_cash`` Δ $ × the underlying's beta to the
   book's reference index;
-- ``gamma_1pct`` change in Δ sh for a 1% rise in spot (Γ × S / 100);
+- ``gamma_1pct`` change in Δ sh for a 1% rise in spot (Γ × S / 100); ``gamma_cash_1pct`` change
+  in Δ $ for a 1% rise (Γ × S² / 100, currency), which adds across names of one currency;
 - ``vega_pt`` P&L for +1 vol point (engine vega / 100); ``weighted_vega_pt`` vega_pt × √(T_ref/T)
   with T floored at ``WEIGHT_FLOOR_DAYS``;
 - ``theta_day`` P&L for one calendar day (engine theta / 365);
@@ -56,6 +57,7 @@ EXPOSURE_FIELDS = (
     "volga_pt",
     "beta_delta_cash",
     "weighted_vega_pt",
+    "gamma_cash_1pct",
 )
 """Additive per-position desk-unit arrays of a ``BookValuation``, in ``ExposureRow`` order."""
 
@@ -261,6 +263,7 @@ class BookValuation:
     volga_pt: np.ndarray
     beta_delta_cash: np.ndarray
     weighted_vega_pt: np.ndarray
+    gamma_cash_1pct: np.ndarray
     greeks: UnitGreeks
     units: np.ndarray  # quantity × multiplier, units of underlying per position (n,)
     beta: np.ndarray  # beta of each position's underlying (n,)
@@ -362,6 +365,7 @@ class ExposureRow:
     volga_pt: float
     beta_delta_cash: float
     weighted_vega_pt: float
+    gamma_cash_1pct: float
     underlying: str | None = None
     spot: float | None = None
     index: int | None = None
@@ -590,6 +594,8 @@ def value_book(
         "volga_pt": g["volga"] / 1e4 * units,
         "beta_delta_cash": delta_shares * spot * beta,
         "weighted_vega_pt": vega_pt * weight,
+        # PRACTICE.md §1 (common practice): dollar gamma, the change in Δ $ for a 1% move.
+        "gamma_cash_1pct": g["gamma"] * spot * spot * 0.01 * units,
     }
     codes, labels = expiry_buckets(book.expiries, opt, t, zone, book.expiry_dates)
     notes: list[str] = []
@@ -705,6 +711,7 @@ def _exposure_row(
         volga_pt=values["volga_pt"],
         beta_delta_cash=values["beta_delta_cash"],
         weighted_vega_pt=values["weighted_vega_pt"],
+        gamma_cash_1pct=values["gamma_cash_1pct"],
         underlying=underlying,
         spot=spot,
         index=index,

@@ -52,6 +52,12 @@ def _rule_note(rule: str) -> str:
     return RULE_NOTES.get(rule, f"vols {rule}")
 
 
+def _book_words(book: str | None) -> str:
+    from blotter.desk.books import book_words
+
+    return book_words(book)
+
+
 def _money(x: float, places: int = 0) -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "—"
@@ -82,6 +88,26 @@ def _at_option(func: Callable[..., Any]) -> Callable[..., Any]:
     )(func)
 
 
+def _book_option(func: Callable[..., Any]) -> Callable[..., Any]:
+    return click.option(
+        "--book",
+        "book",
+        default=None,
+        metavar="NAME",
+        help="Only this book's trades (the marks are the file's). Default: all books.",
+    )(func)
+
+
+def _check_book(store: Any, book: str | None) -> str | None:
+    """``book`` when the file holds it; a ``ClickException`` listing the books when not."""
+    from blotter.desk.books import UnknownBook, check_book
+
+    try:
+        return check_book(store, book)
+    except UnknownBook as exc:
+        raise click.ClickException(str(exc)) from None
+
+
 def _open(db_path: str | None) -> Any:
     path, _ = resolve_db(db_path)
     from blotter.store import StoreError
@@ -96,8 +122,11 @@ def _open(db_path: str | None) -> Any:
         raise click.ClickException(f"cannot open {path}: {exc}") from exc
 
 
-def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
-    """The book of ``store`` valued at ``--at`` as a desk session (``desk.session``)."""
+def _value(
+    store: Any, at: str | None, vega_unit: str = "pt", book: str | None = None
+) -> BookValuation:
+    """The book of ``store`` (``book`` alone when given) valued at ``--at`` as a desk session
+    (``desk.session``)."""
     from blotter import calendar as cal
     from blotter.desk import session
 
@@ -108,8 +137,9 @@ def _value(store: Any, at: str | None, vega_unit: str = "pt") -> BookValuation:
         raise click.BadParameter(str(exc), param_hint="--at") from exc
     from blotter.store import StoreError
 
+    book = _check_book(store, book)
     try:
-        loaded = session.read(store)
+        loaded = session.read(store, book)
         if loaded.book.american.any():
             note_first_compile()
         valuation = session.value(loaded, t, tz, vega_unit=vega_unit).valuation
@@ -281,6 +311,10 @@ def _position_dicts(v: BookValuation) -> list[dict[str, Any]]:
                 "rate": float(v.rate[i]) if opt else None,
                 "carry": float(v.carry[i]) if opt else None,
                 "vol": float(v.vol[i]) if opt else None,
+                # The mark price per unit of underlying: the model's option value on the marks,
+                # a hedge's spot; and calendar days to the cut-off.
+                "mark_price": float(v.greeks.price[i]) if opt else float(v.spot[i]),
+                "days_to_expiry": float(v.years[i]) * 365.0 if opt else None,
                 "quantity": float(book.quantities[i]),
                 "multiplier": float(book.multipliers[i]),
                 "is_trial": bool(book.is_trial[i]),
@@ -358,18 +392,42 @@ def _bucket_rows(v: BookValuation, row: ExposureRow) -> Any:
     return np.flatnonzero(v.bucket_codes == row.index)
 
 
+def _pnl_today(store: Any, v: BookValuation, book: str | None) -> Any:
+    """P&L today (``desk.pnl_today``) at the valuation time; its words say why when none."""
+    from blotter.desk import pnl_today
+
+    try:
+        return pnl_today.pnl_today(store, v.valuation_time, book)
+    except (KeyError, ValueError) as exc:
+        return pnl_today.PnlToday(None, words=f"P&L today not worked out: {exc}")
+
+
+def _pnl_words(pnl: Any) -> str:
+    """One line: P&L today per currency since the close it counts from, or why there is none."""
+    if pnl.close_id is None:
+        return str(pnl.words)
+    amounts = ", ".join(f"{_money(x)} {c}" for c, x in pnl.by_currency.items()) or "0"
+    return f"P&L today ({pnl.words}, new trades from their trade price): {amounts}"
+
+
+def _spot(v: BookValuation, row: ExposureRow) -> str:
+    """The spot of ``row`` to its underlying's tick (more decimals when it carries more)."""
+    from blotter.ticks import price_text, tick_decimals
+
+    und = v.book.underlyings
+    tick = und.tick_of(row.underlying) if row.underlying else 0.01
+    return price_text(row.spot, tick_decimals(tick)) if row.spot is not None else "—"
+
+
 def _risk_groups(v: BookValuation, by: str) -> list[tuple[str, str, ExposureRow, bool]]:
     """(label, second cell, row, share counts blank) of each row of ``risk --by``; a bucket of
     several currencies comes as one row per currency."""
     from blotter.risk import aggregate, currency_totals
 
     if by == "underlying":
-        return [(r.label, _money(r.spot or float("nan"), 2), r, False) for r in aggregate(v)]
+        return [(r.label, _spot(v, r), r, False) for r in aggregate(v)]
     if by == "position":
-        return [
-            (r.label, _money(r.spot or float("nan"), 2), r, False)
-            for r in aggregate(v, "position")
-        ]
+        return [(r.label, _spot(v, r), r, False) for r in aggregate(v, "position")]
     mixed = _mixed_buckets(v)
     out = []
     for r in aggregate(v, "expiry"):
@@ -394,6 +452,7 @@ _RISK_COLUMNS = (
     "vanna Δ sh/pt",
     "volga vega/pt",
     "βΔ $",
+    "Γ $ 1% (Δ $)",
 )
 
 
@@ -409,6 +468,7 @@ def _risk_cells(row: ExposureRow, vega_scale: float) -> list[str]:
         _money(row.vanna_pt, 1),
         _money(row.volga_pt, 1),
         _money(row.beta_delta_cash),
+        _money(row.gamma_cash_1pct),
     ]
 
 
@@ -430,15 +490,24 @@ def _risk_cells(row: ExposureRow, vega_scale: float) -> list[str]:
     help="Table vega per vol point (pt) or per 1.00 of vol; JSON is always per point.",
 )
 @_at_option
+@_book_option
 @output_options
 @xlsx_option
 def risk(
-    db_path: str | None, by: str, vega_unit: str, at: str | None, as_json: bool, as_csv: bool
+    db_path: str | None,
+    by: str,
+    vega_unit: str,
+    at: str | None,
+    book: str | None,
+    as_json: bool,
+    as_csv: bool,
 ) -> None:
     """The book's exposures in desk units, per underlying and in total.
 
     Units: value and Δ $ in currency; Δ sh in shares (units) of the underlying; Γ 1% the change
-    in Δ sh for a 1% rise in spot; vega the P&L for +1 vol point (0.01 of vol); θ the P&L for one
+    in Δ sh for a 1% rise in spot; Γ $ 1% the change in Δ $ for a 1% rise (Γ × S² / 100 per
+    unit, so it adds across names of one currency; the P&L of a 1% move is about Γ $ 1% / 200);
+    vega the P&L for +1 vol point (0.01 of vol); θ the P&L for one
     calendar day; ρ the P&L for +1% of rate (stock, index and FX: rho + carry rho; futures
     options: rho alone); vanna the change in Δ sh per vol point; volga the change in vega per vol
     point; βΔ $ the delta in currency times the underlying's beta to the reference index. Stock and
@@ -459,12 +528,12 @@ def risk(
 
     check_output_flags(as_json, as_csv)
     store = _open(db_path)
-    v = _value(store, at, vega_unit)
+    v = _value(store, at, vega_unit, book)
     under = aggregate(v, "underlying")
     tot = total(v)
     per_ccy = currency_totals(v)
     if as_json:
-        out: dict[str, Any] = _header(v)
+        out: dict[str, Any] = _header(v) | {"book": book}
         out["by_underlying"] = [
             {"underlying": r.underlying, "spot": r.spot, "currency": r.currency, **_row_dict(r)}
             for r in under
@@ -487,6 +556,16 @@ def risk(
             ]
         if by == "position":
             out["by_position"] = _position_dicts(v)
+        pnl = _pnl_today(store, v, book)
+        out["pnl_today"] = {
+            "close_id": pnl.close_id,
+            "by_underlying": {
+                u: {"pnl": x, "currency": pnl.currency_of.get(u)}
+                for u, x in pnl.by_underlying.items()
+            },
+            "by_currency": pnl.by_currency,
+            "words": pnl.words,
+        }
         out["notes"] = list(v.notes)
         print_json(out | _unvalued_json(v.unvalued))
         return
@@ -532,12 +611,12 @@ def risk(
     if vega_unit == "vol":
         cols[4] = "vega $/1.00 vol"
     click.echo(
-        f"risk at {_iso(v.valuation_time)} · marks "
+        f"risk of {_book_words(book)} at {_iso(v.valuation_time)} · marks "
         + (_iso(v.market.marks_as_of) if v.market.has_marks else "none yet")
         + f" · {_money_note(v.currencies)}"
     )
     ccy_head = ["ccy"] if several else []
-    for block in ((0, 1, 2, 3, 9), (4, 5, 6, 7, 8)):
+    for block in ((0, 1, 2, 3, 10, 9), (4, 5, 6, 7, 8)):
         table = [
             [a, *_ccy_cell(r, several), b, *(cells_of(r, blank)[i] for i in block)]
             for a, b, r, blank in groups
@@ -571,9 +650,40 @@ def risk(
             f"beta-weighted delta: {_per_ccy(per_ccy, lambda r: r.beta_delta_cash)} (no index "
             "units: they would add currencies)"
         )
+    lines.append(_pnl_words(_pnl_today(store, v, book)))
     for line in [*lines, *v.notes]:
         click.echo(line)
+    if by == "position":
+        _position_table(v)
     _say_unvalued(v.unvalued, table=True)
+
+
+def _position_table(v: BookValuation) -> None:
+    """Each position's quantity, mark price (the model value on the marks, to two decimals past
+    its underlying's tick), implied vol and days to expiry, under ``risk --by position``."""
+    from blotter.ticks import tick_decimals
+
+    und = v.book.underlyings
+    rows = []
+    for d in _position_dicts(v):
+        decimals = tick_decimals(und.tick_of(d["underlying"]))
+        rows.append(
+            [
+                d["contract"],
+                f"{d['quantity']:+,.0f}",
+                f"{d['multiplier']:,g}",
+                f"{d['mark_price']:,.{decimals + 2}f}",
+                d["currency"] or "",
+                f"{100 * d['vol']:.2f}" if d["vol"] is not None else "",
+                f"{d['days_to_expiry']:,.1f}" if d["days_to_expiry"] is not None else "",
+            ]
+        )
+    click.echo("")
+    print_table(
+        ["position", "qty", "multiplier", "mark price", "ccy", "vol %", "days"],
+        rows,
+        right=[False, True, True, True, False, True, True],
+    )
 
 
 _WHATIF_HELP = (
@@ -669,6 +779,7 @@ def _move_json(res: MoveResult, ccy_of: dict[str, str]) -> dict[str, Any]:
 @db_option
 @click.argument("move", nargs=-1)
 @_at_option
+@_book_option
 @click.option(
     "--set",
     "set_name",
@@ -689,6 +800,7 @@ def whatif(
     db_path: str | None,
     move: tuple[str, ...],
     at: str | None,
+    book: str | None,
     as_json: bool,
     as_csv: bool,
     set_name: str | None = None,
@@ -700,7 +812,7 @@ def whatif(
 
     check_output_flags(as_json, as_csv)
     if set_name is not None or list_sets or sets_file is not None:
-        _whatif_sets(db_path, move, at, as_json, as_csv, set_name, sets_file)
+        _whatif_sets(db_path, move, at, book, as_json, as_csv, set_name, sets_file)
         return
     if not move:
         raise click.UsageError("give a MOVE, or --set NAME to run a scenario set (--sets lists)")
@@ -712,7 +824,7 @@ def whatif(
             f"{exc.message}\n  {exc.pointer().replace(chr(10), chr(10) + '  ')}"
         ) from exc
     store = _open(db_path)
-    v = _value(store, at)
+    v = _value(store, at, book=book)
     try:
         mv = parse_move(text, symbols=v.book.underlyings.symbols)
         res = apply_move(v, mv)
@@ -789,13 +901,14 @@ def _whatif_sets(
     db_path: str | None,
     move: tuple[str, ...],
     at: str | None,
+    book: str | None,
     as_json: bool,
     as_csv: bool,
     set_name: str | None,
     sets_file: Path | None,
 ) -> None:
-    """``whatif --set NAME`` (run a scenario set) or ``--sets`` (list them), from the settings'
-    sets or ``--file``'s; a bad set is refused in words before anything is valued."""
+    """``whatif --set NAME`` (run a scenario set on ``--book`` or every book) or ``--sets`` (list
+    them), from the settings' sets or ``--file``'s; a bad set is refused before any valuing."""
     from blotter.config import ConfigError, load_settings
     from blotter.desk import scenario_sets
 
@@ -814,7 +927,7 @@ def _whatif_sets(
         chosen = scenario_sets.find_set(sets, set_name)
     except scenario_sets.SetError as exc:
         raise click.ClickException(str(exc)) from None
-    v = _value(_open(db_path), at)
+    v = _value(_open(db_path), at, book=book)
     try:
         run = scenario_sets.run_set(v, chosen)
     except scenario_sets.SetError as exc:
@@ -1002,6 +1115,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     'needs pip install "blotter[cluster]".',
 )
 @_at_option
+@_book_option
 @output_options
 @xlsx_option
 def grid(
@@ -1013,6 +1127,7 @@ def grid(
     workers: int | None,
     cluster: str | None,
     at: str | None,
+    book: str | None,
     as_json: bool,
     as_csv: bool,
 ) -> None:
@@ -1034,7 +1149,7 @@ def grid(
     for x in vp:
         check_option(limits.MOVE_VOL_PTS, x, "--vol", signed=True)
     store = _open(db_path)
-    v = _value(store, at)
+    v = _value(store, at, book=book)
     lads = _run_grid(v, sp, vp, days, f"sticky {rule}", workers, cluster)
     lad = lads[0]
     if as_json:
@@ -1167,10 +1282,16 @@ def _set_words(s: Any, t: Any) -> str:
     metavar="SET",
     help="End mark set id, or 'now' for the marks in force now. Default: the last close.",
 )
+@_book_option
 @output_options
 @xlsx_option
 def explain(
-    db_path: str | None, from_set: int | None, to_set: str | None, as_json: bool, as_csv: bool
+    db_path: str | None,
+    from_set: int | None,
+    to_set: str | None,
+    book: str | None,
+    as_json: bool,
+    as_csv: bool,
 ) -> None:
     """P&L explain between two mark sets (default: the last two closes) against the start's greeks.
 
@@ -1196,13 +1317,19 @@ def explain(
                 f"{to_set!r}: give a mark set id or 'now'", param_hint="--to"
             ) from None
     store = _open(db_path)
+    source = store
+    if _check_book(store, book) is not None:
+        from blotter.desk.books import OneBook
+
+        source = OneBook(store, str(book))
     try:
-        ex = run_explain(store, from_set, to_set)
+        ex = run_explain(source, from_set, to_set)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
     if as_json:
         print_json(
             {
+                "book": book,
                 "from": _set_dict(ex.from_set),
                 "to": _set_dict(ex.to_set),
                 "from_time": _iso(ex.from_time),
@@ -1253,7 +1380,7 @@ def explain(
     ccy_head = ["ccy"] if several else []
     shown = _labelled(ex.by_underlying, ex.by_currency, ex.total, _total_label(ex.unvalued))
     click.echo(
-        f"P&L explain: {_set_words(frm, ex.from_time)} → "
+        f"P&L explain of {_book_words(book)}: {_set_words(frm, ex.from_time)} → "
         + ("marks now" if to == "now" else _set_words(to, ex.to_time))
         + f" · {_money_note(currencies)} · greeks of the start set"
     )

@@ -44,8 +44,10 @@ UNDERLYING_COLUMNS = (
     "time_zone",
     "cutoff_time",
     "description",
+    "tick",
 )
-"""Columns of ``underlying list --csv`` / ``--json``; div_yield and beta are decimals."""
+"""Columns of ``underlying list --csv`` / ``--json``; div_yield and beta are decimals, tick the
+price precision per unit (the latest correction's, else the kind's default)."""
 
 
 @click.command("create")
@@ -210,15 +212,85 @@ def underlying_list(as_json: bool, as_csv: bool, db_path: str | None) -> None:
                 "yes" if r["is_reference"] else "",
                 r["calendar"],
                 f"{r['cutoff_time']} {r['time_zone']}",
+                f"{r['tick']:g}",
             ]
             for r in rows
         ]
         print_table(
             ["symbol", "kind", "ccy", "multiplier", "exercise", "settle", "q %", "beta", "ref",
-             "calendar", "close"],
+             "calendar", "close", "tick"],
             table,
             title=f"{len(rows)} underlyings",
         )
+
+
+@underlying.command("correct")
+@click.argument("symbol")
+@click.option("--reason", required=True, help="Why the reference data was wrong (recorded).")
+@click.option("--description", default=None, help="The right description.")
+@click.option(
+    "--multiplier", type=FINITE, default=None,
+    help="The right default units per contract (for contracts created from now on).",
+)
+@click.option("--beta", type=FINITE, default=None, help="The right beta to the reference index.")
+@click.option("--calendar", default=None, help="The right exchange holiday calendar, e.g. CME.")
+@click.option(
+    "--tick", type=FINITE, default=None,
+    help="The price tick, per unit (0.01 shows prices to 2 decimals, 0.00001 to 5).",
+)
+@click.option("--json", "as_json", is_flag=True, help="Print the correction's id as JSON.")
+@db_option
+def underlying_correct(
+    symbol: str,
+    reason: str,
+    description: str | None,
+    multiplier: float | None,
+    beta: float | None,
+    calendar: str | None,
+    tick: float | None,
+    as_json: bool,
+    db_path: str | None,
+) -> None:
+    """Record a correction of SYMBOL's reference data.
+
+    The underlying's row is never changed: the correction is a new row, and for each field the
+    latest correction that sets it is the one in force. Fields not given keep their value.
+    """
+    from blotter.calendar import business_calendar
+
+    if multiplier is not None:
+        check_option(limits.MULTIPLIER, multiplier, "--multiplier")
+    if beta is not None:
+        check_option(limits.BETA, beta, "--beta")
+    if tick is not None:
+        check_option(limits.TICK, tick, "--tick")
+    if calendar is not None:
+        try:
+            business_calendar(calendar)
+        except ValueError as exc:
+            raise click.BadParameter(str(exc), param_hint="--calendar") from None
+    fields = {
+        "description": description,
+        "multiplier": multiplier,
+        "beta": beta,
+        "calendar": calendar,
+        "tick": tick,
+    }
+    given = {k: v for k, v in fields.items() if v is not None}
+    if not given:
+        raise click.UsageError(
+            "give at least one of --description, --multiplier, --beta, --calendar, --tick"
+        )
+    with _store(db_path) as store:
+        cid = store.correct_underlying(symbol, reason, given)
+    words = ", ".join(
+        f"{k} {v:g}" if isinstance(v, float) else f"{k} {v!r}" for k, v in given.items()
+    )
+    _emit(
+        as_json,
+        {"correction_id": cid, "symbol": symbol, **given},
+        f"underlying {symbol} corrected (correction {cid}): {words}",
+    )
 
 
 COMMANDS = [create, underlying]

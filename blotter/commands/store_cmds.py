@@ -31,6 +31,7 @@ from blotter.commands.common import (
 )
 from blotter.commands.progress import Progress, progress
 from blotter.printable import printable
+from blotter.ticks import price_text, tick_decimals
 
 STDIN_NAME = "stdin"
 """The name an import read from standard input (``-``) goes by in messages and the import log."""
@@ -393,6 +394,7 @@ def trade_list(
                 f"no book named {book!r} (books: {', '.join(books) if books else 'none yet'})"
             )
         rows = store.trades(book=book, since=lo, until=hi, live_only=not show_all)
+        ticks = {r["symbol"]: float(r["tick"]) for r in store.underlying_records()}
     if as_csv:
         print_csv(TRADE_COLUMNS + TRADE_INFO_COLUMNS, (trade_csv_row(t) for t in rows))
     elif as_json:
@@ -420,7 +422,7 @@ def trade_list(
                     t.book,
                     t.contract,
                     f"{t.quantity:+,d}",
-                    f"{t.price:,.4g}",
+                    price_text(t.price, tick_decimals(ticks.get(t.symbol, 0.01))),
                     t.trade_time.strftime("%Y-%m-%d %H:%M:%S"),
                     t.state,
                     t.who,

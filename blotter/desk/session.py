@@ -31,7 +31,7 @@ if TYPE_CHECKING:
 class BookSource(Protocol):
     """Where a session reads from: a ``store.Store`` (anything with these three reads)."""
 
-    def load_book(self) -> Book: ...
+    def load_book(self, book: str | None = None) -> Book: ...
 
     def load_market(self) -> Market: ...
 
@@ -50,9 +50,10 @@ class Loaded:
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
 
 
-def read(source: BookSource) -> Loaded:
-    """The book, the marks in force and the data version of ``source``."""
-    return Loaded(source.load_book(), source.load_market(), int(source.data_version()))
+def read(source: BookSource, book: str | None = None) -> Loaded:
+    """The book (``book`` alone, or every book when None), the marks in force and the data
+    version of ``source``."""
+    return Loaded(source.load_book(book), source.load_market(), int(source.data_version()))
 
 
 @dataclass(frozen=True, repr=False)

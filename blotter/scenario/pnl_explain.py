@@ -245,7 +245,10 @@ def _instant(x: datetime | str) -> np.datetime64:
 
 
 def explain(
-    store: ExplainSource, from_set: int | str | None = None, to_set: int | str | None = None
+    store: ExplainSource,
+    from_set: int | str | None = None,
+    to_set: int | str | None = None,
+    at: np.datetime64 | None = None,
 ) -> Explain:
     """Explain the P&L between two mark sets (default: the last two closes; ``to_set`` "now" = the
     marks in force now) with the start's greeks, new trades' P&L split out.
@@ -261,7 +264,7 @@ def explain(
     ``taylor_terms`` of the start's greeks, where dσ and dr are each contract's own vol and rate
     change between the two markets and the carry term's db − dr is the change of b = r − q that
     the rate does not account for (a dividend yield or foreign rate mark change; futures options
-    have b = 0).
+    have b = 0). ``at`` is "now" for an end of "now" (default: the clock).
     """
     frm, to, start_close, end_close, notes = _pick_sets(store, from_set, to_set)
     t0 = _instant(start_close.marked_at)
@@ -270,7 +273,7 @@ def explain(
     if isinstance(to, str) or end_close is None:
         cut1 = store.last_seq() + 1
         m1 = store.load_market()
-        t1 = max(cal.now(), _instant(m1.marks_as_of))
+        t1 = max(cal.now() if at is None else at, _instant(m1.marks_as_of))
     else:
         end_id = int(to.id)
         cut1 = end_close.seq

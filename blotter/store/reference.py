@@ -4,6 +4,7 @@ accounts) and the desk's free notes."""
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Mapping
 from datetime import datetime
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -22,6 +23,7 @@ from blotter.store.checks import (
 from blotter.store.core import StoreCore, guard_damage
 from blotter.store.errors import StoreError
 from blotter.store.times import timestamp_text
+from blotter.ticks import default_tick
 
 DEFAULT_BOOK = "main"
 """Book a trade goes to when none is named."""
@@ -46,11 +48,32 @@ UNDERLYING_COLUMNS = (
 
 _FLAGS = ("is_reference", "american", "cash_settled")
 
+CORRECTABLE = ("description", "multiplier", "beta", "calendar", "tick")
+"""Reference fields an underlying correction may set (schema 8, ``underlying_correction``)."""
+
+
+def _latest(field: str) -> str:
+    """SQL for the value of ``field`` in the latest correction of ``u`` that sets it."""
+    return (
+        f"(SELECT c.{field} FROM underlying_correction c WHERE c.underlying_id = u.underlying_id "
+        f"AND c.{field} IS NOT NULL ORDER BY c.correction_id DESC LIMIT 1)"
+    )
+
+
+def _corrected_columns() -> str:
+    """The select list of ``UNDERLYING_COLUMNS`` and ``tick`` with corrections in force."""
+    cols = [
+        f"coalesce({_latest(c)}, u.{c}) AS {c}" if c in CORRECTABLE else f"u.{c} AS {c}"
+        for c in UNDERLYING_COLUMNS
+    ]
+    return ", ".join([*cols, f"{_latest('tick')} AS tick"])
+
 
 def underlying_rows(conn: sqlite3.Connection) -> list[sqlite3.Row]:
-    """Every underlying's row (``UNDERLYING_COLUMNS``), in id order."""
+    """Every underlying's row (``UNDERLYING_COLUMNS`` then ``tick``, NULL when none was set),
+    in id order, with the latest correction of each field in force."""
     return db.rows(
-        conn, f"SELECT {', '.join(UNDERLYING_COLUMNS)} FROM underlying ORDER BY underlying_id"
+        conn, f"SELECT {_corrected_columns()} FROM underlying u ORDER BY u.underlying_id"
     )
 
 
@@ -64,6 +87,9 @@ def underlyings_of(rows: list[sqlite3.Row]) -> Underlyings:
         div_yields=np.array([r["div_yield"] for r in rows], dtype=np.float64),
         calendars=tuple(r["calendar"] for r in rows),
         descriptions=tuple(r["description"] for r in rows),
+        ticks=tuple(
+            float(r["tick"]) if r["tick"] is not None else default_tick(r["kind"]) for r in rows
+        ),
     )
 
 
@@ -72,8 +98,8 @@ def underlying_terms(conn: sqlite3.Connection, symbol: str) -> sqlite3.Row:
     cash_settled, cutoff_time, kind); ``StoreError`` when the book has no such underlying."""
     row = db.one(
         conn,
-        "SELECT underlying_id, multiplier, american, cash_settled, cutoff_time, kind "
-        "FROM underlying WHERE symbol = ?",
+        f"SELECT u.underlying_id, coalesce({_latest('multiplier')}, u.multiplier) AS multiplier, "
+        "u.american, u.cash_settled, u.cutoff_time, u.kind FROM underlying u WHERE u.symbol = ?",
         (symbol,),
     )
     if row is None:
@@ -136,7 +162,73 @@ class ReferenceData(StoreCore):
         for r in rows:
             for flag in _FLAGS:
                 r[flag] = bool(r[flag])
+            if r["tick"] is None:
+                r["tick"] = default_tick(r["kind"])
         return rows
+
+    def correct_underlying(
+        self,
+        symbol: str,
+        reason: str,
+        changes: Mapping[str, float | str],
+        who: str | None = None,
+    ) -> int:
+        """Record a correction of ``symbol``'s reference data: ``changes`` by field of
+        ``CORRECTABLE`` (the rest keep the value in force); returns its id. Nothing is changed in
+        place: the latest correction of a field wins when the underlyings are read."""
+        unknown = sorted(set(changes) - set(CORRECTABLE))
+        if unknown:
+            raise StoreError(f"cannot correct {', '.join(unknown)}: only {', '.join(CORRECTABLE)}")
+        fields: dict[str, Any] = dict.fromkeys(CORRECTABLE) | dict(changes)
+        multiplier, beta, tick = fields["multiplier"], fields["beta"], fields["tick"]
+        calendar, description = fields["calendar"], fields["description"]
+        if all(v is None for v in fields.values()):
+            raise StoreError(
+                f"nothing to correct for {symbol!r}: give at least one of "
+                + ", ".join(CORRECTABLE)
+            )
+        if not reason.strip():
+            raise StoreError("a correction needs a reason (--reason)")
+        if multiplier is not None:
+            fields["multiplier"] = within(limits.MULTIPLIER, multiplier)
+        if beta is not None:
+            fields["beta"] = within(limits.BETA, beta)
+        if tick is not None:
+            fields["tick"] = within(limits.TICK, tick)
+        if calendar is not None and not 1 <= len(calendar) <= 32:
+            raise StoreError("a calendar name is 1 to 32 characters")
+        if description is not None and len(description) > 200:
+            raise StoreError("a description is at most 200 characters")
+        with self._write() as conn:
+            uid = int(underlying_terms(conn, symbol)["underlying_id"])
+            cur = conn.execute(
+                "INSERT INTO underlying_correction (underlying_id, corrected_at, who, reason, "
+                "description, multiplier, beta, calendar, tick) "
+                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (
+                    uid,
+                    timestamp_text(self.now()),
+                    who or self.who,
+                    reason.strip(),
+                    *fields.values(),
+                ),
+            )
+            return int(cur.lastrowid or 0)
+
+    @guard_damage
+    def underlying_corrections(self, symbol: str | None = None) -> list[dict[str, Any]]:
+        """Every correction recorded (of ``symbol`` only when given), oldest first."""
+        sql = (
+            "SELECT c.correction_id, u.symbol, c.corrected_at, c.who, c.reason, "
+            + ", ".join(f"c.{f}" for f in CORRECTABLE)
+            + " FROM underlying_correction c JOIN underlying u USING (underlying_id)"
+        )
+        args: tuple[Any, ...] = ()
+        if symbol is not None:
+            sql += " WHERE u.symbol = ?"
+            args = (symbol,)
+        with self._read() as conn:
+            return [dict(r) for r in db.rows(conn, sql + " ORDER BY c.correction_id", args)]
 
     def add_underlying(
         self,

@@ -28,7 +28,8 @@ from textual.widgets import DataTable, Footer, Input, ProgressBar, Static
 from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_worker
 
 from blotter.config import Settings
-from blotter.desk import limits, session
+from blotter.desk import books, limits, session
+from blotter.desk import pnl_today as pnl
 from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
 from blotter.ui import data
@@ -118,6 +119,14 @@ def _utc_now() -> datetime:
     return datetime.now(UTC)
 
 
+def _pnl_note(tree: data.BookTree) -> str:
+    """The Book pane's note on its P&L day column: since which close, or why it is blank."""
+    if np.asarray(tree.book.is_trial).any():
+        return "P&L day: live book only, blank under trials"
+    pnl_words = tree.pnl.words
+    return f"P&L day {pnl_words}" if tree.pnl.close_id is not None else f"P&L day: {pnl_words}"
+
+
 class BlotterApp(App[None]):
     """The app; see the module docstring. ``clock`` gives the valuation time (UTC, aware)."""
 
@@ -168,6 +177,7 @@ class BlotterApp(App[None]):
         self._lower_notes: list[str] = []
         self._compile_poll: Timer | None = None
         self.trial_trades = Trials()
+        self.book_in_view: str | None = None  # one book's trades, or None for all books
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
         self._actions: list[SystemCommand] = []  # the action list's entries as it opened
@@ -314,29 +324,48 @@ class BlotterApp(App[None]):
         ``desk.session`` reads and values; the trial trades held in memory are layered on.
         """
         worker = get_current_worker()
-        trials = self.trial_trades.all()
+        name = self.book_in_view
+        trials = [t for t in self.trial_trades.all() if name is None or t.book == name]
+        names: tuple[str, ...] = ()
+        today = pnl.NO_CLOSE
         try:
             if self.loader is not None:
                 loaded = session.Loaded(*self.loader())
             else:
                 with self.open_store() as st:
-                    loaded = session.read(st)
+                    names = tuple(st.book_names())
+                    loaded = session.read(st, books.check_book(st, name))
+                    today = self._pnl_today(st, name)
             self.post_message(LoadProgress(1))
             previous = self.state.valuation.boundaries if self.state is not None else None
             valued = session.value(
                 loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valued.valuation, self.tz, self._row_alert)
+            tree = data.BookTree(valued.valuation, self.tz, self._row_alert, today)
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
             return
         state = data.BookState(
-            book_seq=0, db_path=self.db_path, read_only=self.read_only, session=valued, tree=tree
+            book_seq=0,
+            db_path=self.db_path,
+            read_only=self.read_only,
+            session=valued,
+            tree=tree,
+            books=names,
         )
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
+
+    def _pnl_today(self, st: Store, name: str | None) -> pnl.PnlToday:
+        """P&L today of the book in view; a failure is said in the P&L's words, never raised,
+        so the rest of the book still loads."""
+        at = np.datetime64(self.clock().astimezone(UTC).replace(tzinfo=None), "s")
+        try:
+            return pnl.pnl_today(st, at, name)
+        except Exception as exc:  # noqa: BLE001 - shown beside the book, not raised
+            return pnl.PnlToday(None, words=f"P&L today not worked out: {exc}")
 
     def _row_alert(self, row: ExposureRow) -> str:
         """Limit breaches of a Book row in words (``desk.limits.exposure_breach``)."""
@@ -374,6 +403,7 @@ class BlotterApp(App[None]):
         self.state = state
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
+        self.query_one("#book-pane").border_subtitle = _pnl_note(state.tree)
         self._refresh_header()
         self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value
@@ -774,6 +804,15 @@ class BlotterApp(App[None]):
         self.screen.set_focus(bar)
         bar.insert_text_at_cursor(event.text.lstrip("/").replace("\n", " ").strip())
 
+    def action_next_book(self) -> None:
+        """Show the next book of the cycle all books, then each book by name."""
+        if self.loader is not None or self.state is None:
+            self.notify("no other book to show", timeout=3)
+            return
+        self.book_in_view = books.next_book(self.state.books, self.book_in_view)
+        self.notify(f"showing {books.book_words(self.book_in_view)}", timeout=2)
+        self.load_book()
+
     def action_focus_book(self) -> None:
         self.screen.set_focus(self.query_one(BookTable))
 
@@ -801,7 +840,7 @@ class BlotterApp(App[None]):
         if column == "label":
             title += " ─ sorted by name" + (" (Z→A)" if reverse else "")
         elif column is not None:
-            title += f" ─ sorted by {dict(data.BOOK_COLUMNS)[column]} " + (
+            title += f" ─ sorted by {dict(data.TABLE_COLUMNS)[column]} " + (
                 "↓ largest first" if reverse else "↑ smallest first"
             )
         self.query_one("#book-pane").border_title = title

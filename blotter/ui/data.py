@@ -17,14 +17,17 @@ import numpy as np
 
 from blotter import calendar as cal
 from blotter import risk
+from blotter.desk.pnl_today import NO_CLOSE, PnlToday
 from blotter.desk.session import Session
 from blotter.printable import printable
 from blotter.scenario.profile import profile_curves
+from blotter.ticks import price_text, tick_decimals
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
     ("spot", "Spot"),
     ("delta_cash", "Δ $"),
     ("gamma_1pct", "Γ 1%"),
+    ("gamma_cash_1pct", "Γ$ 1%"),
     ("vega_pt", "vega pt"),
     ("theta_day", "θ day"),
     ("delta_shares", "Δ sh"),
@@ -36,13 +39,32 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 )
 """(risk field, header) of the Book pane in screen order; the units are on the help screen."""
 
+TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
+    BOOK_COLUMNS[0],
+    ("pnl_today", "P&L day"),
+    *BOOK_COLUMNS[1:],
+    ("qty", "qty"),
+    ("mark", "mark"),
+    ("vol", "vol %"),
+    ("days", "days"),
+)
+"""The Book pane's columns: ``BOOK_COLUMNS`` with P&L today (``desk.pnl_today``) after the spot,
+on the total, currency and underlying rows; then, on position rows, the quantity (contracts),
+the mark price (the model value per unit on the marks), the implied vol and days to expiry."""
+
+POSITION_COLUMNS = ("qty", "mark", "vol", "days")
+"""Columns only a position row fills (``BookRow.detail``)."""
+
+COLUMN_INDEX = {k: i for i, (k, _) in enumerate(BOOK_COLUMNS)}
+"""Where each of ``BOOK_COLUMNS`` is in ``BookRow.values``."""
+
 SUM_FIELDS = tuple(k for k, _ in BOOK_COLUMNS if k != "spot")
 """Columns that add up over positions (risk's additive arrays)."""
 
 SHARE_FIELDS = frozenset(risk.SHARE_FIELDS)
 """Columns in shares of one underlying: a row spanning several names shows them as "—"."""
 
-MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS)
+MONEY_COLUMNS = frozenset(risk.MONEY_FIELDS) | {"pnl_today"}
 """Columns in currency: a row spanning several currencies shows them as "—"."""
 
 MAX_CHILD_ROWS = 2000
@@ -64,6 +86,18 @@ class BookRow:
     trial: bool = False  # a trial position (not in the store)
     currency: str | None = None  # None when the row spans several currencies
     mixed_currency: bool = False  # spans several currencies: money columns do not add
+    decimals: int = 2  # decimals of the spot (the underlying's tick, ``blotter.ticks``)
+    pnl_today: float = math.nan  # since the last close; NaN where it is not worked out
+    detail: tuple[float, ...] = ()  # a position's POSITION_COLUMNS values
+
+    def value(self, column: str) -> float:
+        """The row's number in ``column`` (a key of ``TABLE_COLUMNS``); NaN where it has none."""
+        if column == "pnl_today":
+            return self.pnl_today
+        if column in POSITION_COLUMNS:
+            i = POSITION_COLUMNS.index(column)
+            return self.detail[i] if i < len(self.detail) else math.nan
+        return self.values[COLUMN_INDEX[column]]
 
 
 def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[float, ...]:
@@ -75,7 +109,7 @@ def _row_values(exposure: risk.ExposureRow, spot: float = math.nan) -> tuple[flo
 
 def position_label(book: Any, i: int) -> str:
     """Short label of position ``i`` under its underlying and expiry: ``4500 C ×-10``."""
-    qty = f"×{book.quantities[i]:+g}"
+    qty = f"×{book.quantities[i]:+,g}"
     if not book.is_option[i]:
         return f"hedge {qty}"
     return f"{book.strikes[i]:g} {'C' if book.is_call[i] else 'P'} {qty}"
@@ -89,8 +123,10 @@ class BookTree:
         valuation: risk.BookValuation,
         tz: Any,
         alert: Callable[[risk.ExposureRow], str] | None = None,
+        pnl: PnlToday = NO_CLOSE,
     ) -> None:
         self.valuation = valuation
+        self.pnl = pnl
         self.book = valuation.book
         self.tz = tz
         self._alert = alert or (lambda row: "")
@@ -105,6 +141,31 @@ class BookTree:
         self._cache: dict[str, list[BookRow]] = {}
 
     # -- pieces ---------------------------------------------------------------------------------
+    def _detail(self, i: int) -> tuple[float, ...]:
+        """Position ``i``'s quantity, mark price per unit (an option's model value, a hedge's
+        spot), implied vol and calendar days to expiry (NaN for a hedge)."""
+        v, book = self.valuation, self.book
+        if not book.is_option[i]:
+            return (float(book.quantities[i]), float(v.spot[i]), math.nan, math.nan)
+        return (
+            float(book.quantities[i]),
+            float(v.greeks.price[i]),
+            float(v.vol[i]),
+            float(v.years[i]) * 365.0,
+        )
+
+    def _pnl_total(self, currency: str | None) -> float:
+        """P&L today of the rows in ``currency``; NaN under trials (they are not in it)."""
+        if np.asarray(self.book.is_trial).any():
+            return math.nan
+        return self.pnl.total(currency)
+
+    def _decimals(self, underlying: int | None) -> int:
+        """Decimals of the spot of underlying number ``underlying`` (its tick's)."""
+        if underlying is None:
+            return 2
+        return tick_decimals(self.book.underlyings.ticks[underlying])
+
     def _subtotal(self, rows: np.ndarray) -> tuple[float, ...]:
         """``risk.total`` over ``rows`` (an index array), in ``SUM_FIELDS`` order."""
         row = risk.total(self.valuation, rows)
@@ -129,6 +190,8 @@ class BookTree:
                 values=(math.nan,) + tuple(float(self._sums[k][i]) for k in SUM_FIELDS),
                 position=int(i),
                 trial=bool(book.is_trial[i]),
+                decimals=self._decimals(int(book.underlying_idx[i])) + 2,
+                detail=self._detail(int(i)),
             )
             for i in order[:MAX_CHILD_ROWS]
         ]
@@ -188,6 +251,7 @@ class BookTree:
             mixed=self._mixed(np.arange(len(self.book))),
             currency=self._total.currency,
             mixed_currency=len(self.currencies) > 1,
+            pnl_today=self._pnl_total(self._total.currency),
         )
 
     def currency_totals(self) -> list[BookRow]:
@@ -203,6 +267,7 @@ class BookTree:
                 alert=self._alert(r),
                 mixed=r.underlying is None,
                 currency=r.currency,
+                pnl_today=self._pnl_total(r.currency),
             )
             for r in risk.currency_totals(self.valuation)
         ]
@@ -223,6 +288,7 @@ class BookTree:
         )
 
     def top(self, group: str) -> Sequence[BookRow]:
+        trials = bool(np.asarray(self.book.is_trial).any())
         if group == "underlying":
             return [
                 BookRow(
@@ -233,6 +299,8 @@ class BookTree:
                     expandable=True,
                     alert=self._alert(r),
                     currency=r.currency,
+                    decimals=self._decimals(r.index),
+                    pnl_today=self.pnl.of(r.label) if not trials else math.nan,
                 )
                 for r in self._by_underlying
             ]
@@ -302,6 +370,7 @@ class BookTree:
                         + self._subtotal(sel),
                         expandable=True,
                         currency=self.book.underlyings.currencies[int(j)],
+                        decimals=self._decimals(int(j)),
                     )
                 )
         else:  # expiry day, or underlying within a bucket
@@ -319,6 +388,7 @@ class BookState:
     read_only: bool
     session: Session
     tree: BookTree
+    books: tuple[str, ...] = ()  # every book of the file, for the book switch
 
     @property
     def valuation(self) -> risk.BookValuation:
@@ -424,16 +494,17 @@ def profile(
 
 
 # -- Trades screen ---------------------------------------------------------------------------
-def trade_text(t: Any, tz: Any) -> tuple[str, ...]:
+def trade_text(t: Any, tz: Any, decimals: int = 2) -> tuple[str, ...]:
     """A ``store.TradeRecord`` as the Trades screen's cells: id, time (desk-local month-day and
-    clock), contract, quantity, price, state, book, who, source; text typed by people or read
-    from files with its control characters escaped (``blotter.printable``)."""
+    clock), contract, quantity, price (to ``decimals``, more when it carries more), state, book,
+    who, source; text typed by people or read from files with its control characters escaped
+    (``blotter.printable``)."""
     return (
         str(t.trade_id),
         f"{t.trade_time.astimezone(tz):%m-%d %H:%M}",
         printable(t.contract),
         f"{t.quantity:+,d}",
-        f"{t.price:,.4f}".rstrip("0").rstrip("."),
+        price_text(t.price, decimals),
         t.state,
         printable(t.book),
         printable(t.who),

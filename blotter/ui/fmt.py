@@ -72,3 +72,43 @@ def fill_first_column(first: int, widths: Sequence[int], width: int) -> int:
             return first + max(0, width - used)
         used += w
     return first
+
+
+SCALES: tuple[tuple[str, float], ...] = (("", 1.0), ("k", 1e3), ("m", 1e6), ("bn", 1e9))
+"""Units a column of whole numbers may switch to, smallest first; the header names the unit."""
+
+CELL_CAP = 11
+"""Characters a whole-number cell may take before its column switches to a larger unit
+(``-12,345,678`` fits; ``-129,714,687`` shows as ``-129,715`` under a ``k`` header)."""
+
+
+def whole(value: float, factor: float = 1.0, signed: bool = True) -> str:
+    """``value / factor`` rounded to whole units, thousands grouped (signed when ``signed``,
+    ``0`` unsigned); ``MISSING`` when it is not a number. Never cut to a width."""
+    if value is None or not math.isfinite(value):
+        return MISSING
+    text = f"{value / factor:{'+' if signed else ''},.0f}"
+    return "0" if text in ("+0", "-0") else text
+
+
+def column_scale(
+    values: Sequence[float], cap: int = CELL_CAP, signed: bool = True
+) -> tuple[str, float]:
+    """The smallest unit of ``SCALES`` (name, factor) at which every value of a column is written
+    in whole units within ``cap`` characters; the largest when none is small enough."""
+    finite = [abs(v) for v in values if v is not None and math.isfinite(v)]
+    biggest = max(finite, default=0.0)
+    for name, factor in SCALES:
+        if len(whole(-biggest if signed else biggest, factor, signed)) <= cap:
+            return name, factor
+    return SCALES[-1]
+
+
+def scaled_header(header: str, unit: str) -> str:
+    """A column header with the unit its cells are in (``Δ $ k``); ``header`` at unit 1."""
+    return f"{header} {unit}" if unit else header
+
+
+def column_width(header: str, cells: Sequence[str], minimum: int = 1) -> int:
+    """The width that holds ``header`` and every cell whole."""
+    return max([minimum, len(header), *(len(c) for c in cells)])

@@ -36,6 +36,10 @@ class DeskHost(Protocol):
         """Gives the valuation time ("now", aware)."""
 
     @property
+    def book_in_view(self) -> str | None:
+        """The book the app shows (None: all books); the trade form defaults to it."""
+
+    @property
     def state(self) -> BookState | None:
         """The book as last loaded and valued; None until the first load."""
 

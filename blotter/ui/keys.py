@@ -46,6 +46,13 @@ KEYS: tuple[KeySpec, ...] = (
     ),
     KeySpec("book", "focus_book", "b,f3", "Move to the book pane"),
     KeySpec(
+        "book-switch",
+        "next_book",
+        "n",
+        "Show the next book: all books, then each book by name",
+        short="Book",
+    ),
+    KeySpec(
         "pane", "next_pane", "v,f7", "Show the next pane (Move, Grid, Reval)", short="Pane"
     ),
     KeySpec(
@@ -118,7 +125,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "scenario-sets",
         "scenario_sets",
-        "n,ctrl+underscore",
+        "z,ctrl+underscore",
         "Scenario sets: run a named set of moves as one table, worst marked",
     ),
     KeySpec("quit", "quit", "q,f10", "Quit", short="Quit"),
@@ -283,7 +290,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "sets-back",
         "back",
-        "q,n,f10",
+        "q,z,f10",
         "Scenario sets: back to the book",
         short="Back",
         where="sets",

@@ -46,7 +46,7 @@ def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) 
         "symbol": "QQZ", "kind": "stock", "currency": "USD", "multiplier": 100.0,
         "american": True, "cash_settled": False, "div_yield": 0.015, "beta": 1.3,
         "is_reference": False, "calendar": "NYSE", "time_zone": "America/New_York",
-        "cutoff_time": "16:00", "description": "test",
+        "cutoff_time": "16:00", "description": "test", "tick": 0.01,
     }
     assert rows[1]["american"] is False and rows[1]["cash_settled"] is True
     assert rows[1]["is_reference"] is True and rows[1]["cutoff_time"] == "16:15"

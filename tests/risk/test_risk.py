@@ -249,3 +249,25 @@ def test_arrays_are_read_only(mixed_book) -> None:
     v = value_book(mixed_book, make_market(), T0)
     with pytest.raises(ValueError):
         v.delta_shares[0] = 1.0
+
+
+def test_money_gamma_worked_by_hand_and_adds_across_names() -> None:
+    """Dollar gamma, the change in Δ $ for a 1% rise in spot, Γ × S² / 100 per unit (PRACTICE.md
+    §1, common practice), with Γ from QuantLib. Hull's bank (Ch. 19, from memory: Γ 0.066, short
+    100,000 calls at S = 49): 100,000 × 0.0655 × 49² / 100 ≈ 15,727 in currency, negative.
+    Two names of one currency add; their share gammas would not."""
+    hull = _hull_valuation(qty=-1000, mult=100)
+    assert hull.gamma_cash_1pct[0] == pytest.approx(-100_000 * 0.0655 * 49.0**2 / 100, rel=2e-3)
+    book = make_book(
+        [Row("STK", 10, 125.0, 60, call=False, mult=100), Row("IDX", -2, 4400.0, 30, mult=50)]
+    )
+    v = value_book(book, make_market(), T0)
+    stk = _ql_greeks(False, SPOTS["STK"], 125.0, 60, RATE, 0.02, 0.35)["gamma"]
+    idx = _ql_greeks(True, SPOTS["IDX"], 4400.0, 30, RATE, 0.015, 0.20)["gamma"]
+    by_hand = [
+        stk * 10 * 100 * SPOTS["STK"] ** 2 / 100,
+        idx * -2 * 50 * SPOTS["IDX"] ** 2 / 100,
+    ]
+    assert v.gamma_cash_1pct.tolist() == pytest.approx(by_hand, rel=1e-8)
+    assert total(v).gamma_cash_1pct == pytest.approx(sum(by_hand), rel=1e-8)
+    assert aggregate(v)[0].gamma_cash_1pct == pytest.approx(by_hand[1], rel=1e-8)

@@ -32,6 +32,7 @@ PROTECTED = (
     "import_file",
     "history",
     "book_zone",
+    "underlying_correction",
 )
 """Every append-only table of the schema (each has a no-delete trigger)."""
 
@@ -53,6 +54,7 @@ def history(tmp_path_factory: pytest.TempPathFactory) -> Path:
         close = s.commit_close(note="close")
         s.commit_close(note="correction", corrects=close)
         s.import_trades_csv(trade_csv(path.with_name("t.csv"), 3))
+        s.correct_underlying("TSTA", "tick is a nickel", {"tick": 0.05})
     path.chmod(0o440)
     return path
 
@@ -103,6 +105,7 @@ CASES: list[tuple[str, str, str, dict[str, Any]]] = [
     ("history seq", "history", "kind = 'trade'", {"row_id": 999}),
     ("history row", "history", "kind = 'trade'", {"seq": None}),
     ("book zone", "book_zone", "1", {"zone": "Asia/Tokyo"}),
+    ("underlying correction", "underlying_correction", "1", {"tick": 0.5}),
 ]
 
 
@@ -191,6 +194,7 @@ def test_the_store_still_writes_every_protected_table(history: Path, tmp_path: P
         s.log_spot("TSTB", 50.0)
         s.commit_close(note="a correction", corrects=s.todays_close()[1])  # one close a day
         s.import_trades_csv(trade_csv(tmp_path / "u.csv", 2, symbol="TSTB"))
+        s.correct_underlying("TSTB", "beta re-estimated", {"beta": 1.2})
         after = {t: len(_table(s.connection, t)) for t in PROTECTED}
         grown = [t for t in PROTECTED if t != "book_zone"]  # written once, with the book
         assert all(after[t] > before[t] for t in grown), (before, after)

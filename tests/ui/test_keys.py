@@ -69,7 +69,7 @@ async def test_every_binding_on_the_help_screen_exists(demo_db: Path) -> None:
             ("form", ("t", "a")),
             ("explain", ("l",)),
             ("list", ("w",)),
-            ("sets", ("n",)),
+            ("sets", ("z",)),
         ):
             for key in keys:
                 await pilot.press(key)

@@ -44,7 +44,7 @@ async def test_a_set_runs_as_one_table_with_the_worst_marked(demo_db: Path, tmp_
     app = make_app(demo_db, settings_from(tmp_path, SETS), clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        await pilot.press("n")
+        await pilot.press("z")
         await settle(app, pilot)
         screen = app.screen
         assert isinstance(screen, ScenarioSetsScreen)
@@ -82,7 +82,7 @@ async def test_a_bad_set_is_refused_in_words(demo_db: Path, tmp_path: Path) -> N
     app = make_app(demo_db, settings_from(tmp_path, bad), clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        await pilot.press("n")
+        await pilot.press("z")
         await settle(app, pilot)
         await pilot.press("enter")
         await settle(app, pilot)

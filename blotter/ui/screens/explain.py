@@ -12,7 +12,7 @@ from textual.binding import BindingType
 from textual.widgets import DataTable, Footer, Static
 from textual.worker import get_current_worker
 
-from blotter.desk import session
+from blotter.desk import books, session
 from blotter.ui import fmt
 from blotter.ui.host import DeskHost
 from blotter.ui.keys import app_bindings
@@ -74,7 +74,9 @@ class ExplainScreen(DeskScreen):
                 if not before:
                     raise ValueError("no close before the end: commit a close first")
                 start = before[max(0, len(before) - 1 - start_back)]
-                result = scenario.explain(st, start.id, "now" if end == "now" else end_id)
+                name = self.host.book_in_view
+                source = st if name is None else books.OneBook(st, name)
+                result = scenario.explain(source, start.id, "now" if end == "now" else end_id)
         except Exception as exc:  # noqa: BLE001 - shown to the user
             if not worker.is_cancelled:
                 self.post_message(ScreenFailed(f"✗ cannot explain: {exc}"))
@@ -95,44 +97,51 @@ class ExplainScreen(DeskScreen):
         per_ccy = list(getattr(result, "by_currency", ()) or ())
         several = len(per_ccy) > 1
         cols = [result.total, *(per_ccy if several else []), *result.by_underlying]
-        table.add_column("currency", key="label", width=13)
-        for i, row in enumerate(cols):
+        heads = []
+        for row in cols:
             head = str(row.label)
             if several and row is not result.total:
                 head = f"{row.label} {row.currency}" if row.underlying else f"Σ {row.currency}"
-            table.add_column(Text(head, justify="right"), key=f"c{i}", width=10)
-
-        def add(label: str, values: list[float]) -> None:
-            table.add_row(
-                label,
-                *[
-                    fmt.NOT_ADDITIVE.rjust(10)
-                    if several and r.currency is None
-                    else fmt.money(v, 10)
-                    for r, v in zip(cols, values, strict=True)
-                ],
-            )
+            heads.append(head)
 
         from blotter import scenario
 
-        for name in scenario.EXPLAIN_TERMS:
-            add(TERM_LABELS.get(name, name), [r.terms.get(name, 0.0) for r in cols])
-        add("= explained", [r.explained for r in cols])
-        add("unexplained", [r.unexplained for r in cols])
-        add("= held P&L", [r.actual for r in cols])
-        add("new trades", [r.new_trades for r in cols])
-        add("= total P&L", [r.total for r in cols])
+        lines: list[tuple[str, list[float]]] = [
+            (TERM_LABELS.get(name, name), [r.terms.get(name, 0.0) for r in cols])
+            for name in scenario.EXPLAIN_TERMS
+        ]
+        lines += [
+            ("= explained", [r.explained for r in cols]),
+            ("unexplained", [r.unexplained for r in cols]),
+            ("= held P&L", [r.actual for r in cols]),
+            ("new trades", [r.new_trades for r in cols]),
+            ("= total P&L", [r.total for r in cols]),
+        ]
+        texts = [
+            [
+                fmt.NOT_ADDITIVE if several and r.currency is None else fmt.whole(v)
+                for r, v in zip(cols, values, strict=True)
+            ]
+            for _, values in lines
+        ]
+        table.add_column("currency", key="label", width=13)
+        for i, head in enumerate(heads):
+            width = fmt.column_width(head, [row[i] for row in texts], 10)
+            table.add_column(Text(head, justify="right"), key=f"c{i}", width=width)
+        for (label, _), row in zip(lines, texts, strict=True):
+            table.add_row(label, *[Text(t, justify="right") for t in row])
+        book = self.host.book_in_view
         tz = self.host.tz
         frm = result.from_set
         to = result.to_set
-        start = f"close {frm.id} ({frm.marked_at.astimezone(tz):%Y-%m-%d %H:%M})"
+        start = f"close {frm.id} ({frm.marked_at.astimezone(tz):%m-%d %H:%M})"
         end = (
             "marks in force now"
             if to == "now"
-            else f"close {to.id} ({to.marked_at.astimezone(tz):%Y-%m-%d %H:%M})"
+            else f"close {to.id} ({to.marked_at.astimezone(tz):%m-%d %H:%M})"
         )
         self.query_one(".desk-title", Static).update(
-            Text(f"Explain: P&L from {start} to {end}", style="bold")
+            Text(f"Explain P&L ({books.book_words(book)}): {start} → {end}", style="bold")
         )
         left_out = session.unvalued_words(getattr(result, "unvalued", ()))
         notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])

@@ -18,10 +18,14 @@ from blotter.config import DESK_TZ_SOURCES
 from blotter.ui.keys import KEYS, app_bindings, key_label
 
 UNITS: tuple[tuple[str, str], ...] = (
-    ("Spot", "price of the underlying, in its currency"),
+    ("Spot", "price of the underlying, in its currency, to its tick (more if it carries more)"),
+    ("P&L day", "P&L since the last close (new trades from their trade price), per underlying"),
     ("Value", "quantity × multiplier × price (futures hedges: 0, they settle daily)"),
     ("Δ $", "delta × spot: currency exposure to the underlying"),
     ("Γ 1%", "change in Δ sh for a 1% rise in spot (Γ × S × 0.01)"),
+    ("Γ$ 1%", "change in Δ $ for a 1% rise in spot (Γ × S² × 0.01); adds across names"),
+    ("k m bn", "after a header: the column's numbers are in thousands, millions, billions"),
+    ("qty mark vol days", "a position's quantity, model value per unit, implied vol %, days left"),
     ("vega pt", "P&L for +1 vol point (0.01 of annualised vol, 30% → 31%)"),
     ("θ day", "P&L for one calendar day passing, nothing else moving"),
     ("Δ sh", "delta in shares (units) of the underlying"),

@@ -15,17 +15,19 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, ClassVar
 
 from rich.text import Text
-from textual import on, work
+from textual import events, on, work
 from textual.app import ComposeResult
 from textual.binding import BindingType
 from textual.containers import Horizontal, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import DataTable, Footer, Input, Label, Static
+from textual.widgets.data_table import ColumnKey
 from textual.worker import get_current_worker
 
 from blotter.desk import entry, trials
 from blotter.printable import printable
-from blotter.ui import data
+from blotter.ticks import price_text, tick_decimals
+from blotter.ui import data, fmt
 from blotter.ui.host import DeskHost
 from blotter.ui.keys import app_bindings
 from blotter.ui.messages import ScreenFailed, TradesRead, TradeWritten
@@ -129,6 +131,9 @@ class TradesScreen(DeskScreen):
         if not worker.is_cancelled:
             self.post_message(TradesRead(sheet))
 
+    def on_resize(self, event: events.Resize) -> None:
+        self.show()  # the contract column takes the width that the whole columns leave
+
     def on_trades_read(self, message: TradesRead) -> None:
         self.sheet = message.sheet
         self.show()
@@ -147,6 +152,7 @@ class TradesScreen(DeskScreen):
         cursor = self.cursor_key()
         table.clear()
         self.shown_ids = []
+        shown: list[tuple[tuple[str, ...], str]] = []
         for t in self.host.trials:
             c = t.contract
             cells: tuple[str, ...] = (
@@ -154,20 +160,22 @@ class TradesScreen(DeskScreen):
                 "",
                 c.label,
                 f"{t.quantity:+,d}",
-                f"{t.price:g}",
+                price_text(t.price, self._decimals(c.symbol)),
                 "TRIAL",
                 printable(t.book),
                 "",
                 "trial",
             )
             if data.matches(cells, query):
-                table.add_row(*self._cells(cells, "bold"), key=cells[0])
-                self.shown_ids.append(cells[0])
+                shown.append((cells, "bold"))
         for r in reversed(self.records):
-            cells = data.trade_text(r, tz)
+            cells = data.trade_text(r, tz, self._decimals(r.symbol))
             if data.matches(cells, query):
-                table.add_row(*self._cells(cells), key=cells[0])
-                self.shown_ids.append(cells[0])
+                shown.append((cells, ""))
+        self._fit_columns(table, [cells for cells, _ in shown])
+        for cells, style in shown:
+            table.add_row(*self._cells(cells, style), key=cells[0])
+            self.shown_ids.append(cells[0])
         n_live = sum(r.state == "live" for r in self.records)
         self.query_one(".desk-title", Static).update(
             Text(
@@ -179,6 +187,33 @@ class TradesScreen(DeskScreen):
         )
         if cursor in self.shown_ids:
             table.move_cursor(row=self.shown_ids.index(cursor), animate=False)
+
+    def _decimals(self, symbol: str) -> int:
+        """Decimals of a price of ``symbol``: its tick's (two when the sheet does not know it)."""
+        record = self.sheet.underlyings.get(symbol)
+        return tick_decimals(float(record["tick"])) if record and "tick" in record else 2
+
+    @staticmethod
+    def _fit_columns(table: DataTable[Any], rows: list[tuple[str, ...]]) -> None:
+        """Make every column as wide as its widest cell, so no quantity or price is cut, and
+        widen the contract column so the last column on screen is whole."""
+        widths = [
+            fmt.column_width(header, [r[i] for r in rows], least)
+            for i, (_key, header, least) in enumerate(COLUMNS)
+        ]
+        pad = 2 * table.cell_padding
+        bar = table.styles.scrollbar_size_vertical if table.show_vertical_scrollbar else 0
+        room = table.size.width - bar
+        lead = sum(w + pad for w in widths[:3])
+        if room > 0:
+            widths[2] += fmt.fill_first_column(lead, [w + pad for w in widths[3:]], room) - lead
+        changed = False
+        for (key, _header, _least), width in zip(COLUMNS, widths, strict=True):
+            column = table.columns[ColumnKey(key)]
+            if column.width != width:
+                column.width, changed = width, True
+        if changed:
+            table.refresh()
 
     @staticmethod
     def _cells(cells: tuple[str, ...], style: str = "") -> list[Text]:
@@ -340,7 +375,9 @@ class TradeForm(ModalScreen[FormResult | None]):
         t = self.trade
         if self.kind in ("trade", "trial"):
             books = self.sheet.books
-            self.query_one("#form-book", Input).value = printable(books[0]) if books else "main"
+            shown = self.host.book_in_view
+            default = shown if shown in books else (books[0] if books else "main")
+            self.query_one("#form-book", Input).value = printable(default)
             self.query_one("#form-book", Input).placeholder = printable(", ".join(books))
             self.query_one("#form-symbol", Input).placeholder = " ".join(self.sheet.symbols)
             self.query_one("#form-expiry", Input).placeholder = "2027-03-19 (blank: the underlying)"
@@ -348,7 +385,7 @@ class TradeForm(ModalScreen[FormResult | None]):
             self.query_one("#form-symbol", Input).focus()
         elif self.kind == "amend" and t is not None:
             self.query_one("#form-qty", Input).value = str(t.quantity)
-            self.query_one("#form-price", Input).value = f"{t.price:g}"
+            self.query_one("#form-price", Input).value = f"{t.price:.12g}"
             self.query_one("#form-qty", Input).focus()
         else:
             self.query_one("#form-reason", Input).focus()

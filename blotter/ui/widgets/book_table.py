@@ -8,6 +8,7 @@ cursor on the same key.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import ClassVar
 
 from rich.text import Text
@@ -17,25 +18,18 @@ from textual.coordinate import Coordinate
 from textual.widgets import DataTable
 
 from blotter import risk
+from blotter.ticks import price_text
 from blotter.ui import fmt
-from blotter.ui.data import BOOK_COLUMNS, MONEY_COLUMNS, SHARE_FIELDS, BookRow, BookTree
+from blotter.ui.data import (
+    MONEY_COLUMNS,
+    POSITION_COLUMNS,
+    SHARE_FIELDS,
+    TABLE_COLUMNS,
+    BookRow,
+    BookTree,
+)
 from blotter.ui.fmt import NOT_ADDITIVE
 from blotter.ui.keys import app_bindings
-
-COLUMN_WIDTHS = {
-    "spot": 8,
-    "delta_cash": 11,
-    "gamma_1pct": 8,
-    "vega_pt": 9,
-    "theta_day": 8,
-    "delta_shares": 10,
-    "value": 12,
-    "rho_pct": 8,
-    "vanna_pt": 8,
-    "volga_pt": 8,
-    "beta_delta_cash": 11,
-}
-"""Fixed widths in cells so in-place updates never reflow the table."""
 
 LABEL_WIDTH = 16
 """Width of the row-label column (tree glyphs + name)."""
@@ -44,25 +38,63 @@ LABEL_WIDTH = 16
 VEGA_HEADERS = {"pt": "vega pt", "vol": "vega 1.00"}
 """Vega column header per ``risk.VEGA_UNITS`` key."""
 
+HEADERS = dict(TABLE_COLUMNS)
+"""Each column's header at unit 1."""
 
-def _cell(
+
+@dataclass(frozen=True)
+class ColumnSpec:
+    """How one column is written: its header, the unit (``fmt.SCALES``) and width in cells."""
+
+    header: str
+    unit: str
+    factor: float
+    width: int
+
+
+def _text(
     column: str,
     value: float,
-    mixed: bool = False,
+    row: BookRow,
     vega_scale: float = 1.0,
-    mixed_currency: bool = False,
+    factor: float = 1.0,
 ) -> str:
-    width = COLUMN_WIDTHS[column]
-    if (mixed and column in SHARE_FIELDS) or (mixed_currency and column in MONEY_COLUMNS):
-        return NOT_ADDITIVE.rjust(width)
+    """A cell's text, unpadded and never cut: "—" where a sum does not add, a blank spot where
+    the row has none, a spot to its tick, anything else in whole units of ``factor``."""
+    if (row.mixed and column in SHARE_FIELDS) or (
+        row.mixed_currency and column in MONEY_COLUMNS
+    ):
+        return NOT_ADDITIVE
+    if column == "spot":
+        return price_text(value, row.decimals) if value == value else ""
+    if value != value and column in ("pnl_today", *POSITION_COLUMNS):
+        return ""  # worked out per underlying and in total, or on a position row, only
+    if column == "mark":
+        return f"{value:,.{row.decimals}f}"  # a model value: two decimals past the tick
+    if column == "vol":
+        return f"{100 * value:.2f}"
+    if column == "days":
+        return f"{value:,.1f}"
     if column == "vega_pt":
         value = value * vega_scale
-    if column == "spot":
-        return fmt.number(value, 2, width) if value == value else "".rjust(width)
+    return fmt.whole(value, factor)
 
-    if column == "delta_shares":
-        return fmt.number(value, 0, width, signed=True)
-    return fmt.money(value, width)
+
+def column_specs(rows: Sequence[BookRow], vega_unit: str = "pt") -> dict[str, ColumnSpec]:
+    """Each column's unit and width for ``rows``: whole numbers switch to k, m, bn when a value
+    would pass ``fmt.CELL_CAP`` characters, and every column is as wide as its widest cell."""
+    scale = risk.VEGA_UNITS[vega_unit]
+    out: dict[str, ColumnSpec] = {}
+    for col, header in TABLE_COLUMNS:
+        if col == "vega_pt":
+            header = VEGA_HEADERS[vega_unit]
+        values = [r.value(col) * (scale if col == "vega_pt" else 1.0) for r in rows]
+        fixed = col in ("spot", "mark", "vol", "days")
+        unit, factor = ("", 1.0) if fixed else fmt.column_scale(values)
+        texts = [_text(col, r.value(col), r, scale, factor) for r in rows]
+        head = fmt.scaled_header(header, unit)
+        out[col] = ColumnSpec(head, unit, factor, fmt.column_width(head, texts, 5))
+    return out
 
 
 class BookTable(DataTable[str | Text]):
@@ -82,30 +114,55 @@ class BookTable(DataTable[str | Text]):
         self._visible: list[BookRow] = []
         self.expandable_keys: set[str] = set()
         self.vega_unit = "pt"  # a key of risk.VEGA_UNITS
+        self.specs = column_specs([], self.vega_unit)
+        self._pane_width = 0
+        self.label_need = LABEL_WIDTH  # the longest label shown: no quantity in one is cut
 
     def _cells(self, row: BookRow) -> list[str]:
         scale = risk.VEGA_UNITS[self.vega_unit]
-        return [
-            _cell(col, row.values[i], row.mixed, scale, row.mixed_currency)
-            for i, (col, _) in enumerate(BOOK_COLUMNS)
-        ]
+        out = []
+        for col, _ in TABLE_COLUMNS:
+            spec = self.specs[col]
+            out.append(_text(col, row.value(col), row, scale, spec.factor).rjust(spec.width))
+        return out
 
     def set_vega_unit(self, unit: str) -> None:
         """Show vega per vol point (``"pt"``) or per 1.00 of vol (``"vol"``)."""
         self.vega_unit = unit
-        self.columns["vega_pt"].label = Text(VEGA_HEADERS[unit], justify="right")  # type: ignore[index]
         self._visible = []
         self.show()
 
     def on_mount(self) -> None:
         self.add_column(Text("underlying"), key="label", width=LABEL_WIDTH)
-        for key, header in BOOK_COLUMNS:
-            self.add_column(Text(header, justify="right"), key=key, width=COLUMN_WIDTHS[key])
+        for key, _ in TABLE_COLUMNS:
+            spec = self.specs[key]
+            self.add_column(Text(spec.header, justify="right"), key=key, width=spec.width)
+
+    def _apply_specs(self, specs: dict[str, ColumnSpec]) -> None:
+        """Give each column its header and width from ``specs`` (the rows are re-added after)."""
+        self.specs = specs
+        for key, _ in TABLE_COLUMNS:
+            column = self.columns.get(key)  # type: ignore[call-overload]
+            if column is not None:
+                column.label = Text(specs[key].header, justify="right")
+                column.width = specs[key].width
+        self._require_update_dimensions = True
+        if self._pane_width:
+            self.fit_label_column(self._pane_width)
 
     def on_resize(self, event: events.Resize) -> None:
         # Leave room for the vertical scrollbar whether or not it is showing yet: it appears
-        # when rows arrive, without a resize.
-        self.fit_label_column(event.size.width - self.styles.scrollbar_size_vertical)
+        # when rows arrive, without a resize; ``_refit`` gives the room back once laid out.
+        self._pane_width = event.size.width - self.styles.scrollbar_size_vertical
+        self.fit_label_column(self._pane_width)
+        self.call_after_refresh(self._refit)
+
+    def _refit(self) -> None:
+        """Fit the label column to the width the rows have now: the whole pane when no
+        vertical scrollbar shows, so no column's first characters show in its room."""
+        bar = self.styles.scrollbar_size_vertical if self.show_vertical_scrollbar else 0
+        if self.size.width:
+            self.fit_label_column(self.size.width - bar)
 
     def fit_label_column(self, width: int) -> None:
         """Widen the label column so the last column on screen is whole, not cut part-way.
@@ -114,8 +171,8 @@ class BookTable(DataTable[str | Text]):
         columns past the edge stay one scroll away.
         """
         pad = 2 * self.cell_padding
-        widths = [COLUMN_WIDTHS[key] + pad for key, _ in BOOK_COLUMNS]
-        target = fmt.fill_first_column(LABEL_WIDTH + pad, widths, width) - pad
+        widths = [self.specs[key].width + pad for key, _ in TABLE_COLUMNS]
+        target = fmt.fill_first_column(self.label_need + pad, widths, width) - pad
         label = self.columns.get("label")  # type: ignore[call-overload]
         if label is not None and label.width != target:
             label.width = target
@@ -129,10 +186,10 @@ class BookTable(DataTable[str | Text]):
             return list(rows)
         if self.sort_column == "label":
             return sorted(rows, key=lambda r: r.label, reverse=self.sort_reverse)
-        i = [k for k, _ in BOOK_COLUMNS].index(self.sort_column)
+        column = self.sort_column
 
         def value(r: BookRow) -> float:
-            v = r.values[i]
+            v = r.value(column)
             return v if v == v else float("-inf")
 
         return sorted(rows, key=value, reverse=self.sort_reverse)
@@ -182,18 +239,27 @@ class BookTable(DataTable[str | Text]):
         if self.source is None:
             return
         rows = self._layout()
+        specs = column_specs(rows, self.vega_unit)
+        need = max([LABEL_WIDTH, *(len(self._label(r).plain) for r in rows)])
+        if need != self.label_need:
+            self.label_need = need
+            self.specs = {}  # re-laid out below, the label column refitted
+        if specs != self.specs:
+            self._apply_specs(specs)
+            self._visible = []
         if [r.key for r in rows] == [r.key for r in self._visible] and self.row_count == len(rows):
             for old, new in zip(self._visible, rows, strict=True):
                 if (
                     old.values != new.values
+                    or old.pnl_today != new.pnl_today
                     or old.label != new.label
                     or old.alert != new.alert
                     or old.mixed != new.mixed
                     or old.mixed_currency != new.mixed_currency
                 ):
                     cells = self._cells(new)
-                    for i, (col, _) in enumerate(BOOK_COLUMNS):
-                        if old.values[i] != new.values[i] or old.mixed != new.mixed:
+                    for i, (col, _) in enumerate(TABLE_COLUMNS):
+                        if old.value(col) != new.value(col) or old.mixed != new.mixed:
                             self.update_cell(new.key, col, cells[i], update_width=False)
                     self.update_cell(new.key, "label", self._label(new), update_width=False)
             self._visible = rows
@@ -208,6 +274,7 @@ class BookTable(DataTable[str | Text]):
                 key=row.key,
             )
         self._visible = rows
+        self.call_after_refresh(self._refit)
         # The total rows (book, live-only under trials, each currency's) stay in view.
         self.fixed_rows = next((k for k, r in enumerate(rows) if r.level > 0), len(rows))
         self.expandable_keys = {r.key for r in rows if r.expandable}
@@ -266,7 +333,7 @@ class BookTable(DataTable[str | Text]):
     def sort_by_cursor(self) -> tuple[str | None, bool]:
         """Sort by the cursor's column; the same column again reverses, a third time restores."""
         col_index = self.cursor_coordinate.column
-        column = "label" if col_index == 0 else BOOK_COLUMNS[col_index - 1][0]
+        column = "label" if col_index == 0 else TABLE_COLUMNS[col_index - 1][0]
         if self.sort_column != column:
             self.sort_column, self.sort_reverse = column, column != "label"
         elif self.sort_reverse == (column != "label"):

@@ -13,6 +13,7 @@ import numpy as np
 from rich.console import Group
 from rich.table import Table
 from rich.text import Text
+from textual import events
 from textual.app import ComposeResult
 from textual.containers import VerticalScroll
 from textual.widgets import Static
@@ -61,6 +62,18 @@ class GridPane(VerticalScroll):
         self.days = 0.0
         self.partial = False  # some positions were left out for want of a mark
         self.table: Table | None = None  # the first ladder's grid
+        self.unit = ""  # the cells' unit of fmt.SCALES, so no number is cut to fit the pane
+
+    def on_resize(self, event: events.Resize) -> None:
+        self.repaint()
+
+    def _cell_cap(self, n_columns: int) -> int:
+        """Characters a cell may take so that every vol column fits the pane's width."""
+        width = self.size.width - 2  # less the vertical scrollbar's room
+        if width <= 0 or n_columns <= 0:
+            return fmt.CELL_CAP
+        first = len("spot \\ vol bn") + 1
+        return max(5, (width - first) // n_columns - 2)  # a space apart and the worst mark
 
     def compose(self) -> ComposeResult:
         yield Static("waiting for the book…", id="grid-cells")
@@ -92,18 +105,21 @@ class GridPane(VerticalScroll):
         self.border_title = f"Grid: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
             f" ─ {WORST} worst" if worst_cell(ladder) else ""
         )
+        cells = [float(x) for one in self.ladders for x in np.ravel(getattr(one, self.grid))]
+        self.unit, factor = fmt.column_scale(cells, self._cell_cap(len(list(ladder.vol_pts))))
         parts: list[Text | Table] = []
         for k, one in enumerate(self.ladders):
             if several:
                 parts.append(Text(("\n" if k else "") + str(one.currency), style="bold"))
-            parts.append(self._table(one))
+            parts.append(self._table(one, factor))
         self.table = next(p for p in parts if isinstance(p, Table))
         self.query_one("#grid-cells", Static).update(Group(*parts))
         legend = f"{WORST} worst cell of the full P&L. " if worst_cell(ladder) else ""
+        scale = {"k": " thousands", "m": " millions", "bn": " billions"}.get(self.unit, "")
         money = (
-            "P&L in each currency, never added across them"
+            f"P&L in{scale} of each currency, never added across them"
             if several
-            else f"P&L in {ladder.currency or 'the book currency'}"
+            else f"P&L in{scale} {ladder.currency or 'of the book currency'}"
         )
         self.query_one("#grid-rule", Static).update(
             Text(
@@ -112,19 +128,20 @@ class GridPane(VerticalScroll):
             )
         )
 
-    def _table(self, ladder: Any) -> Table:
-        """One ladder's grid, its worst cell marked."""
+    def _table(self, ladder: Any, factor: float = 1.0) -> Table:
+        """One ladder's grid in whole units of ``factor``, its worst cell marked."""
         cells = np.asarray(getattr(ladder, self.grid))
         vol_pts = list(ladder.vol_pts)
         worst = worst_cell(ladder)
         table = Table(box=None, pad_edge=False, padding=(0, 1))
-        table.add_column("spot \\ vol", justify="right", no_wrap=True)
+        head = "spot \\ vol" + (f" {self.unit}" if self.unit else "")
+        table.add_column(head, justify="right", no_wrap=True)
         for v in vol_pts:
             table.add_column(f"{v:+g} pt", justify="right", no_wrap=True)
         for i, s in enumerate(list(ladder.spot_pcts)):
             row: list[Text | str] = [f"{s:+g}%"]
             for j in range(len(vol_pts)):
-                text = Text(fmt.money(float(cells[i, j])))
+                text = Text(fmt.whole(float(cells[i, j]), factor))
                 if worst == (i, j):
                     text = Text(WORST) + text
                     text.stylize("reverse")

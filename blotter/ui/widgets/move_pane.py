@@ -45,12 +45,21 @@ COLUMNS = ("label", "full", "estimate", "error", "error_pct") + tuple(k for k, _
 
 
 VALUE_WIDTHS = (MONEY_WIDTH, MONEY_WIDTH, MONEY_WIDTH + 1, PCT_WIDTH) + (TERM_WIDTH,) * len(TERMS)
-"""Widths of the columns after the label, left to right (the error cell holds the flag too)."""
+"""Least widths of the columns after the label, left to right (the error cell holds the flag
+too); a column grows to its widest cell plus one space, so numbers never run together."""
 
 
-def fit_label_width(width: int) -> int:
+def fit_label_width(width: int, widths: tuple[int, ...] = VALUE_WIDTHS) -> int:
     """The label column's width that makes the last column shown in ``width`` whole."""
-    return fmt.fill_first_column(LABEL_WIDTH, VALUE_WIDTHS, width)
+    return fmt.fill_first_column(LABEL_WIDTH, widths, width)
+
+
+def content_widths(cells: list[dict[str, str]], headers: dict[str, str]) -> tuple[int, ...]:
+    """Each value column's width: its least width, or its widest cell or header and a space."""
+    return tuple(
+        max(least, *(len(c[col]) + 1 for c in cells), len(headers[col]) + 1)
+        for col, least in zip(COLUMNS[1:], VALUE_WIDTHS, strict=True)
+    )
 
 
 def error_flagged(full: float, error: float, alerts: Alerts) -> bool:
@@ -74,6 +83,8 @@ class MovePane(Vertical):
         self.cells: dict[tuple[str, str], str] = {}  # (row key, column) -> text shown
         self.row_keys: list[str] = []
         self.label_width = LABEL_WIDTH
+        self.widths = VALUE_WIDTHS
+        self._pane_width = 0
         self.border_title = "Move: type a move in the bar, e.g. spot -3% vol +2 days 1"
 
     def compose(self) -> ComposeResult:
@@ -85,17 +96,27 @@ class MovePane(Vertical):
         self.query_one("#move-expiring", Static).display = False
 
     def on_resize(self, event: events.Resize) -> None:
-        width = fit_label_width(event.size.width - 2)  # less the vertical scrollbar's room
+        self._pane_width = event.size.width - 2  # less the vertical scrollbar's room
+        width = fit_label_width(self._pane_width, self.widths)
         if width != self.label_width:
             self.label_width = width
             self.repaint()
 
-    def _header(self) -> Text:
+    def _headers(self) -> dict[str, str]:
         n = self.order
-        head = (
-            f"{'underlying':<{self.label_width}}{'full':>{MONEY_WIDTH}}{f'est {n}':>{MONEY_WIDTH}}"
-            f"{f'error {n}':>{MONEY_WIDTH + 1}}{'err %':>{PCT_WIDTH}}"
-            + "".join(f"{h:>{TERM_WIDTH}}" for _, h in TERMS)
+        return {
+            "label": "underlying",
+            "full": "full",
+            "estimate": f"est {n}",
+            "error": f"error {n} ",
+            "error_pct": "err %",
+            **dict(TERMS),
+        }
+
+    def _header(self) -> Text:
+        heads = self._headers()
+        head = f"{heads['label']:<{self.label_width}}" + "".join(
+            f"{heads[col]:>{w}}" for col, w in zip(COLUMNS[1:], self.widths, strict=True)
         )
         return Text(head, style="bold")
 
@@ -109,7 +130,9 @@ class MovePane(Vertical):
             return False
         return error_flagged(row.full, getattr(row, f"error_{self.order}"), self.alerts)
 
-    def _row(self, key: str, row: Any) -> Text:
+    def _values(self, key: str, row: Any) -> tuple[dict[str, str], bool]:
+        """The row's cells, unpadded (the error's with its flag or a space), and whether its
+        error is flagged."""
         n = self.order
         est = getattr(row, f"estimate_{n}")
         err = getattr(row, f"error_{n}")
@@ -124,18 +147,26 @@ class MovePane(Vertical):
             label = f"{row.label} {row.currency}"
         no_sum = several and getattr(row, "currency", None) is None
 
-        def money(x: float, width: int) -> str:
-            return NOT_ADDITIVE.rjust(width) if no_sum else fmt.money(x, width)
+        def money(x: float) -> str:
+            return NOT_ADDITIVE if no_sum else fmt.whole(x)
 
         values = {
-            "label": label[: self.label_width].ljust(self.label_width),
-            "full": money(row.full, MONEY_WIDTH),
-            "estimate": money(est, MONEY_WIDTH),
-            "error": money(err, MONEY_WIDTH) + (FLAG if flagged else " "),
-            "error_pct": NOT_ADDITIVE.rjust(PCT_WIDTH) if no_sum else fmt.pct(err_pct, PCT_WIDTH),
+            "label": label,
+            "full": money(row.full),
+            "estimate": money(est),
+            "error": money(err) + (FLAG if flagged else " "),
+            "error_pct": NOT_ADDITIVE if no_sum else fmt.pct(err_pct),
         }
         for term, _ in TERMS:
-            values[term] = money(row.terms.get(term, float("nan")), TERM_WIDTH)
+            values[term] = money(row.terms.get(term, float("nan")))
+        return values, flagged
+
+    def _row(self, key: str, raw: dict[str, str], flagged: bool) -> Text:
+        """One line of the grid from its cells ``raw``, padded to the columns' widths."""
+        n = self.order
+        values = {"label": raw["label"][: self.label_width].ljust(self.label_width)}
+        for col, w in zip(COLUMNS[1:], self.widths, strict=True):
+            values[col] = raw[col].rjust(w)
         line = Text(style="bold" if key == "total" else "")
         for column in COLUMNS:
             self.cells[(key, column)] = values[column]
@@ -166,13 +197,20 @@ class MovePane(Vertical):
             + [(f"u|{r.label}", r) for r in result.by_underlying]
         )
         self.cells = {}
-        same_shape = self.row_keys == [k for k, _ in rows]
+        raw = [self._values(k, r) for k, r in rows]
+        widths = content_widths([v for v, _ in raw], self._headers())
+        same_shape = self.row_keys == [k for k, _ in rows] and widths == self.widths
+        if widths != self.widths:
+            self.widths = widths
+            if self._pane_width:
+                self.label_width = fit_label_width(self._pane_width, widths)
         self.row_keys = [k for k, _ in rows]
-        grid = Text("\n").join([self._header()] + [self._row(k, r) for k, r in rows])
+        lines = [self._row(k, v, f) for (k, _), (v, f) in zip(rows, raw, strict=True)]
+        grid = Text("\n").join([self._header(), *lines])
         grid.no_wrap = True
         # Same rows, fixed-width columns: the size is unchanged, so skip the layout pass.
         self.query_one("#move-grid", Static).update(grid, layout=not same_shape)
-        flagged = sum(self._flagged(r) for _, r in rows)
+        flagged = sum(f for _, f in raw)
         order = "1st" if self.order == 1 else "2nd"
         title = (
             f"Move: {self._summary} ─ {order}-order estimate ─ {FLAG} |error| > "
