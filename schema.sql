@@ -416,6 +416,26 @@ CREATE TRIGGER book_zone_no_replace BEFORE INSERT ON book_zone
 WHEN EXISTS (SELECT 1 FROM book_zone)
 BEGIN SELECT RAISE(ABORT, 'the book''s desk zone is never replaced'); END;
 
+-- @version 7 ------------------------------------------------------------------------------------
+
+-- When each mark point was observed: the instant its value was marked. A point logged, imported
+-- or given in a set is observed when its set is marked; a close copies each point in force with
+-- the time that point was last marked, so a close never re-dates a carried mark and staleness is
+-- read per point. Points written before this section take their own set's time: for an old
+-- close that is the close's time, the only time it kept of its points.
+ALTER TABLE mark ADD COLUMN observed_at TEXT CHECK (observed_at IS NULL OR (
+    observed_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+    AND datetime(substr(observed_at, 1, 19), '+0 days') IS replace(substr(observed_at, 1, 19), 'T', ' ')));
+DROP TRIGGER mark_no_update;
+UPDATE mark SET observed_at = (
+    SELECT s.marked_at FROM mark_set s WHERE s.mark_set_id = mark.mark_set_id);
+CREATE TRIGGER mark_no_update BEFORE UPDATE ON mark
+BEGIN SELECT RAISE(ABORT, 'marks are never changed: log a new mark'); END;
+
+CREATE TRIGGER mark_observed BEFORE INSERT ON mark
+WHEN NEW.observed_at IS NULL
+BEGIN SELECT RAISE(ABORT, 'a mark names when it was observed'); END;
+
 -- @version 8 ------------------------------------------------------------------------------------
 
 -- A correction of an underlying's reference data: the underlying row is never changed, so a
@@ -445,3 +465,29 @@ BEGIN SELECT RAISE(ABORT, 'underlying corrections are never deleted: record a ne
 CREATE TRIGGER underlying_correction_no_replace BEFORE INSERT ON underlying_correction
 WHEN EXISTS (SELECT 1 FROM underlying_correction WHERE correction_id = NEW.correction_id)
 BEGIN SELECT RAISE(ABORT, 'underlying corrections are never replaced: record a new one'); END;
+
+-- @version 9 ------------------------------------------------------------------------------------
+
+-- The book's base currency, which totals are converted to at the marked FX spots. Append-only:
+-- a change is a new row, and the row with the highest id is in force. The first row is written
+-- with the book (or by this upgrade, which gives an older book USD) and carries no time or who;
+-- base_currency_default() is the store's (blotter/store/db.py): USD, or the currency
+-- `blotter create --base-currency` names.
+CREATE TABLE base_currency (
+    base_id  INTEGER PRIMARY KEY,
+    currency TEXT    NOT NULL CHECK (length(currency) = 3 AND currency GLOB '[A-Z][A-Z][A-Z]'),
+    set_at   TEXT    CHECK (
+        set_at GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]T[0-9][0-9]:[0-9][0-9]:[0-9][0-9].[0-9][0-9][0-9][0-9][0-9][0-9]Z'
+        AND datetime(substr(set_at, 1, 19), '+0 days') IS replace(substr(set_at, 1, 19), 'T', ' ')),
+    who      TEXT    CHECK (length(who) > 0),
+    CHECK ((set_at IS NULL) = (who IS NULL)),
+    CHECK ((base_id = 1) = (set_at IS NULL))
+) STRICT;
+INSERT INTO base_currency (base_id, currency) VALUES (1, base_currency_default());
+CREATE TRIGGER base_currency_no_update BEFORE UPDATE ON base_currency
+BEGIN SELECT RAISE(ABORT, 'the base currency is never changed in place: record a new one'); END;
+CREATE TRIGGER base_currency_no_delete BEFORE DELETE ON base_currency
+BEGIN SELECT RAISE(ABORT, 'base currency rows are never deleted: record a new one'); END;
+CREATE TRIGGER base_currency_no_replace BEFORE INSERT ON base_currency
+WHEN EXISTS (SELECT 1 FROM base_currency WHERE base_id = NEW.base_id)
+BEGIN SELECT RAISE(ABORT, 'base currency rows are never replaced: record a new one'); END;

@@ -59,6 +59,8 @@ BINDING_IDS: tuple[str, ...] = (
     "sets-run",
     "sets-back",
     "help-close",
+    "confirm-yes",
+    "confirm-no",
 )
 """Every binding id of the app, in the order ``blotter.ui.keys.KEYS`` declares them."""
 

@@ -22,7 +22,8 @@ IMPORTS = "blotter.store.imports"
 """CSV imports: each refused file (warning) and each file imported (info)."""
 
 FEED = "blotter.feed"
-"""For a live market data feed (none yet): its connection losses and rejected prices."""
+"""``blotter feed``: each bad line (warning, with its number), each write refused by the book
+(error), and the feed's end with its counts (info)."""
 
 LINE_FORMAT = "%(asctime)s.%(msecs)03dZ %(levelname)s %(name)s: %(message)s"
 """One line per record: UTC time to the millisecond, level, logger, message."""

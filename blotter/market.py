@@ -157,8 +157,8 @@ class RateCurve:
 class Market:
     """The marks in force (or one recalled mark set), keyed by underlying symbol or currency.
 
-    ``marks_as_of`` is the UTC instant of the newest mark used; ``mark_set_id`` the store's set id
-    (None for a market assembled from the latest mark of each kind across sets).
+    ``marks_as_of`` is the UTC instant of the newest mark set used; ``mark_set_id`` the store's
+    set id (None for a market assembled from the latest mark of each kind across sets).
     """
 
     version: int
@@ -171,6 +171,9 @@ class Market:
     )  # overrides of Underlyings.div_yields
     mark_set_id: int | None = None
     mark_kind: str = "intraday"  # "close" or "intraday"
+    # when each mark point used was observed (UTC datetime64[us], one per point), so how old
+    # the marks are is read point by point
+    observed_at: np.ndarray = field(default_factory=lambda: np.zeros(0, "datetime64[us]"))
 
     def spot(self, symbol: str) -> float:
         """Spot (or futures price) of ``symbol``; KeyError naming it when there is no mark."""

@@ -23,6 +23,7 @@ The base valuation is computed once per (book, market, time) and reused by every
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from datetime import date
@@ -35,7 +36,7 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import engine
 from blotter.arrays import read_only
-from blotter.book import Book
+from blotter.book import Book, Underlyings
 from blotter.engine.american import DOUBLE_BOUNDARY, NOT_CONVERGED
 from blotter.market import Market
 
@@ -98,6 +99,8 @@ MARK_COMMANDS = {
     "spot": "blotter mark spot {name} PRICE",
     "vol": "blotter mark vol {name} YYYY-MM-DD VOL",
     "rate": "blotter mark rate {name} DAYS RATE",
+    "fx": "blotter underlying add {name} --kind fx --currency {quote}, "
+    "then blotter mark spot {name} PRICE",
 }
 """The command that logs each kind of mark, by ``MissingMark.kind``."""
 
@@ -105,7 +108,8 @@ MARK_COMMANDS = {
 @dataclass(frozen=True)
 class MissingMark:
     """A mark a position needs and the market lacks: ``kind`` spot, vol or rate, of ``name`` (the
-    underlying's symbol, or the currency for a rate)."""
+    underlying's symbol, or the currency for a rate); ``fx`` is the spot of an FX pair the book
+    does not hold yet (``name`` the pair, base leg then quote leg)."""
 
     kind: str
     name: str
@@ -113,12 +117,14 @@ class MissingMark:
     @property
     def command(self) -> str:
         """The command that logs this mark, e.g. ``blotter mark spot XYZ PRICE``."""
-        return MARK_COMMANDS[self.kind].format(name=self.name)
+        return MARK_COMMANDS[self.kind].format(name=self.name, quote=self.name[3:])
 
     def words(self) -> str:
         """The missing mark for people: ``no spot mark for XYZ``, ``no USD rate curve``."""
         if self.kind == "rate":
             return f"no {self.name} rate curve"
+        if self.kind == "fx":
+            return f"no spot mark for {self.name} (no such fx underlying yet)"
         return f"no {'spot mark' if self.kind == 'spot' else 'vol surface'} for {self.name}"
 
 
@@ -833,3 +839,161 @@ def beta_delta_index_units(valuation: BookValuation) -> float | None:
     if ref in und.symbols and set(valuation.currencies) - {und.currencies[und.index_of(ref)]}:
         return None
     return float(np.sum(valuation.beta_delta_cash)) / s_idx
+
+
+FX_PCT = 1.0
+"""The rise of a currency against the base that ``fx_delta`` is per, percent."""
+
+
+@dataclass(frozen=True)
+class FxRates:
+    """Base-currency units per one unit of each currency, read off the marked FX spots.
+
+    ``rates`` holds the currencies that convert (the base itself at 1.0); ``missing`` the others,
+    each with the pair spot that would convert it.
+    """
+
+    base: str
+    rates: dict[str, float]
+    missing: dict[str, MissingMark]
+
+    def rate(self, currency: str) -> float:
+        """Base per one unit of ``currency``; NaN when its pair has no spot mark."""
+        return self.rates.get(currency, float("nan"))
+
+    def missing_marks(self, currencies: Sequence[str] | None = None) -> tuple[MissingMark, ...]:
+        """The missing pair spots (of ``currencies`` only, when given), one per pair."""
+        keep = self.missing if currencies is None else {
+            c: m for c, m in self.missing.items() if c in currencies
+        }
+        return tuple(dict.fromkeys(keep.values()))
+
+
+def fx_pair_legs(symbol: str, kind: str, currency: str) -> tuple[str, str] | None:
+    """(base leg, quote leg) of an fx underlying whose symbol is two ISO codes with the quote leg
+    its currency (``EURUSD`` in USD); None for any other underlying."""
+    if kind != "fx" or len(symbol) != 6 or not symbol.isascii() or not symbol.isupper():
+        return None
+    if not symbol.isalpha() or symbol[3:] != currency:
+        return None
+    return symbol[:3], symbol[3:]
+
+
+def fx_rates(
+    underlyings: Underlyings, market: Market, base: str, currencies: Sequence[str]
+) -> FxRates:
+    """The rate of each of ``currencies`` to ``base`` on ``market``.
+
+    A currency C converts by the spot of the fx pair CB (base per C: multiply) or BC (C per base:
+    divide); a pair counts only as an underlying of kind fx whose quote leg is its currency. When
+    neither is marked, the missing mark names the pair the book holds (CB first), else CB.
+    """
+    pairs = {
+        (legs[0], legs[1]): sym
+        for sym, kind, ccy in zip(
+            underlyings.symbols, underlyings.kinds, underlyings.currencies, strict=True
+        )
+        if (legs := fx_pair_legs(sym, kind, ccy)) is not None
+    }
+    rates: dict[str, float] = {base: 1.0}
+    missing: dict[str, MissingMark] = {}
+    for c in dict.fromkeys(currencies):
+        if c == base:
+            continue
+        direct, inverse = pairs.get((c, base)), pairs.get((base, c))
+        if direct is not None and direct in market.spots:
+            rates[c] = float(market.spots[direct])
+        elif inverse is not None and inverse in market.spots:
+            rates[c] = 1.0 / float(market.spots[inverse])
+        elif direct is not None or inverse is not None:
+            missing[c] = MissingMark("spot", str(direct or inverse))
+        else:
+            missing[c] = MissingMark("fx", f"{c}{base}")
+    return FxRates(base, rates, missing)
+
+
+def valuation_fx_rates(valuation: BookValuation, base: str) -> FxRates:
+    """``fx_rates`` of the valuation's currencies on its own market (a pair's first leg needs no
+    rate: its FX delta is in the pair's own currency)."""
+    return fx_rates(valuation.book.underlyings, valuation.market, base, valuation.currencies)
+
+
+def base_total(valuation: BookValuation, fx: FxRates, label: str = "total") -> ExposureRow:
+    """The whole book's money exposures in the base currency ``fx.base``: each currency's total
+    times its rate (``currency_totals``), summed; NaN when a currency lacks its rate, so a total
+    is never wrong for want of a mark. Share-count fields are NaN (they never add across names)."""
+    values = dict.fromkeys(EXPOSURE_FIELDS, float("nan"))
+    per_ccy = currency_totals(valuation)
+    for name in MONEY_FIELDS:
+        values[name] = math.fsum(
+            fx.rate(str(r.currency)) * getattr(r, name) for r in per_ccy
+        )
+    return _exposure_row(label, label, len(valuation), values, currencies=(fx.base,))
+
+
+@dataclass(frozen=True)
+class FxDelta:
+    """Base-currency P&L for a ``FX_PCT`` rise of each foreign currency against the base.
+
+    ``by_currency`` is in base-currency units, NaN where a rate it needs is missing (``missing``
+    names the pair spots); ``unread`` lists fx underlyings whose legs cannot be read off their
+    symbol, which leave every entry NaN.
+    """
+
+    base: str
+    by_currency: dict[str, float]
+    missing: tuple[MissingMark, ...]
+    unread: tuple[str, ...] = ()
+
+
+def _fx_pair_deltas(valuation: BookValuation) -> list[tuple[float, tuple[str, str]]]:
+    """(Δ $ in the pair's quote currency, (base leg, quote leg)) of each fx underlying the
+    valued positions hold whose legs read off its symbol."""
+    und = valuation.book.underlyings
+    cash = np.bincount(
+        valuation.book.underlying_idx, weights=valuation.delta_cash, minlength=len(und)
+    )
+    held = np.bincount(valuation.book.underlying_idx, minlength=len(und)) > 0
+    out = []
+    for j in np.flatnonzero(held).tolist():
+        legs = fx_pair_legs(und.symbols[j], und.kinds[j], und.currencies[j])
+        if legs is not None:
+            out.append((float(cash[j]), legs))
+    return out
+
+
+def fx_delta(valuation: BookValuation, fx: FxRates) -> FxDelta:
+    """The book's FX delta in the base ``fx.base``, per ``FX_PCT`` rise of each currency F
+    against the base (every other currency held fixed against the base).
+
+    With X_C the base per C: translation adds 0.01 × V_C × X_C to C for the value V_C of the
+    positions in C; a position on the pair F/Q (priced in Q, spot Q per F) adds
+    +0.01 × Δ $ × X_Q to F (its spot rises 1%) and −0.01 × Δ $ × X_Q to Q (it falls 1%). The
+    base's own entry is dropped: the base does not move against itself. Prices of stocks,
+    indices and futures are held fixed in their own currency.
+    """
+    und = valuation.book.underlyings
+    unread = tuple(
+        sym
+        for j, (sym, kind, ccy) in enumerate(
+            zip(und.symbols, und.kinds, und.currencies, strict=True)
+        )
+        if kind == "fx"
+        and fx_pair_legs(sym, kind, ccy) is None
+        and bool((valuation.book.underlying_idx == j).any())
+    )
+    step = FX_PCT / 100.0
+    out: dict[str, float] = {}
+    for r in currency_totals(valuation):
+        c = str(r.currency)
+        out[c] = out.get(c, 0.0) + step * r.value * fx.rate(c)
+    needs = set(out)
+    for cash, (f, q) in _fx_pair_deltas(valuation):
+        move = step * cash * fx.rate(q)
+        out[f] = out.get(f, 0.0) + move
+        out[q] = out.get(q, 0.0) - move
+        needs.add(q)
+    out.pop(fx.base, None)
+    if unread:
+        out = dict.fromkeys(out, float("nan"))
+    return FxDelta(fx.base, out, fx.missing_marks(sorted(needs)), unread)

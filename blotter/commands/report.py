@@ -2,14 +2,16 @@
 
 Each command opens the book read-only, values it once at the valuation time (``--at``, default
 now) and prints an aligned table, or ``--json`` / ``--csv``. Money is in each underlying's
-currency and never added across currencies (totals are per currency), unrounded in JSON and CSV,
-rounded in tables. Positions a missing mark leaves out are listed with the command that logs it.
+currency and never added across currencies without an FX spot (totals are per currency; ``risk``
+adds one in the base currency), unrounded in JSON and CSV, rounded in tables. Positions a
+missing mark leaves out are listed with the command that logs it.
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -64,6 +66,11 @@ def _money(x: float, places: int = 0) -> str:
     if abs(x) < 0.5 * 10**-places:
         x = 0.0
     return f"{x:,.{places}f}"
+
+
+def _finite(x: float | None) -> float | None:
+    """``x``, or None when it is NaN or missing (an empty CSV cell)."""
+    return x if x is not None and math.isfinite(x) else None
 
 
 def _days(n: float) -> str:
@@ -333,7 +340,7 @@ def _money_note(currencies: Sequence[str]) -> str:
         return "money in each underlying's currency"
     return (
         f"money in each underlying's currency ({', '.join(currencies)}): totals per currency, "
-        "never summed across them"
+        "never summed across them unconverted"
     )
 
 
@@ -441,6 +448,74 @@ def _risk_groups(v: BookValuation, by: str) -> list[tuple[str, str, ExposureRow,
     return out
 
 
+@dataclass(frozen=True)
+class _InBase:
+    """The base-currency side of ``risk``: the book's total and FX delta in the base currency,
+    and whether the book has anything outside the base (else the rows add nothing)."""
+
+    fx: Any
+    total: Any
+    delta: Any
+    shown: bool
+
+    def missing(self) -> tuple[Any, ...]:
+        """The FX spots the total or the FX delta lack, one per pair."""
+        return tuple(dict.fromkeys([*self.fx.missing_marks(), *self.delta.missing]))
+
+    def json(self) -> dict[str, Any]:
+        """``base_currency``, ``total_in_base`` and ``fx_delta`` of ``risk --json``."""
+        from blotter.risk import FX_PCT
+
+        def marks(found: Sequence[Any]) -> list[dict[str, str]]:
+            return [{"mark": m.kind, "of": m.name, "command": m.command} for m in found]
+
+        base = self.fx.base
+        return {
+            "base_currency": base,
+            "total_in_base": _row_dict(self.total, True)
+            | {
+                "currency": base,
+                "fx_rates": self.fx.rates,
+                "missing": marks(self.fx.missing_marks()),
+            },
+            "fx_delta": {
+                "currency": base,
+                "per_pct": FX_PCT,
+                "by_currency": self.delta.by_currency,
+                "missing": marks(self.delta.missing),
+                "unread_pairs": list(self.delta.unread),
+            },
+        }
+
+    def words(self) -> list[str]:
+        """The FX delta line and what the base-currency figures lack, for the table."""
+        base = self.fx.base
+        entries = ", ".join(
+            f"{c} {_money(x)}" for c, x in self.delta.by_currency.items()
+        ) or "none (nothing outside " + base + ")"
+        out = [f"FX delta ({base} per +1% of each currency against {base}): {entries}"]
+        out += [
+            f"{m.words()}: the {base} figures that need it show —; log it with: {m.command}"
+            for m in self.missing()
+        ]
+        out += [
+            f"fx underlying {sym}: its symbol is not the two legs' ISO codes with the quote its "
+            "currency (EURUSD in USD), so the FX delta shows —"
+            for sym in self.delta.unread
+        ]
+        return out
+
+
+def _in_base(store: Any, v: BookValuation) -> _InBase:
+    """The base-currency total and FX delta of ``v``, in the base currency ``store`` holds."""
+    from blotter.risk import base_total, fx_delta, valuation_fx_rates
+
+    fx = valuation_fx_rates(v, store.base_currency())
+    delta = fx_delta(v, fx)
+    shown = bool(set(v.currencies) - {fx.base} or delta.by_currency)
+    return _InBase(fx, base_total(v, fx, f"total in {fx.base}"), delta, shown)
+
+
 _RISK_COLUMNS = (
     "value",
     "Δ sh",
@@ -517,6 +592,9 @@ def risk(
     empty in CSV) and in the table's total (the JSON and CSV total keep the plain sum). Money is
     in each underlying's currency: with several currencies the totals are per currency and the
     total across them shows "—" (null in JSON, beside "by_currency"; CSV has a row per currency).
+    Beside them, the total in the book's base currency (`blotter base-currency`), converted at
+    the marked FX spots ("—" and the missing pair named when one has no spot), and the FX delta:
+    the base-currency P&L for a 1% rise of each other currency against the base.
     """
     from blotter.risk import (
         EXPOSURE_FIELDS,
@@ -532,6 +610,7 @@ def risk(
     under = aggregate(v, "underlying")
     tot = total(v)
     per_ccy = currency_totals(v)
+    in_base = _in_base(store, v)
     if as_json:
         out: dict[str, Any] = _header(v) | {"book": book}
         out["by_underlying"] = [
@@ -566,17 +645,20 @@ def risk(
             "by_currency": pnl.by_currency,
             "words": pnl.words,
         }
+        out |= in_base.json()
         out["notes"] = list(v.notes)
         print_json(out | _unvalued_json(v.unvalued))
         return
     if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
+        for m in in_base.missing():
+            click.echo(f"blotter: {m.words()}; log it with: {m.command}", err=True)
         if by == "position":
             dicts = _position_dicts(v)
             cols = list(dicts[0]) if dicts else ["contract", *EXPOSURE_FIELDS, "currency"]
             table_out(cols, ([d.get(c) for c in cols] for d in dicts), "risk by position")
             return
-        cols = [by, "spot", *EXPOSURE_FIELDS, "currency"]
+        cols = [by, "spot", *EXPOSURE_FIELDS, "currency", "fx_delta_1pct", "fx_of"]
         data = [
             [label, r.spot, *_row_dict(r, shares_blank).values(), r.currency]
             for label, _, r, shares_blank in _risk_groups(v, by)
@@ -586,6 +668,14 @@ def risk(
              r.currency]
             for r in per_ccy or [tot]
         ]
+        if in_base.shown:  # money in the base currency; NaN (no FX spot) printed empty
+            base = in_base.fx.base
+            money = [_finite(x) for x in _row_dict(in_base.total, True).values()]
+            data.append(["total in base", None, *money, base])
+            data += [
+                ["fx delta", None, *[None] * len(EXPOSURE_FIELDS), base, _finite(x), c]
+                for c, x in in_base.delta.by_currency.items()
+            ]
         table_out(cols, data, f"risk by {by}")
         return
     scale = v.vega_scale
@@ -594,12 +684,14 @@ def risk(
         "expiry": ["expiry", "positions"],
         "position": ["position", "spot"],
     }[by]
-    several = len(v.currencies) > 1
+    several = len(v.currencies) > 1 or in_base.shown
     groups = _risk_groups(v, by)
     label = _total_label(v.unvalued)
     if several:
         groups += [(label, "", r, r.underlying is None) for r in per_ccy]
     groups.append((label, "", tot, len(under) > 1))  # share counts of several names do not add
+    if in_base.shown:
+        groups.append((in_base.total.label, "", in_base.total, True))
 
     def cells_of(r: ExposureRow, shares_blank: bool) -> list[str]:
         out = _risk_cells(r, scale)
@@ -651,6 +743,8 @@ def risk(
             "units: they would add currencies)"
         )
     lines.append(_pnl_words(_pnl_today(store, v, book)))
+    if in_base.shown:
+        lines += in_base.words()
     for line in [*lines, *v.notes]:
         click.echo(line)
     if by == "position":
@@ -1302,9 +1396,10 @@ def explain(
     rest. Trades dealt in the period are shown apart as new-trade P&L (end mark
     against trade price). When late bookings or corrections changed the held book, a line shows
     how much of actual they account for ("corrections"). Money in each underlying's currency;
-    totals per currency.
+    totals per currency, then in the book's base currency: each currency's P&L at the start's FX
+    spots, and an "FX translation" line, (end spot − start spot) × the value held at the end.
     """
-    from blotter.scenario import EXPLAIN_TERMS
+    from blotter.scenario import EXPLAIN_TERMS, explain_in_base
     from blotter.scenario import explain as run_explain
     from blotter.store import StoreError
 
@@ -1326,6 +1421,8 @@ def explain(
         ex = run_explain(source, from_set, to_set)
     except (KeyError, ValueError, StoreError) as exc:
         raise click.ClickException(_with_hint(str(exc.args[0] if exc.args else exc))) from exc
+    base = explain_in_base(ex, store.base_currency())
+    base_shown = bool({str(r.currency) for r in ex.by_currency} - {base.base})
     if as_json:
         print_json(
             {
@@ -1340,6 +1437,8 @@ def explain(
                 "late_trades": list(ex.late_trades),
                 "corrected_trades": list(ex.corrected_trades),
                 "notes": list(ex.notes),
+                "base_currency": base.base,
+                "in_base": _explain_base_json(base, ex.end_values),
             }
             | _unvalued_json(ex.unvalued)
         )
@@ -1370,7 +1469,23 @@ def explain(
             ]
             for label, r in _csv_labelled(ex.by_underlying, ex.by_currency, ex.total)
         ]
+        if base_shown:  # the base currency's rows; NaN (an FX spot missing) printed empty
+            r = base.at_start_rates
+            data.append(
+                [
+                    "total in base at start rates",
+                    *(_finite(x) for x in (r.actual, *(r.terms[t] for t in EXPLAIN_TERMS))),
+                    *(_finite(x) for x in (r.explained, r.unexplained, r.new_trades, r.total)),
+                    _finite(r.corrections),
+                    base.base,
+                ]
+            )
+            empty = [None] * (len(cols) - 4)  # every column before "total"
+            data.append(["fx translation", *empty, _finite(base.translation), None, base.base])
+            data.append(["total in base", *empty, _finite(base.pnl), None, base.base])
         _say_unvalued(ex.unvalued, table=False)
+        for where, m in base.missing:
+            click.echo(f"blotter: {m.words()} at the {where}; log it with: {m.command}", err=True)
         table_out(cols, data, "explain")
         return
     frm = ex.from_set
@@ -1379,6 +1494,10 @@ def explain(
     several = len(currencies) > 1
     ccy_head = ["ccy"] if several else []
     shown = _labelled(ex.by_underlying, ex.by_currency, ex.total, _total_label(ex.unvalued))
+    if base_shown:
+        several = True
+        ccy_head = ["ccy"]
+        shown.append((f"{base.at_start_rates.label} at start rates", base.at_start_rates))
     click.echo(
         f"P&L explain of {_book_words(book)}: {_set_words(frm, ex.from_time)} → "
         + ("marks now" if to == "now" else _set_words(to, ex.to_time))
@@ -1398,6 +1517,10 @@ def explain(
         ]
         for label, r in shown
     ]
+    if base_shown:
+        blank = [""] * 5
+        summary.append(["FX translation", base.base, *blank, _money(base.translation)])
+        summary.append([f"P&L in {base.base}", base.base, *blank, _money(base.pnl)])
     left = [False] * (1 + len(ccy_head))
     print_table(
         ["underlying", *ccy_head, "actual", "explained", "unexplained", "unexpl %",
@@ -1425,9 +1548,39 @@ def explain(
             f"cancelled or amended in the period: "
             f"{', '.join(map(str, ex.corrected_trades)) or 'none'}"
         )
+    if base_shown:
+        click.echo("")
+        click.echo(
+            f"in {base.base}: each currency's P&L at the start's FX spots, then FX translation "
+            f"= (end spot − start spot) × what is held at the end"
+        )
+        for where, m in base.missing:
+            click.echo(
+                f"{m.words()} at the {where}: the {base.base} figures that need it show —; "
+                f"log it with: {m.command}"
+            )
     for note in ex.notes:
         click.echo(note)
     _say_unvalued(ex.unvalued, table=True)
+
+
+def _explain_base_json(base: Any, end_values: dict[str, float]) -> dict[str, Any]:
+    """The ``in_base`` key of ``explain --json``: the P&L at the start rates, the FX
+    translation, their sum, the rates and end values used and the FX spots missing."""
+    return {
+        "currency": base.base,
+        "at_start_rates": base.at_start_rates.as_dict(),
+        "fx_translation": base.translation,
+        "total": base.pnl,
+        "start_rates": base.start_rates.rates,
+        "end_rates": base.end_rates.rates,
+        "end_values": end_values,
+        "missing": [
+            {"mark": m.kind, "of": m.name, "command": m.command, "where": where}
+            for where, m in base.missing
+        ],
+    }
+
 
 
 def _run_grid(

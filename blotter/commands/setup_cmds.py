@@ -53,20 +53,29 @@ price precision per unit (the latest correction's, else the kind's default)."""
 @click.command("create")
 @click.argument("path", type=click.Path(dir_okay=False))
 @click.option("--book", "book_name", help="Also start a first book (desk account) of this name.")
+@click.option(
+    "--base-currency",
+    "base_currency",
+    default="USD",
+    show_default=True,
+    help="ISO 4217 code the book's totals convert to at the marked FX spots; "
+    "`blotter base-currency` changes it later.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new file's path as JSON.")
-def create(path: str, book_name: str | None, as_json: bool) -> None:
+def create(path: str, book_name: str | None, base_currency: str, as_json: bool) -> None:
     """Create an empty book file at PATH (refused if anything is there).
 
     Then add underlyings (``blotter --db PATH underlying add``), log marks and book trades.
     """
     from blotter.store import StoreError, create_store
 
+    _check_currency(base_currency, "--base-currency")
     if (source := read_only_source()) is not None:
         raise click.ClickException(
             f"read-only is on ({source}): create writes a new file, so nothing was written"
         )
     try:
-        store = create_store(path, desk_tz=desk_zone())
+        store = create_store(path, desk_tz=desk_zone(), base_currency=base_currency)
     except StoreError as exc:
         raise click.ClickException(str(exc)) from None
     try:
@@ -79,9 +88,45 @@ def create(path: str, book_name: str | None, as_json: bool) -> None:
     extra = f" with book {book_name!r}" if book_name else ""
     _emit(
         as_json,
-        {"path": path, "book": book_name},
-        f"created {path}{extra}; next: blotter --db {path} underlying add SYMBOL --kind ...",
+        {"path": path, "book": book_name, "base_currency": base_currency},
+        f"created {path}{extra}, base currency {base_currency}; "
+        f"next: blotter --db {path} underlying add SYMBOL --kind ...",
     )
+
+
+def _check_currency(currency: str, hint: str) -> None:
+    """Refuse ``currency`` unless it is three capital letters (an ISO 4217 code)."""
+    if not _CURRENCY.match(currency):
+        raise click.BadParameter(f"{currency!r}: three capital letters, e.g. USD", param_hint=hint)
+
+
+@click.command("base-currency")
+@click.argument("currency", required=False)
+@click.option("--json", "as_json", is_flag=True, help="Print the base currency and its history.")
+@db_option
+def base_currency(currency: str | None, as_json: bool, db_path: str | None) -> None:
+    """Show the book's base currency, or record CURRENCY as the base from now on.
+
+    Totals convert to the base at the marked FX spots (a pair such as EURUSD, an underlying of
+    kind fx). A change is a new row, never an edit: the latest row is in force, and
+    ``--json`` lists every base the book has had (the first, written with the book, has no time
+    or who; a book made before base currencies starts with USD).
+    """
+    if currency is not None:
+        _check_currency(currency, "CURRENCY")
+    with _store(db_path, read_only=currency is None) as store:
+        before = store.base_currency()
+        if currency is not None and currency != before:
+            store.set_base_currency(currency)
+        history = store.base_currency_history()
+        now = store.base_currency()
+    if currency is None:
+        words = f"base currency {now}"
+    elif currency == before:
+        words = f"base currency is {now} already; nothing recorded"
+    else:
+        words = f"base currency {now} from now on (was {before})"
+    _emit(as_json, {"base_currency": now, "history": history}, words)
 
 
 @click.group()
@@ -146,10 +191,7 @@ def underlying_add(
     """Add underlying SYMBOL with the defaults its contracts take."""
     from blotter.calendar import business_calendar
 
-    if not _CURRENCY.match(currency):
-        raise click.BadParameter(
-            f"{currency!r}: three capital letters, e.g. USD", param_hint="--currency"
-        )
+    _check_currency(currency, "--currency")
     check_option(limits.MULTIPLIER, multiplier, "--multiplier")
     q = parse_decimal_or_percent(div_yield, "dividend yield")
     check_option(limits.RATE, q, "--div-yield")
@@ -293,4 +335,4 @@ def underlying_correct(
     )
 
 
-COMMANDS = [create, underlying]
+COMMANDS = [create, underlying, base_currency]

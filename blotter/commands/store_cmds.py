@@ -211,6 +211,12 @@ def trade() -> None:
     default=None,
     help="Settlement (default: the underlying's).",
 )
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Book a price more than half its model value (and over 0.05) away from it, which is "
+    "otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
 def trade_add(
@@ -227,6 +233,7 @@ def trade_add(
     american: bool | None,
     multiplier: float | None,
     cash_settled: bool | None,
+    force: bool,
     as_json: bool,
     db_path: str | None,
 ) -> None:
@@ -246,22 +253,56 @@ def trade_add(
                     f"({', '.join(books) if books else 'none yet; start one with --new-book'})"
                 )
             book = books[0]
-        tid = store.add_trade(
-            book,
-            symbol,
-            quantity,
-            price,
-            expiry,
-            strike,
-            is_call,
-            trade_time=when,
-            note=note,
-            american=american,
-            multiplier=multiplier,
-            cash_settled=cash_settled,
-            create_book=new_book,
-        )
+        with store.atomic():  # the store's checks first; a refused price writes nothing
+            tid = store.add_trade(
+                book,
+                symbol,
+                quantity,
+                price,
+                expiry,
+                strike,
+                is_call,
+                trade_time=when,
+                note=note,
+                american=american,
+                multiplier=multiplier,
+                cash_settled=cash_settled,
+                create_book=new_book,
+            )
+            if not force:
+                _refuse_far_price(store, _typed_terms(symbol, expiry, strike, is_call), price)
     _emit(as_json, {"trade_id": tid, "book": book}, f"booked trade {tid} in book {book}")
+
+
+def _refuse_far_price(st: Any, terms: Any, price: float) -> None:
+    """A price far from the model value (``desk.session.price_question``) as a refusal."""
+    from blotter.desk import session
+
+    if terms is None:
+        return
+    question = session.price_question(st, terms, price, st.now(), desk_zone())
+    if question:
+        raise click.ClickException(f"{question}: nothing written (--force books it)")
+
+
+def _typed_terms(
+    symbol: str, expiry: str | None, strike: float | None, is_call: bool | None
+) -> Any:
+    """``desk.entry.ContractTerms`` of a ``trade add``; None when they do not read (the store
+    then says what is wrong)."""
+    from blotter.desk import entry
+
+    if expiry is None and strike is None and is_call is None:
+        return entry.ContractTerms(symbol, None, None, None)
+    try:
+        return entry.parse_terms(
+            symbol,
+            expiry or "",
+            "" if strike is None else repr(strike),
+            "" if is_call is None else ("C" if is_call else "P"),
+        )
+    except ValueError:
+        return None
 
 
 @trade.command("cancel")
@@ -284,6 +325,9 @@ def trade_cancel(trade_id: int, reason: str, as_json: bool, db_path: str | None)
 @click.option("--time", "trade_time", help=f"New deal time, {TIME_HELP}.")
 @click.option("--note", help="New note.")
 @click.option("--book", help="Move to this book (it must exist).")
+@click.option(
+    "--force", is_flag=True, help="Amend to a price far from the model value (see trade add)."
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
 def trade_amend(
@@ -294,12 +338,15 @@ def trade_amend(
     trade_time: str | None,
     note: str | None,
     book: str | None,
+    force: bool,
     as_json: bool,
     db_path: str | None,
 ) -> None:
     """Amend trade TRADE_ID: cancel it and book a replacement that names it."""
+    from blotter.desk import session
+
     when = _time_option(trade_time)
-    with _store(db_path) as store:
+    with _store(db_path) as store, store.atomic():
         new_id = store.amend_trade(
             trade_id,
             reason=reason,
@@ -309,6 +356,9 @@ def trade_amend(
             note=note,
             book=book,
         )
+        old = next((t for t in store.trades() if t.trade_id == trade_id), None)
+        if old is not None and price is not None and not force:
+            _refuse_far_price(store, session.terms_of(old), price)
     _emit(
         as_json,
         {"trade_id": new_id, "replaces": trade_id},
@@ -456,15 +506,26 @@ def _log(db_path: str | None, as_json: bool, action: Callable[[Any], int], what:
 @click.argument("symbol")
 @click.argument("price", type=FINITE)
 @click.option("--note", help="Free note kept with the mark.")
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Write a spot more than 20% from the one in force, otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_spot(
-    symbol: str, price: float, note: str | None, as_json: bool, db_path: str | None
+    symbol: str, price: float, note: str | None, force: bool, as_json: bool, db_path: str | None
 ) -> None:
     """Log the spot PRICE of SYMBOL (in its currency, per unit)."""
-    _log(
-        db_path, as_json, lambda s: s.log_spot(symbol, price, note=note), f"spot {symbol} {price:g}"
-    )
+    from blotter.desk import entry
+
+    def log(s: Any) -> int:
+        odd = entry.implausible_spot(entry.mark_in_force(s, "spot", symbol), price)
+        if odd and not force:
+            raise click.ClickException(f"{odd}: nothing written (--force writes it)")
+        return int(s.log_spot(symbol, price, note=note))
+
+    _log(db_path, as_json, log, f"spot {symbol} {price:g}")
 
 
 @mark.command("vol")
@@ -477,20 +538,47 @@ def mark_spot(
     help="Strike of the point; leave out for the ATM vol: the vol at the strike equal to the "
     "spot among the expiry's strike vols, or of every strike when it has none.",
 )
+@click.option(
+    "--force",
+    is_flag=True,
+    help="Write a vol more than 10 vol points from the one in force, or under 3%, "
+    "which is otherwise refused as a likely typo.",
+)
 @click.option("--json", "as_json", is_flag=True, help="Print the mark id as JSON.")
 @db_option
 def mark_vol(
-    symbol: str, expiry: str, vol: str, strike: float | None, as_json: bool, db_path: str | None
+    symbol: str,
+    expiry: str,
+    vol: str,
+    strike: float | None,
+    force: bool,
+    as_json: bool,
+    db_path: str | None,
 ) -> None:
     """Log the implied VOL (0.25 or 25%) of SYMBOL at EXPIRY (YYYY-MM-DD) and --strike (or ATM)."""
+    from blotter.desk import entry
+
     v = parse_vol(vol)
     where = f" K={strike:g}" if strike is not None else " ATM"
-    _log(
-        db_path,
-        as_json,
-        lambda s: s.log_vol(symbol, expiry, v, strike=strike),
-        f"vol {symbol} {expiry}{where} {v:.2%}",
-    )
+
+    def log(s: Any) -> int:
+        _refuse_point(s, "vol", symbol=symbol, expiry=expiry)
+        odd = entry.implausible_vol(entry.mark_in_force(s, "vol", symbol, expiry, strike), v)
+        if odd and not force:
+            raise click.ClickException(f"{odd}: nothing written (--force writes it)")
+        return int(s.log_vol(symbol, expiry, v, strike=strike))
+
+    _log(db_path, as_json, log, f"vol {symbol} {expiry}{where} {v:.2%}")
+
+
+def _refuse_point(st: Any, kind: str, **point: Any) -> None:
+    """A point no position can use (``desk.entry.refuse_mark_point``) as a ``ClickException``."""
+    from blotter.desk import entry
+
+    try:
+        entry.refuse_mark_point(st, kind, st.now(), **point)
+    except ValueError as exc:
+        raise click.ClickException(f"{exc}: nothing written") from None
 
 
 @mark.command("rate")
@@ -504,12 +592,12 @@ def mark_rate(
 ) -> None:
     """Log the zero RATE (0.04 or 4%, continuously compounded) of CURRENCY at TENOR_DAYS."""
     r = parse_decimal_or_percent(rate, "rate")
-    _log(
-        db_path,
-        as_json,
-        lambda s: s.log_rate(currency, tenor_days, r),
-        f"rate {currency} {tenor_days} d {r:.4%}",
-    )
+
+    def log(s: Any) -> int:
+        _refuse_point(s, "rate", currency=currency)
+        return int(s.log_rate(currency, tenor_days, r))
+
+    _log(db_path, as_json, log, f"rate {currency} {tenor_days} d {r:.4%}")
 
 
 @mark.command("divyield")

@@ -13,6 +13,7 @@ import math
 from dataclasses import dataclass
 from datetime import date, datetime, timedelta
 from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
 
 import numpy as np
 
@@ -35,7 +36,9 @@ class MarkPoint:
     """One mark point: the value in force, the last close's and when it was last marked.
 
     ``value`` and ``close_value`` are as stored (spot in currency, vol/rate/yield decimal); None
-    when there is no such mark. ``needed`` is True when a position depends on a missing point.
+    when there is no such mark. ``observed_at`` is when the value in force was marked (a close
+    that carried it keeps that time). ``needed`` is True when a position depends on a missing
+    point.
     """
 
     key: str
@@ -47,7 +50,7 @@ class MarkPoint:
     tenor_days: int | None
     value: float | None
     close_value: float | None
-    marked_at: datetime | None
+    observed_at: datetime | None
     needed: bool = False
 
     @property
@@ -139,7 +142,7 @@ def marks_view(st: Store, book: Book | None) -> MarksView:
             m.tenor_days,
             m.value,
             close_by_key.get(k),
-            m.marked_at,
+            m.observed_at,
         )
     if book is not None and len(book):
         syms = book.underlyings.symbols
@@ -198,14 +201,18 @@ class CloseReview:
 
     changed: tuple[str, ...]  # "DEMOA spot 187.50 → 188.10 (+0.60)"
     missing: tuple[str, ...]  # points a position needs and nobody marked
-    stale: tuple[str, ...]  # marks unchanged for more than STALE_AFTER
+    stale: tuple[str, ...]  # marks unchanged for more than STALE_AFTER, each with its own age
     n_points: int
     close_day: date | None = None  # the business date the close closes
     corrects: int | None = None  # the close of that date it corrects (a date closes once)
 
 
-def close_review(view: MarksView, now: datetime) -> CloseReview:
-    """Sort the points of ``view`` into changed since the last close, missing and stale."""
+def close_review(view: MarksView, now: datetime, tz: ZoneInfo | None = None) -> CloseReview:
+    """Sort the points of ``view`` into changed since the last close, missing and stale.
+
+    A stale point is listed with its own mark time (in ``tz``, UTC when None) and age: a close
+    carries a point without re-dating it.
+    """
     changed, missing, stale = [], [], []
     n = 0
     for p in view.points:
@@ -219,8 +226,12 @@ def close_review(view: MarksView, now: datetime) -> CloseReview:
             changed.append(f"{name} new {p.shown(p.value)}")
         elif p.value != p.close_value:
             changed.append(f"{name} {p.shown(p.close_value)} → {p.shown(p.value)} ({p.change()})")
-        if p.marked_at is not None and now - p.marked_at > STALE_AFTER:
-            stale.append(f"{name} marked {age_words(now - p.marked_at)} ago")
+        if p.observed_at is not None and now - p.observed_at > STALE_AFTER:
+            when = p.observed_at.astimezone(tz) if tz is not None else p.observed_at
+            stale.append(
+                f"{name} {p.shown(p.value)} marked {when:%m-%d %H:%M}, "
+                f"{age_words(now - p.observed_at)} ago"
+            )
     return CloseReview(
         tuple(changed), tuple(missing), tuple(stale), n, view.close_day, view.day_closed_by
     )

@@ -9,10 +9,12 @@ checks each value again when it is written.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from datetime import date
+from datetime import date, datetime, time
 from typing import TYPE_CHECKING, Any, Literal, NamedTuple
+from zoneinfo import ZoneInfo
 
 import numpy as np
 
@@ -26,27 +28,109 @@ VOL_BARE_MAX = 3.0
 """A vol typed without ``%`` above this (300%) reads as a percentage typed without its sign."""
 
 
+VOL_CONVENTION = "0.25 or 25%"
+"""How a vol is typed, as a column header or a hint says it."""
+
+
 def parse_vol(text: str) -> float:
-    """A vol from ``0.25`` (decimal) or ``25%``; a bare number above 3 is refused as ambiguous."""
+    """A vol from ``0.25`` (decimal) or ``25%``; a bare number above 3 is refused as ambiguous.
+
+    The range is checked here too, in percent (the unit the screens show a vol in).
+    """
     t = text.strip()
+    percent = t.endswith("%")
     try:
-        if t.endswith("%"):
-            return float(t[:-1]) / 100.0
-        v = float(t)
+        v = float(t[:-1] if percent else t)
     except ValueError:
-        raise ValueError(f"{text!r} is not a vol: write 0.25 or 25%") from None
-    if v > VOL_BARE_MAX:
+        v = math.nan
+    if not math.isfinite(v):
+        raise ValueError(f"{text!r} is not a vol: write {VOL_CONVENTION}")
+    if percent:
+        v /= 100.0
+    elif v > VOL_BARE_MAX:
         raise ValueError(f"{text!r} looks like a percentage: write {t}% or {v / 100:g}")
+    if not limits.VOL.contains(v):
+        raise ValueError(
+            f"a vol must be above 0% and at most {limits.VOL.high * 100:,.0f}%, "
+            f"got {v * 100:,.4g}% ({text.strip()})"
+        )
     return v
+
+
+VOL_JUMP_PTS = 10.0
+"""A typed vol more than this many vol points from the mark in force asks for a confirmation."""
+
+VOL_LOW = 0.03
+"""A typed vol under this (3%) asks for a confirmation: listed options rarely trade below it."""
+
+
+def implausible_vol(old: float | None, new: float) -> str:
+    """Why writing the vol ``new`` over ``old`` (the mark in force, None: none) wants a
+    confirmation, in words; empty when it looks plausible (common practice, not a limit)."""
+    why = []
+    if old is not None and abs(new - old) * 100 > VOL_JUMP_PTS:
+        why.append(
+            f"{(new - old) * 100:+.2f} vol points from the mark in force {old * 100:.2f}% "
+            f"(more than {VOL_JUMP_PTS:g})"
+        )
+    if new < VOL_LOW:
+        why.append(f"under {VOL_LOW * 100:g}%")
+    return f"{new * 100:.2f}% is " + " and ".join(why) if why else ""
 
 
 def parse_decimal_or_percent(text: str, what: str) -> float:
     """A decimal (``0.04``) or a percentage (``4%``) of ``what`` (a rate, a dividend yield)."""
     t = text.strip()
     try:
-        return float(t[:-1]) / 100.0 if t.endswith("%") else float(t)
+        v = float(t[:-1]) / 100.0 if t.endswith("%") else float(t)
     except ValueError:
-        raise ValueError(f"{text!r} is not a {what}: write 0.04 or 4%") from None
+        v = math.nan
+    if not math.isfinite(v):
+        raise ValueError(f"{text!r} is not a {what}: write 0.04 or 4%")
+    if not limits.RATE.contains(v):
+        low, high = limits.RATE.low * 100, limits.RATE.high * 100
+        raise ValueError(
+            f"a {what} must be from {low:,.0f}% to {high:,.0f}%, got {v * 100:,.4g}% ({t})"
+        )
+    return v
+
+
+SPOT_JUMP = 0.20
+"""A typed spot more than this fraction (20%) from the spot in force asks for a confirmation."""
+
+
+def implausible_spot(old: float | None, new: float) -> str:
+    """Why the spot ``new`` over ``old`` wants a confirmation (a slipped digit), else empty."""
+    if old is None or old <= 0 or not limits.LEVEL.contains(new):
+        return ""  # no spot in force to compare with, or one the store refuses in its words
+    if abs(new / old - 1.0) <= SPOT_JUMP:
+        return ""
+    return (
+        f"{new:,.6g} is {(new / old - 1.0) * 100:+.1f}% from the spot in force {old:,.6g} "
+        f"(more than {SPOT_JUMP * 100:g}%)"
+    )
+
+
+def mark_question(kind: str, old: float | None, new: float, solved: str = "") -> str:
+    """What to ask before the typed mark ``new`` of ``kind`` replaces ``old`` (empty: nothing).
+
+    A vol solved from a price (``solved``, ``solve_vol``'s words) is always shown beside the
+    vol in force first; a typed vol or spot only when ``implausible_vol`` or
+    ``implausible_spot`` finds it out of the way.
+    """
+    if kind == "spot":
+        return implausible_spot(old, new)
+    if kind != "vol":
+        return ""
+    odd = implausible_vol(old, new)
+    if not solved:
+        return odd
+    beside = "no vol in force" if old is None else f"in force {old * 100:.2f}%"
+    change = "" if old is None else f", {(new - old) * 100:+.2f} pt"
+    far = old is not None and abs(new - old) * 100 > VOL_JUMP_PTS
+    check = [f"more than {VOL_JUMP_PTS:g} pt away"] if far else []
+    check += [f"under {VOL_LOW * 100:g}%"] if new < VOL_LOW else []
+    return f"{solved} ({beside}{change})" + (f", {' and '.join(check)}" if check else "")
 
 
 # -- mark cells ---------------------------------------------------------------------------------
@@ -55,10 +139,12 @@ MarkKind = Literal["spot", "vol", "div_yield", "rate"]
 
 
 class TypedMark(NamedTuple):
-    """A typed mark cell: ``value`` as stored, or the option ``price`` whose vol is wanted."""
+    """A typed mark cell: ``value`` as stored, or the option ``price`` whose vol is wanted;
+    ``is_call`` says which option a price is of (None: the out-of-the-money one)."""
 
     what: Literal["value", "price"]
     number: float
+    is_call: bool | None = None
 
 
 def mark_unit(kind: str, atm: bool = False) -> str:
@@ -66,9 +152,9 @@ def mark_unit(kind: str, atm: bool = False) -> str:
     if kind == "spot":
         return "price in the underlying's currency"
     if kind == "vol" and atm:
-        return "vol 0.245 or 24.5% at the strike = spot, or $price to solve it"
+        return "ATM vol 0.245 or 24.5%, or $12.40c / $12.40p to solve it"
     if kind == "vol":
-        return "vol 0.245 or 24.5%, or $price of the option to solve its vol"
+        return "vol 0.245 or 24.5%, or $12.40c / $12.40p to solve it"
     return "0.041 or 4.1%"
 
 
@@ -80,13 +166,19 @@ def parse_mark(kind: str, text: str) -> TypedMark:
     t = text.strip()
     if not t:
         raise ValueError("type a number")
-    if t[0] in "$pP" and kind == "vol":
+    if t[0] == "$" and kind == "vol":
         price_text = t[1:].strip().replace(",", "")
+        is_call: bool | None = None
+        if price_text[-1:].lower() in ("c", "p"):
+            is_call = price_text[-1].lower() == "c"
+            price_text = price_text[:-1].strip()
         try:
             price = float(price_text)
         except ValueError:
-            raise ValueError(f"{t[1:]!r} is not a price") from None
-        return TypedMark("price", limits.PRICE.check(price))
+            raise ValueError(
+                f"{t[1:]!r} is not a price: write $12.40, $12.40c (a call) or $12.40p (a put)"
+            ) from None
+        return TypedMark("price", limits.PRICE.check(price), is_call)
     if kind == "vol":
         return TypedMark("value", parse_vol(t))
     if kind == "rate":
@@ -113,12 +205,13 @@ def solve_vol(
     expiry: date | None,
     strike: float | None,
     price: float,
+    is_call: bool | None = None,
 ) -> SolvedVol:
     """Implied vol of ``price`` for the option of ``symbol`` at ``expiry`` and ``strike``.
 
     Time, rate and carry come from a live position of the same underlying and expiry; the option
-    is the out-of-the-money one at ``strike`` (None, the ATM point: the spot), valued by
-    ``engine.implied_vol``.
+    is the call or put ``is_call`` says, else the out-of-the-money one at ``strike`` (None, the
+    ATM point: the spot), valued by ``engine.implied_vol``.
     """
     from blotter import engine
     from blotter.engine.results import IV_STATUS
@@ -137,7 +230,8 @@ def solve_vol(
     i = rows[0]
     spot = float(valuation.spot[i])
     k = spot if strike is None else float(strike)
-    is_call = k >= spot
+    if is_call is None:
+        is_call = k >= spot
     iv = engine.implied_vol(
         price,
         is_call,
@@ -158,6 +252,77 @@ def solve_vol(
     return SolvedVol(vol, f"{kind} price {price:g} → implied vol {vol * 100:.2f}%", is_call)
 
 
+def refuse_mark_point(
+    st: Store,
+    kind: str,
+    now: datetime,
+    *,
+    symbol: str | None = None,
+    currency: str | None = None,
+    expiry: date | str | None = None,
+) -> None:
+    """``ValueError`` in words for a point no position can use, before anything is written: a
+    vol of an expiry whose cut-off has passed or that falls on a weekend of the underlying's
+    calendar, a rate of a currency that no underlying of the file is quoted in and no rate mark
+    names yet (an FX pair's foreign rate is its dividend-yield mark, not a curve). Other
+    mistakes (an unknown symbol, a malformed date) the store names."""
+    from blotter import calendar as cal
+
+    records = st.underlying_records()
+    if kind == "rate":
+        known = {r["currency"] for r in records}
+        known |= {m.currency for m in st.marks() if m.kind == "rate" and m.currency}
+        if currency not in known:
+            raise ValueError(
+                f"{currency} is not a currency of this file: its underlyings are quoted in "
+                f"{', '.join(sorted(known)) or 'none yet'}"
+            )
+        return
+    if kind != "vol" or expiry is None:
+        return
+    rec = next((r for r in records if r["symbol"] == symbol), None)
+    try:
+        day = expiry if isinstance(expiry, date) else date.fromisoformat(str(expiry).strip())
+    except ValueError:
+        return
+    if rec is None:
+        return
+    zone = ZoneInfo(rec.get("time_zone") or cal.DEFAULT_EXCHANGE_TZ)
+    cutoff = time.fromisoformat(rec.get("cutoff_time") or "16:00")
+    cut = datetime.combine(day, cutoff, tzinfo=zone)
+    if cut <= now:
+        raise ValueError(
+            f"{symbol} {day} has expired (its cut-off {cut:%Y-%m-%d %H:%M %Z} has passed)"
+        )
+    calendar_name = rec.get("calendar") or cal.DEFAULT_CALENDAR
+    if not cal.business_calendar(calendar_name).weekmask[day.weekday()]:
+        raise ValueError(
+            f"{day} is a {day:%A}, a weekend day of {symbol}'s {calendar_name} calendar: "
+            "no option expires then"
+        )
+
+
+def mark_in_force(
+    st: Store,
+    kind: str,
+    symbol: str,
+    expiry: date | str | None = None,
+    strike: float | None = None,
+) -> float | None:
+    """The ``kind`` mark in force of ``symbol`` (a vol: at ``expiry`` and ``strike``, None the
+    ATM point), if any."""
+    day = None if expiry is None else str(expiry).strip()
+    for m in st.marks():
+        if (
+            m.kind == kind
+            and m.symbol == symbol
+            and (None if m.expiry is None else str(m.expiry)) == day
+            and (m.strike is None if strike is None else m.strike == strike)
+        ):
+            return m.value
+    return None
+
+
 def write_mark(
     st: Store,
     kind: str,
@@ -169,8 +334,14 @@ def write_mark(
     strike: float | None = None,
     tenor_days: int | None = None,
     note: str = "typed in the app",
+    now: datetime | None = None,
 ) -> int:
-    """Log ``value`` as an intraday mark of ``kind`` at that point; the store checks it."""
+    """Log ``value`` as an intraday mark of ``kind`` at that point; the store checks it.
+
+    ``refuse_mark_point`` runs first at ``now`` (the store's clock when None)."""
+    refuse_mark_point(
+        st, kind, now or st.now(), symbol=symbol, currency=currency, expiry=expiry
+    )
     if kind == "spot":
         return st.log_spot(symbol or "", value, note=note)
     if kind == "vol":
@@ -346,6 +517,29 @@ def parse_new_trade(fields: Mapping[str, str], symbols: Sequence[str]) -> NewTra
         raise ValueError(f"symbol: {terms.symbol} is not an underlying of this file")
     book = fields.get("book", "").strip() or "main"
     return NewTrade(terms, book, qty, price, fields.get("note", ""))
+
+
+FAR_PRICE_FRACTION = 0.5
+"""A trade price off the model value by more than this fraction of it (50%) asks first..."""
+
+FAR_PRICE_MIN = 0.05
+"""...when it is also off by more than this, in price units: five ticks of 0.01, a common
+option tick (common practice), so a cheap option's spread does not ask."""
+
+
+def price_question(price: float, model: float | None, label: str) -> str:
+    """Why booking ``label`` at ``price`` wants a confirmation, given the ``model`` value per
+    unit from the marks in force (None: not valued, nothing to compare); empty when it is near.
+    A slipped price (a future amended from 4,600 to 1.23) is the case it is for."""
+    if model is None or not math.isfinite(model):
+        return ""
+    off = price - model
+    if abs(off) <= FAR_PRICE_FRACTION * abs(model) or abs(off) <= FAR_PRICE_MIN:
+        return ""
+    return (
+        f"price {price:,.6g} for {label} is {off:+,.6g} from its model value {model:,.6g} "
+        f"on the marks in force (more than {FAR_PRICE_FRACTION * 100:g}% of it)"
+    )
 
 
 def write_ticket(st: Store, ticket: Ticket) -> str:

@@ -23,6 +23,7 @@ from dataclasses import dataclass, field
 from datetime import date, datetime
 from typing import TYPE_CHECKING, Any, TextIO
 
+from blotter.logs import FEED, logger
 from blotter.store import MarkPoint, StoreError, check_mark_point, parse_time
 
 if TYPE_CHECKING:
@@ -213,6 +214,8 @@ def parse_lines(lines: Iterable[str]) -> Iterator[tuple[int, Quote | FeedLineErr
             yield number, exc
 
 
+_LOG = logger(FEED)
+
 _Key = tuple[str, str, str | None, float | None]
 """A point's identity while it waits: (symbol, kind, expiry, strike)."""
 
@@ -246,6 +249,7 @@ class Feed:
     def bad_line(self, number: int, reason: str) -> None:
         """Count a bad line and keep its reason (the first ``MAX_REPORTED``)."""
         self.report.bad += 1
+        _LOG.warning("%s line %d: %s; nothing written for it", self.source, number, reason)
         if self.on_bad is not None:
             self.on_bad(number, reason)
         if len(self.report.bad_lines) < MAX_REPORTED:
@@ -301,6 +305,7 @@ class Feed:
             self.store.add_mark_set("intraday", [p for _, p in items], source=self.source)
         except StoreError as exc:
             if type(exc) is not StoreError:
+                _LOG.error("%s: the book refused a write, the feed stops: %s", self.source, exc)
                 raise
             if len(items) == 1:
                 self.bad_line(items[0][0], str(exc))
@@ -354,4 +359,9 @@ def run_feed(
         feed.take(number, item)
     if feed.flush(everything=True) and on_batch is not None:
         on_batch(feed.report)
-    return feed.report
+    rep = feed.report
+    _LOG.info(
+        "%s ended: %d lines, %d quotes, %d marks written in %d writes, %d bad lines",
+        feed.source, rep.lines, rep.quotes, rep.points_written, rep.batches, rep.bad,
+    )
+    return rep

@@ -23,13 +23,15 @@ from blotter.desk.trials import TrialTrade, trial_book
 
 if TYPE_CHECKING:
     from blotter.book import Book
+    from blotter.desk.entry import ContractTerms
     from blotter.engine import BoundaryCache
     from blotter.market import Market
     from blotter.scenario import Move
+    from blotter.store import ContractRecord, Store, TradeRecord
 
 
 class BookSource(Protocol):
-    """Where a session reads from: a ``store.Store`` (anything with these three reads)."""
+    """Where a session reads from: a ``store.Store`` (anything with these four reads)."""
 
     def load_book(self, book: str | None = None) -> Book: ...
 
@@ -37,23 +39,32 @@ class BookSource(Protocol):
 
     def data_version(self) -> int: ...
 
+    def base_currency(self) -> str: ...
+
 
 @dataclass(frozen=True, repr=False)
 class Loaded:
-    """The live book, the marks in force and the file's data version, as read together."""
+    """The live book, the marks in force, the file's data version and the book's base currency
+    (totals convert to it at the marked FX spots), as read together."""
 
     book: Book
     market: Market
     data_version: int
+    base_currency: str = "USD"
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
 
 
 def read(source: BookSource, book: str | None = None) -> Loaded:
-    """The book (``book`` alone, or every book when None), the marks in force and the data
-    version of ``source``."""
-    return Loaded(source.load_book(book), source.load_market(), int(source.data_version()))
+    """The book (``book`` alone, or every book when None), the marks in force, the data version
+    and the base currency of ``source``."""
+    return Loaded(
+        source.load_book(book),
+        source.load_market(),
+        int(source.data_version()),
+        str(source.base_currency()),
+    )
 
 
 @dataclass(frozen=True, repr=False)
@@ -81,6 +92,11 @@ class Session:
     @property
     def mark_kind(self) -> str:
         return self.valuation.market.mark_kind
+
+    def marks_age(self, now: datetime, tz: ZoneInfo) -> MarksAge:
+        """How old the marks in force are at ``now``, point by point (``marks_age``)."""
+        market = self.valuation.market
+        return marks_age(self.marks_as_of, now, tz, observed=market.observed_at)
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Session(positions={len(self.valuation)}, data_version={self.data_version})"
@@ -114,6 +130,64 @@ def value(
     return Session(valuation, loaded.data_version, when)
 
 
+REVALUE_EVERY = timedelta(minutes=1)
+"""How often an idle app values the book again at the clock's time, so "valued 10:04" is current."""
+
+
+def revalue_due(valued_at: datetime, now: datetime) -> bool:
+    """True when ``now`` is in a later minute than ``valued_at`` (the shown time is whole
+    minutes), so a watcher asks for one revaluation a minute and none in between."""
+    step = REVALUE_EVERY.total_seconds()
+    return int(now.timestamp() // step) > int(valued_at.timestamp() // step)
+
+
+def model_price(
+    live: Book, market: Market, contract: ContractRecord, at: datetime, tz: ZoneInfo
+) -> float | None:
+    """The model value of one unit of ``contract`` on ``market`` at ``at`` (``risk.value_book``
+    on a one-row book; an underlying or a future: its spot), None when it cannot be valued."""
+    if contract.option_type == "U":
+        return market.spots.get(contract.symbol)
+    trial = TrialTrade(0, contract, 1, 0.0, live.name)
+    try:
+        one = trial_book(live.take([]), [trial])
+        t = np.datetime64(at.astimezone(UTC).replace(tzinfo=None), "s")
+        valued = risk.value_book(one, market, t, tz=tz)
+    except (ValueError, KeyError):
+        return None
+    if len(valued.book) != 1 or not bool(valued.live[0]):
+        return None  # left out for a missing mark, or expired
+    return float(valued.value[0] / valued.units[0])
+
+
+def price_question(
+    st: Store, terms: ContractTerms, price: float, at: datetime, tz: ZoneInfo
+) -> str:
+    """``entry.price_question`` for booking ``terms`` at ``price`` in the book file ``st``,
+    valued on its marks in force at ``at`` (a contract new to the file on its defaults)."""
+    from blotter.desk import entry
+    from blotter.desk.trials import trial_contract
+
+    contract = entry.find_contract(st.contracts(), terms)
+    if contract is None:
+        records = {r["symbol"]: r for r in st.underlying_records()}
+        try:
+            contract = trial_contract(records, terms, ())
+        except ValueError:
+            return ""  # the store refuses it in its own words
+    model = model_price(st.load_book(), st.load_market(), contract, at, tz)
+    return entry.price_question(price, model, contract.label)
+
+
+def terms_of(trade: TradeRecord) -> ContractTerms:
+    """The contract terms of a booked trade, as a typed ticket gives them."""
+    from blotter.desk.entry import ContractTerms
+
+    if trade.option_type == "U":
+        return ContractTerms(trade.symbol, None, None, None)
+    return ContractTerms(trade.symbol, trade.expiry, trade.strike, trade.option_type == "C")
+
+
 def roll_days(valuation: risk.BookValuation, move: Move | None) -> float:
     """Calendar days of ``move``'s day roll from the valuation time (business days through
     ``scenario.roll_time``); 0 without a move."""
@@ -126,6 +200,74 @@ def roll_days(valuation: risk.BookValuation, move: Move | None) -> float:
     t0 = valuation.valuation_time
     t1 = scenario.roll_time(valuation, move)
     return float((t1 - t0) / np.timedelta64(1, "s")) / 86400.0
+
+
+ABS_SPOT_WARN = 0.10
+"""An absolute spot move larger than this fraction (10%) of a spot it moves is warned about: a
+slip for a relative move (``spot -3`` for ``spot -3%``) is the likely cause."""
+
+
+@dataclass(frozen=True)
+class MoveWords:
+    """A move in words with every amount's unit, and a warning (empty: none) about it."""
+
+    words: str
+    warning: str = ""
+
+
+def _amount(x: float) -> str:
+    """A signed amount to cents, or to six digits when smaller than a cent."""
+    return f"{x:+,.2f}" if x == 0 or abs(x) >= 0.01 else f"{x:+.6g}"
+
+
+def move_words(valuation: risk.BookValuation, move: Move) -> MoveWords:
+    """``move`` said with units (``every spot -3.00 USD``, ``DEMOA spot +2.50%``, ``vol +2.00
+    pts``) for the valuation's book, and a warning when an absolute spot move is more than
+    ``ABS_SPOT_WARN`` of a spot it moves (``-3.00 USD is -13.0% of DEMOC 23.14``)."""
+    unders = valuation.book.underlyings
+    spots = valuation.market.spots
+    symbols = [s for s in unders.symbols if s in spots]
+    ccy = dict(zip(unders.symbols, unders.currencies, strict=True))
+    words: list[str] = []
+    large: list[tuple[float, str, float]] = []  # (fraction of spot, symbol, spot)
+    for shift in move.spot:
+        who = f"{shift.symbol} spot" if shift.symbol else "every spot"
+        moved = [shift.symbol] if shift.symbol else symbols
+        units = sorted({ccy[s] for s in moved if s in ccy})
+        money = units[0] if len(units) == 1 else "in its own currency"
+        if shift.unit == "%":
+            text = f"{who} {shift.amount:+.2f}%"
+        elif shift.unit == "level":
+            text = f"{who} set to {shift.amount:,.6g} {money}"
+        else:
+            text = f"{who} {_amount(shift.amount)} {money}"
+            for s in moved:
+                if s in spots and abs(shift.amount) > ABS_SPOT_WARN * spots[s]:
+                    large.append((shift.amount / spots[s], s, spots[s]))
+        words.append(text + (" × beta" if shift.beta else ""))
+    for v in move.vol:
+        where = f"{v.symbol} vol" if v.symbol else "vol"
+        amount = f"{v.amount:+.2f} pts" if v.unit == "pts" else f"{v.amount:+.2f}% of itself"
+        words.append(f"{where} {amount}" + (" weighted by √T" if v.weighted else ""))
+    if move.days:
+        words.append(f"{move.days:g} calendar day{'s' if move.days != 1 else ''} on")
+    if move.bdays:
+        words.append(f"{move.bdays} business day{'s' if move.bdays != 1 else ''} on")
+    if move.rate_bp:
+        words.append(f"rates {move.rate_bp:+g} bp")
+    from blotter.scenario.grammar import STICKY_RULE
+
+    if move.vol_rule != STICKY_RULE:
+        words.append(f"vols {move.vol_rule}")
+    warning = ""
+    if large:
+        frac, sym, spot = max(large, key=lambda t: abs(t[0]))
+        more = f" (and {len(large) - 1} more)" if len(large) > 1 else ""
+        warning = (  # short: the bar's message and the title are narrow at 80 columns
+            f"{_amount(frac * spot)} {ccy.get(sym, '')} is {frac * 100:+.1f}% of {sym} "
+            f"{spot:,.6g}{more}"
+        )
+    return MoveWords(", ".join(words) or "no move", warning)
 
 
 def age_words(age: timedelta) -> str:
@@ -145,17 +287,48 @@ def age_words(age: timedelta) -> str:
 
 @dataclass(frozen=True)
 class MarksAge:
-    """How old the marks are, in words, and whether they predate the last business day's close."""
+    """How old the marks are, in words, and whether they predate the last business day's close.
+
+    ``points`` and ``stale_points`` count the mark points in force and those observed before that
+    close (both 0 when the points' own times are not known), so one fresh mark cannot make a
+    book of old marks look fresh.
+    """
 
     words: str
     stale: bool
     last_close: datetime | None
+    points: int = 0
+    stale_points: int = 0
+
+    def stale_words(self, tz: ZoneInfo) -> str:
+        """``STALE: 420 of 421 marked before 12-02 16:00 close`` (empty when fresh); short, so
+        the file name still fits the header at 80 columns."""
+        if not self.stale:
+            return ""
+        closed = f"{self.last_close.astimezone(tz):%m-%d %H:%M}" if self.last_close else "last"
+        if self.points:
+            n = f"{self.stale_points} of {self.points}"
+            return f"STALE: {n} marked before {closed} close"
+        return f"STALE: older than the {closed} close"
+
+
+STALE_SLACK = timedelta(minutes=1)
+"""A mark observed this close to the close still counts as of that close."""
 
 
 def marks_age(
-    marks_as_of: datetime, now: datetime, tz: ZoneInfo, calendar_name: str = "NYSE"
+    marks_as_of: datetime,
+    now: datetime,
+    tz: ZoneInfo,
+    calendar_name: str = "NYSE",
+    observed: np.ndarray | None = None,
 ) -> MarksAge:
-    """Age of the marks at ``now``; stale when older than the last business-day close."""
+    """Age of the marks at ``now``; stale when older than the last business-day close.
+
+    ``observed`` are the mark points' own observation instants (UTC ``datetime64``, as
+    ``Market.observed_at``): given, the marks are stale while any point predates that close and
+    the count says how many; else the newest mark (``marks_as_of``) decides.
+    """
     age = now - marks_as_of
     local_now = now.astimezone(tz)
     day: np.datetime64 = np.datetime64(local_now.date(), "D")
@@ -163,8 +336,12 @@ def marks_age(
     if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
         day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
     last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    stale = marks_as_of < last_close - timedelta(minutes=1)
-    return MarksAge(words=age_words(age), stale=bool(stale), last_close=last_close)
+    cut = last_close - STALE_SLACK
+    if observed is not None and len(observed):
+        cut_utc = np.datetime64(cut.astimezone(UTC).replace(tzinfo=None), "us")
+        n_stale = int(np.count_nonzero(np.asarray(observed, dtype="datetime64[us]") < cut_utc))
+        return MarksAge(age_words(age), n_stale > 0, last_close, len(observed), n_stale)
+    return MarksAge(words=age_words(age), stale=marks_as_of < cut, last_close=last_close)
 
 
 def missing_by_name(unvalued: Sequence[risk.UnvaluedPosition], most: int = 8) -> str:

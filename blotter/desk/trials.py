@@ -63,6 +63,17 @@ class Trials:
         self._trades = kept
         return removed
 
+    def quit_question(self) -> str:
+        """What to ask before quitting while trials are held (empty: none are, just quit)."""
+        n = len(self._trades)
+        if not n:
+            return ""
+        them = "them" if n > 1 else "it"
+        return (
+            f"{n} trial trade{'s are' if n > 1 else ' is'} not booked: quitting drops {them} "
+            f"(the store never had {them}). Quit anyway?"
+        )
+
     def clear(self) -> int:
         """Drop every trial; how many there were."""
         n = len(self._trades)

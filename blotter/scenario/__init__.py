@@ -37,12 +37,14 @@ if TYPE_CHECKING:
     from blotter.scenario.grammar import VolShift as VolShift
     from blotter.scenario.grammar import parse_move as parse_move
     from blotter.scenario.pnl_explain import Explain as Explain
+    from blotter.scenario.pnl_explain import ExplainInBase as ExplainInBase
     from blotter.scenario.pnl_explain import ExplainMarkSet as ExplainMarkSet
     from blotter.scenario.pnl_explain import ExplainRow as ExplainRow
     from blotter.scenario.pnl_explain import ExplainSource as ExplainSource
     from blotter.scenario.pnl_explain import ExplainTrade as ExplainTrade
     from blotter.scenario.pnl_explain import closes_in_force as closes_in_force
     from blotter.scenario.pnl_explain import explain as explain
+    from blotter.scenario.pnl_explain import explain_in_base as explain_in_base
     from blotter.scenario.profile import PROFILE_AXES as PROFILE_AXES
     from blotter.scenario.profile import PROFILE_EXPOSURES as PROFILE_EXPOSURES
     from blotter.scenario.profile import PROFILE_MEASURES as PROFILE_MEASURES
@@ -92,8 +94,8 @@ HOMES: dict[str, tuple[str, ...]] = {
         "greek_profile", "profile_curves",
     ),
     "pnl_explain": (
-        "Explain", "ExplainMarkSet", "ExplainRow", "ExplainSource", "ExplainTrade",
-        "closes_in_force", "explain",
+        "Explain", "ExplainInBase", "ExplainMarkSet", "ExplainRow", "ExplainSource",
+        "ExplainTrade", "closes_in_force", "explain", "explain_in_base",
     ),
 }
 """Module -> the public names the package root gives from it (the ``TYPE_CHECKING`` imports

@@ -3,8 +3,9 @@ greeks, term by term, with new trades, late bookings and corrections apart."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, replace
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
 from datetime import date, datetime
 from typing import Any, Literal, Protocol, TypeVar, runtime_checkable
 
@@ -15,8 +16,10 @@ from blotter.book import Book
 from blotter.market import Market
 from blotter.risk import (
     BookValuation,
+    FxRates,
     MissingMark,
     UnvaluedPosition,
+    fx_rates,
     missing_marks,
     value_book,
 )
@@ -149,6 +152,8 @@ class Explain:
     corrected_trades: tuple[int, ...] = ()  # ids the start close held, cancelled in the period
     unvalued: tuple[UnvaluedPosition, ...] = ()  # left out: a mark missing at the start or end
     by_currency: tuple[ExplainRow, ...] = ()  # the total of each currency, labelled by its code
+    # Value at the end of what is held at the end (held positions and new trades), per currency.
+    end_values: dict[str, float] = field(default_factory=dict)
 
 
 def _chain(s: SetT, by_id: Mapping[int, SetT], link: str) -> SetT:
@@ -406,6 +411,13 @@ def explain(
             corrections=float(corr_u.sum()),
             currency=by_ccy[0].currency if by_ccy else None,
         )
+    end_values = {
+        c: float(end.value[pos_ccy == c].sum()) for c in (r.currency for r in by_ccy) if c
+    }
+    if len(trades):
+        new_end = value_book(trades, m1, t1)
+        for c, x in zip(new_end.position_currencies.tolist(), new_end.value.tolist(), strict=True):
+            end_values[c] = end_values.get(c, 0.0) + x
     return Explain(
         from_set=frm,
         to_set=to,
@@ -420,7 +432,64 @@ def explain(
         corrected_trades=period.corrected,
         unvalued=tuple(left_out.values()),
         by_currency=by_ccy,
+        end_values=end_values,
     )
+
+
+@dataclass(frozen=True)
+class ExplainInBase:
+    """An explain in the base currency: each currency's P&L at the start rates, and the FX
+    translation of what is held at the end.
+
+    With X0, X1 the start and end rates (base per one unit of C) and V1 the end value in C:
+    P&L in base = Σ X0·(P&L in C) + Σ (X1 − X0)·V1. ``at_start_rates`` is the first sum, term
+    by term (label and currency the base); ``translation`` the second; ``pnl`` both. NaN where
+    a rate is missing (``missing``, each mark named with the side that lacks it).
+    """
+
+    base: str
+    at_start_rates: ExplainRow
+    translation: float
+    start_rates: FxRates
+    end_rates: FxRates
+    missing: tuple[tuple[str, MissingMark], ...]
+
+    @property
+    def pnl(self) -> float:
+        """The period's P&L in the base currency: at the start rates plus translation."""
+        return self.at_start_rates.total + self.translation
+
+
+def explain_in_base(ex: Explain, base: str) -> ExplainInBase:
+    """``ex`` in the base currency ``base``, at the FX spots of its start and end markets."""
+    und = ex.end.book.underlyings
+    currencies = [str(r.currency) for r in ex.by_currency]
+    x0 = fx_rates(und, ex.start.market, base, currencies)
+    x1 = fx_rates(und, ex.end.market, base, currencies)
+    rows = ex.by_currency
+
+    def at_x0(amount: Callable[[ExplainRow], float]) -> float:
+        return math.fsum(x0.rate(str(r.currency)) * amount(r) for r in rows)
+
+    terms = {
+        k: math.fsum(x0.rate(str(r.currency)) * r.terms[k] for r in rows)
+        for k in ex.total.terms
+    }
+    converted = _explain_row(
+        f"total in {base}",
+        at_x0(lambda r: r.actual),
+        terms,
+        at_x0(lambda r: r.new_trades),
+        corrections=at_x0(lambda r: r.corrections),
+        currency=base,
+    )
+    translation = math.fsum(
+        (x1.rate(c) - x0.rate(c)) * v for c, v in ex.end_values.items() if c != base
+    )
+    missing = tuple(("start", m) for m in x0.missing_marks()) + tuple(
+        ("end", m) for m in x1.missing_marks()
+    )
+    return ExplainInBase(base, converted, translation, x0, x1, missing)
 
 
 def _valued_part(

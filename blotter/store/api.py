@@ -10,6 +10,7 @@ from zoneinfo import ZoneInfo
 
 from blotter import calendar as cal
 from blotter.store import db
+from blotter.store.checks import check_currency
 from blotter.store.errors import (
     NotWritableError,
     SchemaUpgradeNeeded,
@@ -98,21 +99,26 @@ def open_store(
 
 
 def create_store(
-    path: str | os.PathLike[str], desk_tz: ZoneInfo | None = None, clock: Clock | None = None
+    path: str | os.PathLike[str],
+    desk_tz: ZoneInfo | None = None,
+    clock: Clock | None = None,
+    base_currency: str = db.DEFAULT_BASE_CURRENCY,
 ) -> Store:
     """A new, empty book at ``path`` (refused if anything is there): schema applied, WAL mode;
-    ``desk_tz`` dates its closes (New York when None), ``clock`` as for ``open_store``.
+    ``desk_tz`` dates its closes (New York when None), ``base_currency`` is the currency its
+    totals convert to, ``clock`` as for ``open_store``.
 
     The file is created with mode ``FILE_MODE`` (0o660) less the umask, so it is never readable
     or writable by other users; SQLite gives its -wal and -shm files the same permissions.
     """
     p = Path(path)
     zone = desk_tz or cal.desk_tz()
+    check_currency(base_currency)
     create_empty(p)
     with db.removed_on_failure(p):
         conn = db.connect(p, read_only=False)
         try:
-            db.apply_schema(conn, zone)
+            db.apply_schema(conn, zone, base_currency)
         except BaseException:
             conn.close()
             raise

@@ -40,6 +40,9 @@ IMMUTABLE = "ro&immutable=1"
 """URI mode of a file nothing ever writes (the shipped demo, an idle book read once): SQLite reads
 it without locks or -wal/-shm side files."""
 
+DEFAULT_BASE_CURRENCY = "USD"
+"""The base currency of a book made without one, and of a book upgraded to schema 9."""
+
 BOOK_TABLES = frozenset({"trade", "contract", "mark", "mark_set", "underlying"})
 """Tables every blotter book has; a file missing one is refused."""
 
@@ -163,16 +166,20 @@ def utils_db(conn: sqlite3.Connection) -> sqlite_utils.Database:
     return sqlite_utils.Database(conn, recursive_triggers=False, execute_plugins=False)
 
 
-def schema_functions(conn: sqlite3.Connection, tz: ZoneInfo) -> None:
+def schema_functions(
+    conn: sqlite3.Connection, tz: ZoneInfo, base_currency: str = DEFAULT_BASE_CURRENCY
+) -> None:
     """Functions ``schema.sql``'s upgrade statements call (never its triggers, which any SQLite
-    client must be able to run): ``desk_date(instant)``, a stored instant's business date, and
-    ``desk_zone()``, the zone the book's closes are dated in from now on."""
+    client must be able to run): ``desk_date(instant)``, a stored instant's business date,
+    ``desk_zone()``, the zone the book's closes are dated in from now on, and
+    ``base_currency_default()``, the base currency a new or upgraded book starts with."""
 
     def desk_date(text: str | None) -> str | None:
         return None if text is None else business_date(from_timestamp(text), tz).isoformat()
 
     conn.create_function("desk_date", 1, desk_date, deterministic=True)
     conn.create_function("desk_zone", 0, lambda: tz.key, deterministic=True)
+    conn.create_function("base_currency_default", 0, lambda: base_currency, deterministic=True)
 
 
 def book_zone(conn: sqlite3.Connection, path: Path) -> ZoneInfo:
@@ -216,11 +223,14 @@ def removed_on_failure(path: Path) -> Iterator[None]:
         raise
 
 
-def apply_schema(conn: sqlite3.Connection, tz: ZoneInfo) -> None:
+def apply_schema(
+    conn: sqlite3.Connection, tz: ZoneInfo, base_currency: str = DEFAULT_BASE_CURRENCY
+) -> None:
     """Make a new book on the empty file ``conn`` has open: WAL mode, then every schema section
-    and the application id in one transaction (closes dated in the desk zone ``tz``)."""
+    and the application id in one transaction (closes dated in the desk zone ``tz``, totals
+    converted to ``base_currency``)."""
     conn.execute("PRAGMA journal_mode = WAL")
-    schema_functions(conn, tz)
+    schema_functions(conn, tz, base_currency)
     with immediate(conn):
         conn.execute(f"PRAGMA application_id = {APPLICATION_ID:d}")
         for _version, statements in sorted(schema_sections().items()):

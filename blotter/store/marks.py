@@ -3,7 +3,9 @@
 
 A mark set is written whole in one transaction (``mark_count`` and a trigger keep it whole). The
 marks in force are the latest value of each point across every set but corrections; a close set
-copies the marks in force when it is written, so any earlier close can be recalled exactly.
+copies the marks in force when it is written, so any earlier close can be recalled exactly. Each
+point keeps when it was observed: a logged or imported point when its set was marked, a close's
+copy the time the point it copies was last marked, so a close never re-dates a carried mark.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ from datetime import date, datetime
 
 import numpy as np
 
+from blotter.arrays import read_only
 from blotter.market import Market, RateCurve, VolSurface
 from blotter.store import db
 from blotter.store.checks import check_id, check_mark_point
@@ -34,7 +37,7 @@ from blotter.store.times import (
 POINT_COLUMNS = ("kind", "underlying_id", "currency", "expiry", "strike", "tenor_days", "value")
 """Columns of a mark point as stored (the underlying by its id)."""
 
-MARK_ROW_COLUMNS = ("mark_set_id", "seq", *POINT_COLUMNS)
+MARK_ROW_COLUMNS = ("mark_set_id", "seq", *POINT_COLUMNS, "observed_at")
 """Columns of a mark's row, as the store writes them (ids are SQLite's)."""
 
 INSERT_CHUNK = 1000
@@ -42,7 +45,7 @@ INSERT_CHUNK = 1000
 
 _IN_FORCE_SQL = """
     SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
-           m.tenor_days, m.value
+           m.tenor_days, m.value, m.observed_at
     FROM mark m JOIN (
         SELECT max(m2.mark_id) AS mark_id FROM mark m2
         JOIN mark_set s ON s.mark_set_id = m2.mark_set_id
@@ -71,16 +74,21 @@ def write_mark_set(
     corrects: int | None = None,
     day: date | None = None,
     progress: Callable[[int], None] | None = None,
+    observed: Sequence[str] | None = None,
 ) -> tuple[int, int]:
     """Write one mark set of ``points`` (checked already) in the transaction ``conn`` has open;
-    returns (set id, id of its last mark). ``progress(points_written)`` is called between
-    chunks of ``INSERT_CHUNK`` points."""
+    returns (set id, id of its last mark). ``observed`` is each point's observation instant as
+    stored (a close's copies keep theirs); None observes every point at ``marked_at``.
+    ``progress(points_written)`` is called between chunks of ``INSERT_CHUNK`` points."""
+    at = timestamp_text(marked_at)
+    if observed is not None and len(observed) != len(points):
+        raise StoreError("a mark set needs one observation time per point")
     cur = conn.execute(
         "INSERT INTO mark_set (kind, marked_at, who, note, source, corrects, mark_count, "
         "business_date) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
         (
             kind,
-            timestamp_text(marked_at),
+            at,
             who,
             note,
             source,
@@ -92,7 +100,10 @@ def write_mark_set(
     set_id = int(cur.lastrowid or 0)
     for start in range(0, len(points), INSERT_CHUNK):
         chunk = points[start : start + INSERT_CHUNK]
-        rows = [(set_id, start + j + 1, *p) for j, p in enumerate(chunk)]
+        rows = [
+            (set_id, start + j + 1, *p, at if observed is None else observed[start + j])
+            for j, p in enumerate(chunk)
+        ]
         db.insert_rows(conn, "mark", MARK_ROW_COLUMNS, rows)
         if progress is not None and start + len(chunk) < len(points):
             progress(start + len(chunk))
@@ -218,7 +229,7 @@ class Marks(ReferenceData):
             return db.rows(
                 conn,
                 "SELECT mark_id, mark_set_id, kind, underlying_id, currency, expiry, strike, "
-                "tenor_days, value FROM mark WHERE mark_set_id = ? ORDER BY seq",
+                "tenor_days, value, observed_at FROM mark WHERE mark_set_id = ? ORDER BY seq",
                 (mark_set_id,),
             )
         if as_of is None:
@@ -283,6 +294,9 @@ class Marks(ReferenceData):
             )
             for ccy, pts in rates.items()
         }
+        observed = read_only(
+            np.array([r["observed_at"].rstrip("Z") for r in rows], dtype="datetime64[us]")
+        )
         version = max((r["mark_id"] for r in rows), default=0)
         newest = max((sets[s]["marked_at"] for s in set_ids), default=None)
         if mark_set_id is not None:
@@ -301,6 +315,7 @@ class Marks(ReferenceData):
             div_yields=divs,
             mark_set_id=set_id,
             mark_kind=kind,
+            observed_at=observed,
         )
 
     @guard_damage
@@ -329,6 +344,7 @@ class Marks(ReferenceData):
                 strike=r["strike"],
                 tenor_days=r["tenor_days"],
                 value=r["value"],
+                observed_at=from_timestamp(r["observed_at"]),
             )
             for r in rows
         ]
@@ -344,6 +360,8 @@ class Marks(ReferenceData):
         source: str = "close",
     ) -> int:
         """Write the marks in force now as one immutable close set; returns its id.
+
+        Each point is copied with the time it was last marked (never the close's time).
 
         The set closes the business date of ``marked_at`` (``business_date``); a date closes
         once, and a second close for it is refused unless it is a correction. ``corrects`` names
@@ -413,6 +431,7 @@ class Marks(ReferenceData):
                 source=source,
                 corrects=corrects,
                 day=day,
+                observed=[r["observed_at"] for r in rows],
             )
             row = db.one(
                 conn,

@@ -80,7 +80,10 @@ class ContractRecord:
 
 @dataclass(frozen=True)
 class MarkRecord:
-    """One mark point as stored; ``value`` is a price for spot, else a decimal."""
+    """One mark point as stored; ``value`` is a price for spot, else a decimal.
+
+    ``marked_at`` is when its set was written, ``observed_at`` when the point's value was marked
+    (a close's copy of a carried point keeps the time that point was last marked)."""
 
     mark_id: int
     mark_set_id: int
@@ -94,6 +97,7 @@ class MarkRecord:
     strike: float | None
     tenor_days: int | None
     value: float
+    observed_at: datetime
 
 
 @dataclass(frozen=True)

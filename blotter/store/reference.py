@@ -16,6 +16,7 @@ from blotter.book import UNDERLYING_KINDS, Underlyings
 from blotter.store import db
 from blotter.store.checks import (
     check_book_name,
+    check_currency,
     check_symbol_length,
     check_symbol_words,
     within,
@@ -302,6 +303,38 @@ class ReferenceData(StoreCore):
         """The desk notes, oldest first."""
         with self._read() as conn:
             return [text for (text,) in conn.execute("SELECT text FROM desk_note ORDER BY note_id")]
+
+    @guard_damage
+    def base_currency(self) -> str:
+        """The book's base currency (ISO 4217): the latest row of ``base_currency``."""
+        with self._read() as conn:
+            row = db.one(conn, "SELECT currency FROM base_currency ORDER BY base_id DESC LIMIT 1")
+        if row is None:
+            raise StoreError(f"{self.path} names no base currency (its first row is missing)")
+        return str(row["currency"])
+
+    @guard_damage
+    def base_currency_history(self) -> list[dict[str, Any]]:
+        """Every base currency the book has had, oldest first: currency, set_at and who (None
+        for the first, written with the book or by its upgrade to schema 9)."""
+        with self._read() as conn:
+            return [
+                dict(r)
+                for r in db.rows(
+                    conn, "SELECT currency, set_at, who FROM base_currency ORDER BY base_id"
+                )
+            ]
+
+    def set_base_currency(self, currency: str) -> int:
+        """Record ``currency`` as the book's base currency from now on (a new row; earlier rows
+        stay as they were) and return the row's id."""
+        check_currency(currency)
+        with self._write() as conn:
+            cur = conn.execute(
+                "INSERT INTO base_currency (currency, set_at, who) VALUES (?, ?, ?)",
+                (currency, timestamp_text(self.now()), self.who),
+            )
+            return int(cur.lastrowid or 0)
 
     @guard_damage
     def book_names(self) -> list[str]:

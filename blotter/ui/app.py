@@ -3,7 +3,8 @@
 ``make_app(db_path, settings, clock=None)`` builds it; the CLI and the tests use the same factory.
 All reading, valuing and revaluing runs in thread workers (exclusive per group) that post
 messages back; handlers on the event loop only format and lay out what they receive. The only
-timer-like activity when idle is the store's change check (``Settings.watch_interval_s``).
+timer-like activity when idle is the store's change check (``Settings.watch_interval_s``), which
+also asks for the book to be valued again once the clock passes into a new minute.
 """
 
 from __future__ import annotations
@@ -44,9 +45,11 @@ from blotter.ui.messages import (
     MoveFailed,
     ProfileReady,
     StoreChanged,
+    ValuationDue,
     WorkerResult,
 )
 from blotter.ui.screens.base import DeskScreen
+from blotter.ui.screens.confirm import ConfirmScreen
 from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.screens.marks import MarksScreen
@@ -176,6 +179,7 @@ class BlotterApp(App[None]):
         self._compiling = False
         self._lower_notes: list[str] = []
         self._compile_poll: Timer | None = None
+        self._revalue_asked = -1  # book_seq of the valuation a minute's revaluation was asked for
         self.trial_trades = Trials()
         self.book_in_view: str | None = None  # one book's trades, or None for all books
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
@@ -193,6 +197,7 @@ class BlotterApp(App[None]):
         with Container(id="body"):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
+                yield Static("", id="fx-delta", markup=False)
             yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield RevalPane()
@@ -342,7 +347,9 @@ class BlotterApp(App[None]):
                 loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
-            tree = data.BookTree(valued.valuation, self.tz, self._row_alert, today)
+            tree = data.BookTree(
+                valued.valuation, self.tz, self._row_alert, today, base=loaded.base_currency
+            )
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
                 self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
@@ -404,6 +411,10 @@ class BlotterApp(App[None]):
         self.data_version = state.data_version
         self.query_one(BookTable).show(state.tree)
         self.query_one("#book-pane").border_subtitle = _pnl_note(state.tree)
+        fx_line = state.tree.fx_delta_words()
+        fx_delta = self.query_one("#fx-delta", Static)
+        fx_delta.update(fx_line)
+        fx_delta.display = bool(fx_line)
         self._refresh_header()
         self._note_lower_bounds(state.valuation.notes)
         text = self.query_one(MoveInput).value
@@ -485,11 +496,28 @@ class BlotterApp(App[None]):
                     continue
                 if last is not None and version != last:
                     self.post_message(StoreChanged(version))
+                elif self._revalue_due():
+                    self.post_message(ValuationDue())
                 last = version
         finally:
             close = getattr(st, "close", None)
             if close is not None:
                 close()
+
+    def _revalue_due(self) -> bool:
+        """In the watcher: the clock has passed into a minute after the shown valuation's, and no
+        load is asked for yet (``desk.session.revalue_due``)."""
+        state = self.state
+        if state is None or self._revalue_asked == state.book_seq:
+            return False
+        if not session.revalue_due(state.session.valuation_time, self.clock()):
+            return False
+        self._revalue_asked = state.book_seq
+        return True
+
+    def on_valuation_due(self, message: ValuationDue) -> None:
+        """Value the book again at the clock's time (marks and trades read afresh)."""
+        self.load_book()
 
     def on_store_changed(self, message: StoreChanged) -> None:
         self.load_book()
@@ -504,7 +532,8 @@ class BlotterApp(App[None]):
 
     @on(Input.Submitted, "#whatif-input")
     def _bar_submitted(self, event: Input.Submitted) -> None:
-        """Enter keeps a line that parses in the bar's history."""
+        """Enter keeps a line that parses in the bar's history and goes back to the book pane
+        (a line that does not parse keeps the focus, to be put right)."""
         from blotter import scenario
 
         symbols = self.state.valuation.book.underlyings.symbols if self.state else None
@@ -513,6 +542,7 @@ class BlotterApp(App[None]):
         except scenario.MoveSyntaxError:
             return
         self.query_one(MoveInput).remember(event.value)
+        self.action_focus_book()  # so the next command key is a command, not bar text
 
     def _submit_move(self, text: str, force: bool = False) -> None:
         """Parse ``text`` here (cheap), apply it in a worker; a bad line keeps the last result."""
@@ -541,7 +571,8 @@ class BlotterApp(App[None]):
             and self.result is not None
             and move.describe() == self.move.describe()
         ):
-            bar.show_ok(move.describe(), text)  # same move as shown (spacing, case): keep it
+            # the same move as shown (spacing, case): keep it, and its warning
+            bar.show_ok(move.describe(), text, self.query_one(MovePane).warning)
             return
         # Debounce on the trailing edge only: a keystroke with no revaluation in flight is
         # applied at once; one that arrives mid-revaluation waits, so a burst collapses to one.
@@ -586,8 +617,9 @@ class BlotterApp(App[None]):
             return
         previous_days = self._roll_days(self.move)
         self.move_text, self.move, self.result = message.text, message.move, message.result
-        self.query_one(MovePane).show(message.text, message.move.describe(), message.result)
-        self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text)
+        said = session.move_words(self.state.valuation, message.move)
+        self.query_one(MovePane).show(message.text, said.words, message.result, said.warning)
+        self.query_one(WhatIfBar).show_ok(message.move.describe(), message.text, said.warning)
         self._stamp_move_painted()
         days = self._roll_days(message.move)
         if days != previous_days or self.query_one(GridPane).ladder is None:
@@ -877,6 +909,19 @@ class BlotterApp(App[None]):
         self.load_book()
 
     async def action_quit(self) -> None:
+        """Quit; with trial trades held (never written) ask first, so one key too many does
+        not drop them."""
+        question = self.trial_trades.quit_question()
+        if not question:
+            self._quit()
+            return
+        self.push_screen(ConfirmScreen(question), self._quit_answered)
+
+    def _quit_answered(self, yes: bool | None) -> None:
+        if yes:
+            self._quit()
+
+    def _quit(self) -> None:
         self._stop_watch.set()
         self.exit()
 

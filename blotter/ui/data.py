@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -22,6 +23,7 @@ from blotter.desk.session import Session
 from blotter.printable import printable
 from blotter.scenario.profile import profile_curves
 from blotter.ticks import price_text, tick_decimals
+from blotter.ui import fmt
 
 BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
     ("spot", "Spot"),
@@ -124,9 +126,11 @@ class BookTree:
         tz: Any,
         alert: Callable[[risk.ExposureRow], str] | None = None,
         pnl: PnlToday = NO_CLOSE,
+        base: str | None = None,
     ) -> None:
         self.valuation = valuation
         self.pnl = pnl
+        self.base = base  # the book's base currency; None shows no base-currency rows
         self.book = valuation.book
         self.tz = tz
         self._alert = alert or (lambda row: "")
@@ -271,6 +275,51 @@ class BookTree:
             )
             for r in risk.currency_totals(self.valuation)
         ]
+
+    @cached_property
+    def _in_base(self) -> tuple[risk.FxRates, risk.FxDelta] | None:
+        """The FX rates and FX delta in the base currency, when the book holds anything outside
+        it (else None: a base row would repeat the total)."""
+        if self.base is None:
+            return None
+        fx = risk.valuation_fx_rates(self.valuation, self.base)
+        delta = risk.fx_delta(self.valuation, fx)
+        if not (set(self.currencies) - {self.base} or delta.by_currency):
+            return None
+        return fx, delta
+
+    def base_total(self) -> BookRow | None:
+        """The book's total in the base currency at the marked FX spots (share counts "—"; money
+        "—" when a pair has no spot), or None when nothing is outside the base."""
+        found = self._in_base
+        if found is None:
+            return None
+        fx = found[0]
+        row = risk.base_total(self.valuation, fx)
+        return BookRow(
+            key="base",
+            level=0,
+            label=f"all in {fx.base}",
+            values=_row_values(row),
+            mixed=True,
+            currency=fx.base,
+            mixed_currency=bool(fx.missing),
+        )
+
+    def fx_delta_words(self) -> str:
+        """The FX delta line under the Book pane ("" when nothing is outside the base)."""
+        found = self._in_base
+        if found is None:
+            return ""
+        fx, delta = found
+        parts = [
+            f"{c} {fmt.money(x) if math.isfinite(x) else fmt.NOT_ADDITIVE}"
+            for c, x in delta.by_currency.items()
+        ] or ["none"]
+        missing = [m.words() for m in (*fx.missing_marks(), *delta.missing)]
+        unread = [f"{u}: legs not read off its symbol" for u in delta.unread]
+        line = f"FX delta, {fx.base} per +1% against {fx.base}: {' · '.join(parts)}"
+        return " │ ".join([line, *dict.fromkeys(missing), *unread])
 
     def total_without_trials(self) -> BookRow | None:
         """The total of the live positions only, when the book holds trial rows (else None)."""

@@ -32,6 +32,8 @@ class KeySpec:
     where: str = "app"  # "app", "bar", "book", "help", or a screen: "marks", "review", "trades",
     # "form", "explain", "list", "sets"
     priority: bool = False  # handled when the key reaches the app, before the focused widget
+    # Esc ("escape") is only ever a last extra key of an action that closes Help or a modal: it
+    # may arrive late or merged over SSH, and closing is harmless, so it is never the only key.
 
 
 KEYS: tuple[KeySpec, ...] = (
@@ -48,7 +50,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "book-switch",
         "next_book",
-        "n",
+        "n,ctrl+u",
         "Show the next book: all books, then each book by name",
         short="Book",
     ),
@@ -161,7 +163,7 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "close-cancel",
         "back",
-        "n,q,f10",
+        "n,q,f10,escape",
         "Close review: back without writing",
         short="Back",
         where="review",
@@ -250,7 +252,12 @@ KEYS: tuple[KeySpec, ...] = (
         where="form",
     ),
     KeySpec(
-        "form-back", "back", "f10,ctrl+o", "Form: back without booking", short="Back", where="form"
+        "form-back",
+        "back",
+        "f10,ctrl+o,escape",
+        "Form: back without booking",
+        short="Back",
+        where="form",
     ),
     KeySpec(
         "explain-from",
@@ -298,10 +305,14 @@ KEYS: tuple[KeySpec, ...] = (
     KeySpec(
         "help-close",
         "close",
-        "q,question_mark,f1,f10",
+        "q,question_mark,f1,f10,escape",
         "Help: back to the book",
         short="Back",
         where="help",
+    ),
+    KeySpec("confirm-yes", "yes", "y,f5", "Question: yes", short="Yes", where="confirm"),
+    KeySpec(
+        "confirm-no", "no", "n,q,f10,escape", "Question: no, back", short="No", where="confirm"
     ),
 )
 """All bindings of the app, in the order the help screen lists them."""
@@ -316,6 +327,7 @@ KEY_NAMES = {
     "shift+tab": "Shift+Tab",
     "backslash": "\\",
     "colon": ":",
+    "escape": "Esc",
     "underscore": "_",
 }
 """How the help screen and footer write Textual key names."""

@@ -121,6 +121,13 @@ class StoreChanged(WorkerResult):
         return isinstance(message, StoreChanged)
 
 
+class ValuationDue(WorkerResult):
+    """The clock passed into a new minute since the book was valued: value it again."""
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, ValuationDue)
+
+
 class ScreenResult(WorkerResult):
     """A desk screen's (or modal's) worker result, handled by the screen that posted it."""
 

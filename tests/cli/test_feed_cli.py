@@ -175,3 +175,17 @@ def test_demo_feed_piped_into_feed_moves_the_spots(demo_db: Path) -> None:
     assert fed.returncode == 0, fed.stderr
     last_a = [q["spot"] for q in quotes if q["symbol"] == "DEMOA"][-1]
     assert _spot(demo_db, "DEMOA") == last_a != before
+
+
+def test_the_feed_logs_bad_lines_and_its_end(demo_db: Path, tmp_path: Path) -> None:
+    log = tmp_path / "feed.log"
+    text = '{"symbol": "DEMOA", "spot": 181}\n{"symbol": "GHOST", "spot": 1}\n'
+    r = subprocess.run(
+        [sys.executable, "-m", "blotter", "--log-file", str(log), "--db", str(demo_db), "feed"],
+        input=text, capture_output=True, text=True, timeout=120, check=False,
+    )
+    assert r.returncode == 1, r.stderr
+    lines = log.read_text(encoding="utf-8").splitlines()
+    assert len(lines) == 2, lines
+    assert " WARNING blotter.feed: file:stdin line 2: unknown underlying GHOST" in lines[0]
+    assert " INFO blotter.feed: file:stdin ended: 2 lines, 1 quotes, 1 marks written" in lines[1]

@@ -35,7 +35,7 @@ def _file_state(db: Path) -> tuple[object, ...]:
 def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) -> None:
     db = tmp_path / "own.db"
     out = json.loads(run("create", str(db), "--book", "vol-desk", "--json").stdout)
-    assert out == {"path": str(db), "book": "vol-desk"}
+    assert out == {"path": str(db), "book": "vol-desk", "base_currency": "USD"}
     run("--db", str(db), "underlying", "add", "QQZ", "--kind", "stock", "--currency", "USD",
         "--multiplier", "100", "--div-yield", "1.5%", "--beta", "1.3", "--description", "test")
     run("--db", str(db), "underlying", "add", "QQIX", "--kind", "index", "--currency", "USD",
@@ -67,7 +67,7 @@ def test_create_then_underlyings_are_listed_with_their_defaults(tmp_path: Path) 
         (["QQY", "--calendar", "NOWHERE"], "unknown exchange calendar"),
         (["QQY", "--zone", "Mars/Olympus"], "unknown time zone"),
         (["QQY", "--cutoff", "4pm"], "HH:MM"),
-        (["QQY", "--div-yield", "150%"], "div yield must be from -1 to 1"),
+        (["QQY", "--div-yield", "150%"], "a dividend yield must be from -100% to 100%, got 150%"),
         (["QQY", "--multiplier", "0"], "multiplier must be from 1e-06 to 10,000,000"),
         (["QQY", "--beta", "40"], "beta must be from -20 to 20"),
     ],
@@ -203,7 +203,7 @@ def test_an_atm_vol_beside_strike_vols_is_the_smile_point_at_the_spot(tmp_path: 
     run(*g, "mark", "vol", "QQV", "2027-03-19", "4%")
     for strike in ("95", "100", "105"):
         run(*g, "trade", "add", "QQV", "--expiry", "2027-03-19", "--strike", strike, "--call",
-            "--qty", "1", "--price", "1", "--time", "2026-12-01T15:00:00Z")
+            "--qty", "1", "--price", "1", "--time", "2026-12-01T15:00:00Z", "--force")
 
     def vols() -> dict[str, float]:
         out = json.loads(run(*g, "risk", "--by", "position", "--json", "--at",

@@ -30,7 +30,7 @@ def test_trade_add_cancel_amend_and_list(demo_db: Path) -> None:
         "--qty",
         "-5",
         "--price",
-        "3.20",
+        "8.60",
         "--expiry",
         "2027-03-19",
         "--strike",
@@ -256,7 +256,7 @@ def test_list_csv_imports_back_unchanged_through_the_commands(
         "--qty",
         "3",
         "--price",
-        "0.5",
+        "2.5",
         "--expiry",
         "2027-01-15",
         "--strike",
@@ -385,7 +385,7 @@ def test_trade_add_time_without_a_zone_is_desk_local_time(
 
     monkeypatch.setenv("BLOTTER_TZ", tz)
     db = str(demo_db)
-    args = ("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "index-vol")
+    args = ("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--book", "index-vol")
     args += ("--db", db, "--json")
     tid = json.loads(run(*args, "--time", "2026-11-20T10:00").stdout)["trade_id"]
     zoned = json.loads(run(*args, "--time", "2026-11-20T10:00:00-05:00").stdout)["trade_id"]
@@ -411,7 +411,7 @@ def test_desk_tz_of_the_settings_file_is_the_zone_of_every_command(
     tid = json.loads(
         run(*db, "trade", "add", "DEMOA", "--book", "equity-vol", "--expiry", "2026-12-11",
             "--strike", "190", "--call", "--qty", "1", "--price", "2", "--time",
-            "2026-12-01T10:00", "--json").stdout
+            "2026-12-01T10:00", "--json", "--force").stdout
     )["trade_id"]
     with open_store(demo_db, read_only=True) as s:
         booked = {t.trade_id: t.trade_time for t in s.trades()}[tid]
@@ -554,7 +554,7 @@ def test_demo_force_replaces_only_a_demo_book(tmp_path: Path, demo_db: Path) -> 
     traded = tmp_path / "traded.db"
     traded.write_bytes(demo_db.read_bytes())
     db = str(traded)
-    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", "equity-vol", "--db", db)
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--book", "equity-vol", "--db", db)
     marked = tmp_path / "marked.db"
     marked.write_bytes(demo_db.read_bytes())
     run("mark", "spot", "DEMOA", "181", "--db", str(marked))
@@ -624,10 +624,10 @@ def test_notes_and_book_names_cannot_drive_the_terminal(demo_db: Path, tmp_path:
     db = str(demo_db)
     book = f"desk{CONTROLS[0]}"
     note = "".join(CONTROLS) + "end"
-    r = run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--new-book",
+    r = run("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--book", book, "--new-book",
             "--note", note, "--db", db)
     assert _raw_controls(r.stdout) == [] and "\\x1b]2;TITLE\\x07" in r.stdout
-    run("trade", "add", "DEMOA", "--qty", "1", "--price", "1", "--book", book, "--note",
+    run("trade", "add", "DEMOA", "--qty", "1", "--price", "180", "--book", book, "--note",
         "=HYPERLINK(\"http://x\")", "--db", db)
     run("mark", "close", "--note", note, "--db", db)
     run("underlying", "add", "ESCU", "--kind", "stock", "--currency", "USD", "--multiplier",
@@ -653,3 +653,24 @@ def test_notes_and_book_names_cannot_drive_the_terminal(demo_db: Path, tmp_path:
     run("trade", "import", str(mine), "--new-books", "--db", str(again))
     back = json.loads(run("trade", "list", "--json", "--db", str(again)).stdout)
     assert sorted(t["note"] for t in back) == sorted([note, '=HYPERLINK("http://x")'])
+
+
+def test_a_price_far_from_the_model_value_needs_force(demo_db: Path) -> None:
+    """``trade add`` and ``trade amend`` refuse a price more than half its model value away (and
+    over 0.05) in words, writing nothing; --force books it."""
+    db = ("--db", str(demo_db))
+    with open_store(demo_db, read_only=True) as s:
+        n = len(s.trades())
+    hedge = ("trade", "add", "DEMOFU", "--qty", "1", "--book", "index-vol", *db)
+    r = run(*hedge, "--price", "1.23", code=1)
+    assert "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96" in r.output
+    assert "nothing written (--force books it)" in r.output
+    tid = json.loads(run(*hedge, "--price", "4800", "--json").stdout)["trade_id"]
+    r = run("trade", "amend", str(tid), "--price", "1.23", "--reason", "typo", *db, code=1)
+    assert "from its model value 4,826.96" in r.output
+    with open_store(demo_db, read_only=True) as s:
+        assert len(s.trades()) == n + 1 and s.trades()[-1].state == "live"
+    run("trade", "amend", str(tid), "--price", "1.23", "--reason", "on purpose", "--force", *db)
+    run(*hedge, "--price", "1.23", "--force")
+    with open_store(demo_db, read_only=True) as s:
+        assert [t.price for t in s.trades()[-2:]] == [1.23, 1.23]

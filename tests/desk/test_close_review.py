@@ -28,7 +28,7 @@ def test_the_points_in_force_and_a_first_close(xyz_db: Path) -> None:
     ]
     assert [p.shown(p.value) for p in view.points] == ["100.00", "30.00%", "4.00%"]
     assert view.last_close_id is None and all(p.close_value is None for p in view.points)
-    now = max(p.marked_at for p in view.points if p.marked_at is not None)
+    now = max(p.observed_at for p in view.points if p.observed_at is not None)
     review = cr.close_review(view, now)
     assert review.n_points == 3 and review.corrects is None
     assert review.changed == ("XYZ spot new 100.00", f"XYZ vol {EXPIRY} ATM new 30.00%",
@@ -52,7 +52,7 @@ def test_changes_since_the_close_and_a_correction_of_the_day(xyz_db: Path) -> No
     view = view_of(xyz_db)
     spot, vol, rate = view.points
     assert (spot.change(), vol.change(), rate.change()) == ("+1,134.50", "+1.25 pt", "+25.0 bp")
-    review = cr.close_review(view, max(p.marked_at for p in view.points if p.marked_at))
+    review = cr.close_review(view, max(p.observed_at for p in view.points if p.observed_at))
     assert review.changed[0] == "XYZ spot 100.00 → 1,234.50 (+1,134.50)"
     assert review.corrects == first and review.close_day == view.close_day
     with store.open_store(xyz_db) as st:
@@ -66,7 +66,7 @@ def test_a_close_that_the_store_refuses_writes_nothing(xyz_db: Path) -> None:
     """A review made before another terminal closed the day writes a second close of it: the
     store refuses it in words, and nothing is written."""
     view = view_of(xyz_db)
-    review = cr.close_review(view, max(p.marked_at for p in view.points if p.marked_at))
+    review = cr.close_review(view, max(p.observed_at for p in view.points if p.observed_at))
     with store.open_store(xyz_db) as st:
         st.commit_close()
         n = len(st.mark_sets())
@@ -84,8 +84,9 @@ def test_missing_and_stale_points(xyz_db: Path) -> None:
     view = view_of(xyz_db)
     needed = [p.label for p in view.points if p.needed]
     assert needed == ["ABC spot", f"ABC {EXPIRY} ATM", f"EUR rate {cr.MISSING_CURVE_TENOR_DAYS}d"]
-    marked = max(p.marked_at for p in view.points if p.marked_at is not None)
+    marked = max(p.observed_at for p in view.points if p.observed_at is not None)
     review = cr.close_review(view, marked + cr.STALE_AFTER + timedelta(hours=3))
     assert review.missing == ("ABC spot", f"ABC vol {EXPIRY} ATM", "EUR rate 365d")
-    assert review.stale[0].startswith("XYZ spot marked 1 day 3 h ago")
+    assert review.stale[0].startswith("XYZ spot 100.00 marked ")
+    assert review.stale[0].endswith(", 1 day 3 h ago")
     assert len(review.stale) == 3 and review.n_points == 3

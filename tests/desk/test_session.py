@@ -82,6 +82,20 @@ def test_promoting_trials_books_them(xyz_db: Path) -> None:
     assert (last.contract, last.quantity, last.price) == ("XYZ 2027-01-15 100 P", 3, 2.5)
 
 
+def test_quitting_with_trials_held_is_a_question(xyz_db: Path) -> None:
+    with store.open_store(xyz_db, read_only=True) as st:
+        unders = {r["symbol"]: r for r in st.underlying_records()}
+    trials = Trials()
+    assert trials.quit_question() == ""
+    contract = trial_contract(unders, ContractTerms("XYZ", EXPIRY, 100.0, False), [])
+    trials.add(contract, 3, 2.5, "desk")
+    trials.add(contract, -1, 2.6, "desk")
+    assert trials.quit_question() == (
+        "2 trial trades are not booked: quitting drops them (the store never had them). "
+        "Quit anyway?"
+    )
+
+
 @pytest.mark.parametrize(
     "move,days",
     [
@@ -110,6 +124,50 @@ def test_marks_age_is_stale_once_a_business_day_close_has_passed() -> None:
     assert session.age_words(timedelta(minutes=-1)) == "dated after the valuation time:"
 
 
+def test_one_fresh_mark_does_not_make_old_points_fresh() -> None:
+    """Staleness is per point: 420 of 421 points marked Monday, one marked Wednesday morning,
+    seen Wednesday after Tuesday's close; the newest mark alone would say fresh."""
+    monday = np.datetime64("2026-11-30T21:00:00", "us")  # 16:00 New York
+    fresh = datetime(2026, 12, 2, 14, 30, tzinfo=UTC)  # Wednesday 09:30 New York
+    observed = np.array([monday] * 420 + [np.datetime64(fresh.replace(tzinfo=None), "us")])
+    now = fresh + timedelta(minutes=30)
+    newest_only = session.marks_age(fresh, now, NEW_YORK)
+    assert not newest_only.stale
+    age = session.marks_age(fresh, now, NEW_YORK, observed=observed)
+    assert (age.stale, age.points, age.stale_points) == (True, 421, 420)
+    assert age.stale_words(NEW_YORK) == "STALE: 420 of 421 marked before 12-01 16:00 close"
+    observed[:] = np.datetime64(fresh.replace(tzinfo=None), "us")  # every point marked again
+    again = session.marks_age(fresh, now, NEW_YORK, observed=observed)
+    assert (again.stale, again.stale_points, again.stale_words(NEW_YORK)) == (False, 0, "")
+
+
+def test_a_close_carries_old_points_stale_into_the_session(tmp_path: Path) -> None:
+    """Marks made Monday, a close written Tuesday evening with only the spot marked again: the
+    session still counts the vol and rate as older than Tuesday's close (a close re-dates
+    nothing)."""
+    path = tmp_path / "book.db"
+    monday = datetime(2026, 11, 30, 20, 0, tzinfo=UTC)
+    clock = [monday]
+    st = store.create_store(path, clock=lambda: clock[0])
+    try:
+        st.add_underlying("XYZ", "stock", "USD", 100.0, description="invented for the tests")
+        st.log_spot("XYZ", 100.0)
+        st.log_vol("XYZ", EXPIRY, 0.30)
+        st.log_rate("USD", 365, 0.04)
+        st.add_trade("desk", "XYZ", 10, 3.0, EXPIRY, 105.0, True, create_book=True)
+        clock[0] = datetime(2026, 12, 1, 21, 10, tzinfo=UTC)  # Tuesday 16:10 New York
+        st.log_spot("XYZ", 101.0)
+        clock[0] = datetime(2026, 12, 1, 21, 30, tzinfo=UTC)  # 16:30: the close
+        st.commit_close()
+        desk = session.value(session.read(st), clock[0], NEW_YORK)
+    finally:
+        st.close()
+    assert desk.mark_kind == "close" and desk.marks_as_of == clock[0]
+    age = desk.marks_age(clock[0] + timedelta(hours=1), NEW_YORK)
+    assert (age.points, age.stale_points) == (3, 2)
+    assert age.stale_words(NEW_YORK) == "STALE: 2 of 3 marked before 12-01 16:00 close"
+
+
 def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
     with store.open_store(xyz_db) as st:
         st.add_underlying("ABC", "stock", "EUR", 100.0, description="invented, never marked")
@@ -123,3 +181,95 @@ def test_left_out_positions_are_named_with_what_they_lack(xyz_db: Path) -> None:
     )
     assert session.missing_by_name(unvalued, most=1) == "ABC: spot, vol; 1 more"
     assert session.unvalued_words(()) == ""
+
+
+@pytest.mark.parametrize(
+    "text,words,warning",
+    [
+        ("spot -3%", "every spot -3.00%", ""),
+        ("spot -3", "every spot -3.00 USD", ""),  # 3% of XYZ's 100: no warning
+        (
+            "spot -12",
+            "every spot -12.00 USD",
+            "-12.00 USD is -12.0% of XYZ 100",
+        ),
+        ("XYZ spot =101", "XYZ spot set to 101 USD", ""),
+        ("spot -3% beta vol -10%", "every spot -3.00% × beta, vol -10.00% of itself", ""),
+        (
+            "vol +2 weighted days 1 rate +25bp moneyness",
+            "vol +2.00 pts weighted by √T, 1 calendar day on, rates +25 bp, vols sticky moneyness",
+            "",
+        ),
+        ("bdays 2", "2 business days on", ""),
+    ],
+)
+def test_a_move_is_said_with_its_units_and_a_large_absolute_spot_move_is_warned(
+    xyz_db: Path, text: str, words: str, warning: str
+) -> None:
+    """``spot -3`` (currency units) and ``spot -3%`` read apart in words; an absolute move over
+    10% of a spot it moves is warned about (the slip for a relative move)."""
+    with store.open_store(xyz_db, read_only=True) as st:
+        desk = session.value(session.read(st), NOW, NEW_YORK)
+    move = scenario.parse_move(text, ["XYZ"])
+    said = session.move_words(desk.valuation, move)
+    assert (said.words, said.warning) == (words, warning)
+
+
+AT_T0 = datetime(2026, 12, 1, 21, 0, tzinfo=UTC)
+"""``T0`` as an aware time: 16:00 New York, 45 days before ``EXPIRY``'s cut-off."""
+
+
+@pytest.mark.parametrize("strike,call", [(105.0, True), (95.0, False), (110.0, False)])
+def test_the_model_value_of_a_contract_is_quantlibs(
+    xyz_db: Path, strike: float, call: bool
+) -> None:
+    """A contract booked or not (110 P is new to the file) is valued on the marks in force as
+    QuantLib's analytic European engine values it; the underlying at its spot."""
+    from blotter.desk import entry
+    from blotter.desk.trials import trial_contract
+
+    with store.open_store(xyz_db, read_only=True) as st:
+        terms = ContractTerms("XYZ", EXPIRY, strike, call)
+        contract = entry.find_contract(st.contracts(), terms) or trial_contract(
+            {r["symbol"]: r for r in st.underlying_records()}, terms, ()
+        )
+        live, market = st.load_book(), st.load_market()
+        assert session.model_price(live, market, contract, AT_T0, NEW_YORK) == pytest.approx(
+            quantlib_european(call, strike), rel=1e-9
+        )
+        under = trial_contract(
+            {"XYZ": st.underlying_records()[0]}, ContractTerms("XYZ", None, None, None), ()
+        )
+        assert session.model_price(live, market, under, AT_T0, NEW_YORK) == 100.0
+
+
+@pytest.mark.parametrize(
+    "price,asked",
+    [(3.0, False), (1.0, True), (9.0, True), (0.1, True)],
+)
+def test_a_price_far_from_the_model_value_is_questioned(
+    xyz_db: Path, price: float, asked: bool
+) -> None:
+    """The rule: off by more than half the model value and by more than 0.05 asks; the 105 C is
+    worth about 2.37 by QuantLib, so 3.00 passes and 1.00, 9.00 and 0.10 ask."""
+    model = quantlib_european(True, 105.0)
+    with store.open_store(xyz_db, read_only=True) as st:
+        terms = ContractTerms("XYZ", EXPIRY, 105.0, True)
+        question = session.price_question(st, terms, price, AT_T0, NEW_YORK)
+    assert bool(question) is asked
+    if asked:
+        assert question.startswith(f"price {price:g} for XYZ 2027-01-15 105 C is ")
+        assert f"from its model value {model:,.6g} on the marks in force" in question
+
+
+def test_the_price_rule_in_numbers() -> None:
+    """More than 50% of the model value and more than 0.05 (five 0.01 ticks, common practice)."""
+    from blotter.desk import entry
+
+    assert entry.price_question(0.09, 0.05, "X") == ""  # 80% off, but only 0.04
+    assert entry.price_question(0.11, 0.05, "X") != ""  # 120% off and 0.06
+    assert entry.price_question(1.23, 4600.0, "F") == (
+        "price 1.23 for F is -4,598.77 from its model value 4,600 on the marks in force "
+        "(more than 50% of it)"
+    )
+    assert entry.price_question(1.23, None, "F") == ""  # not valued: nothing to compare with

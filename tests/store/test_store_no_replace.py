@@ -33,6 +33,7 @@ PROTECTED = (
     "history",
     "book_zone",
     "underlying_correction",
+    "base_currency",
 )
 """Every append-only table of the schema (each has a no-delete trigger)."""
 
@@ -106,6 +107,7 @@ CASES: list[tuple[str, str, str, dict[str, Any]]] = [
     ("history row", "history", "kind = 'trade'", {"seq": None}),
     ("book zone", "book_zone", "1", {"zone": "Asia/Tokyo"}),
     ("underlying correction", "underlying_correction", "1", {"tick": 0.5}),
+    ("base currency", "base_currency", "base_id = 1", {"currency": "JPY"}),
 ]
 
 
@@ -174,8 +176,8 @@ def test_a_replace_that_collides_with_nothing_is_an_ordinary_insert(
     marks = _table(conn, "mark")
     with pytest.raises(sqlite3.IntegrityError, match="the mark set is complete"):
         conn.execute(
-            "REPLACE INTO mark (mark_set_id, seq, kind, underlying_id, value) "
-            f"VALUES ({CLOSE}, 3, 'div_yield', 1, 0.01)"
+            "REPLACE INTO mark (mark_set_id, seq, kind, underlying_id, value, observed_at) "
+            f"VALUES ({CLOSE}, 3, 'div_yield', 1, 0.01, '2026-01-05T15:00:00.000000Z')"
         )
     assert _table(conn, "mark") == marks
 
@@ -195,6 +197,7 @@ def test_the_store_still_writes_every_protected_table(history: Path, tmp_path: P
         s.commit_close(note="a correction", corrects=s.todays_close()[1])  # one close a day
         s.import_trades_csv(trade_csv(tmp_path / "u.csv", 2, symbol="TSTB"))
         s.correct_underlying("TSTB", "beta re-estimated", {"beta": 1.2})
+        s.set_base_currency("EUR")
         after = {t: len(_table(s.connection, t)) for t in PROTECTED}
         grown = [t for t in PROTECTED if t != "book_zone"]  # written once, with the book
         assert all(after[t] > before[t] for t in grown), (before, after)

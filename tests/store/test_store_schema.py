@@ -127,25 +127,27 @@ BAD_ROWS = [
         "vol <= 0",
         f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
         f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-        "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', 0)",
+        "underlying_id, expiry, value, observed_at) VALUES (last_insert_rowid(), 1, 'vol', 1, "
+        f"'2030-06-21', 0, '{TS}')",
     ),
     (
         "vol > 10",
         f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
         f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-        "underlying_id, expiry, value) VALUES (last_insert_rowid(), 1, 'vol', 1, '2030-06-21', "
-        "10.5)",
+        "underlying_id, expiry, value, observed_at) VALUES (last_insert_rowid(), 1, 'vol', 1, "
+        f"'2030-06-21', 10.5, '{TS}')",
     ),
     (
         "unknown mark kind",
         f"INSERT INTO mark_set (kind, marked_at, who, source, mark_count) VALUES "
         f"('intraday', '{TS}', 'me', 'typed', 1); INSERT INTO mark (mark_set_id, seq, kind, "
-        "underlying_id, value) VALUES (last_insert_rowid(), 1, 'price', 1, 5)",
+        "underlying_id, value, observed_at) VALUES (last_insert_rowid(), 1, 'price', 1, 5, "
+        f"'{TS}')",
     ),
     (
         "mark beyond its set's count",
         "INSERT INTO mark (mark_set_id, seq, kind, underlying_id, "
-        "value) VALUES (1, 2, 'spot', 1, 5)",
+        f"value, observed_at) VALUES (1, 2, 'spot', 1, 5, '{TS}')",
     ),
     (
         "amend of a live trade",
@@ -180,6 +182,8 @@ def test_impossible_rows_are_refused_by_sqlite(populated: Path, what: str, sql: 
         "DELETE FROM mark_set WHERE kind = 'close'",
         "UPDATE contract SET strike = 1",
         "DELETE FROM underlying",
+        "UPDATE base_currency SET currency = 'JPY'",
+        "DELETE FROM base_currency",
     ],
 )
 def test_history_cannot_be_updated_or_deleted(populated: Path, sql: str) -> None:

@@ -121,7 +121,9 @@ def test_app_in_tmux_80x24(session: Tmux) -> None:
     session.send("/")
     session.send("spot -3% vol +2 days 1", literal=True)
     screen = session.wait_for(
-        lambda s: "✓ applied" in s and "Move: spot -3% vol +2 days 1" in s, "the move's result"
+        lambda s: "✓ applied" in s
+        and "Move: every spot -3.00%, vol +2.00 pts, 1 calendar day on" in s,
+        "the move's result",
     )
     total = next(
         line for line in screen.splitlines() if line.lstrip().startswith("Σ total") and "%" in line

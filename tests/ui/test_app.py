@@ -7,15 +7,18 @@ from __future__ import annotations
 import io
 from datetime import timedelta
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
 from rich.console import Console
 
 from blotter import risk, scenario, store
+from blotter.demo import DEMO_TZ
 from blotter.desk import session
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.widgets.book_table import BookTable
+from blotter.ui.widgets.header_line import HeaderLine
 from blotter.ui.widgets.move_pane import COLUMNS, TERMS, MovePane
 from blotter.ui.widgets.whatif_bar import MoveInput
 
@@ -106,7 +109,7 @@ async def test_history_recalls_moves(demo_app: BlotterApp) -> None:
             await pilot.press("enter")
             bar.value = ""
             await settle(demo_app, pilot)
-        await pilot.press("up")
+        await pilot.press("f2", "up")  # Enter went back to the book: F2 returns to the bar
         assert bar.value == "vol +2"
         await pilot.press("up")
         assert bar.value == "spot -1%"
@@ -272,7 +275,7 @@ async def test_stale_marks_flagged_in_words(demo_db: Path) -> None:
         await settle(app, pilot)
         # Monday 10:00: the last close was Friday 2026-12-04 at 16:00 New York.
         header = str(app.query_one("#header-line").render())
-        assert "STALE: older than the 12-04 16:00 close" in header
+        assert "STALE: 421 of 421 marked before 12-04 16:00 close" in header
 
 
 async def test_missing_file_is_reported_not_raised(tmp_path: Path) -> None:
@@ -307,6 +310,16 @@ async def test_paste_into_the_book_goes_to_the_bar(demo_app: BlotterApp) -> None
         assert demo_app.move is not None and demo_app.move.describe() == "vol +2"
 
 
+async def second_load(app: BlotterApp, pilot: Any) -> None:
+    """Wait (a bounded number of pauses) for the app's second load of the book to land."""
+    for _ in range(5000):
+        if app.book_seq == 2:
+            break
+        await pilot.pause()
+    await settle(app, pilot)
+    assert app.book_seq == 2
+
+
 async def test_a_commit_by_another_connection_reloads_the_book(demo_db: Path) -> None:
     """The store's change check (the app's only timer-like work) sees another writer's commit."""
     from dataclasses import replace
@@ -322,15 +335,54 @@ async def test_a_commit_by_another_connection_reloads_the_book(demo_db: Path) ->
             writer.add_note("a note from another terminal")
         finally:
             writer.close()
-        for _ in range(5000):
-            if app.book_seq == 2:
-                break
-            await pilot.pause()
-        await settle(app, pilot)
-        assert app.book_seq == 2
+        await second_load(app, pilot)
         # The bar's move is applied again to the reloaded book; the cursor and bar are kept.
         assert app.query_one(MoveInput).value == "spot -1%"
         assert app.result is not None and app.result.valuation is app.state.valuation  # type: ignore[union-attr]
+
+
+async def test_the_valuation_time_moves_on_its_own_once_a_minute(demo_db: Path) -> None:
+    """With nothing typed and nothing committed, the clock passing into the next minute values
+    the book again, once, and the header's "valued" time follows it."""
+    from dataclasses import replace
+    from datetime import timedelta
+
+    now = [FROZEN_NOW]
+    app = make_app(
+        demo_db, replace(TEST_SETTINGS, watch_interval_s=0.02), clock=lambda: now[0]
+    )
+    async with app.run_test(size=(200, 24)) as pilot:
+        await settle(app, pilot)
+        header = app.query_one(HeaderLine)
+        assert f"valued {FROZEN_NOW.astimezone(DEMO_TZ):%Y-%m-%d %H:%M}" in str(header.render())
+        for _ in range(50):  # the same minute: no revaluation
+            await pilot.pause(0.01)
+        assert app.book_seq == 1
+        now[0] = FROZEN_NOW + timedelta(seconds=61)
+        await second_load(app, pilot)
+        later = f"valued {now[0].astimezone(DEMO_TZ):%Y-%m-%d %H:%M}"
+        assert later in str(header.render())
+        for _ in range(50):  # asked once for that minute
+            await pilot.pause(0.01)
+        assert app.book_seq == 2
+
+
+async def test_an_absolute_spot_move_reads_apart_from_a_relative_one(demo_app: BlotterApp) -> None:
+    """``spot -3`` is said as currency in the Move pane's title and, being more than 10% of a
+    demo spot, warned about in the title and the bar (not a plain "applied"); ``spot -3%`` is
+    said as percent with no warning."""
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        pane = demo_app.query_one(MovePane)
+        await type_move(demo_app, pilot, "spot -3")
+        title = str(pane.border_title)
+        assert title.startswith("Move: every spot -3.00 USD ─ CHECK: -3.00 USD is -13.0% of DEMOC")
+        bar = str(demo_app.query_one("#whatif-message").render())
+        assert bar == "⚠ check: -3.00 USD is -13.0% of DEMOC 23.14"
+        await pilot.press("percent_sign")
+        await settle(demo_app, pilot)
+        assert str(pane.border_title).startswith("Move: every spot -3.00% ─ 2nd-order estimate")
+        assert str(demo_app.query_one("#whatif-message").render()) == "✓ applied"
 
 
 async def test_expiring_positions_and_pin_risk_listed(demo_app: BlotterApp) -> None:

@@ -79,7 +79,7 @@ async def test_history_recall_in_a_burst_keeps_its_place(demo_db: Path) -> None:
         bar = await focused_bar(app, pilot)
         await pilot.press(*"spot -2%", "enter")
         await settle(app, pilot)
-        burst(app, "ctrl+u", *"vol +1", "ctrl+u", "up", *" days 1")
+        burst(app, "f2", "ctrl+u", *"vol +1", "ctrl+u", "up", *" days 1")  # Enter left the bar
         await settle(app, pilot)
         assert bar.value == "spot -2% days 1"
         assert bar.history == ["spot -2%"]

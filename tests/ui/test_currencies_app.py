@@ -71,9 +71,13 @@ async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: 
         assert "totals per currency: USD, EUR" in str(app.query_one("#header-line").render())
         table = app.query_one(BookTable)
         keys = [r.key for r in table.visible_rows()]
-        assert keys[:3] == ["total", "c|USD", "c|EUR"] and table.fixed_rows == 3
+        assert keys[:4] == ["total", "c|USD", "c|EUR", "base"] and table.fixed_rows == 4
         assert str(table.get_cell("total", "delta_cash")).strip() == NOT_ADDITIVE
         assert str(table.get_cell("total", "value")).strip() == NOT_ADDITIVE
+        # No EURUSD spot: the book in its base currency is "—", and the FX line says why.
+        assert str(table.get_cell("base", "value")).strip() == NOT_ADDITIVE
+        fx_line = str(app.query_one("#fx-delta").render())
+        assert f"EUR {NOT_ADDITIVE}" in fx_line and "no spot mark for EURUSD" in fx_line
         for ccy in ("USD", "EUR"):
             assert shown(table.get_cell(f"c|{ccy}", "delta_cash")) == pytest.approx(
                 per_ccy[ccy].delta_cash, abs=0.5
@@ -129,3 +133,31 @@ async def test_explain_screen_totals_each_currency(two_currencies: Path) -> None
         row = table.get_row_at(labels.index("= held P&L"))  # type: ignore[attr-defined]
         assert shown(row[2]) == pytest.approx(totals["USD"].actual, abs=0.5)
         assert shown(row[3]) == pytest.approx(totals["EUR"].actual, abs=0.5)
+
+
+async def test_the_book_pane_shows_the_base_total_and_fx_delta(two_currencies: Path) -> None:
+    """With EURUSD marked, the "all in USD" row is ``risk.base_total`` and the line under the
+    Book pane ``risk.fx_delta``, both at the marked spot."""
+    st = store.open_store(two_currencies)
+    try:
+        st.add_underlying("EURUSD", "fx", "USD", 100_000.0)
+        st.log_spot("EURUSD", 1.2)
+    finally:
+        st.close()
+    v = _valuation(two_currencies)
+    fx = risk.valuation_fx_rates(v, "USD")
+    base = risk.base_total(v, fx)
+    delta = risk.fx_delta(v, fx)
+    assert fx.rates == {"USD": 1.0, "EUR": 1.2}
+    per_ccy = {r.currency: r for r in risk.currency_totals(v)}
+    assert base.value == pytest.approx(per_ccy["USD"].value + 1.2 * per_ccy["EUR"].value)
+    app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await settle(app, pilot)
+        table = app.query_one(BookTable)
+        assert str(table.get_cell("base", "label")).strip() == "Σ all in USD"
+        for col in ("value", "delta_cash", "vega_pt", "theta_day"):
+            assert shown(table.get_cell("base", col)) == pytest.approx(getattr(base, col), abs=0.5)
+        assert str(table.get_cell("base", "delta_shares")).strip() == NOT_ADDITIVE
+        fx_line = str(app.query_one("#fx-delta").render())
+        assert fx_line == f"FX delta, USD per +1% against USD: EUR {delta.by_currency['EUR']:+,.0f}"

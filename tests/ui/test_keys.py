@@ -11,8 +11,9 @@ from rich.console import Console
 
 from blotter.config import Settings
 from blotter.keymap import BINDING_IDS
-from blotter.ui.app import make_app
+from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.keys import FORBIDDEN_KEYS, KEYS, key_label
+from blotter.ui.screens.confirm import ConfirmScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.whatif_bar import MoveInput
@@ -26,6 +27,10 @@ def screen_text(renderable: object) -> str:
     return console.export_text()
 
 
+CLOSES_WITH_ESC = {"help", "review", "form", "confirm"}
+"""Help and the modals: Esc closes them (an extra key, never the only one)."""
+
+
 def test_each_action_has_a_plain_key_and_an_alias() -> None:
     ids = [k.id for k in KEYS]
     assert len(ids) == len(set(ids))
@@ -34,6 +39,9 @@ def test_each_action_has_a_plain_key_and_an_alias() -> None:
     for spec in KEYS:
         keys = spec.keys.split(",")
         assert len(keys) >= 2, spec.id
+        if "escape" in keys:  # only as a last extra key of closing Help or a modal
+            assert keys[-1] == "escape" and spec.where in CLOSES_WITH_ESC, spec.id
+            keys = keys[:-1]
         assert not set(keys) & FORBIDDEN_KEYS, spec.id
         assert any(k.startswith(("f", "ctrl+")) and k not in {"f"} for k in keys[1:]), spec.id
 
@@ -78,6 +86,11 @@ async def test_every_binding_on_the_help_screen_exists(demo_db: Path) -> None:
             while app.screen is not app.screen_stack[0]:
                 await pilot.press("f10")
                 await pilot.pause()
+        app.push_screen(ConfirmScreen("a question"))  # asked by quit with trials, and others
+        await pilot.pause()
+        live_by_where["confirm"] = app.screen.active_bindings
+        await pilot.press("f10")
+        await pilot.pause()
         await pilot.press("question_mark")
         await pilot.pause()
         for spec in KEYS:
@@ -172,3 +185,81 @@ async def test_aliases_work_while_typing_in_the_bar(demo_db: Path, key: str, che
         await settle(app, pilot)
         assert check(app)  # type: ignore[operator]
         assert app.query_one(MoveInput).value == "spot -1%"
+
+
+async def test_enter_in_the_bar_returns_to_the_book(demo_app: BlotterApp) -> None:
+    """After Enter the next command key is a command: "v" shows the next pane and is not typed
+    into the bar after the move."""
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        await pilot.press("f2", *"spot +2.5", "enter")
+        await settle(demo_app, pilot)
+        assert isinstance(demo_app.focused, BookTable)
+        pane = demo_app.pane
+        await pilot.press("v")
+        await settle(demo_app, pilot)
+        assert demo_app.query_one(MoveInput).value == "spot +2.5"
+        assert demo_app.pane != pane
+        await pilot.press("f2", *" bogus", "enter")  # a line that does not parse keeps the focus
+        await settle(demo_app, pilot)
+        assert isinstance(demo_app.focused, MoveInput)
+
+
+async def test_esc_closes_help_and_every_modal(demo_app: BlotterApp) -> None:
+    from blotter.ui.screens.marks import CloseReviewScreen
+    from blotter.ui.screens.trades import TradeForm
+
+    async with demo_app.run_test(size=(80, 24)) as pilot:
+        await settle(demo_app, pilot)
+        await pilot.press("question_mark")
+        assert isinstance(demo_app.screen, HelpScreen)
+        await pilot.press("escape")
+        assert demo_app.screen is demo_app.screen_stack[0]
+        await pilot.press("t")
+        await settle(demo_app, pilot)
+        await pilot.press("a")
+        await settle(demo_app, pilot)
+        assert isinstance(demo_app.screen, TradeForm)
+        await pilot.press(*"DEMO", "escape")  # the focus is in a field of the form
+        await settle(demo_app, pilot)
+        assert not isinstance(demo_app.screen, TradeForm)
+        await pilot.press("q", "m")
+        await settle(demo_app, pilot)
+        await pilot.press("c")
+        await settle(demo_app, pilot)
+        assert isinstance(demo_app.screen, CloseReviewScreen)
+        await pilot.press("escape")
+        await settle(demo_app, pilot)
+        assert not isinstance(demo_app.screen, CloseReviewScreen)
+
+
+async def test_quitting_with_trial_trades_asks_first(demo_db: Path) -> None:
+    """One q too many with a trial held does not quit: it asks, q (or n, Esc) is no, y quits."""
+    from blotter import store
+
+    with store.open_store(demo_db, read_only=True) as st:
+        contract = next(c for c in st.contracts() if c.option_type == "C")
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await settle(app, pilot)
+        app.add_trial(contract, 5, 1.0, "main")
+        await settle(app, pilot)
+        await pilot.press("q")
+        await settle(app, pilot)
+        assert isinstance(app.screen, ConfirmScreen) and app.return_code is None
+        assert "1 trial trade is not booked" in str(app.screen.query_one("#confirm-text").render())
+        for no in ("q", "escape"):
+            await pilot.press(no)
+            await settle(app, pilot)
+            assert app.screen is app.screen_stack[0] and app.return_code is None
+            await pilot.press("q")
+            await settle(app, pilot)
+        await pilot.press("y")
+        await pilot.pause()
+        assert app.return_code == 0 or not app.is_running
+    empty = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with empty.run_test(size=(80, 24)) as pilot:
+        await settle(empty, pilot)
+        await pilot.press("q")  # no trials: q quits at once
+        await pilot.pause()
+        assert empty.return_code == 0 or not empty.is_running

@@ -11,6 +11,7 @@ import sqlite3
 import subprocess
 import sys
 import time
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 from typing import Any
@@ -22,7 +23,7 @@ from textual.widgets import DataTable, Input
 from blotter import engine, scenario, store
 from blotter.config import Alerts
 from blotter.desk import entry, limits
-from blotter.desk.close_review import close_review
+from blotter.desk.close_review import MarkPoint, close_review
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.screens.base import READ_ONLY_WORDS
 from blotter.ui.screens.explain import ExplainScreen
@@ -67,6 +68,14 @@ async def open_marks(app: BlotterApp, pilot: Any) -> MarksScreen:
     await settle(app, pilot)
     assert isinstance(app.screen, MarksScreen)
     return app.screen
+
+
+def cursor_on(screen: MarksScreen, wanted: Callable[[MarkPoint], bool]) -> MarkPoint:
+    """Put the Marks table's cursor on the first point ``wanted``; return that point."""
+    assert screen.view is not None
+    row = next(i for i, p in enumerate(screen.view.points) if wanted(p))
+    screen.query_one("#marks-table", DataTable).move_cursor(row=row)
+    return screen.view.points[row]
 
 
 async def test_typing_a_spot_mark_writes_it_and_reloads_the_book(demo_db: Path) -> None:
@@ -114,19 +123,16 @@ async def test_a_vol_is_typed_as_on_the_command_line(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         screen = await open_marks(app, pilot)
-        assert screen.view is not None
-        row = next(i for i, p in enumerate(screen.view.points) if p.kind == "vol")
-        point = screen.view.points[row]
-        screen.query_one("#marks-table", DataTable).move_cursor(row=row)
+        point = cursor_on(screen, lambda p: p.kind == "vol")
         before = counts(demo_db)
-        await pilot.press(*"24.5", "enter")
+        await pilot.press(*"38.5", "enter")
         await settle(app, pilot)
-        assert "'24.5' looks like a percentage: write 24.5% or 0.245" in message(app)
+        assert "'38.5' looks like a percentage: write 38.5% or 0.385" in message(app)
         assert counts(demo_db) == before
-        assert screen.query_one("#marks-edit", Input).value == "24.5"
+        assert screen.query_one("#marks-edit", Input).value == "38.5"
         await pilot.press("%", "enter")
         await settle(app, pilot)
-        assert f"✓ {point.label} marked 24.50%" in message(app)
+        assert f"✓ {point.label} marked 38.50%" in message(app)
     with store.open_store(demo_db, read_only=True) as st:
         marked = [
             m.value
@@ -134,7 +140,63 @@ async def test_a_vol_is_typed_as_on_the_command_line(demo_db: Path) -> None:
             if (m.kind, m.symbol, m.expiry, m.strike)
             == ("vol", point.symbol, point.expiry, point.strike)
         ]
-    assert marked == [pytest.approx(0.245)]
+    assert marked == [pytest.approx(0.385)]
+
+
+async def test_a_vol_far_from_the_mark_or_very_low_asks_before_it_is_written(
+    demo_db: Path,
+) -> None:
+    """More than 10 vol points from the mark in force, or under 3%: the first Enter asks (in
+    percent, beside the vol in force) and writes nothing; a second Enter writes it; a refusal
+    speaks in the cell's percent."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        point = cursor_on(screen, lambda p: p.kind == "vol")
+        assert point.value is not None
+        header = str(screen.query_one("#marks-table", DataTable).columns["value"].label)
+        assert "0.25 or 25%" in header
+        before = counts(demo_db)
+        await pilot.press(*"1500%", "enter")
+        await settle(app, pilot)
+        assert "a vol must be above 0% and at most 1,000%, got 1,500%" in message(app)
+        await pilot.press(*["backspace"] * 5, *"0.6", "enter")  # a decimal: 60.00%
+        await settle(app, pilot)
+        jump = (0.60 - point.value) * 100
+        assert abs(jump) > 10
+        assert f"60.00% is {jump:+.2f} vol points from the mark in force" in message(app)
+        assert "Enter again writes it" in message(app) and counts(demo_db) == before
+        await pilot.press("backspace", *"02", "enter")  # another text asks again
+        await settle(app, pilot)
+        assert "2.00% is" in message(app) and "under 3%" in message(app)
+        assert counts(demo_db) == before
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert f"✓ {point.label} marked 2.00%" in message(app)
+        assert counts(demo_db)[2] == before[2] + 1
+
+
+async def test_a_vol_of_an_expired_expiry_is_refused_in_words(demo_db: Path) -> None:
+    """A fortnight on, a vol point whose expiry has passed takes no mark: refused in words,
+    nothing written, the text kept (``desk.entry.refuse_mark_point``, as ``mark vol``)."""
+    from datetime import timedelta
+
+    from .conftest import FROZEN_NOW
+
+    later = FROZEN_NOW + timedelta(days=14)
+    app = make_app(demo_db, TEST_SETTINGS, clock=lambda: later)
+    async with app.run_test(size=(80, 24)) as pilot:
+        screen = await open_marks(app, pilot)
+        point = cursor_on(
+            screen, lambda p: p.kind == "vol" and p.expiry is not None and p.expiry < later.date()
+        )
+        before = counts(demo_db)
+        typed = f"{point.value * 100:.1f}%"  # near the mark in force, so nothing is asked
+        await pilot.press(*typed, "enter")
+        await settle(app, pilot)
+        assert f"✗ refused: {point.symbol} {point.expiry} has expired" in message(app)
+        assert counts(demo_db) == before
+        assert screen.query_one("#marks-edit", Input).value == typed
 
 
 async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo_db: Path) -> None:
@@ -173,9 +235,17 @@ async def test_an_option_price_solves_its_vol_or_is_refused_below_intrinsic(demo
                 bool(book.american[i]),
             )
         )
-        await pilot.press(*f"${price:.6f}", "enter")
+        before = counts(demo_db)
+        await pilot.press(*f"${price:.6f}{'c' if is_call else 'p'}", "enter")
         await settle(app, pilot)
-        assert "implied vol 30.00%" in message(app)
+        assert "implied vol 30.00%" in message(app)  # beside the one in force, not yet written
+        assert f"(in force {point.value * 100:.2f}%, {30 - point.value * 100:+.2f} pt)" in (
+            message(app)
+        )
+        assert counts(demo_db) == before
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert "marked 30.00%" in message(app)
         st = open_ro(demo_db)
         try:
             marked = next(
@@ -326,7 +396,7 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         await pilot.press("a")
         await pilot.pause()
         assert isinstance(app.screen, TradeForm)
-        await fill(pilot, "DEMOA", "2027-01-15", "201", "c", "5", "3.25")
+        await fill(pilot, "DEMOA", "2027-01-15", "201", "c", "5", "1.75")
         await pilot.press("enter")
         await pilot.pause()
         assert "New contract DEMOA 2027-01-15 201 C will be created" in str(
@@ -345,7 +415,7 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         assert (last.contract, last.quantity, last.price, last.state) == (
             "DEMOA 2027-01-15 201 C",
             5,
-            3.25,
+            1.75,
             "live",
         )
         assert len(screen.records) == n + 1
@@ -353,6 +423,28 @@ async def test_add_a_trade_on_a_new_contract_after_confirmation(demo_db: Path) -
         await pilot.press("slash", *"2027-01-15 201")
         await pilot.pause()
         assert screen.shown_ids == [str(last.trade_id)]
+
+
+async def test_a_trade_price_far_from_the_model_value_asks_before_booking(demo_db: Path) -> None:
+    """A DEMOFU hedge at 1.23 (the future marked at 4,826.96) asks in words beside the model
+    value and writes nothing; F5 again books it."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        before = counts(demo_db)
+        await fill(pilot, "DEMOFU", "", "", "", "1", "1.23")
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradeForm)
+        said = str(app.screen.query_one("#form-message").render())
+        assert "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96" in said
+        assert "F5 (or Enter) again to book it" in said and counts(demo_db) == before
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
+        assert counts(demo_db)[0] == before[0] + 1
 
 
 async def test_a_bad_field_is_refused_in_the_form(demo_db: Path) -> None:
@@ -400,7 +492,7 @@ async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
         await pilot.pause()
         form = app.screen
         assert isinstance(form, TradeForm) and form.value("qty") == str(second.quantity)
-        await pilot.press("tab", *["backspace"] * 12, *"9.99", "tab", *"wrong price", "enter")
+        await pilot.press("tab", *["backspace"] * 12, *"27.5", "tab", *"wrong price", "enter")
         await settle(app, pilot)
         assert "amended" in message(app)
         st = open_ro(demo_db)
@@ -410,7 +502,7 @@ async def test_cancel_with_a_reason_and_amend(demo_db: Path) -> None:
             st.close()
         assert rec[second.trade_id].state == "amended"
         new = rec[rec[second.trade_id].replaced_by]  # type: ignore[index]
-        assert (new.price, new.quantity, new.state) == (9.99, second.quantity, "live")
+        assert (new.price, new.quantity, new.state) == (27.5, second.quantity, "live")
 
 
 async def test_a_trial_changes_the_totals_and_leaves_the_store_untouched(demo_db: Path) -> None:

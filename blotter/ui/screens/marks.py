@@ -2,9 +2,13 @@
 
 Spot per underlying, then its dividend yield and vol points by expiry (ATM and smile strikes),
 then rates. Enter (or typing a digit) edits the cell under the cursor: a number is the new mark;
-in a vol cell ``$12.35`` is an option price whose implied vol (``engine.implied_vol``) becomes
-the mark. The store checks every value; a refusal is shown beside the cell and the typed text
-stays. A typed mark is written at once as an intraday mark; "close" reviews what changed since
+in a vol cell ``$12.35`` is an option price (``$12.35c`` a call, ``$12.35p`` a put, else the
+out-of-the-money one) whose implied vol (``engine.implied_vol``) becomes the mark once the solved
+vol has been shown beside the one in force and Enter pressed again; a typed vol far from the one
+in force or very low (``desk.entry.mark_question``) asks the same way. A point no position can
+use (an expired or weekend expiry, an unknown currency) is refused by ``desk.entry``, and the
+store checks every value; a refusal is shown beside the cell and the typed text stays. A typed
+mark is otherwise written at once as an intraday mark; "close" reviews what changed since
 the last close, what is missing and what has not moved for over a day (``desk.close_review``);
 the review writes the close itself and returns the set it wrote with ``dismiss``.
 """
@@ -31,12 +35,13 @@ from blotter.ui.timings import Timing
 
 COLUMNS = (
     ("point", "mark point", 24),
-    ("value", "in force", 11),
+    ("value", f"in force\n{entry.VOL_CONVENTION}", 11),
     ("close", "last close", 11),
     ("change", "change", 11),
     ("when", "marked", 11),
 )
-"""(key, header, width) of the marks table."""
+"""(key, header, width) of the marks table; the value's header says how a vol, a rate or a yield
+is typed (a spot is a price)."""
 
 
 class MarksScreen(DeskScreen):
@@ -51,11 +56,16 @@ class MarksScreen(DeskScreen):
         super().__init__(host, id="marks")
         self.view: close_review.MarksView | None = None
         self.editing: close_review.MarkPoint | None = None
+        self.asked: tuple[str, str] | None = None  # (point key, text) a question was asked of
 
     def compose(self) -> ComposeResult:
         yield self.title_line("Marks: in force beside the last close")
         table: DataTable[str | Text] = DataTable(
-            id="marks-table", classes="desk-table", cursor_type="row", zebra_stripes=True
+            id="marks-table",
+            classes="desk-table",
+            cursor_type="row",
+            zebra_stripes=True,
+            header_height=2,
         )
         yield table
         yield Input(
@@ -80,7 +90,8 @@ class MarksScreen(DeskScreen):
         self.say(
             "Read-only: marks are shown, not typed."
             if self.host.read_only
-            else "Enter or a digit edits the cell; $price in a vol cell solves its vol."
+            else "Type on a row: a vol or rate 0.25 or 25%, a spot its price; "
+            "$12.40c or $12.40p in a vol cell solves the call's or put's vol."
         )
         self.load()
 
@@ -118,7 +129,7 @@ class MarksScreen(DeskScreen):
         self.show(message.view)
         if message.review:
             self.say("")
-            review = close_review.close_review(message.view, self.host.clock())
+            review = close_review.close_review(message.view, self.host.clock(), self.host.tz)
             self.app.push_screen(CloseReviewScreen(self.host, review), self._close_reviewed)
 
     def on_screen_failed(self, message: ScreenFailed) -> None:
@@ -131,7 +142,7 @@ class MarksScreen(DeskScreen):
         cursor = self.cursor_point()
         table.clear()
         for p in view.points:
-            when = f"{p.marked_at.astimezone(tz):%m-%d %H:%M}" if p.marked_at else ""
+            when = f"{p.observed_at.astimezone(tz):%m-%d %H:%M}" if p.observed_at else ""
             value = Text(p.shown(p.value), justify="right")
             if p.value is None:
                 value.stylize("bold reverse")
@@ -234,6 +245,7 @@ class MarksScreen(DeskScreen):
         box.value = ""
         box.border_title = ""
         self.editing = None
+        self.asked = None
         self.set_focus(self.query_one("#marks-table", DataTable))
 
     @on(Input.Submitted, "#marks-edit")
@@ -242,23 +254,30 @@ class MarksScreen(DeskScreen):
         if point is None:
             return
         try:
-            what, x = entry.parse_mark(point.kind, event.value)
+            typed = entry.parse_mark(point.kind, event.value)
         except ValueError as exc:
             self.say(f"✗ refused: {exc}; nothing written", bad=True)
             return
-        words = ""
-        if what == "price":
+        x, words = typed.number, ""
+        if typed.what == "price":
             state = self.host.state
             if state is None:
                 self.say("✗ the book is still loading", bad=True)
                 return
             vol, words, _ = entry.solve_vol(
-                state.valuation, point.symbol or "", point.expiry, point.strike, x
+                state.valuation, point.symbol or "", point.expiry, point.strike, x, typed.is_call
             )
             if vol is None:
                 self.say(f"✗ {words}; nothing written", bad=True)
                 return
             x = vol
+        question = entry.mark_question(point.kind, point.value, x, words)
+        asked = (point.key, event.value.strip())
+        if question and self.asked != asked:
+            self.asked = asked
+            self.say(f"? {question}: Enter again writes it, F10 leaves", bad=True)
+            return
+        self.asked = None
         self.write_mark(point, x, words)
 
     @work(thread=True, exclusive=True, group="marks-write", exit_on_error=False)
@@ -277,6 +296,7 @@ class MarksScreen(DeskScreen):
                     expiry=point.expiry,
                     strike=point.strike,
                     tenor_days=point.tenor_days,
+                    now=self.host.clock(),
                 )
         except (store.StoreError, ValueError, KeyError) as exc:
             self.post_message(ScreenFailed(f"✗ refused: {exc}; what you typed is kept"))

@@ -24,7 +24,7 @@ from textual.widgets import DataTable, Footer, Input, Label, Static
 from textual.widgets.data_table import ColumnKey
 from textual.worker import get_current_worker
 
-from blotter.desk import entry, trials
+from blotter.desk import entry, session, trials
 from blotter.printable import printable
 from blotter.ticks import price_text, tick_decimals
 from blotter.ui import data, fmt
@@ -356,6 +356,7 @@ class TradeForm(ModalScreen[FormResult | None]):
         self.kind = kind  # trade, trial, amend or cancel
         self.trade = trade
         self.confirm_new: entry.ContractTerms | None = None
+        self.confirm_price: tuple[entry.ContractTerms, float] | None = None  # asked of, once
 
     def _fields(self) -> tuple[tuple[str, str], ...]:
         return FIELDS["trade" if self.kind in ("trade", "trial") else self.kind]
@@ -450,7 +451,8 @@ class TradeForm(ModalScreen[FormResult | None]):
                 qty = entry.parse_quantity(fields["qty"])
                 price = entry.parse_price(fields["price"])
                 reason = entry.parse_reason(fields["reason"], "an amend")
-                self.write(entry.Amend(self.trade.trade_id, qty, price, reason))
+                if not self._price_asked(session.terms_of(self.trade), price):
+                    self.write(entry.Amend(self.trade.trade_id, qty, price, reason))
                 return
             ticket = entry.parse_new_trade(fields, self.sheet.symbols)
         except ValueError as exc:
@@ -476,7 +478,37 @@ class TradeForm(ModalScreen[FormResult | None]):
                 f"New contract {terms.label()} will be created: F5 (or Enter) again to confirm"
             )
             return
-        self.write(ticket)
+        if not self._price_asked(terms, ticket.price, contract):
+            self.write(ticket)
+
+    def _price_asked(
+        self,
+        terms: entry.ContractTerms,
+        price: float,
+        contract: ContractRecord | None = None,
+    ) -> bool:
+        """Ask (once for these terms and price) when ``price`` is far from the model value on
+        the marks in force (``desk.entry.price_question``); True when it asked."""
+        state = self.host.state
+        if state is None or self.confirm_price == (terms, price):
+            return False
+        if contract is None:
+            contract = entry.find_contract(self.sheet.contracts, terms)
+        if contract is None:
+            try:
+                contract = trials.trial_contract(self.sheet.underlyings, terms, ())
+            except ValueError:
+                return False  # the store refuses it in its own words
+        valuation = state.valuation
+        model = session.model_price(
+            valuation.book, valuation.market, contract, self.host.clock(), self.host.tz
+        )
+        question = entry.price_question(price, model, contract.label)
+        if not question:
+            return False
+        self.confirm_price = (terms, price)
+        self.say(f"{question}: F5 (or Enter) again to book it")
+        return True
 
     @work(thread=True, exclusive=True, group="form-write", exit_on_error=False)
     def write(self, ticket: entry.Ticket) -> None:

@@ -201,6 +201,9 @@ class BookTable(DataTable[str | Text]):
         if live is not None:
             out.append(live)
         out += self.source.currency_totals()
+        base = self.source.base_total()
+        if base is not None:
+            out.append(base)
 
         def walk(rows: Sequence[BookRow]) -> None:
             for row in self._sorted(rows):

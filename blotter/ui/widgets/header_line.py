@@ -10,7 +10,6 @@ from typing import Any
 from rich.text import Text
 from textual.widgets import Static
 
-from blotter.desk.session import marks_age
 from blotter.printable import printable
 from blotter.ui.data import BookState
 
@@ -26,7 +25,7 @@ class HeaderLine(Static):
         """Describe ``state`` as of ``now`` (desk time zone ``tz``); ``alerts`` are words;
         ``first``, when given, leads the line (so a narrow terminal never cuts it off)."""
         desk = state.session
-        age = marks_age(desk.marks_as_of, now, tz)
+        age = desk.marks_age(now, tz)
         text = Text()
         if first:
             text.append(f"{first} │ ", style="bold")
@@ -45,8 +44,7 @@ class HeaderLine(Static):
         else:
             text.append(f" │ {desk.mark_kind} marks {when} ({age.words} old)")
         if age.stale and marked:
-            closed = f"{age.last_close.astimezone(tz):%m-%d %H:%M}" if age.last_close else "last"
-            text.append(f" STALE: older than the {closed} close", style="bold reverse")
+            text.append(f" {age.stale_words(tz)}", style="bold reverse")
         text.append(f" │ {printable(Path(state.db_path).name)}")
         for alert in alerts:
             text.append(" │ ")

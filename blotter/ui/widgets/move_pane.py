@@ -79,6 +79,7 @@ class MovePane(Vertical):
         self.result: Any = None
         self.text = ""
         self._summary = ""
+        self.warning = ""  # about the move shown (a large absolute spot move), in words
         self.stale_line = False  # the bar holds a line that does not parse
         self.cells: dict[tuple[str, str], str] = {}  # (row key, column) -> text shown
         self.row_keys: list[str] = []
@@ -178,10 +179,12 @@ class MovePane(Vertical):
             line.append(values[column], style=style)
         return line
 
-    def show(self, text: str, summary: str, result: Any) -> None:
-        """Show the result of ``text`` (parsed as ``summary``)."""
+    def show(self, text: str, summary: str, result: Any, warning: str = "") -> None:
+        """Show the result of ``text`` (said in words with units as ``summary``); ``warning``
+        (words, empty for none) heads the title."""
         self.result, self.text = result, text
         self._summary = summary
+        self.warning = warning
         self.stale_line = False
         self.repaint()
 
@@ -218,6 +221,8 @@ class MovePane(Vertical):
         )
         if flagged:
             title += f" ─ {flagged} {FLAG}"
+        if self.warning:
+            title = f"Move: {self._summary} ─ CHECK: {self.warning}"
         if self.stale_line:
             title = f"Move (last good line): {self._summary} ─ the bar's line has an error"
         self.border_title = title

@@ -101,9 +101,14 @@ class WhatIfBar(Horizontal):
         yield MoveInput()
         yield Static("", id="whatif-message")
 
-    def show_ok(self, summary: str, text: str = "") -> None:
-        """A move parsed and applied: say what it was read as when that differs from ``text``."""
+    def show_ok(self, summary: str, text: str = "", warning: str = "") -> None:
+        """A move parsed and applied: say what it was read as when that differs from ``text``,
+        or ``warning`` (words) when there is one to check."""
         same = " ".join(text.split()).lower() == summary.lower()
+        if warning:
+            self.query_one("#whatif-message", Static).update(Text("⚠ check: " + warning))
+            self.add_class("-bad")
+            return
         self.query_one("#whatif-message", Static).update(
             Text("✓ applied" if same else "✓ read as " + summary)
         )
