@@ -22,9 +22,9 @@ async def test_the_history_survives_a_restart(
         await settle(first, pilot)
         await pilot.press("slash", *"spot -3%", "enter")
         await settle(first, pilot)
-        await pilot.press("ctrl+u", *"spot -3% foo", "enter")  # does not parse: not kept
+        await pilot.press("slash", "ctrl+u", *"spot -3% foo", "enter")  # does not parse: not kept
         await settle(first, pilot)
-        await pilot.press("ctrl+u", *"vol +2", "enter")
+        await pilot.press("slash", "ctrl+u", *"vol +2", "enter")
         await settle(first, pilot)
         assert first.query_one(MoveInput).history == ["spot -3%", "vol +2"]
     assert (tmp_path / "data" / "blotter" / "whatif-history.json").is_file()
@@ -67,7 +67,7 @@ async def test_a_folder_that_cannot_be_written_is_said_once(
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(80, 24)) as pilot:
         await settle(app, pilot)
-        await pilot.press("slash", *"spot -1%", "enter", "ctrl+u", *"spot -2%", "enter")
+        await pilot.press("slash", *"spot -1%", "enter", "slash", "ctrl+u", *"spot -2%", "enter")
         await settle(app, pilot)
         notes = [n.message for n in app._notifications if "cannot be saved" in n.message]
         assert len(notes) == 1
