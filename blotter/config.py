@@ -12,6 +12,7 @@ Example file::
     watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
     theme = "dark"              # the app's colours: "dark" or "light" (NO_COLOR is honoured too)
     feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
+    spot_stale_s = 300.0        # an intraday spot older than this is STALE in words; 0 = never
     log_file = "~/blotter.log"  # warnings and errors of imports and the store, with UTC times
 
     [alerts]
@@ -101,6 +102,7 @@ class Settings:
     no_mouse: bool = False
     theme: str = "dark"  # one of THEMES
     feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
+    spot_stale_s: float = 300.0  # an intraday spot older than this is STALE; 0 = never
     log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
     scenarios: tuple[ScenarioSetText, ...] = ()  # the settings file's [scenarios] tables
     scenarios_file: str = ""  # a TOML file of more [scenarios.NAME] tables; "" = none
@@ -342,6 +344,8 @@ def _validate(settings: Settings) -> Settings:
         raise ConfigError("watch_interval_s and debounce_ms must not be negative")
     if settings.feed_throttle_s < 0:
         raise ConfigError("feed_throttle_s must not be negative (seconds)")
+    if settings.spot_stale_s < 0:
+        raise ConfigError("spot_stale_s must not be negative (seconds; 0 = never stale)")
     if settings.feed_throttle_s > MAX_WATCH_INTERVAL_S:
         raise ConfigError(
             f"feed_throttle_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), "

@@ -174,6 +174,10 @@ class Market:
     # when each mark point used was observed (UTC datetime64[us], one per point), so how old
     # the marks are is read point by point
     observed_at: np.ndarray = field(default_factory=lambda: np.zeros(0, "datetime64[us]"))
+    # when each spot in force was observed (UTC datetime64[us]), by symbol: a feed's age; and
+    # the symbols whose spot in force is an intraday mark (typed, imported or fed), not a close's
+    spot_observed: dict[str, np.datetime64] = field(default_factory=dict)
+    spot_intraday: frozenset[str] = frozenset()
 
     def spot(self, symbol: str) -> float:
         """Spot (or futures price) of ``symbol``; KeyError naming it when there is no mark."""

@@ -676,7 +676,8 @@ def risk(
                 ["fx delta", None, *[None] * len(EXPOSURE_FIELDS), base, _finite(x), c]
                 for c, x in in_base.delta.by_currency.items()
             ]
-        table_out(cols, data, f"risk by {by}")
+        # every row as wide as the header (the FX columns are filled on the FX delta rows only)
+        table_out(cols, [[*row, *[None] * (len(cols) - len(row))] for row in data], f"risk by {by}")
         return
     scale = v.vega_scale
     first = {

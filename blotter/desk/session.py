@@ -9,7 +9,7 @@ move's roll, how old the marks are, and the words for positions left out of a va
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Protocol
@@ -316,6 +316,67 @@ STALE_SLACK = timedelta(minutes=1)
 """A mark observed this close to the close still counts as of that close."""
 
 
+def last_close_at(now: datetime, tz: ZoneInfo, calendar_name: str = "NYSE") -> datetime:
+    """The last business day's close at or before ``now`` (the default cut-off in ``tz``)."""
+    local_now = now.astimezone(tz)
+    day: np.datetime64 = np.datetime64(local_now.date(), "D")
+    close_today = datetime.combine(local_now.date(), cal.DEFAULT_CUTOFF, tzinfo=tz)
+    if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
+        day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
+    return datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
+
+
+@dataclass(frozen=True)
+class SpotAge:
+    """How long ago a spot in force was observed, and whether that makes it stale."""
+
+    seconds: float
+    stale: bool
+
+    def words(self) -> str:
+        """``12s``, ``4m``, ``3h`` or ``2d``, with ``stale`` before it when stale."""
+        return ("stale " if self.stale else "") + short_age(self.seconds)
+
+
+def short_age(seconds: float) -> str:
+    """An age in its largest whole unit: ``12s``, ``4m``, ``3h``, ``2d`` (``0s`` for a spot
+    stamped a moment after ``now``, as a clock a little ahead can)."""
+    s = max(0.0, seconds)
+    for unit, size in (("d", 86_400), ("h", 3_600), ("m", 60)):
+        if s >= size:
+            return f"{int(s // size)}{unit}"
+    return f"{int(s)}s"
+
+
+def spot_ages(market: Market, now: datetime, stale_s: float) -> dict[str, SpotAge]:
+    """The age of each spot in force at ``now``, by symbol (``Market.spot_observed``).
+
+    A spot from an intraday mark (typed, imported or fed) is stale once older than ``stale_s``
+    seconds (0: never), which is how a feed that stopped shows; a spot of a close is as old as
+    that close, and the marks' staleness (``marks_age``) speaks for it.
+    """
+    now64 = np.datetime64(now.astimezone(UTC).replace(tzinfo=None), "us")
+    out = {}
+    for symbol, seen in market.spot_observed.items():
+        seconds = float((now64 - seen) / np.timedelta64(1, "s"))
+        intraday = symbol in market.spot_intraday
+        out[symbol] = SpotAge(seconds, bool(stale_s > 0 and intraday and seconds > stale_s))
+    return out
+
+
+def stale_spot_words(ages: Mapping[str, SpotAge], most: int = 3) -> str:
+    """``SPOT STALE: DEMOA 7m, DEMOB 9m`` for the stale spots (oldest first, at most ``most``
+    named, then how many more); empty when none is stale."""
+    stale = sorted(
+        ((a.seconds, s) for s, a in ages.items() if a.stale), key=lambda t: t[0], reverse=True
+    )
+    if not stale:
+        return ""
+    named = ", ".join(f"{s} {short_age(sec)}" for sec, s in stale[:most])
+    more = f" +{len(stale) - most}" if len(stale) > most else ""
+    return f"SPOT STALE: {named}{more}"
+
+
 def marks_age(
     marks_as_of: datetime,
     now: datetime,
@@ -330,12 +391,7 @@ def marks_age(
     the count says how many; else the newest mark (``marks_as_of``) decides.
     """
     age = now - marks_as_of
-    local_now = now.astimezone(tz)
-    day: np.datetime64 = np.datetime64(local_now.date(), "D")
-    close_today = datetime.combine(local_now.date(), cal.DEFAULT_CUTOFF, tzinfo=tz)
-    if not (bool(cal.is_business_day(day, calendar_name)) and local_now >= close_today):
-        day = np.datetime64(str(cal.add_business_days(day, -1, calendar_name)), "D")
-    last_close = datetime.combine(day.astype(object), cal.DEFAULT_CUTOFF, tzinfo=tz)
+    last_close = last_close_at(now, tz, calendar_name)
     cut = last_close - STALE_SLACK
     if observed is not None and len(observed):
         cut_utc = np.datetime64(cut.astimezone(UTC).replace(tzinfo=None), "us")

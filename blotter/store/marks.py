@@ -265,10 +265,16 @@ class Marks(ReferenceData):
         divs: dict[str, float] = {}
         vols: dict[str, list[tuple[str, float, float]]] = {}
         rates: dict[str, list[tuple[int, float]]] = {}
+        spot_seen: dict[str, np.datetime64] = {}
+        spot_day: set[str] = set()
         for r in rows:
             kind, value = r["kind"], r["value"]
             if kind == "spot":
                 spots[symbols[r["underlying_id"]]] = value
+                seen = np.datetime64(r["observed_at"].rstrip("Z"), "us")
+                spot_seen[symbols[r["underlying_id"]]] = seen
+                if sets[r["mark_set_id"]]["kind"] == "intraday":
+                    spot_day.add(symbols[r["underlying_id"]])
             elif kind == "div_yield":
                 divs[symbols[r["underlying_id"]]] = value
             elif kind == "vol":
@@ -316,6 +322,8 @@ class Marks(ReferenceData):
             mark_set_id=set_id,
             mark_kind=kind,
             observed_at=observed,
+            spot_observed=spot_seen,
+            spot_intraday=frozenset(spot_day),
         )
 
     @guard_damage

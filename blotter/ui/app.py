@@ -347,8 +347,16 @@ class BlotterApp(App[None]):
                 loaded, self.clock(), self.tz, trials=trials, boundaries=previous
             )
             self.post_message(LoadProgress(2))
+            ages = session.spot_ages(
+                loaded.market, valued.valuation_time, self.settings.spot_stale_s
+            )
             tree = data.BookTree(
-                valued.valuation, self.tz, self._row_alert, today, base=loaded.base_currency
+                valued.valuation,
+                self.tz,
+                self._row_alert,
+                today,
+                base=loaded.base_currency,
+                spot_ages=ages,
             )
         except Exception as exc:  # noqa: BLE001 - any failure is shown to the user, not raised
             if not worker.is_cancelled:
@@ -446,6 +454,9 @@ class BlotterApp(App[None]):
         n_trials = int(np.count_nonzero(self.state.valuation.book.is_trial))
         if n_trials:
             alerts.insert(0, f"TRIALS {n_trials} (not in the store)")
+        stale_spots = session.stale_spot_words(self.state.tree.spot_ages)
+        if stale_spots:
+            alerts.insert(0, stale_spots)
         unvalued = self.state.valuation.unvalued
         if unvalued:
             n = session.unvalued_count(unvalued)

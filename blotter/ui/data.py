@@ -9,7 +9,7 @@ additive desk-unit arrays over those rows, and writes a trade as the Trades scre
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Any
@@ -19,7 +19,7 @@ import numpy as np
 from blotter import calendar as cal
 from blotter import risk
 from blotter.desk.pnl_today import NO_CLOSE, PnlToday
-from blotter.desk.session import Session
+from blotter.desk.session import Session, SpotAge
 from blotter.printable import printable
 from blotter.scenario.profile import profile_curves
 from blotter.ticks import price_text, tick_decimals
@@ -43,6 +43,7 @@ BOOK_COLUMNS: tuple[tuple[str, str], ...] = (
 
 TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
     BOOK_COLUMNS[0],
+    ("spot_age", "age"),
     ("pnl_today", "P&L day"),
     *BOOK_COLUMNS[1:],
     ("qty", "qty"),
@@ -50,7 +51,8 @@ TABLE_COLUMNS: tuple[tuple[str, str], ...] = (
     ("vol", "vol %"),
     ("days", "days"),
 )
-"""The Book pane's columns: ``BOOK_COLUMNS`` with P&L today (``desk.pnl_today``) after the spot,
+"""The Book pane's columns: ``BOOK_COLUMNS`` with the spot's age (``desk.session.spot_ages``) and
+P&L today (``desk.pnl_today``) after the spot,
 on the total, currency and underlying rows; then, on position rows, the quantity (contracts),
 the mark price (the model value per unit on the marks), the implied vol and days to expiry."""
 
@@ -90,12 +92,16 @@ class BookRow:
     mixed_currency: bool = False  # spans several currencies: money columns do not add
     decimals: int = 2  # decimals of the spot (the underlying's tick, ``blotter.ticks``)
     pnl_today: float = math.nan  # since the last close; NaN where it is not worked out
+    spot_age: float = math.nan  # seconds since the spot in force was observed (underlying rows)
+    spot_stale: bool = False  # an intraday spot older than the setting (``spot_stale_s``)
     detail: tuple[float, ...] = ()  # a position's POSITION_COLUMNS values
 
     def value(self, column: str) -> float:
         """The row's number in ``column`` (a key of ``TABLE_COLUMNS``); NaN where it has none."""
         if column == "pnl_today":
             return self.pnl_today
+        if column == "spot_age":
+            return self.spot_age
         if column in POSITION_COLUMNS:
             i = POSITION_COLUMNS.index(column)
             return self.detail[i] if i < len(self.detail) else math.nan
@@ -127,9 +133,11 @@ class BookTree:
         alert: Callable[[risk.ExposureRow], str] | None = None,
         pnl: PnlToday = NO_CLOSE,
         base: str | None = None,
+        spot_ages: Mapping[str, SpotAge] | None = None,
     ) -> None:
         self.valuation = valuation
         self.pnl = pnl
+        self.spot_ages: Mapping[str, SpotAge] = spot_ages or {}
         self.base = base  # the book's base currency; None shows no base-currency rows
         self.book = valuation.book
         self.tz = tz
@@ -336,6 +344,11 @@ class BookTree:
             mixed_currency=self._mixed_currency(live),
         )
 
+    def _age_of(self, symbol: str) -> dict[str, Any]:
+        """``spot_age`` and ``spot_stale`` of an underlying row (nothing without a spot)."""
+        age = self.spot_ages.get(symbol)
+        return {} if age is None else {"spot_age": age.seconds, "spot_stale": age.stale}
+
     def top(self, group: str) -> Sequence[BookRow]:
         trials = bool(np.asarray(self.book.is_trial).any())
         if group == "underlying":
@@ -350,6 +363,7 @@ class BookTree:
                     currency=r.currency,
                     decimals=self._decimals(r.index),
                     pnl_today=self.pnl.of(r.label) if not trials else math.nan,
+                    **self._age_of(r.label),
                 )
                 for r in self._by_underlying
             ]

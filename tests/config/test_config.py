@@ -82,6 +82,7 @@ def test_file_then_environment_then_flags(tmp_path: Path) -> None:
         ("watch_interval_s = inf", "watch_interval_s must be a finite number"),
         ("watch_interval_s = 86400", "watch_interval_s must be at most 3600"),
         ("feed_throttle_s = -1", "feed_throttle_s must not be negative"),
+        ("spot_stale_s = -5", "spot_stale_s must not be negative"),
         ("feed_throttle_s = 7200", "feed_throttle_s must be at most 3600"),
         ("ladder_vol_pts = [-5.0, nan]", "ladder_vol_pts[1] must be a finite number"),
         ("[alerts]\nvega_pt = nan", "[alerts] vega_pt must be a finite number"),

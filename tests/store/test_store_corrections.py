@@ -15,8 +15,9 @@ from store_children import add_underlyings
 import blotter.store as st
 from blotter.store import SCHEMA_VERSION, open_store
 
-CORRECTIONS_SINCE = 8
-"""The schema version that added ``underlying_correction``."""
+BEFORE = 6
+"""The schema version of a book older than observed times (7), corrections (8) and the base
+currency (9)."""
 
 
 def _book(tmp_book: Path) -> Path:
@@ -91,17 +92,17 @@ def test_the_cli_records_a_correction_and_the_list_shows_it(tmp_book: Path) -> N
 
 
 def _v6_book(path: Path) -> None:
-    """A book as the schema before corrections wrote it: the sections below version 8."""
+    """A book as schema 6 wrote it (before observed times, corrections and base currency)."""
     conn = sqlite3.connect(path, isolation_level=None)
     conn.execute("PRAGMA journal_mode = WAL")
     st.db.schema_functions(conn, ZoneInfo("America/New_York"))
     conn.execute("BEGIN")
     conn.execute(f"PRAGMA application_id = {st.db.APPLICATION_ID:d}")
     for version, statements in sorted(st.schema_sections().items()):
-        if version < CORRECTIONS_SINCE:
+        if version <= BEFORE:
             for statement in statements:
                 conn.execute(statement)
-    conn.execute("PRAGMA user_version = 6")
+    conn.execute(f"PRAGMA user_version = {BEFORE:d}")
     conn.execute(
         "INSERT INTO underlying (symbol, kind, currency, multiplier, american, cash_settled) "
         "VALUES ('OLDF', 'fx', 'USD', 1000, 0, 0)"

@@ -18,6 +18,7 @@ from textual.coordinate import Coordinate
 from textual.widgets import DataTable
 
 from blotter import risk
+from blotter.desk.session import SpotAge
 from blotter.ticks import price_text
 from blotter.ui import fmt
 from blotter.ui.data import (
@@ -67,6 +68,8 @@ def _text(
         return NOT_ADDITIVE
     if column == "spot":
         return price_text(value, row.decimals) if value == value else ""
+    if column == "spot_age":
+        return SpotAge(value, row.spot_stale).words() if value == value else ""
     if value != value and column in ("pnl_today", *POSITION_COLUMNS):
         return ""  # worked out per underlying and in total, or on a position row, only
     if column == "mark":
@@ -89,7 +92,7 @@ def column_specs(rows: Sequence[BookRow], vega_unit: str = "pt") -> dict[str, Co
         if col == "vega_pt":
             header = VEGA_HEADERS[vega_unit]
         values = [r.value(col) * (scale if col == "vega_pt" else 1.0) for r in rows]
-        fixed = col in ("spot", "mark", "vol", "days")
+        fixed = col in ("spot", "spot_age", "mark", "vol", "days")
         unit, factor = ("", 1.0) if fixed else fmt.column_scale(values)
         texts = [_text(col, r.value(col), r, scale, factor) for r in rows]
         head = fmt.scaled_header(header, unit)
