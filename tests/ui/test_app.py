@@ -145,9 +145,9 @@ async def test_expand_group_and_sort(demo_app: BlotterApp) -> None:
         await pilot.press("up", "e")
         assert [r.key for r in table.visible_rows()] == keys
 
-        # Sort by Δ $ (column 3, after spot and P&L day): largest first, then reversed, then
-        # back to the book's order.
-        await pilot.press("right", "right", "right", "s")
+        # Sort by Δ $ (column 4, after spot, its age and P&L day): largest first, then
+        # reversed, then back to the book's order.
+        await pilot.press("right", "right", "right", "right", "s")
         top = [r for r in table.visible_rows() if r.level == 1]
         assert [r.values[1] for r in top] == sorted((r.values[1] for r in top), reverse=True)
         await pilot.press("s")
