@@ -28,6 +28,13 @@ Example file::
     [keys]                      # binding id = comma-separated keys (see the help screen)
     help = "question_mark,f1"
     quit = "q,f10"
+
+    [scenarios.crash]           # a named set of what-if moves: move name = move line
+    "down 10, vol +8" = "spot -10% vol +8"
+    "down 20, vol +15" = "spot -20% vol +15"
+
+``scenarios_file`` names a TOML file of more ``[scenarios.NAME]`` tables (relative to the
+settings file's folder); ``blotter.desk.scenario_sets`` reads it and parses every move.
 """
 
 from __future__ import annotations
@@ -62,6 +69,20 @@ class Alerts:
     underlying_ladder_loss: float = 0.0  # worst ladder cell's loss limit of each underlying
 
 
+MAX_SET_MOVES = 100
+"""Most moves one scenario set may hold: one table a person reads."""
+
+
+@dataclass(frozen=True)
+class ScenarioSetText:
+    """One named set of what-if moves as a TOML file spells it; ``blotter.desk.scenario_sets``
+    parses the move lines (the grammar sits above the settings)."""
+
+    name: str
+    moves: tuple[tuple[str, str], ...]  # (move name, move line), in the file's order
+    source: str  # the file the set came from
+
+
 @dataclass(frozen=True)
 class Settings:
     """Everything the app reads at start. ``keymap`` maps binding ids to comma-separated keys."""
@@ -83,6 +104,8 @@ class Settings:
     feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
     spot_stale_s: float = 300.0  # an intraday spot older than this is STALE; 0 = never
     log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
+    scenarios: tuple[ScenarioSetText, ...] = ()  # the settings file's [scenarios] tables
+    scenarios_file: str = ""  # a TOML file of more [scenarios.NAME] tables; "" = none
 
     @property
     def tz(self) -> ZoneInfo:
@@ -145,7 +168,7 @@ def _coerce(where: str, name: str, default: Any, value: Any) -> Any:
 
 
 def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Settings:
-    plain = {f.name: f for f in fields(Settings)}.keys() - {"alerts", "keymap"}
+    plain = {f.name: f for f in fields(Settings)}.keys() - {"alerts", "keymap", "scenarios"}
     changes: dict[str, Any] = {}
     alerts = settings.alerts
     keymap = dict(settings.keymap)
@@ -169,6 +192,10 @@ def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Setting
             if not isinstance(value, Mapping):
                 raise ConfigError(f"{where}: [keys] must be a table")
             keymap.update({str(k): str(v) for k, v in value.items()})
+        elif name == "scenarios" and where not in ("environment", "command line"):
+            changes["scenarios"] = scenario_sets_from_toml(value, where)
+        elif name == "scenarios_file" and isinstance(value, str) and value.strip():
+            changes["scenarios_file"] = _beside(value, where)
         elif name in plain:
             changes[name] = _coerce(where, name, getattr(settings, name), value)
         else:
@@ -176,8 +203,76 @@ def _apply(settings: Settings, values: Mapping[str, Any], where: str) -> Setting
     return replace(settings, alerts=alerts, keymap=keymap, **changes)
 
 
+def _has_control(text: str) -> bool:
+    return any(ord(c) < 32 or 127 <= ord(c) < 160 for c in text)
+
+
+def scenario_sets_from_toml(value: Any, where: str) -> tuple[ScenarioSetText, ...]:
+    """The ``[scenarios]`` table of a TOML file at ``where``: one table per set, each key a move
+    name and each value a move line; ConfigError naming the file, the set and the move."""
+    if not isinstance(value, Mapping):
+        raise ConfigError(f"{where}: [scenarios] must hold tables: [scenarios.NAME]")
+    out = []
+    for set_name, moves in value.items():
+        if not isinstance(moves, Mapping):
+            raise ConfigError(
+                f"{where}: scenario set {set_name!r} must be a table of "
+                '"move name" = "move line" (e.g. "down 10" = "spot -10%")'
+            )
+        if not set_name.strip() or _has_control(set_name):
+            raise ConfigError(f"{where}: scenario set name {set_name!r} is blank or unprintable")
+        if not moves:
+            raise ConfigError(f"{where}: scenario set {set_name!r} has no moves")
+        if len(moves) > MAX_SET_MOVES:
+            raise ConfigError(
+                f"{where}: scenario set {set_name!r} has {len(moves)} moves; "
+                f"at most {MAX_SET_MOVES}"
+            )
+        pairs = []
+        for move_name, line in moves.items():
+            if not isinstance(line, str):
+                raise ConfigError(
+                    f"{where}: scenario set {set_name!r}, move {move_name!r}: the move must "
+                    f"be a line of text in quotes, not {line!r}"
+                )
+            if not move_name.strip() or _has_control(move_name) or _has_control(line):
+                raise ConfigError(
+                    f"{where}: scenario set {set_name!r}, move {move_name!r}: a blank or "
+                    "unprintable name or line"
+                )
+            pairs.append((move_name.strip(), line))
+        out.append(ScenarioSetText(set_name.strip(), tuple(pairs), where))
+    return tuple(out)
+
+
+def read_scenario_file(path: Path) -> tuple[ScenarioSetText, ...]:
+    """The ``[scenarios.NAME]`` tables of the TOML file ``path``; ConfigError naming the file."""
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: no such scenario file") from None
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ConfigError(f"{path}: {exc}") from None
+    extra = sorted(set(data) - {"scenarios"})
+    if extra:
+        raise ConfigError(
+            f"{path}: a scenario file holds [scenarios.NAME] tables only, not {', '.join(extra)}"
+        )
+    if "scenarios" not in data:
+        raise ConfigError(f"{path}: no [scenarios.NAME] tables")
+    return scenario_sets_from_toml(data["scenarios"], str(path))
+
+
+def _beside(value: str, where: str) -> str:
+    """``value`` as a path: ``~`` expanded, relative to the folder of the file ``where`` names."""
+    path = Path(value).expanduser()
+    if not path.is_absolute() and where not in ("environment", "command line"):
+        path = Path(where).parent / path
+    return str(path)
+
+
 def _from_env(env: Mapping[str, str]) -> dict[str, Any]:
-    plain = {f.name for f in fields(Settings)} - {"alerts", "keymap"}
+    plain = {f.name for f in fields(Settings)} - {"alerts", "keymap", "scenarios"}
     out: dict[str, Any] = {}
     alerts: dict[str, str] = {}
     for var, value in env.items():
@@ -222,7 +317,7 @@ def _numbers(settings: Settings) -> list[tuple[str, float]]:
         value = getattr(settings, f.name)
         if isinstance(value, float):
             out.append((f.name, value))
-        elif isinstance(value, tuple):
+        elif isinstance(value, tuple) and f.name != "scenarios":
             out += [(f"{f.name}[{i}]", float(v)) for i, v in enumerate(value)]
     out += [
         (f"[alerts] {f.name}", float(getattr(settings.alerts, f.name)))

@@ -28,8 +28,10 @@ def _no_user_settings(
 ) -> None:
     """Every test starts from the default settings: no settings file, no desk zone variable, no
     ``BLOTTER_READ_ONLY`` of the user running the tests (the commands read the read-only
-    setting as the app does)."""
+    setting as the app does), and a data folder of its own (the app keeps its what-if history
+    there)."""
     monkeypatch.setenv("XDG_CONFIG_HOME", str(tmp_path_factory.getbasetemp() / "no-settings"))
+    monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path_factory.mktemp("data-home")))
     for name in ("BLOTTER_CONFIG", "BLOTTER_TZ", "BLOTTER_DESK_TZ", "BLOTTER_READ_ONLY"):
         monkeypatch.delenv(name, raising=False)
 

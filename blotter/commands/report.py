@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import click
@@ -36,7 +37,9 @@ from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
 if TYPE_CHECKING:
+    from blotter.desk.scenario_sets import ScenarioSet, SetRun
     from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
+    from blotter.scenario import MoveResult
 
 
 RULE_NOTES = {
@@ -814,11 +817,78 @@ def _move_row_cells(r: Any) -> list[str]:
     ]
 
 
+MOVE_CSV_COLUMNS = (
+    "full",
+    "estimate_1",
+    "estimate_2",
+    "error_1",
+    "error_2",
+    "error_1_pct",
+    "error_2_pct",
+    *TERM_NAMES,
+    "through_expiry",
+    "currency",
+)
+"""The money columns of a what-if's CSV, after the row's label (``underlying`` or ``total``)."""
+
+
+def _move_csv_rows(res: MoveResult) -> list[list[Any]]:
+    """A what-if's CSV rows: each underlying, then each currency's total."""
+    return [
+        [
+            label,
+            r.full,
+            r.estimate_1,
+            r.estimate_2,
+            r.error_1,
+            r.error_2,
+            r.error_1_pct,
+            r.error_2_pct,
+            *(r.terms[t] for t in TERM_NAMES),
+            r.n_through_expiry,
+            r.currency,
+        ]
+        for label, r in _csv_labelled(res.by_underlying, res.by_currency, res.total)
+    ]
+
+
+def _move_json(res: MoveResult, ccy_of: dict[str, str]) -> dict[str, Any]:
+    """A what-if's JSON keys after the header: the move, the totals, each underlying, expiring
+    options (``ccy_of``: each symbol's currency), the vol rule and the notes."""
+    from blotter import calendar as cal
+
+    return {
+        "after": cal.iso(res.time_after),
+        "roll_years": res.roll_years,
+        "move": res.move.as_dict(),
+        "total": res.total.as_dict()
+        | {"by_currency": {r.currency: r.as_dict() for r in res.by_currency}},
+        "by_underlying": [r.as_dict() for r in res.by_underlying],
+        "expiring": [e.as_dict() | {"currency": ccy_of[e.underlying]} for e in res.expiring],
+        "vol_rule": res.move.vol_rule,
+        "notes": list(res.notes),
+    }
+
+
 @click.command(help=_WHATIF_HELP, context_settings={"ignore_unknown_options": True})
 @db_option
-@click.argument("move", nargs=-1, required=True)
+@click.argument("move", nargs=-1)
 @_at_option
 @_book_option
+@click.option(
+    "--set",
+    "set_name",
+    metavar="NAME",
+    help="Run every move of the scenario set NAME as one table, its worst marked.",
+)
+@click.option("--sets", "list_sets", is_flag=True, help="List the scenario sets and their moves.")
+@click.option(
+    "--file",
+    "sets_file",
+    type=click.Path(dir_okay=False, path_type=Path),
+    help="Read the scenario sets from this TOML file alone (default: [scenarios] in the "
+    "settings, then the scenarios_file setting's file).",
+)
 @output_options
 @xlsx_option
 def whatif(
@@ -828,11 +898,19 @@ def whatif(
     book: str | None,
     as_json: bool,
     as_csv: bool,
+    set_name: str | None = None,
+    list_sets: bool = False,
+    sets_file: Path | None = None,
 ) -> None:
     from blotter import calendar as cal
-    from blotter.scenario import TERM_NAMES, MoveError, MoveSyntaxError, apply_move, parse_move
+    from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
 
     check_output_flags(as_json, as_csv)
+    if set_name is not None or list_sets or sets_file is not None:
+        _whatif_sets(db_path, move, at, book, as_json, as_csv, set_name, sets_file)
+        return
+    if not move:
+        raise click.UsageError("give a MOVE, or --set NAME to run a scenario set (--sets lists)")
     text = " ".join(move)
     try:
         parse_move(text)
@@ -855,51 +933,11 @@ def whatif(
     ccy_of = dict(zip(und.symbols, und.currencies, strict=True))
     several = len(res.by_currency) > 1
     if as_json:
-        out = _header(v) | {
-            "after": cal.iso(res.time_after),
-            "roll_years": res.roll_years,
-            "move": mv.as_dict(),
-            "total": res.total.as_dict()
-            | {"by_currency": {r.currency: r.as_dict() for r in res.by_currency}},
-            "by_underlying": [r.as_dict() for r in res.by_underlying],
-            "expiring": [e.as_dict() | {"currency": ccy_of[e.underlying]} for e in res.expiring],
-            "vol_rule": mv.vol_rule,
-            "notes": list(res.notes),
-        }
-        print_json(out | _unvalued_json(v.unvalued))
+        print_json(_header(v) | _move_json(res, ccy_of) | _unvalued_json(v.unvalued))
         return
     if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
-        cols = [
-            "underlying",
-            "full",
-            "estimate_1",
-            "estimate_2",
-            "error_1",
-            "error_2",
-            "error_1_pct",
-            "error_2_pct",
-            *TERM_NAMES,
-            "through_expiry",
-            "currency",
-        ]
-        rows = [
-            [
-                label,
-                r.full,
-                r.estimate_1,
-                r.estimate_2,
-                r.error_1,
-                r.error_2,
-                r.error_1_pct,
-                r.error_2_pct,
-                *(r.terms[t] for t in TERM_NAMES),
-                r.n_through_expiry,
-                r.currency,
-            ]
-            for label, r in _csv_labelled(res.by_underlying, res.by_currency, res.total)
-        ]
-        table_out(cols, rows, "whatif")
+        table_out(["underlying", *MOVE_CSV_COLUMNS], _move_csv_rows(res), "whatif")
         return
     shown = _labelled(res.by_underlying, res.by_currency, res.total, _total_label(v.unvalued))
     ccy_head = ["ccy"] if several else []
@@ -947,6 +985,164 @@ def whatif(
         click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
     for note in res.notes:
         click.echo(note)
+    _say_unvalued(v.unvalued, table=True)
+
+
+WORST_WORDS = "▼ WORST"
+"""How a set's table marks each currency's worst scenario: a symbol and a word."""
+
+
+def _whatif_sets(
+    db_path: str | None,
+    move: tuple[str, ...],
+    at: str | None,
+    book: str | None,
+    as_json: bool,
+    as_csv: bool,
+    set_name: str | None,
+    sets_file: Path | None,
+) -> None:
+    """``whatif --set NAME`` (run a scenario set on ``--book`` or every book) or ``--sets`` (list
+    them), from the settings' sets or ``--file``'s; a bad set is refused before any valuing."""
+    from blotter.config import ConfigError, load_settings
+    from blotter.desk import scenario_sets
+
+    if move:
+        raise click.UsageError("give a MOVE or a scenario set (--set NAME, --sets), not both")
+    try:
+        sets = scenario_sets.read_sets(load_settings(), sets_file)
+    except ConfigError as exc:
+        raise click.ClickException(f"settings: {exc}") from None
+    except scenario_sets.SetError as exc:
+        raise click.ClickException(str(exc)) from None
+    if set_name is None:
+        _list_sets(sets, as_json, as_csv)
+        return
+    try:
+        chosen = scenario_sets.find_set(sets, set_name)
+    except scenario_sets.SetError as exc:
+        raise click.ClickException(str(exc)) from None
+    v = _value(_open(db_path), at, book=book)
+    try:
+        run = scenario_sets.run_set(v, chosen)
+    except scenario_sets.SetError as exc:
+        raise click.ClickException(str(exc)) from None
+    assert run is not None  # never cancelled here
+    _show_set_run(v, run, as_json, as_csv)
+
+
+def _list_sets(sets: Sequence[ScenarioSet], as_json: bool, as_csv: bool) -> None:
+    """``whatif --sets``: each set's moves, by name, as written and as read."""
+    if as_json:
+        print_json(
+            {
+                "sets": [
+                    {
+                        "name": s.name,
+                        "source": s.source,
+                        "moves": [
+                            {"name": m.name, "text": m.text, "move": m.move.as_dict()}
+                            for m in s.moves
+                        ],
+                    }
+                    for s in sets
+                ]
+            }
+        )
+        return
+    rows = [
+        [s.name if j == 0 else "", m.name, m.text, m.move.describe()]
+        for s in sets
+        for j, m in enumerate(s.moves)
+    ]
+    if as_csv or wants_xlsx():
+        table_out(
+            ["set", "scenario", "move", "source"],
+            [[s.name, m.name, m.text, s.source] for s in sets for m in s.moves],
+            "scenario sets",
+        )
+        return
+    if not sets:
+        click.echo(
+            "no scenario sets: add [scenarios.NAME] tables of \"move name\" = \"move line\" to "
+            "the settings file, or give a file with --file (README: Scenario sets)"
+        )
+        return
+    print_table(["set", "scenario", "move as written", "read as"], rows)
+    click.echo("")
+    for source in dict.fromkeys(s.source for s in sets):
+        names = ", ".join(s.name for s in sets if s.source == source)
+        click.echo(f"from {source}: {names}")
+
+
+def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) -> None:
+    """A scenario set's table, JSON or CSV: each move's full change, estimate and error per
+    currency, as ``whatif`` gives them for the move alone, each currency's worst marked."""
+    und = v.book.underlyings
+    ccy_of = dict(zip(und.symbols, und.currencies, strict=True))
+    s = run.scenario_set
+    if as_json:
+        out = _header(v) | {
+            "set": s.name,
+            "source": s.source,
+            "scenarios": [
+                {"name": row.name, "text": row.text, "worst": run.worst_in(i)}
+                | _move_json(row.result, ccy_of)
+                for i, row in enumerate(run.rows)
+            ],
+            "worst": {ccy: run.rows[i].name for ccy, i in run.worst.items()},
+        }
+        print_json(out | _unvalued_json(v.unvalued))
+        return
+    if as_csv or wants_xlsx():
+        _say_unvalued(v.unvalued, table=False)
+        rows = [
+            [row.name, row.text, *cells, int(cells[0] == "total" and cells[-1] in run.worst_in(i))]
+            for i, row in enumerate(run.rows)
+            for cells in _move_csv_rows(row.result)
+        ]
+        table_out(["scenario", "move", "underlying", *MOVE_CSV_COLUMNS, "worst"], rows, "whatif")
+        return
+    several = len(v.currencies) > 1
+    table = []
+    for i, row in enumerate(run.rows):
+        worst = run.worst_in(i)
+        for r in row.money_rows:
+            mark = WORST_WORDS if r.currency in worst else ""
+            table.append(
+                [row.name, row.result.move.describe(), *_ccy_cell(r, several)]
+                + _move_row_cells(r)
+                + [mark]
+            )
+    ccy_head = ["ccy"] if several else []
+    click.echo(
+        f"scenario set {s.name!r} from {s.source}: {len(run.rows)} moves · "
+        f"{_money_note(v.currencies)}"
+    )
+    click.echo("")
+    print_table(
+        ["scenario", "move", *ccy_head, "full", "est 1", "err 1", "err 1 %", "est 2", "err 2",
+         "err 2 %", "worst"],
+        table,
+        right=[False] * (2 + len(ccy_head)) + [True] * 7 + [False],
+    )
+    click.echo("")
+    for ccy, i in run.worst.items():
+        r = next(m for m in run.rows[i].money_rows if m.currency == ccy)
+        click.echo(
+            f"{WORST_WORDS} in {ccy}: {run.rows[i].name!r} ({run.rows[i].text}), "
+            f"full revaluation {_money(r.full)} {ccy}"
+        )
+    for rule in dict.fromkeys(row.result.move.vol_rule for row in run.rows):
+        click.echo(_rule_note(rule))
+    click.echo(
+        f"valued at {_iso(v.valuation_time)}; each move applied on its own to this valuation"
+    )
+    if any(r.n_through_expiry for row in run.rows for r in row.money_rows):
+        click.echo("* includes options expiring inside the roll: their estimate is not meaningful")
+    for row in run.rows:
+        for note in row.result.notes:
+            click.echo(f"{row.name}: {note}")
     _say_unvalued(v.unvalued, table=True)
 
 

@@ -175,6 +175,16 @@ class BoundaryCache:
         with self._lock:
             return len(self._items)
 
+    def copy(self) -> BoundaryCache:
+        """A new cache holding the same boundaries in the same order (a solved boundary is never
+        changed), so what is solved or reordered in one does not reach the other."""
+        out = BoundaryCache(self.max_bytes)
+        with self._lock:
+            out._items = OrderedDict(self._items)
+            out._by_rates = {k: dict(v) for k, v in self._by_rates.items()}
+            out._bytes = self._bytes
+        return out
+
     def __getstate__(self) -> dict[str, object]:
         """The cache without its lock: a process or a cluster worker unpickles its own copy of
         the boundaries solved so far."""

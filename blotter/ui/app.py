@@ -57,6 +57,7 @@ from blotter.ui.screens.explain import ExplainScreen
 from blotter.ui.screens.help import HelpScreen
 from blotter.ui.screens.marks import MarksScreen
 from blotter.ui.screens.palette import ActionList, action_commands
+from blotter.ui.screens.scenario_sets import ScenarioSetsScreen
 from blotter.ui.screens.trades import TradesScreen
 from blotter.ui.screens.watch import WatchScreen
 from blotter.ui.timings import Timing, Timings
@@ -787,6 +788,9 @@ class BlotterApp(App[None]):
 
     def action_watch_list(self) -> None:
         self.push_screen(WatchScreen(self.host(), id="watch-list"))
+
+    def action_scenario_sets(self) -> None:
+        self.push_screen(ScenarioSetsScreen(self.host(), self.settings))
 
     def action_vega_unit(self) -> None:
         table = self.query_one(BookTable)

@@ -30,7 +30,7 @@ class KeySpec:
     description: str
     short: str = ""  # footer label; empty keeps the action out of the footer
     where: str = "app"  # "app", "bar", "book", "help", or a screen: "marks", "review", "trades",
-    # "form", "explain", "list"
+    # "form", "explain", "list", "sets"
     priority: bool = False  # handled when the key reaches the app, before the focused widget
     # Esc ("escape") is only ever a last extra key of an action that closes Help or a modal: it
     # may arrive late or merged over SSH, and closing is harmless, so it is never the only key.
@@ -130,6 +130,12 @@ KEYS: tuple[KeySpec, ...] = (
         "command_palette",
         "colon,ctrl+e",
         "List every action by its words; type some to find one",
+    ),
+    KeySpec(
+        "scenario-sets",
+        "scenario_sets",
+        "z,ctrl+underscore",
+        "Scenario sets: run a named set of moves as one table, worst marked",
     ),
     KeySpec("quit", "quit", "q,f10", "Quit", short="Quit"),
     KeySpec("history-back", "history(-1)", "up,ctrl+p", "Bar: previous move", where="bar"),
@@ -298,6 +304,22 @@ KEYS: tuple[KeySpec, ...] = (
         "list-back", "back", "q,w,f10,escape", "Flags: back to the book", short="Back", where="list"
     ),
     KeySpec(
+        "sets-run",
+        "run_set",
+        "r,f5",
+        "Scenario sets: run the set under the cursor (Enter on the list too)",
+        short="Run",
+        where="sets",
+    ),
+    KeySpec(
+        "sets-back",
+        "back",
+        "q,z,f10",
+        "Scenario sets: back to the book",
+        short="Back",
+        where="sets",
+    ),
+    KeySpec(
         "help-close",
         "close",
         "q,question_mark,f1,f10,escape",
@@ -323,6 +345,7 @@ KEY_NAMES = {
     "backslash": "\\",
     "colon": ":",
     "escape": "Esc",
+    "underscore": "_",
 }
 """How the help screen and footer write Textual key names."""
 

@@ -20,6 +20,7 @@ if TYPE_CHECKING:
     from blotter.desk.entry import TradeSheet
     from blotter.desk.hedge import Refs
     from blotter.desk.limits import WeekExpiries
+    from blotter.desk.scenario_sets import SetRun
     from blotter.scenario import Explain, Ladder, Move, MoveResult
     from blotter.store import ContractRecord, MarkSetInfo
     from blotter.ui.data import BookState, ProfileData
@@ -235,3 +236,13 @@ class WeekReady(ScreenResult):
 
     def __repr__(self) -> str:
         return f"WeekReady(expiring={len(self.week.expiring)})"
+
+
+@dataclass(repr=False)
+class SetRan(ScreenResult):
+    """A scenario set was run on the book."""
+
+    run: SetRun
+
+    def __repr__(self) -> str:
+        return f"SetRan({self.run.scenario_set.name!r}, moves={len(self.run.rows)})"

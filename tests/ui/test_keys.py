@@ -78,6 +78,7 @@ async def test_every_binding_on_the_help_screen_exists(demo_db: Path) -> None:
             ("form", ("t", "a")),
             ("explain", ("l",)),
             ("list", ("w",)),
+            ("sets", ("z",)),
         ):
             for key in keys:
                 await pilot.press(key)

@@ -1,4 +1,8 @@
-"""The what-if bar: one input line for a move, its history, and the parser's message beside it."""
+"""The what-if bar: one input line for a move, its history, and the parser's message beside it.
+
+The history is kept on disk by ``blotter.desk.move_history`` (loaded when the bar is mounted,
+saved on each move that parsed), so ↑ recalls moves of earlier sessions too.
+"""
 
 from __future__ import annotations
 
@@ -11,10 +15,11 @@ from textual.binding import BindingType
 from textual.containers import Horizontal
 from textual.widgets import Input, Static
 
+from blotter.desk import move_history
+from blotter.desk.move_history import HISTORY_SIZE
 from blotter.ui.keys import app_bindings
 
-HISTORY_SIZE = 50
-"""Moves kept for up/down recall in one session."""
+__all__ = ["HISTORY_SIZE", "MoveInput", "WhatIfBar"]
 
 
 class MoveInput(Input):
@@ -31,6 +36,14 @@ class MoveInput(Input):
         self.cursor_blink = False  # a blinking cursor is a timer; idle means none
         self.history: list[str] = []
         self._recall: int | None = None
+        self._history_path = move_history.history_path()
+        self._save_failed = False
+
+    def on_mount(self) -> None:
+        """Load the history of earlier sessions; a file that cannot be used is noted, not fatal."""
+        self.history, note = move_history.load_history(self._history_path)
+        if note:
+            self.notify(note, title="What-if history", severity="warning", markup=False)
 
     async def on_key(self, event: events.Key) -> None:
         """Run a key bound on the bar itself (editing, Enter, history) now, in order with typing.
@@ -52,11 +65,23 @@ class MoveInput(Input):
 
     def remember(self, text: str) -> None:
         """Put a move that parsed at the end of the history (no repeats back to back)."""
-        text = text.strip()
-        if text and (not self.history or self.history[-1] != text):
-            self.history.append(text)
-            del self.history[:-HISTORY_SIZE]
+        before = self.history
+        self.history = move_history.remember(self.history, text)
         self._recall = None
+        if self.history == before:
+            return
+        try:
+            move_history.save_history(self._history_path, self.history)
+        except OSError as exc:
+            if not self._save_failed:  # said once a session, not on every move
+                self._save_failed = True
+                self.notify(
+                    f"the what-if history cannot be saved to {self._history_path} "
+                    f"({exc.strerror or exc}); it is kept for this session only",
+                    title="What-if history",
+                    severity="warning",
+                    markup=False,
+                )
 
     def action_history(self, step: int) -> None:
         """Recall the previous (``step`` −1) or next (+1) move from the history."""
