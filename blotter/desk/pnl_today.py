@@ -63,3 +63,37 @@ def pnl_today(store: Any, at: np.datetime64, book: str | None = None) -> PnlToda
         currency_of={r.label: str(r.currency) for r in ex.by_underlying},
         words=f"since close set {last.id}",
     )
+
+
+def marked_values(valuation: Any) -> dict[str, float]:
+    """Per underlying, the value of the book's own positions (trials left out) plus units ×
+    price of positions that settle daily (a future's value is zero, its P&L is units × ΔF):
+    between two valuations of the same positions, its change is the P&L of that time."""
+    v = valuation
+    keep = ~np.asarray(v.book.is_trial, dtype=bool)
+    amount = np.where(v.settles_daily, v.units * v.spot, v.value)
+    sums = np.bincount(
+        np.asarray(v.book.underlying_idx)[keep],
+        weights=amount[keep],
+        minlength=len(v.book.underlyings.symbols),
+    )
+    return {s: float(sums[i]) for i, s in enumerate(v.book.underlyings.symbols)}
+
+
+def advanced(since: PnlToday, before: dict[str, float], after: dict[str, float]) -> PnlToday:
+    """``since`` moved on by the change of ``marked_values`` from ``before`` to ``after``: the
+    P&L today of a later valuation of the same positions (no trade, cancel or close between),
+    without explaining again from the close (which costs a revaluation at the close)."""
+    if since.close_id is None:
+        return since
+    by_underlying = dict(since.by_underlying)
+    by_currency = dict(since.by_currency)
+    for name, now in after.items():
+        move = now - before.get(name, 0.0)
+        if move == 0.0:
+            continue
+        by_underlying[name] = by_underlying.get(name, 0.0) + move
+        ccy = since.currency_of.get(name)
+        if ccy is not None:
+            by_currency[ccy] = by_currency.get(ccy, 0.0) + move
+    return PnlToday(since.close_id, by_underlying, by_currency, since.currency_of, since.words)

@@ -437,6 +437,20 @@ class Trades(Contracts):
         with self._read() as conn:
             return int(db.scalar(conn, "SELECT coalesce(max(seq), 0) FROM history"))
 
+    def positions_seq(self) -> tuple[int, int]:
+        """(the newest place in history of a trade or cancel, of a close set): while both stay,
+        the positions and the close they are measured from stay (intraday marks move neither)."""
+        with self._read() as conn:
+            trades = db.scalar(
+                conn, "SELECT coalesce(max(seq), 0) FROM history WHERE kind IN ('trade', 'cancel')"
+            )
+            closes = db.scalar(
+                conn,
+                "SELECT coalesce(max(h.seq), 0) FROM history h JOIN mark_set s "
+                "ON h.kind = 'mark_set' AND h.row_id = s.mark_set_id WHERE s.kind = 'close'",
+            )
+        return int(trades or 0), int(closes or 0)
+
     @guard_damage
     def new_trades(
         self, after_seq: int, before_seq: int | None = None, book: str | None = None

@@ -12,7 +12,8 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable, Iterator
-from datetime import UTC, datetime
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, ClassVar
 
@@ -71,7 +72,7 @@ from blotter.ui.widgets.whatif_bar import MoveInput, WhatIfBar
 if TYPE_CHECKING:
     from blotter.book import Book
     from blotter.market import Market
-    from blotter.risk import ExposureRow
+    from blotter.risk import BookValuation, ExposureRow
     from blotter.scenario import Move, MoveResult
     from blotter.store import ContractRecord, Store
 
@@ -133,6 +134,23 @@ def _pnl_note(tree: data.BookTree) -> str:
     return f"P&L day {pnl_words}" if tree.pnl.close_id is not None else f"P&L day: {pnl_words}"
 
 
+PNL_EXPLAIN_EVERY = timedelta(minutes=1)
+"""P&L today is explained from the close again at least this often, even with no trade between
+(moving it on is exact, this bounds any rounding it gathers)."""
+
+
+@dataclass(frozen=True)
+class PnlBase:
+    """The last P&L today explained from the close, and what it was explained for: the book in
+    view and the store's place in history of trades and closes (``Store.positions_seq``), the
+    positions' marked values then, and when."""
+
+    key: tuple[str | None, tuple[int, int]]
+    pnl: pnl.PnlToday
+    values: dict[str, float]
+    explained_at: datetime
+
+
 class BlotterApp(App[None]):
     """The app; see the module docstring. ``clock`` gives the valuation time (UTC, aware)."""
 
@@ -177,6 +195,7 @@ class BlotterApp(App[None]):
         self.timings = Timings()  # instants the bench reads
         self._load_seq = 0  # counts loads started, so a late progress timer knows it is stale
         self._loading = False  # a load runs: a new request waits for it (``load_book``)
+        self.pnl_base: PnlBase | None = None  # the last P&L today explained from the close
         self._load_again = False  # a load was asked for while one ran
         self._stop_watch = threading.Event()
         self._compiling = False
@@ -339,19 +358,23 @@ class BlotterApp(App[None]):
         trials = [t for t in self.trial_trades.all() if name is None or t.book == name]
         names: tuple[str, ...] = ()
         today = pnl.NO_CLOSE
+        previous = self.state.valuation.boundaries if self.state is not None else None
         try:
             if self.loader is not None:
                 loaded = session.Loaded(*self.loader())
+                self.post_message(LoadProgress(1))
+                valued = session.value(
+                    loaded, self.clock(), self.tz, trials=trials, boundaries=previous
+                )
             else:
                 with self.open_store() as st:
                     names = tuple(st.book_names())
                     loaded = session.read(st, books.check_book(st, name))
-                    today = self._pnl_today(st, name)
-            self.post_message(LoadProgress(1))
-            previous = self.state.valuation.boundaries if self.state is not None else None
-            valued = session.value(
-                loaded, self.clock(), self.tz, trials=trials, boundaries=previous
-            )
+                    self.post_message(LoadProgress(1))
+                    valued = session.value(
+                        loaded, self.clock(), self.tz, trials=trials, boundaries=previous
+                    )
+                    today = self._pnl_today(st, name, valued.valuation)
             self.post_message(LoadProgress(2))
             ages = session.spot_ages(
                 loaded.market, valued.valuation_time, self.settings.spot_stale_s
@@ -379,13 +402,32 @@ class BlotterApp(App[None]):
         if not worker.is_cancelled:
             self.post_message(BookLoaded(state))
 
-    def _pnl_today(self, st: Store, name: str | None) -> pnl.PnlToday:
+    def _pnl_today(self, st: Store, name: str | None, valuation: BookValuation) -> pnl.PnlToday:
         """P&L today of the book in view; a failure is said in the P&L's words, never raised,
-        so the rest of the book still loads."""
-        at = np.datetime64(self.clock().astimezone(UTC).replace(tzinfo=None), "s")
+        so the rest of the book still loads.
+
+        Explained from the close when a trade, cancel or close was written since the last one
+        (or a minute has passed, or marks are missing); else moved on from the last one by the
+        change of the positions' marked values (``pnl.advanced``), which under a feed saves an
+        explain (a revaluation at the close) on every commit."""
+        at_time = self.clock()
+        at = np.datetime64(at_time.astimezone(UTC).replace(tzinfo=None), "s")
         try:
-            return pnl.pnl_today(st, at, name)
+            key = (name, st.positions_seq())
+            values = pnl.marked_values(valuation)
+            base = self.pnl_base
+            if (
+                base is not None
+                and base.key == key
+                and not valuation.partial
+                and at_time - base.explained_at < PNL_EXPLAIN_EVERY
+            ):
+                return pnl.advanced(base.pnl, base.values, values)
+            today = pnl.pnl_today(st, at, name)
+            self.pnl_base = PnlBase(key, today, values, at_time)
+            return today
         except Exception as exc:  # noqa: BLE001 - shown beside the book, not raised
+            self.pnl_base = None
             return pnl.PnlToday(None, words=f"P&L today not worked out: {exc}")
 
     def _row_alert(self, row: ExposureRow) -> str:

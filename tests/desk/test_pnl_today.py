@@ -90,3 +90,34 @@ def test_no_close_yet_says_so(tmp_path: Path) -> None:
         got = pnl_today(s, _instant("2026-12-02T16:00:00"))
     assert got.close_id is None and "no close yet" in got.words
     assert np.isnan(got.total("USD"))
+
+
+def test_moving_on_from_a_valuation_equals_explaining_again(day_book: Path) -> None:
+    """Between two valuations with no trade, cancel or close between, P&L today moves by the
+    change of the positions' marked values (``advanced``), which equals a new explain from the
+    close; an option held makes it more than arithmetic."""
+    from zoneinfo import ZoneInfo
+
+    from blotter.desk import session
+    from blotter.desk.pnl_today import advanced, marked_values
+
+    tz = ZoneInfo("America/New_York")
+    clock = {"now": _at("2026-12-02T15:30:00")}
+    with use_clock(lambda: clock["now"]), open_store(day_book) as s:
+        s.log_vol("HSTK", "2027-03-19", 0.30)
+        s.add_trade("cash", "HSTK", 5, 4.0, expiry="2027-03-19", strike=55.0, is_call=True)
+        first_at = _at("2026-12-02T16:00:00")
+        first = session.value(session.read(s), first_at, tz).valuation
+        p1 = pnl_today(s, _instant("2026-12-02T16:00:00"))
+        clock["now"] = _at("2026-12-02T16:30:00")
+        s.log_spot("HSTK", 55.5)
+        s.log_spot("HFUT", 4001.0)
+        second_at = _at("2026-12-02T17:00:00")
+        second = session.value(session.read(s), second_at, tz).valuation
+        p2 = pnl_today(s, _instant("2026-12-02T17:00:00"))
+    moved = advanced(p1, marked_values(first), marked_values(second))
+    assert moved.close_id == p2.close_id
+    for name in ("HSTK", "HFUT"):
+        assert moved.of(name) == pytest.approx(p2.of(name), rel=1e-9, abs=1e-6), name
+    assert moved.total("USD") == pytest.approx(p2.total("USD"), rel=1e-9)
+    assert moved.of("HSTK") != pytest.approx(p1.of("HSTK"), rel=1e-3)  # it did move

@@ -174,3 +174,35 @@ async def test_move_grid_and_trades_keep_every_digit(large_db: Path, size: tuple
         assert {"310.50", "5,123.25", "8.15", "100.05", "0.02130"} == prices
         widths = [c.width for c in table.columns.values()]
         assert widths[3] >= len("+400,000") and widths[4] >= len("5,123.25")
+
+
+async def test_pnl_day_moves_on_with_new_marks_as_a_new_explain_says(demo_db: Path) -> None:
+    """A commit of marks only (a feed's) moves P&L day on from the last explain without
+    explaining again; it still equals ``desk.pnl_today`` worked out from the close."""
+    from datetime import timedelta
+
+    import numpy as np
+
+    from blotter.desk.pnl_today import pnl_today
+    from blotter.store import MarkPoint
+
+    app = _app(demo_db)
+    async with app.run_test(size=(200, 50)) as pilot:
+        await settle(app, pilot)
+        base = app.pnl_base
+        assert base is not None
+        with open_store(demo_db) as s:
+            s.add_mark_set(
+                "intraday",
+                [MarkPoint("spot", 185.0, symbol="DEMOA"), MarkPoint("spot", 60.0, symbol="DEMOB")],
+                marked_at=FROZEN_NOW - timedelta(minutes=5),
+            )
+        app.load_book()
+        await settle(app, pilot)
+        assert app.pnl_base is base  # moved on, not explained again
+        with open_store(demo_db, read_only=True) as s:
+            today = pnl_today(s, np.datetime64(FROZEN_NOW.replace(tzinfo=None), "s"))
+        rows = {r.label: r for r in app.query_one("#book-table").visible_rows() if r.level == 1}
+        assert rows["DEMOA"].pnl_today != pytest.approx(base.pnl.of("DEMOA"), rel=1e-6)
+        for label, row in rows.items():
+            assert row.pnl_today == pytest.approx(today.of(label), rel=1e-9, abs=1e-6), label
