@@ -16,6 +16,7 @@ BINDING_IDS: tuple[str, ...] = (
     "book-switch",
     "pane",
     "expand",
+    "hedge",
     "group",
     "sort",
     "order",

@@ -7,7 +7,9 @@ from types import ModuleType
 
 import click
 
-COMMAND_MODULES = ("bench", "store_cmds", "setup_cmds", "report", "demo_cmd", "feed_cmd")
+COMMAND_MODULES = (
+    "bench", "store_cmds", "setup_cmds", "report", "demo_cmd", "feed_cmd", "hedge_cmd"
+)
 """Modules that define ``COMMANDS``: a list of click commands or groups to add to the group."""
 
 

@@ -31,6 +31,7 @@ from textual.worker import Worker, WorkerCancelled, WorkerState, get_current_wor
 
 from blotter.config import Settings
 from blotter.desk import books, limits, session
+from blotter.desk import hedge as desk_hedge
 from blotter.desk import pnl_today as pnl
 from blotter.desk.trials import Trials, TrialTrade
 from blotter.printable import printable
@@ -39,6 +40,8 @@ from blotter.ui.host import DeskHost
 from blotter.ui.keys import KEYS, app_bindings
 from blotter.ui.messages import (
     BookLoaded,
+    HedgeRefsRead,
+    HedgeStaged,
     LadderReady,
     LoadFailed,
     LoadProgress,
@@ -200,6 +203,8 @@ class BlotterApp(App[None]):
         self._compile_poll: Timer | None = None
         self._revalue_asked = -1  # book_seq of the valuation a minute's revaluation was asked for
         self.trial_trades = Trials()
+        self.hedge_refs: HedgeRefsRead | None = None  # the file's underlyings, for the hedge
+        self._hedge_staging = False  # a staged hedge not yet in a loaded book
         self.book_in_view: str | None = None  # one book's trades, or None for all books
         self.startup_notice = ""  # shown once the screen is up (e.g. why it opened read-only)
         self.ladder_breaches = limits.LadderBreaches()  # of the last ladder shown
@@ -217,6 +222,7 @@ class BlotterApp(App[None]):
             with Container(id="book-pane", classes="pane"):
                 yield BookTable()
                 yield Static("", id="fx-delta", markup=False)
+                yield Static("", id="book-hedge", markup=False)
             yield GridPane()
             yield MovePane(self.settings.alerts, self.settings.estimate_order)
             yield RevalPane()
@@ -868,6 +874,151 @@ class BlotterApp(App[None]):
             self.notify("no trial trades to clear", timeout=3)
             return
         self.clear_trials()
+
+    # -- delta hedges ----------------------------------------------------------------------------
+    @on(BookLoaded)
+    def _hedge_after_load(self, message: BookLoaded) -> None:
+        """After ``on_book_loaded`` has laid the book out: the hedge of the cursor's row, with the
+        file's underlyings read again when the book has others (not on every commit)."""
+        self._hedge_staging = False
+        symbols = message.state.valuation.book.underlyings.symbols
+        if self.hedge_refs is None or self.hedge_refs.symbols != symbols:
+            self._read_hedge_refs(symbols)  # started here, so a wait for the workers sees it
+        self.call_later(self._show_hedge)
+
+    @on(LoadFailed)
+    def _hedge_after_failed_load(self, message: LoadFailed) -> None:
+        self._hedge_staging = False
+
+    @on(DataTable.CellHighlighted, "#book-table")
+    def _hedge_follows_cursor(self, event: DataTable.CellHighlighted) -> None:
+        self._show_hedge()
+
+    @work(
+        thread=True,
+        exclusive=True,
+        group="hedge",
+        exit_on_error=False,
+        description="read the underlyings for the hedge",
+    )
+    def _read_hedge_refs(self, symbols: tuple[str, ...]) -> None:
+        """The file's underlyings (``desk.hedge.read_refs``) in this thread's store."""
+        worker = get_current_worker()
+        try:
+            if self.loader is not None:
+                raise ValueError("this book is not read from a file")
+            with self.open_store(read_only=True) as st:
+                refs = desk_hedge.read_refs(st)
+        except Exception as exc:  # noqa: BLE001 - said beside the book, never raised
+            if not worker.is_cancelled:
+                self.post_message(HedgeRefsRead(symbols, None, str(exc)))
+            return
+        if not worker.is_cancelled:
+            self.post_message(HedgeRefsRead(symbols, refs))
+
+    def on_hedge_refs_read(self, message: HedgeRefsRead) -> None:
+        self.hedge_refs = message
+        self._show_hedge()
+
+    def cursor_hedge(self) -> desk_hedge.Hedge | str:
+        """The delta hedge of the Book row under the cursor (``desk.hedge``), or why there is
+        none in words: the total row hedges the book with its reference index, any row of one
+        underlying hedges its positions with that underlying."""
+        if self.state is None:
+            return "the book is not loaded yet"
+        refs = self.hedge_refs
+        if refs is None:
+            return "reading the underlyings…"
+        if refs.refs is None:
+            return f"the underlyings could not be read: {refs.reason}"
+        key = self.query_one(BookTable).cursor_row_key()
+        v = self.state.valuation
+        try:
+            if key == "total":
+                return desk_hedge.book_hedge(v, refs.refs.underlyings)
+            if key is None or key == "total-live" or key.startswith("c|") or key.endswith("more"):
+                raise desk_hedge.HedgeRefused(
+                    "no hedge for this row: the total row (Σ) hedges the book, an "
+                    "underlying's row that underlying"
+                )
+            return desk_hedge.rows_hedge(v, self.state.tree.rows_of(key), refs.refs.underlyings)
+        except desk_hedge.HedgeRefused as exc:
+            return str(exc)
+
+    def _show_hedge(self) -> None:
+        """The cursor row's hedge on the line under the Book pane."""
+        h = self.cursor_hedge()
+        if isinstance(h, str):
+            words = f"hedge: {h}"
+        else:
+            what = " book β" if h.beta_weighted else ""
+            words = f"hedge{what}: {h.short_words()}" + (" · d stages" if h.quantity else "")
+        self.query_one("#book-hedge", Static).update(words)
+
+    def action_stage_hedge(self) -> None:
+        """Stage the cursor row's delta hedge as a trial trade (the store is untouched)."""
+        h = self.cursor_hedge()
+        if isinstance(h, str):
+            self.notify(f"no hedge: {h}", severity="warning", timeout=5, markup=False)
+            return
+        if self._hedge_staging:
+            self.notify("the last hedge is still being staged", timeout=3)
+            return
+        if h.quantity == 0:
+            self.notify(
+                f"nothing to stage: the delta is within half a lot ({h.words()})",
+                timeout=5,
+                markup=False,
+            )
+            return
+        assert self.hedge_refs is not None and self.hedge_refs.refs is not None
+        self._hedge_staging = True
+        self._stage_hedge(h, self.hedge_refs.refs, self.trial_trades.all(), self.book_in_view)
+
+    @work(
+        thread=True,
+        exclusive=True,
+        group="hedge-stage",
+        exit_on_error=False,
+        description="stage a hedge as a trial",
+    )
+    def _stage_hedge(
+        self,
+        h: desk_hedge.Hedge,
+        refs: desk_hedge.Refs,
+        trials: list[TrialTrade],
+        book_in_view: str | None,
+    ) -> None:
+        """The trial of ``h`` and the book it goes to: the book in view, else ``stage_book``'s
+        (``desk.hedge``)."""
+        from blotter import store
+
+        try:
+            book = book_in_view
+            if book is None:
+                with self.open_store(read_only=True) as st:
+                    book = desk_hedge.stage_book(st, h.instrument.symbol)
+            contract, quantity, price = desk_hedge.stage(h, refs, trials)
+        except (desk_hedge.HedgeRefused, store.StoreError, ValueError) as exc:
+            self.post_message(HedgeStaged(h.words(), reason=str(exc)))
+            return
+        self.post_message(HedgeStaged(h.words(), contract, quantity, price, book))
+
+    def on_hedge_staged(self, message: HedgeStaged) -> None:
+        if message.contract is None:
+            self._hedge_staging = False
+            self.notify(
+                f"hedge not staged: {message.reason}", severity="warning", timeout=6, markup=False
+            )
+            return
+        self.add_trial(message.contract, message.quantity, message.price, message.book)
+        self.notify(
+            f"trial in book {message.book} at {message.price:,.2f} per unit: {message.words} "
+            "(not in the store; c clears, Trades p books it)",
+            title="Hedge staged",
+            timeout=6,
+            markup=False,
+        )
 
     def action_help(self) -> None:
         if isinstance(self.screen, HelpScreen):

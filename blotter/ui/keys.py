@@ -65,6 +65,13 @@ KEYS: tuple[KeySpec, ...] = (
         where="book",
     ),
     KeySpec(
+        "hedge",
+        "app.stage_hedge",
+        "d,ctrl+d",
+        "Book: stage the delta hedge of the row under the cursor as a trial trade",
+        where="book",
+    ),
+    KeySpec(
         "group",
         "toggle_group",
         "g,f4",

@@ -18,10 +18,11 @@ from blotter.desk.limits import LadderBreaches
 if TYPE_CHECKING:
     from blotter.desk.close_review import ClosedSet, MarksView
     from blotter.desk.entry import TradeSheet
+    from blotter.desk.hedge import Refs
     from blotter.desk.limits import WeekExpiries
     from blotter.desk.scenario_sets import SetRun
     from blotter.scenario import Explain, Ladder, Move, MoveResult
-    from blotter.store import MarkSetInfo
+    from blotter.store import ContractRecord, MarkSetInfo
     from blotter.ui.data import BookState, ProfileData
 
 
@@ -109,6 +110,38 @@ class ProfileReady(WorkerResult):
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, ProfileReady)
+
+
+@dataclass(repr=False)
+class HedgeRefsRead(WorkerResult):
+    """The file's underlyings, for the Book pane's hedge (``desk.hedge.read_refs``),
+    read for a book of the underlyings ``symbols``; ``refs`` None with ``reason`` when they could
+    not be read."""
+
+    symbols: tuple[str, ...]
+    refs: Refs | None
+    reason: str = ""
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, HedgeRefsRead)
+
+    def __repr__(self) -> str:
+        return f"HedgeRefsRead(symbols={len(self.symbols)}, reason={self.reason!r})"
+
+
+@dataclass(repr=False)
+class HedgeStaged(WorkerResult):
+    """A hedge made a trial (``desk.hedge.stage``) in ``book``, or ``reason`` why not."""
+
+    words: str
+    contract: ContractRecord | None = None
+    quantity: int = 0
+    price: float = 0.0
+    book: str = ""
+    reason: str = ""
+
+    def __repr__(self) -> str:
+        return f"HedgeStaged(words={self.words!r}, reason={self.reason!r})"
 
 
 @dataclass
