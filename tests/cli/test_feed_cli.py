@@ -145,6 +145,10 @@ def test_a_writer_killed_mid_feed_leaves_whole_batches(demo_db: Path) -> None:
     proc.wait(timeout=30)
     stop.set()
     writer.join(timeout=10)
+    try:
+        proc.stdin.close()  # its reader is gone: closing flushes into a broken pipe
+    except BrokenPipeError:
+        pass
     sets = _feed_sets(demo_db)
     assert len(sets) >= 20
     conn = sqlite3.connect(demo_db)
