@@ -13,13 +13,21 @@ from typing import TextIO
 
 import click
 
-from blotter.commands.common import FINITE, db_option, desk_zone, open_for_reading, print_json
+from blotter.commands.common import (
+    FINITE,
+    FiniteRange,
+    db_option,
+    open_for_reading,
+    print_json,
+)
 from blotter.commands.store_cmds import _store
+from blotter.config import MAX_WATCH_INTERVAL_S
 from blotter.printable import printable
 
 
 def _settings_throttle() -> float:
-    """``feed_throttle_s`` from the settings; ClickException for a bad setting."""
+    """``feed_throttle_s`` from the settings, which are read (and a bad one refused, as a
+    ClickException, before anything is read from the feed) whether or not --throttle is given."""
     from blotter.config import ConfigError, load_settings
 
     try:
@@ -43,7 +51,7 @@ def _open_source(source: str) -> TextIO:
 @click.argument("source", default="-", metavar="[SOURCE]")
 @click.option(
     "--throttle",
-    type=FINITE,
+    type=FiniteRange(min=0, max=MAX_WATCH_INTERVAL_S),
     default=None,
     metavar="SECONDS",
     help="Write each underlying at most this often (default: feed_throttle_s, 1 s).",
@@ -62,10 +70,8 @@ def feed(source: str, throttle: float | None, as_json: bool, db_path: str | None
     """
     from blotter.desk.feed import Feed, FeedLineError, FeedReport, run_feed
 
-    throttle_s = _settings_throttle() if throttle is None else throttle
-    if throttle_s < 0:
-        raise click.BadParameter("must be 0 or more seconds", param_hint="--throttle")
-    desk_zone()  # a bad settings file is refused before anything is read
+    configured = _settings_throttle()
+    throttle_s = configured if throttle is None else throttle
     on_tty = sys.stderr.isatty()
 
     def said_bad(number: int, reason: str) -> None:
