@@ -243,6 +243,7 @@ class Feed:
         self.source = feed_source(name)
         self.report = FeedReport()
         self._known = set(store.load_underlyings().symbols)
+        self._known_version = store.data_version()
         self._pending: dict[_Key, tuple[int, MarkPoint]] = {}
         self._last_write = -math.inf
 
@@ -262,8 +263,12 @@ class Feed:
             self.bad_line(number, str(item))
             return
         if item.symbol not in self._known:
-            # an underlying added since the feed started
-            self._known = set(self.store.load_underlyings().symbols)
+            # an underlying added since the feed started; read again only after a commit, so a
+            # stream of an unknown symbol costs no read per line
+            version = self.store.data_version()
+            if version != self._known_version:
+                self._known = set(self.store.load_underlyings().symbols)
+                self._known_version = version
             if item.symbol not in self._known:
                 self.bad_line(number, f"unknown underlying {item.symbol}")
                 return
