@@ -460,6 +460,15 @@ def put_form(w: np.ndarray, s: np.ndarray, k: np.ndarray, r: np.ndarray,
     return lnx, r_p, q_p, scale
 
 
+def _writable(a: np.ndarray) -> np.ndarray:
+    """``a`` as a contiguous, writable float64 array (a copy only when it is not one already).
+    numba compiles one specialisation per argument type, and a read-only array is another type:
+    a book's read-only arrays would compile a second set of kernels in the caller's thread
+    after the warm-up's (tens of seconds on a first start, seen to stall the app's grid)."""
+    a = np.ascontiguousarray(a, dtype=np.float64)
+    return a if a.flags.writeable else a.copy()
+
+
 def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.ndarray,
              b: np.ndarray, v: np.ndarray, greeks: bool, cache: BoundaryCache | None = None,
              scheme: Scheme = DEFAULT, kernels: ModuleType | None = None
@@ -469,8 +478,7 @@ def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.n
     row's status code (``AMERICAN_STATUS``). ``kernels``: ``_alo`` or ``_alo_np`` (default:
     ``_implementation``)."""
     kernels = _implementation(kernels)
-    w, s, k, t, r, b, v = (np.ascontiguousarray(a, dtype=np.float64) for a in
-                           (w, s, k, t, r, b, v))
+    w, s, k, t, r, b, v = (_writable(a) for a in (w, s, k, t, r, b, v))
     m = s.size
     n_out = 10 if greeks else 1
     block = np.empty((n_out, m))

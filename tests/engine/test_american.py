@@ -199,6 +199,26 @@ def test_kernels_ready_after_warm_up() -> None:
     assert kernels_ready()
 
 
+def test_read_only_inputs_compile_nothing_after_the_warm_up() -> None:
+    """A book's arrays are read-only, which numba types apart from writable ones: valuing them
+    after the warm-up must use the warm-up's kernels, not compile another set in the caller's
+    thread (on a first start that took tens of seconds and stalled the app's grid)."""
+    from blotter.engine import _alo, _kernels
+
+    warm_up(background=False)
+    before = {k.__name__: len(k.signatures) for k in _kernels._ENTRY_POINTS}
+    arrays = [np.array(x, dtype=float) for x in
+              ([-1.0, 1.0], [95.0, 105.0], [100.0, 100.0], [0.4, 0.7], [0.03, 0.03],
+               [0.01, 0.0], [0.22, 0.31])]
+    for a in arrays:
+        a.flags.writeable = False
+    got, _ = am.evaluate(*arrays, greeks=True, kernels=_alo)
+    after = {k.__name__: len(k.signatures) for k in _kernels._ENTRY_POINTS}
+    assert after == before
+    want, _ = am.evaluate(*(a.copy() for a in arrays), greeks=True, kernels=_alo)
+    assert all(np.array_equal(g, w) for g, w in zip(got, want, strict=True))
+
+
 @pytest.mark.skipif(sys.platform == "win32", reason="fork")
 def test_american_pricing_works_in_a_forked_child() -> None:
     """A child forked after the engine ran (thread pool and compiled kernels live) prices
