@@ -929,11 +929,17 @@ def whatif(
         ) from exc
     except MoveError as exc:
         raise click.ClickException(str(exc)) from exc
+    from blotter.desk import session
+
     und = v.book.underlyings
     ccy_of = dict(zip(und.symbols, und.currencies, strict=True))
     several = len(res.by_currency) > 1
+    said = session.move_words(v, mv)
+    if said.warning:
+        click.echo(f"blotter: warning: {said.warning}", err=True)
     if as_json:
-        print_json(_header(v) | _move_json(res, ccy_of) | _unvalued_json(v.unvalued))
+        words = {"move_words": said.words, "warning": said.warning or None}
+        print_json(_header(v) | _move_json(res, ccy_of) | words | _unvalued_json(v.unvalued))
         return
     if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
@@ -942,7 +948,7 @@ def whatif(
     shown = _labelled(res.by_underlying, res.by_currency, res.total, _total_label(v.unvalued))
     ccy_head = ["ccy"] if several else []
     rows = [[label, *_ccy_cell(r, several), *_move_row_cells(r)] for label, r in shown]
-    click.echo(f"what-if: {mv.describe()} · {_money_note(v.currencies)} · vols {mv.vol_rule}")
+    click.echo(f"what-if: {said.words} · {_money_note(v.currencies)} · vols {mv.vol_rule}")
     click.echo("")
     print_table(
         ["underlying", *ccy_head, "full", "est 1", "err 1", "err 1 %", "est 2", "err 2", "err 2 %"],

@@ -205,6 +205,22 @@ def test_whatif_unquoted_words_table_and_csv(demo_db: Path) -> None:
     assert rows[-1]["underlying"] == "total" and TERMS <= set(rows[0])
 
 
+def test_whatif_says_the_move_in_units_and_warns_of_a_large_absolute_spot_move(
+    demo_db: Path,
+) -> None:
+    """An absolute spot move in money is said in the book's currency, and one larger than 10% of
+    a spot it moves is warned of on stderr and in the JSON, as the app's what-if bar does."""
+    spot = _valuation(demo_db).market.spot("DEMOC")
+    result = _run(["whatif", "--db", str(demo_db), "--at", AT, "spot -3 vol +2"])
+    assert "what-if: every spot -3.00 USD, vol +2.00 pts" in result.stdout
+    pct = -3.0 / spot * 100
+    assert f"warning: -3.00 USD is {pct:+.1f}% of DEMOC" in result.stderr
+    out = _json(["whatif", "--db", str(demo_db), "--at", AT, "spot -3"])
+    assert out["warning"].startswith(f"-3.00 USD is {pct:+.1f}% of DEMOC")
+    calm = _json(["whatif", "--db", str(demo_db), "--at", AT, "DEMOA spot +2.5%"])
+    assert calm["warning"] is None and calm["move_words"] == "DEMOA spot +2.50%"
+
+
 def test_whatif_lists_expiring_positions(demo_db: Path) -> None:
     out = _json(["whatif", "--db", str(demo_db), "--at", AT, "days 30"])
     assert out["expiring"], "the demo book has options expiring within 30 days"
