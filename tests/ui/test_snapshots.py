@@ -51,6 +51,11 @@ def _steps(*keys: str, move: str | None = None) -> Any:
         for key in keys:
             await pilot.press(key)
             await settle(app, pilot)
+        # The Book pane fits its label column after a refresh (``BookTable._refit``); the
+        # picture is taken once that has run, not before it on a busy machine.
+        await pilot.wait_for_scheduled_animations()
+        for _ in range(3):
+            await pilot.pause(0.05)
 
     return run_before
 
