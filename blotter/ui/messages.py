@@ -21,7 +21,7 @@ if TYPE_CHECKING:
     from blotter.desk.hedge import Refs
     from blotter.desk.limits import WeekExpiries
     from blotter.desk.scenario_sets import SetRun
-    from blotter.scenario import Explain, Ladder, Move, MoveResult
+    from blotter.scenario import Explain, ExplainInBase, Ladder, Move, MoveResult
     from blotter.store import ContractRecord, MarkSetInfo
     from blotter.ui.data import BookState, ProfileData
 
@@ -219,10 +219,12 @@ class TradeWritten(ScreenResult):
 
 @dataclass(repr=False)
 class ExplainReady(ScreenResult):
-    """P&L explained between two closes (or a close and now); ``closes`` in force, oldest first."""
+    """P&L explained between two closes (or a close and now); ``closes`` in force, oldest first;
+    ``in_base`` the same in the file's base currency with its FX translation."""
 
     closes: list[MarkSetInfo]
     result: Explain
+    in_base: ExplainInBase | None = None
 
     def __repr__(self) -> str:
         return f"ExplainReady(closes={len(self.closes)})"

@@ -126,13 +126,57 @@ async def test_explain_screen_totals_each_currency(two_currencies: Path) -> None
         assert isinstance(screen, ExplainScreen) and screen.result is not None
         table = screen.query_one("#explain-table")
         heads = [str(c.label) for c in table.columns.values()]  # type: ignore[attr-defined]
-        assert heads[1:4] == ["total", "Σ USD", "Σ EUR"]
+        assert heads[1:5] == ["total", "Σ in USD", "Σ USD", "Σ EUR"]
         assert {str(c).strip() for c in table.get_row_at(0)[1:2]} == {NOT_ADDITIVE}  # type: ignore[attr-defined]
         totals = {r.currency: r for r in screen.result.by_currency}
         labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
         row = table.get_row_at(labels.index("= held P&L"))  # type: ignore[attr-defined]
-        assert shown(row[2]) == pytest.approx(totals["USD"].actual, abs=0.5)
-        assert shown(row[3]) == pytest.approx(totals["EUR"].actual, abs=0.5)
+        assert shown(row[3]) == pytest.approx(totals["USD"].actual, abs=0.5)
+        assert shown(row[4]) == pytest.approx(totals["EUR"].actual, abs=0.5)
+        # No EURUSD spot: the book in USD is "—", and the message names the missing mark.
+        assert str(table.get_row_at(labels.index("FX translation"))[2]).strip() == NOT_ADDITIVE  # type: ignore[attr-defined]
+        assert "EURUSD" in str(screen.query_one(".desk-message").render())
+
+
+async def test_explain_screen_splits_out_the_fx_translation(two_currencies: Path) -> None:
+    """With EURUSD marked after the close and moved since, the Explain screen's "Σ in USD"
+    column is ``scenario.explain_in_base``: each currency at the start's FX spot, the FX
+    translation, and their sum."""
+    st = store.open_store(two_currencies, clock=lambda: datetime(2026, 11, 30, 22, 0, tzinfo=UTC))
+    try:
+        st.add_underlying("EURUSD", "fx", "USD", 100_000.0)
+        st.log_spot("EURUSD", 1.2)
+        closes = [m for m in st.mark_sets() if m.kind == "close"]
+        st.commit_close(corrects=closes[-1].id)  # the day's close, corrected to hold the FX spot
+    finally:
+        st.close()
+    st = store.open_store(two_currencies, clock=lambda: datetime(2026, 11, 30, 23, 0, tzinfo=UTC))
+    try:
+        st.log_spot("EURUSD", 1.25)
+        st.log_spot("BBB", 52.0)
+        at = np.datetime64(FROZEN_NOW.astimezone(UTC).replace(tzinfo=None), "s")
+        want = scenario.explain_in_base(scenario.explain(st, None, "now", at=at), "USD")
+    finally:
+        st.close()
+    assert want.translation != 0.0 and not want.missing
+    app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(160, 40)) as pilot:
+        await settle(app, pilot)
+        await pilot.press("l")
+        await settle(app, pilot)
+        screen = app.screen
+        assert isinstance(screen, ExplainScreen) and screen.in_base is not None
+        table = screen.query_one("#explain-table")
+        heads = [str(c.label) for c in table.columns.values()]  # type: ignore[attr-defined]
+        assert heads[2] == "Σ in USD"
+        labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
+
+        def cell(label: str) -> float:
+            return shown(table.get_row_at(labels.index(label))[2])  # type: ignore[attr-defined]
+
+        assert cell("FX translation") == pytest.approx(want.translation, abs=0.5)
+        assert cell("= P&L in USD") == pytest.approx(want.pnl, abs=0.5)
+        assert cell("= held P&L") == pytest.approx(want.at_start_rates.actual, abs=0.5)
 
 
 async def test_the_book_pane_shows_the_base_total_and_fx_delta(two_currencies: Path) -> None:

@@ -45,6 +45,7 @@ class ExplainScreen(DeskScreen):
         self.start_back = 0  # 0 = the last close before the end, 1 = the one before, ...
         self.end: int | str = "now"  # "now" or a close set id
         self.result: Any = None
+        self.in_base: Any = None
 
     def compose(self) -> ComposeResult:
         yield self.title_line("Explain")
@@ -63,6 +64,7 @@ class ExplainScreen(DeskScreen):
     @work(thread=True, exclusive=True, group="explain", exit_on_error=False)
     def compute(self, start_back: int, end: int | str) -> None:
         """``scenario.explain`` from the chosen close to ``end`` in this thread's own store."""
+        from blotter import calendar as cal
         from blotter import scenario
 
         worker = get_current_worker()
@@ -76,16 +78,29 @@ class ExplainScreen(DeskScreen):
                 start = before[max(0, len(before) - 1 - start_back)]
                 name = self.host.book_in_view
                 source = st if name is None else books.OneBook(st, name)
-                result = scenario.explain(source, start.id, "now" if end == "now" else end_id)
+                # "now" is the app's valuation time, as the Book pane's P&L today
+                state = self.host.state
+                at = None
+                if end == "now":
+                    at = (
+                        state.valuation.valuation_time
+                        if state is not None
+                        else cal.valuation_time(self.host.clock())
+                    )
+                result = scenario.explain(
+                    source, start.id, "now" if end == "now" else end_id, at=at
+                )
+                in_base = scenario.explain_in_base(result, st.base_currency())
         except Exception as exc:  # noqa: BLE001 - shown to the user
             if not worker.is_cancelled:
                 self.post_message(ScreenFailed(f"✗ cannot explain: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(ExplainReady(closes, result))
+            self.post_message(ExplainReady(closes, result, in_base))
 
     def on_explain_ready(self, message: ExplainReady) -> None:
         self.closes, self.result = message.closes, message.result
+        self.in_base = message.in_base
         self.show(self.result)
 
     def on_screen_failed(self, message: ScreenFailed) -> None:
@@ -103,6 +118,11 @@ class ExplainScreen(DeskScreen):
             if several and row is not result.total:
                 head = f"{row.label} {row.currency}" if row.underlying else f"Σ {row.currency}"
             heads.append(head)
+        base = self.in_base
+        foreign = base is not None and bool({str(r.currency) for r in per_ccy} - {base.base})
+        if foreign:  # the book in the base currency: each currency at the start's FX spots
+            cols.insert(1, base.at_start_rates)
+            heads.insert(1, f"Σ in {base.base}")
 
         from blotter import scenario
 
@@ -117,13 +137,22 @@ class ExplainScreen(DeskScreen):
             ("new trades", [r.new_trades for r in cols]),
             ("= total P&L", [r.total for r in cols]),
         ]
-        texts = [
-            [
-                fmt.NOT_ADDITIVE if several and r.currency is None else fmt.whole(v)
-                for r, v in zip(cols, values, strict=True)
-            ]
-            for _, values in lines
-        ]
+
+        def cell(r: Any, v: float) -> str:
+            # "—": money of several currencies, or in the base without an FX spot to convert at
+            if (several and r.currency is None) or (foreign and r is cols[1] and v != v):
+                return fmt.NOT_ADDITIVE
+            return fmt.whole(v)
+
+        texts = [[cell(r, v) for r, v in zip(cols, values, strict=True)] for _, values in lines]
+        if foreign:  # what the FX spots' move adds, in the base column only
+            blank = [""] * (len(cols) - 2)
+            for label, value in (
+                ("FX translation", base.translation),
+                (f"= P&L in {base.base}", base.pnl),
+            ):
+                lines.append((label, []))
+                texts.append(["", cell(cols[1], value), *blank])
         table.add_column("currency", key="label", width=13)
         for i, head in enumerate(heads):
             width = fmt.column_width(head, [row[i] for row in texts], 10)
@@ -144,7 +173,10 @@ class ExplainScreen(DeskScreen):
             Text(f"Explain P&L ({books.book_words(book)}): {start} → {end}", style="bold")
         )
         left_out = session.unvalued_words(getattr(result, "unvalued", ()))
-        notes = "; ".join([*result.notes, *([f"{left_out}: left out"] if left_out else [])])
+        fx_missing = [f"{m.words()} at the {where}" for where, m in base.missing] if foreign else []
+        notes = "; ".join(
+            [*result.notes, *([f"{left_out}: left out"] if left_out else []), *fx_missing]
+        )
         self.say(
             "Start greeks on the positions held at the start; new trades: end value − trade "
             "price. f: start earlier, o: end now / at a close." + (f" {notes}" if notes else "")
