@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 import pytest
+from textual.widgets import DataTable
 
 from blotter import risk, scenario, store
 from blotter.ui.app import make_app
@@ -116,25 +117,31 @@ async def test_book_move_ladder_and_profile_total_each_currency(two_currencies: 
         )
 
 
+async def _explain(app: Any, pilot: Any) -> tuple[ExplainScreen, Any, list[str], list[str]]:
+    """The Explain screen opened with its result in: the screen, its table, headers, row labels."""
+    await settle(app, pilot)
+    await pilot.press("l")
+    await settle(app, pilot)
+    screen = app.screen
+    assert isinstance(screen, ExplainScreen) and screen.result is not None
+    table = screen.query_one("#explain-table", DataTable)
+    heads = [str(c.label) for c in table.columns.values()]
+    labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]
+    return screen, table, heads, labels
+
+
 async def test_explain_screen_totals_each_currency(two_currencies: Path) -> None:
     app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(120, 30)) as pilot:
-        await settle(app, pilot)
-        await pilot.press("l")
-        await settle(app, pilot)
-        screen = app.screen
-        assert isinstance(screen, ExplainScreen) and screen.result is not None
-        table = screen.query_one("#explain-table")
-        heads = [str(c.label) for c in table.columns.values()]  # type: ignore[attr-defined]
+        screen, table, heads, labels = await _explain(app, pilot)
         assert heads[1:5] == ["total", "Σ in USD", "Σ USD", "Σ EUR"]
-        assert {str(c).strip() for c in table.get_row_at(0)[1:2]} == {NOT_ADDITIVE}  # type: ignore[attr-defined]
+        assert {str(c).strip() for c in table.get_row_at(0)[1:2]} == {NOT_ADDITIVE}
         totals = {r.currency: r for r in screen.result.by_currency}
-        labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
-        row = table.get_row_at(labels.index("= held P&L"))  # type: ignore[attr-defined]
+        row = table.get_row_at(labels.index("= held P&L"))
         assert shown(row[3]) == pytest.approx(totals["USD"].actual, abs=0.5)
         assert shown(row[4]) == pytest.approx(totals["EUR"].actual, abs=0.5)
         # No EURUSD spot: the book in USD is "—", and the message names the missing mark.
-        assert str(table.get_row_at(labels.index("FX translation"))[2]).strip() == NOT_ADDITIVE  # type: ignore[attr-defined]
+        assert str(table.get_row_at(labels.index("FX translation"))[2]).strip() == NOT_ADDITIVE
         assert "EURUSD" in str(screen.query_one(".desk-message").render())
 
 
@@ -161,18 +168,11 @@ async def test_explain_screen_splits_out_the_fx_translation(two_currencies: Path
     assert want.translation != 0.0 and not want.missing
     app = make_app(two_currencies, TEST_SETTINGS, clock=frozen_clock)
     async with app.run_test(size=(160, 40)) as pilot:
-        await settle(app, pilot)
-        await pilot.press("l")
-        await settle(app, pilot)
-        screen = app.screen
-        assert isinstance(screen, ExplainScreen) and screen.in_base is not None
-        table = screen.query_one("#explain-table")
-        heads = [str(c.label) for c in table.columns.values()]  # type: ignore[attr-defined]
-        assert heads[2] == "Σ in USD"
-        labels = [str(table.get_row_at(i)[0]) for i in range(table.row_count)]  # type: ignore[attr-defined]
+        screen, table, heads, labels = await _explain(app, pilot)
+        assert screen.in_base is not None and heads[2] == "Σ in USD"
 
         def cell(label: str) -> float:
-            return shown(table.get_row_at(labels.index(label))[2])  # type: ignore[attr-defined]
+            return shown(table.get_row_at(labels.index(label))[2])
 
         assert cell("FX translation") == pytest.approx(want.translation, abs=0.5)
         assert cell("= P&L in USD") == pytest.approx(want.pnl, abs=0.5)
