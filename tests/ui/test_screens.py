@@ -447,6 +447,28 @@ async def test_a_trade_price_far_from_the_model_value_asks_before_booking(demo_d
         assert counts(demo_db)[0] == before[0] + 1
 
 
+async def test_a_trial_at_a_price_far_from_the_model_value_asks_before_staging(
+    demo_db: Path,
+) -> None:
+    """A trial is promoted to a trade at the price it was staged at, so the trial form asks as
+    the trade form does: a DEMOFU trial at 1.23 asks and stages nothing; F5 again stages it."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("i")
+        await pilot.pause()
+        await fill(pilot, "DEMOFU", "", "", "", "1", "1.23")
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradeForm) and app.trials == []
+        said = str(app.screen.query_one("#form-message").render())
+        assert "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96" in said
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen)
+        assert [t.price for t in app.trials] == [1.23]
+
+
 async def test_a_bad_field_is_refused_in_the_form(demo_db: Path) -> None:
     app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
     before = counts(demo_db)

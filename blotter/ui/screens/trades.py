@@ -475,6 +475,9 @@ class TradeForm(ModalScreen[FormResult | None]):
                 except (ValueError, KeyError) as exc:
                     self.say(f"✗ {exc}")
                     return
+            # a trial is promoted to a trade as staged: its price is asked about here
+            if self._price_asked(terms, ticket.price, contract):
+                return
             self.dismiss(NewTrial(contract, ticket.quantity, ticket.price, ticket.book, new))
             return
         if contract is None and self.confirm_new != terms:
