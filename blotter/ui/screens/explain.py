@@ -153,7 +153,9 @@ class ExplainScreen(DeskScreen):
             ):
                 lines.append((label, []))
                 texts.append(["", cell(cols[1], value), *blank])
-        table.add_column("currency", key="label", width=13)
+        # every cell is money: in the book's one currency, or in the column's when several
+        money = "P&L" if several or not result.total.currency else f"P&L {result.total.currency}"
+        table.add_column(money, key="label", width=13)
         for i, head in enumerate(heads):
             width = fmt.column_width(head, [row[i] for row in texts], 10)
             table.add_column(Text(head, justify="right"), key=f"c{i}", width=width)
