@@ -440,6 +440,27 @@ def _exercise() -> None:
                  0.01 * one, np.array([0.25, 0.3]), greeks=greeks, kernels=_alo)
     key = np.empty(2, dtype=np.uint64)
     _alo.group_keys(0.5 * one, 0.05 * one, 0.04 * one, key)
+    _exercise_grid(one)
+
+
+def _exercise_grid(one: np.ndarray) -> None:
+    """Call the kernels of ``american_grid`` once each on a solved boundary, with the argument
+    types that module passes, which compiles (or loads) them."""
+    t, r, q = 0.5 * one[:1], 0.05 * one[:1], 0.01 * one[:1]
+    lnv = np.log(np.array([0.2, 0.3]))
+    grp = _boundaries(np.arange(2), np.array([0, 2]), np.tile(t, 2), np.tile(r, 2),
+                      np.tile(q, 2), lnv, True, None, _alo)
+    edge = np.zeros((1, 2))
+    _alo.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
+                     DEFAULT.power, DEFAULT.squares, lnv[None, :].copy(),
+                     np.array([2], dtype=np.int64), edge)
+    coef = np.zeros((1, 2, 1, 3))
+    for n_out in (1, 5):
+        out = np.empty((1, n_out, 1, 1))
+        _alo.grid_cells(grp.rate, grp.div, grp.tau, np.array([-16], dtype=np.int64),
+                        np.array([2], dtype=np.int64), edge, coef, 0.1, 2, 4.0,
+                        np.zeros(1, dtype=np.int64), np.zeros(1), -one[:1], one[:1], one[:1],
+                        np.zeros(1), one[:1], np.full((1, 1, 1), 0.25), n_out, out)
 
 
 def warm_up(background: bool = True) -> threading.Thread | None:
