@@ -1351,7 +1351,6 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
     n_t = g_coef.shape[2]
     lag = np.empty(points)
     coef = np.empty((n_t, n_c))
-    eu = np.empty(9)
     res = np.empty(5)
     for m in range(row_lnx.size):
         g = row_group[m]
@@ -1359,6 +1358,8 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
         q = g_q[g]
         tau = g_tau[g]
         st = math.sqrt(tau)
+        dq = math.exp(-q * tau)
+        dr = math.exp(-r * tau)
         call = row_w[m] > 0.0
         last = -1.0
         lnb = 0.0
@@ -1383,7 +1384,7 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                 lnx = row_lnx[m] - ln_shock[i] if call else row_lnx[m] + ln_shock[i]
                 s1 = row_s[m] * shock[i]
                 sc = s1 if call else row_k[m]
-                xs = math.exp(lnx)
+                xs = fexp(lnx)
                 if lnx <= lnb:
                     res[0] = 1.0 - xs
                     res[1] = -1.0
@@ -1391,9 +1392,9 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                     res[3] = 0.0
                     res[4] = 0.0
                 else:
-                    z = (lnx - lnb) / (v * st)
+                    vst = v * st
+                    z = (lnx - lnb) / vst
                     zeta = (z - scale) / (z + scale)
-                    european_put(xs, tau, r, q, v, eu)
                     for t in range(n_t):
                         # Clenshaw's recurrence for Σ c_k T_k(ζ)
                         b1 = 0.0
@@ -1403,11 +1404,15 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                             b2 = b1
                             b1 = b0
                         res[t] = zeta * b1 - b2 + coef[t, 0]
-                    res[0] = eu[0] + max(res[0], 0.0)
+                    # the European put (strike 1, spot xs), as ``european_put``
+                    d1 = (lnx + (r - q + 0.5 * v * v) * tau) / vst
+                    nd1, pd1 = ncdf_and_pdf(-d1)
+                    eu0 = dr * ncdf(vst - d1) - xs * dq * nd1
+                    res[0] = eu0 + max(res[0], 0.0)
                     if n_out > 1:
-                        res[1] += eu[1]
-                        res[2] += eu[2]
-                        res[3] += eu[4]
+                        res[1] += -dq * nd1
+                        res[2] += dq * pd1 / (xs * vst)
+                        res[3] += xs * dq * pd1 * st
                         res[4] = -(0.5 * v * v * xs * xs * res[2] + (r - q) * xs * res[1]
                                    - r * res[0])
                 value = sc * res[0]

@@ -168,6 +168,8 @@ class BoundaryCache:
         self._items: OrderedDict[tuple[float, float, float], Boundary] = OrderedDict()
         self._by_rates: dict[tuple[float, float], dict[float, Boundary]] = {}
         self._bytes = 0
+        self._tables: OrderedDict[tuple[float, ...], tuple[float, np.ndarray]] = OrderedDict()
+        self._table_bytes = 0
         self.hits = 0
         self.misses = 0
 
@@ -183,6 +185,8 @@ class BoundaryCache:
             out._items = OrderedDict(self._items)
             out._by_rates = {k: dict(v) for k, v in self._by_rates.items()}
             out._bytes = self._bytes
+            out._tables = OrderedDict(self._tables)
+            out._table_bytes = self._table_bytes
         return out
 
     def __getstate__(self) -> dict[str, object]:
@@ -191,11 +195,14 @@ class BoundaryCache:
         with self._lock:
             state = dict(self.__dict__)
             state["_items"] = OrderedDict(self._items)
+            state["_tables"] = OrderedDict(self._tables)
         del state["_lock"]
         return state
 
     def __setstate__(self, state: dict[str, object]) -> None:
         self.__dict__.update(state)
+        self.__dict__.setdefault("_tables", OrderedDict())
+        self.__dict__.setdefault("_table_bytes", 0)
         self._lock = threading.Lock()
 
     def find(self, rate: float, div: float, tau: float, lo: float, hi: float,
@@ -232,6 +239,30 @@ class BoundaryCache:
                 if not same:
                     del self._by_rates[(r, q)]
                 self._bytes -= dropped.nbytes
+
+    def tables(self, keys: Sequence[tuple[float, ...]]
+               ) -> list[tuple[float, np.ndarray] | None]:
+        """Premium tables kept for ``keys`` (``american_grid``), None where none is kept."""
+        with self._lock:
+            out = [self._tables.get(k) for k in keys]
+            for k, item in zip(keys, out, strict=True):
+                if item is not None:
+                    self._tables.move_to_end(k)
+            return out
+
+    def keep_tables(self, items: dict[tuple[float, ...], tuple[float, np.ndarray]]) -> None:
+        """Keep premium tables by key, dropping the oldest beyond ``max_bytes`` of tables (a
+        budget of their own beside the boundaries')."""
+        with self._lock:
+            for k, item in items.items():
+                old = self._tables.pop(k, None)
+                if old is not None:
+                    self._table_bytes -= old[1].nbytes + 100
+                self._tables[k] = item
+                self._table_bytes += item[1].nbytes + 100
+            while self._table_bytes > self.max_bytes and self._tables:
+                _, dropped = self._tables.popitem(last=False)
+                self._table_bytes -= dropped[1].nbytes + 100
 
     def prepare(self, is_call: object, years: object, rate: object, carry: object,
                 vol_lo: object, vol_hi: object) -> None:

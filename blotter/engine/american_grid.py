@@ -19,7 +19,8 @@ A table node depends only on its group's boundary and its lattice position, neve
 rows or cells asked for it, so a cell's value does not depend on the other rows (a grid summed
 over shards equals the serial grid). The tables cost a few hundred exact values per group;
 rows the tables do not serve (other statuses, vols below ``VOL_TABLE_MIN``, a failed
-boundary) are valued cell by cell by ``american.evaluate``.
+boundary, and every row while the compiled kernels are not ready: the tables have no NumPy
+mirror) are valued cell by cell by ``american.evaluate``.
 """
 
 from __future__ import annotations
@@ -30,7 +31,7 @@ from types import ModuleType
 
 import numpy as np
 
-from blotter.engine import american, black
+from blotter.engine import _alo, american, black
 from blotter.engine._chunks import run_chunked
 
 LATTICE_STEP = 0.1
@@ -114,7 +115,10 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     key = np.empty(m, dtype=np.uint64)
     kern.prepare_rows(w, s, k, t, r, b, american._writable(np.maximum(lo_v, 1e-8)),
                       american.YEARS_MIN, american.VOL_MIN, status, lnx, r_p, q_p, lnv, key)
-    table = (status == american.EXERCISE_BOUNDARY) & (lo_v >= VOL_TABLE_MIN) & np.isfinite(hi_v)
+    # the tables' kernels are compiled only: while they compile (the NumPy mirror in use),
+    # every cell is valued by the mirror's quadrature
+    table = ((status == american.EXERCISE_BOUNDARY) & (lo_v >= VOL_TABLE_MIN)
+             & np.isfinite(hi_v) & (kern is _alo))
     rows = np.flatnonzero(table)
     if rows.size:
         done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
@@ -159,7 +163,8 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     scheme = american.DEFAULT
     kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
                      scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
-    coef = _tables(grp, ok, lat, n_lat, edge, greeks, scheme, kern)
+    use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
+    coef = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern, cache)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
@@ -196,11 +201,42 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     return served_rows
 
 
-def _tables(grp: american._Groups, ok: np.ndarray, lat: np.ndarray, n_lat: np.ndarray,
-            edge: np.ndarray, greeks: bool, scheme: american.Scheme, kern: ModuleType
-            ) -> np.ndarray:
-    """Chebyshev coefficients (G, L, n_t, N + 1) of each group's premium tables at its lattice
-    vols, from exact values of synthetic puts (strike 1) at the table's points."""
+def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
+                   lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
+                   kern: ModuleType, cache: american.BoundaryCache | None) -> np.ndarray:
+    """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
+    from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
+    another grid of the same valuation reuses it) and the others computed and kept."""
+    if cache is None:
+        return _tables(grp, use, lat, edge, greeks, scheme, kern)
+    gi, ai = np.nonzero(use)
+    last = grp.ns[gi] - 1
+    cols = (grp.rate[gi], grp.div[gi], grp.tau[gi], grp.tmax[gi], grp.lnsig[gi, 0],
+            grp.lnsig[gi, last], last.astype(np.float64), (lat_first[gi] + ai).astype(np.float64))
+    keys = [(*k, float(greeks)) for k in zip(*(c.tolist() for c in cols), strict=True)]
+    kept = cache.tables(keys)
+    todo = use.copy()
+    n_t = TABLE_OUTPUTS if greeks else 1
+    coef = np.zeros((*use.shape, n_t, CHEB_DEGREE + 1))
+    for g, a, item in zip(gi.tolist(), ai.tolist(), kept, strict=True):
+        if item is not None and item[0] == edge[g, a]:
+            coef[g, a] = item[1]
+            todo[g, a] = False
+    if todo.any():
+        new = _tables(grp, todo, lat, edge, greeks, scheme, kern)
+        coef[todo] = new[todo]
+        at = {(g, a): i for i, (g, a) in enumerate(zip(gi.tolist(), ai.tolist(), strict=True))}
+        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), new[g, a].copy())
+                           for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
+                                           strict=True)})
+    return coef
+
+
+def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,
+            greeks: bool, scheme: american.Scheme, kern: ModuleType) -> np.ndarray:
+    """Chebyshev coefficients (G, L, n_t, N + 1) of the groups' premium tables at their
+    lattice vols where ``use`` (G, L), from exact values of synthetic puts (strike 1) at the
+    table's points (0 elsewhere)."""
     n_g, nl_max = lat.shape
     n_t = TABLE_OUTPUTS if greeks else 1
     # the point on the boundary (z = 0) takes the continuation's limits there, exactly:
@@ -208,7 +244,6 @@ def _tables(grp: american._Groups, ok: np.ndarray, lat: np.ndarray, n_lat: np.nd
     pts = np.flatnonzero((_Z <= Z_CAP) & (_Z > 0.0))  # beyond Z_CAP (z = ∞ among them): 0
     n_pts = pts.size
     vals = np.zeros((n_g, nl_max, n_t, CHEB_DEGREE + 1))
-    use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
     gi, ai = np.nonzero(use)
     if gi.size:
         sig = np.exp(lat[gi, ai])

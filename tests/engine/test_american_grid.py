@@ -135,3 +135,39 @@ def test_bad_shapes_are_refused() -> None:
         engine.american_cells(*cols, book["vol"], np.array([1.0]))
     with pytest.raises(ValueError, match="shocks"):
         engine.american_cells(*cols, book["vol"][None, None, :], np.array([-1.0]))
+
+
+def test_the_numpy_mirror_values_every_cell_by_quadrature() -> None:
+    """While the compiled kernels are not ready (``_alo_np`` in use) no table kernel is
+    called; the cells are the mirror's per-cell values."""
+    from blotter.engine import _alo_np
+
+    book = _book(6)
+    cols = [book[c][:40] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    vols = book["vol"][None, None, :40] + VOL_PTS[None, :, None] / 100.0
+    shocks = 1.0 + SPOT_PCTS / 100.0
+    got, _ = engine.american_grid.american_cells(
+        np.asarray(cols[0]), *cols[1:], vols, shocks, kernels=_alo_np)
+    exact = engine.price(cols[0], cols[1] * shocks[:, None, None], *cols[2:], vols,
+                         american=True)
+    assert np.max(np.abs(got[0] - exact) / cols[2]) <= 1e-6
+
+
+def test_kept_tables_give_the_same_cells_at_another_spot() -> None:
+    """A second grid on the same cache (spots moved, as after a what-if) takes the kept tables
+    and equals the grid of a fresh cache to the bit."""
+    book = _book(7)
+    cache = engine.BoundaryCache()
+    shocks = 1.0 + SPOT_PCTS / 100.0
+    vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    engine.american_cells(*cols, vols, shocks, boundaries=cache)
+    kept = len(cache._tables)
+    moved = [*cols[:1], cols[1] * 1.03, *cols[2:]]
+    again, _ = engine.american_cells(*moved, vols, shocks, boundaries=cache)
+    assert kept > 0 and len(cache._tables) == kept
+    fresh_cache = engine.BoundaryCache()
+    for item in cache._items.values():
+        fresh_cache.store(item)
+    fresh, _ = engine.american_cells(*moved, vols, shocks, boundaries=fresh_cache)
+    np.testing.assert_array_equal(again, fresh)
