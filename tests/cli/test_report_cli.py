@@ -259,7 +259,11 @@ def test_ladder_json(demo_db: Path) -> None:
     assert out["worst"]["full"] == pytest.approx(full.min())
     v = _valuation(demo_db)
     res = apply_move(v, parse_move("spot -5% vol +2"))
-    assert full[1, 3] == pytest.approx(res.total.full, rel=1e-9)
+    # American cells come from premium tables, the what-if's from one quadrature each: they
+    # agree within the method's 1e-6 of the strike per unit
+    am = v.book.american & v.book.is_option
+    am_tol = 1e-6 * float(np.nansum(np.abs(v.units[am] * v.book.strikes[am])))
+    assert full[1, 3] == pytest.approx(res.total.full, rel=1e-12, abs=am_tol)
 
 
 def test_ladder_on_worker_processes_equals_this_process(demo_db: Path) -> None:
