@@ -1332,7 +1332,8 @@ def lattice_weights(lv: float, step: float, first: int, count: int, points: int,
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat: np.ndarray,
-               g_nl: np.ndarray, g_edge: np.ndarray, g_coef: np.ndarray, step: float,
+               g_nl: np.ndarray, g_edge: np.ndarray, g_tail: np.ndarray, g_coef: np.ndarray,
+               step: float,
                points: int, scale: float, row_group: np.ndarray, row_lnx: np.ndarray,
                row_w: np.ndarray, row_s: np.ndarray, row_k: np.ndarray, ln_shock: np.ndarray,
                shock: np.ndarray, vols: np.ndarray, n_out: int, out: np.ndarray) -> None:
@@ -1340,10 +1341,11 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
     every cell (row m, spot shock i, vol column j) from the
     groups' tables: the European value plus the early-exercise premium interpolated in
     z = (ln x − ln B(σ)) / (σ√τ) (Chebyshev coefficients ``g_coef`` (G, L, n_out', N + 1) in
-    ζ = (z − ``scale``) / (z + ``scale``)) and in ln σ (Lagrange over ``points`` lattice vols);
-    cells at or beyond the boundary are intrinsic (delta ±1, the rest 0). ``vols`` (m, n_s or 1,
-    n_v); rows: group, ln of the put-form spot over strike at the base spot, ω, spot,
-    strike; ``out`` (m, n_out, n_s, n_v)."""
+    ζ = (z − ``scale``) / (z + ``scale``)) and in ln σ (Lagrange over ``points`` lattice vols),
+    0 beyond the largest ``g_tail`` (G, L) of those vols (z past which a table holds only
+    negligible values); cells at or beyond the boundary are intrinsic (delta ±1, the rest 0).
+    ``vols`` (m, n_s or 1, n_v); rows: group, ln of the put-form spot over strike at the base
+    spot, ω, spot, strike; ``out`` (m, n_out, n_s, n_v)."""
     n_s = ln_shock.size
     n_v = vols.shape[2]
     per_spot = vols.shape[1] > 1
@@ -1371,8 +1373,10 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                     a0 = lattice_weights(math.log(v), step, g_first_lat[g], g_nl[g], points,
                                          lag)
                     lnb = 0.0
+                    tail = 0.0
                     for k in range(points):
                         lnb += lag[k] * g_edge[g, a0 + k]
+                        tail = max(tail, g_tail[g, a0 + k])
                     for t in range(n_t):
                         for c in range(n_c):
                             coef[t, c] = 0.0
@@ -1396,6 +1400,9 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                     z = (lnx - lnb) / vst
                     zeta = (z - scale) / (z + scale)
                     for t in range(n_t):
+                        if z > tail:
+                            res[t] = 0.0
+                            continue
                         # Clenshaw's recurrence for Σ c_k T_k(ζ)
                         b1 = 0.0
                         b2 = 0.0

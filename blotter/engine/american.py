@@ -168,7 +168,8 @@ class BoundaryCache:
         self._items: OrderedDict[tuple[float, float, float], Boundary] = OrderedDict()
         self._by_rates: dict[tuple[float, float], dict[float, Boundary]] = {}
         self._bytes = 0
-        self._tables: OrderedDict[tuple[float, ...], tuple[float, np.ndarray]] = OrderedDict()
+        self._tables: OrderedDict[tuple[float, ...], tuple[float, float, np.ndarray]] = (
+            OrderedDict())
         self._table_bytes = 0
         self.hits = 0
         self.misses = 0
@@ -241,7 +242,7 @@ class BoundaryCache:
                 self._bytes -= dropped.nbytes
 
     def tables(self, keys: Sequence[tuple[float, ...]]
-               ) -> list[tuple[float, np.ndarray] | None]:
+               ) -> list[tuple[float, float, np.ndarray] | None]:
         """Premium tables kept for ``keys`` (``american_grid``), None where none is kept."""
         with self._lock:
             out = [self._tables.get(k) for k in keys]
@@ -250,19 +251,20 @@ class BoundaryCache:
                     self._tables.move_to_end(k)
             return out
 
-    def keep_tables(self, items: dict[tuple[float, ...], tuple[float, np.ndarray]]) -> None:
+    def keep_tables(self, items: dict[tuple[float, ...], tuple[float, float, np.ndarray]]
+                    ) -> None:
         """Keep premium tables by key, dropping the oldest beyond ``max_bytes`` of tables (a
         budget of their own beside the boundaries')."""
         with self._lock:
             for k, item in items.items():
                 old = self._tables.pop(k, None)
                 if old is not None:
-                    self._table_bytes -= old[1].nbytes + 100
+                    self._table_bytes -= old[2].nbytes + 100
                 self._tables[k] = item
-                self._table_bytes += item[1].nbytes + 100
+                self._table_bytes += item[2].nbytes + 100
             while self._table_bytes > self.max_bytes and self._tables:
                 _, dropped = self._tables.popitem(last=False)
-                self._table_bytes -= dropped[1].nbytes + 100
+                self._table_bytes -= dropped[2].nbytes + 100
 
     def prepare(self, is_call: object, years: object, rate: object, carry: object,
                 vol_lo: object, vol_hi: object) -> None:
@@ -489,7 +491,8 @@ def _exercise_grid(one: np.ndarray) -> None:
     for n_out in (1, 5):
         out = np.empty((1, n_out, 1, 1))
         _alo.grid_cells(grp.rate, grp.div, grp.tau, np.array([-16], dtype=np.int64),
-                        np.array([2], dtype=np.int64), edge, coef, 0.1, 2, 4.0,
+                        np.array([2], dtype=np.int64), edge, np.ones((1, 2)), coef, 0.1, 2,
+                        4.0,
                         np.zeros(1, dtype=np.int64), np.zeros(1), -one[:1], one[:1], one[:1],
                         np.zeros(1), one[:1], np.full((1, 1, 1), 0.25), n_out, out)
 

@@ -49,6 +49,10 @@ VOL_TABLE_MIN = 0.03
 Z_CAP = 40.0
 """Table points farther than this many standard deviations above the boundary hold 0: the
 premium there is below Φ(−30) of the strike however the boundary and drift lie."""
+TAIL_NEGLIGIBLE = 1e-10
+"""Premiums (per unit strike, or of a greek per unit) below this at every table point from some
+z on are taken as 0 beyond the last point above it: there the interpolant's own error would be
+larger than the premium."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
 
@@ -164,13 +168,13 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
                      scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
     use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
-    coef = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern, cache)
+    coef, tail = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern, cache)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
         row_group = np.repeat(np.arange(n_g), counts)[served]
         n_t = coef.shape[2]
-        args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, coef, LATTICE_STEP,
+        args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
                 LATTICE_POINTS, Z_SCALE)
         ln_shock = np.log(shocks)
         n_out = out.shape[1]
@@ -203,7 +207,8 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
 
 def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
                    lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
-                   kern: ModuleType, cache: american.BoundaryCache | None) -> np.ndarray:
+                   kern: ModuleType, cache: american.BoundaryCache | None
+                   ) -> tuple[np.ndarray, np.ndarray]:
     """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
     from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
     another grid of the same valuation reuses it) and the others computed and kept."""
@@ -218,25 +223,31 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray
     todo = use.copy()
     n_t = TABLE_OUTPUTS if greeks else 1
     coef = np.zeros((*use.shape, n_t, CHEB_DEGREE + 1))
+    tail = np.zeros(use.shape)
     for g, a, item in zip(gi.tolist(), ai.tolist(), kept, strict=True):
         if item is not None and item[0] == edge[g, a]:
-            coef[g, a] = item[1]
+            tail[g, a] = item[1]
+            coef[g, a] = item[2]
             todo[g, a] = False
     if todo.any():
-        new = _tables(grp, todo, lat, edge, greeks, scheme, kern)
+        new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
         coef[todo] = new[todo]
+        tail[todo] = new_tail[todo]
         at = {(g, a): i for i, (g, a) in enumerate(zip(gi.tolist(), ai.tolist(), strict=True))}
-        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), new[g, a].copy())
+        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), float(new_tail[g, a]),
+                                              new[g, a].copy())
                            for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
                                            strict=True)})
-    return coef
+    return coef, tail
 
 
 def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,
-            greeks: bool, scheme: american.Scheme, kern: ModuleType) -> np.ndarray:
+            greeks: bool, scheme: american.Scheme, kern: ModuleType
+            ) -> tuple[np.ndarray, np.ndarray]:
     """Chebyshev coefficients (G, L, n_t, N + 1) of the groups' premium tables at their
     lattice vols where ``use`` (G, L), from exact values of synthetic puts (strike 1) at the
-    table's points (0 elsewhere)."""
+    table's points (0 elsewhere), and each table's tail: the largest z of a point whose
+    premiums are not all below ``TAIL_NEGLIGIBLE`` (G, L)."""
     n_g, nl_max = lat.shape
     n_t = TABLE_OUTPUTS if greeks else 1
     # the point on the boundary (z = 0) takes the continuation's limits there, exactly:
@@ -276,8 +287,12 @@ def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.nd
             prem.reshape(n_t, gi.size, n_pts).transpose(1, 2, 0))
         vals[gi, ai, :, CHEB_DEGREE] = _on_boundary(edge[gi, ai], sig, grp.tau[gi],
                                                     grp.rate[gi], grp.div[gi], greeks)
+    big = np.max(np.abs(vals), axis=2) > TAIL_NEGLIGIBLE          # (G, L, N + 1)
+    # points run from z = ∞ (0) to z = 0 (N): the first significant one has the largest z
+    first_big = np.where(big.any(axis=2), np.argmax(big, axis=2), CHEB_DEGREE)
+    tail = _Z[first_big]
     coef: np.ndarray = np.ascontiguousarray(vals @ _TO_COEF.T)
-    return coef
+    return coef, tail
 
 
 def _european_puts(x: np.ndarray, tau: np.ndarray, r: np.ndarray, q: np.ndarray,

@@ -94,8 +94,9 @@ def test_grid_price_and_delta_with_greeks_equal_the_engines_per_cell(seed: int) 
     assert errors["delta"] <= 1e-4
 
 
-@pytest.mark.xfail(strict=True, reason="known shortfall: gamma (1-2% of cells, up to 3.5e-3), "
-                   "and so theta, miss 1e-4 near the exercise boundary and at short expiries")
+@pytest.mark.xfail(strict=True, reason="known shortfall: gamma misses 1e-4 in 9-17 of 10,800 "
+                   "cells (up to 2.8e-2), theta in 1-3, vega in 0-1, near the boundary and at "
+                   "short expiries")
 @pytest.mark.parametrize("seed", [1, 2])
 def test_grid_gamma_vega_theta_equal_the_engines_per_cell(seed: int) -> None:
     errors = _greek_errors(seed)
@@ -171,3 +172,46 @@ def test_kept_tables_give_the_same_cells_at_another_spot() -> None:
         fresh_cache.store(item)
     fresh, _ = engine.american_cells(*moved, vols, shocks, boundaries=fresh_cache)
     np.testing.assert_array_equal(again, fresh)
+
+
+def _short_dated() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Gamma of a grid of out-of-the-money rows at a day or a week, low vols: the tables'
+    cells and the engine's per cell, (n_s, n_v, m) each, and the strikes."""
+    m = 60
+    rng = np.random.default_rng(8)
+    is_call = rng.random(m) < 0.5
+    spot = np.full(m, 40.0)
+    # puts struck 85–97% of spot, calls 103–115%: out of the money
+    strike = np.where(is_call, rng.uniform(1.03, 1.15, m), rng.uniform(0.85, 0.97, m)) * spot
+    years = np.where(rng.random(m) < 0.5, 1.0, 7.0) / 365.0
+    rate = np.full(m, 0.03)
+    carry = np.where(is_call, -0.02, 0.03)
+    vol = rng.uniform(0.06, 0.12, m)
+    shocks = 1.0 + SPOT_PCTS / 100.0
+    vols = vol[None, None, :] + VOL_PTS[None, :, None] / 200.0
+    cache = engine.BoundaryCache()
+    got, _ = engine.american_cells(is_call, spot, strike, years, rate, carry, vols, shocks,
+                                   greeks=True, boundaries=cache)
+    g = engine.price_greeks(is_call, spot * shocks[:, None, None], strike, years, rate, carry,
+                            vols, american=True, boundaries=cache)
+    return got[2], g.gamma, strike
+
+
+def test_short_dated_gamma_is_0_where_the_premium_is_negligible() -> None:
+    """Where the premium's tables are near 0 (they peak near the boundary at 1/(σ√τ)), past
+    the last table point holding more than ``TAIL_NEGLIGIBLE`` the premium is 0, so gamma
+    keeps 1e-6 per unit of underlying there (the interpolant alone left about 2e-7 absolute on
+    strikes of 40)."""
+    got, exact, strike = _short_dated()
+    tiny = np.abs(exact) < 1e-12
+    assert tiny.sum() > 100
+    err = np.abs(got - exact) / (np.abs(exact) + 1e-2 / strike)
+    assert np.max(err[tiny]) <= 1e-4
+
+
+@pytest.mark.xfail(strict=True, reason="known shortfall: at 1–7 days and vols of 6–12% gamma "
+                   "misses 1e-4 relative in about 6% of out-of-the-money cells (up to 1.3e-3)")
+def test_short_dated_gamma_equals_the_engines_per_cell() -> None:
+    got, exact, strike = _short_dated()
+    err = np.abs(got - exact) / (np.abs(exact) + 1e-2 / strike)
+    assert np.max(err) <= 1e-4
