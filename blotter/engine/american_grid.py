@@ -155,11 +155,13 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     n_lat = lat_last - lat_first + 1
     g_rows = order[starts]
     g_t, g_r, g_q = t[g_rows], r_p[g_rows], q_p[g_rows]
-    # the group's boundary over its lattice's vols: found in the cache or solved once
+    # the group's boundary over its lattice's vols: found in the cache or solved once, with
+    # vol nodes close enough for greeks even for prices, so that a grid's boundary also
+    # serves a greek profile (one per key is kept: a price-only one would be solved again)
     span = np.concatenate([lat_first, lat_last]) * LATTICE_STEP
     two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
     grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
-                               np.tile(g_r, 2), np.tile(g_q, 2), span, greeks, cache, kern)
+                               np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
     ok = grp.steps >= 0
     nl_max = int(n_lat.max())
     lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
