@@ -1336,7 +1336,8 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                step: float,
                points: int, scale: float, row_group: np.ndarray, row_lnx: np.ndarray,
                row_w: np.ndarray, row_s: np.ndarray, row_k: np.ndarray, ln_shock: np.ndarray,
-               shock: np.ndarray, vols: np.ndarray, n_out: int, out: np.ndarray) -> None:
+               shock: np.ndarray, vols: np.ndarray, n_out: int, dest: np.ndarray,
+               out: np.ndarray) -> None:
     """American prices (``n_out`` 1), or price, delta, gamma, vega and theta (``n_out`` 5), of
     every cell (row m, spot shock i, vol column j) from the
     groups' tables: the European value plus the early-exercise premium interpolated in
@@ -1345,7 +1346,7 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
     0 beyond the largest ``g_tail`` (G, L) of those vols (z past which a table holds only
     negligible values); cells at or beyond the boundary are intrinsic (delta ±1, the rest 0).
     ``vols`` (m, n_s or 1, n_v); rows: group, ln of the put-form spot over strike at the base
-    spot, ω, spot, strike; ``out`` (m, n_out, n_s, n_v)."""
+    spot, ω, spot, strike; row m's cells go to ``out[dest[m]]`` (rows, n_out, n_s, n_v)."""
     n_s = ln_shock.size
     n_v = vols.shape[2]
     per_spot = vols.shape[1] > 1
@@ -1355,6 +1356,7 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
     coef = np.empty((n_t, n_c))
     res = np.empty(5)
     for m in range(row_lnx.size):
+        o = dest[m]
         g = row_group[m]
         r = g_r[g]
         q = g_q[g]
@@ -1423,14 +1425,14 @@ def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat:
                         res[4] = -(0.5 * v * v * xs * xs * res[2] + (r - q) * xs * res[1]
                                    - r * res[0])
                 value = sc * res[0]
-                out[m, 0, i, j] = max(value, row_w[m] * (s1 - row_k[m]), 0.0)
+                out[o, 0, i, j] = max(value, row_w[m] * (s1 - row_k[m]), 0.0)
                 if n_out == 1:
                     continue
                 if call:
-                    out[m, 1, i, j] = res[0] - xs * res[1]
-                    out[m, 2, i, j] = xs * xs * res[2] / sc
+                    out[o, 1, i, j] = res[0] - xs * res[1]
+                    out[o, 2, i, j] = xs * xs * res[2] / sc
                 else:
-                    out[m, 1, i, j] = res[1]
-                    out[m, 2, i, j] = res[2] / sc
-                out[m, 3, i, j] = sc * res[3]
-                out[m, 4, i, j] = sc * res[4]
+                    out[o, 1, i, j] = res[1]
+                    out[o, 2, i, j] = res[2] / sc
+                out[o, 3, i, j] = sc * res[3]
+                out[o, 4, i, j] = sc * res[4]

@@ -494,7 +494,8 @@ def _exercise_grid(one: np.ndarray) -> None:
                         np.array([2], dtype=np.int64), edge, np.ones((1, 2)), coef, 0.1, 2,
                         4.0,
                         np.zeros(1, dtype=np.int64), np.zeros(1), -one[:1], one[:1], one[:1],
-                        np.zeros(1), one[:1], np.full((1, 1, 1), 0.25), n_out, out)
+                        np.zeros(1), one[:1], np.full((1, 1, 1), 0.25), n_out,
+                        np.zeros(1, dtype=np.int64), out)
 
 
 def warm_up(background: bool = True) -> threading.Thread | None:

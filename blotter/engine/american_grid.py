@@ -25,7 +25,7 @@ mirror) are valued cell by cell by ``american.evaluate``.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import replace
 from types import ModuleType
 
@@ -55,6 +55,8 @@ z on are taken as 0 beyond the last point above it: there the interpolant's own 
 larger than the premium."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
+BLOCK_ROWS = 8192
+"""Rows whose cells are held at once (with greeks and 31 spot points, 10 MB)."""
 
 TABLE_OUTPUTS = 4
 """Premium tables of a greeks run: price, delta, gamma, vega (put form, strike 1)."""
@@ -87,7 +89,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                    shocks: np.ndarray, greeks: bool = False,
                    cache: american.BoundaryCache | None = None,
                    kernels: ModuleType | None = None,
-                   base_vols: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                   base_vols: np.ndarray | None = None,
+                   weights: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
     (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
 
@@ -95,7 +98,10 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     multipliers. Equal to ``price``/``price_greeks`` with ``american=True`` of each cell within
     the method's accuracy (ACCURACY.md); ``cache`` as for ``price``. Also returns the same
     outputs (n_out, m) at the unmoved spot and ``base_vols`` (m,) (default: the rows' first
-    vol column) from the same tables, so that a P&L against them is 0 where nothing moves."""
+    vol column) from the same tables, so that a P&L against them is 0 where nothing moves.
+    With ``weights`` (m,), the weighted sums over rows instead: (n_out, n_s, n_v) and
+    (n_out,), the cells computed ``BLOCK_ROWS`` rows at a time (a few MB, however large the
+    book)."""
     kern = american._implementation(kernels)
     w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
     s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
@@ -104,10 +110,31 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     m = s.size
     n_s, n_v = shocks.size, vols.shape[1]
     n_out = len(CELL_OUTPUTS) if greeks else 1
-    out = np.empty((m, n_out, n_s, n_v))
-    base = np.empty((m, n_out, 1, 1))
+    out: np.ndarray
+    base: np.ndarray
+    if weights is None:
+        out = np.empty((m, n_out, n_s, n_v))
+        base = np.empty((m, n_out, 1, 1))
+
+        def sink(rows: np.ndarray, cells: np.ndarray, at_base: np.ndarray) -> None:
+            out[rows] = cells
+            base[rows] = at_base
+    else:
+        wts = np.asarray(weights, dtype=np.float64)
+        out = np.zeros((n_out, n_s, n_v))
+        base = np.zeros(n_out)
+
+        def sink(rows: np.ndarray, cells: np.ndarray, at_base: np.ndarray) -> None:
+            out[...] += np.tensordot(wts[rows], cells, axes=1)
+            base[...] += wts[rows] @ at_base[:, :, 0, 0]
+
+    def result() -> tuple[np.ndarray, np.ndarray]:
+        if weights is None:
+            return out.transpose(1, 2, 3, 0), base[:, :, 0, 0].T
+        return out, base
+
     if m == 0:
-        return out.transpose(1, 2, 3, 0), base[:, :, 0, 0].T
+        return result()
     vol_rows = np.ascontiguousarray(np.moveaxis(vols, -1, 0))   # (m, n_s or 1, n_v)
     base_v = np.ascontiguousarray(
         (vol_rows[:, 0, 0] if base_vols is None else np.asarray(base_vols, dtype=np.float64)
@@ -126,23 +153,29 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     rows = np.flatnonzero(table)
     if rows.size:
         done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                          greeks, cache, kern, out, base_v, base)
+                          greeks, cache, kern, n_out, base_v, sink)
         table[rows[~done]] = False
     rest = np.flatnonzero(~table)
     if rest.size:
-        _cell_by_cell(rest, w, s, k, t, r, b, vol_rows, shocks, greeks, cache, kern, out)
-        _cell_by_cell(rest, w, s, k, t, r, b, base_v, np.ones(1), greeks, cache, kern, base)
-    return out.transpose(1, 2, 3, 0), base[:, :, 0, 0].T
+        cells = np.empty((rest.size, n_out, n_s, n_v))
+        at_base = np.empty((rest.size, n_out, 1, 1))
+        _cell_by_cell(rest, w, s, k, t, r, b, vol_rows, shocks, greeks, cache, kern, cells)
+        _cell_by_cell(rest, w, s, k, t, r, b, base_v, np.ones(1), greeks, cache, kern,
+                      at_base)
+        sink(rest, cells, at_base)
+    return result()
 
 
 def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
                r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray, lo_v: np.ndarray,
                hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
                greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
-               out: np.ndarray, base_v: np.ndarray, base: np.ndarray) -> np.ndarray:
-    """Cells of ``rows`` (status one boundary) from their groups' tables into ``out``, and
-    their values at the unmoved spot and ``base_v`` into ``base``; returns which rows were
-    served (False where the group's boundary did not converge)."""
+               n_out: int, base_v: np.ndarray,
+               sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None]) -> np.ndarray:
+    """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
+    the unmoved spot and ``base_v``, handed to ``sink`` ``BLOCK_ROWS`` rows at a time (row
+    indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1)); returns which rows were served
+    (False where the group's boundary did not converge)."""
     order, first = american._group(rows, key, t, r_p, q_p)
     starts = first[:-1]
     n_g = starts.size
@@ -179,29 +212,35 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
         args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
                 LATTICE_POINTS, Z_SCALE)
         ln_shock = np.log(shocks)
-        n_out = out.shape[1]
-        sub = np.empty((sel.size, *out.shape[1:]))
-        sub_base = np.empty((sel.size, *base.shape[1:]))
+        n_s, n_v = shocks.size, vol_rows.shape[2]
         b_s = np.ascontiguousarray(base_v[sel])
         one = np.ones(1)
         zero = np.zeros(1)
-        cuts = np.arange(0, sel.size, ROWS_PER_TASK)
         g_sel = np.ascontiguousarray(row_group)
         lnx_s, w_s, s_s, k_s = (np.ascontiguousarray(a[sel]) for a in (lnx, w, s, k))
-        v_s = np.ascontiguousarray(vol_rows[sel])
-
-        def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
-            for a in ins[0]:
-                c = slice(int(a), int(min(a + ROWS_PER_TASK, sel.size)))
-                kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c], ln_shock,
-                                shocks, v_s[c], n_out, sub[c])
-                kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c], zero, one,
-                                b_s[c], n_out, sub_base[c])
-
         assert n_t == (TABLE_OUTPUTS if greeks else 1)
-        run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1, min_split=1)
-        out[sel] = sub
-        base[sel] = sub_base
+        for b0 in range(0, sel.size, BLOCK_ROWS):
+            b1 = min(b0 + BLOCK_ROWS, sel.size)
+            cells = np.empty((b1 - b0, n_out, n_s, n_v))
+            at_base = np.empty((b1 - b0, n_out, 1, 1))
+            v_s = np.ascontiguousarray(vol_rows[sel[b0:b1]])
+            cuts = np.arange(b0, b1, ROWS_PER_TASK)
+
+            def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray],
+                       b0: int = b0, b1: int = b1, cells: np.ndarray = cells,
+                       at_base: np.ndarray = at_base, v_s: np.ndarray = v_s) -> None:
+                for a in ins[0]:
+                    c = slice(int(a), int(min(a + ROWS_PER_TASK, b1)))
+                    dest = np.arange(c.start - b0, c.stop - b0)
+                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
+                                    ln_shock, shocks, v_s[dest[0]:dest[-1] + 1], n_out, dest,
+                                    cells)
+                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c], zero,
+                                    one, b_s[c], n_out, dest, at_base)
+
+            run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
+                        min_split=1)
+            sink(sel[b0:b1], cells, at_base)
     served_rows = np.zeros(rows.size, dtype=bool)
     served_rows[np.searchsorted(rows, sel)] = True
     return served_rows
@@ -332,7 +371,8 @@ def _cell_by_cell(rest: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray,
                   r: np.ndarray, b: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray,
                   greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
                   out: np.ndarray) -> None:
-    """Cells of ``rest`` valued one by one by ``american.evaluate`` into ``out``."""
+    """Cells of ``rest`` valued one by one by ``american.evaluate`` into ``out`` (rest.size,
+    n_out, n_s, n_v)."""
     n_s, n_v = shocks.size, vol_rows.shape[2]
     m = rest.size
     shape = (m, n_s, n_v)
@@ -348,4 +388,4 @@ def _cell_by_cell(rest: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray,
     else:
         picked = [vals[0]]
     for o, val in enumerate(picked):
-        out[rest, o] = val.reshape(shape)
+        out[:, o] = val.reshape(shape)

@@ -56,7 +56,11 @@ def greek_profile(
     am = keep[p.american[keep]]
     if am.size:
         # American rows: every spot point from one premium table per exercise boundary
-        cells, _ = engine.american_cells(
+        # the exposure is a weighted sum of one greek: by units × spot (delta, gamma, times
+        # the shock below) or by units
+        per_spot = exposure in ("delta_cash", "gamma_1pct")
+        wts = p.units_l[am] * (p.spot_l[am] if per_spot else 1.0)
+        sums, _ = engine.american_cells(
             p.is_call[am],
             p.spot_l[am],
             p.strike[am],
@@ -67,10 +71,10 @@ def greek_profile(
             1.0 + rel,
             greeks=True,
             boundaries=v.boundaries,
+            weights=wts,
         )
-        cells = cells[:, :, 0, :]
-        s1 = p.spot_l[am][None, :] * shock
-        out += _exposure(exposure, cells[1], cells[2], cells[3], cells[4], s1) @ p.units_l[am]
+        d, gm, vg, th = (sums[i, :, 0][:, None] for i in (1, 2, 3, 4))
+        out += _exposure(exposure, d, gm, vg, th, (1.0 + rel)[:, None])[:, 0]
     keep = keep[~p.american[keep]]
     m = keep.size
     step = chunk or max(256, LADDER_CHUNK_CELLS // n_s)

@@ -156,7 +156,8 @@ def ladder(
             moved_vols(vol_l[ai][None, None, :], shift_a),
             (1 if smile_shift is None else n_s, n_v, ai.size),
         )
-        cells_a, base_a = engine.american_cells(
+        u_a = units_l[ai]
+        sum_a, base_a = engine.american_cells(
             p.is_call[ai],
             spot_l[ai],
             p.strike[ai],
@@ -167,14 +168,12 @@ def ladder(
             1.0 + rel,
             boundaries=v.boundaries,
             base_vols=vol_l[ai],
+            weights=u_a,
         )
         # P&L without a roll against the tables' own base value, so that a cell moving
         # nothing is 0
-        u_a = units_l[ai]
-        base_l = base_a[0] if dt == 0 else p.base_price[ai]
-        full += ((cells_a[0].reshape(n_cells, -1) @ u_a) - float(np.dot(base_l, u_a))).reshape(
-            n_s, n_v
-        )
+        base_sum = float(base_a[0]) if dt == 0 else float(np.dot(p.base_price[ai], u_a))
+        full += sum_a[0] - base_sum
     for a in range(0, m, step):
         b = min(a + step, m)
         sl = slice(a, b)

@@ -215,3 +215,18 @@ def test_short_dated_gamma_equals_the_engines_per_cell() -> None:
     got, exact, strike = _short_dated()
     err = np.abs(got - exact) / (np.abs(exact) + 1e-2 / strike)
     assert np.max(err) <= 1e-4
+
+
+def test_weighted_sums_equal_the_sums_of_the_cells() -> None:
+    """``weights`` gives the weighted sums over rows of the same cells, block by block."""
+    book = _book(9)
+    cache = engine.BoundaryCache()
+    shocks = 1.0 + SPOT_PCTS / 100.0
+    vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    units = np.random.default_rng(9).normal(0.0, 100.0, 240)
+    cells, base = engine.american_cells(*cols, vols, shocks, greeks=True, boundaries=cache)
+    sums, base_sums = engine.american_cells(*cols, vols, shocks, greeks=True,
+                                            boundaries=cache, weights=units)
+    np.testing.assert_allclose(sums, cells @ units, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(base_sums, base @ units, rtol=1e-12, atol=1e-9)
