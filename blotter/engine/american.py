@@ -251,6 +251,12 @@ class BoundaryCache:
                     self._tables.move_to_end(k)
             return out
 
+    def drop_tables(self) -> None:
+        """Forget every premium table (the boundaries stay), e.g. to time building them."""
+        with self._lock:
+            self._tables.clear()
+            self._table_bytes = 0
+
     def keep_tables(self, items: dict[tuple[float, ...], tuple[float, float, np.ndarray]]
                     ) -> None:
         """Keep premium tables by key, dropping the oldest beyond ``max_bytes`` of tables (a
