@@ -38,6 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from blotter.engine import american as _american
+from blotter.engine import american_grid as _american_grid
 from blotter.engine import black as _black
 from blotter.engine import implied as _implied
 from blotter.engine._chunks import CHUNK, Kernel, run_chunked
@@ -68,6 +69,7 @@ from blotter.engine.results import (
 __all__ = [
     "AMERICAN_STATUS",
     "BoundaryCache",
+    "american_cells",
     "Greeks",
     "ImpliedVol",
     "IV_ABOVE_UPPER_BOUND",
@@ -236,6 +238,52 @@ def price(is_call: object, spot: object, strike: object, years: object, rate: ob
     (out,) = _run_models(prep, _black.price_kernel, _american_kernel(False, _cache(boundaries)),
                          _AMERICAN_IV_CHUNK, 1, prep.flat.columns, (np.float64,))
     return out.reshape(prep.flat.shape)
+
+
+def american_cells(is_call: object, spot: object, strike: object, years: object, rate: object,
+                   carry: object, vols: object, shocks: object, greeks: bool = False,
+                   boundaries: object = None, base_vols: object = None,
+                   weights: object = None) -> tuple[np.ndarray, np.ndarray]:
+    """American values of rows (m,) in every cell of a spot × vol grid: spot × ``shocks[i]``
+    (n_s,), vol ``vols[i or 0, j, row]`` ((n_s or 1, n_v, m)); shape (1, n_s, n_v, m), or
+    with ``greeks`` (5, n_s, n_v, m) = price, delta, gamma, vega, theta (units of ``Greeks``);
+    and the same at the unmoved spot and ``base_vols`` (m,) (default the first vol column),
+    shape (1 or 5, m), from the same tables, for P&L that is 0 where nothing moves. With
+    ``weights`` (m,), their weighted sums over the rows instead, (1 or 5, n_s, n_v) and
+    (1 or 5,), in bounded memory.
+
+    Each cell equals ``price``/``price_greeks`` with ``american=True`` within the method's
+    accuracy, from one premium table per exercise boundary (``american_grid``) instead of one
+    quadrature per cell; pass the valuation's ``boundaries`` as for ``price``.
+    """
+    calls = as_bool_array("is_call", is_call)
+    cols = [as_float_array(n, v, "finite") for n, v in
+            (("spot", spot), ("strike", strike), ("years", years), ("rate", rate),
+             ("carry", carry))]
+    flat = broadcast_flat(("is_call", "spot", "strike", "years", "rate", "carry"),
+                          (calls, *cols))
+    c, s, k, t, r, b = (np.broadcast_to(a, flat.shape).ravel() for a in flat.columns)
+    if np.any(s <= 0) or np.any(k <= 0):
+        raise ValueError("spot and strike must be positive")
+    m = c.size
+    sh = as_float_array("shocks", shocks, "finite").ravel()
+    if np.any(sh <= 0):
+        raise ValueError("spot shocks must be positive multipliers")
+    vv = as_float_array("vols", vols, "finite")
+    if vv.ndim != 3 or vv.shape[0] not in (1, sh.size) or vv.shape[2] != m:
+        raise ValueError(f"vols must have shape (1 or {sh.size}, n_v, {m}), not {vv.shape}")
+    if np.any(vv <= 0):
+        raise ValueError("vols must be positive")
+    bv = None
+    if base_vols is not None:
+        bv = np.broadcast_to(as_float_array("base_vols", base_vols, "finite"), (m,))
+        if np.any(bv <= 0):
+            raise ValueError("base vols must be positive")
+    wt = None
+    if weights is not None:
+        wt = np.broadcast_to(as_float_array("weights", weights, "finite"), (m,))
+    return _american_grid.american_cells(c, s, k, t, r, b, vv, sh, greeks, _cache(boundaries),
+                                         base_vols=bv, weights=wt)
 
 
 def implied_vol(price: object, is_call: object, spot: object, strike: object, years: object,

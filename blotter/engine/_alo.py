@@ -1262,3 +1262,177 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                 out[7, row] = res[7]
                 out[8, row] = sc * res[8]
                 out[9, row] = res[9]
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def edge_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np.ndarray,
+                g_ns: np.ndarray, g_lnsig: np.ndarray, g_lnb: np.ndarray, g_tan: np.ndarray,
+                power: float, squares: bool, lat: np.ndarray, g_nl: np.ndarray,
+                out: np.ndarray) -> None:
+    """ln B(τ) of each group at its row time τ for the vols ``lat`` (G, L) (ln σ, the first
+    ``g_nl`` used) into ``out`` (G, L): the boundary interpolated in ln σ from the group's vol
+    nodes exactly as ``value_groups`` interpolates it for a row of that vol."""
+    n = g_lnb.shape[2]
+    nsm = g_lnsig.shape[1]
+    xk = np.cos(np.arange(n + 1) * (math.pi / n))
+    wrow = np.empty(n)
+    tab = np.empty((n, 1))
+    lq1 = np.empty(1)
+    dlq1 = np.zeros((4, 1))
+    work = np.empty((5, 1))
+    lnb_k = np.empty(nsm)
+    dl_k = np.empty(nsm)
+    w0 = np.empty((3, nsm))
+    w1 = np.empty((3, nsm))
+    lag = np.empty(nsm)
+    for g in range(g_r.size):
+        ns = g_ns[g]
+        chebyshev_row(g_tau[g] / g_tmax[g], power, xk, wrow)
+        for k in range(n):
+            tab[k, 0] = wrow[k]
+        nd = 3 if ns > 1 else 0
+        for k in range(ns):
+            boundary_table(g_r[g], g_q[g], math.exp(g_lnsig[g, k]), g_lnb[g, k], g_tan[g, k],
+                           tab, lq1, dlq1, nd, work, squares)
+            lnb_k[k] = lq1[0]
+            dl_k[k] = dlq1[0, 0]
+        for a in range(g_nl[g]):
+            if ns == 1:
+                out[g, a] = lnb_k[0]
+                continue
+            lv = lat[g, a]
+            width = min(ns, WINDOW)
+            k0 = 0
+            while k0 + width < ns and g_lnsig[g, k0 + width // 2] < lv:
+                k0 += 1
+            hermite_weights(lv, g_lnsig[g, k0:k0 + width], width, w0, w1, lag)
+            acc = 0.0
+            for kw in range(width):
+                acc += w0[0, kw] * lnb_k[k0 + kw] + w1[0, kw] * dl_k[k0 + kw]
+            out[g, a] = acc
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def lattice_weights(lv: float, step: float, first: int, count: int, points: int,
+                    lag: np.ndarray) -> int:
+    """Lagrange weights ``lag`` (points,) in ln σ = ``lv`` over the ``points`` lattice vols
+    (ln σ = i × ``step``) nearest it among a group's lattice i = first … first + count − 1;
+    returns the position of the first of them in the group's lattice."""
+    c = lv / step
+    i0 = int(math.floor(c)) - points // 2 + 1
+    i0 = min(max(i0, first), first + count - points)
+    for k in range(points):
+        p = 1.0
+        for m in range(points):
+            if m != k:
+                p *= (c - (i0 + m)) / (k - m)
+        lag[k] = p
+    return i0 - first
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def grid_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat: np.ndarray,
+               g_nl: np.ndarray, g_edge: np.ndarray, g_tail: np.ndarray, g_coef: np.ndarray,
+               step: float,
+               points: int, scale: float, row_group: np.ndarray, row_lnx: np.ndarray,
+               row_w: np.ndarray, row_s: np.ndarray, row_k: np.ndarray, ln_shock: np.ndarray,
+               shock: np.ndarray, vols: np.ndarray, n_out: int, dest: np.ndarray,
+               out: np.ndarray) -> None:
+    """American prices (``n_out`` 1), or price, delta, gamma, vega and theta (``n_out`` 5), of
+    every cell (row m, spot shock i, vol column j) from the
+    groups' tables: the European value plus the early-exercise premium interpolated in
+    z = (ln x − ln B(σ)) / (σ√τ) (Chebyshev coefficients ``g_coef`` (G, L, n_out', N + 1) in
+    ζ = (z − ``scale``) / (z + ``scale``)) and in ln σ (Lagrange over ``points`` lattice vols),
+    0 beyond the largest ``g_tail`` (G, L) of those vols (z past which a table holds only
+    negligible values); cells at or beyond the boundary are intrinsic (delta ±1, the rest 0).
+    ``vols`` (m, n_s or 1, n_v); rows: group, ln of the put-form spot over strike at the base
+    spot, ω, spot, strike; row m's cells go to ``out[dest[m]]`` (rows, n_out, n_s, n_v)."""
+    n_s = ln_shock.size
+    n_v = vols.shape[2]
+    per_spot = vols.shape[1] > 1
+    n_c = g_coef.shape[3]
+    n_t = g_coef.shape[2]
+    lag = np.empty(points)
+    coef = np.empty((n_t, n_c))
+    res = np.empty(5)
+    for m in range(row_lnx.size):
+        o = dest[m]
+        g = row_group[m]
+        r = g_r[g]
+        q = g_q[g]
+        tau = g_tau[g]
+        st = math.sqrt(tau)
+        dq = math.exp(-q * tau)
+        dr = math.exp(-r * tau)
+        call = row_w[m] > 0.0
+        last = -1.0
+        lnb = 0.0
+        for j in range(n_v):
+            for i in range(n_s):
+                v = vols[m, i if per_spot else 0, j]
+                if v != last:
+                    last = v
+                    a0 = lattice_weights(math.log(v), step, g_first_lat[g], g_nl[g], points,
+                                         lag)
+                    lnb = 0.0
+                    tail = 0.0
+                    for k in range(points):
+                        lnb += lag[k] * g_edge[g, a0 + k]
+                        tail = max(tail, g_tail[g, a0 + k])
+                    for t in range(n_t):
+                        for c in range(n_c):
+                            coef[t, c] = 0.0
+                        for k in range(points):
+                            lk = lag[k]
+                            src = g_coef[g, a0 + k, t]
+                            for c in range(n_c):
+                                coef[t, c] += lk * src[c]
+                lnx = row_lnx[m] - ln_shock[i] if call else row_lnx[m] + ln_shock[i]
+                s1 = row_s[m] * shock[i]
+                sc = s1 if call else row_k[m]
+                xs = fexp(lnx)
+                if lnx <= lnb:
+                    res[0] = 1.0 - xs
+                    res[1] = -1.0
+                    res[2] = 0.0
+                    res[3] = 0.0
+                    res[4] = 0.0
+                else:
+                    vst = v * st
+                    z = (lnx - lnb) / vst
+                    zeta = (z - scale) / (z + scale)
+                    for t in range(n_t):
+                        if z > tail:
+                            res[t] = 0.0
+                            continue
+                        # Clenshaw's recurrence for Σ c_k T_k(ζ)
+                        b1 = 0.0
+                        b2 = 0.0
+                        for c in range(n_c - 1, 0, -1):
+                            b0 = 2.0 * zeta * b1 - b2 + coef[t, c]
+                            b2 = b1
+                            b1 = b0
+                        res[t] = zeta * b1 - b2 + coef[t, 0]
+                    # the European put (strike 1, spot xs), as ``european_put``
+                    d1 = (lnx + (r - q + 0.5 * v * v) * tau) / vst
+                    nd1, pd1 = ncdf_and_pdf(-d1)
+                    eu0 = dr * ncdf(vst - d1) - xs * dq * nd1
+                    res[0] = eu0 + max(res[0], 0.0)
+                    if n_out > 1:
+                        res[1] += -dq * nd1
+                        res[2] += dq * pd1 / (xs * vst)
+                        res[3] += xs * dq * pd1 * st
+                        res[4] = -(0.5 * v * v * xs * xs * res[2] + (r - q) * xs * res[1]
+                                   - r * res[0])
+                value = sc * res[0]
+                out[o, 0, i, j] = max(value, row_w[m] * (s1 - row_k[m]), 0.0)
+                if n_out == 1:
+                    continue
+                if call:
+                    out[o, 1, i, j] = res[0] - xs * res[1]
+                    out[o, 2, i, j] = xs * xs * res[2] / sc
+                else:
+                    out[o, 1, i, j] = res[1]
+                    out[o, 2, i, j] = res[2] / sc
+                out[o, 3, i, j] = sc * res[3]
+                out[o, 4, i, j] = sc * res[4]

@@ -18,7 +18,8 @@ from collections.abc import Callable
 
 from blotter.engine import _alo
 
-_ENTRY_POINTS = (_alo.prepare_rows, _alo.group_keys, _alo.solve_groups, _alo.value_groups)
+_ENTRY_POINTS = (_alo.prepare_rows, _alo.group_keys, _alo.solve_groups, _alo.value_groups,
+                 _alo.edge_groups, _alo.grid_cells)
 _LOCK = threading.Lock()
 _THREAD: threading.Thread | None = None
 _WARMING_AT_FORK = False

@@ -168,6 +168,9 @@ class BoundaryCache:
         self._items: OrderedDict[tuple[float, float, float], Boundary] = OrderedDict()
         self._by_rates: dict[tuple[float, float], dict[float, Boundary]] = {}
         self._bytes = 0
+        self._tables: OrderedDict[tuple[float, ...], tuple[float, float, np.ndarray]] = (
+            OrderedDict())
+        self._table_bytes = 0
         self.hits = 0
         self.misses = 0
 
@@ -183,6 +186,8 @@ class BoundaryCache:
             out._items = OrderedDict(self._items)
             out._by_rates = {k: dict(v) for k, v in self._by_rates.items()}
             out._bytes = self._bytes
+            out._tables = OrderedDict(self._tables)
+            out._table_bytes = self._table_bytes
         return out
 
     def __getstate__(self) -> dict[str, object]:
@@ -191,11 +196,14 @@ class BoundaryCache:
         with self._lock:
             state = dict(self.__dict__)
             state["_items"] = OrderedDict(self._items)
+            state["_tables"] = OrderedDict(self._tables)
         del state["_lock"]
         return state
 
     def __setstate__(self, state: dict[str, object]) -> None:
         self.__dict__.update(state)
+        self.__dict__.setdefault("_tables", OrderedDict())
+        self.__dict__.setdefault("_table_bytes", 0)
         self._lock = threading.Lock()
 
     def find(self, rate: float, div: float, tau: float, lo: float, hi: float,
@@ -232,6 +240,37 @@ class BoundaryCache:
                 if not same:
                     del self._by_rates[(r, q)]
                 self._bytes -= dropped.nbytes
+
+    def tables(self, keys: Sequence[tuple[float, ...]]
+               ) -> list[tuple[float, float, np.ndarray] | None]:
+        """Premium tables kept for ``keys`` (``american_grid``), None where none is kept."""
+        with self._lock:
+            out = [self._tables.get(k) for k in keys]
+            for k, item in zip(keys, out, strict=True):
+                if item is not None:
+                    self._tables.move_to_end(k)
+            return out
+
+    def drop_tables(self) -> None:
+        """Forget every premium table (the boundaries stay), e.g. to time building them."""
+        with self._lock:
+            self._tables.clear()
+            self._table_bytes = 0
+
+    def keep_tables(self, items: dict[tuple[float, ...], tuple[float, float, np.ndarray]]
+                    ) -> None:
+        """Keep premium tables by key, dropping the oldest beyond ``max_bytes`` of tables (a
+        budget of their own beside the boundaries')."""
+        with self._lock:
+            for k, item in items.items():
+                old = self._tables.pop(k, None)
+                if old is not None:
+                    self._table_bytes -= old[2].nbytes + 100
+                self._tables[k] = item
+                self._table_bytes += item[2].nbytes + 100
+            while self._table_bytes > self.max_bytes and self._tables:
+                _, dropped = self._tables.popitem(last=False)
+                self._table_bytes -= dropped[2].nbytes + 100
 
     def prepare(self, is_call: object, years: object, rate: object, carry: object,
                 vol_lo: object, vol_hi: object) -> None:
@@ -440,6 +479,29 @@ def _exercise() -> None:
                  0.01 * one, np.array([0.25, 0.3]), greeks=greeks, kernels=_alo)
     key = np.empty(2, dtype=np.uint64)
     _alo.group_keys(0.5 * one, 0.05 * one, 0.04 * one, key)
+    _exercise_grid(one)
+
+
+def _exercise_grid(one: np.ndarray) -> None:
+    """Call the kernels of ``american_grid`` once each on a solved boundary, with the argument
+    types that module passes, which compiles (or loads) them."""
+    t, r, q = 0.5 * one[:1], 0.05 * one[:1], 0.01 * one[:1]
+    lnv = np.log(np.array([0.2, 0.3]))
+    grp = _boundaries(np.arange(2), np.array([0, 2]), np.tile(t, 2), np.tile(r, 2),
+                      np.tile(q, 2), lnv, True, None, _alo)
+    edge = np.zeros((1, 2))
+    _alo.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
+                     DEFAULT.power, DEFAULT.squares, lnv[None, :].copy(),
+                     np.array([2], dtype=np.int64), edge)
+    coef = np.zeros((1, 2, 1, 3))
+    for n_out in (1, 5):
+        out = np.empty((1, n_out, 1, 1))
+        _alo.grid_cells(grp.rate, grp.div, grp.tau, np.array([-16], dtype=np.int64),
+                        np.array([2], dtype=np.int64), edge, np.ones((1, 2)), coef, 0.1, 2,
+                        4.0,
+                        np.zeros(1, dtype=np.int64), np.zeros(1), -one[:1], one[:1], one[:1],
+                        np.zeros(1), one[:1], np.full((1, 1, 1), 0.25), n_out,
+                        np.zeros(1, dtype=np.int64), out)
 
 
 def warm_up(background: bool = True) -> threading.Thread | None:

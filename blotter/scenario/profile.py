@@ -52,18 +52,35 @@ def greek_profile(
     m = keep.size
     if not m:
         return out
-    if p.any_american:
-        am = keep[p.american[keep]]
-        if am.size:
-            v.boundaries.prepare(
-                p.is_call[am], years1[am], p.rate_l[am], p.carry_l[am], p.vol_l[am], p.vol_l[am]
-            )
-    step = chunk or max(256, LADDER_CHUNK_CELLS // n_s)
     shock = (1.0 + rel)[:, None]
+    am = keep[p.american[keep]]
+    if am.size:
+        # American rows: every spot point from one premium table per exercise boundary
+        # the exposure is a weighted sum of one greek: by units × spot (delta, gamma, times
+        # the shock below) or by units
+        per_spot = exposure in ("delta_cash", "gamma_1pct")
+        wts = p.units_l[am] * (p.spot_l[am] if per_spot else 1.0)
+        sums, _ = engine.american_cells(
+            p.is_call[am],
+            p.spot_l[am],
+            p.strike[am],
+            years1[am],
+            p.rate_l[am],
+            p.carry_l[am],
+            p.vol_l[am][None, None, :],
+            1.0 + rel,
+            greeks=True,
+            boundaries=v.boundaries,
+            weights=wts,
+        )
+        d, gm, vg, th = (sums[i, :, 0][:, None] for i in (1, 2, 3, 4))
+        out += _exposure(exposure, d, gm, vg, th, (1.0 + rel)[:, None])[:, 0]
+    keep = keep[~p.american[keep]]
+    m = keep.size
+    step = chunk or max(256, LADDER_CHUNK_CELLS // n_s)
     for a in range(0, m, step):
         rows = keep[a : a + step]
         s1 = p.spot_l[rows][None, :] * shock
-        am_rows = p.american[rows]
         g = engine.price_greeks(
             p.is_call[rows][None, :],
             s1,
@@ -72,20 +89,21 @@ def greek_profile(
             p.rate_l[rows][None, :],
             p.carry_l[rows][None, :],
             p.vol_l[rows][None, :],
-            american=am_rows[None, :] if am_rows.any() else False,
-            boundaries=v.boundaries,
         )
-        units = p.units_l[rows]
-        if exposure == "delta_cash":
-            per = g.delta * s1
-        elif exposure == "gamma_1pct":
-            per = g.gamma * s1 * 0.01
-        elif exposure == "vega_pt":
-            per = g.vega / 100.0
-        else:
-            per = g.theta / 365.0
-        out += per @ units
+        out += _exposure(exposure, g.delta, g.gamma, g.vega, g.theta, s1) @ p.units_l[rows]
     return out
+
+
+def _exposure(exposure: str, delta: np.ndarray, gamma: np.ndarray, vega: np.ndarray,
+              theta: np.ndarray, s1: np.ndarray) -> np.ndarray:
+    """Per-unit ``exposure`` (desk units) from raw greeks at the moved spots ``s1``."""
+    if exposure == "delta_cash":
+        return np.asarray(delta * s1)
+    if exposure == "gamma_1pct":
+        return np.asarray(gamma * s1 * 0.01)
+    if exposure == "vega_pt":
+        return np.asarray(vega / 100.0)
+    return np.asarray(theta / 365.0)
 
 
 PROFILE_AXES = ("spot", "days")

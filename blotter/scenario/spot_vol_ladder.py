@@ -145,19 +145,35 @@ def ladder(
         s0 = v.underlying_spots
         smile = np.stack([smile_vols(v, p, s0 * (1.0 + x)) for x in rel])  # (n_s, m)
         smile_shift = smile - vol_l[None, :]
-    if p.any_american and m:
-        # One solve per exercise boundary for the whole grid, before the chunks ask for them.
-        lo_shift = dvol.min() + (0.0 if smile_shift is None else smile_shift.min(axis=0))
-        hi_shift = dvol.max() + (0.0 if smile_shift is None else smile_shift.max(axis=0))
-        alive_am = p.american & (years1 > 0)
-        v.boundaries.prepare(
-            p.is_call[alive_am],
-            years1[alive_am],
-            rate_l[alive_am],
-            carry_l[alive_am],
-            moved_vols(vol_l, lo_shift)[alive_am],
-            moved_vols(vol_l, hi_shift)[alive_am],
+    alive_am = p.american & (years1 > 0)
+    if alive_am.any():
+        # American rows: every cell from one premium table per exercise boundary
+        ai = np.flatnonzero(alive_am)
+        shift_a: np.ndarray = shock_v
+        if smile_shift is not None:
+            shift_a = smile_shift[:, ai][:, None, :] + shock_v
+        vols_a = np.broadcast_to(
+            moved_vols(vol_l[ai][None, None, :], shift_a),
+            (1 if smile_shift is None else n_s, n_v, ai.size),
         )
+        u_a = units_l[ai]
+        sum_a, base_a = engine.american_cells(
+            p.is_call[ai],
+            spot_l[ai],
+            p.strike[ai],
+            years1[ai],
+            rate_l[ai],
+            carry_l[ai],
+            vols_a,
+            1.0 + rel,
+            boundaries=v.boundaries,
+            base_vols=vol_l[ai],
+            weights=u_a,
+        )
+        # P&L without a roll against the tables' own base value, so that a cell moving
+        # nothing is 0
+        base_sum = float(base_a[0]) if dt == 0 else float(np.dot(p.base_price[ai], u_a))
+        full += sum_a[0] - base_sum
     for a in range(0, m, step):
         b = min(a + step, m)
         sl = slice(a, b)
@@ -170,10 +186,11 @@ def ladder(
             s1 = spot_l[sl][e][None, :] * (1.0 + rel[:, None])
             intr = intrinsic(p.is_call[sl][e][None, :], s1, k[None, :])
             full += ((intr - p.base_price[sl][e][None, :]) @ u_c[e])[:, None]
-            keep: np.ndarray | slice = np.flatnonzero(alive)
-        else:
-            keep = slice(None)
-        am = p.american[sl][keep]
+        # European rows (the American ones are valued above)
+        euro = alive & ~p.american[sl]
+        if not euro.any():
+            continue
+        keep: np.ndarray | slice = slice(None) if euro.all() else np.flatnonzero(euro)
         shift = shock_v
         if smile_shift is not None:
             shift = smile_shift[:, sl][:, keep][:, None, :] + shock_v
@@ -185,8 +202,6 @@ def ladder(
             rate_l[sl][keep][None, None, :],
             carry_l[sl][keep][None, None, :],
             moved_vols(vol_l[sl][keep][None, None, :], shift),
-            american=am[None, None, :] if am.any() else False,
-            boundaries=v.boundaries,
         )
         cells = np.asarray(prices, dtype=np.float64).reshape(n_cells, -1)
         full += ((cells @ u_c[keep]) - float(np.dot(p.base_price[sl][keep], u_c[keep]))).reshape(

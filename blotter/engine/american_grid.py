@@ -1,0 +1,391 @@
+"""American prices and spot greeks of many cells per row (a scenario grid or a spot profile)
+from one small table per exercise boundary, instead of one quadrature per cell.
+
+A put's value in units of its strike is the European value plus the early-exercise premium
+E(ln x, σ; τ, r, q), where x is spot over strike. Rows of one (τ, r, q) in put form share E, so
+each group gets a table of it (``american.evaluate``'s kernels, exact values) at
+``LATTICE_POINTS``-wide windows of a fixed lattice of vols (ln σ = i × ``LATTICE_STEP``) and at
+the Chebyshev–Lobatto points of ζ = (z − ``Z_SCALE``) / (z + ``Z_SCALE``), with
+z = (ln x − ln B(σ)) / (σ√τ) the distance above the exercise boundary B(σ) in standard
+deviations (ζ = 1 is z = ∞, where E is 0). E is smooth in (z, ln σ) on z > 0, and the kink of
+the value at the boundary stays outside the table: a cell at or beyond the interpolated
+boundary is exercised (intrinsic, delta ±1, the rest 0). Each cell is then the closed-form
+European value plus a Lagrange interpolation in ln σ of Chebyshev series in ζ. Greeks (delta,
+gamma, vega) get tables of their own premiums, taken from the method's exact derivatives, not
+by differentiating the interpolant; theta follows from the Black–Scholes equation as in the
+method.
+
+A table node depends only on its group's boundary and its lattice position, never on which
+rows or cells asked for it, so a cell's value does not depend on the other rows (a grid summed
+over shards equals the serial grid). The tables cost a few hundred exact values per group;
+rows the tables do not serve (other statuses, vols below ``VOL_TABLE_MIN``, a failed
+boundary, and every row while the compiled kernels are not ready: the tables have no NumPy
+mirror) are valued cell by cell by ``american.evaluate``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import replace
+from types import ModuleType
+
+import numpy as np
+
+from blotter.engine import _alo, american, black
+from blotter.engine._chunks import run_chunked
+
+LATTICE_STEP = 0.1
+"""Spacing of the vol lattice in ln σ."""
+LATTICE_POINTS = 6
+"""Lattice vols each cell's premium is interpolated from (Lagrange in ln σ)."""
+CHEB_DEGREE = 32
+"""Degree N of the Chebyshev series in ζ (N + 1 points, one of them z = ∞)."""
+Z_SCALE = 4.0
+"""z at ζ = 0: half of the Chebyshev points lie within this many standard deviations of the
+boundary."""
+VOL_TABLE_MIN = 0.03
+"""Rows with a cell vol below this are valued cell by cell (the lattice would reach below
+``american.VOL_MIN``)."""
+Z_CAP = 40.0
+"""Table points farther than this many standard deviations above the boundary hold 0: the
+premium there is below Φ(−30) of the strike however the boundary and drift lie."""
+TAIL_NEGLIGIBLE = 1e-10
+"""Premiums (per unit strike, or of a greek per unit) below this at every table point from some
+z on are taken as 0 beyond the last point above it: there the interpolant's own error would be
+larger than the premium."""
+ROWS_PER_TASK = 256
+"""Rows per unit of work of the cell kernel on the thread pool."""
+BLOCK_ROWS = 8192
+"""Rows whose cells are held at once (with greeks and 31 spot points, 10 MB)."""
+
+TABLE_OUTPUTS = 4
+"""Premium tables of a greeks run: price, delta, gamma, vega (put form, strike 1)."""
+CELL_OUTPUTS = ("price", "delta", "gamma", "vega", "theta")
+"""What ``american_cells`` gives with ``greeks`` (per unit of underlying, as ``price_greeks``)."""
+
+
+def _lobatto() -> tuple[np.ndarray, np.ndarray]:
+    """z at the Chebyshev–Lobatto points ζ_c = cos(cπ/N) (c = 0 is z = ∞, left as inf) and the
+    matrix from values there to Chebyshev coefficients."""
+    n = CHEB_DEGREE
+    zeta = np.cos(np.arange(n + 1) * np.pi / n)
+    with np.errstate(divide="ignore"):
+        z = Z_SCALE * (1.0 + zeta) / (1.0 - zeta)
+    z[n] = 0.0
+    half = np.ones(n + 1)
+    half[0] = half[n] = 0.5
+    k = np.arange(n + 1)
+    to_coef = (2.0 / n) * np.cos(np.outer(k, k) * np.pi / n) * half[None, :]
+    to_coef[0] *= 0.5
+    to_coef[n] *= 0.5
+    return z, to_coef
+
+
+_Z, _TO_COEF = _lobatto()
+
+
+def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
+                   years: np.ndarray, rate: np.ndarray, carry: np.ndarray, vols: np.ndarray,
+                   shocks: np.ndarray, greeks: bool = False,
+                   cache: american.BoundaryCache | None = None,
+                   kernels: ModuleType | None = None,
+                   base_vols: np.ndarray | None = None,
+                   weights: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
+    (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
+
+    Row arguments are flat (m,); ``vols`` is (n_s or 1, n_v, m) and ``shocks`` (n_s,) spot
+    multipliers. Equal to ``price``/``price_greeks`` with ``american=True`` of each cell within
+    the method's accuracy (ACCURACY.md); ``cache`` as for ``price``. Also returns the same
+    outputs (n_out, m) at the unmoved spot and ``base_vols`` (m,) (default: the rows' first
+    vol column) from the same tables, so that a P&L against them is 0 where nothing moves.
+    With ``weights`` (m,), the weighted sums over rows instead: (n_out, n_s, n_v) and
+    (n_out,), the cells computed ``BLOCK_ROWS`` rows at a time (a few MB, however large the
+    book)."""
+    kern = american._implementation(kernels)
+    w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
+    s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
+    vols = np.asarray(vols, dtype=np.float64)
+    shocks = american._writable(np.asarray(shocks, dtype=np.float64).ravel())
+    m = s.size
+    n_s, n_v = shocks.size, vols.shape[1]
+    n_out = len(CELL_OUTPUTS) if greeks else 1
+    out: np.ndarray
+    base: np.ndarray
+    if weights is None:
+        out = np.empty((m, n_out, n_s, n_v))
+        base = np.empty((m, n_out, 1, 1))
+
+        def sink(rows: np.ndarray, cells: np.ndarray, at_base: np.ndarray) -> None:
+            out[rows] = cells
+            base[rows] = at_base
+    else:
+        wts = np.asarray(weights, dtype=np.float64)
+        out = np.zeros((n_out, n_s, n_v))
+        base = np.zeros(n_out)
+
+        def sink(rows: np.ndarray, cells: np.ndarray, at_base: np.ndarray) -> None:
+            out[...] += np.tensordot(wts[rows], cells, axes=1)
+            base[...] += wts[rows] @ at_base[:, :, 0, 0]
+
+    def result() -> tuple[np.ndarray, np.ndarray]:
+        if weights is None:
+            return out.transpose(1, 2, 3, 0), base[:, :, 0, 0].T
+        return out, base
+
+    if m == 0:
+        return result()
+    vol_rows = np.ascontiguousarray(np.moveaxis(vols, -1, 0))   # (m, n_s or 1, n_v)
+    base_v = np.ascontiguousarray(
+        (vol_rows[:, 0, 0] if base_vols is None else np.asarray(base_vols, dtype=np.float64)
+         ).reshape(m, 1, 1))
+    lo_v = np.minimum(vol_rows.reshape(m, -1).min(axis=1), base_v[:, 0, 0])
+    hi_v = np.maximum(vol_rows.reshape(m, -1).max(axis=1), base_v[:, 0, 0])
+    status = np.empty(m, dtype=np.int8)
+    lnx, r_p, q_p, lnv = (np.empty(m) for _ in range(4))
+    key = np.empty(m, dtype=np.uint64)
+    kern.prepare_rows(w, s, k, t, r, b, american._writable(np.maximum(lo_v, 1e-8)),
+                      american.YEARS_MIN, american.VOL_MIN, status, lnx, r_p, q_p, lnv, key)
+    # the tables' kernels are compiled only: while they compile (the NumPy mirror in use),
+    # every cell is valued by the mirror's quadrature
+    table = ((status == american.EXERCISE_BOUNDARY) & (lo_v >= VOL_TABLE_MIN)
+             & np.isfinite(hi_v) & (kern is _alo))
+    rows = np.flatnonzero(table)
+    if rows.size:
+        done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
+                          greeks, cache, kern, n_out, base_v, sink)
+        table[rows[~done]] = False
+    rest = np.flatnonzero(~table)
+    if rest.size:
+        cells = np.empty((rest.size, n_out, n_s, n_v))
+        at_base = np.empty((rest.size, n_out, 1, 1))
+        _cell_by_cell(rest, w, s, k, t, r, b, vol_rows, shocks, greeks, cache, kern, cells)
+        _cell_by_cell(rest, w, s, k, t, r, b, base_v, np.ones(1), greeks, cache, kern,
+                      at_base)
+        sink(rest, cells, at_base)
+    return result()
+
+
+def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
+               r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray, lo_v: np.ndarray,
+               hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
+               greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
+               n_out: int, base_v: np.ndarray,
+               sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None]) -> np.ndarray:
+    """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
+    the unmoved spot and ``base_v``, handed to ``sink`` ``BLOCK_ROWS`` rows at a time (row
+    indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1)); returns which rows were served
+    (False where the group's boundary did not converge)."""
+    order, first = american._group(rows, key, t, r_p, q_p)
+    starts = first[:-1]
+    n_g = starts.size
+    counts = np.diff(first)
+    lv_lo = np.minimum.reduceat(np.log(lo_v[order]), starts)
+    lv_hi = np.maximum.reduceat(np.log(hi_v[order]), starts)
+    half = LATTICE_POINTS // 2
+    lat_first = (np.floor(lv_lo / LATTICE_STEP) - half + 1).astype(np.int64)
+    lat_last = (np.floor(lv_hi / LATTICE_STEP) + half).astype(np.int64)
+    n_lat = lat_last - lat_first + 1
+    g_rows = order[starts]
+    g_t, g_r, g_q = t[g_rows], r_p[g_rows], q_p[g_rows]
+    # the group's boundary over its lattice's vols: found in the cache or solved once, with
+    # vol nodes close enough for greeks even for prices, so that a grid's boundary also
+    # serves a greek profile (one per key is kept: a price-only one would be solved again)
+    span = np.concatenate([lat_first, lat_last]) * LATTICE_STEP
+    two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
+    grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
+                               np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
+    ok = grp.steps >= 0
+    nl_max = int(n_lat.max())
+    lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
+    edge = np.zeros((n_g, nl_max))
+    scheme = american.DEFAULT
+    kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
+                     scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
+    use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
+    coef, tail = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern, cache)
+    served = np.repeat(ok, counts)
+    sel = order[served]
+    if sel.size:
+        row_group = np.repeat(np.arange(n_g), counts)[served]
+        n_t = coef.shape[2]
+        args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
+                LATTICE_POINTS, Z_SCALE)
+        ln_shock = np.log(shocks)
+        n_s, n_v = shocks.size, vol_rows.shape[2]
+        b_s = np.ascontiguousarray(base_v[sel])
+        one = np.ones(1)
+        zero = np.zeros(1)
+        g_sel = np.ascontiguousarray(row_group)
+        lnx_s, w_s, s_s, k_s = (np.ascontiguousarray(a[sel]) for a in (lnx, w, s, k))
+        assert n_t == (TABLE_OUTPUTS if greeks else 1)
+        for b0 in range(0, sel.size, BLOCK_ROWS):
+            b1 = min(b0 + BLOCK_ROWS, sel.size)
+            cells = np.empty((b1 - b0, n_out, n_s, n_v))
+            at_base = np.empty((b1 - b0, n_out, 1, 1))
+            v_s = np.ascontiguousarray(vol_rows[sel[b0:b1]])
+            cuts = np.arange(b0, b1, ROWS_PER_TASK)
+
+            def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray],
+                       b0: int = b0, b1: int = b1, cells: np.ndarray = cells,
+                       at_base: np.ndarray = at_base, v_s: np.ndarray = v_s) -> None:
+                for a in ins[0]:
+                    c = slice(int(a), int(min(a + ROWS_PER_TASK, b1)))
+                    dest = np.arange(c.start - b0, c.stop - b0)
+                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
+                                    ln_shock, shocks, v_s[dest[0]:dest[-1] + 1], n_out, dest,
+                                    cells)
+                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c], zero,
+                                    one, b_s[c], n_out, dest, at_base)
+
+            run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
+                        min_split=1)
+            sink(sel[b0:b1], cells, at_base)
+    served_rows = np.zeros(rows.size, dtype=bool)
+    served_rows[np.searchsorted(rows, sel)] = True
+    return served_rows
+
+
+def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
+                   lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
+                   kern: ModuleType, cache: american.BoundaryCache | None
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
+    from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
+    another grid of the same valuation reuses it) and the others computed and kept."""
+    if cache is None:
+        return _tables(grp, use, lat, edge, greeks, scheme, kern)
+    gi, ai = np.nonzero(use)
+    last = grp.ns[gi] - 1
+    cols = (grp.rate[gi], grp.div[gi], grp.tau[gi], grp.tmax[gi], grp.lnsig[gi, 0],
+            grp.lnsig[gi, last], last.astype(np.float64), (lat_first[gi] + ai).astype(np.float64))
+    keys = [(*k, float(greeks)) for k in zip(*(c.tolist() for c in cols), strict=True)]
+    kept = cache.tables(keys)
+    todo = use.copy()
+    n_t = TABLE_OUTPUTS if greeks else 1
+    coef = np.zeros((*use.shape, n_t, CHEB_DEGREE + 1))
+    tail = np.zeros(use.shape)
+    for g, a, item in zip(gi.tolist(), ai.tolist(), kept, strict=True):
+        if item is not None and item[0] == edge[g, a]:
+            tail[g, a] = item[1]
+            coef[g, a] = item[2]
+            todo[g, a] = False
+    if todo.any():
+        new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
+        coef[todo] = new[todo]
+        tail[todo] = new_tail[todo]
+        at = {(g, a): i for i, (g, a) in enumerate(zip(gi.tolist(), ai.tolist(), strict=True))}
+        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), float(new_tail[g, a]),
+                                              new[g, a].copy())
+                           for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
+                                           strict=True)})
+    return coef, tail
+
+
+def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,
+            greeks: bool, scheme: american.Scheme, kern: ModuleType
+            ) -> tuple[np.ndarray, np.ndarray]:
+    """Chebyshev coefficients (G, L, n_t, N + 1) of the groups' premium tables at their
+    lattice vols where ``use`` (G, L), from exact values of synthetic puts (strike 1) at the
+    table's points (0 elsewhere), and each table's tail: the largest z of a point whose
+    premiums are not all below ``TAIL_NEGLIGIBLE`` (G, L)."""
+    n_g, nl_max = lat.shape
+    n_t = TABLE_OUTPUTS if greeks else 1
+    # the point on the boundary (z = 0) takes the continuation's limits there, exactly:
+    # quadratures of gamma just above the boundary miss a layer of width z² in time
+    pts = np.flatnonzero((_Z <= Z_CAP) & (_Z > 0.0))  # beyond Z_CAP (z = ∞ among them): 0
+    n_pts = pts.size
+    vals = np.zeros((n_g, nl_max, n_t, CHEB_DEGREE + 1))
+    gi, ai = np.nonzero(use)
+    if gi.size:
+        sig = np.exp(lat[gi, ai])
+        root_t = np.sqrt(grp.tau[gi])
+        x = edge[gi, ai][:, None] + (sig * root_t)[:, None] * _Z[None, pts]
+        n_rows = x.size
+        lnx = x.ravel()
+        v = np.repeat(sig, n_pts)
+        tt = np.repeat(grp.tau[gi], n_pts)
+        rr = np.repeat(grp.rate[gi], n_pts)
+        qq = np.repeat(grp.div[gi], n_pts)
+        per_group = np.bincount(gi, minlength=n_g) * n_pts
+        first = np.concatenate([[0], np.cumsum(per_group)])
+        syn = replace(grp, order=np.arange(n_rows), first=first)
+        spot = np.exp(lnx)
+        one = np.ones(n_rows)
+        put = -one
+        n_o = 10 if greeks else 1
+        block = np.empty((n_o, n_rows))
+        near = np.zeros(n_rows, dtype=np.bool_)
+        american._value(syn, lnx, v, spot, one, put, greeks, scheme, block, near, kern)
+        euro = _european_puts(spot, tt, rr, qq, v, greeks)
+        prem = np.empty((n_t, n_rows))
+        prem[0] = np.maximum(block[0] - euro[0], 0.0)
+        if greeks:
+            for o, src in ((1, 1), (2, 2), (3, 3)):
+                prem[o] = block[src] - euro[src]
+        # advanced indices around a slice: the indexed shape is (rows, points, n_t)
+        vals[gi[:, None], ai[:, None], :, pts[None, :]] = (
+            prem.reshape(n_t, gi.size, n_pts).transpose(1, 2, 0))
+        vals[gi, ai, :, CHEB_DEGREE] = _on_boundary(edge[gi, ai], sig, grp.tau[gi],
+                                                    grp.rate[gi], grp.div[gi], greeks)
+    big = np.max(np.abs(vals), axis=2) > TAIL_NEGLIGIBLE          # (G, L, N + 1)
+    # points run from z = ∞ (0) to z = 0 (N): the first significant one has the largest z
+    first_big = np.where(big.any(axis=2), np.argmax(big, axis=2), CHEB_DEGREE)
+    tail = _Z[first_big]
+    coef: np.ndarray = np.ascontiguousarray(vals @ _TO_COEF.T)
+    return coef, tail
+
+
+def _european_puts(x: np.ndarray, tau: np.ndarray, r: np.ndarray, q: np.ndarray,
+                   sig: np.ndarray, greeks: bool) -> list[np.ndarray]:
+    """European puts of strike 1 at spots ``x`` (put-form rate and dividend yield): the price,
+    or the price and nine greeks (``results.GREEK_NAMES`` order)."""
+    n = x.size
+    euro = [np.empty(n) for _ in range(10 if greeks else 1)]
+    ins = (-np.ones(n), x, np.ones(n), tau, r, r - q, sig)
+    if greeks:
+        black.greeks_kernel(ins, euro)
+    else:
+        black.price_kernel(ins, euro)
+    return euro
+
+
+def _on_boundary(lnb: np.ndarray, sig: np.ndarray, tau: np.ndarray, r: np.ndarray,
+                 q: np.ndarray, greeks: bool) -> np.ndarray:
+    """Premiums (rows, n_t) of a put (strike 1) at its exercise boundary x = B: the value
+    1 − B, delta −1, vega 0 (the value touches intrinsic smoothly) and gamma from the
+    Black–Scholes equation with θ = 0 there, Γ = 2 (r − q B) / (σ² B²), less the European
+    put's."""
+    x = np.exp(lnb)
+    euro = _european_puts(x, tau, r, q, sig, greeks)
+    out = np.empty((x.size, TABLE_OUTPUTS if greeks else 1))
+    out[:, 0] = np.maximum(1.0 - x - euro[0], 0.0)
+    if greeks:
+        out[:, 1] = -1.0 - euro[1]
+        out[:, 2] = 2.0 * (r - q * x) / (sig * sig * x * x) - euro[2]
+        out[:, 3] = -euro[3]
+    return out
+
+
+def _cell_by_cell(rest: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
+                  r: np.ndarray, b: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray,
+                  greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
+                  out: np.ndarray) -> None:
+    """Cells of ``rest`` valued one by one by ``american.evaluate`` into ``out`` (rest.size,
+    n_out, n_s, n_v)."""
+    n_s, n_v = shocks.size, vol_rows.shape[2]
+    m = rest.size
+    shape = (m, n_s, n_v)
+    vv = np.broadcast_to(vol_rows[rest], shape)
+    s1 = s[rest][:, None, None] * shocks[None, :, None]
+    cols = [np.broadcast_to(a[rest][:, None, None], shape).ravel()
+            for a in (w, k, t, r, b)]
+    vals, _ = american.evaluate(cols[0], np.broadcast_to(s1, shape).ravel(), cols[1], cols[2],
+                                cols[3], cols[4], vv.ravel(), greeks, cache, kernels=kern)
+    if greeks:
+        # price, delta, gamma, vega, theta of results.GREEK_NAMES
+        picked = [vals[i] for i in range(5)]
+    else:
+        picked = [vals[0]]
+    for o, val in enumerate(picked):
+        out[:, o] = val.reshape(shape)
