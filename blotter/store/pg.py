@@ -1,0 +1,149 @@
+"""A book kept in a PostgreSQL database: ``schema_pg.sql`` in versioned sections, connections
+through psycopg 3 (the optional ``postgres`` extra), making a book's tables, and listening for
+commits.
+
+A book here is one database (its ``public`` schema), named by a ``postgresql://`` URL. The
+server enforces what the SQLite file's triggers do, and privileges besides: see the head of
+``schema_pg.sql``. psycopg is imported on first use, so nothing else of the store loads it.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
+
+from blotter.store.errors import StoreError
+from blotter.store.files import packaged_file
+
+if TYPE_CHECKING:
+    import psycopg
+
+URL_SCHEMES = ("postgresql://", "postgres://")
+"""How a ``--db`` value names a PostgreSQL book instead of a file."""
+
+CHANNEL = "blotter_book"
+"""The channel every commit that writes a book's tables notifies (``schema_pg.sql``)."""
+
+WRITER_ROLE = "blotter_writer"
+"""The group role that reads and appends (the app's)."""
+
+READER_ROLE = "blotter_reader"
+"""The group role that only reads (viewers')."""
+
+INSTALL_HINT = "PostgreSQL books need psycopg: pip install 'blotter[postgres]'"
+
+_SECTION = re.compile(r"^-- @version (\d+)\b", re.MULTILINE)
+
+
+def is_url(text: str) -> bool:
+    """Whether ``text`` names a PostgreSQL book (a ``postgresql://`` URL) rather than a file."""
+    return text.startswith(URL_SCHEMES)
+
+
+def schema_pg_path() -> Path:
+    """``schema_pg.sql``: inside the installed package, else at the top of a source checkout."""
+    return packaged_file("schema_pg.sql")
+
+
+def pg_sections(text: str | None = None) -> dict[int, str]:
+    """The text of each ``-- @version N`` section of ``schema_pg.sql``, by version; each runs as
+    one multi-statement call, so plpgsql bodies need no splitting."""
+    if text is None:
+        text = schema_pg_path().read_text(encoding="utf-8")
+    marks = list(_SECTION.finditer(text))
+    if not marks:
+        raise StoreError(f"{schema_pg_path()} has no '-- @version N' sections")
+    ends = [m.start() for m in marks[1:]] + [len(text)]
+    return {int(m.group(1)): text[m.end() : end] for m, end in zip(marks, ends, strict=True)}
+
+
+def connect(url: str, autocommit: bool = False) -> psycopg.Connection[Any]:
+    """A connection to the database ``url`` names; ``StoreError`` in words when psycopg is not
+    installed or the server refuses."""
+    try:
+        import psycopg
+    except ImportError:
+        raise StoreError(INSTALL_HINT) from None
+    try:
+        return psycopg.connect(url, autocommit=autocommit)
+    except psycopg.Error as exc:
+        raise StoreError(f"cannot connect to the PostgreSQL book ({exc})".strip()) from None
+
+
+def schema_version(conn: psycopg.Connection[Any]) -> int | None:
+    """The schema version the database holds, or None when it holds no blotter book."""
+    found = conn.execute("SELECT to_regclass('public.blotter_meta') IS NOT NULL").fetchone()
+    if not found or not found[0]:
+        return None
+    row = conn.execute("SELECT schema_version FROM blotter_meta").fetchone()
+    return None if row is None else int(row[0])
+
+
+def book_tables(conn: psycopg.Connection[Any]) -> set[str]:
+    """The tables of the database's ``public`` schema."""
+    found = conn.execute(
+        "SELECT table_name FROM information_schema.tables "
+        "WHERE table_schema = 'public' AND table_type = 'BASE TABLE'"
+    ).fetchall()
+    return {str(name) for (name,) in found}
+
+
+def create_schema(conn: psycopg.Connection[Any], zone: ZoneInfo, base_currency: str) -> int:
+    """Make a book's tables in the empty database ``conn`` has open, inside the transaction the
+    caller holds: every section, then the version, the desk zone and the first base currency.
+    Refuses a database that holds any table. Returns the version made."""
+    tables = book_tables(conn)
+    if tables:
+        raise StoreError(
+            "the PostgreSQL database is not empty (it holds "
+            f"{', '.join(sorted(tables)[:5])}): a book is made only in an empty database"
+        )
+    sections = pg_sections()
+    for version in sorted(sections):
+        conn.execute(sections[version].encode("utf-8"))
+    version = max(sections)
+    conn.execute(
+        "INSERT INTO blotter_meta (only_row, application_id, schema_version) "
+        "VALUES (1, %s, %s)",
+        (0x426C7472, version),
+    )
+    conn.execute("INSERT INTO book_zone (only_row, zone) VALUES (1, %s)", (zone.key,))
+    conn.execute(
+        "INSERT INTO base_currency (base_id, currency) VALUES (1, %s)", (base_currency,)
+    )
+    return version
+
+
+@contextmanager
+def listening(url: str) -> Iterator[ChangeListener]:
+    """A ``ChangeListener`` on its own connection, closed when the block ends."""
+    conn = connect(url, autocommit=True)
+    try:
+        conn.execute(f"LISTEN {CHANNEL}")
+        yield ChangeListener(conn)
+    finally:
+        conn.close()
+
+
+class ChangeListener:
+    """Commits to a PostgreSQL book, as the server announces them (LISTEN/NOTIFY)."""
+
+    def __init__(self, conn: psycopg.Connection[Any]) -> None:
+        self._conn = conn
+        self.commits_seen = 0
+
+    def wait(self, timeout_s: float) -> bool:
+        """Wait up to ``timeout_s`` for a commit's notification; whether one came (all that
+        arrived meanwhile are taken, so a burst of commits counts as one refresh)."""
+        got = False
+        for _note in self._conn.notifies(timeout=timeout_s, stop_after=1):
+            got = True
+        if got:
+            for _note in self._conn.notifies(timeout=0):
+                pass
+            self.commits_seen += 1
+        return got
