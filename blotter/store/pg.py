@@ -14,6 +14,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
+from urllib.parse import urlsplit, urlunsplit
 from zoneinfo import ZoneInfo
 
 from blotter.store.errors import StoreError
@@ -33,6 +34,15 @@ WRITER_ROLE = "blotter_writer"
 
 READER_ROLE = "blotter_reader"
 """The group role that only reads (viewers')."""
+
+PG_ONLY_TABLES = frozenset({"blotter_meta"})
+"""Tables only a PostgreSQL book has: its id and schema version (SQLite keeps them in PRAGMAs)."""
+
+NOT_OPENED = (
+    "a PostgreSQL book is copied to and from with `blotter copy SRC DST`; the app and the other "
+    "commands open book files only in this version"
+)
+"""Why ``open_store`` refuses a URL."""
 
 INSTALL_HINT = "PostgreSQL books need psycopg: pip install 'blotter[postgres]'"
 
@@ -147,3 +157,15 @@ class ChangeListener:
                 pass
             self.commits_seen += 1
         return got
+
+
+def shown(book: str) -> str:
+    """``book`` as it may be printed: a URL's password replaced by ``***``, a path as it is."""
+    if not is_url(book):
+        return book
+    parts = urlsplit(book)
+    if parts.password is None:
+        return book
+    user = parts.username or ""
+    host = parts.netloc.rsplit("@", 1)[1]
+    return urlunsplit(parts._replace(netloc=f"{user}:***@{host}"))

@@ -25,9 +25,6 @@ T0 = "2026-11-30T15:00:00.000000Z"
 SQLITE_TYPES = {"INTEGER": "bigint", "REAL": "double precision", "TEXT": "text"}
 """The PostgreSQL type of each STRICT SQLite column type (schema_pg.sql says why)."""
 
-PG_ONLY = {"blotter_meta"}
-"""Tables only the PostgreSQL book has: its id and version (SQLite keeps them in PRAGMAs)."""
-
 
 def _as(pg_server: PgServer, url: str, role: str) -> Any:
     """A connection to the database of ``url`` as the login role ``role``."""
@@ -87,7 +84,7 @@ def test_both_schemas_define_the_same_tables_and_columns(pg_book: str, tmp_path:
         ):
             server.setdefault(table, []).append((col, typ, nullable == "NO"))
         version = pg.schema_version(conn)
-    assert set(server) - PG_ONLY == set(lite)
+    assert set(server) - pg.PG_ONLY_TABLES == set(lite)
     assert {t: server[t] for t in lite} == lite
     assert version == max(pg.pg_sections()) == SCHEMA_VERSION
 
