@@ -10,6 +10,8 @@ server enforces what the SQLite file's triggers do, and privileges besides: see 
 from __future__ import annotations
 
 import re
+import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -169,3 +171,45 @@ def shown(book: str) -> str:
     user = parts.username or ""
     host = parts.netloc.rsplit("@", 1)[1]
     return urlunsplit(parts._replace(netloc=f"{user}:***@{host}"))
+
+
+STOP_CHECK_S = 0.5
+"""How often a watch waiting for a commit looks at its stop event, seconds."""
+
+
+def _woken(listener: ChangeListener, stop: threading.Event, interval_s: float) -> bool:
+    """Wait up to ``interval_s`` for a commit, in slices so ``stop`` ends the wait soon; whether
+    a commit came."""
+    deadline = time.monotonic() + interval_s
+    while not stop.is_set():
+        left = deadline - time.monotonic()
+        if left <= 0:
+            return False
+        if listener.wait(min(left, STOP_CHECK_S)):
+            return True
+    return False
+
+
+def changes(url: str, stop: threading.Event, interval_s: float) -> Iterator[int | None]:
+    """A count of the commits announced to the book ``url``: at once when listening starts, then
+    at each commit and at least once every ``interval_s`` until ``stop`` is set
+    (``Store.changes``'s protocol, woken by LISTEN/NOTIFY instead of a poll). None for a tick
+    when the server could not be reached; the count then moves on once listening again, since
+    commits may have been missed meanwhile."""
+    import psycopg
+
+    seen, lost = 0, False
+    while not stop.is_set():
+        try:
+            with listening(url) as listener:
+                if lost:
+                    seen, lost = seen + 1, False
+                yield seen
+                while not stop.is_set():
+                    if _woken(listener, stop, interval_s):
+                        seen += 1
+                    yield seen
+        except (psycopg.Error, StoreError):
+            lost = True
+            yield None
+            stop.wait(interval_s)

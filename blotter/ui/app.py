@@ -533,7 +533,8 @@ class BlotterApp(App[None]):
         description="watch the book file for commits",
     )
     def watch_store(self, interval_s: float) -> None:
-        """Every ``interval_s`` ask SQLite's data version through this thread's own Store."""
+        """Every ``interval_s`` take the book's change counter (``Store.changes``) through this
+        thread's own Store."""
         from blotter import store
 
         worker = get_current_worker()
@@ -548,10 +549,10 @@ class BlotterApp(App[None]):
         except Exception:  # noqa: BLE001 - a busy file: the first tick takes the baseline
             last = None
         try:
-            while not worker.is_cancelled and not self._stop_watch.wait(interval_s):
-                try:
-                    version = int(st.data_version())
-                except Exception:  # noqa: BLE001 - a busy or vanished file: try again next time
+            for version in st.changes(self._stop_watch, interval_s):
+                if worker.is_cancelled:
+                    break
+                if version is None:  # a busy or vanished file: try again next time
                     continue
                 if last is not None and version != last:
                     self.post_message(StoreChanged(version))
