@@ -118,9 +118,11 @@ def running_server() -> Iterator[PgServer]:
             check=True, capture_output=True, **run_as,
         )
         # fsync off: the tests kill clients, never the server, so its durability is not tested.
+        # A short deadlock_timeout: the control test's colliding writers are found out quickly.
         proc = subprocess.Popen(
             [str(bin_dir / "postgres"), "-D", str(data), "-k", str(sock),
-             "-c", "listen_addresses=", "-c", "fsync=off", "-c", "max_connections=60"],
+             "-c", "listen_addresses=", "-c", "fsync=off", "-c", "max_connections=60",
+             "-c", "deadlock_timeout=100ms"],
             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, **run_as,
         )
         server = PgServer(sock)

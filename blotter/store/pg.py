@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit, urlunsplit
 from zoneinfo import ZoneInfo
 
+from blotter.store.db import APPLICATION_ID
 from blotter.store.errors import StoreError
 from blotter.store.files import packaged_file
 
@@ -121,12 +122,39 @@ def create_schema(conn: psycopg.Connection[Any], zone: ZoneInfo, base_currency: 
     conn.execute(
         "INSERT INTO blotter_meta (only_row, application_id, schema_version) "
         "VALUES (1, %s, %s)",
-        (0x426C7472, version),
+        (APPLICATION_ID, version),
     )
     conn.execute("INSERT INTO book_zone (only_row, zone) VALUES (1, %s)", (zone.key,))
     conn.execute(
         "INSERT INTO base_currency (base_id, currency) VALUES (1, %s)", (base_currency,)
     )
+    return version
+
+
+def migrate(conn: psycopg.Connection[Any], sections: dict[int, str] | None = None) -> int:
+    """Run each section of ``schema_pg.sql`` (or ``sections``) above the database's version,
+    each in one transaction with the version it reaches, so an upgrade stopped midway leaves
+    the last version whole and a rerun finishes it; returns the version reached. ``conn`` has
+    no transaction open."""
+    import psycopg
+
+    if sections is None:
+        sections = pg_sections()
+    version = schema_version(conn)
+    conn.rollback()
+    if version is None:
+        raise StoreError("the PostgreSQL database holds no blotter book")
+    for number in sorted(n for n in sections if n > version):
+        try:
+            with conn.transaction():
+                conn.execute(sections[number].encode("utf-8"))
+                conn.execute("UPDATE blotter_meta SET schema_version = %s", (number,))
+        except psycopg.Error as exc:
+            raise StoreError(
+                f"upgrading the PostgreSQL book to schema {number} failed ({str(exc).strip()}); "
+                f"it is left at schema {version}, whole"
+            ) from None
+        version = number
     return version
 
 

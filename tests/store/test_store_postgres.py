@@ -261,3 +261,19 @@ def test_sqlite_and_postgres_number_rows_alike(pg_book: str, tmp_path: Path) -> 
         conn.execute("INSERT INTO book (name) VALUES ('b')")
         got_pg = conn.execute("SELECT book_id, name FROM book ORDER BY book_id").fetchall()
     assert got_lite == got_pg == [(7, "a"), (8, "b")]
+
+
+def test_an_upgrade_runs_each_newer_section_in_its_own_transaction(pg_book: str) -> None:
+    """Sections above the book's version run in order, each committed with its version; one that
+    fails leaves the book whole at the version before it."""
+    sections = {
+        **pg.pg_sections(),
+        SCHEMA_VERSION + 1: "CREATE TABLE later_table (a bigint);",
+        SCHEMA_VERSION + 2: "CREATE TABLE never_made (a bigint); SELECT 1 / 0;",
+    }
+    with pg.connect(pg_book) as conn:
+        with pytest.raises(StoreError, match=f"left at schema {SCHEMA_VERSION + 1}"):
+            pg.migrate(conn, sections)
+        assert pg.schema_version(conn) == SCHEMA_VERSION + 1
+        assert "later_table" in pg.book_tables(conn)
+        assert "never_made" not in pg.book_tables(conn)
