@@ -87,9 +87,9 @@ def read_book(source: str) -> dict[str, Table]:
     """Every row of the book ``source`` (a file or a ``postgresql://`` URL), read in one
     snapshot."""
     if pg.is_url(source):
+        conn = pg.connect(source)  # says how to install psycopg when it is missing
         import psycopg
 
-        conn = pg.connect(source)
         try:
             conn.isolation_level = psycopg.IsolationLevel.REPEATABLE_READ
             conn.read_only = True

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 import sqlite3
+import sys
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -129,3 +130,16 @@ def test_other_commands_refuse_a_postgres_url_in_words() -> None:
     result = CliRunner().invoke(main, ["--db", "postgresql://me@dbhost/book", "trade", "list"])
     assert result.exit_code == 1
     assert "blotter copy" in result.output and "no book at" not in result.output
+
+
+@pytest.mark.parametrize("side", ["source", "dest"])
+def test_without_psycopg_a_copy_says_how_to_install_it(
+    side: str, demo_db: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setitem(sys.modules, "psycopg", None)  # import psycopg now fails
+    url = "postgresql://me@dbhost/book"
+    src, dst = (url, str(tmp_path / "out.db")) if side == "source" else (str(demo_db), url)
+    result = CliRunner().invoke(main, ["copy", src, dst])
+    assert result.exit_code == 1
+    assert "pip install 'blotter[postgres]'" in result.output
+    assert not (tmp_path / "out.db").exists()
