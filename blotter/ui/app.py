@@ -542,14 +542,12 @@ class BlotterApp(App[None]):
             st = store.open_store(self.db_path, read_only=True)
         except Exception:  # noqa: BLE001 - no watching without a readable file; loading says why
             return
-        last: int | None = None
         try:
-            # The baseline is taken at once, so a commit before the first tick is still seen.
-            last = int(st.data_version())
-        except Exception:  # noqa: BLE001 - a busy file: the first tick takes the baseline
-            last = None
-        try:
-            for version in st.changes(self._stop_watch, interval_s):
+            ticks = st.changes(self._stop_watch, interval_s)
+            # The baseline is taken at once, so a commit before the first tick is still seen;
+            # None (a busy file): the first tick takes the baseline.
+            last = next(ticks, None)
+            for version in ticks:
                 if worker.is_cancelled:
                     break
                 if version is None:  # a busy or vanished file: try again next time
