@@ -3,7 +3,8 @@
 ``demo_db`` is built once per test session by ``blotter.store.demo.build_demo`` (the same
 contents as the shipped ``demo.db``; ``tests/store/test_store_demo.py`` checks that) and copied
 for each test, so a test may write to its copy freely. ``tmp_book`` is an empty book (schema only).
-``as_other_user`` runs ``blotter`` where file permissions apply (see its docstring).
+``as_other_user`` runs ``blotter`` where file permissions apply (see its docstring). ``pg_server``
+is a private PostgreSQL server for the session and ``pg_url`` a new database on it.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
+from pg_server import PgServer, running_server, why_absent
 
 from blotter.store import FILE_MODE, create_store
 from blotter.store.demo import build_demo
@@ -127,3 +129,20 @@ def as_other_user(shared_dir: Path) -> RunAs:
         )
 
     return run
+
+
+@pytest.fixture(scope="session")
+def pg_server() -> Iterator[PgServer]:
+    """A private PostgreSQL server for the session (``tests/pg_server.py``), on a Unix socket in
+    a temporary folder; skipped, saying why, where PostgreSQL or psycopg is absent."""
+    why = why_absent()
+    if why is not None:
+        pytest.skip(why)
+    with running_server() as server:
+        yield server
+
+
+@pytest.fixture
+def pg_url(pg_server: PgServer) -> str:
+    """The URL of a new, empty database on the session's server, as its superuser."""
+    return pg_server.url(pg_server.new_database())

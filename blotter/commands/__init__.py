@@ -8,7 +8,8 @@ from types import ModuleType
 import click
 
 COMMAND_MODULES = (
-    "bench", "store_cmds", "setup_cmds", "report", "demo_cmd", "feed_cmd", "hedge_cmd"
+    "bench", "store_cmds", "setup_cmds", "report", "demo_cmd", "feed_cmd", "hedge_cmd",
+    "copy_cmd",
 )
 """Modules that define ``COMMANDS``: a list of click commands or groups to add to the group."""
 

@@ -9,7 +9,7 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 from blotter import calendar as cal
-from blotter.store import db
+from blotter.store import db, pg
 from blotter.store.checks import check_currency
 from blotter.store.errors import (
     NotWritableError,
@@ -53,6 +53,8 @@ def open_store(
     for a missing, empty, foreign, damaged or special file; ``NotWritableError`` when a
     read-write open meets a book this user cannot write.
     """
+    if pg.is_url(str(path)):
+        raise StoreError(pg.NOT_OPENED)
     p = Path(path)
     zone = desk_tz or cal.desk_tz()
     exists = check_book_path(p)

@@ -232,6 +232,21 @@ class StoreCore:
         except sqlite3.Error as exc:
             raise sql_error(exc, self.path) from None
 
+    def changes(self, stop: threading.Event, interval_s: float) -> Iterator[int | None]:
+        """The book's change counter (``data_version``) at once, then every ``interval_s`` until
+        ``stop`` is set; None for a tick when the book could not be read (busy or gone).
+
+        A viewer refreshes when the counter differs from the last it saw. SQLite announces no
+        commit to other processes, so the file is asked at each tick; a PostgreSQL book's
+        counterpart is ``blotter.store.pg.changes``, which wakes at the commit itself."""
+        while True:
+            try:
+                yield self.data_version()
+            except StoreError:
+                yield None
+            if stop.wait(interval_s):
+                return
+
     def schema_version(self) -> int:
         """The file's ``PRAGMA user_version``."""
         return int(db.scalar(self._conn(), "PRAGMA user_version"))

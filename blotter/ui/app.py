@@ -533,7 +533,8 @@ class BlotterApp(App[None]):
         description="watch the book file for commits",
     )
     def watch_store(self, interval_s: float) -> None:
-        """Every ``interval_s`` ask SQLite's data version through this thread's own Store."""
+        """Every ``interval_s`` take the book's change counter (``Store.changes``) through this
+        thread's own Store."""
         from blotter import store
 
         worker = get_current_worker()
@@ -541,17 +542,15 @@ class BlotterApp(App[None]):
             st = store.open_store(self.db_path, read_only=True)
         except Exception:  # noqa: BLE001 - no watching without a readable file; loading says why
             return
-        last: int | None = None
         try:
-            # The baseline is taken at once, so a commit before the first tick is still seen.
-            last = int(st.data_version())
-        except Exception:  # noqa: BLE001 - a busy file: the first tick takes the baseline
-            last = None
-        try:
-            while not worker.is_cancelled and not self._stop_watch.wait(interval_s):
-                try:
-                    version = int(st.data_version())
-                except Exception:  # noqa: BLE001 - a busy or vanished file: try again next time
+            ticks = st.changes(self._stop_watch, interval_s)
+            # The baseline is taken at once, so a commit before the first tick is still seen;
+            # None (a busy file): the first tick takes the baseline.
+            last = next(ticks, None)
+            for version in ticks:
+                if worker.is_cancelled:
+                    break
+                if version is None:  # a busy or vanished file: try again next time
                     continue
                 if last is not None and version != last:
                     self.post_message(StoreChanged(version))
