@@ -852,15 +852,20 @@ def _move_csv_rows(res: MoveResult) -> list[list[Any]]:
     ]
 
 
-def _move_json(res: MoveResult, ccy_of: dict[str, str]) -> dict[str, Any]:
-    """A what-if's JSON keys after the header: the move, the totals, each underlying, expiring
+def _move_json(res: MoveResult, ccy_of: dict[str, str], v: BookValuation) -> dict[str, Any]:
+    """A what-if's JSON keys after the header: the move (and in words with units, and the
+    large-move warning, on the valued book ``v``), the totals, each underlying, expiring
     options (``ccy_of``: each symbol's currency), the vol rule and the notes."""
     from blotter import calendar as cal
+    from blotter.desk import session
 
+    said = session.move_words(v, res.move)
     return {
         "after": cal.iso(res.time_after),
         "roll_years": res.roll_years,
         "move": res.move.as_dict(),
+        "move_words": said.words,
+        "warning": said.warning or None,
         "total": res.total.as_dict()
         | {"by_currency": {r.currency: r.as_dict() for r in res.by_currency}},
         "by_underlying": [r.as_dict() for r in res.by_underlying],
@@ -938,8 +943,7 @@ def whatif(
     if said.warning:
         click.echo(f"blotter: warning: {said.warning}", err=True)
     if as_json:
-        words = {"move_words": said.words, "warning": said.warning or None}
-        print_json(_header(v) | _move_json(res, ccy_of) | words | _unvalued_json(v.unvalued))
+        print_json(_header(v) | _move_json(res, ccy_of, v) | _unvalued_json(v.unvalued))
         return
     if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
@@ -1093,7 +1097,7 @@ def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) ->
             "source": s.source,
             "scenarios": [
                 {"name": row.name, "text": row.text, "worst": run.worst_in(i)}
-                | _move_json(row.result, ccy_of)
+                | _move_json(row.result, ccy_of, v)
                 for i, row in enumerate(run.rows)
             ],
             "worst": {ccy: run.rows[i].name for ccy, i in run.worst.items()},
