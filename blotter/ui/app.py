@@ -481,6 +481,8 @@ class BlotterApp(App[None]):
         self.start_profile()
         if self.timings.count(Timing.FIRST_PAINT) == 0:
             self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
+        version = state.valuation.market.version
+        self.call_after_refresh(lambda: self.timings.stamp(Timing.BOOK_PAINTED, version))
 
     def _note_lower_bounds(self, notes: tuple[str, ...]) -> None:
         """Tell the user, once per change, which American positions are valued at a lower bound
