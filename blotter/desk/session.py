@@ -141,6 +141,22 @@ def revalue_due(valued_at: datetime, now: datetime) -> bool:
     return int(now.timestamp() // step) > int(valued_at.timestamp() // step)
 
 
+def valuation_instant(previous: Session | None, now: datetime) -> datetime:
+    """The instant a new load of the book is valued at: ``previous``'s while ``now`` is still in
+    its minute (``revalue_due``), else ``now``.
+
+    Screens show the valuation time in whole minutes, so within one the picture is the same;
+    and at the same instant every time to expiry and rate is the same to the bit, so a load
+    under a feed finds every American boundary solved (``BoundaryCache`` keys hold them
+    exactly) instead of solving them all again each second."""
+    if previous is None:
+        return now
+    held = previous.valuation_time
+    if held <= now and not revalue_due(held, now):
+        return held
+    return now
+
+
 def model_price(
     live: Book, market: Market, contract: ContractRecord, at: datetime, tz: ZoneInfo
 ) -> float | None:

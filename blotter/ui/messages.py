@@ -35,9 +35,12 @@ class WorkerResult(Message):
 
 @dataclass
 class BookLoaded(WorkerResult):
-    """The book, marks and base valuation, read and computed in a worker."""
+    """The book, marks and base valuation, read and computed in a worker; ``stream`` when the
+    load followed others' commits or the clock (not the trader), whose Grid and Reval panes
+    wait for ``pane_refresh_s``."""
 
     state: BookState
+    stream: bool = False
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, BookLoaded)
@@ -93,6 +96,7 @@ class LadderReady(WorkerResult):
     days: float
     ladder: list[Ladder]
     breaches: LadderBreaches = field(default_factory=LadderBreaches)
+    state: BookState | None = None  # the load the ladders were worked out on
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)
@@ -103,10 +107,12 @@ class LadderReady(WorkerResult):
 
 @dataclass
 class ProfileReady(WorkerResult):
-    """Curves for the Reval pane."""
+    """Curves for the Reval pane; ``as_of`` the desk-local time of the store read they were
+    worked out on (``10:04:05``)."""
 
     book_seq: int
     profile: ProfileData
+    as_of: str = ""
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, ProfileReady)
