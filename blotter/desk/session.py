@@ -10,7 +10,7 @@ move's roll, how old the marks are, and the words for positions left out of a va
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Protocol
 from zoneinfo import ZoneInfo
@@ -51,6 +51,8 @@ class Loaded:
     market: Market
     data_version: int
     base_currency: str = "USD"
+    book_version: tuple[int, ...] = ()  # ``Store.book_version`` before the book was read
+    asked: str | None = None  # the book asked for (None: every book)
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
@@ -64,7 +66,23 @@ def read(source: BookSource, book: str | None = None) -> Loaded:
         source.load_market(),
         int(source.data_version()),
         str(source.base_currency()),
+        asked=book,
     )
+
+
+def read_again(st: Store, book: str | None, previous: Loaded | None) -> Loaded:
+    """``read`` from the store ``st``, keeping ``previous``'s book (the same object) when it was
+    of the same ``book`` and ``Store.book_version`` is unchanged: under a feed only marks move,
+    so only they, the data version and the base currency are read afresh."""
+    version = st.book_version()
+    if previous is not None and previous.asked == book and previous.book_version == version:
+        return replace(
+            previous,
+            market=st.load_market(),
+            data_version=int(st.data_version()),
+            base_currency=str(st.base_currency()),
+        )
+    return replace(read(st, book), book_version=version)
 
 
 @dataclass(frozen=True, repr=False)

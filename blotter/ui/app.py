@@ -207,6 +207,7 @@ class BlotterApp(App[None]):
         self._ladder_seq = -1  # book_seq of the grid last started: only its result is shown
         self._profile_seq = -1  # the same for the Reval pane's curves
         self._profile_behind = False  # the Reval pane, hidden, skipped a stream's refresh
+        self._read: session.Loaded | None = None  # the load worker's last read (book kept)
         self._stop_watch = threading.Event()
         self._compiling = False
         self._lower_notes: list[str] = []
@@ -385,7 +386,8 @@ class BlotterApp(App[None]):
             else:
                 with self.open_store() as st:
                     names = tuple(st.book_names())
-                    loaded = session.read(st, books.check_book(st, name))
+                    loaded = session.read_again(st, books.check_book(st, name), self._read)
+                    self._read = loaded
                     self.post_message(LoadProgress(1))
                     valued = session.value(
                         loaded, at, self.tz, trials=trials, boundaries=previous

@@ -273,3 +273,27 @@ def test_the_price_rule_in_numbers() -> None:
         "(more than 50% of it)"
     )
     assert entry.price_question(1.23, None, "F") == ""  # not valued: nothing to compare with
+
+
+def test_reading_again_keeps_the_book_until_something_it_is_read_from_changes(
+    xyz_db: Path,
+) -> None:
+    """Under a feed only marks move: ``read_again`` keeps the book object and reads the marks
+    afresh; a trade, an underlying's correction or another book's name reads the book again."""
+    with store.open_store(xyz_db) as st:
+        first = session.read_again(st, None, None)
+        st.log_spot("XYZ", 101.0)
+        marks_only = session.read_again(st, None, first)
+        assert marks_only.book is first.book
+        assert marks_only.market.spots["XYZ"] == 101.0
+        st.add_trade("desk", "XYZ", 3, 3.0, EXPIRY, 105.0, True)
+        traded = session.read_again(st, None, marks_only)
+        assert traded.book is not marks_only.book
+        assert sorted(traded.book.quantities.tolist()) == [-5, 13]
+        st.correct_underlying("XYZ", "beta re-estimated", {"beta": 1.7})
+        corrected = session.read_again(st, None, traded)
+        assert corrected.book is not traded.book
+        assert corrected.book.underlyings.betas.tolist() == [1.7]
+        one_book = session.read_again(st, "desk", corrected)
+        assert one_book.book is not corrected.book and one_book.asked == "desk"
+        assert session.read_again(st, "desk", one_book).book is one_book.book
