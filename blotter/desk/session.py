@@ -128,12 +128,16 @@ def value(
     trials: Sequence[TrialTrade] = (),
     vega_unit: str = "pt",
     boundaries: BoundaryCache | None = None,
+    previous: Session | None = None,
 ) -> Session:
     """Value ``loaded`` with ``trials`` layered on at ``at`` in the desk zone ``tz``.
 
     ``at`` is an aware datetime (valued to the whole second) or a UTC ``datetime64``.
     ``boundaries`` are an earlier valuation's American boundaries, reused where the inputs
     are the same (they are keyed by exact inputs, so a mark that changed only misses).
+    ``previous``, a session of the same book object valued at the same instant with every
+    position valued, is moved on instead (``risk.revalue``: only the positions of names whose
+    marks moved are valued again; the same numbers).
     """
     t: np.datetime64
     if isinstance(at, datetime):
@@ -142,9 +146,19 @@ def value(
     else:
         t, when = at, cal.to_datetime(at)
     book = trial_book(loaded.book, trials)
-    valuation = risk.value_book(
-        book, loaded.market, t, vega_unit=vega_unit, tz=tz, boundaries=boundaries
-    )
+    prior = previous.valuation if previous is not None else None
+    if (
+        prior is not None
+        and prior.book is book
+        and prior.valuation_time == t
+        and prior.vega_unit == vega_unit
+        and prior.tz == tz
+    ):
+        valuation = risk.revalue(prior, loaded.market)
+    else:
+        valuation = risk.value_book(
+            book, loaded.market, t, vega_unit=vega_unit, tz=tz, boundaries=boundaries
+        )
     return Session(valuation, loaded.data_version, when)
 
 

@@ -390,7 +390,12 @@ class BlotterApp(App[None]):
                     self._read = loaded
                     self.post_message(LoadProgress(1))
                     valued = session.value(
-                        loaded, at, self.tz, trials=trials, boundaries=previous
+                        loaded,
+                        at,
+                        self.tz,
+                        trials=trials,
+                        boundaries=previous,
+                        previous=shown.session if shown is not None else None,
                     )
                     today = self._pnl_today(st, name, valued.valuation)
             self.post_message(LoadProgress(2))
