@@ -9,7 +9,7 @@ Example file::
 
     desk_tz = "America/New_York"
     estimate_order = 2          # what the Move pane shows first: 1 or 2
-    watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
+    watch_interval_s = 0.5      # how often the app checks the file for others' commits; 0 = never
     theme = "dark"              # the app's colours: "dark" or "light" (NO_COLOR is honoured too)
     feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
     spot_stale_s = 300.0        # an intraday spot older than this is STALE in words; 0 = never
@@ -90,7 +90,7 @@ class Settings:
 
     desk_tz: str = "America/New_York"
     estimate_order: int = 2
-    watch_interval_s: float = 1.0
+    watch_interval_s: float = 0.5
     debounce_ms: float = 15.0
     ladder_spot_pcts: tuple[float, ...] = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
     ladder_vol_pts: tuple[float, ...] = (-5.0, -2.0, 0.0, 2.0, 5.0)

@@ -12,7 +12,7 @@
   saying the set was written (both stamped in ``BlotterApp.timings``), on a book with 200 mark
   points in force. Target 200 ms.
 - ``app other process's mark visible``: from another process's committed spot mark to the
-  running app (change check every ``watch_interval_s`` = 1 s, the default) holding the new spot in
+  running app (change check every ``watch_interval_s`` = 1 s) holding the new spot in
   its valued book. Target 1.5 s.
 - ``app under a feed``: the app in a child process (headless, Textual's Pilot, 80×24, the real
   clock, default settings) on a demo-style book of 10,000 option positions, 90% American, while
