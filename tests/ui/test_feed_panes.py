@@ -1,10 +1,13 @@
 """The app under a stream of others' commits (a feed): each load within a minute is valued at the
 minute's instant, so it solves no American boundary again, and the Grid and Reval panes are
 worked out again at most every ``pane_refresh_s``, catching up once the stream stops; their
-titles lead with the time of the store read their numbers come from."""
+titles lead with the time of the store read their numbers come from. The file's integrity check
+runs at the first load, when the file is replaced, and else at most every ``VERIFY_EVERY_S``."""
 
 from __future__ import annotations
 
+import os
+import shutil
 from collections.abc import AsyncIterator, Callable
 from contextlib import asynccontextmanager
 from dataclasses import replace
@@ -13,8 +16,10 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pytest
 
 from blotter import scenario, store
+from blotter.store import db as store_db
 from blotter.ui.app import BlotterApp, make_app
 from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.reval_pane import RevalPane
@@ -32,8 +37,9 @@ async def wait_for(app: BlotterApp, pilot: Any, done: Callable[[], bool], what: 
 
 
 def commit_spot(db: Path, symbol: str, factor: float) -> int:
-    """Another terminal moves ``symbol``'s spot by ``factor``; the new mark's id."""
-    writer = store.open_store(db)
+    """Another terminal moves ``symbol``'s spot by ``factor``; the new mark's id. (It opens the
+    file without the integrity check, so only the app's checks are counted where that matters.)"""
+    writer = store.open_store(db, verify=False)
     try:
         return writer.log_spot(symbol, writer.load_market().spots[symbol] * factor)
     finally:
@@ -146,3 +152,28 @@ async def test_after_the_stream_stops_the_panes_catch_up_and_say_their_time(
         expected = scenario.ladder(app.state.valuation, spot_pcts, (0.0,)).full[:, 0]
         day = f"{now[0].astimezone(app.tz).date()} full"
         np.testing.assert_allclose(reval.profile.series[day], expected, rtol=1e-9)
+
+
+async def test_the_file_is_checked_at_the_first_load_and_when_replaced_not_on_every_commit(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    checks: list[Path] = []
+    check = store_db.integrity_problems
+
+    def counted(conn: Any) -> list[str]:
+        checks.append(demo_db)
+        return check(conn)
+
+    monkeypatch.setattr(store_db, "integrity_problems", counted)
+    async with streaming(demo_db, pane_refresh_s=3600.0) as (app, pilot, _now):
+        assert len(checks) == 1, "the first load checks the file"
+        for _ in range(3):
+            await shown(app, pilot, commit_spot(demo_db, "DEMOA", 1.001))
+        assert len(checks) == 1, "a commit by another terminal is not a reason to check it all"
+        copy = demo_db.with_name("copy.db")
+        shutil.copyfile(demo_db, copy)
+        os.replace(copy, demo_db)  # another file now: checked at the next load
+        seq = app.book_seq
+        await pilot.press("r")
+        await wait_for(app, pilot, lambda: app.book_seq > seq, "the reload")
+        assert len(checks) == 2
