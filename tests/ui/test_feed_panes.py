@@ -29,7 +29,7 @@ from .conftest import FROZEN_NOW, TEST_SETTINGS, settle
 
 async def wait_for(app: BlotterApp, pilot: Any, done: Callable[[], bool], what: str) -> None:
     """Pause (a bounded number of times) until ``done()``."""
-    for _ in range(20_000):
+    for _ in range(3_000):
         if done():
             return
         await pilot.pause()
@@ -177,3 +177,20 @@ async def test_the_file_is_checked_at_the_first_load_and_when_replaced_not_on_ev
         await pilot.press("r")
         await wait_for(app, pilot, lambda: app.book_seq > seq, "the reload")
         assert len(checks) == 2
+
+
+async def test_with_a_move_in_the_bar_a_reload_redoes_the_grid(demo_db: Path) -> None:
+    """The grid follows the reloaded book with a move in the bar too (the move's day roll)."""
+    async with streaming(demo_db, pane_refresh_s=3600.0) as (app, pilot, _now):
+        await pilot.press("f2", *"spot -1% days 1")
+        await settle(app, pilot)
+        pane = app.query_one(GridPane)
+        before = pane.ladder
+        await shown(app, pilot, commit_spot(demo_db, "DEMOB", 1.01))
+        await pilot.press("enter", "r")  # the move kept, back to the book; the trader's reload
+        await wait_for(app, pilot, lambda: pane.ladder is not before, "the grid redone")
+        await settle(app, pilot)
+        assert app.state is not None and pane.days == 1.0
+        s = app.settings
+        full = scenario.ladders(app.state.valuation, s.ladder_spot_pcts, s.ladder_vol_pts, days=1)
+        np.testing.assert_allclose(np.asarray(pane.ladder.full), full[0].full, rtol=1e-12)
