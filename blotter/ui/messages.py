@@ -9,7 +9,7 @@ screen's results (``ScreenResult``) stay with the screen that posted them.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from textual.message import Message
 
@@ -41,9 +41,22 @@ class BookLoaded(WorkerResult):
 
     state: BookState
     stream: bool = False
+    explain_due: bool = False  # P&L today is to be explained from the close again (a worker)
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, BookLoaded)
+
+
+@dataclass
+class PnlExplained(WorkerResult):
+    """P&L today explained from the close again for the load ``book_seq``: the app's new base
+    to move it on from (``ui.app.PnlBase``)."""
+
+    book_seq: int
+    base: Any
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, PnlExplained)
 
 
 @dataclass

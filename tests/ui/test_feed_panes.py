@@ -21,6 +21,7 @@ import pytest
 from blotter import scenario, store
 from blotter.store import db as store_db
 from blotter.ui.app import BlotterApp, make_app
+from blotter.ui.widgets.book_table import BookTable
 from blotter.ui.widgets.grid_pane import GridPane
 from blotter.ui.widgets.reval_pane import RevalPane
 
@@ -36,10 +37,11 @@ async def wait_for(app: BlotterApp, pilot: Any, done: Callable[[], bool], what: 
     raise AssertionError(f"{what} did not happen")
 
 
-def commit_spot(db: Path, symbol: str, factor: float) -> int:
-    """Another terminal moves ``symbol``'s spot by ``factor``; the new mark's id. (It opens the
-    file without the integrity check, so only the app's checks are counted where that matters.)"""
-    writer = store.open_store(db, verify=False)
+def commit_spot(db: Path, symbol: str, factor: float, at: datetime | None = None) -> int:
+    """Another terminal moves ``symbol``'s spot by ``factor`` (its clock ``at``, else the
+    system's); the new mark's id. (It opens the file without the integrity check, so only the
+    app's checks are counted where that matters.)"""
+    writer = store.open_store(db, verify=False, clock=None if at is None else (lambda: at))
     try:
         return writer.log_spot(symbol, writer.load_market().spots[symbol] * factor)
     finally:
@@ -194,3 +196,39 @@ async def test_with_a_move_in_the_bar_a_reload_redoes_the_grid(demo_db: Path) ->
         s = app.settings
         full = scenario.ladders(app.state.valuation, s.ladder_spot_pcts, s.ladder_vol_pts, days=1)
         np.testing.assert_allclose(np.asarray(pane.ladder.full), full[0].full, rtol=1e-12)
+
+
+async def test_the_minute_s_explain_of_pnl_today_runs_beside_the_load(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Under a stream, P&L today is moved on in each load and explained from the close again
+    once a minute in a worker of its own (a load waiting on it repainted past a second), after
+    which the Book pane shows the explain, equal to ``desk.pnl_today`` from scratch."""
+    from textual.worker import get_current_worker
+
+    from blotter.desk import pnl_today as pnl
+
+    groups: list[str] = []
+    explain = pnl.pnl_today
+
+    def recorded(st: Any, at: Any, book: str | None = None) -> pnl.PnlToday:
+        groups.append(get_current_worker().group)
+        return explain(st, at, book)
+
+    monkeypatch.setattr(pnl, "pnl_today", recorded)
+    async with streaming(demo_db, pane_refresh_s=3600.0) as (app, pilot, now):
+        assert groups == ["load"] and app.pnl_base is not None
+        first = app.pnl_base
+        now[0] = FROZEN_NOW + timedelta(seconds=65)
+        await shown(app, pilot, commit_spot(demo_db, "DEMOA", 1.02, at=now[0]))
+        await wait_for(app, pilot, lambda: app.pnl_base is not first, "the explain")
+        await settle(app, pilot)
+        assert groups[0] == "load" and set(groups[1:]) == {"pnl"}, "no load explained it"
+        assert app.pnl_base is not None and app.pnl_base.explained_at == now[0]
+        assert app.state is not None
+        with store.open_store(demo_db, read_only=True) as st:
+            fresh = explain(st, app.state.valuation.valuation_time)
+        rows = [r for r in app.query_one(BookTable).visible_rows() if r.level == 1]
+        assert rows
+        for row in rows:
+            assert row.pnl_today == pytest.approx(fresh.of(row.label), rel=1e-9, abs=1e-6)
