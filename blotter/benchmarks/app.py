@@ -403,8 +403,10 @@ FEED_QUOTES_PER_S = 1_000
 FEED_WARM_S = 5.0
 """Seconds the feed runs before the app's CPU is measured (so the measure is of a stream)."""
 
-FEED_SECONDS = 25.0
-"""Seconds over which the app's CPU and the commit-to-screen delays are measured."""
+FEED_SECONDS = 60.0
+"""Seconds over which the app's CPU and the commit-to-screen delays are measured: a minute, so
+the once-a-minute work (the book valued at the next minute's instant, P&L today explained from
+the close) is in every measure once."""
 
 FEED_TAIL_S = 3.0
 """Commits this close to the end of the measure are not timed (their repaint may come after)."""
