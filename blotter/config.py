@@ -9,10 +9,11 @@ Example file::
 
     desk_tz = "America/New_York"
     estimate_order = 2          # what the Move pane shows first: 1 or 2
-    watch_interval_s = 1.0      # how often the app checks the file for others' commits; 0 = never
+    watch_interval_s = 0.5      # how often the app checks the file for others' commits; 0 = never
     theme = "dark"              # the app's colours: "dark" or "light" (NO_COLOR is honoured too)
     feed_throttle_s = 1.0       # `blotter feed` writes each underlying at most this often
     spot_stale_s = 300.0        # an intraday spot older than this is STALE in words; 0 = never
+    pane_refresh_s = 5.0        # Grid and Reval under others' commits (a feed): at most this often
     log_file = "~/blotter.log"  # warnings and errors of imports and the store, with UTC times
 
     [alerts]
@@ -89,7 +90,7 @@ class Settings:
 
     desk_tz: str = "America/New_York"
     estimate_order: int = 2
-    watch_interval_s: float = 1.0
+    watch_interval_s: float = 0.5
     debounce_ms: float = 15.0
     ladder_spot_pcts: tuple[float, ...] = (-10.0, -5.0, -2.0, -1.0, 0.0, 1.0, 2.0, 5.0, 10.0)
     ladder_vol_pts: tuple[float, ...] = (-5.0, -2.0, 0.0, 2.0, 5.0)
@@ -103,6 +104,7 @@ class Settings:
     theme: str = "dark"  # one of THEMES
     feed_throttle_s: float = 1.0  # seconds between two writes of one underlying by a feed
     spot_stale_s: float = 300.0  # an intraday spot older than this is STALE; 0 = never
+    pane_refresh_s: float = 5.0  # Grid and Reval under others' commits: at most this often
     log_file: str = ""  # append the log (imports, the store) to this file; "" = no log
     scenarios: tuple[ScenarioSetText, ...] = ()  # the settings file's [scenarios] tables
     scenarios_file: str = ""  # a TOML file of more [scenarios.NAME] tables; "" = none
@@ -346,6 +348,11 @@ def _validate(settings: Settings) -> Settings:
         raise ConfigError("feed_throttle_s must not be negative (seconds)")
     if settings.spot_stale_s < 0:
         raise ConfigError("spot_stale_s must not be negative (seconds; 0 = never stale)")
+    if not 0 <= settings.pane_refresh_s <= MAX_WATCH_INTERVAL_S:
+        raise ConfigError(
+            f"pane_refresh_s must be 0 to {MAX_WATCH_INTERVAL_S:g} (seconds; 0 = on every "
+            f"commit), not {settings.pane_refresh_s:g}"
+        )
     if settings.feed_throttle_s > MAX_WATCH_INTERVAL_S:
         raise ConfigError(
             f"feed_throttle_s must be at most {MAX_WATCH_INTERVAL_S:g} (seconds), "

@@ -604,10 +604,7 @@ def value_book(
         "gamma_cash_1pct": g["gamma"] * spot * spot * 0.01 * units,
     }
     codes, labels = expiry_buckets(book.expiries, opt, t, zone, book.expiry_dates)
-    notes: list[str] = []
-    if expired.any():
-        notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
-    notes += _american_notes(book, live, years, rate, carry)
+    notes = _valuation_notes(book, live, years, rate, carry)
     return BookValuation(
         book=book,
         market=market,
@@ -636,6 +633,101 @@ def value_book(
         tz=zone,
         boundaries=cache,
     )
+
+
+def moved_underlyings(und: Underlyings, before: Market, after: Market) -> np.ndarray:
+    """Bool (n_u,): the underlyings whose marks differ from ``before`` to ``after`` (spot, vol
+    surface, dividend yield, or the rate curve of their currency); what a position is valued
+    on comes from these alone (with the valuation time)."""
+    out = np.zeros(len(und.symbols), dtype=bool)
+    for i, (sym, ccy) in enumerate(zip(und.symbols, und.currencies, strict=True)):
+        out[i] = (
+            before.spots.get(sym) != after.spots.get(sym)
+            or before.div_yields.get(sym) != after.div_yields.get(sym)
+            or not _same_arrays(before.surfaces.get(sym), after.surfaces.get(sym))
+            or not _same_arrays(before.curves.get(ccy), after.curves.get(ccy))
+        )
+    return out
+
+
+def _same_arrays(a: object, b: object) -> bool:
+    """Whether two surfaces or two curves (or two Nones) hold the same values, NaN equal to
+    NaN (an ATM vol's strike; a surface's ``atm_strike``)."""
+    if a is None or b is None:
+        return a is b
+    fields = a.__dataclass_fields__  # type: ignore[attr-defined]
+    return type(a) is type(b) and all(
+        np.array_equal(getattr(a, f), getattr(b, f), equal_nan=True) for f in fields
+    )
+
+
+def revalue(previous: BookValuation, market: Market) -> BookValuation:
+    """``previous``'s book on ``market`` at ``previous``'s instant: the positions of the
+    underlyings whose marks moved (``moved_underlyings``) are valued again, the others' rows
+    kept, so it equals ``value_book`` of the book on ``market`` (on ``previous``'s boundaries).
+
+    Under a feed that writes a few names a second this values only those names' positions.
+    A valuation that leaves a position out for a missing mark (before or after) is done whole.
+    """
+    book, t = previous.book, previous.valuation_time
+
+    def whole(rows: Book) -> BookValuation:
+        return value_book(
+            rows,
+            market,
+            t,
+            vega_unit=previous.vega_unit,
+            t_ref_days=previous.t_ref_days,
+            tz=previous.tz,
+            boundaries=previous.boundaries,
+        )
+
+    moved = moved_underlyings(book.underlyings, previous.market, market)
+    rows = np.flatnonzero(moved[book.underlying_idx])
+    if previous.unvalued or rows.size == len(book):
+        return whole(book)
+    sub = whole(book.take(rows))
+    if sub.unvalued:
+        return whole(book)
+
+    def spliced(old: np.ndarray, new: np.ndarray) -> np.ndarray:
+        out = np.array(old, copy=True)
+        out[rows] = new
+        return read_only(out)
+
+    arrays: dict[str, Any] = {
+        name: spliced(getattr(previous, name), getattr(sub, name))
+        for name in _PER_POSITION
+        if name != "bucket_codes"  # codes into ``bucket_labels``, which hang on time alone
+    }
+    greeks = UnitGreeks(
+        **{
+            name: spliced(getattr(previous.greeks, name), getattr(sub.greeks, name))
+            for name in UnitGreeks.__dataclass_fields__
+        }
+    )
+    notes = _valuation_notes(book, arrays["live"], arrays["years"], arrays["rate"], arrays["carry"])
+    return replace(
+        previous,
+        market=market,
+        greeks=greeks,
+        underlying_spots=read_only(
+            np.where(moved, sub.underlying_spots, previous.underlying_spots)
+        ),
+        notes=tuple(notes),
+        **arrays,
+    )
+
+
+def _valuation_notes(
+    book: Book, live: np.ndarray, years: np.ndarray, rate: np.ndarray, carry: np.ndarray
+) -> list[str]:
+    """A valuation's notes: options past expiry at intrinsic, American ones at a lower bound."""
+    expired = book.is_option & ~live
+    notes = []
+    if expired.any():
+        notes.append(f"{int(expired.sum())} option position(s) past expiry valued at intrinsic")
+    return notes + _american_notes(book, live, years, rate, carry)
 
 
 LOWER_BOUND_CODES = (DOUBLE_BOUNDARY, NOT_CONVERGED)

@@ -12,17 +12,27 @@
   saying the set was written (both stamped in ``BlotterApp.timings``), on a book with 200 mark
   points in force. Target 200 ms.
 - ``app other process's mark visible``: from another process's committed spot mark to the
-  running app (change check every ``watch_interval_s`` = 1 s, the default) holding the new spot in
+  running app (change check every ``watch_interval_s`` = 1 s) holding the new spot in
   its valued book. Target 1.5 s.
+- ``app under a feed``: the app in a child process (headless, Textual's Pilot, 80×24, the real
+  clock, default settings) on a demo-style book of 10,000 option positions, 90% American, while
+  this process feeds 1,000 spot quotes a second across the book's underlyings through
+  ``desk.feed`` (written once a second, its default throttle). Two rows: the app process's CPU
+  (user + system time over wall time, in % of one core; target 25%) and the delay from each
+  batch's commit to the Book pane repainted with it (median and max; target 1 s).
 """
 
 from __future__ import annotations
 
 import asyncio
+import json
+import math
+import queue
 import resource
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -241,6 +251,7 @@ def run(quick: bool) -> list[Result]:
             "and grid drawn, demo book (target 1.5 s)",
         )
     )
+    results += _under_feed(quick)
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(tmp) / "marks.db"
         _marks_book(db, 200)
@@ -378,3 +389,211 @@ def _write_demo(path: Path) -> None:
     from blotter import demo
 
     demo.build_demo(path)
+
+
+FEED_POSITIONS = 10_000
+"""Option positions of the book the app holds under the feed."""
+
+FEED_AMERICAN_SHARE = 0.9
+"""Share of its options that are American."""
+
+FEED_QUOTES_PER_S = 1_000
+"""Spot quotes a second the feeder takes, round the book's underlyings."""
+
+FEED_WARM_S = 5.0
+"""Seconds the feed runs before the app's CPU is measured (so the measure is of a stream)."""
+
+FEED_SECONDS = 60.0
+"""Seconds over which the app's CPU and the commit-to-screen delays are measured: a minute, so
+the once-a-minute work (the book valued at the next minute's instant, P&L today explained from
+the close) is in every measure once."""
+
+FEED_TAIL_S = 3.0
+"""Commits this close to the end of the measure are not timed (their repaint may come after)."""
+
+FEED_CHILD = """
+import asyncio, sys
+from blotter.benchmarks.app import _feed_app
+asyncio.run(_feed_app(sys.argv[1]))
+"""
+"""The app's process under the feed: prints ``ready``, then follows ``start``/``stop`` lines."""
+
+
+def _cpu_s() -> float:
+    """User + system CPU seconds of this process so far, every thread included."""
+    use = resource.getrusage(resource.RUSAGE_SELF)
+    return use.ru_utime + use.ru_stime
+
+
+async def _feed_app(db_path: str) -> None:
+    """The app on ``db_path`` under a feed, in this (child) process.
+
+    Prints ``ready`` once the book, the grid and the compiled kernels are in; then a ``start``
+    line on stdin takes a CPU reading, and ``stop`` another, printing one JSON line (CPU and
+    wall seconds between them, each Book pane repaint as [newest mark id, wall clock], peak
+    RSS in MB) before it exits."""
+    from blotter import engine
+    from blotter.config import Settings
+    from blotter.ui.app import make_app
+    from blotter.ui.timings import Timing
+    from blotter.ui.widgets.grid_pane import GridPane
+
+    commands: queue.Queue[str] = queue.Queue()
+
+    def read() -> None:
+        for line in sys.stdin:
+            commands.put(line.strip())
+
+    threading.Thread(target=read, daemon=True).start()
+    offset = time.time() - time.perf_counter()
+    app = make_app(db_path, Settings())
+    async with app.run_test(size=(80, 24)) as pilot:
+        t0 = time.perf_counter()
+        while not (
+            engine.kernels_ready()
+            and app.timings.count(Timing.FIRST_PAINT)
+            and app.query_one(GridPane).ladder is not None
+        ):
+            await asyncio.sleep(0.1)
+            if time.perf_counter() - t0 > 300:
+                raise RuntimeError("the app did not show its book within 300 s")
+        await _settle(app, pilot)
+        print("ready", flush=True)
+        paints: list[tuple[int, float]] = []
+        seen = app.timings.count(Timing.BOOK_PAINTED)
+        start = (0.0, 0.0)
+        while True:
+            await asyncio.sleep(0.05)
+            if app.timings.count(Timing.BOOK_PAINTED) != seen:
+                seen = app.timings.count(Timing.BOOK_PAINTED)
+                last = app.timings.last(Timing.BOOK_PAINTED)
+                assert last is not None
+                paints.append((last.tag, last.at + offset))
+            try:
+                command = commands.get_nowait()
+            except queue.Empty:
+                continue
+            if command == "start":
+                start = (_cpu_s(), time.perf_counter())
+                paints.clear()
+            elif command == "stop":
+                cpu, wall = _cpu_s() - start[0], time.perf_counter() - start[1]
+                out = {"cpu_s": cpu, "wall_s": wall, "paints": paints, "rss_mb": _rss_mb()}
+                print(json.dumps(out), flush=True)
+                return
+
+
+def _feed_book(path: Path, n: int) -> list[tuple[str, float]]:
+    """Write the demo-style book of ``n`` options to ``path``; its (symbol, spot) pairs."""
+    from blotter import store
+    from blotter.store.demo import build_demo
+
+    build_demo(path, positions=n, american_share=FEED_AMERICAN_SHARE)
+    st = store.open_store(path, read_only=True)
+    try:
+        return sorted(st.load_market().spots.items())
+    finally:
+        st.close()
+
+
+def _feeding(
+    db_path: Path, spots: list[tuple[str, float]], child: subprocess.Popen[str], seconds: float
+) -> list[tuple[int, float]]:
+    """Feed ``FEED_QUOTES_PER_S`` quotes a second (a random walk of each spot) into
+    ``db_path`` through ``desk.feed`` for ``FEED_WARM_S`` + ``seconds``, telling ``child`` to
+    start measuring after the warm-up; returns each batch's (newest mark id, wall clock at its
+    commit)."""
+    from blotter import store
+    from blotter.config import Settings
+    from blotter.desk.feed import Feed, Quote
+
+    rng = np.random.default_rng(11)
+    symbols = [symbol for symbol, _ in spots]
+    walk = [spot for _, spot in spots]
+    st = store.open_store(db_path)
+    commits: list[tuple[int, float]] = []
+    assert child.stdin is not None
+    try:
+        feed = Feed(st, Settings().feed_throttle_s, time.monotonic, name="bench")
+        t0 = time.monotonic()
+        sent = 0
+        started = False
+        while (elapsed := time.monotonic() - t0) < FEED_WARM_S + seconds:
+            while sent < int(elapsed * FEED_QUOTES_PER_S):
+                k = sent % len(walk)
+                walk[k] = float(f"{walk[k] * math.exp(5e-4 * rng.standard_normal()):.6g}")
+                sent += 1
+                feed.take(sent, Quote(symbols[k], walk[k]))
+            if feed.flush():
+                newest = st.connection.execute("SELECT max(mark_id) FROM mark").fetchone()[0]
+                commits.append((int(newest), time.time()))
+            if not started and elapsed >= FEED_WARM_S:
+                child.stdin.write("start\n")
+                child.stdin.flush()
+                started = True
+                commits.clear()
+            time.sleep(0.002)
+    finally:
+        st.close()
+    return commits
+
+
+def _under_feed(quick: bool) -> list[Result]:
+    """The ``app under a feed`` rows (see the module docstring)."""
+    n = 2_000 if quick else FEED_POSITIONS
+    seconds = 8.0 if quick else FEED_SECONDS
+    with tempfile.TemporaryDirectory() as tmp:
+        db = Path(tmp) / "feed.db"
+        spots = _feed_book(db, n)
+        child = subprocess.Popen(
+            [sys.executable, "-c", FEED_CHILD, str(db)],
+            stdin=subprocess.PIPE,
+            stdout=subprocess.PIPE,
+            text=True,
+        )
+        assert child.stdin is not None and child.stdout is not None
+        try:
+            if child.stdout.readline().strip() != "ready":
+                raise RuntimeError("the app under the feed did not start")
+            commits = _feeding(db, spots, child, seconds)
+            ended = time.time()
+            child.stdin.write("stop\n")
+            child.stdin.flush()
+            out = json.loads(child.stdout.readline())
+            child.wait(timeout=60)
+        finally:
+            if child.poll() is None:
+                child.kill()
+    paints = sorted((int(tag), float(at)) for tag, at in out["paints"])
+    delays = []
+    for newest, committed in commits:
+        if committed > ended - FEED_TAIL_S:
+            continue
+        shown = [at for tag, at in paints if tag >= newest and at >= committed]
+        delays.append(min(shown) - committed if shown else math.inf)
+    seen = np.array([d for d in delays if math.isfinite(d)])
+    missed = len(delays) - len(seen)
+    share = 100.0 * out["cpu_s"] / out["wall_s"]
+    where = f"{n:,}-position book, {FEED_QUOTES_PER_S:,} quotes/s"
+    return [
+        Result(
+            case="app under a feed: CPU",
+            positions=n,
+            ns_per_position=float("nan"),
+            min=float("nan"),
+            max=float("nan"),
+            note=f"{share:.0f}% of one core over {out['wall_s']:.0f} s ({where}; target 25%); "
+            f"peak RSS {out['rss_mb']:.0f} MB",
+        ),
+        result_from(
+            "app under a feed: commit→book pane",
+            1,
+            seen if len(seen) else np.array([math.nan]),
+            target_ns=1e9,
+            note=f"median {np.median(seen):.2f} s, max {seen.max():.2f} s over {len(seen)} "
+            f"batches ({where}; target 1 s)"
+            + (f"; {missed} batches never shown" if missed else "")
+            if len(seen)
+            else f"no batch shown ({where})",
+        ),
+    ]

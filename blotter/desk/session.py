@@ -10,7 +10,7 @@ move's roll, how old the marks are, and the words for positions left out of a va
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Protocol
 from zoneinfo import ZoneInfo
@@ -51,6 +51,8 @@ class Loaded:
     market: Market
     data_version: int
     base_currency: str = "USD"
+    book_version: tuple[int, ...] = ()  # ``Store.book_version`` before the book was read
+    asked: str | None = None  # the book asked for (None: every book)
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
@@ -64,7 +66,23 @@ def read(source: BookSource, book: str | None = None) -> Loaded:
         source.load_market(),
         int(source.data_version()),
         str(source.base_currency()),
+        asked=book,
     )
+
+
+def read_again(st: Store, book: str | None, previous: Loaded | None) -> Loaded:
+    """``read`` from the store ``st``, keeping ``previous``'s book (the same object) when it was
+    of the same ``book`` and ``Store.book_version`` is unchanged: under a feed only marks move,
+    so only they, the data version and the base currency are read afresh."""
+    version = st.book_version()
+    if previous is not None and previous.asked == book and previous.book_version == version:
+        return replace(
+            previous,
+            market=st.load_market(),
+            data_version=int(st.data_version()),
+            base_currency=str(st.base_currency()),
+        )
+    return replace(read(st, book), book_version=version)
 
 
 @dataclass(frozen=True, repr=False)
@@ -110,12 +128,16 @@ def value(
     trials: Sequence[TrialTrade] = (),
     vega_unit: str = "pt",
     boundaries: BoundaryCache | None = None,
+    previous: Session | None = None,
 ) -> Session:
     """Value ``loaded`` with ``trials`` layered on at ``at`` in the desk zone ``tz``.
 
     ``at`` is an aware datetime (valued to the whole second) or a UTC ``datetime64``.
     ``boundaries`` are an earlier valuation's American boundaries, reused where the inputs
     are the same (they are keyed by exact inputs, so a mark that changed only misses).
+    ``previous``, a session of the same book object valued at the same instant with every
+    position valued, is moved on instead (``risk.revalue``: only the positions of names whose
+    marks moved are valued again; the same numbers).
     """
     t: np.datetime64
     if isinstance(at, datetime):
@@ -124,9 +146,19 @@ def value(
     else:
         t, when = at, cal.to_datetime(at)
     book = trial_book(loaded.book, trials)
-    valuation = risk.value_book(
-        book, loaded.market, t, vega_unit=vega_unit, tz=tz, boundaries=boundaries
-    )
+    prior = previous.valuation if previous is not None else None
+    if (
+        prior is not None
+        and prior.book is book
+        and prior.valuation_time == t
+        and prior.vega_unit == vega_unit
+        and prior.tz == tz
+    ):
+        valuation = risk.revalue(prior, loaded.market)
+    else:
+        valuation = risk.value_book(
+            book, loaded.market, t, vega_unit=vega_unit, tz=tz, boundaries=boundaries
+        )
     return Session(valuation, loaded.data_version, when)
 
 
@@ -139,6 +171,22 @@ def revalue_due(valued_at: datetime, now: datetime) -> bool:
     minutes), so a watcher asks for one revaluation a minute and none in between."""
     step = REVALUE_EVERY.total_seconds()
     return int(now.timestamp() // step) > int(valued_at.timestamp() // step)
+
+
+def valuation_instant(previous: Session | None, now: datetime) -> datetime:
+    """The instant a new load of the book is valued at: ``previous``'s while ``now`` is still in
+    its minute (``revalue_due``), else ``now``.
+
+    Screens show the valuation time in whole minutes, so within one the picture is the same;
+    and at the same instant every time to expiry and rate is the same to the bit, so a load
+    under a feed finds every American boundary solved (``BoundaryCache`` keys hold them
+    exactly) instead of solving them all again each second."""
+    if previous is None:
+        return now
+    held = previous.valuation_time
+    if held <= now and not revalue_due(held, now):
+        return held
+    return now
 
 
 def model_price(

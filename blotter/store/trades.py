@@ -451,6 +451,20 @@ class Trades(Contracts):
             )
         return int(trades or 0), int(closes or 0)
 
+    def book_version(self) -> tuple[int, ...]:
+        """The newest row of each table ``load_book`` reads a book from (trades, cancels,
+        contracts, books, underlyings and their corrections). None of them is ever updated or
+        deleted (the schema's triggers), so while this stays ``load_book`` reads the same book;
+        marks move none of it."""
+        with self._read() as conn:
+            row = conn.execute(
+                "SELECT (SELECT max(rowid) FROM trade), (SELECT max(rowid) FROM trade_cancel), "
+                "(SELECT max(rowid) FROM contract), (SELECT max(rowid) FROM book), "
+                "(SELECT max(rowid) FROM underlying), "
+                "(SELECT max(rowid) FROM underlying_correction)"
+            ).fetchone()
+        return tuple(int(x or 0) for x in row)
+
     @guard_damage
     def new_trades(
         self, after_seq: int, before_seq: int | None = None, book: str | None = None

@@ -9,6 +9,7 @@ also asks for the book to be valued again once the clock passes into a new minut
 
 from __future__ import annotations
 
+import os
 import threading
 import time
 from collections.abc import Callable, Iterator
@@ -47,6 +48,7 @@ from blotter.ui.messages import (
     LoadProgress,
     MoveApplied,
     MoveFailed,
+    PnlExplained,
     ProfileReady,
     StoreChanged,
     ValuationDue,
@@ -107,6 +109,16 @@ WIDE_WIDTH = 140
 
 PANES = ("move", "grid", "reval")
 """Panes the pane key cycles through on narrow terminals."""
+
+VERIFY_EVERY_S = 60.0
+"""The load worker's open checks the whole book file (``open_store``'s integrity check, SQLite's
+``integrity_check`` of a snapshot) at the first load, whenever the file was replaced, and else at
+most this often: under a feed the file changes every second, and the check reads all of it (86 ms
+a commit at 10k positions, about 0.7 s at 100k). The screens' opens check as before."""
+
+PANES_BUSY_RETRY_S = 0.5
+"""Under a stream of commits, a Grid or Reval refresh that finds the last one still running
+looks again after this long instead of cancelling it (so a slow grid still finishes)."""
 
 GREEKS = (
     ("pnl", "P&L", "value"),
@@ -197,6 +209,14 @@ class BlotterApp(App[None]):
         self._loading = False  # a load runs: a new request waits for it (``load_book``)
         self.pnl_base: PnlBase | None = None  # the last P&L today explained from the close
         self._load_again = False  # a load was asked for while one ran
+        self._again_by_trader = False  # ... and the trader asked for it (not only the stream)
+        self._panes_started = -float("inf")  # monotonic time the Grid and Reval were last redone
+        self._panes_timer: Timer | None = None  # a stream's Grid and Reval refresh, waiting
+        self._ladder_seq = -1  # book_seq of the grid last started: only its result is shown
+        self._profile_seq = -1  # the same for the Reval pane's curves
+        self._profile_behind = False  # the Reval pane, hidden, skipped a stream's refresh
+        self._read: session.Loaded | None = None  # the load worker's last read (book kept)
+        self._verified: tuple[tuple[int, int], float] | None = None  # file id, monotonic time
         self._stop_watch = threading.Event()
         self._compiling = False
         self._lower_notes: list[str] = []
@@ -293,6 +313,8 @@ class BlotterApp(App[None]):
         await super()._on_message(message)
 
     def on_resize(self, event: Resize) -> None:
+        if self._profile_behind and event.size.width >= WIDE_WIDTH:
+            self.start_profile()
         small = event.size.width < MIN_WIDTH or event.size.height < MIN_HEIGHT
         self.screen.set_class(small, "-too-small")
         if small:
@@ -306,20 +328,23 @@ class BlotterApp(App[None]):
             self.query_one(f"#{name}-pane").set_class(name == self.pane, "-current")
 
     # -- loading --------------------------------------------------------------------------------
-    def load_book(self) -> None:
+    def load_book(self, stream: bool = False) -> None:
         """Start reading and valuing the book; a progress bar shows if it takes over 0.5 s.
 
         While a load runs, a new request does not cancel it (under a feed committing every
         second, a load slower than a second would never finish): the running load is shown
-        when done and one more load, of everything asked for meanwhile, follows it."""
+        when done and one more load, of everything asked for meanwhile, follows it. ``stream``:
+        others' commits or the clock asked for it, not the trader (see ``_panes_after_load``)."""
         if self._loading:
             self._load_again = True
+            self._again_by_trader |= not stream
             return
         self._loading = True
         self._load_again = False
+        self._again_by_trader = False
         self._load_seq += 1
         seq = self._load_seq
-        self._load_worker()
+        self._load_worker(stream)
         self.set_timer(PROGRESS_AFTER_S, lambda: self._show_progress(seq))
 
     def _show_progress(self, seq: int) -> None:
@@ -348,7 +373,7 @@ class BlotterApp(App[None]):
         exit_on_error=False,
         description="read and value the book",
     )
-    def _load_worker(self) -> None:
+    def _load_worker(self, stream: bool) -> None:
         """Read the book and marks in this thread's own Store, value them, post ``BookLoaded``.
 
         ``desk.session`` reads and values; the trial trades held in memory are layered on.
@@ -358,27 +383,36 @@ class BlotterApp(App[None]):
         trials = [t for t in self.trial_trades.all() if name is None or t.book == name]
         names: tuple[str, ...] = ()
         today = pnl.NO_CLOSE
-        previous = self.state.valuation.boundaries if self.state is not None else None
+        explain_due = False
+        shown = self.state
+        previous = shown.valuation.boundaries if shown is not None else None
+        now = self.clock()
+        at = session.valuation_instant(shown.session if shown is not None else None, now)
         try:
             if self.loader is not None:
                 loaded = session.Loaded(*self.loader())
                 self.post_message(LoadProgress(1))
-                valued = session.value(
-                    loaded, self.clock(), self.tz, trials=trials, boundaries=previous
-                )
+                valued = session.value(loaded, at, self.tz, trials=trials, boundaries=previous)
             else:
-                with self.open_store() as st:
+                file_id, verify = self._verify_due()
+                with self.open_store(verify=verify) as st:
+                    if verify:
+                        self._verified = (file_id, time.monotonic())
                     names = tuple(st.book_names())
-                    loaded = session.read(st, books.check_book(st, name))
+                    loaded = session.read_again(st, books.check_book(st, name), self._read)
+                    self._read = loaded
                     self.post_message(LoadProgress(1))
                     valued = session.value(
-                        loaded, self.clock(), self.tz, trials=trials, boundaries=previous
+                        loaded,
+                        at,
+                        self.tz,
+                        trials=trials,
+                        boundaries=previous,
+                        previous=shown.session if shown is not None else None,
                     )
-                    today = self._pnl_today(st, name, valued.valuation)
+                    today, explain_due = self._pnl_today(st, name, valued.valuation)
             self.post_message(LoadProgress(2))
-            ages = session.spot_ages(
-                loaded.market, valued.valuation_time, self.settings.spot_stale_s
-            )
+            ages = session.spot_ages(loaded.market, now, self.settings.spot_stale_s)
             tree = data.BookTree(
                 valued.valuation,
                 self.tz,
@@ -398,37 +432,85 @@ class BlotterApp(App[None]):
             session=valued,
             tree=tree,
             books=names,
+            read_at=now,
         )
         if not worker.is_cancelled:
-            self.post_message(BookLoaded(state))
+            self.post_message(BookLoaded(state, stream, explain_due))
 
-    def _pnl_today(self, st: Store, name: str | None, valuation: BookValuation) -> pnl.PnlToday:
-        """P&L today of the book in view; a failure is said in the P&L's words, never raised,
-        so the rest of the book still loads.
+    def _pnl_today(
+        self, st: Store, name: str | None, valuation: BookValuation
+    ) -> tuple[pnl.PnlToday, bool]:
+        """P&L today of the book in view, and whether it is due to be explained again from the
+        close (``PNL_EXPLAIN_EVERY``) in a worker of its own (``_explain_pnl``); a failure is
+        said in the P&L's words, never raised, so the rest of the book still loads.
 
-        Explained from the close when a trade, cancel or close was written since the last one
-        (or a minute has passed, or marks are missing); else moved on from the last one by the
-        change of the positions' marked values (``pnl.advanced``), which under a feed saves an
-        explain (a revaluation at the close) on every commit."""
+        Explained here from the close when a trade, cancel or close was written since the last
+        one (or marks are missing); else moved on from the last one by the change of the
+        positions' marked values (``pnl.advanced``), which under a feed saves an explain (a
+        revaluation at the close, 0.7 s at 10k positions) in the load of every commit."""
         at_time = self.clock()
-        at = np.datetime64(at_time.astimezone(UTC).replace(tzinfo=None), "s")
+        at = valuation.valuation_time  # explained to the instant the book is valued at
         try:
             key = (name, st.positions_seq())
             values = pnl.marked_values(valuation)
             base = self.pnl_base
-            if (
-                base is not None
-                and base.key == key
-                and not valuation.partial
-                and at_time - base.explained_at < PNL_EXPLAIN_EVERY
-            ):
-                return pnl.advanced(base.pnl, base.values, values)
+            if base is not None and base.key == key and not valuation.partial:
+                due = at_time - base.explained_at >= PNL_EXPLAIN_EVERY
+                return pnl.advanced(base.pnl, base.values, values), due
             today = pnl.pnl_today(st, at, name)
             self.pnl_base = PnlBase(key, today, values, at_time)
-            return today
+            return today, False
         except Exception as exc:  # noqa: BLE001 - shown beside the book, not raised
             self.pnl_base = None
-            return pnl.PnlToday(None, words=f"P&L today not worked out: {exc}")
+            return pnl.PnlToday(None, words=f"P&L today not worked out: {exc}"), False
+
+    @work(
+        thread=True,
+        exclusive=True,
+        group="pnl",
+        exit_on_error=False,
+        description="explain P&L today from the close",
+    )
+    def _explain_pnl(self, name: str | None, state: data.BookState) -> None:
+        """P&L today of ``state``'s book explained from the close again (``desk.pnl_today``),
+        posted as the new base to move it on from (``PnlExplained``); dropped when a trade,
+        cancel or close was written since the load, whose next load explains it anyway."""
+        base = self.pnl_base
+        if base is None:
+            return
+        try:
+            with self.open_store(read_only=True, verify=False) as st:
+                if (name, st.positions_seq()) != base.key:
+                    return
+                today = pnl.pnl_today(st, state.valuation.valuation_time, name)
+        except Exception:  # noqa: BLE001 - the advanced P&L stays; the next load tries again
+            return
+        values = pnl.marked_values(state.valuation)
+        self.post_message(
+            PnlExplained(state.book_seq, PnlBase(base.key, today, values, self.clock()))
+        )
+
+    def on_pnl_explained(self, message: PnlExplained) -> None:
+        """Take the new explain as the base to move P&L today on from, and show the shown load's
+        P&L from it at once (moved on to that load's values when it is a later one)."""
+        base = self.pnl_base = message.base
+        state = self.state
+        if state is None or state.valuation.partial or state.tree.pnl.close_id is None:
+            return
+        today = base.pnl
+        if message.book_seq != state.book_seq:
+            today = pnl.advanced(base.pnl, base.values, pnl.marked_values(state.valuation))
+        old = state.tree
+        state.tree = data.BookTree(
+            state.valuation,
+            self.tz,
+            self._row_alert,
+            today,
+            base=old.base,
+            spot_ages=old.spot_ages,
+        )
+        self.query_one(BookTable).show(state.tree)
+        self.query_one("#book-pane").border_subtitle = _pnl_note(state.tree)
 
     def _row_alert(self, row: ExposureRow) -> str:
         """Limit breaches of a Book row in words (``desk.limits.exposure_breach``)."""
@@ -446,7 +528,7 @@ class BlotterApp(App[None]):
         """A load ended: start the one asked for while it ran, if any."""
         self._loading = False
         if self._load_again:
-            self.load_book()
+            self.load_book(stream=not self._again_by_trader)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """A load worker ended (done, failed or cancelled): after its result was shown, start
@@ -476,11 +558,15 @@ class BlotterApp(App[None]):
         text = self.query_one(MoveInput).value
         if text.strip():
             self._submit_move(text, force=True)
-        else:
-            self.start_ladder(state, 0.0)
-        self.start_profile()
+        self._panes_after_load(message.stream)
+        if message.explain_due and not any(
+            w.group == "pnl" and not w.is_finished for w in self.workers
+        ):
+            self._explain_pnl(self.book_in_view, state)
         if self.timings.count(Timing.FIRST_PAINT) == 0:
             self.call_after_refresh(lambda: self.timings.stamp(Timing.FIRST_PAINT))
+        version = state.valuation.market.version
+        self.call_after_refresh(lambda: self.timings.stamp(Timing.BOOK_PAINTED, version))
 
     def _note_lower_bounds(self, notes: tuple[str, ...]) -> None:
         """Tell the user, once per change, which American positions are valued at a lower bound
@@ -575,10 +661,10 @@ class BlotterApp(App[None]):
 
     def on_valuation_due(self, message: ValuationDue) -> None:
         """Value the book again at the clock's time (marks and trades read afresh)."""
-        self.load_book()
+        self.load_book(stream=True)
 
     def on_store_changed(self, message: StoreChanged) -> None:
-        self.load_book()
+        self.load_book(stream=True)
         for screen in self.screen_stack:
             if isinstance(screen, DeskScreen):
                 screen.store_changed()
@@ -702,7 +788,57 @@ class BlotterApp(App[None]):
         return session.roll_days(self.state.valuation, move)
 
     # -- ladder and profile ---------------------------------------------------------------------
+    def _panes_after_load(self, stream: bool) -> None:
+        """Work the Grid and Reval panes out again for the book just loaded: at once after a load
+        the trader asked for; after others' commits or the clock (``stream``, e.g. a feed) at
+        most once every ``pane_refresh_s``, the last commit of a burst included, so a feed does
+        not recompute them every second (their titles say the time their numbers are as of)."""
+        if self._panes_timer is not None:
+            if stream:
+                return  # the waiting refresh will take the newest book
+            self._panes_timer.stop()
+            self._panes_timer = None
+        wait = self.settings.pane_refresh_s - (time.monotonic() - self._panes_started)
+        if not stream or (wait <= 0 and not self._panes_busy()):
+            self._refresh_panes(stream)
+        else:
+            self._panes_timer = self.set_timer(
+                max(wait, PANES_BUSY_RETRY_S if self._panes_busy() else 0.0), self._panes_due
+            )
+
+    def _panes_busy(self) -> bool:
+        return any(w.group in ("ladder", "profile") and not w.is_finished for w in self.workers)
+
+    def _panes_due(self) -> None:
+        """A stream's waiting refresh of the Grid and Reval panes (``_panes_after_load``)."""
+        self._panes_timer = None
+        self._panes_after_load(stream=True)
+
+    def _refresh_panes(self, stream: bool) -> None:
+        """Start the grid (with the bar's day roll) and the Reval curves on the shown book; under
+        a stream the Reval pane is left until it is shown when it is hidden."""
+        if self.state is None:
+            return
+        self._panes_started = time.monotonic()
+        bar_move = self.move if self.query_one(MoveInput).value.strip() else None
+        self.start_ladder(self.state, self._roll_days(bar_move))
+        if stream and not self._reval_shown():
+            self._profile_behind = True
+        else:
+            self.start_profile()
+
+    def _reval_shown(self) -> bool:
+        """Whether the Reval pane is on screen: the current pane, or a wide terminal's."""
+        return self.pane == "reval" or self.size.width >= WIDE_WIDTH
+
+    def _as_of(self, state: data.BookState) -> str:
+        """The desk-local time (``10:04:05``) of the store read ``state`` was loaded from: the
+        Grid and Reval titles lead with it, since under a stream they may lag the Book pane."""
+        read_at = state.read_at or state.session.valuation_time
+        return f"{read_at.astimezone(self.tz):%H:%M:%S}"
+
     def start_ladder(self, state: data.BookState, days: float) -> None:
+        self._ladder_seq = state.book_seq
         self.compute_ladder(state, days)
 
     @work(
@@ -738,12 +874,16 @@ class BlotterApp(App[None]):
             cancelled=lambda: worker.is_cancelled,
         )
         if breaches is not None and not worker.is_cancelled:
-            self.post_message(LadderReady(state.book_seq, days, grids, breaches))
+            self.post_message(LadderReady(state.book_seq, days, grids, breaches, state))
 
     def on_ladder_ready(self, message: LadderReady) -> None:
-        if message.book_seq == self.book_seq:
-            partial = self.state is not None and self.state.valuation.partial
-            self.query_one(GridPane).show(message.ladder, message.days, partial)
+        """Show the grid last started (under a stream it may be of an earlier load than the
+        Book pane's, and its title says when it is as of)."""
+        if message.book_seq == self._ladder_seq:
+            state = message.state or self.state
+            partial = state is not None and state.valuation.partial
+            as_of = self._as_of(state) if state is not None else ""
+            self.query_one(GridPane).show(message.ladder, message.days, partial, as_of)
             before, self.ladder_breaches = self.ladder_breaches, message.breaches
             if message.breaches.by_underlying != before.by_underlying or message.breaches.book:
                 self.query_one(BookTable).show()
@@ -752,6 +892,8 @@ class BlotterApp(App[None]):
     def start_profile(self) -> None:
         if self.state is None:
             return
+        self._profile_seq = self.state.book_seq
+        self._profile_behind = False
         rows = None
         label = "the valued book" if self.state.valuation.partial else "book"
         if self.scope == "row":
@@ -789,11 +931,12 @@ class BlotterApp(App[None]):
                 self.post_message(LoadFailed(f"profile: {exc}"))
             return
         if not worker.is_cancelled:
-            self.post_message(ProfileReady(state.book_seq, profile))
+            self.post_message(ProfileReady(state.book_seq, profile, self._as_of(state)))
 
     def on_profile_ready(self, message: ProfileReady) -> None:
-        if message.book_seq == self.book_seq:
-            self.query_one(RevalPane).show(message.profile)
+        """Show the curves last started (as for the grid, ``on_ladder_ready``)."""
+        if message.book_seq == self._profile_seq:
+            self.query_one(RevalPane).show(message.profile, message.as_of)
 
     # -- actions ---------------------------------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
@@ -810,12 +953,26 @@ class BlotterApp(App[None]):
         """This app as the desk screens see it (``ui.host.DeskHost``)."""
         return self
 
-    def open_store(self, read_only: bool = False) -> Store:
-        """A store of the book file for the calling thread (read-only when the app is)."""
+    def open_store(self, read_only: bool = False, verify: bool = True) -> Store:
+        """A store of the book file for the calling thread (read-only when the app is);
+        ``verify``: with ``open_store``'s integrity check (see ``VERIFY_EVERY_S``)."""
         from blotter import store
 
         return store.open_store(
-            self.db_path, read_only=read_only or self.read_only, desk_tz=self.tz
+            self.db_path, read_only=read_only or self.read_only, desk_tz=self.tz, verify=verify
+        )
+
+    def _verify_due(self) -> tuple[tuple[int, int], bool]:
+        """The book file's (device, inode), and whether the load worker's open is to check it:
+        the first time, when the file was replaced, and else every ``VERIFY_EVERY_S``."""
+        try:
+            st = os.stat(self.db_path)
+        except OSError:
+            return (-1, -1), True  # the open says why it cannot read the file
+        file_id = (st.st_dev, st.st_ino)
+        last = self._verified
+        return file_id, (
+            last is None or last[0] != file_id or time.monotonic() - last[1] >= VERIFY_EVERY_S
         )
 
     def action_marks(self) -> None:
@@ -1054,6 +1211,8 @@ class BlotterApp(App[None]):
     def action_next_pane(self) -> None:
         self.pane = PANES[(PANES.index(self.pane) + 1) % len(PANES)]
         self._show_pane()
+        if self._profile_behind and self._reval_shown():
+            self.start_profile()
 
     def action_toggle_row(self) -> None:
         self.query_one(BookTable).toggle()

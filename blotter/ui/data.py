@@ -11,6 +11,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
+from datetime import datetime
 from functools import cached_property
 from typing import Any
 
@@ -452,6 +453,7 @@ class BookState:
     session: Session
     tree: BookTree
     books: tuple[str, ...] = ()  # every book of the file, for the book switch
+    read_at: datetime | None = None  # the clock when the load read the store (aware)
 
     @property
     def valuation(self) -> risk.BookValuation:

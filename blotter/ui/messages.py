@@ -9,7 +9,7 @@ screen's results (``ScreenResult``) stay with the screen that posted them.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 from textual.message import Message
 
@@ -35,12 +35,28 @@ class WorkerResult(Message):
 
 @dataclass
 class BookLoaded(WorkerResult):
-    """The book, marks and base valuation, read and computed in a worker."""
+    """The book, marks and base valuation, read and computed in a worker; ``stream`` when the
+    load followed others' commits or the clock (not the trader), whose Grid and Reval panes
+    wait for ``pane_refresh_s``."""
 
     state: BookState
+    stream: bool = False
+    explain_due: bool = False  # P&L today is to be explained from the close again (a worker)
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, BookLoaded)
+
+
+@dataclass
+class PnlExplained(WorkerResult):
+    """P&L today explained from the close again for the load ``book_seq``: the app's new base
+    to move it on from (``ui.app.PnlBase``)."""
+
+    book_seq: int
+    base: Any
+
+    def can_replace(self, message: Message) -> bool:
+        return isinstance(message, PnlExplained)
 
 
 @dataclass
@@ -93,6 +109,7 @@ class LadderReady(WorkerResult):
     days: float
     ladder: list[Ladder]
     breaches: LadderBreaches = field(default_factory=LadderBreaches)
+    state: BookState | None = None  # the load the ladders were worked out on
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, LadderReady)
@@ -103,10 +120,12 @@ class LadderReady(WorkerResult):
 
 @dataclass
 class ProfileReady(WorkerResult):
-    """Curves for the Reval pane."""
+    """Curves for the Reval pane; ``as_of`` the desk-local time of the store read they were
+    worked out on (``10:04:05``)."""
 
     book_seq: int
     profile: ProfileData
+    as_of: str = ""
 
     def can_replace(self, message: Message) -> bool:
         return isinstance(message, ProfileReady)

@@ -2,8 +2,9 @@
 
 The app and its screens stamp an instant (``time.perf_counter``) when something the bench times
 happens: the Move pane repainted with a keystroke's result, the first full screen, the key that
-confirms a close, the Marks screen repainted saying the close was written. Only the last
-``KEPT`` stamps of each kind are held, so a long session does not grow them.
+confirms a close, the Marks screen repainted saying the close was written, the Book pane
+repainted with a load. Only the last ``KEPT`` stamps of each kind are held, so a long session
+does not grow them.
 """
 
 from __future__ import annotations
@@ -24,6 +25,7 @@ class Timing(StrEnum):
     FIRST_PAINT = "first paint"
     CLOSE_KEY = "close key"
     CLOSE_PAINTED = "close painted"
+    BOOK_PAINTED = "book painted"  # tag: the newest mark id the shown book is valued on
 
 
 @dataclass(frozen=True)

@@ -14,7 +14,7 @@ from blotter.config import ConfigError, Settings, config_path, load_settings
 FILE = """
 desk_tz = "Europe/London"
 estimate_order = 1
-watch_interval_s = 0.5
+watch_interval_s = 2.0
 ladder_vol_pts = [-3, 0, 3]
 
 [alerts]

@@ -273,3 +273,55 @@ def test_the_price_rule_in_numbers() -> None:
         "(more than 50% of it)"
     )
     assert entry.price_question(1.23, None, "F") == ""  # not valued: nothing to compare with
+
+
+def test_reading_again_keeps_the_book_until_something_it_is_read_from_changes(
+    xyz_db: Path,
+) -> None:
+    """Under a feed only marks move: ``read_again`` keeps the book object and reads the marks
+    afresh; a trade, an underlying's correction or another book's name reads the book again."""
+    with store.open_store(xyz_db) as st:
+        first = session.read_again(st, None, None)
+        st.log_spot("XYZ", 101.0)
+        marks_only = session.read_again(st, None, first)
+        assert marks_only.book is first.book
+        assert marks_only.market.spots["XYZ"] == 101.0
+        st.add_trade("desk", "XYZ", 3, 3.0, EXPIRY, 105.0, True)
+        traded = session.read_again(st, None, marks_only)
+        assert traded.book is not marks_only.book
+        assert sorted(traded.book.quantities.tolist()) == [-5, 13]
+        st.correct_underlying("XYZ", "beta re-estimated", {"beta": 1.7})
+        corrected = session.read_again(st, None, traded)
+        assert corrected.book is not traded.book
+        assert corrected.book.underlyings.betas.tolist() == [1.7]
+        one_book = session.read_again(st, "desk", corrected)
+        assert one_book.book is not corrected.book and one_book.asked == "desk"
+        assert session.read_again(st, "desk", one_book).book is one_book.book
+
+
+def test_a_session_moved_on_to_one_name_s_new_spot_equals_one_valued_afresh(
+    demo_db: Path,
+) -> None:
+    """Valued at the same instant with the last session given, only the moved name's positions
+    are valued again (``risk.revalue``): the same numbers as a valuation from scratch."""
+    at = datetime(2026, 12, 1, 15, 0, tzinfo=UTC)
+    with store.open_store(demo_db) as st:
+        first = session.read_again(st, None, None)
+        before = session.value(first, at, NEW_YORK)
+        st.log_spot("DEMOA", first.market.spots["DEMOA"] * 1.03)
+        marks = session.read_again(st, None, first)
+        moved = session.value(
+            marks, at, NEW_YORK, boundaries=before.valuation.boundaries, previous=before
+        )
+        fresh = session.value(marks, at, NEW_YORK, boundaries=before.valuation.boundaries.copy())
+    assert moved.valuation.market is marks.market and moved.data_version == marks.data_version
+    for name in ("value", "delta_cash", "gamma_1pct", "vega_pt", "theta_day", "rho_pct"):
+        np.testing.assert_array_equal(
+            getattr(moved.valuation, name), getattr(fresh.valuation, name), err_msg=name
+        )
+    untouched = moved.valuation.book.underlying_idx != moved.valuation.book.underlyings.index_of(
+        "DEMOA"
+    )
+    np.testing.assert_array_equal(
+        moved.valuation.value[untouched], before.valuation.value[untouched]
+    )

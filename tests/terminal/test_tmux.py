@@ -137,7 +137,7 @@ def test_app_in_tmux_80x24(session: Tmux) -> None:
     )
 
     session.send("F7")
-    session.wait_for(lambda s: "Grid: full revaluation P&L" in s and "▼" in s, "the grid")
+    session.wait_for(lambda s: "─Grid " in s and ": full revaluation P&L" in s, "the grid")
     session.send("F1")
     session.wait_for(lambda s: "blotter help" in s and "what-if" in s, "the help screen")
     session.send("F1")

@@ -41,7 +41,8 @@ async def test_no_color_runs_and_shows_text_in_greys_only(
             assert app.no_color
             svg = app.export_screenshot()
         text = svg.replace("&#160;", " ").replace("&amp;", "&")
-        for words in ("DEMOA", "Book by underlying", "Grid: full revaluation P&L", "Reval: P&L"):
+        grid, reval = "Grid 10:00:00: full revaluation P&L", "Reval 10:00:00: P&L"
+        for words in ("DEMOA", "Book by underlying", grid, reval):
             assert words in text, (theme, words)
         colours = set(re.findall(r"(?:fill|color):\s*#([0-9a-fA-F]{6})", svg))
         assert colours, "the screenshot names its colours"

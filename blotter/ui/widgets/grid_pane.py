@@ -63,6 +63,7 @@ class GridPane(VerticalScroll):
         self.partial = False  # some positions were left out for want of a mark
         self.table: Table | None = None  # the first ladder's grid
         self.unit = ""  # the cells' unit of fmt.SCALES, so no number is cut to fit the pane
+        self.as_of = ""  # when the store was read for these numbers: "10:04:05"
 
     def on_resize(self, event: events.Resize) -> None:
         self.repaint()
@@ -79,12 +80,15 @@ class GridPane(VerticalScroll):
         yield Static("waiting for the book…", id="grid-cells")
         yield Static("", id="grid-rule")
 
-    def show(self, ladders: Sequence[Any], days: float, partial: bool = False) -> None:
+    def show(
+        self, ladders: Sequence[Any], days: float, partial: bool = False, as_of: str = ""
+    ) -> None:
         """Show one ladder per currency (``scenario.ladders``) computed with a ``days`` roll;
-        ``partial`` when they leave out positions that lack a mark."""
+        ``partial`` when they leave out positions that lack a mark; ``as_of`` says when the
+        store was read for them (the title leads with it)."""
         self.ladders = list(ladders)
         self.ladder = self.ladders[0] if self.ladders else None
-        self.days, self.partial = days, partial
+        self.days, self.partial, self.as_of = days, partial, as_of
         self.repaint()
 
     def next_grid(self) -> str:
@@ -102,7 +106,8 @@ class GridPane(VerticalScroll):
         rule = str(getattr(ladder, "rule", "") or "")
         of_valued = " of valued positions" if self.partial else ""
         per = " per currency" if several else ""
-        self.border_title = f"Grid: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
+        name = f"Grid {self.as_of}" if self.as_of else "Grid"
+        self.border_title = f"{name}: {GRID_TITLES[self.grid]}{of_valued}{per}{roll} ─ {rule}" + (
             f" ─ {WORST} worst" if worst_cell(ladder) else ""
         )
         cells = [float(x) for one in self.ladders for x in np.ravel(getattr(one, self.grid))]

@@ -90,10 +90,12 @@ class RevalPane(Vertical):
     def compose(self) -> ComposeResult:
         yield RevalChart()
 
-    def show(self, profile: ProfileData) -> None:
-        """Draw ``profile``."""
+    def show(self, profile: ProfileData, as_of: str = "") -> None:
+        """Draw ``profile``; ``as_of`` says when the store was read for it (after the pane's
+        name in the title)."""
         self.profile = profile
         chart = self.query_one(RevalChart)
         chart.profile = profile
         chart.refresh()
-        self.border_title = profile.title + (f" ─ {profile.note}" if profile.note else "")
+        title = profile.title.replace("Reval:", f"Reval {as_of}:", 1) if as_of else profile.title
+        self.border_title = title + (f" ─ {profile.note}" if profile.note else "")
