@@ -241,8 +241,11 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
             run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
                         min_split=1)
             sink(sel[b0:b1], cells, at_base)
-    served_rows = np.zeros(rows.size, dtype=bool)
-    served_rows[np.searchsorted(rows, sel)] = True
+    # which rows were served, by a mask over row indices rather than a search of ``rows``
+    # for each of ``sel`` (that search costs about 10 ms at 90k rows)
+    hit = np.zeros(int(rows[-1]) + 1, dtype=bool)
+    hit[sel] = True
+    served_rows: np.ndarray = hit[rows]
     return served_rows
 
 
