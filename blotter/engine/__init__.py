@@ -243,14 +243,17 @@ def price(is_call: object, spot: object, strike: object, years: object, rate: ob
 def american_cells(is_call: object, spot: object, strike: object, years: object, rate: object,
                    carry: object, vols: object, shocks: object, greeks: bool = False,
                    boundaries: object = None, base_vols: object = None,
-                   weights: object = None) -> tuple[np.ndarray, np.ndarray]:
+                   weights: object = None, with_base: bool = True,
+                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """American values of rows (m,) in every cell of a spot × vol grid: spot × ``shocks[i]``
     (n_s,), vol ``vols[i or 0, j, row]`` ((n_s or 1, n_v, m)); shape (1, n_s, n_v, m), or
     with ``greeks`` (5, n_s, n_v, m) = price, delta, gamma, vega, theta (units of ``Greeks``);
     and the same at the unmoved spot and ``base_vols`` (m,) (default the first vol column),
     shape (1 or 5, m), from the same tables, for P&L that is 0 where nothing moves. With
     ``weights`` (m,), their weighted sums over the rows instead, (1 or 5, n_s, n_v) and
-    (1 or 5,), in bounded memory.
+    (1 or 5,), in bounded memory. ``with_base`` False skips the values at the unmoved spot
+    (NaN); ``kept_only`` takes only boundaries and premium tables already kept in
+    ``boundaries`` and gives NaN cells when any is missing (no ``weights`` then).
 
     Each cell equals ``price``/``price_greeks`` with ``american=True`` within the method's
     accuracy, from one premium table per exercise boundary (``american_grid``) instead of one
@@ -283,7 +286,8 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
     if weights is not None:
         wt = np.broadcast_to(as_float_array("weights", weights, "finite"), (m,))
     return _american_grid.american_cells(c, s, k, t, r, b, vv, sh, greeks, _cache(boundaries),
-                                         base_vols=bv, weights=wt)
+                                         base_vols=bv, weights=wt, with_base=with_base,
+                                         kept_only=kept_only)
 
 
 def implied_vol(price: object, is_call: object, spot: object, strike: object, years: object,

@@ -251,6 +251,11 @@ class BoundaryCache:
                     self._tables.move_to_end(k)
             return out
 
+    def has_tables(self) -> bool:
+        """Whether any premium table is kept (a grid or profile of this valuation ran)."""
+        with self._lock:
+            return bool(self._tables)
+
     def drop_tables(self) -> None:
         """Forget every premium table (the boundaries stay), e.g. to time building them."""
         with self._lock:

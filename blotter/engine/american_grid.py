@@ -90,7 +90,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                    cache: american.BoundaryCache | None = None,
                    kernels: ModuleType | None = None,
                    base_vols: np.ndarray | None = None,
-                   weights: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+                   weights: np.ndarray | None = None, with_base: bool = True,
+                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
     (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
 
@@ -101,7 +102,10 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     vol column) from the same tables, so that a P&L against them is 0 where nothing moves.
     With ``weights`` (m,), the weighted sums over rows instead: (n_out, n_s, n_v) and
     (n_out,), the cells computed ``BLOCK_ROWS`` rows at a time (a few MB, however large the
-    book)."""
+    book). ``with_base`` False leaves the outputs at the unmoved spot NaN (half the work of one
+    cell per row); with ``kept_only``, rows whose boundary or tables are not already kept in
+    ``cache`` are valued cell by cell instead of building them (that costs several times a
+    quadrature per cell, so pays only over many cells)."""
     kern = american._implementation(kernels)
     w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
     s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
@@ -151,17 +155,22 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     table = ((status == american.EXERCISE_BOUNDARY) & (lo_v >= VOL_TABLE_MIN)
              & np.isfinite(hi_v) & (kern is _alo))
     rows = np.flatnonzero(table)
+    if kept_only and cache is None:
+        rows = rows[:0]
     if rows.size:
         done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                          greeks, cache, kern, n_out, base_v, sink)
+                          greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
         table[rows[~done]] = False
     rest = np.flatnonzero(~table)
     if rest.size:
         cells = np.empty((rest.size, n_out, n_s, n_v))
         at_base = np.empty((rest.size, n_out, 1, 1))
         _cell_by_cell(rest, w, s, k, t, r, b, vol_rows, shocks, greeks, cache, kern, cells)
-        _cell_by_cell(rest, w, s, k, t, r, b, base_v, np.ones(1), greeks, cache, kern,
-                      at_base)
+        if with_base:
+            _cell_by_cell(rest, w, s, k, t, r, b, base_v, np.ones(1), greeks, cache, kern,
+                          at_base)
+        else:
+            at_base.fill(np.nan)
         sink(rest, cells, at_base)
     return result()
 
@@ -171,11 +180,13 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
                hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
                greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
                n_out: int, base_v: np.ndarray,
-               sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None]) -> np.ndarray:
+               sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None],
+               with_base: bool = True, kept_only: bool = False) -> np.ndarray:
     """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
-    the unmoved spot and ``base_v``, handed to ``sink`` ``BLOCK_ROWS`` rows at a time (row
-    indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1)); returns which rows were served
-    (False where the group's boundary did not converge)."""
+    the unmoved spot and ``base_v`` (NaN unless ``with_base``), handed to ``sink``
+    ``BLOCK_ROWS`` rows at a time (row indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1));
+    returns which rows were served (False where the group's boundary did not converge, and
+    with ``kept_only`` where its boundary or a table is not kept in ``cache``)."""
     order, first = american._group(rows, key, t, r_p, q_p)
     starts = first[:-1]
     n_g = starts.size
@@ -192,6 +203,20 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     # vol nodes close enough for greeks even for prices, so that a grid's boundary also
     # serves a greek profile (one per key is kept: a price-only one would be solved again)
     span = np.concatenate([lat_first, lat_last]) * LATTICE_STEP
+    if kept_only:
+        assert cache is not None
+        kept = np.array([cache.find(float(g_r[g]), float(g_q[g]), float(g_t[g]),
+                                    float(span[g]), float(span[n_g + g]), True) is not None
+                         for g in range(n_g)], dtype=bool)
+        if not kept.all():
+            # the groups with a kept boundary only (a search of sorted rows: fast)
+            sub = np.sort(order[np.repeat(kept, counts)])
+            served_sub = np.zeros(rows.size, dtype=bool)
+            if sub.size:
+                served_sub[np.searchsorted(rows, sub)] = _tabulated(
+                    sub, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
+                    greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
+            return served_sub
     two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
     grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
                                np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
@@ -203,7 +228,9 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
                      scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
     use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
-    coef, tail = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern, cache)
+    coef, tail, missing = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern,
+                                         cache, kept_only)
+    ok &= ~missing.any(axis=1)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
@@ -223,38 +250,47 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
             b1 = min(b0 + BLOCK_ROWS, sel.size)
             cells = np.empty((b1 - b0, n_out, n_s, n_v))
             at_base = np.empty((b1 - b0, n_out, 1, 1))
+            if not with_base:
+                at_base.fill(np.nan)
             v_s = np.ascontiguousarray(vol_rows[sel[b0:b1]])
             cuts = np.arange(b0, b1, ROWS_PER_TASK)
 
             def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray],
                        b0: int = b0, b1: int = b1, cells: np.ndarray = cells,
-                       at_base: np.ndarray = at_base, v_s: np.ndarray = v_s) -> None:
+                       at_base: np.ndarray = at_base, v_s: np.ndarray = v_s,
+                       base_too: bool = with_base) -> None:
                 for a in ins[0]:
                     c = slice(int(a), int(min(a + ROWS_PER_TASK, b1)))
                     dest = np.arange(c.start - b0, c.stop - b0)
                     kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
                                     ln_shock, shocks, v_s[dest[0]:dest[-1] + 1], n_out, dest,
                                     cells)
-                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c], zero,
-                                    one, b_s[c], n_out, dest, at_base)
+                    if base_too:
+                        kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
+                                        zero, one, b_s[c], n_out, dest, at_base)
 
             run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
                         min_split=1)
             sink(sel[b0:b1], cells, at_base)
-    served_rows = np.zeros(rows.size, dtype=bool)
-    served_rows[np.searchsorted(rows, sel)] = True
+    # which rows were served, by a mask over row indices rather than a search of ``rows``
+    # for each of ``sel`` (that search costs about 10 ms at 90k rows)
+    hit = np.zeros(int(rows[-1]) + 1, dtype=bool)
+    hit[sel] = True
+    served_rows: np.ndarray = hit[rows]
     return served_rows
 
 
 def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
                    lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
-                   kern: ModuleType, cache: american.BoundaryCache | None
-                   ) -> tuple[np.ndarray, np.ndarray]:
+                   kern: ModuleType, cache: american.BoundaryCache | None,
+                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
     from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
-    another grid of the same valuation reuses it) and the others computed and kept."""
+    another grid of the same valuation reuses it) and the others computed and kept, or with
+    ``kept_only`` left 0 and marked in the third array (G, L), True where not kept."""
     if cache is None:
-        return _tables(grp, use, lat, edge, greeks, scheme, kern)
+        coef, tail = _tables(grp, use, lat, edge, greeks, scheme, kern)
+        return coef, tail, np.zeros(use.shape, dtype=bool)
     gi, ai = np.nonzero(use)
     last = grp.ns[gi] - 1
     cols = (grp.rate[gi], grp.div[gi], grp.tau[gi], grp.tmax[gi], grp.lnsig[gi, 0],
@@ -270,6 +306,8 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray
             tail[g, a] = item[1]
             coef[g, a] = item[2]
             todo[g, a] = False
+    if kept_only:
+        return coef, tail, todo
     if todo.any():
         new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
         coef[todo] = new[todo]
@@ -279,7 +317,7 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray
                                               new[g, a].copy())
                            for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
                                            strict=True)})
-    return coef, tail
+    return coef, tail, np.zeros(use.shape, dtype=bool)
 
 
 def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,

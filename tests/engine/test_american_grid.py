@@ -230,3 +230,29 @@ def test_weighted_sums_equal_the_sums_of_the_cells() -> None:
                                             boundaries=cache, weights=units)
     np.testing.assert_allclose(sums, cells @ units, rtol=1e-12, atol=1e-9)
     np.testing.assert_allclose(base_sums, base @ units, rtol=1e-12, atol=1e-9)
+
+
+
+def test_kept_only_builds_nothing_and_then_takes_the_kept_tables() -> None:
+    """``kept_only`` (the what-if's one cell per row): while no table is kept every cell is
+    valued by quadrature and no table is built; once a grid has kept them, the same cells as
+    that grid's, to the bit, with the base values left NaN when ``with_base`` is False."""
+    book = _book(9)
+    cache = engine.BoundaryCache()
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    one = book["vol"][None, None, :] + 0.02
+    cold, _ = engine.american_cells(*cols, one, np.array([0.95]), boundaries=cache,
+                                    kept_only=True)
+    assert len(cache._tables) == 0
+    exact = engine.price(cols[0], cols[1] * 0.95, *cols[2:], one[0, 0], american=True,
+                         boundaries=cache)
+    assert np.max(np.abs(cold[0, 0, 0] - exact) / cols[2]) <= 1e-12
+    vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    grid, _ = engine.american_cells(*cols, vols, 1.0 + SPOT_PCTS / 100.0, boundaries=cache)
+    kept = len(cache._tables)
+    got, base = engine.american_cells(*cols, one, np.array([0.95]), boundaries=cache,
+                                      kept_only=True, with_base=False)
+    assert len(cache._tables) == kept
+    # spot −5% and vol +2 points are a cell of the grid
+    np.testing.assert_array_equal(got[0, 0, 0], grid[0, 1, 3])
+    assert np.isnan(base).all()
