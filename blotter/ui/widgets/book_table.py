@@ -163,7 +163,10 @@ class BookTable(DataTable[str | Text]):
     def _refit(self) -> None:
         """Fit the label column to the width the rows have now: the whole pane when no
         vertical scrollbar shows, so no column's first characters show in its room."""
-        bar = self.styles.scrollbar_size_vertical if self.show_vertical_scrollbar else 0
+        # whether the rows overflow the pane now, not whether the bar was drawn at the last
+        # layout (which lags a refresh behind a change of rows or of the pane's height)
+        tall = self.virtual_size.height > self.scrollable_content_region.height
+        bar = self.styles.scrollbar_size_vertical if tall else 0
         if self.size.width:
             self.fit_label_column(self.size.width - bar)
 
