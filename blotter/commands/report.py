@@ -38,6 +38,7 @@ from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
 
 if TYPE_CHECKING:
     from blotter.desk.scenario_sets import ScenarioSet, SetRun
+    from blotter.desk.session import MoveWords
     from blotter.risk import BookValuation, ExposureRow, UnvaluedPosition
     from blotter.scenario import MoveResult
 
@@ -852,14 +853,12 @@ def _move_csv_rows(res: MoveResult) -> list[list[Any]]:
     ]
 
 
-def _move_json(res: MoveResult, ccy_of: dict[str, str], v: BookValuation) -> dict[str, Any]:
-    """A what-if's JSON keys after the header: the move (and in words with units, and the
-    large-move warning, on the valued book ``v``), the totals, each underlying, expiring
-    options (``ccy_of``: each symbol's currency), the vol rule and the notes."""
+def _move_json(res: MoveResult, ccy_of: dict[str, str], said: MoveWords) -> dict[str, Any]:
+    """A what-if's JSON keys after the header: the move (and ``said``, in words with units and
+    the large-move warning), the totals, each underlying, expiring options (``ccy_of``: each
+    symbol's currency), the vol rule and the notes."""
     from blotter import calendar as cal
-    from blotter.desk import session
 
-    said = session.move_words(v, res.move)
     return {
         "after": cal.iso(res.time_after),
         "roll_years": res.roll_years,
@@ -943,7 +942,7 @@ def whatif(
     if said.warning:
         click.echo(f"blotter: warning: {said.warning}", err=True)
     if as_json:
-        print_json(_header(v) | _move_json(res, ccy_of, v) | _unvalued_json(v.unvalued))
+        print_json(_header(v) | _move_json(res, ccy_of, said) | _unvalued_json(v.unvalued))
         return
     if as_csv or wants_xlsx():
         _say_unvalued(v.unvalued, table=False)
@@ -1088,6 +1087,8 @@ def _list_sets(sets: Sequence[ScenarioSet], as_json: bool, as_csv: bool) -> None
 def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) -> None:
     """A scenario set's table, JSON or CSV: each move's full change, estimate and error per
     currency, as ``whatif`` gives them for the move alone, each currency's worst marked."""
+    from blotter.desk import session
+
     und = v.book.underlyings
     ccy_of = dict(zip(und.symbols, und.currencies, strict=True))
     s = run.scenario_set
@@ -1097,7 +1098,7 @@ def _show_set_run(v: BookValuation, run: SetRun, as_json: bool, as_csv: bool) ->
             "source": s.source,
             "scenarios": [
                 {"name": row.name, "text": row.text, "worst": run.worst_in(i)}
-                | _move_json(row.result, ccy_of, v)
+                | _move_json(row.result, ccy_of, session.move_words(v, row.result.move))
                 for i, row in enumerate(run.rows)
             ],
             "worst": {ccy: run.rows[i].name for ccy, i in run.worst.items()},

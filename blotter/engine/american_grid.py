@@ -358,9 +358,8 @@ def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.nd
         euro = _european_puts(spot, tt, rr, qq, v, greeks)
         prem = np.empty((n_t, n_rows))
         prem[0] = np.maximum(block[0] - euro[0], 0.0)
-        if greeks:
-            for o, src in ((1, 1), (2, 2), (3, 3)):
-                prem[o] = block[src] - euro[src]
+        if greeks:  # delta, gamma, vega
+            prem[1:] = block[1:TABLE_OUTPUTS] - np.stack(euro[1:TABLE_OUTPUTS])
         # advanced indices around a slice: the indexed shape is (rows, points, n_t)
         vals[gi[:, None], ai[:, None], :, pts[None, :]] = (
             prem.reshape(n_t, gi.size, n_pts).transpose(1, 2, 0))

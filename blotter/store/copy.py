@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
 
-from blotter.store import pg
+from blotter.store import db, pg
 from blotter.store.api import create_store, open_store
 from blotter.store.db import SCHEMA_VERSION
 from blotter.store.errors import StoreError
@@ -107,8 +107,7 @@ def read_book(source: str) -> dict[str, Table]:
         finally:
             conn.close()
     with open_store(source, read_only=True) as store, store._read() as lite:
-        names = {n for (n,) in lite.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-        return _read_tables(lite, names)
+        return _read_tables(lite, set(db.utils_db(lite).table_names()))
 
 
 def _insert(conn: Any, mark: str, name: str, table: Table, rows: Sequence[tuple[Any, ...]]) -> None:

@@ -799,11 +799,12 @@ class BlotterApp(App[None]):
             self._panes_timer.stop()
             self._panes_timer = None
         wait = self.settings.pane_refresh_s - (time.monotonic() - self._panes_started)
-        if not stream or (wait <= 0 and not self._panes_busy()):
+        busy = stream and self._panes_busy()
+        if not stream or (wait <= 0 and not busy):
             self._refresh_panes(stream)
         else:
             self._panes_timer = self.set_timer(
-                max(wait, PANES_BUSY_RETRY_S if self._panes_busy() else 0.0), self._panes_due
+                max(wait, PANES_BUSY_RETRY_S if busy else 0.0), self._panes_due
             )
 
     def _panes_busy(self) -> bool:
@@ -834,8 +835,7 @@ class BlotterApp(App[None]):
     def _as_of(self, state: data.BookState) -> str:
         """The desk-local time (``10:04:05``) of the store read ``state`` was loaded from: the
         Grid and Reval titles lead with it, since under a stream they may lag the Book pane."""
-        read_at = state.read_at or state.session.valuation_time
-        return f"{read_at.astimezone(self.tz):%H:%M:%S}"
+        return f"{state.read_at.astimezone(self.tz):%H:%M:%S}"
 
     def start_ladder(self, state: data.BookState, days: float) -> None:
         self._ladder_seq = state.book_seq

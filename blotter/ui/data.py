@@ -452,8 +452,8 @@ class BookState:
     read_only: bool
     session: Session
     tree: BookTree
+    read_at: datetime  # the clock when the load read the store (aware)
     books: tuple[str, ...] = ()  # every book of the file, for the book switch
-    read_at: datetime | None = None  # the clock when the load read the store (aware)
 
     @property
     def valuation(self) -> risk.BookValuation:
