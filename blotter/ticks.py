@@ -49,3 +49,11 @@ def price_text(value: float | None, decimals: int = 2, signed: bool = False) -> 
         return "n/a"
     d = price_decimals(value, decimals)
     return f"{value:{'+' if signed else ''},.{d}f}"
+
+
+def on_tick(price: float, tick: float) -> float:
+    """``price`` rounded to the nearest multiple of ``tick`` (at least one tick), written to the
+    tick's decimals so no binary residue shows (100.07, not 100.07000000000001)."""
+    if not math.isfinite(tick) or tick <= 0:
+        raise ValueError(f"a tick must be a positive number, got {tick!r}")
+    return round(max(1, round(price / tick)) * tick, tick_decimals(tick))

@@ -23,6 +23,7 @@ from blotter.commands.common import (
 from blotter.commands.store_cmds import _store
 from blotter.config import MAX_WATCH_INTERVAL_S
 from blotter.printable import printable
+from blotter.ticks import on_tick
 
 
 def _settings_throttle() -> float:
@@ -132,7 +133,8 @@ def demo_feed(
     """Print an invented, paced JSON feed of the book's spots (a random walk from the marks in
     force), to pipe into `blotter feed`: blotter demo-feed | blotter feed.
 
-    The prices are made up for watching the app move; they are no market data.
+    Each quote is on its underlying's tick (the walk itself keeps full precision). The prices
+    are made up for watching the app move; they are no market data.
     """
     from blotter.commands.common import resolve_db
 
@@ -144,8 +146,10 @@ def demo_feed(
     store = open_for_reading(path)
     try:
         spots = dict(store.load_market().spots)
+        names = store.load_underlyings()
     finally:
         store.close()
+    ticks = dict(zip(names.symbols, names.ticks, strict=True))
     if not spots:
         raise click.ClickException(f"{path} has no spot marks to start a walk from")
     rng = random.Random(seed)
@@ -158,7 +162,7 @@ def demo_feed(
         while count is None or n < count:
             symbol = symbols[n % len(symbols)]
             spots[symbol] *= math.exp(step * rng.gauss(0.0, 1.0))
-            line = {"symbol": symbol, "spot": float(f"{spots[symbol]:.6g}")}
+            line = {"symbol": symbol, "spot": on_tick(spots[symbol], ticks.get(symbol, 0.01))}
             sys.stdout.write(json.dumps(line) + "\n")
             sys.stdout.flush()
             n += 1

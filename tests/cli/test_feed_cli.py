@@ -172,6 +172,15 @@ def test_demo_feed_piped_into_feed_moves_the_spots(demo_db: Path) -> None:
     )
     quotes = [json.loads(line) for line in demo.stdout.splitlines()]
     assert len(quotes) == 12 and {"symbol", "spot"} <= set(quotes[0])
+    st = store.open_store(demo_db, read_only=True)
+    try:
+        names = st.load_underlyings()
+    finally:
+        st.close()
+    ticks = dict(zip(names.symbols, names.ticks, strict=True))
+    for q in quotes:  # each quote is on its underlying's tick
+        steps = q["spot"] / ticks[q["symbol"]]
+        assert abs(steps - round(steps)) < 1e-6, q
     fed = subprocess.run(
         _blotter(demo_db, "feed", "--throttle", "0"),
         input=demo.stdout, capture_output=True, text=True, timeout=120, check=False,
