@@ -195,6 +195,12 @@ async def test_panes_switch_on_narrow_and_sit_beside_on_wide(demo_app: BlotterAp
         await pilot.press("f7")
         await pilot.pause()
         assert shown() == ["reval"]
+        await settle(demo_app, pilot)
+        reval = demo_app.query_one("#reval-pane")
+        # at 80 columns the title keeps every word; the note on vols ends the chart's legend
+        assert "sticky-strike vols" in str(demo_app.query_one("#reval-chart").render())
+        assert "sticky" not in str(reval.border_title)
+        assert len(str(reval.border_title)) <= reval.region.width - 4
         await pilot.resize_terminal(160, 48)
         await pilot.pause()
         assert demo_app.screen.has_class("-wide")

@@ -90,10 +90,11 @@ def draw(
     gap_name: str = "gap",
     gap_style: str = "",
     axis_style: str = "",
+    note: str = "",
 ) -> Text:
     """The chart of ``lines`` over ``xs`` in ``width`` × ``height`` cells: the y unit on top, y
     ticks on the left, x ticks (written by ``x_tick``) and a legend below; ``gap`` names two lines
-    whose space between is shaded, named ``gap_name`` in the legend."""
+    whose space between is shaded, named ``gap_name`` in the legend; ``note`` ends the legend."""
     legend: list[tuple[str, str, str]] = []
     for k, ln in enumerate(lines):
         if ln.group and (k == 0 or lines[k - 1].group != ln.group):
@@ -101,6 +102,8 @@ def draw(
         legend.append((sample(ln.pattern, 2), ln.name, ln.style))
     if gap is not None:
         legend.append((GAP * 2, gap_name, gap_style))
+    if note:
+        legend.append(("", note, ""))
     legend_rows = _legend_rows(legend, width)
     plot_h = height - 3 - len(legend_rows)
     finite = [y for ln in lines for y in ln.ys if math.isfinite(y)]

@@ -66,6 +66,7 @@ class RevalChart(Widget):
             x_tick=_spot_tick if profile.axis == "spot" else _day_tick,
             gap=gap,
             gap_name="gap: the estimate's error",
+            note=profile.note,
             gap_style=theme.get("text-error", ""),
             axis_style="dim",
         )
@@ -92,10 +93,11 @@ class RevalPane(Vertical):
 
     def show(self, profile: ProfileData, as_of: str = "") -> None:
         """Draw ``profile``; ``as_of`` says when the store was read for it (after the pane's
-        name in the title)."""
+        name in the title); the note on how vols move ends the chart's legend, so an 80-column title
+        keeps its words."""
         self.profile = profile
         chart = self.query_one(RevalChart)
         chart.profile = profile
         chart.refresh()
         title = profile.title.replace("Reval:", f"Reval {as_of}:", 1) if as_of else profile.title
-        self.border_title = title + (f" ─ {profile.note}" if profile.note else "")
+        self.border_title = title
