@@ -158,7 +158,7 @@ def _raw(path: Path) -> sqlite3.Connection:
 def test_sqlite_itself_keeps_one_close_a_day_and_numbers_raw_writes(store: Store) -> None:
     """Through a plain connection, bypassing the store's checks."""
     close = store.commit_close(marked_at=datetime(2026, 12, 3, 21, 30, tzinfo=UTC))
-    conn = _raw(store.path)
+    conn = _raw(Path(store.path))
     ts = "'2026-12-03T21:40:00.000000Z'"
     insert = "INSERT INTO mark_set (kind, marked_at, who, source, mark_count, corrects, " + (
         "business_date) VALUES ('{}', " + ts + ", 'raw', 'typed', 1, {}, {})"
