@@ -18,6 +18,7 @@ from typing import Any
 import pytest
 
 from blotter.store import create_store, db, pg
+from blotter.store.copy import copy_book
 
 BACKENDS = ("sqlite", "postgres")
 
@@ -66,6 +67,17 @@ def book(new_book: Callable[[], str]) -> str:
 def writer_lock() -> Callable[[str], Any]:
     """``writer_lock_held``, for a test to hold a book's write lock from another connection."""
     return writer_lock_held
+
+
+@pytest.fixture
+def demo_book(backend: str, demo_db: Path, new_book: Callable[[], str]) -> str:
+    """A fresh, writable demo book on the test's backend: the session's demo file copied, or
+    moved into a new database by ``blotter copy``'s ``copy_book``."""
+    if backend == "sqlite":
+        return str(demo_db)
+    url = new_book()
+    copy_book(str(demo_db), url)
+    return url
 
 
 @contextmanager

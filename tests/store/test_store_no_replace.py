@@ -20,6 +20,8 @@ from store_children import add_underlyings, trade_csv
 
 from blotter.store import open_store
 
+pytestmark = pytest.mark.file_only("SQLite's INSERT OR REPLACE, which PostgreSQL lacks")
+
 PROTECTED = (
     "underlying",
     "contract",
