@@ -1,13 +1,23 @@
 """Read-only viewers of a PostgreSQL book: ``--read-only`` and a ``blotter_reader`` login connect
-so that the server itself refuses every write, in the store's words, and nothing changes."""
+so that the server itself refuses every write, in the store's words, and nothing changes; and
+what only a book file has is refused on a database in words."""
 
 from __future__ import annotations
+
+from pathlib import Path
 
 import pytest
 from pg_server import APP_ROLE, VIEWER_ROLE, PgServer
 from store_children import add_underlyings
 
-from blotter.store import NotWritableError, ReadOnlyError, Store, create_store, open_store
+from blotter.store import (
+    NotWritableError,
+    ReadOnlyError,
+    Store,
+    StoreError,
+    create_store,
+    open_store,
+)
 
 
 def _login(pg_server: PgServer, url: str, role: str) -> str:
@@ -87,3 +97,23 @@ def test_the_app_login_writes(pg_server: PgServer, pg_book: str) -> None:
     with open_store(_login(pg_server, pg_book, APP_ROLE)) as trader:
         trader.add_trade("main", "TSTA", 2, 1.0)
         assert trader.load_book().quantities.tolist() == [5.0]
+
+
+def test_the_demo_is_written_to_a_file_and_says_how_to_move_it() -> None:
+    """``blotter demo --out URL`` names the way to a database instead of a file named like it."""
+    from click.testing import CliRunner
+
+    from blotter.cli import main
+
+    result = CliRunner().invoke(main, ["demo", "--out", "postgresql:///somebook?host=/nowhere"])
+    assert result.exit_code == 1
+    assert "blotter copy" in result.output and "directory" not in result.output
+
+
+def test_a_file_backup_and_checkpoint_are_refused_in_words(pg_book: str, tmp_path: Path) -> None:
+    with open_store(pg_book) as s:
+        with pytest.raises(StoreError, match="blotter copy URL FILE"):
+            s.backup(tmp_path / "copy.db")
+        with pytest.raises(StoreError, match="no -wal file"):
+            s.checkpoint()
+    assert not (tmp_path / "copy.db").exists()
