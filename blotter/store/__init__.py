@@ -20,8 +20,9 @@ price); vols, rates and dividend yields are decimals (0.25 = 25%); rates are con
 compounded zero rates by tenor in calendar days; instants are UTC.
 
 The modules, each one concern, in the order they import each other: ``errors``, ``times``
-(instants and the clock), ``checks`` (value checks), ``records``, ``files``, ``db``
-(connections, schema, migrations, open checks), ``core`` (transactions), ``reference``
+(instants and the clock), ``checks`` (value checks), ``records``, ``files``, ``dialect`` (the
+store's SQL on a PostgreSQL connection), ``db`` (connections, schema, migrations, open checks),
+``pg`` (a book in a PostgreSQL database), ``core`` (transactions), ``reference``
 (underlyings, books, notes), ``contracts``, ``trades``, ``marks``, ``csv_io``, ``imports``,
 ``api`` (``Store``, ``open_store``, ``create_store``) and ``demo`` (the invented demo book).
 Everything a caller needs is importable from ``blotter.store`` itself.

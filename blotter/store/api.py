@@ -5,11 +5,13 @@ from __future__ import annotations
 
 import os
 import sqlite3
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
 from blotter import calendar as cal
-from blotter.store import db, pg
+from blotter.store import db, dialect, pg
 from blotter.store.checks import check_currency
 from blotter.store.errors import (
     NotWritableError,
@@ -54,7 +56,7 @@ def open_store(
     read-write open meets a book this user cannot write.
     """
     if pg.is_url(str(path)):
-        raise StoreError(pg.NOT_OPENED)
+        return _open_pg(str(path), read_only, create, desk_tz, clock)
     p = Path(path)
     zone = desk_tz or cal.desk_tz()
     exists = check_book_path(p)
@@ -100,6 +102,68 @@ def open_store(
     return Store(p, read_only, conn, mode, desk_tz=zone, clock=clock)
 
 
+@contextmanager
+def _closed_on_failure(conn: dialect.Connection, where: str) -> Iterator[None]:
+    """Close ``conn`` when the block fails, the server's errors said in words."""
+    try:
+        yield
+    except BaseException as exc:
+        conn.close()
+        if pg.is_error(exc):
+            raise pg.error(exc, where) from None
+        raise
+
+
+def _open_pg(
+    url: str, read_only: bool, create: bool, desk_tz: ZoneInfo | None, clock: Clock | None
+) -> Store:
+    """``open_store`` of the PostgreSQL book ``url``: the same refusals in the same words, a
+    viewer login (no INSERT on the book's tables) refused a read-write open as a file this user
+    cannot write is."""
+    where = pg.shown(url)
+    conn = pg.open_connection(url, read_only, db.BUSY_TIMEOUT_MS)
+    with _closed_on_failure(conn, where):
+        version = pg.schema_version(conn.raw)
+        if version is None:
+            if create and not read_only:
+                conn.close()
+                return create_store(url, desk_tz=desk_tz, clock=clock)
+            raise StoreError(
+                f"{where} holds no blotter book; make one there with "
+                "`blotter copy BOOK.db URL` (or open it with create)"
+            )
+        if version > db.SCHEMA_VERSION:
+            raise StoreError(
+                f"{where} was written by a newer blotter (schema {version}; this one "
+                f"knows {db.SCHEMA_VERSION}): upgrade blotter"
+            )
+        if not read_only and not pg.may_write(conn):
+            raise NotWritableError(
+                f"the login {pg.login(conn)} may only read the PostgreSQL book {where} "
+                f"(it is not in {pg.WRITER_ROLE})"
+            )
+        if version < db.SCHEMA_VERSION:
+            if read_only:
+                raise SchemaUpgradeNeeded(
+                    f"{where} uses an older schema ({version}); open it once without "
+                    "--read-only to upgrade it",
+                    version,
+                )
+            pg.migrate(conn.raw)
+        zone = db.book_zone(conn, where)
+    return Store(where, read_only, conn, desk_tz=zone, clock=clock, url=url)
+
+
+def _create_pg(url: str, zone: ZoneInfo, clock: Clock | None, base_currency: str) -> Store:
+    """``create_store`` in the empty PostgreSQL database ``url``: its schema in one
+    transaction."""
+    where = pg.shown(url)
+    conn = pg.open_connection(url, False, db.BUSY_TIMEOUT_MS)
+    with _closed_on_failure(conn, where), conn.raw.transaction():
+        pg.create_schema(conn.raw, zone, base_currency)
+    return Store(where, False, conn, desk_tz=zone, clock=clock, url=url)
+
+
 def create_store(
     path: str | os.PathLike[str],
     desk_tz: ZoneInfo | None = None,
@@ -113,9 +177,11 @@ def create_store(
     The file is created with mode ``FILE_MODE`` (0o660) less the umask, so it is never readable
     or writable by other users; SQLite gives its -wal and -shm files the same permissions.
     """
-    p = Path(path)
     zone = desk_tz or cal.desk_tz()
     check_currency(base_currency)
+    if pg.is_url(str(path)):
+        return _create_pg(str(path), zone, clock, base_currency)
+    p = Path(path)
     create_empty(p)
     with db.removed_on_failure(p):
         conn = db.connect(p, read_only=False)

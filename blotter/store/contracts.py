@@ -7,7 +7,6 @@ arrays read once stay right and only contracts with a higher id are read later.
 
 from __future__ import annotations
 
-import sqlite3
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
@@ -87,14 +86,14 @@ def preview_contract(
     )
 
 
-def resolve_contracts(conn: sqlite3.Connection, terms: Sequence[NewContract]) -> list[int]:
+def resolve_contracts(conn: db.Conn, terms: Sequence[NewContract]) -> list[int]:
     """The id of the contract with each of ``terms``, in order: found by its terms, else created
     with the underlying's defaults for what is left None (new ones in one bulk insert).
 
     A hedge (the underlying itself) left at the default multiplier is refused where the book
     holds that underlying only at other multipliers: it would not net against them.
     """
-    unders: dict[str, sqlite3.Row] = {}
+    unders: dict[str, db.Row] = {}
     known: dict[tuple[Any, ...], int] = {}
     hedges: dict[int, set[float]] = {}  # multipliers of the hedge contracts created here
     created: list[tuple[Any, ...]] = []
@@ -134,7 +133,7 @@ def resolve_contracts(conn: sqlite3.Connection, terms: Sequence[NewContract]) ->
 
 
 def _refuse_hedge_at_default(
-    conn: sqlite3.Connection, symbol: str, uid: int, default: float, new: set[float]
+    conn: db.Conn, symbol: str, uid: int, default: float, new: set[float]
 ) -> None:
     """Refuse a new hedge contract at the ``default`` multiplier when the book holds hedges of
     ``uid`` (stored, or ``new`` here) only at other multipliers: a file booked before hedges
@@ -156,7 +155,7 @@ def _refuse_hedge_at_default(
         )
 
 
-def existing_contract(conn: sqlite3.Connection, contract_id: int) -> int:
+def existing_contract(conn: db.Conn, contract_id: int) -> int:
     """``contract_id``, checked to name a contract of the book."""
     contract_id = check_id(contract_id, "contract id")
     if db.one(conn, "SELECT 1 FROM contract WHERE contract_id = ?", (contract_id,)):
@@ -164,7 +163,7 @@ def existing_contract(conn: sqlite3.Connection, contract_id: int) -> int:
     raise StoreError(f"no contract {contract_id}")
 
 
-def check_not_expired(conn: sqlite3.Connection, contract_id: int, t: datetime) -> None:
+def check_not_expired(conn: db.Conn, contract_id: int, t: datetime) -> None:
     """Refuse a trade dealt after the contract's cut-off instant (its expiry date at its cut-off
     time in the exchange's time zone); ``schema.sql`` keeps only a coarse backstop."""
     row = db.one(
@@ -321,7 +320,7 @@ class Contracts(ReferenceData):
             for r in rows
         ]
 
-    def _contract_table(self, conn: sqlite3.Connection) -> ContractArrays:
+    def _contract_table(self, conn: db.Conn) -> ContractArrays:
         """Every contract as arrays by id, read once and then extended by the new ones only."""
         with self._lock:
             cache = self._contracts

@@ -10,6 +10,7 @@ commits: the same number of rows in every table and the same history.
 
 from __future__ import annotations
 
+import sqlite3
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -18,27 +19,13 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
 
-from blotter.store import db, pg
+from blotter.store import db, dialect, pg
 from blotter.store.api import create_store, open_store
 from blotter.store.db import SCHEMA_VERSION
 from blotter.store.errors import StoreError
 from blotter.store.files import remove_book_files
 
-TABLES: dict[str, str] = {
-    "underlying": "underlying_id",
-    "book": "book_id",
-    "contract": "contract_id",
-    "underlying_correction": "correction_id",
-    "desk_note": "note_id",
-    "import_file": "import_id",
-    "base_currency": "base_id",
-    "book_zone": "only_row",
-    "trade": "trade_id",
-    "trade_cancel": "cancel_id",
-    "mark_set": "mark_set_id",
-    "mark": "mark_id",
-    "history": "seq",
-}
+TABLES: dict[str, str] = dialect.KEYS
 """Every table of a book and its key, in the order plain rows are inserted (the tables named in
 ``IN_ORDER`` and ``MADE_WITH_SCHEMA`` are written their own way)."""
 
@@ -107,6 +94,7 @@ def read_book(source: str) -> dict[str, Table]:
         finally:
             conn.close()
     with open_store(source, read_only=True) as store, store._read() as lite:
+        assert isinstance(lite, sqlite3.Connection)
         return _read_tables(lite, set(db.utils_db(lite).table_names()))
 
 

@@ -22,7 +22,7 @@ from typing import Any, Self, TypeVar
 from zoneinfo import ZoneInfo
 
 from blotter import calendar as cal
-from blotter.store import db
+from blotter.store import db, dialect, pg
 from blotter.store.errors import ReadOnlyError, StoreError, sql_error
 from blotter.store.files import create_empty
 from blotter.store.times import Clock
@@ -40,10 +40,12 @@ def who_am_i() -> str:
         return f"uid{os.getuid()}"
 
 
-def _translated(exc: BaseException, path: Path) -> BaseException | None:
+def _translated(exc: BaseException, path: Path | str) -> BaseException | None:
     """The ``StoreError`` an error leaving a transaction becomes, or None to let it through."""
     if isinstance(exc, sqlite3.Error):
         return sql_error(exc, path)
+    if pg.is_error(exc):
+        return pg.error(exc, str(path))
     if isinstance(exc, UnicodeDecodeError):
         return StoreError(
             f"{path}: the book holds text that is not UTF-8, so it is damaged; restore it "
@@ -63,21 +65,25 @@ def _translated(exc: BaseException, path: Path) -> BaseException | None:
 class StoreCore:
     """An open book's connections and transactions; ``Store`` adds what it holds.
 
-    ``path`` is the book file, ``read_only`` refuses writes, ``desk_tz`` is the zone its closes
-    are dated in, ``who`` the OS user written on every row, and ``clock`` the store's own clock
-    (None: the process's, see ``blotter.store.use_clock``).
+    ``path`` is the book file, or for a PostgreSQL book (``url``) its URL as it may be shown;
+    ``read_only`` refuses writes, ``desk_tz`` is the zone its closes are dated in, ``who`` the OS
+    user written on every row, and ``clock`` the store's own clock (None: the process's, see
+    ``blotter.store.use_clock``).
     """
 
     def __init__(
         self,
-        path: Path,
+        path: Path | str,
         read_only: bool,
-        conn: sqlite3.Connection,
+        conn: db.Conn,
         mode: str | None = None,
         desk_tz: ZoneInfo | None = None,
         clock: Clock | None = None,
+        url: str | None = None,
     ) -> None:
         self.path = path
+        self.url = url  # a PostgreSQL book's URL as given (with any password), else None
+        self._begin = (pg.BEGIN_READ, pg.BEGIN_WRITE) if url else (("BEGIN",), (BEGIN_WRITE,))
         self.desk_tz = desk_tz or cal.desk_tz()
         self.read_only = read_only
         self.clock = clock
@@ -86,28 +92,31 @@ class StoreCore:
         self._local = threading.local()
         self._local.conn = conn
         self._lock = threading.Lock()
-        self._conns: list[sqlite3.Connection] = [conn]
+        self._conns: list[db.Conn] = [conn]
         self._closed = False
 
     # ---- connections
 
-    def _conn(self) -> sqlite3.Connection:
+    def _conn(self) -> db.Conn:
         """This thread's connection, opened on its first call in the thread."""
         if self._closed:
             raise StoreError("the book is closed")
-        conn: sqlite3.Connection | None = getattr(self._local, "conn", None)
+        conn: db.Conn | None = getattr(self._local, "conn", None)
         if conn is None:
-            try:
-                conn = db.connect(self.path, self.read_only, self._mode)
-            except sqlite3.Error as exc:
-                raise sql_error(exc, self.path) from None
+            if self.url is not None:
+                conn = pg.open_connection(self.url, self.read_only, db.BUSY_TIMEOUT_MS)
+            else:
+                try:
+                    conn = db.connect(Path(self.path), self.read_only, self._mode)
+                except sqlite3.Error as exc:
+                    raise sql_error(exc, self.path) from None
             self._local.conn = conn
             with self._lock:
                 self._conns.append(conn)
         return conn
 
     @property
-    def connection(self) -> sqlite3.Connection:
+    def connection(self) -> db.Conn:
         """This thread's connection (for tests and diagnostics; write through the methods)."""
         return self._conn()
 
@@ -153,20 +162,20 @@ class StoreCore:
             yield self
 
     @contextmanager
-    def _write(self) -> Iterator[sqlite3.Connection]:
+    def _write(self) -> Iterator[db.Conn]:
         """This thread's connection inside ``atomic()``."""
         with self.atomic():
             yield self._conn()
 
     @contextmanager
-    def _read(self) -> Iterator[sqlite3.Connection]:
+    def _read(self) -> Iterator[db.Conn]:
         """One short read transaction, so several queries see one snapshot; always ended. Inside
         ``atomic()`` it reads in that transaction, seeing the block's own writes."""
         with self._transaction(write=False) as conn:
             yield conn
 
     @contextmanager
-    def _transaction(self, write: bool) -> Iterator[sqlite3.Connection]:
+    def _transaction(self, write: bool) -> Iterator[db.Conn]:
         """A transaction on this thread's connection, never left open: ``BEGIN IMMEDIATE`` (a
         write) or ``BEGIN`` (a read) ... ``COMMIT``; inside one already open, a write runs in a
         savepoint of its own and a read in the open transaction.
@@ -177,7 +186,7 @@ class StoreCore:
         conn = self._conn()
         local = self._local
         depth: int = getattr(local, "depth", 0)
-        begin: tuple[str, ...] = (BEGIN_WRITE if write else "BEGIN",)
+        begin: tuple[str, ...] = self._begin[write]
         end: tuple[str, ...] = ("COMMIT",)
         undo: tuple[str, ...] = ("ROLLBACK",)
         if depth:
@@ -191,8 +200,13 @@ class StoreCore:
         try:
             for sql in begin:
                 conn.execute(sql)
-        except sqlite3.Error as exc:
-            raise sql_error(exc, self.path) from None
+        except BaseException as exc:
+            if depth == 0 and conn.in_transaction:
+                conn.execute("ROLLBACK")  # a write's lock wait that failed after its BEGIN
+            mapped = _translated(exc, self.path)
+            if mapped is None:
+                raise
+            raise mapped from None
         if not depth:
             local.writing = write
         local.depth = depth + 1
@@ -207,8 +221,9 @@ class StoreCore:
                 try:
                     for sql in undo:
                         conn.execute(sql)
-                except sqlite3.Error:
-                    pass
+                except Exception as undo_exc:  # noqa: BLE001 - the first error is the one said
+                    if _translated(undo_exc, self.path) is None:
+                        raise
             mapped = _translated(exc, self.path)
             if mapped is None:
                 raise
@@ -226,9 +241,15 @@ class StoreCore:
     # ---- the file
 
     def data_version(self) -> int:
-        """``PRAGMA data_version`` of this thread's connection: changes on others' commits."""
+        """``PRAGMA data_version`` of this thread's connection: changes on others' commits (of a
+        PostgreSQL book, ``pg.data_version``, which moves on every commit)."""
+        conn = self._conn()
+        if not isinstance(conn, sqlite3.Connection):
+            with self._read() as read:
+                assert isinstance(read, dialect.Connection)
+                return pg.data_version(read)
         try:
-            return int(db.scalar(self._conn(), "PRAGMA data_version"))
+            return int(db.scalar(conn, "PRAGMA data_version"))
         except sqlite3.Error as exc:
             raise sql_error(exc, self.path) from None
 
@@ -238,7 +259,11 @@ class StoreCore:
 
         A viewer refreshes when the counter differs from the last it saw. SQLite announces no
         commit to other processes, so the file is asked at each tick; a PostgreSQL book's
-        counterpart is ``blotter.store.pg.changes``, which wakes at the commit itself."""
+        counterpart is ``blotter.store.pg.changes``, which wakes at the commit itself and is what
+        a PostgreSQL book's store yields."""
+        if self.url is not None:
+            yield from pg.changes(self.url, stop, interval_s)
+            return
         while True:
             try:
                 yield self.data_version()
@@ -248,16 +273,23 @@ class StoreCore:
                 return
 
     def schema_version(self) -> int:
-        """The file's ``PRAGMA user_version``."""
-        return int(db.scalar(self._conn(), "PRAGMA user_version"))
+        """The file's ``PRAGMA user_version`` (a PostgreSQL book's ``blotter_meta``)."""
+        conn = self._conn()
+        if not isinstance(conn, sqlite3.Connection):
+            with self._read() as read:
+                assert isinstance(read, dialect.Connection)
+                return pg.schema_version(read.raw) or 0
+        return int(db.scalar(conn, "PRAGMA user_version"))
 
     def integrity_ok(self) -> bool:
         """``integrity_problems`` (CHECKs included), ``foreign_key_check`` and every mark set
-        holding all its marks."""
-        if db.integrity_problems(self._conn()) != ["ok"]:
+        holding all its marks (of a PostgreSQL book, whose server enforces the first two as it
+        writes, the last)."""
+        file = self._conn()
+        if isinstance(file, sqlite3.Connection) and db.integrity_problems(file) != ["ok"]:
             return False
         with self._read() as conn:
-            if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
+            if self.url is None and conn.execute("PRAGMA foreign_key_check").fetchone():
                 return False
             broken = db.scalar(
                 conn,
@@ -271,6 +303,7 @@ class StoreCore:
         (``PRAGMA wal_checkpoint(TRUNCATE)``), so the book file alone holds the book."""
         if self.read_only:
             raise ReadOnlyError()
+        self._file_only("has no -wal file to checkpoint")
         try:
             self._conn().execute("PRAGMA wal_checkpoint(TRUNCATE)")
         except sqlite3.Error as exc:
@@ -279,17 +312,23 @@ class StoreCore:
     def counts(self) -> dict[str, int]:
         """The number of rows in each table of the book, by table name (one read)."""
         with self._read() as conn:
+            if not isinstance(conn, sqlite3.Connection):
+                names = sorted(pg.book_tables(conn.raw) - pg.PG_ONLY_TABLES)
+                return {n: int(db.scalar(conn, f"SELECT count(*) FROM {n}")) for n in names}
             tables = db.utils_db(conn)
             return {name: tables.table(name).count for name in tables.table_names()}
 
     def backup(self, dest: str | os.PathLike[str]) -> Path:
         """A consistent copy of the book at ``dest`` (new file, mode 0o660), synced and checked."""
+        self._file_only("is copied to a file with `blotter copy URL FILE`")
         d = Path(dest)
         create_empty(d)
         with db.removed_on_failure(d):
             target = sqlite3.connect(db.uri(d, "rw"), uri=True, isolation_level=None)
             try:
-                self._conn().backup(target)
+                source = self._conn()
+                assert isinstance(source, sqlite3.Connection)
+                source.backup(target)
                 target.execute("PRAGMA journal_mode = DELETE")
                 ok = [r[0] for r in target.execute("PRAGMA integrity_check")] == ["ok"]
             finally:
@@ -299,6 +338,11 @@ class StoreCore:
             if not ok:
                 raise StoreError(f"the backup {d} failed its integrity check")
         return d
+
+    def _file_only(self, why: str) -> None:
+        """Refuse what only a book file has: a PostgreSQL book ``why`` (in words)."""
+        if self.url is not None:
+            raise StoreError(f"a PostgreSQL book {why}")
 
 
 _F = TypeVar("_F", bound=Callable[..., Any])
@@ -318,8 +362,11 @@ def guard_damage(method: _F) -> _F:
         try:
             return method(self, *args, **kwargs)
         except (ValueError, KeyError, TypeError, IndexError, UnicodeDecodeError) as exc:
+            conn = self._conn()
+            if not isinstance(conn, sqlite3.Connection):
+                raise  # the server checks every value as it is written
             try:
-                sound = db.integrity_problems(self._conn()) == ["ok"]
+                sound = db.integrity_problems(conn) == ["ok"]
             except (sqlite3.Error, UnicodeDecodeError):
                 sound = False
             if sound:

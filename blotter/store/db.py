@@ -26,7 +26,17 @@ from blotter.store.files import packaged_file, remove_book_files
 from blotter.store.times import business_date, from_timestamp
 
 if TYPE_CHECKING:
+    from typing import TypeAlias
+
     import sqlite_utils
+
+    from blotter.store import dialect
+
+    Conn: TypeAlias = sqlite3.Connection | dialect.Connection
+    """A store connection: an SQLite file's, or a PostgreSQL book's (``dialect.Connection``)."""
+
+    Row: TypeAlias = sqlite3.Row | dialect.Row
+    """A result row read by column name or position."""
 
 APPLICATION_ID = 0x426C7472
 """``PRAGMA application_id`` of a blotter book ("Bltr"), so a foreign SQLite file is recognised."""
@@ -121,15 +131,20 @@ def connect(path: Path, read_only: bool, mode: str | None = None) -> sqlite3.Con
     return conn
 
 
-def rows(conn: sqlite3.Connection, sql: str, params: Sequence[Any] = ()) -> list[sqlite3.Row]:
+def rows(conn: Conn, sql: str, params: Sequence[Any] = ()) -> list[Row]:
     """The rows of a query, each read by column name (``row["symbol"]``)."""
+    if not isinstance(conn, sqlite3.Connection):
+        return list(conn.rows(sql, params))
     cur = conn.cursor()
     cur.row_factory = sqlite3.Row
     return cur.execute(sql, params).fetchall()
 
 
-def one(conn: sqlite3.Connection, sql: str, params: Sequence[Any] = ()) -> sqlite3.Row | None:
+def one(conn: Conn, sql: str, params: Sequence[Any] = ()) -> Row | None:
     """The first row of a query, read by column name, or None when there is none."""
+    if not isinstance(conn, sqlite3.Connection):
+        found = conn.rows(sql, params)
+        return found[0] if found else None
     cur = conn.cursor()
     cur.row_factory = sqlite3.Row
     row: sqlite3.Row | None = cur.execute(sql, params).fetchone()
@@ -137,7 +152,7 @@ def one(conn: sqlite3.Connection, sql: str, params: Sequence[Any] = ()) -> sqlit
 
 
 def columns(
-    conn: sqlite3.Connection, sql: str, params: Sequence[Any] = ()
+    conn: Conn, sql: str, params: Sequence[Any] = ()
 ) -> dict[str, tuple[Any, ...]]:
     """The result of a query by column: each column's values in row order, by column name
     (for results read into arrays, where one tuple per column is what is wanted)."""
@@ -149,7 +164,7 @@ def columns(
     return dict(zip(names, zip(*found, strict=True), strict=True))
 
 
-def scalar(conn: sqlite3.Connection, sql: str, params: Sequence[Any] = ()) -> Any:
+def scalar(conn: Conn, sql: str, params: Sequence[Any] = ()) -> Any:
     """The single value a query returns (a count, a pragma, a max)."""
     return conn.execute(sql, params).fetchone()[0]
 
@@ -182,7 +197,7 @@ def schema_functions(
     conn.create_function("base_currency_default", 0, lambda: base_currency, deterministic=True)
 
 
-def book_zone(conn: sqlite3.Connection, path: Path) -> ZoneInfo:
+def book_zone(conn: Conn, path: Path | str) -> ZoneInfo:
     """The desk zone the book at ``path`` dates its closes in (``book_zone``, written with it)."""
     row = one(conn, "SELECT zone FROM book_zone")
     if row is None:
@@ -352,7 +367,7 @@ INSERT_BATCH = 100
 
 
 def insert_rows(
-    conn: sqlite3.Connection,
+    conn: Conn,
     table: str,
     names: Sequence[str],
     values: Iterable[Sequence[Any]],
@@ -362,10 +377,14 @@ def insert_rows(
     order given, each in a savepoint of the transaction ``conn`` has open.
 
     Refused outside a transaction, where sqlite-utils would commit each batch on its own (a
-    failure midway would then leave the batches before it written).
+    failure midway would then leave the batches before it written). A PostgreSQL book takes the
+    rows by one COPY in the open transaction (``dialect.Connection.copy_rows``).
     """
     if not conn.in_transaction:
         raise RuntimeError(f"a bulk insert into {table} must run inside a store transaction")
+    if not isinstance(conn, sqlite3.Connection):
+        conn.copy_rows(table, names, values)
+        return
     utils_db(conn).table(table).insert_all(
         itertools.chain([list(names)], values), batch_size=INSERT_BATCH
     )

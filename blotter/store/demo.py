@@ -21,7 +21,7 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 
-from blotter.store import db
+from blotter.store import db, pg
 from blotter.store.api import Store, create_store, open_store
 from blotter.store.errors import StoreError
 from blotter.store.files import remove_book_files
@@ -294,6 +294,11 @@ def build_demo(
     is a demo book (``_not_demo``); a book in use (its ``-wal`` file holds data) is always
     refused.
     """
+    if pg.is_url(str(path)):
+        raise StoreError(
+            "the demo is written to a file; move it into a database with "
+            f"`blotter copy demo.db {pg.shown(str(path))}`"
+        )
     out = Path(path)
     n_options = DEMO_POSITIONS if positions is None else int(positions)
     if n_options < 0:

@@ -88,13 +88,13 @@ def raise_if(path: Path, problems: list[Problem]) -> None:
         raise CsvImportError(path, problems[:MAX_PROBLEMS], len(problems))
 
 
-def sql_error(exc: sqlite3.Error, path: Path | None = None) -> StoreError:
+def sql_error(exc: sqlite3.Error, path: Path | str | None = None) -> StoreError:
     """A ``StoreError`` saying in plain words what an ``sqlite3`` error means for the user,
     logged with SQLite's own code (a busy book as a warning, anything else as an error)."""
-    return _logged(_said(exc, path), exc)
+    return log_refusal(_said(exc, path), exc)
 
 
-def _logged(error: StoreError, exc: BaseException) -> StoreError:
+def log_refusal(error: StoreError, exc: BaseException) -> StoreError:
     """``error``, logged with the words and code of ``exc`` (a busy book as a warning)."""
     code = getattr(exc, "sqlite_errorname", "") or type(exc).__name__
     log.log(
@@ -104,7 +104,7 @@ def _logged(error: StoreError, exc: BaseException) -> StoreError:
     return error
 
 
-def _said(exc: sqlite3.Error, path: Path | None) -> StoreError:
+def _said(exc: sqlite3.Error, path: Path | str | None) -> StoreError:
     """``sql_error``'s words for ``exc``."""
     name = getattr(exc, "sqlite_errorname", "") or ""
     text = str(exc)
@@ -115,7 +115,7 @@ def _said(exc: sqlite3.Error, path: Path | None) -> StoreError:
             "nothing was written, try again"
         )
     if name.startswith("SQLITE_READONLY") or "readonly database" in text:
-        why = not_writable(path) if path is not None else None
+        why = not_writable(Path(path)) if path is not None else None
         if why is not None:
             return NotWritableError(why)
         return ReadOnlyError()
@@ -139,7 +139,7 @@ def _said(exc: sqlite3.Error, path: Path | None) -> StoreError:
 def open_error(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:
     """What an error on a book's first reads means: damage only for SQLite's corruption codes;
     logged as ``sql_error`` logs."""
-    return _logged(_open_said(exc, path), exc)
+    return log_refusal(_open_said(exc, path), exc)
 
 
 def _open_said(exc: sqlite3.Error | UnicodeDecodeError, path: Path) -> StoreError:

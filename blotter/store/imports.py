@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import functools
 import os
-import sqlite3
 from collections.abc import Callable
 from datetime import datetime
 from pathlib import Path
@@ -72,7 +71,7 @@ def _logged(kind: str, ids: str) -> Callable[[ImportMethod], ImportMethod]:
     return wrap
 
 
-def _known_trade_problems(conn: sqlite3.Connection, first_line: dict[int, int]) -> list[Problem]:
+def _known_trade_problems(conn: db.Conn, first_line: dict[int, int]) -> list[Problem]:
     """A row naming a trade already in this book is that trade again (an export of it), and
     importing it would double the position: one problem per such row."""
     problems: list[Problem] = []
@@ -96,7 +95,7 @@ def _known_trade_problems(conn: sqlite3.Connection, first_line: dict[int, int]) 
 
 
 def _trade_id_problems(
-    conn: sqlite3.Connection, rows: list[tuple[int, dict[str, str]]]
+    conn: db.Conn, rows: list[tuple[int, dict[str, str]]]
 ) -> list[Problem]:
     """Problems of the ``trade_id`` cells, from the file and from the book, in line order."""
     problems, first_line = trade_id_problems(rows)
@@ -104,7 +103,7 @@ def _trade_id_problems(
     return sorted(problems, key=lambda q: q.line)
 
 
-def _check_not_imported(conn: sqlite3.Connection, kind: str, digest: str, p: Path) -> None:
+def _check_not_imported(conn: db.Conn, kind: str, digest: str, p: Path) -> None:
     """Refuse a file whose content (``digest``) was imported as ``kind`` before."""
     row = db.one(
         conn,
@@ -183,7 +182,7 @@ class Imports(Trades, Marks):
 
     def _write_trade_lines(
         self,
-        conn: sqlite3.Connection,
+        conn: db.Conn,
         parsed: list[TradeLine],
         booked: datetime,
         source: str,
@@ -267,7 +266,7 @@ class Imports(Trades, Marks):
 
     def _record_import(
         self,
-        conn: sqlite3.Connection,
+        conn: db.Conn,
         kind: str,
         p: Path,
         digest: str,

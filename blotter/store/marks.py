@@ -10,7 +10,6 @@ copy the time the point it copies was last marked, so a close never re-dates a c
 
 from __future__ import annotations
 
-import sqlite3
 from collections.abc import Callable, Sequence
 from datetime import date, datetime
 
@@ -63,7 +62,7 @@ latest close and keeps a correction of an older day from rolling today's marks b
 
 
 def write_mark_set(
-    conn: sqlite3.Connection,
+    conn: db.Conn,
     kind: str,
     points: Sequence[StoredPoint],
     *,
@@ -219,8 +218,8 @@ class Marks(ReferenceData):
     # ---- reading marks
 
     def _mark_rows(
-        self, conn: sqlite3.Connection, mark_set_id: int | None, as_of: datetime | None
-    ) -> list[sqlite3.Row]:
+        self, conn: db.Conn, mark_set_id: int | None, as_of: datetime | None
+    ) -> list[db.Row]:
         """The points of set ``mark_set_id``, or those in force (at ``as_of`` or now)."""
         if mark_set_id is not None:
             mark_set_id = check_id(mark_set_id, "mark set id")
@@ -254,7 +253,7 @@ class Marks(ReferenceData):
             rows = self._mark_rows(conn, mark_set_id, as_of)
             symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
             set_ids = sorted({r["mark_set_id"] for r in rows})
-            sets: dict[int, sqlite3.Row] = {}
+            sets: dict[int, db.Row] = {}
             if set_ids:
                 sql = "SELECT mark_set_id, kind, marked_at FROM mark_set"
                 few = len(set_ids) < 900
@@ -471,7 +470,7 @@ class Marks(ReferenceData):
         return day, None if found is None else found["mark_set_id"]
 
     @staticmethod
-    def _close_in_force(conn: sqlite3.Connection, day: date) -> sqlite3.Row | None:
+    def _close_in_force(conn: db.Conn, day: date) -> db.Row | None:
         """(mark_set_id, marked_at, who) of the close in force for business date ``day``: the
         newest set of that date that no correction replaces; None when the date has no close."""
         return db.one(
@@ -482,7 +481,7 @@ class Marks(ReferenceData):
             (day.isoformat(),),
         )
 
-    def _refuse_second_close(self, conn: sqlite3.Connection, day: date) -> None:
+    def _refuse_second_close(self, conn: db.Conn, day: date) -> None:
         """Refuse a close (not a correction) of ``day`` when the date has one already."""
         taken = self._close_in_force(conn, day)
         if taken is not None:
@@ -494,7 +493,7 @@ class Marks(ReferenceData):
             )
 
     def _close_to_correct(
-        self, conn: sqlite3.Connection, ref: int | str | date
+        self, conn: db.Conn, ref: int | str | date
     ) -> tuple[int, date]:
         """(id, business date) of the close a correction names: a set id, or a business date
         (ISO text or ``date``) meaning the close in force for that date."""

@@ -9,7 +9,9 @@ server enforces what the SQLite file's triggers do, and privileges besides: see 
 
 from __future__ import annotations
 
+import functools
 import re
+import sys
 import threading
 import time
 from collections.abc import Iterator
@@ -20,6 +22,7 @@ from urllib.parse import urlsplit, urlunsplit
 from zoneinfo import ZoneInfo
 
 from blotter.store.db import APPLICATION_ID
+from blotter.store.dialect import KEYS, Connection
 from blotter.store.errors import StoreError
 from blotter.store.files import packaged_file
 
@@ -40,12 +43,6 @@ READER_ROLE = "blotter_reader"
 
 PG_ONLY_TABLES = frozenset({"blotter_meta"})
 """Tables only a PostgreSQL book has: its id and schema version (SQLite keeps them in PRAGMAs)."""
-
-NOT_OPENED = (
-    "a PostgreSQL book is copied to and from with `blotter copy SRC DST`; the app and the other "
-    "commands open book files only in this version"
-)
-"""Why ``open_store`` refuses a URL."""
 
 INSTALL_HINT = "PostgreSQL books need psycopg: pip install 'blotter[postgres]'"
 
@@ -241,3 +238,133 @@ def changes(url: str, stop: threading.Event, interval_s: float) -> Iterator[int 
             lost = True
             yield None
             stop.wait(interval_s)
+
+
+# ---- the store's connection to a PostgreSQL book
+
+LOCK_KEY = APPLICATION_ID
+"""The advisory lock every write transaction takes first (``schema_pg.sql``'s writer lock)."""
+
+BEGIN_WRITE = ("BEGIN", f"SELECT pg_advisory_xact_lock({LOCK_KEY:d})")
+"""How a write transaction starts: READ COMMITTED, so each statement after the lock sees every
+commit before it (BEGIN IMMEDIATE's part)."""
+
+BEGIN_READ = ("BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY",)
+"""How a read transaction starts: one snapshot for all its queries, as SQLite's read gives."""
+
+def _member_of(conn: psycopg.Connection[Any], role: str) -> bool:
+    """Whether the login may act as ``role`` (a superuser may act as any)."""
+    row = conn.execute(
+        "SELECT EXISTS (SELECT 1 FROM pg_roles WHERE rolname = %s) "
+        "AND pg_has_role(current_user, %s, 'MEMBER')",
+        (role, role),
+    ).fetchone()
+    return bool(row and row[0])
+
+
+def open_connection(url: str, read_only: bool, busy_timeout_ms: int) -> Connection:
+    """A store connection to the book ``url``: autocommit (the store begins and ends its own
+    transactions), UTC, a lock timeout of ``busy_timeout_ms`` (SQLite's busy timeout). Read-only:
+    as ``blotter_reader`` when the login may act as it, and every transaction READ ONLY either way,
+    so the server refuses any write."""
+    raw = connect(url, autocommit=True)
+    import psycopg
+
+    try:
+        raw.execute("SET TIME ZONE 'UTC'")
+        raw.execute(f"SET lock_timeout = {int(busy_timeout_ms):d}")
+        if read_only:
+            if _member_of(raw, READER_ROLE):
+                raw.execute(f"SET ROLE {READER_ROLE}")
+            raw.execute("SET default_transaction_read_only = on")
+    except psycopg.Error as exc:
+        raw.close()
+        raise StoreError(f"cannot use the PostgreSQL book ({str(exc).strip()})") from None
+    except BaseException:
+        raw.close()
+        raise
+    return Connection(raw)
+
+
+def may_write(conn: Connection) -> bool:
+    """Whether the login may append to the book (its trades, as the writer role may)."""
+    row = conn.raw.execute("SELECT has_table_privilege('trade', 'INSERT')").fetchone()
+    return bool(row and row[0])
+
+
+def login(conn: Connection) -> str:
+    """The login role the connection was made as."""
+    row = conn.raw.execute("SELECT session_user").fetchone()
+    return str(row[0]) if row else "?"
+
+
+def data_version(conn: Connection) -> int:
+    """A counter that moves with every commit that writes the book: the sum of each table's
+    newest id (every table is append-only, so each insert moves it up) and of the book rows'
+    ``xmin`` (a description's update, the one update allowed)."""
+    parts = " + ".join(f"(SELECT coalesce(max({key}), 0) FROM {t})" for t, key in KEYS.items())
+    row = conn.raw.execute(
+        f"SELECT {parts} + (SELECT coalesce(sum(xmin::text::bigint), 0) FROM book)"
+    ).fetchone()
+    return int(row[0]) if row else 0
+
+
+_NO_REPLACE = re.compile(
+    r"CREATE TRIGGER (\w+)_no_replace BEFORE INSERT ON \1\b.*?RAISE\(ABORT, '((?:[^']|'')*)'\)",
+    re.DOTALL,
+)
+
+
+@functools.cache
+def replace_words() -> dict[str, str]:
+    """Per table, the words ``schema.sql``'s no-replace trigger refuses a row with, which the
+    server's unique keys say as a duplicate key: a refusal reads the same on either backend."""
+    from blotter.store.db import schema_path
+
+    text = schema_path().read_text(encoding="utf-8")
+    return {m.group(1): m.group(2).replace("''", "'") for m in _NO_REPLACE.finditer(text)}
+
+
+def is_error(exc: BaseException) -> bool:
+    """Whether ``exc`` is psycopg's (without importing psycopg when nothing has)."""
+    module = sys.modules.get("psycopg")
+    return module is not None and isinstance(exc, module.Error)
+
+
+def error(exc: BaseException, where: str) -> StoreError:
+    """A ``StoreError`` saying what a psycopg error means for the user, in the words
+    ``errors.sql_error`` gives SQLite's, logged as they are."""
+    import psycopg
+    from psycopg import errors as e
+
+    from blotter.store.errors import BusyError, NotWritableError, ReadOnlyError, log_refusal
+
+    prefix = f"{where}: " if where else ""
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    if isinstance(exc, psycopg.Error) and exc.diag.message_primary:
+        text = exc.diag.message_primary
+    said: StoreError
+    if isinstance(exc, (e.LockNotAvailable, e.DeadlockDetected, e.QueryCanceled)):
+        said = BusyError(
+            f"{prefix}the book is busy (another process is writing to it); "
+            "nothing was written, try again"
+        )
+    elif isinstance(exc, e.ReadOnlySqlTransaction):
+        said = ReadOnlyError()
+    elif isinstance(exc, e.InsufficientPrivilege):
+        said = NotWritableError(
+            f"{prefix}the PostgreSQL server refused the write ({text}): this login may only "
+            "read the book"
+        )
+    elif isinstance(exc, e.UniqueViolation) and exc.diag.table_name in replace_words():
+        said = StoreError(f"{prefix}refused by the book: {replace_words()[exc.diag.table_name]}")
+    elif isinstance(exc, (e.IntegrityError, e.RaiseException)):
+        said = StoreError(f"{prefix}refused by the book: {text}")
+    elif isinstance(exc, psycopg.OperationalError):
+        said = StoreError(
+            f"{prefix}the PostgreSQL server could not be reached or ended the connection "
+            f"({text}); nothing was written"
+        )
+    else:
+        said = StoreError(f"{prefix}{text}")
+    return log_refusal(said, exc)

@@ -3,7 +3,6 @@ accounts) and the desk's free notes."""
 
 from __future__ import annotations
 
-import sqlite3
 from collections.abc import Mapping
 from datetime import datetime
 from typing import Any
@@ -70,7 +69,7 @@ def _corrected_columns() -> str:
     return ", ".join([*cols, f"{_latest('tick')} AS tick"])
 
 
-def underlying_rows(conn: sqlite3.Connection) -> list[sqlite3.Row]:
+def underlying_rows(conn: db.Conn) -> list[db.Row]:
     """Every underlying's row (``UNDERLYING_COLUMNS`` then ``tick``, NULL when none was set),
     in id order, with the latest correction of each field in force."""
     return db.rows(
@@ -78,7 +77,7 @@ def underlying_rows(conn: sqlite3.Connection) -> list[sqlite3.Row]:
     )
 
 
-def underlyings_of(rows: list[sqlite3.Row]) -> Underlyings:
+def underlyings_of(rows: list[db.Row]) -> Underlyings:
     """The ``Underlyings`` of a book from its underlying rows (``underlying_rows``)."""
     return Underlyings(
         symbols=tuple(r["symbol"] for r in rows),
@@ -94,7 +93,7 @@ def underlyings_of(rows: list[sqlite3.Row]) -> Underlyings:
     )
 
 
-def underlying_terms(conn: sqlite3.Connection, symbol: str) -> sqlite3.Row:
+def underlying_terms(conn: db.Conn, symbol: str) -> db.Row:
     """The underlying ``symbol``'s id and contract defaults (underlying_id, multiplier, american,
     cash_settled, cutoff_time, kind); ``StoreError`` when the book has no such underlying."""
     row = db.one(
@@ -111,17 +110,17 @@ def underlying_terms(conn: sqlite3.Connection, symbol: str) -> sqlite3.Row:
     return row
 
 
-def underlying_ids(conn: sqlite3.Connection) -> dict[str, int]:
+def underlying_ids(conn: db.Conn) -> dict[str, int]:
     """Each underlying's id by symbol."""
     return {r["symbol"]: r["underlying_id"] for r in underlying_rows(conn)}
 
 
-def book_names_in(conn: sqlite3.Connection) -> list[str]:
+def book_names_in(conn: db.Conn) -> list[str]:
     """Names of the books, read on ``conn``."""
     return [name for (name,) in conn.execute("SELECT name FROM book ORDER BY name")]
 
 
-def book_id(conn: sqlite3.Connection, name: str, create: bool) -> int | None:
+def book_id(conn: db.Conn, name: str, create: bool) -> int | None:
     """The id of book ``name``; a new book when it is missing and ``create``, else None."""
     row = db.one(conn, "SELECT book_id FROM book WHERE name = ?", (name,))
     if row:
@@ -132,7 +131,7 @@ def book_id(conn: sqlite3.Connection, name: str, create: bool) -> int | None:
     return int(conn.execute("INSERT INTO book (name) VALUES (?)", (name,)).lastrowid or 0)
 
 
-def known_book_id(conn: sqlite3.Connection, name: str, create: bool, hint: str) -> int:
+def known_book_id(conn: db.Conn, name: str, create: bool, hint: str) -> int:
     """The id of book ``name``; a new book only when ``create``, else ``StoreError`` naming the
     books there are and ``hint`` (how to start a new one on purpose)."""
     found = book_id(conn, name, create=create)

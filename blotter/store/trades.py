@@ -7,7 +7,6 @@ the store's own order of history (``history.seq``) as it is written.
 
 from __future__ import annotations
 
-import sqlite3
 from collections.abc import Iterator, Sequence
 from datetime import date, datetime
 from typing import Any
@@ -70,7 +69,7 @@ def _chunks(ids: Sequence[int]) -> Iterator[Sequence[int]]:
         yield ids[start : start + _IN_CHUNKS]
 
 
-def _cutoffs(conn: sqlite3.Connection, ids: Sequence[int]) -> dict[int, tuple[Any, ...] | None]:
+def _cutoffs(conn: db.Conn, ids: Sequence[int]) -> dict[int, tuple[Any, ...] | None]:
     """For each contract id of the book among ``ids``: its (expiry, cut-off time, time zone,
     cut-off instant), or None for the underlying itself; ids the book lacks are left out."""
     out: dict[int, tuple[Any, ...] | None] = {}
@@ -234,7 +233,7 @@ class Trades(Contracts):
             return self._write_cancel(conn, trade_id, why, cancelled_at or self.now(), who)
 
     def _write_cancel(
-        self, conn: sqlite3.Connection, trade_id: int, reason: str, at: datetime, who: str | None
+        self, conn: db.Conn, trade_id: int, reason: str, at: datetime, who: str | None
     ) -> int:
         """Write the cancel of ``trade_id`` (checked already); returns its id."""
         cur = conn.execute(
@@ -244,7 +243,7 @@ class Trades(Contracts):
         return int(cur.lastrowid or 0)
 
     @staticmethod
-    def _cancellable(conn: sqlite3.Connection, trade_id: int) -> sqlite3.Row:
+    def _cancellable(conn: db.Conn, trade_id: int) -> db.Row:
         """The trade ``trade_id`` (with its book's name), refused unless it is live."""
         row = db.one(
             conn,
@@ -323,7 +322,7 @@ class Trades(Contracts):
 
     def _book_of(
         self,
-        conn: sqlite3.Connection,
+        conn: db.Conn,
         name: str,
         contract_ids: np.ndarray,
         quantities: np.ndarray,
@@ -458,10 +457,11 @@ class Trades(Contracts):
         marks move none of it."""
         with self._read() as conn:
             row = conn.execute(
-                "SELECT (SELECT max(rowid) FROM trade), (SELECT max(rowid) FROM trade_cancel), "
-                "(SELECT max(rowid) FROM contract), (SELECT max(rowid) FROM book), "
-                "(SELECT max(rowid) FROM underlying), "
-                "(SELECT max(rowid) FROM underlying_correction)"
+                "SELECT (SELECT max(trade_id) FROM trade), "
+                "(SELECT max(cancel_id) FROM trade_cancel), "
+                "(SELECT max(contract_id) FROM contract), (SELECT max(book_id) FROM book), "
+                "(SELECT max(underlying_id) FROM underlying), "
+                "(SELECT max(correction_id) FROM underlying_correction)"
             ).fetchone()
         return tuple(int(x or 0) for x in row)
 
@@ -514,7 +514,7 @@ class Trades(Contracts):
         """Trades dealt in (``since``, ``until``] (all when None) with state, in order of deal
         time (the trade's own time, as given or the booking terminal's clock), then of the
         store's own order."""
-        where = ["1"]
+        where = ["TRUE"]
         params: list[Any] = []
         if book is not None:
             where.append("b.name = ?")
@@ -548,7 +548,7 @@ class Trades(Contracts):
         return [self._trade_record(r) for r in rows]
 
     @staticmethod
-    def _trade_record(r: sqlite3.Row) -> TradeRecord:
+    def _trade_record(r: db.Row) -> TradeRecord:
         """The record of a row of ``trades()``'s query, its state read off its cancel."""
         if r["cancelled_at"] is None:
             state = "live"

@@ -107,12 +107,14 @@ def _close_writer(db: str, rounds: str) -> None:
 
 
 def _hold_lock(db: str, seconds: str) -> None:
-    """Hold the write lock (BEGIN IMMEDIATE) for ``seconds``, printing 'locked' once held."""
-    from blotter.store import open_store
+    """Hold the write lock (BEGIN IMMEDIATE, the server's writer lock) for ``seconds``, printing
+    'locked' once held."""
+    from blotter.store import open_store, pg
 
     store = open_store(db)
     conn = store.connection
-    conn.execute("BEGIN IMMEDIATE")
+    for sql in pg.BEGIN_WRITE if pg.is_url(db) else ("BEGIN IMMEDIATE",):
+        conn.execute(sql)
     print("locked", flush=True)
     time.sleep(float(seconds))
     conn.execute("ROLLBACK")

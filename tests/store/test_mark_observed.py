@@ -5,6 +5,7 @@ market carries every point's time so staleness is read point by point."""
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Callable
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
@@ -33,10 +34,10 @@ def points(st: store.Store, set_id: int | None = None) -> dict[str, datetime]:
 
 
 def test_a_close_keeps_each_points_own_time_and_a_later_close_does_not_re_date_it(
-    tmp_path: Path,
+    new_book: Callable[[], str],
 ) -> None:
     clock = Clock(T1)
-    st = store.create_store(tmp_path / "book.db", clock=clock)
+    st = store.create_store(new_book(), clock=clock)
     try:
         st.add_underlying("XYZ", "stock", "USD", 100.0, description="invented for the tests")
         st.log_spot("XYZ", 100.0)
@@ -70,10 +71,10 @@ def test_a_close_keeps_each_points_own_time_and_a_later_close_does_not_re_date_i
 
 
 def test_every_point_of_a_set_given_whole_is_observed_when_the_set_is_marked(
-    tmp_path: Path,
+    new_book: Callable[[], str],
 ) -> None:
     at = T1 - timedelta(days=3)
-    st = store.create_store(tmp_path / "book.db", clock=Clock(T1))
+    st = store.create_store(new_book(), clock=Clock(T1))
     try:
         st.add_underlying("XYZ", "stock", "USD", 100.0, description="invented for the tests")
         spot = store.MarkPoint("spot", 100.0, symbol="XYZ")

@@ -4,8 +4,10 @@ closes, expiry cut-offs, and that no call leaves a transaction open."""
 from __future__ import annotations
 
 import threading
+from collections.abc import Iterator
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -17,8 +19,8 @@ UTC = UTC
 
 
 @pytest.fixture
-def store(tmp_book: Path) -> Store:
-    s = open_store(tmp_book)
+def store(book: str) -> Iterator[Store]:
+    s = open_store(book)
     add_underlyings(s)
     yield s
     s.close()
@@ -234,28 +236,26 @@ def test_every_public_write_leaves_no_transaction_open(store: Store, tmp_path: P
 
 
 def test_busy_database_fails_clearly_and_keeps_nothing(
-    store: Store, tmp_book: Path, monkeypatch: pytest.MonkeyPatch
+    store: Store, book: str, writer_lock: Any, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     """RELIABILITY 9 (in one process): another connection holds the write lock past the timeout."""
     from blotter.store import BusyError, db
 
-    holder = db.connect(tmp_book, read_only=False)
-    holder.execute("BEGIN IMMEDIATE")
-    with monkeypatch.context() as patched:
-        patched.setattr(db, "BUSY_TIMEOUT_MS", 300)  # read as each connection is made
-        quick = open_store(tmp_book)
-    try:
-        before = quick.load_market().version
-        with pytest.raises(BusyError, match="busy"):
-            quick.log_spot("TSTA", 50.0)
-        assert not quick.in_transaction()
-        holder.execute("ROLLBACK")
-        assert quick.load_market().version == before
-        quick.log_spot("TSTA", 50.0)  # the same mark, retried, lands
-        assert quick.load_market().spots == {"TSTA": 50.0}
-    finally:
-        holder.close()
-        quick.close()
+    with writer_lock(book) as release:
+        with monkeypatch.context() as patched:
+            patched.setattr(db, "BUSY_TIMEOUT_MS", 300)  # read as each connection is made
+            quick = open_store(book)
+        try:
+            before = quick.load_market().version
+            with pytest.raises(BusyError, match="busy"):
+                quick.log_spot("TSTA", 50.0)
+            assert not quick.in_transaction()
+            release()
+            assert quick.load_market().version == before
+            quick.log_spot("TSTA", 50.0)  # the same mark, retried, lands
+            assert quick.load_market().spots == {"TSTA": 50.0}
+        finally:
+            quick.close()
 
 
 def test_each_thread_gets_its_own_connection(store: Store) -> None:
@@ -274,12 +274,12 @@ def test_each_thread_gets_its_own_connection(store: Store) -> None:
     assert store.load_market().spots == {"TSTA": 101.0}
 
 
-def test_read_only_store_refuses_every_write_method(tmp_book: Path) -> None:
-    with open_store(tmp_book) as s:
+def test_read_only_store_refuses_every_write_method(book: str) -> None:
+    with open_store(book) as s:
         add_underlyings(s)
         s.log_spot("TSTA", 100.0)
         tid = s.add_trade("main", "TSTA", 1, 1.0)
-    ro = open_store(tmp_book, read_only=True)
+    ro = open_store(book, read_only=True)
     for call in [
         lambda: ro.add_trade("main", "TSTA", 1, 1.0),
         lambda: ro.cancel_trade(tid, "x"),
@@ -299,11 +299,11 @@ def test_read_only_store_refuses_every_write_method(tmp_book: Path) -> None:
     ro.close()
 
 
-def test_user_input_is_stored_literally_never_run_as_sql(tmp_book: Path) -> None:
+def test_user_input_is_stored_literally_never_run_as_sql(book: str) -> None:
     """RELIABILITY 15: a description, book and note made of SQL are stored and read back as text;
     a symbol made of SQL is refused (a symbol is one word of the what-if) and changes nothing."""
     evil = "x'); DROP TABLE trade;--"
-    with open_store(tmp_book) as s:
+    with open_store(book) as s:
         with pytest.raises(StoreError, match="no spaces"):
             s.add_underlying(evil, "stock", "USD", 100)
         s.add_underlying("EVL", "stock", "USD", 100, description=evil)
@@ -317,18 +317,18 @@ def test_user_input_is_stored_literally_never_run_as_sql(tmp_book: Path) -> None
         assert s.integrity_ok()
 
 
-def test_a_cached_store_sees_contracts_added_by_another_connection(tmp_book: Path) -> None:
-    with open_store(tmp_book) as s:
+def test_a_cached_store_sees_contracts_added_by_another_connection(book: str) -> None:
+    with open_store(book) as s:
         add_underlyings(s)
         s.add_trade("main", "TSTA", 1, 1.0, "2030-06-21", 100, True)
-    viewer = open_store(tmp_book, read_only=True)
+    viewer = open_store(book, read_only=True)
     assert viewer.load_book().labels == ("TSTA 2030-06-21 100 C",)
-    with open_store(tmp_book) as other:
+    with open_store(book) as other:
         other.add_trade("main", "TSTA", -2, 1.0, "2030-06-21", 90, False)
         other.add_trade("main", "TSTA", 50, 99.0)
-    book = viewer.load_book()
-    assert book.labels == ("TSTA", "TSTA 2030-06-21 90 P", "TSTA 2030-06-21 100 C")
-    assert list(book.quantities) == [50.0, -2.0, 1.0]
+    seen = viewer.load_book()
+    assert seen.labels == ("TSTA", "TSTA 2030-06-21 90 P", "TSTA 2030-06-21 100 C")
+    assert list(seen.quantities) == [50.0, -2.0, 1.0]
     viewer.close()
 
 

@@ -4,6 +4,7 @@ changed only by a new row (the latest in force), never edited, and checked by SQ
 from __future__ import annotations
 
 import sqlite3
+from collections.abc import Callable
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -43,8 +44,8 @@ def test_an_upgraded_book_gets_usd_written_in_the_file(tmp_path: Path) -> None:
     raw.close()
 
 
-def test_a_new_book_takes_its_base_and_a_change_is_a_new_row(tmp_path: Path) -> None:
-    with create_store(tmp_path / "b.db", base_currency="EUR") as s:
+def test_a_new_book_takes_its_base_and_a_change_is_a_new_row(new_book: Callable[[], str]) -> None:
+    with create_store(new_book(), base_currency="EUR") as s:
         assert s.base_currency() == "EUR"
         s.set_base_currency("GBP")
         s.set_base_currency("JPY")
@@ -53,16 +54,19 @@ def test_a_new_book_takes_its_base_and_a_change_is_a_new_row(tmp_path: Path) -> 
         assert [h["currency"] for h in history] == ["EUR", "GBP", "JPY"]
         assert history[0]["set_at"] is None and all(h["set_at"] for h in history[1:])
         assert all(h["who"] == s.who for h in history[1:])
-    with create_store(tmp_path / "c.db") as s:
+    with create_store(new_book()) as s:
         assert s.base_currency() == "USD"
 
 
 @pytest.mark.parametrize("bad", ["usd", "US", "EURO", "", "U$D"])
-def test_a_bad_currency_is_refused_and_nothing_is_written(tmp_path: Path, bad: str) -> None:
+def test_a_bad_currency_is_refused_and_nothing_is_written(
+    new_book: Callable[[], str], bad: str
+) -> None:
+    place = new_book()
     with pytest.raises(st.StoreError, match="ISO 4217"):
-        create_store(tmp_path / "x.db", base_currency=bad)
-    assert not (tmp_path / "x.db").exists()
-    with create_store(tmp_path / "y.db", base_currency="CHF") as s:
+        create_store(place, base_currency=bad)
+    # create_store makes a book only where nothing is (no file, an empty database)
+    with create_store(place, base_currency="CHF") as s:
         with pytest.raises(st.StoreError, match="ISO 4217"):
             s.set_base_currency(bad)
         assert s.base_currency_history() == [{"currency": "CHF", "set_at": None, "who": None}]

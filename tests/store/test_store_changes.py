@@ -12,7 +12,7 @@ from zoneinfo import ZoneInfo
 
 import pytest
 
-from blotter.store import open_store, pg
+from blotter.store import create_store, open_store
 
 TICK_S = 0.05
 """The file's poll interval in these tests (the app's is a setting)."""
@@ -35,19 +35,15 @@ def backend(request: pytest.FixtureRequest, tmp_book: Path) -> Iterator[tuple[Ch
             yield (lambda stop: viewer.changes(stop, TICK_S)), str(tmp_book)
         return
     url: str = request.getfixturevalue("pg_url")
-    with pg.connect(url) as conn:
-        pg.create_schema(conn, ZoneInfo("UTC"), "USD")
-    yield (lambda stop: pg.changes(url, stop, WAKE_S)), url
+    create_store(url, desk_tz=ZoneInfo("UTC")).close()
+    with open_store(url, read_only=True) as viewer:  # its changes are pg.changes
+        yield (lambda stop: viewer.changes(stop, WAKE_S)), url
 
 
 def _commit(book: str) -> None:
     """Another writer commits a new book name."""
-    if pg.is_url(book):
-        with pg.connect(book) as conn:
-            conn.execute("INSERT INTO book (name) VALUES ('second')")
-    else:
-        with open_store(book) as writer:
-            writer.add_book("second")
+    with open_store(book) as writer:
+        writer.add_book("second")
 
 
 def test_a_commit_moves_the_counter_and_stop_ends_the_watch(

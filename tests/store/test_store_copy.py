@@ -124,12 +124,14 @@ def test_a_refused_copy_to_a_file_leaves_no_file(busy_book: Path, tmp_path: Path
     assert not (tmp_path / "out.db").exists()
 
 
-def test_other_commands_refuse_a_postgres_url_in_words() -> None:
-    """Until the store opens PostgreSQL books, a URL given to ``--db`` says so instead of
-    looking for a file named like it."""
-    result = CliRunner().invoke(main, ["--db", "postgresql://me@dbhost/book", "trade", "list"])
+def test_a_server_that_cannot_be_reached_is_said_in_words() -> None:
+    """A URL given to ``--db`` is a PostgreSQL book, never a file named like it; a server the
+    name does not lead to is one line of words, no traceback."""
+    url = "postgresql://me@dbhost.invalid/book"
+    result = CliRunner().invoke(main, ["--db", url, "trade", "list"])
     assert result.exit_code == 1
-    assert "blotter copy" in result.output and "no book at" not in result.output
+    assert result.output.startswith("Error: cannot connect to the PostgreSQL book")
+    assert "no book at" not in result.output and "Traceback" not in result.output
 
 
 @pytest.mark.parametrize("side", ["source", "dest"])

@@ -20,14 +20,14 @@ BEFORE = 6
 currency (9)."""
 
 
-def _book(tmp_book: Path) -> Path:
-    with open_store(tmp_book) as s:
+def _book(book: str) -> str:
+    with open_store(book) as s:
         add_underlyings(s)
-    return tmp_book
+    return book
 
 
-def test_latest_correction_of_each_field_wins_and_nothing_is_updated(tmp_book: Path) -> None:
-    path = _book(tmp_book)
+def test_latest_correction_of_each_field_wins_and_nothing_is_updated(book: str) -> None:
+    path = _book(book)
     with open_store(path) as s:
         before = s.underlying_records()[0]
         assert before["symbol"] == "TSTA" and before["tick"] == 0.01  # a stock's default
@@ -41,6 +41,14 @@ def test_latest_correction_of_each_field_wins_and_nothing_is_updated(tmp_book: P
             "tick is a nickel",
             "beta re-estimated",
         ]
+        assert s.underlying_records()[0]["beta"] == 1.1
+
+
+@pytest.mark.file_only("SQLite's triggers by a plain connection (the server's: postgres tests)")
+def test_the_file_refuses_to_update_or_replace_a_correction(book: str) -> None:
+    path = _book(book)
+    with open_store(path) as s:
+        s.correct_underlying("TSTA", "beta re-estimated", {"beta": 1.1})
     raw = sqlite3.connect(path)
     # The underlying's own row is as written.
     assert raw.execute("SELECT beta FROM underlying WHERE symbol = 'TSTA'").fetchone()[0] == 1.0
@@ -56,8 +64,8 @@ def test_latest_correction_of_each_field_wins_and_nothing_is_updated(tmp_book: P
     raw.close()
 
 
-def test_a_bad_correction_is_refused_in_words_and_writes_nothing(tmp_book: Path) -> None:
-    path = _book(tmp_book)
+def test_a_bad_correction_is_refused_in_words_and_writes_nothing(book: str) -> None:
+    path = _book(book)
     with open_store(path) as s:
         with pytest.raises(st.StoreError, match="nothing to correct"):
             s.correct_underlying("TSTA", "why", {})
@@ -72,10 +80,10 @@ def test_a_bad_correction_is_refused_in_words_and_writes_nothing(tmp_book: Path)
         assert s.underlying_corrections() == []
 
 
-def test_the_cli_records_a_correction_and_the_list_shows_it(tmp_book: Path) -> None:
+def test_the_cli_records_a_correction_and_the_list_shows_it(book: str) -> None:
     from blotter.cli import main
 
-    path = _book(tmp_book)
+    path = _book(book)
     run = CliRunner().invoke(
         main,
         ["--db", str(path), "underlying", "correct", "TSTA", "--tick", "0.05",

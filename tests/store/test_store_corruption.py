@@ -27,6 +27,8 @@ import pytest
 from blotter.risk import value_book
 from blotter.store import StoreError, integrity_problems, open_store
 
+pytestmark = pytest.mark.file_only("damaged pages of a book file")
+
 PAGE = 4096
 AT = np.datetime64("2026-12-01T12:00:00", "s")
 FIELDS = ("value", "delta_cash", "vega_pt", "theta_day", "rho_pct", "gamma_1pct")

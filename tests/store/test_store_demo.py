@@ -13,6 +13,8 @@ import pytest
 from blotter.store import StoreError, open_store, shipped_demo_path
 from blotter.store.demo import DEMO_AS_OF, build_demo, demo_close_times
 
+pytestmark = pytest.mark.file_only("the shipped demo.db and the file build_demo writes")
+
 
 def _contents(path: Path) -> list[object]:
     """Everything that matters in a book: pragmas, schema and every row of every table."""

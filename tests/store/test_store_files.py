@@ -16,6 +16,8 @@ import pytest
 import blotter.store as st
 from blotter.store import StoreError, create_store, open_store, user_demo_copy
 
+pytestmark = pytest.mark.file_only("paths, modes, read-only fences and backups of a book file")
+
 
 def _files(d: Path) -> set[str]:
     return {p.name for p in d.iterdir()}

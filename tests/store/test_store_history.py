@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import sqlite3
 import subprocess
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -25,8 +25,8 @@ EXPIRY = "2030-06-21"
 
 
 @pytest.fixture
-def store(tmp_book: Path) -> Iterator[Store]:
-    s = open_store(tmp_book)
+def store(book: str) -> Iterator[Store]:
+    s = open_store(book)
     add_underlyings(s)
     s.log_spot("TSTA", 100.0)
     yield s
@@ -91,31 +91,33 @@ def test_the_store_numbers_every_history_row_in_the_order_it_was_written(store: 
     ],
 )
 def test_a_close_closes_the_desk_date_of_its_time(
-    tmp_path: Path, zone: str, instant: str, closes: str
+    new_book: Callable[[], str], zone: str, instant: str, closes: str
 ) -> None:
     """The book's own desk zone (the zone of the terminal that made it) dates its closes,
     whatever the zone of the terminal that writes one."""
-    with st.create_store(tmp_path / "book.db", desk_tz=ZoneInfo(zone)) as made:
+    place = new_book()
+    with st.create_store(place, desk_tz=ZoneInfo(zone)) as made:
         add_underlyings(made)
         made.log_spot("TSTA", 100.0)
-    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("Pacific/Kiritimati")) as desk:
+    with st.open_store(place, desk_tz=ZoneInfo("Pacific/Kiritimati")) as desk:
         assert desk.desk_tz == ZoneInfo(zone)
         info = desk.commit_close_info(marked_at=st.parse_time(instant))
         assert info.business_date == date.fromisoformat(closes)
         assert desk.mark_sets("close")[-1].business_date == info.business_date
 
 
-def test_terminals_of_different_zones_date_one_close_alike(tmp_path: Path) -> None:
+def test_terminals_of_different_zones_date_one_close_alike(new_book: Callable[[], str]) -> None:
     """A terminal set to Kiritimati (UTC+14) and one set to New York close the same book a
     moment apart: both are dated in the book's zone, so the second is a second close of the
     same date and is refused (two dates a day apart made explain run backwards)."""
-    with st.create_store(tmp_path / "book.db", desk_tz=ZoneInfo("America/New_York")) as made:
+    place = new_book()
+    with st.create_store(place, desk_tz=ZoneInfo("America/New_York")) as made:
         add_underlyings(made)
         made.log_spot("TSTA", 100.0)
     now = st.parse_time("2026-12-03T21:30:00Z")  # 16:30 New York, 11:30 on the 4th Kiritimati
-    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("Pacific/Kiritimati")) as far:
+    with st.open_store(place, desk_tz=ZoneInfo("Pacific/Kiritimati")) as far:
         first = far.commit_close_info(marked_at=now)
-    with st.open_store(tmp_path / "book.db", desk_tz=ZoneInfo("America/New_York")) as near:
+    with st.open_store(place, desk_tz=ZoneInfo("America/New_York")) as near:
         with pytest.raises(StoreError, match="the close of 2026-12-03 is already written"):
             near.commit_close_info(marked_at=now + timedelta(seconds=1))
     assert first.business_date == date(2026, 12, 3)
@@ -155,10 +157,11 @@ def _raw(path: Path) -> sqlite3.Connection:
     return conn
 
 
+@pytest.mark.file_only("SQLite's triggers by a plain connection (the server's: postgres tests)")
 def test_sqlite_itself_keeps_one_close_a_day_and_numbers_raw_writes(store: Store) -> None:
     """Through a plain connection, bypassing the store's checks."""
     close = store.commit_close(marked_at=datetime(2026, 12, 3, 21, 30, tzinfo=UTC))
-    conn = _raw(store.path)
+    conn = _raw(Path(store.path))
     ts = "'2026-12-03T21:40:00.000000Z'"
     insert = "INSERT INTO mark_set (kind, marked_at, who, source, mark_count, corrects, " + (
         "business_date) VALUES ('{}', " + ts + ", 'raw', 'typed', 1, {}, {})"
@@ -185,10 +188,10 @@ def test_sqlite_itself_keeps_one_close_a_day_and_numbers_raw_writes(store: Store
     conn.close()
 
 
-def test_two_processes_closing_at_once_write_one_close(tmp_path: Path) -> None:
+def test_two_processes_closing_at_once_write_one_close(new_book: Callable[[], str]) -> None:
     """Each round a fresh book and two processes released together: one close, one refusal."""
-    for round_ in range(3):
-        path = tmp_path / f"race{round_}.db"
+    for _round in range(3):
+        path = new_book()
         with st.create_store(path) as s:
             add_underlyings(s)
             s.log_spot("TSTA", 100.0)
@@ -212,6 +215,7 @@ def test_two_processes_closing_at_once_write_one_close(tmp_path: Path) -> None:
 V1_SQL = Path(__file__).with_name("data") / "schema_v1.sql"
 
 
+@pytest.mark.file_only("upgrades a file of schema 1 (a PostgreSQL book starts at schema 9)")
 def test_an_upgraded_book_numbers_its_history_by_clock_and_dates_its_closes(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:

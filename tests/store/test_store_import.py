@@ -7,6 +7,7 @@ import csv
 import io
 import sqlite3
 import tempfile
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
@@ -31,8 +32,8 @@ from blotter.store import (
 
 
 @pytest.fixture
-def store(tmp_book: Path) -> Store:
-    s = open_store(tmp_book)
+def store(book: str) -> Iterator[Store]:
+    s = open_store(book)
     add_underlyings(s)
     yield s
     s.close()
@@ -173,15 +174,17 @@ def _export(rows: list[list[object]], columns: tuple[str, ...]) -> str:
     return out.getvalue()
 
 
-def test_trade_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) -> None:
-    with open_store(demo_db, read_only=True) as src:
+def test_trade_list_csv_imports_back_unchanged(
+    demo_book: str, new_book: Callable[[], str], tmp_path: Path
+) -> None:
+    with open_store(demo_book, read_only=True) as src:
         trades = src.trades(live_only=True)
         unders = src.connection.execute(
             "SELECT symbol, kind, currency, multiplier, american, cash_settled FROM underlying"
         ).fetchall()
     out = tmp_path / "trades.csv"
     out.write_text(_export([trade_csv_row(t) for t in trades], TRADE_COLUMNS + TRADE_INFO_COLUMNS))
-    dst = create_store(tmp_path / "copy.db")
+    dst = create_store(new_book())
     for sym, kind, ccy, mult, am, cash in unders:
         dst.add_underlying(sym, kind, ccy, mult, american=bool(am), cash_settled=bool(cash))
     dst.import_trades_csv(out, new_books=True)  # a fresh file has no books: the file starts them
@@ -191,8 +194,8 @@ def test_trade_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) ->
     dst.close()
 
 
-def test_mark_list_csv_imports_back_unchanged(demo_db: Path, tmp_path: Path) -> None:
-    with open_store(demo_db) as src:
+def test_mark_list_csv_imports_back_unchanged(demo_book: str, tmp_path: Path) -> None:
+    with open_store(demo_book) as src:
         marks = src.marks()
         out = tmp_path / "marks.csv"
         out.write_text(_export([mark_csv_row(m) for m in marks], MARK_COLUMNS + MARK_INFO_COLUMNS))
@@ -226,6 +229,7 @@ def test_formula_like_text_is_neutralised_on_export_and_restored_on_import(
     other.close()
 
 
+@pytest.mark.file_only("the control is sqlite-utils' own pitfall, on a file")
 def test_sqlite_utils_without_atomic_keeps_a_partial_batch_ours_keeps_nothing(
     tmp_book: Path, tmp_path: Path
 ) -> None:
@@ -286,19 +290,23 @@ _cell = hs.text(alphabet=hs.characters(blacklist_categories=("Cs",)), max_size=3
     crlf=hs.booleans(),
 )
 def test_fuzzed_mark_files_import_whole_or_raise_our_error(
-    tmp_path: Path, rows: list[tuple[str, ...]], bom: bool, crlf: bool
+    tmp_path: Path,
+    new_book: Callable[[], str],
+    rows: list[tuple[str, ...]],
+    bom: bool,
+    crlf: bool,
 ) -> None:
     """RELIABILITY 5: random cells, BOM, CRLF, quotes: the whole file lands or StoreError, never
     another exception and never part of the file."""
-    # A directory of its own per example: hypothesis replays the same example while shrinking.
-    db = Path(tempfile.mkdtemp(dir=tmp_path)) / "fuzz.db"
-    s = create_store(db)
+    # A book and a directory of their own per example: hypothesis replays an example while
+    # shrinking.
+    s = create_store(new_book())
+    path = Path(tempfile.mkdtemp(dir=tmp_path)) / "fuzz.csv"
     add_underlyings(s)
     out = io.StringIO()
     w = csv.writer(out, lineterminator="\r\n" if crlf else "\n")
     w.writerow(MARK_COLUMNS)
     w.writerows(rows)
-    path = db.with_suffix(".csv")
     path.write_bytes((b"\xef\xbb\xbf" if bom else b"") + out.getvalue().encode("utf-8"))
     try:
         rep = s.import_marks_csv(path)
@@ -310,9 +318,9 @@ def test_fuzzed_mark_files_import_whole_or_raise_our_error(
 
 
 def test_an_export_imported_into_its_own_book_is_refused_by_trade_id(
-    demo_db: Path, tmp_path: Path
+    demo_book: str, tmp_path: Path
 ) -> None:
-    with open_store(demo_db) as s:
+    with open_store(demo_book) as s:
         trades = s.trades(live_only=True)
         out = tmp_path / "trades.csv"
         out.write_text(

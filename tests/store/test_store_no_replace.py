@@ -20,6 +20,8 @@ from store_children import add_underlyings, trade_csv
 
 from blotter.store import open_store
 
+pytestmark = pytest.mark.file_only("SQLite's INSERT OR REPLACE, which PostgreSQL lacks")
+
 PROTECTED = (
     "underlying",
     "contract",
@@ -119,7 +121,7 @@ def conn(request: pytest.FixtureRequest, history: Path, tmp_path: Path) -> Itera
     copy.write_bytes(history.read_bytes())
     if request.param == "store":
         s = open_store(copy)
-        yield s.connection
+        yield _file(s)
         s.close()
     else:
         raw = sqlite3.connect(copy, isolation_level=None)
@@ -133,6 +135,13 @@ def _replace(conn: sqlite3.Connection, verb: str, table: str, row: dict[str, Any
     """``verb`` (REPLACE INTO or INSERT OR REPLACE INTO) ``row`` into ``table``, values bound."""
     columns, marks = ", ".join(row), ", ".join("?" * len(row))
     conn.execute(f"{verb} {table} ({columns}) VALUES ({marks})", tuple(row.values()))
+
+
+def _file(store: Any) -> sqlite3.Connection:
+    """The store's connection to its file (these tests are about SQLite's triggers)."""
+    conn = store.connection
+    assert isinstance(conn, sqlite3.Connection)
+    return conn
 
 
 def _table(conn: sqlite3.Connection, table: str) -> list[tuple[Any, ...]]:
@@ -187,7 +196,7 @@ def test_the_store_still_writes_every_protected_table(history: Path, tmp_path: P
     copy = tmp_path / "book.db"
     copy.write_bytes(history.read_bytes())
     with open_store(copy) as s:
-        before = {t: len(_table(s.connection, t)) for t in PROTECTED}
+        before = {t: len(_table(_file(s), t)) for t in PROTECTED}
         s.add_book("new")
         s.add_underlying("TSTB", "stock", "USD", 100)
         s.add_note("another note")
@@ -198,7 +207,7 @@ def test_the_store_still_writes_every_protected_table(history: Path, tmp_path: P
         s.import_trades_csv(trade_csv(tmp_path / "u.csv", 2, symbol="TSTB"))
         s.correct_underlying("TSTB", "beta re-estimated", {"beta": 1.2})
         s.set_base_currency("EUR")
-        after = {t: len(_table(s.connection, t)) for t in PROTECTED}
+        after = {t: len(_table(_file(s), t)) for t in PROTECTED}
         grown = [t for t in PROTECTED if t != "book_zone"]  # written once, with the book
         assert all(after[t] > before[t] for t in grown), (before, after)
         assert s.integrity_ok()
@@ -223,7 +232,7 @@ def test_the_stores_connections_refuse_a_replace_even_without_the_guards(
         raw.execute(f"DROP TRIGGER {name}")
     raw.close()
     with open_store(copy) as s:
-        conn = s.connection
+        conn = _file(s)
         assert conn.execute("PRAGMA recursive_triggers").fetchone()[0] == 1
         for _what, table, where, changes in CASES:
             row = _row(conn, table, where) | changes

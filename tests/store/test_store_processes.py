@@ -10,27 +10,29 @@ import os
 import random
 import shutil
 import signal
-import sqlite3
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import pytest
 from store_children import add_underlyings, spawn, trade_csv
 
-from blotter.store import BusyError, Store, open_store
+from blotter.store import BusyError, Store, create_store, open_store
 
 WRITERS = 4
 MARKS_EACH = 500
 
 
 @pytest.fixture
-def book(tmp_book: Path) -> Path:
-    with open_store(tmp_book) as s:
+def book(new_book: Callable[[], str]) -> str:
+    """A new book of the test's backend holding the test underlyings and books."""
+    name = new_book()
+    with create_store(name) as s:
         add_underlyings(s)
-    return tmp_book
+    return name
 
 
-def _run_loggers(book: Path, begin: str) -> tuple[list[str], int, int]:
+def _run_loggers(book: str, begin: str) -> tuple[list[str], int, int]:
     kids = [
         spawn("mark_logger", str(book), f"w{i}", str(MARKS_EACH), begin) for i in range(WRITERS)
     ]
@@ -45,14 +47,15 @@ def _run_loggers(book: Path, begin: str) -> tuple[list[str], int, int]:
     return outs, rows, distinct
 
 
-def test_concurrent_mark_loggers_lose_nothing(book: Path) -> None:
+def test_concurrent_mark_loggers_lose_nothing(book: str) -> None:
     """RELIABILITY 1: 4 processes x 500 read-then-write marks through the store's API."""
     outs, rows, distinct = _run_loggers(book, "immediate")
     assert outs == ["errors 0"] * WRITERS
     assert rows == distinct == WRITERS * MARKS_EACH
 
 
-def test_control_a_plain_deferred_begin_loses_marks(book: Path) -> None:
+@pytest.mark.file_only("SQLite's deferred BEGIN (the server's control: postgres processes test)")
+def test_control_a_plain_deferred_begin_loses_marks(book: str) -> None:
     """The control: the same loggers with BEGIN instead of BEGIN IMMEDIATE fail, so the test above
     can see the bug it guards against."""
     outs, rows, _ = _run_loggers(book, "deferred")
@@ -60,15 +63,15 @@ def test_control_a_plain_deferred_begin_loses_marks(book: Path) -> None:
     assert rows < WRITERS * MARKS_EACH and errors > 0, (outs, rows)
 
 
-def _assert_sound(path: Path) -> None:
-    conn = sqlite3.connect(path)
-    assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
-    assert conn.execute("PRAGMA foreign_key_check").fetchall() == []
-    conn.close()
+def _assert_sound(book: str) -> None:
+    """The file's integrity and foreign-key checks pass (a database's server enforces both as it
+    writes), and every mark set holds all its marks."""
+    with open_store(book, read_only=True) as s:
+        assert s.integrity_ok()
 
 
 def test_kill_9_in_the_middle_of_an_import_leaves_none_of_the_file(
-    book: Path, tmp_path: Path
+    book: str, tmp_path: Path
 ) -> None:
     """RELIABILITY 2: SIGKILL at a progress line inside the import's transaction; then re-run."""
     path = trade_csv(tmp_path / "big.csv", 30_000)
@@ -91,8 +94,9 @@ def test_kill_9_in_the_middle_of_an_import_leaves_none_of_the_file(
         assert s.integrity_ok()
 
 
+@pytest.mark.file_only("snapshots are backups of the file")
 def test_snapshots_at_random_instants_hold_only_whole_transactions(
-    book: Path, tmp_path: Path
+    book: str, tmp_path: Path
 ) -> None:
     """RELIABILITY 3: SIGSTOP the writer at random moments, copy the book and its WAL, go on;
     every copy is sound and every mark set in it holds all its marks."""
@@ -128,7 +132,7 @@ def test_snapshots_at_random_instants_hold_only_whole_transactions(
     assert len(sets_seen) > 10  # the snapshots caught many states
 
 
-def test_a_viewer_sees_another_process_commit_within_a_second(book: Path) -> None:
+def test_a_viewer_sees_another_process_commit_within_a_second(book: str) -> None:
     """RELIABILITY 7: poll data_version; no change while idle; no read transaction left open."""
     viewer = open_store(book, read_only=True)
     seen = viewer.data_version()
@@ -150,7 +154,8 @@ def test_a_viewer_sees_another_process_commit_within_a_second(book: Path) -> Non
     viewer.close()
 
 
-def test_the_wal_stays_bounded_while_a_viewer_polls(book: Path) -> None:
+@pytest.mark.file_only("the -wal file and its checkpoint")
+def test_the_wal_stays_bounded_while_a_viewer_polls(book: str) -> None:
     """RELIABILITY 7: many commits while a viewer refreshes; the viewer never pins the WAL."""
     viewer = open_store(book, read_only=True)
     writer = open_store(book)
@@ -169,7 +174,7 @@ def test_the_wal_stays_bounded_while_a_viewer_polls(book: Path) -> None:
 
 
 def test_a_writer_held_off_past_the_timeout_fails_cleanly(
-    book: Path, monkeypatch: pytest.MonkeyPatch
+    book: str, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     """RELIABILITY 9 across processes: another process holds BEGIN IMMEDIATE; we get BusyError,
     nothing changes, and the same write succeeds once the lock is released."""
@@ -191,8 +196,9 @@ def test_a_writer_held_off_past_the_timeout_fails_cleanly(
     s.close()
 
 
+@pytest.mark.file_only("a file size limit on the writing process")
 def test_a_full_disk_gives_a_clear_error_and_a_later_retry_lands(
-    book: Path, tmp_path: Path
+    book: str, tmp_path: Path
 ) -> None:
     """RELIABILITY 10: RLIMIT_FSIZE makes the WAL write fail (SQLITE_IOERR or SQLITE_FULL)."""
     rows = ["kind,symbol,expiry,strike,value"]

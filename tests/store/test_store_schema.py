@@ -18,6 +18,8 @@ from store_children import add_underlyings, spawn
 import blotter.store as st
 from blotter.store import SCHEMA_VERSION, open_store
 
+pytestmark = pytest.mark.file_only("SQLite's STRICT types, CHECKs and triggers at the SQL level")
+
 V1_SQL = Path(__file__).with_name("data") / "schema_v1.sql"
 TS = "2026-01-05T15:00:00.000000Z"
 
