@@ -482,6 +482,8 @@ class BlotterApp(App[None]):
             with self.open_store(read_only=True, verify=False) as st:
                 if (name, st.positions_seq()) != base.key:
                     return
+                if self._read is not None and self._read.marks_cache is not None:
+                    st.marks_cache = self._read.marks_cache  # the marks in force read on
                 today = pnl.pnl_today(st, state.valuation.valuation_time, name)
         except Exception:  # noqa: BLE001 - the advanced P&L stays; the next load tries again
             return
