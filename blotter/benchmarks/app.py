@@ -444,7 +444,9 @@ async def _feed_app(db_path: str) -> None:
     Prints ``ready`` once the book, the grid and the compiled kernels are in; then a ``start``
     line on stdin takes a CPU reading, and ``stop`` another, printing one JSON line (CPU and
     wall seconds between them, each Book pane repaint as [newest mark id, wall clock], peak
-    RSS in MB, [wall clock, CPU seconds so far] about once a second) before it exits."""
+    RSS in MB, [wall clock, CPU seconds so far] about once a second from ``ready`` on, so the
+    feed's warm-up and measure hold at least one new minute with the seconds after it) before
+    it exits."""
     from blotter import engine
     from blotter.config import Settings
     from blotter.ui.app import make_app
@@ -478,7 +480,7 @@ async def _feed_app(db_path: str) -> None:
         start = (0.0, 0.0)
         while True:
             await asyncio.sleep(0.05)
-            if start[1] and (not samples or time.time() - samples[-1][0] >= 1.0):
+            if not samples or time.time() - samples[-1][0] >= 1.0:
                 samples.append((time.time(), _cpu_s()))
             if app.timings.count(Timing.BOOK_PAINTED) != seen:
                 seen = app.timings.count(Timing.BOOK_PAINTED)
