@@ -175,6 +175,15 @@ def mixed_rows() -> list[Row]:
     ]
 
 
+def mixed_american_rows() -> list[Row]:
+    """``mixed_rows`` and three American options on STK, one of them expiring in two days."""
+    return mixed_rows() + [
+        Row("STK", 7, 115, 50, False, american=True),
+        Row("STK", -3, 118, 20, True, american=True),
+        Row("STK", 4, 90, 2, False, american=True),
+    ]
+
+
 @pytest.fixture
 def mixed_book() -> Book:
     """Options on all four kinds of underlying plus a stock and a futures hedge."""

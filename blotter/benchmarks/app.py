@@ -20,6 +20,12 @@
   ``desk.feed`` (written once a second, its default throttle). Two rows: the app process's CPU
   (user + system time over wall time, in % of one core; target 25%) and the delay from each
   batch's commit to the Book pane repainted with it (median and max; target 1 s).
+- ``app under a feed, 8 h of history``: the same, on a book that already holds ``FEED_HISTORY_H``
+  hours of the feed's batches (one set a second of every underlying's spot, written in one
+  transaction through the store's ``add_mark_set``), so what grows with the marks written is in
+  the measure. Its CPU row also says what the minute roll costs: the app's CPU in the seconds
+  after each new minute (every American boundary solved again at the new valuation instant)
+  above the run's mean second.
 """
 
 from __future__ import annotations
@@ -252,6 +258,7 @@ def run(quick: bool) -> list[Result]:
         )
     )
     results += _under_feed(quick)
+    results += _under_feed(quick, 0.25 if quick else FEED_HISTORY_H)
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(tmp) / "marks.db"
         _marks_book(db, 200)
@@ -408,6 +415,12 @@ FEED_SECONDS = 60.0
 the once-a-minute work (the book valued at the next minute's instant, P&L today explained from
 the close) is in every measure once."""
 
+FEED_HISTORY_H = 8.0
+"""Hours of feed history the sustained case's book holds before the measure."""
+
+ROLL_WINDOW_S = 5
+"""Seconds after each new minute counted as the minute roll's (its load, grid and panes)."""
+
 FEED_TAIL_S = 3.0
 """Commits this close to the end of the measure are not timed (their repaint may come after)."""
 
@@ -431,7 +444,9 @@ async def _feed_app(db_path: str) -> None:
     Prints ``ready`` once the book, the grid and the compiled kernels are in; then a ``start``
     line on stdin takes a CPU reading, and ``stop`` another, printing one JSON line (CPU and
     wall seconds between them, each Book pane repaint as [newest mark id, wall clock], peak
-    RSS in MB) before it exits."""
+    RSS in MB, [wall clock, CPU seconds so far] about once a second from ``ready`` on, so the
+    feed's warm-up and measure hold at least one new minute with the seconds after it) before
+    it exits."""
     from blotter import engine
     from blotter.config import Settings
     from blotter.ui.app import make_app
@@ -460,10 +475,13 @@ async def _feed_app(db_path: str) -> None:
         await _settle(app, pilot)
         print("ready", flush=True)
         paints: list[tuple[int, float]] = []
+        samples: list[tuple[float, float]] = []
         seen = app.timings.count(Timing.BOOK_PAINTED)
         start = (0.0, 0.0)
         while True:
             await asyncio.sleep(0.05)
+            if not samples or time.time() - samples[-1][0] >= 1.0:
+                samples.append((time.time(), _cpu_s()))
             if app.timings.count(Timing.BOOK_PAINTED) != seen:
                 seen = app.timings.count(Timing.BOOK_PAINTED)
                 last = app.timings.last(Timing.BOOK_PAINTED)
@@ -478,7 +496,13 @@ async def _feed_app(db_path: str) -> None:
                 paints.clear()
             elif command == "stop":
                 cpu, wall = _cpu_s() - start[0], time.perf_counter() - start[1]
-                out = {"cpu_s": cpu, "wall_s": wall, "paints": paints, "rss_mb": _rss_mb()}
+                out = {
+                    "cpu_s": cpu,
+                    "wall_s": wall,
+                    "paints": paints,
+                    "rss_mb": _rss_mb(),
+                    "samples": samples,
+                }
                 print(json.dumps(out), flush=True)
                 return
 
@@ -494,6 +518,58 @@ def _feed_book(path: Path, n: int) -> list[tuple[str, float]]:
         return sorted(st.load_market().spots.items())
     finally:
         st.close()
+
+
+def _feed_history(path: Path, spots: list[tuple[str, float]], hours: float) -> int:
+    """Write ``hours`` of the feed's batches ending now into the book at ``path``: one intraday
+    set a second holding a random-walk spot of every underlying, as ``desk.feed`` writes them at
+    its default throttle, all in one transaction; returns the sets written."""
+    from blotter import store
+    from blotter.store import MarkPoint
+
+    rng = np.random.default_rng(13)
+    n = int(hours * 3600)
+    first = datetime.now(UTC) - timedelta(seconds=n + 1)
+    walk = np.array([spot for _, spot in spots])
+    steps = np.exp(np.cumsum(5e-4 * rng.standard_normal((n, len(spots))), axis=0))
+    st = store.open_store(path)
+    try:
+        with st.atomic():
+            for i in range(n):
+                points = [
+                    MarkPoint("spot", float(f"{p:.6g}"), symbol=symbol)
+                    for (symbol, _), p in zip(spots, walk * steps[i], strict=True)
+                ]
+                st.add_mark_set(
+                    "intraday",
+                    points,
+                    source="file:feed-history",
+                    marked_at=first + timedelta(seconds=i),
+                    who="bench",
+                )
+        st.checkpoint()
+    finally:
+        st.close()
+    return n
+
+
+def _roll_cost(samples: list[tuple[float, float]]) -> tuple[float, int]:
+    """The app's CPU seconds in the ``ROLL_WINDOW_S`` seconds after each new minute above the
+    run's mean for as many seconds (median over the minutes in the run), and the minutes seen."""
+    if len(samples) < 3:
+        return math.nan, 0
+    at = np.array([s[0] for s in samples])
+    cpu = np.array([s[1] for s in samples])
+    per_s = np.diff(cpu) / np.diff(at)
+    mean = float((cpu[-1] - cpu[0]) / (at[-1] - at[0]))
+    minutes = np.arange(math.ceil(at[0] / 60) * 60, at[-1] - ROLL_WINDOW_S, 60.0)
+    excess = []
+    for m in minutes:
+        inside = (at[1:] > m) & (at[:-1] < m + ROLL_WINDOW_S)
+        spent = float((per_s[inside] * np.diff(at)[inside]).sum())
+        span = float(np.diff(at)[inside].sum())
+        excess.append(spent - mean * span)
+    return (float(np.median(excess)) if excess else math.nan), len(excess)
 
 
 def _feeding(
@@ -538,13 +614,15 @@ def _feeding(
     return commits
 
 
-def _under_feed(quick: bool) -> list[Result]:
-    """The ``app under a feed`` rows (see the module docstring)."""
+def _under_feed(quick: bool, history_h: float = 0.0) -> list[Result]:
+    """The ``app under a feed`` rows, on a book holding ``history_h`` hours of feed history
+    first (see the module docstring)."""
     n = 2_000 if quick else FEED_POSITIONS
     seconds = 8.0 if quick else FEED_SECONDS
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(tmp) / "feed.db"
         spots = _feed_book(db, n)
+        history_sets = _feed_history(db, spots, history_h) if history_h else 0
         child = subprocess.Popen(
             [sys.executable, "-c", FEED_CHILD, str(db)],
             stdin=subprocess.PIPE,
@@ -575,18 +653,28 @@ def _under_feed(quick: bool) -> list[Result]:
     missed = len(delays) - len(seen)
     share = 100.0 * out["cpu_s"] / out["wall_s"]
     where = f"{n:,}-position book, {FEED_QUOTES_PER_S:,} quotes/s"
+    name = "app under a feed"
+    roll = ""
+    if history_h:
+        name += f", {history_h:g} h of history"
+        where += f", {history_sets:,} feed sets written before"
+        cost, minutes = _roll_cost(out["samples"])
+        roll = (
+            f"; minute roll {cost:.2f} CPU s above the mean in the {ROLL_WINDOW_S} s after a "
+            f"new minute (median of {minutes}), {100 * cost / 60:.1f}% of a core a minute"
+        )
     return [
         Result(
-            case="app under a feed: CPU",
+            case=f"{name}: CPU",
             positions=n,
             ns_per_position=float("nan"),
             min=float("nan"),
             max=float("nan"),
             note=f"{share:.0f}% of one core over {out['wall_s']:.0f} s ({where}; target 25%); "
-            f"peak RSS {out['rss_mb']:.0f} MB",
+            f"peak RSS {out['rss_mb']:.0f} MB" + roll,
         ),
         result_from(
-            "app under a feed: commit→book pane",
+            f"{name}: commit→book pane",
             1,
             seen if len(seen) else np.array([math.nan]),
             target_ns=1e9,

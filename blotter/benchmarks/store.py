@@ -17,6 +17,7 @@
 
 from __future__ import annotations
 
+import sqlite3
 import subprocess
 import sys
 import tempfile
@@ -107,6 +108,7 @@ def _open_check(path: Path, positions: int, repeat: int) -> Result:
 
     with open_store(path, read_only=True) as store:
         conn = store.connection
+        assert isinstance(conn, sqlite3.Connection)  # the bench's books are files
         full = timed(lambda: integrity_problems(conn), repeat=repeat)
         quick = timed(lambda: conn.execute("PRAGMA quick_check").fetchall(), repeat=repeat)
     return result_from(

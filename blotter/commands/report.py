@@ -874,6 +874,29 @@ def _move_json(res: MoveResult, ccy_of: dict[str, str], said: MoveWords) -> dict
     }
 
 
+def _executor_options(what: str) -> Callable[[Callable[..., Any]], Callable[..., Any]]:
+    """``--workers`` and ``--cluster``: where ``what`` runs (``scenario.sharded.grid_executor``)."""
+
+    def add(f: Callable[..., Any]) -> Callable[..., Any]:
+        f = click.option(
+            "--cluster",
+            metavar="ADDRESS",
+            envvar="BLOTTER_CLUSTER",
+            default=None,
+            help=f"Run {what} on the Dask cluster at ADDRESS (tcp://host:port; "
+            '$BLOTTER_CLUSTER); needs pip install "blotter[cluster]".',
+        )(f)
+        return click.option(
+            "--workers",
+            type=click.IntRange(min=1, max=1024),
+            default=None,
+            help=f"Processes to share {what} (default: one per core from 1,000,000 positions, "
+            "else this process alone).",
+        )(f)
+
+    return add
+
+
 @click.command(help=_WHATIF_HELP, context_settings={"ignore_unknown_options": True})
 @db_option
 @click.argument("move", nargs=-1)
@@ -893,6 +916,7 @@ def _move_json(res: MoveResult, ccy_of: dict[str, str], said: MoveWords) -> dict
     help="Read the scenario sets from this TOML file alone (default: [scenarios] in the "
     "settings, then the scenarios_file setting's file).",
 )
+@_executor_options("a scenario set's moves")
 @output_options
 @xlsx_option
 def whatif(
@@ -905,14 +929,23 @@ def whatif(
     set_name: str | None = None,
     list_sets: bool = False,
     sets_file: Path | None = None,
+    workers: int | None = None,
+    cluster: str | None = None,
 ) -> None:
     from blotter import calendar as cal
     from blotter.scenario import MoveError, MoveSyntaxError, apply_move, parse_move
 
     check_output_flags(as_json, as_csv)
     if set_name is not None or list_sets or sets_file is not None:
-        _whatif_sets(db_path, move, at, book, as_json, as_csv, set_name, sets_file)
+        _whatif_sets(
+            db_path, move, at, book, as_json, as_csv, set_name, sets_file, (workers, cluster)
+        )
         return
+    given = click.get_current_context().get_parameter_source("cluster")
+    if workers is not None or given is click.core.ParameterSource.COMMANDLINE:
+        raise click.UsageError(
+            "--workers and --cluster share out a scenario set's moves: give --set NAME"
+        )
     if not move:
         raise click.UsageError("give a MOVE, or --set NAME to run a scenario set (--sets lists)")
     text = " ".join(move)
@@ -1010,11 +1043,16 @@ def _whatif_sets(
     as_csv: bool,
     set_name: str | None,
     sets_file: Path | None,
+    where: tuple[int | None, str | None] = (None, None),
 ) -> None:
     """``whatif --set NAME`` (run a scenario set on ``--book`` or every book) or ``--sets`` (list
-    them), from the settings' sets or ``--file``'s; a bad set is refused before any valuing."""
+    them), from the settings' sets or ``--file``'s; a bad set is refused before any valuing.
+    ``where``: (``--workers``, ``--cluster``), the executor the set's moves are sharded over
+    (``scenario.sharded.grid_executor``; None, None: this process for books under 1,000,000
+    positions)."""
     from blotter.config import ConfigError, load_settings
     from blotter.desk import scenario_sets
+    from blotter.scenario.sharded import ClusterUnavailable, grid_executor
 
     if move:
         raise click.UsageError("give a MOVE or a scenario set (--set NAME, --sets), not both")
@@ -1033,8 +1071,9 @@ def _whatif_sets(
         raise click.ClickException(str(exc)) from None
     v = _value(_open(db_path), at, book=book)
     try:
-        run = scenario_sets.run_set(v, chosen)
-    except scenario_sets.SetError as exc:
+        with grid_executor(len(v), *where) as executor:
+            run = scenario_sets.run_set(v, chosen, executor=executor)
+    except (scenario_sets.SetError, ClusterUnavailable) as exc:
         raise click.ClickException(str(exc)) from None
     assert run is not None  # never cancelled here
     _show_set_run(v, run, as_json, as_csv)
@@ -1205,21 +1244,7 @@ def _float_list(text: str | None, default: Sequence[float], name: str) -> list[f
     show_default=True,
     help="How vols follow spot: sticky strike, or sticky moneyness (the smile moves with spot).",
 )
-@click.option(
-    "--workers",
-    type=click.IntRange(min=1, max=1024),
-    default=None,
-    help="Processes to share the grid (default: one per core from 1,000,000 positions, "
-    "else this process alone).",
-)
-@click.option(
-    "--cluster",
-    metavar="ADDRESS",
-    envvar="BLOTTER_CLUSTER",
-    default=None,
-    help="Run the grid on the Dask cluster at ADDRESS (tcp://host:port; $BLOTTER_CLUSTER); "
-    'needs pip install "blotter[cluster]".',
-)
+@_executor_options("the grid")
 @_at_option
 @_book_option
 @output_options

@@ -8,12 +8,17 @@ since at its end value less its trade price. Trial trades are not in the store a
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from blotter.desk.books import OneBook
+
+if TYPE_CHECKING:
+    from blotter.book import Book
+    from blotter.market import Market
 
 
 @dataclass(frozen=True)
@@ -41,6 +46,34 @@ class PnlToday:
         return self.by_currency.get(currency, 0.0)
 
 
+class FromClose:
+    """``source`` (a ``scenario.ExplainSource``) as P&L today's explain reads it, listing only
+    the close sets of ``store`` (``Store.mark_sets("close")``, corrections included): it runs
+    from a close to now, so no intraday set is either end, and a feed writes one a second."""
+
+    def __init__(self, source: Any, store: Any) -> None:
+        self._source = source
+        self._store = store
+
+    def mark_sets(self) -> Sequence[Any]:
+        return self._store.mark_sets("close")  # type: ignore[no-any-return]
+
+    def last_seq(self) -> int:
+        return int(self._source.last_seq())
+
+    def load_market(self, mark_set_id: int | None = None) -> Market:
+        return self._source.load_market(mark_set_id)  # type: ignore[no-any-return]
+
+    def load_book(self, *, before_seq: int) -> Book:
+        return self._source.load_book(before_seq=before_seq)  # type: ignore[no-any-return]
+
+    def new_trades(self, after_seq: int, before_seq: int | None = None) -> tuple[Book, np.ndarray]:
+        return self._source.new_trades(after_seq, before_seq)  # type: ignore[no-any-return]
+
+    def trades(self) -> Sequence[Any]:
+        return self._source.trades()  # type: ignore[no-any-return]
+
+
 NO_CLOSE = PnlToday(None, words="no close yet: P&L today counts from the first close")
 
 
@@ -49,11 +82,11 @@ def pnl_today(store: Any, at: np.datetime64, book: str | None = None) -> PnlToda
     from blotter.scenario import explain
     from blotter.scenario.pnl_explain import closes_in_force
 
-    closes = closes_in_force(store.mark_sets())
+    source = FromClose(store if book is None else OneBook(store, book), store)
+    closes = closes_in_force(source.mark_sets())
     if not closes:
         return NO_CLOSE
     last = closes[-1]
-    source = store if book is None else OneBook(store, book)
     ex = explain(source, from_set=int(last.id), to_set="now", at=at)
     return PnlToday(
         close_id=int(last.id),

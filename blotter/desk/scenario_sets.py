@@ -19,6 +19,8 @@ from blotter.config import ConfigError, ScenarioSetText, Settings, read_scenario
 from blotter.scenario.grammar import Move, MoveSyntaxError, parse_move
 
 if TYPE_CHECKING:
+    from concurrent.futures import Executor
+
     from blotter.risk import BookValuation
     from blotter.scenario.whatif import MoveResult, MoveRow
 
@@ -144,14 +146,17 @@ def run_set(
     valuation: BookValuation,
     scenario_set: ScenarioSet,
     cancelled: Callable[[], bool] = lambda: False,
+    executor: Executor | None = None,
+    shards: int | None = None,
 ) -> SetRun | None:
     """Every move of the set applied to ``valuation`` by ``scenario.apply_move``, or None when
-    ``cancelled`` says so.
+    ``cancelled`` says so; on ``executor`` (a local process pool, a Dask cluster's) the
+    positions run in ``shards`` and are summed (``scenario.sharded.sharded_moves``).
 
     Each line is parsed against the book's symbols first, so a move naming an unknown underlying
     is refused (SetError) before anything is valued. Each move starts from a copy of the
     valuation's American boundaries as they stand, so a row is bit for bit that move applied
-    alone, whatever came before it in the set.
+    alone, whatever came before it in the set (sharded: to rounding).
     """
     from blotter.scenario.whatif import MoveError, apply_move
 
@@ -163,6 +168,17 @@ def run_set(
         except MoveSyntaxError as exc:
             raise SetError(f"{_where(scenario_set, m.name)}: {_syntax_words(exc)}") from None
     rows = []
+    if executor is not None:
+        from blotter.scenario.sharded import sharded_moves
+
+        if cancelled():
+            return None
+        results = sharded_moves(valuation, moves, executor, shards)
+        for m, res in zip(scenario_set.moves, results, strict=True):
+            if isinstance(res, MoveError):
+                raise SetError(f"{_where(scenario_set, m.name)}: {res}")
+            rows.append(SetRow(m.name, m.text, res))
+        return None if cancelled() else SetRun(scenario_set, tuple(rows), worst_scenarios(rows))
     for m, move in zip(scenario_set.moves, moves, strict=True):
         if cancelled():
             return None

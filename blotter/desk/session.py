@@ -27,7 +27,7 @@ if TYPE_CHECKING:
     from blotter.engine import BoundaryCache
     from blotter.market import Market
     from blotter.scenario import Move
-    from blotter.store import ContractRecord, Store, TradeRecord
+    from blotter.store import ContractRecord, InForceMarks, Store, TradeRecord
 
 
 class BookSource(Protocol):
@@ -53,6 +53,7 @@ class Loaded:
     base_currency: str = "USD"
     book_version: tuple[int, ...] = ()  # ``Store.book_version`` before the book was read
     asked: str | None = None  # the book asked for (None: every book)
+    marks_cache: InForceMarks | None = None  # the store's marks in force, for the next read
 
     def __repr__(self) -> str:  # short: the arrays inside are large
         return f"Loaded(positions={len(self.book)}, data_version={self.data_version})"
@@ -73,7 +74,11 @@ def read(source: BookSource, book: str | None = None) -> Loaded:
 def read_again(st: Store, book: str | None, previous: Loaded | None) -> Loaded:
     """``read`` from the store ``st``, keeping ``previous``'s book (the same object) when it was
     of the same ``book`` and ``Store.book_version`` is unchanged: under a feed only marks move,
-    so only they, the data version and the base currency are read afresh."""
+    so only they, the data version and the base currency are read afresh. The marks in force
+    are read on from ``previous``'s (``Store.marks_cache``), so a store opened per read takes
+    only the marks written since."""
+    if previous is not None and previous.marks_cache is not None:
+        st.marks_cache = previous.marks_cache
     version = st.book_version()
     if previous is not None and previous.asked == book and previous.book_version == version:
         return replace(
@@ -81,8 +86,9 @@ def read_again(st: Store, book: str | None, previous: Loaded | None) -> Loaded:
             market=st.load_market(),
             data_version=int(st.data_version()),
             base_currency=str(st.base_currency()),
+            marks_cache=st.marks_cache,
         )
-    return replace(read(st, book), book_version=version)
+    return replace(read(st, book), book_version=version, marks_cache=st.marks_cache)
 
 
 @dataclass(frozen=True, repr=False)

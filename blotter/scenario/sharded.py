@@ -1,5 +1,5 @@
-"""The spot × vol grid over an executor: positions split into shards, each shard's grid computed
-where the executor runs it, the grids summed.
+"""The spot × vol grid and what-if moves over an executor: positions split into shards, each
+shard's grid (or moves) computed where the executor runs it, the shards' results summed.
 
 A grid is a plain sum over positions (full revaluation, the Taylor estimates and the count of
 options expiring in the roll are each a sum of per-position terms), so the sum of the shards'
@@ -20,9 +20,11 @@ from dataclasses import replace
 
 import numpy as np
 
+from blotter.engine import BoundaryCache
 from blotter.risk import BookValuation
-from blotter.scenario.grammar import STICKY_RULE
+from blotter.scenario.grammar import STICKY_RULE, Move
 from blotter.scenario.spot_vol_ladder import DEFAULT_SPOT_PCTS, DEFAULT_VOL_PTS, Ladder, ladder
+from blotter.scenario.whatif import MoveError, MoveResult, apply_move, joined_result
 
 MIN_SHARD_POSITIONS = 20_000
 """Fewest positions worth a shard of their own: below it, sending the shard costs more than
@@ -99,6 +101,49 @@ def sharded_ladders(
         ]
         pending.append(futures)
     return [_summed([f.result() for f in futures]) for futures in pending]
+
+
+def _moves_of(part: BookValuation, moves: tuple[Move, ...]) -> list[MoveResult | MoveError]:
+    """One shard's result of each move (runs in the worker), each from its own copy of the
+    boundaries the shard came with, as ``apply_move`` of that move alone; a move that cannot
+    apply gives its ``MoveError``. Returned without the boundaries, which the caller holds."""
+    out: list[MoveResult | MoveError] = []
+    for move in moves:
+        try:
+            res = apply_move(replace(part, boundaries=part.boundaries.copy()), move)
+        except MoveError as exc:
+            out.append(exc)
+            continue
+        out.append(replace(res, valuation=replace(res.valuation, boundaries=BoundaryCache())))
+    return out
+
+
+def sharded_moves(
+    valuation: BookValuation,
+    moves: Sequence[Move],
+    executor: Executor,
+    shards: int | None = None,
+) -> list[MoveResult | MoveError]:
+    """Each of ``moves`` applied to ``valuation`` on ``executor``: the positions in ``shards``
+    contiguous runs (default one per ``MIN_SHARD_POSITIONS`` positions, at least 1), every move
+    run on each shard where the executor puts it, the shards' results joined
+    (``whatif.joined_result``). Equal to ``apply_move`` of each move alone to rounding; a move
+    that cannot apply gives its ``MoveError`` in its place."""
+    n = len(valuation)
+    rows = shard_rows(n, shards or max(1, n // MIN_SHARD_POSITIONS))
+    sent = tuple(moves)
+    futures = [executor.submit(_moves_of, valuation.take(r), sent) for r in rows]
+    per_shard = [f.result() for f in futures]
+    out: list[MoveResult | MoveError] = []
+    for k, move in enumerate(sent):
+        parts = [shard[k] for shard in per_shard]
+        refused = next((p for p in parts if isinstance(p, MoveError)), None)
+        if refused is not None:
+            out.append(refused)
+        else:
+            results = [p for p in parts if isinstance(p, MoveResult)]
+            out.append(joined_result(valuation, move, results, rows))
+    return out
 
 
 POOL_FROM_POSITIONS = 1_000_000

@@ -9,6 +9,7 @@ their Taylor estimate is kept but flagged.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from functools import cached_property
 from typing import Any
@@ -433,24 +434,7 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
             k: np.bincount(p.uidx, weights=np.broadcast_to(t, (n,)), minlength=p.n_u)
             for k, t in per_position.items()
         }
-    symbols = v.book.underlyings.symbols
-    currencies = v.book.underlyings.currencies
-    present = np.flatnonzero(p.present)
-    by_u = [
-        _row(
-            symbols[j],
-            float(full_u[j]),
-            {t: float(res_terms[t][j]) for t in TERM_NAMES},
-            int(n_through_u[j]),
-            underlying=symbols[j],
-            currency=currencies[j],
-        )
-        for j in present
-    ]
-    currency_u = np.where(p.present, np.asarray(currencies, dtype=str), "")
-    total_row, by_ccy = _currency_rows(
-        "total", currency_u, full_u, {t: res_terms[t] for t in TERM_NAMES}, n_through_u
-    )
+    by_u, total_row, by_ccy = _rows_from_sums(v, p.present, full_u, res_terms, n_through_u)
 
     result = MoveResult(
         move=move,
@@ -469,18 +453,113 @@ def apply_move(valuation: BookValuation, move: Move) -> MoveResult:
         dvol_applied=dvol_applied,
         by_currency=by_ccy,
     )
-    notes: list[str] = []
     if through.any():
-        expiring = _expiring(result, np.flatnonzero(through))
-        object.__setattr__(result, "expiring", expiring)
+        object.__setattr__(result, "expiring", _expiring(result, np.flatnonzero(through)))
+    object.__setattr__(result, "notes", _notes(len(result.expiring), floored))
+    return result
+
+
+FLOORED_NOTE = f"some vols floored at {VOL_FLOOR * 100:g} vol points"
+"""A move's note when a vol fell to the floor (``market.VOL_FLOOR``)."""
+
+
+def _notes(n_expiring: int, floored: bool) -> tuple[str, ...]:
+    """A move's notes: options expiring inside the roll, vols floored."""
+    notes: list[str] = []
+    if n_expiring:
         notes.append(
-            f"{len(expiring)} option position(s) expire inside the roll: settled at intrinsic,"
+            f"{n_expiring} option position(s) expire inside the roll: settled at intrinsic,"
             " their estimate is not meaningful"
         )
     if floored:
-        notes.append(f"some vols floored at {VOL_FLOOR * 100:g} vol points")
-    object.__setattr__(result, "notes", tuple(notes))
-    return result
+        notes.append(FLOORED_NOTE)
+    return tuple(notes)
+
+
+def _rows_from_sums(
+    v: BookValuation,
+    present: np.ndarray,
+    full_u: np.ndarray,
+    terms_u: dict[str, np.ndarray],
+    n_through_u: np.ndarray,
+) -> tuple[list[MoveRow], MoveRow, tuple[MoveRow, ...]]:
+    """(rows of the ``present`` underlyings, the total, each currency's total) from sums per
+    underlying (n_u,) of the full change, the Taylor terms and the options expiring."""
+    symbols = v.book.underlyings.symbols
+    currencies = v.book.underlyings.currencies
+    by_u = [
+        _row(
+            symbols[j],
+            float(full_u[j]),
+            {t: float(terms_u[t][j]) for t in TERM_NAMES},
+            int(n_through_u[j]),
+            underlying=symbols[j],
+            currency=currencies[j],
+        )
+        for j in np.flatnonzero(present)
+    ]
+    currency_u = np.where(present, np.asarray(currencies, dtype=str), "")
+    total_row, by_ccy = _currency_rows(
+        "total", currency_u, full_u, {t: terms_u[t] for t in TERM_NAMES}, n_through_u
+    )
+    return by_u, total_row, by_ccy
+
+
+def joined_result(
+    valuation: BookValuation,
+    move: Move,
+    parts: Sequence[MoveResult],
+    rows: Sequence[np.ndarray],
+) -> MoveResult:
+    """``move`` on ``valuation`` put together from ``parts``, its results on the shards
+    ``valuation.take(r)`` for each ``r`` of ``rows`` (every position in exactly one): the sums
+    per underlying added, per-position arrays and expiring options put back at their rows.
+
+    Every figure of a move is a sum over positions, so this is ``apply_move(valuation, move)``
+    to rounding (the order of the additions)."""
+    und = valuation.book.underlyings
+    at = {symbol: j for j, symbol in enumerate(und.symbols)}
+    n_u, n = len(und.symbols), len(valuation)
+    present = np.zeros(n_u, dtype=bool)
+    full_u, spot_move_u = np.zeros(n_u), np.zeros(n_u)
+    terms_u = {t: np.zeros(n_u) for t in TERM_NAMES}
+    n_through_u = np.zeros(n_u, dtype=np.int64)
+    full, through = np.zeros(n), np.zeros(n, dtype=bool)
+    applied = any(part.dvol_applied is not None for part in parts)
+    dvol = np.zeros(n) if applied else None
+    expiring: list[ExpiringPosition] = []
+    for part, r in zip(parts, rows, strict=True):
+        for row in part.by_underlying:
+            j = at[str(row.underlying)]
+            present[j] = True
+            full_u[j] += row.full
+            n_through_u[j] += row.n_through_expiry
+            spot_move_u[j] = part.spot_move_u[j]
+            for t in TERM_NAMES:
+                terms_u[t][j] += row.terms[t]
+        full[r], through[r] = part.full, part.through_expiry
+        if dvol is not None:
+            dvol[r] = part.dvol
+        expiring += [replace(e, index=int(r[e.index])) for e in part.expiring]
+    by_u, total_row, by_ccy = _rows_from_sums(valuation, present, full_u, terms_u, n_through_u)
+    first = parts[0]
+    return MoveResult(
+        move=move,
+        valuation=valuation,
+        time_after=first.time_after,
+        roll_years=first.roll_years,
+        total=total_row,
+        by_underlying=by_u,
+        expiring=expiring,
+        full=full,
+        through_expiry=through,
+        notes=_notes(len(expiring), any(FLOORED_NOTE in part.notes for part in parts)),
+        spot_move_u=spot_move_u,
+        vol_plan=_vol_plan(valuation, move),
+        rate_move=first.rate_move,
+        dvol_applied=dvol,
+        by_currency=by_ccy,
+    )
 
 
 def _reprice(

@@ -63,6 +63,7 @@ from blotter.store.errors import (
 )
 from blotter.store.files import FILE_MODE, shipped_demo_path, user_data_dir, user_demo_copy
 from blotter.store.imports import PROGRESS_EVERY
+from blotter.store.marks import InForceMarks
 from blotter.store.records import (
     ContractRecord,
     ImportReport,
@@ -106,6 +107,7 @@ __all__ = [
     "ContractRecord",
     "CsvImportError",
     "ImportReport",
+    "InForceMarks",
     "MarkPoint",
     "MarkRecord",
     "MarkSetInfo",

@@ -10,8 +10,11 @@ copy the time the point it copies was last marked, so a close never re-dates a c
 
 from __future__ import annotations
 
+import os
+import threading
 from collections.abc import Callable, Sequence
 from datetime import date, datetime
+from pathlib import Path
 
 import numpy as np
 
@@ -42,15 +45,20 @@ MARK_ROW_COLUMNS = ("mark_set_id", "seq", *POINT_COLUMNS, "observed_at")
 INSERT_CHUNK = 1000
 """Points written between two calls of a mark set's ``progress`` callback."""
 
-_IN_FORCE_SQL = """
-    SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
-           m.tenor_days, m.value, m.observed_at
+_ROW_COLUMNS = """m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry,
+    m.strike, m.tenor_days, m.value, m.observed_at, ms.kind AS set_kind,
+    ms.marked_at AS set_marked_at, ms.who AS set_who"""
+"""A mark's columns as the readers take them, with its set's kind, time and writer (``ms``)."""
+
+_IN_FORCE_SQL = f"""
+    SELECT {_ROW_COLUMNS}
     FROM mark m JOIN (
         SELECT max(m2.mark_id) AS mark_id FROM mark m2
         JOIN mark_set s ON s.mark_set_id = m2.mark_set_id
-        {where}
+        {{where}}
         GROUP BY m2.kind, m2.underlying_id, m2.currency, m2.expiry, m2.strike, m2.tenor_days
     ) latest ON latest.mark_id = m.mark_id
+    JOIN mark_set ms ON ms.mark_set_id = m.mark_set_id
     ORDER BY m.kind, m.underlying_id, m.currency, m.expiry, m.strike, m.tenor_days
 """
 
@@ -59,6 +67,127 @@ _IN_FORCE_WHERE = "WHERE s.corrects IS NULL"
 points overlaid with points logged since, all of which are in force by their own rows (or,
 for an older close, superseded by later marks), so leaving it out changes nothing for the
 latest close and keeps a correction of an older day from rolling today's marks back."""
+
+_NEWER_SQL = f"""
+    SELECT {_ROW_COLUMNS}
+    FROM mark m JOIN mark_set ms ON ms.mark_set_id = m.mark_set_id
+    JOIN mark_set s ON s.mark_set_id = m.mark_set_id
+    {_IN_FORCE_WHERE} AND m.mark_id > ?
+    ORDER BY m.mark_id
+"""
+"""The marks of the sets that make the marks in force (``_IN_FORCE_WHERE`` on the set ``s``)
+written after a mark id, oldest first."""
+
+_MARK_AT_SQL = """
+    SELECT m.mark_id, m.mark_set_id, m.kind, m.underlying_id, m.currency, m.expiry, m.strike,
+           m.tenor_days, m.value, m.observed_at, ms.marked_at, ms.corrects, h.seq
+    FROM mark m JOIN mark_set ms ON ms.mark_set_id = m.mark_set_id
+    JOIN history h ON h.kind = 'mark_set' AND h.row_id = ms.mark_set_id
+    WHERE m.mark_id = ?
+"""
+"""One mark with its set's time and place in history: what tells a cached read that the newest
+mark it read is still there, the same row."""
+
+_PointKey = tuple[str, int | None, str | None, str | None, float | None, int | None]
+
+
+def _point_key(row: db.Row) -> _PointKey:
+    """The point a mark row marks (the columns the marks in force are grouped by)."""
+    return (
+        row["kind"],
+        row["underlying_id"],
+        row["currency"],
+        row["expiry"],
+        row["strike"],
+        row["tenor_days"],
+    )
+
+
+def _sql_order(key: _PointKey) -> tuple[tuple[int, object], ...]:
+    """``key`` as SQLite orders it (NULL before any value; text by UTF-8 bytes, which Python's
+    code-point order of ``str`` matches)."""
+    return tuple((0, 0) if v is None else (1, v) for v in key)
+
+
+class InForceMarks:
+    """The marks in force as last read from one book file, and the newest mark it held then, so
+    the next read takes only the marks written since and merges them by point.
+
+    Mark ids follow commit order (one writer at a time, and nothing deletes a mark), so the
+    rows after the newest id read are exactly the commits since; the latest id of a point
+    wins, as the full read's ``GROUP BY`` has it. It starts again from a full read whenever it
+    could be wrong: another file at the path (device, inode), another schema version, or the
+    newest mark it read missing or different (the file replaced by a copy, a rolled-back
+    write). Thread-safe; one may serve several ``Store`` objects of the same path in turn.
+    """
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._file: tuple[int, int, int] | None = None
+        self._newest: tuple[int, tuple[object, ...] | None] | None = None
+        self._points: dict[_PointKey, int] = {}  # each point's place in _ordered
+        self._ordered: list[db.Row] = []
+        self.full_reads = 0
+        """Reads that started from nothing (the first and each reset), for tests and bench."""
+
+    def rows(self, conn: db.Conn, path: Path | str) -> list[db.Row]:
+        """The marks in force on ``conn`` (a read transaction of the book at ``path`` is open),
+        ordered as ``_IN_FORCE_SQL`` orders them; equal to that query's rows. A database book
+        (``path`` a URL) is read whole each time: only a file is read on from the last read."""
+        file: tuple[int, int, int] | None = None
+        if isinstance(path, Path):
+            try:
+                st = os.stat(path)
+                file = (st.st_dev, st.st_ino, int(db.scalar(conn, "PRAGMA user_version")))
+            except OSError:
+                file = None
+        newest = int(db.scalar(conn, "SELECT coalesce(max(mark_id), 0) FROM mark"))
+        with self._lock:
+            after = self._read_on_from(conn, file, newest)
+            if after is None:
+                self._ordered = db.rows(conn, _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE))
+                self._points = {_point_key(row): i for i, row in enumerate(self._ordered)}
+                self.full_reads += 1
+            else:
+                self._merge(db.rows(conn, _NEWER_SQL, (after,)))
+            self._file = file
+            self._newest = (newest, _mark_at(conn, newest))
+            return list(self._ordered)
+
+    def _merge(self, new: list[db.Row]) -> None:
+        """Take ``new`` rows (oldest first) into the marks in force: a point marked before keeps
+        its place in the order, a new point sorts the rows again."""
+        fresh: dict[_PointKey, db.Row] = {}
+        for row in new:
+            key = _point_key(row)
+            at = self._points.get(key)
+            if at is None:
+                fresh[key] = row
+            else:
+                self._ordered[at] = row
+        if fresh:
+            self._ordered = sorted(
+                [*self._ordered, *fresh.values()], key=lambda r: _sql_order(_point_key(r))
+            )
+            self._points = {_point_key(row): i for i, row in enumerate(self._ordered)}
+
+    def _read_on_from(
+        self, conn: db.Conn, file: tuple[int, int, int] | None, newest: int
+    ) -> int | None:
+        """The mark id to read on from: the newest read last time, while the file is the same
+        and that mark is still the same row; else None (read everything again)."""
+        if file is None or file != self._file or self._newest is None:
+            return None
+        last, row = self._newest
+        if newest < last or _mark_at(conn, last) != row:
+            return None
+        return last
+
+
+def _mark_at(conn: db.Conn, mark_id: int) -> tuple[object, ...] | None:
+    """The mark ``mark_id`` with its set's time and place in history (None when absent)."""
+    row = db.one(conn, _MARK_AT_SQL, (mark_id,))
+    return None if row is None else tuple(row)
 
 
 def write_mark_set(
@@ -217,22 +346,39 @@ class Marks(ReferenceData):
 
     # ---- reading marks
 
+    @property
+    def marks_cache(self) -> InForceMarks:
+        """The marks in force as this store last read them (``InForceMarks``); a caller that
+        opens a store per read of the same book may hand one store's to the next."""
+        cache = self.__dict__.get("_marks_cache")
+        if cache is None:
+            cache = self.__dict__["_marks_cache"] = InForceMarks()
+        return cache
+
+    @marks_cache.setter
+    def marks_cache(self, cache: InForceMarks) -> None:
+        self.__dict__["_marks_cache"] = cache
+
     def _mark_rows(
         self, conn: db.Conn, mark_set_id: int | None, as_of: datetime | None
     ) -> list[db.Row]:
-        """The points of set ``mark_set_id``, or those in force (at ``as_of`` or now)."""
+        """The points of set ``mark_set_id``, or those in force (at ``as_of`` or now): the marks
+        in force now through ``marks_cache`` unless a write of this thread is open (its rows
+        may yet be rolled back)."""
         if mark_set_id is not None:
             mark_set_id = check_id(mark_set_id, "mark set id")
             if db.one(conn, "SELECT 1 FROM mark_set WHERE mark_set_id = ?", (mark_set_id,)) is None:
                 raise StoreError(f"no mark set {mark_set_id}")
             return db.rows(
                 conn,
-                "SELECT mark_id, mark_set_id, kind, underlying_id, currency, expiry, strike, "
-                "tenor_days, value, observed_at FROM mark WHERE mark_set_id = ? ORDER BY seq",
+                f"SELECT {_ROW_COLUMNS} FROM mark m JOIN mark_set ms "
+                "ON ms.mark_set_id = m.mark_set_id WHERE m.mark_set_id = ? ORDER BY m.seq",
                 (mark_set_id,),
             )
         if as_of is None:
-            return db.rows(conn, _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE))
+            if getattr(self._local, "writing", False):
+                return db.rows(conn, _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE))
+            return self.marks_cache.rows(conn, self.path)
         return db.rows(
             conn,
             _IN_FORCE_SQL.format(where=_IN_FORCE_WHERE + " AND s.marked_at <= ?"),
@@ -252,14 +398,8 @@ class Marks(ReferenceData):
         with self._read() as conn:
             rows = self._mark_rows(conn, mark_set_id, as_of)
             symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
-            set_ids = sorted({r["mark_set_id"] for r in rows})
-            sets: dict[int, db.Row] = {}
-            if set_ids:
-                sql = "SELECT mark_set_id, kind, marked_at FROM mark_set"
-                few = len(set_ids) < 900
-                if few:
-                    sql += f" WHERE mark_set_id IN ({','.join('?' * len(set_ids))})"
-                sets = {s["mark_set_id"]: s for s in db.rows(conn, sql, set_ids if few else ())}
+        sets = {r["mark_set_id"]: (r["set_kind"], r["set_marked_at"]) for r in rows}
+        set_ids = sorted(sets)
         spots: dict[str, float] = {}
         divs: dict[str, float] = {}
         vols: dict[str, list[tuple[str, float, float]]] = {}
@@ -272,7 +412,7 @@ class Marks(ReferenceData):
                 spots[symbols[r["underlying_id"]]] = value
                 seen = np.datetime64(r["observed_at"].rstrip("Z"), "us")
                 spot_seen[symbols[r["underlying_id"]]] = seen
-                if sets[r["mark_set_id"]]["kind"] == "intraday":
+                if r["set_kind"] == "intraday":
                     spot_day.add(symbols[r["underlying_id"]])
             elif kind == "div_yield":
                 divs[symbols[r["underlying_id"]]] = value
@@ -303,12 +443,12 @@ class Marks(ReferenceData):
             np.array([r["observed_at"].rstrip("Z") for r in rows], dtype="datetime64[us]")
         )
         version = max((r["mark_id"] for r in rows), default=0)
-        newest = max((sets[s]["marked_at"] for s in set_ids), default=None)
+        newest = max((marked_at for _, marked_at in sets.values()), default=None)
         if mark_set_id is not None:
             set_id = int(mark_set_id)
-            kind = sets[set_id]["kind"] if set_ids else "intraday"
+            kind = sets[set_id][0] if set_ids else "intraday"
         elif len(set_ids) == 1:
-            set_id, kind = set_ids[0], sets[set_ids[0]]["kind"]
+            set_id, kind = set_ids[0], sets[set_ids[0]][0]
         else:
             set_id, kind = None, "intraday"
         return Market(
@@ -333,17 +473,13 @@ class Marks(ReferenceData):
         with self._read() as conn:
             rows = self._mark_rows(conn, mark_set_id, as_of)
             symbols = dict(conn.execute("SELECT underlying_id, symbol FROM underlying").fetchall())
-            sets = {
-                s["mark_set_id"]: s
-                for s in db.rows(conn, "SELECT mark_set_id, kind, marked_at, who FROM mark_set")
-            }
         return [
             MarkRecord(
                 mark_id=r["mark_id"],
                 mark_set_id=r["mark_set_id"],
-                set_kind=sets[r["mark_set_id"]]["kind"],
-                marked_at=from_timestamp(sets[r["mark_set_id"]]["marked_at"]),
-                who=sets[r["mark_set_id"]]["who"],
+                set_kind=r["set_kind"],
+                marked_at=from_timestamp(r["set_marked_at"]),
+                who=r["set_who"],
                 kind=r["kind"],
                 symbol=symbols.get(r["underlying_id"]) if r["underlying_id"] is not None else None,
                 currency=r["currency"],

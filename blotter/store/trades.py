@@ -443,10 +443,13 @@ class Trades(Contracts):
             trades = db.scalar(
                 conn, "SELECT coalesce(max(seq), 0) FROM history WHERE kind IN ('trade', 'cancel')"
             )
+            # from the closes (the partial index of dated sets: only closes have a business
+            # date), not from every mark set's history row, which a feed adds every second
             closes = db.scalar(
                 conn,
-                "SELECT coalesce(max(h.seq), 0) FROM history h JOIN mark_set s "
-                "ON h.kind = 'mark_set' AND h.row_id = s.mark_set_id WHERE s.kind = 'close'",
+                "SELECT coalesce(max((SELECT h.seq FROM history h WHERE h.kind = 'mark_set' "
+                "AND h.row_id = s.mark_set_id)), 0) FROM mark_set s "
+                "WHERE s.business_date IS NOT NULL AND s.kind = 'close'",
             )
         return int(trades or 0), int(closes or 0)
 

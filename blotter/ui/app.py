@@ -111,10 +111,16 @@ PANES = ("move", "grid", "reval")
 """Panes the pane key cycles through on narrow terminals."""
 
 VERIFY_EVERY_S = 60.0
-"""The load worker's open checks the whole book file (``open_store``'s integrity check, SQLite's
-``integrity_check`` of a snapshot) at the first load, whenever the file was replaced, and else at
-most this often: under a feed the file changes every second, and the check reads all of it (86 ms
-a commit at 10k positions, about 0.7 s at 100k). The screens' opens check as before."""
+"""The whole book file is checked (``open_store``'s integrity check, SQLite's ``integrity_check``
+of a snapshot) by the load worker's open at the first load and whenever the file was replaced,
+and else, in a worker beside the loads, at most this often: under a feed the file changes every
+second, and the check reads all of it (86 ms a commit at 10k positions, about 0.7 s at 100k).
+The screens' opens check as before."""
+
+VERIFY_CPU_SHARE = 0.01
+"""Share of a core the periodic check of the book file may take: it runs again no sooner than
+its last run's time over this share (when that is above ``VERIFY_EVERY_S``), since its time
+grows with the file (about 1 s a check for a 10k-position book holding 8 h of a feed)."""
 
 PANES_BUSY_RETRY_S = 0.5
 """Under a stream of commits, a Grid or Reval refresh that finds the last one still running
@@ -217,6 +223,7 @@ class BlotterApp(App[None]):
         self._profile_behind = False  # the Reval pane, hidden, skipped a stream's refresh
         self._read: session.Loaded | None = None  # the load worker's last read (book kept)
         self._verified: tuple[tuple[int, int], float] | None = None  # file id, monotonic time
+        self._verify_s = 0.0  # seconds the last check of the file took
         self._stop_watch = threading.Event()
         self._compiling = False
         self._lower_notes: list[str] = []
@@ -394,10 +401,12 @@ class BlotterApp(App[None]):
                 self.post_message(LoadProgress(1))
                 valued = session.value(loaded, at, self.tz, trials=trials, boundaries=previous)
             else:
-                file_id, verify = self._verify_due()
+                file_id, verify, _ = self._verify_due()
+                began = time.monotonic()
                 with self.open_store(verify=verify) as st:
                     if verify:
                         self._verified = (file_id, time.monotonic())
+                        self._verify_s = self._verified[1] - began
                     names = tuple(st.book_names())
                     loaded = session.read_again(st, books.check_book(st, name), self._read)
                     self._read = loaded
@@ -482,6 +491,8 @@ class BlotterApp(App[None]):
             with self.open_store(read_only=True, verify=False) as st:
                 if (name, st.positions_seq()) != base.key:
                     return
+                if self._read is not None and self._read.marks_cache is not None:
+                    st.marks_cache = self._read.marks_cache  # the marks in force read on
                 today = pnl.pnl_today(st, state.valuation.valuation_time, name)
         except Exception:  # noqa: BLE001 - the advanced P&L stays; the next load tries again
             return
@@ -962,18 +973,51 @@ class BlotterApp(App[None]):
             self.db_path, read_only=read_only or self.read_only, desk_tz=self.tz, verify=verify
         )
 
-    def _verify_due(self) -> tuple[tuple[int, int], bool]:
-        """The book file's (device, inode), and whether the load worker's open is to check it:
-        the first time, when the file was replaced, and else every ``VERIFY_EVERY_S``."""
+    def _verify_due(self) -> tuple[tuple[int, int], bool, bool]:
+        """The book file's (device, inode); whether the load worker's open is to check it (the
+        first load, or the file replaced: checked before it is valued); and whether the periodic
+        check is due (``VERIFY_EVERY_S``, ``VERIFY_CPU_SHARE``), which ``_verify_file`` runs
+        beside the loads so that none waits on it."""
         try:
             st = os.stat(self.db_path)
         except OSError:
-            return (-1, -1), True  # the open says why it cannot read the file
+            return (-1, -1), True, True  # the open says why it cannot read the file
         file_id = (st.st_dev, st.st_ino)
         last = self._verified
-        return file_id, (
-            last is None or last[0] != file_id or time.monotonic() - last[1] >= VERIFY_EVERY_S
-        )
+        if last is None or last[0] != file_id:
+            return file_id, True, True
+        wait = max(VERIFY_EVERY_S, self._verify_s / VERIFY_CPU_SHARE)
+        return file_id, False, time.monotonic() - last[1] >= wait
+
+    @on(BookLoaded)
+    def _verify_after_load(self, message: BookLoaded) -> None:
+        """Start the periodic check of the book file when it is due and none is running."""
+        if self.loader is None and self._verify_due()[2] and not any(
+            w.group == "verify" and not w.is_finished for w in self.workers
+        ):
+            self._verify_file()
+
+    @work(
+        thread=True,
+        exclusive=True,
+        group="verify",
+        exit_on_error=False,
+        description="check the book file",
+    )
+    def _verify_file(self) -> None:
+        """``open_store``'s integrity check of the book file in this thread; a damaged file is
+        said as a failed load."""
+        file_id, _, due = self._verify_due()
+        if not due:
+            return
+        began = time.monotonic()
+        try:
+            with self.open_store(read_only=True):
+                pass
+        except Exception as exc:  # noqa: BLE001 - said beside the book, never raised
+            self.post_message(LoadFailed(f"cannot open {self.db_path}: {exc}"))
+        done = time.monotonic()
+        self._verified, self._verify_s = (file_id, done), done - began
 
     def action_marks(self) -> None:
         self.push_screen(MarksScreen(self.host()))

@@ -299,6 +299,25 @@ def test_reading_again_keeps_the_book_until_something_it_is_read_from_changes(
         assert session.read_again(st, "desk", one_book).book is one_book.book
 
 
+def test_reading_again_through_a_new_store_reads_only_the_marks_written_since(
+    xyz_db: Path,
+) -> None:
+    """The app opens a store per load: ``read_again`` hands the previous read's marks in force
+    to the new store, which reads on from them (no second full read) to the same market as a
+    store reading everything."""
+    with store.open_store(xyz_db) as st:
+        first = session.read_again(st, None, None)
+    assert first.marks_cache is not None and first.marks_cache.full_reads == 1
+    with store.open_store(xyz_db) as writer:
+        writer.log_spot("XYZ", 102.0)
+    with store.open_store(xyz_db) as st:
+        again = session.read_again(st, None, first)
+    with store.open_store(xyz_db) as fresh:
+        spots = fresh.load_market().spots
+    assert again.marks_cache is first.marks_cache and first.marks_cache.full_reads == 1
+    assert again.market.spots == spots and spots["XYZ"] == 102.0
+
+
 def test_a_session_moved_on_to_one_name_s_new_spot_equals_one_valued_afresh(
     demo_db: Path,
 ) -> None:

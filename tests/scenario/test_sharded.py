@@ -7,7 +7,15 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 import pytest
-from books import T0, TWO_CCY, TWO_CCY_ROWS, Row, make_book, make_market, mixed_rows, two_ccy_market
+from books import (
+    T0,
+    TWO_CCY,
+    TWO_CCY_ROWS,
+    make_book,
+    make_market,
+    mixed_american_rows,
+    two_ccy_market,
+)
 
 from blotter.risk import BookValuation, value_book
 from blotter.scenario import ladder, ladders
@@ -24,12 +32,8 @@ VOLS = (-8.0, 0.0, 3.0)
 
 
 def _valuation() -> BookValuation:
-    rows = mixed_rows() + [
-        Row("STK", 7, 115, 50, False, american=True),
-        Row("STK", -3, 118, 20, True, american=True),
-        Row("STK", 4, 90, 2, False, american=True),  # expires inside the 3-day roll
-    ]
-    return value_book(make_book(rows), make_market(), T0)
+    # one STK option expires inside the 3-day roll
+    return value_book(make_book(mixed_american_rows()), make_market(), T0)
 
 
 def _same(a: np.ndarray, b: np.ndarray) -> None:

@@ -2,7 +2,8 @@
 minute's instant, so it solves no American boundary again, and the Grid and Reval panes are
 worked out again at most every ``pane_refresh_s``, catching up once the stream stops; their
 titles lead with the time of the store read their numbers come from. The file's integrity check
-runs at the first load, when the file is replaced, and else at most every ``VERIFY_EVERY_S``."""
+runs in the load at the first load and when the file is replaced, and else beside the loads at
+most every ``VERIFY_EVERY_S`` and within ``VERIFY_CPU_SHARE`` of a core."""
 
 from __future__ import annotations
 
@@ -179,6 +180,40 @@ async def test_the_file_is_checked_at_the_first_load_and_when_replaced_not_on_ev
         await pilot.press("r")
         await wait_for(app, pilot, lambda: app.book_seq > seq, "the reload")
         assert len(checks) == 2
+
+
+async def test_the_periodic_check_runs_beside_the_loads_within_its_share_of_a_core(
+    demo_db: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Once due, the file's check runs in a worker of its own, not in a load (a load waiting on
+    it repainted a second late on a file holding hours of a feed); it then waits its own time
+    over ``VERIFY_CPU_SHARE``, however often ``VERIFY_EVERY_S`` would allow."""
+    from textual.worker import get_current_worker
+
+    from blotter.ui import app as app_module
+
+    groups: list[str] = []
+    check = store_db.integrity_problems
+
+    def recorded(conn: Any) -> list[str]:
+        groups.append(get_current_worker().group)
+        return check(conn)
+
+    monkeypatch.setattr(store_db, "integrity_problems", recorded)
+    monkeypatch.setattr(app_module, "VERIFY_EVERY_S", 0.0)
+    monkeypatch.setattr(app_module, "VERIFY_CPU_SHARE", 1.0)  # due again at once
+    async with streaming(demo_db, pane_refresh_s=3600.0) as (app, pilot, _now):
+        await shown(app, pilot, commit_spot(demo_db, "DEMOA", 1.001))
+        await settle(app, pilot)
+        # the first check is the first open's: the load's, or the change watcher's if sooner
+        assert groups[0] in ("load", "watch") and set(groups[1:]) == {"verify"}, groups
+        assert len(groups) >= 2
+        monkeypatch.setattr(app_module, "VERIFY_CPU_SHARE", 1e-9)  # its time over this: years
+        seen = len(groups)
+        for _ in range(3):
+            await shown(app, pilot, commit_spot(demo_db, "DEMOA", 1.001))
+        await settle(app, pilot)
+        assert len(groups) == seen, "not due again within its share of a core"
 
 
 async def test_with_a_move_in_the_bar_a_reload_redoes_the_grid(demo_db: Path) -> None:
