@@ -1198,10 +1198,15 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         for k in range(ns):
             boundary_table(r, q, math.exp(g_lnsig[g, k]), g_lnb[g, k], g_tan[g, k], table,
                            lq_k[k], dlq_k[k], nd, work, squares)
-        for pos in range(g_first[g], g_first[g + 1]):
-            row = order[pos]
+        # rows by vol, so that rows of one vol share the boundary interpolated to it
+        rows = order[g_first[g]:g_first[g + 1]]
+        by_vol = rows[np.argsort(row_v[rows], kind="mergesort")]
+        last = -1.0
+        for row in by_vol:
             v = max(row_v[row], vol_min)
-            if ns == 1:
+            if v == last:
+                pass
+            elif ns == 1:
                 for j in range(nq + 1):
                     lq[j] = lq_k[0, j]
                 if greeks:
@@ -1260,6 +1265,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         dlq[1, j] = acc[3, j]
                         dlq[2, j] = acc[4, j]
                         d2lq[j] = (acc[2, j] - acc[1, j]) * iv * iv
+            last = v
             value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks, eu,
                       res, terms)
             call = row_w[row] > 0.0
