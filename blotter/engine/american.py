@@ -77,9 +77,11 @@ NODE_MARGIN = 0.05
 NODE_SPAN_PRICE = 0.5
 """Width in ln σ per vol node for prices: values and σ-derivatives at the nodes (Hermite)
 interpolate ln B to about 1e-8 of the strike in price."""
-NODE_SPAN_GREEKS = 0.06
+NODE_SPAN_GREEKS = 0.09
 """Width in ln σ per vol node for greeks: the boundary's r- and b-derivatives are interpolated
-from their values alone (Lagrange), which needs nodes this close for rho within 1e-4."""
+from their values alone (Lagrange), which needs nodes this close; rows sharing a boundary then
+keep rho and carry rho within 5e-6 of each row valued alone (ACCURACY.md, shared boundaries;
+0.12 let them reach 4e-5)."""
 NODES_MIN = (3, 4)
 """Fewest vol nodes of a group of several vols, for prices and for greeks."""
 NODES_MAX = 12
