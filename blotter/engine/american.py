@@ -429,8 +429,11 @@ def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme, kernels: ModuleType) 
     # from the one before it (``_alo.borrow_start``): rate minus dividend yield in put form
     # is nearly the same for them, while either alone is shared by unrelated groups
     todo = todo[np.lexsort((-grp.tmax[todo], np.round(grp.div[todo] - grp.rate[todo], 3)))]
-    arrs = [a[todo] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
-                             grp.tan, grp.steps)]
+    # inputs gathered in solve order; the outputs (boundaries, tangents, steps) start empty,
+    # since every node is written before it is read
+    arrs = [a[todo] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig)]
+    arrs += [np.zeros((todo.size,) + a.shape[1:], dtype=a.dtype)
+             for a in (grp.lnb, grp.tan, grp.steps)]
     count = todo.size
     per = max(1, BATCH_ROWS // (4 * grp.lnsig.shape[1]))
     starts = np.arange(0, count, per)
