@@ -557,8 +557,11 @@ def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.n
     status = np.empty(m, dtype=np.int8)
     lnx, r_p, q_p, lnv = (np.empty(m) for _ in range(4))
     key = np.empty(m, dtype=np.uint64)
-    kernels.prepare_rows(w, s, k, t, r, b, v, YEARS_MIN, VOL_MIN, status, lnx, r_p, q_p, lnv,
-                         key)
+
+    def prepare(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        kernels.prepare_rows(*ins[:7], YEARS_MIN, VOL_MIN, *outs)
+
+    run_chunked(prepare, m, (w, s, k, t, r, b, v), (status, lnx, r_p, q_p, lnv, key))
     solve = np.flatnonzero(status == EXERCISE_BOUNDARY)
     if solve.size:
         order, first = _group(solve, key, t, r_p, q_p)
