@@ -714,6 +714,35 @@ def borrow_start(g: int, k: int, g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.nd
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def side_start(lnsig: np.ndarray, lnb: np.ndarray, tan: np.ndarray, k: int, src: int,
+               far: int, lnx: float, out: np.ndarray) -> None:
+    """A start for vol node ``k`` of a group (``lnsig`` (NSM,), ``lnb`` (NSM, n), ``tan``
+    (NSM, 4, n)) from its solved neighbour ``src``: moved along that node's σ-derivative, or,
+    when ``far`` >= 0 names the solved node beyond ``src``, the cubic through both nodes'
+    values and ln σ-derivatives (its error O(h⁴) against O(h²) saves about one Newton step)."""
+    x1 = lnsig[src]
+    v1 = math.exp(x1)
+    dx = lnsig[k] - x1
+    if far < 0:
+        for i in range(out.size):
+            out[i] = min(lnb[src, i] + dx * v1 * tan[src, 0, i], lnx)
+        return
+    x0 = lnsig[far]
+    v0 = math.exp(x0)
+    h = x1 - x0
+    z = (lnsig[k] - x0) / h
+    z2 = z * z
+    z3 = z2 * z
+    h00 = 2.0 * z3 - 3.0 * z2 + 1.0
+    h10 = (z3 - 2.0 * z2 + z) * h * v0
+    h01 = 3.0 * z2 - 2.0 * z3
+    h11 = (z3 - z2) * h * v1
+    for i in range(out.size):
+        out[i] = min(h00 * lnb[far, i] + h10 * tan[far, 0, i] + h01 * lnb[src, i]
+                     + h11 * tan[src, 0, i], lnx)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.ndarray,
                  g_lnsig: np.ndarray, t: np.ndarray, s_hat: np.ndarray, u_hat: np.ndarray,
                  w_hat: np.ndarray, wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray,
@@ -724,8 +753,7 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
     (∂/∂σ, ∂/∂r, ∂/∂b, and for a group of one node when ``second``, ∂²/∂(ln σ)²);
     ``g_steps`` (G,) gets the most Newton steps of a group's nodes, or −1 if one failed. The
     middle node starts from a group solved just before it (``borrow_start``) or else from the
-    start formula; each other node starts from its inner neighbour moved along that neighbour's
-    σ-derivative."""
+    start formula; each other node from its solved inner neighbours (``side_start``)."""
     n = t.size
     npts = s_hat.size
     pre = np.empty((6, npts))
@@ -738,6 +766,7 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
     back = np.empty((2, n))
     row = np.empty(n)
     xk = np.cos(np.arange(n + 1) * (math.pi / n))
+    good = np.zeros(g_lnsig.shape[1], dtype=np.bool_)
     for g in range(g_r.size):
         r = g_r[g]
         q = g_q[g]
@@ -757,10 +786,10 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
             warm = o > 0
             if warm:
                 src = k + 1 if k < mid else k - 1
-                dv = g_lnsig[g, k] - g_lnsig[g, src]
-                vsrc = math.exp(g_lnsig[g, src])
-                for i in range(n):
-                    lnb[i] = min(g_lnb[g, src, i] + dv * vsrc * g_tan[g, src, 0, i], lnx)
+                far = k + 2 if k < mid else k - 2
+                if o < 2 or far < 0 or far >= ns or not good[far]:
+                    far = -1
+                side_start(g_lnsig[g], g_lnb[g], g_tan[g], k, src, far, lnx, lnb)
             else:
                 warm = borrow_start(g, k, g_r, g_q, g_tmax, g_ns, g_lnsig, g_lnb, g_tan,
                                     g_steps, t, power, xk, row, lnb)
@@ -779,6 +808,7 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
             else:
                 for i in range(n):
                     g_tan[g, k, 3, i] = 0.0
+            good[k] = st >= 0
             if st < 0:
                 worst = -1
             elif worst >= 0:
@@ -1168,10 +1198,15 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         for k in range(ns):
             boundary_table(r, q, math.exp(g_lnsig[g, k]), g_lnb[g, k], g_tan[g, k], table,
                            lq_k[k], dlq_k[k], nd, work, squares)
-        for pos in range(g_first[g], g_first[g + 1]):
-            row = order[pos]
+        # rows by vol, so that rows of one vol share the boundary interpolated to it
+        rows = order[g_first[g]:g_first[g + 1]]
+        by_vol = rows[np.argsort(row_v[rows], kind="mergesort")]
+        last = -1.0
+        for row in by_vol:
             v = max(row_v[row], vol_min)
-            if ns == 1:
+            if v == last:
+                pass
+            elif ns == 1:
                 for j in range(nq + 1):
                     lq[j] = lq_k[0, j]
                 if greeks:
@@ -1230,6 +1265,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         dlq[1, j] = acc[3, j]
                         dlq[2, j] = acc[4, j]
                         d2lq[j] = (acc[2, j] - acc[1, j]) * iv * iv
+            last = v
             value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks, eu,
                       res, terms)
             call = row_w[row] > 0.0

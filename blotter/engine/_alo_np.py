@@ -335,6 +335,25 @@ def borrow_start(g: int, k: int, g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.nd
     return out
 
 
+def side_start(lnsig: np.ndarray, lnb: np.ndarray, tan: np.ndarray, k: int, src: int,
+               far: int, lnx: float) -> np.ndarray:
+    """The compiled ``side_start``, returning the start."""
+    x1 = lnsig[src]
+    dx = lnsig[k] - x1
+    if far < 0:
+        out: np.ndarray = np.minimum(lnb[src] + dx * math.exp(x1) * tan[src, 0], lnx)
+        return out
+    x0 = lnsig[far]
+    h = x1 - x0
+    z = (lnsig[k] - x0) / h
+    cubic = ((2.0 * z**3 - 3.0 * z**2 + 1.0) * lnb[far]
+             + (z**3 - 2.0 * z**2 + z) * h * math.exp(x0) * tan[far, 0]
+             + (3.0 * z**2 - 2.0 * z**3) * lnb[src]
+             + (z**3 - z**2) * h * math.exp(x1) * tan[src, 0])
+    out = np.minimum(cubic, lnx)
+    return out
+
+
 def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.ndarray,
                  g_lnsig: np.ndarray, t: np.ndarray, s_hat: np.ndarray, u_hat: np.ndarray,
                  w_hat: np.ndarray, wmat: np.ndarray, wmat_t: np.ndarray, w0: np.ndarray,
@@ -342,6 +361,7 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
                  second: bool, squares: bool, power: float) -> None:
     """The compiled ``solve_groups`` (same arguments; ``wmat_t`` unused)."""
     n = t.size
+    good = np.zeros(g_lnsig.shape[1], dtype=bool)
     for g in range(g_r.size):
         r = g_r[g]
         q = g_q[g]
@@ -360,9 +380,10 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
             warm = o > 0
             if warm:
                 src = k + 1 if k < mid else k - 1
-                dv = g_lnsig[g, k] - g_lnsig[g, src]
-                vsrc = math.exp(g_lnsig[g, src])
-                lnb[:] = np.minimum(g_lnb[g, src] + dv * vsrc * g_tan[g, src, 0], lnx)
+                far = k + 2 if k < mid else k - 2
+                if o < 2 or far < 0 or far >= ns or not good[far]:
+                    far = -1
+                lnb[:] = side_start(g_lnsig[g], g_lnb[g], g_tan[g], k, src, far, lnx)
             else:
                 start = borrow_start(g, k, g_r, g_q, g_tmax, g_ns, g_lnsig, g_lnb, g_tan,
                                      g_steps, t, power)
@@ -382,6 +403,7 @@ def solve_groups(g_r: np.ndarray, g_q: np.ndarray, g_tmax: np.ndarray, g_ns: np.
                                squares)
             else:
                 g_tan[g, k, 3] = 0.0
+            good[k] = st >= 0
             if st < 0:
                 worst = -1
             elif worst >= 0:

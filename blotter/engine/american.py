@@ -77,9 +77,11 @@ NODE_MARGIN = 0.05
 NODE_SPAN_PRICE = 0.5
 """Width in ln σ per vol node for prices: values and σ-derivatives at the nodes (Hermite)
 interpolate ln B to about 1e-8 of the strike in price."""
-NODE_SPAN_GREEKS = 0.06
+NODE_SPAN_GREEKS = 0.09
 """Width in ln σ per vol node for greeks: the boundary's r- and b-derivatives are interpolated
-from their values alone (Lagrange), which needs nodes this close for rho within 1e-4."""
+from their values alone (Lagrange), which needs nodes this close; rows sharing a boundary then
+keep rho and carry rho within 5e-6 of each row valued alone (ACCURACY.md, shared boundaries;
+0.12 let them reach 4e-5)."""
 NODES_MIN = (3, 4)
 """Fewest vol nodes of a group of several vols, for prices and for greeks."""
 NODES_MAX = 12
@@ -427,8 +429,11 @@ def _solve(grp: _Groups, todo: np.ndarray, scheme: Scheme, kernels: ModuleType) 
     # from the one before it (``_alo.borrow_start``): rate minus dividend yield in put form
     # is nearly the same for them, while either alone is shared by unrelated groups
     todo = todo[np.lexsort((-grp.tmax[todo], np.round(grp.div[todo] - grp.rate[todo], 3)))]
-    arrs = [a[todo] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
-                             grp.tan, grp.steps)]
+    # inputs gathered in solve order; the outputs (boundaries, tangents, steps) start empty,
+    # since every node is written before it is read
+    arrs = [a[todo] for a in (grp.rate, grp.div, grp.tmax, grp.ns, grp.lnsig)]
+    arrs += [np.zeros((todo.size,) + a.shape[1:], dtype=a.dtype)
+             for a in (grp.lnb, grp.tan, grp.steps)]
     count = todo.size
     per = max(1, BATCH_ROWS // (4 * grp.lnsig.shape[1]))
     starts = np.arange(0, count, per)
@@ -552,8 +557,11 @@ def evaluate(w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray, r: np.n
     status = np.empty(m, dtype=np.int8)
     lnx, r_p, q_p, lnv = (np.empty(m) for _ in range(4))
     key = np.empty(m, dtype=np.uint64)
-    kernels.prepare_rows(w, s, k, t, r, b, v, YEARS_MIN, VOL_MIN, status, lnx, r_p, q_p, lnv,
-                         key)
+
+    def prepare(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        kernels.prepare_rows(*ins[:7], YEARS_MIN, VOL_MIN, *outs)
+
+    run_chunked(prepare, m, (w, s, k, t, r, b, v), (status, lnx, r_p, q_p, lnv, key))
     solve = np.flatnonzero(status == EXERCISE_BOUNDARY)
     if solve.size:
         order, first = _group(solve, key, t, r_p, q_p)

@@ -9,7 +9,9 @@ that run's delta), whose prices are checked against QuantLib beside them.
 ``python -m tests.engine.american_reference [n_per_region]`` prints the accuracy table: price
 error against QuantLib as a share of the strike, and per greek the largest error measure of
 ``greek_errors`` with, in brackets, the rows left out because a reference difference would
-cross the exercise boundary or a change of regime.
+cross the exercise boundary or a change of regime. A second table (``shared_errors``) measures
+what the table's lone rows do not: rows of a listed book sharing boundaries, interpolated
+between vol nodes, against each row valued alone.
 """
 
 from __future__ import annotations
@@ -201,6 +203,40 @@ def greek_errors(c: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
     return {g: np.abs(got[g] - ref[g]) / (np.abs(ref[g]) + 1e-2 * unit[g]) for g in GREEKS}
 
 
+SHARED_BOOKS = (3, 4, 6)
+"""Seeds of the listed books (``blotter.benchmarks.engine.listed_book``: 50 names, 15 expiries,
+strikes around the money with a smile) of the shared-boundary table."""
+
+
+def shared_errors(n: int, seed: int) -> dict[str, float]:
+    """Largest error measure per output (price: as a share of the strike; greeks as in
+    ``greek_errors``, against the row's own value) of the rows of an ``n``-row listed book
+    valued together (boundaries shared by each (τ, r, q) and interpolated in vol) against each
+    row valued alone (a boundary of its own, solved at the row's vol)."""
+    from blotter.benchmarks.engine import listed_book
+
+    c = listed_book(n, seed=seed)
+    w = np.where(c["is_call"], 1.0, -1.0)
+    s, k, t, r, b, v = (np.asarray(c[x], dtype=np.float64) for x in
+                        ("spot", "strike", "years", "rate", "carry", "vol"))
+    together, status = american.evaluate(w, s, k, t, r, b, v, True)
+    alone = [np.empty(n) for _ in together]
+    for i in range(n):
+        j = slice(i, i + 1)
+        one, _ = american.evaluate(w[j], s[j], k[j], t[j], r[j], b[j], v[j], True)
+        for o, x in zip(alone, one, strict=True):
+            o[i] = x[0]
+    unit: dict[str, np.ndarray | float] = {
+        "price": k, "delta": 1.0, "gamma": 1.0 / k, "vega": k, "theta": k, "rho": k,
+        "carry_rho": k, "vanna": 1.0, "volga": k, "charm": 1.0}
+    keep = status == american.EXERCISE_BOUNDARY
+    out: dict[str, float] = {}
+    for name, got, ref in zip(("price",) + GREEKS, together, alone, strict=True):
+        scale = k if name == "price" else np.abs(ref) + 1e-2 * unit[name]
+        out[name] = float(np.max((np.abs(got - ref) / scale)[keep]))
+    return out
+
+
 def main(n: int) -> None:
     print("| region | cases | price: max abs error / K | median abs error / K | "
           + " | ".join(GREEKS) + " |")
@@ -213,6 +249,13 @@ def main(n: int) -> None:
         cells = " | ".join(f"{np.nanmax(ge[g]):.1e} ({int(np.sum(np.isnan(ge[g])))})"
                            for g in GREEKS)
         print(f"| {region} | {n} | {np.max(err):.1e} | {np.median(err):.1e} | {cells} |")
+    print()
+    print("| listed book (seed) | rows | price / K | " + " | ".join(GREEKS) + " |")
+    print("| --- | --- | --- | " + " | ".join("---" for _ in GREEKS) + " |")
+    for seed in SHARED_BOOKS:
+        e = shared_errors(10 * n, seed)
+        print(f"| {seed} | {10 * n} | {e['price']:.1e} | "
+              + " | ".join(f"{e[g]:.1e}" for g in GREEKS) + " |")
 
 
 if __name__ == "__main__":
