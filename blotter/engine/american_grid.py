@@ -204,39 +204,30 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     # serves a greek profile (one per key is kept: a price-only one would be solved again)
     span = np.concatenate([lat_first, lat_last]) * LATTICE_STEP
     if kept_only:
+        # the kept tables alone: no boundary is interpolated and no table built
         assert cache is not None
-        kept = np.array([cache.find(float(g_r[g]), float(g_q[g]), float(g_t[g]),
-                                    float(span[g]), float(span[n_g + g]), True) is not None
-                         for g in range(n_g)], dtype=bool)
-        if not kept.all():
-            # the groups with a kept boundary only (a search of sorted rows: fast)
-            sub = np.sort(order[np.repeat(kept, counts)])
-            served_sub = np.zeros(rows.size, dtype=bool)
-            if sub.size:
-                served_sub[np.searchsorted(rows, sub)] = _tabulated(
-                    sub, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                    greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
-            return served_sub
-    two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
-    grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
-                               np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
-    ok = grp.steps >= 0
-    nl_max = int(n_lat.max())
-    lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
-    edge = np.zeros((n_g, nl_max))
-    scheme = american.DEFAULT
-    kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
-                     scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
-    use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
-    coef, tail, missing = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern,
-                                         cache, kept_only)
-    ok &= ~missing.any(axis=1)
+        ok, coef, tail, edge = _kept_sets(cache, g_r, g_q, g_t, span, lat_first, n_lat, greeks)
+    else:
+        two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
+        grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
+                                   np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
+        ok = grp.steps >= 0
+        nl_max = int(n_lat.max())
+        lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
+        edge = np.zeros((n_g, nl_max))
+        scheme = american.DEFAULT
+        kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
+                         grp.tan, scheme.power, scheme.squares, np.ascontiguousarray(lat),
+                         n_lat, edge)
+        use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
+        coef, tail = _cached_tables(grp, use, lat_first, n_lat, lat, edge, greeks, scheme,
+                                    kern, cache)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
         row_group = np.repeat(np.arange(n_g), counts)[served]
         n_t = coef.shape[2]
-        args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
+        args = (g_r, g_q, g_t, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
                 LATTICE_POINTS, Z_SCALE)
         ln_shock = np.log(shocks)
         n_s, n_v = shocks.size, vol_rows.shape[2]
@@ -280,44 +271,113 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     return served_rows
 
 
+def _set_key(rate: float, div: float, tau: float, boundary: tuple[float, float, float, int],
+             greeks: bool) -> tuple[float, ...]:
+    """Cache key of one group's table set: its put form, row time τ, the boundary it was built
+    on (τmax, first and last vol node, node count) and whether it holds the greeks."""
+    tmax, lo, hi, ns = boundary
+    return (rate, div, tau, tmax, lo, hi, float(ns - 1), float(greeks))
+
+
+def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: np.ndarray,
+            n_lat: np.ndarray, n_t: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Coefficients (G, L, n_t, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where
+    no table is kept) of the groups' lattice vols from their kept table sets (``items``, one
+    per group or None), gathered in one indexing pass over all sets."""
+    n_g, nl_max = lat_first.size, int(n_lat.max())
+    width = 2 + n_t * (CHEB_DEGREE + 1)
+    packed = np.full((n_g, nl_max, width), np.nan)
+    have = [g for g, item in enumerate(items) if item is not None]
+    if have:
+        sets = [items[g] for g in have]
+        first = np.array([item[0] for item in sets if item is not None], dtype=np.int64)
+        big = np.concatenate([item[2] for item in sets if item is not None])
+        size = np.array([item[2].shape[0] for item in sets if item is not None])
+        start = np.concatenate([[0], np.cumsum(size)[:-1]])
+        g_have = np.array(have)
+        pos = lat_first[g_have, None] + np.arange(nl_max)[None, :] - first[:, None]
+        inside = (pos >= 0) & (pos < size[:, None]) & (
+            np.arange(nl_max)[None, :] < n_lat[g_have, None])
+        at = np.where(inside, start[:, None] + np.clip(pos, 0, size[:, None] - 1), 0)
+        rows = big[at]
+        rows[~inside] = np.nan
+        packed[g_have] = rows
+    edge = packed[:, :, 0]
+    found = ~np.isnan(edge)
+    tail = np.where(found, packed[:, :, 1], 0.0)
+    coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0).reshape(
+        n_g, nl_max, n_t, CHEB_DEGREE + 1)
+    return np.ascontiguousarray(coef), tail, edge
+
+
+def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
+               g_t: np.ndarray, span: np.ndarray, lat_first: np.ndarray, n_lat: np.ndarray,
+               greeks: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Which groups have a kept boundary and kept tables at every lattice vol they need (G,),
+    and those tables as ``_gather`` gives them (edge 0 where not kept)."""
+    n_g = g_r.size
+    keys: list[tuple[float, ...] | None] = []
+    for r, q, t, lo, hi in zip(g_r.tolist(), g_q.tolist(), g_t.tolist(), span[:n_g].tolist(),
+                               span[n_g:].tolist(), strict=True):
+        item = cache.find(r, q, t, lo, hi, True)
+        keys.append(None if item is None or item.steps < 0 else _set_key(
+            r, q, t, (item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]), item.lnsig.size),
+            greeks))
+    kept = iter(cache.tables([k for k in keys if k is not None]))
+    items = [None if k is None else next(kept) for k in keys]
+    coef, tail, edge = _gather(items, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
+    use = np.arange(edge.shape[1])[None, :] < n_lat[:, None]
+    ok = ~(use & np.isnan(edge)).any(axis=1)
+    return ok, coef, tail, np.where(np.isnan(edge), 0.0, edge)
+
+
 def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
-                   lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
-                   kern: ModuleType, cache: american.BoundaryCache | None,
-                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                   n_lat: np.ndarray, lat: np.ndarray, edge: np.ndarray, greeks: bool,
+                   scheme: american.Scheme, kern: ModuleType,
+                   cache: american.BoundaryCache | None) -> tuple[np.ndarray, np.ndarray]:
     """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
-    from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
-    another grid of the same valuation reuses it) and the others computed and kept, or with
-    ``kept_only`` left 0 and marked in the third array (G, L), True where not kept."""
+    from it and the others computed and kept. Each group keeps one set: its tables over a
+    range of lattice vols in one array (a table depends only on its boundary, τ and lattice
+    vol, so a spot move or another grid of the same valuation reuses it)."""
     if cache is None:
-        coef, tail = _tables(grp, use, lat, edge, greeks, scheme, kern)
-        return coef, tail, np.zeros(use.shape, dtype=bool)
-    gi, ai = np.nonzero(use)
-    last = grp.ns[gi] - 1
-    cols = (grp.rate[gi], grp.div[gi], grp.tau[gi], grp.tmax[gi], grp.lnsig[gi, 0],
-            grp.lnsig[gi, last], last.astype(np.float64), (lat_first[gi] + ai).astype(np.float64))
-    keys = [(*k, float(greeks)) for k in zip(*(c.tolist() for c in cols), strict=True)]
+        return _tables(grp, use, lat, edge, greeks, scheme, kern)
+    n_g = grp.rate.size
+    keys = [_set_key(float(grp.rate[g]), float(grp.div[g]), float(grp.tau[g]),
+                     (float(grp.tmax[g]), float(grp.lnsig[g, 0]),
+                      float(grp.lnsig[g, grp.ns[g] - 1]), int(grp.ns[g])), greeks)
+            for g in range(n_g)]
     kept = cache.tables(keys)
-    todo = use.copy()
-    n_t = TABLE_OUTPUTS if greeks else 1
-    coef = np.zeros((*use.shape, n_t, CHEB_DEGREE + 1))
-    tail = np.zeros(use.shape)
-    for g, a, item in zip(gi.tolist(), ai.tolist(), kept, strict=True):
-        if item is not None and item[0] == edge[g, a]:
-            tail[g, a] = item[1]
-            coef[g, a] = item[2]
-            todo[g, a] = False
-    if kept_only:
-        return coef, tail, todo
+    coef, tail, have = _gather(kept, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
+    todo = use & ~(have == edge)
     if todo.any():
         new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
         coef[todo] = new[todo]
         tail[todo] = new_tail[todo]
-        at = {(g, a): i for i, (g, a) in enumerate(zip(gi.tolist(), ai.tolist(), strict=True))}
-        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), float(new_tail[g, a]),
-                                              new[g, a].copy())
-                           for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
-                                           strict=True)})
-    return coef, tail, np.zeros(use.shape, dtype=bool)
+        have[todo] = edge[todo]
+        fresh: dict[tuple[float, ...], tuple[float, float, np.ndarray]] = {}
+        for g in np.unique(np.nonzero(todo)[0]).tolist():
+            fresh[keys[g]] = _merged(kept[g], int(lat_first[g]), have[g, :n_lat[g]],
+                                     tail[g, :n_lat[g]], coef[g, :n_lat[g]])
+        cache.keep_tables(fresh)
+    return coef, tail
+
+
+def _merged(old: tuple[float, float, np.ndarray] | None, first: int, edge: np.ndarray,
+            tail: np.ndarray, coef: np.ndarray) -> tuple[float, float, np.ndarray]:
+    """A group's table set over the union of its kept lattice vols (``old``) and the ones
+    given from lattice index ``first`` (edge NaN where none is built): (first index, count,
+    rows of ln B, tail and the coefficients)."""
+    n = edge.size
+    lo, hi = first, first + n
+    if old is not None:
+        lo, hi = min(lo, int(old[0])), max(hi, int(old[0]) + old[2].shape[0])
+    out = np.full((hi - lo, 2 + coef[0].size), np.nan)
+    if old is not None:
+        out[int(old[0]) - lo:int(old[0]) - lo + old[2].shape[0]] = old[2]
+    new = np.concatenate([edge[:, None], tail[:, None], coef.reshape(n, -1)], axis=1)
+    built = ~np.isnan(edge)
+    out[first - lo:first - lo + n][built] = new[built]
+    return float(lo), float(hi - lo), out
 
 
 def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,

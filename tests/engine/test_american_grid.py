@@ -256,3 +256,41 @@ def test_kept_only_builds_nothing_and_then_takes_the_kept_tables() -> None:
     # spot −5% and vol +2 points are a cell of the grid
     np.testing.assert_array_equal(got[0, 0, 0], grid[0, 1, 3])
     assert np.isnan(base).all()
+
+
+def test_one_table_set_per_boundary_widened_by_a_wider_grid() -> None:
+    """Each boundary keeps one set of tables over a range of lattice vols; a later grid over
+    wider vols adds to that set (the vols already built are kept, not built again), and the
+    what-if's one cell per row then takes its cells from the widened set, equal to that
+    grid's to the bit."""
+    book = _book(10)
+    cache = engine.BoundaryCache()
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    # boundaries solved over vols wide enough for both grids' lattices, so both use them
+    cache.prepare(*cols[:1], *cols[3:], book["vol"] * 0.4, book["vol"] * 2.5)
+    shocks = 1.0 + SPOT_PCTS / 100.0
+    narrow = book["vol"][None, None, :] + np.array([-1.0, 0.0, 1.0])[None, :, None] / 100.0
+    engine.american_cells(*cols, narrow, shocks, boundaries=cache)
+    sets = len(cache._tables)
+    first = {k: v[2].copy() for k, v in cache._tables.items()}
+    # one set per (τ, rate, dividend yield) in put form among the rows that have a boundary
+    call = book["is_call"]
+    r_p = np.where(call, book["rate"] - book["carry"], book["rate"])
+    q_p = np.where(call, book["rate"], book["rate"] - book["carry"])
+    solved = engine.american_status(call, book["years"], book["rate"], book["carry"]) == 0
+    assert sets == len(set(zip(book["years"][solved].tolist(), r_p[solved].tolist(),
+                               q_p[solved].tolist(), strict=True)))
+    wide_vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    wide, _ = engine.american_cells(*cols, wide_vols, shocks, boundaries=cache)
+    assert len(cache._tables) == sets
+    for key, table in first.items():
+        # the lattice vols built by the first grid are kept unchanged within the wider set
+        now = cache._tables[key]
+        grown = now[2][~np.isnan(now[2][:, 0])]
+        assert grown.shape[0] >= table.shape[0]
+        assert any(np.array_equal(grown[i:i + table.shape[0]], table)
+                   for i in range(grown.shape[0] - table.shape[0] + 1))
+    one = book["vol"][None, None, :] + 0.05
+    got, _ = engine.american_cells(*cols, one, np.array([0.9]), boundaries=cache,
+                                   kept_only=True, with_base=False)
+    np.testing.assert_array_equal(got[0, 0, 0], wide[0, 0, 4])
