@@ -26,7 +26,7 @@ mirror) are valued cell by cell by ``american.evaluate``.
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from types import ModuleType
 
 import numpy as np
@@ -53,6 +53,17 @@ TAIL_NEGLIGIBLE = 1e-10
 """Premiums (per unit strike, or of a greek per unit) below this at every table point from some
 z on are taken as 0 beyond the last point above it: there the interpolant's own error would be
 larger than the premium."""
+NEAR_Z = 0.5
+"""Greek cells within this many standard deviations of the interpolated boundary (either side)
+are valued by the engine's quadrature: there the tables' gamma follows the boundary limit,
+which the engine's own gamma reaches only within a layer of width z² in time."""
+SHORT_SD = 0.03
+"""Greek cells whose σ√τ is below this, up to ``SHORT_Z`` above the boundary, are valued by
+the engine's quadrature: the gamma premium peaks at about 1/(σ√τ) near the boundary, and the
+tables' error of about 1e-6 of that peak exceeds 1e-6 per unit of underlying farther out."""
+SHORT_Z = 9.0
+"""Standard deviations above the boundary past which the premium of a row with a small σ√τ is
+below 1e-12 of its strike, and its table cells are kept."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
 BLOCK_ROWS = 8192
@@ -91,7 +102,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                    kernels: ModuleType | None = None,
                    base_vols: np.ndarray | None = None,
                    weights: np.ndarray | None = None, with_base: bool = True,
-                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                   kept_only: bool = False,
+                   exact_near: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
     (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
 
@@ -105,7 +117,9 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     book). ``with_base`` False leaves the outputs at the unmoved spot NaN (half the work of one
     cell per row); with ``kept_only``, rows whose boundary or tables are not already kept in
     ``cache`` are valued cell by cell instead of building them (that costs several times a
-    quadrature per cell, so pays only over many cells)."""
+    quadrature per cell, so pays only over many cells). With ``greeks`` and ``exact_near``,
+    cells within ``NEAR_Z`` of the boundary, or up to ``SHORT_Z`` above it where σ√τ is
+    below ``SHORT_SD``, are valued by the quadrature (``_Near``)."""
     kern = american._implementation(kernels)
     w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
     s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
@@ -158,8 +172,9 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     if kept_only and cache is None:
         rows = rows[:0]
     if rows.size:
-        done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                          greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
+        done = _tabulated(rows, w, s, k, t, r, b, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks,
+                          key, greeks, cache, kern, n_out, base_v, sink, with_base, kept_only,
+                          exact_near)
         table[rows[~done]] = False
     rest = np.flatnonzero(~table)
     if rest.size:
@@ -176,12 +191,14 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
 
 
 def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
-               r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray, lo_v: np.ndarray,
+               r: np.ndarray, b: np.ndarray, r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray,
+               lo_v: np.ndarray,
                hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
                greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
                n_out: int, base_v: np.ndarray,
                sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None],
-               with_base: bool = True, kept_only: bool = False) -> np.ndarray:
+               with_base: bool = True, kept_only: bool = False,
+               exact_near: bool = True) -> np.ndarray:
     """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
     the unmoved spot and ``base_v`` (NaN unless ``with_base``), handed to ``sink``
     ``BLOCK_ROWS`` rows at a time (row indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1));
@@ -262,6 +279,12 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
 
             run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
                         min_split=1)
+            if greeks and exact_near:
+                near = _Near(sel[b0:b1], g_sel[b0:b1], lnx_s[b0:b1], lat_first, n_lat, edge,
+                             g_t, (w, s, k, t, r, b), cache, kern)
+                near.replace(cells, v_s, ln_shock, shocks)
+                if with_base:
+                    near.replace(at_base, b_s[b0:b1], zero, one)
             sink(sel[b0:b1], cells, at_base)
     # which rows were served, by a mask over row indices rather than a search of ``rows``
     # for each of ``sel`` (that search costs about 10 ms at 90k rows)
@@ -269,6 +292,59 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     hit[sel] = True
     served_rows: np.ndarray = hit[rows]
     return served_rows
+
+
+@dataclass(frozen=True)
+class _Near:
+    """Greek cells the tables do not serve to the greeks' accuracy (within ``NEAR_Z`` of the
+    boundary, or up to ``SHORT_Z`` above it where σ√τ is small), valued again by the engine's
+    quadrature, for one block of rows."""
+
+    rows: np.ndarray
+    groups: np.ndarray
+    lnx: np.ndarray
+    lat_first: np.ndarray
+    n_lat: np.ndarray
+    edge: np.ndarray
+    g_t: np.ndarray
+    row_args: tuple[np.ndarray, ...]
+    cache: american.BoundaryCache | None
+    kern: ModuleType
+
+    def replace(self, out: np.ndarray, vols: np.ndarray, ln_shock: np.ndarray,
+                shocks: np.ndarray) -> None:
+        """Overwrite the cells (rows, 5, n_s, n_v) of ``out`` at the spot multipliers
+        ``shocks`` and ``vols`` (rows, n_s or 1, n_v) that need the quadrature."""
+        m, n_s, n_v = self.rows.size, shocks.size, vols.shape[2]
+        g = self.groups[:, None, None]
+        c = np.log(vols) / LATTICE_STEP
+        first, count = self.lat_first[g], self.n_lat[g]
+        i0 = np.clip(np.floor(c).astype(np.int64) - LATTICE_POINTS // 2 + 1, first,
+                     first + count - LATTICE_POINTS)
+        lnb = np.zeros(c.shape)
+        for a in range(LATTICE_POINTS):
+            lag = np.ones(c.shape)
+            for e in range(LATTICE_POINTS):
+                if e != a:
+                    lag *= (c - (i0 + e)) / (a - e)
+            lnb += lag * self.edge[g, i0 - first + a]
+        call = self.row_args[0][self.rows] > 0.0
+        lnx = self.lnx[:, None, None] + np.where(call, -1.0, 1.0)[:, None, None] * (
+            ln_shock[None, :, None])
+        tau = self.g_t[self.groups][:, None, None]
+        sd = vols * np.sqrt(tau)
+        z = (lnx - lnb) / sd
+        near = (np.abs(z) < NEAR_Z) | ((sd < SHORT_SD) & (z < SHORT_Z))
+        near = np.broadcast_to(near, (m, n_s, n_v))
+        ri, si, vi = np.nonzero(near)
+        if not ri.size:
+            return
+        w, s, k, t, r, b = (a[self.rows[ri]] for a in self.row_args)
+        vv = vols[ri, si if vols.shape[1] > 1 else 0, vi]
+        vals, _ = american.evaluate(w, s * shocks[si], k, t, r, b, vv, True, self.cache,
+                                    kernels=self.kern)
+        # price, delta, gamma, vega, theta of results.GREEK_NAMES
+        out[ri, :, si, vi] = np.stack(vals[:len(CELL_OUTPUTS)], axis=1)
 
 
 def _set_key(rate: float, div: float, tau: float, boundary: tuple[float, float, float, int],
