@@ -26,12 +26,6 @@ from blotter.scenario.taylor import TERM_NAMES, first_order, second_order, taylo
 PIN_BAND_PCT = 1.0
 """An expiring option whose moved spot is within this % of its strike is flagged as pin risk."""
 
-TABLE_ROWS_PER_BOUNDARY = 40
-"""American rows per exercise boundary (estimated) from which the what-if takes them from the
-grid's kept premium tables: about 15 µs of lookups per boundary against about 0.4 µs saved
-per row (measured at 10k and 100k positions, 800 boundaries)."""
-
-
 @dataclass(frozen=True)
 class MoveRow:
     """Full revaluation change against the Taylor estimate for a group of positions (currency).
@@ -507,15 +501,9 @@ def _reprice(
     am = p.american[sel]
     # no table kept (no grid ran): the quadrature directly, without the tables' row setup
     tables = tables and p.any_american and v.boundaries.has_tables()
+    # kept tables pay even at one row per boundary (a cell is a lookup in its boundary's set,
+    # where the quadrature evaluates each boundary at its nodes first)
     ai = np.flatnonzero(am) if tables else np.zeros(0, dtype=np.int64)
-    if ai.size:
-        # the tables' cost per exercise boundary (τ, rates) outweighs their saving per row
-        # unless each boundary serves enough rows; boundaries are bounded by expiries ×
-        # underlyings × (call, put)
-        uidx = p.uidx_l[sel][ai]
-        n_bounds = 2 * np.unique(t[ai]).size * int(np.count_nonzero(np.bincount(uidx)))
-        if ai.size < TABLE_ROWS_PER_BOUNDARY * n_bounds:
-            ai = ai[:0]
     if ai.size:
         cells, _ = engine.american_cells(
             call[ai],
