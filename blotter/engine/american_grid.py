@@ -13,11 +13,13 @@ boundary is exercised (intrinsic, delta ±1, the rest 0). Each cell is then the 
 European value plus a Lagrange interpolation in ln σ of Chebyshev series in ζ. Greeks (delta,
 gamma, vega) get tables of their own premiums, taken from the method's exact derivatives, not
 by differentiating the interpolant; theta follows from the Black–Scholes equation as in the
-method.
+method. Greek cells next to the boundary, or of a small σ√τ, are valued by the quadrature
+(``_Near``): there the tables' gamma misses the greeks' accuracy.
 
 A table node depends only on its group's boundary and its lattice position, never on which
 rows or cells asked for it, so a cell's value does not depend on the other rows (a grid summed
-over shards equals the serial grid). The tables cost a few hundred exact values per group;
+over shards equals the serial grid); each group keeps one set of them in the cache, over the
+lattice vols built so far. The tables cost a few hundred exact values per group;
 rows the tables do not serve (other statuses, vols below ``VOL_TABLE_MIN``, a failed
 boundary, and every row while the compiled kernels are not ready: the tables have no NumPy
 mirror) are valued cell by cell by ``american.evaluate``.

@@ -299,3 +299,34 @@ def test_one_table_set_per_boundary_widened_by_a_wider_grid() -> None:
     got, _ = engine.american_cells(*cols, one, np.array([0.9]), boundaries=cache,
                                    kept_only=True, with_base=False)
     np.testing.assert_array_equal(got[0, 0, 0], wide[0, 0, 4])
+
+
+def _counts(seed: int, exact_near: bool) -> list[str]:
+    """Cells of ``_book(seed)`` over each output's target, as 'largest (count)'."""
+    got, exact, strike = _cells(_book(seed), greeks=True, exact_near=exact_near)
+    units = {"delta": 1.0, "gamma": 1.0 / strike, "vega": strike, "theta": strike}
+    price = np.abs(got[0] - exact[0]) / strike
+    out = [f"{price.max():.1e} ({int((price > 1e-6).sum())})"]
+    for i, name in enumerate(engine.american_grid.CELL_OUTPUTS[1:], start=1):
+        err = np.abs(got[i] - exact[i]) / (np.abs(exact[i]) + 1e-2 * units[name])
+        out.append(f"{err.max():.1e} ({int((err > 1e-4).sum())})")
+    return out
+
+
+if __name__ == "__main__":
+    # the table of ACCURACY.md, "American grids": python -m tests.engine.test_american_grid
+    print("| book | cells near the boundary | price | delta | gamma | vega | theta |")
+    print("| --- | --- | --- | --- | --- | --- | --- |")
+    for book_seed in (1, 2, 3, 4):
+        for near in (True, False):
+            words = "quadrature" if near else "tables"
+            print(f"| {book_seed} | {words} | " + " | ".join(_counts(book_seed, near)) + " |")
+    for book_seed in (1, 2, 3, 4):
+        alone, alone_exact, alone_k = _cells(_book(book_seed), greeks=False)
+        alone_err = np.abs(alone[0] - alone_exact[0]) / alone_k
+        print(f"book {book_seed}, price-only tables: {alone_err.max():.1e} "
+              f"({int((alone_err > 1e-6).sum())})")
+    short, short_exact, short_k = _short_dated()
+    short_err = np.abs(short - short_exact) / (np.abs(short_exact) + 1e-2 / short_k)
+    print(f"short-dated gamma: {short_err.max():.1e} ({int((short_err > 1e-4).sum())} of "
+          f"{short_err.size})")
