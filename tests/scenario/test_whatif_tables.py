@@ -21,6 +21,7 @@ from blotter import engine
 from blotter.engine import american_grid
 from blotter.risk import BookValuation, value_book
 from blotter.scenario import apply_move, ladder, parse_move
+from blotter.scenario import whatif as whatif_module
 from blotter.scenario.base import prepare
 
 
@@ -71,6 +72,8 @@ def calls(monkeypatch: pytest.MonkeyPatch) -> Iterator[_Calls]:
 
     monkeypatch.setattr(american_grid, "american_cells", cells)
     monkeypatch.setattr(american_grid, "_cell_by_cell", by_cell)
+    # a test book has a few rows per boundary: the tables serve it whatever their number
+    monkeypatch.setattr(whatif_module, "TABLE_ROWS_PER_BOUNDARY", 0)
     yield seen
 
 
@@ -166,4 +169,17 @@ def test_a_move_past_the_kept_tables_is_priced_by_quadrature(
     assert calls.cells == 1
     assert sum(calls.by_quadrature) == _n_american(valuation)
     assert len(valuation.boundaries._tables) == n_tables
+    assert np.sum(np.abs(full - ref)) <= tol
+
+
+def test_few_rows_per_boundary_take_the_quadrature(
+    valuation: BookValuation, calls: _Calls, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # below TABLE_ROWS_PER_BOUNDARY rows per boundary the tables' lookups cost more than
+    # they save: the quadrature, as without kept tables
+    monkeypatch.setattr(whatif_module, "TABLE_ROWS_PER_BOUNDARY", 40)
+    ladder(valuation)
+    calls.clear()
+    full, ref, tol = _quadrature_pnl(valuation, "spot -4% vol +2")
+    assert calls.cells == 0
     assert np.sum(np.abs(full - ref)) <= tol
