@@ -41,12 +41,7 @@ LATTICE_STEP = 0.1
 LATTICE_POINTS = 6
 """Lattice vols each cell's premium is interpolated from (Lagrange in ln σ)."""
 CHEB_DEGREE = 32
-"""Degree N of the Chebyshev series in ζ of the greeks' tables (N + 1 points, one of them
-z = ∞)."""
-PRICE_DEGREE = 24
-"""Degree of the price-only tables (a grid's): the price keeps 1e-6 of the strike with 2e-7
-of it on ACCURACY.md's books (degree 20 left 7e-7), at about half the table points of
-``CHEB_DEGREE`` within ``Z_CAP``."""
+"""Degree N of the Chebyshev series in ζ (N + 1 points, one of them z = ∞)."""
 Z_SCALE = 4.0
 """z at ζ = 0: half of the Chebyshev points lie within this many standard deviations of the
 boundary."""
@@ -84,9 +79,10 @@ CELL_OUTPUTS = ("price", "delta", "gamma", "vega", "theta")
 """What ``american_cells`` gives with ``greeks`` (per unit of underlying, as ``price_greeks``)."""
 
 
-def _lobatto(n: int) -> tuple[np.ndarray, np.ndarray]:
-    """z at the Chebyshev–Lobatto points ζ_c = cos(cπ/N) of degree ``n`` (c = 0 is z = ∞, left
-    as inf) and the matrix from values there to Chebyshev coefficients."""
+def _lobatto() -> tuple[np.ndarray, np.ndarray]:
+    """z at the Chebyshev–Lobatto points ζ_c = cos(cπ/N) (c = 0 is z = ∞, left as inf) and the
+    matrix from values there to Chebyshev coefficients."""
+    n = CHEB_DEGREE
     zeta = np.cos(np.arange(n + 1) * np.pi / n)
     with np.errstate(divide="ignore"):
         z = Z_SCALE * (1.0 + zeta) / (1.0 - zeta)
@@ -100,13 +96,7 @@ def _lobatto(n: int) -> tuple[np.ndarray, np.ndarray]:
     return z, to_coef
 
 
-_LOBATTO = {True: _lobatto(CHEB_DEGREE), False: _lobatto(PRICE_DEGREE)}
-"""The points and coefficient matrix of the greeks' tables (True) and the price-only ones."""
-
-
-def _degree(greeks: bool) -> int:
-    """Degree of the Chebyshev series of a table with or without the greeks."""
-    return CHEB_DEGREE if greeks else PRICE_DEGREE
+_Z, _TO_COEF = _lobatto()
 
 
 def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
@@ -375,8 +365,7 @@ def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: 
     no table is kept) of the groups' lattice vols from their kept table sets (``items``, one
     per group or None), gathered in one indexing pass over all sets."""
     n_g, nl_max = lat_first.size, int(n_lat.max())
-    degree = _degree(n_t > 1)
-    width = 2 + n_t * (degree + 1)
+    width = 2 + n_t * (CHEB_DEGREE + 1)
     packed = np.full((n_g, nl_max, width), np.nan)
     have = [g for g, item in enumerate(items) if item is not None]
     if have:
@@ -397,7 +386,7 @@ def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: 
     found = ~np.isnan(edge)
     tail = np.where(found, packed[:, :, 1], 0.0)
     coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0).reshape(
-        n_g, nl_max, n_t, degree + 1)
+        n_g, nl_max, n_t, CHEB_DEGREE + 1)
     return np.ascontiguousarray(coef), tail, edge
 
 
@@ -482,16 +471,14 @@ def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.nd
     n_t = TABLE_OUTPUTS if greeks else 1
     # the point on the boundary (z = 0) takes the continuation's limits there, exactly:
     # quadratures of gamma just above the boundary miss a layer of width z² in time
-    degree = _degree(greeks)
-    z_pts, to_coef = _LOBATTO[greeks]
-    pts = np.flatnonzero((z_pts <= Z_CAP) & (z_pts > 0.0))  # beyond Z_CAP (z = ∞ too): 0
+    pts = np.flatnonzero((_Z <= Z_CAP) & (_Z > 0.0))  # beyond Z_CAP (z = ∞ among them): 0
     n_pts = pts.size
-    vals = np.zeros((n_g, nl_max, n_t, degree + 1))
+    vals = np.zeros((n_g, nl_max, n_t, CHEB_DEGREE + 1))
     gi, ai = np.nonzero(use)
     if gi.size:
         sig = np.exp(lat[gi, ai])
         root_t = np.sqrt(grp.tau[gi])
-        x = edge[gi, ai][:, None] + (sig * root_t)[:, None] * z_pts[None, pts]
+        x = edge[gi, ai][:, None] + (sig * root_t)[:, None] * _Z[None, pts]
         n_rows = x.size
         lnx = x.ravel()
         v = np.repeat(sig, n_pts)
@@ -516,13 +503,13 @@ def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.nd
         # advanced indices around a slice: the indexed shape is (rows, points, n_t)
         vals[gi[:, None], ai[:, None], :, pts[None, :]] = (
             prem.reshape(n_t, gi.size, n_pts).transpose(1, 2, 0))
-        vals[gi, ai, :, degree] = _on_boundary(edge[gi, ai], sig, grp.tau[gi],
+        vals[gi, ai, :, CHEB_DEGREE] = _on_boundary(edge[gi, ai], sig, grp.tau[gi],
                                                     grp.rate[gi], grp.div[gi], greeks)
     big = np.max(np.abs(vals), axis=2) > TAIL_NEGLIGIBLE          # (G, L, N + 1)
     # points run from z = ∞ (0) to z = 0 (N): the first significant one has the largest z
-    first_big = np.where(big.any(axis=2), np.argmax(big, axis=2), degree)
-    tail = z_pts[first_big]
-    coef: np.ndarray = np.ascontiguousarray(vals @ to_coef.T)
+    first_big = np.where(big.any(axis=2), np.argmax(big, axis=2), CHEB_DEGREE)
+    tail = _Z[first_big]
+    coef: np.ndarray = np.ascontiguousarray(vals @ _TO_COEF.T)
     return coef, tail
 
 
