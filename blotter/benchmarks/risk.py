@@ -11,7 +11,8 @@
   350 ms), one broadcast pass chunked to ``LADDER_CHUNK_CELLS`` cells.
 - ``american book …``: on books 90% American at 10k and 100k positions, valuing the book (cold,
   every exercise boundary solved), the what-if, the 9 × 5 grid, the P&L profile (31 spot
-  points) and the Δ $ profile, against issue 11's targets. The grid and profiles reuse the
+  points), the Δ $ profile and the gamma profile (its cells near the exercise boundary or of a
+  small σ√τ by quadrature), against issue 11's targets. The grid and profiles reuse the
   premium tables kept in the valuation's cache (as after a spot move), and ``whatif tables
   kept`` times ``NO_ROLL_MOVE`` after the grid (its American rows from those tables, as in the
   app, which computes the grid on each load); ``… tables cold`` times
@@ -231,6 +232,7 @@ AMERICAN_TARGETS_MS = {
     "grid": (100.0, 500.0),
     "pnl profile": (100.0, 500.0),
     "delta profile": (100.0, 1000.0),
+    "gamma profile": (100.0, 1000.0),
 }
 """Targets (ms at 10k, ms at 100k positions) of the American cases (issue 11)."""
 
@@ -278,6 +280,7 @@ def _american_book_cases(quick: bool) -> list[Result]:
             "whatif tables kept": partial(apply_move, v, parse_move(NO_ROLL_MOVE)),
             "pnl profile": partial(ladder, v, spot_pcts, (0.0,)),
             "delta profile": partial(greek_profile, v, "delta_cash", spot_pcts),
+            "gamma profile": partial(greek_profile, v, "gamma_1pct", spot_pcts),
             "grid tables cold": partial(ladder, v),
             "delta profile tables cold": partial(greek_profile, v, "delta_cash", spot_pcts),
         }

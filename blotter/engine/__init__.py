@@ -244,7 +244,8 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
                    carry: object, vols: object, shocks: object, greeks: bool = False,
                    boundaries: object = None, base_vols: object = None,
                    weights: object = None, with_base: bool = True,
-                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                   kept_only: bool = False,
+                   exact_near: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """American values of rows (m,) in every cell of a spot × vol grid: spot × ``shocks[i]``
     (n_s,), vol ``vols[i or 0, j, row]`` ((n_s or 1, n_v, m)); shape (1, n_s, n_v, m), or
     with ``greeks`` (5, n_s, n_v, m) = price, delta, gamma, vega, theta (units of ``Greeks``);
@@ -253,7 +254,10 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
     ``weights`` (m,), their weighted sums over the rows instead, (1 or 5, n_s, n_v) and
     (1 or 5,), in bounded memory. ``with_base`` False skips the values at the unmoved spot
     (NaN); ``kept_only`` takes only boundaries and premium tables already kept in
-    ``boundaries`` and gives NaN cells when any is missing (no ``weights`` then).
+    ``boundaries`` and gives NaN cells when any is missing (no ``weights`` then). With
+    ``greeks``, cells near the exercise boundary or of a small σ√τ are valued by the
+    quadrature, since there the tables' gamma, vega and theta miss the greeks' accuracy;
+    ``exact_near`` False keeps the tables' cells there (price and delta are within it).
 
     Each cell equals ``price``/``price_greeks`` with ``american=True`` within the method's
     accuracy, from one premium table per exercise boundary (``american_grid``) instead of one
@@ -287,7 +291,7 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
         wt = np.broadcast_to(as_float_array("weights", weights, "finite"), (m,))
     return _american_grid.american_cells(c, s, k, t, r, b, vv, sh, greeks, _cache(boundaries),
                                          base_vols=bv, weights=wt, with_base=with_base,
-                                         kept_only=kept_only)
+                                         kept_only=kept_only, exact_near=exact_near)
 
 
 def implied_vol(price: object, is_call: object, spot: object, strike: object, years: object,

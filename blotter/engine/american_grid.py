@@ -13,11 +13,13 @@ boundary is exercised (intrinsic, delta ±1, the rest 0). Each cell is then the 
 European value plus a Lagrange interpolation in ln σ of Chebyshev series in ζ. Greeks (delta,
 gamma, vega) get tables of their own premiums, taken from the method's exact derivatives, not
 by differentiating the interpolant; theta follows from the Black–Scholes equation as in the
-method.
+method. Greek cells next to the boundary, or of a small σ√τ, are valued by the quadrature
+(``_Near``): there the tables' gamma misses the greeks' accuracy.
 
 A table node depends only on its group's boundary and its lattice position, never on which
 rows or cells asked for it, so a cell's value does not depend on the other rows (a grid summed
-over shards equals the serial grid). The tables cost a few hundred exact values per group;
+over shards equals the serial grid); each group keeps one set of them in the cache, over the
+lattice vols built so far. The tables cost a few hundred exact values per group;
 rows the tables do not serve (other statuses, vols below ``VOL_TABLE_MIN``, a failed
 boundary, and every row while the compiled kernels are not ready: the tables have no NumPy
 mirror) are valued cell by cell by ``american.evaluate``.
@@ -26,7 +28,7 @@ mirror) are valued cell by cell by ``american.evaluate``.
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from types import ModuleType
 
 import numpy as np
@@ -46,13 +48,26 @@ boundary."""
 VOL_TABLE_MIN = 0.03
 """Rows with a cell vol below this are valued cell by cell (the lattice would reach below
 ``american.VOL_MIN``)."""
-Z_CAP = 40.0
-"""Table points farther than this many standard deviations above the boundary hold 0: the
-premium there is below Φ(−30) of the strike however the boundary and drift lie."""
+Z_CAP = 12.0
+"""Table points farther than this many standard deviations above the boundary hold 0 and cost
+no quadrature: the drift moves a row at most about 5.5 standard deviations towards the
+boundary (|r − q| <= 8%, three years, the lattice's lowest vol 2.5%), so the premium there
+is below Φ(−6) of r K τ (a cap of 40 gave the same cells to 4e-15 on such rows)."""
 TAIL_NEGLIGIBLE = 1e-10
 """Premiums (per unit strike, or of a greek per unit) below this at every table point from some
 z on are taken as 0 beyond the last point above it: there the interpolant's own error would be
 larger than the premium."""
+NEAR_Z = 0.5
+"""Greek cells within this many standard deviations of the interpolated boundary (either side)
+are valued by the engine's quadrature: there the tables' gamma follows the boundary limit,
+which the engine's own gamma reaches only within a layer of width z² in time."""
+SHORT_SD = 0.03
+"""Greek cells whose σ√τ is below this, up to ``SHORT_Z`` above the boundary, are valued by
+the engine's quadrature: the gamma premium peaks at about 1/(σ√τ) near the boundary, and the
+tables' error of about 1e-6 of that peak exceeds 1e-6 per unit of underlying farther out."""
+SHORT_Z = 9.0
+"""Standard deviations above the boundary past which the premium of a row with a small σ√τ is
+below 1e-12 of its strike, and its table cells are kept."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
 BLOCK_ROWS = 8192
@@ -91,7 +106,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                    kernels: ModuleType | None = None,
                    base_vols: np.ndarray | None = None,
                    weights: np.ndarray | None = None, with_base: bool = True,
-                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray]:
+                   kept_only: bool = False,
+                   exact_near: bool = True) -> tuple[np.ndarray, np.ndarray]:
     """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
     (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
 
@@ -105,7 +121,9 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     book). ``with_base`` False leaves the outputs at the unmoved spot NaN (half the work of one
     cell per row); with ``kept_only``, rows whose boundary or tables are not already kept in
     ``cache`` are valued cell by cell instead of building them (that costs several times a
-    quadrature per cell, so pays only over many cells)."""
+    quadrature per cell, so pays only over many cells). With ``greeks`` and ``exact_near``,
+    cells within ``NEAR_Z`` of the boundary, or up to ``SHORT_Z`` above it where σ√τ is
+    below ``SHORT_SD``, are valued by the quadrature (``_Near``)."""
     kern = american._implementation(kernels)
     w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
     s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
@@ -158,8 +176,9 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     if kept_only and cache is None:
         rows = rows[:0]
     if rows.size:
-        done = _tabulated(rows, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                          greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
+        done = _tabulated(rows, w, s, k, t, r, b, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks,
+                          key, greeks, cache, kern, n_out, base_v, sink, with_base, kept_only,
+                          exact_near)
         table[rows[~done]] = False
     rest = np.flatnonzero(~table)
     if rest.size:
@@ -176,12 +195,14 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
 
 
 def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,
-               r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray, lo_v: np.ndarray,
+               r: np.ndarray, b: np.ndarray, r_p: np.ndarray, q_p: np.ndarray, lnx: np.ndarray,
+               lo_v: np.ndarray,
                hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
                greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
                n_out: int, base_v: np.ndarray,
                sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None],
-               with_base: bool = True, kept_only: bool = False) -> np.ndarray:
+               with_base: bool = True, kept_only: bool = False,
+               exact_near: bool = True) -> np.ndarray:
     """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
     the unmoved spot and ``base_v`` (NaN unless ``with_base``), handed to ``sink``
     ``BLOCK_ROWS`` rows at a time (row indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1));
@@ -204,39 +225,30 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     # serves a greek profile (one per key is kept: a price-only one would be solved again)
     span = np.concatenate([lat_first, lat_last]) * LATTICE_STEP
     if kept_only:
+        # the kept tables alone: no boundary is interpolated and no table built
         assert cache is not None
-        kept = np.array([cache.find(float(g_r[g]), float(g_q[g]), float(g_t[g]),
-                                    float(span[g]), float(span[n_g + g]), True) is not None
-                         for g in range(n_g)], dtype=bool)
-        if not kept.all():
-            # the groups with a kept boundary only (a search of sorted rows: fast)
-            sub = np.sort(order[np.repeat(kept, counts)])
-            served_sub = np.zeros(rows.size, dtype=bool)
-            if sub.size:
-                served_sub[np.searchsorted(rows, sub)] = _tabulated(
-                    sub, w, s, k, t, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks, key,
-                    greeks, cache, kern, n_out, base_v, sink, with_base, kept_only)
-            return served_sub
-    two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
-    grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
-                               np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
-    ok = grp.steps >= 0
-    nl_max = int(n_lat.max())
-    lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
-    edge = np.zeros((n_g, nl_max))
-    scheme = american.DEFAULT
-    kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
-                     scheme.power, scheme.squares, np.ascontiguousarray(lat), n_lat, edge)
-    use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
-    coef, tail, missing = _cached_tables(grp, use, lat_first, lat, edge, greeks, scheme, kern,
-                                         cache, kept_only)
-    ok &= ~missing.any(axis=1)
+        ok, coef, tail, edge = _kept_sets(cache, g_r, g_q, g_t, span, lat_first, n_lat, greeks)
+    else:
+        two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
+        grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
+                                   np.tile(g_r, 2), np.tile(g_q, 2), span, True, cache, kern)
+        ok = grp.steps >= 0
+        nl_max = int(n_lat.max())
+        lat = (lat_first[:, None] + np.arange(nl_max)[None, :]) * LATTICE_STEP
+        edge = np.zeros((n_g, nl_max))
+        scheme = american.DEFAULT
+        kern.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
+                         grp.tan, scheme.power, scheme.squares, np.ascontiguousarray(lat),
+                         n_lat, edge)
+        use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
+        coef, tail = _cached_tables(grp, use, lat_first, n_lat, lat, edge, greeks, scheme,
+                                    kern, cache)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
         row_group = np.repeat(np.arange(n_g), counts)[served]
         n_t = coef.shape[2]
-        args = (grp.rate, grp.div, grp.tau, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
+        args = (g_r, g_q, g_t, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
                 LATTICE_POINTS, Z_SCALE)
         ln_shock = np.log(shocks)
         n_s, n_v = shocks.size, vol_rows.shape[2]
@@ -271,6 +283,12 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
 
             run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
                         min_split=1)
+            if greeks and exact_near:
+                near = _Near(sel[b0:b1], g_sel[b0:b1], lnx_s[b0:b1], lat_first, n_lat, edge,
+                             g_t, (w, s, k, t, r, b), cache, kern)
+                near.replace(cells, v_s, ln_shock, shocks)
+                if with_base:
+                    near.replace(at_base, b_s[b0:b1], zero, one)
             sink(sel[b0:b1], cells, at_base)
     # which rows were served, by a mask over row indices rather than a search of ``rows``
     # for each of ``sel`` (that search costs about 10 ms at 90k rows)
@@ -280,44 +298,166 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     return served_rows
 
 
+@dataclass(frozen=True)
+class _Near:
+    """Greek cells the tables do not serve to the greeks' accuracy (within ``NEAR_Z`` of the
+    boundary, or up to ``SHORT_Z`` above it where σ√τ is small), valued again by the engine's
+    quadrature, for one block of rows."""
+
+    rows: np.ndarray
+    groups: np.ndarray
+    lnx: np.ndarray
+    lat_first: np.ndarray
+    n_lat: np.ndarray
+    edge: np.ndarray
+    g_t: np.ndarray
+    row_args: tuple[np.ndarray, ...]
+    cache: american.BoundaryCache | None
+    kern: ModuleType
+
+    def replace(self, out: np.ndarray, vols: np.ndarray, ln_shock: np.ndarray,
+                shocks: np.ndarray) -> None:
+        """Overwrite the cells (rows, 5, n_s, n_v) of ``out`` at the spot multipliers
+        ``shocks`` and ``vols`` (rows, n_s or 1, n_v) that need the quadrature."""
+        m, n_s, n_v = self.rows.size, shocks.size, vols.shape[2]
+        g = self.groups[:, None, None]
+        c = np.log(vols) / LATTICE_STEP
+        first, count = self.lat_first[g], self.n_lat[g]
+        i0 = np.clip(np.floor(c).astype(np.int64) - LATTICE_POINTS // 2 + 1, first,
+                     first + count - LATTICE_POINTS)
+        lnb = np.zeros(c.shape)
+        for a in range(LATTICE_POINTS):
+            lag = np.ones(c.shape)
+            for e in range(LATTICE_POINTS):
+                if e != a:
+                    lag *= (c - (i0 + e)) / (a - e)
+            lnb += lag * self.edge[g, i0 - first + a]
+        call = self.row_args[0][self.rows] > 0.0
+        lnx = self.lnx[:, None, None] + np.where(call, -1.0, 1.0)[:, None, None] * (
+            ln_shock[None, :, None])
+        tau = self.g_t[self.groups][:, None, None]
+        sd = vols * np.sqrt(tau)
+        z = (lnx - lnb) / sd
+        near = (np.abs(z) < NEAR_Z) | ((sd < SHORT_SD) & (z < SHORT_Z))
+        near = np.broadcast_to(near, (m, n_s, n_v))
+        ri, si, vi = np.nonzero(near)
+        if not ri.size:
+            return
+        w, s, k, t, r, b = (a[self.rows[ri]] for a in self.row_args)
+        vv = vols[ri, si if vols.shape[1] > 1 else 0, vi]
+        vals, _ = american.evaluate(w, s * shocks[si], k, t, r, b, vv, True, self.cache,
+                                    kernels=self.kern)
+        # price, delta, gamma, vega, theta of results.GREEK_NAMES
+        out[ri, :, si, vi] = np.stack(vals[:len(CELL_OUTPUTS)], axis=1)
+
+
+def _set_key(rate: float, div: float, tau: float, boundary: tuple[float, float, float, int],
+             greeks: bool) -> tuple[float, ...]:
+    """Cache key of one group's table set: its put form, row time τ, the boundary it was built
+    on (τmax, first and last vol node, node count) and whether it holds the greeks."""
+    tmax, lo, hi, ns = boundary
+    return (rate, div, tau, tmax, lo, hi, float(ns - 1), float(greeks))
+
+
+def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: np.ndarray,
+            n_lat: np.ndarray, n_t: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Coefficients (G, L, n_t, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where
+    no table is kept) of the groups' lattice vols from their kept table sets (``items``, one
+    per group or None), gathered in one indexing pass over all sets."""
+    n_g, nl_max = lat_first.size, int(n_lat.max())
+    width = 2 + n_t * (CHEB_DEGREE + 1)
+    packed = np.full((n_g, nl_max, width), np.nan)
+    have = [g for g, item in enumerate(items) if item is not None]
+    if have:
+        sets = [items[g] for g in have]
+        first = np.array([item[0] for item in sets if item is not None], dtype=np.int64)
+        big = np.concatenate([item[2] for item in sets if item is not None])
+        size = np.array([item[2].shape[0] for item in sets if item is not None])
+        start = np.concatenate([[0], np.cumsum(size)[:-1]])
+        g_have = np.array(have)
+        pos = lat_first[g_have, None] + np.arange(nl_max)[None, :] - first[:, None]
+        inside = (pos >= 0) & (pos < size[:, None]) & (
+            np.arange(nl_max)[None, :] < n_lat[g_have, None])
+        at = np.where(inside, start[:, None] + np.clip(pos, 0, size[:, None] - 1), 0)
+        rows = big[at]
+        rows[~inside] = np.nan
+        packed[g_have] = rows
+    edge = packed[:, :, 0]
+    found = ~np.isnan(edge)
+    tail = np.where(found, packed[:, :, 1], 0.0)
+    coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0).reshape(
+        n_g, nl_max, n_t, CHEB_DEGREE + 1)
+    return np.ascontiguousarray(coef), tail, edge
+
+
+def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
+               g_t: np.ndarray, span: np.ndarray, lat_first: np.ndarray, n_lat: np.ndarray,
+               greeks: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Which groups have a kept boundary and kept tables at every lattice vol they need (G,),
+    and those tables as ``_gather`` gives them (edge 0 where not kept)."""
+    n_g = g_r.size
+    keys: list[tuple[float, ...] | None] = []
+    for r, q, t, lo, hi in zip(g_r.tolist(), g_q.tolist(), g_t.tolist(), span[:n_g].tolist(),
+                               span[n_g:].tolist(), strict=True):
+        item = cache.find(r, q, t, lo, hi, True)
+        keys.append(None if item is None or item.steps < 0 else _set_key(
+            r, q, t, (item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]), item.lnsig.size),
+            greeks))
+    kept = iter(cache.tables([k for k in keys if k is not None]))
+    items = [None if k is None else next(kept) for k in keys]
+    coef, tail, edge = _gather(items, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
+    use = np.arange(edge.shape[1])[None, :] < n_lat[:, None]
+    ok = ~(use & np.isnan(edge)).any(axis=1)
+    return ok, coef, tail, np.where(np.isnan(edge), 0.0, edge)
+
+
 def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
-                   lat: np.ndarray, edge: np.ndarray, greeks: bool, scheme: american.Scheme,
-                   kern: ModuleType, cache: american.BoundaryCache | None,
-                   kept_only: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                   n_lat: np.ndarray, lat: np.ndarray, edge: np.ndarray, greeks: bool,
+                   scheme: american.Scheme, kern: ModuleType,
+                   cache: american.BoundaryCache | None) -> tuple[np.ndarray, np.ndarray]:
     """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
-    from it (a table depends only on its boundary, τ and lattice vol, so a spot move or
-    another grid of the same valuation reuses it) and the others computed and kept, or with
-    ``kept_only`` left 0 and marked in the third array (G, L), True where not kept."""
+    from it and the others computed and kept. Each group keeps one set: its tables over a
+    range of lattice vols in one array (a table depends only on its boundary, τ and lattice
+    vol, so a spot move or another grid of the same valuation reuses it)."""
     if cache is None:
-        coef, tail = _tables(grp, use, lat, edge, greeks, scheme, kern)
-        return coef, tail, np.zeros(use.shape, dtype=bool)
-    gi, ai = np.nonzero(use)
-    last = grp.ns[gi] - 1
-    cols = (grp.rate[gi], grp.div[gi], grp.tau[gi], grp.tmax[gi], grp.lnsig[gi, 0],
-            grp.lnsig[gi, last], last.astype(np.float64), (lat_first[gi] + ai).astype(np.float64))
-    keys = [(*k, float(greeks)) for k in zip(*(c.tolist() for c in cols), strict=True)]
+        return _tables(grp, use, lat, edge, greeks, scheme, kern)
+    n_g = grp.rate.size
+    keys = [_set_key(float(grp.rate[g]), float(grp.div[g]), float(grp.tau[g]),
+                     (float(grp.tmax[g]), float(grp.lnsig[g, 0]),
+                      float(grp.lnsig[g, grp.ns[g] - 1]), int(grp.ns[g])), greeks)
+            for g in range(n_g)]
     kept = cache.tables(keys)
-    todo = use.copy()
-    n_t = TABLE_OUTPUTS if greeks else 1
-    coef = np.zeros((*use.shape, n_t, CHEB_DEGREE + 1))
-    tail = np.zeros(use.shape)
-    for g, a, item in zip(gi.tolist(), ai.tolist(), kept, strict=True):
-        if item is not None and item[0] == edge[g, a]:
-            tail[g, a] = item[1]
-            coef[g, a] = item[2]
-            todo[g, a] = False
-    if kept_only:
-        return coef, tail, todo
+    coef, tail, have = _gather(kept, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
+    todo = use & ~(have == edge)
     if todo.any():
         new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
         coef[todo] = new[todo]
         tail[todo] = new_tail[todo]
-        at = {(g, a): i for i, (g, a) in enumerate(zip(gi.tolist(), ai.tolist(), strict=True))}
-        cache.keep_tables({keys[at[(g, a)]]: (float(edge[g, a]), float(new_tail[g, a]),
-                                              new[g, a].copy())
-                           for g, a in zip(*(x.tolist() for x in np.nonzero(todo)),
-                                           strict=True)})
-    return coef, tail, np.zeros(use.shape, dtype=bool)
+        have[todo] = edge[todo]
+        fresh: dict[tuple[float, ...], tuple[float, float, np.ndarray]] = {}
+        for g in np.unique(np.nonzero(todo)[0]).tolist():
+            fresh[keys[g]] = _merged(kept[g], int(lat_first[g]), have[g, :n_lat[g]],
+                                     tail[g, :n_lat[g]], coef[g, :n_lat[g]])
+        cache.keep_tables(fresh)
+    return coef, tail
+
+
+def _merged(old: tuple[float, float, np.ndarray] | None, first: int, edge: np.ndarray,
+            tail: np.ndarray, coef: np.ndarray) -> tuple[float, float, np.ndarray]:
+    """A group's table set over the union of its kept lattice vols (``old``) and the ones
+    given from lattice index ``first`` (edge NaN where none is built): (first index, count,
+    rows of ln B, tail and the coefficients)."""
+    n = edge.size
+    lo, hi = first, first + n
+    if old is not None:
+        lo, hi = min(lo, int(old[0])), max(hi, int(old[0]) + old[2].shape[0])
+    out = np.full((hi - lo, 2 + coef[0].size), np.nan)
+    if old is not None:
+        out[int(old[0]) - lo:int(old[0]) - lo + old[2].shape[0]] = old[2]
+    new = np.concatenate([edge[:, None], tail[:, None], coef.reshape(n, -1)], axis=1)
+    built = ~np.isnan(edge)
+    out[first - lo:first - lo + n][built] = new[built]
+    return float(lo), float(hi - lo), out
 
 
 def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,
