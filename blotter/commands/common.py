@@ -16,6 +16,7 @@ import click
 
 from blotter.config import DESK_TZ_SOURCES
 from blotter.printable import printable
+from blotter.store.pg import shown
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -91,18 +92,18 @@ def open_for_reading(path: str) -> Any:
         source = read_only_source()
         if source is not None:
             raise SchemaUpgradeNeeded(
-                f"{path} uses an older schema ({exc.version}), and read-only is on ({source}), "
-                "so it was not upgraded; run once without read-only to upgrade it",
+                f"{shown(path)} uses an older schema ({exc.version}), and read-only is on "
+                f"({source}), so it was not upgraded; run once without read-only to upgrade it",
                 exc.version,
             ) from None
         try:
             open_store(path, desk_tz=zone).close()
         except NotWritableError as denied:
             raise StoreError(
-                f"{path} uses an older schema ({exc.version}), which this blotter upgrades on "
-                f"open, but {denied.why}: ask whoever can write it to open it once"
+                f"{shown(path)} uses an older schema ({exc.version}), which this blotter "
+                f"upgrades on open, but {denied.why}: ask whoever can write it to open it once"
             ) from None
-        click.echo(f"blotter: upgraded {path} from schema {exc.version}", err=True)
+        click.echo(f"blotter: upgraded {shown(path)} from schema {exc.version}", err=True)
         return open_store(path, read_only=True, desk_tz=zone)
 
 

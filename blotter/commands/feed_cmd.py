@@ -23,6 +23,7 @@ from blotter.commands.common import (
 from blotter.commands.store_cmds import _store
 from blotter.config import MAX_WATCH_INTERVAL_S
 from blotter.printable import printable
+from blotter.store.pg import shown
 from blotter.ticks import on_tick
 
 
@@ -151,7 +152,7 @@ def demo_feed(
         store.close()
     ticks = dict(zip(names.symbols, names.ticks, strict=True))
     if not spots:
-        raise click.ClickException(f"{path} has no spot marks to start a walk from")
+        raise click.ClickException(f"{shown(path)} has no spot marks to start a walk from")
     rng = random.Random(seed)
     symbols = sorted(spots)
     step = move_bp / 10_000.0

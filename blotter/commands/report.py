@@ -35,6 +35,7 @@ from blotter.commands.common import (
 from blotter.commands.xlsx import table_out, wants_xlsx, xlsx_option
 from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
+from blotter.store.pg import shown
 
 if TYPE_CHECKING:
     from blotter.desk.scenario_sets import ScenarioSet, SetRun
@@ -127,7 +128,7 @@ def _open(db_path: str | None) -> Any:
     except StoreError as exc:  # the store's own errors name the file and the problem
         raise click.ClickException(str(exc)) from None
     except Exception as exc:  # noqa: BLE001 - anything else is said, never a traceback
-        raise click.ClickException(f"cannot open {path}: {exc}") from exc
+        raise click.ClickException(f"cannot open {shown(path)}: {exc}") from exc
 
 
 def _value(

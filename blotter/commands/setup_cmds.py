@@ -27,6 +27,7 @@ from blotter.commands.common import (
 )
 from blotter.commands.store_cmds import _emit, _store, parse_decimal_or_percent
 from blotter.limits import UNDERLYING_KINDS
+from blotter.store.pg import shown
 
 _CURRENCY = re.compile(r"[A-Z]{3}\Z")
 _CUTOFF = re.compile(r"([01]\d|2[0-3]):[0-5]\d\Z")
@@ -82,15 +83,17 @@ def create(path: str, book_name: str | None, base_currency: str, as_json: bool) 
         if book_name is not None:
             store.add_book(book_name)
     except StoreError as exc:
-        raise click.ClickException(f"{exc} (the file {path} was created, with no book)") from None
+        raise click.ClickException(
+            f"{exc} (the file {shown(path)} was created, with no book)"
+        ) from None
     finally:
         store.close()
     extra = f" with book {book_name!r}" if book_name else ""
     _emit(
         as_json,
         {"path": path, "book": book_name, "base_currency": base_currency},
-        f"created {path}{extra}, base currency {base_currency}; "
-        f"next: blotter --db {path} underlying add SYMBOL --kind ...",
+        f"created {shown(path)}{extra}, base currency {base_currency}; "
+        f"next: blotter --db {shown(path)} underlying add SYMBOL --kind ...",
     )
 
 

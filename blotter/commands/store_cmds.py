@@ -31,6 +31,7 @@ from blotter.commands.common import (
 )
 from blotter.commands.progress import Progress, progress
 from blotter.printable import printable
+from blotter.store.pg import shown
 from blotter.ticks import price_text, tick_decimals
 
 STDIN_NAME = "stdin"
@@ -81,7 +82,9 @@ def _store(db_path: str | None, read_only: bool = False) -> Iterator[Any]:
     path, _explicit = resolve_db(db_path)
     source = read_only_source()
     if not read_only and source is not None:
-        raise click.ClickException(f"read-only is on ({source}): nothing was written to {path}")
+        raise click.ClickException(
+            f"read-only is on ({source}): nothing was written to {shown(path)}"
+        )
     try:
         if read_only and source is None:
             store = open_for_reading(path)
