@@ -14,7 +14,8 @@ from blotter.commands.common import AppContext, start_log
 
 @click.group(invoke_without_command=True, context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--db", "db_path", type=click.Path(dir_okay=False), envvar="BLOTTER_DB",
-              help="Book file (SQLite). Default: $BLOTTER_DB, else your own copy of the demo book.")
+              help="Book: an SQLite file or a postgresql:// URL. Default: $BLOTTER_DB, else your "
+                   "own copy of the demo book.")
 @click.option("--read-only", is_flag=True, help="Open the book read-only: nothing can be written.")
 @click.option("--no-mouse", is_flag=True,
               help="App: leave the mouse to the terminal (text selection).")

@@ -16,7 +16,6 @@ import click
 
 from blotter.config import DESK_TZ_SOURCES
 from blotter.printable import printable
-from blotter.store.pg import shown
 
 F = TypeVar("F", bound=Callable[..., Any])
 
@@ -76,7 +75,8 @@ def db_option(func: F) -> F:
     """Add ``--db PATH`` to a command; the command's value wins over the group's."""
     return click.option(
         "--db", "db_path", type=click.Path(dir_okay=False), default=None,
-        help="Book file (SQLite); overrides the group's --db and $BLOTTER_DB.",
+        help="Book (an SQLite file or a postgresql:// URL); overrides the group's --db and "
+        "$BLOTTER_DB.",
     )(func)
 
 
@@ -105,6 +105,14 @@ def open_for_reading(path: str) -> Any:
             ) from None
         click.echo(f"blotter: upgraded {shown(path)} from schema {exc.version}", err=True)
         return open_store(path, read_only=True, desk_tz=zone)
+
+
+def shown(book: str) -> str:
+    """``book`` as a message may print it: a database URL's password as ``***``
+    (``store.pg.shown``, imported only when called so completion stays light)."""
+    from blotter.store.pg import shown as without_password
+
+    return without_password(book)
 
 
 def resolve_db(db_path: str | None) -> tuple[str, bool]:

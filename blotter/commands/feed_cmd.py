@@ -19,11 +19,11 @@ from blotter.commands.common import (
     db_option,
     open_for_reading,
     print_json,
+    shown,
 )
 from blotter.commands.store_cmds import _store
 from blotter.config import MAX_WATCH_INTERVAL_S
 from blotter.printable import printable
-from blotter.store.pg import shown
 from blotter.ticks import on_tick
 
 

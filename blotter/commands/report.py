@@ -31,11 +31,11 @@ from blotter.commands.common import (
     print_json,
     print_table,
     resolve_db,
+    shown,
 )
 from blotter.commands.xlsx import table_out, wants_xlsx, xlsx_option
 from blotter.scenario.grammar import EXAMPLES
 from blotter.scenario.taylor import FIRST_ORDER, SECOND_ORDER, TERM_NAMES
-from blotter.store.pg import shown
 
 if TYPE_CHECKING:
     from blotter.desk.scenario_sets import ScenarioSet, SetRun

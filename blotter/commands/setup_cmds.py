@@ -24,10 +24,10 @@ from blotter.commands.common import (
     print_json,
     print_table,
     read_only_source,
+    shown,
 )
 from blotter.commands.store_cmds import _emit, _store, parse_decimal_or_percent
 from blotter.limits import UNDERLYING_KINDS
-from blotter.store.pg import shown
 
 _CURRENCY = re.compile(r"[A-Z]{3}\Z")
 _CUTOFF = re.compile(r"([01]\d|2[0-3]):[0-5]\d\Z")

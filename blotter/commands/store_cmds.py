@@ -28,10 +28,10 @@ from blotter.commands.common import (
     print_table,
     read_only_source,
     resolve_db,
+    shown,
 )
 from blotter.commands.progress import Progress, progress
 from blotter.printable import printable
-from blotter.store.pg import shown
 from blotter.ticks import price_text, tick_decimals
 
 STDIN_NAME = "stdin"
