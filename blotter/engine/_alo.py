@@ -29,10 +29,11 @@ A put's value is the European value plus the early-exercise premium
 ∫_0^τ [r e^{−rs} Φ(−d₋(s, S/B(τ−s))) − q S e^{−qs} Φ(−d₊(s, S/B(τ−s)))] ds, integrated by
 Gauss–Legendre panels in √s that halve towards s = 0, where the integrand changes on the scale
 of ln(S/B)/σ, and Gauss–Legendre panels in √u that halve towards u = 0, where B has its
-square-root profile (``graded_rule``). Delta, gamma and the third spot derivative are
-derivatives at a fixed boundary (the boundary does not depend on S); vega, rho and carry rho add
-the boundary's own sensitivities, and vanna and volga its first and second derivatives in σ
-(``hermite_weights``).
+square-root profile (``graded_rule``); for a spot so near B that this scale reaches the panel
+at s = 0, that panel is integrated in d = ln(S/B)/(σ√s) instead (``refined_rule``). Delta,
+gamma and the third spot derivative are derivatives at a fixed boundary (the boundary does not
+depend on S); vega, rho and carry rho add the boundary's own sensitivities, and vanna and volga
+its first and second derivatives in σ (``hermite_weights``).
 
 Loops over quadrature points are written without calls or data-dependent branches, with the
 exponential and normal CDF of ``_special`` inlined, so that LLVM vectorizes them.
@@ -985,14 +986,76 @@ VALUE_ROWS = 10
 """Rows of the per-row scratch of ``value_put`` (one per accumulated term)."""
 
 
+LAYER_POINTS = 24
+"""Gauss–Legendre points of ``refined_rule``'s layer integral."""
+LAYER_TOP = D_NEGLIGIBLE + 1.5
+"""Largest d = ln(S/B)/(σ√s) of ``refined_rule``'s layer integral (beyond it, φ(d) < 1e-20)."""
+_LAYER_Y, _LAYER_W = np.polynomial.legendre.leggauss(LAYER_POINTS)
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def refined_rule(lnxs: float, v: float, r: float, q: float, lq: np.ndarray, dlq: np.ndarray,
+                 d2lq: np.ndarray, nodes: np.ndarray, inner: int
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The price rule with its innermost panel [0, y₁] (in y = √s, the first ``inner`` nodes)
+    replaced by a Gauss–Legendre rule in z = d₀/y (d₀ = ln(S/B)/σ) over [d₀/y₁, LAYER_TOP],
+    in which the layer's integrands are smooth (φ(z) times powers of z), and the boundary and
+    its derivatives at the new nodes, linear in s from s = 0: gamma, speed and so theta and
+    charm carry a share of order one (speed of order 1/d₀) from the layer y ≈ d₀, which a
+    fixed rule misses once S is that near B."""
+    nq = nodes.shape[1]
+    y_hi = nodes[2, inner - 1]
+    y1 = nodes[2, 0] + y_hi                  # the panel's top (Gauss–Legendre is symmetric)
+    s_hi = y_hi * y_hi
+    d0 = (lnxs - lq[nq]) / v
+    z1 = d0 / y1
+    half = 0.5 * (max(LAYER_TOP, z1) - z1)
+    nr = LAYER_POINTS + nq - inner
+    nodes_r = np.empty((6, nr))
+    lq_r = np.empty(nr + 1)
+    dlq_r = np.empty((3, nr + 1))
+    d2lq_r = np.empty(nr + 1)
+    for i in range(LAYER_POINTS):
+        z = z1 + half * (1.0 - _LAYER_Y[i])  # descending z: ascending y
+        y = d0 / z
+        s = y * y
+        f = s / s_hi
+        nodes_r[0, i] = s
+        nodes_r[1, i] = 2.0 * y * (d0 / (z * z)) * half * _LAYER_W[i]
+        nodes_r[2, i] = y
+        nodes_r[3, i] = fexp(-r * s)
+        nodes_r[4, i] = fexp(-q * s)
+        nodes_r[5, i] = 1.0 / y
+        lq_r[i] = lq[nq] + (lq[inner - 1] - lq[nq]) * f
+        for a in range(3):
+            dlq_r[a, i] = dlq[a, nq] + (dlq[a, inner - 1] - dlq[a, nq]) * f
+        d2lq_r[i] = d2lq[nq] + (d2lq[inner - 1] - d2lq[nq]) * f
+    i = LAYER_POINTS
+    for j in range(inner, nq):
+        for a in range(6):
+            nodes_r[a, i] = nodes[a, j]
+        lq_r[i] = lq[j]
+        for a in range(3):
+            dlq_r[a, i] = dlq[a, j]
+        d2lq_r[i] = d2lq[j]
+        i += 1
+    lq_r[nr] = lq[nq]
+    for a in range(3):
+        dlq_r[a, nr] = dlq[a, nq]
+    d2lq_r[nr] = d2lq[nq]
+    return nodes_r, lq_r, dlq_r, d2lq_r
+
+
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndarray,
               dlq: np.ndarray, d2lq: np.ndarray, nodes: np.ndarray, greeks: bool,
-              eu: np.ndarray, out: np.ndarray, terms: np.ndarray) -> None:
+              eu: np.ndarray, out: np.ndarray, terms: np.ndarray, inner: int) -> bool:
     """Put (strike 1, spot e^lnxs) over the boundary ``lq`` (nq + 1,) with its derivatives
     ``dlq`` (σ, r, b; per unit) and ``d2lq`` (σσ), price nodes ``nodes`` (6, nq: s, weight, √s,
     e^{−rs}, e^{−qs}, 1/√s): out = price, delta, gamma, vega, theta, rho, carry rho, vanna, volga,
-    charm (out[0] only unless ``greeks``); ``terms`` (VALUE_ROWS, nq) is scratch."""
+    charm (out[0] only unless ``greeks``); ``terms`` (VALUE_ROWS, nq) is scratch. Returns True,
+    computing nothing, when the first ``inner`` nodes (the panel at s -> 0) are not negligible:
+    the row is then valued on its ``refined_rule`` (with ``inner`` 0)."""
     nq = nodes.shape[1]
     xs = math.exp(lnxs)
     v = max(v, 1e-8)
@@ -1002,7 +1065,7 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
             out[1] = -1.0
             for i in range(2, 10):
                 out[i] = 0.0
-        return
+        return False
     b = r - q
     v2 = v * v
     mup = b + 0.5 * v2
@@ -1015,6 +1078,8 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
         if (lnxs - lq[j] + mum * nodes[0, j]) * iv * nodes[5, j] <= D_NEGLIGIBLE:
             j0 = j
             break
+    if j0 < inner:
+        return True
     if not greeks:
         tp = terms[0]
         for j in range(j0, nq):
@@ -1025,7 +1090,7 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
             cm = ncdf(vs - dp)
             tp[j] = nodes[1, j] * (r * nodes[3, j] * cm - q * xs * nodes[4, j] * cp)
         out[0] = eu[0] + fsum(tp, j0, nq)
-        return
+        return False
     ixs = 1.0 / xs
     for j in range(j0, nq):
         s = nodes[0, j]
@@ -1081,6 +1146,7 @@ def value_put(lnxs: float, tau: float, r: float, q: float, v: float, lq: np.ndar
     out[7] = vn
     out[8] = vo
     out[9] = -(v2 * xs * gm + 0.5 * v2 * xs * xs * sp + (b - r) * dl + b * xs * gm)
+    return False
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -1141,15 +1207,15 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                  row_lnx: np.ndarray, row_v: np.ndarray, row_s: np.ndarray, row_k: np.ndarray,
                  row_w: np.ndarray, wq_t: np.ndarray, power: float, ts_x: np.ndarray,
                  ts_w: np.ndarray, vol_min: float, greeks: bool, out: np.ndarray,
-                 near: np.ndarray, squares: bool) -> None:
+                 near: np.ndarray, squares: bool, inner: int) -> None:
     """Prices (and greeks) of the rows of each group into ``out`` (1 or 10, all rows): group g
     holds rows ``order[g_first[g]:g_first[g + 1]]``; groups whose boundary failed
     (``g_steps`` < 0) are left for the caller. Row inputs: ln of the put-form spot over strike,
     vol, spot, strike and ω (+1 call, −1 put). ``wq_t`` (n, nq + 1) maps the boundary's node
     values to the price nodes of a row whose time is the boundary's τmax (other rows get their
-    own). Prices are floored at the European value and intrinsic (rounding); ``near`` marks
-    rows within 1e-9 of the strike of the European value, for the caller to floor at its own
-    European price."""
+    own); the rule's first ``inner`` nodes are its panel at s -> 0 (``value_put``). Prices are
+    floored at the European value and intrinsic (rounding); ``near`` marks rows within 1e-9 of
+    the strike of the European value, for the caller to floor at its own European price."""
     nq = ts_x.size
     n = wq_t.shape[0]
     nsm = g_lnsig.shape[1]
@@ -1266,8 +1332,12 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         dlq[2, j] = acc[4, j]
                         d2lq[j] = (acc[2, j] - acc[1, j]) * iv * iv
             last = v
-            value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks, eu,
-                      res, terms)
+            if value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks,
+                         eu, res, terms, inner):
+                rule, lq_r, dlq_r, d2lq_r = refined_rule(row_lnx[row], max(row_v[row], 1e-8),
+                                                         r, q, lq, dlq, d2lq, nodes, inner)
+                value_put(row_lnx[row], tau, r, q, row_v[row], lq_r, dlq_r, d2lq_r, rule,
+                          greeks, eu, res, np.empty((VALUE_ROWS, rule.shape[1])), 0)
             call = row_w[row] > 0.0
             sc = row_s[row] if call else row_k[row]
             xs = math.exp(row_lnx[row])

@@ -22,6 +22,8 @@ from blotter.engine._alo import (
     BORROW_MAX,
     BORROW_SPAN,
     D_NEGLIGIBLE,
+    LAYER_POINTS,
+    LAYER_TOP,
     LOOKBACK,
     MAX_STEP,
     NEWTON_MAX,
@@ -524,7 +526,7 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                  row_lnx: np.ndarray, row_v: np.ndarray, row_s: np.ndarray, row_k: np.ndarray,
                  row_w: np.ndarray, wq_t: np.ndarray, power: float, ts_x: np.ndarray,
                  ts_w: np.ndarray, vol_min: float, greeks: bool, out: np.ndarray,
-                 near: np.ndarray, squares: bool) -> None:
+                 near: np.ndarray, squares: bool, inner: int) -> None:
     """The compiled ``value_groups`` (same arguments), a group at a time over all its rows."""
     nq = ts_x.size
     n = wq_t.shape[0]
@@ -592,16 +594,75 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                     d2lq[sel] = (a2 - a1) * iv * iv
         _value_rows(g, rows, row_lnx, row_v, row_s, row_k, row_w, tau, r, q, lq,
                     dlq if greeks else None, d2lq if greeks else None,
-                    (s, wt, ss, er, eq, iss), greeks, out, near)
+                    (s, wt, ss, er, eq, iss), greeks, out, near, inner)
+
+
+def refined_rule(lnxs: float, v: float, r: float, q: float, lq: np.ndarray, dlq: np.ndarray,
+                 d2lq: np.ndarray, nodes: tuple[np.ndarray, ...], inner: int
+                 ) -> tuple[tuple[np.ndarray, ...], np.ndarray, np.ndarray, np.ndarray]:
+    """The compiled ``refined_rule`` for one row (``lq`` (nq + 1,), ``dlq`` (3, nq + 1),
+    ``d2lq`` (nq + 1,), ``nodes`` as ``_value_rows`` takes them)."""
+    s, wt, ss, er, eq, iss = nodes
+    nq = s.size
+    y_hi = ss[inner - 1]
+    y1 = ss[0] + y_hi
+    d0 = (lnxs - lq[nq]) / v
+    z1 = d0 / y1
+    half = 0.5 * (max(LAYER_TOP, z1) - z1)
+    gy, gw = np.polynomial.legendre.leggauss(LAYER_POINTS)
+    z = z1 + half * (1.0 - gy)
+    y = d0 / z
+    s_r = y * y
+    f = s_r / (y_hi * y_hi)
+    nodes_r = (np.concatenate([s_r, s[inner:]]),
+               np.concatenate([2.0 * y * (d0 / (z * z)) * half * gw, wt[inner:]]),
+               np.concatenate([y, ss[inner:]]), np.concatenate([np.exp(-r * s_r), er[inner:]]),
+               np.concatenate([np.exp(-q * s_r), eq[inner:]]),
+               np.concatenate([1.0 / y, iss[inner:]]))
+
+    def on(a: np.ndarray) -> np.ndarray:
+        near0 = a[..., nq:nq + 1] + (a[..., inner - 1:inner] - a[..., nq:nq + 1]) * f
+        out: np.ndarray = np.concatenate([near0, a[..., inner:]], axis=-1)
+        return out
+
+    return nodes_r, on(lq), on(dlq), on(d2lq)
 
 
 def _value_rows(g: int, rows: np.ndarray, row_lnx: np.ndarray, row_v: np.ndarray,
                 row_s: np.ndarray, row_k: np.ndarray, row_w: np.ndarray, tau: float, r: float,
                 q: float, lq: np.ndarray, dlq: np.ndarray | None, d2lq: np.ndarray | None,
                 nodes: tuple[np.ndarray, ...], greeks: bool, out: np.ndarray,
-                near: np.ndarray) -> None:
+                near: np.ndarray, inner: int) -> None:
     """The compiled ``value_put`` and the conversion to call or put of ``value_groups``, for
-    the rows of group ``g`` (boundaries ``lq`` (rows, nq + 1) with derivatives)."""
+    the rows of group ``g`` (boundaries ``lq`` (rows, nq + 1) with derivatives); a row near
+    its boundary again on its ``refined_rule``."""
+    _value_rows_on(rows, row_lnx, row_v, row_s, row_k, row_w, tau, r, q, lq, dlq, d2lq, nodes,
+                   greeks, out, near)
+    s, ss = nodes[0], nodes[2]
+    nq = s.size
+    if not 0 < inner < nq:
+        return
+    lnxs = row_lnx[rows]
+    v = np.maximum(row_v[rows], 1e-8)
+    mum = r - q - 0.5 * v * v
+    dmn = ((lnxs[:, None] - lq[:, :inner] + mum[:, None] * s[:inner])
+           / (v[:, None] * ss[:inner]))
+    for i in np.flatnonzero((lnxs > lq[:, nq]) & (dmn <= D_NEGLIGIBLE).any(axis=1)):
+        d1 = dlq[:, i] if dlq is not None else np.zeros((3, nq + 1))
+        d2 = d2lq[i] if d2lq is not None else np.zeros(nq + 1)
+        nodes_r, lq_r, dlq_r, d2lq_r = refined_rule(float(lnxs[i]), float(v[i]), r, q, lq[i],
+                                                    d1, d2, nodes, inner)
+        _value_rows_on(rows[i:i + 1], row_lnx, row_v, row_s, row_k, row_w, tau, r, q,
+                       lq_r[None, :], dlq_r[:, None, :], d2lq_r[None, :], nodes_r, greeks,
+                       out, near)
+
+
+def _value_rows_on(rows: np.ndarray, row_lnx: np.ndarray, row_v: np.ndarray,
+                   row_s: np.ndarray, row_k: np.ndarray, row_w: np.ndarray, tau: float,
+                   r: float, q: float, lq: np.ndarray, dlq: np.ndarray | None,
+                   d2lq: np.ndarray | None, nodes: tuple[np.ndarray, ...], greeks: bool,
+                   out: np.ndarray, near: np.ndarray) -> None:
+    """``_value_rows`` on the rule ``nodes`` as given."""
     s, wt, ss, er, eq, iss = nodes
     nq = s.size
     lnxs = row_lnx[rows]

@@ -474,7 +474,8 @@ def _value(grp: _Groups, lnx: np.ndarray, v: np.ndarray, s: np.ndarray, k: np.nd
                                  grp.steps[sl], grp.first[g0:g1 + 1], grp.order, lnx, v, s, k,
                                  w, scheme.wq_t, scheme.power,  # type: ignore[attr-defined]
                                  scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
-                                 VOL_MIN, greeks, out, near, scheme.squares)
+                                 VOL_MIN, greeks, out, near, scheme.squares,
+                                 scheme.graded[1])
 
     ids = np.arange(bounds.size - 1)
     run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)

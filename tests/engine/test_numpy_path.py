@@ -18,6 +18,7 @@ from blotter.benchmarks.engine import listed_book
 from blotter.engine import _alo, _alo_np, _kernels, price_greeks
 from blotter.engine import american as am
 from tests.engine.american_reference import GREEKS, REGIONS, region_cases
+from tests.engine.test_near_boundary import near_boundary_rows
 
 PRICE_TOL = 1e-12
 """Price difference allowed between the two, as a share of the strike (rounding only)."""
@@ -27,8 +28,9 @@ five-point second σ-difference of a lone vol node; 1e-4 of the accuracy target 
 
 
 def _sample() -> dict[str, np.ndarray]:
-    """Twenty options of each accuracy region (each its own boundary) and 400 rows of a listed
-    book (rows sharing boundaries, interpolated between vol nodes across a smile)."""
+    """Twenty options of each accuracy region (each its own boundary), 400 rows of a listed
+    book (rows sharing boundaries, interpolated between vol nodes across a smile) and twelve
+    spots just outside their exercise boundary."""
     parts = [region_cases(r, 20, 500 + i) for i, r in enumerate(REGIONS)]
     cases = {k: np.concatenate([p[k] for p in parts]) for k in
              ("is_call", "spot", "strike", "years", "rate", "carry", "vol")}
@@ -36,6 +38,9 @@ def _sample() -> dict[str, np.ndarray]:
     n = listed["spot"].size
     for k in cases:
         cases[k] = np.concatenate([cases[k], np.broadcast_to(listed[k], (n,))])
+    near = near_boundary_rows()       # valued on the refined rule at s -> 0
+    for k in cases:
+        cases[k] = np.concatenate([cases[k], near[k]])
     return cases
 
 
