@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import multiprocessing
 import os
+import warnings
 from collections.abc import Iterator, Sequence
 from concurrent.futures import Executor, Future, ProcessPoolExecutor
 from contextlib import contextmanager
@@ -42,6 +43,15 @@ def shard_rows(n: int, shards: int) -> list[np.ndarray]:
     """Row indices 0..n−1 in ``shards`` contiguous runs of nearly equal size (none empty)."""
     shards = max(1, min(int(shards), n)) if n else 1
     return [np.asarray(r, dtype=np.int64) for r in np.array_split(np.arange(n), shards)]
+
+
+@contextmanager
+def _sending() -> Iterator[None]:
+    """Submissions of shards: Dask warns of every task larger than 10 MB, which a shard of
+    positions is by design, so that warning is not shown to the user."""
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Sending large graph", category=UserWarning)
+        yield
 
 
 def _grid_of(
@@ -95,10 +105,11 @@ def sharded_ladders(
     pending: list[list[Future[Ladder]]] = []
     for rows in groups:
         count = shards or max(1, rows.size // MIN_SHARD_POSITIONS)
-        futures = [
-            executor.submit(_grid_of, valuation.take(rows[idx]), sp, vp, days, rule)
-            for idx in shard_rows(rows.size, count)
-        ]
+        with _sending():
+            futures = [
+                executor.submit(_grid_of, valuation.take(rows[idx]), sp, vp, days, rule)
+                for idx in shard_rows(rows.size, count)
+            ]
         pending.append(futures)
     return [_summed([f.result() for f in futures]) for futures in pending]
 
@@ -132,7 +143,8 @@ def sharded_moves(
     n = len(valuation)
     rows = shard_rows(n, shards or max(1, n // MIN_SHARD_POSITIONS))
     sent = tuple(moves)
-    futures = [executor.submit(_moves_of, valuation.take(r), sent) for r in rows]
+    with _sending():
+        futures = [executor.submit(_moves_of, valuation.take(r), sent) for r in rows]
     per_shard = [f.result() for f in futures]
     out: list[MoveResult | MoveError] = []
     for k, move in enumerate(sent):

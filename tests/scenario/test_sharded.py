@@ -3,6 +3,7 @@ process pool and on a local Dask cluster started here, summed (to 1e-9 relative)
 
 from __future__ import annotations
 
+import warnings
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -84,6 +85,8 @@ def test_a_process_pool_sums_to_the_serial_grid() -> None:
 
 def test_a_local_dask_cluster_sums_to_the_serial_grid() -> None:
     distributed = pytest.importorskip("distributed", reason="the cluster extra is not installed")
+    import dask
+
     v = _valuation()
     serial = ladder(v, SPOTS, VOLS, days=2.0)
     with distributed.LocalCluster(
@@ -91,7 +94,12 @@ def test_a_local_dask_cluster_sums_to_the_serial_grid() -> None:
     ) as cluster:
         with grid_executor(len(v), cluster=cluster.scheduler_address) as executor:
             assert executor is not None
-            [grid] = sharded_ladders(v, executor, SPOTS, VOLS, days=2.0, shards=4)
+            # every shard is over the threshold of Dask's large-task warning, which is not shown
+            with dask.config.set({"distributed.admin.large-graph-warning-threshold": "1kB"}), \
+                    warnings.catch_warnings(record=True) as seen:
+                warnings.simplefilter("always")
+                [grid] = sharded_ladders(v, executor, SPOTS, VOLS, days=2.0, shards=4)
+    assert not [w for w in seen if "large graph" in str(w.message)]
     _same(grid.full, serial.full)
     _same(grid.estimate, serial.estimate)
     _same(grid.estimate_1, serial.estimate_1)
