@@ -970,8 +970,8 @@ async def test_a_currency_without_a_rate_curve_is_listed_and_can_be_typed(demo_d
     try:
         st.add_underlying("ZZG", "stock", "GBP", 100, description="test stock (invented)")
         st.log_spot("ZZG", 50.0)
-        st.log_vol("ZZG", "2027-06-18", 0.25)
-        st.add_trade("equity-vol", "ZZG", 3, 2.0, "2027-06-18", 50.0, True)
+        st.log_vol("ZZG", "2027-06-17", 0.25)
+        st.add_trade("equity-vol", "ZZG", 3, 2.0, "2027-06-17", 50.0, True)
         in_force = len(st.marks())
     finally:
         st.close()
