@@ -213,7 +213,10 @@ NOW = datetime(2026, 12, 1, 21, 0, tzinfo=UTC)
         ("vol", {"symbol": "XYZ", "expiry": "2026-11-27"}, "XYZ 2026-11-27 has expired"),
         ("vol", {"symbol": "XYZ", "expiry": date(2026, 12, 1)}, "cut-off 2026-12-01 16:00 EST"),
         ("vol", {"symbol": "XYZ", "expiry": "2027-01-16"}, "2027-01-16 is a Saturday"),
-        ("vol", {"symbol": "XYZ", "expiry": "2027-01-17"}, "a weekend day of XYZ's NYSE"),
+        ("vol", {"symbol": "XYZ", "expiry": "2027-01-17"}, "is a Sunday on XYZ's NYSE calendar"),
+        # NYSE holidays as the `holidays` package lists them (Good Friday 2027 is March 26)
+        ("vol", {"symbol": "XYZ", "expiry": "2027-03-26"}, "is Good Friday, an exchange holiday"),
+        ("vol", {"symbol": "XYZ", "expiry": "2026-12-25"}, "Christmas Day, an exchange holiday"),
         ("rate", {"currency": "EUR"}, "EUR is not a currency of this file"),
     ],
 )
