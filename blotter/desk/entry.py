@@ -262,10 +262,11 @@ def refuse_mark_point(
     expiry: date | str | None = None,
 ) -> None:
     """``ValueError`` in words for a point no position can use, before anything is written: a
-    vol of an expiry whose cut-off has passed or that falls on a weekend or holiday of the
-    underlying's calendar, a rate of a currency that no underlying of the file is quoted in and
-    no rate mark names yet (an FX pair's foreign rate is its dividend-yield mark, not a curve).
-    Other mistakes (an unknown symbol, a malformed date) the store names."""
+    vol of an expiry whose cut-off has passed, or that falls on a weekend or holiday of the
+    underlying's calendar when no contract of the file expires then (one booked with --force,
+    imported or copied in needs its vol), a rate of a currency that no underlying of the file
+    is quoted in and no rate mark names yet (an FX pair's foreign rate is its dividend-yield
+    mark, not a curve). Other mistakes (an unknown symbol, a malformed date) the store names."""
     from blotter import calendar as cal
 
     records = st.underlying_records()
@@ -296,7 +297,7 @@ def refuse_mark_point(
         )
     calendar_name = rec.get("calendar") or cal.DEFAULT_CALENDAR
     why = cal.closed_because(day, calendar_name)
-    if why:
+    if why and not any(c.symbol == symbol and c.expiry == day for c in st.contracts()):
         raise ValueError(
             f"{day} is {why} on {symbol}'s {calendar_name} calendar: no option expires then"
         )
