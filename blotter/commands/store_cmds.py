@@ -217,8 +217,9 @@ def trade() -> None:
 @click.option(
     "--force",
     is_flag=True,
-    help="Book a price more than half its model value (and over 0.05) away from it, which is "
-    "otherwise refused as a likely typo.",
+    help="Book a price more than half its model value (and over 0.05) away from it, or a new "
+    "contract expiring on a weekend or holiday of its exchange, which are otherwise refused as "
+    "likely typos.",
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
