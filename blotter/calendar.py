@@ -147,6 +147,19 @@ def is_business_day(
     return np.is_busday(np.asarray(d, dtype="datetime64[D]"), busdaycal=business_calendar(calendar))
 
 
+def closed_because(d: date, calendar: str = DEFAULT_CALENDAR) -> str:
+    """Why ``calendar``'s exchange is shut on ``d`` ("a Saturday", "Good Friday, an exchange
+    holiday"), or "" on a trading day."""
+    if d.weekday() >= 5:
+        return f"a {d:%A}"
+    if bool(is_business_day(d, calendar)):
+        return ""
+    import holidays
+
+    name = holidays.financial_holidays(calendar, years=d.year).get(d) or "a holiday"
+    return f"{name}, an exchange holiday"
+
+
 def add_business_days(
     d: np.datetime64 | np.ndarray | date, n: int | np.ndarray, calendar: str = DEFAULT_CALENDAR
 ) -> np.ndarray:

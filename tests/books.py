@@ -98,7 +98,7 @@ def make_book(
 def flat_surface(vol: float) -> VolSurface:
     """A surface with one ATM point: the same vol at every strike and expiry."""
     return VolSurface(
-        np.array(["2027-06-18"], dtype="datetime64[D]"), np.array([np.nan]), np.array([vol])
+        np.array(["2027-06-17"], dtype="datetime64[D]"), np.array([np.nan]), np.array([vol])
     )
 
 
@@ -162,7 +162,7 @@ def mixed_rows() -> list[Row]:
     """Options on all four kinds of underlying plus a stock and a futures hedge."""
     return [
         Row("IDX", 10, 4500, 30, True),
-        Row("IDX", -15, 4300, 45, False),
+        Row("IDX", -15, 4300, 42, False),
         Row("IDX", 5, 4700, 120, True),
         Row("STK", -20, 125, 10, True),
         Row("STK", 30, 110, 60, False),

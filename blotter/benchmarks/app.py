@@ -323,7 +323,7 @@ def _marks_book(path: Path, n_marks: int = 200) -> None:
         st.add_underlying("BENCHU", "stock", "USD", 100.0, description="invented for the bench")
         st.log_spot("BENCHU", 100.0)
         st.log_rate("USD", 365, 0.04)
-        expiries = ("2027-01-15", "2027-03-19", "2027-06-18", "2027-12-17")
+        expiries = ("2027-01-15", "2027-03-19", "2027-06-17", "2027-12-17")
         n_vols = n_marks - 2
         for k in range(n_vols):
             st.log_vol("BENCHU", expiries[k % 4], 0.2 + 0.0005 * k, strike=60.0 + k // 4)

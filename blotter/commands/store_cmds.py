@@ -217,8 +217,9 @@ def trade() -> None:
 @click.option(
     "--force",
     is_flag=True,
-    help="Book a price more than half its model value (and over 0.05) away from it, which is "
-    "otherwise refused as a likely typo.",
+    help="Book a price more than half its model value (and over 0.05) away from it, or a new "
+    "contract expiring on a weekend or holiday of its exchange, which are otherwise refused as "
+    "likely typos.",
 )
 @click.option("--json", "as_json", is_flag=True, help="Print the new trade id as JSON.")
 @db_option
@@ -244,6 +245,8 @@ def trade_add(
 
     The book must exist (--new-book starts one); with no --book, the file's only book is used.
     """
+    from blotter.desk import entry
+
     when = _time_option(trade_time)
     if new_book and book is None:
         raise click.UsageError("--new-book needs --book NAME (the book to start)")
@@ -256,6 +259,10 @@ def trade_add(
                     f"({', '.join(books) if books else 'none yet; start one with --new-book'})"
                 )
             book = books[0]
+        terms = None if force else _typed_terms(symbol, expiry, strike, is_call)
+        new_contract = terms is not None and terms.expiry is not None and (
+            entry.find_contract(store.contracts(), terms) is None
+        )
         with store.atomic():  # the store's checks first; a refused price writes nothing
             tid = store.add_trade(
                 book,
@@ -273,17 +280,18 @@ def trade_add(
                 create_book=new_book,
             )
             if not force:
-                _refuse_far_price(store, _typed_terms(symbol, expiry, strike, is_call), price)
+                _refuse_far_price(store, terms, price, new_contract)
     _emit(as_json, {"trade_id": tid, "book": book}, f"booked trade {tid} in book {book}")
 
 
-def _refuse_far_price(st: Any, terms: Any, price: float) -> None:
-    """A price far from the model value (``desk.session.price_question``) as a refusal."""
+def _refuse_far_price(st: Any, terms: Any, price: float, new_contract: bool = False) -> None:
+    """A price far from the model value, or a new contract's expiry on a day its exchange is
+    shut (``desk.session.price_question``), as a refusal."""
     from blotter.desk import session
 
     if terms is None:
         return
-    question = session.price_question(st, terms, price, st.now(), desk_zone())
+    question = session.price_question(st, terms, price, st.now(), desk_zone(), new_contract)
     if question:
         raise click.ClickException(f"{question}: nothing written (--force books it)")
 

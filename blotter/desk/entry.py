@@ -262,10 +262,11 @@ def refuse_mark_point(
     expiry: date | str | None = None,
 ) -> None:
     """``ValueError`` in words for a point no position can use, before anything is written: a
-    vol of an expiry whose cut-off has passed or that falls on a weekend of the underlying's
-    calendar, a rate of a currency that no underlying of the file is quoted in and no rate mark
-    names yet (an FX pair's foreign rate is its dividend-yield mark, not a curve). Other
-    mistakes (an unknown symbol, a malformed date) the store names."""
+    vol of an expiry whose cut-off has passed, or that falls on a weekend or holiday of the
+    underlying's calendar when no contract of the file expires then (one booked with --force,
+    imported or copied in needs its vol), a rate of a currency that no underlying of the file
+    is quoted in and no rate mark names yet (an FX pair's foreign rate is its dividend-yield
+    mark, not a curve). Other mistakes (an unknown symbol, a malformed date) the store names."""
     from blotter import calendar as cal
 
     records = st.underlying_records()
@@ -295,10 +296,10 @@ def refuse_mark_point(
             f"{symbol} {day} has expired (its cut-off {cut:%Y-%m-%d %H:%M %Z} has passed)"
         )
     calendar_name = rec.get("calendar") or cal.DEFAULT_CALENDAR
-    if not cal.business_calendar(calendar_name).weekmask[day.weekday()]:
+    why = cal.closed_because(day, calendar_name)
+    if why and not any(c.symbol == symbol and c.expiry == day for c in st.contracts()):
         raise ValueError(
-            f"{day} is a {day:%A}, a weekend day of {symbol}'s {calendar_name} calendar: "
-            "no option expires then"
+            f"{day} is {why} on {symbol}'s {calendar_name} calendar: no option expires then"
         )
 
 
@@ -539,6 +540,28 @@ def price_question(price: float, model: float | None, label: str) -> str:
     return (
         f"price {price:,.6g} for {label} is {off:+,.6g} from its model value {model:,.6g} "
         f"on the marks in force (more than {FAR_PRICE_FRACTION * 100:g}% of it)"
+    )
+
+
+def expiry_question(terms: ContractTerms, underlyings: Mapping[str, Mapping[str, Any]]) -> str:
+    """Why booking an option of ``terms`` wants a confirmation when its expiry falls on a day
+    the underlying's exchange is shut (listed options expire on trading days, common practice;
+    an OTC date may not); empty otherwise, or when the symbol or calendar is unknown."""
+    from blotter import calendar as cal
+
+    rec = underlyings.get(terms.symbol)
+    if terms.expiry is None or rec is None:
+        return ""
+    name = rec.get("calendar") or cal.DEFAULT_CALENDAR
+    try:
+        why = cal.closed_because(terms.expiry, name)
+    except ValueError:
+        return ""  # an unknown calendar is the reference data's fault, said where it is set
+    if not why:
+        return ""
+    return (
+        f"expiry {terms.expiry} of {terms.label()} is {why} on {terms.symbol}'s {name} "
+        "calendar, when no listed option expires"
     )
 
 

@@ -215,22 +215,30 @@ def model_price(
 
 
 def price_question(
-    st: Store, terms: ContractTerms, price: float, at: datetime, tz: ZoneInfo
+    st: Store,
+    terms: ContractTerms,
+    price: float,
+    at: datetime,
+    tz: ZoneInfo,
+    new_contract: bool = False,
 ) -> str:
     """``entry.price_question`` for booking ``terms`` at ``price`` in the book file ``st``,
-    valued on its marks in force at ``at`` (a contract new to the file on its defaults)."""
+    valued on its marks in force at ``at`` (a contract new to the file on its defaults), and
+    ``entry.expiry_question`` when the trade makes a ``new_contract``; empty when neither asks."""
     from blotter.desk import entry
     from blotter.desk.trials import trial_contract
 
+    records = {r["symbol"]: r for r in st.underlying_records()}
+    off_day = entry.expiry_question(terms, records) if new_contract else ""
     contract = entry.find_contract(st.contracts(), terms)
     if contract is None:
-        records = {r["symbol"]: r for r in st.underlying_records()}
         try:
             contract = trial_contract(records, terms, ())
         except ValueError:
-            return ""  # the store refuses it in its own words
+            return off_day  # the store refuses it in its own words
     model = model_price(st.load_book(), st.load_market(), contract, at, tz)
-    return entry.price_question(price, model, contract.label)
+    asks = (off_day, entry.price_question(price, model, contract.label))
+    return "; ".join(a for a in asks if a)
 
 
 def terms_of(trade: TradeRecord) -> ContractTerms:

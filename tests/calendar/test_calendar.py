@@ -7,7 +7,7 @@ Year's Day). ACT/365F is the definition: days between the dates over 365, whatev
 
 from __future__ import annotations
 
-from datetime import UTC, datetime
+from datetime import UTC, date, datetime
 
 import numpy as np
 import pytest
@@ -61,6 +61,20 @@ def test_instants_read_naive_times_in_the_desk_zone() -> None:
 )
 def test_nyse_business_days(day: str, open_: bool) -> None:
     assert bool(cal.is_business_day(np.datetime64(day), "NYSE")) is open_
+
+
+@pytest.mark.parametrize(
+    ("day", "why"),
+    [
+        ("2026-12-25", "Christmas Day, an exchange holiday"),
+        ("2027-03-26", "Good Friday, an exchange holiday"),
+        ("2027-01-18", "Martin Luther King Jr. Day, an exchange holiday"),
+        ("2026-12-05", "a Saturday"),
+        ("2026-12-04", ""),
+    ],
+)
+def test_why_the_exchange_is_shut_on_a_day(day: str, why: str) -> None:
+    assert cal.closed_because(date.fromisoformat(day), "NYSE") == why
 
 
 def test_add_business_days_skips_weekends_and_holidays() -> None:

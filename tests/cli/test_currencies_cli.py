@@ -2,8 +2,9 @@
 are per currency and the total across both is "—" (null in JSON), never a sum.
 
 Reference: QuantLib 1.44 AnalyticEuropeanEngine values each option (flat curves, Actual365Fixed,
-199 days: 2026-12-01 20:00 UTC to the 16:00 New York close of 2027-06-18): a USD call (S 100,
-K 100, r 4%, σ 25%, 10 contracts of 100) and a EUR put (S 50, K 50, r 2.5%, σ 30%, −20 of 100).
+whole days from 2026-12-01 20:00 UTC to the 16:00 New York close of ``EXPIRY``, ``days_to``): a
+USD call (S 100, K 100, r 4%, σ 25%, 10 contracts of 100) and a EUR put (S 50, K 50, r 2.5%,
+σ 30%, −20 of 100).
 That amounts in two currencies do not add without an exchange rate is common practice.
 """
 
@@ -19,19 +20,20 @@ from typing import Any
 
 import pytest
 from cli_helpers import run
-from ql_reference import european
+from ql_reference import EXPIRY, days_to, european
 
 from blotter import store as store_mod
 
 T0 = "2026-12-01T20:00:00Z"
+DAYS = days_to(EXPIRY)
 
 
 def _usd(spot: float = 100.0) -> float:
-    return 1000 * european(True, spot, 100.0, 0.04, 0.25, 199)
+    return 1000 * european(True, spot, 100.0, 0.04, 0.25, DAYS)
 
 
 def _eur(spot: float = 50.0) -> float:
-    return -2000 * european(False, spot, 50.0, 0.025, 0.30, 199)
+    return -2000 * european(False, spot, 50.0, 0.025, 0.30, DAYS)
 
 
 @pytest.fixture
@@ -51,11 +53,11 @@ def _two_currency_book(tmp_path: Path) -> str:
         run("--db", db, "underlying", "add", sym, "--kind", "stock", "--currency", ccy,
             "--multiplier", "100", "--european")
         run("--db", db, "mark", "spot", sym, spot)
-        run("--db", db, "mark", "vol", sym, "2027-06-18", vol)
+        run("--db", db, "mark", "vol", sym, EXPIRY, vol)
         run("--db", db, "mark", "rate", ccy, "90", rate)
-    run("--db", db, "trade", "add", "AAA", "--expiry", "2027-06-18", "--strike", "100", "--call",
+    run("--db", db, "trade", "add", "AAA", "--expiry", EXPIRY, "--strike", "100", "--call",
         "--qty", "10", "--price", "9", "--time", T0)
-    run("--db", db, "trade", "add", "BBB", "--expiry", "2027-06-18", "--strike", "50", "--put",
+    run("--db", db, "trade", "add", "BBB", "--expiry", EXPIRY, "--strike", "50", "--put",
         "--qty", "-20", "--price", "4", "--time", T0)
     return db
 
@@ -202,7 +204,7 @@ def test_a_missing_fx_spot_shows_dashes_and_names_the_pair(two_currencies: str) 
 
 def test_explain_splits_out_the_fx_translation(tmp_path: Path) -> None:
     """Two closes a day apart, 20:00 UTC each: AAA 100 → 101, BBB 50 → 52, EURUSD 1.25 → 1.30.
-    By hand, with QuantLib's value of each option at 199 and 198 days: P&L in USD =
+    By hand, with QuantLib's value of each option at ``DAYS`` and a day less: P&L in USD =
     P&L(USD) + 1.25 × P&L(EUR) + (1.30 − 1.25) × V1(EUR), which is also the change of
     V(USD) + X × V(EUR) from the start rate to the end rate."""
     at = datetime(2026, 12, 1, 20, 0, tzinfo=UTC)
@@ -219,10 +221,10 @@ def test_explain_splits_out_the_fx_translation(tmp_path: Path) -> None:
         out = _json(db, "explain")
         rows = _csv(db, "explain")
         table = run("--db", db, "explain").stdout
-    usd0, usd1 = 1000 * european(True, 100.0, 100.0, 0.04, 0.25, 199), 1000 * european(
-        True, 101.0, 100.0, 0.04, 0.25, 198)
-    eur0, eur1 = -2000 * european(False, 50.0, 50.0, 0.025, 0.30, 199), -2000 * european(
-        False, 52.0, 50.0, 0.025, 0.30, 198)
+    usd0, usd1 = 1000 * european(True, 100.0, 100.0, 0.04, 0.25, DAYS), 1000 * european(
+        True, 101.0, 100.0, 0.04, 0.25, DAYS - 1)
+    eur0, eur1 = -2000 * european(False, 50.0, 50.0, 0.025, 0.30, DAYS), -2000 * european(
+        False, 52.0, 50.0, 0.025, 0.30, DAYS - 1)
     at_start = (usd1 - usd0) + 1.25 * (eur1 - eur0)
     translation = (1.30 - 1.25) * eur1
     base = out["in_base"]

@@ -1,8 +1,8 @@
 """Every report values what it can when one name lacks its marks, and lists what it left out.
 
 Reference: QuantLib 1.44 AnalyticEuropeanEngine values the one valued option (European call,
-S 100, K 100, r 4%, q 0, σ 25%, 199 days of Actual365Fixed: 2026-12-01 20:00 UTC to the 16:00
-New York close of 2027-06-18).
+S 100, K 100, r 4%, q 0, σ 25%, whole days of Actual365Fixed from 2026-12-01 20:00 UTC to the
+16:00 New York close of ``EXPIRY``, ``days_to``).
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from typing import Any
 
 import pytest
 from cli_helpers import run
-from ql_reference import european
+from ql_reference import EXPIRY, days_to, european
 
 from blotter import store as store_mod
 
@@ -25,7 +25,7 @@ T0 = "2026-12-01T20:00:00Z"
 
 
 def _ql_call(spot: float) -> float:
-    return european(True, spot, 100.0, 0.04, 0.25, 199)
+    return european(True, spot, 100.0, 0.04, 0.25, days_to(EXPIRY))
 
 
 @pytest.fixture
@@ -43,11 +43,11 @@ def _half_marked_book(tmp_path: Path) -> str:
         run("--db", db, "underlying", "add", sym, "--kind", "stock", "--currency", "USD",
             "--multiplier", "100", "--european")
     run("--db", db, "mark", "spot", "AAA", "100")
-    run("--db", db, "mark", "vol", "AAA", "2027-06-18", "25%")
+    run("--db", db, "mark", "vol", "AAA", EXPIRY, "25%")
     run("--db", db, "mark", "rate", "USD", "90", "4%")
-    run("--db", db, "trade", "add", "AAA", "--expiry", "2027-06-18", "--strike", "100", "--call",
+    run("--db", db, "trade", "add", "AAA", "--expiry", EXPIRY, "--strike", "100", "--call",
         "--qty", "10", "--price", "9", "--time", T0)
-    run("--db", db, "trade", "add", "CCC", "--expiry", "2027-06-18", "--strike", "20", "--put",
+    run("--db", db, "trade", "add", "CCC", "--expiry", EXPIRY, "--strike", "20", "--put",
         "--qty", "-5", "--price", "1", "--time", T0)
     return db
 
@@ -55,7 +55,7 @@ def _half_marked_book(tmp_path: Path) -> str:
 def _unvalued_is_ccc(out: dict[str, Any]) -> None:
     assert out["partial"] is True
     (u,) = out["unvalued"]
-    assert u["underlying"] == "CCC" and u["contract"].startswith("CCC 2027-06-18 20")
+    assert u["underlying"] == "CCC" and u["contract"].startswith(f"CCC {EXPIRY} 20")
     assert [(m["mark"], m["command"]) for m in u["missing"]] == [
         ("spot", "blotter mark spot CCC PRICE"),
         ("vol", "blotter mark vol CCC YYYY-MM-DD VOL"),

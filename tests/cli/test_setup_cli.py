@@ -13,6 +13,7 @@ from pathlib import Path
 import pytest
 from cli_helpers import run
 from click.testing import CliRunner
+from ql_reference import EXPIRY, days_to
 
 from blotter.cli import main
 from blotter.store import open_store
@@ -114,23 +115,23 @@ def test_from_an_empty_file_to_a_valued_position(tmp_path: Path) -> None:
     run("--db", db, "underlying", "add", "QQZ", "--kind", "stock", "--currency", "USD",
         "--multiplier", "100", "--div-yield", "2%")
     t0 = "2026-12-01T20:00:00Z"
-    run("--db", db, "trade", "add", "QQZ", "--expiry", "2027-06-18", "--strike", "100", "--call",
+    run("--db", db, "trade", "add", "QQZ", "--expiry", EXPIRY, "--strike", "100", "--call",
         "--qty", "-10", "--price", "9.10", "--time", t0)
     missing = run("--db", db, "risk", "--at", t0)
     assert "blotter mark spot QQZ PRICE" in missing.stdout and "not valued" in missing.stdout
     run("--db", db, "mark", "spot", "QQZ", "104")
-    run("--db", db, "mark", "vol", "QQZ", "2027-06-18", "30%")
+    run("--db", db, "mark", "vol", "QQZ", EXPIRY, "30%")
     missing = run("--db", db, "risk", "--at", t0)
     assert "blotter mark rate USD DAYS RATE" in missing.stdout
     run("--db", db, "mark", "rate", "USD", "180", "4%")
     out = json.loads(run("--db", db, "risk", "--by", "position", "--at", t0, "--json").stdout)
     value = out["total"]["value"]
-    # QuantLib: American call, S 104, K 100, r 4%, q 2%, σ 30%, 199 days: t0 is 20:00 UTC, and
-    # the expiry is the 16:00 New York close of 2027-06-18, 20:00 UTC (summer time).
+    # QuantLib: American call, S 104, K 100, r 4%, q 2%, σ 30%, whole days to EXPIRY: t0 is
+    # 20:00 UTC, and the expiry is its 16:00 New York close, 20:00 UTC (summer time).
     today = ql.Date(1, 12, 2026)
     ql.Settings.instance().evaluationDate = today
     dc = ql.Actual365Fixed()
-    expiry = today + 199
+    expiry = today + days_to(EXPIRY)
     flat = lambda r: ql.YieldTermStructureHandle(ql.FlatForward(today, r, dc))  # noqa: E731
     process = ql.BlackScholesMertonProcess(
         ql.QuoteHandle(ql.SimpleQuote(104.0)), flat(0.02), flat(0.04),

@@ -676,6 +676,30 @@ def test_a_price_far_from_the_model_value_needs_force(demo_db: Path) -> None:
         assert [t.price for t in s.trades()[-2:]] == [1.23, 1.23]
 
 
+def test_a_new_contract_expiring_on_an_exchange_holiday_needs_force(demo_db: Path) -> None:
+    """A new option whose expiry is a day the underlying's exchange is shut (Good Friday 2027,
+    2027-03-26, on the NYSE calendar of the `holidays` package) is asked about in words and
+    nothing is written; --force books it (an OTC date may be meant)."""
+    db = ("--db", str(demo_db))
+    with open_store(demo_db, read_only=True) as s:
+        n = len(s.trades())
+    add = ("trade", "add", "DEMOA", "--book", "equity-vol", "--expiry", "2027-03-26",
+           "--strike", "185", "--call", "--qty", "1", *db)
+    r = run(*add, "--price", "12", code=1)
+    assert "expiry 2027-03-26 of DEMOA 2027-03-26 185 C is Good Friday, an exchange holiday on " \
+        "DEMOA's NYSE calendar" in r.output
+    assert "nothing written (--force books it)" in r.output and "Traceback" not in r.output
+    with open_store(demo_db, read_only=True) as s:
+        assert len(s.trades()) == n
+    run(*add, "--price", "12", "--force")
+    with open_store(demo_db, read_only=True) as s:
+        assert len(s.trades()) == n + 1
+    # the contract now exists: a second trade in it is not asked about its expiry again
+    run(*add, "--price", "12")
+    with open_store(demo_db, read_only=True) as s:
+        assert len(s.trades()) == n + 2
+
+
 def test_a_password_in_a_database_url_is_never_printed(monkeypatch: pytest.MonkeyPatch) -> None:
     """A command refused before the book is opened names the book with its password as ***."""
     monkeypatch.setenv("BLOTTER_READ_ONLY", "1")

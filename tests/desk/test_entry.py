@@ -213,7 +213,10 @@ NOW = datetime(2026, 12, 1, 21, 0, tzinfo=UTC)
         ("vol", {"symbol": "XYZ", "expiry": "2026-11-27"}, "XYZ 2026-11-27 has expired"),
         ("vol", {"symbol": "XYZ", "expiry": date(2026, 12, 1)}, "cut-off 2026-12-01 16:00 EST"),
         ("vol", {"symbol": "XYZ", "expiry": "2027-01-16"}, "2027-01-16 is a Saturday"),
-        ("vol", {"symbol": "XYZ", "expiry": "2027-01-17"}, "a weekend day of XYZ's NYSE"),
+        ("vol", {"symbol": "XYZ", "expiry": "2027-01-17"}, "is a Sunday on XYZ's NYSE calendar"),
+        # NYSE holidays as the `holidays` package lists them (Good Friday 2027 is March 26)
+        ("vol", {"symbol": "XYZ", "expiry": "2027-03-26"}, "is Good Friday, an exchange holiday"),
+        ("vol", {"symbol": "XYZ", "expiry": "2026-12-25"}, "Christmas Day, an exchange holiday"),
         ("rate", {"currency": "EUR"}, "EUR is not a currency of this file"),
     ],
 )
@@ -229,6 +232,26 @@ def test_marks_no_position_can_use_are_refused_in_words(
         assert len(st.mark_sets()) == n
         entry.refuse_mark_point(st, "vol", NOW, symbol="XYZ", expiry=EXPIRY)  # a Friday ahead
         entry.refuse_mark_point(st, "rate", NOW, currency="USD")
+
+
+def test_a_vol_on_a_shut_day_a_contract_of_the_file_expires_on_is_written(xyz_db: Path) -> None:
+    """An XYZ option the file holds expiring on Good Friday 2027 (booked with --force, imported
+    or copied in) needs a vol at its own expiry: the app and ``mark vol`` write it, while a shut
+    day no XYZ contract expires on is still refused."""
+    from blotter.store import use_clock
+
+    with use_clock(lambda: NOW):
+        with store.open_store(xyz_db) as st:
+            st.add_trade("desk", "XYZ", 2, 4.0, "2027-03-26", 100.0, True)
+            entry.write_mark(st, "vol", 0.31, symbol="XYZ", expiry=date(2027, 3, 26), now=NOW)
+            assert entry.mark_in_force(st, "vol", "XYZ", "2027-03-26") == pytest.approx(0.31)
+            with pytest.raises(ValueError, match="is Christmas Day, an exchange holiday"):
+                entry.refuse_mark_point(st, "vol", NOW, symbol="XYZ", expiry="2026-12-25")
+        args = ["--db", str(xyz_db), "mark", "vol", "XYZ", "2027-03-26", "32%"]
+        result = CliRunner().invoke(main, args)
+    assert result.exit_code == 0, result.output
+    with store.open_store(xyz_db, read_only=True) as st:
+        assert entry.mark_in_force(st, "vol", "XYZ", "2027-03-26") == pytest.approx(0.32)
 
 
 def test_the_command_line_refuses_the_same_marks_and_asks_for_force(xyz_db: Path) -> None:

@@ -291,7 +291,7 @@ def test_sticky_strike_prices_at_the_strikes_marked_vol() -> None:
     from blotter.market import VolSurface
 
     skew = VolSurface(
-        expiries=np.array(["2027-06-18"] * 2, dtype="datetime64[D]"),
+        expiries=np.array(["2027-06-17"] * 2, dtype="datetime64[D]"),
         strikes=np.array([100.0, 140.0]),
         vols=np.array([0.40, 0.30]),
     )

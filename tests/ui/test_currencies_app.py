@@ -40,12 +40,12 @@ def two_currencies(tmp_path: Path) -> Path:
         ):
             st.add_underlying(sym, "stock", ccy, 100.0, american=False)
             st.log_spot(sym, spot)
-            st.log_vol(sym, "2027-06-18", vol)
+            st.log_vol(sym, "2027-06-17", vol)
             st.log_rate(ccy, 90, rate)
         when = datetime(2026, 11, 30, 20, 0, tzinfo=UTC)
-        st.add_trade("desk", "AAA", 10, 9.0, "2027-06-18", 100.0, True, trade_time=when,
+        st.add_trade("desk", "AAA", 10, 9.0, "2027-06-17", 100.0, True, trade_time=when,
                      create_book=True)
-        st.add_trade("desk", "BBB", -20, 4.0, "2027-06-18", 50.0, False, trade_time=when)
+        st.add_trade("desk", "BBB", -20, 4.0, "2027-06-17", 50.0, False, trade_time=when)
         st.add_trade("desk", "BBB", 500, 50.0, None, None, None, trade_time=when)
         clock["now"] = datetime(2026, 11, 30, 21, 0, tzinfo=UTC)  # the 16:00 New York close
         st.commit_close()

@@ -34,13 +34,13 @@ def large_db(tmp_path: Path) -> Path:
         for sym, spot, vol in (("BIGX", 5123.25, 0.18), ("STKZ", 100.05, 0.35),
                                ("EURQ", 1.08537, 0.08)):
             s.log_spot(sym, spot)
-            s.log_vol(sym, "2027-06-18", vol)
+            s.log_vol(sym, "2027-06-17", vol)
         s.log_rate("USD", 365, 0.04)
-        s.add_trade("macro", "BIGX", -25_000, 310.5, "2027-06-18", 5100.0, True)
+        s.add_trade("macro", "BIGX", -25_000, 310.5, "2027-06-17", 5100.0, True)
         s.add_trade("macro", "BIGX", 1_000, 5123.25)
-        s.add_trade("single", "STKZ", 400_000, 8.15, "2027-06-18", 100.0, False)
+        s.add_trade("single", "STKZ", 400_000, 8.15, "2027-06-17", 100.0, False)
         s.add_trade("single", "STKZ", -1_000, 100.05)
-        s.add_trade("macro", "EURQ", -3_000, 0.0213, "2027-06-18", 1.1, True)
+        s.add_trade("macro", "EURQ", -3_000, 0.0213, "2027-06-17", 1.1, True)
     return path
 
 

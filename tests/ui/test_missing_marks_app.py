@@ -58,7 +58,7 @@ async def test_a_name_added_without_marks_is_listed_and_the_rest_stays_live(
         _blotter(demo_db, "underlying", "add", "ZZQ", "--kind", "stock", "--currency", "USD",
                  "--multiplier", "100")
         _blotter(demo_db, "trade", "add", "ZZQ", "--book", "equity-vol", "--expiry",
-                 "2027-06-18", "--strike", "20", "--call", "--qty", "5", "--price", "2")
+                 "2027-06-17", "--strike", "20", "--call", "--qty", "5", "--price", "2")
         await _wait_for(app, pilot, lambda: "NOT VALUED" in _header(app), "the unmarked name")
         assert "cannot open" not in _header(app)
         assert "NOT VALUED 1 (ZZQ: spot, vol)" in _header(app)

@@ -447,6 +447,33 @@ async def test_a_trade_price_far_from_the_model_value_asks_before_booking(demo_d
         assert counts(demo_db)[0] == before[0] + 1
 
 
+async def test_a_new_contract_expiring_on_an_exchange_holiday_asks_before_booking(
+    demo_db: Path,
+) -> None:
+    """A new DEMOA call expiring on Good Friday 2027 (2027-03-26, an NYSE holiday in the
+    `holidays` package) is asked about in words after the new-contract question and writes
+    nothing; F5 again books it."""
+    app = make_app(demo_db, TEST_SETTINGS, clock=frozen_clock)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await open_trades(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        before = counts(demo_db)
+        await fill(pilot, "DEMOA", "2027-03-26", "185", "c", "1", "11")
+        await pilot.press("f5")  # the new contract's question
+        await settle(app, pilot)
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradeForm)
+        said = str(app.screen.query_one("#form-message").render())
+        assert "is Good Friday, an exchange holiday on DEMOA's NYSE calendar" in said
+        assert "F5 (or Enter) again to book it" in said and counts(demo_db) == before
+        await pilot.press("f5")
+        await settle(app, pilot)
+        assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
+        assert counts(demo_db)[0] == before[0] + 1
+
+
 async def test_a_trial_at_a_price_far_from_the_model_value_asks_before_staging(
     demo_db: Path,
 ) -> None:
@@ -970,8 +997,8 @@ async def test_a_currency_without_a_rate_curve_is_listed_and_can_be_typed(demo_d
     try:
         st.add_underlying("ZZG", "stock", "GBP", 100, description="test stock (invented)")
         st.log_spot("ZZG", 50.0)
-        st.log_vol("ZZG", "2027-06-18", 0.25)
-        st.add_trade("equity-vol", "ZZG", 3, 2.0, "2027-06-18", 50.0, True)
+        st.log_vol("ZZG", "2027-06-17", 0.25)
+        st.add_trade("equity-vol", "ZZG", 3, 2.0, "2027-06-17", 50.0, True)
         in_force = len(st.marks())
     finally:
         st.close()

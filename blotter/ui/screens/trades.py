@@ -496,7 +496,8 @@ class TradeForm(ModalScreen[FormResult | None]):
         contract: ContractRecord | None = None,
     ) -> bool:
         """Ask (once for these terms and price) when ``price`` is far from the model value on
-        the marks in force (``desk.entry.price_question``); True when it asked."""
+        the marks in force (``desk.entry.price_question``) or a new contract's expiry falls on a
+        day the exchange is shut (``desk.entry.expiry_question``); True when it asked."""
         state = self.host.state
         if state is None or self.confirm_price == (terms, price):
             return False
@@ -511,7 +512,12 @@ class TradeForm(ModalScreen[FormResult | None]):
         model = session.model_price(
             valuation.book, valuation.market, contract, self.host.clock(), self.host.tz
         )
-        question = entry.price_question(price, model, contract.label)
+        known = entry.find_contract(self.sheet.contracts, terms) is not None
+        asks = (
+            "" if known else entry.expiry_question(terms, self.sheet.underlyings),
+            entry.price_question(price, model, contract.label),
+        )
+        question = "; ".join(a for a in asks if a)
         if not question:
             return False
         self.confirm_price = (terms, price)
