@@ -245,7 +245,8 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
                    boundaries: object = None, base_vols: object = None,
                    weights: object = None, with_base: bool = True,
                    kept_only: bool = False,
-                   exact_near: bool = True) -> tuple[np.ndarray, np.ndarray]:
+                   exact_near: bool = True,
+                   outputs: Sequence[str] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """American values of rows (m,) in every cell of a spot × vol grid: spot × ``shocks[i]``
     (n_s,), vol ``vols[i or 0, j, row]`` ((n_s or 1, n_v, m)); shape (1, n_s, n_v, m), or
     with ``greeks`` (5, n_s, n_v, m) = price, delta, gamma, vega, theta (units of ``Greeks``);
@@ -258,6 +259,8 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
     ``greeks``, cells near the exercise boundary or of a small σ√τ are valued by the
     quadrature, since there the tables' gamma, vega and theta miss the greeks' accuracy;
     ``exact_near`` False keeps the tables' cells there (price and delta are within it).
+    ``outputs`` (with ``greeks``) names the ones of the five computed, the others NaN, so
+    that a call builds only the premium tables they read (a delta needs no gamma table).
 
     Each cell equals ``price``/``price_greeks`` with ``american=True`` within the method's
     accuracy, from one premium table per exercise boundary (``american_grid``) instead of one
@@ -291,7 +294,8 @@ def american_cells(is_call: object, spot: object, strike: object, years: object,
         wt = np.broadcast_to(as_float_array("weights", weights, "finite"), (m,))
     return _american_grid.american_cells(c, s, k, t, r, b, vv, sh, greeks, _cache(boundaries),
                                          base_vols=bv, weights=wt, with_base=with_base,
-                                         kept_only=kept_only, exact_near=exact_near)
+                                         kept_only=kept_only, exact_near=exact_near,
+                                         outputs=outputs)
 
 
 def implied_vol(price: object, is_call: object, spot: object, strike: object, years: object,

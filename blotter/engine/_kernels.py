@@ -16,10 +16,10 @@ import os
 import threading
 from collections.abc import Callable
 
-from blotter.engine import _alo
+from blotter.engine import _alo, _premium
 
 _ENTRY_POINTS = (_alo.prepare_rows, _alo.group_keys, _alo.solve_groups, _alo.value_groups,
-                 _alo.edge_groups, _alo.grid_cells)
+                 _alo.edge_groups, _premium.table_points, _premium.table_cells)
 _LOCK = threading.Lock()
 _THREAD: threading.Thread | None = None
 _WARMING_AT_FORK = False

@@ -3,7 +3,7 @@ from one small table per exercise boundary, instead of one quadrature per cell.
 
 A put's value in units of its strike is the European value plus the early-exercise premium
 E(ln x, σ; τ, r, q), where x is spot over strike. Rows of one (τ, r, q) in put form share E, so
-each group gets a table of it (``american.evaluate``'s kernels, exact values) at
+each group gets a table of it (the engine's quadrature, ``_premium.table_points``) at
 ``LATTICE_POINTS``-wide windows of a fixed lattice of vols (ln σ = i × ``LATTICE_STEP``) and at
 the Chebyshev–Lobatto points of ζ = (z − ``Z_SCALE``) / (z + ``Z_SCALE``), with
 z = (ln x − ln B(σ)) / (σ√τ) the distance above the exercise boundary B(σ) in standard
@@ -18,22 +18,25 @@ method. Greek cells next to the boundary, or of a small σ√τ, are valued by t
 
 A table node depends only on its group's boundary and its lattice position, never on which
 rows or cells asked for it, so a cell's value does not depend on the other rows (a grid summed
-over shards equals the serial grid); each group keeps one set of them in the cache, over the
-lattice vols built so far. The tables cost a few hundred exact values per group;
-rows the tables do not serve (other statuses, vols below ``VOL_TABLE_MIN``, a failed
-boundary, and every row while the compiled kernels are not ready: the tables have no NumPy
-mirror) are valued cell by cell by ``american.evaluate``.
+over shards equals the serial grid); each group keeps in the cache one set per premium
+(price, delta, gamma, vega) over the lattice vols built so far, and a call builds only the
+premiums its outputs read (a grid the price, a delta profile the delta, and the price too
+for calls). The tables cost a few hundred exact values per group, computed for all groups in
+one compiled pass on the engine's thread pool; rows the tables do not serve (other statuses,
+vols below ``VOL_TABLE_MIN``, a failed boundary, and every row while the compiled kernels are
+not ready: the tables have no NumPy mirror) are valued cell by cell by
+``american.evaluate``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from types import ModuleType
 
 import numpy as np
 
-from blotter.engine import _alo, american, black
+from blotter.engine import _alo, _premium, american
 from blotter.engine._chunks import run_chunked
 
 LATTICE_STEP = 0.1
@@ -70,13 +73,35 @@ SHORT_Z = 9.0
 below 1e-12 of its strike, and its table cells are kept."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
+TABLES_PER_TASK = 32
+"""(Group, lattice vol, pair) tables per unit of work of the table kernel on the thread pool
+(about 0.3 ms of work each)."""
 BLOCK_ROWS = 8192
 """Rows whose cells are held at once (with greeks and 31 spot points, 10 MB)."""
 
 TABLE_OUTPUTS = 4
-"""Premium tables of a greeks run: price, delta, gamma, vega (put form, strike 1)."""
+"""Premium tables: price, delta, gamma, vega (put form, strike 1), each kept in a set of its
+own per boundary."""
 CELL_OUTPUTS = ("price", "delta", "gamma", "vega", "theta")
 """What ``american_cells`` gives with ``greeks`` (per unit of underlying, as ``price_greeks``)."""
+
+
+def _wanted(greeks: bool, outputs: Sequence[str] | None) -> tuple[np.ndarray, np.ndarray]:
+    """Which outputs a call writes ((1,) price, or (5,) of ``CELL_OUTPUTS``) and which premium
+    tables the cells of puts (row 0) and of calls (row 1) read (2, 4): theta reads the price,
+    delta and gamma premiums, and a call's delta the price premium too (in put form it is
+    P − x ∂P/∂x)."""
+    if not greeks:
+        return np.ones(1, dtype=np.bool_), np.array([[True, False, False, False]] * 2)
+    names = CELL_OUTPUTS if outputs is None else tuple(outputs)
+    unknown = sorted(set(names) - set(CELL_OUTPUTS))
+    if unknown or not names:
+        raise ValueError(f"outputs must name some of {', '.join(CELL_OUTPUTS)}, not "
+                         f"{', '.join(unknown) or 'none'}")
+    price, delta, gamma, vega, theta = (n in names for n in CELL_OUTPUTS)
+    puts = [price or theta, delta or theta, gamma or theta, vega]
+    calls = [price or delta or theta, *puts[1:]]
+    return np.array([price, delta, gamma, vega, theta]), np.array([puts, calls])
 
 
 def _lobatto() -> tuple[np.ndarray, np.ndarray]:
@@ -107,9 +132,12 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                    base_vols: np.ndarray | None = None,
                    weights: np.ndarray | None = None, with_base: bool = True,
                    kept_only: bool = False,
-                   exact_near: bool = True) -> tuple[np.ndarray, np.ndarray]:
+                   exact_near: bool = True,
+                   outputs: Sequence[str] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """American values (``greeks`` False: shape (1, n_s, n_v, m)) or ``CELL_OUTPUTS``
-    (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``).
+    (5, n_s, n_v, m) of m rows in every cell (spot × ``shocks[i]``, vol ``vols[i or 0, j, m]``);
+    with ``greeks``, ``outputs`` names those of ``CELL_OUTPUTS`` computed (the others NaN; all
+    by default), so that only the premium tables they read are built.
 
     Row arguments are flat (m,); ``vols`` is (n_s or 1, n_v, m) and ``shocks`` (n_s,) spot
     multipliers. Equal to ``price``/``price_greeks`` with ``american=True`` of each cell within
@@ -124,6 +152,7 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     quadrature per cell, so pays only over many cells). With ``greeks`` and ``exact_near``,
     cells within ``NEAR_Z`` of the boundary, or up to ``SHORT_Z`` above it where σ√τ is
     below ``SHORT_SD``, are valued by the quadrature (``_Near``)."""
+    outs, tabs = _wanted(greeks, outputs)
     kern = american._implementation(kernels)
     w = np.where(np.asarray(is_call, dtype=bool), 1.0, -1.0)
     s, k, t, r, b = (american._writable(a) for a in (spot, strike, years, rate, carry))
@@ -131,7 +160,7 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
     shocks = american._writable(np.asarray(shocks, dtype=np.float64).ravel())
     m = s.size
     n_s, n_v = shocks.size, vols.shape[1]
-    n_out = len(CELL_OUTPUTS) if greeks else 1
+    n_out = outs.size
     out: np.ndarray
     base: np.ndarray
     if weights is None:
@@ -177,8 +206,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
         rows = rows[:0]
     if rows.size:
         done = _tabulated(rows, w, s, k, t, r, b, r_p, q_p, lnx, lo_v, hi_v, vol_rows, shocks,
-                          key, greeks, cache, kern, n_out, base_v, sink, with_base, kept_only,
-                          exact_near)
+                          key, greeks, cache, kern, outs, tabs, base_v, sink, with_base,
+                          kept_only, exact_near)
         table[rows[~done]] = False
     rest = np.flatnonzero(~table)
     if rest.size:
@@ -190,6 +219,8 @@ def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
                           at_base)
         else:
             at_base.fill(np.nan)
+        cells[:, ~outs] = np.nan
+        at_base[:, ~outs] = np.nan
         sink(rest, cells, at_base)
     return result()
 
@@ -199,19 +230,25 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
                lo_v: np.ndarray,
                hi_v: np.ndarray, vol_rows: np.ndarray, shocks: np.ndarray, key: np.ndarray,
                greeks: bool, cache: american.BoundaryCache | None, kern: ModuleType,
-               n_out: int, base_v: np.ndarray,
+               outs: np.ndarray, tabs: np.ndarray, base_v: np.ndarray,
                sink: Callable[[np.ndarray, np.ndarray, np.ndarray], None],
                with_base: bool = True, kept_only: bool = False,
                exact_near: bool = True) -> np.ndarray:
     """Cells of ``rows`` (status one boundary) from their groups' tables, and their values at
     the unmoved spot and ``base_v`` (NaN unless ``with_base``), handed to ``sink``
     ``BLOCK_ROWS`` rows at a time (row indices, (rows, n_out, n_s, n_v), (rows, n_out, 1, 1));
-    returns which rows were served (False where the group's boundary did not converge, and
-    with ``kept_only`` where its boundary or a table is not kept in ``cache``)."""
+    ``outs`` and ``tabs`` as ``_wanted`` gives them. Returns which rows were served (False
+    where the group's boundary did not converge, and with ``kept_only`` where its boundary or
+    a table it needs is not kept in ``cache``)."""
+    n_out = outs.size
     order, first = american._group(rows, key, t, r_p, q_p)
     starts = first[:-1]
     n_g = starts.size
     counts = np.diff(first)
+    # the premium tables each group's cells read: its puts' and its calls'
+    call = w[order] > 0.0
+    need = ((np.logical_or.reduceat(~call, starts)[:, None] & tabs[0])
+            | (np.logical_or.reduceat(call, starts)[:, None] & tabs[1]))
     lv_lo = np.minimum.reduceat(np.log(lo_v[order]), starts)
     lv_hi = np.maximum.reduceat(np.log(hi_v[order]), starts)
     half = LATTICE_POINTS // 2
@@ -227,7 +264,7 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     if kept_only:
         # the kept tables alone: no boundary is interpolated and no table built
         assert cache is not None
-        ok, coef, tail, edge = _kept_sets(cache, g_r, g_q, g_t, span, lat_first, n_lat, greeks)
+        ok, coef, tail, edge = _kept_sets(cache, g_r, g_q, g_t, span, lat_first, n_lat, need)
     else:
         two = np.arange(2 * n_g).reshape(2, n_g).T.ravel()
         grp = american._boundaries(two, np.arange(0, 2 * n_g + 1, 2), np.tile(g_t, 2),
@@ -241,15 +278,13 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
                          grp.tan, scheme.power, scheme.squares, np.ascontiguousarray(lat),
                          n_lat, edge)
         use = ok[:, None] & (np.arange(nl_max)[None, :] < n_lat[:, None])
-        coef, tail = _cached_tables(grp, use, lat_first, n_lat, lat, edge, greeks, scheme,
-                                    kern, cache)
+        coef, tail = _cached_tables(grp, use, need, lat_first, n_lat, lat, edge, scheme, cache)
     served = np.repeat(ok, counts)
     sel = order[served]
     if sel.size:
         row_group = np.repeat(np.arange(n_g), counts)[served]
-        n_t = coef.shape[2]
         args = (g_r, g_q, g_t, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
-                LATTICE_POINTS, Z_SCALE)
+                LATTICE_POINTS, Z_SCALE, tabs, outs)
         ln_shock = np.log(shocks)
         n_s, n_v = shocks.size, vol_rows.shape[2]
         b_s = np.ascontiguousarray(base_v[sel])
@@ -257,7 +292,6 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
         zero = np.zeros(1)
         g_sel = np.ascontiguousarray(row_group)
         lnx_s, w_s, s_s, k_s = (np.ascontiguousarray(a[sel]) for a in (lnx, w, s, k))
-        assert n_t == (TABLE_OUTPUTS if greeks else 1)
         for b0 in range(0, sel.size, BLOCK_ROWS):
             b1 = min(b0 + BLOCK_ROWS, sel.size)
             cells = np.empty((b1 - b0, n_out, n_s, n_v))
@@ -274,18 +308,18 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
                 for a in ins[0]:
                     c = slice(int(a), int(min(a + ROWS_PER_TASK, b1)))
                     dest = np.arange(c.start - b0, c.stop - b0)
-                    kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
-                                    ln_shock, shocks, v_s[dest[0]:dest[-1] + 1], n_out, dest,
-                                    cells)
+                    _premium.table_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
+                                         ln_shock, shocks, v_s[dest[0]:dest[-1] + 1], dest,
+                                         cells)
                     if base_too:
-                        kern.grid_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c], k_s[c],
-                                        zero, one, b_s[c], n_out, dest, at_base)
+                        _premium.table_cells(*args, g_sel[c], lnx_s[c], w_s[c], s_s[c],
+                                             k_s[c], zero, one, b_s[c], dest, at_base)
 
             run_chunked(kernel, cuts.size, (cuts,), (np.empty(cuts.size),), chunk=1,
                         min_split=1)
             if greeks and exact_near:
                 near = _Near(sel[b0:b1], g_sel[b0:b1], lnx_s[b0:b1], lat_first, n_lat, edge,
-                             g_t, (w, s, k, t, r, b), cache, kern)
+                             g_t, (w, s, k, t, r, b), cache, kern, outs)
                 near.replace(cells, v_s, ln_shock, shocks)
                 if with_base:
                     near.replace(at_base, b_s[b0:b1], zero, one)
@@ -314,6 +348,7 @@ class _Near:
     row_args: tuple[np.ndarray, ...]
     cache: american.BoundaryCache | None
     kern: ModuleType
+    outs: np.ndarray
 
     def replace(self, out: np.ndarray, vols: np.ndarray, ln_shock: np.ndarray,
                 shocks: np.ndarray) -> None:
@@ -347,26 +382,32 @@ class _Near:
         vv = vols[ri, si if vols.shape[1] > 1 else 0, vi]
         vals, _ = american.evaluate(w, s * shocks[si], k, t, r, b, vv, True, self.cache,
                                     kernels=self.kern)
-        # price, delta, gamma, vega, theta of results.GREEK_NAMES
-        out[ri, :, si, vi] = np.stack(vals[:len(CELL_OUTPUTS)], axis=1)
+        # price, delta, gamma, vega, theta of results.GREEK_NAMES, those asked for
+        exact = np.stack(vals[:len(CELL_OUTPUTS)], axis=1)
+        exact[:, ~self.outs] = np.nan
+        out[ri, :, si, vi] = exact
 
 
 def _set_key(rate: float, div: float, tau: float, boundary: tuple[float, float, float, int],
-             greeks: bool) -> tuple[float, ...]:
+             which: int) -> tuple[float, ...]:
     """Cache key of one group's table set: its put form, row time τ, the boundary it was built
-    on (τmax, first and last vol node, node count) and whether it holds the greeks."""
+    on (τmax, first and last vol node, node count) and which premium it holds (index into
+    ``TABLE_OUTPUTS``)."""
     tmax, lo, hi, ns = boundary
-    return (rate, div, tau, tmax, lo, hi, float(ns - 1), float(greeks))
+    return (rate, div, tau, tmax, lo, hi, float(ns - 1), float(which))
+
+
+SET_WIDTH = CHEB_DEGREE + 3
+"""Numbers per lattice vol of a kept set: ln B, the tail and the coefficients."""
 
 
 def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: np.ndarray,
-            n_lat: np.ndarray, n_t: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Coefficients (G, L, n_t, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where
-    no table is kept) of the groups' lattice vols from their kept table sets (``items``, one
-    per group or None), gathered in one indexing pass over all sets."""
+            n_lat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Coefficients (G, L, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where no
+    table is kept) of the groups' lattice vols from their kept sets of one premium (``items``,
+    one per group or None), gathered in one indexing pass over all sets."""
     n_g, nl_max = lat_first.size, int(n_lat.max())
-    width = 2 + n_t * (CHEB_DEGREE + 1)
-    packed = np.full((n_g, nl_max, width), np.nan)
+    packed = np.full((n_g, nl_max, SET_WIDTH), np.nan)
     have = [g for g, item in enumerate(items) if item is not None]
     if have:
         sets = [items[g] for g in have]
@@ -385,163 +426,124 @@ def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: 
     edge = packed[:, :, 0]
     found = ~np.isnan(edge)
     tail = np.where(found, packed[:, :, 1], 0.0)
-    coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0).reshape(
-        n_g, nl_max, n_t, CHEB_DEGREE + 1)
-    return np.ascontiguousarray(coef), tail, edge
+    coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0)
+    return coef, tail, edge
 
 
 def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
                g_t: np.ndarray, span: np.ndarray, lat_first: np.ndarray, n_lat: np.ndarray,
-               greeks: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Which groups have a kept boundary and kept tables at every lattice vol they need (G,),
-    and those tables as ``_gather`` gives them (edge 0 where not kept)."""
+               need: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Which groups have a kept boundary and kept tables of each premium they ``need``
+    (G, 4) at every lattice vol they need (G,), and those tables: coefficients
+    (G, L, 4, N + 1), tails (G, L, 4) and ln B (G, L; 0 where not kept)."""
     n_g = g_r.size
-    keys: list[tuple[float, ...] | None] = []
+    bounds: list[tuple[float, float, float, int] | None] = []
     for r, q, t, lo, hi in zip(g_r.tolist(), g_q.tolist(), g_t.tolist(), span[:n_g].tolist(),
                                span[n_g:].tolist(), strict=True):
         item = cache.find(r, q, t, lo, hi, True)
-        keys.append(None if item is None or item.steps < 0 else _set_key(
-            r, q, t, (item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]), item.lnsig.size),
-            greeks))
-    kept = iter(cache.tables([k for k in keys if k is not None]))
-    items = [None if k is None else next(kept) for k in keys]
-    coef, tail, edge = _gather(items, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
-    use = np.arange(edge.shape[1])[None, :] < n_lat[:, None]
-    ok = ~(use & np.isnan(edge)).any(axis=1)
-    return ok, coef, tail, np.where(np.isnan(edge), 0.0, edge)
+        bounds.append(None if item is None or item.steps < 0 else (
+            item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]), item.lnsig.size))
+    nl_max = int(n_lat.max())
+    coef = np.zeros((n_g, nl_max, TABLE_OUTPUTS, CHEB_DEGREE + 1))
+    tail = np.zeros((n_g, nl_max, TABLE_OUTPUTS))
+    edge = np.zeros((n_g, nl_max))
+    ok = np.array([bd is not None for bd in bounds], dtype=bool)
+    use = np.arange(nl_max)[None, :] < n_lat[:, None]
+    for p in np.flatnonzero(need.any(axis=0)).tolist():
+        keys = [None if bd is None or not need[g, p] else _set_key(r, q, t, bd, p)
+                for g, (r, q, t, bd) in enumerate(zip(g_r.tolist(), g_q.tolist(), g_t.tolist(),
+                                                      bounds, strict=True))]
+        kept = iter(cache.tables([k for k in keys if k is not None]))
+        items = [None if k is None else next(kept) for k in keys]
+        coef[:, :, p], tail[:, :, p], at = _gather(items, lat_first, n_lat)
+        ok &= ~(need[:, p, None] & use & np.isnan(at)).any(axis=1)
+        edge = np.where(np.isnan(at), edge, at)
+    return ok, coef, tail, edge
 
 
-def _cached_tables(grp: american._Groups, use: np.ndarray, lat_first: np.ndarray,
-                   n_lat: np.ndarray, lat: np.ndarray, edge: np.ndarray, greeks: bool,
-                   scheme: american.Scheme, kern: ModuleType,
-                   cache: american.BoundaryCache | None) -> tuple[np.ndarray, np.ndarray]:
-    """``_tables`` of the (group, lattice vol) pairs ``use``, those kept in ``cache`` taken
-    from it and the others computed and kept. Each group keeps one set: its tables over a
-    range of lattice vols in one array (a table depends only on its boundary, τ and lattice
-    vol, so a spot move or another grid of the same valuation reuses it)."""
+def _cached_tables(grp: american._Groups, use: np.ndarray, need: np.ndarray,
+                   lat_first: np.ndarray, n_lat: np.ndarray, lat: np.ndarray, edge: np.ndarray,
+                   scheme: american.Scheme, cache: american.BoundaryCache | None
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """Coefficients (G, L, 4, N + 1) and tails (G, L, 4) of the premium tables each group
+    ``need``s (G, 4) at its lattice vols ``use`` (G, L) (0 elsewhere), those kept in
+    ``cache`` taken from it and the others computed and kept. Each group keeps one array per
+    premium, over a range of lattice vols (a table depends only on its boundary, τ and
+    lattice vol, so a spot move or another grid or profile of the same valuation reuses
+    it)."""
+    n_g, nl_max = use.shape
+    coef = np.zeros((n_g, nl_max, TABLE_OUTPUTS, CHEB_DEGREE + 1))
+    tail = np.zeros((n_g, nl_max, TABLE_OUTPUTS))
+    todo = use[:, :, None] & need[:, None, :]
+    keys: dict[int, list[tuple[float, ...]]] = {}
+    kept: dict[int, list[tuple[float, float, np.ndarray] | None]] = {}
+    wanted = np.flatnonzero(need.any(axis=0)).tolist()
+    if cache is not None:
+        bounds = [(float(grp.tmax[g]), float(grp.lnsig[g, 0]),
+                   float(grp.lnsig[g, grp.ns[g] - 1]), int(grp.ns[g])) for g in range(n_g)]
+        for p in wanted:
+            keys[p] = [_set_key(float(grp.rate[g]), float(grp.div[g]), float(grp.tau[g]),
+                                bounds[g], p) for g in range(n_g)]
+            kept[p] = cache.tables(keys[p])
+            coef[:, :, p], tail[:, :, p], have = _gather(kept[p], lat_first, n_lat)
+            todo[:, :, p] &= ~(have == edge)
+    if not todo.any():
+        return coef, tail
+    _tables(grp, todo, lat, edge, scheme, coef, tail)
     if cache is None:
-        return _tables(grp, use, lat, edge, greeks, scheme, kern)
-    n_g = grp.rate.size
-    keys = [_set_key(float(grp.rate[g]), float(grp.div[g]), float(grp.tau[g]),
-                     (float(grp.tmax[g]), float(grp.lnsig[g, 0]),
-                      float(grp.lnsig[g, grp.ns[g] - 1]), int(grp.ns[g])), greeks)
-            for g in range(n_g)]
-    kept = cache.tables(keys)
-    coef, tail, have = _gather(kept, lat_first, n_lat, TABLE_OUTPUTS if greeks else 1)
-    todo = use & ~(have == edge)
-    if todo.any():
-        new, new_tail = _tables(grp, todo, lat, edge, greeks, scheme, kern)
-        coef[todo] = new[todo]
-        tail[todo] = new_tail[todo]
-        have[todo] = edge[todo]
-        fresh: dict[tuple[float, ...], tuple[float, float, np.ndarray]] = {}
-        for g in np.unique(np.nonzero(todo)[0]).tolist():
-            fresh[keys[g]] = _merged(kept[g], int(lat_first[g]), have[g, :n_lat[g]],
-                                     tail[g, :n_lat[g]], coef[g, :n_lat[g]])
-        cache.keep_tables(fresh)
+        return coef, tail
+    fresh: dict[tuple[float, ...], tuple[float, float, np.ndarray]] = {}
+    for p in wanted:
+        built = todo[:, :, p]
+        # each lattice vol as a row of its set: ln B (NaN where none is built), tail, coef
+        rows = np.concatenate([np.where(built, edge, np.nan)[:, :, None],
+                               tail[:, :, p, None], coef[:, :, p]], axis=2)
+        for g in np.flatnonzero(built.any(axis=1)).tolist():
+            fresh[keys[p][g]] = _merged(kept[p][g], int(lat_first[g]), rows[g, :n_lat[g]])
+    cache.keep_tables(fresh)
     return coef, tail
 
 
-def _merged(old: tuple[float, float, np.ndarray] | None, first: int, edge: np.ndarray,
-            tail: np.ndarray, coef: np.ndarray) -> tuple[float, float, np.ndarray]:
-    """A group's table set over the union of its kept lattice vols (``old``) and the ones
-    given from lattice index ``first`` (edge NaN where none is built): (first index, count,
-    rows of ln B, tail and the coefficients)."""
-    n = edge.size
-    lo, hi = first, first + n
-    if old is not None:
-        lo, hi = min(lo, int(old[0])), max(hi, int(old[0]) + old[2].shape[0])
-    out = np.full((hi - lo, 2 + coef[0].size), np.nan)
-    if old is not None:
-        out[int(old[0]) - lo:int(old[0]) - lo + old[2].shape[0]] = old[2]
-    new = np.concatenate([edge[:, None], tail[:, None], coef.reshape(n, -1)], axis=1)
-    built = ~np.isnan(edge)
-    out[first - lo:first - lo + n][built] = new[built]
+def _merged(old: tuple[float, float, np.ndarray] | None, first: int, rows: np.ndarray
+            ) -> tuple[float, float, np.ndarray]:
+    """A group's set over the union of its kept lattice vols (``old``) and ``rows``
+    (lattice index ``first`` on; ln B NaN where none is built): (first index, count, rows of
+    ln B, tail and coefficients)."""
+    n = rows.shape[0]
+    if old is None:
+        return float(first), float(n), rows.copy()
+    lo, hi = min(first, int(old[0])), max(first + n, int(old[0]) + old[2].shape[0])
+    out = np.full((hi - lo, SET_WIDTH), np.nan)
+    out[int(old[0]) - lo:int(old[0]) - lo + old[2].shape[0]] = old[2]
+    built = ~np.isnan(rows[:, 0])
+    out[first - lo:first - lo + n][built] = rows[built]
     return float(lo), float(hi - lo), out
 
 
-def _tables(grp: american._Groups, use: np.ndarray, lat: np.ndarray, edge: np.ndarray,
-            greeks: bool, scheme: american.Scheme, kern: ModuleType
-            ) -> tuple[np.ndarray, np.ndarray]:
-    """Chebyshev coefficients (G, L, n_t, N + 1) of the groups' premium tables at their
-    lattice vols where ``use`` (G, L), from exact values of synthetic puts (strike 1) at the
-    table's points (0 elsewhere), and each table's tail: the largest z of a point whose
-    premiums are not all below ``TAIL_NEGLIGIBLE`` (G, L)."""
-    n_g, nl_max = lat.shape
-    n_t = TABLE_OUTPUTS if greeks else 1
-    # the point on the boundary (z = 0) takes the continuation's limits there, exactly:
-    # quadratures of gamma just above the boundary miss a layer of width z² in time
-    pts = np.flatnonzero((_Z <= Z_CAP) & (_Z > 0.0))  # beyond Z_CAP (z = ∞ among them): 0
-    n_pts = pts.size
-    vals = np.zeros((n_g, nl_max, n_t, CHEB_DEGREE + 1))
-    gi, ai = np.nonzero(use)
-    if gi.size:
-        sig = np.exp(lat[gi, ai])
-        root_t = np.sqrt(grp.tau[gi])
-        x = edge[gi, ai][:, None] + (sig * root_t)[:, None] * _Z[None, pts]
-        n_rows = x.size
-        lnx = x.ravel()
-        v = np.repeat(sig, n_pts)
-        tt = np.repeat(grp.tau[gi], n_pts)
-        rr = np.repeat(grp.rate[gi], n_pts)
-        qq = np.repeat(grp.div[gi], n_pts)
-        per_group = np.bincount(gi, minlength=n_g) * n_pts
-        first = np.concatenate([[0], np.cumsum(per_group)])
-        syn = replace(grp, order=np.arange(n_rows), first=first)
-        spot = np.exp(lnx)
-        one = np.ones(n_rows)
-        put = -one
-        n_o = 10 if greeks else 1
-        block = np.empty((n_o, n_rows))
-        near = np.zeros(n_rows, dtype=np.bool_)
-        american._value(syn, lnx, v, spot, one, put, greeks, scheme, block, near, kern)
-        euro = _european_puts(spot, tt, rr, qq, v, greeks)
-        prem = np.empty((n_t, n_rows))
-        prem[0] = np.maximum(block[0] - euro[0], 0.0)
-        if greeks:  # delta, gamma, vega
-            prem[1:] = block[1:TABLE_OUTPUTS] - np.stack(euro[1:TABLE_OUTPUTS])
-        # advanced indices around a slice: the indexed shape is (rows, points, n_t)
-        vals[gi[:, None], ai[:, None], :, pts[None, :]] = (
-            prem.reshape(n_t, gi.size, n_pts).transpose(1, 2, 0))
-        vals[gi, ai, :, CHEB_DEGREE] = _on_boundary(edge[gi, ai], sig, grp.tau[gi],
-                                                    grp.rate[gi], grp.div[gi], greeks)
-    big = np.max(np.abs(vals), axis=2) > TAIL_NEGLIGIBLE          # (G, L, N + 1)
-    # points run from z = ∞ (0) to z = 0 (N): the first significant one has the largest z
-    first_big = np.where(big.any(axis=2), np.argmax(big, axis=2), CHEB_DEGREE)
-    tail = _Z[first_big]
-    coef: np.ndarray = np.ascontiguousarray(vals @ _TO_COEF.T)
-    return coef, tail
+def _tables(grp: american._Groups, todo: np.ndarray, lat: np.ndarray, edge: np.ndarray,
+            scheme: american.Scheme, coef: np.ndarray, tail: np.ndarray) -> None:
+    """Chebyshev coefficients ``coef`` (G, L, 4, N + 1) of the groups' premium tables at their
+    lattice vols where ``todo`` (G, L, 4), from the premiums of synthetic puts (strike 1) at
+    the table's points, and each table's tail ``tail`` (G, L, 4): the largest z of a point
+    whose premium is not below ``TAIL_NEGLIGIBLE`` (``_premium.table_points``, on the thread
+    pool; other entries are left as they are)."""
+    groups = np.flatnonzero(todo.any(axis=(1, 2)))
+    # units of work: runs of groups of about TABLES_PER_TASK tables each
+    done = np.cumsum(todo[groups].sum(axis=(1, 2)))
+    bounds = np.unique(np.concatenate([[0], np.searchsorted(
+        done, np.arange(TABLES_PER_TASK, done[-1], TABLES_PER_TASK), side="right"),
+        [groups.size]]))
+    args = (grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
+            scheme.wq_t, scheme.power, scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
+            scheme.squares, scheme.graded[1], np.ascontiguousarray(lat), edge, todo, _Z,
+            Z_CAP, _TO_COEF, TAIL_NEGLIGIBLE)
 
+    def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
+        for c in ins[0]:
+            _premium.table_points(*args, groups[bounds[c]:bounds[c + 1]], coef, tail)
 
-def _european_puts(x: np.ndarray, tau: np.ndarray, r: np.ndarray, q: np.ndarray,
-                   sig: np.ndarray, greeks: bool) -> list[np.ndarray]:
-    """European puts of strike 1 at spots ``x`` (put-form rate and dividend yield): the price,
-    or the price and nine greeks (``results.GREEK_NAMES`` order)."""
-    n = x.size
-    euro = [np.empty(n) for _ in range(10 if greeks else 1)]
-    ins = (-np.ones(n), x, np.ones(n), tau, r, r - q, sig)
-    if greeks:
-        black.greeks_kernel(ins, euro)
-    else:
-        black.price_kernel(ins, euro)
-    return euro
-
-
-def _on_boundary(lnb: np.ndarray, sig: np.ndarray, tau: np.ndarray, r: np.ndarray,
-                 q: np.ndarray, greeks: bool) -> np.ndarray:
-    """Premiums (rows, n_t) of a put (strike 1) at its exercise boundary x = B: the value
-    1 − B, delta −1, vega 0 (the value touches intrinsic smoothly) and gamma from the
-    Black–Scholes equation with θ = 0 there, Γ = 2 (r − q B) / (σ² B²), less the European
-    put's."""
-    x = np.exp(lnb)
-    euro = _european_puts(x, tau, r, q, sig, greeks)
-    out = np.empty((x.size, TABLE_OUTPUTS if greeks else 1))
-    out[:, 0] = np.maximum(1.0 - x - euro[0], 0.0)
-    if greeks:
-        out[:, 1] = -1.0 - euro[1]
-        out[:, 2] = 2.0 * (r - q * x) / (sig * sig * x * x) - euro[2]
-        out[:, 3] = -euro[3]
-    return out
+    ids = np.arange(bounds.size - 1)
+    run_chunked(kernel, ids.size, (ids,), (np.empty(ids.size),), chunk=1, min_split=1)
 
 
 def _cell_by_cell(rest: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t: np.ndarray,

@@ -18,6 +18,10 @@ from blotter.scenario.whatif import apply_move
 PROFILE_EXPOSURES = ("delta_cash", "gamma_1pct", "vega_pt", "theta_day")
 """Exposures ``greek_profile`` draws (``risk`` field names, desk units)."""
 
+_GREEK_OF = {"delta_cash": "delta", "gamma_1pct": "gamma", "vega_pt": "vega",
+             "theta_day": "theta"}
+"""The engine's greek (``engine.american_cells`` output) behind each exposure."""
+
 
 def greek_profile(
     valuation: BookValuation,
@@ -72,8 +76,12 @@ def greek_profile(
             greeks=True,
             boundaries=v.boundaries,
             weights=wts,
+            # the values at the unmoved spot are not drawn
+            with_base=False,
             # delta is within the greeks' accuracy from the tables everywhere
             exact_near=exposure != "delta_cash",
+            # the one greek drawn: only the premium tables it reads are built
+            outputs=(_GREEK_OF[exposure],),
         )
         d, gm, vg, th = (sums[i, :, 0][:, None] for i in (1, 2, 3, 4))
         out += _exposure(exposure, d, gm, vg, th, (1.0 + rel)[:, None])[:, 0]

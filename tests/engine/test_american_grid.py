@@ -301,6 +301,100 @@ def test_one_table_set_per_boundary_widened_by_a_wider_grid() -> None:
     np.testing.assert_array_equal(got[0, 0, 0], wide[0, 0, 4])
 
 
+def _premiums_kept(cache: engine.BoundaryCache, which: int
+                   ) -> list[tuple[tuple[float, ...], np.ndarray, np.ndarray]]:
+    """The points of every kept table of premium ``which`` (0 price, 1 delta, 2 gamma, 3
+    vega): per lattice vol built, the set's key, ln σ (rows,) and the premium at the
+    Chebyshev–Lobatto points (rows, N + 1), from the kept coefficients."""
+    grid = engine.american_grid
+    n = grid.CHEB_DEGREE
+    basis = np.cos(np.outer(np.arange(n + 1), np.arange(n + 1)) * np.pi / n)
+    out = []
+    for key, (first, _, rows) in cache._tables.items():
+        if key[-1] != which:
+            continue
+        built = ~np.isnan(rows[:, 0])
+        lnsig = (first + np.flatnonzero(built)) * grid.LATTICE_STEP
+        out.append((key, lnsig, rows[built, 2:] @ basis))
+    return out
+
+
+@pytest.mark.parametrize("which", [0, 1, 2, 3])
+def test_table_points_are_the_engines_premiums(which: int) -> None:
+    """Each table point (a put of strike 1 at z standard deviations above the boundary, at a
+    lattice vol) holds the engine's own premium there: ``price_greeks`` with
+    ``american=True`` less the European value, on the same kept boundary, to rounding. The
+    points nearest the boundary take the engine's refined rule there."""
+    book = _book(11)
+    cache = engine.BoundaryCache()
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    engine.american_cells(*cols, vols, 1.0 + SPOT_PCTS / 100.0, greeks=True,
+                          boundaries=cache)
+    grid = engine.american_grid
+    # points above the boundary within the cap (z = 0 holds the boundary's limits instead)
+    pts = np.flatnonzero((grid._Z > 0.0) & (grid._Z <= grid.Z_CAP))
+    checked = 0
+    for key, lnsig, values in _premiums_kept(cache, which):
+        rate, div, tau = key[:3]
+        first, _, rows = cache._tables[key]
+        edge = rows[~np.isnan(rows[:, 0]), 0]
+        sig = np.exp(lnsig)[:, None]
+        x = np.exp(edge[:, None] + sig * np.sqrt(tau) * grid._Z[None, pts])
+        args = (False, x, 1.0, tau, rate, rate - div, sig)
+        am = engine.price_greeks(*args, american=True, boundaries=cache)
+        eu = engine.price_greeks(*args)
+        name = ("price", "delta", "gamma", "vega")[which]
+        exact = getattr(am, name) - getattr(eu, name)
+        if which == 0:
+            exact = np.maximum(exact, 0.0)
+        np.testing.assert_allclose(values[:, pts], exact, rtol=1e-9, atol=1e-12)
+        checked += exact.size
+    assert checked > 1000
+
+
+def test_outputs_build_only_the_tables_they_read() -> None:
+    """``outputs`` ("delta", as the delta profile asks) gives the same deltas as all five
+    outputs, to the bit, and NaN for the others, and builds only the delta tables and, for
+    boundaries of calls, the price ones (a call's delta in put form is P − x ∂P/∂x)."""
+    book = _book(12)
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    vols = book["vol"][None, None, :]
+    shocks = 1.0 + np.linspace(-0.15, 0.15, 31)
+    every, _ = engine.american_cells(*cols, vols, shocks, greeks=True,
+                                     boundaries=engine.BoundaryCache(), exact_near=False)
+    cache = engine.BoundaryCache()
+    delta, base = engine.american_cells(*cols, vols, shocks, greeks=True, boundaries=cache,
+                                        exact_near=False, outputs=("delta",))
+    np.testing.assert_array_equal(delta[1], every[1])
+    assert np.isnan(np.delete(delta, 1, axis=0)).all()
+    assert np.isnan(np.delete(base, 1, axis=0)).all() and not np.isnan(base[1]).any()
+    kinds = [key[-1] for key in cache._tables]
+    assert set(kinds) == {0.0, 1.0}
+    # one delta set per boundary, a price set per boundary of calls only
+    assert 0 < kinds.count(0.0) < kinds.count(1.0)
+    with pytest.raises(ValueError, match="outputs must name"):
+        engine.american_cells(*cols, vols, shocks, greeks=True, outputs=("rho",))
+
+
+def test_a_grid_then_a_delta_profile_reuse_the_price_tables() -> None:
+    """A price grid keeps a price set per boundary; a delta profile after it on the same cache
+    builds only delta sets, taking the kept price sets (unchanged) for its calls."""
+    book = _book(13)
+    cache = engine.BoundaryCache()
+    cols = [book[c] for c in ("is_call", "spot", "strike", "years", "rate", "carry")]
+    vols = book["vol"][None, None, :] + VOL_PTS[None, :, None] / 100.0
+    engine.american_cells(*cols, vols, 1.0 + SPOT_PCTS / 100.0, boundaries=cache)
+    prices = {k: v[2] for k, v in cache._tables.items()}
+    assert {k[-1] for k in prices} == {0.0}
+    engine.american_cells(*cols, book["vol"][None, None, :], 1.0 + SPOT_PCTS / 100.0,
+                          greeks=True, boundaries=cache, outputs=("delta",))
+    after = {k: v[2] for k, v in cache._tables.items() if k[-1] == 0.0}
+    assert after.keys() == prices.keys()
+    assert all(after[k] is prices[k] for k in prices)
+    assert any(k[-1] == 1.0 for k in cache._tables)
+
+
 def _counts(seed: int, exact_near: bool) -> list[str]:
     """Cells of ``_book(seed)`` over each output's target, as 'largest (count)'."""
     got, exact, strike = _cells(_book(seed), greeks=True, exact_near=exact_near)
