@@ -36,12 +36,14 @@ from blotter.engine._special import fexp, ncdf, ncdf_and_pdf, npdf
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
 def point_premiums(lnxs: float, r: float, q: float, v: float, lq: np.ndarray,
                    dlq: np.ndarray, rb: np.ndarray, nodes: np.ndarray, want: np.ndarray,
-                   out: np.ndarray, terms: np.ndarray, inner: int) -> bool:
+                   out: np.ndarray, terms: np.ndarray, start: int, inner: int) -> int:
     """Early-exercise premiums of a put (strike 1, spot e^lnxs above the boundary ``lq``) into
     ``out`` (4,): price, delta, gamma and vega where ``want`` (4,), by the terms of
     ``value_put`` on price nodes ``nodes`` (6, nq); ``rb`` (nq,) holds r / B at the nodes,
     ``dlq[0]`` the boundary's σ-derivative (vega only) and ``terms`` (4, ≥ nq) is scratch.
-    Returns True, computing nothing, where ``value_put`` takes the refined rule."""
+    Returns the first node that counts, j0, searched from ``start`` (no earlier node counts
+    where a lower spot's j0 is ``start``: each node's d rises with the spot), computing
+    nothing where j0 < ``inner`` (``value_put`` takes the refined rule there)."""
     nq = nodes.shape[1]
     xs = math.exp(lnxs)
     v = max(v, 1e-8)
@@ -51,13 +53,13 @@ def point_premiums(lnxs: float, r: float, q: float, v: float, lq: np.ndarray,
     mum = b - 0.5 * v2
     iv = 1.0 / v
     # nodes before j0 (s -> 0, far from the boundary) add nothing, as in ``value_put``
-    j0 = nq
-    for j in range(nq):
+    j0: int = nq
+    for j in range(start, nq):
         if (lnxs - lq[j] + mum * nodes[0, j]) * iv * nodes[5, j] <= D_NEGLIGIBLE:
             j0 = j
             break
     if j0 < inner:
-        return True
+        return j0
     if want[0]:
         tp = terms[0]
         for j in range(j0, nq):
@@ -95,7 +97,7 @@ def point_premiums(lnxs: float, r: float, q: float, v: float, lq: np.ndarray,
             f_v = e * xs * iv * (rb[j] * dp - q * dm)
             tv[j] = nodes[1, j] * (f_v + f_l * dlq[0, j])
         out[3] = fsum(tv, j0, nq)
-    return False
+    return j0
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -103,17 +105,18 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                  g_ns: np.ndarray, g_lnsig: np.ndarray, g_lnb: np.ndarray, g_tan: np.ndarray,
                  wq_t: np.ndarray, power: float, ts_x: np.ndarray, ts_w: np.ndarray,
                  squares: bool, inner: int, lat: np.ndarray, edge: np.ndarray,
-                 todo: np.ndarray, z_pts: np.ndarray, z_max: float, to_coef: np.ndarray,
+                 todo: np.ndarray, z_pts: np.ndarray, z_max: float, to_coef_t: np.ndarray,
                  negligible: float, groups: np.ndarray, coef: np.ndarray,
                  tail: np.ndarray) -> None:
     """Tables of the premiums t (price, delta, gamma, vega) with ``todo[g, a, t]`` for each
     group g of ``groups`` and lattice vol a (ln σ ``lat[g, a]``, boundary ln B
     ``edge[g, a]``): their values at the points ``z_pts`` (N + 1,) standard deviations above
     the boundary (``point_premiums``; 0 beyond ``z_max``; on the boundary, z = 0 at
-    index N, the continuation's limits), their Chebyshev coefficients (``to_coef`` times the
-    values) into ``coef[g, a, t]`` and the largest z of a value not below ``negligible``
-    into ``tail[g, a, t]``. Group arguments as ``value_groups`` takes them; the price rule
-    ``ts_x``, ``ts_w`` and ``wq_t`` and ``inner`` as there."""
+    index N, the continuation's limits), their Chebyshev coefficients (the values times
+    ``to_coef_t``, the transpose of the map to coefficients) into ``coef[g, a, t]`` and the
+    largest z of a value not below ``negligible`` into ``tail[g, a, t]``. Group arguments as
+    ``value_groups`` takes them; the price rule ``ts_x``, ``ts_w`` and ``wq_t`` and ``inner``
+    as there."""
     nq = ts_x.size
     n = wq_t.shape[0]
     nsm = g_lnsig.shape[1]
@@ -174,18 +177,24 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
             for j in range(nq):
                 rb[j] = r * fexp(-lq[j])
             vst = v * root_t
-            for c in range(n_c - 1):
+            # the points from the boundary up (z rising), so that each starts its search of
+            # the first node that counts at the one below's
+            j0 = 0
+            for c in range(n_c - 2, -1, -1):
                 for t in range(n_t):
                     vals[t, c] = 0.0
                 if z_pts[c] > z_max:
                     continue
                 lnxs = edge[g, a] + vst * z_pts[c]
-                if point_premiums(lnxs, r, q, v, lq, dlq, rb, nodes, want, res, terms, inner):
+                j0 = point_premiums(lnxs, r, q, v, lq, dlq, rb, nodes, want, res, terms, j0,
+                                    inner)
+                if j0 < inner:
                     rule, lq_r, dlq_r, _ = refined_rule(lnxs, v, r, q, lq, dlq, d2lq, nodes,
                                                         inner)
                     for j in range(rule.shape[1]):
                         rb_r[j] = r * fexp(-lq_r[j])
-                    point_premiums(lnxs, r, q, v, lq_r, dlq_r, rb_r, rule, want, res, terms, 0)
+                    point_premiums(lnxs, r, q, v, lq_r, dlq_r, rb_r, rule, want, res, terms, 0,
+                                   0)
                 for t in range(n_t):
                     if want[t]:
                         vals[t, c] = max(res[t], 0.0) if t == 0 else res[t]
@@ -210,11 +219,16 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         first = c
                         break
                 tail[g, a, t] = z_pts[first]
+                # coefficient k is Σ_c to_coef[k, c] values[c], summed in the order of c
+                # for all k at once
+                ck = coef[g, a, t]
                 for k in range(n_c):
-                    total = 0.0
-                    for c in range(n_c):
-                        total += to_coef[k, c] * vals[t, c]
-                    coef[g, a, t, k] = total
+                    ck[k] = 0.0
+                for c in range(n_c):
+                    vc = vals[t, c]
+                    row = to_coef_t[c]
+                    for k in range(n_c):
+                        ck[k] += row[k] * vc
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})

@@ -122,6 +122,7 @@ def _lobatto() -> tuple[np.ndarray, np.ndarray]:
 
 
 _Z, _TO_COEF = _lobatto()
+_TO_COEF_T = np.ascontiguousarray(_TO_COEF.T)
 
 
 def american_cells(is_call: np.ndarray, spot: np.ndarray, strike: np.ndarray,
@@ -388,13 +389,17 @@ class _Near:
         out[ri, :, si, vi] = exact
 
 
-def _set_key(rate: float, div: float, tau: float, boundary: tuple[float, float, float, int],
-             which: int) -> tuple[float, ...]:
-    """Cache key of one group's table set: its put form, row time τ, the boundary it was built
-    on (τmax, first and last vol node, node count) and which premium it holds (index into
-    ``TABLE_OUTPUTS``)."""
-    tmax, lo, hi, ns = boundary
-    return (rate, div, tau, tmax, lo, hi, float(ns - 1), float(which))
+Boundary = tuple[float, float, float, float, float, float, float]
+"""A group's part of a set's cache key: its put form (rate, dividend yield), row time τ and
+the boundary the set is built on (τmax, first and last vol node, node count − 1)."""
+
+
+def _set_keys(bounds: Sequence[Boundary | None], which: int
+              ) -> list[tuple[float, ...] | None]:
+    """Cache keys of the groups' table sets of premium ``which`` (index into
+    ``TABLE_OUTPUTS``), None where a group has no boundary (``bounds``)."""
+    w = float(which)
+    return [None if b is None else (*b, w) for b in bounds]
 
 
 SET_WIDTH = CHEB_DEGREE + 3
@@ -402,27 +407,29 @@ SET_WIDTH = CHEB_DEGREE + 3
 
 
 def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: np.ndarray,
-            n_lat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            n_lat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
     """Coefficients (G, L, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where no
     table is kept) of the groups' lattice vols from their kept sets of one premium (``items``,
-    one per group or None), gathered in one indexing pass over all sets."""
+    one per group or None), gathered in one indexing pass over all sets; None when no set is
+    kept."""
+    have = [g for g, item in enumerate(items) if item is not None]
+    if not have:
+        return None
     n_g, nl_max = lat_first.size, int(n_lat.max())
     packed = np.full((n_g, nl_max, SET_WIDTH), np.nan)
-    have = [g for g, item in enumerate(items) if item is not None]
-    if have:
-        sets = [items[g] for g in have]
-        first = np.array([item[0] for item in sets if item is not None], dtype=np.int64)
-        big = np.concatenate([item[2] for item in sets if item is not None])
-        size = np.array([item[2].shape[0] for item in sets if item is not None])
-        start = np.concatenate([[0], np.cumsum(size)[:-1]])
-        g_have = np.array(have)
-        pos = lat_first[g_have, None] + np.arange(nl_max)[None, :] - first[:, None]
-        inside = (pos >= 0) & (pos < size[:, None]) & (
-            np.arange(nl_max)[None, :] < n_lat[g_have, None])
-        at = np.where(inside, start[:, None] + np.clip(pos, 0, size[:, None] - 1), 0)
-        rows = big[at]
-        rows[~inside] = np.nan
-        packed[g_have] = rows
+    sets = [items[g] for g in have]
+    first = np.array([item[0] for item in sets if item is not None], dtype=np.int64)
+    big = np.concatenate([item[2] for item in sets if item is not None])
+    size = np.array([item[2].shape[0] for item in sets if item is not None])
+    start = np.concatenate([[0], np.cumsum(size)[:-1]])
+    g_have = np.array(have)
+    pos = lat_first[g_have, None] + np.arange(nl_max)[None, :] - first[:, None]
+    inside = (pos >= 0) & (pos < size[:, None]) & (
+        np.arange(nl_max)[None, :] < n_lat[g_have, None])
+    at = np.where(inside, start[:, None] + np.clip(pos, 0, size[:, None] - 1), 0)
+    rows = big[at]
+    rows[~inside] = np.nan
+    packed[g_have] = rows
     edge = packed[:, :, 0]
     found = ~np.isnan(edge)
     tail = np.where(found, packed[:, :, 1], 0.0)
@@ -437,12 +444,13 @@ def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
     (G, 4) at every lattice vol they need (G,), and those tables: coefficients
     (G, L, 4, N + 1), tails (G, L, 4) and ln B (G, L; 0 where not kept)."""
     n_g = g_r.size
-    bounds: list[tuple[float, float, float, int] | None] = []
+    bounds: list[Boundary | None] = []
     for r, q, t, lo, hi in zip(g_r.tolist(), g_q.tolist(), g_t.tolist(), span[:n_g].tolist(),
                                span[n_g:].tolist(), strict=True):
         item = cache.find(r, q, t, lo, hi, True)
         bounds.append(None if item is None or item.steps < 0 else (
-            item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]), item.lnsig.size))
+            r, q, t, item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]),
+            float(item.lnsig.size - 1)))
     nl_max = int(n_lat.max())
     coef = np.zeros((n_g, nl_max, TABLE_OUTPUTS, CHEB_DEGREE + 1))
     tail = np.zeros((n_g, nl_max, TABLE_OUTPUTS))
@@ -450,12 +458,13 @@ def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
     ok = np.array([bd is not None for bd in bounds], dtype=bool)
     use = np.arange(nl_max)[None, :] < n_lat[:, None]
     for p in np.flatnonzero(need.any(axis=0)).tolist():
-        keys = [None if bd is None or not need[g, p] else _set_key(r, q, t, bd, p)
-                for g, (r, q, t, bd) in enumerate(zip(g_r.tolist(), g_q.tolist(), g_t.tolist(),
-                                                      bounds, strict=True))]
+        keys = _set_keys([bd if need[g, p] else None for g, bd in enumerate(bounds)], p)
         kept = iter(cache.tables([k for k in keys if k is not None]))
-        items = [None if k is None else next(kept) for k in keys]
-        coef[:, :, p], tail[:, :, p], at = _gather(items, lat_first, n_lat)
+        got = _gather([None if k is None else next(kept) for k in keys], lat_first, n_lat)
+        if got is None:
+            ok &= ~need[:, p]
+            continue
+        coef[:, :, p], tail[:, :, p], at = got
         ok &= ~(need[:, p, None] & use & np.isnan(at)).any(axis=1)
         edge = np.where(np.isnan(at), edge, at)
     return ok, coef, tail, edge
@@ -479,14 +488,17 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, need: np.ndarray,
     kept: dict[int, list[tuple[float, float, np.ndarray] | None]] = {}
     wanted = np.flatnonzero(need.any(axis=0)).tolist()
     if cache is not None:
-        bounds = [(float(grp.tmax[g]), float(grp.lnsig[g, 0]),
-                   float(grp.lnsig[g, grp.ns[g] - 1]), int(grp.ns[g])) for g in range(n_g)]
+        bounds: list[Boundary | None] = list(zip(
+            grp.rate.tolist(), grp.div.tolist(), grp.tau.tolist(), grp.tmax.tolist(),
+            grp.lnsig[:, 0].tolist(), grp.lnsig[np.arange(n_g), grp.ns - 1].tolist(),
+            (grp.ns - 1.0).tolist(), strict=True))
         for p in wanted:
-            keys[p] = [_set_key(float(grp.rate[g]), float(grp.div[g]), float(grp.tau[g]),
-                                bounds[g], p) for g in range(n_g)]
+            keys[p] = [k for k in _set_keys(bounds, p) if k is not None]
             kept[p] = cache.tables(keys[p])
-            coef[:, :, p], tail[:, :, p], have = _gather(kept[p], lat_first, n_lat)
-            todo[:, :, p] &= ~(have == edge)
+            got = _gather(kept[p], lat_first, n_lat)
+            if got is not None:
+                coef[:, :, p], tail[:, :, p], have = got
+                todo[:, :, p] &= ~(have == edge)
     if not todo.any():
         return coef, tail
     _tables(grp, todo, lat, edge, scheme, coef, tail)
@@ -536,7 +548,7 @@ def _tables(grp: american._Groups, todo: np.ndarray, lat: np.ndarray, edge: np.n
     args = (grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
             scheme.wq_t, scheme.power, scheme.ts_x, scheme.ts_w,  # type: ignore[attr-defined]
             scheme.squares, scheme.graded[1], np.ascontiguousarray(lat), edge, todo, _Z,
-            Z_CAP, _TO_COEF, TAIL_NEGLIGIBLE)
+            Z_CAP, _TO_COEF_T, TAIL_NEGLIGIBLE)
 
     def kernel(ins: Sequence[np.ndarray], outs: Sequence[np.ndarray]) -> None:
         for c in ins[0]:
