@@ -113,8 +113,8 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
     ``edge[g, a]``): their values at the points ``z_pts`` (N + 1,) standard deviations above
     the boundary (``point_premiums``; 0 beyond ``z_max``; on the boundary, z = 0 at
     index N, the continuation's limits), their Chebyshev coefficients (the values times
-    ``to_coef_t``, the transpose of the map to coefficients) into ``coef[g, a, t]`` and the
-    largest z of a value not below ``negligible`` into ``tail[g, a, t]``. Group arguments as
+    ``to_coef_t``, the transpose of the map to coefficients) into ``coef[t, g, a]`` and the
+    largest z of a value not below ``negligible`` into ``tail[t, g, a]``. Group arguments as
     ``value_groups`` takes them; the price rule ``ts_x``, ``ts_w`` and ``wq_t`` and ``inner``
     as there."""
     nq = ts_x.size
@@ -218,10 +218,10 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                     if abs(vals[t, c]) > negligible:
                         first = c
                         break
-                tail[g, a, t] = z_pts[first]
+                tail[t, g, a] = z_pts[first]
                 # coefficient k is Σ_c to_coef[k, c] values[c], summed in the order of c
                 # for all k at once
-                ck = coef[g, a, t]
+                ck = coef[t, g, a]
                 for k in range(n_c):
                     ck[k] = 0.0
                 for c in range(n_c):
@@ -243,25 +243,27 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
     of every cell (row m, spot shock i, vol column j) from the groups' tables, the outputs
     where ``outs`` is True (NaN elsewhere): the European value plus the early-exercise premium
     interpolated in z = (ln x − ln B(σ)) / (σ√τ) (Chebyshev coefficients ``g_coef``
-    (G, L, 4, N + 1) of the premiums of price, delta, gamma and vega in
-    ζ = (z − ``scale``) / (z + ``scale``), those of ``tabs`` (2, 4) read: row 0 for puts, 1
-    for calls) and in ln σ (Lagrange over ``points`` lattice vols), 0 beyond the largest
-    ``g_tail`` (G, L, 4) of those vols; cells at or beyond the boundary are intrinsic (delta
-    ±1, the rest 0). ``vols`` (m, n_s or 1, n_v); rows: group, ln of the put-form spot over
-    strike at the base spot, ω, spot, strike; row m's cells go to ``out[dest[m]]`` (rows,
-    len(outs), n_s, n_v). The spot points of one vol share its coefficients, so their
-    series are summed four at a time in registers."""
+    (n_t, G, L, N + 1) of the premiums of price, delta, gamma and vega, the first n_t of
+    them, in ζ = (z − ``scale``) / (z + ``scale``), those of ``tabs`` (2, n_t) read: row 0
+    for puts, 1 for calls) and in ln σ (Lagrange over ``points`` lattice vols), 0 beyond
+    the largest ``g_tail`` (n_t, G, L) of those vols; cells at or beyond the boundary are
+    intrinsic (delta ±1, the rest 0). ``vols`` (m, n_s or 1, n_v); rows: group, ln of the
+    put-form spot over strike at the base spot, ω, spot, strike; row m's cells go to
+    ``out[dest[m]]`` (rows, len(outs), n_s, n_v). The spot points of one vol share its
+    coefficients, so their series are summed four at a time in registers."""
     n_s = ln_shock.size
     n_v = vols.shape[2]
     n_out = outs.size
     per_spot = vols.shape[1] > 1
     n_c = g_coef.shape[3]
-    n_t = g_coef.shape[2]
+    n_t = g_coef.shape[0]
     lag = np.empty(points)
     coef = np.empty((n_t, n_c))
     tail = np.empty(n_t)
     lnx = np.empty(n_s)
+    zs = np.empty(n_s)
     zeta = np.empty(n_s)
+    live = np.empty(n_s, dtype=np.int64)
     pre = np.empty((n_t, n_s))
     res = np.empty(5)
     for m in range(row_lnx.size):
@@ -291,33 +293,38 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                     for k in range(points):
                         lnb += lag[k] * g_edge[g, a0 + k]
                     for t in range(n_t):
-                        tail[t] = 0.0
+                        tail_t = 0.0
+                        coef_t = coef[t]
                         for c in range(n_c):
-                            coef[t, c] = 0.0
-                        if not use[t]:
-                            continue
+                            coef_t[c] = 0.0
                         for k in range(points):
                             lk = lag[k]
-                            tail[t] = max(tail[t], g_tail[g, a0 + k, t])
-                            src = g_coef[g, a0 + k, t]
+                            tail_t = max(tail_t, g_tail[t, g, a0 + k])
+                            src = g_coef[t, g, a0 + k]
                             for c in range(n_c):
-                                coef[t, c] += lk * src[c]
+                                coef_t[c] += lk * src[c]
+                        tail[t] = tail_t
                 vst = v * st
                 for i in range(i0, i1):
                     lnx[i] = row_lnx[m] - ln_shock[i] if call else row_lnx[m] + ln_shock[i]
-                    z = max((lnx[i] - lnb) / vst, 0.0)
-                    zeta[i] = (z - scale) / (z + scale)
+                    zs[i] = (lnx[i] - lnb) / vst
                 for t in range(n_t):
                     if not use[t]:
                         continue
-                    # Clenshaw's recurrence for Σ c_k T_k(ζ), four spot points at a time in
-                    # registers (the last block repeats its last point)
+                    # the points above the boundary and within the table's tail
+                    n_live = 0
+                    for i in range(i0, i1):
+                        if lnx[i] > lnb and zs[i] <= tail[t]:
+                            zeta[i] = (zs[i] - scale) / (zs[i] + scale)
+                            live[n_live] = i
+                            n_live += 1
+                    # Clenshaw's recurrence for Σ c_k T_k(ζ), four points at a time in
+                    # registers, then one at a time
                     ct = coef[t]
-                    for i in range(i0, i1, 4):
-                        za = zeta[i]
-                        zb = zeta[min(i + 1, i1 - 1)]
-                        zc = zeta[min(i + 2, i1 - 1)]
-                        zd = zeta[min(i + 3, i1 - 1)]
+                    n4 = n_live // 4 * 4
+                    for k in range(0, n4, 4):
+                        ia, ib, ic, id_ = live[k], live[k + 1], live[k + 2], live[k + 3]
+                        za, zb, zc, zd = zeta[ia], zeta[ib], zeta[ic], zeta[id_]
                         a1 = a2 = b1 = b2 = c1 = c2 = d1 = d2 = 0.0
                         for c in range(n_c - 1, 0, -1):
                             cc = ct[c]
@@ -325,13 +332,17 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                             b1, b2 = 2.0 * zb * b1 - b2 + cc, b1
                             c1, c2 = 2.0 * zc * c1 - c2 + cc, c1
                             d1, d2 = 2.0 * zd * d1 - d2 + cc, d1
-                        pre[t, i] = za * a1 - a2 + ct[0]
-                        if i + 1 < i1:
-                            pre[t, i + 1] = zb * b1 - b2 + ct[0]
-                        if i + 2 < i1:
-                            pre[t, i + 2] = zc * c1 - c2 + ct[0]
-                        if i + 3 < i1:
-                            pre[t, i + 3] = zd * d1 - d2 + ct[0]
+                        pre[t, ia] = za * a1 - a2 + ct[0]
+                        pre[t, ib] = zb * b1 - b2 + ct[0]
+                        pre[t, ic] = zc * c1 - c2 + ct[0]
+                        pre[t, id_] = zd * d1 - d2 + ct[0]
+                    for k in range(n4, n_live):
+                        ia = live[k]
+                        za = zeta[ia]
+                        a1 = a2 = 0.0
+                        for c in range(n_c - 1, 0, -1):
+                            a1, a2 = 2.0 * za * a1 - a2 + ct[c], a1
+                        pre[t, ia] = za * a1 - a2 + ct[0]
                 for i in range(i0, i1):
                     s1 = row_s[m] * shock[i]
                     sc = s1 if call else row_k[m]
@@ -343,9 +354,9 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                         res[3] = 0.0
                         res[4] = 0.0
                     else:
-                        z = (lnx[i] - lnb) / vst
-                        for t in range(n_t):
-                            res[t] = pre[t, i] if (use[t] and z <= tail[t]) else 0.0
+                        for t in range(4):
+                            res[t] = (pre[t, i] if (t < n_t and use[t] and zs[i] <= tail[t])
+                                      else 0.0)
                         # the European put (strike 1, spot xs), as ``european_put``
                         d1 = (lnx[i] + (r - q + 0.5 * v * v) * tau) / vst
                         nd1, pd1 = ncdf_and_pdf(-d1)

@@ -504,18 +504,18 @@ def _exercise_grid(one: np.ndarray) -> None:
     _alo.edge_groups(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb, grp.tan,
                      DEFAULT.power, DEFAULT.squares, lnv[None, :].copy(),
                      np.array([2], dtype=np.int64), edge)
-    coef = np.zeros((1, 2, 4, 3))
+    coef = np.zeros((4, 1, 2, 3))
     _premium.table_points(grp.rate, grp.div, grp.tau, grp.tmax, grp.ns, grp.lnsig, grp.lnb,
                           grp.tan, DEFAULT.wq_t, DEFAULT.power,  # type: ignore[attr-defined]
                           DEFAULT.ts_x, DEFAULT.ts_w,  # type: ignore[attr-defined]
                           DEFAULT.squares, DEFAULT.graded[1], lnv[None, :].copy(), edge,
                           np.ones((1, 2, 4), dtype=np.bool_), np.array([np.inf, 4.0, 0.0]),
                           12.0, np.eye(3), 1e-10, np.zeros(1, dtype=np.int64), coef,
-                          np.zeros((1, 2, 4)))
+                          np.zeros((4, 1, 2)))
     for outs in (np.ones(1, dtype=np.bool_), np.ones(5, dtype=np.bool_)):
         out = np.empty((1, outs.size, 1, 1))
         _premium.table_cells(grp.rate, grp.div, grp.tau, np.array([-16], dtype=np.int64),
-                             np.array([2], dtype=np.int64), edge, np.ones((1, 2, 4)), coef,
+                             np.array([2], dtype=np.int64), edge, np.ones((4, 1, 2)), coef,
                              0.1, 2, 4.0, np.ones((2, 4), dtype=np.bool_), outs,
                              np.zeros(1, dtype=np.int64), np.zeros(1), -one[:1], one[:1],
                              one[:1], np.zeros(1), one[:1], np.full((1, 1, 1), 0.25),

@@ -284,8 +284,11 @@ def _tabulated(rows: np.ndarray, w: np.ndarray, s: np.ndarray, k: np.ndarray, t:
     sel = order[served]
     if sel.size:
         row_group = np.repeat(np.arange(n_g), counts)[served]
-        args = (g_r, g_q, g_t, lat_first, n_lat, edge, tail, coef, LATTICE_STEP,
-                LATTICE_POINTS, Z_SCALE, tabs, outs)
+        # the tables up to the last one read (a grid's price alone), so the cell kernel's
+        # loops over tables are no longer than they need be
+        n_t = int(np.flatnonzero(tabs.any(axis=0))[-1]) + 1
+        args = (g_r, g_q, g_t, lat_first, n_lat, edge, tail[:n_t], coef[:n_t], LATTICE_STEP,
+                LATTICE_POINTS, Z_SCALE, np.ascontiguousarray(tabs[:, :n_t]), outs)
         ln_shock = np.log(shocks)
         n_s, n_v = shocks.size, vol_rows.shape[2]
         b_s = np.ascontiguousarray(base_v[sel])
@@ -407,16 +410,15 @@ SET_WIDTH = CHEB_DEGREE + 3
 
 
 def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: np.ndarray,
-            n_lat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
-    """Coefficients (G, L, N + 1), tails (G, L) and boundary points ln B (G, L; NaN where no
-    table is kept) of the groups' lattice vols from their kept sets of one premium (``items``,
-    one per group or None), gathered in one indexing pass over all sets; None when no set is
-    kept."""
+            n_lat: np.ndarray, coef: np.ndarray, tail: np.ndarray) -> np.ndarray | None:
+    """The groups' kept tables of one premium (``items``, one set per group or None) at their
+    lattice vols, gathered in one indexing pass over all sets into ``coef`` (G, L, N + 1) and
+    ``tail`` (G, L) (left as they are where none is kept); returns their boundary points ln B
+    (G, L; NaN where no table is kept), or None when no set is kept."""
     have = [g for g, item in enumerate(items) if item is not None]
     if not have:
         return None
     n_g, nl_max = lat_first.size, int(n_lat.max())
-    packed = np.full((n_g, nl_max, SET_WIDTH), np.nan)
     sets = [items[g] for g in have]
     first = np.array([item[0] for item in sets if item is not None], dtype=np.int64)
     big = np.concatenate([item[2] for item in sets if item is not None])
@@ -426,15 +428,16 @@ def _gather(items: Sequence[tuple[float, float, np.ndarray] | None], lat_first: 
     pos = lat_first[g_have, None] + np.arange(nl_max)[None, :] - first[:, None]
     inside = (pos >= 0) & (pos < size[:, None]) & (
         np.arange(nl_max)[None, :] < n_lat[g_have, None])
-    at = np.where(inside, start[:, None] + np.clip(pos, 0, size[:, None] - 1), 0)
-    rows = big[at]
-    rows[~inside] = np.nan
-    packed[g_have] = rows
-    edge = packed[:, :, 0]
-    found = ~np.isnan(edge)
-    tail = np.where(found, packed[:, :, 1], 0.0)
-    coef = np.where(found[:, :, None], packed[:, :, 2:], 0.0)
-    return coef, tail, edge
+    gi, ai = np.nonzero(inside)
+    rows = big[(start[:, None] + pos)[gi, ai]]
+    # a kept set's lattice vols between those built hold NaN
+    built = ~np.isnan(rows[:, 0])
+    gi, ai, rows = g_have[gi[built]], ai[built], rows[built]
+    edge = np.full((n_g, nl_max), np.nan)
+    edge[gi, ai] = rows[:, 0]
+    tail[gi, ai] = rows[:, 1]
+    coef[gi, ai] = rows[:, 2:]
+    return edge
 
 
 def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
@@ -442,7 +445,7 @@ def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
                need: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Which groups have a kept boundary and kept tables of each premium they ``need``
     (G, 4) at every lattice vol they need (G,), and those tables: coefficients
-    (G, L, 4, N + 1), tails (G, L, 4) and ln B (G, L; 0 where not kept)."""
+    (4, G, L, N + 1), tails (4, G, L) and ln B (G, L; 0 where not kept)."""
     n_g = g_r.size
     bounds: list[Boundary | None] = []
     for r, q, t, lo, hi in zip(g_r.tolist(), g_q.tolist(), g_t.tolist(), span[:n_g].tolist(),
@@ -452,19 +455,19 @@ def _kept_sets(cache: american.BoundaryCache, g_r: np.ndarray, g_q: np.ndarray,
             r, q, t, item.tmax, float(item.lnsig[0]), float(item.lnsig[-1]),
             float(item.lnsig.size - 1)))
     nl_max = int(n_lat.max())
-    coef = np.zeros((n_g, nl_max, TABLE_OUTPUTS, CHEB_DEGREE + 1))
-    tail = np.zeros((n_g, nl_max, TABLE_OUTPUTS))
+    coef = np.zeros((TABLE_OUTPUTS, n_g, nl_max, CHEB_DEGREE + 1))
+    tail = np.zeros((TABLE_OUTPUTS, n_g, nl_max))
     edge = np.zeros((n_g, nl_max))
     ok = np.array([bd is not None for bd in bounds], dtype=bool)
     use = np.arange(nl_max)[None, :] < n_lat[:, None]
     for p in np.flatnonzero(need.any(axis=0)).tolist():
         keys = _set_keys([bd if need[g, p] else None for g, bd in enumerate(bounds)], p)
         kept = iter(cache.tables([k for k in keys if k is not None]))
-        got = _gather([None if k is None else next(kept) for k in keys], lat_first, n_lat)
-        if got is None:
+        at = _gather([None if k is None else next(kept) for k in keys], lat_first, n_lat,
+                     coef[p], tail[p])
+        if at is None:
             ok &= ~need[:, p]
             continue
-        coef[:, :, p], tail[:, :, p], at = got
         ok &= ~(need[:, p, None] & use & np.isnan(at)).any(axis=1)
         edge = np.where(np.isnan(at), edge, at)
     return ok, coef, tail, edge
@@ -474,15 +477,15 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, need: np.ndarray,
                    lat_first: np.ndarray, n_lat: np.ndarray, lat: np.ndarray, edge: np.ndarray,
                    scheme: american.Scheme, cache: american.BoundaryCache | None
                    ) -> tuple[np.ndarray, np.ndarray]:
-    """Coefficients (G, L, 4, N + 1) and tails (G, L, 4) of the premium tables each group
+    """Coefficients (4, G, L, N + 1) and tails (4, G, L) of the premium tables each group
     ``need``s (G, 4) at its lattice vols ``use`` (G, L) (0 elsewhere), those kept in
     ``cache`` taken from it and the others computed and kept. Each group keeps one array per
     premium, over a range of lattice vols (a table depends only on its boundary, τ and
     lattice vol, so a spot move or another grid or profile of the same valuation reuses
     it)."""
     n_g, nl_max = use.shape
-    coef = np.zeros((n_g, nl_max, TABLE_OUTPUTS, CHEB_DEGREE + 1))
-    tail = np.zeros((n_g, nl_max, TABLE_OUTPUTS))
+    coef = np.zeros((TABLE_OUTPUTS, n_g, nl_max, CHEB_DEGREE + 1))
+    tail = np.zeros((TABLE_OUTPUTS, n_g, nl_max))
     todo = use[:, :, None] & need[:, None, :]
     keys: dict[int, list[tuple[float, ...]]] = {}
     kept: dict[int, list[tuple[float, float, np.ndarray] | None]] = {}
@@ -495,9 +498,8 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, need: np.ndarray,
         for p in wanted:
             keys[p] = [k for k in _set_keys(bounds, p) if k is not None]
             kept[p] = cache.tables(keys[p])
-            got = _gather(kept[p], lat_first, n_lat)
-            if got is not None:
-                coef[:, :, p], tail[:, :, p], have = got
+            have = _gather(kept[p], lat_first, n_lat, coef[p], tail[p])
+            if have is not None:
                 todo[:, :, p] &= ~(have == edge)
     if not todo.any():
         return coef, tail
@@ -508,8 +510,8 @@ def _cached_tables(grp: american._Groups, use: np.ndarray, need: np.ndarray,
     for p in wanted:
         built = todo[:, :, p]
         # each lattice vol as a row of its set: ln B (NaN where none is built), tail, coef
-        rows = np.concatenate([np.where(built, edge, np.nan)[:, :, None],
-                               tail[:, :, p, None], coef[:, :, p]], axis=2)
+        rows = np.concatenate([np.where(built, edge, np.nan)[:, :, None], tail[p, :, :, None],
+                               coef[p]], axis=2)
         for g in np.flatnonzero(built.any(axis=1)).tolist():
             fresh[keys[p][g]] = _merged(kept[p][g], int(lat_first[g]), rows[g, :n_lat[g]])
     cache.keep_tables(fresh)
@@ -534,9 +536,9 @@ def _merged(old: tuple[float, float, np.ndarray] | None, first: int, rows: np.nd
 
 def _tables(grp: american._Groups, todo: np.ndarray, lat: np.ndarray, edge: np.ndarray,
             scheme: american.Scheme, coef: np.ndarray, tail: np.ndarray) -> None:
-    """Chebyshev coefficients ``coef`` (G, L, 4, N + 1) of the groups' premium tables at their
+    """Chebyshev coefficients ``coef`` (4, G, L, N + 1) of the groups' premium tables at their
     lattice vols where ``todo`` (G, L, 4), from the premiums of synthetic puts (strike 1) at
-    the table's points, and each table's tail ``tail`` (G, L, 4): the largest z of a point
+    the table's points, and each table's tail ``tail`` (4, G, L): the largest z of a point
     whose premium is not below ``TAIL_NEGLIGIBLE`` (``_premium.table_points``, on the thread
     pool; other entries are left as they are)."""
     groups = np.flatnonzero(todo.any(axis=(1, 2)))
