@@ -263,7 +263,7 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
     lnx = np.empty(n_s)
     zs = np.empty(n_s)
     zeta = np.empty(n_s)
-    live = np.empty(n_s, dtype=np.int64)
+    live = np.empty(n_s + 3, dtype=np.int64)
     pre = np.empty((n_t, n_s))
     res = np.empty(5)
     for m in range(row_lnx.size):
@@ -308,7 +308,11 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                 for i in range(i0, i1):
                     lnx[i] = row_lnx[m] - ln_shock[i] if call else row_lnx[m] + ln_shock[i]
                     zs[i] = (lnx[i] - lnb) / vst
-                for t in range(n_t):
+                # with four spot points or more, their series four at a time in registers
+                # (the last block padded with its last point); fewer are summed one by one
+                # below
+                blocks = i1 - i0 >= 4
+                for t in range(n_t if blocks else 0):
                     if not use[t]:
                         continue
                     # the points above the boundary and within the table's tail
@@ -318,11 +322,11 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                             zeta[i] = (zs[i] - scale) / (zs[i] + scale)
                             live[n_live] = i
                             n_live += 1
-                    # Clenshaw's recurrence for Σ c_k T_k(ζ), four points at a time in
-                    # registers, then one at a time
+                    # Clenshaw's recurrence for Σ c_k T_k(ζ)
                     ct = coef[t]
-                    n4 = n_live // 4 * 4
-                    for k in range(0, n4, 4):
+                    for k in range(n_live, n_live + (-n_live) % 4):
+                        live[k] = live[n_live - 1]
+                    for k in range(0, n_live, 4):
                         ia, ib, ic, id_ = live[k], live[k + 1], live[k + 2], live[k + 3]
                         za, zb, zc, zd = zeta[ia], zeta[ib], zeta[ic], zeta[id_]
                         a1 = a2 = b1 = b2 = c1 = c2 = d1 = d2 = 0.0
@@ -336,13 +340,6 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                         pre[t, ib] = zb * b1 - b2 + ct[0]
                         pre[t, ic] = zc * c1 - c2 + ct[0]
                         pre[t, id_] = zd * d1 - d2 + ct[0]
-                    for k in range(n4, n_live):
-                        ia = live[k]
-                        za = zeta[ia]
-                        a1 = a2 = 0.0
-                        for c in range(n_c - 1, 0, -1):
-                            a1, a2 = 2.0 * za * a1 - a2 + ct[c], a1
-                        pre[t, ia] = za * a1 - a2 + ct[0]
                 for i in range(i0, i1):
                     s1 = row_s[m] * shock[i]
                     sc = s1 if call else row_k[m]
@@ -355,8 +352,17 @@ def table_cells(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_first_lat
                         res[4] = 0.0
                     else:
                         for t in range(4):
-                            res[t] = (pre[t, i] if (t < n_t and use[t] and zs[i] <= tail[t])
-                                      else 0.0)
+                            res[t] = 0.0
+                            if t >= n_t or not use[t] or zs[i] > tail[t]:
+                                continue
+                            if blocks:
+                                res[t] = pre[t, i]
+                                continue
+                            za = (zs[i] - scale) / (zs[i] + scale)
+                            a1 = a2 = 0.0
+                            for c in range(n_c - 1, 0, -1):
+                                a1, a2 = 2.0 * za * a1 - a2 + coef[t, c], a1
+                            res[t] = za * a1 - a2 + coef[t, 0]
                         # the European put (strike 1, spot xs), as ``european_put``
                         d1 = (lnx[i] + (r - q + 0.5 * v * v) * tau) / vst
                         nd1, pd1 = ncdf_and_pdf(-d1)
