@@ -1255,9 +1255,67 @@ def value_groups(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
         last = -1.0
         for row in by_vol:
             v = max(row_v[row], vol_min)
-            if v != last:
-                boundary_at(g_lnsig[g], ns, math.log(v), v, lq_k, dlq_k, 2 if greeks else 0,
-                            lq, dlq, d2lq, w0, w1, lag, acc)
+            if v == last:
+                pass
+            elif ns == 1:
+                for j in range(nq + 1):
+                    lq[j] = lq_k[0, j]
+                if greeks:
+                    iv = 1.0 / v
+                    for j in range(nq + 1):
+                        a1 = dlq_k[0, 0, j]
+                        dlq[0, j] = a1 * iv
+                        dlq[1, j] = dlq_k[0, 1, j]
+                        dlq[2, j] = dlq_k[0, 2, j]
+                        d2lq[j] = (dlq_k[0, 3, j] - a1) * iv * iv
+            else:
+                # the WINDOW nodes around the row's vol (all of them in smaller groups)
+                lv = math.log(v)
+                width = min(ns, WINDOW)
+                k0 = 0
+                while k0 + width < ns and g_lnsig[g, k0 + width // 2] < lv:
+                    k0 += 1
+                hermite_weights(lv, g_lnsig[g, k0:k0 + width], width, w0, w1, lag)
+                nacc = 5 if greeks else 1
+                for a in range(nacc):
+                    for j in range(nq + 1):
+                        acc[a, j] = 0.0
+                for kw in range(width):
+                    k = k0 + kw
+                    c00 = w0[0, kw]
+                    c01 = w1[0, kw]
+                    fk = lq_k[k]
+                    dk = dlq_k[k, 0]
+                    a0 = acc[0]
+                    for j in range(nq + 1):
+                        a0[j] += c00 * fk[j] + c01 * dk[j]
+                    if not greeks:
+                        continue
+                    c10 = w0[1, kw]
+                    c11 = w1[1, kw]
+                    c20 = w0[2, kw]
+                    c21 = w1[2, kw]
+                    lk = lag[kw]
+                    rk = dlq_k[k, 1]
+                    bk = dlq_k[k, 2]
+                    a1 = acc[1]
+                    a2 = acc[2]
+                    ar = acc[3]
+                    ab = acc[4]
+                    for j in range(nq + 1):
+                        a1[j] += c10 * fk[j] + c11 * dk[j]
+                        a2[j] += c20 * fk[j] + c21 * dk[j]
+                        ar[j] += lk * rk[j]
+                        ab[j] += lk * bk[j]
+                for j in range(nq + 1):
+                    lq[j] = acc[0, j]
+                if greeks:
+                    iv = 1.0 / v
+                    for j in range(nq + 1):
+                        dlq[0, j] = acc[1, j] * iv
+                        dlq[1, j] = acc[3, j]
+                        dlq[2, j] = acc[4, j]
+                        d2lq[j] = (acc[2, j] - acc[1, j]) * iv * iv
             last = v
             if value_put(row_lnx[row], tau, r, q, row_v[row], lq, dlq, d2lq, nodes, greeks,
                          eu, res, terms, inner):
@@ -1390,72 +1448,3 @@ def group_nodes(tau: float, tmax: float, r: float, q: float, ts_x: np.ndarray,
         for k in range(n):
             own[k, j] = wrow[k]
     return own
-
-
-@njit(cache=True, nogil=True, error_model="numpy", inline="always",
-      fastmath={"contract"})
-def boundary_at(lnsig: np.ndarray, ns: int, lv: float, v: float, lq_k: np.ndarray,
-                dlq_k: np.ndarray, level: int, lq: np.ndarray, dlq: np.ndarray,
-                d2lq: np.ndarray, w0: np.ndarray, w1: np.ndarray, lag: np.ndarray,
-                acc: np.ndarray) -> None:
-    """ln B at the price nodes into ``lq`` (nq + 1,) at vol ``v`` (ln σ = ``lv``), from a
-    group's ``ns`` vol nodes ``lnsig`` with their values ``lq_k`` and derivatives ``dlq_k``
-    (``boundary_table``): the lone node of a group of one vol, else Hermite interpolation in
-    ln σ over the ``WINDOW`` nodes around ``lv``. ``level`` 1 adds its σ-derivative
-    (``dlq[0]``), 2 also its r- and b-derivatives (``dlq[1:3]``, Lagrange) and its second
-    σ-derivative (``d2lq``); ``w0``, ``w1``, ``lag`` and ``acc`` (5, nq + 1) are scratch."""
-    nq1 = lq.size
-    if ns == 1:
-        for j in range(nq1):
-            lq[j] = lq_k[0, j]
-        if level > 0:
-            iv = 1.0 / v
-            for j in range(nq1):
-                a1 = dlq_k[0, 0, j]
-                dlq[0, j] = a1 * iv
-                if level > 1:
-                    dlq[1, j] = dlq_k[0, 1, j]
-                    dlq[2, j] = dlq_k[0, 2, j]
-                    d2lq[j] = (dlq_k[0, 3, j] - a1) * iv * iv
-        return
-    # the WINDOW nodes around the row's vol (all of them in smaller groups)
-    width = min(ns, WINDOW)
-    k0 = 0
-    while k0 + width < ns and lnsig[k0 + width // 2] < lv:
-        k0 += 1
-    hermite_weights(lv, lnsig[k0:k0 + width], width, w0, w1, lag)
-    for a in range(5 if level > 1 else level + 1):
-        for j in range(nq1):
-            acc[a, j] = 0.0
-    for kw in range(width):
-        k = k0 + kw
-        fk = lq_k[k]
-        dk = dlq_k[k, 0]
-        # Hermite in values and σ-derivatives: ln B and its first and second σ-derivatives
-        for d in range(level + 1):
-            c0 = w0[d, kw]
-            c1 = w1[d, kw]
-            ad = acc[d]
-            for j in range(nq1):
-                ad[j] += c0 * fk[j] + c1 * dk[j]
-        if level < 2:
-            continue
-        # Lagrange in the values alone: the r- and b-derivatives
-        lk = lag[kw]
-        rk = dlq_k[k, 1]
-        bk = dlq_k[k, 2]
-        ar = acc[3]
-        ab = acc[4]
-        for j in range(nq1):
-            ar[j] += lk * rk[j]
-            ab[j] += lk * bk[j]
-    for j in range(nq1):
-        lq[j] = acc[0, j]
-    if level > 0:
-        iv = 1.0 / v
-        for j in range(nq1):
-            dlq[0, j] = acc[1, j] * iv
-            if level > 1:
-                dlq[1, j] = acc[3, j]
-                dlq[2, j] = acc[4, j]
-                d2lq[j] = (acc[2, j] - acc[1, j]) * iv * iv

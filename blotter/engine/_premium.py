@@ -4,7 +4,7 @@ premiums of a put (strike 1) at the points of each table, and grid cells from th
 A table point's premium is the quadrature of ``_alo.value_put`` without its European part (the
 premium integral alone, so nothing cancels), on the price nodes and the boundary that
 ``_alo.value_groups`` gives a row of the lattice vol (``_alo.group_nodes``,
-``_alo.boundary_at``), with the same cut of negligible nodes and the same
+``lattice_boundary``), with the same cut of negligible nodes and the same
 ``_alo.refined_rule`` next to the boundary. Each premium (price, delta, gamma, vega) has a
 loop of its own over the nodes, so that a table of one of them costs only its own terms (the
 price two normal CDFs per node, the delta one, gamma and vega one exponential) and each loop
@@ -22,15 +22,59 @@ from numba import njit
 from blotter.engine._alo import (
     D_NEGLIGIBLE,
     LAYER_POINTS,
-    boundary_at,
+    WINDOW,
     boundary_table,
     european_put,
     fsum,
     group_nodes,
+    hermite_weights,
     lattice_weights,
     refined_rule,
 )
 from blotter.engine._special import fexp, ncdf, ncdf_and_pdf, npdf
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def lattice_boundary(g_lnsig: np.ndarray, g: int, ns: int, lv: float, v: float,
+                     lq_k: np.ndarray, dlq_k: np.ndarray, slope: bool, lq: np.ndarray,
+                     dlq: np.ndarray, w0: np.ndarray, w1: np.ndarray, lag: np.ndarray,
+                     acc: np.ndarray) -> None:
+    """ln B at the price nodes into ``lq`` (nq + 1,) at vol ``v`` (ln σ = ``lv``), from group
+    g's ``ns`` vol nodes ``g_lnsig[g]`` with their values ``lq_k`` and ln σ-derivatives
+    ``dlq_k[:, 0]`` (``boundary_table``), as ``value_groups`` interpolates it for a row of
+    that vol; with ``slope``, its derivative per unit σ into ``dlq[0]``. ``w0``, ``w1``,
+    ``lag`` and ``acc`` (2, nq + 1) are scratch."""
+    nq1 = lq.size
+    iv = 1.0 / v
+    if ns == 1:
+        for j in range(nq1):
+            lq[j] = lq_k[0, j]
+            if slope:
+                dlq[0, j] = dlq_k[0, 0, j] * iv
+        return
+    # the WINDOW nodes around the vol (all of them in smaller groups)
+    width = min(ns, WINDOW)
+    k0 = 0
+    while k0 + width < ns and g_lnsig[g, k0 + width // 2] < lv:
+        k0 += 1
+    hermite_weights(lv, g_lnsig[g, k0:k0 + width], width, w0, w1, lag)
+    for j in range(nq1):
+        acc[0, j] = 0.0
+        acc[1, j] = 0.0
+    for kw in range(width):
+        fk = lq_k[k0 + kw]
+        dk = dlq_k[k0 + kw, 0]
+        # Hermite in values and σ-derivatives: ln B, and its σ-derivative for the slope
+        for d in range(2 if slope else 1):
+            c0 = w0[d, kw]
+            c1 = w1[d, kw]
+            ad = acc[d]
+            for j in range(nq1):
+                ad[j] += c0 * fk[j] + c1 * dk[j]
+    for j in range(nq1):
+        lq[j] = acc[0, j]
+        if slope:
+            dlq[0, j] = acc[1, j] * iv
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -130,7 +174,7 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
     w0 = np.empty((3, nsm))
     w1 = np.empty((3, nsm))
     lag = np.empty(nsm)
-    acc = np.empty((5, nq + 1))
+    acc = np.empty((2, nq + 1))
     nodes = np.empty((6, nq))
     own = np.empty((n, nq + 1))
     wrow = np.empty(n)
@@ -172,8 +216,8 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                 continue
             v = math.exp(lat[g, a])
             # as ``value_groups`` for a row of this vol: ln B, and its σ-derivative for vega
-            boundary_at(g_lnsig[g], ns, lat[g, a], v, lq_k, dlq_k, 1 if want[3] else 0, lq,
-                        dlq, d2lq, w0, w1, lag, acc)
+            lattice_boundary(g_lnsig, g, ns, lat[g, a], v, lq_k, dlq_k, want[3], lq, dlq, w0,
+                             w1, lag, acc)
             for j in range(nq):
                 rb[j] = r * fexp(-lq[j])
             vst = v * root_t
