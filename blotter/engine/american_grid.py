@@ -74,7 +74,7 @@ below 1e-12 of its strike, and its table cells are kept."""
 ROWS_PER_TASK = 256
 """Rows per unit of work of the cell kernel on the thread pool."""
 TABLES_PER_TASK = 32
-"""(Group, lattice vol, pair) tables per unit of work of the table kernel on the thread pool
+"""(Group, lattice vol, premium) tables per unit of work of the table kernel on the thread pool
 (about 0.3 ms of work each)."""
 BLOCK_ROWS = 8192
 """Rows whose cells are held at once (with greeks and 31 spot points, 10 MB)."""
