@@ -990,7 +990,8 @@ LAYER_POINTS = 24
 """Gauss–Legendre points of ``refined_rule``'s layer integral."""
 LAYER_TOP = D_NEGLIGIBLE + 1.5
 """Largest d = ln(S/B)/(σ√s) of ``refined_rule``'s layer integral (beyond it, φ(d) < 1e-20)."""
-_LAYER_Y, _LAYER_W = np.polynomial.legendre.leggauss(LAYER_POINTS)
+LAYER_NODES, LAYER_WEIGHTS = np.polynomial.legendre.leggauss(LAYER_POINTS)
+"""Gauss–Legendre nodes on [−1, 1] and weights of ``refined_rule``'s layer integral."""
 
 
 @njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
@@ -1016,12 +1017,12 @@ def refined_rule(lnxs: float, v: float, r: float, q: float, lq: np.ndarray, dlq:
     dlq_r = np.empty((3, nr + 1))
     d2lq_r = np.empty(nr + 1)
     for i in range(LAYER_POINTS):
-        z = z1 + half * (1.0 - _LAYER_Y[i])  # descending z: ascending y
+        z = z1 + half * (1.0 - LAYER_NODES[i])  # descending z: ascending y
         y = d0 / z
         s = y * y
         f = s / s_hi
         nodes_r[0, i] = s
-        nodes_r[1, i] = 2.0 * y * (d0 / (z * z)) * half * _LAYER_W[i]
+        nodes_r[1, i] = 2.0 * y * (d0 / (z * z)) * half * LAYER_WEIGHTS[i]
         nodes_r[2, i] = y
         nodes_r[3, i] = fexp(-r * s)
         nodes_r[4, i] = fexp(-q * s)

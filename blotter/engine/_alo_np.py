@@ -22,8 +22,9 @@ from blotter.engine._alo import (
     BORROW_MAX,
     BORROW_SPAN,
     D_NEGLIGIBLE,
-    LAYER_POINTS,
+    LAYER_NODES,
     LAYER_TOP,
+    LAYER_WEIGHTS,
     LOOKBACK,
     MAX_STEP,
     NEWTON_MAX,
@@ -609,13 +610,12 @@ def refined_rule(lnxs: float, v: float, r: float, q: float, lq: np.ndarray, dlq:
     d0 = (lnxs - lq[nq]) / v
     z1 = d0 / y1
     half = 0.5 * (max(LAYER_TOP, z1) - z1)
-    gy, gw = np.polynomial.legendre.leggauss(LAYER_POINTS)
-    z = z1 + half * (1.0 - gy)
+    z = z1 + half * (1.0 - LAYER_NODES)
     y = d0 / z
     s_r = y * y
     f = s_r / (y_hi * y_hi)
     nodes_r = (np.concatenate([s_r, s[inner:]]),
-               np.concatenate([2.0 * y * (d0 / (z * z)) * half * gw, wt[inner:]]),
+               np.concatenate([2.0 * y * (d0 / (z * z)) * half * LAYER_WEIGHTS, wt[inner:]]),
                np.concatenate([y, ss[inner:]]), np.concatenate([np.exp(-r * s_r), er[inner:]]),
                np.concatenate([np.exp(-q * s_r), eq[inner:]]),
                np.concatenate([1.0 / y, iss[inner:]]))

@@ -244,8 +244,8 @@ def table_points(g_r: np.ndarray, g_q: np.ndarray, g_tau: np.ndarray, g_tmax: np
                         vals[t, c] = max(res[t], 0.0) if t == 0 else res[t]
             # on the boundary, exactly: the value 1 − B, delta −1, vega 0 (the value touches
             # intrinsic smoothly) and gamma from the Black–Scholes equation with θ = 0 there,
-            # Γ = 2 (r − q B) / (σ² B²), each less the European put's; quadratures of gamma
-            # just above the boundary miss a layer of width z² in time
+            # Γ = 2 (r − q B) / (σ² B²), each less the European put's: the continuation
+            # side's limits, where the quadrature at z = 0 gives the exercise side's values
             x = math.exp(edge[g, a])
             european_put(x, tau, r, q, v, eu)
             vals[0, n_c - 1] = max(1.0 - x - eu[0], 0.0)

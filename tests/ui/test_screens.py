@@ -436,15 +436,26 @@ async def test_a_trade_price_far_from_the_model_value_asks_before_booking(demo_d
         before = counts(demo_db)
         await fill(pilot, "DEMOFU", "", "", "", "1", "1.23")
         await pilot.press("f5")
-        await settle(app, pilot)
-        assert isinstance(app.screen, TradeForm)
-        said = str(app.screen.query_one("#form-message").render())
-        assert "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96" in said
-        assert "F5 (or Enter) again to book it" in said and counts(demo_db) == before
-        await pilot.press("f5")
-        await settle(app, pilot)
-        assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
-        assert counts(demo_db)[0] == before[0] + 1
+        await _asks_then_books(
+            app, pilot, demo_db, before,
+            "price 1.23 for DEMOFU is -4,825.73 from its model value 4,826.96",
+        )
+
+
+async def _asks_then_books(
+    app: BlotterApp, pilot: Any, db: Path, before: tuple[int, int, int], words: str
+) -> None:
+    """After an F5: the trade form asks in ``words`` and has written nothing; F5 again books
+    the one trade."""
+    await settle(app, pilot)
+    assert isinstance(app.screen, TradeForm)
+    said = str(app.screen.query_one("#form-message").render())
+    assert words in said
+    assert "F5 (or Enter) again to book it" in said and counts(db) == before
+    await pilot.press("f5")
+    await settle(app, pilot)
+    assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
+    assert counts(db)[0] == before[0] + 1
 
 
 async def test_a_new_contract_expiring_on_an_exchange_holiday_asks_before_booking(
@@ -463,15 +474,10 @@ async def test_a_new_contract_expiring_on_an_exchange_holiday_asks_before_bookin
         await pilot.press("f5")  # the new contract's question
         await settle(app, pilot)
         await pilot.press("f5")
-        await settle(app, pilot)
-        assert isinstance(app.screen, TradeForm)
-        said = str(app.screen.query_one("#form-message").render())
-        assert "is Good Friday, an exchange holiday on DEMOA's NYSE calendar" in said
-        assert "F5 (or Enter) again to book it" in said and counts(demo_db) == before
-        await pilot.press("f5")
-        await settle(app, pilot)
-        assert isinstance(app.screen, TradesScreen) and "booked" in message(app)
-        assert counts(demo_db)[0] == before[0] + 1
+        await _asks_then_books(
+            app, pilot, demo_db, before,
+            "is Good Friday, an exchange holiday on DEMOA's NYSE calendar",
+        )
 
 
 async def test_a_trial_at_a_price_far_from_the_model_value_asks_before_staging(
